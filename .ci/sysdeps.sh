@@ -1,0 +1,21 @@
+#!/usr/bin/env bash
+# Installs the Debian packages Kivy needs to open a window ("run") and Xvfb for tests ("test").
+# As root it installs what is missing; otherwise it prints the one line to run.
+set -eu
+want=(libgl1-mesa-dri libegl1 libgl1 libmtdev1)
+[ "${1:-run}" = test ] && want+=(xvfb xauth)
+command -v dpkg-query >/dev/null 2>&1 || exit 0
+missing=()
+for p in "${want[@]}"; do
+  dpkg-query -W -f='${Status}' "$p" 2>/dev/null | grep -q 'install ok installed' || missing+=("$p")
+done
+[ ${#missing[@]} -eq 0 ] && exit 0
+if [ "$(id -u)" -eq 0 ]; then
+  echo "streamtab: installing system packages: ${missing[*]}"
+  export DEBIAN_FRONTEND=noninteractive
+  apt-get update -qq
+  apt-get install -y -qq --no-install-recommends "${missing[@]}" >/dev/null
+else
+  echo "streamtab: missing system packages; run: sudo apt-get install -y ${missing[*]}"
+  exit 1
+fi

@@ -1,0 +1,38 @@
+# streamtab: the two set-up commands are `make run` and `make test`; `make bench` measures.
+PY      ?= python3
+VENV    := .venv
+BIN     := $(VENV)/bin
+STAMP   := $(VENV)/.streamtab-installed
+DEMO    ?= .demo-data
+XVFB    := xvfb-run -a -s "-screen 0 1280x800x24"
+
+.PHONY: run test bench sysdeps-run sysdeps-test clean-demo
+
+$(STAMP): pyproject.toml
+	@test -x $(BIN)/python || $(PY) -m venv $(VENV)
+	$(BIN)/python -m pip install -q --upgrade pip
+	$(BIN)/python -m pip install -q -e '.[test]'
+	@touch $(STAMP)
+
+sysdeps-run:
+	@bash .ci/sysdeps.sh run
+
+sysdeps-test:
+	@bash .ci/sysdeps.sh test
+
+# Opens the touch app on a demo data folder seeded from sample_trips/ on first start.
+run: sysdeps-run $(STAMP)
+	@$(BIN)/streamtab app --data-dir $(DEMO) --seed-demo sample_trips
+
+# Passes every test with no display attached: Xvfb is started when DISPLAY is unset.
+test: sysdeps-test $(STAMP)
+	@if [ -z "$$DISPLAY" ]; then $(XVFB) $(BIN)/python -m pytest $(PYTEST_ARGS); \
+	else $(BIN)/python -m pytest $(PYTEST_ARGS); fi
+
+# Benchmarks print medians and ratios; they are never part of `make test`.
+bench: sysdeps-test $(STAMP)
+	@if [ -z "$$DISPLAY" ]; then $(XVFB) $(BIN)/python -m tests.bench; \
+	else $(BIN)/python -m tests.bench; fi
+
+clean-demo:
+	rm -rf $(DEMO)

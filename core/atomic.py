@@ -1,0 +1,55 @@
+"""Crash-safe file writes and the canonical bytes of a JSON document (shared by the store and sync)."""
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import tempfile
+from pathlib import Path
+from typing import Any
+
+__all__ = ["atomic_write_bytes", "canonical_json_bytes", "content_hash", "fsync_dir"]
+
+
+def fsync_dir(path: Path) -> None:
+    """fsyncs a directory so that a rename inside it survives power loss (POSIX)."""
+    fd = os.open(path, os.O_RDONLY | getattr(os, "O_DIRECTORY", 0))
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def atomic_write_bytes(path: Path | str, data: bytes) -> None:
+    """Writes `data` to `path` so that a reader sees the old file or the new one, never a part.
+
+    Temporary file in the same folder → write → fsync → os.replace → fsync the folder. When this
+    returns, the new content is on disk.
+    """
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+    fsync_dir(path.parent)
+
+
+def canonical_json_bytes(doc: Any) -> bytes:
+    """The one byte form of a JSON document: sorted keys, UTF-8, no NaN/Infinity, trailing newline."""
+    return (json.dumps(doc, sort_keys=True, ensure_ascii=False, allow_nan=False,
+                       separators=(",", ":")) + "\n").encode("utf-8")
+
+
+def content_hash(doc: Any) -> str:
+    """sha256 of the canonical bytes, as ``"sha256:<hex>"``."""
+    return "sha256:" + hashlib.sha256(canonical_json_bytes(doc)).hexdigest()

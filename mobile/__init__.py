@@ -1,0 +1,1 @@
+"""streamtab shells: the Kivy touch app and the desk command line."""

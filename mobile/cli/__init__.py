@@ -1,0 +1,36 @@
+"""The `streamtab` command line: science at the desk, trips in the store, sync, and the touch app."""
+from __future__ import annotations
+
+import sys
+
+from mobile.cli._common import EXIT_BAD_INPUT, CliError, OneLineParser
+
+__all__ = ["main"]
+
+
+def build_parser() -> OneLineParser:
+    from mobile.cli import app_cmd, science_cmds, sync_cmds, trip_cmds
+
+    parser = OneLineParser(
+        prog="streamtab",
+        description="Dissolved-oxygen field work: saturation targets, trip records, sync.",
+    )
+    sub = parser.add_subparsers(dest="command", required=True, parser_class=OneLineParser)
+    science_cmds.register(sub)
+    trip_cmds.register(sub)
+    sync_cmds.register(sub)
+    app_cmd.register(sub)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(args.handler(args) or 0)
+    except CliError as exc:
+        sys.stderr.write(f"streamtab: {exc}\n")
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        sys.stderr.write("streamtab: interrupted\n")
+        return 130

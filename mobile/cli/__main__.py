@@ -1,0 +1,6 @@
+"""Allows `python -m mobile.cli`."""
+import sys
+
+from mobile.cli import main
+
+sys.exit(main())
