@@ -8,7 +8,7 @@ from core import conductivity as cond
 from core import oxygen
 from core._validate import choice, real
 from core.criteria import Criteria, do_criteria_flags
-from core.flags import Flag
+from core.flags import Flag, Severity
 from core.pressure import sea_level_adjusted_flag
 from core.temperature import fahrenheit_hint
 
@@ -122,6 +122,14 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
     s = float(s)
 
     flags: list[Flag] = []
+    if s < 0.0:
+        # PSS-78 with Hill et al. dips just below zero for nearly pure water (< ~2–3 µS/cm); say so and use 0.
+        flags.append(Flag(
+            "salinity.below_formula_range", Severity.NOTE,
+            f"Conductivity {float(conductivity_us_cm):g} µS/cm is below what PSS-78 resolves (it gives"
+            f" {s:.5f}); salinity is taken as 0, which changes the saturation by less than 0.001 %.",
+            "Nothing to do unless the meter should read more: check the conductivity cell.", "salinity"))
+        s = 0.0
     hint = fahrenheit_hint(t)
     if hint is not None:
         flags.append(hint)
