@@ -9,7 +9,7 @@ from core import oxygen
 from core._validate import choice, real
 from core.criteria import Criteria, do_criteria_flags
 from core.flags import Flag, Severity
-from core.pressure import sea_level_adjusted_flag
+from core.pressure import station_pressure_flags
 from core.temperature import fahrenheit_hint
 
 __all__ = ["Assessment", "assess_reading", "SALINITY_SOURCES"]
@@ -76,7 +76,7 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
     method : {"benson-krause", "garcia-gordon"}
         Saturation equation (:func:`core.oxygen.do_saturation_mg_l`).
     elevation_m : float, optional
-        Site elevation, m; enables the sea-level-adjusted pressure check.
+        Site elevation, m; enables the station-pressure checks (sea-level adjusted; far below standard).
     water_class : {"warm", "cold"}, optional
         The stream's class for the criteria check.
     criteria : core.criteria.Criteria, optional
@@ -135,9 +135,7 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
         flags.append(hint)
     flags.extend(oxygen.saturation_range_flags(t, p, s))
     if elevation_m is not None:
-        f = sea_level_adjusted_flag(p, float(real(elevation_m, "elevation_m")))
-        if f is not None:
-            flags.append(f)
+        flags.extend(station_pressure_flags(p, float(real(elevation_m, "elevation_m"))))
 
     sat = float(oxygen.do_saturation_mg_l(t, p, s, method))
     pct = None
