@@ -74,7 +74,10 @@ def _sat(args) -> int:
                            conductivity_is_sc25=bool(args.at_25), do_mg_l=do_mg_l, do_percent=do_percent,
                            method=args.method, elevation_m=elevation)
     except ValueError as exc:
-        raise CliError(_which_sat_option(str(exc))) from None
+        msg = _which_sat_option(str(exc))
+        if cond is not None and msg.startswith("--salinity"):
+            msg = "--conductivity: the salinity derived from it is impossible: " + msg[len("--salinity: "):]
+        raise CliError(msg) from None
     d = a.to_dict()
     if args.json:
         emit_json(d)

@@ -141,6 +141,7 @@ ERROR_CASES = [
     ((*SAT, "--conductivity", "410 ppm"), ["--conductivity", "unknown unit"]),
     ((*SAT, "--conductivity", "-4 uS/cm"), ["--conductivity", "accepted"]),
     ((*SAT, "--at-25"), ["--at-25", "--conductivity"]),
+    ((*SAT, "--conductivity", "290 mS/cm"), ["--conductivity", "salinity", "0 to 70"]),
     ((*SAT, "--do", "lots"), ["--do", "not a number"]),
     ((*SAT, "--do", "84 ppm"), ["--do", "unexpected unit"]),
     ((*SAT, "--do", "99"), ["--do", "0 to 70"]),
