@@ -45,7 +45,7 @@ _ALIASES: dict[str, str] = {
 #: A station reading more than this far above the standard atmosphere at the site's elevation looks
 #: sea-level adjusted. Weather moves station pressure roughly ±30 hPa about the standard value
 #: (a strong high at sea level is about 1040 hPa); 40 hPa clears that, fires on a sea-level value
-#: at sites above about 350 m, and is about 4 % of the saturation target. [common practice; our choice]
+#: at sites above about 335 m, and is about 4 % of the saturation target. [common practice; our choice]
 SEA_LEVEL_ADJUSTED_THRESHOLD_HPA = 40.0
 
 #: A station reading more than this far below the standard atmosphere at the site's elevation is
