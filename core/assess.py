@@ -85,7 +85,7 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
     Returns
     -------
     Assessment
-        Values and flags (range, unit hints, pressure, criteria), mildest information kept.
+        The values and every flag raised (unit hints, fitted ranges, pressure checks, criteria).
 
     Raises
     ------

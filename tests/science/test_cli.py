@@ -217,3 +217,9 @@ def test_real_process_error_and_success():
     ok = run_cli("sat", "--temp", "20", "--pressure", "1013.25 hPa", "--json")
     assert ok.returncode == 0
     assert json.loads(ok.stdout)["do_sat_mg_l"] == pytest.approx(9.092, abs=0.002)  # 4500-O:I
+
+
+@pytest.mark.parametrize("cmd", ["sat", "salinity", "winkler", "bod"])
+def test_help(cmd):
+    code, out, _ = run(cmd, "--help")
+    assert code == 0 and "--json" in out
