@@ -169,6 +169,9 @@ class Derived(_Record):
     method: str
     core_version: str
     flags: list[FlagRecord] = Field(default_factory=list)
+    #: Fingerprint of what the values were derived with (site, settings, core version); the
+    #: store reuses them for an unchanged stop while the basis is the same.
+    basis: str | None = None
 
 
 def _range_error(kind: str, label_field: str, value: float, unit: str) -> PydanticCustomError:

@@ -18,6 +18,7 @@ compare → audit → write.
 """
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import re
@@ -156,7 +157,7 @@ class TripSummary:
         return asdict(self)
 
 
-def _summary_of(doc: dict[str, Any]) -> TripSummary:
+def _summary_of(doc: dict[str, Any], digest: str | None = None) -> TripSummary:
     stops = doc.get("stops") or []
     conflicts = [c for c in (doc.get("conflicts") or []) if not c.get("resolved_at")]
     if conflicts:
@@ -170,7 +171,7 @@ def _summary_of(doc: dict[str, Any]) -> TripSummary:
         id=doc["id"], program=doc.get("program", ""), crew=list(doc.get("crew") or []),
         started_at=doc.get("started_at", ""), ended_at=doc.get("ended_at"),
         revision=int(doc.get("revision", 0)), status=status, stop_count=len(stops),
-        updated_at=doc.get("updated_at"), content_hash=content_hash(doc),
+        updated_at=doc.get("updated_at"), content_hash=digest or content_hash(doc),
         schema_version=int(doc.get("schema_version", 0)), open_conflicts=len(conflicts),
         bottle_labels=labels)
 
@@ -245,6 +246,7 @@ class DeviceStore:
         self._tlock = threading.RLock()
         self._sites_cache: tuple[tuple[int, int], dict[str, Site]] | None = None
         self._settings_cache: tuple[tuple[int, int], ProgramSettings] | None = None
+        self._cache: dict[str, tuple[tuple[int, int, int], bytes, dict[str, Any]]] = {}
 
     # -- opening ---------------------------------------------------------------------------
     @classmethod
@@ -353,48 +355,71 @@ class DeviceStore:
             raise TripNotFound(f"No trip with id {trip_id!r} on this device (ids are letters, digits, '-', '_', '.').")
         return self._trips_dir / f"{trip_id}.json"
 
-    def _read_trip_doc_raw(self, trip_id: str) -> dict[str, Any] | None:
-        """The stored document as written (no migration), None when absent; quarantines junk."""
+    def _corrupt(self, path: Path, reason: str) -> CorruptFile:
+        target = self._quarantine(path, reason)
+        (self._index_dir / path.name).unlink(missing_ok=True)
+        self._cache.pop(path.stem, None)
+        return CorruptFile(f"The trip file {path.name} could not be read ({reason}); it was moved to"
+                           f" {target} and the rest of the store keeps working.", target)
+
+    def _read_trip_file(self, trip_id: str) -> tuple[bytes, dict[str, Any]] | None:
+        """(the trip document's canonical bytes, the document) as stored; None when absent.
+
+        Files are only ever replaced whole, so (inode, mtime, size) identifies a version: an
+        unchanged file is not parsed again. Callers must not change the returned dict.
+        """
         path = self._trip_path(trip_id)
         try:
-            data = _tinydb(path).table("trip").get(doc_id=1)
-        except ValueError as exc:
-            target = self._quarantine(path, str(exc))
-            (self._index_dir / path.name).unlink(missing_ok=True)
-            raise CorruptFile(f"The trip file {path.name} could not be read ({exc}); it was moved to"
-                              f" {target} and the rest of the store keeps working.", target) from None
-        if data is None:
-            if path.exists():
-                target = self._quarantine(path, "no trip document inside")
-                (self._index_dir / path.name).unlink(missing_ok=True)
-                raise CorruptFile(f"The trip file {path.name} holds no trip; it was moved to {target}.",
-                                  target)
+            st = path.stat()
+        except FileNotFoundError:
+            self._cache.pop(trip_id, None)
             return None
-        doc = dict(data)
+        key = (st.st_ino, st.st_mtime_ns, st.st_size)
+        hit = self._cache.get(trip_id)
+        if hit is not None and hit[0] == key:
+            return hit[1], hit[2]
+        try:
+            data = AtomicJSONStorage(path).read()
+        except FileNotFoundError:
+            return None
+        except ValueError as exc:
+            raise self._corrupt(path, str(exc)) from None
+        if data is None:
+            return None
+        table = data.get("trip")
+        doc = table.get("1") if isinstance(table, dict) else None
+        if not isinstance(doc, dict):
+            raise self._corrupt(path, "no trip document inside")
         if doc.get("id") != trip_id:
-            target = self._quarantine(path, f"id inside is {doc.get('id')!r}")
-            (self._index_dir / path.name).unlink(missing_ok=True)
-            raise CorruptFile(f"The trip file {path.name} holds a different trip id; it was moved to"
-                              f" {target}.", target)
-        return doc
+            raise self._corrupt(path, f"the id inside is {doc.get('id')!r}")
+        try:
+            raw = canonical_json_bytes(doc)
+        except ValueError as exc:
+            raise self._corrupt(path, str(exc)) from None
+        if len(self._cache) > 64:
+            self._cache.clear()
+        self._cache[trip_id] = (key, raw, doc)
+        return raw, doc
+
+    def _read_trip_doc_raw(self, trip_id: str) -> dict[str, Any] | None:
+        """The stored document as written (no migration), None when absent; quarantines junk."""
+        got = self._read_trip_file(trip_id)
+        return None if got is None else got[1]
 
     def _load(self, trip_id: str) -> tuple[Trip, dict[str, Any]]:
         from core.migrations import migrate
 
-        raw = self._read_trip_doc_raw(trip_id)
-        if raw is None:
+        got = self._read_trip_file(trip_id)
+        if got is None:
             raise TripNotFound(f"No trip {trip_id} on this device; see 'streamtab trip list'.")
+        raw_bytes, raw = got
         doc = migrate(raw)  # raises NewerSchemaError, leaving the file untouched
         try:
-            trip = Trip.from_document(doc)
+            trip = Trip.model_validate_json(raw_bytes) if doc is raw else Trip.from_document(doc)
         except (ValidationError, ValueError) as exc:
-            path = self._trip_path(trip_id)
             probs = problems_from_validation(exc) if isinstance(exc, ValidationError) else []
-            reason = one_line(probs) if probs else str(exc)
-            target = self._quarantine(path, reason)
-            (self._index_dir / path.name).unlink(missing_ok=True)
-            raise CorruptFile(f"The trip file {path.name} failed validation ({reason}); it was moved"
-                              f" to {target} and the rest of the store keeps working.", target) from None
+            reason = "failed validation: " + (one_line(probs) if probs else str(exc))
+            raise self._corrupt(self._trip_path(trip_id), reason) from None
         return trip, raw
 
     def load_trip(self, trip_id: str) -> Trip:
@@ -410,10 +435,10 @@ class DeviceStore:
 
         ``core.atomic.canonical_json_bytes`` of it is the wire form.
         """
-        doc = self._read_trip_doc_raw(trip_id)
-        if doc is None:
+        got = self._read_trip_file(trip_id)
+        if got is None:
             raise TripNotFound(f"No trip {trip_id} on this device; see 'streamtab trip list'.")
-        return doc
+        return json.loads(got[0])
 
     def has_trip(self, trip_id: str) -> bool:
         try:
@@ -461,15 +486,15 @@ class DeviceStore:
         (nothing written), StaleTrip when the stored revision moved on since `trip` was loaded,
         NewerSchemaError, StoreLocked.
         """
-        doc = self._dump(trip)
+        checked = self._validated(trip)
         with self._locked():
-            stored = self._stored_or_none(doc["id"])
-            if stored is not None and int(stored.get("revision", 0)) != int(doc.get("revision", 0)):
+            stored = self._stored_or_none(checked.id)
+            if stored is not None and int(stored.get("revision", 0)) != checked.revision:
                 raise StaleTrip(
-                    f"Trip {doc['id']} was changed elsewhere (stored revision {stored.get('revision')},"
-                    f" this copy {doc.get('revision')}); reload it and make the change again.")
-            base = int(stored["revision"]) if stored is not None else int(doc.get("revision", 0))
-            return self._commit(doc, stored, change, base)
+                    f"Trip {checked.id} was changed elsewhere (stored revision {stored.get('revision')},"
+                    f" this copy {checked.revision}); reload it and make the change again.")
+            base = int(stored["revision"]) if stored is not None else checked.revision
+            return self._commit(checked, stored, change, base)
 
     def put_document(self, doc: dict[str, Any], change: str) -> Trip:
         """Runs a foreign trip document (an import, a sync pull) through the same save path.
@@ -483,28 +508,40 @@ class DeviceStore:
 
         if not isinstance(doc, dict):
             raise InvalidRecord("A trip document must be a JSON object.")
-        doc = migrate(doc)
-        trip = self._validate_doc(doc)
-        clean = self._dump(trip)
+        checked = self._validate_doc(migrate(doc))
         with self._locked():
-            stored = self._stored_or_none(clean["id"])
-            base = max(int(clean.get("revision", 0)),
-                       int(stored.get("revision", 0)) if stored is not None else 0)
-            return self._commit(clean, stored, change, base)
+            stored = self._stored_or_none(checked.id)
+            base = max(checked.revision, int(stored.get("revision", 0)) if stored is not None else 0)
+            return self._commit(checked, stored, change, base)
 
     def save_stop(self, trip_id: str, stop: Stop, change: str | None = None) -> Trip:
-        """Adds or replaces (by id) one stop of a stored trip and saves through :meth:`save_trip`."""
+        """Adds or replaces (by id) one stop of a stored trip, through the same save path.
+
+        The stop is validated with the whole trip; the stored revision is the base (this is
+        the call for autosaving one stop: it cannot be stale).
+        """
+        if not isinstance(stop, Stop):
+            raise InvalidRecord("save_stop needs a Stop record.")
+        try:
+            stop_doc = stop.model_dump(mode="json", warnings=False)
+        except Exception as exc:  # noqa: BLE001
+            raise InvalidRecord(f"The stop could not be written as JSON ({exc}).") from None
         with self._locked():
-            trip = self.load_trip(trip_id)
-            stops = list(trip.stops)
+            stored = self._stored_or_none(trip_id)
+            if stored is None:
+                raise TripNotFound(f"No trip {trip_id} on this device; see 'streamtab trip list'.")
+            stops = list(stored.get("stops") or [])
             for i, s in enumerate(stops):
-                if s.id == stop.id:
-                    stops[i] = stop
+                if s.get("id") == stop_doc["id"]:
+                    stops[i] = stop_doc
                     break
             else:
-                stops.append(stop)
-            updated = trip.model_copy(update={"stops": stops})
-            return self.save_trip(updated, change or f"stop at {stop.site_id} saved")
+                stops.append(stop_doc)
+            doc = dict(stored)
+            doc["stops"] = stops
+            checked = self._validate_doc(doc)
+            return self._commit(checked, stored, change or f"stop at {stop.site_id} saved",
+                                int(stored.get("revision", 0)))
 
     def _stored_or_none(self, trip_id: str) -> dict[str, Any] | None:
         from core.migrations import migrate
@@ -521,48 +558,54 @@ class DeviceStore:
         except ValidationError as exc:
             probs = problems_from_validation(exc)
             raise InvalidRecord(one_line(probs), probs) from None
-        except ValueError as exc:  # NaN or infinity in the document
+        except (ValueError, TypeError) as exc:  # NaN, infinity or a non-JSON value in the document
             raise InvalidRecord(f"The trip document holds a value JSON cannot carry ({exc}).") from None
 
-    def _dump(self, trip: Trip) -> dict[str, Any]:
+    def _validated(self, trip: Trip) -> Trip:
         if not isinstance(trip, Trip):
             raise InvalidRecord("save_trip needs a Trip record.")
         try:
-            doc = trip.model_dump(mode="json")
-        except Exception as exc:  # a value that cannot be serialised, e.g. set on a frozen copy
+            doc = trip.model_dump(mode="json", warnings=False)
+        except Exception as exc:  # noqa: BLE001 - a value assigned after construction that cannot be written
             raise InvalidRecord(f"The trip could not be written as JSON ({exc}).") from None
-        # Re-validate: attributes may have been assigned after construction.
-        return self._validate_doc(doc).model_dump(mode="json")
+        # Re-validate strictly: attributes may have been assigned after construction.
+        return self._validate_doc(doc)
 
-    def _commit(self, doc: dict[str, Any], stored: dict[str, Any] | None, change: str,
-                base_revision: int) -> Trip:
-        """The funnel: derive, compare, audit, write trip file, then its summary. Lock held."""
-        from core.qc import derive_trip
+    def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int) -> Trip:
+        """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held."""
+        from core.qc import derive_document
 
-        trip = Trip.model_validate_json(canonical_json_bytes(doc))
-        trip = derive_trip(trip, self.sites_by_id(), self.settings())
-        new_doc = trip.model_dump(mode="json")
-        if not trip.device_id:
-            new_doc["device_id"] = self.device_id
+        new_doc = derive_document(trip, self.sites_by_id(), self.settings(), previous=stored)
+        device_id = trip.device_id or self.device_id
         if stored is not None:
-            new_doc["device_id"] = stored.get("device_id") or new_doc["device_id"]
-            if _content(stored) == _content(new_doc):
-                return Trip.from_document(stored)
+            device_id = stored.get("device_id") or device_id
+        new_doc["device_id"] = device_id
+        new_doc["schema_version"] = SCHEMA_VERSION
+        if stored is not None and _content(stored) == _content(new_doc):
+            return Trip.from_document(stored)
         now = self._clock().astimezone(timezone.utc)
         revision = base_revision + 1
         entry = AuditEntry(at=now, device_id=self.device_id, change=str(change)[:400] or "saved",
                            revision=revision,
                            fields=diff_paths(stored, new_doc) if stored is not None else ["(new trip)"])
-        new_doc["audit"] = list(new_doc.get("audit") or []) + [entry.model_dump(mode="json")]
+        entry_doc = entry.model_dump(mode="json")
+        new_doc["audit"] = list(new_doc.get("audit") or []) + [entry_doc]
         new_doc["revision"] = revision
-        new_doc["updated_at"] = entry.model_dump(mode="json")["at"]
-        new_doc["schema_version"] = SCHEMA_VERSION
-        _tinydb(self._trip_path(new_doc["id"])).table("trip").upsert(Document(new_doc, doc_id=1))
-        self._write_summary(new_doc)
-        return Trip.from_document(new_doc)
+        new_doc["updated_at"] = entry_doc["at"]
+        doc_bytes = canonical_json_bytes(new_doc)
+        path = self._trip_path(new_doc["id"])
+        # The TinyDB layout {"trip": {"1": doc}}, byte for byte what AtomicJSONStorage.write gives.
+        atomic_write_bytes(path, b'{"trip":{"1":' + doc_bytes[:-1] + b"}}\n")
+        self._write_summary(new_doc, "sha256:" + hashlib.sha256(doc_bytes).hexdigest())
+        try:
+            st = path.stat()
+            self._cache[new_doc["id"]] = ((st.st_ino, st.st_mtime_ns, st.st_size), doc_bytes, new_doc)
+        except FileNotFoundError:
+            pass
+        return Trip.model_validate_json(doc_bytes)
 
-    def _write_summary(self, doc: dict[str, Any]) -> TripSummary:
-        summary = _summary_of(doc)
+    def _write_summary(self, doc: dict[str, Any], digest: str | None = None) -> TripSummary:
+        summary = _summary_of(doc, digest)
         atomic_write_bytes(self._index_dir / f"{doc['id']}.json", canonical_json_bytes(summary.to_dict()))
         return summary
 
