@@ -215,6 +215,30 @@ def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[st
     return out
 
 
+def _non_finite_problems(doc: Any) -> list[Problem]:
+    """Problems for every NaN or infinite number in a document, named by field."""
+    import math
+
+    from core.messages import path_label, render
+
+    out: list[Problem] = []
+
+    def walk(value: Any, loc: tuple) -> None:
+        if isinstance(value, float) and not math.isfinite(value):
+            label = path_label(loc)
+            out.append(Problem("number.not_finite", ".".join(map(str, loc)), label,
+                               render("number.not_finite", label=label, input=value)))
+        elif isinstance(value, dict):
+            for k, v in value.items():
+                walk(v, loc + (k,))
+        elif isinstance(value, list):
+            for i, v in enumerate(value):
+                walk(v, loc + (i,))
+
+    walk(doc, ())
+    return out
+
+
 _SAFE_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")
 
 
@@ -493,7 +517,7 @@ class DeviceStore:
                 raise StaleTrip(
                     f"Trip {checked.id} was changed elsewhere (stored revision {stored.get('revision')},"
                     f" this copy {checked.revision}); reload it and make the change again.")
-            base = int(stored["revision"]) if stored is not None else checked.revision
+            base = int(stored.get("revision", 0)) if stored is not None else checked.revision
             return self._commit(checked, stored, change, base)
 
     def put_document(self, doc: dict[str, Any], change: str) -> Trip:
@@ -559,6 +583,9 @@ class DeviceStore:
             probs = problems_from_validation(exc)
             raise InvalidRecord(one_line(probs), probs) from None
         except (ValueError, TypeError) as exc:  # NaN, infinity or a non-JSON value in the document
+            probs = _non_finite_problems(doc)
+            if probs:
+                raise InvalidRecord(one_line(probs), probs) from None
             raise InvalidRecord(f"The trip document holds a value JSON cannot carry ({exc}).") from None
 
     def _validated(self, trip: Trip) -> Trip:
