@@ -256,7 +256,8 @@ class Calibration(_Record):
     temp: Quantity
     pressure: Quantity
     reading_mg_l: float
-    tolerance_mg_l: float = 0.2  # common practice (USGS NFM A6.2 for the method; tolerance a setting)
+    #: ± mg/L; None uses the program setting (default 0.2, common practice; USGS NFM A6.2 method).
+    tolerance_mg_l: float | None = None
     notes: str = Field(default="", max_length=2000)
     # derived at save time
     target_mg_l: float | None = None

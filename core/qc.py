@@ -10,9 +10,10 @@ pressure.sea_level_adjusted    warning         station pressure far above the st
 do.supersaturated              warning         % saturation above the program threshold
 do.below_criterion             warning         DO below the site's / program's criterion
 do.hypoxic                     stop-and-check  DO below the hypoxia threshold
-calibration.far_from_target    stop-and-check  pre-trip calibration reading outside tolerance
+calibration.out_of_tolerance   stop-and-check  pre-trip calibration reading far from the 100 %
+                                               target (core.calibration)
 calibration.missing            warning         stops recorded but no pre-trip calibration
-calibration.post_drift         stop-and-check  post-trip check outside tolerance (drift)
+calibration.post_trip_drift    stop-and-check  post-trip check outside tolerance (core.calibration)
 bottle.duplicate_label         stop-and-check  a bottle ID used twice in the trip or on the device
 bottle.not_fixed               warning         a DO (Winkler) bottle without a fixing time
 holding.expired / holding.soon (core.holding)  holding time passed / less than 25 % left
@@ -44,7 +45,7 @@ TRIP_KEY = "trip"
 
 RULE_CODES = (
     "pressure.sea_level_adjusted", "do.supersaturated", "do.below_criterion", "do.hypoxic",
-    "calibration.far_from_target", "calibration.missing", "calibration.post_drift",
+    "calibration.out_of_tolerance", "calibration.missing", "calibration.post_trip_drift",
     "bottle.duplicate_label", "bottle.not_fixed", "holding.expired", "holding.soon",
     "temp.out_of_range", "temp.looks_fahrenheit", "temp.jump", "conductivity.out_of_range",
     "conductivity.jump", "stop.missing_required", "stop.unknown_site",
@@ -119,14 +120,13 @@ def derive_calibration(cal: Calibration | None, settings: ProgramSettings, *, po
     """The calibration with its target, difference, verdict, method and core version filled in."""
     if cal is None:
         return None
-    try:
-        from core.calibration import check_calibration, post_trip_check
-    except ImportError:  # science's calibration module not merged yet: leave the verdict open
-        return cal.model_copy(update={"method": settings.method, "core_version": core_version()})
+    from core.calibration import check_calibration, post_trip_check
+
     fn = post_trip_check if post else check_calibration
+    tolerance = cal.tolerance_mg_l if cal.tolerance_mg_l is not None else settings.calibration_tolerance_mg_l
     try:
         r = fn(cal.reading_mg_l, cal.temp.value, cal.pressure.value,
-               tolerance_mg_l=cal.tolerance_mg_l, method=settings.method)
+               tolerance_mg_l=tolerance, method=settings.method)
     except ValueError:
         return cal.model_copy(update={"target_mg_l": None, "difference_mg_l": None, "accepted": None,
                                       "method": settings.method, "core_version": core_version(),
@@ -317,12 +317,12 @@ def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Si
                                "fixed_at"))
         kind = _holding_kind(b.kind)
         if kind is not None and not b.lab_results:
-            try:
-                from core.holding import holding_clock
+            from core.holding import holding_clock
 
+            try:
                 clock = holding_clock(kind, b.collected_at, now, fixed_at=b.fixed_at,
                                       overrides=settings.holding_overrides_h or None)
-            except (ValueError, KeyError, ImportError):
+            except (ValueError, KeyError):
                 clock = None
             if clock is not None and clock.flag is not None:
                 flags.append(clock.flag)
@@ -343,7 +343,7 @@ def _dedupe(flags: Iterable[Flag]) -> list[Flag]:
 
 
 def trip_level_flags(trip: Trip, settings: ProgramSettings) -> list[Flag]:
-    """Calibration findings for the whole trip."""
+    """Calibration findings for the whole trip (the science's verdicts, stored at save time)."""
     flags: list[Flag] = []
     pre = trip.pre_calibration
     if pre is None:
@@ -354,22 +354,8 @@ def trip_level_flags(trip: Trip, settings: ProgramSettings) -> list[Flag]:
                                "pre_calibration"))
     else:
         flags.extend(f.to_flag() for f in pre.flags)
-        if pre.accepted is False and pre.target_mg_l is not None:
-            flags.append(_flag("calibration.far_from_target", Severity.STOP,
-                               f"The pre-trip meter reading {pre.reading_mg_l:g} mg/L is {abs(pre.difference_mg_l or 0):.2f}"
-                               f" mg/L from the target {pre.target_mg_l:.2f} mg/L (tolerance ±{pre.tolerance_mg_l:g}).",
-                               "Recalibrate the meter (check the membrane and the calibration chamber) before measuring.",
-                               "pre_calibration"))
-    post = trip.post_check
-    if post is not None:
-        flags.extend(f.to_flag() for f in post.flags)
-        if post.accepted is False and post.target_mg_l is not None:
-            flags.append(_flag("calibration.post_drift", Severity.STOP,
-                               f"The post-trip check read {post.reading_mg_l:g} mg/L against a target of "
-                               f"{post.target_mg_l:.2f} mg/L: drift of {abs(post.difference_mg_l or 0):.2f} mg/L, beyond "
-                               f"±{post.tolerance_mg_l:g} mg/L.",
-                               "Mark this trip's meter DO as suspect per the SOP and service the sensor.",
-                               "post_check"))
+    if trip.post_check is not None:
+        flags.extend(f.to_flag() for f in trip.post_check.flags)
     return _dedupe(flags)
 
 
