@@ -215,6 +215,16 @@ def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[st
     return out
 
 
+def _merge_audit(stored: list[dict[str, Any]], incoming: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Stored entries in their order, then incoming entries not yet stored (by id), oldest first."""
+    known = {e.get("id") for e in stored}
+    extra = [e for e in incoming if e.get("id") not in known]
+    if not extra:
+        return list(stored)
+    extra.sort(key=lambda e: (str(e.get("at", "")), str(e.get("id", ""))))
+    return list(stored) + extra
+
+
 def _non_finite_problems(doc: Any) -> list[Problem]:
     """Problems for every NaN or infinite number in a document, named by field."""
     import math
@@ -337,6 +347,14 @@ class DeviceStore:
                 self._write_summary(doc)
 
     # -- locking ---------------------------------------------------------------------------
+    def locked(self):
+        """Holds the store's inter-process lock for a block of several store calls (re-entrant).
+
+        ``with store.locked(): ...`` — e.g. a sync applying a plan. Raises StoreLocked when another
+        process holds it longer than `lock_timeout_s`.
+        """
+        return self._locked()
+
     @contextmanager
     def _locked(self) -> Iterator[None]:
         with self._tlock:
@@ -608,6 +626,9 @@ class DeviceStore:
             device_id = stored.get("device_id") or device_id
         new_doc["device_id"] = device_id
         new_doc["schema_version"] = SCHEMA_VERSION
+        if stored is not None:
+            # The audit trail is append-only: entries already stored are never dropped.
+            new_doc["audit"] = _merge_audit(stored.get("audit") or [], new_doc.get("audit") or [])
         if stored is not None and _content(stored) == _content(new_doc):
             return Trip.from_document(stored)
         now = self._clock().astimezone(timezone.utc)

@@ -300,3 +300,23 @@ def test_audit_times_from_clock(tmp_path):
     s = DeviceStore.open(tmp_path / "c", device_id="dev-c", clock=clock)
     trip = s.save_trip(make_trip(), "x")
     assert trip.audit[0].at == clock.now
+
+
+def test_audit_is_append_only_across_put_document(store):
+    trip = store.save_trip(make_trip([make_stop()]), "new")
+    old_doc = store.trip_document(trip.id)
+    trip = store.save_trip(trip.model_copy(update={"notes": "local edit"}), "local edit")
+    old_doc["meter_id"] = "DO-METER-09"  # a hub copy made before the local edit
+    merged = store.put_document(old_doc, "pulled")
+    assert [a.change for a in merged.audit] == ["new", "local edit", "pulled"]
+    # The same hub copy again: nothing new, nothing written.
+    again = store.put_document(old_doc, "pulled again")
+    assert again.revision == merged.revision
+
+
+def test_save_stop_adds_and_replaces_by_id(store):
+    trip = store.save_trip(make_trip(), "new")
+    stop = make_stop()
+    trip = store.save_stop(trip.id, stop)
+    trip = store.save_stop(trip.id, stop.model_copy(update={"notes": "second look"}))
+    assert len(trip.stops) == 1 and trip.stops[0].notes == "second look" and trip.revision == 3
