@@ -37,7 +37,7 @@ from typing import Any, Iterable
 from core.flags import Flag, Severity
 from core.models import (Calibration, Derived, FlagRecord, ProgramSettings, Site, Stop, Trip)
 
-__all__ = ["TRIP_KEY", "RULE_CODES", "derive_trip", "derive_document", "derive_basis", "derive_stop", "derive_calibration",
+__all__ = ["TRIP_KEY", "RULE_CODES", "derive", "derive_trip", "derive_document", "derive_basis", "derive_stop", "derive_calibration",
            "stop_flags", "trip_flags", "trip_level_flags", "core_version"]
 
 #: Key of trip-level findings (calibrations) in :func:`trip_flags`' result.
@@ -150,23 +150,31 @@ def derive_basis(site: Site | None, settings: ProgramSettings) -> str:
 
 def derive_trip(trip: Trip, sites: dict[str, Site], settings: ProgramSettings) -> Trip:
     """The trip with every stop's and calibration's derived values recomputed from the inputs."""
-    doc = derive_document(trip, sites, settings)
-    return Trip.model_validate_json(_json(doc))
+    return derive(trip, sites, settings)[1]
 
 
 def derive_document(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
                     previous: dict[str, Any] | None = None) -> dict[str, Any]:
-    """The JSON document of `trip` with derived values filled in (what the store writes).
+    """The JSON document of `trip` with derived values filled in (what the store writes)."""
+    return derive(trip, sites, settings, previous)[0]
+
+
+def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
+           previous: dict[str, Any] | None = None,
+           bases: dict[str, str] | None = None) -> tuple[dict[str, Any], Trip]:
+    """(the JSON document, the Trip) with derived values filled in — the store's derive step.
 
     `previous` (the stored document of the same trip) lets a stop whose inputs are unchanged keep
     its derived values when they were made on the same basis (site, settings, core version); the
-    result is the same as deriving again, only faster.
+    result is the same as deriving again, only faster. `bases` caches :func:`derive_basis` by
+    site id for the given sites and settings.
     """
     doc = trip.model_dump(mode="json")
     old_stops: dict[str, dict[str, Any]] = {}
     if previous is not None:
         old_stops = {s.get("id"): s for s in previous.get("stops") or [] if isinstance(s, dict)}
-    bases: dict[str, str] = {}
+    bases = {} if bases is None else bases
+    new_stops: list[Stop] = []
     for stop, stop_doc in zip(trip.stops, doc["stops"]):
         site = sites.get(stop.site_id)
         if stop.site_id not in bases:
@@ -177,15 +185,23 @@ def derive_document(trip: Trip, sites: dict[str, Site], settings: ProgramSetting
                 and old["derived"].get("basis") == basis
                 and len(old) == len(stop_doc)
                 and all(old.get(k) == v for k, v in stop_doc.items() if k != "derived")):
+            if stop_doc.get("derived") == old["derived"]:
+                new_stops.append(stop)
+            else:
+                new_stops.append(stop.model_copy(update={"derived": Derived.model_validate_json(_json(old["derived"]))}))
             stop_doc["derived"] = old["derived"]
             continue
         derived = derive_stop(stop, site, settings)
-        stop_doc["derived"] = None if derived is None else derived.model_copy(
-            update={"basis": basis}).model_dump(mode="json")
+        if derived is not None:
+            derived = derived.model_copy(update={"basis": basis})
+        stop_doc["derived"] = None if derived is None else derived.model_dump(mode="json")
+        new_stops.append(stop.model_copy(update={"derived": derived}))
+    cals: dict[str, Calibration | None] = {}
     for key, post in (("pre_calibration", False), ("post_check", True)):
         cal = derive_calibration(getattr(trip, key), settings, post=post)
+        cals[key] = cal
         doc[key] = None if cal is None else cal.model_dump(mode="json")
-    return doc
+    return doc, trip.model_copy(update={"stops": new_stops, **cals})
 
 
 def _json(doc: Any) -> bytes:

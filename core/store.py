@@ -188,7 +188,7 @@ def _content(doc: dict[str, Any]) -> dict[str, Any]:
 def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[str]:
     """Field paths that differ between two documents; list elements are matched by `id`.
 
-    Paths look like ``stops[<id>].temp.value``; derived values and bookkeeping are left out
+    Paths look like ``stops[<id>].temp``; derived values and bookkeeping are left out
     (they follow from the inputs). At most `limit` paths.
     """
     out: list[str] = []
@@ -196,7 +196,9 @@ def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[st
     def walk(a: Any, b: Any, path: str) -> None:
         if len(out) >= limit or a == b:
             return
-        if isinstance(a, dict) and isinstance(b, dict):
+        if isinstance(a, dict) and isinstance(b, dict) and ("id" in a or "id" in b or not path):
+            # Records (with an id) are walked field by field; values such as a quantity are
+            # reported as one path ("stops[<id>].temp"), which keeps audit entries short.
             for key in sorted(set(a) | set(b)):
                 if key in _NOT_CHANGES:
                     continue
@@ -281,6 +283,7 @@ class DeviceStore:
         self._sites_cache: tuple[tuple[int, int], dict[str, Site]] | None = None
         self._settings_cache: tuple[tuple[int, int], ProgramSettings] | None = None
         self._cache: dict[str, tuple[tuple[int, int, int], bytes, dict[str, Any]]] = {}
+        self._bases: tuple[Any, dict[str, str]] = (None, {})
 
     # -- opening ---------------------------------------------------------------------------
     @classmethod
@@ -618,17 +621,24 @@ class DeviceStore:
 
     def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int) -> Trip:
         """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held."""
-        from core.qc import derive_document
+        from core.qc import derive
 
-        new_doc = derive_document(trip, self.sites_by_id(), self.settings(), previous=stored)
+        sites = self.sites_by_id()
+        settings = self.settings()
+        bases_key = (self._sites_cache[0] if self._sites_cache else None,
+                     self._settings_cache[0] if self._settings_cache else None)
+        if self._bases[0] != bases_key:
+            self._bases = (bases_key, {})
+        new_doc, derived = derive(trip, sites, settings, previous=stored, bases=self._bases[1])
         device_id = trip.device_id or self.device_id
         if stored is not None:
             device_id = stored.get("device_id") or device_id
         new_doc["device_id"] = device_id
         new_doc["schema_version"] = SCHEMA_VERSION
+        incoming_audit = new_doc.get("audit") or []
         if stored is not None:
             # The audit trail is append-only: entries already stored are never dropped.
-            new_doc["audit"] = _merge_audit(stored.get("audit") or [], new_doc.get("audit") or [])
+            new_doc["audit"] = _merge_audit(stored.get("audit") or [], incoming_audit)
         if stored is not None and _content(stored) == _content(new_doc):
             return Trip.from_document(stored)
         now = self._clock().astimezone(timezone.utc)
@@ -637,6 +647,7 @@ class DeviceStore:
                            revision=revision,
                            fields=diff_paths(stored, new_doc) if stored is not None else ["(new trip)"])
         entry_doc = entry.model_dump(mode="json")
+        same_audit = new_doc.get("audit") == incoming_audit
         new_doc["audit"] = list(new_doc.get("audit") or []) + [entry_doc]
         new_doc["revision"] = revision
         new_doc["updated_at"] = entry_doc["at"]
@@ -650,7 +661,12 @@ class DeviceStore:
             self._cache[new_doc["id"]] = ((st.st_ino, st.st_mtime_ns, st.st_size), doc_bytes, new_doc)
         except FileNotFoundError:
             pass
-        return Trip.model_validate_json(doc_bytes)
+        if not same_audit:
+            return Trip.model_validate_json(doc_bytes)
+        # `derived` was validated from JSON in this call and shares nothing with the caller.
+        return derived.model_copy(update={
+            "device_id": device_id, "schema_version": SCHEMA_VERSION, "revision": revision,
+            "updated_at": entry.at, "audit": list(derived.audit) + [entry]})
 
     def _write_summary(self, doc: dict[str, Any], digest: str | None = None) -> TripSummary:
         summary = _summary_of(doc, digest)
