@@ -321,8 +321,14 @@ class DeviceStore:
             return None
 
     def _clean_temp_files(self) -> None:
-        for folder in (self.data_dir, self._trips_dir, self._index_dir):
-            for tmp in folder.glob(".*.tmp"):
+        """Removes temporary files an interrupted write of *this store* left (lock held).
+
+        Only the store's own names: other parts (sync's outbox) may write in the data folder.
+        """
+        patterns = [(self._trips_dir, ".*.tmp"), (self._index_dir, ".*.tmp")]
+        patterns += [(self.data_dir, f".{name}.*.tmp") for name in ("device.json", "sites.json", "settings.json")]
+        for folder, pattern in patterns:
+            for tmp in folder.glob(pattern):
                 try:
                     tmp.unlink()
                 except FileNotFoundError:

@@ -262,3 +262,27 @@ def test_schema_describes_trip_fields():
     for name in ("id", "schema_version", "revision", "stops", "audit", "conflicts", "pre_calibration"):
         assert name in schema["properties"]
     assert "started_at" in schema["required"]
+
+
+# ---- property: a decimal comma is a decimal point, never a thousands separator ------------------
+from hypothesis import given, strategies as st  # noqa: E402
+
+
+@given(st.integers(min_value=0, max_value=99999), st.integers(min_value=0, max_value=99))
+def test_decimal_comma_property(whole, frac):
+    text = f"{whole},{frac:02d}"  # two decimals: never ambiguous
+    assert parse_number(text, "do") == pytest.approx(whole + frac / 100, abs=1e-9)
+    assert parse_number(text.replace(",", "."), "do") == parse_number(text, "do")
+
+
+def test_store_leaves_other_parts_temp_files_alone(tmp_path):
+    from core.store import DeviceStore
+
+    root = tmp_path / "d"
+    DeviceStore.open(root)
+    theirs = root / ".outbox.json.x1.tmp"
+    theirs.write_bytes(b"being written by sync")
+    ours = root / ".sites.json.x2.tmp"
+    ours.write_bytes(b"left by a crash")
+    DeviceStore.open(root)
+    assert theirs.exists() and not ours.exists()
