@@ -4,14 +4,17 @@ Layout of a data folder::
 
     device.json         this device's id
     trips/<trip>.json   one TinyDB file per trip (table "trip", document 1 = the trip document)
-    index/<trip>.json   the trip's summary (what `list_trips` shows), rewritten after the trip file
+    index/<trip>.json   the trip's summary (what `list_trips` shows), rewritten after the trip file;
+                        a checked cache (it names the trip file version it was made from)
     sites.json          TinyDB, table "sites" (one document per site)
     settings.json       TinyDB, table "settings" (document 1 = program settings)
     quarantine/         unreadable files, moved here and never overwritten
     .lock               inter-process lock (filelock)
 
-Every write goes through :class:`AtomicJSONStorage` (temporary file, fsync, ``os.replace``,
-fsync of the folder), so a reader or a crash sees the old file or the new one, never a part.
+Every write of data goes through core.atomic.atomic_write_bytes (temporary file, fsync,
+``os.replace``, fsync of the folder; :class:`AtomicJSONStorage` is TinyDB's storage on top of
+it), so a reader or a crash sees the old file or the new one, never a part. Index entries are
+replaced atomically without fsync: they are rebuilt from the trip files when outdated.
 A save costs the same whatever the number of trips: it rewrites one trip file and one summary.
 Every trip change goes through one funnel (:meth:`DeviceStore._commit`): validate → derive →
 compare → audit → write.
@@ -22,6 +25,7 @@ import hashlib
 import json
 import os
 import re
+import tempfile
 import threading
 import time
 from contextlib import contextmanager
@@ -217,6 +221,21 @@ def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[st
     return out
 
 
+def _replace_unsynced(path: Path, data: bytes) -> None:
+    """Temporary file → ``os.replace``, without fsync: for the index, a checked cache only."""
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+
+
 def _merge_audit(stored: list[dict[str, Any]], incoming: list[dict[str, Any]]) -> list[dict[str, Any]]:
     """Stored entries in their order, then incoming entries not yet stored (by id), oldest first."""
     known = {e.get("id") for e in stored}
@@ -282,7 +301,7 @@ class DeviceStore:
         self._tlock = threading.RLock()
         self._sites_cache: tuple[tuple[int, int], dict[str, Site]] | None = None
         self._settings_cache: tuple[tuple[int, int], ProgramSettings] | None = None
-        self._cache: dict[str, tuple[tuple[int, int, int], bytes, dict[str, Any]]] = {}
+        self._cache: dict[str, tuple[bytes, bytes, dict[str, Any]]] = {}
         self._bases: tuple[Any, dict[str, str]] = (None, {})
 
     # -- opening ---------------------------------------------------------------------------
@@ -335,25 +354,8 @@ class DeviceStore:
                     pass
 
     def _repair_index(self) -> None:
-        """Rebuilds summaries that are missing or older than their trip file; drops orphans."""
-        trips = {p.stem: p for p in self._trips_dir.glob("*.json")}
-        index = {p.stem: p for p in self._index_dir.glob("*.json")}
-        for orphan in set(index) - set(trips):
-            index[orphan].unlink(missing_ok=True)
-        for trip_id, path in trips.items():
-            ipath = index.get(trip_id)
-            if ipath is not None:
-                try:
-                    if ipath.stat().st_mtime_ns >= path.stat().st_mtime_ns:
-                        continue
-                except FileNotFoundError:
-                    pass
-            try:
-                doc = self._read_trip_doc_raw(trip_id)
-            except CorruptFile:
-                continue
-            if doc is not None:
-                self._write_summary(doc)
+        """Brings every summary up to date with its trip file (see :meth:`list_trips`)."""
+        self.list_trips()
 
     # -- locking ---------------------------------------------------------------------------
     def locked(self):
@@ -416,28 +418,25 @@ class DeviceStore:
     def _read_trip_file(self, trip_id: str) -> tuple[bytes, dict[str, Any]] | None:
         """(the trip document's canonical bytes, the document) as stored; None when absent.
 
-        Files are only ever replaced whole, so (inode, mtime, size) identifies a version: an
-        unchanged file is not parsed again. Callers must not change the returned dict.
+        The file's bytes are read every time and compared with the last version this store
+        read or wrote; only a changed file is parsed again. Callers must not change the dict.
         """
         path = self._trip_path(trip_id)
         try:
-            st = path.stat()
+            file_bytes = path.read_bytes()
         except FileNotFoundError:
             self._cache.pop(trip_id, None)
             return None
-        key = (st.st_ino, st.st_mtime_ns, st.st_size)
         hit = self._cache.get(trip_id)
-        if hit is not None and hit[0] == key:
+        if hit is not None and hit[0] == file_bytes:
             return hit[1], hit[2]
+        if not file_bytes.strip():
+            raise self._corrupt(path, "the file is empty")
         try:
-            data = AtomicJSONStorage(path).read()
-        except FileNotFoundError:
-            return None
-        except ValueError as exc:
-            raise self._corrupt(path, str(exc)) from None
-        if data is None:
-            return None
-        table = data.get("trip")
+            data = json.loads(file_bytes)
+        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+            raise self._corrupt(path, f"the file is not valid JSON ({exc})") from None
+        table = data.get("trip") if isinstance(data, dict) else None
         doc = table.get("1") if isinstance(table, dict) else None
         if not isinstance(doc, dict):
             raise self._corrupt(path, "no trip document inside")
@@ -449,7 +448,7 @@ class DeviceStore:
             raise self._corrupt(path, str(exc)) from None
         if len(self._cache) > 64:
             self._cache.clear()
-        self._cache[trip_id] = (key, raw, doc)
+        self._cache[trip_id] = (file_bytes, raw, doc)
         return raw, doc
 
     def _read_trip_doc_raw(self, trip_id: str) -> dict[str, Any] | None:
@@ -498,27 +497,49 @@ class DeviceStore:
             return False
 
     def list_trips(self) -> list[TripSummary]:
-        """Every trip's summary, newest start first, from the small index."""
+        """Every trip's summary, newest start first, from the small index.
+
+        Each summary records the (inode, mtime, size) of the trip file it was made from; one
+        ``stat`` per trip checks it, and a missing, unreadable or outdated summary is rebuilt
+        from the trip file. (A crash between writing a trip and its summary always shows: the
+        new trip file has a new inode.) Unreadable trip files are quarantined and left out.
+        """
         out: list[TripSummary] = []
+        trips = {p.stem for p in self._trips_dir.glob("*.json")}
         for ipath in self._index_dir.glob("*.json"):
-            try:
-                data = json.loads(ipath.read_bytes())
-                out.append(TripSummary(**data))
-            except FileNotFoundError:
+            if ipath.stem not in trips:
+                ipath.unlink(missing_ok=True)  # the trip file is gone (quarantined)
+        for trip_id in trips:
+            if not _SAFE_ID.match(trip_id):
                 continue
-            except (ValueError, TypeError):
-                # The index is derived: rebuild the entry from the trip file.
+            key = self._file_key(trip_id)
+            if key is None:
+                continue
+            summary = None
+            try:
+                data = json.loads((self._index_dir / f"{trip_id}.json").read_bytes())
+                if data.get("file") == list(key):
+                    summary = TripSummary(**data["summary"])
+            except (OSError, ValueError, TypeError, KeyError, AttributeError):
+                summary = None
+            if summary is None:
                 try:
-                    doc = self._read_trip_doc_raw(ipath.stem)
-                except (CorruptFile, TripNotFound):
+                    got = self._read_trip_file(trip_id)
+                except CorruptFile:
                     continue
-                if doc is None:
-                    ipath.unlink(missing_ok=True)
+                if got is None:
                     continue
-                with self._locked():
-                    out.append(self._write_summary(doc))
+                summary = self._write_summary(got[1], None, self._file_key(trip_id))
+            out.append(summary)
         out.sort(key=lambda s: (s.started_at, s.id), reverse=True)
         return out
+
+    def _file_key(self, trip_id: str) -> tuple[int, int, int] | None:
+        try:
+            st = self._trip_path(trip_id).stat()
+        except FileNotFoundError:
+            return None
+        return (st.st_ino, st.st_mtime_ns, st.st_size)
 
     def bottle_labels_in_use(self) -> dict[str, str]:
         """Bottle label → trip id, over every trip on the device (for duplicate checks)."""
@@ -660,13 +681,11 @@ class DeviceStore:
         doc_bytes = canonical_json_bytes(new_doc)
         path = self._trip_path(new_doc["id"])
         # The TinyDB layout {"trip": {"1": doc}}, byte for byte what AtomicJSONStorage.write gives.
-        atomic_write_bytes(path, b'{"trip":{"1":' + doc_bytes[:-1] + b"}}\n")
-        self._write_summary(new_doc, "sha256:" + hashlib.sha256(doc_bytes).hexdigest())
-        try:
-            st = path.stat()
-            self._cache[new_doc["id"]] = ((st.st_ino, st.st_mtime_ns, st.st_size), doc_bytes, new_doc)
-        except FileNotFoundError:
-            pass
+        file_bytes = b'{"trip":{"1":' + doc_bytes[:-1] + b"}}\n"
+        atomic_write_bytes(path, file_bytes)
+        self._cache[new_doc["id"]] = (file_bytes, doc_bytes, new_doc)
+        self._write_summary(new_doc, "sha256:" + hashlib.sha256(doc_bytes).hexdigest(),
+                            self._file_key(new_doc["id"]))
         if not same_audit:
             return Trip.model_validate_json(doc_bytes)
         # `derived` was validated from JSON in this call and shares nothing with the caller.
@@ -674,9 +693,15 @@ class DeviceStore:
             "device_id": device_id, "schema_version": SCHEMA_VERSION, "revision": revision,
             "updated_at": entry.at, "audit": list(derived.audit) + [entry]})
 
-    def _write_summary(self, doc: dict[str, Any], digest: str | None = None) -> TripSummary:
+    def _write_summary(self, doc: dict[str, Any], digest: str | None,
+                       key: tuple[int, int, int] | None) -> TripSummary:
+        """Writes a trip's summary. The index is a cache of the trip files, checked against
+        them on every read (see :meth:`list_trips`), so it is replaced atomically but not
+        fsynced: a summary lost or torn by a power cut is rebuilt, and a save costs two fsyncs
+        (the trip file and its folder) instead of four."""
         summary = _summary_of(doc, digest)
-        atomic_write_bytes(self._index_dir / f"{doc['id']}.json", canonical_json_bytes(summary.to_dict()))
+        data = canonical_json_bytes({"summary": summary.to_dict(), "file": list(key) if key else None})
+        _replace_unsynced(self._index_dir / f"{doc['id']}.json", data)
         return summary
 
     # -- sites and settings ----------------------------------------------------------------
