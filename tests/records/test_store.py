@@ -320,3 +320,29 @@ def test_save_stop_adds_and_replaces_by_id(store):
     trip = store.save_stop(trip.id, stop)
     trip = store.save_stop(trip.id, stop.model_copy(update={"notes": "second look"}))
     assert len(trip.stops) == 1 and trip.stops[0].notes == "second look" and trip.revision == 3
+
+
+def test_index_entry_checked_against_trip_file(store):
+    trip = store.save_trip(make_trip([make_stop()]), "x")
+    ipath = store.data_dir / "index" / f"{trip.id}.json"
+    ipath.write_bytes(b"garbage")
+    assert store.list_trips()[0].revision == 1  # rebuilt from the trip file
+    # Another program replaces the trip file (a new version): the summary follows.
+    doc = store.trip_document(trip.id)
+    doc["revision"] = 5
+    AtomicJSONStorage(store.data_dir / "trips" / f"{trip.id}.json").write({"trip": {"1": doc}})
+    assert store.list_trips()[0].revision == 5
+    assert json.loads(ipath.read_bytes())["summary"]["revision"] == 5
+
+
+def test_conflicts_make_the_trip_need_attention(store):
+    trip = store.save_trip(make_trip([make_stop()]), "x")
+    doc = store.trip_document(trip.id)
+    doc["conflicts"] = [{"id": "c0ffee00-0000-4000-8000-000000000001", "path": f"stops[{trip.stops[0].id}].notes",
+                         "detected_at": "2026-06-14T18:00:00Z",
+                         "sides": [{"device_id": "dev-test-a", "value": "riffle"},
+                                   {"device_id": "dev-b", "value": "pool"}]}]
+    merged = store.put_document(doc, "merged with the hub")
+    assert merged.status == "needs attention"
+    s = store.list_trips()[0]
+    assert s.status == "needs attention" and s.open_conflicts == 1
