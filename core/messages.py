@@ -96,6 +96,8 @@ TEMPLATES: dict[str, str] = {
     "text.blank": "{label} must not be blank.",
     "text.too_long": "{label} is longer than {max} characters.",
     "text.too_short": "{label} must not be empty.",
+    "text.pattern": "{label}: “{input}” is not accepted; use letters, digits, '.', '_' or '-' (at most 64).",
+    "number.too_small": "{label}: {input} is below the smallest accepted value, {min}.",
     "bool.invalid": "{label}: “{input}” must be true or false.",
     "object.invalid": "{label} must be a group of fields (a JSON object).",
     "list.invalid": "{label} must be a list.",
@@ -115,6 +117,8 @@ _PYDANTIC_TYPES = {
     "literal_error": "choice.invalid", "enum": "choice.invalid",
     "string_type": "text.invalid", "string_too_long": "text.too_long",
     "string_too_short": "text.too_short",
+    "string_pattern_mismatch": "text.pattern",
+    "greater_than_equal": "number.too_small", "greater_than": "number.too_small",
     "bool_type": "bool.invalid", "bool_parsing": "bool.invalid",
     "model_type": "object.invalid", "dict_type": "object.invalid", "model_attributes_type": "object.invalid",
     "list_type": "list.invalid", "tuple_type": "list.invalid",
@@ -217,6 +221,8 @@ def problems_from_validation(exc: Any) -> list[Problem]:
             params["choices"] = ctx.get("expected", "the listed values")
         elif code == "text.too_long":
             params["max"] = ctx.get("max_length", "?")
+        elif code == "number.too_small":
+            params["min"] = ctx.get("ge", ctx.get("gt", "?"))
         elif code.endswith(".out_of_range") or code == "unit.mismatch":
             params.update(ctx)
             params["label"] = label

@@ -438,9 +438,9 @@ class Trip(_Record):
     :attr:`extra` and written back unchanged; unknown nested fields are kept in place.
     """
 
-    id: str = _id_field()
+    id: str = Field(default_factory=new_id, pattern=r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")
     schema_version: int = SCHEMA_VERSION
-    revision: int = 0
+    revision: int = Field(default=0, ge=0)
     updated_at: AwareDatetime | None = None
     device_id: str = Field(default="", max_length=64)
     program: str = Field(default="", max_length=120)
