@@ -181,7 +181,13 @@ def render(code: str, **ctx: Any) -> str:
     """Our text for a code, filled from `ctx` (label, input, value, low, high, unit, ...)."""
     if code.endswith(".out_of_range"):
         kind = ctx.get("kind") or code.rsplit(".", 1)[0]
-        ctx.setdefault("hint", _HINTS.get(kind, "."))
+        try:
+            below = float(ctx.get("value")) < float(ctx.get("low"))
+        except (TypeError, ValueError):
+            below = False
+        # The hints name the usual mistake for a value that is too high (°F for °C, % for mg/L...).
+        ctx.setdefault("hint", "." if below and kind in ("temp", "do_percent", "do_mg_l", "calibration_reading")
+                       else _HINTS.get(kind, "."))
         template = TEMPLATES["range"]
     else:
         template = TEMPLATES.get(code, TEMPLATES["field.invalid"])

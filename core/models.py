@@ -554,8 +554,10 @@ def measure(kind: str, text: str, *, default_unit: str | None = None, field: str
             q_unit = "µS/cm"
         elif kind == "do":
             key = unit_in.strip().lower()
+            if not key:
+                raise ValueError("has no unit; write mg/L or % (e.g. '8.4 mg/L' or '96 %')")
             if key not in _DO_UNITS:
-                raise ValueError(f"unit {unit_in!r} is not one of mg/L, %")
+                raise ValueError(f"unit {unit_in.strip()!r} is not accepted; write mg/L or %")
             q_unit = _DO_UNITS[key]
             norm = value
         else:
