@@ -191,3 +191,13 @@ def test_import_of_a_folder_is_a_clear_error(store, tmp_path):
     with pytest.raises(ExchangeError) as info:
         import_trip_file(store, tmp_path)
     assert "cannot be read" in str(info.value)
+
+
+def test_cli_list_names_quarantined_files(tmp_path):
+    d = tmp_path / "store"
+    store = DeviceStore.open(d)
+    trip = store.save_trip(make_trip([make_stop()]), "x")
+    (d / "trips" / f"{trip.id}.json").write_bytes(b"{broken")
+    r = run_cli("trip", "list", "--json", data_dir=d)
+    assert r.returncode == 0 and json.loads(r.stdout) == []
+    assert "unreadable file" in r.stderr and f"{trip.id}.json" in r.stderr
