@@ -221,6 +221,12 @@ def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[st
     return out
 
 
+def _migrated(doc: dict[str, Any]) -> dict[str, Any]:
+    from core.migrations import migrate
+
+    return migrate(doc)
+
+
 def _replace_unsynced(path: Path, data: bytes) -> None:
     """Temporary file → ``os.replace``, without fsync: for the index, a checked cache only."""
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
@@ -589,8 +595,8 @@ class DeviceStore:
     def save_stop(self, trip_id: str, stop: Stop, change: str | None = None) -> Trip:
         """Adds or replaces (by id) one stop of a stored trip, through the same save path.
 
-        The stop is validated with the whole trip; the stored revision is the base (this is
-        the call for autosaving one stop: it cannot be stale).
+        The stop is validated strictly, the rest of the trip as stored; the stored revision is
+        the base (this is the call for autosaving one stop: it cannot be stale).
         """
         if not isinstance(stop, Stop):
             raise InvalidRecord("save_stop needs a Stop record.")
@@ -598,21 +604,26 @@ class DeviceStore:
             stop_doc = stop.model_dump(mode="json", warnings=False)
         except Exception as exc:  # noqa: BLE001
             raise InvalidRecord(f"The stop could not be written as JSON ({exc}).") from None
+        try:
+            new_stop = Stop.model_validate_json(canonical_json_bytes(stop_doc))
+        except ValidationError as exc:
+            probs = problems_from_validation(exc)
+            raise InvalidRecord(one_line(probs), probs) from None
+        except (ValueError, TypeError):
+            probs = _non_finite_problems(stop_doc)
+            raise InvalidRecord(one_line(probs) if probs else "The stop holds a value JSON cannot carry.",
+                                probs) from None
         with self._locked():
-            stored = self._stored_or_none(trip_id)
-            if stored is None:
-                raise TripNotFound(f"No trip {trip_id} on this device; see 'streamtab trip list'.")
-            stops = list(stored.get("stops") or [])
+            trip, stored = self._load(trip_id)  # a fresh object, validated from the stored bytes
+            stops = list(trip.stops)
             for i, s in enumerate(stops):
-                if s.get("id") == stop_doc["id"]:
-                    stops[i] = stop_doc
+                if s.id == new_stop.id:
+                    stops[i] = new_stop
                     break
             else:
-                stops.append(stop_doc)
-            doc = dict(stored)
-            doc["stops"] = stops
-            checked = self._validate_doc(doc)
-            return self._commit(checked, stored, change or f"stop at {stop.site_id} saved",
+                stops.append(new_stop)
+            checked = trip.model_copy(update={"stops": stops})
+            return self._commit(checked, _migrated(stored), change or f"stop at {stop.site_id} saved",
                                 int(stored.get("revision", 0)))
 
     def _stored_or_none(self, trip_id: str) -> dict[str, Any] | None:
