@@ -113,7 +113,7 @@ class _Record(BaseModel):
     """Strict (no "nan", "inf" or True as numbers; times must carry a zone); unknown fields kept."""
 
     model_config = ConfigDict(strict=True, allow_inf_nan=False, extra="allow",
-                              populate_by_name=True, validate_default=False)
+                              populate_by_name=True, validate_default=False, ser_json_inf_nan="strings")
 
 
 def _id_field() -> Any:

@@ -650,12 +650,17 @@ class DeviceStore:
     def _validated(self, trip: Trip) -> Trip:
         if not isinstance(trip, Trip):
             raise InvalidRecord("save_trip needs a Trip record.")
+        # Re-validate strictly from JSON: attributes may have been assigned after construction.
+        # (NaN and infinity serialise as strings here, so validation names the field.)
         try:
-            doc = trip.model_dump(mode="json", warnings=False)
+            data = trip.model_dump_json(warnings=False)
         except Exception as exc:  # noqa: BLE001 - a value assigned after construction that cannot be written
             raise InvalidRecord(f"The trip could not be written as JSON ({exc}).") from None
-        # Re-validate strictly: attributes may have been assigned after construction.
-        return self._validate_doc(doc)
+        try:
+            return Trip.model_validate_json(data)
+        except ValidationError as exc:
+            probs = problems_from_validation(exc)
+            raise InvalidRecord(one_line(probs), probs) from None
 
     def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int) -> Trip:
         """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held."""
