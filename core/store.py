@@ -47,6 +47,7 @@ from core.paths import resolve_data_dir
 
 __all__ = [
     "StoreError", "StoreLocked", "NewerSchemaError", "TripNotFound", "InvalidRecord", "StaleTrip",
+    "StoreWriteError",
     "CorruptFile", "TripSummary", "AtomicJSONStorage", "DeviceStore", "diff_paths",
 ]
 
@@ -81,6 +82,10 @@ class InvalidRecord(StoreError):
     def __init__(self, message: str, problems: list[Problem] | None = None):
         super().__init__(message)
         self.problems = list(problems or [])
+
+
+class StoreWriteError(StoreError):
+    """The disk refused a write (full, read-only, removed); the stored file is unchanged."""
 
 
 class StaleTrip(StoreError):
@@ -698,7 +703,11 @@ class DeviceStore:
         path = self._trip_path(new_doc["id"])
         # The TinyDB layout {"trip": {"1": doc}}, byte for byte what AtomicJSONStorage.write gives.
         file_bytes = b'{"trip":{"1":' + doc_bytes[:-1] + b"}}\n"
-        atomic_write_bytes(path, file_bytes)
+        try:
+            atomic_write_bytes(path, file_bytes)
+        except OSError as exc:
+            raise StoreWriteError(f"Could not write {path.name} ({exc.strerror or exc}); the stored trip"
+                                  " is unchanged — free space or check the storage, then save again.") from None
         self._cache[new_doc["id"]] = (file_bytes, doc_bytes, new_doc)
         self._write_summary(new_doc, "sha256:" + hashlib.sha256(doc_bytes).hexdigest(),
                             self._file_key(new_doc["id"]))
@@ -717,7 +726,10 @@ class DeviceStore:
         (the trip file and its folder) instead of four."""
         summary = _summary_of(doc, digest)
         data = canonical_json_bytes({"summary": summary.to_dict(), "file": list(key) if key else None})
-        _replace_unsynced(self._index_dir / f"{doc['id']}.json", data)
+        try:
+            _replace_unsynced(self._index_dir / f"{doc['id']}.json", data)
+        except OSError:
+            pass  # the index is a checked cache: a missing entry is rebuilt on the next listing
         return summary
 
     # -- sites and settings ----------------------------------------------------------------
@@ -788,7 +800,11 @@ class DeviceStore:
                     by_site[site.id] = key
                 table[key] = site.model_dump(mode="json")
             data["sites"] = table
-            AtomicJSONStorage(path).write(data)
+            try:
+                AtomicJSONStorage(path).write(data)
+            except OSError as exc:
+                raise StoreWriteError(f"Could not write sites.json ({exc.strerror or exc}); the site list"
+                                      " is unchanged.") from None
             self._sites_cache = None
         return checked
 
@@ -823,8 +839,12 @@ class DeviceStore:
             probs = problems_from_validation(exc)
             raise InvalidRecord(one_line(probs), probs) from None
         with self._locked():
-            _tinydb(self.data_dir / "settings.json").table("settings").upsert(
-                Document(checked.model_dump(mode="json"), doc_id=1))
+            try:
+                _tinydb(self.data_dir / "settings.json").table("settings").upsert(
+                    Document(checked.model_dump(mode="json"), doc_id=1))
+            except OSError as exc:
+                raise StoreWriteError(f"Could not write settings.json ({exc.strerror or exc}); the settings"
+                                      " are unchanged.") from None
             self._settings_cache = None
         return checked
 

@@ -346,3 +346,21 @@ def test_conflicts_make_the_trip_need_attention(store):
     assert merged.status == "needs attention"
     s = store.list_trips()[0]
     assert s.status == "needs attention" and s.open_conflicts == 1
+
+
+def test_write_failure_leaves_stored_trip_and_says_so(store, monkeypatch):
+    import core.store as cs
+    from core.store import StoreWriteError
+
+    trip = store.save_trip(make_trip([make_stop()]), "x")
+    before = store.trip_document(trip.id)
+
+    def full(path, data):
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(cs, "atomic_write_bytes", full)
+    with pytest.raises(StoreWriteError) as info:
+        store.save_trip(trip.model_copy(update={"notes": "will not fit"}), "y")
+    assert "No space left on device" in str(info.value) and "unchanged" in str(info.value)
+    monkeypatch.undo()
+    assert DeviceStore.open(store.data_dir).trip_document(trip.id) == before
