@@ -37,6 +37,12 @@ FIELD_LABELS: dict[str, str] = {
     "water_class": "Water class",
     "min_do_mg_l": "Site DO criterion",
     "supersaturation_percent": "Supersaturation threshold",
+    "warm_min_mg_l": "Warm-water DO criterion",
+    "cold_min_mg_l": "Cold-water DO criterion",
+    "hypoxic_mg_l": "Hypoxia threshold",
+    "calibration_tolerance_mg_l": "Calibration tolerance",
+    "temp_jump_c": "Temperature jump threshold",
+    "conductivity_jump_ratio": "Conductivity jump factor",
     "name": "Site name",
     "id": "ID",
     "crew": "Crew",
@@ -97,7 +103,8 @@ TEMPLATES: dict[str, str] = {
     "text.too_long": "{label} is longer than {max} characters.",
     "text.too_short": "{label} must not be empty.",
     "text.pattern": "{label}: “{input}” is not accepted; use letters, digits, '.', '_' or '-' (at most 64).",
-    "number.too_small": "{label}: {input} is below the smallest accepted value, {min}.",
+    "number.too_small": "{label}: {input} is below the accepted range (from {min}).",
+    "number.too_large": "{label}: {input} is above the accepted range (up to {max}).",
     "bool.invalid": "{label}: “{input}” must be true or false.",
     "object.invalid": "{label} must be a group of fields (a JSON object).",
     "list.invalid": "{label} must be a list.",
@@ -119,6 +126,7 @@ _PYDANTIC_TYPES = {
     "string_too_short": "text.too_short",
     "string_pattern_mismatch": "text.pattern",
     "greater_than_equal": "number.too_small", "greater_than": "number.too_small",
+    "less_than_equal": "number.too_large", "less_than": "number.too_large",
     "bool_type": "bool.invalid", "bool_parsing": "bool.invalid",
     "model_type": "object.invalid", "dict_type": "object.invalid", "model_attributes_type": "object.invalid",
     "list_type": "list.invalid", "tuple_type": "list.invalid",
@@ -229,6 +237,8 @@ def problems_from_validation(exc: Any) -> list[Problem]:
             params["max"] = ctx.get("max_length", "?")
         elif code == "number.too_small":
             params["min"] = ctx.get("ge", ctx.get("gt", "?"))
+        elif code == "number.too_large":
+            params["max"] = ctx.get("le", ctx.get("lt", "?"))
         elif code.endswith(".out_of_range") or code == "unit.mismatch":
             params.update(ctx)
             params["label"] = label

@@ -401,19 +401,19 @@ class ProgramSettings(_Record):
     schema_version: int = SCHEMA_VERSION
     program: str = Field(default="", max_length=120)
     method: Literal["benson-krause", "garcia-gordon"] = "benson-krause"
-    warm_min_mg_l: float = 5.0          # common practice (many state standards; EPA 1986 differs)
-    cold_min_mg_l: float = 6.5          # US EPA 440/5-86-003 (1986) cold-water 30-day mean, from memory
-    supersaturation_percent: float = 120.0   # common practice
-    hypoxic_mg_l: float = 2.0           # common practice
-    calibration_tolerance_mg_l: float = 0.2  # common practice (USGS NFM A6.2 method)
+    warm_min_mg_l: float = Field(5.0, ge=0.0, le=20.0)    # common practice (many state standards; EPA 1986 differs)
+    cold_min_mg_l: float = Field(6.5, ge=0.0, le=20.0)    # US EPA 440/5-86-003 (1986) cold-water 30-day mean, from memory
+    supersaturation_percent: float = Field(120.0, ge=100.0, le=500.0)   # common practice
+    hypoxic_mg_l: float = Field(2.0, ge=0.0, le=20.0)     # common practice
+    calibration_tolerance_mg_l: float = Field(0.2, gt=0.0, le=5.0)  # common practice (USGS NFM A6.2 method)
     #: Holding-time overrides by kind (hours), e.g. {"bod": 24} for a stricter SOP.
     holding_overrides_h: dict[str, float] = Field(default_factory=dict)
     #: Plausible stream ranges (warning outside; common practice, adjust per program).
     temp_plausible_c: tuple[float, float] = (0.0, 35.0)
     conductivity_plausible_us_cm: tuple[float, float] = (5.0, 5000.0)
     #: Jumps between consecutive stops that ask for a second look (common practice).
-    temp_jump_c: float = 8.0
-    conductivity_jump_ratio: float = 3.0
+    temp_jump_c: float = Field(8.0, gt=0.0, le=40.0)
+    conductivity_jump_ratio: float = Field(3.0, gt=1.0, le=1000.0)
 
     @field_validator("temp_plausible_c", "conductivity_plausible_us_cm", mode="before")
     @classmethod

@@ -364,3 +364,14 @@ def test_write_failure_leaves_stored_trip_and_says_so(store, monkeypatch):
     assert "No space left on device" in str(info.value) and "unchanged" in str(info.value)
     monkeypatch.undo()
     assert DeviceStore.open(store.data_dir).trip_document(trip.id) == before
+
+
+def test_settings_out_of_range_refused_with_label():
+    from pydantic import ValidationError
+
+    from core.messages import problems_from_validation
+
+    with pytest.raises(ValidationError) as info:
+        ProgramSettings(supersaturation_percent=90.0)
+    p = problems_from_validation(info.value)[0]
+    assert p.code == "number.too_small" and p.message.startswith("Supersaturation threshold: 90")
