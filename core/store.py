@@ -340,6 +340,29 @@ class DeviceStore:
             store._repair_index()
         return store
 
+    @classmethod
+    def in_memory(cls, device_id: str | None = None, **kwargs: Any) -> "DeviceStore":
+        """The same store (same save path, same files) in a RAM-backed scratch folder, for fast tests.
+
+        Uses /dev/shm when it is there (else the system temporary folder); the folder is removed
+        by :meth:`close` or when the store object is garbage-collected.
+        """
+        import shutil
+        import weakref
+
+        shm = Path("/dev/shm")
+        base = str(shm) if shm.is_dir() and os.access(shm, os.W_OK) else None
+        root = Path(tempfile.mkdtemp(prefix="streamtab-store-", dir=base))
+        store = cls.open(root, device_id or "dev-memory", **kwargs)
+        store._finalizer = weakref.finalize(store, shutil.rmtree, str(root), True)
+        return store
+
+    def close(self) -> None:
+        """Releases the store; a scratch store from :meth:`in_memory` is deleted."""
+        fin = getattr(self, "_finalizer", None)
+        if fin is not None:
+            fin()
+
     def _read_device_id(self) -> str | None:
         path = self.data_dir / "device.json"
         try:

@@ -375,3 +375,13 @@ def test_settings_out_of_range_refused_with_label():
         ProgramSettings(supersaturation_percent=90.0)
     p = problems_from_validation(info.value)[0]
     assert p.code == "number.too_small" and p.message.startswith("Supersaturation threshold: 90")
+
+
+def test_in_memory_store_same_save_path_and_removed_on_close():
+    s = DeviceStore.in_memory()
+    root = s.data_dir
+    trip = s.save_trip(make_trip([make_stop(temp="20", pressure="1013.25 hPa", cond=None)]), "x")
+    assert s.load_trip(trip.id).stops[0].derived.do_sat_mg_l == pytest.approx(9.092, abs=0.002)  # SCIENCE.md §1
+    assert (root / "trips" / f"{trip.id}.json").exists()
+    s.close()
+    assert not root.exists()
