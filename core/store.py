@@ -294,9 +294,10 @@ def _utcnow() -> datetime:
 class DeviceStore:
     """The trips, sites and settings on one device. Open with :meth:`DeviceStore.open`.
 
-    Every trip change goes through :meth:`save_trip` or :meth:`put_document`, both of which run
-    validate → derive → write under the inter-process lock. Reads need no lock (files are only
-    ever replaced whole). Store work does disk I/O: call it off the UI thread.
+    Every trip change goes through :meth:`save_trip`, :meth:`save_stop` or :meth:`put_document`,
+    which all run validate → derive → write (one funnel, ``_commit``) under the inter-process
+    lock. Reads need no lock (files are only ever replaced whole). Store work does disk I/O
+    (two fsyncs per save): call it off the UI thread.
     """
 
     def __init__(self, data_dir: Path, device_id: str, *, clock: Callable[[], datetime] | None = None,
