@@ -92,6 +92,10 @@ class StaleTrip(StoreError):
     """The trip was changed (by another save or a sync) since this copy was loaded."""
 
 
+class _Unreadable(Exception):
+    """Internal: a trip file that does not parse (the reason is the message)."""
+
+
 class CorruptFile(StoreError):
     """A stored file could not be read; it was moved to quarantine (see `path`)."""
 
@@ -443,10 +447,20 @@ class DeviceStore:
             raise TripNotFound(f"No trip with id {trip_id!r} on this device (ids are letters, digits, '-', '_', '.').")
         return self._trips_dir / f"{trip_id}.json"
 
-    def _corrupt(self, path: Path, reason: str) -> CorruptFile:
-        target = self._quarantine(path, reason)
-        (self._index_dir / path.name).unlink(missing_ok=True)
-        self._cache.pop(path.stem, None)
+    def _corrupt(self, path: Path, reason: str, seen: bytes | None = None) -> CorruptFile | None:
+        """Quarantines an unreadable trip file — under the lock, and only if it still holds the
+        bytes that were found unreadable (a writer may have just replaced it with a good one).
+        Returns the error to raise, or None when the file changed meanwhile (read it again)."""
+        with self._locked():
+            if seen is not None:
+                try:
+                    if path.read_bytes() != seen:
+                        return None
+                except FileNotFoundError:
+                    return None
+            target = self._quarantine(path, reason)
+            (self._index_dir / path.name).unlink(missing_ok=True)
+            self._cache.pop(path.stem, None)
         return CorruptFile(f"The trip file {path.name} could not be read ({reason}); it was moved to"
                            f" {target} and the rest of the store keeps working.", target)
 
@@ -455,35 +469,49 @@ class DeviceStore:
 
         The file's bytes are read every time and compared with the last version this store
         read or wrote; only a changed file is parsed again. Callers must not change the dict.
+        An unreadable file is quarantined (CorruptFile).
         """
         path = self._trip_path(trip_id)
-        try:
-            file_bytes = path.read_bytes()
-        except FileNotFoundError:
-            self._cache.pop(trip_id, None)
-            return None
-        hit = self._cache.get(trip_id)
-        if hit is not None and hit[0] == file_bytes:
-            return hit[1], hit[2]
+        for _ in range(3):  # bounded: a file replaced while being judged is read again
+            try:
+                file_bytes = path.read_bytes()
+            except FileNotFoundError:
+                self._cache.pop(trip_id, None)
+                return None
+            hit = self._cache.get(trip_id)
+            if hit is not None and hit[0] == file_bytes:
+                return hit[1], hit[2]
+            try:
+                raw, doc = self._parse_trip_file(trip_id, file_bytes)
+            except _Unreadable as bad:
+                err = self._corrupt(path, str(bad), file_bytes)
+                if err is None:
+                    continue
+                raise err from None
+            if len(self._cache) > 64:
+                self._cache.clear()
+            self._cache[trip_id] = (file_bytes, raw, doc)
+            return raw, doc
+        raise StoreError(f"The trip file {path.name} keeps changing while being read; try again.")
+
+    @staticmethod
+    def _parse_trip_file(trip_id: str, file_bytes: bytes) -> tuple[bytes, dict[str, Any]]:
         if not file_bytes.strip():
-            raise self._corrupt(path, "the file is empty")
+            raise _Unreadable("the file is empty")
         try:
             data = json.loads(file_bytes)
         except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-            raise self._corrupt(path, f"the file is not valid JSON ({exc})") from None
+            raise _Unreadable(f"the file is not valid JSON ({exc})") from None
         table = data.get("trip") if isinstance(data, dict) else None
         doc = table.get("1") if isinstance(table, dict) else None
         if not isinstance(doc, dict):
-            raise self._corrupt(path, "no trip document inside")
+            raise _Unreadable("no trip document inside")
         if doc.get("id") != trip_id:
-            raise self._corrupt(path, f"the id inside is {doc.get('id')!r}")
+            raise _Unreadable(f"the id inside is {doc.get('id')!r}")
         try:
             raw = canonical_json_bytes(doc)
         except ValueError as exc:
-            raise self._corrupt(path, str(exc)) from None
-        if len(self._cache) > 64:
-            self._cache.clear()
-        self._cache[trip_id] = (file_bytes, raw, doc)
+            raise _Unreadable(str(exc)) from None
         return raw, doc
 
     def _read_trip_doc_raw(self, trip_id: str) -> dict[str, Any] | None:
@@ -504,7 +532,13 @@ class DeviceStore:
         except (ValidationError, ValueError) as exc:
             probs = problems_from_validation(exc) if isinstance(exc, ValidationError) else []
             reason = "failed validation: " + (one_line(probs) if probs else str(exc))
-            raise self._corrupt(self._trip_path(trip_id), reason) from None
+            path = self._trip_path(trip_id)
+            seen = b'{"trip":{"1":' + raw_bytes[:-1] + b"}}\n"
+            hit = self._cache.get(trip_id)
+            err = self._corrupt(path, reason, hit[0] if hit is not None else seen)
+            if err is None:
+                return self._load(trip_id)
+            raise err from None
         return trip, raw
 
     def load_trip(self, trip_id: str) -> Trip:

@@ -385,3 +385,13 @@ def test_in_memory_store_same_save_path_and_removed_on_close():
     assert (root / "trips" / f"{trip.id}.json").exists()
     s.close()
     assert not root.exists()
+
+
+def test_quarantine_spares_a_file_replaced_meanwhile(store):
+    # A reader found bytes it could not parse, but a writer replaced the file before the reader
+    # took the lock: the good file must stay where it is.
+    trip = store.save_trip(make_trip([make_stop()]), "x")
+    path = store.data_dir / "trips" / f"{trip.id}.json"
+    assert store._corrupt(path, "seen torn", seen=b'{"trip": {"1"') is None
+    assert path.exists() and store.quarantined() == []
+    assert store.load_trip(trip.id) == trip
