@@ -395,3 +395,12 @@ def test_quarantine_spares_a_file_replaced_meanwhile(store):
     assert store._corrupt(path, "seen torn", seen=b'{"trip": {"1"') is None
     assert path.exists() and store.quarantined() == []
     assert store.load_trip(trip.id) == trip
+
+
+def test_malformed_old_document_refused_clearly(store):
+    from core.store import InvalidRecord
+
+    bad = dict(json.loads(json.dumps(V1_DOC)), stops=["not a stop"])
+    with pytest.raises(InvalidRecord) as info:
+        store.put_document(bad, "import")
+    assert "schema version 1" in str(info.value) and "\n" not in str(info.value)
