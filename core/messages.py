@@ -80,6 +80,8 @@ _HINTS = {
     "do_percent": " — was it mg/L?",
     "elevation": " — elevation is in metres.",
     "calibration_reading": " — was it % saturation?",
+    "criterion": ".",
+    "supersaturation": ".",
     "tolerance": ".",
 }
 

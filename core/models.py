@@ -40,6 +40,8 @@ LIMITS: dict[str, tuple[float, float, str]] = {
     "latitude": (-90.0, 90.0, "°"),
     "longitude": (-180.0, 180.0, "°"),
     "calibration_reading": (0.0, 25.0, "mg/L"),
+    "criterion": (0.0, 20.0, "mg/L"),          # the range core.criteria accepts
+    "supersaturation": (100.0, 500.0, "%"),    # the range core.criteria accepts
     "tolerance": (0.0, 5.0, "mg/L"),
 }
 
@@ -239,12 +241,12 @@ class Site(_Record):
     @field_validator("min_do_mg_l")
     @classmethod
     def _crit(cls, v: float | None) -> float | None:
-        return _check_range(v, "do_mg_l")
+        return _check_range(v, "criterion")
 
     @field_validator("supersaturation_percent")
     @classmethod
     def _ss(cls, v: float | None) -> float | None:
-        return _check_range(v, "do_percent")
+        return _check_range(v, "supersaturation")
 
 
 class Calibration(_Record):
