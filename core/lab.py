@@ -811,7 +811,8 @@ def pending_bottles(trips: Iterable[Trip], now: datetime, settings: LabSettings 
 
     Order: bottles still in time by time left (least first), then expired ones (most recently
     expired first) — the ones that can still be saved come before the ones that need a decision.
-    Blank bottles are left out (no analysis is defined for them here).
+    Blank bottles are left out (no analysis is defined for them here), and so are bottles collected
+    after `now` (when the clocks are read at an earlier time).
     """
     from core.holding import holding_clock
 
@@ -830,12 +831,12 @@ def pending_bottles(trips: Iterable[Trip], now: datetime, settings: LabSettings 
                     kind = "do_winkler" if analyte == WINKLER_ANALYTE else "bod"
                 else:
                     continue
-                if current_result(b, analyte) is not None:
+                if current_result(b, analyte) is not None or b.collected_at > now:
                     continue
                 fixed = b.fixed_at if (kind == "do_winkler" and b.fixed_at is not None
                                        and b.fixed_at >= b.collected_at) else None
                 try:
-                    clock = holding_clock(kind, b.collected_at, max(now, b.collected_at), fixed_at=fixed,
+                    clock = holding_clock(kind, b.collected_at, now, fixed_at=fixed,
                                           overrides=settings.holding_overrides_h or None)
                 except ValueError:
                     continue
