@@ -430,6 +430,12 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
                            "Check the field sheet for the fixing time; qualify the result if it is unknown.",
                            "fixed_at"))
     fixed = bottle.fixed_at if bottle.fixed_at is not None and bottle.fixed_at >= bottle.collected_at else None
+    if bottle.fixed_at is not None and fixed is None:
+        flags.append(_flag("lab.fixing_time_doubtful", Severity.WARNING,
+                           f"Bottle {bottle.label}'s fixing time ({bottle.fixed_at.isoformat(timespec='minutes')}) is"
+                           f" before its collection ({bottle.collected_at.isoformat(timespec='minutes')}); the"
+                           " holding time was counted from collection.",
+                           "Correct the field record's times.", "fixed_at"))
     clock = holding_clock("do_winkler", bottle.collected_at, analysed_at, fixed_at=fixed,
                           overrides=settings.holding_overrides_h or None)
     start = fixed or bottle.collected_at
@@ -453,12 +459,16 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
     if meter is not None:
         diff = do - meter
         derived["meter_difference_mg_l"] = diff
+        cal = [label for label, c in (("pre-trip calibration", trip.pre_calibration),
+                                       ("post-trip check", trip.post_check)) if c is not None and c.accepted is False]
+        derived["calibrations_not_accepted"] = cal
         if abs(diff) > settings.meter_tolerance_mg_l + 1e-9:
+            seen = f" The trip's {' and '.join(cal)} {'was' if len(cal) == 1 else 'were'} not accepted." if cal else ""
             flags.append(_flag("lab.meter_disagrees", Severity.WARNING,
                                f"Winkler DO {do:.2f} mg/L differs from the field meter's {meter:.2f} mg/L at"
                                f" {stop.site_id} by {diff:+.2f} mg/L, more than ±{settings.meter_tolerance_mg_l:g}"
                                " mg/L: a possible meter problem (calibration, membrane, drift) or fixing problem"
-                               " (air bubble, late or incomplete fixing).",
+                               f" (air bubble, late or incomplete fixing).{seen}",
                                "Check the trip's calibration records and the field notes before relying on either"
                                " value.", "do"))
     if do > _DO_IMPLAUSIBLE_MG_L:

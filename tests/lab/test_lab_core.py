@@ -466,3 +466,20 @@ def test_settings_refuse_impossible_values():
 
 def test_caution_names_the_reagents_and_the_sop():
     assert "sulfuric acid" in CAUTION and "alkali-iodide-azide" in CAUTION and "SOP" in CAUTION
+
+
+def test_fixing_before_collection_counts_from_collection():
+    b = bottle("TV-0801", fixed=timedelta(hours=-1))
+    out = wink(trip(stop(bottles=[b])), at=T0 + timedelta(hours=7, minutes=30))
+    assert "lab.fixing_time_doubtful" in codes(out)
+    assert out.result.inputs["derived"]["holding"]["from"] == "collection"
+
+
+def test_meter_disagreement_mentions_a_failed_calibration():
+    from core.models import Calibration
+
+    cal = Calibration(kind="post-trip", at=T0 + timedelta(hours=5), temp=measure("temp", "20"),
+                      pressure=measure("pressure", "1013.25 hPa"), reading_mg_l=8.5, accepted=False)
+    t = trip(stop(bottles=[bottle("TV-0801")], do="7.0")).model_copy(update={"post_check": cal})
+    f = [x for x in wink(t, titrant=8.0).flags if x.code == "lab.meter_disagrees"]
+    assert f and "post-trip check" in f[0].message
