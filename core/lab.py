@@ -459,6 +459,14 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
     if meter is not None:
         diff = do - meter
         derived["meter_difference_mg_l"] = diff
+        # What the burette should have read had the meter been right: a quick check for a typo.
+        from core.winkler import expected_titrant_ml
+
+        try:
+            derived["titrant_ml_expected_from_meter"] = float(
+                expected_titrant_ml(meter, n, titrated_ml, bottle_ml, reagents_ml))
+        except ValueError:
+            derived["titrant_ml_expected_from_meter"] = None
         cal = [label for label, c in (("pre-trip calibration", trip.pre_calibration),
                                        ("post-trip check", trip.post_check)) if c is not None and c.accepted is False]
         derived["calibrations_not_accepted"] = cal

@@ -72,28 +72,45 @@ def _lab_error(exc: Exception) -> CliError:
     return CliError(f"{option}: {msg}" if option else msg)
 
 
+#: LabSettings fields a program may set in its settings as ``lab_<name>``; options override them.
+_PROGRAM_KEYS = ("meter_tolerance_mg_l", "duplicate_rpd_percent", "standardisation_max_age_h")
+
+
 def _now(args) -> datetime:  # noqa: ANN001
     return _time(getattr(args, "now", None), "--now") or datetime.now(timezone.utc)
 
 
 def _settings(args, store):  # noqa: ANN001
+    """LabSettings: defaults, then the program's settings (``lab_<name>`` fields), then the options."""
+    from dataclasses import replace
+
     from core.lab import LabInputError, LabSettings
     from core.store import StoreError
 
-    kw: dict[str, Any] = {}
     try:
-        kw["holding_overrides_h"] = dict(store.settings().holding_overrides_h or {})
+        program = store.settings()
     except StoreError as exc:
         fail(str(exc))
+    kw: dict[str, Any] = {"holding_overrides_h": dict(program.holding_overrides_h or {})}
+    # A program may keep the lab's thresholds in its settings (the models keep unknown fields).
+    for key in _PROGRAM_KEYS:
+        value = (program.model_extra or {}).get(f"lab_{key}")
+        if value is not None:
+            kw[key] = value
+    try:
+        base = LabSettings(**kw)
+    except LabInputError as exc:
+        fail(f"program settings lab_{exc.field}: {exc.message}; change it in the program's settings")
+    opts: dict[str, Any] = {}
     tol = _number(getattr(args, "meter_tolerance", None), "--meter-tolerance", "mg/L, above 0 to 5 (default 0.5)",
                   ("mg/L",))
     if tol is not None:
-        kw["meter_tolerance_mg_l"] = tol
+        opts["meter_tolerance_mg_l"] = tol
     rpd = _number(getattr(args, "rpd_limit", None), "--rpd-limit", "%, above 0 to 200 (default 20)", ("%",))
     if rpd is not None:
-        kw["duplicate_rpd_percent"] = rpd
+        opts["duplicate_rpd_percent"] = rpd
     try:
-        return LabSettings(**kw)
+        return replace(base, **opts)
     except LabInputError as exc:
         raise _lab_error(exc) from None
 
@@ -213,7 +230,8 @@ def _winkler(args) -> int:  # noqa: ANN001
             ("held", f"{hold['held_h']:.1f} h from {hold['from']} (limit {hold['limit_h']:g} h)")]
     if d.get("meter_do_mg_l") is not None:
         rows.append(("field meter", f"{d['meter_do_mg_l']:.2f} mg/L, difference {d['meter_difference_mg_l']:+.2f}"
-                                    f" mg/L (tolerance ±{d['meter_tolerance_mg_l']:g})"))
+                                    f" mg/L (tolerance ±{d['meter_tolerance_mg_l']:g}; it implies"
+                                    f" {d['titrant_ml_expected_from_meter'] or 0:.2f} mL of titrant)"))
     else:
         rows.append(("field meter", d["meter_do_source"]))
     if out.superseded:

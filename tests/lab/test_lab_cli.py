@@ -265,3 +265,39 @@ def test_results_of_a_trip_with_earlier_results(data):
     r = lab("winkler", LOWER[:8], "TV-0611", "--titrant-ml", "9.4", "--normality", "0.025", "--titrated-ml",
             "201", "--at", "2026-06-09T12:00-07:00", data_dir=data)
     one_line_error(r, "--redo", "already has")
+
+
+def test_program_settings_feed_the_checks(data):
+    from core.models import ProgramSettings
+
+    store = DeviceStore.open(data)
+    # A stricter SOP holding time (4 h) and the lab's meter tolerance kept in the program's settings.
+    store.save_settings(ProgramSettings(program="Tamsin Valley Stream Watch", holding_overrides_h={"do_winkler": 4.0},
+                                        lab_meter_tolerance_mg_l=1.0))
+    out = ok_json(lab(*winkler_args("--json"), data_dir=data))
+    codes = [f["code"] for f in out["flags"]]
+    assert "lab.holding_exceeded" in codes                   # 6.5 h after fixing > 4 h
+    assert "lab.meter_disagrees" not in codes                # 0.78 mg/L within the program's 1.0
+    assert out["result"]["inputs"]["derived"]["holding"]["limit_h"] == 4.0
+    r = lab(*winkler_args("--meter-tolerance", "0.5", "--redo", "check"), data_dir=data)
+    assert r.returncode == 0 and "lab.meter_disagrees" in r.stdout   # the option overrides the program
+
+
+def test_bad_program_setting_is_one_line(data):
+    from core.models import ProgramSettings
+
+    DeviceStore.open(data).save_settings(ProgramSettings(lab_duplicate_rpd_percent=-3))
+    one_line_error(lab("duplicates", HOT[:8], data_dir=data), "lab_duplicate_rpd_percent", "0 to 200")
+
+
+def test_data_dir_that_is_a_file(tmp_path):
+    f = tmp_path / "not-a-folder"
+    f.write_text("x")
+    one_line_error(lab("pending", data_dir=f), "--data-dir")
+
+
+def test_expected_titrant_from_the_meter(data):
+    out = ok_json(lab(*winkler_args("--json"), data_dir=data))
+    # Inverse of the Winkler equation (Standard Methods 4500-O C, from memory): V = DO · V_orig / (N · 8000).
+    expected = 12.9 * (201 * 298 / 300) / (0.025 * 8000)
+    assert out["result"]["inputs"]["derived"]["titrant_ml_expected_from_meter"] == pytest.approx(expected)
