@@ -492,7 +492,7 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     p = lab_sub.add_parser("duplicates", help="field duplicates against their bottles (relative percent difference)")
     p.add_argument("trip", metavar="TRIP_ID", help="trip id, or its first 8 characters")
     p.add_argument("--rpd-limit", metavar="PERCENT",
-                   help="largest accepted relative percent difference, % (default 20, common practice)")
+                   help="largest accepted relative percent difference, %% (default 20, common practice)")
     _common(p)
     p.set_defaults(handler=_duplicates)
 

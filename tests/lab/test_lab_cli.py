@@ -258,6 +258,12 @@ def test_help_lists_the_lab_commands():
         assert name in r.stdout
 
 
+@pytest.mark.parametrize("name", ["pending", "winkler", "bod", "duplicates", "results"])
+def test_each_command_has_help(name):
+    r = run_cli("lab", name, "--help")
+    assert r.returncode == 0 and "--data-dir" in r.stdout and "Traceback" not in r.stderr
+
+
 def test_results_of_a_trip_with_earlier_results(data):
     out = ok_json(lab("results", LOWER[:8], "--json", data_dir=data))
     assert {r["label"] for r in out["results"]} == {"TV-0611", "TV-0612", "TV-0613", "TV-0614"}
