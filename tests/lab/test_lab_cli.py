@@ -307,3 +307,16 @@ def test_expected_titrant_from_the_meter(data):
     # Inverse of the Winkler equation (Standard Methods 4500-O C, from memory): V = DO · V_orig / (N · 8000).
     expected = 12.9 * (201 * 298 / 300) / (0.025 * 8000)
     assert out["result"]["inputs"]["derived"]["titrant_ml_expected_from_meter"] == pytest.approx(expected)
+
+
+def test_ambiguous_trip_prefix(data, tmp_path):
+    doc = _dup_trip()
+    doc["id"] = "7f3e9a12-ffff-4d5e-8f6a-1b2c3d4e5f61"          # same first 8 characters as the duplicate trip
+    for s in doc["stops"]:
+        for b in s["bottles"]:
+            b["label"] += "X"
+    f = tmp_path / "twin.json"
+    f.write_text(json.dumps(doc), encoding="utf-8")
+    assert run_cli("trip", "import", str(f), data_dir=data).returncode == 0
+    one_line_error(lab("duplicates", "7f3e9a12", data_dir=data), "TRIP_ID", "matches 2 trips", "more characters")
+    assert ok_json(lab("duplicates", "7f3e9a12-f", "--json", data_dir=data))["trip_id"] == doc["id"]
