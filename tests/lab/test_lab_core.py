@@ -483,3 +483,20 @@ def test_meter_disagreement_mentions_a_failed_calibration():
     t = trip(stop(bottles=[bottle("TV-0801")], do="7.0")).model_copy(update={"post_check": cal})
     f = [x for x in wink(t, titrant=8.0).flags if x.code == "lab.meter_disagrees"]
     assert f and "post-trip check" in f[0].message
+
+
+def test_lab_core_is_pure():
+    # The core has no clock and no disk (team rules): no imports of the store, shells or UI, no now().
+    import ast
+    from pathlib import Path
+
+    import core.lab
+
+    tree = ast.parse(Path(core.lab.__file__).read_text(encoding="utf-8"))
+    imported = {a.name for n in ast.walk(tree) if isinstance(n, ast.Import) for a in n.names}
+    imported |= {n.module for n in ast.walk(tree) if isinstance(n, ast.ImportFrom) and n.module}
+    assert not {m for m in imported if m.split(".")[0] in ("mobile", "sync", "kivy", "requests", "os", "time")}
+    assert "core.store" not in imported and "core.atomic" not in imported
+    calls = {n.func.attr if isinstance(n.func, ast.Attribute) else getattr(n.func, "id", "")
+             for n in ast.walk(tree) if isinstance(n, ast.Call)}
+    assert not calls & {"now", "utcnow", "today", "open", "write_text", "write_bytes"}
