@@ -9,7 +9,7 @@ __all__ = ["main"]
 
 
 def build_parser() -> OneLineParser:
-    from mobile.cli import app_cmd, science_cmds, sync_cmds, trip_cmds
+    from mobile.cli import app_cmd, lab_cmds, science_cmds, sync_cmds, trip_cmds
 
     parser = OneLineParser(
         prog="streamtab",
@@ -20,6 +20,7 @@ def build_parser() -> OneLineParser:
     trip_cmds.register(sub)
     sync_cmds.register(sub)
     app_cmd.register(sub)
+    lab_cmds.register(sub)
     return parser
 
 

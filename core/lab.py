@@ -1,0 +1,867 @@
+"""The analyst's bench on trip records: Winkler DO and BOD5 results on bottles, duplicates, the pending list.
+
+Everything here is pure: a Trip and bench inputs in, a new Trip out (with a
+:class:`core.models.LabResult` appended to the bottle); no disk, no clock (``now`` is passed in).
+
+A result is never replaced. A second titration (or BOD) of the same bottle needs a reason; it is
+appended, and the earlier result stays in place, marked superseded in its ``inputs`` and ``notes``.
+
+Layout of ``LabResult.inputs`` (the models have no fields for flags or superseding, so they live here):
+
+=================  ==========================================================================
+``entered``        the bench values as the analyst typed them (text from the CLI, else numbers)
+``used``           the numbers the calculation used (mL, eq/L, mg/L, ...)
+``derived``        intermediate values: original sample volume, normality and its source,
+                   holding time, the meter's DO at that stop, BOD dilutions ...
+``flags``          findings, each ``{code, severity, message, action, field}``
+``supersedes``     ids of the earlier results this one replaces (a re-analysis)
+``superseded_by``  on an earlier result: the id of the result that replaced it, with
+                   ``superseded_at`` and ``superseded_reason``
+=================  ==========================================================================
+
+Caution: the Winkler reagents hurt people (concentrated sulfuric acid; the alkali-iodide-azide
+reagent is corrosive and toxic). Follow the lab's SOP and the safety data sheets.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from datetime import datetime, timedelta
+from typing import Any, Iterable
+
+from core.flags import Flag, Severity
+from core.models import Bottle, LabResult, Stop, Trip, new_id
+
+__all__ = [
+    "WINKLER_ANALYTE", "BOD_ANALYTE", "WINKLER_METHOD", "BOD_METHOD", "CAUTION", "LabSettings",
+    "LabInputError", "Standardisation", "LabOutcome", "DuplicateCheck", "PendingBottle",
+    "analyte_key", "current_result", "find_bottle", "record_winkler", "record_bod", "duplicate_checks",
+    "pending_bottles", "relative_percent_difference", "WINKLER_KINDS", "BOD_KINDS",
+]
+
+#: Analyte names written by this module; the sample scenario already writes these. Readers match
+#: them with :func:`analyte_key`, so "do-winkler" and "do_winkler" are the same analyte.
+WINKLER_ANALYTE = "do_winkler"
+BOD_ANALYTE = "bod5"
+WINKLER_METHOD = "Standard Methods 4500-O C (Winkler, azide modification)"
+BOD_METHOD = "Standard Methods 5210 B (5-day BOD, dilution)"
+
+#: Bottle kinds each analysis accepts.
+WINKLER_KINDS = ("do-fixed", "duplicate")
+BOD_KINDS = ("bod", "duplicate")
+
+CAUTION = ("Caution: concentrated sulfuric acid burns and the alkali-iodide-azide reagent is corrosive and"
+           " toxic (sodium azide); wear eye protection and gloves, and follow the lab's SOP and the"
+           " reagents' safety data sheets.")
+
+#: Computed Winkler DO above this is taken as a typing or unit mistake worth a stop (common practice:
+#: streams rarely exceed about 20 mg/L even when strongly supersaturated).
+_DO_IMPLAUSIBLE_MG_L = 20.0
+#: BOD incubator temperature, 20 ± 1 °C (Standard Methods 5210 B, from memory).
+_INCUBATOR_C = (19.0, 21.0)
+_NOTES_MAX = 2000
+
+
+class LabInputError(ValueError):
+    """A bench input that cannot be accepted: ``field`` names it; the message gives the accepted range."""
+
+    def __init__(self, field: str, message: str):
+        super().__init__(message)
+        self.field = field
+        self.message = message
+
+
+@dataclass(frozen=True)
+class LabSettings:
+    """The lab's QC thresholds (each a setting; the lab's SOP decides).
+
+    Attributes
+    ----------
+    meter_tolerance_mg_l : float
+        Largest accepted difference between the Winkler DO and the field meter's DO at the same
+        stop, mg/L (> 0 to 5). Default 0.5 [common practice].
+    duplicate_rpd_percent : float
+        Largest accepted relative percent difference between a bottle and its field duplicate,
+        % (> 0 to 200). Default 20 [common practice].
+    standardisation_max_age_h : float
+        A thiosulfate standardisation older than this when the sample is titrated gets a note, h
+        (> 0). Default 24 [common practice: standardise daily].
+    holding_overrides_h : dict of str to float
+        The program's SOP holding times by kind ("do_winkler", "bod"), replacing the regulation's.
+    future_slack_s : float
+        How far after ``now`` an analysis time may lie (clock differences), s. Default 300.
+    """
+
+    meter_tolerance_mg_l: float = 0.5
+    duplicate_rpd_percent: float = 20.0
+    standardisation_max_age_h: float = 24.0
+    holding_overrides_h: dict[str, float] = field(default_factory=dict)
+    future_slack_s: float = 300.0
+
+    def __post_init__(self) -> None:
+        _num(self.meter_tolerance_mg_l, "meter_tolerance_mg_l", 0.0, 5.0, "mg/L", lo_open=True)
+        _num(self.duplicate_rpd_percent, "duplicate_rpd_percent", 0.0, 200.0, "%", lo_open=True)
+        _num(self.standardisation_max_age_h, "standardisation_max_age_h", 0.0, 24 * 366.0, "h", lo_open=True)
+        _num(self.future_slack_s, "future_slack_s", 0.0, 86400.0, "s")
+
+
+@dataclass(frozen=True)
+class Standardisation:
+    """A bi-iodate standardisation of the thiosulfate titrant (the normality's source).
+
+    ``titrant_ml`` of thiosulfate titrated ``standard_ml`` of ``standard_normality`` KH(IO3)2;
+    N = N_std · V_std / V_titrant (Standard Methods 4500-O C, from memory).
+    """
+
+    titrant_ml: float
+    standard_ml: float = 20.0
+    standard_normality: float = 0.025
+    standardised_at: datetime | None = None
+
+
+@dataclass(frozen=True)
+class LabOutcome:
+    """What a recording call returns: the new trip, the new result and where it went."""
+
+    trip: Trip
+    result: LabResult
+    stop: Stop
+    bottle: Bottle
+    superseded: list[str]
+    flags: list[Flag]
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"trip_id": self.trip.id, "stop_id": self.stop.id, "site_id": self.stop.site_id,
+                "bottle_id": self.bottle.id, "bottle_label": self.bottle.label, "bottle_kind": self.bottle.kind,
+                "result": self.result.model_dump(mode="json"), "superseded": list(self.superseded),
+                "flags": [f.to_dict() for f in self.flags]}
+
+
+# --------------------------------------------------------------------------------------------
+# Small helpers
+# --------------------------------------------------------------------------------------------
+def _num(x: Any, name: str, lo: float | None, hi: float | None, unit: str, *, lo_open: bool = False) -> float:
+    if isinstance(x, bool) or not isinstance(x, (int, float)):
+        raise LabInputError(name, f"{name} = {x!r} is not a number; accepted: {_range(lo, hi, unit, lo_open)}")
+    v = float(x)
+    if not math.isfinite(v) or (lo is not None and (v < lo or (lo_open and v == lo))) or (hi is not None and v > hi):
+        raise LabInputError(name, f"{name} = {v:g} is out of range; accepted: {_range(lo, hi, unit, lo_open)}")
+    return v
+
+
+def _range(lo, hi, unit, lo_open=False) -> str:
+    u = f" {unit}" if unit else ""
+    if lo is not None and hi is not None:
+        return f"{'above ' if lo_open else ''}{lo:g} to {hi:g}{u}"
+    if lo is not None:
+        return f"{'above' if lo_open else 'at least'} {lo:g}{u}"
+    return f"at most {hi:g}{u}"
+
+
+def _aware(t: Any, name: str) -> datetime:
+    if not isinstance(t, datetime):
+        raise LabInputError(name, f"{name} = {t!r} is not a date-time; accepted: an ISO 8601 time with a zone,"
+                                  " e.g. 2026-06-09T11:20-07:00")
+    if t.tzinfo is None or t.utcoffset() is None:
+        raise LabInputError(name, f"{name} = {t.isoformat()} has no time zone; accepted: an ISO 8601 time with a"
+                                  " zone, e.g. 2026-06-09T11:20-07:00")
+    return t
+
+
+def _fmt_h(hours: float) -> str:
+    return f"{hours * 60:.0f} min" if abs(hours) < 1 else f"{hours:.1f} h"
+
+
+def analyte_key(analyte: str) -> str:
+    """The analyte name compared case- and separator-blind ("do-winkler" == "DO_Winkler")."""
+    return str(analyte).strip().lower().replace("-", "_").replace(" ", "_")
+
+
+def current_result(bottle: Bottle, analyte: str) -> LabResult | None:
+    """The bottle's latest result for `analyte` that no later result superseded (None when none)."""
+    key = analyte_key(analyte)
+    live = [r for r in bottle.lab_results
+            if analyte_key(r.analyte) == key and not (r.inputs or {}).get("superseded_by")]
+    return live[-1] if live else None
+
+
+def _flag(code: str, severity: Severity, message: str, action: str, field_: str | None = None) -> Flag:
+    return Flag(code, severity, message, action, field_)
+
+
+def _sev_rank(f: Flag) -> int:
+    return Severity(f.severity).rank
+
+
+def find_bottle(trip: Trip, ref: str, kinds: tuple[str, ...] | None = None) -> tuple[Stop, Bottle, list[Flag]]:
+    """The stop and bottle a label (or a bottle id, or its first 8 or more characters) names.
+
+    A label used on two bottles of the trip is settled by `kinds` when exactly one of them has an
+    accepted kind (a ``lab.duplicate_label`` warning says so); otherwise :class:`LabInputError`
+    lists the choices. An unknown label lists the trip's labels.
+    """
+    ref = (ref or "").strip()
+    if not ref:
+        raise LabInputError("bottle", "bottle label is empty; accepted: one of this trip's bottle labels: "
+                            + _labels(trip))
+    pairs = [(s, b) for s in trip.stops for b in s.bottles]
+    hits = [(s, b) for s, b in pairs if b.label == ref]
+    if not hits:
+        hits = [(s, b) for s, b in pairs if b.label.casefold() == ref.casefold()]
+    if not hits:
+        hits = [(s, b) for s, b in pairs if b.id == ref or (len(ref) >= 8 and b.id.startswith(ref))]
+    if not hits:
+        raise LabInputError("bottle", f"bottle {ref!r} is not on trip {trip.id[:8]}; accepted: one of its bottle"
+                            f" labels: {_labels(trip)}")
+    flags: list[Flag] = []
+    if len(hits) > 1:
+        fitting = [(s, b) for s, b in hits if kinds is None or b.kind in kinds]
+        if len(fitting) != 1:
+            choices = ", ".join(f"{b.id[:8]} ({b.kind} at {s.site_id})" for s, b in hits)
+            raise LabInputError("bottle", f"bottle label {ref!r} is on {len(hits)} bottles of trip {trip.id[:8]};"
+                                f" accepted: the bottle id (8 or more characters) of one of {choices}")
+        s, b = fitting[0]
+        flags.append(_flag("lab.duplicate_label", Severity.WARNING,
+                           f"Bottle label {ref} is used on {len(hits)} bottles of this trip; the {b.kind} bottle"
+                           f" from {s.site_id} was taken because it is the only one of a kind this analysis accepts.",
+                           "Check the bottle against the field sheet and relabel one of them.", "label"))
+        hits = fitting
+    s, b = hits[0]
+    return s, b, flags
+
+
+def _labels(trip: Trip) -> str:
+    labels = [b.label for s in trip.stops for b in s.bottles]
+    return ", ".join(dict.fromkeys(labels)) if labels else "(this trip has no bottles)"
+
+
+def _check_times(analysed_at: datetime, now: datetime, settings: LabSettings, bottle: Bottle,
+                 name: str = "analysed_at") -> None:
+    _aware(analysed_at, name)
+    _aware(now, "now")
+    if analysed_at > now + timedelta(seconds=settings.future_slack_s):
+        raise LabInputError(name, f"{name} = {analysed_at.isoformat()} is in the future (now is"
+                                  f" {now.isoformat(timespec='minutes')}); accepted: a time up to now")
+    if analysed_at < bottle.collected_at:
+        raise LabInputError(name, f"{name} = {analysed_at.isoformat()} is before bottle {bottle.label} was collected"
+                                  f" ({bottle.collected_at.isoformat()}); accepted: a time after collection")
+
+
+def _notes(analyst_notes: str, flags: list[Flag], extra: list[str] = ()) -> str:
+    parts = [analyst_notes.strip()] if analyst_notes and analyst_notes.strip() else []
+    parts.extend(extra)
+    parts.extend(f"{f.severity.value if hasattr(f.severity, 'value') else f.severity}: {f.message}" for f in flags)
+    text = " ".join(parts)
+    return text if len(text) <= _NOTES_MAX else text[: _NOTES_MAX - 1] + "…"
+
+
+def _append(trip: Trip, stop: Stop, bottle: Bottle, result: LabResult, analyte: str,
+            redo_reason: str | None, at: datetime) -> tuple[Trip, Stop, Bottle, list[str]]:
+    """The trip with `result` appended to the bottle; earlier live results of the analyte marked superseded."""
+    key = analyte_key(analyte)
+    live = [r for r in bottle.lab_results if analyte_key(r.analyte) == key and not (r.inputs or {}).get("superseded_by")]
+    live_ids = {r.id for r in live}
+    superseded: list[str] = []
+    results: list[LabResult] = []
+    for r in bottle.lab_results:
+        if r.id in live_ids:
+            inputs = dict(r.inputs or {})
+            inputs.update(superseded_by=result.id, superseded_at=at.isoformat(), superseded_reason=redo_reason or "")
+            note = (f"Superseded by result {result.id[:8]} on {at.isoformat(timespec='minutes')}"
+                    f" ({redo_reason}); kept for the record.")
+            notes = (r.notes + " " + note).strip() if r.notes else note
+            results.append(r.model_copy(update={"inputs": inputs, "notes": notes[:_NOTES_MAX]}))
+            superseded.append(r.id)
+        else:
+            results.append(r)
+    if superseded:
+        result = result.model_copy(update={"inputs": {**result.inputs, "supersedes": superseded}})
+    results.append(result)
+    new_bottle = bottle.model_copy(update={"lab_results": results})
+    new_stop = stop.model_copy(update={"bottles": [new_bottle if b.id == bottle.id else b for b in stop.bottles]})
+    new_trip = trip.model_copy(update={"stops": [new_stop if s.id == stop.id else s for s in trip.stops]})
+    return new_trip, new_stop, new_bottle, superseded
+
+
+def _redo_check(bottle: Bottle, analyte: str, redo_reason: str | None, what: str) -> LabResult | None:
+    prev = current_result(bottle, analyte)
+    if prev is not None and not (redo_reason and redo_reason.strip()):
+        shown = "no value" if prev.value is None else f"{prev.value:.2f} {prev.unit}".strip()
+        when = prev.analysed_at.isoformat(timespec="minutes") if prev.analysed_at else "an unrecorded time"
+        raise LabInputError("redo", f"bottle {bottle.label} already has a {what} result ({shown}, {prev.id[:8]},"
+                                    f" analysed {when}); accepted: a reason for the re-analysis (both results are"
+                                    " kept, the earlier one marked superseded)")
+    return prev
+
+
+def _meter_do(stop: Stop) -> tuple[float | None, str]:
+    """The field meter's DO at the stop in mg/L, and where it came from."""
+    if stop.do is None:
+        return None, "no meter DO recorded at this stop"
+    if stop.do.unit == "mg/L":
+        return float(stop.do.value), "meter reading (mg/L)"
+    if stop.derived is not None and stop.derived.do_mg_l is not None:
+        return float(stop.derived.do_mg_l), f"meter reading {stop.do.value:g} % converted at the stop's saturation"
+    return None, f"meter reading {stop.do.value:g} % could not be converted (no saturation at this stop)"
+
+
+# --------------------------------------------------------------------------------------------
+# Winkler
+# --------------------------------------------------------------------------------------------
+def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_ml: float,
+                   normality: float | None = None, standardisation: Standardisation | None = None,
+                   bottle_ml: float = 300.0, reagents_ml: float = 2.0, analysed_at: datetime,
+                   now: datetime, analyst: str = "", notes: str = "", redo_reason: str | None = None,
+                   settings: LabSettings | None = None, entered: dict[str, Any] | None = None) -> LabOutcome:
+    """Appends a Winkler DO result to a do-fixed (or duplicate) bottle of `trip`.
+
+    DO = V_titrant · N · 8000 / V_original, V_original = V_titrated · (V_bottle − V_reagents) / V_bottle
+    (:func:`core.winkler.winkler_do_mg_l`). With 200 mL of original sample and 0.025 N titrant,
+    1 mL of titrant is 1 mg/L.
+
+    Parameters
+    ----------
+    trip : Trip
+        The trip as stored (not changed; a new Trip is returned).
+    bottle_ref : str
+        The bottle's label (or id, or 8+ leading characters of its id).
+    titrant_ml : float
+        Thiosulfate used to the starch end point, mL (0 to 100).
+    titrated_ml : float
+        Volume of the fixed, acidified sample titrated, mL (> 0, ≤ bottle_ml; usually 201 or 203).
+    normality : float, optional
+        Titrant normality, eq/L (> 0 to 1; usually 0.025). Give it or `standardisation`, not both.
+    standardisation : Standardisation, optional
+        The bi-iodate standardisation the normality comes from; recorded as the normality's source.
+    bottle_ml, reagents_ml : float
+        Bottle volume (usually 300 mL) and total fixing reagents added (1 + 1 = 2 mL; older 2 + 2 = 4 mL).
+    analysed_at, now : datetime
+        When the titration was done and the current time (time-zone aware; the analysis may not
+        lie in the future nor before collection).
+    analyst, notes : str
+        Who titrated (initials) and free notes.
+    redo_reason : str, optional
+        Required when the bottle already has a live Winkler result: the earlier one is kept and
+        marked superseded.
+    settings : LabSettings, optional
+        Thresholds (meter tolerance, standardisation age, holding-time overrides).
+    entered : dict, optional
+        The inputs as the analyst typed them (kept in ``inputs["entered"]``).
+
+    Returns
+    -------
+    LabOutcome
+        Flags: ``lab.holding_exceeded`` (stop-and-check; more than 8 h from fixing, 40 CFR 136.3
+        Table II from memory), ``lab.not_fixed`` (warning; no fixing time, clock from collection),
+        ``lab.meter_disagrees`` (warning; |Winkler − meter| above the tolerance),
+        ``lab.do_implausible`` (stop-and-check; above 20 mg/L), ``lab.standardisation_old`` (note),
+        ``lab.duplicate_label`` (warning). ``valid`` is False when a stop-and-check flag fired.
+
+    Raises
+    ------
+    LabInputError
+        A wrong bottle kind, an unknown label, both or neither of normality and standardisation,
+        a volume out of range, an analysis time in the future or before collection, a repeat
+        without a reason. The message names the input and the accepted range.
+
+    References
+    ----------
+    Standard Methods 4500-O C (azide modification) [from memory]; US 40 CFR 136.3 Table II [from memory].
+    """
+    from core.holding import holding_clock
+    from core.winkler import original_sample_ml, thiosulfate_normality, winkler_do_mg_l
+
+    settings = settings or LabSettings()
+    stop, bottle, flags = find_bottle(trip, bottle_ref, WINKLER_KINDS)
+    if bottle.kind not in WINKLER_KINDS:
+        raise LabInputError("bottle", f"bottle {bottle.label} is a {bottle.kind} bottle, not fixed for Winkler;"
+                                      f" accepted: a {' or '.join(WINKLER_KINDS)} bottle")
+    _check_times(analysed_at, now, settings, bottle)
+    if (normality is None) == (standardisation is None):
+        raise LabInputError("normality", "give the titrant normality or its standardisation, not "
+                            + ("both" if normality is not None else "neither")
+                            + "; accepted: normality in eq/L (usually 0.025) or a bi-iodate standardisation")
+    prev = _redo_check(bottle, WINKLER_ANALYTE, redo_reason, "Winkler DO")
+
+    derived: dict[str, Any] = {}
+    if standardisation is not None:
+        try:
+            n = float(thiosulfate_normality(standardisation.titrant_ml, standardisation.standard_ml,
+                                            standardisation.standard_normality))
+        except ValueError as exc:
+            msg = str(exc).splitlines()[0]
+            raise LabInputError("standardisation." + msg.split(" ", 1)[0], "standardisation " + msg) from None
+        src: dict[str, Any] = {"kind": "standardisation", "titrant_ml": standardisation.titrant_ml,
+                               "standard_ml": standardisation.standard_ml,
+                               "standard_normality": standardisation.standard_normality,
+                               "standard": "potassium bi-iodate, KH(IO3)2",
+                               "standardised_at": (standardisation.standardised_at.isoformat()
+                                                   if standardisation.standardised_at else None)}
+    else:
+        n = normality
+        src = {"kind": "entered"}
+    try:
+        do = float(winkler_do_mg_l(titrant_ml, n, titrated_ml, bottle_ml, reagents_ml))
+        orig = float(original_sample_ml(titrated_ml, bottle_ml, reagents_ml))
+    except ValueError as exc:
+        msg = str(exc).splitlines()[0]
+        raise LabInputError(msg.split(" ", 1)[0], msg) from None
+    n = float(n)
+    derived.update(original_sample_ml=orig, normality=n, normality_source=src)
+
+    if standardisation is not None and standardisation.standardised_at is not None:
+        st = _aware(standardisation.standardised_at, "standardised_at")
+        age_h = (analysed_at - st).total_seconds() / 3600.0
+        derived["standardisation_age_h"] = age_h
+        if age_h < 0:
+            raise LabInputError("standardised_at", f"standardised_at = {st.isoformat()} is after the titration"
+                                f" ({analysed_at.isoformat()}); accepted: a standardisation done before it")
+        if age_h > settings.standardisation_max_age_h:
+            flags.append(_flag("lab.standardisation_old", Severity.NOTE,
+                               f"The thiosulfate was standardised {_fmt_h(age_h)} before this titration, more than"
+                               f" the {settings.standardisation_max_age_h:g} h the lab's setting allows.",
+                               "Standardise the titrant again and record the new normality.", "standardised_at"))
+
+    # Holding time: 8 h from fixing (from collection when no fixing time is recorded).
+    if bottle.fixed_at is None:
+        flags.append(_flag("lab.not_fixed", Severity.WARNING,
+                           f"Bottle {bottle.label} has no fixing time on record; the Winkler holding time was"
+                           " counted from collection.",
+                           "Check the field sheet for the fixing time; qualify the result if it is unknown.",
+                           "fixed_at"))
+    fixed = bottle.fixed_at if bottle.fixed_at is not None and bottle.fixed_at >= bottle.collected_at else None
+    if bottle.fixed_at is not None and fixed is None:
+        flags.append(_flag("lab.fixing_time_doubtful", Severity.WARNING,
+                           f"Bottle {bottle.label}'s fixing time ({bottle.fixed_at.isoformat(timespec='minutes')}) is"
+                           f" before its collection ({bottle.collected_at.isoformat(timespec='minutes')}); the"
+                           " holding time was counted from collection.",
+                           "Correct the field record's times.", "fixed_at"))
+    clock = holding_clock("do_winkler", bottle.collected_at, analysed_at, fixed_at=fixed,
+                          overrides=settings.holding_overrides_h or None)
+    start = fixed or bottle.collected_at
+    held_h = (analysed_at - start).total_seconds() / 3600.0
+    derived["holding"] = {"kind": "do_winkler", "from": "fixing" if fixed else "collection",
+                          "held_h": held_h, "limit_h": clock.rule.hours, "deadline": clock.deadline.isoformat(),
+                          "citation": clock.rule.citation}
+    if clock.expired:
+        flags.append(_flag("lab.holding_exceeded", Severity.STOP,
+                           f"Titrated {_fmt_h(held_h)} after {'fixing' if fixed else 'collection'}, past the"
+                           f" {clock.rule.hours:g} h Winkler holding time (deadline"
+                           f" {clock.deadline.isoformat(timespec='minutes')}).",
+                           "Report the result only as the program's SOP allows, qualified as past its holding time.",
+                           "analysed_at"))
+
+    # The field meter's DO at the same stop.
+    meter, meter_src = _meter_do(stop)
+    derived["meter_do_mg_l"] = meter
+    derived["meter_do_source"] = meter_src
+    derived["meter_tolerance_mg_l"] = settings.meter_tolerance_mg_l
+    if meter is not None:
+        diff = do - meter
+        derived["meter_difference_mg_l"] = diff
+        # What the burette should have read had the meter been right: a quick check for a typo.
+        from core.winkler import expected_titrant_ml
+
+        try:
+            derived["titrant_ml_expected_from_meter"] = float(
+                expected_titrant_ml(meter, n, titrated_ml, bottle_ml, reagents_ml))
+        except ValueError:
+            derived["titrant_ml_expected_from_meter"] = None
+        cal = [label for label, c in (("pre-trip calibration", trip.pre_calibration),
+                                       ("post-trip check", trip.post_check)) if c is not None and c.accepted is False]
+        derived["calibrations_not_accepted"] = cal
+        if abs(diff) > settings.meter_tolerance_mg_l + 1e-9:
+            seen = f" The trip's {' and '.join(cal)} {'was' if len(cal) == 1 else 'were'} not accepted." if cal else ""
+            flags.append(_flag("lab.meter_disagrees", Severity.WARNING,
+                               f"Winkler DO {do:.2f} mg/L differs from the field meter's {meter:.2f} mg/L at"
+                               f" {stop.site_id} by {diff:+.2f} mg/L, more than ±{settings.meter_tolerance_mg_l:g}"
+                               " mg/L: a possible meter problem (calibration, membrane, drift) or fixing problem"
+                               f" (air bubble, late or incomplete fixing).{seen}",
+                               "Check the trip's calibration records and the field notes before relying on either"
+                               " value.", "do"))
+    if do > _DO_IMPLAUSIBLE_MG_L:
+        flags.append(_flag("lab.do_implausible", Severity.STOP,
+                           f"Winkler DO {do:.2f} mg/L is above {_DO_IMPLAUSIBLE_MG_L:g} mg/L, which a stream rarely"
+                           " reaches: a typing mistake in the titrant volume or normality?",
+                           "Check the bench sheet and the normality; re-titrate if the bottle allows.", "titrant_ml"))
+
+    flags.sort(key=_sev_rank, reverse=True)
+    used = {"titrant_ml": float(titrant_ml), "titrated_ml": float(titrated_ml), "bottle_ml": float(bottle_ml),
+            "reagents_ml": float(reagents_ml), "normality": n}
+    if entered is None:
+        entered = {k: v for k, v in used.items() if k != "normality"}
+        if normality is not None:
+            entered["normality"] = normality
+    extra = [f"Re-titration: {redo_reason.strip()}."] if prev is not None else []
+    result = LabResult(
+        id=new_id(), analyte=WINKLER_ANALYTE, value=do, unit="mg/L", analysed_at=analysed_at,
+        analyst=(analyst or "").strip()[:40], method=WINKLER_METHOD,
+        inputs={"entered": dict(entered), "used": used, "derived": derived,
+                "flags": [f.to_dict() for f in flags]},
+        valid=not any(f.severity == Severity.STOP for f in flags),
+        notes=_notes(notes, flags, extra))
+    new_trip, new_stop, new_bottle, superseded = _append(trip, stop, bottle, result, WINKLER_ANALYTE,
+                                                         redo_reason, analysed_at)
+    return LabOutcome(new_trip, new_bottle.lab_results[-1], new_stop, new_bottle, superseded, flags)
+
+
+# --------------------------------------------------------------------------------------------
+# BOD5
+# --------------------------------------------------------------------------------------------
+def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_controls: list[dict] | None = None,
+               blank_depletion_mg_l: float | None = None, gga_bod_mg_l: float | None = None,
+               incubation_start: datetime | None = None, incubation_end: datetime | None = None,
+               incubator_temp_c: float | None = None, analysed_at: datetime, now: datetime,
+               analyst: str = "", notes: str = "", redo_reason: str | None = None,
+               settings: LabSettings | None = None, entered: dict[str, Any] | None = None) -> LabOutcome:
+    """Appends a BOD5 result (from a dilution series) to a bod (or duplicate) bottle of `trip`.
+
+    BOD5 is the mean of the valid dilutions (:func:`core.bod.bod_from_dilutions`; a dilution counts
+    with depletion ≥ 2.0 mg/L and residual DO ≥ 1.0 mg/L); seeded dilutions take the seed uptake
+    from `seed_controls` (:func:`core.bod.seed_uptake_per_ml`) unless they carry their own.
+
+    Parameters
+    ----------
+    dilutions : list of dict
+        Each ``{initial_do_mg_l, final_do_mg_l, sample_ml[, bottle_ml, seed_ml, seed_uptake_mg_l_per_ml]}``.
+    seed_controls : list of dict, optional
+        Each ``{initial_do_mg_l, final_do_mg_l, seed_ml}``.
+    blank_depletion_mg_l : float, optional
+        Dilution-water blank depletion over the incubation, mg/L (≤ 0.20 accepted).
+    gga_bod_mg_l : float, optional
+        The batch's glucose–glutamic acid check, mg/L (198 ± 30.5 accepted).
+    incubation_start, incubation_end : datetime, optional
+        Set-up and read-out of the bottles (5 d ± 6 h accepted); the set-up must be within 48 h of
+        collection (40 CFR 136.3 Table II, from memory; the SOP may override).
+    incubator_temp_c : float, optional
+        Incubator temperature, °C (20 ± 1 accepted).
+    analysed_at, now, analyst, notes, redo_reason, settings, entered
+        As in :func:`record_winkler`.
+
+    Returns
+    -------
+    LabOutcome
+        Flags from core.bod (``bod.*``) plus ``lab.bod_holding_exceeded`` (stop-and-check),
+        ``lab.bod_times_missing``, ``lab.bod_blank_missing``, ``lab.bod_gga_missing`` (notes),
+        ``lab.bod_incubator_temp`` (warning). ``value`` is None when no dilution is valid;
+        ``valid`` is False then, or when a stop-and-check flag fired.
+
+    References
+    ----------
+    Standard Methods 5210 B [from memory; blank and GGA limits from a summary of the 21st edition].
+    """
+    from core.bod import blank_check, bod_from_dilutions, gga_check, incubation_check, seed_uptake_per_ml
+    from core.holding import holding_clock
+
+    settings = settings or LabSettings()
+    stop, bottle, flags = find_bottle(trip, bottle_ref, BOD_KINDS)
+    if bottle.kind not in BOD_KINDS:
+        raise LabInputError("bottle", f"bottle {bottle.label} is a {bottle.kind} bottle, not a BOD sample;"
+                                      f" accepted: a {' or '.join(BOD_KINDS)} bottle")
+    _check_times(analysed_at, now, settings, bottle)
+    prev = _redo_check(bottle, BOD_ANALYTE, redo_reason, "BOD5")
+    derived: dict[str, Any] = {}
+
+    dil = dilutions
+    if seed_controls is not None:
+        try:
+            s = float(seed_uptake_per_ml(seed_controls))
+        except ValueError as exc:
+            raise LabInputError("seed_controls", f"seed_controls: {str(exc).splitlines()[0]}") from None
+        derived["seed_uptake_mg_l_per_ml"] = s
+        if isinstance(dil, list):
+            dil = [dict(d, seed_uptake_mg_l_per_ml=d.get("seed_uptake_mg_l_per_ml", s))
+                   if isinstance(d, dict) and d.get("seed_ml") else d for d in dil]
+    try:
+        r = bod_from_dilutions(dil)
+    except ValueError as exc:
+        msg = str(exc).splitlines()[0]
+        raise LabInputError("dilutions", msg if msg.startswith("dilutions") else f"dilutions: {msg}") from None
+    flags.extend(r.flags)
+    derived["dilutions"] = [d.to_dict() for d in r.dilutions]
+    derived["valid_dilutions"] = sum(1 for d in r.dilutions if d.valid)
+
+    if blank_depletion_mg_l is None:
+        flags.append(_flag("lab.bod_blank_missing", Severity.NOTE,
+                           "No dilution-water blank is recorded for this BOD result.",
+                           "Record the batch's blank depletion (≤ 0.20 mg/L accepted).", "blank_depletion_mg_l"))
+    else:
+        try:
+            f = blank_check(blank_depletion_mg_l)
+        except ValueError as exc:
+            raise LabInputError("blank_depletion_mg_l", str(exc).splitlines()[0]) from None
+        derived["blank_depletion_mg_l"] = float(blank_depletion_mg_l)
+        if f is not None:
+            flags.append(f)
+    if gga_bod_mg_l is None:
+        flags.append(_flag("lab.bod_gga_missing", Severity.NOTE,
+                           "No glucose–glutamic acid check is recorded for this BOD result.",
+                           "Record the batch's GGA check (198 ± 30.5 mg/L accepted).", "gga_bod_mg_l"))
+    else:
+        try:
+            f = gga_check(gga_bod_mg_l)
+        except ValueError as exc:
+            raise LabInputError("gga_bod_mg_l", str(exc).splitlines()[0]) from None
+        derived["gga_bod_mg_l"] = float(gga_bod_mg_l)
+        if f is not None:
+            flags.append(f)
+    if incubator_temp_c is not None:
+        t = _num(incubator_temp_c, "incubator_temp_c", -10.0, 60.0, "°C")
+        derived["incubator_temp_c"] = t
+        if not (_INCUBATOR_C[0] <= t <= _INCUBATOR_C[1]):
+            flags.append(_flag("lab.bod_incubator_temp", Severity.WARNING,
+                               f"The incubator was at {t:g} °C; BOD5 is incubated at 20 ± 1 °C.",
+                               "Qualify the batch as the program's SOP says and check the incubator.",
+                               "incubator_temp_c"))
+
+    if (incubation_start is None) != (incubation_end is None):
+        raise LabInputError("incubation_start" if incubation_start is None else "incubation_end",
+                            "incubation start and end go together; accepted: both times (set-up and read-out) or"
+                            " neither")
+    if incubation_start is None:
+        flags.append(_flag("lab.bod_times_missing", Severity.NOTE,
+                           "No incubation times are recorded, so the 48 h holding time and the 5 d ± 6 h"
+                           " incubation were not checked.",
+                           "Record the set-up and read-out times from the bench sheet.", "incubation_start"))
+    else:
+        start = _aware(incubation_start, "incubation_start")
+        end = _aware(incubation_end, "incubation_end")
+        if start < bottle.collected_at:
+            raise LabInputError("incubation_start", f"incubation_start = {start.isoformat()} is before bottle"
+                                f" {bottle.label} was collected ({bottle.collected_at.isoformat()}); accepted: a"
+                                " set-up after collection")
+        if end > now + timedelta(seconds=settings.future_slack_s):
+            raise LabInputError("incubation_end", f"incubation_end = {end.isoformat()} is in the future; accepted:"
+                                                  " a read-out time up to now")
+        try:
+            f = incubation_check(start, end)
+        except ValueError as exc:
+            raise LabInputError("incubation_end", str(exc).splitlines()[0]) from None
+        if f is not None:
+            flags.append(f)
+        clock = holding_clock("bod", bottle.collected_at, start, overrides=settings.holding_overrides_h or None)
+        held_h = (start - bottle.collected_at).total_seconds() / 3600.0
+        derived["incubation_h"] = (end - start).total_seconds() / 3600.0
+        derived["holding"] = {"kind": "bod", "from": "collection", "held_h": held_h, "limit_h": clock.rule.hours,
+                              "deadline": clock.deadline.isoformat(), "citation": clock.rule.citation}
+        if clock.expired:
+            flags.append(_flag("lab.bod_holding_exceeded", Severity.STOP,
+                               f"The BOD bottles were set up {_fmt_h(held_h)} after collection, past the"
+                               f" {clock.rule.hours:g} h holding time (deadline"
+                               f" {clock.deadline.isoformat(timespec='minutes')}).",
+                               "Report the result only as the program's SOP allows, qualified as past its holding"
+                               " time.", "incubation_start"))
+
+    flags.sort(key=_sev_rank, reverse=True)
+    if entered is None:
+        entered = {"dilutions": dilutions}
+        for k, v in (("seed_controls", seed_controls), ("blank_depletion_mg_l", blank_depletion_mg_l),
+                     ("gga_bod_mg_l", gga_bod_mg_l), ("incubator_temp_c", incubator_temp_c)):
+            if v is not None:
+                entered[k] = v
+        if incubation_start is not None:
+            entered["incubation_start"] = incubation_start.isoformat()
+            entered["incubation_end"] = incubation_end.isoformat()
+    extra = [f"Repeat analysis: {redo_reason.strip()}."] if prev is not None else []
+    result = LabResult(
+        id=new_id(), analyte=BOD_ANALYTE, value=r.bod_mg_l, unit="mg/L", analysed_at=analysed_at,
+        analyst=(analyst or "").strip()[:40], method=BOD_METHOD,
+        inputs={"entered": _jsonable(entered), "used": {"dilutions": _jsonable(dil)}, "derived": derived,
+                "flags": [f.to_dict() for f in flags]},
+        valid=bool(r.valid) and not any(f.severity == Severity.STOP for f in flags),
+        notes=_notes(notes, flags, extra))
+    new_trip, new_stop, new_bottle, superseded = _append(trip, stop, bottle, result, BOD_ANALYTE,
+                                                         redo_reason, analysed_at)
+    return LabOutcome(new_trip, new_bottle.lab_results[-1], new_stop, new_bottle, superseded, flags)
+
+
+def _jsonable(x: Any) -> Any:
+    if isinstance(x, dict):
+        return {str(k): _jsonable(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_jsonable(v) for v in x]
+    if isinstance(x, datetime):
+        return x.isoformat()
+    return x
+
+
+# --------------------------------------------------------------------------------------------
+# Field duplicates
+# --------------------------------------------------------------------------------------------
+def relative_percent_difference(a: float, b: float) -> float | None:
+    """RPD = |a − b| / ((a + b) / 2) × 100, in %; None when both are 0 (no mean to compare to).
+
+    Common practice (EPA-style QA plans) for field-duplicate precision.
+    """
+    a = _num(a, "a", 0.0, None, "")
+    b = _num(b, "b", 0.0, None, "")
+    mean = (a + b) / 2.0
+    if mean == 0.0:
+        return None
+    return abs(a - b) / mean * 100.0
+
+
+@dataclass(frozen=True)
+class DuplicateCheck:
+    """A field duplicate compared with its primary bottle for one analyte."""
+
+    stop_id: str
+    site_id: str
+    analyte: str
+    primary_label: str | None
+    duplicate_label: str
+    primary_value: float | None
+    duplicate_value: float | None
+    rpd_percent: float | None
+    limit_percent: float
+    status: str  # "agrees", "disagrees", "waiting" (a result missing), "unpaired"
+    flags: list[Flag] = field(default_factory=list)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"stop_id": self.stop_id, "site_id": self.site_id, "analyte": self.analyte,
+                "primary_label": self.primary_label, "duplicate_label": self.duplicate_label,
+                "primary_value": self.primary_value, "duplicate_value": self.duplicate_value,
+                "rpd_percent": self.rpd_percent, "limit_percent": self.limit_percent, "status": self.status,
+                "flags": [f.to_dict() for f in self.flags]}
+
+
+def _dup_analyte(b: Bottle) -> str:
+    """Which analysis a duplicate bottle belongs to: its results' analyte, else by fixing."""
+    for r in reversed(b.lab_results):
+        if analyte_key(r.analyte) in (analyte_key(WINKLER_ANALYTE), analyte_key(BOD_ANALYTE)):
+            return analyte_key(r.analyte)
+    return analyte_key(WINKLER_ANALYTE) if b.fixed_at is not None else analyte_key(BOD_ANALYTE)
+
+
+def duplicate_checks(trip: Trip, settings: LabSettings | None = None) -> list[DuplicateCheck]:
+    """Each field duplicate of `trip` against its primary bottle at the same stop.
+
+    The primary is the bottle named by the duplicate's ``duplicate_of`` field (a label; kept as an
+    extra field by the models) when present, else the one bottle of the matching kind (do-fixed for
+    Winkler, bod for BOD5) at the same stop. The live results (not superseded) are compared by
+    relative percent difference against ``settings.duplicate_rpd_percent`` [common practice].
+    """
+    settings = settings or LabSettings()
+    limit = settings.duplicate_rpd_percent
+    out: list[DuplicateCheck] = []
+    for stop in sorted(trip.stops, key=lambda s: s.arrived_at):
+        for dup in (b for b in stop.bottles if b.kind == "duplicate"):
+            analyte = _dup_analyte(dup)
+            primary_kind = "do-fixed" if analyte == analyte_key(WINKLER_ANALYTE) else "bod"
+            named = (dup.model_extra or {}).get("duplicate_of")
+            if named:
+                cands = [b for b in stop.bottles if b.label == named and b.id != dup.id]
+            else:
+                cands = [b for b in stop.bottles if b.kind == primary_kind]
+            dres = current_result(dup, analyte)
+            dval = dres.value if dres is not None else None
+            if len(cands) != 1:
+                why = (f"names {named}, which is not at this stop" if named else
+                       f"has {len(cands)} {primary_kind} bottles at this stop" if cands else
+                       f"has no {primary_kind} bottle at this stop")
+                out.append(DuplicateCheck(stop.id, stop.site_id, analyte, None, dup.label, None, dval, None,
+                                          limit, "unpaired", [_flag(
+                                              "lab.duplicate_unpaired", Severity.WARNING,
+                                              f"Duplicate bottle {dup.label} cannot be paired: the stop {why}.",
+                                              "Record which bottle it duplicates (duplicate_of) or check the"
+                                              " bottle kinds.", "kind")]))
+                continue
+            prim = cands[0]
+            pres = current_result(prim, analyte)
+            pval = pres.value if pres is not None else None
+            if pval is None or dval is None:
+                out.append(DuplicateCheck(stop.id, stop.site_id, analyte, prim.label, dup.label, pval, dval, None,
+                                          limit, "waiting"))
+                continue
+            rpd = relative_percent_difference(pval, dval)
+            flags: list[Flag] = []
+            status = "agrees"
+            if rpd is not None and rpd > limit + 1e-9:
+                status = "disagrees"
+                flags.append(_flag("lab.duplicate_rpd", Severity.WARNING,
+                                   f"Bottle {prim.label} ({pval:.2f}) and its duplicate {dup.label} ({dval:.2f})"
+                                   f" differ by {rpd:.1f} %, more than the {limit:g} % limit.",
+                                   "Qualify both results as the program's QA plan says and review the sampling"
+                                   " and bench records.", "value"))
+            out.append(DuplicateCheck(stop.id, stop.site_id, analyte, prim.label, dup.label, pval, dval, rpd,
+                                      limit, status, flags))
+    return out
+
+
+# --------------------------------------------------------------------------------------------
+# What is still waiting for the bench
+# --------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class PendingBottle:
+    """A bottle still waiting for its lab result, with its holding clock."""
+
+    trip_id: str
+    program: str
+    stop_id: str
+    site_id: str
+    bottle_id: str
+    label: str
+    kind: str
+    analyte: str
+    collected_at: datetime
+    fixed_at: datetime | None
+    clock_from: str
+    deadline: datetime
+    remaining_s: float
+    expired: bool
+    status: str  # "expired", "soon", "in time"
+    hours: float
+    citation: str
+    flag: Flag | None
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"trip_id": self.trip_id, "program": self.program, "stop_id": self.stop_id, "site_id": self.site_id,
+                "bottle_id": self.bottle_id, "label": self.label, "kind": self.kind, "analyte": self.analyte,
+                "collected_at": self.collected_at.isoformat(),
+                "fixed_at": self.fixed_at.isoformat() if self.fixed_at else None, "clock_from": self.clock_from,
+                "deadline": self.deadline.isoformat(), "remaining_s": self.remaining_s, "expired": self.expired,
+                "status": self.status, "holding_hours": self.hours, "citation": self.citation,
+                "flag": None if self.flag is None else self.flag.to_dict()}
+
+
+def pending_bottles(trips: Iterable[Trip], now: datetime, settings: LabSettings | None = None) -> list[PendingBottle]:
+    """Every do-fixed, bod and duplicate bottle without a live result, most urgent first.
+
+    Order: bottles still in time by time left (least first), then expired ones (most recently
+    expired first) — the ones that can still be saved come before the ones that need a decision.
+    Blank bottles are left out (no analysis is defined for them here), and so are bottles collected
+    after `now` (when the clocks are read at an earlier time).
+    """
+    from core.holding import holding_clock
+
+    settings = settings or LabSettings()
+    _aware(now, "now")
+    out: list[PendingBottle] = []
+    for trip in trips:
+        for stop in trip.stops:
+            for b in stop.bottles:
+                if b.kind == "do-fixed":
+                    analyte, kind = WINKLER_ANALYTE, "do_winkler"
+                elif b.kind == "bod":
+                    analyte, kind = BOD_ANALYTE, "bod"
+                elif b.kind == "duplicate":
+                    analyte = WINKLER_ANALYTE if _dup_analyte(b) == analyte_key(WINKLER_ANALYTE) else BOD_ANALYTE
+                    kind = "do_winkler" if analyte == WINKLER_ANALYTE else "bod"
+                else:
+                    continue
+                if current_result(b, analyte) is not None or b.collected_at > now:
+                    continue
+                fixed = b.fixed_at if (kind == "do_winkler" and b.fixed_at is not None
+                                       and b.fixed_at >= b.collected_at) else None
+                try:
+                    clock = holding_clock(kind, b.collected_at, now, fixed_at=fixed,
+                                          overrides=settings.holding_overrides_h or None)
+                except ValueError:
+                    continue
+                status = "expired" if clock.expired else ("soon" if clock.flag is not None else "in time")
+                out.append(PendingBottle(
+                    trip.id, trip.program, stop.id, stop.site_id, b.id, b.label, b.kind, analyte, b.collected_at,
+                    b.fixed_at, "fixing" if fixed else "collection", clock.deadline, clock.remaining_s,
+                    clock.expired, status, clock.rule.hours, clock.rule.citation, clock.flag))
+    out.sort(key=lambda p: (p.expired, p.remaining_s if not p.expired else -p.remaining_s, p.label))
+    return out

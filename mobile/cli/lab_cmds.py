@@ -1,0 +1,502 @@
+"""`streamtab lab pending|winkler|bod|duplicates|results`: the analyst's bench results on synced trips."""
+from __future__ import annotations
+
+import json
+import re
+import sys
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+
+from mobile.cli._common import CliError, emit_json, emit_table, fail
+
+__all__ = ["register"]
+
+_NUM = re.compile(r"^\s*([+-]?[\d.,]*\d[\d.,]*|[+-]?[.,]\d+)\s*([^\d\s].*?)?\s*$")
+
+#: Core input names → the option a person typed.
+_OPTIONS = {
+    "titrant_ml": "--titrant-ml", "titrated_ml": "--titrated-ml", "bottle_ml": "--bottle-ml",
+    "reagents_ml": "--reagents-ml", "normality": "--normality",
+    "standardisation.titrant_ml": "--std-titrant-ml", "standardisation.standard_ml": "--std-ml",
+    "standardisation.standard_normality": "--std-normality", "standardised_at": "--standardised-at",
+    "analysed_at": "--at", "bottle": "BOTTLE", "redo": "--redo", "dilutions": "--dilutions",
+    "seed_controls": "--dilutions", "blank_depletion_mg_l": "--blank-depletion", "gga_bod_mg_l": "--gga",
+    "incubation_start": "--incubation-start", "incubation_end": "--incubation-end",
+    "incubator_temp_c": "--incubator-temp", "meter_tolerance_mg_l": "--meter-tolerance",
+    "duplicate_rpd_percent": "--rpd-limit", "now": "--now",
+}
+
+
+# --------------------------------------------------------------------------------------------
+# Reading what was typed
+# --------------------------------------------------------------------------------------------
+def _number(text: str | None, option: str, accepted: str, units: tuple[str, ...] = ()) -> float | None:
+    """A number as typed ("7.3", "7,3", "7.3 mL"); a unit, when given, must be one of `units`."""
+    from core.models import InputError, parse_number
+
+    if text is None:
+        return None
+    m = _NUM.match(text)
+    if m is None:
+        raise CliError(f"{option} {text!r} is not a number; accepted: {accepted}")
+    unit = (m.group(2) or "").strip()
+    if unit and unit.lower().replace(" ", "") not in {u.lower() for u in units}:
+        raise CliError(f"{option} {text!r} has the unit {unit!r}; accepted: {accepted}")
+    try:
+        return parse_number(m.group(1), option)
+    except InputError as exc:
+        why = {"number.ambiguous_comma": "is ambiguous (decimal comma or thousands separator?)"}.get(
+            exc.code, "is not a number")
+        raise CliError(f"{option} {text!r} {why}; accepted: {accepted}") from None
+
+
+def _time(text: str | None, option: str) -> datetime | None:
+    if text is None:
+        return None
+    try:
+        t = datetime.fromisoformat(text.strip())
+    except ValueError:
+        raise CliError(f"{option} {text!r} is not a date-time; accepted: ISO 8601 with a time zone, e.g."
+                       " 2026-06-09T11:20-07:00") from None
+    if t.tzinfo is None or t.utcoffset() is None:
+        raise CliError(f"{option} {text!r} has no time zone; accepted: ISO 8601 with a time zone, e.g."
+                       " 2026-06-09T11:20-07:00 or 2026-06-09T18:20Z")
+    return t
+
+
+def _lab_error(exc: Exception) -> CliError:
+    field = getattr(exc, "field", "")
+    option = _OPTIONS.get(field, "")
+    msg = str(exc).splitlines()[0] if str(exc) else "invalid value"
+    return CliError(f"{option}: {msg}" if option else msg)
+
+
+#: LabSettings fields a program may set in its settings as ``lab_<name>``; options override them.
+_PROGRAM_KEYS = ("meter_tolerance_mg_l", "duplicate_rpd_percent", "standardisation_max_age_h")
+
+
+def _now(args) -> datetime:  # noqa: ANN001
+    return _time(getattr(args, "now", None), "--now") or datetime.now(timezone.utc)
+
+
+def _settings(args, store):  # noqa: ANN001
+    """LabSettings: defaults, then the program's settings (``lab_<name>`` fields), then the options."""
+    from dataclasses import replace
+
+    from core.lab import LabInputError, LabSettings
+    from core.store import StoreError
+
+    try:
+        program = store.settings()
+    except StoreError as exc:
+        fail(str(exc))
+    kw: dict[str, Any] = {"holding_overrides_h": dict(program.holding_overrides_h or {})}
+    # A program may keep the lab's thresholds in its settings (the models keep unknown fields).
+    for key in _PROGRAM_KEYS:
+        value = (program.model_extra or {}).get(f"lab_{key}")
+        if value is not None:
+            kw[key] = value
+    try:
+        base = LabSettings(**kw)
+    except LabInputError as exc:
+        fail(f"program settings lab_{exc.field}: {exc.message}; change it in the program's settings")
+    opts: dict[str, Any] = {}
+    tol = _number(getattr(args, "meter_tolerance", None), "--meter-tolerance", "mg/L, above 0 to 5 (default 0.5)",
+                  ("mg/L",))
+    if tol is not None:
+        opts["meter_tolerance_mg_l"] = tol
+    rpd = _number(getattr(args, "rpd_limit", None), "--rpd-limit", "%, above 0 to 200 (default 20)", ("%",))
+    if rpd is not None:
+        opts["duplicate_rpd_percent"] = rpd
+    try:
+        return replace(base, **opts)
+    except LabInputError as exc:
+        raise _lab_error(exc) from None
+
+
+# --------------------------------------------------------------------------------------------
+# The store
+# --------------------------------------------------------------------------------------------
+def _store(args):  # noqa: ANN001
+    from core.store import DeviceStore, StoreError
+
+    try:
+        return DeviceStore.open(args.data_dir)
+    except StoreError as exc:
+        fail(str(exc))
+    except OSError as exc:
+        fail(f"--data-dir: cannot open the device store at {args.data_dir or 'the default folder'}"
+             f" ({exc.strerror}); accepted: a writable folder.")
+
+
+def _trip(store, ident: str):  # noqa: ANN001
+    """The trip named by its id or a unique start of it (8 characters are usually enough)."""
+    from core.store import StoreError
+
+    ident = (ident or "").strip()
+    if not ident:
+        fail("TRIP_ID is empty; accepted: a trip id or its first 8 characters (see 'streamtab trip list').")
+    try:
+        if store.has_trip(ident):
+            return store.load_trip(ident)
+        matches = [s.id for s in store.list_trips() if s.id.startswith(ident)]
+        if len(matches) == 1:
+            return store.load_trip(matches[0])
+    except StoreError as exc:
+        fail(str(exc))
+    if not matches:
+        fail(f"TRIP_ID {ident!r}: no such trip on this device; accepted: a trip id or its first 8 characters"
+             " (see 'streamtab trip list').")
+    fail(f"TRIP_ID {ident!r} matches {len(matches)} trips ({', '.join(m[:12] for m in matches)}); accepted: more"
+         " characters of the id.")
+
+
+def _save(store, outcome, change: str):  # noqa: ANN001
+    from core.store import StoreError
+
+    try:
+        return store.save_trip(outcome.trip, change)
+    except StoreError as exc:
+        fail(f"nothing was saved: {exc}")
+
+
+# --------------------------------------------------------------------------------------------
+# Commands
+# --------------------------------------------------------------------------------------------
+def _flag_rows(flags: list[dict]) -> list[tuple[str, str]]:
+    return [("flag", f"[{f['severity']}] {f['code']}: {f['message']}") for f in flags]
+
+
+def _winkler(args) -> int:  # noqa: ANN001
+    from core.lab import CAUTION, LabInputError, Standardisation, record_winkler
+
+    ml = ("mL", "ml")
+    titrant = _number(args.titrant_ml, "--titrant-ml", "thiosulfate used in mL, 0 to 100", ml)
+    titrated = _number(args.titrated_ml, "--titrated-ml", "volume titrated in mL, above 0 and at most the bottle"
+                                                           " (usually 201)", ml)
+    bottle_ml = _number(args.bottle_ml, "--bottle-ml", "bottle volume in mL, above 0 (usually 300)", ml)
+    reagents = _number(args.reagents_ml, "--reagents-ml", "total fixing reagents in mL, 0 or more (usually 2)", ml)
+    if (args.normality is None) == (args.std_titrant_ml is None):
+        fail("--normality and --std-titrant-ml: give exactly one; accepted: --normality in eq/L (usually 0.025)"
+             " or --std-titrant-ml (thiosulfate used on the bi-iodate standard, mL)")
+    normality = _number(args.normality, "--normality", "titrant normality in eq/L, above 0 to 1 (usually 0.025)",
+                        ("N",))
+    std = None
+    if args.std_titrant_ml is not None:
+        std = Standardisation(
+            titrant_ml=_number(args.std_titrant_ml, "--std-titrant-ml", "thiosulfate used on the standard in mL,"
+                                                                        " above 0 to 100", ml),
+            standard_ml=_number(args.std_ml, "--std-ml", "bi-iodate standard taken in mL, above 0 (usually 20)", ml),
+            standard_normality=_number(args.std_normality, "--std-normality", "standard normality in eq/L, above 0"
+                                                                              " to 1 (usually 0.025)", ("N",)),
+            standardised_at=_time(args.standardised_at, "--standardised-at"))
+    elif args.standardised_at is not None:
+        fail("--standardised-at goes with --std-titrant-ml; accepted: both, or --normality alone")
+    now = datetime.now(timezone.utc)
+    at = _time(args.at, "--at") or now
+    store = _store(args)
+    settings = _settings(args, store)
+    trip = _trip(store, args.trip)
+    entered = {"titrant_ml": args.titrant_ml, "titrated_ml": args.titrated_ml, "bottle_ml": args.bottle_ml,
+               "reagents_ml": args.reagents_ml}
+    if args.normality is not None:
+        entered["normality"] = args.normality
+    else:
+        entered.update(std_titrant_ml=args.std_titrant_ml, std_ml=args.std_ml, std_normality=args.std_normality,
+                       standardised_at=args.standardised_at)
+    try:
+        out = record_winkler(trip, args.bottle, titrant_ml=titrant, titrated_ml=titrated, normality=normality,
+                             standardisation=std, bottle_ml=bottle_ml, reagents_ml=reagents, analysed_at=at,
+                             now=now, analyst=args.analyst or "", notes=args.notes or "", redo_reason=args.redo,
+                             settings=settings, entered=entered)
+    except LabInputError as exc:
+        raise _lab_error(exc) from None
+    who = f" ({out.result.analyst})" if out.result.analyst else ""
+    saved = _save(store, out, f"lab: Winkler DO {out.result.value:.2f} mg/L on bottle {out.bottle.label}{who}"
+                              + (" (re-titration)" if out.superseded else ""))
+    d = out.result.inputs["derived"]
+    data = {**out.to_dict(), "do_mg_l": out.result.value, "original_sample_ml": d["original_sample_ml"],
+            "normality": d["normality"], "valid": out.result.valid, "revision": saved.revision, "caution": CAUTION}
+    if args.json:
+        emit_json(data)
+        return 0
+    hold = d["holding"]
+    rows = [("trip", f"{saved.id[:8]} (revision {saved.revision})"),
+            ("bottle", f"{out.bottle.label} ({out.bottle.kind}) at {out.stop.site_id}"),
+            ("Winkler DO", f"{out.result.value:.2f} mg/L" + ("" if out.result.valid else " (NOT valid)")),
+            ("original sample", f"{d['original_sample_ml']:.2f} mL"),
+            ("normality", f"{d['normality']:.5f} N ({d['normality_source']['kind']})"),
+            ("held", f"{hold['held_h']:.1f} h from {hold['from']} (limit {hold['limit_h']:g} h)")]
+    if d.get("meter_do_mg_l") is not None:
+        rows.append(("field meter", f"{d['meter_do_mg_l']:.2f} mg/L, difference {d['meter_difference_mg_l']:+.2f}"
+                                    f" mg/L (tolerance ±{d['meter_tolerance_mg_l']:g}; it implies"
+                                    f" {d['titrant_ml_expected_from_meter'] or 0:.2f} mL of titrant)"))
+    else:
+        rows.append(("field meter", d["meter_do_source"]))
+    if out.superseded:
+        rows.append(("supersedes", ", ".join(s[:8] for s in out.superseded) + " (kept, marked superseded)"))
+    rows += _flag_rows(data["flags"])
+    rows.append(("result id", out.result.id))
+    rows.append(("caution", CAUTION))
+    emit_table(rows)
+    return 0
+
+
+def _read_dilutions(path_text: str) -> tuple[Any, Any]:
+    path = Path(path_text)
+    try:
+        raw = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        fail(f"--dilutions {path_text!r} does not exist; accepted: a JSON file of dilutions")
+    except (OSError, UnicodeDecodeError) as exc:
+        fail(f"--dilutions {path_text!r} cannot be read ({type(exc).__name__}); accepted: a readable UTF-8 JSON file")
+    try:
+        doc = json.loads(raw)
+    except json.JSONDecodeError as exc:
+        fail(f"--dilutions {path_text!r} is not valid JSON (line {exc.lineno}, column {exc.colno}); accepted: a"
+             " list of dilutions or an object with \"dilutions\" (and \"seed_controls\")")
+    controls = None
+    if isinstance(doc, dict):
+        unknown = sorted(set(doc) - {"dilutions", "seed_controls"})
+        if unknown:
+            fail(f"--dilutions {path_text!r} has an unknown key {unknown[0]!r}; accepted keys: dilutions,"
+                 " seed_controls")
+        controls = doc.get("seed_controls")
+        doc = doc.get("dilutions")
+    if not isinstance(doc, list) or not doc:
+        fail(f"--dilutions {path_text!r} holds no list of dilutions; accepted: a JSON list of objects with"
+             " initial_do_mg_l, final_do_mg_l, sample_ml (or an object with \"dilutions\")")
+    return doc, controls
+
+
+def _bod(args) -> int:  # noqa: ANN001
+    from core.lab import LabInputError, record_bod
+
+    dilutions, controls = _read_dilutions(args.dilutions)
+    mg = ("mg/L", "mg/l")
+    blank = _number(args.blank_depletion, "--blank-depletion", "dilution-water blank depletion in mg/L"
+                                                               " (≤ 0.20 passes)", mg)
+    gga = _number(args.gga, "--gga", "glucose–glutamic acid check BOD5 in mg/L (198 ± 30.5 passes)", mg)
+    temp = _number(args.incubator_temp, "--incubator-temp", "incubator temperature in °C (20 ± 1)", ("°C", "C"))
+    start = _time(args.incubation_start, "--incubation-start")
+    end = _time(args.incubation_end, "--incubation-end")
+    now = datetime.now(timezone.utc)
+    at = _time(args.at, "--at") or end or now
+    store = _store(args)
+    settings = _settings(args, store)
+    trip = _trip(store, args.trip)
+    entered: dict[str, Any] = {"dilutions_file": Path(args.dilutions).name, "dilutions": dilutions}
+    for key, value in (("seed_controls", controls), ("blank_depletion", args.blank_depletion), ("gga", args.gga),
+                       ("incubator_temp", args.incubator_temp), ("incubation_start", args.incubation_start),
+                       ("incubation_end", args.incubation_end)):
+        if value is not None:
+            entered[key] = value
+    try:
+        out = record_bod(trip, args.bottle, dilutions=dilutions, seed_controls=controls, blank_depletion_mg_l=blank,
+                         gga_bod_mg_l=gga, incubation_start=start, incubation_end=end, incubator_temp_c=temp,
+                         analysed_at=at, now=now, analyst=args.analyst or "", notes=args.notes or "",
+                         redo_reason=args.redo, settings=settings, entered=entered)
+    except LabInputError as exc:
+        raise _lab_error(exc) from None
+    shown = "no valid dilution" if out.result.value is None else f"{out.result.value:.1f} mg/L"
+    saved = _save(store, out, f"lab: BOD5 {shown} on bottle {out.bottle.label}"
+                              + (f" ({out.result.analyst})" if out.result.analyst else "")
+                              + (" (repeat)" if out.superseded else ""))
+    d = out.result.inputs["derived"]
+    data = {**out.to_dict(), "bod_mg_l": out.result.value, "valid": out.result.valid,
+            "dilutions": d["dilutions"], "revision": saved.revision}
+    if args.json:
+        emit_json(data)
+        return 0
+    rows = [("trip", f"{saved.id[:8]} (revision {saved.revision})"),
+            ("bottle", f"{out.bottle.label} ({out.bottle.kind}) at {out.stop.site_id}"),
+            ("BOD5", shown + ("" if out.result.valid else " (NOT valid)"))]
+    for i, dil in enumerate(d["dilutions"], 1):
+        rows.append((f"dilution {i}", f"{dil['sample_ml']:g} mL: {dil['bod_mg_l']:.1f} mg/L, depletion"
+                                      f" {dil['depletion_mg_l']:.2f} mg/L, {'valid' if dil['valid'] else 'not valid'}"))
+    if "holding" in d:
+        rows.append(("held", f"{d['holding']['held_h']:.1f} h from collection to set-up"
+                             f" (limit {d['holding']['limit_h']:g} h)"))
+    if out.superseded:
+        rows.append(("supersedes", ", ".join(s[:8] for s in out.superseded) + " (kept, marked superseded)"))
+    rows += _flag_rows(data["flags"])
+    rows.append(("result id", out.result.id))
+    emit_table(rows)
+    return 0
+
+
+def _duplicates(args) -> int:  # noqa: ANN001
+    from core.lab import duplicate_checks
+
+    store = _store(args)
+    settings = _settings(args, store)
+    trip = _trip(store, args.trip)
+    checks = [c.to_dict() for c in duplicate_checks(trip, settings)]
+    if args.json:
+        emit_json({"trip_id": trip.id, "limit_percent": settings.duplicate_rpd_percent, "duplicates": checks})
+        return 0
+    if not checks:
+        sys.stdout.write(f"trip {trip.id[:8]}: no field duplicate bottles\n")
+        return 0
+    for c in checks:
+        rpd = "—" if c["rpd_percent"] is None else f"{c['rpd_percent']:.1f} %"
+        pv = "—" if c["primary_value"] is None else f"{c['primary_value']:.2f}"
+        dv = "—" if c["duplicate_value"] is None else f"{c['duplicate_value']:.2f}"
+        sys.stdout.write(f"{c['site_id']:<8} {c['analyte']:<11} {c['primary_label'] or '?':<10} {pv:>7}  "
+                         f"{c['duplicate_label']:<10} {dv:>7}  RPD {rpd:>8} (limit {c['limit_percent']:g} %)"
+                         f"  {c['status']}\n")
+        for f in c["flags"]:
+            sys.stdout.write(f"  [{f['severity']}] {f['code']}: {f['message']}\n")
+    return 0
+
+
+def _left(seconds: float) -> str:
+    s = abs(seconds)
+    text = f"{s / 60:.0f} min" if s < 3600 else (f"{s / 3600:.1f} h" if s < 72 * 3600 else f"{s / 86400:.1f} d")
+    return f"{text} left" if seconds >= 0 else f"expired {text} ago"
+
+
+def _pending(args) -> int:  # noqa: ANN001
+    from core.lab import LabInputError, pending_bottles
+    from core.store import StoreError
+
+    now = _now(args)
+    store = _store(args)
+    settings = _settings(args, store)
+    trips, skipped = [], []
+    if args.trip:
+        trips = [_trip(store, args.trip)]
+    else:
+        for s in store.list_trips():
+            try:
+                trips.append(store.load_trip(s.id))
+            except StoreError as exc:
+                skipped.append({"trip_id": s.id, "reason": str(exc)})
+    try:
+        items = [p.to_dict() for p in pending_bottles(trips, now, settings)]
+    except LabInputError as exc:
+        raise _lab_error(exc) from None
+    if args.json:
+        emit_json({"now": now.isoformat(), "count": len(items), "bottles": items, "skipped": skipped})
+        return 0
+    for sk in skipped:
+        sys.stderr.write(f"streamtab: skipped trip {sk['trip_id'][:8]}: {sk['reason']}\n")
+    if not items:
+        sys.stdout.write("no bottles waiting for a lab result\n")
+        return 0
+    for p in items:
+        sys.stdout.write(f"{p['label']:<10} {p['kind']:<9} {p['analyte']:<10} {p['site_id']:<7} trip {p['trip_id'][:8]}"
+                         f"  deadline {p['deadline'][:16]}  {_left(p['remaining_s'])}"
+                         f"  (limit {p['holding_hours']:g} h from {p['clock_from']})\n")
+    return 0
+
+
+def _results(args) -> int:  # noqa: ANN001
+    store = _store(args)
+    trip = _trip(store, args.trip)
+    rows = []
+    for stop in sorted(trip.stops, key=lambda s: s.arrived_at):
+        for b in stop.bottles:
+            for r in b.lab_results:
+                inputs = r.inputs or {}
+                rows.append({"site_id": stop.site_id, "bottle_id": b.id, "label": b.label, "kind": b.kind,
+                             "result_id": r.id, "analyte": r.analyte, "value": r.value, "unit": r.unit,
+                             "analysed_at": r.analysed_at.isoformat() if r.analysed_at else None,
+                             "analyst": r.analyst, "method": r.method, "valid": r.valid,
+                             "superseded_by": inputs.get("superseded_by"), "flags": inputs.get("flags", [])})
+    if args.json:
+        emit_json({"trip_id": trip.id, "results": rows})
+        return 0
+    if not rows:
+        sys.stdout.write(f"trip {trip.id[:8]}: no lab results yet\n")
+        return 0
+    for r in rows:
+        value = "—" if r["value"] is None else f"{r['value']:.2f} {r['unit']}"
+        state = f"superseded by {r['superseded_by'][:8]}" if r["superseded_by"] else (
+            "valid" if r["valid"] else ("NOT valid" if r["valid"] is False else "not checked"))
+        sys.stdout.write(f"{r['site_id']:<7} {r['label']:<10} {r['analyte']:<11} {value:>11}  "
+                         f"{(r['analysed_at'] or '')[:16]:<16}  {r['analyst'] or '—':<6} {r['result_id'][:8]}  {state}\n")
+    return 0
+
+
+# --------------------------------------------------------------------------------------------
+# Registration
+# --------------------------------------------------------------------------------------------
+def _common(p) -> None:  # noqa: ANN001
+    p.add_argument("--data-dir", metavar="DIR", default=None,
+                   help="device store folder (else $STREAMTAB_DATA, else the user data folder)")
+    p.add_argument("--json", action="store_true", help="print JSON")
+
+
+def _bench(p) -> None:  # noqa: ANN001
+    p.add_argument("trip", metavar="TRIP_ID", help="trip id, or its first 8 characters")
+    p.add_argument("bottle", metavar="BOTTLE", help="bottle label as on the field sheet (or the bottle id)")
+    p.add_argument("--analyst", help="analyst's initials, e.g. R.O.")
+    p.add_argument("--at", metavar="ISO-TIME", help="when the analysis was done, with time zone (default: now)")
+    p.add_argument("--notes", help="bench notes kept with the result")
+    p.add_argument("--redo", metavar="REASON",
+                   help="record a repeat analysis of a bottle that already has a result; the earlier result is"
+                        " kept and marked superseded")
+
+
+def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
+    """Adds the `lab` command group to the top-level parser."""
+    from mobile.cli._common import OneLineParser
+
+    lab = sub.add_parser("lab", help="lab results on synced trips: what is waiting, Winkler, BOD5, duplicates",
+                         description="The analyst's side: bench results recorded on the trip's bottles through the"
+                                     " device store. Informs only; the lab's SOP and QA plan decide.")
+    lab_sub = lab.add_subparsers(dest="lab_command", required=True, parser_class=OneLineParser)
+
+    p = lab_sub.add_parser("pending", help="bottles still waiting for a result, most urgent first")
+    p.add_argument("--trip", metavar="TRIP_ID", help="only this trip")
+    p.add_argument("--now", metavar="ISO-TIME", help="read the holding clocks at this time (default: now)")
+    _common(p)
+    p.set_defaults(handler=_pending)
+
+    p = lab_sub.add_parser("winkler", help="record a Winkler (azide) DO titration on a bottle",
+                           description="Winkler DO, Standard Methods 4500-O C (azide modification), recorded on a"
+                                       " do-fixed or duplicate bottle. Caution: sulfuric acid and the alkali-iodide-"
+                                       "azide reagent hurt people; follow the lab's SOP and the safety data sheets.")
+    _bench(p)
+    p.add_argument("--titrant-ml", required=True, help="thiosulfate used to the end point, mL")
+    p.add_argument("--titrated-ml", required=True, help="volume titrated, mL (e.g. 201)")
+    p.add_argument("--normality", help="titrant normality, eq/L (e.g. 0.025)")
+    p.add_argument("--std-titrant-ml", help="instead of --normality: thiosulfate used on the bi-iodate standard, mL")
+    p.add_argument("--std-ml", default="20", help="bi-iodate standard taken, mL (default 20)")
+    p.add_argument("--std-normality", default="0.025", help="bi-iodate standard normality, eq/L (default 0.025)")
+    p.add_argument("--standardised-at", metavar="ISO-TIME", help="when the thiosulfate was standardised")
+    p.add_argument("--bottle-ml", default="300", help="bottle volume, mL (default 300)")
+    p.add_argument("--reagents-ml", default="2", help="total fixing reagents added, mL (default 2: 1 + 1)")
+    p.add_argument("--meter-tolerance", metavar="MG_L",
+                   help="accepted difference from the field meter's DO, mg/L (default 0.5, common practice)")
+    _common(p)
+    p.set_defaults(handler=_winkler)
+
+    p = lab_sub.add_parser("bod", help="record a BOD5 result from a dilution series on a bottle",
+                           description="BOD5, Standard Methods 5210 B, from a JSON file of dilutions (the same layout"
+                                       " as 'streamtab bod --dilutions').")
+    _bench(p)
+    p.add_argument("--dilutions", metavar="FILE", required=True,
+                   help="JSON: a list of {initial_do_mg_l, final_do_mg_l, sample_ml[, bottle_ml, seed_ml,"
+                        " seed_uptake_mg_l_per_ml]} or an object with dilutions and seed_controls")
+    p.add_argument("--blank-depletion", metavar="MG_L", help="dilution-water blank depletion, mg/L")
+    p.add_argument("--gga", metavar="MG_L", help="glucose–glutamic acid check result, mg/L")
+    p.add_argument("--incubation-start", metavar="ISO-TIME", help="when the bottles were set up")
+    p.add_argument("--incubation-end", metavar="ISO-TIME", help="when they were read after 5 days")
+    p.add_argument("--incubator-temp", metavar="C", help="incubator temperature, °C")
+    _common(p)
+    p.set_defaults(handler=_bod)
+
+    p = lab_sub.add_parser("duplicates", help="field duplicates against their bottles (relative percent difference)")
+    p.add_argument("trip", metavar="TRIP_ID", help="trip id, or its first 8 characters")
+    p.add_argument("--rpd-limit", metavar="PERCENT",
+                   help="largest accepted relative percent difference, %% (default 20, common practice)")
+    _common(p)
+    p.set_defaults(handler=_duplicates)
+
+    p = lab_sub.add_parser("results", help="every lab result on a trip, superseded ones included")
+    p.add_argument("trip", metavar="TRIP_ID", help="trip id, or its first 8 characters")
+    _common(p)
+    p.set_defaults(handler=_results)
