@@ -37,7 +37,8 @@ __all__ = [
 ]
 
 #: Keys whose values the store recomputes from the inputs on every save.
-DERIVED_KEYS = frozenset({"derived", "flags", "content_hash", "core_version"})
+DERIVED_KEYS = frozenset({"derived", "flags", "content_hash", "core_version", "target_mg_l",
+                          "difference_mg_l", "accepted"})
 #: Top-level bookkeeping keys handled outside the generic rules.
 _BOOKKEEPING = frozenset({"id", "revision", "updated_at", "device_id", "schema_version", "audit",
                           "conflicts"})
@@ -174,7 +175,8 @@ class _Merger:
         return out
 
     def _side(self, doc: dict, value: Any) -> dict:
-        entry = {"device_id": doc.get("device_id"), "updated_at": doc.get("updated_at")}
+        entry = {"device_id": str(doc.get("device_id") or ""), "revision": doc.get("revision"),
+                 "updated_at": doc.get("updated_at")}
         if value is MISSING:
             entry["removed"] = True
             entry["value"] = None
@@ -185,14 +187,19 @@ class _Merger:
     def _record(self, path: str, base: Any, va: Any, vb: Any, kept: Any) -> None:
         sides = sorted([self._side(self.a, va), self._side(self.b, vb)], key=_canon)
         trip_id = str(self.a.get("id"))
-        cid = str(uuid.uuid5(CONFLICT_NAMESPACE, trip_id + "\n" + path + "\n" + _canon(sides)))
+        values = sorted([_canon(None if va is MISSING else va), _canon(None if vb is MISSING else vb)])
+        cid = str(uuid.uuid5(CONFLICT_NAMESPACE, trip_id + "\n" + path + "\n" + "\n".join(values)))
+        detected = _max(self.a.get("updated_at"), self.b.get("updated_at")) or "1970-01-01T00:00:00Z"
         entry = {
             "id": cid,
             "path": path,
-            "values": sides,
+            "sides": sides,
+            "detected_at": detected,
+            "resolved_at": None,
+            "resolved_by": None,
+            "resolution": None,
             "base": None if isinstance(base, _Sentinel) else base,
             "kept": kept,
-            "message": "",
         }
         entry["message"] = describe_conflict(entry)
         self.conflicts.append(entry)
@@ -210,7 +217,7 @@ def _fmt(value: Any) -> str:
 def describe_conflict(conflict: dict) -> str:
     """One readable line for a conflict entry, e.g. for the CLI or the app's sync view."""
     parts = []
-    for side in conflict.get("values", []):
+    for side in conflict.get("sides") or conflict.get("values") or []:
         dev = side.get("device_id") or "another device"
         what = "removed it" if side.get("removed") else f"set {_fmt(side.get('value'))}"
         parts.append(f"device {dev} {what}")
