@@ -218,10 +218,9 @@ def _quarantine(data_dir: Path, f: RemoteFile, data: bytes | None, reason: str) 
 
 def _store_rejects(exc: Exception) -> bool:
     """True for the store's 'this document is not valid' errors (not locks or I/O)."""
-    name = type(exc).__name__
-    if name in ("StoreLocked",):
-        return False
-    return isinstance(exc, (ValueError, TypeError, KeyError)) or "Error" in name
+    from core.store import InvalidRecord, NewerSchemaError
+
+    return isinstance(exc, (InvalidRecord, NewerSchemaError))
 
 
 # --- push ----------------------------------------------------------------------------------------
@@ -434,9 +433,20 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
     candidates = [entry.base] if entry.base else []
     acc, kind, conflicts = local_doc, "unchanged", []
     accepted: list[str] = []
-    for name, doc in docs:
-        # fold one at a time, so a document the store refuses is quarantined alone
-        trial, k, c = _fold(acc, [doc], candidates + [d for _, d in docs])
+    pending = dict(docs)
+    for _ in range(len(docs) + 1):          # bounded: each round settles at least one document
+        if acc is not None:                 # documents the device copy already contains
+            for name in [n for n, d in pending.items() if relation(d, acc) in ("same", "ancestor")]:
+                accepted.append(name)
+                del pending[name]
+        if not pending:
+            break
+        # the hub's heads: documents no other pending document contains
+        heads = [n for n, d in pending.items()
+                 if not any(m != n and relation(d, e) == "ancestor" for m, e in pending.items())]
+        name = min(heads, key=lambda n: (pending[n].get("revision", 0), n))
+        doc = pending[name]
+        trial, k, c = _fold(acc, [doc], candidates + list(dict(docs).values()))
         if trial is not None and (acc is None or _semantic(trial) != _semantic(acc)):
             try:
                 store.put_document(trial, "pulled from hub" if k == "pulled" else "merged with the hub's version")
@@ -445,18 +455,24 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
             except Exception as exc:  # the store's validation refused it
                 if not _store_rejects(exc):
                     raise
-                f = files[name]
                 msg = f"the store refused hub file {name}: {exc}".splitlines()[0]
-                _quarantine(store.data_dir, f, canonical_json_bytes(doc), msg)
+                _quarantine(store.data_dir, files[name], canonical_json_bytes(doc), msg)
                 bad_lines.append(msg)
                 entry.bad.append(name)
+                del pending[name]
                 continue
             acc = store.trip_document(tid)
             kind = "merged" if (k == "merged" or kind == "merged") else "pulled"
             conflicts.extend(c)
-        elif trial is not None and acc is None:
+        elif acc is None:
             acc = trial
+        # same content as the device copy (bookkeeping aside): nothing to save
         accepted.append(name)
+        del pending[name]
+        if acc is not None and _semantic(trial) == _semantic(acc):
+            for other in [n for n, d in pending.items() if relation(d, doc) in ("same", "ancestor")]:
+                accepted.append(other)
+                del pending[other]
     entry.seen = sorted(set(entry.seen) | set(accepted))
     if acc is not None and accepted:
         entry.base = acc
