@@ -21,7 +21,7 @@ from typing import Any, Callable, Iterable
 from core.atomic import atomic_write_bytes, canonical_json_bytes
 from sync import errors
 from sync.layout import canonical_trip_id, revision_name, trip_year
-from sync.merge import common_ancestor, describe_conflict, merge_trips, relation
+from sync.merge import common_ancestor, describe_conflict, history, merge_trips, relation
 from sync.outbox import Outbox, OutboxEntry, hubs
 from sync.plan import Action, LocalEntry, RemoteEntry, plan, plan_pull
 from sync.session import ENV_CA_FILE, Session, load_credentials
@@ -204,6 +204,27 @@ def _fold(local: dict | None, incoming: list[dict], candidates: list[dict]) -> t
     return acc, kind, conflicts
 
 
+def _extra_ancestors(tgt: Target, session: Session, year: str, tid: str, local: dict,
+                     docs: list[dict], candidates: list[dict], seen_names: list[str]) -> list[dict]:
+    """Hub files already seen, read back only when no known document is a common ancestor of
+    the device copy and a diverged hub document (then the merge would be two-way)."""
+    def lacking() -> bool:
+        return any(relation(d, local) == "diverged" and common_ancestor(candidates + docs + extra, local, d) is None
+                   for d in docs)
+    extra: list[dict] = []
+    if not lacking():
+        return extra
+    for name in sorted(seen_names, reverse=True)[:8]:      # newest first, bounded
+        f = RemoteFile(tid, year, name)
+        try:
+            extra.append(_parse_hub_doc(f, tgt.read(f, session.max_document_bytes)))
+        except (errors.BadHubDocument, errors.IntegrityError, errors.Rejected):
+            continue
+        if not lacking():
+            break
+    return extra
+
+
 def _quarantine(data_dir: Path, f: RemoteFile, data: bytes | None, reason: str) -> Path:
     stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
     folder = Path(data_dir) / "sync" / "quarantine"
@@ -328,6 +349,8 @@ def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
                     log.warning("push: skipping a bad hub file: %s", exc)
                     entry.bad.append(name)
             candidates = [entry.base] if entry.base else []
+            candidates += _extra_ancestors(tgt, session, year, tid, doc, docs, candidates,
+                                           sorted(listing - set(act.unseen)))
             merged, kind, new_conflicts = _fold(doc, docs, candidates)
             seen.update(good)
             if merged is not None and _semantic(merged) != _semantic(doc):
@@ -431,6 +454,9 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
             bad_lines.append(f"{exc} (copied to {where.name})")
             entry.bad.append(name)
     candidates = [entry.base] if entry.base else []
+    if local_doc is not None:
+        candidates += _extra_ancestors(tgt, session, year, tid, local_doc, [d for _, d in docs],
+                                       candidates, sorted(set(files) - set(unseen)))
     acc, kind, conflicts = local_doc, "unchanged", []
     accepted: list[str] = []
     pending = dict(docs)
@@ -475,7 +501,10 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
                 del pending[other]
     entry.seen = sorted(set(entry.seen) | set(accepted))
     if acc is not None and accepted:
-        entry.base = acc
+        # the ancestor for the next merge: the newest hub document the device copy contains
+        contained = [d for n, d in docs if n in accepted and relation(d, acc) in ("same", "ancestor")]
+        if contained:
+            entry.base = max(contained, key=lambda d: (len(history(d)), d.get("revision", 0)))
     outbox.put(entry)
     rev = int(acc.get("revision", 0)) if acc else None
     if bad_lines:
