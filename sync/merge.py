@@ -90,6 +90,11 @@ def _is_id_list(value: Any) -> bool:
         isinstance(e, dict) and isinstance(e.get("id"), str) for e in value)
 
 
+def _atomic(value: dict) -> bool:
+    """A typed quantity (text as typed, number, unit) changes as one value, never part by part."""
+    return {"text", "value", "unit"} <= value.keys()
+
+
 def _hint(elem: dict) -> str:
     for key in _HINT_KEYS:
         v = elem.get(key)
@@ -115,7 +120,7 @@ class _Merger:
             return vb
         if vb is MISSING and base is UNKNOWN:
             return va
-        if isinstance(va, dict) and isinstance(vb, dict):
+        if isinstance(va, dict) and isinstance(vb, dict) and not (_atomic(va) or _atomic(vb)):
             sub_base = base if isinstance(base, dict) else (UNKNOWN if base is UNKNOWN else {})
             return self.mapping(path, sub_base, va, vb, derived=derived)
         if _is_id_list(va) and _is_id_list(vb):
@@ -175,7 +180,11 @@ class _Merger:
         return out
 
     def _side(self, doc: dict, value: Any) -> dict:
-        entry = {"device_id": str(doc.get("device_id") or ""), "revision": doc.get("revision"),
+        # the device of the side's latest save (the trip's own device_id names where it began)
+        audit = [e for e in doc.get("audit") or [] if isinstance(e, dict)]
+        last = max(audit, key=lambda e: (_time_key(e), str(e.get("id")))) if audit else {}
+        device = last.get("device_id") or doc.get("device_id") or ""
+        entry = {"device_id": str(device), "revision": doc.get("revision"),
                  "updated_at": doc.get("updated_at")}
         if value is MISSING:
             entry["removed"] = True
@@ -206,6 +215,8 @@ class _Merger:
 
 
 def _fmt(value: Any) -> str:
+    if isinstance(value, dict) and isinstance(value.get("text"), str):
+        return repr(value["text"])
     if isinstance(value, str):
         return repr(value)
     if isinstance(value, (dict, list)):
