@@ -297,7 +297,7 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
                                      revision=local[tid].revision)
                 except errors.Conflict as exc:
                     res = TripResult(tid, "conflict", str(exc), revision=local[tid].revision)
-                except (errors.Rejected, errors.IntegrityError, errors.BadHubDocument) as exc:
+                except (errors.Rejected, errors.IntegrityError, errors.BadHubDocument, ValueError) as exc:
                     res = TripResult(tid, "failed", str(exc), revision=local[tid].revision)
             report.per_trip.append(res)
             if res.result == "pushed":
@@ -412,7 +412,7 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
                                  known[tid].seen_set() if tid in known else frozenset())
                  for tid, (rev, h) in summaries.items()}
         remote = {tid: RemoteEntry(tid, frozenset(f.name for f in fs)) for tid, fs in by_trip.items()}
-        actions = plan_pull(local, remote)
+        actions = plan_pull(local, remote, {tid: e.seen_set() for tid, e in known.items()})
         total, done = len(actions), 0
         for act in actions:
             tid = act.trip_id

@@ -86,15 +86,18 @@ def plan(local: Mapping[str, LocalEntry], remote: Mapping[str, RemoteEntry]) -> 
     return out
 
 
-def plan_pull(local: Mapping[str, LocalEntry], remote: Mapping[str, RemoteEntry]) -> list[PlannedAction]:
+def plan_pull(local: Mapping[str, LocalEntry], remote: Mapping[str, RemoteEntry],
+              known: Mapping[str, frozenset[str]] | None = None) -> list[PlannedAction]:
     """Pull plan, one action per trip at the hub, in trip-id order: FETCH the revision files the
-    device has not seen (or all of them for a trip the device does not hold), else SKIP."""
+    device has not seen (or all of them for a trip the device does not hold), else SKIP.
+    `known` lists hub files already dealt with for trips the device does not hold (found bad)."""
     out: list[PlannedAction] = []
+    known = known or {}
     for trip_id in sorted(remote):
         names = remote[trip_id].names
         entry = local.get(trip_id)
         if entry is None:
-            unseen = set(names)
+            unseen = set(names) - known.get(trip_id, frozenset())
         else:
             unseen = names - entry.seen - {entry.name}
         if unseen:

@@ -226,9 +226,9 @@ class Session:
             from urllib3.util.retry import Retry
 
             http = requests.Session()
-            # total=0 and read=0: urllib3 never re-sends anything by itself (a PUT whose answer
+            # total=0 and read=False: urllib3 never re-sends anything by itself (a PUT whose answer
             # timed out may have landed); allowed_methods=None only silences a deprecation.
-            no_retry = Retry(total=0, connect=0, read=0, redirect=0, status=0, other=0,
+            no_retry = Retry(total=0, connect=0, read=False, redirect=0, status=0, other=0,
                              allowed_methods=None, raise_on_redirect=False,
                              raise_on_status=False)
             adapter = HTTPAdapter(max_retries=no_retry, pool_connections=4, pool_maxsize=4)
