@@ -319,6 +319,9 @@ class DeviceStore:
         self._settings_cache: tuple[tuple[int, int], ProgramSettings] | None = None
         self._cache: dict[str, tuple[bytes, bytes, dict[str, Any]]] = {}
         self._bases: tuple[Any, dict[str, str]] = (None, {})
+        # Summaries this process has read or written, by trip id, with the trip file's
+        # (inode, mtime, size) they belong to: a listing then costs one stat per trip.
+        self._summaries: dict[str, tuple[tuple[int, int, int], TripSummary]] = {}
 
     # -- opening ---------------------------------------------------------------------------
     @classmethod
@@ -584,13 +587,16 @@ class DeviceStore:
             key = self._file_key(trip_id)
             if key is None:
                 continue
-            summary = None
-            try:
-                data = json.loads((self._index_dir / f"{trip_id}.json").read_bytes())
-                if data.get("file") == list(key):
-                    summary = TripSummary(**data["summary"])
-            except (OSError, ValueError, TypeError, KeyError, AttributeError):
-                summary = None
+            memo = self._summaries.get(trip_id)
+            summary = memo[1] if memo is not None and memo[0] == key else None
+            if summary is None:
+                try:
+                    data = json.loads((self._index_dir / f"{trip_id}.json").read_bytes())
+                    if data.get("file") == list(key):
+                        summary = TripSummary(**data["summary"])
+                        self._summaries[trip_id] = (key, summary)
+                except (OSError, ValueError, TypeError, KeyError, AttributeError):
+                    summary = None
             if summary is None:
                 try:
                     got = self._read_trip_file(trip_id)
@@ -785,6 +791,8 @@ class DeviceStore:
         fsynced: a summary lost or torn by a power cut is rebuilt, and a save costs two fsyncs
         (the trip file and its folder) instead of four."""
         summary = _summary_of(doc, digest)
+        if key is not None:
+            self._summaries[doc["id"]] = (tuple(key), summary)
         data = canonical_json_bytes({"summary": summary.to_dict(), "file": list(key) if key else None})
         try:
             _replace_unsynced(self._index_dir / f"{doc['id']}.json", data)
