@@ -20,11 +20,12 @@ def fsync_dir(path: Path) -> None:
         os.close(fd)
 
 
-def atomic_write_bytes(path: Path | str, data: bytes) -> None:
+def atomic_write_bytes(path: Path | str, data: bytes, *, durable: bool = True) -> None:
     """Writes `data` to `path` so that a reader sees the old file or the new one, never a part.
 
     Temporary file in the same folder → write → fsync → os.replace → fsync the folder. When this
-    returns, the new content is on disk.
+    returns, the new content is on disk. ``durable=False`` skips both fsyncs: only for caches
+    that are checked and rebuilt from durable files (a power cut may then lose the new file).
     """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
@@ -32,8 +33,9 @@ def atomic_write_bytes(path: Path | str, data: bytes) -> None:
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
-            fh.flush()
-            os.fsync(fh.fileno())
+            if durable:
+                fh.flush()
+                os.fsync(fh.fileno())
         os.replace(tmp, path)
     except BaseException:
         try:
@@ -41,7 +43,8 @@ def atomic_write_bytes(path: Path | str, data: bytes) -> None:
         except FileNotFoundError:
             pass
         raise
-    fsync_dir(path.parent)
+    if durable:
+        fsync_dir(path.parent)
 
 
 def canonical_json_bytes(doc: Any) -> bytes:

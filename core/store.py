@@ -238,17 +238,7 @@ def _migrated(doc: dict[str, Any]) -> dict[str, Any]:
 
 def _replace_unsynced(path: Path, data: bytes) -> None:
     """Temporary file → ``os.replace``, without fsync: for the index, a checked cache only."""
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
+    atomic_write_bytes(path, data, durable=False)
 
 
 def _merge_audit(stored: list[dict[str, Any]], incoming: list[dict[str, Any]]) -> list[dict[str, Any]]:

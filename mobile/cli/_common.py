@@ -40,3 +40,38 @@ def emit_table(rows: list[tuple[str, str]]) -> None:
 
 def fail(message: str) -> NoReturn:
     raise CliError(message)
+
+
+def open_store(data_dir: str | None):
+    """The device store at --data-dir (else $STREAMTAB_DATA, else the user folder), or a one-line error."""
+    from core.store import DeviceStore, StoreError
+
+    try:
+        return DeviceStore.open(data_dir)
+    except StoreError as exc:
+        fail(str(exc))
+    except OSError as exc:
+        fail(f"--data-dir: cannot open the device store at {data_dir or 'the default folder'}"
+             f" ({exc.strerror}); accepted: a writable folder.")
+
+
+def resolve_trip_id(store, ident: str, label: str = "trip") -> str:  # noqa: ANN001
+    """The full id of the trip named by its id or a unique start of it, or a one-line error."""
+    from core.store import StoreError
+
+    ident = (ident or "").strip()
+    if not ident:
+        fail(f"{label} is empty; accepted: a trip id or its first 8 characters (see 'streamtab trip list').")
+    try:
+        if store.has_trip(ident):
+            return ident
+        matches = [s.id for s in store.list_trips() if s.id.startswith(ident)]
+    except StoreError as exc:
+        fail(str(exc))
+    if len(matches) == 1:
+        return matches[0]
+    if not matches:
+        fail(f"{label} {ident!r}: no such trip on this device; accepted: a trip id or its first 8"
+             " characters (see 'streamtab trip list').")
+    fail(f"{label} {ident!r} matches {len(matches)} trips ({', '.join(m[:12] for m in matches)});"
+         " accepted: more characters of the id.")

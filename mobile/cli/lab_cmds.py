@@ -8,7 +8,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from mobile.cli._common import CliError, emit_json, emit_table, fail
+from mobile.cli._common import CliError, emit_json, emit_table, fail, open_store, resolve_trip_id
 
 __all__ = ["register"]
 
@@ -119,37 +119,18 @@ def _settings(args, store):  # noqa: ANN001
 # The store
 # --------------------------------------------------------------------------------------------
 def _store(args):  # noqa: ANN001
-    from core.store import DeviceStore, StoreError
-
-    try:
-        return DeviceStore.open(args.data_dir)
-    except StoreError as exc:
-        fail(str(exc))
-    except OSError as exc:
-        fail(f"--data-dir: cannot open the device store at {args.data_dir or 'the default folder'}"
-             f" ({exc.strerror}); accepted: a writable folder.")
+    return open_store(args.data_dir)
 
 
 def _trip(store, ident: str):  # noqa: ANN001
     """The trip named by its id or a unique start of it (8 characters are usually enough)."""
     from core.store import StoreError
 
-    ident = (ident or "").strip()
-    if not ident:
-        fail("TRIP_ID is empty; accepted: a trip id or its first 8 characters (see 'streamtab trip list').")
+    trip_id = resolve_trip_id(store, ident, "TRIP_ID")
     try:
-        if store.has_trip(ident):
-            return store.load_trip(ident)
-        matches = [s.id for s in store.list_trips() if s.id.startswith(ident)]
-        if len(matches) == 1:
-            return store.load_trip(matches[0])
+        return store.load_trip(trip_id)
     except StoreError as exc:
         fail(str(exc))
-    if not matches:
-        fail(f"TRIP_ID {ident!r}: no such trip on this device; accepted: a trip id or its first 8 characters"
-             " (see 'streamtab trip list').")
-    fail(f"TRIP_ID {ident!r} matches {len(matches)} trips ({', '.join(m[:12] for m in matches)}); accepted: more"
-         " characters of the id.")
 
 
 def _save(store, outcome, change: str):  # noqa: ANN001

@@ -10,7 +10,7 @@ import os
 import sys
 from typing import Any
 
-from mobile.cli._common import EXIT_OK, EXIT_RETRY, emit_json, emit_table, fail
+from mobile.cli._common import EXIT_OK, EXIT_RETRY, emit_json, emit_table, fail, open_store
 
 __all__ = ["register"]
 
@@ -75,13 +75,7 @@ class _Bar:
 
 
 def _open_store(args: Any):  # noqa: ANN202
-    from core.paths import resolve_data_dir
-    from core.store import DeviceStore, StoreError
-
-    try:
-        return DeviceStore.open(resolve_data_dir(args.data_dir))
-    except StoreError as exc:
-        fail(str(exc))
+    return open_store(args.data_dir)
 
 
 def _session(args: Any, store: Any, address: str):  # noqa: ANN202

@@ -5,7 +5,7 @@ import sys
 from datetime import datetime, timezone
 from pathlib import Path
 
-from mobile.cli._common import emit_json, fail
+from mobile.cli._common import emit_json, fail, open_store, resolve_trip_id
 
 __all__ = ["register"]
 
@@ -56,25 +56,11 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
 
 
 def _store(args):  # noqa: ANN001
-    from core.store import DeviceStore, StoreError
-
-    try:
-        return DeviceStore.open(args.data_dir)
-    except StoreError as exc:
-        fail(str(exc))
-    except OSError as exc:
-        fail(f"cannot open the device store at {args.data_dir or 'the default folder'}: {exc.strerror}.")
+    return open_store(args.data_dir)
 
 
 def _resolve(store, ident: str) -> str:  # noqa: ANN001
-    if store.has_trip(ident):
-        return ident
-    matches = [s.id for s in store.list_trips() if s.id.startswith(ident)]
-    if len(matches) == 1:
-        return matches[0]
-    if not matches:
-        fail(f"trip {ident}: no such trip on this device; see 'streamtab trip list'.")
-    fail(f"trip {ident}: the start matches {len(matches)} trips; type more of the id.")
+    return resolve_trip_id(store, ident, "trip")
 
 
 def _sites_import(args) -> int:  # noqa: ANN001
