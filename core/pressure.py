@@ -1,0 +1,246 @@
+"""Air pressure: units, parsing, the standard atmosphere, and a check for sea-level-adjusted readings."""
+from __future__ import annotations
+
+import re
+
+import numpy as np
+
+from core._validate import is_plain_scalar, real
+from core.flags import Flag, Severity
+
+__all__ = [
+    "PRESSURE_UNITS", "HPA_PER_UNIT", "STANDARD_ATMOSPHERE_HPA", "SEA_LEVEL_ADJUSTED_THRESHOLD_HPA",
+    "parse_pressure", "to_hpa", "from_hpa", "standard_pressure_hpa", "sea_level_to_station_hpa",
+    "station_to_sea_level_hpa", "sea_level_adjusted_flag",
+]
+
+#: Units accepted in text and by :func:`to_hpa` / :func:`from_hpa` (canonical spelling).
+PRESSURE_UNITS: tuple[str, ...] = ("hPa", "mbar", "kPa", "Pa", "mmHg", "torr", "inHg", "atm", "psi")
+
+STANDARD_ATMOSPHERE_HPA = 1013.25  # 1 atm = 101325 Pa exactly (definition)
+_MMHG_HPA = 1.33322387415  # conventional millimetre of mercury, 133.322387415 Pa (NIST SP 811)
+
+#: Size of one unit in hPa. 1 torr = 101325/760 Pa exactly; 1 inHg = 25.4 mmHg;
+#: 1 psi = 6894.757293168 Pa (NIST SP 811, Appendix B).
+HPA_PER_UNIT: dict[str, float] = {
+    "hPa": 1.0,
+    "mbar": 1.0,
+    "kPa": 10.0,
+    "Pa": 0.01,
+    "mmHg": _MMHG_HPA,
+    "torr": STANDARD_ATMOSPHERE_HPA / 760.0,
+    "inHg": 25.4 * _MMHG_HPA,
+    "atm": STANDARD_ATMOSPHERE_HPA,
+    "psi": 68.94757293168,
+}
+
+# Spellings people write, lower-cased and without spaces, mapped to the canonical unit.
+_ALIASES: dict[str, str] = {
+    "hpa": "hPa", "mbar": "mbar", "mb": "mbar", "millibar": "mbar", "millibars": "mbar",
+    "kpa": "kPa", "pa": "Pa", "mmhg": "mmHg", "torr": "torr", "inhg": "inHg", 'in.hg': "inHg",
+    '"hg': "inHg", "atm": "atm", "psi": "psi", "psia": "psi",
+}
+
+#: A station reading more than this far above the standard atmosphere at the site's elevation looks
+#: sea-level adjusted. Weather moves station pressure roughly ±30 hPa about the standard value
+#: (a strong high at sea level is about 1040 hPa); 40 hPa clears that, fires on a sea-level value
+#: at sites above about 350 m, and is about 4 % of the saturation target. [common practice; our choice]
+SEA_LEVEL_ADJUSTED_THRESHOLD_HPA = 40.0
+
+# US Standard Atmosphere 1976, troposphere: P = P0 (1 - L h / T0)^(g M / (R L)).
+_USSA_K = 2.25577e-5  # L/T0 = 0.0065 K/m / 288.15 K, per metre
+_USSA_EXP = 5.25588  # g0 M / (R* L)
+ELEVATION_RANGE_M = (-500.0, 11000.0)  # the troposphere layer of the 1976 standard (and the Dead Sea shore)
+
+_NUMBER_UNIT = re.compile(r"^\s*([+-]?(?:\d+(?:[.,]\d*)?|[.,]\d+))\s*([^\d\s].*?)?\s*$")
+_UNITS_TEXT = ", ".join(PRESSURE_UNITS)
+
+
+def _unit(unit: str, name: str = "unit") -> str:
+    if isinstance(unit, str):
+        key = unit.strip().lower().replace(" ", "")
+        if key in _ALIASES:
+            return _ALIASES[key]
+    raise ValueError(f"{name} = {unit!r} is not a pressure unit; accepted: {_UNITS_TEXT}")
+
+
+def parse_pressure(text: str) -> float:
+    """Reads a pressure written with its unit and returns it in hPa.
+
+    Parameters
+    ----------
+    text : str
+        A number and a unit, e.g. ``"752 mmHg"``, ``"29.61inHg"``, ``"1002.3 hPa"`` or with a decimal
+        comma ``"1002,3 hPa"``. Units (case-insensitive): hPa, mbar (mb), kPa, Pa, mmHg, torr, inHg,
+        atm, psi.
+
+    Returns
+    -------
+    float
+        Pressure in hPa (> 0).
+
+    Raises
+    ------
+    ValueError
+        Empty text, a bare number (the unit is required: mmHg, inHg and hPa values overlap in
+        plausible ranges), an unknown unit, both a decimal comma and point, or a value <= 0.
+    """
+    if not isinstance(text, str) or not text.strip():
+        raise ValueError(f"pressure {text!r} is empty; write a number and a unit, one of {_UNITS_TEXT}"
+                         " (e.g. '752 mmHg')")
+    if "," in text and "." in text:
+        raise ValueError(f"pressure {text!r} has both a decimal comma and a decimal point; write one"
+                         " decimal mark and a unit, e.g. '1002.3 hPa'")
+    m = _NUMBER_UNIT.match(text)
+    if m is None:
+        raise ValueError(f"pressure {text!r} is not a number followed by a unit; accepted units:"
+                         f" {_UNITS_TEXT} (e.g. '752 mmHg')")
+    number, unit_text = m.group(1), m.group(2)
+    if not unit_text:
+        raise ValueError(f"pressure {text!r} has no unit; write it with one of {_UNITS_TEXT}"
+                         " (e.g. '752 mmHg' or '1002.3 hPa')")
+    try:
+        unit = _unit(unit_text)
+    except ValueError:
+        raise ValueError(f"pressure {text!r} has an unknown unit {unit_text.strip()!r}; accepted units:"
+                         f" {_UNITS_TEXT}") from None
+    value = float(number.replace(",", "."))
+    if not value > 0.0:
+        raise ValueError(f"pressure {text!r} is not above zero; an air pressure is a positive number"
+                         f" with a unit, one of {_UNITS_TEXT}")
+    return value * HPA_PER_UNIT[unit]
+
+
+def to_hpa(value, unit: str):
+    """Converts a pressure in ``unit`` to hPa.
+
+    Parameters
+    ----------
+    value : float or array_like
+        Absolute pressure (>= 0) in ``unit``.
+    unit : str
+        One of :data:`PRESSURE_UNITS` (case-insensitive).
+
+    Returns
+    -------
+    float or numpy.ndarray
+        Pressure in hPa.
+    """
+    u = _unit(unit)
+    v = real(value, "pressure", lo=0.0, unit=u, note=" (an absolute pressure is never negative)")
+    return v * HPA_PER_UNIT[u]
+
+
+def from_hpa(value_hpa, unit: str):
+    """Converts a pressure in hPa to ``unit`` (one of :data:`PRESSURE_UNITS`); the inverse of :func:`to_hpa`."""
+    u = _unit(unit)
+    v = real(value_hpa, "pressure_hpa", lo=0.0, unit="hPa", note=" (an absolute pressure is never negative)")
+    return v / HPA_PER_UNIT[u]
+
+
+def _elevation(elevation_m):
+    return real(elevation_m, "elevation_m", lo=ELEVATION_RANGE_M[0], hi=ELEVATION_RANGE_M[1], unit="m",
+                note=" (the troposphere of the US Standard Atmosphere 1976)")
+
+
+def standard_pressure_hpa(elevation_m):
+    """Pressure of the US Standard Atmosphere 1976 at an elevation.
+
+    P = 1013.25 hPa · (1 − 2.25577e-5 · h)^5.25588 (troposphere layer, h in metres above mean sea level).
+
+    Parameters
+    ----------
+    elevation_m : float or array_like
+        Elevation above mean sea level, m, −500 to 11 000.
+
+    Returns
+    -------
+    float or numpy.ndarray
+        Standard-atmosphere pressure, hPa (1000 m → 898.746 hPa).
+
+    References
+    ----------
+    NOAA/NASA/USAF (1976), U.S. Standard Atmosphere, 1976, NOAA-S/T 76-1562.
+    """
+    h = _elevation(elevation_m)
+    if is_plain_scalar(h):
+        return STANDARD_ATMOSPHERE_HPA * (1.0 - _USSA_K * h) ** _USSA_EXP
+    return STANDARD_ATMOSPHERE_HPA * np.power(1.0 - _USSA_K * h, _USSA_EXP)
+
+
+def _ratio(h):
+    # P(h) / P(0) of the standard atmosphere
+    if is_plain_scalar(h):
+        return (1.0 - _USSA_K * h) ** _USSA_EXP
+    return np.power(1.0 - _USSA_K * h, _USSA_EXP)
+
+
+def sea_level_to_station_hpa(p_sea_level_hpa, elevation_m):
+    """Station pressure from a sea-level-adjusted value, by the standard-atmosphere ratio.
+
+    p_station = p_sea_level · P_std(h) / P_std(0). Weather services reduce with the observed air
+    temperature, so a published sea-level value converted back this way can differ from the true
+    station pressure by a few hPa: prefer a barometer reading at the site.
+
+    Parameters
+    ----------
+    p_sea_level_hpa : float or array_like
+        Sea-level-adjusted pressure, hPa (> 0).
+    elevation_m : float or array_like
+        Site elevation, m, −500 to 11 000.
+
+    Returns
+    -------
+    float or numpy.ndarray
+        Estimated station pressure, hPa.
+    """
+    p = real(p_sea_level_hpa, "p_sea_level_hpa", lo=0.0, lo_open=True, unit="hPa")
+    return p * _ratio(_elevation(elevation_m))
+
+
+def station_to_sea_level_hpa(p_station_hpa, elevation_m):
+    """Sea-level-adjusted pressure from station pressure (the inverse of :func:`sea_level_to_station_hpa`)."""
+    p = real(p_station_hpa, "p_station_hpa", lo=0.0, lo_open=True, unit="hPa")
+    return p / _ratio(_elevation(elevation_m))
+
+
+def sea_level_adjusted_flag(pressure_hpa: float, elevation_m: float,
+                            threshold_hpa: float = SEA_LEVEL_ADJUSTED_THRESHOLD_HPA) -> Flag | None:
+    """Flags a station-pressure reading that looks like a sea-level-adjusted (weather-report) value.
+
+    Parameters
+    ----------
+    pressure_hpa : float
+        The pressure entered as station pressure, hPa (> 0).
+    elevation_m : float
+        Site elevation, m, −500 to 11 000.
+    threshold_hpa : float
+        How far above the standard atmosphere at ``elevation_m`` a reading may be before it is
+        flagged; default :data:`SEA_LEVEL_ADJUSTED_THRESHOLD_HPA` (40 hPa, common practice).
+
+    Returns
+    -------
+    Flag or None
+        ``pressure.sea_level_adjusted`` (warning) when ``pressure_hpa`` exceeds the standard
+        atmosphere at the site by more than ``threshold_hpa``; else None.
+    """
+    p = real(pressure_hpa, "pressure_hpa", lo=0.0, lo_open=True, unit="hPa")
+    thr = real(threshold_hpa, "threshold_hpa", lo=0.0, unit="hPa")
+    expected = standard_pressure_hpa(elevation_m)
+    excess = p - expected
+    if not is_plain_scalar(excess):
+        raise ValueError("pressure_hpa and elevation_m must be single numbers for this check")
+    if excess <= thr:
+        return None
+    station = sea_level_to_station_hpa(p, elevation_m)
+    return Flag(
+        code="pressure.sea_level_adjusted",
+        severity=Severity.WARNING,
+        message=(f"Pressure {p:.1f} hPa is {excess:.0f} hPa above the standard atmosphere at"
+                 f" {float(elevation_m):.0f} m ({expected:.1f} hPa); it looks like a sea-level-adjusted"
+                 " weather-service value, which would overstate the saturation target."),
+        action=(f"Read the barometer at the site (station pressure); if this is a sea-level value,"
+                f" the station pressure is about {station:.1f} hPa."),
+        field="pressure_hpa",
+    )
+
