@@ -1,6 +1,252 @@
-"""Sub-commands of `streamtab` (placeholder until its issue lands)."""
+"""`streamtab sites import` and `streamtab trip import|list|show|export`: trips in the device store."""
 from __future__ import annotations
+
+import sys
+from datetime import datetime, timezone
+from pathlib import Path
+
+from mobile.cli._common import emit_json, fail
+
+__all__ = ["register"]
+
+
+def _add_data_dir(p) -> None:  # noqa: ANN001
+    p.add_argument("--data-dir", metavar="DIR", default=None,
+                   help="device store folder (else $STREAMTAB_DATA, else the user data folder)")
 
 
 def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
-    """Adds this module's sub-commands to the top-level parser."""
+    """Adds `sites` and `trip` to the top-level parser."""
+    from mobile.cli._common import OneLineParser
+
+    sites = sub.add_parser("sites", help="the site list on this device")
+    sites_sub = sites.add_subparsers(dest="sites_command", required=True, parser_class=OneLineParser)
+    p = sites_sub.add_parser("import", help="import a site list from CSV (all rows or none)")
+    p.add_argument("file", metavar="FILE")
+    _add_data_dir(p)
+    p.set_defaults(handler=_sites_import)
+    p = sites_sub.add_parser("list", help="list the sites on this device")
+    p.add_argument("--json", action="store_true")
+    _add_data_dir(p)
+    p.set_defaults(handler=_sites_list)
+
+    trip = sub.add_parser("trip", help="trips in the device store")
+    trip_sub = trip.add_subparsers(dest="trip_command", required=True, parser_class=OneLineParser)
+    p = trip_sub.add_parser("import", help="import a trip JSON file (validated; nothing half-imported)")
+    p.add_argument("file", metavar="FILE")
+    p.add_argument("--json", action="store_true")
+    _add_data_dir(p)
+    p.set_defaults(handler=_trip_import)
+    p = trip_sub.add_parser("list", help="list the trips on this device")
+    p.add_argument("--json", action="store_true")
+    _add_data_dir(p)
+    p.set_defaults(handler=_trip_list)
+    p = trip_sub.add_parser("show", help="a trip's stops with derived values and flags")
+    p.add_argument("id", metavar="ID", help="trip id, or a unique start of it")
+    p.add_argument("--json", action="store_true")
+    _add_data_dir(p)
+    p.set_defaults(handler=_trip_show)
+    p = trip_sub.add_parser("export", help="write a trip as JSON or CSV")
+    p.add_argument("id", metavar="ID", help="trip id, or a unique start of it")
+    p.add_argument("--format", choices=("json", "csv"), required=True)
+    p.add_argument("--out", metavar="PATH", default=None,
+                   help="file for json; folder for csv (stops.csv, bottles.csv); default: standard output")
+    _add_data_dir(p)
+    p.set_defaults(handler=_trip_export)
+
+
+def _store(args):  # noqa: ANN001
+    from core.store import DeviceStore, StoreError
+
+    try:
+        return DeviceStore.open(args.data_dir)
+    except StoreError as exc:
+        fail(str(exc))
+    except OSError as exc:
+        fail(f"cannot open the device store at {args.data_dir or 'the default folder'}: {exc.strerror}.")
+
+
+def _resolve(store, ident: str) -> str:  # noqa: ANN001
+    if store.has_trip(ident):
+        return ident
+    matches = [s.id for s in store.list_trips() if s.id.startswith(ident)]
+    if len(matches) == 1:
+        return matches[0]
+    if not matches:
+        fail(f"trip {ident}: no such trip on this device; see 'streamtab trip list'.")
+    fail(f"trip {ident}: the start matches {len(matches)} trips; type more of the id.")
+
+
+def _sites_import(args) -> int:  # noqa: ANN001
+    from core.exchange import ExchangeError, import_sites_csv
+    from core.store import StoreError
+
+    store = _store(args)
+    try:
+        sites = import_sites_csv(store, args.file)
+    except (ExchangeError, StoreError) as exc:
+        fail(str(exc))
+    sys.stdout.write(f"imported {len(sites)} site{'s' if len(sites) != 1 else ''} from {Path(args.file).name}\n")
+    return 0
+
+
+def _sites_list(args) -> int:  # noqa: ANN001
+    store = _store(args)
+    sites = store.sites()
+    if args.json:
+        emit_json([s.model_dump(mode="json") for s in sites])
+        return 0
+    for s in sites:
+        cls = s.water_class or "-"
+        sys.stdout.write(f"{s.id:<8} {s.name:<24} {s.elevation_m:>7.0f} m  {cls}\n")
+    return 0
+
+
+def _trip_import(args) -> int:  # noqa: ANN001
+    from core.exchange import ExchangeError, import_trip_file
+
+    store = _store(args)
+    try:
+        trip = import_trip_file(store, args.file)
+    except ExchangeError as exc:
+        fail(str(exc))
+    if args.json:
+        emit_json({"id": trip.id, "revision": trip.revision, "stop_count": len(trip.stops),
+                   "status": trip.status})
+    else:
+        sys.stdout.write(f"imported trip {trip.id} ({len(trip.stops)} stops, revision {trip.revision})"
+                         f" from {Path(args.file).name}\n")
+    return 0
+
+
+def _trip_list(args) -> int:  # noqa: ANN001
+    store = _store(args)
+    summaries = store.list_trips()
+    if args.json:
+        emit_json([s.to_dict() for s in summaries])
+        return 0
+    if not summaries:
+        sys.stdout.write("no trips on this device\n")
+        return 0
+    for s in summaries:
+        sys.stdout.write(f"{s.id[:8]}  {s.started_at[:16]:<16}  {s.program[:28]:<28}  "
+                         f"{','.join(s.crew)[:14]:<14}  {s.stop_count:>3} stops  rev {s.revision:<3} {s.status}\n")
+    return 0
+
+
+def _show_data(store, trip_id: str) -> dict:  # noqa: ANN001
+    from core.qc import TRIP_KEY, trip_flags
+
+    trip = store.load_trip(trip_id)
+    sites = store.sites_by_id()
+    settings = store.settings()
+    now = datetime.now(timezone.utc)
+    flags = trip_flags(trip, settings, now, other_bottle_labels=store.bottle_labels_in_use(), sites=sites)
+    stops = []
+    for stop in sorted(trip.stops, key=lambda s: s.arrived_at):
+        site = sites.get(stop.site_id)
+        stops.append({
+            "id": stop.id, "site_id": stop.site_id, "site_name": site.name if site else None,
+            "arrived_at": stop.arrived_at.isoformat(),
+            "closed_at": stop.closed_at.isoformat() if stop.closed_at else None,
+            "inputs": {name: (getattr(stop, name).model_dump(mode="json") if getattr(stop, name) else None)
+                       for name in ("temp", "pressure", "conductivity", "do")},
+            "conductivity_is_sc25": stop.conductivity_is_sc25,
+            "derived": stop.derived.model_dump(mode="json", exclude={"flags"}) if stop.derived else None,
+            "bottles": [{"id": b.id, "label": b.label, "kind": b.kind,
+                         "collected_at": b.collected_at.isoformat()} for b in stop.bottles],
+            "flags": [f.to_dict() for f in flags.get(stop.id, [])],
+        })
+    cal = {}
+    for key in ("pre_calibration", "post_check"):
+        c = getattr(trip, key)
+        cal[key] = None if c is None else c.model_dump(mode="json")
+    return {"id": trip.id, "program": trip.program, "crew": trip.crew, "device_id": trip.device_id,
+            "meter_id": trip.meter_id, "started_at": trip.started_at.isoformat(),
+            "ended_at": trip.ended_at.isoformat() if trip.ended_at else None, "revision": trip.revision,
+            "status": trip.status, "calibrations": cal,
+            "trip_flags": [f.to_dict() for f in flags.get(TRIP_KEY, [])],
+            "open_conflicts": [c.model_dump(mode="json") for c in trip.open_conflicts],
+            "stops": stops}
+
+
+def _fmt(value, spec: str, unit: str) -> str:  # noqa: ANN001
+    return "—" if value is None else f"{value:{spec}} {unit}"
+
+
+def _trip_show(args) -> int:  # noqa: ANN001
+    from core.store import StoreError
+
+    store = _store(args)
+    trip_id = _resolve(store, args.id)
+    try:
+        data = _show_data(store, trip_id)
+    except StoreError as exc:
+        fail(str(exc))
+    if args.json:
+        emit_json(data)
+        return 0
+    w = sys.stdout.write
+    w(f"trip {data['id']}  {data['program']}  crew {', '.join(data['crew']) or '—'}  status {data['status']}\n")
+    w(f"  started {data['started_at']}  ended {data['ended_at'] or '—'}  meter {data['meter_id'] or '—'}"
+      f"  revision {data['revision']}\n")
+    for key, label in (("pre_calibration", "pre-trip calibration"), ("post_check", "post-trip check")):
+        c = data["calibrations"][key]
+        if c:
+            verdict = {True: "accepted", False: "NOT accepted", None: "not checked"}[c.get("accepted")]
+            w(f"  {label}: read {c['reading_mg_l']:g} mg/L, target "
+              f"{_fmt(c.get('target_mg_l'), '.2f', 'mg/L')}, {verdict}\n")
+    for f in data["trip_flags"]:
+        w(f"  [{f['severity']}] {f['code']}: {f['message']}\n")
+    for s in data["stops"]:
+        d = s["derived"] or {}
+        inp = s["inputs"]
+        do = inp["do"]
+        w(f"\n{s['site_id']} {s['site_name'] or ''}  {s['arrived_at']}\n")
+        w(f"  water {_fmt(inp['temp'] and inp['temp']['value'], '.1f', '°C')}"
+          f"  pressure {_fmt(inp['pressure'] and inp['pressure']['value'], '.1f', 'hPa')}"
+          f"  conductivity {_fmt(inp['conductivity'] and inp['conductivity']['value'], '.0f', 'µS/cm')}"
+          f"  meter DO {do['text'] if do else '—'}\n")
+        if d:
+            w(f"  saturation {d['do_sat_mg_l']:.2f} mg/L ({d['method']})"
+              f"  DO {_fmt(d.get('do_mg_l'), '.2f', 'mg/L')}  {_fmt(d.get('percent_saturation'), '.0f', '%')}"
+              f"  salinity {d['salinity']:.2f} ({d['salinity_source']})\n")
+        else:
+            w("  saturation —  (needs water temperature and station pressure)\n")
+        for b in s["bottles"]:
+            w(f"  bottle {b['label']} ({b['kind']})\n")
+        for f in s["flags"]:
+            w(f"  [{f['severity']}] {f['code']}: {f['message']}\n")
+    return 0
+
+
+def _trip_export(args) -> int:  # noqa: ANN001
+    from core.atomic import atomic_write_bytes
+    from core.exchange import export_trip_csv, export_trip_json
+    from core.store import StoreError
+
+    store = _store(args)
+    trip_id = _resolve(store, args.id)
+    try:
+        if args.format == "json":
+            data = export_trip_json(store, trip_id)
+            if args.out:
+                atomic_write_bytes(Path(args.out), data)
+            else:
+                sys.stdout.write(data.decode("utf-8"))
+        else:
+            files = export_trip_csv(store, trip_id)
+            if args.out:
+                out = Path(args.out)
+                if out.exists() and not out.is_dir():
+                    fail(f"--out {out}: for csv give a folder (stops.csv and bottles.csv are written there).")
+                for name, text in files.items():
+                    atomic_write_bytes(out / name, text.encode("utf-8"))
+            else:
+                for name, text in files.items():
+                    sys.stdout.write(f"# {name}\n{text}")
+    except StoreError as exc:
+        fail(str(exc))
+    except OSError as exc:
+        fail(f"--out {args.out}: cannot write ({exc.strerror}).")
+    return 0

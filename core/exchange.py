@@ -1,0 +1,234 @@
+"""Exchange: trip JSON in streamtab's documented layout, CSV exports, and site lists from CSV.
+
+The trip JSON layout is the JSON Schema in core/schema/trip.schema.json. CSV exports carry the
+unit in every numeric column's header (``water_temp_c``, ``station_pressure_hpa``...).
+Imports are all or nothing: a bad row or field stops the import before anything is stored.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import json
+from pathlib import Path
+from typing import Any
+
+from pydantic import ValidationError
+
+from core.messages import label_for, problems_from_validation
+from core.models import InputError, Site, Trip, parse_number
+
+__all__ = ["ExchangeError", "SITE_COLUMNS", "STOP_COLUMNS", "BOTTLE_COLUMNS", "import_sites_csv",
+           "read_sites_csv", "import_trip_file", "read_trip_file", "export_trip_json",
+           "export_trip_csv", "stop_rows", "bottle_rows"]
+
+
+class ExchangeError(ValueError):
+    """A file that cannot be imported: one line naming the file, the line or field, and the problem."""
+
+
+SITE_COLUMNS = ("site_id", "name", "elevation_m", "latitude", "longitude", "water_class",
+                "min_do_mg_l", "supersaturation_percent", "notes")
+_SITE_REQUIRED = ("site_id", "name", "elevation_m")
+_SITE_NUMBERS = ("elevation_m", "latitude", "longitude", "min_do_mg_l", "supersaturation_percent")
+_SITE_LABELS = {"site_id": "Site code"}
+
+
+def read_sites_csv(path: Path | str) -> list[Site]:
+    """Parses a site list (columns :data:`SITE_COLUMNS`; the first three required) without storing it."""
+    path = Path(path)
+    name = path.name
+    try:
+        text = path.read_bytes().decode("utf-8-sig")
+    except FileNotFoundError:
+        raise ExchangeError(f"{path}: no such file.") from None
+    except UnicodeDecodeError:
+        raise ExchangeError(f"{name}: not UTF-8 text; save the site list as UTF-8 CSV.") from None
+    reader = csv.DictReader(io.StringIO(text, newline=""))
+    header = [h.strip() for h in (reader.fieldnames or [])]
+    if not header:
+        raise ExchangeError(f"{name}, line 1: the file is empty; expected a header row with {', '.join(SITE_COLUMNS)}.")
+    reader.fieldnames = header
+    missing = [c for c in _SITE_REQUIRED if c not in header]
+    if missing:
+        raise ExchangeError(f"{name}, line 1: missing column {', '.join(missing)}; the columns are "
+                            f"{', '.join(SITE_COLUMNS)} (the first three required).")
+    unknown = [c for c in header if c not in SITE_COLUMNS]
+    if unknown:
+        raise ExchangeError(f"{name}, line 1: unknown column {', '.join(unknown)}; the columns are "
+                            f"{', '.join(SITE_COLUMNS)}.")
+    sites: list[Site] = []
+    seen: dict[str, int] = {}
+    line = 1
+    for row in reader:
+        line = reader.line_num
+        if None in row:
+            raise ExchangeError(f"{name}, line {line}: more values than columns; check for an unquoted comma.")
+        values = {k: (v or "").strip() for k, v in row.items()}
+        if not any(values.values()):
+            continue
+        doc: dict[str, Any] = {}
+        for col, raw in values.items():
+            if col in _SITE_NUMBERS:
+                if raw == "":
+                    if col in _SITE_REQUIRED:
+                        raise ExchangeError(f"{name}, line {line}: {label_for(col)} is required (metres above sea level).")
+                    continue
+                try:
+                    doc[col] = parse_number(raw, col)
+                except InputError as exc:
+                    raise ExchangeError(f"{name}, line {line}: {exc.message}") from None
+            elif col == "site_id":
+                doc["id"] = raw
+            elif col == "water_class":
+                if raw:
+                    doc[col] = raw.lower()
+            elif raw or col in _SITE_REQUIRED:
+                doc[col] = raw
+        if not doc.get("id"):
+            raise ExchangeError(f"{name}, line {line}: Site code is required.")
+        if doc["id"] in seen:
+            raise ExchangeError(f"{name}, line {line}: site {doc['id']} is listed twice (first on line {seen[doc['id']]}).")
+        seen[doc["id"]] = line
+        try:
+            sites.append(Site.model_validate(doc, strict=True))
+        except ValidationError as exc:
+            probs = problems_from_validation(exc)
+            msg = probs[0].message
+            if probs[0].field == "id":
+                msg = msg.replace("ID", _SITE_LABELS["site_id"], 1)
+            raise ExchangeError(f"{name}, line {line}: {msg}") from None
+    if not sites:
+        raise ExchangeError(f"{name}: no sites found below the header row.")
+    return sites
+
+
+def import_sites_csv(store: Any, path: Path | str) -> list[Site]:
+    """Imports a site list into the store, all or nothing; errors name the file and line."""
+    sites = read_sites_csv(path)
+    return store.save_sites(sites)
+
+
+def _refuse_constant(name: str) -> Any:
+    raise ValueError(f"{name} is not a number JSON allows")
+
+
+def read_trip_file(path: Path | str) -> dict[str, Any]:
+    """The JSON document in a trip file (not yet validated); errors name the file and line."""
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        raise ExchangeError(f"{path}: no such file.") from None
+    try:
+        doc = json.loads(raw.decode("utf-8-sig"), parse_constant=_refuse_constant)
+    except UnicodeDecodeError:
+        raise ExchangeError(f"{path.name}: not UTF-8 text.") from None
+    except json.JSONDecodeError as exc:
+        raise ExchangeError(f"{path.name}, line {exc.lineno} column {exc.colno}: not valid JSON ({exc.msg}).") from None
+    except ValueError as exc:
+        raise ExchangeError(f"{path.name}: {exc}; NaN and infinity are refused.") from None
+    if not isinstance(doc, dict):
+        raise ExchangeError(f"{path.name}: a trip file holds one JSON object (the trip), not a {type(doc).__name__}.")
+    return doc
+
+
+def import_trip_file(store: Any, path: Path | str) -> Trip:
+    """Imports one trip file through the store's save path (validated, derived; nothing half-imported)."""
+    from core.store import StoreError
+
+    path = Path(path)
+    doc = read_trip_file(path)
+    try:
+        return store.put_document(doc, f"imported from {path.name}")
+    except StoreError as exc:
+        raise ExchangeError(f"{path.name}: {exc}") from None
+
+
+def export_trip_json(store: Any, trip_id: str) -> bytes:
+    """The stored trip document as indented JSON (sorted keys, UTF-8), importable again as is."""
+    doc = store.trip_document(trip_id)
+    return (json.dumps(doc, indent=2, sort_keys=True, ensure_ascii=False, allow_nan=False) + "\n").encode("utf-8")
+
+
+STOP_COLUMNS = (
+    "trip_id", "stop_id", "site_id", "arrived_at", "closed_at",
+    "water_temp_c", "water_temp_as_typed", "station_pressure_hpa", "station_pressure_as_typed",
+    "conductivity_us_cm", "conductivity_is_sc25", "conductivity_as_typed",
+    "meter_do_value", "meter_do_unit", "meter_do_as_typed",
+    "do_sat_mg_l", "do_mg_l", "do_percent_saturation", "salinity_pss78", "salinity_source",
+    "specific_conductance_us_cm", "method", "core_version", "flags", "weather", "flow", "notes",
+)
+BOTTLE_COLUMNS = (
+    "trip_id", "stop_id", "site_id", "bottle_uuid", "bottle_id", "kind", "collected_at", "fixed_at",
+    "preservation", "lab_results", "notes",
+)
+
+
+def _num(value: float | None) -> str:
+    return "" if value is None else repr(float(value))
+
+
+def _time(value: Any) -> str:
+    return "" if value is None else value.isoformat()
+
+
+def stop_rows(trip: Trip) -> list[dict[str, str]]:
+    """One row per stop (columns :data:`STOP_COLUMNS`), in route order."""
+    rows = []
+    for s in sorted(trip.stops, key=lambda s: s.arrived_at):
+        d = s.derived
+        rows.append({
+            "trip_id": trip.id, "stop_id": s.id, "site_id": s.site_id,
+            "arrived_at": _time(s.arrived_at), "closed_at": _time(s.closed_at),
+            "water_temp_c": _num(s.temp.value if s.temp else None),
+            "water_temp_as_typed": s.temp.text if s.temp else "",
+            "station_pressure_hpa": _num(s.pressure.value if s.pressure else None),
+            "station_pressure_as_typed": s.pressure.text if s.pressure else "",
+            "conductivity_us_cm": _num(s.conductivity.value if s.conductivity else None),
+            "conductivity_is_sc25": "yes" if s.conductivity_is_sc25 else "no",
+            "conductivity_as_typed": s.conductivity.text if s.conductivity else "",
+            "meter_do_value": _num(s.do.value if s.do else None),
+            "meter_do_unit": s.do.unit if s.do else "",
+            "meter_do_as_typed": s.do.text if s.do else "",
+            "do_sat_mg_l": _num(d.do_sat_mg_l if d else None),
+            "do_mg_l": _num(d.do_mg_l if d else None),
+            "do_percent_saturation": _num(d.percent_saturation if d else None),
+            "salinity_pss78": _num(d.salinity if d else None),
+            "salinity_source": d.salinity_source if d else "",
+            "specific_conductance_us_cm": _num(d.specific_conductance_us_cm if d else None),
+            "method": d.method if d else "", "core_version": d.core_version if d else "",
+            "flags": ";".join(f.code for f in d.flags) if d else "",
+            "weather": s.weather, "flow": s.flow, "notes": s.notes,
+        })
+    return rows
+
+
+def bottle_rows(trip: Trip) -> list[dict[str, str]]:
+    """One row per bottle (columns :data:`BOTTLE_COLUMNS`); lab results as "analyte=value unit; ..."."""
+    rows = []
+    for s in sorted(trip.stops, key=lambda s: s.arrived_at):
+        for b in s.bottles:
+            labs = "; ".join(f"{r.analyte}={'' if r.value is None else repr(r.value)} {r.unit}".strip()
+                             for r in b.lab_results)
+            rows.append({
+                "trip_id": trip.id, "stop_id": s.id, "site_id": s.site_id, "bottle_uuid": b.id,
+                "bottle_id": b.label, "kind": b.kind, "collected_at": _time(b.collected_at),
+                "fixed_at": _time(b.fixed_at), "preservation": b.preservation, "lab_results": labs,
+                "notes": b.notes,
+            })
+    return rows
+
+
+def _csv_text(columns: tuple[str, ...], rows: list[dict[str, str]]) -> str:
+    buf = io.StringIO(newline="")
+    writer = csv.DictWriter(buf, fieldnames=list(columns), lineterminator="\n")
+    writer.writeheader()
+    writer.writerows(rows)
+    return buf.getvalue()
+
+
+def export_trip_csv(store: Any, trip_id: str) -> dict[str, str]:
+    """CSV texts keyed by file name: ``stops.csv`` (one row per stop), ``bottles.csv`` (one per bottle)."""
+    trip = store.load_trip(trip_id)
+    return {"stops.csv": _csv_text(STOP_COLUMNS, stop_rows(trip)),
+            "bottles.csv": _csv_text(BOTTLE_COLUMNS, bottle_rows(trip))}

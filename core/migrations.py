@@ -1,0 +1,119 @@
+"""Schema migrations of trip documents: lift an older layout to the current one, refuse a newer one.
+
+Version 1 (the first field builds) differs from version 2 as follows:
+
+- ``crew`` was one text ("R.O., J.V."); now a list of initials.
+- a stop's site was ``site`` and its time ``time``; now ``site_id`` and ``arrived_at``.
+- readings were bare numbers ``temp_c``, ``pressure_hpa``, ``conductivity_us_cm``, ``do_mg_l``;
+  now quantities that keep the typed text beside the normalised value.
+- bottles had ``bottle_id`` (the label) and no ``id``; audit entries had ``device`` and ``what``
+  and no ``id``; there was no ``conflicts`` list.
+
+Ids made during migration are UUID version 5 of the trip id and the element's position, so two
+devices migrating the same old document agree on them (sync merges by id).
+"""
+from __future__ import annotations
+
+import copy
+import uuid
+from typing import Any, Callable
+
+from core.models import SCHEMA_VERSION
+
+__all__ = ["migrate", "MIGRATIONS", "CURRENT"]
+
+CURRENT = SCHEMA_VERSION
+_NS = uuid.UUID("6f1c2a52-3d0e-4b8e-9a57-1d2f5b7c9e01")  # streamtab's own namespace for uuid5
+
+
+def _uuid5(*parts: Any) -> str:
+    return str(uuid.uuid5(_NS, "/".join(str(p) for p in parts)))
+
+
+def _quantity(value: Any, unit: str, entered_unit: str) -> dict[str, Any] | None:
+    if value is None:
+        return None
+    number = float(value)
+    shown = f"{number:g}"
+    return {"text": f"{shown} {entered_unit}".strip(), "entered_value": number,
+            "entered_unit": entered_unit, "value": number, "unit": unit}
+
+
+def _v1_to_v2(doc: dict[str, Any]) -> dict[str, Any]:
+    trip_id = doc.get("id", "")
+    crew = doc.get("crew", [])
+    if isinstance(crew, str):
+        doc["crew"] = [c.strip() for c in crew.replace(";", ",").split(",") if c.strip()]
+    stops = []
+    for i, stop in enumerate(doc.get("stops") or []):
+        stop = dict(stop)
+        stop.setdefault("id", _uuid5(trip_id, "stop", i))
+        if "site" in stop and "site_id" not in stop:
+            stop["site_id"] = stop.pop("site")
+        if "time" in stop and "arrived_at" not in stop:
+            stop["arrived_at"] = stop.pop("time")
+        for old, new, unit, typed in (("temp_c", "temp", "°C", "°C"), ("pressure_hpa", "pressure", "hPa", "hPa"),
+                                      ("conductivity_us_cm", "conductivity", "µS/cm", "µS/cm"),
+                                      ("do_mg_l", "do", "mg/L", "mg/L")):
+            if old in stop:
+                q = _quantity(stop.pop(old), unit, typed)
+                if q is not None:
+                    stop[new] = q
+        bottles = []
+        for j, bottle in enumerate(stop.get("bottles") or []):
+            bottle = dict(bottle)
+            if "bottle_id" in bottle and "label" not in bottle:
+                bottle["label"] = bottle.pop("bottle_id")
+            bottle.setdefault("id", _uuid5(trip_id, "stop", i, "bottle", j, bottle.get("label", "")))
+            bottles.append(bottle)
+        stop["bottles"] = bottles
+        stop.pop("derived", None)  # recomputed on save
+        stops.append(stop)
+    doc["stops"] = stops
+    audit = []
+    for k, entry in enumerate(doc.get("audit") or []):
+        entry = dict(entry)
+        entry.setdefault("id", _uuid5(trip_id, "audit", k))
+        if "device" in entry and "device_id" not in entry:
+            entry["device_id"] = entry.pop("device")
+        if "what" in entry and "change" not in entry:
+            entry["change"] = entry.pop("what")
+        entry.setdefault("revision", k + 1)
+        entry.setdefault("fields", [])
+        audit.append(entry)
+    doc["audit"] = audit
+    doc.setdefault("conflicts", [])
+    doc["schema_version"] = 2
+    return doc
+
+
+#: from-version → function lifting a document by one version.
+MIGRATIONS: dict[int, Callable[[dict[str, Any]], dict[str, Any]]] = {1: _v1_to_v2}
+
+
+def migrate(doc: dict[str, Any]) -> dict[str, Any]:
+    """The document lifted to the current schema version (the input itself when already current;
+    otherwise a lifted copy, the input unchanged).
+
+    Raises core.store.NewerSchemaError for a version newer than this build knows (the stored
+    file is left untouched) and core.store.InvalidRecord when the version is missing or unknown.
+    """
+    from core.store import InvalidRecord, NewerSchemaError
+
+    version = doc.get("schema_version")
+    if isinstance(version, bool) or not isinstance(version, int):
+        raise InvalidRecord("Schema version is missing or not a whole number; this is not a streamtab"
+                            " trip document.")
+    if version > CURRENT:
+        raise NewerSchemaError(
+            f"Trip {doc.get('id', '?')} was written by a newer streamtab (schema version {version};"
+            f" this build knows up to {CURRENT}); update streamtab to open it. The file was left"
+            " untouched.", version, CURRENT)
+    if version == CURRENT:
+        return doc
+    if version < 1 or version not in MIGRATIONS:
+        raise InvalidRecord(f"Schema version {version} is unknown; this build reads 1–{CURRENT}.")
+    out = copy.deepcopy(doc)
+    while out["schema_version"] < CURRENT:
+        out = MIGRATIONS[out["schema_version"]](out)
+    return out

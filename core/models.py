@@ -1,0 +1,603 @@
+"""Trip records: sites, trips, stops, bottles, calibrations, lab results, audit and conflicts (pydantic v2)."""
+from __future__ import annotations
+
+import json
+import math
+import re
+import uuid
+from datetime import datetime
+from pathlib import Path
+from typing import Any, Literal
+
+from pydantic import (AwareDatetime, BaseModel, ConfigDict, Field, ValidationError,
+                      field_validator, model_validator)
+from pydantic_core import PydanticCustomError
+
+__all__ = [
+    "SCHEMA_VERSION", "BOTTLE_KINDS", "WATER_CLASSES", "LIMITS",
+    "Quantity", "FlagRecord", "Derived", "Site", "Calibration", "LabResult", "Bottle", "Stop",
+    "AuditEntry", "ConflictSide", "Conflict", "ProgramSettings", "Trip",
+    "InputError", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
+]
+
+#: Version of the trip document layout this build writes. core.migrations lifts older ones.
+SCHEMA_VERSION = 2
+
+BOTTLE_KINDS = ("do-fixed", "bod", "duplicate", "blank")
+WATER_CLASSES = ("warm", "cold")
+
+#: Hard limits of what a form accepts, per field kind (value in the normalised unit).
+#: Wider than the range of the saturation equations (0–40 °C, 0.5–1.1 atm): values between the
+#: two compute and carry a QC flag; values outside these are refused as typing or unit mistakes.
+#: All "common practice" bounds for stream work, not published limits.
+LIMITS: dict[str, tuple[float, float, str]] = {
+    "temp": (-2.0, 50.0, "°C"),
+    "pressure": (400.0, 1100.0, "hPa"),
+    "conductivity": (0.0, 100000.0, "µS/cm"),
+    "do_mg_l": (0.0, 25.0, "mg/L"),
+    "do_percent": (0.0, 300.0, "%"),
+    "elevation": (-430.0, 6000.0, "m"),
+    "latitude": (-90.0, 90.0, "°"),
+    "longitude": (-180.0, 180.0, "°"),
+    "calibration_reading": (0.0, 25.0, "mg/L"),
+    "tolerance": (0.0, 5.0, "mg/L"),
+}
+
+
+def new_id() -> str:
+    """A fresh UUID (version 4) as text; every list element in a trip has one so sync merges by id."""
+    return str(uuid.uuid4())
+
+
+class InputError(ValueError):
+    """A value a person typed that cannot be accepted: stable `code`, the `field` and a readable message."""
+
+    def __init__(self, code: str, field: str, message: str):
+        super().__init__(message)
+        self.code = code
+        self.field = field
+        self.message = message
+
+
+# --------------------------------------------------------------------------------------------
+# Strict number parsing for form input
+# --------------------------------------------------------------------------------------------
+_NUMBER_RE = re.compile(r"^[+-]?(\d+([.,]\d*)?|[.,]\d+)([eE][+-]?\d+)?$")
+_LEADING_NUMBER_RE = re.compile(r"^\s*([+-]?(?:\d[\d.,]*|[.,]\d+)(?:[eE][+-]?\d+)?)\s*(.*?)\s*$")
+
+
+def parse_number(text: str, field: str = "value") -> float:
+    """Reads a number a person typed: "3.5" and "3,5" give 3.5; never reads "3,5" as 35.
+
+    Refuses NaN, infinity, yes/no values, thousands separators and an ambiguous "1,234"
+    (a decimal comma or a thousands comma?) with an :class:`InputError` naming the field.
+    """
+    from core.messages import label_for, render
+
+    label = label_for(field)
+    if isinstance(text, bool):
+        raise InputError("number.bool", field, render("number.bool", label=label, input=text))
+    if isinstance(text, (int, float)):
+        value = float(text)
+        if not math.isfinite(value):
+            raise InputError("number.not_finite", field,
+                             render("number.not_finite", label=label, input=text))
+        return value
+    raw = str(text).strip()
+    if not raw:
+        raise InputError("missing", field, render("missing", label=label))
+    if raw.lower().lstrip("+-") in {"nan", "inf", "infinity"}:
+        raise InputError("number.not_finite", field,
+                         render("number.not_finite", label=label, input=raw))
+    if raw.count(",") + raw.count(".") > 1 or not _NUMBER_RE.match(raw):
+        raise InputError("number.invalid", field, render("number.invalid", label=label, input=raw))
+    if "," in raw:
+        head, _, tail = raw.partition(",")
+        digits = re.match(r"\d*", tail).group(0)
+        if len(digits) == 3 and head.lstrip("+-").isdigit() and head.lstrip("+-") != "0":
+            # "1,234": 1.234 to a European eye, 1234 to an American one — ask, never guess.
+            raise InputError("number.ambiguous_comma", field,
+                             render("number.ambiguous_comma", label=label, input=raw,
+                                    a=raw.replace(",", "."), b=raw.replace(",", "")))
+        raw = raw.replace(",", ".")
+    value = float(raw)
+    if not math.isfinite(value):
+        raise InputError("number.not_finite", field, render("number.not_finite", label=label, input=raw))
+    return value
+
+
+# --------------------------------------------------------------------------------------------
+# Base model
+# --------------------------------------------------------------------------------------------
+class _Record(BaseModel):
+    """Strict (no "nan", "inf" or True as numbers; times must carry a zone); unknown fields kept."""
+
+    model_config = ConfigDict(strict=True, allow_inf_nan=False, extra="allow",
+                              populate_by_name=True, validate_default=False)
+
+
+def _id_field() -> Any:
+    return Field(default_factory=new_id, min_length=1, max_length=64)
+
+
+class Quantity(_Record):
+    """A typed value kept exactly as typed, beside its normalised value.
+
+    ``text`` is what the person typed ("752 mmHg"); ``entered_value``/``entered_unit`` are its
+    number and unit as read; ``value``/``unit`` are normalised (°C, hPa, µS/cm, mg/L or %).
+    """
+
+    text: str = Field(max_length=80)
+    entered_value: float
+    entered_unit: str = Field(max_length=20)
+    value: float
+    unit: str = Field(max_length=10)
+
+
+class FlagRecord(_Record):
+    """A stored :class:`core.flags.Flag`."""
+
+    code: str
+    severity: Literal["note", "warning", "stop-and-check"]
+    message: str
+    action: str = ""
+    field: str | None = None
+
+    @classmethod
+    def from_flag(cls, flag: Any) -> "FlagRecord":
+        sev = getattr(flag.severity, "value", flag.severity)
+        return cls(code=flag.code, severity=sev, message=flag.message, action=flag.action or "",
+                   field=flag.field)
+
+    def to_flag(self):
+        from core.flags import Flag, Severity
+
+        return Flag(self.code, Severity(self.severity), self.message, self.action, self.field)
+
+
+class Derived(_Record):
+    """Values computed from a stop's inputs at save time, with the method and core version."""
+
+    do_sat_mg_l: float
+    percent_saturation: float | None = None
+    do_mg_l: float | None = None
+    salinity: float
+    salinity_source: str
+    specific_conductance_us_cm: float | None = None
+    pressure_hpa: float
+    temp_c: float
+    method: str
+    core_version: str
+    flags: list[FlagRecord] = Field(default_factory=list)
+
+
+def _range_error(kind: str, label_field: str, value: float, unit: str) -> PydanticCustomError:
+    low, high, _ = LIMITS[kind]
+    return PydanticCustomError(f"{kind}.out_of_range", "{value} outside {low}–{high} {unit}",
+                               {"value": value, "low": low, "high": high, "unit": unit,
+                                "kind": kind})
+
+
+def _check_quantity(q: Quantity | None, kind: str, units: tuple[str, ...]) -> Quantity | None:
+    if q is None:
+        return None
+    if q.unit not in units:
+        raise PydanticCustomError("unit.mismatch", "unit {unit} not in {expected}",
+                                  {"unit": q.unit, "expected": ", ".join(units)})
+    key = kind
+    if kind == "do":
+        key = "do_percent" if q.unit == "%" else "do_mg_l"
+    low, high, unit = LIMITS[key]
+    if not (low <= q.value <= high):
+        raise _range_error(key, kind, q.value, q.unit)
+    return q
+
+
+def _check_range(value: float | None, kind: str) -> float | None:
+    if value is None:
+        return None
+    low, high, unit = LIMITS[kind]
+    if not (low <= value <= high):
+        raise _range_error(kind, kind, value, unit)
+    return value
+
+
+class Site(_Record):
+    """A sampling site: code, name, elevation (m), optional coordinates, water class and criteria."""
+
+    schema_version: int = SCHEMA_VERSION
+    id: str = Field(min_length=1, max_length=32)
+    name: str = Field(min_length=1, max_length=120)
+    elevation_m: float
+    latitude: float | None = None
+    longitude: float | None = None
+    water_class: Literal["warm", "cold"] | None = None
+    #: Site-specific DO criterion (mg/L), overriding the program's warm/cold default.
+    min_do_mg_l: float | None = None
+    #: Site-specific supersaturation threshold (%), overriding the program's default.
+    supersaturation_percent: float | None = None
+    notes: str = Field(default="", max_length=2000)
+
+    @field_validator("elevation_m")
+    @classmethod
+    def _elev(cls, v: float) -> float:
+        return _check_range(v, "elevation")
+
+    @field_validator("latitude")
+    @classmethod
+    def _lat(cls, v: float | None) -> float | None:
+        return _check_range(v, "latitude")
+
+    @field_validator("longitude")
+    @classmethod
+    def _lon(cls, v: float | None) -> float | None:
+        return _check_range(v, "longitude")
+
+    @field_validator("min_do_mg_l")
+    @classmethod
+    def _crit(cls, v: float | None) -> float | None:
+        return _check_range(v, "do_mg_l")
+
+    @field_validator("supersaturation_percent")
+    @classmethod
+    def _ss(cls, v: float | None) -> float | None:
+        return _check_range(v, "do_percent")
+
+
+class Calibration(_Record):
+    """A meter air calibration (pre-trip) or check (post-trip): inputs, and the derived verdict."""
+
+    id: str = _id_field()
+    kind: Literal["pre-trip", "post-trip"] = "pre-trip"
+    at: AwareDatetime
+    temp: Quantity
+    pressure: Quantity
+    reading_mg_l: float
+    tolerance_mg_l: float = 0.2  # common practice (USGS NFM A6.2 for the method; tolerance a setting)
+    notes: str = Field(default="", max_length=2000)
+    # derived at save time
+    target_mg_l: float | None = None
+    difference_mg_l: float | None = None
+    accepted: bool | None = None
+    method: str | None = None
+    core_version: str | None = None
+    flags: list[FlagRecord] = Field(default_factory=list)
+
+    @field_validator("temp")
+    @classmethod
+    def _t(cls, v: Quantity) -> Quantity:
+        return _check_quantity(v, "temp", ("°C",))
+
+    @field_validator("pressure")
+    @classmethod
+    def _p(cls, v: Quantity) -> Quantity:
+        return _check_quantity(v, "pressure", ("hPa",))
+
+    @field_validator("reading_mg_l")
+    @classmethod
+    def _r(cls, v: float) -> float:
+        return _check_range(v, "calibration_reading")
+
+    @field_validator("tolerance_mg_l")
+    @classmethod
+    def _tol(cls, v: float) -> float:
+        return _check_range(v, "tolerance")
+
+
+class LabResult(_Record):
+    """A laboratory result for a bottle (Winkler DO, BOD5, specific conductance, ...)."""
+
+    id: str = _id_field()
+    analyte: str = Field(min_length=1, max_length=40)
+    value: float | None = None
+    unit: str = Field(default="", max_length=20)
+    analysed_at: AwareDatetime | None = None
+    analyst: str = Field(default="", max_length=40)
+    method: str = Field(default="", max_length=80)
+    inputs: dict[str, Any] = Field(default_factory=dict)
+    valid: bool | None = None
+    notes: str = Field(default="", max_length=2000)
+
+
+class Bottle(_Record):
+    """A sample bottle: its label (typed or scanned), kind, times, preservation, later lab results."""
+
+    id: str = _id_field()
+    label: str = Field(min_length=1, max_length=40)
+    kind: Literal["do-fixed", "bod", "duplicate", "blank"]
+    collected_at: AwareDatetime
+    fixed_at: AwareDatetime | None = None
+    preservation: str = Field(default="", max_length=120)
+    notes: str = Field(default="", max_length=2000)
+    lab_results: list[LabResult] = Field(default_factory=list)
+
+    @field_validator("label")
+    @classmethod
+    def _label(cls, v: str) -> str:
+        if not v.strip():
+            raise PydanticCustomError("text.blank", "blank")
+        return v.strip()
+
+
+class Stop(_Record):
+    """A site visit: readings as typed and normalised, bottles, notes; `derived` is set by the store."""
+
+    id: str = _id_field()
+    site_id: str = Field(min_length=1, max_length=32)
+    arrived_at: AwareDatetime
+    temp: Quantity | None = None
+    pressure: Quantity | None = None
+    conductivity: Quantity | None = None
+    #: True when `conductivity` is already specific conductance (at 25 °C).
+    conductivity_is_sc25: bool = False
+    do: Quantity | None = None
+    bottles: list[Bottle] = Field(default_factory=list)
+    notes: str = Field(default="", max_length=4000)
+    weather: str = Field(default="", max_length=400)
+    flow: str = Field(default="", max_length=400)
+    closed_at: AwareDatetime | None = None
+    derived: Derived | None = None
+
+    @field_validator("temp")
+    @classmethod
+    def _t(cls, v: Quantity | None) -> Quantity | None:
+        return _check_quantity(v, "temp", ("°C",))
+
+    @field_validator("pressure")
+    @classmethod
+    def _p(cls, v: Quantity | None) -> Quantity | None:
+        return _check_quantity(v, "pressure", ("hPa",))
+
+    @field_validator("conductivity")
+    @classmethod
+    def _c(cls, v: Quantity | None) -> Quantity | None:
+        return _check_quantity(v, "conductivity", ("µS/cm",))
+
+    @field_validator("do")
+    @classmethod
+    def _do(cls, v: Quantity | None) -> Quantity | None:
+        return _check_quantity(v, "do", ("mg/L", "%"))
+
+
+class AuditEntry(_Record):
+    """One change to a trip: when, which device, what (a sentence and the changed field paths)."""
+
+    id: str = _id_field()
+    at: AwareDatetime
+    device_id: str
+    change: str = Field(max_length=400)
+    revision: int
+    fields: list[str] = Field(default_factory=list)
+
+
+class ConflictSide(_Record):
+    """One device's value of a field that two devices changed differently."""
+
+    device_id: str
+    value: Any = None
+    revision: int | None = None
+    updated_at: AwareDatetime | None = None
+
+
+class Conflict(_Record):
+    """A field two devices changed differently; sync fills these, a person resolves them."""
+
+    id: str = _id_field()
+    path: str
+    sides: list[ConflictSide] = Field(default_factory=list)
+    detected_at: AwareDatetime
+    resolved_at: AwareDatetime | None = None
+    resolved_by: str | None = None
+    resolution: Any = None
+
+
+class ProgramSettings(_Record):
+    """A monitoring program's settings: method, criteria, tolerances and QC thresholds."""
+
+    schema_version: int = SCHEMA_VERSION
+    program: str = Field(default="", max_length=120)
+    method: Literal["benson-krause", "garcia-gordon"] = "benson-krause"
+    warm_min_mg_l: float = 5.0          # common practice (many state standards; EPA 1986 differs)
+    cold_min_mg_l: float = 6.5          # US EPA 440/5-86-003 (1986) cold-water 30-day mean, from memory
+    supersaturation_percent: float = 120.0   # common practice
+    hypoxic_mg_l: float = 2.0           # common practice
+    calibration_tolerance_mg_l: float = 0.2  # common practice (USGS NFM A6.2 method)
+    #: Holding-time overrides by kind (hours), e.g. {"bod": 24} for a stricter SOP.
+    holding_overrides_h: dict[str, float] = Field(default_factory=dict)
+    #: Plausible stream ranges (warning outside; common practice, adjust per program).
+    temp_plausible_c: tuple[float, float] = (0.0, 35.0)
+    conductivity_plausible_us_cm: tuple[float, float] = (5.0, 5000.0)
+    #: Jumps between consecutive stops that ask for a second look (common practice).
+    temp_jump_c: float = 8.0
+    conductivity_jump_ratio: float = 3.0
+
+    @field_validator("temp_plausible_c", "conductivity_plausible_us_cm", mode="before")
+    @classmethod
+    def _pair(cls, v: Any) -> Any:
+        return tuple(v) if isinstance(v, list) else v
+
+    def criteria(self):
+        from core.criteria import Criteria
+
+        return Criteria(warm_min_mg_l=self.warm_min_mg_l, cold_min_mg_l=self.cold_min_mg_l,
+                        supersaturation_percent=self.supersaturation_percent,
+                        hypoxic_mg_l=self.hypoxic_mg_l)
+
+
+_TRIP_FIELDS: set[str] = set()
+
+
+class Trip(_Record):
+    """A crew's day: route of stops with readings and bottles, calibrations, audit and conflicts.
+
+    Unknown top-level fields (from a newer build with the same schema version) are kept in
+    :attr:`extra` and written back unchanged; unknown nested fields are kept in place.
+    """
+
+    id: str = _id_field()
+    schema_version: int = SCHEMA_VERSION
+    revision: int = 0
+    updated_at: AwareDatetime | None = None
+    device_id: str = Field(default="", max_length=64)
+    program: str = Field(default="", max_length=120)
+    crew: list[str] = Field(default_factory=list)
+    meter_id: str = Field(default="", max_length=64)
+    started_at: AwareDatetime
+    ended_at: AwareDatetime | None = None
+    pre_calibration: Calibration | None = None
+    post_check: Calibration | None = None
+    stops: list[Stop] = Field(default_factory=list)
+    notes: str = Field(default="", max_length=4000)
+    audit: list[AuditEntry] = Field(default_factory=list)
+    conflicts: list[Conflict] = Field(default_factory=list)
+
+    @property
+    def extra(self) -> dict[str, Any]:
+        """Top-level fields this build does not know, kept as they came."""
+        return self.__pydantic_extra__ if self.__pydantic_extra__ is not None else {}
+
+    @model_validator(mode="after")
+    def _ended_after_start(self) -> "Trip":
+        if self.ended_at is not None and self.ended_at < self.started_at:
+            raise PydanticCustomError("time.end_before_start", "ended before it started",
+                                      {"field": "ended_at"})
+        return self
+
+    @property
+    def open_conflicts(self) -> list[Conflict]:
+        return [c for c in self.conflicts if c.resolved_at is None]
+
+    @property
+    def status(self) -> str:
+        """"needs attention" with unresolved conflicts, else "in progress" or "ended"."""
+        if self.open_conflicts:
+            return "needs attention"
+        return "in progress" if self.ended_at is None else "ended"
+
+    def stop(self, stop_id: str) -> Stop:
+        for s in self.stops:
+            if s.id == stop_id:
+                return s
+        raise KeyError(stop_id)
+
+    def to_document(self) -> dict[str, Any]:
+        """The JSON document (plain dict, unknown fields included)."""
+        return self.model_dump(mode="json")
+
+    @classmethod
+    def from_document(cls, doc: dict[str, Any]) -> "Trip":
+        """Validates a JSON document (current schema version) strictly, as JSON text would be."""
+        from core.atomic import canonical_json_bytes
+
+        return cls.model_validate_json(canonical_json_bytes(doc))
+
+
+# --------------------------------------------------------------------------------------------
+# Building quantities from what a person typed
+# --------------------------------------------------------------------------------------------
+_DO_UNITS = {"mg/l": "mg/L", "mgl": "mg/L", "mg/litre": "mg/L", "mg/liter": "mg/L", "ppm": "mg/L",
+             "%": "%", "% sat": "%", "%sat": "%", "percent": "%"}
+
+
+def _split(text: str, field: str) -> tuple[float, str, str]:
+    from core.messages import label_for, render
+
+    if isinstance(text, bool) or not isinstance(text, (str, int, float)):
+        raise InputError("number.invalid", field,
+                         render("number.invalid", label=label_for(field), input=text))
+    raw = str(text).strip()
+    if not raw:
+        raise InputError("missing", field, render("missing", label=label_for(field)))
+    m = _LEADING_NUMBER_RE.match(raw)
+    if not m:
+        parse_number(raw, field)  # raises the right message (nan, inf, not a number)
+        raise InputError("number.invalid", field,
+                         render("number.invalid", label=label_for(field), input=raw))
+    value = parse_number(m.group(1), field)
+    return value, m.group(2), raw
+
+
+def measure(kind: str, text: str, *, default_unit: str | None = None, field: str | None = None) -> Quantity:
+    """Builds a :class:`Quantity` from typed text, keeping the text exactly.
+
+    kind: "temp" (°C; "°F"/"F" converted), "pressure" (hPa; units from core.pressure; a bare
+    number is refused), "conductivity" (µS/cm), "do" (mg/L or %). `default_unit` applies to a
+    bare number (e.g. "C" for a temperature field, "mg/L" for a DO field). Raises
+    :class:`InputError` with the field label, what was wrong and the accepted range or units.
+    """
+    from core.messages import label_for, render
+
+    field = field or kind
+    label = label_for(field)
+    value, unit, raw = _split(text, field)
+    unit_in = unit or (default_unit or "")
+    plain = f"{value:.10f}".rstrip("0").rstrip(".")
+    try:
+        if kind == "temp":
+            from core.temperature import parse_temperature
+
+            norm = parse_temperature(f"{plain} {unit_in}".strip(), default_unit=default_unit or "C")
+            q_unit = "°C"
+        elif kind == "pressure":
+            from core.pressure import parse_pressure
+
+            norm = parse_pressure(f"{plain} {unit_in}".strip())
+            q_unit = "hPa"
+        elif kind == "conductivity":
+            from core.conductivity import parse_conductivity
+
+            norm = parse_conductivity(f"{plain} {unit_in}".strip())
+            q_unit = "µS/cm"
+        elif kind == "do":
+            key = unit_in.strip().lower()
+            if key not in _DO_UNITS:
+                raise ValueError(f"unit {unit_in!r} is not one of mg/L, %")
+            q_unit = _DO_UNITS[key]
+            norm = value
+        else:
+            raise ValueError(f"unknown kind {kind!r}")
+    except InputError:
+        raise
+    except ValueError as exc:
+        raise InputError("unit.invalid", field,
+                         render("unit.invalid", label=label, input=raw, detail=str(exc))) from None
+    norm = float(norm)
+    key = kind if kind != "do" else ("do_percent" if q_unit == "%" else "do_mg_l")
+    low, high, _ = LIMITS[key]
+    if not (low <= norm <= high):
+        code = f"{key}.out_of_range"
+        raise InputError(code, field, render(code, label=label, value=norm, low=low, high=high,
+                                             unit=q_unit))
+    return Quantity(text=raw, entered_value=value, entered_unit=unit_in.strip(), value=norm,
+                    unit=q_unit)
+
+
+# --------------------------------------------------------------------------------------------
+# JSON Schema of a trip document
+# --------------------------------------------------------------------------------------------
+SCHEMA_PATH = Path(__file__).resolve().parent / "schema" / "trip.schema.json"
+
+
+def trip_json_schema() -> dict[str, Any]:
+    """The JSON Schema of a trip document, generated from :class:`Trip`."""
+    schema = Trip.model_json_schema(mode="serialization")
+    schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
+    schema["$id"] = f"streamtab:trip:v{SCHEMA_VERSION}"
+    return schema
+
+
+def schema_text() -> str:
+    return json.dumps(trip_json_schema(), indent=2, sort_keys=True, ensure_ascii=False) + "\n"
+
+
+def write_trip_schema(path: Path | None = None) -> Path:
+    """Regenerates core/schema/trip.schema.json (run ``python -m core.models``)."""
+    from core.atomic import atomic_write_bytes
+
+    path = path or SCHEMA_PATH
+    atomic_write_bytes(path, schema_text().encode("utf-8"))
+    return path
+
+
+if __name__ == "__main__":  # pragma: no cover - maintenance entry point
+    print(write_trip_schema())

@@ -1,0 +1,356 @@
+"""QC rules a senior technician would run on a trip, and the derive step of the store's save path.
+
+Everything here is pure: records and a `now` in, new records or flags out; no disk, no clock.
+
+Rules (code — severity — fires when):
+
+=============================  ==============  =================================================
+pressure.sea_level_adjusted    warning         station pressure far above the standard
+                                               atmosphere at the site's elevation (core.pressure)
+do.supersaturated              warning         % saturation above the program threshold
+do.below_criterion             warning         DO below the site's / program's criterion
+do.hypoxic                     stop-and-check  DO below the hypoxia threshold
+calibration.far_from_target    stop-and-check  pre-trip calibration reading outside tolerance
+calibration.missing            warning         stops recorded but no pre-trip calibration
+calibration.post_drift         stop-and-check  post-trip check outside tolerance (drift)
+bottle.duplicate_label         stop-and-check  a bottle ID used twice in the trip or on the device
+bottle.not_fixed               warning         a DO (Winkler) bottle without a fixing time
+holding.expired / holding.soon (core.holding)  holding time passed / less than 25 % left
+temp.out_of_range              warning         water temperature outside the plausible range
+temp.looks_fahrenheit          (core.temperature) a °C value that looks like °F
+temp.jump                      warning         temperature jumps implausibly between stops
+conductivity.out_of_range      warning         conductivity outside the plausible range
+conductivity.jump              warning         conductivity changes by more than a factor
+stop.missing_required          stop-and-check  a closed stop lacks temperature, pressure or DO
+stop.unknown_site              warning         the stop names a site not in the site list
+=============================  ==============  =================================================
+
+Thresholds are program settings (core.models.ProgramSettings), marked common practice there.
+"""
+from __future__ import annotations
+
+from collections import Counter
+from datetime import datetime
+from typing import Any, Iterable
+
+from core.flags import Flag, Severity
+from core.models import (Calibration, Derived, FlagRecord, ProgramSettings, Site, Stop, Trip)
+
+__all__ = ["TRIP_KEY", "RULE_CODES", "derive_trip", "derive_stop", "derive_calibration",
+           "stop_flags", "trip_flags", "trip_level_flags", "core_version"]
+
+#: Key of trip-level findings (calibrations) in :func:`trip_flags`' result.
+TRIP_KEY = "trip"
+
+RULE_CODES = (
+    "pressure.sea_level_adjusted", "do.supersaturated", "do.below_criterion", "do.hypoxic",
+    "calibration.far_from_target", "calibration.missing", "calibration.post_drift",
+    "bottle.duplicate_label", "bottle.not_fixed", "holding.expired", "holding.soon",
+    "temp.out_of_range", "temp.looks_fahrenheit", "temp.jump", "conductivity.out_of_range",
+    "conductivity.jump", "stop.missing_required", "stop.unknown_site",
+)
+
+
+def core_version() -> str:
+    """The version of the science core that derived values (from core.assess when it says)."""
+    try:
+        import core.assess as assess
+
+        for name in ("CORE_VERSION", "__version__"):
+            if isinstance(getattr(assess, name, None), str):
+                return getattr(assess, name)
+    except ImportError:
+        pass
+    try:
+        from importlib.metadata import version
+
+        return version("streamtab")
+    except Exception:  # noqa: BLE001 - not installed as a distribution
+        return "0+unknown"
+
+
+# --------------------------------------------------------------------------------------------
+# Derive (called by the store inside its one save path)
+# --------------------------------------------------------------------------------------------
+def _criteria_for(site: Site | None, settings: ProgramSettings):
+    crit = settings.criteria()
+    if site is None:
+        return crit, None
+    water_class = site.water_class
+    if site.min_do_mg_l is not None or site.supersaturation_percent is not None:
+        from dataclasses import replace
+
+        changes: dict[str, float] = {}
+        if site.min_do_mg_l is not None:
+            changes["warm_min_mg_l"] = site.min_do_mg_l
+            changes["cold_min_mg_l"] = site.min_do_mg_l
+            water_class = water_class or "warm"
+        if site.supersaturation_percent is not None:
+            changes["supersaturation_percent"] = site.supersaturation_percent
+        crit = replace(crit, **changes)
+    return crit, water_class
+
+
+def derive_stop(stop: Stop, site: Site | None, settings: ProgramSettings) -> Derived | None:
+    """Saturation target, % saturation, salinity and science flags for one stop (None without T and P)."""
+    if stop.temp is None or stop.pressure is None:
+        return None
+    from core.assess import assess_reading
+
+    kwargs: dict[str, Any] = {"method": settings.method}
+    if stop.conductivity is not None:
+        kwargs["conductivity_us_cm"] = stop.conductivity.value
+        kwargs["conductivity_is_sc25"] = stop.conductivity_is_sc25
+    if stop.do is not None:
+        if stop.do.unit == "%":
+            kwargs["do_percent"] = stop.do.value
+        else:
+            kwargs["do_mg_l"] = stop.do.value
+    crit, water_class = _criteria_for(site, settings)
+    kwargs["criteria"] = crit
+    kwargs["water_class"] = water_class
+    if site is not None:
+        kwargs["elevation_m"] = site.elevation_m
+    try:
+        a = assess_reading(stop.temp.value, stop.pressure.value, **kwargs)
+    except ValueError:
+        return None
+    return Derived(
+        do_sat_mg_l=float(a.do_sat_mg_l),
+        percent_saturation=None if a.percent_saturation is None else float(a.percent_saturation),
+        do_mg_l=None if a.do_mg_l is None else float(a.do_mg_l),
+        salinity=float(a.salinity), salinity_source=str(a.salinity_source),
+        specific_conductance_us_cm=(None if a.specific_conductance_us_cm is None
+                                    else float(a.specific_conductance_us_cm)),
+        pressure_hpa=float(a.pressure_hpa), temp_c=float(a.temp_c), method=str(a.method),
+        core_version=str(a.core_version), flags=[FlagRecord.from_flag(f) for f in a.flags])
+
+
+def derive_calibration(cal: Calibration | None, settings: ProgramSettings, *, post: bool) -> Calibration | None:
+    """The calibration with its target, difference, verdict, method and core version filled in."""
+    if cal is None:
+        return None
+    from core.calibration import check_calibration, post_trip_check
+
+    fn = post_trip_check if post else check_calibration
+    try:
+        r = fn(cal.reading_mg_l, cal.temp.value, cal.pressure.value,
+               tolerance_mg_l=cal.tolerance_mg_l, method=settings.method)
+    except ValueError:
+        return cal.model_copy(update={"target_mg_l": None, "difference_mg_l": None, "accepted": None,
+                                      "method": settings.method, "core_version": core_version(),
+                                      "flags": []})
+    return cal.model_copy(update={
+        "target_mg_l": float(r.target_mg_l), "difference_mg_l": float(r.difference_mg_l),
+        "accepted": bool(r.passed), "method": settings.method, "core_version": core_version(),
+        "flags": [FlagRecord.from_flag(f) for f in r.flags]})
+
+
+def derive_trip(trip: Trip, sites: dict[str, Site], settings: ProgramSettings) -> Trip:
+    """The trip with every stop's and calibration's derived values recomputed from the inputs."""
+    stops = [s.model_copy(update={"derived": derive_stop(s, sites.get(s.site_id), settings)})
+             for s in trip.stops]
+    return trip.model_copy(update={
+        "stops": stops,
+        "pre_calibration": derive_calibration(trip.pre_calibration, settings, post=False),
+        "post_check": derive_calibration(trip.post_check, settings, post=True),
+    })
+
+
+# --------------------------------------------------------------------------------------------
+# Rules
+# --------------------------------------------------------------------------------------------
+def _flag(code: str, severity: Severity, message: str, action: str, field: str | None = None) -> Flag:
+    return Flag(code=code, severity=severity, message=message, action=action, field=field)
+
+
+def _holding_kind(kind: str) -> str | None:
+    return {"do-fixed": "do_winkler", "bod": "bod"}.get(kind)
+
+
+def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Site | None = None,
+               previous: Stop | None = None, labels_in_trip: Counter | None = None,
+               other_bottle_labels: dict[str, str] | None = None, trip_id: str | None = None,
+               sites_known: bool = False) -> list[Flag]:
+    """Every finding for one stop, worst first: stored science flags, then the QC rules.
+
+    `previous` is the stop before it on the route (for jump checks); `labels_in_trip` counts
+    bottle labels in the whole trip; `other_bottle_labels` maps labels on the device to their
+    trip id; `sites_known` says the site list was given (so an unknown site is worth a flag).
+    """
+    flags: list[Flag] = []
+    if stop.derived is not None:
+        flags.extend(f.to_flag() for f in stop.derived.flags)
+    d = stop.derived
+
+    # Site and elevation
+    if sites_known and site is None:
+        flags.append(_flag("stop.unknown_site", Severity.WARNING,
+                           f"Site {stop.site_id} is not in the site list, so its elevation and criteria are unknown.",
+                           "Import the site list or correct the site code.", "site_id"))
+    if site is not None and stop.pressure is not None:
+        from core.pressure import sea_level_adjusted_flag
+
+        try:
+            f = sea_level_adjusted_flag(stop.pressure.value, site.elevation_m)
+        except ValueError:
+            f = None
+        if f is not None:
+            flags.append(f)
+
+    # Criteria and supersaturation, from the derived values
+    if d is not None and (d.do_mg_l is not None or d.percent_saturation is not None):
+        from core.criteria import do_criteria_flags
+
+        crit, water_class = _criteria_for(site, settings)
+        try:
+            flags.extend(do_criteria_flags(d.do_mg_l, d.percent_saturation, water_class, crit))
+        except ValueError:
+            pass
+
+    # Plausible ranges and °F look
+    if stop.temp is not None:
+        lo, hi = settings.temp_plausible_c
+        t = stop.temp.value
+        if not (lo <= t <= hi):
+            flags.append(_flag("temp.out_of_range", Severity.WARNING,
+                               f"Water temperature {t:g} °C is outside the plausible {lo:g}–{hi:g} °C for a stream.",
+                               "Check the probe and the unit, and re-read if you can.", "temp"))
+        from core.temperature import fahrenheit_hint
+
+        try:
+            f = fahrenheit_hint(t)
+        except ValueError:
+            f = None
+        if f is not None:
+            flags.append(f)
+    if stop.conductivity is not None:
+        lo, hi = settings.conductivity_plausible_us_cm
+        c = stop.conductivity.value
+        if not (lo <= c <= hi):
+            flags.append(_flag("conductivity.out_of_range", Severity.WARNING,
+                               f"Conductivity {c:g} µS/cm is outside the plausible {lo:g}–{hi:g} µS/cm for a stream.",
+                               "Check the unit (µS/cm or mS/cm), rinse the cell and re-read.", "conductivity"))
+
+    # Jumps from the previous stop
+    if previous is not None:
+        if stop.temp is not None and previous.temp is not None:
+            jump = abs(stop.temp.value - previous.temp.value)
+            if jump > settings.temp_jump_c:
+                flags.append(_flag("temp.jump", Severity.WARNING,
+                                   f"Water temperature changed by {jump:.1f} °C since the previous stop "
+                                   f"({previous.site_id}), more than {settings.temp_jump_c:g} °C.",
+                                   "Confirm the reading and that the probe had settled.", "temp"))
+        if stop.conductivity is not None and previous.conductivity is not None:
+            a, b = stop.conductivity.value, previous.conductivity.value
+            if min(a, b) > 0:
+                ratio = max(a, b) / min(a, b)
+                if ratio > settings.conductivity_jump_ratio:
+                    flags.append(_flag("conductivity.jump", Severity.WARNING,
+                                       f"Conductivity changed by a factor of {ratio:.1f} since the previous stop "
+                                       f"({previous.site_id}), more than {settings.conductivity_jump_ratio:g}×.",
+                                       "Check for a tributary or discharge, or a unit mix-up, and re-read.",
+                                       "conductivity"))
+
+    # Required fields when the stop is closed
+    if stop.closed_at is not None:
+        missing = [label for name, label in (("temp", "water temperature"), ("pressure", "station pressure"),
+                                             ("do", "meter DO")) if getattr(stop, name) is None]
+        if missing:
+            flags.append(_flag("stop.missing_required", Severity.STOP,
+                               f"The stop at {stop.site_id} was closed without {', '.join(missing)}.",
+                               "Reopen the stop and enter the missing readings, or note why they are missing.",
+                               missing[0].split()[-1] if len(missing) == 1 else None))
+
+    # Bottles: labels and holding times
+    others = other_bottle_labels or {}
+    for b in stop.bottles:
+        if labels_in_trip is not None and labels_in_trip.get(b.label, 0) > 1:
+            flags.append(_flag("bottle.duplicate_label", Severity.STOP,
+                               f"Bottle ID {b.label} is used more than once in this trip.",
+                               "Check the bottle labels and correct the ID typed or scanned.", "label"))
+        elif b.label in others and others[b.label] != trip_id:
+            flags.append(_flag("bottle.duplicate_label", Severity.STOP,
+                               f"Bottle ID {b.label} is already used on this device (trip {others[b.label][:8]}).",
+                               "Check the bottle label; relabel the bottle if it was reused.", "label"))
+        if b.kind == "do-fixed" and b.fixed_at is None:
+            flags.append(_flag("bottle.not_fixed", Severity.WARNING,
+                               f"DO bottle {b.label} has no fixing time; Winkler samples are fixed on site.",
+                               "Fix the sample now (see the SOP for reagent handling) and record the time.",
+                               "fixed_at"))
+        kind = _holding_kind(b.kind)
+        if kind is not None and not b.lab_results:
+            from core.holding import holding_clock
+
+            try:
+                clock = holding_clock(kind, b.collected_at, now, fixed_at=b.fixed_at,
+                                      overrides=settings.holding_overrides_h or None)
+            except (ValueError, KeyError):
+                clock = None
+            if clock is not None and clock.flag is not None:
+                flags.append(clock.flag)
+    return _dedupe(flags)
+
+
+def _dedupe(flags: Iterable[Flag]) -> list[Flag]:
+    seen: set[tuple[str, str | None, str]] = set()
+    out: list[Flag] = []
+    for f in flags:
+        key = (f.code, f.field, f.message)
+        if key in seen:
+            continue
+        seen.add(key)
+        out.append(f)
+    out.sort(key=lambda f: -Severity(f.severity).rank)
+    return out
+
+
+def trip_level_flags(trip: Trip, settings: ProgramSettings) -> list[Flag]:
+    """Calibration findings for the whole trip."""
+    flags: list[Flag] = []
+    pre = trip.pre_calibration
+    if pre is None:
+        if trip.stops:
+            flags.append(_flag("calibration.missing", Severity.WARNING,
+                               "No pre-trip calibration is recorded for this trip.",
+                               "Record the air calibration (or note why none was done) before relying on the DO readings.",
+                               "pre_calibration"))
+    else:
+        flags.extend(f.to_flag() for f in pre.flags)
+        if pre.accepted is False and pre.target_mg_l is not None:
+            flags.append(_flag("calibration.far_from_target", Severity.STOP,
+                               f"The pre-trip meter reading {pre.reading_mg_l:g} mg/L is {abs(pre.difference_mg_l or 0):.2f}"
+                               f" mg/L from the target {pre.target_mg_l:.2f} mg/L (tolerance ±{pre.tolerance_mg_l:g}).",
+                               "Recalibrate the meter (check the membrane and the calibration chamber) before measuring.",
+                               "pre_calibration"))
+    post = trip.post_check
+    if post is not None:
+        flags.extend(f.to_flag() for f in post.flags)
+        if post.accepted is False and post.target_mg_l is not None:
+            flags.append(_flag("calibration.post_drift", Severity.STOP,
+                               f"The post-trip check read {post.reading_mg_l:g} mg/L against a target of "
+                               f"{post.target_mg_l:.2f} mg/L: drift of {abs(post.difference_mg_l or 0):.2f} mg/L, beyond "
+                               f"±{post.tolerance_mg_l:g} mg/L.",
+                               "Mark this trip's meter DO as suspect per the SOP and service the sensor.",
+                               "post_check"))
+    return _dedupe(flags)
+
+
+def trip_flags(trip: Trip, settings: ProgramSettings, now: datetime, other_bottle_labels: dict[str, str] | None = None,
+               sites: dict[str, Site] | None = None) -> dict[str, list[Flag]]:
+    """Findings per stop id, in route order, plus trip-level ones under :data:`TRIP_KEY`.
+
+    `other_bottle_labels` (label → trip id, e.g. DeviceStore.bottle_labels_in_use()) lets the
+    duplicate check look across the device; labels of this trip itself are ignored there.
+    """
+    labels = Counter(b.label for s in trip.stops for b in s.bottles)
+    route = sorted(trip.stops, key=lambda s: s.arrived_at)
+    out: dict[str, list[Flag]] = {TRIP_KEY: trip_level_flags(trip, settings)}
+    prev: Stop | None = None
+    for stop in route:
+        site = sites.get(stop.site_id) if sites is not None else None
+        out[stop.id] = stop_flags(stop, settings, now, site=site, previous=prev, labels_in_trip=labels,
+                                  other_bottle_labels=other_bottle_labels, trip_id=trip.id,
+                                  sites_known=sites is not None)
+        prev = stop
+    return out

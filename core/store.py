@@ -1,0 +1,689 @@
+"""The device store: one small TinyDB file per trip, a small index, one save path, a lock, quarantine.
+
+Layout of a data folder::
+
+    device.json         this device's id
+    trips/<trip>.json   one TinyDB file per trip (table "trip", document 1 = the trip document)
+    index/<trip>.json   the trip's summary (what `list_trips` shows), rewritten after the trip file
+    sites.json          TinyDB, table "sites" (one document per site)
+    settings.json       TinyDB, table "settings" (document 1 = program settings)
+    quarantine/         unreadable files, moved here and never overwritten
+    .lock               inter-process lock (filelock)
+
+Every write goes through :class:`AtomicJSONStorage` (temporary file, fsync, ``os.replace``,
+fsync of the folder), so a reader or a crash sees the old file or the new one, never a part.
+A save costs the same whatever the number of trips: it rewrites one trip file and one summary.
+Every trip change goes through one funnel (:meth:`DeviceStore._commit`): validate → derive →
+compare → audit → write.
+"""
+from __future__ import annotations
+
+import json
+import os
+import re
+import threading
+import time
+from contextlib import contextmanager
+from dataclasses import asdict, dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any, Callable, Iterator
+
+from filelock import FileLock, Timeout
+from pydantic import ValidationError
+from tinydb import TinyDB
+from tinydb.storages import Storage
+from tinydb.table import Document
+
+from core.atomic import atomic_write_bytes, canonical_json_bytes, content_hash
+from core.messages import Problem, one_line, problems_from_validation
+from core.models import SCHEMA_VERSION, AuditEntry, ProgramSettings, Site, Stop, Trip, new_id
+from core.paths import resolve_data_dir
+
+__all__ = [
+    "StoreError", "StoreLocked", "NewerSchemaError", "TripNotFound", "InvalidRecord", "StaleTrip",
+    "CorruptFile", "TripSummary", "AtomicJSONStorage", "DeviceStore", "diff_paths",
+]
+
+
+# --------------------------------------------------------------------------------------------
+# Errors
+# --------------------------------------------------------------------------------------------
+class StoreError(Exception):
+    """Root of every device-store error; str() is one sentence a person can act on."""
+
+
+class StoreLocked(StoreError):
+    """Another process (the app, a command-line sync) holds the store's lock for too long."""
+
+
+class NewerSchemaError(StoreError):
+    """A document written by a newer build than this one; it is left untouched."""
+
+    def __init__(self, message: str, found: int | None = None, known: int = SCHEMA_VERSION):
+        super().__init__(message)
+        self.found = found
+        self.known = known
+
+
+class TripNotFound(StoreError):
+    """No trip with that id on this device."""
+
+
+class InvalidRecord(StoreError):
+    """A record failed validation; `problems` holds every finding (code, field, label, message)."""
+
+    def __init__(self, message: str, problems: list[Problem] | None = None):
+        super().__init__(message)
+        self.problems = list(problems or [])
+
+
+class StaleTrip(StoreError):
+    """The trip was changed (by another save or a sync) since this copy was loaded."""
+
+
+class CorruptFile(StoreError):
+    """A stored file could not be read; it was moved to quarantine (see `path`)."""
+
+    def __init__(self, message: str, path: Path | None = None):
+        super().__init__(message)
+        self.path = path
+
+
+# --------------------------------------------------------------------------------------------
+# TinyDB storage that never leaves a half-written file
+# --------------------------------------------------------------------------------------------
+class AtomicJSONStorage(Storage):
+    """TinyDB storage: `read()` parses the file (None when absent); `write()` replaces it atomically.
+
+    Unlike TinyDB's JSONStorage it never rewrites a file in place: each write goes to a temporary
+    file that is fsynced, moved over the old one with ``os.replace``, and the folder fsynced.
+    A file that does not parse raises ``ValueError`` (the store quarantines it).
+    """
+
+    def __init__(self, path: str | Path, **_: Any):
+        super().__init__()
+        self.path = Path(path)
+
+    def read(self) -> dict[str, Any] | None:
+        try:
+            raw = self.path.read_bytes()
+        except FileNotFoundError:
+            return None
+        if not raw.strip():
+            raise ValueError("the file is empty")
+        try:
+            data = json.loads(raw)
+        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+            raise ValueError(f"the file is not valid JSON ({exc})") from None
+        if not isinstance(data, dict):
+            raise ValueError("the file does not hold a table map")
+        return data
+
+    def write(self, data: dict[str, Any]) -> None:
+        atomic_write_bytes(self.path, canonical_json_bytes(data))
+
+    def close(self) -> None:
+        pass
+
+
+def _tinydb(path: Path) -> TinyDB:
+    return TinyDB(path, storage=AtomicJSONStorage)
+
+
+# --------------------------------------------------------------------------------------------
+# Summaries and diffs
+# --------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class TripSummary:
+    """What the trip list shows, read from the small index (times are ISO 8601 text)."""
+
+    id: str
+    program: str
+    crew: list[str]
+    started_at: str
+    ended_at: str | None
+    revision: int
+    status: str
+    stop_count: int
+    updated_at: str | None
+    content_hash: str
+    schema_version: int = SCHEMA_VERSION
+    open_conflicts: int = 0
+    bottle_labels: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict[str, Any]:
+        return asdict(self)
+
+
+def _summary_of(doc: dict[str, Any]) -> TripSummary:
+    stops = doc.get("stops") or []
+    conflicts = [c for c in (doc.get("conflicts") or []) if not c.get("resolved_at")]
+    if conflicts:
+        status = "needs attention"
+    elif doc.get("schema_version", 0) > SCHEMA_VERSION:
+        status = "newer build"
+    else:
+        status = "in progress" if not doc.get("ended_at") else "ended"
+    labels = [b.get("label", "") for s in stops for b in (s.get("bottles") or [])]
+    return TripSummary(
+        id=doc["id"], program=doc.get("program", ""), crew=list(doc.get("crew") or []),
+        started_at=doc.get("started_at", ""), ended_at=doc.get("ended_at"),
+        revision=int(doc.get("revision", 0)), status=status, stop_count=len(stops),
+        updated_at=doc.get("updated_at"), content_hash=content_hash(doc),
+        schema_version=int(doc.get("schema_version", 0)), open_conflicts=len(conflicts),
+        bottle_labels=labels)
+
+
+_BOOKKEEPING = ("revision", "updated_at")
+_NOT_CHANGES = {"revision", "updated_at", "audit", "derived", "flags", "target_mg_l",
+                "difference_mg_l", "accepted", "method", "core_version"}
+
+
+def _content(doc: dict[str, Any]) -> dict[str, Any]:
+    return {k: v for k, v in doc.items() if k not in _BOOKKEEPING}
+
+
+def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[str]:
+    """Field paths that differ between two documents; list elements are matched by `id`.
+
+    Paths look like ``stops[<id>].temp.value``; derived values and bookkeeping are left out
+    (they follow from the inputs). At most `limit` paths.
+    """
+    out: list[str] = []
+
+    def walk(a: Any, b: Any, path: str) -> None:
+        if len(out) >= limit or a == b:
+            return
+        if isinstance(a, dict) and isinstance(b, dict):
+            for key in sorted(set(a) | set(b)):
+                if key in _NOT_CHANGES:
+                    continue
+                walk(a.get(key), b.get(key), f"{path}.{key}" if path else key)
+            return
+        if (isinstance(a, list) and isinstance(b, list)
+                and all(isinstance(x, dict) and "id" in x for x in a + b)):
+            old_by = {x["id"]: x for x in a}
+            new_by = {x["id"]: x for x in b}
+            for key in list(old_by) + [k for k in new_by if k not in old_by]:
+                walk(old_by.get(key), new_by.get(key), f"{path}[{key}]")
+            return
+        out.append(path or "(document)")
+
+    walk(old, new, prefix)
+    return out
+
+
+_SAFE_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")
+
+
+def _utcnow() -> datetime:
+    return datetime.now(timezone.utc)
+
+
+# --------------------------------------------------------------------------------------------
+# The store
+# --------------------------------------------------------------------------------------------
+class DeviceStore:
+    """The trips, sites and settings on one device. Open with :meth:`DeviceStore.open`.
+
+    Every trip change goes through :meth:`save_trip` or :meth:`put_document`, both of which run
+    validate → derive → write under the inter-process lock. Reads need no lock (files are only
+    ever replaced whole). Store work does disk I/O: call it off the UI thread.
+    """
+
+    def __init__(self, data_dir: Path, device_id: str, *, clock: Callable[[], datetime] | None = None,
+                 lock_timeout_s: float = 5.0):
+        self.data_dir = Path(data_dir)
+        self.device_id = device_id
+        self._clock = clock or _utcnow
+        self.lock_timeout_s = lock_timeout_s
+        self._trips_dir = self.data_dir / "trips"
+        self._index_dir = self.data_dir / "index"
+        self._quarantine_dir = self.data_dir / "quarantine"
+        self._lock = FileLock(str(self.data_dir / ".lock"), timeout=lock_timeout_s)
+        self._tlock = threading.RLock()
+        self._sites_cache: tuple[tuple[int, int], dict[str, Site]] | None = None
+        self._settings_cache: tuple[tuple[int, int], ProgramSettings] | None = None
+
+    # -- opening ---------------------------------------------------------------------------
+    @classmethod
+    def open(cls, data_dir: Path | str | None = None, device_id: str | None = None, *,
+             clock: Callable[[], datetime] | None = None, lock_timeout_s: float = 5.0) -> "DeviceStore":
+        """Opens (creating if needed) the store at `data_dir` (else $STREAMTAB_DATA, else the user folder).
+
+        Leftover temporary files from an interrupted write are removed and the index is brought
+        up to date with the trip files. `device_id` is remembered in device.json the first time;
+        when omitted, the remembered one (or a new one) is used.
+        """
+        root = resolve_data_dir(data_dir)
+        for sub in ("", "trips", "index", "quarantine"):
+            (root / sub).mkdir(parents=True, exist_ok=True)
+        store = cls(root, device_id or "", clock=clock, lock_timeout_s=lock_timeout_s)
+        with store._locked():
+            remembered = store._read_device_id()
+            if not remembered:
+                remembered = device_id or f"dev-{new_id()[:13].replace('-', '')}"
+                atomic_write_bytes(root / "device.json",
+                                   canonical_json_bytes({"device_id": remembered}))
+            store.device_id = device_id or remembered
+            store._clean_temp_files()
+            store._repair_index()
+        return store
+
+    def _read_device_id(self) -> str | None:
+        path = self.data_dir / "device.json"
+        try:
+            return str(json.loads(path.read_bytes())["device_id"]) or None
+        except FileNotFoundError:
+            return None
+        except (ValueError, KeyError, TypeError):
+            self._quarantine(path, "device.json could not be read")
+            return None
+
+    def _clean_temp_files(self) -> None:
+        for folder in (self.data_dir, self._trips_dir, self._index_dir):
+            for tmp in folder.glob(".*.tmp"):
+                try:
+                    tmp.unlink()
+                except FileNotFoundError:
+                    pass
+
+    def _repair_index(self) -> None:
+        """Rebuilds summaries that are missing or older than their trip file; drops orphans."""
+        trips = {p.stem: p for p in self._trips_dir.glob("*.json")}
+        index = {p.stem: p for p in self._index_dir.glob("*.json")}
+        for orphan in set(index) - set(trips):
+            index[orphan].unlink(missing_ok=True)
+        for trip_id, path in trips.items():
+            ipath = index.get(trip_id)
+            if ipath is not None:
+                try:
+                    if ipath.stat().st_mtime_ns >= path.stat().st_mtime_ns:
+                        continue
+                except FileNotFoundError:
+                    pass
+            try:
+                doc = self._read_trip_doc_raw(trip_id)
+            except CorruptFile:
+                continue
+            if doc is not None:
+                self._write_summary(doc)
+
+    # -- locking ---------------------------------------------------------------------------
+    @contextmanager
+    def _locked(self) -> Iterator[None]:
+        with self._tlock:
+            try:
+                self._lock.acquire(timeout=self.lock_timeout_s)
+            except Timeout:
+                raise StoreLocked(
+                    f"The device store at {self.data_dir} is busy in another program (the app or a"
+                    f" sync) and did not come free within {self.lock_timeout_s:g} s; let it finish"
+                    f" and try again.") from None
+            try:
+                yield
+            finally:
+                self._lock.release()
+
+    # -- quarantine ------------------------------------------------------------------------
+    def _quarantine(self, path: Path, reason: str) -> Path:
+        self._quarantine_dir.mkdir(parents=True, exist_ok=True)
+        stamp = time.strftime("%Y%m%dT%H%M%S", time.gmtime())
+        target = self._quarantine_dir / f"{path.name}.{stamp}"
+        n = 1
+        while target.exists():
+            n += 1
+            target = self._quarantine_dir / f"{path.name}.{stamp}.{n}"
+        try:
+            os.replace(path, target)
+        except FileNotFoundError:
+            return target
+        atomic_write_bytes(target.with_name(target.name + ".reason.txt"), (reason + "\n").encode())
+        return target
+
+    def quarantined(self) -> list[Path]:
+        """Files moved aside because they could not be read (oldest first), by name."""
+        return sorted((p for p in self._quarantine_dir.glob("*") if not p.name.endswith(".reason.txt")),
+                      key=lambda p: (p.stat().st_mtime_ns, p.name))
+
+    # -- reading trips ---------------------------------------------------------------------
+    def _trip_path(self, trip_id: str) -> Path:
+        if not isinstance(trip_id, str) or not _SAFE_ID.match(trip_id):
+            raise TripNotFound(f"No trip with id {trip_id!r} on this device (ids are letters, digits, '-', '_', '.').")
+        return self._trips_dir / f"{trip_id}.json"
+
+    def _read_trip_doc_raw(self, trip_id: str) -> dict[str, Any] | None:
+        """The stored document as written (no migration), None when absent; quarantines junk."""
+        path = self._trip_path(trip_id)
+        try:
+            data = _tinydb(path).table("trip").get(doc_id=1)
+        except ValueError as exc:
+            target = self._quarantine(path, str(exc))
+            (self._index_dir / path.name).unlink(missing_ok=True)
+            raise CorruptFile(f"The trip file {path.name} could not be read ({exc}); it was moved to"
+                              f" {target} and the rest of the store keeps working.", target) from None
+        if data is None:
+            if path.exists():
+                target = self._quarantine(path, "no trip document inside")
+                (self._index_dir / path.name).unlink(missing_ok=True)
+                raise CorruptFile(f"The trip file {path.name} holds no trip; it was moved to {target}.",
+                                  target)
+            return None
+        doc = dict(data)
+        if doc.get("id") != trip_id:
+            target = self._quarantine(path, f"id inside is {doc.get('id')!r}")
+            (self._index_dir / path.name).unlink(missing_ok=True)
+            raise CorruptFile(f"The trip file {path.name} holds a different trip id; it was moved to"
+                              f" {target}.", target)
+        return doc
+
+    def _load(self, trip_id: str) -> tuple[Trip, dict[str, Any]]:
+        from core.migrations import migrate
+
+        raw = self._read_trip_doc_raw(trip_id)
+        if raw is None:
+            raise TripNotFound(f"No trip {trip_id} on this device; see 'streamtab trip list'.")
+        doc = migrate(raw)  # raises NewerSchemaError, leaving the file untouched
+        try:
+            trip = Trip.from_document(doc)
+        except (ValidationError, ValueError) as exc:
+            path = self._trip_path(trip_id)
+            probs = problems_from_validation(exc) if isinstance(exc, ValidationError) else []
+            reason = one_line(probs) if probs else str(exc)
+            target = self._quarantine(path, reason)
+            (self._index_dir / path.name).unlink(missing_ok=True)
+            raise CorruptFile(f"The trip file {path.name} failed validation ({reason}); it was moved"
+                              f" to {target} and the rest of the store keeps working.", target) from None
+        return trip, raw
+
+    def load_trip(self, trip_id: str) -> Trip:
+        """The trip with that id (migrated from an older schema in memory if needed).
+
+        Raises TripNotFound, NewerSchemaError (file left untouched) or CorruptFile (moved to
+        quarantine).
+        """
+        return self._load(trip_id)[0]
+
+    def trip_document(self, trip_id: str) -> dict[str, Any]:
+        """The stored JSON document of a trip, as exchanged with hubs (no migration applied).
+
+        ``core.atomic.canonical_json_bytes`` of it is the wire form.
+        """
+        doc = self._read_trip_doc_raw(trip_id)
+        if doc is None:
+            raise TripNotFound(f"No trip {trip_id} on this device; see 'streamtab trip list'.")
+        return doc
+
+    def has_trip(self, trip_id: str) -> bool:
+        try:
+            return self._trip_path(trip_id).exists()
+        except TripNotFound:
+            return False
+
+    def list_trips(self) -> list[TripSummary]:
+        """Every trip's summary, newest start first, from the small index."""
+        out: list[TripSummary] = []
+        for ipath in self._index_dir.glob("*.json"):
+            try:
+                data = json.loads(ipath.read_bytes())
+                out.append(TripSummary(**data))
+            except FileNotFoundError:
+                continue
+            except (ValueError, TypeError):
+                # The index is derived: rebuild the entry from the trip file.
+                try:
+                    doc = self._read_trip_doc_raw(ipath.stem)
+                except (CorruptFile, TripNotFound):
+                    continue
+                if doc is None:
+                    ipath.unlink(missing_ok=True)
+                    continue
+                with self._locked():
+                    out.append(self._write_summary(doc))
+        out.sort(key=lambda s: (s.started_at, s.id), reverse=True)
+        return out
+
+    def bottle_labels_in_use(self) -> dict[str, str]:
+        """Bottle label → trip id, over every trip on the device (for duplicate checks)."""
+        labels: dict[str, str] = {}
+        for s in self.list_trips():
+            for label in s.bottle_labels:
+                labels.setdefault(label, s.id)
+        return labels
+
+    # -- the one save path -----------------------------------------------------------------
+    def save_trip(self, trip: Trip, change: str) -> Trip:
+        """THE save path: validate → derive → write, with an audit entry and revision + 1.
+
+        `change` says what was done in a few words ("stop LK-02 readings"). Returns the trip as
+        stored. A save whose content equals the stored trip writes nothing. Raises InvalidRecord
+        (nothing written), StaleTrip when the stored revision moved on since `trip` was loaded,
+        NewerSchemaError, StoreLocked.
+        """
+        doc = self._dump(trip)
+        with self._locked():
+            stored = self._stored_or_none(doc["id"])
+            if stored is not None and int(stored.get("revision", 0)) != int(doc.get("revision", 0)):
+                raise StaleTrip(
+                    f"Trip {doc['id']} was changed elsewhere (stored revision {stored.get('revision')},"
+                    f" this copy {doc.get('revision')}); reload it and make the change again.")
+            base = int(stored["revision"]) if stored is not None else int(doc.get("revision", 0))
+            return self._commit(doc, stored, change, base)
+
+    def put_document(self, doc: dict[str, Any], change: str) -> Trip:
+        """Runs a foreign trip document (an import, a sync pull) through the same save path.
+
+        The document is migrated, validated strictly and derived again; when its content (all
+        but revision and updated_at) equals the stored trip, nothing is written and the stored
+        trip is returned. Otherwise it is written with revision max(stored, incoming) + 1 and an
+        audit entry. Raises InvalidRecord, NewerSchemaError (nothing written), StoreLocked.
+        """
+        from core.migrations import migrate
+
+        if not isinstance(doc, dict):
+            raise InvalidRecord("A trip document must be a JSON object.")
+        doc = migrate(doc)
+        trip = self._validate_doc(doc)
+        clean = self._dump(trip)
+        with self._locked():
+            stored = self._stored_or_none(clean["id"])
+            base = max(int(clean.get("revision", 0)),
+                       int(stored.get("revision", 0)) if stored is not None else 0)
+            return self._commit(clean, stored, change, base)
+
+    def save_stop(self, trip_id: str, stop: Stop, change: str | None = None) -> Trip:
+        """Adds or replaces (by id) one stop of a stored trip and saves through :meth:`save_trip`."""
+        with self._locked():
+            trip = self.load_trip(trip_id)
+            stops = list(trip.stops)
+            for i, s in enumerate(stops):
+                if s.id == stop.id:
+                    stops[i] = stop
+                    break
+            else:
+                stops.append(stop)
+            updated = trip.model_copy(update={"stops": stops})
+            return self.save_trip(updated, change or f"stop at {stop.site_id} saved")
+
+    def _stored_or_none(self, trip_id: str) -> dict[str, Any] | None:
+        from core.migrations import migrate
+
+        raw = self._read_trip_doc_raw(trip_id)
+        if raw is None:
+            return None
+        return migrate(raw)
+
+    @staticmethod
+    def _validate_doc(doc: dict[str, Any]) -> Trip:
+        try:
+            return Trip.from_document(doc)
+        except ValidationError as exc:
+            probs = problems_from_validation(exc)
+            raise InvalidRecord(one_line(probs), probs) from None
+        except ValueError as exc:  # NaN or infinity in the document
+            raise InvalidRecord(f"The trip document holds a value JSON cannot carry ({exc}).") from None
+
+    def _dump(self, trip: Trip) -> dict[str, Any]:
+        if not isinstance(trip, Trip):
+            raise InvalidRecord("save_trip needs a Trip record.")
+        try:
+            doc = trip.model_dump(mode="json")
+        except Exception as exc:  # a value that cannot be serialised, e.g. set on a frozen copy
+            raise InvalidRecord(f"The trip could not be written as JSON ({exc}).") from None
+        # Re-validate: attributes may have been assigned after construction.
+        return self._validate_doc(doc).model_dump(mode="json")
+
+    def _commit(self, doc: dict[str, Any], stored: dict[str, Any] | None, change: str,
+                base_revision: int) -> Trip:
+        """The funnel: derive, compare, audit, write trip file, then its summary. Lock held."""
+        from core.qc import derive_trip
+
+        trip = Trip.model_validate_json(canonical_json_bytes(doc))
+        trip = derive_trip(trip, self.sites_by_id(), self.settings())
+        new_doc = trip.model_dump(mode="json")
+        if not trip.device_id:
+            new_doc["device_id"] = self.device_id
+        if stored is not None:
+            new_doc["device_id"] = stored.get("device_id") or new_doc["device_id"]
+            if _content(stored) == _content(new_doc):
+                return Trip.from_document(stored)
+        now = self._clock().astimezone(timezone.utc)
+        revision = base_revision + 1
+        entry = AuditEntry(at=now, device_id=self.device_id, change=str(change)[:400] or "saved",
+                           revision=revision,
+                           fields=diff_paths(stored, new_doc) if stored is not None else ["(new trip)"])
+        new_doc["audit"] = list(new_doc.get("audit") or []) + [entry.model_dump(mode="json")]
+        new_doc["revision"] = revision
+        new_doc["updated_at"] = entry.model_dump(mode="json")["at"]
+        new_doc["schema_version"] = SCHEMA_VERSION
+        _tinydb(self._trip_path(new_doc["id"])).table("trip").upsert(Document(new_doc, doc_id=1))
+        self._write_summary(new_doc)
+        return Trip.from_document(new_doc)
+
+    def _write_summary(self, doc: dict[str, Any]) -> TripSummary:
+        summary = _summary_of(doc)
+        atomic_write_bytes(self._index_dir / f"{doc['id']}.json", canonical_json_bytes(summary.to_dict()))
+        return summary
+
+    # -- sites and settings ----------------------------------------------------------------
+    @staticmethod
+    def _stamp(path: Path) -> tuple[int, int]:
+        try:
+            st = path.stat()
+            return (st.st_mtime_ns, st.st_size)
+        except FileNotFoundError:
+            return (0, 0)
+
+    def _read_table(self, name: str, path: Path) -> dict[str, Any]:
+        try:
+            data = AtomicJSONStorage(path).read()
+        except ValueError as exc:
+            target = self._quarantine(path, str(exc))
+            raise CorruptFile(f"The file {path.name} could not be read ({exc}); it was moved to {target}.",
+                              target) from None
+        return (data or {}).get(name, {}) or {}
+
+    def sites_by_id(self) -> dict[str, Site]:
+        path = self.data_dir / "sites.json"
+        stamp = self._stamp(path)
+        if self._sites_cache is not None and self._sites_cache[0] == stamp:
+            return dict(self._sites_cache[1])
+        try:
+            table = self._read_table("sites", path)
+        except CorruptFile:
+            table = {}
+        sites: dict[str, Site] = {}
+        for doc in table.values():
+            try:
+                site = Site.model_validate_json(canonical_json_bytes(doc))
+            except (ValidationError, ValueError):
+                continue
+            sites[site.id] = site
+        self._sites_cache = (stamp, sites)
+        return dict(sites)
+
+    def sites(self) -> list[Site]:
+        """Every site, by id."""
+        return sorted(self.sites_by_id().values(), key=lambda s: s.id)
+
+    def save_site(self, site: Site) -> Site:
+        """Adds or replaces one site (by its id)."""
+        return self.save_sites([site])[0]
+
+    def save_sites(self, sites: list[Site]) -> list[Site]:
+        """Adds or replaces several sites in one atomic write (all or nothing)."""
+        checked: list[Site] = []
+        for site in sites:
+            try:
+                checked.append(Site.model_validate_json(canonical_json_bytes(site.model_dump(mode="json"))))
+            except ValidationError as exc:
+                probs = problems_from_validation(exc)
+                raise InvalidRecord(one_line(probs), probs) from None
+        path = self.data_dir / "sites.json"
+        with self._locked():
+            data = AtomicJSONStorage(path).read() or {}
+            table = dict(data.get("sites") or {})
+            by_site = {doc.get("id"): key for key, doc in table.items()}
+            next_key = max((int(k) for k in table), default=0) + 1
+            for site in checked:
+                key = by_site.get(site.id)
+                if key is None:
+                    key = str(next_key)
+                    next_key += 1
+                    by_site[site.id] = key
+                table[key] = site.model_dump(mode="json")
+            data["sites"] = table
+            AtomicJSONStorage(path).write(data)
+            self._sites_cache = None
+        return checked
+
+    def settings(self) -> ProgramSettings:
+        """The program settings (defaults until saved)."""
+        path = self.data_dir / "settings.json"
+        stamp = self._stamp(path)
+        if self._settings_cache is not None and self._settings_cache[0] == stamp:
+            return self._settings_cache[1]
+        try:
+            table = self._read_table("settings", path)
+        except CorruptFile:
+            table = {}
+        doc = table.get("1")
+        settings = ProgramSettings()
+        if doc is not None:
+            if int(doc.get("schema_version", 0)) > SCHEMA_VERSION:
+                raise NewerSchemaError("The settings were saved by a newer streamtab; update this one.",
+                                       doc.get("schema_version"))
+            try:
+                settings = ProgramSettings.model_validate_json(canonical_json_bytes(doc))
+            except (ValidationError, ValueError):
+                settings = ProgramSettings()
+        self._settings_cache = (stamp, settings)
+        return settings
+
+    def save_settings(self, s: ProgramSettings) -> ProgramSettings:
+        """Replaces the program settings."""
+        try:
+            checked = ProgramSettings.model_validate_json(canonical_json_bytes(s.model_dump(mode="json")))
+        except ValidationError as exc:
+            probs = problems_from_validation(exc)
+            raise InvalidRecord(one_line(probs), probs) from None
+        with self._locked():
+            _tinydb(self.data_dir / "settings.json").table("settings").upsert(
+                Document(checked.model_dump(mode="json"), doc_id=1))
+            self._settings_cache = None
+        return checked
+
+    # -- checks ----------------------------------------------------------------------------
+    def verify(self) -> list[Path]:
+        """Reads every trip file; unreadable ones are quarantined. Returns the newly quarantined."""
+        moved: list[Path] = []
+        for path in sorted(self._trips_dir.glob("*.json")):
+            try:
+                self._load(path.stem)
+            except CorruptFile as exc:
+                if exc.path is not None:
+                    moved.append(exc.path)
+            except (NewerSchemaError, TripNotFound):
+                continue
+        return moved
