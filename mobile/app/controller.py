@@ -17,7 +17,7 @@ from typing import Any, Callable
 
 from mobile.app.forms import (BOTTLE_KINDS, FIELD_LABELS, REQUIRED_STOP_FIELDS, BottleForm,
                               CalForm, StopForm, TripForm)
-from mobile.app.numeric import DecimalError, parse_decimal
+from mobile.app.numeric import parse_decimal
 from mobile.app.theme import severity_mark
 
 __all__ = ["AppController", "StopView", "FlagLine", "CalView", "ClockLine", "TripLine",
@@ -30,6 +30,10 @@ REAGENT_CAUTION = ("Fixing reagents: manganous sulfate, alkali-iodide-azide (cau
                    "and the reagent safety data sheets.")
 
 APP_STATE_FILE = "app-state.json"   # where the app was (trip, stop, screen) — UI cursor, not data
+APP_PREFS_FILE = "app-prefs.json"
+# Which holding-time rule (core.holding) a bottle kind follows. Duplicates and blanks of the DO
+# sampling are fixed like their parent Winkler bottles (common practice).
+HOLDING_RULE = {"do_fixed": "do_winkler", "duplicate": "do_winkler", "blank": "do_winkler", "bod": "bod"}   # this device's default units and hub address
 
 
 def _local_now() -> datetime:
@@ -267,29 +271,65 @@ class AppController:
             raise ValueError(f"Elevation {elevation_m:g} m is outside −400 to 5000 m; type it in metres.")
         if any(s.id == code for s in self.sites()):
             raise ValueError(f"Site code {code} is already on this tablet; pick it from the list.")
-        site = self.bridge.make_site(code, name, elevation_m, water_class)
-        saved = self.store.save_site(site)
+        try:
+            site = self.bridge.make_site(code, name, elevation_m, water_class)
+            saved = self.store.save_site(site)
+        except Exception as exc:  # noqa: BLE001 - the records' own one-line message
+            raise ValueError(str(exc)) from None
         self._sites = None
         return saved.id
 
+    def _prefs_path(self) -> Path:
+        return Path(self.store.data_dir) / APP_PREFS_FILE
+
+    def settings(self) -> Any:
+        """The program settings (core.models.ProgramSettings) from the store."""
+        return self.store.settings()
+
     def load_prefs(self) -> None:
+        """Units and hub from this device's app-prefs.json; method, criteria, tolerance from the program settings."""
+        from mobile.app.records_bridge import load_json
+
+        d = load_json(self._prefs_path())
+        prefs = AppPrefs(**{k: v for k, v in d.items() if k in AppPrefs.__dataclass_fields__})
         try:
-            self.prefs = self.bridge.prefs_from_settings(self.store.settings(), AppPrefs)
-        except Exception:  # a store without settings yet: keep the defaults
-            self.prefs = AppPrefs()
+            st = self.store.settings()
+            prefs.method = st.method
+            prefs.warm_min_mg_l = st.warm_min_mg_l
+            prefs.cold_min_mg_l = st.cold_min_mg_l
+            prefs.supersaturation_percent = st.supersaturation_percent
+            prefs.tolerance_mg_l = st.calibration_tolerance_mg_l
+        except Exception:  # noqa: BLE001 - unreadable settings: keep the defaults, the store reports it
+            pass
+        self.prefs = prefs
 
     def save_prefs(self, prefs: AppPrefs) -> None:
+        from dataclasses import asdict
+
+        from core.atomic import atomic_write_bytes
+
+        st = self.store.settings().model_copy(update={
+            "warm_min_mg_l": prefs.warm_min_mg_l, "cold_min_mg_l": prefs.cold_min_mg_l,
+            "supersaturation_percent": prefs.supersaturation_percent,
+            "calibration_tolerance_mg_l": prefs.tolerance_mg_l, "method": prefs.method})
+        self.store.save_settings(st)
+        local = {k: v for k, v in asdict(prefs).items()
+                 if k in ("temp_unit", "pressure_unit", "cond_unit", "do_unit", "sync_target")}
+        atomic_write_bytes(self._prefs_path(), json.dumps(local, indent=1).encode())
         self.prefs = prefs
-        self.store.save_settings(self.bridge.settings_from_prefs(self.store.settings(), prefs))
 
     def trip_lines(self) -> list[TripLine]:
         lines = []
-        for t in sorted(self.store.list_trips(), key=lambda s: str(s.started_at), reverse=True):
-            started = t.started_at if isinstance(t.started_at, datetime) else None
-            title = f"{t.program or 'Trip'} · {t.crew or '—'}"
-            when = fmt_when(started) if started else str(t.started_at or "")
-            status = str(getattr(t, "status", "") or ("ended" if t.ended_at else "open"))
-            lines.append(TripLine(t.id, title, status, f"{when} · {t.stop_count} stops"))
+        for t in self.store.list_trips():
+            try:
+                started = fmt_when(datetime.fromisoformat(t.started_at))
+            except (TypeError, ValueError):
+                started = str(t.started_at or "")
+            crew = ", ".join(t.crew) if isinstance(t.crew, list) else str(t.crew or "")
+            title = f"{t.program or 'Trip'} · {crew or '—'}"
+            status = {"in progress": "open"}.get(t.status, t.status)
+            lines.append(TripLine(t.id, title, status,
+                                  f"{started} · {t.stop_count} stop{'s' if t.stop_count != 1 else ''}"))
         return lines
 
     def open_trip_id(self) -> str | None:
@@ -356,12 +396,14 @@ class AppController:
         self.trip = form
         self.stop_id = None
         self._saved_trip = None
+        self._other_labels = None
         self.save_now(wait=True, change="trip started")
         return None
 
     def open_trip(self, trip_id: str) -> TripForm:
         model = self.store.load_trip(trip_id)
         self._saved_trip = model
+        self._other_labels = None
         self.trip = self.bridge.form_from_trip(model)
         self.stop_id = None
         return self.trip
@@ -376,6 +418,7 @@ class AppController:
                 return f"Stop {self.stop_number(s)}: {msg}"
         for s in still_open:
             s.closed = True
+            s.closed_at = self.now()
         self.trip.ended_at = self.now()
         self.save_now(wait=True, change="trip ended")
         return None
@@ -425,100 +468,80 @@ class AppController:
         return self.stop_view()
 
     # ------------------------------------------------------------------ derived values
-    def _inputs(self, stop: StopForm) -> tuple[dict[str, Any], dict[str, str]]:
-        """Reads the typed texts into core's units; returns (values, errors by field)."""
-        from core import conductivity, pressure, temperature
+    def _saved_stop_doc(self, stop_id: str) -> dict[str, Any] | None:
+        saved = self._saved_trip
+        if saved is None:
+            return None
+        for s in saved.stops:
+            if s.id == stop_id:
+                return s.model_dump(mode="json")
+        return None
 
-        values: dict[str, Any] = {}
-        errors: dict[str, str] = {}
-        try:
-            t = parse_decimal(stop.temp_text, label=FIELD_LABELS["temp"])
-            if t is not None:
-                values["temp_c"] = float(temperature.f_to_c(t)) if stop.temp_unit == "F" else t
-        except (DecimalError, ValueError) as exc:
-            errors["temp"] = str(exc)
-        try:
-            p = parse_decimal(stop.pressure_text, label=FIELD_LABELS["pressure"])
-            if p is not None:
-                values["pressure_hpa"] = float(pressure.to_hpa(p, stop.pressure_unit))
-        except (DecimalError, ValueError) as exc:
-            errors["pressure"] = str(exc)
-        try:
-            c = parse_decimal(stop.cond_text, label=FIELD_LABELS["conductivity"])
-            if c is not None:
-                values["conductivity_us_cm"] = float(
-                    conductivity.parse_conductivity(f"{c!r} {stop.cond_unit}"))
-        except (DecimalError, ValueError) as exc:
-            errors["conductivity"] = str(exc)
-        try:
-            d = parse_decimal(stop.do_text, label=FIELD_LABELS["do"])
-            if d is not None:
-                values["do_percent" if stop.do_unit == "%" else "do_mg_l"] = d
-        except (DecimalError, ValueError) as exc:
-            errors["do"] = str(exc)
-        return values, errors
+    def stop_record(self, stop: StopForm) -> tuple[Any, dict[str, str]]:
+        """(core.models.Stop with derived values, or None without a site; refusals by field)."""
+        from core.qc import derive_stop
 
-    def assess(self, stop: StopForm) -> tuple[Any, dict[str, str]]:
-        from core import assess as core_assess
-        from core.criteria import Criteria
-
-        values, errors = self._inputs(stop)
-        if "temp_c" not in values or "pressure_hpa" not in values:
+        record, errors = self.bridge.stop_record(stop, self._saved_stop_doc(stop.id))
+        if record is None:
             return None, errors
-        site = self.site(stop.site_id) if stop.site_id else None
-        info = self.bridge.site_info(site)
-        criteria = Criteria(warm_min_mg_l=self.prefs.warm_min_mg_l, cold_min_mg_l=self.prefs.cold_min_mg_l,
-                            supersaturation_percent=self.prefs.supersaturation_percent)
-        try:
-            a = core_assess.assess_reading(
-                values["temp_c"], values["pressure_hpa"],
-                conductivity_us_cm=values.get("conductivity_us_cm"),
-                conductivity_is_sc25=stop.cond_is_sc25,
-                do_mg_l=values.get("do_mg_l"), do_percent=values.get("do_percent"),
-                method=self.prefs.method, elevation_m=info.get("elevation_m"),
-                water_class=info.get("water_class"), criteria=criteria)
-        except ValueError as exc:
-            errors["assess"] = str(exc)
-            return None, errors
-        return a, errors
+        site = self.site(stop.site_id)
+        derived = derive_stop(record, site, self.settings())
+        return record.model_copy(update={"derived": derived}), errors
 
     def stop_view(self, stop: StopForm | None = None) -> StopView:
+        from collections import Counter
+
+        from core.qc import stop_flags
+
         stop = stop or self.stop
         view = StopView()
         if stop is None:
             return view
-        a, errors = self.assess(stop)
+        record, errors = self.stop_record(stop)
         view.errors = errors
-        view.assessment = a
         lines: list[FlagLine] = [_error_line(m, k) for k, m in errors.items()]
-        if a is not None:
-            view.sat_text = _fmt(a.do_sat_mg_l, 2, "mg/L")
-            view.percent_text = _fmt(a.percent_saturation, 1, "%")
-            view.do_text = _fmt(a.do_mg_l, 2, "mg/L")
+        if record is None:
+            if not stop.site_id:
+                sym, word = severity_mark("note")
+                lines.insert(0, FlagLine("input.site", "note", sym, "PICK SITE",
+                                         "Pick the site first: its elevation checks the pressure, "
+                                         "its water class the criteria.", ""))
+            view.flags = lines
+            return view
+        d = record.derived
+        if d is not None:
+            view.assessment = d
+            view.sat_text = _fmt(d.do_sat_mg_l, 2, "mg/L")
+            view.percent_text = _fmt(d.percent_saturation, 1, "%")
+            view.do_text = _fmt(d.do_mg_l, 2, "mg/L")
             source = {"given": "as given", "conductivity": "from conductivity",
-                      "default": "fresh water assumed"}.get(a.salinity_source, a.salinity_source)
-            view.salinity_text = f"{a.salinity:.2f} ({source})"
-            seen = set()
-            for f in sorted(a.flags, key=lambda f: -getattr(f.severity, "rank", 0)):
-                if f.code not in seen:
-                    seen.add(f.code)
-                    lines.append(flag_line(f))
-        lines.extend(self._record_flag_lines(stop, {l.code for l in lines}))
+                      "default": "fresh water assumed"}.get(d.salinity_source, d.salinity_source)
+            view.salinity_text = f"{d.salinity:.2f} ({source})"
+        labels = Counter(b.label for s in self.trip.stops for b in s.bottles)
+        prev = self._previous_record(stop)
+        try:
+            flags = stop_flags(record, self.settings(), self.now(), site=self.site(stop.site_id),
+                               previous=prev, labels_in_trip=labels,
+                               other_bottle_labels=self.labels_elsewhere(), trip_id=self.trip.id,
+                               sites_known=True)
+        except ImportError:  # a part of core this build lacks (e.g. holding times): show the rest
+            flags = [f.to_flag() for f in (d.flags if d is not None else [])]
+        flags = sorted(flags, key=lambda f: -f.severity.rank)
+        lines.extend(flag_line(f) for f in flags)
         view.flags = lines
         return view
 
-    def _record_flag_lines(self, stop: StopForm, seen: set[str]) -> list[FlagLine]:
-        """core.qc's findings on the saved record of this stop (bottle IDs, jumps, holding times)."""
-        try:
-            flags = self.bridge.qc_flags_for_stop(self, stop)
-        except Exception:
-            return []
-        out = []
-        for f in flags:
-            if f.code not in seen:
-                seen.add(f.code)
-                out.append(flag_line(f))
-        return out
+    def _previous_record(self, stop: StopForm) -> Any:
+        route = sorted((s for s in self.trip.stops if s.arrived_at), key=lambda s: s.arrived_at)
+        before = None
+        for s in route:
+            if s.id == stop.id:
+                break
+            before = s
+        if before is None:
+            return None
+        rec, _ = self.bridge.stop_record(before, self._saved_stop_doc(before.id))
+        return rec
 
     # ------------------------------------------------------------------ closing a stop
     def close_problem(self, stop: StopForm) -> str | None:
@@ -536,7 +559,7 @@ class AppController:
         if missing:
             return (f"{', '.join(missing)} {'is' if len(missing) == 1 else 'are'} empty; "
                     "fill in every required field before closing the stop.")
-        _, errors = self._inputs(stop)
+        _, errors, _ = self.bridge._quantities(stop)
         if errors:
             return next(iter(errors.values()))
         return None
@@ -549,12 +572,14 @@ class AppController:
         if msg:
             return msg
         stop.closed = True
+        stop.closed_at = self.now()
         self.save_now(wait=False, change="stop closed")
         return None
 
     def reopen_stop(self) -> None:
         if self.stop is not None:
             self.stop.closed = False
+            self.stop.closed_at = None
             self.save_later()
 
     # ------------------------------------------------------------------ bottles
@@ -609,36 +634,38 @@ class AppController:
 
     def clock_lines(self, now: datetime | None = None) -> list[ClockLine]:
         """Every bottle's holding-time clock in the open trip, most urgent first."""
-        from core.holding import holding_clock
-
+        try:
+            from core.holding import holding_clock
+        except ImportError:
+            return []
         now = now or self.now()
-        out = []
+        out: list[ClockLine] = []
         if self.trip is None:
             return out
-        kind_rule = {"do_fixed": "do_winkler", "duplicate": "do_winkler", "blank": "do_winkler",
-                     "bod": "bod"}
+        overrides = dict(self.settings().holding_overrides_h or {}) or None
         for s in self.trip.stops:
             site = self.site(s.site_id) if s.site_id else None
             where = f"stop {self.stop_number(s)}" + (f" · {self.bridge.site_title(site)}" if site else "")
             for b in s.bottles:
-                rule = kind_rule.get(b.kind)
+                rule = HOLDING_RULE.get(b.kind)
                 if rule is None or b.collected_at is None:
                     continue
-                clock = holding_clock(rule, b.collected_at, now, fixed_at=b.fixed_at)
+                clock = holding_clock(rule, b.collected_at, now, fixed_at=b.fixed_at, overrides=overrides)
+                deadline = fmt_when(clock.deadline)[-5:]
                 if clock.expired:
                     symbol, word = severity_mark("stop-and-check")
                     word = "EXPIRED"
-                    text = f"held {fmt_duration(clock.remaining_s)} too long (deadline {fmt_when(clock.deadline)})"
+                    text = f"deadline {deadline} passed {fmt_duration(clock.remaining_s)} ago"
                 elif clock.flag is not None:
                     symbol, word = severity_mark("warning")
                     word = "SOON"
-                    text = f"{fmt_duration(clock.remaining_s)} left (deadline {fmt_when(clock.deadline)})"
+                    text = f"{fmt_duration(clock.remaining_s)} left · deadline {deadline}"
                 else:
                     symbol, word = "○", "OK"
-                    text = f"{fmt_duration(clock.remaining_s)} left (deadline {fmt_when(clock.deadline)})"
+                    text = f"{fmt_duration(clock.remaining_s)} left · deadline {deadline}"
                 kind_word = dict(BOTTLE_KINDS)[b.kind]
                 if b.kind != "bod" and b.fixed_at is None:
-                    text += " · not fixed yet"
+                    text += " · NOT FIXED YET"
                 out.append(ClockLine(b.label, kind_word, where, clock.remaining_s, clock.expired,
                                      text, symbol, word))
         out.sort(key=lambda c: c.remaining_s)
@@ -646,35 +673,42 @@ class AppController:
 
     # ------------------------------------------------------------------ calibration helper
     def cal_view(self, cal: CalForm, post: bool = False) -> CalView:
-        from core import calibration, pressure, temperature
+        from core.models import InputError, measure, parse_number
 
         view = CalView()
+        if not (cal.temp_text.strip() and cal.pressure_text.strip()):
+            view.detail = "Type the calibration temperature and station pressure to see the 100 % target."
+            return view
         try:
-            t = parse_decimal(cal.temp_text, label=FIELD_LABELS["cal_temp"])
-            p = parse_decimal(cal.pressure_text, label=FIELD_LABELS["cal_pressure"])
-            r = parse_decimal(cal.reading_text, label=FIELD_LABELS["cal_reading"])
-            if t is None or p is None:
-                view.detail = "Type the calibration temperature and station pressure to see the 100 % target."
-                return view
-            temp_c = float(temperature.f_to_c(t)) if cal.temp_unit == "F" else t
-            p_hpa = float(pressure.to_hpa(p, cal.pressure_unit))
-            target = float(calibration.calibration_target_mg_l(temp_c, p_hpa, method=self.prefs.method))
+            from core import calibration
+        except ImportError:
+            view.detail = "The calibration helper is not in this build yet."
+            return view
+        try:
+            t = measure("temp", f"{cal.temp_text.strip()} {self.bridge.TEMP_UNIT_TEXT[cal.temp_unit]}",
+                        field="temp").value
+            p = measure("pressure", f"{cal.pressure_text.strip()} {cal.pressure_unit}", field="pressure").value
+            target = float(calibration.calibration_target_mg_l(t, p, method=self.prefs.method))
             view.target_text = _fmt(target, 2, "mg/L")
-            if r is None:
-                view.detail = "Type the meter's reading in air-saturated conditions."
+            if not cal.reading_text.strip():
+                view.detail = "Type the meter's reading in water-saturated air."
                 return view
+            r = parse_number(cal.reading_text, "reading_mg_l")
             fn = calibration.post_trip_check if post else calibration.check_calibration
-            res = fn(r, temp_c, p_hpa, tolerance_mg_l=self.prefs.tolerance_mg_l, method=self.prefs.method)
-        except (DecimalError, ValueError) as exc:
+            res = fn(r, t, p, tolerance_mg_l=self.prefs.tolerance_mg_l, method=self.prefs.method)
+        except InputError as exc:
+            view.detail = exc.message
+            return view
+        except ValueError as exc:
             view.detail = str(exc)
             return view
         view.result = res
         view.verdict = "PASS" if res.passed else "FAIL"
-        view.detail = (f"reading {res.reading_mg_l:.2f} mg/L is {res.difference_mg_l:+.2f} mg/L from the target; "
-                       f"tolerance ±{res.tolerance_mg_l:.2f} mg/L")
+        view.detail = (f"Reading {res.reading_mg_l:.2f} mg/L is {res.difference_mg_l:+.2f} mg/L from the target "
+                       f"(tolerance ±{res.tolerance_mg_l:.2f} mg/L).")
         if not res.passed:
-            view.detail += " — recalibrate the meter per your SOP." if not post else \
-                " — readings of this trip may need a drift note; tell your QA lead."
+            view.detail += (" Readings of this trip may have drifted: note it and tell your QA lead."
+                            if post else " Recalibrate the meter per your SOP, then check again.")
         if cal.at is None:
             cal.at = self.now()
         return view
@@ -700,9 +734,16 @@ class AppController:
         for c in self.clock_lines():
             if c.word != "OK":
                 out.append(f"{c.symbol} {c.word}: bottle {c.label} ({c.where}): {c.text}")
+        pre = self.cal_view(self.trip.pre_cal)
+        if pre.verdict == "FAIL":
+            sym, word = severity_mark("stop-and-check")
+            out.append(f"{sym} {word}: pre-trip calibration failed: {pre.detail}")
+        elif not pre.verdict and self.trip.stops:
+            sym, word = severity_mark("warning")
+            out.append(f"{sym} {word}: no pre-trip calibration recorded for this trip.")
         post = self.cal_view(self.trip.post_check, post=True)
         if post.verdict == "FAIL":
-            sym, word = severity_mark("warning")
+            sym, word = severity_mark("stop-and-check")
             out.append(f"{sym} {word}: post-trip check failed: {post.detail}")
         elif not post.verdict:
             sym, word = severity_mark("note")

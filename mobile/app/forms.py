@@ -70,6 +70,7 @@ class StopForm:
     do_unit: str = "mg/L"              # "mg/L" | "%"
     notes: str = ""
     closed: bool = False
+    closed_at: datetime | None = None
     bottles: list[BottleForm] = field(default_factory=list)
 
 

@@ -53,8 +53,12 @@ class Person:
         from kivy.uix.scrollview import ScrollView
 
         p = widget.parent
-        while p is not None and not isinstance(p, ScrollView):
-            p = p.parent
+        seen = 0
+        while p is not None and not isinstance(p, ScrollView) and seen < 100:
+            p = p.parent if p.parent is not p else None
+            seen += 1
+        if not isinstance(p, ScrollView):
+            return
         if p is not None and p.viewport_size[1] > p.height:
             p.scroll_to(widget, padding=40, animate=False)
 
