@@ -651,7 +651,8 @@ class AppController:
                 if rule is None or b.collected_at is None:
                     continue
                 clock = holding_clock(rule, b.collected_at, now, fixed_at=b.fixed_at, overrides=overrides)
-                deadline = fmt_when(clock.deadline)[-5:]
+                dl = clock.deadline.astimezone()
+                deadline = dl.strftime("%H:%M") if dl.date() == now.astimezone().date() else dl.strftime("%a %H:%M")
                 if clock.expired:
                     symbol, word = severity_mark("stop-and-check")
                     word = "EXPIRED"

@@ -216,7 +216,7 @@ class StopScreen(BaseScreen):
             self.site_values = c.site_names()
             site = c.site(stop.site_id) if stop.site_id else None
             self.site_text = c.bridge.site_title(site) if site else "Pick a site"
-            self.title = f"Stop {c.stop_number(stop)} of trip · {c.trip.program}"
+            self.title = f"Stop {c.stop_number(stop)} · {c.trip.program}"
             self.arrived_entry.text = fmt_when(stop.arrived_at)
             self.temp_entry.text = stop.temp_text
             self.pressure_entry.text = stop.pressure_text
@@ -240,6 +240,7 @@ class StopScreen(BaseScreen):
         """A field changed (a keystroke, a unit, a site): recompute and show; the save is debounced."""
         if self._loading:
             return
+        self.message = ""
         self.show(ctl().set_stop_field(name, value))
         self.commit()
 
@@ -299,7 +300,7 @@ class StopScreen(BaseScreen):
 
     def add_bottle(self):
         msg = ctl().add_bottle(self.label_entry.text, self.bottle_kind, self.fix_now)
-        self.bottle_message = msg or f"Bottle {self.label_entry.text.strip()} added."
+        self.bottle_message = ("■ Refused: " + msg) if msg else f"✓ Bottle {self.label_entry.text.strip()} added."
         if not msg:
             self.label_entry.text = ""
             self.commit()

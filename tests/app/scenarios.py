@@ -215,15 +215,15 @@ def keystroke_timing(p, rounds="15"):
     yield from p.tap(s.ids.temp)
     times = []
     for i in range(int(rounds)):
-        before = s.ids.sat.text
+        before = s.ids.sat_tile.ids.value_label.text
         ch = str(i % 10)
         t0 = time.perf_counter()
         Window.dispatch("on_textinput", ch)
         # the label's texture is what is drawn: force it as a frame would
-        s.ids.sat.texture_update()
+        s.ids.sat_tile.ids.value_label.texture_update()
         t1 = time.perf_counter()
         yield 0.02
-        changed = s.ids.sat.text != before
+        changed = s.ids.sat_tile.ids.value_label.text != before
         times.append((t1 - t0) * 1000)
         s.ids.temp.do_backspace()
         yield 0.02
