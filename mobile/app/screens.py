@@ -165,6 +165,7 @@ class StopScreen(BaseScreen):
     percent_text = StringProperty("—")
     do_text = StringProperty("—")
     salinity_text = StringProperty("—")
+    salinity_source = StringProperty("")
     arrived_text = StringProperty("")
     site_text = StringProperty("Pick a site")
     site_values = ListProperty([])
@@ -178,6 +179,7 @@ class StopScreen(BaseScreen):
     bottle_message = StringProperty("")
     closed = BooleanProperty(False)
     adding_site = BooleanProperty(False)
+    site_chosen = BooleanProperty(False)
     wading_caution = StringProperty(WADING_CAUTION)
     reagent_caution = StringProperty(REAGENT_CAUTION)
     pressure_units = ListProperty([])
@@ -216,7 +218,8 @@ class StopScreen(BaseScreen):
             self.site_values = c.site_names()
             site = c.site(stop.site_id) if stop.site_id else None
             self.site_text = c.bridge.site_title(site) if site else "Pick a site"
-            self.title = f"Stop {c.stop_number(stop)} · {c.trip.program}"
+            self.site_chosen = site is not None
+            self.title = f"Stop {c.stop_number(stop)}" + (f" · {stop.site_id}" if stop.site_id else "")
             self.arrived_entry.text = fmt_when(stop.arrived_at)
             self.temp_entry.text = stop.temp_text
             self.pressure_entry.text = stop.pressure_text
@@ -240,6 +243,8 @@ class StopScreen(BaseScreen):
         """A field changed (a keystroke, a unit, a site): recompute and show; the save is debounced."""
         if self._loading:
             return
+        if name == "site":
+            self.site_chosen = bool(value)
         self.message = ""
         self.show(ctl().set_stop_field(name, value))
         self.commit()
@@ -248,7 +253,9 @@ class StopScreen(BaseScreen):
         if self._loading or title == "Pick a site":
             return
         self.site_text = title
-        self.field("site", ctl().site_id_for_title(title))
+        site_id = ctl().site_id_for_title(title)
+        self.field("site", site_id)
+        self.title = f"Stop {ctl().stop_number(ctl().stop)} · {site_id}"
 
     def save_site(self, code, name, elevation_text):
         try:
@@ -261,6 +268,7 @@ class StopScreen(BaseScreen):
         title = ctl().bridge.site_title(ctl().site(site_id))
         self.site_text = title
         self.field("site", site_id)
+        self.title = f"Stop {ctl().stop_number(ctl().stop)} · {site_id}"
         self.message = f"✓ Site {title} added."
 
     def set_unit(self, name, unit):
@@ -274,7 +282,9 @@ class StopScreen(BaseScreen):
         self.sat_text = view.sat_text
         self.percent_text = view.percent_text
         self.do_text = view.do_text
-        self.salinity_text = view.salinity_text
+        value, _, source = view.salinity_text.partition(" (")
+        self.salinity_text = value
+        self.salinity_source = source.rstrip(")")
         box = self.flag_box
         box.clear_widgets()
         if not view.flags:

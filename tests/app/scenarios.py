@@ -13,7 +13,7 @@ def _screen_texts(p, name="stop"):
     s = p.screen(name)
     return {
         "sat_text": s.sat_text, "percent_text": s.percent_text, "do_text": s.do_text,
-        "salinity_text": s.salinity_text,
+        "salinity_text": s.salinity_text, "salinity_source": s.salinity_source,
         "flags": [f"{w.word}|{w.message}|{w.action}" for w in reversed(s.flag_box.children)],
         "message": s.message,
         "bottle_message": s.bottle_message,

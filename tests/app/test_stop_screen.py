@@ -42,7 +42,8 @@ def test_screen_shows_core_values_as_typed(logged):
     shown = notes["after_first"]
     assert shown["sat_text"] == f"{a.do_sat_mg_l:.2f} mg/L"
     assert shown["percent_text"] == f"{a.percent_saturation:.1f} %"
-    assert shown["salinity_text"].startswith(f"{a.salinity:.2f}")
+    assert shown["salinity_text"] == f"{a.salinity:.2f}"
+    assert shown["salinity_source"] == "from conductivity"
 
 
 def test_refused_character_is_explained_not_dropped(logged):
