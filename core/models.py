@@ -169,6 +169,9 @@ class Derived(_Record):
     method: str
     core_version: str
     flags: list[FlagRecord] = Field(default_factory=list)
+    #: Fingerprint of what the values were derived with (site, settings, core version); the
+    #: store reuses them for an unchanged stop while the basis is the same.
+    basis: str | None = None
 
 
 def _range_error(kind: str, label_field: str, value: float, unit: str) -> PydanticCustomError:
@@ -253,7 +256,8 @@ class Calibration(_Record):
     temp: Quantity
     pressure: Quantity
     reading_mg_l: float
-    tolerance_mg_l: float = 0.2  # common practice (USGS NFM A6.2 for the method; tolerance a setting)
+    #: ± mg/L; None uses the program setting (default 0.2, common practice; USGS NFM A6.2 method).
+    tolerance_mg_l: float | None = None
     notes: str = Field(default="", max_length=2000)
     # derived at save time
     target_mg_l: float | None = None

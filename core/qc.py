@@ -10,9 +10,10 @@ pressure.sea_level_adjusted    warning         station pressure far above the st
 do.supersaturated              warning         % saturation above the program threshold
 do.below_criterion             warning         DO below the site's / program's criterion
 do.hypoxic                     stop-and-check  DO below the hypoxia threshold
-calibration.far_from_target    stop-and-check  pre-trip calibration reading outside tolerance
+calibration.out_of_tolerance   stop-and-check  pre-trip calibration reading far from the 100 %
+                                               target (core.calibration)
 calibration.missing            warning         stops recorded but no pre-trip calibration
-calibration.post_drift         stop-and-check  post-trip check outside tolerance (drift)
+calibration.post_trip_drift    stop-and-check  post-trip check outside tolerance (core.calibration)
 bottle.duplicate_label         stop-and-check  a bottle ID used twice in the trip or on the device
 bottle.not_fixed               warning         a DO (Winkler) bottle without a fixing time
 holding.expired / holding.soon (core.holding)  holding time passed / less than 25 % left
@@ -36,7 +37,7 @@ from typing import Any, Iterable
 from core.flags import Flag, Severity
 from core.models import (Calibration, Derived, FlagRecord, ProgramSettings, Site, Stop, Trip)
 
-__all__ = ["TRIP_KEY", "RULE_CODES", "derive_trip", "derive_stop", "derive_calibration",
+__all__ = ["TRIP_KEY", "RULE_CODES", "derive", "derive_trip", "derive_document", "derive_basis", "derive_stop", "derive_calibration",
            "stop_flags", "trip_flags", "trip_level_flags", "core_version"]
 
 #: Key of trip-level findings (calibrations) in :func:`trip_flags`' result.
@@ -44,7 +45,7 @@ TRIP_KEY = "trip"
 
 RULE_CODES = (
     "pressure.sea_level_adjusted", "do.supersaturated", "do.below_criterion", "do.hypoxic",
-    "calibration.far_from_target", "calibration.missing", "calibration.post_drift",
+    "calibration.out_of_tolerance", "calibration.missing", "calibration.post_trip_drift",
     "bottle.duplicate_label", "bottle.not_fixed", "holding.expired", "holding.soon",
     "temp.out_of_range", "temp.looks_fahrenheit", "temp.jump", "conductivity.out_of_range",
     "conductivity.jump", "stop.missing_required", "stop.unknown_site",
@@ -52,21 +53,10 @@ RULE_CODES = (
 
 
 def core_version() -> str:
-    """The version of the science core that derived values (from core.assess when it says)."""
-    try:
-        import core.assess as assess
+    """The version of the science core that derived values (``core.__version__``)."""
+    import core
 
-        for name in ("CORE_VERSION", "__version__"):
-            if isinstance(getattr(assess, name, None), str):
-                return getattr(assess, name)
-    except ImportError:
-        pass
-    try:
-        from importlib.metadata import version
-
-        return version("streamtab")
-    except Exception:  # noqa: BLE001 - not installed as a distribution
-        return "0+unknown"
+    return str(getattr(core, "__version__", "0+unknown"))
 
 
 # --------------------------------------------------------------------------------------------
@@ -133,9 +123,10 @@ def derive_calibration(cal: Calibration | None, settings: ProgramSettings, *, po
     from core.calibration import check_calibration, post_trip_check
 
     fn = post_trip_check if post else check_calibration
+    tolerance = cal.tolerance_mg_l if cal.tolerance_mg_l is not None else settings.calibration_tolerance_mg_l
     try:
         r = fn(cal.reading_mg_l, cal.temp.value, cal.pressure.value,
-               tolerance_mg_l=cal.tolerance_mg_l, method=settings.method)
+               tolerance_mg_l=tolerance, method=settings.method)
     except ValueError:
         return cal.model_copy(update={"target_mg_l": None, "difference_mg_l": None, "accepted": None,
                                       "method": settings.method, "core_version": core_version(),
@@ -146,15 +137,77 @@ def derive_calibration(cal: Calibration | None, settings: ProgramSettings, *, po
         "flags": [FlagRecord.from_flag(f) for f in r.flags]})
 
 
+def derive_basis(site: Site | None, settings: ProgramSettings) -> str:
+    """Fingerprint of what a stop's derived values depend on besides its own inputs."""
+    import hashlib
+
+    from core.atomic import canonical_json_bytes
+
+    basis = {"site": site.model_dump(mode="json") if site is not None else None,
+             "settings": settings.model_dump(mode="json"), "core": core_version()}
+    return hashlib.sha256(canonical_json_bytes(basis)).hexdigest()[:16]
+
+
 def derive_trip(trip: Trip, sites: dict[str, Site], settings: ProgramSettings) -> Trip:
     """The trip with every stop's and calibration's derived values recomputed from the inputs."""
-    stops = [s.model_copy(update={"derived": derive_stop(s, sites.get(s.site_id), settings)})
-             for s in trip.stops]
-    return trip.model_copy(update={
-        "stops": stops,
-        "pre_calibration": derive_calibration(trip.pre_calibration, settings, post=False),
-        "post_check": derive_calibration(trip.post_check, settings, post=True),
-    })
+    return derive(trip, sites, settings)[1]
+
+
+def derive_document(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
+                    previous: dict[str, Any] | None = None) -> dict[str, Any]:
+    """The JSON document of `trip` with derived values filled in (what the store writes)."""
+    return derive(trip, sites, settings, previous)[0]
+
+
+def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
+           previous: dict[str, Any] | None = None,
+           bases: dict[str, str] | None = None) -> tuple[dict[str, Any], Trip]:
+    """(the JSON document, the Trip) with derived values filled in — the store's derive step.
+
+    `previous` (the stored document of the same trip) lets a stop whose inputs are unchanged keep
+    its derived values when they were made on the same basis (site, settings, core version); the
+    result is the same as deriving again, only faster. `bases` caches :func:`derive_basis` by
+    site id for the given sites and settings.
+    """
+    doc = trip.model_dump(mode="json")
+    old_stops: dict[str, dict[str, Any]] = {}
+    if previous is not None:
+        old_stops = {s.get("id"): s for s in previous.get("stops") or [] if isinstance(s, dict)}
+    bases = {} if bases is None else bases
+    new_stops: list[Stop] = []
+    for stop, stop_doc in zip(trip.stops, doc["stops"]):
+        site = sites.get(stop.site_id)
+        if stop.site_id not in bases:
+            bases[stop.site_id] = derive_basis(site, settings)
+        basis = bases[stop.site_id]
+        old = old_stops.get(stop.id)
+        if (old is not None and isinstance(old.get("derived"), dict)
+                and old["derived"].get("basis") == basis
+                and len(old) == len(stop_doc)
+                and all(old.get(k) == v for k, v in stop_doc.items() if k != "derived")):
+            if stop_doc.get("derived") == old["derived"]:
+                new_stops.append(stop)
+            else:
+                new_stops.append(stop.model_copy(update={"derived": Derived.model_validate_json(_json(old["derived"]))}))
+            stop_doc["derived"] = old["derived"]
+            continue
+        derived = derive_stop(stop, site, settings)
+        if derived is not None:
+            derived = derived.model_copy(update={"basis": basis})
+        stop_doc["derived"] = None if derived is None else derived.model_dump(mode="json")
+        new_stops.append(stop.model_copy(update={"derived": derived}))
+    cals: dict[str, Calibration | None] = {}
+    for key, post in (("pre_calibration", False), ("post_check", True)):
+        cal = derive_calibration(getattr(trip, key), settings, post=post)
+        cals[key] = cal
+        doc[key] = None if cal is None else cal.model_dump(mode="json")
+    return doc, trip.model_copy(update={"stops": new_stops, **cals})
+
+
+def _json(doc: Any) -> bytes:
+    from core.atomic import canonical_json_bytes
+
+    return canonical_json_bytes(doc)
 
 
 # --------------------------------------------------------------------------------------------
@@ -306,7 +359,7 @@ def _dedupe(flags: Iterable[Flag]) -> list[Flag]:
 
 
 def trip_level_flags(trip: Trip, settings: ProgramSettings) -> list[Flag]:
-    """Calibration findings for the whole trip."""
+    """Calibration findings for the whole trip (the science's verdicts, stored at save time)."""
     flags: list[Flag] = []
     pre = trip.pre_calibration
     if pre is None:
@@ -317,22 +370,8 @@ def trip_level_flags(trip: Trip, settings: ProgramSettings) -> list[Flag]:
                                "pre_calibration"))
     else:
         flags.extend(f.to_flag() for f in pre.flags)
-        if pre.accepted is False and pre.target_mg_l is not None:
-            flags.append(_flag("calibration.far_from_target", Severity.STOP,
-                               f"The pre-trip meter reading {pre.reading_mg_l:g} mg/L is {abs(pre.difference_mg_l or 0):.2f}"
-                               f" mg/L from the target {pre.target_mg_l:.2f} mg/L (tolerance ±{pre.tolerance_mg_l:g}).",
-                               "Recalibrate the meter (check the membrane and the calibration chamber) before measuring.",
-                               "pre_calibration"))
-    post = trip.post_check
-    if post is not None:
-        flags.extend(f.to_flag() for f in post.flags)
-        if post.accepted is False and post.target_mg_l is not None:
-            flags.append(_flag("calibration.post_drift", Severity.STOP,
-                               f"The post-trip check read {post.reading_mg_l:g} mg/L against a target of "
-                               f"{post.target_mg_l:.2f} mg/L: drift of {abs(post.difference_mg_l or 0):.2f} mg/L, beyond "
-                               f"±{post.tolerance_mg_l:g} mg/L.",
-                               "Mark this trip's meter DO as suspect per the SOP and service the sensor.",
-                               "post_check"))
+    if trip.post_check is not None:
+        flags.extend(f.to_flag() for f in trip.post_check.flags)
     return _dedupe(flags)
 
 

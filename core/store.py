@@ -4,23 +4,28 @@ Layout of a data folder::
 
     device.json         this device's id
     trips/<trip>.json   one TinyDB file per trip (table "trip", document 1 = the trip document)
-    index/<trip>.json   the trip's summary (what `list_trips` shows), rewritten after the trip file
+    index/<trip>.json   the trip's summary (what `list_trips` shows), rewritten after the trip file;
+                        a checked cache (it names the trip file version it was made from)
     sites.json          TinyDB, table "sites" (one document per site)
     settings.json       TinyDB, table "settings" (document 1 = program settings)
     quarantine/         unreadable files, moved here and never overwritten
     .lock               inter-process lock (filelock)
 
-Every write goes through :class:`AtomicJSONStorage` (temporary file, fsync, ``os.replace``,
-fsync of the folder), so a reader or a crash sees the old file or the new one, never a part.
+Every write of data goes through core.atomic.atomic_write_bytes (temporary file, fsync,
+``os.replace``, fsync of the folder; :class:`AtomicJSONStorage` is TinyDB's storage on top of
+it), so a reader or a crash sees the old file or the new one, never a part. Index entries are
+replaced atomically without fsync: they are rebuilt from the trip files when outdated.
 A save costs the same whatever the number of trips: it rewrites one trip file and one summary.
 Every trip change goes through one funnel (:meth:`DeviceStore._commit`): validate → derive →
 compare → audit → write.
 """
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import re
+import tempfile
 import threading
 import time
 from contextlib import contextmanager
@@ -156,7 +161,7 @@ class TripSummary:
         return asdict(self)
 
 
-def _summary_of(doc: dict[str, Any]) -> TripSummary:
+def _summary_of(doc: dict[str, Any], digest: str | None = None) -> TripSummary:
     stops = doc.get("stops") or []
     conflicts = [c for c in (doc.get("conflicts") or []) if not c.get("resolved_at")]
     if conflicts:
@@ -170,7 +175,7 @@ def _summary_of(doc: dict[str, Any]) -> TripSummary:
         id=doc["id"], program=doc.get("program", ""), crew=list(doc.get("crew") or []),
         started_at=doc.get("started_at", ""), ended_at=doc.get("ended_at"),
         revision=int(doc.get("revision", 0)), status=status, stop_count=len(stops),
-        updated_at=doc.get("updated_at"), content_hash=content_hash(doc),
+        updated_at=doc.get("updated_at"), content_hash=digest or content_hash(doc),
         schema_version=int(doc.get("schema_version", 0)), open_conflicts=len(conflicts),
         bottle_labels=labels)
 
@@ -187,7 +192,7 @@ def _content(doc: dict[str, Any]) -> dict[str, Any]:
 def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[str]:
     """Field paths that differ between two documents; list elements are matched by `id`.
 
-    Paths look like ``stops[<id>].temp.value``; derived values and bookkeeping are left out
+    Paths look like ``stops[<id>].temp``; derived values and bookkeeping are left out
     (they follow from the inputs). At most `limit` paths.
     """
     out: list[str] = []
@@ -195,7 +200,9 @@ def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[st
     def walk(a: Any, b: Any, path: str) -> None:
         if len(out) >= limit or a == b:
             return
-        if isinstance(a, dict) and isinstance(b, dict):
+        if isinstance(a, dict) and isinstance(b, dict) and ("id" in a or "id" in b or not path):
+            # Records (with an id) are walked field by field; values such as a quantity are
+            # reported as one path ("stops[<id>].temp"), which keeps audit entries short.
             for key in sorted(set(a) | set(b)):
                 if key in _NOT_CHANGES:
                     continue
@@ -211,6 +218,55 @@ def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[st
         out.append(path or "(document)")
 
     walk(old, new, prefix)
+    return out
+
+
+def _replace_unsynced(path: Path, data: bytes) -> None:
+    """Temporary file → ``os.replace``, without fsync: for the index, a checked cache only."""
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+
+
+def _merge_audit(stored: list[dict[str, Any]], incoming: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Stored entries in their order, then incoming entries not yet stored (by id), oldest first."""
+    known = {e.get("id") for e in stored}
+    extra = [e for e in incoming if e.get("id") not in known]
+    if not extra:
+        return list(stored)
+    extra.sort(key=lambda e: (str(e.get("at", "")), str(e.get("id", ""))))
+    return list(stored) + extra
+
+
+def _non_finite_problems(doc: Any) -> list[Problem]:
+    """Problems for every NaN or infinite number in a document, named by field."""
+    import math
+
+    from core.messages import path_label, render
+
+    out: list[Problem] = []
+
+    def walk(value: Any, loc: tuple) -> None:
+        if isinstance(value, float) and not math.isfinite(value):
+            label = path_label(loc)
+            out.append(Problem("number.not_finite", ".".join(map(str, loc)), label,
+                               render("number.not_finite", label=label, input=value)))
+        elif isinstance(value, dict):
+            for k, v in value.items():
+                walk(v, loc + (k,))
+        elif isinstance(value, list):
+            for i, v in enumerate(value):
+                walk(v, loc + (i,))
+
+    walk(doc, ())
     return out
 
 
@@ -245,6 +301,8 @@ class DeviceStore:
         self._tlock = threading.RLock()
         self._sites_cache: tuple[tuple[int, int], dict[str, Site]] | None = None
         self._settings_cache: tuple[tuple[int, int], ProgramSettings] | None = None
+        self._cache: dict[str, tuple[bytes, bytes, dict[str, Any]]] = {}
+        self._bases: tuple[Any, dict[str, str]] = (None, {})
 
     # -- opening ---------------------------------------------------------------------------
     @classmethod
@@ -282,35 +340,32 @@ class DeviceStore:
             return None
 
     def _clean_temp_files(self) -> None:
-        for folder in (self.data_dir, self._trips_dir, self._index_dir):
-            for tmp in folder.glob(".*.tmp"):
+        """Removes temporary files an interrupted write of *this store* left (lock held).
+
+        Only the store's own names: other parts (sync's outbox) may write in the data folder.
+        """
+        patterns = [(self._trips_dir, ".*.tmp"), (self._index_dir, ".*.tmp")]
+        patterns += [(self.data_dir, f".{name}.*.tmp") for name in ("device.json", "sites.json", "settings.json")]
+        for folder, pattern in patterns:
+            for tmp in folder.glob(pattern):
                 try:
                     tmp.unlink()
                 except FileNotFoundError:
                     pass
 
     def _repair_index(self) -> None:
-        """Rebuilds summaries that are missing or older than their trip file; drops orphans."""
-        trips = {p.stem: p for p in self._trips_dir.glob("*.json")}
-        index = {p.stem: p for p in self._index_dir.glob("*.json")}
-        for orphan in set(index) - set(trips):
-            index[orphan].unlink(missing_ok=True)
-        for trip_id, path in trips.items():
-            ipath = index.get(trip_id)
-            if ipath is not None:
-                try:
-                    if ipath.stat().st_mtime_ns >= path.stat().st_mtime_ns:
-                        continue
-                except FileNotFoundError:
-                    pass
-            try:
-                doc = self._read_trip_doc_raw(trip_id)
-            except CorruptFile:
-                continue
-            if doc is not None:
-                self._write_summary(doc)
+        """Brings every summary up to date with its trip file (see :meth:`list_trips`)."""
+        self.list_trips()
 
     # -- locking ---------------------------------------------------------------------------
+    def locked(self):
+        """Holds the store's inter-process lock for a block of several store calls (re-entrant).
+
+        ``with store.locked(): ...`` — e.g. a sync applying a plan. Raises StoreLocked when another
+        process holds it longer than `lock_timeout_s`.
+        """
+        return self._locked()
+
     @contextmanager
     def _locked(self) -> Iterator[None]:
         with self._tlock:
@@ -353,48 +408,68 @@ class DeviceStore:
             raise TripNotFound(f"No trip with id {trip_id!r} on this device (ids are letters, digits, '-', '_', '.').")
         return self._trips_dir / f"{trip_id}.json"
 
-    def _read_trip_doc_raw(self, trip_id: str) -> dict[str, Any] | None:
-        """The stored document as written (no migration), None when absent; quarantines junk."""
+    def _corrupt(self, path: Path, reason: str) -> CorruptFile:
+        target = self._quarantine(path, reason)
+        (self._index_dir / path.name).unlink(missing_ok=True)
+        self._cache.pop(path.stem, None)
+        return CorruptFile(f"The trip file {path.name} could not be read ({reason}); it was moved to"
+                           f" {target} and the rest of the store keeps working.", target)
+
+    def _read_trip_file(self, trip_id: str) -> tuple[bytes, dict[str, Any]] | None:
+        """(the trip document's canonical bytes, the document) as stored; None when absent.
+
+        The file's bytes are read every time and compared with the last version this store
+        read or wrote; only a changed file is parsed again. Callers must not change the dict.
+        """
         path = self._trip_path(trip_id)
         try:
-            data = _tinydb(path).table("trip").get(doc_id=1)
-        except ValueError as exc:
-            target = self._quarantine(path, str(exc))
-            (self._index_dir / path.name).unlink(missing_ok=True)
-            raise CorruptFile(f"The trip file {path.name} could not be read ({exc}); it was moved to"
-                              f" {target} and the rest of the store keeps working.", target) from None
-        if data is None:
-            if path.exists():
-                target = self._quarantine(path, "no trip document inside")
-                (self._index_dir / path.name).unlink(missing_ok=True)
-                raise CorruptFile(f"The trip file {path.name} holds no trip; it was moved to {target}.",
-                                  target)
+            file_bytes = path.read_bytes()
+        except FileNotFoundError:
+            self._cache.pop(trip_id, None)
             return None
-        doc = dict(data)
+        hit = self._cache.get(trip_id)
+        if hit is not None and hit[0] == file_bytes:
+            return hit[1], hit[2]
+        if not file_bytes.strip():
+            raise self._corrupt(path, "the file is empty")
+        try:
+            data = json.loads(file_bytes)
+        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+            raise self._corrupt(path, f"the file is not valid JSON ({exc})") from None
+        table = data.get("trip") if isinstance(data, dict) else None
+        doc = table.get("1") if isinstance(table, dict) else None
+        if not isinstance(doc, dict):
+            raise self._corrupt(path, "no trip document inside")
         if doc.get("id") != trip_id:
-            target = self._quarantine(path, f"id inside is {doc.get('id')!r}")
-            (self._index_dir / path.name).unlink(missing_ok=True)
-            raise CorruptFile(f"The trip file {path.name} holds a different trip id; it was moved to"
-                              f" {target}.", target)
-        return doc
+            raise self._corrupt(path, f"the id inside is {doc.get('id')!r}")
+        try:
+            raw = canonical_json_bytes(doc)
+        except ValueError as exc:
+            raise self._corrupt(path, str(exc)) from None
+        if len(self._cache) > 64:
+            self._cache.clear()
+        self._cache[trip_id] = (file_bytes, raw, doc)
+        return raw, doc
+
+    def _read_trip_doc_raw(self, trip_id: str) -> dict[str, Any] | None:
+        """The stored document as written (no migration), None when absent; quarantines junk."""
+        got = self._read_trip_file(trip_id)
+        return None if got is None else got[1]
 
     def _load(self, trip_id: str) -> tuple[Trip, dict[str, Any]]:
         from core.migrations import migrate
 
-        raw = self._read_trip_doc_raw(trip_id)
-        if raw is None:
+        got = self._read_trip_file(trip_id)
+        if got is None:
             raise TripNotFound(f"No trip {trip_id} on this device; see 'streamtab trip list'.")
+        raw_bytes, raw = got
         doc = migrate(raw)  # raises NewerSchemaError, leaving the file untouched
         try:
-            trip = Trip.from_document(doc)
+            trip = Trip.model_validate_json(raw_bytes) if doc is raw else Trip.from_document(doc)
         except (ValidationError, ValueError) as exc:
-            path = self._trip_path(trip_id)
             probs = problems_from_validation(exc) if isinstance(exc, ValidationError) else []
-            reason = one_line(probs) if probs else str(exc)
-            target = self._quarantine(path, reason)
-            (self._index_dir / path.name).unlink(missing_ok=True)
-            raise CorruptFile(f"The trip file {path.name} failed validation ({reason}); it was moved"
-                              f" to {target} and the rest of the store keeps working.", target) from None
+            reason = "failed validation: " + (one_line(probs) if probs else str(exc))
+            raise self._corrupt(self._trip_path(trip_id), reason) from None
         return trip, raw
 
     def load_trip(self, trip_id: str) -> Trip:
@@ -410,10 +485,10 @@ class DeviceStore:
 
         ``core.atomic.canonical_json_bytes`` of it is the wire form.
         """
-        doc = self._read_trip_doc_raw(trip_id)
-        if doc is None:
+        got = self._read_trip_file(trip_id)
+        if got is None:
             raise TripNotFound(f"No trip {trip_id} on this device; see 'streamtab trip list'.")
-        return doc
+        return json.loads(got[0])
 
     def has_trip(self, trip_id: str) -> bool:
         try:
@@ -422,27 +497,49 @@ class DeviceStore:
             return False
 
     def list_trips(self) -> list[TripSummary]:
-        """Every trip's summary, newest start first, from the small index."""
+        """Every trip's summary, newest start first, from the small index.
+
+        Each summary records the (inode, mtime, size) of the trip file it was made from; one
+        ``stat`` per trip checks it, and a missing, unreadable or outdated summary is rebuilt
+        from the trip file. (A crash between writing a trip and its summary always shows: the
+        new trip file has a new inode.) Unreadable trip files are quarantined and left out.
+        """
         out: list[TripSummary] = []
+        trips = {p.stem for p in self._trips_dir.glob("*.json")}
         for ipath in self._index_dir.glob("*.json"):
-            try:
-                data = json.loads(ipath.read_bytes())
-                out.append(TripSummary(**data))
-            except FileNotFoundError:
+            if ipath.stem not in trips:
+                ipath.unlink(missing_ok=True)  # the trip file is gone (quarantined)
+        for trip_id in trips:
+            if not _SAFE_ID.match(trip_id):
                 continue
-            except (ValueError, TypeError):
-                # The index is derived: rebuild the entry from the trip file.
+            key = self._file_key(trip_id)
+            if key is None:
+                continue
+            summary = None
+            try:
+                data = json.loads((self._index_dir / f"{trip_id}.json").read_bytes())
+                if data.get("file") == list(key):
+                    summary = TripSummary(**data["summary"])
+            except (OSError, ValueError, TypeError, KeyError, AttributeError):
+                summary = None
+            if summary is None:
                 try:
-                    doc = self._read_trip_doc_raw(ipath.stem)
-                except (CorruptFile, TripNotFound):
+                    got = self._read_trip_file(trip_id)
+                except CorruptFile:
                     continue
-                if doc is None:
-                    ipath.unlink(missing_ok=True)
+                if got is None:
                     continue
-                with self._locked():
-                    out.append(self._write_summary(doc))
+                summary = self._write_summary(got[1], None, self._file_key(trip_id))
+            out.append(summary)
         out.sort(key=lambda s: (s.started_at, s.id), reverse=True)
         return out
+
+    def _file_key(self, trip_id: str) -> tuple[int, int, int] | None:
+        try:
+            st = self._trip_path(trip_id).stat()
+        except FileNotFoundError:
+            return None
+        return (st.st_ino, st.st_mtime_ns, st.st_size)
 
     def bottle_labels_in_use(self) -> dict[str, str]:
         """Bottle label → trip id, over every trip on the device (for duplicate checks)."""
@@ -461,15 +558,15 @@ class DeviceStore:
         (nothing written), StaleTrip when the stored revision moved on since `trip` was loaded,
         NewerSchemaError, StoreLocked.
         """
-        doc = self._dump(trip)
+        checked = self._validated(trip)
         with self._locked():
-            stored = self._stored_or_none(doc["id"])
-            if stored is not None and int(stored.get("revision", 0)) != int(doc.get("revision", 0)):
+            stored = self._stored_or_none(checked.id)
+            if stored is not None and int(stored.get("revision", 0)) != checked.revision:
                 raise StaleTrip(
-                    f"Trip {doc['id']} was changed elsewhere (stored revision {stored.get('revision')},"
-                    f" this copy {doc.get('revision')}); reload it and make the change again.")
-            base = int(stored["revision"]) if stored is not None else int(doc.get("revision", 0))
-            return self._commit(doc, stored, change, base)
+                    f"Trip {checked.id} was changed elsewhere (stored revision {stored.get('revision')},"
+                    f" this copy {checked.revision}); reload it and make the change again.")
+            base = int(stored.get("revision", 0)) if stored is not None else checked.revision
+            return self._commit(checked, stored, change, base)
 
     def put_document(self, doc: dict[str, Any], change: str) -> Trip:
         """Runs a foreign trip document (an import, a sync pull) through the same save path.
@@ -483,28 +580,40 @@ class DeviceStore:
 
         if not isinstance(doc, dict):
             raise InvalidRecord("A trip document must be a JSON object.")
-        doc = migrate(doc)
-        trip = self._validate_doc(doc)
-        clean = self._dump(trip)
+        checked = self._validate_doc(migrate(doc))
         with self._locked():
-            stored = self._stored_or_none(clean["id"])
-            base = max(int(clean.get("revision", 0)),
-                       int(stored.get("revision", 0)) if stored is not None else 0)
-            return self._commit(clean, stored, change, base)
+            stored = self._stored_or_none(checked.id)
+            base = max(checked.revision, int(stored.get("revision", 0)) if stored is not None else 0)
+            return self._commit(checked, stored, change, base)
 
     def save_stop(self, trip_id: str, stop: Stop, change: str | None = None) -> Trip:
-        """Adds or replaces (by id) one stop of a stored trip and saves through :meth:`save_trip`."""
+        """Adds or replaces (by id) one stop of a stored trip, through the same save path.
+
+        The stop is validated with the whole trip; the stored revision is the base (this is
+        the call for autosaving one stop: it cannot be stale).
+        """
+        if not isinstance(stop, Stop):
+            raise InvalidRecord("save_stop needs a Stop record.")
+        try:
+            stop_doc = stop.model_dump(mode="json", warnings=False)
+        except Exception as exc:  # noqa: BLE001
+            raise InvalidRecord(f"The stop could not be written as JSON ({exc}).") from None
         with self._locked():
-            trip = self.load_trip(trip_id)
-            stops = list(trip.stops)
+            stored = self._stored_or_none(trip_id)
+            if stored is None:
+                raise TripNotFound(f"No trip {trip_id} on this device; see 'streamtab trip list'.")
+            stops = list(stored.get("stops") or [])
             for i, s in enumerate(stops):
-                if s.id == stop.id:
-                    stops[i] = stop
+                if s.get("id") == stop_doc["id"]:
+                    stops[i] = stop_doc
                     break
             else:
-                stops.append(stop)
-            updated = trip.model_copy(update={"stops": stops})
-            return self.save_trip(updated, change or f"stop at {stop.site_id} saved")
+                stops.append(stop_doc)
+            doc = dict(stored)
+            doc["stops"] = stops
+            checked = self._validate_doc(doc)
+            return self._commit(checked, stored, change or f"stop at {stop.site_id} saved",
+                                int(stored.get("revision", 0)))
 
     def _stored_or_none(self, trip_id: str) -> dict[str, Any] | None:
         from core.migrations import migrate
@@ -521,49 +630,78 @@ class DeviceStore:
         except ValidationError as exc:
             probs = problems_from_validation(exc)
             raise InvalidRecord(one_line(probs), probs) from None
-        except ValueError as exc:  # NaN or infinity in the document
+        except (ValueError, TypeError) as exc:  # NaN, infinity or a non-JSON value in the document
+            probs = _non_finite_problems(doc)
+            if probs:
+                raise InvalidRecord(one_line(probs), probs) from None
             raise InvalidRecord(f"The trip document holds a value JSON cannot carry ({exc}).") from None
 
-    def _dump(self, trip: Trip) -> dict[str, Any]:
+    def _validated(self, trip: Trip) -> Trip:
         if not isinstance(trip, Trip):
             raise InvalidRecord("save_trip needs a Trip record.")
         try:
-            doc = trip.model_dump(mode="json")
-        except Exception as exc:  # a value that cannot be serialised, e.g. set on a frozen copy
+            doc = trip.model_dump(mode="json", warnings=False)
+        except Exception as exc:  # noqa: BLE001 - a value assigned after construction that cannot be written
             raise InvalidRecord(f"The trip could not be written as JSON ({exc}).") from None
-        # Re-validate: attributes may have been assigned after construction.
-        return self._validate_doc(doc).model_dump(mode="json")
+        # Re-validate strictly: attributes may have been assigned after construction.
+        return self._validate_doc(doc)
 
-    def _commit(self, doc: dict[str, Any], stored: dict[str, Any] | None, change: str,
-                base_revision: int) -> Trip:
-        """The funnel: derive, compare, audit, write trip file, then its summary. Lock held."""
-        from core.qc import derive_trip
+    def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int) -> Trip:
+        """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held."""
+        from core.qc import derive
 
-        trip = Trip.model_validate_json(canonical_json_bytes(doc))
-        trip = derive_trip(trip, self.sites_by_id(), self.settings())
-        new_doc = trip.model_dump(mode="json")
-        if not trip.device_id:
-            new_doc["device_id"] = self.device_id
+        sites = self.sites_by_id()
+        settings = self.settings()
+        bases_key = (self._sites_cache[0] if self._sites_cache else None,
+                     self._settings_cache[0] if self._settings_cache else None)
+        if self._bases[0] != bases_key:
+            self._bases = (bases_key, {})
+        new_doc, derived = derive(trip, sites, settings, previous=stored, bases=self._bases[1])
+        device_id = trip.device_id or self.device_id
         if stored is not None:
-            new_doc["device_id"] = stored.get("device_id") or new_doc["device_id"]
-            if _content(stored) == _content(new_doc):
-                return Trip.from_document(stored)
+            device_id = stored.get("device_id") or device_id
+        new_doc["device_id"] = device_id
+        new_doc["schema_version"] = SCHEMA_VERSION
+        incoming_audit = new_doc.get("audit") or []
+        if stored is not None:
+            # The audit trail is append-only: entries already stored are never dropped.
+            new_doc["audit"] = _merge_audit(stored.get("audit") or [], incoming_audit)
+        if stored is not None and _content(stored) == _content(new_doc):
+            return Trip.from_document(stored)
         now = self._clock().astimezone(timezone.utc)
         revision = base_revision + 1
         entry = AuditEntry(at=now, device_id=self.device_id, change=str(change)[:400] or "saved",
                            revision=revision,
                            fields=diff_paths(stored, new_doc) if stored is not None else ["(new trip)"])
-        new_doc["audit"] = list(new_doc.get("audit") or []) + [entry.model_dump(mode="json")]
+        entry_doc = entry.model_dump(mode="json")
+        same_audit = new_doc.get("audit") == incoming_audit
+        new_doc["audit"] = list(new_doc.get("audit") or []) + [entry_doc]
         new_doc["revision"] = revision
-        new_doc["updated_at"] = entry.model_dump(mode="json")["at"]
-        new_doc["schema_version"] = SCHEMA_VERSION
-        _tinydb(self._trip_path(new_doc["id"])).table("trip").upsert(Document(new_doc, doc_id=1))
-        self._write_summary(new_doc)
-        return Trip.from_document(new_doc)
+        new_doc["updated_at"] = entry_doc["at"]
+        doc_bytes = canonical_json_bytes(new_doc)
+        path = self._trip_path(new_doc["id"])
+        # The TinyDB layout {"trip": {"1": doc}}, byte for byte what AtomicJSONStorage.write gives.
+        file_bytes = b'{"trip":{"1":' + doc_bytes[:-1] + b"}}\n"
+        atomic_write_bytes(path, file_bytes)
+        self._cache[new_doc["id"]] = (file_bytes, doc_bytes, new_doc)
+        self._write_summary(new_doc, "sha256:" + hashlib.sha256(doc_bytes).hexdigest(),
+                            self._file_key(new_doc["id"]))
+        if not same_audit:
+            return Trip.model_validate_json(doc_bytes)
+        # `derived` was validated from JSON in this call and shares nothing with the caller.
+        return derived.model_copy(update={
+            "device_id": device_id, "schema_version": SCHEMA_VERSION, "revision": revision,
+            "updated_at": entry.at, "audit": list(derived.audit) + [entry]})
 
-    def _write_summary(self, doc: dict[str, Any]) -> TripSummary:
-        summary = _summary_of(doc)
-        atomic_write_bytes(self._index_dir / f"{doc['id']}.json", canonical_json_bytes(summary.to_dict()))
+    def _write_summary(self, doc: dict[str, Any], digest: str | None,
+                       key: tuple[int, int, int] | None) -> TripSummary:
+        """Writes a trip's summary. The index is a cache of the trip files, checked against
+        them on every read (see :meth:`list_trips`), so it is replaced atomically but not
+        fsynced: a summary lost or torn by a power cut is rebuilt, and a save costs two fsyncs
+        (the trip file and its folder) instead of four."""
+        summary = _summary_of(doc, digest)
+        data = canonical_json_bytes({"summary": summary.to_dict(), "file": list(key) if key else None})
+        _replace_unsynced(self._index_dir / f"{doc['id']}.json", data)
         return summary
 
     # -- sites and settings ----------------------------------------------------------------

@@ -114,7 +114,8 @@ def _trip_import(args) -> int:  # noqa: ANN001
         emit_json({"id": trip.id, "revision": trip.revision, "stop_count": len(trip.stops),
                    "status": trip.status})
     else:
-        sys.stdout.write(f"imported trip {trip.id} ({len(trip.stops)} stops, revision {trip.revision})"
+        n = len(trip.stops)
+        sys.stdout.write(f"imported trip {trip.id} ({n} stop{'' if n == 1 else 's'}, revision {trip.revision})"
                          f" from {Path(args.file).name}\n")
     return 0
 
@@ -130,7 +131,7 @@ def _trip_list(args) -> int:  # noqa: ANN001
         return 0
     for s in summaries:
         sys.stdout.write(f"{s.id[:8]}  {s.started_at[:16]:<16}  {s.program[:28]:<28}  "
-                         f"{','.join(s.crew)[:14]:<14}  {s.stop_count:>3} stops  rev {s.revision:<3} {s.status}\n")
+                         f"{','.join(s.crew)[:14]:<14}  {s.stop_count:>3} stop{' ' if s.stop_count == 1 else 's'}  rev {s.revision:<3} {s.status}\n")
     return 0
 
 
@@ -206,7 +207,7 @@ def _trip_show(args) -> int:  # noqa: ANN001
         w(f"  water {_fmt(inp['temp'] and inp['temp']['value'], '.1f', '°C')}"
           f"  pressure {_fmt(inp['pressure'] and inp['pressure']['value'], '.1f', 'hPa')}"
           f"  conductivity {_fmt(inp['conductivity'] and inp['conductivity']['value'], '.0f', 'µS/cm')}"
-          f"  meter DO {do['text'] if do else '—'}\n")
+          f"  meter DO {_fmt(do and do['value'], 'g', do['unit'] if do else '')}\n")
         if d:
             w(f"  saturation {d['do_sat_mg_l']:.2f} mg/L ({d['method']})"
               f"  DO {_fmt(d.get('do_mg_l'), '.2f', 'mg/L')}  {_fmt(d.get('percent_saturation'), '.0f', '%')}"

@@ -1,0 +1,58 @@
+"""Holding times (40 CFR 136.3 Table II [from memory]) and program SOP overrides."""
+from __future__ import annotations
+
+from datetime import datetime, timedelta, timezone
+
+import pytest
+
+from core.flags import Severity
+from core.holding import HOLDING_TIMES, holding_clock
+
+T0 = datetime(2026, 6, 1, 8, 0, tzinfo=timezone.utc)
+
+
+def test_table_values_and_citations():
+    # 40 CFR 136.3 Table II [from memory]: DO probe 15 min, Winkler 8 h, BOD 48 h, SC 28 d, temperature 15 min
+    want = {"do_probe": 0.25, "do_winkler": 8.0, "bod": 48.0, "specific_conductance": 672.0, "temperature": 0.25}
+    assert {k: r.hours for k, r in HOLDING_TIMES.items()} == want
+    for r in HOLDING_TIMES.values():
+        assert "40 CFR 136.3" in r.citation and r.preservation
+    assert "6 °C" in HOLDING_TIMES["bod"].preservation
+
+
+def test_clock_states():
+    c = holding_clock("bod", T0, T0 + timedelta(hours=10))
+    assert c.deadline == T0 + timedelta(hours=48) and c.remaining_s == 38 * 3600 and not c.expired
+    assert c.flag is None
+    soon = holding_clock("bod", T0, T0 + timedelta(hours=37))  # 11 h left < 25 % of 48 h
+    assert soon.flag.code == "holding.soon" and soon.flag.severity is Severity.WARNING
+    late = holding_clock("bod", T0, T0 + timedelta(hours=49))
+    assert late.expired and late.remaining_s == -3600 and late.flag.code == "holding.expired"
+    assert late.flag.severity is Severity.STOP
+
+
+def test_winkler_clock_from_fixing():
+    # 40 CFR 136.3 Table II: Winkler samples are fixed on site; 8 h
+    fixed = T0 + timedelta(minutes=5)
+    c = holding_clock("do_winkler", T0, T0 + timedelta(hours=8, minutes=2), fixed_at=fixed)
+    assert c.deadline == fixed + timedelta(hours=8) and not c.expired
+    assert holding_clock("do_winkler", T0, T0 + timedelta(hours=8, minutes=2)).expired  # no fixing time: from collection
+
+
+def test_sop_override():
+    c = holding_clock("bod", T0, T0 + timedelta(hours=25), overrides={"bod": 24})
+    assert c.expired and "SOP" in c.rule.citation
+    assert holding_clock("do_probe", T0, T0 + timedelta(minutes=20), overrides={"bod": 24}).expired
+
+
+@pytest.mark.parametrize("kw, word", [
+    (dict(kind="ph"), "kind"), (dict(now=T0 - timedelta(minutes=1)), "before collected_at"),
+    (dict(now=datetime(2026, 6, 1, 9, 0)), "time zone"), (dict(overrides={"bod": -1}), "overrides"),
+    (dict(overrides={"nitrate": 48}), "unknown kind"), (dict(fixed_at=T0 - timedelta(minutes=1)), "fixed_at"),
+    (dict(collected_at="2026-06-01"), "collected_at"),
+])
+def test_refusals(kw, word):
+    args = dict(kind="bod", collected_at=T0, now=T0 + timedelta(hours=1))
+    args.update(kw)
+    with pytest.raises(ValueError, match=word):
+        holding_clock(**args)
