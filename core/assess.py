@@ -8,8 +8,8 @@ from core import conductivity as cond
 from core import oxygen
 from core._validate import choice, real
 from core.criteria import Criteria, do_criteria_flags
-from core.flags import Flag
-from core.pressure import sea_level_adjusted_flag
+from core.flags import Flag, Severity
+from core.pressure import station_pressure_flags
 from core.temperature import fahrenheit_hint
 
 __all__ = ["Assessment", "assess_reading", "SALINITY_SOURCES"]
@@ -76,7 +76,7 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
     method : {"benson-krause", "garcia-gordon"}
         Saturation equation (:func:`core.oxygen.do_saturation_mg_l`).
     elevation_m : float, optional
-        Site elevation, m; enables the sea-level-adjusted pressure check.
+        Site elevation, m; enables the station-pressure checks (sea-level adjusted; far below standard).
     water_class : {"warm", "cold"}, optional
         The stream's class for the criteria check.
     criteria : core.criteria.Criteria, optional
@@ -85,7 +85,7 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
     Returns
     -------
     Assessment
-        Values and flags (range, unit hints, pressure, criteria), mildest information kept.
+        The values and every flag raised (unit hints, fitted ranges, pressure checks, criteria).
 
     Raises
     ------
@@ -122,14 +122,20 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
     s = float(s)
 
     flags: list[Flag] = []
+    if s < 0.0:
+        # PSS-78 with Hill et al. dips just below zero for nearly pure water (< ~2–3 µS/cm); say so and use 0.
+        flags.append(Flag(
+            "salinity.below_formula_range", Severity.NOTE,
+            f"Conductivity {float(conductivity_us_cm):g} µS/cm is below what PSS-78 resolves (it gives"
+            f" {s:.5f}); salinity is taken as 0, which changes the saturation by less than 0.001 %.",
+            "Nothing to do unless the meter should read more: check the conductivity cell.", "salinity"))
+        s = 0.0
     hint = fahrenheit_hint(t)
     if hint is not None:
         flags.append(hint)
     flags.extend(oxygen.saturation_range_flags(t, p, s))
     if elevation_m is not None:
-        f = sea_level_adjusted_flag(p, float(real(elevation_m, "elevation_m")))
-        if f is not None:
-            flags.append(f)
+        flags.extend(station_pressure_flags(p, float(real(elevation_m, "elevation_m"))))
 
     sat = float(oxygen.do_saturation_mg_l(t, p, s, method))
     pct = None

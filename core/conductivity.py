@@ -251,7 +251,9 @@ def practical_salinity(conductivity_ms_cm, temp_c, pressure_dbar=0.0):
     Returns
     -------
     float or numpy.ndarray
-        Practical salinity, dimensionless.
+        Practical salinity, dimensionless. Below about 2–3 µS/cm (nearly pure water) the formula gives
+        values a little under zero (down to about −0.0003); they are returned as computed, not
+        clamped (gsw returns NaN there). :func:`core.assess.assess_reading` flags that case.
 
     References
     ----------

@@ -140,7 +140,7 @@ def _factor_scalar(t: float, p_atm: float) -> float:
     return (p_atm - pwv) * (1.0 - th * p_atm) / ((1.0 - pwv) * (1.0 - th))
 
 
-def _factor_array(t: np.ndarray, x: np.ndarray, p_atm) -> np.ndarray:
+def _factor_array(t: np.ndarray, x: np.ndarray, p_atm, offset: int = 0) -> np.ndarray:
     """Pressure factor on arrays; ``x`` is 1/T (kelvin) with t's shape."""
     lp = x * _WV2
     lp += _WV1
@@ -152,7 +152,7 @@ def _factor_array(t: np.ndarray, x: np.ndarray, p_atm) -> np.ndarray:
         i = int(np.argmin(num.ravel()))
         pi = float(np.broadcast_to(p_atm, num.shape).ravel()[i])
         ti = float(np.broadcast_to(t, num.shape).ravel()[i])
-        raise _no_air(pi * _ATM_HPA, ti, float(pwv.ravel()[i]), index=i)
+        raise _no_air(pi * _ATM_HPA, ti, float(pwv.ravel()[i]), index=offset + i)
     th = _theta_array(np.broadcast_to(t, num.shape))
     num *= 1.0 - th * p_atm
     np.subtract(1.0, th, out=th)
@@ -214,14 +214,33 @@ def _rho_scalar(t: float, s: float) -> float:
     return rw + s * (a + math.sqrt(s) * b + 4.8314e-4 * s)
 
 
+def _horner(x: np.ndarray, coeffs: tuple[float, ...]) -> np.ndarray:
+    """Polynomial in x, highest power first, evaluated in place on one new array."""
+    out = x * coeffs[0]
+    out += coeffs[1]
+    for c in coeffs[2:]:
+        out *= x
+        out += c
+    return out
+
+
+_RW = (6.536332e-9, -1.120083e-6, 1.001685e-4, -9.095290e-3, 6.793952e-2, 999.842594)
+_RA = (5.3875e-9, -8.2467e-7, 7.6438e-5, -4.0899e-3, 0.824493)
+_RB = (-1.6546e-6, 1.0227e-4, -5.72466e-3)
+
+
 def _rho_array(t: np.ndarray, s: np.ndarray) -> np.ndarray:
-    rw = 999.842594 + t * (6.793952e-2 + t * (-9.095290e-3 + t * (1.001685e-4 + t * (-1.120083e-6
-                                                                                      + t * 6.536332e-9))))
+    rw = _horner(t, _RW)  # pure water, EOS-80
     if np.ndim(s) == 0 and float(s) == 0.0:
         return rw
-    a = 0.824493 + t * (-4.0899e-3 + t * (7.6438e-5 + t * (-8.2467e-7 + t * 5.3875e-9)))
-    b = -5.72466e-3 + t * (1.0227e-4 - t * 1.6546e-6)
-    return rw + s * (a + np.sqrt(s) * b + 4.8314e-4 * s)
+    a = _horner(t, _RA)
+    b = _horner(t, _RB)
+    b *= np.sqrt(s)
+    a += b
+    a += 4.8314e-4 * s
+    a *= s
+    rw += a
+    return rw
 
 
 def o2_solubility_umol_kg(temp_c, salinity=0.0):
@@ -373,6 +392,25 @@ def do_saturation_mg_l(temp_c, pressure_hpa=1013.25, salinity=0.0, method="benso
         return c * _factor_scalar(t, p / _ATM_HPA)
 
     shape = np.broadcast_shapes(np.shape(t), np.shape(p), np.shape(s))
+    size = math.prod(shape)
+    if size > _CHUNK and all(np.ndim(a) == 0 or np.shape(a) == shape for a in (t, p, s)):
+        # Large arrays: work through cache-sized blocks so the temporaries never leave the CPU cache.
+        out = np.empty(shape)
+        flat = out.reshape(-1)
+        tf, pf, sf = (a if np.ndim(a) == 0 else np.ravel(a) for a in (t, p, s))
+        for i in range(0, size, _CHUNK):
+            j = min(i + _CHUNK, size)
+            flat[i:j] = _sat_block(*(a if np.ndim(a) == 0 else a[i:j] for a in (tf, pf, sf)), method, i)
+        return out
+    return _sat_block(t, p, s, method, 0)
+
+
+_CHUNK = 32768  # elements per block in the vectorised path (8 temporaries of 256 kB fit in L2/L3)
+
+
+def _sat_block(t, p, s, method: str, offset: int) -> np.ndarray:
+    """The vectorised saturation on one block (arrays already validated; scalars broadcast)."""
+    shape = np.broadcast_shapes(np.shape(t), np.shape(p), np.shape(s))
     t = np.broadcast_to(t, shape)
     x = t + 273.15
     np.reciprocal(x, out=x)  # 1/T
@@ -380,12 +418,13 @@ def do_saturation_mg_l(temp_c, pressure_hpa=1013.25, salinity=0.0, method="benso
         c = _bk_array(x, s)
     else:
         t68 = t * _T68_PER_T90
-        c = np.exp(_gg_ln_array(t68, s))
+        c = _gg_ln_array(t68, s)
+        np.exp(c, out=c)
         c *= _rho_array(t68, np.asarray(s))
         c *= _MG_PER_UMOL_O2 / 1000.0
     if np.ndim(p) == 0 and float(p) == _ATM_HPA:
         return c
-    c *= _factor_array(t, x, np.asarray(p) / _ATM_HPA)
+    c *= _factor_array(t, x, np.asarray(p) / _ATM_HPA, offset)
     return c
 
 

@@ -11,7 +11,8 @@ from core.flags import Flag, Severity
 __all__ = [
     "PRESSURE_UNITS", "HPA_PER_UNIT", "STANDARD_ATMOSPHERE_HPA", "SEA_LEVEL_ADJUSTED_THRESHOLD_HPA",
     "parse_pressure", "to_hpa", "from_hpa", "standard_pressure_hpa", "sea_level_to_station_hpa",
-    "station_to_sea_level_hpa", "sea_level_adjusted_flag",
+    "station_to_sea_level_hpa", "sea_level_adjusted_flag", "FAR_BELOW_THRESHOLD_HPA", "far_below_standard_flag",
+    "station_pressure_flags",
 ]
 
 #: Units accepted in text and by :func:`to_hpa` / :func:`from_hpa` (canonical spelling).
@@ -44,8 +45,13 @@ _ALIASES: dict[str, str] = {
 #: A station reading more than this far above the standard atmosphere at the site's elevation looks
 #: sea-level adjusted. Weather moves station pressure roughly ±30 hPa about the standard value
 #: (a strong high at sea level is about 1040 hPa); 40 hPa clears that, fires on a sea-level value
-#: at sites above about 350 m, and is about 4 % of the saturation target. [common practice; our choice]
+#: at sites above about 335 m, and is about 4 % of the saturation target. [common practice; our choice]
 SEA_LEVEL_ADJUSTED_THRESHOLD_HPA = 40.0
+
+#: A station reading more than this far below the standard atmosphere at the site's elevation is
+#: lower than anything but a strong tropical cyclone brings (about 930 hPa at sea level): usually a
+#: wrong unit (mmHg typed as hPa) or a wrong site elevation. [common practice; our choice]
+FAR_BELOW_THRESHOLD_HPA = 80.0
 
 # US Standard Atmosphere 1976, troposphere: P = P0 (1 - L h / T0)^(g M / (R L)).
 _USSA_K = 2.25577e-5  # L/T0 = 0.0065 K/m / 288.15 K, per metre
@@ -244,3 +250,52 @@ def sea_level_adjusted_flag(pressure_hpa: float, elevation_m: float,
         field="pressure_hpa",
     )
 
+
+
+def far_below_standard_flag(pressure_hpa: float, elevation_m: float,
+                            threshold_hpa: float = FAR_BELOW_THRESHOLD_HPA) -> Flag | None:
+    """Flags a station reading far below the standard atmosphere at the site (a wrong unit or elevation).
+
+    Parameters
+    ----------
+    pressure_hpa : float
+        Station pressure as entered, hPa (> 0).
+    elevation_m : float
+        Site elevation, m, −500 to 11 000.
+    threshold_hpa : float
+        How far below the standard atmosphere a reading may be; default
+        :data:`FAR_BELOW_THRESHOLD_HPA` (80 hPa, common practice).
+
+    Returns
+    -------
+    Flag or None
+        ``pressure.far_below_standard`` (warning), else None.
+    """
+    p = real(pressure_hpa, "pressure_hpa", lo=0.0, lo_open=True, unit="hPa")
+    thr = real(threshold_hpa, "threshold_hpa", lo=0.0, unit="hPa")
+    expected = standard_pressure_hpa(elevation_m)
+    deficit = expected - p
+    if not is_plain_scalar(deficit):
+        raise ValueError("pressure_hpa and elevation_m must be single numbers for this check")
+    if deficit <= thr:
+        return None
+    as_mmhg = p * HPA_PER_UNIT["mmHg"]
+    return Flag(
+        code="pressure.far_below_standard",
+        severity=Severity.WARNING,
+        message=(f"Pressure {p:.1f} hPa is {deficit:.0f} hPa below the standard atmosphere at"
+                 f" {float(elevation_m):.0f} m ({expected:.1f} hPa), lower than weather brings there."),
+        action=(f"Check the unit (if the barometer reads mmHg, {p:g} mmHg is {as_mmhg:.1f} hPa) and the"
+                " site's elevation."),
+        field="pressure_hpa",
+    )
+
+
+def station_pressure_flags(pressure_hpa: float, elevation_m: float) -> list[Flag]:
+    """Both plausibility checks of a station pressure against the site elevation.
+
+    Returns the flags of :func:`sea_level_adjusted_flag` and :func:`far_below_standard_flag`
+    (at most one of them fires).
+    """
+    flags = [sea_level_adjusted_flag(pressure_hpa, elevation_m), far_below_standard_flag(pressure_hpa, elevation_m)]
+    return [f for f in flags if f is not None]

@@ -1,6 +1,326 @@
-"""Sub-commands of `streamtab` (placeholder until its issue lands)."""
+"""Science sub-commands of `streamtab`: sat, salinity, winkler, bod (desk checks of the field arithmetic)."""
 from __future__ import annotations
 
+import json
+import re
+from pathlib import Path
+
+from mobile.cli._common import CliError, emit_json, emit_table
+
+__all__ = ["register"]
+
+_NUMBER = re.compile(r"^\s*([+-]?(?:\d+(?:[.,]\d*)?|[.,]\d+))\s*(.*?)\s*$")
+
+
+def _number(text: str, option: str, accepted: str, units: tuple[str, ...] = ()) -> float:
+    """A plain number (decimal comma allowed), optionally followed by one of ``units``."""
+    m = _NUMBER.match(text or "")
+    if m is None or ("," in text and "." in text):
+        raise CliError(f"{option} {text!r} is not a number; accepted: {accepted}")
+    if m.group(2) and m.group(2).lower().replace(" ", "") not in {u.lower() for u in units}:
+        raise CliError(f"{option} {text!r} has an unexpected unit {m.group(2)!r}; accepted: {accepted}")
+    return float(m.group(1).replace(",", "."))
+
+
+def _core(option: str, fn, *args, **kwargs):
+    """Calls core, turning its ValueError into a one-line CliError that names the option."""
+    try:
+        return fn(*args, **kwargs)
+    except ValueError as exc:
+        raise CliError(f"{option}: {str(exc).splitlines()[0] if str(exc) else 'invalid value'}") from None
+
+
+def _fmt(x: float | None, digits: int, unit: str = "") -> str:
+    if x is None:
+        return "-"
+    return f"{x:.{digits}f}{(' ' + unit) if unit else ''}"
+
+
+def _flag_rows(flags) -> list[tuple[str, str]]:
+    return [("flag", f"{f['severity']} {f['code']}: {f['message']}") for f in flags]
+
+
+# --- sat ------------------------------------------------------------------------------------------
+
+def _sat(args) -> int:
+    from core.assess import assess_reading
+    from core.conductivity import parse_conductivity
+    from core.pressure import parse_pressure
+    from core.temperature import parse_temperature
+
+    temp_c = _core("--temp", parse_temperature, args.temp)
+    pressure_hpa = _core("--pressure", parse_pressure, args.pressure)
+    salinity = None
+    if args.salinity is not None:
+        salinity = _number(args.salinity, "--salinity", "a practical salinity, 0 to 70 (fresh streams are under 1)")
+    cond = None
+    if args.conductivity is not None:
+        cond = _core("--conductivity", parse_conductivity, args.conductivity)
+    elif args.at_25:
+        raise CliError("--at-25 needs --conductivity; accepted: --conductivity '410 uS/cm' --at-25")
+    do_mg_l = do_percent = None
+    if args.do is not None:
+        value = _number(args.do, "--do", "DO in mg/L (e.g. 8.4), or in % saturation written with % (e.g. '92 %')",
+                        ("mg/L", "%"))
+        if args.do.strip().endswith("%"):
+            do_percent = value
+        else:
+            do_mg_l = value
+    elevation = None
+    if args.elevation is not None:
+        elevation = _number(args.elevation, "--elevation", "site elevation in metres, -500 to 11000", ("m",))
+    try:
+        a = assess_reading(temp_c, pressure_hpa, salinity=salinity, conductivity_us_cm=cond,
+                           conductivity_is_sc25=bool(args.at_25), do_mg_l=do_mg_l, do_percent=do_percent,
+                           method=args.method, elevation_m=elevation)
+    except ValueError as exc:
+        msg = _which_sat_option(str(exc))
+        if cond is not None and msg.startswith("--salinity"):
+            msg = "--conductivity: the salinity derived from it is impossible: " + msg[len("--salinity: "):]
+        raise CliError(msg) from None
+    d = a.to_dict()
+    if args.json:
+        emit_json(d)
+        return 0
+    src = {"given": "given", "conductivity": "from conductivity", "default": "fresh water, assumed"}
+    rows = [
+        ("saturation", f"{_fmt(a.do_sat_mg_l, 2, 'mg/L')} ({a.method})"),
+        ("temperature", _fmt(a.temp_c, 2, "°C")),
+        ("pressure", _fmt(a.pressure_hpa, 1, "hPa (station)")),
+        ("salinity", f"{a.salinity:.3f} ({src[a.salinity_source]})"),
+    ]
+    if a.specific_conductance_us_cm is not None:
+        rows.append(("specific conductance", _fmt(a.specific_conductance_us_cm, 0, "µS/cm at 25 °C")))
+    if a.do_mg_l is not None:
+        rows.append(("DO", _fmt(a.do_mg_l, 2, "mg/L")))
+        rows.append(("saturation %", _fmt(a.percent_saturation, 1, "%")))
+    rows += _flag_rows(d["flags"])
+    emit_table(rows)
+    return 0
+
+
+_SAT_NAMES = (("temp_c", "--temp"), ("pressure_hpa", "--pressure"), ("salinity", "--salinity"),
+              ("conductivity", "--conductivity"), ("do_mg_l", "--do"), ("do_percent", "--do"),
+              ("elevation_m", "--elevation"), ("method", "--method"))
+
+
+def _which_sat_option(message: str) -> str:
+    first = message.splitlines()[0] if message else "invalid value"
+    for name, option in _SAT_NAMES:
+        if first.startswith(name):
+            return f"{option}: {first}"
+    return first
+
+
+# --- salinity --------------------------------------------------------------------------------------
+
+def _salinity(args) -> int:
+    from core.conductivity import parse_conductivity, practical_salinity, specific_conductance_us_cm
+    from core.temperature import parse_temperature
+
+    us_cm = _core("--conductivity", parse_conductivity, args.conductivity)
+    temp_c = _core("--temp", parse_temperature, args.temp)
+    p = _number(args.pressure_dbar, "--pressure-dbar", "sea pressure in dbar, 0 to 11000 (0 at the surface)",
+                ("dbar",))
+    names = {"conductivity_ms_cm": "--conductivity", "conductivity_us_cm": "--conductivity", "temp_c": "--temp",
+             "pressure_dbar": "--pressure-dbar"}
+    try:
+        s = practical_salinity(us_cm / 1000.0, temp_c, p)
+        sc = specific_conductance_us_cm(us_cm, temp_c)
+    except ValueError as exc:
+        raise CliError(_name_option(str(exc), names)) from None
+    out = {"salinity": s, "specific_conductance_us_cm": sc, "conductivity_us_cm": us_cm, "temp_c": temp_c,
+           "pressure_dbar": p}
+    if args.json:
+        emit_json(out)
+        return 0
+    emit_table([("salinity", f"{s:.4f} (PSS-78)"),
+                ("specific conductance", _fmt(sc, 1, "µS/cm at 25 °C (linear, 0.0191 /°C)")),
+                ("conductivity", _fmt(us_cm, 1, f"µS/cm at {temp_c:g} °C"))])
+    return 0
+
+
+# --- winkler ---------------------------------------------------------------------------------------
+
+def _winkler(args) -> int:
+    from core.winkler import SAFETY_NOTE, original_sample_ml, winkler_do_mg_l
+
+    ml = ("mL",)
+    titrant = _number(args.titrant_ml, "--titrant-ml", "titrant volume in mL, 0 to 100", ml)
+    normality = _number(args.normality, "--normality", "titrant normality in eq/L, above 0 (usually 0.025)", ("N",))
+    titrated = _number(args.titrated_ml, "--titrated-ml", "volume titrated in mL, above 0 and at most the bottle", ml)
+    bottle = _number(args.bottle_ml, "--bottle-ml", "bottle volume in mL (usually 300)", ml)
+    reagents = _number(args.reagents_ml, "--reagents-ml", "total fixing reagents in mL (usually 2)", ml)
+    names = {"titrant_ml": "--titrant-ml", "normality": "--normality", "titrated_ml": "--titrated-ml",
+             "bottle_ml": "--bottle-ml", "reagents_ml": "--reagents-ml"}
+    try:
+        do = winkler_do_mg_l(titrant, normality, titrated, bottle, reagents)
+        orig = original_sample_ml(titrated, bottle, reagents)
+    except ValueError as exc:
+        raise CliError(_name_option(str(exc), names)) from None
+    if args.json:
+        emit_json({"do_mg_l": do, "original_sample_ml": orig})
+        return 0
+    emit_table([("DO", _fmt(do, 2, "mg/L")), ("original sample", _fmt(orig, 2, "mL")), ("caution", SAFETY_NOTE)])
+    return 0
+
+
+def _name_option(message: str, names: dict[str, str]) -> str:
+    first = message.splitlines()[0] if message else "invalid value"
+    for name, option in names.items():
+        if first.startswith(name):
+            return f"{option}: {first}"
+    return first
+
+
+# --- bod -------------------------------------------------------------------------------------------
+
+_BOD_SINGLE = ("initial", "final", "sample_ml", "seed_ml", "seed_uptake")
+
+
+def _bod(args) -> int:
+    from core.bod import bod_dilution
+
+    given = [n for n in _BOD_SINGLE if getattr(args, n) is not None]
+    if args.dilutions is not None:
+        if given:
+            raise CliError(f"--dilutions cannot be combined with --{given[0].replace('_', '-')}; accepted: either"
+                           " --dilutions FILE or --initial/--final/--sample-ml")
+        return _bod_file(args)
+    for n in ("initial", "final", "sample_ml"):
+        if getattr(args, n) is None:
+            raise CliError(f"--{n.replace('_', '-')} is missing; accepted: --initial, --final and --sample-ml"
+                           " (mg/L, mg/L, mL), or --dilutions FILE")
+    if (args.seed_ml is None) != (args.seed_uptake is None):
+        raise CliError("--seed-ml and --seed-uptake go together; accepted: both (mL of seed, and mg/L per mL"
+                       " from the seed controls) or neither")
+    mg = ("mg/L",)
+    kw = dict(
+        initial_do_mg_l=_number(args.initial, "--initial", "initial DO in mg/L, 0 to 70", mg),
+        final_do_mg_l=_number(args.final, "--final", "final DO in mg/L, 0 to 70", mg),
+        sample_ml=_number(args.sample_ml, "--sample-ml", "sample volume in mL, above 0", ("mL",)),
+        bottle_ml=_number(args.bottle_ml, "--bottle-ml", "bottle volume in mL (usually 300)", ("mL",)),
+    )
+    if args.seed_ml is not None:
+        kw["seed_ml"] = _number(args.seed_ml, "--seed-ml", "seed volume in mL, 0 or more", ("mL",))
+        kw["seed_uptake_mg_l_per_ml"] = _number(args.seed_uptake, "--seed-uptake",
+                                                "seed uptake in mg/L per mL of seed, 0 or more")
+    names = {"initial_do_mg_l": "--initial", "final_do_mg_l": "--final", "sample_ml": "--sample-ml",
+             "bottle_ml": "--bottle-ml", "seed_ml": "--seed-ml", "seed_uptake_mg_l_per_ml": "--seed-uptake"}
+    try:
+        d = bod_dilution(**kw)
+    except ValueError as exc:
+        raise CliError(_name_option(str(exc), names)) from None
+    flags = [f.to_dict() for f in d.flags]
+    if args.json:
+        emit_json({"bod_mg_l": d.bod_mg_l, "valid": d.valid, "flags": flags,
+                   "depletion_mg_l": d.depletion_mg_l, "seed_correction_mg_l": d.seed_correction_mg_l})
+        return 0
+    emit_table([("BOD5", _fmt(d.bod_mg_l, 1, "mg/L") + ("" if d.valid else " (not valid)")),
+                ("depletion", _fmt(d.depletion_mg_l, 2, "mg/L")),
+                ("seed correction", _fmt(d.seed_correction_mg_l, 2, "mg/L"))] + _flag_rows(flags))
+    return 0
+
+
+def _bod_file(args) -> int:
+    from core.bod import bod_from_dilutions, seed_uptake_per_ml
+
+    path = Path(args.dilutions)
+    try:
+        raw = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise CliError(f"--dilutions {str(path)!r} does not exist; accepted: a JSON file of dilutions") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise CliError(f"--dilutions {str(path)!r} cannot be read ({type(exc).__name__}); accepted: a readable"
+                       " UTF-8 JSON file") from None
+    try:
+        doc = json.loads(raw)
+    except json.JSONDecodeError as exc:
+        raise CliError(f"--dilutions {str(path)!r} is not valid JSON (line {exc.lineno}, column {exc.colno});"
+                       " accepted: a list of dilutions or an object with \"dilutions\"") from None
+    controls = None
+    if isinstance(doc, dict):
+        unknown = sorted(set(doc) - {"dilutions", "seed_controls"})
+        if unknown:
+            raise CliError(f"--dilutions {str(path)!r} has an unknown key {unknown[0]!r}; accepted keys:"
+                           " dilutions, seed_controls")
+        controls = doc.get("seed_controls")
+        doc = doc.get("dilutions")
+    if not isinstance(doc, list):
+        raise CliError(f"--dilutions {str(path)!r} holds no list of dilutions; accepted: a JSON list of objects"
+                       " with initial_do_mg_l, final_do_mg_l, sample_ml (or an object with \"dilutions\")")
+    if controls is not None:
+        s = _core("--dilutions seed_controls", seed_uptake_per_ml, controls)
+        doc = [dict(d, seed_uptake_mg_l_per_ml=d.get("seed_uptake_mg_l_per_ml", s))
+               if isinstance(d, dict) and d.get("seed_ml") else d for d in doc]
+    r = _core("--dilutions", bod_from_dilutions, doc)
+    d = r.to_dict()
+    if args.json:
+        emit_json(d)
+        return 0
+    rows = [("BOD5", _fmt(r.bod_mg_l, 1, "mg/L") if r.valid else "no valid dilution")]
+    for i, dil in enumerate(r.dilutions, 1):
+        rows.append((f"dilution {i}", f"{dil.sample_ml:g} mL: {dil.bod_mg_l:.1f} mg/L, depletion"
+                                      f" {dil.depletion_mg_l:.2f} mg/L, {'valid' if dil.valid else 'not valid'}"))
+    rows += _flag_rows(d["flags"])
+    emit_table(rows)
+    return 0
+
+
+# --- registration ----------------------------------------------------------------------------------
 
 def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
-    """Adds this module's sub-commands to the top-level parser."""
+    """Adds this module's sub-commands (sat, salinity, winkler, bod) to the top-level parser."""
+    from core.oxygen import METHODS
+
+    p = sub.add_parser("sat", help="DO saturation target and % saturation of a reading",
+                       description="Saturation target at the water temperature and station pressure; with --do,"
+                                   " the reading's % saturation. Informs only: the program's SOP decides.")
+    p.add_argument("--temp", required=True, help="water temperature, e.g. 18.5 (°C) or '65 F'")
+    p.add_argument("--pressure", required=True,
+                   help="station pressure with unit: '752 mmHg', '29.61inHg', '1002.3 hPa' (not sea-level adjusted)")
+    g = p.add_mutually_exclusive_group()
+    g.add_argument("--salinity", help="practical salinity (default 0)")
+    g.add_argument("--conductivity", help="conductivity at the water temperature with unit, e.g. '410 uS/cm'")
+    p.add_argument("--at-25", action="store_true", help="--conductivity is already specific conductance at 25 °C")
+    p.add_argument("--do", help="DO reading in mg/L (e.g. 8.4), or in %% written with %% (e.g. '92 %%')")
+    p.add_argument("--elevation", help="site elevation in m; checks for a sea-level-adjusted pressure")
+    p.add_argument("--method", default="benson-krause", choices=METHODS, help="solubility equation")
+    p.add_argument("--json", action="store_true", help="print JSON")
+    p.set_defaults(handler=_sat)
+
+    p = sub.add_parser("salinity", help="practical salinity (PSS-78) from conductivity",
+                       description="Practical salinity from conductivity and temperature (PSS-78, Hill et al."
+                                   " 1986 below 2) and specific conductance at 25 °C.")
+    p.add_argument("--conductivity", required=True, help="conductivity with unit, e.g. '42.914 mS/cm'")
+    p.add_argument("--temp", required=True, help="temperature, °C (or '65 F')")
+    p.add_argument("--pressure-dbar", default="0", help="sea pressure in dbar (default 0, the surface)")
+    p.add_argument("--json", action="store_true", help="print JSON")
+    p.set_defaults(handler=_salinity)
+
+    p = sub.add_parser("winkler", help="DO from a Winkler (azide) titration",
+                       description="DO from a Winkler titration, azide modification, with the correction for"
+                                   " sample displaced by the fixing reagents. Caution: corrosive and toxic"
+                                   " reagents; follow your program's SOP.")
+    p.add_argument("--titrant-ml", required=True, help="thiosulfate used, mL")
+    p.add_argument("--normality", required=True, help="thiosulfate normality, e.g. 0.025")
+    p.add_argument("--titrated-ml", required=True, help="volume titrated, mL (e.g. 201)")
+    p.add_argument("--bottle-ml", default="300", help="bottle volume, mL (default 300)")
+    p.add_argument("--reagents-ml", default="2", help="total fixing reagents added, mL (default 2)")
+    p.add_argument("--json", action="store_true", help="print JSON")
+    p.set_defaults(handler=_winkler)
+
+    p = sub.add_parser("bod", help="BOD5 from a dilution (or a file of dilutions)",
+                       description="BOD5 by Standard Methods 5210 B: one dilution from the options, or several"
+                                   " of one sample from a JSON file.")
+    p.add_argument("--initial", help="initial DO of the dilution, mg/L")
+    p.add_argument("--final", help="DO after 5 days, mg/L")
+    p.add_argument("--sample-ml", help="sample volume in the bottle, mL")
+    p.add_argument("--bottle-ml", default="300", help="bottle volume, mL (default 300)")
+    p.add_argument("--seed-ml", help="seed volume in the bottle, mL")
+    p.add_argument("--seed-uptake", help="seed uptake, mg/L per mL of seed")
+    p.add_argument("--dilutions", metavar="FILE",
+                   help="JSON file: a list of {initial_do_mg_l, final_do_mg_l, sample_ml[, bottle_ml, seed_ml,"
+                        " seed_uptake_mg_l_per_ml]} or an object with dilutions and seed_controls")
+    p.add_argument("--json", action="store_true", help="print JSON")
+    p.set_defaults(handler=_bod)

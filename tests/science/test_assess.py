@@ -70,3 +70,16 @@ def test_garcia_gordon_method_and_version():
     assert a.method == "garcia-gordon"
     assert a.do_sat_mg_l == pytest.approx(284.625 * 0.99820 * 0.0319988, abs=0.001)
     assert a.core_version
+
+
+def test_nearly_pure_water_conductivity_is_flagged_and_uses_zero():
+    # PSS-78 (gsw.SP_from_C gives NaN here) cannot resolve 0.5 µS/cm: salinity 0 with a note, saturation as fresh
+    a = assess_reading(20.0, 1013.25, conductivity_us_cm=0.5)
+    assert a.salinity == 0.0 and [f.code for f in a.flags] == ["salinity.below_formula_range"]
+    assert a.do_sat_mg_l == pytest.approx(9.092, abs=0.002)  # 4500-O:I, 20 °C, S 0
+
+
+def test_pressure_checks_need_elevation():
+    # common practice: 752 typed as hPa at a 100 m site is a mmHg value; only checked when the elevation is known
+    assert [f.code for f in assess_reading(20.0, 752.0, elevation_m=100.0).flags] == ["pressure.far_below_standard"]
+    assert assess_reading(20.0, 752.0).flags == []

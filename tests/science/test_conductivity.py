@@ -115,3 +115,14 @@ def test_bad_values_refused():
         specific_conductance_us_cm(10.0, 10.0, method="cubic")
     with pytest.raises(ValueError, match="^alpha"):
         specific_conductance_us_cm(10.0, 10.0, alpha=-0.02)
+
+
+def test_nearly_pure_water_is_computed_not_clamped():
+    # gsw.SP_from_C returns NaN where PSS-78 with Hill et al. dips below 0 (< ~2 µS/cm); we return the
+    # computed value, and match gsw wherever gsw gives a number
+    c = np.array([0.0005, 0.001, 0.002, 0.005])
+    ours = practical_salinity(c, 20.0)
+    ref = gsw.SP_from_C(c, 20.0, 0.0)
+    assert np.all(np.isfinite(ours)) and ours[0] < 0 and ours[0] > -0.001
+    ok = np.isfinite(ref)
+    assert ok.sum() >= 2 and np.allclose(ours[ok], ref[ok], rtol=0, atol=1e-10)

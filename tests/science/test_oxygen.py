@@ -177,3 +177,33 @@ def test_percent_saturation_and_back():
         percent_saturation(8.0, 0.0)
     with pytest.raises(ValueError, match="^do_percent"):
         do_mg_l_from_percent(-3.0, 9.0)
+
+
+def test_large_arrays_take_the_blocked_path_and_agree():
+    # common practice: the cache-blocked path is the same equation; table check 20 °C, S 0 -> 9.092 (4500-O:I)
+    n = oxygen._CHUNK * 3 + 17
+    rng = np.random.default_rng(7)
+    t = rng.uniform(0.0, 40.0, n)
+    t[n - 1] = 20.0
+    p = rng.uniform(600.0, 1100.0, n)
+    p[n - 1] = ATM
+    s = rng.uniform(0.0, 40.0, n)
+    s[n - 1] = 0.0
+    for method in oxygen.METHODS:
+        big = do_saturation_mg_l(t, p, s, method)
+        assert big.shape == (n,)
+        for i in (0, oxygen._CHUNK - 1, oxygen._CHUNK, 2 * oxygen._CHUNK + 5, n - 1):
+            assert big[i] == pytest.approx(do_saturation_mg_l(float(t[i]), float(p[i]), float(s[i]), method),
+                                           rel=1e-13)
+        assert abs(big[n - 1] - 9.092) <= 0.002
+    two_d = do_saturation_mg_l(t[: 2 * 40000].reshape(2, 40000), 1000.0, 0.0)
+    assert two_d.shape == (2, 40000) and two_d[1, 5] == pytest.approx(do_saturation_mg_l(float(t[40005]), 1000.0))
+
+
+def test_no_air_error_names_the_right_index_in_a_large_array():
+    n = oxygen._CHUNK * 2 + 10
+    t = np.full(n, 20.0)
+    t[oxygen._CHUNK + 3] = 85.0
+    p = np.full(n, 500.0)  # below the water-vapour pressure at 85 °C (about 578 hPa)
+    with pytest.raises(ValueError, match=rf"^pressure_hpa\[{oxygen._CHUNK + 3}\]"):
+        do_saturation_mg_l(t, p)

@@ -119,3 +119,15 @@ def test_conversion_refuses_negative_and_unknown_units():
         to_hpa(1.0, "bar of soap")
     with pytest.raises(ValueError, match="^pressure_hpa"):
         from_hpa(float("nan"), "mmHg")
+
+
+def test_far_below_standard_catches_mmhg_typed_as_hpa():
+    # common practice: 752 (a mmHg reading) entered as hPa at a 100 m site is 249 hPa too low
+    from core.pressure import far_below_standard_flag, station_pressure_flags
+    f = far_below_standard_flag(752.0, 100.0)
+    assert f is not None and f.code == "pressure.far_below_standard" and "mmHg" in f.action
+    # the deepest ordinary lows at sea level (about 950 hPa) and a true reading at 2500 m are not flagged
+    assert far_below_standard_flag(950.0, 0.0) is None
+    assert far_below_standard_flag(standard_pressure_hpa(2500.0) - 30.0, 2500.0) is None
+    assert [x.code for x in station_pressure_flags(1016.0, 1200.0)] == ["pressure.sea_level_adjusted"]
+    assert station_pressure_flags(1005.0, 50.0) == []
