@@ -1,1 +1,12 @@
-"""streamtab sync: moving trips between the device store and a hub (folder, WebDAV, HTTP endpoint)."""
+"""streamtab sync: moving trips between the device store and a hub (folder, WebDAV, HTTP endpoint).
+
+One-liners: ``sync.push(store, "https://dav.example.org/hub/")``, ``sync.pull(store, "/mnt/hub")``,
+``sync.status(store)``. Policy lives in `sync.session.Session`; errors in `sync.errors`.
+"""
+from sync import errors
+from sync.engine import (HubState, PullReport, PushReport, TripResult, TripSyncState, pull, push,
+                         status)
+from sync.session import Credentials, RetryPolicy, Session, load_credentials
+
+__all__ = ["push", "pull", "status", "PushReport", "PullReport", "TripResult", "TripSyncState",
+           "HubState", "Session", "RetryPolicy", "Credentials", "load_credentials", "errors"]

@@ -1,6 +1,183 @@
-"""Sub-commands of `streamtab` (placeholder until its issue lands)."""
+"""`streamtab sync push|pull|status`: send trips to a hub, bring them back, and see what is where.
+
+Exit status: 0 when everything went, 1 when something is left for the next sync (the hub was
+unreachable, timed out or answered 5xx; an endpoint reported a conflict), 2 for bad input (a
+wrong address, options, credentials, TLS or a redirect).
+"""
 from __future__ import annotations
+
+import os
+import sys
+from typing import Any
+
+from mobile.cli._common import EXIT_OK, EXIT_RETRY, emit_json, emit_table, fail
+
+__all__ = ["register"]
 
 
 def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
-    """Adds this module's sub-commands to the top-level parser."""
+    """Adds `sync push`, `sync pull` and `sync status` to the top-level parser."""
+    p = sub.add_parser("sync", help="send trips to a hub (folder, WebDAV, HTTP endpoint) and back",
+                       description="Send trips to a hub and bring them back.")
+    verbs = p.add_subparsers(dest="sync_command", required=True, parser_class=type(p))
+
+    def common(q, with_hub: bool = True) -> None:  # noqa: ANN001
+        q.add_argument("--data-dir", help="device store folder (else $STREAMTAB_DATA, else the user folder)")
+        q.add_argument("--json", action="store_true", help="print the result as JSON")
+        if with_hub:
+            q.add_argument("--ca-file", help="PEM file of the program's own certificate authority")
+            q.add_argument("--credentials", help="owner-only INI file with the hub's user and password "
+                                                  "or token (else environment, else <data dir>/sync/credentials.ini)")
+            q.add_argument("--timeout", type=float, default=30.0,
+                           help="seconds to wait for each answer from the hub (default 30)")
+
+    push = verbs.add_parser("push", help="send every trip changed since its last push")
+    push.add_argument("--to", required=True, metavar="TARGET",
+                      help="folder or file:// URL, https:// WebDAV collection, or post+https:// endpoint")
+    common(push)
+    push.set_defaults(handler=_push)
+
+    pull = verbs.add_parser("pull", help="bring every trip from a hub into this store, merging")
+    pull.add_argument("--from", dest="source", required=True, metavar="TARGET",
+                      help="folder or file:// URL, or https:// WebDAV collection")
+    common(pull)
+    pull.set_defaults(handler=_pull)
+
+    st = verbs.add_parser("status", help="what each hub holds of every trip on this device")
+    common(st, with_hub=False)
+    st.set_defaults(handler=_status)
+
+
+class _Bar:
+    """A progress bar on stderr (redrawn in place on a terminal, one line per trip otherwise)."""
+
+    def __init__(self, verb: str) -> None:
+        self.verb = verb
+        self.tty = sys.stderr.isatty()
+        self.drawn = False
+
+    def __call__(self, done: int, total: int, trip_id: str, result: str) -> None:
+        width = 24
+        filled = int(width * done / total) if total else width
+        line = f"{self.verb} [{'#' * filled}{'.' * (width - filled)}] {done}/{total} {trip_id[:8]} {result}"
+        if self.tty:
+            sys.stderr.write("\r" + line.ljust(78))
+        else:
+            sys.stderr.write(line + "\n")
+        sys.stderr.flush()
+        self.drawn = True
+
+    def finish(self) -> None:
+        if self.drawn and self.tty:
+            sys.stderr.write("\n")
+            sys.stderr.flush()
+        self.drawn = False
+
+
+def _open_store(args: Any):  # noqa: ANN202
+    from core.paths import resolve_data_dir
+    from core.store import DeviceStore, StoreError
+
+    try:
+        return DeviceStore.open(resolve_data_dir(args.data_dir))
+    except StoreError as exc:
+        fail(str(exc))
+
+
+def _session(args: Any, store: Any, address: str):  # noqa: ANN202
+    from sync.errors import SyncError
+    from sync.session import ENV_CA_FILE, Session, load_credentials
+
+    if not (0 < args.timeout <= 600):
+        fail(f"--timeout {args.timeout:g} must be between 0 and 600 seconds")
+    try:
+        creds = load_credentials(address, config_file=args.credentials, data_dir=store.data_dir)
+        return Session(store.device_id, credentials=creds, read_timeout_s=args.timeout,
+                       connect_timeout_s=min(10.0, args.timeout),
+                       ca_file=args.ca_file or os.environ.get(ENV_CA_FILE) or None)
+    except SyncError as exc:
+        fail(str(exc))
+
+
+def _run(args: Any, verb: str, address: str):  # noqa: ANN202
+    import sync
+    from core.store import StoreLocked
+    from sync.errors import FinalError, RetryableError
+
+    store = _open_store(args)
+    session = _session(args, store, address)
+    bar = _Bar(verb)
+    try:
+        fn = sync.push if verb == "push" else sync.pull
+        return fn(store, address, progress=bar, session=session), None
+    except FinalError as exc:
+        bar.finish()
+        fail(str(exc))
+    except (RetryableError, StoreLocked) as exc:
+        bar.finish()
+        return None, str(exc)
+    finally:
+        bar.finish()
+        session.close()
+
+
+def _push(args: Any) -> int:
+    report, problem = _run(args, "push", args.to)
+    if report is None:
+        return _left(args, {"pushed": 0, "unchanged": 0, "conflicts": 0, "failed": 0}, problem)
+    if args.json:
+        emit_json(report.to_dict())
+    else:
+        emit_table([("hub", report.target), ("pushed", str(report.pushed)),
+                    ("unchanged", str(report.unchanged)), ("conflicts", str(report.conflicts)),
+                    ("failed", str(report.failed))])
+        _details(report.per_trip)
+    return EXIT_OK if report.complete else EXIT_RETRY
+
+
+def _pull(args: Any) -> int:
+    report, problem = _run(args, "pull", args.source)
+    if report is None:
+        return _left(args, {"pulled": 0, "merged": 0, "quarantined": 0}, problem)
+    if args.json:
+        emit_json(report.to_dict())
+    else:
+        emit_table([("hub", report.source), ("pulled", str(report.pulled)),
+                    ("merged", str(report.merged)), ("quarantined", str(report.quarantined)),
+                    ("unchanged", str(report.unchanged)), ("failed", str(report.failed))])
+        _details(report.per_trip)
+    return EXIT_OK if report.complete else EXIT_RETRY
+
+
+def _left(args: Any, zeros: dict, problem: str | None) -> int:
+    sys.stderr.write(f"streamtab: not synced — will retry: {problem}\n")
+    if args.json:
+        emit_json({**zeros, "error": problem})
+    return EXIT_RETRY
+
+
+def _details(per_trip: list) -> None:
+    for t in per_trip:
+        if t.result not in ("pushed", "unchanged", "pulled"):
+            sys.stdout.write(f"{t.trip_id}  {t.result}: {t.message}\n")
+        for line in t.conflicts:
+            sys.stdout.write(f"    needs attention: {line}\n")
+
+
+def _status(args: Any) -> int:
+    import sync
+
+    store = _open_store(args)
+    states = sync.status(store)
+    if args.json:
+        emit_json({"trips": [s.to_dict() for s in states]})
+        return EXIT_OK
+    if not states:
+        sys.stdout.write("no trips on this device\n")
+    for s in states:
+        hubs = ", ".join(f"{h.hub}: {h.state}" for h in s.hubs) or "no hub yet"
+        flag = "  NEEDS ATTENTION" if s.needs_attention else ""
+        sys.stdout.write(f"{s.trip_id}  revision {s.revision}  {s.state} ({hubs}){flag}\n")
+        for line in s.conflicts:
+            sys.stdout.write(f"    {line}\n")
+    return EXIT_OK

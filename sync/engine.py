@@ -1,0 +1,557 @@
+"""The sync shell: builds manifests from the store and the outbox, applies the pure plan through a
+target, merges with what the hub holds, and reports per trip.
+
+``push(store, target)`` sends every trip changed since its last push; ``pull(store, source)``
+brings in every revision at the hub this device has not seen, merging it with the device copy;
+``status(store)`` says, per trip, what each hub has. The store only needs ``data_dir``,
+``device_id``, ``list_trips()``, ``trip_document(id)`` and ``put_document(doc, change)``.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import logging
+import os
+import time
+from dataclasses import asdict, dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any, Callable, Iterable
+
+from core.atomic import atomic_write_bytes, canonical_json_bytes
+from sync import errors
+from sync.layout import canonical_trip_id, revision_name, trip_year
+from sync.merge import common_ancestor, describe_conflict, history, merge_trips, relation
+from sync.outbox import Outbox, OutboxEntry, hubs
+from sync.plan import Action, LocalEntry, RemoteEntry, plan, plan_pull
+from sync.session import ENV_CA_FILE, Session, load_credentials
+from sync.targets import RemoteFile, Target, WebDavTarget, open_target
+
+__all__ = ["push", "pull", "status", "PushReport", "PullReport", "TripResult", "TripSyncState",
+           "HubState", "Progress", "BOOKKEEPING_KEYS"]
+
+log = logging.getLogger("streamtab.sync")
+
+Progress = Callable[[int, int, str, str], None]
+#: Fields that change on every save and say nothing about the field work itself.
+BOOKKEEPING_KEYS = frozenset({"revision", "updated_at", "device_id", "audit", "content_hash"})
+#: After this many trips in a row fail with a retryable error, the rest are not tried this run.
+GIVE_UP_AFTER = 3
+
+
+@dataclass
+class TripResult:
+    """What happened to one trip. `result` is one of pushed, unchanged, conflict, failed
+    (push) or pulled, merged, unchanged, quarantined, failed (pull)."""
+
+    trip_id: str
+    result: str
+    message: str = ""
+    revision: int | None = None
+    conflicts: list[str] = field(default_factory=list)   # readable lines, one per field
+
+
+@dataclass
+class PushReport:
+    pushed: int = 0
+    unchanged: int = 0
+    conflicts: int = 0
+    failed: int = 0
+    per_trip: list[TripResult] = field(default_factory=list)
+    target: str = ""
+
+    @property
+    def complete(self) -> bool:
+        """True when nothing is left to retry."""
+        return self.failed == 0 and not any(t.result == "conflict" and "409" in t.message
+                                            for t in self.per_trip)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"pushed": self.pushed, "unchanged": self.unchanged, "conflicts": self.conflicts,
+                "failed": self.failed, "target": self.target,
+                "per_trip": [asdict(t) for t in self.per_trip]}
+
+
+@dataclass
+class PullReport:
+    pulled: int = 0
+    merged: int = 0
+    quarantined: int = 0
+    per_trip: list[TripResult] = field(default_factory=list)
+    unchanged: int = 0
+    failed: int = 0
+    source: str = ""
+
+    @property
+    def complete(self) -> bool:
+        return self.failed == 0
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"pulled": self.pulled, "merged": self.merged, "quarantined": self.quarantined,
+                "unchanged": self.unchanged, "failed": self.failed, "source": self.source,
+                "per_trip": [asdict(t) for t in self.per_trip]}
+
+
+@dataclass
+class HubState:
+    hub: str
+    pushed_revision: int | None
+    state: str            # "synced" | "changed" | "never pushed"
+    pushed_at: str | None = None
+
+
+@dataclass
+class TripSyncState:
+    trip_id: str
+    revision: int
+    content_hash: str
+    state: str            # "synced" (every hub has this revision), "changed", "never pushed"
+    needs_attention: bool = False
+    conflicts: list[str] = field(default_factory=list)
+    hubs: list[HubState] = field(default_factory=list)
+
+    def to_dict(self) -> dict[str, Any]:
+        return asdict(self)
+
+
+# --- helpers -----------------------------------------------------------------------------------
+def _now() -> str:
+    return datetime.now(timezone.utc).isoformat(timespec="seconds")
+
+
+def _sha(data: bytes) -> str:
+    return "sha256:" + hashlib.sha256(data).hexdigest()
+
+
+def _semantic(doc: dict) -> bytes:
+    return canonical_json_bytes({k: v for k, v in doc.items() if k not in BOOKKEEPING_KEYS})
+
+
+def _attr(obj: Any, name: str, default: Any = None) -> Any:
+    if isinstance(obj, dict):
+        return obj.get(name, default)
+    return getattr(obj, name, default)
+
+
+def _summaries(store: Any) -> dict[str, tuple[int, str]]:
+    out = {}
+    for s in store.list_trips():
+        tid = str(_attr(s, "id"))
+        out[tid] = (int(_attr(s, "revision", 0) or 0), str(_attr(s, "content_hash", "") or ""))
+    return out
+
+
+def _session_for(store: Any, address: str, session: Session | None) -> Session:
+    if session is None:
+        ca = os.environ.get(ENV_CA_FILE) or None
+        session = Session(store.device_id,
+                          credentials=load_credentials(address, data_dir=store.data_dir),
+                          ca_file=ca)
+    if session.device_id is None:
+        session.device_id = str(store.device_id)
+    return session
+
+
+def _notify(progress: Progress | None, done: int, total: int, trip_id: str, result: str) -> None:
+    if progress is None:
+        return
+    try:
+        progress(done, total, trip_id, result)
+    except Exception:  # a broken progress display must not stop a sync
+        log.warning("progress callback failed", exc_info=True)
+
+
+def _conflict_lines(conflicts: Iterable[dict]) -> list[str]:
+    return [c.get("message") or describe_conflict(c) for c in conflicts]
+
+
+def _parse_hub_doc(f: RemoteFile, data: bytes) -> dict:
+    try:
+        doc = json.loads(data.decode("utf-8"))
+    except (UnicodeDecodeError, ValueError):
+        raise errors.BadHubDocument(f"hub file {f.name} of trip {f.trip_id} is not valid JSON") from None
+    if not isinstance(doc, dict):
+        raise errors.BadHubDocument(f"hub file {f.name} of trip {f.trip_id} is not a JSON object")
+    if str(doc.get("id")) != f.trip_id:
+        raise errors.BadHubDocument(
+            f"hub file {f.name} sits in the folder of trip {f.trip_id} but carries id {doc.get('id')!r}")
+    rev = doc.get("revision")
+    if not isinstance(rev, int) or isinstance(rev, bool) or rev != f.revision:
+        raise errors.BadHubDocument(
+            f"hub file {f.name} carries revision {rev!r}, not the {f.revision} its name says")
+    return doc
+
+
+def _fold(local: dict | None, incoming: list[dict], candidates: list[dict]) -> tuple[dict | None, str, list[dict]]:
+    """Folds hub documents into the device copy; returns (doc, kind, new conflicts) where kind
+    is "unchanged", "pulled" (fast-forward or new) or "merged"."""
+    acc, kind, conflicts = local, "unchanged", []
+    for doc in sorted(incoming, key=lambda d: (d.get("revision", 0), canonical_json_bytes(d))):
+        if acc is None:
+            acc, kind = doc, "pulled"
+            continue
+        rel = relation(doc, acc)
+        if rel in ("same", "ancestor"):
+            continue
+        if rel == "descendant":
+            acc = doc
+            kind = "merged" if kind == "merged" else "pulled"
+            continue
+        base = common_ancestor(candidates + incoming, acc, doc)
+        result = merge_trips(base, acc, doc)
+        acc, kind = result.doc, "merged"
+        conflicts.extend(result.new_conflicts)
+    return acc, kind, conflicts
+
+
+def _extra_ancestors(tgt: Target, session: Session, year: str, tid: str, local: dict,
+                     docs: list[dict], candidates: list[dict], seen_names: list[str]) -> list[dict]:
+    """Hub files already seen, read back only when no known document is a common ancestor of
+    the device copy and a diverged hub document (then the merge would be two-way)."""
+    def lacking() -> bool:
+        return any(relation(d, local) == "diverged" and common_ancestor(candidates + docs + extra, local, d) is None
+                   for d in docs)
+    extra: list[dict] = []
+    if not lacking():
+        return extra
+    for name in sorted(seen_names, reverse=True)[:8]:      # newest first, bounded
+        f = RemoteFile(tid, year, name)
+        try:
+            extra.append(_parse_hub_doc(f, tgt.read(f, session.max_document_bytes)))
+        except (errors.BadHubDocument, errors.IntegrityError, errors.Rejected):
+            continue
+        if not lacking():
+            break
+    return extra
+
+
+def _quarantine(data_dir: Path, f: RemoteFile, data: bytes | None, reason: str) -> Path:
+    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+    folder = Path(data_dir) / "sync" / "quarantine"
+    base = folder / f"{stamp}-{f.trip_id}-{f.name}"
+    if data is not None:
+        atomic_write_bytes(base, data)
+    report = (f"hub file: trips/{f.year}/{f.trip_id}/{f.name}\nfound: {_now()}\nreason: {reason}\n"
+              + ("" if data is not None else "content: not copied (refused before or while reading)\n"))
+    atomic_write_bytes(base.with_name(base.name + ".report.txt"), report.encode("utf-8"))
+    return base
+
+
+def _store_rejects(exc: Exception) -> bool:
+    """True for the store's 'this document is not valid' errors (not locks or I/O)."""
+    from core.store import InvalidRecord, NewerSchemaError
+
+    return isinstance(exc, (InvalidRecord, NewerSchemaError))
+
+
+# --- push ----------------------------------------------------------------------------------------
+def push(store: Any, target: str, *, progress: Progress | None = None,
+         session: Session | None = None) -> PushReport:
+    """Sends every trip changed since its last push to the hub at `target`.
+
+    Parameters
+    ----------
+    store : core.store.DeviceStore
+    target : str
+        A folder path or ``file://`` URL, an ``https://`` WebDAV collection, or a
+        ``post+https://`` endpoint (see `sync.targets`).
+    progress : callable, optional
+        ``progress(done, total, trip_id, result)`` after each trip.
+    session : Session, optional
+        Policy (credentials, timeouts, retries, CA file); by default credentials come from the
+        environment or ``<data dir>/sync/credentials.ini``.
+
+    Raises
+    ------
+    sync.errors.ConfigError, sync.errors.Unauthorized
+        When the address, credentials, TLS or a redirect make every trip fail alike.
+    """
+    session = _session_for(store, target, session)
+    tgt = open_target(target, session)
+    report = PushReport(target=tgt.url)
+    outbox = Outbox(store.data_dir, tgt.key, tgt.url)
+    summaries = _summaries(store)
+    known = outbox.all()
+    local = {tid: LocalEntry(tid, rev, h or "sha256:" + "0" * 64,
+                             known[tid].seen_set() if tid in known else frozenset())
+             for tid, (rev, h) in summaries.items()}
+    remote = {tid: RemoteEntry(tid, e.seen_set()) for tid, e in known.items()
+              if tid in local and e.hub_name}
+    actions = plan(local, remote)
+    total, done, failing = len(actions), 0, 0
+    try:
+        for act in actions:
+            tid = act.trip_id
+            if act.action is Action.SKIP:
+                res = TripResult(tid, "unchanged", revision=local[tid].revision)
+            elif failing >= GIVE_UP_AFTER:
+                res = TripResult(tid, "failed", "not synced — will retry (the hub is not answering)",
+                                 revision=local[tid].revision)
+            else:
+                try:
+                    res = _push_one(store, tgt, session, outbox, tid)
+                    failing = 0
+                except errors.RetryableError as exc:
+                    failing += 1
+                    res = TripResult(tid, "failed", f"not synced — will retry: {exc}",
+                                     revision=local[tid].revision)
+                except errors.Conflict as exc:
+                    res = TripResult(tid, "conflict", str(exc), revision=local[tid].revision)
+                except (errors.Rejected, errors.IntegrityError, errors.BadHubDocument, ValueError) as exc:
+                    res = TripResult(tid, "failed", str(exc), revision=local[tid].revision)
+            report.per_trip.append(res)
+            if res.result == "pushed":
+                report.pushed += 1
+            elif res.result == "unchanged":
+                report.unchanged += 1
+            elif res.result == "conflict":
+                report.conflicts += 1
+            else:
+                report.failed += 1
+            done += 1
+            _notify(progress, done, total, tid, res.result)
+    finally:
+        tgt.close()
+    return report
+
+
+def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: str) -> TripResult:
+    doc = store.trip_document(tid)
+    entry = outbox.get(tid) or OutboxEntry(trip_id=tid, year=trip_year(doc))
+    canonical_trip_id(tid)
+    year = entry.year
+    seen = set(entry.seen_set())
+    data = canonical_json_bytes(doc)
+    h = _sha(data)
+    rev = int(doc.get("revision", 0))
+    new_conflicts: list[dict] = []
+
+    if tgt.can_list:
+        if entry.hub_name is None and isinstance(tgt, WebDavTarget):
+            made = tgt.ensure_trip_collection(year, tid)
+            listing = frozenset() if made else tgt.list_trip(year, tid)
+        else:
+            listing = tgt.list_trip(year, tid)
+        remote = {} if listing is None else {tid: RemoteEntry(tid, listing)}
+        act = plan({tid: LocalEntry(tid, rev, h, frozenset(seen))}, remote)[0]
+        if act.action is Action.SKIP:
+            if entry.hub_name != act.name:
+                # not recorded as sent from here: check the hub copy's bytes before trusting it
+                try:
+                    same = tgt.read(RemoteFile(tid, year, act.name), len(data) + 1) == data
+                except (errors.IntegrityError, errors.BadHubDocument, errors.Rejected):
+                    same = False
+                if not same:
+                    wr = tgt.write_revision(year, tid, act.name, data, session.device_id or "", rev, h)
+                    seen.add(act.name)
+                    _record(outbox, entry, rev, h, act.name, wr.etag, seen, doc)
+                    return TripResult(tid, "pushed", "replaced a damaged hub copy", revision=rev)
+            seen.add(act.name)
+            _record(outbox, entry, rev, h, act.name, entry.etag, seen, doc)
+            return TripResult(tid, "unchanged", "the hub already holds this revision", revision=rev)
+        if act.action is Action.MERGE:
+            docs, good = [], []
+            for name in act.unseen:
+                f = RemoteFile(tid, year, name)
+                try:
+                    docs.append(_parse_hub_doc(f, tgt.read(f, session.max_document_bytes)))
+                    good.append(name)
+                except (errors.BadHubDocument, errors.IntegrityError) as exc:
+                    log.warning("push: skipping a bad hub file: %s", exc)
+                    entry.bad.append(name)
+            candidates = [entry.base] if entry.base else []
+            candidates += _extra_ancestors(tgt, session, year, tid, doc, docs, candidates,
+                                           sorted(listing - set(act.unseen)))
+            merged, kind, new_conflicts = _fold(doc, docs, candidates)
+            seen.update(good)
+            if merged is not None and _semantic(merged) != _semantic(doc):
+                change = "merged with other devices' versions from the hub"
+                if new_conflicts:
+                    change += f" ({len(new_conflicts)} field(s) changed on both sides kept for review)"
+                try:
+                    store.put_document(merged, change)
+                except Exception as exc:
+                    if isinstance(exc, errors.SyncError) or not _store_rejects(exc):
+                        raise
+                    first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+                    raise errors.BadHubDocument(
+                        f"the store refused the merge of trip {tid} with the hub's versions: {first}") from None
+                doc = store.trip_document(tid)
+                data = canonical_json_bytes(doc)
+                h = _sha(data)
+                rev = int(doc.get("revision", 0))
+    name = revision_name(rev, h)
+    wr = tgt.write_revision(year, tid, name, data, session.device_id or "", rev, h)
+    seen.add(name)
+    _record(outbox, entry, rev, h, name, wr.etag, seen, doc)
+    if new_conflicts:
+        return TripResult(tid, "conflict", "pushed; fields changed on both sides need attention",
+                          revision=rev, conflicts=_conflict_lines(new_conflicts))
+    return TripResult(tid, "pushed", "" if wr.created else "the hub already held these bytes",
+                      revision=rev)
+
+
+def _record(outbox: Outbox, entry: OutboxEntry, rev: int, h: str, name: str, etag: str | None,
+            seen: set[str], doc: dict) -> None:
+    entry.pushed_revision, entry.pushed_hash, entry.hub_name = rev, h, name
+    entry.etag = etag
+    entry.pushed_at = _now()
+    entry.seen = sorted(seen)
+    entry.base = doc
+    outbox.put(entry)
+
+
+# --- pull ----------------------------------------------------------------------------------------
+def pull(store: Any, source: str, *, progress: Progress | None = None,
+         session: Session | None = None) -> PullReport:
+    """Brings every trip revision at the hub that this device has not seen into the store,
+    merging it with the device copy. Each hub document is checked (content hash, size, JSON,
+    trip id, revision) and then validated by the store's save path; a bad one is quarantined
+    under ``<data dir>/sync/quarantine/`` with a report, and the pull goes on."""
+    session = _session_for(store, source, session)
+    tgt = open_target(source, session)
+    report = PullReport(source=tgt.url)
+    outbox = Outbox(store.data_dir, tgt.key, tgt.url)
+    try:
+        files = session.retrying(tgt.list_all)
+        by_trip: dict[str, list[RemoteFile]] = {}
+        for f in files:
+            by_trip.setdefault(f.trip_id, []).append(f)
+        summaries = _summaries(store)
+        known = outbox.all()
+        local = {tid: LocalEntry(tid, rev, h if h.startswith("sha256:") and len(h) == 71 else "sha256:" + "0" * 64,
+                                 known[tid].seen_set() if tid in known else frozenset())
+                 for tid, (rev, h) in summaries.items()}
+        remote = {tid: RemoteEntry(tid, frozenset(f.name for f in fs)) for tid, fs in by_trip.items()}
+        actions = plan_pull(local, remote, {tid: e.seen_set() for tid, e in known.items()})
+        total, done = len(actions), 0
+        for act in actions:
+            tid = act.trip_id
+            if act.action is Action.SKIP:
+                res = TripResult(tid, "unchanged")
+            else:
+                try:
+                    res = _pull_one(store, tgt, session, outbox, tid, act.unseen,
+                                    {f.name: f for f in by_trip[tid]}, tid in summaries)
+                except errors.RetryableError as exc:
+                    res = TripResult(tid, "failed", f"not pulled — will retry: {exc}")
+            report.per_trip.append(res)
+            if res.result in ("pulled", "merged", "quarantined", "unchanged", "failed"):
+                setattr(report, res.result, getattr(report, res.result) + 1)
+            done += 1
+            _notify(progress, done, total, tid, res.result)
+    finally:
+        tgt.close()
+    return report
+
+
+def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: str,
+              unseen: tuple[str, ...], files: dict[str, RemoteFile], have_local: bool) -> TripResult:
+    entry = outbox.get(tid)
+    local_doc = store.trip_document(tid) if have_local else None
+    year = files[unseen[0]].year
+    if entry is None:
+        entry = OutboxEntry(trip_id=tid, year=year)
+    bad_lines: list[str] = []
+    docs: list[tuple[str, dict]] = []
+    for name in unseen:
+        f = files[name]
+        data = None
+        try:
+            data = tgt.read(f, session.max_document_bytes)
+            docs.append((name, _parse_hub_doc(f, data)))
+        except (errors.BadHubDocument, errors.IntegrityError) as exc:
+            where = _quarantine(store.data_dir, f, data, str(exc))
+            bad_lines.append(f"{exc} (copied to {where.name})")
+            entry.bad.append(name)
+    candidates = [entry.base] if entry.base else []
+    if local_doc is not None:
+        candidates += _extra_ancestors(tgt, session, year, tid, local_doc, [d for _, d in docs],
+                                       candidates, sorted(set(files) - set(unseen)))
+    acc, kind, conflicts = local_doc, "unchanged", []
+    accepted: list[str] = []
+    pending = dict(docs)
+    for _ in range(len(docs) + 1):          # bounded: each round settles at least one document
+        if acc is not None:                 # documents the device copy already contains
+            for name in [n for n, d in pending.items() if relation(d, acc) in ("same", "ancestor")]:
+                accepted.append(name)
+                del pending[name]
+        if not pending:
+            break
+        # the hub's heads: documents no other pending document contains
+        heads = [n for n, d in pending.items()
+                 if not any(m != n and relation(d, e) == "ancestor" for m, e in pending.items())]
+        name = min(heads, key=lambda n: (pending[n].get("revision", 0), n))
+        doc = pending[name]
+        trial, k, c = _fold(acc, [doc], candidates + list(dict(docs).values()))
+        if trial is not None and (acc is None or _semantic(trial) != _semantic(acc)):
+            try:
+                store.put_document(trial, "pulled from hub" if k == "pulled" else "merged with the hub's version")
+            except errors.SyncError:
+                raise
+            except Exception as exc:  # the store's validation refused it
+                if not _store_rejects(exc):
+                    raise
+                msg = f"the store refused hub file {name}: {exc}".splitlines()[0]
+                _quarantine(store.data_dir, files[name], canonical_json_bytes(doc), msg)
+                bad_lines.append(msg)
+                entry.bad.append(name)
+                del pending[name]
+                continue
+            acc = store.trip_document(tid)
+            kind = "merged" if (k == "merged" or kind == "merged") else "pulled"
+            conflicts.extend(c)
+        elif acc is None:
+            acc = trial
+        # same content as the device copy (bookkeeping aside): nothing to save
+        accepted.append(name)
+        del pending[name]
+        if acc is not None and _semantic(trial) == _semantic(acc):
+            for other in [n for n, d in pending.items() if relation(d, doc) in ("same", "ancestor")]:
+                accepted.append(other)
+                del pending[other]
+    entry.seen = sorted(set(entry.seen) | set(accepted))
+    if acc is not None and accepted:
+        # the ancestor for the next merge: the newest hub document the device copy contains
+        contained = [d for n, d in docs if n in accepted and relation(d, acc) in ("same", "ancestor")]
+        if contained:
+            entry.base = max(contained, key=lambda d: (len(history(d)), d.get("revision", 0)))
+    outbox.put(entry)
+    rev = int(acc.get("revision", 0)) if acc else None
+    if bad_lines:
+        return TripResult(tid, "quarantined", "; ".join(bad_lines), revision=rev,
+                          conflicts=_conflict_lines(conflicts))
+    msg = "fields changed on both sides need attention" if conflicts else ""
+    return TripResult(tid, kind, msg,
+                      revision=rev, conflicts=_conflict_lines(conflicts))
+
+
+# --- status --------------------------------------------------------------------------------------
+def status(store: Any) -> list[TripSyncState]:
+    """Per trip on the device: its revision, whether each known hub holds it, open conflicts."""
+    boxes = hubs(store.data_dir)
+    out = []
+    for tid, (rev, h) in sorted(_summaries(store).items()):
+        states = []
+        for box in boxes:
+            e = box.get(tid)
+            if e is None or e.pushed_revision is None:
+                states.append(HubState(box.hub_url, None, "never pushed"))
+            else:
+                same = e.pushed_revision == rev and (not h or e.pushed_hash == h)
+                states.append(HubState(box.hub_url, e.pushed_revision, "synced" if same else "changed",
+                                       e.pushed_at))
+        conflicts: list[str] = []
+        try:
+            doc = store.trip_document(tid)
+            conflicts = _conflict_lines(c for c in doc.get("conflicts") or [] if isinstance(c, dict))
+        except Exception:  # an unreadable trip is the store's report, not ours
+            pass
+        if not states or all(s.state == "never pushed" for s in states):
+            overall = "never pushed"
+        elif all(s.state == "synced" for s in states):
+            overall = "synced"
+        else:
+            overall = "changed"
+        out.append(TripSyncState(tid, rev, h, overall, bool(conflicts), conflicts, states))
+    return out

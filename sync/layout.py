@@ -1,0 +1,84 @@
+"""Names at the hub: where each trip revision lives, built from trip UUIDs and content hashes only.
+
+Hub layout (the same in a folder and on a WebDAV collection)::
+
+    <hub>/trips/<YYYY>/<trip-uuid>/r<revision:06>-<sha256 first 24 hex>.json   immutable revisions
+    <hub>/incoming/<device key>/<trip-uuid>.<nonce>.part                       uploads in flight
+
+`YYYY` is the year of the trip's ``started_at`` as the crew wrote it (kept from the first push,
+so a trip never moves). A revision file is written once and never changed: its name says which
+content it must hold, so a reader checks the bytes against the name on every read.
+"""
+from __future__ import annotations
+
+import hashlib
+import re
+import uuid
+
+__all__ = ["TRIPS", "INCOMING", "revision_name", "parse_revision_name", "trip_dir",
+           "trip_year", "canonical_trip_id", "device_key", "incoming_name", "HASH_HEX", "name_matches"]
+
+TRIPS = "trips"
+INCOMING = "incoming"
+HASH_HEX = 24
+_NAME_RE = re.compile(r"^r(\d{6,})-([0-9a-f]{%d})\.json$" % HASH_HEX)
+
+
+def canonical_trip_id(trip_id: str) -> str:
+    """The trip's UUID in its canonical lower-case form; ValueError for anything else."""
+    try:
+        return str(uuid.UUID(str(trip_id)))
+    except (ValueError, AttributeError, TypeError):
+        raise ValueError(f"trip id {trip_id!r} is not a UUID; hub names are built from UUIDs only") from None
+
+
+def _hex(content_hash: str) -> str:
+    h = content_hash.split(":", 1)[-1].lower()
+    if not re.fullmatch(r"[0-9a-f]{64}", h):
+        raise ValueError(f"content hash {content_hash!r} is not a sha256 hex digest")
+    return h
+
+
+def revision_name(revision: int, content_hash: str) -> str:
+    """File name of one trip revision, e.g. ``r000007-3f2a....json``."""
+    if not isinstance(revision, int) or revision < 0:
+        raise ValueError(f"revision {revision!r} must be a whole number ≥ 0")
+    return f"r{revision:06d}-{_hex(content_hash)[:HASH_HEX]}.json"
+
+
+def parse_revision_name(name: str) -> tuple[int, str] | None:
+    """(revision, hash prefix) of a revision file name, or None for any other name."""
+    m = _NAME_RE.match(name)
+    return (int(m.group(1)), m.group(2)) if m else None
+
+
+def name_matches(name: str, data: bytes) -> bool:
+    """True when `data` hashes to the prefix carried in the revision file name."""
+    parsed = parse_revision_name(name)
+    return bool(parsed) and hashlib.sha256(data).hexdigest()[:HASH_HEX] == parsed[1]
+
+
+def trip_year(doc: dict) -> str:
+    for key in ("started_at", "updated_at"):
+        v = doc.get(key)
+        if isinstance(v, str) and re.match(r"^\d{4}-", v):
+            return v[:4]
+    return "undated"
+
+
+def trip_dir(year: str, trip_id: str) -> str:
+    """Relative path of a trip's collection, with a trailing slash."""
+    if not re.fullmatch(r"\d{4}|undated", year):
+        raise ValueError(f"year folder {year!r} must be four digits or 'undated'")
+    return f"{TRIPS}/{year}/{canonical_trip_id(trip_id)}/"
+
+
+def device_key(device_id: str) -> str:
+    """A file-name-safe stand-in for a device id (which a person may have typed)."""
+    return hashlib.sha256(str(device_id).encode("utf-8")).hexdigest()[:12]
+
+
+def incoming_name(device_id: str, trip_id: str) -> str:
+    """A fresh temporary upload path (a new nonce per attempt, so a late, cut upload of an
+    earlier attempt can never be moved into place by a later one)."""
+    return f"{INCOMING}/{device_key(device_id)}/{canonical_trip_id(trip_id)}.{uuid.uuid4().hex[:12]}.part"

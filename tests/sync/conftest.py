@@ -1,0 +1,351 @@
+"""Real servers on 127.0.0.1 for the sync tests: wsgidav (WebDAV, optionally TLS), an HTTP intake
+endpoint, a fault-injecting TCP proxy; and device stores holding invented trips."""
+from __future__ import annotations
+
+import json
+import random
+import socket
+import subprocess
+import threading
+import time
+from dataclasses import dataclass, field
+from datetime import datetime, timedelta, timezone
+from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
+from pathlib import Path
+
+import pytest
+
+from core.models import Site, Stop, Trip, measure
+from core.store import DeviceStore
+from sync.session import Credentials, RetryPolicy, Session
+
+DAV_USER, DAV_PASSWORD = "ro-tablet", "larkspur-test-only"
+SITES = [("LK-01", "Mill Ford", 120.0), ("LK-02", "Heron Bend", 180.0), ("LK-03", "Upper Weir", 260.0)]
+
+
+def free_port() -> int:
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+# --- WebDAV -------------------------------------------------------------------------------------
+@dataclass
+class DavServer:
+    root: Path
+    port: int
+    scheme: str
+    server: object
+    thread: threading.Thread
+
+    @property
+    def url(self) -> str:
+        return f"{self.scheme}://127.0.0.1:{self.port}/hub/"
+
+    def stop(self) -> None:
+        self.server.stop()
+        self.thread.join(5)
+
+
+def start_dav(root: Path, *, certfile: Path | None = None, keyfile: Path | None = None,
+              auth: bool = True) -> DavServer:
+    from cheroot import wsgi
+    from wsgidav.wsgidav_app import WsgiDAVApp
+
+    (root / "hub").mkdir(parents=True, exist_ok=True)
+    port = free_port()
+    config = {
+        "host": "127.0.0.1",
+        "port": port,
+        "provider_mapping": {"/": str(root)},
+        "simple_dc": {"user_mapping": {"*": ({DAV_USER: {"password": DAV_PASSWORD}} if auth else True)}},
+        "http_authenticator": {"domain_controller": None, "accept_basic": True,
+                               "accept_digest": False, "default_to_digest": False},
+        "verbose": 0,
+        "logging": {"enable": False, "enable_loggers": []},
+        "property_manager": True,
+        "lock_storage": True,
+        "dir_browser": {"enable": False},
+    }
+    app = WsgiDAVApp(config)
+    server = wsgi.Server(("127.0.0.1", port), app, numthreads=12, timeout=5)
+    scheme = "http"
+    if certfile is not None:
+        from cheroot.ssl.builtin import BuiltinSSLAdapter
+
+        server.ssl_adapter = BuiltinSSLAdapter(str(certfile), str(keyfile))
+        scheme = "https"
+    server.prepare()
+    thread = threading.Thread(target=server.serve, daemon=True)
+    thread.start()
+    return DavServer(root, port, scheme, server, thread)
+
+
+@pytest.fixture
+def dav(tmp_path):
+    server = start_dav(tmp_path / "davroot")
+    yield server
+    server.stop()
+
+
+def dav_session(device_id: str | None = None, **kw) -> Session:
+    opts = dict(credentials=Credentials(DAV_USER, DAV_PASSWORD), connect_timeout_s=2.0,
+                read_timeout_s=5.0, retry=RetryPolicy(attempts=3, backoff_s=0.01, max_backoff_s=0.05))
+    opts.update(kw)
+    return Session(device_id, **opts)
+
+
+@pytest.fixture
+def session_factory():
+    return dav_session
+
+
+# --- HTTP intake endpoint ---------------------------------------------------------------------------
+@dataclass
+class Intake:
+    port: int
+    server: ThreadingHTTPServer
+    thread: threading.Thread
+    received: dict = field(default_factory=dict)        # Idempotency-Key -> body bytes
+    by_trip: dict = field(default_factory=dict)         # trip id -> list of (revision, body)
+    requests: list = field(default_factory=list)        # (key, status)
+    conflict_trips: set = field(default_factory=set)
+
+    @property
+    def url(self) -> str:
+        return f"post+http://127.0.0.1:{self.port}/intake/trips"
+
+
+@pytest.fixture
+def intake():
+    state: dict = {}
+
+    class Handler(BaseHTTPRequestHandler):
+        protocol_version = "HTTP/1.1"
+
+        def log_message(self, *args):  # keep test output quiet
+            pass
+
+        def do_POST(self):
+            it: Intake = state["intake"]
+            length = int(self.headers.get("Content-Length", "0"))
+            body = self.rfile.read(length)
+            key = self.headers.get("Idempotency-Key")
+            status = 201
+            if self.path != "/intake/trips" or not key:
+                status = 400
+            elif self.headers.get("Transfer-Encoding"):
+                status = 411
+            elif key in it.received:
+                status = 200 if it.received[key] == body else 422
+            else:
+                doc = json.loads(body)
+                if doc["id"] in it.conflict_trips:
+                    status = 409
+                else:
+                    it.received[key] = body
+                    it.by_trip.setdefault(doc["id"], []).append((doc["revision"], body))
+            it.requests.append((key, status))
+            self.send_response(status)
+            self.send_header("Content-Length", "0")
+            self.end_headers()
+
+    port = free_port()
+    server = ThreadingHTTPServer(("127.0.0.1", port), Handler)
+    thread = threading.Thread(target=server.serve_forever, daemon=True)
+    it = Intake(port, server, thread)
+    state["intake"] = it
+    thread.start()
+    yield it
+    server.shutdown()
+    server.server_close()
+
+
+# --- fault-injecting TCP proxy ----------------------------------------------------------------------
+class FaultProxy:
+    """Forwards 127.0.0.1:port to an upstream port; each new connection gets a fault drawn from
+    `faults` (or "pass"): "cut_upload" (forward part of the request, then close), "stall" (take
+    the request, answer nothing until the client gives up), "http500"/"http503" (answer at once),
+    "cut_response" (forward the request, then only part of the answer)."""
+
+    FAULTS = ("cut_upload", "stall", "http500", "http503", "cut_response")
+
+    def __init__(self, upstream_port: int, seed: int = 1) -> None:
+        self.upstream = upstream_port
+        self.rng = random.Random(seed)
+        self.fault_rate = 0.0
+        self.counts: dict[str, int] = {}
+        self.sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+        self.sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        self.sock.bind(("127.0.0.1", 0))
+        self.sock.listen(64)
+        self.port = self.sock.getsockname()[1]
+        self._stop = threading.Event()
+        self._lock = threading.Lock()
+        self.thread = threading.Thread(target=self._accept, daemon=True)
+        self.thread.start()
+
+    def _pick(self) -> str:
+        with self._lock:
+            fault = self.rng.choice(self.FAULTS) if self.rng.random() < self.fault_rate else "pass"
+            self.counts[fault] = self.counts.get(fault, 0) + 1
+            cut = self.rng.randint(1, 900)
+            return fault, cut
+
+    def _accept(self) -> None:
+        self.sock.settimeout(0.2)
+        while not self._stop.is_set():
+            try:
+                client, _ = self.sock.accept()
+            except (socket.timeout, OSError):
+                continue
+            fault, cut = self._pick()
+            threading.Thread(target=self._serve, args=(client, fault, cut), daemon=True).start()
+
+    def _serve(self, client: socket.socket, fault: str, cut: int) -> None:
+        client.settimeout(3.0)
+        try:
+            if fault in ("http500", "http503", "stall"):
+                try:
+                    client.recv(65536)
+                except OSError:
+                    pass
+                if fault == "stall":
+                    deadline = time.monotonic() + 3.0
+                    while time.monotonic() < deadline and not self._stop.is_set():
+                        try:
+                            if not client.recv(65536):
+                                break
+                        except socket.timeout:
+                            break
+                        except OSError:
+                            break
+                    return
+                code = "500 Internal Server Error" if fault == "http500" else "503 Service Unavailable"
+                client.sendall(f"HTTP/1.1 {code}\r\nContent-Length: 0\r\nConnection: close\r\n\r\n".encode())
+                return
+            upstream = socket.create_connection(("127.0.0.1", self.upstream), timeout=3.0)
+            try:
+                self._pump(client, upstream, fault, cut)
+            finally:
+                upstream.close()
+        finally:
+            try:
+                client.close()
+            except OSError:
+                pass
+
+    def _pump(self, client, upstream, fault, cut) -> None:
+        import selectors
+
+        sel = selectors.DefaultSelector()
+        sel.register(client, selectors.EVENT_READ, upstream)
+        sel.register(upstream, selectors.EVENT_READ, client)
+        sent_up = sent_down = 0
+        deadline = time.monotonic() + 10.0
+        while time.monotonic() < deadline and not self._stop.is_set():
+            events = sel.select(timeout=0.5)
+            if not events:
+                continue
+            for key, _ in events:
+                src, dst = key.fileobj, key.data
+                try:
+                    data = src.recv(65536)
+                except OSError:
+                    return
+                if not data:
+                    return
+                if src is client:
+                    if fault == "cut_upload" and sent_up + len(data) > cut:
+                        dst.sendall(data[: max(0, cut - sent_up)])
+                        return
+                    sent_up += len(data)
+                else:
+                    if fault == "cut_response" and sent_down + len(data) > cut // 8:
+                        dst.sendall(data[: max(0, cut // 8 - sent_down)])
+                        return
+                    sent_down += len(data)
+                try:
+                    dst.sendall(data)
+                except OSError:
+                    return
+
+    def url_for(self, path: str = "/hub/") -> str:
+        return f"http://127.0.0.1:{self.port}{path}"
+
+    def close(self) -> None:
+        self._stop.set()
+        self.sock.close()
+        self.thread.join(2)
+
+
+@pytest.fixture
+def fault_proxy(dav):
+    proxy = FaultProxy(dav.port)
+    yield proxy
+    proxy.close()
+
+
+# --- device stores with invented trips ---------------------------------------------------------------
+def open_store(path: Path, device_id: str) -> DeviceStore:
+    store = DeviceStore.open(path, device_id)
+    store.save_sites([Site(id=s, name=n, elevation_m=e) for s, n, e in SITES])
+    return store
+
+
+def new_trip(store: DeviceStore, *, day: int = 3, stops: int = 1, crew: str = "R.O.") -> Trip:
+    start = datetime(2026, 6, day, 8, 0, tzinfo=timezone.utc)
+    trip = store.save_trip(Trip(program="Tamsin Valley Stream Watch", crew=[crew], started_at=start),
+                           "trip started")
+    for i in range(stops):
+        site = SITES[i % len(SITES)][0]
+        stop = Stop(site_id=site, arrived_at=start + timedelta(hours=1 + i),
+                    temp=measure("temp", f"{11.5 + i} C"), pressure=measure("pressure", "990 hPa"),
+                    do=measure("do", "9.1 mg/L"))
+        trip = store.save_stop(trip.id, stop)
+    return trip
+
+
+def edit_stop_notes(store: DeviceStore, trip_id: str, index: int, notes: str) -> Trip:
+    trip = store.load_trip(trip_id)
+    stops = list(trip.stops)
+    stops[index] = stops[index].model_copy(update={"notes": notes})
+    return store.save_trip(trip.model_copy(update={"stops": stops}), f"notes of stop {index + 1}")
+
+
+def edit_stop_temp(store: DeviceStore, trip_id: str, index: int, text: str) -> Trip:
+    trip = store.load_trip(trip_id)
+    stops = list(trip.stops)
+    stops[index] = stops[index].model_copy(update={"temp": measure("temp", text)})
+    return store.save_trip(trip.model_copy(update={"stops": stops}), f"temperature of stop {index + 1}")
+
+
+@pytest.fixture
+def device_a(tmp_path):
+    return open_store(tmp_path / "device-a", "tablet-A")
+
+
+@pytest.fixture
+def device_b(tmp_path):
+    return open_store(tmp_path / "device-b", "tablet-B")
+
+
+def hub_files(root: Path) -> dict[str, list[Path]]:
+    """trip id -> revision files in a hub folder (any layout depth under trips/)."""
+    out: dict[str, list[Path]] = {}
+    trips = root / "trips"
+    if trips.is_dir():
+        for f in sorted(trips.glob("*/*/*")):
+            out.setdefault(f.parent.name, []).append(f)
+    return out
+
+
+def make_self_signed(folder: Path) -> tuple[Path, Path]:
+    """A self-signed certificate for 127.0.0.1 made with the openssl command (test only)."""
+    cert, key = folder / "hub-cert.pem", folder / "hub-key.pem"
+    subprocess.run(
+        ["openssl", "req", "-x509", "-newkey", "rsa:2048", "-nodes", "-keyout", str(key),
+         "-out", str(cert), "-days", "2", "-subj", "/CN=127.0.0.1",
+         "-addext", "subjectAltName=IP:127.0.0.1"],
+        check=True, capture_output=True, timeout=60)
+    return cert, key
