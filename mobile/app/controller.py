@@ -318,8 +318,18 @@ class AppController:
         atomic_write_bytes(self._prefs_path(), json.dumps(local, indent=1).encode())
         self.prefs = prefs
 
+    def sync_states(self) -> dict[str, str]:
+        """trip id -> "synced" / "changed" / "never pushed" from the sync outbox (empty without sync)."""
+        try:
+            import sync
+
+            return {s.trip_id: s.state for s in sync.status(self.store)}
+        except Exception:  # noqa: BLE001 - the list still shows without sync state
+            return {}
+
     def trip_lines(self) -> list[TripLine]:
         lines = []
+        synced = self.sync_states()
         for t in self.store.list_trips():
             try:
                 started = fmt_when(datetime.fromisoformat(t.started_at))
@@ -328,6 +338,8 @@ class AppController:
             crew = ", ".join(t.crew) if isinstance(t.crew, list) else str(t.crew or "")
             title = f"{t.program or 'Trip'} · {crew or '—'}"
             status = {"in progress": "open"}.get(t.status, t.status)
+            if status == "ended" and synced.get(t.id) == "synced":
+                status = "synced"
             lines.append(TripLine(t.id, title, status,
                                   f"{started} · {t.stop_count} stop{'s' if t.stop_count != 1 else ''}"))
         return lines

@@ -29,6 +29,14 @@ def go(name: str) -> None:
 class BaseScreen(Screen):
     message = StringProperty("")
 
+    def on_leave(self, *_):
+        # no field stays focused (and no soft keyboard stays up) on a screen no one sees
+        from kivy.uix.textinput import TextInput
+
+        for w in self.walk(restrict=True):
+            if isinstance(w, TextInput) and w.focus:
+                w.focus = False
+
     def commit(self):
         App.get_running_app().save_trigger()
 
@@ -376,6 +384,7 @@ class BottlesScreen(BaseScreen):
         ctl().remember("bottles")
 
     def on_leave(self, *_):
+        super().on_leave()
         if self._tick:
             self._tick.cancel()
 
@@ -452,10 +461,12 @@ class SyncScreen(BaseScreen):
     progress_max = NumericProperty(1)
     running = BooleanProperty(False)
     status = StringProperty("")
+    last_report = ObjectProperty(None, allownone=True)
 
     def on_pre_enter(self, *_):
-        self.target_entry.text = ctl().prefs.sync_target
-        if not self.running:
+        if not self.target_entry.text:
+            self.target_entry.text = ctl().prefs.sync_target
+        if not self.status:
             self.status = "Trips stay on this tablet until they reach the hub. Logging goes on during sending."
 
     def send(self):
@@ -466,12 +477,19 @@ class SyncScreen(BaseScreen):
         if self.running:
             return
         try:
-            import sync as sync_pkg
-            push = sync_pkg.push
-        except (ImportError, AttributeError):
+            from sync import push
+        except ImportError:
             self.status = "Sending is not available in this build yet; trips stay safe on this tablet."
             return
-        App.get_running_app().ctl.flush(5)
+        c = ctl()
+        if target != c.prefs.sync_target:
+            from dataclasses import replace
+
+            try:
+                c.save_prefs(replace(c.prefs, sync_target=target))
+            except Exception:  # noqa: BLE001 - the hub is still used for this send
+                pass
+        c.save_now()
         self.running = True
         self.progress = 0
         self.rows_box.clear_widgets()
@@ -481,6 +499,7 @@ class SyncScreen(BaseScreen):
                          name="streamtab-sync").start()
 
     def _work(self, push, store, target):
+        ctl().worker.flush(10)   # what was typed goes out too; waits off the UI thread
         try:
             report = push(store, target, progress=self._progress)
         except Exception as exc:  # noqa: BLE001 - shown to the person, nothing lost
@@ -492,7 +511,8 @@ class SyncScreen(BaseScreen):
     def _progress(self, done, total, trip_id, result):
         self.progress_max = max(total, 1)
         self.progress = done
-        self.rows_box.add_widget(Factory.WrapLabel(text=f"trip {trip_id[:8]}: {result}"))
+        self.status = f"Sending… {done} of {total} trips"
+        self.rows_box.add_widget(Factory.WrapLabel(text=f"{RESULT_MARK.get(result, '●')} trip {trip_id[:8]}: {result}"))
 
     @mainthread
     def _done(self, report, error):
@@ -501,8 +521,22 @@ class SyncScreen(BaseScreen):
             self.status = f"■ Not sent — will retry: {error}"
             return
         self.progress = self.progress_max
-        self.status = (f"✓ Sent: {report.pushed} · unchanged {report.unchanged} · "
-                       f"conflicts {report.conflicts} · failed {report.failed}")
+        self.rows_box.clear_widgets()
+        titles = {t.id: t.title for t in ctl().trip_lines()}
+        for r in report.per_trip:
+            line = f"{RESULT_MARK.get(r.result, '●')} {r.result.upper()}: {titles.get(r.trip_id, r.trip_id[:8])}"
+            if r.message:
+                line += f" — {r.message}"
+            for c in r.conflicts:
+                line += f"\n    ▲ {c}"
+            self.rows_box.add_widget(Factory.WrapLabel(text=line))
+        left = "" if report.failed == 0 else " — the failed ones stay on this tablet and go next time"
+        self.status = (f"{'✓' if report.failed == 0 else '▲'} Sent {report.pushed} · unchanged {report.unchanged} · "
+                       f"conflicts {report.conflicts} · failed {report.failed}{left}")
+        self.last_report = report
+
+
+RESULT_MARK = {"pushed": "✓", "unchanged": "○", "conflict": "▲", "failed": "■"}
 
 
 class SettingsScreen(BaseScreen):

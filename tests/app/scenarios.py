@@ -229,3 +229,38 @@ def keystroke_timing(p, rounds="15"):
         yield 0.02
         p.note("changed_" + str(i), changed)
     p.note("keystroke_ms", times)
+
+
+def sync_folder(p, hub=""):
+    """Log a stop, then send the trip to a hub folder from the sync screen; typing goes on meanwhile."""
+    yield 0.1
+    yield from _start_trip(p)
+    yield from _fill_stop(p, "LK-02 Heron Riffle", "13,1", "962", "385", "10,9")
+    yield from _add_bottle(p, "SY-1", "do_fixed")
+    p.app.go("sync")
+    yield 0.2
+    s = p.screen("sync")
+    yield from p.type(s.ids.target, hub)
+    yield from p.tap(s.ids.send_btn)
+    p.note("running_after_tap", s.running)
+    # logging is not blocked: back to the stop and type while the send runs
+    p.app.go("stop")
+    yield 0.05
+    st = p.screen("stop")
+    yield from p.type(st.ids.do_value, "11,0")
+    p.note("typed_during_sync", st.ids.do_value.text)
+    p.app.go("sync")
+    yield 0.2
+    deadline = time.monotonic() + 60
+    while s.running and time.monotonic() < deadline:
+        yield 0.2
+    p.note("status", s.status)
+    p.note("rows", [w.text for w in reversed(s.rows_box.children)])
+    p.note("progress", [s.progress, s.progress_max])
+    yield from p.shot("sync-after-send")
+    p.app.ctl.flush(10)
+    p.note("trip_id", p.app.ctl.trip.id)
+    p.app.go("trips")
+    yield 0.2
+    p.note("trip_rows", [f"{r.status}|{r.title}" for r in reversed(p.screen("trips").rows_box.children)
+                         if hasattr(r, "status")])
