@@ -9,6 +9,9 @@ from typing import Any, Callable
 
 HERE = Path(__file__).resolve().parent
 SCREEN_NAMES = ("trips", "start", "stop", "bottles", "end", "sync", "settings")
+SCREEN_CLASSES = {"trips": "TripsScreen", "start": "StartScreen", "stop": "StopScreen",
+                  "bottles": "BottlesScreen", "end": "EndScreen", "sync": "SyncScreen",
+                  "settings": "SettingsScreen"}
 FONT_NAME = "StreamSans"
 _T0 = time.perf_counter()
 
@@ -71,6 +74,7 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
 
             self.pressure_units = list(PRESSURE_UNITS)
             self.first_drawn_s: float | None = None
+            self.first_drawn_epoch: float | None = None
             self.save_trigger = Clock.create_trigger(self._save, 0.4)
 
         def load_kv(self, filename=None):
@@ -83,7 +87,16 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
             Window.clearcolor = self.palette["paper"]
             return self.root
 
+        def screen(self, name: str):
+            """The screen called `name`, built from its kv rule the first time it is asked for."""
+            from kivy.factory import Factory
+
+            if not self.root.has_screen(name):
+                self.root.add_widget(getattr(Factory, SCREEN_CLASSES[name])(name=name))
+            return self.root.get_screen(name)
+
         def go(self, name: str) -> None:
+            self.screen(name)
             self.root.current = name
 
         def _save(self, *_):
@@ -111,6 +124,7 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
             # one more frame so the first screen is really on the glass
             def mark(_dt2):
                 self.first_drawn_s = time.perf_counter() - _T0
+                self.first_drawn_epoch = time.time()
                 if snapshot is not None:
                     Clock.schedule_once(lambda _d: self.save_snapshot(snapshot, stop=True), 0.3)
                 if hook is not None:

@@ -93,5 +93,5 @@ def run(args) -> int:  # noqa: ANN001 - argparse namespace
         seed_demo(data_dir, demo)
     from mobile.app.app import run_app
 
-    return run_app(data_dir, start_screen=args.screen,
-                   snapshot=Path(args.snapshot) if args.snapshot else None, size=size)
+    return run_app(data_dir, start_screen=args.screen, size=size or (1200, 780),
+                   snapshot=Path(args.snapshot) if args.snapshot else None)

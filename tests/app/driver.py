@@ -27,7 +27,7 @@ class Person:
 
     # --- looking
     def screen(self, name: str | None = None):
-        return self.app.root.get_screen(name) if name else self.app.root.current_screen
+        return self.app.screen(name) if name else self.app.root.current_screen
 
     def ids(self, name: str | None = None):
         return self.screen(name).ids

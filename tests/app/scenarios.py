@@ -264,3 +264,9 @@ def sync_folder(p, hub=""):
     yield 0.2
     p.note("trip_rows", [f"{r.status}|{r.title}" for r in reversed(p.screen("trips").rows_box.children)
                          if hasattr(r, "status")])
+
+
+def first_screen(p):
+    """Benchmark: note the wall-clock time the first screen was drawn, then quit."""
+    p.note("drawn_epoch", p.app.first_drawn_epoch)
+    yield 0
