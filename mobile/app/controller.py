@@ -340,6 +340,8 @@ class AppController:
             status = {"in progress": "open"}.get(t.status, t.status)
             if status == "ended" and synced.get(t.id) == "synced":
                 status = "synced"
+            elif status == "ended":
+                status = "ended, not sent"
             lines.append(TripLine(t.id, title, status,
                                   f"{started} · {t.stop_count} stop{'s' if t.stop_count != 1 else ''}"))
         return lines

@@ -188,6 +188,8 @@ class StopScreen(BaseScreen):
     closed = BooleanProperty(False)
     adding_site = BooleanProperty(False)
     site_chosen = BooleanProperty(False)
+    compact = BooleanProperty(False)       # portrait with the soft keyboard up: one-line results
+    flag_count_text = StringProperty("")
     wading_caution = StringProperty(WADING_CAUTION)
     reagent_caution = StringProperty(REAGENT_CAUTION)
     pressure_units = ListProperty([])
@@ -293,6 +295,8 @@ class StopScreen(BaseScreen):
         value, _, source = view.salinity_text.partition(" (")
         self.salinity_text = value
         self.salinity_source = source.rstrip(")")
+        serious = [f for f in view.flags if f.severity in ("warning", "stop-and-check")]
+        self.flag_count_text = f"▲ {len(serious)} to check" if serious else ""
         box = self.flag_box
         box.clear_widgets()
         if not view.flags:

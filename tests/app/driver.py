@@ -157,8 +157,11 @@ def main(argv: list[str] | None = None) -> int:
 
     from mobile.app.app import run_app
 
-    rc = run_app(Path(a.data_dir), start_screen=a.screen, size=(w, h), hook=hook)
-    return rc
+    try:
+        return run_app(Path(a.data_dir), start_screen=a.screen, size=(w, h), hook=hook)
+    except BaseException:
+        result_path.write_text(json.dumps({"ok": False, "error": traceback.format_exc()}))
+        raise
 
 
 if __name__ == "__main__":

@@ -270,3 +270,78 @@ def first_screen(p):
     """Benchmark: note the wall-clock time the first screen was drawn, then quit."""
     p.note("drawn_epoch", p.app.first_drawn_epoch)
     yield 0
+
+
+def _visible(w):
+    node, n = w, 0
+    while node is not None and n < 200:
+        if getattr(node, "opacity", 1) == 0 or getattr(node, "height", 1) == 0:
+            return False
+        node = node.parent if node.parent is not node else None
+        n += 1
+    return True
+
+
+def sizes(p):
+    """Every screen: touch targets >= 48 dp, text >= 18 sp; the focused field clears a soft keyboard."""
+    from kivy.metrics import dp, sp
+    from kivy.uix.button import Button
+    from kivy.uix.label import Label
+    from kivy.uix.textinput import TextInput
+
+    yield 0.1
+    yield from _start_trip(p, cal=None)
+    yield from _fill_stop(p, "LK-01 Mill Ford", "12,4", "968", "410", "9,8")
+    yield from _add_bottle(p, "SZ-1", "do_fixed")
+    small_targets, small_text, checked = [], [], 0
+    for name in ("trips", "start", "stop", "bottles", "end", "sync", "settings"):
+        if name == "start":
+            continue   # the start screen resets its form on entry; it was used above
+        p.app.go(name)
+        yield 0.25
+        for w in p.screen(name).walk(restrict=True):
+            if not _visible(w):
+                continue
+            if isinstance(w, (Button, TextInput)):
+                checked += 1
+                if w.height < dp(48) - 0.5:
+                    small_targets.append(f"{name}:{type(w).__name__}:{getattr(w, 'text', '')[:20]}:{w.height:.0f}")
+            if isinstance(w, (Label, TextInput)) and getattr(w, "text", "") and w.font_size < sp(18) - 0.01:
+                small_text.append(f"{name}:{type(w).__name__}:{w.text[:20]}:{w.font_size}")
+    p.note("checked", checked)
+    p.note("small_targets", small_targets)
+    p.note("small_text", small_text)
+    # a soft keyboard 320 px high: the focused DO field must sit above it
+    p.app.go("stop")
+    yield 0.2
+    s = p.screen("stop")
+    s.form_scroll.keyboard_pad = 320
+    s.form_scroll.scroll_y = 1
+    yield 0.1
+    s.ids.do_value.focus = True
+    yield 0.3
+    x, y = s.ids.do_value.to_window(s.ids.do_value.x, s.ids.do_value.y)
+    _, top = s.form_scroll.to_window(0, s.form_scroll.top)
+    p.note("field_bottom_y", y)
+    p.note("field_top_y", y + s.ids.do_value.height)
+    p.note("scroll_top_y", top)
+    cl = s.ids.compact_line
+    p.note("compact", [s.compact, cl.text, cl.opacity, cl.height, list(cl.pos), list(cl.color)])
+    yield from p.shot("stop-keyboard-up")
+
+
+def pause_and_hang(p):
+    """Type, then the system pauses the app at once (before the save debounce); then wait for SIGKILL."""
+    yield 0.1
+    yield from _start_trip(p, cal=None)
+    s = p.screen("stop")
+    yield from p.pick(s.ids.site_spinner, "LK-03 Aspen Bend")
+    yield from p.type(s.ids.temp, "15,5")
+    yield from p.type(s.ids.pressure, "941")
+    yield from p.type(s.ids.do_value, "8,4")
+    p.app.on_pause()   # what Android calls when the app goes to the background
+    p.note("trip_id", p.app.ctl.trip.id)
+    p.note("stop_id", p.app.ctl.stop_id)
+    p.note("ready", True)
+    while True:
+        yield 1.0

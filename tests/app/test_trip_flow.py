@@ -42,12 +42,12 @@ def test_three_stops_end_and_every_screen(tmp_path, size, folder):
         assert (art / f"{name}.png").stat().st_size > 5000
 
 
-def test_kill_and_restart_returns_to_the_stop(tmp_path):
-    seed_sites(tmp_path / "data")
-    result = tmp_path / "hang.json"
-    proc = subprocess.Popen(scenario_argv("type_and_hang", tmp_path / "data", result),
+def run_until_ready_then_kill(scenario: str, tmp_path) -> dict:
+    """Starts the app through `scenario`, waits (bounded) for its "ready" note, then SIGKILLs it."""
+    result = tmp_path / f"{scenario}.json"
+    proc = subprocess.Popen(scenario_argv(scenario, tmp_path / "data", result),
                             env=child_env(tmp_path / "kivy-home"), cwd=ROOT,
-                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, start_new_session=True)
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, start_new_session=True)
     try:
         deadline = time.monotonic() + 120
         notes = {}
@@ -64,6 +64,12 @@ def test_kill_and_restart_returns_to_the_stop(tmp_path):
     finally:
         os.killpg(proc.pid, signal.SIGKILL)   # no on_stop, no flush: as a swiped-away app
         proc.wait(30)
+    return notes
+
+
+def test_kill_and_restart_returns_to_the_stop(tmp_path):
+    seed_sites(tmp_path / "data")
+    notes = run_until_ready_then_kill("type_and_hang", tmp_path)
     after = run_scenario("observe", tmp_path / "data", tmp_path, artifacts=ARTIFACTS / "restart")
     assert after["screen"] == "stop"
     assert after["stop_id"] == notes["stop_id"]
