@@ -345,3 +345,36 @@ def pause_and_hang(p):
     p.note("ready", True)
     while True:
         yield 1.0
+
+
+def readme_stop(p):
+    """The README's picture: a stop with a supersaturated reading, a sea-level pressure and a bottle."""
+    yield 0.1
+    yield from _start_trip(p)
+    yield from _fill_stop(p, "LK-03 Aspen Bend", "18,6", "1013", "402", "12,9")
+    yield from _add_bottle(p, "TV-0612", "do_fixed")
+    s = p.screen("stop")
+    s.form_scroll.scroll_y = 1
+    s.ids.bottle_label.focus = False
+    yield 0.3
+    yield from p.shot("screen-stop")
+
+
+def settings_change(p):
+    """Settings: °F as default, a 0,3 mg/L tolerance, a hub folder; then a new stop starts in °F."""
+    yield 0.1
+    p.app.go("settings")
+    yield 0.2
+    s = p.screen("settings")
+    yield from p.tap(s.ids.temp_f)
+    yield from p.type(s.ids.tolerance, "0,3")
+    yield from p.type(s.ids.target, "/mnt/hub")
+    yield from p.tap(s.ids.save_btn)
+    p.note("message", s.message)
+    yield from p.type(s.ids.tolerance, "9")
+    yield from p.tap(s.ids.save_btn)
+    p.note("refused", s.message)
+    p.app.go("trips")
+    yield 0.2
+    yield from _start_trip(p, cal=None)
+    p.note("stop_temp_unit", p.screen("stop").temp_unit)

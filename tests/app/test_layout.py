@@ -29,3 +29,17 @@ def test_on_pause_saves_before_the_debounce(tmp_path):
     stop = DeviceStore.open(tmp_path / "data").load_trip(notes["trip_id"]).stops[0]
     assert stop.id == notes["stop_id"] and stop.site_id == "LK-03"
     assert (stop.temp.text, stop.pressure.text, stop.do.text) == ("15,5 °C", "941 hPa", "8,4 mg/L")
+
+
+def test_settings_reach_the_store_and_new_stops(tmp_path):
+    import json
+
+    seed_sites(tmp_path / "data")
+    notes = run_scenario("settings_change", tmp_path / "data", tmp_path)
+    assert notes["message"].startswith("✓")
+    assert "Calibration tolerance" in notes["refused"] and "between" in notes["refused"]
+    st = DeviceStore.open(tmp_path / "data").settings()
+    assert st.calibration_tolerance_mg_l == pytest.approx(0.3)
+    prefs = json.loads((tmp_path / "data" / "app-prefs.json").read_text())
+    assert prefs["temp_unit"] == "F" and prefs["sync_target"] == "/mnt/hub"
+    assert notes["stop_temp_unit"] == "F"
