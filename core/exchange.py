@@ -43,6 +43,8 @@ def read_sites_csv(path: Path | str) -> list[Site]:
         raise ExchangeError(f"{path}: no such file.") from None
     except UnicodeDecodeError:
         raise ExchangeError(f"{name}: not UTF-8 text; save the site list as UTF-8 CSV.") from None
+    except OSError as exc:
+        raise ExchangeError(f"{path}: cannot be read ({exc.strerror or exc}).") from None
     reader = csv.DictReader(io.StringIO(text, newline=""))
     header = [h.strip() for h in (reader.fieldnames or [])]
     if not header:
@@ -119,6 +121,8 @@ def read_trip_file(path: Path | str) -> dict[str, Any]:
         raw = path.read_bytes()
     except FileNotFoundError:
         raise ExchangeError(f"{path}: no such file.") from None
+    except OSError as exc:
+        raise ExchangeError(f"{path}: cannot be read ({exc.strerror or exc}).") from None
     try:
         doc = json.loads(raw.decode("utf-8-sig"), parse_constant=_refuse_constant)
     except UnicodeDecodeError:

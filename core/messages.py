@@ -37,6 +37,12 @@ FIELD_LABELS: dict[str, str] = {
     "water_class": "Water class",
     "min_do_mg_l": "Site DO criterion",
     "supersaturation_percent": "Supersaturation threshold",
+    "warm_min_mg_l": "Warm-water DO criterion",
+    "cold_min_mg_l": "Cold-water DO criterion",
+    "hypoxic_mg_l": "Hypoxia threshold",
+    "calibration_tolerance_mg_l": "Calibration tolerance",
+    "temp_jump_c": "Temperature jump threshold",
+    "conductivity_jump_ratio": "Conductivity jump factor",
     "name": "Site name",
     "id": "ID",
     "crew": "Crew",
@@ -74,6 +80,8 @@ _HINTS = {
     "do_percent": " — was it mg/L?",
     "elevation": " — elevation is in metres.",
     "calibration_reading": " — was it % saturation?",
+    "criterion": ".",
+    "supersaturation": ".",
     "tolerance": ".",
 }
 
@@ -96,6 +104,9 @@ TEMPLATES: dict[str, str] = {
     "text.blank": "{label} must not be blank.",
     "text.too_long": "{label} is longer than {max} characters.",
     "text.too_short": "{label} must not be empty.",
+    "text.pattern": "{label}: “{input}” is not accepted; use letters, digits, '.', '_' or '-' (at most 64).",
+    "number.too_small": "{label}: {input} is below the accepted range (from {min}).",
+    "number.too_large": "{label}: {input} is above the accepted range (up to {max}).",
     "bool.invalid": "{label}: “{input}” must be true or false.",
     "object.invalid": "{label} must be a group of fields (a JSON object).",
     "list.invalid": "{label} must be a list.",
@@ -115,6 +126,9 @@ _PYDANTIC_TYPES = {
     "literal_error": "choice.invalid", "enum": "choice.invalid",
     "string_type": "text.invalid", "string_too_long": "text.too_long",
     "string_too_short": "text.too_short",
+    "string_pattern_mismatch": "text.pattern",
+    "greater_than_equal": "number.too_small", "greater_than": "number.too_small",
+    "less_than_equal": "number.too_large", "less_than": "number.too_large",
     "bool_type": "bool.invalid", "bool_parsing": "bool.invalid",
     "model_type": "object.invalid", "dict_type": "object.invalid", "model_attributes_type": "object.invalid",
     "list_type": "list.invalid", "tuple_type": "list.invalid",
@@ -177,7 +191,13 @@ def render(code: str, **ctx: Any) -> str:
     """Our text for a code, filled from `ctx` (label, input, value, low, high, unit, ...)."""
     if code.endswith(".out_of_range"):
         kind = ctx.get("kind") or code.rsplit(".", 1)[0]
-        ctx.setdefault("hint", _HINTS.get(kind, "."))
+        try:
+            below = float(ctx.get("value")) < float(ctx.get("low"))
+        except (TypeError, ValueError):
+            below = False
+        # The hints name the usual mistake for a value that is too high (°F for °C, % for mg/L...).
+        ctx.setdefault("hint", "." if below and kind in ("temp", "do_percent", "do_mg_l", "calibration_reading")
+                       else _HINTS.get(kind, "."))
         template = TEMPLATES["range"]
     else:
         template = TEMPLATES.get(code, TEMPLATES["field.invalid"])
@@ -217,6 +237,10 @@ def problems_from_validation(exc: Any) -> list[Problem]:
             params["choices"] = ctx.get("expected", "the listed values")
         elif code == "text.too_long":
             params["max"] = ctx.get("max_length", "?")
+        elif code == "number.too_small":
+            params["min"] = ctx.get("ge", ctx.get("gt", "?"))
+        elif code == "number.too_large":
+            params["max"] = ctx.get("le", ctx.get("lt", "?"))
         elif code.endswith(".out_of_range") or code == "unit.mismatch":
             params.update(ctx)
             params["label"] = label

@@ -115,5 +115,10 @@ def migrate(doc: dict[str, Any]) -> dict[str, Any]:
         raise InvalidRecord(f"Schema version {version} is unknown; this build reads 1–{CURRENT}.")
     out = copy.deepcopy(doc)
     while out["schema_version"] < CURRENT:
-        out = MIGRATIONS[out["schema_version"]](out)
+        step = out["schema_version"]
+        try:
+            out = MIGRATIONS[step](out)
+        except (TypeError, ValueError, AttributeError, KeyError) as exc:
+            raise InvalidRecord(f"A schema version {step} document could not be lifted to version"
+                                f" {step + 1}: a part of it has an unexpected shape ({type(exc).__name__}: {exc}).") from None
     return out

@@ -40,6 +40,8 @@ LIMITS: dict[str, tuple[float, float, str]] = {
     "latitude": (-90.0, 90.0, "°"),
     "longitude": (-180.0, 180.0, "°"),
     "calibration_reading": (0.0, 25.0, "mg/L"),
+    "criterion": (0.0, 20.0, "mg/L"),          # the range core.criteria accepts
+    "supersaturation": (100.0, 500.0, "%"),    # the range core.criteria accepts
     "tolerance": (0.0, 5.0, "mg/L"),
 }
 
@@ -113,7 +115,7 @@ class _Record(BaseModel):
     """Strict (no "nan", "inf" or True as numbers; times must carry a zone); unknown fields kept."""
 
     model_config = ConfigDict(strict=True, allow_inf_nan=False, extra="allow",
-                              populate_by_name=True, validate_default=False)
+                              populate_by_name=True, validate_default=False, ser_json_inf_nan="strings")
 
 
 def _id_field() -> Any:
@@ -239,12 +241,12 @@ class Site(_Record):
     @field_validator("min_do_mg_l")
     @classmethod
     def _crit(cls, v: float | None) -> float | None:
-        return _check_range(v, "do_mg_l")
+        return _check_range(v, "criterion")
 
     @field_validator("supersaturation_percent")
     @classmethod
     def _ss(cls, v: float | None) -> float | None:
-        return _check_range(v, "do_percent")
+        return _check_range(v, "supersaturation")
 
 
 class Calibration(_Record):
@@ -401,19 +403,19 @@ class ProgramSettings(_Record):
     schema_version: int = SCHEMA_VERSION
     program: str = Field(default="", max_length=120)
     method: Literal["benson-krause", "garcia-gordon"] = "benson-krause"
-    warm_min_mg_l: float = 5.0          # common practice (many state standards; EPA 1986 differs)
-    cold_min_mg_l: float = 6.5          # US EPA 440/5-86-003 (1986) cold-water 30-day mean, from memory
-    supersaturation_percent: float = 120.0   # common practice
-    hypoxic_mg_l: float = 2.0           # common practice
-    calibration_tolerance_mg_l: float = 0.2  # common practice (USGS NFM A6.2 method)
+    warm_min_mg_l: float = Field(5.0, ge=0.0, le=20.0)    # common practice (many state standards; EPA 1986 differs)
+    cold_min_mg_l: float = Field(6.5, ge=0.0, le=20.0)    # US EPA 440/5-86-003 (1986) cold-water 30-day mean, from memory
+    supersaturation_percent: float = Field(120.0, ge=100.0, le=500.0)   # common practice
+    hypoxic_mg_l: float = Field(2.0, ge=0.0, le=20.0)     # common practice
+    calibration_tolerance_mg_l: float = Field(0.2, gt=0.0, le=5.0)  # common practice (USGS NFM A6.2 method)
     #: Holding-time overrides by kind (hours), e.g. {"bod": 24} for a stricter SOP.
     holding_overrides_h: dict[str, float] = Field(default_factory=dict)
     #: Plausible stream ranges (warning outside; common practice, adjust per program).
     temp_plausible_c: tuple[float, float] = (0.0, 35.0)
     conductivity_plausible_us_cm: tuple[float, float] = (5.0, 5000.0)
     #: Jumps between consecutive stops that ask for a second look (common practice).
-    temp_jump_c: float = 8.0
-    conductivity_jump_ratio: float = 3.0
+    temp_jump_c: float = Field(8.0, gt=0.0, le=40.0)
+    conductivity_jump_ratio: float = Field(3.0, gt=1.0, le=1000.0)
 
     @field_validator("temp_plausible_c", "conductivity_plausible_us_cm", mode="before")
     @classmethod
@@ -438,9 +440,9 @@ class Trip(_Record):
     :attr:`extra` and written back unchanged; unknown nested fields are kept in place.
     """
 
-    id: str = _id_field()
+    id: str = Field(default_factory=new_id, pattern=r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")
     schema_version: int = SCHEMA_VERSION
-    revision: int = 0
+    revision: int = Field(default=0, ge=0)
     updated_at: AwareDatetime | None = None
     device_id: str = Field(default="", max_length=64)
     program: str = Field(default="", max_length=120)
@@ -554,8 +556,10 @@ def measure(kind: str, text: str, *, default_unit: str | None = None, field: str
             q_unit = "µS/cm"
         elif kind == "do":
             key = unit_in.strip().lower()
+            if not key:
+                raise ValueError("has no unit; write mg/L or % (e.g. '8.4 mg/L' or '96 %')")
             if key not in _DO_UNITS:
-                raise ValueError(f"unit {unit_in!r} is not one of mg/L, %")
+                raise ValueError(f"unit {unit_in.strip()!r} is not accepted; write mg/L or %")
             q_unit = _DO_UNITS[key]
             norm = value
         else:

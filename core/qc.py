@@ -96,12 +96,10 @@ def derive_stop(stop: Stop, site: Site | None, settings: ProgramSettings) -> Der
             kwargs["do_percent"] = stop.do.value
         else:
             kwargs["do_mg_l"] = stop.do.value
-    crit, water_class = _criteria_for(site, settings)
-    kwargs["criteria"] = crit
-    kwargs["water_class"] = water_class
     if site is not None:
         kwargs["elevation_m"] = site.elevation_m
     try:
+        kwargs["criteria"], kwargs["water_class"] = _criteria_for(site, settings)
         a = assess_reading(stop.temp.value, stop.pressure.value, **kwargs)
     except ValueError:
         return None
@@ -255,8 +253,8 @@ def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Si
     if d is not None and (d.do_mg_l is not None or d.percent_saturation is not None):
         from core.criteria import do_criteria_flags
 
-        crit, water_class = _criteria_for(site, settings)
         try:
+            crit, water_class = _criteria_for(site, settings)
             flags.extend(do_criteria_flags(d.do_mg_l, d.percent_saturation, water_class, crit))
         except ValueError:
             pass

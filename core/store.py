@@ -47,6 +47,7 @@ from core.paths import resolve_data_dir
 
 __all__ = [
     "StoreError", "StoreLocked", "NewerSchemaError", "TripNotFound", "InvalidRecord", "StaleTrip",
+    "StoreWriteError",
     "CorruptFile", "TripSummary", "AtomicJSONStorage", "DeviceStore", "diff_paths",
 ]
 
@@ -83,8 +84,16 @@ class InvalidRecord(StoreError):
         self.problems = list(problems or [])
 
 
+class StoreWriteError(StoreError):
+    """The disk refused a write (full, read-only, removed); the stored file is unchanged."""
+
+
 class StaleTrip(StoreError):
     """The trip was changed (by another save or a sync) since this copy was loaded."""
+
+
+class _Unreadable(Exception):
+    """Internal: a trip file that does not parse (the reason is the message)."""
 
 
 class CorruptFile(StoreError):
@@ -221,6 +230,12 @@ def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[st
     return out
 
 
+def _migrated(doc: dict[str, Any]) -> dict[str, Any]:
+    from core.migrations import migrate
+
+    return migrate(doc)
+
+
 def _replace_unsynced(path: Path, data: bytes) -> None:
     """Temporary file → ``os.replace``, without fsync: for the index, a checked cache only."""
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
@@ -283,9 +298,10 @@ def _utcnow() -> datetime:
 class DeviceStore:
     """The trips, sites and settings on one device. Open with :meth:`DeviceStore.open`.
 
-    Every trip change goes through :meth:`save_trip` or :meth:`put_document`, both of which run
-    validate → derive → write under the inter-process lock. Reads need no lock (files are only
-    ever replaced whole). Store work does disk I/O: call it off the UI thread.
+    Every trip change goes through :meth:`save_trip`, :meth:`save_stop` or :meth:`put_document`,
+    which all run validate → derive → write (one funnel, ``_commit``) under the inter-process
+    lock. Reads need no lock (files are only ever replaced whole). Store work does disk I/O
+    (two fsyncs per save): call it off the UI thread.
     """
 
     def __init__(self, data_dir: Path, device_id: str, *, clock: Callable[[], datetime] | None = None,
@@ -328,6 +344,29 @@ class DeviceStore:
             store._clean_temp_files()
             store._repair_index()
         return store
+
+    @classmethod
+    def in_memory(cls, device_id: str | None = None, **kwargs: Any) -> "DeviceStore":
+        """The same store (same save path, same files) in a RAM-backed scratch folder, for fast tests.
+
+        Uses /dev/shm when it is there (else the system temporary folder); the folder is removed
+        by :meth:`close` or when the store object is garbage-collected.
+        """
+        import shutil
+        import weakref
+
+        shm = Path("/dev/shm")
+        base = str(shm) if shm.is_dir() and os.access(shm, os.W_OK) else None
+        root = Path(tempfile.mkdtemp(prefix="streamtab-store-", dir=base))
+        store = cls.open(root, device_id or "dev-memory", **kwargs)
+        store._finalizer = weakref.finalize(store, shutil.rmtree, str(root), True)
+        return store
+
+    def close(self) -> None:
+        """Releases the store; a scratch store from :meth:`in_memory` is deleted."""
+        fin = getattr(self, "_finalizer", None)
+        if fin is not None:
+            fin()
 
     def _read_device_id(self) -> str | None:
         path = self.data_dir / "device.json"
@@ -408,10 +447,20 @@ class DeviceStore:
             raise TripNotFound(f"No trip with id {trip_id!r} on this device (ids are letters, digits, '-', '_', '.').")
         return self._trips_dir / f"{trip_id}.json"
 
-    def _corrupt(self, path: Path, reason: str) -> CorruptFile:
-        target = self._quarantine(path, reason)
-        (self._index_dir / path.name).unlink(missing_ok=True)
-        self._cache.pop(path.stem, None)
+    def _corrupt(self, path: Path, reason: str, seen: bytes | None = None) -> CorruptFile | None:
+        """Quarantines an unreadable trip file — under the lock, and only if it still holds the
+        bytes that were found unreadable (a writer may have just replaced it with a good one).
+        Returns the error to raise, or None when the file changed meanwhile (read it again)."""
+        with self._locked():
+            if seen is not None:
+                try:
+                    if path.read_bytes() != seen:
+                        return None
+                except FileNotFoundError:
+                    return None
+            target = self._quarantine(path, reason)
+            (self._index_dir / path.name).unlink(missing_ok=True)
+            self._cache.pop(path.stem, None)
         return CorruptFile(f"The trip file {path.name} could not be read ({reason}); it was moved to"
                            f" {target} and the rest of the store keeps working.", target)
 
@@ -420,35 +469,49 @@ class DeviceStore:
 
         The file's bytes are read every time and compared with the last version this store
         read or wrote; only a changed file is parsed again. Callers must not change the dict.
+        An unreadable file is quarantined (CorruptFile).
         """
         path = self._trip_path(trip_id)
-        try:
-            file_bytes = path.read_bytes()
-        except FileNotFoundError:
-            self._cache.pop(trip_id, None)
-            return None
-        hit = self._cache.get(trip_id)
-        if hit is not None and hit[0] == file_bytes:
-            return hit[1], hit[2]
+        for _ in range(3):  # bounded: a file replaced while being judged is read again
+            try:
+                file_bytes = path.read_bytes()
+            except FileNotFoundError:
+                self._cache.pop(trip_id, None)
+                return None
+            hit = self._cache.get(trip_id)
+            if hit is not None and hit[0] == file_bytes:
+                return hit[1], hit[2]
+            try:
+                raw, doc = self._parse_trip_file(trip_id, file_bytes)
+            except _Unreadable as bad:
+                err = self._corrupt(path, str(bad), file_bytes)
+                if err is None:
+                    continue
+                raise err from None
+            if len(self._cache) > 64:
+                self._cache.clear()
+            self._cache[trip_id] = (file_bytes, raw, doc)
+            return raw, doc
+        raise StoreError(f"The trip file {path.name} keeps changing while being read; try again.")
+
+    @staticmethod
+    def _parse_trip_file(trip_id: str, file_bytes: bytes) -> tuple[bytes, dict[str, Any]]:
         if not file_bytes.strip():
-            raise self._corrupt(path, "the file is empty")
+            raise _Unreadable("the file is empty")
         try:
             data = json.loads(file_bytes)
         except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-            raise self._corrupt(path, f"the file is not valid JSON ({exc})") from None
+            raise _Unreadable(f"the file is not valid JSON ({exc})") from None
         table = data.get("trip") if isinstance(data, dict) else None
         doc = table.get("1") if isinstance(table, dict) else None
         if not isinstance(doc, dict):
-            raise self._corrupt(path, "no trip document inside")
+            raise _Unreadable("no trip document inside")
         if doc.get("id") != trip_id:
-            raise self._corrupt(path, f"the id inside is {doc.get('id')!r}")
+            raise _Unreadable(f"the id inside is {doc.get('id')!r}")
         try:
             raw = canonical_json_bytes(doc)
         except ValueError as exc:
-            raise self._corrupt(path, str(exc)) from None
-        if len(self._cache) > 64:
-            self._cache.clear()
-        self._cache[trip_id] = (file_bytes, raw, doc)
+            raise _Unreadable(str(exc)) from None
         return raw, doc
 
     def _read_trip_doc_raw(self, trip_id: str) -> dict[str, Any] | None:
@@ -469,7 +532,13 @@ class DeviceStore:
         except (ValidationError, ValueError) as exc:
             probs = problems_from_validation(exc) if isinstance(exc, ValidationError) else []
             reason = "failed validation: " + (one_line(probs) if probs else str(exc))
-            raise self._corrupt(self._trip_path(trip_id), reason) from None
+            path = self._trip_path(trip_id)
+            seen = b'{"trip":{"1":' + raw_bytes[:-1] + b"}}\n"
+            hit = self._cache.get(trip_id)
+            err = self._corrupt(path, reason, hit[0] if hit is not None else seen)
+            if err is None:
+                return self._load(trip_id)
+            raise err from None
         return trip, raw
 
     def load_trip(self, trip_id: str) -> Trip:
@@ -589,8 +658,8 @@ class DeviceStore:
     def save_stop(self, trip_id: str, stop: Stop, change: str | None = None) -> Trip:
         """Adds or replaces (by id) one stop of a stored trip, through the same save path.
 
-        The stop is validated with the whole trip; the stored revision is the base (this is
-        the call for autosaving one stop: it cannot be stale).
+        The stop is validated strictly, the rest of the trip as stored; the stored revision is
+        the base (this is the call for autosaving one stop: it cannot be stale).
         """
         if not isinstance(stop, Stop):
             raise InvalidRecord("save_stop needs a Stop record.")
@@ -598,21 +667,26 @@ class DeviceStore:
             stop_doc = stop.model_dump(mode="json", warnings=False)
         except Exception as exc:  # noqa: BLE001
             raise InvalidRecord(f"The stop could not be written as JSON ({exc}).") from None
+        try:
+            new_stop = Stop.model_validate_json(canonical_json_bytes(stop_doc))
+        except ValidationError as exc:
+            probs = problems_from_validation(exc)
+            raise InvalidRecord(one_line(probs), probs) from None
+        except (ValueError, TypeError):
+            probs = _non_finite_problems(stop_doc)
+            raise InvalidRecord(one_line(probs) if probs else "The stop holds a value JSON cannot carry.",
+                                probs) from None
         with self._locked():
-            stored = self._stored_or_none(trip_id)
-            if stored is None:
-                raise TripNotFound(f"No trip {trip_id} on this device; see 'streamtab trip list'.")
-            stops = list(stored.get("stops") or [])
+            trip, stored = self._load(trip_id)  # a fresh object, validated from the stored bytes
+            stops = list(trip.stops)
             for i, s in enumerate(stops):
-                if s.get("id") == stop_doc["id"]:
-                    stops[i] = stop_doc
+                if s.id == new_stop.id:
+                    stops[i] = new_stop
                     break
             else:
-                stops.append(stop_doc)
-            doc = dict(stored)
-            doc["stops"] = stops
-            checked = self._validate_doc(doc)
-            return self._commit(checked, stored, change or f"stop at {stop.site_id} saved",
+                stops.append(new_stop)
+            checked = trip.model_copy(update={"stops": stops})
+            return self._commit(checked, _migrated(stored), change or f"stop at {stop.site_id} saved",
                                 int(stored.get("revision", 0)))
 
     def _stored_or_none(self, trip_id: str) -> dict[str, Any] | None:
@@ -639,12 +713,17 @@ class DeviceStore:
     def _validated(self, trip: Trip) -> Trip:
         if not isinstance(trip, Trip):
             raise InvalidRecord("save_trip needs a Trip record.")
+        # Re-validate strictly from JSON: attributes may have been assigned after construction.
+        # (NaN and infinity serialise as strings here, so validation names the field.)
         try:
-            doc = trip.model_dump(mode="json", warnings=False)
+            data = trip.model_dump_json(warnings=False)
         except Exception as exc:  # noqa: BLE001 - a value assigned after construction that cannot be written
             raise InvalidRecord(f"The trip could not be written as JSON ({exc}).") from None
-        # Re-validate strictly: attributes may have been assigned after construction.
-        return self._validate_doc(doc)
+        try:
+            return Trip.model_validate_json(data)
+        except ValidationError as exc:
+            probs = problems_from_validation(exc)
+            raise InvalidRecord(one_line(probs), probs) from None
 
     def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int) -> Trip:
         """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held."""
@@ -682,7 +761,11 @@ class DeviceStore:
         path = self._trip_path(new_doc["id"])
         # The TinyDB layout {"trip": {"1": doc}}, byte for byte what AtomicJSONStorage.write gives.
         file_bytes = b'{"trip":{"1":' + doc_bytes[:-1] + b"}}\n"
-        atomic_write_bytes(path, file_bytes)
+        try:
+            atomic_write_bytes(path, file_bytes)
+        except OSError as exc:
+            raise StoreWriteError(f"Could not write {path.name} ({exc.strerror or exc}); the stored trip"
+                                  " is unchanged — free space or check the storage, then save again.") from None
         self._cache[new_doc["id"]] = (file_bytes, doc_bytes, new_doc)
         self._write_summary(new_doc, "sha256:" + hashlib.sha256(doc_bytes).hexdigest(),
                             self._file_key(new_doc["id"]))
@@ -701,7 +784,10 @@ class DeviceStore:
         (the trip file and its folder) instead of four."""
         summary = _summary_of(doc, digest)
         data = canonical_json_bytes({"summary": summary.to_dict(), "file": list(key) if key else None})
-        _replace_unsynced(self._index_dir / f"{doc['id']}.json", data)
+        try:
+            _replace_unsynced(self._index_dir / f"{doc['id']}.json", data)
+        except OSError:
+            pass  # the index is a checked cache: a missing entry is rebuilt on the next listing
         return summary
 
     # -- sites and settings ----------------------------------------------------------------
@@ -772,7 +858,11 @@ class DeviceStore:
                     by_site[site.id] = key
                 table[key] = site.model_dump(mode="json")
             data["sites"] = table
-            AtomicJSONStorage(path).write(data)
+            try:
+                AtomicJSONStorage(path).write(data)
+            except OSError as exc:
+                raise StoreWriteError(f"Could not write sites.json ({exc.strerror or exc}); the site list"
+                                      " is unchanged.") from None
             self._sites_cache = None
         return checked
 
@@ -807,8 +897,12 @@ class DeviceStore:
             probs = problems_from_validation(exc)
             raise InvalidRecord(one_line(probs), probs) from None
         with self._locked():
-            _tinydb(self.data_dir / "settings.json").table("settings").upsert(
-                Document(checked.model_dump(mode="json"), doc_id=1))
+            try:
+                _tinydb(self.data_dir / "settings.json").table("settings").upsert(
+                    Document(checked.model_dump(mode="json"), doc_id=1))
+            except OSError as exc:
+                raise StoreWriteError(f"Could not write settings.json ({exc.strerror or exc}); the settings"
+                                      " are unchanged.") from None
             self._settings_cache = None
         return checked
 

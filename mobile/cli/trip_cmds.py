@@ -120,9 +120,18 @@ def _trip_import(args) -> int:  # noqa: ANN001
     return 0
 
 
+def _note_quarantine(store) -> None:  # noqa: ANN001
+    moved = store.quarantined()
+    if moved:
+        names = ", ".join(p.name for p in moved[:5]) + (" ..." if len(moved) > 5 else "")
+        sys.stderr.write(f"streamtab: note: {len(moved)} unreadable file{'s' if len(moved) != 1 else ''} kept in"
+                         f" {moved[0].parent}: {names}\n")
+
+
 def _trip_list(args) -> int:  # noqa: ANN001
     store = _store(args)
     summaries = store.list_trips()
+    _note_quarantine(store)
     if args.json:
         emit_json([s.to_dict() for s in summaries])
         return 0

@@ -176,3 +176,28 @@ def test_cli_bad_file_exit_2_one_line(demo, tmp_path):
 def test_cli_unknown_trip_exit_2(demo):
     r = run_cli("trip", "show", "zzzz", data_dir=demo)
     assert r.returncode == 2 and "no such trip" in r.stderr
+
+
+def test_trip_id_must_be_safe_for_a_file_name(store, tmp_path):
+    doc = make_trip().to_document()
+    doc["id"] = "../../etc/x"
+    with pytest.raises(ExchangeError) as info:
+        import_trip_file(store, write(tmp_path, "evil.json", json.dumps(doc)))
+    assert "evil.json: ID" in str(info.value) and "letters, digits" in str(info.value)
+    assert store.list_trips() == []
+
+
+def test_import_of_a_folder_is_a_clear_error(store, tmp_path):
+    with pytest.raises(ExchangeError) as info:
+        import_trip_file(store, tmp_path)
+    assert "cannot be read" in str(info.value)
+
+
+def test_cli_list_names_quarantined_files(tmp_path):
+    d = tmp_path / "store"
+    store = DeviceStore.open(d)
+    trip = store.save_trip(make_trip([make_stop()]), "x")
+    (d / "trips" / f"{trip.id}.json").write_bytes(b"{broken")
+    r = run_cli("trip", "list", "--json", data_dir=d)
+    assert r.returncode == 0 and json.loads(r.stdout) == []
+    assert "unreadable file" in r.stderr and f"{trip.id}.json" in r.stderr

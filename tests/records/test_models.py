@@ -286,3 +286,15 @@ def test_store_leaves_other_parts_temp_files_alone(tmp_path):
     ours.write_bytes(b"left by a crash")
     DeviceStore.open(root)
     assert theirs.exists() and not ours.exists()
+
+
+def test_too_cold_gets_no_fahrenheit_hint():
+    with pytest.raises(InputError) as info:
+        measure("temp", "-40")
+    assert "°F" not in str(info.value) and str(info.value).startswith("Water temperature −40 °C is outside")
+
+
+def test_do_without_unit_asks_for_one():
+    with pytest.raises(InputError) as info:
+        measure("do", "8.4")
+    assert "mg/L or %" in str(info.value)

@@ -346,3 +346,61 @@ def test_conflicts_make_the_trip_need_attention(store):
     assert merged.status == "needs attention"
     s = store.list_trips()[0]
     assert s.status == "needs attention" and s.open_conflicts == 1
+
+
+def test_write_failure_leaves_stored_trip_and_says_so(store, monkeypatch):
+    import core.store as cs
+    from core.store import StoreWriteError
+
+    trip = store.save_trip(make_trip([make_stop()]), "x")
+    before = store.trip_document(trip.id)
+
+    def full(path, data):
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(cs, "atomic_write_bytes", full)
+    with pytest.raises(StoreWriteError) as info:
+        store.save_trip(trip.model_copy(update={"notes": "will not fit"}), "y")
+    assert "No space left on device" in str(info.value) and "unchanged" in str(info.value)
+    monkeypatch.undo()
+    assert DeviceStore.open(store.data_dir).trip_document(trip.id) == before
+
+
+def test_settings_out_of_range_refused_with_label():
+    from pydantic import ValidationError
+
+    from core.messages import problems_from_validation
+
+    with pytest.raises(ValidationError) as info:
+        ProgramSettings(supersaturation_percent=90.0)
+    p = problems_from_validation(info.value)[0]
+    assert p.code == "number.too_small" and p.message.startswith("Supersaturation threshold: 90")
+
+
+def test_in_memory_store_same_save_path_and_removed_on_close():
+    s = DeviceStore.in_memory()
+    root = s.data_dir
+    trip = s.save_trip(make_trip([make_stop(temp="20", pressure="1013.25 hPa", cond=None)]), "x")
+    assert s.load_trip(trip.id).stops[0].derived.do_sat_mg_l == pytest.approx(9.092, abs=0.002)  # SCIENCE.md §1
+    assert (root / "trips" / f"{trip.id}.json").exists()
+    s.close()
+    assert not root.exists()
+
+
+def test_quarantine_spares_a_file_replaced_meanwhile(store):
+    # A reader found bytes it could not parse, but a writer replaced the file before the reader
+    # took the lock: the good file must stay where it is.
+    trip = store.save_trip(make_trip([make_stop()]), "x")
+    path = store.data_dir / "trips" / f"{trip.id}.json"
+    assert store._corrupt(path, "seen torn", seen=b'{"trip": {"1"') is None
+    assert path.exists() and store.quarantined() == []
+    assert store.load_trip(trip.id) == trip
+
+
+def test_malformed_old_document_refused_clearly(store):
+    from core.store import InvalidRecord
+
+    bad = dict(json.loads(json.dumps(V1_DOC)), stops=["not a stop"])
+    with pytest.raises(InvalidRecord) as info:
+        store.put_document(bad, "import")
+    assert "schema version 1" in str(info.value) and "\n" not in str(info.value)
