@@ -97,6 +97,9 @@ class FolderTarget:
         self.root = Path(root).expanduser().absolute()
         self.url = str(self.root)
         self.key = _key("folder:" + self.url)
+        if not self.root.is_dir():
+            raise errors.ConfigError(f"hub folder {self.url} does not exist; create it, mount the "
+                                     f"share or check the path")
 
     def _trip_path(self, year: str, trip_id: str) -> Path:
         return self.root / trip_dir(year, trip_id)

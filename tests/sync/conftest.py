@@ -174,6 +174,7 @@ class FaultProxy:
         self.upstream = upstream_port
         self.rng = random.Random(seed)
         self.fault_rate = 0.0
+        self.faults = self.FAULTS
         self.counts: dict[str, int] = {}
         self.sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
         self.sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
@@ -187,7 +188,7 @@ class FaultProxy:
 
     def _pick(self) -> str:
         with self._lock:
-            fault = self.rng.choice(self.FAULTS) if self.rng.random() < self.fault_rate else "pass"
+            fault = self.rng.choice(self.faults) if self.rng.random() < self.fault_rate else "pass"
             self.counts[fault] = self.counts.get(fault, 0) + 1
             cut = self.rng.randint(1, 900)
             return fault, cut
