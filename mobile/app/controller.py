@@ -233,7 +233,7 @@ class AppController:
         self.prefs = AppPrefs()
         self.trip: TripForm | None = None
         self.stop_id: str | None = None
-        self._saved_trip: Any = None          # last Trip model the store returned (worker thread only)
+        self._saved: dict[str, Any] = {}      # trip id -> last Trip record the store returned
         self._sites: list[Any] | None = None
         self._other_labels: dict[str, str] | None = None
         self.load_prefs()
@@ -393,6 +393,16 @@ class AppController:
         return screen, self.stop_id
 
     # ------------------------------------------------------------------ trip lifecycle
+    def default_program(self) -> str:
+        """The program a new trip starts with: the program settings', else the latest trip's."""
+        try:
+            if self.settings().program:
+                return self.settings().program
+        except Exception:  # noqa: BLE001 - unreadable settings: fall back to the trips
+            pass
+        trips = self.store.list_trips()
+        return trips[0].program if trips else ""
+
     def new_trip_form(self) -> TripForm:
         form = TripForm()
         form.pre_cal.temp_unit = self.prefs.temp_unit
@@ -409,14 +419,14 @@ class AppController:
         form.started_at = form.started_at or self.now()
         self.trip = form
         self.stop_id = None
-        self._saved_trip = None
         self._other_labels = None
         self.save_now(wait=True, change="trip started")
         return None
 
     def open_trip(self, trip_id: str) -> TripForm:
+        self.worker.flush()   # a save still on its way would make the loaded copy stale
         model = self.store.load_trip(trip_id)
-        self._saved_trip = model
+        self._saved[trip_id] = model
         self._other_labels = None
         self.trip = self.bridge.form_from_trip(model)
         self.stop_id = None
@@ -449,15 +459,10 @@ class AppController:
         stop = StopForm(arrived_at=self.now(), temp_unit=self.prefs.temp_unit,
                         pressure_unit=self.prefs.pressure_unit, cond_unit=self.prefs.cond_unit,
                         do_unit=self.prefs.do_unit)
-        if self.trip.stops and self.trip.stops[-1].site_id:
-            pass  # a new stop starts with no site: the crew picks it (sites differ stop to stop)
         self.trip.stops.append(stop)
         self.stop_id = stop.id
         self.save_later()
         return stop
-
-    def select_stop(self, stop_id: str) -> None:
-        self.stop_id = stop_id
 
     def set_stop_field(self, name: str, value: Any) -> StopView:
         """Sets one stop field (text as typed, a unit, a site) and returns what the screen should show."""
@@ -467,8 +472,9 @@ class AppController:
                 stop.arrived_at = parse_when(value, stop.arrived_at)
             except ValueError:
                 view = self.stop_view()
-                view.errors["arrived"] = (f"Arrival time “{value}” is not readable; "
-                                          "type HH:MM (24 h) or YYYY-MM-DD HH:MM.")
+                msg = f"Arrival time “{value}” is not readable; type HH:MM (24 h) or YYYY-MM-DD HH:MM."
+                view.errors["arrived"] = msg
+                view.flags.insert(0, _error_line(msg, "arrived"))
                 return view
         elif name == "site":
             stop.site_id = value
@@ -483,7 +489,7 @@ class AppController:
 
     # ------------------------------------------------------------------ derived values
     def _saved_stop_doc(self, stop_id: str) -> dict[str, Any] | None:
-        saved = self._saved_trip
+        saved = self._saved.get(self.trip.id) if self.trip else None
         if saved is None:
             return None
         for s in saved.stops:
@@ -780,8 +786,17 @@ class AppController:
         self.dirty = False
 
         def job() -> None:
-            self._saved_trip = self.store.save_trip(
-                self.bridge.trip_from_form(snapshot, self._saved_trip, self), change)
+            from core.store import StaleTrip
+
+            previous = self._saved.get(snapshot.id)
+            try:
+                saved = self.store.save_trip(self.bridge.trip_from_form(snapshot, previous, self), change)
+            except StaleTrip:
+                # changed by another writer (a sync pull, the CLI): put this device's form on the
+                # stored copy; stops only the other writer knows are kept (bridge.trip_from_form)
+                previous = self.store.load_trip(snapshot.id)
+                saved = self.store.save_trip(self.bridge.trip_from_form(snapshot, previous, self), change)
+            self._saved[snapshot.id] = saved
 
         self.worker.submit(snapshot.id, job)
         if wait:

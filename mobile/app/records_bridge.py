@@ -151,6 +151,9 @@ def trip_from_form(form: TripForm, previous: Any, ctl: Any):
         sdoc, _ = stop_document(s, old_stops.get(s.id))
         if sdoc is not None:
             stops.append(sdoc)
+    ours = {s.id for s in form.stops}
+    # stops the stored trip has and this form never had (merged in by sync) are kept as they are
+    stops.extend(d for sid, d in old_stops.items() if sid not in ours)
     crew = [c.strip() for c in form.crew.replace(";", ",").split(",") if c.strip()]
     doc.update(id=form.id, program=form.program.strip(), crew=crew, meter_id=form.meter_id.strip(),
                started_at=_iso(form.started_at), ended_at=_iso(form.ended_at), stops=stops)

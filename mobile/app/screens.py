@@ -146,8 +146,7 @@ class StartScreen(BaseScreen):
     def on_pre_enter(self, *_):
         c = ctl()
         self.form = c.new_trip_form()
-        last = c.trip_lines()
-        self.program_entry.text = last[0].title.split(" · ")[0] if last else ""
+        self.program_entry.text = c.default_program()
         self.crew_entry.text = ""
         self.meter_entry.text = ""
         self.message = ""

@@ -120,3 +120,32 @@ def test_holding_clocks_most_urgent_first(ctl):
     assert lines[0].word == "SOON"
     lines = ctl.clock_lines(now=t0 + timedelta(hours=9))
     assert lines[0].word == "EXPIRED"
+
+
+def test_add_site_with_elevation_and_refusals(ctl):
+    site_id = ctl.add_site("LK-09", "Willow Steps", "1250,5")
+    assert site_id == "LK-09"
+    assert ctl.site("LK-09").elevation_m == pytest.approx(1250.5)
+    for code, name, elev, word in (("", "X", "10", "code"), ("LK-10", "", "10", "name"),
+                                   ("LK-10", "X", "", "Elevation"), ("LK-10", "X", "9000", "outside"),
+                                   ("LK-09", "Again", "10", "already")):
+        with pytest.raises(ValueError) as err:
+            ctl.add_site(code, name, elev)
+        assert word in str(err.value)
+
+
+def test_another_writer_between_saves_loses_nothing(ctl):
+    from core.models import new_id
+
+    for k, v in (("temp", "12,4"), ("pressure", "968"), ("do", "9,8")):
+        ctl.set_stop_field(k, v)
+    ctl.save_now(wait=True)
+    stored = ctl.store.load_trip(ctl.trip.id)
+    other = stored.stops[0].model_copy(update={"id": new_id(), "site_id": "LK-02", "bottles": []})
+    ctl.store.save_trip(stored.model_copy(update={"stops": [*stored.stops, other]}), "pulled from a hub")
+    ctl.set_stop_field("do", "9,9")
+    ctl.save_now(wait=True)
+    assert ctl.save_errors == []
+    after = ctl.store.load_trip(ctl.trip.id)
+    assert [s.site_id for s in after.stops] == ["LK-01", "LK-02"]
+    assert after.stops[0].do.text == "9,9 mg/L"
