@@ -35,6 +35,7 @@ PALETTE = {
     "field_border": "#0E1116",
     "focus_border": "#063F73",
     "refusal_ink": "#7A0B00",    # 9.6:1 on paper
+    "progress": "#8FCF9C",       # sync progress fill; ink on it is about 11:1
 }
 
 SIZES = {
