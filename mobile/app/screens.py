@@ -69,11 +69,10 @@ class TripsScreen(BaseScreen):
         c.open_trip(row.key)
         if c.trip.ended_at:
             go("end")
-        else:
-            screen, _ = c.resume_point() if c.open_trip_id() == row.key else ("stop", None)
-            open_stops = [s for s in c.trip.stops if not s.closed]
-            c.stop_id = open_stops[-1].id if open_stops else None
-            go("stop" if c.stop_id else "bottles")
+            return
+        open_stops = [s for s in c.trip.stops if not s.closed]
+        c.stop_id = open_stops[-1].id if open_stops else (c.trip.stops[-1].id if c.trip.stops else None)
+        go("stop" if c.stop_id else "bottles")
 
     def resume(self):
         c = ctl()
@@ -188,6 +187,8 @@ class StopScreen(BaseScreen):
     adding_site = BooleanProperty(False)
     site_chosen = BooleanProperty(False)
     compact = BooleanProperty(False)       # portrait with the soft keyboard up: one-line results
+    stop_titles = ListProperty([])
+    stop_pick_text = StringProperty("")
     flag_count_text = StringProperty("")
     wading_caution = StringProperty(WADING_CAUTION)
     reagent_caution = StringProperty(REAGENT_CAUTION)
@@ -229,6 +230,8 @@ class StopScreen(BaseScreen):
             self.site_text = c.bridge.site_title(site) if site else "Pick a site"
             self.site_chosen = site is not None
             self.title = f"Stop {c.stop_number(stop)}" + (f" · {stop.site_id}" if stop.site_id else "")
+            self.stop_titles = [self._stop_title(s) for s in c.trip.stops]
+            self.stop_pick_text = self._stop_title(stop)
             self.arrived_entry.text = fmt_when(stop.arrived_at)
             self.temp_entry.text = stop.temp_text
             self.pressure_entry.text = stop.pressure_text
@@ -258,6 +261,33 @@ class StopScreen(BaseScreen):
         self.show(ctl().set_stop_field(name, value))
         self.commit()
 
+    @staticmethod
+    def _stop_title(stop):
+        c = ctl()
+        state = "closed" if stop.closed else "open"
+        return f"Stop {c.stop_number(stop)} of {len(c.trip.stops)} · {stop.site_id or 'no site yet'} · {state}"
+
+    def _refresh_stop_list(self):
+        c = ctl()
+        if c.stop is None:
+            return
+        self.stop_pick_text = self._stop_title(c.stop)
+        self.stop_titles = [self._stop_title(s) for s in c.trip.stops]
+
+    def pick_stop(self, title):
+        """Another stop of the trip chosen from the list: show it (the current one stays saved)."""
+        if self._loading or title == self.stop_pick_text:
+            return
+        c = ctl()
+        for s in c.trip.stops:
+            if self._stop_title(s) == title:
+                App.get_running_app().save_trigger()
+                c.stop_id = s.id
+                c.remember("stop")
+                self.load()
+                self.form_scroll.scroll_y = 1
+                return
+
     def pick_site(self, title):
         if self._loading or title == "Pick a site":
             return
@@ -265,6 +295,7 @@ class StopScreen(BaseScreen):
         site_id = ctl().site_id_for_title(title)
         self.field("site", site_id)
         self.title = f"Stop {ctl().stop_number(ctl().stop)} · {site_id}"
+        self._refresh_stop_list()
 
     def save_site(self, code, name, elevation_text):
         try:
@@ -352,6 +383,7 @@ class StopScreen(BaseScreen):
             self.message = "■ Cannot close the stop: " + msg
             return
         self.closed = True
+        self._refresh_stop_list()
         self.message = "✓ Stop closed and saved."
         App.get_running_app().save_trigger()
 
@@ -370,6 +402,7 @@ class StopScreen(BaseScreen):
     def reopen(self):
         ctl().reopen_stop()
         self.closed = False
+        self._refresh_stop_list()
         self.message = "Stop reopened for editing."
         self.commit()
 

@@ -378,3 +378,27 @@ def settings_change(p):
     yield 0.2
     yield from _start_trip(p, cal=None)
     p.note("stop_temp_unit", p.screen("stop").temp_unit)
+
+
+def revisit_stop(p):
+    """Two stops; go back to the first from the stop list, change its DO, come back to the second."""
+    yield 0.1
+    yield from _start_trip(p, cal=None)
+    s = p.screen("stop")
+    yield from _fill_stop(p, "LK-01 Mill Ford", "12,4", "968", "", "9,8")
+    yield from p.tap(s.ids.next_btn)
+    yield 0.1
+    yield from _fill_stop(p, "LK-02 Heron Riffle", "13,1", "962", "", "10,1")
+    p.note("titles", list(s.stop_titles))
+    yield from p.pick(s.ids.stop_picker, s.stop_titles[0])
+    p.note("first_do", s.ids.do_value.text)
+    p.note("first_closed", s.closed)
+    yield from p.tap(s.ids.close_btn)   # it is closed: the button reopens it
+    yield from p.type(s.ids.do_value, "9,6")
+    yield from p.tap(s.ids.close_btn)
+    p.note("reclose", s.message)
+    yield from p.pick(s.ids.stop_picker, s.stop_titles[1])
+    p.note("second_do", s.ids.do_value.text)
+    yield 0.6
+    p.app.ctl.flush(10)
+    p.note("trip_id", p.app.ctl.trip.id)

@@ -78,3 +78,15 @@ def test_kill_and_restart_returns_to_the_stop(tmp_path):
     assert f["site"] == "LK-01 Mill Ford" and f["bottles"] == ["KILL-1"]
     stop = DeviceStore.open(tmp_path / "data").load_trip(notes["trip_id"]).stops[0]
     assert stop.pressure.text == "29,02 inHg" and stop.bottles[0].label == "KILL-1"
+
+
+def test_going_back_to_an_earlier_stop(tmp_path):
+    seed_sites(tmp_path / "data")
+    notes = run_scenario("revisit_stop", tmp_path / "data", tmp_path)
+    assert notes["titles"] == ["Stop 1 of 2 · LK-01 · closed", "Stop 2 of 2 · LK-02 · open"]
+    assert notes["first_do"] == "9,8" and notes["first_closed"] is True
+    assert notes["reclose"].startswith("✓")
+    assert notes["second_do"] == "10,1"
+    trip = DeviceStore.open(tmp_path / "data").load_trip(notes["trip_id"])
+    assert [s.do.text for s in trip.stops] == ["9,6 mg/L", "10,1 mg/L"]
+    assert trip.stops[0].closed_at is not None
