@@ -588,7 +588,7 @@ SCHEMA_PATH = Path(__file__).resolve().parent / "schema" / "trip.schema.json"
 
 def trip_json_schema() -> dict[str, Any]:
     """The JSON Schema of a trip document, generated from :class:`Trip`."""
-    schema = Trip.model_json_schema(mode="serialization")
+    schema = Trip.model_json_schema(mode="validation")
     schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
     schema["$id"] = f"streamtab:trip:v{SCHEMA_VERSION}"
     return schema

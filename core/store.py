@@ -681,7 +681,9 @@ class DeviceStore:
             stops = list(trip.stops)
             for i, s in enumerate(stops):
                 if s.id == new_stop.id:
-                    stops[i] = new_stop
+                    # Fields a newer build stored on this stop survive a form that never knew them.
+                    kept = {k: v for k, v in (s.model_extra or {}).items() if k not in (new_stop.model_extra or {})}
+                    stops[i] = new_stop.model_copy(update=kept) if kept else new_stop
                     break
             else:
                 stops.append(new_stop)

@@ -208,6 +208,9 @@ def _trip_show(args) -> int:  # noqa: ANN001
               f"{_fmt(c.get('target_mg_l'), '.2f', 'mg/L')}, {verdict}\n")
     for f in data["trip_flags"]:
         w(f"  [{f['severity']}] {f['code']}: {f['message']}\n")
+    for c in data["open_conflicts"]:
+        sides = " | ".join(f"{s.get('device_id')}: {s.get('value')!r}" for s in c.get("sides") or [])
+        w(f"  [needs attention] {c['path']} was changed on two devices ({sides}); choose the right value.\n")
     for s in data["stops"]:
         d = s["derived"] or {}
         inp = s["inputs"]

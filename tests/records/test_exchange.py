@@ -201,3 +201,14 @@ def test_cli_list_names_quarantined_files(tmp_path):
     r = run_cli("trip", "list", "--json", data_dir=d)
     assert r.returncode == 0 and json.loads(r.stdout) == []
     assert "unreadable file" in r.stderr and f"{trip.id}.json" in r.stderr
+
+
+def test_cli_show_lists_open_conflicts(tmp_path):
+    d = tmp_path / "store"
+    store = DeviceStore.open(d)
+    doc = make_trip([make_stop()]).to_document()
+    doc["conflicts"] = [{"path": "notes", "detected_at": "2026-06-14T18:00:00Z",
+                         "sides": [{"device_id": "tablet-a", "value": "riffle"}, {"device_id": "tablet-b", "value": "pool"}]}]
+    trip = store.put_document(doc, "merged")
+    r = run_cli("trip", "show", trip.id, data_dir=d)
+    assert r.returncode == 0 and "needs attention" in r.stdout and "tablet-b: 'pool'" in r.stdout

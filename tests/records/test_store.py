@@ -404,3 +404,13 @@ def test_malformed_old_document_refused_clearly(store):
     with pytest.raises(InvalidRecord) as info:
         store.put_document(bad, "import")
     assert "schema version 1" in str(info.value) and "\n" not in str(info.value)
+
+
+def test_save_stop_keeps_unknown_fields_of_the_stored_stop(store):
+    doc = make_trip([make_stop()]).to_document()
+    doc["stops"][0]["turbidity_ntu"] = 4.2  # written by a newer build
+    trip = store.put_document(doc, "from a newer build")
+    fresh_form = make_stop(id=trip.stops[0].id, temp="12.0")  # a form that never saw the field
+    saved = store.save_stop(trip.id, fresh_form)
+    assert store.trip_document(saved.id)["stops"][0]["turbidity_ntu"] == 4.2
+    assert saved.stops[0].temp.value == 12.0
