@@ -5,8 +5,8 @@ One-liners: ``sync.push(store, "https://dav.example.org/hub/")``, ``sync.pull(st
 """
 from sync import errors
 from sync.engine import (HubState, PullReport, PushReport, TripResult, TripSyncState, pull, push,
-                         status)
+                         run_in_background, status)
 from sync.session import Credentials, RetryPolicy, Session, load_credentials
 
-__all__ = ["push", "pull", "status", "PushReport", "PullReport", "TripResult", "TripSyncState",
+__all__ = ["push", "pull", "status", "run_in_background", "PushReport", "PullReport", "TripResult", "TripSyncState",
            "HubState", "Session", "RetryPolicy", "Credentials", "load_credentials", "errors"]

@@ -12,7 +12,7 @@ import hashlib
 import json
 import logging
 import os
-import time
+import threading
 from dataclasses import asdict, dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
@@ -27,8 +27,8 @@ from sync.plan import Action, LocalEntry, RemoteEntry, plan, plan_pull
 from sync.session import ENV_CA_FILE, Session, load_credentials
 from sync.targets import RemoteFile, Target, WebDavTarget, open_target
 
-__all__ = ["push", "pull", "status", "PushReport", "PullReport", "TripResult", "TripSyncState",
-           "HubState", "Progress", "BOOKKEEPING_KEYS"]
+__all__ = ["push", "pull", "status", "run_in_background", "PushReport", "PullReport", "TripResult",
+           "TripSyncState", "HubState", "Progress", "BOOKKEEPING_KEYS"]
 
 log = logging.getLogger("streamtab.sync")
 
@@ -49,6 +49,7 @@ class TripResult:
     message: str = ""
     revision: int | None = None
     conflicts: list[str] = field(default_factory=list)   # readable lines, one per field
+    retry: bool = False      # True: not at the hub yet; the next sync tries again
 
 
 @dataclass
@@ -62,9 +63,8 @@ class PushReport:
 
     @property
     def complete(self) -> bool:
-        """True when nothing is left to retry."""
-        return self.failed == 0 and not any(t.result == "conflict" and "409" in t.message
-                                            for t in self.per_trip)
+        """True when nothing is left to retry (exit status 0 of `streamtab sync push`)."""
+        return not any(t.retry for t in self.per_trip)
 
     def to_dict(self) -> dict[str, Any]:
         return {"pushed": self.pushed, "unchanged": self.unchanged, "conflicts": self.conflicts,
@@ -84,7 +84,7 @@ class PullReport:
 
     @property
     def complete(self) -> bool:
-        return self.failed == 0
+        return not any(t.retry for t in self.per_trip)
 
     def to_dict(self) -> dict[str, Any]:
         return {"pulled": self.pulled, "merged": self.merged, "quarantined": self.quarantined,
@@ -286,7 +286,7 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
                 res = TripResult(tid, "unchanged", revision=local[tid].revision)
             elif failing >= GIVE_UP_AFTER:
                 res = TripResult(tid, "failed", "not synced — will retry (the hub is not answering)",
-                                 revision=local[tid].revision)
+                                 revision=local[tid].revision, retry=True)
             else:
                 try:
                     res = _push_one(store, tgt, session, outbox, tid)
@@ -294,11 +294,11 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
                 except errors.RetryableError as exc:
                     failing += 1
                     res = TripResult(tid, "failed", f"not synced — will retry: {exc}",
-                                     revision=local[tid].revision)
+                                     revision=local[tid].revision, retry=True)
                 except errors.Conflict as exc:
-                    res = TripResult(tid, "conflict", str(exc), revision=local[tid].revision)
+                    res = TripResult(tid, "conflict", str(exc), revision=local[tid].revision, retry=True)
                 except (errors.Rejected, errors.IntegrityError, errors.BadHubDocument, ValueError) as exc:
-                    res = TripResult(tid, "failed", str(exc), revision=local[tid].revision)
+                    res = TripResult(tid, "failed", str(exc), revision=local[tid].revision, retry=True)
             report.per_trip.append(res)
             if res.result == "pushed":
                 report.pushed += 1
@@ -311,8 +311,16 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
             done += 1
             _notify(progress, done, total, tid, res.result)
     finally:
+        _flush(outbox)
         tgt.close()
     return report
+
+
+def _flush(outbox: Outbox) -> None:
+    try:
+        outbox.flush()
+    except OSError:   # only a cache: the per-trip files are the record
+        log.warning("could not rewrite the outbox manifest", exc_info=True)
 
 
 def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: str) -> TripResult:
@@ -434,13 +442,14 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
                     res = _pull_one(store, tgt, session, outbox, tid, act.unseen,
                                     {f.name: f for f in by_trip[tid]}, tid in summaries)
                 except errors.RetryableError as exc:
-                    res = TripResult(tid, "failed", f"not pulled — will retry: {exc}")
+                    res = TripResult(tid, "failed", f"not pulled — will retry: {exc}", retry=True)
             report.per_trip.append(res)
             if res.result in ("pulled", "merged", "quarantined", "unchanged", "failed"):
                 setattr(report, res.result, getattr(report, res.result) + 1)
             done += 1
             _notify(progress, done, total, tid, res.result)
     finally:
+        _flush(outbox)
         tgt.close()
     return report
 
@@ -555,3 +564,28 @@ def status(store: Any) -> list[TripSyncState]:
             overall = "changed"
         out.append(TripSyncState(tid, rev, h, overall, bool(conflicts), conflicts, states))
     return out
+
+
+def run_in_background(operation: Callable[..., Any], store: Any, address: str, *,
+                      progress: Progress | None = None, session: Session | None = None,
+                      on_done: Callable[[Any, BaseException | None], None] | None = None) -> threading.Thread:
+    """Runs `push` or `pull` in a daemon thread (the UI thread never waits on the network).
+
+    `progress` and ``on_done(report, error)`` are called from that thread: a UI marshals them to
+    its own thread (for Kivy, ``Clock.schedule_once``). Exactly one of report and error is None.
+    """
+    def work() -> None:
+        try:
+            report = operation(store, address, progress=progress, session=session)
+        except BaseException as exc:  # handed to the caller, never lost in the thread
+            if on_done is not None:
+                on_done(None, exc)
+            else:
+                log.warning("background sync failed: %s", exc)
+            return
+        if on_done is not None:
+            on_done(report, None)
+
+    thread = threading.Thread(target=work, name="streamtab-sync", daemon=True)
+    thread.start()
+    return thread

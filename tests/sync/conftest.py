@@ -52,6 +52,9 @@ def start_dav(root: Path, *, certfile: Path | None = None, keyfile: Path | None 
     from cheroot import wsgi
     from wsgidav.wsgidav_app import WsgiDAVApp
 
+    import logging
+
+    logging.getLogger("wsgidav").setLevel(logging.ERROR)   # its start-up notes are not findings
     (root / "hub").mkdir(parents=True, exist_ok=True)
     port = free_port()
     config = {

@@ -114,3 +114,28 @@ def test_status_reports_per_hub_state(tmp_path, device_a, intake):
     edit_stop_notes(device_a, t.id, 0, "x")
     (st,) = sync.status(device_a)
     assert st.state == "changed" and {h.state for h in st.hubs} == {"changed"}
+
+
+def test_background_push_reports_progress_and_the_result_from_its_thread(tmp_path, device_a):
+    import threading
+    hub = tmp_path / "hub"
+    hub.mkdir()
+    for d in (3, 4, 5):
+        new_trip(device_a, day=d)
+    seen, done = [], threading.Event()
+    result = {}
+
+    def on_done(report, error):
+        result["report"], result["error"] = report, error
+        done.set()
+    thread = sync.run_in_background(sync.push, device_a, str(hub), session=dav_session(),
+                                    progress=lambda *a: seen.append((threading.current_thread().name, a)),
+                                    on_done=on_done)
+    assert done.wait(30)
+    thread.join(5)
+    assert result["error"] is None and result["report"].pushed == 3
+    assert [a[0] for _, a in seen] == [1, 2, 3] and {n for n, _ in seen} == {"streamtab-sync"}
+    # a failure comes back as the error, not lost in the thread
+    done.clear()
+    sync.run_in_background(sync.push, device_a, "gopher://x", session=dav_session(), on_done=on_done)
+    assert done.wait(30) and isinstance(result["error"], errors.ConfigError)

@@ -43,6 +43,7 @@ def test_damaged_outbox_entry_is_a_recheck_not_a_duplicate(dav, device_a):
     sync.push(device_a, dav.url, session=dav_session())
     (entry_file,) = (device_a.data_dir / "sync").glob("*/trips/*.json")
     entry_file.write_bytes(b'{"trip_id": "')          # as if cut mid-write by a dead battery
+    (entry_file.parent.parent / "manifest.json").unlink()   # and the cache gone with it
     r = sync.push(device_a, dav.url, session=dav_session())
     assert r.failed == 0 and r.pushed + r.unchanged == 1
     (f,) = hub_files(dav.root / "hub")[t.id]
