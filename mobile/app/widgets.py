@@ -90,10 +90,18 @@ class FormScroll(ScrollView):
                 w.bind(focus=self._field_focus)
                 w._form_scroll_bound = True
 
+    #: Share of the window a soft keyboard takes when the platform does not say (SDL2 on Android
+    #: reports keyboard_height 0); common phone and tablet keyboards take 35–45 % in portrait.
+    ASSUMED_KEYBOARD_SHARE = 0.42
+
     def _keyboard_changed(self, _win, height):
         self.keyboard_pad = height
 
     def _field_focus(self, field, focused):
+        from kivy.utils import platform
+
+        if platform == "android" and not Window.keyboard_height:
+            self.keyboard_pad = Window.height * self.ASSUMED_KEYBOARD_SHARE if focused else 0
         if focused:
             Clock.schedule_once(lambda _dt: self.bring_into_view(field), 0)
 
