@@ -755,6 +755,7 @@ class AppController:
         for c in self.clock_lines():
             if c.word != "OK":
                 out.append(f"{c.symbol} {c.word}: bottle {c.label} ({c.where}): {c.text}")
+        out.extend(self.conflict_lines())
         pre = self.cal_view(self.trip.pre_cal)
         if pre.verdict == "FAIL":
             sym, word = severity_mark("stop-and-check")
@@ -770,6 +771,20 @@ class AppController:
             sym, word = severity_mark("note")
             out.append(f"{sym} {word}: post-trip calibration check not entered yet.")
         return out
+
+    def conflict_lines(self) -> list[str]:
+        """Fields two devices changed differently (found by sync), one readable line each."""
+        saved = self._saved.get(self.trip.id) if self.trip else None
+        if saved is None:
+            return []
+        try:
+            from sync.merge import describe_conflict
+        except ImportError:
+            def describe_conflict(c: dict) -> str:
+                return str(c.get("path"))
+        sym, _ = severity_mark("warning")
+        return [f"{sym} CONFLICT: {describe_conflict(c.model_dump(mode='json'))} — check it and correct the value if needed."
+                for c in saved.open_conflicts]
 
     # ------------------------------------------------------------------ saving
     def save_later(self) -> None:

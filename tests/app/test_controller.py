@@ -149,3 +149,18 @@ def test_another_writer_between_saves_loses_nothing(ctl):
     after = ctl.store.load_trip(ctl.trip.id)
     assert [s.site_id for s in after.stops] == ["LK-01", "LK-02"]
     assert after.stops[0].do.text == "9,9 mg/L"
+
+
+def test_open_conflicts_reach_the_attention_list(ctl):
+    from datetime import datetime, timezone
+
+    for k, v in (("temp", "12,4"), ("pressure", "968"), ("do", "9,8")):
+        ctl.set_stop_field(k, v)
+    ctl.save_now(wait=True)
+    doc = ctl.store.trip_document(ctl.trip.id)
+    doc["conflicts"] = [{"id": "c1", "path": "stops[0].notes", "detected_at": datetime.now(timezone.utc).isoformat(),
+                         "sides": [{"device_id": "dev-a", "value": "riffle"}, {"device_id": "dev-b", "value": "pool"}]}]
+    ctl.store.put_document(doc, "merged by sync")
+    ctl.open_trip(ctl.trip.id)
+    lines = [l for l in ctl.attention_lines() if "CONFLICT" in l]
+    assert len(lines) == 1 and "stops[0].notes" in lines[0] and "dev-a" in lines[0]
