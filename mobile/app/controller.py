@@ -92,6 +92,7 @@ class CalView:
 
 @dataclass
 class ClockLine:
+    stop_id: str
     label: str
     kind: str
     where: str
@@ -687,7 +688,7 @@ class AppController:
                 kind_word = dict(BOTTLE_KINDS)[b.kind]
                 if b.kind != "bod" and b.fixed_at is None:
                     text += " · NOT FIXED YET"
-                out.append(ClockLine(b.label, kind_word, where, clock.remaining_s, clock.expired,
+                out.append(ClockLine(s.id, b.label, kind_word, where, clock.remaining_s, clock.expired,
                                      text, symbol, word))
         out.sort(key=lambda c: c.remaining_s)
         return out

@@ -428,14 +428,19 @@ class BottlesScreen(BaseScreen):
         lines = ctl().clock_lines()
         self.rows_box.clear_widgets()
         for c in lines:
-            self.rows_box.add_widget(Factory.ClockRow(symbol=c.symbol, word=c.word,
-                                                      title=f"{c.label} · {c.kind}", where=c.where,
-                                                      detail=c.text, expired=c.expired))
+            row = Factory.ClockRow(symbol=c.symbol, word=c.word, title=f"{c.label} · {c.kind}",
+                                   where=c.where, detail=c.text, expired=c.expired, stop_id=c.stop_id)
+            row.bind(on_release=self.open_stop)
+            self.rows_box.add_widget(row)
         if not lines:
             self.rows_box.add_widget(Factory.WrapLabel(text="No bottles in this trip yet."))
         n_exp = sum(1 for c in lines if c.expired)
         n_soon = sum(1 for c in lines if c.word == "SOON")
         self.summary = f"{len(lines)} bottles · {n_exp} expired · {n_soon} due soon"
+
+    def open_stop(self, row):
+        ctl().stop_id = row.stop_id
+        go("stop")
 
     def back_to_stop(self):
         c = ctl()

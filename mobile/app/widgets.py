@@ -151,9 +151,10 @@ class BottleRow(BoxLayout):
         pass
 
 
-class ClockRow(BoxLayout):
-    """One holding-time clock on the bottles screen."""
+class ClockRow(ButtonBehavior, BoxLayout):
+    """One holding-time clock on the bottles screen; tapping it opens the bottle's stop."""
 
+    stop_id = StringProperty("")
     symbol = StringProperty("")
     word = StringProperty("")
     title = StringProperty("")

@@ -148,6 +148,12 @@ def three_stops(p):
     b = p.screen("bottles")
     p.note("clock_rows", [f"{r.word}|{r.title}" for r in reversed(b.rows_box.children)])
     yield from p.shot("bottles")
+    rows = list(reversed(b.rows_box.children))
+    yield from p.tap(rows[3])           # TV-A2, the BOD bottle of stop 1
+    yield 0.2
+    p.note("after_clock_tap", [p.app.root.current, p.screen("stop").title])
+    p.app.go("bottles")
+    yield 0.2
     p.app.go("end")
     yield 0.2
     e = p.screen("end")

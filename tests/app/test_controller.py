@@ -164,3 +164,15 @@ def test_open_conflicts_reach_the_attention_list(ctl):
     ctl.open_trip(ctl.trip.id)
     lines = [l for l in ctl.attention_lines() if "CONFLICT" in l]
     assert len(lines) == 1 and "stops[0].notes" in lines[0] and "dev-a" in lines[0]
+
+
+def test_arrival_time_typed_as_hh_mm_or_full(ctl):
+    from mobile.app.controller import parse_when
+
+    base = datetime(2026, 6, 9, 8, 0, tzinfo=timezone.utc)
+    t = parse_when("14:05", base)
+    assert (t.hour, t.minute, t.date()) == (14, 5, base.astimezone(t.tzinfo).date()) and t.tzinfo is not None
+    t = parse_when("2026-06-10 07:30", base)
+    assert (t.day, t.hour, t.minute) == (10, 7, 30) and t.tzinfo is not None
+    view = ctl.set_stop_field("arrived", "half past two")
+    assert "Arrival time" in view.errors["arrived"] and view.flags[0].code == "input.arrived"

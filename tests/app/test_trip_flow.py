@@ -36,6 +36,7 @@ def test_three_stops_end_and_every_screen(tmp_path, size, folder):
     # most urgent first: Winkler DO (8 h) before BOD (48 h) — 40 CFR 136.3 Table II, from memory
     kinds = [r.split("|")[1].split(" · ")[1] for r in notes["clock_rows"]]
     assert kinds == ["DO fixed"] * 3 + ["BOD"] * 3
+    assert notes["after_clock_tap"] == ["stop", "Stop 1 · LK-01"]
     # stop 3 reads 12,9 mg/L at ~9.7 mg/L saturation: supersaturation is shown in words
     assert any(f.startswith("WARNING|") and "saturation" in f for f in notes["stop_views"]["flags"])
     for name in SCREENS:
