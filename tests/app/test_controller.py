@@ -176,3 +176,15 @@ def test_arrival_time_typed_as_hh_mm_or_full(ctl):
     assert (t.day, t.hour, t.minute) == (10, 7, 30) and t.tzinfo is not None
     view = ctl.set_stop_field("arrived", "half past two")
     assert "Arrival time" in view.errors["arrived"] and view.flags[0].code == "input.arrived"
+
+
+def test_a_warm_celsius_value_that_may_be_fahrenheit_is_computed_and_flagged(ctl):
+    from core.temperature import fahrenheit_hint
+
+    ctl.set_stop_field("pressure", "968")
+    view = ctl.set_stop_field("temp", "45")
+    expected = fahrenheit_hint(45.0)          # core decides whether 45 "°C" looks like °F
+    codes = [f.code for f in view.flags]
+    assert view.sat_text != "—"
+    assert (expected is not None) == ("temp.looks_fahrenheit" in codes)
+    assert expected is not None              # 45 °C water is implausible for a stream (common practice)
