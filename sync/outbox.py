@@ -7,15 +7,18 @@ and ETag, the year folder, the hub revision files already contained in the devic
 (``base``, the ancestor for the next three-way merge). Every write goes through
 core.atomic.atomic_write_bytes, so a crash leaves the old entry or the new one.
 
-``manifest.json`` beside them is a cache of every entry without its base document, rewritten
-once at the end of a sync run, so that deciding what to send reads one file, not one per trip.
-It can only lag behind the per-trip files (a crash before it was written): then a trip is
-re-checked at the hub, never skipped wrongly, since a name once seen at the hub stays there.
+``manifest.json`` beside them is a cache of every entry without its base document, and
+``journal.jsonl`` the entries changed since (one line per write, folded into the manifest every
+few hundred lines), so that deciding what to send reads two files, not one per trip, and a push
+of one trip does not rewrite a record of all of them. The cache can only lag behind the per-trip
+files (a crash before a line reached the disk): then a trip is re-checked at the hub, never
+skipped wrongly, since a name once seen at the hub stays there.
 Losing the whole outbox loses nothing: the next push lists the hub and finds revisions by name.
 """
 from __future__ import annotations
 
 import json
+import os
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
@@ -51,6 +54,7 @@ class Outbox:
         self.folder = Path(data_dir) / "sync" / hub_key
         self.hub_url = hub_url
         self._summary: dict[str, OutboxEntry] | None = None
+        self._journal_lines = 0
         self._full: dict[str, OutboxEntry] = {}
         self._dirty = False
 
@@ -80,9 +84,11 @@ class Outbox:
                 for item in raw["entries"]:
                     e = _entry(item)
                     self._summary[e.trip_id] = e
+                self._replay_journal()
                 return self._summary
             except (OSError, ValueError, KeyError, TypeError):
                 self._summary = {}
+            self._dirty = True          # no usable manifest: rebuild it at the end of this run
             folder = self.folder / "trips"
             if folder.is_dir():
                 for p in folder.glob("*.json"):
@@ -90,8 +96,22 @@ class Outbox:
                     if e is not None:
                         e.base = None
                         self._summary[e.trip_id] = e
-                self._dirty = True
         return self._summary
+
+    def _replay_journal(self) -> None:
+        self._journal_lines = 0
+        try:
+            lines = (self.folder / "journal.jsonl").read_bytes().splitlines()
+        except FileNotFoundError:
+            return
+        for line in lines:
+            self._journal_lines += 1
+            try:
+                e = _entry(json.loads(line))
+            except (ValueError, TypeError):
+                continue          # a line torn by a crash: that trip is re-checked at the hub
+            if e.trip_id and e.year:
+                self._summary[e.trip_id] = e
 
     def get(self, trip_id: str) -> OutboxEntry | None:
         """The full entry of one trip (with its base document), from its own file."""
@@ -110,19 +130,34 @@ class Outbox:
                            json.dumps(asdict(entry), sort_keys=True, ensure_ascii=False).encode("utf-8"))
         self._full[entry.trip_id] = entry
         light = OutboxEntry(**{k: getattr(entry, k) for k in OutboxEntry.__dataclass_fields__ if k != "base"})
-        self.all()[entry.trip_id] = light
-        self._dirty = True
+        summary = self.all()
+        summary[entry.trip_id] = light
+        if not self._dirty:   # the manifest is current: record this change in the journal
+            keys = [k for k in OutboxEntry.__dataclass_fields__ if k != "base"]
+            with open(self.folder / "journal.jsonl", "ab") as fh:
+                fh.write(json.dumps({k: getattr(light, k) for k in keys}, sort_keys=True,
+                                    ensure_ascii=False).encode("utf-8") + b"\n")
+            self._journal_lines += 1
 
     def flush(self) -> None:
-        """Rewrites the manifest if anything changed in this run."""
-        if not self._dirty or self._summary is None:
+        """Folds the journal into the manifest when the manifest was missing or the journal long."""
+        if self._summary is None or not (self._dirty or self._journal_lines > 256):
             return
         self._ensure_hub_file()
         keys = [k for k in OutboxEntry.__dataclass_fields__ if k != "base"]
         entries = [{k: getattr(e, k) for k in keys} for _, e in sorted(self._summary.items())]
-        atomic_write_bytes(self.folder / "manifest.json",
-                           json.dumps({"entries": entries}, sort_keys=True,
-                                      ensure_ascii=False).encode("utf-8"))
+        # a cache: replaced atomically (never seen half-written) but not fsynced; after a power
+        # cut it may be the older one, which only costs a re-check at the hub
+        path = self.folder / "manifest.json"
+        tmp = path.with_name(f".manifest.{os.getpid()}.tmp")
+        tmp.write_bytes(json.dumps({"entries": entries}, sort_keys=True,
+                                   ensure_ascii=False).encode("utf-8"))
+        os.replace(tmp, path)
+        try:
+            os.unlink(self.folder / "journal.jsonl")
+        except FileNotFoundError:
+            pass
+        self._journal_lines = 0
         self._dirty = False
 
 

@@ -10,7 +10,7 @@ import time
 from pathlib import Path
 
 N_TRIPS = int(os.environ.get("STREAMTAB_BENCH_TRIPS", "500"))
-REPEATS = 5
+REPEATS = 9
 
 
 def _fill(store, n: int) -> list[str]:
@@ -50,8 +50,10 @@ def main() -> int:
                   f"{N_TRIPS / elapsed_first:.1f} trips/s, {requests_first} requests "
                   f"({requests_first / N_TRIPS:.2f} per trip)")
 
-            # one trip changed, N on the hub
+            # one trip changed with N on the hub, and one trip to an empty hub (a fresh hub
+            # collection and device each time), interleaved so that load on the machine falls on both
             changed_times, changed_requests = [], []
+            single_times, single_requests = [], []
             for i in range(REPEATS):
                 edit_stop_notes(big, ids[i * 7 % len(ids)], 0, f"bench edit {i}")
                 report, n_req, elapsed = _push(big, server.url)
@@ -59,9 +61,6 @@ def main() -> int:
                 changed_times.append(elapsed)
                 changed_requests.append(n_req)
 
-            # one trip to an empty hub (a fresh hub collection and device each time)
-            single_times, single_requests = [], []
-            for i in range(REPEATS):
                 small = open_store(tmp / f"device-1-{i}", f"bench-single-{i}")
                 _fill(small, 1)
                 (server.root / f"empty-{i}").mkdir()

@@ -345,11 +345,38 @@ def hub_files(root: Path) -> dict[str, list[Path]]:
 
 
 def make_self_signed(folder: Path) -> tuple[Path, Path]:
-    """A self-signed certificate for 127.0.0.1 made with the openssl command (test only)."""
+    """A self-signed certificate for 127.0.0.1 (test only): with the `cryptography` package when
+    installed, else the `openssl` command; the test is skipped when neither is there."""
+    import shutil
+
     cert, key = folder / "hub-cert.pem", folder / "hub-key.pem"
-    subprocess.run(
-        ["openssl", "req", "-x509", "-newkey", "rsa:2048", "-nodes", "-keyout", str(key),
-         "-out", str(cert), "-days", "2", "-subj", "/CN=127.0.0.1",
-         "-addext", "subjectAltName=IP:127.0.0.1"],
-        check=True, capture_output=True, timeout=60)
+    try:
+        import ipaddress
+
+        from cryptography import x509
+        from cryptography.hazmat.primitives import hashes, serialization
+        from cryptography.hazmat.primitives.asymmetric import rsa
+        from cryptography.x509.oid import NameOID
+    except ImportError:
+        if shutil.which("openssl") is None:
+            pytest.skip("neither the cryptography package nor the openssl command is installed")
+        subprocess.run(
+            ["openssl", "req", "-x509", "-newkey", "rsa:2048", "-nodes", "-keyout", str(key),
+             "-out", str(cert), "-days", "2", "-subj", "/CN=127.0.0.1",
+             "-addext", "subjectAltName=IP:127.0.0.1"],
+            check=True, capture_output=True, timeout=60)
+        return cert, key
+    pkey = rsa.generate_private_key(public_exponent=65537, key_size=2048)
+    name = x509.Name([x509.NameAttribute(NameOID.COMMON_NAME, "127.0.0.1")])
+    now = datetime.now(timezone.utc)
+    certificate = (x509.CertificateBuilder().subject_name(name).issuer_name(name)
+                   .public_key(pkey.public_key()).serial_number(x509.random_serial_number())
+                   .not_valid_before(now - timedelta(minutes=5)).not_valid_after(now + timedelta(days=2))
+                   .add_extension(x509.SubjectAlternativeName([x509.IPAddress(ipaddress.ip_address("127.0.0.1"))]),
+                                  critical=False)
+                   .add_extension(x509.BasicConstraints(ca=True, path_length=None), critical=True)
+                   .sign(pkey, hashes.SHA256()))
+    cert.write_bytes(certificate.public_bytes(serialization.Encoding.PEM))
+    key.write_bytes(pkey.private_bytes(serialization.Encoding.PEM, serialization.PrivateFormat.PKCS8,
+                                       serialization.NoEncryption()))
     return cert, key
