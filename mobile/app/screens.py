@@ -372,9 +372,7 @@ class StopScreen(BaseScreen):
         self.show_bottles()
 
     def now_arrived(self):
-        from mobile.app.controller import fmt_when as fw
-
-        self.arrived_entry.text = fw(ctl().now())
+        self.arrived_entry.text = fmt_when(ctl().now())
         self.field("arrived", self.arrived_entry.text)
 
     def close_stop(self):
