@@ -102,7 +102,17 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
         def _save(self, *_):
             self.ctl.save_now()
 
+        def _check_saves(self, _dt):
+            """A save the store refused or could not make (locked, disk full) is said on screen and retried."""
+            errors = self.ctl.take_save_errors()
+            if errors:
+                screen = self.root.current_screen
+                if hasattr(screen, "message"):
+                    screen.message = f"■ Not saved yet — {errors[-1]} It will be tried again."
+                self.save_trigger()
+
         def on_start(self):
+            Clock.schedule_interval(self._check_saves, 1.0)
             screen, _ = (start_screen, None) if start_screen else self.ctl.resume_point()
             if start_screen and start_screen in ("stop", "bottles", "end"):
                 self._ensure_trip_for(start_screen)

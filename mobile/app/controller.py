@@ -230,7 +230,7 @@ class AppController:
         self.bridge = records_bridge
         self.now = now
         self.save_errors: list[str] = []
-        self.worker = worker or SaveWorker(on_error=lambda e: self.save_errors.append(str(e)))
+        self.worker = worker or SaveWorker(on_error=self._save_failed)
         self.prefs = AppPrefs()
         self.trip: TripForm | None = None
         self.stop_id: str | None = None
@@ -788,6 +788,16 @@ class AppController:
                 for c in saved.open_conflicts]
 
     # ------------------------------------------------------------------ saving
+    def _save_failed(self, exc: BaseException) -> None:
+        # worker thread: keep the message for the screen and mark the form unsaved so the next
+        # trigger (or on_pause) writes it again; the form itself is still in memory
+        self.save_errors.append(str(exc) or type(exc).__name__)
+        self.dirty = True
+
+    def take_save_errors(self) -> list[str]:
+        errors, self.save_errors = self.save_errors, []
+        return errors
+
     def save_later(self) -> None:
         """Marks the trip changed; the screen's debounce trigger calls save_now()."""
         self.dirty = True

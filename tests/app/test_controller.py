@@ -188,3 +188,36 @@ def test_a_warm_celsius_value_that_may_be_fahrenheit_is_computed_and_flagged(ctl
     assert view.sat_text != "—"
     assert (expected is not None) == ("temp.looks_fahrenheit" in codes)
     assert expected is not None              # 45 °C water is implausible for a stream (common practice)
+
+
+class _StoreThatFailsOnce:
+    """The real store, whose next save raises StoreLocked once (as when the CLI holds the lock)."""
+
+    def __init__(self, store):
+        self._store = store
+        self.fail_next = False
+
+    def __getattr__(self, name):
+        return getattr(self._store, name)
+
+    def save_trip(self, trip, change):
+        from core.store import StoreLocked
+
+        if self.fail_next:
+            self.fail_next = False
+            raise StoreLocked("The store is busy (another streamtab holds its lock).")
+        return self._store.save_trip(trip, change)
+
+
+def test_a_failed_save_is_reported_and_written_next_time(ctl):
+    flaky = _StoreThatFailsOnce(ctl.store)
+    ctl.store = flaky
+    ctl.set_stop_field("temp", "12,4")
+    flaky.fail_next = True
+    ctl.save_now(wait=True)
+    errors = ctl.take_save_errors()
+    assert errors and "busy" in errors[0]
+    assert ctl.dirty is True
+    assert ctl.flush(10)                    # what on_pause or the next trigger does
+    assert ctl.save_errors == []
+    assert flaky.load_trip(ctl.trip.id).stops[0].temp.text == "12,4 °C"
