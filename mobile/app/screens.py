@@ -297,6 +297,15 @@ class StopScreen(BaseScreen):
         self.title = f"Stop {ctl().stop_number(ctl().stop)} · {site_id}"
         self._refresh_stop_list()
 
+    def toggle_new_site(self):
+        self.adding_site = not self.adding_site
+
+    def choose_kind(self, kind):
+        self.bottle_kind = kind
+
+    def choose_fix_now(self, fixed):
+        self.fix_now = bool(fixed)
+
     def save_site(self, code, name, elevation_text):
         try:
             site_id = ctl().add_site(code, name, elevation_text)
@@ -597,6 +606,10 @@ class SettingsScreen(BaseScreen):
 
         self.pressure_units = list(PRESSURE_UNITS)
         self.cond_units = list(CONDUCTIVITY_UNITS)
+
+    def choose(self, name, value):
+        """A default unit picked on the settings screen (kept until Save)."""
+        setattr(self, name, value)
 
     def on_pre_enter(self, *_):
         p = ctl().prefs
