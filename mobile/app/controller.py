@@ -536,7 +536,7 @@ class AppController:
             view.percent_text = _fmt(d.percent_saturation, 1, "%")
             view.do_text = _fmt(d.do_mg_l, 2, "mg/L")
             source = {"given": "as given", "conductivity": "from conductivity",
-                      "default": "fresh water assumed"}.get(d.salinity_source, d.salinity_source)
+                      "default": "fresh water"}.get(d.salinity_source, d.salinity_source)
             view.salinity_text = f"{d.salinity:.2f} ({source})"
         labels = Counter(b.label for s in self.trip.stops for b in s.bottles)
         prev = self._previous_record(stop)

@@ -408,3 +408,26 @@ def revisit_stop(p):
     yield 0.6
     p.app.ctl.flush(10)
     p.note("trip_id", p.app.ctl.trip.id)
+
+
+def new_site(p):
+    """A site not on the list: add it with its elevation from the stop screen, then log there."""
+    yield 0.1
+    yield from _start_trip(p, cal=None)
+    s = p.screen("stop")
+    yield from p.tap(s.ids.new_site_btn)
+    yield 0.1
+    yield from p.type(s.ids.site_code, "LK-07")
+    yield from p.type(s.ids.site_name, "Willow Steps")
+    yield from p.type(s.ids.site_elev, "1250,5")
+    yield from p.tap(s.ids.save_site_btn)
+    yield 0.1
+    p.note("site_text", s.site_text)
+    p.note("message", s.message)
+    yield from p.type(s.ids.temp, "9,5")
+    yield from p.type(s.ids.pressure, "1013")
+    p.note("flags", _screen_texts(p)["flags"])
+    yield from p.shot("stop-new-site")
+    yield 0.6
+    p.app.ctl.flush(10)
+    p.note("trip_id", p.app.ctl.trip.id)

@@ -91,3 +91,15 @@ def test_going_back_to_an_earlier_stop(tmp_path):
     trip = DeviceStore.open(tmp_path / "data").load_trip(notes["trip_id"])
     assert [s.do.text for s in trip.stops] == ["9,6 mg/L", "10,1 mg/L"]
     assert trip.stops[0].closed_at is not None
+
+
+def test_new_site_with_elevation_from_the_stop_screen(tmp_path):
+    seed_sites(tmp_path / "data")
+    notes = run_scenario("new_site", tmp_path / "data", tmp_path, artifacts=ARTIFACTS / "landscape")
+    assert notes["site_text"] == "LK-07 Willow Steps" and notes["message"].startswith("✓")
+    store = DeviceStore.open(tmp_path / "data")
+    site = next(s for s in store.sites() if s.id == "LK-07")
+    assert site.elevation_m == pytest.approx(1250.5)
+    # 1013 hPa at 1250 m is far above the standard atmosphere there (US Standard Atmosphere 1976)
+    assert any("sea-level" in f for f in notes["flags"]), notes["flags"]
+    assert store.load_trip(notes["trip_id"]).stops[0].site_id == "LK-07"
