@@ -85,7 +85,22 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
 
         def build(self):
             Window.clearcolor = self.palette["paper"]
+            Window.bind(on_keyboard=self._back_key)
             return self.root
+
+        BACK = {"stop": "trips", "bottles": "stop", "end": "stop", "start": "trips",
+                "sync": "trips", "settings": "trips"}
+
+        def _back_key(self, _window, key, *_args):
+            """Android's back button (Escape on a desktop) goes one screen back, never out of the app."""
+            if key != 27:
+                return False
+            target = self.BACK.get(self.root.current)
+            if target == "stop" and self.ctl.stop is None:
+                target = "trips"
+            if target:
+                self.go(target)
+            return True
 
         def screen(self, name: str):
             """The screen called `name`, built from its kv rule the first time it is asked for."""

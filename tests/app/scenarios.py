@@ -384,6 +384,11 @@ def settings_change(p):
     yield 0.2
     yield from _start_trip(p, cal=None)
     p.note("stop_temp_unit", p.screen("stop").temp_unit)
+    from kivy.core.window import Window
+
+    Window.dispatch("on_keyboard", 27, 9, None, [])   # the back button
+    yield 0.2
+    p.note("after_back", p.app.root.current)
 
 
 def revisit_stop(p):

@@ -43,3 +43,4 @@ def test_settings_reach_the_store_and_new_stops(tmp_path):
     prefs = json.loads((tmp_path / "data" / "app-prefs.json").read_text())
     assert prefs["temp_unit"] == "F" and prefs["sync_target"] == "/mnt/hub"
     assert notes["stop_temp_unit"] == "F"
+    assert notes["after_back"] == "trips"      # back from a stop: the trips list, app still open
