@@ -553,7 +553,8 @@ def status(store: Any) -> list[TripSyncState]:
         conflicts: list[str] = []
         try:
             doc = store.trip_document(tid)
-            conflicts = _conflict_lines(c for c in doc.get("conflicts") or [] if isinstance(c, dict))
+            conflicts = _conflict_lines(c for c in doc.get("conflicts") or []
+                                        if isinstance(c, dict) and not c.get("resolved_at"))
         except Exception:  # an unreadable trip is the store's report, not ours
             pass
         if not states or all(s.state == "never pushed" for s in states):

@@ -266,8 +266,14 @@ class Session:
             raise errors.TimedOut(f"{method} {shown} got no answer within the timeout") from None
         except requests.exceptions.ConnectionError:
             raise errors.Unreachable(f"{method} {shown}: the connection failed or was cut") from None
-        except requests.exceptions.RequestException as exc:
+        except (requests.exceptions.InvalidURL, requests.exceptions.MissingSchema,
+                requests.exceptions.InvalidSchema, requests.exceptions.URLRequired) as exc:
             raise errors.ConfigError(f"{method} {shown} could not be sent ({type(exc).__name__})") from None
+        except Exception as exc:  # an answer cut or garbled on the way (ChunkedEncodingError, ...)
+            if isinstance(exc, errors.SyncError):
+                raise
+            raise errors.Unreachable(
+                f"{method} {shown}: the answer was cut or garbled on the way ({type(exc).__name__})") from None
         status = resp.status_code
         if 300 <= status < 400:
             where = redact_url(resp.headers.get("Location", "") or "?")

@@ -62,3 +62,19 @@ def test_outbox_records_revision_hash_and_etag(dav, device_a):
     assert e.pushed_hash == "sha256:" + __import__("hashlib").sha256(canonical_json_bytes(doc)).hexdigest()
     assert e.etag and e.hub_name in e.seen and e.year == "2026"
     assert box.hub_url == dav.url
+
+
+def test_lagging_outbox_cache_costs_a_recheck_never_a_duplicate(dav, device_a):
+    t = new_trip(device_a)
+    s = dav_session()
+    sync.push(device_a, dav.url, session=s)
+    edit_stop_notes_ = __import__("tests.sync.conftest", fromlist=["edit_stop_notes"]).edit_stop_notes
+    edit_stop_notes_(device_a, t.id, 0, "second visit")
+    sync.push(device_a, dav.url, session=s)
+    (journal,) = (device_a.data_dir / "sync").glob("*/journal.jsonl")
+    journal.unlink()                                 # the cache now lags one push behind
+    s.request_count = 0
+    r = sync.push(device_a, dav.url, session=s)
+    assert (r.pushed, r.unchanged, r.failed) == (0, 1, 0)
+    assert s.request_count == 1                      # one PROPFIND to re-check, nothing written
+    assert len(hub_files(dav.root / "hub")[t.id]) == 2
