@@ -1,6 +1,97 @@
-"""Sub-commands of `streamtab` (placeholder until its issue lands)."""
+"""`streamtab app`: opens the touch app, or draws one screen to a PNG (--snapshot) and exits."""
 from __future__ import annotations
+
+import os
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+from mobile.cli._common import fail
+
+SCREENS = ("trips", "start", "stop", "bottles", "end", "sync", "settings")
+SNAPSHOT_HINT = "streamtab app --snapshot screen.png [--screen stop]"
 
 
 def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
-    """Adds this module's sub-commands to the top-level parser."""
+    """Adds `streamtab app` to the top-level parser."""
+    p = sub.add_parser("app", help="open the touch app (or draw a screen to a PNG with --snapshot)")
+    p.add_argument("--data-dir", help="device store folder (default: $STREAMTAB_DATA or the user data folder)")
+    p.add_argument("--snapshot", metavar="FILE.png", help="draw the screen, save it as a PNG and exit")
+    p.add_argument("--screen", choices=SCREENS, help="open on this screen instead of where the app was")
+    p.add_argument("--seed-demo", metavar="DIR",
+                   help="on first start (empty data folder) import the sites and trips in DIR")
+    p.add_argument("--size", default=None, metavar="WxH",
+                   help="window size in pixels, e.g. 800x1200 for portrait (default 1200x780)")
+    p.set_defaults(handler=run)
+
+
+def _parse_size(text: str | None) -> tuple[int, int] | None:
+    if not text:
+        return None
+    try:
+        w, h = (int(v) for v in text.lower().split("x"))
+    except ValueError:
+        fail(f"--size “{text}” is not WIDTHxHEIGHT in pixels, e.g. 800x1200")
+    if not (320 <= w <= 4000 and 320 <= h <= 4000):
+        fail(f"--size {text} is outside 320–4000 pixels a side")
+    return w, h
+
+
+def _has_display() -> bool:
+    if not sys.platform.startswith("linux"):
+        return True
+    return bool(os.environ.get("DISPLAY") or os.environ.get("WAYLAND_DISPLAY"))
+
+
+def seed_demo(data_dir: Path, demo_dir: Path) -> int:
+    """Imports demo sites and trips into an empty store; returns how many trips came in."""
+    from core import exchange
+    from core.store import DeviceStore
+
+    store = DeviceStore.open(data_dir)
+    if store.list_trips() or store.sites():
+        return 0
+    sites = demo_dir / "sites.csv"
+    if sites.exists():
+        exchange.import_sites_csv(store, sites)
+    n = 0
+    for trip_file in sorted(demo_dir.glob("trip-*.json")):
+        exchange.import_trip_file(store, trip_file)
+        n += 1
+    return n
+
+
+def run(args) -> int:  # noqa: ANN001 - argparse namespace
+    from core.paths import resolve_data_dir
+
+    size = _parse_size(args.size)
+    if not _has_display():
+        xvfb = shutil.which("xvfb-run")
+        if args.snapshot and xvfb and not os.environ.get("STREAMTAB_UNDER_XVFB"):
+            # draw off-screen on a virtual display, then exit (never hangs: bounded by timeout)
+            env = dict(os.environ, STREAMTAB_UNDER_XVFB="1")
+            argv = [xvfb, "-a", "-s", "-screen 0 1280x1280x24", sys.executable, "-m", "mobile.cli",
+                    "app", "--snapshot", args.snapshot]
+            for flag, value in (("--data-dir", args.data_dir), ("--screen", args.screen),
+                                ("--seed-demo", args.seed_demo), ("--size", args.size)):
+                if value:
+                    argv += [flag, value]
+            try:
+                return subprocess.run(argv, env=env, timeout=120).returncode
+            except subprocess.TimeoutExpired:
+                fail("drawing the snapshot took over 120 s on the virtual display; nothing was written")
+        sys.stderr.write("streamtab: no display here (DISPLAY is not set), so the app cannot open a window; "
+                         f"to draw a screen to a file run: {SNAPSHOT_HINT}"
+                         + ("" if xvfb else " (needs xvfb-run: apt-get install xvfb)") + "\n")
+        return 3
+    data_dir = resolve_data_dir(args.data_dir)
+    if args.seed_demo:
+        demo = Path(args.seed_demo)
+        if not demo.is_dir():
+            fail(f"--seed-demo {demo} is not a folder; give the folder holding sites.csv and trip-*.json")
+        seed_demo(data_dir, demo)
+    from mobile.app.app import run_app
+
+    return run_app(data_dir, start_screen=args.screen, size=size or (1200, 780),
+                   snapshot=Path(args.snapshot) if args.snapshot else None)

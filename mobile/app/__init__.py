@@ -1,0 +1,1 @@
+"""The streamtab touch app: Kivy screens over a kivy-free controller (mobile.app.controller)."""

@@ -1,0 +1,223 @@
+"""The app's controller without a window: forms in, core's values and the real store out.
+
+Expected values come from core (core.assess, core.models.measure), never from the app's own
+earlier output; saturation checks against Benson & Krause (1984) live in tests/science.
+"""
+from __future__ import annotations
+
+from datetime import datetime, timedelta, timezone
+
+import pytest
+
+from core.assess import assess_reading
+from core.store import DeviceStore
+from mobile.app.controller import AppController
+from tests.app.conftest import seed_sites
+
+
+@pytest.fixture
+def ctl(tmp_path):
+    seed_sites(tmp_path / "data")
+    c = AppController(DeviceStore.open(tmp_path / "data"))
+    f = c.new_trip_form()
+    f.program, f.crew, f.meter_id = "Tamsin Valley Stream Watch", "R.O., J.V.", "DO-7"
+    assert c.start_trip(f) is None
+    c.new_stop()
+    c.set_stop_field("site", "LK-01")
+    yield c
+    c.worker.close()
+
+
+def test_view_matches_core_assess(ctl):
+    for k, v in (("temp", "12,4"), ("pressure", "968"), ("conductivity", "410"), ("do", "9,8")):
+        view = ctl.set_stop_field(k, v)
+    a = assess_reading(12.4, 968.0, conductivity_us_cm=410.0, do_mg_l=9.8, elevation_m=420.0,
+                       water_class="cold")
+    assert view.sat_text == f"{a.do_sat_mg_l:.2f} mg/L"
+    assert view.percent_text == f"{a.percent_saturation:.1f} %"
+    assert view.salinity_text.startswith(f"{a.salinity:.2f}")
+
+
+def test_fahrenheit_unit_converts_before_core(ctl):
+    ctl.set_stop_field("temp_unit", "F")
+    ctl.set_stop_field("temp", "68")
+    view = ctl.set_stop_field("pressure", "1000")
+    a = assess_reading(20.0, 1000.0, elevation_m=420.0, water_class="cold")   # 68 °F = 20 °C (definition)
+    assert view.sat_text == f"{a.do_sat_mg_l:.2f} mg/L"
+
+
+def test_fahrenheit_value_typed_as_celsius_gets_the_hint(ctl):
+    view = ctl.set_stop_field("temp", "68")
+    assert any("°F" in f.message for f in view.flags)
+    assert view.sat_text == "—"   # nothing computed from a refused value
+
+
+def test_sea_level_pressure_is_flagged_at_elevation(ctl):
+    ctl.set_stop_field("temp", "12")
+    view = ctl.set_stop_field("pressure", "1013")   # a weather-service value at a 420 m site
+    assert any(f.code == "pressure.sea_level_adjusted" for f in view.flags)
+
+
+def test_duplicate_bottle_refused_in_trip_and_across_device(ctl, tmp_path):
+    assert ctl.add_bottle("B-1", "do_fixed", True) is None
+    msg = ctl.add_bottle("b-1", "bod", False)
+    assert msg and "already used" in msg
+    ctl.save_now(wait=True)
+    other = AppController(ctl.store)
+    f = other.new_trip_form()
+    f.program, f.crew, f.meter_id = "Tamsin Valley Stream Watch", "J.V.", "DO-8"
+    other.start_trip(f)
+    other.new_stop()
+    other.set_stop_field("site", "LK-02")
+    msg = other.add_bottle("B-1", "do_fixed", True)
+    assert msg and "another trip" in msg
+    other.worker.close()
+
+
+def test_close_blocked_until_required_fields(ctl):
+    msg = ctl.close_stop()
+    assert msg and "Water temperature" in msg and "Meter DO" in msg
+    for k, v in (("temp", "12,4"), ("pressure", "968"), ("do", "9,8")):
+        ctl.set_stop_field(k, v)
+    assert ctl.close_stop() is None
+
+
+def test_saved_through_the_store_as_typed(ctl):
+    for k, v in (("pressure_unit", "mmHg"), ("temp", "12,4"), ("pressure", "726,1"), ("do", "95"),
+                 ("do_unit", "%")):
+        ctl.set_stop_field(k, v)
+    ctl.save_now(wait=True)
+    assert ctl.save_errors == []
+    trip = ctl.store.load_trip(ctl.trip.id)
+    stop = trip.stops[0]
+    assert stop.pressure.text == "726,1 mmHg"
+    assert stop.pressure.value == pytest.approx(726.1 * 1.33322387415)   # conventional mmHg (NIST SP 811)
+    assert stop.do.unit == "%" and stop.do.value == 95.0
+    assert stop.derived.do_sat_mg_l == pytest.approx(
+        assess_reading(12.4, 726.1 * 1.33322387415, elevation_m=420.0, water_class="cold",
+                       do_percent=95.0).do_sat_mg_l)
+
+
+def test_refused_text_survives_a_restart(ctl):
+    ctl.set_stop_field("temp", "68")
+    ctl.save_now(wait=True)
+    again = AppController(ctl.store)
+    screen, stop_id = again.resume_point()
+    assert screen == "stop" and stop_id == ctl.stop_id
+    assert again.stop.temp_text == "68"
+    again.worker.close()
+
+
+def test_holding_clocks_most_urgent_first(ctl):
+    t0 = datetime.now(timezone.utc)
+    ctl.now = lambda: t0
+    ctl.add_bottle("BOD-1", "bod", False)
+    ctl.now = lambda: t0 + timedelta(minutes=5)
+    ctl.add_bottle("DO-1", "do_fixed", True)
+    lines = ctl.clock_lines(now=t0 + timedelta(hours=7))
+    # Winkler DO 8 h vs BOD 48 h (40 CFR 136.3 Table II, from memory)
+    assert [c.label for c in lines] == ["DO-1", "BOD-1"]
+    assert lines[0].word == "SOON"
+    lines = ctl.clock_lines(now=t0 + timedelta(hours=9))
+    assert lines[0].word == "EXPIRED"
+
+
+def test_add_site_with_elevation_and_refusals(ctl):
+    site_id = ctl.add_site("LK-09", "Willow Steps", "1250,5")
+    assert site_id == "LK-09"
+    assert ctl.site("LK-09").elevation_m == pytest.approx(1250.5)
+    for code, name, elev, word in (("", "X", "10", "code"), ("LK-10", "", "10", "name"),
+                                   ("LK-10", "X", "", "Elevation"), ("LK-10", "X", "9000", "outside"),
+                                   ("LK-09", "Again", "10", "already")):
+        with pytest.raises(ValueError) as err:
+            ctl.add_site(code, name, elev)
+        assert word in str(err.value)
+
+
+def test_another_writer_between_saves_loses_nothing(ctl):
+    from core.models import new_id
+
+    for k, v in (("temp", "12,4"), ("pressure", "968"), ("do", "9,8")):
+        ctl.set_stop_field(k, v)
+    ctl.save_now(wait=True)
+    stored = ctl.store.load_trip(ctl.trip.id)
+    other = stored.stops[0].model_copy(update={"id": new_id(), "site_id": "LK-02", "bottles": []})
+    ctl.store.save_trip(stored.model_copy(update={"stops": [*stored.stops, other]}), "pulled from a hub")
+    ctl.set_stop_field("do", "9,9")
+    ctl.save_now(wait=True)
+    assert ctl.save_errors == []
+    after = ctl.store.load_trip(ctl.trip.id)
+    assert [s.site_id for s in after.stops] == ["LK-01", "LK-02"]
+    assert after.stops[0].do.text == "9,9 mg/L"
+
+
+def test_open_conflicts_reach_the_attention_list(ctl):
+    from datetime import datetime, timezone
+
+    for k, v in (("temp", "12,4"), ("pressure", "968"), ("do", "9,8")):
+        ctl.set_stop_field(k, v)
+    ctl.save_now(wait=True)
+    doc = ctl.store.trip_document(ctl.trip.id)
+    doc["conflicts"] = [{"id": "c1", "path": "stops[0].notes", "detected_at": datetime.now(timezone.utc).isoformat(),
+                         "sides": [{"device_id": "dev-a", "value": "riffle"}, {"device_id": "dev-b", "value": "pool"}]}]
+    ctl.store.put_document(doc, "merged by sync")
+    ctl.open_trip(ctl.trip.id)
+    lines = [l for l in ctl.attention_lines() if "CONFLICT" in l]
+    assert len(lines) == 1 and "stops[0].notes" in lines[0] and "dev-a" in lines[0]
+
+
+def test_arrival_time_typed_as_hh_mm_or_full(ctl):
+    from mobile.app.controller import parse_when
+
+    base = datetime(2026, 6, 9, 8, 0, tzinfo=timezone.utc)
+    t = parse_when("14:05", base)
+    assert (t.hour, t.minute, t.date()) == (14, 5, base.astimezone(t.tzinfo).date()) and t.tzinfo is not None
+    t = parse_when("2026-06-10 07:30", base)
+    assert (t.day, t.hour, t.minute) == (10, 7, 30) and t.tzinfo is not None
+    view = ctl.set_stop_field("arrived", "half past two")
+    assert "Arrival time" in view.errors["arrived"] and view.flags[0].code == "input.arrived"
+
+
+def test_a_warm_celsius_value_that_may_be_fahrenheit_is_computed_and_flagged(ctl):
+    from core.temperature import fahrenheit_hint
+
+    ctl.set_stop_field("pressure", "968")
+    view = ctl.set_stop_field("temp", "45")
+    expected = fahrenheit_hint(45.0)          # core decides whether 45 "°C" looks like °F
+    codes = [f.code for f in view.flags]
+    assert view.sat_text != "—"
+    assert (expected is not None) == ("temp.looks_fahrenheit" in codes)
+    assert expected is not None              # 45 °C water is implausible for a stream (common practice)
+
+
+class _StoreThatFailsOnce:
+    """The real store, whose next save raises StoreLocked once (as when the CLI holds the lock)."""
+
+    def __init__(self, store):
+        self._store = store
+        self.fail_next = False
+
+    def __getattr__(self, name):
+        return getattr(self._store, name)
+
+    def save_trip(self, trip, change):
+        from core.store import StoreLocked
+
+        if self.fail_next:
+            self.fail_next = False
+            raise StoreLocked("The store is busy (another streamtab holds its lock).")
+        return self._store.save_trip(trip, change)
+
+
+def test_a_failed_save_is_reported_and_written_next_time(ctl):
+    flaky = _StoreThatFailsOnce(ctl.store)
+    ctl.store = flaky
+    ctl.set_stop_field("temp", "12,4")
+    flaky.fail_next = True
+    ctl.save_now(wait=True)
+    errors = ctl.take_save_errors()
+    assert errors and "busy" in errors[0]
+    assert ctl.dirty is True
+    assert ctl.flush(10)                    # what on_pause or the next trigger does
+    assert ctl.save_errors == []
+    assert flaky.load_trip(ctl.trip.id).stops[0].temp.text == "12,4 °C"

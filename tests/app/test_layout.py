@@ -1,0 +1,46 @@
+"""Touch targets and text sizes on every screen (>= 48 dp targets, >= 18 sp text: issue 4's rule,
+common practice for gloved touch), the soft keyboard never covering the focused field, and on_pause
+saving before the debounce has fired."""
+from __future__ import annotations
+
+import pytest
+
+from core.store import DeviceStore
+from tests.app.conftest import ARTIFACTS, run_scenario, seed_sites
+from tests.app.test_trip_flow import run_until_ready_then_kill
+
+pytestmark = pytest.mark.app
+
+
+@pytest.mark.parametrize("size,folder", [("1200x780", "landscape"), ("600x780", "portrait")])
+def test_targets_text_and_keyboard(tmp_path, size, folder):
+    seed_sites(tmp_path / "data")
+    notes = run_scenario("sizes", tmp_path / "data", tmp_path, size=size, artifacts=ARTIFACTS / folder)
+    assert notes["checked"] > 40
+    assert notes["small_targets"] == []
+    assert notes["small_text"] == []
+    assert notes["field_bottom_y"] >= 320 - 1          # above the 320 px keyboard
+    assert notes["field_top_y"] <= notes["scroll_top_y"] + 1
+
+
+def test_on_pause_saves_before_the_debounce(tmp_path):
+    seed_sites(tmp_path / "data")
+    notes = run_until_ready_then_kill("pause_and_hang", tmp_path)
+    stop = DeviceStore.open(tmp_path / "data").load_trip(notes["trip_id"]).stops[0]
+    assert stop.id == notes["stop_id"] and stop.site_id == "LK-03"
+    assert (stop.temp.text, stop.pressure.text, stop.do.text) == ("15,5 °C", "941 hPa", "8,4 mg/L")
+
+
+def test_settings_reach_the_store_and_new_stops(tmp_path):
+    import json
+
+    seed_sites(tmp_path / "data")
+    notes = run_scenario("settings_change", tmp_path / "data", tmp_path)
+    assert notes["message"].startswith("✓")
+    assert "Calibration tolerance" in notes["refused"] and "between" in notes["refused"]
+    st = DeviceStore.open(tmp_path / "data").settings()
+    assert st.calibration_tolerance_mg_l == pytest.approx(0.3)
+    prefs = json.loads((tmp_path / "data" / "app-prefs.json").read_text())
+    assert prefs["temp_unit"] == "F" and prefs["sync_target"] == "/mnt/hub"
+    assert notes["stop_temp_unit"] == "F"
+    assert notes["after_back"] == "trips"      # back from a stop: the trips list, app still open

@@ -1,0 +1,105 @@
+"""A whole trip in the real window: three stops with bottles, every screen, end of trip; and a
+kill-and-restart that must come back to the stop with its data. Screenshots go to test-artifacts/."""
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import time
+
+import pytest
+
+from core.store import DeviceStore
+from tests.app.conftest import ARTIFACTS, child_env, run_scenario, scenario_argv, seed_sites, ROOT
+
+pytestmark = pytest.mark.app
+
+SCREENS = ("trips", "start", "stop", "bottles", "end", "sync", "settings")
+
+
+@pytest.mark.parametrize("size,folder", [("1200x780", "landscape"), ("600x780", "portrait")])
+def test_three_stops_end_and_every_screen(tmp_path, size, folder):
+    seed_sites(tmp_path / "data")
+    art = ARTIFACTS / folder
+    notes = run_scenario("three_stops", tmp_path / "data", tmp_path, artifacts=art, size=size,
+                         timeout=180)
+    assert notes["save_errors"] == []
+    trip = DeviceStore.open(tmp_path / "data").load_trip(notes["trip_id"])
+    assert [s.site_id for s in trip.stops] == ["LK-01", "LK-02", "LK-03"]
+    assert all(s.closed_at is not None for s in trip.stops)
+    assert sorted(b.label for s in trip.stops for b in s.bottles) == \
+        ["TV-A1", "TV-A2", "TV-B1", "TV-B2", "TV-C1", "TV-C2"]
+    assert trip.ended_at is not None
+    assert trip.post_check is not None and trip.post_check.accepted is False   # 8,9 vs target: drift
+    assert notes["post_verdict"] == "FAIL"
+    # most urgent first: Winkler DO (8 h) before BOD (48 h) — 40 CFR 136.3 Table II, from memory
+    kinds = [r.split("|")[1].split(" · ")[1] for r in notes["clock_rows"]]
+    assert kinds == ["DO fixed"] * 3 + ["BOD"] * 3
+    assert notes["after_clock_tap"] == ["stop", "Stop 1 · LK-01"]
+    # stop 3 reads 12,9 mg/L at ~9.7 mg/L saturation: supersaturation is shown in words
+    assert any(f.startswith("WARNING|") and "saturation" in f for f in notes["stop_views"]["flags"])
+    for name in SCREENS:
+        assert (art / f"{name}.png").stat().st_size > 5000
+
+
+def run_until_ready_then_kill(scenario: str, tmp_path) -> dict:
+    """Starts the app through `scenario`, waits (bounded) for its "ready" note, then SIGKILLs it."""
+    result = tmp_path / f"{scenario}.json"
+    proc = subprocess.Popen(scenario_argv(scenario, tmp_path / "data", result),
+                            env=child_env(tmp_path / "kivy-home"), cwd=ROOT,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, start_new_session=True)
+    try:
+        deadline = time.monotonic() + 120
+        notes = {}
+        while time.monotonic() < deadline:
+            if result.exists():
+                try:
+                    notes = json.loads(result.read_text())
+                except ValueError:
+                    notes = {}
+                if notes.get("ready") or "error" in notes:
+                    break
+            time.sleep(0.2)
+        assert notes.get("ready"), notes.get("error", "the app did not get ready in 120 s")
+    finally:
+        os.killpg(proc.pid, signal.SIGKILL)   # no on_stop, no flush: as a swiped-away app
+        proc.wait(30)
+    return notes
+
+
+def test_kill_and_restart_returns_to_the_stop(tmp_path):
+    seed_sites(tmp_path / "data")
+    notes = run_until_ready_then_kill("type_and_hang", tmp_path)
+    after = run_scenario("observe", tmp_path / "data", tmp_path, artifacts=ARTIFACTS / "restart")
+    assert after["screen"] == "stop"
+    assert after["stop_id"] == notes["stop_id"]
+    f = after["fields"]
+    assert (f["temp"], f["pressure"], f["pressure_unit"], f["do"]) == ("11,7", "29,02", "inHg", "10,2")
+    assert f["site"] == "LK-01 Mill Ford" and f["bottles"] == ["KILL-1"]
+    stop = DeviceStore.open(tmp_path / "data").load_trip(notes["trip_id"]).stops[0]
+    assert stop.pressure.text == "29,02 inHg" and stop.bottles[0].label == "KILL-1"
+
+
+def test_going_back_to_an_earlier_stop(tmp_path):
+    seed_sites(tmp_path / "data")
+    notes = run_scenario("revisit_stop", tmp_path / "data", tmp_path)
+    assert notes["titles"] == ["Stop 1 of 2 · LK-01 · closed", "Stop 2 of 2 · LK-02 · open"]
+    assert notes["first_do"] == "9,8" and notes["first_closed"] is True
+    assert notes["reclose"].startswith("✓")
+    assert notes["second_do"] == "10,1"
+    trip = DeviceStore.open(tmp_path / "data").load_trip(notes["trip_id"])
+    assert [s.do.text for s in trip.stops] == ["9,6 mg/L", "10,1 mg/L"]
+    assert trip.stops[0].closed_at is not None
+
+
+def test_new_site_with_elevation_from_the_stop_screen(tmp_path):
+    seed_sites(tmp_path / "data")
+    notes = run_scenario("new_site", tmp_path / "data", tmp_path, artifacts=ARTIFACTS / "landscape")
+    assert notes["site_text"] == "LK-07 Willow Steps" and notes["message"].startswith("✓")
+    store = DeviceStore.open(tmp_path / "data")
+    site = next(s for s in store.sites() if s.id == "LK-07")
+    assert site.elevation_m == pytest.approx(1250.5)
+    # 1013 hPa at 1250 m is far above the standard atmosphere there (US Standard Atmosphere 1976)
+    assert any("sea-level" in f for f in notes["flags"]), notes["flags"]
+    assert store.load_trip(notes["trip_id"]).stops[0].site_id == "LK-07"
