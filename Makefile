@@ -10,8 +10,9 @@ XVFB    := xvfb-run -a -s "-screen 0 1280x800x24"
 
 $(STAMP): pyproject.toml
 	@test -x $(BIN)/python || $(PY) -m venv $(VENV)
-	$(BIN)/python -m pip install -q --upgrade pip
-	$(BIN)/python -m pip install -q -e '.[test]'
+	@echo "streamtab: installing into $(VENV) (log: $(VENV)/install.log)"
+	@{ $(BIN)/python -m pip install --upgrade pip && $(BIN)/python -m pip install -e '.[test]'; } \
+		> $(VENV)/install.log 2>&1 || { tail -n 20 $(VENV)/install.log; exit 1; }
 	@touch $(STAMP)
 
 sysdeps-run:
@@ -22,7 +23,9 @@ sysdeps-test:
 
 # Opens the touch app on a demo data folder seeded from sample_trips/ on first start.
 run: sysdeps-run $(STAMP)
-	@$(BIN)/streamtab app --data-dir $(DEMO) --seed-demo sample_trips
+	@if [ "$$(uname)" = Linux ] && [ -z "$$DISPLAY" ] && [ -z "$$WAYLAND_DISPLAY" ]; then \
+		echo "streamtab: no display here, so the app cannot open a window; to draw the demo's stop screen to a file run: $(BIN)/streamtab app --data-dir $(DEMO) --seed-demo sample_trips --snapshot stop.png --screen stop"; \
+	else $(BIN)/streamtab app --data-dir $(DEMO) --seed-demo sample_trips; fi
 
 # Passes every test with no display attached: Xvfb is started when DISPLAY is unset.
 test: sysdeps-test $(STAMP)

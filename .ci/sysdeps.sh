@@ -1,9 +1,9 @@
 #!/usr/bin/env bash
-# Installs the Debian packages Kivy needs to open a window ("run") and Xvfb for tests ("test").
+# Installs the Debian packages Kivy needs to open a window, and Xvfb (tests, snapshots without a display).
 # As root it installs what is missing; otherwise it prints the one line to run.
 set -eu
-want=(libgl1-mesa-dri libegl1 libgl1 libmtdev1)
-[ "${1:-run}" = test ] && want+=(xvfb xauth)
+# Xvfb for both: tests need it, and `streamtab app --snapshot` uses it where there is no display.
+want=(libgl1-mesa-dri libegl1 libgl1 libmtdev1 xvfb xauth)
 command -v dpkg-query >/dev/null 2>&1 || exit 0
 missing=()
 for p in "${want[@]}"; do
