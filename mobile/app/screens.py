@@ -443,7 +443,7 @@ class BottlesScreen(BaseScreen):
             self.rows_box.add_widget(Factory.WrapLabel(text="No bottles in this trip yet."))
         n_exp = sum(1 for c in lines if c.expired)
         n_soon = sum(1 for c in lines if c.word == "SOON")
-        self.summary = f"{len(lines)} bottles · {n_exp} expired · {n_soon} due soon"
+        self.summary = f"{len(lines)} bottle{'' if len(lines) == 1 else 's'} · {n_exp} expired · {n_soon} due soon"
 
     def open_stop(self, row):
         ctl().stop_id = row.stop_id

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import os
+from datetime import datetime, timedelta, timezone
 import shutil
 import subprocess
 import sys
@@ -56,10 +57,52 @@ def seed_demo(data_dir: Path, demo_dir: Path) -> int:
     if sites.exists():
         exchange.import_sites_csv(store, sites)
     n = 0
+    now = datetime.now(timezone.utc)
     for trip_file in sorted(demo_dir.glob("trip-*.json")):
-        exchange.import_trip_file(store, trip_file)
+        doc = exchange.read_trip_file(trip_file)
+        if not doc.get("ended_at"):
+            doc = _bring_to_today(doc, now)
+        store.put_document(doc, f"demo trip from {trip_file.name}")
         n += 1
     return n
+
+
+def _bring_to_today(doc, now: datetime):  # noqa: ANN001, ANN202
+    """The demo's open trip, moved in time so its last stop was 40 minutes ago.
+
+    Only for the demo: its holding-time clocks then run as they would on a real trip today.
+    """
+    times = []
+
+    def walk(node, fn):  # noqa: ANN001, ANN202
+        if isinstance(node, dict):
+            return {k: walk(v, fn) for k, v in node.items()}
+        if isinstance(node, list):
+            return [walk(v, fn) for v in node]
+        return fn(node)
+
+    def parse(value):  # noqa: ANN001, ANN202
+        if isinstance(value, str) and len(value) >= 19 and value[4:5] == "-" and "T" in value:
+            try:
+                t = datetime.fromisoformat(value)
+            except ValueError:
+                return None
+            return t if t.tzinfo else None
+        return None
+
+    for stop in doc.get("stops", []):
+        t = parse(stop.get("arrived_at"))
+        if t:
+            times.append(t)
+    if not times:
+        return doc
+    shift = timedelta(minutes=round((now - timedelta(minutes=40) - max(times)).total_seconds() / 60))
+
+    def move(value):  # noqa: ANN001, ANN202
+        t = parse(value)
+        return (t + shift).isoformat() if t else value
+
+    return walk(doc, move)
 
 
 def run(args) -> int:  # noqa: ANN001 - argparse namespace

@@ -59,6 +59,37 @@ def test_seed_demo_only_into_an_empty_folder(tmp_path):
     assert len(DeviceStore.open(tmp_path / "d").list_trips()) == n
 
 
+
+def test_seed_demo_moves_only_the_open_trip_to_today(tmp_path):
+    """The demo's open trip runs on today's clock (its last stop 40 min ago); ended trips keep
+    their dates and every stored value but the times is as in sample_trips/ (demo behaviour)."""
+    import json
+    from datetime import datetime, timedelta, timezone
+
+    from core.store import DeviceStore
+    from mobile.cli.app_cmd import seed_demo
+
+    before = datetime.now(timezone.utc)
+    seed_demo(tmp_path / "d", ROOT / "sample_trips")
+    store = DeviceStore.open(tmp_path / "d")
+    files = {json.loads(f.read_text())["id"]: json.loads(f.read_text())
+             for f in (ROOT / "sample_trips").glob("trip-*.json")}
+    open_trips = [s for s in store.list_trips() if files[s.id].get("ended_at") is None]
+    assert open_trips, "the demo needs an open trip"
+    for summary in store.list_trips():
+        trip = store.load_trip(summary.id)
+        src = files[summary.id]
+        if src.get("ended_at") is None:
+            last = max(stop.arrived_at for stop in trip.stops)
+            assert timedelta(minutes=38) <= before - last <= timedelta(minutes=43)
+            shift = trip.started_at - datetime.fromisoformat(src["started_at"])
+            for stop, src_stop in zip(trip.stops, src["stops"]):
+                assert stop.arrived_at - datetime.fromisoformat(src_stop["arrived_at"]) == shift
+                assert stop.temp.text == src_stop["temp"]["text"]
+        else:
+            assert trip.started_at == datetime.fromisoformat(src["started_at"])
+
+
 def test_bad_size_is_one_line_exit_2(tmp_path):
     out = run_cli("app", "--size", "big", env=_no_display_env(tmp_path), timeout=30)
     assert out.returncode == 2
