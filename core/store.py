@@ -567,16 +567,22 @@ class DeviceStore:
         new trip file has a new inode.) Unreadable trip files are quarantined and left out.
         """
         out: list[TripSummary] = []
-        trips = {p.stem for p in self._trips_dir.glob("*.json")}
-        for ipath in self._index_dir.glob("*.json"):
-            if ipath.stem not in trips:
-                ipath.unlink(missing_ok=True)  # the trip file is gone (quarantined)
-        for trip_id in trips:
-            if not _SAFE_ID.match(trip_id):
-                continue
-            key = self._file_key(trip_id)
-            if key is None:
-                continue
+        keys: dict[str, tuple[int, int, int]] = {}
+        with os.scandir(self._trips_dir) as entries:  # one stat per trip, no Path objects
+            for entry in entries:
+                trip_id = entry.name[:-5]
+                if not entry.name.endswith(".json") or not _SAFE_ID.match(trip_id):
+                    continue
+                try:
+                    st = entry.stat()
+                except FileNotFoundError:
+                    continue
+                keys[trip_id] = (st.st_ino, st.st_mtime_ns, st.st_size)
+        with os.scandir(self._index_dir) as entries:
+            for entry in entries:
+                if entry.name.endswith(".json") and entry.name[:-5] not in keys:
+                    Path(entry.path).unlink(missing_ok=True)  # the trip file is gone (quarantined)
+        for trip_id, key in keys.items():
             memo = self._summaries.get(trip_id)
             summary = memo[1] if memo is not None and memo[0] == key else None
             if summary is None:
