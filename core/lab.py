@@ -581,28 +581,21 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
     derived["dilutions"] = [d.to_dict() for d in r.dilutions]
     derived["valid_dilutions"] = sum(1 for d in r.dilutions if d.valid)
 
-    if blank_depletion_mg_l is None:
-        flags.append(_flag("lab.bod_blank_missing", Severity.NOTE,
-                           "No dilution-water blank is recorded for this BOD result.",
-                           "Record the batch's blank depletion (≤ 0.20 mg/L accepted).", "blank_depletion_mg_l"))
-    else:
+    for value, field, check, code, missing, action in (
+            (blank_depletion_mg_l, "blank_depletion_mg_l", blank_check, "lab.bod_blank_missing",
+             "No dilution-water blank is recorded for this BOD result.",
+             "Record the batch's blank depletion (≤ 0.20 mg/L accepted)."),
+            (gga_bod_mg_l, "gga_bod_mg_l", gga_check, "lab.bod_gga_missing",
+             "No glucose–glutamic acid check is recorded for this BOD result.",
+             "Record the batch's GGA check (198 ± 30.5 mg/L accepted).")):
+        if value is None:
+            flags.append(_flag(code, Severity.NOTE, missing, action, field))
+            continue
         try:
-            f = blank_check(blank_depletion_mg_l)
+            f = check(value)
         except ValueError as exc:
-            raise LabInputError("blank_depletion_mg_l", str(exc).splitlines()[0]) from None
-        derived["blank_depletion_mg_l"] = float(blank_depletion_mg_l)
-        if f is not None:
-            flags.append(f)
-    if gga_bod_mg_l is None:
-        flags.append(_flag("lab.bod_gga_missing", Severity.NOTE,
-                           "No glucose–glutamic acid check is recorded for this BOD result.",
-                           "Record the batch's GGA check (198 ± 30.5 mg/L accepted).", "gga_bod_mg_l"))
-    else:
-        try:
-            f = gga_check(gga_bod_mg_l)
-        except ValueError as exc:
-            raise LabInputError("gga_bod_mg_l", str(exc).splitlines()[0]) from None
-        derived["gga_bod_mg_l"] = float(gga_bod_mg_l)
+            raise LabInputError(field, str(exc).splitlines()[0]) from None
+        derived[field] = float(value)
         if f is not None:
             flags.append(f)
     if incubator_temp_c is not None:
