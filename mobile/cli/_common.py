@@ -19,11 +19,12 @@ class OneLineParser(argparse.ArgumentParser):
     """argparse that reports a usage mistake in one line (no usage dump) with exit status 2."""
 
     def error(self, message: str) -> NoReturn:  # noqa: D401 - argparse hook
-        sys.stderr.write(f"streamtab: {message} (see 'streamtab {self._sub_name()} --help')\n")
+        command = " ".join(["streamtab", self._sub_name()]).strip()
+        sys.stderr.write(f"streamtab: {message} (see '{command} --help')\n")
         raise SystemExit(EXIT_BAD_INPUT)
 
     def _sub_name(self) -> str:
-        return self.prog.replace("streamtab", "", 1).strip() or "-"
+        return self.prog.replace("streamtab", "", 1).strip()
 
 
 def emit_json(obj: Any) -> None:
