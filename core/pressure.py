@@ -210,6 +210,17 @@ def station_to_sea_level_hpa(p_station_hpa, elevation_m):
     return p / _ratio(_elevation(elevation_m))
 
 
+def _against_standard(pressure_hpa: float, elevation_m: float,
+                      threshold_hpa: float) -> tuple[float, float, float]:
+    """Checked (pressure_hpa, threshold_hpa, standard atmosphere at elevation_m), all hPa, for the flag checks."""
+    p = real(pressure_hpa, "pressure_hpa", lo=0.0, lo_open=True, unit="hPa")
+    thr = real(threshold_hpa, "threshold_hpa", lo=0.0, unit="hPa")
+    expected = standard_pressure_hpa(elevation_m)
+    if not is_plain_scalar(p - expected):
+        raise ValueError("pressure_hpa and elevation_m must be single numbers for this check")
+    return p, thr, expected
+
+
 def sea_level_adjusted_flag(pressure_hpa: float, elevation_m: float,
                             threshold_hpa: float = SEA_LEVEL_ADJUSTED_THRESHOLD_HPA) -> Flag | None:
     """Flags a station-pressure reading that looks like a sea-level-adjusted (weather-report) value.
@@ -230,12 +241,8 @@ def sea_level_adjusted_flag(pressure_hpa: float, elevation_m: float,
         ``pressure.sea_level_adjusted`` (warning) when ``pressure_hpa`` exceeds the standard
         atmosphere at the site by more than ``threshold_hpa``; else None.
     """
-    p = real(pressure_hpa, "pressure_hpa", lo=0.0, lo_open=True, unit="hPa")
-    thr = real(threshold_hpa, "threshold_hpa", lo=0.0, unit="hPa")
-    expected = standard_pressure_hpa(elevation_m)
+    p, thr, expected = _against_standard(pressure_hpa, elevation_m, threshold_hpa)
     excess = p - expected
-    if not is_plain_scalar(excess):
-        raise ValueError("pressure_hpa and elevation_m must be single numbers for this check")
     if excess <= thr:
         return None
     station = sea_level_to_station_hpa(p, elevation_m)
@@ -249,7 +256,6 @@ def sea_level_adjusted_flag(pressure_hpa: float, elevation_m: float,
                 f" the station pressure is about {station:.1f} hPa."),
         field="pressure_hpa",
     )
-
 
 
 def far_below_standard_flag(pressure_hpa: float, elevation_m: float,
@@ -271,12 +277,8 @@ def far_below_standard_flag(pressure_hpa: float, elevation_m: float,
     Flag or None
         ``pressure.far_below_standard`` (warning), else None.
     """
-    p = real(pressure_hpa, "pressure_hpa", lo=0.0, lo_open=True, unit="hPa")
-    thr = real(threshold_hpa, "threshold_hpa", lo=0.0, unit="hPa")
-    expected = standard_pressure_hpa(elevation_m)
+    p, thr, expected = _against_standard(pressure_hpa, elevation_m, threshold_hpa)
     deficit = expected - p
-    if not is_plain_scalar(deficit):
-        raise ValueError("pressure_hpa and elevation_m must be single numbers for this check")
     if deficit <= thr:
         return None
     as_mmhg = p * HPA_PER_UNIT["mmHg"]
