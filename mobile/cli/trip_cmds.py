@@ -10,9 +10,18 @@ from mobile.cli._common import emit_json, fail, open_store, resolve_trip_id
 __all__ = ["register"]
 
 
-def _add_data_dir(p) -> None:  # noqa: ANN001
+def _command(group, name: str, help_text: str, handler, *, json: bool = False,  # noqa: ANN001
+             trip_id: bool = False):
+    """One sub-command with the options every command here shares (ID, --json, --data-dir)."""
+    p = group.add_parser(name, help=help_text)
+    if trip_id:
+        p.add_argument("id", metavar="ID", help="trip id, or a unique start of it")
+    if json:
+        p.add_argument("--json", action="store_true")
     p.add_argument("--data-dir", metavar="DIR", default=None,
                    help="device store folder (else $STREAMTAB_DATA, else the user data folder)")
+    p.set_defaults(handler=handler)
+    return p
 
 
 def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
@@ -21,38 +30,22 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
 
     sites = sub.add_parser("sites", help="the site list on this device")
     sites_sub = sites.add_subparsers(dest="sites_command", required=True, parser_class=OneLineParser)
-    p = sites_sub.add_parser("import", help="import a site list from CSV (all rows or none)")
+    p = _command(sites_sub, "import", "import a site list from CSV (all rows or none)", _sites_import)
     p.add_argument("file", metavar="FILE")
-    _add_data_dir(p)
-    p.set_defaults(handler=_sites_import)
-    p = sites_sub.add_parser("list", help="list the sites on this device")
-    p.add_argument("--json", action="store_true")
-    _add_data_dir(p)
-    p.set_defaults(handler=_sites_list)
+    _command(sites_sub, "list", "list the sites on this device", _sites_list, json=True)
 
     trip = sub.add_parser("trip", help="trips in the device store")
     trip_sub = trip.add_subparsers(dest="trip_command", required=True, parser_class=OneLineParser)
-    p = trip_sub.add_parser("import", help="import a trip JSON file (validated; nothing half-imported)")
+    p = _command(trip_sub, "import", "import a trip JSON file (validated; nothing half-imported)",
+                 _trip_import, json=True)
     p.add_argument("file", metavar="FILE")
-    p.add_argument("--json", action="store_true")
-    _add_data_dir(p)
-    p.set_defaults(handler=_trip_import)
-    p = trip_sub.add_parser("list", help="list the trips on this device")
-    p.add_argument("--json", action="store_true")
-    _add_data_dir(p)
-    p.set_defaults(handler=_trip_list)
-    p = trip_sub.add_parser("show", help="a trip's stops with derived values and flags")
-    p.add_argument("id", metavar="ID", help="trip id, or a unique start of it")
-    p.add_argument("--json", action="store_true")
-    _add_data_dir(p)
-    p.set_defaults(handler=_trip_show)
-    p = trip_sub.add_parser("export", help="write a trip as JSON or CSV")
-    p.add_argument("id", metavar="ID", help="trip id, or a unique start of it")
+    _command(trip_sub, "list", "list the trips on this device", _trip_list, json=True)
+    _command(trip_sub, "show", "a trip's stops with derived values and flags", _trip_show,
+             json=True, trip_id=True)
+    p = _command(trip_sub, "export", "write a trip as JSON or CSV", _trip_export, trip_id=True)
     p.add_argument("--format", choices=("json", "csv"), required=True)
     p.add_argument("--out", metavar="PATH", default=None,
                    help="file for json; folder for csv (stops.csv, bottles.csv); default: standard output")
-    _add_data_dir(p)
-    p.set_defaults(handler=_trip_export)
 
 
 def _store(args):  # noqa: ANN001
