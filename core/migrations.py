@@ -26,6 +26,12 @@ CURRENT = SCHEMA_VERSION
 _NS = uuid.UUID("6f1c2a52-3d0e-4b8e-9a57-1d2f5b7c9e01")  # streamtab's own namespace for uuid5
 
 
+def _rename(doc: dict[str, Any], old: str, new: str) -> None:
+    """Moves ``doc[old]`` to ``doc[new]`` unless ``new`` is already there."""
+    if old in doc and new not in doc:
+        doc[new] = doc.pop(old)
+
+
 def _uuid5(*parts: Any) -> str:
     return str(uuid.uuid5(_NS, "/".join(str(p) for p in parts)))
 
@@ -48,10 +54,8 @@ def _v1_to_v2(doc: dict[str, Any]) -> dict[str, Any]:
     for i, stop in enumerate(doc.get("stops") or []):
         stop = dict(stop)
         stop.setdefault("id", _uuid5(trip_id, "stop", i))
-        if "site" in stop and "site_id" not in stop:
-            stop["site_id"] = stop.pop("site")
-        if "time" in stop and "arrived_at" not in stop:
-            stop["arrived_at"] = stop.pop("time")
+        _rename(stop, "site", "site_id")
+        _rename(stop, "time", "arrived_at")
         for old, new, unit, typed in (("temp_c", "temp", "°C", "°C"), ("pressure_hpa", "pressure", "hPa", "hPa"),
                                       ("conductivity_us_cm", "conductivity", "µS/cm", "µS/cm"),
                                       ("do_mg_l", "do", "mg/L", "mg/L")):
@@ -62,8 +66,7 @@ def _v1_to_v2(doc: dict[str, Any]) -> dict[str, Any]:
         bottles = []
         for j, bottle in enumerate(stop.get("bottles") or []):
             bottle = dict(bottle)
-            if "bottle_id" in bottle and "label" not in bottle:
-                bottle["label"] = bottle.pop("bottle_id")
+            _rename(bottle, "bottle_id", "label")
             bottle.setdefault("id", _uuid5(trip_id, "stop", i, "bottle", j, bottle.get("label", "")))
             bottles.append(bottle)
         stop["bottles"] = bottles
@@ -74,10 +77,8 @@ def _v1_to_v2(doc: dict[str, Any]) -> dict[str, Any]:
     for k, entry in enumerate(doc.get("audit") or []):
         entry = dict(entry)
         entry.setdefault("id", _uuid5(trip_id, "audit", k))
-        if "device" in entry and "device_id" not in entry:
-            entry["device_id"] = entry.pop("device")
-        if "what" in entry and "change" not in entry:
-            entry["change"] = entry.pop("what")
+        _rename(entry, "device", "device_id")
+        _rename(entry, "what", "change")
         entry.setdefault("revision", k + 1)
         entry.setdefault("fields", [])
         audit.append(entry)
