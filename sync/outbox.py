@@ -148,11 +148,9 @@ class Outbox:
         entries = [{k: getattr(e, k) for k in keys} for _, e in sorted(self._summary.items())]
         # a cache: replaced atomically (never seen half-written) but not fsynced; after a power
         # cut it may be the older one, which only costs a re-check at the hub
-        path = self.folder / "manifest.json"
-        tmp = path.with_name(f".manifest.{os.getpid()}.tmp")
-        tmp.write_bytes(json.dumps({"entries": entries}, sort_keys=True,
-                                   ensure_ascii=False).encode("utf-8"))
-        os.replace(tmp, path)
+        atomic_write_bytes(self.folder / "manifest.json",
+                           json.dumps({"entries": entries}, sort_keys=True, ensure_ascii=False).encode("utf-8"),
+                           durable=False)
         try:
             os.unlink(self.folder / "journal.jsonl")
         except FileNotFoundError:
