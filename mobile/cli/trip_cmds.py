@@ -52,10 +52,6 @@ def _store(args):  # noqa: ANN001
     return open_store(args.data_dir)
 
 
-def _resolve(store, ident: str) -> str:  # noqa: ANN001
-    return resolve_trip_id(store, ident, "trip")
-
-
 def _sites_import(args) -> int:  # noqa: ANN001
     from core.exchange import ExchangeError, import_sites_csv
     from core.store import StoreError
@@ -167,7 +163,7 @@ def _trip_show(args) -> int:  # noqa: ANN001
     from core.store import StoreError
 
     store = _store(args)
-    trip_id = _resolve(store, args.id)
+    trip_id = resolve_trip_id(store, args.id)
     try:
         data = _show_data(store, trip_id)
     except StoreError as exc:
@@ -218,7 +214,7 @@ def _trip_export(args) -> int:  # noqa: ANN001
     from core.store import StoreError
 
     store = _store(args)
-    trip_id = _resolve(store, args.id)
+    trip_id = resolve_trip_id(store, args.id)
     try:
         if args.format == "json":
             data = export_trip_json(store, trip_id)
