@@ -192,8 +192,6 @@ class StopScreen(BaseScreen):
     flag_count_text = StringProperty("")
     wading_caution = StringProperty(WADING_CAUTION)
     reagent_caution = StringProperty(REAGENT_CAUTION)
-    pressure_units = ListProperty([])
-    cond_units = ListProperty([])
     temp_entry = ObjectProperty(None)
     pressure_entry = ObjectProperty(None)
     cond_entry = ObjectProperty(None)
@@ -204,13 +202,6 @@ class StopScreen(BaseScreen):
     bottle_box = ObjectProperty(None)
     form_scroll = ObjectProperty(None)
     _loading = False
-
-    def on_kv_post(self, base_widget):
-        from core.conductivity import CONDUCTIVITY_UNITS
-        from core.pressure import PRESSURE_UNITS
-
-        self.pressure_units = list(PRESSURE_UNITS)
-        self.cond_units = list(CONDUCTIVITY_UNITS)
 
     def on_pre_enter(self, *_):
         self.load()
@@ -592,20 +583,11 @@ class SettingsScreen(BaseScreen):
     pressure_unit = StringProperty("hPa")
     cond_unit = StringProperty("uS/cm")
     do_unit = StringProperty("mg/L")
-    pressure_units = ListProperty([])
-    cond_units = ListProperty([])
     tolerance_entry = ObjectProperty(None)
     warm_entry = ObjectProperty(None)
     cold_entry = ObjectProperty(None)
     super_entry = ObjectProperty(None)
     target_entry = ObjectProperty(None)
-
-    def on_kv_post(self, base_widget):
-        from core.conductivity import CONDUCTIVITY_UNITS
-        from core.pressure import PRESSURE_UNITS
-
-        self.pressure_units = list(PRESSURE_UNITS)
-        self.cond_units = list(CONDUCTIVITY_UNITS)
 
     def choose(self, name, value):
         """A default unit picked on the settings screen (kept until Save)."""
