@@ -215,6 +215,16 @@ def _flag(code: str, severity: Severity, message: str, action: str, field: str |
     return Flag(code=code, severity=severity, message=message, action=action, field=field)
 
 
+def _plausible(flags: list[Flag], field: str, what: str, value: float, bounds: tuple[float, float],
+               unit: str, action: str) -> None:
+    """Adds a ``<field>.out_of_range`` warning when ``value`` lies outside the plausible ``bounds``."""
+    lo, hi = bounds
+    if not (lo <= value <= hi):
+        flags.append(_flag(f"{field}.out_of_range", Severity.WARNING,
+                           f"{what} {value:g} {unit} is outside the plausible {lo:g}–{hi:g} {unit} for a stream.",
+                           action, field))
+
+
 def _holding_kind(kind: str) -> str | None:
     return {"do-fixed": "do_winkler", "bod": "bod"}.get(kind)
 
@@ -261,12 +271,9 @@ def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Si
 
     # Plausible ranges and °F look
     if stop.temp is not None:
-        lo, hi = settings.temp_plausible_c
         t = stop.temp.value
-        if not (lo <= t <= hi):
-            flags.append(_flag("temp.out_of_range", Severity.WARNING,
-                               f"Water temperature {t:g} °C is outside the plausible {lo:g}–{hi:g} °C for a stream.",
-                               "Check the probe and the unit, and re-read if you can.", "temp"))
+        _plausible(flags, "temp", "Water temperature", t, settings.temp_plausible_c, "°C",
+                   "Check the probe and the unit, and re-read if you can.")
         from core.temperature import fahrenheit_hint
 
         try:
@@ -276,12 +283,9 @@ def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Si
         if f is not None:
             flags.append(f)
     if stop.conductivity is not None:
-        lo, hi = settings.conductivity_plausible_us_cm
-        c = stop.conductivity.value
-        if not (lo <= c <= hi):
-            flags.append(_flag("conductivity.out_of_range", Severity.WARNING,
-                               f"Conductivity {c:g} µS/cm is outside the plausible {lo:g}–{hi:g} µS/cm for a stream.",
-                               "Check the unit (µS/cm or mS/cm), rinse the cell and re-read.", "conductivity"))
+        _plausible(flags, "conductivity", "Conductivity", stop.conductivity.value,
+                   settings.conductivity_plausible_us_cm, "µS/cm",
+                   "Check the unit (µS/cm or mS/cm), rinse the cell and re-read.")
 
     # Jumps from the previous stop
     if previous is not None:
