@@ -1,11 +1,13 @@
 """The one thin input-check layer of the science: finite numbers in their domain, or a ValueError naming the input."""
 from __future__ import annotations
 
+import re
+
 import math
 
 import numpy as np
 
-__all__ = ["real", "choice", "is_plain_scalar", "range_text"]
+__all__ = ["real", "choice", "is_plain_scalar", "range_text", "ambiguous_comma", "decimal"]
 
 
 def range_text(lo: float | None, hi: float | None, unit: str, lo_open: bool = False,
@@ -119,3 +121,27 @@ def choice(value: object, name: str, options: tuple[str, ...]) -> str:
         if v in options:
             return v
     raise ValueError(f"{name} = {value!r} is not a known choice; accepted: {', '.join(options)}")
+
+
+def ambiguous_comma(number_text: str) -> bool:
+    """True for a number like "1,234": 1.234 to a European eye, 1234 to an American one.
+
+    A comma followed by exactly three digits after a non-zero whole part cannot be read safely;
+    "3,5", "0,125" and "1013,25" can (the comma is the decimal separator).
+    """
+    head, sep, tail = number_text.strip().partition(",")
+    if not sep:
+        return False
+    whole = head.strip().lstrip("+-")
+    digits = re.match(r"\d*", tail).group(0)
+    return len(digits) == 3 and whole.isdigit() and whole.lstrip("0") != ""
+
+
+def decimal(number_text: str, what: str) -> float:
+    """A number typed with a decimal point or a decimal comma; an ambiguous "1,234" is refused."""
+    if ambiguous_comma(number_text):
+        t = number_text.strip()
+        raise ValueError(f"{what} {t!r} is ambiguous: is it {t.replace(',', '.')} or {t.replace(',', '')}?"
+                         " accepted: a decimal point (or a comma followed by other than three digits),"
+                         " no thousands separators")
+    return float(number_text.strip().replace(",", "."))

@@ -9,7 +9,7 @@ from importlib import resources
 
 import numpy as np
 
-from core._validate import choice, is_plain_scalar, real
+from core._validate import choice, decimal, is_plain_scalar, real
 
 __all__ = [
     "CONDUCTIVITY_UNITS", "US_CM_PER_UNIT", "COMPENSATION_METHODS", "KCL_ALPHA_PER_C", "C3515_MS_CM",
@@ -80,7 +80,7 @@ def parse_conductivity(text: str) -> float:
     if unit is None:
         raise ValueError(f"conductivity {text!r} has an unknown unit {m.group(2).strip()!r}; accepted units:"
                          f" {_UNITS_TEXT}")
-    value = float(m.group(1).replace(",", ".")) * US_CM_PER_UNIT[unit]
+    value = decimal(m.group(1), "conductivity") * US_CM_PER_UNIT[unit]
     return real(value, "conductivity_us_cm", **_COND_DOMAIN)
 
 

@@ -9,6 +9,7 @@ from datetime import datetime
 from pathlib import Path
 from typing import Any, Literal
 
+from core._validate import ambiguous_comma
 from pydantic import (AwareDatetime, BaseModel, ConfigDict, Field, ValidationError,
                       field_validator, model_validator)
 from pydantic_core import PydanticCustomError
@@ -94,9 +95,7 @@ def parse_number(text: str, field: str = "value") -> float:
     if raw.count(",") + raw.count(".") > 1 or not _NUMBER_RE.match(raw):
         raise InputError("number.invalid", field, render("number.invalid", label=label, input=raw))
     if "," in raw:
-        head, _, tail = raw.partition(",")
-        digits = re.match(r"\d*", tail).group(0)
-        if len(digits) == 3 and head.lstrip("+-").isdigit() and head.lstrip("+-") != "0":
+        if ambiguous_comma(raw):
             # "1,234": 1.234 to a European eye, 1234 to an American one — ask, never guess.
             raise InputError("number.ambiguous_comma", field,
                              render("number.ambiguous_comma", label=label, input=raw,

@@ -5,7 +5,7 @@ import re
 
 import numpy as np
 
-from core._validate import is_plain_scalar, real
+from core._validate import decimal, is_plain_scalar, real
 from core.flags import Flag, Severity
 
 __all__ = [
@@ -110,7 +110,7 @@ def parse_pressure(text: str) -> float:
     except ValueError:
         raise ValueError(f"pressure {text!r} has an unknown unit {unit_text.strip()!r}; accepted units:"
                          f" {_UNITS_TEXT}") from None
-    value = float(number.replace(",", "."))
+    value = decimal(number, "pressure")
     if not value > 0.0:
         raise ValueError(f"pressure {text!r} is not above zero; an air pressure is a positive number"
                          f" with a unit, one of {_UNITS_TEXT}")

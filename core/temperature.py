@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import re
 
-from core._validate import real
+from core._validate import decimal, real
 from core.flags import Flag, Severity
 
 __all__ = ["TEMPERATURE_UNITS", "f_to_c", "c_to_f", "parse_temperature", "fahrenheit_hint",
@@ -63,7 +63,7 @@ def parse_temperature(text: str, default_unit: str = "C") -> float:
     if m is None or ("," in text and "." in text):
         raise ValueError(f"temperature {text!r} is not a number with an optional unit; accepted units:"
                          " C, F, K (e.g. '18.5 C')")
-    value = float(m.group(1).replace(",", "."))
+    value = decimal(m.group(1), "temperature")
     unit = du
     if m.group(2):
         unit = _ALIASES.get(m.group(2).strip().lower().replace(" ", ""))

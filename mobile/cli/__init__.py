@@ -1,6 +1,7 @@
 """The `streamtab` command line: science at the desk, trips in the store, sync, and the touch app."""
 from __future__ import annotations
 
+import os
 import sys
 
 from mobile.cli._common import EXIT_BAD_INPUT, CliError, OneLineParser
@@ -35,3 +36,9 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         sys.stderr.write("streamtab: interrupted\n")
         return 130
+    except BrokenPipeError:
+        # The reader (e.g. `| head`) stopped reading: the work is done, the rest of the output is
+        # not wanted. Point stdout at /dev/null so the interpreter's final flush stays quiet.
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return 0

@@ -5,6 +5,7 @@ import json
 import re
 from pathlib import Path
 
+from core._validate import decimal
 from mobile.cli._common import CliError, emit_json, emit_table
 
 __all__ = ["register"]
@@ -19,7 +20,10 @@ def _number(text: str, option: str, accepted: str, units: tuple[str, ...] = ()) 
         raise CliError(f"{option} {text!r} is not a number; accepted: {accepted}")
     if m.group(2) and m.group(2).lower().replace(" ", "") not in {u.lower() for u in units}:
         raise CliError(f"{option} {text!r} has an unexpected unit {m.group(2)!r}; accepted: {accepted}")
-    return float(m.group(1).replace(",", "."))
+    try:
+        return decimal(m.group(1), option)
+    except ValueError as exc:
+        raise CliError(f"{exc}") from None
 
 
 def _core(option: str, fn, *args, **kwargs):
