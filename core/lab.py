@@ -31,6 +31,7 @@ from typing import Any, Iterable
 
 from core.flags import Flag, Severity
 from core.models import Bottle, LabResult, Stop, Trip, new_id
+from core.winkler import SAFETY_NOTE
 
 __all__ = [
     "WINKLER_ANALYTE", "BOD_ANALYTE", "WINKLER_METHOD", "BOD_METHOD", "CAUTION", "LabSettings",
@@ -50,9 +51,7 @@ BOD_METHOD = "Standard Methods 5210 B (5-day BOD, dilution)"
 WINKLER_KINDS = ("do-fixed", "duplicate")
 BOD_KINDS = ("bod", "duplicate")
 
-CAUTION = ("Caution: concentrated sulfuric acid burns and the alkali-iodide-azide reagent is corrosive and"
-           " toxic (sodium azide); wear eye protection and gloves, and follow the lab's SOP and the"
-           " reagents' safety data sheets.")
+CAUTION = SAFETY_NOTE  # one caution text for field and lab (core.winkler)
 
 #: Computed Winkler DO above this is taken as a typing or unit mistake worth a stop (common practice:
 #: streams rarely exceed about 20 mg/L even when strongly supersaturated).

@@ -17,8 +17,10 @@ __all__ = ["MG_O_PER_MEQ", "original_sample_ml", "winkler_do_mg_l", "expected_ti
 #: One equivalent of oxygen is 8 g (1 O2 → 4 S2O3²⁻), i.e. 8000 mg per equivalent, 8 mg per meq.
 MG_O_PER_MEQ = 8.0
 
-SAFETY_NOTE = ("Caution: the fixing reagents are corrosive and the azide reagent is toxic; sulfuric acid"
-               " burns. Wear eye protection and gloves and follow your program's SOP and the safety data sheets.")
+#: The one reagent caution shown wherever Winkler bottles are fixed or titrated (field and lab).
+SAFETY_NOTE = ("Caution, Winkler reagents: manganous sulfate is harmful, alkali-iodide-azide is caustic and toxic"
+               " (sodium azide), and concentrated sulfuric acid burns. Wear gloves and eye protection;"
+               " follow your program's SOP and the reagents' safety data sheets.")
 
 
 def _volumes(titrated_ml, bottle_ml, reagents_ml):

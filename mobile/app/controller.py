@@ -15,6 +15,7 @@ from datetime import datetime, timedelta, timezone
 from pathlib import Path
 from typing import Any, Callable
 
+from core.winkler import SAFETY_NOTE
 from mobile.app.forms import (BOTTLE_KINDS, FIELD_LABELS, REQUIRED_STOP_FIELDS, BottleForm,
                               CalForm, StopForm, TripForm)
 from mobile.app.numeric import parse_decimal
@@ -25,9 +26,7 @@ __all__ = ["AppController", "StopView", "FlagLine", "CalView", "ClockLine", "Tri
 
 WADING_CAUTION = ("Wading: enter the water only where your program's SOP allows — never alone, "
                   "never in fast or rising water, wearing a PFD where required.")
-REAGENT_CAUTION = ("Fixing reagents: manganous sulfate, alkali-iodide-azide (caustic, toxic azide) "
-                   "and sulfuric acid (corrosive). Wear gloves and eye protection; follow your SOP "
-                   "and the reagent safety data sheets.")
+REAGENT_CAUTION = SAFETY_NOTE  # the one reagent caution (core.winkler)
 
 APP_STATE_FILE = "app-state.json"   # where the app was (trip, stop, screen) — UI cursor, not data
 APP_PREFS_FILE = "app-prefs.json"

@@ -9,6 +9,8 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+from core._validate import ambiguous_comma
+
 __all__ = ["InsertCheck", "check_insert", "parse_decimal", "DecimalError"]
 
 _DIGITS = set("0123456789")
@@ -82,6 +84,9 @@ def parse_decimal(text: str, *, label: str = "Value") -> float | None:
         raise DecimalError(f"{label} “{s}” is not a number; type digits with one decimal point or comma.")
     if body in _SEPARATORS:
         raise DecimalError(f"{label} “{s}” has no digits; type a number such as 12,4.")
+    if ambiguous_comma(s):  # the same rule as core's parsers and the store's validation
+        raise DecimalError(f"{label} “{s}” could be {s.replace(',', '.')} or {s.replace(',', '')}; "
+                           "type it with a decimal point.")
     value = float(s.replace(",", "."))
     if not math.isfinite(value):  # cannot happen with digits only, kept as a guard
         raise DecimalError(f"{label} “{s}” is not a finite number.")

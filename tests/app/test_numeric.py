@@ -19,7 +19,7 @@ def test_parse_decimal_empty_is_none():
     assert parse_decimal("   ") is None
 
 
-@pytest.mark.parametrize("text", ["1e-3", "3,5,1", "1.234,5", "abc", "-", ",", "nan", "inf", "3 5"])
+@pytest.mark.parametrize("text", ["1e-3", "3,5,1", "1.234,5", "abc", "-", ",", "nan", "inf", "3 5", "1,234"])
 def test_parse_decimal_refuses_with_a_sentence(text):
     with pytest.raises(DecimalError) as err:
         parse_decimal(text, label="Water temperature")

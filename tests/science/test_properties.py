@@ -3,6 +3,8 @@ from __future__ import annotations
 
 import math
 
+import pytest
+
 import gsw
 import numpy as np
 from hypothesis import given, settings
@@ -10,6 +12,7 @@ from hypothesis import strategies as st
 
 from core.conductivity import (conductivity_at_temp_us_cm, practical_salinity, specific_conductance_us_cm)
 from core.oxygen import METHODS, do_saturation_mg_l
+from core._validate import ambiguous_comma
 from core.pressure import (PRESSURE_UNITS, from_hpa, parse_pressure, sea_level_to_station_hpa,
                            station_to_sea_level_hpa, to_hpa)
 from core.temperature import c_to_f, f_to_c
@@ -76,7 +79,13 @@ def test_pressure_text_round_trip(hpa, unit):
     value = from_hpa(hpa, unit)
     text = f"{value:.10g} {unit}"
     assert math.isclose(parse_pressure(text), hpa, rel_tol=1e-9)
-    assert math.isclose(parse_pressure(text.replace(".", ",")), hpa, rel_tol=1e-9)
+    comma = text.replace(".", ",")
+    if ambiguous_comma(comma.split()[0]):
+        # "100,375 hPa": decimal or thousands comma? refused, never guessed (common practice)
+        with pytest.raises(ValueError, match="ambiguous"):
+            parse_pressure(comma)
+    else:
+        assert math.isclose(parse_pressure(comma), hpa, rel_tol=1e-9)
 
 
 @SETTINGS
