@@ -7,6 +7,13 @@ import sys
 from pathlib import Path
 
 import pytest
+from hypothesis import settings
+
+# CI draws the same examples every run (a red CI is then reproducible); a developer's run draws
+# new ones each time and keeps exploring.
+settings.register_profile("ci", derandomize=True, deadline=None)
+if os.environ.get("CI"):
+    settings.load_profile("ci")
 
 ROOT = Path(__file__).resolve().parent.parent
 
