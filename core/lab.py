@@ -192,6 +192,19 @@ def _sev_rank(f: Flag) -> int:
     return Severity(f.severity).rank
 
 
+def _analysis_bottle(trip: Trip, bottle_ref: str, kinds: tuple[str, ...], not_kind: str,
+                     analysed_at: datetime, now: datetime,
+                     settings: "LabSettings") -> tuple[Stop, Bottle, list[Flag]]:
+    """The bottle an analysis is for: found by label, of a kind that analysis takes, analysed
+    neither before it was collected nor in the future."""
+    stop, bottle, flags = find_bottle(trip, bottle_ref, kinds)
+    if bottle.kind not in kinds:
+        raise LabInputError("bottle", f"bottle {bottle.label} is a {bottle.kind} bottle, {not_kind};"
+                                      f" accepted: a {' or '.join(kinds)} bottle")
+    _check_times(analysed_at, now, settings, bottle)
+    return stop, bottle, flags
+
+
 def find_bottle(trip: Trip, ref: str, kinds: tuple[str, ...] | None = None) -> tuple[Stop, Bottle, list[Flag]]:
     """The stop and bottle a label (or a bottle id, or its first 8 or more characters) names.
 
@@ -371,11 +384,8 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
     from core.winkler import original_sample_ml, thiosulfate_normality, winkler_do_mg_l
 
     settings = settings or LabSettings()
-    stop, bottle, flags = find_bottle(trip, bottle_ref, WINKLER_KINDS)
-    if bottle.kind not in WINKLER_KINDS:
-        raise LabInputError("bottle", f"bottle {bottle.label} is a {bottle.kind} bottle, not fixed for Winkler;"
-                                      f" accepted: a {' or '.join(WINKLER_KINDS)} bottle")
-    _check_times(analysed_at, now, settings, bottle)
+    stop, bottle, flags = _analysis_bottle(trip, bottle_ref, WINKLER_KINDS, "not fixed for Winkler",
+                                           analysed_at, now, settings)
     if (normality is None) == (standardisation is None):
         raise LabInputError("normality", "give the titrant normality or its standardisation, not "
                             + ("both" if normality is not None else "neither")
@@ -553,11 +563,8 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
     from core.holding import holding_clock
 
     settings = settings or LabSettings()
-    stop, bottle, flags = find_bottle(trip, bottle_ref, BOD_KINDS)
-    if bottle.kind not in BOD_KINDS:
-        raise LabInputError("bottle", f"bottle {bottle.label} is a {bottle.kind} bottle, not a BOD sample;"
-                                      f" accepted: a {' or '.join(BOD_KINDS)} bottle")
-    _check_times(analysed_at, now, settings, bottle)
+    stop, bottle, flags = _analysis_bottle(trip, bottle_ref, BOD_KINDS, "not a BOD sample",
+                                           analysed_at, now, settings)
     prev = _redo_check(bottle, BOD_ANALYTE, redo_reason, "BOD5")
     derived: dict[str, Any] = {}
 

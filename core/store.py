@@ -92,6 +92,16 @@ class StaleTrip(StoreError):
     """The trip was changed (by another save or a sync) since this copy was loaded."""
 
 
+def _json_file(raw: bytes, error: type[Exception]) -> Any:
+    """The JSON in a store file's bytes; `error` (with a plain reason) for an empty or broken one."""
+    if not raw.strip():
+        raise error("the file is empty")
+    try:
+        return json.loads(raw)
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise error(f"the file is not valid JSON ({exc})") from None
+
+
 class _Unreadable(Exception):
     """Internal: a trip file that does not parse (the reason is the message)."""
 
@@ -124,12 +134,7 @@ class AtomicJSONStorage(Storage):
             raw = self.path.read_bytes()
         except FileNotFoundError:
             return None
-        if not raw.strip():
-            raise ValueError("the file is empty")
-        try:
-            data = json.loads(raw)
-        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-            raise ValueError(f"the file is not valid JSON ({exc})") from None
+        data = _json_file(raw, ValueError)
         if not isinstance(data, dict):
             raise ValueError("the file does not hold a table map")
         return data
@@ -489,12 +494,7 @@ class DeviceStore:
 
     @staticmethod
     def _parse_trip_file(trip_id: str, file_bytes: bytes) -> tuple[bytes, dict[str, Any]]:
-        if not file_bytes.strip():
-            raise _Unreadable("the file is empty")
-        try:
-            data = json.loads(file_bytes)
-        except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-            raise _Unreadable(f"the file is not valid JSON ({exc})") from None
+        data = _json_file(file_bytes, _Unreadable)
         table = data.get("trip") if isinstance(data, dict) else None
         doc = table.get("1") if isinstance(table, dict) else None
         if not isinstance(doc, dict):
