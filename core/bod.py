@@ -141,12 +141,16 @@ def bod_dilution(initial_do_mg_l, final_do_mg_l, sample_ml, bottle_ml=300.0, see
                        bottle_ml=b, seed_correction_mg_l=seed_corr)
 
 
-def _args(d: object, i: int, what: str, keys: tuple[str, ...]) -> dict:
+def _args(d: object, i: int, what: str, keys: tuple[str, ...], required: tuple[str, ...]) -> dict:
+    """Entry `i` of the list `what`: an object with only `keys`, and every one of `required`."""
     if not isinstance(d, dict):
         raise ValueError(f"{what}[{i}] is not an object with keys; accepted: {', '.join(keys)}")
     unknown = sorted(set(d) - set(keys))
     if unknown:
         raise ValueError(f"{what}[{i}] has an unknown key {unknown[0]!r}; accepted keys: {', '.join(keys)}")
+    missing = [k for k in required if k not in d]
+    if missing:
+        raise ValueError(f"{what}[{i}] has no {missing[0]!r}; accepted keys: {', '.join(keys)}")
     return d
 
 
@@ -171,10 +175,7 @@ def bod_from_dilutions(dilutions: list[dict]) -> BodResult:
                          f" {', '.join(_REQUIRED)}")
     results = []
     for i, d in enumerate(dilutions):
-        _args(d, i, "dilutions", DILUTION_KEYS)
-        missing = [k for k in _REQUIRED if k not in d]
-        if missing:
-            raise ValueError(f"dilutions[{i}] has no {missing[0]!r}; accepted keys: {', '.join(DILUTION_KEYS)}")
+        _args(d, i, "dilutions", DILUTION_KEYS, _REQUIRED)
         try:
             results.append(bod_dilution(**d))
         except ValueError as exc:
@@ -219,10 +220,7 @@ def seed_uptake_per_ml(controls: list[dict]) -> float:
         raise ValueError(f"controls is empty or not a list; accepted: seed controls, each with {', '.join(keys)}")
     uptakes = []
     for i, c in enumerate(controls):
-        _args(c, i, "controls", keys)
-        missing = [k for k in keys if k not in c]
-        if missing:
-            raise ValueError(f"controls[{i}] has no {missing[0]!r}; accepted keys: {', '.join(keys)}")
+        _args(c, i, "controls", keys, keys)
         d1 = _do(c["initial_do_mg_l"], f"controls[{i}].initial_do_mg_l")
         d2 = _do(c["final_do_mg_l"], f"controls[{i}].final_do_mg_l")
         vs = real(c["seed_ml"], f"controls[{i}].seed_ml", lo=0.0, hi=2000.0, lo_open=True, unit="mL")
