@@ -18,7 +18,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
-from core.atomic import atomic_write_bytes, canonical_json_bytes
+from core.store.atomic import atomic_write_bytes, canonical_json_bytes
 from sync import errors
 from sync.layout import canonical_trip_id, revision_name, trip_year
 from sync.merge import common_ancestor, describe_conflict, history, merge_trips, relation

@@ -29,7 +29,7 @@ import uuid
 from dataclasses import dataclass, field
 from typing import Any, Iterable
 
-from core.atomic import content_hash
+from core.store.atomic import content_hash
 
 __all__ = [
     "MergeResult", "merge_trips", "relation", "history", "common_ancestor",

@@ -5,7 +5,7 @@ uuid>.json`` holds, for one trip: the last pushed revision, its content hash, th
 and ETag, the year folder, the hub revision files already contained in the device copy
 (``seen``), files found bad (``bad``), and the last hub document the device copy contains
 (``base``, the ancestor for the next three-way merge). Every write goes through
-core.atomic.atomic_write_bytes, so a crash leaves the old entry or the new one.
+core.store.atomic.atomic_write_bytes, so a crash leaves the old entry or the new one.
 
 ``manifest.json`` beside them is a cache of every entry without its base document, and
 ``journal.jsonl`` the entries changed since (one line per write, folded into the manifest every
@@ -22,7 +22,7 @@ import os
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 
-from core.atomic import atomic_write_bytes
+from core.store.atomic import atomic_write_bytes
 from sync.layout import canonical_trip_id
 
 __all__ = ["OutboxEntry", "Outbox", "hubs"]

@@ -23,7 +23,7 @@ from pathlib import Path
 from typing import Protocol
 from urllib.parse import quote, unquote, urlsplit
 
-from core.atomic import atomic_write_bytes, fsync_dir
+from core.store.atomic import atomic_write_bytes, fsync_dir
 from sync import errors
 from sync.layout import (INCOMING, TRIPS, canonical_trip_id, device_key, incoming_name,
                          name_matches, parse_revision_name, trip_dir)

@@ -70,8 +70,8 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
             self.palette = {k: rgba(v) for k, v in PALETTE.items()}
             self.sizes = SIZES
             self.font_name = FONT_NAME
-            from core.conductivity import CONDUCTIVITY_UNITS
-            from core.pressure import PRESSURE_UNITS
+            from core.science.conductivity import CONDUCTIVITY_UNITS
+            from core.science.pressure import PRESSURE_UNITS
 
             self.pressure_units = list(PRESSURE_UNITS)   # the unit pickers of every screen
             self.cond_units = list(CONDUCTIVITY_UNITS)

@@ -1,7 +1,7 @@
 """The touch app's logic: forms in, core's values and the store out (no kivy; unit-tests without a window).
 
-Screens call these methods and show what comes back. Science comes from core (core.assess and
-friends), records and their QC from core.store / core.qc, bottle clocks from core.holding. Store
+Screens call these methods and show what comes back. Science comes from core (core.science.assess and
+friends), records and their QC from core.store / core.rules.qc, bottle clocks from core.science.holding. Store
 writes go through a single background worker so a slow flash card never freezes a field.
 """
 from __future__ import annotations
@@ -15,7 +15,7 @@ from datetime import datetime, timedelta, timezone
 from pathlib import Path
 from typing import Any, Callable
 
-from core.winkler import SAFETY_NOTE
+from core.science.winkler import SAFETY_NOTE
 from mobile.app.forms import (BOTTLE_KINDS, FIELD_LABELS, REQUIRED_STOP_FIELDS, BottleForm,
                               CalForm, StopForm, TripForm)
 from mobile.app.numeric import parse_decimal
@@ -26,11 +26,11 @@ __all__ = ["AppController", "StopView", "FlagLine", "CalView", "ClockLine", "Tri
 
 WADING_CAUTION = ("Wading: enter the water only where your program's SOP allows — never alone, "
                   "never in fast or rising water, wearing a PFD where required.")
-REAGENT_CAUTION = SAFETY_NOTE  # the one reagent caution (core.winkler)
+REAGENT_CAUTION = SAFETY_NOTE  # the one reagent caution (core.science.winkler)
 
 APP_STATE_FILE = "app-state.json"   # where the app was (trip, stop, screen) — UI cursor, not data
 APP_PREFS_FILE = "app-prefs.json"
-# Which holding-time rule (core.holding) a bottle kind follows. Duplicates and blanks of the DO
+# Which holding-time rule (core.science.holding) a bottle kind follows. Duplicates and blanks of the DO
 # sampling are fixed like their parent Winkler bottles (common practice).
 HOLDING_RULE = {"do_fixed": "do_winkler", "duplicate": "do_winkler", "blank": "do_winkler", "bod": "bod"}   # this device's default units and hub address
 
@@ -283,7 +283,7 @@ class AppController:
         return Path(self.store.data_dir) / APP_PREFS_FILE
 
     def settings(self) -> Any:
-        """The program settings (core.models.ProgramSettings) from the store."""
+        """The program settings (core.records.models.ProgramSettings) from the store."""
         return self.store.settings()
 
     def load_prefs(self) -> None:
@@ -306,7 +306,7 @@ class AppController:
     def save_prefs(self, prefs: AppPrefs) -> None:
         from dataclasses import asdict
 
-        from core.atomic import atomic_write_bytes
+        from core.store.atomic import atomic_write_bytes
 
         st = self.store.settings().model_copy(update={
             "warm_min_mg_l": prefs.warm_min_mg_l, "cold_min_mg_l": prefs.cold_min_mg_l,
@@ -356,7 +356,7 @@ class AppController:
         return Path(self.store.data_dir) / APP_STATE_FILE
 
     def remember(self, screen: str) -> None:
-        from core.atomic import atomic_write_bytes
+        from core.store.atomic import atomic_write_bytes
 
         doc = {"trip_id": self.trip.id if self.trip else None, "stop_id": self.stop_id, "screen": screen}
         try:
@@ -498,8 +498,8 @@ class AppController:
         return None
 
     def stop_record(self, stop: StopForm) -> tuple[Any, dict[str, str]]:
-        """(core.models.Stop with derived values, or None without a site; refusals by field)."""
-        from core.qc import derive_stop
+        """(core.records.models.Stop with derived values, or None without a site; refusals by field)."""
+        from core.rules.qc import derive_stop
 
         record, errors = self.bridge.stop_record(stop, self._saved_stop_doc(stop.id))
         if record is None:
@@ -511,7 +511,7 @@ class AppController:
     def stop_view(self, stop: StopForm | None = None) -> StopView:
         from collections import Counter
 
-        from core.qc import stop_flags
+        from core.rules.qc import stop_flags
 
         stop = stop or self.stop
         view = StopView()
@@ -655,7 +655,7 @@ class AppController:
     def clock_lines(self, now: datetime | None = None) -> list[ClockLine]:
         """Every bottle's holding-time clock in the open trip, most urgent first."""
         try:
-            from core.holding import holding_clock
+            from core.science.holding import holding_clock
         except ImportError:
             return []
         now = now or self.now()
@@ -694,14 +694,14 @@ class AppController:
 
     # ------------------------------------------------------------------ calibration helper
     def cal_view(self, cal: CalForm, post: bool = False) -> CalView:
-        from core.models import InputError, measure, parse_number
+        from core.records.models import InputError, measure, parse_number
 
         view = CalView()
         if not (cal.temp_text.strip() and cal.pressure_text.strip()):
             view.detail = "Type the calibration temperature and station pressure to see the 100 % target."
             return view
         try:
-            from core import calibration
+            from core.science import calibration
         except ImportError:
             view.detail = "The calibration helper is not in this build yet."
             return view

@@ -9,7 +9,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-from core._validate import ambiguous_comma
+from core.science._validate import ambiguous_comma
 
 __all__ = ["InsertCheck", "check_insert", "parse_decimal", "DecimalError"]
 

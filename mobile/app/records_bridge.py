@@ -1,6 +1,6 @@
-"""Between the app's forms and the store's records (core.models): the one place that knows both shapes.
+"""Between the app's forms and the store's records (core.records.models): the one place that knows both shapes.
 
-Forms hold text as typed and the chosen unit; records hold core.models.Quantity (text as typed,
+Forms hold text as typed and the chosen unit; records hold core.records.models.Quantity (text as typed,
 value as read, normalised value). A value the records refuse (e.g. "68" in °C) is not stored as a
 number; its text is kept in the stop's ``draft_text`` (an extra field the store keeps) so that a
 restart shows what was typed.
@@ -30,7 +30,7 @@ DRAFT_KEY = "draft_text"
 
 
 def calibration_available() -> bool:
-    return importlib.util.find_spec("core.calibration") is not None
+    return importlib.util.find_spec("core.science.calibration") is not None
 
 
 def site_title(site: Any) -> str:
@@ -38,7 +38,7 @@ def site_title(site: Any) -> str:
 
 
 def make_site(code: str, name: str, elevation_m: float, water_class: str | None = None):
-    from core.models import Site
+    from core.records.models import Site
 
     return Site(id=code, name=name, elevation_m=float(elevation_m), water_class=water_class)
 
@@ -59,7 +59,7 @@ def _when(text: str | None) -> datetime | None:
 
 def _quantities(form: StopForm) -> tuple[dict[str, Any], dict[str, str], dict[str, str]]:
     """The stop's typed values as Quantity documents; refusals by field; drafts (text of refusals)."""
-    from core.models import InputError, measure
+    from core.records.models import InputError, measure
 
     entries = (
         ("temp", "temp", form.temp_text, TEMP_UNIT_TEXT.get(form.temp_unit, "°C")),
@@ -111,19 +111,19 @@ def stop_document(form: StopForm, previous: dict[str, Any] | None = None) -> tup
 
 
 def stop_record(form: StopForm, previous: dict[str, Any] | None = None):
-    """(core.models.Stop | None, refusals by field) for the live view of the stop screen."""
-    from core.models import Stop
+    """(core.records.models.Stop | None, refusals by field) for the live view of the stop screen."""
+    from core.records.models import Stop
 
     doc, errors = stop_document(form, previous)
     if doc is None:
         return None, errors
-    from core.atomic import canonical_json_bytes
+    from core.store.atomic import canonical_json_bytes
 
     return Stop.model_validate_json(canonical_json_bytes(doc)), errors
 
 
 def _cal_document(cal: CalForm, kind: str, tolerance_mg_l: float) -> dict[str, Any] | None:
-    from core.models import InputError, measure, parse_number
+    from core.records.models import InputError, measure, parse_number
 
     if not (cal.temp_text.strip() and cal.pressure_text.strip() and cal.reading_text.strip()):
         return None
@@ -142,7 +142,7 @@ def _cal_document(cal: CalForm, kind: str, tolerance_mg_l: float) -> dict[str, A
 
 def trip_from_form(form: TripForm, previous: Any, ctl: Any):
     """The Trip record to save: the last stored trip (audit, lab results, unknown fields kept) with the form on top."""
-    from core.models import Trip
+    from core.records.models import Trip
 
     doc: dict[str, Any] = previous.model_dump(mode="json") if previous is not None else {}
     old_stops = {s["id"]: s for s in doc.get("stops") or []}
@@ -182,8 +182,8 @@ def _split_draft(typed: str) -> tuple[str, str]:
 
 
 def form_from_trip(trip: Any) -> TripForm:
-    from core.conductivity import CONDUCTIVITY_UNITS
-    from core.pressure import PRESSURE_UNITS
+    from core.science.conductivity import CONDUCTIVITY_UNITS
+    from core.science.pressure import PRESSURE_UNITS
 
     stops = []
     for s in trip.stops:

@@ -47,7 +47,7 @@ def _has_display() -> bool:
 
 def seed_demo(data_dir: Path, demo_dir: Path) -> int:
     """Imports demo sites and trips into an empty store; returns how many trips came in."""
-    from core import exchange
+    from core.records import exchange
     from core.store import DeviceStore
 
     store = DeviceStore.open(data_dir)
@@ -106,7 +106,7 @@ def _bring_to_today(doc, now: datetime):  # noqa: ANN001, ANN202
 
 
 def run(args) -> int:  # noqa: ANN001 - argparse namespace
-    from core.paths import resolve_data_dir
+    from core.store.paths import resolve_data_dir
 
     size = _parse_size(args.size)
     if not _has_display():

@@ -33,7 +33,7 @@ _OPTIONS = {
 # --------------------------------------------------------------------------------------------
 def _number(text: str | None, option: str, accepted: str, units: tuple[str, ...] = ()) -> float | None:
     """A number as typed ("7.3", "7,3", "7.3 mL"); a unit, when given, must be one of `units`."""
-    from core.models import InputError, parse_number
+    from core.records.models import InputError, parse_number
 
     if text is None:
         return None
@@ -84,7 +84,7 @@ def _settings(args, store):  # noqa: ANN001
     """LabSettings: defaults, then the program's settings (``lab_<name>`` fields), then the options."""
     from dataclasses import replace
 
-    from core.lab import LabInputError, LabSettings
+    from core.rules.lab import LabInputError, LabSettings
     from core.store import StoreError
 
     try:
@@ -150,7 +150,7 @@ def _flag_rows(flags: list[dict]) -> list[tuple[str, str]]:
 
 
 def _winkler(args) -> int:  # noqa: ANN001
-    from core.lab import CAUTION, LabInputError, Standardisation, record_winkler
+    from core.rules.lab import CAUTION, LabInputError, Standardisation, record_winkler
 
     ml = ("mL", "ml")
     titrant = _number(args.titrant_ml, "--titrant-ml", "thiosulfate used in mL, 0 to 100", ml)
@@ -252,7 +252,7 @@ def _read_dilutions(path_text: str) -> tuple[Any, Any]:
 
 
 def _bod(args) -> int:  # noqa: ANN001
-    from core.lab import LabInputError, record_bod
+    from core.rules.lab import LabInputError, record_bod
 
     dilutions, controls = _read_dilutions(args.dilutions)
     mg = ("mg/L", "mg/l")
@@ -308,7 +308,7 @@ def _bod(args) -> int:  # noqa: ANN001
 
 
 def _duplicates(args) -> int:  # noqa: ANN001
-    from core.lab import duplicate_checks
+    from core.rules.lab import duplicate_checks
 
     store = _store(args)
     settings = _settings(args, store)
@@ -339,7 +339,7 @@ def _left(seconds: float) -> str:
 
 
 def _pending(args) -> int:  # noqa: ANN001
-    from core.lab import LabInputError, pending_bottles
+    from core.rules.lab import LabInputError, pending_bottles
     from core.store import StoreError
 
     now = _now(args)

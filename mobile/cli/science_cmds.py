@@ -5,7 +5,7 @@ import json
 import re
 from pathlib import Path
 
-from core._validate import decimal
+from core.science._validate import decimal
 from mobile.cli._common import CliError, emit_json, emit_table
 
 __all__ = ["register"]
@@ -47,10 +47,10 @@ def _flag_rows(flags) -> list[tuple[str, str]]:
 # --- sat ------------------------------------------------------------------------------------------
 
 def _sat(args) -> int:
-    from core.assess import assess_reading
-    from core.conductivity import parse_conductivity
-    from core.pressure import parse_pressure
-    from core.temperature import parse_temperature
+    from core.science.assess import assess_reading
+    from core.science.conductivity import parse_conductivity
+    from core.science.pressure import parse_pressure
+    from core.science.temperature import parse_temperature
 
     temp_c = _core("--temp", parse_temperature, args.temp)
     pressure_hpa = _core("--pressure", parse_pressure, args.pressure)
@@ -119,8 +119,8 @@ def _which_sat_option(message: str) -> str:
 # --- salinity --------------------------------------------------------------------------------------
 
 def _salinity(args) -> int:
-    from core.conductivity import parse_conductivity, practical_salinity, specific_conductance_us_cm
-    from core.temperature import parse_temperature
+    from core.science.conductivity import parse_conductivity, practical_salinity, specific_conductance_us_cm
+    from core.science.temperature import parse_temperature
 
     us_cm = _core("--conductivity", parse_conductivity, args.conductivity)
     temp_c = _core("--temp", parse_temperature, args.temp)
@@ -147,7 +147,7 @@ def _salinity(args) -> int:
 # --- winkler ---------------------------------------------------------------------------------------
 
 def _winkler(args) -> int:
-    from core.winkler import SAFETY_NOTE, original_sample_ml, winkler_do_mg_l
+    from core.science.winkler import SAFETY_NOTE, original_sample_ml, winkler_do_mg_l
 
     ml = ("mL",)
     titrant = _number(args.titrant_ml, "--titrant-ml", "titrant volume in mL, 0 to 100", ml)
@@ -183,7 +183,7 @@ _BOD_SINGLE = ("initial", "final", "sample_ml", "seed_ml", "seed_uptake")
 
 
 def _bod(args) -> int:
-    from core.bod import bod_dilution
+    from core.science.bod import bod_dilution
 
     given = [n for n in _BOD_SINGLE if getattr(args, n) is not None]
     if args.dilutions is not None:
@@ -227,7 +227,7 @@ def _bod(args) -> int:
 
 
 def _bod_file(args) -> int:
-    from core.bod import bod_from_dilutions, seed_uptake_per_ml
+    from core.science.bod import bod_from_dilutions, seed_uptake_per_ml
 
     path = Path(args.dilutions)
     try:
@@ -275,7 +275,7 @@ def _bod_file(args) -> int:
 
 def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     """Adds this module's sub-commands (sat, salinity, winkler, bod) to the top-level parser."""
-    from core.oxygen import METHODS
+    from core.science.oxygen import METHODS
 
     p = sub.add_parser("sat", help="DO saturation target and % saturation of a reading",
                        description="Saturation target at the water temperature and station pressure; with --do,"

@@ -53,7 +53,7 @@ def _store(args):  # noqa: ANN001
 
 
 def _sites_import(args) -> int:  # noqa: ANN001
-    from core.exchange import ExchangeError, import_sites_csv
+    from core.records.exchange import ExchangeError, import_sites_csv
     from core.store import StoreError
 
     store = _store(args)
@@ -78,7 +78,7 @@ def _sites_list(args) -> int:  # noqa: ANN001
 
 
 def _trip_import(args) -> int:  # noqa: ANN001
-    from core.exchange import ExchangeError, import_trip_file
+    from core.records.exchange import ExchangeError, import_trip_file
 
     store = _store(args)
     try:
@@ -120,7 +120,7 @@ def _trip_list(args) -> int:  # noqa: ANN001
 
 
 def _show_data(store, trip_id: str) -> dict:  # noqa: ANN001
-    from core.qc import TRIP_KEY, trip_flags
+    from core.rules.qc import TRIP_KEY, trip_flags
 
     trip = store.load_trip(trip_id)
     sites = store.sites_by_id()
@@ -209,8 +209,8 @@ def _trip_show(args) -> int:  # noqa: ANN001
 
 
 def _trip_export(args) -> int:  # noqa: ANN001
-    from core.atomic import atomic_write_bytes
-    from core.exchange import export_trip_csv, export_trip_json
+    from core.store.atomic import atomic_write_bytes
+    from core.records.exchange import export_trip_csv, export_trip_json
     from core.store import StoreError
 
     store = _store(args)

@@ -19,7 +19,7 @@ SITES = (("LK-01", "Mill Ford", 420.0, "cold"), ("LK-02", "Heron Riffle", 455.0,
 
 
 def seed_sites(data_dir: Path) -> None:
-    from core.models import Site
+    from core.records.models import Site
     from core.store import DeviceStore
 
     store = DeviceStore.open(data_dir)

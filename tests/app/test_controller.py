@@ -1,6 +1,6 @@
 """The app's controller without a window: forms in, core's values and the real store out.
 
-Expected values come from core (core.assess, core.models.measure), never from the app's own
+Expected values come from core (core.science.assess, core.records.models.measure), never from the app's own
 earlier output; saturation checks against Benson & Krause (1984) live in tests/science.
 """
 from __future__ import annotations
@@ -9,7 +9,7 @@ from datetime import datetime, timedelta, timezone
 
 import pytest
 
-from core.assess import assess_reading
+from core.science.assess import assess_reading
 from core.store import DeviceStore
 from mobile.app.controller import AppController
 from tests.app.conftest import seed_sites
@@ -135,7 +135,7 @@ def test_add_site_with_elevation_and_refusals(ctl):
 
 
 def test_another_writer_between_saves_loses_nothing(ctl):
-    from core.models import new_id
+    from core.records.models import new_id
 
     for k, v in (("temp", "12,4"), ("pressure", "968"), ("do", "9,8")):
         ctl.set_stop_field(k, v)
@@ -179,7 +179,7 @@ def test_arrival_time_typed_as_hh_mm_or_full(ctl):
 
 
 def test_a_warm_celsius_value_that_may_be_fahrenheit_is_computed_and_flagged(ctl):
-    from core.temperature import fahrenheit_hint
+    from core.science.temperature import fahrenheit_hint
 
     ctl.set_stop_field("pressure", "968")
     view = ctl.set_stop_field("temp", "45")

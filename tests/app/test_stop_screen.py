@@ -1,15 +1,15 @@
 """The stop screen driven as a person would, in a real Kivy window (Xvfb), one app per child process.
 
 What the screen showed and what the store holds are compared with core's own values
-(core.assess, core.temperature.f_to_c); unit definitions cite NIST SP 811 (mmHg) or are exact.
+(core.science.assess, core.science.temperature.f_to_c); unit definitions cite NIST SP 811 (mmHg) or are exact.
 """
 from __future__ import annotations
 
 import pytest
 
-from core.assess import assess_reading
+from core.science.assess import assess_reading
 from core.store import DeviceStore
-from core.temperature import f_to_c
+from core.science.temperature import f_to_c
 from tests.app.conftest import ARTIFACTS, run_scenario
 
 pytestmark = pytest.mark.app

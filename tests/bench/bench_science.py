@@ -28,7 +28,7 @@ def _scalar_us(stmt, number: int = 20000) -> float:
 def main() -> int:
     import gsw
 
-    from core.oxygen import do_saturation_mg_l
+    from core.science.oxygen import do_saturation_mg_l
 
     print("scalar saturation (Python floats), median of", REPEATS, "runs:")
     for label, stmt in [

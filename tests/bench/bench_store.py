@@ -9,7 +9,7 @@ import time
 from datetime import datetime, timedelta, timezone
 from pathlib import Path
 
-from core.models import Quantity, Site, Stop, Trip
+from core.records.models import Quantity, Site, Stop, Trip
 from core.store import DeviceStore
 
 STOPS_PER_TRIP = 25
@@ -70,7 +70,7 @@ def main() -> int:
                 if i >= 10:  # the first saves warm caches and imports
                     timings[name].append(dt)
         # The disk's own cost in the same run: one crash-safe write (2 fsyncs) of a trip-sized file.
-        from core.atomic import atomic_write_bytes
+        from core.store.atomic import atomic_write_bytes
 
         blob = (Path(tmp) / "one" / "trips" / f"{small_trip}.json").read_bytes()
         disk = []

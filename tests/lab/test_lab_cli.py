@@ -274,7 +274,7 @@ def test_results_of_a_trip_with_earlier_results(data):
 
 
 def test_program_settings_feed_the_checks(data):
-    from core.models import ProgramSettings
+    from core.records.models import ProgramSettings
 
     store = DeviceStore.open(data)
     # A stricter SOP holding time (4 h) and the lab's meter tolerance kept in the program's settings.
@@ -290,7 +290,7 @@ def test_program_settings_feed_the_checks(data):
 
 
 def test_bad_program_setting_is_one_line(data):
-    from core.models import ProgramSettings
+    from core.records.models import ProgramSettings
 
     DeviceStore.open(data).save_settings(ProgramSettings(lab_duplicate_rpd_percent=-3))
     one_line_error(lab("duplicates", HOT[:8], data_dir=data), "lab_duplicate_rpd_percent", "0 to 200")

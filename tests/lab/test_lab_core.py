@@ -1,4 +1,4 @@
-"""core.lab on plain records: Winkler and BOD5 results on bottles, re-analysis, duplicates, pending (pure)."""
+"""core.rules.lab on plain records: Winkler and BOD5 results on bottles, re-analysis, duplicates, pending (pure)."""
 from __future__ import annotations
 
 from datetime import datetime, timedelta, timezone
@@ -6,12 +6,12 @@ from datetime import datetime, timedelta, timezone
 import pytest
 
 from core.flags import Severity
-from core.lab import (BOD_ANALYTE, CAUTION, WINKLER_ANALYTE, LabInputError, LabSettings, Standardisation,
+from core.rules.lab import (BOD_ANALYTE, CAUTION, WINKLER_ANALYTE, LabInputError, LabSettings, Standardisation,
                       current_result, duplicate_checks, find_bottle, pending_bottles, record_bod, record_winkler,
                       relative_percent_difference)
-from core.models import Bottle, LabResult, Site, Stop, Trip, measure
-from core.qc import derive_trip
-from core.models import ProgramSettings
+from core.records.models import Bottle, LabResult, Site, Stop, Trip, measure
+from core.rules.qc import derive_trip
+from core.records.models import ProgramSettings
 
 TZ = timezone(timedelta(hours=-7))
 T0 = datetime(2026, 6, 23, 8, 0, tzinfo=TZ)  # invented scenario day (Larkspur Creek demo)
@@ -451,7 +451,7 @@ def test_pending_leaves_out_bottles_with_results():
 
 
 def test_pending_soon_flag():
-    # "soon": less than 25 % of the holding time left (core.holding, our choice).
+    # "soon": less than 25 % of the holding time left (core.science.holding, our choice).
     t = trip(stop(bottles=[bottle("TV-0801", fixed=timedelta(0))]))
     [p] = pending_bottles([t], T0 + timedelta(hours=7))
     assert p.status == "soon" and p.flag.code == "holding.soon"
@@ -476,7 +476,7 @@ def test_fixing_before_collection_counts_from_collection():
 
 
 def test_meter_disagreement_mentions_a_failed_calibration():
-    from core.models import Calibration
+    from core.records.models import Calibration
 
     cal = Calibration(kind="post-trip", at=T0 + timedelta(hours=5), temp=measure("temp", "20"),
                       pressure=measure("pressure", "1013.25 hPa"), reading_mg_l=8.5, accepted=False)
@@ -490,13 +490,13 @@ def test_lab_core_is_pure():
     import ast
     from pathlib import Path
 
-    import core.lab
+    import core.rules.lab
 
-    tree = ast.parse(Path(core.lab.__file__).read_text(encoding="utf-8"))
+    tree = ast.parse(Path(core.rules.lab.__file__).read_text(encoding="utf-8"))
     imported = {a.name for n in ast.walk(tree) if isinstance(n, ast.Import) for a in n.names}
     imported |= {n.module for n in ast.walk(tree) if isinstance(n, ast.ImportFrom) and n.module}
     assert not {m for m in imported if m.split(".")[0] in ("mobile", "sync", "kivy", "requests", "os", "time")}
-    assert "core.store" not in imported and "core.atomic" not in imported
+    assert "core.store" not in imported and "core.store.atomic" not in imported
     calls = {n.func.attr if isinstance(n.func, ast.Attribute) else getattr(n.func, "id", "")
              for n in ast.walk(tree) if isinstance(n, ast.Call)}
     assert not calls & {"now", "utcnow", "today", "open", "write_text", "write_bytes"}

@@ -5,7 +5,7 @@ from datetime import datetime, timedelta, timezone
 
 import pytest
 
-from core.models import Bottle, Calibration, Site, Stop, Trip, measure
+from core.records.models import Bottle, Calibration, Site, Stop, Trip, measure
 from core.store import DeviceStore
 
 T0 = datetime(2026, 6, 14, 9, 0, tzinfo=timezone(timedelta(hours=-7)))

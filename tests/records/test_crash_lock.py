@@ -13,7 +13,7 @@ from datetime import timedelta
 
 import pytest
 
-from core.models import Quantity, Stop
+from core.records.models import Quantity, Stop
 from core.store import DeviceStore, StoreLocked
 from tests.conftest import ROOT, cli_env
 from tests.records.conftest import T0, make_trip

@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 
-from core.exchange import (BOTTLE_COLUMNS, STOP_COLUMNS, ExchangeError, export_trip_csv, export_trip_json,
+from core.records.exchange import (BOTTLE_COLUMNS, STOP_COLUMNS, ExchangeError, export_trip_csv, export_trip_json,
                            import_sites_csv, import_trip_file)
 from core.store import DeviceStore
 from tests.conftest import ROOT, run_cli

@@ -7,8 +7,8 @@ from datetime import datetime, timezone
 import pytest
 from pydantic import ValidationError
 
-from core.messages import TEMPLATES, problems_from_validation, render
-from core.models import (SCHEMA_PATH, Bottle, InputError, Quantity, Site, Stop, Trip, measure,
+from core.records.messages import TEMPLATES, problems_from_validation, render
+from core.records.models import (SCHEMA_PATH, Bottle, InputError, Quantity, Site, Stop, Trip, measure,
                          parse_number, schema_text)
 from tests.records.conftest import T0, make_stop, make_trip
 
@@ -254,7 +254,7 @@ def test_status_needs_attention_with_open_conflict():
 # ---- JSON Schema published in the repository --------------------------------------------------
 def test_committed_schema_equals_generated():
     assert SCHEMA_PATH.read_text(encoding="utf-8") == schema_text(), \
-        "core/schema/trip.schema.json is stale: run `python -m core.models`"
+        "core/records/schema/trip.schema.json is stale: run `python -m core.records.models`"
 
 
 def test_schema_describes_trip_fields():

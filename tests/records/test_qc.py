@@ -6,8 +6,8 @@ from datetime import timedelta
 import pytest
 
 from core.flags import Severity
-from core.models import ProgramSettings, Site
-from core.qc import RULE_CODES, TRIP_KEY, derive_trip, trip_flags
+from core.records.models import ProgramSettings, Site
+from core.rules.qc import RULE_CODES, TRIP_KEY, derive_trip, trip_flags
 from tests.records.conftest import T0, make_bottle, make_cal, make_stop, make_trip
 
 SITES = {
@@ -157,7 +157,7 @@ def test_holding_fresh_sample_passes():
 
 
 def test_holding_ignored_once_lab_results_exist():
-    from core.models import LabResult
+    from core.records.models import LabResult
 
     b = make_bottle("B1", kind="bod", lab_results=[LabResult(analyte="bod5", value=1.2, unit="mg/L")])
     assert "holding.expired" not in stop_codes(make_stop(bottles=[b]), now=T0 + timedelta(hours=60))

@@ -9,9 +9,9 @@ from pathlib import Path
 import pytest
 from tinydb import TinyDB
 
-from core.atomic import canonical_json_bytes, content_hash
-from core.migrations import migrate
-from core.models import SCHEMA_VERSION, ProgramSettings, Site, Trip, measure
+from core.store.atomic import canonical_json_bytes, content_hash
+from core.records.migrations import migrate
+from core.records.models import SCHEMA_VERSION, ProgramSettings, Site, Trip, measure
 from core.store import (AtomicJSONStorage, CorruptFile, DeviceStore, InvalidRecord, NewerSchemaError,
                         StaleTrip, TripNotFound)
 from tests.records.conftest import T0, FakeClock, make_bottle, make_stop, make_trip
@@ -349,7 +349,7 @@ def test_conflicts_make_the_trip_need_attention(store):
 
 
 def test_write_failure_leaves_stored_trip_and_says_so(store, monkeypatch):
-    import core.store as cs
+    import core.store.device as cs
     from core.store import StoreWriteError
 
     trip = store.save_trip(make_trip([make_stop()]), "x")
@@ -369,7 +369,7 @@ def test_write_failure_leaves_stored_trip_and_says_so(store, monkeypatch):
 def test_settings_out_of_range_refused_with_label():
     from pydantic import ValidationError
 
-    from core.messages import problems_from_validation
+    from core.records.messages import problems_from_validation
 
     with pytest.raises(ValidationError) as info:
         ProgramSettings(supersaturation_percent=90.0)

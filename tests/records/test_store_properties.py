@@ -5,8 +5,8 @@ from datetime import timedelta
 
 from hypothesis import HealthCheck, given, settings, strategies as st
 
-from core.atomic import content_hash
-from core.models import measure
+from core.store.atomic import content_hash
+from core.records.models import measure
 from core.store import DeviceStore
 from tests.records.conftest import T0, FakeClock, make_stop, make_trip
 

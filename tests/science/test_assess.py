@@ -4,8 +4,8 @@ from __future__ import annotations
 import gsw
 import pytest
 
-from core.assess import assess_reading
-from core.criteria import Criteria
+from core.science.assess import assess_reading
+from core.science.criteria import Criteria
 
 SAT_KEYS = ["do_sat_mg_l", "percent_saturation", "salinity", "pressure_hpa", "temp_c", "method", "flags"]
 

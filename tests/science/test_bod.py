@@ -5,7 +5,7 @@ from datetime import datetime, timedelta, timezone
 
 import pytest
 
-from core.bod import (bod_dilution, bod_from_dilutions, blank_check, gga_check, incubation_check,
+from core.science.bod import (bod_dilution, bod_from_dilutions, blank_check, gga_check, incubation_check,
                       seed_uptake_per_ml)
 
 

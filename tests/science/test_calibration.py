@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import pytest
 
-from core.calibration import calibration_target_mg_l, check_calibration, post_trip_check
+from core.science.calibration import calibration_target_mg_l, check_calibration, post_trip_check
 
 
 def test_target_is_saturation_at_station_pressure_fresh_water():

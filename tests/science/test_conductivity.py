@@ -5,7 +5,7 @@ import gsw
 import numpy as np
 import pytest
 
-from core.conductivity import (C3515_MS_CM, conductivity_at_temp_us_cm, iso7888_f25, parse_conductivity,
+from core.science.conductivity import (C3515_MS_CM, conductivity_at_temp_us_cm, iso7888_f25, parse_conductivity,
                                practical_salinity, salinity_from_specific_conductance,
                                specific_conductance_us_cm)
 from tests.science._refdata import ids, rows
@@ -73,7 +73,7 @@ def test_linear_compensation():
 @pytest.mark.parametrize("t, f", [(0, 1.918), (5, 1.643), (10, 1.428), (15, 1.256), (20, 1.116), (25, 1.000),
                                   (30, 0.903), (35, 0.822)])
 def test_iso7888_nodes(t, f):
-    # source: ISO 7888 / EN 27888 Table 1 (values above 12 °C from memory), core/data/iso7888_f25.csv
+    # source: ISO 7888 / EN 27888 Table 1 (values above 12 °C from memory), core/science/data/iso7888_f25.csv
     assert iso7888_f25(float(t)) == pytest.approx(f, abs=1e-12)
     assert specific_conductance_us_cm(100.0, float(t), method="iso7888") == pytest.approx(100.0 * f)
 

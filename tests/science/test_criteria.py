@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import pytest
 
-from core.criteria import Criteria, do_criteria_flags
+from core.science.criteria import Criteria, do_criteria_flags
 from core.flags import Severity
 
 

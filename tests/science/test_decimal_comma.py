@@ -6,10 +6,10 @@ import sys
 
 import pytest
 
-from core._validate import ambiguous_comma, decimal
-from core.conductivity import parse_conductivity
-from core.pressure import parse_pressure
-from core.temperature import parse_temperature
+from core.science._validate import ambiguous_comma, decimal
+from core.science.conductivity import parse_conductivity
+from core.science.pressure import parse_pressure
+from core.science.temperature import parse_temperature
 from tests.conftest import ROOT, cli_env, run_cli
 
 

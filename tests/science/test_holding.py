@@ -6,7 +6,7 @@ from datetime import datetime, timedelta, timezone
 import pytest
 
 from core.flags import Severity
-from core.holding import HOLDING_TIMES, holding_clock
+from core.science.holding import HOLDING_TIMES, holding_clock
 
 T0 = datetime(2026, 6, 1, 8, 0, tzinfo=timezone.utc)
 

@@ -7,8 +7,8 @@ import gsw
 import numpy as np
 import pytest
 
-from core import oxygen
-from core.oxygen import (do_mg_l_from_percent, do_saturation_mg_l, o2_solubility_umol_kg, percent_saturation,
+from core.science import oxygen
+from core.science.oxygen import (do_mg_l_from_percent, do_saturation_mg_l, o2_solubility_umol_kg, percent_saturation,
                          pressure_factor, saturation_range_flags, seawater_density_kg_m3, theta,
                          water_vapour_pressure_atm)
 from tests.science._refdata import ids, rows

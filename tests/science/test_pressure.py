@@ -4,7 +4,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from core.pressure import (PRESSURE_UNITS, SEA_LEVEL_ADJUSTED_THRESHOLD_HPA, from_hpa, parse_pressure,
+from core.science.pressure import (PRESSURE_UNITS, SEA_LEVEL_ADJUSTED_THRESHOLD_HPA, from_hpa, parse_pressure,
                            sea_level_adjusted_flag, sea_level_to_station_hpa, standard_pressure_hpa,
                            station_to_sea_level_hpa, to_hpa)
 from core.flags import Severity
@@ -123,7 +123,7 @@ def test_conversion_refuses_negative_and_unknown_units():
 
 def test_far_below_standard_catches_mmhg_typed_as_hpa():
     # common practice: 752 (a mmHg reading) entered as hPa at a 100 m site is 249 hPa too low
-    from core.pressure import far_below_standard_flag, station_pressure_flags
+    from core.science.pressure import far_below_standard_flag, station_pressure_flags
     f = far_below_standard_flag(752.0, 100.0)
     assert f is not None and f.code == "pressure.far_below_standard" and "mmHg" in f.action
     # the deepest ordinary lows at sea level (about 950 hPa) and a true reading at 2500 m are not flagged

@@ -10,13 +10,13 @@ import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from core.conductivity import (conductivity_at_temp_us_cm, practical_salinity, specific_conductance_us_cm)
-from core.oxygen import METHODS, do_saturation_mg_l
-from core._validate import ambiguous_comma
-from core.pressure import (PRESSURE_UNITS, from_hpa, parse_pressure, sea_level_to_station_hpa,
+from core.science.conductivity import (conductivity_at_temp_us_cm, practical_salinity, specific_conductance_us_cm)
+from core.science.oxygen import METHODS, do_saturation_mg_l
+from core.science._validate import ambiguous_comma
+from core.science.pressure import (PRESSURE_UNITS, from_hpa, parse_pressure, sea_level_to_station_hpa,
                            station_to_sea_level_hpa, to_hpa)
-from core.temperature import c_to_f, f_to_c
-from core.winkler import expected_titrant_ml, winkler_do_mg_l
+from core.science.temperature import c_to_f, f_to_c
+from core.science.winkler import expected_titrant_ml, winkler_do_mg_l
 
 temps = st.floats(0.0, 40.0)
 sals = st.floats(0.0, 40.0)

@@ -4,7 +4,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from core.temperature import c_to_f, f_to_c, fahrenheit_hint, parse_temperature
+from core.science.temperature import c_to_f, f_to_c, fahrenheit_hint, parse_temperature
 
 
 def test_fixed_points():

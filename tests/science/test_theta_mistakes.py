@@ -4,7 +4,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from core import oxygen
+from core.science import oxygen
 from tests.science._refdata import rows
 
 ATM = 1013.25

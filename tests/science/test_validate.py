@@ -4,7 +4,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from core._validate import choice, is_plain_scalar, range_text, real
+from core.science._validate import choice, is_plain_scalar, range_text, real
 
 
 def test_scalars_come_back_as_float():

@@ -4,7 +4,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from core.winkler import expected_titrant_ml, original_sample_ml, thiosulfate_normality, winkler_do_mg_l
+from core.science.winkler import expected_titrant_ml, original_sample_ml, thiosulfate_normality, winkler_do_mg_l
 
 
 def test_one_ml_of_0025n_is_one_mg_per_l_for_200ml_original():

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import pytest
 
-from core.models import Site, Stop, Trip, measure
+from core.records.models import Site, Stop, Trip, measure
 from core.store import DeviceStore
 from sync.session import Credentials, RetryPolicy, Session
 

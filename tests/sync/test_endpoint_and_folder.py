@@ -6,7 +6,7 @@ import shutil
 import pytest
 
 import sync
-from core.atomic import canonical_json_bytes
+from core.store.atomic import canonical_json_bytes
 from sync import errors
 from sync.targets import FolderTarget, PostTarget, WebDavTarget, open_target
 from tests.sync.conftest import dav_session, edit_stop_notes, hub_files, new_trip, open_store

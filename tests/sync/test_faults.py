@@ -10,7 +10,7 @@ import time
 import pytest
 
 import sync
-from core.atomic import canonical_json_bytes
+from core.store.atomic import canonical_json_bytes
 from sync.layout import name_matches
 from sync.session import Credentials, RetryPolicy, Session
 from tests.sync.conftest import (DAV_PASSWORD, DAV_USER, dav_session, edit_stop_notes, hub_files,

@@ -3,7 +3,7 @@ lost outbox entry costs a re-check but never a second copy at the hub (issue 5, 
 import json
 
 import sync
-from core.atomic import canonical_json_bytes
+from core.store.atomic import canonical_json_bytes
 from sync.outbox import Outbox
 from tests.sync.conftest import FaultProxy, dav_session, hub_files, new_trip
 

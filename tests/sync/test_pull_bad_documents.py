@@ -4,7 +4,7 @@ import hashlib
 import json
 
 import sync
-from core.atomic import canonical_json_bytes
+from core.store.atomic import canonical_json_bytes
 from sync.layout import revision_name
 from tests.sync.conftest import dav_session, hub_files, new_trip, open_store
 

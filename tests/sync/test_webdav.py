@@ -8,7 +8,7 @@ from pathlib import Path
 import requests
 
 import sync
-from core.atomic import canonical_json_bytes
+from core.store.atomic import canonical_json_bytes
 from sync.layout import revision_name
 from tests.sync.conftest import DAV_PASSWORD, DAV_USER, dav_session, edit_stop_notes, hub_files, new_trip
 

@@ -18,7 +18,7 @@ import copy
 import uuid
 from typing import Any, Callable
 
-from core.models import SCHEMA_VERSION
+from core.records.models import SCHEMA_VERSION
 
 __all__ = ["migrate", "MIGRATIONS", "CURRENT"]
 

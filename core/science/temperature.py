@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import re
 
-from core._validate import decimal, real
+from core.science._validate import decimal, real
 from core.flags import Flag, Severity
 
 __all__ = ["TEMPERATURE_UNITS", "f_to_c", "c_to_f", "parse_temperature", "fahrenheit_hint",

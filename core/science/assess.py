@@ -4,13 +4,13 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import core
-from core import conductivity as cond
-from core import oxygen
-from core._validate import choice, real
-from core.criteria import Criteria, do_criteria_flags
+from core.science import conductivity as cond
+from core.science import oxygen
+from core.science._validate import choice, real
+from core.science.criteria import Criteria, do_criteria_flags
 from core.flags import Flag, Severity
-from core.pressure import station_pressure_flags
-from core.temperature import fahrenheit_hint
+from core.science.pressure import station_pressure_flags
+from core.science.temperature import fahrenheit_hint
 
 __all__ = ["Assessment", "assess_reading", "SALINITY_SOURCES"]
 
@@ -74,12 +74,12 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
     do_mg_l, do_percent : float, optional
         The DO reading, in mg/L or in % saturation (not both); the other is derived.
     method : {"benson-krause", "garcia-gordon"}
-        Saturation equation (:func:`core.oxygen.do_saturation_mg_l`).
+        Saturation equation (:func:`core.science.oxygen.do_saturation_mg_l`).
     elevation_m : float, optional
         Site elevation, m; enables the station-pressure checks (sea-level adjusted; far below standard).
     water_class : {"warm", "cold"}, optional
         The stream's class for the criteria check.
-    criteria : core.criteria.Criteria, optional
+    criteria : core.science.criteria.Criteria, optional
         The program's criteria; default ``Criteria()``.
 
     Returns

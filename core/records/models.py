@@ -9,7 +9,7 @@ from datetime import datetime
 from pathlib import Path
 from typing import Any, Literal
 
-from core._validate import ambiguous_comma
+from core.science._validate import ambiguous_comma
 from pydantic import (AwareDatetime, BaseModel, ConfigDict, Field, ValidationError,
                       field_validator, model_validator)
 from pydantic_core import PydanticCustomError
@@ -21,7 +21,7 @@ __all__ = [
     "InputError", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
 ]
 
-#: Version of the trip document layout this build writes. core.migrations lifts older ones.
+#: Version of the trip document layout this build writes. core.records.migrations lifts older ones.
 SCHEMA_VERSION = 2
 
 BOTTLE_KINDS = ("do-fixed", "bod", "duplicate", "blank")
@@ -41,8 +41,8 @@ LIMITS: dict[str, tuple[float, float, str]] = {
     "latitude": (-90.0, 90.0, "°"),
     "longitude": (-180.0, 180.0, "°"),
     "calibration_reading": (0.0, 25.0, "mg/L"),
-    "criterion": (0.0, 20.0, "mg/L"),          # the range core.criteria accepts
-    "supersaturation": (100.0, 500.0, "%"),    # the range core.criteria accepts
+    "criterion": (0.0, 20.0, "mg/L"),          # the range core.science.criteria accepts
+    "supersaturation": (100.0, 500.0, "%"),    # the range core.science.criteria accepts
     "tolerance": (0.0, 5.0, "mg/L"),
 }
 
@@ -75,7 +75,7 @@ def parse_number(text: str, field: str = "value") -> float:
     Refuses NaN, infinity, yes/no values, thousands separators and an ambiguous "1,234"
     (a decimal comma or a thousands comma?) with an :class:`InputError` naming the field.
     """
-    from core.messages import label_for, render
+    from core.records.messages import label_for, render
 
     label = label_for(field)
     if isinstance(text, bool):
@@ -422,7 +422,7 @@ class ProgramSettings(_Record):
         return tuple(v) if isinstance(v, list) else v
 
     def criteria(self):
-        from core.criteria import Criteria
+        from core.science.criteria import Criteria
 
         return Criteria(warm_min_mg_l=self.warm_min_mg_l, cold_min_mg_l=self.cold_min_mg_l,
                         supersaturation_percent=self.supersaturation_percent,
@@ -492,7 +492,7 @@ class Trip(_Record):
     @classmethod
     def from_document(cls, doc: dict[str, Any]) -> "Trip":
         """Validates a JSON document (current schema version) strictly, as JSON text would be."""
-        from core.atomic import canonical_json_bytes
+        from core.store.atomic import canonical_json_bytes
 
         return cls.model_validate_json(canonical_json_bytes(doc))
 
@@ -505,7 +505,7 @@ _DO_UNITS = {"mg/l": "mg/L", "mgl": "mg/L", "mg/litre": "mg/L", "mg/liter": "mg/
 
 
 def _split(text: str, field: str) -> tuple[float, str, str]:
-    from core.messages import label_for, render
+    from core.records.messages import label_for, render
 
     if isinstance(text, bool) or not isinstance(text, (str, int, float)):
         raise InputError("number.invalid", field,
@@ -525,12 +525,12 @@ def _split(text: str, field: str) -> tuple[float, str, str]:
 def measure(kind: str, text: str, *, default_unit: str | None = None, field: str | None = None) -> Quantity:
     """Builds a :class:`Quantity` from typed text, keeping the text exactly.
 
-    kind: "temp" (°C; "°F"/"F" converted), "pressure" (hPa; units from core.pressure; a bare
+    kind: "temp" (°C; "°F"/"F" converted), "pressure" (hPa; units from core.science.pressure; a bare
     number is refused), "conductivity" (µS/cm), "do" (mg/L or %). `default_unit` applies to a
     bare number (e.g. "C" for a temperature field, "mg/L" for a DO field). Raises
     :class:`InputError` with the field label, what was wrong and the accepted range or units.
     """
-    from core.messages import label_for, render
+    from core.records.messages import label_for, render
 
     field = field or kind
     label = label_for(field)
@@ -539,17 +539,17 @@ def measure(kind: str, text: str, *, default_unit: str | None = None, field: str
     plain = f"{value:.10f}".rstrip("0").rstrip(".")
     try:
         if kind == "temp":
-            from core.temperature import parse_temperature
+            from core.science.temperature import parse_temperature
 
             norm = parse_temperature(f"{plain} {unit_in}".strip(), default_unit=default_unit or "C")
             q_unit = "°C"
         elif kind == "pressure":
-            from core.pressure import parse_pressure
+            from core.science.pressure import parse_pressure
 
             norm = parse_pressure(f"{plain} {unit_in}".strip())
             q_unit = "hPa"
         elif kind == "conductivity":
-            from core.conductivity import parse_conductivity
+            from core.science.conductivity import parse_conductivity
 
             norm = parse_conductivity(f"{plain} {unit_in}".strip())
             q_unit = "µS/cm"
@@ -598,8 +598,8 @@ def schema_text() -> str:
 
 
 def write_trip_schema(path: Path | None = None) -> Path:
-    """Regenerates core/schema/trip.schema.json (run ``python -m core.models``)."""
-    from core.atomic import atomic_write_bytes
+    """Regenerates core/records/schema/trip.schema.json (run ``python -m core.records.models``)."""
+    from core.store.atomic import atomic_write_bytes
 
     path = path or SCHEMA_PATH
     atomic_write_bytes(path, schema_text().encode("utf-8"))

@@ -3,7 +3,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from core._validate import real
+from core.science._validate import real
 from core.flags import Flag, Severity
 
 __all__ = ["Criteria", "WATER_CLASSES", "do_criteria_flags"]
@@ -68,7 +68,7 @@ def do_criteria_flags(do_mg_l, percent_sat, water_class: str | None, criteria: C
     """
     crit = criteria if criteria is not None else Criteria()
     if not isinstance(crit, Criteria):
-        raise ValueError(f"criteria = {criteria!r} is not a Criteria; accepted: core.criteria.Criteria(...)")
+        raise ValueError(f"criteria = {criteria!r} is not a Criteria; accepted: core.science.criteria.Criteria(...)")
     do = real(do_mg_l, "do_mg_l", lo=0.0, hi=70.0, unit="mg/L")
     if water_class is not None:
         wc = str(water_class).strip().lower()

@@ -3,9 +3,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from core._validate import real
+from core.science._validate import real
 from core.flags import Flag, Severity
-from core.oxygen import do_saturation_mg_l, saturation_range_flags
+from core.science.oxygen import do_saturation_mg_l, saturation_range_flags
 
 __all__ = ["DEFAULT_TOLERANCE_MG_L", "CalibrationResult", "calibration_target_mg_l", "check_calibration",
            "post_trip_check"]
@@ -35,7 +35,7 @@ def calibration_target_mg_l(temp_c, pressure_hpa, method="benson-krause"):
     """The 100 % saturation target of an air calibration, mg/L.
 
     Saturation in water-saturated air (or air-saturated water) at the calibration temperature and
-    station pressure, S = 0: :func:`core.oxygen.do_saturation_mg_l` ``(temp_c, pressure_hpa, 0, method)``.
+    station pressure, S = 0: :func:`core.science.oxygen.do_saturation_mg_l` ``(temp_c, pressure_hpa, 0, method)``.
 
     Parameters
     ----------

@@ -1,6 +1,6 @@
 """Exchange: trip JSON in streamtab's documented layout, CSV exports, and site lists from CSV.
 
-The trip JSON layout is the JSON Schema in core/schema/trip.schema.json. CSV exports carry the
+The trip JSON layout is the JSON Schema in core/records/schema/trip.schema.json. CSV exports carry the
 unit in every numeric column's header (``water_temp_c``, ``station_pressure_hpa``...).
 Imports are all or nothing: a bad row or field stops the import before anything is stored.
 """
@@ -14,8 +14,8 @@ from typing import Any
 
 from pydantic import ValidationError
 
-from core.messages import label_for, problems_from_validation
-from core.models import InputError, Site, Trip, parse_number
+from core.records.messages import label_for, problems_from_validation
+from core.records.models import InputError, Site, Trip, parse_number
 
 __all__ = ["ExchangeError", "SITE_COLUMNS", "STOP_COLUMNS", "BOTTLE_COLUMNS", "import_sites_csv",
            "read_sites_csv", "import_trip_file", "read_trip_file", "export_trip_json",

@@ -4,7 +4,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 
-from core._validate import real
+from core.science._validate import real
 from core.flags import Flag, Severity
 
 __all__ = [

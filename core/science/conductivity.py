@@ -9,7 +9,7 @@ from importlib import resources
 
 import numpy as np
 
-from core._validate import choice, decimal, is_plain_scalar, real
+from core.science._validate import choice, decimal, is_plain_scalar, real
 
 __all__ = [
     "CONDUCTIVITY_UNITS", "US_CM_PER_UNIT", "COMPENSATION_METHODS", "KCL_ALPHA_PER_C", "C3515_MS_CM",
@@ -86,7 +86,7 @@ def parse_conductivity(text: str) -> float:
 
 @functools.cache
 def _f25_table() -> tuple[np.ndarray, np.ndarray]:
-    raw = resources.files("core").joinpath("data/iso7888_f25.csv").read_text(encoding="utf-8")
+    raw = resources.files("core.science").joinpath("data/iso7888_f25.csv").read_text(encoding="utf-8")
     rows = list(csv.DictReader(io.StringIO(raw)))
     t = np.array([float(r["temp_c"]) for r in rows])
     f = np.array([float(r["f25"]) for r in rows])
@@ -96,7 +96,7 @@ def _f25_table() -> tuple[np.ndarray, np.ndarray]:
 def iso7888_f25(temp_c):
     """Temperature-correction factor f25(t) of ISO 7888 / EN 27888 for natural waters, κ25 = f25·κt.
 
-    The table's values at 0, 5, …, 35 °C (core/data/iso7888_f25.csv) are joined by a cubic Hermite
+    The table's values at 0, 5, …, 35 °C (core/science/data/iso7888_f25.csv) are joined by a cubic Hermite
     curve through ln f25 with centred-difference slopes; the last segment is continued to 35.9 °C.
     Between the nodes the value is an interpolation, not the standard's own 0.1 °C entry.
 
@@ -253,7 +253,7 @@ def practical_salinity(conductivity_ms_cm, temp_c, pressure_dbar=0.0):
     float or numpy.ndarray
         Practical salinity, dimensionless. Below about 2–3 µS/cm (nearly pure water) the formula gives
         values a little under zero (down to about −0.0003); they are returned as computed, not
-        clamped (gsw returns NaN there). :func:`core.assess.assess_reading` flags that case.
+        clamped (gsw returns NaN there). :func:`core.science.assess.assess_reading` flags that case.
 
     References
     ----------

@@ -1,7 +1,7 @@
 """The analyst's bench on trip records: Winkler DO and BOD5 results on bottles, duplicates, the pending list.
 
 Everything here is pure: a Trip and bench inputs in, a new Trip out (with a
-:class:`core.models.LabResult` appended to the bottle); no disk, no clock (``now`` is passed in).
+:class:`core.records.models.LabResult` appended to the bottle); no disk, no clock (``now`` is passed in).
 
 A result is never replaced. A second titration (or BOD) of the same bottle needs a reason; it is
 appended, and the earlier result stays in place, marked superseded in its ``inputs`` and ``notes``.
@@ -30,8 +30,8 @@ from datetime import datetime, timedelta
 from typing import Any, Iterable
 
 from core.flags import Flag, Severity
-from core.models import Bottle, LabResult, Stop, Trip, new_id
-from core.winkler import SAFETY_NOTE
+from core.records.models import Bottle, LabResult, Stop, Trip, new_id
+from core.science.winkler import SAFETY_NOTE
 
 __all__ = [
     "WINKLER_ANALYTE", "BOD_ANALYTE", "WINKLER_METHOD", "BOD_METHOD", "CAUTION", "LabSettings",
@@ -51,7 +51,7 @@ BOD_METHOD = "Standard Methods 5210 B (5-day BOD, dilution)"
 WINKLER_KINDS = ("do-fixed", "duplicate")
 BOD_KINDS = ("bod", "duplicate")
 
-CAUTION = SAFETY_NOTE  # one caution text for field and lab (core.winkler)
+CAUTION = SAFETY_NOTE  # one caution text for field and lab (core.science.winkler)
 
 #: Computed Winkler DO above this is taken as a typing or unit mistake worth a stop (common practice:
 #: streams rarely exceed about 20 mg/L even when strongly supersaturated).
@@ -328,7 +328,7 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
     """Appends a Winkler DO result to a do-fixed (or duplicate) bottle of `trip`.
 
     DO = V_titrant · N · 8000 / V_original, V_original = V_titrated · (V_bottle − V_reagents) / V_bottle
-    (:func:`core.winkler.winkler_do_mg_l`). With 200 mL of original sample and 0.025 N titrant,
+    (:func:`core.science.winkler.winkler_do_mg_l`). With 200 mL of original sample and 0.025 N titrant,
     1 mL of titrant is 1 mg/L.
 
     Parameters
@@ -380,8 +380,8 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
     ----------
     Standard Methods 4500-O C (azide modification) [from memory]; US 40 CFR 136.3 Table II [from memory].
     """
-    from core.holding import holding_clock
-    from core.winkler import original_sample_ml, thiosulfate_normality, winkler_do_mg_l
+    from core.science.holding import holding_clock
+    from core.science.winkler import original_sample_ml, thiosulfate_normality, winkler_do_mg_l
 
     settings = settings or LabSettings()
     stop, bottle, flags = _analysis_bottle(trip, bottle_ref, WINKLER_KINDS, "not fixed for Winkler",
@@ -469,7 +469,7 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
         diff = do - meter
         derived["meter_difference_mg_l"] = diff
         # What the burette should have read had the meter been right: a quick check for a typo.
-        from core.winkler import expected_titrant_ml
+        from core.science.winkler import expected_titrant_ml
 
         try:
             derived["titrant_ml_expected_from_meter"] = float(
@@ -525,9 +525,9 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
                settings: LabSettings | None = None, entered: dict[str, Any] | None = None) -> LabOutcome:
     """Appends a BOD5 result (from a dilution series) to a bod (or duplicate) bottle of `trip`.
 
-    BOD5 is the mean of the valid dilutions (:func:`core.bod.bod_from_dilutions`; a dilution counts
+    BOD5 is the mean of the valid dilutions (:func:`core.science.bod.bod_from_dilutions`; a dilution counts
     with depletion ≥ 2.0 mg/L and residual DO ≥ 1.0 mg/L); seeded dilutions take the seed uptake
-    from `seed_controls` (:func:`core.bod.seed_uptake_per_ml`) unless they carry their own.
+    from `seed_controls` (:func:`core.science.bod.seed_uptake_per_ml`) unless they carry their own.
 
     Parameters
     ----------
@@ -550,7 +550,7 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
     Returns
     -------
     LabOutcome
-        Flags from core.bod (``bod.*``) plus ``lab.bod_holding_exceeded`` (stop-and-check),
+        Flags from core.science.bod (``bod.*``) plus ``lab.bod_holding_exceeded`` (stop-and-check),
         ``lab.bod_times_missing``, ``lab.bod_blank_missing``, ``lab.bod_gga_missing`` (notes),
         ``lab.bod_incubator_temp`` (warning). ``value`` is None when no dilution is valid;
         ``valid`` is False then, or when a stop-and-check flag fired.
@@ -559,8 +559,8 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
     ----------
     Standard Methods 5210 B [from memory; blank and GGA limits from a summary of the 21st edition].
     """
-    from core.bod import blank_check, bod_from_dilutions, gga_check, incubation_check, seed_uptake_per_ml
-    from core.holding import holding_clock
+    from core.science.bod import blank_check, bod_from_dilutions, gga_check, incubation_check, seed_uptake_per_ml
+    from core.science.holding import holding_clock
 
     settings = settings or LabSettings()
     stop, bottle, flags = _analysis_bottle(trip, bottle_ref, BOD_KINDS, "not a BOD sample",
@@ -831,7 +831,7 @@ def pending_bottles(trips: Iterable[Trip], now: datetime, settings: LabSettings 
     Blank bottles are left out (no analysis is defined for them here), and so are bottles collected
     after `now` (when the clocks are read at an earlier time).
     """
-    from core.holding import holding_clock
+    from core.science.holding import holding_clock
 
     settings = settings or LabSettings()
     _aware(now, "now")

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from core._validate import real
+from core.science._validate import real
 
 __all__ = ["MG_O_PER_MEQ", "original_sample_ml", "winkler_do_mg_l", "expected_titrant_ml", "thiosulfate_normality",
            "SAFETY_NOTE"]

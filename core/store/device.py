@@ -11,7 +11,7 @@ Layout of a data folder::
     quarantine/         unreadable files, moved here and never overwritten
     .lock               inter-process lock (filelock)
 
-Every write of data goes through core.atomic.atomic_write_bytes (temporary file, fsync,
+Every write of data goes through core.store.atomic.atomic_write_bytes (temporary file, fsync,
 ``os.replace``, fsync of the folder; :class:`AtomicJSONStorage` is TinyDB's storage on top of
 it), so a reader or a crash sees the old file or the new one, never a part. Index entries are
 replaced atomically without fsync: they are rebuilt from the trip files when outdated.
@@ -40,10 +40,10 @@ from tinydb import TinyDB
 from tinydb.storages import Storage
 from tinydb.table import Document
 
-from core.atomic import atomic_write_bytes, canonical_json_bytes, content_hash
-from core.messages import Problem, one_line, problems_from_validation
-from core.models import SCHEMA_VERSION, AuditEntry, ProgramSettings, Site, Stop, Trip, new_id
-from core.paths import resolve_data_dir
+from core.store.atomic import atomic_write_bytes, canonical_json_bytes, content_hash
+from core.records.messages import Problem, one_line, problems_from_validation
+from core.records.models import SCHEMA_VERSION, AuditEntry, ProgramSettings, Site, Stop, Trip, new_id
+from core.store.paths import resolve_data_dir
 
 __all__ = [
     "StoreError", "StoreLocked", "NewerSchemaError", "TripNotFound", "InvalidRecord", "StaleTrip",
@@ -236,7 +236,7 @@ def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[st
 
 
 def _migrated(doc: dict[str, Any]) -> dict[str, Any]:
-    from core.migrations import migrate
+    from core.records.migrations import migrate
 
     return migrate(doc)
 
@@ -260,7 +260,7 @@ def _non_finite_problems(doc: Any) -> list[Problem]:
     """Problems for every NaN or infinite number in a document, named by field."""
     import math
 
-    from core.messages import path_label, render
+    from core.records.messages import path_label, render
 
     out: list[Problem] = []
 
@@ -513,7 +513,7 @@ class DeviceStore:
         return None if got is None else got[1]
 
     def _load(self, trip_id: str) -> tuple[Trip, dict[str, Any]]:
-        from core.migrations import migrate
+        from core.records.migrations import migrate
 
         got = self._read_trip_file(trip_id)
         if got is None:
@@ -545,7 +545,7 @@ class DeviceStore:
     def trip_document(self, trip_id: str) -> dict[str, Any]:
         """The stored JSON document of a trip, as exchanged with hubs (no migration applied).
 
-        ``core.atomic.canonical_json_bytes`` of it is the wire form.
+        ``core.store.atomic.canonical_json_bytes`` of it is the wire form.
         """
         got = self._read_trip_file(trip_id)
         if got is None:
@@ -647,7 +647,7 @@ class DeviceStore:
         trip is returned. Otherwise it is written with revision max(stored, incoming) + 1 and an
         audit entry. Raises InvalidRecord, NewerSchemaError (nothing written), StoreLocked.
         """
-        from core.migrations import migrate
+        from core.records.migrations import migrate
 
         if not isinstance(doc, dict):
             raise InvalidRecord("A trip document must be a JSON object.")
@@ -694,7 +694,7 @@ class DeviceStore:
                                 int(stored.get("revision", 0)))
 
     def _stored_or_none(self, trip_id: str) -> dict[str, Any] | None:
-        from core.migrations import migrate
+        from core.records.migrations import migrate
 
         raw = self._read_trip_doc_raw(trip_id)
         if raw is None:
@@ -731,7 +731,7 @@ class DeviceStore:
 
     def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int) -> Trip:
         """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held."""
-        from core.qc import derive
+        from core.rules.qc import derive
 
         sites = self.sites_by_id()
         settings = self.settings()

@@ -6,19 +6,19 @@ Rules (code — severity — fires when):
 
 =============================  ==============  =================================================
 pressure.sea_level_adjusted    warning         station pressure far above the standard
-                                               atmosphere at the site's elevation (core.pressure)
+                                               atmosphere at the site's elevation (core.science.pressure)
 do.supersaturated              warning         % saturation above the program threshold
 do.below_criterion             warning         DO below the site's / program's criterion
 do.hypoxic                     stop-and-check  DO below the hypoxia threshold
 calibration.out_of_tolerance   stop-and-check  pre-trip calibration reading far from the 100 %
-                                               target (core.calibration)
+                                               target (core.science.calibration)
 calibration.missing            warning         stops recorded but no pre-trip calibration
-calibration.post_trip_drift    stop-and-check  post-trip check outside tolerance (core.calibration)
+calibration.post_trip_drift    stop-and-check  post-trip check outside tolerance (core.science.calibration)
 bottle.duplicate_label         stop-and-check  a bottle ID used twice in the trip or on the device
 bottle.not_fixed               warning         a DO (Winkler) bottle without a fixing time
-holding.expired / holding.soon (core.holding)  holding time passed / less than 25 % left
+holding.expired / holding.soon (core.science.holding)  holding time passed / less than 25 % left
 temp.out_of_range              warning         water temperature outside the plausible range
-temp.looks_fahrenheit          (core.temperature) a °C value that looks like °F
+temp.looks_fahrenheit          (core.science.temperature) a °C value that looks like °F
 temp.jump                      warning         temperature jumps implausibly between stops
 conductivity.out_of_range      warning         conductivity outside the plausible range
 conductivity.jump              warning         conductivity changes by more than a factor
@@ -26,7 +26,7 @@ stop.missing_required          stop-and-check  a closed stop lacks temperature, 
 stop.unknown_site              warning         the stop names a site not in the site list
 =============================  ==============  =================================================
 
-Thresholds are program settings (core.models.ProgramSettings), marked common practice there.
+Thresholds are program settings (core.records.models.ProgramSettings), marked common practice there.
 """
 from __future__ import annotations
 
@@ -35,7 +35,7 @@ from datetime import datetime
 from typing import Any, Iterable
 
 from core.flags import Flag, Severity
-from core.models import (Calibration, Derived, FlagRecord, ProgramSettings, Site, Stop, Trip)
+from core.records.models import (Calibration, Derived, FlagRecord, ProgramSettings, Site, Stop, Trip)
 
 __all__ = ["TRIP_KEY", "RULE_CODES", "derive", "derive_trip", "derive_document", "derive_basis", "derive_stop", "derive_calibration",
            "stop_flags", "trip_flags", "trip_level_flags", "core_version"]
@@ -85,7 +85,7 @@ def derive_stop(stop: Stop, site: Site | None, settings: ProgramSettings) -> Der
     """Saturation target, % saturation, salinity and science flags for one stop (None without T and P)."""
     if stop.temp is None or stop.pressure is None:
         return None
-    from core.assess import assess_reading
+    from core.science.assess import assess_reading
 
     kwargs: dict[str, Any] = {"method": settings.method}
     if stop.conductivity is not None:
@@ -118,7 +118,7 @@ def derive_calibration(cal: Calibration | None, settings: ProgramSettings, *, po
     """The calibration with its target, difference, verdict, method and core version filled in."""
     if cal is None:
         return None
-    from core.calibration import check_calibration, post_trip_check
+    from core.science.calibration import check_calibration, post_trip_check
 
     fn = post_trip_check if post else check_calibration
     tolerance = cal.tolerance_mg_l if cal.tolerance_mg_l is not None else settings.calibration_tolerance_mg_l
@@ -139,7 +139,7 @@ def derive_basis(site: Site | None, settings: ProgramSettings) -> str:
     """Fingerprint of what a stop's derived values depend on besides its own inputs."""
     import hashlib
 
-    from core.atomic import canonical_json_bytes
+    from core.store.atomic import canonical_json_bytes
 
     basis = {"site": site.model_dump(mode="json") if site is not None else None,
              "settings": settings.model_dump(mode="json"), "core": core_version()}
@@ -203,7 +203,7 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
 
 
 def _json(doc: Any) -> bytes:
-    from core.atomic import canonical_json_bytes
+    from core.store.atomic import canonical_json_bytes
 
     return canonical_json_bytes(doc)
 
@@ -250,7 +250,7 @@ def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Si
                            f"Site {stop.site_id} is not in the site list, so its elevation and criteria are unknown.",
                            "Import the site list or correct the site code.", "site_id"))
     if site is not None and stop.pressure is not None:
-        from core.pressure import sea_level_adjusted_flag
+        from core.science.pressure import sea_level_adjusted_flag
 
         try:
             f = sea_level_adjusted_flag(stop.pressure.value, site.elevation_m)
@@ -261,7 +261,7 @@ def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Si
 
     # Criteria and supersaturation, from the derived values
     if d is not None and (d.do_mg_l is not None or d.percent_saturation is not None):
-        from core.criteria import do_criteria_flags
+        from core.science.criteria import do_criteria_flags
 
         try:
             crit, water_class = _criteria_for(site, settings)
@@ -274,7 +274,7 @@ def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Si
         t = stop.temp.value
         _plausible(flags, "temp", "Water temperature", t, settings.temp_plausible_c, "°C",
                    "Check the probe and the unit, and re-read if you can.")
-        from core.temperature import fahrenheit_hint
+        from core.science.temperature import fahrenheit_hint
 
         try:
             f = fahrenheit_hint(t)
@@ -335,7 +335,7 @@ def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Si
                                "fixed_at"))
         kind = _holding_kind(b.kind)
         if kind is not None and not b.lab_results:
-            from core.holding import holding_clock
+            from core.science.holding import holding_clock
 
             try:
                 clock = holding_clock(kind, b.collected_at, now, fixed_at=b.fixed_at,

@@ -5,7 +5,7 @@ import math
 
 import numpy as np
 
-from core._validate import choice, is_plain_scalar, real
+from core.science._validate import choice, is_plain_scalar, real
 from core.flags import Flag, Severity
 
 __all__ = [
