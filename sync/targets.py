@@ -23,7 +23,7 @@ from pathlib import Path
 from typing import Protocol
 from urllib.parse import quote, unquote, urlsplit
 
-from core.store.atomic import atomic_write_bytes, fsync_dir
+from core.store.atomic import EXPORT_MODE, atomic_write_bytes, fsync_dir
 from sync import errors
 from sync.layout import (INCOMING, TRIPS, canonical_trip_id, device_key, incoming_name,
                          name_matches, parse_revision_name, trip_dir)
@@ -148,7 +148,9 @@ class FolderTarget:
         final_dir = self._trip_path(year, trip_id)
         final = final_dir / name
         try:
-            atomic_write_bytes(tmp, data)
+            # hub files are shared (an office drive): the permissions the umask gives any new
+            # file, not the owner-only mode of the device's own files
+            atomic_write_bytes(tmp, data, mode=EXPORT_MODE)
             final_dir.mkdir(parents=True, exist_ok=True)
             try:
                 os.link(tmp, final)

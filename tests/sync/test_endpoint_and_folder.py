@@ -2,6 +2,7 @@
 conflict) and the folder target (atomic writes, names from UUIDs only, nothing overwritten)."""
 import os
 import shutil
+import stat
 
 import pytest
 
@@ -139,3 +140,19 @@ def test_background_push_reports_progress_and_the_result_from_its_thread(tmp_pat
     done.clear()
     sync.run_in_background(sync.push, device_a, "gopher://x", session=dav_session(), on_done=on_done)
     assert done.wait(30) and isinstance(result["error"], errors.ConfigError)
+
+
+def test_folder_hub_files_get_the_umask_permissions(tmp_path, device_a):
+    """Under the usual umask 022 hub files are 0644, readable by the office's other accounts
+    (common practice for shared drives), never owner-only."""
+    hub = tmp_path / "office-drive"
+    hub.mkdir()
+    t = new_trip(device_a)
+    old = os.umask(0o022)
+    try:
+        sync.push(device_a, str(hub), session=dav_session())
+    finally:
+        os.umask(old)
+    files = [p for p in (hub / "trips").rglob("*") if p.is_file()]
+    assert files and hub_files(hub)[t.id]
+    assert {stat.S_IMODE(p.stat().st_mode) for p in files} == {0o644}
