@@ -25,7 +25,7 @@ def ctl(tmp_path):
     c.new_stop()
     c.set_stop_field("site", "LK-01")
     yield c
-    c.worker.close()
+    c.worker.flush()
 
 
 def test_view_matches_core_assess(ctl):
@@ -71,7 +71,7 @@ def test_duplicate_bottle_refused_in_trip_and_across_device(ctl, tmp_path):
     other.set_stop_field("site", "LK-02")
     msg = other.add_bottle("B-1", "do_fixed", True)
     assert msg and "another trip" in msg
-    other.worker.close()
+    other.worker.flush()
 
 
 def test_close_blocked_until_required_fields(ctl):
@@ -105,7 +105,7 @@ def test_refused_text_survives_a_restart(ctl):
     screen, stop_id = again.resume_point()
     assert screen == "stop" and stop_id == ctl.stop_id
     assert again.stop.temp_text == "68"
-    again.worker.close()
+    again.worker.flush()
 
 
 def test_holding_clocks_most_urgent_first(ctl):
@@ -167,7 +167,7 @@ def test_open_conflicts_reach_the_attention_list(ctl):
 
 
 def test_arrival_time_typed_as_hh_mm_or_full(ctl):
-    from mobile.app.controller import parse_when
+    from mobile.app.views import parse_when
 
     base = datetime(2026, 6, 9, 8, 0, tzinfo=timezone.utc)
     t = parse_when("14:05", base)
