@@ -27,6 +27,52 @@ __all__ = ["AppController"]
 # sampling are fixed like their parent Winkler bottles (common practice).
 HOLDING_RULE = {"do_fixed": "do_winkler", "duplicate": "do_winkler", "blank": "do_winkler", "bod": "bod"}
 
+# The program limits the settings screen edits: the ProgramSettings field, its words and unit on screen.
+# Their accepted ranges are the record's own (core.records.models.ProgramSettings), read by setting_range.
+SETTING_FIELDS = {"calibration_tolerance_mg_l": ("Calibration tolerance", "mg/L"),
+                  "warm_min_mg_l": ("Warm-water minimum", "mg/L"),
+                  "cold_min_mg_l": ("Cold-water minimum", "mg/L"),
+                  "supersaturation_percent": ("Supersaturation limit", "%")}
+
+
+def setting_range(name: str) -> tuple[float | None, bool, float | None, bool]:
+    """(low, low included, high, high included) of a ProgramSettings field, from the record's own bounds."""
+    from core.records.models import ProgramSettings
+
+    lo = hi = None
+    lo_in = hi_in = True
+    for m in ProgramSettings.model_fields[name].metadata:
+        if getattr(m, "ge", None) is not None:
+            lo, lo_in = float(m.ge), True
+        if getattr(m, "gt", None) is not None:
+            lo, lo_in = float(m.gt), False
+        if getattr(m, "le", None) is not None:
+            hi, hi_in = float(m.le), True
+        if getattr(m, "lt", None) is not None:
+            hi, hi_in = float(m.lt), False
+    return lo, lo_in, hi, hi_in
+
+
+def setting_problem(name: str, text: str) -> tuple[float | None, str | None]:
+    """(value, None) for a program limit typed on the settings screen, or (None, one sentence why not)."""
+    from mobile.app.numeric import DecimalError
+
+    label, unit = SETTING_FIELDS[name]
+    lo, lo_in, hi, hi_in = setting_range(name)
+    span = (f"from {lo:g} to {hi:g} {unit}" if lo_in and hi_in else
+            f"{'from' if lo_in else 'more than'} {lo:g} and {'up to' if hi_in else 'below'} {hi:g} {unit}")
+    try:
+        value = parse_decimal(text, label=label)
+    except DecimalError as exc:
+        return None, str(exc)
+    if value is None:
+        return None, f"{label} is empty; type a value {span}."
+    ok = ((lo is None or (value >= lo if lo_in else value > lo))
+          and (hi is None or (value <= hi if hi_in else value < hi)))
+    if not ok:
+        return None, f"{label} {value:g} {unit} is outside the accepted range; type a value {span}."
+    return value, None
+
 
 class AppController:
     """The app's state and logic. `store` is a core.store.DeviceStore (or anything with its methods)."""
@@ -113,6 +159,29 @@ class AppController:
         self.store.save_settings(st)
         device_files.write_local_prefs(self.store.data_dir, prefs)
         self.prefs = prefs
+
+    def save_settings_form(self, units: dict[str, str], limits: dict[str, str], sync_target: str) -> str | None:
+        """Saves the settings screen (units, the program limits as typed, the hub); returns a refusal or None.
+
+        `limits` maps each SETTING_FIELDS name to its text. Nothing is saved when one limit is refused.
+        """
+        values: dict[str, float] = {}
+        for name in SETTING_FIELDS:
+            value, problem = setting_problem(name, limits.get(name, ""))
+            if problem:
+                return problem
+            values[name] = value
+        prefs = AppPrefs(temp_unit=units["temp_unit"], pressure_unit=units["pressure_unit"],
+                         cond_unit=units["cond_unit"], do_unit=units["do_unit"],
+                         tolerance_mg_l=values["calibration_tolerance_mg_l"],
+                         warm_min_mg_l=values["warm_min_mg_l"], cold_min_mg_l=values["cold_min_mg_l"],
+                         supersaturation_percent=values["supersaturation_percent"],
+                         sync_target=sync_target.strip(), method=self.prefs.method)
+        try:
+            self.save_prefs(prefs)
+        except Exception as exc:  # noqa: BLE001 - store refusals are one sentence
+            return f"Settings not saved: {exc}"
+        return None
 
     def sync_states(self) -> dict[str, str]:
         """trip id -> "synced" / "changed" / "never pushed" from the sync outbox (empty without sync)."""

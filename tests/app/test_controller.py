@@ -221,3 +221,23 @@ def test_a_failed_save_is_reported_and_written_next_time(ctl):
     assert ctl.flush(10)                    # what on_pause or the next trigger does
     assert ctl.save_errors == []
     assert flaky.load_trip(ctl.trip.id).stops[0].temp.text == "12,4 °C"
+
+
+def test_settings_limits_are_the_records_own(ctl):
+    """The settings screen accepts what ProgramSettings accepts and refuses the rest, naming the field."""
+    from core.records.models import ProgramSettings
+
+    units = {"temp_unit": "C", "pressure_unit": "hPa", "cond_unit": "uS/cm", "do_unit": "mg/L"}
+    ok = {"calibration_tolerance_mg_l": "0,5", "warm_min_mg_l": "5", "cold_min_mg_l": "6.5",
+          "supersaturation_percent": "130"}
+    hi = ProgramSettings.model_fields["calibration_tolerance_mg_l"].metadata[-1].le
+    assert ctl.save_settings_form(units, {**ok, "calibration_tolerance_mg_l": f"{hi:g}"}, "") is None
+    assert ctl.store.settings().calibration_tolerance_mg_l == hi
+    assert ctl.save_settings_form(units, ok, "") is None
+    assert ctl.store.settings().calibration_tolerance_mg_l == 0.5
+    for name, text, words in (("calibration_tolerance_mg_l", "0", "Calibration tolerance"),
+                              ("supersaturation_percent", "99", "Supersaturation limit"),
+                              ("warm_min_mg_l", "", "Warm-water minimum")):
+        msg = ctl.save_settings_form(units, {**ok, name: text}, "")
+        assert msg and msg.startswith(words), msg
+    assert ctl.store.settings().supersaturation_percent == 130   # a refusal saved nothing

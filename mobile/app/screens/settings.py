@@ -3,8 +3,6 @@ from __future__ import annotations
 
 from kivy.properties import ObjectProperty, StringProperty
 
-from mobile.app.device_files import AppPrefs
-from mobile.app.numeric import DecimalError, parse_decimal
 from mobile.app.screens.base import BaseScreen, ctl
 
 __all__ = ["SettingsScreen"]
@@ -37,29 +35,9 @@ class SettingsScreen(BaseScreen):
         self.message = ""
 
     def save(self):
-
-        try:
-            tol = parse_decimal(self.tolerance_entry.text, label="Calibration tolerance")
-            warm = parse_decimal(self.warm_entry.text, label="Warm-water minimum")
-            cold = parse_decimal(self.cold_entry.text, label="Cold-water minimum")
-            sup = parse_decimal(self.super_entry.text, label="Supersaturation limit")
-        except DecimalError as exc:
-            self.message = str(exc)
-            return
-        checks = [("Calibration tolerance", tol, 0.01, 2.0, "mg/L"), ("Warm-water minimum", warm, 0, 15, "mg/L"),
-                  ("Cold-water minimum", cold, 0, 15, "mg/L"), ("Supersaturation limit", sup, 100, 200, "%")]
-        for label, v, lo, hi, unit in checks:
-            if v is None or not lo <= v <= hi:
-                self.message = f"{label} must be between {lo:g} and {hi:g} {unit}."
-                return
-        old = ctl().prefs
-        prefs = AppPrefs(temp_unit=self.temp_unit, pressure_unit=self.pressure_unit,
-                         cond_unit=self.cond_unit, do_unit=self.do_unit, tolerance_mg_l=tol,
-                         warm_min_mg_l=warm, cold_min_mg_l=cold, supersaturation_percent=sup,
-                         sync_target=self.target_entry.text.strip(), method=old.method)
-        try:
-            ctl().save_prefs(prefs)
-        except Exception as exc:  # noqa: BLE001 - store refusals are one sentence
-            self.message = f"Settings not saved: {exc}"
-            return
-        self.message = "✓ Settings saved."
+        units = {"temp_unit": self.temp_unit, "pressure_unit": self.pressure_unit,
+                 "cond_unit": self.cond_unit, "do_unit": self.do_unit}
+        limits = {"calibration_tolerance_mg_l": self.tolerance_entry.text, "warm_min_mg_l": self.warm_entry.text,
+                  "cold_min_mg_l": self.cold_entry.text, "supersaturation_percent": self.super_entry.text}
+        refusal = ctl().save_settings_form(units, limits, self.target_entry.text)
+        self.message = refusal or "✓ Settings saved."
