@@ -19,7 +19,7 @@ from pathlib import Path
 from typing import Any, Callable, Iterable
 
 from core.store.atomic import atomic_write_bytes, canonical_json_bytes
-from sync import errors
+from sync import errors, program
 from sync.layout import canonical_trip_id, revision_name, trip_year
 from sync.merge import describe_conflict
 from sync.outbox import Outbox, OutboxEntry, hubs
@@ -60,6 +60,8 @@ class PushReport:
     failed: int = 0
     per_trip: list[TripResult] = field(default_factory=list)
     target: str = ""
+    #: readable lines about the site list and the program settings (published, or why not)
+    program: list[str] = field(default_factory=list)
 
     @property
     def complete(self) -> bool:
@@ -69,7 +71,7 @@ class PushReport:
     def to_dict(self) -> dict[str, Any]:
         return {"pushed": self.pushed, "unchanged": self.unchanged, "conflicts": self.conflicts,
                 "failed": self.failed, "target": self.target,
-                "per_trip": [asdict(t) for t in self.per_trip]}
+                "per_trip": [asdict(t) for t in self.per_trip], "program": list(self.program)}
 
 
 @dataclass
@@ -81,6 +83,8 @@ class PullReport:
     unchanged: int = 0
     failed: int = 0
     source: str = ""
+    #: readable lines about the site list and the program settings brought from the hub
+    program: list[str] = field(default_factory=list)
 
     @property
     def complete(self) -> bool:
@@ -89,7 +93,7 @@ class PullReport:
     def to_dict(self) -> dict[str, Any]:
         return {"pulled": self.pulled, "merged": self.merged, "quarantined": self.quarantined,
                 "unchanged": self.unchanged, "failed": self.failed, "source": self.source,
-                "per_trip": [asdict(t) for t in self.per_trip]}
+                "per_trip": [asdict(t) for t in self.per_trip], "program": list(self.program)}
 
 
 @dataclass
@@ -287,6 +291,7 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
     actions = plan(local, remote)
     total, done, failing = len(actions), 0, 0
     try:
+        report.program = _push_program(store, tgt, session, outbox)
         for act in actions:
             tid = act.trip_id
             if act.action is Action.SKIP:
@@ -436,6 +441,7 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
     report = PullReport(source=tgt.url)
     outbox = Outbox(store.data_dir, tgt.key, tgt.url)
     try:
+        report.program = _pull_program(store, tgt, session, outbox)
         files = session.retrying(tgt.list_all)
         by_trip: dict[str, list[RemoteFile]] = {}
         for f in files:
@@ -554,6 +560,135 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
     msg = "fields changed on both sides need attention" if conflicts else ""
     return TripResult(tid, kind, msg,
                       revision=rev, conflicts=_conflict_lines(conflicts))
+
+
+# --- the program's tables: site list and settings (sync/program.py) ------------------------------
+_TABLE_WORDS = {"sites": "site list", "settings": "program settings"}
+#: Errors that leave a table for the next sync (the trips go on).
+_TABLE_ERRORS = (errors.RetryableError, errors.Rejected, errors.IntegrityError, errors.BadHubDocument)
+
+
+def _program_state(outbox: Outbox) -> dict[str, dict[str, list[str]]]:
+    """Per table, the hub files this device has published or merged (`seen`) or found bad."""
+    state: dict[str, dict[str, list[str]]] = {k: {"seen": [], "bad": []} for k in program.KINDS}
+    try:
+        raw = json.loads((outbox.folder / "program.json").read_bytes())
+    except (OSError, ValueError):
+        return state              # lost or damaged: only costs a listing and a re-read
+    for kind in program.KINDS:
+        entry = raw.get(kind) if isinstance(raw, dict) else None
+        if isinstance(entry, dict):
+            for key in ("seen", "bad"):
+                names = entry.get(key)
+                if isinstance(names, list):
+                    state[kind][key] = [n for n in names if isinstance(n, str)]
+    return state
+
+
+def _save_program_state(outbox: Outbox, state: dict) -> None:
+    try:
+        atomic_write_bytes(outbox.folder / "program.json", canonical_json_bytes(state))
+    except OSError:
+        log.warning("could not record the program tables seen at the hub", exc_info=True)
+
+
+def _local_table(store: Any, kind: str) -> bytes | None:
+    """The device's table in its published form; None when there is nothing to publish (no
+    sites, or settings never saved on this device)."""
+    if kind == "sites":
+        sites = store.sites()
+        return program.sites_bytes(s.model_dump(mode="json") for s in sites) if sites else None
+    settings = store.settings()
+    if getattr(settings, "updated_at", None) is None:
+        return None
+    return program.settings_bytes(settings.model_dump(mode="json"))
+
+
+def _push_program(store: Any, tgt: Target, session: Session, outbox: Outbox) -> list[str]:
+    """Publishes the site list and the settings when the hub does not hold them yet."""
+    if not tgt.can_list or not hasattr(tgt, "write_program"):
+        return []                 # an intake endpoint takes trips only
+    state = _program_state(outbox)
+    lines: list[str] = []
+    for kind in program.KINDS:
+        data = _local_table(store, kind)
+        if data is None:
+            continue
+        name = program.program_name(data)
+        if name in state[kind]["seen"]:
+            continue              # published or merged before: no request at all
+        try:
+            if name not in tgt.list_program(kind):
+                tgt.write_program(kind, name, data, session.device_id or "")
+                lines.append(f"{_TABLE_WORDS[kind]} published")
+        except _TABLE_ERRORS as exc:
+            lines.append(f"{_TABLE_WORDS[kind]} not published — will retry: {exc}")
+            continue
+        state[kind]["seen"].append(name)
+    _save_program_state(outbox, state)
+    return lines
+
+
+def _pull_program(store: Any, tgt: Target, session: Session, outbox: Outbox) -> list[str]:
+    """Merges every site list and settings file at the hub this device has not seen into the
+    store: per site id (and for the settings) the newest entry wins (sync/program.py)."""
+    if not tgt.can_list or not hasattr(tgt, "list_program"):
+        return []
+    from core.records.models import ProgramSettings, Site
+
+    state = _program_state(outbox)
+    lines: list[str] = []
+    for kind in program.KINDS:
+        known = set(state[kind]["seen"]) | set(state[kind]["bad"])
+        try:
+            names = sorted(tgt.list_program(kind) - known)
+        except _TABLE_ERRORS as exc:
+            lines.append(f"{_TABLE_WORDS[kind]} not brought — will retry: {exc}")
+            continue
+        incoming: list[dict] = []
+        read: list[str] = []
+        for name in names:
+            try:
+                parsed = program.parse_program_file(kind, tgt.read_program(kind, name, session.max_document_bytes))
+            except errors.RetryableError as exc:
+                lines.append(f"{_TABLE_WORDS[kind]} file {name} not read — will retry: {exc}")
+                continue
+            except (errors.IntegrityError, errors.BadHubDocument, errors.Rejected, ValueError) as exc:
+                lines.append(f"{_TABLE_WORDS[kind]} file {name} left aside: {exc}")
+                state[kind]["bad"].append(name)
+                continue
+            read.append(name)
+            for entry in (parsed if kind == "sites" else [parsed]):
+                try:   # each entry must be a valid record for this build
+                    model = Site if kind == "sites" else ProgramSettings
+                    checked = model.model_validate_json(canonical_json_bytes(entry))
+                except Exception:  # noqa: BLE001 - pydantic's or JSON's refusal: skip the entry
+                    lines.append(f"{_TABLE_WORDS[kind]} file {name}: an entry this build cannot read was left aside")
+                    continue
+                if kind == "settings" and checked.schema_version > ProgramSettings().schema_version:
+                    continue
+                incoming.append(entry)
+        if incoming:
+            with store.locked():
+                if kind == "sites":
+                    local = {s.id: s.model_dump(mode="json") for s in store.sites()}
+                    merged = program.merge_sites(local, incoming)
+                    changed = [Site.model_validate_json(canonical_json_bytes(e)) for sid, e in sorted(merged.items())
+                               if local.get(sid) != e]
+                    if changed:
+                        store.save_sites(changed)
+                        lines.append(f"site list: {len(changed)} site(s) updated from the hub "
+                                     f"({', '.join(s.id for s in changed[:6])}{' ...' if len(changed) > 6 else ''})")
+                else:
+                    current = store.settings()
+                    local = current.model_dump(mode="json") if current.updated_at is not None else None
+                    merged = program.merge_settings(local, incoming)
+                    if merged is not None and merged != local:
+                        store.save_settings(ProgramSettings.model_validate_json(canonical_json_bytes(merged)))
+                        lines.append("program settings updated from the hub")
+        state[kind]["seen"].extend(read)
+    _save_program_state(outbox, state)
+    return lines
 
 
 # --- status --------------------------------------------------------------------------------------

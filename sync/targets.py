@@ -17,6 +17,7 @@ from __future__ import annotations
 import errno
 import hashlib
 import os
+import uuid
 import xml.etree.ElementTree as ET
 from dataclasses import dataclass
 from pathlib import Path
@@ -27,6 +28,8 @@ from core.store.atomic import EXPORT_MODE, atomic_write_bytes, fsync_dir
 from sync import errors
 from sync.layout import (INCOMING, TRIPS, canonical_trip_id, device_key, incoming_name,
                          name_matches, parse_revision_name, trip_dir)
+from sync.program import is_program_name, program_dir
+from sync.program import name_matches as program_name_matches
 from sync.session import Session, redact_url
 
 __all__ = ["RemoteFile", "WriteResult", "Target", "FolderTarget", "WebDavTarget", "PostTarget",
@@ -186,6 +189,58 @@ class FolderTarget:
             os.replace(tmp, final)
             return True
         raise errors.IntegrityError(f"hub file {final.name} holds other content than its name says")
+
+
+    # program tables (sync/program.py): the same write-once dance as revisions
+    def list_program(self, kind: str) -> frozenset[str]:
+        try:
+            names = os.listdir(self.root / program_dir(kind))
+        except FileNotFoundError:
+            return frozenset()
+        except OSError as exc:
+            raise errors.Unreachable(f"hub folder {self.url} cannot be read ({exc.strerror})") from None
+        return frozenset(n for n in names if is_program_name(n))
+
+    def read_program(self, kind: str, name: str, max_bytes: int) -> bytes:
+        where = program_dir(kind) + name
+        with open(self.root / where, "rb") as fh:
+            data = fh.read(max_bytes + 1)
+        if len(data) > max_bytes:
+            raise _too_big(where, max_bytes)
+        if not program_name_matches(name, data):
+            raise errors.IntegrityError(f"hub copy {where} does not match the content hash in its name")
+        return data
+
+    def write_program(self, kind: str, name: str, data: bytes, device_id: str) -> bool:
+        """Publishes one table file; False when the hub already held these bytes."""
+        final_dir = self.root / program_dir(kind)
+        final = final_dir / name
+        tmp = self.root / INCOMING / device_key(device_id) / f"{kind}.{uuid.uuid4().hex[:12]}.part"
+        try:
+            atomic_write_bytes(tmp, data, mode=EXPORT_MODE)
+            final_dir.mkdir(parents=True, exist_ok=True)
+            try:
+                os.link(tmp, final)
+                created = True
+            except FileExistsError:
+                created = final.read_bytes() != data
+                if created:                          # damaged: only these bytes belong there
+                    os.replace(tmp, final)
+            except OSError as exc:
+                if exc.errno not in (errno.EPERM, errno.ENOTSUP, errno.EOPNOTSUPP, errno.EXDEV, errno.EMLINK):
+                    raise
+                created = not final.exists() or final.read_bytes() != data
+                if created:
+                    os.replace(tmp, final)
+            fsync_dir(final_dir)
+        except OSError as exc:
+            raise errors.Unreachable(f"hub folder {self.url} cannot be written ({exc.strerror})") from None
+        finally:
+            try:
+                os.unlink(tmp)
+            except FileNotFoundError:
+                pass
+        return created
 
     def close(self) -> None:
         pass
@@ -425,6 +480,71 @@ class WebDavTarget:
                 continue
             raise errors.Rejected(f"the hub refused MOVE to {dst_rel} ({code})", code)
         raise errors.Rejected(f"the hub refused MOVE to {dst_rel}: its collection cannot be made")
+
+
+    # program tables (sync/program.py): PUT to incoming/, MOVE with Overwrite: F, like revisions
+    def list_program(self, kind: str) -> frozenset[str]:
+        entries = self._propfind(program_dir(kind), "1")
+        names = (p.rstrip("/").rsplit("/", 1)[-1] for p, col, _ in entries or [] if not col)
+        return frozenset(n for n in names if is_program_name(n))
+
+    def read_program(self, kind: str, name: str, max_bytes: int) -> bytes:
+        where = program_dir(kind) + name
+        data = self._get_bytes(where, max_bytes)
+        if data is None:
+            raise errors.Rejected(f"hub file {where} disappeared while reading", 404)
+        if not program_name_matches(name, data):
+            raise errors.IntegrityError(f"hub copy {where} does not match the content hash in its name")
+        return data
+
+    def write_program(self, kind: str, name: str, data: bytes, device_id: str) -> bool:
+        """Publishes one table file; False when the hub already held these bytes."""
+        folder = program_dir(kind)
+        final_rel = folder + name
+        self._mkcol(folder)
+
+        def put() -> str:
+            tmp_rel = f"{INCOMING}/{device_key(device_id)}/{kind}.{uuid.uuid4().hex[:12]}.part"
+            for _ in range(2):
+                resp = self.session.request("PUT", self._u(tmp_rel), body=data,
+                                            headers={"Content-Type": "application/json",
+                                                     "If-None-Match": "*"})
+                resp.close()
+                if resp.status_code in (200, 201, 204):
+                    return tmp_rel
+                if resp.status_code == 409:
+                    self._made.discard(f"{INCOMING}/{device_key(device_id)}/")
+                    self._mkcol(f"{INCOMING}/{device_key(device_id)}/")
+                    continue
+                raise errors.Rejected(f"the hub refused an upload to {INCOMING}/ ({resp.status_code})",
+                                      resp.status_code)
+            raise errors.Rejected(f"the hub refused to create {INCOMING}/ for uploads")
+
+        def move(tmp_rel: str, overwrite: bool) -> int:
+            resp = self.session.request("MOVE", self._u(tmp_rel),
+                                        headers={"Destination": self._u(final_rel),
+                                                 "Overwrite": "T" if overwrite else "F"})
+            resp.close()
+            if resp.status_code not in (201, 204, 404, 412):
+                raise errors.Rejected(f"the hub refused MOVE to {final_rel} ({resp.status_code})",
+                                      resp.status_code)
+            return resp.status_code
+
+        tmp_rel = self.session.retrying(put)
+        code = self.session.retrying(lambda: move(tmp_rel, False))
+        if code in (201, 204):
+            return True
+        try:
+            existing = self._get_bytes(final_rel, len(data) + 1)
+        except errors.Rejected:
+            existing = b""
+        if existing == data:
+            return code == 404
+        if code == 412:                  # a damaged copy under this content-addressed name
+            tmp_rel = self.session.retrying(put)
+            self.session.retrying(lambda: move(tmp_rel, True))
+            return True
+        raise errors.Unreachable(f"hub file {final_rel} could not be confirmed after MOVE; will retry")
 
     def close(self) -> None:
         pass

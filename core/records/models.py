@@ -16,7 +16,7 @@ from pydantic_core import PydanticCustomError
 
 __all__ = [
     "SCHEMA_VERSION", "BOTTLE_KINDS", "WATER_CLASSES", "LIMITS",
-    "Quantity", "FlagRecord", "Derived", "Site", "Calibration", "LabResult", "Bottle", "Stop",
+    "Quantity", "FlagRecord", "Derived", "Site", "SiteSnapshot", "Calibration", "LabResult", "Bottle", "Stop",
     "AuditEntry", "ConflictSide", "Conflict", "ProgramSettings", "Signature", "CustodyRecord", "Trip",
     "SIGNATURE_LIMITS",
     "InputError", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
@@ -222,6 +222,8 @@ class Site(_Record):
     #: Site-specific supersaturation threshold (%), overriding the program's default.
     supersaturation_percent: float | None = None
     notes: str = Field(default="", max_length=2000)
+    #: When the site's entry last changed (set by the store); sync keeps the newest entry per id.
+    updated_at: AwareDatetime | None = None
 
     @field_validator("elevation_m")
     @classmethod
@@ -325,6 +327,27 @@ class Bottle(_Record):
         return v.strip()
 
 
+class SiteSnapshot(_Record):
+    """The site facts a stop's checks used when the stop was saved: elevation, water class and the
+    criteria that applied (the site's own, else the program's for its class). Set by the store the
+    first time the stop is saved with its site known; QC judges the stop by it, so a later edit of
+    the site list or the program's criteria does not re-judge old records."""
+
+    site_id: str = Field(min_length=1, max_length=32)
+    name: str = Field(default="", max_length=120)
+    elevation_m: float
+    water_class: Literal["warm", "cold"] | None = None
+    #: The DO criterion that applied (mg/L); None: no below-criterion check.
+    min_do_mg_l: float | None = None
+    #: The supersaturation threshold that applied (%).
+    supersaturation_percent: float | None = None
+
+    @field_validator("elevation_m")
+    @classmethod
+    def _elev(cls, v: float) -> float:
+        return _check_range(v, "elevation")
+
+
 class Stop(_Record):
     """A site visit: readings as typed and normalised, bottles, notes; `derived` is set by the store."""
 
@@ -343,6 +366,8 @@ class Stop(_Record):
     flow: str = Field(default="", max_length=400)
     closed_at: AwareDatetime | None = None
     derived: Derived | None = None
+    #: The site facts this stop's checks use (see SiteSnapshot); set by the store.
+    site_snapshot: SiteSnapshot | None = None
 
     @field_validator("temp")
     @classmethod
@@ -416,6 +441,8 @@ class ProgramSettings(_Record):
     #: Jumps between consecutive stops that ask for a second look (common practice).
     temp_jump_c: float = Field(8.0, gt=0.0, le=40.0)
     conductivity_jump_ratio: float = Field(3.0, gt=1.0, le=1000.0)
+    #: When the settings last changed (set by the store); sync keeps the newest settings.
+    updated_at: AwareDatetime | None = None
 
     @field_validator("temp_plausible_c", "conductivity_plausible_us_cm", mode="before")
     @classmethod

@@ -27,6 +27,11 @@ stop.unknown_site              warning         the stop names a site not in the 
 =============================  ==============  =================================================
 
 Thresholds are program settings (core.records.models.ProgramSettings), marked common practice there.
+
+Site facts (elevation, water class, criteria) come from the stop's ``site_snapshot``, taken by
+:func:`derive` the first time the stop is saved (or changed) with its site in the site list, and
+kept afterwards: a later edit of the site list or of the program's criteria does not re-judge an
+old record. Only a stop without a snapshot is judged by today's site list.
 """
 from __future__ import annotations
 
@@ -35,10 +40,12 @@ from datetime import datetime
 from typing import Any, Iterable
 
 from core.flags import Flag, Severity
-from core.records.models import (Calibration, Derived, FlagRecord, ProgramSettings, Site, Stop, Trip)
+from core.records.models import (Calibration, Derived, FlagRecord, ProgramSettings, Site, SiteSnapshot, Stop,
+                                 Trip)
 
 __all__ = ["TRIP_KEY", "RULE_CODES", "derive", "derive_trip", "derive_document", "derive_basis", "derive_stop", "derive_calibration",
-           "stop_flags", "trip_flags", "trip_level_flags", "core_version"]
+           "stop_flags", "trip_flags", "trip_level_flags", "core_version", "site_snapshot", "checked_site",
+           "snapshot_differences"]
 
 #: Key of trip-level findings (calibrations) in :func:`trip_flags`' result.
 TRIP_KEY = "trip"
@@ -79,6 +86,55 @@ def _criteria_for(site: Site | None, settings: ProgramSettings):
             changes["supersaturation_percent"] = site.supersaturation_percent
         crit = replace(crit, **changes)
     return crit, water_class
+
+
+def site_snapshot(site: Site, settings: ProgramSettings) -> SiteSnapshot:
+    """The facts of `site` a stop's checks use, with the criteria that apply to it now (the
+    site's own, else the program's for its water class)."""
+    crit, water_class = _criteria_for(site, settings)
+    minimum = None
+    if water_class is not None:
+        minimum = crit.warm_min_mg_l if water_class == "warm" else crit.cold_min_mg_l
+    return SiteSnapshot(site_id=site.id, name=site.name, elevation_m=site.elevation_m,
+                        water_class=water_class, min_do_mg_l=minimum,
+                        supersaturation_percent=crit.supersaturation_percent)
+
+
+def _snapshot_site(snap: SiteSnapshot) -> Site:
+    """The snapshot as a Site record (what the science and rules take)."""
+    return Site.model_construct(id=snap.site_id, name=snap.name or snap.site_id, elevation_m=snap.elevation_m,
+                                water_class=snap.water_class, min_do_mg_l=snap.min_do_mg_l,
+                                supersaturation_percent=snap.supersaturation_percent)
+
+
+def checked_site(stop: Stop, sites: dict[str, Site] | None) -> Site | None:
+    """The site facts a stop is judged by: its snapshot when it has one for its site, else the
+    live site list's entry (None when neither knows the site)."""
+    snap = stop.site_snapshot
+    if snap is not None and snap.site_id == stop.site_id:
+        return _snapshot_site(snap)
+    return sites.get(stop.site_id) if sites is not None else None
+
+
+def snapshot_differences(stop: Stop, site: Site | None, settings: ProgramSettings) -> list[str]:
+    """What differs between the facts a stop was judged by (its snapshot) and the live site list,
+    one readable phrase per fact; empty without a snapshot or a live site."""
+    snap = stop.site_snapshot
+    if snap is None or site is None or snap.site_id != stop.site_id:
+        return []
+    now = site_snapshot(site, settings)
+
+    def show(v: Any, unit: str) -> str:
+        return "none" if v is None else f"{v:g} {unit}".strip() if isinstance(v, float) else str(v)
+
+    out = []
+    for name, label, unit in (("elevation_m", "elevation", "m"), ("water_class", "water class", ""),
+                              ("min_do_mg_l", "DO criterion", "mg/L"),
+                              ("supersaturation_percent", "supersaturation threshold", "%")):
+        was, is_ = getattr(snap, name), getattr(now, name)
+        if was != is_:
+            out.append(f"{label} {show(was, unit)} when saved, {show(is_, unit)} in today's site list")
+    return out
 
 
 def derive_stop(stop: Stop, site: Site | None, settings: ProgramSettings) -> Derived | None:
@@ -174,11 +230,24 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
     bases = {} if bases is None else bases
     new_stops: list[Stop] = []
     for stop, stop_doc in zip(trip.stops, doc["stops"]):
-        site = sites.get(stop.site_id)
-        if stop.site_id not in bases:
-            bases[stop.site_id] = derive_basis(site, settings)
-        basis = bases[stop.site_id]
         old = old_stops.get(stop.id)
+        snap = stop.site_snapshot
+        if snap is None and old is not None and isinstance(old.get("site_snapshot"), dict):
+            # a writer that does not know the field (an older form) keeps the stored snapshot
+            snap = SiteSnapshot.model_validate_json(_json(old["site_snapshot"]))
+        if snap is not None and snap.site_id != stop.site_id:
+            snap = None                                  # the stop now names another site
+        live = sites.get(stop.site_id)
+        if snap is None and live is not None and not _same_inputs(old, stop_doc):
+            snap = site_snapshot(live, settings)         # saved (or changed) with its site known
+        if snap is not stop.site_snapshot:
+            stop = stop.model_copy(update={"site_snapshot": snap})
+            stop_doc["site_snapshot"] = None if snap is None else snap.model_dump(mode="json")
+        site = live if snap is None else _snapshot_site(snap)
+        key = stop.site_id if snap is None else "snapshot " + _json(stop_doc["site_snapshot"]).decode()
+        if key not in bases:
+            bases[key] = derive_basis(site, settings)
+        basis = bases[key]
         if (old is not None and isinstance(old.get("derived"), dict)
                 and old["derived"].get("basis") == basis
                 and len(old) == len(stop_doc)
@@ -200,6 +269,16 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
         cals[key] = cal
         doc[key] = None if cal is None else cal.model_dump(mode="json")
     return doc, trip.model_copy(update={"stops": new_stops, **cals})
+
+
+def _same_inputs(old: dict[str, Any] | None, stop_doc: dict[str, Any]) -> bool:
+    """True when a stored stop has the same fields as the one being saved (derived values and
+    the site snapshot aside): the stop was not changed by this save."""
+    if old is None:
+        return False
+    skip = ("derived", "site_snapshot")
+    return ({k for k in old if k not in skip} == {k for k in stop_doc if k not in skip}
+            and all(old.get(k) == v for k, v in stop_doc.items() if k not in skip))
 
 
 def _json(doc: Any) -> bytes:
@@ -389,7 +468,7 @@ def trip_flags(trip: Trip, settings: ProgramSettings, now: datetime, other_bottl
     out: dict[str, list[Flag]] = {TRIP_KEY: trip_level_flags(trip, settings)}
     prev: Stop | None = None
     for stop in route:
-        site = sites.get(stop.site_id) if sites is not None else None
+        site = checked_site(stop, sites)
         out[stop.id] = stop_flags(stop, settings, now, site=site, previous=prev, labels_in_trip=labels,
                                   other_bottle_labels=other_bottle_labels, trip_id=trip.id,
                                   sites_known=sites is not None)

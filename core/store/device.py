@@ -897,12 +897,13 @@ class DeviceStore:
             table = dict(data.get("sites") or {})
             by_site = {doc.get("id"): key for key, doc in table.items()}
             next_key = max((int(k) for k in table), default=0) + 1
-            for site in checked:
+            for i, site in enumerate(checked):
                 key = by_site.get(site.id)
                 if key is None:
                     key = str(next_key)
                     next_key += 1
                     by_site[site.id] = key
+                site = checked[i] = self._stamped(site, table.get(key))
                 table[key] = site.model_dump(mode="json")
             data["sites"] = table
             try:
@@ -912,6 +913,21 @@ class DeviceStore:
                                       " is unchanged.") from None
             self._sites_cache = None
         return checked
+
+    def _stamped(self, record: Any, stored: dict[str, Any] | None) -> Any:
+        """`record` (a Site or the settings) with ``updated_at`` set to now when its content
+        changed and the caller kept the stored stamp (or gave none); a stamp the caller set
+        otherwise (sync bringing another device's newer entry) is kept as given."""
+        stored_at = None if stored is None else stored.get("updated_at")
+        given = record.model_dump(mode="json")
+        if given.get("updated_at") not in (None, stored_at):
+            return record
+        same = stored is not None and ({k: v for k, v in given.items() if k != "updated_at"}
+                                       == {k: v for k, v in stored.items() if k != "updated_at"})
+        if same:
+            return record if given.get("updated_at") == stored_at else type(record).model_validate_json(
+                canonical_json_bytes({**given, "updated_at": stored_at}))
+        return record.model_copy(update={"updated_at": self._clock().astimezone(timezone.utc)})
 
     def settings(self) -> ProgramSettings:
         """The program settings (defaults until saved)."""
@@ -944,6 +960,11 @@ class DeviceStore:
             probs = problems_from_validation(exc)
             raise InvalidRecord(one_line(probs), probs) from None
         with self._locked():
+            try:
+                stored = self._read_table("settings", self.data_dir / "settings.json").get("1")
+            except CorruptFile:
+                stored = None
+            checked = self._stamped(checked, stored)
             try:
                 _tinydb(self.data_dir / "settings.json").table("settings").upsert(
                     Document(checked.model_dump(mode="json"), doc_id=1))

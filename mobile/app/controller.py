@@ -379,19 +379,20 @@ class AppController:
 
     def stop_record(self, stop: StopForm) -> tuple[Any, dict[str, str]]:
         """(core.records.models.Stop with derived values, or None without a site; refusals by field)."""
-        from core.rules.qc import derive_stop
+        from core.rules.qc import checked_site, derive_stop
 
         record, errors = self.bridge.stop_record(stop, self._saved_stop_doc(stop.id))
         if record is None:
             return None, errors
-        site = self.site(stop.site_id)
+        live = self.site(stop.site_id)
+        site = checked_site(record, {record.site_id: live} if live is not None else {})
         derived = derive_stop(record, site, self.settings())
         return record.model_copy(update={"derived": derived}), errors
 
     def stop_view(self, stop: StopForm | None = None) -> StopView:
         from collections import Counter
 
-        from core.rules.qc import stop_flags
+        from core.rules.qc import checked_site, stop_flags
 
         stop = stop or self.stop
         view = StopView()
@@ -408,6 +409,8 @@ class AppController:
                                          "its water class the criteria.", ""))
             view.flags = lines
             return view
+        live = self.site(stop.site_id)
+        site = checked_site(record, {record.site_id: live} if live is not None else {})
         d = record.derived
         if d is not None:
             view.assessment = d
@@ -419,7 +422,7 @@ class AppController:
             view.salinity_text = f"{d.salinity:.2f} ({source})"
         labels = Counter(b.label for s in self.trip.stops for b in s.bottles)
         prev = self._previous_record(stop)
-        flags = stop_flags(record, self.settings(), self.now(), site=self.site(stop.site_id),
+        flags = stop_flags(record, self.settings(), self.now(), site=site,
                            previous=prev, labels_in_trip=labels,
                            other_bottle_labels=self.labels_elsewhere(), trip_id=self.trip.id,
                            sites_known=True)

@@ -120,7 +120,7 @@ def _trip_list(args) -> int:  # noqa: ANN001
 
 
 def _show_data(store, trip_id: str) -> dict:  # noqa: ANN001
-    from core.rules.qc import TRIP_KEY, trip_flags
+    from core.rules.qc import TRIP_KEY, checked_site, snapshot_differences, trip_flags
 
     trip = store.load_trip(trip_id)
     sites = store.sites_by_id()
@@ -129,9 +129,12 @@ def _show_data(store, trip_id: str) -> dict:  # noqa: ANN001
     flags = trip_flags(trip, settings, now, other_bottle_labels=store.bottle_labels_in_use(), sites=sites)
     stops = []
     for stop in sorted(trip.stops, key=lambda s: s.arrived_at):
-        site = sites.get(stop.site_id)
+        site = checked_site(stop, sites)
         stops.append({
             "id": stop.id, "site_id": stop.site_id, "site_name": site.name if site else None,
+            # the site facts the checks used (kept when the stop was saved) and what changed since
+            "site_snapshot": stop.site_snapshot.model_dump(mode="json") if stop.site_snapshot else None,
+            "site_changed_since": snapshot_differences(stop, sites.get(stop.site_id), settings),
             "arrived_at": stop.arrived_at.isoformat(),
             "closed_at": stop.closed_at.isoformat() if stop.closed_at else None,
             "inputs": {name: (getattr(stop, name).model_dump(mode="json") if getattr(stop, name) else None)
@@ -191,6 +194,9 @@ def _trip_show(args) -> int:  # noqa: ANN001
         inp = s["inputs"]
         do = inp["do"]
         w(f"\n{s['site_id']} {s['site_name'] or ''}  {s['arrived_at']}\n")
+        if s["site_changed_since"]:
+            w(f"  site list changed since this stop was saved; it is judged as saved: "
+              f"{'; '.join(s['site_changed_since'])}\n")
         w(f"  water {_fmt(inp['temp'] and inp['temp']['value'], '.1f', '°C')}"
           f"  pressure {_fmt(inp['pressure'] and inp['pressure']['value'], '.1f', 'hPa')}"
           f"  conductivity {_fmt(inp['conductivity'] and inp['conductivity']['value'], '.0f', 'µS/cm')}"
