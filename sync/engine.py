@@ -9,7 +9,6 @@ brings in every revision at the hub this device has not seen, merging it with th
 from __future__ import annotations
 
 import hashlib
-import json
 import logging
 import os
 import threading
@@ -18,6 +17,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
+from core.records.limits import LimitError, loads_limited
 from core.store.atomic import atomic_write_bytes, canonical_json_bytes
 from sync import errors
 from sync.layout import canonical_trip_id, revision_name, trip_year
@@ -163,7 +163,9 @@ def _conflict_lines(conflicts: Iterable[dict]) -> list[str]:
 
 def _parse_hub_doc(f: RemoteFile, data: bytes) -> dict:
     try:
-        doc = json.loads(data.decode("utf-8"))
+        doc = loads_limited(data.decode("utf-8"))
+    except LimitError as exc:
+        raise errors.BadHubDocument(f"hub file {f.name} of trip {f.trip_id} is refused: {exc}") from None
     except (UnicodeDecodeError, ValueError):
         raise errors.BadHubDocument(f"hub file {f.name} of trip {f.trip_id} is not valid JSON") from None
     if not isinstance(doc, dict):

@@ -27,6 +27,7 @@ from pathlib import Path
 from typing import Callable, Mapping, TypeVar
 from urllib.parse import urlsplit, urlunsplit
 
+from core.records.limits import MAX_DOCUMENT_BYTES
 from sync import errors
 
 __all__ = ["RetryPolicy", "Credentials", "Session", "load_credentials", "redact_url",
@@ -196,7 +197,7 @@ class Session:
     def __init__(self, device_id: str | None = None, *, credentials: Credentials | None = None,
                  connect_timeout_s: float = 5.0, read_timeout_s: float = 30.0,
                  retry: RetryPolicy | None = None, ca_file: Path | str | None = None,
-                 max_document_bytes: int = 8 * 1024 * 1024,
+                 max_document_bytes: int = MAX_DOCUMENT_BYTES,
                  sleep: Callable[[float], None] = time.sleep) -> None:
         for name, value in (("connect_timeout_s", connect_timeout_s), ("read_timeout_s", read_timeout_s)):
             if not (isinstance(value, (int, float)) and 0 < value <= 600):
