@@ -348,7 +348,8 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
                 report.failed += 1
             done += 1
             _notify(progress, done, total, tid, res.result)
-        _clean_incoming(tgt, session, outbox)
+        if any(r.result != "unchanged" for r in report.per_trip):   # an unchanged push asks nothing
+            _clean_incoming(tgt, session, outbox)
     except Exception as exc:
         if _local_write_errors(exc):
             raise _local_failure(exc, store.data_dir) from None
@@ -360,8 +361,9 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
 
 
 def _clean_incoming(tgt: Target, session: Session, outbox: Outbox) -> None:
-    """At most once a day per hub, removes this device's own uploads under ``incoming/`` older than
-    a day (cut uploads). Best effort: a failure is logged and tried again next push."""
+    """At most once a day per hub, in a push that sent something, removes this device's own uploads
+    under ``incoming/`` older than a day (cut uploads). Best effort: a failure is logged and tried
+    again next push."""
     remove = getattr(tgt, "remove_stale_uploads", None)
     if remove is None or not session.device_id:
         return
