@@ -21,7 +21,8 @@ def sync_round(devices, url):
     return moved
 
 
-def test_pull_then_push_sends_nothing_and_holds_the_hub_bytes(dav, device_a, device_b, tmp_path):
+def test_pull_then_push_sends_nothing_and_holds_the_hub_bytes(dav, device_a, tmp_path):
+    device_b = DeviceStore.open(tmp_path / "device-b", "tablet-B")     # a fresh tablet
     t = new_trip(device_a, stops=2)
     assert sync.push(device_a, dav.url, session=dav_session("tablet-A")).pushed == 1
     pulled = sync.pull(device_b, dav.url, session=dav_session("tablet-B"))
@@ -58,10 +59,12 @@ def test_ten_rounds_without_edits_leave_the_hub_revision_count_unchanged(dav, de
         if not sync_round(everyone, dav.url):
             break
     before = hub_count(dav)
+    tables = sorted(p.name for p in (dav.root / "hub" / "program").rglob("*.json"))
     for _ in range(10):
         assert sync_round(everyone, dav.url) == 0
         assert sync_round(everyone[::-1], dav.url) == 0
     assert hub_count(dav) == before
+    assert sorted(p.name for p in (dav.root / "hub" / "program").rglob("*.json")) == tables
     # and the devices agree byte for byte
     for tid in (t.id, u.id):
         docs = {canonical_json_bytes(d.trip_document(tid)) for d in everyone}
