@@ -16,7 +16,8 @@ import threading
 from dataclasses import asdict, dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any, Callable, Iterable
+from typing import Any
+from collections.abc import Callable, Iterable
 
 from core.store.atomic import atomic_write_bytes, canonical_json_bytes
 from sync import errors
@@ -369,8 +370,8 @@ def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
                     entry.bad.append(name)
             candidates = [entry.base] if entry.base else []
             candidates += _extra_ancestors(tgt, session, year, tid, doc, docs, candidates,
-                                           sorted(listing - set(act.unseen)))
-            merged, kind, new_conflicts = _fold(doc, docs, candidates)
+                                           sorted((listing or frozenset()) - set(act.unseen)))
+            merged, _kind, new_conflicts = _fold(doc, docs, candidates)
             seen.update(good)
             if merged is not None and _semantic(merged) != _semantic(doc):
                 change = "merged with other devices' versions from the hub"
@@ -432,8 +433,8 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
                  for tid, (rev, h) in summaries.items()}
         remote = {tid: RemoteEntry(tid, frozenset(f.name for f in fs)) for tid, fs in by_trip.items()}
         actions = plan_pull(local, remote, {tid: e.seen_set() for tid, e in known.items()})
-        total, done = len(actions), 0
-        for act in actions:
+        total = len(actions)
+        for done, act in enumerate(actions, start=1):
             tid = act.trip_id
             if act.action is Action.SKIP:
                 res = TripResult(tid, "unchanged")
@@ -446,7 +447,6 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
             report.per_trip.append(res)
             if res.result in ("pulled", "merged", "quarantined", "unchanged", "failed"):
                 setattr(report, res.result, getattr(report, res.result) + 1)
-            done += 1
             _notify(progress, done, total, tid, res.result)
     finally:
         _flush(outbox)
@@ -515,7 +515,7 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
         # same content as the device copy (bookkeeping aside): nothing to save
         accepted.append(name)
         del pending[name]
-        if acc is not None and _semantic(trial) == _semantic(acc):
+        if acc is not None and trial is not None and _semantic(trial) == _semantic(acc):
             for other in [n for n, d in pending.items() if relation(d, doc) in ("same", "ancestor")]:
                 accepted.append(other)
                 del pending[other]
@@ -555,7 +555,7 @@ def status(store: Any) -> list[TripSyncState]:
             doc = store.trip_document(tid)
             conflicts = _conflict_lines(c for c in doc.get("conflicts") or []
                                         if isinstance(c, dict) and not c.get("resolved_at"))
-        except Exception:  # an unreadable trip is the store's report, not ours
+        except Exception:  # noqa: BLE001 - an unreadable trip is the store's report, not ours
             pass
         if not states or all(s.state == "never pushed" for s in states):
             overall = "never pushed"
@@ -578,7 +578,7 @@ def run_in_background(operation: Callable[..., Any], store: Any, address: str, *
     def work() -> None:
         try:
             report = operation(store, address, progress=progress, session=session)
-        except BaseException as exc:  # handed to the caller, never lost in the thread
+        except BaseException as exc:  # noqa: BLE001 - handed to the caller, never lost in the thread
             if on_done is not None:
                 on_done(None, exc)
             else:

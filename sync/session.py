@@ -24,10 +24,14 @@ import stat
 import time
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable, Mapping, TypeVar
+from typing import TYPE_CHECKING, TypeVar
+from collections.abc import Callable, Mapping
 from urllib.parse import urlsplit, urlunsplit
 
 from sync import errors
+
+if TYPE_CHECKING:
+    import requests   # imported on first use at run time (no work at import time)
 
 __all__ = ["RetryPolicy", "Credentials", "Session", "load_credentials", "redact_url",
            "ENV_USER", "ENV_PASSWORD", "ENV_TOKEN", "ENV_CONFIG", "ENV_CA_FILE"]
@@ -78,7 +82,7 @@ class RetryPolicy:
 class Credentials:
     """A user name and password (HTTP Basic) or a bearer token. Never shown by repr or str."""
 
-    __slots__ = ("_user", "_password", "_token")
+    __slots__ = ("_password", "_token", "_user")
 
     def __init__(self, user: str | None = None, password: str | None = None,
                  token: str | None = None) -> None:
@@ -211,7 +215,7 @@ class Session:
         self.max_document_bytes = int(max_document_bytes)
         self.sleep = sleep
         self.request_count = 0
-        self._http = None
+        self._http: requests.Session | None = None
 
     def __repr__(self) -> str:
         return (f"Session(device_id={self.device_id!r}, timeout={self.timeout}, retry={self.retry}, "
@@ -309,7 +313,7 @@ class Session:
             self._http.close()
             self._http = None
 
-    def __enter__(self) -> "Session":
+    def __enter__(self) -> Session:
         return self
 
     def __exit__(self, *exc: object) -> None:

@@ -441,7 +441,7 @@ def _read_capped(resp, limit: int, where: str, bad: bool = False) -> bytes:  # n
             chunks.append(chunk)
     except errors.SyncError:
         raise
-    except Exception as exc:   # requests/urllib3 read errors while streaming the body
+    except Exception as exc:  # noqa: BLE001 - requests/urllib3 read errors while streaming the body
         import requests
 
         if isinstance(exc, (requests.exceptions.Timeout,)) or "timed out" in str(exc).lower():

@@ -202,7 +202,7 @@ class FaultProxy:
         while not self._stop.is_set():
             try:
                 client, _ = self.sock.accept()
-            except (socket.timeout, OSError):
+            except (TimeoutError, OSError):
                 continue
             fault, cut = self._pick()
             threading.Thread(target=self._serve, args=(client, fault, cut), daemon=True).start()
@@ -221,7 +221,7 @@ class FaultProxy:
                         try:
                             if not client.recv(65536):
                                 break
-                        except socket.timeout:
+                        except TimeoutError:
                             break
                         except OSError:
                             break
