@@ -689,7 +689,7 @@ def _local_table(store: Any, kind: str) -> bytes | None:
 
 def _push_program(store: Any, tgt: Target, session: Session, outbox: Outbox) -> list[str]:
     """Publishes the site list and the settings when the hub does not hold them yet."""
-    if not tgt.can_list or not hasattr(tgt, "write_program"):
+    if not tgt.can_list:
         return []                 # an intake endpoint takes trips only
     state = _program_state(outbox)
     lines: list[str] = []
@@ -715,7 +715,7 @@ def _push_program(store: Any, tgt: Target, session: Session, outbox: Outbox) -> 
 def _pull_program(store: Any, tgt: Target, session: Session, outbox: Outbox) -> list[str]:
     """Merges every site list and settings file at the hub this device has not seen into the
     store: per site id (and for the settings) the newest entry wins (sync/program.py)."""
-    if not tgt.can_list or not hasattr(tgt, "list_program"):
+    if not tgt.can_list:
         return []
     from core.records.models import ProgramSettings, Site
 
@@ -741,7 +741,7 @@ def _pull_program(store: Any, tgt: Target, session: Session, outbox: Outbox) -> 
                 lines.append(f"{_TABLE_WORDS[kind]} file {name} left aside: {exc}")
                 continue
             read.append(name)
-            for entry in (parsed if kind == "sites" else [parsed]):
+            for entry in (parsed if isinstance(parsed, list) else [parsed]):
                 try:   # each entry must be a valid record for this build
                     model = Site if kind == "sites" else ProgramSettings
                     checked = model.model_validate_json(canonical_json_bytes(entry))
@@ -753,25 +753,39 @@ def _pull_program(store: Any, tgt: Target, session: Session, outbox: Outbox) -> 
                 incoming.append(entry)
         if incoming:
             with store.locked():
-                if kind == "sites":
-                    local = {s.id: s.model_dump(mode="json") for s in store.sites()}
-                    merged = program.merge_sites(local, incoming)
-                    changed = [Site.model_validate_json(canonical_json_bytes(e)) for sid, e in sorted(merged.items())
-                               if local.get(sid) != e]
-                    if changed:
-                        store.save_sites(changed)
-                        lines.append(f"site list: {len(changed)} site(s) updated from the hub "
-                                     f"({', '.join(s.id for s in changed[:6])}{' ...' if len(changed) > 6 else ''})")
-                else:
-                    current = store.settings()
-                    local = current.model_dump(mode="json") if current.updated_at is not None else None
-                    merged = program.merge_settings(local, incoming)
-                    if merged is not None and merged != local:
-                        store.save_settings(ProgramSettings.model_validate_json(canonical_json_bytes(merged)))
-                        lines.append("program settings updated from the hub")
+                lines.extend(_merge_sites(store, incoming) if kind == "sites" else _merge_settings(store, incoming))
         state[kind]["seen"].extend(read)
     _save_program_state(outbox, state)
     return lines
+
+
+def _merge_sites(store: Any, incoming: list[dict]) -> list[str]:
+    """Saves the sites that incoming entries make newer (store lock held)."""
+    from core.records.models import Site
+
+    local = {s.id: s.model_dump(mode="json") for s in store.sites()}
+    merged = program.merge_sites(local, incoming)
+    changed = [Site.model_validate_json(canonical_json_bytes(e)) for sid, e in sorted(merged.items())
+               if local.get(sid) != e]
+    if not changed:
+        return []
+    store.save_sites(changed)
+    more = " ..." if len(changed) > 6 else ""
+    return [f"site list: {len(changed)} site(s) updated from the hub "
+            f"({', '.join(s.id for s in changed[:6])}{more})"]
+
+
+def _merge_settings(store: Any, incoming: list[dict]) -> list[str]:
+    """Saves incoming settings when they are newer than the device's (store lock held)."""
+    from core.records.models import ProgramSettings
+
+    current = store.settings()
+    local = current.model_dump(mode="json") if current.updated_at is not None else None
+    merged = program.merge_settings(local, incoming)
+    if merged is None or merged == local:
+        return []
+    store.save_settings(ProgramSettings.model_validate_json(canonical_json_bytes(merged)))
+    return ["program settings updated from the hub"]
 
 
 # --- status --------------------------------------------------------------------------------------

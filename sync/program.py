@@ -22,8 +22,9 @@ from __future__ import annotations
 import hashlib
 import json
 import re
+from collections.abc import Iterable, Mapping
 from datetime import datetime
-from typing import Any, Iterable, Mapping
+from typing import Any
 
 from core.store.atomic import canonical_json_bytes
 
@@ -34,7 +35,7 @@ __all__ = ["PROGRAM", "KINDS", "program_dir", "program_name", "name_matches", "i
 PROGRAM = "program"
 KINDS = ("sites", "settings")
 _HASH_HEX = 24
-_NAME_RE = re.compile(r"^[0-9a-f]{%d}\.json$" % _HASH_HEX)
+_NAME_RE = re.compile(rf"^[0-9a-f]{{{_HASH_HEX}}}\.json$")
 _KIND_TAG = {"sites": "streamtab.sites", "settings": "streamtab.settings"}
 
 

@@ -78,6 +78,10 @@ class Target(Protocol):
     def write_revision(self, year: str, trip_id: str, name: str, data: bytes,
                        device_id: str, revision: int, content_hash: str) -> WriteResult: ...
     def close(self) -> None: ...
+    # the program's tables (sync/program.py); an intake endpoint has none
+    def list_program(self, kind: str) -> frozenset[str]: ...
+    def read_program(self, kind: str, name: str, max_bytes: int) -> bytes: ...
+    def write_program(self, kind: str, name: str, data: bytes, device_id: str) -> bool: ...
 
 
 class Listing(list):
@@ -766,6 +770,16 @@ class PostTarget:
 
     def read(self, f: RemoteFile, max_bytes: int) -> bytes:
         raise errors.ConfigError("an HTTP endpoint cannot be read from")
+
+    # an intake endpoint takes trips only: the site list and settings travel by folder or WebDAV
+    def list_program(self, kind: str) -> frozenset[str]:
+        raise errors.ConfigError("an HTTP endpoint takes trips only, not the site list or settings")
+
+    def read_program(self, kind: str, name: str, max_bytes: int) -> bytes:
+        raise errors.ConfigError("an HTTP endpoint takes trips only, not the site list or settings")
+
+    def write_program(self, kind: str, name: str, data: bytes, device_id: str) -> bool:
+        raise errors.ConfigError("an HTTP endpoint takes trips only, not the site list or settings")
 
     def write_revision(self, year: str, trip_id: str, name: str, data: bytes,
                        device_id: str, revision: int, content_hash: str) -> WriteResult:

@@ -342,7 +342,7 @@ class SiteSnapshot(_Record):
 
     @field_validator("elevation_m")
     @classmethod
-    def _elev(cls, v: float) -> float:
+    def _elev(cls, v: float | None) -> float | None:
         return _check_range(v, "elevation")
 
 

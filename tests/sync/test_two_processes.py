@@ -47,7 +47,7 @@ def test_lab_results_recorded_during_sync_loops_are_never_lost(dav, tmp_path):
                                     t.id, str(SYNC_ROUNDS)],
                               cwd=ROOT, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     try:
-        lab_out, lab_err = lab.communicate(timeout=240)
+        _, lab_err = lab.communicate(timeout=240)
         sync_out, sync_err = syncer.communicate(timeout=240)
     finally:
         for p in (lab, syncer):

@@ -8,7 +8,6 @@ import os
 import sys
 import time
 from datetime import timedelta
-from pathlib import Path
 
 
 def lab(data_dir: str, trip_id: str, ack_file: str, rounds: int) -> int:
