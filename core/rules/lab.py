@@ -1024,7 +1024,7 @@ def add_batch(trip: Trip, *, name: str, bottle_refs: Iterable[str], created_at: 
     if (incubation_start is None) != (incubation_end is None):
         raise LabInputError("incubation_start" if incubation_start is None else "incubation_end",
                             "incubation start and end go together; accepted: both times or neither")
-    if incubation_start is not None and incubation_end <= incubation_start:
+    if incubation_start is not None and incubation_end is not None and incubation_end <= incubation_start:
         raise LabInputError("incubation_end", "the incubation ends before it starts; accepted: a read-out after"
                                               " the set-up")
     if standardisation is not None:
