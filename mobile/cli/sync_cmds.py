@@ -73,8 +73,8 @@ class _Bar:
         self.drawn = False
 
 
-def _open_store(args: Any):  # noqa: ANN202
-    return open_store(args.data_dir)
+def _open_store(args: Any, *, create: bool = False):  # noqa: ANN202
+    return open_store(args.data_dir, create=create)
 
 
 def _session(args: Any, store: Any, address: str):  # noqa: ANN202
@@ -97,7 +97,7 @@ def _run(args: Any, verb: str, address: str):  # noqa: ANN202
     from core.store import StoreLocked
     from sync.errors import FinalError, RetryableError
 
-    store = _open_store(args)
+    store = _open_store(args, create=verb == "pull")   # a pull may fill an empty office store
     session = _session(args, store, address)
     bar = _Bar(verb)
     try:
