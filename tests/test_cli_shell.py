@@ -67,3 +67,18 @@ def test_snapshot_refuses_a_name_not_ending_in_png(tmp_path, name):
 def test_snapshot_refuses_a_missing_folder(tmp_path):
     out = run_cli("app", "--snapshot", str(tmp_path / "nope" / "stop.png"), data_dir=tmp_path / "store")
     assert out.returncode == 2 and "does not exist" in _one_line(out)
+
+
+@pytest.mark.parametrize("verb,option,address,words", [
+    ("push", "--to", "ftp://hub.invalid/x", "not supported"),
+    ("push", "--to", "{tmp}/no-such-hub", "does not exist"),
+    ("pull", "--from", "", "empty"),
+])
+def test_a_bad_hub_address_names_the_option_it_was_typed_in(tmp_path, verb, option, address, words):
+    store = tmp_path / "store"
+    assert run_cli("sites", "import", str(ROOT / "sample_trips" / "sites.csv"), data_dir=store).returncode == 0
+    address = address.format(tmp=tmp_path)
+    out = run_cli("sync", verb, option, address, data_dir=store)
+    assert out.returncode == 2
+    line = _one_line(out)
+    assert line.startswith(f"streamtab: {option} {address!r}: ") and words in line
