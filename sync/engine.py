@@ -387,8 +387,8 @@ def _clean_incoming(tgt: Target, session: Session, outbox: Outbox) -> None:
 def _flush(outbox: Outbox) -> None:
     try:
         outbox.flush()
-    except OSError:   # only a cache: the per-trip files are the record
-        log.warning("could not rewrite the outbox manifest", exc_info=True)
+    except OSError as exc:   # only a cache: the per-trip files are the record
+        log.info("could not rewrite the outbox manifest (%s)", exc.strerror or exc)
 
 
 def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: str) -> TripResult:
