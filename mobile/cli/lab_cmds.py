@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import json
-import re
 import sys
 from datetime import datetime, timezone
 from pathlib import Path
@@ -11,8 +10,6 @@ from typing import Any
 from mobile.cli._common import CliError, emit_json, emit_table, fail, open_store, resolve_trip_id
 
 __all__ = ["register"]
-
-_NUM = re.compile(r"^\s*([+-]?[\d.,]*\d[\d.,]*|[+-]?[.,]\d+)\s*([^\d\s].*?)?\s*$")
 
 #: Core input names → the option a person typed.
 _OPTIONS = {
@@ -32,23 +29,15 @@ _OPTIONS = {
 # Reading what was typed
 # --------------------------------------------------------------------------------------------
 def _number(text: str | None, option: str, accepted: str, units: tuple[str, ...] = ()) -> float | None:
-    """A number as typed ("7.3", "7,3", "7.3 mL"); a unit, when given, must be one of `units`."""
-    from core.records.models import InputError, parse_number
+    """A number as typed ("7.3", "7,3", "7.3 mL"); a unit, when given, must be one of `units` (core's grammar)."""
+    from core.science.quantities import QuantityError, read_number
 
     if text is None:
         return None
-    m = _NUM.match(text)
-    if m is None:
-        raise CliError(f"{option} {text!r} is not a number; accepted: {accepted}")
-    unit = (m.group(2) or "").strip()
-    if unit and unit.lower().replace(" ", "") not in {u.lower() for u in units}:
-        raise CliError(f"{option} {text!r} has the unit {unit!r}; accepted: {accepted}")
     try:
-        return parse_number(m.group(1), option)
-    except InputError as exc:
-        why = {"number.ambiguous_comma": "is ambiguous (decimal comma or thousands separator?)"}.get(
-            exc.code, "is not a number")
-        raise CliError(f"{option} {text!r} {why}; accepted: {accepted}") from None
+        return read_number(text, option, units=units, accepted=accepted)
+    except QuantityError as exc:
+        raise CliError(exc.message) from None
 
 
 def _time(text: str | None, option: str) -> datetime | None:

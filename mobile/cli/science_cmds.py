@@ -2,28 +2,31 @@
 from __future__ import annotations
 
 import json
-import re
 from pathlib import Path
 
-from core.science._validate import decimal
 from mobile.cli._common import CliError, emit_json, emit_table
 
 __all__ = ["register"]
 
-_NUMBER = re.compile(r"^\s*([+-]?(?:\d+(?:[.,]\d*)?|[.,]\d+))\s*(.*?)\s*$")
-
 
 def _number(text: str, option: str, accepted: str, units: tuple[str, ...] = ()) -> float:
-    """A plain number (decimal comma allowed), optionally followed by one of ``units``."""
-    m = _NUMBER.match(text or "")
-    if m is None or ("," in text and "." in text):
-        raise CliError(f"{option} {text!r} is not a number; accepted: {accepted}")
-    if m.group(2) and m.group(2).lower().replace(" ", "") not in {u.lower() for u in units}:
-        raise CliError(f"{option} {text!r} has an unexpected unit {m.group(2)!r}; accepted: {accepted}")
+    """A plain number (decimal comma allowed), optionally followed by one of ``units`` (core's grammar)."""
+    from core.science.quantities import QuantityError, read_number
+
     try:
-        return decimal(m.group(1), option)
-    except ValueError as exc:
-        raise CliError(f"{exc}") from None
+        return read_number(text, option, units=units, accepted=accepted)
+    except QuantityError as exc:
+        raise CliError(exc.message) from None
+
+
+def _typed(kind: str, text: str, option: str, default_unit: str | None = None):
+    """A typed quantity (number and unit) read and checked against the one table of limits."""
+    from core.science.quantities import QuantityError, read
+
+    try:
+        return read(kind, text, option, default_unit=default_unit)
+    except QuantityError as exc:
+        raise CliError(exc.message) from None
 
 
 def _core(option: str, fn, *args, **kwargs):
@@ -48,31 +51,27 @@ def _flag_rows(flags) -> list[tuple[str, str]]:
 
 def _sat(args) -> int:
     from core.science.assess import assess_reading
-    from core.science.conductivity import parse_conductivity
-    from core.science.pressure import parse_pressure
-    from core.science.temperature import parse_temperature
 
-    temp_c = _core("--temp", parse_temperature, args.temp)
-    pressure_hpa = _core("--pressure", parse_pressure, args.pressure)
+    temp_c = _typed("temp", args.temp, "--temp").value
+    pressure_hpa = _typed("pressure", args.pressure, "--pressure").value
     salinity = None
     if args.salinity is not None:
-        salinity = _number(args.salinity, "--salinity", "a practical salinity, 0 to 70 (fresh streams are under 1)")
+        salinity = _typed("salinity", args.salinity, "--salinity").value
     cond = None
     if args.conductivity is not None:
-        cond = _core("--conductivity", parse_conductivity, args.conductivity)
+        cond = _typed("conductivity", args.conductivity, "--conductivity").value
     elif args.at_25:
         raise CliError("--at-25 needs --conductivity; accepted: --conductivity '410 uS/cm' --at-25")
     do_mg_l = do_percent = None
     if args.do is not None:
-        value = _number(args.do, "--do", "DO in mg/L (e.g. 8.4), or in % saturation written with % (e.g. '92 %')",
-                        ("mg/L", "%"))
-        if args.do.strip().endswith("%"):
-            do_percent = value
+        do = _typed("do", args.do, "--do", default_unit="mg/L")
+        if do.unit == "%":
+            do_percent = do.value
         else:
-            do_mg_l = value
+            do_mg_l = do.value
     elevation = None
     if args.elevation is not None:
-        elevation = _number(args.elevation, "--elevation", "site elevation in metres, -500 to 11000", ("m",))
+        elevation = _typed("elevation", args.elevation, "--elevation").value
     try:
         a = assess_reading(temp_c, pressure_hpa, salinity=salinity, conductivity_us_cm=cond,
                            conductivity_is_sc25=bool(args.at_25), do_mg_l=do_mg_l, do_percent=do_percent,
@@ -119,11 +118,10 @@ def _which_sat_option(message: str) -> str:
 # --- salinity --------------------------------------------------------------------------------------
 
 def _salinity(args) -> int:
-    from core.science.conductivity import parse_conductivity, practical_salinity, specific_conductance_us_cm
-    from core.science.temperature import parse_temperature
+    from core.science.conductivity import practical_salinity, specific_conductance_us_cm
 
-    us_cm = _core("--conductivity", parse_conductivity, args.conductivity)
-    temp_c = _core("--temp", parse_temperature, args.temp)
+    us_cm = _typed("conductivity", args.conductivity, "--conductivity").value
+    temp_c = _typed("temp", args.temp, "--temp").value
     p = _number(args.pressure_dbar, "--pressure-dbar", "sea pressure in dbar, 0 to 11000 (0 at the surface)",
                 ("dbar",))
     names = {"conductivity_ms_cm": "--conductivity", "conductivity_us_cm": "--conductivity", "temp_c": "--temp",
@@ -277,18 +275,19 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     """Adds this module's sub-commands (sat, salinity, winkler, bod) to the top-level parser."""
     from core.science.oxygen import METHODS
 
-    p = sub.add_parser("sat", help="DO saturation target and % saturation of a reading",
+    p = sub.add_parser("sat", help="DO saturation target and %% saturation of a reading",
                        description="Saturation target at the water temperature and station pressure; with --do,"
                                    " the reading's % saturation. Informs only: the program's SOP decides.")
     p.add_argument("--temp", required=True, help="water temperature, e.g. 18.5 (°C) or '65 F'")
     p.add_argument("--pressure", required=True,
                    help="station pressure with unit: '752 mmHg', '29.61inHg', '1002.3 hPa' (not sea-level adjusted)")
     g = p.add_mutually_exclusive_group()
-    g.add_argument("--salinity", help="practical salinity (default 0)")
+    g.add_argument("--salinity", help="practical salinity, e.g. 0.2 or '0.2 psu' (default 0)")
     g.add_argument("--conductivity", help="conductivity at the water temperature with unit, e.g. '410 uS/cm'")
     p.add_argument("--at-25", action="store_true", help="--conductivity is already specific conductance at 25 °C")
     p.add_argument("--do", help="DO reading in mg/L (e.g. 8.4), or in %% written with %% (e.g. '92 %%')")
-    p.add_argument("--elevation", help="site elevation in m; checks for a sea-level-adjusted pressure")
+    p.add_argument("--elevation", help="site elevation, e.g. 1200 (m) or '3900 ft'; checks for a"
+                                       " sea-level-adjusted pressure")
     p.add_argument("--method", default="benson-krause", choices=METHODS, help="solubility equation")
     p.add_argument("--json", action="store_true", help="print JSON")
     p.set_defaults(handler=_sat)

@@ -56,7 +56,7 @@ def test_sat_with_do_conductivity_and_method():
 
 
 def test_sat_flags_in_json():
-    d = run_json("sat", "--temp", "68", "--pressure", "29.92 inHg", "--elevation", "1200")
+    d = run_json("sat", "--temp", "45", "--pressure", "29.92 inHg", "--elevation", "1200")
     codes = [f["code"] for f in d["flags"]]
     assert "temp.looks_fahrenheit" in codes and "pressure.sea_level_adjusted" in codes
     for f in d["flags"]:
@@ -126,32 +126,36 @@ ERROR_CASES = [
     (("sat", "--temp", "18.5", "--pressure", "752"), ["--pressure", "no unit", "mmHg", "inHg", "hPa"]),
     (("sat", "--temp", "18.5", "--pressure", "752 mm"), ["--pressure", "unknown unit"]),
     (("sat", "--temp", "18.5", "--pressure", ""), ["--pressure", "empty"]),
-    (("sat", "--temp", "18.5", "--pressure", "-1 hPa"), ["--pressure", "above zero"]),
-    (("sat", "--temp", "18.5", "--pressure", "1600 hPa"), ["--pressure", "1500"]),
+    (("sat", "--temp", "18.5", "--pressure", "-1 hPa"), ["--pressure", "400–1100 hPa"]),
+    (("sat", "--temp", "18.5", "--pressure", "1600 hPa"), ["--pressure", "400–1100 hPa"]),
+    (("sat", "--temp", "18.5", "--pressure", "1e9 hPa"), ["--pressure", "outside 400–1100 hPa"]),
     (("sat", "--temp", "", "--pressure", "752 mmHg"), ["--temp", "empty"]),
     (("sat", "--temp", "warm", "--pressure", "752 mmHg"), ["--temp", "not a number"]),
-    (("sat", "--temp", "-60", "--pressure", "752 mmHg"), ["--temp", "accepted"]),
+    (("sat", "--temp", "-60", "--pressure", "752 mmHg"), ["--temp", "−2–50 °C"]),
+    (("sat", "--temp", "68", "--pressure", "752 mmHg"), ["--temp", "−2–50 °C", "°F"]),
     (("sat", "--temp", "18.5 X", "--pressure", "752 mmHg"), ["--temp", "unknown unit"]),
     (("sat", "--pressure", "752 mmHg"), ["--temp", "required"]),
     (("sat", "--temp", "18.5"), ["--pressure", "required"]),
     ((*SAT, "--salinity", "abc"), ["--salinity", "not a number"]),
-    ((*SAT, "--salinity", "-1"), ["--salinity", "accepted"]),
+    ((*SAT, "--salinity", "-1"), ["--salinity", "0–42"]),
+    ((*SAT, "--salinity", "0.2 ppt"), ["--salinity", "unknown unit", "psu"]),
     ((*SAT, "--salinity", "0.2", "--conductivity", "410 uS/cm"), ["--conductivity", "--salinity"]),
     ((*SAT, "--conductivity", "410"), ["--conductivity", "no unit", "uS/cm"]),
     ((*SAT, "--conductivity", "410 ppm"), ["--conductivity", "unknown unit"]),
-    ((*SAT, "--conductivity", "-4 uS/cm"), ["--conductivity", "accepted"]),
+    ((*SAT, "--conductivity", "-4 uS/cm"), ["--conductivity", "0–100000 µS/cm"]),
     ((*SAT, "--at-25"), ["--at-25", "--conductivity"]),
-    ((*SAT, "--conductivity", "290 mS/cm"), ["--conductivity", "salinity", "0 to 70"]),
+    ((*SAT, "--conductivity", "290 mS/cm"), ["--conductivity", "0–100000 µS/cm"]),
     ((*SAT, "--do", "lots"), ["--do", "not a number"]),
-    ((*SAT, "--do", "84 ppm"), ["--do", "unexpected unit"]),
-    ((*SAT, "--do", "99"), ["--do", "0 to 70"]),
-    ((*SAT, "--do", "-1"), ["--do", "accepted"]),
-    ((*SAT, "--do", "600 %"), ["--do", "accepted"]),
+    ((*SAT, "--do", "84 ppm"), ["--do", "unknown unit", "mg/L or %"]),
+    ((*SAT, "--do", "99"), ["--do", "0–25 mg/L", "did you mean 99 %?"]),
+    ((*SAT, "--do", "-1"), ["--do", "0–25 mg/L"]),
+    ((*SAT, "--do", "600 %"), ["--do", "0–300 %"]),
     ((*SAT, "--method", "chlorinity"), ["--method", "benson-krause", "garcia-gordon"]),
     ((*SAT, "--elevation", "high"), ["--elevation", "not a number"]),
-    ((*SAT, "--elevation", "20000"), ["--elevation", "accepted"]),
-    (("sat", "--temp", "80", "--pressure", "300 hPa"), ["--pressure", "water-vapour"]),
+    ((*SAT, "--elevation", "20000"), ["--elevation", "−430–6000 m", "feet"]),
+    ((*SAT, "--elevation", "20000 ft"), ["--elevation", "“20000 ft”", "6096 m"]),
     (("salinity", "--conductivity", "42.914", "--temp", "15"), ["--conductivity", "no unit"]),
+    (("salinity", "--conductivity", "42.914 mS/cm", "--temp", "99"), ["--temp", "−2–50 °C"]),
     (("salinity", "--conductivity", "42.914 mS/cm", "--temp", "x"), ["--temp", "not a number"]),
     (("salinity", "--conductivity", "42.914 mS/cm", "--temp", "15", "--pressure-dbar", "-5"),
      ["--pressure-dbar", "accepted"]),
@@ -223,3 +227,19 @@ def test_real_process_error_and_success():
 def test_help(cmd):
     code, out, _ = run(cmd, "--help")
     assert code == 0 and "--json" in out
+
+
+def test_top_level_help_prints_the_sat_line():
+    # a "%" in an argparse help string is a format directive: it must be written "%%"
+    code, out, _ = run("--help")
+    assert code == 0
+    line = next(x for x in out.splitlines() if x.strip().startswith("sat "))
+    assert "DO saturation target and % saturation of a reading" in line
+
+
+def test_elevation_in_feet_and_salinity_in_psu():
+    # 1 ft = 0.3048 m (NIST SP 811): 3937 ft is 1200 m, where a 29.92 inHg reading is sea-level adjusted
+    feet = run_json("sat", "--temp", "20", "--pressure", "29.92 inHg", "--elevation", "3937 ft", "--salinity", "0.2 psu")
+    metres = run_json("sat", "--temp", "20", "--pressure", "29.92 inHg", "--elevation", "1200", "--salinity", "0.2")
+    assert "pressure.sea_level_adjusted" in [f["code"] for f in feet["flags"]]
+    assert feet["do_sat_mg_l"] == metres["do_sat_mg_l"] and feet["salinity"] == 0.2

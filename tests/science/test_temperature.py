@@ -4,7 +4,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from core.science.temperature import c_to_f, f_to_c, fahrenheit_hint, parse_temperature
+from core.science.temperature import c_to_f, f_to_c, fahrenheit_hint
 
 
 def test_fixed_points():
@@ -13,24 +13,6 @@ def test_fixed_points():
     assert f_to_c(212.0) == pytest.approx(100.0)
     assert c_to_f(-40.0) == pytest.approx(-40.0)
     assert np.allclose(c_to_f(np.array([0.0, 100.0])), [32.0, 212.0])
-
-
-@pytest.mark.parametrize("text, default, want", [
-    ("18.5", "C", 18.5), ("18,5 °C", "C", 18.5), ("65 F", "C", (65 - 32) * 5 / 9),
-    ("65°F", "C", (65 - 32) * 5 / 9), ("65", "F", (65 - 32) * 5 / 9), ("291.65 K", "C", 18.5),
-    ("-0.5 degC", "C", -0.5), ("18.5 c", "C", 18.5),
-])
-def test_parse_temperature(text, default, want):
-    # definition of the scales (°F = °C·9/5 + 32; K = °C + 273.15)
-    assert parse_temperature(text, default_unit=default) == pytest.approx(want)
-
-
-@pytest.mark.parametrize("text, word", [("", "empty"), ("warm", "not a number"), ("18 Q", "unknown unit"),
-                                        ("-500 F", "absolute zero"), ("1,2.5", "not a number")])
-def test_parse_temperature_refuses(text, word):
-    with pytest.raises(ValueError) as e:
-        parse_temperature(text)
-    assert word in str(e.value) and "\n" not in str(e.value)
 
 
 def test_fahrenheit_hint():
