@@ -34,7 +34,8 @@ from core.records.models import Bottle, LabResult, Stop, Trip, new_id
 from core.science.winkler import SAFETY_NOTE
 
 __all__ = [
-    "WINKLER_ANALYTE", "BOD_ANALYTE", "WINKLER_METHOD", "BOD_METHOD", "CAUTION", "LabSettings",
+    "WINKLER_ANALYTE", "BOD_ANALYTE", "CBOD_ANALYTE", "WINKLER_METHOD", "BOD_METHOD", "CBOD_METHOD",
+    "reported_bod", "CAUTION", "LabSettings",
     "LabInputError", "Standardisation", "LabOutcome", "DuplicateCheck", "PendingBottle",
     "analyte_key", "current_result", "find_bottle", "record_winkler", "record_bod", "duplicate_checks",
     "pending_bottles", "relative_percent_difference", "WINKLER_KINDS", "BOD_KINDS",
@@ -44,8 +45,11 @@ __all__ = [
 #: them with :func:`analyte_key`, so "do-winkler" and "do_winkler" are the same analyte.
 WINKLER_ANALYTE = "do_winkler"
 BOD_ANALYTE = "bod5"
+#: CBOD5 (nitrification inhibitor added) is its own analyte, never mixed with BOD5 (Standard Methods 5210 B).
+CBOD_ANALYTE = "cbod5"
 WINKLER_METHOD = "Standard Methods 4500-O C (Winkler, azide modification)"
 BOD_METHOD = "Standard Methods 5210 B (5-day BOD, dilution)"
+CBOD_METHOD = "Standard Methods 5210 B (5-day carbonaceous BOD, nitrification inhibited)"
 
 #: Bottle kinds each analysis accepts.
 WINKLER_KINDS = ("do-fixed", "duplicate")
@@ -522,8 +526,9 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
                incubation_start: datetime | None = None, incubation_end: datetime | None = None,
                incubator_temp_c: float | None = None, analysed_at: datetime, now: datetime,
                analyst: str = "", notes: str = "", redo_reason: str | None = None,
-               settings: LabSettings | None = None, entered: dict[str, Any] | None = None) -> LabOutcome:
-    """Appends a BOD5 result (from a dilution series) to a bod (or duplicate) bottle of `trip`.
+               settings: LabSettings | None = None, entered: dict[str, Any] | None = None,
+               nitrification_inhibitor: bool = False) -> LabOutcome:
+    """Appends a BOD5 (or CBOD5) result (from a dilution series) to a bod (or duplicate) bottle of `trip`.
 
     BOD5 is the mean of the valid dilutions (:func:`core.science.bod.bod_from_dilutions`; a dilution counts
     with depletion ≥ 2.0 mg/L and residual DO ≥ 1.0 mg/L); seeded dilutions take the seed uptake
@@ -546,11 +551,16 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
         Incubator temperature, °C (20 ± 1 accepted).
     analysed_at, now, analyst, notes, redo_reason, settings, entered
         As in :func:`record_winkler`.
+    nitrification_inhibitor : bool
+        True when a nitrification inhibitor was added: the result is CBOD5 (analyte ``cbod5``), its own
+        analyte with its own re-analysis history.
 
     Returns
     -------
     LabOutcome
-        Flags from core.science.bod (``bod.*``) plus ``lab.bod_holding_exceeded`` (stop-and-check),
+        The result's ``inputs["derived"]["report"]`` is the reportable value
+        (:class:`core.science.bod.BodReport` as a dict: value, qualifier, text, basis, analyte; read it with
+        :func:`reported_bod`). Flags from core.science.bod (``bod.*``) plus ``lab.bod_holding_exceeded`` (stop-and-check),
         ``lab.bod_times_missing``, ``lab.bod_blank_missing``, ``lab.bod_gga_missing`` (notes),
         ``lab.bod_incubator_temp`` (warning). ``value`` is None when no dilution is valid;
         ``valid`` is False then, or when a stop-and-check flag fired.
@@ -565,7 +575,8 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
     settings = settings or LabSettings()
     stop, bottle, flags = _analysis_bottle(trip, bottle_ref, BOD_KINDS, "not a BOD sample",
                                            analysed_at, now, settings)
-    prev = _redo_check(bottle, BOD_ANALYTE, redo_reason, "BOD5")
+    analyte, what = (CBOD_ANALYTE, "CBOD5") if nitrification_inhibitor else (BOD_ANALYTE, "BOD5")
+    prev = _redo_check(bottle, analyte, redo_reason, what)
     derived: dict[str, Any] = {}
 
     dil = dilutions
@@ -579,13 +590,14 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
             dil = [dict(d, seed_uptake_mg_l_per_ml=d.get("seed_uptake_mg_l_per_ml", s))
                    if isinstance(d, dict) and d.get("seed_ml") else d for d in dil]
     try:
-        r = bod_from_dilutions(dil)
+        r = bod_from_dilutions(dil, nitrification_inhibitor=bool(nitrification_inhibitor))
     except ValueError as exc:
         msg = str(exc).splitlines()[0]
         raise LabInputError("dilutions", msg if msg.startswith("dilutions") else f"dilutions: {msg}") from None
     flags.extend(r.flags)
     derived["dilutions"] = [d.to_dict() for d in r.dilutions]
     derived["valid_dilutions"] = sum(1 for d in r.dilutions if d.valid)
+    derived["report"] = r.report.to_dict() if r.report is not None else None
 
     for value, field, check, code, missing, action in (
             (blank_depletion_mg_l, "blank_depletion_mg_l", blank_check, "lab.bod_blank_missing",
@@ -661,17 +673,57 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
         if incubation_start is not None:
             entered["incubation_start"] = incubation_start.isoformat()
             entered["incubation_end"] = incubation_end.isoformat()
+        if nitrification_inhibitor:
+            entered["nitrification_inhibitor"] = True
     extra = [f"Repeat analysis: {redo_reason.strip()}."] if prev is not None else []
     result = LabResult(
-        id=new_id(), analyte=BOD_ANALYTE, value=r.bod_mg_l, unit="mg/L", analysed_at=analysed_at,
-        analyst=(analyst or "").strip()[:40], method=BOD_METHOD,
+        id=new_id(), analyte=analyte, value=r.bod_mg_l, unit="mg/L", analysed_at=analysed_at,
+        analyst=(analyst or "").strip()[:40], method=CBOD_METHOD if nitrification_inhibitor else BOD_METHOD,
         inputs={"entered": _jsonable(entered), "used": {"dilutions": _jsonable(dil)}, "derived": derived,
                 "flags": [f.to_dict() for f in flags]},
         valid=bool(r.valid) and not any(f.severity == Severity.STOP for f in flags),
         notes=_notes(notes, flags, extra))
-    new_trip, new_stop, new_bottle, superseded = _append(trip, stop, bottle, result, BOD_ANALYTE,
+    new_trip, new_stop, new_bottle, superseded = _append(trip, stop, bottle, result, analyte,
                                                          redo_reason, analysed_at)
     return LabOutcome(new_trip, new_bottle.lab_results[-1], new_stop, new_bottle, superseded, flags)
+
+
+def reported_bod(result: LabResult):
+    """The reportable BOD5/CBOD5 of a lab result (:class:`core.science.bod.BodReport`), or None when it is
+    not a BOD result.
+
+    Results recorded before the report was stored get it rebuilt from their stored dilutions by the same
+    rules (:func:`core.science.bod.bod_report`).
+    """
+    from core.flags import Flag as _Flag
+    from core.science.bod import BodDilution, BodReport, bod_report
+
+    key = analyte_key(result.analyte)
+    if key not in (analyte_key(BOD_ANALYTE), analyte_key(CBOD_ANALYTE)):
+        return None
+    derived = (result.inputs or {}).get("derived") or {}
+    analyte = "CBOD5" if key == analyte_key(CBOD_ANALYTE) else "BOD5"
+    stored = derived.get("report")
+    if isinstance(stored, dict) and "text" in stored:
+        return BodReport(stored.get("value"), stored.get("qualifier"), stored["text"], stored.get("basis", ""),
+                         stored.get("analyte", analyte))
+    dils = []
+    for d in derived.get("dilutions") or []:
+        try:
+            dils.append(BodDilution(bod_mg_l=float(d["bod_mg_l"]), depletion_mg_l=float(d["depletion_mg_l"]),
+                                    valid=bool(d["valid"]),
+                                    flags=[_Flag(f["code"], Severity(f["severity"]), f.get("message", ""),
+                                                 f.get("action", ""), f.get("field"))
+                                           for f in d.get("flags") or []],
+                                    sample_ml=float(d["sample_ml"]), bottle_ml=float(d.get("bottle_ml", 300.0)),
+                                    seed_correction_mg_l=float(d.get("seed_correction_mg_l", 0.0))))
+        except (KeyError, TypeError, ValueError):
+            return None
+    if not dils:
+        if result.value is None:
+            return None
+        return BodReport(float(result.value), None, f"{float(result.value):.1f} mg/L", "mean", analyte)
+    return bod_report(dils, analyte)[0]
 
 
 def _jsonable(x: Any) -> Any:
@@ -727,7 +779,8 @@ class DuplicateCheck:
 def _dup_analyte(b: Bottle) -> str:
     """Which analysis a duplicate bottle belongs to: its results' analyte, else by fixing."""
     for r in reversed(b.lab_results):
-        if analyte_key(r.analyte) in (analyte_key(WINKLER_ANALYTE), analyte_key(BOD_ANALYTE)):
+        if analyte_key(r.analyte) in (analyte_key(WINKLER_ANALYTE), analyte_key(BOD_ANALYTE),
+                                      analyte_key(CBOD_ANALYTE)):
             return analyte_key(r.analyte)
     return analyte_key(WINKLER_ANALYTE) if b.fixed_at is not None else analyte_key(BOD_ANALYTE)
 
@@ -850,6 +903,8 @@ def pending_bottles(trips: Iterable[Trip], now: datetime, settings: LabSettings 
                     continue
                 if current_result(b, analyte) is not None or b.collected_at > now:
                     continue
+                if analyte == BOD_ANALYTE and current_result(b, CBOD_ANALYTE) is not None:
+                    continue  # the bottle went to CBOD5 instead: analysed
                 fixed = b.fixed_at if (kind == "do_winkler" and b.fixed_at is not None
                                        and b.fixed_at >= b.collected_at) else None
                 try:

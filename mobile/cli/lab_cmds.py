@@ -213,7 +213,7 @@ def _winkler(args) -> int:  # noqa: ANN001
     return 0
 
 
-def _read_dilutions(path_text: str) -> tuple[Any, Any]:
+def _read_dilutions(path_text: str) -> tuple[Any, Any, bool]:
     path = Path(path_text)
     try:
         raw = path.read_text(encoding="utf-8")
@@ -227,23 +227,29 @@ def _read_dilutions(path_text: str) -> tuple[Any, Any]:
         fail(f"--dilutions {path_text!r} is not valid JSON (line {exc.lineno}, column {exc.colno}); accepted: a"
              " list of dilutions or an object with \"dilutions\" (and \"seed_controls\")")
     controls = None
+    inhibitor = False
     if isinstance(doc, dict):
-        unknown = sorted(set(doc) - {"dilutions", "seed_controls"})
+        unknown = sorted(set(doc) - {"dilutions", "seed_controls", "nitrification_inhibitor"})
         if unknown:
             fail(f"--dilutions {path_text!r} has an unknown key {unknown[0]!r}; accepted keys: dilutions,"
-                 " seed_controls")
+                 " seed_controls, nitrification_inhibitor")
+        inhibitor = doc.get("nitrification_inhibitor", False)
+        if not isinstance(inhibitor, bool):
+            fail(f"--dilutions {path_text!r}: nitrification_inhibitor is not true or false; accepted: true"
+                 " (CBOD5) or false (BOD5)")
         controls = doc.get("seed_controls")
         doc = doc.get("dilutions")
     if not isinstance(doc, list) or not doc:
         fail(f"--dilutions {path_text!r} holds no list of dilutions; accepted: a JSON list of objects with"
              " initial_do_mg_l, final_do_mg_l, sample_ml (or an object with \"dilutions\")")
-    return doc, controls
+    return doc, controls, inhibitor
 
 
 def _bod(args) -> int:  # noqa: ANN001
     from core.rules.lab import LabInputError, record_bod
 
-    dilutions, controls = _read_dilutions(args.dilutions)
+    dilutions, controls, inhibitor = _read_dilutions(args.dilutions)
+    inhibitor = inhibitor or bool(args.nitrification_inhibitor)
     mg = ("mg/L", "mg/l")
     blank = _number(args.blank_depletion, "--blank-depletion", "dilution-water blank depletion in mg/L"
                                                                " (≤ 0.20 passes)", mg)
@@ -266,22 +272,25 @@ def _bod(args) -> int:  # noqa: ANN001
         out = record_bod(trip, args.bottle, dilutions=dilutions, seed_controls=controls, blank_depletion_mg_l=blank,
                          gga_bod_mg_l=gga, incubation_start=start, incubation_end=end, incubator_temp_c=temp,
                          analysed_at=at, now=now, analyst=args.analyst or "", notes=args.notes or "",
-                         redo_reason=args.redo, settings=settings, entered=entered)
+                         redo_reason=args.redo, settings=settings, entered=entered,
+                         nitrification_inhibitor=inhibitor)
     except LabInputError as exc:
         raise _lab_error(exc) from None
-    shown = "no valid dilution" if out.result.value is None else f"{out.result.value:.1f} mg/L"
-    saved = _save(store, out, f"lab: BOD5 {shown} on bottle {out.bottle.label}"
+    report = out.result.inputs["derived"]["report"]
+    what = report["analyte"]
+    shown = report["text"]
+    saved = _save(store, out, f"lab: {what} {shown} on bottle {out.bottle.label}"
                               + (f" ({out.result.analyst})" if out.result.analyst else "")
                               + (" (repeat)" if out.superseded else ""))
     d = out.result.inputs["derived"]
-    data = {**out.to_dict(), "bod_mg_l": out.result.value, "valid": out.result.valid,
-            "dilutions": d["dilutions"], "revision": saved.revision}
+    data = {**out.to_dict(), "bod_mg_l": out.result.value, "valid": out.result.valid, "analyte": what,
+            "report": report, "dilutions": d["dilutions"], "revision": saved.revision}
     if args.json:
         emit_json(data)
         return 0
     rows = [("trip", f"{saved.id[:8]} (revision {saved.revision})"),
             ("bottle", f"{out.bottle.label} ({out.bottle.kind}) at {out.stop.site_id}"),
-            ("BOD5", shown + ("" if out.result.valid else " (NOT valid)"))]
+            (what, shown + ("" if out.result.valid or report["qualifier"] else " (NOT valid)"))]
     for i, dil in enumerate(d["dilutions"], 1):
         rows.append((f"dilution {i}", f"{dil['sample_ml']:g} mL: {dil['bod_mg_l']:.1f} mg/L, depletion"
                                       f" {dil['depletion_mg_l']:.2f} mg/L, {'valid' if dil['valid'] else 'not valid'}"))
@@ -363,6 +372,8 @@ def _pending(args) -> int:  # noqa: ANN001
 
 
 def _results(args) -> int:  # noqa: ANN001
+    from core.rules.lab import reported_bod
+
     store = _store(args)
     trip = _trip(store, args.trip)
     rows = []
@@ -370,8 +381,10 @@ def _results(args) -> int:  # noqa: ANN001
         for b in stop.bottles:
             for r in b.lab_results:
                 inputs = r.inputs or {}
+                rep = reported_bod(r)
                 rows.append({"site_id": stop.site_id, "bottle_id": b.id, "label": b.label, "kind": b.kind,
                              "result_id": r.id, "analyte": r.analyte, "value": r.value, "unit": r.unit,
+                             "report": None if rep is None else rep.to_dict(),
                              "analysed_at": r.analysed_at.isoformat() if r.analysed_at else None,
                              "analyst": r.analyst, "method": r.method, "valid": r.valid,
                              "superseded_by": inputs.get("superseded_by"), "flags": inputs.get("flags", [])})
@@ -383,6 +396,8 @@ def _results(args) -> int:  # noqa: ANN001
         return 0
     for r in rows:
         value = "—" if r["value"] is None else f"{r['value']:.2f} {r['unit']}"
+        if r["report"] is not None:
+            value = r["report"]["text"] if r["report"]["value"] is not None else "—"
         state = f"superseded by {r['superseded_by'][:8]}" if r["superseded_by"] else (
             "valid" if r["valid"] else ("NOT valid" if r["valid"] is False else "not checked"))
         sys.stdout.write(f"{r['site_id']:<7} {r['label']:<10} {r['analyte']:<11} {value:>11}  "
@@ -456,6 +471,8 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     p.add_argument("--incubation-start", metavar="ISO-TIME", help="when the bottles were set up")
     p.add_argument("--incubation-end", metavar="ISO-TIME", help="when they were read after 5 days")
     p.add_argument("--incubator-temp", metavar="C", help="incubator temperature, °C")
+    p.add_argument("--nitrification-inhibitor", action="store_true",
+                   help="a nitrification inhibitor was added: records CBOD5, its own analyte")
     _common(p)
     p.set_defaults(handler=_bod)
 

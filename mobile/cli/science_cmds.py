@@ -181,7 +181,7 @@ _BOD_SINGLE = ("initial", "final", "sample_ml", "seed_ml", "seed_uptake")
 
 
 def _bod(args) -> int:
-    from core.science.bod import bod_dilution
+    from core.science.bod import BOD_ANALYTES, bod_dilution, bod_report
 
     given = [n for n in _BOD_SINGLE if getattr(args, n) is not None]
     if args.dilutions is not None:
@@ -213,12 +213,16 @@ def _bod(args) -> int:
         d = bod_dilution(**kw)
     except ValueError as exc:
         raise CliError(_name_option(str(exc), names)) from None
-    flags = [f.to_dict() for f in d.flags]
+    analyte = BOD_ANALYTES[1] if args.nitrification_inhibitor else BOD_ANALYTES[0]
+    report, report_flags = bod_report([d], analyte)
+    flags = [f.to_dict() for f in d.flags + report_flags]
     if args.json:
-        emit_json({"bod_mg_l": d.bod_mg_l, "valid": d.valid, "flags": flags,
-                   "depletion_mg_l": d.depletion_mg_l, "seed_correction_mg_l": d.seed_correction_mg_l})
+        emit_json({"bod_mg_l": d.bod_mg_l, "valid": d.valid, "analyte": analyte, "report": report.to_dict(),
+                   "flags": flags, "depletion_mg_l": d.depletion_mg_l,
+                   "seed_correction_mg_l": d.seed_correction_mg_l})
         return 0
-    emit_table([("BOD5", _fmt(d.bod_mg_l, 1, "mg/L") + ("" if d.valid else " (not valid)")),
+    emit_table([(analyte, report.text),
+                ("this dilution", _fmt(d.bod_mg_l, 1, "mg/L") + ("" if d.valid else " (not valid)")),
                 ("depletion", _fmt(d.depletion_mg_l, 2, "mg/L")),
                 ("seed correction", _fmt(d.seed_correction_mg_l, 2, "mg/L"))] + _flag_rows(flags))
     return 0
@@ -241,11 +245,16 @@ def _bod_file(args) -> int:
         raise CliError(f"--dilutions {str(path)!r} is not valid JSON (line {exc.lineno}, column {exc.colno});"
                        " accepted: a list of dilutions or an object with \"dilutions\"") from None
     controls = None
+    inhibitor = bool(args.nitrification_inhibitor)
     if isinstance(doc, dict):
-        unknown = sorted(set(doc) - {"dilutions", "seed_controls"})
+        unknown = sorted(set(doc) - {"dilutions", "seed_controls", "nitrification_inhibitor"})
         if unknown:
             raise CliError(f"--dilutions {str(path)!r} has an unknown key {unknown[0]!r}; accepted keys:"
-                           " dilutions, seed_controls")
+                           " dilutions, seed_controls, nitrification_inhibitor")
+        if not isinstance(doc.get("nitrification_inhibitor", False), bool):
+            raise CliError(f"--dilutions {str(path)!r}: nitrification_inhibitor is not true or false;"
+                           " accepted: true (CBOD5) or false (BOD5)")
+        inhibitor = inhibitor or doc.get("nitrification_inhibitor", False)
         controls = doc.get("seed_controls")
         doc = doc.get("dilutions")
     if not isinstance(doc, list):
@@ -255,12 +264,12 @@ def _bod_file(args) -> int:
         s = _core("--dilutions seed_controls", seed_uptake_per_ml, controls)
         doc = [dict(d, seed_uptake_mg_l_per_ml=d.get("seed_uptake_mg_l_per_ml", s))
                if isinstance(d, dict) and d.get("seed_ml") else d for d in doc]
-    r = _core("--dilutions", bod_from_dilutions, doc)
+    r = _core("--dilutions", bod_from_dilutions, doc, nitrification_inhibitor=inhibitor)
     d = r.to_dict()
     if args.json:
         emit_json(d)
         return 0
-    rows = [("BOD5", _fmt(r.bod_mg_l, 1, "mg/L") if r.valid else "no valid dilution")]
+    rows = [(r.analyte, r.report.text if r.report is not None else "-")]
     for i, dil in enumerate(r.dilutions, 1):
         rows.append((f"dilution {i}", f"{dil.sample_ml:g} mL: {dil.bod_mg_l:.1f} mg/L, depletion"
                                       f" {dil.depletion_mg_l:.2f} mg/L, {'valid' if dil.valid else 'not valid'}"))
@@ -315,13 +324,17 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
 
     p = sub.add_parser("bod", help="BOD5 from a dilution (or a file of dilutions)",
                        description="BOD5 by Standard Methods 5210 B: one dilution from the options, or several"
-                                   " of one sample from a JSON file.")
+                                   " of one sample from a JSON file. The reported result follows 5210 B: the"
+                                   " mean of agreeing valid dilutions, '< bound' when no dilution used 2.0 mg/L,"
+                                   " '> bound' when every dilution ended under 1.0 mg/L.")
     p.add_argument("--initial", help="initial DO of the dilution, mg/L")
     p.add_argument("--final", help="DO after 5 days, mg/L")
     p.add_argument("--sample-ml", help="sample volume in the bottle, mL")
     p.add_argument("--bottle-ml", default="300", help="bottle volume, mL (default 300)")
     p.add_argument("--seed-ml", help="seed volume in the bottle, mL")
     p.add_argument("--seed-uptake", help="seed uptake, mg/L per mL of seed")
+    p.add_argument("--nitrification-inhibitor", action="store_true",
+                   help="a nitrification inhibitor was added: the result is CBOD5, reported as its own analyte")
     p.add_argument("--dilutions", metavar="FILE",
                    help="JSON file: a list of {initial_do_mg_l, final_do_mg_l, sample_ml[, bottle_ml, seed_ml,"
                         " seed_uptake_mg_l_per_ml]} or an object with dilutions and seed_controls")

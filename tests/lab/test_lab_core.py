@@ -6,7 +6,7 @@ from datetime import datetime, timedelta, timezone
 import pytest
 
 from core.flags import Severity
-from core.rules.lab import (BOD_ANALYTE, CAUTION, WINKLER_ANALYTE, LabInputError, LabSettings, Standardisation,
+from core.rules.lab import (BOD_ANALYTE, CAUTION, CBOD_ANALYTE, reported_bod, WINKLER_ANALYTE, LabInputError, LabSettings, Standardisation,
                       current_result, duplicate_checks, find_bottle, pending_bottles, record_bod, record_winkler,
                       relative_percent_difference)
 from core.records.models import Bottle, LabResult, Site, Stop, Trip, measure
@@ -305,10 +305,40 @@ def test_bod_mean_of_valid_dilutions():
 
 
 def test_bod_no_valid_dilution():
+    # Standard Methods 5210 B [from memory]: no dilution depleted 2.0 mg/L -> report "< 2.0 / P" from the
+    # largest sample fraction (30 of 300 mL: < 20 mg/L); the dilution itself stays not valid
     small = {"initial_do_mg_l": 8.6, "final_do_mg_l": 7.9, "sample_ml": 30.0}  # depletion 0.7 < 2.0
     out = bod(bod_trip(), dilutions=[small])
     assert out.result.value is None and out.result.valid is False
-    assert "bod.no_valid_dilution" in codes(out)
+    assert "bod.reported_below_bound" in codes(out) and "bod.no_valid_dilution" not in codes(out)
+    report = out.result.inputs["derived"]["report"]
+    assert report["qualifier"] == "<" and report["value"] == pytest.approx(20.0) and report["text"] == "< 20.0 mg/L"
+    assert reported_bod(out.result).text == "< 20.0 mg/L"
+    # neither rule applies (one bottle ran out of oxygen, the other used too little): no value
+    mixed = [{"initial_do_mg_l": 8.6, "final_do_mg_l": 0.4, "sample_ml": 150.0},
+             {"initial_do_mg_l": 8.6, "final_do_mg_l": 8.1, "sample_ml": 3.0}]
+    out = bod(bod_trip(), dilutions=mixed)
+    assert "bod.no_valid_dilution" in codes(out) and out.result.inputs["derived"]["report"]["value"] is None
+
+
+def test_cbod5_is_its_own_analyte():
+    # Standard Methods 5210 B: CBOD5 (nitrification inhibitor) is reported as its own parameter
+    out = bod(bod_trip(), dilutions=[D30], nitrification_inhibitor=True)
+    assert out.result.analyte == CBOD_ANALYTE and "carbonaceous" in out.result.method
+    assert out.result.inputs["derived"]["report"]["analyte"] == "CBOD5"
+    # a BOD5 on the same bottle is not a re-analysis of the CBOD5 (no reason asked, nothing superseded)
+    again = bod(out.trip, dilutions=[D30])
+    assert again.result.analyte == BOD_ANALYTE and again.superseded == []
+    # without the inhibitor the result is BOD5 (the rule not firing)
+    assert bod(bod_trip(), dilutions=[D30]).result.analyte == BOD_ANALYTE
+
+
+def test_reported_bod_rebuilds_the_report_of_an_older_result():
+    out = bod(bod_trip(), dilutions=[D30])
+    old = out.result.model_copy(update={"inputs": {**out.result.inputs,
+                                                   "derived": {k: v for k, v in out.result.inputs["derived"].items()
+                                                               if k != "report"}}})
+    assert reported_bod(old).to_dict() == out.result.inputs["derived"]["report"]
 
 
 def test_bod_seeded_from_controls():

@@ -113,8 +113,21 @@ def test_bod_dilutions_file(tmp_path):
     g.write_text(json.dumps([{"initial_do_mg_l": 8.6, "final_do_mg_l": 8.0, "sample_ml": 300.0}]))
     d = run_json("bod", "--dilutions", str(g))
     assert d["bod_mg_l"] is None and d["valid"] is False
+    # 5210 B [from memory]: undiluted and under 2.0 mg/L depletion -> "< 2.0 mg/L"
+    assert d["report"] == {"value": 2.0, "qualifier": "<", "text": "< 2.0 mg/L", "basis": "below-bound",
+                           "analyte": "BOD5"}
     code, out, _ = run("bod", "--dilutions", str(g))
-    assert code == 0 and "no valid dilution" in out
+    assert code == 0 and "< 2.0 mg/L" in out
+
+
+def test_bod_json_report_single_dilution():
+    # 5210 B [from memory]: the only dilution ran out of oxygen -> "> (D1 − D2)/P" = > 8.4/0.1 = > 84.0
+    d = run_json("bod", "--initial", "8.6", "--final", "0.2", "--sample-ml", "30")
+    assert d["report"]["qualifier"] == ">" and d["report"]["text"] == "> 84.0 mg/L"
+    assert "bod.reported_above_bound" in [f["code"] for f in d["flags"]]
+    ok = run_json("bod", "--initial", "8.6", "--final", "4.1", "--sample-ml", "30", "--nitrification-inhibitor")
+    assert ok["report"] == {"value": pytest.approx(45.0), "qualifier": None, "text": "45.0 mg/L",
+                            "basis": "single", "analyte": "CBOD5"}
 
 
 SAT = ("sat", "--temp", "18.5", "--pressure", "752 mmHg")
