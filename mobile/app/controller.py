@@ -118,11 +118,14 @@ class AppController:
             raise ValueError("Site code is empty; type a short code such as LK-07.")
         if not name:
             raise ValueError("Site name is empty; type the name crews use for it.")
-        elevation_m = parse_decimal(elevation_text, label="Elevation")
-        if elevation_m is None:
-            raise ValueError("Elevation is empty; type the site's elevation in metres (−400 to 5000).")
-        if not -400 <= elevation_m <= 5000:
-            raise ValueError(f"Elevation {elevation_m:g} m is outside −400 to 5000 m; type it in metres.")
+        from core.science.quantities import QuantityError, range_text, read
+
+        if not (elevation_text or "").strip():
+            raise ValueError(f"Elevation is empty; type the site's elevation in metres ({range_text('elevation')}).")
+        try:  # core's grammar and the one table of limits (m, or ft converted)
+            elevation_m = read("elevation", elevation_text, "Elevation").value
+        except QuantityError as exc:
+            raise ValueError(exc.message) from None
         if any(s.id == code for s in self.sites()):
             raise ValueError(f"Site code {code} is already on this tablet; pick it from the list.")
         try:
@@ -578,7 +581,7 @@ class AppController:
             if not cal.reading_text.strip():
                 view.detail = "Type the meter's reading in water-saturated air."
                 return view
-            r = parse_number(cal.reading_text, "reading_mg_l")
+            r = parse_number(cal.reading_text, "reading_mg_l", limit="calibration_reading")
             fn = calibration.post_trip_check if post else calibration.check_calibration
             res = fn(r, t, p, tolerance_mg_l=self.prefs.tolerance_mg_l, method=self.prefs.method)
         except InputError as exc:

@@ -114,10 +114,8 @@ def _cal_document(cal: CalForm, kind: str, tolerance_mg_l: float) -> dict[str, A
     try:
         t = measure("temp", f"{cal.temp_text.strip()} {TEMP_UNIT_TEXT.get(cal.temp_unit, '°C')}", field="temp")
         p = measure("pressure", f"{cal.pressure_text.strip()} {cal.pressure_unit}", field="pressure")
-        r = parse_number(cal.reading_text, "reading_mg_l")
+        r = parse_number(cal.reading_text, "reading_mg_l", limit="calibration_reading")
     except InputError:
-        return None
-    if not 0 <= r <= 25:
         return None
     return {"id": cal.id, "kind": kind, "at": _iso(cal.at or datetime.now().astimezone()),
             "temp": t.model_dump(mode="json"), "pressure": p.model_dump(mode="json"),
