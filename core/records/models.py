@@ -370,7 +370,10 @@ class ProgramSettings(_Record):
     cold_min_mg_l: float = Field(6.5, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1])    # US EPA 440/5-86-003 (1986) cold-water 30-day mean, from memory
     supersaturation_percent: float = Field(120.0, ge=LIMITS["supersaturation"][0], le=LIMITS["supersaturation"][1])   # common practice
     hypoxic_mg_l: float = Field(2.0, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1])     # common practice
-    calibration_tolerance_mg_l: float = Field(0.2, gt=LIMITS["tolerance"][0], le=LIMITS["tolerance"][1])  # common practice (USGS NFM A6.2 method)
+    calibration_tolerance_mg_l: float = Field(0.2, gt=LIMITS["tolerance"][0], le=LIMITS["tolerance"][1])
+    #: What the program's meters mean by 100 %: saturation at the local pressure, or at 760 mmHg
+    #: (core.science.oxygen.PERCENT_BASES); a trip's own meter setting (Trip.meter_percent_basis) wins.
+    percent_basis: Literal["local", "sea-level"] = "local"  # common practice (USGS NFM A6.2 method)
     #: Holding-time overrides by kind (hours), e.g. {"bod": 24} for a stricter SOP.
     holding_overrides_h: dict[str, float] = Field(default_factory=dict)
     #: Plausible stream ranges (warning outside; common practice, adjust per program).
@@ -487,6 +490,8 @@ class Trip(_Record):
     program: str = Field(default="", max_length=120)
     crew: list[str] = Field(default_factory=list)
     meter_id: str = Field(default="", max_length=64)
+    #: This trip's meter's % basis ("local" or "sea-level"); None: the program setting.
+    meter_percent_basis: Literal["local", "sea-level"] | None = None
     started_at: AwareDatetime
     ended_at: AwareDatetime | None = None
     pre_calibration: Calibration | None = None

@@ -81,13 +81,17 @@ def _criteria_for(site: Site | None, settings: ProgramSettings):
     return crit, water_class
 
 
-def derive_stop(stop: Stop, site: Site | None, settings: ProgramSettings) -> Derived | None:
-    """Saturation target, % saturation, salinity and science flags for one stop (None without T and P)."""
+def derive_stop(stop: Stop, site: Site | None, settings: ProgramSettings,
+                percent_basis: str | None = None) -> Derived | None:
+    """Saturation target, % saturation, salinity and science flags for one stop (None without T and P).
+
+    `percent_basis` is the trip meter's % basis; None uses the program setting."""
     if stop.temp is None or stop.pressure is None:
         return None
     from core.science.assess import assess_reading
 
-    kwargs: dict[str, Any] = {"method": settings.method}
+    kwargs: dict[str, Any] = {"method": settings.method,
+                              "percent_basis": percent_basis or settings.percent_basis}
     if stop.conductivity is not None:
         kwargs["conductivity_us_cm"] = stop.conductivity.value
         kwargs["conductivity_is_sc25"] = stop.conductivity_is_sc25
@@ -135,7 +139,7 @@ def derive_calibration(cal: Calibration | None, settings: ProgramSettings, *, po
         "flags": [FlagRecord.from_flag(f) for f in r.flags]})
 
 
-def derive_basis(site: Site | None, settings: ProgramSettings) -> str:
+def derive_basis(site: Site | None, settings: ProgramSettings, percent_basis: str | None = None) -> str:
     """Fingerprint of what a stop's derived values depend on besides its own inputs."""
     import hashlib
 
@@ -143,6 +147,8 @@ def derive_basis(site: Site | None, settings: ProgramSettings) -> str:
 
     basis = {"site": site.model_dump(mode="json") if site is not None else None,
              "settings": settings.model_dump(mode="json"), "core": core_version()}
+    if percent_basis is not None:   # only when the trip's meter says; older fingerprints stay valid
+        basis["meter_percent_basis"] = percent_basis
     return hashlib.sha256(canonical_json_bytes(basis)).hexdigest()[:16]
 
 
@@ -173,11 +179,13 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
         old_stops = {s.get("id"): s for s in previous.get("stops") or [] if isinstance(s, dict)}
     bases = {} if bases is None else bases
     new_stops: list[Stop] = []
+    meter_basis = trip.meter_percent_basis
     for stop, stop_doc in zip(trip.stops, doc["stops"]):
         site = sites.get(stop.site_id)
-        if stop.site_id not in bases:
-            bases[stop.site_id] = derive_basis(site, settings)
-        basis = bases[stop.site_id]
+        key = stop.site_id if meter_basis is None else f"{stop.site_id}\x00{meter_basis}"
+        if key not in bases:
+            bases[key] = derive_basis(site, settings, meter_basis)
+        basis = bases[key]
         old = old_stops.get(stop.id)
         if (old is not None and isinstance(old.get("derived"), dict)
                 and old["derived"].get("basis") == basis
@@ -189,7 +197,7 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
                 new_stops.append(stop.model_copy(update={"derived": Derived.model_validate_json(_json(old["derived"]))}))
             stop_doc["derived"] = old["derived"]
             continue
-        derived = derive_stop(stop, site, settings)
+        derived = derive_stop(stop, site, settings, meter_basis)
         if derived is not None:
             derived = derived.model_copy(update={"basis": basis})
         stop_doc["derived"] = None if derived is None else derived.model_dump(mode="json")

@@ -388,7 +388,8 @@ class AppController:
         if record is None:
             return None, errors
         site = self.site(stop.site_id)
-        derived = derive_stop(record, site, self.settings())
+        basis = self.trip.meter_percent_basis if self.trip is not None else None
+        derived = derive_stop(record, site, self.settings(), basis)
         return record.model_copy(update={"derived": derived}), errors
 
     def stop_view(self, stop: StopForm | None = None) -> StopView:

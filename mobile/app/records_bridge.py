@@ -139,6 +139,8 @@ def trip_from_form(form: TripForm, previous: Any, ctl: Any):
     crew = [c.strip() for c in form.crew.replace(";", ",").split(",") if c.strip()]
     doc.update(id=form.id, program=form.program.strip(), crew=crew, meter_id=form.meter_id.strip(),
                started_at=_iso(form.started_at), ended_at=_iso(form.ended_at), stops=stops)
+    if form.meter_percent_basis is not None or doc.get("meter_percent_basis") is not None:
+        doc["meter_percent_basis"] = form.meter_percent_basis
     doc.setdefault("revision", 0)
     tol = ctl.prefs.tolerance_mg_l if ctl is not None else 0.2
     doc["pre_calibration"] = _cal_document(form.pre_cal, "pre-trip", tol) or doc.get("pre_calibration")
@@ -202,6 +204,7 @@ def form_from_trip(trip: Any) -> TripForm:
                        reading_text=f"{c.reading_mg_l:g}", at=c.at.astimezone())
 
     return TripForm(id=trip.id, program=trip.program, crew=", ".join(trip.crew), meter_id=trip.meter_id,
+                    meter_percent_basis=trip.meter_percent_basis,
                     started_at=trip.started_at.astimezone(),
                     ended_at=trip.ended_at.astimezone() if trip.ended_at else None,
                     pre_cal=cal(trip.pre_calibration), post_check=cal(trip.post_check), stops=stops)

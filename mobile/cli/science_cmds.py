@@ -75,7 +75,7 @@ def _sat(args) -> int:
     try:
         a = assess_reading(temp_c, pressure_hpa, salinity=salinity, conductivity_us_cm=cond,
                            conductivity_is_sc25=bool(args.at_25), do_mg_l=do_mg_l, do_percent=do_percent,
-                           method=args.method, elevation_m=elevation)
+                           method=args.method, elevation_m=elevation, percent_basis=args.percent_basis)
     except ValueError as exc:
         msg = _which_sat_option(str(exc))
         if cond is not None and msg.startswith("--salinity"):
@@ -96,7 +96,7 @@ def _sat(args) -> int:
         rows.append(("specific conductance", _fmt(a.specific_conductance_us_cm, 0, "µS/cm at 25 °C")))
     if a.do_mg_l is not None:
         rows.append(("DO", _fmt(a.do_mg_l, 2, "mg/L")))
-        rows.append(("saturation %", _fmt(a.percent_saturation, 1, "%")))
+        rows.append(("saturation %", _fmt(a.percent_saturation, 1, "% (of local saturation)")))
     rows += _flag_rows(d["flags"])
     emit_table(rows)
     return 0
@@ -282,7 +282,7 @@ def _bod_file(args) -> int:
 
 def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     """Adds this module's sub-commands (sat, salinity, winkler, bod) to the top-level parser."""
-    from core.science.oxygen import METHODS
+    from core.science.oxygen import METHODS, PERCENT_BASES
 
     p = sub.add_parser("sat", help="DO saturation target and %% saturation of a reading",
                        description="Saturation target at the water temperature and station pressure; with --do,"
@@ -297,6 +297,9 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     p.add_argument("--do", help="DO reading in mg/L (e.g. 8.4), or in %% written with %% (e.g. '92 %%')")
     p.add_argument("--elevation", help="site elevation, e.g. 1200 (m) or '3900 ft'; checks for a"
                                        " sea-level-adjusted pressure")
+    p.add_argument("--percent-basis", default="local", choices=PERCENT_BASES,
+                   help="what the meter's 100 %% is: saturation at the local pressure (default) or at 760 mmHg"
+                        " (sea-level); used when --do is in %%")
     p.add_argument("--method", default="benson-krause", choices=METHODS, help="solubility equation")
     p.add_argument("--json", action="store_true", help="print JSON")
     p.set_defaults(handler=_sat)
