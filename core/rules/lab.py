@@ -57,9 +57,6 @@ BOD_KINDS = ("bod", "duplicate")
 
 CAUTION = SAFETY_NOTE  # one caution text for field and lab (core.science.winkler)
 
-#: Computed Winkler DO above this is taken as a typing or unit mistake worth a stop (common practice:
-#: streams rarely exceed about 20 mg/L even when strongly supersaturated).
-_DO_IMPLAUSIBLE_MG_L = 20.0
 #: BOD incubator temperature, 20 ± 1 °C (Standard Methods 5210 B, from memory).
 _INCUBATOR_C = (19.0, 21.0)
 _NOTES_MAX = 2000
@@ -443,6 +440,10 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
                            "Check the field sheet for the fixing time; qualify the result if it is unknown.",
                            "fixed_at"))
     fixed = bottle.fixed_at if bottle.fixed_at is not None and bottle.fixed_at >= bottle.collected_at else None
+    if fixed is not None:
+        from core.science.winkler import winkler_plausibility_flags
+
+        flags.extend(winkler_plausibility_flags(collected_at=bottle.collected_at, fixed_at=fixed))
     if bottle.fixed_at is not None and fixed is None:
         flags.append(_flag("lab.fixing_time_doubtful", Severity.WARNING,
                            f"Bottle {bottle.label}'s fixing time ({bottle.fixed_at.isoformat(timespec='minutes')}) is"
@@ -451,14 +452,15 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
                            "Correct the field record's times.", "fixed_at"))
     clock = holding_clock("do_winkler", bottle.collected_at, analysed_at, fixed_at=fixed,
                           overrides=settings.holding_overrides_h or None)
-    start = fixed or bottle.collected_at
+    from_fixing = clock.rule.clock_from == "fixing" and fixed is not None
+    start = fixed if from_fixing else bottle.collected_at
     held_h = (analysed_at - start).total_seconds() / 3600.0
-    derived["holding"] = {"kind": "do_winkler", "from": "fixing" if fixed else "collection",
+    derived["holding"] = {"kind": "do_winkler", "from": "fixing" if from_fixing else "collection",
                           "held_h": held_h, "limit_h": clock.rule.hours, "deadline": clock.deadline.isoformat(),
                           "citation": clock.rule.citation}
     if clock.expired:
         flags.append(_flag("lab.holding_exceeded", Severity.STOP,
-                           f"Titrated {_fmt_h(held_h)} after {'fixing' if fixed else 'collection'}, past the"
+                           f"Titrated {_fmt_h(held_h)} after {'fixing' if from_fixing else 'collection'}, past the"
                            f" {clock.rule.hours:g} h Winkler holding time (deadline"
                            f" {clock.deadline.isoformat(timespec='minutes')}).",
                            "Report the result only as the program's SOP allows, qualified as past its holding time.",
@@ -492,11 +494,9 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
                                f" (air bubble, late or incomplete fixing).{seen}",
                                "Check the trip's calibration records and the field notes before relying on either"
                                " value.", "do"))
-    if do > _DO_IMPLAUSIBLE_MG_L:
-        flags.append(_flag("lab.do_implausible", Severity.STOP,
-                           f"Winkler DO {do:.2f} mg/L is above {_DO_IMPLAUSIBLE_MG_L:g} mg/L, which a stream rarely"
-                           " reaches: a typing mistake in the titrant volume or normality?",
-                           "Check the bench sheet and the normality; re-titrate if the bottle allows.", "titrant_ml"))
+    from core.science.winkler import winkler_plausibility_flags
+
+    flags.extend(winkler_plausibility_flags(do_mg_l=do, normality=n))
 
     flags.sort(key=_sev_rank, reverse=True)
     used = {"titrant_ml": float(titrant_ml), "titrated_ml": float(titrated_ml), "bottle_ml": float(bottle_ml),
@@ -927,7 +927,8 @@ def pending_bottles(trips: Iterable[Trip], now: datetime, settings: LabSettings 
                 status = "expired" if clock.expired else ("soon" if clock.flag is not None else "in time")
                 out.append(PendingBottle(
                     trip.id, trip.program, stop.id, stop.site_id, b.id, b.label, b.kind, analyte, b.collected_at,
-                    b.fixed_at, "fixing" if fixed else "collection", clock.deadline, clock.remaining_s,
+                    b.fixed_at, "fixing" if (fixed and clock.rule.clock_from == "fixing") else "collection",
+                    clock.deadline, clock.remaining_s,
                     clock.expired, status, clock.rule.hours, clock.rule.citation, clock.flag))
     out.sort(key=lambda p: (p.expired, p.remaining_s if not p.expired else -p.remaining_s, p.label))
     return out

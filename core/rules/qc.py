@@ -19,6 +19,7 @@ bottle.not_fixed               warning         a DO (Winkler) bottle without a f
 holding.expired / holding.soon (core.science.holding)  holding time passed / less than 25 % left
 temp.out_of_range              warning         water temperature outside the plausible range
 temp.looks_fahrenheit          (core.science.temperature) a °C value that looks like °F
+temp.maybe_fahrenheit          note            a °C value of 32–40 that would be 0–4 °C as °F
 temp.jump                      warning         temperature jumps implausibly between stops
 conductivity.out_of_range      warning         conductivity outside the plausible range
 conductivity.jump              warning         conductivity changes by more than a factor
@@ -47,7 +48,7 @@ RULE_CODES = (
     "pressure.sea_level_adjusted", "do.supersaturated", "do.below_criterion", "do.hypoxic",
     "calibration.out_of_tolerance", "calibration.missing", "calibration.post_trip_drift",
     "bottle.duplicate_label", "bottle.not_fixed", "holding.expired", "holding.soon",
-    "temp.out_of_range", "temp.looks_fahrenheit", "temp.jump", "conductivity.out_of_range",
+    "temp.out_of_range", "temp.looks_fahrenheit", "temp.maybe_fahrenheit", "temp.jump", "conductivity.out_of_range",
     "conductivity.jump", "stop.missing_required", "stop.unknown_site",
 )
 

@@ -5,13 +5,17 @@ from core.science._validate import real
 from core.flags import Flag, Severity
 
 __all__ = ["TEMPERATURE_UNITS", "f_to_c", "c_to_f", "fahrenheit_hint",
-           "FAHRENHEIT_HINT_RANGE_C"]
+           "FAHRENHEIT_HINT_RANGE_C", "FAHRENHEIT_NOTE_RANGE_C"]
 
 TEMPERATURE_UNITS: tuple[str, ...] = ("C", "F", "K")
 
 #: A value given as °C inside this range is hotter than streams run, but as °F it would be 4.4–40 °C:
 #: the usual sign that a °F reading went into a °C field. [common practice; our choice]
 FAHRENHEIT_HINT_RANGE_C = (40.0, 104.0)
+#: A value given as °C inside this range is possible in a warm stream, but winter water typed in °F
+#: (32–40 °F, i.e. 0–4.4 °C) lands here too and halves the saturation error budget: a gentle note.
+#: [common practice; our choice]
+FAHRENHEIT_NOTE_RANGE_C = (32.0, 40.0)
 
 
 def f_to_c(x):
@@ -38,13 +42,25 @@ def fahrenheit_hint(temp_c: float) -> Flag | None:
     -------
     Flag or None
         ``temp.looks_fahrenheit`` (warning) when ``temp_c`` is above 40 °C and at most 104 °C, i.e.
-        hotter than streams run while the same number in °F is 4.4–40 °C; else None.
+        hotter than streams run while the same number in °F is 4.4–40 °C; ``temp.maybe_fahrenheit``
+        (note) when it is above 32 °C and at most 40 °C (possible in a warm stream, but winter water
+        typed in °F, 0–4.4 °C, lands here too); else None.
     """
     t = real(temp_c, "temp_c", lo=-273.15, unit="°C")
+    as_c = (t - 32.0) * 5.0 / 9.0
+    nlo, nhi = FAHRENHEIT_NOTE_RANGE_C
+    if nlo < t <= nhi:
+        return Flag(
+            code="temp.maybe_fahrenheit",
+            severity=Severity.NOTE,
+            message=(f"Water temperature {t:g} °C is warm for a stream; if this was °F it is {as_c:.1f} °C"
+                     " (0–4 °C water), which changes the saturation by about half."),
+            action="Nothing to do if the water is this warm; if the meter shows °F, enter the unit as °F.",
+            field="temp_c",
+        )
     lo, hi = FAHRENHEIT_HINT_RANGE_C
     if not (lo < t <= hi):
         return None
-    as_c = (t - 32.0) * 5.0 / 9.0
     return Flag(
         code="temp.looks_fahrenheit",
         severity=Severity.WARNING,

@@ -145,7 +145,7 @@ def _salinity(args) -> int:
 # --- winkler ---------------------------------------------------------------------------------------
 
 def _winkler(args) -> int:
-    from core.science.winkler import SAFETY_NOTE, original_sample_ml, winkler_do_mg_l
+    from core.science.winkler import SAFETY_NOTE, original_sample_ml, winkler_do_mg_l, winkler_plausibility_flags
 
     ml = ("mL",)
     titrant = _number(args.titrant_ml, "--titrant-ml", "titrant volume in mL, 0 to 100", ml)
@@ -160,10 +160,12 @@ def _winkler(args) -> int:
         orig = original_sample_ml(titrated, bottle, reagents)
     except ValueError as exc:
         raise CliError(_name_option(str(exc), names)) from None
+    flags = [f.to_dict() for f in winkler_plausibility_flags(do_mg_l=do, normality=normality)]
     if args.json:
-        emit_json({"do_mg_l": do, "original_sample_ml": orig})
+        emit_json({"do_mg_l": do, "original_sample_ml": orig, "flags": flags})
         return 0
-    emit_table([("DO", _fmt(do, 2, "mg/L")), ("original sample", _fmt(orig, 2, "mL")), ("caution", SAFETY_NOTE)])
+    emit_table([("DO", _fmt(do, 2, "mg/L")), ("original sample", _fmt(orig, 2, "mL"))] + _flag_rows(flags)
+               + [("caution", SAFETY_NOTE)])
     return 0
 
 

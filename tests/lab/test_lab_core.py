@@ -135,13 +135,14 @@ def test_winkler_accepts_duplicate_bottle():
     assert wink(t, label="TV-0801D").bottle.kind == "duplicate"
 
 
-def test_holding_8_h_from_fixing():
-    # US 40 CFR 136.3 Table II [from memory]: DO by Winkler, fixed on site, 8 h.
-    t = trip(stop(bottles=[bottle("TV-0801", at=T0, fixed=timedelta(hours=1))]))
-    inside = wink(t, at=T0 + timedelta(hours=8, minutes=59))    # 7 h 59 min after fixing
+def test_holding_8_h_from_collection():
+    # US 40 CFR 136.3 Table II [from memory]: DO by Winkler, fixed on site, 8 h; the clock runs from
+    # collection (team science reference §10)
+    t = trip(stop(bottles=[bottle("TV-0801", at=T0, fixed=timedelta(minutes=10))]))
+    inside = wink(t, at=T0 + timedelta(hours=7, minutes=59))    # 7 h 59 min after collection
     assert "lab.holding_exceeded" not in codes(inside) and inside.result.valid
-    assert inside.result.inputs["derived"]["holding"]["from"] == "fixing"
-    late = wink(t, at=T0 + timedelta(hours=9, minutes=1))      # 8 h 01 min after fixing
+    assert inside.result.inputs["derived"]["holding"]["from"] == "collection"
+    late = wink(t, at=T0 + timedelta(hours=8, minutes=1))      # 8 h 01 min after collection
     f = [x for x in late.flags if x.code == "lab.holding_exceeded"]
     assert f and f[0].severity == Severity.STOP and "8 h" in f[0].message
     assert late.result.valid is False
@@ -194,7 +195,7 @@ def test_implausible_do_stops():
     # A stream rarely holds above 20 mg/L (common practice): 73 mL typed for 7.3 mL.
     t = trip(stop(bottles=[bottle("TV-0801")]))
     out = wink(t, titrant=73.0)
-    assert "lab.do_implausible" in codes(out) and out.result.valid is False
+    assert "winkler.do_implausible" in codes(out) and out.result.valid is False
 
 
 @pytest.mark.parametrize("kw, field", [
@@ -459,7 +460,7 @@ def test_duplicate_unpaired():
 # ---------------------------------------------------------------------------------------------
 def test_pending_most_urgent_first():
     t1 = trip(stop(bottles=[bottle("TV-0820", kind="bod", at=T0),                       # 48 h from T0
-                            bottle("TV-0821", at=T0 + timedelta(hours=1)),               # 8 h from fixing
+                            bottle("TV-0821", at=T0 + timedelta(hours=1)),               # 8 h from collection
                             bottle("TV-0822", kind="blank", at=T0)]))
     t2 = trip(stop(site="LK-02", bottles=[bottle("TV-0823", at=T0 - timedelta(hours=10)),  # expired
                                           bottle("TV-0824", kind="bod", at=T0 - timedelta(hours=60))]))  # expired
@@ -467,8 +468,8 @@ def test_pending_most_urgent_first():
     items = pending_bottles([t1, t2], now)
     assert [p.label for p in items] == ["TV-0821", "TV-0820", "TV-0823", "TV-0824"]
     first = items[0]
-    assert first.clock_from == "fixing" and first.hours == 8.0          # 40 CFR 136.3 Table II [from memory]
-    assert first.deadline == T0 + timedelta(hours=1, minutes=2) + timedelta(hours=8)
+    assert first.clock_from == "collection" and first.hours == 8.0      # 40 CFR 136.3 Table II [from memory]
+    assert first.deadline == T0 + timedelta(hours=1) + timedelta(hours=8)
     assert first.remaining_s == pytest.approx((first.deadline - now).total_seconds())
     assert items[2].expired and items[2].status == "expired"
     assert "TV-0822" not in [p.label for p in items]                   # blanks have no analysis here

@@ -81,7 +81,7 @@ def test_winkler_contract():
     # Standard Methods 4500-O C: 1 mL of 0.025 N per 1 mg/L with 200 mL original sample
     d = run_json("winkler", "--titrant-ml", "7.3", "--normality", "0.025", "--titrated-ml", str(200 * 300 / 298),
                  "--reagents-ml", "2")
-    assert set(d) == {"do_mg_l", "original_sample_ml"}
+    assert set(d) == {"do_mg_l", "original_sample_ml", "flags"} and d["flags"] == []
     assert d["do_mg_l"] == pytest.approx(7.3) and d["original_sample_ml"] == pytest.approx(200.0)
     code, out, _ = run("winkler", "--titrant-ml", "7.3", "--normality", "0.025", "--titrated-ml", "201")
     assert code == 0 and "Caution" in out and "SOP" in out

@@ -19,7 +19,11 @@ def test_fahrenheit_hint():
     # common practice: 68 entered as °C (streams never run that hot) is 20 °C read as °F
     f = fahrenheit_hint(68.0)
     assert f is not None and f.code == "temp.looks_fahrenheit" and "20.0 °C" in f.message
-    for t in (0.0, 18.5, 35.0, 40.0, 110.0):
+    for t in (0.0, 18.5, 32.0, 110.0):
         assert fahrenheit_hint(t) is None
+    # common practice: 35 typed as °C may be winter water in °F (35 °F = 1.7 °C): a gentle note only
+    n = fahrenheit_hint(35.0)
+    assert n is not None and n.code == "temp.maybe_fahrenheit" and n.severity.value == "note"
+    assert "1.7 °C" in n.message and fahrenheit_hint(40.0).code == "temp.maybe_fahrenheit"
     with pytest.raises(ValueError, match="^temp_c"):
         fahrenheit_hint(float("nan"))
