@@ -8,6 +8,7 @@ from pathlib import Path
 from typing import Any, Literal
 
 from core.science import quantities as _quantities
+from core.science.conductivity import ALPHA_RANGE_PER_C
 from pydantic import (AwareDatetime, BaseModel, ConfigDict, Field, ValidationError,
                       field_validator, model_serializer, model_validator)
 from pydantic_core import PydanticCustomError
@@ -370,10 +371,14 @@ class ProgramSettings(_Record):
     cold_min_mg_l: float = Field(6.5, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1])    # US EPA 440/5-86-003 (1986) cold-water 30-day mean, from memory
     supersaturation_percent: float = Field(120.0, ge=LIMITS["supersaturation"][0], le=LIMITS["supersaturation"][1])   # common practice
     hypoxic_mg_l: float = Field(2.0, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1])     # common practice
-    calibration_tolerance_mg_l: float = Field(0.2, gt=LIMITS["tolerance"][0], le=LIMITS["tolerance"][1])
+    calibration_tolerance_mg_l: float = Field(0.2, gt=LIMITS["tolerance"][0], le=LIMITS["tolerance"][1])  # common practice (USGS NFM A6.2 method)
     #: What the program's meters mean by 100 %: saturation at the local pressure, or at 760 mmHg
     #: (core.science.oxygen.PERCENT_BASES); a trip's own meter setting (Trip.meter_percent_basis) wins.
-    percent_basis: Literal["local", "sea-level"] = "local"  # common practice (USGS NFM A6.2 method)
+    percent_basis: Literal["local", "sea-level"] = "local"
+    #: Temperature compensation of specific conductance: linear with `conductivity_alpha_per_c`
+    #: (Standard Methods 2510 B; natural waters 0.0175–0.0198, Hayashi 2004), or the ISO 7888 table.
+    conductivity_compensation: Literal["linear", "iso7888"] = "linear"
+    conductivity_alpha_per_c: float = Field(0.0191, ge=ALPHA_RANGE_PER_C[0], le=ALPHA_RANGE_PER_C[1])
     #: Holding-time overrides by kind (hours), e.g. {"bod": 24} for a stricter SOP.
     holding_overrides_h: dict[str, float] = Field(default_factory=dict)
     #: Plausible stream ranges (warning outside; common practice, adjust per program).

@@ -83,6 +83,10 @@ class LabSettings:
     duplicate_rpd_percent : float
         Largest accepted relative percent difference between a bottle and its field duplicate,
         % (> 0 to 200). Default 20 [common practice].
+    duplicate_abs_mg_l : float
+        Largest accepted absolute difference between a Winkler DO bottle and its field duplicate, mg/L
+        (> 0 to 5). Default 0.2 [common practice]: beside the RPD, which at low DO is large for a small
+        difference and at high DO small for a large one.
     standardisation_max_age_h : float
         A thiosulfate standardisation older than this when the sample is titrated gets a note, h
         (> 0). Default 24 [common practice: standardise daily].
@@ -94,6 +98,7 @@ class LabSettings:
 
     meter_tolerance_mg_l: float = 0.5
     duplicate_rpd_percent: float = 20.0
+    duplicate_abs_mg_l: float = 0.2
     standardisation_max_age_h: float = 24.0
     holding_overrides_h: dict[str, float] = field(default_factory=dict)
     future_slack_s: float = 300.0
@@ -101,6 +106,7 @@ class LabSettings:
     def __post_init__(self) -> None:
         _num(self.meter_tolerance_mg_l, "meter_tolerance_mg_l", 0.0, 5.0, "mg/L", lo_open=True)
         _num(self.duplicate_rpd_percent, "duplicate_rpd_percent", 0.0, 200.0, "%", lo_open=True)
+        _num(self.duplicate_abs_mg_l, "duplicate_abs_mg_l", 0.0, 5.0, "mg/L", lo_open=True)
         _num(self.standardisation_max_age_h, "standardisation_max_age_h", 0.0, 24 * 366.0, "h", lo_open=True)
         _num(self.future_slack_s, "future_slack_s", 0.0, 86400.0, "s")
 
@@ -852,6 +858,14 @@ def duplicate_checks(trip: Trip, settings: LabSettings | None = None) -> list[Du
                                    f" differ by {rpd:.1f} %, more than the {limit:g} % limit.",
                                    "Qualify both results as the program's QA plan says and review the sampling"
                                    " and bench records.", "value"))
+            if analyte == analyte_key(WINKLER_ANALYTE) and abs(pval - dval) > settings.duplicate_abs_mg_l + 1e-9:
+                status = "disagrees"
+                flags.append(_flag("lab.duplicate_difference", Severity.WARNING,
+                                   f"Bottle {prim.label} ({pval:.2f} mg/L) and its duplicate {dup.label}"
+                                   f" ({dval:.2f} mg/L) differ by {abs(pval - dval):.2f} mg/L, more than the"
+                                   f" {settings.duplicate_abs_mg_l:g} mg/L a field duplicate DO should agree within.",
+                                   "Qualify both results as the program's QA plan says; check the fixing (air"
+                                   " bubbles) and the titrations.", "value"))
             out.append(DuplicateCheck(stop.id, stop.site_id, analyte, prim.label, dup.label, pval, dval, rpd,
                                       limit, status, flags))
     return out

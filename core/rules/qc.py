@@ -92,7 +92,9 @@ def derive_stop(stop: Stop, site: Site | None, settings: ProgramSettings,
     from core.science.assess import assess_reading
 
     kwargs: dict[str, Any] = {"method": settings.method,
-                              "percent_basis": percent_basis or settings.percent_basis}
+                              "percent_basis": percent_basis or settings.percent_basis,
+                              "compensation": settings.conductivity_compensation,
+                              "alpha": settings.conductivity_alpha_per_c}
     if stop.conductivity is not None:
         kwargs["conductivity_us_cm"] = stop.conductivity.value
         kwargs["conductivity_is_sc25"] = stop.conductivity_is_sc25

@@ -57,7 +57,8 @@ class Assessment:
 
 def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=None, conductivity_is_sc25=False,
                    do_mg_l=None, do_percent=None, method="benson-krause", elevation_m=None,
-                   water_class=None, criteria=None, percent_basis="local") -> Assessment:
+                   water_class=None, criteria=None, percent_basis="local", compensation="linear",
+                   alpha=cond.KCL_ALPHA_PER_C) -> Assessment:
     """Assesses one reading: the saturation target and everything a technician should look at.
 
     Parameters
@@ -85,6 +86,12 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
         The stream's class for the criteria check.
     criteria : core.science.criteria.Criteria, optional
         The program's criteria; default ``Criteria()``.
+    compensation : {"linear", "iso7888"}
+        Temperature compensation of the specific conductance (a program setting): linear with
+        ``alpha`` (0.015–0.030 /°C), or the ISO 7888 natural-water table; outside the table's 0–35.9 °C
+        the linear law is used with a note.
+    alpha : float
+        Linear coefficient, 1/°C; default 0.0191 (KCl, Standard Methods 2510 B [from memory]).
     percent_basis : {"local", "sea-level"}
         What the meter's 100 % means (:data:`core.science.oxygen.PERCENT_BASES`): saturation at the
         station pressure, or at 760 mmHg. The returned ``percent_saturation`` is always against the
@@ -113,6 +120,7 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
         raise ValueError("do_mg_l and do_percent were both given; accepted: one DO reading, in mg/L or in %")
 
     sc25 = None
+    comp_note = None
     if salinity is not None:
         s = real(salinity, "salinity", lo=0.0, hi=70.0)
         source = "given"
@@ -122,7 +130,16 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
             sc25 = k
             s = cond.salinity_from_specific_conductance(k)
         else:
-            sc25 = cond.specific_conductance_us_cm(k, t)
+            method_sc = choice(compensation, "compensation", cond.COMPENSATION_METHODS)
+            if method_sc == "iso7888" and not (0.0 <= t < 36.0):
+                method_sc = "linear"
+                comp_note = Flag(
+                    "conductivity.compensation_linear", Severity.NOTE,
+                    f"The ISO 7888 table covers 0–35.9 °C; at {t:g} °C the specific conductance uses the linear"
+                    f" law with α = {float(alpha):g} /°C instead.",
+                    "Nothing to do; the program's compensation setting applies inside the table's range.",
+                    "conductivity")
+            sc25 = cond.specific_conductance_us_cm(k, t, method_sc, alpha)
             s = cond.practical_salinity(k / 1000.0, t)
         source = "conductivity"
     else:
@@ -139,6 +156,8 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
             f" {s:.5f}); salinity is taken as 0, which changes the saturation by less than 0.001 %.",
             "Nothing to do unless the meter should read more: check the conductivity cell.", "salinity"))
         s = 0.0
+    if comp_note is not None:
+        flags.append(comp_note)
     hint = fahrenheit_hint(t)
     if hint is not None:
         flags.append(hint)

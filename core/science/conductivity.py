@@ -12,6 +12,7 @@ from core.science._validate import choice, is_plain_scalar, real
 
 __all__ = [
     "CONDUCTIVITY_UNITS", "US_CM_PER_UNIT", "COMPENSATION_METHODS", "KCL_ALPHA_PER_C", "C3515_MS_CM",
+    "ALPHA_RANGE_PER_C",
     "specific_conductance_us_cm", "conductivity_at_temp_us_cm",
     "practical_salinity", "salinity_from_specific_conductance", "iso7888_f25",
 ]
@@ -93,8 +94,15 @@ def iso7888_f25(temp_c):
     return float(out) if is_plain_scalar(t) else out
 
 
+#: Accepted linear coefficients, 1/°C: natural waters span 0.0175–0.0198 (Hayashi 2004); beyond this range a
+#: coefficient is a typing mistake, and within it 1 + α(t − 25) stays above 0.1 for every accepted
+#: temperature (−5 °C and above), so the denominator is never zero or negative. [common practice]
+ALPHA_RANGE_PER_C = (0.015, 0.030)
+
+
 def _alpha(alpha):
-    return real(alpha, "alpha", lo=0.0, hi=0.1, unit="1/°C", note=" (natural waters 0.0175–0.0198)")
+    lo, hi = ALPHA_RANGE_PER_C
+    return real(alpha, "alpha", lo=lo, hi=hi, unit="1/°C", note=" (natural waters 0.0175–0.0198, KCl 0.0191)")
 
 
 def specific_conductance_us_cm(conductivity_us_cm, temp_c, method="linear", alpha=KCL_ALPHA_PER_C):
@@ -112,7 +120,7 @@ def specific_conductance_us_cm(conductivity_us_cm, temp_c, method="linear", alph
     method : {"linear", "iso7888"}
         Compensation.
     alpha : float
-        Linear temperature coefficient, 1/°C, 0 to 0.1; default 0.0191 (KCl).
+        Linear temperature coefficient, 1/°C, 0.015 to 0.030 (:data:`ALPHA_RANGE_PER_C`); default 0.0191 (KCl).
 
     Returns
     -------
@@ -126,7 +134,8 @@ def specific_conductance_us_cm(conductivity_us_cm, temp_c, method="linear", alph
         return k * iso7888_f25(temp_c)
     t = real(temp_c, "temp_c", **_TEMP_DOMAIN)
     a = _alpha(alpha)
-    return k / (1.0 + a * (t - 25.0))
+    denominator = 1.0 + a * (t - 25.0)   # ≥ 1 − 0.030 × 30 = 0.1 for the accepted α and t
+    return k / denominator
 
 
 def conductivity_at_temp_us_cm(sc25_us_cm, temp_c, method="linear", alpha=KCL_ALPHA_PER_C):

@@ -49,7 +49,7 @@ def _lab_error(exc: Exception) -> CliError:
 
 
 #: LabSettings fields a program may set in its settings as ``lab_<name>``; options override them.
-_PROGRAM_KEYS = ("meter_tolerance_mg_l", "duplicate_rpd_percent", "standardisation_max_age_h")
+_PROGRAM_KEYS = ("meter_tolerance_mg_l", "duplicate_rpd_percent", "duplicate_abs_mg_l", "standardisation_max_age_h")
 
 
 def _now(args) -> datetime:  # noqa: ANN001

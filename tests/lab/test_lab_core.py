@@ -428,12 +428,24 @@ def test_duplicate_pairs_and_threshold():
     waiting = duplicate_checks(t)
     assert [c.status for c in waiting] == ["waiting"]
     t = wink(t, titrant=8.0).trip
-    t = wink(t, label="TV-0801D", titrant=8.4).trip                  # RPD 4.9 %
+    t = wink(t, label="TV-0801D", titrant=8.15).trip                 # RPD 1.9 %, 0.15 mg/L apart
     [c] = duplicate_checks(t)
-    assert c.status == "agrees" and c.rpd_percent == pytest.approx(0.4 / 8.2 * 100, rel=1e-6)
-    assert c.primary_label == "TV-0801" and c.analyte == "do_winkler"
-    [c] = duplicate_checks(t, LabSettings(duplicate_rpd_percent=2.0))   # threshold is a setting
+    assert c.status == "agrees" and c.rpd_percent == pytest.approx(0.15 / 8.075 * 100, rel=1e-6)
+    assert c.primary_label == "TV-0801" and c.analyte == "do_winkler" and c.flags == []
+    [c] = duplicate_checks(t, LabSettings(duplicate_rpd_percent=1.0))   # threshold is a setting
     assert c.status == "disagrees" and c.flags[0].code == "lab.duplicate_rpd"
+
+
+def test_duplicate_absolute_limit_beside_the_rpd():
+    # field duplicate DO: about ±0.2 mg/L absolute agreement [common practice], beside the 20 % RPD
+    t = trip(stop(bottles=[bottle("TV-0801"), bottle("TV-0801D", kind="duplicate")]))
+    t = wink(t, titrant=8.0).trip
+    t = wink(t, label="TV-0801D", titrant=8.4).trip                  # RPD 4.9 % passes, 0.4 mg/L does not
+    [c] = duplicate_checks(t)
+    assert c.status == "disagrees" and [f.code for f in c.flags] == ["lab.duplicate_difference"]
+    assert "0.40 mg/L" in c.flags[0].message
+    [c] = duplicate_checks(t, LabSettings(duplicate_abs_mg_l=0.5))     # the limit is a setting
+    assert c.status == "agrees"
 
 
 def test_duplicate_uses_the_live_result():
