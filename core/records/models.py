@@ -371,6 +371,9 @@ class ProgramSettings(_Record):
     cold_min_mg_l: float = Field(6.5, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1])    # US EPA 440/5-86-003 (1986) cold-water 30-day mean, from memory
     supersaturation_percent: float = Field(120.0, ge=LIMITS["supersaturation"][0], le=LIMITS["supersaturation"][1])   # common practice
     hypoxic_mg_l: float = Field(2.0, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1])     # common practice
+    #: Life stages the program protects ("other" or "early": embryos and larvae present); picks the EPA 1986
+    #: 1-day minimum a spot reading is compared with (core.science.criteria.EPA_1986_MG_L, from memory).
+    life_stage: Literal["other", "early"] = "other"
     calibration_tolerance_mg_l: float = Field(0.2, gt=LIMITS["tolerance"][0], le=LIMITS["tolerance"][1])  # common practice (USGS NFM A6.2 method)
     #: What the program's meters mean by 100 %: saturation at the local pressure, or at 760 mmHg
     #: (core.science.oxygen.PERCENT_BASES); a trip's own meter setting (Trip.meter_percent_basis) wins.
@@ -398,7 +401,7 @@ class ProgramSettings(_Record):
 
         return Criteria(warm_min_mg_l=self.warm_min_mg_l, cold_min_mg_l=self.cold_min_mg_l,
                         supersaturation_percent=self.supersaturation_percent,
-                        hypoxic_mg_l=self.hypoxic_mg_l)
+                        hypoxic_mg_l=self.hypoxic_mg_l, life_stage=self.life_stage)
 
 
 #: Bounds of a drawn signature, so a stuck finger cannot grow a trip without end (common practice):

@@ -696,7 +696,7 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
 
 def reported_bod(result: LabResult):
     """The reportable BOD5/CBOD5 of a lab result (:class:`core.science.bod.BodReport`), or None when it is
-    not a BOD result.
+    not a BOD result or carries no dilutions to apply the rules to.
 
     Results recorded before the report was stored get it rebuilt from their stored dilutions by the same
     rules (:func:`core.science.bod.bod_report`).
@@ -726,9 +726,7 @@ def reported_bod(result: LabResult):
         except (KeyError, TypeError, ValueError):
             return None
     if not dils:
-        if result.value is None:
-            return None
-        return BodReport(float(result.value), None, f"{float(result.value):.1f} mg/L", "mean", analyte)
+        return None   # nothing to apply the rules to (e.g. a result typed in from elsewhere)
     return bod_report(dils, analyte)[0]
 
 

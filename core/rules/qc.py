@@ -9,6 +9,8 @@ pressure.sea_level_adjusted    warning         station pressure far above the st
                                                atmosphere at the site's elevation (core.science.pressure)
 do.supersaturated              warning         % saturation above the program threshold
 do.below_criterion             warning         DO below the site's / program's criterion
+do.below_1day_minimum          warning         a spot DO below the EPA 1986 1-day minimum for the
+                                               class and life stage (core.science.criteria)
 do.hypoxic                     stop-and-check  DO below the hypoxia threshold
 calibration.out_of_tolerance   stop-and-check  pre-trip calibration reading far from the 100 %
                                                target (core.science.calibration)
@@ -45,7 +47,7 @@ __all__ = ["TRIP_KEY", "RULE_CODES", "derive", "derive_trip", "derive_document",
 TRIP_KEY = "trip"
 
 RULE_CODES = (
-    "pressure.sea_level_adjusted", "do.supersaturated", "do.below_criterion", "do.hypoxic",
+    "pressure.sea_level_adjusted", "do.supersaturated", "do.below_criterion", "do.below_1day_minimum", "do.hypoxic",
     "calibration.out_of_tolerance", "calibration.missing", "calibration.post_trip_drift",
     "bottle.duplicate_label", "bottle.not_fixed", "holding.expired", "holding.soon",
     "temp.out_of_range", "temp.looks_fahrenheit", "temp.maybe_fahrenheit", "temp.jump", "conductivity.out_of_range",

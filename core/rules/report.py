@@ -152,7 +152,10 @@ def _holding(bottle: Bottle, result: LabResult, settings: ProgramSettings | None
 
 def _reported(result: LabResult, rounding: Rounding) -> tuple[float | None, str, str]:
     """(value, qualifier, text) of a result: the bench's own report when it carries one."""
-    rep = (result.inputs or {}).get("report")
+    from core.rules.lab import reported_bod
+
+    bod = reported_bod(result)   # BOD5/CBOD5 by the 5210 B reporting rules (inputs.derived.report)
+    rep = bod.to_dict() if bod is not None else (result.inputs or {}).get("report")
     if isinstance(rep, dict) and isinstance(rep.get("text"), str) and rep["text"]:
         q = rep.get("qualifier") or ""
         v = rep.get("value")
