@@ -375,6 +375,9 @@ class ProgramSettings(_Record):
     #: 1-day minimum a spot reading is compared with (core.science.criteria.EPA_1986_MG_L, from memory).
     life_stage: Literal["other", "early"] = "other"
     calibration_tolerance_mg_l: float = Field(0.2, gt=LIMITS["tolerance"][0], le=LIMITS["tolerance"][1])  # common practice (USGS NFM A6.2 method)
+    #: Elevation where the meter is calibrated (the office), m; None: the trip's first site. The
+    #: calibration pressure is checked against it like a stop's pressure.
+    calibration_elevation_m: float | None = Field(None, ge=LIMITS["elevation"][0], le=LIMITS["elevation"][1])
     #: What the program's meters mean by 100 %: saturation at the local pressure, or at 760 mmHg
     #: (core.science.oxygen.PERCENT_BASES); a trip's own meter setting (Trip.meter_percent_basis) wins.
     percent_basis: Literal["local", "sea-level"] = "local"

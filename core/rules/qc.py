@@ -15,6 +15,8 @@ do.hypoxic                     stop-and-check  DO below the hypoxia threshold
 calibration.out_of_tolerance   stop-and-check  pre-trip calibration reading far from the 100 %
                                                target (core.science.calibration)
 calibration.missing            warning         stops recorded but no pre-trip calibration
+pressure.flat_across_elevations warning        pressures flat across stops > 150 m apart in
+                                               elevation (core.science.pressure)
 calibration.post_trip_drift    stop-and-check  post-trip check outside tolerance (core.science.calibration)
 bottle.duplicate_label         stop-and-check  a bottle ID used twice in the trip or on the device
 bottle.not_fixed               warning         a DO (Winkler) bottle without a fixing time
@@ -41,14 +43,14 @@ from core.flags import Flag, Severity
 from core.records.models import (Calibration, Derived, FlagRecord, ProgramSettings, Site, Stop, Trip)
 
 __all__ = ["TRIP_KEY", "RULE_CODES", "derive", "derive_trip", "derive_document", "derive_basis", "derive_stop", "derive_calibration",
-           "stop_flags", "trip_flags", "trip_level_flags", "core_version"]
+           "stop_flags", "trip_flags", "trip_level_flags", "core_version", "calibration_elevation_m"]
 
 #: Key of trip-level findings (calibrations) in :func:`trip_flags`' result.
 TRIP_KEY = "trip"
 
 RULE_CODES = (
     "pressure.sea_level_adjusted", "do.supersaturated", "do.below_criterion", "do.below_1day_minimum", "do.hypoxic",
-    "calibration.out_of_tolerance", "calibration.missing", "calibration.post_trip_drift",
+    "calibration.out_of_tolerance", "calibration.missing", "pressure.flat_across_elevations", "calibration.post_trip_drift",
     "bottle.duplicate_label", "bottle.not_fixed", "holding.expired", "holding.soon",
     "temp.out_of_range", "temp.looks_fahrenheit", "temp.maybe_fahrenheit", "temp.jump", "conductivity.out_of_range",
     "conductivity.jump", "stop.missing_required", "stop.unknown_site",
@@ -123,11 +125,27 @@ def derive_stop(stop: Stop, site: Site | None, settings: ProgramSettings,
         core_version=str(a.core_version), flags=[FlagRecord.from_flag(f) for f in a.flags])
 
 
-def derive_calibration(cal: Calibration | None, settings: ProgramSettings, *, post: bool) -> Calibration | None:
-    """The calibration with its target, difference, verdict, method and core version filled in."""
+def calibration_elevation_m(trip: Trip, sites: dict[str, Site], settings: ProgramSettings) -> float | None:
+    """Where the meter was calibrated: the program's calibration elevation, else the trip's first site."""
+    if settings.calibration_elevation_m is not None:
+        return float(settings.calibration_elevation_m)
+    for stop in sorted(trip.stops, key=lambda s: s.arrived_at):
+        site = sites.get(stop.site_id)
+        if site is not None:
+            return float(site.elevation_m)
+    return None
+
+
+def derive_calibration(cal: Calibration | None, settings: ProgramSettings, *, post: bool,
+                       elevation_m: float | None = None) -> Calibration | None:
+    """The calibration with its target, difference, verdict, method and core version filled in.
+
+    With `elevation_m` (where the meter was calibrated), the calibration pressure gets the same checks
+    as a stop's (sea-level adjusted, far below standard)."""
     if cal is None:
         return None
     from core.science.calibration import check_calibration, post_trip_check
+    from core.science.pressure import station_pressure_flags
 
     fn = post_trip_check if post else check_calibration
     tolerance = cal.tolerance_mg_l if cal.tolerance_mg_l is not None else settings.calibration_tolerance_mg_l
@@ -138,10 +156,18 @@ def derive_calibration(cal: Calibration | None, settings: ProgramSettings, *, po
         return cal.model_copy(update={"target_mg_l": None, "difference_mg_l": None, "accepted": None,
                                       "method": settings.method, "core_version": core_version(),
                                       "flags": []})
+    flags = list(r.flags)
+    if elevation_m is not None:
+        try:
+            for f in station_pressure_flags(cal.pressure.value, elevation_m):
+                flags.append(Flag(f.code, f.severity, f"Calibration pressure: {f.message}", f.action,
+                                  "pressure"))
+        except ValueError:
+            pass
     return cal.model_copy(update={
         "target_mg_l": float(r.target_mg_l), "difference_mg_l": float(r.difference_mg_l),
         "accepted": bool(r.passed), "method": settings.method, "core_version": core_version(),
-        "flags": [FlagRecord.from_flag(f) for f in r.flags]})
+        "flags": [FlagRecord.from_flag(f) for f in flags]})
 
 
 def derive_basis(site: Site | None, settings: ProgramSettings, percent_basis: str | None = None) -> str:
@@ -208,8 +234,9 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
         stop_doc["derived"] = None if derived is None else derived.model_dump(mode="json")
         new_stops.append(stop.model_copy(update={"derived": derived}))
     cals: dict[str, Calibration | None] = {}
+    cal_elevation = calibration_elevation_m(trip, sites, settings)
     for key, post in (("pre_calibration", False), ("post_check", True)):
-        cal = derive_calibration(getattr(trip, key), settings, post=post)
+        cal = derive_calibration(getattr(trip, key), settings, post=post, elevation_m=cal_elevation)
         cals[key] = cal
         doc[key] = None if cal is None else cal.model_dump(mode="json")
     return doc, trip.model_copy(update={"stops": new_stops, **cals})
@@ -373,9 +400,22 @@ def _dedupe(flags: Iterable[Flag]) -> list[Flag]:
     return out
 
 
-def trip_level_flags(trip: Trip, settings: ProgramSettings) -> list[Flag]:
-    """Calibration findings for the whole trip (the science's verdicts, stored at save time)."""
+def trip_level_flags(trip: Trip, settings: ProgramSettings, sites: dict[str, Site] | None = None) -> list[Flag]:
+    """Findings for the whole trip: calibration (the science's verdicts, stored at save time) and, with
+    the sites, pressures that stay flat across the route's elevations."""
     flags: list[Flag] = []
+    if sites:
+        from core.science.pressure import flat_pressure_flag
+
+        readings = [(f"Stop {i} ({s.site_id})", sites[s.site_id].elevation_m, s.pressure.value)
+                    for i, s in enumerate(sorted(trip.stops, key=lambda s: s.arrived_at), 1)
+                    if s.pressure is not None and s.site_id in sites]
+        try:
+            flat = flat_pressure_flag(readings)
+        except ValueError:
+            flat = None
+        if flat is not None:
+            flags.append(flat)
     pre = trip.pre_calibration
     if pre is None:
         if trip.stops:
@@ -399,7 +439,7 @@ def trip_flags(trip: Trip, settings: ProgramSettings, now: datetime, other_bottl
     """
     labels = Counter(b.label for s in trip.stops for b in s.bottles)
     route = sorted(trip.stops, key=lambda s: s.arrived_at)
-    out: dict[str, list[Flag]] = {TRIP_KEY: trip_level_flags(trip, settings)}
+    out: dict[str, list[Flag]] = {TRIP_KEY: trip_level_flags(trip, settings, sites)}
     prev: Stop | None = None
     for stop in route:
         site = sites.get(stop.site_id) if sites is not None else None

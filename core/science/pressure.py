@@ -10,7 +10,7 @@ __all__ = [
     "PRESSURE_UNITS", "HPA_PER_UNIT", "STANDARD_ATMOSPHERE_HPA", "SEA_LEVEL_ADJUSTED_THRESHOLD_HPA",
     "to_hpa", "from_hpa", "standard_pressure_hpa", "sea_level_to_station_hpa",
     "station_to_sea_level_hpa", "sea_level_adjusted_flag", "FAR_BELOW_THRESHOLD_HPA", "far_below_standard_flag",
-    "station_pressure_flags",
+    "station_pressure_flags", "flat_pressure_flag", "FLAT_MIN_SPREAD_M", "FLAT_FRACTION",
 ]
 
 #: Units accepted in text and by :func:`to_hpa` / :func:`from_hpa` (canonical spelling).
@@ -245,3 +245,66 @@ def station_pressure_flags(pressure_hpa: float, elevation_m: float) -> list[Flag
     """
     flags = [sea_level_adjusted_flag(pressure_hpa, elevation_m), far_below_standard_flag(pressure_hpa, elevation_m)]
     return [f for f in flags if f is not None]
+
+
+#: Stops whose elevations differ by more than this are checked for a flat pressure series: 150 m is about
+#: 18 hPa of standard-atmosphere difference, well above what weather changes in a day's route.
+#: [common practice; our choice]
+FLAT_MIN_SPREAD_M = 150.0
+#: A series is "flat" when the pressure difference between the lowest and the highest stop is less than
+#: this fraction of the standard atmosphere's difference between them. [common practice; our choice]
+FLAT_FRACTION = 0.5
+
+
+def flat_pressure_flag(readings) -> Flag | None:
+    """Flags station pressures that stay flat across stops at very different elevations (sea-level adjusted).
+
+    Near sea level the standard atmosphere falls about 0.12 hPa per metre (1 hPa ≈ 8.3 m), so stops
+    more than :data:`FLAT_MIN_SPREAD_M` apart in elevation should differ by tens of hPa. Readings that
+    stay flat across such a spread look sea-level adjusted, even at low sites where the single-reading
+    check (:func:`sea_level_adjusted_flag`) cannot tell adjustment from weather.
+
+    Parameters
+    ----------
+    readings : iterable of (str, float, float)
+        (where, elevation_m, pressure_hpa) per stop: a label a person recognises, the site elevation
+        (m, −500 to 11 000) and the station pressure (hPa, > 0).
+
+    Returns
+    -------
+    Flag or None
+        ``pressure.flat_across_elevations`` (warning) when the lowest and the highest stop differ by more
+        than :data:`FLAT_MIN_SPREAD_M` in elevation and their pressures differ by less than
+        :data:`FLAT_FRACTION` of the standard atmosphere's difference; else None.
+
+    References
+    ----------
+    US Standard Atmosphere 1976 (troposphere); the 0.12 hPa per metre rule of thumb follows from it
+    (team science reference §10).
+    """
+    rows = []
+    for where, h, p in readings:
+        rows.append((str(where), float(_elevation(h)),
+                     float(real(p, "pressure_hpa", lo=0.0, lo_open=True, unit="hPa"))))
+    if len(rows) < 2:
+        return None
+    low = min(rows, key=lambda r: r[1])
+    high = max(rows, key=lambda r: r[1])
+    spread = high[1] - low[1]
+    if spread <= FLAT_MIN_SPREAD_M:
+        return None
+    expected = float(standard_pressure_hpa(low[1]) - standard_pressure_hpa(high[1]))
+    observed = low[2] - high[2]
+    if observed >= FLAT_FRACTION * expected:
+        return None
+    return Flag(
+        code="pressure.flat_across_elevations",
+        severity=Severity.WARNING,
+        message=(f"{low[0]} at {low[1]:.0f} m read {low[2]:.1f} hPa and {high[0]} at {high[1]:.0f} m read"
+                 f" {high[2]:.1f} hPa: {observed:.1f} hPa apart, where the standard atmosphere falls about"
+                 f" {expected:.0f} hPa over those {spread:.0f} m (about 0.12 hPa per metre). Readings that stay"
+                 " flat across elevations look sea-level adjusted."),
+        action=("Check where the pressures came from: use the barometer's station (absolute) reading, not a"
+                " weather report or an altimeter-corrected value."),
+        field="pressure_hpa",
+    )
