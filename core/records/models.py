@@ -361,6 +361,31 @@ class Conflict(_Record):
     resolution: Any = None
 
 
+class InstrumentLog(_Record):
+    """One DO meter's calibration log in the program's settings (USGS NFM A6.2 checks; limits common practice)."""
+
+    serial: str = Field(min_length=1, max_length=64)
+    membrane_changed_at: AwareDatetime | None = None
+    zero_do_mg_l: float | None = None
+    zero_do_limit_mg_l: float = Field(0.2, gt=0.0, le=2.0)
+    zero_checked_at: AwareDatetime | None = None
+    barometer_difference_hpa: float | None = Field(None, ge=-200.0, le=200.0)
+    barometer_limit_hpa: float = Field(2.0, gt=0.0, le=20.0)
+    barometer_checked_at: AwareDatetime | None = None
+    #: Post-trip drift limit of this meter, in mg/L or in % of the 100 % target.
+    drift_limit: float = Field(0.2, gt=0.0, le=50.0)
+    drift_unit: Literal["mg/L", "%"] = "mg/L"
+
+    def flags(self):
+        """The zero-DO and barometer findings of this log (core.science.calibration.instrument_flags)."""
+        from core.science.calibration import instrument_flags
+
+        return instrument_flags(self.serial, zero_do_mg_l=self.zero_do_mg_l,
+                                zero_do_limit_mg_l=self.zero_do_limit_mg_l,
+                                barometer_difference_hpa=self.barometer_difference_hpa,
+                                barometer_limit_hpa=self.barometer_limit_hpa)
+
+
 class ProgramSettings(_Record):
     """A monitoring program's settings: method, criteria, tolerances and QC thresholds."""
 
@@ -385,6 +410,14 @@ class ProgramSettings(_Record):
     #: (Standard Methods 2510 B; natural waters 0.0175–0.0198, Hayashi 2004), or the ISO 7888 table.
     conductivity_compensation: Literal["linear", "iso7888"] = "linear"
     conductivity_alpha_per_c: float = Field(0.0191, ge=ALPHA_RANGE_PER_C[0], le=ALPHA_RANGE_PER_C[1])
+    #: Calibration logs of the program's DO meters, matched to a trip by its meter ID (the serial).
+    instruments: list[InstrumentLog] = Field(default_factory=list)
+
+    def instrument(self, meter_id: str) -> "InstrumentLog | None":
+        """The log of the meter a trip names (by serial, case and spaces ignored), or None."""
+        key = (meter_id or "").strip().lower()
+        return next((i for i in self.instruments if key and i.serial.strip().lower() == key), None)
+
     #: Holding-time overrides by kind (hours), e.g. {"bod": 24} for a stricter SOP.
     holding_overrides_h: dict[str, float] = Field(default_factory=dict)
     #: Plausible stream ranges (warning outside; common practice, adjust per program).

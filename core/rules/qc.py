@@ -17,6 +17,8 @@ calibration.out_of_tolerance   stop-and-check  pre-trip calibration reading far 
 calibration.missing            warning         stops recorded but no pre-trip calibration
 pressure.flat_across_elevations warning        pressures flat across stops > 150 m apart in
                                                elevation (core.science.pressure)
+instrument.zero_do / .barometer warning        the trip's meter's calibration log: zero-DO reading or
+                                               barometer outside its limit (core.science.calibration)
 calibration.post_trip_drift    stop-and-check  post-trip check outside tolerance (core.science.calibration)
 bottle.duplicate_label         stop-and-check  a bottle ID used twice in the trip or on the device
 bottle.not_fixed               warning         a DO (Winkler) bottle without a fixing time
@@ -50,7 +52,8 @@ TRIP_KEY = "trip"
 
 RULE_CODES = (
     "pressure.sea_level_adjusted", "do.supersaturated", "do.below_criterion", "do.below_1day_minimum", "do.hypoxic",
-    "calibration.out_of_tolerance", "calibration.missing", "pressure.flat_across_elevations", "calibration.post_trip_drift",
+    "calibration.out_of_tolerance", "calibration.missing", "pressure.flat_across_elevations",
+    "instrument.zero_do", "instrument.barometer", "calibration.post_trip_drift",
     "bottle.duplicate_label", "bottle.not_fixed", "holding.expired", "holding.soon",
     "temp.out_of_range", "temp.looks_fahrenheit", "temp.maybe_fahrenheit", "temp.jump", "conductivity.out_of_range",
     "conductivity.jump", "stop.missing_required", "stop.unknown_site",
@@ -137,11 +140,12 @@ def calibration_elevation_m(trip: Trip, sites: dict[str, Site], settings: Progra
 
 
 def derive_calibration(cal: Calibration | None, settings: ProgramSettings, *, post: bool,
-                       elevation_m: float | None = None) -> Calibration | None:
+                       elevation_m: float | None = None, instrument: Any = None) -> Calibration | None:
     """The calibration with its target, difference, verdict, method and core version filled in.
 
     With `elevation_m` (where the meter was calibrated), the calibration pressure gets the same checks
-    as a stop's (sea-level adjusted, far below standard)."""
+    as a stop's (sea-level adjusted, far below standard). With `instrument` (the meter's
+    core.records.models.InstrumentLog), a post-trip check uses the meter's drift limit."""
     if cal is None:
         return None
     from core.science.calibration import check_calibration, post_trip_check
@@ -150,6 +154,12 @@ def derive_calibration(cal: Calibration | None, settings: ProgramSettings, *, po
     fn = post_trip_check if post else check_calibration
     tolerance = cal.tolerance_mg_l if cal.tolerance_mg_l is not None else settings.calibration_tolerance_mg_l
     try:
+        if post and instrument is not None and cal.tolerance_mg_l is None:
+            # the meter's own drift limit (mg/L or % of the target) from its calibration log
+            from core.science.calibration import calibration_target_mg_l, drift_tolerance_mg_l
+
+            target = float(calibration_target_mg_l(cal.temp.value, cal.pressure.value, settings.method))
+            tolerance = drift_tolerance_mg_l(instrument.drift_limit, instrument.drift_unit, target)
         r = fn(cal.reading_mg_l, cal.temp.value, cal.pressure.value,
                tolerance_mg_l=tolerance, method=settings.method)
     except ValueError:
@@ -236,7 +246,8 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
     cals: dict[str, Calibration | None] = {}
     cal_elevation = calibration_elevation_m(trip, sites, settings)
     for key, post in (("pre_calibration", False), ("post_check", True)):
-        cal = derive_calibration(getattr(trip, key), settings, post=post, elevation_m=cal_elevation)
+        cal = derive_calibration(getattr(trip, key), settings, post=post, elevation_m=cal_elevation,
+                                 instrument=settings.instrument(trip.meter_id))
         cals[key] = cal
         doc[key] = None if cal is None else cal.model_dump(mode="json")
     return doc, trip.model_copy(update={"stops": new_stops, **cals})
@@ -427,6 +438,12 @@ def trip_level_flags(trip: Trip, settings: ProgramSettings, sites: dict[str, Sit
         flags.extend(f.to_flag() for f in pre.flags)
     if trip.post_check is not None:
         flags.extend(f.to_flag() for f in trip.post_check.flags)
+    log = settings.instrument(trip.meter_id)
+    if log is not None:
+        try:
+            flags.extend(log.flags())
+        except ValueError:
+            pass
     return _dedupe(flags)
 
 
