@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 
 from mobile.cli._common import CliError, emit_json, emit_table
@@ -107,11 +108,21 @@ _SAT_NAMES = (("temp_c", "--temp"), ("pressure_hpa", "--pressure"), ("salinity",
               ("elevation_m", "--elevation"), ("method", "--method"))
 
 
+def _as_option(first: str, name: str, option: str) -> str:
+    """Core's "name = value is ..." as the person typed it: "--option value is ..."."""
+    rest = first[len(name):]
+    if rest.startswith(" = "):
+        return f"{option} {rest[3:]}"
+    if rest.startswith("[") or rest.startswith(" "):
+        return f"{option}{rest}" if rest.startswith(" ") else f"{option}: {first}"
+    return f"{option}: {first}"
+
+
 def _which_sat_option(message: str) -> str:
     first = message.splitlines()[0] if message else "invalid value"
     for name, option in _SAT_NAMES:
         if first.startswith(name):
-            return f"{option}: {first}"
+            return _as_option(first, name, option)
     return first
 
 
@@ -171,9 +182,12 @@ def _winkler(args) -> int:
 
 def _name_option(message: str, names: dict[str, str]) -> str:
     first = message.splitlines()[0] if message else "invalid value"
-    for name, option in names.items():
+    for name, option in sorted(names.items(), key=lambda kv: -len(kv[0])):
         if first.startswith(name):
-            return f"{option}: {first}"
+            out = _as_option(first, name, option)
+            for other, opt in sorted(names.items(), key=lambda kv: -len(kv[0])):   # "(plus seed_ml = 2)"
+                out = re.sub(rf"(?<![\w-]){re.escape(other)}(?: = |(?!\w))", opt + " ", out).replace("  ", " ")
+            return out.replace(" ;", ";").replace(" )", ")").rstrip()
     return first
 
 

@@ -205,6 +205,11 @@ def test_every_error_is_one_line_exit_2(argv, words):
     assert "Traceback" not in err
     for w in words:
         assert w in lines[0], lines[0]
+    # the option as the person typed it, never core's variable names (issue 11)
+    for name in ("temp_c", "pressure_hpa", "percent_sat", "do_mg_l", "do_percent", "elevation_m", "parse_",
+                 "conductivity_us_cm", "titrant_ml", "titrated_ml", "bottle_ml", "reagents_ml", "sample_ml",
+                 "seed_ml", "seed_uptake", "initial_do", "final_do", "pressure_dbar"):
+        assert name not in lines[0], lines[0]
 
 
 @pytest.mark.parametrize("content, words", [
