@@ -225,7 +225,8 @@ def split(text: str) -> tuple[str, str] | None:
 
 
 def _not_a_number(raw: str, label: str, how: str) -> QuantityError:
-    head = re.match(r"^[+-]?[\d.,]*", raw).group(0)
+    m = re.match(r"^[+-]?[\d.,]*", raw)
+    head = m.group(0) if m else ""
     if "," in head and "." in head:
         return _mixed_marks(raw, label)
     return QuantityError("number.invalid", label, f"{label}: {_q(raw)} is not a number; type {how}")
