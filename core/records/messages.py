@@ -2,7 +2,8 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Any, Iterable
+from typing import Any
+from collections.abc import Iterable
 
 __all__ = ["FIELD_LABELS", "TEMPLATES", "Problem", "label_for", "path_label", "render",
            "problems_from_validation", "one_line"]
