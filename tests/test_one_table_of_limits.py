@@ -80,9 +80,9 @@ def test_same_refusals_everywhere(ctl, field, unit, option, cli_text, model, acc
     assert (code == 0) is accepted and model_ok is accepted and (field not in view.errors) is accepted, (err, view.errors)
     if not accepted:
         # the same limits, named as each shell names the value; never an internal variable name
-        assert err.startswith(f"streamtab: {option}") or err.startswith(option), err
+        assert err.startswith((f"streamtab: {option}", option)), err
         assert view.errors[field] == model_msg
-        lo, hi, unit_word = LIMITS[{"do": "do_percent" if "%" in cli_text else "do_mg_l"}.get(field, field)]
+        lo, hi, _unit_word = LIMITS[{"do": "do_percent" if "%" in cli_text else "do_mg_l"}.get(field, field)]
         span = f"{lo:g}–{hi:g}".replace("-", "\u2212", 1) if lo < 0 else f"{lo:g}–{hi:g}"
         assert span in err and span in model_msg
         for name in INTERNAL:

@@ -48,7 +48,7 @@ class InputError(ValueError):
 # --------------------------------------------------------------------------------------------
 # Strict number parsing for form input (the grammar is core.science.quantities)
 # --------------------------------------------------------------------------------------------
-def _input_error(exc: "_quantities.QuantityError", field: str) -> InputError:
+def _input_error(exc: _quantities.QuantityError, field: str) -> InputError:
     return InputError(exc.code, field, exc.message)
 
 
@@ -411,7 +411,7 @@ class ProgramSettings(_Record):
     #: Calibration logs of the program's DO meters, matched to a trip by its meter ID (the serial).
     instruments: list[InstrumentLog] = Field(default_factory=list)
 
-    def instrument(self, meter_id: str) -> "InstrumentLog | None":
+    def instrument(self, meter_id: str) -> InstrumentLog | None:
         """The log of the meter a trip names (by serial, case and spaces ignored), or None."""
         key = (meter_id or "").strip().lower()
         return next((i for i in self.instruments if key and i.serial.strip().lower() == key), None)

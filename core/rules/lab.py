@@ -459,8 +459,8 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
                            "Correct the field record's times.", "fixed_at"))
     clock = holding_clock("do_winkler", bottle.collected_at, analysed_at, fixed_at=fixed,
                           overrides=settings.holding_overrides_h or None)
-    from_fixing = clock.rule.clock_from == "fixing" and fixed is not None
-    start = fixed if from_fixing else bottle.collected_at
+    start = fixed if (clock.rule.clock_from == "fixing" and fixed is not None) else bottle.collected_at
+    from_fixing = start is not bottle.collected_at
     held_h = (analysed_at - start).total_seconds() / 3600.0
     derived["holding"] = {"kind": "do_winkler", "from": "fixing" if from_fixing else "collection",
                           "held_h": held_h, "limit_h": clock.rule.hours, "deadline": clock.deadline.isoformat(),

@@ -1,6 +1,7 @@
 """BOD5 by the dilution method (Standard Methods 5210 B): dilutions, seed correction and the quality checks."""
 from __future__ import annotations
 
+import itertools
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 
@@ -281,7 +282,7 @@ def bod_report(dilutions: list[BodDilution], analyte: str = "BOD5") -> tuple[Bod
         if spread <= AGREEMENT_SPREAD + 1e-12:
             return BodReport(mean, None, _mg(mean), "mean", a), []
         listed = ", ".join(f"{v:.1f}" for v in values)
-        steps = [b - c for b, c in zip(values, values[1:])]   # from the most dilute to the least
+        steps = [b - c for b, c in itertools.pairwise(values)]   # from the most dilute to the least
         most_dilute = valid[0]
         if all(x > 0 for x in steps) or all(x < 0 for x in steps):
             way = "rises" if steps[0] > 0 else "falls"

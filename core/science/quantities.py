@@ -18,10 +18,11 @@ Messages name the field or option as the person sees it (the ``label`` the calle
 """
 from __future__ import annotations
 
+import functools
 import math
 import re
 from dataclasses import dataclass
-from typing import Callable
+from collections.abc import Callable
 
 from core.science._validate import ambiguous_comma
 
@@ -83,7 +84,7 @@ def range_text(key: str) -> str:
     return f"{_g(lo)}–{_g(hi)}{(' ' + unit) if unit else ''}"
 
 
-def range_message(key: str, label: str, value: float, unit: str | None = None, typed: str = "") -> str:
+def range_message(key: str, label: str, value: object, unit: str | None = None, typed: str = "") -> str:
     """The one sentence for a value outside its limits, e.g.
     ``"--do 60 mg/L is outside 0–25 mg/L — did you mean 60 %?"``; ``typed`` (the text as typed) is
     shown beside the value when a unit was converted."""
@@ -91,7 +92,7 @@ def range_message(key: str, label: str, value: float, unit: str | None = None, t
     unit = lim_unit if unit is None else unit
     u = f" {unit}" if unit else ""
     try:
-        v = float(value)
+        v = float(value)  # type: ignore[arg-type]  # anything float() takes; the rest shows as typed
     except (TypeError, ValueError):
         v = math.nan
     hint = "."
@@ -157,15 +158,10 @@ def _kinds() -> dict[str, Kind]:
     }
 
 
-_KINDS: dict[str, Kind] | None = None
-
-
+@functools.cache
 def kinds() -> dict[str, Kind]:
     """The kinds of typed quantity (built on first use: no work at import time)."""
-    global _KINDS
-    if _KINDS is None:
-        _KINDS = _kinds()
-    return _KINDS
+    return _kinds()
 
 
 KINDS = ("temp", "pressure", "conductivity", "salinity", "elevation", "do")

@@ -113,7 +113,7 @@ def _as_option(first: str, name: str, option: str) -> str:
     rest = first[len(name):]
     if rest.startswith(" = "):
         return f"{option} {rest[3:]}"
-    if rest.startswith("[") or rest.startswith(" "):
+    if rest.startswith(("[", " ")):
         return f"{option}{rest}" if rest.startswith(" ") else f"{option}: {first}"
     return f"{option}: {first}"
 

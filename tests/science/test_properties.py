@@ -3,8 +3,6 @@ from __future__ import annotations
 
 import math
 
-import pytest
-
 import gsw
 import numpy as np
 from hypothesis import given, settings
