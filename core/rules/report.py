@@ -54,9 +54,8 @@ class Rounding:
 
 
 def rounding_for(settings: ProgramSettings | None) -> Rounding:
-    """The program's reporting decimals (``reporting_decimals`` in its settings), else the defaults."""
-    extra = (settings.model_extra or {}) if settings is not None else {}
-    given = extra.get("reporting_decimals") or {}
+    """The program's reporting decimals (ProgramSettings.reporting_decimals), else the defaults."""
+    given = dict(settings.reporting_decimals) if settings is not None else {}
     known = {k: int(v) for k, v in given.items()
              if k in Rounding.__dataclass_fields__ and isinstance(v, int) and not isinstance(v, bool) and 0 <= v <= 6}
     return Rounding(**known)

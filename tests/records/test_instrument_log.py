@@ -62,3 +62,17 @@ def test_log_findings_show_on_the_trip():
     assert "instrument.zero_do" not in codes(flags[TRIP_KEY])
     # older settings (no instruments) still validate
     assert ProgramSettings.model_validate({"program": "x"}).instruments == []
+
+
+def test_reporting_decimals_are_a_program_setting_and_never_touch_stored_values():
+    # common practice defaults: DO 0.1 mg/L, % whole, temperature 0.1 °C, SC 3 significant figures
+    from core.rules.report import Rounding, rounding_for
+
+    assert rounding_for(ProgramSettings()) == Rounding()
+    assert rounding_for(ProgramSettings(reporting_decimals={"do_mg_l": 2})).do_mg_l == 2
+    # older settings files that kept it as an unknown field still read the same
+    old = ProgramSettings.model_validate_json('{"program": "x", "reporting_decimals": {"percent": 1}}')
+    assert rounding_for(old).percent == 1
+    trip = derive_trip(_trip(9.0), SITES, ProgramSettings(reporting_decimals={"do_mg_l": 0}))
+    assert trip.post_check.reading_mg_l == 9.0 and trip.stops[0].derived.do_sat_mg_l != round(
+        trip.stops[0].derived.do_sat_mg_l)
