@@ -684,7 +684,9 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
             entered["nitrification_inhibitor"] = True
     extra = [f"Repeat analysis: {(redo_reason or '').strip()}."] if prev is not None else []
     result = LabResult(
-        id=new_id(), analyte=analyte, value=r.bod_mg_l, unit="mg/L", analysed_at=analysed_at,
+        # the value the 5210 B rules support: None for a bound (see the report) or dilutions not averaged
+        id=new_id(), analyte=analyte, value=(r.report.value if r.report is not None and r.report.qualifier is None
+                                             else None), unit="mg/L", analysed_at=analysed_at,
         analyst=(analyst or "").strip()[:40], method=CBOD_METHOD if nitrification_inhibitor else BOD_METHOD,
         inputs={"entered": _jsonable(entered), "used": {"dilutions": _jsonable(dil)}, "derived": derived,
                 "flags": [f.to_dict() for f in flags]},

@@ -322,6 +322,19 @@ def test_bod_no_valid_dilution():
     assert "bod.no_valid_dilution" in codes(out) and out.result.inputs["derived"]["report"]["value"] is None
 
 
+def test_bod_dilution_trend_is_not_stored_as_a_value():
+    # Standard Methods 5210 B [from memory]: no averaging with evidence of toxicity (11, 35, 114 mg/L)
+    trend = [{"initial_do_mg_l": 8.6, "final_do_mg_l": 8.6 - 3.3, "sample_ml": 90.0},
+             {"initial_do_mg_l": 8.6, "final_do_mg_l": 8.6 - 3.5, "sample_ml": 30.0},
+             {"initial_do_mg_l": 8.6, "final_do_mg_l": 8.6 - 3.8, "sample_ml": 10.0}]
+    out = bod(bod_trip(), dilutions=trend)
+    assert "bod.dilution_trend" in codes(out) and out.result.value is None and out.result.valid is False
+    assert out.result.inputs["derived"]["report"]["basis"] == "trend"
+    # agreeing dilutions: the mean is the value (the rule not firing)
+    ok = bod(bod_trip(), dilutions=[D30, D15])
+    assert ok.result.value == pytest.approx(44.5) and "bod.dilution_trend" not in codes(ok)
+
+
 def test_cbod5_is_its_own_analyte():
     # Standard Methods 5210 B: CBOD5 (nitrification inhibitor) is reported as its own parameter
     out = bod(bod_trip(), dilutions=[D30], nitrification_inhibitor=True)
