@@ -193,10 +193,13 @@ def test_duplicates_rpd(data):
                 "--titrated-ml", TITRATED_200, "--at", "2026-07-07T11:10-07:00", "--json", data_dir=data))
     out = ok_json(lab("duplicates", dup, "--json", data_dir=data))
     [d] = out["duplicates"]
-    # RPD = |a − b| / mean × 100 (common practice): 0.6 / 9.1 × 100 = 6.6 %.
-    assert d["rpd_percent"] == pytest.approx(0.6 / 9.1 * 100, rel=1e-6) and d["status"] == "agrees"
+    # RPD = |a − b| / mean × 100 (common practice): 0.6 / 9.1 × 100 = 6.6 %, inside 20 %; but 0.6 mg/L is
+    # more than the 0.2 mg/L a field duplicate DO should agree within (common practice)
+    assert d["rpd_percent"] == pytest.approx(0.6 / 9.1 * 100, rel=1e-6) and d["status"] == "disagrees"
+    assert [f["code"] for f in d["flags"]] == ["lab.duplicate_difference"]
     strict = ok_json(lab("duplicates", dup, "--rpd-limit", "5", "--json", data_dir=data))
     assert strict["duplicates"][0]["status"] == "disagrees"
+    assert "lab.duplicate_rpd" in [f["code"] for f in strict["duplicates"][0]["flags"]]
     r = lab("duplicates", dup, data_dir=data)
     assert r.returncode == 0 and "TV-0901D" in r.stdout and "RPD" in r.stdout
 
