@@ -251,3 +251,18 @@ def test_intake_html_answer_through_the_cli_says_what_came_back(intake, device_a
 
 def test_free_port_is_loopback():
     assert 0 < free_port() < 65536
+
+
+def test_cli_timeout_bounds_a_dripping_hub(tmp_path):
+    drip = Drip("headers", every_s=0.5)
+    try:
+        started = time.monotonic()
+        out = run_cli("sync", "pull", "--from", f"http://127.0.0.1:{drip.port}/hub/", "--timeout", "1",
+                      data_dir=tmp_path / "office")
+        took = time.monotonic() - started
+    finally:
+        drip.close()
+    assert out.returncode == 1 and "Traceback" not in out.stderr
+    assert "limit" in out.stderr and len(out.stderr.strip().splitlines()) == 1
+    # 4 tries of at most 1 s each plus 3.5 s of backoff, where the drip alone takes 200 s a try
+    assert took < 30, took
