@@ -8,13 +8,18 @@ Targets only move bytes; every HTTP request goes through ``Session.request``, wh
   not be re-sent blindly, the sync engine decides (``Session.retrying``);
 * sends bodies as ``bytes`` so they go with a Content-Length, never chunked;
 * verifies TLS by default, against ``ca_file`` when one is given;
-* uses finite connect and read timeouts (defaults 5 s and 30 s; there is no "wait forever").
+* uses finite connect and read timeouts (defaults 5 s and 30 s; there is no "wait forever"),
+  and a deadline for the whole request (``deadline_s``): a server dripping its answer a byte at a
+  time is cut off there;
+* tells RFC 4918's finite-depth 403 (``DepthRefused``) from a real 403 (``Unauthorized``), and
+  says which TLS check failed (certificate authority, host name, dates).
 
 Retry behaviour (``RetryPolicy``): a step that fails with a `RetryableError` (connection refused
 or cut, a timeout, 5xx or 429) is tried ``attempts`` times in all, sleeping ``backoff_s``,
 ``2*backoff_s``, ... (each at most ``max_backoff_s``) in between; then the error is reported and
 the trip is left for the next sync. Final errors (401/403, other 4xx, redirects, TLS failures)
-are never retried.
+are never retried. A step includes reading and checking the answer's body, so a body cut while
+streaming is retried like any other cut.
 """
 from __future__ import annotations
 
@@ -312,7 +317,7 @@ def _watched_adapter_class():  # noqa: ANN202 - built on first use: no requests 
     return WatchedAdapter
 
 
-def _WatchedAdapter(local, **kw):  # noqa: ANN001, ANN202, N802
+def _watched_adapter(local, **kw):  # noqa: ANN001, ANN202
     return _watched_adapter_class()(local, **kw)
 
 
@@ -446,8 +451,8 @@ class Session:
             no_retry = Retry(total=0, connect=0, read=False, redirect=0, status=0, other=0,
                              allowed_methods=None, raise_on_redirect=False,
                              raise_on_status=False)
-            adapter = _WatchedAdapter(self._local, max_retries=no_retry, pool_connections=4,
-                                      pool_maxsize=4)
+            adapter = _watched_adapter(self._local, max_retries=no_retry, pool_connections=4,
+                                       pool_maxsize=4)
             http.mount("http://", adapter)
             http.mount("https://", adapter)
             http.trust_env = False          # no proxies or netrc picked up behind the user's back
