@@ -18,7 +18,8 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
-from core.store.atomic import atomic_write_bytes, canonical_json_bytes
+from core.store.atomic import canonical_json_bytes
+from core.store.quarantine import quarantine, utc_stamp
 from sync import errors
 from sync.layout import canonical_trip_id, revision_name, trip_year
 from sync.merge import common_ancestor, describe_conflict, history, merge_trips, relation
@@ -226,15 +227,10 @@ def _extra_ancestors(tgt: Target, session: Session, year: str, tid: str, local: 
 
 
 def _quarantine(data_dir: Path, f: RemoteFile, data: bytes | None, reason: str) -> Path:
-    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
-    folder = Path(data_dir) / "sync" / "quarantine"
-    base = folder / f"{stamp}-{f.trip_id}-{f.name}"
-    if data is not None:
-        atomic_write_bytes(base, data)
     report = (f"hub file: trips/{f.year}/{f.trip_id}/{f.name}\nfound: {_now()}\nreason: {reason}\n"
               + ("" if data is not None else "content: not copied (refused before or while reading)\n"))
-    atomic_write_bytes(base.with_name(base.name + ".report.txt"), report.encode("utf-8"))
-    return base
+    return quarantine(Path(data_dir) / "sync" / "quarantine", f"{utc_stamp(zone=True)}-{f.trip_id}-{f.name}",
+                      report, data=data, note_suffix=".report.txt")
 
 
 def _store_rejects(exc: Exception) -> bool:
