@@ -10,14 +10,16 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Iterable, Mapping
 
+from core.records.models import BOOKKEEPING, LOG, keys_by_role
 from core.store.atomic import canonical_json_bytes
 from sync.merge import common_ancestor, history, merge_trips, relation
 
 __all__ = ["BOOKKEEPING_KEYS", "semantic", "same_content", "Fold", "fold", "lacks_ancestor",
            "contained_names", "next_head", "newest_contained"]
 
-#: Fields that change on every save and say nothing about the field work itself.
-BOOKKEEPING_KEYS = frozenset({"revision", "updated_at", "device_id", "audit", "content_hash"})
+#: Fields that change on every save and say nothing about the field work itself (the roles
+#: bookkeeping and log, as declared on the models in core.records.models).
+BOOKKEEPING_KEYS = keys_by_role(BOOKKEEPING, LOG)
 
 
 def semantic(doc: dict) -> bytes:

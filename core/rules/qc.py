@@ -35,7 +35,8 @@ from datetime import datetime
 from typing import Any, Iterable
 
 from core.flags import Flag, Severity
-from core.records.models import (Calibration, Derived, FlagRecord, ProgramSettings, Site, Stop, Trip)
+from core.records.models import (DERIVED, Calibration, Derived, FlagRecord, ProgramSettings, Site, Stop, Trip,
+                                 keys_by_role)
 
 __all__ = ["TRIP_KEY", "RULE_CODES", "derive", "derive_trip", "derive_document", "derive_basis", "derive_stop", "derive_calibration",
            "stop_flags", "trip_flags", "trip_level_flags", "core_version"]
@@ -172,6 +173,7 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
     if previous is not None:
         old_stops = {s.get("id"): s for s in previous.get("stops") or [] if isinstance(s, dict)}
     bases = {} if bases is None else bases
+    derived_keys = keys_by_role(DERIVED, model=Stop)
     new_stops: list[Stop] = []
     for stop, stop_doc in zip(trip.stops, doc["stops"]):
         site = sites.get(stop.site_id)
@@ -182,7 +184,7 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
         if (old is not None and isinstance(old.get("derived"), dict)
                 and old["derived"].get("basis") == basis
                 and len(old) == len(stop_doc)
-                and all(old.get(k) == v for k, v in stop_doc.items() if k != "derived")):
+                and all(old.get(k) == v for k, v in stop_doc.items() if k not in derived_keys)):
             if stop_doc.get("derived") == old["derived"]:
                 new_stops.append(stop)
             else:

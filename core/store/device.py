@@ -35,12 +35,14 @@ from pydantic import ValidationError
 from core.records.messages import Problem, one_line, problems_from_validation
 from core.records.migrations import migrate
 from core.records.models import (
+    BOOKKEEPING,
     SCHEMA_VERSION,
     AuditEntry,
     ProgramSettings,
     Site,
     Stop,
     Trip,
+    keys_by_role,
     new_id,
 )
 from core.store.atomic import atomic_write_bytes, canonical_json_bytes
@@ -92,11 +94,10 @@ def _non_finite_problems(doc: Any) -> list[Problem]:
     return out
 
 
-_BOOKKEEPING = ("revision", "updated_at")
-
-
 def _content(doc: dict[str, Any]) -> dict[str, Any]:
-    return {k: v for k, v in doc.items() if k not in _BOOKKEEPING}
+    """A trip document without its bookkeeping (id, revision, time of the last save, ...)."""
+    bookkeeping = keys_by_role(BOOKKEEPING)
+    return {k: v for k, v in doc.items() if k not in bookkeeping}
 
 
 def _utcnow() -> datetime:
