@@ -22,7 +22,7 @@ from core.store.atomic import canonical_json_bytes
 from core.store.quarantine import quarantine, utc_stamp
 from sync import errors
 from sync.layout import canonical_trip_id, revision_name, trip_year
-from sync.merge import describe_conflict
+from core.records.merge import describe_conflict
 from sync.outbox import Outbox, OutboxEntry, hubs
 from sync.reconcile import (BOOKKEEPING_KEYS, contained_names, fold, lacks_ancestor, newest_contained,
                             next_head, same_content)

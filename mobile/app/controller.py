@@ -778,7 +778,7 @@ class AppController:
         if saved is None:
             return []
         try:
-            from sync.merge import describe_conflict
+            from core.records.merge import describe_conflict
         except ImportError:
             def describe_conflict(c: dict) -> str:
                 return str(c.get("path"))

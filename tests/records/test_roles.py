@@ -8,7 +8,7 @@ import copy
 from core.records.models import (BOOKKEEPING, DERIVED, INPUT, LOG, Calibration, LabResult, Stop, Trip,
                                  keys_by_role, paths_by_role, role_tree)
 from core.store.audit import diff_paths
-from sync.merge import merge_trips
+from core.records.merge import merge_trips
 from sync.reconcile import BOOKKEEPING_KEYS, same_content
 from tests.records.conftest import make_bottle, make_cal, make_stop, make_trip
 

@@ -1,4 +1,4 @@
-"""Pure merging of trip JSON documents: elements of lists merge by `id`, clashes become `conflicts`.
+"""Pure three-way merging of trip JSON documents: elements of lists merge by `id`, clashes become `conflicts`.
 
 No I/O, no clock. ``merge_trips(base, a, b)`` is a three-way merge when the common ancestor
 `base` is known and a two-way one (``base=None``) when it is not. It gives the same document
