@@ -9,17 +9,18 @@ brings in every revision at the hub this device has not seen, merging it with th
 from __future__ import annotations
 
 import hashlib
-import json
 import logging
 import os
 import threading
+import time
 from dataclasses import asdict, dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
-from core.store.atomic import canonical_json_bytes
-from core.store.quarantine import quarantine, utc_stamp
+from core.records.limits import LimitError, loads_limited
+from core.store.atomic import atomic_write_bytes, canonical_json_bytes
+from core.store.quarantine import quarantine
 from sync import errors
 from sync.layout import canonical_trip_id, revision_name, trip_year
 from core.records.merge import describe_conflict
@@ -27,7 +28,7 @@ from sync.outbox import Outbox, OutboxEntry, hubs
 from sync.reconcile import (BOOKKEEPING_KEYS, contained_names, fold, lacks_ancestor, newest_contained,
                             next_head, same_content)
 from sync.plan import Action, LocalEntry, RemoteEntry, plan, plan_pull
-from sync.session import ENV_CA_FILE, Session, load_credentials
+from sync.session import Session, ca_file_from_environment, load_credentials
 from sync.targets import RemoteFile, Target, WebDavTarget, open_target
 
 __all__ = ["push", "pull", "status", "run_in_background", "PushReport", "PullReport", "TripResult",
@@ -38,6 +39,8 @@ log = logging.getLogger("streamtab.sync")
 Progress = Callable[[int, int, str, str], None]
 #: After this many trips in a row fail with a retryable error, the rest are not tried this run.
 GIVE_UP_AFTER = 3
+#: How often a pushing device looks for its own stale uploads under incoming/ (seconds).
+CLEAN_INCOMING_EVERY_S = 24 * 3600
 
 
 @dataclass
@@ -82,6 +85,7 @@ class PullReport:
     unchanged: int = 0
     failed: int = 0
     source: str = ""
+    skipped: list[str] = field(default_factory=list)   # hub entries that do not fit the layout
 
     @property
     def complete(self) -> bool:
@@ -90,7 +94,7 @@ class PullReport:
     def to_dict(self) -> dict[str, Any]:
         return {"pulled": self.pulled, "merged": self.merged, "quarantined": self.quarantined,
                 "unchanged": self.unchanged, "failed": self.failed, "source": self.source,
-                "per_trip": [asdict(t) for t in self.per_trip]}
+                "skipped": list(self.skipped), "per_trip": [asdict(t) for t in self.per_trip]}
 
 
 @dataclass
@@ -140,7 +144,7 @@ def _summaries(store: Any) -> dict[str, tuple[int, str]]:
 
 def _session_for(store: Any, address: str, session: Session | None) -> Session:
     if session is None:
-        ca = os.environ.get(ENV_CA_FILE) or None
+        ca = ca_file_from_environment()
         session = Session(store.device_id,
                           credentials=load_credentials(address, data_dir=store.data_dir),
                           ca_file=ca)
@@ -164,7 +168,9 @@ def _conflict_lines(conflicts: Iterable[dict]) -> list[str]:
 
 def _parse_hub_doc(f: RemoteFile, data: bytes) -> dict:
     try:
-        doc = json.loads(data.decode("utf-8"))
+        doc = loads_limited(data.decode("utf-8"))
+    except LimitError as exc:
+        raise errors.BadHubDocument(f"hub file {f.name} of trip {f.trip_id} is refused: {exc}") from None
     except (UnicodeDecodeError, ValueError):
         raise errors.BadHubDocument(f"hub file {f.name} of trip {f.trip_id} is not valid JSON") from None
     if not isinstance(doc, dict):
@@ -198,10 +204,33 @@ def _extra_ancestors(tgt: Target, session: Session, year: str, tid: str, local: 
 
 
 def _quarantine(data_dir: Path, f: RemoteFile, data: bytes | None, reason: str) -> Path:
+    """A copy of a bad hub file and a report beside it. Bad files are re-checked at every sync
+    (never blacklisted), so the copy has one name per hub file and is refreshed, not multiplied."""
     report = (f"hub file: trips/{f.year}/{f.trip_id}/{f.name}\nfound: {_now()}\nreason: {reason}\n"
-              + ("" if data is not None else "content: not copied (refused before or while reading)\n"))
-    return quarantine(Path(data_dir) / "sync" / "quarantine", f"{utc_stamp(zone=True)}-{f.trip_id}-{f.name}",
-                      report, data=data, note_suffix=".report.txt")
+              + ("" if data is not None else "content: not copied (refused before or while reading)\n")
+              + "re-checked at every sync until the hub copy is repaired or removed by the office\n")
+    return quarantine(Path(data_dir) / "sync" / "quarantine", f"{f.trip_id}-{f.name}", report, data=data,
+                      note_suffix=".report.txt", refresh=True)
+
+
+def _local_failure(exc: BaseException, data_dir: Path) -> errors.LocalWriteError:
+    """One line for a failed write of this device's own files (outbox, quarantine, store)."""
+    import errno
+
+    reason = getattr(exc, "strerror", None) or (str(exc).splitlines() or [type(exc).__name__])[0]
+    if getattr(exc, "errno", None) in (errno.ENOSPC, getattr(errno, "EDQUOT", -1)) or "No space" in str(exc):
+        what = f"the device's disk is full (writing in {data_dir})"
+        todo = "free some space and sync again"
+    else:
+        what = f"this device's data folder {data_dir} could not be written ({reason})"
+        todo = "check the folder and sync again"
+    return errors.LocalWriteError(f"{what}; {todo} — nothing was lost, the next sync picks up where this one stopped")
+
+
+def _local_write_errors(exc: BaseException) -> bool:
+    from core.store import StoreWriteError
+
+    return isinstance(exc, (OSError, StoreWriteError))
 
 
 def _store_rejects(exc: Exception) -> bool:
@@ -209,6 +238,42 @@ def _store_rejects(exc: Exception) -> bool:
     from core.store import InvalidRecord, NewerSchemaError
 
     return isinstance(exc, (InvalidRecord, NewerSchemaError))
+
+
+def _same_bytes(a: dict | None, b: dict | None) -> bool:
+    if a is None or b is None:
+        return a is b
+    return canonical_json_bytes(a) == canonical_json_bytes(b)
+
+
+def _write(store: Any, tid: str, based_on: dict | None, new: dict, change: str, *,
+           verbatim: bool) -> tuple[dict, list[dict]]:
+    """Writes `new` — the device copy `based_on` with hub documents folded in — never blind.
+
+    Under the store's lock the stored copy is read again: a save made since `based_on` was read
+    (the app, a lab command, another sync) is folded in three-way with `based_on` as the common
+    ancestor, so it is never overwritten. `verbatim` says `new` is a hub document as read (a new
+    trip or a fast-forward): it is stored byte for byte through ``adopt_document``, keeping the
+    hub's revision, so a pull makes no revision of its own. Anything else (a merge) goes through
+    the save path, which derives it again and adds a revision with an audit entry.
+    Returns (the stored document, conflicts found while folding in a late save).
+    """
+    with store.locked():
+        current = store.trip_document(tid) if store.has_trip(tid) else None
+        doc, late = new, []
+        if not _same_bytes(current, based_on):
+            folded = fold(current, [new], [based_on] if based_on is not None else [])
+            doc, late = folded.doc, folded.conflicts
+            verbatim = verbatim and doc is new
+        if _same_bytes(doc, current):
+            return current, late
+        if verbatim:
+            rev = None if current is None else int(current.get("revision", 0))
+            if store.adopt_document(doc, expected_revision=rev) is not None:
+                return store.trip_document(tid), late
+        if current is None or not same_content(doc, current):
+            store.put_document(doc, change)
+        return store.trip_document(tid), late
 
 
 # --- push ----------------------------------------------------------------------------------------
@@ -258,13 +323,16 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
                 try:
                     res = _push_one(store, tgt, session, outbox, tid)
                     failing = 0
+                except errors.LocalWriteError:
+                    raise
                 except errors.RetryableError as exc:
                     failing += 1
                     res = TripResult(tid, "failed", f"not synced — will retry: {exc}",
                                      revision=local[tid].revision, retry=True)
                 except errors.Conflict as exc:
                     res = TripResult(tid, "conflict", str(exc), revision=local[tid].revision, retry=True)
-                except (errors.Rejected, errors.IntegrityError, errors.BadHubDocument, ValueError) as exc:
+                except (errors.Rejected, errors.IntegrityError, errors.BadHubDocument, errors.NotDelivered,
+                        ValueError) as exc:
                     res = TripResult(tid, "failed", str(exc), revision=local[tid].revision, retry=True)
             report.per_trip.append(res)
             if res.result == "pushed":
@@ -277,10 +345,40 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
                 report.failed += 1
             done += 1
             _notify(progress, done, total, tid, res.result)
+        if any(r.result != "unchanged" for r in report.per_trip):   # an unchanged push asks nothing
+            _clean_incoming(tgt, session, outbox)
+    except Exception as exc:
+        if _local_write_errors(exc):
+            raise _local_failure(exc, store.data_dir) from None
+        raise
     finally:
         _flush(outbox)
         tgt.close()
     return report
+
+
+def _clean_incoming(tgt: Target, session: Session, outbox: Outbox) -> None:
+    """At most once a day per hub, in a push that sent something, removes this device's own uploads
+    under ``incoming/`` older than a day (cut uploads). Best effort: a failure is logged and tried
+    again next push."""
+    remove = getattr(tgt, "remove_stale_uploads", None)
+    if remove is None or not session.device_id:
+        return
+    mark = outbox.folder / "incoming-cleaned"
+    now = time.time()
+    try:
+        if now - mark.stat().st_mtime < CLEAN_INCOMING_EVERY_S:
+            return
+    except OSError:
+        pass
+    try:
+        removed = remove(session.device_id, now)
+    except errors.SyncError as exc:
+        log.warning("could not remove stale uploads from the hub: %s", exc)
+        return
+    if removed:
+        log.info("removed %d stale upload(s) of this device from the hub's incoming/", removed)
+    atomic_write_bytes(mark, f"{_now()} removed {removed}\n".encode(), durable=False)
 
 
 def _flush(outbox: Outbox) -> None:
@@ -300,6 +398,7 @@ def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
     h = _sha(data)
     rev = int(doc.get("revision", 0))
     new_conflicts: list[dict] = []
+    notes: list[str] = []
 
     if tgt.can_list:
         if entry.hub_name is None and isinstance(tgt, WebDavTarget):
@@ -331,39 +430,50 @@ def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
                 try:
                     docs.append(_parse_hub_doc(f, tgt.read(f, session.max_document_bytes)))
                     good.append(name)
-                except (errors.BadHubDocument, errors.IntegrityError) as exc:
-                    log.warning("push: skipping a bad hub file: %s", exc)
-                    entry.bad.append(name)
+                except (errors.BadHubDocument, errors.IntegrityError, errors.Gone) as exc:
+                    # not marked seen: read again at the next sync (a cut read is retried inside
+                    # `read`; what stays wrong is reported here, never dropped silently)
+                    log.warning("push: skipping a hub file: %s", exc)
+                    notes.append(f"skipped {exc} — re-checked on the next sync")
+                    if not isinstance(exc, errors.Gone):
+                        entry.bad.append(name)
             candidates = [entry.base] if entry.base else []
             candidates += _extra_ancestors(tgt, session, year, tid, doc, docs, candidates,
                                            sorted(listing - set(act.unseen)))
             folded = fold(doc, docs, candidates)
             merged, new_conflicts = folded.doc, folded.conflicts
             seen.update(good)
-            if merged is not None and not same_content(merged, doc):
+            if merged is not None and (not same_content(merged, doc)
+                                       or (folded.kind == "pulled" and not _same_bytes(merged, doc))):
                 change = "merged with other devices' versions from the hub"
                 if new_conflicts:
                     change += f" ({len(new_conflicts)} field(s) changed on both sides kept for review)"
                 try:
-                    store.put_document(merged, change)
+                    doc, late = _write(store, tid, doc, merged, change, verbatim=folded.kind == "pulled")
                 except Exception as exc:
                     if isinstance(exc, errors.SyncError) or not _store_rejects(exc):
                         raise
                     first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
                     raise errors.BadHubDocument(
                         f"the store refused the merge of trip {tid} with the hub's versions: {first}") from None
-                doc = store.trip_document(tid)
+                new_conflicts = new_conflicts + late
                 data = canonical_json_bytes(doc)
                 h = _sha(data)
                 rev = int(doc.get("revision", 0))
+                if revision_name(rev, h) in listing:
+                    # the device copy is now a revision the hub holds: nothing to send
+                    name = revision_name(rev, h)
+                    seen.add(name)
+                    _record(outbox, entry, rev, h, name, entry.etag, seen, doc)
+                    return TripResult(tid, "unchanged", "brought up to date from the hub", revision=rev)
     name = revision_name(rev, h)
     wr = tgt.write_revision(year, tid, name, data, session.device_id or "", rev, h)
     seen.add(name)
     _record(outbox, entry, rev, h, name, wr.etag, seen, doc)
     if new_conflicts:
-        return TripResult(tid, "conflict", "pushed; fields changed on both sides need attention",
+        return TripResult(tid, "conflict", "; ".join(["pushed; fields changed on both sides need attention"] + notes),
                           revision=rev, conflicts=_conflict_lines(new_conflicts))
-    return TripResult(tid, "pushed", "" if wr.created else "the hub already held these bytes",
+    return TripResult(tid, "pushed", "; ".join(([] if wr.created else ["the hub already held these bytes"]) + notes),
                       revision=rev)
 
 
@@ -389,7 +499,10 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
     report = PullReport(source=tgt.url)
     outbox = Outbox(store.data_dir, tgt.key, tgt.url)
     try:
-        files = session.retrying(tgt.list_all)
+        files = tgt.list_all()          # each request inside is retried (not the whole walk again)
+        report.skipped = list(getattr(files, "skipped", []))
+        for line in report.skipped:
+            log.warning("pull: %s", line)
         by_trip: dict[str, list[RemoteFile]] = {}
         for f in files:
             by_trip.setdefault(f.trip_id, []).append(f)
@@ -409,13 +522,21 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
                 try:
                     res = _pull_one(store, tgt, session, outbox, tid, act.unseen,
                                     {f.name: f for f in by_trip[tid]}, tid in summaries)
+                except errors.LocalWriteError:
+                    raise
                 except errors.RetryableError as exc:
+                    res = TripResult(tid, "failed", f"not pulled — will retry: {exc}", retry=True)
+                except errors.Rejected as exc:      # one file refused (4xx): this trip only
                     res = TripResult(tid, "failed", f"not pulled — will retry: {exc}", retry=True)
             report.per_trip.append(res)
             if res.result in ("pulled", "merged", "quarantined", "unchanged", "failed"):
                 setattr(report, res.result, getattr(report, res.result) + 1)
             done += 1
             _notify(progress, done, total, tid, res.result)
+    except Exception as exc:
+        if _local_write_errors(exc):
+            raise _local_failure(exc, store.data_dir) from None
+        raise
     finally:
         _flush(outbox)
         tgt.close()
@@ -430,6 +551,7 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
     if entry is None:
         entry = OutboxEntry(trip_id=tid, year=year)
     bad_lines: list[str] = []
+    gone_lines: list[str] = []
     docs: list[tuple[str, dict]] = []
     for name in unseen:
         f = files[name]
@@ -437,9 +559,12 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
         try:
             data = tgt.read(f, session.max_document_bytes)
             docs.append((name, _parse_hub_doc(f, data)))
+        except errors.Gone as exc:          # listed, then removed: looked for again next sync
+            gone_lines.append(f"{exc}; skipped")
         except (errors.BadHubDocument, errors.IntegrityError) as exc:
-            where = _quarantine(store.data_dir, f, data, str(exc))
-            bad_lines.append(f"{exc} (copied to {where.name})")
+            # stays unseen: re-checked at every sync, reported every time, never blacklisted
+            where = _quarantine(store.data_dir, f, data if data is not None else getattr(exc, "data", None), str(exc))
+            bad_lines.append(f"{exc} (copied to {where.name}; re-checked on the next sync)")
             entry.bad.append(name)
     candidates = [entry.base] if entry.base else []
     if local_doc is not None:
@@ -458,9 +583,12 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
         doc = pending[name]
         folded = fold(acc, [doc], candidates + list(dict(docs).values()))
         trial, k, c = folded.doc, folded.kind, folded.conflicts
-        if trial is not None and (acc is None or not same_content(trial, acc)):
+        if trial is not None and (acc is None or not same_content(trial, acc)
+                                  or (k == "pulled" and not _same_bytes(trial, acc))):
             try:
-                store.put_document(trial, "pulled from hub" if k == "pulled" else "merged with the hub's version")
+                acc, late = _write(store, tid, acc, trial,
+                                   "pulled from hub" if k == "pulled" else "merged with the hub's version",
+                                   verbatim=k == "pulled")
             except errors.SyncError:
                 raise
             except Exception as exc:  # the store's validation refused it
@@ -468,13 +596,12 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
                     raise
                 msg = f"the store refused hub file {name}: {exc}".splitlines()[0]
                 _quarantine(store.data_dir, files[name], canonical_json_bytes(doc), msg)
-                bad_lines.append(msg)
+                bad_lines.append(f"{msg} (re-checked on the next sync)")
                 entry.bad.append(name)
                 del pending[name]
                 continue
-            acc = store.trip_document(tid)
-            kind = "merged" if (k == "merged" or kind == "merged") else "pulled"
-            conflicts.extend(c)
+            kind = "merged" if (k == "merged" or kind == "merged" or late) else "pulled"
+            conflicts.extend(c + late)
         elif acc is None:
             acc = trial
         # same content as the device copy (bookkeeping aside): nothing to save
@@ -485,17 +612,25 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
                 accepted.append(other)
                 del pending[other]
     entry.seen = sorted(set(entry.seen) | set(accepted))
+    entry.bad = [n for n in entry.bad if n not in accepted]     # repaired at the hub since
     if acc is not None and accepted:
         # the ancestor for the next merge: the newest hub document the device copy contains
         base = newest_contained([d for n, d in docs if n in accepted], acc)
         if base is not None:
             entry.base = base
+        name = revision_name(int(acc.get("revision", 0)), _sha(canonical_json_bytes(acc)))
+        if name in files and name not in entry.bad:
+            # the device copy is byte for byte a hub file (checked against its name when read):
+            # record it as held by the hub, so the next push sends nothing and asks nothing
+            entry.pushed_revision, entry.pushed_hash = int(acc.get("revision", 0)), _sha(canonical_json_bytes(acc))
+            entry.hub_name = name
+            entry.seen = sorted(set(entry.seen) | {name})
     outbox.put(entry)
     rev = int(acc.get("revision", 0)) if acc else None
     if bad_lines:
-        return TripResult(tid, "quarantined", "; ".join(bad_lines), revision=rev,
-                          conflicts=_conflict_lines(conflicts))
-    msg = "fields changed on both sides need attention" if conflicts else ""
+        return TripResult(tid, "quarantined", "; ".join(bad_lines + gone_lines), revision=rev,
+                          conflicts=_conflict_lines(conflicts), retry=True)
+    msg = "; ".join((["fields changed on both sides need attention"] if conflicts else []) + gone_lines)
     return TripResult(tid, kind, msg,
                       revision=rev, conflicts=_conflict_lines(conflicts))
 

@@ -30,8 +30,11 @@ def _free(folder: Path, name: str) -> Path:
 
 
 def quarantine(folder: Path | str, name: str, reason: str, *, source: Path | None = None,
-               data: bytes | None = None, note_suffix: str = ".reason.txt") -> Path:
+               data: bytes | None = None, note_suffix: str = ".reason.txt", refresh: bool = False) -> Path:
     """Sets a bad file aside in `folder` under `name` (``name.2``, ``name.3``… when taken).
+
+    With `refresh`, `name` is used even when taken: the copy and its note are replaced (for a
+    source that is checked again at every run and must not multiply, e.g. a bad hub file).
 
     With `source`, the file is moved there (``os.replace``; a source already gone moves
     nothing and writes no note); with `data`, those bytes are written there (durably); with
@@ -40,7 +43,7 @@ def quarantine(folder: Path | str, name: str, reason: str, *, source: Path | Non
     """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
-    target = _free(folder, name)
+    target = folder / name if refresh else _free(folder, name)
     if source is not None:
         try:
             os.replace(source, target)
