@@ -130,6 +130,7 @@ class DeviceStore:
         self._files = TripFiles(self._trips_dir)
         self._index = SummaryIndex(self._index_dir)
         self._tables = Tables(self.data_dir, self._quarantine)
+        self._finalizer: Any = None     # in_memory(): removes the temporary folder with the store
         self._bases: tuple[Any, dict[str, str]] = (None, {})
 
     # -- opening ---------------------------------------------------------------------------
