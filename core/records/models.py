@@ -2,8 +2,6 @@
 from __future__ import annotations
 
 import json
-import math
-import re
 import types
 import typing
 import uuid
