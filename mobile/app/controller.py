@@ -11,6 +11,7 @@ import copy
 from datetime import datetime
 from typing import Any, Callable
 
+from core.records.messages import when_text
 from mobile.app import device_files, records_bridge
 from mobile.app.device_files import AppPrefs
 from mobile.app.forms import (BOTTLE_KINDS, FIELD_LABELS, REQUIRED_STOP_FIELDS, BottleForm, CalForm,
@@ -19,7 +20,7 @@ from mobile.app.numeric import parse_decimal
 from mobile.app.save_worker import SaveWorker
 from mobile.app.theme import severity_mark
 from mobile.app.views import (CalView, ClockLine, FlagLine, StopView, TripLine, error_line, flag_line,
-                              fmt_duration, fmt_value, fmt_when, local_now, parse_when)
+                              fmt_duration, fmt_value, local_now, parse_when)
 
 __all__ = ["AppController"]
 
@@ -223,10 +224,7 @@ class AppController:
         lines = []
         synced = self.sync_states()
         for t in self.store.list_trips():
-            try:
-                started = fmt_when(datetime.fromisoformat(t.started_at))
-            except (TypeError, ValueError):
-                started = str(t.started_at or "")
+            started = when_text(t.started_at)
             crew = ", ".join(t.crew) if isinstance(t.crew, list) else str(t.crew or "")
             title = f"{t.program or 'Trip'} · {crew or '—'}"
             status = {"in progress": "open"}.get(t.status, t.status)

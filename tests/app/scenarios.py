@@ -246,6 +246,8 @@ def sync_folder(p, hub=""):
     p.app.go("sync")
     yield 0.2
     s = p.screen("sync")
+    p.note("idle_bar", [s.ids.bar.opacity, s.ids.bar.height, _visible(s.ids.bar)])
+    yield from p.shot("sync-idle")
     yield from p.type(s.ids.target, hub)
     yield from p.tap(s.ids.send_btn)
     p.note("running_after_tap", s.running)
@@ -263,6 +265,7 @@ def sync_folder(p, hub=""):
     p.note("status", s.status)
     p.note("rows", [w.text for w in reversed(s.rows_box.children)])
     p.note("progress", [s.progress, s.progress_max])
+    p.note("done_bar_visible", _visible(s.ids.bar))
     yield from p.shot("sync-after-send")
     p.app.ctl.flush(10)
     p.note("trip_id", p.app.ctl.trip.id)
@@ -436,3 +439,30 @@ def new_site(p):
     yield 0.6
     p.app.ctl.flush(10)
     p.note("trip_id", p.app.ctl.trip.id)
+
+
+def flags_panel(p):
+    """A stop with several flags: every flag can be brought into the panel's view by scrolling it."""
+    yield 0.1
+    yield from _start_trip(p, cal=None)
+    yield from _fill_stop(p, "LK-03 Aspen Bend", "31", "1040", "60000", "2,1")
+    yield 0.3
+    s = p.screen("stop")
+    view = s.flag_view
+    rows = list(reversed(s.flag_box.children))
+    p.note("flag_words", [r.word for r in rows])
+    p.note("panel", [view.height, s.flag_box.height, type(view.__self__).__name__])
+    yield from p.shot("stop-flags")
+    seen = []
+    for row in rows:
+        view.scroll_to(row, padding=0, animate=False)
+        yield 0.15
+        _, bottom = row.to_window(row.x, row.y)
+        _, top = row.to_window(row.x, row.top)
+        _, v_bottom = view.to_window(view.x, view.y)
+        _, v_top = view.to_window(view.x, view.top)
+        seen.append(bottom >= v_bottom - 1 and top <= v_top + 1)
+    p.note("each_flag_fits_when_scrolled", seen)
+    p.note("bar_width", view.bar_width)
+    p.note("title", s.ids.flags_title.text)
+    yield from p.shot("stop-flags-scrolled")

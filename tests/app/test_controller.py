@@ -241,3 +241,32 @@ def test_settings_limits_are_the_records_own(ctl):
         msg = ctl.save_settings_form(units, {**ok, name: text}, "")
         assert msg and msg.startswith(words), msg
     assert ctl.store.settings().supersaturation_percent == 130   # a refusal saved nothing
+
+
+def test_trip_start_reads_the_same_in_the_app_and_the_command_line(tmp_path, capsys, monkeypatch):
+    """Both show a trip's start in its own UTC offset and say which, whatever this machine's zone."""
+    import time
+    from pathlib import Path
+
+    from core.records.messages import when_text
+    from mobile.cli import main
+    from mobile.cli.app_cmd import seed_demo
+
+    monkeypatch.setenv("TZ", "Asia/Tokyo")      # a tablet far from where the trips were recorded
+    time.tzset()
+    try:
+        seed_demo(tmp_path / "d", Path(__file__).resolve().parents[2] / "sample_trips")
+        store = DeviceStore.open(tmp_path / "d")
+        c = AppController(store)
+        lines = {line.id: line.detail for line in c.trip_lines()}
+        assert main(["trip", "list", "--data-dir", str(tmp_path / "d")]) == 0
+        out = capsys.readouterr().out
+        for t in store.list_trips():
+            shown = when_text(t.started_at)
+            assert "UTC" in shown and t.started_at[11:16] in shown    # the recorded clock, not Tokyo's
+            assert lines[t.id].startswith(shown)
+            assert f"{t.id[:8]}  {shown}" in out
+        c.worker.flush()
+    finally:
+        monkeypatch.delenv("TZ")
+        time.tzset()

@@ -20,6 +20,8 @@ def test_send_to_folder_hub(tmp_path):
     assert notes["status"].startswith("✓ Sent 1"), notes["status"]
     assert any(r.startswith("✓ PUSHED") for r in notes["rows"]), notes["rows"]
     assert notes["progress"][0] == notes["progress"][1]
+    # idle, the progress strip takes no room (its empty frame looked like a text field); after, it shows
+    assert notes["idle_bar"] == [0, 0, False] and notes["done_bar_visible"] is True
     # the hub holds the trip under its id (layout: sync engineer's; we only look for the id)
     names = [p.name for p in hub.rglob("*")] + [str(p) for p in hub.rglob("*")]
     assert any(notes["trip_id"] in n for n in names)
