@@ -52,6 +52,8 @@ FIELD_LABELS: dict[str, str] = {
     "device_id": "Device ID",
     "reading_mg_l": "Calibration meter reading",
     "calibration_reading": "Calibration meter reading",
+    "cal_temp": "Calibration temperature",
+    "cal_pressure": "Calibration pressure",
     "tolerance_mg_l": "Calibration tolerance",
     "tolerance": "Calibration tolerance",
     "pre_calibration": "Pre-trip calibration",

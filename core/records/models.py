@@ -534,14 +534,20 @@ class Trip(_Record):
     conflicts: list[Conflict] = Field(default_factory=list)
     #: Chain of custody of the trip's bottles, in the order entered (optional; absent when empty).
     custody: list[CustodyRecord] = Field(default_factory=list)
+    #: The crew started the trip with no pre-trip calibration, saying so (optional; absent when False).
+    started_without_calibration: bool = False
 
     @model_serializer(mode="wrap")
     def _omit_empty_custody(self, handler: Any) -> Any:
-        # A trip without hand-offs is written exactly as before the field existed, so older
-        # documents keep their bytes and hashes and nobody's save records a change they never made.
+        # A trip without hand-offs (or with the usual calibration) is written exactly as before
+        # these fields existed, so older documents keep their bytes and hashes and nobody's save
+        # records a change they never made.
         data = handler(self)
-        if isinstance(data, dict) and not data.get("custody"):
-            data.pop("custody", None)
+        if isinstance(data, dict):
+            if not data.get("custody"):
+                data.pop("custody", None)
+            if not data.get("started_without_calibration"):
+                data.pop("started_without_calibration", None)
         return data
 
     @property

@@ -152,6 +152,7 @@ def _show_data(store, trip_id: str) -> dict:  # noqa: ANN001
             "meter_id": trip.meter_id, "started_at": trip.started_at.isoformat(),
             "ended_at": trip.ended_at.isoformat() if trip.ended_at else None, "revision": trip.revision,
             "status": trip.status, "calibrations": cal,
+            "started_without_calibration": trip.started_without_calibration,
             "trip_flags": [f.to_dict() for f in flags.get(TRIP_KEY, [])],
             "open_conflicts": [c.model_dump(mode="json") for c in trip.open_conflicts],
             "stops": stops}
@@ -179,6 +180,8 @@ def _trip_show(args) -> int:  # noqa: ANN001
     w(f"trip {data['id']}  {data['program']}  crew {', '.join(data['crew']) or '—'}  status {data['status']}\n")
     w(f"  started {when_text(data['started_at'])}  ended {when_text(data['ended_at'])}  meter {data['meter_id'] or '—'}"
       f"  revision {data['revision']}\n")
+    if data["started_without_calibration"] and not data["calibrations"]["pre_calibration"]:
+        w("  pre-trip calibration: none — the trip was started without calibration\n")
     for key, label in (("pre_calibration", "pre-trip calibration"), ("post_check", "post-trip check")):
         c = data["calibrations"][key]
         if c:

@@ -27,3 +27,17 @@ def test_send_to_folder_hub(tmp_path):
     assert any(notes["trip_id"] in n for n in names)
     trip = DeviceStore.open(tmp_path / "data").load_trip(notes["trip_id"])
     assert trip.stops[0].do.text == "11,0 mg/L"   # typed while sending, saved afterwards
+
+
+def test_an_address_with_a_password_is_refused_before_it_is_stored(tmp_path):
+    seed_sites(tmp_path / "data")
+    notes = run_scenario("sync_refuses_secret", tmp_path / "data", tmp_path, artifacts=ARTIFACTS / "sync")
+    status, running = notes["sync"]
+    assert not running and "must not carry a user name or password" in status
+    assert "must not carry a user name or password" in notes["settings"]
+    for shown in (status, notes["settings"]):
+        assert "s3cret" not in shown and "ann" not in shown
+    # nothing holding the password was written anywhere in the data folder
+    for f in (tmp_path / "data").rglob("*"):
+        if f.is_file():
+            assert b"s3cret" not in f.read_bytes(), f

@@ -224,8 +224,8 @@ class StopScreen(BaseScreen):
         self.show_bottles()
 
     def now_arrived(self):
-        self.arrived_entry.text = fmt_when(ctl().now())
-        self.field("arrived", self.arrived_entry.text)
+        self.field("arrived_now", None)
+        self.arrived_entry.text = fmt_when(ctl().stop.arrived_at)
 
     def close_stop(self):
         msg = ctl().close_stop()
