@@ -3,7 +3,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from datetime import datetime
-from typing import Any, Iterable
+from typing import Any
+from collections.abc import Iterable
 
 __all__ = ["FIELD_LABELS", "TEMPLATES", "Problem", "label_for", "path_label", "render",
            "problems_from_validation", "one_line", "when_text"]
@@ -205,8 +206,8 @@ def render(code: str, **ctx: Any) -> str:
     if code.endswith(".out_of_range"):
         kind = ctx.get("kind") or code.rsplit(".", 1)[0]
         try:
-            below = float(ctx.get("value")) < float(ctx.get("low"))
-        except (TypeError, ValueError):
+            below = float(ctx["value"]) < float(ctx["low"])
+        except (KeyError, TypeError, ValueError):
             below = False
         # The hints name the usual mistake for a value that is too high (°F for °C, % for mg/L...).
         ctx.setdefault("hint", "." if below and kind in ("temp", "do_percent", "do_mg_l", "calibration_reading")
@@ -293,7 +294,7 @@ def when_text(when: datetime | str | None) -> str:
         try:
             when = datetime.fromisoformat(when)
         except ValueError:
-            return when
+            return str(when)
     text = when.strftime("%Y-%m-%d %H:%M")
     offset = when.utcoffset()
     if offset is None:

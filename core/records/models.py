@@ -5,19 +5,17 @@ import json
 import math
 import re
 import uuid
-from datetime import datetime
 from pathlib import Path
 from typing import Any, Literal
 
 from core.science._validate import ambiguous_comma
-from pydantic import (AwareDatetime, BaseModel, ConfigDict, Field, ValidationError,
-                      field_validator, model_serializer, model_validator)
+from pydantic import (AwareDatetime, BaseModel, ConfigDict, Field, field_validator, model_serializer, model_validator)
 from pydantic_core import PydanticCustomError
 
 __all__ = [
     "SCHEMA_VERSION", "BOTTLE_KINDS", "WATER_CLASSES", "LIMITS",
     "Quantity", "FlagRecord", "Derived", "Site", "Calibration", "LabResult", "Bottle", "Stop",
-    "AuditEntry", "ConflictSide", "Conflict", "ProgramSettings", "Signature", "CustodyRecord", "Trip",
+    "AuditEntry", "ConflictSide", "Conflict", "ProgramSettings", "Signature", "CustodyRecord", "LabBatch", "Trip",
     "SIGNATURE_LIMITS",
     "InputError", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
 ]
@@ -146,7 +144,7 @@ class FlagRecord(_Record):
     field: str | None = None
 
     @classmethod
-    def from_flag(cls, flag: Any) -> "FlagRecord":
+    def from_flag(cls, flag: Any) -> FlagRecord:
         sev = getattr(flag.severity, "value", flag.severity)
         return cls(code=flag.code, severity=sev, message=flag.message, action=flag.action or "",
                    field=flag.field)
@@ -192,7 +190,7 @@ def _check_quantity(q: Quantity | None, kind: str, units: tuple[str, ...]) -> Qu
     key = kind
     if kind == "do":
         key = "do_percent" if q.unit == "%" else "do_mg_l"
-    low, high, unit = LIMITS[key]
+    low, high, _unit = LIMITS[key]
     if not (low <= q.value <= high):
         raise _range_error(key, kind, q.value, q.unit)
     return q
@@ -225,7 +223,7 @@ class Site(_Record):
 
     @field_validator("elevation_m")
     @classmethod
-    def _elev(cls, v: float) -> float:
+    def _elev(cls, v: float | None) -> float | None:
         return _check_range(v, "elevation")
 
     @field_validator("latitude")
@@ -271,22 +269,22 @@ class Calibration(_Record):
 
     @field_validator("temp")
     @classmethod
-    def _t(cls, v: Quantity) -> Quantity:
+    def _t(cls, v: Quantity | None) -> Quantity | None:
         return _check_quantity(v, "temp", ("°C",))
 
     @field_validator("pressure")
     @classmethod
-    def _p(cls, v: Quantity) -> Quantity:
+    def _p(cls, v: Quantity | None) -> Quantity | None:
         return _check_quantity(v, "pressure", ("hPa",))
 
     @field_validator("reading_mg_l")
     @classmethod
-    def _r(cls, v: float) -> float:
+    def _r(cls, v: float | None) -> float | None:
         return _check_range(v, "calibration_reading")
 
     @field_validator("tolerance_mg_l")
     @classmethod
-    def _tol(cls, v: float) -> float:
+    def _tol(cls, v: float | None) -> float | None:
         return _check_range(v, "tolerance")
 
 
@@ -506,6 +504,33 @@ class CustodyRecord(_Record):
         return self.relinquished_signature is not None and self.received_signature is not None
 
 
+class LabBatch(_Record):
+    """A bench batch: the QC recorded once and applied to every bottle in it.
+
+    BOD: dilution-water blank depletion, the glucose–glutamic acid check, seed controls
+    (``{initial_do_mg_l, final_do_mg_l, seed_ml}`` each), incubation times and temperature.
+    Winkler: the thiosulfate standardisation (``std_titrant_ml`` of titrant on ``std_ml`` of
+    ``std_normality`` bi-iodate, at ``standardised_at``). ``bottle_ids`` are the bottles it covers.
+    """
+
+    id: str = _id_field()
+    name: str = Field(min_length=1, max_length=40)
+    created_at: AwareDatetime
+    analyst: str = Field(default="", max_length=40)
+    bottle_ids: list[str] = Field(default_factory=list)
+    blank_depletion_mg_l: float | None = None
+    gga_bod_mg_l: float | None = None
+    seed_controls: list[dict[str, float]] = Field(default_factory=list)
+    incubation_start: AwareDatetime | None = None
+    incubation_end: AwareDatetime | None = None
+    incubator_temp_c: float | None = None
+    std_titrant_ml: float | None = Field(None, gt=0.0, le=100.0)
+    std_ml: float = Field(20.0, gt=0.0, le=100.0)
+    std_normality: float = Field(0.025, gt=0.0, le=1.0)
+    standardised_at: AwareDatetime | None = None
+    notes: str = Field(default="", max_length=2000)
+
+
 _TRIP_FIELDS: set[str] = set()
 
 
@@ -534,20 +559,21 @@ class Trip(_Record):
     conflicts: list[Conflict] = Field(default_factory=list)
     #: Chain of custody of the trip's bottles, in the order entered (optional; absent when empty).
     custody: list[CustodyRecord] = Field(default_factory=list)
+    #: Bench batches whose QC applies to this trip's bottles (optional; absent when empty).
+    lab_batches: list[LabBatch] = Field(default_factory=list)
     #: The crew started the trip with no pre-trip calibration, saying so (optional; absent when False).
     started_without_calibration: bool = False
 
     @model_serializer(mode="wrap")
-    def _omit_empty_custody(self, handler: Any) -> Any:
-        # A trip without hand-offs (or with the usual calibration) is written exactly as before
-        # these fields existed, so older documents keep their bytes and hashes and nobody's save
-        # records a change they never made.
+    def _omit_empty_optional_lists(self, handler: Any) -> Any:
+        # A trip without hand-offs or batches (and with the usual calibration) is written exactly
+        # as before those fields existed, so older documents keep their bytes and hashes and no
+        # save records a change nobody made.
         data = handler(self)
         if isinstance(data, dict):
-            if not data.get("custody"):
-                data.pop("custody", None)
-            if not data.get("started_without_calibration"):
-                data.pop("started_without_calibration", None)
+            for key in ("custody", "lab_batches", "started_without_calibration"):
+                if not data.get(key):
+                    data.pop(key, None)
         return data
 
     @property
@@ -556,7 +582,7 @@ class Trip(_Record):
         return self.__pydantic_extra__ if self.__pydantic_extra__ is not None else {}
 
     @model_validator(mode="after")
-    def _ended_after_start(self) -> "Trip":
+    def _ended_after_start(self) -> Trip:
         if self.ended_at is not None and self.ended_at < self.started_at:
             raise PydanticCustomError("time.end_before_start", "ended before it started",
                                       {"field": "ended_at"})
@@ -584,7 +610,7 @@ class Trip(_Record):
         return self.model_dump(mode="json")
 
     @classmethod
-    def from_document(cls, doc: dict[str, Any]) -> "Trip":
+    def from_document(cls, doc: dict[str, Any]) -> Trip:
         """Validates a JSON document (current schema version) strictly, as JSON text would be."""
         from core.store.atomic import canonical_json_bytes
 

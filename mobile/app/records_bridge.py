@@ -202,7 +202,7 @@ def cal_document(cal: CalForm, kind: str, tolerance_mg_l: float,
     if not any(filled):
         return None, None
     if not all(filled):
-        empty = [label for (attr, label), ok in zip(CAL_FIELDS, filled) if not ok]
+        empty = [label for (attr, label), ok in zip(CAL_FIELDS, filled, strict=True) if not ok]
         return None, (f"{' and '.join(empty)} {'is' if len(empty) == 1 else 'are'} empty; fill in all three "
                       "calibration fields, or clear them all.")
     try:
@@ -281,7 +281,7 @@ def form_from_trip(trip: Any) -> TripForm:
         f = StopForm(id=s.id, site_id=s.site_id, arrived_at=s.arrived_at,
                      cond_is_sc25=s.conductivity_is_sc25, notes=s.notes, closed=s.closed_at is not None,
                      closed_at=s.closed_at)
-        for name, attr_text, attr_unit in (("temp", "temp_text", "temp_unit"),
+        for name, attr_text, _attr_unit in (("temp", "temp_text", "temp_unit"),
                                            ("pressure", "pressure_text", "pressure_unit"),
                                            ("conductivity", "cond_text", "cond_unit"),
                                            ("do", "do_text", "do_unit")):

@@ -162,7 +162,7 @@ def test_open_conflicts_reach_the_attention_list(ctl):
                          "sides": [{"device_id": "dev-a", "value": "riffle"}, {"device_id": "dev-b", "value": "pool"}]}]
     ctl.store.put_document(doc, "merged by sync")
     ctl.open_trip(ctl.trip.id)
-    lines = [l for l in ctl.attention_lines() if "CONFLICT" in l]
+    lines = [line for line in ctl.attention_lines() if "CONFLICT" in line]
     assert len(lines) == 1 and "stops[0].notes" in lines[0] and "dev-a" in lines[0]
 
 
@@ -361,7 +361,7 @@ def test_a_one_field_edit_changes_one_path(tmp_path, monkeypatch, restore_tz):
         assert saved.audit[-1].fields == [path], (what, saved.audit[-1].fields)
     saved = store.load_trip(trip_id).model_dump(mode="json")
     # untouched stops keep their text as typed and their times as stored (offset included)
-    for old, new in zip(original["stops"], saved["stops"]):
+    for old, new in zip(original["stops"], saved["stops"], strict=True):
         if old["id"] == stop.id:
             assert new["pressure"]["text"] == f"{pressure_before} mbar"
             assert new["arrived_at"].endswith(old["arrived_at"][-6:])     # its own offset

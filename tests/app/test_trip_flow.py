@@ -125,7 +125,7 @@ def test_start_refuses_a_bad_or_partial_calibration_and_records_none(tmp_path):
     assert trip.audit[0].change == "trip started without calibration"
     assert any("started without a pre-trip calibration" in line for line in notes["end_lines"])
     out = subprocess.run([sys.executable, "-m", "mobile.cli", "trip", "show", notes["trip_id"], "--data-dir",
-                          str(tmp_path / "data")], capture_output=True, text=True, cwd=ROOT, timeout=60,
+                          str(tmp_path / "data")], capture_output=True, text=True, cwd=ROOT, timeout=60, check=False,
                          env=child_env(tmp_path / "kivy-home"))
     assert out.returncode == 0, out.stderr
     assert "pre-trip calibration: none — the trip was started without calibration" in out.stdout
@@ -142,7 +142,7 @@ def test_a_reopened_ended_trip_shows_its_post_trip_check(tmp_path):
     notes = run_scenario("reopen_ended", tmp_path / "data", tmp_path, artifacts=ARTIFACTS / "calibration",
                          params={"trip_id": trip.id})
     assert notes["screen"] == "end"
-    temp, temp_unit, pressure, pressure_unit, reading, verdict = notes["post"]
+    temp, _temp_unit, pressure, pressure_unit, reading, verdict = notes["post"]
     pc = trip.post_check
     assert float(temp.replace(",", ".")) == pc.temp.entered_value
     assert float(pressure.replace(",", ".")) == pc.pressure.entered_value and pressure_unit == pc.pressure.entered_unit
