@@ -17,7 +17,7 @@ from pydantic_core import PydanticCustomError
 __all__ = [
     "SCHEMA_VERSION", "BOTTLE_KINDS", "WATER_CLASSES", "LIMITS",
     "Quantity", "FlagRecord", "Derived", "Site", "Calibration", "LabResult", "Bottle", "Stop",
-    "AuditEntry", "ConflictSide", "Conflict", "ProgramSettings", "Trip",
+    "AuditEntry", "ConflictSide", "Conflict", "ReviewEvent", "ProgramSettings", "Trip",
     "InputError", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
 ]
 
@@ -429,6 +429,24 @@ class ProgramSettings(_Record):
                         hypoxic_mg_l=self.hypoxic_mg_l)
 
 
+class ReviewEvent(_Record):
+    """One step of the office's review of a trip (who, when, what, why); appended, never edited.
+
+    ``action`` is one of ``core.rules.review.ACTIONS``; the trip's review state follows from its
+    events (``core.rules.review.review_state``). ``approved`` holds, on a correction of an approved
+    trip, the document as it was approved, so that version stays readable.
+    """
+
+    id: str = _id_field()
+    action: Literal["reviewed", "approved", "returned", "corrected", "resubmitted"]
+    at: AwareDatetime
+    by: str = Field(min_length=1, max_length=80)
+    comment: str = Field(default="", max_length=2000)
+    reasons: list[str] = Field(default_factory=list)
+    revision: int | None = None      # the trip revision the step was taken on
+    approved: dict[str, Any] | None = None
+
+
 _TRIP_FIELDS: set[str] = set()
 
 
@@ -455,6 +473,7 @@ class Trip(_Record):
     notes: str = Field(default="", max_length=4000)
     audit: list[AuditEntry] = Field(default_factory=list)
     conflicts: list[Conflict] = Field(default_factory=list)
+    review_events: list[ReviewEvent] = Field(default_factory=list)
 
     @property
     def extra(self) -> dict[str, Any]:

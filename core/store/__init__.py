@@ -1,6 +1,7 @@
 """The device store: one small file per trip, atomic writes, a checked summary index, the audit."""
 
 from core.store.device import (
+    ApprovedTrip,
     AtomicJSONStorage,
     CorruptFile,
     DeviceStore,
@@ -16,6 +17,6 @@ from core.store.device import (
 )
 
 __all__ = [
-    "AtomicJSONStorage", "CorruptFile", "DeviceStore", "InvalidRecord", "NewerSchemaError", "StaleTrip",
+    "ApprovedTrip", "AtomicJSONStorage", "CorruptFile", "DeviceStore", "InvalidRecord", "NewerSchemaError", "StaleTrip",
     "StoreError", "StoreLocked", "StoreWriteError", "TripNotFound", "TripSummary", "diff_paths",
 ]

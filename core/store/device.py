@@ -43,11 +43,12 @@ from tinydb.table import Document
 from core.store.atomic import atomic_write_bytes, canonical_json_bytes, content_hash
 from core.records.messages import Problem, one_line, problems_from_validation
 from core.records.models import SCHEMA_VERSION, AuditEntry, ProgramSettings, Site, Stop, Trip, new_id
+from core.rules.review import review_state
 from core.store.paths import resolve_data_dir
 
 __all__ = [
     "StoreError", "StoreLocked", "NewerSchemaError", "TripNotFound", "InvalidRecord", "StaleTrip",
-    "StoreWriteError",
+    "StoreWriteError", "ApprovedTrip",
     "CorruptFile", "TripSummary", "AtomicJSONStorage", "DeviceStore", "diff_paths",
 ]
 
@@ -86,6 +87,10 @@ class InvalidRecord(StoreError):
 
 class StoreWriteError(StoreError):
     """The disk refused a write (full, read-only, removed); the stored file is unchanged."""
+
+
+class ApprovedTrip(StoreError):
+    """An edit of an approved trip that is not a correction (core.rules.review.check_change)."""
 
 
 class StaleTrip(StoreError):
@@ -170,6 +175,8 @@ class TripSummary:
     schema_version: int = SCHEMA_VERSION
     open_conflicts: int = 0
     bottle_labels: list[str] = field(default_factory=list)
+    #: core.rules.review state; None in summaries written before it was recorded (read the trip).
+    review_state: str | None = None
 
     def to_dict(self) -> dict[str, Any]:
         return asdict(self)
@@ -191,7 +198,7 @@ def _summary_of(doc: dict[str, Any], digest: str | None = None) -> TripSummary:
         revision=int(doc.get("revision", 0)), status=status, stop_count=len(stops),
         updated_at=doc.get("updated_at"), content_hash=digest or content_hash(doc),
         schema_version=int(doc.get("schema_version", 0)), open_conflicts=len(conflicts),
-        bottle_labels=labels)
+        bottle_labels=labels, review_state=review_state(doc))
 
 
 _BOOKKEEPING = ("revision", "updated_at")
@@ -655,7 +662,7 @@ class DeviceStore:
         with self._locked():
             stored = self._stored_or_none(checked.id)
             base = max(checked.revision, int(stored.get("revision", 0)) if stored is not None else 0)
-            return self._commit(checked, stored, change, base)
+            return self._commit(checked, stored, change, base, review_guard=False)
 
     def save_stop(self, trip_id: str, stop: Stop, change: str | None = None) -> Trip:
         """Adds or replaces (by id) one stop of a stored trip, through the same save path.
@@ -729,9 +736,16 @@ class DeviceStore:
             probs = problems_from_validation(exc)
             raise InvalidRecord(one_line(probs), probs) from None
 
-    def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int) -> Trip:
-        """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held."""
+    def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int,
+                *, review_guard: bool = True) -> Trip:
+        """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held.
+
+        `review_guard` refuses an edit of an approved trip that is not a correction
+        (core.rules.review); documents from a hub (put_document) carry the office's own steps
+        and are merged, not refused.
+        """
         from core.rules.qc import derive
+        from core.rules.review import ReviewRefused, check_change
 
         sites = self.sites_by_id()
         settings = self.settings()
@@ -751,6 +765,11 @@ class DeviceStore:
             new_doc["audit"] = _merge_audit(stored.get("audit") or [], incoming_audit)
         if stored is not None and _content(stored) == _content(new_doc):
             return Trip.from_document(stored)
+        if review_guard:
+            try:
+                check_change(stored, new_doc)
+            except ReviewRefused as exc:
+                raise ApprovedTrip(str(exc)) from None
         now = self._clock().astimezone(timezone.utc)
         revision = base_revision + 1
         entry = AuditEntry(at=now, device_id=self.device_id, change=str(change)[:400] or "saved",

@@ -10,7 +10,7 @@ __all__ = ["main"]
 
 
 def build_parser() -> OneLineParser:
-    from mobile.cli import app_cmd, lab_cmds, science_cmds, sync_cmds, trip_cmds
+    from mobile.cli import app_cmd, lab_cmds, review_cmds, science_cmds, sync_cmds, trip_cmds
 
     parser = OneLineParser(
         prog="streamtab",
@@ -22,6 +22,7 @@ def build_parser() -> OneLineParser:
     sync_cmds.register(sub)
     app_cmd.register(sub)
     lab_cmds.register(sub)
+    review_cmds.register(sub)
     return parser
 
 
