@@ -21,8 +21,10 @@ from typing import Any, Callable, Iterable
 from core.store.atomic import atomic_write_bytes, canonical_json_bytes
 from sync import errors
 from sync.layout import canonical_trip_id, revision_name, trip_year
-from sync.merge import common_ancestor, describe_conflict, history, merge_trips, relation
+from sync.merge import describe_conflict
 from sync.outbox import Outbox, OutboxEntry, hubs
+from sync.reconcile import (BOOKKEEPING_KEYS, contained_names, fold, lacks_ancestor, newest_contained,
+                            next_head, same_content)
 from sync.plan import Action, LocalEntry, RemoteEntry, plan, plan_pull
 from sync.session import ENV_CA_FILE, Session, load_credentials
 from sync.targets import RemoteFile, Target, WebDavTarget, open_target
@@ -33,8 +35,6 @@ __all__ = ["push", "pull", "status", "run_in_background", "PushReport", "PullRep
 log = logging.getLogger("streamtab.sync")
 
 Progress = Callable[[int, int, str, str], None]
-#: Fields that change on every save and say nothing about the field work itself.
-BOOKKEEPING_KEYS = frozenset({"revision", "updated_at", "device_id", "audit", "content_hash"})
 #: After this many trips in a row fail with a retryable error, the rest are not tried this run.
 GIVE_UP_AFTER = 3
 
@@ -123,10 +123,6 @@ def _sha(data: bytes) -> str:
     return "sha256:" + hashlib.sha256(data).hexdigest()
 
 
-def _semantic(doc: dict) -> bytes:
-    return canonical_json_bytes({k: v for k, v in doc.items() if k not in BOOKKEEPING_KEYS})
-
-
 def _attr(obj: Any, name: str, default: Any = None) -> Any:
     if isinstance(obj, dict):
         return obj.get(name, default)
@@ -182,37 +178,12 @@ def _parse_hub_doc(f: RemoteFile, data: bytes) -> dict:
     return doc
 
 
-def _fold(local: dict | None, incoming: list[dict], candidates: list[dict]) -> tuple[dict | None, str, list[dict]]:
-    """Folds hub documents into the device copy; returns (doc, kind, new conflicts) where kind
-    is "unchanged", "pulled" (fast-forward or new) or "merged"."""
-    acc, kind, conflicts = local, "unchanged", []
-    for doc in sorted(incoming, key=lambda d: (d.get("revision", 0), canonical_json_bytes(d))):
-        if acc is None:
-            acc, kind = doc, "pulled"
-            continue
-        rel = relation(doc, acc)
-        if rel in ("same", "ancestor"):
-            continue
-        if rel == "descendant":
-            acc = doc
-            kind = "merged" if kind == "merged" else "pulled"
-            continue
-        base = common_ancestor(candidates + incoming, acc, doc)
-        result = merge_trips(base, acc, doc)
-        acc, kind = result.doc, "merged"
-        conflicts.extend(result.new_conflicts)
-    return acc, kind, conflicts
-
-
 def _extra_ancestors(tgt: Target, session: Session, year: str, tid: str, local: dict,
                      docs: list[dict], candidates: list[dict], seen_names: list[str]) -> list[dict]:
     """Hub files already seen, read back only when no known document is a common ancestor of
     the device copy and a diverged hub document (then the merge would be two-way)."""
-    def lacking() -> bool:
-        return any(relation(d, local) == "diverged" and common_ancestor(candidates + docs + extra, local, d) is None
-                   for d in docs)
     extra: list[dict] = []
-    if not lacking():
+    if not lacks_ancestor(local, docs, candidates):
         return extra
     for name in sorted(seen_names, reverse=True)[:8]:      # newest first, bounded
         f = RemoteFile(tid, year, name)
@@ -220,7 +191,7 @@ def _extra_ancestors(tgt: Target, session: Session, year: str, tid: str, local: 
             extra.append(_parse_hub_doc(f, tgt.read(f, session.max_document_bytes)))
         except (errors.BadHubDocument, errors.IntegrityError, errors.Rejected):
             continue
-        if not lacking():
+        if not lacks_ancestor(local, docs, candidates + extra):
             break
     return extra
 
@@ -370,9 +341,10 @@ def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
             candidates = [entry.base] if entry.base else []
             candidates += _extra_ancestors(tgt, session, year, tid, doc, docs, candidates,
                                            sorted(listing - set(act.unseen)))
-            merged, kind, new_conflicts = _fold(doc, docs, candidates)
+            folded = fold(doc, docs, candidates)
+            merged, new_conflicts = folded.doc, folded.conflicts
             seen.update(good)
-            if merged is not None and _semantic(merged) != _semantic(doc):
+            if merged is not None and not same_content(merged, doc):
                 change = "merged with other devices' versions from the hub"
                 if new_conflicts:
                     change += f" ({len(new_conflicts)} field(s) changed on both sides kept for review)"
@@ -481,19 +453,16 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
     accepted: list[str] = []
     pending = dict(docs)
     for _ in range(len(docs) + 1):          # bounded: each round settles at least one document
-        if acc is not None:                 # documents the device copy already contains
-            for name in [n for n, d in pending.items() if relation(d, acc) in ("same", "ancestor")]:
-                accepted.append(name)
-                del pending[name]
+        for name in contained_names(pending, acc):     # documents the device copy already contains
+            accepted.append(name)
+            del pending[name]
         if not pending:
             break
-        # the hub's heads: documents no other pending document contains
-        heads = [n for n, d in pending.items()
-                 if not any(m != n and relation(d, e) == "ancestor" for m, e in pending.items())]
-        name = min(heads, key=lambda n: (pending[n].get("revision", 0), n))
+        name = next_head(pending)
         doc = pending[name]
-        trial, k, c = _fold(acc, [doc], candidates + list(dict(docs).values()))
-        if trial is not None and (acc is None or _semantic(trial) != _semantic(acc)):
+        folded = fold(acc, [doc], candidates + list(dict(docs).values()))
+        trial, k, c = folded.doc, folded.kind, folded.conflicts
+        if trial is not None and (acc is None or not same_content(trial, acc)):
             try:
                 store.put_document(trial, "pulled from hub" if k == "pulled" else "merged with the hub's version")
             except errors.SyncError:
@@ -515,16 +484,16 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
         # same content as the device copy (bookkeeping aside): nothing to save
         accepted.append(name)
         del pending[name]
-        if acc is not None and _semantic(trial) == _semantic(acc):
-            for other in [n for n, d in pending.items() if relation(d, doc) in ("same", "ancestor")]:
+        if acc is not None and same_content(trial, acc):
+            for other in contained_names(pending, doc):
                 accepted.append(other)
                 del pending[other]
     entry.seen = sorted(set(entry.seen) | set(accepted))
     if acc is not None and accepted:
         # the ancestor for the next merge: the newest hub document the device copy contains
-        contained = [d for n, d in docs if n in accepted and relation(d, acc) in ("same", "ancestor")]
-        if contained:
-            entry.base = max(contained, key=lambda d: (len(history(d)), d.get("revision", 0)))
+        base = newest_contained([d for n, d in docs if n in accepted], acc)
+        if base is not None:
+            entry.base = base
     outbox.put(entry)
     rev = int(acc.get("revision", 0)) if acc else None
     if bad_lines:

@@ -1,7 +1,9 @@
 """Exchange: trip JSON in streamtab's documented layout, CSV exports, and site lists from CSV.
 
 The trip JSON layout is the JSON Schema in core/records/schema/trip.schema.json. CSV exports carry the
-unit in every numeric column's header (``water_temp_c``, ``station_pressure_hpa``...).
+unit in every numeric column's header (``water_temp_c``, ``station_pressure_hpa``...); every
+exported table goes through `csv_table` (cells a spreadsheet would run as a formula neutralised,
+NUL refused).
 Imports are all or nothing: a bad row or field stops the import before anything is stored.
 """
 from __future__ import annotations
@@ -9,6 +11,7 @@ from __future__ import annotations
 import csv
 import io
 import json
+import re
 from pathlib import Path
 from typing import Any
 
@@ -19,7 +22,7 @@ from core.records.models import InputError, Site, Trip, parse_number
 
 __all__ = ["ExchangeError", "SITE_COLUMNS", "STOP_COLUMNS", "BOTTLE_COLUMNS", "import_sites_csv",
            "read_sites_csv", "import_trip_file", "read_trip_file", "export_trip_json",
-           "export_trip_csv", "stop_rows", "bottle_rows"]
+           "export_trip_csv", "stop_rows", "bottle_rows", "csv_table", "spreadsheet_safe", "FORMULA_LEADS"]
 
 
 class ExchangeError(ValueError):
@@ -223,16 +226,44 @@ def bottle_rows(trip: Trip) -> list[dict[str, str]]:
     return rows
 
 
-def _csv_text(columns: tuple[str, ...], rows: list[dict[str, str]]) -> str:
+#: A cell starting with one of these is run as a formula by common spreadsheets (CSV injection).
+FORMULA_LEADS = ("=", "+", "-", "@", "\t", "\r")
+_PLAIN_NUMBER = re.compile(r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?")
+
+
+def spreadsheet_safe(value: Any, *, where: str = "the export") -> str:
+    """The text of one exported table cell, safe to open in a spreadsheet.
+
+    A cell starting with ``=``, ``+``, ``-``, ``@``, a tab or a carriage return is written with a
+    leading apostrophe (the usual neutralisation: spreadsheets show it as text, never run it), except
+    a plain number such as ``-0.35`` or ``+1e-3``, which no spreadsheet runs. A NUL character is
+    refused (`ExchangeError`, one line naming `where`): spreadsheets and many readers cut the cell
+    or the file there. Every table export (trip CSV, season tables) writes its cells through here.
+    """
+    text = "" if value is None else str(value)
+    if "\x00" in text:
+        raise ExchangeError(f"{where}: the value holds a NUL character, which exports never pass on; "
+                            f"edit that field and export again.")
+    if text.startswith(FORMULA_LEADS) and not _PLAIN_NUMBER.fullmatch(text):
+        return "'" + text
+    return text
+
+
+def csv_table(columns: tuple[str, ...] | list[str], rows: list[dict[str, Any]], *,
+              name: str = "export.csv") -> str:
+    """CSV text (header row, then `rows` in `columns` order, "\\n" line ends) with every cell, the
+    header included, passed through `spreadsheet_safe`; `name` names the file in a refusal."""
     buf = io.StringIO(newline="")
-    writer = csv.DictWriter(buf, fieldnames=list(columns), lineterminator="\n")
-    writer.writeheader()
-    writer.writerows(rows)
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow([spreadsheet_safe(c, where=f"{name}, header") for c in columns])
+    for i, row in enumerate(rows, start=2):
+        writer.writerow([spreadsheet_safe(row.get(c), where=f"{name}, line {i}, column {c}")
+                         for c in columns])
     return buf.getvalue()
 
 
 def export_trip_csv(store: Any, trip_id: str) -> dict[str, str]:
     """CSV texts keyed by file name: ``stops.csv`` (one row per stop), ``bottles.csv`` (one per bottle)."""
     trip = store.load_trip(trip_id)
-    return {"stops.csv": _csv_text(STOP_COLUMNS, stop_rows(trip)),
-            "bottles.csv": _csv_text(BOTTLE_COLUMNS, bottle_rows(trip))}
+    return {"stops.csv": csv_table(STOP_COLUMNS, stop_rows(trip), name="stops.csv"),
+            "bottles.csv": csv_table(BOTTLE_COLUMNS, bottle_rows(trip), name="bottles.csv")}

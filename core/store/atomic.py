@@ -4,11 +4,13 @@ from __future__ import annotations
 import hashlib
 import json
 import os
-import tempfile
 from pathlib import Path
 from typing import Any
 
-__all__ = ["atomic_write_bytes", "canonical_json_bytes", "content_hash", "fsync_dir"]
+__all__ = ["atomic_write_bytes", "canonical_json_bytes", "content_hash", "fsync_dir", "EXPORT_MODE"]
+
+#: Permission bits (before the umask) of files written for people: exports, like any new file.
+EXPORT_MODE = 0o666
 
 
 def fsync_dir(path: Path) -> None:
@@ -20,16 +22,32 @@ def fsync_dir(path: Path) -> None:
         os.close(fd)
 
 
-def atomic_write_bytes(path: Path | str, data: bytes, *, durable: bool = True) -> None:
+def _create_temp(folder: Path, name: str, mode: int) -> tuple[int, str]:
+    """A new temporary file beside `name`, created with `mode` (the process umask applies)."""
+    flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_CLOEXEC", 0) | getattr(os, "O_BINARY", 0)
+    for _ in range(100):
+        tmp = str(folder / f".{name}.{os.urandom(6).hex()}.tmp")
+        try:
+            return os.open(tmp, flags, mode), tmp
+        except FileExistsError:
+            continue
+    raise FileExistsError(f"no free temporary name in {folder}")
+
+
+def atomic_write_bytes(path: Path | str, data: bytes, *, durable: bool = True,
+                       mode: int = 0o600) -> None:
     """Writes `data` to `path` so that a reader sees the old file or the new one, never a part.
 
     Temporary file in the same folder → write → fsync → os.replace → fsync the folder. When this
     returns, the new content is on disk. ``durable=False`` skips both fsyncs: only for caches
     that are checked and rebuilt from durable files (a power cut may then lose the new file).
+    `mode` is the new file's permission bits before the umask: owner-only (0o600) for the
+    device's own files; files written for people to share (exports) pass ``EXPORT_MODE`` so they
+    get the permissions the person's umask gives any new file.
     """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    fd, tmp = _create_temp(path.parent, path.name, mode)
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)

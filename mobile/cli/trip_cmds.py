@@ -209,9 +209,9 @@ def _trip_show(args) -> int:  # noqa: ANN001
 
 
 def _trip_export(args) -> int:  # noqa: ANN001
-    from core.store.atomic import atomic_write_bytes
-    from core.records.exchange import export_trip_csv, export_trip_json
+    from core.records.exchange import ExchangeError, export_trip_csv, export_trip_json
     from core.store import StoreError
+    from core.store.atomic import EXPORT_MODE, atomic_write_bytes
 
     store = _store(args)
     trip_id = resolve_trip_id(store, args.id)
@@ -219,7 +219,7 @@ def _trip_export(args) -> int:  # noqa: ANN001
         if args.format == "json":
             data = export_trip_json(store, trip_id)
             if args.out:
-                atomic_write_bytes(Path(args.out), data)
+                atomic_write_bytes(Path(args.out), data, mode=EXPORT_MODE)
             else:
                 sys.stdout.write(data.decode("utf-8"))
         else:
@@ -229,11 +229,11 @@ def _trip_export(args) -> int:  # noqa: ANN001
                 if out.exists() and not out.is_dir():
                     fail(f"--out {out}: for csv give a folder (stops.csv and bottles.csv are written there).")
                 for name, text in files.items():
-                    atomic_write_bytes(out / name, text.encode("utf-8"))
+                    atomic_write_bytes(out / name, text.encode("utf-8"), mode=EXPORT_MODE)
             else:
                 for name, text in files.items():
                     sys.stdout.write(f"# {name}\n{text}")
-    except StoreError as exc:
+    except (StoreError, ExchangeError) as exc:
         fail(str(exc))
     except OSError as exc:
         fail(f"--out {args.out}: cannot write ({exc.strerror}).")
