@@ -10,7 +10,8 @@ address                                target
 =====================================  =========================================================
 
 All targets share one small interface: ``list_trip``, ``list_all``, ``read``, ``write_revision``
-and ``close``. See `sync.layout` for the names at the hub.
+and ``close``; folders and WebDAV also keep the change log (``log_folders``, ``log_list``,
+``log_read``, ``log_write``; see `sync.changelog`). See `sync.layout` for the names at the hub.
 """
 from __future__ import annotations
 
@@ -19,13 +20,14 @@ import hashlib
 import os
 import xml.etree.ElementTree as ET
 from dataclasses import dataclass
+from email.utils import parsedate_to_datetime
 from pathlib import Path
 from typing import Protocol
 from urllib.parse import quote, unquote, urlsplit
 
 from core.store.atomic import atomic_write_bytes, fsync_dir
 from sync import errors
-from sync.layout import (INCOMING, TRIPS, canonical_trip_id, device_key, incoming_name,
+from sync.layout import (INCOMING, LOG, TRIPS, canonical_trip_id, device_key, incoming_name,
                          name_matches, parse_revision_name, trip_dir)
 from sync.session import Session, redact_url
 
@@ -175,6 +177,62 @@ class FolderTarget:
                 pass
         return WriteResult(created=created)
 
+    # change log (sync.changelog): a local folder is listed whole every time (cheap), so no stamps
+    def log_folders(self) -> dict[str, float | None] | None:
+        root = self.root / LOG
+        try:
+            return {e.name: None for e in os.scandir(root) if e.is_dir()}
+        except FileNotFoundError:
+            return None
+        except OSError as exc:
+            raise errors.Unreachable(f"hub folder {self.url} cannot be read ({exc.strerror})") from None
+
+    def log_list(self, device: str) -> tuple[list[str], float | None]:
+        try:
+            return sorted(os.listdir(self.root / LOG / device)), None
+        except FileNotFoundError:
+            return [], None
+        except OSError as exc:
+            raise errors.Unreachable(f"hub folder {self.url} cannot be read ({exc.strerror})") from None
+
+    def log_read(self, device: str, name: str, max_bytes: int) -> bytes:
+        try:
+            with open(self.root / LOG / device / name, "rb") as fh:
+                data = fh.read(max_bytes + 1)
+        except OSError as exc:
+            raise errors.Rejected(f"log entry {device}/{name} cannot be read ({exc.strerror})") from None
+        if len(data) > max_bytes:
+            raise _too_big(f"{LOG}/{device}/{name}", max_bytes)
+        return data
+
+    def log_write(self, device: str, name: str, data: bytes, device_id: str) -> bool:
+        folder = self.root / LOG / device
+        tmp = self.root / INCOMING / device_key(device_id) / f"{name}.{os.urandom(6).hex()}.part"
+        try:
+            atomic_write_bytes(tmp, data)
+            folder.mkdir(parents=True, exist_ok=True)
+            try:
+                os.link(tmp, folder / name)
+                created = True
+            except FileExistsError:
+                if (folder / name).read_bytes() != data:
+                    os.replace(tmp, folder / name)   # content-addressed: only these bytes belong there
+                created = False
+            except OSError as exc:
+                if exc.errno not in (errno.EPERM, errno.ENOTSUP, errno.EOPNOTSUPP, errno.EXDEV, errno.EMLINK):
+                    raise
+                os.replace(tmp, folder / name)
+                created = True
+            fsync_dir(folder)
+        except OSError as exc:
+            raise errors.Unreachable(f"hub folder {self.url} cannot be written ({exc.strerror})") from None
+        finally:
+            try:
+                os.unlink(tmp)
+            except FileNotFoundError:
+                pass
+        return created
+
     @staticmethod
     def _settle_existing(final: Path, tmp: Path, data: bytes) -> bool:
         existing = final.read_bytes()
@@ -192,7 +250,7 @@ class FolderTarget:
 # --- WebDAV ------------------------------------------------------------------------------------
 _PROPFIND_BODY = (b'<?xml version="1.0" encoding="utf-8"?>'
                   b'<D:propfind xmlns:D="DAV:"><D:prop><D:resourcetype/><D:getcontentlength/>'
-                  b'<D:getetag/></D:prop></D:propfind>')
+                  b'<D:getetag/><D:getlastmodified/></D:prop></D:propfind>')
 
 
 class WebDavTarget:
@@ -256,6 +314,13 @@ class WebDavTarget:
 
     # listing
     def _propfind(self, rel: str, depth: str) -> list[tuple[str, bool, int | None]] | None:
+        got = self._propfind_timed(rel, depth)
+        return None if got is None else [(p, c, n) for p, c, n, _ in got[0]]
+
+    def _propfind_timed(self, rel: str, depth: str
+                        ) -> tuple[list[tuple[str, bool, int | None, float | None]], float | None] | None:
+        """(entries as (relpath, is_collection, size, modified), the answer's Date), both as
+        epoch seconds of the server's clock; None for 404."""
         def step():
             return self.session.request("PROPFIND", self._u(rel), body=_PROPFIND_BODY,
                                         headers={"Depth": depth,
@@ -269,6 +334,7 @@ class WebDavTarget:
                 raise errors.Rejected(f"the hub answered PROPFIND {rel} with {resp.status_code}",
                                       resp.status_code)
             raw = _read_capped(resp, MAX_LISTING_BYTES, f"listing of {rel}")
+            answered = _http_time(resp.headers.get("Date"))
         finally:
             resp.close()
         try:
@@ -285,8 +351,8 @@ class WebDavTarget:
             is_col = r.find(".//{DAV:}resourcetype/{DAV:}collection") is not None
             size_text = r.findtext(".//{DAV:}getcontentlength")
             size = int(size_text) if size_text and size_text.strip().isdigit() else None
-            out.append((relpath, is_col, size))
-        return out
+            out.append((relpath, is_col, size, _http_time(r.findtext(".//{DAV:}getlastmodified"))))
+        return out, answered
 
     def list_trip(self, year: str, trip_id: str) -> frozenset[str] | None:
         rel = trip_dir(year, trip_id)
@@ -331,6 +397,61 @@ class WebDavTarget:
                         nxt.append(relpath if relpath.endswith("/") else relpath + "/")
             level = nxt
         return found
+
+    # change log (sync.changelog)
+    def log_folders(self) -> dict[str, float | None] | None:
+        got = self._propfind_timed(LOG + "/", "1")
+        if got is None:
+            return None
+        out = {}
+        for relpath, is_col, _, modified in got[0]:
+            parts = relpath.strip("/").split("/")
+            if is_col and len(parts) == 2 and parts[0] == LOG:
+                out[parts[1]] = modified
+        return out
+
+    def log_list(self, device: str) -> tuple[list[str], float | None]:
+        got = self._propfind_timed(f"{LOG}/{device}/", "1")
+        if got is None:
+            return [], None
+        names = [p.rstrip("/").rsplit("/", 1)[-1] for p, col, _, _ in got[0] if not col]
+        return sorted(names), got[1]
+
+    def log_read(self, device: str, name: str, max_bytes: int) -> bytes:
+        data = self._get_bytes(f"{LOG}/{device}/{name}", max_bytes)
+        if data is None:
+            raise errors.Rejected(f"log entry {device}/{name} disappeared", 404)
+        return data
+
+    def log_write(self, device: str, name: str, data: bytes, device_id: str) -> bool:
+        """One PUT with ``If-None-Match: *`` straight to the entry's name (no upload + MOVE: a cut
+        upload leaves at worst a damaged entry, which readers detect by its hash and answer with
+        one walk, and which the next try here replaces)."""
+        rel = f"{LOG}/{device}/{name}"
+
+        def step() -> bool:
+            for _ in range(3):
+                resp = self.session.request("PUT", self._u(rel), body=data,
+                                            headers={"Content-Type": "application/json", "If-None-Match": "*"})
+                resp.close()
+                if resp.status_code in (200, 201, 204):
+                    return True
+                if resp.status_code == 409:           # log/ or log/<device>/ missing
+                    self._made.discard(f"{LOG}/{device}/")
+                    self._mkcol(f"{LOG}/{device}/")
+                    continue
+                if resp.status_code == 412:
+                    existing = self._get_bytes(rel, len(data) + 1)
+                    if existing == data:
+                        return False
+                    resp = self.session.request("PUT", self._u(rel), body=data,
+                                                headers={"Content-Type": "application/json"})
+                    resp.close()
+                    if resp.status_code in (200, 201, 204):
+                        return True
+                raise errors.Rejected(f"the hub refused log entry {rel} ({resp.status_code})", resp.status_code)
+            raise errors.Rejected(f"the hub refused to create the collection for {rel}")
+        return self.session.retrying(step)
 
     # reading
     def read(self, f: RemoteFile, max_bytes: int) -> bytes:
@@ -426,6 +547,16 @@ class WebDavTarget:
 
     def close(self) -> None:
         pass
+
+
+def _http_time(text: str | None) -> float | None:
+    """An HTTP date (RFC 9110) as epoch seconds, or None."""
+    if not text:
+        return None
+    try:
+        return parsedate_to_datetime(text.strip()).timestamp()
+    except (TypeError, ValueError, IndexError):
+        return None
 
 
 def _read_capped(resp, limit: int, where: str, bad: bool = False) -> bytes:  # noqa: ANN001
