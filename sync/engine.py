@@ -218,6 +218,42 @@ def _store_rejects(exc: Exception) -> bool:
     return isinstance(exc, (InvalidRecord, NewerSchemaError))
 
 
+def _same_bytes(a: dict | None, b: dict | None) -> bool:
+    if a is None or b is None:
+        return a is b
+    return canonical_json_bytes(a) == canonical_json_bytes(b)
+
+
+def _write(store: Any, tid: str, based_on: dict | None, new: dict, change: str, *,
+           verbatim: bool) -> tuple[dict, list[dict]]:
+    """Writes `new` — the device copy `based_on` with hub documents folded in — never blind.
+
+    Under the store's lock the stored copy is read again: a save made since `based_on` was read
+    (the app, a lab command, another sync) is folded in three-way with `based_on` as the common
+    ancestor, so it is never overwritten. `verbatim` says `new` is a hub document as read (a new
+    trip or a fast-forward): it is stored byte for byte through ``adopt_document``, keeping the
+    hub's revision, so a pull makes no revision of its own. Anything else (a merge) goes through
+    the save path, which derives it again and adds a revision with an audit entry.
+    Returns (the stored document, conflicts found while folding in a late save).
+    """
+    with store.locked():
+        current = store.trip_document(tid) if store.has_trip(tid) else None
+        doc, late = new, []
+        if not _same_bytes(current, based_on):
+            folded = fold(current, [new], [based_on] if based_on is not None else [])
+            doc, late = folded.doc, folded.conflicts
+            verbatim = verbatim and doc is new
+        if _same_bytes(doc, current):
+            return current, late
+        if verbatim:
+            rev = None if current is None else int(current.get("revision", 0))
+            if store.adopt_document(doc, expected_revision=rev) is not None:
+                return store.trip_document(tid), late
+        if current is None or not same_content(doc, current):
+            store.put_document(doc, change)
+        return store.trip_document(tid), late
+
+
 # --- push ----------------------------------------------------------------------------------------
 def push(store: Any, target: str, *, progress: Progress | None = None,
          session: Session | None = None) -> PushReport:
@@ -365,22 +401,29 @@ def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
             folded = fold(doc, docs, candidates)
             merged, new_conflicts = folded.doc, folded.conflicts
             seen.update(good)
-            if merged is not None and not same_content(merged, doc):
+            if merged is not None and (not same_content(merged, doc)
+                                       or (folded.kind == "pulled" and not _same_bytes(merged, doc))):
                 change = "merged with other devices' versions from the hub"
                 if new_conflicts:
                     change += f" ({len(new_conflicts)} field(s) changed on both sides kept for review)"
                 try:
-                    store.put_document(merged, change)
+                    doc, late = _write(store, tid, doc, merged, change, verbatim=folded.kind == "pulled")
                 except Exception as exc:
                     if isinstance(exc, errors.SyncError) or not _store_rejects(exc):
                         raise
                     first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
                     raise errors.BadHubDocument(
                         f"the store refused the merge of trip {tid} with the hub's versions: {first}") from None
-                doc = store.trip_document(tid)
+                new_conflicts = new_conflicts + late
                 data = canonical_json_bytes(doc)
                 h = _sha(data)
                 rev = int(doc.get("revision", 0))
+                if revision_name(rev, h) in listing:
+                    # the device copy is now a revision the hub holds: nothing to send
+                    name = revision_name(rev, h)
+                    seen.add(name)
+                    _record(outbox, entry, rev, h, name, entry.etag, seen, doc)
+                    return TripResult(tid, "unchanged", "brought up to date from the hub", revision=rev)
     name = revision_name(rev, h)
     wr = tgt.write_revision(year, tid, name, data, session.device_id or "", rev, h)
     seen.add(name)
@@ -522,9 +565,12 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
         doc = pending[name]
         folded = fold(acc, [doc], candidates + list(dict(docs).values()))
         trial, k, c = folded.doc, folded.kind, folded.conflicts
-        if trial is not None and (acc is None or not same_content(trial, acc)):
+        if trial is not None and (acc is None or not same_content(trial, acc)
+                                  or (k == "pulled" and not _same_bytes(trial, acc))):
             try:
-                store.put_document(trial, "pulled from hub" if k == "pulled" else "merged with the hub's version")
+                acc, late = _write(store, tid, acc, trial,
+                                   "pulled from hub" if k == "pulled" else "merged with the hub's version",
+                                   verbatim=k == "pulled")
             except errors.SyncError:
                 raise
             except Exception as exc:  # the store's validation refused it
@@ -536,9 +582,8 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
                 entry.bad.append(name)
                 del pending[name]
                 continue
-            acc = store.trip_document(tid)
-            kind = "merged" if (k == "merged" or kind == "merged") else "pulled"
-            conflicts.extend(c)
+            kind = "merged" if (k == "merged" or kind == "merged" or late) else "pulled"
+            conflicts.extend(c + late)
         elif acc is None:
             acc = trial
         # same content as the device copy (bookkeeping aside): nothing to save
@@ -554,6 +599,13 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
         base = newest_contained([d for n, d in docs if n in accepted], acc)
         if base is not None:
             entry.base = base
+        name = revision_name(int(acc.get("revision", 0)), _sha(canonical_json_bytes(acc)))
+        if name in files and name not in entry.bad:
+            # the device copy is byte for byte a hub file (checked against its name when read):
+            # record it as held by the hub, so the next push sends nothing and asks nothing
+            entry.pushed_revision, entry.pushed_hash = int(acc.get("revision", 0)), _sha(canonical_json_bytes(acc))
+            entry.hub_name = name
+            entry.seen = sorted(set(entry.seen) | {name})
     outbox.put(entry)
     rev = int(acc.get("revision", 0)) if acc else None
     if bad_lines:

@@ -58,6 +58,14 @@ FIELD_LABELS: dict[str, str] = {
     "schema_version": "Schema version",
     "revision": "Revision",
     "notes": "Notes",
+    "receipt_temp": "Temperature on receipt",
+    "relinquished_by": "Relinquished by",
+    "received_by": "Received by",
+    "condition": "Condition on receipt",
+    "bottle_ids": "Bottles handed over",
+    "strokes": "Signature",
+    "signed_at": "Signing time",
+    "aspect": "Signature pad shape",
     "weather": "Weather",
     "flow": "Flow",
     "value": "Value",
@@ -111,6 +119,8 @@ TEMPLATES: dict[str, str] = {
     "object.invalid": "{label} must be a group of fields (a JSON object).",
     "list.invalid": "{label} must be a list.",
     "field.invalid": "{label}: “{input}” was not accepted.",
+    "signature.too_long": "{label} has too many strokes or points; clear the pad and sign again.",
+    "signature.point": "{label} has a point outside the pad; clear the pad and sign again.",
 }
 
 # pydantic's error type → our code (never its text)

@@ -11,13 +11,14 @@ from typing import Any, Literal
 
 from core.science._validate import ambiguous_comma
 from pydantic import (AwareDatetime, BaseModel, ConfigDict, Field, ValidationError,
-                      field_validator, model_validator)
+                      field_validator, model_serializer, model_validator)
 from pydantic_core import PydanticCustomError
 
 __all__ = [
     "SCHEMA_VERSION", "BOTTLE_KINDS", "WATER_CLASSES", "LIMITS",
     "Quantity", "FlagRecord", "Derived", "Site", "Calibration", "LabResult", "Bottle", "Stop",
-    "AuditEntry", "ConflictSide", "Conflict", "ReviewEvent", "ProgramSettings", "Trip",
+    "AuditEntry", "ConflictSide", "Conflict", "ReviewEvent", "ProgramSettings", "Signature", "CustodyRecord",
+    "Trip", "SIGNATURE_LIMITS",
     "InputError", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
 ]
 
@@ -447,6 +448,82 @@ class ReviewEvent(_Record):
     approved: dict[str, Any] | None = None
 
 
+#: Bounds of a drawn signature, so a stuck finger cannot grow a trip without end (common practice):
+#: strokes per signature, points per stroke, points in all.
+SIGNATURE_LIMITS = {"strokes": 200, "points_per_stroke": 2000, "points": 10000}
+
+
+class Signature(_Record):
+    """A signature drawn with a finger, kept as vector strokes so it syncs and prints sharply.
+
+    ``strokes`` is a list of strokes, each a list of ``[x, y]`` points as fractions of the pad
+    (0 to 1; x to the right, y downwards); ``aspect`` is the pad's width over its height, so the
+    drawing is printed with its own proportions. ``name`` is the person who signed, as typed.
+    """
+
+    id: str = _id_field()
+    name: str = Field(min_length=1, max_length=120)
+    signed_at: AwareDatetime
+    aspect: float = Field(3.0, gt=0.2, le=20.0)
+    strokes: list[list[list[float]]] = Field(default_factory=list)
+
+    @field_validator("strokes")
+    @classmethod
+    def _strokes(cls, v: list[list[list[float]]]) -> list[list[list[float]]]:
+        lim = SIGNATURE_LIMITS
+        if len(v) > lim["strokes"] or sum(len(s) for s in v) > lim["points"]:
+            raise PydanticCustomError("signature.too_long", "more than {strokes} strokes or {points} points",
+                                      {"strokes": lim["strokes"], "points": lim["points"]})
+        for stroke in v:
+            if len(stroke) > lim["points_per_stroke"]:
+                raise PydanticCustomError("signature.too_long", "a stroke of more than {n} points",
+                                          {"n": lim["points_per_stroke"]})
+            for point in stroke:
+                if len(point) != 2 or not all(0.0 <= c <= 1.0 for c in point):
+                    raise PydanticCustomError("signature.point", "a point outside the pad: {point}",
+                                              {"point": point})
+        return v
+
+
+class CustodyRecord(_Record):
+    """One hand-off of bottles: who let go of them, who took them, when, and in what state.
+
+    ``bottle_ids`` are the ids of the bottles handed over (labels can repeat; ids cannot).
+    ``at_lab`` marks the receipt at the laboratory (the sample receipt): ``temp`` (temperature on
+    receipt, as typed) and ``condition`` ("intact, on ice") belong there, though any hand-off may
+    carry them. A hand-off entered without a tablet has no signatures: it is unsigned.
+    """
+
+    id: str = _id_field()
+    bottle_ids: list[str] = Field(default_factory=list)
+    relinquished_by: str = Field(min_length=1, max_length=120)
+    received_by: str = Field(min_length=1, max_length=120)
+    at: AwareDatetime
+    at_lab: bool = False
+    temp: Quantity | None = None
+    condition: str = Field(default="", max_length=400)
+    notes: str = Field(default="", max_length=2000)
+    relinquished_signature: Signature | None = None
+    received_signature: Signature | None = None
+
+    @field_validator("relinquished_by", "received_by")
+    @classmethod
+    def _name(cls, v: str) -> str:
+        if not v.strip():
+            raise PydanticCustomError("text.blank", "blank")
+        return v.strip()
+
+    @field_validator("temp")
+    @classmethod
+    def _t(cls, v: Quantity | None) -> Quantity | None:
+        return _check_quantity(v, "temp", ("°C",))
+
+    @property
+    def signed(self) -> bool:
+        """Both people signed on the tablet."""
+        return self.relinquished_signature is not None and self.received_signature is not None
+
+
 _TRIP_FIELDS: set[str] = set()
 
 
@@ -473,7 +550,22 @@ class Trip(_Record):
     notes: str = Field(default="", max_length=4000)
     audit: list[AuditEntry] = Field(default_factory=list)
     conflicts: list[Conflict] = Field(default_factory=list)
+    #: Chain of custody of the trip's bottles, in the order entered (optional; absent when empty).
+    custody: list[CustodyRecord] = Field(default_factory=list)
+    #: The office's review steps (core.rules.review; optional; absent when empty).
     review_events: list[ReviewEvent] = Field(default_factory=list)
+
+    @model_serializer(mode="wrap")
+    def _omit_empty_optional_lists(self, handler: Any) -> Any:
+        # A trip without hand-offs or review steps is written exactly as before those fields
+        # existed, so older documents keep their bytes and hashes and nobody's save records a
+        # change they never made.
+        data = handler(self)
+        if isinstance(data, dict):
+            for key in ("custody", "review_events"):
+                if not data.get(key):
+                    data.pop(key, None)
+        return data
 
     @property
     def extra(self) -> dict[str, Any]:

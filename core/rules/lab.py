@@ -37,7 +37,7 @@ __all__ = [
     "WINKLER_ANALYTE", "BOD_ANALYTE", "WINKLER_METHOD", "BOD_METHOD", "CAUTION", "LabSettings",
     "LabInputError", "Standardisation", "LabOutcome", "DuplicateCheck", "PendingBottle",
     "analyte_key", "current_result", "find_bottle", "record_winkler", "record_bod", "duplicate_checks",
-    "pending_bottles", "relative_percent_difference", "WINKLER_KINDS", "BOD_KINDS",
+    "pending_bottles", "relative_percent_difference", "WINKLER_KINDS", "BOD_KINDS", "bottle_analysis",
 ]
 
 #: Analyte names written by this module; the sample scenario already writes these. Readers match
@@ -732,6 +732,23 @@ def _dup_analyte(b: Bottle) -> str:
     return analyte_key(WINKLER_ANALYTE) if b.fixed_at is not None else analyte_key(BOD_ANALYTE)
 
 
+def bottle_analysis(b: Bottle) -> tuple[str, str] | None:
+    """The analysis a bottle waits for, as ``(analyte, holding-time kind)``; None for a blank.
+
+    do-fixed → Winkler DO ("do_winkler"); bod → BOD5 ("bod"); a duplicate follows its results'
+    analyte, else its fixing (fixed: Winkler).
+    """
+    if b.kind == "do-fixed":
+        return WINKLER_ANALYTE, "do_winkler"
+    if b.kind == "bod":
+        return BOD_ANALYTE, "bod"
+    if b.kind == "duplicate":
+        if _dup_analyte(b) == analyte_key(WINKLER_ANALYTE):
+            return WINKLER_ANALYTE, "do_winkler"
+        return BOD_ANALYTE, "bod"
+    return None
+
+
 def duplicate_checks(trip: Trip, settings: LabSettings | None = None) -> list[DuplicateCheck]:
     """Each field duplicate of `trip` against its primary bottle at the same stop.
 
@@ -839,15 +856,10 @@ def pending_bottles(trips: Iterable[Trip], now: datetime, settings: LabSettings 
     for trip in trips:
         for stop in trip.stops:
             for b in stop.bottles:
-                if b.kind == "do-fixed":
-                    analyte, kind = WINKLER_ANALYTE, "do_winkler"
-                elif b.kind == "bod":
-                    analyte, kind = BOD_ANALYTE, "bod"
-                elif b.kind == "duplicate":
-                    analyte = WINKLER_ANALYTE if _dup_analyte(b) == analyte_key(WINKLER_ANALYTE) else BOD_ANALYTE
-                    kind = "do_winkler" if analyte == WINKLER_ANALYTE else "bod"
-                else:
+                pair = bottle_analysis(b)
+                if pair is None:
                     continue
+                analyte, kind = pair
                 if current_result(b, analyte) is not None or b.collected_at > now:
                     continue
                 fixed = b.fixed_at if (kind == "do_winkler" and b.fixed_at is not None

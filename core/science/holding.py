@@ -30,6 +30,10 @@ class HoldingRule:
         Where the value comes from (the regulation, or "program SOP" for an override).
     clock_from : {"collection", "fixing"}
         Which time the clock runs from (Winkler samples: from fixing when it is recorded).
+    cool_max_c : float or None
+        Highest temperature the sample may have on receipt, °C (None: no cooling asked for).
+    no_freeze : bool
+        The sample must not freeze (0 °C or below on receipt is flagged).
     """
 
     kind: str
@@ -38,6 +42,8 @@ class HoldingRule:
     preservation: str
     citation: str
     clock_from: str = "collection"
+    cool_max_c: float | None = None
+    no_freeze: bool = False
 
 
 #: The regulation's table. A program's SOP may set other (usually stricter) limits through the
@@ -46,9 +52,10 @@ HOLDING_TIMES: dict[str, HoldingRule] = {
     "do_probe": HoldingRule("do_probe", "dissolved oxygen, probe", 0.25, "none; analyze on site", _CFR),
     "do_winkler": HoldingRule("do_winkler", "dissolved oxygen, Winkler", 8.0,
                               "fix on site and store in the dark", _CFR, clock_from="fixing"),
-    "bod": HoldingRule("bod", "biochemical oxygen demand", 48.0, "cool to ≤ 6 °C, do not freeze", _CFR),
+    "bod": HoldingRule("bod", "biochemical oxygen demand", 48.0, "cool to ≤ 6 °C, do not freeze", _CFR,
+                       cool_max_c=6.0, no_freeze=True),
     "specific_conductance": HoldingRule("specific_conductance", "specific conductance", 28 * 24.0,
-                                        "cool to ≤ 6 °C", _CFR),
+                                        "cool to ≤ 6 °C", _CFR, cool_max_c=6.0),
     "temperature": HoldingRule("temperature", "temperature", 0.25, "none; measure on site", _CFR),
 }
 

@@ -664,6 +664,57 @@ class DeviceStore:
             base = max(checked.revision, int(stored.get("revision", 0)) if stored is not None else 0)
             return self._commit(checked, stored, change, base, review_guard=False)
 
+    def adopt_document(self, doc: dict[str, Any], *, expected_revision: int | None) -> Trip | None:
+        """Stores another device's saved version of a trip byte for byte (a sync fast-forward).
+
+        The document keeps its revision, audit and derived values: it was saved through the
+        save path on the device that made it, and storing it unchanged is what lets two devices
+        hold the same bytes as the hub (no new revision for a pull). It must contain every save
+        of the stored copy (each stored audit id is in its audit), so nothing saved here is
+        dropped; `expected_revision` is the stored revision the caller based it on (None: the
+        device holds no copy). Returns None, writing nothing, when the document needs the full
+        save path instead (an older schema to migrate, or it lacks saves of the stored copy);
+        raises StaleTrip when the stored revision is not `expected_revision`, InvalidRecord
+        (nothing written), NewerSchemaError, StoreLocked.
+        """
+        from core.records.migrations import migrate
+
+        if not isinstance(doc, dict):
+            raise InvalidRecord("A trip document must be a JSON object.")
+        if migrate(doc) is not doc:
+            return None
+        checked = self._validate_doc(doc)
+        doc_bytes = canonical_json_bytes(doc)
+        with self._locked():
+            stored = self._read_trip_doc_raw(checked.id)
+            found = None if stored is None else int(stored.get("revision", 0))
+            if found != expected_revision:
+                raise StaleTrip(
+                    f"Trip {checked.id} was changed elsewhere (stored revision {found},"
+                    f" expected {expected_revision}); read it again and merge.")
+            if stored is not None:
+                ids = {e.get("id") for e in doc.get("audit") or [] if isinstance(e, dict)}
+                if not all(isinstance(e, dict) and e.get("id") in ids for e in stored.get("audit") or []):
+                    return None
+                if canonical_json_bytes(stored) == doc_bytes:
+                    return checked
+            self._write_trip_bytes(json.loads(doc_bytes), doc_bytes)
+        return checked
+
+    def _write_trip_bytes(self, new_doc: dict[str, Any], doc_bytes: bytes) -> None:
+        """Writes one trip document (its canonical bytes) and its summary. Lock held."""
+        path = self._trip_path(new_doc["id"])
+        # The TinyDB layout {"trip": {"1": doc}}, byte for byte what AtomicJSONStorage.write gives.
+        file_bytes = b'{"trip":{"1":' + doc_bytes[:-1] + b"}}\n"
+        try:
+            atomic_write_bytes(path, file_bytes)
+        except OSError as exc:
+            raise StoreWriteError(f"Could not write {path.name} ({exc.strerror or exc}); the stored trip"
+                                  " is unchanged — free space or check the storage, then save again.") from None
+        self._cache[new_doc["id"]] = (file_bytes, doc_bytes, new_doc)
+        self._write_summary(new_doc, "sha256:" + hashlib.sha256(doc_bytes).hexdigest(),
+                            self._file_key(new_doc["id"]))
+
     def save_stop(self, trip_id: str, stop: Stop, change: str | None = None) -> Trip:
         """Adds or replaces (by id) one stop of a stored trip, through the same save path.
 
@@ -781,17 +832,7 @@ class DeviceStore:
         new_doc["revision"] = revision
         new_doc["updated_at"] = entry_doc["at"]
         doc_bytes = canonical_json_bytes(new_doc)
-        path = self._trip_path(new_doc["id"])
-        # The TinyDB layout {"trip": {"1": doc}}, byte for byte what AtomicJSONStorage.write gives.
-        file_bytes = b'{"trip":{"1":' + doc_bytes[:-1] + b"}}\n"
-        try:
-            atomic_write_bytes(path, file_bytes)
-        except OSError as exc:
-            raise StoreWriteError(f"Could not write {path.name} ({exc.strerror or exc}); the stored trip"
-                                  " is unchanged — free space or check the storage, then save again.") from None
-        self._cache[new_doc["id"]] = (file_bytes, doc_bytes, new_doc)
-        self._write_summary(new_doc, "sha256:" + hashlib.sha256(doc_bytes).hexdigest(),
-                            self._file_key(new_doc["id"]))
+        self._write_trip_bytes(new_doc, doc_bytes)
         if not same_audit:
             return Trip.model_validate_json(doc_bytes)
         # `derived` was validated from JSON in this call and shares nothing with the caller.

@@ -8,10 +8,6 @@ from pathlib import Path
 from typing import Any, Callable
 
 HERE = Path(__file__).resolve().parent
-SCREEN_NAMES = ("trips", "start", "stop", "bottles", "end", "sync", "settings")
-SCREEN_CLASSES = {"trips": "TripsScreen", "start": "StartScreen", "stop": "StopScreen",
-                  "bottles": "BottlesScreen", "end": "EndScreen", "sync": "SyncScreen",
-                  "settings": "SettingsScreen"}
 FONT_NAME = "StreamSans"
 _T0 = time.perf_counter()
 
@@ -51,12 +47,12 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
     from kivy.core.window import Window
     from kivy.lang import Builder
 
-    from mobile.app import screens  # noqa: F401 - registers the Screen classes with the Factory
-    from mobile.app import widgets  # noqa: F401
+    from mobile.app import screens, widgets  # noqa: F401 - widgets registers its classes with the Factory
     from mobile.app.controller import AppController
     from mobile.app.theme import PALETTE, SIZES, rgba
 
     _register_fonts()
+    screens.register()
 
     class StreamtabApp(App):
         title = "streamtab"
@@ -81,7 +77,7 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
 
         def load_kv(self, filename=None):
             Builder.load_file(str(HERE / "theme.kv"))
-            for name in SCREEN_NAMES:
+            for name in screens.KV_MODULES:
                 Builder.load_file(str(HERE / "screens" / f"{name}.kv"))
             return super().load_kv(filename)   # the root: streamtab.kv beside this file
 
@@ -109,7 +105,7 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
             from kivy.factory import Factory
 
             if not self.root.has_screen(name):
-                self.root.add_widget(getattr(Factory, SCREEN_CLASSES[name])(name=name))
+                self.root.add_widget(getattr(Factory, screens.SCREENS[name])(name=name))
             return self.root.get_screen(name)
 
         def go(self, name: str) -> None:

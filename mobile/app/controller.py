@@ -1,230 +1,84 @@
-"""The touch app's logic: forms in, core's values and the store out (no kivy; unit-tests without a window).
+"""The touch app's controller: forms in, core's values and the store out (no kivy; unit-tests without a window).
 
 Screens call these methods and show what comes back. Science comes from core (core.science.assess and
 friends), records and their QC from core.store / core.rules.qc, bottle clocks from core.science.holding. Store
-writes go through a single background worker so a slow flash card never freezes a field.
+writes go through a single background worker (mobile.app.save_worker) so a slow flash card never
+freezes a field; sync runs in the background through `send`.
 """
 from __future__ import annotations
 
-import json
-import queue
-import threading
 import copy
-from dataclasses import dataclass, field
-from datetime import datetime, timedelta, timezone
-from pathlib import Path
+from datetime import datetime
 from typing import Any, Callable
 
-from core.science.winkler import SAFETY_NOTE
-from mobile.app.forms import (BOTTLE_KINDS, FIELD_LABELS, REQUIRED_STOP_FIELDS, BottleForm,
-                              CalForm, StopForm, TripForm)
+from mobile.app import device_files, records_bridge
+from mobile.app.device_files import AppPrefs
+from mobile.app.forms import (BOTTLE_KINDS, FIELD_LABELS, REQUIRED_STOP_FIELDS, BottleForm, CalForm,
+                              StopForm, TripForm)
 from mobile.app.numeric import parse_decimal
+from mobile.app.save_worker import SaveWorker
 from mobile.app.theme import severity_mark
+from mobile.app.views import (CalView, ClockLine, FlagLine, StopView, TripLine, error_line, flag_line,
+                              fmt_duration, fmt_value, fmt_when, local_now, parse_when)
 
-__all__ = ["AppController", "StopView", "FlagLine", "CalView", "ClockLine", "TripLine",
-           "SaveWorker", "AppPrefs", "WADING_CAUTION", "REAGENT_CAUTION"]
+__all__ = ["AppController"]
 
-WADING_CAUTION = ("Wading: enter the water only where your program's SOP allows — never alone, "
-                  "never in fast or rising water, wearing a PFD where required.")
-REAGENT_CAUTION = SAFETY_NOTE  # the one reagent caution (core.science.winkler)
-
-APP_STATE_FILE = "app-state.json"   # where the app was (trip, stop, screen) — UI cursor, not data
-APP_PREFS_FILE = "app-prefs.json"
 # Which holding-time rule (core.science.holding) a bottle kind follows. Duplicates and blanks of the DO
 # sampling are fixed like their parent Winkler bottles (common practice).
-HOLDING_RULE = {"do_fixed": "do_winkler", "duplicate": "do_winkler", "blank": "do_winkler", "bod": "bod"}   # this device's default units and hub address
+HOLDING_RULE = {"do_fixed": "do_winkler", "duplicate": "do_winkler", "blank": "do_winkler", "bod": "bod"}
+
+# The program limits the settings screen edits: the ProgramSettings field, its words and unit on screen.
+# Their accepted ranges are the record's own (core.records.models.ProgramSettings), read by setting_range.
+SETTING_FIELDS = {"calibration_tolerance_mg_l": ("Calibration tolerance", "mg/L"),
+                  "warm_min_mg_l": ("Warm-water minimum", "mg/L"),
+                  "cold_min_mg_l": ("Cold-water minimum", "mg/L"),
+                  "supersaturation_percent": ("Supersaturation limit", "%")}
 
 
-def _local_now() -> datetime:
-    return datetime.now(timezone.utc).astimezone()
+def setting_range(name: str) -> tuple[float | None, bool, float | None, bool]:
+    """(low, low included, high, high included) of a ProgramSettings field, from the record's own bounds."""
+    from core.records.models import ProgramSettings
+
+    lo = hi = None
+    lo_in = hi_in = True
+    for m in ProgramSettings.model_fields[name].metadata:
+        if getattr(m, "ge", None) is not None:
+            lo, lo_in = float(m.ge), True
+        if getattr(m, "gt", None) is not None:
+            lo, lo_in = float(m.gt), False
+        if getattr(m, "le", None) is not None:
+            hi, hi_in = float(m.le), True
+        if getattr(m, "lt", None) is not None:
+            hi, hi_in = float(m.lt), False
+    return lo, lo_in, hi, hi_in
 
 
-@dataclass
-class FlagLine:
-    """A flag as the screen shows it: symbol and word for the severity, message, action."""
+def setting_problem(name: str, text: str) -> tuple[float | None, str | None]:
+    """(value, None) for a program limit typed on the settings screen, or (None, one sentence why not)."""
+    from mobile.app.numeric import DecimalError
 
-    code: str
-    severity: str
-    symbol: str
-    word: str
-    message: str
-    action: str
-
-    @property
-    def text(self) -> str:
-        tail = f" — {self.action}" if self.action else ""
-        return f"{self.symbol} {self.word}: {self.message}{tail}"
-
-
-def flag_line(flag: Any) -> FlagLine:
-    sev = getattr(flag.severity, "value", flag.severity)
-    symbol, word = severity_mark(sev)
-    return FlagLine(flag.code, str(sev), symbol, word, flag.message, flag.action or "")
-
-
-def _error_line(message: str, field_name: str = "") -> FlagLine:
-    symbol, word = severity_mark("stop-and-check")
-    return FlagLine(f"input.{field_name or 'value'}", "stop-and-check", symbol, "CHECK ENTRY",
-                    message, "")
-
-
-@dataclass
-class StopView:
-    """Everything the stop screen shows beside the form, already as text."""
-
-    sat_text: str = "—"
-    percent_text: str = "—"
-    do_text: str = "—"
-    salinity_text: str = "—"
-    flags: list[FlagLine] = field(default_factory=list)
-    errors: dict[str, str] = field(default_factory=dict)
-    assessment: Any = None
-
-
-@dataclass
-class CalView:
-    target_text: str = "—"
-    verdict: str = ""          # "PASS" | "FAIL" | ""
-    detail: str = ""
-    result: Any = None
-
-
-@dataclass
-class ClockLine:
-    stop_id: str
-    label: str
-    kind: str
-    where: str
-    remaining_s: float
-    expired: bool
-    text: str
-    symbol: str
-    word: str
-
-
-@dataclass
-class TripLine:
-    id: str
-    title: str
-    status: str        # words: "open", "ended", "synced", "needs attention"
-    detail: str
-
-
-@dataclass
-class AppPrefs:
-    """Per-device defaults the settings screen edits (kept in the store's program settings when it can)."""
-
-    temp_unit: str = "C"
-    pressure_unit: str = "hPa"
-    cond_unit: str = "uS/cm"
-    do_unit: str = "mg/L"
-    tolerance_mg_l: float = 0.2
-    warm_min_mg_l: float = 5.0
-    cold_min_mg_l: float = 6.5
-    supersaturation_percent: float = 120.0
-    sync_target: str = ""
-    method: str = "benson-krause"
-
-
-class SaveWorker:
-    """One background thread that runs store writes in order; a newer job for a trip replaces a waiting one."""
-
-    def __init__(self, on_error: Callable[[BaseException], None] | None = None) -> None:
-        self._q: "queue.Queue[tuple[str, Callable[[], Any]] | None]" = queue.Queue()
-        self._pending: dict[str, Callable[[], Any]] = {}
-        self._lock = threading.Lock()
-        self._idle = threading.Event()
-        self._idle.set()
-        self._on_error = on_error
-        self._thread = threading.Thread(target=self._run, name="streamtab-save", daemon=True)
-        self._thread.start()
-        self.saves_done = 0
-
-    def submit(self, key: str, job: Callable[[], Any]) -> None:
-        with self._lock:
-            fresh = key not in self._pending
-            self._pending[key] = job
-            self._idle.clear()
-        if fresh:
-            self._q.put((key, None))  # type: ignore[arg-type]
-
-    def _run(self) -> None:
-        while True:
-            item = self._q.get()
-            if item is None:
-                return
-            key, _ = item
-            with self._lock:
-                job = self._pending.pop(key, None)
-            if job is not None:
-                try:
-                    job()
-                    self.saves_done += 1
-                except BaseException as exc:  # reported to the screen; the worker keeps going
-                    if self._on_error:
-                        self._on_error(exc)
-            with self._lock:
-                if not self._pending:
-                    self._idle.set()
-
-    def flush(self, timeout: float = 10.0) -> bool:
-        """Waits until every submitted write has finished (on pause, on stop, in tests)."""
-        return self._idle.wait(timeout)
-
-    def close(self, timeout: float = 10.0) -> None:
-        self.flush(timeout)
-        self._q.put(None)
-        self._thread.join(timeout)
-
-
-def _fmt(value: float | None, digits: int, unit: str = "") -> str:
-    if value is None:
-        return "—"
-    return f"{value:.{digits}f}" + (f" {unit}" if unit else "")
-
-
-def parse_when(text: str, base: datetime | None) -> datetime:
-    """Reads "HH:MM" (same day as `base`) or "YYYY-MM-DD HH:MM" as a local, timezone-aware time."""
-    s = (text or "").strip()
-    tz = (base or _local_now()).tzinfo or _local_now().tzinfo
-    for fmt in ("%Y-%m-%d %H:%M", "%Y-%m-%dT%H:%M", "%Y-%m-%d %H:%M:%S"):
-        try:
-            return datetime.strptime(s, fmt).replace(tzinfo=tz)
-        except ValueError:
-            pass
+    label, unit = SETTING_FIELDS[name]
+    lo, lo_in, hi, hi_in = setting_range(name)
+    span = (f"from {lo:g} to {hi:g} {unit}" if lo_in and hi_in else
+            f"{'from' if lo_in else 'more than'} {lo:g} and {'up to' if hi_in else 'below'} {hi:g} {unit}")
     try:
-        t = datetime.strptime(s, "%H:%M")
-    except ValueError:
-        raise ValueError(f"Time “{s}” is not readable; type HH:MM (24 h) or YYYY-MM-DD HH:MM.") from None
-    day = (base or _local_now()).astimezone(tz)
-    return day.replace(hour=t.hour, minute=t.minute, second=0, microsecond=0)
-
-
-def fmt_when(when: datetime | None) -> str:
-    if when is None:
-        return ""
-    return when.astimezone().strftime("%Y-%m-%d %H:%M")
-
-
-def fmt_duration(seconds: float) -> str:
-    s = int(abs(seconds))
-    d, rem = divmod(s, 86400)
-    h, rem = divmod(rem, 3600)
-    m = rem // 60
-    if d:
-        return f"{d} d {h} h"
-    if h:
-        return f"{h} h {m:02d} min"
-    return f"{m} min"
+        value = parse_decimal(text, label=label)
+    except DecimalError as exc:
+        return None, str(exc)
+    if value is None:
+        return None, f"{label} is empty; type a value {span}."
+    ok = ((lo is None or (value >= lo if lo_in else value > lo))
+          and (hi is None or (value <= hi if hi_in else value < hi)))
+    if not ok:
+        return None, f"{label} {value:g} {unit} is outside the accepted range; type a value {span}."
+    return value, None
 
 
 class AppController:
     """The app's state and logic. `store` is a core.store.DeviceStore (or anything with its methods)."""
 
-    def __init__(self, store: Any, *, now: Callable[[], datetime] = _local_now,
+    def __init__(self, store: Any, *, now: Callable[[], datetime] = local_now,
                  worker: SaveWorker | None = None) -> None:
-        from mobile.app import records_bridge
-
         self.store = store
         self.bridge = records_bridge
         self.now = now
@@ -279,19 +133,13 @@ class AppController:
         self._sites = None
         return saved.id
 
-    def _prefs_path(self) -> Path:
-        return Path(self.store.data_dir) / APP_PREFS_FILE
-
     def settings(self) -> Any:
         """The program settings (core.records.models.ProgramSettings) from the store."""
         return self.store.settings()
 
     def load_prefs(self) -> None:
         """Units and hub from this device's app-prefs.json; method, criteria, tolerance from the program settings."""
-        from mobile.app.records_bridge import load_json
-
-        d = load_json(self._prefs_path())
-        prefs = AppPrefs(**{k: v for k, v in d.items() if k in AppPrefs.__dataclass_fields__})
+        prefs = device_files.read_local_prefs(self.store.data_dir)
         try:
             st = self.store.settings()
             prefs.method = st.method
@@ -304,19 +152,36 @@ class AppController:
         self.prefs = prefs
 
     def save_prefs(self, prefs: AppPrefs) -> None:
-        from dataclasses import asdict
-
-        from core.store.atomic import atomic_write_bytes
-
         st = self.store.settings().model_copy(update={
             "warm_min_mg_l": prefs.warm_min_mg_l, "cold_min_mg_l": prefs.cold_min_mg_l,
             "supersaturation_percent": prefs.supersaturation_percent,
             "calibration_tolerance_mg_l": prefs.tolerance_mg_l, "method": prefs.method})
         self.store.save_settings(st)
-        local = {k: v for k, v in asdict(prefs).items()
-                 if k in ("temp_unit", "pressure_unit", "cond_unit", "do_unit", "sync_target")}
-        atomic_write_bytes(self._prefs_path(), json.dumps(local, indent=1).encode())
+        device_files.write_local_prefs(self.store.data_dir, prefs)
         self.prefs = prefs
+
+    def save_settings_form(self, units: dict[str, str], limits: dict[str, str], sync_target: str) -> str | None:
+        """Saves the settings screen (units, the program limits as typed, the hub); returns a refusal or None.
+
+        `limits` maps each SETTING_FIELDS name to its text. Nothing is saved when one limit is refused.
+        """
+        values: dict[str, float] = {}
+        for name in SETTING_FIELDS:
+            value, problem = setting_problem(name, limits.get(name, ""))
+            if problem:
+                return problem
+            values[name] = value
+        prefs = AppPrefs(temp_unit=units["temp_unit"], pressure_unit=units["pressure_unit"],
+                         cond_unit=units["cond_unit"], do_unit=units["do_unit"],
+                         tolerance_mg_l=values["calibration_tolerance_mg_l"],
+                         warm_min_mg_l=values["warm_min_mg_l"], cold_min_mg_l=values["cold_min_mg_l"],
+                         supersaturation_percent=values["supersaturation_percent"],
+                         sync_target=sync_target.strip(), method=self.prefs.method)
+        try:
+            self.save_prefs(prefs)
+        except Exception as exc:  # noqa: BLE001 - store refusals are one sentence
+            return f"Settings not saved: {exc}"
+        return None
 
     def sync_states(self) -> dict[str, str]:
         """trip id -> "synced" / "changed" / "never pushed" from the sync outbox (empty without sync)."""
@@ -326,6 +191,33 @@ class AppController:
             return {s.trip_id: s.state for s in sync.status(self.store)}
         except Exception:  # noqa: BLE001 - the list still shows without sync state
             return {}
+
+    def send(self, target: str, *, progress: Callable[..., None],
+             on_done: Callable[[Any, BaseException | None], None]) -> str | None:
+        """Sends every trip to the hub `target` in the background; returns a refusal, or None once started.
+
+        The hub becomes this tablet's default. What was typed is saved first: the push waits for
+        the save worker off the UI thread. `progress` and `on_done` are called from the sync thread.
+        """
+        import sync
+
+        if not target:
+            return "Hub is empty; type a folder path or an https:// WebDAV address."
+        if target != self.prefs.sync_target:
+            from dataclasses import replace
+
+            try:
+                self.save_prefs(replace(self.prefs, sync_target=target))
+            except Exception:  # noqa: BLE001 - the hub is still used for this send
+                pass
+        self.save_now()
+
+        def push_after_saves(store: Any, address: str, **kwargs: Any) -> Any:
+            self.worker.flush(10)   # what was typed goes out too
+            return sync.push(store, address, **kwargs)
+
+        sync.run_in_background(push_after_saves, self.store, target, progress=progress, on_done=on_done)
+        return None
 
     def trip_lines(self) -> list[TripLine]:
         lines = []
@@ -352,24 +244,12 @@ class AppController:
         return open_[0].id if open_ else None
 
     # ------------------------------------------------------------------ where the app was
-    def _state_path(self) -> Path:
-        return Path(self.store.data_dir) / APP_STATE_FILE
-
     def remember(self, screen: str) -> None:
-        from core.store.atomic import atomic_write_bytes
-
-        doc = {"trip_id": self.trip.id if self.trip else None, "stop_id": self.stop_id, "screen": screen}
-        try:
-            atomic_write_bytes(self._state_path(), json.dumps(doc).encode())
-        except OSError:
-            pass
+        device_files.write_state(self.store.data_dir, self.trip.id if self.trip else None, self.stop_id, screen)
 
     def resume_point(self) -> tuple[str, str | None]:
         """Opens the trip and stop the app was on (or the open trip) and returns (screen, stop_id)."""
-        try:
-            doc = json.loads(self._state_path().read_text())
-        except (OSError, ValueError):
-            doc = {}
+        doc = device_files.read_state(self.store.data_dir)
         trip_id = doc.get("trip_id") or self.open_trip_id()
         if not trip_id:
             return "trips", None
@@ -474,7 +354,7 @@ class AppController:
                 view = self.stop_view()
                 msg = f"Arrival time “{value}” is not readable; type HH:MM (24 h) or YYYY-MM-DD HH:MM."
                 view.errors["arrived"] = msg
-                view.flags.insert(0, _error_line(msg, "arrived"))
+                view.flags.insert(0, error_line(msg, "arrived"))
                 return view
         elif name == "site":
             stop.site_id = value
@@ -519,7 +399,7 @@ class AppController:
             return view
         record, errors = self.stop_record(stop)
         view.errors = errors
-        lines: list[FlagLine] = [_error_line(m, k) for k, m in errors.items()]
+        lines: list[FlagLine] = [error_line(m, k) for k, m in errors.items()]
         if record is None:
             if not stop.site_id:
                 sym, word = severity_mark("note")
@@ -531,21 +411,18 @@ class AppController:
         d = record.derived
         if d is not None:
             view.assessment = d
-            view.sat_text = _fmt(d.do_sat_mg_l, 2, "mg/L")
-            view.percent_text = _fmt(d.percent_saturation, 1, "%")
-            view.do_text = _fmt(d.do_mg_l, 2, "mg/L")
+            view.sat_text = fmt_value(d.do_sat_mg_l, 2, "mg/L")
+            view.percent_text = fmt_value(d.percent_saturation, 1, "%")
+            view.do_text = fmt_value(d.do_mg_l, 2, "mg/L")
             source = {"given": "as given", "conductivity": "from conductivity",
                       "default": "fresh water"}.get(d.salinity_source, d.salinity_source)
             view.salinity_text = f"{d.salinity:.2f} ({source})"
         labels = Counter(b.label for s in self.trip.stops for b in s.bottles)
         prev = self._previous_record(stop)
-        try:
-            flags = stop_flags(record, self.settings(), self.now(), site=self.site(stop.site_id),
-                               previous=prev, labels_in_trip=labels,
-                               other_bottle_labels=self.labels_elsewhere(), trip_id=self.trip.id,
-                               sites_known=True)
-        except ImportError:  # a part of core this build lacks (e.g. holding times): show the rest
-            flags = [f.to_flag() for f in (d.flags if d is not None else [])]
+        flags = stop_flags(record, self.settings(), self.now(), site=self.site(stop.site_id),
+                           previous=prev, labels_in_trip=labels,
+                           other_bottle_labels=self.labels_elsewhere(), trip_id=self.trip.id,
+                           sites_known=True)
         flags = sorted(flags, key=lambda f: -f.severity.rank)
         lines.extend(flag_line(f) for f in flags)
         view.flags = lines
@@ -565,17 +442,10 @@ class AppController:
 
     # ------------------------------------------------------------------ closing a stop
     def close_problem(self, stop: StopForm) -> str | None:
-        missing = []
-        if not stop.site_id:
-            missing.append(FIELD_LABELS["site"])
-        if stop.arrived_at is None:
-            missing.append(FIELD_LABELS["arrived"])
-        if not stop.temp_text.strip():
-            missing.append(FIELD_LABELS["temp"])
-        if not stop.pressure_text.strip():
-            missing.append(FIELD_LABELS["pressure"])
-        if not stop.do_text.strip():
-            missing.append(FIELD_LABELS["do"])
+        filled = {"site": bool(stop.site_id), "arrived": stop.arrived_at is not None,
+                  "temp": bool(stop.temp_text.strip()), "pressure": bool(stop.pressure_text.strip()),
+                  "do": bool(stop.do_text.strip())}
+        missing = [FIELD_LABELS[name] for name in REQUIRED_STOP_FIELDS if not filled[name]]
         if missing:
             return (f"{', '.join(missing)} {'is' if len(missing) == 1 else 'are'} empty; "
                     "fill in every required field before closing the stop.")
@@ -654,10 +524,8 @@ class AppController:
 
     def clock_lines(self, now: datetime | None = None) -> list[ClockLine]:
         """Every bottle's holding-time clock in the open trip, most urgent first."""
-        try:
-            from core.science.holding import holding_clock
-        except ImportError:
-            return []
+        from core.science.holding import holding_clock
+
         now = now or self.now()
         out: list[ClockLine] = []
         if self.trip is None:
@@ -695,22 +563,18 @@ class AppController:
     # ------------------------------------------------------------------ calibration helper
     def cal_view(self, cal: CalForm, post: bool = False) -> CalView:
         from core.records.models import InputError, measure, parse_number
+        from core.science import calibration
 
         view = CalView()
         if not (cal.temp_text.strip() and cal.pressure_text.strip()):
             view.detail = "Type the calibration temperature and station pressure to see the 100 % target."
             return view
         try:
-            from core.science import calibration
-        except ImportError:
-            view.detail = "The calibration helper is not in this build yet."
-            return view
-        try:
             t = measure("temp", f"{cal.temp_text.strip()} {self.bridge.TEMP_UNIT_TEXT[cal.temp_unit]}",
                         field="temp").value
             p = measure("pressure", f"{cal.pressure_text.strip()} {cal.pressure_unit}", field="pressure").value
             target = float(calibration.calibration_target_mg_l(t, p, method=self.prefs.method))
-            view.target_text = _fmt(target, 2, "mg/L")
+            view.target_text = fmt_value(target, 2, "mg/L")
             if not cal.reading_text.strip():
                 view.detail = "Type the meter's reading in water-saturated air."
                 return view
@@ -777,11 +641,8 @@ class AppController:
         saved = self._saved.get(self.trip.id) if self.trip else None
         if saved is None:
             return []
-        try:
-            from sync.merge import describe_conflict
-        except ImportError:
-            def describe_conflict(c: dict) -> str:
-                return str(c.get("path"))
+        from sync.merge import describe_conflict
+
         sym, _ = severity_mark("warning")
         return [f"{sym} CONFLICT: {describe_conflict(c.model_dump(mode='json'))} — check it and correct the value if needed."
                 for c in saved.open_conflicts]

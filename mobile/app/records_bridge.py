@@ -7,15 +7,13 @@ restart shows what was typed.
 """
 from __future__ import annotations
 
-import importlib.util
-import json
 from datetime import datetime
 from typing import Any
 
 from mobile.app.forms import BottleForm, CalForm, StopForm, TripForm
 
-__all__ = ["site_title", "make_site", "site_info", "stop_document", "stop_record", "trip_from_form",
-           "form_from_trip", "KIND_TO_RECORD", "TEMP_UNIT_TEXT", "calibration_available"]
+__all__ = ["site_title", "make_site", "stop_document", "stop_record", "trip_from_form",
+           "form_from_trip", "KIND_TO_RECORD", "TEMP_UNIT_TEXT"]
 
 TEMP_UNIT_TEXT = {"C": "°C", "F": "°F"}
 KIND_TO_RECORD = {"do_fixed": "do-fixed", "bod": "bod", "duplicate": "duplicate", "blank": "blank"}
@@ -29,10 +27,6 @@ PRESERVATION = {
 DRAFT_KEY = "draft_text"
 
 
-def calibration_available() -> bool:
-    return importlib.util.find_spec("core.science.calibration") is not None
-
-
 def site_title(site: Any) -> str:
     return f"{site.id} {site.name}" if site is not None else ""
 
@@ -43,18 +37,8 @@ def make_site(code: str, name: str, elevation_m: float, water_class: str | None 
     return Site(id=code, name=name, elevation_m=float(elevation_m), water_class=water_class)
 
 
-def site_info(site: Any) -> dict[str, Any]:
-    if site is None:
-        return {}
-    return {"elevation_m": site.elevation_m, "water_class": site.water_class}
-
-
 def _iso(when: datetime | None) -> str | None:
     return when.isoformat() if when is not None else None
-
-
-def _when(text: str | None) -> datetime | None:
-    return datetime.fromisoformat(text).astimezone() if text else None
 
 
 def _quantities(form: StopForm) -> tuple[dict[str, Any], dict[str, str], dict[str, str]]:
@@ -158,10 +142,9 @@ def trip_from_form(form: TripForm, previous: Any, ctl: Any):
     doc.update(id=form.id, program=form.program.strip(), crew=crew, meter_id=form.meter_id.strip(),
                started_at=_iso(form.started_at), ended_at=_iso(form.ended_at), stops=stops)
     doc.setdefault("revision", 0)
-    if calibration_available():
-        tol = ctl.prefs.tolerance_mg_l if ctl is not None else 0.2
-        doc["pre_calibration"] = _cal_document(form.pre_cal, "pre-trip", tol) or doc.get("pre_calibration")
-        doc["post_check"] = _cal_document(form.post_check, "post-trip", tol) or doc.get("post_check")
+    tol = ctl.prefs.tolerance_mg_l if ctl is not None else 0.2
+    doc["pre_calibration"] = _cal_document(form.pre_cal, "pre-trip", tol) or doc.get("pre_calibration")
+    doc["post_check"] = _cal_document(form.post_check, "post-trip", tol) or doc.get("post_check")
     return Trip.from_document(doc)
 
 
@@ -224,10 +207,3 @@ def form_from_trip(trip: Any) -> TripForm:
                     started_at=trip.started_at.astimezone(),
                     ended_at=trip.ended_at.astimezone() if trip.ended_at else None,
                     pre_cal=cal(trip.pre_calibration), post_check=cal(trip.post_check), stops=stops)
-
-
-def load_json(path) -> dict[str, Any]:
-    try:
-        return json.loads(path.read_text())
-    except (OSError, ValueError):
-        return {}

@@ -4,6 +4,7 @@ from __future__ import annotations
 import argparse
 import json
 import sys
+from datetime import datetime
 from typing import Any, NoReturn
 
 EXIT_OK = 0
@@ -76,3 +77,18 @@ def resolve_trip_id(store, ident: str, label: str = "trip") -> str:  # noqa: ANN
              " characters (see 'streamtab trip list').")
     fail(f"{label} {ident!r} matches {len(matches)} trips ({', '.join(m[:12] for m in matches)});"
          " accepted: more characters of the id.")
+
+
+def parse_time(text: str | None, option: str) -> datetime | None:
+    """A date-time option as typed (ISO 8601 with a zone), None when not given, else a one-line error."""
+    if text is None:
+        return None
+    try:
+        t = datetime.fromisoformat(text.strip())
+    except ValueError:
+        raise CliError(f"{option} {text!r} is not a date-time; accepted: ISO 8601 with a time zone, e.g."
+                       " 2026-06-09T11:20-07:00") from None
+    if t.tzinfo is None or t.utcoffset() is None:
+        raise CliError(f"{option} {text!r} has no time zone; accepted: ISO 8601 with a time zone, e.g."
+                       " 2026-06-09T11:20-07:00 or 2026-06-09T18:20Z")
+    return t

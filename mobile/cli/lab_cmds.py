@@ -9,6 +9,7 @@ from pathlib import Path
 from typing import Any
 
 from mobile.cli._common import CliError, emit_json, emit_table, fail, open_store, resolve_trip_id
+from mobile.cli._common import parse_time as _time
 
 __all__ = ["register"]
 
@@ -49,20 +50,6 @@ def _number(text: str | None, option: str, accepted: str, units: tuple[str, ...]
         why = {"number.ambiguous_comma": "is ambiguous (decimal comma or thousands separator?)"}.get(
             exc.code, "is not a number")
         raise CliError(f"{option} {text!r} {why}; accepted: {accepted}") from None
-
-
-def _time(text: str | None, option: str) -> datetime | None:
-    if text is None:
-        return None
-    try:
-        t = datetime.fromisoformat(text.strip())
-    except ValueError:
-        raise CliError(f"{option} {text!r} is not a date-time; accepted: ISO 8601 with a time zone, e.g."
-                       " 2026-06-09T11:20-07:00") from None
-    if t.tzinfo is None or t.utcoffset() is None:
-        raise CliError(f"{option} {text!r} has no time zone; accepted: ISO 8601 with a time zone, e.g."
-                       " 2026-06-09T11:20-07:00 or 2026-06-09T18:20Z")
-    return t
 
 
 def _lab_error(exc: Exception) -> CliError:

@@ -116,13 +116,6 @@ def trip_rows(doc: dict, content_hash: str) -> dict[str, list[tuple]]:
                                        r.get("analysed_at"), r.get("analyst") or "", r.get("method") or "",
                                        r.get("notes") or "", _jsonb(inputs)))
                 out["flags"].extend(_flag_rows(tid, "result", str(r["id"]), inputs.get("flags")))
-            for seq, entry in enumerate(bottle.get("custody") or []):
-                if not isinstance(entry, dict):
-                    continue
-                out["custody"].append((tid, bid, seq, entry.get("at"), str(entry.get("action") or ""),
-                                       str(entry.get("by") or entry.get("from") or ""),
-                                       str(entry.get("to") or ""), str(entry.get("notes") or ""),
-                                       _jsonb(entry)))
     for key in ("pre_calibration", "post_check"):
         cal = doc.get(key)
         if not isinstance(cal, dict):
@@ -137,6 +130,16 @@ def trip_rows(doc: dict, content_hash: str) -> dict[str, list[tuple]]:
                                     cal.get("tolerance_mg_l"), cal.get("accepted"), cal.get("method"),
                                     cal.get("notes") or ""))
         out["flags"].extend(_flag_rows(tid, "calibration", cid, cal.get("flags")))
+    for seq, rec in enumerate(doc.get("custody") or []):       # hand-offs, each of several bottles
+        if not isinstance(rec, dict):
+            continue
+        for bid in rec.get("bottle_ids") or []:
+            out["custody"].append((tid, str(bid), seq, rec.get("at"),
+                                   "received at the lab" if rec.get("at_lab") else "handed over",
+                                   str(rec.get("relinquished_by") or ""), str(rec.get("received_by") or ""),
+                                   str(rec.get("condition") or rec.get("notes") or ""),
+                                   _jsonb({k: v for k, v in rec.items()
+                                           if k not in ("relinquished_signature", "received_signature")})))
     for ev in doc.get("review_events") or []:
         if isinstance(ev, dict) and ev.get("id"):
             out["review_events"].append((tid, str(ev["id"]), ev.get("action") or "", ev.get("at"),

@@ -25,7 +25,7 @@ def ctl(tmp_path):
     c.new_stop()
     c.set_stop_field("site", "LK-01")
     yield c
-    c.worker.close()
+    c.worker.flush()
 
 
 def test_view_matches_core_assess(ctl):
@@ -71,7 +71,7 @@ def test_duplicate_bottle_refused_in_trip_and_across_device(ctl, tmp_path):
     other.set_stop_field("site", "LK-02")
     msg = other.add_bottle("B-1", "do_fixed", True)
     assert msg and "another trip" in msg
-    other.worker.close()
+    other.worker.flush()
 
 
 def test_close_blocked_until_required_fields(ctl):
@@ -105,7 +105,7 @@ def test_refused_text_survives_a_restart(ctl):
     screen, stop_id = again.resume_point()
     assert screen == "stop" and stop_id == ctl.stop_id
     assert again.stop.temp_text == "68"
-    again.worker.close()
+    again.worker.flush()
 
 
 def test_holding_clocks_most_urgent_first(ctl):
@@ -167,7 +167,7 @@ def test_open_conflicts_reach_the_attention_list(ctl):
 
 
 def test_arrival_time_typed_as_hh_mm_or_full(ctl):
-    from mobile.app.controller import parse_when
+    from mobile.app.views import parse_when
 
     base = datetime(2026, 6, 9, 8, 0, tzinfo=timezone.utc)
     t = parse_when("14:05", base)
@@ -221,3 +221,23 @@ def test_a_failed_save_is_reported_and_written_next_time(ctl):
     assert ctl.flush(10)                    # what on_pause or the next trigger does
     assert ctl.save_errors == []
     assert flaky.load_trip(ctl.trip.id).stops[0].temp.text == "12,4 °C"
+
+
+def test_settings_limits_are_the_records_own(ctl):
+    """The settings screen accepts what ProgramSettings accepts and refuses the rest, naming the field."""
+    from core.records.models import ProgramSettings
+
+    units = {"temp_unit": "C", "pressure_unit": "hPa", "cond_unit": "uS/cm", "do_unit": "mg/L"}
+    ok = {"calibration_tolerance_mg_l": "0,5", "warm_min_mg_l": "5", "cold_min_mg_l": "6.5",
+          "supersaturation_percent": "130"}
+    hi = ProgramSettings.model_fields["calibration_tolerance_mg_l"].metadata[-1].le
+    assert ctl.save_settings_form(units, {**ok, "calibration_tolerance_mg_l": f"{hi:g}"}, "") is None
+    assert ctl.store.settings().calibration_tolerance_mg_l == hi
+    assert ctl.save_settings_form(units, ok, "") is None
+    assert ctl.store.settings().calibration_tolerance_mg_l == 0.5
+    for name, text, words in (("calibration_tolerance_mg_l", "0", "Calibration tolerance"),
+                              ("supersaturation_percent", "99", "Supersaturation limit"),
+                              ("warm_min_mg_l", "", "Warm-water minimum")):
+        msg = ctl.save_settings_form(units, {**ok, name: text}, "")
+        assert msg and msg.startswith(words), msg
+    assert ctl.store.settings().supersaturation_percent == 130   # a refusal saved nothing

@@ -37,7 +37,7 @@ def test_settings_reach_the_store_and_new_stops(tmp_path):
     seed_sites(tmp_path / "data")
     notes = run_scenario("settings_change", tmp_path / "data", tmp_path)
     assert notes["message"].startswith("✓")
-    assert "Calibration tolerance" in notes["refused"] and "between" in notes["refused"]
+    assert "Calibration tolerance" in notes["refused"] and "up to 5 mg/L" in notes["refused"]   # ProgramSettings bound
     st = DeviceStore.open(tmp_path / "data").settings()
     assert st.calibration_tolerance_mg_l == pytest.approx(0.3)
     prefs = json.loads((tmp_path / "data" / "app-prefs.json").read_text())

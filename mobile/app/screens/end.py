@@ -1,0 +1,47 @@
+"""The end screen: what needs attention, the post-trip check, ending the trip."""
+from __future__ import annotations
+
+from kivy.factory import Factory
+from kivy.properties import BooleanProperty, ObjectProperty
+
+from mobile.app.screens import calibration  # noqa: F401 - the CalPanel its kv rule uses
+from mobile.app.screens.base import BaseScreen, ctl
+
+__all__ = ["EndScreen"]
+
+
+class EndScreen(BaseScreen):
+    cal_panel = ObjectProperty(None)
+    rows_box = ObjectProperty(None)
+    ended = BooleanProperty(False)
+
+    def on_pre_enter(self, *_):
+        c = ctl()
+        if c.trip is None:
+            return
+        self.cal_panel.load(c.trip.post_check)
+        self.ended = bool(c.trip.ended_at)
+        self.message = ""
+        self.refresh()
+
+    def on_enter(self, *_):
+        ctl().remember("end")
+
+    def refresh(self, *_):
+        self.cal_panel.update()
+        self.rows_box.clear_widgets()
+        lines = ctl().attention_lines()
+        for line in lines:
+            self.rows_box.add_widget(Factory.WrapLabel(text=line))
+        if not lines:
+            self.rows_box.add_widget(Factory.WrapLabel(text="✓ Nothing needs attention."))
+
+    def end_trip(self):
+        self.cal_panel.update()
+        msg = ctl().end_trip()
+        if msg:
+            self.message = "■ Cannot end the trip: " + msg
+            return
+        self.ended = True
+        self.message = "✓ Trip ended and saved. Send it to the hub from the sync screen."
+        self.refresh()

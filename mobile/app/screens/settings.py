@@ -1,0 +1,43 @@
+"""The settings screen: this tablet's default units, the program's limits, the hub address."""
+from __future__ import annotations
+
+from kivy.properties import ObjectProperty, StringProperty
+
+from mobile.app.screens.base import BaseScreen, ctl
+
+__all__ = ["SettingsScreen"]
+
+
+class SettingsScreen(BaseScreen):
+    temp_unit = StringProperty("C")
+    pressure_unit = StringProperty("hPa")
+    cond_unit = StringProperty("uS/cm")
+    do_unit = StringProperty("mg/L")
+    tolerance_entry = ObjectProperty(None)
+    warm_entry = ObjectProperty(None)
+    cold_entry = ObjectProperty(None)
+    super_entry = ObjectProperty(None)
+    target_entry = ObjectProperty(None)
+
+    def choose(self, name, value):
+        """A default unit picked on the settings screen (kept until Save)."""
+        setattr(self, name, value)
+
+    def on_pre_enter(self, *_):
+        p = ctl().prefs
+        self.temp_unit, self.pressure_unit = p.temp_unit, p.pressure_unit
+        self.cond_unit, self.do_unit = p.cond_unit, p.do_unit
+        self.tolerance_entry.text = f"{p.tolerance_mg_l:g}"
+        self.warm_entry.text = f"{p.warm_min_mg_l:g}"
+        self.cold_entry.text = f"{p.cold_min_mg_l:g}"
+        self.super_entry.text = f"{p.supersaturation_percent:g}"
+        self.target_entry.text = p.sync_target
+        self.message = ""
+
+    def save(self):
+        units = {"temp_unit": self.temp_unit, "pressure_unit": self.pressure_unit,
+                 "cond_unit": self.cond_unit, "do_unit": self.do_unit}
+        limits = {"calibration_tolerance_mg_l": self.tolerance_entry.text, "warm_min_mg_l": self.warm_entry.text,
+                  "cold_min_mg_l": self.cold_entry.text, "supersaturation_percent": self.super_entry.text}
+        refusal = ctl().save_settings_form(units, limits, self.target_entry.text)
+        self.message = refusal or "✓ Settings saved."

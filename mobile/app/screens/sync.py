@@ -1,0 +1,68 @@
+"""The sync screen: the hub address, sending the trips, and what came of each."""
+from __future__ import annotations
+
+from kivy.clock import mainthread
+from kivy.factory import Factory
+from kivy.properties import BooleanProperty, NumericProperty, ObjectProperty, StringProperty
+
+from mobile.app.screens.base import BaseScreen, ctl
+
+__all__ = ["SyncScreen"]
+
+
+class SyncScreen(BaseScreen):
+    target_entry = ObjectProperty(None)
+    rows_box = ObjectProperty(None)
+    progress = NumericProperty(0)
+    progress_max = NumericProperty(1)
+    running = BooleanProperty(False)
+    status = StringProperty("")
+
+    def on_pre_enter(self, *_):
+        if not self.target_entry.text:
+            self.target_entry.text = ctl().prefs.sync_target
+        if not self.status:
+            self.status = "Trips stay on this tablet until they reach the hub. Logging goes on during sending."
+
+    def send(self):
+        if self.running:
+            return
+        target = self.target_entry.text.strip()
+        refusal = ctl().send(target, progress=self._progress, on_done=self._done)
+        if refusal:
+            self.status = refusal
+            return
+        self.running = True
+        self.progress = 0
+        self.rows_box.clear_widgets()
+        self.status = f"Sending to {target} …"
+
+    @mainthread
+    def _progress(self, done, total, trip_id, result):
+        self.progress_max = max(total, 1)
+        self.progress = done
+        self.status = f"Sending… {done} of {total} trips"
+        self.rows_box.add_widget(Factory.WrapLabel(text=f"{RESULT_MARK.get(result, '●')} trip {trip_id[:8]}: {result}"))
+
+    @mainthread
+    def _done(self, report, error):
+        self.running = False
+        if error is not None:
+            self.status = f"■ Not sent — will retry: {error}"
+            return
+        self.progress = self.progress_max
+        self.rows_box.clear_widgets()
+        titles = {t.id: t.title for t in ctl().trip_lines()}
+        for r in report.per_trip:
+            line = f"{RESULT_MARK.get(r.result, '●')} {r.result.upper()}: {titles.get(r.trip_id, r.trip_id[:8])}"
+            if r.message:
+                line += f" — {r.message}"
+            for c in r.conflicts:
+                line += f"\n    ▲ {c}"
+            self.rows_box.add_widget(Factory.WrapLabel(text=line))
+        left = "" if report.failed == 0 else " — the failed ones stay on this tablet and go next time"
+        self.status = (f"{'✓' if report.failed == 0 else '▲'} Sent {report.pushed} · unchanged {report.unchanged} · "
+                       f"conflicts {report.conflicts} · failed {report.failed}{left}")
+
+
+RESULT_MARK = {"pushed": "✓", "unchanged": "○", "conflict": "▲", "failed": "■"}

@@ -1,0 +1,134 @@
+"""What the app's screens show, already as text: view models and the formatting of times and values (no kivy)."""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from typing import Any
+
+from core.science.winkler import SAFETY_NOTE
+from mobile.app.theme import severity_mark
+
+__all__ = ["StopView", "FlagLine", "CalView", "ClockLine", "TripLine", "flag_line", "error_line",
+           "fmt_value", "fmt_when", "parse_when", "fmt_duration", "local_now",
+           "WADING_CAUTION", "REAGENT_CAUTION"]
+
+WADING_CAUTION = ("Wading: enter the water only where your program's SOP allows — never alone, "
+                  "never in fast or rising water, wearing a PFD where required.")
+REAGENT_CAUTION = SAFETY_NOTE  # the one reagent caution (core.science.winkler)
+
+
+def local_now() -> datetime:
+    return datetime.now(timezone.utc).astimezone()
+
+
+@dataclass
+class FlagLine:
+    """A flag as the screen shows it: symbol and word for the severity, message, action."""
+
+    code: str
+    severity: str
+    symbol: str
+    word: str
+    message: str
+    action: str
+
+    @property
+    def text(self) -> str:
+        tail = f" — {self.action}" if self.action else ""
+        return f"{self.symbol} {self.word}: {self.message}{tail}"
+
+
+def flag_line(flag: Any) -> FlagLine:
+    sev = getattr(flag.severity, "value", flag.severity)
+    symbol, word = severity_mark(sev)
+    return FlagLine(flag.code, str(sev), symbol, word, flag.message, flag.action or "")
+
+
+def error_line(message: str, field_name: str = "") -> FlagLine:
+    symbol, word = severity_mark("stop-and-check")
+    return FlagLine(f"input.{field_name or 'value'}", "stop-and-check", symbol, "CHECK ENTRY",
+                    message, "")
+
+
+@dataclass
+class StopView:
+    """Everything the stop screen shows beside the form, already as text."""
+
+    sat_text: str = "—"
+    percent_text: str = "—"
+    do_text: str = "—"
+    salinity_text: str = "—"
+    flags: list[FlagLine] = field(default_factory=list)
+    errors: dict[str, str] = field(default_factory=dict)
+    assessment: Any = None
+
+
+@dataclass
+class CalView:
+    target_text: str = "—"
+    verdict: str = ""          # "PASS" | "FAIL" | ""
+    detail: str = ""
+    result: Any = None
+
+
+@dataclass
+class ClockLine:
+    stop_id: str
+    label: str
+    kind: str
+    where: str
+    remaining_s: float
+    expired: bool
+    text: str
+    symbol: str
+    word: str
+
+
+@dataclass
+class TripLine:
+    id: str
+    title: str
+    status: str        # words: "open", "ended", "synced", "needs attention"
+    detail: str
+
+
+
+def fmt_value(value: float | None, digits: int, unit: str = "") -> str:
+    if value is None:
+        return "—"
+    return f"{value:.{digits}f}" + (f" {unit}" if unit else "")
+
+
+def parse_when(text: str, base: datetime | None) -> datetime:
+    """Reads "HH:MM" (same day as `base`) or "YYYY-MM-DD HH:MM" as a local, timezone-aware time."""
+    s = (text or "").strip()
+    tz = (base or local_now()).tzinfo or local_now().tzinfo
+    for fmt in ("%Y-%m-%d %H:%M", "%Y-%m-%dT%H:%M", "%Y-%m-%d %H:%M:%S"):
+        try:
+            return datetime.strptime(s, fmt).replace(tzinfo=tz)
+        except ValueError:
+            pass
+    try:
+        t = datetime.strptime(s, "%H:%M")
+    except ValueError:
+        raise ValueError(f"Time “{s}” is not readable; type HH:MM (24 h) or YYYY-MM-DD HH:MM.") from None
+    day = (base or local_now()).astimezone(tz)
+    return day.replace(hour=t.hour, minute=t.minute, second=0, microsecond=0)
+
+
+def fmt_when(when: datetime | None) -> str:
+    if when is None:
+        return ""
+    return when.astimezone().strftime("%Y-%m-%d %H:%M")
+
+
+def fmt_duration(seconds: float) -> str:
+    s = int(abs(seconds))
+    d, rem = divmod(s, 86400)
+    h, rem = divmod(rem, 3600)
+    m = rem // 60
+    if d:
+        return f"{d} d {h} h"
+    if h:
+        return f"{h} h {m:02d} min"
+    return f"{m} min"
