@@ -249,3 +249,18 @@ def test_cli_load_from_a_hub_and_summary(tmp_path, db, cli):
     assert r.returncode == 2 and "--season" in r.stderr
     r = cli("archive", "summary", "--db", "host=/nonexistent-socket-dir dbname=x connect_timeout=2")
     assert r.returncode == 2 and "cannot connect" in r.stderr and "Traceback" not in r.stderr
+
+
+def test_custody_hand_offs_are_archived_per_bottle(tmp_path, db):
+    from core.records.models import CustodyRecord
+
+    store = _sample_store(tmp_path / "office")
+    summary = next(s for s in store.list_trips() if s.bottle_labels)
+    trip = store.load_trip(summary.id)
+    bottles = [b.id for st in trip.stops for b in st.bottles][:2]
+    rec = CustodyRecord(bottle_ids=bottles, relinquished_by="R.O.", received_by="Lab desk (demo)",
+                        at=trip.started_at + timedelta(hours=8), at_lab=True, condition="intact, on ice")
+    store.save_trip(trip.model_copy(update={"custody": [rec]}), "hand-off to the lab")
+    archive.load(store, db)
+    assert _rows(db, "SELECT bottle_id, by_name, to_name, action, notes FROM custody ORDER BY bottle_id") == [
+        (b, "R.O.", "Lab desk (demo)", "received at the lab", "intact, on ice") for b in sorted(bottles)]
