@@ -366,6 +366,10 @@ class WebDavTarget:
     def list_all(self) -> list[RemoteFile]:
         try:
             entries = self._propfind(TRIPS + "/", "infinity")
+        except errors.Unauthorized:
+            # a 403 here is usually the server refusing infinite depth (RFC 4918 §9.1), not the
+            # credentials: walk with Depth 1, which raises Unauthorized again if they are wrong
+            entries = self._walk()
         except errors.Rejected as exc:
             if exc.status != 403:
                 raise

@@ -47,8 +47,27 @@ class DavServer:
         self.thread.join(5)
 
 
+class _FiniteDepthOnly:
+    """WSGI wrapper answering ``PROPFIND`` with ``Depth: infinity`` (or no Depth) by 403 and a
+    ``propfind-finite-depth`` precondition, as servers configured so do (RFC 4918 §9.1, §16)."""
+
+    BODY = (b'<?xml version="1.0" encoding="utf-8"?>'
+            b'<D:error xmlns:D="DAV:"><D:propfind-finite-depth/></D:error>')
+
+    def __init__(self, app) -> None:
+        self.app = app
+
+    def __call__(self, environ, start_response):
+        if (environ.get("REQUEST_METHOD") == "PROPFIND"
+                and environ.get("HTTP_DEPTH", "infinity").strip().lower() == "infinity"):
+            start_response("403 Forbidden", [("Content-Type", "application/xml; charset=utf-8"),
+                                             ("Content-Length", str(len(self.BODY)))])
+            return [self.BODY]
+        return self.app(environ, start_response)
+
+
 def start_dav(root: Path, *, certfile: Path | None = None, keyfile: Path | None = None,
-              auth: bool = True) -> DavServer:
+              auth: bool = True, finite_depth_only: bool = False) -> DavServer:
     from cheroot import wsgi
     from wsgidav.wsgidav_app import WsgiDAVApp
 
@@ -71,6 +90,8 @@ def start_dav(root: Path, *, certfile: Path | None = None, keyfile: Path | None 
         "dir_browser": {"enable": False},
     }
     app = WsgiDAVApp(config)
+    if finite_depth_only:
+        app = _FiniteDepthOnly(app)
     server = wsgi.Server(("127.0.0.1", port), app, numthreads=12, timeout=5)
     scheme = "http"
     if certfile is not None:

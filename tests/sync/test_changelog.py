@@ -142,3 +142,25 @@ def test_a_day_without_a_walk_walks_and_a_hub_without_a_log_still_pulls(tmp_path
     shutil.rmtree(hub / "log")                        # as if pushed by a build without the log
     report = sync.pull(office, str(hub))
     assert report.listed == "walk" and office.load_trip(t.id).stops[0].notes == "pushed by an older build"
+
+
+def test_a_server_refusing_infinite_depth_is_walked(tmp_path, device_a):
+    """RFC 4918 §9.1: a server may answer PROPFIND Depth: infinity with 403; the pull then lists
+    the hub with Depth: 1, and wrong credentials still stop it."""
+    from sync.errors import Unauthorized
+    from tests.sync.conftest import start_dav
+
+    server = start_dav(tmp_path / "dav", finite_depth_only=True)
+    try:
+        trips = [new_trip(device_a, day=d) for d in (3, 4)]
+        sync.push(device_a, server.url, session=dav_session())
+        office = _office(tmp_path)
+        report = sync.pull(office, server.url, session=dav_session())
+        assert (report.pulled, report.listed) == (2, "walk")
+        assert {t.id for t in trips} <= {s.id for s in office.list_trips()}
+        with pytest.raises(Unauthorized):
+            from sync.session import Credentials
+
+            sync.pull(_office(tmp_path / "x"), server.url, session=dav_session(credentials=Credentials("ro-tablet", "wrong")))
+    finally:
+        server.stop()
