@@ -1,11 +1,11 @@
 #!/usr/bin/env bash
-# Installs the Debian packages Kivy needs to open a window, Xvfb (tests, snapshots without a display)
-# and, for tests, PostgreSQL.
+# Installs the Debian packages Kivy needs to open a window, Xvfb (tests, snapshots without a display) and
+# poppler-utils (pdftoppm: the report tests render the PDFs to check what a reader sees), and for the
+# tests and benchmarks PostgreSQL (a fixture starts a throw-away server for the office archive).
 # As root it installs what is missing; otherwise it prints the one line to run.
 set -eu
 # Xvfb for both: tests need it, and `streamtab app --snapshot` uses it where there is no display.
-want=(libgl1-mesa-dri libegl1 libgl1 libmtdev1 xvfb xauth)
-# PostgreSQL for the tests and benchmarks of the office archive (a fixture starts a throw-away server).
+want=(libgl1-mesa-dri libegl1 libgl1 libmtdev1 xvfb xauth poppler-utils)
 if [ "${1:-}" = test ]; then want+=(postgresql); fi
 command -v dpkg-query >/dev/null 2>&1 || exit 0
 missing=()

@@ -9,7 +9,6 @@ brings in every revision at the hub this device has not seen, merging it with th
 from __future__ import annotations
 
 import hashlib
-import json
 import logging
 import os
 import threading
@@ -19,6 +18,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
+from core.records.limits import LimitError, loads_limited
 from core.store.atomic import atomic_write_bytes, canonical_json_bytes
 from sync import changelog, errors
 from sync.layout import canonical_trip_id, device_key, revision_name, trip_year
@@ -27,7 +27,7 @@ from sync.outbox import Outbox, OutboxEntry, hubs
 from sync.reconcile import (BOOKKEEPING_KEYS, contained_names, fold, lacks_ancestor, newest_contained,
                             next_head, same_content)
 from sync.plan import Action, LocalEntry, RemoteEntry, plan, plan_pull
-from sync.session import ENV_CA_FILE, Session, load_credentials
+from sync.session import Session, ca_file_from_environment, load_credentials
 from sync.targets import RemoteFile, Target, WebDavTarget, open_target
 
 __all__ = ["push", "pull", "status", "run_in_background", "PushReport", "PullReport", "TripResult",
@@ -38,6 +38,8 @@ log = logging.getLogger("streamtab.sync")
 Progress = Callable[[int, int, str, str], None]
 #: After this many trips in a row fail with a retryable error, the rest are not tried this run.
 GIVE_UP_AFTER = 3
+#: How often a pushing device looks for its own stale uploads under incoming/ (seconds).
+CLEAN_INCOMING_EVERY_S = 24 * 3600
 
 
 @dataclass
@@ -82,6 +84,7 @@ class PullReport:
     unchanged: int = 0
     failed: int = 0
     source: str = ""
+    skipped: list[str] = field(default_factory=list)   # hub entries that do not fit the layout
     listed: str = "walk"   # "log": only trips named by new change log entries; "walk": the whole hub
 
     @property
@@ -91,8 +94,7 @@ class PullReport:
     def to_dict(self) -> dict[str, Any]:
         return {"pulled": self.pulled, "merged": self.merged, "quarantined": self.quarantined,
                 "unchanged": self.unchanged, "failed": self.failed, "source": self.source,
-                "listed": self.listed,
-                "per_trip": [asdict(t) for t in self.per_trip]}
+                "skipped": list(self.skipped), "listed": self.listed, "per_trip": [asdict(t) for t in self.per_trip]}
 
 
 @dataclass
@@ -142,7 +144,7 @@ def _summaries(store: Any) -> dict[str, tuple[int, str]]:
 
 def _session_for(store: Any, address: str, session: Session | None) -> Session:
     if session is None:
-        ca = os.environ.get(ENV_CA_FILE) or None
+        ca = ca_file_from_environment()
         session = Session(store.device_id,
                           credentials=load_credentials(address, data_dir=store.data_dir),
                           ca_file=ca)
@@ -166,7 +168,9 @@ def _conflict_lines(conflicts: Iterable[dict]) -> list[str]:
 
 def _parse_hub_doc(f: RemoteFile, data: bytes) -> dict:
     try:
-        doc = json.loads(data.decode("utf-8"))
+        doc = loads_limited(data.decode("utf-8"))
+    except LimitError as exc:
+        raise errors.BadHubDocument(f"hub file {f.name} of trip {f.trip_id} is refused: {exc}") from None
     except (UnicodeDecodeError, ValueError):
         raise errors.BadHubDocument(f"hub file {f.name} of trip {f.trip_id} is not valid JSON") from None
     if not isinstance(doc, dict):
@@ -200,15 +204,37 @@ def _extra_ancestors(tgt: Target, session: Session, year: str, tid: str, local: 
 
 
 def _quarantine(data_dir: Path, f: RemoteFile, data: bytes | None, reason: str) -> Path:
-    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+    """A copy of a bad hub file and a report beside it. Bad files are re-checked at every sync
+    (never blacklisted), so the copy has one name per hub file and is refreshed, not multiplied."""
     folder = Path(data_dir) / "sync" / "quarantine"
-    base = folder / f"{stamp}-{f.trip_id}-{f.name}"
+    base = folder / f"{f.trip_id}-{f.name}"
     if data is not None:
         atomic_write_bytes(base, data)
     report = (f"hub file: trips/{f.year}/{f.trip_id}/{f.name}\nfound: {_now()}\nreason: {reason}\n"
-              + ("" if data is not None else "content: not copied (refused before or while reading)\n"))
+              + ("" if data is not None else "content: not copied (refused before or while reading)\n")
+              + "re-checked at every sync until the hub copy is repaired or removed by the office\n")
     atomic_write_bytes(base.with_name(base.name + ".report.txt"), report.encode("utf-8"))
     return base
+
+
+def _local_failure(exc: BaseException, data_dir: Path) -> errors.LocalWriteError:
+    """One line for a failed write of this device's own files (outbox, quarantine, store)."""
+    import errno
+
+    reason = getattr(exc, "strerror", None) or (str(exc).splitlines() or [type(exc).__name__])[0]
+    if getattr(exc, "errno", None) in (errno.ENOSPC, getattr(errno, "EDQUOT", -1)) or "No space" in str(exc):
+        what = f"the device's disk is full (writing in {data_dir})"
+        todo = "free some space and sync again"
+    else:
+        what = f"this device's data folder {data_dir} could not be written ({reason})"
+        todo = "check the folder and sync again"
+    return errors.LocalWriteError(f"{what}; {todo} — nothing was lost, the next sync picks up where this one stopped")
+
+
+def _local_write_errors(exc: BaseException) -> bool:
+    from core.store import StoreWriteError
+
+    return isinstance(exc, (OSError, StoreWriteError))
 
 
 def _store_rejects(exc: Exception) -> bool:
@@ -301,13 +327,16 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
                 try:
                     res = _push_one(store, tgt, session, outbox, tid)
                     failing = 0
+                except errors.LocalWriteError:
+                    raise
                 except errors.RetryableError as exc:
                     failing += 1
                     res = TripResult(tid, "failed", f"not synced — will retry: {exc}",
                                      revision=local[tid].revision, retry=True)
                 except errors.Conflict as exc:
                     res = TripResult(tid, "conflict", str(exc), revision=local[tid].revision, retry=True)
-                except (errors.Rejected, errors.IntegrityError, errors.BadHubDocument, ValueError) as exc:
+                except (errors.Rejected, errors.IntegrityError, errors.BadHubDocument, errors.NotDelivered,
+                        ValueError) as exc:
                     res = TripResult(tid, "failed", str(exc), revision=local[tid].revision, retry=True)
             report.per_trip.append(res)
             if res.result == "pushed":
@@ -321,6 +350,12 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
             done += 1
             _notify(progress, done, total, tid, res.result)
         _log_push(tgt, session, outbox, [t for t in report.per_trip if t.result in ("pushed", "conflict")])
+        if any(r.result != "unchanged" for r in report.per_trip):   # an unchanged push asks nothing
+            _clean_incoming(tgt, session, outbox)
+    except Exception as exc:
+        if _local_write_errors(exc):
+            raise _local_failure(exc, store.data_dir) from None
+        raise
     finally:
         _flush(outbox)
         tgt.close()
@@ -328,7 +363,8 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
 
 
 def _log_push(tgt: Target, session: Session, outbox: Outbox, results: list[TripResult]) -> None:
-    """Writes the change log entry naming the revision files this push put at the hub."""
+    """Writes the change log entry naming the revision files this push put at the hub
+    (`sync.changelog`); files whose entry could not be written go into the next push's entry."""
     if not hasattr(tgt, "log_write"):
         return
     paths = []
@@ -342,6 +378,30 @@ def _log_push(tgt: Target, session: Session, outbox: Outbox, results: list[TripR
             changelog.append(tgt, state, device_key(session.device_id or ""), paths, session.device_id or "")
     except OSError:     # the record of what to log could not be written: a walk finds these files
         log.warning("push: could not record the change log entry", exc_info=True)
+
+
+def _clean_incoming(tgt: Target, session: Session, outbox: Outbox) -> None:
+    """At most once a day per hub, in a push that sent something, removes this device's own uploads
+    under ``incoming/`` older than a day (cut uploads). Best effort: a failure is logged and tried
+    again next push."""
+    remove = getattr(tgt, "remove_stale_uploads", None)
+    if remove is None or not session.device_id:
+        return
+    mark = outbox.folder / "incoming-cleaned"
+    now = time.time()
+    try:
+        if now - mark.stat().st_mtime < CLEAN_INCOMING_EVERY_S:
+            return
+    except OSError:
+        pass
+    try:
+        removed = remove(session.device_id, now)
+    except errors.SyncError as exc:
+        log.warning("could not remove stale uploads from the hub: %s", exc)
+        return
+    if removed:
+        log.info("removed %d stale upload(s) of this device from the hub's incoming/", removed)
+    atomic_write_bytes(mark, f"{_now()} removed {removed}\n".encode(), durable=False)
 
 
 def _flush(outbox: Outbox) -> None:
@@ -361,6 +421,7 @@ def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
     h = _sha(data)
     rev = int(doc.get("revision", 0))
     new_conflicts: list[dict] = []
+    notes: list[str] = []
 
     if tgt.can_list:
         if entry.hub_name is None and isinstance(tgt, WebDavTarget):
@@ -392,9 +453,13 @@ def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
                 try:
                     docs.append(_parse_hub_doc(f, tgt.read(f, session.max_document_bytes)))
                     good.append(name)
-                except (errors.BadHubDocument, errors.IntegrityError) as exc:
-                    log.warning("push: skipping a bad hub file: %s", exc)
-                    entry.bad.append(name)
+                except (errors.BadHubDocument, errors.IntegrityError, errors.Gone) as exc:
+                    # not marked seen: read again at the next sync (a cut read is retried inside
+                    # `read`; what stays wrong is reported here, never dropped silently)
+                    log.warning("push: skipping a hub file: %s", exc)
+                    notes.append(f"skipped {exc} — re-checked on the next sync")
+                    if not isinstance(exc, errors.Gone):
+                        entry.bad.append(name)
             candidates = [entry.base] if entry.base else []
             candidates += _extra_ancestors(tgt, session, year, tid, doc, docs, candidates,
                                            sorted(listing - set(act.unseen)))
@@ -429,9 +494,9 @@ def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
     seen.add(name)
     _record(outbox, entry, rev, h, name, wr.etag, seen, doc)
     if new_conflicts:
-        return TripResult(tid, "conflict", "pushed; fields changed on both sides need attention",
+        return TripResult(tid, "conflict", "; ".join(["pushed; fields changed on both sides need attention"] + notes),
                           revision=rev, conflicts=_conflict_lines(new_conflicts))
-    return TripResult(tid, "pushed", "" if wr.created else "the hub already held these bytes",
+    return TripResult(tid, "pushed", "; ".join(([] if wr.created else ["the hub already held these bytes"]) + notes),
                       revision=rev)
 
 
@@ -464,13 +529,17 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
         state = changelog.LogState.load(outbox.folder)
         changes = None if full else changelog.read_changes(tgt, state, own, session.max_document_bytes)
         by_trip: dict[str, list[RemoteFile]] = {}
-        if changes is None:              # walk the whole hub; what the log holds now is covered
+        if changes is None:             # walk the whole hub; what the log holds now is covered
             listing = changelog.snapshot(tgt, own) if hasattr(tgt, "log_folders") else {}
-            for f in session.retrying(tgt.list_all):
+            files = tgt.list_all()      # each request inside is retried (not the whole walk again)
+            report.skipped = list(getattr(files, "skipped", []))
+            for line in report.skipped:
+                log.warning("pull: %s", line)
+            for f in files:
                 by_trip.setdefault(f.trip_id, []).append(f)
             summaries = _summaries(store)
             known = outbox.all()
-        else:                            # only the trips the new log entries name
+        else:                           # only the trips the new log entries name
             report.listed = "log"
             known = {tid: e for tid in changes.files if (e := outbox.get(tid)) is not None}
             for tid, named in changes.files.items():
@@ -493,7 +562,11 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
                 try:
                     res = _pull_one(store, tgt, session, outbox, tid, act.unseen,
                                     {f.name: f for f in by_trip[tid]}, tid in summaries)
+                except errors.LocalWriteError:
+                    raise
                 except errors.RetryableError as exc:
+                    res = TripResult(tid, "failed", f"not pulled — will retry: {exc}", retry=True)
+                except errors.Rejected as exc:      # one file refused (4xx): this trip only
                     res = TripResult(tid, "failed", f"not pulled — will retry: {exc}", retry=True)
             report.per_trip.append(res)
             if res.result in ("pulled", "merged", "quarantined", "unchanged", "failed"):
@@ -503,14 +576,18 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
         left = {t.trip_id for t in report.per_trip if t.retry}
         if changes is None:
             state.devices.update(listing)
-            if not left:                 # a walk with trips left over is repeated next time
+            if not left:                # a walk with trips left over is repeated next time
                 state.walked_at = time.time()
         else:
             changes.settle(state, left)
         try:
             state.save()
-        except OSError:                  # only costs a walk next time
+        except OSError:                 # only costs a walk next time
             log.warning("pull: could not record the change log state", exc_info=True)
+    except Exception as exc:
+        if _local_write_errors(exc):
+            raise _local_failure(exc, store.data_dir) from None
+        raise
     finally:
         _flush(outbox)
         tgt.close()
@@ -537,6 +614,7 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
     if entry is None:
         entry = OutboxEntry(trip_id=tid, year=year)
     bad_lines: list[str] = []
+    gone_lines: list[str] = []
     docs: list[tuple[str, dict]] = []
     for name in unseen:
         f = files[name]
@@ -544,9 +622,12 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
         try:
             data = tgt.read(f, session.max_document_bytes)
             docs.append((name, _parse_hub_doc(f, data)))
+        except errors.Gone as exc:          # listed, then removed: looked for again next sync
+            gone_lines.append(f"{exc}; skipped")
         except (errors.BadHubDocument, errors.IntegrityError) as exc:
-            where = _quarantine(store.data_dir, f, data, str(exc))
-            bad_lines.append(f"{exc} (copied to {where.name})")
+            # stays unseen: re-checked at every sync, reported every time, never blacklisted
+            where = _quarantine(store.data_dir, f, data if data is not None else getattr(exc, "data", None), str(exc))
+            bad_lines.append(f"{exc} (copied to {where.name}; re-checked on the next sync)")
             entry.bad.append(name)
     candidates = [entry.base] if entry.base else []
     if local_doc is not None:
@@ -578,7 +659,7 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
                     raise
                 msg = f"the store refused hub file {name}: {exc}".splitlines()[0]
                 _quarantine(store.data_dir, files[name], canonical_json_bytes(doc), msg)
-                bad_lines.append(msg)
+                bad_lines.append(f"{msg} (re-checked on the next sync)")
                 entry.bad.append(name)
                 del pending[name]
                 continue
@@ -594,6 +675,7 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
                 accepted.append(other)
                 del pending[other]
     entry.seen = sorted(set(entry.seen) | set(accepted))
+    entry.bad = [n for n in entry.bad if n not in accepted]     # repaired at the hub since
     if acc is not None and accepted:
         # the ancestor for the next merge: the newest hub document the device copy contains
         base = newest_contained([d for n, d in docs if n in accepted], acc)
@@ -609,9 +691,9 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
     outbox.put(entry)
     rev = int(acc.get("revision", 0)) if acc else None
     if bad_lines:
-        return TripResult(tid, "quarantined", "; ".join(bad_lines), revision=rev,
-                          conflicts=_conflict_lines(conflicts))
-    msg = "fields changed on both sides need attention" if conflicts else ""
+        return TripResult(tid, "quarantined", "; ".join(bad_lines + gone_lines), revision=rev,
+                          conflicts=_conflict_lines(conflicts), retry=True)
+    msg = "; ".join((["fields changed on both sides need attention"] if conflicts else []) + gone_lines)
     return TripResult(tid, kind, msg,
                       revision=rev, conflicts=_conflict_lines(conflicts))
 

@@ -7,9 +7,10 @@ from __future__ import annotations
 
 __all__ = [
     "SyncError",
-    "RetryableError", "Unreachable", "TimedOut", "ServerError",
-    "FinalError", "ConfigError", "CredentialsError", "Unauthorized", "Rejected", "Conflict",
-    "RedirectRefused", "TLSError", "IntegrityError", "BadHubDocument",
+    "RetryableError", "Unreachable", "TimedOut", "ServerError", "ReadMismatch", "LocalWriteError",
+    "FinalError", "ConfigError", "CredentialsError", "Unauthorized", "Rejected", "DepthRefused",
+    "Gone", "NotDelivered", "Conflict", "RedirectRefused", "TLSError", "IntegrityError",
+    "BadHubDocument",
 ]
 
 
@@ -40,6 +41,16 @@ class ServerError(RetryableError):
     def __init__(self, message: str, status: int) -> None:
         super().__init__(message)
         self.status = status
+
+
+class ReadMismatch(RetryableError):
+    """A hub file's bytes did not match the content hash in its name on this read: first taken as
+    a transport problem (an answer cut inside its headers reads as an empty 200) and read again."""
+
+
+class LocalWriteError(RetryableError):
+    """This device could not write its own files (disk full, read-only, no permission): the run
+    stops with one line; nothing is lost, the next sync picks up where this one stopped."""
 
 
 # --- final: retrying the same thing gives the same answer --------------------------------------
@@ -73,6 +84,26 @@ class Rejected(FinalError):
     def __init__(self, message: str, status: int | None = None) -> None:
         super().__init__(message)
         self.status = status
+
+
+class DepthRefused(Rejected):
+    """A 403 with RFC 4918 §9.1's ``propfind-finite-depth`` precondition: the server refuses
+    ``PROPFIND Depth: infinity`` (its shipped default), not the user; sync walks with Depth 1."""
+
+    def __init__(self, message: str) -> None:
+        super().__init__(message, 403)
+
+
+class Gone(Rejected):
+    """A hub file that was listed is gone when read (404): skipped, and looked for again next sync."""
+
+    def __init__(self, message: str) -> None:
+        super().__init__(message, 404)
+
+
+class NotDelivered(FinalError):
+    """An intake endpoint answered without the acknowledgement sync/DESIGN.md defines (a JSON
+    body echoing the trip id and content hash): the trip is not counted as delivered."""
 
 
 class Conflict(FinalError):

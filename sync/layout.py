@@ -17,13 +17,17 @@ import re
 import uuid
 
 __all__ = ["TRIPS", "INCOMING", "LOG", "revision_name", "parse_revision_name", "trip_dir",
-           "trip_year", "canonical_trip_id", "device_key", "incoming_name", "HASH_HEX", "name_matches"]
+           "trip_year", "canonical_trip_id", "device_key", "incoming_name", "HASH_HEX", "name_matches",
+           "odd_entry", "shown_name", "is_incoming_name", "YEAR_RE"]
 
 TRIPS = "trips"
 INCOMING = "incoming"
 LOG = "log"          # the change log (sync.changelog)
 HASH_HEX = 24
 _NAME_RE = re.compile(r"^r(\d{6,})-([0-9a-f]{%d})\.json$" % HASH_HEX)
+#: A year folder: the trip's four-digit start year, or "undated".
+YEAR_RE = re.compile(r"\d{4}|undated")
+_INCOMING_RE = re.compile(r"[0-9a-f]{8}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{12}\.[0-9a-f]{12}\.part")
 
 
 def canonical_trip_id(trip_id: str) -> str:
@@ -70,7 +74,7 @@ def trip_year(doc: dict) -> str:
 
 def trip_dir(year: str, trip_id: str) -> str:
     """Relative path of a trip's collection, with a trailing slash."""
-    if not re.fullmatch(r"\d{4}|undated", year):
+    if not YEAR_RE.fullmatch(year):
         raise ValueError(f"year folder {year!r} must be four digits or 'undated'")
     return f"{TRIPS}/{year}/{canonical_trip_id(trip_id)}/"
 
@@ -84,3 +88,41 @@ def incoming_name(device_id: str, trip_id: str) -> str:
     """A fresh temporary upload path (a new nonce per attempt, so a late, cut upload of an
     earlier attempt can never be moved into place by a later one)."""
     return f"{INCOMING}/{device_key(device_id)}/{canonical_trip_id(trip_id)}.{uuid.uuid4().hex[:12]}.part"
+
+
+def is_incoming_name(name: str) -> bool:
+    """True for an upload file name made by `incoming_name` (``<trip uuid>.<nonce>.part``)."""
+    return bool(_INCOMING_RE.fullmatch(name))
+
+
+def shown_name(name: str, limit: int = 80) -> str:
+    """A hub entry's name as it can be shown in one line (control characters as '?', shortened)."""
+    text = "".join(c if c.isprintable() else "?" for c in name)
+    return text if len(text) <= limit else text[: limit - 1] + "…"
+
+
+def odd_entry(parts: tuple[str, ...], is_folder: bool) -> str | None:
+    """Why an entry under ``trips/`` does not fit the hub layout (None when it fits).
+
+    `parts` is its path below the hub, starting with ``trips``. Callers report an odd entry once
+    and skip what lies under it; the rest of the hub is read as usual.
+    """
+    depth = len(parts)
+    if depth < 2 or parts[0] != TRIPS:
+        return None
+    if not YEAR_RE.fullmatch(parts[1]):
+        return "not a year folder (four digits or 'undated')"
+    if depth == 2:
+        return None if is_folder else "a file where year folders belong"
+    tid = parts[2]
+    try:
+        canonical = canonical_trip_id(tid)
+    except ValueError:
+        return "not a trip folder (its name is not a trip id)"
+    if canonical != tid:
+        return f"a trip folder whose name is not in sync's lower-case form (rename it to {canonical})"
+    if depth == 3:
+        return None if is_folder else "a file where trip folders belong"
+    if depth == 4 and not is_folder:
+        return None if parse_revision_name(parts[3]) else "not a revision file (r<revision>-<hash>.json)"
+    return "a folder inside a trip folder" if depth == 4 else "below the hub layout"

@@ -42,7 +42,9 @@ class OutboxEntry:
     base: dict | None = None
 
     def seen_set(self) -> frozenset[str]:
-        return frozenset(self.seen) | frozenset(self.bad)
+        """Hub files already contained in the device copy. Files found bad (`bad`) are not in
+        it: they are read and checked again at every sync, never blacklisted."""
+        return frozenset(self.seen)
 
 
 def _entry(raw: dict) -> OutboxEntry:

@@ -28,14 +28,19 @@ from urllib.parse import quote, unquote, urlsplit
 from core.store.atomic import atomic_write_bytes, fsync_dir
 from sync import errors
 from sync.layout import (INCOMING, LOG, TRIPS, canonical_trip_id, device_key, incoming_name,
-                         name_matches, parse_revision_name, trip_dir)
+                         is_incoming_name, name_matches, odd_entry, parse_revision_name, shown_name,
+                         trip_dir)
 from sync.session import Session, redact_url
 
-__all__ = ["RemoteFile", "WriteResult", "Target", "FolderTarget", "WebDavTarget", "PostTarget",
-           "open_target", "POST_PREFIX", "MAX_LISTING_BYTES"]
+__all__ = ["RemoteFile", "WriteResult", "Target", "Listing", "FolderTarget", "WebDavTarget",
+           "PostTarget", "open_target", "POST_PREFIX", "MAX_LISTING_BYTES", "MAX_ACK_BYTES",
+           "STALE_UPLOAD_S"]
 
 POST_PREFIX = "post+"
 MAX_LISTING_BYTES = 64 * 1024 * 1024
+MAX_ACK_BYTES = 64 * 1024
+#: An upload under incoming/ older than this (seconds) was cut: its device removes it.
+STALE_UPLOAD_S = 24 * 3600
 _LOOPBACK = {"127.0.0.1", "localhost", "::1"}
 
 
@@ -73,15 +78,73 @@ class Target(Protocol):
     def close(self) -> None: ...
 
 
+class Listing(list):
+    """The revision files `list_all` found, plus `skipped`: one line per entry under ``trips/``
+    that does not fit the hub layout (reported, not read)."""
+
+    def __init__(self, files=(), skipped=()) -> None:  # noqa: ANN001
+        super().__init__(files)
+        self.skipped: list[str] = list(skipped)
+
+
 def _key(text: str) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
 
 
-def _check_read(f: RemoteFile, data: bytes, where: str) -> bytes:
-    if not name_matches(f.name, data):
-        raise errors.IntegrityError(
-            f"hub copy {where} does not match the content hash in its name (truncated or altered)")
-    return data
+def _checked_read(f: RemoteFile, where: str, fetch, session: Session | None):  # noqa: ANN001, ANN202
+    """Reads a hub file with `fetch()` and checks its bytes against the hash in its name.
+
+    A mismatch is first a transport problem (an answer cut inside its headers reads as an empty
+    200): it is `ReadMismatch`, retried like a cut. Only the same wrong bytes on a fresh read make
+    the copy damaged (`IntegrityError`, carrying the bytes in ``.data`` for the quarantine).
+    """
+    previous: list[bytes] = []
+
+    def step() -> bytes:
+        data, framed = fetch()
+        if name_matches(f.name, data):
+            return data
+        if f.size is not None and f.size != len(data):
+            framed = False          # not the size the listing gave: the answer was cut
+        if not framed:
+            # an answer without a length to check it by (a cut inside the headers drops the
+            # Content-Length and reads as a short 200) can never prove the hub copy damaged
+            raise errors.ReadMismatch(f"hub copy {where} arrived without its full length ({len(data)} "
+                                      f"bytes; cut on the way)")
+        if previous and previous[-1] == data:
+            exc = errors.IntegrityError(f"hub copy {where} does not match the content hash in its "
+                                        f"name on two fresh reads (truncated or altered at the hub)")
+            exc.data = data
+            raise exc
+        previous.append(data)
+        raise errors.ReadMismatch(f"hub copy {where} did not match the content hash in its name "
+                                  f"as read ({len(data)} bytes; cut or altered on the way)")
+    if session is None:
+        try:
+            return step()
+        except errors.ReadMismatch:
+            return step()
+    return session.retrying(step)
+
+
+def _walk_report(root_rel: str, entries, skipped: list[str]) -> list[tuple[tuple[str, ...], int | None]]:  # noqa: ANN001
+    """Sorts listing entries (relpath, is_folder, size) into revision files (parts, size) and
+    report lines for odd entries; what lies under an odd entry is skipped without a line."""
+    files, odd_prefixes = [], []
+    for relpath, is_col, size in sorted(entries, key=lambda e: e[0]):
+        parts = tuple(p for p in relpath.strip("/").split("/") if p)
+        if len(parts) < 2 or parts[0] != TRIPS:
+            continue
+        if any(parts[:len(o)] == o for o in odd_prefixes):
+            continue
+        why = odd_entry(parts, is_col)
+        if why is not None:
+            odd_prefixes.append(parts)
+            skipped.append(f"{'/'.join(shown_name(p) for p in parts)}{'/' if is_col else ''} skipped: {why}")
+            continue
+        if len(parts) == 4 and not is_col:
+            files.append((parts, size))
+    return files
 
 
 def _too_big(where: str, max_bytes: int) -> errors.BadHubDocument:
@@ -115,32 +178,54 @@ class FolderTarget:
             raise errors.Unreachable(f"hub folder {self.url} cannot be read ({exc.strerror})") from None
         return frozenset(n for n in names if parse_revision_name(n))
 
-    def list_all(self) -> list[RemoteFile]:
-        out: list[RemoteFile] = []
+    def list_all(self) -> Listing:
         trips = self.root / TRIPS
         if not trips.is_dir():
             if not self.root.is_dir():
                 raise errors.ConfigError(f"hub folder {self.url} does not exist")
-            return out
-        for year in sorted(p for p in trips.iterdir() if p.is_dir()):
-            for tdir in sorted(p for p in year.iterdir() if p.is_dir()):
-                try:
-                    tid = canonical_trip_id(tdir.name)
-                except ValueError:
+            return Listing()
+        entries: list[tuple[str, bool, int | None]] = []
+        try:
+            for year in os.scandir(trips):
+                entries.append((f"{TRIPS}/{year.name}", year.is_dir(), None))
+                if not year.is_dir():
                     continue
-                for f in sorted(tdir.iterdir()):
-                    if parse_revision_name(f.name) and f.is_file():
-                        out.append(RemoteFile(tid, year.name, f.name, f.stat().st_size))
+                for tdir in os.scandir(year.path):
+                    entries.append((f"{TRIPS}/{year.name}/{tdir.name}", tdir.is_dir(), None))
+                    if not tdir.is_dir():
+                        continue
+                    for f in os.scandir(tdir.path):
+                        try:
+                            is_dir, size = f.is_dir(), (None if f.is_dir() else f.stat().st_size)
+                        except OSError:              # listed and gone: read settles it
+                            is_dir, size = False, None
+                        entries.append((f"{TRIPS}/{year.name}/{tdir.name}/{f.name}", is_dir, size))
+        except OSError as exc:
+            raise errors.Unreachable(f"hub folder {self.url} cannot be listed ({exc.strerror})") from None
+        out = Listing()
+        for parts, size in _walk_report(TRIPS, entries, out.skipped):
+            out.append(RemoteFile(parts[2], parts[1], parts[3], size))
+        out.sort(key=lambda f: (f.trip_id, f.name))
         return out
 
     def read(self, f: RemoteFile, max_bytes: int) -> bytes:
         path = self._trip_path(f.year, f.trip_id) / f.name
         where = f"{TRIPS}/{f.year}/{f.trip_id}/{f.name}"
-        with open(path, "rb") as fh:
-            data = fh.read(max_bytes + 1)
-        if len(data) > max_bytes:
-            raise _too_big(where, max_bytes)
-        return _check_read(f, data, where)
+
+        def fetch() -> bytes:
+            try:
+                with open(path, "rb") as fh:
+                    data = fh.read(max_bytes + 1)
+            except FileNotFoundError:
+                raise errors.Gone(f"hub file {where} was listed but is gone") from None
+            except IsADirectoryError:
+                raise errors.BadHubDocument(f"hub entry {where} is a folder, not a revision file") from None
+            except OSError as exc:
+                raise errors.Unreachable(f"hub file {where} cannot be read ({exc.strerror})") from None
+            if len(data) > max_bytes:
+                raise _too_big(where, max_bytes)
+            return data, True
+        return _checked_read(f, where, fetch, None)
 
     def write_revision(self, year: str, trip_id: str, name: str, data: bytes,
                        device_id: str, revision: int, content_hash: str) -> WriteResult:
@@ -177,11 +262,33 @@ class FolderTarget:
                 pass
         return WriteResult(created=created)
 
+    def remove_stale_uploads(self, device_id: str, now: float) -> int:
+        """Removes this device's own uploads under ``incoming/<device key>/`` older than
+        `STALE_UPLOAD_S` (cut uploads); returns how many. The only deletion sync does."""
+        folder = self.root / INCOMING / device_key(device_id)
+        removed = 0
+        try:
+            entries = list(os.scandir(folder))
+        except FileNotFoundError:
+            return 0
+        except OSError as exc:
+            raise errors.Unreachable(f"hub folder {self.url} cannot be listed ({exc.strerror})") from None
+        for e in entries:
+            try:
+                if is_incoming_name(e.name) and e.is_file(follow_symlinks=False) \
+                        and e.stat(follow_symlinks=False).st_mtime < now - STALE_UPLOAD_S:
+                    os.unlink(e.path)
+                    removed += 1
+            except FileNotFoundError:
+                continue
+            except OSError as exc:
+                raise errors.Unreachable(f"hub folder {self.url} cannot be cleaned ({exc.strerror})") from None
+        return removed
+
     # change log (sync.changelog): a local folder is listed whole every time (cheap), so no stamps
     def log_folders(self) -> dict[str, float | None] | None:
-        root = self.root / LOG
         try:
-            return {e.name: None for e in os.scandir(root) if e.is_dir()}
+            return {e.name: None for e in os.scandir(self.root / LOG) if e.is_dir()}
         except FileNotFoundError:
             return None
         except OSError as exc:
@@ -190,7 +297,7 @@ class FolderTarget:
     def log_list(self, device: str) -> tuple[list[str], float | None]:
         try:
             return sorted(os.listdir(self.root / LOG / device)), None
-        except FileNotFoundError:
+        except (FileNotFoundError, NotADirectoryError):
             return [], None
         except OSError as exc:
             raise errors.Unreachable(f"hub folder {self.url} cannot be read ({exc.strerror})") from None
@@ -202,10 +309,11 @@ class FolderTarget:
         except OSError as exc:
             raise errors.Rejected(f"log entry {device}/{name} cannot be read ({exc.strerror})") from None
         if len(data) > max_bytes:
-            raise _too_big(f"{LOG}/{device}/{name}", max_bytes)
+            raise errors.Rejected(f"log entry {device}/{name} is larger than {max_bytes} bytes")
         return data
 
     def log_write(self, device: str, name: str, data: bytes, device_id: str) -> bool:
+        """Temporary file, then a hard link to the entry's name (fails if it exists)."""
         folder = self.root / LOG / device
         tmp = self.root / INCOMING / device_key(device_id) / f"{name}.{os.urandom(6).hex()}.part"
         try:
@@ -250,7 +358,12 @@ class FolderTarget:
 # --- WebDAV ------------------------------------------------------------------------------------
 _PROPFIND_BODY = (b'<?xml version="1.0" encoding="utf-8"?>'
                   b'<D:propfind xmlns:D="DAV:"><D:prop><D:resourcetype/><D:getcontentlength/>'
-                  b'<D:getetag/><D:getlastmodified/></D:prop></D:propfind>')
+                  b'<D:getetag/></D:prop></D:propfind>')
+
+
+_PROPFIND_TIMES_BODY = (b'<?xml version="1.0" encoding="utf-8"?>'
+                        b'<D:propfind xmlns:D="DAV:"><D:prop><D:resourcetype/><D:getcontentlength/>'
+                        b'<D:getlastmodified/></D:prop></D:propfind>')
 
 
 class WebDavTarget:
@@ -274,6 +387,8 @@ class WebDavTarget:
         self.session = session
         self._base_path = unquote(urlsplit(url).path)
         self._made: set[str] = set()
+        #: the Date (server clock, epoch s) of the last PROPFIND answer, for the change log
+        self.listed_at: float | None = None
 
     def _u(self, rel: str) -> str:
         return self.base + quote(rel)
@@ -313,46 +428,52 @@ class WebDavTarget:
                               resp.status_code)
 
     # listing
-    def _propfind(self, rel: str, depth: str) -> list[tuple[str, bool, int | None]] | None:
-        got = self._propfind_timed(rel, depth)
-        return None if got is None else [(p, c, n) for p, c, n, _ in got[0]]
-
-    def _propfind_timed(self, rel: str, depth: str
-                        ) -> tuple[list[tuple[str, bool, int | None, float | None]], float | None] | None:
-        """(entries as (relpath, is_collection, size, modified), the answer's Date), both as
-        epoch seconds of the server's clock; None for 404."""
+    def _propfind(self, rel: str, depth: str, body: bytes = _PROPFIND_BODY,
+                  with_times: bool = False) -> list[tuple] | None:
+        """Entries (relpath, is_folder, size[, last modified]) of one PROPFIND; None for 404.
+        The request, its body and the XML are one retried step: a listing cut mid-answer (or
+        inside its headers, which reads as an empty 207) is a transport problem, not bad input."""
         def step():
-            return self.session.request("PROPFIND", self._u(rel), body=_PROPFIND_BODY,
+            resp = self.session.request("PROPFIND", self._u(rel), body=body,
                                         headers={"Depth": depth,
                                                  "Content-Type": "application/xml; charset=utf-8"},
                                         stream=True)
-        resp = self.session.retrying(step)
-        try:
-            if resp.status_code == 404:
-                return None
-            if resp.status_code != 207:
-                raise errors.Rejected(f"the hub answered PROPFIND {rel} with {resp.status_code}",
-                                      resp.status_code)
-            raw = _read_capped(resp, MAX_LISTING_BYTES, f"listing of {rel}")
-            answered = _http_time(resp.headers.get("Date"))
-        finally:
-            resp.close()
-        try:
-            root = ET.fromstring(raw)
-        except ET.ParseError:
-            raise errors.Rejected(f"the hub's listing of {rel} is not valid WebDAV XML") from None
+            try:
+                if resp.status_code == 404:
+                    return None
+                if resp.status_code != 207:
+                    raise errors.Rejected(f"the hub answered PROPFIND {rel} with {resp.status_code}",
+                                          resp.status_code)
+                raw = self.session.read_body(resp, MAX_LISTING_BYTES, f"listing of {rel}")
+                self.listed_at = _http_time(resp.headers.get("Date"))
+            finally:
+                resp.close()
+            try:
+                return ET.fromstring(raw)
+            except ET.ParseError:
+                raise errors.Unreachable(f"the hub's listing of {rel} arrived cut or garbled "
+                                         f"({len(raw)} bytes of XML that do not parse)") from None
+        root = self.session.retrying(step)
+        if root is None:
+            return None
         out = []
         for r in root.iter("{DAV:}response"):
             href = r.findtext("{DAV:}href") or ""
-            path = unquote(urlsplit(href).path)
+            try:
+                path = unquote(urlsplit(href).path)
+            except ValueError:
+                continue
             if not path.startswith(self._base_path):
                 continue
             relpath = path[len(self._base_path):]
             is_col = r.find(".//{DAV:}resourcetype/{DAV:}collection") is not None
             size_text = r.findtext(".//{DAV:}getcontentlength")
             size = int(size_text) if size_text and size_text.strip().isdigit() else None
-            out.append((relpath, is_col, size, _http_time(r.findtext(".//{DAV:}getlastmodified"))))
-        return out, answered
+            if with_times:
+                out.append((relpath, is_col, size, r.findtext(".//{DAV:}getlastmodified")))
+            else:
+                out.append((relpath, is_col, size))
+        return out
 
     def list_trip(self, year: str, trip_id: str) -> frozenset[str] | None:
         rel = trip_dir(year, trip_id)
@@ -363,31 +484,22 @@ class WebDavTarget:
         return frozenset(p.rsplit("/", 1)[-1] for p, col, _ in entries
                          if not col and parse_revision_name(p.rsplit("/", 1)[-1]))
 
-    def list_all(self) -> list[RemoteFile]:
+    def list_all(self) -> Listing:
         try:
             entries = self._propfind(TRIPS + "/", "infinity")
-        except errors.Unauthorized:
-            # a 403 here is usually the server refusing infinite depth (RFC 4918 §9.1), not the
-            # credentials: walk with Depth 1, which raises Unauthorized again if they are wrong
+        except errors.DepthRefused:
+            # RFC 4918 §9.1: the server does not list whole trees (the shipped default of common
+            # servers); the same listing costs one Depth-1 PROPFIND per folder
             entries = self._walk()
-        except errors.Rejected as exc:
-            if exc.status != 403:
-                raise
-            entries = self._walk()
-        out = []
-        for relpath, is_col, size in entries or []:
-            parts = relpath.strip("/").split("/")
-            if is_col or len(parts) != 4 or parts[0] != TRIPS or not parse_revision_name(parts[3]):
-                continue
-            try:
-                tid = canonical_trip_id(parts[2])
-            except ValueError:
-                continue
-            out.append(RemoteFile(tid, parts[1], parts[3], size))
-        return sorted(out, key=lambda f: (f.trip_id, f.name))
+        out = Listing()
+        for parts, size in _walk_report(TRIPS, entries or [], out.skipped):
+            out.append(RemoteFile(parts[2], parts[1], parts[3], size))
+        out.sort(key=lambda f: (f.trip_id, f.name))
+        return out
 
     def _walk(self) -> list[tuple[str, bool, int | None]]:
-        """Depth-1 walk for servers that refuse ``Depth: infinity`` (3 levels, bounded)."""
+        """Depth-1 walk for servers that refuse ``Depth: infinity`` (3 levels, bounded); only
+        folders that fit the layout are entered."""
         found: list[tuple[str, bool, int | None]] = []
         level = [TRIPS + "/"]
         for _ in range(3):
@@ -397,29 +509,68 @@ class WebDavTarget:
                     if relpath.rstrip("/") == rel.rstrip("/"):
                         continue
                     found.append((relpath, is_col, size))
-                    if is_col:
-                        nxt.append(relpath if relpath.endswith("/") else relpath + "/")
+                    parts = tuple(p for p in relpath.strip("/").split("/") if p)
+                    if is_col and len(parts) < 4 and odd_entry(parts, True) is None:
+                        nxt.append(quote_rel(parts))
             level = nxt
         return found
 
+    # reading
+    def read(self, f: RemoteFile, max_bytes: int) -> bytes:
+        rel = trip_dir(f.year, f.trip_id) + f.name
+        if f.size is not None and f.size > max_bytes:
+            raise _too_big(rel, max_bytes)
+
+        def fetch() -> bytes:
+            resp = self.session.request("GET", self._u(rel), stream=True)
+            try:
+                if resp.status_code in (404, 410):
+                    raise errors.Gone(f"hub file {rel} was listed but is gone")
+                if resp.status_code != 200:
+                    raise errors.Rejected(f"the hub answered GET {rel} with {resp.status_code}",
+                                          resp.status_code)
+                data = self.session.read_body(resp, max_bytes, rel, too_big=lambda: _too_big(rel, max_bytes))
+                # read_body checked a Content-Length; a chunked body ends with its last chunk
+                framed = bool(resp.headers.get("Content-Length")) or \
+                    "chunked" in resp.headers.get("Transfer-Encoding", "").lower()
+                return data, framed
+            finally:
+                resp.close()
+        return _checked_read(f, rel, fetch, self.session)
+
+    def _get_bytes(self, rel: str, limit: int) -> bytes | None:
+        def step() -> bytes | None:
+            resp = self.session.request("GET", self._u(rel), stream=True)
+            try:
+                if resp.status_code == 404:
+                    return None
+                if resp.status_code != 200:
+                    raise errors.Rejected(f"the hub answered GET {rel} with {resp.status_code}",
+                                          resp.status_code)
+                return self.session.read_body(resp, limit, rel)
+            finally:
+                resp.close()
+        return self.session.retrying(step)
+
     # change log (sync.changelog)
     def log_folders(self) -> dict[str, float | None] | None:
-        got = self._propfind_timed(LOG + "/", "1")
-        if got is None:
+        entries = self._propfind(LOG + "/", "1", body=_PROPFIND_TIMES_BODY, with_times=True)
+        if entries is None:
             return None
         out = {}
-        for relpath, is_col, _, modified in got[0]:
+        for relpath, is_col, _size, modified in entries:
             parts = relpath.strip("/").split("/")
             if is_col and len(parts) == 2 and parts[0] == LOG:
-                out[parts[1]] = modified
+                out[parts[1]] = _http_time(modified)
         return out
 
     def log_list(self, device: str) -> tuple[list[str], float | None]:
-        got = self._propfind_timed(f"{LOG}/{device}/", "1")
-        if got is None:
+        self.listed_at = None
+        entries = self._propfind(f"{LOG}/{device}/", "1")
+        if entries is None:
             return [], None
-        names = [p.rstrip("/").rsplit("/", 1)[-1] for p, col, _, _ in got[0] if not col]
-        return sorted(names), got[1]
+        names = [p.rstrip("/").rsplit("/", 1)[-1] for p, col, _ in entries if not col]
+        return sorted(names), self.listed_at
 
     def log_read(self, device: str, name: str, max_bytes: int) -> bytes:
         data = self._get_bytes(f"{LOG}/{device}/{name}", max_bytes)
@@ -457,34 +608,34 @@ class WebDavTarget:
             raise errors.Rejected(f"the hub refused to create the collection for {rel}")
         return self.session.retrying(step)
 
-    # reading
-    def read(self, f: RemoteFile, max_bytes: int) -> bytes:
-        rel = trip_dir(f.year, f.trip_id) + f.name
-        if f.size is not None and f.size > max_bytes:
-            raise _too_big(rel, max_bytes)
-        resp = self.session.retrying(lambda: self.session.request("GET", self._u(rel), stream=True))
-        try:
-            if resp.status_code == 404:
-                raise errors.Rejected(f"hub file {rel} disappeared while reading", 404)
-            if resp.status_code != 200:
-                raise errors.Rejected(f"the hub answered GET {rel} with {resp.status_code}",
-                                      resp.status_code)
-            data = _read_capped(resp, max_bytes, rel, bad=True)
-        finally:
-            resp.close()
-        return _check_read(f, data, rel)
+    # cleaning
+    def remove_stale_uploads(self, device_id: str, now: float) -> int:
+        """Removes this device's own uploads under ``incoming/<device key>/`` whose last change is
+        older than `STALE_UPLOAD_S` (cut uploads): one PROPFIND, one DELETE each. The only
+        deletion sync does."""
+        from email.utils import parsedate_to_datetime
 
-    def _get_bytes(self, rel: str, limit: int) -> bytes | None:
-        resp = self.session.retrying(lambda: self.session.request("GET", self._u(rel), stream=True))
-        try:
-            if resp.status_code == 404:
-                return None
-            if resp.status_code != 200:
-                raise errors.Rejected(f"the hub answered GET {rel} with {resp.status_code}",
-                                      resp.status_code)
-            return _read_capped(resp, limit, rel)
-        finally:
+        rel = f"{INCOMING}/{device_key(device_id)}/"
+        entries = self._propfind(rel, "1", body=_PROPFIND_TIMES_BODY, with_times=True) or []
+        removed = 0
+        for relpath, is_col, _size, modified in entries:
+            name = relpath.rstrip("/").rsplit("/", 1)[-1]
+            if is_col or not relpath.startswith(rel) or not is_incoming_name(name) or not modified:
+                continue
+            try:
+                when = parsedate_to_datetime(modified).timestamp()
+            except (TypeError, ValueError, IndexError, OverflowError):
+                continue
+            if when >= now - STALE_UPLOAD_S:
+                continue
+            resp = self.session.retrying(lambda: self.session.request("DELETE", self._u(rel + name)))
             resp.close()
+            if resp.status_code in (200, 204):
+                removed += 1
+            elif resp.status_code != 404:
+                raise errors.Rejected(f"the hub refused to remove {rel}{name} ({resp.status_code})",
+                                      resp.status_code)
+        return removed
 
     # writing
     def ensure_trip_collection(self, year: str, trip_id: str) -> bool:
@@ -553,45 +704,30 @@ class WebDavTarget:
         pass
 
 
+def quote_rel(parts: tuple[str, ...]) -> str:
+    """A folder path below the hub from its parts, with a trailing slash."""
+    return "/".join(parts) + "/"
+
+
+
 def _http_time(text: str | None) -> float | None:
     """An HTTP date (RFC 9110) as epoch seconds, or None."""
     if not text:
         return None
     try:
         return parsedate_to_datetime(text.strip()).timestamp()
-    except (TypeError, ValueError, IndexError):
+    except (TypeError, ValueError, IndexError, OverflowError):
         return None
-
-
-def _read_capped(resp, limit: int, where: str, bad: bool = False) -> bytes:  # noqa: ANN001
-    length = resp.headers.get("Content-Length")
-    if length and length.isdigit() and int(length) > limit:
-        raise (_too_big(where, limit) if bad else errors.Rejected(f"{where} is larger than {limit} bytes"))
-    chunks, total = [], 0
-    try:
-        for chunk in resp.iter_content(64 * 1024):
-            total += len(chunk)
-            if total > limit:
-                raise (_too_big(where, limit) if bad else errors.Rejected(f"{where} is larger than {limit} bytes"))
-            chunks.append(chunk)
-    except errors.SyncError:
-        raise
-    except Exception as exc:   # requests/urllib3 read errors while streaming the body
-        import requests
-
-        if isinstance(exc, (requests.exceptions.Timeout,)) or "timed out" in str(exc).lower():
-            raise errors.TimedOut(f"reading {where} timed out") from None
-        raise errors.Unreachable(f"the connection was cut while reading {where}") from None
-    return b"".join(chunks)
-
 
 # --- HTTP POST endpoint ----------------------------------------------------------------------------
 class PostTarget:
     """An intake service taking one trip document per POST (push only).
 
     Each POST carries ``Idempotency-Key: <trip uuid>-r<revision>-<first 16 hex of content hash>``
-    so a POST re-sent after a lost answer is recognised by the service. 2xx: accepted; 409: the
-    service holds a conflicting version (reported as a conflict); other 4xx: rejected.
+    so a POST re-sent after a lost answer is recognised by the service. A 2xx whose body is the
+    acknowledgement (`ack_problem`: JSON echoing the trip id and content hash): accepted; any
+    other 2xx: `NotDelivered`; 409: the service holds a conflicting version (reported as a
+    conflict); other 4xx: rejected.
     """
 
     can_list = False
@@ -623,18 +759,61 @@ class PostTarget:
         def step():
             resp = self.session.request("POST", self.endpoint, body=data,
                                         headers={"Content-Type": "application/json",
-                                                 "Idempotency-Key": key})
-            resp.close()
-            return resp
-        resp = self.session.retrying(step)
-        if 200 <= resp.status_code < 300:
-            return WriteResult(created=True, etag=resp.headers.get("ETag"))
-        if resp.status_code == 409:
+                                                 "Accept": "application/json",
+                                                 "Idempotency-Key": key}, stream=True)
+            try:
+                body = b""
+                if 200 <= resp.status_code < 300:
+                    body = self.session.read_body(
+                        resp, MAX_ACK_BYTES, "the endpoint's answer",
+                        too_big=lambda: errors.NotDelivered(
+                            f"the endpoint answered {resp.status_code} with more than {MAX_ACK_BYTES} "
+                            f"bytes, not an acknowledgement; trip {trip_id} is not counted as delivered"))
+                return resp.status_code, resp.headers, body
+            finally:
+                resp.close()
+        status, headers, body = self.session.retrying(step)
+        if 200 <= status < 300:
+            problem = ack_problem(body, trip_id, content_hash)
+            if problem:
+                raise errors.NotDelivered(
+                    f"the endpoint answered {status} but {problem} ({_describe(headers, body)}); trip "
+                    f"{trip_id} is not counted as delivered and is sent again next sync — check that "
+                    f"the address is the intake endpoint itself")
+            return WriteResult(created=True, etag=headers.get("ETag"))
+        if status == 409:
             raise errors.Conflict(f"the endpoint holds a conflicting version of trip {trip_id} (409)")
-        raise errors.Rejected(f"the endpoint refused trip {trip_id} ({resp.status_code})", resp.status_code)
+        raise errors.Rejected(f"the endpoint refused trip {trip_id} ({status})", status)
 
     def close(self) -> None:
         pass
+
+
+def ack_problem(body: bytes, trip_id: str, content_hash: str) -> str | None:
+    """What is wrong with an intake endpoint's 2xx answer, or None for a proper acknowledgement:
+    a JSON object echoing ``trip_id`` (the trip's UUID) and ``content_hash`` (``sha256:<hex>`` of
+    the bytes sent). See sync/DESIGN.md, "HTTP endpoint"."""
+    import json
+
+    try:
+        ack = json.loads(body.decode("utf-8"))
+    except (UnicodeDecodeError, ValueError, RecursionError):
+        return "not with the JSON acknowledgement sync expects"
+    if not isinstance(ack, dict):
+        return "not with a JSON object acknowledging the trip"
+    if str(ack.get("trip_id", "")).lower() != canonical_trip_id(trip_id):
+        return f"its acknowledgement names trip {shown_name(str(ack.get('trip_id')), 40)!s}, not this one"
+    if str(ack.get("content_hash", "")).lower() != content_hash.lower():
+        return "its acknowledgement does not echo the content hash of the bytes sent"
+    return None
+
+
+def _describe(headers, body: bytes) -> str:  # noqa: ANN001
+    """What came back, in a few words: content type, size and the first characters."""
+    ctype = (headers.get("Content-Type") or "no content type").split(";")[0].strip()
+    text = body[:60].decode("utf-8", "replace")
+    snippet = " ".join("".join(c if c.isprintable() else " " for c in text).split())
+    return f"{ctype}, {len(body)} bytes" + (f": “{snippet}{'…' if len(body) > 60 else ''}”" if snippet else "")
 
 
 def open_target(address: str, session: Session) -> Target:

@@ -17,6 +17,7 @@ from typing import Any
 
 from pydantic import ValidationError
 
+from core.records.limits import MAX_DOCUMENT_BYTES, LimitError, loads_limited
 from core.records.messages import label_for, problems_from_validation
 from core.records.models import InputError, Site, Trip, parse_number
 
@@ -113,25 +114,28 @@ def import_sites_csv(store: Any, path: Path | str) -> list[Site]:
     return store.save_sites(sites)
 
 
-def _refuse_constant(name: str) -> Any:
-    raise ValueError(f"{name} is not a number JSON allows")
-
-
 def read_trip_file(path: Path | str) -> dict[str, Any]:
-    """The JSON document in a trip file (not yet validated); errors name the file and line."""
+    """The JSON document in a trip file (not yet validated); errors name the file and line.
+    The limits of `core.records.limits` (depth, text length, list lengths) are checked here."""
     path = Path(path)
     try:
-        raw = path.read_bytes()
+        with open(path, "rb") as fh:
+            raw = fh.read(MAX_DOCUMENT_BYTES + 1)
     except FileNotFoundError:
         raise ExchangeError(f"{path}: no such file.") from None
     except OSError as exc:
         raise ExchangeError(f"{path}: cannot be read ({exc.strerror or exc}).") from None
+    if len(raw) > MAX_DOCUMENT_BYTES:
+        raise ExchangeError(f"{path.name}: larger than {MAX_DOCUMENT_BYTES // (1024 * 1024)} MiB; a trip "
+                            f"file is never that large, so nothing was imported.")
     try:
-        doc = json.loads(raw.decode("utf-8-sig"), parse_constant=_refuse_constant)
+        doc = loads_limited(raw.decode("utf-8-sig"))
     except UnicodeDecodeError:
         raise ExchangeError(f"{path.name}: not UTF-8 text.") from None
     except json.JSONDecodeError as exc:
         raise ExchangeError(f"{path.name}, line {exc.lineno} column {exc.colno}: not valid JSON ({exc.msg}).") from None
+    except LimitError as exc:
+        raise ExchangeError(f"{path.name}: {exc}; nothing was imported.") from None
     except ValueError as exc:
         raise ExchangeError(f"{path.name}: {exc}; NaN and infinity are refused.") from None
     if not isinstance(doc, dict):

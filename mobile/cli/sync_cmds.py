@@ -6,7 +6,6 @@ wrong address, options, credentials, TLS or a redirect).
 """
 from __future__ import annotations
 
-import os
 import sys
 from typing import Any
 
@@ -82,7 +81,7 @@ def _open_store(args: Any):  # noqa: ANN202
 
 def _session(args: Any, store: Any, address: str):  # noqa: ANN202
     from sync.errors import SyncError
-    from sync.session import ENV_CA_FILE, Session, load_credentials
+    from sync.session import Session, ca_file_from_environment, load_credentials
 
     if not (0 < args.timeout <= 600):
         fail(f"--timeout {args.timeout:g} must be between 0 and 600 seconds")
@@ -90,7 +89,7 @@ def _session(args: Any, store: Any, address: str):  # noqa: ANN202
         creds = load_credentials(address, config_file=args.credentials, data_dir=store.data_dir)
         return Session(store.device_id, credentials=creds, read_timeout_s=args.timeout,
                        connect_timeout_s=min(10.0, args.timeout),
-                       ca_file=args.ca_file or os.environ.get(ENV_CA_FILE) or None)
+                       ca_file=args.ca_file or ca_file_from_environment())
     except SyncError as exc:
         fail(str(exc))
 
@@ -114,6 +113,14 @@ def _run(args: Any, verb: str, address: str):  # noqa: ANN202
     except (RetryableError, StoreLocked) as exc:
         bar.finish()
         return None, str(exc)
+    except Exception as exc:  # noqa: BLE001 - a person never sees a traceback; the log keeps it
+        import logging
+
+        bar.finish()
+        logging.getLogger("streamtab.sync").debug("sync stopped", exc_info=True)
+        first = (str(exc).splitlines() or [""])[0][:160]
+        fail(f"sync {verb} stopped on an unexpected problem ({type(exc).__name__}: {first}); nothing "
+             f"stored was changed by it — run it again, and report it if it repeats")
     finally:
         bar.finish()
         session.close()
@@ -142,8 +149,11 @@ def _pull(args: Any) -> int:
     else:
         emit_table([("hub", report.source), ("pulled", str(report.pulled)),
                     ("merged", str(report.merged)), ("quarantined", str(report.quarantined)),
-                    ("unchanged", str(report.unchanged)), ("failed", str(report.failed))])
+                    ("unchanged", str(report.unchanged)), ("failed", str(report.failed))]
+                   + ([("skipped at the hub", str(len(report.skipped)))] if report.skipped else []))
         _details(report.per_trip)
+        for line in report.skipped:
+            sys.stdout.write(f"hub entry {line}\n")
     return EXIT_OK if report.complete else EXIT_RETRY
 
 

@@ -84,9 +84,9 @@ def _ms(xs: list[float]) -> float:
 def bench_pull(tmp: Path, crew, ids: list[str]) -> None:
     import sync
     from core.store import DeviceStore
-    from tests.sync.conftest import start_dav
+    from tests.sync.conftest import finite_depth_only, start_dav
 
-    server = start_dav(tmp / "dav", finite_depth_only=True)
+    server = start_dav(tmp / "dav", wrap=finite_depth_only)
     try:
         hub = server.root / "hub"
         t0 = time.perf_counter()

@@ -2,6 +2,7 @@
 endpoint, a fault-injecting TCP proxy; and device stores holding invented trips."""
 from __future__ import annotations
 
+import hashlib
 import json
 import random
 import socket
@@ -47,27 +48,39 @@ class DavServer:
         self.thread.join(5)
 
 
-class _FiniteDepthOnly:
-    """WSGI wrapper answering ``PROPFIND`` with ``Depth: infinity`` (or no Depth) by 403 and a
-    ``propfind-finite-depth`` precondition, as servers configured so do (RFC 4918 §9.1, §16)."""
+def finite_depth_only(app, seen: list | None = None):  # noqa: ANN001, ANN201
+    """WSGI middleware in front of wsgidav: PROPFIND with ``Depth: infinity`` (or no Depth, which
+    RFC 4918 §9.1 says means infinity) is refused with 403 and the RFC's ``propfind-finite-depth``
+    precondition, serialised by wsgidav's own error class, as stock servers ship by default.
+    `seen` collects the (method, Depth) of every request."""
+    from wsgidav.dav_error import PRECONDITION_CODE_PropfindFiniteDepth, DAVErrorCondition
 
-    BODY = (b'<?xml version="1.0" encoding="utf-8"?>'
-            b'<D:error xmlns:D="DAV:"><D:propfind-finite-depth/></D:error>')
+    body = DAVErrorCondition(PRECONDITION_CODE_PropfindFiniteDepth).as_string().encode("utf-8")
 
-    def __init__(self, app) -> None:
-        self.app = app
-
-    def __call__(self, environ, start_response):
-        if (environ.get("REQUEST_METHOD") == "PROPFIND"
-                and environ.get("HTTP_DEPTH", "infinity").strip().lower() == "infinity"):
+    def middleware(environ, start_response):  # noqa: ANN001, ANN202
+        depth = environ.get("HTTP_DEPTH", "infinity").lower()
+        if seen is not None:
+            seen.append((environ["REQUEST_METHOD"], depth))
+        if environ["REQUEST_METHOD"] == "PROPFIND" and depth == "infinity":
             start_response("403 Forbidden", [("Content-Type", "application/xml; charset=utf-8"),
-                                             ("Content-Length", str(len(self.BODY)))])
-            return [self.BODY]
-        return self.app(environ, start_response)
+                                              ("Content-Length", str(len(body)))])
+            return [body]
+        return app(environ, start_response)
+    return middleware
+
+
+def forbid_everything(app):  # noqa: ANN001, ANN201
+    """WSGI middleware: every request is refused with a plain 403 page (an account without access)."""
+    page = b"<html><body><h1>403 Forbidden</h1><p>Your account may not use this share.</p></body></html>"
+
+    def middleware(environ, start_response):  # noqa: ANN001, ANN202
+        start_response("403 Forbidden", [("Content-Type", "text/html"), ("Content-Length", str(len(page)))])
+        return [page]
+    return middleware
 
 
 def start_dav(root: Path, *, certfile: Path | None = None, keyfile: Path | None = None,
-              auth: bool = True, finite_depth_only: bool = False) -> DavServer:
+              auth: bool = True, wrap=None) -> DavServer:  # noqa: ANN001
     from cheroot import wsgi
     from wsgidav.wsgidav_app import WsgiDAVApp
 
@@ -90,8 +103,8 @@ def start_dav(root: Path, *, certfile: Path | None = None, keyfile: Path | None 
         "dir_browser": {"enable": False},
     }
     app = WsgiDAVApp(config)
-    if finite_depth_only:
-        app = _FiniteDepthOnly(app)
+    if wrap is not None:
+        app = wrap(app)
     server = wsgi.Server(("127.0.0.1", port), app, numthreads=12, timeout=5)
     scheme = "http"
     if certfile is not None:
@@ -134,6 +147,7 @@ class Intake:
     by_trip: dict = field(default_factory=dict)         # trip id -> list of (revision, body)
     requests: list = field(default_factory=list)        # (key, status)
     conflict_trips: set = field(default_factory=set)
+    answer: str = "ack"     # "ack" (the JSON acknowledgement), "html" (a login page), "empty", "wrong-hash"
 
     @property
     def url(self) -> str:
@@ -170,9 +184,24 @@ def intake():
                     it.received[key] = body
                     it.by_trip.setdefault(doc["id"], []).append((doc["revision"], body))
             it.requests.append((key, status))
+            out, ctype = b"", "text/plain"
+            if status in (200, 201):
+                if it.answer == "html":
+                    out, ctype = (b"<!DOCTYPE html><html><head><title>Sign in</title></head><body>"
+                                  b"<form>user <input name=u></form></body></html>"), "text/html"
+                    it.received.pop(key, None)          # a login page takes nothing in
+                    it.by_trip.clear()
+                elif it.answer in ("ack", "wrong-hash"):
+                    digest = "sha256:" + hashlib.sha256(body).hexdigest()
+                    if it.answer == "wrong-hash":
+                        digest = "sha256:" + "0" * 64
+                    out, ctype = json.dumps({"trip_id": json.loads(body)["id"], "content_hash": digest,
+                                             "received": True}).encode(), "application/json"
             self.send_response(status)
-            self.send_header("Content-Length", "0")
+            self.send_header("Content-Type", ctype)
+            self.send_header("Content-Length", str(len(out)))
             self.end_headers()
+            self.wfile.write(out)
 
     port = free_port()
     server = ThreadingHTTPServer(("127.0.0.1", port), Handler)
@@ -192,7 +221,7 @@ class FaultProxy:
     the request, answer nothing until the client gives up), "http500"/"http503" (answer at once),
     "cut_response" (forward the request, then only part of the answer)."""
 
-    FAULTS = ("cut_upload", "stall", "http500", "http503", "cut_response")
+    FAULTS = ("cut_upload", "stall", "http500", "http503", "cut_response", "cut_headers")
 
     def __init__(self, upstream_port: int, seed: int = 1) -> None:
         self.upstream = upstream_port
@@ -200,6 +229,9 @@ class FaultProxy:
         self.fault_rate = 0.0
         self.faults = self.FAULTS
         self.counts: dict[str, int] = {}
+        # method -> faults for its next requests, in order ("cut_headers": the answer is cut right
+        # after its status line, before Content-Length: the client reads an empty 200/207)
+        self.script: dict[str, list[str]] = {}
         self.sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
         self.sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
         self.sock.bind(("127.0.0.1", 0))
@@ -227,8 +259,25 @@ class FaultProxy:
             fault, cut = self._pick()
             threading.Thread(target=self._serve, args=(client, fault, cut), daemon=True).start()
 
+    def _scripted(self, client: socket.socket, fault: str) -> tuple[str, bytes]:
+        """Reads the request's first bytes; a scripted fault for its method replaces the draw."""
+        try:
+            first = client.recv(65536)
+        except OSError:
+            return fault, b""
+        method = first.split(b" ", 1)[0].decode("ascii", "replace")
+        with self._lock:
+            queue = self.script.get(method)
+            if queue:
+                fault = queue.pop(0)
+                self.counts[fault] = self.counts.get(fault, 0) + 1
+        return fault, first
+
     def _serve(self, client: socket.socket, fault: str, cut: int) -> None:
         client.settimeout(3.0)
+        first = b""
+        if self.script:
+            fault, first = self._scripted(client, fault)
         try:
             if fault in ("http500", "http503", "stall"):
                 try:
@@ -251,6 +300,8 @@ class FaultProxy:
                 return
             upstream = socket.create_connection(("127.0.0.1", self.upstream), timeout=3.0)
             try:
+                if first:
+                    upstream.sendall(first)
                 self._pump(client, upstream, fault, cut)
             finally:
                 upstream.close()
@@ -286,6 +337,11 @@ class FaultProxy:
                         return
                     sent_up += len(data)
                 else:
+                    if fault == "cut_headers":
+                        head = data.find(b"\r\n")
+                        if sent_down == 0 and head >= 0:     # the status line only, then close
+                            dst.sendall(data[: head + 2])
+                            return
                     if fault == "cut_response" and sent_down + len(data) > cut // 8:
                         dst.sendall(data[: max(0, cut // 8 - sent_down)])
                         return

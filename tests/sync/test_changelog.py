@@ -148,9 +148,9 @@ def test_a_server_refusing_infinite_depth_is_walked(tmp_path, device_a):
     """RFC 4918 §9.1: a server may answer PROPFIND Depth: infinity with 403; the pull then lists
     the hub with Depth: 1, and wrong credentials still stop it."""
     from sync.errors import Unauthorized
-    from tests.sync.conftest import start_dav
+    from tests.sync.conftest import finite_depth_only, start_dav
 
-    server = start_dav(tmp_path / "dav", finite_depth_only=True)
+    server = start_dav(tmp_path / "dav", wrap=finite_depth_only)
     try:
         trips = [new_trip(device_a, day=d) for d in (3, 4)]
         sync.push(device_a, server.url, session=dav_session())

@@ -52,9 +52,13 @@ def test_malformed_oversized_and_invalid_documents_are_quarantined_and_the_pull_
     qdir = office.data_dir / "sync" / "quarantine"
     reports = sorted(qdir.glob("*.report.txt"))
     assert len(reports) == 4 and all("reason:" in p.read_text() for p in reports)
-    # a second pull does not quarantine the same files again, and the hub was not touched
+    assert not report.complete          # the hub holds trips the office did not get: not exit 0
+    # a second pull checks the same files again (never blacklisted) and reports them again,
+    # without piling up copies; the hub was not touched
     again = sync.pull(office, dav.url, session=session)
-    assert again.quarantined == 0 and again.pulled == 0
+    assert again.quarantined == 4 and again.pulled == 0 and not again.complete
+    assert all("re-checked on the next sync" in t.message for t in again.per_trip if t.result == "quarantined")
+    assert len(sorted(qdir.glob("*.report.txt"))) == 4
     assert len(hub_files(hub)) == 6
 
 

@@ -20,8 +20,8 @@ from tests.sync.conftest import (DAV_PASSWORD, DAV_USER, dav_session, free_port,
                                  new_trip, start_dav)
 
 
-def write_config(path, mode, password=DAV_PASSWORD):
-    path.write_text(f"[hub http://127.0.0.1]\nuser = {DAV_USER}\npassword = {password}\n")
+def write_config(path, mode, password=DAV_PASSWORD, hub="http://127.0.0.1"):
+    path.write_text(f"[hub {hub}]\nuser = {DAV_USER}\npassword = {password}\n")
     os.chmod(path, mode)
     return path
 
@@ -38,7 +38,7 @@ def test_credentials_file_readable_by_others_is_refused(tmp_path):
 
 
 def test_owner_only_credentials_file_is_used_and_never_shown(dav, device_a, tmp_path, caplog):
-    cfg = write_config(tmp_path / "credentials.ini", 0o600)
+    cfg = write_config(tmp_path / "credentials.ini", 0o600, hub=f"http://127.0.0.1:{dav.port}/hub")
     creds = load_credentials(dav.url, config_file=cfg, env={})
     assert creds is not None and DAV_PASSWORD not in repr(creds) and DAV_PASSWORD not in str(creds)
     session = Session("tablet-A", credentials=creds, connect_timeout_s=2, read_timeout_s=5)

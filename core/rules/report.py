@@ -1,0 +1,372 @@
+"""What a filed trip report and the office tables say: rows in words and numbers, no layout.
+
+Pure: a Trip, the sites, the program settings and ``now`` in, plain rows out. The PDF
+(`mobile.paper.report_pdf`), the season tables (`mobile.paper.season`) and the plots read these
+rows, so a result's status, qualifier and holding verdict are decided here once.
+
+A result's ``status`` is one of:
+
+=======================  =============================================================
+``superseded``           a later result of the same analyte on the bottle replaced it
+``not valid``            the bench rules found it unusable (``valid`` is False)
+``past holding time``    analysed (Winkler) or set up (BOD) after its holding time
+``valid``                checked and usable
+``not checked``          entered without the bench rules (``valid`` is None)
+=======================  =============================================================
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from datetime import datetime
+from typing import Any
+
+from core.records.models import Bottle, LabResult, ProgramSettings, Site, Stop, Trip
+
+__all__ = [
+    "Rounding", "ResultRow", "StopRow", "BottleRow", "HandoffRow", "PlotPoint", "TripReport",
+    "WADING_CAUTION", "DECIDES", "rounding_for", "result_rows", "stop_rows", "bottle_rows",
+    "handoff_rows", "plot_points", "trip_report", "criterion_mg_l", "fmt_number", "typed",
+]
+
+WADING_CAUTION = ("Wading: enter the water only where your program's SOP allows — never alone, "
+                  "never in fast or rising water, wearing a PFD where required.")
+#: The line every printed report carries.
+DECIDES = ("This report informs; it does not judge water safe or unsafe for aquatic life. The program's SOP,"
+           " its QA plan and local regulations decide how these values are used and reported.")
+
+
+@dataclass(frozen=True)
+class Rounding:
+    """How many decimals values are shown with (never applied to stored values).
+
+    Defaults: DO 0.1 mg/L shown (0.01 stored), % saturation whole, temperature 0.1 °C, pressure
+    0.1 hPa, specific conductance 3 significant figures [common practice]. A program sets its own
+    in its settings as ``reporting_decimals`` ({"do_mg_l": 2, ...}).
+    """
+
+    do_mg_l: int = 1
+    percent: int = 0
+    temp_c: int = 1
+    pressure_hpa: int = 1
+    conductivity_sig: int = 3
+    bod_mg_l: int = 1
+
+
+def rounding_for(settings: ProgramSettings | None) -> Rounding:
+    """The program's reporting decimals (``reporting_decimals`` in its settings), else the defaults."""
+    extra = (settings.model_extra or {}) if settings is not None else {}
+    given = extra.get("reporting_decimals") or {}
+    known = {k: int(v) for k, v in given.items()
+             if k in Rounding.__dataclass_fields__ and isinstance(v, int) and not isinstance(v, bool) and 0 <= v <= 6}
+    return Rounding(**known)
+
+
+def fmt_number(value: float | None, decimals: int) -> str:
+    """A value rounded for a reader ("—" when missing)."""
+    if value is None or not math.isfinite(value):
+        return "—"
+    return f"{value:.{decimals}f}"
+
+
+def _sig(value: float | None, digits: int) -> str:
+    if value is None:
+        return "—"
+    if value == 0:
+        return "0"
+    places = digits - 1 - int(math.floor(math.log10(abs(value))))
+    return f"{round(value, places):.{max(0, places)}f}"
+
+
+def criterion_mg_l(site: Site | None, settings: ProgramSettings) -> float | None:
+    """The DO criterion (mg/L) the program applies at a site; None when the site has no water class."""
+    if site is None:
+        return None
+    if site.min_do_mg_l is not None:
+        return site.min_do_mg_l
+    if site.water_class == "cold":
+        return settings.cold_min_mg_l
+    if site.water_class == "warm":
+        return settings.warm_min_mg_l
+    return None
+
+
+# --------------------------------------------------------------------------------------------
+# Lab results
+# --------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class ResultRow:
+    """One lab result as a reader sees it."""
+
+    stop_id: str
+    site_id: str
+    bottle_id: str
+    label: str
+    kind: str
+    result_id: str
+    analyte: str
+    value: float | None
+    qualifier: str            # "<", ">" or ""
+    reported: str             # "< 2.0 mg/L", "9.4 mg/L", "no value"
+    unit: str
+    status: str
+    holding: str              # "in time", "past holding time", "not known"
+    analyst: str
+    analysed_at: datetime | None
+    method: str
+    superseded_by: str | None
+    flag_codes: list[str] = field(default_factory=list)
+    notes: str = ""
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"stop_id": self.stop_id, "site_id": self.site_id, "bottle_id": self.bottle_id, "label": self.label,
+                "kind": self.kind, "result_id": self.result_id, "analyte": self.analyte, "value": self.value,
+                "qualifier": self.qualifier, "reported": self.reported, "unit": self.unit, "status": self.status,
+                "holding": self.holding, "analyst": self.analyst,
+                "analysed_at": self.analysed_at.isoformat() if self.analysed_at else None, "method": self.method,
+                "superseded_by": self.superseded_by, "flags": list(self.flag_codes), "notes": self.notes}
+
+
+def _holding(bottle: Bottle, result: LabResult, settings: ProgramSettings | None) -> str:
+    from core.rules.lab import analyte_key, bottle_analysis
+    from core.science.holding import holding_clock
+
+    derived = (result.inputs or {}).get("derived") or {}
+    hold = derived.get("holding")
+    if isinstance(hold, dict) and isinstance(hold.get("held_h"), (int, float)) \
+            and isinstance(hold.get("limit_h"), (int, float)):
+        return "past holding time" if hold["held_h"] > hold["limit_h"] else "in time"
+    pair = bottle_analysis(bottle)
+    if pair is None or result.analysed_at is None or analyte_key(result.analyte) != analyte_key(pair[0]):
+        return "not known"
+    if pair[1] == "bod":
+        return "not known"  # the set-up time decides, and it was not recorded with this result
+    fixed = bottle.fixed_at if bottle.fixed_at is not None and bottle.fixed_at >= bottle.collected_at else None
+    try:
+        clock = holding_clock(pair[1], bottle.collected_at, result.analysed_at, fixed_at=fixed,
+                              overrides=(settings.holding_overrides_h or None) if settings else None)
+    except ValueError:
+        return "not known"
+    return "past holding time" if clock.expired else "in time"
+
+
+def _reported(result: LabResult, rounding: Rounding) -> tuple[float | None, str, str]:
+    """(value, qualifier, text) of a result: the bench's own report when it carries one."""
+    rep = (result.inputs or {}).get("report")
+    if isinstance(rep, dict) and isinstance(rep.get("text"), str) and rep["text"]:
+        q = rep.get("qualifier") or ""
+        v = rep.get("value")
+        return (float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) else result.value,
+                q if q in ("<", ">") else "", rep["text"])
+    if result.value is None:
+        return None, "", "no value"
+    from core.rules.lab import BOD_ANALYTE, analyte_key
+
+    decimals = rounding.bod_mg_l if analyte_key(result.analyte) == BOD_ANALYTE else rounding.do_mg_l
+    if result.unit not in ("mg/L", "mg/l"):
+        decimals = 2
+    return result.value, "", f"{result.value:.{decimals}f} {result.unit}".strip()
+
+
+def _status(result: LabResult, holding: str) -> str:
+    if (result.inputs or {}).get("superseded_by") or getattr(result, "status", None) == "superseded":
+        return "superseded"
+    if result.valid is False:
+        return "not valid"
+    if holding == "past holding time":
+        return "past holding time"
+    return "valid" if result.valid else "not checked"
+
+
+def result_rows(trip: Trip, settings: ProgramSettings | None = None) -> list[ResultRow]:
+    """Every lab result of the trip (superseded ones too), in route order then bottle order."""
+    rounding = rounding_for(settings)
+    rows: list[ResultRow] = []
+    for stop in sorted(trip.stops, key=lambda s: s.arrived_at):
+        for b in stop.bottles:
+            for r in b.lab_results:
+                inputs = r.inputs or {}
+                holding = _holding(b, r, settings)
+                value, qualifier, text = _reported(r, rounding)
+                flags = [f.get("code", "") for f in inputs.get("flags") or [] if isinstance(f, dict)]
+                rows.append(ResultRow(stop.id, stop.site_id, b.id, b.label, b.kind, r.id, r.analyte, value,
+                                      qualifier, text, r.unit, _status(r, holding), holding, r.analyst,
+                                      r.analysed_at, r.method, inputs.get("superseded_by"), flags, r.notes))
+    return rows
+
+
+# --------------------------------------------------------------------------------------------
+# The field sheet
+# --------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class StopRow:
+    """One stop as entered, with what the store derived and every finding in words."""
+
+    stop: Stop
+    site_name: str
+    temp_text: str
+    pressure_text: str
+    conductivity_text: str
+    do_text: str
+    do_mg_l: float | None
+    do_sat_mg_l: float | None
+    percent_saturation: float | None
+    specific_conductance_us_cm: float | None
+    criterion_mg_l: float | None
+    shown: dict[str, str]
+    flags: list[Any]
+
+
+def typed(q, decimals: int = 1) -> str:
+    """A reading as typed, with its unit; the normalised value beside it when the unit differs."""
+    if q is None:
+        return "—"
+    text = q.text.strip()
+    entered = q.entered_unit.strip()
+    def key(u: str) -> str:
+        return u.replace("°", "").replace("µ", "u").lower()
+
+    if not any(ch.isalpha() or ch in "%°µ" for ch in text):
+        text = f"{text} {q.unit if not entered or key(entered) == key(q.unit) else entered}"
+    if entered and key(entered) != key(q.unit):
+        return f"{text} (= {q.value:.{decimals}f} {q.unit})"
+    return text
+
+
+def stop_rows(trip: Trip, sites: dict[str, Site], settings: ProgramSettings, now: datetime) -> list[StopRow]:
+    """The trip's stops in route order, as the field sheet prints them."""
+    from core.rules.qc import trip_flags
+
+    rounding = rounding_for(settings)
+    flags = trip_flags(trip, settings, now, sites=sites)
+    out: list[StopRow] = []
+    for s in sorted(trip.stops, key=lambda s: s.arrived_at):
+        d = s.derived
+        site = sites.get(s.site_id)
+        do_mg = d.do_mg_l if d is not None and d.do_mg_l is not None else (
+            s.do.value if s.do is not None and s.do.unit == "mg/L" else None)
+        shown = {
+            "temp": "—" if s.temp is None else f"{s.temp.value:.{rounding.temp_c}f} °C",
+            "pressure": "—" if s.pressure is None else f"{s.pressure.value:.{rounding.pressure_hpa}f} hPa",
+            "do_mg_l": fmt_number(do_mg, rounding.do_mg_l),
+            "do_sat_mg_l": fmt_number(d.do_sat_mg_l if d else None, rounding.do_mg_l),
+            "percent_saturation": fmt_number(d.percent_saturation if d else None, rounding.percent),
+            "sc25": _sig(d.specific_conductance_us_cm if d else None, rounding.conductivity_sig),
+        }
+        out.append(StopRow(s, site.name if site else "(site not in the site list)",
+                           typed(s.temp, rounding.temp_c), typed(s.pressure, rounding.pressure_hpa),
+                           typed(s.conductivity, 0), typed(s.do, rounding.do_mg_l), do_mg, d.do_sat_mg_l if d else None,
+                           d.percent_saturation if d else None, d.specific_conductance_us_cm if d else None,
+                           criterion_mg_l(site, settings), shown, flags.get(s.id, [])))
+    return out
+
+
+@dataclass(frozen=True)
+class BottleRow:
+    """A bottle on the custody page: kind, times, preservation, holding deadline, custody state."""
+
+    stop: Stop
+    bottle: Bottle
+    deadline: datetime | None
+    holding_rule: str
+    custody_status: str
+    custody_flags: list[Any]
+
+
+def bottle_rows(trip: Trip, settings: ProgramSettings | None = None) -> list[BottleRow]:
+    from core.rules.custody import custody_chains
+    from core.rules.lab import bottle_analysis
+    from core.science.holding import HOLDING_TIMES, holding_clock
+
+    out: list[BottleRow] = []
+    for chain in custody_chains(trip):
+        b = chain.bottle
+        pair = bottle_analysis(b)
+        deadline, rule = None, "no holding time (blank)"
+        if pair is not None:
+            fixed = b.fixed_at if (pair[1] == "do_winkler" and b.fixed_at is not None
+                                   and b.fixed_at >= b.collected_at) else None
+            try:
+                clock = holding_clock(pair[1], b.collected_at, b.collected_at, fixed_at=fixed,
+                                      overrides=(settings.holding_overrides_h or None) if settings else None)
+                deadline = clock.deadline
+                rule = f"{clock.rule.hours:g} h from {'fixing' if fixed else 'collection'}"
+            except ValueError:
+                rule = f"{HOLDING_TIMES[pair[1]].hours:g} h"
+        out.append(BottleRow(chain.stop, b, deadline, rule, chain.status, chain.flags))
+    return out
+
+
+@dataclass(frozen=True)
+class HandoffRow:
+    """One hand-off as printed: the people, the time, the bottles by label, receipt details."""
+
+    record: Any
+    labels: list[str]
+    temp_text: str
+
+
+def handoff_rows(trip: Trip) -> list[HandoffRow]:
+    labels = {b.id: b.label for s in trip.stops for b in s.bottles}
+    return [HandoffRow(r, [labels.get(i, f"(unknown bottle {i[:8]})") for i in r.bottle_ids],
+                       "—" if r.temp is None else f"{r.temp.value:.1f} °C")
+            for r in sorted(trip.custody, key=lambda r: r.at)]
+
+
+@dataclass(frozen=True)
+class PlotPoint:
+    """A stop on the DO plot: the meter's DO, the saturation target, the criterion, Winkler values."""
+
+    site_id: str
+    arrived_at: datetime
+    do_mg_l: float | None
+    do_sat_mg_l: float | None
+    criterion_mg_l: float | None
+    winkler_mg_l: list[float]
+
+
+def plot_points(trip: Trip, sites: dict[str, Site], settings: ProgramSettings) -> list[PlotPoint]:
+    from core.rules.lab import WINKLER_ANALYTE, current_result
+
+    out = []
+    for s in sorted(trip.stops, key=lambda s: s.arrived_at):
+        d = s.derived
+        do_mg = d.do_mg_l if d is not None and d.do_mg_l is not None else (
+            s.do.value if s.do is not None and s.do.unit == "mg/L" else None)
+        wink = [r.value for b in s.bottles for r in [current_result(b, WINKLER_ANALYTE)]
+                if r is not None and r.value is not None and r.valid is not False]
+        out.append(PlotPoint(s.site_id, s.arrived_at, do_mg, d.do_sat_mg_l if d else None,
+                             criterion_mg_l(sites.get(s.site_id), settings), wink))
+    return out
+
+
+@dataclass(frozen=True)
+class TripReport:
+    """Everything the trip report prints, in the order it prints it."""
+
+    trip: Trip
+    settings: ProgramSettings
+    generated_at: datetime
+    rounding: Rounding
+    calibrations: list[tuple[str, Any]]
+    trip_flags: list[Any]
+    stops: list[StopRow]
+    results: list[ResultRow]
+    bottles: list[BottleRow]
+    handoffs: list[HandoffRow]
+    plot: list[PlotPoint]
+    cautions: list[str]
+
+
+def trip_report(trip: Trip, sites: dict[str, Site], settings: ProgramSettings, now: datetime) -> TripReport:
+    """The content of a trip's report (see the module docstring for the result statuses)."""
+    from core.rules.qc import TRIP_KEY, trip_flags
+    from core.science.winkler import SAFETY_NOTE
+
+    cals = [("pre-trip calibration", trip.pre_calibration), ("post-trip check", trip.post_check)]
+    return TripReport(trip=trip, settings=settings, generated_at=now, rounding=rounding_for(settings),
+                      calibrations=cals, trip_flags=trip_flags(trip, settings, now, sites=sites)[TRIP_KEY],
+                      stops=stop_rows(trip, sites, settings, now), results=result_rows(trip, settings),
+                      bottles=bottle_rows(trip, settings), handoffs=handoff_rows(trip),
+                      plot=plot_points(trip, sites, settings),
+                      cautions=[WADING_CAUTION, SAFETY_NOTE, DECIDES])

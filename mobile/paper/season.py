@@ -1,0 +1,54 @@
+"""Writes the season tables (`core.rules.season`) as CSV files in a folder, or as one .xlsx workbook."""
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+__all__ = ["write_csv_tables", "write_workbook"]
+
+
+def write_csv_tables(tables: dict[str, list[dict[str, Any]]], folder: Path) -> list[Path]:
+    """One ``<table>.csv`` per table (UTF-8, header row), each written atomically; every cell guarded."""
+    from core.records.exchange import csv_table
+    from core.rules.season import TABLES
+    from core.store.atomic import atomic_write_bytes
+
+    folder.mkdir(parents=True, exist_ok=True)
+    written = []
+    for name, columns in TABLES.items():
+        path = folder / f"{name}.csv"
+        text = csv_table(columns, tables.get(name, []), name=path.name)
+        atomic_write_bytes(path, text.encode("utf-8"))
+        written.append(path)
+    return written
+
+
+def write_workbook(tables: dict[str, list[dict[str, Any]]], path: Path) -> Path:
+    """The same tables as sheets of one workbook; numbers stay numbers, text goes through the cell guard."""
+    import io
+
+    from openpyxl import Workbook
+
+    from core.records.exchange import spreadsheet_safe
+    from core.rules.season import TABLES
+    from core.store.atomic import atomic_write_bytes
+
+    wb = Workbook()
+    wb.remove(wb.active)
+    for name, columns in TABLES.items():
+        ws = wb.create_sheet(title=name)
+        ws.append([spreadsheet_safe(c, where=f"{path.name}, sheet {name}, header") for c in columns])
+        for i, row in enumerate(tables.get(name, []), start=2):
+            cells = []
+            for c in columns:
+                v = row.get(c)
+                if isinstance(v, (int, float)) and not isinstance(v, bool):
+                    cells.append(v)
+                else:
+                    cells.append(spreadsheet_safe(v, where=f"{path.name}, sheet {name}, row {i}, column {c}"))
+            ws.append(cells)
+        ws.freeze_panes = "A2"
+    buf = io.BytesIO()
+    wb.save(buf)
+    atomic_write_bytes(path, buf.getvalue())
+    return path
