@@ -24,7 +24,7 @@ from typing import Any, Callable, Iterable
 
 from core.store.atomic import canonical_json_bytes, content_hash
 from sync.archive.rows import COLUMNS, TRIP_TABLES, settings_row, site_row, trip_rows
-from sync.archive.schema import LATEST, MIGRATIONS
+from sync.archive.schema import LATEST, MIGRATIONS, STATS_SELECT
 
 __all__ = ["ArchiveError", "LoadReport", "connect", "describe", "migrate", "schema_version", "load",
            "season_summary", "ENV_DB"]
@@ -188,7 +188,66 @@ def _load_reference(conn, store: Any, report: LoadReport) -> None:  # noqa: ANN0
         if have_settings.get(settings.get("program") or "") != h:
             _upsert(conn, "settings", "program", [settings_row(settings, h)])
             report.settings_written = 1
+        if changed or report.settings_written:      # criteria may have moved: every visit again
+            with conn.cursor() as cur:
+                _recompute_stats(cur, None)
     report.sites_written = len(changed)
+
+
+# --- the season summary table ------------------------------------------------------------------------
+_NONE = (0, 0, None, 0, None)
+
+
+def _contributions(cur, trip_ids: list[str]) -> dict[tuple[str, int], tuple]:  # noqa: ANN001
+    cur.execute(STATS_SELECT.format(where="trip_id = ANY(%s)"), (trip_ids,))
+    return {(r[0], r[1]): tuple(r[2:]) for r in cur.fetchall()}
+
+
+def _recompute_stats(cur, pairs: list[tuple[str, int]] | None) -> None:  # noqa: ANN001
+    """Recomputes the summary rows of `pairs` (site, season) from the stops, or all of them."""
+    if pairs is None:
+        cur.execute("DELETE FROM site_season_stats")
+        cur.execute("INSERT INTO site_season_stats " + STATS_SELECT.format(where="true"))
+        return
+    for site, season in pairs:
+        cur.execute("DELETE FROM site_season_stats WHERE site_id = %s AND season = %s", (site, season))
+        cur.execute("INSERT INTO site_season_stats "
+                    + STATS_SELECT.format(where="site_id = %(site)s AND season = %(season)s"),
+                    {"site": site, "season": season})
+
+
+def _apply_stats(cur, old: dict, new: dict) -> None:  # noqa: ANN001
+    """Moves the summary from the rewritten trips' old contributions to their new ones."""
+    pairs = sorted(set(old) | set(new))
+    if not pairs:
+        return
+    cur.execute("SELECT site_id, season, visits, visits_with_do, min_do_mg_l, visits_below_criterion, "
+                "criterion_mg_l FROM site_season_stats WHERE (site_id, season) IN "
+                "(SELECT * FROM unnest(%s::text[], %s::int[]))",
+                ([p[0] for p in pairs], [p[1] for p in pairs]))
+    current = {(r[0], r[1]): tuple(r[2:]) for r in cur.fetchall()}
+    redo, rows, gone = [], [], []
+    for pair in pairs:
+        c, o, n = current.get(pair, _NONE), old.get(pair, _NONE), new.get(pair, _NONE)
+        if o[2] is not None and (c[2] is None or o[2] <= c[2]):
+            redo.append(pair)            # a rewritten trip held the minimum: count it again
+            continue
+        visits = c[0] - o[0] + n[0]
+        if visits <= 0:
+            gone.append(pair)
+            continue
+        low = min((v for v in (c[2], n[2]) if v is not None), default=None)
+        crit = n[4] if n[4] is not None else c[4]
+        rows.append((pair[0], pair[1], visits, c[1] - o[1] + n[1], low, c[3] - o[3] + n[3], crit))
+    for site, season in gone:
+        cur.execute("DELETE FROM site_season_stats WHERE site_id = %s AND season = %s", (site, season))
+    if rows:
+        cur.executemany("INSERT INTO site_season_stats VALUES (%s, %s, %s, %s, %s, %s, %s) "
+                        "ON CONFLICT (site_id, season) DO UPDATE SET visits = EXCLUDED.visits, "
+                        "visits_with_do = EXCLUDED.visits_with_do, min_do_mg_l = EXCLUDED.min_do_mg_l, "
+                        "visits_below_criterion = EXCLUDED.visits_below_criterion, "
+                        "criterion_mg_l = EXCLUDED.criterion_mg_l", rows)
+    _recompute_stats(cur, redo)
 
 
 def load(store: Any, db: str | None, *, progress: Progress | None = None, batch: int = BATCH) -> LoadReport:
@@ -224,10 +283,12 @@ def load(store: Any, db: str | None, *, progress: Progress | None = None, batch:
                 if not written:
                     continue
                 with conn.transaction(), conn.cursor() as cur:
+                    old = _contributions(cur, written)
                     cur.execute("DELETE FROM trips WHERE trip_id = ANY(%s)", (written,))
                     for table in TRIP_TABLES:
                         if tables[table]:
                             _copy(cur, table, tables[table])
+                    _apply_stats(cur, old, _contributions(cur, written))
                 report.loaded += len(written)
                 report.loaded_ids.extend(written)
                 if progress is not None:

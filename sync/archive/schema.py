@@ -18,18 +18,22 @@ Tables (one row per thing in the trip documents; every trip's rows hang off ``tr
 ``custody``         chain-of-custody entries of a bottle, when the trip records them
 ``flags``           QC flags of stops, calibrations and results (code, severity, message, action)
 ``review_events``   the office's review steps (who, when, action, comment, reasons)
+``site_season_stats`` per site and season: visits, visits with DO, minimum DO, visits below the
+                    criterion; kept up to date by every load (not aggregated on each question)
 ==================  ==============================================================================
 
 Views: ``stops_with_site`` (stops, their site and trip, flag codes and the worst severity),
-``results_as_reported`` (current lab results with site and stop), ``site_season_summary`` (per
-site and season: visits, minimum DO, visits below the site's DO criterion).
+``results_as_reported`` (current lab results with site and stop), ``stop_criterion`` (each visit
+with the DO criterion it is judged against: the site's own minimum, else the program's warm- or
+cold-water minimum), ``site_season_summary`` (per site and season: visits, minimum DO, visits below
+the criterion; read from ``site_season_stats``).
 
 A migration that adds rows derived from the documents clears ``trips.content_hash``, so the next
 ``archive load`` rewrites every trip's rows under the new schema.
 """
 from __future__ import annotations
 
-__all__ = ["MIGRATIONS", "LATEST"]
+__all__ = ["MIGRATIONS", "LATEST", "STATS_SELECT"]
 
 _V1 = """
 CREATE TABLE archive_schema (
@@ -250,10 +254,55 @@ LEFT JOIN sites si ON si.site_id = v.site_id
 GROUP BY v.site_id, si.name, v.season;
 """
 
+# The season summary is kept in a table, not aggregated from every stop on each question: each
+# load adds and subtracts the contributions of the trips it rewrites (sync.archive); the minimum
+# is recomputed for a site and season only when a rewritten trip held it, and everything is
+# recomputed when sites or settings change. STATS_SELECT is the one aggregate all of them use.
+STATS_SELECT = """
+SELECT site_id, season, count(*) AS visits, count(do_mg_l) AS visits_with_do, min(do_mg_l) AS min_do_mg_l,
+       count(*) FILTER (WHERE do_mg_l < criterion_mg_l) AS visits_below_criterion,
+       min(criterion_mg_l) AS criterion_mg_l
+FROM stop_criterion WHERE {where} GROUP BY site_id, season
+"""
+
+_V4 = """
+CREATE VIEW stop_criterion AS
+WITH program AS (
+    SELECT warm_min_mg_l, cold_min_mg_l FROM settings ORDER BY program LIMIT 1
+)
+SELECT s.trip_id, s.stop_id, s.site_id, s.season, s.do_mg_l,
+       COALESCE(si.min_do_mg_l,
+                CASE WHEN si.water_class = 'cold' THEN p.cold_min_mg_l ELSE p.warm_min_mg_l END)
+           AS criterion_mg_l
+FROM stops s
+LEFT JOIN sites si ON si.site_id = s.site_id
+LEFT JOIN program p ON true;
+
+CREATE TABLE site_season_stats (
+    site_id                 text NOT NULL,
+    season                  integer NOT NULL,
+    visits                  integer NOT NULL,
+    visits_with_do          integer NOT NULL,
+    min_do_mg_l             double precision,
+    visits_below_criterion  integer NOT NULL,
+    criterion_mg_l          double precision,
+    PRIMARY KEY (site_id, season)
+);
+INSERT INTO site_season_stats """ + STATS_SELECT.format(where="true") + """;
+
+DROP VIEW site_season_summary;
+CREATE VIEW site_season_summary AS
+SELECT st.site_id, si.name AS site_name, st.season, st.visits, st.visits_with_do, st.min_do_mg_l,
+       st.visits_below_criterion, st.criterion_mg_l
+FROM site_season_stats st
+LEFT JOIN sites si ON si.site_id = st.site_id;
+"""
+
 #: (version, description, SQL), applied in order, each in its own transaction.
 MIGRATIONS: list[tuple[int, str, str]] = [
     (1, "trips, stops, bottles, results, calibrations, flags, sites, settings", _V1),
     (2, "review events, custody, trips.review_state", _V2),
     (3, "views: stops_with_site, results_as_reported, site_season_summary", _V3),
+    (4, "site_season_stats kept by each load; site_season_summary reads it", _V4),
 ]
 LATEST = MIGRATIONS[-1][0]

@@ -264,3 +264,43 @@ def test_custody_hand_offs_are_archived_per_bottle(tmp_path, db):
     archive.load(store, db)
     assert _rows(db, "SELECT bottle_id, by_name, to_name, action, notes FROM custody ORDER BY bottle_id") == [
         (b, "R.O.", "Lab desk (demo)", "received at the lab", "intact, on ice") for b in sorted(bottles)]
+
+
+def test_the_kept_season_summary_equals_a_fresh_count(tmp_path, db):
+    """After loads that move the minimum, empty a site and change a criterion, the summary kept
+    by the loads equals the same aggregate computed from every stop (common practice)."""
+    from core.records.models import Site
+    from sync.archive.schema import STATS_SELECT
+
+    store = open_store(tmp_path / "office", "office-1")
+    trips = [new_trip(store, day=d, stops=3) for d in (3, 4, 5)]
+    archive.load(store, db)
+
+    def fresh() -> list:
+        return sorted(_rows(db, STATS_SELECT.format(where="true")))
+
+    def kept() -> list:
+        return sorted(_rows(db, "SELECT site_id, season, visits, visits_with_do, min_do_mg_l, "
+                                "visits_below_criterion, criterion_mg_l FROM site_season_stats"))
+    assert kept() == fresh() and len(kept()) == 3
+    # the lowest DO goes down, then back up (the trip holding the minimum is rewritten)
+    from core.records.models import measure
+    for text in ("3.1 mg/L", "8.8 mg/L"):
+        trip = store.load_trip(trips[1].id)
+        stops = list(trip.stops)
+        stops[0] = stops[0].model_copy(update={"do": measure("do", text)})
+        store.save_trip(trip.model_copy(update={"stops": stops}), "DO corrected")
+        archive.load(store, db)
+        assert kept() == fresh()
+    assert min(r[4] for r in kept()) == 8.8           # 3.1 is gone: the minimum was counted again
+    # a stop moved to another site empties nothing but shifts counts; a stricter site criterion
+    trip = store.load_trip(trips[2].id)
+    stops = [s.model_copy(update={"site_id": "LK-01"}) for s in trip.stops]
+    store.save_trip(trip.model_copy(update={"stops": stops}), "sites corrected")
+    site = store.sites_by_id()["LK-01"]
+    store.save_sites([site.model_copy(update={"min_do_mg_l": 9.5})])
+    report = archive.load(store, db)
+    assert report.sites_written == 1
+    assert kept() == fresh()
+    lk1 = [r for r in kept() if r[0] == "LK-01"][0]
+    assert (lk1[2], lk1[5], lk1[6]) == (5, 5, 9.5)    # 3 + 2 visits, all below 9.5 mg/L
