@@ -21,7 +21,7 @@ from __future__ import annotations
 from datetime import datetime, timezone
 from typing import Any, Iterable
 
-__all__ = ["STATES", "ACTIONS", "review_state", "latest_event", "open_reasons", "ReviewRefused",
+__all__ = ["STATES", "ACTIONS", "review_state", "latest_event", "open_reasons", "ReviewRefused", "describe",
            "new_event", "check_change", "approved_version", "REVIEW_KEY"]
 
 #: Every state a trip can be in, in workflow order.
@@ -89,6 +89,22 @@ def open_reasons(trip: Any) -> list[str]:
     if ev is None or _get(ev, "action") != "returned" or not _get(trip, "ended_at"):
         return []
     return list(_get(ev, "reasons") or [])
+
+
+def describe(trip: Any) -> str:
+    """The review state in words for reports and lists, e.g. "approved by D.M. on 2026-07-02"."""
+    state = review_state(trip)
+    ev = latest_event(trip)
+    if ev is None or state in ("in progress",):
+        return {"in progress": "in progress (not ended by the crew)", "ended": "ended, not reviewed yet"}[state]
+    at = _get(ev, "at")
+    day = (at.isoformat() if isinstance(at, datetime) else str(at or ""))[:10]
+    text = f"{state} by {_get(ev, 'by')} on {day}"
+    if state == "returned" and open_reasons(trip):
+        text += ": " + "; ".join(open_reasons(trip))
+    elif _get(ev, "comment"):
+        text += f" ({_get(ev, 'comment')})"
+    return text
 
 
 def _content(doc: dict) -> dict:

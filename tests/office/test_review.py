@@ -137,3 +137,29 @@ def test_review_cli(tmp_path, cli):
     assert [e["action"] for e in shown["events"]] == ["returned", "resubmitted", "approved"]
     r = cli("review", "list", "--json", data_dir=d)
     assert {x["id"]: x["state"] for x in json.loads(r.stdout)} == {trip.id: "approved", open_trip.id: "in progress"}
+
+
+def test_exports_and_reports_say_the_review_state(tmp_path, cli):
+    """The season export carries each trip's state and can take only approved trips; the trip
+    report names the last review step."""
+    import csv
+
+    from core.rules.review import describe
+
+    store = open_store(tmp_path / "office", "office-1")
+    done = _end(store, new_trip(store, day=3, stops=1))
+    _step(store, done.id, "approved", T0, comment="checked")
+    other = _end(store, new_trip(store, day=4, stops=1))
+    assert describe(store.load_trip(done.id)).startswith("approved by D.M. on 2026-07-01")
+    assert describe(store.load_trip(other.id)) == "ended, not reviewed yet"
+    out = tmp_path / "season"
+    r = cli("export", "season", "--out", str(out), "--state", "approved", data_dir=tmp_path / "office")
+    assert r.returncode == 0, r.stderr
+    rows = list(csv.DictReader((out / "stops.csv").open(encoding="utf-8")))
+    assert {row["trip_id"] for row in rows} == {done.id}
+    assert {row["review_state"] for row in rows} == {"approved"}
+    r = cli("export", "season", "--out", str(tmp_path / "all"), data_dir=tmp_path / "office")
+    rows = list(csv.DictReader((tmp_path / "all" / "stops.csv").open(encoding="utf-8")))
+    assert {row["trip_id"]: row["review_state"] for row in rows} == {done.id: "approved", other.id: "ended"}
+    r = cli("export", "season", "--out", str(tmp_path / "x"), "--state", "done", data_dir=tmp_path / "office")
+    assert r.returncode == 2 and "--state" in r.stderr
