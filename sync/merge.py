@@ -27,7 +27,8 @@ from __future__ import annotations
 import json
 import uuid
 from dataclasses import dataclass, field
-from typing import Any, Iterable
+from typing import Any
+from collections.abc import Iterable
 
 from core.store.atomic import content_hash
 
@@ -95,7 +96,7 @@ def _atomic(value: dict) -> bool:
     return {"text", "value", "unit"} <= value.keys()
 
 
-def _hint(elem: dict) -> str:
+def _hint(elem: Any) -> str:
     for key in _HINT_KEYS:
         v = elem.get(key)
         if isinstance(v, str) and v:

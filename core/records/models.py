@@ -5,13 +5,11 @@ import json
 import math
 import re
 import uuid
-from datetime import datetime
 from pathlib import Path
 from typing import Any, Literal
 
 from core.science._validate import ambiguous_comma
-from pydantic import (AwareDatetime, BaseModel, ConfigDict, Field, ValidationError,
-                      field_validator, model_serializer, model_validator)
+from pydantic import (AwareDatetime, BaseModel, ConfigDict, Field, field_validator, model_serializer, model_validator)
 from pydantic_core import PydanticCustomError
 
 __all__ = [
@@ -146,7 +144,7 @@ class FlagRecord(_Record):
     field: str | None = None
 
     @classmethod
-    def from_flag(cls, flag: Any) -> "FlagRecord":
+    def from_flag(cls, flag: Any) -> FlagRecord:
         sev = getattr(flag.severity, "value", flag.severity)
         return cls(code=flag.code, severity=sev, message=flag.message, action=flag.action or "",
                    field=flag.field)
@@ -192,7 +190,7 @@ def _check_quantity(q: Quantity | None, kind: str, units: tuple[str, ...]) -> Qu
     key = kind
     if kind == "do":
         key = "do_percent" if q.unit == "%" else "do_mg_l"
-    low, high, unit = LIMITS[key]
+    low, high, _unit = LIMITS[key]
     if not (low <= q.value <= high):
         raise _range_error(key, kind, q.value, q.unit)
     return q
@@ -225,7 +223,7 @@ class Site(_Record):
 
     @field_validator("elevation_m")
     @classmethod
-    def _elev(cls, v: float) -> float:
+    def _elev(cls, v: float | None) -> float | None:
         return _check_range(v, "elevation")
 
     @field_validator("latitude")
@@ -271,22 +269,22 @@ class Calibration(_Record):
 
     @field_validator("temp")
     @classmethod
-    def _t(cls, v: Quantity) -> Quantity:
+    def _t(cls, v: Quantity | None) -> Quantity | None:
         return _check_quantity(v, "temp", ("°C",))
 
     @field_validator("pressure")
     @classmethod
-    def _p(cls, v: Quantity) -> Quantity:
+    def _p(cls, v: Quantity | None) -> Quantity | None:
         return _check_quantity(v, "pressure", ("hPa",))
 
     @field_validator("reading_mg_l")
     @classmethod
-    def _r(cls, v: float) -> float:
+    def _r(cls, v: float | None) -> float | None:
         return _check_range(v, "calibration_reading")
 
     @field_validator("tolerance_mg_l")
     @classmethod
-    def _tol(cls, v: float) -> float:
+    def _tol(cls, v: float | None) -> float | None:
         return _check_range(v, "tolerance")
 
 
@@ -573,7 +571,7 @@ class Trip(_Record):
         return self.__pydantic_extra__ if self.__pydantic_extra__ is not None else {}
 
     @model_validator(mode="after")
-    def _ended_after_start(self) -> "Trip":
+    def _ended_after_start(self) -> Trip:
         if self.ended_at is not None and self.ended_at < self.started_at:
             raise PydanticCustomError("time.end_before_start", "ended before it started",
                                       {"field": "ended_at"})
@@ -601,7 +599,7 @@ class Trip(_Record):
         return self.model_dump(mode="json")
 
     @classmethod
-    def from_document(cls, doc: dict[str, Any]) -> "Trip":
+    def from_document(cls, doc: dict[str, Any]) -> Trip:
         """Validates a JSON document (current schema version) strictly, as JSON text would be."""
         from core.store.atomic import canonical_json_bytes
 

@@ -32,7 +32,8 @@ from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any, Callable, Iterator
+from typing import Any
+from collections.abc import Callable, Iterator
 
 from filelock import FileLock, Timeout
 from pydantic import ValidationError
@@ -318,6 +319,7 @@ class DeviceStore:
         self._lock = FileLock(str(self.data_dir / ".lock"), timeout=lock_timeout_s)
         self._tlock = threading.RLock()
         self._sites_cache: tuple[tuple[int, int], dict[str, Site]] | None = None
+        self._finalizer: Any = None     # in_memory(): removes the temporary folder with the store
         self._settings_cache: tuple[tuple[int, int], ProgramSettings] | None = None
         self._cache: dict[str, tuple[bytes, bytes, dict[str, Any]]] = {}
         self._bases: tuple[Any, dict[str, str]] = (None, {})
@@ -328,7 +330,7 @@ class DeviceStore:
     # -- opening ---------------------------------------------------------------------------
     @classmethod
     def open(cls, data_dir: Path | str | None = None, device_id: str | None = None, *,
-             clock: Callable[[], datetime] | None = None, lock_timeout_s: float = 5.0) -> "DeviceStore":
+             clock: Callable[[], datetime] | None = None, lock_timeout_s: float = 5.0) -> DeviceStore:
         """Opens (creating if needed) the store at `data_dir` (else $STREAMTAB_DATA, else the user folder).
 
         Leftover temporary files from an interrupted write are removed and the index is brought
@@ -351,7 +353,7 @@ class DeviceStore:
         return store
 
     @classmethod
-    def in_memory(cls, device_id: str | None = None, **kwargs: Any) -> "DeviceStore":
+    def in_memory(cls, device_id: str | None = None, **kwargs: Any) -> DeviceStore:
         """The same store (same save path, same files) in a RAM-backed scratch folder, for fast tests.
 
         Uses /dev/shm when it is there (else the system temporary folder); the folder is removed
@@ -848,7 +850,7 @@ class DeviceStore:
         (the trip file and its folder) instead of four."""
         summary = _summary_of(doc, digest)
         if key is not None:
-            self._summaries[doc["id"]] = (tuple(key), summary)
+            self._summaries[doc["id"]] = (key, summary)
         data = canonical_json_bytes({"summary": summary.to_dict(), "file": list(key) if key else None})
         try:
             _replace_unsynced(self._index_dir / f"{doc['id']}.json", data)

@@ -238,10 +238,32 @@ def _read_dilutions(path_text: str) -> tuple[Any, Any]:
     return doc, controls
 
 
+def _read_sheet(path_text: str, bottle: str) -> tuple[Any, Any]:
+    from core.rules.bench import SheetError, read_bench_sheet
+
+    path = Path(path_text)
+    try:
+        raw = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        fail(f"--sheet {path_text!r} does not exist; accepted: a bench sheet CSV (see 'streamtab lab sheet')")
+    except (OSError, UnicodeDecodeError) as exc:
+        fail(f"--sheet {path_text!r} cannot be read ({type(exc).__name__}); accepted: a readable UTF-8 CSV file")
+    try:
+        sheet = read_bench_sheet(raw, bottle=bottle, name=f"--sheet {path.name}")
+    except SheetError as exc:
+        fail(str(exc))
+    return sheet.dilutions, (sheet.seed_controls or None)
+
+
 def _bod(args) -> int:  # noqa: ANN001
     from core.rules.lab import LabInputError, record_bod
 
-    dilutions, controls = _read_dilutions(args.dilutions)
+    if (args.dilutions is None) == (args.sheet is None):
+        fail("give the dilutions as --sheet FILE.csv (a bench sheet) or --dilutions FILE.json, one of the two")
+    if args.sheet is not None:
+        dilutions, controls = _read_sheet(args.sheet, args.bottle)
+    else:
+        dilutions, controls = _read_dilutions(args.dilutions)
     mg = ("mg/L", "mg/l")
     blank = _number(args.blank_depletion, "--blank-depletion", "dilution-water blank depletion in mg/L"
                                                                " (≤ 0.20 passes)", mg)
@@ -254,7 +276,9 @@ def _bod(args) -> int:  # noqa: ANN001
     store = _store(args)
     settings = _settings(args, store)
     trip = _trip(store, args.trip)
-    entered: dict[str, Any] = {"dilutions_file": Path(args.dilutions).name, "dilutions": dilutions}
+    source = ({"sheet_file": Path(args.sheet).name} if args.sheet is not None
+              else {"dilutions_file": Path(args.dilutions).name})
+    entered: dict[str, Any] = {**source, "dilutions": dilutions}
     for key, value in (("seed_controls", controls), ("blank_depletion", args.blank_depletion), ("gga", args.gga),
                        ("incubator_temp", args.incubator_temp), ("incubation_start", args.incubation_start),
                        ("incubation_end", args.incubation_end)):
@@ -291,6 +315,54 @@ def _bod(args) -> int:  # noqa: ANN001
     rows += _flag_rows(data["flags"])
     rows.append(("result id", out.result.id))
     emit_table(rows)
+    return 0
+
+
+def _sheet(args) -> int:  # noqa: ANN001
+    """A blank bench sheet: PDF to print, or CSV to fill in and read back with 'lab bod --sheet'."""
+    from core.rules.lab import BOD_ANALYTE, LabInputError, pending_bottles
+    from core.store.atomic import atomic_write_bytes
+
+    out = Path(args.out)
+    suffix = out.suffix.lower()
+    if suffix not in (".pdf", ".csv"):
+        fail(f"--out {args.out!r} must end in .pdf or .csv; accepted: e.g. bench-sheet.pdf")
+    if not out.parent.exists():
+        fail(f"--out {args.out!r}: the folder {str(out.parent)!r} does not exist; accepted: a file in an existing"
+             " folder")
+    rows = int(_number(args.rows, "--rows", "a whole number of rows, 1 to 200") or 0) if args.rows else 18
+    if not 1 <= rows <= 200:
+        fail(f"--rows {args.rows!r} is out of range; accepted: 1 to 200")
+    now = datetime.now(timezone.utc)
+    labels: list[str] = []
+    program = ""
+    if args.trip:
+        store = _store(args)
+        trip = _trip(store, args.trip)
+        program = trip.program
+        try:
+            waiting = pending_bottles([trip], now, _settings(args, store))
+        except LabInputError as exc:
+            raise _lab_error(exc) from None
+        labels = [p.label for p in waiting if p.analyte == BOD_ANALYTE]
+    if suffix == ".pdf":
+        from mobile.paper.bench_pdf import render_bench_sheet
+
+        data = render_bench_sheet(labels, rows=rows, printed_at=now, program=program)
+    else:
+        from core.rules.bench import DILUTION, SEED_CONTROL, write_bench_sheet
+
+        body = [{"bottle": label, "kind": DILUTION, "bottle_ml": 300} for label in labels for _ in range(3)]
+        body += [{"kind": SEED_CONTROL, "bottle_ml": 300} for _ in range(3)]
+        data = write_bench_sheet(body, name=out.name).encode("utf-8")
+    try:
+        atomic_write_bytes(out, data)
+    except OSError as exc:
+        fail(f"--out {args.out!r} could not be written ({exc.strerror or exc}); accepted: a writable file")
+    if args.json:
+        emit_json({"out": str(out), "bottles": labels, "bytes": len(data)})
+    else:
+        sys.stdout.write(f"wrote {out}" + (f" with bottles {', '.join(labels)}" if labels else "") + "\n")
     return 0
 
 
@@ -443,10 +515,14 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     p.set_defaults(handler=_winkler)
 
     p = lab_sub.add_parser("bod", help="record a BOD5 result from a dilution series on a bottle",
-                           description="BOD5, Standard Methods 5210 B, from a JSON file of dilutions (the same layout"
-                                       " as 'streamtab bod --dilutions').")
+                           description="BOD5, Standard Methods 5210 B, from a bench sheet CSV (--sheet; a blank one"
+                                       " from 'streamtab lab sheet') or a JSON file of dilutions (--dilutions, the"
+                                       " layout of 'streamtab bod --dilutions').")
     _bench(p)
-    p.add_argument("--dilutions", metavar="FILE", required=True,
+    p.add_argument("--sheet", metavar="FILE.csv",
+                   help="the bench sheet: one row per dilution (bottle, kind, sample_ml, bottle_ml, seed_ml,"
+                        " initial_do_mg_l, final_do_mg_l); the bottle's rows and every seed control are taken")
+    p.add_argument("--dilutions", metavar="FILE",
                    help="JSON: a list of {initial_do_mg_l, final_do_mg_l, sample_ml[, bottle_ml, seed_ml,"
                         " seed_uptake_mg_l_per_ml]} or an object with dilutions and seed_controls")
     p.add_argument("--blank-depletion", metavar="MG_L", help="dilution-water blank depletion, mg/L")
@@ -456,6 +532,16 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     p.add_argument("--incubator-temp", metavar="C", help="incubator temperature, °C")
     _common(p)
     p.set_defaults(handler=_bod)
+
+    p = lab_sub.add_parser("sheet", help="a blank BOD bench sheet to print (.pdf) or fill in (.csv)",
+                           description="A bench sheet with the batch QC boxes and one row per dilution. With"
+                                       " --trip, the trip's BOD bottles still waiting are printed in it. The CSV"
+                                       " has the columns 'streamtab lab bod --sheet' reads.")
+    p.add_argument("--out", metavar="FILE", required=True, help="FILE.pdf (to print) or FILE.csv (to fill in)")
+    p.add_argument("--trip", metavar="TRIP_ID", help="pre-fill the BOD bottles of this trip still waiting")
+    p.add_argument("--rows", metavar="N", help="dilution rows on the printed sheet (default 18)")
+    _common(p)
+    p.set_defaults(handler=_sheet)
 
     p = lab_sub.add_parser("duplicates", help="field duplicates against their bottles (relative percent difference)")
     p.add_argument("trip", metavar="TRIP_ID", help="trip id, or its first 8 characters")

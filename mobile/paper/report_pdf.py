@@ -113,7 +113,8 @@ class Sheet:
             pdf.multi_cell(0, 4.8, value, new_x="LMARGIN", new_y="NEXT")
 
     def table(self, headings: list[str], rows: list[list[str]], widths: list[float], *,
-              size: float = 7.5, muted: set[int] | None = None, align: list[str] | None = None) -> None:
+              size: float = 7.5, muted: set[int] | None = None, align: list[str] | None = None,
+              row_h: float | None = None) -> None:
         """A ruled table; rows whose index is in `muted` print in grey italics (superseded results)."""
         from fpdf.fonts import FontFace
 
@@ -125,7 +126,7 @@ class Sheet:
         total = sum(widths)
         cols = tuple(w * self.width / total for w in widths)
         head = FontFace(emphasis="BOLD", fill_color=HEAD_FILL)
-        with pdf.table(col_widths=cols, width=self.width, line_height=size * 0.5, headings_style=head,
+        with pdf.table(col_widths=cols, width=self.width, line_height=row_h or size * 0.5, headings_style=head,
                        text_align=tuple(align) if align else "LEFT", borders_layout="HORIZONTAL_LINES",
                        padding=(0.8, 1.0), repeat_headings=1) as t:
             r = t.row()
