@@ -48,7 +48,7 @@ REWALK_AFTER_S = 24 * 3600
 FOLDER_SETTLE_S = 2.0
 #: At most this many entries read per device per pull before a walk is cheaper.
 MAX_ENTRIES_PER_PULL = 2000
-_NAME_RE = re.compile(r"^e(\d{8,})-([0-9a-f]{%d})\.json$" % HASH_HEX)
+_NAME_RE = re.compile(rf"^e(\d{{8,}})-([0-9a-f]{{{HASH_HEX}}})\.json$")
 _DEVICE_RE = re.compile(r"^[0-9a-f]{12}$")
 
 
@@ -104,7 +104,7 @@ class LogState:
     walked_at: float | None = None    # time.time() of the last full listing on this device
 
     @classmethod
-    def load(cls, folder: Path) -> "LogState":
+    def load(cls, folder: Path) -> LogState:
         path = Path(folder) / "changelog.json"
         state = cls(path)
         try:
@@ -168,7 +168,8 @@ def read_changes(tgt: Any, state: LogState, own: str, max_bytes: int, *,
             continue
         names, listed_at = tgt.log_list(dev)
         seen = set(known.seen) if known else set()
-        new = sorted((parse_name(n), n) for n in names if n not in seen and parse_name(n) is not None)
+        new: list[tuple[int, str]] = sorted((seq, n) for n in names if n not in seen
+                                            and (seq := parse_name(n)) is not None)
         top = max((parse_name(n) or 0 for n in seen), default=0)
         want = set(range(top + 1, max((s for s, _ in new), default=top) + 1))
         if not want <= {s for s, _ in new}:

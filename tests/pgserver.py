@@ -81,7 +81,7 @@ class PgServer:
                               text=True, timeout=timeout, **self._as)
 
     # -- life cycle ----------------------------------------------------------------------------
-    def start(self) -> "PgServer":
+    def start(self) -> PgServer:
         self.root = Path(tempfile.mkdtemp(prefix="streamtab-pg-"))
         if os.geteuid() == 0:
             pw = _ensure_user()
@@ -120,7 +120,7 @@ class PgServer:
         shutil.rmtree(self.root, ignore_errors=True)
         self.root = None
 
-    def __enter__(self) -> "PgServer":
+    def __enter__(self) -> PgServer:
         return self.start()
 
     def __exit__(self, *exc: object) -> None:

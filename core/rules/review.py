@@ -19,7 +19,8 @@ two offices' steps merge like any other list element (``sync.merge``); the lates
 from __future__ import annotations
 
 from datetime import datetime, timezone
-from typing import Any, Iterable
+from typing import Any
+from collections.abc import Iterable
 
 __all__ = ["STATES", "ACTIONS", "review_state", "latest_event", "open_reasons", "ReviewRefused", "describe",
            "new_event", "check_change", "approved_version", "REVIEW_KEY"]

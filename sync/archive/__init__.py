@@ -20,9 +20,10 @@ import os
 import stat
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
-from typing import Any, Callable, Iterable
+from typing import Any
+from collections.abc import Callable, Iterable
 
-from core.store.atomic import canonical_json_bytes, content_hash
+from core.store.atomic import content_hash
 from sync.archive.rows import COLUMNS, TRIP_TABLES, settings_row, site_row, trip_rows
 from sync.archive.schema import LATEST, MIGRATIONS, STATS_SELECT
 
@@ -59,11 +60,12 @@ class LoadReport:
 
 # --- connections ---------------------------------------------------------------------------------
 def _conninfo_dict(db: str) -> dict[str, str]:
+    import psycopg
     from psycopg.conninfo import conninfo_to_dict
 
     try:
         return {k: str(v) for k, v in conninfo_to_dict(db).items()}
-    except Exception:  # psycopg.ProgrammingError; its text may quote the string, so it is not shown
+    except (ValueError, TypeError, psycopg.Error):  # its text may quote the string: not shown
         raise ArchiveError("--db is not a PostgreSQL connection URL or key=value string; accepted: "
                            "postgresql://USER@HOST/DBNAME or 'host=... dbname=...'") from None
 
@@ -159,7 +161,7 @@ def _copy(cur, table: str, rows: Iterable[tuple]) -> None:  # noqa: ANN001
 
 
 def _upsert(conn, table: str, key: str, rows: list[tuple]) -> None:  # noqa: ANN001
-    cols = [c for c in _SIMPLE_COLUMNS[table]]
+    cols = list(_SIMPLE_COLUMNS[table])
     sets = ", ".join(f"{c} = EXCLUDED.{c}" for c in cols if c != key)
     sql = (f"INSERT INTO {table} ({', '.join(cols)}) VALUES ({', '.join(['%s'] * len(cols))}) "
            f"ON CONFLICT ({key}) DO UPDATE SET {sets}")
@@ -332,4 +334,4 @@ def season_summary(db: str | None, *, season: int | None = None, site: str | Non
     finally:
         if own:
             conn.close()
-    return [dict(zip(SUMMARY_COLUMNS, r)) for r in rows]
+    return [dict(zip(SUMMARY_COLUMNS, r, strict=True)) for r in rows]

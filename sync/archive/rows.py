@@ -5,7 +5,8 @@ The column order of each table is given once here (`COLUMNS`) and used by the lo
 from __future__ import annotations
 
 import json
-from typing import Any, Iterator
+from typing import Any
+from collections.abc import Iterator
 
 from core.rules.review import review_state
 
@@ -37,6 +38,10 @@ COLUMNS: dict[str, tuple[str, ...]] = {
 TRIP_TABLES = ("trips", "stops", "bottles", "results", "calibrations", "flags", "review_events", "custody")
 
 
+def _dict(value: Any) -> dict:
+    return value if isinstance(value, dict) else {}
+
+
 def season_of(started_at: str) -> int:
     """The season of a trip: the year of its start as written (the crew's local date)."""
     return int(str(started_at)[:4])
@@ -57,7 +62,7 @@ def _flag_rows(tid: str, kind: str, owner: str, flags: Any) -> Iterator[tuple]:
 
 def result_status(result: dict) -> str:
     """reported (the current value), superseded (a re-analysis replaced it), invalid, or pending."""
-    inputs = result.get("inputs") if isinstance(result.get("inputs"), dict) else {}
+    inputs = _dict(result.get("inputs"))
     if inputs.get("superseded_by"):
         return "superseded"
     if result.get("valid") is False:
@@ -69,7 +74,7 @@ def result_status(result: dict) -> str:
 
 def _qualifier(result: dict) -> str:
     """The result's qualifier as the lab gave it, else the codes of its lab flags (';'-joined)."""
-    inputs = result.get("inputs") if isinstance(result.get("inputs"), dict) else {}
+    inputs = _dict(result.get("inputs"))
     for source in (result, inputs):
         q = source.get("qualifier")
         if isinstance(q, str) and q.strip():
@@ -94,7 +99,7 @@ def trip_rows(doc: dict, content_hash: str) -> dict[str, list[tuple]]:
                          open_conflicts, doc.get("updated_at"), review_state(doc), _jsonb(doc)))
     for pos, stop in enumerate(doc.get("stops") or []):
         sid = str(stop["id"])
-        d = stop.get("derived") if isinstance(stop.get("derived"), dict) else {}
+        d = _dict(stop.get("derived"))
         out["stops"].append((
             tid, sid, pos, stop.get("site_id"), season, stop.get("arrived_at"), stop.get("closed_at"),
             *_quantity(stop.get("temp")), *_quantity(stop.get("pressure")),
@@ -110,7 +115,7 @@ def trip_rows(doc: dict, content_hash: str) -> dict[str, list[tuple]]:
                                    bottle.get("collected_at"), bottle.get("fixed_at"),
                                    bottle.get("preservation") or "", bottle.get("notes") or ""))
             for r in bottle.get("lab_results") or []:
-                inputs = r.get("inputs") if isinstance(r.get("inputs"), dict) else {}
+                inputs = _dict(r.get("inputs"))
                 out["results"].append((tid, sid, bid, str(r["id"]), r.get("analyte") or "", r.get("value"),
                                        r.get("unit") or "", _qualifier(r), result_status(r),
                                        r.get("analysed_at"), r.get("analyst") or "", r.get("method") or "",
@@ -121,8 +126,8 @@ def trip_rows(doc: dict, content_hash: str) -> dict[str, list[tuple]]:
         if not isinstance(cal, dict):
             continue
         cid = str(cal.get("id") or key)
-        t = cal.get("temp") if isinstance(cal.get("temp"), dict) else {}
-        p = cal.get("pressure") if isinstance(cal.get("pressure"), dict) else {}
+        t = _dict(cal.get("temp"))
+        p = _dict(cal.get("pressure"))
         out["calibrations"].append((tid, cid, cal.get("kind") or key, cal.get("at"),
                                     t.get("text"), t.get("value"), t.get("unit"),
                                     p.get("text"), p.get("value"), p.get("unit"),

@@ -47,7 +47,7 @@ def test_every_part_of_a_trip_becomes_rows(tmp_path, db):
                           "do_text, do_value, do_unit, do_sat_mg_l, percent_saturation "
                           "FROM stops WHERE trip_id = %s ORDER BY position", s.id)
         assert len(stops) == len(doc["stops"])
-        for row, stop in zip(stops, doc["stops"]):
+        for row, stop in zip(stops, doc["stops"], strict=True):
             t = stop.get("temp") or {}
             d = stop.get("do") or {}
             der = stop.get("derived") or {}
@@ -269,7 +269,6 @@ def test_custody_hand_offs_are_archived_per_bottle(tmp_path, db):
 def test_the_kept_season_summary_equals_a_fresh_count(tmp_path, db):
     """After loads that move the minimum, empty a site and change a criterion, the summary kept
     by the loads equals the same aggregate computed from every stop (common practice)."""
-    from core.records.models import Site
     from sync.archive.schema import STATS_SELECT
 
     store = open_store(tmp_path / "office", "office-1")
@@ -302,5 +301,5 @@ def test_the_kept_season_summary_equals_a_fresh_count(tmp_path, db):
     report = archive.load(store, db)
     assert report.sites_written == 1
     assert kept() == fresh()
-    lk1 = [r for r in kept() if r[0] == "LK-01"][0]
+    lk1 = next(r for r in kept() if r[0] == "LK-01")
     assert (lk1[2], lk1[5], lk1[6]) == (5, 5, 9.5)    # 3 + 2 visits, all below 9.5 mg/L

@@ -163,3 +163,19 @@ def test_exports_and_reports_say_the_review_state(tmp_path, cli):
     assert {row["trip_id"]: row["review_state"] for row in rows} == {done.id: "approved", other.id: "ended"}
     r = cli("export", "season", "--out", str(tmp_path / "x"), "--state", "done", data_dir=tmp_path / "office")
     assert r.returncode == 2 and "--state" in r.stderr
+
+
+def test_the_app_lists_a_returned_trip_first_with_the_reasons(tmp_path):
+    """The tablet's trips screen (its controller, without a window) shows what the office asked."""
+    from mobile.app.controller import AppController
+
+    store = open_store(tmp_path / "tablet", "tablet-A")
+    first = _end(store, new_trip(store, day=3, stops=1))
+    later = _end(store, new_trip(store, day=9, stops=1))
+    _step(store, first.id, "returned", T0, reasons=["stop 1: DO reading has no unit", "post-trip check missing"])
+    _step(store, later.id, "approved", T0)
+    lines = AppController(store).trip_lines()
+    assert [ln.id for ln in lines] == [first.id, later.id]      # returned first, though older
+    assert lines[0].status == "returned by the office"
+    assert "stop 1: DO reading has no unit; post-trip check missing" in lines[0].detail
+    assert lines[1].status == "approved"
