@@ -408,8 +408,8 @@ def _clean_incoming(tgt: Target, session: Session, outbox: Outbox) -> None:
 def _flush(outbox: Outbox) -> None:
     try:
         outbox.flush()
-    except OSError:   # only a cache: the per-trip files are the record
-        log.warning("could not rewrite the outbox manifest", exc_info=True)
+    except OSError as exc:   # only a cache: the per-trip files are the record
+        log.info("could not rewrite the outbox manifest (%s)", exc.strerror or exc)
 
 
 def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: str) -> TripResult:
@@ -457,7 +457,7 @@ def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
                 except (errors.BadHubDocument, errors.IntegrityError, errors.Gone) as exc:
                     # not marked seen: read again at the next sync (a cut read is retried inside
                     # `read`; what stays wrong is reported here, never dropped silently)
-                    log.warning("push: skipping a hub file: %s", exc)
+                    log.info("push: skipping a hub file: %s", exc)
                     notes.append(f"skipped {exc} — re-checked on the next sync")
                     if not isinstance(exc, errors.Gone):
                         entry.bad.append(name)
@@ -535,7 +535,7 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
             files = tgt.list_all()      # each request inside is retried (not the whole walk again)
             report.skipped = list(getattr(files, "skipped", []))
             for line in report.skipped:
-                log.warning("pull: %s", line)
+                log.info("pull: %s", line)
             for f in files:
                 by_trip.setdefault(f.trip_id, []).append(f)
             summaries = _summaries(store)
