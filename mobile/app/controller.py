@@ -249,7 +249,10 @@ class AppController:
         return None
 
     def trip_lines(self) -> list[TripLine]:
-        lines = []
+        """One line per trip; trips the office returned come first, with its reasons."""
+        from core.rules.review import describe, review_state
+
+        lines, returned = [], []
         synced = self.sync_states()
         for t in self.store.list_trips():
             started = when_text(t.started_at)
@@ -260,9 +263,20 @@ class AppController:
                 status = "synced"
             elif status == "ended":
                 status = "ended, not sent"
-            lines.append(TripLine(t.id, title, status,
-                                  f"{started} · {t.stop_count} stop{'s' if t.stop_count != 1 else ''}"))
-        return lines
+            detail = f"{started} · {t.stop_count} stop{'s' if t.stop_count != 1 else ''}"
+            state = t.review_state
+            if state is None or state == "returned":     # None: a summary from an older build
+                doc = self.store.trip_document(t.id)
+                state = review_state(doc)
+                if state == "returned":
+                    why = describe(doc)
+                    returned.append(TripLine(t.id, title, "returned by the office",
+                                             f"{detail}\n{why[:1].upper()}{why[1:]}"))
+                    continue
+            if state in ("reviewed", "approved"):
+                status = state
+            lines.append(TripLine(t.id, title, status, detail))
+        return returned + lines
 
     def open_trip_id(self) -> str | None:
         open_ = [t for t in self.store.list_trips() if not t.ended_at]
