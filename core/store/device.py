@@ -48,6 +48,7 @@ from core.records.models import (
 from core.store.atomic import atomic_write_bytes, canonical_json_bytes
 from core.store.audit import diff_paths, merge_audit
 from core.store.errors import (
+    ApprovedTrip,
     CorruptFile,
     InvalidRecord,
     NewerSchemaError,
@@ -419,7 +420,7 @@ class DeviceStore:
         with self._locked():
             stored = self._stored_or_none(checked.id)
             base = max(checked.revision, int(stored.get("revision", 0)) if stored is not None else 0)
-            return self._commit(checked, stored, change, base)
+            return self._commit(checked, stored, change, base, review_guard=False)
 
     def adopt_document(self, doc: dict[str, Any], *, expected_revision: int | None) -> Trip | None:
         """Stores another device's saved version of a trip byte for byte (a sync fast-forward).
@@ -538,9 +539,16 @@ class DeviceStore:
             probs = problems_from_validation(exc)
             raise InvalidRecord(one_line(probs), probs) from None
 
-    def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int) -> Trip:
-        """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held."""
+    def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int,
+                *, review_guard: bool = True) -> Trip:
+        """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held.
+
+        `review_guard` refuses an edit of an approved trip that is not a correction
+        (core.rules.review); documents from a hub (put_document) carry the office's own steps
+        and are merged, not refused.
+        """
         from core.rules.qc import derive
+        from core.rules.review import ReviewRefused, check_change
 
         sites = self.sites_by_id()
         settings = self.settings()
@@ -559,6 +567,11 @@ class DeviceStore:
             new_doc["audit"] = merge_audit(stored.get("audit") or [], incoming_audit)
         if stored is not None and _content(stored) == _content(new_doc):
             return Trip.from_document(stored)
+        if review_guard:
+            try:
+                check_change(stored, new_doc)
+            except ReviewRefused as exc:
+                raise ApprovedTrip(str(exc)) from None
         now = self._clock().astimezone(UTC)
         revision = base_revision + 1
         entry = AuditEntry(at=now, device_id=self.device_id, change=str(change)[:400] or "saved",
