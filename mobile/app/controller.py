@@ -138,6 +138,13 @@ class AppController:
         self._sites = None
         return saved.id
 
+    def program_percent_basis(self) -> str:
+        """The program's meter % basis ("local" or "sea-level"), the start screen's default for a trip."""
+        try:
+            return str(self.settings().percent_basis)
+        except Exception:  # noqa: BLE001 - an unreadable settings file: the safe default
+            return "local"
+
     def settings(self) -> Any:
         """The program settings (core.records.models.ProgramSettings) from the store."""
         return self.store.settings()
