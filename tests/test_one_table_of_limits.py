@@ -35,7 +35,7 @@ def ctl(tmp_path_factory):
     c = AppController(DeviceStore.open(data))
     f = c.new_trip_form()
     f.program, f.crew, f.meter_id = "Tamsin Valley Stream Watch", "R.O.", "DO-7"
-    assert c.start_trip(f) is None
+    assert c.start_trip(f, without_calibration=True) is None
     c.new_stop()
     c.set_stop_field("site", "LK-01")
     yield c
