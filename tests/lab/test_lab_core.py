@@ -553,3 +553,15 @@ def test_lab_core_is_pure():
     calls = {n.func.attr if isinstance(n.func, ast.Attribute) else getattr(n.func, "id", "")
              for n in ast.walk(tree) if isinstance(n, ast.Call)}
     assert not calls & {"now", "utcnow", "today", "open", "write_text", "write_bytes"}
+
+
+def test_csv_export_carries_the_bod_report():
+    # Standard Methods 5210 B [from memory]: a "< 20.0 mg/L" result is exported as reported, not as a number
+    from core.records.exchange import bottle_rows
+
+    small = {"initial_do_mg_l": 8.6, "final_do_mg_l": 7.9, "sample_ml": 30.0}
+    out = bod(bod_trip(), dilutions=[small])
+    cells = {r["bottle_id"]: r["lab_results"] for r in bottle_rows(out.trip)}
+    assert cells["TV-0810"] == "bod5=< 20.0 mg/L"
+    ok = bod(bod_trip(), dilutions=[D30, D15])
+    assert {r["bottle_id"]: r["lab_results"] for r in bottle_rows(ok.trip)}["TV-0810"] == "bod5=44.5 mg/L"
