@@ -113,21 +113,18 @@ def do_criteria_flags(do_mg_l, percent_sat, water_class: str | None, criteria: C
             flags.append(Flag(
                 "do.below_criterion", Severity.WARNING,
                 f"DO {do:.2f} mg/L is below the {wc}-water criterion of {limit:g} mg/L set for this"
-                f" program (a spot reading; a criterion written as a mean needs continuous data). {_DECIDES}",
+                f" program. {_DECIDES}",
                 "Note the time of day and flow (DO is lowest near dawn); re-measure if it looks wrong.",
                 "do_mg_l"))
         epa = EPA_1986_MG_L[(wc, crit.life_stage)]
         one_day = epa[SPOT_PERIOD]
         if do < one_day:
             stage = "early life stages" if crit.life_stage == "early" else "other life stages"
-            means = " and ".join(f"{k} {v:g}" for k, v in epa.items() if k != SPOT_PERIOD)
             flags.append(Flag(
                 "do.below_1day_minimum", Severity.WARNING,
-                f"DO {do:.2f} mg/L is below the {SPOT_PERIOD} of {one_day:g} mg/L for {wc} water, {stage}"
-                f" (US EPA 1986 criteria). A single reading can only be compared with the 1-day minimum; the"
-                f" criteria's means ({means} mg/L) need continuous data. {_DECIDES}",
-                "Re-measure near dawn if you can and report as the program's SOP says; ask whether a logger"
-                " should be deployed here.", "do_mg_l"))
+                f"DO {do:.2f} mg/L is below the EPA 1986 {SPOT_PERIOD} of {one_day:g} mg/L ({wc} water,"
+                f" {stage}); its 7- and 30-day means need continuous data. {_DECIDES}",
+                "Re-measure near dawn if you can; ask whether a logger belongs here.", "do_mg_l"))
     if percent_sat is not None:
         ps = real(percent_sat, "percent_sat", lo=0.0, hi=500.0, unit="%")
         if ps > crit.supersaturation_percent:
