@@ -35,7 +35,7 @@ from core.store.atomic import content_hash
 
 __all__ = [
     "MergeResult", "merge_trips", "relation", "history", "common_ancestor",
-    "describe_conflict", "CONFLICT_NAMESPACE",
+    "describe_conflict", "CONFLICT_NAMESPACE", "retain",
 ]
 
 
@@ -353,3 +353,54 @@ def common_ancestor(candidates: Iterable[dict], a: dict, b: dict) -> dict | None
         if best_key is None or key > best_key:
             best, best_key = c, key
     return best
+
+
+# --- what an import or a merge never removes ----------------------------------------------------
+def _holds_retained(value: Any, node: RoleNode) -> bool:
+    """True when a record (or a list of them) holds something a retained field keeps."""
+    if isinstance(value, list):
+        return any(_holds_retained(v, node) for v in value)
+    if not isinstance(value, dict):
+        return False
+    for key, sub in value.items():
+        if key in node.retained and sub not in (None, [], {}):
+            return True
+        if key in node.children and _holds_retained(sub, node.child(key)):
+            return True
+    return False
+
+
+def retain(kept: dict, result: dict, node: RoleNode | None = None) -> dict:
+    """`result` with everything of `kept` that the models mark as retained put back (a new dict).
+
+    Lab results, calibrations and custody records (fields declared with ``retain``) are never
+    removed by an import or a merge: a retained value `result` lacks is taken from `kept`; an
+    element of a retained list `result` lacks is appended; a stop or bottle `result` removed is
+    kept when it holds retained content. Everything else of `result` stands.
+    """
+    node = node or role_tree()
+    out = dict(result)
+    for key, old in kept.items():
+        new = out.get(key)
+        if key in node.retained:
+            if _is_id_list(old) and (new is None or _is_id_list(new)):
+                have = {e["id"] for e in new or []}
+                extra = [e for e in old if e["id"] not in have]
+                if extra:
+                    new = list(new or []) + extra
+            elif new is None and old is not None:
+                new = old
+        if key in node.children and _is_id_list(old) and (new is None or _is_id_list(new)):
+            child = node.child(key)
+            by_id = {e["id"]: e for e in old}
+            merged = []
+            for e in new or []:
+                merged.append(retain(by_id[e["id"]], e, child) if e["id"] in by_id else e)
+            have = {e["id"] for e in merged}
+            merged += [e for e in old if e["id"] not in have and _holds_retained(e, child)]
+            new = merged
+        elif key in node.children and isinstance(old, dict) and isinstance(new, dict):
+            new = retain(old, new, node.child(key))
+        if new is not None or key in out:
+            out[key] = new
+    return out

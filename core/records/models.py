@@ -21,10 +21,10 @@ from pydantic_core import PydanticCustomError
 __all__ = [
     "SCHEMA_VERSION", "BOTTLE_KINDS", "WATER_CLASSES", "LIMITS",
     "Quantity", "FlagRecord", "Derived", "Site", "Calibration", "LabResult", "Bottle", "Stop",
-    "AuditEntry", "ConflictSide", "Conflict", "ProgramSettings", "Signature", "CustodyRecord", "Trip",
-    "SIGNATURE_LIMITS",
+    "AuditEntry", "AuditChange", "AUDIT_VALUE_BYTES", "ConflictSide", "Conflict", "ProgramSettings",
+    "Signature", "CustodyRecord", "Trip", "SIGNATURE_LIMITS",
     "InputError", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
-    "INPUT", "DERIVED", "BOOKKEEPING", "LOG", "ROLES", "RoleNode", "role_tree", "paths_by_role",
+    "INPUT", "DERIVED", "BOOKKEEPING", "LOG", "ROLES", "RETAINED", "RoleNode", "role_tree", "paths_by_role",
     "keys_by_role",
 ]
 
@@ -131,11 +131,20 @@ LOG = "log"
 ROLES = (INPUT, DERIVED, BOOKKEEPING, LOG)
 
 
-def _role(role: str) -> dict[str, Any]:
-    """The `json_schema_extra` of a field with that role (shows as ``"role"`` in the JSON Schema)."""
+def _role(role: str, *, retain: bool = False) -> dict[str, Any]:
+    """The `json_schema_extra` of a field with that role (shows as ``"role"`` in the JSON Schema).
+
+    `retain`: what the field holds is never removed by an import or a merge (lab results,
+    calibrations, custody records): an element or value the stored trip has and the incoming
+    version lacks is kept.
+    """
     if role not in ROLES:  # pragma: no cover - a programming mistake
         raise ValueError(f"role {role!r} is not one of {ROLES}")
-    return {"role": role}
+    return {"role": role, "retain": True} if retain else {"role": role}
+
+
+#: The `json_schema_extra` of an input field whose content is never removed (see :func:`_role`).
+RETAINED = _role(INPUT, retain=True)
 
 
 # --------------------------------------------------------------------------------------------
@@ -345,7 +354,7 @@ class Bottle(_Record):
     fixed_at: AwareDatetime | None = None
     preservation: str = Field(default="", max_length=120)
     notes: str = Field(default="", max_length=2000)
-    lab_results: list[LabResult] = Field(default_factory=list)
+    lab_results: list[LabResult] = Field(default_factory=list, json_schema_extra=RETAINED)
 
     @field_validator("label")
     @classmethod
@@ -395,8 +404,28 @@ class Stop(_Record):
         return _check_quantity(v, "do", ("mg/L", "%"))
 
 
+class AuditChange(_Record):
+    """One field a save changed: its path, the value it replaced and the new one.
+
+    Values longer than :data:`AUDIT_VALUE_BYTES` as JSON are kept as the start of their JSON
+    text with ``truncated`` set (the audit stays small; the full value is in the trip or in
+    the version that replaced it).
+    """
+
+    path: str = Field(max_length=400)
+    old: Any = None
+    new: Any = None
+    truncated: bool = False
+
+
+#: Largest value (bytes of compact JSON) an audit entry keeps whole; longer ones are cut.
+AUDIT_VALUE_BYTES = 600
+
+
 class AuditEntry(_Record):
-    """One change to a trip: when, which device, what (a sentence and the changed field paths)."""
+    """One change to a trip: when, which device, what (a sentence, the changed field paths and,
+    for each, the value it replaced and the new one), and — for a settlement or a correction —
+    who and why."""
 
     id: str = _id_field()
     at: AwareDatetime
@@ -404,6 +433,9 @@ class AuditEntry(_Record):
     change: str = Field(max_length=400)
     revision: int
     fields: list[str] = Field(default_factory=list)
+    changes: list[AuditChange] = Field(default_factory=list)
+    by: str | None = Field(default=None, max_length=80)
+    reason: str | None = Field(default=None, max_length=400)
 
 
 class ConflictSide(_Record):
@@ -557,8 +589,8 @@ class Trip(_Record):
     meter_id: str = Field(default="", max_length=64)
     started_at: AwareDatetime
     ended_at: AwareDatetime | None = None
-    pre_calibration: Calibration | None = None
-    post_check: Calibration | None = None
+    pre_calibration: Calibration | None = Field(None, json_schema_extra=RETAINED)
+    post_check: Calibration | None = Field(None, json_schema_extra=RETAINED)
     stops: list[Stop] = Field(default_factory=list)
     notes: str = Field(default="", max_length=4000)
     audit: list[AuditEntry] = Field(default_factory=list, json_schema_extra=_role(LOG))
@@ -566,7 +598,7 @@ class Trip(_Record):
     #: counts as a change); sync's merge owns how the list itself is merged.
     conflicts: list[Conflict] = Field(default_factory=list)
     #: Chain of custody of the trip's bottles, in the order entered (optional; absent when empty).
-    custody: list[CustodyRecord] = Field(default_factory=list)
+    custody: list[CustodyRecord] = Field(default_factory=list, json_schema_extra=RETAINED)
 
     @model_serializer(mode="wrap")
     def _omit_empty_custody(self, handler: Any) -> Any:
@@ -633,6 +665,8 @@ class RoleNode:
     model: str
     roles: dict[str, str] = field(default_factory=dict)
     children: dict[str, "RoleNode"] = field(default_factory=dict)
+    #: fields whose content an import or a merge never removes
+    retained: frozenset[str] = frozenset()
 
     def role(self, key: str) -> str:
         return self.roles.get(key, INPUT)
@@ -672,13 +706,16 @@ def role_tree(model: type[BaseModel] | None = None) -> RoleNode:
     model = model or Trip
     roles: dict[str, str] = {}
     children: dict[str, RoleNode] = {}
+    retained: set[str] = set()
     for name, info in model.model_fields.items():
         key = info.alias or name
         roles[key] = _field_role(info)
+        if isinstance(info.json_schema_extra, dict) and info.json_schema_extra.get("retain"):
+            retained.add(key)
         nested = _records_in(info.annotation)
         if nested:
             children[key] = role_tree(nested[0])
-    return RoleNode(model.__name__, roles, children)
+    return RoleNode(model.__name__, roles, children, frozenset(retained))
 
 
 def paths_by_role(role: str, model: type[BaseModel] | None = None) -> list[str]:

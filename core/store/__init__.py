@@ -12,12 +12,13 @@ import importlib
 from typing import TYPE_CHECKING, Any
 
 __all__ = [
-    "AtomicJSONStorage", "CorruptFile", "DeviceStore", "InvalidRecord", "NewerSchemaError", "StaleTrip",
+    "AtomicJSONStorage", "CorruptFile", "DeviceStore", "InvalidRecord", "MergeOutcome", "NewerSchemaError", "StaleTrip",
     "StoreError", "StoreLocked", "StoreWriteError", "TripNotFound", "TripSummary", "diff_paths",
 ]
 
 _WHERE = {
     "AtomicJSONStorage": "core.store.storage", "DeviceStore": "core.store.device",
+    "MergeOutcome": "core.store.device",
     "TripSummary": "core.store.index", "diff_paths": "core.store.audit",
     **{name: "core.store.errors" for name in (
         "CorruptFile", "InvalidRecord", "NewerSchemaError", "StaleTrip", "StoreError", "StoreLocked",
@@ -26,7 +27,7 @@ _WHERE = {
 
 if TYPE_CHECKING:  # pragma: no cover
     from core.store.audit import diff_paths
-    from core.store.device import DeviceStore
+    from core.store.device import DeviceStore, MergeOutcome
     from core.store.errors import (
         CorruptFile,
         InvalidRecord,

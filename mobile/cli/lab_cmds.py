@@ -120,13 +120,26 @@ def _trip(store, ident: str):  # noqa: ANN001
         fail(str(exc))
 
 
-def _save(store, outcome, change: str):  # noqa: ANN001
+def _record(store, trip_id: str, compute, describe):  # noqa: ANN001, ANN202
+    """Computes a lab outcome on the stored trip and saves it in one read–modify–write under the
+    store's lock (no other writer, e.g. a sync, can come between); returns (outcome, saved trip).
+    `compute(trip)` gives the outcome, `describe(outcome)` the audit sentence."""
+    from core.rules.lab import LabInputError
     from core.store import StoreError
 
+    box: dict[str, Any] = {}
+
+    def apply(trip):  # noqa: ANN001, ANN202
+        box["out"] = compute(trip)
+        return box["out"].trip
+
     try:
-        return store.save_trip(outcome.trip, change)
+        saved = store.update_trip(trip_id, lambda: describe(box["out"]), apply)
+    except LabInputError as exc:
+        raise _lab_error(exc) from None
     except StoreError as exc:
         fail(f"nothing was saved: {exc}")
+    return box["out"], saved
 
 
 # --------------------------------------------------------------------------------------------
@@ -173,16 +186,18 @@ def _winkler(args) -> int:  # noqa: ANN001
     else:
         entered.update(std_titrant_ml=args.std_titrant_ml, std_ml=args.std_ml, std_normality=args.std_normality,
                        standardised_at=args.standardised_at)
-    try:
-        out = record_winkler(trip, args.bottle, titrant_ml=titrant, titrated_ml=titrated, normality=normality,
-                             standardisation=std, bottle_ml=bottle_ml, reagents_ml=reagents, analysed_at=at,
-                             now=now, analyst=args.analyst or "", notes=args.notes or "", redo_reason=args.redo,
-                             settings=settings, entered=entered)
-    except LabInputError as exc:
-        raise _lab_error(exc) from None
-    who = f" ({out.result.analyst})" if out.result.analyst else ""
-    saved = _save(store, out, f"lab: Winkler DO {out.result.value:.2f} mg/L on bottle {out.bottle.label}{who}"
-                              + (" (re-titration)" if out.superseded else ""))
+    def compute(t):  # noqa: ANN001, ANN202
+        return record_winkler(t, args.bottle, titrant_ml=titrant, titrated_ml=titrated, normality=normality,
+                              standardisation=std, bottle_ml=bottle_ml, reagents_ml=reagents, analysed_at=at,
+                              now=now, analyst=args.analyst or "", notes=args.notes or "", redo_reason=args.redo,
+                              settings=settings, entered=entered)
+
+    def describe(o):  # noqa: ANN001, ANN202
+        who = f" ({o.result.analyst})" if o.result.analyst else ""
+        return (f"lab: Winkler DO {o.result.value:.2f} mg/L on bottle {o.bottle.label}{who}"
+                + (" (re-titration)" if o.superseded else ""))
+
+    out, saved = _record(store, trip.id, compute, describe)
     d = out.result.inputs["derived"]
     data = {**out.to_dict(), "do_mg_l": out.result.value, "original_sample_ml": d["original_sample_ml"],
             "normality": d["normality"], "valid": out.result.valid, "revision": saved.revision, "caution": CAUTION}
@@ -284,17 +299,22 @@ def _bod(args) -> int:  # noqa: ANN001
                        ("incubation_end", args.incubation_end)):
         if value is not None:
             entered[key] = value
-    try:
-        out = record_bod(trip, args.bottle, dilutions=dilutions, seed_controls=controls, blank_depletion_mg_l=blank,
-                         gga_bod_mg_l=gga, incubation_start=start, incubation_end=end, incubator_temp_c=temp,
-                         analysed_at=at, now=now, analyst=args.analyst or "", notes=args.notes or "",
-                         redo_reason=args.redo, settings=settings, entered=entered)
-    except LabInputError as exc:
-        raise _lab_error(exc) from None
-    shown = "no valid dilution" if out.result.value is None else f"{out.result.value:.1f} mg/L"
-    saved = _save(store, out, f"lab: BOD5 {shown} on bottle {out.bottle.label}"
-                              + (f" ({out.result.analyst})" if out.result.analyst else "")
-                              + (" (repeat)" if out.superseded else ""))
+    def compute(t):  # noqa: ANN001, ANN202
+        return record_bod(t, args.bottle, dilutions=dilutions, seed_controls=controls, blank_depletion_mg_l=blank,
+                          gga_bod_mg_l=gga, incubation_start=start, incubation_end=end, incubator_temp_c=temp,
+                          analysed_at=at, now=now, analyst=args.analyst or "", notes=args.notes or "",
+                          redo_reason=args.redo, settings=settings, entered=entered)
+
+    def shown_of(o):  # noqa: ANN001, ANN202
+        return "no valid dilution" if o.result.value is None else f"{o.result.value:.1f} mg/L"
+
+    def describe(o):  # noqa: ANN001, ANN202
+        return (f"lab: BOD5 {shown_of(o)} on bottle {o.bottle.label}"
+                + (f" ({o.result.analyst})" if o.result.analyst else "")
+                + (" (repeat)" if o.superseded else ""))
+
+    out, saved = _record(store, trip.id, compute, describe)
+    shown = shown_of(out)
     d = out.result.inputs["derived"]
     data = {**out.to_dict(), "bod_mg_l": out.result.value, "valid": out.result.valid,
             "dilutions": d["dilutions"], "revision": saved.revision}

@@ -82,16 +82,28 @@ def _trip_import(args) -> int:  # noqa: ANN001
 
     store = _store(args)
     try:
-        trip = import_trip_file(store, args.file)
+        outcome = import_trip_file(store, args.file)
     except ExchangeError as exc:
         fail(str(exc))
+    trip = outcome.trip
     if args.json:
         emit_json({"id": trip.id, "revision": trip.revision, "stop_count": len(trip.stops),
-                   "status": trip.status})
+                   "status": trip.status, "result": outcome.result,
+                   "new_conflicts": len(outcome.conflicts)})
+        return 0
+    n = len(trip.stops)
+    name = Path(args.file).name
+    what = f"({n} stop{'' if n == 1 else 's'}, revision {trip.revision})"
+    if outcome.result == "new":
+        sys.stdout.write(f"imported trip {trip.id} {what} from {name}\n")
+    elif outcome.result == "unchanged":
+        sys.stdout.write(f"trip {trip.id} unchanged {what}: this device already holds everything in {name}\n")
     else:
-        n = len(trip.stops)
-        sys.stdout.write(f"imported trip {trip.id} ({n} stop{'' if n == 1 else 's'}, revision {trip.revision})"
-                         f" from {Path(args.file).name}\n")
+        sys.stdout.write(f"merged {name} into trip {trip.id} {what}; nothing stored was removed\n")
+    if outcome.conflicts:
+        k = len(outcome.conflicts)
+        sys.stdout.write(f"{k} field{'' if k == 1 else 's'} differ between this device and the file;"
+                         f" see 'streamtab trip conflicts {trip.id[:8]}'\n")
     return 0
 
 

@@ -160,7 +160,7 @@ def test_open_conflicts_reach_the_attention_list(ctl):
     doc = ctl.store.trip_document(ctl.trip.id)
     doc["conflicts"] = [{"id": "c1", "path": "stops[0].notes", "detected_at": datetime.now(timezone.utc).isoformat(),
                          "sides": [{"device_id": "dev-a", "value": "riffle"}, {"device_id": "dev-b", "value": "pool"}]}]
-    ctl.store.put_document(doc, "merged by sync")
+    ctl.store.put_document(doc, "merged by sync", expected_revision=doc["revision"])
     ctl.open_trip(ctl.trip.id)
     lines = [l for l in ctl.attention_lines() if "CONFLICT" in l]
     assert len(lines) == 1 and "stops[0].notes" in lines[0] and "dev-a" in lines[0]
