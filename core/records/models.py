@@ -21,7 +21,7 @@ from pydantic_core import PydanticCustomError
 __all__ = [
     "SCHEMA_VERSION", "BOTTLE_KINDS", "WATER_CLASSES", "LIMITS",
     "Quantity", "FlagRecord", "Derived", "Site", "Calibration", "LabResult", "Bottle", "Stop",
-    "AuditEntry", "AuditChange", "AUDIT_VALUE_BYTES", "ConflictSide", "Conflict", "ProgramSettings",
+    "RESULT_STATUSES", "AuditEntry", "AuditChange", "AUDIT_VALUE_BYTES", "ConflictSide", "Conflict", "ProgramSettings",
     "Signature", "CustodyRecord", "Trip", "SIGNATURE_LIMITS",
     "InputError", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
     "INPUT", "DERIVED", "BOOKKEEPING", "LOG", "ROLES", "RETAINED", "RoleNode", "role_tree", "paths_by_role",
@@ -29,7 +29,7 @@ __all__ = [
 ]
 
 #: Version of the trip document layout this build writes. core.records.migrations lifts older ones.
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 
 BOTTLE_KINDS = ("do-fixed", "bod", "duplicate", "blank")
 WATER_CLASSES = ("warm", "cold")
@@ -329,8 +329,20 @@ class Calibration(_Record):
         return _check_range(v, "tolerance")
 
 
+#: The states of a lab result: live and acceptable, live and failing its checks, or replaced by a
+#: later result of the same analysis on the same bottle (kept, never deleted).
+RESULT_STATUSES = ("valid", "invalid", "superseded")
+
+
 class LabResult(_Record):
-    """A laboratory result for a bottle (Winkler DO, BOD5, specific conductance, ...)."""
+    """A laboratory result for a bottle (Winkler DO, BOD5, specific conductance, ...).
+
+    ``status`` says whether the result counts: "valid", "invalid" (a stop-and-check finding or
+    no valid dilution; ``valid`` is then False) or "superseded" (a re-analysis replaced it:
+    ``superseded_by`` names the later result, which lists this one in ``supersedes``). ``flags``
+    are the bench's findings. ``inputs`` keeps what the analyst entered, the numbers used and the
+    intermediate values (see core.rules.lab).
+    """
 
     id: str = _id_field()
     analyte: str = Field(min_length=1, max_length=40)
@@ -340,8 +352,32 @@ class LabResult(_Record):
     analyst: str = Field(default="", max_length=40)
     method: str = Field(default="", max_length=80)
     inputs: dict[str, Any] = Field(default_factory=dict)
+    #: Whether the measurement passed its checks (None: not checked); see ``status``.
     valid: bool | None = None
+    status: Literal["valid", "invalid", "superseded"] = "valid"
+    #: Ids of the earlier results of the same analysis this one replaces (a re-analysis).
+    supersedes: list[str] = Field(default_factory=list)
+    #: On a replaced result: the result that replaced it, when, and the analyst's reason.
+    superseded_by: str | None = Field(default=None, max_length=64)
+    superseded_at: AwareDatetime | None = None
+    superseded_reason: str = Field(default="", max_length=400)
+    flags: list[FlagRecord] = Field(default_factory=list)
     notes: str = Field(default="", max_length=2000)
+
+    @model_validator(mode="after")
+    def _status_agrees(self) -> "LabResult":
+        # A result built only with ``valid=False`` is invalid; one with ``superseded_by`` is
+        # superseded — so a writer that sets one of them cannot leave the other saying otherwise.
+        if self.superseded_by and self.status != "superseded":
+            object.__setattr__(self, "status", "superseded")
+        elif "status" not in self.model_fields_set and self.valid is False and self.status == "valid":
+            object.__setattr__(self, "status", "invalid")
+        return self
+
+    @property
+    def live(self) -> bool:
+        """Not replaced by a later result (it counts, valid or not)."""
+        return self.status != "superseded"
 
 
 class Bottle(_Record):
@@ -355,6 +391,8 @@ class Bottle(_Record):
     preservation: str = Field(default="", max_length=120)
     notes: str = Field(default="", max_length=2000)
     lab_results: list[LabResult] = Field(default_factory=list, json_schema_extra=RETAINED)
+    #: For a field duplicate: the label of the bottle it duplicates (same analysis, same stop).
+    duplicate_of: str | None = Field(default=None, max_length=40)
 
     @field_validator("label")
     @classmethod

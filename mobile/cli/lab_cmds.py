@@ -459,12 +459,12 @@ def _results(args) -> int:  # noqa: ANN001
     for stop in sorted(trip.stops, key=lambda s: s.arrived_at):
         for b in stop.bottles:
             for r in b.lab_results:
-                inputs = r.inputs or {}
                 rows.append({"site_id": stop.site_id, "bottle_id": b.id, "label": b.label, "kind": b.kind,
                              "result_id": r.id, "analyte": r.analyte, "value": r.value, "unit": r.unit,
                              "analysed_at": r.analysed_at.isoformat() if r.analysed_at else None,
-                             "analyst": r.analyst, "method": r.method, "valid": r.valid,
-                             "superseded_by": inputs.get("superseded_by"), "flags": inputs.get("flags", [])})
+                             "analyst": r.analyst, "method": r.method, "valid": r.valid, "status": r.status,
+                             "superseded_by": r.superseded_by,
+                             "flags": [f.model_dump(mode="json") for f in r.flags]})
     if args.json:
         emit_json({"trip_id": trip.id, "results": rows})
         return 0
