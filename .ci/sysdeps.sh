@@ -4,7 +4,8 @@
 # As root it installs what is missing; otherwise it prints the one line to run.
 set -eu
 # Xvfb for both: tests need it, and `streamtab app --snapshot` uses it where there is no display.
-want=(libgl1-mesa-dri libegl1 libgl1 libmtdev1 xvfb xauth poppler-utils)
+# openssl: the TLS test makes its certificate with it (and fails under CI without one).
+want=(libgl1-mesa-dri libegl1 libgl1 libmtdev1 xvfb xauth poppler-utils openssl)
 command -v dpkg-query >/dev/null 2>&1 || exit 0
 missing=()
 for p in "${want[@]}"; do

@@ -11,13 +11,13 @@ from __future__ import annotations
 
 import hashlib
 import logging
-import os
 import threading
 import time
 from dataclasses import asdict, dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any, Callable, Iterable
+from typing import Any
+from collections.abc import Callable, Iterable
 
 from core.records.limits import LimitError, loads_limited
 from core.store.atomic import atomic_write_bytes, canonical_json_bytes
@@ -264,9 +264,10 @@ def _write(store: Any, tid: str, based_on: dict | None, new: dict, change: str, 
         doc, late = new, []
         if not _same_bytes(current, based_on):
             folded = fold(current, [new], [based_on] if based_on is not None else [])
+            assert folded.doc is not None, "folding a document in never yields nothing"
             doc, late = folded.doc, folded.conflicts
             verbatim = verbatim and doc is new
-        if _same_bytes(doc, current):
+        if current is not None and _same_bytes(doc, current):
             return current, late
         if verbatim:
             rev = None if current is None else int(current.get("revision", 0))
@@ -386,8 +387,8 @@ def _clean_incoming(tgt: Target, session: Session, outbox: Outbox) -> None:
 def _flush(outbox: Outbox) -> None:
     try:
         outbox.flush()
-    except OSError:   # only a cache: the per-trip files are the record
-        log.warning("could not rewrite the outbox manifest", exc_info=True)
+    except OSError as exc:   # only a cache: the per-trip files are the record
+        log.info("could not rewrite the outbox manifest (%s)", exc.strerror or exc)
 
 
 def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: str) -> TripResult:
@@ -435,13 +436,13 @@ def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
                 except (errors.BadHubDocument, errors.IntegrityError, errors.Gone) as exc:
                     # not marked seen: read again at the next sync (a cut read is retried inside
                     # `read`; what stays wrong is reported here, never dropped silently)
-                    log.warning("push: skipping a hub file: %s", exc)
+                    log.info("push: skipping a hub file: %s", exc)
                     notes.append(f"skipped {exc} — re-checked on the next sync")
                     if not isinstance(exc, errors.Gone):
                         entry.bad.append(name)
             candidates = [entry.base] if entry.base else []
             candidates += _extra_ancestors(tgt, session, year, tid, doc, docs, candidates,
-                                           sorted(listing - set(act.unseen)))
+                                           sorted((listing or frozenset()) - set(act.unseen)))
             folded = fold(doc, docs, candidates)
             merged, new_conflicts = folded.doc, folded.conflicts
             seen.update(good)
@@ -462,7 +463,7 @@ def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
                 data = canonical_json_bytes(doc)
                 h = _sha(data)
                 rev = int(doc.get("revision", 0))
-                if revision_name(rev, h) in listing:
+                if revision_name(rev, h) in (listing or frozenset()):
                     # the device copy is now a revision the hub holds: nothing to send
                     name = revision_name(rev, h)
                     seen.add(name)
@@ -504,7 +505,7 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
         files = tgt.list_all()          # each request inside is retried (not the whole walk again)
         report.skipped = list(getattr(files, "skipped", []))
         for line in report.skipped:
-            log.warning("pull: %s", line)
+            log.info("pull: %s", line)
         by_trip: dict[str, list[RemoteFile]] = {}
         for f in files:
             by_trip.setdefault(f.trip_id, []).append(f)
@@ -515,8 +516,8 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
                  for tid, (rev, h) in summaries.items()}
         remote = {tid: RemoteEntry(tid, frozenset(f.name for f in fs)) for tid, fs in by_trip.items()}
         actions = plan_pull(local, remote, {tid: e.seen_set() for tid, e in known.items()})
-        total, done = len(actions), 0
-        for act in actions:
+        total = len(actions)
+        for done, act in enumerate(actions, start=1):
             tid = act.trip_id
             if act.action is Action.SKIP:
                 res = TripResult(tid, "unchanged")
@@ -533,7 +534,6 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
             report.per_trip.append(res)
             if res.result in ("pulled", "merged", "quarantined", "unchanged", "failed"):
                 setattr(report, res.result, getattr(report, res.result) + 1)
-            done += 1
             _notify(progress, done, total, tid, res.result)
     except Exception as exc:
         if _local_write_errors(exc):
@@ -609,7 +609,7 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
         # same content as the device copy (bookkeeping aside): nothing to save
         accepted.append(name)
         del pending[name]
-        if acc is not None and same_content(trial, acc):
+        if acc is not None and trial is not None and same_content(trial, acc):
             for other in contained_names(pending, doc):
                 accepted.append(other)
                 del pending[other]
@@ -657,7 +657,7 @@ def status(store: Any) -> list[TripSyncState]:
             doc = store.trip_document(tid)
             conflicts = _conflict_lines(c for c in doc.get("conflicts") or []
                                         if isinstance(c, dict) and not c.get("resolved_at"))
-        except Exception:  # an unreadable trip is the store's report, not ours
+        except Exception:  # noqa: BLE001 - an unreadable trip is the store's report, not ours
             pass
         if not states or all(s.state == "never pushed" for s in states):
             overall = "never pushed"
@@ -680,7 +680,7 @@ def run_in_background(operation: Callable[..., Any], store: Any, address: str, *
     def work() -> None:
         try:
             report = operation(store, address, progress=progress, session=session)
-        except BaseException as exc:  # handed to the caller, never lost in the thread
+        except BaseException as exc:  # noqa: BLE001 - handed to the caller, never lost in the thread
             if on_done is not None:
                 on_done(None, exc)
             else:

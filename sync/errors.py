@@ -113,6 +113,8 @@ class Conflict(FinalError):
 class IntegrityError(FinalError):
     """A hub copy's bytes do not match the content hash in its name (truncated or altered)."""
 
+    data: bytes = b""   # the damaged bytes as read, for the quarantine
+
 
 class BadHubDocument(FinalError):
     """A document read from the hub is not a valid trip (malformed, oversized, wrong id)."""

@@ -22,7 +22,7 @@ __all__ = ["TRIPS", "INCOMING", "revision_name", "parse_revision_name", "trip_di
 TRIPS = "trips"
 INCOMING = "incoming"
 HASH_HEX = 24
-_NAME_RE = re.compile(r"^r(\d{6,})-([0-9a-f]{%d})\.json$" % HASH_HEX)
+_NAME_RE = re.compile(rf"^r(\d{{6,}})-([0-9a-f]{{{HASH_HEX}}})\.json$")
 #: A year folder: the trip's four-digit start year, or "undated".
 YEAR_RE = re.compile(r"\d{4}|undated")
 _INCOMING_RE = re.compile(r"[0-9a-f]{8}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{12}\.[0-9a-f]{12}\.part")
@@ -59,7 +59,7 @@ def parse_revision_name(name: str) -> tuple[int, str] | None:
 def name_matches(name: str, data: bytes) -> bool:
     """True when `data` hashes to the prefix carried in the revision file name."""
     parsed = parse_revision_name(name)
-    return bool(parsed) and hashlib.sha256(data).hexdigest()[:HASH_HEX] == parsed[1]
+    return parsed is not None and hashlib.sha256(data).hexdigest()[:HASH_HEX] == parsed[1]
 
 
 def trip_year(doc: dict) -> str:

@@ -94,13 +94,14 @@ class Outbox:
             folder = self.folder / "trips"
             if folder.is_dir():
                 for p in folder.glob("*.json"):
-                    e = self._load(p)
-                    if e is not None:
-                        e.base = None
-                        self._summary[e.trip_id] = e
+                    loaded = self._load(p)
+                    if loaded is not None:
+                        loaded.base = None
+                        self._summary[loaded.trip_id] = loaded
         return self._summary
 
     def _replay_journal(self) -> None:
+        assert self._summary is not None, "all() sets the summary before replaying the journal"
         self._journal_lines = 0
         try:
             lines = (self.folder / "journal.jsonl").read_bytes().splitlines()

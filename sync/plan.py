@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from enum import Enum
-from typing import Mapping
+from collections.abc import Mapping
 
 from sync.layout import revision_name
 
@@ -97,7 +97,7 @@ def plan_pull(local: Mapping[str, LocalEntry], remote: Mapping[str, RemoteEntry]
         names = remote[trip_id].names
         entry = local.get(trip_id)
         if entry is None:
-            unseen = set(names) - known.get(trip_id, frozenset())
+            unseen: set[str] | frozenset[str] = set(names) - known.get(trip_id, frozenset())
         else:
             unseen = names - entry.seen - {entry.name}
         if unseen:

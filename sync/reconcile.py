@@ -8,7 +8,7 @@ whose audit ids are a subset of another's is contained in it.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Iterable, Mapping
+from collections.abc import Iterable, Mapping
 
 from core.records.models import BOOKKEEPING, LOG, keys_by_role
 from core.store.atomic import canonical_json_bytes

@@ -26,11 +26,15 @@ import threading
 import time
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable, Mapping, TypeVar
+from typing import TYPE_CHECKING, TypeVar
+from collections.abc import Callable, Mapping
 from urllib.parse import unquote, urlsplit, urlunsplit
 
 from core.records.limits import MAX_DOCUMENT_BYTES
 from sync import errors
+
+if TYPE_CHECKING:
+    import requests   # imported on first use at run time (no work at import time)
 
 __all__ = ["RetryPolicy", "Credentials", "Session", "load_credentials", "redact_url",
            "ca_file_from_environment", "ENV_USER", "ENV_PASSWORD", "ENV_TOKEN", "ENV_CONFIG",
@@ -84,7 +88,7 @@ class RetryPolicy:
 class Credentials:
     """A user name and password (HTTP Basic) or a bearer token. Never shown by repr or str."""
 
-    __slots__ = ("_user", "_password", "_token")
+    __slots__ = ("_password", "_token", "_user")
 
     def __init__(self, user: str | None = None, password: str | None = None,
                  token: str | None = None) -> None:
@@ -295,7 +299,7 @@ def _watched_adapter_class():  # noqa: ANN202 - built on first use: no requests 
             local = self._watch_local
 
             def watched(base):  # noqa: ANN001, ANN202
-                class Pool(base):
+                class Pool(base):  # type: ignore[valid-type,misc]  # urllib3's pool class, chosen at run time
                     def _get_conn(self, timeout=None):  # noqa: ANN001, ANN202
                         conn = super()._get_conn(timeout)
                         watch = getattr(local, "watch", None)
@@ -416,14 +420,14 @@ class Session:
         self.device_id = device_id
         self.credentials = credentials
         self.timeout = (float(connect_timeout_s), float(read_timeout_s))
-        self.deadline_s = float(deadline_s)
+        self.deadline_s = float(deadline_s or 0.0)     # checked above: a number in (0, 600]
         self._local = threading.local()      # the watch of the request running in this thread
         self.retry = retry or RetryPolicy()
         self.ca_file = str(ca_file) if ca_file is not None else None
         self.max_document_bytes = int(max_document_bytes)
         self.sleep = sleep
         self.request_count = 0
-        self._http = None
+        self._http: requests.Session | None = None
 
     def __repr__(self) -> str:
         return (f"Session(device_id={self.device_id!r}, timeout={self.timeout}, retry={self.retry}, "
@@ -545,7 +549,7 @@ class Session:
                 chunks.append(chunk)
         except errors.SyncError:
             raise
-        except Exception as exc:   # requests/urllib3 read errors while streaming the body
+        except Exception as exc:  # noqa: BLE001 - requests/urllib3 read errors while streaming the body
             if watch is not None and watch.fired:
                 raise errors.TimedOut(f"reading {where} took longer than the {self.deadline_s:g} s limit "
                                       f"for one request") from None
@@ -577,7 +581,7 @@ class Session:
             self._http.close()
             self._http = None
 
-    def __enter__(self) -> "Session":
+    def __enter__(self) -> Session:
         return self
 
     def __exit__(self, *exc: object) -> None:

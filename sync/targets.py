@@ -15,6 +15,7 @@ and ``close``. See `sync.layout` for the names at the hub.
 from __future__ import annotations
 
 import errno
+import functools
 import hashlib
 import os
 import xml.etree.ElementTree as ET
@@ -128,7 +129,8 @@ def _checked_read(f: RemoteFile, where: str, fetch, session: Session | None):  #
 def _walk_report(root_rel: str, entries, skipped: list[str]) -> list[tuple[tuple[str, ...], int | None]]:  # noqa: ANN001
     """Sorts listing entries (relpath, is_folder, size) into revision files (parts, size) and
     report lines for odd entries; what lies under an odd entry is skipped without a line."""
-    files, odd_prefixes = [], []
+    files: list[tuple[tuple[str, ...], int | None]] = []
+    odd_prefixes: list[tuple[str, ...]] = []
     for relpath, is_col, size in sorted(entries, key=lambda e: e[0]):
         parts = tuple(p for p in relpath.strip("/").split("/") if p)
         if len(parts) < 2 or parts[0] != TRIPS:
@@ -210,7 +212,7 @@ class FolderTarget:
         path = self._trip_path(f.year, f.trip_id) / f.name
         where = f"{TRIPS}/{f.year}/{f.trip_id}/{f.name}"
 
-        def fetch() -> bytes:
+        def fetch() -> tuple[bytes, bool]:
             try:
                 with open(path, "rb") as fh:
                     data = fh.read(max_bytes + 1)
@@ -395,7 +397,7 @@ class WebDavTarget:
         root = self.session.retrying(step)
         if root is None:
             return None
-        out = []
+        out: list[tuple] = []
         for r in root.iter("{DAV:}response"):
             href = r.findtext("{DAV:}href") or ""
             try:
@@ -460,7 +462,7 @@ class WebDavTarget:
         if f.size is not None and f.size > max_bytes:
             raise _too_big(rel, max_bytes)
 
-        def fetch() -> bytes:
+        def fetch() -> tuple[bytes, bool]:
             resp = self.session.request("GET", self._u(rel), stream=True)
             try:
                 if resp.status_code in (404, 410):
@@ -511,7 +513,7 @@ class WebDavTarget:
                 continue
             if when >= now - STALE_UPLOAD_S:
                 continue
-            resp = self.session.retrying(lambda: self.session.request("DELETE", self._u(rel + name)))
+            resp = self.session.retrying(functools.partial(self.session.request, "DELETE", self._u(rel + name)))
             resp.close()
             if resp.status_code in (200, 204):
                 removed += 1

@@ -34,7 +34,7 @@ def run_cli(*args: str, data_dir: Path | None = None, env: dict[str, str] | None
     if data_dir is not None:
         argv += ["--data-dir", str(data_dir)]
     return subprocess.run(argv, capture_output=True, text=True, timeout=timeout,
-                          env=env or cli_env(), cwd=ROOT, input=input)
+                          env=env or cli_env(), cwd=ROOT, input=input, check=False)
 
 
 @pytest.fixture

@@ -28,7 +28,8 @@ from __future__ import annotations
 import json
 import uuid
 from dataclasses import dataclass, field
-from typing import Any, Iterable
+from typing import Any
+from collections.abc import Iterable
 
 from core.records.models import BOOKKEEPING, DERIVED, LOG, RoleNode, keys_by_role, role_tree
 from core.store.atomic import content_hash
@@ -97,7 +98,7 @@ def _atomic(value: dict) -> bool:
     return {"text", "value", "unit"} <= value.keys()
 
 
-def _hint(elem: dict) -> str:
+def _hint(elem: Any) -> str:
     for key in _HINT_KEYS:
         v = elem.get(key)
         if isinstance(v, str) and v:

@@ -2,7 +2,8 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Any, Iterable
+from typing import Any
+from collections.abc import Iterable
 
 __all__ = ["FIELD_LABELS", "TEMPLATES", "Problem", "label_for", "path_label", "render",
            "problems_from_validation", "one_line"]
@@ -202,8 +203,8 @@ def render(code: str, **ctx: Any) -> str:
     if code.endswith(".out_of_range"):
         kind = ctx.get("kind") or code.rsplit(".", 1)[0]
         try:
-            below = float(ctx.get("value")) < float(ctx.get("low"))
-        except (TypeError, ValueError):
+            below = float(ctx["value"]) < float(ctx["low"])
+        except (KeyError, TypeError, ValueError):
             below = False
         # The hints name the usual mistake for a value that is too high (°F for °C, % for mg/L...).
         ctx.setdefault("hint", "." if below and kind in ("temp", "do_percent", "do_mg_l", "calibration_reading")

@@ -25,7 +25,8 @@ from __future__ import annotations
 
 import copy
 import uuid
-from typing import Any, Callable
+from typing import Any
+from collections.abc import Callable
 
 from core.records.models import SCHEMA_VERSION
 from core.store.errors import InvalidRecord, NewerSchemaError

@@ -8,14 +8,12 @@ import types
 import typing
 import uuid
 from dataclasses import dataclass, field
-from datetime import datetime
 from functools import cache
 from pathlib import Path
 from typing import Any, Literal
 
 from core.science._validate import ambiguous_comma
-from pydantic import (AwareDatetime, BaseModel, ConfigDict, Field, ValidationError,
-                      field_validator, model_serializer, model_validator)
+from pydantic import (AwareDatetime, BaseModel, ConfigDict, Field, field_validator, model_serializer, model_validator)
 from pydantic_core import PydanticCustomError
 
 __all__ = [
@@ -185,7 +183,7 @@ class FlagRecord(_Record):
     field: str | None = None
 
     @classmethod
-    def from_flag(cls, flag: Any) -> "FlagRecord":
+    def from_flag(cls, flag: Any) -> FlagRecord:
         sev = getattr(flag.severity, "value", flag.severity)
         return cls(code=flag.code, severity=sev, message=flag.message, action=flag.action or "",
                    field=flag.field)
@@ -231,7 +229,7 @@ def _check_quantity(q: Quantity | None, kind: str, units: tuple[str, ...]) -> Qu
     key = kind
     if kind == "do":
         key = "do_percent" if q.unit == "%" else "do_mg_l"
-    low, high, unit = LIMITS[key]
+    low, high, _unit = LIMITS[key]
     if not (low <= q.value <= high):
         raise _range_error(key, kind, q.value, q.unit)
     return q
@@ -264,7 +262,7 @@ class Site(_Record):
 
     @field_validator("elevation_m")
     @classmethod
-    def _elev(cls, v: float) -> float:
+    def _elev(cls, v: float | None) -> float | None:
         return _check_range(v, "elevation")
 
     @field_validator("latitude")
@@ -310,22 +308,22 @@ class Calibration(_Record):
 
     @field_validator("temp")
     @classmethod
-    def _t(cls, v: Quantity) -> Quantity:
+    def _t(cls, v: Quantity | None) -> Quantity | None:
         return _check_quantity(v, "temp", ("°C",))
 
     @field_validator("pressure")
     @classmethod
-    def _p(cls, v: Quantity) -> Quantity:
+    def _p(cls, v: Quantity | None) -> Quantity | None:
         return _check_quantity(v, "pressure", ("hPa",))
 
     @field_validator("reading_mg_l")
     @classmethod
-    def _r(cls, v: float) -> float:
+    def _r(cls, v: float | None) -> float | None:
         return _check_range(v, "calibration_reading")
 
     @field_validator("tolerance_mg_l")
     @classmethod
-    def _tol(cls, v: float) -> float:
+    def _tol(cls, v: float | None) -> float | None:
         return _check_range(v, "tolerance")
 
 
@@ -365,7 +363,7 @@ class LabResult(_Record):
     notes: str = Field(default="", max_length=2000)
 
     @model_validator(mode="after")
-    def _status_agrees(self) -> "LabResult":
+    def _status_agrees(self) -> LabResult:
         # A result built only with ``valid=False`` is invalid; one with ``superseded_by`` is
         # superseded — so a writer that sets one of them cannot leave the other saying otherwise.
         if self.superseded_by and self.status != "superseded":
@@ -653,7 +651,7 @@ class Trip(_Record):
         return self.__pydantic_extra__ if self.__pydantic_extra__ is not None else {}
 
     @model_validator(mode="after")
-    def _ended_after_start(self) -> "Trip":
+    def _ended_after_start(self) -> Trip:
         if self.ended_at is not None and self.ended_at < self.started_at:
             raise PydanticCustomError("time.end_before_start", "ended before it started",
                                       {"field": "ended_at"})
@@ -681,7 +679,7 @@ class Trip(_Record):
         return self.model_dump(mode="json")
 
     @classmethod
-    def from_document(cls, doc: dict[str, Any]) -> "Trip":
+    def from_document(cls, doc: dict[str, Any]) -> Trip:
         """Validates a JSON document (current schema version) strictly, as JSON text would be."""
         from core.store.atomic import canonical_json_bytes
 
@@ -702,14 +700,14 @@ class RoleNode:
 
     model: str
     roles: dict[str, str] = field(default_factory=dict)
-    children: dict[str, "RoleNode"] = field(default_factory=dict)
+    children: dict[str, RoleNode] = field(default_factory=dict)
     #: fields whose content an import or a merge never removes
     retained: frozenset[str] = frozenset()
 
     def role(self, key: str) -> str:
         return self.roles.get(key, INPUT)
 
-    def child(self, key: str) -> "RoleNode":
+    def child(self, key: str) -> RoleNode:
         return self.children.get(key, _LEAF)
 
     def keys(self, *roles: str) -> frozenset[str]:

@@ -23,9 +23,11 @@ local regulations decide what a finding means for the result.
 """
 from __future__ import annotations
 
+import itertools
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
-from typing import Any, Iterable
+from typing import Any
+from collections.abc import Iterable
 
 from core.flags import Flag, Severity
 from core.records.models import Bottle, CustodyRecord, Quantity, Signature, Stop, Trip, new_id
@@ -229,7 +231,7 @@ def custody_chains(trip: Trip) -> list[BottleCustody]:
                               f"Bottle {b.label} has no hand-off on record.",
                               "Record who took the bottle from the field crew (streamtab custody add).",
                               "custody"))
-        for prev, hop in zip(hops, hops[1:]):
+        for prev, hop in itertools.pairwise(hops):
             if not same_person(prev.received_by, hop.relinquished_by):
                 flags.append(Flag("custody.gap", Severity.WARNING,
                                   f"Bottle {b.label} was handed over by {hop.relinquished_by} at {_when(hop.at)},"

@@ -26,7 +26,8 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
-from typing import Any, Iterable
+from typing import Any
+from collections.abc import Iterable
 
 from core.flags import Flag, Severity
 from core.records.models import Bottle, FlagRecord, LabResult, Stop, Trip, new_id
@@ -192,7 +193,7 @@ def _sev_rank(f: Flag) -> int:
 
 def _analysis_bottle(trip: Trip, bottle_ref: str, kinds: tuple[str, ...], not_kind: str,
                      analysed_at: datetime, now: datetime,
-                     settings: "LabSettings") -> tuple[Stop, Bottle, list[Flag]]:
+                     settings: LabSettings) -> tuple[Stop, Bottle, list[Flag]]:
     """The bottle an analysis is for: found by label, of a kind that analysis takes, analysed
     neither before it was collected nor in the future."""
     stop, bottle, flags = find_bottle(trip, bottle_ref, kinds)
@@ -257,7 +258,7 @@ def _check_times(analysed_at: datetime, now: datetime, settings: LabSettings, bo
                                   f" ({bottle.collected_at.isoformat()}); accepted: a time after collection")
 
 
-def _notes(analyst_notes: str, flags: list[Flag], extra: list[str] = ()) -> str:
+def _notes(analyst_notes: str, flags: list[Flag], extra: Iterable[str] = ()) -> str:
     parts = [analyst_notes.strip()] if analyst_notes and analyst_notes.strip() else []
     parts.extend(extra)
     parts.extend(f"{f.severity.value if hasattr(f.severity, 'value') else f.severity}: {f.message}" for f in flags)
@@ -404,7 +405,7 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
                                "standard": "potassium bi-iodate, KH(IO3)2",
                                "standardised_at": (standardisation.standardised_at.isoformat()
                                                    if standardisation.standardised_at else None)}
-    else:
+    elif normality is not None:
         n = normality
         src = {"kind": "entered"}
     try:
@@ -499,7 +500,7 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
         entered = {k: v for k, v in used.items() if k != "normality"}
         if normality is not None:
             entered["normality"] = normality
-    extra = [f"Re-titration: {redo_reason.strip()}."] if prev is not None else []
+    extra = [f"Re-titration: {(redo_reason or '').strip()}."] if prev is not None else []
     result = LabResult(
         id=new_id(), analyte=WINKLER_ANALYTE, value=do, unit="mg/L", analysed_at=analysed_at,
         analyst=(analyst or "").strip()[:40], method=WINKLER_METHOD,
@@ -585,7 +586,7 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
     derived["dilutions"] = [d.to_dict() for d in r.dilutions]
     derived["valid_dilutions"] = sum(1 for d in r.dilutions if d.valid)
 
-    for value, field, check, code, missing, action in (
+    for value, name, check, code, missing, action in (
             (blank_depletion_mg_l, "blank_depletion_mg_l", blank_check, "lab.bod_blank_missing",
              "No dilution-water blank is recorded for this BOD result.",
              "Record the batch's blank depletion (≤ 0.20 mg/L accepted)."),
@@ -593,13 +594,13 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
              "No glucose–glutamic acid check is recorded for this BOD result.",
              "Record the batch's GGA check (198 ± 30.5 mg/L accepted).")):
         if value is None:
-            flags.append(_flag(code, Severity.NOTE, missing, action, field))
+            flags.append(_flag(code, Severity.NOTE, missing, action, name))
             continue
         try:
             f = check(value)
         except ValueError as exc:
-            raise LabInputError(field, str(exc).splitlines()[0]) from None
-        derived[field] = float(value)
+            raise LabInputError(name, str(exc).splitlines()[0]) from None
+        derived[name] = float(value)
         if f is not None:
             flags.append(f)
     if incubator_temp_c is not None:
@@ -656,10 +657,10 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
                      ("gga_bod_mg_l", gga_bod_mg_l), ("incubator_temp_c", incubator_temp_c)):
             if v is not None:
                 entered[k] = v
-        if incubation_start is not None:
+        if incubation_start is not None and incubation_end is not None:
             entered["incubation_start"] = incubation_start.isoformat()
             entered["incubation_end"] = incubation_end.isoformat()
-    extra = [f"Repeat analysis: {redo_reason.strip()}."] if prev is not None else []
+    extra = [f"Repeat analysis: {(redo_reason or '').strip()}."] if prev is not None else []
     result = LabResult(
         id=new_id(), analyte=BOD_ANALYTE, value=r.bod_mg_l, unit="mg/L", analysed_at=analysed_at,
         analyst=(analyst or "").strip()[:40], method=BOD_METHOD,

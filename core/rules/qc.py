@@ -32,7 +32,8 @@ from __future__ import annotations
 
 from collections import Counter
 from datetime import datetime
-from typing import Any, Iterable
+from typing import Any
+from collections.abc import Iterable
 
 from core.flags import Flag, Severity
 from core.records.models import (DERIVED, Calibration, Derived, FlagRecord, ProgramSettings, Site, Stop, Trip,
@@ -171,11 +172,11 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
     doc = trip.model_dump(mode="json")
     old_stops: dict[str, dict[str, Any]] = {}
     if previous is not None:
-        old_stops = {s.get("id"): s for s in previous.get("stops") or [] if isinstance(s, dict)}
+        old_stops = {s["id"]: s for s in previous.get("stops") or [] if isinstance(s, dict) and "id" in s}
     bases = {} if bases is None else bases
     derived_keys = keys_by_role(DERIVED, model=Stop)
     new_stops: list[Stop] = []
-    for stop, stop_doc in zip(trip.stops, doc["stops"]):
+    for stop, stop_doc in zip(trip.stops, doc["stops"], strict=True):
         site = sites.get(stop.site_id)
         if stop.site_id not in bases:
             bases[stop.site_id] = derive_basis(site, settings)
@@ -299,9 +300,9 @@ def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Si
                                    f"({previous.site_id}), more than {settings.temp_jump_c:g} °C.",
                                    "Confirm the reading and that the probe had settled.", "temp"))
         if stop.conductivity is not None and previous.conductivity is not None:
-            a, b = stop.conductivity.value, previous.conductivity.value
-            if min(a, b) > 0:
-                ratio = max(a, b) / min(a, b)
+            pair = (stop.conductivity.value, previous.conductivity.value)
+            if min(pair) > 0:
+                ratio = max(pair) / min(pair)
                 if ratio > settings.conductivity_jump_ratio:
                     flags.append(_flag("conductivity.jump", Severity.WARNING,
                                        f"Conductivity changed by a factor of {ratio:.1f} since the previous stop "

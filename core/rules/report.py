@@ -74,7 +74,7 @@ def _sig(value: float | None, digits: int) -> str:
         return "—"
     if value == 0:
         return "0"
-    places = digits - 1 - int(math.floor(math.log10(abs(value))))
+    places = digits - 1 - math.floor(math.log10(abs(value)))
     return f"{round(value, places):.{max(0, places)}f}"
 
 

@@ -10,7 +10,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from datetime import date, datetime
-from typing import Any, Iterable
+from typing import Any
+from collections.abc import Iterable
 
 from core.records.models import ProgramSettings, Site, Stop, Trip
 
@@ -164,7 +165,7 @@ def site_series(trips: Iterable[Trip], site_id: str, flt: SeasonFilter | None = 
     from core.rules.lab import WINKLER_ANALYTE, current_result
 
     flt = flt or SeasonFilter()
-    rows = []
+    rows: list[dict[str, Any]] = []
     for trip in trips:
         if not trip_in_season(trip, flt):
             continue

@@ -133,7 +133,8 @@ def ambiguous_comma(number_text: str) -> bool:
     if not sep:
         return False
     whole = head.strip().lstrip("+-")
-    digits = re.match(r"\d*", tail).group(0)
+    m = re.match(r"\d*", tail)  # always matches, perhaps the empty string
+    digits = m.group(0) if m else ""
     return len(digits) == 3 and whole.isdigit() and whole.lstrip("0") != ""
 
 

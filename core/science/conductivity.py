@@ -5,6 +5,7 @@ import csv
 import functools
 import io
 import re
+from typing import Any
 from importlib import resources
 
 import numpy as np
@@ -32,8 +33,8 @@ KCL_ALPHA_PER_C = 0.0191
 #: Conductivity of standard seawater (S = 35, 15 °C IPTS-68, 0 dbar), mS/cm (as in TEOS-10's GSW-C).
 C3515_MS_CM = 42.9140
 
-_COND_DOMAIN = dict(lo=0.0, hi=300000.0, unit="µS/cm", note=" (saturated brine is about 250 000 µS/cm)")
-_TEMP_DOMAIN = dict(lo=-5.0, hi=90.0, unit="°C", note=" (liquid water)")
+_COND_DOMAIN: dict[str, Any] = dict(lo=0.0, hi=300000.0, unit="µS/cm", note=" (saturated brine is about 250 000 µS/cm)")
+_TEMP_DOMAIN: dict[str, Any] = dict(lo=-5.0, hi=90.0, unit="°C", note=" (liquid water)")
 _ISO_RANGE_C = (0.0, 36.0)  # the ISO 7888 table runs 0.0–35.9 °C
 
 # PSS-78 coefficients (UNESCO 1983, Technical Papers in Marine Science 44; as in GSW-C).

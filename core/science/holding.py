@@ -72,13 +72,12 @@ class HoldingClock:
     remaining_s: float
     expired: bool
     flag: Flag | None
-    rule: HoldingRule | None = None
+    rule: HoldingRule
 
     def to_dict(self) -> dict:
         return {"kind": self.kind, "deadline": self.deadline.isoformat(), "remaining_s": self.remaining_s,
                 "expired": self.expired, "flag": None if self.flag is None else self.flag.to_dict(),
-                "hours": None if self.rule is None else self.rule.hours,
-                "citation": None if self.rule is None else self.rule.citation}
+                "hours": self.rule.hours, "citation": self.rule.citation}
 
 
 def _rule(kind: str, overrides: dict[str, float] | None) -> HoldingRule:

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import math
+from typing import Any
 
 import numpy as np
 
@@ -28,9 +29,9 @@ _MG_PER_UMOL_O2 = 0.0319988  # molar mass of O2, 31.9988 g/mol
 _T68_PER_T90 = 1.00024  # IPTS-68 from ITS-90 near 0–40 °C (Saunders 1990)
 
 # Domain in which a value is possible at all (outside: ValueError). Liquid water under air.
-_TEMP_DOMAIN = dict(lo=-5.0, hi=90.0, unit="°C", note=" (liquid water under air; the equations are fitted to 0–40 °C)")
-_SAL_DOMAIN = dict(lo=0.0, hi=70.0, unit="", note=" (practical salinity; the equations are fitted to 0–40)")
-_P_DOMAIN = dict(lo=0.0, hi=1500.0, lo_open=True, unit="hPa",
+_TEMP_DOMAIN: dict[str, Any] = dict(lo=-5.0, hi=90.0, unit="°C", note=" (liquid water under air; the equations are fitted to 0–40 °C)")
+_SAL_DOMAIN: dict[str, Any] = dict(lo=0.0, hi=70.0, unit="", note=" (practical salinity; the equations are fitted to 0–40)")
+_P_DOMAIN: dict[str, Any] = dict(lo=0.0, hi=1500.0, lo_open=True, unit="hPa",
                  note=" (station air pressure; the equations are fitted to 507–1115 hPa)")
 
 # Benson & Krause (1984) as in Standard Methods 4500-O Table 4500-O:I, mg/L, 1 atm.
@@ -400,7 +401,8 @@ def do_saturation_mg_l(temp_c, pressure_hpa=1013.25, salinity=0.0, method="benso
         tf, pf, sf = (a if np.ndim(a) == 0 else np.ravel(a) for a in (t, p, s))
         for i in range(0, size, _CHUNK):
             j = min(i + _CHUNK, size)
-            flat[i:j] = _sat_block(*(a if np.ndim(a) == 0 else a[i:j] for a in (tf, pf, sf)), method, i)
+            tb, pb, sb = (a if np.ndim(a) == 0 else a[i:j] for a in (tf, pf, sf))
+            flat[i:j] = _sat_block(tb, pb, sb, method, i)
         return out
     return _sat_block(t, p, s, method, 0)
 

@@ -64,7 +64,7 @@ def parse_temperature(text: str, default_unit: str = "C") -> float:
         raise ValueError(f"temperature {text!r} is not a number with an optional unit; accepted units:"
                          " C, F, K (e.g. '18.5 C')")
     value = decimal(m.group(1), "temperature")
-    unit = du
+    unit: str | None = du
     if m.group(2):
         unit = _ALIASES.get(m.group(2).strip().lower().replace(" ", ""))
         if unit is None:

@@ -20,9 +20,7 @@ _WHERE = {
     "AtomicJSONStorage": "core.store.storage", "DeviceStore": "core.store.device",
     "MergeOutcome": "core.store.device",
     "TripSummary": "core.store.index", "diff_paths": "core.store.audit",
-    **{name: "core.store.errors" for name in (
-        "CorruptFile", "InvalidRecord", "NewerSchemaError", "StaleTrip", "StoreError", "StoreLocked",
-        "StoreWriteError", "TripNotFound")},
+    **dict.fromkeys(("CorruptFile", "InvalidRecord", "NewerSchemaError", "StaleTrip", "StoreError", "StoreLocked", "StoreWriteError", "TripNotFound"), "core.store.errors"),
 }
 
 if TYPE_CHECKING:  # pragma: no cover

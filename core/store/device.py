@@ -38,6 +38,7 @@ from core.records.migrations import migrate
 from core.records.models import (
     BOOKKEEPING,
     SCHEMA_VERSION,
+    AuditChange,
     AuditEntry,
     ProgramSettings,
     Site,
@@ -143,6 +144,7 @@ class DeviceStore:
         self._files = TripFiles(self._trips_dir)
         self._index = SummaryIndex(self._index_dir)
         self._tables = Tables(self.data_dir, self._quarantine)
+        self._finalizer: Any = None     # in_memory(): removes the temporary folder with the store
         self._bases: tuple[Any, dict[str, str]] = (None, {})
 
     # -- opening ---------------------------------------------------------------------------
@@ -661,7 +663,8 @@ class DeviceStore:
         entry = AuditEntry(at=now, device_id=self.device_id, change=str(change)[:400] or "saved",
                            revision=revision,
                            fields=[c["path"] for c in changes] if stored is not None else ["(new trip)"],
-                           changes=changes, by=(by or None) and str(by)[:80],
+                           changes=[AuditChange.model_validate(c) for c in changes],
+                           by=(by or None) and str(by)[:80],
                            reason=(reason or None) and str(reason)[:400])
         entry_doc = entry.model_dump(mode="json")
         same_audit = new_doc.get("audit") == incoming_audit

@@ -7,7 +7,7 @@ caller (the device store) holds its lock around writes and validates the records
 """
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, MutableMapping
 from pathlib import Path
 from typing import Any
 
@@ -34,9 +34,9 @@ def _stamp(path: Path) -> Stamp:
         return (0, 0)
 
 
-def _replace_with(new: dict[str, Any]) -> Callable[[dict[str, Any]], None]:
+def _replace_with(new: dict[str, Any]) -> Callable[[MutableMapping[Any, Any]], None]:
     """A TinyDB update that replaces a document's fields (keys it no longer has are dropped)."""
-    def replace(doc: dict[str, Any]) -> None:
+    def replace(doc: MutableMapping[Any, Any]) -> None:
         doc.clear()
         doc.update(new)
     return replace

@@ -8,7 +8,7 @@ the folder), so a reader or a crash sees the old file or the new one, never a pa
 from __future__ import annotations
 
 import re
-from collections.abc import Callable
+from collections.abc import Callable, MutableMapping
 from pathlib import Path
 from typing import Any
 
@@ -30,8 +30,8 @@ class Unreadable(Exception):
     """A trip file that does not parse (the reason is the message)."""
 
 
-def _replace_with(new: dict[str, Any]) -> Callable[[dict[str, Any]], None]:
-    def replace(doc: dict[str, Any]) -> None:
+def _replace_with(new: dict[str, Any]) -> Callable[[MutableMapping[Any, Any]], None]:
+    def replace(doc: MutableMapping[Any, Any]) -> None:
         doc.clear()
         doc.update(new)
     return replace
@@ -106,7 +106,9 @@ class TripFiles:
         table = db.table(TABLE)
         if not exists or not table.update(_replace_with(doc), doc_ids=[_DOC_ID]):
             table.insert(Document(doc, doc_id=_DOC_ID))
-        file_bytes, tables = db.storage.written, db.storage.written_data
+        storage = db.storage
+        assert isinstance(storage, AtomicJSONStorage)
+        file_bytes, tables = storage.written, storage.written_data
         if file_bytes is None or tables is None:  # pragma: no cover - TinyDB always writes through it
             raise OSError("the trip file was not written")
         self._cache[doc["id"]] = (file_bytes, doc_bytes, doc, tables)

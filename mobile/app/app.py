@@ -5,7 +5,8 @@ import os
 import sys
 import time
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any, ClassVar
+from collections.abc import Callable
 
 HERE = Path(__file__).resolve().parent
 FONT_NAME = "StreamSans"
@@ -86,7 +87,7 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
             Window.bind(on_keyboard=self._back_key)
             return self.root
 
-        BACK = {"stop": "trips", "bottles": "stop", "end": "stop", "start": "trips",
+        BACK: ClassVar[dict[str, str]] = {"stop": "trips", "bottles": "stop", "end": "stop", "start": "trips",
                 "sync": "trips", "settings": "trips"}
 
         def _back_key(self, _window, key, *_args):

@@ -9,7 +9,8 @@ from __future__ import annotations
 
 import copy
 from datetime import datetime
-from typing import Any, Callable
+from typing import Any
+from collections.abc import Callable
 
 from mobile.app import device_files, records_bridge
 from mobile.app.device_files import AppPrefs
@@ -255,7 +256,7 @@ class AppController:
             return "trips", None
         try:
             self.open_trip(trip_id)
-        except Exception:
+        except Exception:  # noqa: BLE001 - an unreadable trip: start from the trip list, the store reports it
             return "trips", None
         if self.trip.ended_at:
             return "trips", None
@@ -402,7 +403,7 @@ class AppController:
         lines: list[FlagLine] = [error_line(m, k) for k, m in errors.items()]
         if record is None:
             if not stop.site_id:
-                sym, word = severity_mark("note")
+                sym, _word = severity_mark("note")
                 lines.insert(0, FlagLine("input.site", "note", sym, "PICK SITE",
                                          "Pick the site first: its elevation checks the pressure, "
                                          "its water class the criteria.", ""))
@@ -478,7 +479,7 @@ class AppController:
         if self._other_labels is None:
             try:
                 used = dict(self.store.bottle_labels_in_use())
-            except Exception:
+            except Exception:  # noqa: BLE001 - the duplicate-label check is advisory; the save still runs
                 used = {}
             self._other_labels = {k: v for k, v in used.items() if not self.trip or v != self.trip.id}
         return self._other_labels

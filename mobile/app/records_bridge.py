@@ -174,7 +174,7 @@ def form_from_trip(trip: Any) -> TripForm:
         f = StopForm(id=s.id, site_id=s.site_id, arrived_at=s.arrived_at.astimezone(),
                      cond_is_sc25=s.conductivity_is_sc25, notes=s.notes, closed=s.closed_at is not None,
                      closed_at=s.closed_at.astimezone() if s.closed_at else None)
-        for name, attr_text, attr_unit in (("temp", "temp_text", "temp_unit"),
+        for name, attr_text, _attr_unit in (("temp", "temp_text", "temp_unit"),
                                            ("pressure", "pressure_text", "pressure_unit"),
                                            ("conductivity", "cond_text", "cond_unit"),
                                            ("do", "do_text", "do_unit")):

@@ -3,7 +3,8 @@ from __future__ import annotations
 
 import queue
 import threading
-from typing import Any, Callable
+from typing import Any
+from collections.abc import Callable
 
 __all__ = ["SaveWorker"]
 
@@ -12,7 +13,7 @@ class SaveWorker:
     """One background thread that runs store writes in order; a newer job for a trip replaces a waiting one."""
 
     def __init__(self, on_error: Callable[[BaseException], None] | None = None) -> None:
-        self._q: "queue.Queue[str]" = queue.Queue()   # trip ids with a job waiting
+        self._q: queue.Queue[str] = queue.Queue()   # trip ids with a job waiting
         self._pending: dict[str, Callable[[], Any]] = {}
         self._lock = threading.Lock()
         self._idle = threading.Event()
@@ -37,7 +38,7 @@ class SaveWorker:
             if job is not None:
                 try:
                     job()
-                except BaseException as exc:  # reported to the screen; the worker keeps going
+                except BaseException as exc:  # noqa: BLE001 - reported to the screen; the worker keeps going
                     if self._on_error:
                         self._on_error(exc)
             with self._lock:

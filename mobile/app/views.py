@@ -45,7 +45,7 @@ def flag_line(flag: Any) -> FlagLine:
 
 
 def error_line(message: str, field_name: str = "") -> FlagLine:
-    symbol, word = severity_mark("stop-and-check")
+    symbol, _word = severity_mark("stop-and-check")
     return FlagLine(f"input.{field_name or 'value'}", "stop-and-check", symbol, "CHECK ENTRY",
                     message, "")
 

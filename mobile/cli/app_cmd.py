@@ -121,7 +121,7 @@ def run(args) -> int:  # noqa: ANN001 - argparse namespace
                 if value:
                     argv += [flag, value]
             try:
-                return subprocess.run(argv, env=env, timeout=120).returncode
+                return subprocess.run(argv, env=env, timeout=120, check=False).returncode
             except subprocess.TimeoutExpired:
                 fail("drawing the snapshot took over 120 s on the virtual display; nothing was written")
         sys.stderr.write("streamtab: no display here (DISPLAY is not set), so the app cannot open a window; "

@@ -91,7 +91,7 @@ def _list(args) -> int:  # noqa: ANN001
         return 0
     if not records:
         sys.stdout.write(f"trip {trip.id[:8]}: no hand-offs recorded\n")
-    for r, d in zip(sorted(trip.custody, key=lambda r: r.at), records):
+    for r, d in zip(sorted(trip.custody, key=lambda r: r.at), records, strict=True):
         temp = f", {r.temp.value:g} °C on receipt" if r.temp else ""
         cond = f", {r.condition}" if r.condition else ""
         signed = "signed" if r.signed else "unsigned"

@@ -150,7 +150,7 @@ def _flag_rows(flags: list[dict]) -> list[tuple[str, str]]:
 
 
 def _winkler(args) -> int:  # noqa: ANN001
-    from core.rules.lab import CAUTION, LabInputError, Standardisation, record_winkler
+    from core.rules.lab import CAUTION, Standardisation, record_winkler
 
     ml = ("mL", "ml")
     titrant = _number(args.titrant_ml, "--titrant-ml", "thiosulfate used in mL, 0 to 100", ml)
@@ -271,7 +271,7 @@ def _read_sheet(path_text: str, bottle: str) -> tuple[Any, Any]:
 
 
 def _bod(args) -> int:  # noqa: ANN001
-    from core.rules.lab import LabInputError, record_bod
+    from core.rules.lab import record_bod
 
     if (args.dilutions is None) == (args.sheet is None):
         fail("give the dilutions as --sheet FILE.csv (a bench sheet) or --dilutions FILE.json, one of the two")

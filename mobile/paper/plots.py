@@ -43,7 +43,7 @@ def trip_do_figure(points: list[Any], *, title: str = ""):
     crit = [p.criterion_mg_l if p.criterion_mg_l is not None else float("nan") for p in points]
     if any(c == c for c in crit):
         ax.step(xs, crit, where="mid", **STYLES["criterion"])
-    wx = [x for x, p in zip(xs, points) for _ in p.winkler_mg_l]
+    wx = [x for x, p in zip(xs, points, strict=True) for _ in p.winkler_mg_l]
     wy = [v for p in points for v in p.winkler_mg_l]
     if wy:
         ax.plot(wx, wy, **STYLES["winkler"])

@@ -326,7 +326,7 @@ def sizes(p):
     yield 0.1
     s.ids.do_value.focus = True
     yield 0.3
-    x, y = s.ids.do_value.to_window(s.ids.do_value.x, s.ids.do_value.y)
+    _x, y = s.ids.do_value.to_window(s.ids.do_value.x, s.ids.do_value.y)
     _, top = s.form_scroll.to_window(0, s.form_scroll.top)
     p.note("field_bottom_y", y)
     p.note("field_top_y", y + s.ids.do_value.height)

@@ -83,7 +83,7 @@ def test_seed_demo_moves_only_the_open_trip_to_today(tmp_path):
             last = max(stop.arrived_at for stop in trip.stops)
             assert timedelta(minutes=38) <= before - last <= timedelta(minutes=43)
             shift = trip.started_at - datetime.fromisoformat(src["started_at"])
-            for stop, src_stop in zip(trip.stops, src["stops"]):
+            for stop, src_stop in zip(trip.stops, src["stops"], strict=True):
                 assert stop.arrived_at - datetime.fromisoformat(src_stop["arrived_at"]) == shift
                 assert stop.temp.text == src_stop["temp"]["text"]
         else:

@@ -162,7 +162,7 @@ def test_open_conflicts_reach_the_attention_list(ctl):
                          "sides": [{"device_id": "dev-a", "value": "riffle"}, {"device_id": "dev-b", "value": "pool"}]}]
     ctl.store.put_document(doc, "merged by sync", expected_revision=doc["revision"])
     ctl.open_trip(ctl.trip.id)
-    lines = [l for l in ctl.attention_lines() if "CONFLICT" in l]
+    lines = [line for line in ctl.attention_lines() if "CONFLICT" in line]
     assert len(lines) == 1 and "stops[0].notes" in lines[0] and "dev-a" in lines[0]
 
 

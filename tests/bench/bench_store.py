@@ -45,7 +45,7 @@ def _device(root: Path, trips: int, rnd: random.Random) -> tuple[DeviceStore, st
 
 def _percentile(values: list[float], q: float) -> float:
     ordered = sorted(values)
-    k = max(0, min(len(ordered) - 1, int(round(q * (len(ordered) - 1)))))
+    k = max(0, min(len(ordered) - 1, round(q * (len(ordered) - 1))))
     return ordered[k]
 
 

@@ -1,7 +1,6 @@
 """The BOD bench sheet: CSV round trip, `lab bod --sheet` against Standard Methods arithmetic, the printed sheet."""
 from __future__ import annotations
 
-import json
 
 import pytest
 from pypdf import PdfReader

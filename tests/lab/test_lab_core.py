@@ -486,17 +486,14 @@ def test_meter_disagreement_mentions_a_failed_calibration():
 
 
 def test_lab_core_is_pure():
-    # The core has no clock and no disk (team rules): no imports of the store, shells or UI, no now().
+    # The core has no clock and no disk (team rules): no now(), no file writes. What it may import
+    # is checked by the import-linter contracts in pyproject.toml (`make check`).
     import ast
     from pathlib import Path
 
     import core.rules.lab
 
     tree = ast.parse(Path(core.rules.lab.__file__).read_text(encoding="utf-8"))
-    imported = {a.name for n in ast.walk(tree) if isinstance(n, ast.Import) for a in n.names}
-    imported |= {n.module for n in ast.walk(tree) if isinstance(n, ast.ImportFrom) and n.module}
-    assert not {m for m in imported if m.split(".")[0] in ("mobile", "sync", "kivy", "requests", "os", "time")}
-    assert "core.store" not in imported and "core.store.atomic" not in imported
     calls = {n.func.attr if isinstance(n.func, ast.Attribute) else getattr(n.func, "id", "")
              for n in ast.walk(tree) if isinstance(n, ast.Call)}
     assert not calls & {"now", "utcnow", "today", "open", "write_text", "write_bytes"}

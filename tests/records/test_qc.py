@@ -129,7 +129,7 @@ def test_bottle_label_used_elsewhere_on_device_fires():
 
 
 def test_bottle_label_of_this_trip_itself_passes():
-    found, trip = codes([make_stop(bottles=[make_bottle("TV-0800")])])
+    _found, trip = codes([make_stop(bottles=[make_bottle("TV-0800")])])
     again = trip_flags(trip, SETTINGS, T0 + timedelta(hours=1), other_bottle_labels={"TV-0800": trip.id}, sites=SITES)
     assert "bottle.duplicate_label" not in [f.code for f in again[trip.stops[0].id]]
 
@@ -227,7 +227,7 @@ def test_unknown_site_fires_and_passes():
 
 def test_flags_are_worst_first_and_carry_actions():
     a = make_stop(temp="20", pressure=ATM, do="1.5", bottles=[make_bottle("W", kind="do-fixed")])
-    found, trip = codes([a])
+    _found, trip = codes([a])
     flags = trip_flags(trip, SETTINGS, T0 + timedelta(hours=1), sites=SITES)[trip.stops[0].id]
     ranks = [f.severity.rank for f in flags]
     assert ranks == sorted(ranks, reverse=True) and flags[0].severity == Severity.STOP

@@ -4,17 +4,16 @@ from __future__ import annotations
 
 import json
 import os
-from pathlib import Path
 
 import pytest
 from tinydb import TinyDB
 
-from core.store.atomic import canonical_json_bytes, content_hash
+from core.store.atomic import content_hash
 from core.records.migrations import migrate
 from core.records.models import SCHEMA_VERSION, ProgramSettings, Site, Trip, measure
 from core.store import (AtomicJSONStorage, CorruptFile, DeviceStore, InvalidRecord, NewerSchemaError, StaleTrip,
-                        StaleTrip, TripNotFound)
-from tests.records.conftest import T0, FakeClock, make_bottle, make_stop, make_trip
+                        TripNotFound)
+from tests.records.conftest import FakeClock, make_bottle, make_stop, make_trip
 
 
 def test_save_and_load_round_trip(store):

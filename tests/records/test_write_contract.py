@@ -172,7 +172,7 @@ def test_cli_reimport_keeps_the_lab_result(tmp_path):
     r = run_cli("lab", "winkler", HOT[:8], "TV-0701", "--titrant-ml", "12.1", "--normality", "0.025",
                 "--titrated-ml", "201", "--at", "2026-06-23T14:00-07:00", "--json", data_dir=data)
     assert r.returncode == 0, r.stderr
-    result_id = json.loads(r.stdout)["result_id"] if "result_id" in json.loads(r.stdout) else None
+    result_id = json.loads(r.stdout)["result"]["id"]
     for f in (exported, sample):                        # an older export and the original file
         r = run_cli("trip", "import", str(f), "--json", data_dir=data)
         assert r.returncode == 0, r.stderr
@@ -181,4 +181,4 @@ def test_cli_reimport_keeps_the_lab_result(tmp_path):
     assert r.returncode == 0, r.stderr
     assert "no lab results yet" not in r.stdout
     text = json.dumps(json.loads(r.stdout))
-    assert "TV-0701" in text and (result_id is None or result_id in text)
+    assert "TV-0701" in text and result_id in text

@@ -103,7 +103,7 @@ def test_parse_conductivity(text, us_cm):
 def test_parse_conductivity_refuses(text, word):
     with pytest.raises(ValueError) as e:
         parse_conductivity(text)
-    assert word in str(e.value) and "uS/cm" in str(e.value) or word in str(e.value)
+    assert (word in str(e.value) and "uS/cm" in str(e.value)) or word in str(e.value)
 
 
 def test_bad_values_refused():

@@ -59,7 +59,7 @@ def test_saturation_grows_with_pressure(t, s, p1, p2, m):
 @given(st.lists(st.tuples(temps, press, sals), min_size=1, max_size=20), methods)
 def test_scalar_and_array_paths_agree(points, m):
     # common practice: the math fast path and the numpy path are the same equation
-    t, p, s = (np.array(c) for c in zip(*points))
+    t, p, s = (np.array(c) for c in zip(*points, strict=True))
     arr = do_saturation_mg_l(t, p, s, m)
     for i, (ti, pi, si) in enumerate(points):
         assert math.isclose(arr[i], do_saturation_mg_l(ti, pi, si, m), rel_tol=1e-12)

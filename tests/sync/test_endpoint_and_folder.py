@@ -1,6 +1,5 @@
 """The HTTP POST endpoint target (Idempotency-Key from trip UUID and revision; 2xx accepted, 409
 conflict) and the folder target (atomic writes, names from UUIDs only, nothing overwritten)."""
-import os
 import shutil
 
 import pytest

@@ -60,7 +60,7 @@ def test_randomised_faults_then_clean_sync_leave_each_trip_exactly_once(dav, fau
     for t in trips:
         files = hub[t.id]
         contents = [f.read_bytes() for f in files]
-        assert all(name_matches(f.name, b) for f, b in zip(files, contents))
+        assert all(name_matches(f.name, b) for f, b in zip(files, contents, strict=True))
         assert len(set(contents)) == len(contents)
         revisions = [json.loads(b)["revision"] for b in contents]
         assert len(set(revisions)) == len(revisions)          # one file per revision

@@ -4,7 +4,6 @@ import json
 
 import sync
 from core.store.atomic import canonical_json_bytes
-from sync.outbox import Outbox
 from tests.sync.conftest import FaultProxy, dav_session, hub_files, new_trip
 
 
@@ -55,7 +54,7 @@ def test_damaged_outbox_entry_is_a_recheck_not_a_duplicate(dav, device_a):
 def test_outbox_records_revision_hash_and_etag(dav, device_a):
     t = new_trip(device_a)
     sync.push(device_a, dav.url, session=dav_session())
-    (box,) = [b for b in __import__("sync.outbox", fromlist=["hubs"]).hubs(device_a.data_dir)]
+    (box,) = list(__import__("sync.outbox", fromlist=["hubs"]).hubs(device_a.data_dir))
     e = box.get(t.id)
     doc = device_a.trip_document(t.id)
     assert e.pushed_revision == doc["revision"]

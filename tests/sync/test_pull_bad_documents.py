@@ -1,7 +1,6 @@
 """Every document read from a hub is checked before it touches the store; a bad one is
 quarantined with a report and the rest of the pull goes on (issue 5, section 2)."""
 import hashlib
-import json
 
 import sync
 from core.store.atomic import canonical_json_bytes

@@ -54,7 +54,7 @@ def test_same_field_changed_on_both_devices_is_a_readable_conflict(dav, device_a
     second = sync.push(order[1], dav.url, session=dav_session(order[1].device_id))
     assert second.conflicts == 1 and second.failed == 0
     lines = second.per_trip[0].conflicts
-    assert lines and any("tablet-A" in l and "tablet-B" in l for l in lines)
+    assert lines and any("tablet-A" in line and "tablet-B" in line for line in lines)
     assert len(lines) == 1 and "12.8 C" in lines[0] and "13.4 C" in lines[0]
     converge([device_a, device_b], dav.url)
     a, b = device_a.trip_document(t.id), device_b.trip_document(t.id)

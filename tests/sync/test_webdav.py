@@ -1,7 +1,6 @@
 """Push and pull against a real WebDAV server (wsgidav on 127.0.0.1), and the server and client
 traps measured on wsgidav and requests (RFC 4918 and RFC 9110 semantics; wsgidav behaviour as
 observed in its source, util.get_file_etag and request_server)."""
-import json
 import time
 from pathlib import Path
 

@@ -1,7 +1,7 @@
 """Sync never writes blind: a lab result saved by another program while a pull or a push of the same
 trip is in flight is merged with the hub's changes, never overwritten (real store, real wsgidav on
 127.0.0.1; three-way merge with the copy sync read as the ancestor, common practice)."""
-from datetime import datetime, timedelta, timezone
+from datetime import timedelta
 
 import pytest
 

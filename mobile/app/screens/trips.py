@@ -30,7 +30,7 @@ class TripsScreen(BaseScreen):
                 text="No trips on this tablet yet. Tap “Start a trip” to begin."))
         open_id = c.open_trip_id()
         self.has_open = bool(open_id)
-        self.open_title = next((l.title for l in lines if l.id == open_id), "")
+        self.open_title = next((line.title for line in lines if line.id == open_id), "")
 
     def open_row(self, row):
         c = ctl()
