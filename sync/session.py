@@ -452,7 +452,9 @@ class Session:
             http.mount("https://", adapter)
             http.trust_env = False          # no proxies or netrc picked up behind the user's back
             http.verify = self.ca_file if self.ca_file else True
-            http.headers["User-Agent"] = "streamtab-sync/0.1"
+            import core
+
+            http.headers["User-Agent"] = f"streamtab-sync/{core.version()}"
             if self.credentials is not None:
                 self.credentials.apply(http)
             self._http = http

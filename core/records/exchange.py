@@ -77,12 +77,13 @@ def read_sites_csv(path: Path | str) -> list[Site]:
             if col in _SITE_NUMBERS:
                 if raw == "":
                     if col in _SITE_REQUIRED:
-                        raise ExchangeError(f"{name}, line {line}: {label_for(col)} is required (metres above sea level).")
+                        raise ExchangeError(f"{name}, line {line}, column {col}: {label_for(col)} is required"
+                                            " (metres above sea level).")
                     continue
                 try:
                     doc[col] = parse_number(raw, col)
                 except InputError as exc:
-                    raise ExchangeError(f"{name}, line {line}: {exc.message}") from None
+                    raise ExchangeError(f"{name}, line {line}, column {col}: {exc.message}") from None
             elif col == "site_id":
                 doc["id"] = raw
             elif col == "water_class":
@@ -91,7 +92,7 @@ def read_sites_csv(path: Path | str) -> list[Site]:
             elif raw or col in _SITE_REQUIRED:
                 doc[col] = raw
         if not doc.get("id"):
-            raise ExchangeError(f"{name}, line {line}: Site code is required.")
+            raise ExchangeError(f"{name}, line {line}, column site_id: Site code is required.")
         if doc["id"] in seen:
             raise ExchangeError(f"{name}, line {line}: site {doc['id']} is listed twice (first on line {seen[doc['id']]}).")
         seen[doc["id"]] = line
@@ -102,7 +103,10 @@ def read_sites_csv(path: Path | str) -> list[Site]:
             msg = probs[0].message
             if probs[0].field == "id":
                 msg = msg.replace("ID", _SITE_LABELS["site_id"], 1)
-            raise ExchangeError(f"{name}, line {line}: {msg}") from None
+            # the column as the file spells it (the record calls site_id "id")
+            column = "site_id" if probs[0].field == "id" else probs[0].field
+            where = f", column {column}" if column in SITE_COLUMNS else ""
+            raise ExchangeError(f"{name}, line {line}{where}: {msg}") from None
     if not sites:
         raise ExchangeError(f"{name}: no sites found below the header row.")
     return sites

@@ -20,7 +20,7 @@ __all__ = [
     "SCHEMA_VERSION", "BOTTLE_KINDS", "WATER_CLASSES", "LIMITS",
     "Quantity", "FlagRecord", "Derived", "Site", "Calibration", "LabResult", "Bottle", "Stop",
     "RESULT_STATUSES", "AuditEntry", "AuditChange", "AUDIT_VALUE_BYTES", "ConflictSide", "Conflict", "ProgramSettings",
-    "Signature", "CustodyRecord", "Trip", "SIGNATURE_LIMITS",
+    "Signature", "CustodyRecord", "LabBatch", "Trip", "SIGNATURE_LIMITS",
     "InputError", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
     "INPUT", "DERIVED", "BOOKKEEPING", "LOG", "ROLES", "RETAINED", "RoleNode", "role_tree", "paths_by_role",
     "keys_by_role",
@@ -604,6 +604,33 @@ class CustodyRecord(_Record):
         return self.relinquished_signature is not None and self.received_signature is not None
 
 
+class LabBatch(_Record):
+    """A bench batch: the QC recorded once and applied to every bottle in it.
+
+    BOD: dilution-water blank depletion, the glucose–glutamic acid check, seed controls
+    (``{initial_do_mg_l, final_do_mg_l, seed_ml}`` each), incubation times and temperature.
+    Winkler: the thiosulfate standardisation (``std_titrant_ml`` of titrant on ``std_ml`` of
+    ``std_normality`` bi-iodate, at ``standardised_at``). ``bottle_ids`` are the bottles it covers.
+    """
+
+    id: str = _id_field()
+    name: str = Field(min_length=1, max_length=40)
+    created_at: AwareDatetime
+    analyst: str = Field(default="", max_length=40)
+    bottle_ids: list[str] = Field(default_factory=list)
+    blank_depletion_mg_l: float | None = None
+    gga_bod_mg_l: float | None = None
+    seed_controls: list[dict[str, float]] = Field(default_factory=list)
+    incubation_start: AwareDatetime | None = None
+    incubation_end: AwareDatetime | None = None
+    incubator_temp_c: float | None = None
+    std_titrant_ml: float | None = Field(None, gt=0.0, le=100.0)
+    std_ml: float = Field(20.0, gt=0.0, le=100.0)
+    std_normality: float = Field(0.025, gt=0.0, le=1.0)
+    standardised_at: AwareDatetime | None = None
+    notes: str = Field(default="", max_length=2000)
+
+
 _TRIP_FIELDS: set[str] = set()
 
 
@@ -635,14 +662,18 @@ class Trip(_Record):
     conflicts: list[Conflict] = Field(default_factory=list)
     #: Chain of custody of the trip's bottles, in the order entered (optional; absent when empty).
     custody: list[CustodyRecord] = Field(default_factory=list, json_schema_extra=RETAINED)
+    #: Bench batches whose QC applies to this trip's bottles (optional; absent when empty).
+    lab_batches: list[LabBatch] = Field(default_factory=list, json_schema_extra=RETAINED)
 
     @model_serializer(mode="wrap")
-    def _omit_empty_custody(self, handler: Any) -> Any:
-        # A trip without hand-offs is written exactly as before the field existed, so older
-        # documents keep their bytes and hashes and nobody's save records a change they never made.
+    def _omit_empty_optional_lists(self, handler: Any) -> Any:
+        # A trip without hand-offs or batches is written exactly as before those fields existed, so
+        # older documents keep their bytes and hashes and no save records a change nobody made.
         data = handler(self)
-        if isinstance(data, dict) and not data.get("custody"):
-            data.pop("custody", None)
+        if isinstance(data, dict):
+            for key in ("custody", "lab_batches"):
+                if not data.get(key):
+                    data.pop(key, None)
         return data
 
     @property

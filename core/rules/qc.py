@@ -55,10 +55,10 @@ RULE_CODES = (
 
 
 def core_version() -> str:
-    """The version of the science core that derived values (``core.__version__``)."""
+    """The version of the science core that derived values (:func:`core.version`)."""
     import core
 
-    return str(getattr(core, "__version__", "0+unknown"))
+    return core.version()
 
 
 # --------------------------------------------------------------------------------------------

@@ -154,5 +154,5 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
     return Assessment(
         do_sat_mg_l=sat, percent_saturation=pct, do_mg_l=do, salinity=s, salinity_source=source,
         specific_conductance_us_cm=None if sc25 is None else float(sc25), pressure_hpa=p, temp_c=t,
-        method=method, core_version=core.__version__, flags=flags,
+        method=method, core_version=core.version(), flags=flags,
     )

@@ -16,6 +16,9 @@ def build_parser() -> OneLineParser:
         prog="streamtab",
         description="Dissolved-oxygen field work: saturation targets, trip records, sync.",
     )
+    from core import version
+
+    parser.add_argument("--version", action="version", version=f"streamtab {version()}")
     sub = parser.add_subparsers(dest="command", required=True, parser_class=OneLineParser)
     science_cmds.register(sub)
     trip_cmds.register(sub)

@@ -44,17 +44,48 @@ def fail(message: str) -> NoReturn:
     raise CliError(message)
 
 
-def open_store(data_dir: str | None):
-    """The device store at --data-dir (else $STREAMTAB_DATA, else the user folder), or a one-line error."""
-    from core.store import DeviceStore, StoreError
+#: The commands that may create a device store where there is none (they say so when they do).
+CREATING_COMMANDS = "'streamtab sites import', 'trip import', 'sync pull' and 'app'"
 
+
+def store_location(data_dir: str | None) -> str:
+    """Where the store is looked for, as the person set it: the option, the variable or the default."""
+    import os
+
+    from core.store.paths import ENV_VAR, resolve_data_dir
+
+    root = resolve_data_dir(data_dir)
+    if data_dir:
+        return f"--data-dir {data_dir}"
+    if os.environ.get(ENV_VAR):
+        return f"${ENV_VAR} ({root})"
+    return f"the user data folder ({root})"
+
+
+def open_store(data_dir: str | None, *, create: bool = False):
+    """The device store at --data-dir (else $STREAMTAB_DATA, else the user folder), or a one-line error.
+
+    Only a command that saves something a person gave it may create a store (`create`), and it
+    says so on stderr; every other command refuses a folder that holds no store, so a mistyped
+    --data-dir never leaves an empty store behind."""
+    from core.store import DeviceStore, StoreError
+    from core.store.paths import is_store, resolve_data_dir
+
+    root = resolve_data_dir(data_dir)
+    new = not is_store(root)
+    if new and not create:
+        fail(f"{store_location(data_dir)}: no device store there; accepted: the folder of an existing store"
+             f" ({CREATING_COMMANDS} create one).")
     try:
-        return DeviceStore.open(data_dir)
+        store = DeviceStore.open(data_dir)
+        if new:
+            sys.stderr.write(f"streamtab: note: created a new device store at {root}\n")
+        return store
     except StoreError as exc:
         fail(str(exc))
     except OSError as exc:
-        fail(f"--data-dir: cannot open the device store at {data_dir or 'the default folder'}"
-             f" ({exc.strerror}); accepted: a writable folder.")
+        fail(f"{store_location(data_dir)}: cannot open the device store there ({exc.strerror});"
+             " accepted: a writable folder.")
 
 
 def resolve_trip_id(store, ident: str, label: str = "trip") -> str:  # noqa: ANN001

@@ -105,9 +105,21 @@ def _bring_to_today(doc, now: datetime):  # noqa: ANN001, ANN202
     return walk(doc, move)
 
 
-def run(args) -> int:  # noqa: ANN001 - argparse namespace
-    from core.store.paths import resolve_data_dir
+def _check_snapshot(name: str) -> None:
+    """--snapshot names a PNG file in an existing folder, or a one-line error before anything opens."""
+    path = Path(name)
+    if path.suffix.lower() != ".png":
+        fail(f"--snapshot {name}: the screen is drawn as a PNG image; accepted: a file name ending in .png"
+             " (e.g. stop.png)")
+    if not path.parent.is_dir():
+        fail(f"--snapshot {name}: the folder {path.parent} does not exist; accepted: a file in an existing folder")
 
+
+def run(args) -> int:  # noqa: ANN001 - argparse namespace
+    from core.store.paths import is_store, resolve_data_dir
+
+    if args.snapshot:
+        _check_snapshot(args.snapshot)
     size = _parse_size(args.size)
     if not _has_display():
         xvfb = shutil.which("xvfb-run")
@@ -129,6 +141,8 @@ def run(args) -> int:  # noqa: ANN001 - argparse namespace
                          + ("" if xvfb else " (needs xvfb-run: apt-get install xvfb)") + "\n")
         return 3
     data_dir = resolve_data_dir(args.data_dir)
+    if not is_store(data_dir):
+        sys.stderr.write(f"streamtab: note: created a new device store at {data_dir}\n")
     if args.seed_demo:
         demo = Path(args.seed_demo)
         if not demo.is_dir():

@@ -73,8 +73,8 @@ class _Bar:
         self.drawn = False
 
 
-def _open_store(args: Any):  # noqa: ANN202
-    return open_store(args.data_dir)
+def _open_store(args: Any, *, create: bool = False):  # noqa: ANN202
+    return open_store(args.data_dir, create=create)
 
 
 def _session(args: Any, store: Any, address: str):  # noqa: ANN202
@@ -92,13 +92,27 @@ def _session(args: Any, store: Any, address: str):  # noqa: ANN202
         fail(str(exc))
 
 
+def _check_address(session: Any, address: str, option: str) -> None:
+    """A hub address that names no usable target is refused naming the option it was typed in."""
+    from sync.errors import ConfigError
+    from sync.targets import open_target
+
+    try:
+        target = open_target(address, session)
+    except ConfigError as exc:
+        session.close()
+        fail(f"{option} {address!r}: {exc}")
+    target.close()
+
+
 def _run(args: Any, verb: str, address: str):  # noqa: ANN202
     import sync
     from core.store import StoreLocked
     from sync.errors import FinalError, RetryableError
 
-    store = _open_store(args)
+    store = _open_store(args, create=verb == "pull")   # a pull may fill an empty office store
     session = _session(args, store, address)
+    _check_address(session, address, "--to" if verb == "push" else "--from")
     bar = _Bar(verb)
     try:
         fn = sync.push if verb == "push" else sync.pull

@@ -48,15 +48,15 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
                    help="file for json; folder for csv (stops.csv, bottles.csv); default: standard output")
 
 
-def _store(args):  # noqa: ANN001
-    return open_store(args.data_dir)
+def _store(args, *, create: bool = False):  # noqa: ANN001
+    return open_store(args.data_dir, create=create)
 
 
 def _sites_import(args) -> int:  # noqa: ANN001
     from core.records.exchange import ExchangeError, import_sites_csv
     from core.store import StoreError
 
-    store = _store(args)
+    store = _store(args, create=True)
     try:
         sites = import_sites_csv(store, args.file)
     except (ExchangeError, StoreError) as exc:
@@ -80,7 +80,7 @@ def _sites_list(args) -> int:  # noqa: ANN001
 def _trip_import(args) -> int:  # noqa: ANN001
     from core.records.exchange import ExchangeError, import_trip_file
 
-    store = _store(args)
+    store = _store(args, create=True)
     try:
         outcome = import_trip_file(store, args.file)
     except ExchangeError as exc:

@@ -101,12 +101,16 @@ def test_sites_csv_import(store, tmp_path):
 @pytest.mark.parametrize("text,expected", [
     ("site_id,name\nLK-1,A\n", "s.csv, line 1: missing column elevation_m"),
     ("site_id,name,elevation_m,elev\nLK-1,A,3,4\n", "s.csv, line 1: unknown column elev"),
-    ("site_id,name,elevation_m\nLK-1,A,10\nLK-2,B,abc\n", "s.csv, line 3: Elevation: “abc” is not a number"),
+    ("site_id,name,elevation_m\nLK-1,A,10\nLK-2,B,abc\n", "s.csv, line 3, column elevation_m: Elevation: “abc” is not a number"),
     ("site_id,name,elevation_m\nLK-1,A,10\nLK-1,B,20\n", "s.csv, line 3: site LK-1 is listed twice (first on line 2)"),
-    ("site_id,name,elevation_m\nLK-1,A,\n", "s.csv, line 2: Elevation is required"),
-    ("site_id,name,elevation_m,water_class\nLK-1,A,10,tepid\n", "s.csv, line 2: Water class: “tepid” is not one of"),
-    ("site_id,name,elevation_m\nLK-1,A,9000\n", "s.csv, line 2: Elevation 9000 m is outside"),
+    ("site_id,name,elevation_m\nLK-1,A,\n", "s.csv, line 2, column elevation_m: Elevation is required"),
+    ("site_id,name,elevation_m,water_class\nLK-1,A,10,tepid\n", "s.csv, line 2, column water_class: Water class: “tepid” is not one of"),
+    ("site_id,name,elevation_m\nLK-1,A,9000\n", "s.csv, line 2, column elevation_m: Elevation 9000 m is outside"),
     ("site_id,name,elevation_m\nLK-1,A,1,234\n", "s.csv, line 2: more values than columns"),
+    ("site_id,name,elevation_m,min_do_mg_l\nLK-1,A,10,-3\n", "s.csv, line 2, column min_do_mg_l: "),
+    ("site_id,name,elevation_m,latitude\nLK-1,A,10,95\n", "s.csv, line 2, column latitude: "),
+    ("site_id,name,elevation_m\n,A,10\n", "s.csv, line 2, column site_id: "),
+    ("site_id,name,elevation_m\nLK-1,,10\n", "s.csv, line 2, column name: "),
     ("site_id,name,elevation_m\n", "s.csv: no sites found"),
 ])
 def test_sites_csv_errors_name_line_and_field(store, tmp_path, text, expected):

@@ -153,7 +153,7 @@ def plant_everything(put, device_a):  # noqa: ANN001 - put(relpath, bytes)
 
 
 def test_hostile_webdav_hub_odd_items_are_reported_and_the_good_trip_arrives(hostile, device_a, tmp_path):
-    good = plant_everything(lambda rel, data: hostile.files.__setitem__(rel, data), device_a)
+    good = plant_everything(hostile.files.__setitem__, device_a)
     ghost = canonical_json_bytes(dict(device_a.trip_document(good.id), id=GHOST_ID, revision=1, audit=[]))
     ghost_rel = f"trips/2026/{GHOST_ID}/{name_for(1, ghost)}"
     hostile.files[ghost_rel] = ghost
@@ -193,7 +193,7 @@ def test_hostile_webdav_hub_odd_items_are_reported_and_the_good_trip_arrives(hos
 
 
 def test_hostile_hub_through_the_cli_reports_and_never_a_traceback(hostile, device_a, tmp_path):
-    good = plant_everything(lambda rel, data: hostile.files.__setitem__(rel, data), device_a)
+    good = plant_everything(hostile.files.__setitem__, device_a)
     out = run_cli("sync", "pull", "--from", hostile.url, "--timeout", "2", data_dir=tmp_path / "office")
     assert "Traceback" not in out.stderr + out.stdout
     assert out.returncode == 1                             # the deep file is re-checked next time
