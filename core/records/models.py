@@ -21,7 +21,7 @@ __all__ = [
     "Quantity", "FlagRecord", "Derived", "Site", "Calibration", "LabResult", "Bottle", "Stop",
     "RESULT_STATUSES", "AuditEntry", "AuditChange", "AUDIT_VALUE_BYTES", "ConflictSide", "Conflict", "ProgramSettings",
     "Signature", "CustodyRecord", "LabBatch", "Trip", "SIGNATURE_LIMITS",
-    "InputError", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
+    "InputError", "analyte_key", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
     "INPUT", "DERIVED", "BOOKKEEPING", "LOG", "ROLES", "RETAINED", "RoleNode", "role_tree", "paths_by_role",
     "keys_by_role",
 ]
@@ -327,6 +327,11 @@ class Calibration(_Record):
         return _check_range(v, "tolerance")
 
 
+def analyte_key(analyte: str) -> str:
+    """The analyte name compared case- and separator-blind ("do-winkler" == "DO_Winkler")."""
+    return str(analyte).strip().lower().replace("-", "_").replace(" ", "_")
+
+
 #: The states of a lab result: live and acceptable, live and failing its checks, or replaced by a
 #: later result of the same analysis on the same bottle (kept, never deleted).
 RESULT_STATUSES = ("valid", "invalid", "superseded")
@@ -470,6 +475,8 @@ class AuditEntry(_Record):
     revision: int
     fields: list[str] = Field(default_factory=list)
     changes: list[AuditChange] = Field(default_factory=list)
+    #: The saving device's name as set on it (``streamtab device name``), so people read a name.
+    device_name: str | None = Field(default=None, max_length=40)
     by: str | None = Field(default=None, max_length=80)
     reason: str | None = Field(default=None, max_length=400)
 
@@ -478,6 +485,8 @@ class ConflictSide(_Record):
     """One device's value of a field that two devices changed differently."""
 
     device_id: str
+    #: The device's name as set on it, when its saves carried one.
+    device_name: str | None = None
     value: Any = None
     revision: int | None = None
     updated_at: AwareDatetime | None = None
@@ -487,11 +496,17 @@ class Conflict(_Record):
     """A field two devices changed differently; sync fills these, a person resolves them."""
 
     id: str = _id_field()
+    #: "field": one field with two values; "results": two live results of one analysis on one
+    #: bottle (the sides' values are the results).
+    kind: Literal["field", "results"] = "field"
     path: str
+    #: The same path with full element ids (``stops[<id>].do``), where the clash is.
+    locator: str | None = None
     sides: list[ConflictSide] = Field(default_factory=list)
     detected_at: AwareDatetime
     resolved_at: AwareDatetime | None = None
     resolved_by: str | None = None
+    #: The settlement: ``{"kept": n (1-based side, or None for a typed value), "value": ...}``.
     resolution: Any = None
 
 

@@ -30,7 +30,7 @@ from typing import Any
 from collections.abc import Iterable
 
 from core.flags import Flag, Severity
-from core.records.models import Bottle, FlagRecord, LabResult, Stop, Trip, new_id
+from core.records.models import Bottle, FlagRecord, LabResult, Stop, Trip, analyte_key, new_id
 from core.science.winkler import SAFETY_NOTE
 
 __all__ = [
@@ -173,11 +173,6 @@ def _fmt_h(hours: float) -> str:
     if abs(hours) < 1:
         return f"{hours * 60:.0f} min"
     return f"{hours:.1f} h" if abs(hours) < 48 else f"{hours / 24:.1f} days"
-
-
-def analyte_key(analyte: str) -> str:
-    """The analyte name compared case- and separator-blind ("do-winkler" == "DO_Winkler")."""
-    return str(analyte).strip().lower().replace("-", "_").replace(" ", "_")
 
 
 def current_result(bottle: Bottle, analyte: str) -> LabResult | None:

@@ -134,6 +134,8 @@ class DeviceStore:
                  lock_timeout_s: float = 5.0):
         self.data_dir = Path(data_dir)
         self.device_id = device_id
+        #: This device's name as a person set it (None until set; see :meth:`set_device_name`).
+        self.device_name: str | None = None
         self._clock = clock or _utcnow
         self.lock_timeout_s = lock_timeout_s
         self._trips_dir = self.data_dir / "trips"
@@ -168,6 +170,7 @@ class DeviceStore:
                 atomic_write_bytes(root / "device.json",
                                    canonical_json_bytes({"device_id": remembered}))
             store.device_id = device_id or remembered
+            store.device_name = store._read_device_file().get("name") or None
             store._clean_temp_files()
             store._repair_index()
         return store
@@ -194,6 +197,30 @@ class DeviceStore:
         fin = getattr(self, "_finalizer", None)
         if fin is not None:
             fin()
+
+    def _read_device_file(self) -> dict[str, Any]:
+        try:
+            data = json.loads((self.data_dir / "device.json").read_bytes())
+        except (OSError, ValueError):
+            return {}
+        return data if isinstance(data, dict) else {}
+
+    def set_device_name(self, name: str) -> str:
+        """Names this device (kept in device.json; stamped on every audit entry it writes, so
+        conflicts and the audit show people a name, never a device id). 1 to 40 characters."""
+        text = " ".join(str(name or "").split())
+        if not 1 <= len(text) <= 40:
+            raise InvalidRecord("Device name: write 1 to 40 characters, e.g. 'Tablet 2' or 'Lab desk'.")
+        with self._locked():
+            data = self._read_device_file()
+            data.update(device_id=data.get("device_id") or self.device_id, name=text)
+            try:
+                atomic_write_bytes(self.data_dir / "device.json", canonical_json_bytes(data))
+            except OSError as exc:
+                raise StoreWriteError(f"Could not write device.json ({exc.strerror or exc}); the device name"
+                                      " is unchanged.") from None
+            self.device_name = text
+        return text
 
     def _read_device_id(self) -> str | None:
         path = self.data_dir / "device.json"
@@ -660,7 +687,8 @@ class DeviceStore:
         now = self._clock().astimezone(UTC)
         revision = base_revision + 1
         changes = diff_changes(stored, new_doc) if stored is not None else []
-        entry = AuditEntry(at=now, device_id=self.device_id, change=str(change)[:400] or "saved",
+        entry = AuditEntry(at=now, device_id=self.device_id, device_name=self.device_name,
+                           change=str(change)[:400] or "saved",
                            revision=revision,
                            fields=[c["path"] for c in changes] if stored is not None else ["(new trip)"],
                            changes=[AuditChange.model_validate(c) for c in changes],

@@ -46,6 +46,9 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     p.add_argument("--format", choices=("json", "csv"), required=True)
     p.add_argument("--out", metavar="PATH", default=None,
                    help="file for json; folder for csv (stops.csv, bottles.csv); default: standard output")
+    from mobile.cli.conflict_cmds import add_trip_commands
+
+    add_trip_commands(trip_sub, _command)
 
 
 def _store(args, *, create: bool = False):  # noqa: ANN001
@@ -195,9 +198,12 @@ def _trip_show(args) -> int:  # noqa: ANN001
               f"{_fmt(c.get('target_mg_l'), '.2f', 'mg/L')}, {verdict}\n")
     for f in data["trip_flags"]:
         w(f"  [{f['severity']}] {f['code']}: {f['message']}\n")
-    for c in data["open_conflicts"]:
-        sides = " | ".join(f"{s.get('device_id')}: {s.get('value')!r}" for s in c.get("sides") or [])
-        w(f"  [needs attention] {c['path']} was changed on two devices ({sides}); choose the right value.\n")
+    if data["open_conflicts"]:
+        from core.rules.conflicts import list_conflicts
+
+        for v in list_conflicts(store.load_trip(trip_id), this_device=store.device_id):
+            w(f"  [needs attention] {v.number}. {v.message}\n")
+        w(f"  settle with 'streamtab trip conflicts {data['id'][:8]}' and 'streamtab trip settle'\n")
     for s in data["stops"]:
         d = s["derived"] or {}
         inp = s["inputs"]
