@@ -19,7 +19,7 @@ from pydantic_core import PydanticCustomError
 __all__ = [
     "SCHEMA_VERSION", "BOTTLE_KINDS", "WATER_CLASSES", "LIMITS",
     "Quantity", "FlagRecord", "Derived", "Site", "Calibration", "LabResult", "Bottle", "Stop",
-    "RESULT_STATUSES", "AuditEntry", "AuditChange", "AUDIT_VALUE_BYTES", "ConflictSide", "Conflict", "ProgramSettings",
+    "RESULT_STATUSES", "LOCAL_STOP_KEYS", "AuditEntry", "AuditChange", "AUDIT_VALUE_BYTES", "ConflictSide", "Conflict", "ProgramSettings",
     "Signature", "CustodyRecord", "LabBatch", "Trip", "SIGNATURE_LIMITS",
     "InputError", "analyte_key", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
     "INPUT", "DERIVED", "BOOKKEEPING", "LOG", "ROLES", "RETAINED", "RoleNode", "role_tree", "paths_by_role",
@@ -330,6 +330,11 @@ class Calibration(_Record):
 def analyte_key(analyte: str) -> str:
     """The analyte name compared case- and separator-blind ("do-winkler" == "DO_Winkler")."""
     return str(analyte).strip().lower().replace("-", "_").replace(" ", "_")
+
+
+#: Keys of a stop that a device keeps for itself (the app's text of a refused entry, a draft):
+#: the store keeps them in its local drafts, never in the trip file, so they never sync.
+LOCAL_STOP_KEYS = frozenset({"draft_text"})
 
 
 #: The states of a lab result: live and acceptable, live and failing its checks, or replaced by a

@@ -37,6 +37,7 @@ from core.records.messages import Problem, one_line, problems_from_validation
 from core.records.migrations import migrate
 from core.records.models import (
     BOOKKEEPING,
+    LOCAL_STOP_KEYS,
     SCHEMA_VERSION,
     AuditChange,
     AuditEntry,
@@ -50,6 +51,7 @@ from core.records.models import (
 from core.store.atomic import atomic_write_bytes, canonical_json_bytes
 from core.records.merge import common_ancestor, history, merge_trips, retain
 from core.store.audit import diff_changes, merge_audit
+from core.store.drafts import Drafts, split_drafts, with_drafts
 from core.store.errors import (
     CorruptFile,
     InvalidRecord,
@@ -144,6 +146,7 @@ class DeviceStore:
         self._lock = FileLock(str(self.data_dir / ".lock"), timeout=lock_timeout_s)
         self._tlock = threading.RLock()
         self._files = TripFiles(self._trips_dir)
+        self._drafts = Drafts(self.data_dir / "drafts")
         self._index = SummaryIndex(self._index_dir)
         self._tables = Tables(self.data_dir, self._quarantine)
         self._finalizer: Any = None     # in_memory(): removes the temporary folder with the store
@@ -237,7 +240,7 @@ class DeviceStore:
 
         Only the store's own names: other parts (sync's outbox) may write in the data folder.
         """
-        patterns = [(self._trips_dir, ".*.tmp"), (self._index_dir, ".*.tmp")]
+        patterns = [(self._trips_dir, ".*.tmp"), (self._index_dir, ".*.tmp"), (self.data_dir / "drafts", ".*.tmp")]
         patterns += [(self.data_dir, f".{name}.*.tmp") for name in ("device.json", "sites.json", "settings.json")]
         for folder, pattern in patterns:
             for tmp in folder.glob(pattern):
@@ -354,12 +357,14 @@ class DeviceStore:
         return trip, raw
 
     def load_trip(self, trip_id: str) -> Trip:
-        """The trip with that id (migrated from an older schema in memory if needed).
+        """The trip with that id (migrated from an older schema in memory if needed), with this
+        device's drafts on its stops (core.store.drafts; they are not in the trip file).
 
         Raises TripNotFound, NewerSchemaError (file left untouched) or CorruptFile (moved to
         quarantine).
         """
-        return self._load(trip_id)[0]
+        trip = self._load(trip_id)[0]
+        return with_drafts(trip, self._drafts.read(trip.id))
 
     def trip_document(self, trip_id: str) -> dict[str, Any]:
         """The stored JSON document of a trip, as exchanged with hubs (no migration applied).
@@ -481,7 +486,7 @@ class DeviceStore:
             stored = self._stored_or_none(checked.id)
             self._check_expected(checked.id, stored, expected_revision)
             base = max(checked.revision, int(stored.get("revision", 0)) if stored is not None else 0)
-            return self._commit(checked, stored, change, base)
+            return self._commit(checked, stored, change, base, foreign=True)
 
     def adopt_document(self, doc: dict[str, Any], *, expected_revision: int | None) -> Trip | None:
         """Stores another device's saved version of a trip byte for byte (a sync fast-forward).
@@ -549,7 +554,7 @@ class DeviceStore:
         with self._locked():
             stored = self._stored_or_none(checked.id)
             if stored is None:
-                return MergeOutcome(self._commit(checked, None, change, checked.revision), "new")
+                return MergeOutcome(self._commit(checked, None, change, checked.revision, foreign=True), "new")
             ours, theirs = history(stored), history(incoming)
             if theirs and theirs <= ours:
                 return MergeOutcome(Trip.from_document(stored), "unchanged")
@@ -564,7 +569,7 @@ class DeviceStore:
             merged = retain(stored, merged)
             trip = self._validate_doc(merged)
             revision = max(int(stored.get("revision", 0)), checked.revision)
-            saved = self._commit(trip, stored, change, revision)
+            saved = self._commit(trip, stored, change, revision, foreign=True)
             if saved.revision == int(stored.get("revision", 0)):
                 kind = "unchanged"
             return MergeOutcome(saved, kind, conflicts)
@@ -581,6 +586,7 @@ class DeviceStore:
         """
         with self._locked():
             trip, stored = self._load(trip_id)
+            trip = with_drafts(trip, self._drafts.read(trip_id))
             changed = fn(trip)
             if changed is None:
                 return trip
@@ -619,7 +625,9 @@ class DeviceStore:
             for i, s in enumerate(stops):
                 if s.id == new_stop.id:
                     # Fields a newer build stored on this stop survive a form that never knew them.
-                    kept = {k: v for k, v in (s.model_extra or {}).items() if k not in (new_stop.model_extra or {})}
+                    # (Not a draft: the form says whether it still has one.)
+                    kept = {k: v for k, v in (s.model_extra or {}).items()
+                            if k not in (new_stop.model_extra or {}) and k not in LOCAL_STOP_KEYS}
                     stops[i] = new_stop.model_copy(update=kept) if kept else new_stop
                     break
             else:
@@ -663,8 +671,23 @@ class DeviceStore:
             raise InvalidRecord(one_line(probs), probs) from None
 
     def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int, *,
-                by: str | None = None, reason: str | None = None) -> Trip:
-        """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held."""
+                by: str | None = None, reason: str | None = None, foreign: bool = False) -> Trip:
+        """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held.
+
+        A stop's local keys (drafts) are kept in this device's drafts, never in the trip file."""
+        trip, drafts = split_drafts(trip)
+        if foreign:   # a version from elsewhere knows nothing of this device's drafts: keep them
+            drafts = {**self._drafts.read(trip.id), **drafts}
+        saved = self._commit_clean(trip, stored, change, base_revision, by=by, reason=reason)
+        try:
+            self._drafts.write(trip.id, drafts)
+        except OSError as exc:
+            raise StoreWriteError(f"The trip was saved, but its unfinished entries could not be kept"
+                                  f" ({exc.strerror or exc}); free space and type them again.") from None
+        return with_drafts(saved, drafts)
+
+    def _commit_clean(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int, *,
+                      by: str | None = None, reason: str | None = None) -> Trip:
         from core.rules.qc import derive
 
         sites = self.sites_by_id()

@@ -182,3 +182,25 @@ def test_cli_reimport_keeps_the_lab_result(tmp_path):
     assert "no lab results yet" not in r.stdout
     text = json.dumps(json.loads(r.stdout))
     assert "TV-0701" in text and result_id in text
+
+
+# ---- drafts stay on the device ------------------------------------------------------------------
+def test_drafts_stay_out_of_the_trip_file_and_survive_saves_and_merges(store):
+    trip = store.save_trip(make_trip([make_stop()]), "new")
+    stop = trip.stops[0].model_copy(update={"draft_text": {"temp": "68 °C"}})   # a refused entry, kept
+    saved = store.save_stop(trip.id, stop)
+    assert saved.stops[0].model_extra["draft_text"] == {"temp": "68 °C"}
+    doc = store.trip_document(trip.id)                  # what sync and exports read
+    assert "draft_text" not in json.dumps(doc)
+    assert store.load_trip(trip.id).stops[0].model_extra["draft_text"] == {"temp": "68 °C"}
+    foreign = copy.deepcopy(doc)                        # another device's later version
+    foreign["notes"] = "from the office"
+    foreign["audit"] = foreign["audit"] + [{"id": "o-1", "at": "2026-06-14T12:00:00Z", "device_id": "dev-o",
+                                            "change": "notes", "revision": 3}]
+    store.merge_document(foreign, "pulled")
+    again = store.load_trip(trip.id)
+    assert again.notes == "from the office" and again.stops[0].model_extra["draft_text"] == {"temp": "68 °C"}
+    cleared = again.stops[0].model_copy()
+    cleared.__pydantic_extra__.pop("draft_text")        # the form now accepted the value
+    store.save_stop(trip.id, cleared)
+    assert "draft_text" not in (store.load_trip(trip.id).stops[0].model_extra or {})
