@@ -217,4 +217,8 @@ def test_cli_show_lists_open_conflicts(tmp_path):
                          "sides": [{"device_id": "tablet-a", "value": "riffle"}, {"device_id": "tablet-b", "value": "pool"}]}]
     trip = store.put_document(doc, "merged", expected_revision=None)
     r = run_cli("trip", "show", trip.id, data_dir=d)
-    assert r.returncode == 0 and "needs attention" in r.stdout and "tablet-b: 'pool'" in r.stdout
+    assert r.returncode == 0 and "needs attention" in r.stdout
+    # in words: the values and the field's label, never a device id or a record path
+    line = next(x for x in r.stdout.splitlines() if "[needs attention]" in x)
+    assert "“riffle”" in line and "“pool”" in line and "Notes" in line
+    assert "tablet-b" not in r.stdout and "'path'" not in r.stdout
