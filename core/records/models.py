@@ -19,8 +19,8 @@ from pydantic_core import PydanticCustomError
 __all__ = [
     "SCHEMA_VERSION", "BOTTLE_KINDS", "WATER_CLASSES", "LIMITS",
     "Quantity", "FlagRecord", "Derived", "Site", "Calibration", "LabResult", "Bottle", "Stop",
-    "RESULT_STATUSES", "LOCAL_STOP_KEYS", "AuditEntry", "AuditChange", "AUDIT_VALUE_BYTES", "ConflictSide", "Conflict", "ProgramSettings",
-    "Signature", "CustodyRecord", "LabBatch", "Trip", "SIGNATURE_LIMITS",
+    "RESULT_STATUSES", "LOCAL_STOP_KEYS", "AuditEntry", "AuditChange", "AUDIT_VALUE_BYTES", "ConflictSide",
+    "Conflict", "ReviewEvent", "ProgramSettings", "Signature", "CustodyRecord", "LabBatch", "Trip", "SIGNATURE_LIMITS",
     "InputError", "analyte_key", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
     "INPUT", "DERIVED", "BOOKKEEPING", "LOG", "ROLES", "RETAINED", "RoleNode", "role_tree", "paths_by_role",
     "keys_by_role",
@@ -548,6 +548,24 @@ class ProgramSettings(_Record):
                         hypoxic_mg_l=self.hypoxic_mg_l)
 
 
+class ReviewEvent(_Record):
+    """One step of the office's review of a trip (who, when, what, why); appended, never edited.
+
+    ``action`` is one of ``core.rules.review.ACTIONS``; the trip's review state follows from its
+    events (``core.rules.review.review_state``). ``approved`` holds, on a correction of an approved
+    trip, the document as it was approved, so that version stays readable.
+    """
+
+    id: str = _id_field()
+    action: Literal["reviewed", "approved", "returned", "corrected", "resubmitted"]
+    at: AwareDatetime
+    by: str = Field(min_length=1, max_length=80)
+    comment: str = Field(default="", max_length=2000)
+    reasons: list[str] = Field(default_factory=list)
+    revision: int | None = None      # the trip revision the step was taken on
+    approved: dict[str, Any] | None = None
+
+
 #: Bounds of a drawn signature, so a stuck finger cannot grow a trip without end (common practice):
 #: strokes per signature, points per stroke, points in all.
 SIGNATURE_LIMITS = {"strokes": 200, "points_per_stroke": 2000, "points": 10000}
@@ -682,16 +700,21 @@ class Trip(_Record):
     conflicts: list[Conflict] = Field(default_factory=list)
     #: Chain of custody of the trip's bottles, in the order entered (optional; absent when empty).
     custody: list[CustodyRecord] = Field(default_factory=list, json_schema_extra=RETAINED)
+    #: The office's review steps (core.rules.review; optional; absent when empty).
+    review_events: list[ReviewEvent] = Field(default_factory=list, json_schema_extra=RETAINED)
     #: Bench batches whose QC applies to this trip's bottles (optional; absent when empty).
     lab_batches: list[LabBatch] = Field(default_factory=list, json_schema_extra=RETAINED)
+    #: The crew started the trip with no pre-trip calibration, saying so (optional; absent when False).
+    started_without_calibration: bool = False
 
     @model_serializer(mode="wrap")
     def _omit_empty_optional_lists(self, handler: Any) -> Any:
-        # A trip without hand-offs or batches is written exactly as before those fields existed, so
-        # older documents keep their bytes and hashes and no save records a change nobody made.
+        # A trip without hand-offs, batches or review steps (and with the usual calibration) is
+        # written exactly as before those fields existed, so older documents keep their bytes and
+        # hashes and no save records a change nobody made.
         data = handler(self)
         if isinstance(data, dict):
-            for key in ("custody", "lab_batches"):
+            for key in ("custody", "lab_batches", "review_events", "started_without_calibration"):
                 if not data.get(key):
                     data.pop(key, None)
         return data

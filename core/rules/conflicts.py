@@ -336,6 +336,21 @@ def _parse(key: str, text: str, current: Any) -> Any:
 # --------------------------------------------------------------------------------------------
 # Settling and correcting
 # --------------------------------------------------------------------------------------------
+def _on_approved(before: dict[str, Any], after: dict[str, Any], *, by: str, at: datetime, reason: str) -> None:
+    """An approved trip changes only with a correction step (core.rules.review): add one to
+    `after`, keeping the approved version readable."""
+    from core.rules.review import REVIEW_KEY, ReviewRefused, new_event, review_state
+
+    if review_state(before) != "approved":
+        return
+    approved = {k: v for k, v in before.items() if k not in ("audit", REVIEW_KEY)}
+    try:
+        event = new_event(before, "corrected", by=by, at=at, reasons=[reason], approved=approved)
+    except ReviewRefused as exc:
+        raise ConflictError(str(exc)) from None
+    after[REVIEW_KEY] = list(after.get(REVIEW_KEY) or []) + [event]
+
+
 def settle_document(doc: dict[str, Any], ref: str, *, keep: int | None = None, value: str | None = None,
                     by: str, at: datetime) -> dict[str, Any]:
     """A copy of the trip document with one conflict settled (see :func:`settle`)."""
@@ -372,6 +387,7 @@ def settle_document(doc: dict[str, Any], ref: str, *, keep: int | None = None, v
     conflict["resolved_at"] = at.isoformat()
     conflict["resolved_by"] = str(by).strip()[:80]
     conflict["resolution"] = {"kept": keep, "value": chosen}
+    _on_approved(doc, out, by=str(by).strip()[:80], at=at, reason="conflict settled")
     return out
 
 
@@ -384,12 +400,14 @@ def settle(trip: Trip, ref: str, *, keep: int | None = None, value: str | None =
     return _valid(settle_document(trip.to_document(), ref, keep=keep, value=value, by=by, at=at))
 
 
-def correct(trip: Trip, stop: int, column: str, value: str) -> tuple[Trip, str]:
+def correct(trip: Trip, stop: int, column: str, value: str, *, by: str = "", at: datetime | None = None,
+            reason: str = "") -> tuple[Trip, str]:
     """(the trip with one field of stop number `stop` corrected, a sentence saying what changed).
 
     `column` is a trip CSV export column (:data:`CORRECTABLE`); `value` is read as the app reads
     that field (a bare number in the column's unit). Computed columns are refused: correct the
-    reading they come from.
+    reading they come from. An approved trip gets the office's correction step (who, when, why;
+    core.rules.review), which needs `by`, `at` and `reason`.
     """
     col = str(column).strip()
     if col in _COMPUTED:
@@ -400,6 +418,7 @@ def correct(trip: Trip, stop: int, column: str, value: str) -> tuple[Trip, str]:
                             + ", ".join(sorted(CORRECTABLE)))
     key, kind, unit = CORRECTABLE[col]
     doc = trip.to_document()
+    before = copy.deepcopy(doc)
     stops = sorted(doc.get("stops") or [], key=lambda s: (str(s.get("arrived_at", "")), str(s.get("id"))))
     if not 1 <= stop <= len(stops):
         raise ConflictError(f"--stop {stop}: this trip has stops 1 to {len(stops)}" if stops
@@ -419,6 +438,8 @@ def correct(trip: Trip, stop: int, column: str, value: str) -> tuple[Trip, str]:
     else:
         new = str(value)
     target[key] = new
+    if at is not None and by and reason:
+        _on_approved(before, doc, by=by, at=at, reason=reason)
     what = (f"stop {stop} ({target.get('site_id')}): {label_for(key)} {_show(old, key)} → {_show(new, key)}")
     return _valid(doc), what
 

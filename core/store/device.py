@@ -53,6 +53,7 @@ from core.records.merge import common_ancestor, history, merge_trips, retain
 from core.store.audit import diff_changes, merge_audit
 from core.store.drafts import Drafts, split_drafts, with_drafts
 from core.store.errors import (
+    ApprovedTrip,
     CorruptFile,
     InvalidRecord,
     NewerSchemaError,
@@ -486,7 +487,7 @@ class DeviceStore:
             stored = self._stored_or_none(checked.id)
             self._check_expected(checked.id, stored, expected_revision)
             base = max(checked.revision, int(stored.get("revision", 0)) if stored is not None else 0)
-            return self._commit(checked, stored, change, base, foreign=True)
+            return self._commit(checked, stored, change, base, foreign=True, review_guard=False)
 
     def adopt_document(self, doc: dict[str, Any], *, expected_revision: int | None) -> Trip | None:
         """Stores another device's saved version of a trip byte for byte (a sync fast-forward).
@@ -554,7 +555,7 @@ class DeviceStore:
         with self._locked():
             stored = self._stored_or_none(checked.id)
             if stored is None:
-                return MergeOutcome(self._commit(checked, None, change, checked.revision, foreign=True), "new")
+                return MergeOutcome(self._commit(checked, None, change, checked.revision, foreign=True, review_guard=False), "new")
             ours, theirs = history(stored), history(incoming)
             if theirs and theirs <= ours:
                 return MergeOutcome(Trip.from_document(stored), "unchanged")
@@ -569,7 +570,7 @@ class DeviceStore:
             merged = retain(stored, merged)
             trip = self._validate_doc(merged)
             revision = max(int(stored.get("revision", 0)), checked.revision)
-            saved = self._commit(trip, stored, change, revision, foreign=True)
+            saved = self._commit(trip, stored, change, revision, foreign=True, review_guard=False)
             if saved.revision == int(stored.get("revision", 0)):
                 kind = "unchanged"
             return MergeOutcome(saved, kind, conflicts)
@@ -671,14 +672,19 @@ class DeviceStore:
             raise InvalidRecord(one_line(probs), probs) from None
 
     def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int, *,
-                by: str | None = None, reason: str | None = None, foreign: bool = False) -> Trip:
+                by: str | None = None, reason: str | None = None, foreign: bool = False,
+                review_guard: bool = True) -> Trip:
         """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held.
 
-        A stop's local keys (drafts) are kept in this device's drafts, never in the trip file."""
+        A stop's local keys (drafts) are kept in this device's drafts, never in the trip file.
+        `review_guard` refuses an edit of an approved trip that is not a correction
+        (core.rules.review); documents from elsewhere carry the office's own steps and are
+        merged, not refused."""
         trip, drafts = split_drafts(trip)
         if foreign:   # a version from elsewhere knows nothing of this device's drafts: keep them
             drafts = {**self._drafts.read(trip.id), **drafts}
-        saved = self._commit_clean(trip, stored, change, base_revision, by=by, reason=reason)
+        saved = self._commit_clean(trip, stored, change, base_revision, by=by, reason=reason,
+                                   review_guard=review_guard)
         try:
             self._drafts.write(trip.id, drafts)
         except OSError as exc:
@@ -687,8 +693,9 @@ class DeviceStore:
         return with_drafts(saved, drafts)
 
     def _commit_clean(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int, *,
-                      by: str | None = None, reason: str | None = None) -> Trip:
+                      by: str | None = None, reason: str | None = None, review_guard: bool = True) -> Trip:
         from core.rules.qc import derive
+        from core.rules.review import ReviewRefused, check_change
 
         sites = self.sites_by_id()
         settings = self.settings()
@@ -707,6 +714,11 @@ class DeviceStore:
             new_doc["audit"] = merge_audit(stored.get("audit") or [], incoming_audit)
         if stored is not None and _content(stored) == _content(new_doc):
             return Trip.from_document(stored)
+        if review_guard:
+            try:
+                check_change(stored, new_doc)
+            except ReviewRefused as exc:
+                raise ApprovedTrip(str(exc)) from None
         now = self._clock().astimezone(UTC)
         revision = base_revision + 1
         changes = diff_changes(stored, new_doc) if stored is not None else []

@@ -81,7 +81,7 @@ def _correct(args: Any) -> int:  # noqa: ANN401
     said: dict[str, str] = {}
 
     def apply(trip):  # noqa: ANN001, ANN202 - runs under the store's lock
-        new, said["what"] = correct(trip, stop, args.field, args.value)
+        new, said["what"] = correct(trip, stop, args.field, args.value, by=by, at=datetime.now(UTC), reason=reason)
         return new
 
     try:
