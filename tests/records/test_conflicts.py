@@ -236,3 +236,23 @@ def test_cli_conflicts_settle_and_correct(tmp_path, store):
     r = run_cli("trip", "correct", tid[:8], "--stop", "1", "--field", "do_sat_mg_l", "--value", "9",
                 "--reason", "x", data_dir=data)
     assert r.returncode == 2 and "computed" in r.stderr and len(r.stderr.strip().splitlines()) == 1
+
+
+def test_cli_correct_on_an_approved_trip_adds_the_review_correction(tmp_path):
+    from core.rules.review import approved_version, new_event, review_state
+    from tests.sync.conftest import new_trip, open_store
+
+    store = open_store(tmp_path / "office", "office-1")
+    trip = new_trip(store, stops=1)
+    trip = store.save_trip(trip.model_copy(update={"ended_at": trip.started_at + timedelta(hours=6)}), "ended")
+    ev = new_event(trip, "approved", by="D.M.", at=AT)
+    store.update_trip(trip.id, "approved", lambda t: Trip.from_document(
+        {**t.to_document(), "review_events": [ev]}))
+    before = store.trip_document(trip.id)
+    r = run_cli("trip", "correct", trip.id[:8], "--stop", "1", "--field", "notes", "--value", "gauge 0.42 m",
+                "--reason", "transcription error", "--by", "D.M.", data_dir=tmp_path / "office")
+    assert r.returncode == 0, r.stderr
+    doc = DeviceStore.open(tmp_path / "office").trip_document(trip.id)
+    assert review_state(doc) == "reviewed" and doc["stops"][0]["notes"] == "gauge 0.42 m"
+    assert approved_version(doc)["stops"][0]["notes"] == before["stops"][0]["notes"]
+    assert doc["review_events"][-1]["reasons"] == ["transcription error"]
