@@ -34,7 +34,8 @@ from sync.layout import (INCOMING, LOG, TRIPS, canonical_trip_id, device_key, in
 from sync.session import Session, redact_url
 
 __all__ = ["RemoteFile", "WriteResult", "Target", "Listing", "FolderTarget", "WebDavTarget",
-           "PostTarget", "open_target", "POST_PREFIX", "MAX_LISTING_BYTES", "MAX_ACK_BYTES",
+           "PostTarget", "open_target", "check_address", "POST_PREFIX", "MAX_LISTING_BYTES",
+           "MAX_ACK_BYTES",
            "STALE_UPLOAD_S"]
 
 POST_PREFIX = "post+"
@@ -791,6 +792,32 @@ class PostTarget:
         pass
 
 
+def _check_url(url: str) -> None:
+    """The rules for an http(s) hub address; ConfigError (never echoing a password) when one fails."""
+    parts = urlsplit(url)
+    if parts.username is not None or parts.password is not None:
+        raise errors.ConfigError("the hub address must not carry a user name or password; put "
+                                 "them in the credentials file or the environment")
+    if not parts.hostname:
+        raise errors.ConfigError(f"the hub address {redact_url(url)} has no host name")
+    if parts.scheme.lower() == "http" and parts.hostname not in _LOOPBACK:
+        raise errors.ConfigError(f"plain http:// is allowed only on this machine (127.0.0.1); "
+                                 f"use https:// for {parts.hostname}")
+
+
+def check_address(address: str) -> None:
+    """Checks a web hub address by open_target's rules without opening anything (a screen checks
+    what was typed before storing it); ConfigError saying what is wrong. Folders are not looked at."""
+    address = (address or "").strip()
+    url = address[len(POST_PREFIX):] if address.lower().startswith(POST_PREFIX) else address
+    try:
+        scheme = urlsplit(url).scheme.lower() if "://" in url else ""
+    except ValueError:
+        raise errors.ConfigError("the hub address is not a readable web address") from None
+    if scheme in ("http", "https"):
+        _check_url(url)
+
+
 def ack_problem(body: bytes, trip_id: str, content_hash: str) -> str | None:
     """What is wrong with an intake endpoint's 2xx answer, or None for a proper acknowledgement:
     a JSON object echoing ``trip_id`` (the trip's UUID) and ``content_hash`` (``sha256:<hex>`` of
@@ -829,15 +856,7 @@ def open_target(address: str, session: Session) -> Target:
     url = address[len(POST_PREFIX):] if is_post else address
     scheme = urlsplit(url).scheme.lower() if "://" in url else ""
     if scheme in ("http", "https"):
-        parts = urlsplit(url)
-        if parts.username is not None or parts.password is not None:
-            raise errors.ConfigError("the hub address must not carry a user name or password; put "
-                                     "them in the credentials file or the environment")
-        if not parts.hostname:
-            raise errors.ConfigError(f"the hub address {redact_url(url)} has no host name")
-        if scheme == "http" and parts.hostname not in _LOOPBACK:
-            raise errors.ConfigError(f"plain http:// is allowed only on this machine (127.0.0.1); "
-                                     f"use https:// for {parts.hostname}")
+        _check_url(url)
         return PostTarget(url, session) if is_post else WebDavTarget(url, session)
     if is_post:
         raise errors.ConfigError("a post+ endpoint address must continue with http:// or https://")

@@ -2,11 +2,12 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from datetime import datetime
 from typing import Any
 from collections.abc import Iterable
 
 __all__ = ["FIELD_LABELS", "TEMPLATES", "Problem", "label_for", "path_label", "render",
-           "problems_from_validation", "one_line"]
+           "problems_from_validation", "one_line", "when_text"]
 
 #: Field name → label a technician reads. Keys are the last element of a field path.
 FIELD_LABELS: dict[str, str] = {
@@ -52,6 +53,8 @@ FIELD_LABELS: dict[str, str] = {
     "device_id": "Device ID",
     "reading_mg_l": "Calibration meter reading",
     "calibration_reading": "Calibration meter reading",
+    "cal_temp": "Calibration temperature",
+    "cal_pressure": "Calibration pressure",
     "tolerance_mg_l": "Calibration tolerance",
     "tolerance": "Calibration tolerance",
     "pre_calibration": "Pre-trip calibration",
@@ -276,3 +279,29 @@ def one_line(problems: list[Problem], where: str = "") -> str:
     head = problems[0].message
     more = f" (and {len(problems) - 1} more problem{'s' if len(problems) > 2 else ''})" if len(problems) > 1 else ""
     return f"{where}: {head}{more}" if where else head + more
+
+
+def when_text(when: datetime | str | None) -> str:
+    """A record's time as a person reads it: in the time's own UTC offset, saying which, e.g.
+    ``2026-06-09 07:40 UTC−07:00`` (the clock the crew saw where it was recorded, on any machine).
+
+    The app and the command line both show times this way. A time without an offset (not written
+    by streamtab) is shown as it is, marked "offset unknown".
+    """
+    if when is None or when == "":
+        return "—"
+    if isinstance(when, str):
+        try:
+            when = datetime.fromisoformat(when)
+        except ValueError:
+            return str(when)
+    text = when.strftime("%Y-%m-%d %H:%M")
+    offset = when.utcoffset()
+    if offset is None:
+        return f"{text} (offset unknown)"
+    minutes = int(offset.total_seconds() // 60)
+    if minutes == 0:
+        return f"{text} UTC"
+    sign = "+" if minutes > 0 else "−"
+    h, m = divmod(abs(minutes), 60)
+    return f"{text} UTC{sign}{h:02d}:{m:02d}"

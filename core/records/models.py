@@ -614,14 +614,17 @@ class Trip(_Record):
     review_events: list[ReviewEvent] = Field(default_factory=list)
     #: Bench batches whose QC applies to this trip's bottles (optional; absent when empty).
     lab_batches: list[LabBatch] = Field(default_factory=list)
+    #: The crew started the trip with no pre-trip calibration, saying so (optional; absent when False).
+    started_without_calibration: bool = False
 
     @model_serializer(mode="wrap")
     def _omit_empty_optional_lists(self, handler: Any) -> Any:
-        # A trip without hand-offs, batches or review steps is written exactly as before those fields
-        # existed, so older documents keep their bytes and hashes and no save records a change nobody made.
+        # A trip without hand-offs, batches or review steps (and with the usual calibration) is
+        # written exactly as before those fields existed, so older documents keep their bytes and
+        # hashes and no save records a change nobody made.
         data = handler(self)
         if isinstance(data, dict):
-            for key in ("custody", "lab_batches", "review_events"):
+            for key in ("custody", "lab_batches", "review_events", "started_without_calibration"):
                 if not data.get(key):
                     data.pop(key, None)
         return data

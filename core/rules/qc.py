@@ -368,8 +368,10 @@ def trip_level_flags(trip: Trip, settings: ProgramSettings) -> list[Flag]:
     flags: list[Flag] = []
     pre = trip.pre_calibration
     if pre is None:
-        if trip.stops:
+        if trip.stops or trip.started_without_calibration:
             flags.append(_flag("calibration.missing", Severity.WARNING,
+                               "The crew started this trip without a pre-trip calibration (recorded at the start)."
+                               if trip.started_without_calibration else
                                "No pre-trip calibration is recorded for this trip.",
                                "Record the air calibration (or note why none was done) before relying on the DO readings.",
                                "pre_calibration"))

@@ -93,6 +93,7 @@ class TripForm:
     meter_id: str = ""
     started_at: datetime | None = None
     ended_at: datetime | None = None
+    started_without_calibration: bool = False
     pre_cal: CalForm = field(default_factory=CalForm)
     post_check: CalForm = field(default_factory=CalForm)
     stops: list[StopForm] = field(default_factory=list)

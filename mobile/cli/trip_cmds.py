@@ -104,6 +104,8 @@ def _note_quarantine(store) -> None:  # noqa: ANN001
 
 
 def _trip_list(args) -> int:  # noqa: ANN001
+    from core.records.messages import when_text
+
     store = _store(args)
     summaries = store.list_trips()
     _note_quarantine(store)
@@ -114,7 +116,7 @@ def _trip_list(args) -> int:  # noqa: ANN001
         sys.stdout.write("no trips on this device\n")
         return 0
     for s in summaries:
-        sys.stdout.write(f"{s.id[:8]}  {s.started_at[:16]:<16}  {s.program[:28]:<28}  "
+        sys.stdout.write(f"{s.id[:8]}  {when_text(s.started_at):<26}  {s.program[:28]:<28}  "
                          f"{','.join(s.crew)[:14]:<14}  {s.stop_count:>3} stop{' ' if s.stop_count == 1 else 's'}  rev {s.revision:<3} {s.status}\n")
     return 0
 
@@ -150,6 +152,7 @@ def _show_data(store, trip_id: str) -> dict:  # noqa: ANN001
             "meter_id": trip.meter_id, "started_at": trip.started_at.isoformat(),
             "ended_at": trip.ended_at.isoformat() if trip.ended_at else None, "revision": trip.revision,
             "status": trip.status, "calibrations": cal,
+            "started_without_calibration": trip.started_without_calibration,
             "trip_flags": [f.to_dict() for f in flags.get(TRIP_KEY, [])],
             "open_conflicts": [c.model_dump(mode="json") for c in trip.open_conflicts],
             "stops": stops}
@@ -171,10 +174,14 @@ def _trip_show(args) -> int:  # noqa: ANN001
     if args.json:
         emit_json(data)
         return 0
+    from core.records.messages import when_text
+
     w = sys.stdout.write
     w(f"trip {data['id']}  {data['program']}  crew {', '.join(data['crew']) or '—'}  status {data['status']}\n")
-    w(f"  started {data['started_at']}  ended {data['ended_at'] or '—'}  meter {data['meter_id'] or '—'}"
+    w(f"  started {when_text(data['started_at'])}  ended {when_text(data['ended_at'])}  meter {data['meter_id'] or '—'}"
       f"  revision {data['revision']}\n")
+    if data["started_without_calibration"] and not data["calibrations"]["pre_calibration"]:
+        w("  pre-trip calibration: none — the trip was started without calibration\n")
     for key, label in (("pre_calibration", "pre-trip calibration"), ("post_check", "post-trip check")):
         c = data["calibrations"][key]
         if c:
