@@ -1,260 +1,79 @@
-"""The device store: one small TinyDB file per trip, a small index, one save path, a lock, quarantine.
+"""The device store: trips, sites and settings of one device behind one save path and a lock.
 
 Layout of a data folder::
 
     device.json         this device's id
-    trips/<trip>.json   one TinyDB file per trip (table "trip", document 1 = the trip document)
-    index/<trip>.json   the trip's summary (what `list_trips` shows), rewritten after the trip file;
-                        a checked cache (it names the trip file version it was made from)
-    sites.json          TinyDB, table "sites" (one document per site)
-    settings.json       TinyDB, table "settings" (document 1 = program settings)
-    quarantine/         unreadable files, moved here and never overwritten
+    trips/<trip>.json   one TinyDB file per trip (core.store.trips)
+    index/<trip>.json   the trip's summary (core.store.index), a checked cache
+    sites.json          TinyDB, table "sites" (core.store.tables)
+    settings.json       TinyDB, table "settings" (core.store.tables)
+    quarantine/         unreadable files, moved here and never overwritten (core.store.quarantine)
     .lock               inter-process lock (filelock)
 
 Every write of data goes through core.store.atomic.atomic_write_bytes (temporary file, fsync,
-``os.replace``, fsync of the folder; :class:`AtomicJSONStorage` is TinyDB's storage on top of
-it), so a reader or a crash sees the old file or the new one, never a part. Index entries are
-replaced atomically without fsync: they are rebuilt from the trip files when outdated.
-A save costs the same whatever the number of trips: it rewrites one trip file and one summary.
-Every trip change goes through one funnel (:meth:`DeviceStore._commit`): validate → derive →
-compare → audit → write.
+``os.replace``, fsync of the folder), so a reader or a crash sees the old file or the new one,
+never a part. A save costs the same whatever the number of trips: it rewrites one trip file
+and one summary. Every trip change goes through one funnel (:meth:`DeviceStore._commit`):
+validate → derive → compare → audit → write.
 """
 from __future__ import annotations
 
 import hashlib
 import json
 import os
-import re
 import tempfile
 import threading
-import time
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
-from dataclasses import asdict, dataclass, field
-from datetime import datetime, timezone
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
-from collections.abc import Callable, Iterator
 
 from filelock import FileLock, Timeout
 from pydantic import ValidationError
-from tinydb import TinyDB
-from tinydb.storages import Storage
-from tinydb.table import Document
 
-from core.store.atomic import atomic_write_bytes, canonical_json_bytes, content_hash
 from core.records.messages import Problem, one_line, problems_from_validation
-from core.records.models import SCHEMA_VERSION, AuditEntry, ProgramSettings, Site, Stop, Trip, new_id
+from core.records.migrations import migrate
+from core.records.models import (
+    BOOKKEEPING,
+    LOCAL_STOP_KEYS,
+    SCHEMA_VERSION,
+    AuditChange,
+    AuditEntry,
+    ProgramSettings,
+    Site,
+    Stop,
+    Trip,
+    keys_by_role,
+    new_id,
+)
+from core.store.atomic import atomic_write_bytes, canonical_json_bytes
+from core.records.merge import common_ancestor, history, merge_trips, retain
+from core.store.audit import diff_changes, merge_audit
+from core.store.drafts import Drafts, split_drafts, with_drafts
+from core.store.errors import (
+    ApprovedTrip,
+    CorruptFile,
+    InvalidRecord,
+    NewerSchemaError,
+    StaleTrip,
+    StoreError,
+    StoreLocked,
+    StoreWriteError,
+    TripNotFound,
+)
+from core.store.index import FileKey, SummaryIndex, TripSummary
 from core.store.paths import resolve_data_dir
+from core.store.quarantine import quarantine, utc_stamp
+from core.store.tables import Tables
+from core.store.trips import SAFE_ID, TripFiles, Unreadable
 
-__all__ = [
-    "StoreError", "StoreLocked", "NewerSchemaError", "TripNotFound", "InvalidRecord", "StaleTrip",
-    "StoreWriteError",
-    "CorruptFile", "TripSummary", "AtomicJSONStorage", "DeviceStore", "diff_paths",
-]
-
-
-# --------------------------------------------------------------------------------------------
-# Errors
-# --------------------------------------------------------------------------------------------
-class StoreError(Exception):
-    """Root of every device-store error; str() is one sentence a person can act on."""
-
-
-class StoreLocked(StoreError):
-    """Another process (the app, a command-line sync) holds the store's lock for too long."""
-
-
-class NewerSchemaError(StoreError):
-    """A document written by a newer build than this one; it is left untouched."""
-
-    def __init__(self, message: str, found: int | None = None, known: int = SCHEMA_VERSION):
-        super().__init__(message)
-        self.found = found
-        self.known = known
-
-
-class TripNotFound(StoreError):
-    """No trip with that id on this device."""
-
-
-class InvalidRecord(StoreError):
-    """A record failed validation; `problems` holds every finding (code, field, label, message)."""
-
-    def __init__(self, message: str, problems: list[Problem] | None = None):
-        super().__init__(message)
-        self.problems = list(problems or [])
-
-
-class StoreWriteError(StoreError):
-    """The disk refused a write (full, read-only, removed); the stored file is unchanged."""
-
-
-class StaleTrip(StoreError):
-    """The trip was changed (by another save or a sync) since this copy was loaded."""
-
-
-def _json_file(raw: bytes, error: type[Exception]) -> Any:
-    """The JSON in a store file's bytes; `error` (with a plain reason) for an empty or broken one."""
-    if not raw.strip():
-        raise error("the file is empty")
-    try:
-        return json.loads(raw)
-    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-        raise error(f"the file is not valid JSON ({exc})") from None
-
-
-class _Unreadable(Exception):
-    """Internal: a trip file that does not parse (the reason is the message)."""
-
-
-class CorruptFile(StoreError):
-    """A stored file could not be read; it was moved to quarantine (see `path`)."""
-
-    def __init__(self, message: str, path: Path | None = None):
-        super().__init__(message)
-        self.path = path
-
-
-# --------------------------------------------------------------------------------------------
-# TinyDB storage that never leaves a half-written file
-# --------------------------------------------------------------------------------------------
-class AtomicJSONStorage(Storage):
-    """TinyDB storage: `read()` parses the file (None when absent); `write()` replaces it atomically.
-
-    Unlike TinyDB's JSONStorage it never rewrites a file in place: each write goes to a temporary
-    file that is fsynced, moved over the old one with ``os.replace``, and the folder fsynced.
-    A file that does not parse raises ``ValueError`` (the store quarantines it).
-    """
-
-    def __init__(self, path: str | Path, **_: Any):
-        super().__init__()
-        self.path = Path(path)
-
-    def read(self) -> dict[str, Any] | None:
-        try:
-            raw = self.path.read_bytes()
-        except FileNotFoundError:
-            return None
-        data = _json_file(raw, ValueError)
-        if not isinstance(data, dict):
-            raise ValueError("the file does not hold a table map")
-        return data
-
-    def write(self, data: dict[str, Any]) -> None:
-        atomic_write_bytes(self.path, canonical_json_bytes(data))
-
-    def close(self) -> None:
-        pass
-
-
-def _tinydb(path: Path) -> TinyDB:
-    return TinyDB(path, storage=AtomicJSONStorage)
-
-
-# --------------------------------------------------------------------------------------------
-# Summaries and diffs
-# --------------------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class TripSummary:
-    """What the trip list shows, read from the small index (times are ISO 8601 text)."""
-
-    id: str
-    program: str
-    crew: list[str]
-    started_at: str
-    ended_at: str | None
-    revision: int
-    status: str
-    stop_count: int
-    updated_at: str | None
-    content_hash: str
-    schema_version: int = SCHEMA_VERSION
-    open_conflicts: int = 0
-    bottle_labels: list[str] = field(default_factory=list)
-
-    def to_dict(self) -> dict[str, Any]:
-        return asdict(self)
-
-
-def _summary_of(doc: dict[str, Any], digest: str | None = None) -> TripSummary:
-    stops = doc.get("stops") or []
-    conflicts = [c for c in (doc.get("conflicts") or []) if not c.get("resolved_at")]
-    if conflicts:
-        status = "needs attention"
-    elif doc.get("schema_version", 0) > SCHEMA_VERSION:
-        status = "newer build"
-    else:
-        status = "in progress" if not doc.get("ended_at") else "ended"
-    labels = [b.get("label", "") for s in stops for b in (s.get("bottles") or [])]
-    return TripSummary(
-        id=doc["id"], program=doc.get("program", ""), crew=list(doc.get("crew") or []),
-        started_at=doc.get("started_at", ""), ended_at=doc.get("ended_at"),
-        revision=int(doc.get("revision", 0)), status=status, stop_count=len(stops),
-        updated_at=doc.get("updated_at"), content_hash=digest or content_hash(doc),
-        schema_version=int(doc.get("schema_version", 0)), open_conflicts=len(conflicts),
-        bottle_labels=labels)
-
-
-_BOOKKEEPING = ("revision", "updated_at")
-_NOT_CHANGES = {"revision", "updated_at", "audit", "derived", "flags", "target_mg_l",
-                "difference_mg_l", "accepted", "method", "core_version"}
-
-
-def _content(doc: dict[str, Any]) -> dict[str, Any]:
-    return {k: v for k, v in doc.items() if k not in _BOOKKEEPING}
-
-
-def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[str]:
-    """Field paths that differ between two documents; list elements are matched by `id`.
-
-    Paths look like ``stops[<id>].temp``; derived values and bookkeeping are left out
-    (they follow from the inputs). At most `limit` paths.
-    """
-    out: list[str] = []
-
-    def walk(a: Any, b: Any, path: str) -> None:
-        if len(out) >= limit or a == b:
-            return
-        if isinstance(a, dict) and isinstance(b, dict) and ("id" in a or "id" in b or not path):
-            # Records (with an id) are walked field by field; values such as a quantity are
-            # reported as one path ("stops[<id>].temp"), which keeps audit entries short.
-            for key in sorted(set(a) | set(b)):
-                if key in _NOT_CHANGES:
-                    continue
-                walk(a.get(key), b.get(key), f"{path}.{key}" if path else key)
-            return
-        if (isinstance(a, list) and isinstance(b, list)
-                and all(isinstance(x, dict) and "id" in x for x in a + b)):
-            old_by = {x["id"]: x for x in a}
-            new_by = {x["id"]: x for x in b}
-            for key in list(old_by) + [k for k in new_by if k not in old_by]:
-                walk(old_by.get(key), new_by.get(key), f"{path}[{key}]")
-            return
-        out.append(path or "(document)")
-
-    walk(old, new, prefix)
-    return out
+__all__ = ["DeviceStore", "MergeOutcome"]
 
 
 def _migrated(doc: dict[str, Any]) -> dict[str, Any]:
-    from core.records.migrations import migrate
-
     return migrate(doc)
-
-
-def _replace_unsynced(path: Path, data: bytes) -> None:
-    """Temporary file → ``os.replace``, without fsync: for the index, a checked cache only."""
-    atomic_write_bytes(path, data, durable=False)
-
-
-def _merge_audit(stored: list[dict[str, Any]], incoming: list[dict[str, Any]]) -> list[dict[str, Any]]:
-    """Stored entries in their order, then incoming entries not yet stored (by id), oldest first."""
-    known = {e.get("id") for e in stored}
-    extra = [e for e in incoming if e.get("id") not in known]
-    if not extra:
-        return list(stored)
-    extra.sort(key=lambda e: (str(e.get("at", "")), str(e.get("id", ""))))
-    return list(stored) + extra
 
 
 def _non_finite_problems(doc: Any) -> list[Problem]:
@@ -281,11 +100,25 @@ def _non_finite_problems(doc: Any) -> list[Problem]:
     return out
 
 
-_SAFE_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")
+def _content(doc: dict[str, Any]) -> dict[str, Any]:
+    """A trip document without its bookkeeping (id, revision, time of the last save, ...)."""
+    bookkeeping = keys_by_role(BOOKKEEPING)
+    return {k: v for k, v in doc.items() if k not in bookkeeping}
+
+
+@dataclass(frozen=True)
+class MergeOutcome:
+    """What :meth:`DeviceStore.merge_document` did: the trip as stored and `result` — "new",
+    "unchanged" (the stored trip already held it), "fast-forward" (it held the stored trip) or
+    "merged" (three-way; `conflicts` lists the clashes it found)."""
+
+    trip: Trip
+    result: str
+    conflicts: list[dict[str, Any]] = field(default_factory=list)
 
 
 def _utcnow() -> datetime:
-    return datetime.now(timezone.utc)
+    return datetime.now(UTC)
 
 
 # --------------------------------------------------------------------------------------------
@@ -304,6 +137,8 @@ class DeviceStore:
                  lock_timeout_s: float = 5.0):
         self.data_dir = Path(data_dir)
         self.device_id = device_id
+        #: This device's name as a person set it (None until set; see :meth:`set_device_name`).
+        self.device_name: str | None = None
         self._clock = clock or _utcnow
         self.lock_timeout_s = lock_timeout_s
         self._trips_dir = self.data_dir / "trips"
@@ -311,14 +146,12 @@ class DeviceStore:
         self._quarantine_dir = self.data_dir / "quarantine"
         self._lock = FileLock(str(self.data_dir / ".lock"), timeout=lock_timeout_s)
         self._tlock = threading.RLock()
-        self._sites_cache: tuple[tuple[int, int], dict[str, Site]] | None = None
+        self._files = TripFiles(self._trips_dir)
+        self._drafts = Drafts(self.data_dir / "drafts")
+        self._index = SummaryIndex(self._index_dir)
+        self._tables = Tables(self.data_dir, self._quarantine)
         self._finalizer: Any = None     # in_memory(): removes the temporary folder with the store
-        self._settings_cache: tuple[tuple[int, int], ProgramSettings] | None = None
-        self._cache: dict[str, tuple[bytes, bytes, dict[str, Any]]] = {}
         self._bases: tuple[Any, dict[str, str]] = (None, {})
-        # Summaries this process has read or written, by trip id, with the trip file's
-        # (inode, mtime, size) they belong to: a listing then costs one stat per trip.
-        self._summaries: dict[str, tuple[tuple[int, int, int], TripSummary]] = {}
 
     # -- opening ---------------------------------------------------------------------------
     @classmethod
@@ -341,6 +174,7 @@ class DeviceStore:
                 atomic_write_bytes(root / "device.json",
                                    canonical_json_bytes({"device_id": remembered}))
             store.device_id = device_id or remembered
+            store.device_name = store._read_device_file().get("name") or None
             store._clean_temp_files()
             store._repair_index()
         return store
@@ -368,6 +202,30 @@ class DeviceStore:
         if fin is not None:
             fin()
 
+    def _read_device_file(self) -> dict[str, Any]:
+        try:
+            data = json.loads((self.data_dir / "device.json").read_bytes())
+        except (OSError, ValueError):
+            return {}
+        return data if isinstance(data, dict) else {}
+
+    def set_device_name(self, name: str) -> str:
+        """Names this device (kept in device.json; stamped on every audit entry it writes, so
+        conflicts and the audit show people a name, never a device id). 1 to 40 characters."""
+        text = " ".join(str(name or "").split())
+        if not 1 <= len(text) <= 40:
+            raise InvalidRecord("Device name: write 1 to 40 characters, e.g. 'Tablet 2' or 'Lab desk'.")
+        with self._locked():
+            data = self._read_device_file()
+            data.update(device_id=data.get("device_id") or self.device_id, name=text)
+            try:
+                atomic_write_bytes(self.data_dir / "device.json", canonical_json_bytes(data))
+            except OSError as exc:
+                raise StoreWriteError(f"Could not write device.json ({exc.strerror or exc}); the device name"
+                                      " is unchanged.") from None
+            self.device_name = text
+        return text
+
     def _read_device_id(self) -> str | None:
         path = self.data_dir / "device.json"
         try:
@@ -383,7 +241,7 @@ class DeviceStore:
 
         Only the store's own names: other parts (sync's outbox) may write in the data folder.
         """
-        patterns = [(self._trips_dir, ".*.tmp"), (self._index_dir, ".*.tmp")]
+        patterns = [(self._trips_dir, ".*.tmp"), (self._index_dir, ".*.tmp"), (self.data_dir / "drafts", ".*.tmp")]
         patterns += [(self.data_dir, f".{name}.*.tmp") for name in ("device.json", "sites.json", "settings.json")]
         for folder, pattern in patterns:
             for tmp in folder.glob(pattern):
@@ -422,19 +280,7 @@ class DeviceStore:
 
     # -- quarantine ------------------------------------------------------------------------
     def _quarantine(self, path: Path, reason: str) -> Path:
-        self._quarantine_dir.mkdir(parents=True, exist_ok=True)
-        stamp = time.strftime("%Y%m%dT%H%M%S", time.gmtime())
-        target = self._quarantine_dir / f"{path.name}.{stamp}"
-        n = 1
-        while target.exists():
-            n += 1
-            target = self._quarantine_dir / f"{path.name}.{stamp}.{n}"
-        try:
-            os.replace(path, target)
-        except FileNotFoundError:
-            return target
-        atomic_write_bytes(target.with_name(target.name + ".reason.txt"), (reason + "\n").encode())
-        return target
+        return quarantine(self._quarantine_dir, f"{path.name}.{utc_stamp()}", reason, source=path)
 
     def quarantined(self) -> list[Path]:
         """Files moved aside because they could not be read (oldest first), by name."""
@@ -443,9 +289,7 @@ class DeviceStore:
 
     # -- reading trips ---------------------------------------------------------------------
     def _trip_path(self, trip_id: str) -> Path:
-        if not isinstance(trip_id, str) or not _SAFE_ID.match(trip_id):
-            raise TripNotFound(f"No trip with id {trip_id!r} on this device (ids are letters, digits, '-', '_', '.').")
-        return self._trips_dir / f"{trip_id}.json"
+        return self._files.path(trip_id)
 
     def _corrupt(self, path: Path, reason: str, seen: bytes | None = None) -> CorruptFile | None:
         """Quarantines an unreadable trip file — under the lock, and only if it still holds the
@@ -459,8 +303,8 @@ class DeviceStore:
                 except FileNotFoundError:
                     return None
             target = self._quarantine(path, reason)
-            (self._index_dir / path.name).unlink(missing_ok=True)
-            self._cache.pop(path.stem, None)
+            self._index.drop(path.stem)
+            self._files.forget(path.stem)
         return CorruptFile(f"The trip file {path.name} could not be read ({reason}); it was moved to"
                            f" {target} and the rest of the store keeps working.", target)
 
@@ -476,38 +320,17 @@ class DeviceStore:
             try:
                 file_bytes = path.read_bytes()
             except FileNotFoundError:
-                self._cache.pop(trip_id, None)
+                self._files.forget(trip_id)
                 return None
-            hit = self._cache.get(trip_id)
-            if hit is not None and hit[0] == file_bytes:
-                return hit[1], hit[2]
             try:
-                raw, doc = self._parse_trip_file(trip_id, file_bytes)
-            except _Unreadable as bad:
+                raw, doc = self._files.read(trip_id, file_bytes)
+            except Unreadable as bad:
                 err = self._corrupt(path, str(bad), file_bytes)
                 if err is None:
                     continue
                 raise err from None
-            if len(self._cache) > 64:
-                self._cache.clear()
-            self._cache[trip_id] = (file_bytes, raw, doc)
             return raw, doc
         raise StoreError(f"The trip file {path.name} keeps changing while being read; try again.")
-
-    @staticmethod
-    def _parse_trip_file(trip_id: str, file_bytes: bytes) -> tuple[bytes, dict[str, Any]]:
-        data = _json_file(file_bytes, _Unreadable)
-        table = data.get("trip") if isinstance(data, dict) else None
-        doc = table.get("1") if isinstance(table, dict) else None
-        if not isinstance(doc, dict):
-            raise _Unreadable("no trip document inside")
-        if doc.get("id") != trip_id:
-            raise _Unreadable(f"the id inside is {doc.get('id')!r}")
-        try:
-            raw = canonical_json_bytes(doc)
-        except ValueError as exc:
-            raise _Unreadable(str(exc)) from None
-        return raw, doc
 
     def _read_trip_doc_raw(self, trip_id: str) -> dict[str, Any] | None:
         """The stored document as written (no migration), None when absent; quarantines junk."""
@@ -515,8 +338,6 @@ class DeviceStore:
         return None if got is None else got[1]
 
     def _load(self, trip_id: str) -> tuple[Trip, dict[str, Any]]:
-        from core.records.migrations import migrate
-
         got = self._read_trip_file(trip_id)
         if got is None:
             raise TripNotFound(f"No trip {trip_id} on this device; see 'streamtab trip list'.")
@@ -529,7 +350,7 @@ class DeviceStore:
             reason = "failed validation: " + (one_line(probs) if probs else str(exc))
             path = self._trip_path(trip_id)
             seen = b'{"trip":{"1":' + raw_bytes[:-1] + b"}}\n"
-            hit = self._cache.get(trip_id)
+            hit = self._files.cached(trip_id)
             err = self._corrupt(path, reason, hit[0] if hit is not None else seen)
             if err is None:
                 return self._load(trip_id)
@@ -537,12 +358,14 @@ class DeviceStore:
         return trip, raw
 
     def load_trip(self, trip_id: str) -> Trip:
-        """The trip with that id (migrated from an older schema in memory if needed).
+        """The trip with that id (migrated from an older schema in memory if needed), with this
+        device's drafts on its stops (core.store.drafts; they are not in the trip file).
 
         Raises TripNotFound, NewerSchemaError (file left untouched) or CorruptFile (moved to
         quarantine).
         """
-        return self._load(trip_id)[0]
+        trip = self._load(trip_id)[0]
+        return with_drafts(trip, self._drafts.read(trip.id))
 
     def trip_document(self, trip_id: str) -> dict[str, Any]:
         """The stored JSON document of a trip, as exchanged with hubs (no migration applied).
@@ -573,28 +396,16 @@ class DeviceStore:
         with os.scandir(self._trips_dir) as entries:  # one stat per trip, no Path objects
             for entry in entries:
                 trip_id = entry.name[:-5]
-                if not entry.name.endswith(".json") or not _SAFE_ID.match(trip_id):
+                if not entry.name.endswith(".json") or not SAFE_ID.match(trip_id):
                     continue
                 try:
                     st = entry.stat()
                 except FileNotFoundError:
                     continue
                 keys[trip_id] = (st.st_ino, st.st_mtime_ns, st.st_size)
-        with os.scandir(self._index_dir) as entries:
-            for entry in entries:
-                if entry.name.endswith(".json") and entry.name[:-5] not in keys:
-                    Path(entry.path).unlink(missing_ok=True)  # the trip file is gone (quarantined)
+        self._index.prune(keys)
         for trip_id, key in keys.items():
-            memo = self._summaries.get(trip_id)
-            summary = memo[1] if memo is not None and memo[0] == key else None
-            if summary is None:
-                try:
-                    data = json.loads((self._index_dir / f"{trip_id}.json").read_bytes())
-                    if data.get("file") == list(key):
-                        summary = TripSummary(**data["summary"])
-                        self._summaries[trip_id] = (key, summary)
-                except (OSError, ValueError, TypeError, KeyError, AttributeError):
-                    summary = None
+            summary = self._index.get(trip_id, key)
             if summary is None:
                 try:
                     got = self._read_trip_file(trip_id)
@@ -602,12 +413,12 @@ class DeviceStore:
                     continue
                 if got is None:
                     continue
-                summary = self._write_summary(got[1], None, self._file_key(trip_id))
+                summary = self._index.write(got[1], None, self._file_key(trip_id))
             out.append(summary)
         out.sort(key=lambda s: (s.started_at, s.id), reverse=True)
         return out
 
-    def _file_key(self, trip_id: str) -> tuple[int, int, int] | None:
+    def _file_key(self, trip_id: str) -> FileKey | None:
         try:
             st = self._trip_path(trip_id).stat()
         except FileNotFoundError:
@@ -622,42 +433,61 @@ class DeviceStore:
                 labels.setdefault(label, s.id)
         return labels
 
-    # -- the one save path -----------------------------------------------------------------
-    def save_trip(self, trip: Trip, change: str) -> Trip:
-        """THE save path: validate → derive → write, with an audit entry and revision + 1.
+    # -- the one save path: every write names the revision it read ------------------------
+    def _check_expected(self, trip_id: str, stored: dict[str, Any] | None, expected: int | None) -> None:
+        """Raises StaleTrip unless the stored trip is at `expected` (None: no stored trip)."""
+        found = None if stored is None else int(stored.get("revision", 0))
+        if found == expected:
+            return
+        if expected is None:
+            raise StaleTrip(f"Trip {trip_id} is already on this device (revision {found}); load it and"
+                            " make the change again, or import the file to merge it.")
+        if found is None:
+            raise StaleTrip(f"Trip {trip_id} is no longer on this device; nothing was saved.")
+        raise StaleTrip(f"Trip {trip_id} was changed elsewhere (stored revision {found}, this copy"
+                        f" {expected}); reload it and make the change again.")
 
-        `change` says what was done in a few words ("stop LK-02 readings"). Returns the trip as
-        stored. A save whose content equals the stored trip writes nothing. Raises InvalidRecord
-        (nothing written), StaleTrip when the stored revision moved on since `trip` was loaded,
-        NewerSchemaError, StoreLocked.
+    def save_trip(self, trip: Trip, change: str, *, by: str | None = None, reason: str | None = None) -> Trip:
+        """Saves a trip loaded from this store (or a new one): validate → derive → write, with an
+        audit entry and revision + 1.
+
+        The trip's own `revision` is the revision it was read at (0 for a new trip): a stored
+        trip at another revision raises StaleTrip and nothing is written (reload, or use
+        :meth:`update_trip`). `change` says what was done in a few words ("stop LK-02
+        readings"); `by` and `reason` are recorded in the audit entry. Returns the trip as
+        stored; a save whose content equals the stored trip writes nothing. Raises
+        InvalidRecord (nothing written), StaleTrip, NewerSchemaError, StoreLocked.
         """
         checked = self._validated(trip)
         with self._locked():
             stored = self._stored_or_none(checked.id)
-            if stored is not None and int(stored.get("revision", 0)) != checked.revision:
-                raise StaleTrip(
-                    f"Trip {checked.id} was changed elsewhere (stored revision {stored.get('revision')},"
-                    f" this copy {checked.revision}); reload it and make the change again.")
+            if stored is None and checked.revision == 0:
+                expected = None
+            else:
+                expected = checked.revision
+            self._check_expected(checked.id, stored, expected)
             base = int(stored.get("revision", 0)) if stored is not None else checked.revision
-            return self._commit(checked, stored, change, base)
+            return self._commit(checked, stored, change, base, by=by, reason=reason)
 
-    def put_document(self, doc: dict[str, Any], change: str) -> Trip:
-        """Runs a foreign trip document (an import, a sync pull) through the same save path.
+    def put_document(self, doc: dict[str, Any], change: str, *, expected_revision: int | None) -> Trip:
+        """Writes a trip document in place of the stored one, through the same save path.
 
-        The document is migrated, validated strictly and derived again; when its content (all
-        but revision and updated_at) equals the stored trip, nothing is written and the stored
-        trip is returned. Otherwise it is written with revision max(stored, incoming) + 1 and an
-        audit entry. Raises InvalidRecord, NewerSchemaError (nothing written), StoreLocked.
+        `expected_revision` is the stored revision the document was based on (None: the trip is
+        expected not to be on this device yet); when the stored trip is at another revision,
+        StaleTrip is raised and nothing is written — re-read, or hand the document to
+        :meth:`merge_document`. The document is migrated, validated strictly and derived
+        again; when its content equals the stored trip nothing is written. Otherwise it is
+        written with revision max(stored, incoming) + 1 and an audit entry. Raises
+        InvalidRecord, NewerSchemaError (nothing written), StaleTrip, StoreLocked.
         """
-        from core.records.migrations import migrate
-
         if not isinstance(doc, dict):
             raise InvalidRecord("A trip document must be a JSON object.")
         checked = self._validate_doc(migrate(doc))
         with self._locked():
             stored = self._stored_or_none(checked.id)
+            self._check_expected(checked.id, stored, expected_revision)
             base = max(checked.revision, int(stored.get("revision", 0)) if stored is not None else 0)
-            return self._commit(checked, stored, change, base)
+            return self._commit(checked, stored, change, base, foreign=True, review_guard=False)
 
     def adopt_document(self, doc: dict[str, Any], *, expected_revision: int | None) -> Trip | None:
         """Stores another device's saved version of a trip byte for byte (a sync fast-forward).
@@ -672,8 +502,6 @@ class DeviceStore:
         raises StaleTrip when the stored revision is not `expected_revision`, InvalidRecord
         (nothing written), NewerSchemaError, StoreLocked.
         """
-        from core.records.migrations import migrate
-
         if not isinstance(doc, dict):
             raise InvalidRecord("A trip document must be a JSON object.")
         if migrate(doc) is not doc:
@@ -693,28 +521,89 @@ class DeviceStore:
                     return None
                 if canonical_json_bytes(stored) == doc_bytes:
                     return checked
-            self._write_trip_bytes(json.loads(doc_bytes), doc_bytes)
+            self._write_trip_bytes(json.loads(doc_bytes), doc_bytes, exists=stored is not None)
         return checked
 
-    def _write_trip_bytes(self, new_doc: dict[str, Any], doc_bytes: bytes) -> None:
+    def _write_trip_bytes(self, new_doc: dict[str, Any], doc_bytes: bytes, *, exists: bool = True) -> None:
         """Writes one trip document (its canonical bytes) and its summary. Lock held."""
         path = self._trip_path(new_doc["id"])
-        # The TinyDB layout {"trip": {"1": doc}}, byte for byte what AtomicJSONStorage.write gives.
-        file_bytes = b'{"trip":{"1":' + doc_bytes[:-1] + b"}}\n"
         try:
-            atomic_write_bytes(path, file_bytes)
+            self._files.write(new_doc, doc_bytes, exists=exists)
         except OSError as exc:
+            self._files.forget(new_doc["id"])
             raise StoreWriteError(f"Could not write {path.name} ({exc.strerror or exc}); the stored trip"
                                   " is unchanged — free space or check the storage, then save again.") from None
-        self._cache[new_doc["id"]] = (file_bytes, doc_bytes, new_doc)
-        self._write_summary(new_doc, "sha256:" + hashlib.sha256(doc_bytes).hexdigest(),
-                            self._file_key(new_doc["id"]))
+        self._index.write(new_doc, "sha256:" + hashlib.sha256(doc_bytes).hexdigest(),
+                          self._file_key(new_doc["id"]))
+
+    def merge_document(self, doc: dict[str, Any], change: str, *, base: dict[str, Any] | None = None) -> MergeOutcome:
+        """Merges a version of a trip from elsewhere (an imported file, a hub) into the stored one.
+
+        Under the store's lock the stored trip is read again and compared by history (the ids
+        of the audit entries each save appends): a version the stored trip already contains
+        (older or equal) changes nothing; one that contains the stored trip is taken as is; a
+        diverged one is merged three ways through core.records.merge.merge_trips, with the
+        common ancestor chosen from `base` (the stored version the caller built `doc` from,
+        when it has one) as sync does — two ways when none is known. Lab results, calibrations
+        and custody records the stored trip holds are never removed. Raises InvalidRecord,
+        NewerSchemaError (nothing written), StoreLocked.
+        """
+        if not isinstance(doc, dict):
+            raise InvalidRecord("A trip document must be a JSON object.")
+        checked = self._validate_doc(migrate(doc))
+        incoming = checked.to_document()
+        with self._locked():
+            stored = self._stored_or_none(checked.id)
+            if stored is None:
+                return MergeOutcome(self._commit(checked, None, change, checked.revision, foreign=True, review_guard=False), "new")
+            ours, theirs = history(stored), history(incoming)
+            if theirs and theirs <= ours:
+                return MergeOutcome(Trip.from_document(stored), "unchanged")
+            conflicts: list[dict[str, Any]] = []
+            if theirs and ours < theirs:
+                merged, kind = incoming, "fast-forward"
+            else:
+                candidates = [migrate(base)] if isinstance(base, dict) else []
+                ancestor = common_ancestor(candidates, stored, incoming) if theirs else None
+                result = merge_trips(ancestor, stored, incoming)
+                merged, kind, conflicts = result.doc, "merged", result.new_conflicts
+            merged = retain(stored, merged)
+            trip = self._validate_doc(merged)
+            revision = max(int(stored.get("revision", 0)), checked.revision)
+            saved = self._commit(trip, stored, change, revision, foreign=True, review_guard=False)
+            if saved.revision == int(stored.get("revision", 0)):
+                kind = "unchanged"
+            return MergeOutcome(saved, kind, conflicts)
+
+    def update_trip(self, trip_id: str, change: str | Callable[[], str], fn: Callable[[Trip], Trip | None], *,
+                    by: str | None = None, reason: str | None = None) -> Trip:
+        """Read–modify–write of one trip under the store's lock (lab results, corrections,
+        settlements): `fn` gets the stored trip and returns the changed one (None: no change).
+        `change` may be a callable, asked after `fn` (a sentence that names what `fn` computed).
+
+        `fn` runs while the lock is held, so no other writer can come between the read and the
+        write: keep it short and free of I/O. An exception from `fn` leaves the trip unchanged.
+        Raises TripNotFound, InvalidRecord, NewerSchemaError, StoreLocked.
+        """
+        with self._locked():
+            trip, stored = self._load(trip_id)
+            trip = with_drafts(trip, self._drafts.read(trip_id))
+            changed = fn(trip)
+            if changed is None:
+                return trip
+            checked = self._validated(changed)
+            if checked.id != trip.id:
+                raise InvalidRecord("A trip update cannot change the trip's id.")
+            text = change() if callable(change) else change
+            return self._commit(checked, _migrated(stored), text, int(stored.get("revision", 0)),
+                                by=by, reason=reason)
 
     def save_stop(self, trip_id: str, stop: Stop, change: str | None = None) -> Trip:
         """Adds or replaces (by id) one stop of a stored trip, through the same save path.
 
         The stop is validated strictly, the rest of the trip as stored; the stored revision is
-        the base (this is the call for autosaving one stop: it cannot be stale).
+        the base (this is the call for autosaving one stop: it cannot be stale; built on
+        :meth:`update_trip`).
         """
         if not isinstance(stop, Stop):
             raise InvalidRecord("save_stop needs a Stop record.")
@@ -731,24 +620,24 @@ class DeviceStore:
             probs = _non_finite_problems(stop_doc)
             raise InvalidRecord(one_line(probs) if probs else "The stop holds a value JSON cannot carry.",
                                 probs) from None
-        with self._locked():
-            trip, stored = self._load(trip_id)  # a fresh object, validated from the stored bytes
+
+        def put_stop(trip: Trip) -> Trip:
             stops = list(trip.stops)
             for i, s in enumerate(stops):
                 if s.id == new_stop.id:
                     # Fields a newer build stored on this stop survive a form that never knew them.
-                    kept = {k: v for k, v in (s.model_extra or {}).items() if k not in (new_stop.model_extra or {})}
+                    # (Not a draft: the form says whether it still has one.)
+                    kept = {k: v for k, v in (s.model_extra or {}).items()
+                            if k not in (new_stop.model_extra or {}) and k not in LOCAL_STOP_KEYS}
                     stops[i] = new_stop.model_copy(update=kept) if kept else new_stop
                     break
             else:
                 stops.append(new_stop)
-            checked = trip.model_copy(update={"stops": stops})
-            return self._commit(checked, _migrated(stored), change or f"stop at {stop.site_id} saved",
-                                int(stored.get("revision", 0)))
+            return trip.model_copy(update={"stops": stops})
+
+        return self.update_trip(trip_id, change or f"stop at {stop.site_id} saved", put_stop)
 
     def _stored_or_none(self, trip_id: str) -> dict[str, Any] | None:
-        from core.records.migrations import migrate
-
         raw = self._read_trip_doc_raw(trip_id)
         if raw is None:
             return None
@@ -782,14 +671,35 @@ class DeviceStore:
             probs = problems_from_validation(exc)
             raise InvalidRecord(one_line(probs), probs) from None
 
-    def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int) -> Trip:
-        """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held."""
+    def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int, *,
+                by: str | None = None, reason: str | None = None, foreign: bool = False,
+                review_guard: bool = True) -> Trip:
+        """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held.
+
+        A stop's local keys (drafts) are kept in this device's drafts, never in the trip file.
+        `review_guard` refuses an edit of an approved trip that is not a correction
+        (core.rules.review); documents from elsewhere carry the office's own steps and are
+        merged, not refused."""
+        trip, drafts = split_drafts(trip)
+        if foreign:   # a version from elsewhere knows nothing of this device's drafts: keep them
+            drafts = {**self._drafts.read(trip.id), **drafts}
+        saved = self._commit_clean(trip, stored, change, base_revision, by=by, reason=reason,
+                                   review_guard=review_guard)
+        try:
+            self._drafts.write(trip.id, drafts)
+        except OSError as exc:
+            raise StoreWriteError(f"The trip was saved, but its unfinished entries could not be kept"
+                                  f" ({exc.strerror or exc}); free space and type them again.") from None
+        return with_drafts(saved, drafts)
+
+    def _commit_clean(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int, *,
+                      by: str | None = None, reason: str | None = None, review_guard: bool = True) -> Trip:
         from core.rules.qc import derive
+        from core.rules.review import ReviewRefused, check_change
 
         sites = self.sites_by_id()
         settings = self.settings()
-        bases_key = (self._sites_cache[0] if self._sites_cache else None,
-                     self._settings_cache[0] if self._settings_cache else None)
+        bases_key = self._tables.basis_key()
         if self._bases[0] != bases_key:
             self._bases = (bases_key, {})
         new_doc, derived = derive(trip, sites, settings, previous=stored, bases=self._bases[1])
@@ -801,21 +711,31 @@ class DeviceStore:
         incoming_audit = new_doc.get("audit") or []
         if stored is not None:
             # The audit trail is append-only: entries already stored are never dropped.
-            new_doc["audit"] = _merge_audit(stored.get("audit") or [], incoming_audit)
+            new_doc["audit"] = merge_audit(stored.get("audit") or [], incoming_audit)
         if stored is not None and _content(stored) == _content(new_doc):
             return Trip.from_document(stored)
-        now = self._clock().astimezone(timezone.utc)
+        if review_guard:
+            try:
+                check_change(stored, new_doc)
+            except ReviewRefused as exc:
+                raise ApprovedTrip(str(exc)) from None
+        now = self._clock().astimezone(UTC)
         revision = base_revision + 1
-        entry = AuditEntry(at=now, device_id=self.device_id, change=str(change)[:400] or "saved",
+        changes = diff_changes(stored, new_doc) if stored is not None else []
+        entry = AuditEntry(at=now, device_id=self.device_id, device_name=self.device_name,
+                           change=str(change)[:400] or "saved",
                            revision=revision,
-                           fields=diff_paths(stored, new_doc) if stored is not None else ["(new trip)"])
+                           fields=[c["path"] for c in changes] if stored is not None else ["(new trip)"],
+                           changes=[AuditChange.model_validate(c) for c in changes],
+                           by=(by or None) and str(by)[:80],
+                           reason=(reason or None) and str(reason)[:400])
         entry_doc = entry.model_dump(mode="json")
         same_audit = new_doc.get("audit") == incoming_audit
         new_doc["audit"] = list(new_doc.get("audit") or []) + [entry_doc]
         new_doc["revision"] = revision
         new_doc["updated_at"] = entry_doc["at"]
         doc_bytes = canonical_json_bytes(new_doc)
-        self._write_trip_bytes(new_doc, doc_bytes)
+        self._write_trip_bytes(new_doc, doc_bytes, exists=stored is not None)
         if not same_audit:
             return Trip.model_validate_json(doc_bytes)
         # `derived` was validated from JSON in this call and shares nothing with the caller.
@@ -823,58 +743,9 @@ class DeviceStore:
             "device_id": device_id, "schema_version": SCHEMA_VERSION, "revision": revision,
             "updated_at": entry.at, "audit": list(derived.audit) + [entry]})
 
-    def _write_summary(self, doc: dict[str, Any], digest: str | None,
-                       key: tuple[int, int, int] | None) -> TripSummary:
-        """Writes a trip's summary. The index is a cache of the trip files, checked against
-        them on every read (see :meth:`list_trips`), so it is replaced atomically but not
-        fsynced: a summary lost or torn by a power cut is rebuilt, and a save costs two fsyncs
-        (the trip file and its folder) instead of four."""
-        summary = _summary_of(doc, digest)
-        if key is not None:
-            self._summaries[doc["id"]] = (key, summary)
-        data = canonical_json_bytes({"summary": summary.to_dict(), "file": list(key) if key else None})
-        try:
-            _replace_unsynced(self._index_dir / f"{doc['id']}.json", data)
-        except OSError:
-            pass  # the index is a checked cache: a missing entry is rebuilt on the next listing
-        return summary
-
     # -- sites and settings ----------------------------------------------------------------
-    @staticmethod
-    def _stamp(path: Path) -> tuple[int, int]:
-        try:
-            st = path.stat()
-            return (st.st_mtime_ns, st.st_size)
-        except FileNotFoundError:
-            return (0, 0)
-
-    def _read_table(self, name: str, path: Path) -> dict[str, Any]:
-        try:
-            data = AtomicJSONStorage(path).read()
-        except ValueError as exc:
-            target = self._quarantine(path, str(exc))
-            raise CorruptFile(f"The file {path.name} could not be read ({exc}); it was moved to {target}.",
-                              target) from None
-        return (data or {}).get(name, {}) or {}
-
     def sites_by_id(self) -> dict[str, Site]:
-        path = self.data_dir / "sites.json"
-        stamp = self._stamp(path)
-        if self._sites_cache is not None and self._sites_cache[0] == stamp:
-            return dict(self._sites_cache[1])
-        try:
-            table = self._read_table("sites", path)
-        except CorruptFile:
-            table = {}
-        sites: dict[str, Site] = {}
-        for doc in table.values():
-            try:
-                site = Site.model_validate_json(canonical_json_bytes(doc))
-            except (ValidationError, ValueError):
-                continue
-            sites[site.id] = site
-        self._sites_cache = (stamp, sites)
-        return dict(sites)
+        return self._tables.sites_by_id()
 
     def sites(self) -> list[Site]:
         """Every site, by id."""
@@ -893,27 +764,10 @@ class DeviceStore:
             except ValidationError as exc:
                 probs = problems_from_validation(exc)
                 raise InvalidRecord(one_line(probs), probs) from None
-        path = self.data_dir / "sites.json"
         with self._locked():
-            data = AtomicJSONStorage(path).read() or {}
-            table = dict(data.get("sites") or {})
-            by_site = {doc.get("id"): key for key, doc in table.items()}
-            next_key = max((int(k) for k in table), default=0) + 1
-            for i, site in enumerate(checked):
-                key = by_site.get(site.id)
-                if key is None:
-                    key = str(next_key)
-                    next_key += 1
-                    by_site[site.id] = key
-                site = checked[i] = self._stamped(site, table.get(key))
-                table[key] = site.model_dump(mode="json")
-            data["sites"] = table
-            try:
-                AtomicJSONStorage(path).write(data)
-            except OSError as exc:
-                raise StoreWriteError(f"Could not write sites.json ({exc.strerror or exc}); the site list"
-                                      " is unchanged.") from None
-            self._sites_cache = None
+            stored = {sid: site.model_dump(mode="json") for sid, site in self._tables.sites_by_id().items()}
+            checked = [self._stamped(site, stored.get(site.id)) for site in checked]
+            self._tables.write_sites(checked)
         return checked
 
     def _stamped(self, record: Any, stored: dict[str, Any] | None) -> Any:
@@ -929,30 +783,11 @@ class DeviceStore:
         if same:
             return record if given.get("updated_at") == stored_at else type(record).model_validate_json(
                 canonical_json_bytes({**given, "updated_at": stored_at}))
-        return record.model_copy(update={"updated_at": self._clock().astimezone(timezone.utc)})
+        return record.model_copy(update={"updated_at": self._clock().astimezone(UTC)})
 
     def settings(self) -> ProgramSettings:
         """The program settings (defaults until saved)."""
-        path = self.data_dir / "settings.json"
-        stamp = self._stamp(path)
-        if self._settings_cache is not None and self._settings_cache[0] == stamp:
-            return self._settings_cache[1]
-        try:
-            table = self._read_table("settings", path)
-        except CorruptFile:
-            table = {}
-        doc = table.get("1")
-        settings = ProgramSettings()
-        if doc is not None:
-            if int(doc.get("schema_version", 0)) > SCHEMA_VERSION:
-                raise NewerSchemaError("The settings were saved by a newer streamtab; update this one.",
-                                       doc.get("schema_version"))
-            try:
-                settings = ProgramSettings.model_validate_json(canonical_json_bytes(doc))
-            except (ValidationError, ValueError):
-                settings = ProgramSettings()
-        self._settings_cache = (stamp, settings)
-        return settings
+        return self._tables.settings()
 
     def save_settings(self, s: ProgramSettings) -> ProgramSettings:
         """Replaces the program settings."""
@@ -962,18 +797,8 @@ class DeviceStore:
             probs = problems_from_validation(exc)
             raise InvalidRecord(one_line(probs), probs) from None
         with self._locked():
-            try:
-                stored = self._read_table("settings", self.data_dir / "settings.json").get("1")
-            except CorruptFile:
-                stored = None
-            checked = self._stamped(checked, stored)
-            try:
-                _tinydb(self.data_dir / "settings.json").table("settings").upsert(
-                    Document(checked.model_dump(mode="json"), doc_id=1))
-            except OSError as exc:
-                raise StoreWriteError(f"Could not write settings.json ({exc.strerror or exc}); the settings"
-                                      " are unchanged.") from None
-            self._settings_cache = None
+            checked = self._stamped(checked, self._tables.settings().model_dump(mode="json"))
+            self._tables.write_settings(checked)
         return checked
 
     # -- checks ----------------------------------------------------------------------------
