@@ -32,7 +32,8 @@ from sync import errors
 from sync.layout import (INCOMING, LOG, TRIPS, canonical_trip_id, device_key, incoming_name,
                          is_incoming_name, name_matches, odd_entry, parse_revision_name, shown_name,
                          trip_dir)
-from sync.program import is_program_name, program_dir
+from sync.program import KINDS as PROGRAM_KINDS
+from sync.program import PROGRAM, is_program_name, program_dir
 from sync.program import name_matches as program_name_matches
 from sync.session import Session, redact_url
 
@@ -459,6 +460,7 @@ class WebDavTarget:
         self.session = session
         self._base_path = unquote(urlsplit(url).path)
         self._made: set[str] = set()
+        self._program: dict[str, frozenset[str]] | None = None   # program/ listed once per sync
         #: the Date (server clock, epoch s) of the last PROPFIND answer, for the change log
         self.listed_at: float | None = None
 
@@ -775,9 +777,21 @@ class WebDavTarget:
 
     # program tables (sync/program.py): PUT to incoming/, MOVE with Overwrite: F, like revisions
     def list_program(self, kind: str) -> frozenset[str]:
-        entries = self._propfind(program_dir(kind), "1")
-        names = (p.rstrip("/").rsplit("/", 1)[-1] for p, col, _ in entries or [] if not col)
-        return frozenset(n for n in names if is_program_name(n))
+        """The table files of one kind; both kinds come from one PROPFIND of ``program/``
+        (Depth: infinity; per kind at Depth 1 where the server refuses that)."""
+        if self._program is None:
+            found: dict[str, set[str]] = {k: set() for k in PROGRAM_KINDS}
+            try:
+                entries = self._propfind(PROGRAM + "/", "infinity") or []
+            except errors.DepthRefused:
+                entries = [e for k in PROGRAM_KINDS for e in self._propfind(program_dir(k), "1") or []]
+            for relpath, is_col, *_ in entries:
+                parts = relpath.strip("/").split("/")
+                if not is_col and len(parts) == 3 and parts[0] == PROGRAM and parts[1] in found \
+                        and is_program_name(parts[2]):
+                    found[parts[1]].add(parts[2])
+            self._program = {k: frozenset(v) for k, v in found.items()}
+        return self._program[kind]
 
     def read_program(self, kind: str, name: str, max_bytes: int) -> bytes:
         rel = program_dir(kind) + name
@@ -831,6 +845,7 @@ class WebDavTarget:
                                       resp.status_code)
             return resp.status_code
 
+        self._program = None
         tmp_rel = self.session.retrying(put)
         code = self.session.retrying(lambda: move(tmp_rel, False))
         if code in (201, 204):
