@@ -415,8 +415,9 @@ class Stop(_Record):
     flow: str = Field(default="", max_length=400)
     closed_at: AwareDatetime | None = None
     derived: Derived | None = Field(None, json_schema_extra=_role(DERIVED))
-    #: The site facts this stop's checks use (see SiteSnapshot); set by the store.
-    site_snapshot: SiteSnapshot | None = None
+    #: The site facts this stop's checks use (see SiteSnapshot); set by the store's derive step,
+    #: which keeps the stored one when a writer leaves it out (so it merges like derived values).
+    site_snapshot: SiteSnapshot | None = Field(None, json_schema_extra=_role(DERIVED))
 
     @field_validator("temp")
     @classmethod
