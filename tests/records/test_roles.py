@@ -23,7 +23,7 @@ def test_roles_are_read_from_the_field_declarations():
     assert role_tree(Calibration).role("method") == DERIVED
     assert role_tree(LabResult).role("method") == INPUT
     assert role_tree().child("stops").child("bottles").child("lab_results").model == "LabResult"
-    assert keys_by_role(DERIVED, model=Stop) == {"derived"}
+    assert keys_by_role(DERIVED, model=Stop) == {"derived", "site_snapshot"}
     # a key no model declares (written by a newer build) is input
     assert role_tree(Stop).role("turbidity_ntu") == INPUT
     # the JSON Schema shows the role
