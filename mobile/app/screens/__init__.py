@@ -10,7 +10,7 @@ __all__ = ["SCREENS", "KV_MODULES", "register"]
 # screen name -> its Screen class (the module is mobile.app.screens.<name>, its rule <name>.kv)
 SCREENS = {"trips": "TripsScreen", "start": "StartScreen", "stop": "StopScreen",
            "bottles": "BottlesScreen", "end": "EndScreen", "sync": "SyncScreen",
-           "settings": "SettingsScreen"}
+           "settings": "SettingsScreen", "bench": "BenchScreen", "sign": "SignScreen"}
 # every module with a kv file beside it, parts before the screens that use them
 KV_MODULES = ("calibration", *SCREENS)
 
