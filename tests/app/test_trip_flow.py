@@ -6,6 +6,7 @@ import json
 import os
 import signal
 import subprocess
+import sys
 import time
 
 import pytest
@@ -103,3 +104,49 @@ def test_new_site_with_elevation_from_the_stop_screen(tmp_path):
     # 1013 hPa at 1250 m is far above the standard atmosphere there (US Standard Atmosphere 1976)
     assert any("sea-level" in f for f in notes["flags"]), notes["flags"]
     assert store.load_trip(notes["trip_id"]).stops[0].site_id == "LK-07"
+
+
+def test_start_refuses_a_bad_or_partial_calibration_and_records_none(tmp_path):
+    """A calibration is never dropped: a bad or partial one is refused on its panel, naming the
+    field; no calibration at all is recorded as such and reported by the End screen."""
+    seed_sites(tmp_path / "data")
+    notes = run_scenario("calibration_refusals", tmp_path / "data", tmp_path, artifacts=ARTIFACTS / "calibration")
+    screen, message, problem, offer = notes["bad"]
+    assert screen == "start" and not offer
+    assert "Calibration temperature" in problem and "68" in problem and "pre-trip calibration" in message
+    assert notes["problem_after_edit"] == ""          # editing the panel clears the refusal
+    screen, message, problem, offer = notes["partial"]
+    assert screen == "start" and "Calibration temperature and Meter reading are empty" in problem
+    screen, message, offer = notes["empty"]
+    assert screen == "start" and offer and "Start without calibration" in message
+    assert notes["after_skip"] == "stop"
+    trip = DeviceStore.open(tmp_path / "data").load_trip(notes["trip_id"])
+    assert trip.started_without_calibration is True and trip.pre_calibration is None
+    assert trip.audit[0].change == "trip started without calibration"
+    assert any("started without a pre-trip calibration" in line for line in notes["end_lines"])
+    out = subprocess.run([sys.executable, "-m", "mobile.cli", "trip", "show", notes["trip_id"], "--data-dir",
+                          str(tmp_path / "data")], capture_output=True, text=True, cwd=ROOT, timeout=60, check=False,
+                         env=child_env(tmp_path / "kivy-home"))
+    assert out.returncode == 0, out.stderr
+    assert "pre-trip calibration: none — the trip was started without calibration" in out.stdout
+    assert "started this trip without a pre-trip calibration" in out.stdout       # the QC flag says it too
+
+
+def test_a_reopened_ended_trip_shows_its_post_trip_check(tmp_path):
+    from mobile.cli.app_cmd import seed_demo
+
+    seed_demo(tmp_path / "data", ROOT / "sample_trips")
+    store = DeviceStore.open(tmp_path / "data")
+    trip = next(store.load_trip(t.id) for t in store.list_trips() if t.status == "ended")
+    assert trip.post_check is not None
+    notes = run_scenario("reopen_ended", tmp_path / "data", tmp_path, artifacts=ARTIFACTS / "calibration",
+                         params={"trip_id": trip.id})
+    assert notes["screen"] == "end"
+    temp, _temp_unit, pressure, pressure_unit, reading, verdict = notes["post"]
+    pc = trip.post_check
+    assert float(temp.replace(",", ".")) == pc.temp.entered_value
+    assert float(pressure.replace(",", ".")) == pc.pressure.entered_value and pressure_unit == pc.pressure.entered_unit
+    assert float(reading.replace(",", ".")) == pc.reading_mg_l
+    assert verdict in ("PASS", "FAIL")
+    after = DeviceStore.open(tmp_path / "data").load_trip(trip.id)
+    assert after.revision == trip.revision            # looking at it changed nothing

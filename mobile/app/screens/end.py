@@ -38,9 +38,12 @@ class EndScreen(BaseScreen):
 
     def end_trip(self):
         self.cal_panel.update()
-        msg = ctl().end_trip()
-        if msg:
-            self.message = "■ Cannot end the trip: " + msg
+        refusal = ctl().end_trip()
+        if refusal:
+            self.message = "■ Cannot end the trip: " + refusal.message
+            if refusal.where == "calibration":
+                self.cal_panel.problem = refusal.message
+                self.message = "■ Not ended: the post-trip check above needs a fix (or clear all its fields)."
             return
         self.ended = True
         self.message = "✓ Trip ended and saved. Send it to the hub from the sync screen."

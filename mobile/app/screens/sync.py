@@ -35,7 +35,7 @@ class SyncScreen(BaseScreen):
         self.running = True
         self.progress = 0
         self.rows_box.clear_widgets()
-        self.status = f"Sending to {target} …"
+        self.status = f"Sending to {ctl().shown_address(target)} …"
 
     @mainthread
     def _progress(self, done, total, trip_id, result):
