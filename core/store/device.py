@@ -497,15 +497,14 @@ class DeviceStore:
         mark before reading the trips it covers."""
         path = self.data_dir / CHANGES_FILE
         try:
-            fh = open(path, "rb")
+            with open(path, "rb") as fh:
+                st = os.fstat(fh.fileno())
+                if mark is None or mark[0] != st.st_ino or not 0 <= mark[1] <= st.st_size:
+                    return None, (st.st_ino, st.st_size)
+                fh.seek(mark[1])
+                data = fh.read(st.st_size - mark[1])
         except FileNotFoundError:
             return None, (0, 0)
-        with fh:
-            st = os.fstat(fh.fileno())
-            if mark is None or mark[0] != st.st_ino or not 0 <= mark[1] <= st.st_size:
-                return None, (st.st_ino, st.st_size)
-            fh.seek(mark[1])
-            data = fh.read(st.st_size - mark[1])
         end = data.rfind(b"\n") + 1               # complete lines only
         ids = sorted({line.decode("utf-8", "replace") for line in data[:end].splitlines() if line})
         return ids, (st.st_ino, mark[1] + end)
