@@ -235,8 +235,8 @@ def _apply_stats(cur, old: dict, new: dict) -> None:  # noqa: ANN001
     redo, rows, gone = [], [], []
     for pair in pairs:
         c, o, n = current.get(pair, _NONE), old.get(pair, _NONE), new.get(pair, _NONE)
-        if o[2] is not None and (c[2] is None or o[2] <= c[2]):
-            redo.append(pair)            # a rewritten trip held the minimum: count it again
+        if o[2] is not None and (c[2] is None or o[2] <= c[2]) and (n[2] is None or n[2] > o[2]):
+            redo.append(pair)            # a rewritten trip held the minimum and gave it up: count again
             continue
         visits = c[0] - o[0] + n[0]
         if visits <= 0:
