@@ -160,10 +160,12 @@ def test_open_conflicts_reach_the_attention_list(ctl):
     doc = ctl.store.trip_document(ctl.trip.id)
     doc["conflicts"] = [{"id": "c1", "path": "stops[0].notes", "detected_at": datetime.now(timezone.utc).isoformat(),
                          "sides": [{"device_id": "dev-a", "value": "riffle"}, {"device_id": "dev-b", "value": "pool"}]}]
-    ctl.store.put_document(doc, "merged by sync")
+    ctl.store.put_document(doc, "merged by sync", expected_revision=doc["revision"])
     ctl.open_trip(ctl.trip.id)
     lines = [line for line in ctl.attention_lines() if "CONFLICT" in line]
-    assert len(lines) == 1 and "stops[0].notes" in lines[0] and "dev-a" in lines[0]
+    # in words: both values, never a device id or a record path
+    assert len(lines) == 1 and "“riffle”" in lines[0] and "“pool”" in lines[0]
+    assert "dev-a" not in lines[0] and "stops[" not in lines[0]
 
 
 def test_arrival_time_typed_as_hh_mm_or_full(ctl):
