@@ -707,16 +707,71 @@ class AppController:
             out.append(f"{sym} {word}: post-trip calibration check not entered yet.")
         return out
 
-    def conflict_lines(self) -> list[str]:
-        """Fields two devices changed differently (found by sync), one readable line each."""
-        saved = self._saved.get(self.trip.id) if self.trip else None
+    def conflicts(self) -> list[Any]:
+        """The open trip's open conflicts as people read them (core.rules.conflicts.ConflictView):
+        site and stop, the field's label, each value with its unit, the device's name and when."""
+        from core.rules.conflicts import list_conflicts
+
+        if self.trip is None:
+            return []
+        saved = self._saved.get(self.trip.id)
         if saved is None:
             return []
-        from core.records.merge import describe_conflict
+        return list_conflicts(saved, this_device=self.store.device_id)
 
+    def conflict_lines(self) -> list[str]:
+        """The open conflicts, one line each (the End screen's list of what needs attention)."""
         sym, _ = severity_mark("warning")
-        return [f"{sym} CONFLICT: {describe_conflict(c.model_dump(mode='json'))} — check it and correct the value if needed."
-                for c in saved.open_conflicts]
+        return [f"{sym} CONFLICT: {v.message} Tap the value to keep above." for v in self.conflicts()]
+
+    def settler(self) -> str:
+        """Who settles a conflict on this tablet: the device's name, else the trip's crew."""
+        name = (getattr(self.store, "device_name", None) or "").strip()
+        if not name and self.trip is not None and self.trip.crew.strip():
+            name = f"crew {self.trip.crew.strip()}"
+        return (name or "this tablet")[:80]
+
+    def settle_conflict(self, conflict_id: str, keep: int) -> str | None:
+        """Settles one open conflict of the open trip by keeping its `keep`-th value (1, 2, …),
+        recorded with who and when; returns why not in one sentence, or None. The form is then
+        reloaded from the store, so the next save carries the kept value."""
+        from datetime import timezone
+
+        from core.rules.conflicts import ConflictError, settle
+        from core.store import StoreError
+
+        if self.trip is None:
+            return "No trip is open."
+        self.flush()                       # what was typed is in the store before it is read back
+        by = self.settler()
+        at = self.now().astimezone(timezone.utc)
+        said: dict[str, Any] = {}
+
+        def apply(trip: Any) -> Any:
+            views = {v.id: v for v in self.conflicts_of(trip)}
+            said["view"] = views.get(conflict_id)
+            return settle(trip, conflict_id, keep=keep, by=by, at=at)
+
+        def change() -> str:
+            view = said.get("view")
+            return f"conflict settled (kept value {keep}): " + (view.message if view else "a conflict")
+
+        try:
+            saved = self.store.update_trip(self.trip.id, change, apply, by=by)
+        except ConflictError as exc:
+            return f"Not settled: {exc}."
+        except StoreError as exc:
+            return f"Not settled, nothing was saved: {exc}"
+        stop_id = self.stop_id
+        self._saved[saved.id] = saved
+        self.trip = self.bridge.form_from_trip(saved)
+        self.stop_id = stop_id if stop_id and self.trip.stop(stop_id) else None
+        return None
+
+    def conflicts_of(self, trip: Any) -> list[Any]:
+        from core.rules.conflicts import list_conflicts
+
+        return list_conflicts(trip, this_device=self.store.device_id)
 
     # ------------------------------------------------------------------ saving
     def _save_failed(self, exc: BaseException) -> None:
