@@ -25,9 +25,9 @@ class ConflictPanel(BoxLayout):
             self.rows_box.add_widget(Factory.WrapLabel(text=f"▲ {view.message}"))
             for value in view.values:
                 when = f" · {value['at']}" if value.get("at") else ""
-                button = Factory.ConflictValueButton(
-                    text=f"Keep {value['text']}\n(from {value['device']}{when})",
-                    conflict_id=view.id, keep=int(value["n"]))
+                button = Factory.ConflictValueButton(text=f"Keep {value['text']}\n(from {value['device']}{when})")
+                # the rule's own properties exist once the rule is applied, after construction
+                button.conflict_id, button.keep = view.id, int(value["n"])
                 button.bind(on_release=self.keep)
                 self.rows_box.add_widget(button)
 
