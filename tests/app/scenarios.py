@@ -568,6 +568,7 @@ def settle_conflict(p):
     p.note("end_count", e.conflict_panel.count)
     p.app.go("stop")
     yield 0.3
+    buttons = [w for w in reversed(panel.rows_box.children) if hasattr(w, "conflict_id")]
     yield from p.tap(buttons[1])
     yield 0.3
     p.note("after", [panel.count, panel.message, s.temp_entry.text])

@@ -195,7 +195,7 @@ def test_a_conflict_is_settled_by_tapping_the_value_to_keep(tmp_path):
     assert min(heights) >= dp(48)                       # large enough for a gloved finger
     kept = "13.4" if "13.4" in texts[1] else "12.8"
     count, message, temp_text = notes["after"]
-    assert count == 0 and message.startswith("✓") and temp_text == kept
+    assert count == 0 and message.startswith("✓") and temp_text == kept, notes["after"]
     saved = DeviceStore.open(tmp_path / "data").load_trip(trip.id)
     assert saved.open_conflicts == [] and saved.status != "needs attention"
     (settled,) = saved.conflicts
