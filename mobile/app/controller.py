@@ -8,6 +8,7 @@ freezes a field; sync runs in the background through `send`.
 from __future__ import annotations
 
 import copy
+import threading
 from datetime import datetime
 from typing import Any
 from collections.abc import Callable
@@ -90,6 +91,10 @@ class AppController:
         self.trip: TripForm | None = None
         self.stop_id: str | None = None
         self._saved: dict[str, Any] = {}      # trip id -> last Trip record the store returned
+        # trip id -> the form as it was when last in step with the store (what edits are told from)
+        self._base_form: dict[str, TripForm] = {}
+        self._rebased: dict[str, tuple[TripForm, TripForm]] = {}   # save worker -> UI thread
+        self._rebase_lock = threading.Lock()
         self._sites: list[Any] | None = None
         self._other_labels: dict[str, str] | None = None
         self.load_prefs()
@@ -366,6 +371,7 @@ class AppController:
         self._saved[trip_id] = model
         self._other_labels = None
         self.trip = self.bridge.form_from_trip(model)
+        self._base_form[trip_id] = copy.deepcopy(self.trip)
         self.stop_id = None
         return self.trip
 
@@ -765,6 +771,7 @@ class AppController:
         stop_id = self.stop_id
         self._saved[saved.id] = saved
         self.trip = self.bridge.form_from_trip(saved)
+        self._base_form[saved.id] = copy.deepcopy(self.trip)
         self.stop_id = stop_id if stop_id and self.trip.stop(stop_id) else None
         return None
 
@@ -803,11 +810,18 @@ class AppController:
             previous = self._saved.get(snapshot.id)
             try:
                 saved = self.store.save_trip(self.bridge.trip_from_form(snapshot, previous, self), change)
+                self._base_form[snapshot.id] = snapshot
             except StaleTrip:
-                # changed by another writer (a sync pull, the CLI): put this device's form on the
-                # stored copy; stops only the other writer knows are kept (bridge.trip_from_form)
-                previous = self.store.load_trip(snapshot.id)
-                saved = self.store.save_trip(self.bridge.trip_from_form(snapshot, previous, self), change)
+                # changed by another writer (a sync merge, the office's settlement): only what was
+                # edited here since the form was last in step with the store goes on the stored trip
+                stored = self.store.load_trip(snapshot.id)
+                base = self._base_form.get(snapshot.id)
+                merged = (self.bridge.rebase_form(snapshot, base, self.bridge.form_from_trip(stored))
+                          if base is not None else snapshot)
+                saved = self.store.save_trip(self.bridge.trip_from_form(merged, stored, self), change)
+                self._base_form[snapshot.id] = merged
+                with self._rebase_lock:
+                    self._rebased[snapshot.id] = (snapshot, merged)
             self._saved[snapshot.id] = saved
 
         self.worker.submit(snapshot.id, job)
@@ -818,3 +832,31 @@ class AppController:
         if self.dirty:
             self.save_now()
         return self.worker.flush(timeout)
+
+    def adopt_rebased(self) -> bool:
+        """UI thread: after a save was put on a trip another writer changed, the form shows the
+        merged values too (edits made since that save stay). True when the form changed."""
+        with self._rebase_lock:
+            pending = self._rebased.pop(self.trip.id, None) if self.trip is not None else None
+            self._rebased.clear()
+        if pending is None:
+            return False
+        snapshot, merged = pending
+        self.trip = self.bridge.rebase_form(self.trip, snapshot, merged)
+        return True
+
+    def refresh_from_store(self) -> bool:
+        """UI thread, after a sync: when nothing typed is waiting and the stored trip moved on (a
+        merge), the form shows the stored trip. True when the form was reloaded."""
+        if self.trip is None or self.dirty or not self.worker.flush(0):
+            return False
+        saved = self._saved.get(self.trip.id)
+        stored = self.store.load_trip(self.trip.id)
+        if saved is not None and stored.revision == saved.revision:
+            return False
+        stop_id = self.stop_id
+        self._saved[stored.id] = stored
+        self.trip = self.bridge.form_from_trip(stored)
+        self._base_form[stored.id] = copy.deepcopy(self.trip)
+        self.stop_id = stop_id if stop_id and self.trip.stop(stop_id) else None
+        return True
