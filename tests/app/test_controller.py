@@ -158,7 +158,7 @@ def test_open_conflicts_reach_the_attention_list(ctl):
         ctl.set_stop_field(k, v)
     ctl.save_now(wait=True)
     doc = ctl.store.trip_document(ctl.trip.id)
-    doc["conflicts"] = [{"id": "c1", "path": "stops[0].notes", "detected_at": datetime.now(timezone.utc).isoformat(),
+    doc["conflicts"] = [{"id": "c1", "path": f"stops[{doc['stops'][0]['id']}].notes", "detected_at": datetime.now(timezone.utc).isoformat(),
                          "sides": [{"device_id": "dev-a", "value": "riffle"}, {"device_id": "dev-b", "value": "pool"}]}]
     ctl.store.put_document(doc, "merged by sync")
     ctl.open_trip(ctl.trip.id)
