@@ -4,7 +4,8 @@ target, merges with what the hub holds, and reports per trip.
 ``push(store, target)`` sends every trip changed since its last push; ``pull(store, source)``
 brings in every revision at the hub this device has not seen, merging it with the device copy;
 ``status(store)`` says, per trip, what each hub has. The store only needs ``data_dir``,
-``device_id``, ``list_trips()``, ``trip_document(id)`` and ``put_document(doc, change)``.
+``device_id``, ``list_trips()``, ``trip_document(id)`` and ``merge_document(doc, change, base=)``
+(the store re-reads the trip under its lock and merges again if another writer saved meanwhile).
 """
 from __future__ import annotations
 
@@ -274,7 +275,8 @@ def _write(store: Any, tid: str, based_on: dict | None, new: dict, change: str, 
             if store.adopt_document(doc, expected_revision=rev) is not None:
                 return store.trip_document(tid), late
         if current is None or not same_content(doc, current):
-            store.put_document(doc, change)
+            store.put_document(doc, change,
+                               expected_revision=None if current is None else int(current.get("revision", 0)))
         return store.trip_document(tid), late
 
 

@@ -147,14 +147,21 @@ def read_trip_file(path: Path | str) -> dict[str, Any]:
     return doc
 
 
-def import_trip_file(store: Any, path: Path | str) -> Trip:
-    """Imports one trip file through the store's save path (validated, derived; nothing half-imported)."""
+def import_trip_file(store: Any, path: Path | str) -> Any:
+    """Imports one trip file: merged into the stored trip (never replacing it), through the
+    store's save path (validated, derived; nothing half-imported).
+
+    Returns the store's merge outcome (``.trip`` as stored, ``.result``: "new", "unchanged",
+    "fast-forward" or "merged", ``.conflicts``). A file the device already holds, or an older
+    one, changes nothing; a file from another device merges like a sync pull; lab results,
+    calibrations, custody records and audit entries are never removed.
+    """
     from core.store import StoreError
 
     path = Path(path)
     doc = read_trip_file(path)
     try:
-        return store.put_document(doc, f"imported from {path.name}")
+        return store.merge_document(doc, f"imported from {path.name}")
     except StoreError as exc:
         raise ExchangeError(f"{path.name}: {exc}") from None
 

@@ -19,15 +19,15 @@ from pydantic_core import PydanticCustomError
 __all__ = [
     "SCHEMA_VERSION", "BOTTLE_KINDS", "WATER_CLASSES", "LIMITS",
     "Quantity", "FlagRecord", "Derived", "Site", "Calibration", "LabResult", "Bottle", "Stop",
-    "AuditEntry", "ConflictSide", "Conflict", "ReviewEvent", "ProgramSettings", "Signature", "CustodyRecord",
-    "LabBatch", "Trip", "SIGNATURE_LIMITS",
-    "InputError", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
-    "INPUT", "DERIVED", "BOOKKEEPING", "LOG", "ROLES", "RoleNode", "role_tree", "paths_by_role",
+    "RESULT_STATUSES", "LOCAL_STOP_KEYS", "AuditEntry", "AuditChange", "AUDIT_VALUE_BYTES", "ConflictSide",
+    "Conflict", "ReviewEvent", "ProgramSettings", "Signature", "CustodyRecord", "LabBatch", "Trip", "SIGNATURE_LIMITS",
+    "InputError", "analyte_key", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
+    "INPUT", "DERIVED", "BOOKKEEPING", "LOG", "ROLES", "RETAINED", "RoleNode", "role_tree", "paths_by_role",
     "keys_by_role",
 ]
 
 #: Version of the trip document layout this build writes. core.records.migrations lifts older ones.
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 
 BOTTLE_KINDS = ("do-fixed", "bod", "duplicate", "blank")
 WATER_CLASSES = ("warm", "cold")
@@ -129,11 +129,20 @@ LOG = "log"
 ROLES = (INPUT, DERIVED, BOOKKEEPING, LOG)
 
 
-def _role(role: str) -> dict[str, Any]:
-    """The `json_schema_extra` of a field with that role (shows as ``"role"`` in the JSON Schema)."""
+def _role(role: str, *, retain: bool = False) -> dict[str, Any]:
+    """The `json_schema_extra` of a field with that role (shows as ``"role"`` in the JSON Schema).
+
+    `retain`: what the field holds is never removed by an import or a merge (lab results,
+    calibrations, custody records): an element or value the stored trip has and the incoming
+    version lacks is kept.
+    """
     if role not in ROLES:  # pragma: no cover - a programming mistake
         raise ValueError(f"role {role!r} is not one of {ROLES}")
-    return {"role": role}
+    return {"role": role, "retain": True} if retain else {"role": role}
+
+
+#: The `json_schema_extra` of an input field whose content is never removed (see :func:`_role`).
+RETAINED = _role(INPUT, retain=True)
 
 
 # --------------------------------------------------------------------------------------------
@@ -318,8 +327,30 @@ class Calibration(_Record):
         return _check_range(v, "tolerance")
 
 
+def analyte_key(analyte: str) -> str:
+    """The analyte name compared case- and separator-blind ("do-winkler" == "DO_Winkler")."""
+    return str(analyte).strip().lower().replace("-", "_").replace(" ", "_")
+
+
+#: Keys of a stop that a device keeps for itself (the app's text of a refused entry, a draft):
+#: the store keeps them in its local drafts, never in the trip file, so they never sync.
+LOCAL_STOP_KEYS = frozenset({"draft_text"})
+
+
+#: The states of a lab result: live and acceptable, live and failing its checks, or replaced by a
+#: later result of the same analysis on the same bottle (kept, never deleted).
+RESULT_STATUSES = ("valid", "invalid", "superseded")
+
+
 class LabResult(_Record):
-    """A laboratory result for a bottle (Winkler DO, BOD5, specific conductance, ...)."""
+    """A laboratory result for a bottle (Winkler DO, BOD5, specific conductance, ...).
+
+    ``status`` says whether the result counts: "valid", "invalid" (a stop-and-check finding or
+    no valid dilution; ``valid`` is then False) or "superseded" (a re-analysis replaced it:
+    ``superseded_by`` names the later result, which lists this one in ``supersedes``). ``flags``
+    are the bench's findings. ``inputs`` keeps what the analyst entered, the numbers used and the
+    intermediate values (see core.rules.lab).
+    """
 
     id: str = _id_field()
     analyte: str = Field(min_length=1, max_length=40)
@@ -329,8 +360,32 @@ class LabResult(_Record):
     analyst: str = Field(default="", max_length=40)
     method: str = Field(default="", max_length=80)
     inputs: dict[str, Any] = Field(default_factory=dict)
+    #: Whether the measurement passed its checks (None: not checked); see ``status``.
     valid: bool | None = None
+    status: Literal["valid", "invalid", "superseded"] = "valid"
+    #: Ids of the earlier results of the same analysis this one replaces (a re-analysis).
+    supersedes: list[str] = Field(default_factory=list)
+    #: On a replaced result: the result that replaced it, when, and the analyst's reason.
+    superseded_by: str | None = Field(default=None, max_length=64)
+    superseded_at: AwareDatetime | None = None
+    superseded_reason: str = Field(default="", max_length=400)
+    flags: list[FlagRecord] = Field(default_factory=list)
     notes: str = Field(default="", max_length=2000)
+
+    @model_validator(mode="after")
+    def _status_agrees(self) -> LabResult:
+        # A result built only with ``valid=False`` is invalid; one with ``superseded_by`` is
+        # superseded — so a writer that sets one of them cannot leave the other saying otherwise.
+        if self.superseded_by and self.status != "superseded":
+            object.__setattr__(self, "status", "superseded")
+        elif "status" not in self.model_fields_set and self.valid is False and self.status == "valid":
+            object.__setattr__(self, "status", "invalid")
+        return self
+
+    @property
+    def live(self) -> bool:
+        """Not replaced by a later result (it counts, valid or not)."""
+        return self.status != "superseded"
 
 
 class Bottle(_Record):
@@ -343,7 +398,9 @@ class Bottle(_Record):
     fixed_at: AwareDatetime | None = None
     preservation: str = Field(default="", max_length=120)
     notes: str = Field(default="", max_length=2000)
-    lab_results: list[LabResult] = Field(default_factory=list)
+    lab_results: list[LabResult] = Field(default_factory=list, json_schema_extra=RETAINED)
+    #: For a field duplicate: the label of the bottle it duplicates (same analysis, same stop).
+    duplicate_of: str | None = Field(default=None, max_length=40)
 
     @field_validator("label")
     @classmethod
@@ -393,8 +450,28 @@ class Stop(_Record):
         return _check_quantity(v, "do", ("mg/L", "%"))
 
 
+class AuditChange(_Record):
+    """One field a save changed: its path, the value it replaced and the new one.
+
+    Values longer than :data:`AUDIT_VALUE_BYTES` as JSON are kept as the start of their JSON
+    text with ``truncated`` set (the audit stays small; the full value is in the trip or in
+    the version that replaced it).
+    """
+
+    path: str = Field(max_length=400)
+    old: Any = None
+    new: Any = None
+    truncated: bool = False
+
+
+#: Largest value (bytes of compact JSON) an audit entry keeps whole; longer ones are cut.
+AUDIT_VALUE_BYTES = 600
+
+
 class AuditEntry(_Record):
-    """One change to a trip: when, which device, what (a sentence and the changed field paths)."""
+    """One change to a trip: when, which device, what (a sentence, the changed field paths and,
+    for each, the value it replaced and the new one), and — for a settlement or a correction —
+    who and why."""
 
     id: str = _id_field()
     at: AwareDatetime
@@ -402,12 +479,19 @@ class AuditEntry(_Record):
     change: str = Field(max_length=400)
     revision: int
     fields: list[str] = Field(default_factory=list)
+    changes: list[AuditChange] = Field(default_factory=list)
+    #: The saving device's name as set on it (``streamtab device name``), so people read a name.
+    device_name: str | None = Field(default=None, max_length=40)
+    by: str | None = Field(default=None, max_length=80)
+    reason: str | None = Field(default=None, max_length=400)
 
 
 class ConflictSide(_Record):
     """One device's value of a field that two devices changed differently."""
 
     device_id: str
+    #: The device's name as set on it, when its saves carried one.
+    device_name: str | None = None
     value: Any = None
     revision: int | None = None
     updated_at: AwareDatetime | None = None
@@ -417,11 +501,17 @@ class Conflict(_Record):
     """A field two devices changed differently; sync fills these, a person resolves them."""
 
     id: str = _id_field()
+    #: "field": one field with two values; "results": two live results of one analysis on one
+    #: bottle (the sides' values are the results).
+    kind: Literal["field", "results"] = "field"
     path: str
+    #: The same path with full element ids (``stops[<id>].do``), where the clash is.
+    locator: str | None = None
     sides: list[ConflictSide] = Field(default_factory=list)
     detected_at: AwareDatetime
     resolved_at: AwareDatetime | None = None
     resolved_by: str | None = None
+    #: The settlement: ``{"kept": n (1-based side, or None for a typed value), "value": ...}``.
     resolution: Any = None
 
 
@@ -600,8 +690,8 @@ class Trip(_Record):
     meter_id: str = Field(default="", max_length=64)
     started_at: AwareDatetime
     ended_at: AwareDatetime | None = None
-    pre_calibration: Calibration | None = None
-    post_check: Calibration | None = None
+    pre_calibration: Calibration | None = Field(None, json_schema_extra=RETAINED)
+    post_check: Calibration | None = Field(None, json_schema_extra=RETAINED)
     stops: list[Stop] = Field(default_factory=list)
     notes: str = Field(default="", max_length=4000)
     audit: list[AuditEntry] = Field(default_factory=list, json_schema_extra=_role(LOG))
@@ -609,11 +699,11 @@ class Trip(_Record):
     #: counts as a change); sync's merge owns how the list itself is merged.
     conflicts: list[Conflict] = Field(default_factory=list)
     #: Chain of custody of the trip's bottles, in the order entered (optional; absent when empty).
-    custody: list[CustodyRecord] = Field(default_factory=list)
+    custody: list[CustodyRecord] = Field(default_factory=list, json_schema_extra=RETAINED)
     #: The office's review steps (core.rules.review; optional; absent when empty).
-    review_events: list[ReviewEvent] = Field(default_factory=list)
+    review_events: list[ReviewEvent] = Field(default_factory=list, json_schema_extra=RETAINED)
     #: Bench batches whose QC applies to this trip's bottles (optional; absent when empty).
-    lab_batches: list[LabBatch] = Field(default_factory=list)
+    lab_batches: list[LabBatch] = Field(default_factory=list, json_schema_extra=RETAINED)
     #: The crew started the trip with no pre-trip calibration, saying so (optional; absent when False).
     started_without_calibration: bool = False
 
@@ -685,6 +775,8 @@ class RoleNode:
     model: str
     roles: dict[str, str] = field(default_factory=dict)
     children: dict[str, RoleNode] = field(default_factory=dict)
+    #: fields whose content an import or a merge never removes
+    retained: frozenset[str] = frozenset()
 
     def role(self, key: str) -> str:
         return self.roles.get(key, INPUT)
@@ -724,13 +816,16 @@ def role_tree(model: type[BaseModel] | None = None) -> RoleNode:
     model = model or Trip
     roles: dict[str, str] = {}
     children: dict[str, RoleNode] = {}
+    retained: set[str] = set()
     for name, info in model.model_fields.items():
         key = info.alias or name
         roles[key] = _field_role(info)
+        if isinstance(info.json_schema_extra, dict) and info.json_schema_extra.get("retain"):
+            retained.add(key)
         nested = _records_in(info.annotation)
         if nested:
             children[key] = role_tree(nested[0])
-    return RoleNode(model.__name__, roles, children)
+    return RoleNode(model.__name__, roles, children, frozenset(retained))
 
 
 def paths_by_role(role: str, model: type[BaseModel] | None = None) -> list[str]:

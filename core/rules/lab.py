@@ -4,19 +4,18 @@ Everything here is pure: a Trip and bench inputs in, a new Trip out (with a
 :class:`core.records.models.LabResult` appended to the bottle); no disk, no clock (``now`` is passed in).
 
 A result is never replaced. A second titration (or BOD) of the same bottle needs a reason; it is
-appended, and the earlier result stays in place, marked superseded in its ``inputs`` and ``notes``.
+appended, and the earlier result stays in place with ``status`` "superseded" and
+``superseded_by``/``superseded_at``/``superseded_reason`` set; the new one lists it in
+``supersedes``. Findings are the result's typed ``flags``; ``status`` is "valid" or "invalid"
+(a stop-and-check finding) for a live result (core.records.models.LabResult).
 
-Layout of ``LabResult.inputs`` (the models have no fields for flags or superseding, so they live here):
+Layout of ``LabResult.inputs``:
 
 =================  ==========================================================================
 ``entered``        the bench values as the analyst typed them (text from the CLI, else numbers)
 ``used``           the numbers the calculation used (mL, eq/L, mg/L, ...)
 ``derived``        intermediate values: original sample volume, normality and its source,
                    holding time, the meter's DO at that stop, BOD dilutions ...
-``flags``          findings, each ``{code, severity, message, action, field}``
-``supersedes``     ids of the earlier results this one replaces (a re-analysis)
-``superseded_by``  on an earlier result: the id of the result that replaced it, with
-                   ``superseded_at`` and ``superseded_reason``
 =================  ==========================================================================
 
 Caution: the Winkler reagents hurt people (concentrated sulfuric acid; the alkali-iodide-azide
@@ -31,7 +30,7 @@ from typing import Any
 from collections.abc import Iterable
 
 from core.flags import Flag, Severity
-from core.records.models import Bottle, LabResult, Stop, Trip, new_id
+from core.records.models import Bottle, FlagRecord, LabResult, Stop, Trip, analyte_key, new_id
 from core.science.winkler import SAFETY_NOTE
 
 __all__ = [
@@ -176,16 +175,10 @@ def _fmt_h(hours: float) -> str:
     return f"{hours:.1f} h" if abs(hours) < 48 else f"{hours / 24:.1f} days"
 
 
-def analyte_key(analyte: str) -> str:
-    """The analyte name compared case- and separator-blind ("do-winkler" == "DO_Winkler")."""
-    return str(analyte).strip().lower().replace("-", "_").replace(" ", "_")
-
-
 def current_result(bottle: Bottle, analyte: str) -> LabResult | None:
     """The bottle's latest result for `analyte` that no later result superseded (None when none)."""
     key = analyte_key(analyte)
-    live = [r for r in bottle.lab_results
-            if analyte_key(r.analyte) == key and not (r.inputs or {}).get("superseded_by")]
+    live = [r for r in bottle.lab_results if analyte_key(r.analyte) == key and r.live]
     return live[-1] if live else None
 
 
@@ -276,23 +269,23 @@ def _append(trip: Trip, stop: Stop, bottle: Bottle, result: LabResult, analyte: 
             redo_reason: str | None, at: datetime) -> tuple[Trip, Stop, Bottle, list[str]]:
     """The trip with `result` appended to the bottle; earlier live results of the analyte marked superseded."""
     key = analyte_key(analyte)
-    live = [r for r in bottle.lab_results if analyte_key(r.analyte) == key and not (r.inputs or {}).get("superseded_by")]
+    live = [r for r in bottle.lab_results if analyte_key(r.analyte) == key and r.live]
     live_ids = {r.id for r in live}
     superseded: list[str] = []
     results: list[LabResult] = []
     for r in bottle.lab_results:
         if r.id in live_ids:
-            inputs = dict(r.inputs or {})
-            inputs.update(superseded_by=result.id, superseded_at=at.isoformat(), superseded_reason=redo_reason or "")
             note = (f"Superseded by result {result.id[:8]} on {at.isoformat(timespec='minutes')}"
                     f" ({redo_reason}); kept for the record.")
             notes = (r.notes + " " + note).strip() if r.notes else note
-            results.append(r.model_copy(update={"inputs": inputs, "notes": notes[:_NOTES_MAX]}))
+            results.append(r.model_copy(update={
+                "status": "superseded", "superseded_by": result.id, "superseded_at": at,
+                "superseded_reason": (redo_reason or "")[:400], "notes": notes[:_NOTES_MAX]}))
             superseded.append(r.id)
         else:
             results.append(r)
     if superseded:
-        result = result.model_copy(update={"inputs": {**result.inputs, "supersedes": superseded}})
+        result = result.model_copy(update={"supersedes": superseded})
     results.append(result)
     new_bottle = bottle.model_copy(update={"lab_results": results})
     new_stop = stop.model_copy(update={"bottles": [new_bottle if b.id == bottle.id else b for b in stop.bottles]})
@@ -518,8 +511,8 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
     result = LabResult(
         id=new_id(), analyte=WINKLER_ANALYTE, value=do, unit="mg/L", analysed_at=analysed_at,
         analyst=(analyst or "").strip()[:40], method=WINKLER_METHOD,
-        inputs={"entered": dict(entered), "used": used, "derived": derived,
-                "flags": [f.to_dict() for f in flags]},
+        inputs={"entered": dict(entered), "used": used, "derived": derived},
+        flags=[FlagRecord.from_flag(f) for f in flags],
         valid=not any(f.severity == Severity.STOP for f in flags),
         notes=_notes(notes, flags, extra))
     new_trip, new_stop, new_bottle, superseded = _append(trip, stop, bottle, result, WINKLER_ANALYTE,
@@ -694,8 +687,8 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
     result = LabResult(
         id=new_id(), analyte=BOD_ANALYTE, value=r.bod_mg_l, unit="mg/L", analysed_at=analysed_at,
         analyst=(analyst or "").strip()[:40], method=BOD_METHOD,
-        inputs={"entered": _jsonable(entered), "used": {"dilutions": _jsonable(dil)}, "derived": derived,
-                "flags": [f.to_dict() for f in flags]},
+        inputs={"entered": _jsonable(entered), "used": {"dilutions": _jsonable(dil)}, "derived": derived},
+        flags=[FlagRecord.from_flag(f) for f in flags],
         valid=bool(r.valid) and not any(f.severity == Severity.STOP for f in flags),
         notes=_notes(notes, flags, extra))
     new_trip, new_stop, new_bottle, superseded = _append(trip, stop, bottle, result, BOD_ANALYTE,
@@ -781,8 +774,7 @@ def bottle_analysis(b: Bottle) -> tuple[str, str] | None:
 def duplicate_checks(trip: Trip, settings: LabSettings | None = None) -> list[DuplicateCheck]:
     """Each field duplicate of `trip` against its primary bottle at the same stop.
 
-    The primary is the bottle named by the duplicate's ``duplicate_of`` field (a label; kept as an
-    extra field by the models) when present, else the one bottle of the matching kind (do-fixed for
+    The primary is the bottle named by the duplicate's ``duplicate_of`` field (a label) when present, else the one bottle of the matching kind (do-fixed for
     Winkler, bod for BOD5) at the same stop. The live results (not superseded) are compared by
     relative percent difference against ``settings.duplicate_rpd_percent`` [common practice].
     """
@@ -793,7 +785,7 @@ def duplicate_checks(trip: Trip, settings: LabSettings | None = None) -> list[Du
         for dup in (b for b in stop.bottles if b.kind == "duplicate"):
             analyte = _dup_analyte(dup)
             primary_kind = "do-fixed" if analyte == analyte_key(WINKLER_ANALYTE) else "bod"
-            named = (dup.model_extra or {}).get("duplicate_of")
+            named = dup.duplicate_of
             if named:
                 cands = [b for b in stop.bottles if b.label == named and b.id != dup.id]
             else:

@@ -169,7 +169,7 @@ def _reported(result: LabResult, rounding: Rounding) -> tuple[float | None, str,
 
 
 def _status(result: LabResult, holding: str) -> str:
-    if (result.inputs or {}).get("superseded_by") or getattr(result, "status", None) == "superseded":
+    if result.status == "superseded":
         return "superseded"
     if result.valid is False:
         return "not valid"
@@ -185,13 +185,12 @@ def result_rows(trip: Trip, settings: ProgramSettings | None = None) -> list[Res
     for stop in sorted(trip.stops, key=lambda s: s.arrived_at):
         for b in stop.bottles:
             for r in b.lab_results:
-                inputs = r.inputs or {}
                 holding = _holding(b, r, settings)
                 value, qualifier, text = _reported(r, rounding)
-                flags = [f.get("code", "") for f in inputs.get("flags") or [] if isinstance(f, dict)]
+                flags = [f.code for f in r.flags]
                 rows.append(ResultRow(stop.id, stop.site_id, b.id, b.label, b.kind, r.id, r.analyte, value,
                                       qualifier, text, r.unit, _status(r, holding), holding, r.analyst,
-                                      r.analysed_at, r.method, inputs.get("superseded_by"), flags, r.notes))
+                                      r.analysed_at, r.method, r.superseded_by, flags, r.notes))
     return rows
 
 

@@ -23,7 +23,7 @@ from typing import Any
 from collections.abc import Iterable
 
 __all__ = ["STATES", "ACTIONS", "review_state", "latest_event", "open_reasons", "ReviewRefused", "describe",
-           "new_event", "check_change", "approved_version", "REVIEW_KEY"]
+           "new_event", "check_change", "approved_version", "REVIEW_KEY", "with_correction"]
 
 #: Every state a trip can be in, in workflow order.
 STATES = ("in progress", "ended", "reviewed", "approved", "returned")
@@ -145,6 +145,19 @@ def new_event(trip: Any, action: str, *, by: str, at: datetime, comment: str = "
     if approved is not None:
         event["approved"] = approved
     return event
+
+
+def with_correction(trip: Any, stored: dict, *, reason: str, by: str, at: datetime) -> Any:
+    """For a correction command: `trip` (the edited Trip) with a ``corrected`` event added when the
+    stored trip is approved (keeping `stored`, the approved document, readable); unchanged otherwise.
+    Raises ReviewRefused for an empty reason or name."""
+    if review_state(stored) != "approved":
+        return trip
+    from core.records.models import ReviewEvent
+
+    approved = {k: v for k, v in stored.items() if k not in ("audit",)}
+    ev = new_event(stored, "corrected", by=by, at=at, reasons=[reason], approved=approved)
+    return trip.model_copy(update={REVIEW_KEY: [*_events(trip), ReviewEvent.model_validate(ev, strict=False)]})
 
 
 def approved_version(trip: Any) -> dict | None:

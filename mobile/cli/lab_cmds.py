@@ -120,13 +120,26 @@ def _trip(store, ident: str):  # noqa: ANN001
         fail(str(exc))
 
 
-def _save(store, outcome, change: str):  # noqa: ANN001
+def _record(store, trip_id: str, compute, describe):  # noqa: ANN001, ANN202
+    """Computes a lab outcome on the stored trip and saves it in one read–modify–write under the
+    store's lock (no other writer, e.g. a sync, can come between); returns (outcome, saved trip).
+    `compute(trip)` gives the outcome, `describe(outcome)` the audit sentence."""
+    from core.rules.lab import LabInputError
     from core.store import StoreError
 
+    box: dict[str, Any] = {}
+
+    def apply(trip):  # noqa: ANN001, ANN202
+        box["out"] = compute(trip)
+        return box["out"].trip
+
     try:
-        return store.save_trip(outcome.trip, change)
+        saved = store.update_trip(trip_id, lambda: describe(box["out"]), apply)
+    except LabInputError as exc:
+        raise _lab_error(exc) from None
     except StoreError as exc:
         fail(f"nothing was saved: {exc}")
+    return box["out"], saved
 
 
 # --------------------------------------------------------------------------------------------
@@ -137,7 +150,7 @@ def _flag_rows(flags: list[dict]) -> list[tuple[str, str]]:
 
 
 def _winkler(args) -> int:  # noqa: ANN001
-    from core.rules.lab import CAUTION, WINKLER_KINDS, LabInputError, Standardisation, record_winkler
+    from core.rules.lab import CAUTION, WINKLER_KINDS, Standardisation, record_winkler
 
     ml = ("mL", "ml")
     titrant = _number(args.titrant_ml, "--titrant-ml", "thiosulfate used in mL, 0 to 100", ml)
@@ -180,16 +193,18 @@ def _winkler(args) -> int:  # noqa: ANN001
     else:
         entered.update(std_titrant_ml=args.std_titrant_ml, std_ml=args.std_ml, std_normality=args.std_normality,
                        standardised_at=args.standardised_at)
-    try:
-        out = record_winkler(trip, args.bottle, titrant_ml=titrant, titrated_ml=titrated, normality=normality,
-                             standardisation=std, bottle_ml=bottle_ml, reagents_ml=reagents, analysed_at=at,
-                             now=now, analyst=args.analyst or "", notes=args.notes or "", redo_reason=args.redo,
-                             settings=settings, entered=entered, batch=batch)
-    except LabInputError as exc:
-        raise _lab_error(exc) from None
-    who = f" ({out.result.analyst})" if out.result.analyst else ""
-    saved = _save(store, out, f"lab: Winkler DO {out.result.value:.2f} mg/L on bottle {out.bottle.label}{who}"
-                              + (" (re-titration)" if out.superseded else ""))
+    def compute(t):  # noqa: ANN001, ANN202
+        return record_winkler(t, args.bottle, titrant_ml=titrant, titrated_ml=titrated, normality=normality,
+                              standardisation=std, bottle_ml=bottle_ml, reagents_ml=reagents, analysed_at=at,
+                              now=now, analyst=args.analyst or "", notes=args.notes or "", redo_reason=args.redo,
+                              settings=settings, entered=entered, batch=batch)
+
+    def describe(o):  # noqa: ANN001, ANN202
+        who = f" ({o.result.analyst})" if o.result.analyst else ""
+        return (f"lab: Winkler DO {o.result.value:.2f} mg/L on bottle {o.bottle.label}{who}"
+                + (" (re-titration)" if o.superseded else ""))
+
+    out, saved = _record(store, trip.id, compute, describe)
     d = out.result.inputs["derived"]
     data = {**out.to_dict(), "do_mg_l": out.result.value, "original_sample_ml": d["original_sample_ml"],
             "normality": d["normality"], "valid": out.result.valid, "revision": saved.revision, "caution": CAUTION}
@@ -299,20 +314,26 @@ def _batch_cmd(args) -> int:  # noqa: ANN001
     settings = _settings(args, store)
     trip = _trip(store, args.trip)
     refs = [r for r in (args.bottles or "").split(",") if r.strip()]
+    from core.store import StoreError
+
+    box: dict[str, Any] = {}
+
+    def apply(t):  # noqa: ANN001, ANN202 - runs under the store's lock on the stored trip
+        new_trip, box["batch"] = add_batch(t, name=args.name, bottle_refs=refs, created_at=now, now=now,
+                                           analyst=args.analyst or "", blank_depletion_mg_l=blank, gga_bod_mg_l=gga,
+                                           seed_controls=controls, incubation_start=start, incubation_end=end,
+                                           incubator_temp_c=temp, standardisation=std, notes=args.notes or "")
+        return new_trip
+
     try:
-        new_trip, batch = add_batch(trip, name=args.name, bottle_refs=refs, created_at=now, now=now,
-                                    analyst=args.analyst or "", blank_depletion_mg_l=blank, gga_bod_mg_l=gga,
-                                    seed_controls=controls, incubation_start=start, incubation_end=end,
-                                    incubator_temp_c=temp, standardisation=std, notes=args.notes or "")
+        saved = store.update_trip(
+            trip.id, lambda: f"lab: batch {box['batch'].name} ({len(box['batch'].bottle_ids)} bottles)", apply)
     except LabInputError as exc:
         field = {"name": "--name", "bottle": "--bottles", "seed_controls": "--seed-sheet"}.get(exc.field)
         raise (CliError(f"{field}: {exc.message}") if field else _lab_error(exc)) from None
-    from core.store import StoreError
-
-    try:
-        saved = store.save_trip(new_trip, f"lab: batch {batch.name} ({len(batch.bottle_ids)} bottles)")
     except StoreError as exc:
         fail(f"nothing was saved: {exc}")
+    batch = box["batch"]
     qc = batch_qc(batch, now, settings)
     labels = [b.label for s in saved.stops for b in s.bottles if b.id in set(batch.bottle_ids)]
     if args.json:
@@ -347,7 +368,7 @@ def _read_sheet(path_text: str, bottle: str) -> tuple[Any, Any]:
 
 
 def _bod(args) -> int:  # noqa: ANN001
-    from core.rules.lab import BOD_KINDS, LabInputError, record_bod
+    from core.rules.lab import BOD_KINDS, record_bod
 
     if (args.dilutions is None) == (args.sheet is None):
         fail("give the dilutions as --sheet FILE.csv (a bench sheet) or --dilutions FILE.json, one of the two")
@@ -375,18 +396,25 @@ def _bod(args) -> int:  # noqa: ANN001
                        ("incubation_end", args.incubation_end)):
         if value is not None:
             entered[key] = value
-    try:
-        out = record_bod(trip, args.bottle, dilutions=dilutions, seed_controls=controls, blank_depletion_mg_l=blank,
-                         gga_bod_mg_l=gga, incubation_start=start, incubation_end=end, incubator_temp_c=temp,
-                         analysed_at=at, now=now, analyst=args.analyst or "", notes=args.notes or "",
-                         redo_reason=args.redo, settings=settings, entered=entered,
-                         batch=_batch(trip, args.bottle, BOD_KINDS))
-    except LabInputError as exc:
-        raise _lab_error(exc) from None
-    shown = "no valid dilution" if out.result.value is None else f"{out.result.value:.1f} mg/L"
-    saved = _save(store, out, f"lab: BOD5 {shown} on bottle {out.bottle.label}"
-                              + (f" ({out.result.analyst})" if out.result.analyst else "")
-                              + (" (repeat)" if out.superseded else ""))
+    batch = _batch(trip, args.bottle, BOD_KINDS)
+
+    def compute(t):  # noqa: ANN001, ANN202
+        return record_bod(t, args.bottle, dilutions=dilutions, seed_controls=controls, blank_depletion_mg_l=blank,
+                          gga_bod_mg_l=gga, incubation_start=start, incubation_end=end, incubator_temp_c=temp,
+                          analysed_at=at, now=now, analyst=args.analyst or "", notes=args.notes or "",
+                          redo_reason=args.redo, settings=settings, entered=entered,
+                          batch=batch)
+
+    def shown_of(o):  # noqa: ANN001, ANN202
+        return "no valid dilution" if o.result.value is None else f"{o.result.value:.1f} mg/L"
+
+    def describe(o):  # noqa: ANN001, ANN202
+        return (f"lab: BOD5 {shown_of(o)} on bottle {o.bottle.label}"
+                + (f" ({o.result.analyst})" if o.result.analyst else "")
+                + (" (repeat)" if o.superseded else ""))
+
+    out, saved = _record(store, trip.id, compute, describe)
+    shown = shown_of(out)
     d = out.result.inputs["derived"]
     data = {**out.to_dict(), "bod_mg_l": out.result.value, "valid": out.result.valid,
             "dilutions": d["dilutions"], "revision": saved.revision}
@@ -531,12 +559,12 @@ def _results(args) -> int:  # noqa: ANN001
     for stop in sorted(trip.stops, key=lambda s: s.arrived_at):
         for b in stop.bottles:
             for r in b.lab_results:
-                inputs = r.inputs or {}
                 rows.append({"site_id": stop.site_id, "bottle_id": b.id, "label": b.label, "kind": b.kind,
                              "result_id": r.id, "analyte": r.analyte, "value": r.value, "unit": r.unit,
                              "analysed_at": r.analysed_at.isoformat() if r.analysed_at else None,
-                             "analyst": r.analyst, "method": r.method, "valid": r.valid,
-                             "superseded_by": inputs.get("superseded_by"), "flags": inputs.get("flags", [])})
+                             "analyst": r.analyst, "method": r.method, "valid": r.valid, "status": r.status,
+                             "superseded_by": r.superseded_by,
+                             "flags": [f.model_dump(mode="json") for f in r.flags]})
     if args.json:
         emit_json({"trip_id": trip.id, "results": rows})
         return 0

@@ -46,6 +46,9 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     p.add_argument("--format", choices=("json", "csv"), required=True)
     p.add_argument("--out", metavar="PATH", default=None,
                    help="file for json; folder for csv (stops.csv, bottles.csv); default: standard output")
+    from mobile.cli.conflict_cmds import add_trip_commands
+
+    add_trip_commands(trip_sub, _command)
 
 
 def _store(args, *, create: bool = False):  # noqa: ANN001
@@ -82,16 +85,28 @@ def _trip_import(args) -> int:  # noqa: ANN001
 
     store = _store(args, create=True)
     try:
-        trip = import_trip_file(store, args.file)
+        outcome = import_trip_file(store, args.file)
     except ExchangeError as exc:
         fail(str(exc))
+    trip = outcome.trip
     if args.json:
         emit_json({"id": trip.id, "revision": trip.revision, "stop_count": len(trip.stops),
-                   "status": trip.status})
+                   "status": trip.status, "result": outcome.result,
+                   "new_conflicts": len(outcome.conflicts)})
+        return 0
+    n = len(trip.stops)
+    name = Path(args.file).name
+    what = f"({n} stop{'' if n == 1 else 's'}, revision {trip.revision})"
+    if outcome.result == "new":
+        sys.stdout.write(f"imported trip {trip.id} {what} from {name}\n")
+    elif outcome.result == "unchanged":
+        sys.stdout.write(f"trip {trip.id} unchanged {what}: this device already holds everything in {name}\n")
     else:
-        n = len(trip.stops)
-        sys.stdout.write(f"imported trip {trip.id} ({n} stop{'' if n == 1 else 's'}, revision {trip.revision})"
-                         f" from {Path(args.file).name}\n")
+        sys.stdout.write(f"merged {name} into trip {trip.id} {what}; nothing stored was removed\n")
+    if outcome.conflicts:
+        k = len(outcome.conflicts)
+        sys.stdout.write(f"{k} field{'' if k == 1 else 's'} differ between this device and the file;"
+                         f" see 'streamtab trip conflicts {trip.id[:8]}'\n")
     return 0
 
 
@@ -190,9 +205,12 @@ def _trip_show(args) -> int:  # noqa: ANN001
               f"{_fmt(c.get('target_mg_l'), '.2f', 'mg/L')}, {verdict}\n")
     for f in data["trip_flags"]:
         w(f"  [{f['severity']}] {f['code']}: {f['message']}\n")
-    for c in data["open_conflicts"]:
-        sides = " | ".join(f"{s.get('device_id')}: {s.get('value')!r}" for s in c.get("sides") or [])
-        w(f"  [needs attention] {c['path']} was changed on two devices ({sides}); choose the right value.\n")
+    if data["open_conflicts"]:
+        from core.rules.conflicts import list_conflicts
+
+        for v in list_conflicts(store.load_trip(trip_id), this_device=store.device_id):
+            w(f"  [needs attention] {v.number}. {v.message}\n")
+        w(f"  settle with 'streamtab trip conflicts {data['id'][:8]}' and 'streamtab trip settle'\n")
     for s in data["stops"]:
         d = s["derived"] or {}
         inp = s["inputs"]

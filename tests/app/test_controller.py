@@ -160,7 +160,7 @@ def test_open_conflicts_reach_the_attention_list(ctl):
     doc = ctl.store.trip_document(ctl.trip.id)
     doc["conflicts"] = [{"id": "c1", "path": f"stops[{doc['stops'][0]['id']}].notes", "detected_at": datetime.now(timezone.utc).isoformat(),
                          "sides": [{"device_id": "dev-a", "value": "riffle"}, {"device_id": "dev-b", "value": "pool"}]}]
-    ctl.store.put_document(doc, "merged by sync")
+    ctl.store.put_document(doc, "merged by sync", expected_revision=doc["revision"])
     ctl.open_trip(ctl.trip.id)
     lines = [line for line in ctl.attention_lines() if "CONFLICT" in line]
     # in words: the site, the field's label and both values; no record path, no device id

@@ -233,10 +233,10 @@ def test_retitration_keeps_both_and_marks_the_earlier_superseded():
     second = wink(first.trip, titrant=7.5, at=T0 + timedelta(hours=4), redo_reason="end point overshot")
     results = second.bottle.lab_results
     assert [r.value for r in results] == [pytest.approx(7.3), pytest.approx(7.5)]
-    assert results[0].inputs["superseded_by"] == results[1].id
-    assert results[0].inputs["superseded_reason"] == "end point overshot"
+    assert results[0].superseded_by == results[1].id and results[0].status == "superseded"
+    assert results[0].superseded_reason == "end point overshot"
     assert "Superseded" in results[0].notes
-    assert results[1].inputs["supersedes"] == [results[0].id]
+    assert results[1].supersedes == [results[0].id] and results[1].status == "valid"
     assert second.superseded == [results[0].id]
     assert current_result(second.bottle, WINKLER_ANALYTE).id == results[1].id
     third = wink(second.trip, titrant=7.4, at=T0 + timedelta(hours=5), redo_reason="check")
@@ -380,7 +380,7 @@ def test_bod_repeat_keeps_both():
         bod(first.trip)
     second = bod(first.trip, redo_reason="second dilution series")
     assert len(second.bottle.lab_results) == 2
-    assert second.bottle.lab_results[0].inputs["superseded_by"] == second.result.id
+    assert second.bottle.lab_results[0].superseded_by == second.result.id
 
 
 # ---------------------------------------------------------------------------------------------

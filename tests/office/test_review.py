@@ -179,3 +179,18 @@ def test_the_app_lists_a_returned_trip_first_with_the_reasons(tmp_path):
     assert lines[0].status == "returned by the office"
     assert "stop 1: DO reading has no unit; post-trip check missing" in lines[0].detail
     assert lines[1].status == "approved"
+
+
+def test_with_correction_is_the_hook_for_a_correction_command(tmp_path):
+    from core.rules.review import with_correction
+
+    store = open_store(tmp_path / "office", "office-1")
+    trip = _end(store, new_trip(store, stops=1))
+    assert with_correction(trip, store.trip_document(trip.id), reason="x", by="D.M.", at=T0) is trip
+    _step(store, trip.id, "approved", T0)
+    stored = store.trip_document(trip.id)
+    edited = store.load_trip(trip.id).model_copy(update={"notes": "meter serial corrected"})
+    fixed = store.save_trip(with_correction(edited, stored, reason="serial typed wrong", by="D.M.",
+                                            at=T0 + timedelta(hours=1)), "corrected")
+    assert review_state(fixed) == "reviewed" and fixed.notes == "meter serial corrected"
+    assert approved_version(fixed.to_document())["notes"] == stored["notes"]

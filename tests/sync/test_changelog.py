@@ -164,3 +164,18 @@ def test_a_server_refusing_infinite_depth_is_walked(tmp_path, device_a):
             sync.pull(_office(tmp_path / "x"), server.url, session=dav_session(credentials=Credentials("ro-tablet", "wrong")))
     finally:
         server.stop()
+
+
+def test_cli_pull_reads_the_log_and_full_walks(tmp_path, device_a, cli):
+    hub = tmp_path / "hub"
+    hub.mkdir()
+    new_trip(device_a)
+    sync.push(device_a, str(hub))
+    office = tmp_path / "office"
+    _office(tmp_path)
+    first = json.loads(cli("sync", "pull", "--from", str(hub), "--json", data_dir=office).stdout)
+    again = json.loads(cli("sync", "pull", "--from", str(hub), "--json", data_dir=office).stdout)
+    whole = json.loads(cli("sync", "pull", "--from", str(hub), "--full", "--json", data_dir=office).stdout)
+    assert (first["listed"], first["pulled"]) == ("walk", 1)
+    assert (again["listed"], again["per_trip"]) == ("log", [])
+    assert (whole["listed"], whole["unchanged"]) == ("walk", 1)
