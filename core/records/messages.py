@@ -84,18 +84,6 @@ FIELD_LABELS: dict[str, str] = {
 _CONTAINERS = {"stops": "Stop", "bottles": "Bottle", "lab_results": "Lab result",
                "audit": "Audit entry", "conflicts": "Conflict", "sides": "Side"}
 
-_HINTS = {
-    "temp": " — was it entered in °F?",
-    "pressure": " — was it in another unit (inHg, kPa, mmHg)?",
-    "conductivity": " — check the unit (µS/cm, mS/cm, mS/m).",
-    "do_mg_l": " — was it % saturation?",
-    "do_percent": " — was it mg/L?",
-    "elevation": " — elevation is in metres.",
-    "calibration_reading": " — was it % saturation?",
-    "criterion": ".",
-    "supersaturation": ".",
-    "tolerance": ".",
-}
 
 #: Stable code → template. Codes other tools may read; texts are ours.
 TEMPLATES: dict[str, str] = {
@@ -204,15 +192,13 @@ def _fmt(value: Any) -> str:
 def render(code: str, **ctx: Any) -> str:
     """Our text for a code, filled from `ctx` (label, input, value, low, high, unit, ...)."""
     if code.endswith(".out_of_range"):
+        from core.science.quantities import LIMITS, range_message
+
         kind = ctx.get("kind") or code.rsplit(".", 1)[0]
-        try:
-            below = float(ctx["value"]) < float(ctx["low"])
-        except (KeyError, TypeError, ValueError):
-            below = False
-        # The hints name the usual mistake for a value that is too high (°F for °C, % for mg/L...).
-        ctx.setdefault("hint", "." if below and kind in ("temp", "do_percent", "do_mg_l", "calibration_reading")
-                       else _HINTS.get(kind, "."))
+        if kind in LIMITS:
+            return range_message(kind, str(ctx.get("label", "Value")), ctx.get("value"), ctx.get("unit"))
         template = TEMPLATES["range"]
+        ctx.setdefault("hint", ".")
     else:
         template = TEMPLATES.get(code, TEMPLATES["field.invalid"])
     ctx.setdefault("label", "Value")

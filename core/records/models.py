@@ -2,8 +2,6 @@
 from __future__ import annotations
 
 import json
-import math
-import re
 import types
 import typing
 import uuid
@@ -12,7 +10,8 @@ from functools import cache
 from pathlib import Path
 from typing import Any, Literal
 
-from core.science._validate import ambiguous_comma
+from core.science import quantities as _quantities
+from core.science.conductivity import ALPHA_RANGE_PER_C
 from pydantic import (AwareDatetime, BaseModel, ConfigDict, Field, field_validator, model_serializer, model_validator)
 from pydantic_core import PydanticCustomError
 
@@ -32,24 +31,9 @@ SCHEMA_VERSION = 3
 BOTTLE_KINDS = ("do-fixed", "bod", "duplicate", "blank")
 WATER_CLASSES = ("warm", "cold")
 
-#: Hard limits of what a form accepts, per field kind (value in the normalised unit).
-#: Wider than the range of the saturation equations (0–40 °C, 0.5–1.1 atm): values between the
-#: two compute and carry a QC flag; values outside these are refused as typing or unit mistakes.
-#: All "common practice" bounds for stream work, not published limits.
-LIMITS: dict[str, tuple[float, float, str]] = {
-    "temp": (-2.0, 50.0, "°C"),
-    "pressure": (400.0, 1100.0, "hPa"),
-    "conductivity": (0.0, 100000.0, "µS/cm"),
-    "do_mg_l": (0.0, 25.0, "mg/L"),
-    "do_percent": (0.0, 300.0, "%"),
-    "elevation": (-430.0, 6000.0, "m"),
-    "latitude": (-90.0, 90.0, "°"),
-    "longitude": (-180.0, 180.0, "°"),
-    "calibration_reading": (0.0, 25.0, "mg/L"),
-    "criterion": (0.0, 20.0, "mg/L"),          # the range core.science.criteria accepts
-    "supersaturation": (100.0, 500.0, "%"),    # the range core.science.criteria accepts
-    "tolerance": (0.0, 5.0, "mg/L"),
-}
+#: Hard limits of what a form accepts, per field kind (value in the normalised unit): the one table
+#: in core.science.quantities, which the command line and the app read too.
+LIMITS = _quantities.LIMITS
 
 
 def new_id() -> str:
@@ -68,48 +52,28 @@ class InputError(ValueError):
 
 
 # --------------------------------------------------------------------------------------------
-# Strict number parsing for form input
+# Strict number parsing for form input (the grammar is core.science.quantities)
 # --------------------------------------------------------------------------------------------
-_NUMBER_RE = re.compile(r"^[+-]?(\d+([.,]\d*)?|[.,]\d+)([eE][+-]?\d+)?$")
-_LEADING_NUMBER_RE = re.compile(r"^\s*([+-]?(?:\d[\d.,]*|[.,]\d+)(?:[eE][+-]?\d+)?)\s*(.*?)\s*$")
+def _input_error(exc: _quantities.QuantityError, field: str) -> InputError:
+    return InputError(exc.code, field, exc.message)
 
 
-def parse_number(text: str, field: str = "value") -> float:
+def parse_number(text: str, field: str = "value", *, limit: str | None = None) -> float:
     """Reads a number a person typed: "3.5" and "3,5" give 3.5; never reads "3,5" as 35.
 
     Refuses NaN, infinity, yes/no values, thousands separators and an ambiguous "1,234"
-    (a decimal comma or a thousands comma?) with an :class:`InputError` naming the field.
+    (a decimal comma or a thousands comma?) with an :class:`InputError` naming the field; with
+    `limit` (a key of :data:`LIMITS`), also a value outside that limit.
     """
-    from core.records.messages import label_for, render
+    from core.records.messages import label_for
 
-    label = label_for(field)
-    if isinstance(text, bool):
-        raise InputError("number.bool", field, render("number.bool", label=label, input=text))
-    if isinstance(text, (int, float)):
-        value = float(text)
-        if not math.isfinite(value):
-            raise InputError("number.not_finite", field,
-                             render("number.not_finite", label=label, input=text))
+    try:
+        value = _quantities.read_number(text, label_for(field))
+        if limit is not None:
+            _quantities.check_limit(limit, value, label_for(field))
         return value
-    raw = str(text).strip()
-    if not raw:
-        raise InputError("missing", field, render("missing", label=label))
-    if raw.lower().lstrip("+-") in {"nan", "inf", "infinity"}:
-        raise InputError("number.not_finite", field,
-                         render("number.not_finite", label=label, input=raw))
-    if raw.count(",") + raw.count(".") > 1 or not _NUMBER_RE.match(raw):
-        raise InputError("number.invalid", field, render("number.invalid", label=label, input=raw))
-    if "," in raw:
-        if ambiguous_comma(raw):
-            # "1,234": 1.234 to a European eye, 1234 to an American one — ask, never guess.
-            raise InputError("number.ambiguous_comma", field,
-                             render("number.ambiguous_comma", label=label, input=raw,
-                                    a=raw.replace(",", "."), b=raw.replace(",", "")))
-        raw = raw.replace(",", ".")
-    value = float(raw)
-    if not math.isfinite(value):
-        raise InputError("number.not_finite", field, render("number.not_finite", label=label, input=raw))
-    return value
+    except _quantities.QuantityError as exc:
+        raise _input_error(exc, field) from None
 
 
 # --------------------------------------------------------------------------------------------
@@ -214,7 +178,7 @@ class Derived(_Record):
 
 
 def _range_error(kind: str, label_field: str, value: float, unit: str) -> PydanticCustomError:
-    low, high, _ = LIMITS[kind]
+    low, high, _ = _quantities.LIMITS[kind]
     return PydanticCustomError(f"{kind}.out_of_range", "{value} outside {low}–{high} {unit}",
                                {"value": value, "low": low, "high": high, "unit": unit,
                                 "kind": kind})
@@ -515,17 +479,68 @@ class Conflict(_Record):
     resolution: Any = None
 
 
+class InstrumentLog(_Record):
+    """One DO meter's calibration log in the program's settings (USGS NFM A6.2 checks; limits common practice)."""
+
+    serial: str = Field(min_length=1, max_length=64)
+    membrane_changed_at: AwareDatetime | None = None
+    zero_do_mg_l: float | None = None
+    zero_do_limit_mg_l: float = Field(0.2, gt=0.0, le=2.0)
+    zero_checked_at: AwareDatetime | None = None
+    barometer_difference_hpa: float | None = Field(None, ge=-200.0, le=200.0)
+    barometer_limit_hpa: float = Field(2.0, gt=0.0, le=20.0)
+    barometer_checked_at: AwareDatetime | None = None
+    #: Post-trip drift limit of this meter, in mg/L or in % of the 100 % target.
+    drift_limit: float = Field(0.2, gt=0.0, le=50.0)
+    drift_unit: Literal["mg/L", "%"] = "mg/L"
+
+    def flags(self):
+        """The zero-DO and barometer findings of this log (core.science.calibration.instrument_flags)."""
+        from core.science.calibration import instrument_flags
+
+        return instrument_flags(self.serial, zero_do_mg_l=self.zero_do_mg_l,
+                                zero_do_limit_mg_l=self.zero_do_limit_mg_l,
+                                barometer_difference_hpa=self.barometer_difference_hpa,
+                                barometer_limit_hpa=self.barometer_limit_hpa)
+
+
 class ProgramSettings(_Record):
     """A monitoring program's settings: method, criteria, tolerances and QC thresholds."""
 
     schema_version: int = SCHEMA_VERSION
     program: str = Field(default="", max_length=120)
     method: Literal["benson-krause", "garcia-gordon"] = "benson-krause"
-    warm_min_mg_l: float = Field(5.0, ge=0.0, le=20.0)    # common practice (many state standards; EPA 1986 differs)
-    cold_min_mg_l: float = Field(6.5, ge=0.0, le=20.0)    # US EPA 440/5-86-003 (1986) cold-water 30-day mean, from memory
-    supersaturation_percent: float = Field(120.0, ge=100.0, le=500.0)   # common practice
-    hypoxic_mg_l: float = Field(2.0, ge=0.0, le=20.0)     # common practice
-    calibration_tolerance_mg_l: float = Field(0.2, gt=0.0, le=5.0)  # common practice (USGS NFM A6.2 method)
+    warm_min_mg_l: float = Field(5.0, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1])    # common practice (many state standards; EPA 1986 differs)
+    cold_min_mg_l: float = Field(6.5, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1])    # US EPA 440/5-86-003 (1986) cold-water 30-day mean, from memory
+    supersaturation_percent: float = Field(120.0, ge=LIMITS["supersaturation"][0], le=LIMITS["supersaturation"][1])   # common practice
+    hypoxic_mg_l: float = Field(2.0, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1])     # common practice
+    #: Life stages the program protects ("other" or "early": embryos and larvae present); picks the EPA 1986
+    #: 1-day minimum a spot reading is compared with (core.science.criteria.EPA_1986_MG_L, from memory).
+    life_stage: Literal["other", "early"] = "other"
+    calibration_tolerance_mg_l: float = Field(0.2, gt=LIMITS["tolerance"][0], le=LIMITS["tolerance"][1])  # common practice (USGS NFM A6.2 method)
+    #: Elevation where the meter is calibrated (the office), m; None: the trip's first site. The
+    #: calibration pressure is checked against it like a stop's pressure.
+    calibration_elevation_m: float | None = Field(None, ge=LIMITS["elevation"][0], le=LIMITS["elevation"][1])
+    #: What the program's meters mean by 100 %: saturation at the local pressure, or at 760 mmHg
+    #: (core.science.oxygen.PERCENT_BASES); a trip's own meter setting (Trip.meter_percent_basis) wins.
+    percent_basis: Literal["local", "sea-level"] = "local"
+    #: Temperature compensation of specific conductance: linear with `conductivity_alpha_per_c`
+    #: (Standard Methods 2510 B; natural waters 0.0175–0.0198, Hayashi 2004), or the ISO 7888 table.
+    conductivity_compensation: Literal["linear", "iso7888"] = "linear"
+    conductivity_alpha_per_c: float = Field(0.0191, ge=ALPHA_RANGE_PER_C[0], le=ALPHA_RANGE_PER_C[1])
+    #: How many decimals reports show, by quantity (core.rules.report.Rounding: do_mg_l, percent, temp_c,
+    #: pressure_hpa, conductivity_sig, bod_mg_l); missing keys keep the defaults (DO 0.1 mg/L, % whole,
+    #: 0.1 °C, 0.1 hPa, specific conductance 3 significant figures; common practice). Reports only:
+    #: stored values are never rounded.
+    reporting_decimals: dict[str, int] = Field(default_factory=dict)
+    #: Calibration logs of the program's DO meters, matched to a trip by its meter ID (the serial).
+    instruments: list[InstrumentLog] = Field(default_factory=list)
+
+    def instrument(self, meter_id: str) -> InstrumentLog | None:
+        """The log of the meter a trip names (by serial, case and spaces ignored), or None."""
+        key = (meter_id or "").strip().lower()
+        return next((i for i in self.instruments if key and i.serial.strip().lower() == key), None)
+
     #: Holding-time overrides by kind (hours), e.g. {"bod": 24} for a stricter SOP.
     holding_overrides_h: dict[str, float] = Field(default_factory=dict)
     #: Plausible stream ranges (warning outside; common practice, adjust per program).
@@ -545,7 +560,7 @@ class ProgramSettings(_Record):
 
         return Criteria(warm_min_mg_l=self.warm_min_mg_l, cold_min_mg_l=self.cold_min_mg_l,
                         supersaturation_percent=self.supersaturation_percent,
-                        hypoxic_mg_l=self.hypoxic_mg_l)
+                        hypoxic_mg_l=self.hypoxic_mg_l, life_stage=self.life_stage)
 
 
 class ReviewEvent(_Record):
@@ -688,6 +703,8 @@ class Trip(_Record):
     program: str = Field(default="", max_length=120)
     crew: list[str] = Field(default_factory=list)
     meter_id: str = Field(default="", max_length=64)
+    #: This trip's meter's % basis ("local" or "sea-level"); None: the program setting.
+    meter_percent_basis: Literal["local", "sea-level"] | None = None
     started_at: AwareDatetime
     ended_at: AwareDatetime | None = None
     pre_calibration: Calibration | None = Field(None, json_schema_extra=RETAINED)
@@ -859,83 +876,24 @@ def keys_by_role(*roles: str, model: type[BaseModel] | None = None) -> frozenset
 # --------------------------------------------------------------------------------------------
 # Building quantities from what a person typed
 # --------------------------------------------------------------------------------------------
-_DO_UNITS = {"mg/l": "mg/L", "mgl": "mg/L", "mg/litre": "mg/L", "mg/liter": "mg/L", "ppm": "mg/L",
-             "%": "%", "% sat": "%", "%sat": "%", "percent": "%"}
-
-
-def _split(text: str, field: str) -> tuple[float, str, str]:
-    from core.records.messages import label_for, render
-
-    if isinstance(text, bool) or not isinstance(text, (str, int, float)):
-        raise InputError("number.invalid", field,
-                         render("number.invalid", label=label_for(field), input=text))
-    raw = str(text).strip()
-    if not raw:
-        raise InputError("missing", field, render("missing", label=label_for(field)))
-    m = _LEADING_NUMBER_RE.match(raw)
-    if not m:
-        parse_number(raw, field)  # raises the right message (nan, inf, not a number)
-        raise InputError("number.invalid", field,
-                         render("number.invalid", label=label_for(field), input=raw))
-    value = parse_number(m.group(1), field)
-    return value, m.group(2), raw
-
-
 def measure(kind: str, text: str, *, default_unit: str | None = None, field: str | None = None) -> Quantity:
     """Builds a :class:`Quantity` from typed text, keeping the text exactly.
 
-    kind: "temp" (°C; "°F"/"F" converted), "pressure" (hPa; units from core.science.pressure; a bare
-    number is refused), "conductivity" (µS/cm), "do" (mg/L or %). `default_unit` applies to a
-    bare number (e.g. "C" for a temperature field, "mg/L" for a DO field). Raises
-    :class:`InputError` with the field label, what was wrong and the accepted range or units.
+    kind: "temp" (°C; °F and K converted), "pressure" (hPa; a bare number is refused), "conductivity"
+    (µS/cm), "do" (mg/L or %); the grammar, units and limits are core.science.quantities'.
+    `default_unit` applies to a bare number (e.g. "C" for a temperature field, "mg/L" for a DO field).
+    Raises :class:`InputError` with the field label, what was wrong and the accepted range or units.
     """
-    from core.records.messages import label_for, render
+    from core.records.messages import label_for
 
     field = field or kind
-    label = label_for(field)
-    value, unit, raw = _split(text, field)
-    unit_in = unit or (default_unit or "")
-    plain = f"{value:.10f}".rstrip("0").rstrip(".")
     try:
-        if kind == "temp":
-            from core.science.temperature import parse_temperature
-
-            norm = parse_temperature(f"{plain} {unit_in}".strip(), default_unit=default_unit or "C")
-            q_unit = "°C"
-        elif kind == "pressure":
-            from core.science.pressure import parse_pressure
-
-            norm = parse_pressure(f"{plain} {unit_in}".strip())
-            q_unit = "hPa"
-        elif kind == "conductivity":
-            from core.science.conductivity import parse_conductivity
-
-            norm = parse_conductivity(f"{plain} {unit_in}".strip())
-            q_unit = "µS/cm"
-        elif kind == "do":
-            key = unit_in.strip().lower()
-            if not key:
-                raise ValueError("has no unit; write mg/L or % (e.g. '8.4 mg/L' or '96 %')")
-            if key not in _DO_UNITS:
-                raise ValueError(f"unit {unit_in.strip()!r} is not accepted; write mg/L or %")
-            q_unit = _DO_UNITS[key]
-            norm = value
-        else:
-            raise ValueError(f"unknown kind {kind!r}")
-    except InputError:
-        raise
-    except ValueError as exc:
-        raise InputError("unit.invalid", field,
-                         render("unit.invalid", label=label, input=raw, detail=str(exc))) from None
-    norm = float(norm)
-    key = kind if kind != "do" else ("do_percent" if q_unit == "%" else "do_mg_l")
-    low, high, _ = LIMITS[key]
-    if not (low <= norm <= high):
-        code = f"{key}.out_of_range"
-        raise InputError(code, field, render(code, label=label, value=norm, low=low, high=high,
-                                             unit=q_unit))
-    return Quantity(text=raw, entered_value=value, entered_unit=unit_in.strip(), value=norm,
-                    unit=q_unit)
+        r = _quantities.read(kind, text, label_for(field), default_unit=default_unit)
+    except _quantities.QuantityError as exc:
+        raise _input_error(exc, field) from None
+    except KeyError:
+        raise ValueError(f"unknown kind {kind!r}; accepted: {', '.join(_quantities.KINDS)}") from None
+    return Quantity(text=r.text, entered_value=r.number, entered_unit=r.entered_unit, value=r.value, unit=r.unit)
 
 
 # --------------------------------------------------------------------------------------------

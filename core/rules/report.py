@@ -54,9 +54,8 @@ class Rounding:
 
 
 def rounding_for(settings: ProgramSettings | None) -> Rounding:
-    """The program's reporting decimals (``reporting_decimals`` in its settings), else the defaults."""
-    extra = (settings.model_extra or {}) if settings is not None else {}
-    given = extra.get("reporting_decimals") or {}
+    """The program's reporting decimals (ProgramSettings.reporting_decimals), else the defaults."""
+    given = dict(settings.reporting_decimals) if settings is not None else {}
     known = {k: int(v) for k, v in given.items()
              if k in Rounding.__dataclass_fields__ and isinstance(v, int) and not isinstance(v, bool) and 0 <= v <= 6}
     return Rounding(**known)
@@ -152,7 +151,10 @@ def _holding(bottle: Bottle, result: LabResult, settings: ProgramSettings | None
 
 def _reported(result: LabResult, rounding: Rounding) -> tuple[float | None, str, str]:
     """(value, qualifier, text) of a result: the bench's own report when it carries one."""
-    rep = (result.inputs or {}).get("report")
+    from core.rules.lab import reported_bod
+
+    bod = reported_bod(result)   # BOD5/CBOD5 by the 5210 B reporting rules (inputs.derived.report)
+    rep = bod.to_dict() if bod is not None else (result.inputs or {}).get("report")
     if isinstance(rep, dict) and isinstance(rep.get("text"), str) and rep["text"]:
         q = rep.get("qualifier") or ""
         v = rep.get("value")

@@ -125,11 +125,14 @@ class AppController:
             raise ValueError("Site code is empty; type a short code such as LK-07.")
         if not name:
             raise ValueError("Site name is empty; type the name crews use for it.")
-        elevation_m = parse_decimal(elevation_text, label="Elevation")
-        if elevation_m is None:
-            raise ValueError("Elevation is empty; type the site's elevation in metres (−400 to 5000).")
-        if not -400 <= elevation_m <= 5000:
-            raise ValueError(f"Elevation {elevation_m:g} m is outside −400 to 5000 m; type it in metres.")
+        from core.science.quantities import QuantityError, range_text, read
+
+        if not (elevation_text or "").strip():
+            raise ValueError(f"Elevation is empty; type the site's elevation in metres ({range_text('elevation')}).")
+        try:  # core's grammar and the one table of limits (m, or ft converted)
+            elevation_m = read("elevation", elevation_text, "Elevation").value
+        except QuantityError as exc:
+            raise ValueError(exc.message) from None
         if any(s.id == code for s in self.sites()):
             raise ValueError(f"Site code {code} is already on this tablet; pick it from the list.")
         try:
@@ -139,6 +142,13 @@ class AppController:
             raise ValueError(str(exc)) from None
         self._sites = None
         return saved.id
+
+    def program_percent_basis(self) -> str:
+        """The program's meter % basis ("local" or "sea-level"), the start screen's default for a trip."""
+        try:
+            return str(self.settings().percent_basis)
+        except Exception:  # noqa: BLE001 - an unreadable settings file: the safe default
+            return "local"
 
     def settings(self) -> Any:
         """The program settings (core.records.models.ProgramSettings) from the store."""
@@ -456,7 +466,8 @@ class AppController:
         if record is None:
             return None, errors
         site = self.site(stop.site_id)
-        derived = derive_stop(record, site, self.settings())
+        basis = self.trip.meter_percent_basis if self.trip is not None else None
+        derived = derive_stop(record, site, self.settings(), basis)
         return record.model_copy(update={"derived": derived}), errors
 
     def stop_view(self, stop: StopForm | None = None) -> StopView:

@@ -91,6 +91,7 @@ class TripForm:
     program: str = ""
     crew: str = ""
     meter_id: str = ""
+    meter_percent_basis: str | None = None   # "local" | "sea-level" | None (the program setting)
     started_at: datetime | None = None
     ended_at: datetime | None = None
     started_without_calibration: bool = False

@@ -182,7 +182,7 @@ def cal_reading(cal: CalForm) -> float:
     """The meter reading typed on a calibration form, mg/L; raises InputError naming the field."""
     from core.records.models import parse_number
 
-    return float(parse_number(cal.reading_text, "reading_mg_l"))
+    return float(parse_number(cal.reading_text, "reading_mg_l", limit="calibration_reading"))
 
 
 def cal_document(cal: CalForm, kind: str, tolerance_mg_l: float,
@@ -243,6 +243,8 @@ def trip_from_form(form: TripForm, previous: Any, ctl: Any):
     crew = [c.strip() for c in form.crew.replace(";", ",").split(",") if c.strip()]
     doc.update(id=form.id, program=form.program.strip(), crew=crew, meter_id=form.meter_id.strip(),
                started_at=_iso(form.started_at), ended_at=_iso(form.ended_at), stops=stops)
+    if form.meter_percent_basis is not None or doc.get("meter_percent_basis") is not None:
+        doc["meter_percent_basis"] = form.meter_percent_basis
     doc.setdefault("revision", 0)
     if form.started_without_calibration:
         doc["started_without_calibration"] = True
@@ -313,6 +315,7 @@ def form_from_trip(trip: Any) -> TripForm:
                        reading_text=f"{c.reading_mg_l:g}", at=c.at)
 
     return TripForm(id=trip.id, program=trip.program, crew=", ".join(trip.crew), meter_id=trip.meter_id,
+                    meter_percent_basis=trip.meter_percent_basis,
                     started_at=trip.started_at, ended_at=trip.ended_at,
                     started_without_calibration=trip.started_without_calibration,
                     pre_cal=cal(trip.pre_calibration), post_check=cal(trip.post_check), stops=stops)

@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import json
-import re
 import sys
 from datetime import datetime, timezone
 from pathlib import Path
@@ -12,8 +11,6 @@ from mobile.cli._common import CliError, emit_json, emit_table, fail, open_store
 from mobile.cli._common import parse_time as _time
 
 __all__ = ["register"]
-
-_NUM = re.compile(r"^\s*([+-]?[\d.,]*\d[\d.,]*|[+-]?[.,]\d+)\s*([^\d\s].*?)?\s*$")
 
 #: Core input names → the option a person typed.
 _OPTIONS = {
@@ -33,23 +30,15 @@ _OPTIONS = {
 # Reading what was typed
 # --------------------------------------------------------------------------------------------
 def _number(text: str | None, option: str, accepted: str, units: tuple[str, ...] = ()) -> float | None:
-    """A number as typed ("7.3", "7,3", "7.3 mL"); a unit, when given, must be one of `units`."""
-    from core.records.models import InputError, parse_number
+    """A number as typed ("7.3", "7,3", "7.3 mL"); a unit, when given, must be one of `units` (core's grammar)."""
+    from core.science.quantities import QuantityError, read_number
 
     if text is None:
         return None
-    m = _NUM.match(text)
-    if m is None:
-        raise CliError(f"{option} {text!r} is not a number; accepted: {accepted}")
-    unit = (m.group(2) or "").strip()
-    if unit and unit.lower().replace(" ", "") not in {u.lower() for u in units}:
-        raise CliError(f"{option} {text!r} has the unit {unit!r}; accepted: {accepted}")
     try:
-        return parse_number(m.group(1), option)
-    except InputError as exc:
-        why = {"number.ambiguous_comma": "is ambiguous (decimal comma or thousands separator?)"}.get(
-            exc.code, "is not a number")
-        raise CliError(f"{option} {text!r} {why}; accepted: {accepted}") from None
+        return read_number(text, option, units=units, accepted=accepted)
+    except QuantityError as exc:
+        raise CliError(exc.message) from None
 
 
 def _lab_error(exc: Exception) -> CliError:
@@ -60,7 +49,7 @@ def _lab_error(exc: Exception) -> CliError:
 
 
 #: LabSettings fields a program may set in its settings as ``lab_<name>``; options override them.
-_PROGRAM_KEYS = ("meter_tolerance_mg_l", "duplicate_rpd_percent", "standardisation_max_age_h")
+_PROGRAM_KEYS = ("meter_tolerance_mg_l", "duplicate_rpd_percent", "duplicate_abs_mg_l", "standardisation_max_age_h")
 
 
 def _now(args) -> datetime:  # noqa: ANN001
@@ -233,7 +222,7 @@ def _winkler(args) -> int:  # noqa: ANN001
     return 0
 
 
-def _read_dilutions(path_text: str) -> tuple[Any, Any]:
+def _read_dilutions(path_text: str) -> tuple[Any, Any, bool]:
     path = Path(path_text)
     try:
         raw = path.read_text(encoding="utf-8")
@@ -247,17 +236,22 @@ def _read_dilutions(path_text: str) -> tuple[Any, Any]:
         fail(f"--dilutions {path_text!r} is not valid JSON (line {exc.lineno}, column {exc.colno}); accepted: a"
              " list of dilutions or an object with \"dilutions\" (and \"seed_controls\")")
     controls = None
+    inhibitor = False
     if isinstance(doc, dict):
-        unknown = sorted(set(doc) - {"dilutions", "seed_controls"})
+        unknown = sorted(set(doc) - {"dilutions", "seed_controls", "nitrification_inhibitor"})
         if unknown:
             fail(f"--dilutions {path_text!r} has an unknown key {unknown[0]!r}; accepted keys: dilutions,"
-                 " seed_controls")
+                 " seed_controls, nitrification_inhibitor")
+        inhibitor = doc.get("nitrification_inhibitor", False)
+        if not isinstance(inhibitor, bool):
+            fail(f"--dilutions {path_text!r}: nitrification_inhibitor is not true or false; accepted: true"
+                 " (CBOD5) or false (BOD5)")
         controls = doc.get("seed_controls")
         doc = doc.get("dilutions")
     if not isinstance(doc, list) or not doc:
         fail(f"--dilutions {path_text!r} holds no list of dilutions; accepted: a JSON list of objects with"
              " initial_do_mg_l, final_do_mg_l, sample_ml (or an object with \"dilutions\")")
-    return doc, controls
+    return doc, controls, inhibitor
 
 
 def _batch(trip, bottle_ref: str, kinds: tuple[str, ...]):  # noqa: ANN001
@@ -372,10 +366,12 @@ def _bod(args) -> int:  # noqa: ANN001
 
     if (args.dilutions is None) == (args.sheet is None):
         fail("give the dilutions as --sheet FILE.csv (a bench sheet) or --dilutions FILE.json, one of the two")
+    inhibitor = False
     if args.sheet is not None:
         dilutions, controls = _read_sheet(args.sheet, args.bottle)
     else:
-        dilutions, controls = _read_dilutions(args.dilutions)
+        dilutions, controls, inhibitor = _read_dilutions(args.dilutions)
+    inhibitor = inhibitor or bool(args.nitrification_inhibitor)
     mg = ("mg/L", "mg/l")
     blank = _number(args.blank_depletion, "--blank-depletion", "dilution-water blank depletion in mg/L"
                                                                " (≤ 0.20 passes)", mg)
@@ -403,27 +399,35 @@ def _bod(args) -> int:  # noqa: ANN001
                           gga_bod_mg_l=gga, incubation_start=start, incubation_end=end, incubator_temp_c=temp,
                           analysed_at=at, now=now, analyst=args.analyst or "", notes=args.notes or "",
                           redo_reason=args.redo, settings=settings, entered=entered,
-                          batch=batch)
+                          batch=batch, nitrification_inhibitor=inhibitor)
+
+    def report_of(o):  # noqa: ANN001, ANN202
+        return o.result.inputs["derived"].get("report") or {}
 
     def shown_of(o):  # noqa: ANN001, ANN202
+        rep = report_of(o)
+        if rep.get("text"):
+            return rep["text"]
         return "no valid dilution" if o.result.value is None else f"{o.result.value:.1f} mg/L"
 
     def describe(o):  # noqa: ANN001, ANN202
-        return (f"lab: BOD5 {shown_of(o)} on bottle {o.bottle.label}"
+        return (f"lab: {report_of(o).get('analyte', 'BOD5')} {shown_of(o)} on bottle {o.bottle.label}"
                 + (f" ({o.result.analyst})" if o.result.analyst else "")
                 + (" (repeat)" if o.superseded else ""))
 
     out, saved = _record(store, trip.id, compute, describe)
     shown = shown_of(out)
+    report = report_of(out)
+    what = report.get("analyte", "BOD5")
     d = out.result.inputs["derived"]
-    data = {**out.to_dict(), "bod_mg_l": out.result.value, "valid": out.result.valid,
-            "dilutions": d["dilutions"], "revision": saved.revision}
+    data = {**out.to_dict(), "bod_mg_l": out.result.value, "valid": out.result.valid, "analyte": what,
+            "report": report, "dilutions": d["dilutions"], "revision": saved.revision}
     if args.json:
         emit_json(data)
         return 0
     rows = [("trip", f"{saved.id[:8]} (revision {saved.revision})"),
             ("bottle", f"{out.bottle.label} ({out.bottle.kind}) at {out.stop.site_id}"),
-            ("BOD5", shown + ("" if out.result.valid else " (NOT valid)"))]
+            (what, shown + ("" if out.result.valid or report.get("qualifier") else " (NOT valid)"))]
     for i, dil in enumerate(d["dilutions"], 1):
         rows.append((f"dilution {i}", f"{dil['sample_ml']:g} mL: {dil['bod_mg_l']:.1f} mg/L, depletion"
                                       f" {dil['depletion_mg_l']:.2f} mg/L, {'valid' if dil['valid'] else 'not valid'}"))
@@ -553,14 +557,18 @@ def _pending(args) -> int:  # noqa: ANN001
 
 
 def _results(args) -> int:  # noqa: ANN001
+    from core.rules.lab import reported_bod
+
     store = _store(args)
     trip = _trip(store, args.trip)
     rows = []
     for stop in sorted(trip.stops, key=lambda s: s.arrived_at):
         for b in stop.bottles:
             for r in b.lab_results:
+                rep = reported_bod(r)
                 rows.append({"site_id": stop.site_id, "bottle_id": b.id, "label": b.label, "kind": b.kind,
                              "result_id": r.id, "analyte": r.analyte, "value": r.value, "unit": r.unit,
+                             "report": None if rep is None else rep.to_dict(),
                              "analysed_at": r.analysed_at.isoformat() if r.analysed_at else None,
                              "analyst": r.analyst, "method": r.method, "valid": r.valid, "status": r.status,
                              "superseded_by": r.superseded_by,
@@ -573,6 +581,8 @@ def _results(args) -> int:  # noqa: ANN001
         return 0
     for r in rows:
         value = "—" if r["value"] is None else f"{r['value']:.2f} {r['unit']}"
+        if r["report"] is not None:
+            value = r["report"]["text"] if r["report"]["value"] is not None else "—"
         state = f"superseded by {r['superseded_by'][:8]}" if r["superseded_by"] else (
             "valid" if r["valid"] else ("NOT valid" if r["valid"] is False else "not checked"))
         sys.stdout.write(f"{r['site_id']:<7} {r['label']:<10} {r['analyte']:<11} {value:>11}  "
@@ -650,6 +660,8 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     p.add_argument("--incubation-start", metavar="ISO-TIME", help="when the bottles were set up")
     p.add_argument("--incubation-end", metavar="ISO-TIME", help="when they were read after 5 days")
     p.add_argument("--incubator-temp", metavar="C", help="incubator temperature, °C")
+    p.add_argument("--nitrification-inhibitor", action="store_true",
+                   help="a nitrification inhibitor was added: records CBOD5, its own analyte")
     _common(p)
     p.set_defaults(handler=_bod)
 

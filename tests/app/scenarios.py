@@ -574,3 +574,30 @@ def settle_conflict(p):
     p.note("after", [panel.count, panel.message, s.temp_entry.text])
     yield from p.shot("stop-conflict-settled")
     p.app.ctl.flush(10)
+
+
+def meter_basis(p):
+    """Start a trip whose meter reads % against 760 mmHg (tapping the start screen's toggle), then a stop in %."""
+    yield 0.1
+    trips = p.screen("trips")
+    yield from p.tap(trips.ids.start_btn)
+    yield 0.1
+    s = p.screen("start")
+    p.note("basis_default", s.percent_basis)
+    yield from p.type(s.ids.program, "Tamsin Valley Stream Watch")
+    yield from p.type(s.ids.crew, "R.O.")
+    yield from p.type(s.ids.meter, "DO-9")
+    yield from p.tap(s.ids.basis_sea_level)
+    p.note("basis_chosen", s.percent_basis)
+    yield from p.tap(s.ids.start_btn)
+    yield 0.2
+    if p.app.root.current == "start" and s.offer_skip:
+        yield from p.tap(s.ids.skip_cal_btn)
+        yield 0.2
+    yield from _fill_stop(p, "LK-03 Aspen Bend", "15", "940", None, "92", do_unit="%")
+    yield 0.2
+    view = p.app.ctl.stop_view()
+    p.note("view_do_text", view.do_text)
+    p.note("view_percent_text", view.percent_text)
+    p.app.ctl.flush(10)
+    p.note("trip_id", p.app.ctl.trip.id)
