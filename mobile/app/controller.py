@@ -8,6 +8,7 @@ freezes a field; sync runs in the background through `send`.
 from __future__ import annotations
 
 import copy
+import threading
 from datetime import datetime
 from typing import Any
 from collections.abc import Callable
@@ -90,6 +91,10 @@ class AppController:
         self.trip: TripForm | None = None
         self.stop_id: str | None = None
         self._saved: dict[str, Any] = {}      # trip id -> last Trip record the store returned
+        # trip id -> the form as it was when last in step with the store (what edits are told from)
+        self._base_form: dict[str, TripForm] = {}
+        self._rebased: dict[str, tuple[TripForm, TripForm]] = {}   # save worker -> UI thread
+        self._rebase_lock = threading.Lock()
         self._sites: list[Any] | None = None
         self._other_labels: dict[str, str] | None = None
         self.load_prefs()
@@ -376,6 +381,7 @@ class AppController:
         self._saved[trip_id] = model
         self._other_labels = None
         self.trip = self.bridge.form_from_trip(model)
+        self._base_form[trip_id] = copy.deepcopy(self.trip)
         self.stop_id = None
         return self.trip
 
@@ -718,16 +724,72 @@ class AppController:
             out.append(f"{sym} {word}: post-trip calibration check not entered yet.")
         return out
 
-    def conflict_lines(self) -> list[str]:
-        """Fields two devices changed differently (found by sync), one readable line each."""
-        saved = self._saved.get(self.trip.id) if self.trip else None
+    def conflicts(self) -> list[Any]:
+        """The open trip's open conflicts as people read them (core.rules.conflicts.ConflictView):
+        site and stop, the field's label, each value with its unit, the device's name and when."""
+        from core.rules.conflicts import list_conflicts
+
+        if self.trip is None:
+            return []
+        saved = self._saved.get(self.trip.id)
         if saved is None:
             return []
-        from core.records.merge import describe_conflict
+        return list_conflicts(saved, this_device=self.store.device_id)
 
+    def conflict_lines(self) -> list[str]:
+        """The open conflicts, one line each (the End screen's list of what needs attention)."""
         sym, _ = severity_mark("warning")
-        return [f"{sym} CONFLICT: {describe_conflict(c.model_dump(mode='json'))} — check it and correct the value if needed."
-                for c in saved.open_conflicts]
+        return [f"{sym} CONFLICT: {v.message} Tap the value to keep above." for v in self.conflicts()]
+
+    def settler(self) -> str:
+        """Who settles a conflict on this tablet: the device's name, else the trip's crew."""
+        name = (getattr(self.store, "device_name", None) or "").strip()
+        if not name and self.trip is not None and self.trip.crew.strip():
+            name = f"crew {self.trip.crew.strip()}"
+        return (name or "this tablet")[:80]
+
+    def settle_conflict(self, conflict_id: str, keep: int) -> str | None:
+        """Settles one open conflict of the open trip by keeping its `keep`-th value (1, 2, …),
+        recorded with who and when; returns why not in one sentence, or None. The form is then
+        reloaded from the store, so the next save carries the kept value."""
+        from datetime import timezone
+
+        from core.rules.conflicts import ConflictError, settle
+        from core.store import StoreError
+
+        if self.trip is None:
+            return "No trip is open."
+        self.flush()                       # what was typed is in the store before it is read back
+        by = self.settler()
+        at = self.now().astimezone(timezone.utc)
+        said: dict[str, Any] = {}
+
+        def apply(trip: Any) -> Any:
+            views = {v.id: v for v in self.conflicts_of(trip)}
+            said["view"] = views.get(conflict_id)
+            return settle(trip, conflict_id, keep=keep, by=by, at=at)
+
+        def change() -> str:
+            view = said.get("view")
+            return f"conflict settled (kept value {keep}): " + (view.message if view else "a conflict")
+
+        try:
+            saved = self.store.update_trip(self.trip.id, change, apply, by=by)
+        except ConflictError as exc:
+            return f"Not settled: {exc}."
+        except StoreError as exc:
+            return f"Not settled, nothing was saved: {exc}"
+        stop_id = self.stop_id
+        self._saved[saved.id] = saved
+        self.trip = self.bridge.form_from_trip(saved)
+        self._base_form[saved.id] = copy.deepcopy(self.trip)
+        self.stop_id = stop_id if stop_id and self.trip.stop(stop_id) else None
+        return None
+
+    def conflicts_of(self, trip: Any) -> list[Any]:
+        from core.rules.conflicts import list_conflicts
+
+        return list_conflicts(trip, this_device=self.store.device_id)
 
     # ------------------------------------------------------------------ saving
     def _save_failed(self, exc: BaseException) -> None:
@@ -759,11 +821,18 @@ class AppController:
             previous = self._saved.get(snapshot.id)
             try:
                 saved = self.store.save_trip(self.bridge.trip_from_form(snapshot, previous, self), change)
+                self._base_form[snapshot.id] = snapshot
             except StaleTrip:
-                # changed by another writer (a sync pull, the CLI): put this device's form on the
-                # stored copy; stops only the other writer knows are kept (bridge.trip_from_form)
-                previous = self.store.load_trip(snapshot.id)
-                saved = self.store.save_trip(self.bridge.trip_from_form(snapshot, previous, self), change)
+                # changed by another writer (a sync merge, the office's settlement): only what was
+                # edited here since the form was last in step with the store goes on the stored trip
+                stored = self.store.load_trip(snapshot.id)
+                base = self._base_form.get(snapshot.id)
+                merged = (self.bridge.rebase_form(snapshot, base, self.bridge.form_from_trip(stored))
+                          if base is not None else snapshot)
+                saved = self.store.save_trip(self.bridge.trip_from_form(merged, stored, self), change)
+                self._base_form[snapshot.id] = merged
+                with self._rebase_lock:
+                    self._rebased[snapshot.id] = (snapshot, merged)
             self._saved[snapshot.id] = saved
 
         self.worker.submit(snapshot.id, job)
@@ -774,3 +843,31 @@ class AppController:
         if self.dirty:
             self.save_now()
         return self.worker.flush(timeout)
+
+    def adopt_rebased(self) -> bool:
+        """UI thread: after a save was put on a trip another writer changed, the form shows the
+        merged values too (edits made since that save stay). True when the form changed."""
+        with self._rebase_lock:
+            pending = self._rebased.pop(self.trip.id, None) if self.trip is not None else None
+            self._rebased.clear()
+        if pending is None:
+            return False
+        snapshot, merged = pending
+        self.trip = self.bridge.rebase_form(self.trip, snapshot, merged)
+        return True
+
+    def refresh_from_store(self) -> bool:
+        """UI thread, after a sync: when nothing typed is waiting and the stored trip moved on (a
+        merge), the form shows the stored trip. True when the form was reloaded."""
+        if self.trip is None or self.dirty or not self.worker.flush(0):
+            return False
+        saved = self._saved.get(self.trip.id)
+        stored = self.store.load_trip(self.trip.id)
+        if saved is not None and stored.revision == saved.revision:
+            return False
+        stop_id = self.stop_id
+        self._saved[stored.id] = stored
+        self.trip = self.bridge.form_from_trip(stored)
+        self._base_form[stored.id] = copy.deepcopy(self.trip)
+        self.stop_id = stop_id if stop_id and self.trip.stop(stop_id) else None
+        return True

@@ -7,6 +7,8 @@ restart shows what was typed.
 """
 from __future__ import annotations
 
+import copy
+import dataclasses
 import math
 from datetime import datetime
 from typing import Any
@@ -14,7 +16,7 @@ from typing import Any
 from mobile.app.forms import BottleForm, CalForm, StopForm, TripForm
 
 __all__ = ["site_title", "make_site", "quantity", "stop_document", "stop_record", "stop_problems",
-           "cal_conditions", "cal_reading", "cal_document", "trip_from_form", "form_from_trip",
+           "cal_conditions", "cal_reading", "cal_document", "trip_from_form", "form_from_trip", "rebase_form",
            "KIND_TO_RECORD", "TEMP_UNIT_TEXT"]
 
 TEMP_UNIT_TEXT = {"C": "°C", "F": "°F"}
@@ -317,3 +319,34 @@ def form_from_trip(trip: Any) -> TripForm:
                     started_at=trip.started_at, ended_at=trip.ended_at,
                     started_without_calibration=trip.started_without_calibration,
                     pre_cal=cal(trip.pre_calibration), post_check=cal(trip.post_check), stops=stops)
+
+
+TRIP_FORM_FIELDS = ("program", "crew", "meter_id", "started_at", "ended_at", "started_without_calibration",
+                    "pre_cal", "post_check")
+
+
+def rebase_form(form: TripForm, base: TripForm, theirs: TripForm) -> TripForm:
+    """This device's edits put on a trip another writer changed (a sync merge, the office's
+    correction or settlement): every field where `form` differs from `base` (the form it started
+    from) takes the form's value; every other field takes `theirs`. Stops only this form has are
+    added; stops only `theirs` has are kept."""
+    out = copy.deepcopy(theirs)
+    for name in TRIP_FORM_FIELDS:
+        if getattr(form, name) != getattr(base, name):
+            setattr(out, name, copy.deepcopy(getattr(form, name)))
+    base_stops = {s.id: s for s in base.stops}
+    out_stops = {s.id: i for i, s in enumerate(out.stops)}
+    for stop in form.stops:
+        at = out_stops.get(stop.id)
+        before = base_stops.get(stop.id)
+        if at is None or before is None:
+            if at is None:
+                out.stops.append(copy.deepcopy(stop))
+            else:
+                out.stops[at] = copy.deepcopy(stop)
+            continue
+        target = out.stops[at]
+        for f in dataclasses.fields(stop):
+            if getattr(stop, f.name) != getattr(before, f.name):
+                setattr(target, f.name, copy.deepcopy(getattr(stop, f.name)))
+    return out

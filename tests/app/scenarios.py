@@ -608,6 +608,30 @@ def sync_refuses_secret(p):
     p.app.ctl.flush(10)
 
 
+def settle_conflict(p):
+    """A trip with a conflict: the stop and end screens show its values as buttons; tap the second."""
+    yield 0.1
+    p.app.go("stop")
+    yield 0.3
+    s = p.screen("stop")
+    panel = s.conflict_panel
+    buttons = [w for w in reversed(panel.rows_box.children) if hasattr(w, "conflict_id")]
+    p.note("stop_panel", [panel.count, [b.text for b in buttons], [b.height for b in buttons]])
+    yield from p.shot("stop-conflict")
+    p.app.go("end")
+    yield 0.3
+    e = p.screen("end")
+    p.note("end_count", e.conflict_panel.count)
+    p.app.go("stop")
+    yield 0.3
+    buttons = [w for w in reversed(panel.rows_box.children) if hasattr(w, "conflict_id")]
+    yield from p.tap(buttons[1])
+    yield 0.3
+    p.note("after", [panel.count, panel.message, s.temp_entry.text])
+    yield from p.shot("stop-conflict-settled")
+    p.app.ctl.flush(10)
+
+
 def meter_basis(p):
     """Start a trip whose meter reads % against 760 mmHg (tapping the start screen's toggle), then a stop in %."""
     yield 0.1
