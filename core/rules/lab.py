@@ -739,12 +739,12 @@ def _dup_analyte(b: Bottle) -> str:
 _ANALYTE_OF_HOLDING = {"do_winkler": WINKLER_ANALYTE, "bod": BOD_ANALYTE}
 
 
-def _duplicated_kind(b: Bottle, stop: Stop | None) -> str | None:
+def _duplicated_kind(b: Bottle, stop_bottles: Iterable[Bottle]) -> str | None:
     """The kind of bottle a duplicate duplicates: its ``duplicate_of`` bottle at the stop, else the
     analysis its results are for; None when neither tells (its fixing then decides)."""
     named = getattr(b, "duplicate_of", None) or (b.model_extra or {}).get("duplicate_of")
-    if named and stop is not None:
-        for other in stop.bottles:
+    if named:
+        for other in stop_bottles:
             if other.label == named and other.id != b.id and other.kind != "duplicate":
                 return other.kind
     for r in reversed(b.lab_results):
@@ -755,19 +755,20 @@ def _duplicated_kind(b: Bottle, stop: Stop | None) -> str | None:
     return None
 
 
-def bottle_analysis(b: Bottle, stop: Stop | None = None) -> tuple[str, str] | None:
+def bottle_analysis(b: Bottle, stop_bottles: Iterable[Bottle] = ()) -> tuple[str, str] | None:
     """The analysis a bottle waits for, as ``(analyte, holding-time kind)``; None for a blank.
 
     The holding kind comes from core.science.holding's one table (:func:`bottle_holding_kind`):
     do-fixed → Winkler DO ("do_winkler"); bod → BOD5 ("bod"); a duplicate follows the bottle it
-    duplicates (its ``duplicate_of`` at `stop`, else its results' analysis), else its fixing.
+    duplicates (its ``duplicate_of`` among `stop_bottles`, the bottles of its stop, else its
+    results' analysis), else its fixing.
     """
-    duplicates = _duplicated_kind(b, stop) if b.kind == "duplicate" else None
+    duplicates = _duplicated_kind(b, stop_bottles) if b.kind == "duplicate" else None
     kind = bottle_holding_kind(b.kind, duplicates=duplicates, fixed=b.fixed_at is not None)
     return None if kind is None else (_ANALYTE_OF_HOLDING[kind], kind)
 
 
-def bottle_clock(b: Bottle, now: datetime, *, stop: Stop | None = None,
+def bottle_clock(b: Bottle, now: datetime, *, stop_bottles: Iterable[Bottle] = (),
                  overrides: dict[str, float] | None = None) -> HoldingClock | None:
     """A bottle's holding clock while it waits for the bench, or None when no clock runs.
 
@@ -783,7 +784,7 @@ def bottle_clock(b: Bottle, now: datetime, *, stop: Stop | None = None,
     ValueError
         A bad holding-time override (see :func:`core.science.holding.holding_clock`).
     """
-    pair = bottle_analysis(b, stop)
+    pair = bottle_analysis(b, stop_bottles)
     if pair is None or b.collected_at > now:
         return None
     analyte, kind = pair
@@ -901,7 +902,7 @@ def pending_bottles(trips: Iterable[Trip], now: datetime, settings: LabSettings 
         for stop in trip.stops:
             for b in stop.bottles:
                 try:
-                    clock = bottle_clock(b, now, stop=stop, overrides=settings.holding_overrides_h)
+                    clock = bottle_clock(b, now, stop_bottles=stop.bottles, overrides=settings.holding_overrides_h)
                 except ValueError:
                     continue
                 if clock is None:

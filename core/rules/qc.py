@@ -333,7 +333,7 @@ def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Si
         from core.rules.lab import bottle_clock   # the one holding rule (app, lab commands, QC)
 
         try:
-            clock = bottle_clock(b, now, stop=stop, overrides=settings.holding_overrides_h)
+            clock = bottle_clock(b, now, stop_bottles=stop.bottles, overrides=settings.holding_overrides_h)
         except ValueError:
             clock = None        # a bad SOP override: the settings' own check reports it
         if clock is not None and clock.flag is not None:
