@@ -20,9 +20,10 @@ from collections.abc import Callable, Iterable
 
 from core.records.limits import LimitError, loads_limited
 from core.store.atomic import atomic_write_bytes, canonical_json_bytes
+from core.store.quarantine import quarantine
 from sync import errors
 from sync.layout import canonical_trip_id, revision_name, trip_year
-from sync.merge import describe_conflict
+from core.records.merge import describe_conflict
 from sync.outbox import Outbox, OutboxEntry, hubs
 from sync.reconcile import (BOOKKEEPING_KEYS, contained_names, fold, lacks_ancestor, newest_contained,
                             next_head, same_content)
@@ -205,15 +206,11 @@ def _extra_ancestors(tgt: Target, session: Session, year: str, tid: str, local: 
 def _quarantine(data_dir: Path, f: RemoteFile, data: bytes | None, reason: str) -> Path:
     """A copy of a bad hub file and a report beside it. Bad files are re-checked at every sync
     (never blacklisted), so the copy has one name per hub file and is refreshed, not multiplied."""
-    folder = Path(data_dir) / "sync" / "quarantine"
-    base = folder / f"{f.trip_id}-{f.name}"
-    if data is not None:
-        atomic_write_bytes(base, data)
     report = (f"hub file: trips/{f.year}/{f.trip_id}/{f.name}\nfound: {_now()}\nreason: {reason}\n"
               + ("" if data is not None else "content: not copied (refused before or while reading)\n")
               + "re-checked at every sync until the hub copy is repaired or removed by the office\n")
-    atomic_write_bytes(base.with_name(base.name + ".report.txt"), report.encode("utf-8"))
-    return base
+    return quarantine(Path(data_dir) / "sync" / "quarantine", f"{f.trip_id}-{f.name}", report, data=data,
+                      note_suffix=".report.txt", refresh=True)
 
 
 def _local_failure(exc: BaseException, data_dir: Path) -> errors.LocalWriteError:

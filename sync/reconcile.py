@@ -2,7 +2,7 @@
 device copy, and the ancestor bookkeeping. No I/O, no clock: plain dicts in, plain dicts out.
 
 The engine (`sync.engine`) reads hub files and the store, asks this module what to do with them,
-and writes the results. Ancestry comes from the audit trail (`sync.merge.relation`): a document
+and writes the results. Ancestry comes from the audit trail (`core.records.merge.relation`): a document
 whose audit ids are a subset of another's is contained in it.
 """
 from __future__ import annotations
@@ -10,14 +10,16 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from collections.abc import Iterable, Mapping
 
+from core.records.models import BOOKKEEPING, LOG, keys_by_role
 from core.store.atomic import canonical_json_bytes
-from sync.merge import common_ancestor, history, merge_trips, relation
+from core.records.merge import common_ancestor, history, merge_trips, relation
 
 __all__ = ["BOOKKEEPING_KEYS", "semantic", "same_content", "Fold", "fold", "lacks_ancestor",
            "contained_names", "next_head", "newest_contained"]
 
-#: Fields that change on every save and say nothing about the field work itself.
-BOOKKEEPING_KEYS = frozenset({"revision", "updated_at", "device_id", "audit", "content_hash"})
+#: Fields that change on every save and say nothing about the field work itself (the roles
+#: bookkeeping and log, as declared on the models in core.records.models).
+BOOKKEEPING_KEYS = keys_by_role(BOOKKEEPING, LOG)
 
 
 def semantic(doc: dict) -> bytes:

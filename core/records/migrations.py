@@ -20,6 +20,7 @@ from typing import Any
 from collections.abc import Callable
 
 from core.records.models import SCHEMA_VERSION
+from core.store.errors import InvalidRecord, NewerSchemaError
 
 __all__ = ["migrate", "MIGRATIONS", "CURRENT"]
 
@@ -97,10 +98,9 @@ def migrate(doc: dict[str, Any]) -> dict[str, Any]:
     """The document lifted to the current schema version (the input itself when already current;
     otherwise a lifted copy, the input unchanged).
 
-    Raises core.store.NewerSchemaError for a version newer than this build knows (the stored
-    file is left untouched) and core.store.InvalidRecord when the version is missing or unknown.
+    Raises core.store.errors.NewerSchemaError for a version newer than this build knows (the
+    stored file is left untouched) and InvalidRecord when the version is missing or unknown.
     """
-    from core.store import InvalidRecord, NewerSchemaError
 
     version = doc.get("schema_version")
     if isinstance(version, bool) or not isinstance(version, int):

@@ -4,7 +4,11 @@ from __future__ import annotations
 import json
 import math
 import re
+import types
+import typing
 import uuid
+from dataclasses import dataclass, field
+from functools import cache
 from pathlib import Path
 from typing import Any, Literal
 
@@ -15,9 +19,11 @@ from pydantic_core import PydanticCustomError
 __all__ = [
     "SCHEMA_VERSION", "BOTTLE_KINDS", "WATER_CLASSES", "LIMITS",
     "Quantity", "FlagRecord", "Derived", "Site", "Calibration", "LabResult", "Bottle", "Stop",
-    "AuditEntry", "ConflictSide", "Conflict", "ProgramSettings", "Signature", "CustodyRecord", "Trip",
+    "AuditEntry", "ConflictSide", "Conflict", "ProgramSettings", "Signature", "CustodyRecord", "LabBatch", "Trip",
     "SIGNATURE_LIMITS",
     "InputError", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
+    "INPUT", "DERIVED", "BOOKKEEPING", "LOG", "ROLES", "RoleNode", "role_tree", "paths_by_role",
+    "keys_by_role",
 ]
 
 #: Version of the trip document layout this build writes. core.records.migrations lifts older ones.
@@ -104,6 +110,30 @@ def parse_number(text: str, field: str = "value") -> float:
     if not math.isfinite(value):
         raise InputError("number.not_finite", field, render("number.not_finite", label=label, input=raw))
     return value
+
+
+# --------------------------------------------------------------------------------------------
+# Field roles: declared once on each field, read by the store's diff, derive, merge and sync
+# --------------------------------------------------------------------------------------------
+#: Entered by a person (or brought in with a record): what a save, a diff, a merge and a
+#: conflict are about. A field with no declared role is input.
+INPUT = "input"
+#: Computed from the inputs at save time (core.rules.qc.derive); never typed, never a conflict,
+#: never an audited change — it follows from the inputs.
+DERIVED = "derived"
+#: Kept by the store about the record itself (id, revision, time of the last save, device,
+#: schema version): not content.
+BOOKKEEPING = "bookkeeping"
+#: A grow-only log (the audit trail): merged as a union by id, never a content change by itself.
+LOG = "log"
+ROLES = (INPUT, DERIVED, BOOKKEEPING, LOG)
+
+
+def _role(role: str) -> dict[str, Any]:
+    """The `json_schema_extra` of a field with that role (shows as ``"role"`` in the JSON Schema)."""
+    if role not in ROLES:  # pragma: no cover - a programming mistake
+        raise ValueError(f"role {role!r} is not one of {ROLES}")
+    return {"role": role}
 
 
 # --------------------------------------------------------------------------------------------
@@ -260,12 +290,12 @@ class Calibration(_Record):
     tolerance_mg_l: float | None = None
     notes: str = Field(default="", max_length=2000)
     # derived at save time
-    target_mg_l: float | None = None
-    difference_mg_l: float | None = None
-    accepted: bool | None = None
-    method: str | None = None
-    core_version: str | None = None
-    flags: list[FlagRecord] = Field(default_factory=list)
+    target_mg_l: float | None = Field(None, json_schema_extra=_role(DERIVED))
+    difference_mg_l: float | None = Field(None, json_schema_extra=_role(DERIVED))
+    accepted: bool | None = Field(None, json_schema_extra=_role(DERIVED))
+    method: str | None = Field(None, json_schema_extra=_role(DERIVED))
+    core_version: str | None = Field(None, json_schema_extra=_role(DERIVED))
+    flags: list[FlagRecord] = Field(default_factory=list, json_schema_extra=_role(DERIVED))
 
     @field_validator("temp")
     @classmethod
@@ -340,7 +370,7 @@ class Stop(_Record):
     weather: str = Field(default="", max_length=400)
     flow: str = Field(default="", max_length=400)
     closed_at: AwareDatetime | None = None
-    derived: Derived | None = None
+    derived: Derived | None = Field(None, json_schema_extra=_role(DERIVED))
 
     @field_validator("temp")
     @classmethod
@@ -504,6 +534,33 @@ class CustodyRecord(_Record):
         return self.relinquished_signature is not None and self.received_signature is not None
 
 
+class LabBatch(_Record):
+    """A bench batch: the QC recorded once and applied to every bottle in it.
+
+    BOD: dilution-water blank depletion, the glucose–glutamic acid check, seed controls
+    (``{initial_do_mg_l, final_do_mg_l, seed_ml}`` each), incubation times and temperature.
+    Winkler: the thiosulfate standardisation (``std_titrant_ml`` of titrant on ``std_ml`` of
+    ``std_normality`` bi-iodate, at ``standardised_at``). ``bottle_ids`` are the bottles it covers.
+    """
+
+    id: str = _id_field()
+    name: str = Field(min_length=1, max_length=40)
+    created_at: AwareDatetime
+    analyst: str = Field(default="", max_length=40)
+    bottle_ids: list[str] = Field(default_factory=list)
+    blank_depletion_mg_l: float | None = None
+    gga_bod_mg_l: float | None = None
+    seed_controls: list[dict[str, float]] = Field(default_factory=list)
+    incubation_start: AwareDatetime | None = None
+    incubation_end: AwareDatetime | None = None
+    incubator_temp_c: float | None = None
+    std_titrant_ml: float | None = Field(None, gt=0.0, le=100.0)
+    std_ml: float = Field(20.0, gt=0.0, le=100.0)
+    std_normality: float = Field(0.025, gt=0.0, le=1.0)
+    standardised_at: AwareDatetime | None = None
+    notes: str = Field(default="", max_length=2000)
+
+
 _TRIP_FIELDS: set[str] = set()
 
 
@@ -514,11 +571,12 @@ class Trip(_Record):
     :attr:`extra` and written back unchanged; unknown nested fields are kept in place.
     """
 
-    id: str = Field(default_factory=new_id, pattern=r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")
-    schema_version: int = SCHEMA_VERSION
-    revision: int = Field(default=0, ge=0)
-    updated_at: AwareDatetime | None = None
-    device_id: str = Field(default="", max_length=64)
+    id: str = Field(default_factory=new_id, pattern=r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$",
+                    json_schema_extra=_role(BOOKKEEPING))
+    schema_version: int = Field(SCHEMA_VERSION, json_schema_extra=_role(BOOKKEEPING))
+    revision: int = Field(default=0, ge=0, json_schema_extra=_role(BOOKKEEPING))
+    updated_at: AwareDatetime | None = Field(None, json_schema_extra=_role(BOOKKEEPING))
+    device_id: str = Field(default="", max_length=64, json_schema_extra=_role(BOOKKEEPING))
     program: str = Field(default="", max_length=120)
     crew: list[str] = Field(default_factory=list)
     meter_id: str = Field(default="", max_length=64)
@@ -528,18 +586,24 @@ class Trip(_Record):
     post_check: Calibration | None = None
     stops: list[Stop] = Field(default_factory=list)
     notes: str = Field(default="", max_length=4000)
-    audit: list[AuditEntry] = Field(default_factory=list)
+    audit: list[AuditEntry] = Field(default_factory=list, json_schema_extra=_role(LOG))
+    #: Input: opening and settling conflicts is a decision about the content (it travels and
+    #: counts as a change); sync's merge owns how the list itself is merged.
     conflicts: list[Conflict] = Field(default_factory=list)
     #: Chain of custody of the trip's bottles, in the order entered (optional; absent when empty).
     custody: list[CustodyRecord] = Field(default_factory=list)
+    #: Bench batches whose QC applies to this trip's bottles (optional; absent when empty).
+    lab_batches: list[LabBatch] = Field(default_factory=list)
 
     @model_serializer(mode="wrap")
-    def _omit_empty_custody(self, handler: Any) -> Any:
-        # A trip without hand-offs is written exactly as before the field existed, so older
-        # documents keep their bytes and hashes and nobody's save records a change they never made.
+    def _omit_empty_optional_lists(self, handler: Any) -> Any:
+        # A trip without hand-offs or batches is written exactly as before those fields existed, so
+        # older documents keep their bytes and hashes and no save records a change nobody made.
         data = handler(self)
-        if isinstance(data, dict) and not data.get("custody"):
-            data.pop("custody", None)
+        if isinstance(data, dict):
+            for key in ("custody", "lab_batches"):
+                if not data.get(key):
+                    data.pop(key, None)
         return data
 
     @property
@@ -581,6 +645,97 @@ class Trip(_Record):
         from core.store.atomic import canonical_json_bytes
 
         return cls.model_validate_json(canonical_json_bytes(doc))
+
+
+# --------------------------------------------------------------------------------------------
+# Reading the declared roles
+# --------------------------------------------------------------------------------------------
+@dataclass(frozen=True)
+class RoleNode:
+    """The roles of one record's fields and the nodes of the records nested in them.
+
+    ``node.role(key)`` is the key's role (input for a key no model declares, e.g. a field a
+    newer build added); ``node.child(key)`` the node of the record held in that field (for a
+    list of records, of its elements); both work on plain JSON documents walked key by key.
+    """
+
+    model: str
+    roles: dict[str, str] = field(default_factory=dict)
+    children: dict[str, RoleNode] = field(default_factory=dict)
+
+    def role(self, key: str) -> str:
+        return self.roles.get(key, INPUT)
+
+    def child(self, key: str) -> RoleNode:
+        return self.children.get(key, _LEAF)
+
+    def keys(self, *roles: str) -> frozenset[str]:
+        """This record's field names with one of `roles`."""
+        return frozenset(k for k, r in self.roles.items() if r in roles)
+
+
+_LEAF = RoleNode("(unknown)")
+
+
+def _records_in(annotation: Any) -> list[type[BaseModel]]:
+    """The record classes an annotation holds (through Optional, unions, lists and tuples)."""
+    if isinstance(annotation, type) and issubclass(annotation, BaseModel):
+        return [annotation]
+    origin = typing.get_origin(annotation)
+    if origin in (typing.Union, types.UnionType, list, tuple, typing.Annotated):
+        out: list[type[BaseModel]] = []
+        for arg in typing.get_args(annotation):
+            out.extend(_records_in(arg))
+        return out
+    return []
+
+
+def _field_role(info: Any) -> str:
+    extra = info.json_schema_extra
+    return extra.get("role", INPUT) if isinstance(extra, dict) else INPUT
+
+
+@cache
+def role_tree(model: type[BaseModel] | None = None) -> RoleNode:
+    """The role tree of `model` (default :class:`Trip`), built from the fields' declarations."""
+    model = model or Trip
+    roles: dict[str, str] = {}
+    children: dict[str, RoleNode] = {}
+    for name, info in model.model_fields.items():
+        key = info.alias or name
+        roles[key] = _field_role(info)
+        nested = _records_in(info.annotation)
+        if nested:
+            children[key] = role_tree(nested[0])
+    return RoleNode(model.__name__, roles, children)
+
+
+def paths_by_role(role: str, model: type[BaseModel] | None = None) -> list[str]:
+    """Every field path of `model` (default :class:`Trip`) with that role, e.g.
+    ``"stops[].derived"``; paths inside a field of another role are not listed."""
+    out: list[str] = []
+
+    def walk(m: type[BaseModel], prefix: str) -> None:
+        for name, info in m.model_fields.items():
+            path = f"{prefix}.{name}" if prefix else name
+            r = _field_role(info)
+            if r == role:
+                out.append(path)
+            if r != INPUT:
+                continue
+            for sub in _records_in(info.annotation)[:1]:
+                origin = typing.get_origin(info.annotation)
+                is_list = origin is list or any(typing.get_origin(a) is list
+                                                for a in typing.get_args(info.annotation))
+                walk(sub, path + ("[]" if is_list else ""))
+
+    walk(model or Trip, "")
+    return out
+
+
+def keys_by_role(*roles: str, model: type[BaseModel] | None = None) -> frozenset[str]:
+    """The top-level field names of `model` (default :class:`Trip`) with one of `roles`."""
+    return role_tree(model).keys(*roles)
 
 
 # --------------------------------------------------------------------------------------------

@@ -43,8 +43,11 @@ def _cell(text: str) -> str:
     return text[1:] if text.startswith("'") and text[1:2] in ("=", "+", "-", "@") else text
 
 
-def read_bench_sheet(text: str, *, bottle: str | None = None, name: str = "the sheet") -> BenchSheet:
+def read_bench_sheet(text: str, *, bottle: str | None = None, name: str = "the sheet",
+                     need_dilutions: bool = True) -> BenchSheet:
     """The dilutions of `bottle` (every dilution when None) and all seed controls on the sheet.
+
+    With ``need_dilutions=False`` a sheet of seed controls only is accepted (a batch's QC).
 
     Raises :class:`SheetError` naming ``name``, the line and the column of the first problem.
     """
@@ -106,7 +109,7 @@ def read_bench_sheet(text: str, *, bottle: str | None = None, name: str = "the s
         if nums.get("seed_ml"):
             d["seed_ml"] = nums["seed_ml"]
         dilutions.append(d)
-    if not dilutions:
+    if not dilutions and need_dilutions:
         which = f" for bottle {bottle}" if bottle else ""
         on = f" (bottles on the sheet: {', '.join(labels)})" if labels else ""
         raise SheetError(f"{name} has no dilution rows{which}{on}; accepted: rows of kind {DILUTION} with the"

@@ -40,7 +40,7 @@ __all__ = [
     "LabInputError", "Standardisation", "LabOutcome", "DuplicateCheck", "PendingBottle",
     "analyte_key", "current_result", "find_bottle", "record_winkler", "record_bod", "duplicate_checks",
     "pending_bottles", "relative_percent_difference", "WINKLER_KINDS", "BOD_KINDS", "bottle_analysis",
-    "bottle_clock",
+    "bottle_clock", "add_batch", "batch_for", "batch_qc", "standardisation_of",
 ]
 
 #: Analyte names written by this module; the sample scenario already writes these. Readers match
@@ -171,7 +171,10 @@ def _aware(t: Any, name: str) -> datetime:
 
 
 def _fmt_h(hours: float) -> str:
-    return f"{hours * 60:.0f} min" if abs(hours) < 1 else f"{hours:.1f} h"
+    """A span as a person reads it: minutes under 1 h, hours under 2 days, else days."""
+    if abs(hours) < 1:
+        return f"{hours * 60:.0f} min"
+    return f"{hours:.1f} h" if abs(hours) < 48 else f"{hours / 24:.1f} days"
 
 
 def analyte_key(analyte: str) -> str:
@@ -327,7 +330,8 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
                    normality: float | None = None, standardisation: Standardisation | None = None,
                    bottle_ml: float = 300.0, reagents_ml: float = 2.0, analysed_at: datetime,
                    now: datetime, analyst: str = "", notes: str = "", redo_reason: str | None = None,
-                   settings: LabSettings | None = None, entered: dict[str, Any] | None = None) -> LabOutcome:
+                   settings: LabSettings | None = None, entered: dict[str, Any] | None = None,
+                   batch: Any = None) -> LabOutcome:
     """Appends a Winkler DO result to a do-fixed (or duplicate) bottle of `trip`.
 
     DO = V_titrant · N · 8000 / V_original, V_original = V_titrated · (V_bottle − V_reagents) / V_bottle
@@ -362,6 +366,9 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
         Thresholds (meter tolerance, standardisation age, holding-time overrides).
     entered : dict, optional
         The inputs as the analyst typed them (kept in ``inputs["entered"]``).
+    batch : LabBatch, optional
+        The bench batch: its thiosulfate standardisation is used when neither `normality` nor
+        `standardisation` is given (the batch is named in ``inputs["derived"]["batch"]``).
 
     Returns
     -------
@@ -389,6 +396,8 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
     settings = settings or LabSettings()
     stop, bottle, flags = _analysis_bottle(trip, bottle_ref, WINKLER_KINDS, "not fixed for Winkler",
                                            analysed_at, now, settings)
+    if normality is None and standardisation is None and batch is not None:
+        standardisation = standardisation_of(batch)
     if (normality is None) == (standardisation is None):
         raise LabInputError("normality", "give the titrant normality or its standardisation, not "
                             + ("both" if normality is not None else "neither")
@@ -396,6 +405,8 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
     prev = _redo_check(bottle, WINKLER_ANALYTE, redo_reason, "Winkler DO")
 
     derived: dict[str, Any] = {}
+    if batch is not None:
+        derived["batch"] = {"id": batch.id, "name": batch.name}
     if standardisation is not None:
         try:
             n = float(thiosulfate_normality(standardisation.titrant_ml, standardisation.standard_ml,
@@ -525,7 +536,8 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
                incubation_start: datetime | None = None, incubation_end: datetime | None = None,
                incubator_temp_c: float | None = None, analysed_at: datetime, now: datetime,
                analyst: str = "", notes: str = "", redo_reason: str | None = None,
-               settings: LabSettings | None = None, entered: dict[str, Any] | None = None) -> LabOutcome:
+               settings: LabSettings | None = None, entered: dict[str, Any] | None = None,
+               batch: Any = None) -> LabOutcome:
     """Appends a BOD5 result (from a dilution series) to a bod (or duplicate) bottle of `trip`.
 
     BOD5 is the mean of the valid dilutions (:func:`core.science.bod.bod_from_dilutions`; a dilution counts
@@ -549,6 +561,9 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
         Incubator temperature, °C (20 ± 1 accepted).
     analysed_at, now, analyst, notes, redo_reason, settings, entered
         As in :func:`record_winkler`.
+    batch : LabBatch, optional
+        The bench batch the bottle was set up in: its blank, GGA check, seed controls and incubation
+        fill whatever is not given here (the batch is named in ``inputs["derived"]["batch"]``).
 
     Returns
     -------
@@ -570,6 +585,18 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
                                            analysed_at, now, settings)
     prev = _redo_check(bottle, BOD_ANALYTE, redo_reason, "BOD5")
     derived: dict[str, Any] = {}
+    if batch is not None:
+        derived["batch"] = {"id": batch.id, "name": batch.name}
+        if seed_controls is None and batch.seed_controls:
+            seed_controls = [dict(c) for c in batch.seed_controls]
+        if blank_depletion_mg_l is None:
+            blank_depletion_mg_l = batch.blank_depletion_mg_l
+        if gga_bod_mg_l is None:
+            gga_bod_mg_l = batch.gga_bod_mg_l
+        if incubation_start is None and incubation_end is None:
+            incubation_start, incubation_end = batch.incubation_start, batch.incubation_end
+        if incubator_temp_c is None:
+            incubator_temp_c = batch.incubator_temp_c
 
     dil = dilutions
     if seed_controls is not None:
@@ -915,3 +942,152 @@ def pending_bottles(trips: Iterable[Trip], now: datetime, settings: LabSettings 
                     clock.expired, status, clock.rule.hours, clock.rule.citation, clock.flag))
     out.sort(key=lambda p: (p.expired, p.remaining_s if not p.expired else -p.remaining_s, p.label))
     return out
+
+
+# --------------------------------------------------------------------------------------------
+# Bench batches: QC recorded once, applied to every bottle of the batch
+# --------------------------------------------------------------------------------------------
+def standardisation_of(batch: Any) -> Standardisation | None:
+    """The batch's thiosulfate standardisation, or None when it has none."""
+    if batch is None or batch.std_titrant_ml is None:
+        return None
+    return Standardisation(titrant_ml=batch.std_titrant_ml, standard_ml=batch.std_ml,
+                           standard_normality=batch.std_normality, standardised_at=batch.standardised_at)
+
+
+def batch_for(trip: Trip, bottle: Bottle) -> Any:
+    """The latest bench batch of `trip` that covers `bottle` (None when none does)."""
+    hits = [b for b in trip.lab_batches if bottle.id in b.bottle_ids]
+    return hits[-1] if hits else None
+
+
+def batch_qc(batch: Any, now: datetime, settings: LabSettings | None = None) -> dict[str, Any]:
+    """The batch's QC in words and numbers: each check's value, verdict and flag; the titrant's age in days.
+
+    Checks: dilution-water blank ≤ 0.20 mg/L and GGA 198 ± 30.5 mg/L (Standard Methods 5210 B,
+    :mod:`core.science.bod`), seed uptake per mL from the seed controls, incubation 5 d ± 6 h, the
+    thiosulfate normality from its bi-iodate standardisation and its age at `now` (a note past
+    ``settings.standardisation_max_age_h``).
+    """
+    from core.science.bod import blank_check, gga_check, incubation_check, seed_uptake_per_ml
+    from core.science.winkler import thiosulfate_normality
+
+    settings = settings or LabSettings()
+    out: dict[str, Any] = {"id": batch.id, "name": batch.name, "bottles": len(batch.bottle_ids), "checks": []}
+
+    def check(name: str, value: Any, flag: Flag | None, shown: str) -> None:
+        out["checks"].append({"check": name, "value": value, "shown": shown,
+                              "verdict": "missing" if value is None else ("passes" if flag is None else "fails"),
+                              "flag": None if flag is None else flag.to_dict()})
+
+    v = batch.blank_depletion_mg_l
+    check("dilution-water blank", v, None if v is None else blank_check(v),
+          "not recorded" if v is None else f"{v:.2f} mg/L depletion")
+    v = batch.gga_bod_mg_l
+    check("glucose–glutamic acid", v, None if v is None else gga_check(v),
+          "not recorded" if v is None else f"{v:.1f} mg/L")
+    if batch.seed_controls:
+        try:
+            s = float(seed_uptake_per_ml(batch.seed_controls))
+            check("seed controls", s, None, f"{s:.3f} mg/L per mL of seed ({len(batch.seed_controls)} controls)")
+        except ValueError as exc:
+            check("seed controls", None, _flag("lab.seed_controls", Severity.WARNING, str(exc).splitlines()[0],
+                                               "Check the seed control readings.", "seed_controls"),
+                  "no usable control")
+    if batch.incubation_start is not None and batch.incubation_end is not None:
+        h = (batch.incubation_end - batch.incubation_start).total_seconds() / 3600.0
+        check("incubation", h, incubation_check(batch.incubation_start, batch.incubation_end), _fmt_h(h))
+    std = standardisation_of(batch)
+    if std is not None:
+        n = float(thiosulfate_normality(std.titrant_ml, std.standard_ml, std.standard_normality))
+        out["normality"] = n
+        age_flag = None
+        if std.standardised_at is not None:
+            age_h = (now - std.standardised_at).total_seconds() / 3600.0
+            out["standardisation_age_days"] = age_h / 24.0
+            if age_h > settings.standardisation_max_age_h:
+                age_flag = _flag("lab.standardisation_old", Severity.NOTE,
+                                 f"The thiosulfate was standardised {_fmt_h(age_h)} ago, more than the"
+                                 f" {settings.standardisation_max_age_h:g} h the lab's setting allows.",
+                                 "Standardise the titrant again and record the new normality.", "standardised_at")
+            shown = f"{n:.4f} N, standardised {age_h / 24.0:.1f} days ago"
+        else:
+            shown = f"{n:.4f} N (no standardisation date)"
+        check("thiosulfate standardisation", n, age_flag, shown)
+    return out
+
+
+def add_batch(trip: Trip, *, name: str, bottle_refs: Iterable[str], created_at: datetime, now: datetime,
+              analyst: str = "", blank_depletion_mg_l: float | None = None, gga_bod_mg_l: float | None = None,
+              seed_controls: list[dict] | None = None, incubation_start: datetime | None = None,
+              incubation_end: datetime | None = None, incubator_temp_c: float | None = None,
+              standardisation: Standardisation | None = None, notes: str = "") -> tuple[Trip, Any]:
+    """The trip with a bench batch added (or replaced, by name): QC entered once for all its bottles.
+
+    Raises :class:`LabInputError` naming the input: an empty name, no or unknown bottles, a bad QC
+    value (the same ranges as :func:`record_bod` and :func:`record_winkler` accept).
+    """
+    from core.records.models import LabBatch
+    from core.science.bod import blank_check, gga_check, seed_uptake_per_ml
+    from core.science.winkler import thiosulfate_normality
+
+    name = (name or "").strip()
+    if not name or len(name) > 40:
+        raise LabInputError("name", "batch name is empty or longer than 40 characters; accepted: e.g. B-0623")
+    _aware(created_at, "created_at")
+    _aware(now, "now")
+    refs = [r.strip() for r in bottle_refs if r and r.strip()]
+    if not refs:
+        raise LabInputError("bottle", "the batch has no bottles; accepted: the labels of the bottles set up in it")
+    ids: list[str] = []
+    for ref in refs:
+        _, b, _ = find_bottle(trip, ref)
+        if b.id not in ids:
+            ids.append(b.id)
+    for value, field_, fn in ((blank_depletion_mg_l, "blank_depletion_mg_l", blank_check),
+                              (gga_bod_mg_l, "gga_bod_mg_l", gga_check)):
+        if value is not None:
+            try:
+                fn(value)
+            except ValueError as exc:
+                raise LabInputError(field_, str(exc).splitlines()[0]) from None
+    if seed_controls:
+        try:
+            seed_uptake_per_ml(seed_controls)
+        except ValueError as exc:
+            raise LabInputError("seed_controls", f"seed_controls: {str(exc).splitlines()[0]}") from None
+    if incubator_temp_c is not None:
+        _num(incubator_temp_c, "incubator_temp_c", -10.0, 60.0, "°C")
+    if (incubation_start is None) != (incubation_end is None):
+        raise LabInputError("incubation_start" if incubation_start is None else "incubation_end",
+                            "incubation start and end go together; accepted: both times or neither")
+    if incubation_start is not None and incubation_end is not None and incubation_end <= incubation_start:
+        raise LabInputError("incubation_end", "the incubation ends before it starts; accepted: a read-out after"
+                                              " the set-up")
+    if standardisation is not None:
+        try:
+            thiosulfate_normality(standardisation.titrant_ml, standardisation.standard_ml,
+                                  standardisation.standard_normality)
+        except ValueError as exc:
+            msg = str(exc).splitlines()[0]
+            raise LabInputError("standardisation." + msg.split(" ", 1)[0], "standardisation " + msg) from None
+        if standardisation.standardised_at is not None:
+            _aware(standardisation.standardised_at, "standardised_at")
+            if standardisation.standardised_at > now + timedelta(minutes=5):
+                raise LabInputError("standardised_at", "the standardisation time is in the future; accepted: a time"
+                                                       " up to now")
+    batch = LabBatch(name=name, created_at=created_at, analyst=(analyst or "").strip()[:40], bottle_ids=ids,
+                     blank_depletion_mg_l=blank_depletion_mg_l, gga_bod_mg_l=gga_bod_mg_l,
+                     seed_controls=[{k: float(v) for k, v in c.items()} for c in (seed_controls or [])],
+                     incubation_start=incubation_start, incubation_end=incubation_end,
+                     incubator_temp_c=incubator_temp_c,
+                     std_titrant_ml=standardisation.titrant_ml if standardisation else None,
+                     std_ml=standardisation.standard_ml if standardisation else 20.0,
+                     std_normality=standardisation.standard_normality if standardisation else 0.025,
+                     standardised_at=standardisation.standardised_at if standardisation else None,
+                     notes=(notes or "").strip())
+    kept = [b for b in trip.lab_batches if b.name != name]
+    same = [b for b in trip.lab_batches if b.name == name]
+    if same:
+        batch = batch.model_copy(update={"id": same[0].id})
+    return trip.model_copy(update={"lab_batches": kept + [batch]}), batch

@@ -36,7 +36,8 @@ from typing import Any
 from collections.abc import Iterable
 
 from core.flags import Flag, Severity
-from core.records.models import (Calibration, Derived, FlagRecord, ProgramSettings, Site, Stop, Trip)
+from core.records.models import (DERIVED, Calibration, Derived, FlagRecord, ProgramSettings, Site, Stop, Trip,
+                                 keys_by_role)
 
 __all__ = ["TRIP_KEY", "RULE_CODES", "derive", "derive_trip", "derive_document", "derive_basis", "derive_stop", "derive_calibration",
            "stop_flags", "trip_flags", "trip_level_flags", "core_version"]
@@ -173,6 +174,7 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
     if previous is not None:
         old_stops = {s["id"]: s for s in previous.get("stops") or [] if isinstance(s, dict) and "id" in s}
     bases = {} if bases is None else bases
+    derived_keys = keys_by_role(DERIVED, model=Stop)
     new_stops: list[Stop] = []
     for stop, stop_doc in zip(trip.stops, doc["stops"], strict=True):
         site = sites.get(stop.site_id)
@@ -183,7 +185,7 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
         if (old is not None and isinstance(old.get("derived"), dict)
                 and old["derived"].get("basis") == basis
                 and len(old) == len(stop_doc)
-                and all(old.get(k) == v for k, v in stop_doc.items() if k != "derived")):
+                and all(old.get(k) == v for k, v in stop_doc.items() if k not in derived_keys)):
             if stop_doc.get("derived") == old["derived"]:
                 new_stops.append(stop)
             else:

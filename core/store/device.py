@@ -1,260 +1,73 @@
-"""The device store: one small TinyDB file per trip, a small index, one save path, a lock, quarantine.
+"""The device store: trips, sites and settings of one device behind one save path and a lock.
 
 Layout of a data folder::
 
     device.json         this device's id
-    trips/<trip>.json   one TinyDB file per trip (table "trip", document 1 = the trip document)
-    index/<trip>.json   the trip's summary (what `list_trips` shows), rewritten after the trip file;
-                        a checked cache (it names the trip file version it was made from)
-    sites.json          TinyDB, table "sites" (one document per site)
-    settings.json       TinyDB, table "settings" (document 1 = program settings)
-    quarantine/         unreadable files, moved here and never overwritten
+    trips/<trip>.json   one TinyDB file per trip (core.store.trips)
+    index/<trip>.json   the trip's summary (core.store.index), a checked cache
+    sites.json          TinyDB, table "sites" (core.store.tables)
+    settings.json       TinyDB, table "settings" (core.store.tables)
+    quarantine/         unreadable files, moved here and never overwritten (core.store.quarantine)
     .lock               inter-process lock (filelock)
 
 Every write of data goes through core.store.atomic.atomic_write_bytes (temporary file, fsync,
-``os.replace``, fsync of the folder; :class:`AtomicJSONStorage` is TinyDB's storage on top of
-it), so a reader or a crash sees the old file or the new one, never a part. Index entries are
-replaced atomically without fsync: they are rebuilt from the trip files when outdated.
-A save costs the same whatever the number of trips: it rewrites one trip file and one summary.
-Every trip change goes through one funnel (:meth:`DeviceStore._commit`): validate → derive →
-compare → audit → write.
+``os.replace``, fsync of the folder), so a reader or a crash sees the old file or the new one,
+never a part. A save costs the same whatever the number of trips: it rewrites one trip file
+and one summary. Every trip change goes through one funnel (:meth:`DeviceStore._commit`):
+validate → derive → compare → audit → write.
 """
 from __future__ import annotations
 
 import hashlib
 import json
 import os
-import re
 import tempfile
 import threading
-import time
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
-from dataclasses import asdict, dataclass, field
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
-from collections.abc import Callable, Iterator
 
 from filelock import FileLock, Timeout
 from pydantic import ValidationError
-from tinydb import TinyDB
-from tinydb.storages import Storage
-from tinydb.table import Document
 
-from core.store.atomic import atomic_write_bytes, canonical_json_bytes, content_hash
 from core.records.messages import Problem, one_line, problems_from_validation
-from core.records.models import SCHEMA_VERSION, AuditEntry, ProgramSettings, Site, Stop, Trip, new_id
+from core.records.migrations import migrate
+from core.records.models import (
+    BOOKKEEPING,
+    SCHEMA_VERSION,
+    AuditEntry,
+    ProgramSettings,
+    Site,
+    Stop,
+    Trip,
+    keys_by_role,
+    new_id,
+)
+from core.store.atomic import atomic_write_bytes, canonical_json_bytes
+from core.store.audit import diff_paths, merge_audit
+from core.store.errors import (
+    CorruptFile,
+    InvalidRecord,
+    NewerSchemaError,
+    StaleTrip,
+    StoreError,
+    StoreLocked,
+    StoreWriteError,
+    TripNotFound,
+)
+from core.store.index import FileKey, SummaryIndex, TripSummary
 from core.store.paths import resolve_data_dir
+from core.store.quarantine import quarantine, utc_stamp
+from core.store.tables import Tables
+from core.store.trips import SAFE_ID, TripFiles, Unreadable
 
-__all__ = [
-    "StoreError", "StoreLocked", "NewerSchemaError", "TripNotFound", "InvalidRecord", "StaleTrip",
-    "StoreWriteError",
-    "CorruptFile", "TripSummary", "AtomicJSONStorage", "DeviceStore", "diff_paths",
-]
-
-
-# --------------------------------------------------------------------------------------------
-# Errors
-# --------------------------------------------------------------------------------------------
-class StoreError(Exception):
-    """Root of every device-store error; str() is one sentence a person can act on."""
-
-
-class StoreLocked(StoreError):
-    """Another process (the app, a command-line sync) holds the store's lock for too long."""
-
-
-class NewerSchemaError(StoreError):
-    """A document written by a newer build than this one; it is left untouched."""
-
-    def __init__(self, message: str, found: int | None = None, known: int = SCHEMA_VERSION):
-        super().__init__(message)
-        self.found = found
-        self.known = known
-
-
-class TripNotFound(StoreError):
-    """No trip with that id on this device."""
-
-
-class InvalidRecord(StoreError):
-    """A record failed validation; `problems` holds every finding (code, field, label, message)."""
-
-    def __init__(self, message: str, problems: list[Problem] | None = None):
-        super().__init__(message)
-        self.problems = list(problems or [])
-
-
-class StoreWriteError(StoreError):
-    """The disk refused a write (full, read-only, removed); the stored file is unchanged."""
-
-
-class StaleTrip(StoreError):
-    """The trip was changed (by another save or a sync) since this copy was loaded."""
-
-
-def _json_file(raw: bytes, error: type[Exception]) -> Any:
-    """The JSON in a store file's bytes; `error` (with a plain reason) for an empty or broken one."""
-    if not raw.strip():
-        raise error("the file is empty")
-    try:
-        return json.loads(raw)
-    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
-        raise error(f"the file is not valid JSON ({exc})") from None
-
-
-class _Unreadable(Exception):
-    """Internal: a trip file that does not parse (the reason is the message)."""
-
-
-class CorruptFile(StoreError):
-    """A stored file could not be read; it was moved to quarantine (see `path`)."""
-
-    def __init__(self, message: str, path: Path | None = None):
-        super().__init__(message)
-        self.path = path
-
-
-# --------------------------------------------------------------------------------------------
-# TinyDB storage that never leaves a half-written file
-# --------------------------------------------------------------------------------------------
-class AtomicJSONStorage(Storage):
-    """TinyDB storage: `read()` parses the file (None when absent); `write()` replaces it atomically.
-
-    Unlike TinyDB's JSONStorage it never rewrites a file in place: each write goes to a temporary
-    file that is fsynced, moved over the old one with ``os.replace``, and the folder fsynced.
-    A file that does not parse raises ``ValueError`` (the store quarantines it).
-    """
-
-    def __init__(self, path: str | Path, **_: Any):
-        super().__init__()
-        self.path = Path(path)
-
-    def read(self) -> dict[str, Any] | None:
-        try:
-            raw = self.path.read_bytes()
-        except FileNotFoundError:
-            return None
-        data = _json_file(raw, ValueError)
-        if not isinstance(data, dict):
-            raise ValueError("the file does not hold a table map")
-        return data
-
-    def write(self, data: dict[str, Any]) -> None:
-        atomic_write_bytes(self.path, canonical_json_bytes(data))
-
-    def close(self) -> None:
-        pass
-
-
-def _tinydb(path: Path) -> TinyDB:
-    return TinyDB(path, storage=AtomicJSONStorage)
-
-
-# --------------------------------------------------------------------------------------------
-# Summaries and diffs
-# --------------------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class TripSummary:
-    """What the trip list shows, read from the small index (times are ISO 8601 text)."""
-
-    id: str
-    program: str
-    crew: list[str]
-    started_at: str
-    ended_at: str | None
-    revision: int
-    status: str
-    stop_count: int
-    updated_at: str | None
-    content_hash: str
-    schema_version: int = SCHEMA_VERSION
-    open_conflicts: int = 0
-    bottle_labels: list[str] = field(default_factory=list)
-
-    def to_dict(self) -> dict[str, Any]:
-        return asdict(self)
-
-
-def _summary_of(doc: dict[str, Any], digest: str | None = None) -> TripSummary:
-    stops = doc.get("stops") or []
-    conflicts = [c for c in (doc.get("conflicts") or []) if not c.get("resolved_at")]
-    if conflicts:
-        status = "needs attention"
-    elif doc.get("schema_version", 0) > SCHEMA_VERSION:
-        status = "newer build"
-    else:
-        status = "in progress" if not doc.get("ended_at") else "ended"
-    labels = [b.get("label", "") for s in stops for b in (s.get("bottles") or [])]
-    return TripSummary(
-        id=doc["id"], program=doc.get("program", ""), crew=list(doc.get("crew") or []),
-        started_at=doc.get("started_at", ""), ended_at=doc.get("ended_at"),
-        revision=int(doc.get("revision", 0)), status=status, stop_count=len(stops),
-        updated_at=doc.get("updated_at"), content_hash=digest or content_hash(doc),
-        schema_version=int(doc.get("schema_version", 0)), open_conflicts=len(conflicts),
-        bottle_labels=labels)
-
-
-_BOOKKEEPING = ("revision", "updated_at")
-_NOT_CHANGES = {"revision", "updated_at", "audit", "derived", "flags", "target_mg_l",
-                "difference_mg_l", "accepted", "method", "core_version"}
-
-
-def _content(doc: dict[str, Any]) -> dict[str, Any]:
-    return {k: v for k, v in doc.items() if k not in _BOOKKEEPING}
-
-
-def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[str]:
-    """Field paths that differ between two documents; list elements are matched by `id`.
-
-    Paths look like ``stops[<id>].temp``; derived values and bookkeeping are left out
-    (they follow from the inputs). At most `limit` paths.
-    """
-    out: list[str] = []
-
-    def walk(a: Any, b: Any, path: str) -> None:
-        if len(out) >= limit or a == b:
-            return
-        if isinstance(a, dict) and isinstance(b, dict) and ("id" in a or "id" in b or not path):
-            # Records (with an id) are walked field by field; values such as a quantity are
-            # reported as one path ("stops[<id>].temp"), which keeps audit entries short.
-            for key in sorted(set(a) | set(b)):
-                if key in _NOT_CHANGES:
-                    continue
-                walk(a.get(key), b.get(key), f"{path}.{key}" if path else key)
-            return
-        if (isinstance(a, list) and isinstance(b, list)
-                and all(isinstance(x, dict) and "id" in x for x in a + b)):
-            old_by = {x["id"]: x for x in a}
-            new_by = {x["id"]: x for x in b}
-            for key in list(old_by) + [k for k in new_by if k not in old_by]:
-                walk(old_by.get(key), new_by.get(key), f"{path}[{key}]")
-            return
-        out.append(path or "(document)")
-
-    walk(old, new, prefix)
-    return out
+__all__ = ["DeviceStore"]
 
 
 def _migrated(doc: dict[str, Any]) -> dict[str, Any]:
-    from core.records.migrations import migrate
-
     return migrate(doc)
-
-
-def _replace_unsynced(path: Path, data: bytes) -> None:
-    """Temporary file → ``os.replace``, without fsync: for the index, a checked cache only."""
-    atomic_write_bytes(path, data, durable=False)
-
-
-def _merge_audit(stored: list[dict[str, Any]], incoming: list[dict[str, Any]]) -> list[dict[str, Any]]:
-    """Stored entries in their order, then incoming entries not yet stored (by id), oldest first."""
-    known = {e.get("id") for e in stored}
-    extra = [e for e in incoming if e.get("id") not in known]
-    if not extra:
-        return list(stored)
-    extra.sort(key=lambda e: (str(e.get("at", "")), str(e.get("id", ""))))
-    return list(stored) + extra
 
 
 def _non_finite_problems(doc: Any) -> list[Problem]:
@@ -281,11 +94,14 @@ def _non_finite_problems(doc: Any) -> list[Problem]:
     return out
 
 
-_SAFE_ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")
+def _content(doc: dict[str, Any]) -> dict[str, Any]:
+    """A trip document without its bookkeeping (id, revision, time of the last save, ...)."""
+    bookkeeping = keys_by_role(BOOKKEEPING)
+    return {k: v for k, v in doc.items() if k not in bookkeeping}
 
 
 def _utcnow() -> datetime:
-    return datetime.now(timezone.utc)
+    return datetime.now(UTC)
 
 
 # --------------------------------------------------------------------------------------------
@@ -311,14 +127,11 @@ class DeviceStore:
         self._quarantine_dir = self.data_dir / "quarantine"
         self._lock = FileLock(str(self.data_dir / ".lock"), timeout=lock_timeout_s)
         self._tlock = threading.RLock()
-        self._sites_cache: tuple[tuple[int, int], dict[str, Site]] | None = None
+        self._files = TripFiles(self._trips_dir)
+        self._index = SummaryIndex(self._index_dir)
+        self._tables = Tables(self.data_dir, self._quarantine)
         self._finalizer: Any = None     # in_memory(): removes the temporary folder with the store
-        self._settings_cache: tuple[tuple[int, int], ProgramSettings] | None = None
-        self._cache: dict[str, tuple[bytes, bytes, dict[str, Any]]] = {}
         self._bases: tuple[Any, dict[str, str]] = (None, {})
-        # Summaries this process has read or written, by trip id, with the trip file's
-        # (inode, mtime, size) they belong to: a listing then costs one stat per trip.
-        self._summaries: dict[str, tuple[tuple[int, int, int], TripSummary]] = {}
 
     # -- opening ---------------------------------------------------------------------------
     @classmethod
@@ -422,19 +235,7 @@ class DeviceStore:
 
     # -- quarantine ------------------------------------------------------------------------
     def _quarantine(self, path: Path, reason: str) -> Path:
-        self._quarantine_dir.mkdir(parents=True, exist_ok=True)
-        stamp = time.strftime("%Y%m%dT%H%M%S", time.gmtime())
-        target = self._quarantine_dir / f"{path.name}.{stamp}"
-        n = 1
-        while target.exists():
-            n += 1
-            target = self._quarantine_dir / f"{path.name}.{stamp}.{n}"
-        try:
-            os.replace(path, target)
-        except FileNotFoundError:
-            return target
-        atomic_write_bytes(target.with_name(target.name + ".reason.txt"), (reason + "\n").encode())
-        return target
+        return quarantine(self._quarantine_dir, f"{path.name}.{utc_stamp()}", reason, source=path)
 
     def quarantined(self) -> list[Path]:
         """Files moved aside because they could not be read (oldest first), by name."""
@@ -443,9 +244,7 @@ class DeviceStore:
 
     # -- reading trips ---------------------------------------------------------------------
     def _trip_path(self, trip_id: str) -> Path:
-        if not isinstance(trip_id, str) or not _SAFE_ID.match(trip_id):
-            raise TripNotFound(f"No trip with id {trip_id!r} on this device (ids are letters, digits, '-', '_', '.').")
-        return self._trips_dir / f"{trip_id}.json"
+        return self._files.path(trip_id)
 
     def _corrupt(self, path: Path, reason: str, seen: bytes | None = None) -> CorruptFile | None:
         """Quarantines an unreadable trip file — under the lock, and only if it still holds the
@@ -459,8 +258,8 @@ class DeviceStore:
                 except FileNotFoundError:
                     return None
             target = self._quarantine(path, reason)
-            (self._index_dir / path.name).unlink(missing_ok=True)
-            self._cache.pop(path.stem, None)
+            self._index.drop(path.stem)
+            self._files.forget(path.stem)
         return CorruptFile(f"The trip file {path.name} could not be read ({reason}); it was moved to"
                            f" {target} and the rest of the store keeps working.", target)
 
@@ -476,38 +275,17 @@ class DeviceStore:
             try:
                 file_bytes = path.read_bytes()
             except FileNotFoundError:
-                self._cache.pop(trip_id, None)
+                self._files.forget(trip_id)
                 return None
-            hit = self._cache.get(trip_id)
-            if hit is not None and hit[0] == file_bytes:
-                return hit[1], hit[2]
             try:
-                raw, doc = self._parse_trip_file(trip_id, file_bytes)
-            except _Unreadable as bad:
+                raw, doc = self._files.read(trip_id, file_bytes)
+            except Unreadable as bad:
                 err = self._corrupt(path, str(bad), file_bytes)
                 if err is None:
                     continue
                 raise err from None
-            if len(self._cache) > 64:
-                self._cache.clear()
-            self._cache[trip_id] = (file_bytes, raw, doc)
             return raw, doc
         raise StoreError(f"The trip file {path.name} keeps changing while being read; try again.")
-
-    @staticmethod
-    def _parse_trip_file(trip_id: str, file_bytes: bytes) -> tuple[bytes, dict[str, Any]]:
-        data = _json_file(file_bytes, _Unreadable)
-        table = data.get("trip") if isinstance(data, dict) else None
-        doc = table.get("1") if isinstance(table, dict) else None
-        if not isinstance(doc, dict):
-            raise _Unreadable("no trip document inside")
-        if doc.get("id") != trip_id:
-            raise _Unreadable(f"the id inside is {doc.get('id')!r}")
-        try:
-            raw = canonical_json_bytes(doc)
-        except ValueError as exc:
-            raise _Unreadable(str(exc)) from None
-        return raw, doc
 
     def _read_trip_doc_raw(self, trip_id: str) -> dict[str, Any] | None:
         """The stored document as written (no migration), None when absent; quarantines junk."""
@@ -515,8 +293,6 @@ class DeviceStore:
         return None if got is None else got[1]
 
     def _load(self, trip_id: str) -> tuple[Trip, dict[str, Any]]:
-        from core.records.migrations import migrate
-
         got = self._read_trip_file(trip_id)
         if got is None:
             raise TripNotFound(f"No trip {trip_id} on this device; see 'streamtab trip list'.")
@@ -529,7 +305,7 @@ class DeviceStore:
             reason = "failed validation: " + (one_line(probs) if probs else str(exc))
             path = self._trip_path(trip_id)
             seen = b'{"trip":{"1":' + raw_bytes[:-1] + b"}}\n"
-            hit = self._cache.get(trip_id)
+            hit = self._files.cached(trip_id)
             err = self._corrupt(path, reason, hit[0] if hit is not None else seen)
             if err is None:
                 return self._load(trip_id)
@@ -573,28 +349,16 @@ class DeviceStore:
         with os.scandir(self._trips_dir) as entries:  # one stat per trip, no Path objects
             for entry in entries:
                 trip_id = entry.name[:-5]
-                if not entry.name.endswith(".json") or not _SAFE_ID.match(trip_id):
+                if not entry.name.endswith(".json") or not SAFE_ID.match(trip_id):
                     continue
                 try:
                     st = entry.stat()
                 except FileNotFoundError:
                     continue
                 keys[trip_id] = (st.st_ino, st.st_mtime_ns, st.st_size)
-        with os.scandir(self._index_dir) as entries:
-            for entry in entries:
-                if entry.name.endswith(".json") and entry.name[:-5] not in keys:
-                    Path(entry.path).unlink(missing_ok=True)  # the trip file is gone (quarantined)
+        self._index.prune(keys)
         for trip_id, key in keys.items():
-            memo = self._summaries.get(trip_id)
-            summary = memo[1] if memo is not None and memo[0] == key else None
-            if summary is None:
-                try:
-                    data = json.loads((self._index_dir / f"{trip_id}.json").read_bytes())
-                    if data.get("file") == list(key):
-                        summary = TripSummary(**data["summary"])
-                        self._summaries[trip_id] = (key, summary)
-                except (OSError, ValueError, TypeError, KeyError, AttributeError):
-                    summary = None
+            summary = self._index.get(trip_id, key)
             if summary is None:
                 try:
                     got = self._read_trip_file(trip_id)
@@ -602,12 +366,12 @@ class DeviceStore:
                     continue
                 if got is None:
                     continue
-                summary = self._write_summary(got[1], None, self._file_key(trip_id))
+                summary = self._index.write(got[1], None, self._file_key(trip_id))
             out.append(summary)
         out.sort(key=lambda s: (s.started_at, s.id), reverse=True)
         return out
 
-    def _file_key(self, trip_id: str) -> tuple[int, int, int] | None:
+    def _file_key(self, trip_id: str) -> FileKey | None:
         try:
             st = self._trip_path(trip_id).stat()
         except FileNotFoundError:
@@ -649,8 +413,6 @@ class DeviceStore:
         trip is returned. Otherwise it is written with revision max(stored, incoming) + 1 and an
         audit entry. Raises InvalidRecord, NewerSchemaError (nothing written), StoreLocked.
         """
-        from core.records.migrations import migrate
-
         if not isinstance(doc, dict):
             raise InvalidRecord("A trip document must be a JSON object.")
         checked = self._validate_doc(migrate(doc))
@@ -672,8 +434,6 @@ class DeviceStore:
         raises StaleTrip when the stored revision is not `expected_revision`, InvalidRecord
         (nothing written), NewerSchemaError, StoreLocked.
         """
-        from core.records.migrations import migrate
-
         if not isinstance(doc, dict):
             raise InvalidRecord("A trip document must be a JSON object.")
         if migrate(doc) is not doc:
@@ -693,22 +453,20 @@ class DeviceStore:
                     return None
                 if canonical_json_bytes(stored) == doc_bytes:
                     return checked
-            self._write_trip_bytes(json.loads(doc_bytes), doc_bytes)
+            self._write_trip_bytes(json.loads(doc_bytes), doc_bytes, exists=stored is not None)
         return checked
 
-    def _write_trip_bytes(self, new_doc: dict[str, Any], doc_bytes: bytes) -> None:
+    def _write_trip_bytes(self, new_doc: dict[str, Any], doc_bytes: bytes, *, exists: bool = True) -> None:
         """Writes one trip document (its canonical bytes) and its summary. Lock held."""
         path = self._trip_path(new_doc["id"])
-        # The TinyDB layout {"trip": {"1": doc}}, byte for byte what AtomicJSONStorage.write gives.
-        file_bytes = b'{"trip":{"1":' + doc_bytes[:-1] + b"}}\n"
         try:
-            atomic_write_bytes(path, file_bytes)
+            self._files.write(new_doc, doc_bytes, exists=exists)
         except OSError as exc:
+            self._files.forget(new_doc["id"])
             raise StoreWriteError(f"Could not write {path.name} ({exc.strerror or exc}); the stored trip"
                                   " is unchanged — free space or check the storage, then save again.") from None
-        self._cache[new_doc["id"]] = (file_bytes, doc_bytes, new_doc)
-        self._write_summary(new_doc, "sha256:" + hashlib.sha256(doc_bytes).hexdigest(),
-                            self._file_key(new_doc["id"]))
+        self._index.write(new_doc, "sha256:" + hashlib.sha256(doc_bytes).hexdigest(),
+                          self._file_key(new_doc["id"]))
 
     def save_stop(self, trip_id: str, stop: Stop, change: str | None = None) -> Trip:
         """Adds or replaces (by id) one stop of a stored trip, through the same save path.
@@ -747,8 +505,6 @@ class DeviceStore:
                                 int(stored.get("revision", 0)))
 
     def _stored_or_none(self, trip_id: str) -> dict[str, Any] | None:
-        from core.records.migrations import migrate
-
         raw = self._read_trip_doc_raw(trip_id)
         if raw is None:
             return None
@@ -788,8 +544,7 @@ class DeviceStore:
 
         sites = self.sites_by_id()
         settings = self.settings()
-        bases_key = (self._sites_cache[0] if self._sites_cache else None,
-                     self._settings_cache[0] if self._settings_cache else None)
+        bases_key = self._tables.basis_key()
         if self._bases[0] != bases_key:
             self._bases = (bases_key, {})
         new_doc, derived = derive(trip, sites, settings, previous=stored, bases=self._bases[1])
@@ -801,10 +556,10 @@ class DeviceStore:
         incoming_audit = new_doc.get("audit") or []
         if stored is not None:
             # The audit trail is append-only: entries already stored are never dropped.
-            new_doc["audit"] = _merge_audit(stored.get("audit") or [], incoming_audit)
+            new_doc["audit"] = merge_audit(stored.get("audit") or [], incoming_audit)
         if stored is not None and _content(stored) == _content(new_doc):
             return Trip.from_document(stored)
-        now = self._clock().astimezone(timezone.utc)
+        now = self._clock().astimezone(UTC)
         revision = base_revision + 1
         entry = AuditEntry(at=now, device_id=self.device_id, change=str(change)[:400] or "saved",
                            revision=revision,
@@ -815,7 +570,7 @@ class DeviceStore:
         new_doc["revision"] = revision
         new_doc["updated_at"] = entry_doc["at"]
         doc_bytes = canonical_json_bytes(new_doc)
-        self._write_trip_bytes(new_doc, doc_bytes)
+        self._write_trip_bytes(new_doc, doc_bytes, exists=stored is not None)
         if not same_audit:
             return Trip.model_validate_json(doc_bytes)
         # `derived` was validated from JSON in this call and shares nothing with the caller.
@@ -823,58 +578,9 @@ class DeviceStore:
             "device_id": device_id, "schema_version": SCHEMA_VERSION, "revision": revision,
             "updated_at": entry.at, "audit": list(derived.audit) + [entry]})
 
-    def _write_summary(self, doc: dict[str, Any], digest: str | None,
-                       key: tuple[int, int, int] | None) -> TripSummary:
-        """Writes a trip's summary. The index is a cache of the trip files, checked against
-        them on every read (see :meth:`list_trips`), so it is replaced atomically but not
-        fsynced: a summary lost or torn by a power cut is rebuilt, and a save costs two fsyncs
-        (the trip file and its folder) instead of four."""
-        summary = _summary_of(doc, digest)
-        if key is not None:
-            self._summaries[doc["id"]] = (key, summary)
-        data = canonical_json_bytes({"summary": summary.to_dict(), "file": list(key) if key else None})
-        try:
-            _replace_unsynced(self._index_dir / f"{doc['id']}.json", data)
-        except OSError:
-            pass  # the index is a checked cache: a missing entry is rebuilt on the next listing
-        return summary
-
     # -- sites and settings ----------------------------------------------------------------
-    @staticmethod
-    def _stamp(path: Path) -> tuple[int, int]:
-        try:
-            st = path.stat()
-            return (st.st_mtime_ns, st.st_size)
-        except FileNotFoundError:
-            return (0, 0)
-
-    def _read_table(self, name: str, path: Path) -> dict[str, Any]:
-        try:
-            data = AtomicJSONStorage(path).read()
-        except ValueError as exc:
-            target = self._quarantine(path, str(exc))
-            raise CorruptFile(f"The file {path.name} could not be read ({exc}); it was moved to {target}.",
-                              target) from None
-        return (data or {}).get(name, {}) or {}
-
     def sites_by_id(self) -> dict[str, Site]:
-        path = self.data_dir / "sites.json"
-        stamp = self._stamp(path)
-        if self._sites_cache is not None and self._sites_cache[0] == stamp:
-            return dict(self._sites_cache[1])
-        try:
-            table = self._read_table("sites", path)
-        except CorruptFile:
-            table = {}
-        sites: dict[str, Site] = {}
-        for doc in table.values():
-            try:
-                site = Site.model_validate_json(canonical_json_bytes(doc))
-            except (ValidationError, ValueError):
-                continue
-            sites[site.id] = site
-        self._sites_cache = (stamp, sites)
-        return dict(sites)
+        return self._tables.sites_by_id()
 
     def sites(self) -> list[Site]:
         """Every site, by id."""
@@ -893,50 +599,13 @@ class DeviceStore:
             except ValidationError as exc:
                 probs = problems_from_validation(exc)
                 raise InvalidRecord(one_line(probs), probs) from None
-        path = self.data_dir / "sites.json"
         with self._locked():
-            data = AtomicJSONStorage(path).read() or {}
-            table = dict(data.get("sites") or {})
-            by_site = {doc.get("id"): key for key, doc in table.items()}
-            next_key = max((int(k) for k in table), default=0) + 1
-            for site in checked:
-                key = by_site.get(site.id)
-                if key is None:
-                    key = str(next_key)
-                    next_key += 1
-                    by_site[site.id] = key
-                table[key] = site.model_dump(mode="json")
-            data["sites"] = table
-            try:
-                AtomicJSONStorage(path).write(data)
-            except OSError as exc:
-                raise StoreWriteError(f"Could not write sites.json ({exc.strerror or exc}); the site list"
-                                      " is unchanged.") from None
-            self._sites_cache = None
+            self._tables.write_sites(checked)
         return checked
 
     def settings(self) -> ProgramSettings:
         """The program settings (defaults until saved)."""
-        path = self.data_dir / "settings.json"
-        stamp = self._stamp(path)
-        if self._settings_cache is not None and self._settings_cache[0] == stamp:
-            return self._settings_cache[1]
-        try:
-            table = self._read_table("settings", path)
-        except CorruptFile:
-            table = {}
-        doc = table.get("1")
-        settings = ProgramSettings()
-        if doc is not None:
-            if int(doc.get("schema_version", 0)) > SCHEMA_VERSION:
-                raise NewerSchemaError("The settings were saved by a newer streamtab; update this one.",
-                                       doc.get("schema_version"))
-            try:
-                settings = ProgramSettings.model_validate_json(canonical_json_bytes(doc))
-            except (ValidationError, ValueError):
-                settings = ProgramSettings()
-        self._settings_cache = (stamp, settings)
-        return settings
+        return self._tables.settings()
 
     def save_settings(self, s: ProgramSettings) -> ProgramSettings:
         """Replaces the program settings."""
@@ -946,13 +615,7 @@ class DeviceStore:
             probs = problems_from_validation(exc)
             raise InvalidRecord(one_line(probs), probs) from None
         with self._locked():
-            try:
-                _tinydb(self.data_dir / "settings.json").table("settings").upsert(
-                    Document(checked.model_dump(mode="json"), doc_id=1))
-            except OSError as exc:
-                raise StoreWriteError(f"Could not write settings.json ({exc.strerror or exc}); the settings"
-                                      " are unchanged.") from None
-            self._settings_cache = None
+            self._tables.write_settings(checked)
         return checked
 
     # -- checks ----------------------------------------------------------------------------

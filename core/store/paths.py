@@ -4,7 +4,7 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
-__all__ = ["resolve_data_dir", "is_store", "ENV_VAR"]
+__all__ = ["ENV_VAR", "is_store", "resolve_data_dir"]
 
 ENV_VAR = "STREAMTAB_DATA"
 

@@ -645,7 +645,7 @@ class AppController:
         saved = self._saved.get(self.trip.id) if self.trip else None
         if saved is None:
             return []
-        from sync.merge import describe_conflict
+        from core.records.merge import describe_conflict
 
         sym, _ = severity_mark("warning")
         return [f"{sym} CONFLICT: {describe_conflict(c.model_dump(mode='json'))} — check it and correct the value if needed."

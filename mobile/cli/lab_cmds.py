@@ -137,7 +137,7 @@ def _flag_rows(flags: list[dict]) -> list[tuple[str, str]]:
 
 
 def _winkler(args) -> int:  # noqa: ANN001
-    from core.rules.lab import CAUTION, LabInputError, Standardisation, record_winkler
+    from core.rules.lab import CAUTION, WINKLER_KINDS, LabInputError, Standardisation, record_winkler
 
     ml = ("mL", "ml")
     titrant = _number(args.titrant_ml, "--titrant-ml", "thiosulfate used in mL, 0 to 100", ml)
@@ -145,8 +145,8 @@ def _winkler(args) -> int:  # noqa: ANN001
                                                            " (usually 201)", ml)
     bottle_ml = _number(args.bottle_ml, "--bottle-ml", "bottle volume in mL, above 0 (usually 300)", ml)
     reagents = _number(args.reagents_ml, "--reagents-ml", "total fixing reagents in mL, 0 or more (usually 2)", ml)
-    if (args.normality is None) == (args.std_titrant_ml is None):
-        fail("--normality and --std-titrant-ml: give exactly one; accepted: --normality in eq/L (usually 0.025)"
+    if args.normality is not None and args.std_titrant_ml is not None:
+        fail("--normality and --std-titrant-ml: give one, not both; accepted: --normality in eq/L (usually 0.025)"
              " or --std-titrant-ml (thiosulfate used on the bi-iodate standard, mL)")
     normality = _number(args.normality, "--normality", "titrant normality in eq/L, above 0 to 1 (usually 0.025)",
                         ("N",))
@@ -166,10 +166,17 @@ def _winkler(args) -> int:  # noqa: ANN001
     store = _store(args)
     settings = _settings(args, store)
     trip = _trip(store, args.trip)
+    batch = _batch(trip, args.bottle, WINKLER_KINDS)
+    if args.normality is None and args.std_titrant_ml is None and (batch is None or batch.std_titrant_ml is None):
+        fail("--normality or --std-titrant-ml is needed (the bottle's bench batch has no standardisation);"
+             " accepted: --normality in eq/L (usually 0.025) or --std-titrant-ml, or record the batch's"
+             " standardisation with 'streamtab lab batch'")
     entered = {"titrant_ml": args.titrant_ml, "titrated_ml": args.titrated_ml, "bottle_ml": args.bottle_ml,
                "reagents_ml": args.reagents_ml}
     if args.normality is not None:
         entered["normality"] = args.normality
+    elif args.std_titrant_ml is None:
+        entered["batch"] = batch.name
     else:
         entered.update(std_titrant_ml=args.std_titrant_ml, std_ml=args.std_ml, std_normality=args.std_normality,
                        standardised_at=args.standardised_at)
@@ -177,7 +184,7 @@ def _winkler(args) -> int:  # noqa: ANN001
         out = record_winkler(trip, args.bottle, titrant_ml=titrant, titrated_ml=titrated, normality=normality,
                              standardisation=std, bottle_ml=bottle_ml, reagents_ml=reagents, analysed_at=at,
                              now=now, analyst=args.analyst or "", notes=args.notes or "", redo_reason=args.redo,
-                             settings=settings, entered=entered)
+                             settings=settings, entered=entered, batch=batch)
     except LabInputError as exc:
         raise _lab_error(exc) from None
     who = f" ({out.result.analyst})" if out.result.analyst else ""
@@ -238,6 +245,90 @@ def _read_dilutions(path_text: str) -> tuple[Any, Any]:
     return doc, controls
 
 
+def _batch(trip, bottle_ref: str, kinds: tuple[str, ...]):  # noqa: ANN001
+    """The bench batch covering the bottle (None when none does, or the label is not found: the
+    recording call then says what is wrong with the label)."""
+    from core.rules.lab import LabInputError, batch_for, find_bottle
+
+    try:
+        _, bottle, _ = find_bottle(trip, bottle_ref, kinds)
+    except LabInputError:
+        return None
+    return batch_for(trip, bottle)
+
+
+def _batch_cmd(args) -> int:  # noqa: ANN001
+    """Records a bench batch's QC once; 'lab bod' and 'lab winkler' apply it to the batch's bottles."""
+    from core.rules.lab import LabInputError, Standardisation, add_batch, batch_qc
+
+    mg = ("mg/L", "mg/l")
+    ml = ("mL", "ml")
+    blank = _number(args.blank_depletion, "--blank-depletion", "dilution-water blank depletion in mg/L"
+                                                               " (≤ 0.20 passes)", mg)
+    gga = _number(args.gga, "--gga", "glucose–glutamic acid check BOD5 in mg/L (198 ± 30.5 passes)", mg)
+    temp = _number(args.incubator_temp, "--incubator-temp", "incubator temperature in °C (20 ± 1)", ("°C", "C"))
+    start = _time(args.incubation_start, "--incubation-start")
+    end = _time(args.incubation_end, "--incubation-end")
+    controls = None
+    if args.seed_sheet is not None:
+        from core.rules.bench import SheetError, read_bench_sheet
+
+        try:
+            raw = Path(args.seed_sheet).read_text(encoding="utf-8")
+        except (OSError, UnicodeDecodeError) as exc:
+            fail(f"--seed-sheet {args.seed_sheet!r} cannot be read ({type(exc).__name__}); accepted: a bench sheet"
+                 " CSV with seed control rows")
+        try:
+            controls = read_bench_sheet(raw, name=f"--seed-sheet {Path(args.seed_sheet).name}",
+                                        need_dilutions=False).seed_controls
+        except SheetError as exc:
+            fail(str(exc))
+        if not controls:
+            fail(f"--seed-sheet {args.seed_sheet!r} has no seed control rows; accepted: rows of kind 'seed control'")
+    std = None
+    if args.std_titrant_ml is not None:
+        std = Standardisation(
+            titrant_ml=_number(args.std_titrant_ml, "--std-titrant-ml", "thiosulfate used on the standard in mL,"
+                                                                        " above 0 to 100", ml),
+            standard_ml=_number(args.std_ml, "--std-ml", "bi-iodate standard taken in mL, above 0 (usually 20)", ml),
+            standard_normality=_number(args.std_normality, "--std-normality", "standard normality in eq/L, above 0"
+                                                                              " to 1 (usually 0.025)", ("N",)),
+            standardised_at=_time(args.standardised_at, "--standardised-at"))
+    now = datetime.now(timezone.utc)
+    store = _store(args)
+    settings = _settings(args, store)
+    trip = _trip(store, args.trip)
+    refs = [r for r in (args.bottles or "").split(",") if r.strip()]
+    try:
+        new_trip, batch = add_batch(trip, name=args.name, bottle_refs=refs, created_at=now, now=now,
+                                    analyst=args.analyst or "", blank_depletion_mg_l=blank, gga_bod_mg_l=gga,
+                                    seed_controls=controls, incubation_start=start, incubation_end=end,
+                                    incubator_temp_c=temp, standardisation=std, notes=args.notes or "")
+    except LabInputError as exc:
+        field = {"name": "--name", "bottle": "--bottles", "seed_controls": "--seed-sheet"}.get(exc.field)
+        raise (CliError(f"{field}: {exc.message}") if field else _lab_error(exc)) from None
+    from core.store import StoreError
+
+    try:
+        saved = store.save_trip(new_trip, f"lab: batch {batch.name} ({len(batch.bottle_ids)} bottles)")
+    except StoreError as exc:
+        fail(f"nothing was saved: {exc}")
+    qc = batch_qc(batch, now, settings)
+    labels = [b.label for s in saved.stops for b in s.bottles if b.id in set(batch.bottle_ids)]
+    if args.json:
+        emit_json({"trip_id": saved.id, "revision": saved.revision, "batch": batch.model_dump(mode="json"),
+                   "bottles": labels, "qc": qc})
+        return 0
+    rows = [("trip", f"{saved.id[:8]} (revision {saved.revision})"), ("batch", batch.name),
+            ("bottles", ", ".join(labels))]
+    for c in qc["checks"]:
+        rows.append((c["check"], f"{c['shown']} — {c['verdict']}"))
+        if c["flag"]:
+            rows.append(("flag", f"[{c['flag']['severity']}] {c['flag']['message']}"))
+    emit_table(rows)
+    return 0
+
+
 def _read_sheet(path_text: str, bottle: str) -> tuple[Any, Any]:
     from core.rules.bench import SheetError, read_bench_sheet
 
@@ -256,7 +347,7 @@ def _read_sheet(path_text: str, bottle: str) -> tuple[Any, Any]:
 
 
 def _bod(args) -> int:  # noqa: ANN001
-    from core.rules.lab import LabInputError, record_bod
+    from core.rules.lab import BOD_KINDS, LabInputError, record_bod
 
     if (args.dilutions is None) == (args.sheet is None):
         fail("give the dilutions as --sheet FILE.csv (a bench sheet) or --dilutions FILE.json, one of the two")
@@ -288,7 +379,8 @@ def _bod(args) -> int:  # noqa: ANN001
         out = record_bod(trip, args.bottle, dilutions=dilutions, seed_controls=controls, blank_depletion_mg_l=blank,
                          gga_bod_mg_l=gga, incubation_start=start, incubation_end=end, incubator_temp_c=temp,
                          analysed_at=at, now=now, analyst=args.analyst or "", notes=args.notes or "",
-                         redo_reason=args.redo, settings=settings, entered=entered)
+                         redo_reason=args.redo, settings=settings, entered=entered,
+                         batch=_batch(trip, args.bottle, BOD_KINDS))
     except LabInputError as exc:
         raise _lab_error(exc) from None
     shown = "no valid dilution" if out.result.value is None else f"{out.result.value:.1f} mg/L"
@@ -532,6 +624,29 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     p.add_argument("--incubator-temp", metavar="C", help="incubator temperature, °C")
     _common(p)
     p.set_defaults(handler=_bod)
+
+    p = lab_sub.add_parser("batch", help="record a bench batch's QC once; it applies to every bottle in the batch",
+                           description="Batch QC (Standard Methods 5210 B and 4500-O C): dilution-water blank, GGA"
+                                       " check, seed controls, incubation, thiosulfate standardisation. 'lab bod' and"
+                                       " 'lab winkler' then use it for the batch's bottles. Recording a batch under"
+                                       " the same name again replaces it.")
+    p.add_argument("trip", metavar="TRIP_ID", help="trip id, or its first 8 characters")
+    p.add_argument("--name", required=True, help="batch name, e.g. B-0623")
+    p.add_argument("--bottles", metavar="LABEL,...", required=True, help="bottle labels set up in the batch")
+    p.add_argument("--analyst", help="analyst's initials")
+    p.add_argument("--blank-depletion", metavar="MG_L", help="dilution-water blank depletion, mg/L")
+    p.add_argument("--gga", metavar="MG_L", help="glucose–glutamic acid check result, mg/L")
+    p.add_argument("--seed-sheet", metavar="FILE.csv", help="a bench sheet whose seed control rows are the batch's")
+    p.add_argument("--incubation-start", metavar="ISO-TIME", help="when the bottles were set up")
+    p.add_argument("--incubation-end", metavar="ISO-TIME", help="when they were read after 5 days")
+    p.add_argument("--incubator-temp", metavar="C", help="incubator temperature, °C")
+    p.add_argument("--std-titrant-ml", help="thiosulfate used on the bi-iodate standard, mL")
+    p.add_argument("--std-ml", default="20", help="bi-iodate standard taken, mL (default 20)")
+    p.add_argument("--std-normality", default="0.025", help="bi-iodate standard normality, eq/L (default 0.025)")
+    p.add_argument("--standardised-at", metavar="ISO-TIME", help="when the thiosulfate was standardised")
+    p.add_argument("--notes", help="notes kept with the batch")
+    _common(p)
+    p.set_defaults(handler=_batch_cmd)
 
     p = lab_sub.add_parser("sheet", help="a blank BOD bench sheet to print (.pdf) or fill in (.csv)",
                            description="A bench sheet with the batch QC boxes and one row per dilution. With"

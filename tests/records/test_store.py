@@ -348,7 +348,7 @@ def test_conflicts_make_the_trip_need_attention(store):
 
 
 def test_write_failure_leaves_stored_trip_and_says_so(store, monkeypatch):
-    import core.store.device as cs
+    import core.store.storage as cs
     from core.store import StoreWriteError
 
     trip = store.save_trip(make_trip([make_stop()]), "x")

@@ -1,6 +1,6 @@
 """Two tablets editing the same trip, pushing in both orders: every change reaches the hub, a
 field changed on both sides comes back as a readable conflict, and the final documents agree
-whichever device pushed first (three-way merge by element id; sync/merge.py)."""
+whichever device pushed first (three-way merge by element id; core/records/merge.py)."""
 import pytest
 
 import sync

@@ -1,4 +1,4 @@
-"""Pure merging of trip JSON documents: elements of lists merge by `id`, clashes become `conflicts`.
+"""Pure three-way merging of trip JSON documents: elements of lists merge by `id`, clashes become `conflicts`.
 
 No I/O, no clock. ``merge_trips(base, a, b)`` is a three-way merge when the common ancestor
 `base` is known and a two-way one (``base=None``) when it is not. It gives the same document
@@ -17,7 +17,8 @@ Rules, applied at every level of the document:
   recorded in a new entry of the trip's ``conflicts`` list, and the trip needs attention;
 * bookkeeping fields are not conflicts: ``revision`` and ``updated_at`` take the larger value,
   ``device_id`` the preferred side's, ``audit`` is the union ordered by time, and values the
-  store derives again on save (``DERIVED_KEYS``) follow the preferred side.
+  store derives again on save follow the preferred side. Which field is input, derived,
+  bookkeeping or log is read from the roles declared on the models (core.records.models).
 
 Ancestry comes from the audit trail the store appends on every save: a document whose audit ids
 are a subset of another's is its ancestor (see `relation`).
@@ -30,19 +31,20 @@ from dataclasses import dataclass, field
 from typing import Any
 from collections.abc import Iterable
 
+from core.records.models import BOOKKEEPING, DERIVED, LOG, RoleNode, keys_by_role, role_tree
 from core.store.atomic import content_hash
 
 __all__ = [
     "MergeResult", "merge_trips", "relation", "history", "common_ancestor",
-    "DERIVED_KEYS", "describe_conflict", "CONFLICT_NAMESPACE",
+    "describe_conflict", "CONFLICT_NAMESPACE",
 ]
 
-#: Keys whose values the store recomputes from the inputs on every save.
-DERIVED_KEYS = frozenset({"derived", "flags", "content_hash", "core_version", "target_mg_l",
-                          "difference_mg_l", "accepted"})
-#: Top-level bookkeeping keys handled outside the generic rules.
-_BOOKKEEPING = frozenset({"id", "revision", "updated_at", "device_id", "schema_version", "audit",
-                          "conflicts"})
+
+def _outside_generic_rules() -> frozenset[str]:
+    """Top-level keys merged by their own rules: bookkeeping, the audit log, and the conflicts
+    list (this merge's own output)."""
+    return keys_by_role(BOOKKEEPING, LOG) | {"conflicts"}
+
 #: uuid5 namespace for conflict ids, so the same clash found twice gets the same id.
 CONFLICT_NAMESPACE = uuid.UUID("6f1c3f52-2a4e-4d35-9a43-3c1f0e5b7d21")
 _TIME_KEYS = ("at", "when", "timestamp", "time", "created_at", "recorded_at")
@@ -109,7 +111,9 @@ class _Merger:
         self.a, self.b, self.pref_a = a, b, pref_a
         self.conflicts: list[dict] = []
 
-    def value(self, path: str, base: Any, va: Any, vb: Any, *, derived: bool = False) -> Any:
+    def value(self, path: str, base: Any, va: Any, vb: Any, *, derived: bool = False,
+              node: RoleNode | None = None) -> Any:
+        node = node or role_tree()
         if _eq(va, vb):
             return va
         if base is not UNKNOWN:
@@ -123,9 +127,9 @@ class _Merger:
             return va
         if isinstance(va, dict) and isinstance(vb, dict) and not (_atomic(va) or _atomic(vb)):
             sub_base = base if isinstance(base, dict) else (UNKNOWN if base is UNKNOWN else {})
-            return self.mapping(path, sub_base, va, vb, derived=derived)
+            return self.mapping(path, sub_base, va, vb, derived=derived, node=node)
         if _is_id_list(va) and _is_id_list(vb):
-            return self.id_list(path, base, va, vb, derived=derived)
+            return self.id_list(path, base, va, vb, derived=derived, node=node)
         kept = (va if self.pref_a else vb)
         if kept is MISSING:
             kept = vb if kept is va else va
@@ -134,7 +138,8 @@ class _Merger:
         return kept
 
     def mapping(self, path: str, base: Any, a: dict, b: dict, *, derived: bool = False,
-                skip: Iterable[str] = ()) -> dict:
+                skip: Iterable[str] = (), node: RoleNode | None = None) -> dict:
+        node = node or role_tree()
         out: dict = {}
         skip = set(skip)
         for key in sorted(set(a) | set(b)):
@@ -143,12 +148,13 @@ class _Merger:
             vbase = UNKNOWN if base is UNKNOWN else base.get(key, MISSING)
             sub = f"{path}.{key}" if path else key
             r = self.value(sub, vbase, a.get(key, MISSING), b.get(key, MISSING),
-                           derived=derived or key in DERIVED_KEYS)
+                           derived=derived or node.role(key) == DERIVED, node=node.child(key))
             if r is not MISSING:
                 out[key] = r
         return out
 
-    def id_list(self, path: str, base: Any, a: list, b: list, *, derived: bool = False) -> list:
+    def id_list(self, path: str, base: Any, a: list, b: list, *, derived: bool = False,
+                node: RoleNode | None = None) -> list:
         amap: dict[str, dict] = {}
         for e in a:
             amap.setdefault(e["id"], e)
@@ -175,7 +181,7 @@ class _Merger:
             pa, pb = (ea, eb) if self.pref_a else (eb, ea)
             any_elem = pa if pa is not MISSING else pb
             ebase = UNKNOWN if basemap is None else basemap.get(eid, MISSING)
-            r = self.value(f"{path}[{_hint(any_elem)}]", ebase, ea, eb, derived=derived)
+            r = self.value(f"{path}[{_hint(any_elem)}]", ebase, ea, eb, derived=derived, node=node)
             if r is not MISSING:
                 out.append(r)
         return out
@@ -283,7 +289,7 @@ def merge_trips(base: dict | None, a: dict, b: dict) -> MergeResult:
     pref_a = _pref_key(a) >= _pref_key(b)
     m = _Merger(a, b, pref_a)
     root_base: Any = UNKNOWN if base is None else base
-    out = m.mapping("", root_base, a, b, skip=_BOOKKEEPING)
+    out = m.mapping("", root_base, a, b, skip=_outside_generic_rules(), node=role_tree())
     pref, other = (a, b) if pref_a else (b, a)
     out["id"] = a.get("id")
     for key in ("revision", "updated_at", "schema_version"):
@@ -302,7 +308,7 @@ def merge_trips(base: dict | None, a: dict, b: dict) -> MergeResult:
     # conflicts: merged like any id list (a resolved one removed on one side stays removed) + new
     base_conf = UNKNOWN if base is None else (base.get("conflicts") or [])
     conf = m.value("conflicts", base_conf, list(a.get("conflicts") or []),
-                   list(b.get("conflicts") or []), derived=True)
+                   list(b.get("conflicts") or []), derived=True, node=role_tree().child("conflicts"))
     conf = [] if conf is MISSING else list(conf)
     known = {c.get("id") for c in conf if isinstance(c, dict)}
     for c in m.conflicts:

@@ -1,12 +1,12 @@
 """Merging trip documents by element id: one-sided changes win, two-sided clashes are kept as
-conflicts, and the result does not depend on the order of the sides (rules: sync/merge.py;
+conflicts, and the result does not depend on the order of the sides (rules: core/records/merge.py;
 three-way merge by element identity is common practice in file synchronisers)."""
 import copy
 
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from sync.merge import common_ancestor, merge_trips, relation
+from core.records.merge import common_ancestor, merge_trips, relation
 
 TRIP = "5f0901de-c1b3-4a79-aaa5-95b642d7d1c1"
 STOP_IDS = [f"00000000-0000-4000-8000-00000000000{i}" for i in range(5)]

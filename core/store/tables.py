@@ -1,0 +1,143 @@
+"""The sites and program-settings tables: two small TinyDB files beside the trips.
+
+``sites.json`` holds table "sites" (one document per site); ``settings.json`` holds table
+"settings" (document 1 = the program settings). Reads are cached by the file's (mtime, size);
+writes go through TinyDB's own API on :class:`core.store.storage.AtomicJSONStorage`. The
+caller (the device store) holds its lock around writes and validates the records first.
+"""
+from __future__ import annotations
+
+from collections.abc import Callable, MutableMapping
+from pathlib import Path
+from typing import Any
+
+from pydantic import ValidationError
+from tinydb import TinyDB
+from tinydb.middlewares import CachingMiddleware
+from tinydb.table import Document
+
+from core.records.models import SCHEMA_VERSION, ProgramSettings, Site
+from core.store.atomic import canonical_json_bytes
+from core.store.errors import CorruptFile, NewerSchemaError, StoreWriteError
+from core.store.storage import AtomicJSONStorage, open_tinydb
+
+__all__ = ["Tables"]
+
+Stamp = tuple[int, int]
+
+
+def _stamp(path: Path) -> Stamp:
+    try:
+        st = path.stat()
+        return (st.st_mtime_ns, st.st_size)
+    except FileNotFoundError:
+        return (0, 0)
+
+
+def _replace_with(new: dict[str, Any]) -> Callable[[MutableMapping[Any, Any]], None]:
+    """A TinyDB update that replaces a document's fields (keys it no longer has are dropped)."""
+    def replace(doc: MutableMapping[Any, Any]) -> None:
+        doc.clear()
+        doc.update(new)
+    return replace
+
+
+class Tables:
+    """The site list and the program settings of one data folder."""
+
+    def __init__(self, data_dir: Path, quarantine: Callable[[Path, str], Path]):
+        self.sites_path = Path(data_dir) / "sites.json"
+        self.settings_path = Path(data_dir) / "settings.json"
+        self._quarantine = quarantine
+        self._sites_cache: tuple[Stamp, dict[str, Site]] | None = None
+        self._settings_cache: tuple[Stamp, ProgramSettings] | None = None
+
+    def basis_key(self) -> tuple[Stamp | None, Stamp | None]:
+        """The versions of the two files last read (what derived values were computed with)."""
+        return (self._sites_cache[0] if self._sites_cache else None,
+                self._settings_cache[0] if self._settings_cache else None)
+
+    def _read_table(self, name: str, path: Path) -> dict[str, Any]:
+        try:
+            data = AtomicJSONStorage(path).read()
+        except ValueError as exc:
+            target = self._quarantine(path, str(exc))
+            raise CorruptFile(f"The file {path.name} could not be read ({exc}); it was moved to {target}.",
+                              target) from None
+        return (data or {}).get(name, {}) or {}
+
+    # -- sites -------------------------------------------------------------------------------
+    def sites_by_id(self) -> dict[str, Site]:
+        stamp = _stamp(self.sites_path)
+        if self._sites_cache is not None and self._sites_cache[0] == stamp:
+            return dict(self._sites_cache[1])
+        try:
+            table = self._read_table("sites", self.sites_path)
+        except CorruptFile:
+            table = {}
+        sites: dict[str, Site] = {}
+        for doc in table.values():
+            try:
+                site = Site.model_validate_json(canonical_json_bytes(doc))
+            except (ValidationError, ValueError):
+                continue
+            sites[site.id] = site
+        self._sites_cache = (stamp, sites)
+        return dict(sites)
+
+    def write_sites(self, checked: list[Site]) -> None:
+        """Adds or replaces sites by id in one atomic write (lock held by the caller)."""
+        # TinyDB's write cache gathers every insert and update; one flush writes the file once
+        # (all or nothing).
+        cached = CachingMiddleware(AtomicJSONStorage)
+        cached.WRITE_CACHE_SIZE = 1 << 30
+        db = TinyDB(self.sites_path, storage=cached)
+        table = db.table("sites")
+        by_site = {doc.get("id"): doc.doc_id for doc in table.all()}
+        try:
+            for site in checked:
+                doc = site.model_dump(mode="json")
+                key = by_site.get(site.id)
+                if key is None:
+                    by_site[site.id] = table.insert(doc)
+                else:
+                    table.update(_replace_with(doc), doc_ids=[key])
+            cached.flush()
+        except OSError as exc:
+            raise StoreWriteError(f"Could not write sites.json ({exc.strerror or exc}); the site list"
+                                  " is unchanged.") from None
+        finally:
+            self._sites_cache = None
+
+    # -- settings ----------------------------------------------------------------------------
+    def settings(self) -> ProgramSettings:
+        stamp = _stamp(self.settings_path)
+        if self._settings_cache is not None and self._settings_cache[0] == stamp:
+            return self._settings_cache[1]
+        try:
+            table = self._read_table("settings", self.settings_path)
+        except CorruptFile:
+            table = {}
+        doc = table.get("1")
+        settings = ProgramSettings()
+        if doc is not None:
+            if int(doc.get("schema_version", 0)) > SCHEMA_VERSION:
+                raise NewerSchemaError("The settings were saved by a newer streamtab; update this one.",
+                                       doc.get("schema_version"))
+            try:
+                settings = ProgramSettings.model_validate_json(canonical_json_bytes(doc))
+            except (ValidationError, ValueError):
+                settings = ProgramSettings()
+        self._settings_cache = (stamp, settings)
+        return settings
+
+    def write_settings(self, checked: ProgramSettings) -> None:
+        """Replaces the program settings (lock held by the caller)."""
+        try:
+            open_tinydb(self.settings_path).table("settings").upsert(
+                Document(checked.model_dump(mode="json"), doc_id=1))
+        except OSError as exc:
+            raise StoreWriteError(f"Could not write settings.json ({exc.strerror or exc}); the settings"
+                                  " are unchanged.") from None
+        finally:
+            self._settings_cache = None
