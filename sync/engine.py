@@ -4,7 +4,8 @@ target, merges with what the hub holds, and reports per trip.
 ``push(store, target)`` sends every trip changed since its last push; ``pull(store, source)``
 brings in every revision at the hub this device has not seen, merging it with the device copy;
 ``status(store)`` says, per trip, what each hub has. The store only needs ``data_dir``,
-``device_id``, ``list_trips()``, ``trip_document(id)`` and ``put_document(doc, change)``.
+``device_id``, ``list_trips()``, ``trip_document(id)`` and ``merge_document(doc, change, base=)``
+(the store re-reads the trip under its lock and merges again if another writer saved meanwhile).
 """
 from __future__ import annotations
 
@@ -21,8 +22,8 @@ from collections.abc import Callable, Iterable
 from core.records.limits import LimitError, loads_limited
 from core.store.atomic import atomic_write_bytes, canonical_json_bytes
 from core.store.quarantine import quarantine
-from sync import errors
-from sync.layout import canonical_trip_id, revision_name, trip_year
+from sync import changelog, errors
+from sync.layout import canonical_trip_id, device_key, revision_name, trip_year
 from core.records.merge import describe_conflict
 from sync.outbox import Outbox, OutboxEntry, hubs
 from sync.reconcile import (BOOKKEEPING_KEYS, contained_names, fold, lacks_ancestor, newest_contained,
@@ -86,6 +87,7 @@ class PullReport:
     failed: int = 0
     source: str = ""
     skipped: list[str] = field(default_factory=list)   # hub entries that do not fit the layout
+    listed: str = "walk"   # "log": only trips named by new change log entries; "walk": the whole hub
 
     @property
     def complete(self) -> bool:
@@ -94,7 +96,7 @@ class PullReport:
     def to_dict(self) -> dict[str, Any]:
         return {"pulled": self.pulled, "merged": self.merged, "quarantined": self.quarantined,
                 "unchanged": self.unchanged, "failed": self.failed, "source": self.source,
-                "skipped": list(self.skipped), "per_trip": [asdict(t) for t in self.per_trip]}
+                "skipped": list(self.skipped), "listed": self.listed, "per_trip": [asdict(t) for t in self.per_trip]}
 
 
 @dataclass
@@ -273,7 +275,8 @@ def _write(store: Any, tid: str, based_on: dict | None, new: dict, change: str, 
             if store.adopt_document(doc, expected_revision=rev) is not None:
                 return store.trip_document(tid), late
         if current is None or not same_content(doc, current):
-            store.put_document(doc, change)
+            store.put_document(doc, change,
+                               expected_revision=None if current is None else int(current.get("revision", 0)))
         return store.trip_document(tid), late
 
 
@@ -346,6 +349,7 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
                 report.failed += 1
             done += 1
             _notify(progress, done, total, tid, res.result)
+        _log_push(tgt, session, outbox, [t for t in report.per_trip if t.result in ("pushed", "conflict")])
         if any(r.result != "unchanged" for r in report.per_trip):   # an unchanged push asks nothing
             _clean_incoming(tgt, session, outbox)
     except Exception as exc:
@@ -356,6 +360,24 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
         _flush(outbox)
         tgt.close()
     return report
+
+
+def _log_push(tgt: Target, session: Session, outbox: Outbox, results: list[TripResult]) -> None:
+    """Writes the change log entry naming the revision files this push put at the hub
+    (`sync.changelog`); files whose entry could not be written go into the next push's entry."""
+    if not hasattr(tgt, "log_write"):
+        return
+    paths = []
+    for t in results:
+        e = outbox.get(t.trip_id)
+        if e is not None and e.hub_name and e.pushed_revision == t.revision:
+            paths.append(f"{e.year}/{t.trip_id}/{e.hub_name}")
+    try:
+        state = changelog.LogState.load(outbox.folder)
+        if paths or state.pending:
+            changelog.append(tgt, state, device_key(session.device_id or ""), paths, session.device_id or "")
+    except OSError:     # the record of what to log could not be written: a walk finds these files
+        log.warning("push: could not record the change log entry", exc_info=True)
 
 
 def _clean_incoming(tgt: Target, session: Session, outbox: Outbox) -> None:
@@ -490,25 +512,42 @@ def _record(outbox: Outbox, entry: OutboxEntry, rev: int, h: str, name: str, eta
 
 # --- pull ----------------------------------------------------------------------------------------
 def pull(store: Any, source: str, *, progress: Progress | None = None,
-         session: Session | None = None) -> PullReport:
+         session: Session | None = None, full: bool = False) -> PullReport:
     """Brings every trip revision at the hub that this device has not seen into the store,
     merging it with the device copy. Each hub document is checked (content hash, size, JSON,
     trip id, revision) and then validated by the store's save path; a bad one is quarantined
-    under ``<data dir>/sync/quarantine/`` with a report, and the pull goes on."""
+    under ``<data dir>/sync/quarantine/`` with a report, and the pull goes on.
+
+    What changed is read from the hub's change log (`sync.changelog`); the whole hub is listed
+    instead on the first pull, when the log is missing, odd or a day old, or with ``full=True``."""
     session = _session_for(store, source, session)
     tgt = open_target(source, session)
     report = PullReport(source=tgt.url)
     outbox = Outbox(store.data_dir, tgt.key, tgt.url)
     try:
-        files = tgt.list_all()          # each request inside is retried (not the whole walk again)
-        report.skipped = list(getattr(files, "skipped", []))
-        for line in report.skipped:
-            log.info("pull: %s", line)
+        own = device_key(session.device_id or "")
+        state = changelog.LogState.load(outbox.folder)
+        changes = None if full else changelog.read_changes(tgt, state, own, session.max_document_bytes)
         by_trip: dict[str, list[RemoteFile]] = {}
-        for f in files:
-            by_trip.setdefault(f.trip_id, []).append(f)
-        summaries = _summaries(store)
-        known = outbox.all()
+        if changes is None:             # walk the whole hub; what the log holds now is covered
+            listing = changelog.snapshot(tgt, own) if hasattr(tgt, "log_folders") else {}
+            files = tgt.list_all()      # each request inside is retried (not the whole walk again)
+            report.skipped = list(getattr(files, "skipped", []))
+            for line in report.skipped:
+                log.info("pull: %s", line)
+            for f in files:
+                by_trip.setdefault(f.trip_id, []).append(f)
+            summaries = _summaries(store)
+            known = outbox.all()
+        else:                           # only the trips the new log entries name
+            report.listed = "log"
+            known = {tid: e for tid in changes.files if (e := outbox.get(tid)) is not None}
+            for tid, named in changes.files.items():
+                e = known.get(tid)
+                have = {n: RemoteFile(tid, e.year, n) for n in e.seen} if e is not None else {}
+                have.update({n: RemoteFile(tid, y, n) for y, n in named})
+                by_trip[tid] = list(have.values())
+            summaries = _summaries_of(store, list(changes.files))
         local = {tid: LocalEntry(tid, rev, h if h.startswith("sha256:") and len(h) == 71 else "sha256:" + "0" * 64,
                                  known[tid].seen_set() if tid in known else frozenset())
                  for tid, (rev, h) in summaries.items()}
@@ -533,6 +572,17 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
             if res.result in ("pulled", "merged", "quarantined", "unchanged", "failed"):
                 setattr(report, res.result, getattr(report, res.result) + 1)
             _notify(progress, done, total, tid, res.result)
+        left = {t.trip_id for t in report.per_trip if t.retry}
+        if changes is None:
+            state.devices.update(listing)
+            if not left:                # a walk with trips left over is repeated next time
+                state.walked_at = time.time()
+        else:
+            changes.settle(state, left)
+        try:
+            state.save()
+        except OSError:                 # only costs a walk next time
+            log.warning("pull: could not record the change log state", exc_info=True)
     except Exception as exc:
         if _local_write_errors(exc):
             raise _local_failure(exc, store.data_dir) from None
@@ -541,6 +591,18 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
         _flush(outbox)
         tgt.close()
     return report
+
+
+def _summaries_of(store: Any, trip_ids: list[str]) -> dict[str, tuple[int, str]]:
+    """(revision, content hash) of the given trips the store holds, read one by one."""
+    from core.store.atomic import content_hash
+
+    out = {}
+    for tid in trip_ids:
+        if store.has_trip(tid):
+            doc = store.trip_document(tid)
+            out[tid] = (int(doc.get("revision", 0) or 0), content_hash(doc))
+    return out
 
 
 def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: str,

@@ -4,6 +4,7 @@ Hub layout (the same in a folder and on a WebDAV collection)::
 
     <hub>/trips/<YYYY>/<trip-uuid>/r<revision:06>-<sha256 first 24 hex>.json   immutable revisions
     <hub>/incoming/<device key>/<trip-uuid>.<nonce>.part                       uploads in flight
+    <hub>/log/<device key>/e<seq:08>-<sha256 first 24 hex>.json                the change log
 
 `YYYY` is the year of the trip's ``started_at`` as the crew wrote it (kept from the first push,
 so a trip never moves). A revision file is written once and never changed: its name says which
@@ -15,12 +16,13 @@ import hashlib
 import re
 import uuid
 
-__all__ = ["TRIPS", "INCOMING", "revision_name", "parse_revision_name", "trip_dir",
+__all__ = ["TRIPS", "INCOMING", "LOG", "revision_name", "parse_revision_name", "trip_dir",
            "trip_year", "canonical_trip_id", "device_key", "incoming_name", "HASH_HEX", "name_matches",
            "odd_entry", "shown_name", "is_incoming_name", "YEAR_RE"]
 
 TRIPS = "trips"
 INCOMING = "incoming"
+LOG = "log"          # the change log (sync.changelog)
 HASH_HEX = 24
 _NAME_RE = re.compile(rf"^r(\d{{6,}})-([0-9a-f]{{{HASH_HEX}}})\.json$")
 #: A year folder: the trip's four-digit start year, or "undated".

@@ -133,8 +133,10 @@ class Outbox:
                            json.dumps(asdict(entry), sort_keys=True, ensure_ascii=False).encode("utf-8"))
         self._full[entry.trip_id] = entry
         light = OutboxEntry(**{k: getattr(entry, k) for k in OutboxEntry.__dataclass_fields__ if k != "base"})
-        summary = self.all()
-        summary[entry.trip_id] = light
+        if self._summary is not None:
+            self._summary[entry.trip_id] = light
+        # (not read in this run, e.g. a pull from the change log that touched one trip: the journal
+        # line is enough, and the manifest of every trip is not read for one change)
         if not self._dirty:   # the manifest is current: record this change in the journal
             keys = [k for k in OutboxEntry.__dataclass_fields__ if k != "base"]
             with open(self.folder / "journal.jsonl", "ab") as fh:

@@ -8,13 +8,18 @@ Targets only move bytes; every HTTP request goes through ``Session.request``, wh
   not be re-sent blindly, the sync engine decides (``Session.retrying``);
 * sends bodies as ``bytes`` so they go with a Content-Length, never chunked;
 * verifies TLS by default, against ``ca_file`` when one is given;
-* uses finite connect and read timeouts (defaults 5 s and 30 s; there is no "wait forever").
+* uses finite connect and read timeouts (defaults 5 s and 30 s; there is no "wait forever"),
+  and a deadline for the whole request (``deadline_s``): a server dripping its answer a byte at a
+  time is cut off there;
+* tells RFC 4918's finite-depth 403 (``DepthRefused``) from a real 403 (``Unauthorized``), and
+  says which TLS check failed (certificate authority, host name, dates).
 
 Retry behaviour (``RetryPolicy``): a step that fails with a `RetryableError` (connection refused
 or cut, a timeout, 5xx or 429) is tried ``attempts`` times in all, sleeping ``backoff_s``,
 ``2*backoff_s``, ... (each at most ``max_backoff_s``) in between; then the error is reported and
 the trip is left for the next sync. Final errors (401/403, other 4xx, redirects, TLS failures)
-are never retried.
+are never retried. A step includes reading and checking the answer's body, so a body cut while
+streaming is retried like any other cut.
 """
 from __future__ import annotations
 
@@ -226,6 +231,59 @@ def load_credentials(hub_url: str, *, config_file: Path | str | None = None,
     return None
 
 
+class _Watchdog:
+    """One daemon thread for the whole process that fires request deadlines. It keeps only the
+    requests still running (a finished one is dropped at once) and sleeps until the earliest of
+    them is due, so it wakes about once per deadline period, not once per request: neither a
+    thread per request nor a wake-up per request, either of which costs more than a loopback
+    request itself."""
+
+    def __init__(self) -> None:
+        self._live: dict[_Watch, float] = {}
+        self._cond = threading.Condition()
+        self._target: float | None = None      # when the sleeping thread wakes up next
+        self._thread = threading.Thread(target=self._run, name="streamtab-sync-deadlines", daemon=True)
+        self._thread.start()
+
+    def arm(self, watch: _Watch, delay_s: float) -> None:
+        with self._cond:
+            due = time.monotonic() + delay_s
+            self._live[watch] = due
+            if self._target is None or due < self._target:
+                self._cond.notify()
+
+    def disarm(self, watch: _Watch) -> None:
+        with self._cond:
+            self._live.pop(watch, None)
+
+    def _run(self) -> None:
+        while True:
+            with self._cond:
+                now = time.monotonic()
+                due = [w for w, at in self._live.items() if at <= now]
+                for w in due:
+                    del self._live[w]
+                if not due:
+                    self._target = min(self._live.values(), default=None)
+                    self._cond.wait(None if self._target is None else self._target - now)
+                    self._target = None
+                    continue
+            for w in due:
+                w.fire()
+
+
+_watchdog: _Watchdog | None = None
+_watchdog_lock = threading.Lock()
+
+
+def _the_watchdog() -> _Watchdog:
+    global _watchdog  # noqa: PLW0603 - one watchdog thread per process, started on first use
+    with _watchdog_lock:
+        if _watchdog is None:
+            _watchdog = _Watchdog()
+        return _watchdog
+
+
 class _Watch:
     """Ends one request at its deadline: shuts down the sockets it uses, so a read blocked on a
     server that drips bytes returns at once (a per-read timeout never fires on a drip)."""
@@ -233,22 +291,20 @@ class _Watch:
     def __init__(self, deadline_s: float) -> None:
         self.deadline_s = deadline_s
         self.fired = False
-        self._done = False
+        self.done = False
         self._conns: list = []
         self._lock = threading.Lock()
-        self._timer = threading.Timer(deadline_s, self._fire)
-        self._timer.daemon = True
-        self._timer.start()
+        _the_watchdog().arm(self, deadline_s)
 
     def add(self, conn) -> None:  # noqa: ANN001 - a urllib3 connection taken from the pool
         with self._lock:
             self._conns.append(conn)
         if self.fired:
-            self._fire()
+            self.fire()
 
-    def _fire(self) -> None:
+    def fire(self) -> None:
         with self._lock:
-            if self._done:
+            if self.done:
                 return
             self.fired = True
             conns = list(self._conns)
@@ -259,13 +315,9 @@ class _Watch:
                     sock.shutdown(socket.SHUT_RDWR)
                 except OSError:
                     pass
-        with self._lock:
-            if self._done or all(getattr(c, "sock", None) is not None for c in conns):
-                return
-        # a connection still being set up: look again shortly (bounded by the connect timeout)
-        again = threading.Timer(0.05, self._fire)
-        again.daemon = True
-        again.start()
+        if any(getattr(c, "sock", None) is None for c in conns):
+            # a connection still being set up: look again shortly (bounded by the connect timeout)
+            _the_watchdog().arm(self, 0.05)
 
     def attach(self, resp) -> None:  # noqa: ANN001 - a requests.Response read later by the caller
         close = resp.close
@@ -278,8 +330,8 @@ class _Watch:
 
     def finish(self) -> None:
         with self._lock:
-            self._done = True
-        self._timer.cancel()
+            self.done = True
+        _the_watchdog().disarm(self)
 
 
 def _watched_adapter_class():  # noqa: ANN202 - built on first use: no requests import at import time
@@ -312,7 +364,7 @@ def _watched_adapter_class():  # noqa: ANN202 - built on first use: no requests 
     return WatchedAdapter
 
 
-def _WatchedAdapter(local, **kw):  # noqa: ANN001, ANN202, N802
+def _watched_adapter(local, **kw):  # noqa: ANN001, ANN202
     return _watched_adapter_class()(local, **kw)
 
 
@@ -446,8 +498,8 @@ class Session:
             no_retry = Retry(total=0, connect=0, read=False, redirect=0, status=0, other=0,
                              allowed_methods=None, raise_on_redirect=False,
                              raise_on_status=False)
-            adapter = _WatchedAdapter(self._local, max_retries=no_retry, pool_connections=4,
-                                      pool_maxsize=4)
+            adapter = _watched_adapter(self._local, max_retries=no_retry, pool_connections=4,
+                                       pool_maxsize=4)
             http.mount("http://", adapter)
             http.mount("https://", adapter)
             http.trust_env = False          # no proxies or netrc picked up behind the user's back

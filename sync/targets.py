@@ -10,7 +10,8 @@ address                                target
 =====================================  =========================================================
 
 All targets share one small interface: ``list_trip``, ``list_all``, ``read``, ``write_revision``
-and ``close``. See `sync.layout` for the names at the hub.
+and ``close``; folders and WebDAV also keep the change log (``log_folders``, ``log_list``,
+``log_read``, ``log_write``; see `sync.changelog`). See `sync.layout` for the names at the hub.
 """
 from __future__ import annotations
 
@@ -20,19 +21,21 @@ import hashlib
 import os
 import xml.etree.ElementTree as ET
 from dataclasses import dataclass
+from email.utils import parsedate_to_datetime
 from pathlib import Path
 from typing import Protocol
 from urllib.parse import quote, unquote, urlsplit
 
 from core.store.atomic import atomic_write_bytes, fsync_dir
 from sync import errors
-from sync.layout import (INCOMING, TRIPS, canonical_trip_id, device_key, incoming_name,
+from sync.layout import (INCOMING, LOG, TRIPS, canonical_trip_id, device_key, incoming_name,
                          is_incoming_name, name_matches, odd_entry, parse_revision_name, shown_name,
                          trip_dir)
 from sync.session import Session, redact_url
 
 __all__ = ["RemoteFile", "WriteResult", "Target", "Listing", "FolderTarget", "WebDavTarget",
-           "PostTarget", "open_target", "POST_PREFIX", "MAX_LISTING_BYTES", "MAX_ACK_BYTES",
+           "PostTarget", "open_target", "check_address", "POST_PREFIX", "MAX_LISTING_BYTES",
+           "MAX_ACK_BYTES",
            "STALE_UPLOAD_S"]
 
 POST_PREFIX = "post+"
@@ -285,6 +288,62 @@ class FolderTarget:
                 raise errors.Unreachable(f"hub folder {self.url} cannot be cleaned ({exc.strerror})") from None
         return removed
 
+    # change log (sync.changelog): a local folder is listed whole every time (cheap), so no stamps
+    def log_folders(self) -> dict[str, float | None] | None:
+        try:
+            return {e.name: None for e in os.scandir(self.root / LOG) if e.is_dir()}
+        except FileNotFoundError:
+            return None
+        except OSError as exc:
+            raise errors.Unreachable(f"hub folder {self.url} cannot be read ({exc.strerror})") from None
+
+    def log_list(self, device: str) -> tuple[list[str], float | None]:
+        try:
+            return sorted(os.listdir(self.root / LOG / device)), None
+        except (FileNotFoundError, NotADirectoryError):
+            return [], None
+        except OSError as exc:
+            raise errors.Unreachable(f"hub folder {self.url} cannot be read ({exc.strerror})") from None
+
+    def log_read(self, device: str, name: str, max_bytes: int) -> bytes:
+        try:
+            with open(self.root / LOG / device / name, "rb") as fh:
+                data = fh.read(max_bytes + 1)
+        except OSError as exc:
+            raise errors.Rejected(f"log entry {device}/{name} cannot be read ({exc.strerror})") from None
+        if len(data) > max_bytes:
+            raise errors.Rejected(f"log entry {device}/{name} is larger than {max_bytes} bytes")
+        return data
+
+    def log_write(self, device: str, name: str, data: bytes, device_id: str) -> bool:
+        """Temporary file, then a hard link to the entry's name (fails if it exists)."""
+        folder = self.root / LOG / device
+        tmp = self.root / INCOMING / device_key(device_id) / f"{name}.{os.urandom(6).hex()}.part"
+        try:
+            atomic_write_bytes(tmp, data)
+            folder.mkdir(parents=True, exist_ok=True)
+            try:
+                os.link(tmp, folder / name)
+                created = True
+            except FileExistsError:
+                if (folder / name).read_bytes() != data:
+                    os.replace(tmp, folder / name)   # content-addressed: only these bytes belong there
+                created = False
+            except OSError as exc:
+                if exc.errno not in (errno.EPERM, errno.ENOTSUP, errno.EOPNOTSUPP, errno.EXDEV, errno.EMLINK):
+                    raise
+                os.replace(tmp, folder / name)
+                created = True
+            fsync_dir(folder)
+        except OSError as exc:
+            raise errors.Unreachable(f"hub folder {self.url} cannot be written ({exc.strerror})") from None
+        finally:
+            try:
+                os.unlink(tmp)
+            except FileNotFoundError:
+                pass
+        return created
+
     @staticmethod
     def _settle_existing(final: Path, tmp: Path, data: bytes) -> bool:
         existing = final.read_bytes()
@@ -331,6 +390,8 @@ class WebDavTarget:
         self.session = session
         self._base_path = unquote(urlsplit(url).path)
         self._made: set[str] = set()
+        #: the Date (server clock, epoch s) of the last PROPFIND answer, for the change log
+        self.listed_at: float | None = None
 
     def _u(self, rel: str) -> str:
         return self.base + quote(rel)
@@ -387,6 +448,7 @@ class WebDavTarget:
                     raise errors.Rejected(f"the hub answered PROPFIND {rel} with {resp.status_code}",
                                           resp.status_code)
                 raw = self.session.read_body(resp, MAX_LISTING_BYTES, f"listing of {rel}")
+                self.listed_at = _http_time(resp.headers.get("Date"))
             finally:
                 resp.close()
             try:
@@ -493,6 +555,62 @@ class WebDavTarget:
                 resp.close()
         return self.session.retrying(step)
 
+    # change log (sync.changelog)
+    def log_folders(self) -> dict[str, float | None] | None:
+        entries = self._propfind(LOG + "/", "1", body=_PROPFIND_TIMES_BODY, with_times=True)
+        if entries is None:
+            return None
+        out = {}
+        for relpath, is_col, _size, modified in entries:
+            parts = relpath.strip("/").split("/")
+            if is_col and len(parts) == 2 and parts[0] == LOG:
+                out[parts[1]] = _http_time(modified)
+        return out
+
+    def log_list(self, device: str) -> tuple[list[str], float | None]:
+        self.listed_at = None
+        entries = self._propfind(f"{LOG}/{device}/", "1")
+        if entries is None:
+            return [], None
+        names = [p.rstrip("/").rsplit("/", 1)[-1] for p, col, _ in entries if not col]
+        return sorted(names), self.listed_at
+
+    def log_read(self, device: str, name: str, max_bytes: int) -> bytes:
+        data = self._get_bytes(f"{LOG}/{device}/{name}", max_bytes)
+        if data is None:
+            raise errors.Rejected(f"log entry {device}/{name} disappeared", 404)
+        return data
+
+    def log_write(self, device: str, name: str, data: bytes, device_id: str) -> bool:
+        """One PUT with ``If-None-Match: *`` straight to the entry's name (no upload + MOVE: a cut
+        upload leaves at worst a damaged entry, which readers detect by its hash and answer with
+        one walk, and which the next try here replaces)."""
+        rel = f"{LOG}/{device}/{name}"
+
+        def step() -> bool:
+            for _ in range(3):
+                resp = self.session.request("PUT", self._u(rel), body=data,
+                                            headers={"Content-Type": "application/json", "If-None-Match": "*"})
+                resp.close()
+                if resp.status_code in (200, 201, 204):
+                    return True
+                if resp.status_code == 409:           # log/ or log/<device>/ missing
+                    self._made.discard(f"{LOG}/{device}/")
+                    self._mkcol(f"{LOG}/{device}/")
+                    continue
+                if resp.status_code == 412:
+                    existing = self._get_bytes(rel, len(data) + 1)
+                    if existing == data:
+                        return False
+                    resp = self.session.request("PUT", self._u(rel), body=data,
+                                                headers={"Content-Type": "application/json"})
+                    resp.close()
+                    if resp.status_code in (200, 201, 204):
+                        return True
+                raise errors.Rejected(f"the hub refused log entry {rel} ({resp.status_code})", resp.status_code)
+            raise errors.Rejected(f"the hub refused to create the collection for {rel}")
+        return self.session.retrying(step)
+
     # cleaning
     def remove_stale_uploads(self, device_id: str, now: float) -> int:
         """Removes this device's own uploads under ``incoming/<device key>/`` whose last change is
@@ -594,6 +712,16 @@ def quote_rel(parts: tuple[str, ...]) -> str:
     return "/".join(parts) + "/"
 
 
+
+def _http_time(text: str | None) -> float | None:
+    """An HTTP date (RFC 9110) as epoch seconds, or None."""
+    if not text:
+        return None
+    try:
+        return parsedate_to_datetime(text.strip()).timestamp()
+    except (TypeError, ValueError, IndexError, OverflowError):
+        return None
+
 # --- HTTP POST endpoint ----------------------------------------------------------------------------
 class PostTarget:
     """An intake service taking one trip document per POST (push only).
@@ -664,6 +792,32 @@ class PostTarget:
         pass
 
 
+def _check_url(url: str) -> None:
+    """The rules for an http(s) hub address; ConfigError (never echoing a password) when one fails."""
+    parts = urlsplit(url)
+    if parts.username is not None or parts.password is not None:
+        raise errors.ConfigError("the hub address must not carry a user name or password; put "
+                                 "them in the credentials file or the environment")
+    if not parts.hostname:
+        raise errors.ConfigError(f"the hub address {redact_url(url)} has no host name")
+    if parts.scheme.lower() == "http" and parts.hostname not in _LOOPBACK:
+        raise errors.ConfigError(f"plain http:// is allowed only on this machine (127.0.0.1); "
+                                 f"use https:// for {parts.hostname}")
+
+
+def check_address(address: str) -> None:
+    """Checks a web hub address by open_target's rules without opening anything (a screen checks
+    what was typed before storing it); ConfigError saying what is wrong. Folders are not looked at."""
+    address = (address or "").strip()
+    url = address[len(POST_PREFIX):] if address.lower().startswith(POST_PREFIX) else address
+    try:
+        scheme = urlsplit(url).scheme.lower() if "://" in url else ""
+    except ValueError:
+        raise errors.ConfigError("the hub address is not a readable web address") from None
+    if scheme in ("http", "https"):
+        _check_url(url)
+
+
 def ack_problem(body: bytes, trip_id: str, content_hash: str) -> str | None:
     """What is wrong with an intake endpoint's 2xx answer, or None for a proper acknowledgement:
     a JSON object echoing ``trip_id`` (the trip's UUID) and ``content_hash`` (``sha256:<hex>`` of
@@ -702,15 +856,7 @@ def open_target(address: str, session: Session) -> Target:
     url = address[len(POST_PREFIX):] if is_post else address
     scheme = urlsplit(url).scheme.lower() if "://" in url else ""
     if scheme in ("http", "https"):
-        parts = urlsplit(url)
-        if parts.username is not None or parts.password is not None:
-            raise errors.ConfigError("the hub address must not carry a user name or password; put "
-                                     "them in the credentials file or the environment")
-        if not parts.hostname:
-            raise errors.ConfigError(f"the hub address {redact_url(url)} has no host name")
-        if scheme == "http" and parts.hostname not in _LOOPBACK:
-            raise errors.ConfigError(f"plain http:// is allowed only on this machine (127.0.0.1); "
-                                     f"use https:// for {parts.hostname}")
+        _check_url(url)
         return PostTarget(url, session) if is_post else WebDavTarget(url, session)
     if is_post:
         raise errors.ConfigError("a post+ endpoint address must continue with http:// or https://")

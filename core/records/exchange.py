@@ -147,14 +147,21 @@ def read_trip_file(path: Path | str) -> dict[str, Any]:
     return doc
 
 
-def import_trip_file(store: Any, path: Path | str) -> Trip:
-    """Imports one trip file through the store's save path (validated, derived; nothing half-imported)."""
+def import_trip_file(store: Any, path: Path | str) -> Any:
+    """Imports one trip file: merged into the stored trip (never replacing it), through the
+    store's save path (validated, derived; nothing half-imported).
+
+    Returns the store's merge outcome (``.trip`` as stored, ``.result``: "new", "unchanged",
+    "fast-forward" or "merged", ``.conflicts``). A file the device already holds, or an older
+    one, changes nothing; a file from another device merges like a sync pull; lab results,
+    calibrations, custody records and audit entries are never removed.
+    """
     from core.store import StoreError
 
     path = Path(path)
     doc = read_trip_file(path)
     try:
-        return store.put_document(doc, f"imported from {path.name}")
+        return store.merge_document(doc, f"imported from {path.name}")
     except StoreError as exc:
         raise ExchangeError(f"{path.name}: {exc}") from None
 
@@ -218,13 +225,21 @@ def stop_rows(trip: Trip) -> list[dict[str, str]]:
     return rows
 
 
+def _lab_cell(r: Any) -> str:
+    """"analyte=value unit"; a BOD5/CBOD5 result as its 5210 B report ("bod5=< 2.0 mg/L") when it has one."""
+    derived = (r.inputs or {}).get("derived") if isinstance(r.inputs, dict) else None
+    report = derived.get("report") if isinstance(derived, dict) else None
+    if isinstance(report, dict) and isinstance(report.get("text"), str) and report["text"]:
+        return f"{r.analyte}={report['text']}"
+    return f"{r.analyte}={'' if r.value is None else repr(r.value)} {r.unit}".strip()
+
+
 def bottle_rows(trip: Trip) -> list[dict[str, str]]:
     """One row per bottle (columns :data:`BOTTLE_COLUMNS`); lab results as "analyte=value unit; ..."."""
     rows = []
     for s in sorted(trip.stops, key=lambda s: s.arrived_at):
         for b in s.bottles:
-            labs = "; ".join(f"{r.analyte}={'' if r.value is None else repr(r.value)} {r.unit}".strip()
-                             for r in b.lab_results)
+            labs = "; ".join(_lab_cell(r) for r in b.lab_results)
             rows.append({
                 "trip_id": trip.id, "stop_id": s.id, "site_id": s.site_id, "bottle_uuid": b.id,
                 "bottle_id": b.label, "kind": b.kind, "collected_at": _time(b.collected_at),

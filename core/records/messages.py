@@ -2,11 +2,12 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from datetime import datetime
 from typing import Any
 from collections.abc import Iterable
 
 __all__ = ["FIELD_LABELS", "TEMPLATES", "Problem", "label_for", "path_label", "render",
-           "problems_from_validation", "one_line"]
+           "problems_from_validation", "one_line", "when_text"]
 
 #: Field name → label a technician reads. Keys are the last element of a field path.
 FIELD_LABELS: dict[str, str] = {
@@ -52,6 +53,8 @@ FIELD_LABELS: dict[str, str] = {
     "device_id": "Device ID",
     "reading_mg_l": "Calibration meter reading",
     "calibration_reading": "Calibration meter reading",
+    "cal_temp": "Calibration temperature",
+    "cal_pressure": "Calibration pressure",
     "tolerance_mg_l": "Calibration tolerance",
     "tolerance": "Calibration tolerance",
     "pre_calibration": "Pre-trip calibration",
@@ -81,18 +84,6 @@ FIELD_LABELS: dict[str, str] = {
 _CONTAINERS = {"stops": "Stop", "bottles": "Bottle", "lab_results": "Lab result",
                "audit": "Audit entry", "conflicts": "Conflict", "sides": "Side"}
 
-_HINTS = {
-    "temp": " — was it entered in °F?",
-    "pressure": " — was it in another unit (inHg, kPa, mmHg)?",
-    "conductivity": " — check the unit (µS/cm, mS/cm, mS/m).",
-    "do_mg_l": " — was it % saturation?",
-    "do_percent": " — was it mg/L?",
-    "elevation": " — elevation is in metres.",
-    "calibration_reading": " — was it % saturation?",
-    "criterion": ".",
-    "supersaturation": ".",
-    "tolerance": ".",
-}
 
 #: Stable code → template. Codes other tools may read; texts are ours.
 TEMPLATES: dict[str, str] = {
@@ -201,15 +192,13 @@ def _fmt(value: Any) -> str:
 def render(code: str, **ctx: Any) -> str:
     """Our text for a code, filled from `ctx` (label, input, value, low, high, unit, ...)."""
     if code.endswith(".out_of_range"):
+        from core.science.quantities import LIMITS, range_message
+
         kind = ctx.get("kind") or code.rsplit(".", 1)[0]
-        try:
-            below = float(ctx["value"]) < float(ctx["low"])
-        except (KeyError, TypeError, ValueError):
-            below = False
-        # The hints name the usual mistake for a value that is too high (°F for °C, % for mg/L...).
-        ctx.setdefault("hint", "." if below and kind in ("temp", "do_percent", "do_mg_l", "calibration_reading")
-                       else _HINTS.get(kind, "."))
+        if kind in LIMITS:
+            return range_message(kind, str(ctx.get("label", "Value")), ctx.get("value"), ctx.get("unit"))
         template = TEMPLATES["range"]
+        ctx.setdefault("hint", ".")
     else:
         template = TEMPLATES.get(code, TEMPLATES["field.invalid"])
     ctx.setdefault("label", "Value")
@@ -276,3 +265,29 @@ def one_line(problems: list[Problem], where: str = "") -> str:
     head = problems[0].message
     more = f" (and {len(problems) - 1} more problem{'s' if len(problems) > 2 else ''})" if len(problems) > 1 else ""
     return f"{where}: {head}{more}" if where else head + more
+
+
+def when_text(when: datetime | str | None) -> str:
+    """A record's time as a person reads it: in the time's own UTC offset, saying which, e.g.
+    ``2026-06-09 07:40 UTC−07:00`` (the clock the crew saw where it was recorded, on any machine).
+
+    The app and the command line both show times this way. A time without an offset (not written
+    by streamtab) is shown as it is, marked "offset unknown".
+    """
+    if when is None or when == "":
+        return "—"
+    if isinstance(when, str):
+        try:
+            when = datetime.fromisoformat(when)
+        except ValueError:
+            return str(when)
+    text = when.strftime("%Y-%m-%d %H:%M")
+    offset = when.utcoffset()
+    if offset is None:
+        return f"{text} (offset unknown)"
+    minutes = int(offset.total_seconds() // 60)
+    if minutes == 0:
+        return f"{text} UTC"
+    sign = "+" if minutes > 0 else "−"
+    h, m = divmod(abs(minutes), 60)
+    return f"{text} UTC{sign}{h:02d}:{m:02d}"

@@ -9,6 +9,15 @@ Version 1 (the first field builds) differs from version 2 as follows:
 - bottles had ``bottle_id`` (the label) and no ``id``; audit entries had ``device`` and ``what``
   and no ``id``; there was no ``conflicts`` list.
 
+Version 2 differs from version 3 as follows:
+
+- a lab result's bench findings, superseding and state lived in its free ``inputs`` dict
+  (``flags``, ``supersedes``, ``superseded_by``/``superseded_at``/``superseded_reason``); now
+  typed fields ``flags``, ``supersedes``, ``superseded_by``, ``superseded_at``,
+  ``superseded_reason`` and ``status`` ("valid", "invalid" or "superseded");
+- a duplicate bottle's ``duplicate_of`` (the label of the bottle it duplicates) was an extra
+  field some builds wrote; now a declared field.
+
 Ids made during migration are UUID version 5 of the trip id and the element's position, so two
 devices migrating the same old document agree on them (sync merges by id).
 """
@@ -90,8 +99,62 @@ def _v1_to_v2(doc: dict[str, Any]) -> dict[str, Any]:
     return doc
 
 
+_FLAG_KEYS = ("code", "severity", "message", "action", "field")
+
+
+def _flag(flag: Any) -> dict[str, Any] | None:
+    """A v2 flag dict (``inputs["flags"]`` entry) as a typed flag record; None when unusable."""
+    if not isinstance(flag, dict) or not isinstance(flag.get("code"), str):
+        return None
+    out = {k: flag.get(k) for k in _FLAG_KEYS if k in flag}
+    out.setdefault("severity", "warning")
+    out.setdefault("message", flag["code"])
+    if out.get("action") is None:
+        out["action"] = ""
+    return out
+
+
+def _lab_result_v3(result: dict[str, Any]) -> dict[str, Any]:
+    result = dict(result)
+    inputs = dict(result.get("inputs") or {})
+    flags = [f for f in (_flag(x) for x in inputs.pop("flags", None) or []) if f is not None]
+    result.setdefault("flags", flags)
+    supersedes = inputs.pop("supersedes", None)
+    if "supersedes" not in result:
+        result["supersedes"] = [str(x) for x in supersedes or [] if isinstance(x, str)]
+    for key in ("superseded_by", "superseded_at", "superseded_reason"):
+        value = inputs.pop(key, None)
+        if key not in result and value not in (None, ""):
+            result[key] = value
+    result["inputs"] = inputs
+    if "status" not in result:
+        if result.get("superseded_by"):
+            result["status"] = "superseded"
+        elif result.get("valid") is False:
+            result["status"] = "invalid"
+        else:
+            result["status"] = "valid"
+    return result
+
+
+def _v2_to_v3(doc: dict[str, Any]) -> dict[str, Any]:
+    stops = []
+    for stop in doc.get("stops") or []:
+        stop = dict(stop)
+        bottles = []
+        for bottle in stop.get("bottles") or []:
+            bottle = dict(bottle)
+            bottle["lab_results"] = [_lab_result_v3(r) for r in bottle.get("lab_results") or []]
+            bottles.append(bottle)
+        stop["bottles"] = bottles
+        stops.append(stop)
+    doc["stops"] = stops
+    doc["schema_version"] = 3
+    return doc
+
+
 #: from-version → function lifting a document by one version.
-MIGRATIONS: dict[int, Callable[[dict[str, Any]], dict[str, Any]]] = {1: _v1_to_v2}
+MIGRATIONS: dict[int, Callable[[dict[str, Any]], dict[str, Any]]] = {1: _v1_to_v2, 2: _v2_to_v3}
 
 
 def migrate(doc: dict[str, Any]) -> dict[str, Any]:

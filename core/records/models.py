@@ -2,8 +2,6 @@
 from __future__ import annotations
 
 import json
-import math
-import re
 import types
 import typing
 import uuid
@@ -12,44 +10,30 @@ from functools import cache
 from pathlib import Path
 from typing import Any, Literal
 
-from core.science._validate import ambiguous_comma
+from core.science import quantities as _quantities
+from core.science.conductivity import ALPHA_RANGE_PER_C
 from pydantic import (AwareDatetime, BaseModel, ConfigDict, Field, field_validator, model_serializer, model_validator)
 from pydantic_core import PydanticCustomError
 
 __all__ = [
     "SCHEMA_VERSION", "BOTTLE_KINDS", "WATER_CLASSES", "LIMITS",
     "Quantity", "FlagRecord", "Derived", "Site", "Calibration", "LabResult", "Bottle", "Stop",
-    "AuditEntry", "ConflictSide", "Conflict", "ProgramSettings", "Signature", "CustodyRecord", "LabBatch", "Trip",
-    "SIGNATURE_LIMITS",
-    "InputError", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
-    "INPUT", "DERIVED", "BOOKKEEPING", "LOG", "ROLES", "RoleNode", "role_tree", "paths_by_role",
+    "RESULT_STATUSES", "LOCAL_STOP_KEYS", "AuditEntry", "AuditChange", "AUDIT_VALUE_BYTES", "ConflictSide",
+    "Conflict", "ReviewEvent", "ProgramSettings", "Signature", "CustodyRecord", "LabBatch", "Trip", "SIGNATURE_LIMITS",
+    "InputError", "analyte_key", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
+    "INPUT", "DERIVED", "BOOKKEEPING", "LOG", "ROLES", "RETAINED", "RoleNode", "role_tree", "paths_by_role",
     "keys_by_role",
 ]
 
 #: Version of the trip document layout this build writes. core.records.migrations lifts older ones.
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 
 BOTTLE_KINDS = ("do-fixed", "bod", "duplicate", "blank")
 WATER_CLASSES = ("warm", "cold")
 
-#: Hard limits of what a form accepts, per field kind (value in the normalised unit).
-#: Wider than the range of the saturation equations (0–40 °C, 0.5–1.1 atm): values between the
-#: two compute and carry a QC flag; values outside these are refused as typing or unit mistakes.
-#: All "common practice" bounds for stream work, not published limits.
-LIMITS: dict[str, tuple[float, float, str]] = {
-    "temp": (-2.0, 50.0, "°C"),
-    "pressure": (400.0, 1100.0, "hPa"),
-    "conductivity": (0.0, 100000.0, "µS/cm"),
-    "do_mg_l": (0.0, 25.0, "mg/L"),
-    "do_percent": (0.0, 300.0, "%"),
-    "elevation": (-430.0, 6000.0, "m"),
-    "latitude": (-90.0, 90.0, "°"),
-    "longitude": (-180.0, 180.0, "°"),
-    "calibration_reading": (0.0, 25.0, "mg/L"),
-    "criterion": (0.0, 20.0, "mg/L"),          # the range core.science.criteria accepts
-    "supersaturation": (100.0, 500.0, "%"),    # the range core.science.criteria accepts
-    "tolerance": (0.0, 5.0, "mg/L"),
-}
+#: Hard limits of what a form accepts, per field kind (value in the normalised unit): the one table
+#: in core.science.quantities, which the command line and the app read too.
+LIMITS = _quantities.LIMITS
 
 
 def new_id() -> str:
@@ -68,48 +52,28 @@ class InputError(ValueError):
 
 
 # --------------------------------------------------------------------------------------------
-# Strict number parsing for form input
+# Strict number parsing for form input (the grammar is core.science.quantities)
 # --------------------------------------------------------------------------------------------
-_NUMBER_RE = re.compile(r"^[+-]?(\d+([.,]\d*)?|[.,]\d+)([eE][+-]?\d+)?$")
-_LEADING_NUMBER_RE = re.compile(r"^\s*([+-]?(?:\d[\d.,]*|[.,]\d+)(?:[eE][+-]?\d+)?)\s*(.*?)\s*$")
+def _input_error(exc: _quantities.QuantityError, field: str) -> InputError:
+    return InputError(exc.code, field, exc.message)
 
 
-def parse_number(text: str, field: str = "value") -> float:
+def parse_number(text: str, field: str = "value", *, limit: str | None = None) -> float:
     """Reads a number a person typed: "3.5" and "3,5" give 3.5; never reads "3,5" as 35.
 
     Refuses NaN, infinity, yes/no values, thousands separators and an ambiguous "1,234"
-    (a decimal comma or a thousands comma?) with an :class:`InputError` naming the field.
+    (a decimal comma or a thousands comma?) with an :class:`InputError` naming the field; with
+    `limit` (a key of :data:`LIMITS`), also a value outside that limit.
     """
-    from core.records.messages import label_for, render
+    from core.records.messages import label_for
 
-    label = label_for(field)
-    if isinstance(text, bool):
-        raise InputError("number.bool", field, render("number.bool", label=label, input=text))
-    if isinstance(text, (int, float)):
-        value = float(text)
-        if not math.isfinite(value):
-            raise InputError("number.not_finite", field,
-                             render("number.not_finite", label=label, input=text))
+    try:
+        value = _quantities.read_number(text, label_for(field))
+        if limit is not None:
+            _quantities.check_limit(limit, value, label_for(field))
         return value
-    raw = str(text).strip()
-    if not raw:
-        raise InputError("missing", field, render("missing", label=label))
-    if raw.lower().lstrip("+-") in {"nan", "inf", "infinity"}:
-        raise InputError("number.not_finite", field,
-                         render("number.not_finite", label=label, input=raw))
-    if raw.count(",") + raw.count(".") > 1 or not _NUMBER_RE.match(raw):
-        raise InputError("number.invalid", field, render("number.invalid", label=label, input=raw))
-    if "," in raw:
-        if ambiguous_comma(raw):
-            # "1,234": 1.234 to a European eye, 1234 to an American one — ask, never guess.
-            raise InputError("number.ambiguous_comma", field,
-                             render("number.ambiguous_comma", label=label, input=raw,
-                                    a=raw.replace(",", "."), b=raw.replace(",", "")))
-        raw = raw.replace(",", ".")
-    value = float(raw)
-    if not math.isfinite(value):
-        raise InputError("number.not_finite", field, render("number.not_finite", label=label, input=raw))
-    return value
+    except _quantities.QuantityError as exc:
+        raise _input_error(exc, field) from None
 
 
 # --------------------------------------------------------------------------------------------
@@ -129,11 +93,20 @@ LOG = "log"
 ROLES = (INPUT, DERIVED, BOOKKEEPING, LOG)
 
 
-def _role(role: str) -> dict[str, Any]:
-    """The `json_schema_extra` of a field with that role (shows as ``"role"`` in the JSON Schema)."""
+def _role(role: str, *, retain: bool = False) -> dict[str, Any]:
+    """The `json_schema_extra` of a field with that role (shows as ``"role"`` in the JSON Schema).
+
+    `retain`: what the field holds is never removed by an import or a merge (lab results,
+    calibrations, custody records): an element or value the stored trip has and the incoming
+    version lacks is kept.
+    """
     if role not in ROLES:  # pragma: no cover - a programming mistake
         raise ValueError(f"role {role!r} is not one of {ROLES}")
-    return {"role": role}
+    return {"role": role, "retain": True} if retain else {"role": role}
+
+
+#: The `json_schema_extra` of an input field whose content is never removed (see :func:`_role`).
+RETAINED = _role(INPUT, retain=True)
 
 
 # --------------------------------------------------------------------------------------------
@@ -205,7 +178,7 @@ class Derived(_Record):
 
 
 def _range_error(kind: str, label_field: str, value: float, unit: str) -> PydanticCustomError:
-    low, high, _ = LIMITS[kind]
+    low, high, _ = _quantities.LIMITS[kind]
     return PydanticCustomError(f"{kind}.out_of_range", "{value} outside {low}–{high} {unit}",
                                {"value": value, "low": low, "high": high, "unit": unit,
                                 "kind": kind})
@@ -318,8 +291,30 @@ class Calibration(_Record):
         return _check_range(v, "tolerance")
 
 
+def analyte_key(analyte: str) -> str:
+    """The analyte name compared case- and separator-blind ("do-winkler" == "DO_Winkler")."""
+    return str(analyte).strip().lower().replace("-", "_").replace(" ", "_")
+
+
+#: Keys of a stop that a device keeps for itself (the app's text of a refused entry, a draft):
+#: the store keeps them in its local drafts, never in the trip file, so they never sync.
+LOCAL_STOP_KEYS = frozenset({"draft_text"})
+
+
+#: The states of a lab result: live and acceptable, live and failing its checks, or replaced by a
+#: later result of the same analysis on the same bottle (kept, never deleted).
+RESULT_STATUSES = ("valid", "invalid", "superseded")
+
+
 class LabResult(_Record):
-    """A laboratory result for a bottle (Winkler DO, BOD5, specific conductance, ...)."""
+    """A laboratory result for a bottle (Winkler DO, BOD5, specific conductance, ...).
+
+    ``status`` says whether the result counts: "valid", "invalid" (a stop-and-check finding or
+    no valid dilution; ``valid`` is then False) or "superseded" (a re-analysis replaced it:
+    ``superseded_by`` names the later result, which lists this one in ``supersedes``). ``flags``
+    are the bench's findings. ``inputs`` keeps what the analyst entered, the numbers used and the
+    intermediate values (see core.rules.lab).
+    """
 
     id: str = _id_field()
     analyte: str = Field(min_length=1, max_length=40)
@@ -329,8 +324,32 @@ class LabResult(_Record):
     analyst: str = Field(default="", max_length=40)
     method: str = Field(default="", max_length=80)
     inputs: dict[str, Any] = Field(default_factory=dict)
+    #: Whether the measurement passed its checks (None: not checked); see ``status``.
     valid: bool | None = None
+    status: Literal["valid", "invalid", "superseded"] = "valid"
+    #: Ids of the earlier results of the same analysis this one replaces (a re-analysis).
+    supersedes: list[str] = Field(default_factory=list)
+    #: On a replaced result: the result that replaced it, when, and the analyst's reason.
+    superseded_by: str | None = Field(default=None, max_length=64)
+    superseded_at: AwareDatetime | None = None
+    superseded_reason: str = Field(default="", max_length=400)
+    flags: list[FlagRecord] = Field(default_factory=list)
     notes: str = Field(default="", max_length=2000)
+
+    @model_validator(mode="after")
+    def _status_agrees(self) -> LabResult:
+        # A result built only with ``valid=False`` is invalid; one with ``superseded_by`` is
+        # superseded — so a writer that sets one of them cannot leave the other saying otherwise.
+        if self.superseded_by and self.status != "superseded":
+            object.__setattr__(self, "status", "superseded")
+        elif "status" not in self.model_fields_set and self.valid is False and self.status == "valid":
+            object.__setattr__(self, "status", "invalid")
+        return self
+
+    @property
+    def live(self) -> bool:
+        """Not replaced by a later result (it counts, valid or not)."""
+        return self.status != "superseded"
 
 
 class Bottle(_Record):
@@ -343,7 +362,9 @@ class Bottle(_Record):
     fixed_at: AwareDatetime | None = None
     preservation: str = Field(default="", max_length=120)
     notes: str = Field(default="", max_length=2000)
-    lab_results: list[LabResult] = Field(default_factory=list)
+    lab_results: list[LabResult] = Field(default_factory=list, json_schema_extra=RETAINED)
+    #: For a field duplicate: the label of the bottle it duplicates (same analysis, same stop).
+    duplicate_of: str | None = Field(default=None, max_length=40)
 
     @field_validator("label")
     @classmethod
@@ -393,8 +414,28 @@ class Stop(_Record):
         return _check_quantity(v, "do", ("mg/L", "%"))
 
 
+class AuditChange(_Record):
+    """One field a save changed: its path, the value it replaced and the new one.
+
+    Values longer than :data:`AUDIT_VALUE_BYTES` as JSON are kept as the start of their JSON
+    text with ``truncated`` set (the audit stays small; the full value is in the trip or in
+    the version that replaced it).
+    """
+
+    path: str = Field(max_length=400)
+    old: Any = None
+    new: Any = None
+    truncated: bool = False
+
+
+#: Largest value (bytes of compact JSON) an audit entry keeps whole; longer ones are cut.
+AUDIT_VALUE_BYTES = 600
+
+
 class AuditEntry(_Record):
-    """One change to a trip: when, which device, what (a sentence and the changed field paths)."""
+    """One change to a trip: when, which device, what (a sentence, the changed field paths and,
+    for each, the value it replaced and the new one), and — for a settlement or a correction —
+    who and why."""
 
     id: str = _id_field()
     at: AwareDatetime
@@ -402,12 +443,19 @@ class AuditEntry(_Record):
     change: str = Field(max_length=400)
     revision: int
     fields: list[str] = Field(default_factory=list)
+    changes: list[AuditChange] = Field(default_factory=list)
+    #: The saving device's name as set on it (``streamtab device name``), so people read a name.
+    device_name: str | None = Field(default=None, max_length=40)
+    by: str | None = Field(default=None, max_length=80)
+    reason: str | None = Field(default=None, max_length=400)
 
 
 class ConflictSide(_Record):
     """One device's value of a field that two devices changed differently."""
 
     device_id: str
+    #: The device's name as set on it, when its saves carried one.
+    device_name: str | None = None
     value: Any = None
     revision: int | None = None
     updated_at: AwareDatetime | None = None
@@ -417,12 +465,43 @@ class Conflict(_Record):
     """A field two devices changed differently; sync fills these, a person resolves them."""
 
     id: str = _id_field()
+    #: "field": one field with two values; "results": two live results of one analysis on one
+    #: bottle (the sides' values are the results).
+    kind: Literal["field", "results"] = "field"
     path: str
+    #: The same path with full element ids (``stops[<id>].do``), where the clash is.
+    locator: str | None = None
     sides: list[ConflictSide] = Field(default_factory=list)
     detected_at: AwareDatetime
     resolved_at: AwareDatetime | None = None
     resolved_by: str | None = None
+    #: The settlement: ``{"kept": n (1-based side, or None for a typed value), "value": ...}``.
     resolution: Any = None
+
+
+class InstrumentLog(_Record):
+    """One DO meter's calibration log in the program's settings (USGS NFM A6.2 checks; limits common practice)."""
+
+    serial: str = Field(min_length=1, max_length=64)
+    membrane_changed_at: AwareDatetime | None = None
+    zero_do_mg_l: float | None = None
+    zero_do_limit_mg_l: float = Field(0.2, gt=0.0, le=2.0)
+    zero_checked_at: AwareDatetime | None = None
+    barometer_difference_hpa: float | None = Field(None, ge=-200.0, le=200.0)
+    barometer_limit_hpa: float = Field(2.0, gt=0.0, le=20.0)
+    barometer_checked_at: AwareDatetime | None = None
+    #: Post-trip drift limit of this meter, in mg/L or in % of the 100 % target.
+    drift_limit: float = Field(0.2, gt=0.0, le=50.0)
+    drift_unit: Literal["mg/L", "%"] = "mg/L"
+
+    def flags(self):
+        """The zero-DO and barometer findings of this log (core.science.calibration.instrument_flags)."""
+        from core.science.calibration import instrument_flags
+
+        return instrument_flags(self.serial, zero_do_mg_l=self.zero_do_mg_l,
+                                zero_do_limit_mg_l=self.zero_do_limit_mg_l,
+                                barometer_difference_hpa=self.barometer_difference_hpa,
+                                barometer_limit_hpa=self.barometer_limit_hpa)
 
 
 class ProgramSettings(_Record):
@@ -431,11 +510,37 @@ class ProgramSettings(_Record):
     schema_version: int = SCHEMA_VERSION
     program: str = Field(default="", max_length=120)
     method: Literal["benson-krause", "garcia-gordon"] = "benson-krause"
-    warm_min_mg_l: float = Field(5.0, ge=0.0, le=20.0)    # common practice (many state standards; EPA 1986 differs)
-    cold_min_mg_l: float = Field(6.5, ge=0.0, le=20.0)    # US EPA 440/5-86-003 (1986) cold-water 30-day mean, from memory
-    supersaturation_percent: float = Field(120.0, ge=100.0, le=500.0)   # common practice
-    hypoxic_mg_l: float = Field(2.0, ge=0.0, le=20.0)     # common practice
-    calibration_tolerance_mg_l: float = Field(0.2, gt=0.0, le=5.0)  # common practice (USGS NFM A6.2 method)
+    warm_min_mg_l: float = Field(5.0, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1])    # common practice (many state standards; EPA 1986 differs)
+    cold_min_mg_l: float = Field(6.5, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1])    # US EPA 440/5-86-003 (1986) cold-water 30-day mean, from memory
+    supersaturation_percent: float = Field(120.0, ge=LIMITS["supersaturation"][0], le=LIMITS["supersaturation"][1])   # common practice
+    hypoxic_mg_l: float = Field(2.0, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1])     # common practice
+    #: Life stages the program protects ("other" or "early": embryos and larvae present); picks the EPA 1986
+    #: 1-day minimum a spot reading is compared with (core.science.criteria.EPA_1986_MG_L, from memory).
+    life_stage: Literal["other", "early"] = "other"
+    calibration_tolerance_mg_l: float = Field(0.2, gt=LIMITS["tolerance"][0], le=LIMITS["tolerance"][1])  # common practice (USGS NFM A6.2 method)
+    #: Elevation where the meter is calibrated (the office), m; None: the trip's first site. The
+    #: calibration pressure is checked against it like a stop's pressure.
+    calibration_elevation_m: float | None = Field(None, ge=LIMITS["elevation"][0], le=LIMITS["elevation"][1])
+    #: What the program's meters mean by 100 %: saturation at the local pressure, or at 760 mmHg
+    #: (core.science.oxygen.PERCENT_BASES); a trip's own meter setting (Trip.meter_percent_basis) wins.
+    percent_basis: Literal["local", "sea-level"] = "local"
+    #: Temperature compensation of specific conductance: linear with `conductivity_alpha_per_c`
+    #: (Standard Methods 2510 B; natural waters 0.0175–0.0198, Hayashi 2004), or the ISO 7888 table.
+    conductivity_compensation: Literal["linear", "iso7888"] = "linear"
+    conductivity_alpha_per_c: float = Field(0.0191, ge=ALPHA_RANGE_PER_C[0], le=ALPHA_RANGE_PER_C[1])
+    #: How many decimals reports show, by quantity (core.rules.report.Rounding: do_mg_l, percent, temp_c,
+    #: pressure_hpa, conductivity_sig, bod_mg_l); missing keys keep the defaults (DO 0.1 mg/L, % whole,
+    #: 0.1 °C, 0.1 hPa, specific conductance 3 significant figures; common practice). Reports only:
+    #: stored values are never rounded.
+    reporting_decimals: dict[str, int] = Field(default_factory=dict)
+    #: Calibration logs of the program's DO meters, matched to a trip by its meter ID (the serial).
+    instruments: list[InstrumentLog] = Field(default_factory=list)
+
+    def instrument(self, meter_id: str) -> InstrumentLog | None:
+        """The log of the meter a trip names (by serial, case and spaces ignored), or None."""
+        key = (meter_id or "").strip().lower()
+        return next((i for i in self.instruments if key and i.serial.strip().lower() == key), None)
+
     #: Holding-time overrides by kind (hours), e.g. {"bod": 24} for a stricter SOP.
     holding_overrides_h: dict[str, float] = Field(default_factory=dict)
     #: Plausible stream ranges (warning outside; common practice, adjust per program).
@@ -455,7 +560,25 @@ class ProgramSettings(_Record):
 
         return Criteria(warm_min_mg_l=self.warm_min_mg_l, cold_min_mg_l=self.cold_min_mg_l,
                         supersaturation_percent=self.supersaturation_percent,
-                        hypoxic_mg_l=self.hypoxic_mg_l)
+                        hypoxic_mg_l=self.hypoxic_mg_l, life_stage=self.life_stage)
+
+
+class ReviewEvent(_Record):
+    """One step of the office's review of a trip (who, when, what, why); appended, never edited.
+
+    ``action`` is one of ``core.rules.review.ACTIONS``; the trip's review state follows from its
+    events (``core.rules.review.review_state``). ``approved`` holds, on a correction of an approved
+    trip, the document as it was approved, so that version stays readable.
+    """
+
+    id: str = _id_field()
+    action: Literal["reviewed", "approved", "returned", "corrected", "resubmitted"]
+    at: AwareDatetime
+    by: str = Field(min_length=1, max_length=80)
+    comment: str = Field(default="", max_length=2000)
+    reasons: list[str] = Field(default_factory=list)
+    revision: int | None = None      # the trip revision the step was taken on
+    approved: dict[str, Any] | None = None
 
 
 #: Bounds of a drawn signature, so a stuck finger cannot grow a trip without end (common practice):
@@ -580,10 +703,12 @@ class Trip(_Record):
     program: str = Field(default="", max_length=120)
     crew: list[str] = Field(default_factory=list)
     meter_id: str = Field(default="", max_length=64)
+    #: This trip's meter's % basis ("local" or "sea-level"); None: the program setting.
+    meter_percent_basis: Literal["local", "sea-level"] | None = None
     started_at: AwareDatetime
     ended_at: AwareDatetime | None = None
-    pre_calibration: Calibration | None = None
-    post_check: Calibration | None = None
+    pre_calibration: Calibration | None = Field(None, json_schema_extra=RETAINED)
+    post_check: Calibration | None = Field(None, json_schema_extra=RETAINED)
     stops: list[Stop] = Field(default_factory=list)
     notes: str = Field(default="", max_length=4000)
     audit: list[AuditEntry] = Field(default_factory=list, json_schema_extra=_role(LOG))
@@ -591,17 +716,22 @@ class Trip(_Record):
     #: counts as a change); sync's merge owns how the list itself is merged.
     conflicts: list[Conflict] = Field(default_factory=list)
     #: Chain of custody of the trip's bottles, in the order entered (optional; absent when empty).
-    custody: list[CustodyRecord] = Field(default_factory=list)
+    custody: list[CustodyRecord] = Field(default_factory=list, json_schema_extra=RETAINED)
+    #: The office's review steps (core.rules.review; optional; absent when empty).
+    review_events: list[ReviewEvent] = Field(default_factory=list, json_schema_extra=RETAINED)
     #: Bench batches whose QC applies to this trip's bottles (optional; absent when empty).
-    lab_batches: list[LabBatch] = Field(default_factory=list)
+    lab_batches: list[LabBatch] = Field(default_factory=list, json_schema_extra=RETAINED)
+    #: The crew started the trip with no pre-trip calibration, saying so (optional; absent when False).
+    started_without_calibration: bool = False
 
     @model_serializer(mode="wrap")
     def _omit_empty_optional_lists(self, handler: Any) -> Any:
-        # A trip without hand-offs or batches is written exactly as before those fields existed, so
-        # older documents keep their bytes and hashes and no save records a change nobody made.
+        # A trip without hand-offs, batches or review steps (and with the usual calibration) is
+        # written exactly as before those fields existed, so older documents keep their bytes and
+        # hashes and no save records a change nobody made.
         data = handler(self)
         if isinstance(data, dict):
-            for key in ("custody", "lab_batches"):
+            for key in ("custody", "lab_batches", "review_events", "started_without_calibration"):
                 if not data.get(key):
                     data.pop(key, None)
         return data
@@ -662,6 +792,8 @@ class RoleNode:
     model: str
     roles: dict[str, str] = field(default_factory=dict)
     children: dict[str, RoleNode] = field(default_factory=dict)
+    #: fields whose content an import or a merge never removes
+    retained: frozenset[str] = frozenset()
 
     def role(self, key: str) -> str:
         return self.roles.get(key, INPUT)
@@ -701,13 +833,16 @@ def role_tree(model: type[BaseModel] | None = None) -> RoleNode:
     model = model or Trip
     roles: dict[str, str] = {}
     children: dict[str, RoleNode] = {}
+    retained: set[str] = set()
     for name, info in model.model_fields.items():
         key = info.alias or name
         roles[key] = _field_role(info)
+        if isinstance(info.json_schema_extra, dict) and info.json_schema_extra.get("retain"):
+            retained.add(key)
         nested = _records_in(info.annotation)
         if nested:
             children[key] = role_tree(nested[0])
-    return RoleNode(model.__name__, roles, children)
+    return RoleNode(model.__name__, roles, children, frozenset(retained))
 
 
 def paths_by_role(role: str, model: type[BaseModel] | None = None) -> list[str]:
@@ -741,83 +876,24 @@ def keys_by_role(*roles: str, model: type[BaseModel] | None = None) -> frozenset
 # --------------------------------------------------------------------------------------------
 # Building quantities from what a person typed
 # --------------------------------------------------------------------------------------------
-_DO_UNITS = {"mg/l": "mg/L", "mgl": "mg/L", "mg/litre": "mg/L", "mg/liter": "mg/L", "ppm": "mg/L",
-             "%": "%", "% sat": "%", "%sat": "%", "percent": "%"}
-
-
-def _split(text: str, field: str) -> tuple[float, str, str]:
-    from core.records.messages import label_for, render
-
-    if isinstance(text, bool) or not isinstance(text, (str, int, float)):
-        raise InputError("number.invalid", field,
-                         render("number.invalid", label=label_for(field), input=text))
-    raw = str(text).strip()
-    if not raw:
-        raise InputError("missing", field, render("missing", label=label_for(field)))
-    m = _LEADING_NUMBER_RE.match(raw)
-    if not m:
-        parse_number(raw, field)  # raises the right message (nan, inf, not a number)
-        raise InputError("number.invalid", field,
-                         render("number.invalid", label=label_for(field), input=raw))
-    value = parse_number(m.group(1), field)
-    return value, m.group(2), raw
-
-
 def measure(kind: str, text: str, *, default_unit: str | None = None, field: str | None = None) -> Quantity:
     """Builds a :class:`Quantity` from typed text, keeping the text exactly.
 
-    kind: "temp" (°C; "°F"/"F" converted), "pressure" (hPa; units from core.science.pressure; a bare
-    number is refused), "conductivity" (µS/cm), "do" (mg/L or %). `default_unit` applies to a
-    bare number (e.g. "C" for a temperature field, "mg/L" for a DO field). Raises
-    :class:`InputError` with the field label, what was wrong and the accepted range or units.
+    kind: "temp" (°C; °F and K converted), "pressure" (hPa; a bare number is refused), "conductivity"
+    (µS/cm), "do" (mg/L or %); the grammar, units and limits are core.science.quantities'.
+    `default_unit` applies to a bare number (e.g. "C" for a temperature field, "mg/L" for a DO field).
+    Raises :class:`InputError` with the field label, what was wrong and the accepted range or units.
     """
-    from core.records.messages import label_for, render
+    from core.records.messages import label_for
 
     field = field or kind
-    label = label_for(field)
-    value, unit, raw = _split(text, field)
-    unit_in = unit or (default_unit or "")
-    plain = f"{value:.10f}".rstrip("0").rstrip(".")
     try:
-        if kind == "temp":
-            from core.science.temperature import parse_temperature
-
-            norm = parse_temperature(f"{plain} {unit_in}".strip(), default_unit=default_unit or "C")
-            q_unit = "°C"
-        elif kind == "pressure":
-            from core.science.pressure import parse_pressure
-
-            norm = parse_pressure(f"{plain} {unit_in}".strip())
-            q_unit = "hPa"
-        elif kind == "conductivity":
-            from core.science.conductivity import parse_conductivity
-
-            norm = parse_conductivity(f"{plain} {unit_in}".strip())
-            q_unit = "µS/cm"
-        elif kind == "do":
-            key = unit_in.strip().lower()
-            if not key:
-                raise ValueError("has no unit; write mg/L or % (e.g. '8.4 mg/L' or '96 %')")
-            if key not in _DO_UNITS:
-                raise ValueError(f"unit {unit_in.strip()!r} is not accepted; write mg/L or %")
-            q_unit = _DO_UNITS[key]
-            norm = value
-        else:
-            raise ValueError(f"unknown kind {kind!r}")
-    except InputError:
-        raise
-    except ValueError as exc:
-        raise InputError("unit.invalid", field,
-                         render("unit.invalid", label=label, input=raw, detail=str(exc))) from None
-    norm = float(norm)
-    key = kind if kind != "do" else ("do_percent" if q_unit == "%" else "do_mg_l")
-    low, high, _ = LIMITS[key]
-    if not (low <= norm <= high):
-        code = f"{key}.out_of_range"
-        raise InputError(code, field, render(code, label=label, value=norm, low=low, high=high,
-                                             unit=q_unit))
-    return Quantity(text=raw, entered_value=value, entered_unit=unit_in.strip(), value=norm,
-                    unit=q_unit)
+        r = _quantities.read(kind, text, label_for(field), default_unit=default_unit)
+    except _quantities.QuantityError as exc:
+        raise _input_error(exc, field) from None
+    except KeyError:
+        raise ValueError(f"unknown kind {kind!r}; accepted: {', '.join(_quantities.KINDS)}") from None
+    return Quantity(text=r.text, entered_value=r.number, entered_unit=r.entered_unit, value=r.value, unit=r.unit)
 
 
 # --------------------------------------------------------------------------------------------

@@ -4,19 +4,18 @@ Everything here is pure: a Trip and bench inputs in, a new Trip out (with a
 :class:`core.records.models.LabResult` appended to the bottle); no disk, no clock (``now`` is passed in).
 
 A result is never replaced. A second titration (or BOD) of the same bottle needs a reason; it is
-appended, and the earlier result stays in place, marked superseded in its ``inputs`` and ``notes``.
+appended, and the earlier result stays in place with ``status`` "superseded" and
+``superseded_by``/``superseded_at``/``superseded_reason`` set; the new one lists it in
+``supersedes``. Findings are the result's typed ``flags``; ``status`` is "valid" or "invalid"
+(a stop-and-check finding) for a live result (core.records.models.LabResult).
 
-Layout of ``LabResult.inputs`` (the models have no fields for flags or superseding, so they live here):
+Layout of ``LabResult.inputs``:
 
 =================  ==========================================================================
 ``entered``        the bench values as the analyst typed them (text from the CLI, else numbers)
 ``used``           the numbers the calculation used (mL, eq/L, mg/L, ...)
 ``derived``        intermediate values: original sample volume, normality and its source,
                    holding time, the meter's DO at that stop, BOD dilutions ...
-``flags``          findings, each ``{code, severity, message, action, field}``
-``supersedes``     ids of the earlier results this one replaces (a re-analysis)
-``superseded_by``  on an earlier result: the id of the result that replaced it, with
-                   ``superseded_at`` and ``superseded_reason``
 =================  ==========================================================================
 
 Caution: the Winkler reagents hurt people (concentrated sulfuric acid; the alkali-iodide-azide
@@ -31,12 +30,13 @@ from typing import Any
 from collections.abc import Iterable
 
 from core.flags import Flag, Severity
-from core.records.models import Bottle, LabResult, Stop, Trip, new_id
+from core.records.models import Bottle, FlagRecord, LabResult, Stop, Trip, analyte_key, new_id
 from core.science.holding import HoldingClock, bottle_holding_kind, holding_clock
 from core.science.winkler import SAFETY_NOTE
 
 __all__ = [
-    "WINKLER_ANALYTE", "BOD_ANALYTE", "WINKLER_METHOD", "BOD_METHOD", "CAUTION", "LabSettings",
+    "WINKLER_ANALYTE", "BOD_ANALYTE", "CBOD_ANALYTE", "WINKLER_METHOD", "BOD_METHOD", "CBOD_METHOD",
+    "reported_bod", "CAUTION", "LabSettings",
     "LabInputError", "Standardisation", "LabOutcome", "DuplicateCheck", "PendingBottle",
     "analyte_key", "current_result", "find_bottle", "record_winkler", "record_bod", "duplicate_checks",
     "pending_bottles", "relative_percent_difference", "WINKLER_KINDS", "BOD_KINDS", "bottle_analysis",
@@ -47,8 +47,11 @@ __all__ = [
 #: them with :func:`analyte_key`, so "do-winkler" and "do_winkler" are the same analyte.
 WINKLER_ANALYTE = "do_winkler"
 BOD_ANALYTE = "bod5"
+#: CBOD5 (nitrification inhibitor added) is its own analyte, never mixed with BOD5 (Standard Methods 5210 B).
+CBOD_ANALYTE = "cbod5"
 WINKLER_METHOD = "Standard Methods 4500-O C (Winkler, azide modification)"
 BOD_METHOD = "Standard Methods 5210 B (5-day BOD, dilution)"
+CBOD_METHOD = "Standard Methods 5210 B (5-day carbonaceous BOD, nitrification inhibited)"
 
 #: Bottle kinds each analysis accepts.
 WINKLER_KINDS = ("do-fixed", "duplicate")
@@ -56,9 +59,6 @@ BOD_KINDS = ("bod", "duplicate")
 
 CAUTION = SAFETY_NOTE  # one caution text for field and lab (core.science.winkler)
 
-#: Computed Winkler DO above this is taken as a typing or unit mistake worth a stop (common practice:
-#: streams rarely exceed about 20 mg/L even when strongly supersaturated).
-_DO_IMPLAUSIBLE_MG_L = 20.0
 #: BOD incubator temperature, 20 ± 1 °C (Standard Methods 5210 B, from memory).
 _INCUBATOR_C = (19.0, 21.0)
 _NOTES_MAX = 2000
@@ -85,6 +85,10 @@ class LabSettings:
     duplicate_rpd_percent : float
         Largest accepted relative percent difference between a bottle and its field duplicate,
         % (> 0 to 200). Default 20 [common practice].
+    duplicate_abs_mg_l : float
+        Largest accepted absolute difference between a Winkler DO bottle and its field duplicate, mg/L
+        (> 0 to 5). Default 0.2 [common practice]: beside the RPD, which at low DO is large for a small
+        difference and at high DO small for a large one.
     standardisation_max_age_h : float
         A thiosulfate standardisation older than this when the sample is titrated gets a note, h
         (> 0). Default 24 [common practice: standardise daily].
@@ -96,6 +100,7 @@ class LabSettings:
 
     meter_tolerance_mg_l: float = 0.5
     duplicate_rpd_percent: float = 20.0
+    duplicate_abs_mg_l: float = 0.2
     standardisation_max_age_h: float = 24.0
     holding_overrides_h: dict[str, float] = field(default_factory=dict)
     future_slack_s: float = 300.0
@@ -103,6 +108,7 @@ class LabSettings:
     def __post_init__(self) -> None:
         _num(self.meter_tolerance_mg_l, "meter_tolerance_mg_l", 0.0, 5.0, "mg/L", lo_open=True)
         _num(self.duplicate_rpd_percent, "duplicate_rpd_percent", 0.0, 200.0, "%", lo_open=True)
+        _num(self.duplicate_abs_mg_l, "duplicate_abs_mg_l", 0.0, 5.0, "mg/L", lo_open=True)
         _num(self.standardisation_max_age_h, "standardisation_max_age_h", 0.0, 24 * 366.0, "h", lo_open=True)
         _num(self.future_slack_s, "future_slack_s", 0.0, 86400.0, "s")
 
@@ -177,16 +183,10 @@ def _fmt_h(hours: float) -> str:
     return f"{hours:.1f} h" if abs(hours) < 48 else f"{hours / 24:.1f} days"
 
 
-def analyte_key(analyte: str) -> str:
-    """The analyte name compared case- and separator-blind ("do-winkler" == "DO_Winkler")."""
-    return str(analyte).strip().lower().replace("-", "_").replace(" ", "_")
-
-
 def current_result(bottle: Bottle, analyte: str) -> LabResult | None:
     """The bottle's latest result for `analyte` that no later result superseded (None when none)."""
     key = analyte_key(analyte)
-    live = [r for r in bottle.lab_results
-            if analyte_key(r.analyte) == key and not (r.inputs or {}).get("superseded_by")]
+    live = [r for r in bottle.lab_results if analyte_key(r.analyte) == key and r.live]
     return live[-1] if live else None
 
 
@@ -277,23 +277,23 @@ def _append(trip: Trip, stop: Stop, bottle: Bottle, result: LabResult, analyte: 
             redo_reason: str | None, at: datetime) -> tuple[Trip, Stop, Bottle, list[str]]:
     """The trip with `result` appended to the bottle; earlier live results of the analyte marked superseded."""
     key = analyte_key(analyte)
-    live = [r for r in bottle.lab_results if analyte_key(r.analyte) == key and not (r.inputs or {}).get("superseded_by")]
+    live = [r for r in bottle.lab_results if analyte_key(r.analyte) == key and r.live]
     live_ids = {r.id for r in live}
     superseded: list[str] = []
     results: list[LabResult] = []
     for r in bottle.lab_results:
         if r.id in live_ids:
-            inputs = dict(r.inputs or {})
-            inputs.update(superseded_by=result.id, superseded_at=at.isoformat(), superseded_reason=redo_reason or "")
             note = (f"Superseded by result {result.id[:8]} on {at.isoformat(timespec='minutes')}"
                     f" ({redo_reason}); kept for the record.")
             notes = (r.notes + " " + note).strip() if r.notes else note
-            results.append(r.model_copy(update={"inputs": inputs, "notes": notes[:_NOTES_MAX]}))
+            results.append(r.model_copy(update={
+                "status": "superseded", "superseded_by": result.id, "superseded_at": at,
+                "superseded_reason": (redo_reason or "")[:400], "notes": notes[:_NOTES_MAX]}))
             superseded.append(r.id)
         else:
             results.append(r)
     if superseded:
-        result = result.model_copy(update={"inputs": {**result.inputs, "supersedes": superseded}})
+        result = result.model_copy(update={"supersedes": superseded})
     results.append(result)
     new_bottle = bottle.model_copy(update={"lab_results": results})
     new_stop = stop.model_copy(update={"bottles": [new_bottle if b.id == bottle.id else b for b in stop.bottles]})
@@ -453,6 +453,10 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
                            "Check the field sheet for the fixing time; qualify the result if it is unknown.",
                            "fixed_at"))
     fixed = bottle.fixed_at if bottle.fixed_at is not None and bottle.fixed_at >= bottle.collected_at else None
+    if fixed is not None:
+        from core.science.winkler import winkler_plausibility_flags
+
+        flags.extend(winkler_plausibility_flags(collected_at=bottle.collected_at, fixed_at=fixed))
     if bottle.fixed_at is not None and fixed is None:
         flags.append(_flag("lab.fixing_time_doubtful", Severity.WARNING,
                            f"Bottle {bottle.label}'s fixing time ({bottle.fixed_at.isoformat(timespec='minutes')}) is"
@@ -461,14 +465,15 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
                            "Correct the field record's times.", "fixed_at"))
     clock = holding_clock("do_winkler", bottle.collected_at, analysed_at, fixed_at=fixed,
                           overrides=settings.holding_overrides_h or None)
-    start = fixed or bottle.collected_at
+    start = fixed if (clock.rule.clock_from == "fixing" and fixed is not None) else bottle.collected_at
+    from_fixing = start is not bottle.collected_at
     held_h = (analysed_at - start).total_seconds() / 3600.0
-    derived["holding"] = {"kind": "do_winkler", "from": "fixing" if fixed else "collection",
+    derived["holding"] = {"kind": "do_winkler", "from": "fixing" if from_fixing else "collection",
                           "held_h": held_h, "limit_h": clock.rule.hours, "deadline": clock.deadline.isoformat(),
                           "citation": clock.rule.citation}
     if clock.expired:
         flags.append(_flag("lab.holding_exceeded", Severity.STOP,
-                           f"Titrated {_fmt_h(held_h)} after {'fixing' if fixed else 'collection'}, past the"
+                           f"Titrated {_fmt_h(held_h)} after {'fixing' if from_fixing else 'collection'}, past the"
                            f" {clock.rule.hours:g} h Winkler holding time (deadline"
                            f" {clock.deadline.isoformat(timespec='minutes')}).",
                            "Report the result only as the program's SOP allows, qualified as past its holding time.",
@@ -502,11 +507,9 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
                                f" (air bubble, late or incomplete fixing).{seen}",
                                "Check the trip's calibration records and the field notes before relying on either"
                                " value.", "do"))
-    if do > _DO_IMPLAUSIBLE_MG_L:
-        flags.append(_flag("lab.do_implausible", Severity.STOP,
-                           f"Winkler DO {do:.2f} mg/L is above {_DO_IMPLAUSIBLE_MG_L:g} mg/L, which a stream rarely"
-                           " reaches: a typing mistake in the titrant volume or normality?",
-                           "Check the bench sheet and the normality; re-titrate if the bottle allows.", "titrant_ml"))
+    from core.science.winkler import winkler_plausibility_flags
+
+    flags.extend(winkler_plausibility_flags(do_mg_l=do, normality=n))
 
     flags.sort(key=_sev_rank, reverse=True)
     used = {"titrant_ml": float(titrant_ml), "titrated_ml": float(titrated_ml), "bottle_ml": float(bottle_ml),
@@ -519,8 +522,8 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
     result = LabResult(
         id=new_id(), analyte=WINKLER_ANALYTE, value=do, unit="mg/L", analysed_at=analysed_at,
         analyst=(analyst or "").strip()[:40], method=WINKLER_METHOD,
-        inputs={"entered": dict(entered), "used": used, "derived": derived,
-                "flags": [f.to_dict() for f in flags]},
+        inputs={"entered": dict(entered), "used": used, "derived": derived},
+        flags=[FlagRecord.from_flag(f) for f in flags],
         valid=not any(f.severity == Severity.STOP for f in flags),
         notes=_notes(notes, flags, extra))
     new_trip, new_stop, new_bottle, superseded = _append(trip, stop, bottle, result, WINKLER_ANALYTE,
@@ -537,8 +540,8 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
                incubator_temp_c: float | None = None, analysed_at: datetime, now: datetime,
                analyst: str = "", notes: str = "", redo_reason: str | None = None,
                settings: LabSettings | None = None, entered: dict[str, Any] | None = None,
-               batch: Any = None) -> LabOutcome:
-    """Appends a BOD5 result (from a dilution series) to a bod (or duplicate) bottle of `trip`.
+               nitrification_inhibitor: bool = False, batch: Any = None) -> LabOutcome:
+    """Appends a BOD5 (or CBOD5) result (from a dilution series) to a bod (or duplicate) bottle of `trip`.
 
     BOD5 is the mean of the valid dilutions (:func:`core.science.bod.bod_from_dilutions`; a dilution counts
     with depletion ≥ 2.0 mg/L and residual DO ≥ 1.0 mg/L); seeded dilutions take the seed uptake
@@ -561,6 +564,9 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
         Incubator temperature, °C (20 ± 1 accepted).
     analysed_at, now, analyst, notes, redo_reason, settings, entered
         As in :func:`record_winkler`.
+    nitrification_inhibitor : bool
+        True when a nitrification inhibitor was added: the result is CBOD5 (analyte ``cbod5``), its own
+        analyte with its own re-analysis history.
     batch : LabBatch, optional
         The bench batch the bottle was set up in: its blank, GGA check, seed controls and incubation
         fill whatever is not given here (the batch is named in ``inputs["derived"]["batch"]``).
@@ -568,7 +574,9 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
     Returns
     -------
     LabOutcome
-        Flags from core.science.bod (``bod.*``) plus ``lab.bod_holding_exceeded`` (stop-and-check),
+        The result's ``inputs["derived"]["report"]`` is the reportable value
+        (:class:`core.science.bod.BodReport` as a dict: value, qualifier, text, basis, analyte; read it with
+        :func:`reported_bod`). Flags from core.science.bod (``bod.*``) plus ``lab.bod_holding_exceeded`` (stop-and-check),
         ``lab.bod_times_missing``, ``lab.bod_blank_missing``, ``lab.bod_gga_missing`` (notes),
         ``lab.bod_incubator_temp`` (warning). ``value`` is None when no dilution is valid;
         ``valid`` is False then, or when a stop-and-check flag fired.
@@ -583,7 +591,8 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
     settings = settings or LabSettings()
     stop, bottle, flags = _analysis_bottle(trip, bottle_ref, BOD_KINDS, "not a BOD sample",
                                            analysed_at, now, settings)
-    prev = _redo_check(bottle, BOD_ANALYTE, redo_reason, "BOD5")
+    analyte, what = (CBOD_ANALYTE, "CBOD5") if nitrification_inhibitor else (BOD_ANALYTE, "BOD5")
+    prev = _redo_check(bottle, analyte, redo_reason, what)
     derived: dict[str, Any] = {}
     if batch is not None:
         derived["batch"] = {"id": batch.id, "name": batch.name}
@@ -609,13 +618,14 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
             dil = [dict(d, seed_uptake_mg_l_per_ml=d.get("seed_uptake_mg_l_per_ml", s))
                    if isinstance(d, dict) and d.get("seed_ml") else d for d in dil]
     try:
-        r = bod_from_dilutions(dil)
+        r = bod_from_dilutions(dil, nitrification_inhibitor=bool(nitrification_inhibitor))
     except ValueError as exc:
         msg = str(exc).splitlines()[0]
         raise LabInputError("dilutions", msg if msg.startswith("dilutions") else f"dilutions: {msg}") from None
     flags.extend(r.flags)
     derived["dilutions"] = [d.to_dict() for d in r.dilutions]
     derived["valid_dilutions"] = sum(1 for d in r.dilutions if d.valid)
+    derived["report"] = r.report.to_dict() if r.report is not None else None
 
     for value, name, check, code, missing, action in (
             (blank_depletion_mg_l, "blank_depletion_mg_l", blank_check, "lab.bod_blank_missing",
@@ -691,17 +701,57 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
         if incubation_start is not None and incubation_end is not None:
             entered["incubation_start"] = incubation_start.isoformat()
             entered["incubation_end"] = incubation_end.isoformat()
+        if nitrification_inhibitor:
+            entered["nitrification_inhibitor"] = True
     extra = [f"Repeat analysis: {(redo_reason or '').strip()}."] if prev is not None else []
     result = LabResult(
-        id=new_id(), analyte=BOD_ANALYTE, value=r.bod_mg_l, unit="mg/L", analysed_at=analysed_at,
-        analyst=(analyst or "").strip()[:40], method=BOD_METHOD,
-        inputs={"entered": _jsonable(entered), "used": {"dilutions": _jsonable(dil)}, "derived": derived,
-                "flags": [f.to_dict() for f in flags]},
+        # the value the 5210 B rules support: None for a bound (see the report) or dilutions not averaged
+        id=new_id(), analyte=analyte, value=(r.report.value if r.report is not None and r.report.qualifier is None
+                                             else None), unit="mg/L", analysed_at=analysed_at,
+        analyst=(analyst or "").strip()[:40], method=CBOD_METHOD if nitrification_inhibitor else BOD_METHOD,
+        inputs={"entered": _jsonable(entered), "used": {"dilutions": _jsonable(dil)}, "derived": derived},
+        flags=[FlagRecord.from_flag(f) for f in flags],
         valid=bool(r.valid) and not any(f.severity == Severity.STOP for f in flags),
         notes=_notes(notes, flags, extra))
-    new_trip, new_stop, new_bottle, superseded = _append(trip, stop, bottle, result, BOD_ANALYTE,
+    new_trip, new_stop, new_bottle, superseded = _append(trip, stop, bottle, result, analyte,
                                                          redo_reason, analysed_at)
     return LabOutcome(new_trip, new_bottle.lab_results[-1], new_stop, new_bottle, superseded, flags)
+
+
+def reported_bod(result: LabResult):
+    """The reportable BOD5/CBOD5 of a lab result (:class:`core.science.bod.BodReport`), or None when it is
+    not a BOD result or carries no dilutions to apply the rules to.
+
+    Results recorded before the report was stored get it rebuilt from their stored dilutions by the same
+    rules (:func:`core.science.bod.bod_report`).
+    """
+    from core.flags import Flag as _Flag
+    from core.science.bod import BodDilution, BodReport, bod_report
+
+    key = analyte_key(result.analyte)
+    if key not in (analyte_key(BOD_ANALYTE), analyte_key(CBOD_ANALYTE)):
+        return None
+    derived = (result.inputs or {}).get("derived") or {}
+    analyte = "CBOD5" if key == analyte_key(CBOD_ANALYTE) else "BOD5"
+    stored = derived.get("report")
+    if isinstance(stored, dict) and "text" in stored:
+        return BodReport(stored.get("value"), stored.get("qualifier"), stored["text"], stored.get("basis", ""),
+                         stored.get("analyte", analyte))
+    dils = []
+    for d in derived.get("dilutions") or []:
+        try:
+            dils.append(BodDilution(bod_mg_l=float(d["bod_mg_l"]), depletion_mg_l=float(d["depletion_mg_l"]),
+                                    valid=bool(d["valid"]),
+                                    flags=[_Flag(f["code"], Severity(f["severity"]), f.get("message", ""),
+                                                 f.get("action", ""), f.get("field"))
+                                           for f in d.get("flags") or []],
+                                    sample_ml=float(d["sample_ml"]), bottle_ml=float(d.get("bottle_ml", 300.0)),
+                                    seed_correction_mg_l=float(d.get("seed_correction_mg_l", 0.0))))
+        except (KeyError, TypeError, ValueError):
+            return None
+    if not dils:
+        return None   # nothing to apply the rules to (e.g. a result typed in from elsewhere)
+    return bod_report(dils, analyte)[0]
 
 
 def _jsonable(x: Any) -> Any:
@@ -757,7 +807,8 @@ class DuplicateCheck:
 def _dup_analyte(b: Bottle) -> str:
     """Which analysis a duplicate bottle belongs to: its results' analyte, else by fixing."""
     for r in reversed(b.lab_results):
-        if analyte_key(r.analyte) in (analyte_key(WINKLER_ANALYTE), analyte_key(BOD_ANALYTE)):
+        if analyte_key(r.analyte) in (analyte_key(WINKLER_ANALYTE), analyte_key(BOD_ANALYTE),
+                                      analyte_key(CBOD_ANALYTE)):
             return analyte_key(r.analyte)
     return analyte_key(WINKLER_ANALYTE) if b.fixed_at is not None else analyte_key(BOD_ANALYTE)
 
@@ -816,6 +867,8 @@ def bottle_clock(b: Bottle, now: datetime, *, stop_bottles: Iterable[Bottle] = (
         return None
     analyte, kind = pair
     result = current_result(b, analyte)
+    if analyte == BOD_ANALYTE and result is None:
+        result = current_result(b, CBOD_ANALYTE)     # the bottle went to CBOD5 instead: analysed
     if result is not None and result.valid is not False:
         return None
     fixed = b.fixed_at if (kind == "do_winkler" and b.fixed_at is not None
@@ -826,8 +879,7 @@ def bottle_clock(b: Bottle, now: datetime, *, stop_bottles: Iterable[Bottle] = (
 def duplicate_checks(trip: Trip, settings: LabSettings | None = None) -> list[DuplicateCheck]:
     """Each field duplicate of `trip` against its primary bottle at the same stop.
 
-    The primary is the bottle named by the duplicate's ``duplicate_of`` field (a label; kept as an
-    extra field by the models) when present, else the one bottle of the matching kind (do-fixed for
+    The primary is the bottle named by the duplicate's ``duplicate_of`` field (a label) when present, else the one bottle of the matching kind (do-fixed for
     Winkler, bod for BOD5) at the same stop. The live results (not superseded) are compared by
     relative percent difference against ``settings.duplicate_rpd_percent`` [common practice].
     """
@@ -838,7 +890,7 @@ def duplicate_checks(trip: Trip, settings: LabSettings | None = None) -> list[Du
         for dup in (b for b in stop.bottles if b.kind == "duplicate"):
             analyte = _dup_analyte(dup)
             primary_kind = "do-fixed" if analyte == analyte_key(WINKLER_ANALYTE) else "bod"
-            named = (dup.model_extra or {}).get("duplicate_of")
+            named = dup.duplicate_of
             if named:
                 cands = [b for b in stop.bottles if b.label == named and b.id != dup.id]
             else:
@@ -873,6 +925,14 @@ def duplicate_checks(trip: Trip, settings: LabSettings | None = None) -> list[Du
                                    f" differ by {rpd:.1f} %, more than the {limit:g} % limit.",
                                    "Qualify both results as the program's QA plan says and review the sampling"
                                    " and bench records.", "value"))
+            if analyte == analyte_key(WINKLER_ANALYTE) and abs(pval - dval) > settings.duplicate_abs_mg_l + 1e-9:
+                status = "disagrees"
+                flags.append(_flag("lab.duplicate_difference", Severity.WARNING,
+                                   f"Bottle {prim.label} ({pval:.2f} mg/L) and its duplicate {dup.label}"
+                                   f" ({dval:.2f} mg/L) differ by {abs(pval - dval):.2f} mg/L, more than the"
+                                   f" {settings.duplicate_abs_mg_l:g} mg/L a field duplicate DO should agree within.",
+                                   "Qualify both results as the program's QA plan says; check the fixing (air"
+                                   " bubbles) and the titrations.", "value"))
             out.append(DuplicateCheck(stop.id, stop.site_id, analyte, prim.label, dup.label, pval, dval, rpd,
                                       limit, status, flags))
     return out

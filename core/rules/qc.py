@@ -9,16 +9,23 @@ pressure.sea_level_adjusted    warning         station pressure far above the st
                                                atmosphere at the site's elevation (core.science.pressure)
 do.supersaturated              warning         % saturation above the program threshold
 do.below_criterion             warning         DO below the site's / program's criterion
+do.below_1day_minimum          warning         a spot DO below the EPA 1986 1-day minimum for the
+                                               class and life stage (core.science.criteria)
 do.hypoxic                     stop-and-check  DO below the hypoxia threshold
 calibration.out_of_tolerance   stop-and-check  pre-trip calibration reading far from the 100 %
                                                target (core.science.calibration)
 calibration.missing            warning         stops recorded but no pre-trip calibration
+pressure.flat_across_elevations warning        pressures flat across stops > 150 m apart in
+                                               elevation (core.science.pressure)
+instrument.zero_do / .barometer warning        the trip's meter's calibration log: zero-DO reading or
+                                               barometer outside its limit (core.science.calibration)
 calibration.post_trip_drift    stop-and-check  post-trip check outside tolerance (core.science.calibration)
 bottle.duplicate_label         stop-and-check  a bottle ID used twice in the trip or on the device
 bottle.not_fixed               warning         a DO (Winkler) bottle without a fixing time
 holding.expired / holding.soon (core.science.holding)  holding time passed / less than 25 % left
 temp.out_of_range              warning         water temperature outside the plausible range
 temp.looks_fahrenheit          (core.science.temperature) a °C value that looks like °F
+temp.maybe_fahrenheit          note            a °C value of 32–40 that would be 0–4 °C as °F
 temp.jump                      warning         temperature jumps implausibly between stops
 conductivity.out_of_range      warning         conductivity outside the plausible range
 conductivity.jump              warning         conductivity changes by more than a factor
@@ -40,16 +47,17 @@ from core.records.models import (DERIVED, Calibration, Derived, FlagRecord, Prog
                                  keys_by_role)
 
 __all__ = ["TRIP_KEY", "RULE_CODES", "derive", "derive_trip", "derive_document", "derive_basis", "derive_stop", "derive_calibration",
-           "stop_flags", "trip_flags", "trip_level_flags", "core_version"]
+           "stop_flags", "trip_flags", "trip_level_flags", "core_version", "calibration_elevation_m"]
 
 #: Key of trip-level findings (calibrations) in :func:`trip_flags`' result.
 TRIP_KEY = "trip"
 
 RULE_CODES = (
-    "pressure.sea_level_adjusted", "do.supersaturated", "do.below_criterion", "do.hypoxic",
-    "calibration.out_of_tolerance", "calibration.missing", "calibration.post_trip_drift",
+    "pressure.sea_level_adjusted", "do.supersaturated", "do.below_criterion", "do.below_1day_minimum", "do.hypoxic",
+    "calibration.out_of_tolerance", "calibration.missing", "pressure.flat_across_elevations",
+    "instrument.zero_do", "instrument.barometer", "calibration.post_trip_drift",
     "bottle.duplicate_label", "bottle.not_fixed", "holding.expired", "holding.soon",
-    "temp.out_of_range", "temp.looks_fahrenheit", "temp.jump", "conductivity.out_of_range",
+    "temp.out_of_range", "temp.looks_fahrenheit", "temp.maybe_fahrenheit", "temp.jump", "conductivity.out_of_range",
     "conductivity.jump", "stop.missing_required", "stop.unknown_site",
 )
 
@@ -83,13 +91,19 @@ def _criteria_for(site: Site | None, settings: ProgramSettings):
     return crit, water_class
 
 
-def derive_stop(stop: Stop, site: Site | None, settings: ProgramSettings) -> Derived | None:
-    """Saturation target, % saturation, salinity and science flags for one stop (None without T and P)."""
+def derive_stop(stop: Stop, site: Site | None, settings: ProgramSettings,
+                percent_basis: str | None = None) -> Derived | None:
+    """Saturation target, % saturation, salinity and science flags for one stop (None without T and P).
+
+    `percent_basis` is the trip meter's % basis; None uses the program setting."""
     if stop.temp is None or stop.pressure is None:
         return None
     from core.science.assess import assess_reading
 
-    kwargs: dict[str, Any] = {"method": settings.method}
+    kwargs: dict[str, Any] = {"method": settings.method,
+                              "percent_basis": percent_basis or settings.percent_basis,
+                              "compensation": settings.conductivity_compensation,
+                              "alpha": settings.conductivity_alpha_per_c}
     if stop.conductivity is not None:
         kwargs["conductivity_us_cm"] = stop.conductivity.value
         kwargs["conductivity_is_sc25"] = stop.conductivity_is_sc25
@@ -116,28 +130,59 @@ def derive_stop(stop: Stop, site: Site | None, settings: ProgramSettings) -> Der
         core_version=str(a.core_version), flags=[FlagRecord.from_flag(f) for f in a.flags])
 
 
-def derive_calibration(cal: Calibration | None, settings: ProgramSettings, *, post: bool) -> Calibration | None:
-    """The calibration with its target, difference, verdict, method and core version filled in."""
+def calibration_elevation_m(trip: Trip, sites: dict[str, Site], settings: ProgramSettings) -> float | None:
+    """Where the meter was calibrated: the program's calibration elevation, else the trip's first site."""
+    if settings.calibration_elevation_m is not None:
+        return float(settings.calibration_elevation_m)
+    for stop in sorted(trip.stops, key=lambda s: s.arrived_at):
+        site = sites.get(stop.site_id)
+        if site is not None:
+            return float(site.elevation_m)
+    return None
+
+
+def derive_calibration(cal: Calibration | None, settings: ProgramSettings, *, post: bool,
+                       elevation_m: float | None = None, instrument: Any = None) -> Calibration | None:
+    """The calibration with its target, difference, verdict, method and core version filled in.
+
+    With `elevation_m` (where the meter was calibrated), the calibration pressure gets the same checks
+    as a stop's (sea-level adjusted, far below standard). With `instrument` (the meter's
+    core.records.models.InstrumentLog), a post-trip check uses the meter's drift limit."""
     if cal is None:
         return None
     from core.science.calibration import check_calibration, post_trip_check
+    from core.science.pressure import station_pressure_flags
 
     fn = post_trip_check if post else check_calibration
     tolerance = cal.tolerance_mg_l if cal.tolerance_mg_l is not None else settings.calibration_tolerance_mg_l
     try:
+        if post and instrument is not None and cal.tolerance_mg_l is None:
+            # the meter's own drift limit (mg/L or % of the target) from its calibration log
+            from core.science.calibration import calibration_target_mg_l, drift_tolerance_mg_l
+
+            target = float(calibration_target_mg_l(cal.temp.value, cal.pressure.value, settings.method))
+            tolerance = drift_tolerance_mg_l(instrument.drift_limit, instrument.drift_unit, target)
         r = fn(cal.reading_mg_l, cal.temp.value, cal.pressure.value,
                tolerance_mg_l=tolerance, method=settings.method)
     except ValueError:
         return cal.model_copy(update={"target_mg_l": None, "difference_mg_l": None, "accepted": None,
                                       "method": settings.method, "core_version": core_version(),
                                       "flags": []})
+    flags = list(r.flags)
+    if elevation_m is not None:
+        try:
+            for f in station_pressure_flags(cal.pressure.value, elevation_m):
+                flags.append(Flag(f.code, f.severity, f"Calibration pressure: {f.message}", f.action,
+                                  "pressure"))
+        except ValueError:
+            pass
     return cal.model_copy(update={
         "target_mg_l": float(r.target_mg_l), "difference_mg_l": float(r.difference_mg_l),
         "accepted": bool(r.passed), "method": settings.method, "core_version": core_version(),
-        "flags": [FlagRecord.from_flag(f) for f in r.flags]})
+        "flags": [FlagRecord.from_flag(f) for f in flags]})
 
 
-def derive_basis(site: Site | None, settings: ProgramSettings) -> str:
+def derive_basis(site: Site | None, settings: ProgramSettings, percent_basis: str | None = None) -> str:
     """Fingerprint of what a stop's derived values depend on besides its own inputs."""
     import hashlib
 
@@ -145,6 +190,8 @@ def derive_basis(site: Site | None, settings: ProgramSettings) -> str:
 
     basis = {"site": site.model_dump(mode="json") if site is not None else None,
              "settings": settings.model_dump(mode="json"), "core": core_version()}
+    if percent_basis is not None:   # only when the trip's meter says; older fingerprints stay valid
+        basis["meter_percent_basis"] = percent_basis
     return hashlib.sha256(canonical_json_bytes(basis)).hexdigest()[:16]
 
 
@@ -176,11 +223,13 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
     bases = {} if bases is None else bases
     derived_keys = keys_by_role(DERIVED, model=Stop)
     new_stops: list[Stop] = []
+    meter_basis = trip.meter_percent_basis
     for stop, stop_doc in zip(trip.stops, doc["stops"], strict=True):
         site = sites.get(stop.site_id)
-        if stop.site_id not in bases:
-            bases[stop.site_id] = derive_basis(site, settings)
-        basis = bases[stop.site_id]
+        key = stop.site_id if meter_basis is None else f"{stop.site_id}\x00{meter_basis}"
+        if key not in bases:
+            bases[key] = derive_basis(site, settings, meter_basis)
+        basis = bases[key]
         old = old_stops.get(stop.id)
         if (old is not None and isinstance(old.get("derived"), dict)
                 and old["derived"].get("basis") == basis
@@ -192,14 +241,16 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
                 new_stops.append(stop.model_copy(update={"derived": Derived.model_validate_json(_json(old["derived"]))}))
             stop_doc["derived"] = old["derived"]
             continue
-        derived = derive_stop(stop, site, settings)
+        derived = derive_stop(stop, site, settings, meter_basis)
         if derived is not None:
             derived = derived.model_copy(update={"basis": basis})
         stop_doc["derived"] = None if derived is None else derived.model_dump(mode="json")
         new_stops.append(stop.model_copy(update={"derived": derived}))
     cals: dict[str, Calibration | None] = {}
+    cal_elevation = calibration_elevation_m(trip, sites, settings)
     for key, post in (("pre_calibration", False), ("post_check", True)):
-        cal = derive_calibration(getattr(trip, key), settings, post=post)
+        cal = derive_calibration(getattr(trip, key), settings, post=post, elevation_m=cal_elevation,
+                                 instrument=settings.instrument(trip.meter_id))
         cals[key] = cal
         doc[key] = None if cal is None else cal.model_dump(mode="json")
     return doc, trip.model_copy(update={"stops": new_stops, **cals})
@@ -356,13 +407,28 @@ def _dedupe(flags: Iterable[Flag]) -> list[Flag]:
     return out
 
 
-def trip_level_flags(trip: Trip, settings: ProgramSettings) -> list[Flag]:
-    """Calibration findings for the whole trip (the science's verdicts, stored at save time)."""
+def trip_level_flags(trip: Trip, settings: ProgramSettings, sites: dict[str, Site] | None = None) -> list[Flag]:
+    """Findings for the whole trip: calibration (the science's verdicts, stored at save time) and, with
+    the sites, pressures that stay flat across the route's elevations."""
     flags: list[Flag] = []
+    if sites:
+        from core.science.pressure import flat_pressure_flag
+
+        readings = [(f"Stop {i} ({s.site_id})", sites[s.site_id].elevation_m, s.pressure.value)
+                    for i, s in enumerate(sorted(trip.stops, key=lambda s: s.arrived_at), 1)
+                    if s.pressure is not None and s.site_id in sites]
+        try:
+            flat = flat_pressure_flag(readings)
+        except ValueError:
+            flat = None
+        if flat is not None:
+            flags.append(flat)
     pre = trip.pre_calibration
     if pre is None:
-        if trip.stops:
+        if trip.stops or trip.started_without_calibration:
             flags.append(_flag("calibration.missing", Severity.WARNING,
+                               "The crew started this trip without a pre-trip calibration (recorded at the start)."
+                               if trip.started_without_calibration else
                                "No pre-trip calibration is recorded for this trip.",
                                "Record the air calibration (or note why none was done) before relying on the DO readings.",
                                "pre_calibration"))
@@ -370,6 +436,12 @@ def trip_level_flags(trip: Trip, settings: ProgramSettings) -> list[Flag]:
         flags.extend(f.to_flag() for f in pre.flags)
     if trip.post_check is not None:
         flags.extend(f.to_flag() for f in trip.post_check.flags)
+    log = settings.instrument(trip.meter_id)
+    if log is not None:
+        try:
+            flags.extend(log.flags())
+        except ValueError:
+            pass
     return _dedupe(flags)
 
 
@@ -382,7 +454,7 @@ def trip_flags(trip: Trip, settings: ProgramSettings, now: datetime, other_bottl
     """
     labels = Counter(b.label for s in trip.stops for b in s.bottles)
     route = sorted(trip.stops, key=lambda s: s.arrived_at)
-    out: dict[str, list[Flag]] = {TRIP_KEY: trip_level_flags(trip, settings)}
+    out: dict[str, list[Flag]] = {TRIP_KEY: trip_level_flags(trip, settings, sites)}
     prev: Stop | None = None
     for stop in route:
         site = sites.get(stop.site_id) if sites is not None else None

@@ -54,9 +54,8 @@ class Rounding:
 
 
 def rounding_for(settings: ProgramSettings | None) -> Rounding:
-    """The program's reporting decimals (``reporting_decimals`` in its settings), else the defaults."""
-    extra = (settings.model_extra or {}) if settings is not None else {}
-    given = extra.get("reporting_decimals") or {}
+    """The program's reporting decimals (ProgramSettings.reporting_decimals), else the defaults."""
+    given = dict(settings.reporting_decimals) if settings is not None else {}
     known = {k: int(v) for k, v in given.items()
              if k in Rounding.__dataclass_fields__ and isinstance(v, int) and not isinstance(v, bool) and 0 <= v <= 6}
     return Rounding(**known)
@@ -152,7 +151,10 @@ def _holding(bottle: Bottle, result: LabResult, settings: ProgramSettings | None
 
 def _reported(result: LabResult, rounding: Rounding) -> tuple[float | None, str, str]:
     """(value, qualifier, text) of a result: the bench's own report when it carries one."""
-    rep = (result.inputs or {}).get("report")
+    from core.rules.lab import reported_bod
+
+    bod = reported_bod(result)   # BOD5/CBOD5 by the 5210 B reporting rules (inputs.derived.report)
+    rep = bod.to_dict() if bod is not None else (result.inputs or {}).get("report")
     if isinstance(rep, dict) and isinstance(rep.get("text"), str) and rep["text"]:
         q = rep.get("qualifier") or ""
         v = rep.get("value")
@@ -169,7 +171,7 @@ def _reported(result: LabResult, rounding: Rounding) -> tuple[float | None, str,
 
 
 def _status(result: LabResult, holding: str) -> str:
-    if (result.inputs or {}).get("superseded_by") or getattr(result, "status", None) == "superseded":
+    if result.status == "superseded":
         return "superseded"
     if result.valid is False:
         return "not valid"
@@ -185,13 +187,12 @@ def result_rows(trip: Trip, settings: ProgramSettings | None = None) -> list[Res
     for stop in sorted(trip.stops, key=lambda s: s.arrived_at):
         for b in stop.bottles:
             for r in b.lab_results:
-                inputs = r.inputs or {}
                 holding = _holding(b, r, settings)
                 value, qualifier, text = _reported(r, rounding)
-                flags = [f.get("code", "") for f in inputs.get("flags") or [] if isinstance(f, dict)]
+                flags = [f.code for f in r.flags]
                 rows.append(ResultRow(stop.id, stop.site_id, b.id, b.label, b.kind, r.id, r.analyte, value,
                                       qualifier, text, r.unit, _status(r, holding), holding, r.analyst,
-                                      r.analysed_at, r.method, inputs.get("superseded_by"), flags, r.notes))
+                                      r.analysed_at, r.method, r.superseded_by, flags, r.notes))
     return rows
 
 

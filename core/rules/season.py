@@ -20,7 +20,7 @@ __all__ = ["SeasonFilter", "TABLES", "season_tables", "site_series", "trip_in_se
 #: Table name → columns, in the order they are written.
 TABLES: dict[str, tuple[str, ...]] = {
     "stops": (
-        "trip_id", "program", "crew", "stop_id", "site_id", "site_name", "arrived_at", "closed_at",
+        "trip_id", "program", "crew", "review_state", "stop_id", "site_id", "site_name", "arrived_at", "closed_at",
         "water_temp_c", "water_temp_as_typed", "station_pressure_hpa", "station_pressure_as_typed",
         "conductivity_us_cm", "conductivity_is_sc25", "conductivity_as_typed",
         "meter_do_mg_l", "meter_do_percent", "meter_do_as_typed",
@@ -46,11 +46,13 @@ TABLES: dict[str, tuple[str, ...]] = {
 @dataclass(frozen=True)
 class SeasonFilter:
     """Which trips and stops a season export takes: trip start dates (inclusive, the trip's own
-    calendar day) and sites (stops at other sites are left out; empty: every site)."""
+    calendar day), sites (stops at other sites are left out; empty: every site) and review states
+    (``core.rules.review.STATES``, e.g. only "approved"; empty: every state)."""
 
     date_from: date | None = None
     date_to: date | None = None
     sites: tuple[str, ...] = ()
+    states: tuple[str, ...] = ()
 
     def __post_init__(self) -> None:
         if self.date_from and self.date_to and self.date_from > self.date_to:
@@ -58,8 +60,12 @@ class SeasonFilter:
 
 
 def trip_in_season(trip: Trip, flt: SeasonFilter) -> bool:
+    from core.rules.review import review_state
+
     day = trip.started_at.date()
-    return not ((flt.date_from and day < flt.date_from) or (flt.date_to and day > flt.date_to))
+    if (flt.date_from and day < flt.date_from) or (flt.date_to and day > flt.date_to):
+        return False
+    return not flt.states or review_state(trip) in flt.states
 
 
 def _t(v: datetime | None) -> str:
@@ -79,6 +85,7 @@ def season_tables(trips: Iterable[Trip], sites: dict[str, Site], settings: Progr
                   flt: SeasonFilter | None = None) -> dict[str, list[dict[str, Any]]]:
     """The five tables (:data:`TABLES`) over `trips`, filtered by `flt`, rows in trip then route order."""
     from core.rules.report import bottle_rows, criterion_mg_l, result_rows
+    from core.rules.review import review_state
 
     flt = flt or SeasonFilter()
     out: dict[str, list[dict[str, Any]]] = {name: [] for name in TABLES}
@@ -93,7 +100,8 @@ def season_tables(trips: Iterable[Trip], sites: dict[str, Site], settings: Progr
             d = s.derived
             site = sites.get(s.site_id)
             out["stops"].append({
-                "trip_id": trip.id, "program": trip.program, "crew": ";".join(trip.crew), "stop_id": s.id,
+                "trip_id": trip.id, "program": trip.program, "crew": ";".join(trip.crew),
+                "review_state": review_state(trip), "stop_id": s.id,
                 "site_id": s.site_id, "site_name": site.name if site else "", "arrived_at": _t(s.arrived_at),
                 "closed_at": _t(s.closed_at),
                 "water_temp_c": s.temp.value if s.temp else None, "water_temp_as_typed": s.temp.text if s.temp else "",

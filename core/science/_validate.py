@@ -83,7 +83,7 @@ def real(x, name: str, *, lo: float | None = None, hi: float | None = None,
     if isinstance(x, (bool, np.bool_)):
         raise _bad(name, repr(x), "is a true/false value, not a number", accepted)
     if isinstance(x, (str, bytes)):
-        raise _bad(name, repr(x), "is text, not a number (parse it with the matching parse_* function first)",
+        raise _bad(name, repr(x), "is text, not a number",
                    accepted)
     if x is None:
         raise _bad(name, "None", "is missing", accepted)

@@ -32,11 +32,13 @@ class Assessment:
     method: str
     core_version: str
     flags: list[Flag] = field(default_factory=list)
+    percent_basis: str = "local"
 
     def to_dict(self) -> dict:
         """The `streamtab sat --json` fields (do_sat_mg_l, percent_saturation, salinity, pressure_hpa,
         temp_c, method, flags) followed by the extras (do_mg_l, salinity_source,
-        specific_conductance_us_cm, core_version)."""
+        specific_conductance_us_cm, core_version, percent_basis). ``percent_saturation`` is always
+        against the local pressure, whatever the meter's % basis."""
         return {
             "do_sat_mg_l": self.do_sat_mg_l,
             "percent_saturation": self.percent_saturation,
@@ -49,12 +51,14 @@ class Assessment:
             "salinity_source": self.salinity_source,
             "specific_conductance_us_cm": self.specific_conductance_us_cm,
             "core_version": self.core_version,
+            "percent_basis": self.percent_basis,
         }
 
 
 def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=None, conductivity_is_sc25=False,
                    do_mg_l=None, do_percent=None, method="benson-krause", elevation_m=None,
-                   water_class=None, criteria=None) -> Assessment:
+                   water_class=None, criteria=None, percent_basis="local", compensation="linear",
+                   alpha=cond.KCL_ALPHA_PER_C) -> Assessment:
     """Assesses one reading: the saturation target and everything a technician should look at.
 
     Parameters
@@ -72,7 +76,8 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
     conductivity_is_sc25 : bool
         Whether ``conductivity_us_cm`` is specific conductance at 25 °C.
     do_mg_l, do_percent : float, optional
-        The DO reading, in mg/L or in % saturation (not both); the other is derived.
+        The DO reading, in mg/L or in % saturation (not both); the other is derived. ``do_percent`` is
+        the meter's %, on its ``percent_basis``.
     method : {"benson-krause", "garcia-gordon"}
         Saturation equation (:func:`core.science.oxygen.do_saturation_mg_l`).
     elevation_m : float, optional
@@ -81,6 +86,16 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
         The stream's class for the criteria check.
     criteria : core.science.criteria.Criteria, optional
         The program's criteria; default ``Criteria()``.
+    compensation : {"linear", "iso7888"}
+        Temperature compensation of the specific conductance (a program setting): linear with
+        ``alpha`` (0.015–0.030 /°C), or the ISO 7888 natural-water table; outside the table's 0–35.9 °C
+        the linear law is used with a note.
+    alpha : float
+        Linear coefficient, 1/°C; default 0.0191 (KCl, Standard Methods 2510 B [from memory]).
+    percent_basis : {"local", "sea-level"}
+        What the meter's 100 % means (:data:`core.science.oxygen.PERCENT_BASES`): saturation at the
+        station pressure, or at 760 mmHg. The returned ``percent_saturation`` is always against the
+        station pressure.
 
     Returns
     -------
@@ -93,6 +108,7 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
         Any impossible input, or both of an either/or pair given.
     """
     method = choice(method, "method", oxygen.METHODS)
+    percent_basis = choice(percent_basis, "percent_basis", oxygen.PERCENT_BASES)
     t = real(temp_c, "temp_c", lo=-5.0, hi=90.0, unit="°C")
     p = real(pressure_hpa, "pressure_hpa", lo=0.0, hi=1500.0, lo_open=True, unit="hPa")
     if not isinstance(t, float) or not isinstance(p, float):
@@ -104,6 +120,7 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
         raise ValueError("do_mg_l and do_percent were both given; accepted: one DO reading, in mg/L or in %")
 
     sc25 = None
+    comp_note = None
     if salinity is not None:
         s = real(salinity, "salinity", lo=0.0, hi=70.0)
         source = "given"
@@ -113,7 +130,16 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
             sc25 = k
             s = cond.salinity_from_specific_conductance(k)
         else:
-            sc25 = cond.specific_conductance_us_cm(k, t)
+            method_sc = choice(compensation, "compensation", cond.COMPENSATION_METHODS)
+            if method_sc == "iso7888" and not (0.0 <= t < 36.0):
+                method_sc = "linear"
+                comp_note = Flag(
+                    "conductivity.compensation_linear", Severity.NOTE,
+                    f"The ISO 7888 table covers 0–35.9 °C; at {t:g} °C the specific conductance uses the linear"
+                    f" law with α = {float(alpha):g} /°C instead.",
+                    "Nothing to do; the program's compensation setting applies inside the table's range.",
+                    "conductivity")
+            sc25 = cond.specific_conductance_us_cm(k, t, method_sc, alpha)
             s = cond.practical_salinity(k / 1000.0, t)
         source = "conductivity"
     else:
@@ -130,6 +156,8 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
             f" {s:.5f}); salinity is taken as 0, which changes the saturation by less than 0.001 %.",
             "Nothing to do unless the meter should read more: check the conductivity cell.", "salinity"))
         s = 0.0
+    if comp_note is not None:
+        flags.append(comp_note)
     hint = fahrenheit_hint(t)
     if hint is not None:
         flags.append(hint)
@@ -144,8 +172,16 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
         do = real(do_mg_l, "do_mg_l", lo=0.0, hi=70.0, unit="mg/L")
         pct = float(oxygen.percent_saturation(do, sat))
     elif do_percent is not None:
-        pct = real(do_percent, "do_percent", lo=0.0, hi=500.0, unit="%")
-        do = float(oxygen.do_mg_l_from_percent(pct, sat))
+        meter_pct = real(do_percent, "do_percent", lo=0.0, hi=500.0, unit="%")
+        do = float(oxygen.meter_percent_to_mg_l(meter_pct, t, p, s, percent_basis, method))
+        pct = float(oxygen.percent_saturation(do, sat)) if percent_basis != "local" else meter_pct
+        if percent_basis != "local":
+            flags.append(Flag(
+                "do.percent_basis_sea_level", Severity.NOTE,
+                f"The meter's {meter_pct:g} % is against 760 mmHg: {do:.2f} mg/L, which is {pct:.1f} % of"
+                f" saturation at this stop's {p:.1f} hPa.",
+                "Nothing to do if the meter is set to a 760 mmHg basis; if it reports against local pressure,"
+                " change the meter's % basis in the trip or the program settings.", "do"))
     if do is not None:
         flags.extend(do_criteria_flags(do, pct, water_class, criteria if criteria is not None else Criteria()))
     elif water_class is not None or criteria is not None:
@@ -154,5 +190,5 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
     return Assessment(
         do_sat_mg_l=sat, percent_saturation=pct, do_mg_l=do, salinity=s, salinity_source=source,
         specific_conductance_us_cm=None if sc25 is None else float(sc25), pressure_hpa=p, temp_c=t,
-        method=method, core_version=core.version(), flags=flags,
+        method=method, core_version=core.version(), flags=flags, percent_basis=percent_basis,
     )

@@ -1,6 +1,7 @@
 """BOD5 by the dilution method (Standard Methods 5210 B): dilutions, seed correction and the quality checks."""
 from __future__ import annotations
 
+import itertools
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 
@@ -10,8 +11,9 @@ from core.flags import Flag, Severity
 __all__ = [
     "MIN_DEPLETION_MG_L", "MIN_RESIDUAL_MG_L", "SEED_UPTAKE_RANGE_MG_L", "BLANK_MAX_DEPLETION_MG_L",
     "GGA_RANGE_MG_L", "INCUBATION_HOURS", "INCUBATION_TOLERANCE_HOURS",
-    "BodDilution", "BodResult", "bod_dilution", "bod_from_dilutions", "seed_uptake_per_ml", "blank_check",
-    "gga_check", "incubation_check", "DILUTION_KEYS",
+    "BodDilution", "BodResult", "BodReport", "bod_dilution", "bod_from_dilutions", "bod_report",
+    "seed_uptake_per_ml", "blank_check", "gga_check", "incubation_check", "DILUTION_KEYS",
+    "AGREEMENT_SPREAD", "SATURATION_20C_MG_L", "BOD_ANALYTES",
 ]
 
 # Standard Methods 5210 B acceptance rules [from memory unless marked].
@@ -22,6 +24,16 @@ BLANK_MAX_DEPLETION_MG_L = 0.20  # dilution-water blank [summary of the 21st edi
 GGA_RANGE_MG_L = (167.5, 228.5)  # 198 ± 30.5 mg/L glucose–glutamic acid [summary of the 21st edition's changes]
 INCUBATION_HOURS = 120.0  # 5 days
 INCUBATION_TOLERANCE_HOURS = 6.0
+#: Valid dilutions "agree" when (max − min) / mean of their BOD5 is at most this; beyond it they are not
+#: averaged. 5210 B averages valid dilutions only without evidence of toxicity or an obvious anomaly
+#: [from memory]; the 30 % figure is common practice (our choice), a constant a program may change.
+AGREEMENT_SPREAD = 0.30
+#: Oxygen saturation of fresh water at 20 °C and 1 atm, mg/L (Benson & Krause 1984; Standard Methods
+#: 4500-O Table 4500-O:I gives 9.092). An initial DO above it is supersaturated at the incubation
+#: temperature; the lab's own pressure can only lower the value, so this is the generous bound.
+SATURATION_20C_MG_L = 9.092
+#: The two analytes: BOD5 and CBOD5 (nitrification inhibitor added), never mixed (Standard Methods 5210 B).
+BOD_ANALYTES = ("BOD5", "CBOD5")
 
 DILUTION_KEYS = ("initial_do_mg_l", "final_do_mg_l", "sample_ml", "bottle_ml", "seed_ml", "seed_uptake_mg_l_per_ml")
 _REQUIRED = DILUTION_KEYS[:3]
@@ -47,16 +59,41 @@ class BodDilution:
 
 
 @dataclass(frozen=True)
+class BodReport:
+    """What a lab reports for one sample (Standard Methods 5210 B reporting rules [from memory]).
+
+    ``value`` with ``qualifier`` None is a measured BOD5 (the mean of agreeing valid dilutions);
+    ``qualifier`` "<" or ">" makes ``value`` a bound; ``value`` None means the rules support no value
+    (``text`` says why). ``text`` is what a report prints, e.g. ``"< 2.0 mg/L"``. ``basis`` names the rule
+    used: "mean", "single", "below-bound", "above-bound", "trend", "disagree", "between", "none".
+    """
+
+    value: float | None
+    qualifier: str | None
+    text: str
+    basis: str
+    analyte: str = "BOD5"
+
+    def to_dict(self) -> dict:
+        return {"value": self.value, "qualifier": self.qualifier, "text": self.text, "basis": self.basis,
+                "analyte": self.analyte}
+
+
+@dataclass(frozen=True)
 class BodResult:
-    """BOD5 of one sample from its dilutions: the mean of the valid ones, or None when none is valid."""
+    """BOD5 of one sample from its dilutions: the mean of the valid ones (None when none is valid) and
+    the reportable result (:class:`BodReport`)."""
 
     bod_mg_l: float | None
     valid: bool
     dilutions: list[BodDilution] = field(default_factory=list)
     flags: list[Flag] = field(default_factory=list)
+    report: BodReport | None = None
+    analyte: str = "BOD5"
 
     def to_dict(self) -> dict:
-        return {"bod_mg_l": self.bod_mg_l, "valid": self.valid,
+        return {"bod_mg_l": self.bod_mg_l, "valid": self.valid, "analyte": self.analyte,
+                "report": None if self.report is None else self.report.to_dict(),
                 "dilutions": [d.to_dict() for d in self.dilutions], "flags": [f.to_dict() for f in self.flags]}
 
 
@@ -116,6 +153,20 @@ def bod_dilution(initial_do_mg_l, final_do_mg_l, sample_ml, bottle_ml=300.0, see
     p = v / b
     bod = (depletion - seed_corr) / p  # Standard Methods 5210 B: [(D1 − D2) − S·Vs] / P
     flags: list[Flag] = []
+    if d1 > SATURATION_20C_MG_L + _EPS:
+        flags.append(Flag(
+            "bod.initial_supersaturated", Severity.WARNING,
+            f"The {v:g} mL dilution started at {d1:.2f} mg/L, above saturation at 20 °C ({SATURATION_20C_MG_L:g}"
+            " mg/L at sea level): the extra oxygen leaves the bottle during incubation and counts as demand.",
+            "Bring supersaturated samples to 20 °C and shake or aerate them before setting up (Standard"
+            " Methods 5210 B).", "initial_do_mg_l"))
+    if d2 > d1 + _EPS:
+        flags.append(Flag(
+            "bod.final_above_initial", Severity.WARNING,
+            f"The {v:g} mL dilution ended with more oxygen ({d2:.2f} mg/L) than it started with ({d1:.2f} mg/L):"
+            " a bottle or reading mix-up, an air bubble, or algae growing in light.",
+            "Check the bench sheet for swapped readings and that the bottles were incubated dark and sealed.",
+            "final_do_mg_l"))
     if depletion < MIN_DEPLETION_MG_L - _EPS:
         flags.append(Flag(
             "bod.depletion_too_small", Severity.WARNING,
@@ -154,25 +205,29 @@ def _args(d: object, i: int, what: str, keys: tuple[str, ...], required: tuple[s
     return d
 
 
-def bod_from_dilutions(dilutions: list[dict]) -> BodResult:
-    """BOD5 of a sample from several dilutions: the mean of the valid ones.
+def bod_from_dilutions(dilutions: list[dict], *, nitrification_inhibitor: bool = False) -> BodResult:
+    """BOD5 (or CBOD5) of a sample from several dilutions, with its reportable result.
 
     Parameters
     ----------
     dilutions : list of dict
         Each with the keyword arguments of :func:`bod_dilution` (``initial_do_mg_l``, ``final_do_mg_l``,
         ``sample_ml``, optional ``bottle_ml``, ``seed_ml``, ``seed_uptake_mg_l_per_ml``).
+    nitrification_inhibitor : bool
+        True when a nitrification inhibitor was added: the result is CBOD5, its own analyte.
 
     Returns
     -------
     BodResult
-        ``bod_mg_l`` the mean of the valid dilutions (None when none is valid, with a
-        ``bod.no_valid_dilution`` stop-and-check flag); each dilution's own flags are kept in
-        ``dilutions`` and repeated in ``flags``.
+        ``bod_mg_l`` the mean of the valid dilutions (None when none is valid); ``report`` the value to
+        report by :func:`bod_report`; each dilution's own flags are kept in ``dilutions`` and repeated
+        in ``flags``, followed by the report's flags.
     """
     if not isinstance(dilutions, (list, tuple)) or not dilutions:
         raise ValueError("dilutions is empty or not a list; accepted: a list of dilutions, each with"
                          f" {', '.join(_REQUIRED)}")
+    if not isinstance(nitrification_inhibitor, bool):
+        raise ValueError("nitrification_inhibitor must be true or false")
     results = []
     for i, d in enumerate(dilutions):
         _args(d, i, "dilutions", DILUTION_KEYS, _REQUIRED)
@@ -180,17 +235,122 @@ def bod_from_dilutions(dilutions: list[dict]) -> BodResult:
             results.append(bod_dilution(**d))
         except ValueError as exc:
             raise ValueError(f"dilutions[{i}]: {exc}") from None
-    flags = [f for r in results for f in r.flags]
+    analyte = BOD_ANALYTES[1] if nitrification_inhibitor else BOD_ANALYTES[0]
+    report, report_flags = bod_report(results, analyte)
+    flags = [f for r in results for f in r.flags] + report_flags
     good = [r.bod_mg_l for r in results if r.valid]
-    if not good:
-        flags.append(Flag(
-            "bod.no_valid_dilution", Severity.STOP,
-            f"None of the {len(results)} dilutions met both rules (depletion ≥ {MIN_DEPLETION_MG_L:g} mg/L and"
-            f" residual ≥ {MIN_RESIDUAL_MG_L:g} mg/L), so no BOD5 can be reported from them.",
-            "Report the sample as the program's SOP says for an invalid BOD (e.g. as greater or less than a"
-            " bound) and choose other dilutions next time.", "dilutions"))
-        return BodResult(bod_mg_l=None, valid=False, dilutions=results, flags=flags)
-    return BodResult(bod_mg_l=sum(good) / len(good), valid=True, dilutions=results, flags=flags)
+    mean = sum(good) / len(good) if good else None
+    return BodResult(bod_mg_l=mean, valid=bool(good), dilutions=results, flags=flags, report=report,
+                     analyte=analyte)
+
+
+def _mg(x: float) -> str:
+    return f"{x:.1f} mg/L"
+
+
+def bod_report(dilutions: list[BodDilution], analyte: str = "BOD5") -> tuple[BodReport, list[Flag]]:
+    """The reportable BOD5 of one sample from its dilution results (Standard Methods 5210 B [from memory]).
+
+    - Valid dilutions (depletion ≥ 2.0 mg/L, residual ≥ 1.0 mg/L) that agree (spread at most
+      :data:`AGREEMENT_SPREAD` of their mean) are averaged.
+    - Valid dilutions whose BOD5 rises or falls steadily with dilution are not averaged: flag
+      ``bod.dilution_trend`` (toxicity or a seed problem); the most dilute valid bottle is named as the
+      least affected, and no value is reported. Disagreeing dilutions without a trend: ``bod.dilutions_disagree``.
+    - No dilution depleted 2.0 mg/L: report "< 2.0 / P" with P the largest sample fraction
+      (undiluted: "< 2.0 mg/L"), flag ``bod.reported_below_bound`` (note).
+    - Every dilution left less than 1.0 mg/L: report "> (D1 − D2) / P" from the smallest sample
+      fraction, flag ``bod.reported_above_bound`` (warning).
+    - Otherwise (no valid dilution, neither rule): ``bod.no_valid_dilution`` (stop-and-check), with the
+      bounds the dilutions do give.
+
+    Returns
+    -------
+    (BodReport, list of Flag)
+    """
+    if analyte not in BOD_ANALYTES:
+        raise ValueError(f"analyte = {analyte!r} is not known; accepted: {', '.join(BOD_ANALYTES)}")
+    if not dilutions:
+        raise ValueError("dilutions is empty; accepted: at least one dilution result")
+    a = analyte
+    valid = sorted((d for d in dilutions if d.valid), key=lambda d: d.sample_ml / d.bottle_ml)
+    if valid:
+        values = [d.bod_mg_l for d in valid]
+        mean = sum(values) / len(values)
+        if len(values) == 1:
+            return BodReport(values[0], None, _mg(values[0]), "single", a), []
+        spread = (max(values) - min(values)) / abs(mean) if mean else float("inf")
+        if spread <= AGREEMENT_SPREAD + 1e-12:
+            return BodReport(mean, None, _mg(mean), "mean", a), []
+        listed = ", ".join(f"{v:.1f}" for v in values)
+        steps = [b - c for b, c in itertools.pairwise(values)]   # from the most dilute to the least
+        most_dilute = valid[0]
+        if all(x > 0 for x in steps) or all(x < 0 for x in steps):
+            way = "rises" if steps[0] > 0 else "falls"
+            text = (f"not averaged: {a} {way} with dilution ({listed} mg/L from the most to the least dilute);"
+                    f" the most dilute valid bottle ({most_dilute.sample_ml:g} mL, {_mg(most_dilute.bod_mg_l)})"
+                    " is the least affected")
+            flag = Flag(
+                "bod.dilution_trend", Severity.STOP,
+                f"The valid dilutions give {listed} mg/L, {way} steadily with dilution: a sign of a toxic"
+                " sample (BOD rising as the sample is diluted) or of a seed or dilution-water problem, so"
+                " they are not averaged.",
+                "Report only as the program's SOP allows (e.g. the most dilute bottle, qualified); check the"
+                " sample for toxicity and the seed, and rerun with other dilutions.", "dilutions")
+            return BodReport(None, None, text, "trend", a), [flag]
+        text = f"not averaged: the valid dilutions disagree ({listed} mg/L)"
+        flag = Flag(
+            "bod.dilutions_disagree", Severity.STOP,
+            f"The valid dilutions give {listed} mg/L, more than {AGREEMENT_SPREAD:.0%} apart and with no steady"
+            " trend: an obvious anomaly, so they are not averaged.",
+            "Check the bench sheet for a mistake in one bottle; report only as the program's SOP allows.",
+            "dilutions")
+        return BodReport(None, None, text, "disagree", a), [flag]
+
+    by_fraction = sorted(dilutions, key=lambda d: d.sample_ml / d.bottle_ml)
+    if all(d.depletion_mg_l < MIN_DEPLETION_MG_L - _EPS for d in dilutions):
+        largest = by_fraction[-1]
+        p = largest.sample_ml / largest.bottle_ml
+        bound = MIN_DEPLETION_MG_L / p
+        text = f"< {_mg(bound)}"
+        flag = Flag(
+            "bod.reported_below_bound", Severity.NOTE,
+            f"No dilution used {MIN_DEPLETION_MG_L:g} mg/L of oxygen; the {a} is reported as {text}, the"
+            f" {MIN_DEPLETION_MG_L:g} mg/L depletion divided by the largest sample fraction ({largest.sample_ml:g}"
+            f" of {largest.bottle_ml:g} mL).",
+            "Nothing to do for a clean stream; use a larger sample volume if a lower bound is needed.", "dilutions")
+        return BodReport(bound, "<", text, "below-bound", a), [flag]
+    if all(_residual_low(d) for d in dilutions):
+        smallest = by_fraction[0]
+        bound = smallest.bod_mg_l
+        text = f"> {_mg(bound)}"
+        flag = Flag(
+            "bod.reported_above_bound", Severity.WARNING,
+            f"Every dilution ended below {MIN_RESIDUAL_MG_L:g} mg/L of oxygen; the {a} is reported as {text}, from"
+            f" the smallest sample volume ({smallest.sample_ml:g} mL).",
+            "Report as a lower bound; use smaller sample volumes next time.", "dilutions")
+        return BodReport(bound, ">", text, "above-bound", a), [flag]
+    lows = [d for d in dilutions if _residual_low(d)]
+    smalls = [d for d in dilutions if d.depletion_mg_l < MIN_DEPLETION_MG_L - _EPS and not _residual_low(d)]
+    text = "no valid dilution"
+    basis = "none"
+    if lows and smalls:
+        lower = max(d.bod_mg_l for d in lows)
+        upper = min(MIN_DEPLETION_MG_L / (d.sample_ml / d.bottle_ml) for d in smalls)
+        if lower < upper:
+            text = f"no valid dilution: {a} between {lower:.1f} and {_mg(upper)}"
+            basis = "between"
+    flag = Flag(
+        "bod.no_valid_dilution", Severity.STOP,
+        f"None of the {len(dilutions)} dilutions met both rules (depletion ≥ {MIN_DEPLETION_MG_L:g} mg/L and"
+        f" residual ≥ {MIN_RESIDUAL_MG_L:g} mg/L), and neither the < nor the > rule applies, so no {a} can be"
+        " reported from them.",
+        "Report the sample as the program's SOP says for an invalid BOD and choose other dilutions next time.",
+        "dilutions")
+    return BodReport(None, None, text, basis, a), [flag]
+
+
+def _residual_low(d: BodDilution) -> bool:
+    return any(f.code == "bod.residual_too_low" for f in d.flags)
 
 
 def seed_uptake_per_ml(controls: list[dict]) -> float:
@@ -235,9 +395,17 @@ def seed_uptake_per_ml(controls: list[dict]) -> float:
 def blank_check(depletion_mg_l) -> Flag | None:
     """Dilution-water blank: depletion over 5 d must not exceed 0.20 mg/L (Standard Methods 5210 B).
 
-    Returns ``bod.blank_depletion`` (warning) when it does, else None.
+    Returns ``bod.blank_depletion`` (warning) when it does, ``bod.blank_negative`` (warning) when the
+    blank gained oxygen (a negative depletion: a reading or bottle mistake, or air in the bottle), else None.
     """
     d = real(depletion_mg_l, "depletion_mg_l", lo=-70.0, hi=70.0, unit="mg/L")
+    if d < -_EPS:
+        return Flag(
+            "bod.blank_negative", Severity.WARNING,
+            f"The dilution-water blank gained oxygen ({d:.2f} mg/L depletion): blank water cannot make oxygen,"
+            " so a reading is wrong, the bottles were swapped, or air got into the blank.",
+            "Check the blank's readings and the meter; qualify this batch as the program's SOP says.",
+            "depletion_mg_l")
     if d <= BLANK_MAX_DEPLETION_MG_L + 1e-12:
         return None
     return Flag(

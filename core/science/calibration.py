@@ -8,7 +8,8 @@ from core.flags import Flag, Severity
 from core.science.oxygen import do_saturation_mg_l, saturation_range_flags
 
 __all__ = ["DEFAULT_TOLERANCE_MG_L", "CalibrationResult", "calibration_target_mg_l", "check_calibration",
-           "post_trip_check"]
+           "post_trip_check", "ZERO_DO_LIMIT_MG_L", "BAROMETER_LIMIT_HPA", "DRIFT_UNITS", "drift_tolerance_mg_l",
+           "instrument_flags"]
 
 #: Acceptance of a calibration or post-trip check, ± mg/L. [common practice; a program setting]
 DEFAULT_TOLERANCE_MG_L = 0.2
@@ -121,3 +122,83 @@ def post_trip_check(reading_mg_l, temp_c, pressure_hpa, tolerance_mg_l=DEFAULT_T
     (stop-and-check): the trip's readings may be biased, and the program's SOP decides what follows.
     """
     return _check("post", reading_mg_l, temp_c, pressure_hpa, tolerance_mg_l, method)
+
+
+#: A meter in zero-DO solution (sodium sulfite) should read below this, mg/L. [common practice]
+ZERO_DO_LIMIT_MG_L = 0.2
+#: The meter's barometer against a reference barometer, largest accepted difference, hPa.
+#: [common practice; our choice: about 1.5 mmHg]
+BAROMETER_LIMIT_HPA = 2.0
+#: Units a drift limit may be written in: mg/L, or % of the 100 % target.
+DRIFT_UNITS = ("mg/L", "%")
+
+
+def drift_tolerance_mg_l(limit, unit: str, target_mg_l) -> float:
+    """A post-trip drift limit in mg/L from a limit in mg/L or in % of the 100 % target.
+
+    Parameters
+    ----------
+    limit : float
+        The instrument's drift limit (> 0; at most 5 mg/L or 50 %).
+    unit : {"mg/L", "%"}
+    target_mg_l : float
+        The 100 % saturation target of the check, mg/L (> 0).
+    """
+    if unit not in DRIFT_UNITS:
+        raise ValueError(f"unit = {unit!r} is not a drift unit; accepted: {', '.join(DRIFT_UNITS)}")
+    lim = real(limit, "limit", lo=0.0, hi=5.0 if unit == "mg/L" else 50.0, lo_open=True, unit=unit)
+    if unit == "mg/L":
+        return float(lim)
+    return float(real(target_mg_l, "target_mg_l", lo=0.0, lo_open=True, unit="mg/L")) * float(lim) / 100.0
+
+
+def instrument_flags(serial: str, *, zero_do_mg_l=None, zero_do_limit_mg_l=ZERO_DO_LIMIT_MG_L,
+                     barometer_difference_hpa=None, barometer_limit_hpa=BAROMETER_LIMIT_HPA) -> list[Flag]:
+    """Findings of an instrument's calibration log: the zero-DO check and the reference-barometer check.
+
+    Parameters
+    ----------
+    serial : str
+        The meter's serial number, as the crew reads it on the meter.
+    zero_do_mg_l : float, optional
+        The meter's reading in zero-DO solution, mg/L.
+    zero_do_limit_mg_l : float
+        Largest accepted zero reading, mg/L; default 0.2 [common practice].
+    barometer_difference_hpa : float, optional
+        The meter's barometer minus a reference barometer at the same place and time, hPa.
+    barometer_limit_hpa : float
+        Largest accepted difference, hPa; default 2.0 [common practice].
+
+    Returns
+    -------
+    list of Flag
+        ``instrument.zero_do`` (warning) above the zero limit; ``instrument.barometer`` (warning) outside
+        ± the barometer limit.
+
+    References
+    ----------
+    USGS National Field Manual, chapter A6.2 (2013) for the zero-DO and barometer checks [source for the
+    method; memory for the limits, which are common practice].
+    """
+    flags: list[Flag] = []
+    if zero_do_mg_l is not None:
+        z = real(zero_do_mg_l, "zero_do_mg_l", lo=-5.0, hi=25.0, unit="mg/L")
+        lim = real(zero_do_limit_mg_l, "zero_do_limit_mg_l", lo=0.0, hi=2.0, lo_open=True, unit="mg/L")
+        if z > lim:
+            flags.append(Flag(
+                "instrument.zero_do", Severity.WARNING,
+                f"Meter {serial} read {z:.2f} mg/L in zero-DO solution, above the {lim:g} mg/L limit: the sensor"
+                " reads high at low oxygen.",
+                "Change the membrane or sensor cap (or service the meter) and repeat the zero check before"
+                " trusting low readings.", "zero_do_mg_l"))
+    if barometer_difference_hpa is not None:
+        d = real(barometer_difference_hpa, "barometer_difference_hpa", lo=-200.0, hi=200.0, unit="hPa")
+        lim = real(barometer_limit_hpa, "barometer_limit_hpa", lo=0.0, hi=20.0, lo_open=True, unit="hPa")
+        if abs(d) > lim:
+            flags.append(Flag(
+                "instrument.barometer", Severity.WARNING,
+                f"Meter {serial}'s barometer differs from the reference by {d:+.1f} hPa, more than ±{lim:g} hPa:"
+                f" its calibration targets are off by about {abs(d) / 10.13:.1f} %.",
+                "Have the meter's barometer recalibrated, or enter the reference barometer's reading at"
+                " calibration.", "barometer_difference_hpa"))
+    return flags

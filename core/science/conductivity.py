@@ -4,27 +4,23 @@ from __future__ import annotations
 import csv
 import functools
 import io
-import re
 from typing import Any
 from importlib import resources
 
 import numpy as np
 
-from core.science._validate import choice, decimal, is_plain_scalar, real
+from core.science._validate import choice, is_plain_scalar, real
 
 __all__ = [
     "CONDUCTIVITY_UNITS", "US_CM_PER_UNIT", "COMPENSATION_METHODS", "KCL_ALPHA_PER_C", "C3515_MS_CM",
-    "parse_conductivity", "specific_conductance_us_cm", "conductivity_at_temp_us_cm",
+    "ALPHA_RANGE_PER_C",
+    "specific_conductance_us_cm", "conductivity_at_temp_us_cm",
     "practical_salinity", "salinity_from_specific_conductance", "iso7888_f25",
 ]
 
 #: Units accepted in text (canonical spelling); "uS/cm" and "µS/cm" are the same unit.
 CONDUCTIVITY_UNITS: tuple[str, ...] = ("uS/cm", "µS/cm", "mS/cm", "mS/m", "S/m")
 US_CM_PER_UNIT: dict[str, float] = {"uS/cm": 1.0, "µS/cm": 1.0, "mS/cm": 1000.0, "mS/m": 10.0, "S/m": 10000.0}
-_ALIASES = {"us/cm": "uS/cm", "µs/cm": "uS/cm", "μs/cm": "uS/cm", "umho/cm": "uS/cm", "µmho/cm": "uS/cm",
-            "μmho/cm": "uS/cm", "ms/cm": "mS/cm", "mmho/cm": "mS/cm", "ms/m": "mS/m", "s/m": "S/m"}
-_UNITS_TEXT = "uS/cm (µS/cm), mS/cm, mS/m, S/m"
-_NUMBER_UNIT = re.compile(r"^\s*([+-]?(?:\d+(?:[.,]\d*)?|[.,]\d+))\s*([^\d\s].*?)?\s*$")
 
 COMPENSATION_METHODS = ("linear", "iso7888")
 #: Linear temperature coefficient for KCl solutions, 1/°C (Standard Methods 2510 B) [from memory];
@@ -45,44 +41,6 @@ _C = (0.6766097, 2.00564e-2, 1.104259e-4, -6.9698e-7, 1.0031e-9)
 _D = (3.426e-2, 4.464e-4, 4.215e-1, -3.107e-3)
 _E = (2.070e-5, -6.370e-10, 3.989e-15)
 _T68_PER_T90 = 1.00024
-
-
-def parse_conductivity(text: str) -> float:
-    """Reads a conductivity written with its unit and returns µS/cm.
-
-    Parameters
-    ----------
-    text : str
-        A number and a unit: ``"410 uS/cm"``, ``"410 µS/cm"``, ``"0.41 mS/cm"``, ``"41 mS/m"``,
-        ``"0.041 S/m"`` (case-insensitive; umho/cm and mmho/cm accepted; decimal comma accepted).
-
-    Returns
-    -------
-    float
-        Conductivity in µS/cm (0 to 300 000).
-
-    Raises
-    ------
-    ValueError
-        Empty text, a bare number (µS/cm and mS/cm differ by 1000, so the unit is required), an unknown
-        unit, or a negative value.
-    """
-    if not isinstance(text, str) or not text.strip():
-        raise ValueError(f"conductivity {text!r} is empty; write a number and a unit, one of {_UNITS_TEXT}"
-                         " (e.g. '410 uS/cm')")
-    m = _NUMBER_UNIT.match(text)
-    if m is None or ("," in text and "." in text):
-        raise ValueError(f"conductivity {text!r} is not a number followed by a unit; accepted units:"
-                         f" {_UNITS_TEXT} (e.g. '410 uS/cm')")
-    if not m.group(2):
-        raise ValueError(f"conductivity {text!r} has no unit; write it with one of {_UNITS_TEXT}"
-                         " (e.g. '410 uS/cm' or '0.41 mS/cm')")
-    unit = _ALIASES.get(m.group(2).strip().lower().replace(" ", ""))
-    if unit is None:
-        raise ValueError(f"conductivity {text!r} has an unknown unit {m.group(2).strip()!r}; accepted units:"
-                         f" {_UNITS_TEXT}")
-    value = decimal(m.group(1), "conductivity") * US_CM_PER_UNIT[unit]
-    return real(value, "conductivity_us_cm", **_COND_DOMAIN)
 
 
 @functools.cache
@@ -137,8 +95,15 @@ def iso7888_f25(temp_c):
     return float(out) if is_plain_scalar(t) else out
 
 
+#: Accepted linear coefficients, 1/°C: natural waters span 0.0175–0.0198 (Hayashi 2004); beyond this range a
+#: coefficient is a typing mistake, and within it 1 + α(t − 25) stays above 0.1 for every accepted
+#: temperature (−5 °C and above), so the denominator is never zero or negative. [common practice]
+ALPHA_RANGE_PER_C = (0.015, 0.030)
+
+
 def _alpha(alpha):
-    return real(alpha, "alpha", lo=0.0, hi=0.1, unit="1/°C", note=" (natural waters 0.0175–0.0198)")
+    lo, hi = ALPHA_RANGE_PER_C
+    return real(alpha, "alpha", lo=lo, hi=hi, unit="1/°C", note=" (natural waters 0.0175–0.0198, KCl 0.0191)")
 
 
 def specific_conductance_us_cm(conductivity_us_cm, temp_c, method="linear", alpha=KCL_ALPHA_PER_C):
@@ -156,7 +121,7 @@ def specific_conductance_us_cm(conductivity_us_cm, temp_c, method="linear", alph
     method : {"linear", "iso7888"}
         Compensation.
     alpha : float
-        Linear temperature coefficient, 1/°C, 0 to 0.1; default 0.0191 (KCl).
+        Linear temperature coefficient, 1/°C, 0.015 to 0.030 (:data:`ALPHA_RANGE_PER_C`); default 0.0191 (KCl).
 
     Returns
     -------
@@ -170,7 +135,8 @@ def specific_conductance_us_cm(conductivity_us_cm, temp_c, method="linear", alph
         return k * iso7888_f25(temp_c)
     t = real(temp_c, "temp_c", **_TEMP_DOMAIN)
     a = _alpha(alpha)
-    return k / (1.0 + a * (t - 25.0))
+    denominator = 1.0 + a * (t - 25.0)   # ≥ 1 − 0.030 × 30 = 0.1 for the accepted α and t
+    return k / denominator
 
 
 def conductivity_at_temp_us_cm(sc25_us_cm, temp_c, method="linear", alpha=KCL_ALPHA_PER_C):

@@ -6,9 +6,24 @@ from dataclasses import dataclass
 from core.science._validate import real
 from core.flags import Flag, Severity
 
-__all__ = ["Criteria", "WATER_CLASSES", "do_criteria_flags"]
+__all__ = ["Criteria", "WATER_CLASSES", "LIFE_STAGES", "EPA_1986_MG_L", "SPOT_PERIOD", "do_criteria_flags"]
 
 WATER_CLASSES = ("warm", "cold")
+#: "early": early life stages (embryos and larvae) present; "other": all other life stages.
+LIFE_STAGES = ("other", "early")
+#: The averaging period a single (spot) reading can be compared with.
+SPOT_PERIOD = "1-day minimum"
+
+#: US EPA 440/5-86-003 (1986), Ambient Water Quality Criteria for Dissolved Oxygen, mg/L by water class,
+#: life stage and averaging period [from memory; confirm against the document]. Early-life-stage cold-water
+#: values are water-column concentrations. Only the 1-day minimum can be judged from a spot reading; the
+#: means need continuous data.
+EPA_1986_MG_L: dict[tuple[str, str], dict[str, float]] = {
+    ("warm", "other"): {"30-day mean": 5.5, "7-day mean minimum": 4.0, "1-day minimum": 3.0},
+    ("warm", "early"): {"7-day mean": 6.0, "1-day minimum": 5.0},
+    ("cold", "other"): {"30-day mean": 6.5, "7-day mean minimum": 5.0, "1-day minimum": 4.0},
+    ("cold", "early"): {"7-day mean": 9.5, "1-day minimum": 8.0},
+}
 
 _DECIDES = "The program's own standard decides what applies to this water."
 
@@ -31,14 +46,20 @@ class Criteria:
         [common practice].
     hypoxic_mg_l : float
         DO below which water is called hypoxic, mg/L; default 2.0 [common practice].
+    life_stage : {"other", "early"}
+        Which life stages the program protects at these streams; selects the EPA 1986 1-day minimum a
+        spot reading is compared with (:data:`EPA_1986_MG_L`). Default "other".
     """
 
     warm_min_mg_l: float = 5.0
     cold_min_mg_l: float = 6.5
     supersaturation_percent: float = 120.0
     hypoxic_mg_l: float = 2.0
+    life_stage: str = "other"
 
     def __post_init__(self) -> None:
+        if self.life_stage not in LIFE_STAGES:
+            raise ValueError(f"life_stage = {self.life_stage!r} is not known; accepted: {', '.join(LIFE_STAGES)}")
         real(self.warm_min_mg_l, "warm_min_mg_l", lo=0.0, hi=20.0, unit="mg/L")
         real(self.cold_min_mg_l, "cold_min_mg_l", lo=0.0, hi=20.0, unit="mg/L")
         real(self.supersaturation_percent, "supersaturation_percent", lo=100.0, hi=500.0, unit="%")
@@ -63,8 +84,10 @@ def do_criteria_flags(do_mg_l, percent_sat, water_class: str | None, criteria: C
     -------
     list of Flag
         ``do.hypoxic`` (stop-and-check) below ``hypoxic_mg_l``; ``do.below_criterion`` (warning) below
-        the class minimum; ``do.supersaturated`` (warning) above ``supersaturation_percent``.
-        Each message says that the program's own standard decides.
+        the class minimum; ``do.below_1day_minimum`` (warning) below the EPA 1986 1-day minimum for the
+        class and the criteria's life stage (a spot reading is compared with the 1-day minimum only, and
+        the flag says the 7- and 30-day means need continuous data); ``do.supersaturated`` (warning)
+        above ``supersaturation_percent``. Each message says that the program's own standard decides.
     """
     crit = criteria if criteria is not None else Criteria()
     if not isinstance(crit, Criteria):
@@ -93,6 +116,15 @@ def do_criteria_flags(do_mg_l, percent_sat, water_class: str | None, criteria: C
                 f" program. {_DECIDES}",
                 "Note the time of day and flow (DO is lowest near dawn); re-measure if it looks wrong.",
                 "do_mg_l"))
+        epa = EPA_1986_MG_L[(wc, crit.life_stage)]
+        one_day = epa[SPOT_PERIOD]
+        if do < one_day:
+            stage = "early life stages" if crit.life_stage == "early" else "other life stages"
+            flags.append(Flag(
+                "do.below_1day_minimum", Severity.WARNING,
+                f"DO {do:.2f} mg/L is below the EPA 1986 {SPOT_PERIOD} of {one_day:g} mg/L ({wc} water,"
+                f" {stage}); its 7- and 30-day means need continuous data. {_DECIDES}",
+                "Re-measure near dawn if you can; ask whether a logger belongs here.", "do_mg_l"))
     if percent_sat is not None:
         ps = real(percent_sat, "percent_sat", lo=0.0, hi=500.0, unit="%")
         if ps > crit.supersaturation_percent:

@@ -51,8 +51,10 @@ class HoldingRule:
 #: ``overrides`` argument of :func:`holding_clock`.
 HOLDING_TIMES: dict[str, HoldingRule] = {
     "do_probe": HoldingRule("do_probe", "dissolved oxygen, probe", 0.25, "none; analyze on site", _CFR),
+    # Fixing belongs on site at collection; the clock runs from collection (team science reference §10),
+    # so a late fixing never buys time. core.science.winkler flags the collection-to-fixing delay.
     "do_winkler": HoldingRule("do_winkler", "dissolved oxygen, Winkler", 8.0,
-                              "fix on site and store in the dark", _CFR, clock_from="fixing"),
+                              "fix on site and store in the dark", _CFR),
     "bod": HoldingRule("bod", "biochemical oxygen demand", 48.0, "cool to ≤ 6 °C, do not freeze", _CFR,
                        cool_max_c=6.0, no_freeze=True),
     "specific_conductance": HoldingRule("specific_conductance", "specific conductance", 28 * 24.0,
@@ -160,8 +162,9 @@ def holding_clock(kind: str, collected_at: datetime, now: datetime, fixed_at: da
     now : datetime
         The current time (passed in: the science has no clock).
     fixed_at : datetime, optional
-        When a Winkler sample was fixed; its clock runs from here. Without it a Winkler clock runs
-        from collection (the earlier, stricter start).
+        When a sample was fixed; checked (not before collection) and used only by a rule whose clock
+        runs from fixing. Every rule of :data:`HOLDING_TIMES` runs from collection: a Winkler sample is
+        fixed on site, and the clock starts at collection.
     overrides : dict of str to float, optional
         A program's SOP limits in hours by kind, replacing the regulation's value.
 

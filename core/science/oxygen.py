@@ -11,7 +11,8 @@ from core.flags import Flag, Severity
 
 __all__ = [
     "METHODS", "VALID_TEMP_C", "VALID_SALINITY", "VALID_PRESSURE_ATM",
-    "do_saturation_mg_l", "percent_saturation", "do_mg_l_from_percent", "saturation_range_flags",
+    "do_saturation_mg_l", "percent_saturation", "do_mg_l_from_percent", "PERCENT_BASES", "meter_percent_to_mg_l",
+    "saturation_range_flags",
     "o2_solubility_umol_kg", "seawater_density_kg_m3", "water_vapour_pressure_atm", "theta",
     "pressure_factor",
 ]
@@ -468,6 +469,49 @@ def do_mg_l_from_percent(percent, do_sat_mg_l):
     q = real(percent, "do_percent", lo=0.0, hi=500.0, unit="%")
     c = real(do_sat_mg_l, "do_sat_mg_l", lo=0.0, hi=100.0, lo_open=True, unit="mg/L")
     return q * c / 100.0
+
+
+#: What a meter's % saturation is a percentage of: saturation at the local (station) pressure, or at
+#: 760 mmHg whatever the pressure. Meters differ; at 2000 m (about 795 hPa) the two differ by about 22 %
+#: (team science reference §10 [memory]). "local" is the default.
+PERCENT_BASES = ("local", "sea-level")
+
+
+def meter_percent_to_mg_l(percent, temp_c, pressure_hpa, salinity=0.0, basis="local",
+                          method="benson-krause"):
+    """DO in mg/L from a meter's % saturation reading, on the meter's own % basis.
+
+    mg/L = % / 100 × Cp, with Cp the saturation at the water temperature and salinity and at the
+    station pressure (``basis="local"``) or at 1013.25 hPa = 760 mmHg (``basis="sea-level"``).
+
+    Parameters
+    ----------
+    percent : float or array_like
+        The meter's reading, % (0 to 500).
+    temp_c : float or array_like
+        Water temperature, °C.
+    pressure_hpa : float or array_like
+        Station pressure, hPa (used only with ``basis="local"``).
+    salinity : float or array_like
+        Practical salinity.
+    basis : {"local", "sea-level"}
+        What the meter's 100 % means.
+    method : str
+        Saturation equation (:func:`do_saturation_mg_l`).
+
+    Returns
+    -------
+    float or numpy.ndarray
+        DO, mg/L.
+
+    References
+    ----------
+    USGS National Field Manual, chapter A6.2 (2013) for % saturation against the local pressure; the
+    760 mmHg basis some meters use is from the trade [common practice].
+    """
+    b = choice(basis, "basis", PERCENT_BASES)
+    p = pressure_hpa if b == "local" else 1013.25
+    return do_mg_l_from_percent(percent, do_saturation_mg_l(temp_c, p, salinity, method))
 
 
 def saturation_range_flags(temp_c, pressure_hpa, salinity) -> list[Flag]:

@@ -1,18 +1,16 @@
 """Air pressure: units, parsing, the standard atmosphere, and a check for sea-level-adjusted readings."""
 from __future__ import annotations
 
-import re
-
 import numpy as np
 
-from core.science._validate import decimal, is_plain_scalar, real
+from core.science._validate import is_plain_scalar, real
 from core.flags import Flag, Severity
 
 __all__ = [
     "PRESSURE_UNITS", "HPA_PER_UNIT", "STANDARD_ATMOSPHERE_HPA", "SEA_LEVEL_ADJUSTED_THRESHOLD_HPA",
-    "parse_pressure", "to_hpa", "from_hpa", "standard_pressure_hpa", "sea_level_to_station_hpa",
+    "to_hpa", "from_hpa", "standard_pressure_hpa", "sea_level_to_station_hpa",
     "station_to_sea_level_hpa", "sea_level_adjusted_flag", "FAR_BELOW_THRESHOLD_HPA", "far_below_standard_flag",
-    "station_pressure_flags",
+    "station_pressure_flags", "flat_pressure_flag", "FLAT_MIN_SPREAD_M", "FLAT_FRACTION",
 ]
 
 #: Units accepted in text and by :func:`to_hpa` / :func:`from_hpa` (canonical spelling).
@@ -35,13 +33,6 @@ HPA_PER_UNIT: dict[str, float] = {
     "psi": 68.94757293168,
 }
 
-# Spellings people write, lower-cased and without spaces, mapped to the canonical unit.
-_ALIASES: dict[str, str] = {
-    "hpa": "hPa", "mbar": "mbar", "mb": "mbar", "millibar": "mbar", "millibars": "mbar",
-    "kpa": "kPa", "pa": "Pa", "mmhg": "mmHg", "torr": "torr", "inhg": "inHg", 'in.hg': "inHg",
-    '"hg': "inHg", "atm": "atm", "psi": "psi", "psia": "psi",
-}
-
 #: A station reading more than this far above the standard atmosphere at the site's elevation looks
 #: sea-level adjusted. Weather moves station pressure roughly ±30 hPa about the standard value
 #: (a strong high at sea level is about 1040 hPa); 40 hPa clears that, fires on a sea-level value
@@ -58,63 +49,16 @@ _USSA_K = 2.25577e-5  # L/T0 = 0.0065 K/m / 288.15 K, per metre
 _USSA_EXP = 5.25588  # g0 M / (R* L)
 ELEVATION_RANGE_M = (-500.0, 11000.0)  # the troposphere layer of the 1976 standard (and the Dead Sea shore)
 
-_NUMBER_UNIT = re.compile(r"^\s*([+-]?(?:\d+(?:[.,]\d*)?|[.,]\d+))\s*([^\d\s].*?)?\s*$")
 _UNITS_TEXT = ", ".join(PRESSURE_UNITS)
 
 
 def _unit(unit: str, name: str = "unit") -> str:
-    if isinstance(unit, str):
-        key = unit.strip().lower().replace(" ", "")
-        if key in _ALIASES:
-            return _ALIASES[key]
-    raise ValueError(f"{name} = {unit!r} is not a pressure unit; accepted: {_UNITS_TEXT}")
+    from core.science.quantities import canonical_unit
 
-
-def parse_pressure(text: str) -> float:
-    """Reads a pressure written with its unit and returns it in hPa.
-
-    Parameters
-    ----------
-    text : str
-        A number and a unit, e.g. ``"752 mmHg"``, ``"29.61inHg"``, ``"1002.3 hPa"`` or with a decimal
-        comma ``"1002,3 hPa"``. Units (case-insensitive): hPa, mbar (mb), kPa, Pa, mmHg, torr, inHg,
-        atm, psi.
-
-    Returns
-    -------
-    float
-        Pressure in hPa (> 0).
-
-    Raises
-    ------
-    ValueError
-        Empty text, a bare number (the unit is required: mmHg, inHg and hPa values overlap in
-        plausible ranges), an unknown unit, both a decimal comma and point, or a value <= 0.
-    """
-    if not isinstance(text, str) or not text.strip():
-        raise ValueError(f"pressure {text!r} is empty; write a number and a unit, one of {_UNITS_TEXT}"
-                         " (e.g. '752 mmHg')")
-    if "," in text and "." in text:
-        raise ValueError(f"pressure {text!r} has both a decimal comma and a decimal point; write one"
-                         " decimal mark and a unit, e.g. '1002.3 hPa'")
-    m = _NUMBER_UNIT.match(text)
-    if m is None:
-        raise ValueError(f"pressure {text!r} is not a number followed by a unit; accepted units:"
-                         f" {_UNITS_TEXT} (e.g. '752 mmHg')")
-    number, unit_text = m.group(1), m.group(2)
-    if not unit_text:
-        raise ValueError(f"pressure {text!r} has no unit; write it with one of {_UNITS_TEXT}"
-                         " (e.g. '752 mmHg' or '1002.3 hPa')")
-    try:
-        unit = _unit(unit_text)
-    except ValueError:
-        raise ValueError(f"pressure {text!r} has an unknown unit {unit_text.strip()!r}; accepted units:"
-                         f" {_UNITS_TEXT}") from None
-    value = decimal(number, "pressure")
-    if not value > 0.0:
-        raise ValueError(f"pressure {text!r} is not above zero; an air pressure is a positive number"
-                         f" with a unit, one of {_UNITS_TEXT}")
-    return value * HPA_PER_UNIT[unit]
+    u = canonical_unit("pressure", unit)
+    if u is None:
+        raise ValueError(f"{name} = {unit!r} is not a pressure unit; accepted: {_UNITS_TEXT}")
+    return u
 
 
 def to_hpa(value, unit: str):
@@ -301,3 +245,66 @@ def station_pressure_flags(pressure_hpa: float, elevation_m: float) -> list[Flag
     """
     flags = [sea_level_adjusted_flag(pressure_hpa, elevation_m), far_below_standard_flag(pressure_hpa, elevation_m)]
     return [f for f in flags if f is not None]
+
+
+#: Stops whose elevations differ by more than this are checked for a flat pressure series: 150 m is about
+#: 18 hPa of standard-atmosphere difference, well above what weather changes in a day's route.
+#: [common practice; our choice]
+FLAT_MIN_SPREAD_M = 150.0
+#: A series is "flat" when the pressure difference between the lowest and the highest stop is less than
+#: this fraction of the standard atmosphere's difference between them. [common practice; our choice]
+FLAT_FRACTION = 0.5
+
+
+def flat_pressure_flag(readings) -> Flag | None:
+    """Flags station pressures that stay flat across stops at very different elevations (sea-level adjusted).
+
+    Near sea level the standard atmosphere falls about 0.12 hPa per metre (1 hPa ≈ 8.3 m), so stops
+    more than :data:`FLAT_MIN_SPREAD_M` apart in elevation should differ by tens of hPa. Readings that
+    stay flat across such a spread look sea-level adjusted, even at low sites where the single-reading
+    check (:func:`sea_level_adjusted_flag`) cannot tell adjustment from weather.
+
+    Parameters
+    ----------
+    readings : iterable of (str, float, float)
+        (where, elevation_m, pressure_hpa) per stop: a label a person recognises, the site elevation
+        (m, −500 to 11 000) and the station pressure (hPa, > 0).
+
+    Returns
+    -------
+    Flag or None
+        ``pressure.flat_across_elevations`` (warning) when the lowest and the highest stop differ by more
+        than :data:`FLAT_MIN_SPREAD_M` in elevation and their pressures differ by less than
+        :data:`FLAT_FRACTION` of the standard atmosphere's difference; else None.
+
+    References
+    ----------
+    US Standard Atmosphere 1976 (troposphere); the 0.12 hPa per metre rule of thumb follows from it
+    (team science reference §10).
+    """
+    rows = []
+    for where, h, p in readings:
+        rows.append((str(where), float(_elevation(h)),
+                     float(real(p, "pressure_hpa", lo=0.0, lo_open=True, unit="hPa"))))
+    if len(rows) < 2:
+        return None
+    low = min(rows, key=lambda r: r[1])
+    high = max(rows, key=lambda r: r[1])
+    spread = high[1] - low[1]
+    if spread <= FLAT_MIN_SPREAD_M:
+        return None
+    expected = float(standard_pressure_hpa(low[1]) - standard_pressure_hpa(high[1]))
+    observed = low[2] - high[2]
+    if observed >= FLAT_FRACTION * expected:
+        return None
+    return Flag(
+        code="pressure.flat_across_elevations",
+        severity=Severity.WARNING,
+        message=(f"{low[0]} at {low[1]:.0f} m read {low[2]:.1f} hPa and {high[0]} at {high[1]:.0f} m read"
+                 f" {high[2]:.1f} hPa: {observed:.1f} hPa apart, where the standard atmosphere falls about"
+                 f" {expected:.0f} hPa over those {spread:.0f} m (about 0.12 hPa per metre). Readings that stay"
+                 " flat across elevations look sea-level adjusted."),
+        action=("Check where the pressures came from: use the barometer's station (absolute) reading, not a"
+                " weather report or an altimeter-corrected value."),
+        field="pressure_hpa",
+    )

@@ -7,12 +7,16 @@ as local regulations require.
 """
 from __future__ import annotations
 
+from datetime import datetime
+
 import numpy as np
 
+from core.flags import Flag, Severity
 from core.science._validate import real
 
 __all__ = ["MG_O_PER_MEQ", "original_sample_ml", "winkler_do_mg_l", "expected_titrant_ml", "thiosulfate_normality",
-           "SAFETY_NOTE"]
+           "SAFETY_NOTE", "USUAL_NORMALITY", "NORMALITY_RANGE", "DO_IMPLAUSIBLE_MG_L", "FIXING_DELAY_MAX_MIN",
+           "winkler_plausibility_flags"]
 
 #: One equivalent of oxygen is 8 g (1 O2 → 4 S2O3²⁻), i.e. 8000 mg per equivalent, 8 mg per meq.
 MG_O_PER_MEQ = 8.0
@@ -149,3 +153,77 @@ def thiosulfate_normality(titrant_ml, standard_ml=20.0, standard_normality=0.025
     v = real(standard_ml, "standard_ml", lo=0.0, hi=1000.0, lo_open=True, unit="mL")
     n = real(standard_normality, "standard_normality", lo=0.0, hi=1.0, lo_open=True, unit="N")
     return n * v / t
+
+
+#: The usual thiosulfate titrant: 0.025 N, where 1 mL titrant = 1 mg/L DO for 200 mL of original sample
+#: (Standard Methods 4500-O C [from memory]).
+USUAL_NORMALITY = 0.025
+#: A normality outside this range is far from the usual 0.025 N: often 0.25 or 0.0025 typed for 0.025, or
+#: a titrant that was never standardised. [common practice; our choice: ±20 %]
+NORMALITY_RANGE = (0.020, 0.030)
+#: A Winkler DO above this is taken as a typing or unit mistake: streams rarely exceed about 20 mg/L even
+#: when strongly supersaturated. [common practice]
+DO_IMPLAUSIBLE_MG_L = 20.0
+#: Fixing belongs on site at collection; more than this between collection and fixing lets the sample's
+#: oxygen change before it is fixed. [common practice; our choice]
+FIXING_DELAY_MAX_MIN = 30.0
+
+
+def winkler_plausibility_flags(do_mg_l=None, normality=None, collected_at: datetime | None = None,
+                               fixed_at: datetime | None = None) -> list[Flag]:
+    """Plausibility checks of a Winkler titration: the titrant's normality, the DO it gives, the fixing delay.
+
+    Parameters
+    ----------
+    do_mg_l : float, optional
+        The titration's DO, mg/L.
+    normality : float, optional
+        Thiosulfate normality, eq/L.
+    collected_at, fixed_at : datetime, optional
+        Collection and fixing times of the bottle (both aware or both naive).
+
+    Returns
+    -------
+    list of Flag
+        ``winkler.normality_unusual`` (warning) outside :data:`NORMALITY_RANGE`; ``winkler.do_implausible``
+        (stop-and-check) above :data:`DO_IMPLAUSIBLE_MG_L`; ``winkler.late_fixing`` (warning) when the
+        bottle was fixed more than :data:`FIXING_DELAY_MAX_MIN` minutes after collection (the holding
+        clock still runs from collection).
+
+    References
+    ----------
+    Standard Methods 4500-O C (azide modification) [from memory]; team science reference §10 (fix at
+    collection; the clock runs from collection). Limits are common practice.
+    """
+    flags: list[Flag] = []
+    if normality is not None:
+        n = real(normality, "normality", lo=0.0, hi=1.0, lo_open=True, unit="N")
+        lo, hi = NORMALITY_RANGE
+        if not (lo <= n <= hi):
+            flags.append(Flag(
+                "winkler.normality_unusual", Severity.WARNING,
+                f"The titrant normality {n:g} N is far from the usual {USUAL_NORMALITY:g} N: a typing mistake"
+                " (0.25 or 0.0025 for 0.025?) or a titrant that needs standardising.",
+                "Check the bottle label and the last bi-iodate standardisation; correct the normality.",
+                "normality"))
+    if do_mg_l is not None:
+        do = real(do_mg_l, "do_mg_l", lo=0.0, unit="mg/L")
+        if do > DO_IMPLAUSIBLE_MG_L:
+            flags.append(Flag(
+                "winkler.do_implausible", Severity.STOP,
+                f"Winkler DO {do:.2f} mg/L is above {DO_IMPLAUSIBLE_MG_L:g} mg/L, which a stream rarely reaches:"
+                " a typing mistake in the titrant volume or normality?",
+                "Check the bench sheet and the normality; re-titrate if the bottle allows.", "titrant_ml"))
+    if collected_at is not None and fixed_at is not None:
+        try:
+            delay_min = (fixed_at - collected_at).total_seconds() / 60.0
+        except TypeError:
+            raise ValueError("collected_at and fixed_at mix a time zone with none; accepted: both with a time"
+                             " zone") from None
+        if delay_min > FIXING_DELAY_MAX_MIN:
+            flags.append(Flag(
+                "winkler.late_fixing", Severity.WARNING,
+                f"The bottle was fixed {delay_min:.0f} min after collection; fixing belongs on site at collection"
+                f" (within {FIXING_DELAY_MAX_MIN:g} min here), and the holding clock ran from collection anyway.",
+                "Qualify the result as the program's SOP says; fix bottles at the stream next time.", "fixed_at"))
+    return flags

@@ -1,21 +1,42 @@
-"""The audit trail of a trip: which field paths a save changed, and the append-only merge of entries."""
+"""The audit trail of a trip: what a save changed (path, old and new value), and the append-only merge of entries."""
 from __future__ import annotations
 
+import json
 from typing import Any
 
-from core.records.models import INPUT, RoleNode, role_tree
+from core.records.models import AUDIT_VALUE_BYTES, INPUT, RoleNode, role_tree
 
-__all__ = ["diff_paths", "merge_audit"]
+__all__ = ["diff_changes", "diff_paths", "merge_audit"]
 
 
-def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[str]:
-    """Field paths that differ between two documents; list elements are matched by `id`.
+def _bounded(value: Any) -> tuple[Any, bool]:
+    """The value as the audit keeps it: whole when small, else the start of its JSON text."""
+    text = json.dumps(value, sort_keys=True, ensure_ascii=False, separators=(",", ":"))
+    if len(text.encode("utf-8")) <= AUDIT_VALUE_BYTES:
+        return value, False
+    cut = text.encode("utf-8")[:AUDIT_VALUE_BYTES].decode("utf-8", "ignore")
+    return cut + "…", True
+
+
+def diff_changes(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[dict[str, Any]]:
+    """The input fields that differ between two documents, each as ``{"path", "old", "new"}``
+    (plus ``"truncated": True`` when a value was too long to keep whole); list elements are
+    matched by `id`.
 
     Paths look like ``stops[<id>].temp``; only input fields are compared (derived values,
     bookkeeping and the audit log follow from the inputs or from the save itself; roles as
-    declared in core.records.models). At most `limit` paths.
+    declared in core.records.models). An element added or removed is one change (old or new
+    is None). At most `limit` changes.
     """
-    out: list[str] = []
+    out: list[dict[str, Any]] = []
+
+    def record(path: str, a: Any, b: Any) -> None:
+        old_v, cut_a = _bounded(a)
+        new_v, cut_b = _bounded(b)
+        entry: dict[str, Any] = {"path": path or "(document)", "old": old_v, "new": new_v}
+        if cut_a or cut_b:
+            entry["truncated"] = True
+        out.append(entry)
 
     def walk(a: Any, b: Any, path: str, node: RoleNode) -> None:
         if len(out) >= limit or a == b:
@@ -35,10 +56,15 @@ def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[st
             for key in list(old_by) + [k for k in new_by if k not in old_by]:
                 walk(old_by.get(key), new_by.get(key), f"{path}[{key}]", node)
             return
-        out.append(path or "(document)")
+        record(path, a, b)
 
     walk(old, new, prefix, role_tree())
     return out
+
+
+def diff_paths(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[str]:
+    """The paths of :func:`diff_changes` (e.g. ``stops[<id>].temp``), at most `limit`."""
+    return [c["path"] for c in diff_changes(old, new, prefix, limit)]
 
 
 def merge_audit(stored: list[dict[str, Any]], incoming: list[dict[str, Any]]) -> list[dict[str, Any]]:

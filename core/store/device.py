@@ -25,6 +25,7 @@ import tempfile
 import threading
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
+from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -36,7 +37,9 @@ from core.records.messages import Problem, one_line, problems_from_validation
 from core.records.migrations import migrate
 from core.records.models import (
     BOOKKEEPING,
+    LOCAL_STOP_KEYS,
     SCHEMA_VERSION,
+    AuditChange,
     AuditEntry,
     ProgramSettings,
     Site,
@@ -46,8 +49,11 @@ from core.records.models import (
     new_id,
 )
 from core.store.atomic import atomic_write_bytes, canonical_json_bytes
-from core.store.audit import diff_paths, merge_audit
+from core.records.merge import common_ancestor, history, merge_trips, retain
+from core.store.audit import diff_changes, merge_audit
+from core.store.drafts import Drafts, split_drafts, with_drafts
 from core.store.errors import (
+    ApprovedTrip,
     CorruptFile,
     InvalidRecord,
     NewerSchemaError,
@@ -63,7 +69,7 @@ from core.store.quarantine import quarantine, utc_stamp
 from core.store.tables import Tables
 from core.store.trips import SAFE_ID, TripFiles, Unreadable
 
-__all__ = ["DeviceStore"]
+__all__ = ["DeviceStore", "MergeOutcome"]
 
 
 def _migrated(doc: dict[str, Any]) -> dict[str, Any]:
@@ -100,6 +106,17 @@ def _content(doc: dict[str, Any]) -> dict[str, Any]:
     return {k: v for k, v in doc.items() if k not in bookkeeping}
 
 
+@dataclass(frozen=True)
+class MergeOutcome:
+    """What :meth:`DeviceStore.merge_document` did: the trip as stored and `result` — "new",
+    "unchanged" (the stored trip already held it), "fast-forward" (it held the stored trip) or
+    "merged" (three-way; `conflicts` lists the clashes it found)."""
+
+    trip: Trip
+    result: str
+    conflicts: list[dict[str, Any]] = field(default_factory=list)
+
+
 def _utcnow() -> datetime:
     return datetime.now(UTC)
 
@@ -120,6 +137,8 @@ class DeviceStore:
                  lock_timeout_s: float = 5.0):
         self.data_dir = Path(data_dir)
         self.device_id = device_id
+        #: This device's name as a person set it (None until set; see :meth:`set_device_name`).
+        self.device_name: str | None = None
         self._clock = clock or _utcnow
         self.lock_timeout_s = lock_timeout_s
         self._trips_dir = self.data_dir / "trips"
@@ -128,6 +147,7 @@ class DeviceStore:
         self._lock = FileLock(str(self.data_dir / ".lock"), timeout=lock_timeout_s)
         self._tlock = threading.RLock()
         self._files = TripFiles(self._trips_dir)
+        self._drafts = Drafts(self.data_dir / "drafts")
         self._index = SummaryIndex(self._index_dir)
         self._tables = Tables(self.data_dir, self._quarantine)
         self._finalizer: Any = None     # in_memory(): removes the temporary folder with the store
@@ -154,6 +174,7 @@ class DeviceStore:
                 atomic_write_bytes(root / "device.json",
                                    canonical_json_bytes({"device_id": remembered}))
             store.device_id = device_id or remembered
+            store.device_name = store._read_device_file().get("name") or None
             store._clean_temp_files()
             store._repair_index()
         return store
@@ -181,6 +202,30 @@ class DeviceStore:
         if fin is not None:
             fin()
 
+    def _read_device_file(self) -> dict[str, Any]:
+        try:
+            data = json.loads((self.data_dir / "device.json").read_bytes())
+        except (OSError, ValueError):
+            return {}
+        return data if isinstance(data, dict) else {}
+
+    def set_device_name(self, name: str) -> str:
+        """Names this device (kept in device.json; stamped on every audit entry it writes, so
+        conflicts and the audit show people a name, never a device id). 1 to 40 characters."""
+        text = " ".join(str(name or "").split())
+        if not 1 <= len(text) <= 40:
+            raise InvalidRecord("Device name: write 1 to 40 characters, e.g. 'Tablet 2' or 'Lab desk'.")
+        with self._locked():
+            data = self._read_device_file()
+            data.update(device_id=data.get("device_id") or self.device_id, name=text)
+            try:
+                atomic_write_bytes(self.data_dir / "device.json", canonical_json_bytes(data))
+            except OSError as exc:
+                raise StoreWriteError(f"Could not write device.json ({exc.strerror or exc}); the device name"
+                                      " is unchanged.") from None
+            self.device_name = text
+        return text
+
     def _read_device_id(self) -> str | None:
         path = self.data_dir / "device.json"
         try:
@@ -196,7 +241,7 @@ class DeviceStore:
 
         Only the store's own names: other parts (sync's outbox) may write in the data folder.
         """
-        patterns = [(self._trips_dir, ".*.tmp"), (self._index_dir, ".*.tmp")]
+        patterns = [(self._trips_dir, ".*.tmp"), (self._index_dir, ".*.tmp"), (self.data_dir / "drafts", ".*.tmp")]
         patterns += [(self.data_dir, f".{name}.*.tmp") for name in ("device.json", "sites.json", "settings.json")]
         for folder, pattern in patterns:
             for tmp in folder.glob(pattern):
@@ -313,12 +358,14 @@ class DeviceStore:
         return trip, raw
 
     def load_trip(self, trip_id: str) -> Trip:
-        """The trip with that id (migrated from an older schema in memory if needed).
+        """The trip with that id (migrated from an older schema in memory if needed), with this
+        device's drafts on its stops (core.store.drafts; they are not in the trip file).
 
         Raises TripNotFound, NewerSchemaError (file left untouched) or CorruptFile (moved to
         quarantine).
         """
-        return self._load(trip_id)[0]
+        trip = self._load(trip_id)[0]
+        return with_drafts(trip, self._drafts.read(trip.id))
 
     def trip_document(self, trip_id: str) -> dict[str, Any]:
         """The stored JSON document of a trip, as exchanged with hubs (no migration applied).
@@ -386,40 +433,61 @@ class DeviceStore:
                 labels.setdefault(label, s.id)
         return labels
 
-    # -- the one save path -----------------------------------------------------------------
-    def save_trip(self, trip: Trip, change: str) -> Trip:
-        """THE save path: validate → derive → write, with an audit entry and revision + 1.
+    # -- the one save path: every write names the revision it read ------------------------
+    def _check_expected(self, trip_id: str, stored: dict[str, Any] | None, expected: int | None) -> None:
+        """Raises StaleTrip unless the stored trip is at `expected` (None: no stored trip)."""
+        found = None if stored is None else int(stored.get("revision", 0))
+        if found == expected:
+            return
+        if expected is None:
+            raise StaleTrip(f"Trip {trip_id} is already on this device (revision {found}); load it and"
+                            " make the change again, or import the file to merge it.")
+        if found is None:
+            raise StaleTrip(f"Trip {trip_id} is no longer on this device; nothing was saved.")
+        raise StaleTrip(f"Trip {trip_id} was changed elsewhere (stored revision {found}, this copy"
+                        f" {expected}); reload it and make the change again.")
 
-        `change` says what was done in a few words ("stop LK-02 readings"). Returns the trip as
-        stored. A save whose content equals the stored trip writes nothing. Raises InvalidRecord
-        (nothing written), StaleTrip when the stored revision moved on since `trip` was loaded,
-        NewerSchemaError, StoreLocked.
+    def save_trip(self, trip: Trip, change: str, *, by: str | None = None, reason: str | None = None) -> Trip:
+        """Saves a trip loaded from this store (or a new one): validate → derive → write, with an
+        audit entry and revision + 1.
+
+        The trip's own `revision` is the revision it was read at (0 for a new trip): a stored
+        trip at another revision raises StaleTrip and nothing is written (reload, or use
+        :meth:`update_trip`). `change` says what was done in a few words ("stop LK-02
+        readings"); `by` and `reason` are recorded in the audit entry. Returns the trip as
+        stored; a save whose content equals the stored trip writes nothing. Raises
+        InvalidRecord (nothing written), StaleTrip, NewerSchemaError, StoreLocked.
         """
         checked = self._validated(trip)
         with self._locked():
             stored = self._stored_or_none(checked.id)
-            if stored is not None and int(stored.get("revision", 0)) != checked.revision:
-                raise StaleTrip(
-                    f"Trip {checked.id} was changed elsewhere (stored revision {stored.get('revision')},"
-                    f" this copy {checked.revision}); reload it and make the change again.")
+            if stored is None and checked.revision == 0:
+                expected = None
+            else:
+                expected = checked.revision
+            self._check_expected(checked.id, stored, expected)
             base = int(stored.get("revision", 0)) if stored is not None else checked.revision
-            return self._commit(checked, stored, change, base)
+            return self._commit(checked, stored, change, base, by=by, reason=reason)
 
-    def put_document(self, doc: dict[str, Any], change: str) -> Trip:
-        """Runs a foreign trip document (an import, a sync pull) through the same save path.
+    def put_document(self, doc: dict[str, Any], change: str, *, expected_revision: int | None) -> Trip:
+        """Writes a trip document in place of the stored one, through the same save path.
 
-        The document is migrated, validated strictly and derived again; when its content (all
-        but revision and updated_at) equals the stored trip, nothing is written and the stored
-        trip is returned. Otherwise it is written with revision max(stored, incoming) + 1 and an
-        audit entry. Raises InvalidRecord, NewerSchemaError (nothing written), StoreLocked.
+        `expected_revision` is the stored revision the document was based on (None: the trip is
+        expected not to be on this device yet); when the stored trip is at another revision,
+        StaleTrip is raised and nothing is written — re-read, or hand the document to
+        :meth:`merge_document`. The document is migrated, validated strictly and derived
+        again; when its content equals the stored trip nothing is written. Otherwise it is
+        written with revision max(stored, incoming) + 1 and an audit entry. Raises
+        InvalidRecord, NewerSchemaError (nothing written), StaleTrip, StoreLocked.
         """
         if not isinstance(doc, dict):
             raise InvalidRecord("A trip document must be a JSON object.")
         checked = self._validate_doc(migrate(doc))
         with self._locked():
             stored = self._stored_or_none(checked.id)
+            self._check_expected(checked.id, stored, expected_revision)
             base = max(checked.revision, int(stored.get("revision", 0)) if stored is not None else 0)
-            return self._commit(checked, stored, change, base)
+            return self._commit(checked, stored, change, base, foreign=True, review_guard=False)
 
     def adopt_document(self, doc: dict[str, Any], *, expected_revision: int | None) -> Trip | None:
         """Stores another device's saved version of a trip byte for byte (a sync fast-forward).
@@ -468,11 +536,74 @@ class DeviceStore:
         self._index.write(new_doc, "sha256:" + hashlib.sha256(doc_bytes).hexdigest(),
                           self._file_key(new_doc["id"]))
 
+    def merge_document(self, doc: dict[str, Any], change: str, *, base: dict[str, Any] | None = None) -> MergeOutcome:
+        """Merges a version of a trip from elsewhere (an imported file, a hub) into the stored one.
+
+        Under the store's lock the stored trip is read again and compared by history (the ids
+        of the audit entries each save appends): a version the stored trip already contains
+        (older or equal) changes nothing; one that contains the stored trip is taken as is; a
+        diverged one is merged three ways through core.records.merge.merge_trips, with the
+        common ancestor chosen from `base` (the stored version the caller built `doc` from,
+        when it has one) as sync does — two ways when none is known. Lab results, calibrations
+        and custody records the stored trip holds are never removed. Raises InvalidRecord,
+        NewerSchemaError (nothing written), StoreLocked.
+        """
+        if not isinstance(doc, dict):
+            raise InvalidRecord("A trip document must be a JSON object.")
+        checked = self._validate_doc(migrate(doc))
+        incoming = checked.to_document()
+        with self._locked():
+            stored = self._stored_or_none(checked.id)
+            if stored is None:
+                return MergeOutcome(self._commit(checked, None, change, checked.revision, foreign=True, review_guard=False), "new")
+            ours, theirs = history(stored), history(incoming)
+            if theirs and theirs <= ours:
+                return MergeOutcome(Trip.from_document(stored), "unchanged")
+            conflicts: list[dict[str, Any]] = []
+            if theirs and ours < theirs:
+                merged, kind = incoming, "fast-forward"
+            else:
+                candidates = [migrate(base)] if isinstance(base, dict) else []
+                ancestor = common_ancestor(candidates, stored, incoming) if theirs else None
+                result = merge_trips(ancestor, stored, incoming)
+                merged, kind, conflicts = result.doc, "merged", result.new_conflicts
+            merged = retain(stored, merged)
+            trip = self._validate_doc(merged)
+            revision = max(int(stored.get("revision", 0)), checked.revision)
+            saved = self._commit(trip, stored, change, revision, foreign=True, review_guard=False)
+            if saved.revision == int(stored.get("revision", 0)):
+                kind = "unchanged"
+            return MergeOutcome(saved, kind, conflicts)
+
+    def update_trip(self, trip_id: str, change: str | Callable[[], str], fn: Callable[[Trip], Trip | None], *,
+                    by: str | None = None, reason: str | None = None) -> Trip:
+        """Read–modify–write of one trip under the store's lock (lab results, corrections,
+        settlements): `fn` gets the stored trip and returns the changed one (None: no change).
+        `change` may be a callable, asked after `fn` (a sentence that names what `fn` computed).
+
+        `fn` runs while the lock is held, so no other writer can come between the read and the
+        write: keep it short and free of I/O. An exception from `fn` leaves the trip unchanged.
+        Raises TripNotFound, InvalidRecord, NewerSchemaError, StoreLocked.
+        """
+        with self._locked():
+            trip, stored = self._load(trip_id)
+            trip = with_drafts(trip, self._drafts.read(trip_id))
+            changed = fn(trip)
+            if changed is None:
+                return trip
+            checked = self._validated(changed)
+            if checked.id != trip.id:
+                raise InvalidRecord("A trip update cannot change the trip's id.")
+            text = change() if callable(change) else change
+            return self._commit(checked, _migrated(stored), text, int(stored.get("revision", 0)),
+                                by=by, reason=reason)
+
     def save_stop(self, trip_id: str, stop: Stop, change: str | None = None) -> Trip:
         """Adds or replaces (by id) one stop of a stored trip, through the same save path.
 
         The stop is validated strictly, the rest of the trip as stored; the stored revision is
-        the base (this is the call for autosaving one stop: it cannot be stale).
+        the base (this is the call for autosaving one stop: it cannot be stale; built on
+        :meth:`update_trip`).
         """
         if not isinstance(stop, Stop):
             raise InvalidRecord("save_stop needs a Stop record.")
@@ -489,20 +620,22 @@ class DeviceStore:
             probs = _non_finite_problems(stop_doc)
             raise InvalidRecord(one_line(probs) if probs else "The stop holds a value JSON cannot carry.",
                                 probs) from None
-        with self._locked():
-            trip, stored = self._load(trip_id)  # a fresh object, validated from the stored bytes
+
+        def put_stop(trip: Trip) -> Trip:
             stops = list(trip.stops)
             for i, s in enumerate(stops):
                 if s.id == new_stop.id:
                     # Fields a newer build stored on this stop survive a form that never knew them.
-                    kept = {k: v for k, v in (s.model_extra or {}).items() if k not in (new_stop.model_extra or {})}
+                    # (Not a draft: the form says whether it still has one.)
+                    kept = {k: v for k, v in (s.model_extra or {}).items()
+                            if k not in (new_stop.model_extra or {}) and k not in LOCAL_STOP_KEYS}
                     stops[i] = new_stop.model_copy(update=kept) if kept else new_stop
                     break
             else:
                 stops.append(new_stop)
-            checked = trip.model_copy(update={"stops": stops})
-            return self._commit(checked, _migrated(stored), change or f"stop at {stop.site_id} saved",
-                                int(stored.get("revision", 0)))
+            return trip.model_copy(update={"stops": stops})
+
+        return self.update_trip(trip_id, change or f"stop at {stop.site_id} saved", put_stop)
 
     def _stored_or_none(self, trip_id: str) -> dict[str, Any] | None:
         raw = self._read_trip_doc_raw(trip_id)
@@ -538,9 +671,31 @@ class DeviceStore:
             probs = problems_from_validation(exc)
             raise InvalidRecord(one_line(probs), probs) from None
 
-    def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int) -> Trip:
-        """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held."""
+    def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int, *,
+                by: str | None = None, reason: str | None = None, foreign: bool = False,
+                review_guard: bool = True) -> Trip:
+        """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held.
+
+        A stop's local keys (drafts) are kept in this device's drafts, never in the trip file.
+        `review_guard` refuses an edit of an approved trip that is not a correction
+        (core.rules.review); documents from elsewhere carry the office's own steps and are
+        merged, not refused."""
+        trip, drafts = split_drafts(trip)
+        if foreign:   # a version from elsewhere knows nothing of this device's drafts: keep them
+            drafts = {**self._drafts.read(trip.id), **drafts}
+        saved = self._commit_clean(trip, stored, change, base_revision, by=by, reason=reason,
+                                   review_guard=review_guard)
+        try:
+            self._drafts.write(trip.id, drafts)
+        except OSError as exc:
+            raise StoreWriteError(f"The trip was saved, but its unfinished entries could not be kept"
+                                  f" ({exc.strerror or exc}); free space and type them again.") from None
+        return with_drafts(saved, drafts)
+
+    def _commit_clean(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int, *,
+                      by: str | None = None, reason: str | None = None, review_guard: bool = True) -> Trip:
         from core.rules.qc import derive
+        from core.rules.review import ReviewRefused, check_change
 
         sites = self.sites_by_id()
         settings = self.settings()
@@ -559,11 +714,21 @@ class DeviceStore:
             new_doc["audit"] = merge_audit(stored.get("audit") or [], incoming_audit)
         if stored is not None and _content(stored) == _content(new_doc):
             return Trip.from_document(stored)
+        if review_guard:
+            try:
+                check_change(stored, new_doc)
+            except ReviewRefused as exc:
+                raise ApprovedTrip(str(exc)) from None
         now = self._clock().astimezone(UTC)
         revision = base_revision + 1
-        entry = AuditEntry(at=now, device_id=self.device_id, change=str(change)[:400] or "saved",
+        changes = diff_changes(stored, new_doc) if stored is not None else []
+        entry = AuditEntry(at=now, device_id=self.device_id, device_name=self.device_name,
+                           change=str(change)[:400] or "saved",
                            revision=revision,
-                           fields=diff_paths(stored, new_doc) if stored is not None else ["(new trip)"])
+                           fields=[c["path"] for c in changes] if stored is not None else ["(new trip)"],
+                           changes=[AuditChange.model_validate(c) for c in changes],
+                           by=(by or None) and str(by)[:80],
+                           reason=(reason or None) and str(reason)[:400])
         entry_doc = entry.model_dump(mode="json")
         same_audit = new_doc.get("audit") == incoming_audit
         new_doc["audit"] = list(new_doc.get("audit") or []) + [entry_doc]

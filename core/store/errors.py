@@ -11,6 +11,7 @@ from core.records.messages import Problem
 from core.records.models import SCHEMA_VERSION
 
 __all__ = [
+    "ApprovedTrip",
     "CorruptFile",
     "InvalidRecord",
     "NewerSchemaError",
@@ -53,6 +54,10 @@ class InvalidRecord(StoreError):
 
 class StoreWriteError(StoreError):
     """The disk refused a write (full, read-only, removed); the stored file is unchanged."""
+
+
+class ApprovedTrip(StoreError):
+    """An edit of an approved trip that is not a correction (core.rules.review.check_change)."""
 
 
 class StaleTrip(StoreError):

@@ -12,6 +12,7 @@ from pathlib import Path
 from typing import Any
 
 from core.records.models import SCHEMA_VERSION
+from core.rules.review import review_state
 from core.store.atomic import atomic_write_bytes, canonical_json_bytes, content_hash
 
 __all__ = ["FileKey", "SummaryIndex", "TripSummary", "summary_of"]
@@ -36,6 +37,8 @@ class TripSummary:
     schema_version: int = SCHEMA_VERSION
     open_conflicts: int = 0
     bottle_labels: list[str] = field(default_factory=list)
+    #: core.rules.review state; None in summaries written before it was recorded (read the trip).
+    review_state: str | None = None
 
     def to_dict(self) -> dict[str, Any]:
         return asdict(self)
@@ -58,7 +61,7 @@ def summary_of(doc: dict[str, Any], digest: str | None = None) -> TripSummary:
         revision=int(doc.get("revision", 0)), status=status, stop_count=len(stops),
         updated_at=doc.get("updated_at"), content_hash=digest or content_hash(doc),
         schema_version=int(doc.get("schema_version", 0)), open_conflicts=len(conflicts),
-        bottle_labels=labels)
+        bottle_labels=labels, review_state=review_state(doc))
 
 
 class SummaryIndex:

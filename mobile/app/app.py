@@ -118,6 +118,11 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
 
         def _check_saves(self, _dt):
             """A save the store refused or could not make (locked, disk full) is said on screen and retried."""
+            if self.ctl.adopt_rebased():
+                # a save met another writer's change (a sync merge): show the merged values
+                screen = self.root.current_screen
+                if self.root.current == "stop" and self.ctl.stop is not None:
+                    screen.load()
             errors = self.ctl.take_save_errors()
             if errors:
                 screen = self.root.current_screen

@@ -8,10 +8,12 @@ freezes a field; sync runs in the background through `send`.
 from __future__ import annotations
 
 import copy
+import threading
 from datetime import datetime
 from typing import Any
 from collections.abc import Callable
 
+from core.records.messages import when_text
 from mobile.app import device_files, records_bridge
 from mobile.app.device_files import AppPrefs
 from mobile.app.forms import (BOTTLE_KINDS, FIELD_LABELS, REQUIRED_STOP_FIELDS, BottleForm, CalForm,
@@ -19,7 +21,7 @@ from mobile.app.forms import (BOTTLE_KINDS, FIELD_LABELS, REQUIRED_STOP_FIELDS, 
 from mobile.app.numeric import parse_decimal
 from mobile.app.save_worker import SaveWorker
 from mobile.app.theme import severity_mark
-from mobile.app.views import (CalView, ClockLine, FlagLine, StopView, TripLine, error_line, flag_line,
+from mobile.app.views import (CalView, ClockLine, FlagLine, Refusal, StopView, TripLine, error_line, flag_line,
                               fmt_duration, fmt_value, fmt_when, local_now, parse_when)
 
 __all__ = ["AppController"]
@@ -85,6 +87,10 @@ class AppController:
         self.trip: TripForm | None = None
         self.stop_id: str | None = None
         self._saved: dict[str, Any] = {}      # trip id -> last Trip record the store returned
+        # trip id -> the form as it was when last in step with the store (what edits are told from)
+        self._base_form: dict[str, TripForm] = {}
+        self._rebased: dict[str, tuple[TripForm, TripForm]] = {}   # save worker -> UI thread
+        self._rebase_lock = threading.Lock()
         self._sites: list[Any] | None = None
         self._other_labels: dict[str, str] | None = None
         self.load_prefs()
@@ -115,11 +121,14 @@ class AppController:
             raise ValueError("Site code is empty; type a short code such as LK-07.")
         if not name:
             raise ValueError("Site name is empty; type the name crews use for it.")
-        elevation_m = parse_decimal(elevation_text, label="Elevation")
-        if elevation_m is None:
-            raise ValueError("Elevation is empty; type the site's elevation in metres (−400 to 5000).")
-        if not -400 <= elevation_m <= 5000:
-            raise ValueError(f"Elevation {elevation_m:g} m is outside −400 to 5000 m; type it in metres.")
+        from core.science.quantities import QuantityError, range_text, read
+
+        if not (elevation_text or "").strip():
+            raise ValueError(f"Elevation is empty; type the site's elevation in metres ({range_text('elevation')}).")
+        try:  # core's grammar and the one table of limits (m, or ft converted)
+            elevation_m = read("elevation", elevation_text, "Elevation").value
+        except QuantityError as exc:
+            raise ValueError(exc.message) from None
         if any(s.id == code for s in self.sites()):
             raise ValueError(f"Site code {code} is already on this tablet; pick it from the list.")
         try:
@@ -129,6 +138,13 @@ class AppController:
             raise ValueError(str(exc)) from None
         self._sites = None
         return saved.id
+
+    def program_percent_basis(self) -> str:
+        """The program's meter % basis ("local" or "sea-level"), the start screen's default for a trip."""
+        try:
+            return str(self.settings().percent_basis)
+        except Exception:  # noqa: BLE001 - an unreadable settings file: the safe default
+            return "local"
 
     def settings(self) -> Any:
         """The program settings (core.records.models.ProgramSettings) from the store."""
@@ -157,11 +173,35 @@ class AppController:
         device_files.write_local_prefs(self.store.data_dir, prefs)
         self.prefs = prefs
 
+    @staticmethod
+    def hub_problem(target: str) -> str | None:
+        """Why a typed hub address cannot be stored or used (a user name or password in it, plain
+        http:// to another machine), as one sentence that never repeats a password; or None."""
+        from sync.errors import ConfigError
+        from sync.targets import check_address
+
+        try:
+            check_address(target)
+        except ConfigError as exc:
+            text = str(exc)
+            return f"■ Hub not saved: {text[:1].upper()}{text[1:]}."
+        return None
+
+    @staticmethod
+    def shown_address(target: str) -> str:
+        """A hub address as a status line may show it (any user-info part removed)."""
+        from sync.session import redact_url
+
+        return redact_url(target)
+
     def save_settings_form(self, units: dict[str, str], limits: dict[str, str], sync_target: str) -> str | None:
         """Saves the settings screen (units, the program limits as typed, the hub); returns a refusal or None.
 
         `limits` maps each SETTING_FIELDS name to its text. Nothing is saved when one limit is refused.
         """
+        problem = self.hub_problem(sync_target) if sync_target.strip() else None
+        if problem:
+            return problem
         values: dict[str, float] = {}
         for name in SETTING_FIELDS:
             value, problem = setting_problem(name, limits.get(name, ""))
@@ -200,6 +240,9 @@ class AppController:
 
         if not target:
             return "Hub is empty; type a folder path or an https:// WebDAV address."
+        problem = self.hub_problem(target)
+        if problem:
+            return problem
         if target != self.prefs.sync_target:
             from dataclasses import replace
 
@@ -217,13 +260,13 @@ class AppController:
         return None
 
     def trip_lines(self) -> list[TripLine]:
-        lines = []
+        """One line per trip; trips the office returned come first, with its reasons."""
+        from core.rules.review import describe, review_state
+
+        lines, returned = [], []
         synced = self.sync_states()
         for t in self.store.list_trips():
-            try:
-                started = fmt_when(datetime.fromisoformat(t.started_at))
-            except (TypeError, ValueError):
-                started = str(t.started_at or "")
+            started = when_text(t.started_at)
             crew = ", ".join(t.crew) if isinstance(t.crew, list) else str(t.crew or "")
             title = f"{t.program or 'Trip'} · {crew or '—'}"
             status = {"in progress": "open"}.get(t.status, t.status)
@@ -231,9 +274,20 @@ class AppController:
                 status = "synced"
             elif status == "ended":
                 status = "ended, not sent"
-            lines.append(TripLine(t.id, title, status,
-                                  f"{started} · {t.stop_count} stop{'s' if t.stop_count != 1 else ''}"))
-        return lines
+            detail = f"{started} · {t.stop_count} stop{'s' if t.stop_count != 1 else ''}"
+            state = t.review_state
+            if state is None or state == "returned":     # None: a summary from an older build
+                doc = self.store.trip_document(t.id)
+                state = review_state(doc)
+                if state == "returned":
+                    why = describe(doc)
+                    returned.append(TripLine(t.id, title, "returned by the office",
+                                             f"{detail}\n{why[:1].upper()}{why[1:]}"))
+                    continue
+            if state in ("reviewed", "approved"):
+                status = state
+            lines.append(TripLine(t.id, title, status, detail))
+        return returned + lines
 
     def open_trip_id(self) -> str | None:
         open_ = [t for t in self.store.list_trips() if not t.ended_at]
@@ -288,16 +342,33 @@ class AppController:
         form.post_check.pressure_unit = self.prefs.pressure_unit
         return form
 
-    def start_trip(self, form: TripForm) -> str | None:
-        """Starts the trip in `form`; returns a one-line message when something required is missing."""
+    def cal_problem(self, cal: CalForm, kind: str = "pre-trip") -> str | None:
+        """Why a calibration form cannot be stored as it is (a field empty or refused), or None."""
+        return self.bridge.cal_document(cal, kind, self.prefs.tolerance_mg_l)[1]
+
+    def start_trip(self, form: TripForm, *, without_calibration: bool = False) -> Refusal | None:
+        """Starts the trip in `form`; returns why not, as a Refusal saying where to look.
+
+        A pre-trip calibration with an empty or refused field is refused (never dropped); with no
+        calibration at all the crew must say so (`without_calibration`), and the trip records it.
+        """
         for name in ("program", "crew", "meter_id"):
             if not getattr(form, name).strip():
-                return f"{FIELD_LABELS[name]} is empty; type it before starting the trip."
+                return Refusal(f"{FIELD_LABELS[name]} is empty; type it before starting the trip.")
+        problem = self.cal_problem(form.pre_cal)
+        if problem:
+            return Refusal(f"Pre-trip calibration: {problem}", "calibration")
+        empty = not any((form.pre_cal.temp_text.strip(), form.pre_cal.pressure_text.strip(),
+                         form.pre_cal.reading_text.strip()))
+        if empty and not without_calibration:
+            return Refusal("No pre-trip calibration is entered. Type it in the calibration panel, or tap "
+                           "“Start without calibration” to record that this trip has none.", "no calibration")
+        form.started_without_calibration = empty
         form.started_at = form.started_at or self.now()
         self.trip = form
         self.stop_id = None
         self._other_labels = None
-        self.save_now(wait=True, change="trip started")
+        self.save_now(wait=True, change="trip started" + (" without calibration" if form.started_without_calibration else ""))
         return None
 
     def open_trip(self, trip_id: str) -> TripForm:
@@ -306,17 +377,22 @@ class AppController:
         self._saved[trip_id] = model
         self._other_labels = None
         self.trip = self.bridge.form_from_trip(model)
+        self._base_form[trip_id] = copy.deepcopy(self.trip)
         self.stop_id = None
         return self.trip
 
-    def end_trip(self) -> str | None:
+    def end_trip(self) -> Refusal | None:
+        """Ends the open trip (closing its stops); returns why not, as a Refusal saying where to look."""
         if self.trip is None:
-            return "No trip is open."
+            return Refusal("No trip is open.")
+        problem = self.cal_problem(self.trip.post_check, "post-trip")
+        if problem:
+            return Refusal(f"Post-trip check: {problem}", "calibration")
         still_open = [s for s in self.trip.stops if not s.closed]
         for s in still_open:
             msg = self.close_problem(s)
             if msg:
-                return f"Stop {self.stop_number(s)}: {msg}"
+                return Refusal(f"Stop {self.stop_number(s)}: {msg}")
         for s in still_open:
             s.closed = True
             s.closed_at = self.now()
@@ -344,7 +420,11 @@ class AppController:
     def set_stop_field(self, name: str, value: Any) -> StopView:
         """Sets one stop field (text as typed, a unit, a site) and returns what the screen should show."""
         stop = self.stop
-        if name == "arrived":
+        if name == "arrived_now":
+            stop.arrived_at = self.now()
+        elif name == "arrived":
+            if stop.arrived_at is not None and (value or "").strip() == fmt_when(stop.arrived_at):
+                return self.stop_view()      # shown as it is stored: nothing changed (seconds kept)
             try:
                 stop.arrived_at = parse_when(value, stop.arrived_at)
             except ValueError:
@@ -382,7 +462,8 @@ class AppController:
         if record is None:
             return None, errors
         site = self.site(stop.site_id)
-        derived = derive_stop(record, site, self.settings())
+        basis = self.trip.meter_percent_basis if self.trip is not None else None
+        derived = derive_stop(record, site, self.settings(), basis)
         return record.model_copy(update={"derived": derived}), errors
 
     def stop_view(self, stop: StopForm | None = None) -> StopView:
@@ -446,7 +527,7 @@ class AppController:
         if missing:
             return (f"{', '.join(missing)} {'is' if len(missing) == 1 else 'are'} empty; "
                     "fill in every required field before closing the stop.")
-        _, errors, _ = self.bridge._quantities(stop)
+        errors = self.bridge.stop_problems(stop)
         if errors:
             return next(iter(errors.values()))
         return None
@@ -566,7 +647,7 @@ class AppController:
 
     # ------------------------------------------------------------------ calibration helper
     def cal_view(self, cal: CalForm, post: bool = False) -> CalView:
-        from core.records.models import InputError, measure, parse_number
+        from core.records.models import InputError
         from core.science import calibration
 
         view = CalView()
@@ -574,15 +655,14 @@ class AppController:
             view.detail = "Type the calibration temperature and station pressure to see the 100 % target."
             return view
         try:
-            t = measure("temp", f"{cal.temp_text.strip()} {self.bridge.TEMP_UNIT_TEXT[cal.temp_unit]}",
-                        field="temp").value
-            p = measure("pressure", f"{cal.pressure_text.strip()} {cal.pressure_unit}", field="pressure").value
+            tq, pq = self.bridge.cal_conditions(cal)
+            t, p = tq.value, pq.value
             target = float(calibration.calibration_target_mg_l(t, p, method=self.prefs.method))
             view.target_text = fmt_value(target, 2, "mg/L")
             if not cal.reading_text.strip():
                 view.detail = "Type the meter's reading in water-saturated air."
                 return view
-            r = parse_number(cal.reading_text, "reading_mg_l")
+            r = self.bridge.cal_reading(cal)
             fn = calibration.post_trip_check if post else calibration.check_calibration
             res = fn(r, t, p, tolerance_mg_l=self.prefs.tolerance_mg_l, method=self.prefs.method)
         except InputError as exc:
@@ -628,6 +708,10 @@ class AppController:
         if pre.verdict == "FAIL":
             sym, word = severity_mark("stop-and-check")
             out.append(f"{sym} {word}: pre-trip calibration failed: {pre.detail}")
+        elif self.trip.started_without_calibration:
+            sym, word = severity_mark("warning")
+            out.append(f"{sym} {word}: this trip was started without a pre-trip calibration "
+                       "(recorded when it started).")
         elif not pre.verdict and self.trip.stops:
             sym, word = severity_mark("warning")
             out.append(f"{sym} {word}: no pre-trip calibration recorded for this trip.")
@@ -635,21 +719,80 @@ class AppController:
         if post.verdict == "FAIL":
             sym, word = severity_mark("stop-and-check")
             out.append(f"{sym} {word}: post-trip check failed: {post.detail}")
+        elif self.cal_problem(self.trip.post_check, "post-trip"):
+            sym, word = severity_mark("stop-and-check")
+            out.append(f"{sym} {word}: post-trip check: {self.cal_problem(self.trip.post_check, 'post-trip')}")
         elif not post.verdict:
             sym, word = severity_mark("note")
             out.append(f"{sym} {word}: post-trip calibration check not entered yet.")
         return out
 
-    def conflict_lines(self) -> list[str]:
-        """Fields two devices changed differently (found by sync), one readable line each."""
-        saved = self._saved.get(self.trip.id) if self.trip else None
+    def conflicts(self) -> list[Any]:
+        """The open trip's open conflicts as people read them (core.rules.conflicts.ConflictView):
+        site and stop, the field's label, each value with its unit, the device's name and when."""
+        from core.rules.conflicts import list_conflicts
+
+        if self.trip is None:
+            return []
+        saved = self._saved.get(self.trip.id)
         if saved is None:
             return []
-        from core.records.merge import describe_conflict
+        return list_conflicts(saved, this_device=self.store.device_id)
 
+    def conflict_lines(self) -> list[str]:
+        """The open conflicts, one line each (the End screen's list of what needs attention)."""
         sym, _ = severity_mark("warning")
-        return [f"{sym} CONFLICT: {describe_conflict(c.model_dump(mode='json'))} — check it and correct the value if needed."
-                for c in saved.open_conflicts]
+        return [f"{sym} CONFLICT: {v.message} Tap the value to keep above." for v in self.conflicts()]
+
+    def settler(self) -> str:
+        """Who settles a conflict on this tablet: the device's name, else the trip's crew."""
+        name = (getattr(self.store, "device_name", None) or "").strip()
+        if not name and self.trip is not None and self.trip.crew.strip():
+            name = f"crew {self.trip.crew.strip()}"
+        return (name or "this tablet")[:80]
+
+    def settle_conflict(self, conflict_id: str, keep: int) -> str | None:
+        """Settles one open conflict of the open trip by keeping its `keep`-th value (1, 2, …),
+        recorded with who and when; returns why not in one sentence, or None. The form is then
+        reloaded from the store, so the next save carries the kept value."""
+        from datetime import timezone
+
+        from core.rules.conflicts import ConflictError, settle
+        from core.store import StoreError
+
+        if self.trip is None:
+            return "No trip is open."
+        self.flush()                       # what was typed is in the store before it is read back
+        by = self.settler()
+        at = self.now().astimezone(timezone.utc)
+        said: dict[str, Any] = {}
+
+        def apply(trip: Any) -> Any:
+            views = {v.id: v for v in self.conflicts_of(trip)}
+            said["view"] = views.get(conflict_id)
+            return settle(trip, conflict_id, keep=keep, by=by, at=at)
+
+        def change() -> str:
+            view = said.get("view")
+            return f"conflict settled (kept value {keep}): " + (view.message if view else "a conflict")
+
+        try:
+            saved = self.store.update_trip(self.trip.id, change, apply, by=by)
+        except ConflictError as exc:
+            return f"Not settled: {exc}."
+        except StoreError as exc:
+            return f"Not settled, nothing was saved: {exc}"
+        stop_id = self.stop_id
+        self._saved[saved.id] = saved
+        self.trip = self.bridge.form_from_trip(saved)
+        self._base_form[saved.id] = copy.deepcopy(self.trip)
+        self.stop_id = stop_id if stop_id and self.trip.stop(stop_id) else None
+        return None
+
+    def conflicts_of(self, trip: Any) -> list[Any]:
+        from core.rules.conflicts import list_conflicts
+
+        return list_conflicts(trip, this_device=self.store.device_id)
 
     # ------------------------------------------------------------------ saving
     def _save_failed(self, exc: BaseException) -> None:
@@ -681,11 +824,18 @@ class AppController:
             previous = self._saved.get(snapshot.id)
             try:
                 saved = self.store.save_trip(self.bridge.trip_from_form(snapshot, previous, self), change)
+                self._base_form[snapshot.id] = snapshot
             except StaleTrip:
-                # changed by another writer (a sync pull, the CLI): put this device's form on the
-                # stored copy; stops only the other writer knows are kept (bridge.trip_from_form)
-                previous = self.store.load_trip(snapshot.id)
-                saved = self.store.save_trip(self.bridge.trip_from_form(snapshot, previous, self), change)
+                # changed by another writer (a sync merge, the office's settlement): only what was
+                # edited here since the form was last in step with the store goes on the stored trip
+                stored = self.store.load_trip(snapshot.id)
+                base = self._base_form.get(snapshot.id)
+                merged = (self.bridge.rebase_form(snapshot, base, self.bridge.form_from_trip(stored))
+                          if base is not None else snapshot)
+                saved = self.store.save_trip(self.bridge.trip_from_form(merged, stored, self), change)
+                self._base_form[snapshot.id] = merged
+                with self._rebase_lock:
+                    self._rebased[snapshot.id] = (snapshot, merged)
             self._saved[snapshot.id] = saved
 
         self.worker.submit(snapshot.id, job)
@@ -696,3 +846,31 @@ class AppController:
         if self.dirty:
             self.save_now()
         return self.worker.flush(timeout)
+
+    def adopt_rebased(self) -> bool:
+        """UI thread: after a save was put on a trip another writer changed, the form shows the
+        merged values too (edits made since that save stay). True when the form changed."""
+        with self._rebase_lock:
+            pending = self._rebased.pop(self.trip.id, None) if self.trip is not None else None
+            self._rebased.clear()
+        if pending is None:
+            return False
+        snapshot, merged = pending
+        self.trip = self.bridge.rebase_form(self.trip, snapshot, merged)
+        return True
+
+    def refresh_from_store(self) -> bool:
+        """UI thread, after a sync: when nothing typed is waiting and the stored trip moved on (a
+        merge), the form shows the stored trip. True when the form was reloaded."""
+        if self.trip is None or self.dirty or not self.worker.flush(0):
+            return False
+        saved = self._saved.get(self.trip.id)
+        stored = self.store.load_trip(self.trip.id)
+        if saved is not None and stored.revision == saved.revision:
+            return False
+        stop_id = self.stop_id
+        self._saved[stored.id] = stored
+        self.trip = self.bridge.form_from_trip(stored)
+        self._base_form[stored.id] = copy.deepcopy(self.trip)
+        self.stop_id = stop_id if stop_id and self.trip.stop(stop_id) else None
+        return True

@@ -91,8 +91,10 @@ class TripForm:
     program: str = ""
     crew: str = ""
     meter_id: str = ""
+    meter_percent_basis: str | None = None   # "local" | "sea-level" | None (the program setting)
     started_at: datetime | None = None
     ended_at: datetime | None = None
+    started_without_calibration: bool = False
     pre_cal: CalForm = field(default_factory=CalForm)
     post_check: CalForm = field(default_factory=CalForm)
     stops: list[StopForm] = field(default_factory=list)

@@ -6,10 +6,8 @@ refusal comes back as one sentence the screen shows next to the field. Pure Pyth
 """
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 
-from core.science._validate import ambiguous_comma
 
 __all__ = ["InsertCheck", "check_insert", "parse_decimal", "DecimalError"]
 
@@ -72,22 +70,17 @@ def check_insert(current: str, cursor: int, substring: str, *, allow_negative: b
 def parse_decimal(text: str, *, label: str = "Value") -> float | None:
     """Reads a number typed in a form; decimal comma or point; "" -> None.
 
-    Raises DecimalError with one sentence for anything else (two separators, exponents, words).
+    The grammar is core's (core.science.quantities.read_number, the decimal-comma rule included);
+    touch entry takes no powers of ten. Raises DecimalError with one sentence for anything else.
     """
+    from core.science.quantities import QuantityError, read_number
+
     s = (text or "").strip()
     if not s:
         return None
-    if sum(s.count(c) for c in _SEPARATORS) > 1:
-        raise DecimalError(f"{label} “{s}” has more than one decimal point or comma; type one, e.g. 3,5 or 3.5.")
-    body = s[1:] if s.startswith("-") else s
-    if not body or any(ch not in _DIGITS and ch not in _SEPARATORS for ch in body):
-        raise DecimalError(f"{label} “{s}” is not a number; type digits with one decimal point or comma.")
-    if body in _SEPARATORS:
-        raise DecimalError(f"{label} “{s}” has no digits; type a number such as 12,4.")
-    if ambiguous_comma(s):  # the same rule as core's parsers and the store's validation
-        raise DecimalError(f"{label} “{s}” could be {s.replace(',', '.')} or {s.replace(',', '')}; "
-                           "type it with a decimal point.")
-    value = float(s.replace(",", "."))
-    if not math.isfinite(value):  # cannot happen with digits only, kept as a guard
-        raise DecimalError(f"{label} “{s}” is not a finite number.")
-    return value
+    if "e" in s.lower() and any(ch in _DIGITS for ch in s):
+        raise DecimalError(f"{label} “{s}” has a power of ten; type the plain number, e.g. 0,001.")
+    try:
+        return read_number(s, label)
+    except QuantityError as exc:
+        raise DecimalError(exc.message) from None

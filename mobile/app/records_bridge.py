@@ -7,13 +7,17 @@ restart shows what was typed.
 """
 from __future__ import annotations
 
+import copy
+import dataclasses
+import math
 from datetime import datetime
 from typing import Any
 
 from mobile.app.forms import BottleForm, CalForm, StopForm, TripForm
 
-__all__ = ["site_title", "make_site", "stop_document", "stop_record", "bottle_records", "trip_from_form",
-           "form_from_trip", "KIND_TO_RECORD", "RECORD_TO_KIND", "TEMP_UNIT_TEXT"]
+__all__ = ["site_title", "make_site", "quantity", "stop_document", "stop_record", "stop_problems", "bottle_records",
+           "cal_conditions", "cal_reading", "cal_document", "trip_from_form", "form_from_trip", "rebase_form",
+           "KIND_TO_RECORD", "RECORD_TO_KIND", "TEMP_UNIT_TEXT"]
 
 TEMP_UNIT_TEXT = {"C": "°C", "F": "°F"}
 KIND_TO_RECORD = {"do_fixed": "do-fixed", "bod": "bod", "duplicate": "duplicate", "blank": "blank"}
@@ -41,9 +45,58 @@ def _iso(when: datetime | None) -> str | None:
     return when.isoformat() if when is not None else None
 
 
-def _quantities(form: StopForm) -> tuple[dict[str, Any], dict[str, str], dict[str, str]]:
+def _kept_time(when: datetime | None, previous: Any) -> str | None:
+    """`when` as stored text: the stored text itself when it names the same instant, so a save
+    never rewrites a time into another offset or format (a tablet in another time zone)."""
+    if when is None:
+        return None
+    if isinstance(previous, str):
+        try:
+            if datetime.fromisoformat(previous) == when:
+                return previous
+        except ValueError:
+            pass
+    return when.isoformat()
+
+
+def _number_text(q: dict[str, Any] | None) -> tuple[str, str]:
+    """(number as typed, unit as typed) from a stored Quantity document."""
+    if not q:
+        return "", ""
+    unit = str(q.get("entered_unit") or "")
+    text = str(q.get("text") or "").strip()
+    if unit and text.endswith(unit):
+        text = text[: -len(unit)].strip()
+    return text, unit
+
+
+def _unit_key(unit: str) -> str:
+    """A unit's name for comparing two spellings of one choice ("C" and "°C")."""
+    return unit.replace("°", "").replace(" ", "").casefold()
+
+
+def quantity(kind: str, field: str, text: str, unit: str, previous: dict[str, Any] | None = None):
+    """The Quantity for a number typed in a form with its chosen unit (raises InputError naming the field).
+
+    When the number is the stored one's as typed and means the same value, the stored Quantity is
+    returned unchanged: what was typed ("10.35") is not rewritten ("10.35 mg/L") by a save.
+    """
+    from core.records.models import Quantity, measure
+
+    q = measure(kind, f"{text} {unit}", field=field)
+    if previous:
+        old = Quantity.model_validate(previous)
+        if (_number_text(previous)[0] == text and _unit_key(old.entered_unit) == _unit_key(q.entered_unit)
+                and math.isclose(old.value, q.value, rel_tol=1e-12, abs_tol=1e-12)
+                and math.isclose(old.entered_value, q.entered_value, rel_tol=1e-12, abs_tol=1e-12)):
+            return old
+    return q
+
+
+def _quantities(form: StopForm, previous: dict[str, Any] | None = None,
+                ) -> tuple[dict[str, Any], dict[str, str], dict[str, str]]:
     """The stop's typed values as Quantity documents; refusals by field; drafts (text of refusals)."""
-    from core.records.models import InputError, measure
+    from core.records.models import InputError
 
     entries = (
         ("temp", "temp", form.temp_text, TEMP_UNIT_TEXT.get(form.temp_unit, "°C")),
@@ -59,19 +112,24 @@ def _quantities(form: StopForm) -> tuple[dict[str, Any], dict[str, str], dict[st
         if not text:
             values[name] = None
             continue
-        typed = f"{text} {unit}"
         try:
-            values[name] = measure(kind, typed, field=name).model_dump(mode="json")
+            q = quantity(kind, name, text, unit, (previous or {}).get(name))
+            values[name] = q.model_dump(mode="json")
         except InputError as exc:
             values[name] = None
             errors[name] = exc.message
-            drafts[name] = typed
+            drafts[name] = f"{text} {unit}"
     return values, errors, drafts
+
+
+def stop_problems(form: StopForm) -> dict[str, str]:
+    """The refusals of a stop's typed values, by field (empty when every value reads)."""
+    return _quantities(form)[1]
 
 
 def stop_document(form: StopForm, previous: dict[str, Any] | None = None) -> tuple[dict[str, Any] | None, dict[str, str]]:
     """The stop as a JSON document (None until a site is picked) and the refusals by field."""
-    values, errors, drafts = _quantities(form)
+    values, errors, drafts = _quantities(form, previous)
     if not form.site_id or form.arrived_at is None:
         return None, errors
     doc = dict(previous or {})
@@ -79,13 +137,15 @@ def stop_document(form: StopForm, previous: dict[str, Any] | None = None) -> tup
     bottles = []
     for b in form.bottles:
         bd = dict(old_bottles.get(b.id) or {})
-        bd.update(id=b.id, label=b.label, kind=KIND_TO_RECORD[b.kind], collected_at=_iso(b.collected_at),
-                  fixed_at=_iso(b.fixed_at), preservation=bd.get("preservation") or PRESERVATION[b.kind])
+        bd.update(id=b.id, label=b.label, kind=KIND_TO_RECORD[b.kind],
+                  collected_at=_kept_time(b.collected_at, bd.get("collected_at")),
+                  fixed_at=_kept_time(b.fixed_at, bd.get("fixed_at")),
+                  preservation=bd.get("preservation") or PRESERVATION[b.kind])
         bottles.append(bd)
-    doc.update(id=form.id, site_id=form.site_id, arrived_at=_iso(form.arrived_at),
+    closed_at = _kept_time(form.closed_at or datetime.now().astimezone(), doc.get("closed_at")) if form.closed else None
+    doc.update(id=form.id, site_id=form.site_id, arrived_at=_kept_time(form.arrived_at, doc.get("arrived_at")),
                conductivity_is_sc25=bool(form.cond_is_sc25), notes=form.notes, bottles=bottles,
-               closed_at=_iso(form.closed_at or datetime.now().astimezone()) if form.closed else None,
-               **values)
+               closed_at=closed_at, **values)
     doc.pop("derived", None)
     if drafts:
         doc[DRAFT_KEY] = drafts
@@ -127,22 +187,64 @@ def stop_record(form: StopForm, previous: dict[str, Any] | None = None):
     return Stop.model_validate_json(canonical_json_bytes(doc)), errors
 
 
-def _cal_document(cal: CalForm, kind: str, tolerance_mg_l: float) -> dict[str, Any] | None:
-    from core.records.models import InputError, measure, parse_number
+CAL_FIELDS = (("temp_text", "Calibration temperature"), ("pressure_text", "Calibration pressure"),
+              ("reading_text", "Meter reading"))
 
-    if not (cal.temp_text.strip() and cal.pressure_text.strip() and cal.reading_text.strip()):
-        return None
+
+def cal_conditions(cal: CalForm, previous: dict[str, Any] | None = None):
+    """(temperature, pressure) Quantities of a calibration form; raises InputError naming the field."""
+    prev = previous or {}
+    t = quantity("temp", "cal_temp", cal.temp_text.strip(), TEMP_UNIT_TEXT.get(cal.temp_unit, "°C"), prev.get("temp"))
+    p = quantity("pressure", "cal_pressure", cal.pressure_text.strip(), cal.pressure_unit, prev.get("pressure"))
+    return t, p
+
+
+def cal_reading(cal: CalForm) -> float:
+    """The meter reading typed on a calibration form, mg/L; raises InputError naming the field."""
+    from core.records.models import parse_number
+
+    return float(parse_number(cal.reading_text, "reading_mg_l", limit="calibration_reading"))
+
+
+def cal_document(cal: CalForm, kind: str, tolerance_mg_l: float,
+                 previous: dict[str, Any] | None = None) -> tuple[dict[str, Any] | None, str | None]:
+    """A calibration form as a Calibration document: (document, None); (None, None) when the form
+    is empty; (None, one sentence) when a field is empty or refused, so nothing is dropped silently.
+
+    The stored calibration (`previous`) is the base: its values are kept as stored when the form
+    shows them unchanged, its tolerance (the one in force when it was made) and fields this build
+    does not know are kept.
+    """
+    from pydantic import ValidationError
+
+    from core.records.messages import one_line, problems_from_validation
+    from core.records.models import Calibration, InputError
+    from core.store.atomic import canonical_json_bytes
+
+    filled = [bool(getattr(cal, attr).strip()) for attr, _ in CAL_FIELDS]
+    if not any(filled):
+        return None, None
+    if not all(filled):
+        empty = [label for (attr, label), ok in zip(CAL_FIELDS, filled, strict=True) if not ok]
+        return None, (f"{' and '.join(empty)} {'is' if len(empty) == 1 else 'are'} empty; fill in all three "
+                      "calibration fields, or clear them all.")
     try:
-        t = measure("temp", f"{cal.temp_text.strip()} {TEMP_UNIT_TEXT.get(cal.temp_unit, '°C')}", field="temp")
-        p = measure("pressure", f"{cal.pressure_text.strip()} {cal.pressure_unit}", field="pressure")
-        r = parse_number(cal.reading_text, "reading_mg_l")
-    except InputError:
-        return None
-    if not 0 <= r <= 25:
-        return None
-    return {"id": cal.id, "kind": kind, "at": _iso(cal.at or datetime.now().astimezone()),
-            "temp": t.model_dump(mode="json"), "pressure": p.model_dump(mode="json"),
-            "reading_mg_l": float(r), "tolerance_mg_l": float(tolerance_mg_l)}
+        t, p = cal_conditions(cal, previous)
+        reading = cal_reading(cal)
+    except InputError as exc:
+        return None, exc.message
+    doc = dict(previous or {})
+    if doc.get("reading_mg_l") is None or not math.isclose(float(doc["reading_mg_l"]), reading, abs_tol=1e-12):
+        doc["reading_mg_l"] = reading
+    doc.update(id=doc.get("id") or cal.id, kind=kind, temp=t.model_dump(mode="json"),
+               pressure=p.model_dump(mode="json"),
+               at=_kept_time(cal.at or datetime.now().astimezone(), doc.get("at")))
+    doc.setdefault("tolerance_mg_l", float(tolerance_mg_l))
+    try:
+        Calibration.model_validate_json(canonical_json_bytes(doc))
+    except ValidationError as exc:
+        return None, one_line(problems_from_validation(exc))
+    return doc, None
 
 
 def trip_from_form(form: TripForm, previous: Any, ctl: Any):
@@ -162,10 +264,18 @@ def trip_from_form(form: TripForm, previous: Any, ctl: Any):
     crew = [c.strip() for c in form.crew.replace(";", ",").split(",") if c.strip()]
     doc.update(id=form.id, program=form.program.strip(), crew=crew, meter_id=form.meter_id.strip(),
                started_at=_iso(form.started_at), ended_at=_iso(form.ended_at), stops=stops)
+    if form.meter_percent_basis is not None or doc.get("meter_percent_basis") is not None:
+        doc["meter_percent_basis"] = form.meter_percent_basis
     doc.setdefault("revision", 0)
+    if form.started_without_calibration:
+        doc["started_without_calibration"] = True
     tol = ctl.prefs.tolerance_mg_l if ctl is not None else 0.2
-    doc["pre_calibration"] = _cal_document(form.pre_cal, "pre-trip", tol) or doc.get("pre_calibration")
-    doc["post_check"] = _cal_document(form.post_check, "post-trip", tol) or doc.get("post_check")
+    for key, cal, kind in (("pre_calibration", form.pre_cal, "pre-trip"), ("post_check", form.post_check, "post-trip")):
+        cdoc, _problem = cal_document(cal, kind, tol, doc.get(key))
+        # a form being typed (partial, refused) leaves the stored calibration as it is; Start and
+        # End refuse such a form with its reason (controller), so it is never dropped unseen
+        if cdoc is not None:
+            doc[key] = cdoc
     return Trip.from_document(doc)
 
 
@@ -186,15 +296,16 @@ def _split_draft(typed: str) -> tuple[str, str]:
 
 
 def form_from_trip(trip: Any) -> TripForm:
+    """The forms for a stored trip: text as typed, units as chosen, every time in its own offset."""
     from core.science.conductivity import CONDUCTIVITY_UNITS
     from core.science.pressure import PRESSURE_UNITS
 
     stops = []
     for s in trip.stops:
         drafts = (s.model_extra or {}).get(DRAFT_KEY) or {}
-        f = StopForm(id=s.id, site_id=s.site_id, arrived_at=s.arrived_at.astimezone(),
+        f = StopForm(id=s.id, site_id=s.site_id, arrived_at=s.arrived_at,
                      cond_is_sc25=s.conductivity_is_sc25, notes=s.notes, closed=s.closed_at is not None,
-                     closed_at=s.closed_at.astimezone() if s.closed_at else None)
+                     closed_at=s.closed_at)
         for name, attr_text, _attr_unit in (("temp", "temp_text", "temp_unit"),
                                            ("pressure", "pressure_text", "pressure_unit"),
                                            ("conductivity", "cond_text", "cond_unit"),
@@ -210,8 +321,8 @@ def form_from_trip(trip: Any) -> TripForm:
             elif name == "do" and unit:
                 f.do_unit = "%" if "%" in unit else "mg/L"
         f.bottles = [BottleForm(id=b.id, label=b.label, kind=RECORD_TO_KIND.get(b.kind, "do_fixed"),
-                                collected_at=b.collected_at.astimezone(),
-                                fixed_at=b.fixed_at.astimezone() if b.fixed_at else None)
+                                collected_at=b.collected_at,
+                                fixed_at=b.fixed_at)
                      for b in s.bottles]
         stops.append(f)
 
@@ -222,9 +333,41 @@ def form_from_trip(trip: Any) -> TripForm:
         p, pu = _text_of(c.pressure)
         return CalForm(id=c.id, temp_text=t, temp_unit="F" if "F" in tu.upper() else "C",
                        pressure_text=p, pressure_unit=pu if pu in PRESSURE_UNITS else "hPa",
-                       reading_text=f"{c.reading_mg_l:g}", at=c.at.astimezone())
+                       reading_text=f"{c.reading_mg_l:g}", at=c.at)
 
     return TripForm(id=trip.id, program=trip.program, crew=", ".join(trip.crew), meter_id=trip.meter_id,
-                    started_at=trip.started_at.astimezone(),
-                    ended_at=trip.ended_at.astimezone() if trip.ended_at else None,
+                    meter_percent_basis=trip.meter_percent_basis,
+                    started_at=trip.started_at, ended_at=trip.ended_at,
+                    started_without_calibration=trip.started_without_calibration,
                     pre_cal=cal(trip.pre_calibration), post_check=cal(trip.post_check), stops=stops)
+
+
+TRIP_FORM_FIELDS = ("program", "crew", "meter_id", "started_at", "ended_at", "started_without_calibration",
+                    "pre_cal", "post_check")
+
+
+def rebase_form(form: TripForm, base: TripForm, theirs: TripForm) -> TripForm:
+    """This device's edits put on a trip another writer changed (a sync merge, the office's
+    correction or settlement): every field where `form` differs from `base` (the form it started
+    from) takes the form's value; every other field takes `theirs`. Stops only this form has are
+    added; stops only `theirs` has are kept."""
+    out = copy.deepcopy(theirs)
+    for name in TRIP_FORM_FIELDS:
+        if getattr(form, name) != getattr(base, name):
+            setattr(out, name, copy.deepcopy(getattr(form, name)))
+    base_stops = {s.id: s for s in base.stops}
+    out_stops = {s.id: i for i, s in enumerate(out.stops)}
+    for stop in form.stops:
+        at = out_stops.get(stop.id)
+        before = base_stops.get(stop.id)
+        if at is None or before is None:
+            if at is None:
+                out.stops.append(copy.deepcopy(stop))
+            else:
+                out.stops[at] = copy.deepcopy(stop)
+            continue
+        target = out.stops[at]
+        for f in dataclasses.fields(stop):
+            if getattr(stop, f.name) != getattr(before, f.name):
+                setattr(target, f.name, copy.deepcopy(getattr(stop, f.name)))
+    return out

@@ -8,7 +8,7 @@ from typing import Any
 from core.science.winkler import SAFETY_NOTE
 from mobile.app.theme import severity_mark
 
-__all__ = ["StopView", "FlagLine", "CalView", "ClockLine", "TripLine", "flag_line", "error_line",
+__all__ = ["StopView", "FlagLine", "CalView", "Refusal", "ClockLine", "TripLine", "flag_line", "error_line",
            "fmt_value", "fmt_when", "parse_when", "fmt_duration", "local_now",
            "WADING_CAUTION", "REAGENT_CAUTION"]
 
@@ -64,6 +64,15 @@ class StopView:
 
 
 @dataclass
+class Refusal:
+    """Why an action was refused: one sentence, and where the screen shows it ("form",
+    "calibration": on the calibration panel, "no calibration": with the start-without button)."""
+
+    message: str
+    where: str = "form"
+
+
+@dataclass
 class CalView:
     target_text: str = "—"
     verdict: str = ""          # "PASS" | "FAIL" | ""
@@ -100,7 +109,7 @@ def fmt_value(value: float | None, digits: int, unit: str = "") -> str:
 
 
 def parse_when(text: str, base: datetime | None) -> datetime:
-    """Reads "HH:MM" (same day as `base`) or "YYYY-MM-DD HH:MM" as a local, timezone-aware time."""
+    """Reads "HH:MM" (same day as `base`) or "YYYY-MM-DD HH:MM" in `base`'s offset (else this device's)."""
     s = (text or "").strip()
     tz = (base or local_now()).tzinfo or local_now().tzinfo
     for fmt in ("%Y-%m-%d %H:%M", "%Y-%m-%dT%H:%M", "%Y-%m-%d %H:%M:%S"):
@@ -117,9 +126,10 @@ def parse_when(text: str, base: datetime | None) -> datetime:
 
 
 def fmt_when(when: datetime | None) -> str:
+    """A time as the forms show it, in its own offset (the clock where it was recorded)."""
     if when is None:
         return ""
-    return when.astimezone().strftime("%Y-%m-%d %H:%M")
+    return when.strftime("%Y-%m-%d %H:%M")
 
 
 def fmt_duration(seconds: float) -> str:

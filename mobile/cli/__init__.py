@@ -10,7 +10,8 @@ __all__ = ["main"]
 
 
 def build_parser() -> OneLineParser:
-    from mobile.cli import app_cmd, custody_cmds, lab_cmds, paper_cmds, science_cmds, sync_cmds, trip_cmds
+    from mobile.cli import (app_cmd, archive_cmds, conflict_cmds, custody_cmds, lab_cmds, paper_cmds, review_cmds,
+                            science_cmds, sync_cmds, trip_cmds)
 
     parser = OneLineParser(
         prog="streamtab",
@@ -26,7 +27,10 @@ def build_parser() -> OneLineParser:
     app_cmd.register(sub)
     lab_cmds.register(sub)
     custody_cmds.register(sub)
+    conflict_cmds.register(sub)
     paper_cmds.register(sub)
+    review_cmds.register(sub)
+    archive_cmds.register(sub)
     return parser
 
 

@@ -62,7 +62,7 @@ def seed_demo(data_dir: Path, demo_dir: Path) -> int:
         doc = exchange.read_trip_file(trip_file)
         if not doc.get("ended_at"):
             doc = _bring_to_today(doc, now)
-        store.put_document(doc, f"demo trip from {trip_file.name}")
+        store.merge_document(doc, f"demo trip from {trip_file.name}")
         n += 1
     return n
 

@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import json
-import re
 import sys
 from datetime import datetime, timezone
 from pathlib import Path
@@ -12,8 +11,6 @@ from mobile.cli._common import CliError, emit_json, emit_table, fail, open_store
 from mobile.cli._common import parse_time as _time
 
 __all__ = ["register"]
-
-_NUM = re.compile(r"^\s*([+-]?[\d.,]*\d[\d.,]*|[+-]?[.,]\d+)\s*([^\d\s].*?)?\s*$")
 
 #: Core input names → the option a person typed.
 _OPTIONS = {
@@ -33,23 +30,15 @@ _OPTIONS = {
 # Reading what was typed
 # --------------------------------------------------------------------------------------------
 def _number(text: str | None, option: str, accepted: str, units: tuple[str, ...] = ()) -> float | None:
-    """A number as typed ("7.3", "7,3", "7.3 mL"); a unit, when given, must be one of `units`."""
-    from core.records.models import InputError, parse_number
+    """A number as typed ("7.3", "7,3", "7.3 mL"); a unit, when given, must be one of `units` (core's grammar)."""
+    from core.science.quantities import QuantityError, read_number
 
     if text is None:
         return None
-    m = _NUM.match(text)
-    if m is None:
-        raise CliError(f"{option} {text!r} is not a number; accepted: {accepted}")
-    unit = (m.group(2) or "").strip()
-    if unit and unit.lower().replace(" ", "") not in {u.lower() for u in units}:
-        raise CliError(f"{option} {text!r} has the unit {unit!r}; accepted: {accepted}")
     try:
-        return parse_number(m.group(1), option)
-    except InputError as exc:
-        why = {"number.ambiguous_comma": "is ambiguous (decimal comma or thousands separator?)"}.get(
-            exc.code, "is not a number")
-        raise CliError(f"{option} {text!r} {why}; accepted: {accepted}") from None
+        return read_number(text, option, units=units, accepted=accepted)
+    except QuantityError as exc:
+        raise CliError(exc.message) from None
 
 
 def _lab_error(exc: Exception) -> CliError:
@@ -60,7 +49,7 @@ def _lab_error(exc: Exception) -> CliError:
 
 
 #: LabSettings fields a program may set in its settings as ``lab_<name>``; options override them.
-_PROGRAM_KEYS = ("meter_tolerance_mg_l", "duplicate_rpd_percent", "standardisation_max_age_h")
+_PROGRAM_KEYS = ("meter_tolerance_mg_l", "duplicate_rpd_percent", "duplicate_abs_mg_l", "standardisation_max_age_h")
 
 
 def _now(args) -> datetime:  # noqa: ANN001
@@ -120,13 +109,26 @@ def _trip(store, ident: str):  # noqa: ANN001
         fail(str(exc))
 
 
-def _save(store, outcome, change: str):  # noqa: ANN001
+def _record(store, trip_id: str, compute, describe):  # noqa: ANN001, ANN202
+    """Computes a lab outcome on the stored trip and saves it in one read–modify–write under the
+    store's lock (no other writer, e.g. a sync, can come between); returns (outcome, saved trip).
+    `compute(trip)` gives the outcome, `describe(outcome)` the audit sentence."""
+    from core.rules.lab import LabInputError
     from core.store import StoreError
 
+    box: dict[str, Any] = {}
+
+    def apply(trip):  # noqa: ANN001, ANN202
+        box["out"] = compute(trip)
+        return box["out"].trip
+
     try:
-        return store.save_trip(outcome.trip, change)
+        saved = store.update_trip(trip_id, lambda: describe(box["out"]), apply)
+    except LabInputError as exc:
+        raise _lab_error(exc) from None
     except StoreError as exc:
         fail(f"nothing was saved: {exc}")
+    return box["out"], saved
 
 
 # --------------------------------------------------------------------------------------------
@@ -137,7 +139,7 @@ def _flag_rows(flags: list[dict]) -> list[tuple[str, str]]:
 
 
 def _winkler(args) -> int:  # noqa: ANN001
-    from core.rules.lab import CAUTION, WINKLER_KINDS, LabInputError, Standardisation, record_winkler
+    from core.rules.lab import CAUTION, WINKLER_KINDS, Standardisation, record_winkler
 
     ml = ("mL", "ml")
     titrant = _number(args.titrant_ml, "--titrant-ml", "thiosulfate used in mL, 0 to 100", ml)
@@ -180,16 +182,18 @@ def _winkler(args) -> int:  # noqa: ANN001
     else:
         entered.update(std_titrant_ml=args.std_titrant_ml, std_ml=args.std_ml, std_normality=args.std_normality,
                        standardised_at=args.standardised_at)
-    try:
-        out = record_winkler(trip, args.bottle, titrant_ml=titrant, titrated_ml=titrated, normality=normality,
-                             standardisation=std, bottle_ml=bottle_ml, reagents_ml=reagents, analysed_at=at,
-                             now=now, analyst=args.analyst or "", notes=args.notes or "", redo_reason=args.redo,
-                             settings=settings, entered=entered, batch=batch)
-    except LabInputError as exc:
-        raise _lab_error(exc) from None
-    who = f" ({out.result.analyst})" if out.result.analyst else ""
-    saved = _save(store, out, f"lab: Winkler DO {out.result.value:.2f} mg/L on bottle {out.bottle.label}{who}"
-                              + (" (re-titration)" if out.superseded else ""))
+    def compute(t):  # noqa: ANN001, ANN202
+        return record_winkler(t, args.bottle, titrant_ml=titrant, titrated_ml=titrated, normality=normality,
+                              standardisation=std, bottle_ml=bottle_ml, reagents_ml=reagents, analysed_at=at,
+                              now=now, analyst=args.analyst or "", notes=args.notes or "", redo_reason=args.redo,
+                              settings=settings, entered=entered, batch=batch)
+
+    def describe(o):  # noqa: ANN001, ANN202
+        who = f" ({o.result.analyst})" if o.result.analyst else ""
+        return (f"lab: Winkler DO {o.result.value:.2f} mg/L on bottle {o.bottle.label}{who}"
+                + (" (re-titration)" if o.superseded else ""))
+
+    out, saved = _record(store, trip.id, compute, describe)
     d = out.result.inputs["derived"]
     data = {**out.to_dict(), "do_mg_l": out.result.value, "original_sample_ml": d["original_sample_ml"],
             "normality": d["normality"], "valid": out.result.valid, "revision": saved.revision, "caution": CAUTION}
@@ -218,7 +222,7 @@ def _winkler(args) -> int:  # noqa: ANN001
     return 0
 
 
-def _read_dilutions(path_text: str) -> tuple[Any, Any]:
+def _read_dilutions(path_text: str) -> tuple[Any, Any, bool]:
     path = Path(path_text)
     try:
         raw = path.read_text(encoding="utf-8")
@@ -232,17 +236,22 @@ def _read_dilutions(path_text: str) -> tuple[Any, Any]:
         fail(f"--dilutions {path_text!r} is not valid JSON (line {exc.lineno}, column {exc.colno}); accepted: a"
              " list of dilutions or an object with \"dilutions\" (and \"seed_controls\")")
     controls = None
+    inhibitor = False
     if isinstance(doc, dict):
-        unknown = sorted(set(doc) - {"dilutions", "seed_controls"})
+        unknown = sorted(set(doc) - {"dilutions", "seed_controls", "nitrification_inhibitor"})
         if unknown:
             fail(f"--dilutions {path_text!r} has an unknown key {unknown[0]!r}; accepted keys: dilutions,"
-                 " seed_controls")
+                 " seed_controls, nitrification_inhibitor")
+        inhibitor = doc.get("nitrification_inhibitor", False)
+        if not isinstance(inhibitor, bool):
+            fail(f"--dilutions {path_text!r}: nitrification_inhibitor is not true or false; accepted: true"
+                 " (CBOD5) or false (BOD5)")
         controls = doc.get("seed_controls")
         doc = doc.get("dilutions")
     if not isinstance(doc, list) or not doc:
         fail(f"--dilutions {path_text!r} holds no list of dilutions; accepted: a JSON list of objects with"
              " initial_do_mg_l, final_do_mg_l, sample_ml (or an object with \"dilutions\")")
-    return doc, controls
+    return doc, controls, inhibitor
 
 
 def _batch(trip, bottle_ref: str, kinds: tuple[str, ...]):  # noqa: ANN001
@@ -299,20 +308,26 @@ def _batch_cmd(args) -> int:  # noqa: ANN001
     settings = _settings(args, store)
     trip = _trip(store, args.trip)
     refs = [r for r in (args.bottles or "").split(",") if r.strip()]
+    from core.store import StoreError
+
+    box: dict[str, Any] = {}
+
+    def apply(t):  # noqa: ANN001, ANN202 - runs under the store's lock on the stored trip
+        new_trip, box["batch"] = add_batch(t, name=args.name, bottle_refs=refs, created_at=now, now=now,
+                                           analyst=args.analyst or "", blank_depletion_mg_l=blank, gga_bod_mg_l=gga,
+                                           seed_controls=controls, incubation_start=start, incubation_end=end,
+                                           incubator_temp_c=temp, standardisation=std, notes=args.notes or "")
+        return new_trip
+
     try:
-        new_trip, batch = add_batch(trip, name=args.name, bottle_refs=refs, created_at=now, now=now,
-                                    analyst=args.analyst or "", blank_depletion_mg_l=blank, gga_bod_mg_l=gga,
-                                    seed_controls=controls, incubation_start=start, incubation_end=end,
-                                    incubator_temp_c=temp, standardisation=std, notes=args.notes or "")
+        saved = store.update_trip(
+            trip.id, lambda: f"lab: batch {box['batch'].name} ({len(box['batch'].bottle_ids)} bottles)", apply)
     except LabInputError as exc:
         field = {"name": "--name", "bottle": "--bottles", "seed_controls": "--seed-sheet"}.get(exc.field)
         raise (CliError(f"{field}: {exc.message}") if field else _lab_error(exc)) from None
-    from core.store import StoreError
-
-    try:
-        saved = store.save_trip(new_trip, f"lab: batch {batch.name} ({len(batch.bottle_ids)} bottles)")
     except StoreError as exc:
         fail(f"nothing was saved: {exc}")
+    batch = box["batch"]
     qc = batch_qc(batch, now, settings)
     labels = [b.label for s in saved.stops for b in s.bottles if b.id in set(batch.bottle_ids)]
     if args.json:
@@ -347,14 +362,16 @@ def _read_sheet(path_text: str, bottle: str) -> tuple[Any, Any]:
 
 
 def _bod(args) -> int:  # noqa: ANN001
-    from core.rules.lab import BOD_KINDS, LabInputError, record_bod
+    from core.rules.lab import BOD_KINDS, record_bod
 
     if (args.dilutions is None) == (args.sheet is None):
         fail("give the dilutions as --sheet FILE.csv (a bench sheet) or --dilutions FILE.json, one of the two")
+    inhibitor = False
     if args.sheet is not None:
         dilutions, controls = _read_sheet(args.sheet, args.bottle)
     else:
-        dilutions, controls = _read_dilutions(args.dilutions)
+        dilutions, controls, inhibitor = _read_dilutions(args.dilutions)
+    inhibitor = inhibitor or bool(args.nitrification_inhibitor)
     mg = ("mg/L", "mg/l")
     blank = _number(args.blank_depletion, "--blank-depletion", "dilution-water blank depletion in mg/L"
                                                                " (≤ 0.20 passes)", mg)
@@ -375,27 +392,42 @@ def _bod(args) -> int:  # noqa: ANN001
                        ("incubation_end", args.incubation_end)):
         if value is not None:
             entered[key] = value
-    try:
-        out = record_bod(trip, args.bottle, dilutions=dilutions, seed_controls=controls, blank_depletion_mg_l=blank,
-                         gga_bod_mg_l=gga, incubation_start=start, incubation_end=end, incubator_temp_c=temp,
-                         analysed_at=at, now=now, analyst=args.analyst or "", notes=args.notes or "",
-                         redo_reason=args.redo, settings=settings, entered=entered,
-                         batch=_batch(trip, args.bottle, BOD_KINDS))
-    except LabInputError as exc:
-        raise _lab_error(exc) from None
-    shown = "no valid dilution" if out.result.value is None else f"{out.result.value:.1f} mg/L"
-    saved = _save(store, out, f"lab: BOD5 {shown} on bottle {out.bottle.label}"
-                              + (f" ({out.result.analyst})" if out.result.analyst else "")
-                              + (" (repeat)" if out.superseded else ""))
+    batch = _batch(trip, args.bottle, BOD_KINDS)
+
+    def compute(t):  # noqa: ANN001, ANN202
+        return record_bod(t, args.bottle, dilutions=dilutions, seed_controls=controls, blank_depletion_mg_l=blank,
+                          gga_bod_mg_l=gga, incubation_start=start, incubation_end=end, incubator_temp_c=temp,
+                          analysed_at=at, now=now, analyst=args.analyst or "", notes=args.notes or "",
+                          redo_reason=args.redo, settings=settings, entered=entered,
+                          batch=batch, nitrification_inhibitor=inhibitor)
+
+    def report_of(o):  # noqa: ANN001, ANN202
+        return o.result.inputs["derived"].get("report") or {}
+
+    def shown_of(o):  # noqa: ANN001, ANN202
+        rep = report_of(o)
+        if rep.get("text"):
+            return rep["text"]
+        return "no valid dilution" if o.result.value is None else f"{o.result.value:.1f} mg/L"
+
+    def describe(o):  # noqa: ANN001, ANN202
+        return (f"lab: {report_of(o).get('analyte', 'BOD5')} {shown_of(o)} on bottle {o.bottle.label}"
+                + (f" ({o.result.analyst})" if o.result.analyst else "")
+                + (" (repeat)" if o.superseded else ""))
+
+    out, saved = _record(store, trip.id, compute, describe)
+    shown = shown_of(out)
+    report = report_of(out)
+    what = report.get("analyte", "BOD5")
     d = out.result.inputs["derived"]
-    data = {**out.to_dict(), "bod_mg_l": out.result.value, "valid": out.result.valid,
-            "dilutions": d["dilutions"], "revision": saved.revision}
+    data = {**out.to_dict(), "bod_mg_l": out.result.value, "valid": out.result.valid, "analyte": what,
+            "report": report, "dilutions": d["dilutions"], "revision": saved.revision}
     if args.json:
         emit_json(data)
         return 0
     rows = [("trip", f"{saved.id[:8]} (revision {saved.revision})"),
             ("bottle", f"{out.bottle.label} ({out.bottle.kind}) at {out.stop.site_id}"),
-            ("BOD5", shown + ("" if out.result.valid else " (NOT valid)"))]
+            (what, shown + ("" if out.result.valid or report.get("qualifier") else " (NOT valid)"))]
     for i, dil in enumerate(d["dilutions"], 1):
         rows.append((f"dilution {i}", f"{dil['sample_ml']:g} mL: {dil['bod_mg_l']:.1f} mg/L, depletion"
                                       f" {dil['depletion_mg_l']:.2f} mg/L, {'valid' if dil['valid'] else 'not valid'}"))
@@ -525,18 +557,22 @@ def _pending(args) -> int:  # noqa: ANN001
 
 
 def _results(args) -> int:  # noqa: ANN001
+    from core.rules.lab import reported_bod
+
     store = _store(args)
     trip = _trip(store, args.trip)
     rows = []
     for stop in sorted(trip.stops, key=lambda s: s.arrived_at):
         for b in stop.bottles:
             for r in b.lab_results:
-                inputs = r.inputs or {}
+                rep = reported_bod(r)
                 rows.append({"site_id": stop.site_id, "bottle_id": b.id, "label": b.label, "kind": b.kind,
                              "result_id": r.id, "analyte": r.analyte, "value": r.value, "unit": r.unit,
+                             "report": None if rep is None else rep.to_dict(),
                              "analysed_at": r.analysed_at.isoformat() if r.analysed_at else None,
-                             "analyst": r.analyst, "method": r.method, "valid": r.valid,
-                             "superseded_by": inputs.get("superseded_by"), "flags": inputs.get("flags", [])})
+                             "analyst": r.analyst, "method": r.method, "valid": r.valid, "status": r.status,
+                             "superseded_by": r.superseded_by,
+                             "flags": [f.model_dump(mode="json") for f in r.flags]})
     if args.json:
         emit_json({"trip_id": trip.id, "results": rows})
         return 0
@@ -545,6 +581,8 @@ def _results(args) -> int:  # noqa: ANN001
         return 0
     for r in rows:
         value = "—" if r["value"] is None else f"{r['value']:.2f} {r['unit']}"
+        if r["report"] is not None:
+            value = r["report"]["text"] if r["report"]["value"] is not None else "—"
         state = f"superseded by {r['superseded_by'][:8]}" if r["superseded_by"] else (
             "valid" if r["valid"] else ("NOT valid" if r["valid"] is False else "not checked"))
         sys.stdout.write(f"{r['site_id']:<7} {r['label']:<10} {r['analyte']:<11} {value:>11}  "
@@ -622,6 +660,8 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     p.add_argument("--incubation-start", metavar="ISO-TIME", help="when the bottles were set up")
     p.add_argument("--incubation-end", metavar="ISO-TIME", help="when they were read after 5 days")
     p.add_argument("--incubator-temp", metavar="C", help="incubator temperature, °C")
+    p.add_argument("--nitrification-inhibitor", action="store_true",
+                   help="a nitrification inhibitor was added: records CBOD5, its own analyte")
     _common(p)
     p.set_defaults(handler=_bod)
 

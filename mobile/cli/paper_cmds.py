@@ -69,7 +69,7 @@ def _season_filter(args, sites=()):  # noqa: ANN001
     start, end = _date(args.date_from, "--from"), _date(args.date_to, "--to")
     if start and end and start > end:
         fail(f"--from {start} is after --to {end}; accepted: a start date on or before the end date")
-    return SeasonFilter(start, end, tuple(sites))
+    return SeasonFilter(start, end, tuple(sites), tuple(getattr(args, "state", None) or ()))
 
 
 def _walk_trips(store, flt, what: str):  # noqa: ANN001
@@ -181,6 +181,8 @@ def _common(p) -> None:  # noqa: ANN001
 
 def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     """Adds `report`, `export` and `plot` to the top-level parser."""
+    from core.rules.review import STATES as REVIEW_STATES
+
     p = sub.add_parser("report", help="the trip report as a PDF: field sheet, lab results, chain of custody, a plot",
                        description="Prints a trip's report to a PDF for filing. Informs only: the program's SOP"
                                    " and local regulations decide.")
@@ -200,6 +202,9 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     p.add_argument("--from", dest="date_from", metavar="DATE", help="first trip date, YYYY-MM-DD")
     p.add_argument("--to", dest="date_to", metavar="DATE", help="last trip date, YYYY-MM-DD")
     p.add_argument("--site", metavar="ID", action="append", help="only stops at this site (repeat for more)")
+    p.add_argument("--state", action="append", choices=REVIEW_STATES, metavar="STATE",
+                   help="only trips in this review state, e.g. approved (repeat for more; "
+                        f"one of: {', '.join(REVIEW_STATES)})")
     p.add_argument("--out", metavar="DIR", required=True, help="folder for the tables (created when missing)")
     p.add_argument("--xlsx", action="store_true", help="also write the tables as one workbook, season.xlsx")
     _common(p)

@@ -5,25 +5,29 @@ import json
 import re
 from pathlib import Path
 
-from core.science._validate import decimal
 from mobile.cli._common import CliError, emit_json, emit_table
 
 __all__ = ["register"]
 
-_NUMBER = re.compile(r"^\s*([+-]?(?:\d+(?:[.,]\d*)?|[.,]\d+))\s*(.*?)\s*$")
-
 
 def _number(text: str, option: str, accepted: str, units: tuple[str, ...] = ()) -> float:
-    """A plain number (decimal comma allowed), optionally followed by one of ``units``."""
-    m = _NUMBER.match(text or "")
-    if m is None or ("," in text and "." in text):
-        raise CliError(f"{option} {text!r} is not a number; accepted: {accepted}")
-    if m.group(2) and m.group(2).lower().replace(" ", "") not in {u.lower() for u in units}:
-        raise CliError(f"{option} {text!r} has an unexpected unit {m.group(2)!r}; accepted: {accepted}")
+    """A plain number (decimal comma allowed), optionally followed by one of ``units`` (core's grammar)."""
+    from core.science.quantities import QuantityError, read_number
+
     try:
-        return decimal(m.group(1), option)
-    except ValueError as exc:
-        raise CliError(f"{exc}") from None
+        return read_number(text, option, units=units, accepted=accepted)
+    except QuantityError as exc:
+        raise CliError(exc.message) from None
+
+
+def _typed(kind: str, text: str, option: str, default_unit: str | None = None):
+    """A typed quantity (number and unit) read and checked against the one table of limits."""
+    from core.science.quantities import QuantityError, read
+
+    try:
+        return read(kind, text, option, default_unit=default_unit)
+    except QuantityError as exc:
+        raise CliError(exc.message) from None
 
 
 def _core(option: str, fn, *args, **kwargs):
@@ -48,35 +52,31 @@ def _flag_rows(flags) -> list[tuple[str, str]]:
 
 def _sat(args) -> int:
     from core.science.assess import assess_reading
-    from core.science.conductivity import parse_conductivity
-    from core.science.pressure import parse_pressure
-    from core.science.temperature import parse_temperature
 
-    temp_c = _core("--temp", parse_temperature, args.temp)
-    pressure_hpa = _core("--pressure", parse_pressure, args.pressure)
+    temp_c = _typed("temp", args.temp, "--temp").value
+    pressure_hpa = _typed("pressure", args.pressure, "--pressure").value
     salinity = None
     if args.salinity is not None:
-        salinity = _number(args.salinity, "--salinity", "a practical salinity, 0 to 70 (fresh streams are under 1)")
+        salinity = _typed("salinity", args.salinity, "--salinity").value
     cond = None
     if args.conductivity is not None:
-        cond = _core("--conductivity", parse_conductivity, args.conductivity)
+        cond = _typed("conductivity", args.conductivity, "--conductivity").value
     elif args.at_25:
         raise CliError("--at-25 needs --conductivity; accepted: --conductivity '410 uS/cm' --at-25")
     do_mg_l = do_percent = None
     if args.do is not None:
-        value = _number(args.do, "--do", "DO in mg/L (e.g. 8.4), or in % saturation written with % (e.g. '92 %')",
-                        ("mg/L", "%"))
-        if args.do.strip().endswith("%"):
-            do_percent = value
+        do = _typed("do", args.do, "--do", default_unit="mg/L")
+        if do.unit == "%":
+            do_percent = do.value
         else:
-            do_mg_l = value
+            do_mg_l = do.value
     elevation = None
     if args.elevation is not None:
-        elevation = _number(args.elevation, "--elevation", "site elevation in metres, -500 to 11000", ("m",))
+        elevation = _typed("elevation", args.elevation, "--elevation").value
     try:
         a = assess_reading(temp_c, pressure_hpa, salinity=salinity, conductivity_us_cm=cond,
                            conductivity_is_sc25=bool(args.at_25), do_mg_l=do_mg_l, do_percent=do_percent,
-                           method=args.method, elevation_m=elevation)
+                           method=args.method, elevation_m=elevation, percent_basis=args.percent_basis)
     except ValueError as exc:
         msg = _which_sat_option(str(exc))
         if cond is not None and msg.startswith("--salinity"):
@@ -97,7 +97,7 @@ def _sat(args) -> int:
         rows.append(("specific conductance", _fmt(a.specific_conductance_us_cm, 0, "µS/cm at 25 °C")))
     if a.do_mg_l is not None:
         rows.append(("DO", _fmt(a.do_mg_l, 2, "mg/L")))
-        rows.append(("saturation %", _fmt(a.percent_saturation, 1, "%")))
+        rows.append(("saturation %", _fmt(a.percent_saturation, 1, "% (of local saturation)")))
     rows += _flag_rows(d["flags"])
     emit_table(rows)
     return 0
@@ -108,22 +108,31 @@ _SAT_NAMES = (("temp_c", "--temp"), ("pressure_hpa", "--pressure"), ("salinity",
               ("elevation_m", "--elevation"), ("method", "--method"))
 
 
+def _as_option(first: str, name: str, option: str) -> str:
+    """Core's "name = value is ..." as the person typed it: "--option value is ..."."""
+    rest = first[len(name):]
+    if rest.startswith(" = "):
+        return f"{option} {rest[3:]}"
+    if rest.startswith(("[", " ")):
+        return f"{option}{rest}" if rest.startswith(" ") else f"{option}: {first}"
+    return f"{option}: {first}"
+
+
 def _which_sat_option(message: str) -> str:
     first = message.splitlines()[0] if message else "invalid value"
     for name, option in _SAT_NAMES:
         if first.startswith(name):
-            return f"{option}: {first}"
+            return _as_option(first, name, option)
     return first
 
 
 # --- salinity --------------------------------------------------------------------------------------
 
 def _salinity(args) -> int:
-    from core.science.conductivity import parse_conductivity, practical_salinity, specific_conductance_us_cm
-    from core.science.temperature import parse_temperature
+    from core.science.conductivity import practical_salinity, specific_conductance_us_cm
 
-    us_cm = _core("--conductivity", parse_conductivity, args.conductivity)
-    temp_c = _core("--temp", parse_temperature, args.temp)
+    us_cm = _typed("conductivity", args.conductivity, "--conductivity").value
+    temp_c = _typed("temp", args.temp, "--temp").value
     p = _number(args.pressure_dbar, "--pressure-dbar", "sea pressure in dbar, 0 to 11000 (0 at the surface)",
                 ("dbar",))
     names = {"conductivity_ms_cm": "--conductivity", "conductivity_us_cm": "--conductivity", "temp_c": "--temp",
@@ -147,7 +156,7 @@ def _salinity(args) -> int:
 # --- winkler ---------------------------------------------------------------------------------------
 
 def _winkler(args) -> int:
-    from core.science.winkler import SAFETY_NOTE, original_sample_ml, winkler_do_mg_l
+    from core.science.winkler import SAFETY_NOTE, original_sample_ml, winkler_do_mg_l, winkler_plausibility_flags
 
     ml = ("mL",)
     titrant = _number(args.titrant_ml, "--titrant-ml", "titrant volume in mL, 0 to 100", ml)
@@ -162,18 +171,23 @@ def _winkler(args) -> int:
         orig = original_sample_ml(titrated, bottle, reagents)
     except ValueError as exc:
         raise CliError(_name_option(str(exc), names)) from None
+    flags = [f.to_dict() for f in winkler_plausibility_flags(do_mg_l=do, normality=normality)]
     if args.json:
-        emit_json({"do_mg_l": do, "original_sample_ml": orig})
+        emit_json({"do_mg_l": do, "original_sample_ml": orig, "flags": flags})
         return 0
-    emit_table([("DO", _fmt(do, 2, "mg/L")), ("original sample", _fmt(orig, 2, "mL")), ("caution", SAFETY_NOTE)])
+    emit_table([("DO", _fmt(do, 2, "mg/L")), ("original sample", _fmt(orig, 2, "mL"))] + _flag_rows(flags)
+               + [("caution", SAFETY_NOTE)])
     return 0
 
 
 def _name_option(message: str, names: dict[str, str]) -> str:
     first = message.splitlines()[0] if message else "invalid value"
-    for name, option in names.items():
+    for name, option in sorted(names.items(), key=lambda kv: -len(kv[0])):
         if first.startswith(name):
-            return f"{option}: {first}"
+            out = _as_option(first, name, option)
+            for other, opt in sorted(names.items(), key=lambda kv: -len(kv[0])):   # "(plus seed_ml = 2)"
+                out = re.sub(rf"(?<![\w-]){re.escape(other)}(?: = |(?!\w))", opt + " ", out).replace("  ", " ")
+            return out.replace(" ;", ";").replace(" )", ")").rstrip()
     return first
 
 
@@ -183,7 +197,7 @@ _BOD_SINGLE = ("initial", "final", "sample_ml", "seed_ml", "seed_uptake")
 
 
 def _bod(args) -> int:
-    from core.science.bod import bod_dilution
+    from core.science.bod import BOD_ANALYTES, bod_dilution, bod_report
 
     given = [n for n in _BOD_SINGLE if getattr(args, n) is not None]
     if args.dilutions is not None:
@@ -215,12 +229,16 @@ def _bod(args) -> int:
         d = bod_dilution(**kw)
     except ValueError as exc:
         raise CliError(_name_option(str(exc), names)) from None
-    flags = [f.to_dict() for f in d.flags]
+    analyte = BOD_ANALYTES[1] if args.nitrification_inhibitor else BOD_ANALYTES[0]
+    report, report_flags = bod_report([d], analyte)
+    flags = [f.to_dict() for f in d.flags + report_flags]
     if args.json:
-        emit_json({"bod_mg_l": d.bod_mg_l, "valid": d.valid, "flags": flags,
-                   "depletion_mg_l": d.depletion_mg_l, "seed_correction_mg_l": d.seed_correction_mg_l})
+        emit_json({"bod_mg_l": d.bod_mg_l, "valid": d.valid, "analyte": analyte, "report": report.to_dict(),
+                   "flags": flags, "depletion_mg_l": d.depletion_mg_l,
+                   "seed_correction_mg_l": d.seed_correction_mg_l})
         return 0
-    emit_table([("BOD5", _fmt(d.bod_mg_l, 1, "mg/L") + ("" if d.valid else " (not valid)")),
+    emit_table([(analyte, report.text),
+                ("this dilution", _fmt(d.bod_mg_l, 1, "mg/L") + ("" if d.valid else " (not valid)")),
                 ("depletion", _fmt(d.depletion_mg_l, 2, "mg/L")),
                 ("seed correction", _fmt(d.seed_correction_mg_l, 2, "mg/L"))] + _flag_rows(flags))
     return 0
@@ -243,11 +261,16 @@ def _bod_file(args) -> int:
         raise CliError(f"--dilutions {str(path)!r} is not valid JSON (line {exc.lineno}, column {exc.colno});"
                        " accepted: a list of dilutions or an object with \"dilutions\"") from None
     controls = None
+    inhibitor = bool(args.nitrification_inhibitor)
     if isinstance(doc, dict):
-        unknown = sorted(set(doc) - {"dilutions", "seed_controls"})
+        unknown = sorted(set(doc) - {"dilutions", "seed_controls", "nitrification_inhibitor"})
         if unknown:
             raise CliError(f"--dilutions {str(path)!r} has an unknown key {unknown[0]!r}; accepted keys:"
-                           " dilutions, seed_controls")
+                           " dilutions, seed_controls, nitrification_inhibitor")
+        if not isinstance(doc.get("nitrification_inhibitor", False), bool):
+            raise CliError(f"--dilutions {str(path)!r}: nitrification_inhibitor is not true or false;"
+                           " accepted: true (CBOD5) or false (BOD5)")
+        inhibitor = inhibitor or doc.get("nitrification_inhibitor", False)
         controls = doc.get("seed_controls")
         doc = doc.get("dilutions")
     if not isinstance(doc, list):
@@ -257,12 +280,12 @@ def _bod_file(args) -> int:
         s = _core("--dilutions seed_controls", seed_uptake_per_ml, controls)
         doc = [dict(d, seed_uptake_mg_l_per_ml=d.get("seed_uptake_mg_l_per_ml", s))
                if isinstance(d, dict) and d.get("seed_ml") else d for d in doc]
-    r = _core("--dilutions", bod_from_dilutions, doc)
+    r = _core("--dilutions", bod_from_dilutions, doc, nitrification_inhibitor=inhibitor)
     d = r.to_dict()
     if args.json:
         emit_json(d)
         return 0
-    rows = [("BOD5", _fmt(r.bod_mg_l, 1, "mg/L") if r.valid else "no valid dilution")]
+    rows = [(r.analyte, r.report.text if r.report is not None else "-")]
     for i, dil in enumerate(r.dilutions, 1):
         rows.append((f"dilution {i}", f"{dil.sample_ml:g} mL: {dil.bod_mg_l:.1f} mg/L, depletion"
                                       f" {dil.depletion_mg_l:.2f} mg/L, {'valid' if dil.valid else 'not valid'}"))
@@ -275,20 +298,24 @@ def _bod_file(args) -> int:
 
 def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     """Adds this module's sub-commands (sat, salinity, winkler, bod) to the top-level parser."""
-    from core.science.oxygen import METHODS
+    from core.science.oxygen import METHODS, PERCENT_BASES
 
-    p = sub.add_parser("sat", help="DO saturation target and % saturation of a reading",
+    p = sub.add_parser("sat", help="DO saturation target and %% saturation of a reading",
                        description="Saturation target at the water temperature and station pressure; with --do,"
                                    " the reading's % saturation. Informs only: the program's SOP decides.")
     p.add_argument("--temp", required=True, help="water temperature, e.g. 18.5 (°C) or '65 F'")
     p.add_argument("--pressure", required=True,
                    help="station pressure with unit: '752 mmHg', '29.61inHg', '1002.3 hPa' (not sea-level adjusted)")
     g = p.add_mutually_exclusive_group()
-    g.add_argument("--salinity", help="practical salinity (default 0)")
+    g.add_argument("--salinity", help="practical salinity, e.g. 0.2 or '0.2 psu' (default 0)")
     g.add_argument("--conductivity", help="conductivity at the water temperature with unit, e.g. '410 uS/cm'")
     p.add_argument("--at-25", action="store_true", help="--conductivity is already specific conductance at 25 °C")
     p.add_argument("--do", help="DO reading in mg/L (e.g. 8.4), or in %% written with %% (e.g. '92 %%')")
-    p.add_argument("--elevation", help="site elevation in m; checks for a sea-level-adjusted pressure")
+    p.add_argument("--elevation", help="site elevation, e.g. 1200 (m) or '3900 ft'; checks for a"
+                                       " sea-level-adjusted pressure")
+    p.add_argument("--percent-basis", default="local", choices=PERCENT_BASES,
+                   help="what the meter's 100 %% is: saturation at the local pressure (default) or at 760 mmHg"
+                        " (sea-level); used when --do is in %%")
     p.add_argument("--method", default="benson-krause", choices=METHODS, help="solubility equation")
     p.add_argument("--json", action="store_true", help="print JSON")
     p.set_defaults(handler=_sat)
@@ -316,13 +343,17 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
 
     p = sub.add_parser("bod", help="BOD5 from a dilution (or a file of dilutions)",
                        description="BOD5 by Standard Methods 5210 B: one dilution from the options, or several"
-                                   " of one sample from a JSON file.")
+                                   " of one sample from a JSON file. The reported result follows 5210 B: the"
+                                   " mean of agreeing valid dilutions, '< bound' when no dilution used 2.0 mg/L,"
+                                   " '> bound' when every dilution ended under 1.0 mg/L.")
     p.add_argument("--initial", help="initial DO of the dilution, mg/L")
     p.add_argument("--final", help="DO after 5 days, mg/L")
     p.add_argument("--sample-ml", help="sample volume in the bottle, mL")
     p.add_argument("--bottle-ml", default="300", help="bottle volume, mL (default 300)")
     p.add_argument("--seed-ml", help="seed volume in the bottle, mL")
     p.add_argument("--seed-uptake", help="seed uptake, mg/L per mL of seed")
+    p.add_argument("--nitrification-inhibitor", action="store_true",
+                   help="a nitrification inhibitor was added: the result is CBOD5, reported as its own analyte")
     p.add_argument("--dilutions", metavar="FILE",
                    help="JSON file: a list of {initial_do_mg_l, final_do_mg_l, sample_ml[, bottle_ml, seed_ml,"
                         " seed_uptake_mg_l_per_ml]} or an object with dilutions and seed_controls")

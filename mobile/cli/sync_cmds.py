@@ -39,6 +39,8 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     pull = verbs.add_parser("pull", help="bring every trip from a hub into this store, merging")
     pull.add_argument("--from", dest="source", required=True, metavar="TARGET",
                       help="folder or file:// URL, or https:// WebDAV collection")
+    pull.add_argument("--full", action="store_true",
+                      help="list the whole hub instead of reading its change log (a repair; slow on big hubs)")
     common(pull)
     pull.set_defaults(handler=_pull)
 
@@ -115,8 +117,10 @@ def _run(args: Any, verb: str, address: str):  # noqa: ANN202
     _check_address(session, address, "--to" if verb == "push" else "--from")
     bar = _Bar(verb)
     try:
-        fn = sync.push if verb == "push" else sync.pull
-        return fn(store, address, progress=bar, session=session), None
+        if verb == "push":
+            return sync.push(store, address, progress=bar, session=session), None
+        return sync.pull(store, address, progress=bar, session=session,
+                         full=bool(getattr(args, "full", False))), None
     except FinalError as exc:
         bar.finish()
         fail(str(exc))

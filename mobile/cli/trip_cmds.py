@@ -46,6 +46,9 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     p.add_argument("--format", choices=("json", "csv"), required=True)
     p.add_argument("--out", metavar="PATH", default=None,
                    help="file for json; folder for csv (stops.csv, bottles.csv); default: standard output")
+    from mobile.cli.conflict_cmds import add_trip_commands
+
+    add_trip_commands(trip_sub, _command)
 
 
 def _store(args, *, create: bool = False):  # noqa: ANN001
@@ -82,16 +85,28 @@ def _trip_import(args) -> int:  # noqa: ANN001
 
     store = _store(args, create=True)
     try:
-        trip = import_trip_file(store, args.file)
+        outcome = import_trip_file(store, args.file)
     except ExchangeError as exc:
         fail(str(exc))
+    trip = outcome.trip
     if args.json:
         emit_json({"id": trip.id, "revision": trip.revision, "stop_count": len(trip.stops),
-                   "status": trip.status})
+                   "status": trip.status, "result": outcome.result,
+                   "new_conflicts": len(outcome.conflicts)})
+        return 0
+    n = len(trip.stops)
+    name = Path(args.file).name
+    what = f"({n} stop{'' if n == 1 else 's'}, revision {trip.revision})"
+    if outcome.result == "new":
+        sys.stdout.write(f"imported trip {trip.id} {what} from {name}\n")
+    elif outcome.result == "unchanged":
+        sys.stdout.write(f"trip {trip.id} unchanged {what}: this device already holds everything in {name}\n")
     else:
-        n = len(trip.stops)
-        sys.stdout.write(f"imported trip {trip.id} ({n} stop{'' if n == 1 else 's'}, revision {trip.revision})"
-                         f" from {Path(args.file).name}\n")
+        sys.stdout.write(f"merged {name} into trip {trip.id} {what}; nothing stored was removed\n")
+    if outcome.conflicts:
+        k = len(outcome.conflicts)
+        sys.stdout.write(f"{k} field{'' if k == 1 else 's'} differ between this device and the file;"
+                         f" see 'streamtab trip conflicts {trip.id[:8]}'\n")
     return 0
 
 
@@ -104,6 +119,8 @@ def _note_quarantine(store) -> None:  # noqa: ANN001
 
 
 def _trip_list(args) -> int:  # noqa: ANN001
+    from core.records.messages import when_text
+
     store = _store(args)
     summaries = store.list_trips()
     _note_quarantine(store)
@@ -114,7 +131,7 @@ def _trip_list(args) -> int:  # noqa: ANN001
         sys.stdout.write("no trips on this device\n")
         return 0
     for s in summaries:
-        sys.stdout.write(f"{s.id[:8]}  {s.started_at[:16]:<16}  {s.program[:28]:<28}  "
+        sys.stdout.write(f"{s.id[:8]}  {when_text(s.started_at):<26}  {s.program[:28]:<28}  "
                          f"{','.join(s.crew)[:14]:<14}  {s.stop_count:>3} stop{' ' if s.stop_count == 1 else 's'}  rev {s.revision:<3} {s.status}\n")
     return 0
 
@@ -150,6 +167,7 @@ def _show_data(store, trip_id: str) -> dict:  # noqa: ANN001
             "meter_id": trip.meter_id, "started_at": trip.started_at.isoformat(),
             "ended_at": trip.ended_at.isoformat() if trip.ended_at else None, "revision": trip.revision,
             "status": trip.status, "calibrations": cal,
+            "started_without_calibration": trip.started_without_calibration,
             "trip_flags": [f.to_dict() for f in flags.get(TRIP_KEY, [])],
             "open_conflicts": [c.model_dump(mode="json") for c in trip.open_conflicts],
             "stops": stops}
@@ -171,10 +189,14 @@ def _trip_show(args) -> int:  # noqa: ANN001
     if args.json:
         emit_json(data)
         return 0
+    from core.records.messages import when_text
+
     w = sys.stdout.write
     w(f"trip {data['id']}  {data['program']}  crew {', '.join(data['crew']) or '—'}  status {data['status']}\n")
-    w(f"  started {data['started_at']}  ended {data['ended_at'] or '—'}  meter {data['meter_id'] or '—'}"
+    w(f"  started {when_text(data['started_at'])}  ended {when_text(data['ended_at'])}  meter {data['meter_id'] or '—'}"
       f"  revision {data['revision']}\n")
+    if data["started_without_calibration"] and not data["calibrations"]["pre_calibration"]:
+        w("  pre-trip calibration: none — the trip was started without calibration\n")
     for key, label in (("pre_calibration", "pre-trip calibration"), ("post_check", "post-trip check")):
         c = data["calibrations"][key]
         if c:
@@ -183,9 +205,12 @@ def _trip_show(args) -> int:  # noqa: ANN001
               f"{_fmt(c.get('target_mg_l'), '.2f', 'mg/L')}, {verdict}\n")
     for f in data["trip_flags"]:
         w(f"  [{f['severity']}] {f['code']}: {f['message']}\n")
-    for c in data["open_conflicts"]:
-        sides = " | ".join(f"{s.get('device_id')}: {s.get('value')!r}" for s in c.get("sides") or [])
-        w(f"  [needs attention] {c['path']} was changed on two devices ({sides}); choose the right value.\n")
+    if data["open_conflicts"]:
+        from core.rules.conflicts import list_conflicts
+
+        for v in list_conflicts(store.load_trip(trip_id), this_device=store.device_id):
+            w(f"  [needs attention] {v.number}. {v.message}\n")
+        w(f"  settle with 'streamtab trip conflicts {data['id'][:8]}' and 'streamtab trip settle'\n")
     for s in data["stops"]:
         d = s["derived"] or {}
         inp = s["inputs"]

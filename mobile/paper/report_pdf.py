@@ -173,6 +173,7 @@ def _flag_line(f: Any) -> str:
 def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
     """Lays out a :class:`core.rules.report.TripReport` as PDF bytes (and writes `path` atomically)."""
     from core.rules.report import typed
+    from core.rules.review import describe as review_describe
     from mobile.paper.plots import figure_bytes, trip_do_figure
 
     trip = rep.trip
@@ -194,6 +195,7 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
         ("Meter", trip.meter_id or "—"),
         ("Device", trip.device_id or "—"),
         ("Status", trip.status),
+        ("Review", review_describe(trip)),
     ])
     cal_rows = []
     for name, cal in rep.calibrations:

@@ -37,6 +37,7 @@ def test_snapshot_of_demo_screens(tmp_path, screen):
     from core.store import DeviceStore
 
     png = ARTIFACTS / "cli-demo" / f"{screen}.png"
+    png.parent.mkdir(parents=True, exist_ok=True)     # --snapshot writes only into an existing folder
     out = run_cli("app", "--data-dir", str(tmp_path / "d"), "--seed-demo", str(ROOT / "sample_trips"),
                   "--snapshot", str(png), "--screen", screen, "--size", "1000x700",
                   env=_no_display_env(tmp_path), timeout=120)

@@ -21,7 +21,7 @@ def ctl(tmp_path):
     c = AppController(DeviceStore.open(tmp_path / "data"))
     f = c.new_trip_form()
     f.program, f.crew, f.meter_id = "Tamsin Valley Stream Watch", "R.O., J.V.", "DO-7"
-    assert c.start_trip(f) is None
+    assert c.start_trip(f, without_calibration=True) is None
     c.new_stop()
     c.set_stop_field("site", "LK-01")
     yield c
@@ -66,7 +66,7 @@ def test_duplicate_bottle_refused_in_trip_and_across_device(ctl, tmp_path):
     other = AppController(ctl.store)
     f = other.new_trip_form()
     f.program, f.crew, f.meter_id = "Tamsin Valley Stream Watch", "J.V.", "DO-8"
-    other.start_trip(f)
+    other.start_trip(f, without_calibration=True)
     other.new_stop()
     other.set_stop_field("site", "LK-02")
     msg = other.add_bottle("B-1", "do_fixed", True)
@@ -158,12 +158,14 @@ def test_open_conflicts_reach_the_attention_list(ctl):
         ctl.set_stop_field(k, v)
     ctl.save_now(wait=True)
     doc = ctl.store.trip_document(ctl.trip.id)
-    doc["conflicts"] = [{"id": "c1", "path": "stops[0].notes", "detected_at": datetime.now(timezone.utc).isoformat(),
+    doc["conflicts"] = [{"id": "c1", "path": f"stops[{doc['stops'][0]['id']}].notes", "detected_at": datetime.now(timezone.utc).isoformat(),
                          "sides": [{"device_id": "dev-a", "value": "riffle"}, {"device_id": "dev-b", "value": "pool"}]}]
-    ctl.store.put_document(doc, "merged by sync")
+    ctl.store.put_document(doc, "merged by sync", expected_revision=doc["revision"])
     ctl.open_trip(ctl.trip.id)
     lines = [line for line in ctl.attention_lines() if "CONFLICT" in line]
-    assert len(lines) == 1 and "stops[0].notes" in lines[0] and "dev-a" in lines[0]
+    # in words: the site, the field's label and both values; no record path, no device id
+    assert len(lines) == 1 and "riffle" in lines[0] and "pool" in lines[0] and "LK-01" in lines[0]
+    assert "stops[" not in lines[0] and "dev-a" not in lines[0]
 
 
 def test_arrival_time_typed_as_hh_mm_or_full(ctl):
@@ -241,3 +243,162 @@ def test_settings_limits_are_the_records_own(ctl):
         msg = ctl.save_settings_form(units, {**ok, name: text}, "")
         assert msg and msg.startswith(words), msg
     assert ctl.store.settings().supersaturation_percent == 130   # a refusal saved nothing
+
+
+def test_trip_start_reads_the_same_in_the_app_and_the_command_line(tmp_path, capsys, monkeypatch):
+    """Both show a trip's start in its own UTC offset and say which, whatever this machine's zone."""
+    import time
+    from pathlib import Path
+
+    from core.records.messages import when_text
+    from mobile.cli import main
+    from mobile.cli.app_cmd import seed_demo
+
+    monkeypatch.setenv("TZ", "Asia/Tokyo")      # a tablet far from where the trips were recorded
+    time.tzset()
+    try:
+        seed_demo(tmp_path / "d", Path(__file__).resolve().parents[2] / "sample_trips")
+        store = DeviceStore.open(tmp_path / "d")
+        c = AppController(store)
+        lines = {line.id: line.detail for line in c.trip_lines()}
+        assert main(["trip", "list", "--data-dir", str(tmp_path / "d")]) == 0
+        out = capsys.readouterr().out
+        for t in store.list_trips():
+            shown = when_text(t.started_at)
+            assert "UTC" in shown and t.started_at[11:16] in shown    # the recorded clock, not Tokyo's
+            assert lines[t.id].startswith(shown)
+            assert f"{t.id[:8]}  {shown}" in out
+        c.worker.flush()
+    finally:
+        monkeypatch.delenv("TZ")
+        time.tzset()
+
+
+def _demo_controller(tmp_path, monkeypatch, zone="Asia/Tokyo"):
+    """The demo trips (recorded at UTC−07:00, typed without units) opened on a tablet in `zone`."""
+    import time
+    from pathlib import Path
+
+    from mobile.cli.app_cmd import seed_demo
+
+    monkeypatch.setenv("TZ", zone)
+    time.tzset()
+    seed_demo(tmp_path / "d", Path(__file__).resolve().parents[2] / "sample_trips")
+    store = DeviceStore.open(tmp_path / "d")
+    return store, AppController(store)
+
+
+@pytest.fixture
+def restore_tz():
+    import os
+    import time
+
+    before = os.environ.get("TZ")
+    yield
+    if before is None:
+        os.environ.pop("TZ", None)
+    else:
+        os.environ["TZ"] = before
+    time.tzset()
+
+
+def test_opening_and_saving_a_trip_changes_nothing(tmp_path, monkeypatch, restore_tz):
+    store, c = _demo_controller(tmp_path, monkeypatch)
+    for t in store.list_trips():
+        before = store.load_trip(t.id)
+        c.open_trip(t.id)
+        c.save_now(wait=True)
+        assert c.take_save_errors() == []
+        after = store.load_trip(t.id)
+        assert after.revision == before.revision, after.audit[-1].fields    # nothing written
+    c.worker.flush()
+
+
+def test_a_one_field_edit_changes_one_path(tmp_path, monkeypatch, restore_tz):
+    """Each kind of field edited once on a tablet in another time zone: the audit lists exactly
+    the one path edited, typed text elsewhere stays as typed, times keep their own offset."""
+    store, c = _demo_controller(tmp_path, monkeypatch)
+    trip_id = next(t.id for t in store.list_trips() if t.status == "ended")
+    c.open_trip(trip_id)
+    stop = c.trip.stops[1]
+    bottle = next(b for s in c.trip.stops for b in s.bottles)
+    original = store.load_trip(trip_id).model_dump(mode="json")
+
+    def edit_stop(name, value):
+        def run():
+            c.stop_id = stop.id
+            c.set_stop_field(name, value)
+        return run
+
+    def set_attr(obj, attr, value):
+        return lambda: setattr(obj, attr, value)
+
+    cases = [
+        ("water temperature", edit_stop("temp", "14,2"), f"stops[{stop.id}].temp"),
+        ("pressure unit", edit_stop("pressure_unit", "mbar"), f"stops[{stop.id}].pressure"),
+        ("conductivity", edit_stop("conductivity", "1,71"), f"stops[{stop.id}].conductivity"),
+        ("meter DO", edit_stop("do", "7,77"), f"stops[{stop.id}].do"),
+        ("conductivity basis", edit_stop("cond_is_sc25", not stop.cond_is_sc25),
+         f"stops[{stop.id}].conductivity_is_sc25"),
+        ("notes", edit_stop("notes", "gauge plate bent"), f"stops[{stop.id}].notes"),
+        ("site", edit_stop("site", "LK-05"), f"stops[{stop.id}].site_id"),
+        ("arrival time", edit_stop("arrived", "06:05"), f"stops[{stop.id}].arrived_at"),
+        ("bottle fixed time", set_attr(bottle, "fixed_at", (bottle.fixed_at or bottle.collected_at)
+                                       + timedelta(minutes=3)),
+         f"stops[{next(s.id for s in c.trip.stops if bottle in s.bottles)}].bottles[{bottle.id}].fixed_at"),
+        ("program", set_attr(c.trip, "program", "Tamsin Valley Stream Watch B"), "program"),
+        ("meter", set_attr(c.trip, "meter_id", "DO-METER-10"), "meter_id"),
+        ("crew", set_attr(c.trip, "crew", c.trip.crew + ", A.B."), "crew"),
+        ("calibration reading", set_attr(c.trip.pre_cal, "reading_text", "8,31"), "pre_calibration.reading_mg_l"),
+        ("post-check temperature", set_attr(c.trip.post_check, "temp_text", "21,5"), "post_check.temp"),
+    ]
+    pressure_before = stop.pressure_text
+    for what, run, path in cases:
+        rev = store.load_trip(trip_id).revision
+        run()
+        c.save_now(wait=True)
+        assert c.take_save_errors() == [], what
+        saved = store.load_trip(trip_id)
+        assert saved.revision == rev + 1, what
+        assert saved.audit[-1].fields == [path], (what, saved.audit[-1].fields)
+    saved = store.load_trip(trip_id).model_dump(mode="json")
+    # untouched stops keep their text as typed and their times as stored (offset included)
+    for old, new in zip(original["stops"], saved["stops"], strict=True):
+        if old["id"] == stop.id:
+            assert new["pressure"]["text"] == f"{pressure_before} mbar"
+            assert new["arrived_at"].endswith(old["arrived_at"][-6:])     # its own offset
+            continue
+        assert {k: new[k] for k in ("temp", "do", "arrived_at")} == {k: old[k] for k in ("temp", "do", "arrived_at")}
+    assert saved["started_at"] == original["started_at"] and saved["ended_at"] == original["ended_at"]
+    c.worker.flush()
+
+
+def test_a_save_after_another_writer_keeps_both_changes(tmp_path, monkeypatch, restore_tz):
+    """Another writer (a sync merge, the office) changes one field while the tablet edits
+    another: the tablet's save is refused as stale, only its own edit goes on the stored trip,
+    and the form then shows the other writer's value (no lost update)."""
+    from core.records.models import measure
+
+    store, c = _demo_controller(tmp_path, monkeypatch, zone="UTC")
+    trip_id = next(t.id for t in store.list_trips() if t.status == "ended")
+    c.open_trip(trip_id)
+    c.stop_id = c.trip.stops[0].id
+    c.set_stop_field("temp", "15,5")                       # typed here, not saved yet
+
+    other = store.load_trip(trip_id)                       # the other writer
+    first = other.stops[0]
+    changed = first.model_copy(update={"do": measure("do", "6.66 mg/L"), "notes": "office note"})
+    store.save_trip(other.model_copy(update={"stops": [changed, *other.stops[1:]]}), "office correction")
+
+    c.save_now(wait=True)
+    assert c.take_save_errors() == []
+    saved = store.load_trip(trip_id)
+    stop = next(s for s in saved.stops if s.id == first.id)
+    assert stop.temp.text == "15,5 °C"                                   # ours
+    assert (stop.do.text, stop.notes) == ("6.66 mg/L", "office note")    # theirs, kept
+    assert saved.audit[-1].fields == [f"stops[{first.id}].temp"]
+    assert c.adopt_rebased() is True
+    assert (c.stop.do_text, c.stop.notes, c.stop.temp_text) == ("6.66", "office note", "15,5")
+    c.save_now(wait=True)                                  # and the next save changes nothing
+    assert store.load_trip(trip_id).revision == saved.revision
+    c.worker.flush()

@@ -44,3 +44,19 @@ def test_settings_reach_the_store_and_new_stops(tmp_path):
     assert prefs["temp_unit"] == "F" and prefs["sync_target"] == "/mnt/hub"
     assert notes["stop_temp_unit"] == "F"
     assert notes["after_back"] == "trips"      # back from a stop: the trips list, app still open
+
+
+@pytest.mark.parametrize("size,folder", [("1200x780", "landscape"), ("600x780", "portrait")])
+def test_flags_panel_scrolls_to_every_flag(tmp_path, size, folder):
+    """Three flags (sea-level pressure, below the warm-water criterion, conductivity): none is cut off."""
+    from kivy.metrics import dp
+
+    seed_sites(tmp_path / "data")
+    notes = run_scenario("flags_panel", tmp_path / "data", tmp_path, size=size, artifacts=ARTIFACTS / folder)
+    assert len(notes["flag_words"]) >= 2
+    height, content, kind = notes["panel"]
+    assert kind == "ScrollView"
+    assert notes["each_flag_fits_when_scrolled"] == [True] * len(notes["flag_words"])
+    assert notes["bar_width"] >= dp(10) - 0.5          # a bar a gloved finger can see and drag
+    if content > height + 1:
+        assert f"· {len(notes['flag_words'])} — scroll to see all" in notes["title"]

@@ -142,19 +142,19 @@ def test_standardisation_as_normality_source(data):
 def test_holding_exceeded_marks_invalid(data):
     out = ok_json(lab("winkler", HOT[:8], "TV-0701", "--titrant-ml", "12.9", "--normality", "0.025",
                       "--titrated-ml", TITRATED_200, "--at", "2026-06-23T16:00-07:00", "--json", data_dir=data))
-    # US 40 CFR 136.3 Table II [from memory]: 8 h from fixing (07:27) → 15:27.
+    # US 40 CFR 136.3 Table II [from memory]: 8 h from collection (07:25) → 15:25.
     assert "lab.holding_exceeded" in [f["code"] for f in out["flags"]] and out["valid"] is False
 
 
 def test_pending_lists_and_then_drops_a_bottle(data):
     before = ok_json(lab("pending", "--json", "--now", "2026-06-23T12:00-07:00", data_dir=data))
     labels = [(b["label"], b["kind"]) for b in before["bottles"]]
-    # At noon on 2026-06-23: TV-0701 (do-fixed, 8 h from 07:27) is due first, then the two BOD bottles
+    # At noon on 2026-06-23: TV-0701 (do-fixed, 8 h from collection at 07:25) is due first, then the two BOD bottles
     # (48 h from collection); later trips' bottles were not yet collected.
     assert labels == [("TV-0701", "do-fixed"), ("TV-0701", "bod"), ("TV-0703", "bod")]
     first = before["bottles"][0]
-    assert first["deadline"].startswith("2026-06-23T15:27") and first["clock_from"] == "fixing"
-    assert first["remaining_s"] == pytest.approx(3 * 3600 + 27 * 60)
+    assert first["deadline"].startswith("2026-06-23T15:25") and first["clock_from"] == "collection"
+    assert first["remaining_s"] == pytest.approx(3 * 3600 + 25 * 60)
     ok_json(lab(*winkler_args("--json"), data_dir=data))
     after = ok_json(lab("pending", "--json", "--now", "2026-06-23T14:30-07:00", data_dir=data))
     assert ("TV-0701", "do-fixed") not in [(b["label"], b["kind"]) for b in after["bottles"]]
@@ -193,10 +193,13 @@ def test_duplicates_rpd(data):
                 "--titrated-ml", TITRATED_200, "--at", "2026-07-07T11:10-07:00", "--json", data_dir=data))
     out = ok_json(lab("duplicates", dup, "--json", data_dir=data))
     [d] = out["duplicates"]
-    # RPD = |a − b| / mean × 100 (common practice): 0.6 / 9.1 × 100 = 6.6 %.
-    assert d["rpd_percent"] == pytest.approx(0.6 / 9.1 * 100, rel=1e-6) and d["status"] == "agrees"
+    # RPD = |a − b| / mean × 100 (common practice): 0.6 / 9.1 × 100 = 6.6 %, inside 20 %; but 0.6 mg/L is
+    # more than the 0.2 mg/L a field duplicate DO should agree within (common practice)
+    assert d["rpd_percent"] == pytest.approx(0.6 / 9.1 * 100, rel=1e-6) and d["status"] == "disagrees"
+    assert [f["code"] for f in d["flags"]] == ["lab.duplicate_difference"]
     strict = ok_json(lab("duplicates", dup, "--rpd-limit", "5", "--json", data_dir=data))
     assert strict["duplicates"][0]["status"] == "disagrees"
+    assert "lab.duplicate_rpd" in [f["code"] for f in strict["duplicates"][0]["flags"]]
     r = lab("duplicates", dup, data_dir=data)
     assert r.returncode == 0 and "TV-0901D" in r.stdout and "RPD" in r.stdout
 
@@ -282,7 +285,7 @@ def test_program_settings_feed_the_checks(data):
                                         lab_meter_tolerance_mg_l=1.0))
     out = ok_json(lab(*winkler_args("--json"), data_dir=data))
     codes = [f["code"] for f in out["flags"]]
-    assert "lab.holding_exceeded" in codes                   # 6.5 h after fixing > 4 h
+    assert "lab.holding_exceeded" in codes                   # 6.5 h after collection > 4 h
     assert "lab.meter_disagrees" not in codes                # 0.78 mg/L within the program's 1.0
     assert out["result"]["inputs"]["derived"]["holding"]["limit_h"] == 4.0
     r = lab(*winkler_args("--meter-tolerance", "0.5", "--redo", "check"), data_dir=data)

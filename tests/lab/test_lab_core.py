@@ -6,7 +6,7 @@ from datetime import datetime, timedelta, timezone
 import pytest
 
 from core.flags import Severity
-from core.rules.lab import (BOD_ANALYTE, CAUTION, WINKLER_ANALYTE, LabInputError, LabSettings, Standardisation,
+from core.rules.lab import (BOD_ANALYTE, CAUTION, CBOD_ANALYTE, reported_bod, WINKLER_ANALYTE, LabInputError, LabSettings, Standardisation,
                       current_result, duplicate_checks, find_bottle, pending_bottles, record_bod, record_winkler,
                       relative_percent_difference)
 from core.records.models import Bottle, LabResult, Site, Stop, Trip, measure
@@ -135,13 +135,14 @@ def test_winkler_accepts_duplicate_bottle():
     assert wink(t, label="TV-0801D").bottle.kind == "duplicate"
 
 
-def test_holding_8_h_from_fixing():
-    # US 40 CFR 136.3 Table II [from memory]: DO by Winkler, fixed on site, 8 h.
-    t = trip(stop(bottles=[bottle("TV-0801", at=T0, fixed=timedelta(hours=1))]))
-    inside = wink(t, at=T0 + timedelta(hours=8, minutes=59))    # 7 h 59 min after fixing
+def test_holding_8_h_from_collection():
+    # US 40 CFR 136.3 Table II [from memory]: DO by Winkler, fixed on site, 8 h; the clock runs from
+    # collection (team science reference §10)
+    t = trip(stop(bottles=[bottle("TV-0801", at=T0, fixed=timedelta(minutes=10))]))
+    inside = wink(t, at=T0 + timedelta(hours=7, minutes=59))    # 7 h 59 min after collection
     assert "lab.holding_exceeded" not in codes(inside) and inside.result.valid
-    assert inside.result.inputs["derived"]["holding"]["from"] == "fixing"
-    late = wink(t, at=T0 + timedelta(hours=9, minutes=1))      # 8 h 01 min after fixing
+    assert inside.result.inputs["derived"]["holding"]["from"] == "collection"
+    late = wink(t, at=T0 + timedelta(hours=8, minutes=1))      # 8 h 01 min after collection
     f = [x for x in late.flags if x.code == "lab.holding_exceeded"]
     assert f and f[0].severity == Severity.STOP and "8 h" in f[0].message
     assert late.result.valid is False
@@ -194,7 +195,7 @@ def test_implausible_do_stops():
     # A stream rarely holds above 20 mg/L (common practice): 73 mL typed for 7.3 mL.
     t = trip(stop(bottles=[bottle("TV-0801")]))
     out = wink(t, titrant=73.0)
-    assert "lab.do_implausible" in codes(out) and out.result.valid is False
+    assert "winkler.do_implausible" in codes(out) and out.result.valid is False
 
 
 @pytest.mark.parametrize("kw, field", [
@@ -233,10 +234,10 @@ def test_retitration_keeps_both_and_marks_the_earlier_superseded():
     second = wink(first.trip, titrant=7.5, at=T0 + timedelta(hours=4), redo_reason="end point overshot")
     results = second.bottle.lab_results
     assert [r.value for r in results] == [pytest.approx(7.3), pytest.approx(7.5)]
-    assert results[0].inputs["superseded_by"] == results[1].id
-    assert results[0].inputs["superseded_reason"] == "end point overshot"
+    assert results[0].superseded_by == results[1].id and results[0].status == "superseded"
+    assert results[0].superseded_reason == "end point overshot"
     assert "Superseded" in results[0].notes
-    assert results[1].inputs["supersedes"] == [results[0].id]
+    assert results[1].supersedes == [results[0].id] and results[1].status == "valid"
     assert second.superseded == [results[0].id]
     assert current_result(second.bottle, WINKLER_ANALYTE).id == results[1].id
     third = wink(second.trip, titrant=7.4, at=T0 + timedelta(hours=5), redo_reason="check")
@@ -305,10 +306,53 @@ def test_bod_mean_of_valid_dilutions():
 
 
 def test_bod_no_valid_dilution():
+    # Standard Methods 5210 B [from memory]: no dilution depleted 2.0 mg/L -> report "< 2.0 / P" from the
+    # largest sample fraction (30 of 300 mL: < 20 mg/L); the dilution itself stays not valid
     small = {"initial_do_mg_l": 8.6, "final_do_mg_l": 7.9, "sample_ml": 30.0}  # depletion 0.7 < 2.0
     out = bod(bod_trip(), dilutions=[small])
     assert out.result.value is None and out.result.valid is False
-    assert "bod.no_valid_dilution" in codes(out)
+    assert "bod.reported_below_bound" in codes(out) and "bod.no_valid_dilution" not in codes(out)
+    report = out.result.inputs["derived"]["report"]
+    assert report["qualifier"] == "<" and report["value"] == pytest.approx(20.0) and report["text"] == "< 20.0 mg/L"
+    assert reported_bod(out.result).text == "< 20.0 mg/L"
+    # neither rule applies (one bottle ran out of oxygen, the other used too little): no value
+    mixed = [{"initial_do_mg_l": 8.6, "final_do_mg_l": 0.4, "sample_ml": 150.0},
+             {"initial_do_mg_l": 8.6, "final_do_mg_l": 8.1, "sample_ml": 3.0}]
+    out = bod(bod_trip(), dilutions=mixed)
+    assert "bod.no_valid_dilution" in codes(out) and out.result.inputs["derived"]["report"]["value"] is None
+
+
+def test_bod_dilution_trend_is_not_stored_as_a_value():
+    # Standard Methods 5210 B [from memory]: no averaging with evidence of toxicity (11, 35, 114 mg/L)
+    trend = [{"initial_do_mg_l": 8.6, "final_do_mg_l": 8.6 - 3.3, "sample_ml": 90.0},
+             {"initial_do_mg_l": 8.6, "final_do_mg_l": 8.6 - 3.5, "sample_ml": 30.0},
+             {"initial_do_mg_l": 8.6, "final_do_mg_l": 8.6 - 3.8, "sample_ml": 10.0}]
+    out = bod(bod_trip(), dilutions=trend)
+    assert "bod.dilution_trend" in codes(out) and out.result.value is None and out.result.valid is False
+    assert out.result.inputs["derived"]["report"]["basis"] == "trend"
+    # agreeing dilutions: the mean is the value (the rule not firing)
+    ok = bod(bod_trip(), dilutions=[D30, D15])
+    assert ok.result.value == pytest.approx(44.5) and "bod.dilution_trend" not in codes(ok)
+
+
+def test_cbod5_is_its_own_analyte():
+    # Standard Methods 5210 B: CBOD5 (nitrification inhibitor) is reported as its own parameter
+    out = bod(bod_trip(), dilutions=[D30], nitrification_inhibitor=True)
+    assert out.result.analyte == CBOD_ANALYTE and "carbonaceous" in out.result.method
+    assert out.result.inputs["derived"]["report"]["analyte"] == "CBOD5"
+    # a BOD5 on the same bottle is not a re-analysis of the CBOD5 (no reason asked, nothing superseded)
+    again = bod(out.trip, dilutions=[D30])
+    assert again.result.analyte == BOD_ANALYTE and again.superseded == []
+    # without the inhibitor the result is BOD5 (the rule not firing)
+    assert bod(bod_trip(), dilutions=[D30]).result.analyte == BOD_ANALYTE
+
+
+def test_reported_bod_rebuilds_the_report_of_an_older_result():
+    out = bod(bod_trip(), dilutions=[D30])
+    old = out.result.model_copy(update={"inputs": {**out.result.inputs,
+                                                   "derived": {k: v for k, v in out.result.inputs["derived"].items()
+                                                               if k != "report"}}})
+    assert reported_bod(old).to_dict() == out.result.inputs["derived"]["report"]
 
 
 def test_bod_seeded_from_controls():
@@ -380,7 +424,7 @@ def test_bod_repeat_keeps_both():
         bod(first.trip)
     second = bod(first.trip, redo_reason="second dilution series")
     assert len(second.bottle.lab_results) == 2
-    assert second.bottle.lab_results[0].inputs["superseded_by"] == second.result.id
+    assert second.bottle.lab_results[0].superseded_by == second.result.id
 
 
 # ---------------------------------------------------------------------------------------------
@@ -397,12 +441,24 @@ def test_duplicate_pairs_and_threshold():
     waiting = duplicate_checks(t)
     assert [c.status for c in waiting] == ["waiting"]
     t = wink(t, titrant=8.0).trip
-    t = wink(t, label="TV-0801D", titrant=8.4).trip                  # RPD 4.9 %
+    t = wink(t, label="TV-0801D", titrant=8.15).trip                 # RPD 1.9 %, 0.15 mg/L apart
     [c] = duplicate_checks(t)
-    assert c.status == "agrees" and c.rpd_percent == pytest.approx(0.4 / 8.2 * 100, rel=1e-6)
-    assert c.primary_label == "TV-0801" and c.analyte == "do_winkler"
-    [c] = duplicate_checks(t, LabSettings(duplicate_rpd_percent=2.0))   # threshold is a setting
+    assert c.status == "agrees" and c.rpd_percent == pytest.approx(0.15 / 8.075 * 100, rel=1e-6)
+    assert c.primary_label == "TV-0801" and c.analyte == "do_winkler" and c.flags == []
+    [c] = duplicate_checks(t, LabSettings(duplicate_rpd_percent=1.0))   # threshold is a setting
     assert c.status == "disagrees" and c.flags[0].code == "lab.duplicate_rpd"
+
+
+def test_duplicate_absolute_limit_beside_the_rpd():
+    # field duplicate DO: about ±0.2 mg/L absolute agreement [common practice], beside the 20 % RPD
+    t = trip(stop(bottles=[bottle("TV-0801"), bottle("TV-0801D", kind="duplicate")]))
+    t = wink(t, titrant=8.0).trip
+    t = wink(t, label="TV-0801D", titrant=8.4).trip                  # RPD 4.9 % passes, 0.4 mg/L does not
+    [c] = duplicate_checks(t)
+    assert c.status == "disagrees" and [f.code for f in c.flags] == ["lab.duplicate_difference"]
+    assert "0.40 mg/L" in c.flags[0].message
+    [c] = duplicate_checks(t, LabSettings(duplicate_abs_mg_l=0.5))     # the limit is a setting
+    assert c.status == "agrees"
 
 
 def test_duplicate_uses_the_live_result():
@@ -429,7 +485,7 @@ def test_duplicate_unpaired():
 # ---------------------------------------------------------------------------------------------
 def test_pending_most_urgent_first():
     t1 = trip(stop(bottles=[bottle("TV-0820", kind="bod", at=T0),                       # 48 h from T0
-                            bottle("TV-0821", at=T0 + timedelta(hours=1)),               # 8 h from fixing
+                            bottle("TV-0821", at=T0 + timedelta(hours=1)),               # 8 h from collection
                             bottle("TV-0822", kind="blank", at=T0)]))
     t2 = trip(stop(site="LK-02", bottles=[bottle("TV-0823", at=T0 - timedelta(hours=10)),  # expired
                                           bottle("TV-0824", kind="bod", at=T0 - timedelta(hours=60))]))  # expired
@@ -437,8 +493,8 @@ def test_pending_most_urgent_first():
     items = pending_bottles([t1, t2], now)
     assert [p.label for p in items] == ["TV-0821", "TV-0820", "TV-0823", "TV-0824"]
     first = items[0]
-    assert first.clock_from == "fixing" and first.hours == 8.0          # 40 CFR 136.3 Table II [from memory]
-    assert first.deadline == T0 + timedelta(hours=1, minutes=2) + timedelta(hours=8)
+    assert first.clock_from == "collection" and first.hours == 8.0      # 40 CFR 136.3 Table II [from memory]
+    assert first.deadline == T0 + timedelta(hours=1) + timedelta(hours=8)
     assert first.remaining_s == pytest.approx((first.deadline - now).total_seconds())
     assert items[2].expired and items[2].status == "expired"
     assert "TV-0822" not in [p.label for p in items]                   # blanks have no analysis here
@@ -497,3 +553,15 @@ def test_lab_core_is_pure():
     calls = {n.func.attr if isinstance(n.func, ast.Attribute) else getattr(n.func, "id", "")
              for n in ast.walk(tree) if isinstance(n, ast.Call)}
     assert not calls & {"now", "utcnow", "today", "open", "write_text", "write_bytes"}
+
+
+def test_csv_export_carries_the_bod_report():
+    # Standard Methods 5210 B [from memory]: a "< 20.0 mg/L" result is exported as reported, not as a number
+    from core.records.exchange import bottle_rows
+
+    small = {"initial_do_mg_l": 8.6, "final_do_mg_l": 7.9, "sample_ml": 30.0}
+    out = bod(bod_trip(), dilutions=[small])
+    cells = {r["bottle_id"]: r["lab_results"] for r in bottle_rows(out.trip)}
+    assert cells["TV-0810"] == "bod5=< 20.0 mg/L"
+    ok = bod(bod_trip(), dilutions=[D30, D15])
+    assert {r["bottle_id"]: r["lab_results"] for r in bottle_rows(ok.trip)}["TV-0810"] == "bod5=44.5 mg/L"

@@ -32,12 +32,14 @@ def test_json_export_import_round_trip(store, tmp_path):
     path.write_bytes(data)
     other = DeviceStore.open(tmp_path / "other", device_id="dev-b")
     other.save_sites(store.sites())
-    imported = import_trip_file(other, path)
+    outcome = import_trip_file(other, path)
+    imported = outcome.trip
+    assert outcome.result == "new"
     assert imported.stops == trip.stops and imported.pre_calibration == trip.pre_calibration
     assert json.loads(data)["id"] == trip.id
     # Importing the same file again changes nothing.
     again = import_trip_file(other, path)
-    assert again.revision == imported.revision
+    assert again.result == "unchanged" and again.trip.revision == imported.revision
 
 
 def test_json_import_bad_json_names_file_and_line(store, tmp_path):
@@ -213,6 +215,10 @@ def test_cli_show_lists_open_conflicts(tmp_path):
     doc = make_trip([make_stop()]).to_document()
     doc["conflicts"] = [{"path": "notes", "detected_at": "2026-06-14T18:00:00Z",
                          "sides": [{"device_id": "tablet-a", "value": "riffle"}, {"device_id": "tablet-b", "value": "pool"}]}]
-    trip = store.put_document(doc, "merged")
+    trip = store.put_document(doc, "merged", expected_revision=None)
     r = run_cli("trip", "show", trip.id, data_dir=d)
-    assert r.returncode == 0 and "needs attention" in r.stdout and "tablet-b: 'pool'" in r.stdout
+    assert r.returncode == 0 and "needs attention" in r.stdout
+    # in words: the values and the field's label, never a device id or a record path
+    line = next(x for x in r.stdout.splitlines() if "[needs attention]" in x)
+    assert "“riffle”" in line and "“pool”" in line and "Notes" in line
+    assert "tablet-b" not in r.stdout and "'path'" not in r.stdout

@@ -63,3 +63,16 @@ def test_trip_import_refuses_in_one_line_and_stores_nothing(store, tmp_path, cas
     r = run_cli("trip", "import", str(path), data_dir=store.data_dir)
     assert r.returncode == 2 and "Traceback" not in r.stderr
     assert len(r.stderr.strip().splitlines()) == 1 and f"{case}.json" in r.stderr
+
+
+def test_a_trip_file_over_the_size_limit_is_refused_without_reading_it_whole(store, tmp_path):
+    from core.records.limits import MAX_DOCUMENT_BYTES
+
+    path = tmp_path / "huge.json"
+    with open(path, "wb") as fh:
+        fh.write(b'{"notes": "')
+        fh.write(b"x" * (MAX_DOCUMENT_BYTES + 10))
+        fh.write(b'"}')
+    with pytest.raises(ExchangeError, match=r"^huge\.json: larger than 8 MiB"):
+        import_trip_file(store, path)
+    assert store.list_trips() == []

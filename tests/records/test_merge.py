@@ -34,7 +34,7 @@ def edited(doc, device, stamp, audit_id):
     d = copy.deepcopy(doc)
     d["device_id"], d["updated_at"], d["revision"] = device, stamp, doc["revision"] + 1
     d["audit"] = d["audit"] + [{"id": audit_id, "at": stamp, "device_id": device, "change": "edit",
-                                "revision": d["revision"]}]
+                                "device_name": device.replace("dev-", "Tablet "), "revision": d["revision"]}]
     return d
 
 
@@ -66,7 +66,9 @@ def test_same_field_changed_on_both_sides_keeps_both_values():
     assert sorted(s["value"] for s in c["sides"]) == [12.2, 12.8]
     assert {s["device_id"] for s in c["sides"]} == {"dev-A", "dev-B"}
     assert c["base"] == 12.5 and "LK-01" in c["path"] and c["path"].endswith("temp.value")
-    assert r.needs_attention and "dev-A" in c["message"] and "dev-B" in c["message"]
+    # in words: the devices' names, never their ids
+    assert r.needs_attention and "Tablet A" in c["message"] and "Tablet B" in c["message"]
+    assert "dev-A" not in c["message"] and "stops[" not in c["message"]
     # the later edit (dev-B, 10:05) is the value kept for now
     assert r.doc["stops"][0]["temp"]["value"] == 12.2
 

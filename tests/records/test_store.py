@@ -11,8 +11,8 @@ from tinydb import TinyDB
 from core.store.atomic import content_hash
 from core.records.migrations import migrate
 from core.records.models import SCHEMA_VERSION, ProgramSettings, Site, Trip, measure
-from core.store import (AtomicJSONStorage, CorruptFile, DeviceStore, InvalidRecord, NewerSchemaError,
-                        StaleTrip, TripNotFound)
+from core.store import (AtomicJSONStorage, CorruptFile, DeviceStore, InvalidRecord, NewerSchemaError, StaleTrip,
+                        TripNotFound)
 from tests.records.conftest import FakeClock, make_bottle, make_stop, make_trip
 
 
@@ -89,11 +89,11 @@ def test_invalid_assignment_caught_on_save(store):
 def test_put_document_same_path_and_noop_when_equal(store):
     trip = store.save_trip(make_trip([make_stop()]), "new")
     doc = store.trip_document(trip.id)
-    same = store.put_document(json.loads(json.dumps(doc)), "pulled")
+    same = store.put_document(json.loads(json.dumps(doc)), "pulled", expected_revision=1)
     assert same.revision == 1 and len(same.audit) == 1
     doc["notes"] = "from the hub"
     doc["revision"] = 7
-    changed = store.put_document(doc, "pulled from hub")
+    changed = store.put_document(doc, "pulled from hub", expected_revision=1)
     assert changed.revision == 8 and changed.audit[-1].change == "pulled from hub"
     assert changed.audit[-1].fields == ["notes"]
 
@@ -104,7 +104,7 @@ def test_put_document_rederives_foreign_values(store):
     doc["stops"][0]["derived"]["do_sat_mg_l"] = 1.0  # a foreign device's wrong value
     doc["stops"][0]["derived"]["basis"] = "forged"
     doc["notes"] = "x"
-    got = store.put_document(doc, "import")
+    got = store.put_document(doc, "import", expected_revision=1)
     assert got.stops[0].derived.do_sat_mg_l == pytest.approx(9.092, abs=0.002)  # SCIENCE.md §1
 
 
@@ -112,7 +112,7 @@ def test_put_document_invalid_writes_nothing(store):
     doc = make_trip([make_stop()]).to_document()
     doc["stops"][0]["arrived_at"] = "2026-06-14T09:00:00"  # no zone
     with pytest.raises(InvalidRecord) as info:
-        store.put_document(doc, "import")
+        store.put_document(doc, "import", expected_revision=None)
     assert info.value.problems[0].code == "time.naive"
     assert store.list_trips() == []
     assert not list((store.data_dir / "trips").iterdir())
@@ -122,7 +122,7 @@ def test_unknown_fields_of_newer_build_survive_an_edit(store):
     doc = make_trip([make_stop()]).to_document()
     doc["tide_gauge"] = {"kept": True}
     doc["stops"][0]["turbidity_ntu"] = 4.2
-    trip = store.put_document(doc, "from a newer build")
+    trip = store.put_document(doc, "from a newer build", expected_revision=None)
     edited = store.save_trip(trip.model_copy(update={"notes": "edited here"}), "edit")
     stored = store.trip_document(edited.id)
     assert stored["tide_gauge"] == {"kept": True}
@@ -132,7 +132,7 @@ def test_unknown_fields_of_newer_build_survive_an_edit(store):
 def test_newer_schema_refused_and_left_untouched(store):
     doc = make_trip([make_stop()]).to_document()
     with pytest.raises(NewerSchemaError) as info:
-        store.put_document(dict(doc, schema_version=SCHEMA_VERSION + 1), "import")
+        store.put_document(dict(doc, schema_version=SCHEMA_VERSION + 1), "import", expected_revision=None)
     assert "newer streamtab" in str(info.value)
     # A newer file already on the device: load refuses, save refuses, bytes unchanged.
     newer = dict(doc, schema_version=SCHEMA_VERSION + 1, revision=3)
@@ -205,7 +205,7 @@ def test_corrupt_trip_file_quarantined_rest_keeps_working(store):
     assert [s.id for s in store.list_trips()] == [good.id]
     assert store.load_trip(good.id) == good
     # The same trip id can be saved afresh; the quarantined copy stays.
-    store.put_document(make_trip([make_stop()], id=bad.id).to_document(), "re-import")
+    store.put_document(make_trip([make_stop()], id=bad.id).to_document(), "re-import", expected_revision=None)
     assert moved[0].exists()
 
 
@@ -305,11 +305,13 @@ def test_audit_is_append_only_across_put_document(store):
     trip = store.save_trip(make_trip([make_stop()]), "new")
     old_doc = store.trip_document(trip.id)
     trip = store.save_trip(trip.model_copy(update={"notes": "local edit"}), "local edit")
-    old_doc["meter_id"] = "DO-METER-09"  # a hub copy made before the local edit
-    merged = store.put_document(old_doc, "pulled")
-    assert [a.change for a in merged.audit] == ["new", "local edit", "pulled"]
-    # The same hub copy again: nothing new, nothing written.
-    again = store.put_document(old_doc, "pulled again")
+    old_doc["meter_id"] = "DO-METER-09"  # a copy made before the local edit
+    with pytest.raises(StaleTrip):  # based on revision 1, the store holds 2: refused
+        store.put_document(old_doc, "pulled", expected_revision=1)
+    merged = store.put_document(old_doc, "replaced", expected_revision=2)
+    assert [a.change for a in merged.audit] == ["new", "local edit", "replaced"]
+    # The same copy again: nothing new, nothing written.
+    again = store.put_document(old_doc, "replaced again", expected_revision=merged.revision)
     assert again.revision == merged.revision
 
 
@@ -341,7 +343,7 @@ def test_conflicts_make_the_trip_need_attention(store):
                          "detected_at": "2026-06-14T18:00:00Z",
                          "sides": [{"device_id": "dev-test-a", "value": "riffle"},
                                    {"device_id": "dev-b", "value": "pool"}]}]
-    merged = store.put_document(doc, "merged with the hub")
+    merged = store.put_document(doc, "merged with the hub", expected_revision=doc["revision"])
     assert merged.status == "needs attention"
     s = store.list_trips()[0]
     assert s.status == "needs attention" and s.open_conflicts == 1
@@ -401,14 +403,14 @@ def test_malformed_old_document_refused_clearly(store):
 
     bad = dict(json.loads(json.dumps(V1_DOC)), stops=["not a stop"])
     with pytest.raises(InvalidRecord) as info:
-        store.put_document(bad, "import")
+        store.put_document(bad, "import", expected_revision=None)
     assert "schema version 1" in str(info.value) and "\n" not in str(info.value)
 
 
 def test_save_stop_keeps_unknown_fields_of_the_stored_stop(store):
     doc = make_trip([make_stop()]).to_document()
     doc["stops"][0]["turbidity_ntu"] = 4.2  # written by a newer build
-    trip = store.put_document(doc, "from a newer build")
+    trip = store.put_document(doc, "from a newer build", expected_revision=None)
     fresh_form = make_stop(id=trip.stops[0].id, temp="12.0")  # a form that never saw the field
     saved = store.save_stop(trip.id, fresh_form)
     assert store.trip_document(saved.id)["stops"][0]["turbidity_ntu"] == 4.2

@@ -5,8 +5,8 @@ from datetime import datetime, timedelta, timezone
 
 import pytest
 
-from core.science.bod import (bod_dilution, bod_from_dilutions, blank_check, gga_check, incubation_check,
-                      seed_uptake_per_ml)
+from core.science.bod import (AGREEMENT_SPREAD, bod_dilution, bod_from_dilutions, bod_report, blank_check,
+                              gga_check, incubation_check, seed_uptake_per_ml)
 
 
 def test_unseeded():
@@ -53,7 +53,8 @@ def test_average_of_valid_dilutions():
 def test_no_valid_dilution():
     r = bod_from_dilutions([dict(initial_do_mg_l=8.6, final_do_mg_l=8.0, sample_ml=300.0)])
     assert r.bod_mg_l is None and not r.valid
-    assert r.flags[-1].code == "bod.no_valid_dilution"
+    # 5210 B [from memory]: no dilution depleted 2.0 mg/L -> a reportable "< 2.0 mg/L" (undiluted)
+    assert r.flags[-1].code == "bod.reported_below_bound" and r.report.text == "< 2.0 mg/L"
     # common practice: a clean stream's BOD5 is under about 1 mg/L: undiluted 300 mL shows 0.6 mg/L here
     assert r.dilutions[0].bod_mg_l == pytest.approx(0.6)
 
@@ -103,3 +104,84 @@ def test_incubation_window():
         incubation_check(t0, t0 - timedelta(hours=1))
     with pytest.raises(ValueError, match="time zone"):
         incubation_check(t0, datetime(2026, 6, 6, 9, 0))
+
+
+# --- reporting (Standard Methods 5210 B [from memory]; SCIENCE.md §10) -----------------------------------
+
+def D(d1, d2, ml, bottle=300.0):
+    return dict(initial_do_mg_l=d1, final_do_mg_l=d2, sample_ml=ml, bottle_ml=bottle)
+
+
+def codes(r):
+    return [f.code for f in r.flags]
+
+
+def test_less_than_bound_from_the_largest_sample_volume():
+    # 5210 B: no dilution depletes 2.0 mg/L -> "< 2.0 / P" with P from the largest sample volume
+    r = bod_from_dilutions([D(8.6, 8.3, 60.0), D(8.6, 8.1, 150.0), D(8.6, 8.4, 30.0)])
+    assert r.report.qualifier == "<" and r.report.value == pytest.approx(2.0 / 0.5) and r.report.text == "< 4.0 mg/L"
+    assert "bod.reported_below_bound" in codes(r) and "bod.no_valid_dilution" not in codes(r)
+    # not firing: one dilution reached 2.0 mg/L depletion -> a measured value, no qualifier
+    ok = bod_from_dilutions([D(8.6, 8.3, 60.0), D(8.6, 6.6, 150.0)])
+    assert ok.report.qualifier is None and ok.report.value == pytest.approx(2.0 / 0.5)
+    assert "bod.reported_below_bound" not in codes(ok)
+
+
+def test_greater_than_bound_from_the_smallest_sample_volume():
+    # 5210 B: every dilution leaves < 1.0 mg/L -> "> (D1 − D2)/P" from the smallest sample volume
+    r = bod_from_dilutions([D(8.6, 0.3, 15.0), D(8.6, 0.2, 6.0), D(8.6, 0.4, 30.0)])
+    assert r.report.qualifier == ">" and r.report.value == pytest.approx((8.6 - 0.2) / 0.02)
+    assert r.report.text == "> 420.0 mg/L" and "bod.reported_above_bound" in codes(r)
+    # not firing: one bottle kept 1.0 mg/L and used 2.0 mg/L -> that dilution is the result
+    ok = bod_from_dilutions([D(8.6, 0.3, 15.0), D(8.6, 1.0, 6.0)])
+    assert ok.report.qualifier is None and ok.report.value == pytest.approx(7.6 / 0.02)
+    assert "bod.reported_above_bound" not in codes(ok)
+
+
+def test_dilution_trend_is_not_averaged():
+    # 5210 B: average only without evidence of toxicity; 11, 35, 114 mg/L rising with dilution (the issue's
+    # example) suggests a toxic sample or a seed problem
+    r = bod_from_dilutions([D(8.6, 8.6 - 3.3, 90.0), D(8.6, 8.6 - 3.5, 30.0), D(8.6, 8.6 - 3.8, 10.0)])
+    assert [round(d.bod_mg_l) for d in r.dilutions] == [11, 35, 114] and all(d.valid for d in r.dilutions)
+    assert "bod.dilution_trend" in codes(r) and r.report.value is None and r.report.basis == "trend"
+    assert "rises" in r.report.text and "10 mL" in r.report.text
+    assert r.bod_mg_l is not None  # the plain mean is still there, never hidden, but not the report
+    # not firing: dilutions that agree within the spread are averaged (45 and 44 mg/L)
+    ok = bod_from_dilutions([D(8.6, 4.1, 30.0), D(8.7, 6.5, 15.0)])
+    assert "bod.dilution_trend" not in codes(ok) and ok.report.value == pytest.approx(44.5)
+    assert ok.report.basis == "mean" and ok.report.text == "44.5 mg/L"
+
+
+def test_disagreeing_dilutions_without_a_trend():
+    # common practice (our 30 % spread): three valid dilutions, not monotone, far apart
+    r = bod_from_dilutions([D(8.6, 1.6, 60.0), D(8.6, 6.2, 30.0), D(8.6, 6.6, 15.0)])  # 35, 24, 40 mg/L
+    values = sorted(d.bod_mg_l for d in r.dilutions)
+    assert (values[-1] - values[0]) / (sum(values) / 3) > AGREEMENT_SPREAD
+    assert "bod.dilutions_disagree" in codes(r) and r.report.value is None
+
+
+def test_initial_supersaturated_and_final_above_initial():
+    # B&K 1984 / 4500-O:I: 9.092 mg/L at 20 °C, 1 atm; an initial DO above it is supersaturated
+    hi = bod_dilution(9.6, 7.2, 30.0)
+    assert "bod.initial_supersaturated" in [f.code for f in hi.flags] and "9.60" in hi.flags[0].message
+    assert "bod.initial_supersaturated" not in [f.code for f in bod_dilution(9.0, 6.5, 30.0).flags]
+    # a final DO above the initial cannot come from the sample (common practice)
+    up = bod_dilution(8.2, 8.5, 300.0)
+    assert "bod.final_above_initial" in [f.code for f in up.flags]
+    assert "bod.final_above_initial" not in [f.code for f in bod_dilution(8.2, 8.2, 300.0).flags]
+
+
+def test_negative_blank_depletion_is_flagged_in_words():
+    # a blank cannot gain oxygen (common practice); 5210 B limit 0.20 mg/L on the other side
+    f = blank_check(-0.15)
+    assert f is not None and f.code == "bod.blank_negative" and "gained oxygen" in f.message
+    assert blank_check(0.0) is None and blank_check(0.1) is None
+
+
+def test_cbod5_is_its_own_analyte():
+    # 5210 B: with a nitrification inhibitor the result is CBOD5, reported as its own parameter
+    r = bod_from_dilutions([D(8.6, 4.1, 30.0)], nitrification_inhibitor=True)
+    assert r.analyte == "CBOD5" and r.report.analyte == "CBOD5"
+    assert bod_from_dilutions([D(8.6, 4.1, 30.0)]).analyte == "BOD5"
+    with pytest.raises(ValueError):
+        bod_report([], "BOD5")

@@ -56,7 +56,7 @@ def test_sat_with_do_conductivity_and_method():
 
 
 def test_sat_flags_in_json():
-    d = run_json("sat", "--temp", "68", "--pressure", "29.92 inHg", "--elevation", "1200")
+    d = run_json("sat", "--temp", "45", "--pressure", "29.92 inHg", "--elevation", "1200")
     codes = [f["code"] for f in d["flags"]]
     assert "temp.looks_fahrenheit" in codes and "pressure.sea_level_adjusted" in codes
     for f in d["flags"]:
@@ -81,7 +81,7 @@ def test_winkler_contract():
     # Standard Methods 4500-O C: 1 mL of 0.025 N per 1 mg/L with 200 mL original sample
     d = run_json("winkler", "--titrant-ml", "7.3", "--normality", "0.025", "--titrated-ml", str(200 * 300 / 298),
                  "--reagents-ml", "2")
-    assert set(d) == {"do_mg_l", "original_sample_ml"}
+    assert set(d) == {"do_mg_l", "original_sample_ml", "flags"} and d["flags"] == []
     assert d["do_mg_l"] == pytest.approx(7.3) and d["original_sample_ml"] == pytest.approx(200.0)
     code, out, _ = run("winkler", "--titrant-ml", "7.3", "--normality", "0.025", "--titrated-ml", "201")
     assert code == 0 and "Caution" in out and "SOP" in out
@@ -113,8 +113,21 @@ def test_bod_dilutions_file(tmp_path):
     g.write_text(json.dumps([{"initial_do_mg_l": 8.6, "final_do_mg_l": 8.0, "sample_ml": 300.0}]))
     d = run_json("bod", "--dilutions", str(g))
     assert d["bod_mg_l"] is None and d["valid"] is False
+    # 5210 B [from memory]: undiluted and under 2.0 mg/L depletion -> "< 2.0 mg/L"
+    assert d["report"] == {"value": 2.0, "qualifier": "<", "text": "< 2.0 mg/L", "basis": "below-bound",
+                           "analyte": "BOD5"}
     code, out, _ = run("bod", "--dilutions", str(g))
-    assert code == 0 and "no valid dilution" in out
+    assert code == 0 and "< 2.0 mg/L" in out
+
+
+def test_bod_json_report_single_dilution():
+    # 5210 B [from memory]: the only dilution ran out of oxygen -> "> (D1 − D2)/P" = > 8.4/0.1 = > 84.0
+    d = run_json("bod", "--initial", "8.6", "--final", "0.2", "--sample-ml", "30")
+    assert d["report"]["qualifier"] == ">" and d["report"]["text"] == "> 84.0 mg/L"
+    assert "bod.reported_above_bound" in [f["code"] for f in d["flags"]]
+    ok = run_json("bod", "--initial", "8.6", "--final", "4.1", "--sample-ml", "30", "--nitrification-inhibitor")
+    assert ok["report"] == {"value": pytest.approx(45.0), "qualifier": None, "text": "45.0 mg/L",
+                            "basis": "single", "analyte": "CBOD5"}
 
 
 SAT = ("sat", "--temp", "18.5", "--pressure", "752 mmHg")
@@ -126,32 +139,36 @@ ERROR_CASES = [
     (("sat", "--temp", "18.5", "--pressure", "752"), ["--pressure", "no unit", "mmHg", "inHg", "hPa"]),
     (("sat", "--temp", "18.5", "--pressure", "752 mm"), ["--pressure", "unknown unit"]),
     (("sat", "--temp", "18.5", "--pressure", ""), ["--pressure", "empty"]),
-    (("sat", "--temp", "18.5", "--pressure", "-1 hPa"), ["--pressure", "above zero"]),
-    (("sat", "--temp", "18.5", "--pressure", "1600 hPa"), ["--pressure", "1500"]),
+    (("sat", "--temp", "18.5", "--pressure", "-1 hPa"), ["--pressure", "400–1100 hPa"]),
+    (("sat", "--temp", "18.5", "--pressure", "1600 hPa"), ["--pressure", "400–1100 hPa"]),
+    (("sat", "--temp", "18.5", "--pressure", "1e9 hPa"), ["--pressure", "outside 400–1100 hPa"]),
     (("sat", "--temp", "", "--pressure", "752 mmHg"), ["--temp", "empty"]),
     (("sat", "--temp", "warm", "--pressure", "752 mmHg"), ["--temp", "not a number"]),
-    (("sat", "--temp", "-60", "--pressure", "752 mmHg"), ["--temp", "accepted"]),
+    (("sat", "--temp", "-60", "--pressure", "752 mmHg"), ["--temp", "−2–50 °C"]),
+    (("sat", "--temp", "68", "--pressure", "752 mmHg"), ["--temp", "−2–50 °C", "°F"]),
     (("sat", "--temp", "18.5 X", "--pressure", "752 mmHg"), ["--temp", "unknown unit"]),
     (("sat", "--pressure", "752 mmHg"), ["--temp", "required"]),
     (("sat", "--temp", "18.5"), ["--pressure", "required"]),
     ((*SAT, "--salinity", "abc"), ["--salinity", "not a number"]),
-    ((*SAT, "--salinity", "-1"), ["--salinity", "accepted"]),
+    ((*SAT, "--salinity", "-1"), ["--salinity", "0–42"]),
+    ((*SAT, "--salinity", "0.2 ppt"), ["--salinity", "unknown unit", "psu"]),
     ((*SAT, "--salinity", "0.2", "--conductivity", "410 uS/cm"), ["--conductivity", "--salinity"]),
     ((*SAT, "--conductivity", "410"), ["--conductivity", "no unit", "uS/cm"]),
     ((*SAT, "--conductivity", "410 ppm"), ["--conductivity", "unknown unit"]),
-    ((*SAT, "--conductivity", "-4 uS/cm"), ["--conductivity", "accepted"]),
+    ((*SAT, "--conductivity", "-4 uS/cm"), ["--conductivity", "0–100000 µS/cm"]),
     ((*SAT, "--at-25"), ["--at-25", "--conductivity"]),
-    ((*SAT, "--conductivity", "290 mS/cm"), ["--conductivity", "salinity", "0 to 70"]),
+    ((*SAT, "--conductivity", "290 mS/cm"), ["--conductivity", "0–100000 µS/cm"]),
     ((*SAT, "--do", "lots"), ["--do", "not a number"]),
-    ((*SAT, "--do", "84 ppm"), ["--do", "unexpected unit"]),
-    ((*SAT, "--do", "99"), ["--do", "0 to 70"]),
-    ((*SAT, "--do", "-1"), ["--do", "accepted"]),
-    ((*SAT, "--do", "600 %"), ["--do", "accepted"]),
+    ((*SAT, "--do", "84 ppm"), ["--do", "unknown unit", "mg/L or %"]),
+    ((*SAT, "--do", "99"), ["--do", "0–25 mg/L", "did you mean 99 %?"]),
+    ((*SAT, "--do", "-1"), ["--do", "0–25 mg/L"]),
+    ((*SAT, "--do", "600 %"), ["--do", "0–300 %"]),
     ((*SAT, "--method", "chlorinity"), ["--method", "benson-krause", "garcia-gordon"]),
     ((*SAT, "--elevation", "high"), ["--elevation", "not a number"]),
-    ((*SAT, "--elevation", "20000"), ["--elevation", "accepted"]),
-    (("sat", "--temp", "80", "--pressure", "300 hPa"), ["--pressure", "water-vapour"]),
+    ((*SAT, "--elevation", "20000"), ["--elevation", "−430–6000 m", "feet"]),
+    ((*SAT, "--elevation", "20000 ft"), ["--elevation", "“20000 ft”", "6096 m"]),
     (("salinity", "--conductivity", "42.914", "--temp", "15"), ["--conductivity", "no unit"]),
+    (("salinity", "--conductivity", "42.914 mS/cm", "--temp", "99"), ["--temp", "−2–50 °C"]),
     (("salinity", "--conductivity", "42.914 mS/cm", "--temp", "x"), ["--temp", "not a number"]),
     (("salinity", "--conductivity", "42.914 mS/cm", "--temp", "15", "--pressure-dbar", "-5"),
      ["--pressure-dbar", "accepted"]),
@@ -188,6 +205,11 @@ def test_every_error_is_one_line_exit_2(argv, words):
     assert "Traceback" not in err
     for w in words:
         assert w in lines[0], lines[0]
+    # the option as the person typed it, never core's variable names (issue 11)
+    for name in ("temp_c", "pressure_hpa", "percent_sat", "do_mg_l", "do_percent", "elevation_m", "parse_",
+                 "conductivity_us_cm", "titrant_ml", "titrated_ml", "bottle_ml", "reagents_ml", "sample_ml",
+                 "seed_ml", "seed_uptake", "initial_do", "final_do", "pressure_dbar"):
+        assert name not in lines[0], lines[0]
 
 
 @pytest.mark.parametrize("content, words", [
@@ -223,3 +245,19 @@ def test_real_process_error_and_success():
 def test_help(cmd):
     code, out, _ = run(cmd, "--help")
     assert code == 0 and "--json" in out
+
+
+def test_top_level_help_prints_the_sat_line():
+    # a "%" in an argparse help string is a format directive: it must be written "%%"
+    code, out, _ = run("--help")
+    assert code == 0
+    line = next(x for x in out.splitlines() if x.strip().startswith("sat "))
+    assert "DO saturation target and % saturation of a reading" in line
+
+
+def test_elevation_in_feet_and_salinity_in_psu():
+    # 1 ft = 0.3048 m (NIST SP 811): 3937 ft is 1200 m, where a 29.92 inHg reading is sea-level adjusted
+    feet = run_json("sat", "--temp", "20", "--pressure", "29.92 inHg", "--elevation", "3937 ft", "--salinity", "0.2 psu")
+    metres = run_json("sat", "--temp", "20", "--pressure", "29.92 inHg", "--elevation", "1200", "--salinity", "0.2")
+    assert "pressure.sea_level_adjusted" in [f["code"] for f in feet["flags"]]
+    assert feet["do_sat_mg_l"] == metres["do_sat_mg_l"] and feet["salinity"] == 0.2

@@ -5,7 +5,7 @@ import gsw
 import numpy as np
 import pytest
 
-from core.science.conductivity import (C3515_MS_CM, conductivity_at_temp_us_cm, iso7888_f25, parse_conductivity,
+from core.science.conductivity import (C3515_MS_CM, conductivity_at_temp_us_cm, iso7888_f25,
                                practical_salinity, salinity_from_specific_conductance,
                                specific_conductance_us_cm)
 from tests.science._refdata import ids, rows
@@ -88,22 +88,6 @@ def test_iso7888_between_nodes_is_smooth_and_monotone():
         pytest.approx(250.0)
     with pytest.raises(ValueError, match="^temp_c.*linear"):
         iso7888_f25(36.5)
-
-
-@pytest.mark.parametrize("text, us_cm", [("410 uS/cm", 410.0), ("410 µS/cm", 410.0), ("410 μS/cm", 410.0),
-                                         ("0.41 mS/cm", 410.0), ("41 mS/m", 410.0), ("0,41 mS/cm", 410.0),
-                                         ("410 US/CM", 410.0), ("0.041 S/m", 410.0), ("410 umho/cm", 410.0)])
-def test_parse_conductivity(text, us_cm):
-    # SI: 1 mS/cm = 1000 µS/cm, 1 mS/m = 10 µS/cm, 1 S/m = 10 000 µS/cm; 1 mho = 1 S
-    assert parse_conductivity(text) == pytest.approx(us_cm)
-
-
-@pytest.mark.parametrize("text, word", [("410", "no unit"), ("410 ppm", "unknown unit"), ("", "empty"),
-                                        ("-3 uS/cm", "conductivity_us_cm")])
-def test_parse_conductivity_refuses(text, word):
-    with pytest.raises(ValueError) as e:
-        parse_conductivity(text)
-    assert (word in str(e.value) and "uS/cm" in str(e.value)) or word in str(e.value)
 
 
 def test_bad_values_refused():

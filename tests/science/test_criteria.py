@@ -16,7 +16,8 @@ def test_defaults_are_the_documented_values():
 
 @pytest.mark.parametrize("do, cls, want", [
     (4.9, "warm", ["do.below_criterion"]), (5.0, "warm", []), (6.0, "cold", ["do.below_criterion"]),
-    (6.0, "warm", []), (1.5, "cold", ["do.hypoxic", "do.below_criterion"]), (1.5, None, ["do.hypoxic"]),
+    (6.0, "warm", []), (1.5, "cold", ["do.hypoxic", "do.below_criterion", "do.below_1day_minimum"]),
+    (1.5, None, ["do.hypoxic"]),
     (6.4, None, []),
 ])
 def test_below_criterion_and_hypoxic(do, cls, want):
@@ -43,3 +44,42 @@ def test_refusals():
         do_criteria_flags(-1.0, 50.0, "warm", Criteria())
     with pytest.raises(ValueError, match="^warm_min_mg_l"):
         Criteria(warm_min_mg_l=float("nan"))
+
+
+# --- life stage and averaging period: US EPA 440/5-86-003 (1986) [from memory] -------------------------------
+
+def _codes(flags):
+    return [f.code for f in flags]
+
+
+def test_spot_reading_against_the_1_day_minimum_by_life_stage():
+    from core.science.criteria import EPA_1986_MG_L, Criteria, do_criteria_flags
+
+    # cold water, other life stages: 1-day minimum 4.0 mg/L (EPA 1986, from memory)
+    assert EPA_1986_MG_L[("cold", "other")]["1-day minimum"] == 4.0
+    low = do_criteria_flags(3.8, None, "cold", Criteria())
+    f = [x for x in low if x.code == "do.below_1day_minimum"]
+    assert f and "1-day minimum of 4 mg/L" in f[0].message and "continuous data" in f[0].message
+    assert "cold water, other life stages" in f[0].message
+    assert "do.below_1day_minimum" not in _codes(do_criteria_flags(4.2, None, "cold", Criteria()))
+    # early life stages, cold water: 1-day minimum 8.0 (water column) — 7.5 fires there, not for other stages
+    early = Criteria(life_stage="early")
+    assert "do.below_1day_minimum" in _codes(do_criteria_flags(7.5, None, "cold", early))
+    assert "do.below_1day_minimum" not in _codes(do_criteria_flags(7.5, None, "cold", Criteria()))
+    # warm water: 3.0 (other) and 5.0 (early)
+    assert "do.below_1day_minimum" in _codes(do_criteria_flags(4.5, None, "warm", Criteria(life_stage="early")))
+    assert "do.below_1day_minimum" not in _codes(do_criteria_flags(4.5, None, "warm", Criteria()))
+    # no class: no criterion applies
+    assert "do.below_1day_minimum" not in _codes(do_criteria_flags(1.0, None, None, Criteria()))
+
+
+def test_life_stage_is_a_program_setting():
+    import pytest
+
+    from core.records.models import ProgramSettings
+    from core.science.criteria import Criteria
+
+    assert ProgramSettings(life_stage="early").criteria().life_stage == "early"
+    assert ProgramSettings().criteria().life_stage == "other"
+    with pytest.raises(ValueError, match="life_stage"):
+        Criteria(life_stage="juvenile")

@@ -7,9 +7,7 @@ import sys
 import pytest
 
 from core.science._validate import ambiguous_comma, decimal
-from core.science.conductivity import parse_conductivity
-from core.science.pressure import parse_pressure
-from core.science.temperature import parse_temperature
+from core.science.quantities import read
 from tests.conftest import ROOT, cli_env, run_cli
 
 
@@ -29,15 +27,15 @@ def test_three_digits_after_a_comma_are_refused(text):
 
 def test_parsers_refuse_the_ambiguous_comma_and_take_the_plain_one():
     # 1 atm = 1013.25 hPa (SCIENCE.md §4, US Standard Atmosphere 1976)
-    assert parse_pressure("1013,25 hPa") == pytest.approx(1013.25, abs=1e-9)
+    assert read("pressure", "1013,25 hPa", "p").value == pytest.approx(1013.25, abs=1e-9)
     with pytest.raises(ValueError, match="ambiguous"):
-        parse_pressure("1,013 atm")
-    assert parse_temperature("18,5") == pytest.approx(18.5, abs=1e-12)
+        read("pressure", "1,013 atm", "p")
+    assert read("temp", "18,5", "t").value == pytest.approx(18.5, abs=1e-12)
     with pytest.raises(ValueError, match="ambiguous"):
-        parse_temperature("18,500")
-    assert parse_conductivity("0,41 mS/cm") == pytest.approx(410.0, abs=1e-9)
+        read("temp", "18,500", "t")
+    assert read("conductivity", "0,41 mS/cm", "c").value == pytest.approx(410.0, abs=1e-9)
     with pytest.raises(ValueError, match="ambiguous"):
-        parse_conductivity("1,620 mS/cm")
+        read("conductivity", "1,620 mS/cm", "c")
 
 
 def test_cli_refuses_an_ambiguous_comma_in_one_line():

@@ -31,12 +31,13 @@ def test_clock_states():
     assert late.flag.severity is Severity.STOP
 
 
-def test_winkler_clock_from_fixing():
-    # 40 CFR 136.3 Table II: Winkler samples are fixed on site; 8 h
+def test_winkler_clock_from_collection():
+    # 40 CFR 136.3 Table II: Winkler samples are fixed on site, 8 h [from memory]; the clock runs from
+    # collection (team science reference §10), so a late fixing buys no time
     fixed = T0 + timedelta(minutes=5)
     c = holding_clock("do_winkler", T0, T0 + timedelta(hours=8, minutes=2), fixed_at=fixed)
-    assert c.deadline == fixed + timedelta(hours=8) and not c.expired
-    assert holding_clock("do_winkler", T0, T0 + timedelta(hours=8, minutes=2)).expired  # no fixing time: from collection
+    assert c.deadline == T0 + timedelta(hours=8) and c.expired and c.rule.clock_from == "collection"
+    assert not holding_clock("do_winkler", T0, T0 + timedelta(hours=7, minutes=59), fixed_at=fixed).expired
 
 
 def test_sop_override():

@@ -1,10 +1,10 @@
-"""Pressure units, parsing, the standard atmosphere and the sea-level-adjusted check."""
+"""Pressure units, the standard atmosphere and the sea-level-adjusted check."""
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from core.science.pressure import (PRESSURE_UNITS, SEA_LEVEL_ADJUSTED_THRESHOLD_HPA, from_hpa, parse_pressure,
+from core.science.pressure import (PRESSURE_UNITS, SEA_LEVEL_ADJUSTED_THRESHOLD_HPA, from_hpa,
                            sea_level_adjusted_flag, sea_level_to_station_hpa, standard_pressure_hpa,
                            station_to_sea_level_hpa, to_hpa)
 from core.flags import Severity
@@ -25,41 +25,6 @@ def test_units_tuple_is_the_contract():
     assert PRESSURE_UNITS == ("hPa", "mbar", "kPa", "Pa", "mmHg", "torr", "inHg", "atm", "psi")
     for u in PRESSURE_UNITS:
         assert to_hpa(1.0, u.upper()) == to_hpa(1.0, u)  # case-insensitive
-
-
-@pytest.mark.parametrize("text, hpa", [
-    ("752 mmHg", 752 * 1013.25 / 760),          # 760 mmHg = 1 atm (NIST SP 811)
-    ("29.61inHg", 29.61 * 25.4 * 1013.25 / 760),  # 1 inHg = 25.4 mmHg (NIST SP 811)
-    ("1002.3 hPa", 1002.3),
-    ("1002,3 hPa", 1002.3),                     # decimal comma (common practice in much of the world)
-    ("1002.3 HPA", 1002.3),
-    ("  1002.3hpa ", 1002.3),
-    ("100.23 kPa", 1002.3),
-    ("1002.3 mb", 1002.3),
-    ("0.98 atm", 0.98 * 1013.25),
-    ("14.2 psi", 14.2 * 68.94757293168),       # 1 psi = 6894.757 Pa (NIST SP 811)
-    ("752 Torr", 752 * 1013.25 / 760),
-])
-def test_parse_pressure_accepts(text, hpa):
-    assert parse_pressure(text) == pytest.approx(hpa, rel=2e-7)
-
-
-@pytest.mark.parametrize("text, words", [
-    ("752", ["no unit", "mmHg", "inHg", "hPa", "psi"]),
-    ("", ["empty"]),
-    ("752 mm", ["unknown unit", "mm"]),
-    ("1,002.3 hPa", ["decimal comma", "decimal point"]),
-    ("-3 hPa", ["above zero"]),
-    ("hPa", ["not a number"]),
-    ("seven hundred mmHg", ["not a number"]),
-])
-def test_parse_pressure_refuses(text, words):
-    with pytest.raises(ValueError) as e:
-        parse_pressure(text)
-    msg = str(e.value)
-    assert "\n" not in msg
-    for w in words:
-        assert w in msg
 
 
 @pytest.mark.parametrize("row", rows("standard_atmosphere.csv"), ids=ids("standard_atmosphere.csv", "elevation_m"))

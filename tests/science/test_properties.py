@@ -3,8 +3,6 @@ from __future__ import annotations
 
 import math
 
-import pytest
-
 import gsw
 import numpy as np
 from hypothesis import given, settings
@@ -12,8 +10,7 @@ from hypothesis import strategies as st
 
 from core.science.conductivity import (conductivity_at_temp_us_cm, practical_salinity, specific_conductance_us_cm)
 from core.science.oxygen import METHODS, do_saturation_mg_l
-from core.science._validate import ambiguous_comma
-from core.science.pressure import (PRESSURE_UNITS, from_hpa, parse_pressure, sea_level_to_station_hpa,
+from core.science.pressure import (PRESSURE_UNITS, from_hpa, sea_level_to_station_hpa,
                            station_to_sea_level_hpa, to_hpa)
 from core.science.temperature import c_to_f, f_to_c
 from core.science.winkler import expected_titrant_ml, winkler_do_mg_l
@@ -70,22 +67,6 @@ def test_scalar_and_array_paths_agree(points, m):
 def test_pressure_units_round_trip(hpa, unit):
     # NIST SP 811 factors: converting out and back is the identity
     assert math.isclose(to_hpa(from_hpa(hpa, unit), unit), hpa, rel_tol=1e-12)
-
-
-@SETTINGS
-@given(st.floats(100.0, 1100.0), st.sampled_from(PRESSURE_UNITS))
-def test_pressure_text_round_trip(hpa, unit):
-    # what we print with a unit, we read back (decimal point or comma)
-    value = from_hpa(hpa, unit)
-    text = f"{value:.10g} {unit}"
-    assert math.isclose(parse_pressure(text), hpa, rel_tol=1e-9)
-    comma = text.replace(".", ",")
-    if ambiguous_comma(comma.split()[0]):
-        # "100,375 hPa": decimal or thousands comma? refused, never guessed (common practice)
-        with pytest.raises(ValueError, match="ambiguous"):
-            parse_pressure(comma)
-    else:
-        assert math.isclose(parse_pressure(comma), hpa, rel_tol=1e-9)
 
 
 @SETTINGS

@@ -46,3 +46,29 @@ def test_refusals(kw, name):
     args.update(kw)
     with pytest.raises(ValueError, match=f"^{name}"):
         winkler_do_mg_l(**args)
+
+
+# --- plausibility (Standard Methods 4500-O C [from memory]; limits common practice) -------------------------
+
+def test_winkler_plausibility_fires_and_not():
+    from datetime import datetime, timedelta, timezone
+
+    from core.science.winkler import winkler_plausibility_flags as wp
+
+    t0 = datetime(2026, 6, 14, 9, 0, tzinfo=timezone.utc)
+    assert wp(do_mg_l=8.4, normality=0.025, collected_at=t0, fixed_at=t0 + timedelta(minutes=5)) == []
+    assert [f.code for f in wp(normality=0.25)] == ["winkler.normality_unusual"]        # 0.25 typed for 0.025
+    assert [f.code for f in wp(normality=0.0025)] == ["winkler.normality_unusual"]
+    assert wp(normality=0.0245) == []                                                   # a standardised 0.0245 N
+    big = wp(do_mg_l=73.0)                                                              # 7.3 mL at 0.25 N
+    assert [f.code for f in big] == ["winkler.do_implausible"] and big[0].severity.value == "stop-and-check"
+    late = wp(collected_at=t0, fixed_at=t0 + timedelta(hours=2))
+    assert [f.code for f in late] == ["winkler.late_fixing"] and "120 min" in late[0].message
+    assert "collection" in late[0].message
+
+
+def test_standalone_winkler_shows_the_flags():
+    from tests.science.test_cli import run_json
+
+    d = run_json("winkler", "--titrant-ml", "7.3", "--normality", "0.25", "--titrated-ml", "201")
+    assert [f["code"] for f in d["flags"]] == ["winkler.normality_unusual", "winkler.do_implausible"]

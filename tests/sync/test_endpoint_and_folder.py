@@ -93,7 +93,7 @@ def test_names_at_the_hub_come_from_uuids_only(tmp_path, device_a):
     hub = tmp_path / "hub"
     hub.mkdir()
     doc = device_a.trip_document(new_trip(device_a).id)
-    device_a.put_document(dict(doc, id="Mill-Ford_June", audit=[], revision=0), "typed id")
+    device_a.put_document(dict(doc, id="Mill-Ford_June", audit=[], revision=0), "typed id", expected_revision=None)
     r = sync.push(device_a, str(hub), session=dav_session())
     by = {t.trip_id: t for t in r.per_trip}
     assert by["Mill-Ford_June"].result == "failed" and "UUID" in by["Mill-Ford_June"].message

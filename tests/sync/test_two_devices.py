@@ -45,6 +45,8 @@ def test_changes_on_different_stops_both_arrive(dav, device_a, device_b, tmp_pat
 @pytest.mark.parametrize("first", ["A", "B"])
 def test_same_field_changed_on_both_devices_is_a_readable_conflict(dav, device_a, device_b, tmp_path, first):
     t = new_trip(device_a, stops=2)
+    device_a.set_device_name("Tablet A")
+    device_b.set_device_name("Tablet B")
     sync.push(device_a, dav.url, session=dav_session("tablet-A"))
     sync.pull(device_b, dav.url, session=dav_session("tablet-B"))
     edit_stop_temp(device_a, t.id, 1, "12.8 C")
@@ -54,7 +56,9 @@ def test_same_field_changed_on_both_devices_is_a_readable_conflict(dav, device_a
     second = sync.push(order[1], dav.url, session=dav_session(order[1].device_id))
     assert second.conflicts == 1 and second.failed == 0
     lines = second.per_trip[0].conflicts
-    assert lines and any("tablet-A" in line and "tablet-B" in line for line in lines)
+    # in words: the devices' names as set on them, never their ids
+    assert lines and any("Tablet A" in line and "Tablet B" in line for line in lines)
+    assert not any("tablet-A" in line or "stops[" in line for line in lines)
     assert len(lines) == 1 and "12.8 C" in lines[0] and "13.4 C" in lines[0]
     converge([device_a, device_b], dav.url)
     a, b = device_a.trip_document(t.id), device_b.trip_document(t.id)

@@ -52,7 +52,9 @@ def test_changed_trip_costs_three_requests_and_keeps_older_revision(dav, device_
     s.request_count = 0
     report = sync.push(device_a, dav.url, session=s)
     assert report.pushed == 1
-    assert s.request_count <= 3          # PROPFIND + PUT to incoming/ + MOVE (issue target ≤ 3)
+    # PROPFIND + PUT to incoming/ + MOVE (issue 5's target ≤ 3), + 1 PUT of the push's change log
+    # entry (issue 13: each push logs what it added, so a pull need not list every trip)
+    assert s.request_count <= 4
     files = hub_files(hub_of(dav))[t.id]
     assert len(files) == 2               # immutable revisions: the older one is never overwritten
     assert files[-1].read_bytes() == canonical_json_bytes(device_a.trip_document(t.id))
@@ -97,7 +99,10 @@ def test_pull_brings_every_trip_into_an_office_store(dav, device_a, tmp_path):
         assert mine["stops"] == theirs["stops"]
     assert [s[0] for s in seen] == [1, 2] and all(s[1] == 2 for s in seen)
     again = sync.pull(office, dav.url, session=dav_session())
-    assert (again.pulled, again.merged, again.unchanged) == (0, 0, 2)
+    # read from the hub's change log: nothing new, so no trip is even looked at
+    assert (again.pulled, again.merged, again.failed, again.listed) == (0, 0, 0, "log")
+    whole = sync.pull(office, dav.url, session=dav_session(), full=True)
+    assert (whole.pulled, whole.merged, whole.unchanged, whole.listed) == (0, 0, 2, "walk")
 
 
 # --- the measured traps -------------------------------------------------------------------------

@@ -17,6 +17,7 @@ class CalPanel(BoxLayout):
     target_text = StringProperty("—")
     verdict = StringProperty("")
     detail = StringProperty("")
+    problem = StringProperty("")    # why this calibration cannot be stored as typed (set by the screen)
     temp_unit = StringProperty("C")
     pressure_unit = StringProperty("hPa")
     temp_entry = ObjectProperty(None)
@@ -25,12 +26,17 @@ class CalPanel(BoxLayout):
     form = ObjectProperty(None, allownone=True)
 
     def load(self, form: CalForm):
-        self.form = form
+        """Shows a stored or new calibration form (every value it holds)."""
+        # no form while the fields are filled: each field's on_text would copy the fields not yet
+        # filled (still empty) into the form and wipe the stored values
+        self.form = None
+        self.problem = ""
         self.temp_entry.text = form.temp_text
         self.pressure_entry.text = form.pressure_text
         self.reading_entry.text = form.reading_text
         self.temp_unit = form.temp_unit
         self.pressure_unit = form.pressure_unit
+        self.form = form
         self.update()
 
     def set_units(self, temp=None, pressure=None):
@@ -49,6 +55,7 @@ class CalPanel(BoxLayout):
         f.reading_text = self.reading_entry.text
         f.temp_unit = self.temp_unit
         f.pressure_unit = self.pressure_unit
+        self.problem = ""
         view = ctl().cal_view(f, post=self.post)
         self.target_text = view.target_text
         self.verdict = view.verdict

@@ -4,9 +4,10 @@ from __future__ import annotations
 from kivy.app import App
 from kivy.clock import Clock
 from kivy.factory import Factory
-from kivy.properties import BooleanProperty, ListProperty, ObjectProperty, StringProperty
+from kivy.properties import BooleanProperty, ListProperty, NumericProperty, ObjectProperty, StringProperty
 
 from mobile.app.forms import BOTTLE_KINDS
+from mobile.app.screens import conflicts  # noqa: F401 - the ConflictPanel its kv rule uses
 from mobile.app.screens.base import BaseScreen, ctl
 from mobile.app.views import REAGENT_CAUTION, WADING_CAUTION, fmt_when
 
@@ -37,6 +38,7 @@ class StopScreen(BaseScreen):
     stop_titles = ListProperty([])
     stop_pick_text = StringProperty("")
     flag_count_text = StringProperty("")
+    flag_total = NumericProperty(0)
     wading_caution = StringProperty(WADING_CAUTION)
     reagent_caution = StringProperty(REAGENT_CAUTION)
     temp_entry = ObjectProperty(None)
@@ -46,9 +48,11 @@ class StopScreen(BaseScreen):
     arrived_entry = ObjectProperty(None)
     label_entry = ObjectProperty(None)
     flag_box = ObjectProperty(None)
+    flag_view = ObjectProperty(None)
     bottle_box = ObjectProperty(None)
     form_scroll = ObjectProperty(None)
     notes_entry = ObjectProperty(None)
+    conflict_panel = ObjectProperty(None)
     _loading = False
 
     def on_pre_enter(self, *_):
@@ -89,6 +93,7 @@ class StopScreen(BaseScreen):
             self._loading = False
         self.show(c.stop_view())
         self.show_bottles()
+        self.conflict_panel.refresh()
 
     def field(self, name, value):
         """A field changed (a keystroke, a unit, a site): recompute and show; the save is debounced."""
@@ -175,8 +180,10 @@ class StopScreen(BaseScreen):
         self.salinity_source = source.rstrip(")")
         serious = [f for f in view.flags if f.severity in ("warning", "stop-and-check")]
         self.flag_count_text = f"▲ {len(serious)} to check" if serious else ""
+        self.flag_total = len(view.flags)
         box = self.flag_box
         box.clear_widgets()
+        self.flag_view.scroll_y = 1     # the most serious flag first
         if not view.flags:
             box.add_widget(Factory.FlagRow(symbol="○", word="NO FLAGS", severity="none",
                                            message="nothing to check on these values", action=""))
@@ -220,8 +227,8 @@ class StopScreen(BaseScreen):
         self.show_bottles()
 
     def now_arrived(self):
-        self.arrived_entry.text = fmt_when(ctl().now())
-        self.field("arrived", self.arrived_entry.text)
+        self.field("arrived_now", None)
+        self.arrived_entry.text = fmt_when(ctl().stop.arrived_at)
 
     def close_stop(self):
         msg = ctl().close_stop()

@@ -35,7 +35,7 @@ class SyncScreen(BaseScreen):
         self.running = True
         self.progress = 0
         self.rows_box.clear_widgets()
-        self.status = f"Sending to {target} …"
+        self.status = f"Sending to {ctl().shown_address(target)} …"
 
     @mainthread
     def _progress(self, done, total, trip_id, result):
@@ -47,6 +47,7 @@ class SyncScreen(BaseScreen):
     @mainthread
     def _done(self, report, error):
         self.running = False
+        ctl().refresh_from_store()   # a merge during the send changed the open trip: show it
         if error is not None:
             self.status = f"■ Not sent — will retry: {error}"
             return
