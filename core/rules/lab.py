@@ -853,9 +853,9 @@ def bottle_clock(b: Bottle, now: datetime, *, stop_bottles: Iterable[Bottle] = (
     The one rule the app (Bottles and End screens), ``streamtab lab pending`` and QC share. No
     clock runs for a bottle with no holding time (a blank), for one with a valid result for its
     analysis (whether it was in time is that result's own flag, never "expired" on the bottle), or
-    for one collected after `now`. A Winkler clock runs from fixing when a fixing time at or after
-    collection is recorded, else from collection (the stricter start). An invalid result leaves
-    the clock running: the bottle still waits for a result that counts.
+    for one collected after `now`. The clock runs from the time its rule says (core.science.holding:
+    collection for every rule there; a fixing time is passed only when it is at or after collection).
+    An invalid result leaves the clock running: the bottle still waits for a result that counts.
 
     Raises
     ------

@@ -2,8 +2,8 @@
 (AppController.clock_lines), `lab pending` (core.rules.lab.pending_bottles) and QC (core.rules.qc.stop_flags).
 They must agree bottle by bottle, and a bottle with a valid result is never expired anywhere.
 
-Holding times: Winkler DO 8 h from fixing (from collection when no fixing is recorded), BOD 48 h from
-collection (US 40 CFR 136.3 Table II, from memory); "soon" is less than 25 % left (common practice).
+Holding times: Winkler DO 8 h and BOD 48 h, both from collection (US 40 CFR 136.3 Table II, from
+memory; the Winkler sample is fixed on site); "soon" is less than 25 % left (common practice).
 """
 from __future__ import annotations
 
@@ -33,20 +33,20 @@ def _fixed(hours: float):
 # label, kind, fixed at, results, the bottle it duplicates (an analysed primary at the same stop),
 # and the expected state at NOW (T0 + 10 h): "expired", "soon", "in time" or None (no clock runs).
 CASES = [
-    # Winkler fixed at 0.5 h: deadline 8.5 h, passed
+    # Winkler collected at 0, fixed at 0.5 h: deadline 8 h, passed
     ("W-open", "do-fixed", _fixed(0.5), [], None, "expired"),
     # the same bottle titrated in time: a valid result stops the clock (never "expired")
     ("W-done", "do-fixed", _fixed(0.5), [_result("do_winkler")], None, None),
     # an invalid result does not count: the bottle still waits, and its time has passed
     ("W-void", "do-fixed", _fixed(0.5), [_result("do_winkler", valid=False)], None, "expired"),
-    # fixed at 3 h: deadline 11 h, 1 h left of 8 h (< 25 %)
-    ("W-late", "do-fixed", _fixed(3.0), [], None, "soon"),
+    # collected at 3 h (see COLLECTED_H), fixed at 3.2 h: deadline 11 h, 1 h left of 8 h (< 25 %)
+    ("W-late", "do-fixed", _fixed(3.2), [], None, "soon"),
     # BOD 48 h from collection: 38 h left
     ("B-open", "bod", None, [], None, "in time"),
     ("B-done", "bod", None, [_result("bod5")], None, None),
     # a duplicate nobody fixed and whose original is not named: a BOD sample (never fixed on site)
     ("D-unfixed", "duplicate", None, [], None, "in time"),
-    # a duplicate fixed on site: a Winkler sample, deadline 8.5 h
+    # a duplicate fixed on site: a Winkler sample, deadline 8 h
     ("D-fixed", "duplicate", _fixed(0.5), [], None, "expired"),
     # an unfixed duplicate of a Winkler bottle: Winkler clock from collection (8 h), passed
     ("D-of-W", "duplicate", None, [], "P-W", "expired"),
@@ -57,6 +57,7 @@ CASES = [
     # a blank has no holding time here (the program's SOP keeps it)
     ("K-blank", "blank", None, [], None, None),
 ]
+COLLECTED_H = {"W-late": 3.0}   # hours after T0; every other bottle is collected at T0
 PRIMARIES = {"P-W": ("do-fixed", _fixed(0.2), "do_winkler"), "P-B": ("bod", None, "bod5")}
 
 
@@ -67,7 +68,9 @@ def trip_store(tmp_path):
     stops = []
     for i, (label, kind, fixed, results, dup_of, _) in enumerate(CASES):
         extra = {"duplicate_of": f"{dup_of}-{label}"} if dup_of else {}
-        bottles = [Bottle(label=label, kind=kind, collected_at=T0, fixed_at=fixed, lab_results=results, **extra)]
+        collected = T0 + timedelta(hours=COLLECTED_H.get(label, 0.0))
+        bottles = [Bottle(label=label, kind=kind, collected_at=collected, fixed_at=fixed, lab_results=results,
+                          **extra)]
         if dup_of:
             p_kind, p_fixed, p_analyte = PRIMARIES[dup_of]
             bottles.append(Bottle(label=f"{dup_of}-{label}", kind=p_kind, collected_at=T0, fixed_at=p_fixed,
