@@ -145,9 +145,10 @@ def _show_data(store, trip_id: str) -> dict:  # noqa: ANN001
     now = datetime.now(timezone.utc)
     flags = trip_flags(trip, settings, now, other_bottle_labels=store.bottle_labels_in_use(), sites=sites)
     stops = []
-    for stop in sorted(trip.stops, key=lambda s: s.arrived_at):
+    for number, stop in enumerate(sorted(trip.stops, key=lambda s: s.arrived_at), 1):
         site = sites.get(stop.site_id)
         stops.append({
+            "number": number,
             "id": stop.id, "site_id": stop.site_id, "site_name": site.name if site else None,
             "arrived_at": stop.arrived_at.isoformat(),
             "closed_at": stop.closed_at.isoformat() if stop.closed_at else None,
@@ -215,7 +216,7 @@ def _trip_show(args) -> int:  # noqa: ANN001
         d = s["derived"] or {}
         inp = s["inputs"]
         do = inp["do"]
-        w(f"\n{s['site_id']} {s['site_name'] or ''}  {s['arrived_at']}\n")
+        w(f"\nstop {s['number']}: {s['site_id']} {s['site_name'] or ''}  {s['arrived_at']}\n")
         w(f"  water {_fmt(inp['temp'] and inp['temp']['value'], '.1f', '°C')}"
           f"  pressure {_fmt(inp['pressure'] and inp['pressure']['value'], '.1f', 'hPa')}"
           f"  conductivity {_fmt(inp['conductivity'] and inp['conductivity']['value'], '.0f', 'µS/cm')}"
