@@ -26,10 +26,6 @@ from mobile.app.views import (CalView, ClockLine, FlagLine, Refusal, StopView, T
 
 __all__ = ["AppController"]
 
-# Which holding-time rule (core.science.holding) a bottle kind follows. Duplicates and blanks of the DO
-# sampling are fixed like their parent Winkler bottles (common practice).
-HOLDING_RULE = {"do_fixed": "do_winkler", "duplicate": "do_winkler", "blank": "do_winkler", "bod": "bod"}
-
 # The program limits the settings screen edits: the ProgramSettings field, its words and unit on screen.
 # Their accepted ranges are the record's own (core.records.models.ProgramSettings), read by setting_range.
 SETTING_FIELDS = {"calibration_tolerance_mg_l": ("Calibration tolerance", "mg/L"),
@@ -605,8 +601,12 @@ class AppController:
         self.save_later()
 
     def clock_lines(self, now: datetime | None = None) -> list[ClockLine]:
-        """Every bottle's holding-time clock in the open trip, most urgent first."""
-        from core.science.holding import holding_clock
+        """Every bottle's holding-time clock in the open trip, most urgent first.
+
+        The clocks are core's one holding rule (core.rules.lab.bottle_clock, read by `lab pending`
+        and QC too): a blank runs none and is left out; a bottle with a valid result is listed as
+        ANALYSED, never as expired."""
+        from core.rules.lab import bottle_clock
 
         now = now or self.now()
         out: list[ClockLine] = []
@@ -616,11 +616,15 @@ class AppController:
         for s in self.trip.stops:
             site = self.site(s.site_id) if s.site_id else None
             where = f"stop {self.stop_number(s)}" + (f" · {self.bridge.site_title(site)}" if site else "")
-            for b in s.bottles:
-                rule = HOLDING_RULE.get(b.kind)
-                if rule is None or b.collected_at is None:
+            bottles = self.bridge.bottle_records(s, self._saved_stop_doc(s.id))
+            for b in bottles:
+                kind_word = dict(BOTTLE_KINDS)[self.bridge.RECORD_TO_KIND[b.kind]]
+                clock = bottle_clock(b, now, stop_bottles=bottles, overrides=overrides)
+                if clock is None:
+                    if b.kind != "blank" and b.collected_at <= now:   # a valid result: no clock runs
+                        out.append(ClockLine(s.id, b.label, kind_word, where, float("inf"), False,
+                                             "result recorded", "○", "ANALYSED"))
                     continue
-                clock = holding_clock(rule, b.collected_at, now, fixed_at=b.fixed_at, overrides=overrides)
                 dl = clock.deadline.astimezone()
                 deadline = dl.strftime("%H:%M") if dl.date() == now.astimezone().date() else dl.strftime("%a %H:%M")
                 if clock.expired:
@@ -634,8 +638,7 @@ class AppController:
                 else:
                     symbol, word = "○", "OK"
                     text = f"{fmt_duration(clock.remaining_s)} left · deadline {deadline}"
-                kind_word = dict(BOTTLE_KINDS)[b.kind]
-                if b.kind != "bod" and b.fixed_at is None:
+                if clock.kind == "do_winkler" and b.fixed_at is None:
                     text += " · NOT FIXED YET"
                 out.append(ClockLine(s.id, b.label, kind_word, where, clock.remaining_s, clock.expired,
                                      text, symbol, word))
@@ -698,7 +701,7 @@ class AppController:
                     out.append(f"{f.symbol} {f.word}: {where}: {f.message}"
                                + (f" — {f.action}" if f.action else ""))
         for c in self.clock_lines():
-            if c.word != "OK":
+            if c.word in ("EXPIRED", "SOON"):
                 out.append(f"{c.symbol} {c.word}: bottle {c.label} ({c.where}): {c.text}")
         out.extend(self.conflict_lines())
         pre = self.cal_view(self.trip.pre_cal)

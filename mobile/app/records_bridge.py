@@ -15,9 +15,9 @@ from typing import Any
 
 from mobile.app.forms import BottleForm, CalForm, StopForm, TripForm
 
-__all__ = ["site_title", "make_site", "quantity", "stop_document", "stop_record", "stop_problems",
+__all__ = ["site_title", "make_site", "quantity", "stop_document", "stop_record", "stop_problems", "bottle_records",
            "cal_conditions", "cal_reading", "cal_document", "trip_from_form", "form_from_trip", "rebase_form",
-           "KIND_TO_RECORD", "TEMP_UNIT_TEXT"]
+           "KIND_TO_RECORD", "RECORD_TO_KIND", "TEMP_UNIT_TEXT"]
 
 TEMP_UNIT_TEXT = {"C": "°C", "F": "°F"}
 KIND_TO_RECORD = {"do_fixed": "do-fixed", "bod": "bod", "duplicate": "duplicate", "blank": "blank"}
@@ -152,6 +152,27 @@ def stop_document(form: StopForm, previous: dict[str, Any] | None = None) -> tup
     else:
         doc.pop(DRAFT_KEY, None)
     return doc, errors
+
+
+def bottle_records(form: StopForm, previous: dict[str, Any] | None = None) -> list[Any]:
+    """The stop's bottles as core records (core.records.models.Bottle), with the lab results the saved
+    stop `previous` holds; a bottle not yet valid as a record (no label, no collection time) is left out."""
+    from pydantic import ValidationError
+
+    from core.records.models import Bottle
+    from core.store.atomic import canonical_json_bytes
+
+    saved = {b.get("id"): b for b in (previous or {}).get("bottles") or [] if isinstance(b, dict)}
+    out = []
+    for b in form.bottles:
+        doc = dict(saved.get(b.id) or {})
+        doc.update(id=b.id, label=b.label, kind=KIND_TO_RECORD[b.kind], collected_at=_iso(b.collected_at),
+                   fixed_at=_iso(b.fixed_at), preservation=doc.get("preservation") or PRESERVATION[b.kind])
+        try:
+            out.append(Bottle.model_validate_json(canonical_json_bytes(doc)))
+        except ValidationError:
+            continue
+    return out
 
 
 def stop_record(form: StopForm, previous: dict[str, Any] | None = None):
