@@ -170,11 +170,13 @@ class LabBench:
         if not good:
             return lines, "Reportable BOD5: type a dilution.", good
         res = bod_from_dilutions(good)
-        shown = "no valid dilution" if res.bod_mg_l is None else f"{res.bod_mg_l:.1f} mg/L"
+        # The reportable result by the Standard Methods 5210 B rules, bounds included ("< 2.0 mg/L").
+        shown = res.report.text if res.report is not None else (
+            "no valid dilution" if res.bod_mg_l is None else f"{res.bod_mg_l:.1f} mg/L")
         return lines, f"Reportable BOD5: {shown}", good
 
     def bod(self, trip_id: str, bottle_id: str, rows: list[tuple[str, str, str, str]], analyst: str = "") -> str:
-        from core.rules.lab import LabInputError, batch_for, find_bottle, record_bod
+        from core.rules.lab import LabInputError, batch_for, find_bottle, record_bod, reported_bod
         from core.store import StoreError
 
         _, _, good = self.bod_lines(rows)
@@ -191,7 +193,9 @@ class LabBench:
             self._save(out.trip, f"lab: BOD5 on bottle {out.bottle.label} (bench)")
         except StoreError as exc:
             raise ValueError(f"Not saved: {exc}") from None
-        shown = "no valid dilution" if out.result.value is None else f"{out.result.value:.1f} mg/L"
+        rep = reported_bod(out.result)
+        shown = rep.text if rep is not None else (
+            "no valid dilution" if out.result.value is None else f"{out.result.value:.1f} mg/L")
         return f"{out.bottle.label}: BOD5 {shown} saved."
 
     # ---------------------------------------------------------------- signing hand-offs

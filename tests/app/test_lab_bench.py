@@ -52,6 +52,9 @@ def test_bod_lines_show_validity_as_typed(bench):
                                                ("50", "300", "8.75", "abc")])
     assert lines[0].valid is True and lines[1].text == "" and lines[2].valid is None and "Day-5 DO" in lines[2].text
     assert reportable == "Reportable BOD5: 9.0 mg/L" and len(good) == 1   # (8.8 − 4.3)/0.5, Standard Methods 5210 B
+    # A clean stream: undiluted, 0.7 mg/L depletion < 2.0 — reported as a bound, "< 2.0 mg/L" (5210 B).
+    _, reportable, _ = bench.bod_lines([("300", "300", "8.8", "8.1")])
+    assert reportable == "Reportable BOD5: < 2.0 mg/L"
 
 
 def test_sign_needs_strokes_and_names_the_side(bench):
