@@ -245,14 +245,14 @@ class _Watchdog:
         self._thread = threading.Thread(target=self._run, name="streamtab-sync-deadlines", daemon=True)
         self._thread.start()
 
-    def arm(self, watch: "_Watch", delay_s: float) -> None:
+    def arm(self, watch: _Watch, delay_s: float) -> None:
         with self._cond:
             due = time.monotonic() + delay_s
             self._live[watch] = due
             if self._target is None or due < self._target:
                 self._cond.notify()
 
-    def disarm(self, watch: "_Watch") -> None:
+    def disarm(self, watch: _Watch) -> None:
         with self._cond:
             self._live.pop(watch, None)
 
@@ -277,7 +277,7 @@ _watchdog_lock = threading.Lock()
 
 
 def _the_watchdog() -> _Watchdog:
-    global _watchdog
+    global _watchdog  # noqa: PLW0603 - one watchdog thread per process, started on first use
     with _watchdog_lock:
         if _watchdog is None:
             _watchdog = _Watchdog()

@@ -15,14 +15,14 @@ from __future__ import annotations
 import copy
 import re
 from dataclasses import dataclass, field
-from datetime import datetime
+from datetime import UTC, datetime
 from typing import Any
 
 from core.records.messages import label_for
 from core.records.models import InputError, Trip, measure, parse_number
 
 __all__ = ["ConflictError", "ConflictView", "CORRECTABLE", "list_conflicts", "find_conflict", "settle",
-           "settle_document", "correct", "stop_number"]
+           "settle_document", "correct", "route", "stop_number"]
 
 
 class ConflictError(ValueError):
@@ -138,11 +138,24 @@ def _where(doc: dict[str, Any], conflict: dict[str, Any]) -> tuple[dict[str, Any
     raise ConflictError("the conflict names no field")  # pragma: no cover - the loop returns
 
 
+def _arrival(stop: dict[str, Any]) -> tuple[datetime, str]:
+    try:
+        at = datetime.fromisoformat(str(stop.get("arrived_at")).replace("Z", "+00:00"))
+    except ValueError:
+        at = datetime.min.replace(tzinfo=UTC)
+    if at.tzinfo is None:
+        at = at.replace(tzinfo=UTC)
+    return at, str(stop.get("id"))
+
+
+def route(doc: dict[str, Any]) -> list[dict[str, Any]]:
+    """The trip's stops in route order (by arrival time), numbered 1, 2, … as `trip show` lists them."""
+    return sorted((s for s in doc.get("stops") or [] if isinstance(s, dict)), key=_arrival)
+
+
 def stop_number(doc: dict[str, Any], stop_id: str) -> int | None:
     """The stop's number on the route (1 = first by arrival time), as `trip show` lists them."""
-    stops = sorted((s for s in doc.get("stops") or [] if isinstance(s, dict)),
-                   key=lambda s: (str(s.get("arrived_at", "")), str(s.get("id"))))
-    for n, s in enumerate(stops, 1):
+    for n, s in enumerate(route(doc), 1):
         if s.get("id") == stop_id:
             return n
     return None
@@ -419,7 +432,7 @@ def correct(trip: Trip, stop: int, column: str, value: str, *, by: str = "", at:
     key, kind, unit = CORRECTABLE[col]
     doc = trip.to_document()
     before = copy.deepcopy(doc)
-    stops = sorted(doc.get("stops") or [], key=lambda s: (str(s.get("arrived_at", "")), str(s.get("id"))))
+    stops = route(doc)
     if not 1 <= stop <= len(stops):
         raise ConflictError(f"--stop {stop}: this trip has stops 1 to {len(stops)}" if stops
                             else "this trip has no stops")

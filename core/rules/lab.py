@@ -31,6 +31,7 @@ from collections.abc import Iterable
 
 from core.flags import Flag, Severity
 from core.records.models import Bottle, FlagRecord, LabResult, Stop, Trip, analyte_key, new_id
+from core.science.holding import HoldingClock, bottle_holding_kind, holding_clock
 from core.science.winkler import SAFETY_NOTE
 
 __all__ = [
@@ -39,7 +40,7 @@ __all__ = [
     "LabInputError", "Standardisation", "LabOutcome", "DuplicateCheck", "PendingBottle",
     "analyte_key", "current_result", "find_bottle", "record_winkler", "record_bod", "duplicate_checks",
     "pending_bottles", "relative_percent_difference", "WINKLER_KINDS", "BOD_KINDS", "bottle_analysis",
-    "add_batch", "batch_for", "batch_qc", "standardisation_of",
+    "bottle_clock", "add_batch", "batch_for", "batch_qc", "standardisation_of",
 ]
 
 #: Analyte names written by this module; the sample scenario already writes these. Readers match
@@ -812,21 +813,67 @@ def _dup_analyte(b: Bottle) -> str:
     return analyte_key(WINKLER_ANALYTE) if b.fixed_at is not None else analyte_key(BOD_ANALYTE)
 
 
-def bottle_analysis(b: Bottle) -> tuple[str, str] | None:
+#: The analysis behind each holding time of core.science.holding.HOLDING_TIMES that bottles follow.
+_ANALYTE_OF_HOLDING = {"do_winkler": WINKLER_ANALYTE, "bod": BOD_ANALYTE}
+
+
+def _duplicated_kind(b: Bottle, stop_bottles: Iterable[Bottle]) -> str | None:
+    """The kind of bottle a duplicate duplicates: its ``duplicate_of`` bottle at the stop, else the
+    analysis its results are for; None when neither tells (its fixing then decides)."""
+    named = getattr(b, "duplicate_of", None) or (b.model_extra or {}).get("duplicate_of")
+    if named:
+        for other in stop_bottles:
+            if other.label == named and other.id != b.id and other.kind != "duplicate":
+                return other.kind
+    for r in reversed(b.lab_results):
+        if analyte_key(r.analyte) == analyte_key(WINKLER_ANALYTE):
+            return "do-fixed"
+        if analyte_key(r.analyte) == analyte_key(BOD_ANALYTE):
+            return "bod"
+    return None
+
+
+def bottle_analysis(b: Bottle, stop_bottles: Iterable[Bottle] = ()) -> tuple[str, str] | None:
     """The analysis a bottle waits for, as ``(analyte, holding-time kind)``; None for a blank.
 
-    do-fixed → Winkler DO ("do_winkler"); bod → BOD5 ("bod"); a duplicate follows its results'
-    analyte, else its fixing (fixed: Winkler).
+    The holding kind comes from core.science.holding's one table (:func:`bottle_holding_kind`):
+    do-fixed → Winkler DO ("do_winkler"); bod → BOD5 ("bod"); a duplicate follows the bottle it
+    duplicates (its ``duplicate_of`` among `stop_bottles`, the bottles of its stop, else its
+    results' analysis), else its fixing.
     """
-    if b.kind == "do-fixed":
-        return WINKLER_ANALYTE, "do_winkler"
-    if b.kind == "bod":
-        return BOD_ANALYTE, "bod"
-    if b.kind == "duplicate":
-        if _dup_analyte(b) == analyte_key(WINKLER_ANALYTE):
-            return WINKLER_ANALYTE, "do_winkler"
-        return BOD_ANALYTE, "bod"
-    return None
+    duplicates = _duplicated_kind(b, stop_bottles) if b.kind == "duplicate" else None
+    kind = bottle_holding_kind(b.kind, duplicates=duplicates, fixed=b.fixed_at is not None)
+    return None if kind is None else (_ANALYTE_OF_HOLDING[kind], kind)
+
+
+def bottle_clock(b: Bottle, now: datetime, *, stop_bottles: Iterable[Bottle] = (),
+                 overrides: dict[str, float] | None = None) -> HoldingClock | None:
+    """A bottle's holding clock while it waits for the bench, or None when no clock runs.
+
+    The one rule the app (Bottles and End screens), ``streamtab lab pending`` and QC share. No
+    clock runs for a bottle with no holding time (a blank), for one with a valid result for its
+    analysis (whether it was in time is that result's own flag, never "expired" on the bottle), or
+    for one collected after `now`. The clock runs from the time its rule says (core.science.holding:
+    collection for every rule there; a fixing time is passed only when it is at or after collection).
+    An invalid result leaves the clock running: the bottle still waits for a result that counts.
+
+    Raises
+    ------
+    ValueError
+        A bad holding-time override (see :func:`core.science.holding.holding_clock`).
+    """
+    pair = bottle_analysis(b, stop_bottles)
+    if pair is None or b.collected_at > now:
+        return None
+    analyte, kind = pair
+    result = current_result(b, analyte)
+    if analyte == BOD_ANALYTE and result is None:
+        result = current_result(b, CBOD_ANALYTE)     # the bottle went to CBOD5 instead: analysed
+    if result is not None and result.valid is not False:
+        return None
+    fixed = b.fixed_at if (kind == "do_winkler" and b.fixed_at is not None
+                           and b.fixed_at >= b.collected_at) else None
+    return holding_clock(kind, b.collected_at, now, fixed_at=fixed, overrides=overrides or None)
 
 
 def duplicate_checks(trip: Trip, settings: LabSettings | None = None) -> list[DuplicateCheck]:
@@ -935,34 +982,23 @@ def pending_bottles(trips: Iterable[Trip], now: datetime, settings: LabSettings 
     Blank bottles are left out (no analysis is defined for them here), and so are bottles collected
     after `now` (when the clocks are read at an earlier time).
     """
-    from core.science.holding import holding_clock
-
     settings = settings or LabSettings()
     _aware(now, "now")
     out: list[PendingBottle] = []
     for trip in trips:
         for stop in trip.stops:
             for b in stop.bottles:
-                pair = bottle_analysis(b)
-                if pair is None:
-                    continue
-                analyte, kind = pair
-                if current_result(b, analyte) is not None or b.collected_at > now:
-                    continue
-                if analyte == BOD_ANALYTE and current_result(b, CBOD_ANALYTE) is not None:
-                    continue  # the bottle went to CBOD5 instead: analysed
-                fixed = b.fixed_at if (kind == "do_winkler" and b.fixed_at is not None
-                                       and b.fixed_at >= b.collected_at) else None
                 try:
-                    clock = holding_clock(kind, b.collected_at, now, fixed_at=fixed,
-                                          overrides=settings.holding_overrides_h or None)
+                    clock = bottle_clock(b, now, stop_bottles=stop.bottles, overrides=settings.holding_overrides_h)
                 except ValueError:
                     continue
+                if clock is None:
+                    continue
+                analyte = _ANALYTE_OF_HOLDING[clock.kind]
                 status = "expired" if clock.expired else ("soon" if clock.flag is not None else "in time")
                 out.append(PendingBottle(
                     trip.id, trip.program, stop.id, stop.site_id, b.id, b.label, b.kind, analyte, b.collected_at,
-                    b.fixed_at, "fixing" if (fixed and clock.rule.clock_from == "fixing") else "collection",
-                    clock.deadline, clock.remaining_s,
+                    b.fixed_at, clock.clock_from, clock.deadline, clock.remaining_s,
                     clock.expired, status, clock.rule.hours, clock.rule.citation, clock.flag))
     out.sort(key=lambda p: (p.expired, p.remaining_s if not p.expired else -p.remaining_s, p.label))
     return out

@@ -358,10 +358,6 @@ def _plausible(flags: list[Flag], field: str, what: str, value: float, bounds: t
                            action, field))
 
 
-def _holding_kind(kind: str) -> str | None:
-    return {"do-fixed": "do_winkler", "bod": "bod"}.get(kind)
-
-
 def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Site | None = None,
                previous: Stop | None = None, labels_in_trip: Counter | None = None,
                other_bottle_labels: dict[str, str] | None = None, trip_id: str | None = None,
@@ -466,17 +462,14 @@ def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Si
                                f"DO bottle {b.label} has no fixing time; Winkler samples are fixed on site.",
                                "Fix the sample now (see the SOP for reagent handling) and record the time.",
                                "fixed_at"))
-        kind = _holding_kind(b.kind)
-        if kind is not None and not b.lab_results:
-            from core.science.holding import holding_clock
+        from core.rules.lab import bottle_clock   # the one holding rule (app, lab commands, QC)
 
-            try:
-                clock = holding_clock(kind, b.collected_at, now, fixed_at=b.fixed_at,
-                                      overrides=settings.holding_overrides_h or None)
-            except (ValueError, KeyError):
-                clock = None
-            if clock is not None and clock.flag is not None:
-                flags.append(clock.flag)
+        try:
+            clock = bottle_clock(b, now, stop_bottles=stop.bottles, overrides=settings.holding_overrides_h)
+        except ValueError:
+            clock = None        # a bad SOP override: the settings' own check reports it
+        if clock is not None and clock.flag is not None:
+            flags.append(clock.flag)
     return _dedupe(flags)
 
 

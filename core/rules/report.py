@@ -29,6 +29,7 @@ __all__ = [
     "handoff_rows", "plot_points", "trip_report", "criterion_mg_l", "fmt_number", "typed",
 ]
 
+#: The one wading caution, shown by the app and printed in every report.
 WADING_CAUTION = ("Wading: enter the water only where your program's SOP allows — never alone, "
                   "never in fast or rising water, wearing a PFD where required.")
 #: The line every printed report carries.

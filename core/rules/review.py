@@ -22,6 +22,8 @@ from datetime import datetime, timezone
 from typing import Any
 from collections.abc import Iterable
 
+from core.records.models import BOOKKEEPING, LOG, keys_by_role
+
 __all__ = ["STATES", "ACTIONS", "review_state", "latest_event", "open_reasons", "ReviewRefused", "describe",
            "new_event", "check_change", "approved_version", "REVIEW_KEY", "with_correction"]
 
@@ -41,8 +43,9 @@ _ALLOWED_FROM = {
     "corrected": ("approved",),
 }
 #: Keys that may change on an approved trip without a correction (bookkeeping and the review itself).
-_FREE_KEYS = frozenset({"revision", "updated_at", "device_id", "audit", "content_hash", "conflicts",
-                        REVIEW_KEY})
+#: (The store's bookkeeping and log roles as declared on the models, the conflicts list a
+#: settlement changes, and the review's own events.)
+_FREE_KEYS = keys_by_role(BOOKKEEPING, LOG) | {"conflicts", REVIEW_KEY}
 
 
 class ReviewRefused(ValueError):

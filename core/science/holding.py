@@ -7,7 +7,8 @@ from datetime import datetime, timedelta
 from core.science._validate import real
 from core.flags import Flag, Severity
 
-__all__ = ["HoldingRule", "HoldingClock", "HOLDING_TIMES", "SOON_FRACTION", "holding_clock"]
+__all__ = ["HoldingRule", "HoldingClock", "HOLDING_TIMES", "BOTTLE_HOLDING", "SOON_FRACTION", "bottle_holding_kind",
+           "holding_clock"]
 
 _CFR = "US 40 CFR 136.3, Table II (required containers, preservation techniques and holding times) [from memory; confirm wording]"
 
@@ -61,13 +62,52 @@ HOLDING_TIMES: dict[str, HoldingRule] = {
     "temperature": HoldingRule("temperature", "temperature", 0.25, "none; measure on site", _CFR),
 }
 
+#: The one table from a bottle's kind to the holding time it follows (a key of HOLDING_TIMES; None: no
+#: holding time). The app's Bottles and End screens, the lab commands and QC all read it through
+#: :func:`bottle_holding_kind`. A duplicate has no entry: it follows the bottle it duplicates.
+#: A blank has none here: the program's SOP says how its blanks are kept. [common practice]
+BOTTLE_HOLDING: dict[str, str | None] = {"do-fixed": "do_winkler", "bod": "bod", "blank": None}
+
+
+def bottle_holding_kind(bottle_kind: str, *, duplicates: str | None = None, fixed: bool = False) -> str | None:
+    """The holding time a bottle follows: a key of :data:`HOLDING_TIMES`, or None for none.
+
+    Parameters
+    ----------
+    bottle_kind : {"do-fixed", "bod", "duplicate", "blank"}
+        The bottle's kind as recorded.
+    duplicates : str, optional
+        For a duplicate, the kind of bottle it duplicates when that is known (its ``duplicate_of``
+        bottle, or the analysis of its results).
+    fixed : bool
+        Whether the bottle was fixed on site. A duplicate whose original is not known follows its
+        fixing: fixed → a Winkler DO bottle, not fixed → a BOD bottle (a Winkler sample is fixed on
+        site, a BOD sample never is). [common practice]
+
+    Raises
+    ------
+    ValueError
+        An unknown bottle kind.
+    """
+    if bottle_kind == "duplicate":
+        if duplicates is not None and duplicates != "duplicate":
+            return bottle_holding_kind(duplicates, fixed=fixed)
+        return BOTTLE_HOLDING["do-fixed"] if fixed else BOTTLE_HOLDING["bod"]
+    if bottle_kind not in BOTTLE_HOLDING:
+        raise ValueError(f"bottle kind {bottle_kind!r} is not known; accepted: "
+                         + ", ".join([*BOTTLE_HOLDING, "duplicate"]))
+    return BOTTLE_HOLDING[bottle_kind]
+
+
 #: "Soon" means less than this fraction of the holding time is left. [common practice; our choice]
 SOON_FRACTION = 0.25
 
 
 @dataclass(frozen=True)
 class HoldingClock:
-    """Where a sample stands against its holding time (``remaining_s`` is negative once expired)."""
+    """Where a sample stands against its holding time (``remaining_s`` is negative once expired).
+
+    ``clock_from`` says which time the clock ran from: "fixing" or "collection"."""
 
     kind: str
     deadline: datetime
@@ -75,11 +115,12 @@ class HoldingClock:
     expired: bool
     flag: Flag | None
     rule: HoldingRule
+    clock_from: str = "collection"
 
     def to_dict(self) -> dict:
         return {"kind": self.kind, "deadline": self.deadline.isoformat(), "remaining_s": self.remaining_s,
                 "expired": self.expired, "flag": None if self.flag is None else self.flag.to_dict(),
-                "hours": self.rule.hours, "citation": self.rule.citation}
+                "hours": self.rule.hours, "citation": self.rule.citation, "clock_from": self.clock_from}
 
 
 def _rule(kind: str, overrides: dict[str, float] | None) -> HoldingRule:
@@ -160,7 +201,8 @@ def holding_clock(kind: str, collected_at: datetime, now: datetime, fixed_at: da
     if fixed_at is not None and fixed_at < collected_at:
         raise ValueError(f"fixed_at ({fixed_at.isoformat()}) is before collected_at ({collected_at.isoformat()});"
                          " accepted: fixing at or after collection")
-    start = fixed_at if (rule.clock_from == "fixing" and fixed_at is not None) else collected_at
+    from_fixing = rule.clock_from == "fixing" and fixed_at is not None
+    start = fixed_at if (from_fixing and fixed_at is not None) else collected_at
     limit = timedelta(hours=rule.hours)
     deadline = start + limit
     remaining = (deadline - now).total_seconds()
@@ -179,4 +221,5 @@ def holding_clock(kind: str, collected_at: datetime, now: datetime, fixed_at: da
             f"The {rule.label} sample has {_fmt(remaining)} left of its {_fmt(rule.hours * 3600)} holding time"
             f" (deadline {deadline.isoformat(timespec='minutes')}).",
             f"Analyze it soon; keep it {rule.preservation}.", kind)
-    return HoldingClock(kind=kind, deadline=deadline, remaining_s=remaining, expired=expired, flag=flag, rule=rule)
+    return HoldingClock(kind=kind, deadline=deadline, remaining_s=remaining, expired=expired, flag=flag, rule=rule,
+                        clock_from="fixing" if from_fixing else "collection")

@@ -124,6 +124,10 @@ def _utcnow() -> datetime:
 # --------------------------------------------------------------------------------------------
 # The store
 # --------------------------------------------------------------------------------------------
+#: The change feed (DeviceStore.changes_since) and the size at which it starts a new file.
+CHANGES_FILE = "changes.log"
+CHANGES_ROTATE_BYTES = 4 * 1024 * 1024
+
 class DeviceStore:
     """The trips, sites and settings on one device. Open with :meth:`DeviceStore.open`.
 
@@ -535,6 +539,42 @@ class DeviceStore:
                                   " is unchanged — free space or check the storage, then save again.") from None
         self._index.write(new_doc, "sha256:" + hashlib.sha256(doc_bytes).hexdigest(),
                           self._file_key(new_doc["id"]))
+        self._note_change(new_doc["id"])
+
+    # -- the change feed -------------------------------------------------------------------
+    def _note_change(self, trip_id: str) -> None:
+        """Appends the trip's id to ``changes.log`` after its file is written (lock held).
+
+        A feed for readers that want "what was saved since I last looked" without listing every
+        trip (the office archive). Not fsynced and best effort: a line lost to a crash is found by
+        the reader's own full check, which it runs now and then; so are lines of a rotated file.
+        """
+        path = self.data_dir / CHANGES_FILE
+        try:
+            if path.exists() and path.stat().st_size > CHANGES_ROTATE_BYTES:
+                os.replace(path, self.data_dir / (CHANGES_FILE + ".1"))
+            with open(path, "ab") as fh:
+                fh.write(trip_id.encode("utf-8") + b"\n")
+        except OSError:
+            pass
+
+    def changes_since(self, mark: tuple[int, int] | None) -> tuple[list[str] | None, tuple[int, int]]:
+        """(ids of trips saved since `mark`, the new mark); the ids are None when `mark` is None or
+        no longer fits the feed (rotated, removed): the caller then checks every trip. Take the
+        mark before reading the trips it covers."""
+        path = self.data_dir / CHANGES_FILE
+        try:
+            with open(path, "rb") as fh:
+                st = os.fstat(fh.fileno())
+                if mark is None or mark[0] != st.st_ino or not 0 <= mark[1] <= st.st_size:
+                    return None, (st.st_ino, st.st_size)
+                fh.seek(mark[1])
+                data = fh.read(st.st_size - mark[1])
+        except FileNotFoundError:
+            return None, (0, 0)
+        end = data.rfind(b"\n") + 1               # complete lines only
+        ids = sorted({line.decode("utf-8", "replace") for line in data[:end].splitlines() if line})
+        return ids, (st.st_ino, mark[1] + end)
 
     def merge_document(self, doc: dict[str, Any], change: str, *, base: dict[str, Any] | None = None) -> MergeOutcome:
         """Merges a version of a trip from elsewhere (an imported file, a hub) into the stored one.

@@ -75,6 +75,17 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
             self.first_drawn_s: float | None = None
             self.first_drawn_epoch: float | None = None
             self.save_trigger = Clock.create_trigger(self._save, 0.4)
+            from mobile.app.lab_bench import LabBench
+
+            # lab mode: bench writes wait for the field form's queued saves and reload an open trip
+            self.bench = LabBench(self.store, before_write=self.ctl.worker.flush,
+                                  after_write=self._reload_if_open)
+
+        def _reload_if_open(self, trip_id: str) -> None:
+            if self.ctl.trip is not None and self.ctl.trip.id == trip_id:
+                stop_id = self.ctl.stop_id
+                self.ctl.open_trip(trip_id)
+                self.ctl.stop_id = stop_id
 
         def load_kv(self, filename=None):
             Builder.load_file(str(HERE / "theme.kv"))
@@ -88,7 +99,7 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
             return self.root
 
         BACK: ClassVar[dict[str, str]] = {"stop": "trips", "bottles": "stop", "end": "stop", "start": "trips",
-                "sync": "trips", "settings": "trips"}
+                "sync": "trips", "settings": "trips", "bench": "trips", "sign": "bench"}
 
         def _back_key(self, _window, key, *_args):
             """Android's back button (Escape on a desktop) goes one screen back, never out of the app."""
@@ -118,6 +129,11 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
 
         def _check_saves(self, _dt):
             """A save the store refused or could not make (locked, disk full) is said on screen and retried."""
+            if self.ctl.adopt_rebased():
+                # a save met another writer's change (a sync merge): show the merged values
+                screen = self.root.current_screen
+                if self.root.current == "stop" and self.ctl.stop is not None:
+                    screen.load()
             errors = self.ctl.take_save_errors()
             if errors:
                 screen = self.root.current_screen

@@ -8,6 +8,7 @@ freezes a field; sync runs in the background through `send`.
 from __future__ import annotations
 
 import copy
+import threading
 from datetime import datetime
 from typing import Any
 from collections.abc import Callable
@@ -24,10 +25,6 @@ from mobile.app.views import (CalView, ClockLine, FlagLine, Refusal, StopView, T
                               fmt_duration, fmt_value, fmt_when, local_now, parse_when)
 
 __all__ = ["AppController"]
-
-# Which holding-time rule (core.science.holding) a bottle kind follows. Duplicates and blanks of the DO
-# sampling are fixed like their parent Winkler bottles (common practice).
-HOLDING_RULE = {"do_fixed": "do_winkler", "duplicate": "do_winkler", "blank": "do_winkler", "bod": "bod"}
 
 # The program limits the settings screen edits: the ProgramSettings field, its words and unit on screen.
 # Their accepted ranges are the record's own (core.records.models.ProgramSettings), read by setting_range.
@@ -90,6 +87,10 @@ class AppController:
         self.trip: TripForm | None = None
         self.stop_id: str | None = None
         self._saved: dict[str, Any] = {}      # trip id -> last Trip record the store returned
+        # trip id -> the form as it was when last in step with the store (what edits are told from)
+        self._base_form: dict[str, TripForm] = {}
+        self._rebased: dict[str, tuple[TripForm, TripForm]] = {}   # save worker -> UI thread
+        self._rebase_lock = threading.Lock()
         self._sites: list[Any] | None = None
         self._other_labels: dict[str, str] | None = None
         self.load_prefs()
@@ -376,6 +377,7 @@ class AppController:
         self._saved[trip_id] = model
         self._other_labels = None
         self.trip = self.bridge.form_from_trip(model)
+        self._base_form[trip_id] = copy.deepcopy(self.trip)
         self.stop_id = None
         return self.trip
 
@@ -602,8 +604,12 @@ class AppController:
         self.save_later()
 
     def clock_lines(self, now: datetime | None = None) -> list[ClockLine]:
-        """Every bottle's holding-time clock in the open trip, most urgent first."""
-        from core.science.holding import holding_clock
+        """Every bottle's holding-time clock in the open trip, most urgent first.
+
+        The clocks are core's one holding rule (core.rules.lab.bottle_clock, read by `lab pending`
+        and QC too): a blank runs none and is left out; a bottle with a valid result is listed as
+        ANALYSED, never as expired."""
+        from core.rules.lab import bottle_clock
 
         now = now or self.now()
         out: list[ClockLine] = []
@@ -613,11 +619,15 @@ class AppController:
         for s in self.trip.stops:
             site = self.site(s.site_id) if s.site_id else None
             where = f"stop {self.stop_number(s)}" + (f" · {self.bridge.site_title(site)}" if site else "")
-            for b in s.bottles:
-                rule = HOLDING_RULE.get(b.kind)
-                if rule is None or b.collected_at is None:
+            bottles = self.bridge.bottle_records(s, self._saved_stop_doc(s.id))
+            for b in bottles:
+                kind_word = dict(BOTTLE_KINDS)[self.bridge.RECORD_TO_KIND[b.kind]]
+                clock = bottle_clock(b, now, stop_bottles=bottles, overrides=overrides)
+                if clock is None:
+                    if b.kind != "blank" and b.collected_at <= now:   # a valid result: no clock runs
+                        out.append(ClockLine(s.id, b.label, kind_word, where, float("inf"), False,
+                                             "result recorded", "○", "ANALYSED"))
                     continue
-                clock = holding_clock(rule, b.collected_at, now, fixed_at=b.fixed_at, overrides=overrides)
                 dl = clock.deadline.astimezone()
                 deadline = dl.strftime("%H:%M") if dl.date() == now.astimezone().date() else dl.strftime("%a %H:%M")
                 if clock.expired:
@@ -631,8 +641,7 @@ class AppController:
                 else:
                     symbol, word = "○", "OK"
                     text = f"{fmt_duration(clock.remaining_s)} left · deadline {deadline}"
-                kind_word = dict(BOTTLE_KINDS)[b.kind]
-                if b.kind != "bod" and b.fixed_at is None:
+                if clock.kind == "do_winkler" and b.fixed_at is None:
                     text += " · NOT FIXED YET"
                 out.append(ClockLine(s.id, b.label, kind_word, where, clock.remaining_s, clock.expired,
                                      text, symbol, word))
@@ -695,7 +704,7 @@ class AppController:
                     out.append(f"{f.symbol} {f.word}: {where}: {f.message}"
                                + (f" — {f.action}" if f.action else ""))
         for c in self.clock_lines():
-            if c.word != "OK":
+            if c.word in ("EXPIRED", "SOON"):
                 out.append(f"{c.symbol} {c.word}: bottle {c.label} ({c.where}): {c.text}")
         out.extend(self.conflict_lines())
         pre = self.cal_view(self.trip.pre_cal)
@@ -721,16 +730,72 @@ class AppController:
             out.append(f"{sym} {word}: post-trip calibration check not entered yet.")
         return out
 
-    def conflict_lines(self) -> list[str]:
-        """Fields two devices changed differently (found by sync), one readable line each."""
-        saved = self._saved.get(self.trip.id) if self.trip else None
+    def conflicts(self) -> list[Any]:
+        """The open trip's open conflicts as people read them (core.rules.conflicts.ConflictView):
+        site and stop, the field's label, each value with its unit, the device's name and when."""
+        from core.rules.conflicts import list_conflicts
+
+        if self.trip is None:
+            return []
+        saved = self._saved.get(self.trip.id)
         if saved is None:
             return []
-        from core.records.merge import describe_conflict
+        return list_conflicts(saved, this_device=self.store.device_id)
 
+    def conflict_lines(self) -> list[str]:
+        """The open conflicts, one line each (the End screen's list of what needs attention)."""
         sym, _ = severity_mark("warning")
-        return [f"{sym} CONFLICT: {describe_conflict(c.model_dump(mode='json'))} — check it and correct the value if needed."
-                for c in saved.open_conflicts]
+        return [f"{sym} CONFLICT: {v.message} Tap the value to keep above." for v in self.conflicts()]
+
+    def settler(self) -> str:
+        """Who settles a conflict on this tablet: the device's name, else the trip's crew."""
+        name = (getattr(self.store, "device_name", None) or "").strip()
+        if not name and self.trip is not None and self.trip.crew.strip():
+            name = f"crew {self.trip.crew.strip()}"
+        return (name or "this tablet")[:80]
+
+    def settle_conflict(self, conflict_id: str, keep: int) -> str | None:
+        """Settles one open conflict of the open trip by keeping its `keep`-th value (1, 2, …),
+        recorded with who and when; returns why not in one sentence, or None. The form is then
+        reloaded from the store, so the next save carries the kept value."""
+        from datetime import timezone
+
+        from core.rules.conflicts import ConflictError, settle
+        from core.store import StoreError
+
+        if self.trip is None:
+            return "No trip is open."
+        self.flush()                       # what was typed is in the store before it is read back
+        by = self.settler()
+        at = self.now().astimezone(timezone.utc)
+        said: dict[str, Any] = {}
+
+        def apply(trip: Any) -> Any:
+            views = {v.id: v for v in self.conflicts_of(trip)}
+            said["view"] = views.get(conflict_id)
+            return settle(trip, conflict_id, keep=keep, by=by, at=at)
+
+        def change() -> str:
+            view = said.get("view")
+            return f"conflict settled (kept value {keep}): " + (view.message if view else "a conflict")
+
+        try:
+            saved = self.store.update_trip(self.trip.id, change, apply, by=by)
+        except ConflictError as exc:
+            return f"Not settled: {exc}."
+        except StoreError as exc:
+            return f"Not settled, nothing was saved: {exc}"
+        stop_id = self.stop_id
+        self._saved[saved.id] = saved
+        self.trip = self.bridge.form_from_trip(saved)
+        self._base_form[saved.id] = copy.deepcopy(self.trip)
+        self.stop_id = stop_id if stop_id and self.trip.stop(stop_id) else None
+        return None
+
+    def conflicts_of(self, trip: Any) -> list[Any]:
+        from core.rules.conflicts import list_conflicts
+
+        return list_conflicts(trip, this_device=self.store.device_id)
 
     # ------------------------------------------------------------------ saving
     def _save_failed(self, exc: BaseException) -> None:
@@ -762,11 +827,18 @@ class AppController:
             previous = self._saved.get(snapshot.id)
             try:
                 saved = self.store.save_trip(self.bridge.trip_from_form(snapshot, previous, self), change)
+                self._base_form[snapshot.id] = snapshot
             except StaleTrip:
-                # changed by another writer (a sync pull, the CLI): put this device's form on the
-                # stored copy; stops only the other writer knows are kept (bridge.trip_from_form)
-                previous = self.store.load_trip(snapshot.id)
-                saved = self.store.save_trip(self.bridge.trip_from_form(snapshot, previous, self), change)
+                # changed by another writer (a sync merge, the office's settlement): only what was
+                # edited here since the form was last in step with the store goes on the stored trip
+                stored = self.store.load_trip(snapshot.id)
+                base = self._base_form.get(snapshot.id)
+                merged = (self.bridge.rebase_form(snapshot, base, self.bridge.form_from_trip(stored))
+                          if base is not None else snapshot)
+                saved = self.store.save_trip(self.bridge.trip_from_form(merged, stored, self), change)
+                self._base_form[snapshot.id] = merged
+                with self._rebase_lock:
+                    self._rebased[snapshot.id] = (snapshot, merged)
             self._saved[snapshot.id] = saved
 
         self.worker.submit(snapshot.id, job)
@@ -777,3 +849,31 @@ class AppController:
         if self.dirty:
             self.save_now()
         return self.worker.flush(timeout)
+
+    def adopt_rebased(self) -> bool:
+        """UI thread: after a save was put on a trip another writer changed, the form shows the
+        merged values too (edits made since that save stay). True when the form changed."""
+        with self._rebase_lock:
+            pending = self._rebased.pop(self.trip.id, None) if self.trip is not None else None
+            self._rebased.clear()
+        if pending is None:
+            return False
+        snapshot, merged = pending
+        self.trip = self.bridge.rebase_form(self.trip, snapshot, merged)
+        return True
+
+    def refresh_from_store(self) -> bool:
+        """UI thread, after a sync: when nothing typed is waiting and the stored trip moved on (a
+        merge), the form shows the stored trip. True when the form was reloaded."""
+        if self.trip is None or self.dirty or not self.worker.flush(0):
+            return False
+        saved = self._saved.get(self.trip.id)
+        stored = self.store.load_trip(self.trip.id)
+        if saved is not None and stored.revision == saved.revision:
+            return False
+        stop_id = self.stop_id
+        self._saved[stored.id] = stored
+        self.trip = self.bridge.form_from_trip(stored)
+        self._base_form[stored.id] = copy.deepcopy(self.trip)
+        self.stop_id = stop_id if stop_id and self.trip.stop(stop_id) else None
+        return True

@@ -7,15 +7,17 @@ restart shows what was typed.
 """
 from __future__ import annotations
 
+import copy
+import dataclasses
 import math
 from datetime import datetime
 from typing import Any
 
 from mobile.app.forms import BottleForm, CalForm, StopForm, TripForm
 
-__all__ = ["site_title", "make_site", "quantity", "stop_document", "stop_record", "stop_problems",
-           "cal_conditions", "cal_reading", "cal_document", "trip_from_form", "form_from_trip",
-           "KIND_TO_RECORD", "TEMP_UNIT_TEXT"]
+__all__ = ["site_title", "make_site", "quantity", "stop_document", "stop_record", "stop_problems", "bottle_records",
+           "cal_conditions", "cal_reading", "cal_document", "trip_from_form", "form_from_trip", "rebase_form",
+           "KIND_TO_RECORD", "RECORD_TO_KIND", "TEMP_UNIT_TEXT"]
 
 TEMP_UNIT_TEXT = {"C": "°C", "F": "°F"}
 KIND_TO_RECORD = {"do_fixed": "do-fixed", "bod": "bod", "duplicate": "duplicate", "blank": "blank"}
@@ -150,6 +152,27 @@ def stop_document(form: StopForm, previous: dict[str, Any] | None = None) -> tup
     else:
         doc.pop(DRAFT_KEY, None)
     return doc, errors
+
+
+def bottle_records(form: StopForm, previous: dict[str, Any] | None = None) -> list[Any]:
+    """The stop's bottles as core records (core.records.models.Bottle), with the lab results the saved
+    stop `previous` holds; a bottle not yet valid as a record (no label, no collection time) is left out."""
+    from pydantic import ValidationError
+
+    from core.records.models import Bottle
+    from core.store.atomic import canonical_json_bytes
+
+    saved = {b.get("id"): b for b in (previous or {}).get("bottles") or [] if isinstance(b, dict)}
+    out = []
+    for b in form.bottles:
+        doc = dict(saved.get(b.id) or {})
+        doc.update(id=b.id, label=b.label, kind=KIND_TO_RECORD[b.kind], collected_at=_iso(b.collected_at),
+                   fixed_at=_iso(b.fixed_at), preservation=doc.get("preservation") or PRESERVATION[b.kind])
+        try:
+            out.append(Bottle.model_validate_json(canonical_json_bytes(doc)))
+        except ValidationError:
+            continue
+    return out
 
 
 def stop_record(form: StopForm, previous: dict[str, Any] | None = None):
@@ -317,3 +340,34 @@ def form_from_trip(trip: Any) -> TripForm:
                     started_at=trip.started_at, ended_at=trip.ended_at,
                     started_without_calibration=trip.started_without_calibration,
                     pre_cal=cal(trip.pre_calibration), post_check=cal(trip.post_check), stops=stops)
+
+
+TRIP_FORM_FIELDS = ("program", "crew", "meter_id", "started_at", "ended_at", "started_without_calibration",
+                    "pre_cal", "post_check")
+
+
+def rebase_form(form: TripForm, base: TripForm, theirs: TripForm) -> TripForm:
+    """This device's edits put on a trip another writer changed (a sync merge, the office's
+    correction or settlement): every field where `form` differs from `base` (the form it started
+    from) takes the form's value; every other field takes `theirs`. Stops only this form has are
+    added; stops only `theirs` has are kept."""
+    out = copy.deepcopy(theirs)
+    for name in TRIP_FORM_FIELDS:
+        if getattr(form, name) != getattr(base, name):
+            setattr(out, name, copy.deepcopy(getattr(form, name)))
+    base_stops = {s.id: s for s in base.stops}
+    out_stops = {s.id: i for i, s in enumerate(out.stops)}
+    for stop in form.stops:
+        at = out_stops.get(stop.id)
+        before = base_stops.get(stop.id)
+        if at is None or before is None:
+            if at is None:
+                out.stops.append(copy.deepcopy(stop))
+            else:
+                out.stops[at] = copy.deepcopy(stop)
+            continue
+        target = out.stops[at]
+        for f in dataclasses.fields(stop):
+            if getattr(stop, f.name) != getattr(before, f.name):
+                setattr(target, f.name, copy.deepcopy(getattr(stop, f.name)))
+    return out

@@ -5,6 +5,7 @@ from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from typing import Any
 
+from core.rules.report import WADING_CAUTION
 from core.science.winkler import SAFETY_NOTE
 from mobile.app.theme import severity_mark
 
@@ -12,9 +13,8 @@ __all__ = ["StopView", "FlagLine", "CalView", "Refusal", "ClockLine", "TripLine"
            "fmt_value", "fmt_when", "parse_when", "fmt_duration", "local_now",
            "WADING_CAUTION", "REAGENT_CAUTION"]
 
-WADING_CAUTION = ("Wading: enter the water only where your program's SOP allows — never alone, "
-                  "never in fast or rising water, wearing a PFD where required.")
 REAGENT_CAUTION = SAFETY_NOTE  # the one reagent caution (core.science.winkler)
+# WADING_CAUTION: the one wading caution (core.rules.report), shown on screen and printed in reports
 
 
 def local_now() -> datetime:

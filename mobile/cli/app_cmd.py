@@ -8,9 +8,10 @@ import subprocess
 import sys
 from pathlib import Path
 
+from mobile.app.screens import SCREENS as _SCREEN_CLASSES
 from mobile.cli._common import fail
 
-SCREENS = ("trips", "start", "stop", "bottles", "end", "sync", "settings")
+SCREENS = tuple(_SCREEN_CLASSES)   # the app's one list of screens (its package imports no kivy)
 SNAPSHOT_HINT = "streamtab app --snapshot screen.png [--screen stop]"
 
 

@@ -145,9 +145,10 @@ def _show_data(store, trip_id: str) -> dict:  # noqa: ANN001
     now = datetime.now(timezone.utc)
     flags = trip_flags(trip, settings, now, other_bottle_labels=store.bottle_labels_in_use(), sites=sites)
     stops = []
-    for stop in sorted(trip.stops, key=lambda s: s.arrived_at):
+    for number, stop in enumerate(sorted(trip.stops, key=lambda s: s.arrived_at), 1):
         site = checked_site(stop, sites)
         stops.append({
+            "number": number,
             "id": stop.id, "site_id": stop.site_id, "site_name": site.name if site else None,
             # the site facts the checks used (kept when the stop was saved) and what changed since
             "site_snapshot": stop.site_snapshot.model_dump(mode="json") if stop.site_snapshot else None,
@@ -218,7 +219,7 @@ def _trip_show(args) -> int:  # noqa: ANN001
         d = s["derived"] or {}
         inp = s["inputs"]
         do = inp["do"]
-        w(f"\n{s['site_id']} {s['site_name'] or ''}  {s['arrived_at']}\n")
+        w(f"\nstop {s['number']}: {s['site_id']} {s['site_name'] or ''}  {s['arrived_at']}\n")
         if s["site_changed_since"]:
             w(f"  site list changed since this stop was saved; it is judged as saved: "
               f"{'; '.join(s['site_changed_since'])}\n")

@@ -32,6 +32,9 @@ __all__ = ["ArchiveError", "LoadReport", "connect", "describe", "migrate", "sche
 
 #: Environment variable naming the archive when --db is not given.
 ENV_DB = "STREAMTAB_ARCHIVE_DB"
+#: A load compares every trip with the archive at least this often (s); in between it reads only
+#: the store's change feed (DeviceStore.changes_since), which a crash may have cut short.
+FULL_CHECK_AFTER_S = 24 * 3600
 #: Trips written per transaction on a bulk load.
 BATCH = 500
 _LOCK_KEY = 0x5354_4152   # advisory lock: one load at a time per database
@@ -52,6 +55,7 @@ class LoadReport:
     schema_from: int = 0
     schema_to: int = LATEST
     database: str = ""
+    checked: str = "all"   # "all": every trip against the archive; "feed": the store's saves since the last load
     loaded_ids: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
@@ -231,8 +235,8 @@ def _apply_stats(cur, old: dict, new: dict) -> None:  # noqa: ANN001
     redo, rows, gone = [], [], []
     for pair in pairs:
         c, o, n = current.get(pair, _NONE), old.get(pair, _NONE), new.get(pair, _NONE)
-        if o[2] is not None and (c[2] is None or o[2] <= c[2]):
-            redo.append(pair)            # a rewritten trip held the minimum: count it again
+        if o[2] is not None and (c[2] is None or o[2] <= c[2]) and (n[2] is None or n[2] > o[2]):
+            redo.append(pair)            # a rewritten trip held the minimum and gave it up: count again
             continue
         visits = c[0] - o[0] + n[0]
         if visits <= 0:
@@ -263,11 +267,25 @@ def load(store: Any, db: str | None, *, progress: Progress | None = None, batch:
             conn.execute("SELECT pg_advisory_lock(%s)", (_LOCK_KEY,))
             conn.commit()
             _load_reference(conn, store, report)
-            archived = dict(conn.execute("SELECT trip_id, content_hash FROM trips").fetchall())
+            source = str(Path(store.data_dir).resolve())
+            row = conn.execute("SELECT log_inode, log_offset, full_at > now() - make_interval(secs => %s) "
+                               "FROM load_sources WHERE source = %s", (FULL_CHECK_AFTER_S, source)).fetchone()
+            feed = getattr(store, "changes_since", None)
+            changed, mark = (feed((row[0], row[1]) if row and row[2] else None) if feed is not None
+                             else (None, None))
+            if changed is None:        # every trip against the archive (first load, or a day since)
+                report.checked = "all"
+                archived = dict(conn.execute("SELECT trip_id, content_hash FROM trips").fetchall())
+                summaries = store.list_trips()
+                todo = [s.id for s in sorted(summaries, key=lambda s: s.id)
+                        if archived.get(s.id) != s.content_hash]
+                report.unchanged = len(summaries) - len(todo)
+            else:                      # only the trips the store saved since the last load
+                report.checked = "feed"
+                archived = dict(conn.execute("SELECT trip_id, content_hash FROM trips WHERE trip_id = ANY(%s)",
+                                             (changed,)).fetchall())
+                todo = [t for t in changed if store.has_trip(t)]
             conn.commit()
-            summaries = store.list_trips()
-            todo = [s.id for s in sorted(summaries, key=lambda s: s.id) if archived.get(s.id) != s.content_hash]
-            report.unchanged = len(summaries) - len(todo)
             total = len(todo)
             for start in range(0, total, max(1, batch)):
                 ids = todo[start:start + batch]
@@ -295,6 +313,13 @@ def load(store: Any, db: str | None, *, progress: Progress | None = None, batch:
                 report.loaded_ids.extend(written)
                 if progress is not None:
                     progress(min(start + len(ids), total), total, written[-1], "loaded")
+            if mark is not None:
+                with conn.transaction():
+                    conn.execute("INSERT INTO load_sources (source, log_inode, log_offset, full_at) "
+                                 "VALUES (%s, %s, %s, now()) ON CONFLICT (source) DO UPDATE SET "
+                                 "log_inode = EXCLUDED.log_inode, log_offset = EXCLUDED.log_offset"
+                                 + (", full_at = now()" if report.checked == "all" else ""),
+                                 (source, mark[0], mark[1]))
         except psycopg.Error as exc:
             first = (str(exc).strip().splitlines() or ["database error"])[0]
             raise ArchiveError(f"the archive {report.database} refused the load ({first}); nothing of the "

@@ -18,6 +18,7 @@ Tables (one row per thing in the trip documents; every trip's rows hang off ``tr
 ``custody``         chain-of-custody entries of a bottle, when the trip records them
 ``flags``           QC flags of stops, calibrations and results (code, severity, message, action)
 ``review_events``   the office's review steps (who, when, action, comment, reasons)
+``load_sources``    per store folder: how far its change feed was read, when every trip was compared
 ``site_season_stats`` per site and season: visits, visits with DO, minimum DO, visits below the
                     criterion; kept up to date by every load (not aggregated on each question)
 ==================  ==============================================================================
@@ -298,11 +299,23 @@ FROM site_season_stats st
 LEFT JOIN sites si ON si.site_id = st.site_id;
 """
 
+# Per store loaded from: the mark in its change feed (DeviceStore.changes_since) the last load read
+# up to, and when a load last compared every trip.
+_V5 = """
+CREATE TABLE load_sources (
+    source      text PRIMARY KEY,
+    log_inode   bigint NOT NULL,
+    log_offset  bigint NOT NULL,
+    full_at     timestamptz NOT NULL
+);
+"""
+
 #: (version, description, SQL), applied in order, each in its own transaction.
 MIGRATIONS: list[tuple[int, str, str]] = [
     (1, "trips, stops, bottles, results, calibrations, flags, sites, settings", _V1),
     (2, "review events, custody, trips.review_state", _V2),
     (3, "views: stops_with_site, results_as_reported, site_season_summary", _V3),
     (4, "site_season_stats kept by each load; site_season_summary reads it", _V4),
+    (5, "load_sources: where each store's change feed was read up to", _V5),
 ]
 LATEST = MIGRATIONS[-1][0]

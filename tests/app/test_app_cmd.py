@@ -30,13 +30,14 @@ def test_no_display_says_so_in_one_line_and_never_hangs(tmp_path):
 
 
 @pytest.mark.skipif(shutil.which("xvfb-run") is None, reason="needs xvfb-run")
-@pytest.mark.parametrize("screen", ["trips", "start", "stop", "bottles", "end", "sync", "settings"])
+@pytest.mark.parametrize("screen", ["trips", "start", "stop", "bottles", "end", "sync", "settings", "bench", "sign"])
 def test_snapshot_of_demo_screens(tmp_path, screen):
     from PIL import Image
 
     from core.store import DeviceStore
 
     png = ARTIFACTS / "cli-demo" / f"{screen}.png"
+    png.parent.mkdir(parents=True, exist_ok=True)     # --snapshot writes only into an existing folder
     out = run_cli("app", "--data-dir", str(tmp_path / "d"), "--seed-demo", str(ROOT / "sample_trips"),
                   "--snapshot", str(png), "--screen", screen, "--size", "1000x700",
                   env=_no_display_env(tmp_path), timeout=120)

@@ -158,14 +158,14 @@ def test_open_conflicts_reach_the_attention_list(ctl):
         ctl.set_stop_field(k, v)
     ctl.save_now(wait=True)
     doc = ctl.store.trip_document(ctl.trip.id)
-    doc["conflicts"] = [{"id": "c1", "path": "stops[0].notes", "detected_at": datetime.now(timezone.utc).isoformat(),
+    doc["conflicts"] = [{"id": "c1", "path": f"stops[{doc['stops'][0]['id']}].notes", "detected_at": datetime.now(timezone.utc).isoformat(),
                          "sides": [{"device_id": "dev-a", "value": "riffle"}, {"device_id": "dev-b", "value": "pool"}]}]
     ctl.store.put_document(doc, "merged by sync", expected_revision=doc["revision"])
     ctl.open_trip(ctl.trip.id)
     lines = [line for line in ctl.attention_lines() if "CONFLICT" in line]
-    # in words: both values, never a device id or a record path
-    assert len(lines) == 1 and "“riffle”" in lines[0] and "“pool”" in lines[0]
-    assert "dev-a" not in lines[0] and "stops[" not in lines[0]
+    # in words: the site, the field's label and both values; no record path, no device id
+    assert len(lines) == 1 and "riffle" in lines[0] and "pool" in lines[0] and "LK-01" in lines[0]
+    assert "stops[" not in lines[0] and "dev-a" not in lines[0]
 
 
 def test_arrival_time_typed_as_hh_mm_or_full(ctl):
@@ -370,4 +370,35 @@ def test_a_one_field_edit_changes_one_path(tmp_path, monkeypatch, restore_tz):
             continue
         assert {k: new[k] for k in ("temp", "do", "arrived_at")} == {k: old[k] for k in ("temp", "do", "arrived_at")}
     assert saved["started_at"] == original["started_at"] and saved["ended_at"] == original["ended_at"]
+    c.worker.flush()
+
+
+def test_a_save_after_another_writer_keeps_both_changes(tmp_path, monkeypatch, restore_tz):
+    """Another writer (a sync merge, the office) changes one field while the tablet edits
+    another: the tablet's save is refused as stale, only its own edit goes on the stored trip,
+    and the form then shows the other writer's value (no lost update)."""
+    from core.records.models import measure
+
+    store, c = _demo_controller(tmp_path, monkeypatch, zone="UTC")
+    trip_id = next(t.id for t in store.list_trips() if t.status == "ended")
+    c.open_trip(trip_id)
+    c.stop_id = c.trip.stops[0].id
+    c.set_stop_field("temp", "15,5")                       # typed here, not saved yet
+
+    other = store.load_trip(trip_id)                       # the other writer
+    first = other.stops[0]
+    changed = first.model_copy(update={"do": measure("do", "6.66 mg/L"), "notes": "office note"})
+    store.save_trip(other.model_copy(update={"stops": [changed, *other.stops[1:]]}), "office correction")
+
+    c.save_now(wait=True)
+    assert c.take_save_errors() == []
+    saved = store.load_trip(trip_id)
+    stop = next(s for s in saved.stops if s.id == first.id)
+    assert stop.temp.text == "15,5 °C"                                   # ours
+    assert (stop.do.text, stop.notes) == ("6.66 mg/L", "office note")    # theirs, kept
+    assert saved.audit[-1].fields == [f"stops[{first.id}].temp"]
+    assert c.adopt_rebased() is True
+    assert (c.stop.do_text, c.stop.notes, c.stop.temp_text) == ("6.66", "office note", "15,5")
+    c.save_now(wait=True)                                  # and the next save changes nothing
+    assert store.load_trip(trip_id).revision == saved.revision
     c.worker.flush()

@@ -8,6 +8,7 @@ import signal
 import subprocess
 import sys
 import time
+from datetime import datetime
 
 import pytest
 
@@ -150,3 +151,53 @@ def test_a_reopened_ended_trip_shows_its_post_trip_check(tmp_path):
     assert verdict in ("PASS", "FAIL")
     after = DeviceStore.open(tmp_path / "data").load_trip(trip.id)
     assert after.revision == trip.revision            # looking at it changed nothing
+
+
+def test_a_conflict_is_settled_by_tapping_the_value_to_keep(tmp_path):
+    """Two devices set one stop's water temperature differently; the app lists both values as
+    large buttons on the stop and end screens, and a tap keeps one, recorded with who and when."""
+    from datetime import timedelta
+
+    from core.records.models import Trip, measure
+    from kivy.metrics import dp
+
+    seed_sites(tmp_path / "data")
+    seed_sites(tmp_path / "other")
+    a = DeviceStore.open(tmp_path / "data")
+    b = DeviceStore.open(tmp_path / "other")
+    a.set_device_name("Tablet A")
+    b.set_device_name("Tablet B")
+    now = datetime.now().astimezone()
+    trip = a.save_trip(Trip.from_document({
+        "id": "t-conflict-1", "program": "Tamsin Valley Stream Watch", "crew": ["R.O."], "meter_id": "DO-7",
+        "started_at": (now - timedelta(hours=2)).isoformat(),
+        "stops": [{"id": "s-1", "site_id": "LK-01", "arrived_at": (now - timedelta(hours=1)).isoformat(),
+                   "temp": measure("temp", "12.0 °C").model_dump(mode="json"),
+                   "pressure": measure("pressure", "968 hPa").model_dump(mode="json"),
+                   "do": measure("do", "9.8 mg/L").model_dump(mode="json")}]}), "new")
+    b.merge_document(a.trip_document(trip.id), "pulled")
+    base = a.trip_document(trip.id)
+
+    def set_temp(store, text):
+        def fn(t):
+            stop = t.stops[0].model_copy(update={"temp": measure("temp", text)})
+            return t.model_copy(update={"stops": [stop]})
+        store.update_trip(trip.id, f"temp {text}", fn)
+
+    set_temp(a, "12.8 °C")
+    set_temp(b, "13.4 °C")
+    merged = a.merge_document(b.trip_document(trip.id), "pulled", base=base)
+    assert len(merged.trip.open_conflicts) == 1
+    notes = run_scenario("settle_conflict", tmp_path / "data", tmp_path, artifacts=ARTIFACTS / "conflicts")
+    count, texts, heights = notes["stop_panel"]
+    assert count == 1 and len(texts) == 2 and notes["end_count"] == 1
+    assert any("12.8 °C" in t and "Tablet A" in t for t in texts) and any("13.4 °C" in t and "Tablet B" in t for t in texts)
+    assert min(heights) >= dp(48)                       # large enough for a gloved finger
+    kept = "13.4" if "13.4" in texts[1] else "12.8"
+    count, message, temp_text = notes["after"]
+    assert count == 0 and message.startswith("✓") and temp_text == kept, notes["after"]
+    saved = DeviceStore.open(tmp_path / "data").load_trip(trip.id)
+    assert saved.open_conflicts == [] and saved.status != "needs attention"
+    (settled,) = saved.conflicts
+    assert settled.resolved_by == "Tablet A" and settled.resolved_at is not None
+    assert saved.stops[0].temp.value == float(kept)

@@ -116,7 +116,8 @@ def test_second_load_writes_nothing_and_one_change_rewrites_one_trip(tmp_path, d
     archive.load(store, db)
     before = _xmins(db)
     again = archive.load(store, db)
-    assert (again.loaded, again.unchanged, again.sites_written, again.settings_written) == (0, 4, 0, 0)
+    # read from the store's change feed: nothing saved since, so no trip is even compared
+    assert (again.loaded, again.sites_written, again.settings_written, again.checked) == (0, 0, 0, "feed")
     assert _xmins(db) == before                 # not one row rewritten
     edit_stop_notes(store, extra.id, 1, "beaver dam upstream since last visit")
     third = archive.load(store, db)
@@ -303,3 +304,18 @@ def test_the_kept_season_summary_equals_a_fresh_count(tmp_path, db):
     assert kept() == fresh()
     lk1 = next(r for r in kept() if r[0] == "LK-01")
     assert (lk1[2], lk1[5], lk1[6]) == (5, 5, 9.5)    # 3 + 2 visits, all below 9.5 mg/L
+
+
+def test_a_lost_feed_or_a_day_without_a_full_check_compares_every_trip(tmp_path, db):
+    store = _sample_store(tmp_path / "office")
+    extra = new_trip(store, stops=2)
+    assert archive.load(store, db).checked == "all"
+    edit_stop_notes(store, extra.id, 0, "saved while the feed was lost")
+    (store.data_dir / "changes.log").unlink()           # as after a crash or a rotation
+    report = archive.load(store, db)
+    assert (report.checked, report.loaded_ids, report.unchanged) == ("all", [extra.id], 3)
+    edit_stop_notes(store, extra.id, 1, "read from the feed")
+    assert archive.load(store, db).loaded_ids == [extra.id]
+    with psycopg.connect(db) as conn:
+        conn.execute("UPDATE load_sources SET full_at = now() - interval '25 hours'")
+    assert archive.load(store, db).checked == "all"

@@ -226,7 +226,11 @@ def test_cli_conflicts_settle_and_correct(tmp_path, store):
     out = json.loads(r.stdout)
     assert out["needs_attention"] is False and out["open_conflicts"] == 0
     r = run_cli("trip", "show", tid[:8], "--json", data_dir=data)
-    assert json.loads(r.stdout)["status"] != "needs attention"
+    shown = json.loads(r.stdout)
+    assert shown["status"] != "needs attention"
+    assert [(x["number"], x["site_id"]) for x in shown["stops"]] == [(1, "LK-01"), (2, "LK-03")]
+    r = run_cli("trip", "show", tid[:8], data_dir=data)
+    assert "stop 2: LK-03" in r.stdout                  # the numbers --stop and the conflicts use
     r = run_cli("trip", "correct", tid[:8], "--stop", "1", "--field", "meter_do_value", "--value", "8,9",
                 "--reason", "transcription error", "--by", "M.K.", data_dir=data)
     assert r.returncode == 0, r.stderr

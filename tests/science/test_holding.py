@@ -6,7 +6,7 @@ from datetime import datetime, timedelta, timezone
 import pytest
 
 from core.flags import Severity
-from core.science.holding import HOLDING_TIMES, holding_clock
+from core.science.holding import BOTTLE_HOLDING, HOLDING_TIMES, bottle_holding_kind, holding_clock
 
 T0 = datetime(2026, 6, 1, 8, 0, tzinfo=timezone.utc)
 
@@ -57,3 +57,28 @@ def test_refusals(kw, word):
     args.update(kw)
     with pytest.raises(ValueError, match=word):
         holding_clock(**args)
+
+
+@pytest.mark.parametrize("kind,kw,expected", [
+    # 40 CFR 136.3 Table II (from memory): a Winkler DO bottle keeps 8 h from fixing, a BOD bottle 48 h
+    ("do-fixed", {}, "do_winkler"),
+    ("bod", {}, "bod"),
+    ("blank", {}, None),                                          # no holding time here: the SOP's
+    # a duplicate follows the bottle it duplicates (common practice) ...
+    ("duplicate", {"duplicates": "do-fixed"}, "do_winkler"),
+    ("duplicate", {"duplicates": "bod", "fixed": True}, "bod"),
+    # ... and, when that is not known, its fixing: Winkler samples are fixed on site, BOD samples never
+    ("duplicate", {"fixed": True}, "do_winkler"),
+    ("duplicate", {}, "bod"),
+    ("duplicate", {"duplicates": "duplicate"}, "bod"),
+])
+def test_bottle_kinds_map_to_one_holding_time(kind, kw, expected):
+    assert bottle_holding_kind(kind, **kw) == expected
+    assert expected is None or expected in HOLDING_TIMES
+
+
+def test_the_bottle_table_names_only_holding_times_that_exist():
+    assert set(BOTTLE_HOLDING) == {"do-fixed", "bod", "blank"}
+    assert all(v is None or v in HOLDING_TIMES for v in BOTTLE_HOLDING.values())
+    with pytest.raises(ValueError, match="bottle kind 'jar' is not known; accepted: do-fixed, bod, blank"):
+        bottle_holding_kind("jar")

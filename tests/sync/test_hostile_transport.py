@@ -120,6 +120,7 @@ def test_listing_cut_mid_answer_is_retried_and_a_lasting_cut_is_exit_1_not_2(dav
     cfg.write_text(f"[hub http://127.0.0.1:{proxy.port}/hub/]\nuser = {DAV_USER}\npassword = {DAV_PASSWORD}\n")
     cfg.chmod(0o600)
     other = tmp_path / "office2"
+    open_store(other, "office-2")   # an existing store: the pull's only line is its problem
     out = run_cli("sync", "pull", "--from", proxy.url_for("/hub/"), "--credentials", str(cfg),
                   "--timeout", "3", data_dir=other)
     assert out.returncode == 1, (out.stderr, proxy.counts, proxy.script)

@@ -5,6 +5,7 @@ from kivy.factory import Factory
 from kivy.properties import BooleanProperty, ObjectProperty
 
 from mobile.app.screens import calibration  # noqa: F401 - the CalPanel its kv rule uses
+from mobile.app.screens import conflicts  # noqa: F401 - the ConflictPanel its kv rule uses
 from mobile.app.screens.base import BaseScreen, ctl
 
 __all__ = ["EndScreen"]
@@ -12,6 +13,7 @@ __all__ = ["EndScreen"]
 
 class EndScreen(BaseScreen):
     cal_panel = ObjectProperty(None)
+    conflict_panel = ObjectProperty(None)
     rows_box = ObjectProperty(None)
     ended = BooleanProperty(False)
 
@@ -28,6 +30,7 @@ class EndScreen(BaseScreen):
         ctl().remember("end")
 
     def refresh(self, *_):
+        self.conflict_panel.refresh()
         self.cal_panel.update()
         self.rows_box.clear_widgets()
         lines = ctl().attention_lines()

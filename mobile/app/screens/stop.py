@@ -7,6 +7,7 @@ from kivy.factory import Factory
 from kivy.properties import BooleanProperty, ListProperty, NumericProperty, ObjectProperty, StringProperty
 
 from mobile.app.forms import BOTTLE_KINDS
+from mobile.app.screens import conflicts  # noqa: F401 - the ConflictPanel its kv rule uses
 from mobile.app.screens.base import BaseScreen, ctl
 from mobile.app.views import REAGENT_CAUTION, WADING_CAUTION, fmt_when
 
@@ -51,6 +52,7 @@ class StopScreen(BaseScreen):
     bottle_box = ObjectProperty(None)
     form_scroll = ObjectProperty(None)
     notes_entry = ObjectProperty(None)
+    conflict_panel = ObjectProperty(None)
     _loading = False
 
     def on_pre_enter(self, *_):
@@ -91,6 +93,7 @@ class StopScreen(BaseScreen):
             self._loading = False
         self.show(c.stop_view())
         self.show_bottles()
+        self.conflict_panel.refresh()
 
     def field(self, name, value):
         """A field changed (a keystroke, a unit, a site): recompute and show; the save is debounced."""

@@ -47,6 +47,7 @@ class SyncScreen(BaseScreen):
     @mainthread
     def _done(self, report, error):
         self.running = False
+        ctl().refresh_from_store()   # a merge during the send changed the open trip: show it
         if error is not None:
             self.status = f"■ Not sent — will retry: {error}"
             return
