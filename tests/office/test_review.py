@@ -46,10 +46,10 @@ def test_states_follow_the_workflow(tmp_path):
     trip = _step(store, trip.id, "resubmitted", T0 + timedelta(minutes=2), by="R.O.")
     assert review_state(trip) == "ended" and open_reasons(trip) == []
     trip = _step(store, trip.id, "reviewed", T0 + timedelta(minutes=3))
-    trip = _step(store, trip.id, "approved", T0 + timedelta(minutes=4), comment="checked against field sheets")
+    trip = _step(store, trip.id, "approved", T0 + timedelta(minutes=4), comment="flags reviewed with the crew")
     assert review_state(trip) == "approved"
     ev = trip.review_events[-1]
-    assert (ev.by, ev.comment, ev.action) == ("D.M.", "checked against field sheets", "approved")
+    assert (ev.by, ev.comment, ev.action) == ("D.M.", "flags reviewed with the crew", "approved")
 
 
 def test_return_needs_a_reason_and_a_name():
@@ -73,7 +73,7 @@ def test_an_approved_trip_changes_only_through_a_correction(tmp_path):
     stops = list(trip.stops)
     stops[0] = stops[0].model_copy(update={"notes": "gauge height was 0.42 m, not 0.24"})
     ev = new_event(trip, "corrected", by="D.M.", at=T0 + timedelta(hours=1),
-                   reasons=["transcription error on the field sheet"], approved=before)
+                   reasons=["meter reading entered at the wrong stop"], approved=before)
     fixed = store.save_trip(trip.model_copy(update={
         "stops": stops, "review_events": [*trip.review_events, ReviewEvent.model_validate(ev, strict=False)]}),
         "corrected")

@@ -232,11 +232,11 @@ def test_cli_conflicts_settle_and_correct(tmp_path, store):
     r = run_cli("trip", "show", tid[:8], data_dir=data)
     assert "stop 2: LK-03" in r.stdout                  # the numbers --stop and the conflicts use
     r = run_cli("trip", "correct", tid[:8], "--stop", "1", "--field", "meter_do_value", "--value", "8,9",
-                "--reason", "transcription error", "--by", "M.K.", data_dir=data)
+                "--reason", "reading entered at the wrong stop", "--by", "M.K.", data_dir=data)
     assert r.returncode == 0, r.stderr
     trip = DeviceStore.open(data).load_trip(tid)
     assert sorted(trip.stops, key=lambda s: s.arrived_at)[0].do.text == "8,9 mg/L"
-    assert trip.audit[-1].reason == "transcription error" and trip.audit[-1].by == "M.K."
+    assert trip.audit[-1].reason == "reading entered at the wrong stop" and trip.audit[-1].by == "M.K."
     r = run_cli("trip", "correct", tid[:8], "--stop", "1", "--field", "do_sat_mg_l", "--value", "9",
                 "--reason", "x", data_dir=data)
     assert r.returncode == 2 and "computed" in r.stderr and len(r.stderr.strip().splitlines()) == 1
@@ -254,9 +254,9 @@ def test_cli_correct_on_an_approved_trip_adds_the_review_correction(tmp_path):
         {**t.to_document(), "review_events": [ev]}))
     before = store.trip_document(trip.id)
     r = run_cli("trip", "correct", trip.id[:8], "--stop", "1", "--field", "notes", "--value", "gauge 0.42 m",
-                "--reason", "transcription error", "--by", "D.M.", data_dir=tmp_path / "office")
+                "--reason", "reading entered at the wrong stop", "--by", "D.M.", data_dir=tmp_path / "office")
     assert r.returncode == 0, r.stderr
     doc = DeviceStore.open(tmp_path / "office").trip_document(trip.id)
     assert review_state(doc) == "reviewed" and doc["stops"][0]["notes"] == "gauge 0.42 m"
     assert approved_version(doc)["stops"][0]["notes"] == before["stops"][0]["notes"]
-    assert doc["review_events"][-1]["reasons"] == ["transcription error"]
+    assert doc["review_events"][-1]["reasons"] == ["reading entered at the wrong stop"]
