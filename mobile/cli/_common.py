@@ -5,6 +5,7 @@ import argparse
 import json
 import sys
 from datetime import datetime
+from pathlib import Path
 from typing import Any, NoReturn
 
 EXIT_OK = 0
@@ -123,3 +124,37 @@ def parse_time(text: str | None, option: str) -> datetime | None:
         raise CliError(f"{option} {text!r} has no time zone; accepted: ISO 8601 with a time zone, e.g."
                        " 2026-06-09T11:20-07:00 or 2026-06-09T18:20Z")
     return t
+
+
+def read_dilutions_file(path_text: str) -> tuple[list[Any], Any, bool]:
+    """A --dilutions JSON file as (dilutions, seed_controls or None, nitrification_inhibitor), or a
+    one-line error: a list of dilutions, or an object with "dilutions" (and "seed_controls",
+    "nitrification_inhibitor"). An empty list and the entries themselves are checked by core."""
+    try:
+        raw = Path(path_text).read_text(encoding="utf-8")
+    except FileNotFoundError:
+        fail(f"--dilutions {path_text!r} does not exist; accepted: a JSON file of dilutions")
+    except (OSError, UnicodeDecodeError) as exc:
+        fail(f"--dilutions {path_text!r} cannot be read ({type(exc).__name__}); accepted: a readable UTF-8 JSON file")
+    try:
+        doc = json.loads(raw)
+    except json.JSONDecodeError as exc:
+        fail(f"--dilutions {path_text!r} is not valid JSON (line {exc.lineno}, column {exc.colno}); accepted: a"
+             " list of dilutions or an object with \"dilutions\" (and \"seed_controls\")")
+    controls = None
+    inhibitor = False
+    if isinstance(doc, dict):
+        unknown = sorted(set(doc) - {"dilutions", "seed_controls", "nitrification_inhibitor"})
+        if unknown:
+            fail(f"--dilutions {path_text!r} has an unknown key {unknown[0]!r}; accepted keys: dilutions,"
+                 " seed_controls, nitrification_inhibitor")
+        inhibitor = doc.get("nitrification_inhibitor", False)
+        if not isinstance(inhibitor, bool):
+            fail(f"--dilutions {path_text!r}: nitrification_inhibitor is not true or false; accepted: true"
+                 " (CBOD5) or false (BOD5)")
+        controls = doc.get("seed_controls")
+        doc = doc.get("dilutions")
+    if not isinstance(doc, list):
+        fail(f"--dilutions {path_text!r} holds no list of dilutions; accepted: a JSON list of objects with"
+             " initial_do_mg_l, final_do_mg_l, sample_ml (or an object with \"dilutions\")")
+    return doc, controls, inhibitor

@@ -1,13 +1,12 @@
 """`streamtab lab pending|winkler|bod|duplicates|results`: the analyst's bench results on synced trips."""
 from __future__ import annotations
 
-import json
 import sys
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from mobile.cli._common import CliError, emit_json, emit_table, fail, open_store, resolve_trip_id
+from mobile.cli._common import CliError, emit_json, emit_table, fail, open_store, read_dilutions_file, resolve_trip_id
 from mobile.cli._common import parse_time as _time
 
 __all__ = ["register"]
@@ -222,38 +221,6 @@ def _winkler(args) -> int:  # noqa: ANN001
     return 0
 
 
-def _read_dilutions(path_text: str) -> tuple[Any, Any, bool]:
-    path = Path(path_text)
-    try:
-        raw = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        fail(f"--dilutions {path_text!r} does not exist; accepted: a JSON file of dilutions")
-    except (OSError, UnicodeDecodeError) as exc:
-        fail(f"--dilutions {path_text!r} cannot be read ({type(exc).__name__}); accepted: a readable UTF-8 JSON file")
-    try:
-        doc = json.loads(raw)
-    except json.JSONDecodeError as exc:
-        fail(f"--dilutions {path_text!r} is not valid JSON (line {exc.lineno}, column {exc.colno}); accepted: a"
-             " list of dilutions or an object with \"dilutions\" (and \"seed_controls\")")
-    controls = None
-    inhibitor = False
-    if isinstance(doc, dict):
-        unknown = sorted(set(doc) - {"dilutions", "seed_controls", "nitrification_inhibitor"})
-        if unknown:
-            fail(f"--dilutions {path_text!r} has an unknown key {unknown[0]!r}; accepted keys: dilutions,"
-                 " seed_controls, nitrification_inhibitor")
-        inhibitor = doc.get("nitrification_inhibitor", False)
-        if not isinstance(inhibitor, bool):
-            fail(f"--dilutions {path_text!r}: nitrification_inhibitor is not true or false; accepted: true"
-                 " (CBOD5) or false (BOD5)")
-        controls = doc.get("seed_controls")
-        doc = doc.get("dilutions")
-    if not isinstance(doc, list) or not doc:
-        fail(f"--dilutions {path_text!r} holds no list of dilutions; accepted: a JSON list of objects with"
-             " initial_do_mg_l, final_do_mg_l, sample_ml (or an object with \"dilutions\")")
-    return doc, controls, inhibitor
-
-
 def _batch(trip, bottle_ref: str, kinds: tuple[str, ...]):  # noqa: ANN001
     """The bench batch covering the bottle (None when none does, or the label is not found: the
     recording call then says what is wrong with the label)."""
@@ -370,7 +337,7 @@ def _bod(args) -> int:  # noqa: ANN001
     if args.sheet is not None:
         dilutions, controls = _read_sheet(args.sheet, args.bottle)
     else:
-        dilutions, controls, inhibitor = _read_dilutions(args.dilutions)
+        dilutions, controls, inhibitor = read_dilutions_file(args.dilutions)
     inhibitor = inhibitor or bool(args.nitrification_inhibitor)
     mg = ("mg/L", "mg/l")
     blank = _number(args.blank_depletion, "--blank-depletion", "dilution-water blank depletion in mg/L"

@@ -1,11 +1,9 @@
 """Science sub-commands of `streamtab`: sat, salinity, winkler, bod (desk checks of the field arithmetic)."""
 from __future__ import annotations
 
-import json
 import re
-from pathlib import Path
 
-from mobile.cli._common import CliError, emit_json, emit_table
+from mobile.cli._common import CliError, emit_json, emit_table, read_dilutions_file
 
 __all__ = ["register"]
 
@@ -247,35 +245,8 @@ def _bod(args) -> int:
 def _bod_file(args) -> int:
     from core.science.bod import bod_from_dilutions, seed_uptake_per_ml
 
-    path = Path(args.dilutions)
-    try:
-        raw = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise CliError(f"--dilutions {str(path)!r} does not exist; accepted: a JSON file of dilutions") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise CliError(f"--dilutions {str(path)!r} cannot be read ({type(exc).__name__}); accepted: a readable"
-                       " UTF-8 JSON file") from None
-    try:
-        doc = json.loads(raw)
-    except json.JSONDecodeError as exc:
-        raise CliError(f"--dilutions {str(path)!r} is not valid JSON (line {exc.lineno}, column {exc.colno});"
-                       " accepted: a list of dilutions or an object with \"dilutions\"") from None
-    controls = None
-    inhibitor = bool(args.nitrification_inhibitor)
-    if isinstance(doc, dict):
-        unknown = sorted(set(doc) - {"dilutions", "seed_controls", "nitrification_inhibitor"})
-        if unknown:
-            raise CliError(f"--dilutions {str(path)!r} has an unknown key {unknown[0]!r}; accepted keys:"
-                           " dilutions, seed_controls, nitrification_inhibitor")
-        if not isinstance(doc.get("nitrification_inhibitor", False), bool):
-            raise CliError(f"--dilutions {str(path)!r}: nitrification_inhibitor is not true or false;"
-                           " accepted: true (CBOD5) or false (BOD5)")
-        inhibitor = inhibitor or doc.get("nitrification_inhibitor", False)
-        controls = doc.get("seed_controls")
-        doc = doc.get("dilutions")
-    if not isinstance(doc, list):
-        raise CliError(f"--dilutions {str(path)!r} holds no list of dilutions; accepted: a JSON list of objects"
-                       " with initial_do_mg_l, final_do_mg_l, sample_ml (or an object with \"dilutions\")")
+    doc, controls, inhibitor = read_dilutions_file(args.dilutions)
+    inhibitor = inhibitor or bool(args.nitrification_inhibitor)
     if controls is not None:
         s = _core("--dilutions seed_controls", seed_uptake_per_ml, controls)
         doc = [dict(d, seed_uptake_mg_l_per_ml=d.get("seed_uptake_mg_l_per_ml", s))
