@@ -88,6 +88,8 @@ _CONTAINERS = {"stops": "Stop", "bottles": "Bottle", "lab_results": "Lab result"
 #: Stable code → template. Codes other tools may read; texts are ours.
 TEMPLATES: dict[str, str] = {
     "missing": "{label} is required.",
+    "missing.part": "{label} has no {part}; a stored reading keeps what was typed (text, entered_value,"
+                    " entered_unit) beside its value and unit.",
     "number.invalid": "{label}: “{input}” is not a number; type digits such as 12.5 (a decimal comma is fine).",
     "number.not_finite": "{label}: “{input}” is not a usable number; NaN and infinity are refused.",
     "number.bool": "{label}: a yes/no value is not a number; type the number.",
@@ -151,6 +153,10 @@ class Problem:
         return {"code": self.code, "field": self.field, "label": self.label, "message": self.message}
 
 
+#: A Quantity's inner parts: a problem in one is labelled with the quantity's own label.
+_QUANTITY_PARTS = frozenset({"text", "entered_value", "entered_unit", "value", "unit"})
+
+
 def label_for(field: str) -> str:
     """The label of a field name (the last part of a dotted path)."""
     name = str(field).rsplit(".", 1)[-1]
@@ -174,9 +180,8 @@ def path_label(loc: Iterable[Any]) -> str:
         i += 1
     # The deepest named field that is not a Quantity's inner part gives the label.
     named = [p for p in loc if isinstance(p, str) and p not in _CONTAINERS]
-    inner = {"text", "entered_value", "entered_unit", "value", "unit"}
     field = last_field
-    if len(named) >= 2 and named[-1] in inner and named[-2] in FIELD_LABELS:
+    if len(named) >= 2 and named[-1] in _QUANTITY_PARTS and named[-2] in FIELD_LABELS:
         field = named[-2]
     label = label_for(field) if field else "Record"
     return ": ".join(parts + [label]) if parts else label
@@ -233,6 +238,12 @@ def problems_from_validation(exc: Any) -> list[Problem]:
             code = "number.not_finite"
         label = path_label(loc)
         params: dict[str, Any] = {"label": label, "input": _short(inp)}
+        template = code
+        part = next((p for p in reversed(loc) if isinstance(p, str)), "")
+        if code == "missing" and part in _QUANTITY_PARTS and not label.endswith(label_for(part)):
+            # The reading is there but lacks an inner part: "is required" would send the person
+            # looking for a value they did give.
+            template, params["part"] = "missing.part", part
         if code == "choice.invalid":
             params["choices"] = ctx.get("expected", "the listed values")
         elif code == "text.too_long":
@@ -247,7 +258,7 @@ def problems_from_validation(exc: Any) -> list[Problem]:
         elif code == "time.end_before_start":
             pass
         field = ".".join(str(p) for p in loc)
-        out.append(Problem(code=code, field=field, label=label, message=render(code, **params)))
+        out.append(Problem(code=code, field=field, label=label, message=render(template, **params)))
     return out
 
 

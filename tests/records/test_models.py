@@ -194,6 +194,17 @@ def test_missing_required_field_message():
     assert probs[0].code == "missing" and probs[0].message == "Trip start time is required."
 
 
+def test_reading_without_its_typed_part_is_not_called_missing():
+    # A reading written by hand as {"value": 99, "unit": "°C"}: the temperature is there, so
+    # "is required" would send the person looking for a value they did give.
+    doc = doc_with()
+    doc["stops"][0]["temp"] = {"value": 99.0, "unit": "°C"}
+    probs = problems(lambda: Trip.from_document(doc))
+    assert probs[0].code == "missing" and probs[0].field == "stops.0.temp.text"
+    assert probs[0].message.startswith("Stop 1: Water temperature has no text;")
+    assert all("is required" not in p.message for p in probs)
+
+
 def test_end_before_start_message():
     probs = problems(lambda: Trip.from_document(doc_with(ended_at="2026-06-14T06:00:00-07:00")))
     assert probs[0].code == "time.end_before_start"
