@@ -36,6 +36,25 @@ def test_a_reading_command_refuses_a_missing_store_and_creates_nothing(tmp_path,
     assert not missing.exists()
 
 
+@pytest.mark.parametrize("argv, content, words", [
+    (("sites", "import"), "site_id,name,elevation_m\nLK-1,A,\n", ["line 2", "elevation_m"]),
+    (("sites", "import"), None, ["no such file"]),
+    (("trip", "import"), "{not json", ["not valid JSON"]),
+    (("trip", "import"), None, ["no such file"]),
+])
+def test_an_import_of_a_bad_file_creates_no_store(tmp_path, argv, content, words):
+    # common practice: a mistyped path or a broken file leaves nothing behind
+    target = tmp_path / "new-store"
+    f = tmp_path / "input.txt"
+    if content is not None:
+        f.write_text(content, encoding="utf-8")
+    out = run_cli(*argv, str(f), data_dir=target)
+    assert out.returncode == 2
+    line = _one_line(out)
+    assert all(w in line for w in words), line
+    assert not target.exists()
+
+
 def test_an_empty_existing_folder_is_not_a_store_either(tmp_path):
     out = run_cli("trip", "list", data_dir=tmp_path)
     assert out.returncode == 2 and "no device store" in _one_line(out)

@@ -22,7 +22,7 @@ from core.records.messages import label_for, problems_from_validation
 from core.records.models import InputError, Site, Trip, parse_number
 
 __all__ = ["ExchangeError", "SITE_COLUMNS", "STOP_COLUMNS", "BOTTLE_COLUMNS", "import_sites_csv",
-           "read_sites_csv", "import_trip_file", "read_trip_file", "export_trip_json",
+           "read_sites_csv", "import_trip_file", "import_trip_document", "read_trip_file", "export_trip_json",
            "export_trip_csv", "stop_rows", "bottle_rows", "csv_table", "spreadsheet_safe", "FORMULA_LEADS"]
 
 
@@ -156,14 +156,19 @@ def import_trip_file(store: Any, path: Path | str) -> Any:
     one, changes nothing; a file from another device merges like a sync pull; lab results,
     calibrations, custody records and audit entries are never removed.
     """
+    path = Path(path)
+    return import_trip_document(store, read_trip_file(path), path.name)
+
+
+def import_trip_document(store: Any, doc: dict[str, Any], name: str) -> Any:
+    """Imports a trip document already read by :func:`read_trip_file` from the file `name`
+    (as :func:`import_trip_file`, for a caller that checks the file before opening a store)."""
     from core.store import StoreError
 
-    path = Path(path)
-    doc = read_trip_file(path)
     try:
-        return store.merge_document(doc, f"imported from {path.name}")
+        return store.merge_document(doc, f"imported from {name}")
     except StoreError as exc:
-        raise ExchangeError(f"{path.name}: {exc}") from None
+        raise ExchangeError(f"{name}: {exc}") from None
 
 
 def export_trip_json(store: Any, trip_id: str) -> bytes:

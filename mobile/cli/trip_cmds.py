@@ -56,13 +56,17 @@ def _store(args, *, create: bool = False):  # noqa: ANN001
 
 
 def _sites_import(args) -> int:  # noqa: ANN001
-    from core.records.exchange import ExchangeError, import_sites_csv
+    from core.records.exchange import ExchangeError, read_sites_csv
     from core.store import StoreError
 
+    try:  # the whole file is read and checked before a store is opened (or created) for it
+        sites = read_sites_csv(args.file)
+    except ExchangeError as exc:
+        fail(str(exc))
     store = _store(args, create=True)
     try:
-        sites = import_sites_csv(store, args.file)
-    except (ExchangeError, StoreError) as exc:
+        sites = store.save_sites(sites)
+    except StoreError as exc:
         fail(str(exc))
     sys.stdout.write(f"imported {len(sites)} site{'s' if len(sites) != 1 else ''} from {Path(args.file).name}\n")
     return 0
@@ -81,11 +85,15 @@ def _sites_list(args) -> int:  # noqa: ANN001
 
 
 def _trip_import(args) -> int:  # noqa: ANN001
-    from core.records.exchange import ExchangeError, import_trip_file
+    from core.records.exchange import ExchangeError, import_trip_document, read_trip_file
 
+    try:  # a missing or unreadable file is refused before a store is opened (or created) for it
+        doc = read_trip_file(args.file)
+    except ExchangeError as exc:
+        fail(str(exc))
     store = _store(args, create=True)
     try:
-        outcome = import_trip_file(store, args.file)
+        outcome = import_trip_document(store, doc, Path(args.file).name)
     except ExchangeError as exc:
         fail(str(exc))
     trip = outcome.trip
