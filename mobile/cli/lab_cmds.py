@@ -137,8 +137,25 @@ def _flag_rows(flags: list[dict]) -> list[tuple[str, str]]:
     return [("flag", f"[{f['severity']}] {f['code']}: {f['message']}") for f in flags]
 
 
+def _standardisation(args):  # noqa: ANN001, ANN202
+    """The thiosulfate standardisation typed as --std-titrant-ml (with --std-ml, --std-normality,
+    --standardised-at), or None when --std-titrant-ml is not given."""
+    from core.rules.lab import Standardisation
+
+    if args.std_titrant_ml is None:
+        return None
+    ml = ("mL", "ml")
+    return Standardisation(
+        titrant_ml=_number(args.std_titrant_ml, "--std-titrant-ml", "thiosulfate used on the standard in mL,"
+                                                                    " above 0 to 100", ml),
+        standard_ml=_number(args.std_ml, "--std-ml", "bi-iodate standard taken in mL, above 0 (usually 20)", ml),
+        standard_normality=_number(args.std_normality, "--std-normality", "standard normality in eq/L, above 0"
+                                                                          " to 1 (usually 0.025)", ("N",)),
+        standardised_at=_time(args.standardised_at, "--standardised-at"))
+
+
 def _winkler(args) -> int:  # noqa: ANN001
-    from core.rules.lab import CAUTION, WINKLER_KINDS, Standardisation, record_winkler
+    from core.rules.lab import CAUTION, WINKLER_KINDS, record_winkler
 
     ml = ("mL", "ml")
     titrant = _number(args.titrant_ml, "--titrant-ml", "thiosulfate used in mL, 0 to 100", ml)
@@ -151,16 +168,8 @@ def _winkler(args) -> int:  # noqa: ANN001
              " or --std-titrant-ml (thiosulfate used on the bi-iodate standard, mL)")
     normality = _number(args.normality, "--normality", "titrant normality in eq/L, above 0 to 1 (usually 0.025)",
                         ("N",))
-    std = None
-    if args.std_titrant_ml is not None:
-        std = Standardisation(
-            titrant_ml=_number(args.std_titrant_ml, "--std-titrant-ml", "thiosulfate used on the standard in mL,"
-                                                                        " above 0 to 100", ml),
-            standard_ml=_number(args.std_ml, "--std-ml", "bi-iodate standard taken in mL, above 0 (usually 20)", ml),
-            standard_normality=_number(args.std_normality, "--std-normality", "standard normality in eq/L, above 0"
-                                                                              " to 1 (usually 0.025)", ("N",)),
-            standardised_at=_time(args.standardised_at, "--standardised-at"))
-    elif args.standardised_at is not None:
+    std = _standardisation(args)
+    if std is None and args.standardised_at is not None:
         fail("--standardised-at goes with --std-titrant-ml; accepted: both, or --normality alone")
     now = datetime.now(timezone.utc)
     at = _time(args.at, "--at") or now
@@ -235,10 +244,9 @@ def _batch(trip, bottle_ref: str, kinds: tuple[str, ...]):  # noqa: ANN001
 
 def _batch_cmd(args) -> int:  # noqa: ANN001
     """Records a bench batch's QC once; 'lab bod' and 'lab winkler' apply it to the batch's bottles."""
-    from core.rules.lab import LabInputError, Standardisation, add_batch, batch_qc
+    from core.rules.lab import LabInputError, add_batch, batch_qc
 
     mg = ("mg/L", "mg/l")
-    ml = ("mL", "ml")
     blank = _number(args.blank_depletion, "--blank-depletion", "dilution-water blank depletion in mg/L"
                                                                " (≤ 0.20 passes)", mg)
     gga = _number(args.gga, "--gga", "glucose–glutamic acid check BOD5 in mg/L (198 ± 30.5 passes)", mg)
@@ -261,15 +269,7 @@ def _batch_cmd(args) -> int:  # noqa: ANN001
             fail(str(exc))
         if not controls:
             fail(f"--seed-sheet {args.seed_sheet!r} has no seed control rows; accepted: rows of kind 'seed control'")
-    std = None
-    if args.std_titrant_ml is not None:
-        std = Standardisation(
-            titrant_ml=_number(args.std_titrant_ml, "--std-titrant-ml", "thiosulfate used on the standard in mL,"
-                                                                        " above 0 to 100", ml),
-            standard_ml=_number(args.std_ml, "--std-ml", "bi-iodate standard taken in mL, above 0 (usually 20)", ml),
-            standard_normality=_number(args.std_normality, "--std-normality", "standard normality in eq/L, above 0"
-                                                                              " to 1 (usually 0.025)", ("N",)),
-            standardised_at=_time(args.standardised_at, "--standardised-at"))
+    std = _standardisation(args)
     now = datetime.now(timezone.utc)
     store = _store(args)
     settings = _settings(args, store)
