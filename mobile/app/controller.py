@@ -785,12 +785,16 @@ class AppController:
             return f"Not settled: {exc}."
         except StoreError as exc:
             return f"Not settled, nothing was saved: {exc}"
-        stop_id = self.stop_id
-        self._saved[saved.id] = saved
-        self.trip = self.bridge.form_from_trip(saved)
-        self._base_form[saved.id] = copy.deepcopy(self.trip)
-        self.stop_id = stop_id if stop_id and self.trip.stop(stop_id) else None
+        self._adopt_stored(saved)
         return None
+
+    def _adopt_stored(self, stored: Any) -> None:
+        """UI thread: the form shows `stored` (the trip as just read or written), on the same stop."""
+        stop_id = self.stop_id
+        self._saved[stored.id] = stored
+        self.trip = self.bridge.form_from_trip(stored)
+        self._base_form[stored.id] = copy.deepcopy(self.trip)
+        self.stop_id = stop_id if stop_id and self.trip.stop(stop_id) else None
 
     def conflicts_of(self, trip: Any) -> list[Any]:
         from core.rules.conflicts import list_conflicts
@@ -871,9 +875,5 @@ class AppController:
         stored = self.store.load_trip(self.trip.id)
         if saved is not None and stored.revision == saved.revision:
             return False
-        stop_id = self.stop_id
-        self._saved[stored.id] = stored
-        self.trip = self.bridge.form_from_trip(stored)
-        self._base_form[stored.id] = copy.deepcopy(self.trip)
-        self.stop_id = stop_id if stop_id and self.trip.stop(stop_id) else None
+        self._adopt_stored(stored)
         return True
