@@ -796,6 +796,43 @@ class AppController:
         self._base_form[stored.id] = copy.deepcopy(self.trip)
         self.stop_id = stop_id if stop_id and self.trip.stop(stop_id) else None
 
+    def returned_reasons(self) -> str | None:
+        """Why the office returned the open trip (a sentence), or None when it is not returned."""
+        from core.rules.review import describe, review_state
+
+        saved = self._saved.get(self.trip.id) if self.trip is not None else None
+        if saved is None or review_state(saved) != "returned":
+            return None
+        return describe(saved)
+
+    def resubmit(self) -> str | None:
+        """Hands a trip the office returned back to it (a 'resubmitted' review step, after what was
+        typed is saved); returns why not in one sentence, or None when it is saved."""
+        from datetime import timezone
+
+        from core.records.models import ReviewEvent
+        from core.rules.review import ReviewRefused, new_event
+        from core.store import StoreError
+
+        if self.trip is None:
+            return "No trip is open."
+        self.flush()
+        by = self.settler()
+        at = self.now().astimezone(timezone.utc)
+
+        def apply(trip: Any) -> Any:
+            event = ReviewEvent.model_validate(new_event(trip, "resubmitted", by=by, at=at), strict=False)
+            return trip.model_copy(update={"review_events": [*trip.review_events, event]})
+
+        try:
+            saved = self.store.update_trip(self.trip.id, f"review: resubmitted by {by}", apply, by=by)
+        except ReviewRefused as exc:
+            return f"Not handed back: {exc}"
+        except StoreError as exc:
+            return f"Not handed back, nothing was saved: {exc}"
+        self._adopt_stored(saved)
+        return None
+
     def conflicts_of(self, trip: Any) -> list[Any]:
         from core.rules.conflicts import list_conflicts
 
