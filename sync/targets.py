@@ -595,22 +595,24 @@ class WebDavTarget:
         if f.size is not None and f.size > max_bytes:
             raise _too_big(rel, max_bytes)
 
-        def fetch() -> tuple[bytes, bool]:
-            resp = self.session.request("GET", self._u(rel), stream=True)
-            try:
-                if resp.status_code in (404, 410):
-                    raise errors.Gone(f"hub file {rel} was listed but is gone")
-                if resp.status_code != 200:
-                    raise errors.Rejected(f"the hub answered GET {rel} with {resp.status_code}",
-                                          resp.status_code)
-                data = self.session.read_body(resp, max_bytes, rel, too_big=lambda: _too_big(rel, max_bytes))
-                # read_body checked a Content-Length; a chunked body ends with its last chunk
-                framed = bool(resp.headers.get("Content-Length")) or \
-                    "chunked" in resp.headers.get("Transfer-Encoding", "").lower()
-                return data, framed
-            finally:
-                resp.close()
-        return _checked_read(f, rel, fetch, self.session)
+        return _checked_read(f, rel, functools.partial(self._fetch, rel, max_bytes), self.session)
+
+    def _fetch(self, rel: str, max_bytes: int) -> tuple[bytes, bool]:
+        """One GET of a listed hub file: (its bytes, whether the answer carried its length)."""
+        resp = self.session.request("GET", self._u(rel), stream=True)
+        try:
+            if resp.status_code in (404, 410):
+                raise errors.Gone(f"hub file {rel} was listed but is gone")
+            if resp.status_code != 200:
+                raise errors.Rejected(f"the hub answered GET {rel} with {resp.status_code}",
+                                      resp.status_code)
+            data = self.session.read_body(resp, max_bytes, rel, too_big=lambda: _too_big(rel, max_bytes))
+            # read_body checked a Content-Length; a chunked body ends with its last chunk
+            framed = bool(resp.headers.get("Content-Length")) or \
+                "chunked" in resp.headers.get("Transfer-Encoding", "").lower()
+            return data, framed
+        finally:
+            resp.close()
 
     def _get_bytes(self, rel: str, limit: int) -> bytes | None:
         def step() -> bytes | None:
@@ -739,7 +741,11 @@ class WebDavTarget:
         raise errors.Unreachable(f"hub file {final_rel} could not be confirmed after MOVE; will retry")
 
     def _put_temp(self, device_id: str, trip_id: str, data: bytes) -> tuple[str, str | None]:
-        tmp_rel = incoming_name(device_id, trip_id)   # a fresh name for every attempt
+        return self._put_upload(incoming_name(device_id, trip_id), device_id, data)
+
+    def _put_upload(self, tmp_rel: str, device_id: str, data: bytes) -> tuple[str, str | None]:
+        """PUTs `data` to the fresh upload name `tmp_rel` (under ``incoming/<device key>/``, made
+        when missing); returns the name and the ETag the hub gave."""
         for _ in range(2):
             resp = self.session.request("PUT", self._u(tmp_rel), body=data,
                                         headers={"Content-Type": "application/json",
@@ -795,22 +801,8 @@ class WebDavTarget:
 
     def read_program(self, kind: str, name: str, max_bytes: int) -> bytes:
         rel = program_dir(kind) + name
-
-        def fetch() -> tuple[bytes, bool]:
-            resp = self.session.request("GET", self._u(rel), stream=True)
-            try:
-                if resp.status_code in (404, 410):
-                    raise errors.Gone(f"hub file {rel} was listed but is gone")
-                if resp.status_code != 200:
-                    raise errors.Rejected(f"the hub answered GET {rel} with {resp.status_code}",
-                                          resp.status_code)
-                data = self.session.read_body(resp, max_bytes, rel, too_big=lambda: _too_big(rel, max_bytes))
-                framed = bool(resp.headers.get("Content-Length")) or \
-                    "chunked" in resp.headers.get("Transfer-Encoding", "").lower()
-                return data, framed
-            finally:
-                resp.close()
-        return _checked_read(RemoteFile("", kind, name), rel, fetch, self.session, program_name_matches)
+        return _checked_read(RemoteFile("", kind, name), rel, functools.partial(self._fetch, rel, max_bytes),
+                             self.session, program_name_matches)
 
     def write_program(self, kind: str, name: str, data: bytes, device_id: str) -> bool:
         """Publishes one table file; False when the hub already held these bytes."""
@@ -820,20 +812,7 @@ class WebDavTarget:
 
         def put() -> str:
             tmp_rel = f"{INCOMING}/{device_key(device_id)}/{kind}.{uuid.uuid4().hex[:12]}.part"
-            for _ in range(2):
-                resp = self.session.request("PUT", self._u(tmp_rel), body=data,
-                                            headers={"Content-Type": "application/json",
-                                                     "If-None-Match": "*"})
-                resp.close()
-                if resp.status_code in (200, 201, 204):
-                    return tmp_rel
-                if resp.status_code == 409:
-                    self._made.discard(f"{INCOMING}/{device_key(device_id)}/")
-                    self._mkcol(f"{INCOMING}/{device_key(device_id)}/")
-                    continue
-                raise errors.Rejected(f"the hub refused an upload to {INCOMING}/ ({resp.status_code})",
-                                      resp.status_code)
-            raise errors.Rejected(f"the hub refused to create {INCOMING}/ for uploads")
+            return self._put_upload(tmp_rel, device_id, data)[0]
 
         def move(tmp_rel: str, overwrite: bool) -> int:
             resp = self.session.request("MOVE", self._u(tmp_rel),
