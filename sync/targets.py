@@ -19,7 +19,6 @@ import errno
 import functools
 import hashlib
 import os
-import uuid
 import xml.etree.ElementTree as ET
 from dataclasses import dataclass
 from email.utils import parsedate_to_datetime
@@ -397,7 +396,7 @@ class FolderTarget:
         """Publishes one table file; False when the hub already held these bytes."""
         final_dir = self.root / program_dir(kind)
         final = final_dir / name
-        tmp = self.root / INCOMING / device_key(device_id) / f"{kind}.{uuid.uuid4().hex[:12]}.part"
+        tmp = self.root / incoming_name(device_id, kind)
         try:
             atomic_write_bytes(tmp, data, mode=EXPORT_MODE)
             final_dir.mkdir(parents=True, exist_ok=True)
@@ -811,8 +810,7 @@ class WebDavTarget:
         self._mkcol(folder)
 
         def put() -> str:
-            tmp_rel = f"{INCOMING}/{device_key(device_id)}/{kind}.{uuid.uuid4().hex[:12]}.part"
-            return self._put_upload(tmp_rel, device_id, data)[0]
+            return self._put_upload(incoming_name(device_id, kind), device_id, data)[0]
 
         def move(tmp_rel: str, overwrite: bool) -> int:
             resp = self.session.request("MOVE", self._u(tmp_rel),
