@@ -21,7 +21,7 @@ from sync.program import KINDS as PROGRAM_KINDS
 
 __all__ = ["TRIPS", "INCOMING", "LOG", "revision_name", "parse_revision_name", "trip_dir",
            "trip_year", "canonical_trip_id", "device_key", "incoming_name", "HASH_HEX", "name_matches",
-           "odd_entry", "shown_name", "is_incoming_name", "YEAR_RE"]
+           "odd_entry", "shown_name", "is_incoming_name", "is_hidden_name", "YEAR_RE"]
 
 TRIPS = "trips"
 INCOMING = "incoming"
@@ -106,6 +106,13 @@ def shown_name(name: str, limit: int = 80) -> str:
     """A hub entry's name as it can be shown in one line (control characters as '?', shortened)."""
     text = "".join(c if c.isprintable() else "?" for c in name)
     return text if len(text) <= limit else text[: limit - 1] + "…"
+
+
+def is_hidden_name(name: str) -> bool:
+    """True for a hidden name (``.DS_Store``, ``._r000001-….json``, ``.Trash``) that file managers
+    and shares leave beside files: never part of the hub layout, and passed over without a report.
+    ``.`` and ``..`` are not hidden names: an entry named so is reported like any odd entry."""
+    return name.startswith(".") and name not in (".", "..")
 
 
 def odd_entry(parts: tuple[str, ...], is_folder: bool) -> str | None:

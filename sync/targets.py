@@ -29,7 +29,7 @@ from urllib.parse import quote, unquote, urlsplit
 from core.store.atomic import EXPORT_MODE, atomic_write_bytes, fsync_dir
 from sync import errors
 from sync.layout import (INCOMING, LOG, TRIPS, canonical_trip_id, device_key, incoming_name,
-                         is_incoming_name, name_matches, odd_entry, parse_revision_name, shown_name,
+                         is_hidden_name, is_incoming_name, name_matches, odd_entry, parse_revision_name, shown_name,
                          trip_dir)
 from sync.program import KINDS as PROGRAM_KINDS
 from sync.program import PROGRAM, is_program_name, program_dir
@@ -140,12 +140,13 @@ def _checked_read(f: RemoteFile, where: str, fetch, session: Session | None,  # 
 
 def _walk_report(root_rel: str, entries, skipped: list[str]) -> list[tuple[tuple[str, ...], int | None]]:  # noqa: ANN001
     """Sorts listing entries (relpath, is_folder, size) into revision files (parts, size) and
-    report lines for odd entries; what lies under an odd entry is skipped without a line."""
+    report lines for odd entries; what lies under an odd entry is skipped without a line, and
+    hidden names (`is_hidden_name`, what file managers leave) and what lies under them quietly."""
     files: list[tuple[tuple[str, ...], int | None]] = []
     odd_prefixes: list[tuple[str, ...]] = []
     for relpath, is_col, size in sorted(entries, key=lambda e: e[0]):
         parts = tuple(p for p in relpath.strip("/").split("/") if p)
-        if len(parts) < 2 or parts[0] != TRIPS:
+        if len(parts) < 2 or parts[0] != TRIPS or any(is_hidden_name(p) for p in parts):
             continue
         if any(parts[:len(o)] == o for o in odd_prefixes):
             continue
