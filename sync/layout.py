@@ -4,6 +4,7 @@ Hub layout (the same in a folder and on a WebDAV collection)::
 
     <hub>/trips/<YYYY>/<trip-uuid>/r<revision:06>-<sha256 first 24 hex>.json   immutable revisions
     <hub>/incoming/<device key>/<trip-uuid>.<nonce>.part                       uploads in flight
+    <hub>/incoming/<device key>/<sites|settings>.<nonce>.part                  (and of program tables)
     <hub>/log/<device key>/e<seq:08>-<sha256 first 24 hex>.json                the change log
 
 `YYYY` is the year of the trip's ``started_at`` as the crew wrote it (kept from the first push,
@@ -16,9 +17,11 @@ import hashlib
 import re
 import uuid
 
+from sync.program import KINDS as PROGRAM_KINDS
+
 __all__ = ["TRIPS", "INCOMING", "LOG", "revision_name", "parse_revision_name", "trip_dir",
            "trip_year", "canonical_trip_id", "device_key", "incoming_name", "HASH_HEX", "name_matches",
-           "odd_entry", "shown_name", "is_incoming_name", "YEAR_RE"]
+           "odd_entry", "shown_name", "is_incoming_name", "is_hidden_name", "YEAR_RE"]
 
 TRIPS = "trips"
 INCOMING = "incoming"
@@ -27,7 +30,8 @@ HASH_HEX = 24
 _NAME_RE = re.compile(rf"^r(\d{{6,}})-([0-9a-f]{{{HASH_HEX}}})\.json$")
 #: A year folder: the trip's four-digit start year, or "undated".
 YEAR_RE = re.compile(r"\d{4}|undated")
-_INCOMING_RE = re.compile(r"[0-9a-f]{8}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{12}\.[0-9a-f]{12}\.part")
+_INCOMING_RE = re.compile(r"(?:[0-9a-f]{8}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{12}|"
+                          + "|".join(PROGRAM_KINDS) + r")\.[0-9a-f]{12}\.part")
 
 
 def canonical_trip_id(trip_id: str) -> str:
@@ -84,14 +88,17 @@ def device_key(device_id: str) -> str:
     return hashlib.sha256(str(device_id).encode("utf-8")).hexdigest()[:12]
 
 
-def incoming_name(device_id: str, trip_id: str) -> str:
-    """A fresh temporary upload path (a new nonce per attempt, so a late, cut upload of an
-    earlier attempt can never be moved into place by a later one)."""
-    return f"{INCOMING}/{device_key(device_id)}/{canonical_trip_id(trip_id)}.{uuid.uuid4().hex[:12]}.part"
+def incoming_name(device_id: str, what: str) -> str:
+    """A fresh temporary upload path for a trip revision (`what` is the trip id) or a program
+    table (`what` is its kind, ``sites`` or ``settings``); a new nonce per attempt, so a late,
+    cut upload of an earlier attempt can never be moved into place by a later one."""
+    stem = what if what in PROGRAM_KINDS else canonical_trip_id(what)
+    return f"{INCOMING}/{device_key(device_id)}/{stem}.{uuid.uuid4().hex[:12]}.part"
 
 
 def is_incoming_name(name: str) -> bool:
-    """True for an upload file name made by `incoming_name` (``<trip uuid>.<nonce>.part``)."""
+    """True for an upload file name made by `incoming_name` (``<trip uuid>.<nonce>.part`` or
+    ``<sites|settings>.<nonce>.part``)."""
     return bool(_INCOMING_RE.fullmatch(name))
 
 
@@ -99,6 +106,13 @@ def shown_name(name: str, limit: int = 80) -> str:
     """A hub entry's name as it can be shown in one line (control characters as '?', shortened)."""
     text = "".join(c if c.isprintable() else "?" for c in name)
     return text if len(text) <= limit else text[: limit - 1] + "…"
+
+
+def is_hidden_name(name: str) -> bool:
+    """True for a hidden name (``.DS_Store``, ``._r000001-….json``, ``.Trash``) that file managers
+    and shares leave beside files: never part of the hub layout, and passed over without a report.
+    ``.`` and ``..`` are not hidden names: an entry named so is reported like any odd entry."""
+    return name.startswith(".") and name not in (".", "..")
 
 
 def odd_entry(parts: tuple[str, ...], is_folder: bool) -> str | None:

@@ -19,7 +19,6 @@ import errno
 import functools
 import hashlib
 import os
-import uuid
 import xml.etree.ElementTree as ET
 from dataclasses import dataclass
 from email.utils import parsedate_to_datetime
@@ -30,7 +29,7 @@ from urllib.parse import quote, unquote, urlsplit
 from core.store.atomic import EXPORT_MODE, atomic_write_bytes, fsync_dir
 from sync import errors
 from sync.layout import (INCOMING, LOG, TRIPS, canonical_trip_id, device_key, incoming_name,
-                         is_incoming_name, name_matches, odd_entry, parse_revision_name, shown_name,
+                         is_hidden_name, is_incoming_name, name_matches, odd_entry, parse_revision_name, shown_name,
                          trip_dir)
 from sync.program import KINDS as PROGRAM_KINDS
 from sync.program import PROGRAM, is_program_name, program_dir
@@ -141,12 +140,13 @@ def _checked_read(f: RemoteFile, where: str, fetch, session: Session | None,  # 
 
 def _walk_report(root_rel: str, entries, skipped: list[str]) -> list[tuple[tuple[str, ...], int | None]]:  # noqa: ANN001
     """Sorts listing entries (relpath, is_folder, size) into revision files (parts, size) and
-    report lines for odd entries; what lies under an odd entry is skipped without a line."""
+    report lines for odd entries; what lies under an odd entry is skipped without a line, and
+    hidden names (`is_hidden_name`, what file managers leave) and what lies under them quietly."""
     files: list[tuple[tuple[str, ...], int | None]] = []
     odd_prefixes: list[tuple[str, ...]] = []
     for relpath, is_col, size in sorted(entries, key=lambda e: e[0]):
         parts = tuple(p for p in relpath.strip("/").split("/") if p)
-        if len(parts) < 2 or parts[0] != TRIPS:
+        if len(parts) < 2 or parts[0] != TRIPS or any(is_hidden_name(p) for p in parts):
             continue
         if any(parts[:len(o)] == o for o in odd_prefixes):
             continue
@@ -397,7 +397,7 @@ class FolderTarget:
         """Publishes one table file; False when the hub already held these bytes."""
         final_dir = self.root / program_dir(kind)
         final = final_dir / name
-        tmp = self.root / INCOMING / device_key(device_id) / f"{kind}.{uuid.uuid4().hex[:12]}.part"
+        tmp = self.root / incoming_name(device_id, kind)
         try:
             atomic_write_bytes(tmp, data, mode=EXPORT_MODE)
             final_dir.mkdir(parents=True, exist_ok=True)
@@ -595,22 +595,24 @@ class WebDavTarget:
         if f.size is not None and f.size > max_bytes:
             raise _too_big(rel, max_bytes)
 
-        def fetch() -> tuple[bytes, bool]:
-            resp = self.session.request("GET", self._u(rel), stream=True)
-            try:
-                if resp.status_code in (404, 410):
-                    raise errors.Gone(f"hub file {rel} was listed but is gone")
-                if resp.status_code != 200:
-                    raise errors.Rejected(f"the hub answered GET {rel} with {resp.status_code}",
-                                          resp.status_code)
-                data = self.session.read_body(resp, max_bytes, rel, too_big=lambda: _too_big(rel, max_bytes))
-                # read_body checked a Content-Length; a chunked body ends with its last chunk
-                framed = bool(resp.headers.get("Content-Length")) or \
-                    "chunked" in resp.headers.get("Transfer-Encoding", "").lower()
-                return data, framed
-            finally:
-                resp.close()
-        return _checked_read(f, rel, fetch, self.session)
+        return _checked_read(f, rel, functools.partial(self._fetch, rel, max_bytes), self.session)
+
+    def _fetch(self, rel: str, max_bytes: int) -> tuple[bytes, bool]:
+        """One GET of a listed hub file: (its bytes, whether the answer carried its length)."""
+        resp = self.session.request("GET", self._u(rel), stream=True)
+        try:
+            if resp.status_code in (404, 410):
+                raise errors.Gone(f"hub file {rel} was listed but is gone")
+            if resp.status_code != 200:
+                raise errors.Rejected(f"the hub answered GET {rel} with {resp.status_code}",
+                                      resp.status_code)
+            data = self.session.read_body(resp, max_bytes, rel, too_big=lambda: _too_big(rel, max_bytes))
+            # read_body checked a Content-Length; a chunked body ends with its last chunk
+            framed = bool(resp.headers.get("Content-Length")) or \
+                "chunked" in resp.headers.get("Transfer-Encoding", "").lower()
+            return data, framed
+        finally:
+            resp.close()
 
     def _get_bytes(self, rel: str, limit: int) -> bytes | None:
         def step() -> bytes | None:
@@ -739,7 +741,11 @@ class WebDavTarget:
         raise errors.Unreachable(f"hub file {final_rel} could not be confirmed after MOVE; will retry")
 
     def _put_temp(self, device_id: str, trip_id: str, data: bytes) -> tuple[str, str | None]:
-        tmp_rel = incoming_name(device_id, trip_id)   # a fresh name for every attempt
+        return self._put_upload(incoming_name(device_id, trip_id), device_id, data)
+
+    def _put_upload(self, tmp_rel: str, device_id: str, data: bytes) -> tuple[str, str | None]:
+        """PUTs `data` to the fresh upload name `tmp_rel` (under ``incoming/<device key>/``, made
+        when missing); returns the name and the ETag the hub gave."""
         for _ in range(2):
             resp = self.session.request("PUT", self._u(tmp_rel), body=data,
                                         headers={"Content-Type": "application/json",
@@ -795,22 +801,8 @@ class WebDavTarget:
 
     def read_program(self, kind: str, name: str, max_bytes: int) -> bytes:
         rel = program_dir(kind) + name
-
-        def fetch() -> tuple[bytes, bool]:
-            resp = self.session.request("GET", self._u(rel), stream=True)
-            try:
-                if resp.status_code in (404, 410):
-                    raise errors.Gone(f"hub file {rel} was listed but is gone")
-                if resp.status_code != 200:
-                    raise errors.Rejected(f"the hub answered GET {rel} with {resp.status_code}",
-                                          resp.status_code)
-                data = self.session.read_body(resp, max_bytes, rel, too_big=lambda: _too_big(rel, max_bytes))
-                framed = bool(resp.headers.get("Content-Length")) or \
-                    "chunked" in resp.headers.get("Transfer-Encoding", "").lower()
-                return data, framed
-            finally:
-                resp.close()
-        return _checked_read(RemoteFile("", kind, name), rel, fetch, self.session, program_name_matches)
+        return _checked_read(RemoteFile("", kind, name), rel, functools.partial(self._fetch, rel, max_bytes),
+                             self.session, program_name_matches)
 
     def write_program(self, kind: str, name: str, data: bytes, device_id: str) -> bool:
         """Publishes one table file; False when the hub already held these bytes."""
@@ -819,21 +811,7 @@ class WebDavTarget:
         self._mkcol(folder)
 
         def put() -> str:
-            tmp_rel = f"{INCOMING}/{device_key(device_id)}/{kind}.{uuid.uuid4().hex[:12]}.part"
-            for _ in range(2):
-                resp = self.session.request("PUT", self._u(tmp_rel), body=data,
-                                            headers={"Content-Type": "application/json",
-                                                     "If-None-Match": "*"})
-                resp.close()
-                if resp.status_code in (200, 201, 204):
-                    return tmp_rel
-                if resp.status_code == 409:
-                    self._made.discard(f"{INCOMING}/{device_key(device_id)}/")
-                    self._mkcol(f"{INCOMING}/{device_key(device_id)}/")
-                    continue
-                raise errors.Rejected(f"the hub refused an upload to {INCOMING}/ ({resp.status_code})",
-                                      resp.status_code)
-            raise errors.Rejected(f"the hub refused to create {INCOMING}/ for uploads")
+            return self._put_upload(incoming_name(device_id, kind), device_id, data)[0]
 
         def move(tmp_rel: str, overwrite: bool) -> int:
             resp = self.session.request("MOVE", self._u(tmp_rel),

@@ -208,11 +208,11 @@ def sign_handoff(trip: Trip, record_id: str, role: str, signature: Signature) ->
                                       " one of its hand-offs (see 'streamtab custody list')")
 
 
-def _cooling(bottle: Bottle):
+def _cooling(bottle: Bottle, stop_bottles: Iterable[Bottle]):
     from core.rules.lab import bottle_analysis
     from core.science.holding import HOLDING_TIMES
 
-    pair = bottle_analysis(bottle)
+    pair = bottle_analysis(bottle, stop_bottles)
     return None if pair is None else HOLDING_TIMES.get(pair[1])
 
 
@@ -265,7 +265,7 @@ def custody_chains(trip: Trip) -> list[BottleCustody]:
                               f"Bottle {b.label} has no receipt at the lab.",
                               "Record the lab's receipt with the temperature and condition on arrival.",
                               "custody"))
-        rule = _cooling(b)
+        rule = _cooling(b, stop.bottles)
         if receipt is not None and rule is not None and rule.cool_max_c is not None:
             if receipt.temp is None:
                 flags.append(Flag("custody.receipt_temp_missing", Severity.NOTE,

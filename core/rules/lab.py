@@ -40,7 +40,7 @@ __all__ = [
     "LabInputError", "Standardisation", "LabOutcome", "DuplicateCheck", "PendingBottle",
     "analyte_key", "current_result", "find_bottle", "record_winkler", "record_bod", "duplicate_checks",
     "pending_bottles", "relative_percent_difference", "WINKLER_KINDS", "BOD_KINDS", "bottle_analysis",
-    "bottle_clock", "add_batch", "batch_for", "batch_qc", "standardisation_of",
+    "bottle_clock", "bottle_holding_clock", "add_batch", "batch_for", "batch_qc", "standardisation_of",
 ]
 
 #: Analyte names written by this module; the sample scenario already writes these. Readers match
@@ -390,7 +390,6 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
     ----------
     Standard Methods 4500-O C (azide modification) [from memory]; US 40 CFR 136.3 Table II [from memory].
     """
-    from core.science.holding import holding_clock
     from core.science.winkler import original_sample_ml, thiosulfate_normality, winkler_do_mg_l
 
     settings = settings or LabSettings()
@@ -463,10 +462,9 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
                            f" before its collection ({bottle.collected_at.isoformat(timespec='minutes')}); the"
                            " holding time was counted from collection.",
                            "Correct the field record's times.", "fixed_at"))
-    clock = holding_clock("do_winkler", bottle.collected_at, analysed_at, fixed_at=fixed,
-                          overrides=settings.holding_overrides_h or None)
-    start = fixed if (clock.rule.clock_from == "fixing" and fixed is not None) else bottle.collected_at
-    from_fixing = start is not bottle.collected_at
+    clock = _clock_of(bottle, "do_winkler", analysed_at, settings.holding_overrides_h)
+    from_fixing = clock.clock_from == "fixing"
+    start = fixed if (from_fixing and fixed is not None) else bottle.collected_at
     held_h = (analysed_at - start).total_seconds() / 3600.0
     derived["holding"] = {"kind": "do_winkler", "from": "fixing" if from_fixing else "collection",
                           "held_h": held_h, "limit_h": clock.rule.hours, "deadline": clock.deadline.isoformat(),
@@ -586,7 +584,6 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
     Standard Methods 5210 B [from memory; blank and GGA limits from a summary of the 21st edition].
     """
     from core.science.bod import blank_check, bod_from_dilutions, gga_check, incubation_check, seed_uptake_per_ml
-    from core.science.holding import holding_clock
 
     settings = settings or LabSettings()
     stop, bottle, flags = _analysis_bottle(trip, bottle_ref, BOD_KINDS, "not a BOD sample",
@@ -871,9 +868,32 @@ def bottle_clock(b: Bottle, now: datetime, *, stop_bottles: Iterable[Bottle] = (
         result = current_result(b, CBOD_ANALYTE)     # the bottle went to CBOD5 instead: analysed
     if result is not None and result.valid is not False:
         return None
+    return _clock_of(b, kind, now, overrides)
+
+
+def bottle_holding_clock(b: Bottle, at: datetime, *, stop_bottles: Iterable[Bottle] = (),
+                         overrides: dict[str, float] | None = None) -> HoldingClock | None:
+    """A bottle's holding clock read at `at` whatever its results (None for a blank): the deadline
+    for a report or custody page, or whether a result analysed at `at` was in time.
+
+    Same analysis (duplicates follow `stop_bottles`) and same start as :func:`bottle_clock`.
+
+    Raises
+    ------
+    ValueError
+        `at` before collection, or a bad holding-time override
+        (see :func:`core.science.holding.holding_clock`).
+    """
+    pair = bottle_analysis(b, stop_bottles)
+    return None if pair is None else _clock_of(b, pair[1], at, overrides)
+
+
+def _clock_of(b: Bottle, kind: str, at: datetime, overrides: dict[str, float] | None) -> HoldingClock:
+    """The one place that says which times a bottle's clock is given: a fixing time only for a
+    Winkler bottle and only when it is at or after collection."""
     fixed = b.fixed_at if (kind == "do_winkler" and b.fixed_at is not None
                            and b.fixed_at >= b.collected_at) else None
-    return holding_clock(kind, b.collected_at, now, fixed_at=fixed, overrides=overrides or None)
+    return holding_clock(kind, b.collected_at, at, fixed_at=fixed, overrides=overrides or None)
 
 
 def duplicate_checks(trip: Trip, settings: LabSettings | None = None) -> list[DuplicateCheck]:

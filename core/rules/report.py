@@ -19,6 +19,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 from datetime import datetime
+from collections.abc import Iterable
 from typing import Any
 
 from core.records.models import Bottle, LabResult, ProgramSettings, Site, Stop, Trip
@@ -127,27 +128,26 @@ class ResultRow:
                 "superseded_by": self.superseded_by, "flags": list(self.flag_codes), "notes": self.notes}
 
 
-def _holding(bottle: Bottle, result: LabResult, settings: ProgramSettings | None) -> str:
-    from core.rules.lab import analyte_key, bottle_analysis
-    from core.science.holding import holding_clock
+def _holding(bottle: Bottle, result: LabResult, settings: ProgramSettings | None,
+             stop_bottles: Iterable[Bottle] = ()) -> str:
+    from core.rules.lab import analyte_key, bottle_analysis, bottle_holding_clock
 
     derived = (result.inputs or {}).get("derived") or {}
     hold = derived.get("holding")
     if isinstance(hold, dict) and isinstance(hold.get("held_h"), (int, float)) \
             and isinstance(hold.get("limit_h"), (int, float)):
         return "past holding time" if hold["held_h"] > hold["limit_h"] else "in time"
-    pair = bottle_analysis(bottle)
+    pair = bottle_analysis(bottle, stop_bottles)
     if pair is None or result.analysed_at is None or analyte_key(result.analyte) != analyte_key(pair[0]):
         return "not known"
     if pair[1] == "bod":
         return "not known"  # the set-up time decides, and it was not recorded with this result
-    fixed = bottle.fixed_at if bottle.fixed_at is not None and bottle.fixed_at >= bottle.collected_at else None
     try:
-        clock = holding_clock(pair[1], bottle.collected_at, result.analysed_at, fixed_at=fixed,
-                              overrides=(settings.holding_overrides_h or None) if settings else None)
+        clock = bottle_holding_clock(bottle, result.analysed_at, stop_bottles=stop_bottles,
+                                     overrides=settings.holding_overrides_h if settings else None)
     except ValueError:
         return "not known"
-    return "past holding time" if clock.expired else "in time"
+    return "not known" if clock is None else ("past holding time" if clock.expired else "in time")
 
 
 def _reported(result: LabResult, rounding: Rounding) -> tuple[float | None, str, str]:
@@ -188,7 +188,7 @@ def result_rows(trip: Trip, settings: ProgramSettings | None = None) -> list[Res
     for stop in sorted(trip.stops, key=lambda s: s.arrived_at):
         for b in stop.bottles:
             for r in b.lab_results:
-                holding = _holding(b, r, settings)
+                holding = _holding(b, r, settings, stop.bottles)
                 value, qualifier, text = _reported(r, rounding)
                 flags = [f.code for f in r.flags]
                 rows.append(ResultRow(stop.id, stop.site_id, b.id, b.label, b.kind, r.id, r.analyte, value,
@@ -277,24 +277,24 @@ class BottleRow:
 
 def bottle_rows(trip: Trip, settings: ProgramSettings | None = None) -> list[BottleRow]:
     from core.rules.custody import custody_chains
-    from core.rules.lab import bottle_analysis
-    from core.science.holding import HOLDING_TIMES, holding_clock
+    from core.rules.lab import bottle_analysis, bottle_holding_clock
+    from core.science.holding import HOLDING_TIMES
 
     out: list[BottleRow] = []
     for chain in custody_chains(trip):
         b = chain.bottle
-        pair = bottle_analysis(b)
+        pair = bottle_analysis(b, chain.stop.bottles)
         deadline, rule = None, "no holding time (blank)"
         if pair is not None:
-            fixed = b.fixed_at if (pair[1] == "do_winkler" and b.fixed_at is not None
-                                   and b.fixed_at >= b.collected_at) else None
             try:
-                clock = holding_clock(pair[1], b.collected_at, b.collected_at, fixed_at=fixed,
-                                      overrides=(settings.holding_overrides_h or None) if settings else None)
-                deadline = clock.deadline
-                rule = f"{clock.rule.hours:g} h from {'fixing' if fixed else 'collection'}"
+                clock = bottle_holding_clock(b, b.collected_at, stop_bottles=chain.stop.bottles,
+                                             overrides=settings.holding_overrides_h if settings else None)
             except ValueError:
                 rule = f"{HOLDING_TIMES[pair[1]].hours:g} h"
+            else:
+                if clock is not None:
+                    deadline = clock.deadline
+                    rule = f"{clock.rule.hours:g} h from {clock.clock_from}"
         out.append(BottleRow(chain.stop, b, deadline, rule, chain.status, chain.flags))
     return out
 

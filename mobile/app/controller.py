@@ -785,11 +785,52 @@ class AppController:
             return f"Not settled: {exc}."
         except StoreError as exc:
             return f"Not settled, nothing was saved: {exc}"
+        self._adopt_stored(saved)
+        return None
+
+    def _adopt_stored(self, stored: Any) -> None:
+        """UI thread: the form shows `stored` (the trip as just read or written), on the same stop."""
         stop_id = self.stop_id
-        self._saved[saved.id] = saved
-        self.trip = self.bridge.form_from_trip(saved)
-        self._base_form[saved.id] = copy.deepcopy(self.trip)
+        self._saved[stored.id] = stored
+        self.trip = self.bridge.form_from_trip(stored)
+        self._base_form[stored.id] = copy.deepcopy(self.trip)
         self.stop_id = stop_id if stop_id and self.trip.stop(stop_id) else None
+
+    def returned_reasons(self) -> str | None:
+        """Why the office returned the open trip (a sentence), or None when it is not returned."""
+        from core.rules.review import describe, review_state
+
+        saved = self._saved.get(self.trip.id) if self.trip is not None else None
+        if saved is None or review_state(saved) != "returned":
+            return None
+        return describe(saved)
+
+    def resubmit(self) -> str | None:
+        """Hands a trip the office returned back to it (a 'resubmitted' review step, after what was
+        typed is saved); returns why not in one sentence, or None when it is saved."""
+        from datetime import timezone
+
+        from core.records.models import ReviewEvent
+        from core.rules.review import ReviewRefused, new_event
+        from core.store import StoreError
+
+        if self.trip is None:
+            return "No trip is open."
+        self.flush()
+        by = self.settler()
+        at = self.now().astimezone(timezone.utc)
+
+        def apply(trip: Any) -> Any:
+            event = ReviewEvent.model_validate(new_event(trip, "resubmitted", by=by, at=at), strict=False)
+            return trip.model_copy(update={"review_events": [*trip.review_events, event]})
+
+        try:
+            saved = self.store.update_trip(self.trip.id, f"review: resubmitted by {by}", apply, by=by)
+        except ReviewRefused as exc:
+            return f"Not handed back: {exc}"
+        except StoreError as exc:
+            return f"Not handed back, nothing was saved: {exc}"
+        self._adopt_stored(saved)
         return None
 
     def conflicts_of(self, trip: Any) -> list[Any]:
@@ -871,9 +912,5 @@ class AppController:
         stored = self.store.load_trip(self.trip.id)
         if saved is not None and stored.revision == saved.revision:
             return False
-        stop_id = self.stop_id
-        self._saved[stored.id] = stored
-        self.trip = self.bridge.form_from_trip(stored)
-        self._base_form[stored.id] = copy.deepcopy(self.trip)
-        self.stop_id = stop_id if stop_id and self.trip.stop(stop_id) else None
+        self._adopt_stored(stored)
         return True

@@ -41,8 +41,14 @@ def _left(seconds: float) -> str:
     return f"{txt} left" if seconds >= 0 else f"expired {txt} ago"
 
 
+@dataclass(frozen=True)
+class _Signed:
+    trip: Any
+    name: str
+
+
 class LabBench:
-    """Bench work on the trips of a device store. Every write goes through ``store.save_trip``."""
+    """Bench work on the trips of a device store. Every write goes through ``store.update_trip``."""
 
     STD_ML = 20.0
     STD_N = 0.025
@@ -111,33 +117,45 @@ class LabBench:
         return f"Titrant {n:.4f} N ({s.titrant_ml:g} mL on 20 mL of 0.025 N bi-iodate), standardised {age} ago."
 
     # ---------------------------------------------------------------- writing
-    def _save(self, trip: Any, change: str) -> Any:
+    def _write(self, trip_id: str, record: Callable[[Any], Any], change: Callable[[Any], str]) -> Any:
+        """Read–modify–write of one trip through ``store.update_trip``: the field form's queued
+        saves go first, so the trip read is the latest and no other writer comes between.
+        `record(trip)` returns the lab outcome (its ``.trip`` is written); a LabInputError from it
+        becomes the ValueError the screen shows and nothing is written."""
+        from core.rules.lab import LabInputError
+        from core.store import StoreError
+
         self.before_write()
-        saved = self.store.save_trip(trip, change)
+        said: dict[str, Any] = {}
+
+        def apply(trip: Any) -> Any:
+            said["out"] = record(trip)
+            return said["out"].trip
+
+        try:
+            saved = self.store.update_trip(trip_id, lambda: change(said["out"]), apply)
+        except LabInputError as exc:
+            raise ValueError(exc.message) from None
+        except StoreError as exc:
+            raise ValueError(f"Not saved: {exc}") from None
         self.after_write(saved.id)
-        return saved
+        return said["out"]
 
     def winkler(self, trip_id: str, bottle_id: str, titrant_text: str, titrated_text: str,
                 analyst: str = "") -> str:
         """Records a titration with today's standardisation; returns the sentence the screen shows."""
-        from core.rules.lab import LabInputError, record_winkler
-        from core.store import StoreError
+        from core.rules.lab import record_winkler
 
         if self.standardisation is None:
             raise ValueError("Record today's thiosulfate standardisation first.")
         titrant = self._number(titrant_text, "Titrant used", 0.0, 100.0, "mL")
         titrated = self._number(titrated_text, "Volume titrated", 1.0, 300.0, "mL")
-        trip = self.store.load_trip(trip_id)
-        try:
-            out = record_winkler(trip, bottle_id, titrant_ml=titrant, titrated_ml=titrated,
-                                 standardisation=self.standardisation, analysed_at=self.now(), now=self.now(),
-                                 analyst=analyst)
-        except LabInputError as exc:
-            raise ValueError(exc.message) from None
-        try:
-            self._save(out.trip, f"lab: Winkler DO {out.result.value:.2f} mg/L on bottle {out.bottle.label} (bench)")
-        except StoreError as exc:
-            raise ValueError(f"Not saved: {exc}") from None
+        std, at = self.standardisation, self.now()
+        out = self._write(
+            trip_id,
+            lambda trip: record_winkler(trip, bottle_id, titrant_ml=titrant, titrated_ml=titrated,
+                                        standardisation=std, analysed_at=at, now=at, analyst=analyst),
+            lambda o: f"lab: Winkler DO {o.result.value:.2f} mg/L on bottle {o.bottle.label} (bench)")
         worst = [f for f in out.flags if f.severity.value != "note"]
         return (f"{out.bottle.label}: Winkler DO {out.result.value:.2f} mg/L saved."
                 + (f" {worst[0].message}" if worst else ""))
@@ -176,23 +194,19 @@ class LabBench:
         return lines, f"Reportable BOD5: {shown}", good
 
     def bod(self, trip_id: str, bottle_id: str, rows: list[tuple[str, str, str, str]], analyst: str = "") -> str:
-        from core.rules.lab import LabInputError, batch_for, find_bottle, record_bod, reported_bod
-        from core.store import StoreError
+        from core.rules.lab import batch_for, find_bottle, record_bod, reported_bod
 
         _, _, good = self.bod_lines(rows)
         if not good:
             raise ValueError("Type at least one dilution (sample mL, initial DO and day-5 DO).")
-        trip = self.store.load_trip(trip_id)
-        try:
+        at = self.now()
+
+        def record(trip: Any) -> Any:
             _, bottle, _ = find_bottle(trip, bottle_id)
-            out = record_bod(trip, bottle_id, dilutions=good, analysed_at=self.now(), now=self.now(),
-                             analyst=analyst, batch=batch_for(trip, bottle))
-        except LabInputError as exc:
-            raise ValueError(exc.message) from None
-        try:
-            self._save(out.trip, f"lab: BOD5 on bottle {out.bottle.label} (bench)")
-        except StoreError as exc:
-            raise ValueError(f"Not saved: {exc}") from None
+            return record_bod(trip, bottle_id, dilutions=good, analysed_at=at, now=at,
+                              analyst=analyst, batch=batch_for(trip, bottle))
+
+        out = self._write(trip_id, record, lambda o: f"lab: BOD5 on bottle {o.bottle.label} (bench)")
         rep = reported_bod(out.result)
         shown = rep.text if rep is not None else (
             "no valid dilution" if out.result.value is None else f"{out.result.value:.1f} mg/L")
@@ -215,24 +229,23 @@ class LabBench:
              aspect: float) -> str:
         from core.records.models import Signature
         from core.rules.custody import CustodyInputError, sign_handoff
-        from core.store import StoreError
 
         pts = sum(len(s) for s in strokes)
         if pts < 5:
             raise ValueError("Sign in the box with a finger first.")
-        trip = self.store.load_trip(trip_id)
-        rec = next((r for r in trip.custody if r.id == record_id), None)
-        if rec is None:
-            raise ValueError("That hand-off is no longer on the trip; go back and pick it again.")
-        name = rec.relinquished_by if role == "relinquished" else rec.received_by
         clean = [[[round(min(max(x, 0.0), 1.0), 4), round(min(max(y, 0.0), 1.0), 4)] for x, y in s] for s in strokes]
-        try:
-            sig = Signature(name=name, signed_at=self.now(), aspect=aspect, strokes=clean)
-            new = sign_handoff(trip, record_id, role, sig)
-        except (CustodyInputError, ValueError) as exc:
-            raise ValueError(str(exc).splitlines()[0]) from None
-        try:
-            self._save(new, f"custody: {name} signed ({role} by) on the tablet")
-        except StoreError as exc:
-            raise ValueError(f"Not saved: {exc}") from None
-        return f"{name}'s signature is saved with the hand-off."
+        at = self.now()
+
+        def record(trip: Any) -> Any:
+            rec = next((r for r in trip.custody if r.id == record_id), None)
+            if rec is None:
+                raise ValueError("That hand-off is no longer on the trip; go back and pick it again.")
+            name = rec.relinquished_by if role == "relinquished" else rec.received_by
+            try:
+                sig = Signature(name=name, signed_at=at, aspect=aspect, strokes=clean)
+                return _Signed(sign_handoff(trip, record_id, role, sig), name)
+            except (CustodyInputError, ValueError) as exc:
+                raise ValueError(str(exc).splitlines()[0]) from None
+
+        out = self._write(trip_id, record, lambda o: f"custody: {o.name} signed ({role} by) on the tablet")
+        return f"{out.name}'s signature is saved with the hand-off."

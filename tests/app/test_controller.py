@@ -402,3 +402,28 @@ def test_a_save_after_another_writer_keeps_both_changes(tmp_path, monkeypatch, r
     c.save_now(wait=True)                                  # and the next save changes nothing
     assert store.load_trip(trip_id).revision == saved.revision
     c.worker.flush()
+
+
+def test_a_returned_trip_is_handed_back_from_the_tablet(tmp_path):
+    from core.records.exchange import import_trip_file
+    from core.records.models import ReviewEvent
+    from core.rules.review import new_event, review_state
+    from tests.app.conftest import ROOT
+
+    seed_sites(tmp_path / "data")
+    store = DeviceStore.open(tmp_path / "data")
+    import_trip_file(store, ROOT / "sample_trips" / "trip-2026-06-23-hot-afternoon.json")
+    trip = store.load_trip("a41f6e2d-8c3b-4d7a-b5e9-0c6d2f8e1a34")      # sample trip of 2026-06-23 (invented)
+    ev = new_event(trip, "returned", by="D.M.", at=datetime.now(timezone.utc), reasons=["LK-03 temperature missing"])
+    store.save_trip(trip.model_copy(update={"review_events": [*trip.review_events,
+                                                               ReviewEvent.model_validate(ev, strict=False)]}),
+                    "office returned it")
+    c = AppController(store)
+    c.open_trip(trip.id)
+    assert "LK-03 temperature missing" in c.returned_reasons()
+    assert c.resubmit() is None
+    stored = store.load_trip(trip.id)
+    assert review_state(stored) == "ended" and stored.review_events[-1].action == "resubmitted"
+    assert c.returned_reasons() is None
+    assert "cannot resubmit" in c.resubmit()          # only a returned trip can be handed back
+    c.worker.flush()

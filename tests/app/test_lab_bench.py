@@ -65,3 +65,21 @@ def test_sign_needs_strokes_and_names_the_side(bench):
     stroke = [[0.1 + i / 50, 0.5] for i in range(20)]
     assert "R.O." in bench.sign(HOT, rec, role, [stroke], 3.0)
     assert [s[1] for s in bench.unsigned(HOT)] == ["received"]
+
+
+def test_a_queued_field_save_before_the_bench_write_does_not_refuse_the_result(bench):
+    # The field form's queued save of the same trip lands when the bench writes (before_write):
+    # the bench reads the trip after it, so the result is saved and the field edit is kept too.
+    store = bench.store
+
+    def field_save():
+        trip = store.load_trip(HOT)
+        store.save_trip(trip.model_copy(update={"crew": [*trip.crew, "Z.Q."]}), "field edit queued")
+
+    bench.before_write = field_save
+    bench.set_standardisation("20")
+    w = next(r for r in bench.waiting() if r.analysis == "Winkler DO")
+    assert "saved" in bench.winkler(w.trip_id, w.bottle_id, "9.0", f"{200 * 300 / 298:.4f}")
+    stored = store.load_trip(HOT)
+    assert "Z.Q." in stored.crew
+    assert not [r for r in bench.waiting() if r.bottle_id == w.bottle_id]

@@ -187,3 +187,25 @@ def test_cli_refuses_a_bad_hand_off_in_one_line_and_saves_nothing(data, args, wo
     before = ok_json(custody("list", LOWER[:8], "--json", data_dir=data))
     one_line_error(custody("add", LOWER[:8], *args, data_dir=data), *words)
     assert ok_json(custody("list", LOWER[:8], "--json", data_dir=data)) == before
+
+
+def test_a_duplicate_follows_the_bottle_it_names_on_the_custody_page():
+    """An unfixed duplicate of a Winkler bottle keeps the Winkler rules (8 h from collection, no
+    cooling limit), not the BOD ones its missing fixing time alone would suggest."""
+    from core.rules.report import bottle_rows
+
+    t = _trip()
+    stop = t.stops[0]
+    dup = Bottle(label="TV-0904", kind="duplicate", duplicate_of="TV-0901", collected_at=T0 + timedelta(minutes=21))
+    t = t.model_copy(update={"stops": [stop.model_copy(update={"bottles": [*stop.bottles, dup]})]})
+    t = _hand(t, "R.O.", "Lab desk", 90, at_lab=True, temp=measure("temp", "11 C"))
+    # 40 CFR 136.3 Table II (from memory): Winkler DO fixed on site, no cooling limit; BOD ≤ 6 °C.
+    assert "custody.receipt_warm" in _codes(t, "TV-0902")
+    assert not _codes(t, "TV-0904") & {"custody.receipt_warm", "custody.receipt_frozen"}
+    rows = {r.bottle.label: r for r in bottle_rows(t)}
+    # 40 CFR 136.3 Table II (from memory): Winkler DO 8 h, BOD 48 h, both counted from collection.
+    assert rows["TV-0904"].deadline == dup.collected_at + timedelta(hours=8)
+    assert rows["TV-0904"].holding_rule == "8 h from collection"
+    assert rows["TV-0901"].holding_rule == "8 h from collection"   # fixed on site; the clock runs from collection
+    assert rows["TV-0902"].holding_rule == "48 h from collection"
+    assert rows["TV-0903"].deadline is None

@@ -115,7 +115,9 @@ def plant_uploads(incoming_root, own: str, other: str, trip_id: str):
     files = {
         "own old": mine / f"{trip_id}.aaaaaaaaaaaa.part",
         "own fresh": mine / f"{trip_id}.bbbbbbbbbbbb.part",
+        "own old table upload": mine / "sites.dddddddddddd.part",
         "own old, not an upload name": mine / "keep-me.txt",
+        "other device old table upload": theirs / "settings.eeeeeeeeeeee.part",
         "other device old": theirs / f"{trip_id}.cccccccccccc.part",
     }
     for label, path in files.items():
@@ -139,8 +141,9 @@ def test_a_pushing_device_removes_only_its_own_stale_uploads(dav, device_a, tmp_
     report = sync.push(device_a, url, session=session)
     assert report.pushed == 1
     assert not files["own old"].exists()
+    assert not files["own old table upload"].exists()
     assert files["own fresh"].exists() and files["own old, not an upload name"].exists()
-    assert files["other device old"].exists()
+    assert files["other device old"].exists() and files["other device old table upload"].exists()
     # at most once a day: a second stale upload waits for tomorrow's push
     again = files["own old"]
     again.write_bytes(b"cut again")

@@ -224,3 +224,20 @@ def test_folder_hub_odd_items_are_reported_and_the_good_trip_arrives(device_a, t
     assert by_trip[DEEP_ID].result == "quarantined" and "nested" in by_trip[DEEP_ID].message
     assert "gone" in by_trip[GHOST_ID].message
     assert {s.id for s in office.list_trips()} == {good.id}
+
+
+def test_hidden_files_a_file_manager_leaves_in_a_folder_hub_are_passed_over_quietly(device_a, tmp_path):
+    hub = tmp_path / "hub"
+    hub.mkdir()
+    good = new_trip(device_a)
+    assert sync.push(device_a, str(hub)).pushed == 1
+    trip_dir = next((hub / "trips").glob("*/*"))
+    for hidden in (hub / "trips" / ".DS_Store", trip_dir.parent / ".DS_Store", trip_dir / ".DS_Store",
+                   trip_dir / ("._" + next(trip_dir.iterdir()).name)):
+        hidden.write_bytes(b"\x00\x05\x16\x07 file manager notes")
+    (hub / "trips" / ".Trash" / "2026").mkdir(parents=True)
+    (hub / "trips" / "README.txt").write_text("office notes")        # not hidden: still reported
+    office = open_store(tmp_path / "office", "office-desk")
+    report = sync.pull(office, str(hub))
+    assert {t.trip_id: t.result for t in report.per_trip} == {good.id: "pulled"}
+    assert report.skipped == ["trips/README.txt skipped: not a year folder (four digits or 'undated')"]

@@ -2,7 +2,7 @@
 from __future__ import annotations
 
 from kivy.factory import Factory
-from kivy.properties import BooleanProperty, ObjectProperty
+from kivy.properties import BooleanProperty, ObjectProperty, StringProperty
 
 from mobile.app.screens import calibration  # noqa: F401 - the CalPanel its kv rule uses
 from mobile.app.screens import conflicts  # noqa: F401 - the ConflictPanel its kv rule uses
@@ -16,6 +16,7 @@ class EndScreen(BaseScreen):
     conflict_panel = ObjectProperty(None)
     rows_box = ObjectProperty(None)
     ended = BooleanProperty(False)
+    returned_text = StringProperty("")     # why the office returned the trip; empty when it has not
 
     def on_pre_enter(self, *_):
         c = ctl()
@@ -24,6 +25,7 @@ class EndScreen(BaseScreen):
         self.cal_panel.load(c.trip.post_check)
         self.ended = bool(c.trip.ended_at)
         self.message = ""
+        self._show_returned()
         self.refresh()
 
     def on_enter(self, *_):
@@ -50,4 +52,17 @@ class EndScreen(BaseScreen):
             return
         self.ended = True
         self.message = "✓ Trip ended and saved. Send it to the hub from the sync screen."
+        self.refresh()
+
+    def _show_returned(self):
+        why = ctl().returned_reasons()
+        self.returned_text = f"This trip was {why}." if why else ""
+
+    def resubmit(self):
+        refusal = ctl().resubmit()
+        if refusal:
+            self.message = "■ " + refusal
+            return
+        self._show_returned()
+        self.message = "✓ Handed back to the office and saved. Send it to the hub from the sync screen."
         self.refresh()

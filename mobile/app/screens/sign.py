@@ -22,7 +22,7 @@ class SignaturePad(Widget):
     points = NumericProperty(0)
 
     def on_touch_down(self, touch):
-        if not self.collide_point(*touch.pos):
+        if self.disabled or not self.collide_point(*touch.pos):
             return super().on_touch_down(touch)
         touch.grab(self)
         with self.canvas:
@@ -70,19 +70,21 @@ class SignScreen(BaseScreen):
         self.next_side()
 
     def next_side(self):
+        """The next side still to sign: on the trip in hand first, then on any other trip here."""
         c = ctl()
-        trip_id = c.trip.id if c.trip is not None else (c.open_trip_id() or "")
-        if not trip_id:
-            ids = [s.id for s in c.store.list_trips()]
-            trip_id = ids[0] if ids else ""
-        self.trip_id = trip_id
-        sides = App.get_running_app().bench.unsigned(trip_id) if trip_id else []
-        if not sides:
-            self.record_id, self.role = "", ""
-            self.who = "Every hand-off of this trip is signed (or none is recorded)."
-            return
-        self.record_id, self.role, self.who = sides[0]
-        self.ids.pad.clear()
+        first = c.trip.id if c.trip is not None else (c.open_trip_id() or "")
+        ids = [first] if first else []
+        ids += [t.id for t in c.store.list_trips() if t.id != first]
+        bench = App.get_running_app().bench
+        for trip_id in ids:
+            sides = bench.unsigned(trip_id)
+            if sides:
+                self.trip_id = trip_id
+                self.record_id, self.role, self.who = sides[0]
+                self.ids.pad.clear()
+                return
+        self.trip_id, self.record_id, self.role = "", "", ""
+        self.who = "Nothing to sign: every hand-off on this tablet is signed, or none is recorded yet."
 
     def save(self):
         if not self.record_id:
