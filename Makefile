@@ -33,12 +33,11 @@ test: sysdeps-test $(STAMP)
 	@if [ -z "$$DISPLAY" ]; then $(XVFB) $(BIN)/python -m pytest $(PYTEST_ARGS); \
 	else $(BIN)/python -m pytest $(PYTEST_ARGS); fi
 
-# Lint (ruff), types (mypy on core and sync) and the import layers (import-linter, contracts in
-# pyproject.toml). The format check (`ruff format --check`) is NOT enforced yet: it is switched on by
-# one tree-wide `ruff format` commit once the parallel work on the tree has landed, so that the
-# reformat conflicts with nobody. Until then `make format-report` shows what it would change.
+# Lint and format (ruff), types (mypy on core and sync) and the import layers (import-linter, contracts
+# in pyproject.toml). `make format-report` shows what `ruff format` would change without changing it.
 check: $(STAMP)
 	$(BIN)/ruff check .
+	$(BIN)/ruff format --check .
 	$(BIN)/mypy
 	$(BIN)/lint-imports
 

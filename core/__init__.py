@@ -1,4 +1,5 @@
 """streamtab core: the domain — science, records, QC rules and the device store (no UI, no network)."""
+
 from __future__ import annotations
 
 import functools

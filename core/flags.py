@@ -1,4 +1,5 @@
 """QC flags: a code, a severity, a message and the action a technician can take."""
+
 from __future__ import annotations
 
 from dataclasses import asdict, dataclass

@@ -20,6 +20,7 @@ as before the log existed. So a lost or damaged entry costs one walk, never a tr
 The device's own record (what it has seen, its next number, files not yet logged) is
 ``<data dir>/sync/<hub key>/changelog.json``, written atomically; losing it costs one walk.
 """
+
 from __future__ import annotations
 
 import hashlib
@@ -35,8 +36,19 @@ from core.store.atomic import atomic_write_bytes, canonical_json_bytes
 from sync import errors
 from sync.layout import HASH_HEX, LOG, canonical_trip_id, parse_revision_name
 
-__all__ = ["LOG", "entry_name", "entry_bytes", "parse_entry", "LogState", "Changes", "read_changes",
-           "snapshot", "append", "REWALK_AFTER_S", "FOLDER_SETTLE_S"]
+__all__ = [
+    "LOG",
+    "entry_name",
+    "entry_bytes",
+    "parse_entry",
+    "LogState",
+    "Changes",
+    "read_changes",
+    "snapshot",
+    "append",
+    "REWALK_AFTER_S",
+    "FOLDER_SETTLE_S",
+]
 
 log = logging.getLogger("streamtab.sync")
 
@@ -91,8 +103,8 @@ def parse_entry(device: str, name: str, data: bytes) -> list[tuple[str, str, str
 @dataclass
 class DeviceSeen:
     seen: list[str] = field(default_factory=list)
-    stamp: float | None = None        # the folder's modification time when last listed
-    listed_at: float | None = None    # when it was listed (server clock)
+    stamp: float | None = None  # the folder's modification time when last listed
+    listed_at: float | None = None  # when it was listed (server clock)
 
 
 @dataclass
@@ -101,7 +113,7 @@ class LogState:
     own_seq: int | None = None
     pending: list[str] = field(default_factory=list)
     devices: dict[str, DeviceSeen] = field(default_factory=dict)
-    walked_at: float | None = None    # time.time() of the last full listing on this device
+    walked_at: float | None = None  # time.time() of the last full listing on this device
 
     @classmethod
     def load(cls, folder: Path) -> LogState:
@@ -112,16 +124,23 @@ class LogState:
             state.own_seq = raw.get("own_seq")
             state.pending = list(raw.get("pending") or [])
             state.walked_at = raw.get("walked_at")
-            state.devices = {k: DeviceSeen(list(v.get("seen") or []), v.get("stamp"), v.get("listed_at"))
-                             for k, v in (raw.get("devices") or {}).items()}
+            state.devices = {
+                k: DeviceSeen(list(v.get("seen") or []), v.get("stamp"), v.get("listed_at"))
+                for k, v in (raw.get("devices") or {}).items()
+            }
         except (OSError, ValueError, AttributeError, TypeError):
-            pass          # missing or damaged: the next pull walks and rebuilds it
+            pass  # missing or damaged: the next pull walks and rebuilds it
         return state
 
     def save(self) -> None:
-        doc = {"own_seq": self.own_seq, "pending": self.pending, "walked_at": self.walked_at,
-               "devices": {k: {"seen": v.seen, "stamp": v.stamp, "listed_at": v.listed_at}
-                           for k, v in sorted(self.devices.items())}}
+        doc = {
+            "own_seq": self.own_seq,
+            "pending": self.pending,
+            "walked_at": self.walked_at,
+            "devices": {
+                k: {"seen": v.seen, "stamp": v.stamp, "listed_at": v.listed_at} for k, v in sorted(self.devices.items())
+            },
+        }
         atomic_write_bytes(self.path, canonical_json_bytes(doc), durable=False)
 
 
@@ -130,7 +149,7 @@ class LogState:
 class Changes:
     """What the log says changed: revision files by trip, and what to record once they are in."""
 
-    files: dict[str, list[tuple[str, str]]] = field(default_factory=dict)   # trip -> [(year, name)]
+    files: dict[str, list[tuple[str, str]]] = field(default_factory=dict)  # trip -> [(year, name)]
     by_entry: list[tuple[str, str, set[str]]] = field(default_factory=list)  # (device, entry, trips)
     listings: dict[str, DeviceSeen] = field(default_factory=dict)
 
@@ -140,8 +159,7 @@ class Changes:
         for dev, listing in self.listings.items():
             left = {name for d, name, trips in self.by_entry if d == dev and trips & failed_trips}
             seen = [n for n in listing.seen if n not in left]
-            state.devices[dev] = DeviceSeen(seen, None if left else listing.stamp,
-                                            None if left else listing.listed_at)
+            state.devices[dev] = DeviceSeen(seen, None if left else listing.stamp, None if left else listing.listed_at)
 
 
 def _needs_listing(known: DeviceSeen | None, stamp: float | None) -> bool:
@@ -150,15 +168,14 @@ def _needs_listing(known: DeviceSeen | None, stamp: float | None) -> bool:
     return known.stamp != stamp or known.listed_at - stamp < FOLDER_SETTLE_S
 
 
-def read_changes(tgt: Any, state: LogState, own: str, max_bytes: int, *,
-                 now: float | None = None) -> Changes | None:
+def read_changes(tgt: Any, state: LogState, own: str, max_bytes: int, *, now: float | None = None) -> Changes | None:
     """The changes the log holds that this device has not seen, or None when the pull must walk."""
     now = time.time() if now is None else now
     if state.walked_at is None or now - state.walked_at > REWALK_AFTER_S:
         return None
     folders = tgt.log_folders()
     if folders is None:
-        return None                       # a hub without a log (older builds only)
+        return None  # a hub without a log (older builds only)
     out = Changes()
     for dev, stamp in sorted(folders.items()):
         if dev == own or not _DEVICE_RE.match(dev):
@@ -168,8 +185,9 @@ def read_changes(tgt: Any, state: LogState, own: str, max_bytes: int, *,
             continue
         names, listed_at = tgt.log_list(dev)
         seen = set(known.seen) if known else set()
-        new: list[tuple[int, str]] = sorted((seq, n) for n in names if n not in seen
-                                            and (seq := parse_name(n)) is not None)
+        new: list[tuple[int, str]] = sorted(
+            (seq, n) for n in names if n not in seen and (seq := parse_name(n)) is not None
+        )
         top = max((parse_name(n) or 0 for n in seen), default=0)
         want = set(range(top + 1, max((s for s, _ in new), default=top) + 1))
         if not want <= {s for s, _ in new}:
@@ -180,8 +198,13 @@ def read_changes(tgt: Any, state: LogState, own: str, max_bytes: int, *,
         for _, name in new:
             try:
                 files = parse_entry(dev, name, tgt.log_read(dev, name, max_bytes))
-            except (ValueError, UnicodeDecodeError, errors.IntegrityError, errors.BadHubDocument,
-                    errors.Rejected) as exc:
+            except (
+                ValueError,
+                UnicodeDecodeError,
+                errors.IntegrityError,
+                errors.BadHubDocument,
+                errors.Rejected,
+            ) as exc:
                 log.warning("pull: log entry %s/%s unusable (%s); listing the whole hub", dev, name, exc)
                 return None
             trips = set()
@@ -189,8 +212,7 @@ def read_changes(tgt: Any, state: LogState, own: str, max_bytes: int, *,
                 out.files.setdefault(tid, []).append((year, fname))
                 trips.add(tid)
             out.by_entry.append((dev, name, trips))
-        out.listings[dev] = DeviceSeen(sorted(seen | {n for n in names if parse_name(n) is not None}),
-                                       stamp, listed_at)
+        out.listings[dev] = DeviceSeen(sorted(seen | {n for n in names if parse_name(n) is not None}), stamp, listed_at)
     return out
 
 
@@ -213,7 +235,7 @@ def append(tgt: Any, state: LogState, own: str, files: list[str], device_id: str
     state.pending = sorted(set(state.pending) | set(files))
     if not state.pending:
         return None
-    state.save()                           # a crash from here on logs these files next time
+    state.save()  # a crash from here on logs these files next time
     try:
         if state.own_seq is None:
             names, _ = tgt.log_list(own)

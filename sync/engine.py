@@ -7,6 +7,7 @@ brings in every revision at the hub this device has not seen, merging it with th
 ``device_id``, ``list_trips()``, ``trip_document(id)`` and ``merge_document(doc, change, base=)``
 (the store re-reads the trip under its lock and merges again if another writer saved meanwhile).
 """
+
 from __future__ import annotations
 
 import hashlib
@@ -14,27 +15,45 @@ import json
 import logging
 import threading
 import time
+from collections.abc import Callable, Iterable
 from dataclasses import asdict, dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
-from collections.abc import Callable, Iterable
 
 from core.records.limits import LimitError, loads_limited
+from core.records.merge import describe_conflict
 from core.store.atomic import atomic_write_bytes, canonical_json_bytes
 from core.store.quarantine import quarantine
 from sync import changelog, errors, program
 from sync.layout import canonical_trip_id, device_key, revision_name, trip_year
-from core.records.merge import describe_conflict
 from sync.outbox import Outbox, OutboxEntry, hubs
-from sync.reconcile import (BOOKKEEPING_KEYS, contained_names, fold, lacks_ancestor, newest_contained,
-                            next_head, same_content)
 from sync.plan import Action, LocalEntry, RemoteEntry, plan, plan_pull
+from sync.reconcile import (
+    BOOKKEEPING_KEYS,
+    contained_names,
+    fold,
+    lacks_ancestor,
+    newest_contained,
+    next_head,
+    same_content,
+)
 from sync.session import Session, ca_file_from_environment, load_credentials
 from sync.targets import RemoteFile, Target, WebDavTarget, open_target
 
-__all__ = ["push", "pull", "status", "run_in_background", "PushReport", "PullReport", "TripResult",
-           "TripSyncState", "HubState", "Progress", "BOOKKEEPING_KEYS"]
+__all__ = [
+    "push",
+    "pull",
+    "status",
+    "run_in_background",
+    "PushReport",
+    "PullReport",
+    "TripResult",
+    "TripSyncState",
+    "HubState",
+    "Progress",
+    "BOOKKEEPING_KEYS",
+]
 
 log = logging.getLogger("streamtab.sync")
 
@@ -54,8 +73,8 @@ class TripResult:
     result: str
     message: str = ""
     revision: int | None = None
-    conflicts: list[str] = field(default_factory=list)   # readable lines, one per field
-    retry: bool = False      # True: not at the hub yet; the next sync tries again
+    conflicts: list[str] = field(default_factory=list)  # readable lines, one per field
+    retry: bool = False  # True: not at the hub yet; the next sync tries again
 
 
 @dataclass
@@ -75,9 +94,15 @@ class PushReport:
         return not any(t.retry for t in self.per_trip)
 
     def to_dict(self) -> dict[str, Any]:
-        return {"pushed": self.pushed, "unchanged": self.unchanged, "conflicts": self.conflicts,
-                "failed": self.failed, "target": self.target,
-                "per_trip": [asdict(t) for t in self.per_trip], "program": list(self.program)}
+        return {
+            "pushed": self.pushed,
+            "unchanged": self.unchanged,
+            "conflicts": self.conflicts,
+            "failed": self.failed,
+            "target": self.target,
+            "per_trip": [asdict(t) for t in self.per_trip],
+            "program": list(self.program),
+        }
 
 
 @dataclass
@@ -89,8 +114,8 @@ class PullReport:
     unchanged: int = 0
     failed: int = 0
     source: str = ""
-    skipped: list[str] = field(default_factory=list)   # hub entries that do not fit the layout
-    listed: str = "walk"   # "log": only trips named by new change log entries; "walk": the whole hub
+    skipped: list[str] = field(default_factory=list)  # hub entries that do not fit the layout
+    listed: str = "walk"  # "log": only trips named by new change log entries; "walk": the whole hub
     #: readable lines about the site list and the program settings brought from the hub
     program: list[str] = field(default_factory=list)
 
@@ -99,17 +124,25 @@ class PullReport:
         return not any(t.retry for t in self.per_trip)
 
     def to_dict(self) -> dict[str, Any]:
-        return {"pulled": self.pulled, "merged": self.merged, "quarantined": self.quarantined,
-                "unchanged": self.unchanged, "failed": self.failed, "source": self.source,
-                "skipped": list(self.skipped), "listed": self.listed, "per_trip": [asdict(t) for t in self.per_trip],
-                "program": list(self.program)}
+        return {
+            "pulled": self.pulled,
+            "merged": self.merged,
+            "quarantined": self.quarantined,
+            "unchanged": self.unchanged,
+            "failed": self.failed,
+            "source": self.source,
+            "skipped": list(self.skipped),
+            "listed": self.listed,
+            "per_trip": [asdict(t) for t in self.per_trip],
+            "program": list(self.program),
+        }
 
 
 @dataclass
 class HubState:
     hub: str
     pushed_revision: int | None
-    state: str            # "synced" | "changed" | "never pushed"
+    state: str  # "synced" | "changed" | "never pushed"
     pushed_at: str | None = None
 
 
@@ -118,7 +151,7 @@ class TripSyncState:
     trip_id: str
     revision: int
     content_hash: str
-    state: str            # "synced" (every hub has this revision), "changed", "never pushed"
+    state: str  # "synced" (every hub has this revision), "changed", "never pushed"
     needs_attention: bool = False
     conflicts: list[str] = field(default_factory=list)
     hubs: list[HubState] = field(default_factory=list)
@@ -153,9 +186,7 @@ def _summaries(store: Any) -> dict[str, tuple[int, str]]:
 def _session_for(store: Any, address: str, session: Session | None) -> Session:
     if session is None:
         ca = ca_file_from_environment()
-        session = Session(store.device_id,
-                          credentials=load_credentials(address, data_dir=store.data_dir),
-                          ca_file=ca)
+        session = Session(store.device_id, credentials=load_credentials(address, data_dir=store.data_dir), ca_file=ca)
     if session.device_id is None:
         session.device_id = str(store.device_id)
     return session
@@ -185,22 +216,30 @@ def _parse_hub_doc(f: RemoteFile, data: bytes) -> dict:
         raise errors.BadHubDocument(f"hub file {f.name} of trip {f.trip_id} is not a JSON object")
     if str(doc.get("id")) != f.trip_id:
         raise errors.BadHubDocument(
-            f"hub file {f.name} sits in the folder of trip {f.trip_id} but carries id {doc.get('id')!r}")
+            f"hub file {f.name} sits in the folder of trip {f.trip_id} but carries id {doc.get('id')!r}"
+        )
     rev = doc.get("revision")
     if not isinstance(rev, int) or isinstance(rev, bool) or rev != f.revision:
-        raise errors.BadHubDocument(
-            f"hub file {f.name} carries revision {rev!r}, not the {f.revision} its name says")
+        raise errors.BadHubDocument(f"hub file {f.name} carries revision {rev!r}, not the {f.revision} its name says")
     return doc
 
 
-def _extra_ancestors(tgt: Target, session: Session, year: str, tid: str, local: dict,
-                     docs: list[dict], candidates: list[dict], seen_names: list[str]) -> list[dict]:
+def _extra_ancestors(
+    tgt: Target,
+    session: Session,
+    year: str,
+    tid: str,
+    local: dict,
+    docs: list[dict],
+    candidates: list[dict],
+    seen_names: list[str],
+) -> list[dict]:
     """Hub files already seen, read back only when no known document is a common ancestor of
     the device copy and a diverged hub document (then the merge would be two-way)."""
     extra: list[dict] = []
     if not lacks_ancestor(local, docs, candidates):
         return extra
-    for name in sorted(seen_names, reverse=True)[:8]:      # newest first, bounded
+    for name in sorted(seen_names, reverse=True)[:8]:  # newest first, bounded
         f = RemoteFile(tid, year, name)
         try:
             extra.append(_parse_hub_doc(f, tgt.read(f, session.max_document_bytes)))
@@ -214,11 +253,19 @@ def _extra_ancestors(tgt: Target, session: Session, year: str, tid: str, local: 
 def _quarantine(data_dir: Path, f: RemoteFile, data: bytes | None, reason: str) -> Path:
     """A copy of a bad hub file and a report beside it. Bad files are re-checked at every sync
     (never blacklisted), so the copy has one name per hub file and is refreshed, not multiplied."""
-    report = (f"hub file: trips/{f.year}/{f.trip_id}/{f.name}\nfound: {_now()}\nreason: {reason}\n"
-              + ("" if data is not None else "content: not copied (refused before or while reading)\n")
-              + "re-checked at every sync until the hub copy is repaired or removed by the office\n")
-    return quarantine(Path(data_dir) / "sync" / "quarantine", f"{f.trip_id}-{f.name}", report, data=data,
-                      note_suffix=".report.txt", refresh=True)
+    report = (
+        f"hub file: trips/{f.year}/{f.trip_id}/{f.name}\nfound: {_now()}\nreason: {reason}\n"
+        + ("" if data is not None else "content: not copied (refused before or while reading)\n")
+        + "re-checked at every sync until the hub copy is repaired or removed by the office\n"
+    )
+    return quarantine(
+        Path(data_dir) / "sync" / "quarantine",
+        f"{f.trip_id}-{f.name}",
+        report,
+        data=data,
+        note_suffix=".report.txt",
+        refresh=True,
+    )
 
 
 def _local_failure(exc: BaseException, data_dir: Path) -> errors.LocalWriteError:
@@ -254,8 +301,9 @@ def _same_bytes(a: dict | None, b: dict | None) -> bool:
     return canonical_json_bytes(a) == canonical_json_bytes(b)
 
 
-def _write(store: Any, tid: str, based_on: dict | None, new: dict, change: str, *,
-           verbatim: bool) -> tuple[dict, list[dict]]:
+def _write(
+    store: Any, tid: str, based_on: dict | None, new: dict, change: str, *, verbatim: bool
+) -> tuple[dict, list[dict]]:
     """Writes `new` — the device copy `based_on` with hub documents folded in — never blind.
 
     Under the store's lock the stored copy is read again: a save made since `based_on` was read
@@ -281,14 +329,14 @@ def _write(store: Any, tid: str, based_on: dict | None, new: dict, change: str, 
             if store.adopt_document(doc, expected_revision=rev) is not None:
                 return store.trip_document(tid), late
         if current is None or not same_content(doc, current):
-            store.put_document(doc, change,
-                               expected_revision=None if current is None else int(current.get("revision", 0)))
+            store.put_document(
+                doc, change, expected_revision=None if current is None else int(current.get("revision", 0))
+            )
         return store.trip_document(tid), late
 
 
 # --- push ----------------------------------------------------------------------------------------
-def push(store: Any, target: str, *, progress: Progress | None = None,
-         session: Session | None = None) -> PushReport:
+def push(store: Any, target: str, *, progress: Progress | None = None, session: Session | None = None) -> PushReport:
     """Sends every trip changed since its last push to the hub at `target`.
 
     Parameters
@@ -314,11 +362,11 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
     outbox = Outbox(store.data_dir, tgt.key, tgt.url)
     summaries = _summaries(store)
     known = outbox.all()
-    local = {tid: LocalEntry(tid, rev, h or "sha256:" + "0" * 64,
-                             known[tid].seen_set() if tid in known else frozenset())
-             for tid, (rev, h) in summaries.items()}
-    remote = {tid: RemoteEntry(tid, e.seen_set()) for tid, e in known.items()
-              if tid in local and e.hub_name}
+    local = {
+        tid: LocalEntry(tid, rev, h or "sha256:" + "0" * 64, known[tid].seen_set() if tid in known else frozenset())
+        for tid, (rev, h) in summaries.items()
+    }
+    remote = {tid: RemoteEntry(tid, e.seen_set()) for tid, e in known.items() if tid in local and e.hub_name}
     actions = plan(local, remote)
     total, done, failing = len(actions), 0, 0
     try:
@@ -327,8 +375,13 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
             if act.action is Action.SKIP:
                 res = TripResult(tid, "unchanged", revision=local[tid].revision)
             elif failing >= GIVE_UP_AFTER:
-                res = TripResult(tid, "failed", "not synced — will retry (the hub is not answering)",
-                                 revision=local[tid].revision, retry=True)
+                res = TripResult(
+                    tid,
+                    "failed",
+                    "not synced — will retry (the hub is not answering)",
+                    revision=local[tid].revision,
+                    retry=True,
+                )
             else:
                 try:
                     res = _push_one(store, tgt, session, outbox, tid)
@@ -337,12 +390,18 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
                     raise
                 except errors.RetryableError as exc:
                     failing += 1
-                    res = TripResult(tid, "failed", f"not synced — will retry: {exc}",
-                                     revision=local[tid].revision, retry=True)
+                    res = TripResult(
+                        tid, "failed", f"not synced — will retry: {exc}", revision=local[tid].revision, retry=True
+                    )
                 except errors.Conflict as exc:
                     res = TripResult(tid, "conflict", str(exc), revision=local[tid].revision, retry=True)
-                except (errors.Rejected, errors.IntegrityError, errors.BadHubDocument, errors.NotDelivered,
-                        ValueError) as exc:
+                except (
+                    errors.Rejected,
+                    errors.IntegrityError,
+                    errors.BadHubDocument,
+                    errors.NotDelivered,
+                    ValueError,
+                ) as exc:
                     res = TripResult(tid, "failed", str(exc), revision=local[tid].revision, retry=True)
             report.per_trip.append(res)
             if res.result == "pushed":
@@ -357,7 +416,7 @@ def push(store: Any, target: str, *, progress: Progress | None = None,
             _notify(progress, done, total, tid, res.result)
         _log_push(tgt, session, outbox, [t for t in report.per_trip if t.result in ("pushed", "conflict")])
         report.program = _push_program(store, tgt, session, outbox)
-        if any(r.result != "unchanged" for r in report.per_trip):   # an unchanged push asks nothing
+        if any(r.result != "unchanged" for r in report.per_trip):  # an unchanged push asks nothing
             _clean_incoming(tgt, session, outbox)
     except Exception as exc:
         if _local_write_errors(exc):
@@ -383,7 +442,7 @@ def _log_push(tgt: Target, session: Session, outbox: Outbox, results: list[TripR
         state = changelog.LogState.load(outbox.folder)
         if paths or state.pending:
             changelog.append(tgt, state, device_key(session.device_id or ""), paths, session.device_id or "")
-    except OSError:     # the record of what to log could not be written: a walk finds these files
+    except OSError:  # the record of what to log could not be written: a walk finds these files
         log.warning("push: could not record the change log entry", exc_info=True)
 
 
@@ -414,7 +473,7 @@ def _clean_incoming(tgt: Target, session: Session, outbox: Outbox) -> None:
 def _flush(outbox: Outbox) -> None:
     try:
         outbox.flush()
-    except OSError as exc:   # only a cache: the per-trip files are the record
+    except OSError as exc:  # only a cache: the per-trip files are the record
         log.info("could not rewrite the outbox manifest (%s)", exc.strerror or exc)
 
 
@@ -468,13 +527,15 @@ def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
                     if not isinstance(exc, errors.Gone):
                         entry.bad.append(name)
             candidates = [entry.base] if entry.base else []
-            candidates += _extra_ancestors(tgt, session, year, tid, doc, docs, candidates,
-                                           sorted((listing or frozenset()) - set(act.unseen)))
+            candidates += _extra_ancestors(
+                tgt, session, year, tid, doc, docs, candidates, sorted((listing or frozenset()) - set(act.unseen))
+            )
             folded = fold(doc, docs, candidates)
             merged, new_conflicts = folded.doc, folded.conflicts
             seen.update(good)
-            if merged is not None and (not same_content(merged, doc)
-                                       or (folded.kind == "pulled" and not _same_bytes(merged, doc))):
+            if merged is not None and (
+                not same_content(merged, doc) or (folded.kind == "pulled" and not _same_bytes(merged, doc))
+            ):
                 change = "merged with other devices' versions from the hub"
                 if new_conflicts:
                     change += f" ({len(new_conflicts)} field(s) changed on both sides kept for review)"
@@ -485,7 +546,8 @@ def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
                         raise
                     first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
                     raise errors.BadHubDocument(
-                        f"the store refused the merge of trip {tid} with the hub's versions: {first}") from None
+                        f"the store refused the merge of trip {tid} with the hub's versions: {first}"
+                    ) from None
                 new_conflicts = new_conflicts + late
                 data = canonical_json_bytes(doc)
                 h = _sha(data)
@@ -501,14 +563,21 @@ def _push_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
     seen.add(name)
     _record(outbox, entry, rev, h, name, wr.etag, seen, doc)
     if new_conflicts:
-        return TripResult(tid, "conflict", "; ".join(["pushed; fields changed on both sides need attention"] + notes),
-                          revision=rev, conflicts=_conflict_lines(new_conflicts))
-    return TripResult(tid, "pushed", "; ".join(([] if wr.created else ["the hub already held these bytes"]) + notes),
-                      revision=rev)
+        return TripResult(
+            tid,
+            "conflict",
+            "; ".join(["pushed; fields changed on both sides need attention"] + notes),
+            revision=rev,
+            conflicts=_conflict_lines(new_conflicts),
+        )
+    return TripResult(
+        tid, "pushed", "; ".join(([] if wr.created else ["the hub already held these bytes"]) + notes), revision=rev
+    )
 
 
-def _record(outbox: Outbox, entry: OutboxEntry, rev: int, h: str, name: str, etag: str | None,
-            seen: set[str], doc: dict) -> None:
+def _record(
+    outbox: Outbox, entry: OutboxEntry, rev: int, h: str, name: str, etag: str | None, seen: set[str], doc: dict
+) -> None:
     entry.pushed_revision, entry.pushed_hash, entry.hub_name = rev, h, name
     entry.etag = etag
     entry.pushed_at = _now()
@@ -518,8 +587,9 @@ def _record(outbox: Outbox, entry: OutboxEntry, rev: int, h: str, name: str, eta
 
 
 # --- pull ----------------------------------------------------------------------------------------
-def pull(store: Any, source: str, *, progress: Progress | None = None,
-         session: Session | None = None, full: bool = False) -> PullReport:
+def pull(
+    store: Any, source: str, *, progress: Progress | None = None, session: Session | None = None, full: bool = False
+) -> PullReport:
     """Brings every trip revision at the hub that this device has not seen into the store,
     merging it with the device copy. Each hub document is checked (content hash, size, JSON,
     trip id, revision) and then validated by the store's save path; a bad one is quarantined
@@ -536,9 +606,9 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
         state = changelog.LogState.load(outbox.folder)
         changes = None if full else changelog.read_changes(tgt, state, own, session.max_document_bytes)
         by_trip: dict[str, list[RemoteFile]] = {}
-        if changes is None:             # walk the whole hub; what the log holds now is covered
+        if changes is None:  # walk the whole hub; what the log holds now is covered
             listing = changelog.snapshot(tgt, own) if hasattr(tgt, "log_folders") else {}
-            files = tgt.list_all()      # each request inside is retried (not the whole walk again)
+            files = tgt.list_all()  # each request inside is retried (not the whole walk again)
             report.skipped = list(getattr(files, "skipped", []))
             for line in report.skipped:
                 log.info("pull: %s", line)
@@ -546,7 +616,7 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
                 by_trip.setdefault(f.trip_id, []).append(f)
             summaries = _summaries(store)
             known = outbox.all()
-        else:                           # only the trips the new log entries name
+        else:  # only the trips the new log entries name
             report.listed = "log"
             known = {tid: e for tid in changes.files if (e := outbox.get(tid)) is not None}
             for tid, named in changes.files.items():
@@ -555,9 +625,15 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
                 have.update({n: RemoteFile(tid, y, n) for y, n in named})
                 by_trip[tid] = list(have.values())
             summaries = _summaries_of(store, list(changes.files))
-        local = {tid: LocalEntry(tid, rev, h if h.startswith("sha256:") and len(h) == 71 else "sha256:" + "0" * 64,
-                                 known[tid].seen_set() if tid in known else frozenset())
-                 for tid, (rev, h) in summaries.items()}
+        local = {
+            tid: LocalEntry(
+                tid,
+                rev,
+                h if h.startswith("sha256:") and len(h) == 71 else "sha256:" + "0" * 64,
+                known[tid].seen_set() if tid in known else frozenset(),
+            )
+            for tid, (rev, h) in summaries.items()
+        }
         remote = {tid: RemoteEntry(tid, frozenset(f.name for f in fs)) for tid, fs in by_trip.items()}
         actions = plan_pull(local, remote, {tid: e.seen_set() for tid, e in known.items()})
         total = len(actions)
@@ -567,13 +643,21 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
                 res = TripResult(tid, "unchanged")
             else:
                 try:
-                    res = _pull_one(store, tgt, session, outbox, tid, act.unseen,
-                                    {f.name: f for f in by_trip[tid]}, tid in summaries)
+                    res = _pull_one(
+                        store,
+                        tgt,
+                        session,
+                        outbox,
+                        tid,
+                        act.unseen,
+                        {f.name: f for f in by_trip[tid]},
+                        tid in summaries,
+                    )
                 except errors.LocalWriteError:
                     raise
                 except errors.RetryableError as exc:
                     res = TripResult(tid, "failed", f"not pulled — will retry: {exc}", retry=True)
-                except errors.Rejected as exc:      # one file refused (4xx): this trip only
+                except errors.Rejected as exc:  # one file refused (4xx): this trip only
                     res = TripResult(tid, "failed", f"not pulled — will retry: {exc}", retry=True)
             report.per_trip.append(res)
             if res.result in ("pulled", "merged", "quarantined", "unchanged", "failed"):
@@ -582,13 +666,13 @@ def pull(store: Any, source: str, *, progress: Progress | None = None,
         left = {t.trip_id for t in report.per_trip if t.retry}
         if changes is None:
             state.devices.update(listing)
-            if not left:                # a walk with trips left over is repeated next time
+            if not left:  # a walk with trips left over is repeated next time
                 state.walked_at = time.time()
         else:
             changes.settle(state, left)
         try:
             state.save()
-        except OSError:                 # only costs a walk next time
+        except OSError:  # only costs a walk next time
             log.warning("pull: could not record the change log state", exc_info=True)
         report.program = _pull_program(store, tgt, session, outbox)
     except Exception as exc:
@@ -613,8 +697,16 @@ def _summaries_of(store: Any, trip_ids: list[str]) -> dict[str, tuple[int, str]]
     return out
 
 
-def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: str,
-              unseen: tuple[str, ...], files: dict[str, RemoteFile], have_local: bool) -> TripResult:
+def _pull_one(
+    store: Any,
+    tgt: Target,
+    session: Session,
+    outbox: Outbox,
+    tid: str,
+    unseen: tuple[str, ...],
+    files: dict[str, RemoteFile],
+    have_local: bool,
+) -> TripResult:
     entry = outbox.get(tid)
     local_doc = store.trip_document(tid) if have_local else None
     year = files[unseen[0]].year
@@ -629,7 +721,7 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
         try:
             data = tgt.read(f, session.max_document_bytes)
             docs.append((name, _parse_hub_doc(f, data)))
-        except errors.Gone as exc:          # listed, then removed: looked for again next sync
+        except errors.Gone as exc:  # listed, then removed: looked for again next sync
             gone_lines.append(f"{exc}; skipped")
         except (errors.BadHubDocument, errors.IntegrityError) as exc:
             # stays unseen: re-checked at every sync, reported every time, never blacklisted
@@ -638,13 +730,14 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
             entry.bad.append(name)
     candidates = [entry.base] if entry.base else []
     if local_doc is not None:
-        candidates += _extra_ancestors(tgt, session, year, tid, local_doc, [d for _, d in docs],
-                                       candidates, sorted(set(files) - set(unseen)))
+        candidates += _extra_ancestors(
+            tgt, session, year, tid, local_doc, [d for _, d in docs], candidates, sorted(set(files) - set(unseen))
+        )
     acc, kind, conflicts = local_doc, "unchanged", []
     accepted: list[str] = []
     pending = dict(docs)
-    for _ in range(len(docs) + 1):          # bounded: each round settles at least one document
-        for name in contained_names(pending, acc):     # documents the device copy already contains
+    for _ in range(len(docs) + 1):  # bounded: each round settles at least one document
+        for name in contained_names(pending, acc):  # documents the device copy already contains
             accepted.append(name)
             del pending[name]
         if not pending:
@@ -653,12 +746,18 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
         doc = pending[name]
         folded = fold(acc, [doc], candidates + list(dict(docs).values()))
         trial, k, c = folded.doc, folded.kind, folded.conflicts
-        if trial is not None and (acc is None or not same_content(trial, acc)
-                                  or (k == "pulled" and not _same_bytes(trial, acc))):
+        if trial is not None and (
+            acc is None or not same_content(trial, acc) or (k == "pulled" and not _same_bytes(trial, acc))
+        ):
             try:
-                acc, late = _write(store, tid, acc, trial,
-                                   "pulled from hub" if k == "pulled" else "merged with the hub's version",
-                                   verbatim=k == "pulled")
+                acc, late = _write(
+                    store,
+                    tid,
+                    acc,
+                    trial,
+                    "pulled from hub" if k == "pulled" else "merged with the hub's version",
+                    verbatim=k == "pulled",
+                )
             except errors.SyncError:
                 raise
             except Exception as exc:  # the store's validation refused it
@@ -682,7 +781,7 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
                 accepted.append(other)
                 del pending[other]
     entry.seen = sorted(set(entry.seen) | set(accepted))
-    entry.bad = [n for n in entry.bad if n not in accepted]     # repaired at the hub since
+    entry.bad = [n for n in entry.bad if n not in accepted]  # repaired at the hub since
     if acc is not None and accepted:
         # the ancestor for the next merge: the newest hub document the device copy contains
         base = newest_contained([d for n, d in docs if n in accepted], acc)
@@ -698,11 +797,16 @@ def _pull_one(store: Any, tgt: Target, session: Session, outbox: Outbox, tid: st
     outbox.put(entry)
     rev = int(acc.get("revision", 0)) if acc else None
     if bad_lines:
-        return TripResult(tid, "quarantined", "; ".join(bad_lines + gone_lines), revision=rev,
-                          conflicts=_conflict_lines(conflicts), retry=True)
+        return TripResult(
+            tid,
+            "quarantined",
+            "; ".join(bad_lines + gone_lines),
+            revision=rev,
+            conflicts=_conflict_lines(conflicts),
+            retry=True,
+        )
     msg = "; ".join((["fields changed on both sides need attention"] if conflicts else []) + gone_lines)
-    return TripResult(tid, kind, msg,
-                      revision=rev, conflicts=_conflict_lines(conflicts))
+    return TripResult(tid, kind, msg, revision=rev, conflicts=_conflict_lines(conflicts))
 
 
 # --- the program's tables: site list and settings (sync/program.py) ------------------------------
@@ -717,7 +821,7 @@ def _program_state(outbox: Outbox) -> dict[str, dict[str, list[str]]]:
     try:
         raw = json.loads((outbox.folder / "program.json").read_bytes())
     except (OSError, ValueError):
-        return state              # lost or damaged: only costs a listing and a re-read
+        return state  # lost or damaged: only costs a listing and a re-read
     for kind in program.KINDS:
         entry = raw.get(kind) if isinstance(raw, dict) else None
         if isinstance(entry, dict):
@@ -749,7 +853,7 @@ def _local_table(store: Any, kind: str) -> bytes | None:
 def _push_program(store: Any, tgt: Target, session: Session, outbox: Outbox) -> list[str]:
     """Publishes the site list and the settings when the hub does not hold them yet."""
     if not tgt.can_list:
-        return []                 # an intake endpoint takes trips only
+        return []  # an intake endpoint takes trips only
     state = _program_state(outbox)
     lines: list[str] = []
     for kind in program.KINDS:
@@ -758,7 +862,7 @@ def _push_program(store: Any, tgt: Target, session: Session, outbox: Outbox) -> 
             continue
         name = program.program_name(data)
         if name in state[kind]["seen"]:
-            continue              # published or merged before: no request at all
+            continue  # published or merged before: no request at all
         try:
             if name not in tgt.list_program(kind):
                 tgt.write_program(kind, name, data, session.device_id or "")
@@ -800,8 +904,8 @@ def _pull_program(store: Any, tgt: Target, session: Session, outbox: Outbox) -> 
                 lines.append(f"{_TABLE_WORDS[kind]} file {name} left aside: {exc}")
                 continue
             read.append(name)
-            for entry in (parsed if isinstance(parsed, list) else [parsed]):
-                try:   # each entry must be a valid record for this build
+            for entry in parsed if isinstance(parsed, list) else [parsed]:
+                try:  # each entry must be a valid record for this build
                     model = Site if kind == "sites" else ProgramSettings
                     checked = model.model_validate_json(canonical_json_bytes(entry))
                 except Exception:  # noqa: BLE001 - pydantic's or JSON's refusal: skip the entry
@@ -824,14 +928,14 @@ def _merge_sites(store: Any, incoming: list[dict]) -> list[str]:
 
     local = {s.id: s.model_dump(mode="json") for s in store.sites()}
     merged = program.merge_sites(local, incoming)
-    changed = [Site.model_validate_json(canonical_json_bytes(e)) for sid, e in sorted(merged.items())
-               if local.get(sid) != e]
+    changed = [
+        Site.model_validate_json(canonical_json_bytes(e)) for sid, e in sorted(merged.items()) if local.get(sid) != e
+    ]
     if not changed:
         return []
     store.save_sites(changed)
     more = " ..." if len(changed) > 6 else ""
-    return [f"site list: {len(changed)} site(s) updated from the hub "
-            f"({', '.join(s.id for s in changed[:6])}{more})"]
+    return [f"site list: {len(changed)} site(s) updated from the hub ({', '.join(s.id for s in changed[:6])}{more})"]
 
 
 def _merge_settings(store: Any, incoming: list[dict]) -> list[str]:
@@ -860,13 +964,13 @@ def status(store: Any) -> list[TripSyncState]:
                 states.append(HubState(box.hub_url, None, "never pushed"))
             else:
                 same = e.pushed_revision == rev and (not h or e.pushed_hash == h)
-                states.append(HubState(box.hub_url, e.pushed_revision, "synced" if same else "changed",
-                                       e.pushed_at))
+                states.append(HubState(box.hub_url, e.pushed_revision, "synced" if same else "changed", e.pushed_at))
         conflicts: list[str] = []
         try:
             doc = store.trip_document(tid)
-            conflicts = _conflict_lines(c for c in doc.get("conflicts") or []
-                                        if isinstance(c, dict) and not c.get("resolved_at"))
+            conflicts = _conflict_lines(
+                c for c in doc.get("conflicts") or [] if isinstance(c, dict) and not c.get("resolved_at")
+            )
         except Exception:  # noqa: BLE001 - an unreadable trip is the store's report, not ours
             pass
         if not states or all(s.state == "never pushed" for s in states):
@@ -879,14 +983,21 @@ def status(store: Any) -> list[TripSyncState]:
     return out
 
 
-def run_in_background(operation: Callable[..., Any], store: Any, address: str, *,
-                      progress: Progress | None = None, session: Session | None = None,
-                      on_done: Callable[[Any, BaseException | None], None] | None = None) -> threading.Thread:
+def run_in_background(
+    operation: Callable[..., Any],
+    store: Any,
+    address: str,
+    *,
+    progress: Progress | None = None,
+    session: Session | None = None,
+    on_done: Callable[[Any, BaseException | None], None] | None = None,
+) -> threading.Thread:
     """Runs `push` or `pull` in a daemon thread (the UI thread never waits on the network).
 
     `progress` and ``on_done(report, error)`` are called from that thread: a UI marshals them to
     its own thread (for Kivy, ``Clock.schedule_once``). Exactly one of report and error is None.
     """
+
     def work() -> None:
         try:
             report = operation(store, address, progress=progress, session=session)

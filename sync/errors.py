@@ -3,13 +3,29 @@
 Messages are one sentence a person can act on. They never carry a password, a token or an
 ``Authorization`` header: URLs in messages are shown without their user-info part.
 """
+
 from __future__ import annotations
 
 __all__ = [
     "SyncError",
-    "RetryableError", "Unreachable", "TimedOut", "ServerError", "ReadMismatch", "LocalWriteError",
-    "FinalError", "ConfigError", "CredentialsError", "Unauthorized", "Rejected", "DepthRefused",
-    "Gone", "NotDelivered", "Conflict", "RedirectRefused", "TLSError", "IntegrityError",
+    "RetryableError",
+    "Unreachable",
+    "TimedOut",
+    "ServerError",
+    "ReadMismatch",
+    "LocalWriteError",
+    "FinalError",
+    "ConfigError",
+    "CredentialsError",
+    "Unauthorized",
+    "Rejected",
+    "DepthRefused",
+    "Gone",
+    "NotDelivered",
+    "Conflict",
+    "RedirectRefused",
+    "TLSError",
+    "IntegrityError",
     "BadHubDocument",
 ]
 
@@ -113,7 +129,7 @@ class Conflict(FinalError):
 class IntegrityError(FinalError):
     """A hub copy's bytes do not match the content hash in its name (truncated or altered)."""
 
-    data: bytes = b""   # the damaged bytes as read, for the quarantine
+    data: bytes = b""  # the damaged bytes as read, for the quarantine
 
 
 class BadHubDocument(FinalError):

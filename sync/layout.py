@@ -11,6 +11,7 @@ Hub layout (the same in a folder and on a WebDAV collection)::
 so a trip never moves). A revision file is written once and never changed: its name says which
 content it must hold, so a reader checks the bytes against the name on every read.
 """
+
 from __future__ import annotations
 
 import hashlib
@@ -19,19 +20,38 @@ import uuid
 
 from sync.program import KINDS as PROGRAM_KINDS
 
-__all__ = ["TRIPS", "INCOMING", "LOG", "revision_name", "parse_revision_name", "trip_dir",
-           "trip_year", "canonical_trip_id", "device_key", "incoming_name", "HASH_HEX", "name_matches",
-           "odd_entry", "shown_name", "is_incoming_name", "is_hidden_name", "YEAR_RE"]
+__all__ = [
+    "TRIPS",
+    "INCOMING",
+    "LOG",
+    "revision_name",
+    "parse_revision_name",
+    "trip_dir",
+    "trip_year",
+    "canonical_trip_id",
+    "device_key",
+    "incoming_name",
+    "HASH_HEX",
+    "name_matches",
+    "odd_entry",
+    "shown_name",
+    "is_incoming_name",
+    "is_hidden_name",
+    "YEAR_RE",
+]
 
 TRIPS = "trips"
 INCOMING = "incoming"
-LOG = "log"          # the change log (sync.changelog)
+LOG = "log"  # the change log (sync.changelog)
 HASH_HEX = 24
 _NAME_RE = re.compile(rf"^r(\d{{6,}})-([0-9a-f]{{{HASH_HEX}}})\.json$")
 #: A year folder: the trip's four-digit start year, or "undated".
 YEAR_RE = re.compile(r"\d{4}|undated")
-_INCOMING_RE = re.compile(r"(?:[0-9a-f]{8}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{12}|"
-                          + "|".join(PROGRAM_KINDS) + r")\.[0-9a-f]{12}\.part")
+_INCOMING_RE = re.compile(
+    r"(?:[0-9a-f]{8}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{4}-[0-9a-f]{12}|"
+    + "|".join(PROGRAM_KINDS)
+    + r")\.[0-9a-f]{12}\.part"
+)
 
 
 def canonical_trip_id(trip_id: str) -> str:

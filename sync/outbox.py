@@ -15,6 +15,7 @@ files (a crash before a line reached the disk): then a trip is re-checked at the
 skipped wrongly, since a name once seen at the hub stays there.
 Losing the whole outbox loses nothing: the next push lists the hub and finds revisions by name.
 """
+
 from __future__ import annotations
 
 import json
@@ -75,7 +76,7 @@ class Outbox:
                 return None
             return _entry(raw)
         except (OSError, ValueError, KeyError, TypeError):
-            return None     # unreadable: act as if never pushed (the hub listing settles it)
+            return None  # unreadable: act as if never pushed (the hub listing settles it)
 
     def all(self) -> dict[str, OutboxEntry]:
         """Every entry (without base documents), from the manifest when it is readable."""
@@ -90,7 +91,7 @@ class Outbox:
                 return self._summary
             except (OSError, ValueError, KeyError, TypeError):
                 self._summary = {}
-            self._dirty = True          # no usable manifest: rebuild it at the end of this run
+            self._dirty = True  # no usable manifest: rebuild it at the end of this run
             folder = self.folder / "trips"
             if folder.is_dir():
                 for p in folder.glob("*.json"):
@@ -112,7 +113,7 @@ class Outbox:
             try:
                 e = _entry(json.loads(line))
             except (ValueError, TypeError):
-                continue          # a line torn by a crash: that trip is re-checked at the hub
+                continue  # a line torn by a crash: that trip is re-checked at the hub
             if e.trip_id and e.year:
                 self._summary[e.trip_id] = e
 
@@ -129,19 +130,22 @@ class Outbox:
         self._ensure_hub_file()
         entry.seen = sorted(set(entry.seen))
         entry.bad = sorted(set(entry.bad))
-        atomic_write_bytes(self._path(entry.trip_id),
-                           json.dumps(asdict(entry), sort_keys=True, ensure_ascii=False).encode("utf-8"))
+        atomic_write_bytes(
+            self._path(entry.trip_id), json.dumps(asdict(entry), sort_keys=True, ensure_ascii=False).encode("utf-8")
+        )
         self._full[entry.trip_id] = entry
         light = OutboxEntry(**{k: getattr(entry, k) for k in OutboxEntry.__dataclass_fields__ if k != "base"})
         if self._summary is not None:
             self._summary[entry.trip_id] = light
         # (not read in this run, e.g. a pull from the change log that touched one trip: the journal
         # line is enough, and the manifest of every trip is not read for one change)
-        if not self._dirty:   # the manifest is current: record this change in the journal
+        if not self._dirty:  # the manifest is current: record this change in the journal
             keys = [k for k in OutboxEntry.__dataclass_fields__ if k != "base"]
             with open(self.folder / "journal.jsonl", "ab") as fh:
-                fh.write(json.dumps({k: getattr(light, k) for k in keys}, sort_keys=True,
-                                    ensure_ascii=False).encode("utf-8") + b"\n")
+                fh.write(
+                    json.dumps({k: getattr(light, k) for k in keys}, sort_keys=True, ensure_ascii=False).encode("utf-8")
+                    + b"\n"
+                )
             self._journal_lines += 1
 
     def flush(self) -> None:
@@ -153,9 +157,11 @@ class Outbox:
         entries = [{k: getattr(e, k) for k in keys} for _, e in sorted(self._summary.items())]
         # a cache: replaced atomically (never seen half-written) but not fsynced; after a power
         # cut it may be the older one, which only costs a re-check at the hub
-        atomic_write_bytes(self.folder / "manifest.json",
-                           json.dumps({"entries": entries}, sort_keys=True, ensure_ascii=False).encode("utf-8"),
-                           durable=False)
+        atomic_write_bytes(
+            self.folder / "manifest.json",
+            json.dumps({"entries": entries}, sort_keys=True, ensure_ascii=False).encode("utf-8"),
+            durable=False,
+        )
         try:
             os.unlink(self.folder / "journal.jsonl")
         except FileNotFoundError:

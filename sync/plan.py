@@ -5,11 +5,12 @@ mappings (trip id → entry) and return actions; they do no I/O and are tested o
 (`sync.engine`) builds the manifests, carries the actions out through a target, and records the
 result in the outbox. Sync never deletes at the hub, so there is no delete action.
 """
+
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from enum import Enum
-from collections.abc import Mapping
 
 from sync.layout import revision_name
 
@@ -19,11 +20,11 @@ __all__ = ["Action", "LocalEntry", "RemoteEntry", "PlannedAction", "plan", "plan
 class Action(str, Enum):
     """What one trip needs."""
 
-    SKIP = "skip"        # push: the hub already holds this exact revision; pull: nothing new
-    CREATE = "create"    # the hub holds nothing of this trip: make its collection, write the revision
-    UPDATE = "update"    # the hub holds only versions this device has seen: write the new revision
-    MERGE = "merge"      # the hub holds versions this device has not seen: fetch, merge, then write
-    FETCH = "fetch"      # pull: the hub holds versions this device has not seen: fetch and merge in
+    SKIP = "skip"  # push: the hub already holds this exact revision; pull: nothing new
+    CREATE = "create"  # the hub holds nothing of this trip: make its collection, write the revision
+    UPDATE = "update"  # the hub holds only versions this device has seen: write the new revision
+    MERGE = "merge"  # the hub holds versions this device has not seen: fetch, merge, then write
+    FETCH = "fetch"  # pull: the hub holds versions this device has not seen: fetch and merge in
 
 
 @dataclass(frozen=True)
@@ -33,7 +34,7 @@ class LocalEntry:
     trip_id: str
     revision: int
     content_hash: str
-    seen: frozenset[str] = frozenset()   # hub revision files already contained in the device copy
+    seen: frozenset[str] = frozenset()  # hub revision files already contained in the device copy
 
     @property
     def name(self) -> str:
@@ -52,8 +53,8 @@ class RemoteEntry:
 class PlannedAction:
     action: Action
     trip_id: str
-    name: str = ""                                 # hub file name of the device's revision (push)
-    unseen: tuple[str, ...] = field(default=())    # hub files to fetch and merge, oldest first
+    name: str = ""  # hub file name of the device's revision (push)
+    unseen: tuple[str, ...] = field(default=())  # hub files to fetch and merge, oldest first
 
 
 def _sorted_names(names) -> tuple[str, ...]:
@@ -86,8 +87,11 @@ def plan(local: Mapping[str, LocalEntry], remote: Mapping[str, RemoteEntry]) -> 
     return out
 
 
-def plan_pull(local: Mapping[str, LocalEntry], remote: Mapping[str, RemoteEntry],
-              known: Mapping[str, frozenset[str]] | None = None) -> list[PlannedAction]:
+def plan_pull(
+    local: Mapping[str, LocalEntry],
+    remote: Mapping[str, RemoteEntry],
+    known: Mapping[str, frozenset[str]] | None = None,
+) -> list[PlannedAction]:
     """Pull plan, one action per trip at the hub, in trip-id order: FETCH the revision files the
     device has not seen (or all of them for a trip the device does not hold), else SKIP.
     `known` lists hub files already dealt with for trips the device does not hold (found bad)."""
@@ -101,8 +105,7 @@ def plan_pull(local: Mapping[str, LocalEntry], remote: Mapping[str, RemoteEntry]
         else:
             unseen = names - entry.seen - {entry.name}
         if unseen:
-            out.append(PlannedAction(Action.FETCH, trip_id, entry.name if entry else "",
-                                     _sorted_names(unseen)))
+            out.append(PlannedAction(Action.FETCH, trip_id, entry.name if entry else "", _sorted_names(unseen)))
         else:
             out.append(PlannedAction(Action.SKIP, trip_id, entry.name if entry else ""))
     return out

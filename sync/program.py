@@ -17,6 +17,7 @@ canonical bytes, so every device picks the same entry whatever the order (commut
 associative, idempotent). Settings merge the same way as one entry. Nothing is ever deleted.
 No I/O here: the engine lists, reads, writes and saves.
 """
+
 from __future__ import annotations
 
 import hashlib
@@ -28,9 +29,20 @@ from typing import Any
 
 from core.store.atomic import canonical_json_bytes
 
-__all__ = ["PROGRAM", "KINDS", "program_dir", "program_name", "name_matches", "is_program_name",
-           "sites_bytes", "settings_bytes", "parse_program_file", "newer", "merge_sites",
-           "merge_settings"]
+__all__ = [
+    "PROGRAM",
+    "KINDS",
+    "program_dir",
+    "program_name",
+    "name_matches",
+    "is_program_name",
+    "sites_bytes",
+    "settings_bytes",
+    "parse_program_file",
+    "newer",
+    "merge_sites",
+    "merge_settings",
+]
 
 PROGRAM = "program"
 KINDS = ("sites", "settings")
@@ -83,8 +95,7 @@ def parse_program_file(kind: str, data: bytes) -> list[dict] | dict:
         raise ValueError(f"the {kind} file does not say it holds {kind}")
     body = doc.get(kind)
     if kind == "sites":
-        if not isinstance(body, list) or not all(isinstance(s, dict) and isinstance(s.get("id"), str)
-                                                 for s in body):
+        if not isinstance(body, list) or not all(isinstance(s, dict) and isinstance(s.get("id"), str) for s in body):
             raise ValueError("the sites file does not hold a list of sites with ids")
         return [dict(s) for s in body]
     if not isinstance(body, dict):
@@ -115,8 +126,7 @@ def newer(a: Mapping[str, Any], b: Mapping[str, Any]) -> Mapping[str, Any]:
     return a if canonical_json_bytes(a) >= canonical_json_bytes(b) else b
 
 
-def merge_sites(local: Mapping[str, Mapping[str, Any]], incoming: Iterable[Mapping[str, Any]]
-                ) -> dict[str, dict]:
+def merge_sites(local: Mapping[str, Mapping[str, Any]], incoming: Iterable[Mapping[str, Any]]) -> dict[str, dict]:
     """Site id → the entry to keep, given the device's sites (by id) and incoming entries."""
     out = {sid: dict(s) for sid, s in local.items()}
     for entry in incoming:

@@ -5,17 +5,27 @@ The engine (`sync.engine`) reads hub files and the store, asks this module what 
 and writes the results. Ancestry comes from the audit trail (`core.records.merge.relation`): a document
 whose audit ids are a subset of another's is contained in it.
 """
+
 from __future__ import annotations
 
-from dataclasses import dataclass, field
 from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, field
 
+from core.records.merge import common_ancestor, history, merge_trips, relation
 from core.records.models import BOOKKEEPING, LOG, keys_by_role
 from core.store.atomic import canonical_json_bytes
-from core.records.merge import common_ancestor, history, merge_trips, relation
 
-__all__ = ["BOOKKEEPING_KEYS", "semantic", "same_content", "Fold", "fold", "lacks_ancestor",
-           "contained_names", "next_head", "newest_contained"]
+__all__ = [
+    "BOOKKEEPING_KEYS",
+    "semantic",
+    "same_content",
+    "Fold",
+    "fold",
+    "lacks_ancestor",
+    "contained_names",
+    "next_head",
+    "newest_contained",
+]
 
 #: Fields that change on every save and say nothing about the field work itself (the roles
 #: bookkeeping and log, as declared on the models in core.records.models).
@@ -76,8 +86,7 @@ def lacks_ancestor(local: dict, docs: Iterable[dict], candidates: Iterable[dict]
     candidates or the documents themselves) is a common ancestor of the two: the merge would be
     two-way unless older hub files are read back."""
     docs, candidates = list(docs), list(candidates)
-    return any(relation(d, local) == "diverged" and common_ancestor(candidates + docs, local, d) is None
-               for d in docs)
+    return any(relation(d, local) == "diverged" and common_ancestor(candidates + docs, local, d) is None for d in docs)
 
 
 def contained_names(pending: Mapping[str, dict], acc: dict | None) -> list[str]:
@@ -90,8 +99,9 @@ def contained_names(pending: Mapping[str, dict], acc: dict | None) -> list[str]:
 def next_head(pending: Mapping[str, dict]) -> str:
     """The pending document to fold next: among the heads (documents no other pending document
     contains), the lowest revision, then the name. `pending` must not be empty."""
-    heads = [n for n, d in pending.items()
-             if not any(m != n and relation(d, e) == "ancestor" for m, e in pending.items())]
+    heads = [
+        n for n, d in pending.items() if not any(m != n and relation(d, e) == "ancestor" for m, e in pending.items())
+    ]
     return min(heads, key=lambda n: (pending[n].get("revision", 0), n))
 
 

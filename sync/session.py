@@ -21,6 +21,7 @@ the trip is left for the next sync. Final errors (401/403, other 4xx, redirects,
 are never retried. A step includes reading and checking the answer's body, so a body cut while
 streaming is retried like any other cut.
 """
+
 from __future__ import annotations
 
 import configparser
@@ -29,21 +30,32 @@ import socket
 import stat
 import threading
 import time
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, TypeVar
-from collections.abc import Callable, Mapping
 from urllib.parse import unquote, urlsplit, urlunsplit
 
 from core.records.limits import MAX_DOCUMENT_BYTES
 from sync import errors
 
 if TYPE_CHECKING:
-    import requests   # imported on first use at run time (no work at import time)
+    import requests  # imported on first use at run time (no work at import time)
 
-__all__ = ["RetryPolicy", "Credentials", "Session", "load_credentials", "redact_url",
-           "ca_file_from_environment", "ENV_USER", "ENV_PASSWORD", "ENV_TOKEN", "ENV_CONFIG",
-           "ENV_CA_FILE", "ENV_CA_CHAIN"]
+__all__ = [
+    "RetryPolicy",
+    "Credentials",
+    "Session",
+    "load_credentials",
+    "redact_url",
+    "ca_file_from_environment",
+    "ENV_USER",
+    "ENV_PASSWORD",
+    "ENV_TOKEN",
+    "ENV_CONFIG",
+    "ENV_CA_FILE",
+    "ENV_CA_CHAIN",
+]
 
 ENV_USER = "STREAMTAB_SYNC_USER"
 ENV_PASSWORD = "STREAMTAB_SYNC_PASSWORD"
@@ -52,7 +64,7 @@ ENV_CONFIG = "STREAMTAB_SYNC_CONFIG"
 ENV_CA_FILE = "STREAMTAB_SYNC_CA_FILE"
 #: Where a CA bundle may be named, first found wins (the last two are the usual names).
 ENV_CA_CHAIN = (ENV_CA_FILE, "REQUESTS_CA_BUNDLE", "SSL_CERT_FILE")
-DEFAULT_CONFIG_NAME = "credentials.ini"   # under <data dir>/sync/
+DEFAULT_CONFIG_NAME = "credentials.ini"  # under <data dir>/sync/
 
 T = TypeVar("T")
 
@@ -95,8 +107,7 @@ class Credentials:
 
     __slots__ = ("_password", "_token", "_user")
 
-    def __init__(self, user: str | None = None, password: str | None = None,
-                 token: str | None = None) -> None:
+    def __init__(self, user: str | None = None, password: str | None = None, token: str | None = None) -> None:
         if token is None and (user is None or password is None):
             raise errors.CredentialsError("credentials need a user and a password, or a token")
         self._user, self._password, self._token = user, password, token
@@ -122,10 +133,12 @@ def _check_private(path: Path) -> None:
         if st.st_mode & (stat.S_IRWXG | stat.S_IRWXO):
             raise errors.CredentialsError(
                 f"credentials file {path} can be read or changed by others (mode "
-                f"{stat.S_IMODE(st.st_mode):04o}); make it owner-only with 'chmod 600 {path}'")
+                f"{stat.S_IMODE(st.st_mode):04o}); make it owner-only with 'chmod 600 {path}'"
+            )
         if hasattr(os, "getuid") and st.st_uid != os.getuid():
             raise errors.CredentialsError(
-                f"credentials file {path} belongs to another user; it must be owned by the user running sync")
+                f"credentials file {path} belongs to another user; it must be owned by the user running sync"
+            )
 
 
 _DEFAULT_PORTS = {"http": 80, "https": 443}
@@ -157,7 +170,8 @@ def _from_file(path: Path, hub_url: str) -> Credentials | None:
         cp.read_string(path.read_text(encoding="utf-8"), source=str(path))
     except (configparser.Error, UnicodeDecodeError) as exc:
         raise errors.CredentialsError(
-            f"credentials file {path} is not a valid INI file ({type(exc).__name__})") from None
+            f"credentials file {path} is not a valid INI file ({type(exc).__name__})"
+        ) from None
     best, best_len = None, -1
     hub = _url_key(hub_url)
     for section in cp.sections():
@@ -168,8 +182,9 @@ def _from_file(path: Path, hub_url: str) -> Credentials | None:
             if key is None:
                 raise errors.CredentialsError(
                     f"section [{section}] of credentials file {path} does not name an http:// or "
-                    f"https:// address; write it as [hub https://host/path/]")
-            if hub is None or key[:3] != hub[:3] or hub[3][:len(key[3])] != key[3]:
+                    f"https:// address; write it as [hub https://host/path/]"
+                )
+            if hub is None or key[:3] != hub[:3] or hub[3][: len(key[3])] != key[3]:
                 continue
             length = 1 + len(key[3])
         else:
@@ -184,7 +199,8 @@ def _from_file(path: Path, hub_url: str) -> Credentials | None:
     if "user" in sec and "password" in sec:
         return Credentials(user=sec["user"], password=sec["password"])
     raise errors.CredentialsError(
-        f"section [{best}] of credentials file {path} needs 'user' and 'password', or 'token'")
+        f"section [{best}] of credentials file {path} needs 'user' and 'password', or 'token'"
+    )
 
 
 def ca_file_from_environment(env: Mapping[str, str] | None = None) -> str | None:
@@ -197,9 +213,13 @@ def ca_file_from_environment(env: Mapping[str, str] | None = None) -> str | None
     return None
 
 
-def load_credentials(hub_url: str, *, config_file: Path | str | None = None,
-                     data_dir: Path | str | None = None,
-                     env: Mapping[str, str] | None = None) -> Credentials | None:
+def load_credentials(
+    hub_url: str,
+    *,
+    config_file: Path | str | None = None,
+    data_dir: Path | str | None = None,
+    env: Mapping[str, str] | None = None,
+) -> Credentials | None:
     """Credentials for `hub_url`, or None when none are configured.
 
     Looked up in this order: `config_file` (or ``$STREAMTAB_SYNC_CONFIG``); the environment
@@ -241,7 +261,7 @@ class _Watchdog:
     def __init__(self) -> None:
         self._live: dict[_Watch, float] = {}
         self._cond = threading.Condition()
-        self._target: float | None = None      # when the sleeping thread wakes up next
+        self._target: float | None = None  # when the sleeping thread wakes up next
         self._thread = threading.Thread(target=self._run, name="streamtab-sync-deadlines", daemon=True)
         self._thread.start()
 
@@ -325,6 +345,7 @@ class _Watch:
         def closing() -> None:
             self.finish()
             close()
+
         resp.close = closing
         resp.streamtab_watch = self
 
@@ -358,9 +379,14 @@ def _watched_adapter_class():  # noqa: ANN202 - built on first use: no requests 
                         if watch is not None:
                             watch.add(conn)
                         return conn
+
                 return Pool
-            self.poolmanager.pool_classes_by_scheme = {"http": watched(HTTPConnectionPool),
-                                                       "https": watched(HTTPSConnectionPool)}
+
+            self.poolmanager.pool_classes_by_scheme = {
+                "http": watched(HTTPConnectionPool),
+                "https": watched(HTTPSConnectionPool),
+            }
+
     return WatchedAdapter
 
 
@@ -387,9 +413,9 @@ def _finite_depth_only(resp) -> bool:  # noqa: ANN001
 
 
 # OpenSSL verify codes (x509_vfy.h) and the texts Python shows for them
-_HOST_CODES = {62, 64}                     # hostname / IP address mismatch
-_CA_CODES = {2, 18, 19, 20, 21}            # issuer unknown, self-signed, not trusted
-_TIME_CODES = {9, 10}                      # not yet valid, expired
+_HOST_CODES = {62, 64}  # hostname / IP address mismatch
+_CA_CODES = {2, 18, 19, 20, 21}  # issuer unknown, self-signed, not trusted
+_TIME_CODES = {9, 10}  # not yet valid, expired
 
 
 def _verify_error(exc: BaseException):  # noqa: ANN202
@@ -404,8 +430,7 @@ def _verify_error(exc: BaseException):  # noqa: ANN202
         if isinstance(e, ssl.SSLCertVerificationError):
             return e
         todo.extend(a for a in getattr(e, "args", ()) if isinstance(a, BaseException))
-        todo.extend(x for x in (getattr(e, "reason", None), e.__cause__, e.__context__)
-                    if isinstance(x, BaseException))
+        todo.extend(x for x in (getattr(e, "reason", None), e.__cause__, e.__context__) if isinstance(x, BaseException))
     return None
 
 
@@ -417,20 +442,28 @@ def _tls_message(exc: BaseException, shown: str, ca_file: str | None) -> str:
     code = getattr(err, "verify_code", None)
     text = (getattr(err, "verify_message", "") or str(exc)).lower()
     if code in _HOST_CODES or "mismatch" in text or "doesn't match" in text:
-        return (f"the TLS certificate presented by {host} is made out for another host name; use the "
-                f"address the certificate was issued for, or have the hub's certificate reissued")
+        return (
+            f"the TLS certificate presented by {host} is made out for another host name; use the "
+            f"address the certificate was issued for, or have the hub's certificate reissued"
+        )
     if code in _TIME_CODES or "expired" in text or "not yet valid" in text:
-        return (f"the TLS certificate of {host} has expired or is not valid yet; check the device's "
-                f"date and time, or have the hub's certificate renewed")
+        return (
+            f"the TLS certificate of {host} has expired or is not valid yet; check the device's "
+            f"date and time, or have the hub's certificate renewed"
+        )
     if err is not None or code in _CA_CODES:
         where = f"the CA file {ca_file}" if ca_file else "this device's certificate authorities"
-        return (f"the TLS certificate of {host} was not issued by a certificate authority in {where}; "
-                f"if the program runs its own certificate authority, give its CA file (--ca-file, or "
-                f"$STREAMTAB_SYNC_CA_FILE, $REQUESTS_CA_BUNDLE or $SSL_CERT_FILE)")
+        return (
+            f"the TLS certificate of {host} was not issued by a certificate authority in {where}; "
+            f"if the program runs its own certificate authority, give its CA file (--ca-file, or "
+            f"$STREAMTAB_SYNC_CA_FILE, $REQUESTS_CA_BUNDLE or $SSL_CERT_FILE)"
+        )
     if "no certificate or crl found" in text or "pem" in text:
         return f"the CA file {ca_file} holds no certificate; give a PEM file of the program's certificate authority"
-    return (f"the TLS connection to {host} failed before any certificate check "
-            f"({str(exc).splitlines()[0][:120] if str(exc) else type(exc).__name__})")
+    return (
+        f"the TLS connection to {host} failed before any certificate check "
+        f"({str(exc).splitlines()[0][:120] if str(exc) else type(exc).__name__})"
+    )
 
 
 class Session:
@@ -455,16 +488,26 @@ class Session:
         timed out (retryable).
     """
 
-    def __init__(self, device_id: str | None = None, *, credentials: Credentials | None = None,
-                 connect_timeout_s: float = 5.0, read_timeout_s: float = 30.0,
-                 retry: RetryPolicy | None = None, ca_file: Path | str | None = None,
-                 max_document_bytes: int = MAX_DOCUMENT_BYTES,
-                 deadline_s: float | None = None,
-                 sleep: Callable[[float], None] = time.sleep) -> None:
+    def __init__(
+        self,
+        device_id: str | None = None,
+        *,
+        credentials: Credentials | None = None,
+        connect_timeout_s: float = 5.0,
+        read_timeout_s: float = 30.0,
+        retry: RetryPolicy | None = None,
+        ca_file: Path | str | None = None,
+        max_document_bytes: int = MAX_DOCUMENT_BYTES,
+        deadline_s: float | None = None,
+        sleep: Callable[[float], None] = time.sleep,
+    ) -> None:
         if deadline_s is None and all(isinstance(v, (int, float)) for v in (connect_timeout_s, read_timeout_s)):
             deadline_s = max(connect_timeout_s, read_timeout_s)
-        for name, value in (("connect_timeout_s", connect_timeout_s), ("read_timeout_s", read_timeout_s),
-                            ("deadline_s", deadline_s)):
+        for name, value in (
+            ("connect_timeout_s", connect_timeout_s),
+            ("read_timeout_s", read_timeout_s),
+            ("deadline_s", deadline_s),
+        ):
             if not (isinstance(value, (int, float)) and 0 < value <= 600):
                 raise errors.ConfigError(f"{name} {value!r} must be between 0 and 600 seconds")
         if ca_file is not None and not Path(ca_file).is_file():
@@ -472,8 +515,8 @@ class Session:
         self.device_id = device_id
         self.credentials = credentials
         self.timeout = (float(connect_timeout_s), float(read_timeout_s))
-        self.deadline_s = float(deadline_s or 0.0)     # checked above: a number in (0, 600]
-        self._local = threading.local()      # the watch of the request running in this thread
+        self.deadline_s = float(deadline_s or 0.0)  # checked above: a number in (0, 600]
+        self._local = threading.local()  # the watch of the request running in this thread
         self.retry = retry or RetryPolicy()
         self.ca_file = str(ca_file) if ca_file is not None else None
         self.max_document_bytes = int(max_document_bytes)
@@ -482,8 +525,10 @@ class Session:
         self._http: requests.Session | None = None
 
     def __repr__(self) -> str:
-        return (f"Session(device_id={self.device_id!r}, timeout={self.timeout}, retry={self.retry}, "
-                f"ca_file={self.ca_file!r}, credentials={'<hidden>' if self.credentials else None})")
+        return (
+            f"Session(device_id={self.device_id!r}, timeout={self.timeout}, retry={self.retry}, "
+            f"ca_file={self.ca_file!r}, credentials={'<hidden>' if self.credentials else None})"
+        )
 
     # -- HTTP ----------------------------------------------------------------------------------
     @property
@@ -495,14 +540,21 @@ class Session:
             http = requests.Session()
             # total=0 and read=False: urllib3 never re-sends anything by itself (a PUT whose answer
             # timed out may have landed); allowed_methods=None only silences a deprecation.
-            no_retry = Retry(total=0, connect=0, read=False, redirect=0, status=0, other=0,
-                             allowed_methods=None, raise_on_redirect=False,
-                             raise_on_status=False)
-            adapter = _watched_adapter(self._local, max_retries=no_retry, pool_connections=4,
-                                       pool_maxsize=4)
+            no_retry = Retry(
+                total=0,
+                connect=0,
+                read=False,
+                redirect=0,
+                status=0,
+                other=0,
+                allowed_methods=None,
+                raise_on_redirect=False,
+                raise_on_status=False,
+            )
+            adapter = _watched_adapter(self._local, max_retries=no_retry, pool_connections=4, pool_maxsize=4)
             http.mount("http://", adapter)
             http.mount("https://", adapter)
-            http.trust_env = False          # no proxies or netrc picked up behind the user's back
+            http.trust_env = False  # no proxies or netrc picked up behind the user's back
             http.verify = self.ca_file if self.ca_file else True
             import core
 
@@ -512,8 +564,15 @@ class Session:
             self._http = http
         return self._http
 
-    def request(self, method: str, url: str, *, body: bytes | None = None,
-                headers: Mapping[str, str] | None = None, stream: bool = False):  # noqa: ANN201
+    def request(
+        self,
+        method: str,
+        url: str,
+        *,
+        body: bytes | None = None,
+        headers: Mapping[str, str] | None = None,
+        stream: bool = False,
+    ):  # noqa: ANN201
         """One HTTP request under this session's policy; returns the response for any status
         that is not an error of the tree (2xx, 404, 409, 412, ...), raises otherwise."""
         import requests
@@ -529,8 +588,9 @@ class Session:
         watch = _Watch(self.deadline_s)
         self._local.watch = watch
         try:
-            resp = http.request(method, url, data=body, headers=hdrs, timeout=self.timeout,
-                                allow_redirects=False, stream=stream)
+            resp = http.request(
+                method, url, data=body, headers=hdrs, timeout=self.timeout, allow_redirects=False, stream=stream
+            )
         except requests.exceptions.SSLError as exc:
             watch.finish()
             raise errors.TLSError(_tls_message(exc, shown, self.ca_file)) from None
@@ -539,25 +599,36 @@ class Session:
             if isinstance(exc, errors.SyncError):
                 raise
             if watch.fired:
-                raise errors.TimedOut(f"{method} {shown} took longer than the {self.deadline_s:g} s "
-                                      f"limit for one request (the answer came too slowly)") from None
+                raise errors.TimedOut(
+                    f"{method} {shown} took longer than the {self.deadline_s:g} s "
+                    f"limit for one request (the answer came too slowly)"
+                ) from None
             if isinstance(exc, requests.exceptions.Timeout):
                 raise errors.TimedOut(f"{method} {shown} got no answer within the timeout") from None
             if isinstance(exc, requests.exceptions.ConnectionError):
                 raise errors.Unreachable(f"{method} {shown}: the connection failed or was cut") from None
-            if isinstance(exc, (requests.exceptions.InvalidURL, requests.exceptions.MissingSchema,
-                                requests.exceptions.InvalidSchema, requests.exceptions.URLRequired)):
+            if isinstance(
+                exc,
+                (
+                    requests.exceptions.InvalidURL,
+                    requests.exceptions.MissingSchema,
+                    requests.exceptions.InvalidSchema,
+                    requests.exceptions.URLRequired,
+                ),
+            ):
                 raise errors.ConfigError(f"{method} {shown} could not be sent ({type(exc).__name__})") from None
             if isinstance(exc, OSError) and "CA certificate bundle" in str(exc):
-                raise errors.TLSError(f"the CA file {self.ca_file} cannot be read; give a PEM file of the "
-                                      f"program's certificate authority") from None
+                raise errors.TLSError(
+                    f"the CA file {self.ca_file} cannot be read; give a PEM file of the program's certificate authority"
+                ) from None
             # an answer cut or garbled on the way (ChunkedEncodingError, ...)
             raise errors.Unreachable(
-                f"{method} {shown}: the answer was cut or garbled on the way ({type(exc).__name__})") from None
+                f"{method} {shown}: the answer was cut or garbled on the way ({type(exc).__name__})"
+            ) from None
         finally:
             self._local.watch = None
         if stream:
-            watch.attach(resp)          # the caller reads the body; the watch ends at resp.close()
+            watch.attach(resp)  # the caller reads the body; the watch ends at resp.close()
         else:
             watch.finish()
         status = resp.status_code
@@ -566,20 +637,22 @@ class Session:
             resp.close()
             raise errors.RedirectRefused(
                 f"the hub answered {method} {shown} with a redirect ({status}) to {where}; sync never "
-                f"follows redirects, so set the hub address to the final URL")
+                f"follows redirects, so set the hub address to the final URL"
+            )
         if status == 403 and method == "PROPFIND" and _finite_depth_only(resp):
             resp.close()
             raise errors.DepthRefused(
-                f"the hub refuses PROPFIND {shown} with Depth: infinity (RFC 4918 propfind-finite-depth)")
+                f"the hub refuses PROPFIND {shown} with Depth: infinity (RFC 4918 propfind-finite-depth)"
+            )
         if status in (401, 403):
             resp.close()
             raise errors.Unauthorized(
                 f"the hub refused {method} {shown} ({status}); check the user name and password or "
-                f"token in the credentials file or environment")
+                f"token in the credentials file or environment"
+            )
         if status >= 500 or status == 429:
             resp.close()
-            raise errors.ServerError(f"the hub answered {method} {shown} with {status}; sync will retry",
-                                     status)
+            raise errors.ServerError(f"the hub answered {method} {shown} with {status}; sync will retry", status)
         return resp
 
     def read_body(self, resp, limit: int, where: str, *, too_big: Callable[[], Exception] | None = None) -> bytes:  # noqa: ANN001
@@ -590,6 +663,7 @@ class Session:
 
         def big() -> Exception:
             return too_big() if too_big else errors.Rejected(f"{where} is larger than {limit} bytes")
+
         length = resp.headers.get("Content-Length")
         if length and length.isdigit() and int(length) > limit:
             raise big()
@@ -605,14 +679,14 @@ class Session:
             raise
         except Exception as exc:  # noqa: BLE001 - requests/urllib3 read errors while streaming the body
             if watch is not None and watch.fired:
-                raise errors.TimedOut(f"reading {where} took longer than the {self.deadline_s:g} s limit "
-                                      f"for one request") from None
+                raise errors.TimedOut(
+                    f"reading {where} took longer than the {self.deadline_s:g} s limit for one request"
+                ) from None
             if isinstance(exc, requests.exceptions.Timeout) or "timed out" in str(exc).lower():
                 raise errors.TimedOut(f"reading {where} timed out") from None
             raise errors.Unreachable(f"the connection was cut while reading {where}") from None
         if watch is not None and watch.fired:
-            raise errors.TimedOut(f"reading {where} took longer than the {self.deadline_s:g} s limit "
-                                  f"for one request")
+            raise errors.TimedOut(f"reading {where} took longer than the {self.deadline_s:g} s limit for one request")
         data = b"".join(chunks)
         if length and length.isdigit() and int(length) != len(data):
             raise errors.Unreachable(f"the answer for {where} was cut ({len(data)} of {length} bytes)")

@@ -13,6 +13,7 @@ All targets share one small interface: ``list_trip``, ``list_all``, ``read``, ``
 and ``close``; folders and WebDAV also keep the change log (``log_folders``, ``log_list``,
 ``log_read``, ``log_write``; see `sync.changelog`). See `sync.layout` for the names at the hub.
 """
+
 from __future__ import annotations
 
 import errno
@@ -28,18 +29,41 @@ from urllib.parse import quote, unquote, urlsplit
 
 from core.store.atomic import EXPORT_MODE, atomic_write_bytes, fsync_dir
 from sync import errors
-from sync.layout import (INCOMING, LOG, TRIPS, canonical_trip_id, device_key, incoming_name,
-                         is_hidden_name, is_incoming_name, name_matches, odd_entry, parse_revision_name, shown_name,
-                         trip_dir)
+from sync.layout import (
+    INCOMING,
+    LOG,
+    TRIPS,
+    canonical_trip_id,
+    device_key,
+    incoming_name,
+    is_hidden_name,
+    is_incoming_name,
+    name_matches,
+    odd_entry,
+    parse_revision_name,
+    shown_name,
+    trip_dir,
+)
 from sync.program import KINDS as PROGRAM_KINDS
 from sync.program import PROGRAM, is_program_name, program_dir
 from sync.program import name_matches as program_name_matches
 from sync.session import Session, redact_url
 
-__all__ = ["RemoteFile", "WriteResult", "Target", "Listing", "FolderTarget", "WebDavTarget",
-           "PostTarget", "open_target", "check_address", "POST_PREFIX", "MAX_LISTING_BYTES",
-           "MAX_ACK_BYTES",
-           "STALE_UPLOAD_S"]
+__all__ = [
+    "RemoteFile",
+    "WriteResult",
+    "Target",
+    "Listing",
+    "FolderTarget",
+    "WebDavTarget",
+    "PostTarget",
+    "open_target",
+    "check_address",
+    "POST_PREFIX",
+    "MAX_LISTING_BYTES",
+    "MAX_ACK_BYTES",
+    "STALE_UPLOAD_S",
+]
 
 POST_PREFIX = "post+"
 MAX_LISTING_BYTES = 64 * 1024 * 1024
@@ -66,20 +90,21 @@ class RemoteFile:
 
 @dataclass(frozen=True)
 class WriteResult:
-    created: bool          # False: the hub already held these exact bytes
+    created: bool  # False: the hub already held these exact bytes
     etag: str | None = None
 
 
 class Target(Protocol):
-    url: str           # shown to people: never carries credentials
-    key: str           # stable short id of this hub (names the outbox folder)
-    can_list: bool     # False for a POST endpoint: only the outbox knows what was sent
+    url: str  # shown to people: never carries credentials
+    key: str  # stable short id of this hub (names the outbox folder)
+    can_list: bool  # False for a POST endpoint: only the outbox knows what was sent
 
     def list_trip(self, year: str, trip_id: str) -> frozenset[str] | None: ...
     def list_all(self) -> list[RemoteFile]: ...
     def read(self, f: RemoteFile, max_bytes: int) -> bytes: ...
-    def write_revision(self, year: str, trip_id: str, name: str, data: bytes,
-                       device_id: str, revision: int, content_hash: str) -> WriteResult: ...
+    def write_revision(
+        self, year: str, trip_id: str, name: str, data: bytes, device_id: str, revision: int, content_hash: str
+    ) -> WriteResult: ...
     def close(self) -> None: ...
     # the program's tables (sync/program.py); an intake endpoint has none
     def list_program(self, kind: str) -> frozenset[str]: ...
@@ -100,8 +125,13 @@ def _key(text: str) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
 
 
-def _checked_read(f: RemoteFile, where: str, fetch, session: Session | None,  # noqa: ANN001, ANN202
-                  matches=name_matches):  # noqa: ANN001
+def _checked_read(
+    f: RemoteFile,
+    where: str,
+    fetch,
+    session: Session | None,  # noqa: ANN001, ANN202
+    matches=name_matches,
+):  # noqa: ANN001
     """Reads a hub file with `fetch()` and checks its bytes against the hash in its name
     (``matches(name, data)``: a trip revision's by default, a program table's for those).
 
@@ -116,20 +146,26 @@ def _checked_read(f: RemoteFile, where: str, fetch, session: Session | None,  # 
         if matches(f.name, data):
             return data
         if f.size is not None and f.size != len(data):
-            framed = False          # not the size the listing gave: the answer was cut
+            framed = False  # not the size the listing gave: the answer was cut
         if not framed:
             # an answer without a length to check it by (a cut inside the headers drops the
             # Content-Length and reads as a short 200) can never prove the hub copy damaged
-            raise errors.ReadMismatch(f"hub copy {where} arrived without its full length ({len(data)} "
-                                      f"bytes; cut on the way)")
+            raise errors.ReadMismatch(
+                f"hub copy {where} arrived without its full length ({len(data)} bytes; cut on the way)"
+            )
         if previous and previous[-1] == data:
-            exc = errors.IntegrityError(f"hub copy {where} does not match the content hash in its "
-                                        f"name on two fresh reads (truncated or altered at the hub)")
+            exc = errors.IntegrityError(
+                f"hub copy {where} does not match the content hash in its "
+                f"name on two fresh reads (truncated or altered at the hub)"
+            )
             exc.data = data
             raise exc
         previous.append(data)
-        raise errors.ReadMismatch(f"hub copy {where} did not match the content hash in its name "
-                                  f"as read ({len(data)} bytes; cut or altered on the way)")
+        raise errors.ReadMismatch(
+            f"hub copy {where} did not match the content hash in its name "
+            f"as read ({len(data)} bytes; cut or altered on the way)"
+        )
+
     if session is None:
         try:
             return step()
@@ -148,7 +184,7 @@ def _walk_report(root_rel: str, entries, skipped: list[str]) -> list[tuple[tuple
         parts = tuple(p for p in relpath.strip("/").split("/") if p)
         if len(parts) < 2 or parts[0] != TRIPS or any(is_hidden_name(p) for p in parts):
             continue
-        if any(parts[:len(o)] == o for o in odd_prefixes):
+        if any(parts[: len(o)] == o for o in odd_prefixes):
             continue
         why = odd_entry(parts, is_col)
         if why is not None:
@@ -176,8 +212,9 @@ class FolderTarget:
         self.url = str(self.root)
         self.key = _key("folder:" + self.url)
         if not self.root.is_dir():
-            raise errors.ConfigError(f"hub folder {self.url} does not exist; create it, mount the "
-                                     f"share or check the path")
+            raise errors.ConfigError(
+                f"hub folder {self.url} does not exist; create it, mount the share or check the path"
+            )
 
     def _trip_path(self, year: str, trip_id: str) -> Path:
         return self.root / trip_dir(year, trip_id)
@@ -210,7 +247,7 @@ class FolderTarget:
                     for f in os.scandir(tdir.path):
                         try:
                             is_dir, size = f.is_dir(), (None if f.is_dir() else f.stat().st_size)
-                        except OSError:              # listed and gone: read settles it
+                        except OSError:  # listed and gone: read settles it
                             is_dir, size = False, None
                         entries.append((f"{TRIPS}/{year.name}/{tdir.name}/{f.name}", is_dir, size))
         except OSError as exc:
@@ -238,10 +275,12 @@ class FolderTarget:
             if len(data) > max_bytes:
                 raise _too_big(where, max_bytes)
             return data, True
+
         return _checked_read(f, where, fetch, None)
 
-    def write_revision(self, year: str, trip_id: str, name: str, data: bytes,
-                       device_id: str, revision: int, content_hash: str) -> WriteResult:
+    def write_revision(
+        self, year: str, trip_id: str, name: str, data: bytes, device_id: str, revision: int, content_hash: str
+    ) -> WriteResult:
         if not self.root.is_dir():
             raise errors.ConfigError(f"hub folder {self.url} does not exist; create it or check the path")
         tmp = self.root / incoming_name(device_id, trip_id)
@@ -290,8 +329,11 @@ class FolderTarget:
             raise errors.Unreachable(f"hub folder {self.url} cannot be listed ({exc.strerror})") from None
         for e in entries:
             try:
-                if is_incoming_name(e.name) and e.is_file(follow_symlinks=False) \
-                        and e.stat(follow_symlinks=False).st_mtime < now - STALE_UPLOAD_S:
+                if (
+                    is_incoming_name(e.name)
+                    and e.is_file(follow_symlinks=False)
+                    and e.stat(follow_symlinks=False).st_mtime < now - STALE_UPLOAD_S
+                ):
                     os.unlink(e.path)
                     removed += 1
             except FileNotFoundError:
@@ -339,7 +381,7 @@ class FolderTarget:
                 created = True
             except FileExistsError:
                 if (folder / name).read_bytes() != data:
-                    os.replace(tmp, folder / name)   # content-addressed: only these bytes belong there
+                    os.replace(tmp, folder / name)  # content-addressed: only these bytes belong there
                 created = False
             except OSError as exc:
                 if exc.errno not in (errno.EPERM, errno.ENOTSUP, errno.EOPNOTSUPP, errno.EXDEV, errno.EMLINK):
@@ -361,11 +403,10 @@ class FolderTarget:
         existing = final.read_bytes()
         if existing == data:
             return False
-        if not name_matches(final.name, existing):   # a damaged copy: put the right bytes back
+        if not name_matches(final.name, existing):  # a damaged copy: put the right bytes back
             os.replace(tmp, final)
             return True
         raise errors.IntegrityError(f"hub file {final.name} holds other content than its name says")
-
 
     # program tables (sync/program.py): the same write-once dance as revisions
     def list_program(self, kind: str) -> frozenset[str]:
@@ -391,6 +432,7 @@ class FolderTarget:
             if len(data) > max_bytes:
                 raise _too_big(where, max_bytes)
             return data, True
+
         return _checked_read(RemoteFile("", kind, name), where, fetch, None, program_name_matches)
 
     def write_program(self, kind: str, name: str, data: bytes, device_id: str) -> bool:
@@ -406,7 +448,7 @@ class FolderTarget:
                 created = True
             except FileExistsError:
                 created = final.read_bytes() != data
-                if created:                          # damaged: only these bytes belong there
+                if created:  # damaged: only these bytes belong there
                     os.replace(tmp, final)
             except OSError as exc:
                 if exc.errno not in (errno.EPERM, errno.ENOTSUP, errno.EOPNOTSUPP, errno.EXDEV, errno.EMLINK):
@@ -429,14 +471,18 @@ class FolderTarget:
 
 
 # --- WebDAV ------------------------------------------------------------------------------------
-_PROPFIND_BODY = (b'<?xml version="1.0" encoding="utf-8"?>'
-                  b'<D:propfind xmlns:D="DAV:"><D:prop><D:resourcetype/><D:getcontentlength/>'
-                  b'<D:getetag/></D:prop></D:propfind>')
+_PROPFIND_BODY = (
+    b'<?xml version="1.0" encoding="utf-8"?>'
+    b'<D:propfind xmlns:D="DAV:"><D:prop><D:resourcetype/><D:getcontentlength/>'
+    b"<D:getetag/></D:prop></D:propfind>"
+)
 
 
-_PROPFIND_TIMES_BODY = (b'<?xml version="1.0" encoding="utf-8"?>'
-                        b'<D:propfind xmlns:D="DAV:"><D:prop><D:resourcetype/><D:getcontentlength/>'
-                        b'<D:getlastmodified/></D:prop></D:propfind>')
+_PROPFIND_TIMES_BODY = (
+    b'<?xml version="1.0" encoding="utf-8"?>'
+    b'<D:propfind xmlns:D="DAV:"><D:prop><D:resourcetype/><D:getcontentlength/>'
+    b"<D:getlastmodified/></D:prop></D:propfind>"
+)
 
 
 class WebDavTarget:
@@ -460,7 +506,7 @@ class WebDavTarget:
         self.session = session
         self._base_path = unquote(urlsplit(url).path)
         self._made: set[str] = set()
-        self._program: dict[str, frozenset[str]] | None = None   # program/ listed once per sync
+        self._program: dict[str, frozenset[str]] | None = None  # program/ listed once per sync
         #: the Date (server clock, epoch s) of the last PROPFIND answer, for the change log
         self.listed_at: float | None = None
 
@@ -473,16 +519,15 @@ class WebDavTarget:
             return
         resp = self.session.retrying(lambda: self.session.request("MKCOL", self._u(rel)))
         resp.close()
-        if resp.status_code in (201, 405):          # 405: it exists already
+        if resp.status_code in (201, 405):  # 405: it exists already
             self._made.add(rel)
             return
-        if resp.status_code == 409 and depth < 6:    # a parent is missing
+        if resp.status_code == 409 and depth < 6:  # a parent is missing
             parent = rel.rstrip("/").rpartition("/")[0]
             if parent:
                 self._mkcol(parent + "/", depth + 1)
                 return self._mkcol(rel, depth + 1)
-        raise errors.Rejected(f"the hub refused to create collection {rel} ({resp.status_code})",
-                              resp.status_code)
+        raise errors.Rejected(f"the hub refused to create collection {rel} ({resp.status_code})", resp.status_code)
 
     def _mkcol_new(self, rel: str) -> bool:
         """MKCOL that tells whether it made the collection (True) or it was there (False)."""
@@ -498,26 +543,29 @@ class WebDavTarget:
             parent = rel.rstrip("/").rpartition("/")[0]
             self._mkcol(parent + "/")
             return self._mkcol_new(rel)
-        raise errors.Rejected(f"the hub refused to create collection {rel} ({resp.status_code})",
-                              resp.status_code)
+        raise errors.Rejected(f"the hub refused to create collection {rel} ({resp.status_code})", resp.status_code)
 
     # listing
-    def _propfind(self, rel: str, depth: str, body: bytes = _PROPFIND_BODY,
-                  with_times: bool = False) -> list[tuple] | None:
+    def _propfind(
+        self, rel: str, depth: str, body: bytes = _PROPFIND_BODY, with_times: bool = False
+    ) -> list[tuple] | None:
         """Entries (relpath, is_folder, size[, last modified]) of one PROPFIND; None for 404.
         The request, its body and the XML are one retried step: a listing cut mid-answer (or
         inside its headers, which reads as an empty 207) is a transport problem, not bad input."""
+
         def step():
-            resp = self.session.request("PROPFIND", self._u(rel), body=body,
-                                        headers={"Depth": depth,
-                                                 "Content-Type": "application/xml; charset=utf-8"},
-                                        stream=True)
+            resp = self.session.request(
+                "PROPFIND",
+                self._u(rel),
+                body=body,
+                headers={"Depth": depth, "Content-Type": "application/xml; charset=utf-8"},
+                stream=True,
+            )
             try:
                 if resp.status_code == 404:
                     return None
                 if resp.status_code != 207:
-                    raise errors.Rejected(f"the hub answered PROPFIND {rel} with {resp.status_code}",
-                                          resp.status_code)
+                    raise errors.Rejected(f"the hub answered PROPFIND {rel} with {resp.status_code}", resp.status_code)
                 raw = self.session.read_body(resp, MAX_LISTING_BYTES, f"listing of {rel}")
                 self.listed_at = _http_time(resp.headers.get("Date"))
             finally:
@@ -525,8 +573,10 @@ class WebDavTarget:
             try:
                 return ET.fromstring(raw)
             except ET.ParseError:
-                raise errors.Unreachable(f"the hub's listing of {rel} arrived cut or garbled "
-                                         f"({len(raw)} bytes of XML that do not parse)") from None
+                raise errors.Unreachable(
+                    f"the hub's listing of {rel} arrived cut or garbled ({len(raw)} bytes of XML that do not parse)"
+                ) from None
+
         root = self.session.retrying(step)
         if root is None:
             return None
@@ -539,7 +589,7 @@ class WebDavTarget:
                 continue
             if not path.startswith(self._base_path):
                 continue
-            relpath = path[len(self._base_path):]
+            relpath = path[len(self._base_path) :]
             is_col = r.find(".//{DAV:}resourcetype/{DAV:}collection") is not None
             size_text = r.findtext(".//{DAV:}getcontentlength")
             size = int(size_text) if size_text and size_text.strip().isdigit() else None
@@ -555,8 +605,9 @@ class WebDavTarget:
         if entries is None:
             return None
         self._made.add(rel)
-        return frozenset(p.rsplit("/", 1)[-1] for p, col, _ in entries
-                         if not col and parse_revision_name(p.rsplit("/", 1)[-1]))
+        return frozenset(
+            p.rsplit("/", 1)[-1] for p, col, _ in entries if not col and parse_revision_name(p.rsplit("/", 1)[-1])
+        )
 
     def list_all(self) -> Listing:
         try:
@@ -604,12 +655,13 @@ class WebDavTarget:
             if resp.status_code in (404, 410):
                 raise errors.Gone(f"hub file {rel} was listed but is gone")
             if resp.status_code != 200:
-                raise errors.Rejected(f"the hub answered GET {rel} with {resp.status_code}",
-                                      resp.status_code)
+                raise errors.Rejected(f"the hub answered GET {rel} with {resp.status_code}", resp.status_code)
             data = self.session.read_body(resp, max_bytes, rel, too_big=lambda: _too_big(rel, max_bytes))
             # read_body checked a Content-Length; a chunked body ends with its last chunk
-            framed = bool(resp.headers.get("Content-Length")) or \
-                "chunked" in resp.headers.get("Transfer-Encoding", "").lower()
+            framed = (
+                bool(resp.headers.get("Content-Length"))
+                or "chunked" in resp.headers.get("Transfer-Encoding", "").lower()
+            )
             return data, framed
         finally:
             resp.close()
@@ -621,11 +673,11 @@ class WebDavTarget:
                 if resp.status_code == 404:
                     return None
                 if resp.status_code != 200:
-                    raise errors.Rejected(f"the hub answered GET {rel} with {resp.status_code}",
-                                          resp.status_code)
+                    raise errors.Rejected(f"the hub answered GET {rel} with {resp.status_code}", resp.status_code)
                 return self.session.read_body(resp, limit, rel)
             finally:
                 resp.close()
+
         return self.session.retrying(step)
 
     # change log (sync.changelog)
@@ -662,12 +714,13 @@ class WebDavTarget:
 
         def step() -> bool:
             for _ in range(3):
-                resp = self.session.request("PUT", self._u(rel), body=data,
-                                            headers={"Content-Type": "application/json", "If-None-Match": "*"})
+                resp = self.session.request(
+                    "PUT", self._u(rel), body=data, headers={"Content-Type": "application/json", "If-None-Match": "*"}
+                )
                 resp.close()
                 if resp.status_code in (200, 201, 204):
                     return True
-                if resp.status_code == 409:           # log/ or log/<device>/ missing
+                if resp.status_code == 409:  # log/ or log/<device>/ missing
                     self._made.discard(f"{LOG}/{device}/")
                     self._mkcol(f"{LOG}/{device}/")
                     continue
@@ -675,13 +728,15 @@ class WebDavTarget:
                     existing = self._get_bytes(rel, len(data) + 1)
                     if existing == data:
                         return False
-                    resp = self.session.request("PUT", self._u(rel), body=data,
-                                                headers={"Content-Type": "application/json"})
+                    resp = self.session.request(
+                        "PUT", self._u(rel), body=data, headers={"Content-Type": "application/json"}
+                    )
                     resp.close()
                     if resp.status_code in (200, 201, 204):
                         return True
                 raise errors.Rejected(f"the hub refused log entry {rel} ({resp.status_code})", resp.status_code)
             raise errors.Rejected(f"the hub refused to create the collection for {rel}")
+
         return self.session.retrying(step)
 
     # cleaning
@@ -709,8 +764,7 @@ class WebDavTarget:
             if resp.status_code in (200, 204):
                 removed += 1
             elif resp.status_code != 404:
-                raise errors.Rejected(f"the hub refused to remove {rel}{name} ({resp.status_code})",
-                                      resp.status_code)
+                raise errors.Rejected(f"the hub refused to remove {rel}{name} ({resp.status_code})", resp.status_code)
         return removed
 
     # writing
@@ -718,8 +772,9 @@ class WebDavTarget:
         """Makes the trip's collection; True if it was new (nobody else has written this trip)."""
         return self._mkcol_new(trip_dir(year, trip_id))
 
-    def write_revision(self, year: str, trip_id: str, name: str, data: bytes,
-                       device_id: str, revision: int, content_hash: str) -> WriteResult:
+    def write_revision(
+        self, year: str, trip_id: str, name: str, data: bytes, device_id: str, revision: int, content_hash: str
+    ) -> WriteResult:
         tdir = trip_dir(year, trip_id)
         final_rel = tdir + name
         tmp_rel, etag = self.session.retrying(lambda: self._put_temp(device_id, trip_id, data))
@@ -730,7 +785,7 @@ class WebDavTarget:
         try:
             existing = self._get_bytes(final_rel, len(data) + 1)
         except errors.Rejected:
-            existing = b""      # larger than ours or unreadable: not our bytes
+            existing = b""  # larger than ours or unreadable: not our bytes
         if existing == data:
             return WriteResult(created=(outcome == "gone"), etag=etag)
         if outcome == "exists" and (existing is None or not name_matches(name, existing)):
@@ -747,25 +802,26 @@ class WebDavTarget:
         """PUTs `data` to the fresh upload name `tmp_rel` (under ``incoming/<device key>/``, made
         when missing); returns the name and the ETag the hub gave."""
         for _ in range(2):
-            resp = self.session.request("PUT", self._u(tmp_rel), body=data,
-                                        headers={"Content-Type": "application/json",
-                                                 "If-None-Match": "*"})
+            resp = self.session.request(
+                "PUT", self._u(tmp_rel), body=data, headers={"Content-Type": "application/json", "If-None-Match": "*"}
+            )
             resp.close()
             if resp.status_code in (200, 201, 204):
                 return tmp_rel, resp.headers.get("ETag")
-            if resp.status_code == 409:             # incoming/<device>/ missing
+            if resp.status_code == 409:  # incoming/<device>/ missing
                 self._made.discard(f"{INCOMING}/{device_key(device_id)}/")
                 self._mkcol(f"{INCOMING}/{device_key(device_id)}/")
                 continue
-            raise errors.Rejected(f"the hub refused an upload to {INCOMING}/ ({resp.status_code})",
-                                  resp.status_code)
+            raise errors.Rejected(f"the hub refused an upload to {INCOMING}/ ({resp.status_code})", resp.status_code)
         raise errors.Rejected(f"the hub refused to create {INCOMING}/ for uploads")
 
     def _move(self, src_rel: str, dst_rel: str, year: str, trip_id: str, overwrite: bool = False) -> str:
         for _ in range(2):
-            resp = self.session.request("MOVE", self._u(src_rel),
-                                        headers={"Destination": self._u(dst_rel),
-                                                 "Overwrite": "T" if overwrite else "F"})
+            resp = self.session.request(
+                "MOVE",
+                self._u(src_rel),
+                headers={"Destination": self._u(dst_rel), "Overwrite": "T" if overwrite else "F"},
+            )
             resp.close()
             code = resp.status_code
             if code in (201, 204):
@@ -774,12 +830,11 @@ class WebDavTarget:
                 return "exists"
             if code == 404:
                 return "gone"
-            if code == 409:                          # the trip's collection is missing
+            if code == 409:  # the trip's collection is missing
                 self._mkcol(trip_dir(year, trip_id))
                 continue
             raise errors.Rejected(f"the hub refused MOVE to {dst_rel} ({code})", code)
         raise errors.Rejected(f"the hub refused MOVE to {dst_rel}: its collection cannot be made")
-
 
     # program tables (sync/program.py): PUT to incoming/, MOVE with Overwrite: F, like revisions
     def list_program(self, kind: str) -> frozenset[str]:
@@ -793,16 +848,26 @@ class WebDavTarget:
                 entries = [e for k in PROGRAM_KINDS for e in self._propfind(program_dir(k), "1") or []]
             for relpath, is_col, *_ in entries:
                 parts = relpath.strip("/").split("/")
-                if not is_col and len(parts) == 3 and parts[0] == PROGRAM and parts[1] in found \
-                        and is_program_name(parts[2]):
+                if (
+                    not is_col
+                    and len(parts) == 3
+                    and parts[0] == PROGRAM
+                    and parts[1] in found
+                    and is_program_name(parts[2])
+                ):
                     found[parts[1]].add(parts[2])
             self._program = {k: frozenset(v) for k, v in found.items()}
         return self._program[kind]
 
     def read_program(self, kind: str, name: str, max_bytes: int) -> bytes:
         rel = program_dir(kind) + name
-        return _checked_read(RemoteFile("", kind, name), rel, functools.partial(self._fetch, rel, max_bytes),
-                             self.session, program_name_matches)
+        return _checked_read(
+            RemoteFile("", kind, name),
+            rel,
+            functools.partial(self._fetch, rel, max_bytes),
+            self.session,
+            program_name_matches,
+        )
 
     def write_program(self, kind: str, name: str, data: bytes, device_id: str) -> bool:
         """Publishes one table file; False when the hub already held these bytes."""
@@ -814,13 +879,14 @@ class WebDavTarget:
             return self._put_upload(incoming_name(device_id, kind), device_id, data)[0]
 
         def move(tmp_rel: str, overwrite: bool) -> int:
-            resp = self.session.request("MOVE", self._u(tmp_rel),
-                                        headers={"Destination": self._u(final_rel),
-                                                 "Overwrite": "T" if overwrite else "F"})
+            resp = self.session.request(
+                "MOVE",
+                self._u(tmp_rel),
+                headers={"Destination": self._u(final_rel), "Overwrite": "T" if overwrite else "F"},
+            )
             resp.close()
             if resp.status_code not in (201, 204, 404, 412):
-                raise errors.Rejected(f"the hub refused MOVE to {final_rel} ({resp.status_code})",
-                                      resp.status_code)
+                raise errors.Rejected(f"the hub refused MOVE to {final_rel} ({resp.status_code})", resp.status_code)
             return resp.status_code
 
         self._program = None
@@ -834,7 +900,7 @@ class WebDavTarget:
             existing = b""
         if existing == data:
             return code == 404
-        if code == 412:                  # a damaged copy under this content-addressed name
+        if code == 412:  # a damaged copy under this content-addressed name
             tmp_rel = self.session.retrying(put)
             self.session.retrying(lambda: move(tmp_rel, True))
             return True
@@ -849,7 +915,6 @@ def quote_rel(parts: tuple[str, ...]) -> str:
     return "/".join(parts) + "/"
 
 
-
 def _http_time(text: str | None) -> float | None:
     """An HTTP date (RFC 9110) as epoch seconds, or None."""
     if not text:
@@ -858,6 +923,7 @@ def _http_time(text: str | None) -> float | None:
         return parsedate_to_datetime(text.strip()).timestamp()
     except (TypeError, ValueError, IndexError, OverflowError):
         return None
+
 
 # --- HTTP POST endpoint ----------------------------------------------------------------------------
 class PostTarget:
@@ -887,7 +953,8 @@ class PostTarget:
 
     def list_all(self) -> list[RemoteFile]:
         raise errors.ConfigError(
-            f"{self.url} is an HTTP endpoint that only receives trips; pull from a folder or WebDAV hub")
+            f"{self.url} is an HTTP endpoint that only receives trips; pull from a folder or WebDAV hub"
+        )
 
     def read(self, f: RemoteFile, max_bytes: int) -> bytes:
         raise errors.ConfigError("an HTTP endpoint cannot be read from")
@@ -902,26 +969,35 @@ class PostTarget:
     def write_program(self, kind: str, name: str, data: bytes, device_id: str) -> bool:
         raise errors.ConfigError("an HTTP endpoint takes trips only, not the site list or settings")
 
-    def write_revision(self, year: str, trip_id: str, name: str, data: bytes,
-                       device_id: str, revision: int, content_hash: str) -> WriteResult:
+    def write_revision(
+        self, year: str, trip_id: str, name: str, data: bytes, device_id: str, revision: int, content_hash: str
+    ) -> WriteResult:
         key = self.idempotency_key(trip_id, revision, content_hash)
 
         def step():
-            resp = self.session.request("POST", self.endpoint, body=data,
-                                        headers={"Content-Type": "application/json",
-                                                 "Accept": "application/json",
-                                                 "Idempotency-Key": key}, stream=True)
+            resp = self.session.request(
+                "POST",
+                self.endpoint,
+                body=data,
+                headers={"Content-Type": "application/json", "Accept": "application/json", "Idempotency-Key": key},
+                stream=True,
+            )
             try:
                 body = b""
                 if 200 <= resp.status_code < 300:
                     body = self.session.read_body(
-                        resp, MAX_ACK_BYTES, "the endpoint's answer",
+                        resp,
+                        MAX_ACK_BYTES,
+                        "the endpoint's answer",
                         too_big=lambda: errors.NotDelivered(
                             f"the endpoint answered {resp.status_code} with more than {MAX_ACK_BYTES} "
-                            f"bytes, not an acknowledgement; trip {trip_id} is not counted as delivered"))
+                            f"bytes, not an acknowledgement; trip {trip_id} is not counted as delivered"
+                        ),
+                    )
                 return resp.status_code, resp.headers, body
             finally:
                 resp.close()
+
         status, headers, body = self.session.retrying(step)
         if 200 <= status < 300:
             problem = ack_problem(body, trip_id, content_hash)
@@ -929,7 +1005,8 @@ class PostTarget:
                 raise errors.NotDelivered(
                     f"the endpoint answered {status} but {problem} ({_describe(headers, body)}); trip "
                     f"{trip_id} is not counted as delivered and is sent again next sync — check that "
-                    f"the address is the intake endpoint itself")
+                    f"the address is the intake endpoint itself"
+                )
             return WriteResult(created=True, etag=headers.get("ETag"))
         if status == 409:
             raise errors.Conflict(f"the endpoint holds a conflicting version of trip {trip_id} (409)")
@@ -943,20 +1020,23 @@ def _check_url(url: str) -> None:
     """The rules for an http(s) hub address; ConfigError (never echoing a password) when one fails."""
     parts = urlsplit(url)
     if parts.username is not None or parts.password is not None:
-        raise errors.ConfigError("the hub address must not carry a user name or password; put "
-                                 "them in the credentials file or the environment")
+        raise errors.ConfigError(
+            "the hub address must not carry a user name or password; put "
+            "them in the credentials file or the environment"
+        )
     if not parts.hostname:
         raise errors.ConfigError(f"the hub address {redact_url(url)} has no host name")
     if parts.scheme.lower() == "http" and parts.hostname not in _LOOPBACK:
-        raise errors.ConfigError(f"plain http:// is allowed only on this machine (127.0.0.1); "
-                                 f"use https:// for {parts.hostname}")
+        raise errors.ConfigError(
+            f"plain http:// is allowed only on this machine (127.0.0.1); use https:// for {parts.hostname}"
+        )
 
 
 def check_address(address: str) -> None:
     """Checks a web hub address by open_target's rules without opening anything (a screen checks
     what was typed before storing it); ConfigError saying what is wrong. Folders are not looked at."""
     address = (address or "").strip()
-    url = address[len(POST_PREFIX):] if address.lower().startswith(POST_PREFIX) else address
+    url = address[len(POST_PREFIX) :] if address.lower().startswith(POST_PREFIX) else address
     try:
         scheme = urlsplit(url).scheme.lower() if "://" in url else ""
     except ValueError:
@@ -995,12 +1075,13 @@ def _describe(headers, body: bytes) -> str:  # noqa: ANN001
 def open_target(address: str, session: Session) -> Target:
     """The target for a hub address (see the module docstring); ConfigError for anything else."""
     if not isinstance(address, str) or not address.strip():
-        raise errors.ConfigError("the hub address is empty; give a folder, an https:// WebDAV URL "
-                                 "or a post+https:// endpoint")
+        raise errors.ConfigError(
+            "the hub address is empty; give a folder, an https:// WebDAV URL or a post+https:// endpoint"
+        )
     address = address.strip()
     lower = address.lower()
     is_post = lower.startswith(POST_PREFIX)
-    url = address[len(POST_PREFIX):] if is_post else address
+    url = address[len(POST_PREFIX) :] if is_post else address
     scheme = urlsplit(url).scheme.lower() if "://" in url else ""
     if scheme in ("http", "https"):
         _check_url(url)
@@ -1011,6 +1092,8 @@ def open_target(address: str, session: Session) -> Target:
         path = unquote(urlsplit(url).path)
         return FolderTarget(path)
     if scheme:
-        raise errors.ConfigError(f"hub addresses of kind {scheme}:// are not supported; give a folder, "
-                                 f"an https:// WebDAV URL or a post+https:// endpoint")
+        raise errors.ConfigError(
+            f"hub addresses of kind {scheme}:// are not supported; give a folder, "
+            f"an https:// WebDAV URL or a post+https:// endpoint"
+        )
     return FolderTarget(address)

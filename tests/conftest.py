@@ -1,4 +1,5 @@
 """Shared test helpers: run the real command line in a child process."""
+
 from __future__ import annotations
 
 import os
@@ -27,14 +28,20 @@ def cli_env(**extra: str) -> dict[str, str]:
     return env
 
 
-def run_cli(*args: str, data_dir: Path | None = None, env: dict[str, str] | None = None,
-            timeout: float = 120, input: str | None = None) -> subprocess.CompletedProcess[str]:
+def run_cli(
+    *args: str,
+    data_dir: Path | None = None,
+    env: dict[str, str] | None = None,
+    timeout: float = 120,
+    input: str | None = None,
+) -> subprocess.CompletedProcess[str]:
     """Runs `streamtab ARGS` as a person would, in a fresh interpreter; never raises on exit status."""
     argv = [sys.executable, "-m", "mobile.cli", *args]
     if data_dir is not None:
         argv += ["--data-dir", str(data_dir)]
-    return subprocess.run(argv, capture_output=True, text=True, timeout=timeout,
-                          env=env or cli_env(), cwd=ROOT, input=input, check=False)
+    return subprocess.run(
+        argv, capture_output=True, text=True, timeout=timeout, env=env or cli_env(), cwd=ROOT, input=input, check=False
+    )
 
 
 @pytest.fixture

@@ -6,6 +6,7 @@ system user (``streamtab-pg``, created with ``useradd --system`` when missing) t
 temporary folder. Run as anyone else, it runs as that user. The binaries come from Debian's
 ``postgresql`` package (``/usr/lib/postgresql/<major>/bin``) or ``$PATH``.
 """
+
 from __future__ import annotations
 
 import glob
@@ -26,8 +27,10 @@ PASSWORD_ROLE = "office"
 
 
 def find_bindir() -> Path | None:
-    found = sorted(glob.glob("/usr/lib/postgresql/*/bin/initdb"),
-                   key=lambda p: int(Path(p).parent.parent.name) if Path(p).parent.parent.name.isdigit() else 0)
+    found = sorted(
+        glob.glob("/usr/lib/postgresql/*/bin/initdb"),
+        key=lambda p: int(Path(p).parent.parent.name) if Path(p).parent.parent.name.isdigit() else 0,
+    )
     if found:
         return Path(found[-1]).parent
     exe = shutil.which("initdb")
@@ -41,8 +44,12 @@ def _ensure_user() -> pwd.struct_passwd:
         pass
     nologin = "/usr/sbin/nologin" if os.path.exists("/usr/sbin/nologin") else "/bin/false"
     # several test runs may race here: a failed useradd is fine when the user now exists
-    subprocess.run(["useradd", "--system", "--no-create-home", "--shell", nologin, PG_USER],
-                   check=False, capture_output=True, timeout=30)
+    subprocess.run(
+        ["useradd", "--system", "--no-create-home", "--shell", nologin, PG_USER],
+        check=False,
+        capture_output=True,
+        timeout=30,
+    )
     return pwd.getpwnam(PG_USER)
 
 
@@ -56,8 +63,9 @@ class PgServer:
         self.durable = durable
         self.bindir = find_bindir()
         if self.bindir is None:
-            raise RuntimeError("PostgreSQL is not installed (initdb not found); `make test` installs "
-                               "Debian's postgresql package")
+            raise RuntimeError(
+                "PostgreSQL is not installed (initdb not found); `make test` installs Debian's postgresql package"
+            )
         self.root: Path | None = None
         self._as: dict = {}
 
@@ -77,8 +85,14 @@ class PgServer:
 
     def _run(self, *args: str, timeout: float = 120) -> subprocess.CompletedProcess:
         assert self.bindir is not None
-        return subprocess.run([str(self.bindir / args[0]), *args[1:]], check=True, capture_output=True,
-                              text=True, timeout=timeout, **self._as)
+        return subprocess.run(
+            [str(self.bindir / args[0]), *args[1:]],
+            check=True,
+            capture_output=True,
+            text=True,
+            timeout=timeout,
+            **self._as,
+        )
 
     # -- life cycle ----------------------------------------------------------------------------
     def start(self) -> PgServer:
@@ -86,15 +100,29 @@ class PgServer:
         if os.geteuid() == 0:
             pw = _ensure_user()
             os.chown(self.root, pw.pw_uid, pw.pw_gid)
-            self._as = {"user": pw.pw_uid, "group": pw.pw_gid, "extra_groups": [],
-                        "env": {"PATH": os.environ.get("PATH", "/usr/bin:/bin"), "LC_ALL": "C",
-                                "HOME": str(self.root)},
-                        "cwd": str(self.root)}
+            self._as = {
+                "user": pw.pw_uid,
+                "group": pw.pw_gid,
+                "extra_groups": [],
+                "env": {"PATH": os.environ.get("PATH", "/usr/bin:/bin"), "LC_ALL": "C", "HOME": str(self.root)},
+                "cwd": str(self.root),
+            }
         else:
             self._as = {"env": {**os.environ, "LC_ALL": "C"}, "cwd": str(self.root)}
         data = self.root / "data"
-        self._run("initdb", "-D", str(data), "-U", SUPERUSER, "-E", "UTF8", "--locale=C",
-                  "--auth-local=trust", "--auth-host=reject", "--no-sync")
+        self._run(
+            "initdb",
+            "-D",
+            str(data),
+            "-U",
+            SUPERUSER,
+            "-E",
+            "UTF8",
+            "--locale=C",
+            "--auth-local=trust",
+            "--auth-host=reject",
+            "--no-sync",
+        )
         hba = data / "pg_hba.conf"
         lines = hba.read_text().splitlines()
         # the password role must authenticate even on the socket; it comes before the trust lines
@@ -102,12 +130,13 @@ class PgServer:
         (self.root / "sock").mkdir()
         if self._as.get("user") is not None:
             os.chown(self.root / "sock", self._as["user"], self._as["group"])
-        opts = (f"-c listen_addresses='' -c unix_socket_directories='{self.socket_dir}' -c port=5432"
-                " -c max_connections=20 -c shared_buffers=64MB")
+        opts = (
+            f"-c listen_addresses='' -c unix_socket_directories='{self.socket_dir}' -c port=5432"
+            " -c max_connections=20 -c shared_buffers=64MB"
+        )
         if not self.durable:
             opts += " -c fsync=off -c synchronous_commit=off -c full_page_writes=off"
-        self._run("pg_ctl", "start", "-D", str(data), "-w", "-t", "60", "-l", str(self.root / "server.log"),
-                  "-o", opts)
+        self._run("pg_ctl", "start", "-D", str(data), "-w", "-t", "60", "-l", str(self.root / "server.log"), "-o", opts)
         return self
 
     def stop(self) -> None:

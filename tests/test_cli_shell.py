@@ -1,4 +1,5 @@
 """The command line's shell: one-line errors with exit status 2 (common practice for CLIs)."""
+
 import json
 
 import pytest
@@ -36,12 +37,15 @@ def test_a_reading_command_refuses_a_missing_store_and_creates_nothing(tmp_path,
     assert not missing.exists()
 
 
-@pytest.mark.parametrize("argv, content, words", [
-    (("sites", "import"), "site_id,name,elevation_m\nLK-1,A,\n", ["line 2", "elevation_m"]),
-    (("sites", "import"), None, ["no such file"]),
-    (("trip", "import"), "{not json", ["not valid JSON"]),
-    (("trip", "import"), None, ["no such file"]),
-])
+@pytest.mark.parametrize(
+    "argv, content, words",
+    [
+        (("sites", "import"), "site_id,name,elevation_m\nLK-1,A,\n", ["line 2", "elevation_m"]),
+        (("sites", "import"), None, ["no such file"]),
+        (("trip", "import"), "{not json", ["not valid JSON"]),
+        (("trip", "import"), None, ["no such file"]),
+    ],
+)
 def test_an_import_of_a_bad_file_creates_no_store(tmp_path, argv, content, words):
     # common practice: a mistyped path or a broken file leaves nothing behind
     target = tmp_path / "new-store"
@@ -88,11 +92,14 @@ def test_snapshot_refuses_a_missing_folder(tmp_path):
     assert out.returncode == 2 and "does not exist" in _one_line(out)
 
 
-@pytest.mark.parametrize("verb,option,address,words", [
-    ("push", "--to", "ftp://hub.invalid/x", "not supported"),
-    ("push", "--to", "{tmp}/no-such-hub", "does not exist"),
-    ("pull", "--from", "", "empty"),
-])
+@pytest.mark.parametrize(
+    "verb,option,address,words",
+    [
+        ("push", "--to", "ftp://hub.invalid/x", "not supported"),
+        ("push", "--to", "{tmp}/no-such-hub", "does not exist"),
+        ("pull", "--from", "", "empty"),
+    ],
+)
 def test_a_bad_hub_address_names_the_option_it_was_typed_in(tmp_path, verb, option, address, words):
     store = tmp_path / "store"
     assert run_cli("sites", "import", str(ROOT / "sample_trips" / "sites.csv"), data_dir=store).returncode == 0

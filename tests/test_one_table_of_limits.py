@@ -1,5 +1,6 @@
 """The app, the command line and the records refuse the same typed values with the same limits: one
 grammar and one table (core.science.quantities.LIMITS). The limits are common practice for stream work."""
+
 from __future__ import annotations
 
 import contextlib
@@ -14,8 +15,16 @@ from mobile.app.controller import AppController
 from mobile.cli import main
 from tests.app.conftest import seed_sites
 
-INTERNAL = ("pressure_hpa", "percent_sat", "parse_", "temp_c", "do_mg_l", "do_percent", "elevation_m",
-            "conductivity_us_cm")
+INTERNAL = (
+    "pressure_hpa",
+    "percent_sat",
+    "parse_",
+    "temp_c",
+    "do_mg_l",
+    "do_percent",
+    "elevation_m",
+    "conductivity_us_cm",
+)
 
 
 def cli(*argv: str) -> tuple[int, str]:
@@ -61,8 +70,7 @@ CASES = [
 ]
 
 
-@pytest.mark.parametrize("field, unit, option, cli_text, model, accepted", CASES,
-                         ids=[f"{c[0]}-{c[3]}" for c in CASES])
+@pytest.mark.parametrize("field, unit, option, cli_text, model, accepted", CASES, ids=[f"{c[0]}-{c[3]}" for c in CASES])
 def test_same_refusals_everywhere(ctl, field, unit, option, cli_text, model, accepted):
     base = {"--temp": "18", "--pressure": "1000 hPa"}
     base[option] = cli_text
@@ -77,7 +85,10 @@ def test_same_refusals_everywhere(ctl, field, unit, option, cli_text, model, acc
     except InputError as exc:
         model_ok = False
         model_msg = exc.message
-    assert (code == 0) is accepted and model_ok is accepted and (field not in view.errors) is accepted, (err, view.errors)
+    assert (code == 0) is accepted and model_ok is accepted and (field not in view.errors) is accepted, (
+        err,
+        view.errors,
+    )
     if not accepted:
         # the same limits, named as each shell names the value; never an internal variable name
         assert err.startswith((f"streamtab: {option}", option)), err
@@ -90,8 +101,10 @@ def test_same_refusals_everywhere(ctl, field, unit, option, cli_text, model, acc
     ctl.set_stop_field(field, "")
 
 
-@pytest.mark.parametrize("text, accepted", [("6000", True), ("6000.5", False), ("-430", True), ("-431", False),
-                                            ("19685 ft", True), ("19700 ft", False)])
+@pytest.mark.parametrize(
+    "text, accepted",
+    [("6000", True), ("6000.5", False), ("-430", True), ("-431", False), ("19685 ft", True), ("19700 ft", False)],
+)
 def test_elevation_limits_are_one(ctl, text, accepted):
     # the site form, the sat command and the Site record: one elevation range (LIMITS["elevation"])
     code, err = cli("sat", "--temp", "18", "--pressure", "1000 hPa", "--elevation", text)

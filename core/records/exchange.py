@@ -6,6 +6,7 @@ exported table goes through `csv_table` (cells a spreadsheet would run as a form
 NUL refused).
 Imports are all or nothing: a bad row or field stops the import before anything is stored.
 """
+
 from __future__ import annotations
 
 import csv
@@ -21,17 +22,41 @@ from core.records.limits import MAX_DOCUMENT_BYTES, LimitError, loads_limited
 from core.records.messages import label_for, problems_from_validation
 from core.records.models import InputError, Site, Trip, parse_number
 
-__all__ = ["ExchangeError", "SITE_COLUMNS", "STOP_COLUMNS", "BOTTLE_COLUMNS", "import_sites_csv",
-           "read_sites_csv", "import_trip_file", "import_trip_document", "read_trip_file", "export_trip_json",
-           "export_trip_csv", "stop_rows", "bottle_rows", "csv_table", "spreadsheet_safe", "FORMULA_LEADS"]
+__all__ = [
+    "ExchangeError",
+    "SITE_COLUMNS",
+    "STOP_COLUMNS",
+    "BOTTLE_COLUMNS",
+    "import_sites_csv",
+    "read_sites_csv",
+    "import_trip_file",
+    "import_trip_document",
+    "read_trip_file",
+    "export_trip_json",
+    "export_trip_csv",
+    "stop_rows",
+    "bottle_rows",
+    "csv_table",
+    "spreadsheet_safe",
+    "FORMULA_LEADS",
+]
 
 
 class ExchangeError(ValueError):
     """A file that cannot be imported: one line naming the file, the line or field, and the problem."""
 
 
-SITE_COLUMNS = ("site_id", "name", "elevation_m", "latitude", "longitude", "water_class",
-                "min_do_mg_l", "supersaturation_percent", "notes")
+SITE_COLUMNS = (
+    "site_id",
+    "name",
+    "elevation_m",
+    "latitude",
+    "longitude",
+    "water_class",
+    "min_do_mg_l",
+    "supersaturation_percent",
+    "notes",
+)
 _SITE_REQUIRED = ("site_id", "name", "elevation_m")
 _SITE_NUMBERS = ("elevation_m", "latitude", "longitude", "min_do_mg_l", "supersaturation_percent")
 _SITE_LABELS = {"site_id": "Site code"}
@@ -56,12 +81,15 @@ def read_sites_csv(path: Path | str) -> list[Site]:
     reader.fieldnames = header
     missing = [c for c in _SITE_REQUIRED if c not in header]
     if missing:
-        raise ExchangeError(f"{name}, line 1: missing column {', '.join(missing)}; the columns are "
-                            f"{', '.join(SITE_COLUMNS)} (the first three required).")
+        raise ExchangeError(
+            f"{name}, line 1: missing column {', '.join(missing)}; the columns are "
+            f"{', '.join(SITE_COLUMNS)} (the first three required)."
+        )
     unknown = [c for c in header if c not in SITE_COLUMNS]
     if unknown:
-        raise ExchangeError(f"{name}, line 1: unknown column {', '.join(unknown)}; the columns are "
-                            f"{', '.join(SITE_COLUMNS)}.")
+        raise ExchangeError(
+            f"{name}, line 1: unknown column {', '.join(unknown)}; the columns are {', '.join(SITE_COLUMNS)}."
+        )
     sites: list[Site] = []
     seen: dict[str, int] = {}
     line = 1
@@ -77,8 +105,9 @@ def read_sites_csv(path: Path | str) -> list[Site]:
             if col in _SITE_NUMBERS:
                 if raw == "":
                     if col in _SITE_REQUIRED:
-                        raise ExchangeError(f"{name}, line {line}, column {col}: {label_for(col)} is required"
-                                            " (metres above sea level).")
+                        raise ExchangeError(
+                            f"{name}, line {line}, column {col}: {label_for(col)} is required (metres above sea level)."
+                        )
                     continue
                 try:
                     doc[col] = parse_number(raw, col)
@@ -94,7 +123,9 @@ def read_sites_csv(path: Path | str) -> list[Site]:
         if not doc.get("id"):
             raise ExchangeError(f"{name}, line {line}, column site_id: Site code is required.")
         if doc["id"] in seen:
-            raise ExchangeError(f"{name}, line {line}: site {doc['id']} is listed twice (first on line {seen[doc['id']]}).")
+            raise ExchangeError(
+                f"{name}, line {line}: site {doc['id']} is listed twice (first on line {seen[doc['id']]})."
+            )
         seen[doc["id"]] = line
         try:
             sites.append(Site.model_validate(doc, strict=True))
@@ -130,8 +161,10 @@ def read_trip_file(path: Path | str) -> dict[str, Any]:
     except OSError as exc:
         raise ExchangeError(f"{path}: cannot be read ({exc.strerror or exc}).") from None
     if len(raw) > MAX_DOCUMENT_BYTES:
-        raise ExchangeError(f"{path.name}: larger than {MAX_DOCUMENT_BYTES // (1024 * 1024)} MiB; a trip "
-                            f"file is never that large, so nothing was imported.")
+        raise ExchangeError(
+            f"{path.name}: larger than {MAX_DOCUMENT_BYTES // (1024 * 1024)} MiB; a trip "
+            f"file is never that large, so nothing was imported."
+        )
     try:
         doc = loads_limited(raw.decode("utf-8-sig"))
     except UnicodeDecodeError:
@@ -178,16 +211,46 @@ def export_trip_json(store: Any, trip_id: str) -> bytes:
 
 
 STOP_COLUMNS = (
-    "trip_id", "stop_id", "site_id", "arrived_at", "closed_at",
-    "water_temp_c", "water_temp_as_typed", "station_pressure_hpa", "station_pressure_as_typed",
-    "conductivity_us_cm", "conductivity_is_sc25", "conductivity_as_typed",
-    "meter_do_value", "meter_do_unit", "meter_do_as_typed",
-    "do_sat_mg_l", "do_mg_l", "do_percent_saturation", "salinity_pss78", "salinity_source",
-    "specific_conductance_us_cm", "method", "core_version", "flags", "weather", "flow", "notes",
+    "trip_id",
+    "stop_id",
+    "site_id",
+    "arrived_at",
+    "closed_at",
+    "water_temp_c",
+    "water_temp_as_typed",
+    "station_pressure_hpa",
+    "station_pressure_as_typed",
+    "conductivity_us_cm",
+    "conductivity_is_sc25",
+    "conductivity_as_typed",
+    "meter_do_value",
+    "meter_do_unit",
+    "meter_do_as_typed",
+    "do_sat_mg_l",
+    "do_mg_l",
+    "do_percent_saturation",
+    "salinity_pss78",
+    "salinity_source",
+    "specific_conductance_us_cm",
+    "method",
+    "core_version",
+    "flags",
+    "weather",
+    "flow",
+    "notes",
 )
 BOTTLE_COLUMNS = (
-    "trip_id", "stop_id", "site_id", "bottle_uuid", "bottle_id", "kind", "collected_at", "fixed_at",
-    "preservation", "lab_results", "notes",
+    "trip_id",
+    "stop_id",
+    "site_id",
+    "bottle_uuid",
+    "bottle_id",
+    "kind",
+    "collected_at",
+    "fixed_at",
+    "preservation",
+    "lab_results",
+    "notes",
 )
 
 
@@ -204,34 +267,42 @@ def stop_rows(trip: Trip) -> list[dict[str, str]]:
     rows = []
     for s in sorted(trip.stops, key=lambda s: s.arrived_at):
         d = s.derived
-        rows.append({
-            "trip_id": trip.id, "stop_id": s.id, "site_id": s.site_id,
-            "arrived_at": _time(s.arrived_at), "closed_at": _time(s.closed_at),
-            "water_temp_c": _num(s.temp.value if s.temp else None),
-            "water_temp_as_typed": s.temp.text if s.temp else "",
-            "station_pressure_hpa": _num(s.pressure.value if s.pressure else None),
-            "station_pressure_as_typed": s.pressure.text if s.pressure else "",
-            "conductivity_us_cm": _num(s.conductivity.value if s.conductivity else None),
-            "conductivity_is_sc25": "yes" if s.conductivity_is_sc25 else "no",
-            "conductivity_as_typed": s.conductivity.text if s.conductivity else "",
-            "meter_do_value": _num(s.do.value if s.do else None),
-            "meter_do_unit": s.do.unit if s.do else "",
-            "meter_do_as_typed": s.do.text if s.do else "",
-            "do_sat_mg_l": _num(d.do_sat_mg_l if d else None),
-            "do_mg_l": _num(d.do_mg_l if d else None),
-            "do_percent_saturation": _num(d.percent_saturation if d else None),
-            "salinity_pss78": _num(d.salinity if d else None),
-            "salinity_source": d.salinity_source if d else "",
-            "specific_conductance_us_cm": _num(d.specific_conductance_us_cm if d else None),
-            "method": d.method if d else "", "core_version": d.core_version if d else "",
-            "flags": ";".join(f.code for f in d.flags) if d else "",
-            "weather": s.weather, "flow": s.flow, "notes": s.notes,
-        })
+        rows.append(
+            {
+                "trip_id": trip.id,
+                "stop_id": s.id,
+                "site_id": s.site_id,
+                "arrived_at": _time(s.arrived_at),
+                "closed_at": _time(s.closed_at),
+                "water_temp_c": _num(s.temp.value if s.temp else None),
+                "water_temp_as_typed": s.temp.text if s.temp else "",
+                "station_pressure_hpa": _num(s.pressure.value if s.pressure else None),
+                "station_pressure_as_typed": s.pressure.text if s.pressure else "",
+                "conductivity_us_cm": _num(s.conductivity.value if s.conductivity else None),
+                "conductivity_is_sc25": "yes" if s.conductivity_is_sc25 else "no",
+                "conductivity_as_typed": s.conductivity.text if s.conductivity else "",
+                "meter_do_value": _num(s.do.value if s.do else None),
+                "meter_do_unit": s.do.unit if s.do else "",
+                "meter_do_as_typed": s.do.text if s.do else "",
+                "do_sat_mg_l": _num(d.do_sat_mg_l if d else None),
+                "do_mg_l": _num(d.do_mg_l if d else None),
+                "do_percent_saturation": _num(d.percent_saturation if d else None),
+                "salinity_pss78": _num(d.salinity if d else None),
+                "salinity_source": d.salinity_source if d else "",
+                "specific_conductance_us_cm": _num(d.specific_conductance_us_cm if d else None),
+                "method": d.method if d else "",
+                "core_version": d.core_version if d else "",
+                "flags": ";".join(f.code for f in d.flags) if d else "",
+                "weather": s.weather,
+                "flow": s.flow,
+                "notes": s.notes,
+            }
+        )
     return rows
 
 
 def _lab_cell(r: Any) -> str:
-    """"analyte=value unit"; a BOD5/CBOD5 result as its 5210 B report ("bod5=< 2.0 mg/L") when it has one."""
+    """ "analyte=value unit"; a BOD5/CBOD5 result as its 5210 B report ("bod5=< 2.0 mg/L") when it has one."""
     derived = (r.inputs or {}).get("derived") if isinstance(r.inputs, dict) else None
     report = derived.get("report") if isinstance(derived, dict) else None
     if isinstance(report, dict) and isinstance(report.get("text"), str) and report["text"]:
@@ -245,12 +316,21 @@ def bottle_rows(trip: Trip) -> list[dict[str, str]]:
     for s in sorted(trip.stops, key=lambda s: s.arrived_at):
         for b in s.bottles:
             labs = "; ".join(_lab_cell(r) for r in b.lab_results)
-            rows.append({
-                "trip_id": trip.id, "stop_id": s.id, "site_id": s.site_id, "bottle_uuid": b.id,
-                "bottle_id": b.label, "kind": b.kind, "collected_at": _time(b.collected_at),
-                "fixed_at": _time(b.fixed_at), "preservation": b.preservation, "lab_results": labs,
-                "notes": b.notes,
-            })
+            rows.append(
+                {
+                    "trip_id": trip.id,
+                    "stop_id": s.id,
+                    "site_id": s.site_id,
+                    "bottle_uuid": b.id,
+                    "bottle_id": b.label,
+                    "kind": b.kind,
+                    "collected_at": _time(b.collected_at),
+                    "fixed_at": _time(b.fixed_at),
+                    "preservation": b.preservation,
+                    "lab_results": labs,
+                    "notes": b.notes,
+                }
+            )
     return rows
 
 
@@ -270,28 +350,29 @@ def spreadsheet_safe(value: Any, *, where: str = "the export") -> str:
     """
     text = "" if value is None else str(value)
     if "\x00" in text:
-        raise ExchangeError(f"{where}: the value holds a NUL character, which exports never pass on; "
-                            f"edit that field and export again.")
+        raise ExchangeError(
+            f"{where}: the value holds a NUL character, which exports never pass on; edit that field and export again."
+        )
     if text.startswith(FORMULA_LEADS) and not _PLAIN_NUMBER.fullmatch(text):
         return "'" + text
     return text
 
 
-def csv_table(columns: tuple[str, ...] | list[str], rows: list[dict[str, Any]], *,
-              name: str = "export.csv") -> str:
+def csv_table(columns: tuple[str, ...] | list[str], rows: list[dict[str, Any]], *, name: str = "export.csv") -> str:
     """CSV text (header row, then `rows` in `columns` order, "\\n" line ends) with every cell, the
     header included, passed through `spreadsheet_safe`; `name` names the file in a refusal."""
     buf = io.StringIO(newline="")
     writer = csv.writer(buf, lineterminator="\n")
     writer.writerow([spreadsheet_safe(c, where=f"{name}, header") for c in columns])
     for i, row in enumerate(rows, start=2):
-        writer.writerow([spreadsheet_safe(row.get(c), where=f"{name}, line {i}, column {c}")
-                         for c in columns])
+        writer.writerow([spreadsheet_safe(row.get(c), where=f"{name}, line {i}, column {c}") for c in columns])
     return buf.getvalue()
 
 
 def export_trip_csv(store: Any, trip_id: str) -> dict[str, str]:
     """CSV texts keyed by file name: ``stops.csv`` (one row per stop), ``bottles.csv`` (one per bottle)."""
     trip = store.load_trip(trip_id)
-    return {"stops.csv": csv_table(STOP_COLUMNS, stop_rows(trip), name="stops.csv"),
-            "bottles.csv": csv_table(BOTTLE_COLUMNS, bottle_rows(trip), name="bottles.csv")}
+    return {
+        "stops.csv": csv_table(STOP_COLUMNS, stop_rows(trip), name="stops.csv"),
+        "bottles.csv": csv_table(BOTTLE_COLUMNS, bottle_rows(trip), name="bottles.csv"),
+    }

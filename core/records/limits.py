@@ -18,13 +18,23 @@ entries of a list, by its key     `LIST_LIMITS` (crew 100, stops 1,000, bottles 
 any other list                    `MAX_ITEMS` = 10,000
 ================================  ==========================================================
 """
+
 from __future__ import annotations
 
 import json
 from typing import Any
 
-__all__ = ["MAX_DOCUMENT_BYTES", "MAX_DEPTH", "MAX_TEXT_CHARS", "MAX_KEYS", "MAX_ITEMS", "LIST_LIMITS", "LimitError",
-           "check_document_limits", "loads_limited"]
+__all__ = [
+    "MAX_DOCUMENT_BYTES",
+    "MAX_DEPTH",
+    "MAX_TEXT_CHARS",
+    "MAX_KEYS",
+    "MAX_ITEMS",
+    "LIST_LIMITS",
+    "LimitError",
+    "check_document_limits",
+    "loads_limited",
+]
 
 MAX_DOCUMENT_BYTES = 8 * 1024 * 1024
 MAX_DEPTH = 64
@@ -41,8 +51,15 @@ LIST_LIMITS: dict[str, int] = {
     "conflicts": 10_000,
     "audit": 100_000,
 }
-_WHAT = {"crew": "crew names", "stops": "stops", "bottles": "bottles", "lab_results": "lab results",
-         "calibrations": "calibrations", "conflicts": "conflict entries", "audit": "audit entries"}
+_WHAT = {
+    "crew": "crew names",
+    "stops": "stops",
+    "bottles": "bottles",
+    "lab_results": "lab results",
+    "calibrations": "calibrations",
+    "conflicts": "conflict entries",
+    "audit": "audit entries",
+}
 
 
 class LimitError(ValueError):
@@ -63,14 +80,17 @@ def check_document_limits(doc: Any) -> None:
         value, path, depth = stack.pop()
         if isinstance(value, str):
             if len(value) > MAX_TEXT_CHARS:
-                raise LimitError(f"{_where(path)} holds {len(value):,} characters; at most "
-                                 f"{MAX_TEXT_CHARS:,} are accepted in one field")
+                raise LimitError(
+                    f"{_where(path)} holds {len(value):,} characters; at most "
+                    f"{MAX_TEXT_CHARS:,} are accepted in one field"
+                )
             continue
         if not isinstance(value, (dict, list)):
             continue
         if depth > MAX_DEPTH:
-            raise LimitError(f"{_where(path)} is nested more than {MAX_DEPTH} levels deep; a trip "
-                             f"document is never that deep")
+            raise LimitError(
+                f"{_where(path)} is nested more than {MAX_DEPTH} levels deep; a trip document is never that deep"
+            )
         if isinstance(value, dict):
             if len(value) > MAX_KEYS:
                 raise LimitError(f"{_where(path)} has {len(value):,} fields; at most {MAX_KEYS:,} are accepted")
@@ -98,7 +118,8 @@ def loads_limited(text: str | bytes) -> Any:
     try:
         doc = json.loads(text, parse_constant=_refuse_constant)
     except RecursionError:
-        raise LimitError(f"the document is nested more than {MAX_DEPTH} levels deep; a trip "
-                         f"document is never that deep") from None
+        raise LimitError(
+            f"the document is nested more than {MAX_DEPTH} levels deep; a trip document is never that deep"
+        ) from None
     check_document_limits(doc)
     return doc

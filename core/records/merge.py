@@ -23,21 +23,28 @@ Rules, applied at every level of the document:
 Ancestry comes from the audit trail the store appends on every save: a document whose audit ids
 are a subset of another's is its ancestor (see `relation`).
 """
+
 from __future__ import annotations
 
 import json
 import re
 import uuid
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from typing import Any
-from collections.abc import Iterable
 
 from core.records.models import BOOKKEEPING, DERIVED, LOG, RoleNode, analyte_key, keys_by_role, role_tree
 from core.store.atomic import content_hash
 
 __all__ = [
-    "MergeResult", "merge_trips", "relation", "history", "common_ancestor",
-    "describe_conflict", "CONFLICT_NAMESPACE", "retain",
+    "MergeResult",
+    "merge_trips",
+    "relation",
+    "history",
+    "common_ancestor",
+    "describe_conflict",
+    "CONFLICT_NAMESPACE",
+    "retain",
 ]
 
 
@@ -45,6 +52,7 @@ def _outside_generic_rules() -> frozenset[str]:
     """Top-level keys merged by their own rules: bookkeeping, the audit log, and the conflicts
     list (this merge's own output)."""
     return keys_by_role(BOOKKEEPING, LOG) | {"conflicts"}
+
 
 #: uuid5 namespace for conflict ids, so the same clash found twice gets the same id.
 CONFLICT_NAMESPACE = uuid.UUID("6f1c3f52-2a4e-4d35-9a43-3c1f0e5b7d21")
@@ -60,8 +68,8 @@ class _Sentinel:
         return self.name
 
 
-MISSING = _Sentinel("MISSING")   # the key or element is absent on that side
-UNKNOWN = _Sentinel("UNKNOWN")   # no common ancestor is known (two-way merge)
+MISSING = _Sentinel("MISSING")  # the key or element is absent on that side
+UNKNOWN = _Sentinel("UNKNOWN")  # no common ancestor is known (two-way merge)
 
 
 @dataclass
@@ -84,15 +92,18 @@ def _canon(value: Any) -> str:
 def _eq(x: Any, y: Any) -> bool:
     if isinstance(x, _Sentinel) or isinstance(y, _Sentinel):
         return x is y
-    if type(x) is not type(y) and not (isinstance(x, (int, float)) and isinstance(y, (int, float))
-                                       and not isinstance(x, bool) and not isinstance(y, bool)):
+    if type(x) is not type(y) and not (
+        isinstance(x, (int, float))
+        and isinstance(y, (int, float))
+        and not isinstance(x, bool)
+        and not isinstance(y, bool)
+    ):
         return False
     return _canon(x) == _canon(y)
 
 
 def _is_id_list(value: Any) -> bool:
-    return isinstance(value, list) and all(
-        isinstance(e, dict) and isinstance(e.get("id"), str) for e in value)
+    return isinstance(value, list) and all(isinstance(e, dict) and isinstance(e.get("id"), str) for e in value)
 
 
 def _atomic(value: dict) -> bool:
@@ -132,8 +143,17 @@ class _Merger:
         # A clash a person already settled is not a new conflict: the settled value stands.
         self.settled = _settled(a, b)
 
-    def value(self, path: str, base: Any, va: Any, vb: Any, *, derived: bool = False,
-              node: RoleNode | None = None, loc: str | None = None) -> Any:
+    def value(
+        self,
+        path: str,
+        base: Any,
+        va: Any,
+        vb: Any,
+        *,
+        derived: bool = False,
+        node: RoleNode | None = None,
+        loc: str | None = None,
+    ) -> Any:
         node = node or role_tree()
         loc = path if loc is None else loc
         if _eq(va, vb):
@@ -152,15 +172,25 @@ class _Merger:
             return self.mapping(path, sub_base, va, vb, derived=derived, node=node, loc=loc)
         if _is_id_list(va) and _is_id_list(vb):
             return self.id_list(path, base, va, vb, derived=derived, node=node, loc=loc)
-        kept = (va if self.pref_a else vb)
+        kept = va if self.pref_a else vb
         if kept is MISSING:
             kept = vb if kept is va else va
         if not derived:
             kept = self._record(path, base, va, vb, kept, loc)
         return kept
 
-    def mapping(self, path: str, base: Any, a: dict, b: dict, *, derived: bool = False,
-                skip: Iterable[str] = (), node: RoleNode | None = None, loc: str | None = None) -> dict:
+    def mapping(
+        self,
+        path: str,
+        base: Any,
+        a: dict,
+        b: dict,
+        *,
+        derived: bool = False,
+        skip: Iterable[str] = (),
+        node: RoleNode | None = None,
+        loc: str | None = None,
+    ) -> dict:
         node = node or role_tree()
         loc = path if loc is None else loc
         out: dict = {}
@@ -170,15 +200,30 @@ class _Merger:
                 continue
             vbase = UNKNOWN if base is UNKNOWN else base.get(key, MISSING)
             sub = f"{path}.{key}" if path else key
-            r = self.value(sub, vbase, a.get(key, MISSING), b.get(key, MISSING),
-                           derived=derived or node.role(key) == DERIVED, node=node.child(key),
-                           loc=f"{loc}.{key}" if loc else key)
+            r = self.value(
+                sub,
+                vbase,
+                a.get(key, MISSING),
+                b.get(key, MISSING),
+                derived=derived or node.role(key) == DERIVED,
+                node=node.child(key),
+                loc=f"{loc}.{key}" if loc else key,
+            )
             if r is not MISSING:
                 out[key] = r
         return out
 
-    def id_list(self, path: str, base: Any, a: list, b: list, *, derived: bool = False,
-                node: RoleNode | None = None, loc: str | None = None) -> list:
+    def id_list(
+        self,
+        path: str,
+        base: Any,
+        a: list,
+        b: list,
+        *,
+        derived: bool = False,
+        node: RoleNode | None = None,
+        loc: str | None = None,
+    ) -> list:
         loc = path if loc is None else loc
         amap: dict[str, dict] = {}
         for e in a:
@@ -206,8 +251,7 @@ class _Merger:
             pa, pb = (ea, eb) if self.pref_a else (eb, ea)
             any_elem = pa if pa is not MISSING else pb
             ebase = UNKNOWN if basemap is None else basemap.get(eid, MISSING)
-            r = self.value(f"{path}[{_hint(any_elem)}]", ebase, ea, eb, derived=derived, node=node,
-                           loc=f"{loc}[{eid}]")
+            r = self.value(f"{path}[{_hint(any_elem)}]", ebase, ea, eb, derived=derived, node=node, loc=f"{loc}[{eid}]")
             if r is not MISSING:
                 out.append(r)
         return out
@@ -217,8 +261,7 @@ class _Merger:
         audit = [e for e in doc.get("audit") or [] if isinstance(e, dict)]
         last = max(audit, key=lambda e: (_time_key(e), str(e.get("id")))) if audit else {}
         device = last.get("device_id") or doc.get("device_id") or ""
-        entry = {"device_id": str(device), "revision": doc.get("revision"),
-                 "updated_at": doc.get("updated_at")}
+        entry = {"device_id": str(device), "revision": doc.get("revision"), "updated_at": doc.get("updated_at")}
         name = last.get("device_name") if last.get("device_id") == device else None
         if isinstance(name, str) and name:
             entry["device_name"] = name
@@ -274,26 +317,42 @@ class _Merger:
                     only_b = [r for r in live if r["id"] in b_ids and r["id"] not in a_ids]
                     if not only_a or not only_b:
                         continue
-                    path = (f"stops[{_hint(stop)}].bottles[{_hint(bottle)}].lab_results[{analyte}]")
+                    path = f"stops[{_hint(stop)}].bottles[{_hint(bottle)}].lab_results[{analyte}]"
                     loc = f"stops[{stop['id']}].bottles[{bottle['id']}].lab_results[{analyte}]"
                     ids = sorted(r["id"] for r in only_a + only_b)
                     cid = str(uuid.uuid5(CONFLICT_NAMESPACE, trip_id + "\n" + path + "\n" + "\n".join(ids)))
                     if cid in self.settled:
                         continue
-                    sides = sorted([self._side(self.a, r) for r in only_a] + [self._side(self.b, r) for r in only_b],
-                                   key=_canon)
-                    entry = {"id": cid, "kind": "results", "path": path, "locator": loc, "sides": sides,
-                             "detected_at": _max(self.a.get("updated_at"), self.b.get("updated_at"))
-                             or "1970-01-01T00:00:00Z",
-                             "resolved_at": None, "resolved_by": None, "resolution": None, "kept": None}
+                    sides = sorted(
+                        [self._side(self.a, r) for r in only_a] + [self._side(self.b, r) for r in only_b], key=_canon
+                    )
+                    entry = {
+                        "id": cid,
+                        "kind": "results",
+                        "path": path,
+                        "locator": loc,
+                        "sides": sides,
+                        "detected_at": _max(self.a.get("updated_at"), self.b.get("updated_at"))
+                        or "1970-01-01T00:00:00Z",
+                        "resolved_at": None,
+                        "resolved_by": None,
+                        "resolution": None,
+                        "kept": None,
+                    }
                     entry["message"] = describe_conflict(entry)
                     self.conflicts.append(entry)
 
 
 def _result_ids(doc: dict) -> set[str]:
-    return {r["id"] for s in doc.get("stops") or [] if isinstance(s, dict)
-            for b in s.get("bottles") or [] if isinstance(b, dict)
-            for r in b.get("lab_results") or [] if isinstance(r, dict) and isinstance(r.get("id"), str)}
+    return {
+        r["id"]
+        for s in doc.get("stops") or []
+        if isinstance(s, dict)
+        for b in s.get("bottles") or []
+        if isinstance(b, dict)
+        for r in b.get("lab_results") or []
+        if isinstance(r, dict) and isinstance(r.get("id"), str)
+    }
 
 
 def _fmt(value: Any) -> str:
@@ -409,8 +468,14 @@ def merge_trips(base: dict | None, a: dict, b: dict) -> MergeResult:
         out["audit"] = sorted(audit.values(), key=lambda e: (_time_key(e), e["id"]))
     # conflicts: merged like any id list (a resolved one removed on one side stays removed) + new
     base_conf = UNKNOWN if base is None else (base.get("conflicts") or [])
-    conf = m.value("conflicts", base_conf, list(a.get("conflicts") or []),
-                   list(b.get("conflicts") or []), derived=True, node=role_tree().child("conflicts"))
+    conf = m.value(
+        "conflicts",
+        base_conf,
+        list(a.get("conflicts") or []),
+        list(b.get("conflicts") or []),
+        derived=True,
+        node=role_tree().child("conflicts"),
+    )
     conf = [] if conf is MISSING else list(conf)
     # a settlement made on either side stands (the latest one when both settled the same conflict)
     conf = [m.settled.get(str(c.get("id")), c) if isinstance(c, dict) else c for c in conf]
@@ -429,8 +494,7 @@ def merge_trips(base: dict | None, a: dict, b: dict) -> MergeResult:
 # --- ancestry from the audit trail ------------------------------------------------------------
 def history(doc: dict) -> frozenset[str]:
     """The ids of a document's audit entries: its causal history (one entry per store save)."""
-    return frozenset(e["id"] for e in doc.get("audit") or []
-                     if isinstance(e, dict) and isinstance(e.get("id"), str))
+    return frozenset(e["id"] for e in doc.get("audit") or [] if isinstance(e, dict) and isinstance(e.get("id"), str))
 
 
 def relation(x: dict, y: dict) -> str:

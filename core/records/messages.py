@@ -1,13 +1,23 @@
 """Readable validation messages: stable error codes mapped to our own text and field labels."""
+
 from __future__ import annotations
 
+from collections.abc import Iterable
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
-from collections.abc import Iterable
 
-__all__ = ["FIELD_LABELS", "TEMPLATES", "Problem", "label_for", "path_label", "render",
-           "problems_from_validation", "one_line", "when_text"]
+__all__ = [
+    "FIELD_LABELS",
+    "TEMPLATES",
+    "Problem",
+    "label_for",
+    "path_label",
+    "render",
+    "problems_from_validation",
+    "one_line",
+    "when_text",
+]
 
 #: Field name → label a technician reads. Keys are the last element of a field path.
 FIELD_LABELS: dict[str, str] = {
@@ -81,19 +91,27 @@ FIELD_LABELS: dict[str, str] = {
 }
 
 #: Parent containers in a path → how a person names them.
-_CONTAINERS = {"stops": "Stop", "bottles": "Bottle", "lab_results": "Lab result",
-               "audit": "Audit entry", "conflicts": "Conflict", "sides": "Side"}
+_CONTAINERS = {
+    "stops": "Stop",
+    "bottles": "Bottle",
+    "lab_results": "Lab result",
+    "audit": "Audit entry",
+    "conflicts": "Conflict",
+    "sides": "Side",
+}
 
 
 #: Stable code → template. Codes other tools may read; texts are ours.
 TEMPLATES: dict[str, str] = {
     "missing": "{label} is required.",
     "missing.part": "{label} has no {part}; a stored reading keeps what was typed (text, entered_value,"
-                    " entered_unit) beside its value and unit.",
+    " entered_unit) beside its value and unit.",
     "number.invalid": "{label}: “{input}” is not a number; type digits such as 12.5 (a decimal comma is fine).",
     "number.not_finite": "{label}: “{input}” is not a usable number; NaN and infinity are refused.",
     "number.bool": "{label}: a yes/no value is not a number; type the number.",
-    "number.ambiguous_comma": "{label}: “{input}” is ambiguous (decimal comma or thousands separator?); type {a} or {b}.",
+    "number.ambiguous_comma": (
+        "{label}: “{input}” is ambiguous (decimal comma or thousands separator?); type {a} or {b}."
+    ),
     "number.not_integer": "{label}: “{input}” must be a whole number.",
     "range": "{label} {value} {unit} is outside {low}–{high} {unit}{hint}",
     "unit.invalid": "{label}: “{input}” — {detail}.",
@@ -120,22 +138,34 @@ TEMPLATES: dict[str, str] = {
 # pydantic's error type → our code (never its text)
 _PYDANTIC_TYPES = {
     "missing": "missing",
-    "float_type": "number.invalid", "float_parsing": "number.invalid",
-    "int_type": "number.invalid", "int_parsing": "number.invalid",
+    "float_type": "number.invalid",
+    "float_parsing": "number.invalid",
+    "int_type": "number.invalid",
+    "int_parsing": "number.invalid",
     "int_from_float": "number.not_integer",
     "finite_number": "number.not_finite",
     "timezone_aware": "time.naive",
-    "datetime_type": "time.invalid", "datetime_parsing": "time.invalid",
-    "datetime_from_date_parsing": "time.invalid", "datetime_object_invalid": "time.invalid",
-    "literal_error": "choice.invalid", "enum": "choice.invalid",
-    "string_type": "text.invalid", "string_too_long": "text.too_long",
+    "datetime_type": "time.invalid",
+    "datetime_parsing": "time.invalid",
+    "datetime_from_date_parsing": "time.invalid",
+    "datetime_object_invalid": "time.invalid",
+    "literal_error": "choice.invalid",
+    "enum": "choice.invalid",
+    "string_type": "text.invalid",
+    "string_too_long": "text.too_long",
     "string_too_short": "text.too_short",
     "string_pattern_mismatch": "text.pattern",
-    "greater_than_equal": "number.too_small", "greater_than": "number.too_small",
-    "less_than_equal": "number.too_large", "less_than": "number.too_large",
-    "bool_type": "bool.invalid", "bool_parsing": "bool.invalid",
-    "model_type": "object.invalid", "dict_type": "object.invalid", "model_attributes_type": "object.invalid",
-    "list_type": "list.invalid", "tuple_type": "list.invalid",
+    "greater_than_equal": "number.too_small",
+    "greater_than": "number.too_small",
+    "less_than_equal": "number.too_large",
+    "less_than": "number.too_large",
+    "bool_type": "bool.invalid",
+    "bool_parsing": "bool.invalid",
+    "model_type": "object.invalid",
+    "dict_type": "object.invalid",
+    "model_attributes_type": "object.invalid",
+    "list_type": "list.invalid",
+    "tuple_type": "list.invalid",
     "json_invalid": "field.invalid",
 }
 
@@ -227,14 +257,18 @@ def problems_from_validation(exc: Any) -> list[Problem]:
         inp = err.get("input")
         if ctx.get("field"):
             loc = loc + (ctx["field"],)
-        code = _PYDANTIC_TYPES.get(etype, etype if etype in TEMPLATES or etype.endswith(".out_of_range")
-                                   else "field.invalid")
+        code = _PYDANTIC_TYPES.get(
+            etype, etype if etype in TEMPLATES or etype.endswith(".out_of_range") else "field.invalid"
+        )
         if inp is None and code in ("object.invalid", "number.invalid", "text.invalid", "time.invalid"):
             code = "missing"
         if code == "number.invalid" and isinstance(inp, bool):
             code = "number.bool"
-        if code == "number.invalid" and isinstance(inp, str) and inp.strip().lower().lstrip("+-") in (
-                "nan", "inf", "infinity"):
+        if (
+            code == "number.invalid"
+            and isinstance(inp, str)
+            and inp.strip().lower().lstrip("+-") in ("nan", "inf", "infinity")
+        ):
             code = "number.not_finite"
         label = path_label(loc)
         params: dict[str, Any] = {"label": label, "input": _short(inp)}

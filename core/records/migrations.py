@@ -21,12 +21,13 @@ Version 2 differs from version 3 as follows:
 Ids made during migration are UUID version 5 of the trip id and the element's position, so two
 devices migrating the same old document agree on them (sync merges by id).
 """
+
 from __future__ import annotations
 
 import copy
 import uuid
-from typing import Any
 from collections.abc import Callable
+from typing import Any
 
 from core.records.models import SCHEMA_VERSION
 from core.store.errors import InvalidRecord, NewerSchemaError
@@ -52,8 +53,13 @@ def _quantity(value: Any, unit: str, entered_unit: str) -> dict[str, Any] | None
         return None
     number = float(value)
     shown = f"{number:g}"
-    return {"text": f"{shown} {entered_unit}".strip(), "entered_value": number,
-            "entered_unit": entered_unit, "value": number, "unit": unit}
+    return {
+        "text": f"{shown} {entered_unit}".strip(),
+        "entered_value": number,
+        "entered_unit": entered_unit,
+        "value": number,
+        "unit": unit,
+    }
 
 
 def _v1_to_v2(doc: dict[str, Any]) -> dict[str, Any]:
@@ -67,9 +73,12 @@ def _v1_to_v2(doc: dict[str, Any]) -> dict[str, Any]:
         stop.setdefault("id", _uuid5(trip_id, "stop", i))
         _rename(stop, "site", "site_id")
         _rename(stop, "time", "arrived_at")
-        for old, new, unit, typed in (("temp_c", "temp", "°C", "°C"), ("pressure_hpa", "pressure", "hPa", "hPa"),
-                                      ("conductivity_us_cm", "conductivity", "µS/cm", "µS/cm"),
-                                      ("do_mg_l", "do", "mg/L", "mg/L")):
+        for old, new, unit, typed in (
+            ("temp_c", "temp", "°C", "°C"),
+            ("pressure_hpa", "pressure", "hPa", "hPa"),
+            ("conductivity_us_cm", "conductivity", "µS/cm", "µS/cm"),
+            ("do_mg_l", "do", "mg/L", "mg/L"),
+        ):
             if old in stop:
                 q = _quantity(stop.pop(old), unit, typed)
                 if q is not None:
@@ -167,13 +176,15 @@ def migrate(doc: dict[str, Any]) -> dict[str, Any]:
 
     version = doc.get("schema_version")
     if isinstance(version, bool) or not isinstance(version, int):
-        raise InvalidRecord("Schema version is missing or not a whole number; this is not a streamtab"
-                            " trip document.")
+        raise InvalidRecord("Schema version is missing or not a whole number; this is not a streamtab trip document.")
     if version > CURRENT:
         raise NewerSchemaError(
             f"Trip {doc.get('id', '?')} was written by a newer streamtab (schema version {version};"
             f" this build knows up to {CURRENT}); update streamtab to open it. The file was left"
-            " untouched.", version, CURRENT)
+            " untouched.",
+            version,
+            CURRENT,
+        )
     if version == CURRENT:
         return doc
     if version < 1 or version not in MIGRATIONS:
@@ -184,6 +195,8 @@ def migrate(doc: dict[str, Any]) -> dict[str, Any]:
         try:
             out = MIGRATIONS[step](out)
         except (TypeError, ValueError, AttributeError, KeyError) as exc:
-            raise InvalidRecord(f"A schema version {step} document could not be lifted to version"
-                                f" {step + 1}: a part of it has an unexpected shape ({type(exc).__name__}: {exc}).") from None
+            raise InvalidRecord(
+                f"A schema version {step} document could not be lifted to version"
+                f" {step + 1}: a part of it has an unexpected shape ({type(exc).__name__}: {exc})."
+            ) from None
     return out

@@ -1,4 +1,5 @@
 """Trip records: sites, trips, stops, bottles, calibrations, lab results, audit and conflicts (pydantic v2)."""
+
 from __future__ import annotations
 
 import json
@@ -10,18 +11,56 @@ from functools import cache
 from pathlib import Path
 from typing import Any, Literal
 
-from core.science import quantities as _quantities
-from core.science.conductivity import ALPHA_RANGE_PER_C
-from pydantic import (AwareDatetime, BaseModel, ConfigDict, Field, field_validator, model_serializer, model_validator)
+from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, field_validator, model_serializer, model_validator
 from pydantic_core import PydanticCustomError
 
+from core.science import quantities as _quantities
+from core.science.conductivity import ALPHA_RANGE_PER_C
+
 __all__ = [
-    "SCHEMA_VERSION", "BOTTLE_KINDS", "WATER_CLASSES", "LIMITS",
-    "Quantity", "FlagRecord", "Derived", "Site", "SiteSnapshot", "Calibration", "LabResult", "Bottle", "Stop",
-    "RESULT_STATUSES", "LOCAL_STOP_KEYS", "AuditEntry", "AuditChange", "AUDIT_VALUE_BYTES", "ConflictSide",
-    "Conflict", "ReviewEvent", "ProgramSettings", "Signature", "CustodyRecord", "LabBatch", "Trip", "SIGNATURE_LIMITS",
-    "InputError", "analyte_key", "new_id", "parse_number", "measure", "trip_json_schema", "write_trip_schema",
-    "INPUT", "DERIVED", "BOOKKEEPING", "LOG", "ROLES", "RETAINED", "RoleNode", "role_tree", "paths_by_role",
+    "SCHEMA_VERSION",
+    "BOTTLE_KINDS",
+    "WATER_CLASSES",
+    "LIMITS",
+    "Quantity",
+    "FlagRecord",
+    "Derived",
+    "Site",
+    "SiteSnapshot",
+    "Calibration",
+    "LabResult",
+    "Bottle",
+    "Stop",
+    "RESULT_STATUSES",
+    "LOCAL_STOP_KEYS",
+    "AuditEntry",
+    "AuditChange",
+    "AUDIT_VALUE_BYTES",
+    "ConflictSide",
+    "Conflict",
+    "ReviewEvent",
+    "ProgramSettings",
+    "Signature",
+    "CustodyRecord",
+    "LabBatch",
+    "Trip",
+    "SIGNATURE_LIMITS",
+    "InputError",
+    "analyte_key",
+    "new_id",
+    "parse_number",
+    "measure",
+    "trip_json_schema",
+    "write_trip_schema",
+    "INPUT",
+    "DERIVED",
+    "BOOKKEEPING",
+    "LOG",
+    "ROLES",
+    "RETAINED",
+    "RoleNode",
+    "role_tree",
+    "paths_by_role",
     "keys_by_role",
 ]
 
@@ -115,8 +154,14 @@ RETAINED = _role(INPUT, retain=True)
 class _Record(BaseModel):
     """Strict (no "nan", "inf" or True as numbers; times must carry a zone); unknown fields kept."""
 
-    model_config = ConfigDict(strict=True, allow_inf_nan=False, extra="allow",
-                              populate_by_name=True, validate_default=False, ser_json_inf_nan="strings")
+    model_config = ConfigDict(
+        strict=True,
+        allow_inf_nan=False,
+        extra="allow",
+        populate_by_name=True,
+        validate_default=False,
+        ser_json_inf_nan="strings",
+    )
 
 
 def _id_field() -> Any:
@@ -149,8 +194,7 @@ class FlagRecord(_Record):
     @classmethod
     def from_flag(cls, flag: Any) -> FlagRecord:
         sev = getattr(flag.severity, "value", flag.severity)
-        return cls(code=flag.code, severity=sev, message=flag.message, action=flag.action or "",
-                   field=flag.field)
+        return cls(code=flag.code, severity=sev, message=flag.message, action=flag.action or "", field=flag.field)
 
     def to_flag(self):
         from core.flags import Flag, Severity
@@ -179,17 +223,20 @@ class Derived(_Record):
 
 def _range_error(kind: str, label_field: str, value: float, unit: str) -> PydanticCustomError:
     low, high, _ = _quantities.LIMITS[kind]
-    return PydanticCustomError(f"{kind}.out_of_range", "{value} outside {low}–{high} {unit}",
-                               {"value": value, "low": low, "high": high, "unit": unit,
-                                "kind": kind})
+    return PydanticCustomError(
+        f"{kind}.out_of_range",
+        "{value} outside {low}–{high} {unit}",
+        {"value": value, "low": low, "high": high, "unit": unit, "kind": kind},
+    )
 
 
 def _check_quantity(q: Quantity | None, kind: str, units: tuple[str, ...]) -> Quantity | None:
     if q is None:
         return None
     if q.unit not in units:
-        raise PydanticCustomError("unit.mismatch", "unit {unit} not in {expected}",
-                                  {"unit": q.unit, "expected": ", ".join(units)})
+        raise PydanticCustomError(
+            "unit.mismatch", "unit {unit} not in {expected}", {"unit": q.unit, "expected": ", ".join(units)}
+        )
     key = kind
     if kind == "do":
         key = "do_percent" if q.unit == "%" else "do_mg_l"
@@ -524,10 +571,13 @@ class InstrumentLog(_Record):
         """The zero-DO and barometer findings of this log (core.science.calibration.instrument_flags)."""
         from core.science.calibration import instrument_flags
 
-        return instrument_flags(self.serial, zero_do_mg_l=self.zero_do_mg_l,
-                                zero_do_limit_mg_l=self.zero_do_limit_mg_l,
-                                barometer_difference_hpa=self.barometer_difference_hpa,
-                                barometer_limit_hpa=self.barometer_limit_hpa)
+        return instrument_flags(
+            self.serial,
+            zero_do_mg_l=self.zero_do_mg_l,
+            zero_do_limit_mg_l=self.zero_do_limit_mg_l,
+            barometer_difference_hpa=self.barometer_difference_hpa,
+            barometer_limit_hpa=self.barometer_limit_hpa,
+        )
 
 
 class ProgramSettings(_Record):
@@ -536,14 +586,22 @@ class ProgramSettings(_Record):
     schema_version: int = SCHEMA_VERSION
     program: str = Field(default="", max_length=120)
     method: Literal["benson-krause", "garcia-gordon"] = "benson-krause"
-    warm_min_mg_l: float = Field(5.0, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1])    # common practice (many state standards; EPA 1986 differs)
-    cold_min_mg_l: float = Field(6.5, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1])    # US EPA 440/5-86-003 (1986) cold-water 30-day mean, from memory
-    supersaturation_percent: float = Field(120.0, ge=LIMITS["supersaturation"][0], le=LIMITS["supersaturation"][1])   # common practice
-    hypoxic_mg_l: float = Field(2.0, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1])     # common practice
+    warm_min_mg_l: float = Field(
+        5.0, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1]
+    )  # common practice (many state standards; EPA 1986 differs)
+    cold_min_mg_l: float = Field(
+        6.5, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1]
+    )  # US EPA 440/5-86-003 (1986) cold-water 30-day mean, from memory
+    supersaturation_percent: float = Field(
+        120.0, ge=LIMITS["supersaturation"][0], le=LIMITS["supersaturation"][1]
+    )  # common practice
+    hypoxic_mg_l: float = Field(2.0, ge=LIMITS["criterion"][0], le=LIMITS["criterion"][1])  # common practice
     #: Life stages the program protects ("other" or "early": embryos and larvae present); picks the EPA 1986
     #: 1-day minimum a spot reading is compared with (core.science.criteria.EPA_1986_MG_L, from memory).
     life_stage: Literal["other", "early"] = "other"
-    calibration_tolerance_mg_l: float = Field(0.2, gt=LIMITS["tolerance"][0], le=LIMITS["tolerance"][1])  # common practice (USGS NFM A6.2 method)
+    calibration_tolerance_mg_l: float = Field(
+        0.2, gt=LIMITS["tolerance"][0], le=LIMITS["tolerance"][1]
+    )  # common practice (USGS NFM A6.2 method)
     #: Elevation where the meter is calibrated (the office), m; None: the trip's first site. The
     #: calibration pressure is checked against it like a stop's pressure.
     calibration_elevation_m: float | None = Field(None, ge=LIMITS["elevation"][0], le=LIMITS["elevation"][1])
@@ -586,9 +644,13 @@ class ProgramSettings(_Record):
     def criteria(self):
         from core.science.criteria import Criteria
 
-        return Criteria(warm_min_mg_l=self.warm_min_mg_l, cold_min_mg_l=self.cold_min_mg_l,
-                        supersaturation_percent=self.supersaturation_percent,
-                        hypoxic_mg_l=self.hypoxic_mg_l, life_stage=self.life_stage)
+        return Criteria(
+            warm_min_mg_l=self.warm_min_mg_l,
+            cold_min_mg_l=self.cold_min_mg_l,
+            supersaturation_percent=self.supersaturation_percent,
+            hypoxic_mg_l=self.hypoxic_mg_l,
+            life_stage=self.life_stage,
+        )
 
 
 class ReviewEvent(_Record):
@@ -605,7 +667,7 @@ class ReviewEvent(_Record):
     by: str = Field(min_length=1, max_length=80)
     comment: str = Field(default="", max_length=2000)
     reasons: list[str] = Field(default_factory=list)
-    revision: int | None = None      # the trip revision the step was taken on
+    revision: int | None = None  # the trip revision the step was taken on
     approved: dict[str, Any] | None = None
 
 
@@ -633,16 +695,19 @@ class Signature(_Record):
     def _strokes(cls, v: list[list[list[float]]]) -> list[list[list[float]]]:
         lim = SIGNATURE_LIMITS
         if len(v) > lim["strokes"] or sum(len(s) for s in v) > lim["points"]:
-            raise PydanticCustomError("signature.too_long", "more than {strokes} strokes or {points} points",
-                                      {"strokes": lim["strokes"], "points": lim["points"]})
+            raise PydanticCustomError(
+                "signature.too_long",
+                "more than {strokes} strokes or {points} points",
+                {"strokes": lim["strokes"], "points": lim["points"]},
+            )
         for stroke in v:
             if len(stroke) > lim["points_per_stroke"]:
-                raise PydanticCustomError("signature.too_long", "a stroke of more than {n} points",
-                                          {"n": lim["points_per_stroke"]})
+                raise PydanticCustomError(
+                    "signature.too_long", "a stroke of more than {n} points", {"n": lim["points_per_stroke"]}
+                )
             for point in stroke:
                 if len(point) != 2 or not all(0.0 <= c <= 1.0 for c in point):
-                    raise PydanticCustomError("signature.point", "a point outside the pad: {point}",
-                                              {"point": point})
+                    raise PydanticCustomError("signature.point", "a point outside the pad: {point}", {"point": point})
         return v
 
 
@@ -722,8 +787,9 @@ class Trip(_Record):
     :attr:`extra` and written back unchanged; unknown nested fields are kept in place.
     """
 
-    id: str = Field(default_factory=new_id, pattern=r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$",
-                    json_schema_extra=_role(BOOKKEEPING))
+    id: str = Field(
+        default_factory=new_id, pattern=r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$", json_schema_extra=_role(BOOKKEEPING)
+    )
     schema_version: int = Field(SCHEMA_VERSION, json_schema_extra=_role(BOOKKEEPING))
     revision: int = Field(default=0, ge=0, json_schema_extra=_role(BOOKKEEPING))
     updated_at: AwareDatetime | None = Field(None, json_schema_extra=_role(BOOKKEEPING))
@@ -772,8 +838,7 @@ class Trip(_Record):
     @model_validator(mode="after")
     def _ended_after_start(self) -> Trip:
         if self.ended_at is not None and self.ended_at < self.started_at:
-            raise PydanticCustomError("time.end_before_start", "ended before it started",
-                                      {"field": "ended_at"})
+            raise PydanticCustomError("time.end_before_start", "ended before it started", {"field": "ended_at"})
         return self
 
     @property
@@ -782,7 +847,7 @@ class Trip(_Record):
 
     @property
     def status(self) -> str:
-        """"needs attention" with unresolved conflicts, else "in progress" or "ended"."""
+        """ "needs attention" with unresolved conflicts, else "in progress" or "ended"."""
         if self.open_conflicts:
             return "needs attention"
         return "in progress" if self.ended_at is None else "ended"
@@ -888,8 +953,7 @@ def paths_by_role(role: str, model: type[BaseModel] | None = None) -> list[str]:
                 continue
             for sub in _records_in(info.annotation)[:1]:
                 origin = typing.get_origin(info.annotation)
-                is_list = origin is list or any(typing.get_origin(a) is list
-                                                for a in typing.get_args(info.annotation))
+                is_list = origin is list or any(typing.get_origin(a) is list for a in typing.get_args(info.annotation))
                 walk(sub, path + ("[]" if is_list else ""))
 
     walk(model or Trip, "")

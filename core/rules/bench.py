@@ -7,6 +7,7 @@ the one number rule (:func:`core.records.models.parse_number`: a decimal comma i
 refused as ambiguous). One sheet can hold a whole batch: reading it for one bottle takes that
 bottle's dilutions and every seed control.
 """
+
 from __future__ import annotations
 
 import csv
@@ -14,8 +15,15 @@ import io
 from dataclasses import dataclass, field
 from typing import Any
 
-__all__ = ["SHEET_COLUMNS", "DILUTION", "SEED_CONTROL", "SheetError", "BenchSheet", "read_bench_sheet",
-           "write_bench_sheet"]
+__all__ = [
+    "SHEET_COLUMNS",
+    "DILUTION",
+    "SEED_CONTROL",
+    "SheetError",
+    "BenchSheet",
+    "read_bench_sheet",
+    "write_bench_sheet",
+]
 
 SHEET_COLUMNS = ("bottle", "kind", "sample_ml", "bottle_ml", "seed_ml", "initial_do_mg_l", "final_do_mg_l", "notes")
 DILUTION = "dilution"
@@ -43,8 +51,9 @@ def _cell(text: str) -> str:
     return text[1:] if text.startswith("'") and text[1:2] in ("=", "+", "-", "@") else text
 
 
-def read_bench_sheet(text: str, *, bottle: str | None = None, name: str = "the sheet",
-                     need_dilutions: bool = True) -> BenchSheet:
+def read_bench_sheet(
+    text: str, *, bottle: str | None = None, name: str = "the sheet", need_dilutions: bool = True
+) -> BenchSheet:
     """The dilutions of `bottle` (every dilution when None) and all seed controls on the sheet.
 
     With ``need_dilutions=False`` a sheet of seed controls only is accepted (a batch's QC).
@@ -76,8 +85,10 @@ def read_bench_sheet(text: str, *, bottle: str | None = None, name: str = "the s
             continue  # an unused row of the printed template (label and bottle size only)
         kind = cells.get("kind", "").strip().lower()
         if kind not in (DILUTION, SEED_CONTROL):
-            raise SheetError(f"{name}, line {line}, column kind: {cells.get('kind', '')!r} is not accepted;"
-                             f" accepted: {DILUTION} or {SEED_CONTROL}")
+            raise SheetError(
+                f"{name}, line {line}, column kind: {cells.get('kind', '')!r} is not accepted;"
+                f" accepted: {DILUTION} or {SEED_CONTROL}"
+            )
         label = cells.get("bottle", "")
         nums: dict[str, float] = {}
         for col in _NUMBERS:
@@ -87,33 +98,43 @@ def read_bench_sheet(text: str, *, bottle: str | None = None, name: str = "the s
             try:
                 nums[col] = parse_number(raw, col)
             except InputError:
-                raise SheetError(f"{name}, line {line}, column {col}: {raw!r} is not a number; accepted: digits"
-                                 " such as 8.75 or 8,75") from None
-        for col in ("sample_ml", "initial_do_mg_l", "final_do_mg_l") if kind == DILUTION else (
-                "initial_do_mg_l", "final_do_mg_l"):
+                raise SheetError(
+                    f"{name}, line {line}, column {col}: {raw!r} is not a number; accepted: digits such as 8.75 or 8,75"
+                ) from None
+        for col in (
+            ("sample_ml", "initial_do_mg_l", "final_do_mg_l")
+            if kind == DILUTION
+            else ("initial_do_mg_l", "final_do_mg_l")
+        ):
             if col not in nums:
                 raise SheetError(f"{name}, line {line}, column {col} is empty; accepted: a number")
         if kind == SEED_CONTROL:
             seed = nums.get("seed_ml", nums.get("sample_ml"))
             if seed is None:
                 raise SheetError(f"{name}, line {line}, column seed_ml is empty; accepted: the seed volume in mL")
-            controls.append({"initial_do_mg_l": nums["initial_do_mg_l"], "final_do_mg_l": nums["final_do_mg_l"],
-                             "seed_ml": seed})
+            controls.append(
+                {"initial_do_mg_l": nums["initial_do_mg_l"], "final_do_mg_l": nums["final_do_mg_l"], "seed_ml": seed}
+            )
             continue
         if label and label not in labels:
             labels.append(label)
         if want and label.casefold() != want:
             continue
-        d = {"initial_do_mg_l": nums["initial_do_mg_l"], "final_do_mg_l": nums["final_do_mg_l"],
-             "sample_ml": nums["sample_ml"], "bottle_ml": nums.get("bottle_ml", 300.0)}
+        d = {
+            "initial_do_mg_l": nums["initial_do_mg_l"],
+            "final_do_mg_l": nums["final_do_mg_l"],
+            "sample_ml": nums["sample_ml"],
+            "bottle_ml": nums.get("bottle_ml", 300.0),
+        }
         if nums.get("seed_ml"):
             d["seed_ml"] = nums["seed_ml"]
         dilutions.append(d)
     if not dilutions and need_dilutions:
         which = f" for bottle {bottle}" if bottle else ""
         on = f" (bottles on the sheet: {', '.join(labels)})" if labels else ""
-        raise SheetError(f"{name} has no dilution rows{which}{on}; accepted: rows of kind {DILUTION} with the"
-                         " bottle's label")
+        raise SheetError(
+            f"{name} has no dilution rows{which}{on}; accepted: rows of kind {DILUTION} with the bottle's label"
+        )
     return BenchSheet(dilutions, controls, labels)
 
 
@@ -126,6 +147,10 @@ def write_bench_sheet(rows: list[dict[str, Any]], name: str = "bench-sheet.csv")
 
     out = []
     for r in rows:
-        out.append({**{c: num(r.get(c)) if c in _NUMBERS else (r.get(c) or "") for c in SHEET_COLUMNS},
-                    "kind": r.get("kind", DILUTION)})
+        out.append(
+            {
+                **{c: num(r.get(c)) if c in _NUMBERS else (r.get(c) or "") for c in SHEET_COLUMNS},
+                "kind": r.get("kind", DILUTION),
+            }
+        )
     return csv_table(SHEET_COLUMNS, out, name=name)

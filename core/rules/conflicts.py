@@ -10,6 +10,7 @@ results of one analysis on one bottle recorded on two machines. People see it as
 stop number, the field's label, each value with its unit, the device's name and when — never a
 record path or a device id.
 """
+
 from __future__ import annotations
 
 import copy
@@ -21,8 +22,18 @@ from typing import Any
 from core.records.messages import label_for
 from core.records.models import InputError, Trip, measure, parse_number
 
-__all__ = ["ConflictError", "ConflictView", "CORRECTABLE", "list_conflicts", "find_conflict", "settle",
-           "settle_document", "correct", "route", "stop_number"]
+__all__ = [
+    "ConflictError",
+    "ConflictView",
+    "CORRECTABLE",
+    "list_conflicts",
+    "find_conflict",
+    "settle",
+    "settle_document",
+    "correct",
+    "route",
+    "stop_number",
+]
 
 
 class ConflictError(ValueError):
@@ -48,13 +59,33 @@ CORRECTABLE: dict[str, tuple[str, str, str]] = {
     "flow": ("flow", "text", ""),
     "notes": ("notes", "text", ""),
 }
-_COMPUTED = ("do_sat_mg_l", "do_mg_l", "do_percent_saturation", "salinity_pss78", "salinity_source",
-             "specific_conductance_us_cm", "method", "core_version", "flags")
+_COMPUTED = (
+    "do_sat_mg_l",
+    "do_mg_l",
+    "do_percent_saturation",
+    "salinity_pss78",
+    "salinity_source",
+    "specific_conductance_us_cm",
+    "method",
+    "core_version",
+    "flags",
+)
 #: Units of plain-number fields, by the end of their name.
-_UNIT_SUFFIX = (("_mg_l", "mg/L"), ("_percent", "%"), ("_hpa", "hPa"), ("_c", "°C"), ("_m", "m"),
-                ("_us_cm", "µS/cm"), ("_h", "h"))
-_QUANTITY_KIND = {"temp": ("temp", "°C"), "pressure": ("pressure", "hPa"),
-                  "conductivity": ("conductivity", "µS/cm"), "do": ("do", "mg/L")}
+_UNIT_SUFFIX = (
+    ("_mg_l", "mg/L"),
+    ("_percent", "%"),
+    ("_hpa", "hPa"),
+    ("_c", "°C"),
+    ("_m", "m"),
+    ("_us_cm", "µS/cm"),
+    ("_h", "h"),
+)
+_QUANTITY_KIND = {
+    "temp": ("temp", "°C"),
+    "pressure": ("pressure", "hPa"),
+    "conductivity": ("conductivity", "µS/cm"),
+    "do": ("do", "mg/L"),
+}
 _TOKEN = re.compile(r"([A-Za-z_][A-Za-z0-9_]*)(?:\[([^\]]*)\])?")
 
 
@@ -74,9 +105,17 @@ class ConflictView:
     settled: bool = False
 
     def to_dict(self) -> dict[str, Any]:
-        return {"id": self.id, "number": self.number, "stop": self.stop, "site_id": self.site_id,
-                "field": self.label, "kind": self.kind, "values": list(self.values),
-                "message": self.message, "settled": self.settled}
+        return {
+            "id": self.id,
+            "number": self.number,
+            "stop": self.stop,
+            "site_id": self.site_id,
+            "field": self.label,
+            "kind": self.kind,
+            "values": list(self.values),
+            "message": self.message,
+            "settled": self.settled,
+        }
 
 
 # --------------------------------------------------------------------------------------------
@@ -126,7 +165,7 @@ def _where(doc: dict[str, Any], conflict: dict[str, Any]) -> tuple[dict[str, Any
             holder = nxt
             continue
         items = holder.get(key)
-        if last:          # lab_results[<analyte>]: the list itself is what the conflict is about
+        if last:  # lab_results[<analyte>]: the list itself is what the conflict is about
             return stop, holder, key
         elem = _element(items if isinstance(items, list) else [], ref)
         if elem is None:
@@ -181,7 +220,7 @@ def _show(value: Any, key: str, *, removed: bool = False) -> str:
         unit = str(value.get("unit") or "")
         has_unit = any(ch.isalpha() or ch in "°%µ" for ch in text)
         return text if has_unit or not unit else f"{text} {unit}"
-    if isinstance(value, dict) and "analyte" in value:      # a lab result
+    if isinstance(value, dict) and "analyte" in value:  # a lab result
         v = value.get("value")
         shown = "no value" if v is None else f"{v:g} {value.get('unit') or ''}".strip()
         who = f" by {value['analyst']}" if value.get("analyst") else ""
@@ -258,22 +297,30 @@ def _views(doc: dict[str, Any], *, this_device: str | None, settled: bool) -> li
         for i, side in enumerate(c.get("sides") or [], 1):
             if not isinstance(side, dict):
                 continue
-            values.append({"n": i, "value": side.get("value"), "text": _show(side.get("value"), key,
-                                                                               removed=bool(side.get("removed"))),
-                           "device": _device(side, names, this_device), "at": _when(side)})
+            values.append(
+                {
+                    "n": i,
+                    "value": side.get("value"),
+                    "text": _show(side.get("value"), key, removed=bool(side.get("removed"))),
+                    "device": _device(side, names, this_device),
+                    "at": _when(side),
+                }
+            )
         where = f"{site} (stop {n})" if stop else "The trip"
         parts = [f"{v['n']}) {v['text']} from {v['device']}" + (f" at {v['at']}" if v["at"] else "") for v in values]
         if c.get("kind") == "results":
             msg = f"{where}: two live {label}s were recorded on two devices — " + "; ".join(parts) + "."
         else:
             msg = f"{where}: {label} was changed on two devices — " + "; ".join(parts) + "."
-        out.append(ConflictView(str(c.get("id")), number, n, site, label, values, msg,
-                                str(c.get("kind") or "field"), settled))
+        out.append(
+            ConflictView(str(c.get("id")), number, n, site, label, values, msg, str(c.get("kind") or "field"), settled)
+        )
     return out
 
 
-def list_conflicts(trip: Trip | dict[str, Any], *, this_device: str | None = None,
-                   settled: bool = False) -> list[ConflictView]:
+def list_conflicts(
+    trip: Trip | dict[str, Any], *, this_device: str | None = None, settled: bool = False
+) -> list[ConflictView]:
     """The trip's open conflicts (or, with `settled`, the settled ones), numbered 1, 2, … in the
     trip's order, each with its site and stop number, the field's label and every value in words."""
     doc = trip.to_document() if isinstance(trip, Trip) else trip
@@ -292,8 +339,10 @@ def find_conflict(trip: Trip | dict[str, Any], ref: str) -> dict[str, Any]:
         return found[0]
     if not open_:
         raise ConflictError("this trip has no open conflicts")
-    raise ConflictError(f"no open conflict {text!r}: give its number (1 to {len(open_)}) from"
-                        " 'streamtab trip conflicts' or the start of its id")
+    raise ConflictError(
+        f"no open conflict {text!r}: give its number (1 to {len(open_)}) from"
+        " 'streamtab trip conflicts' or the start of its id"
+    )
 
 
 # --------------------------------------------------------------------------------------------
@@ -364,8 +413,9 @@ def _on_approved(before: dict[str, Any], after: dict[str, Any], *, by: str, at: 
     after[REVIEW_KEY] = list(after.get(REVIEW_KEY) or []) + [event]
 
 
-def settle_document(doc: dict[str, Any], ref: str, *, keep: int | None = None, value: str | None = None,
-                    by: str, at: datetime) -> dict[str, Any]:
+def settle_document(
+    doc: dict[str, Any], ref: str, *, keep: int | None = None, value: str | None = None, by: str, at: datetime
+) -> dict[str, Any]:
     """A copy of the trip document with one conflict settled (see :func:`settle`)."""
     if (keep is None) == (value is None):
         raise ConflictError("settle with --keep N (one of the values shown) or --value TEXT, one of the two")
@@ -385,8 +435,12 @@ def settle_document(doc: dict[str, Any], ref: str, *, keep: int | None = None, v
         device = sides[keep - 1].get("device_name") or "the device chosen"
         for r in holder.get(key) or []:
             if isinstance(r, dict) and r.get("id") in others:
-                r.update(status="superseded", superseded_by=kept.get("id"), superseded_at=at.isoformat(),
-                         superseded_reason=f"conflict settled by {by}: kept the result from {device}"[:400])
+                r.update(
+                    status="superseded",
+                    superseded_by=kept.get("id"),
+                    superseded_at=at.isoformat(),
+                    superseded_reason=f"conflict settled by {by}: kept the result from {device}"[:400],
+                )
         chosen: Any = kept.get("id")
     else:
         if keep is not None:
@@ -404,8 +458,7 @@ def settle_document(doc: dict[str, Any], ref: str, *, keep: int | None = None, v
     return out
 
 
-def settle(trip: Trip, ref: str, *, keep: int | None = None, value: str | None = None, by: str,
-           at: datetime) -> Trip:
+def settle(trip: Trip, ref: str, *, keep: int | None = None, value: str | None = None, by: str, at: datetime) -> Trip:
     """The trip with conflict `ref` (its number or id) settled: ``keep=N`` keeps the N-th value
     shown, ``value=TEXT`` sets a typed value (read as the app reads that field). The conflict stays
     in the trip, marked settled (who, when, what was kept); for two live results, the one not kept
@@ -413,8 +466,9 @@ def settle(trip: Trip, ref: str, *, keep: int | None = None, value: str | None =
     return _valid(settle_document(trip.to_document(), ref, keep=keep, value=value, by=by, at=at))
 
 
-def correct(trip: Trip, stop: int, column: str, value: str, *, by: str = "", at: datetime | None = None,
-            reason: str = "") -> tuple[Trip, str]:
+def correct(
+    trip: Trip, stop: int, column: str, value: str, *, by: str = "", at: datetime | None = None, reason: str = ""
+) -> tuple[Trip, str]:
     """(the trip with one field of stop number `stop` corrected, a sentence saying what changed).
 
     `column` is a trip CSV export column (:data:`CORRECTABLE`); `value` is read as the app reads
@@ -424,18 +478,22 @@ def correct(trip: Trip, stop: int, column: str, value: str, *, by: str = "", at:
     """
     col = str(column).strip()
     if col in _COMPUTED:
-        raise ConflictError(f"--field {col} is computed from the readings; correct the reading it comes from"
-                            " (e.g. water_temp_c, station_pressure_hpa, meter_do_value)")
+        raise ConflictError(
+            f"--field {col} is computed from the readings; correct the reading it comes from"
+            " (e.g. water_temp_c, station_pressure_hpa, meter_do_value)"
+        )
     if col not in CORRECTABLE:
-        raise ConflictError(f"--field {col!r} is not a field a correction can change; accepted: "
-                            + ", ".join(sorted(CORRECTABLE)))
+        raise ConflictError(
+            f"--field {col!r} is not a field a correction can change; accepted: " + ", ".join(sorted(CORRECTABLE))
+        )
     key, kind, unit = CORRECTABLE[col]
     doc = trip.to_document()
     before = copy.deepcopy(doc)
     stops = route(doc)
     if not 1 <= stop <= len(stops):
-        raise ConflictError(f"--stop {stop}: this trip has stops 1 to {len(stops)}" if stops
-                            else "this trip has no stops")
+        raise ConflictError(
+            f"--stop {stop}: this trip has stops 1 to {len(stops)}" if stops else "this trip has no stops"
+        )
     target = stops[stop - 1]
     old = target.get(key)
     if kind in ("temp", "pressure", "conductivity", "do"):
@@ -453,7 +511,7 @@ def correct(trip: Trip, stop: int, column: str, value: str, *, by: str = "", at:
     target[key] = new
     if at is not None and by and reason:
         _on_approved(before, doc, by=by, at=at, reason=reason)
-    what = (f"stop {stop} ({target.get('site_id')}): {label_for(key)} {_show(old, key)} → {_show(new, key)}")
+    what = f"stop {stop} ({target.get('site_id')}): {label_for(key)} {_show(old, key)} → {_show(new, key)}"
     return _valid(doc), what
 
 

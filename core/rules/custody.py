@@ -21,19 +21,28 @@ The cooling limits come from the holding-time table (:data:`core.science.holding
 BOD cool to ≤ 6 °C, not frozen; US 40 CFR 136.3 Table II, from memory). The program's SOP and
 local regulations decide what a finding means for the result.
 """
+
 from __future__ import annotations
 
 import itertools
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from typing import Any
-from collections.abc import Iterable
 
 from core.flags import Flag, Severity
 from core.records.models import Bottle, CustodyRecord, Quantity, Signature, Stop, Trip, new_id
 
-__all__ = ["CustodyInputError", "BottleCustody", "HandoffOutcome", "add_handoff", "sign_handoff",
-           "custody_chains", "same_person", "FUTURE_SLACK_S"]
+__all__ = [
+    "CustodyInputError",
+    "BottleCustody",
+    "HandoffOutcome",
+    "add_handoff",
+    "sign_handoff",
+    "custody_chains",
+    "same_person",
+    "FUTURE_SLACK_S",
+]
 
 #: How far after ``now`` a hand-off time may lie (clocks of two devices differ), s [common practice].
 FUTURE_SLACK_S = 300.0
@@ -50,6 +59,7 @@ class CustodyInputError(ValueError):
 
 def same_person(a: str, b: str) -> bool:
     """Two typed names are the same person: case, spacing and full stops aside ("R.O." == "r. o.")."""
+
     def key(s: str) -> str:
         return "".join(ch for ch in (s or "").casefold() if ch.isalnum())
 
@@ -77,22 +87,29 @@ class BottleCustody:
 
     @property
     def status(self) -> str:
-        """"at the lab", "in transit" (handed over, not received at the lab) or "no record"."""
+        """ "at the lab", "in transit" (handed over, not received at the lab) or "no record"."""
         if self.receipt is not None:
             return "at the lab"
         return "in transit" if self.hops else "no record"
 
     def to_dict(self) -> dict[str, Any]:
-        return {"bottle_id": self.bottle.id, "label": self.bottle.label, "kind": self.bottle.kind,
-                "site_id": self.stop.site_id, "status": self.status,
-                "hops": [h.id for h in self.hops], "receipt": self.receipt.id if self.receipt else None,
-                "flags": [f.to_dict() for f in self.flags]}
+        return {
+            "bottle_id": self.bottle.id,
+            "label": self.bottle.label,
+            "kind": self.bottle.kind,
+            "site_id": self.stop.site_id,
+            "status": self.status,
+            "hops": [h.id for h in self.hops],
+            "receipt": self.receipt.id if self.receipt else None,
+            "flags": [f.to_dict() for f in self.flags],
+        }
 
 
 def _aware(t: Any, name: str) -> datetime:
     if not isinstance(t, datetime) or t.tzinfo is None or t.utcoffset() is None:
-        raise CustodyInputError(name, f"{name} has no time zone; accepted: an ISO 8601 time with a zone,"
-                                      " e.g. 2026-06-09T13:10-07:00")
+        raise CustodyInputError(
+            name, f"{name} has no time zone; accepted: an ISO 8601 time with a zone, e.g. 2026-06-09T13:10-07:00"
+        )
     return t
 
 
@@ -100,10 +117,21 @@ def _bottles(trip: Trip) -> list[tuple[Stop, Bottle]]:
     return [(s, b) for s in sorted(trip.stops, key=lambda s: s.arrived_at) for b in s.bottles]
 
 
-def add_handoff(trip: Trip, *, relinquished_by: str, received_by: str, at: datetime, now: datetime,
-                bottle_refs: Iterable[str] | None = None, at_lab: bool = False, temp: Quantity | None = None,
-                condition: str = "", notes: str = "", relinquished_signature: Signature | None = None,
-                received_signature: Signature | None = None) -> HandoffOutcome:
+def add_handoff(
+    trip: Trip,
+    *,
+    relinquished_by: str,
+    received_by: str,
+    at: datetime,
+    now: datetime,
+    bottle_refs: Iterable[str] | None = None,
+    at_lab: bool = False,
+    temp: Quantity | None = None,
+    condition: str = "",
+    notes: str = "",
+    relinquished_signature: Signature | None = None,
+    received_signature: Signature | None = None,
+) -> HandoffOutcome:
     """Appends a hand-off of bottles to ``trip.custody``.
 
     Parameters
@@ -142,19 +170,25 @@ def add_handoff(trip: Trip, *, relinquished_by: str, received_by: str, at: datet
     giver = (relinquished_by or "").strip()
     taker = (received_by or "").strip()
     if not giver:
-        raise CustodyInputError("relinquished_by", "relinquished by is blank; accepted: the name of the person"
-                                                   " handing the bottles over")
+        raise CustodyInputError(
+            "relinquished_by", "relinquished by is blank; accepted: the name of the person handing the bottles over"
+        )
     if not taker:
-        raise CustodyInputError("received_by", "received by is blank; accepted: the name of the person taking"
-                                               " the bottles")
+        raise CustodyInputError(
+            "received_by", "received by is blank; accepted: the name of the person taking the bottles"
+        )
     if same_person(giver, taker):
-        raise CustodyInputError("received_by", f"received by {taker!r} is the person handing over; accepted:"
-                                               " another person's name")
+        raise CustodyInputError(
+            "received_by", f"received by {taker!r} is the person handing over; accepted: another person's name"
+        )
     _aware(at, "at")
     _aware(now, "now")
     if at > now + timedelta(seconds=FUTURE_SLACK_S):
-        raise CustodyInputError("at", f"the hand-off time {at.isoformat(timespec='minutes')} is in the future"
-                                      f" (now is {now.isoformat(timespec='minutes')}); accepted: a time up to now")
+        raise CustodyInputError(
+            "at",
+            f"the hand-off time {at.isoformat(timespec='minutes')} is in the future"
+            f" (now is {now.isoformat(timespec='minutes')}); accepted: a time up to now",
+        )
     pairs = _bottles(trip)
     if not pairs:
         raise CustodyInputError("bottles", f"trip {trip.id[:8]} has no bottles; accepted: a trip with bottles")
@@ -173,13 +207,25 @@ def add_handoff(trip: Trip, *, relinquished_by: str, received_by: str, at: datet
     early = [b for b in chosen if at < b.collected_at]
     if early:
         b = early[0]
-        raise CustodyInputError("at", f"the hand-off time {at.isoformat(timespec='minutes')} is before bottle"
-                                      f" {b.label} was collected ({b.collected_at.isoformat(timespec='minutes')});"
-                                      " accepted: a time after collection")
-    record = CustodyRecord(id=new_id(), bottle_ids=[b.id for b in chosen], relinquished_by=giver,
-                           received_by=taker, at=at, at_lab=bool(at_lab), temp=temp,
-                           condition=(condition or "").strip(), notes=(notes or "").strip(),
-                           relinquished_signature=relinquished_signature, received_signature=received_signature)
+        raise CustodyInputError(
+            "at",
+            f"the hand-off time {at.isoformat(timespec='minutes')} is before bottle"
+            f" {b.label} was collected ({b.collected_at.isoformat(timespec='minutes')});"
+            " accepted: a time after collection",
+        )
+    record = CustodyRecord(
+        id=new_id(),
+        bottle_ids=[b.id for b in chosen],
+        relinquished_by=giver,
+        received_by=taker,
+        at=at,
+        at_lab=bool(at_lab),
+        temp=temp,
+        condition=(condition or "").strip(),
+        notes=(notes or "").strip(),
+        relinquished_signature=relinquished_signature,
+        received_signature=received_signature,
+    )
     new_trip = trip.model_copy(update={"custody": list(trip.custody) + [record]})
     ids = set(record.bottle_ids)
     flags = [f for c in custody_chains(new_trip) if c.bottle.id in ids for f in c.flags]
@@ -198,14 +244,20 @@ def sign_handoff(trip: Trip, record_id: str, role: str, signature: Signature) ->
         if rec.id == record_id or (len(record_id) >= 8 and rec.id.startswith(record_id)):
             named = rec.relinquished_by if role == "relinquished" else rec.received_by
             if not same_person(named, signature.name):
-                raise CustodyInputError("name", f"the signature is by {signature.name!r}, but the hand-off names"
-                                                f" {named!r} as {role} by; accepted: {named}'s signature")
+                raise CustodyInputError(
+                    "name",
+                    f"the signature is by {signature.name!r}, but the hand-off names"
+                    f" {named!r} as {role} by; accepted: {named}'s signature",
+                )
             updated = rec.model_copy(update={f"{role}_signature": signature})
             custody = list(trip.custody)
             custody[i] = updated
             return trip.model_copy(update={"custody": custody})
-    raise CustodyInputError("record", f"hand-off {record_id!r} is not on trip {trip.id[:8]}; accepted: the id of"
-                                      " one of its hand-offs (see 'streamtab custody list')")
+    raise CustodyInputError(
+        "record",
+        f"hand-off {record_id!r} is not on trip {trip.id[:8]}; accepted: the id of"
+        " one of its hand-offs (see 'streamtab custody list')",
+    )
 
 
 def _cooling(bottle: Bottle, stop_bottles: Iterable[Bottle]):
@@ -227,63 +279,111 @@ def custody_chains(trip: Trip) -> list[BottleCustody]:
         hops = sorted((r for r in trip.custody if b.id in r.bottle_ids), key=lambda r: r.at)
         flags: list[Flag] = []
         if not hops:
-            flags.append(Flag("custody.none", Severity.WARNING,
-                              f"Bottle {b.label} has no hand-off on record.",
-                              "Record who took the bottle from the field crew (streamtab custody add).",
-                              "custody"))
+            flags.append(
+                Flag(
+                    "custody.none",
+                    Severity.WARNING,
+                    f"Bottle {b.label} has no hand-off on record.",
+                    "Record who took the bottle from the field crew (streamtab custody add).",
+                    "custody",
+                )
+            )
         for prev, hop in itertools.pairwise(hops):
             if not same_person(prev.received_by, hop.relinquished_by):
-                flags.append(Flag("custody.gap", Severity.WARNING,
-                                  f"Bottle {b.label} was handed over by {hop.relinquished_by} at {_when(hop.at)},"
-                                  f" but the record before it shows it went to {prev.received_by}"
-                                  f" at {_when(prev.at)}.",
-                                  "Find out who held the bottle in between and record that hand-off, or"
-                                  " qualify the results as the program's SOP says.", "relinquished_by"))
+                flags.append(
+                    Flag(
+                        "custody.gap",
+                        Severity.WARNING,
+                        f"Bottle {b.label} was handed over by {hop.relinquished_by} at {_when(hop.at)},"
+                        f" but the record before it shows it went to {prev.received_by}"
+                        f" at {_when(prev.at)}.",
+                        "Find out who held the bottle in between and record that hand-off, or"
+                        " qualify the results as the program's SOP says.",
+                        "relinquished_by",
+                    )
+                )
         for hop in hops:
             if hop.at < b.collected_at:
-                flags.append(Flag("custody.before_collection", Severity.WARNING,
-                                  f"The hand-off of bottle {b.label} at {_when(hop.at)} is timed before its"
-                                  f" collection ({_when(b.collected_at)}).",
-                                  "Correct the hand-off time or the collection time.", "at"))
+                flags.append(
+                    Flag(
+                        "custody.before_collection",
+                        Severity.WARNING,
+                        f"The hand-off of bottle {b.label} at {_when(hop.at)} is timed before its"
+                        f" collection ({_when(b.collected_at)}).",
+                        "Correct the hand-off time or the collection time.",
+                        "at",
+                    )
+                )
         unsigned = [h for h in hops if not h.signed]
         if unsigned:
-            flags.append(Flag("custody.unsigned", Severity.NOTE,
-                              f"{len(unsigned)} hand-off(s) of bottle {b.label} carry typed names only, no"
-                              " signatures.",
-                              "Have both people sign on the tablet, or file the paper form the SOP asks for.",
-                              "signature"))
+            flags.append(
+                Flag(
+                    "custody.unsigned",
+                    Severity.NOTE,
+                    f"{len(unsigned)} hand-off(s) of bottle {b.label} carry typed names only, no signatures.",
+                    "Have both people sign on the tablet, or file the paper form the SOP asks for.",
+                    "signature",
+                )
+            )
         receipts = [h for h in hops if h.at_lab]
         receipt = receipts[0] if receipts else None
         if hops and receipt is None:
-            flags.append(Flag("custody.no_lab_receipt", Severity.WARNING,
-                              f"Bottle {b.label} has no receipt at the lab: its last hand-off went to"
-                              f" {hops[-1].received_by} at {_when(hops[-1].at)}.",
-                              "Record the lab's receipt with the temperature and condition on arrival.",
-                              "custody"))
+            flags.append(
+                Flag(
+                    "custody.no_lab_receipt",
+                    Severity.WARNING,
+                    f"Bottle {b.label} has no receipt at the lab: its last hand-off went to"
+                    f" {hops[-1].received_by} at {_when(hops[-1].at)}.",
+                    "Record the lab's receipt with the temperature and condition on arrival.",
+                    "custody",
+                )
+            )
         elif not hops:
-            flags.append(Flag("custody.no_lab_receipt", Severity.WARNING,
-                              f"Bottle {b.label} has no receipt at the lab.",
-                              "Record the lab's receipt with the temperature and condition on arrival.",
-                              "custody"))
+            flags.append(
+                Flag(
+                    "custody.no_lab_receipt",
+                    Severity.WARNING,
+                    f"Bottle {b.label} has no receipt at the lab.",
+                    "Record the lab's receipt with the temperature and condition on arrival.",
+                    "custody",
+                )
+            )
         rule = _cooling(b, stop.bottles)
         if receipt is not None and rule is not None and rule.cool_max_c is not None:
             if receipt.temp is None:
-                flags.append(Flag("custody.receipt_temp_missing", Severity.NOTE,
-                                  f"Bottle {b.label} ({rule.label}) was received at the lab without a"
-                                  f" temperature; it must arrive at ≤ {rule.cool_max_c:g} °C.",
-                                  "Record the temperature on receipt (a temperature blank or the cooler).",
-                                  "temp"))
+                flags.append(
+                    Flag(
+                        "custody.receipt_temp_missing",
+                        Severity.NOTE,
+                        f"Bottle {b.label} ({rule.label}) was received at the lab without a"
+                        f" temperature; it must arrive at ≤ {rule.cool_max_c:g} °C.",
+                        "Record the temperature on receipt (a temperature blank or the cooler).",
+                        "temp",
+                    )
+                )
             else:
                 t = receipt.temp.value
                 if rule.no_freeze and t <= 0.0:
-                    flags.append(Flag("custody.receipt_frozen", Severity.WARNING,
-                                      f"Bottle {b.label} ({rule.label}) was received at {t:g} °C: it may have"
-                                      " frozen, which the method does not allow.",
-                                      "Qualify the result as the program's SOP says.", "temp"))
+                    flags.append(
+                        Flag(
+                            "custody.receipt_frozen",
+                            Severity.WARNING,
+                            f"Bottle {b.label} ({rule.label}) was received at {t:g} °C: it may have"
+                            " frozen, which the method does not allow.",
+                            "Qualify the result as the program's SOP says.",
+                            "temp",
+                        )
+                    )
                 elif t > rule.cool_max_c:
-                    flags.append(Flag("custody.receipt_warm", Severity.WARNING,
-                                      f"Bottle {b.label} ({rule.label}) was received at {t:g} °C, above the"
-                                      f" {rule.cool_max_c:g} °C it must be kept at or below.",
-                                      "Qualify the result as the program's SOP says.", "temp"))
+                    flags.append(
+                        Flag(
+                            "custody.receipt_warm",
+                            Severity.WARNING,
+                            f"Bottle {b.label} ({rule.label}) was received at {t:g} °C, above the"
+                            f" {rule.cool_max_c:g} °C it must be kept at or below.",
+                            "Qualify the result as the program's SOP says.",
+                            "temp",
+                        )
+                    )
         out.append(BottleCustody(stop, b, hops, receipt, flags))
     return out

@@ -21,13 +21,14 @@ Layout of ``LabResult.inputs``:
 Caution: the Winkler reagents hurt people (concentrated sulfuric acid; the alkali-iodide-azide
 reagent is corrosive and toxic). Follow the lab's SOP and the safety data sheets.
 """
+
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from typing import Any
-from collections.abc import Iterable
 
 from core.flags import Flag, Severity
 from core.records.models import Bottle, FlagRecord, LabResult, Stop, Trip, analyte_key, new_id
@@ -35,12 +36,37 @@ from core.science.holding import HoldingClock, bottle_holding_kind, holding_cloc
 from core.science.winkler import SAFETY_NOTE
 
 __all__ = [
-    "WINKLER_ANALYTE", "BOD_ANALYTE", "CBOD_ANALYTE", "WINKLER_METHOD", "BOD_METHOD", "CBOD_METHOD",
-    "reported_bod", "CAUTION", "LabSettings",
-    "LabInputError", "Standardisation", "LabOutcome", "DuplicateCheck", "PendingBottle",
-    "analyte_key", "current_result", "find_bottle", "record_winkler", "record_bod", "duplicate_checks",
-    "pending_bottles", "relative_percent_difference", "WINKLER_KINDS", "BOD_KINDS", "bottle_analysis",
-    "bottle_clock", "bottle_holding_clock", "add_batch", "batch_for", "batch_qc", "standardisation_of",
+    "WINKLER_ANALYTE",
+    "BOD_ANALYTE",
+    "CBOD_ANALYTE",
+    "WINKLER_METHOD",
+    "BOD_METHOD",
+    "CBOD_METHOD",
+    "reported_bod",
+    "CAUTION",
+    "LabSettings",
+    "LabInputError",
+    "Standardisation",
+    "LabOutcome",
+    "DuplicateCheck",
+    "PendingBottle",
+    "analyte_key",
+    "current_result",
+    "find_bottle",
+    "record_winkler",
+    "record_bod",
+    "duplicate_checks",
+    "pending_bottles",
+    "relative_percent_difference",
+    "WINKLER_KINDS",
+    "BOD_KINDS",
+    "bottle_analysis",
+    "bottle_clock",
+    "bottle_holding_clock",
+    "add_batch",
+    "batch_for",
+    "batch_qc",
+    "standardisation_of",
 ]
 
 #: Analyte names written by this module; the sample scenario already writes these. Readers match
@@ -139,10 +165,17 @@ class LabOutcome:
     flags: list[Flag]
 
     def to_dict(self) -> dict[str, Any]:
-        return {"trip_id": self.trip.id, "stop_id": self.stop.id, "site_id": self.stop.site_id,
-                "bottle_id": self.bottle.id, "bottle_label": self.bottle.label, "bottle_kind": self.bottle.kind,
-                "result": self.result.model_dump(mode="json"), "superseded": list(self.superseded),
-                "flags": [f.to_dict() for f in self.flags]}
+        return {
+            "trip_id": self.trip.id,
+            "stop_id": self.stop.id,
+            "site_id": self.stop.site_id,
+            "bottle_id": self.bottle.id,
+            "bottle_label": self.bottle.label,
+            "bottle_kind": self.bottle.kind,
+            "result": self.result.model_dump(mode="json"),
+            "superseded": list(self.superseded),
+            "flags": [f.to_dict() for f in self.flags],
+        }
 
 
 # --------------------------------------------------------------------------------------------
@@ -168,11 +201,16 @@ def _range(lo, hi, unit, lo_open=False) -> str:
 
 def _aware(t: Any, name: str) -> datetime:
     if not isinstance(t, datetime):
-        raise LabInputError(name, f"{name} = {t!r} is not a date-time; accepted: an ISO 8601 time with a zone,"
-                                  " e.g. 2026-06-09T11:20-07:00")
+        raise LabInputError(
+            name,
+            f"{name} = {t!r} is not a date-time; accepted: an ISO 8601 time with a zone, e.g. 2026-06-09T11:20-07:00",
+        )
     if t.tzinfo is None or t.utcoffset() is None:
-        raise LabInputError(name, f"{name} = {t.isoformat()} has no time zone; accepted: an ISO 8601 time with a"
-                                  " zone, e.g. 2026-06-09T11:20-07:00")
+        raise LabInputError(
+            name,
+            f"{name} = {t.isoformat()} has no time zone; accepted: an ISO 8601 time with a"
+            " zone, e.g. 2026-06-09T11:20-07:00",
+        )
     return t
 
 
@@ -198,15 +236,23 @@ def _sev_rank(f: Flag) -> int:
     return Severity(f.severity).rank
 
 
-def _analysis_bottle(trip: Trip, bottle_ref: str, kinds: tuple[str, ...], not_kind: str,
-                     analysed_at: datetime, now: datetime,
-                     settings: LabSettings) -> tuple[Stop, Bottle, list[Flag]]:
+def _analysis_bottle(
+    trip: Trip,
+    bottle_ref: str,
+    kinds: tuple[str, ...],
+    not_kind: str,
+    analysed_at: datetime,
+    now: datetime,
+    settings: LabSettings,
+) -> tuple[Stop, Bottle, list[Flag]]:
     """The bottle an analysis is for: found by label, of a kind that analysis takes, analysed
     neither before it was collected nor in the future."""
     stop, bottle, flags = find_bottle(trip, bottle_ref, kinds)
     if bottle.kind not in kinds:
-        raise LabInputError("bottle", f"bottle {bottle.label} is a {bottle.kind} bottle, {not_kind};"
-                                      f" accepted: a {' or '.join(kinds)} bottle")
+        raise LabInputError(
+            "bottle",
+            f"bottle {bottle.label} is a {bottle.kind} bottle, {not_kind}; accepted: a {' or '.join(kinds)} bottle",
+        )
     _check_times(analysed_at, now, settings, bottle)
     return stop, bottle, flags
 
@@ -220,8 +266,9 @@ def find_bottle(trip: Trip, ref: str, kinds: tuple[str, ...] | None = None) -> t
     """
     ref = (ref or "").strip()
     if not ref:
-        raise LabInputError("bottle", "bottle label is empty; accepted: one of this trip's bottle labels: "
-                            + _labels(trip))
+        raise LabInputError(
+            "bottle", "bottle label is empty; accepted: one of this trip's bottle labels: " + _labels(trip)
+        )
     pairs = [(s, b) for s in trip.stops for b in s.bottles]
     hits = [(s, b) for s, b in pairs if b.label == ref]
     if not hits:
@@ -229,20 +276,31 @@ def find_bottle(trip: Trip, ref: str, kinds: tuple[str, ...] | None = None) -> t
     if not hits:
         hits = [(s, b) for s, b in pairs if b.id == ref or (len(ref) >= 8 and b.id.startswith(ref))]
     if not hits:
-        raise LabInputError("bottle", f"bottle {ref!r} is not on trip {trip.id[:8]}; accepted: one of its bottle"
-                            f" labels: {_labels(trip)}")
+        raise LabInputError(
+            "bottle",
+            f"bottle {ref!r} is not on trip {trip.id[:8]}; accepted: one of its bottle labels: {_labels(trip)}",
+        )
     flags: list[Flag] = []
     if len(hits) > 1:
         fitting = [(s, b) for s, b in hits if kinds is None or b.kind in kinds]
         if len(fitting) != 1:
             choices = ", ".join(f"{b.id[:8]} ({b.kind} at {s.site_id})" for s, b in hits)
-            raise LabInputError("bottle", f"bottle label {ref!r} is on {len(hits)} bottles of trip {trip.id[:8]};"
-                                f" accepted: the bottle id (8 or more characters) of one of {choices}")
+            raise LabInputError(
+                "bottle",
+                f"bottle label {ref!r} is on {len(hits)} bottles of trip {trip.id[:8]};"
+                f" accepted: the bottle id (8 or more characters) of one of {choices}",
+            )
         s, b = fitting[0]
-        flags.append(_flag("lab.duplicate_label", Severity.WARNING,
-                           f"Bottle label {ref} is used on {len(hits)} bottles of this trip; the {b.kind} bottle"
-                           f" from {s.site_id} was taken because it is the only one of a kind this analysis accepts.",
-                           "Check the bottle against the field sheet and relabel one of them.", "label"))
+        flags.append(
+            _flag(
+                "lab.duplicate_label",
+                Severity.WARNING,
+                f"Bottle label {ref} is used on {len(hits)} bottles of this trip; the {b.kind} bottle"
+                f" from {s.site_id} was taken because it is the only one of a kind this analysis accepts.",
+                "Check the bottle against the field sheet and relabel one of them.",
+                "label",
+            )
+        )
         hits = fitting
     s, b = hits[0]
     return s, b, flags
@@ -253,16 +311,23 @@ def _labels(trip: Trip) -> str:
     return ", ".join(dict.fromkeys(labels)) if labels else "(this trip has no bottles)"
 
 
-def _check_times(analysed_at: datetime, now: datetime, settings: LabSettings, bottle: Bottle,
-                 name: str = "analysed_at") -> None:
+def _check_times(
+    analysed_at: datetime, now: datetime, settings: LabSettings, bottle: Bottle, name: str = "analysed_at"
+) -> None:
     _aware(analysed_at, name)
     _aware(now, "now")
     if analysed_at > now + timedelta(seconds=settings.future_slack_s):
-        raise LabInputError(name, f"{name} = {analysed_at.isoformat()} is in the future (now is"
-                                  f" {now.isoformat(timespec='minutes')}); accepted: a time up to now")
+        raise LabInputError(
+            name,
+            f"{name} = {analysed_at.isoformat()} is in the future (now is"
+            f" {now.isoformat(timespec='minutes')}); accepted: a time up to now",
+        )
     if analysed_at < bottle.collected_at:
-        raise LabInputError(name, f"{name} = {analysed_at.isoformat()} is before bottle {bottle.label} was collected"
-                                  f" ({bottle.collected_at.isoformat()}); accepted: a time after collection")
+        raise LabInputError(
+            name,
+            f"{name} = {analysed_at.isoformat()} is before bottle {bottle.label} was collected"
+            f" ({bottle.collected_at.isoformat()}); accepted: a time after collection",
+        )
 
 
 def _notes(analyst_notes: str, flags: list[Flag], extra: Iterable[str] = ()) -> str:
@@ -273,8 +338,9 @@ def _notes(analyst_notes: str, flags: list[Flag], extra: Iterable[str] = ()) -> 
     return text if len(text) <= _NOTES_MAX else text[: _NOTES_MAX - 1] + "…"
 
 
-def _append(trip: Trip, stop: Stop, bottle: Bottle, result: LabResult, analyte: str,
-            redo_reason: str | None, at: datetime) -> tuple[Trip, Stop, Bottle, list[str]]:
+def _append(
+    trip: Trip, stop: Stop, bottle: Bottle, result: LabResult, analyte: str, redo_reason: str | None, at: datetime
+) -> tuple[Trip, Stop, Bottle, list[str]]:
     """The trip with `result` appended to the bottle; earlier live results of the analyte marked superseded."""
     key = analyte_key(analyte)
     live = [r for r in bottle.lab_results if analyte_key(r.analyte) == key and r.live]
@@ -283,12 +349,22 @@ def _append(trip: Trip, stop: Stop, bottle: Bottle, result: LabResult, analyte: 
     results: list[LabResult] = []
     for r in bottle.lab_results:
         if r.id in live_ids:
-            note = (f"Superseded by result {result.id[:8]} on {at.isoformat(timespec='minutes')}"
-                    f" ({redo_reason}); kept for the record.")
+            note = (
+                f"Superseded by result {result.id[:8]} on {at.isoformat(timespec='minutes')}"
+                f" ({redo_reason}); kept for the record."
+            )
             notes = (r.notes + " " + note).strip() if r.notes else note
-            results.append(r.model_copy(update={
-                "status": "superseded", "superseded_by": result.id, "superseded_at": at,
-                "superseded_reason": (redo_reason or "")[:400], "notes": notes[:_NOTES_MAX]}))
+            results.append(
+                r.model_copy(
+                    update={
+                        "status": "superseded",
+                        "superseded_by": result.id,
+                        "superseded_at": at,
+                        "superseded_reason": (redo_reason or "")[:400],
+                        "notes": notes[:_NOTES_MAX],
+                    }
+                )
+            )
             superseded.append(r.id)
         else:
             results.append(r)
@@ -306,9 +382,12 @@ def _redo_check(bottle: Bottle, analyte: str, redo_reason: str | None, what: str
     if prev is not None and not (redo_reason and redo_reason.strip()):
         shown = "no value" if prev.value is None else f"{prev.value:.2f} {prev.unit}".strip()
         when = prev.analysed_at.isoformat(timespec="minutes") if prev.analysed_at else "an unrecorded time"
-        raise LabInputError("redo", f"bottle {bottle.label} already has a {what} result ({shown}, {prev.id[:8]},"
-                                    f" analysed {when}); accepted: a reason for the re-analysis (both results are"
-                                    " kept, the earlier one marked superseded)")
+        raise LabInputError(
+            "redo",
+            f"bottle {bottle.label} already has a {what} result ({shown}, {prev.id[:8]},"
+            f" analysed {when}); accepted: a reason for the re-analysis (both results are"
+            " kept, the earlier one marked superseded)",
+        )
     return prev
 
 
@@ -326,12 +405,25 @@ def _meter_do(stop: Stop) -> tuple[float | None, str]:
 # --------------------------------------------------------------------------------------------
 # Winkler
 # --------------------------------------------------------------------------------------------
-def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_ml: float,
-                   normality: float | None = None, standardisation: Standardisation | None = None,
-                   bottle_ml: float = 300.0, reagents_ml: float = 2.0, analysed_at: datetime,
-                   now: datetime, analyst: str = "", notes: str = "", redo_reason: str | None = None,
-                   settings: LabSettings | None = None, entered: dict[str, Any] | None = None,
-                   batch: Any = None) -> LabOutcome:
+def record_winkler(
+    trip: Trip,
+    bottle_ref: str,
+    *,
+    titrant_ml: float,
+    titrated_ml: float,
+    normality: float | None = None,
+    standardisation: Standardisation | None = None,
+    bottle_ml: float = 300.0,
+    reagents_ml: float = 2.0,
+    analysed_at: datetime,
+    now: datetime,
+    analyst: str = "",
+    notes: str = "",
+    redo_reason: str | None = None,
+    settings: LabSettings | None = None,
+    entered: dict[str, Any] | None = None,
+    batch: Any = None,
+) -> LabOutcome:
     """Appends a Winkler DO result to a do-fixed (or duplicate) bottle of `trip`.
 
     DO = V_titrant · N · 8000 / V_original, V_original = V_titrated · (V_bottle − V_reagents) / V_bottle
@@ -393,14 +485,18 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
     from core.science.winkler import original_sample_ml, thiosulfate_normality, winkler_do_mg_l
 
     settings = settings or LabSettings()
-    stop, bottle, flags = _analysis_bottle(trip, bottle_ref, WINKLER_KINDS, "not fixed for Winkler",
-                                           analysed_at, now, settings)
+    stop, bottle, flags = _analysis_bottle(
+        trip, bottle_ref, WINKLER_KINDS, "not fixed for Winkler", analysed_at, now, settings
+    )
     if normality is None and standardisation is None and batch is not None:
         standardisation = standardisation_of(batch)
     if (normality is None) == (standardisation is None):
-        raise LabInputError("normality", "give the titrant normality or its standardisation, not "
-                            + ("both" if normality is not None else "neither")
-                            + "; accepted: normality in eq/L (usually 0.025) or a bi-iodate standardisation")
+        raise LabInputError(
+            "normality",
+            "give the titrant normality or its standardisation, not "
+            + ("both" if normality is not None else "neither")
+            + "; accepted: normality in eq/L (usually 0.025) or a bi-iodate standardisation",
+        )
     prev = _redo_check(bottle, WINKLER_ANALYTE, redo_reason, "Winkler DO")
 
     derived: dict[str, Any] = {}
@@ -408,17 +504,24 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
         derived["batch"] = {"id": batch.id, "name": batch.name}
     if standardisation is not None:
         try:
-            n = float(thiosulfate_normality(standardisation.titrant_ml, standardisation.standard_ml,
-                                            standardisation.standard_normality))
+            n = float(
+                thiosulfate_normality(
+                    standardisation.titrant_ml, standardisation.standard_ml, standardisation.standard_normality
+                )
+            )
         except ValueError as exc:
             msg = str(exc).splitlines()[0]
             raise LabInputError("standardisation." + msg.split(" ", 1)[0], "standardisation " + msg) from None
-        src: dict[str, Any] = {"kind": "standardisation", "titrant_ml": standardisation.titrant_ml,
-                               "standard_ml": standardisation.standard_ml,
-                               "standard_normality": standardisation.standard_normality,
-                               "standard": "potassium bi-iodate, KH(IO3)2",
-                               "standardised_at": (standardisation.standardised_at.isoformat()
-                                                   if standardisation.standardised_at else None)}
+        src: dict[str, Any] = {
+            "kind": "standardisation",
+            "titrant_ml": standardisation.titrant_ml,
+            "standard_ml": standardisation.standard_ml,
+            "standard_normality": standardisation.standard_normality,
+            "standard": "potassium bi-iodate, KH(IO3)2",
+            "standardised_at": (
+                standardisation.standardised_at.isoformat() if standardisation.standardised_at else None
+            ),
+        }
     elif normality is not None:
         n = normality
         src = {"kind": "entered"}
@@ -436,46 +539,76 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
         age_h = (analysed_at - st).total_seconds() / 3600.0
         derived["standardisation_age_h"] = age_h
         if age_h < 0:
-            raise LabInputError("standardised_at", f"standardised_at = {st.isoformat()} is after the titration"
-                                f" ({analysed_at.isoformat()}); accepted: a standardisation done before it")
+            raise LabInputError(
+                "standardised_at",
+                f"standardised_at = {st.isoformat()} is after the titration"
+                f" ({analysed_at.isoformat()}); accepted: a standardisation done before it",
+            )
         if age_h > settings.standardisation_max_age_h:
-            flags.append(_flag("lab.standardisation_old", Severity.NOTE,
-                               f"The thiosulfate was standardised {_fmt_h(age_h)} before this titration, more than"
-                               f" the {settings.standardisation_max_age_h:g} h the lab's setting allows.",
-                               "Standardise the titrant again and record the new normality.", "standardised_at"))
+            flags.append(
+                _flag(
+                    "lab.standardisation_old",
+                    Severity.NOTE,
+                    f"The thiosulfate was standardised {_fmt_h(age_h)} before this titration, more than"
+                    f" the {settings.standardisation_max_age_h:g} h the lab's setting allows.",
+                    "Standardise the titrant again and record the new normality.",
+                    "standardised_at",
+                )
+            )
 
     # Holding time: 8 h from fixing (from collection when no fixing time is recorded).
     if bottle.fixed_at is None:
-        flags.append(_flag("lab.not_fixed", Severity.WARNING,
-                           f"Bottle {bottle.label} has no fixing time on record; the Winkler holding time was"
-                           " counted from collection.",
-                           "Check the field sheet for the fixing time; qualify the result if it is unknown.",
-                           "fixed_at"))
+        flags.append(
+            _flag(
+                "lab.not_fixed",
+                Severity.WARNING,
+                f"Bottle {bottle.label} has no fixing time on record; the Winkler holding time was"
+                " counted from collection.",
+                "Check the field sheet for the fixing time; qualify the result if it is unknown.",
+                "fixed_at",
+            )
+        )
     fixed = bottle.fixed_at if bottle.fixed_at is not None and bottle.fixed_at >= bottle.collected_at else None
     if fixed is not None:
         from core.science.winkler import winkler_plausibility_flags
 
         flags.extend(winkler_plausibility_flags(collected_at=bottle.collected_at, fixed_at=fixed))
     if bottle.fixed_at is not None and fixed is None:
-        flags.append(_flag("lab.fixing_time_doubtful", Severity.WARNING,
-                           f"Bottle {bottle.label}'s fixing time ({bottle.fixed_at.isoformat(timespec='minutes')}) is"
-                           f" before its collection ({bottle.collected_at.isoformat(timespec='minutes')}); the"
-                           " holding time was counted from collection.",
-                           "Correct the field record's times.", "fixed_at"))
+        flags.append(
+            _flag(
+                "lab.fixing_time_doubtful",
+                Severity.WARNING,
+                f"Bottle {bottle.label}'s fixing time ({bottle.fixed_at.isoformat(timespec='minutes')}) is"
+                f" before its collection ({bottle.collected_at.isoformat(timespec='minutes')}); the"
+                " holding time was counted from collection.",
+                "Correct the field record's times.",
+                "fixed_at",
+            )
+        )
     clock = _clock_of(bottle, "do_winkler", analysed_at, settings.holding_overrides_h)
     from_fixing = clock.clock_from == "fixing"
     start = fixed if (from_fixing and fixed is not None) else bottle.collected_at
     held_h = (analysed_at - start).total_seconds() / 3600.0
-    derived["holding"] = {"kind": "do_winkler", "from": "fixing" if from_fixing else "collection",
-                          "held_h": held_h, "limit_h": clock.rule.hours, "deadline": clock.deadline.isoformat(),
-                          "citation": clock.rule.citation}
+    derived["holding"] = {
+        "kind": "do_winkler",
+        "from": "fixing" if from_fixing else "collection",
+        "held_h": held_h,
+        "limit_h": clock.rule.hours,
+        "deadline": clock.deadline.isoformat(),
+        "citation": clock.rule.citation,
+    }
     if clock.expired:
-        flags.append(_flag("lab.holding_exceeded", Severity.STOP,
-                           f"Titrated {_fmt_h(held_h)} after {'fixing' if from_fixing else 'collection'}, past the"
-                           f" {clock.rule.hours:g} h Winkler holding time (deadline"
-                           f" {clock.deadline.isoformat(timespec='minutes')}).",
-                           "Report the result only as the program's SOP allows, qualified as past its holding time.",
-                           "analysed_at"))
+        flags.append(
+            _flag(
+                "lab.holding_exceeded",
+                Severity.STOP,
+                f"Titrated {_fmt_h(held_h)} after {'fixing' if from_fixing else 'collection'}, past the"
+                f" {clock.rule.hours:g} h Winkler holding time (deadline"
+                f" {clock.deadline.isoformat(timespec='minutes')}).",
+                "Report the result only as the program's SOP allows, qualified as past its holding time.",
+                "analysed_at",
+            )
+        )
 
     # The field meter's DO at the same stop.
     meter, meter_src = _meter_do(stop)
@@ -490,55 +623,90 @@ def record_winkler(trip: Trip, bottle_ref: str, *, titrant_ml: float, titrated_m
 
         try:
             derived["titrant_ml_expected_from_meter"] = float(
-                expected_titrant_ml(meter, n, titrated_ml, bottle_ml, reagents_ml))
+                expected_titrant_ml(meter, n, titrated_ml, bottle_ml, reagents_ml)
+            )
         except ValueError:
             derived["titrant_ml_expected_from_meter"] = None
-        cal = [label for label, c in (("pre-trip calibration", trip.pre_calibration),
-                                       ("post-trip check", trip.post_check)) if c is not None and c.accepted is False]
+        cal = [
+            label
+            for label, c in (("pre-trip calibration", trip.pre_calibration), ("post-trip check", trip.post_check))
+            if c is not None and c.accepted is False
+        ]
         derived["calibrations_not_accepted"] = cal
         if abs(diff) > settings.meter_tolerance_mg_l + 1e-9:
             seen = f" The trip's {' and '.join(cal)} {'was' if len(cal) == 1 else 'were'} not accepted." if cal else ""
-            flags.append(_flag("lab.meter_disagrees", Severity.WARNING,
-                               f"Winkler DO {do:.2f} mg/L differs from the field meter's {meter:.2f} mg/L at"
-                               f" {stop.site_id} by {diff:+.2f} mg/L, more than ±{settings.meter_tolerance_mg_l:g}"
-                               " mg/L: a possible meter problem (calibration, membrane, drift) or fixing problem"
-                               f" (air bubble, late or incomplete fixing).{seen}",
-                               "Check the trip's calibration records and the field notes before relying on either"
-                               " value.", "do"))
+            flags.append(
+                _flag(
+                    "lab.meter_disagrees",
+                    Severity.WARNING,
+                    f"Winkler DO {do:.2f} mg/L differs from the field meter's {meter:.2f} mg/L at"
+                    f" {stop.site_id} by {diff:+.2f} mg/L, more than ±{settings.meter_tolerance_mg_l:g}"
+                    " mg/L: a possible meter problem (calibration, membrane, drift) or fixing problem"
+                    f" (air bubble, late or incomplete fixing).{seen}",
+                    "Check the trip's calibration records and the field notes before relying on either value.",
+                    "do",
+                )
+            )
     from core.science.winkler import winkler_plausibility_flags
 
     flags.extend(winkler_plausibility_flags(do_mg_l=do, normality=n))
 
     flags.sort(key=_sev_rank, reverse=True)
-    used = {"titrant_ml": float(titrant_ml), "titrated_ml": float(titrated_ml), "bottle_ml": float(bottle_ml),
-            "reagents_ml": float(reagents_ml), "normality": n}
+    used = {
+        "titrant_ml": float(titrant_ml),
+        "titrated_ml": float(titrated_ml),
+        "bottle_ml": float(bottle_ml),
+        "reagents_ml": float(reagents_ml),
+        "normality": n,
+    }
     if entered is None:
         entered = {k: v for k, v in used.items() if k != "normality"}
         if normality is not None:
             entered["normality"] = normality
     extra = [f"Re-titration: {(redo_reason or '').strip()}."] if prev is not None else []
     result = LabResult(
-        id=new_id(), analyte=WINKLER_ANALYTE, value=do, unit="mg/L", analysed_at=analysed_at,
-        analyst=(analyst or "").strip()[:40], method=WINKLER_METHOD,
+        id=new_id(),
+        analyte=WINKLER_ANALYTE,
+        value=do,
+        unit="mg/L",
+        analysed_at=analysed_at,
+        analyst=(analyst or "").strip()[:40],
+        method=WINKLER_METHOD,
         inputs={"entered": dict(entered), "used": used, "derived": derived},
         flags=[FlagRecord.from_flag(f) for f in flags],
         valid=not any(f.severity == Severity.STOP for f in flags),
-        notes=_notes(notes, flags, extra))
-    new_trip, new_stop, new_bottle, superseded = _append(trip, stop, bottle, result, WINKLER_ANALYTE,
-                                                         redo_reason, analysed_at)
+        notes=_notes(notes, flags, extra),
+    )
+    new_trip, new_stop, new_bottle, superseded = _append(
+        trip, stop, bottle, result, WINKLER_ANALYTE, redo_reason, analysed_at
+    )
     return LabOutcome(new_trip, new_bottle.lab_results[-1], new_stop, new_bottle, superseded, flags)
 
 
 # --------------------------------------------------------------------------------------------
 # BOD5
 # --------------------------------------------------------------------------------------------
-def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_controls: list[dict] | None = None,
-               blank_depletion_mg_l: float | None = None, gga_bod_mg_l: float | None = None,
-               incubation_start: datetime | None = None, incubation_end: datetime | None = None,
-               incubator_temp_c: float | None = None, analysed_at: datetime, now: datetime,
-               analyst: str = "", notes: str = "", redo_reason: str | None = None,
-               settings: LabSettings | None = None, entered: dict[str, Any] | None = None,
-               nitrification_inhibitor: bool = False, batch: Any = None) -> LabOutcome:
+def record_bod(
+    trip: Trip,
+    bottle_ref: str,
+    *,
+    dilutions: list[dict],
+    seed_controls: list[dict] | None = None,
+    blank_depletion_mg_l: float | None = None,
+    gga_bod_mg_l: float | None = None,
+    incubation_start: datetime | None = None,
+    incubation_end: datetime | None = None,
+    incubator_temp_c: float | None = None,
+    analysed_at: datetime,
+    now: datetime,
+    analyst: str = "",
+    notes: str = "",
+    redo_reason: str | None = None,
+    settings: LabSettings | None = None,
+    entered: dict[str, Any] | None = None,
+    nitrification_inhibitor: bool = False,
+    batch: Any = None,
+) -> LabOutcome:
     """Appends a BOD5 (or CBOD5) result (from a dilution series) to a bod (or duplicate) bottle of `trip`.
 
     BOD5 is the mean of the valid dilutions (:func:`core.science.bod.bod_from_dilutions`; a dilution counts
@@ -573,8 +741,9 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
     -------
     LabOutcome
         The result's ``inputs["derived"]["report"]`` is the reportable value
-        (:class:`core.science.bod.BodReport` as a dict: value, qualifier, text, basis, analyte; read it with
-        :func:`reported_bod`). Flags from core.science.bod (``bod.*``) plus ``lab.bod_holding_exceeded`` (stop-and-check),
+        (:class:`core.science.bod.BodReport` as a dict: value, qualifier, text, basis, analyte; read it
+        with :func:`reported_bod`). Flags from core.science.bod (``bod.*``) plus
+        ``lab.bod_holding_exceeded`` (stop-and-check),
         ``lab.bod_times_missing``, ``lab.bod_blank_missing``, ``lab.bod_gga_missing`` (notes),
         ``lab.bod_incubator_temp`` (warning). ``value`` is None when no dilution is valid;
         ``valid`` is False then, or when a stop-and-check flag fired.
@@ -586,8 +755,7 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
     from core.science.bod import blank_check, bod_from_dilutions, gga_check, incubation_check, seed_uptake_per_ml
 
     settings = settings or LabSettings()
-    stop, bottle, flags = _analysis_bottle(trip, bottle_ref, BOD_KINDS, "not a BOD sample",
-                                           analysed_at, now, settings)
+    stop, bottle, flags = _analysis_bottle(trip, bottle_ref, BOD_KINDS, "not a BOD sample", analysed_at, now, settings)
     analyte, what = (CBOD_ANALYTE, "CBOD5") if nitrification_inhibitor else (BOD_ANALYTE, "BOD5")
     prev = _redo_check(bottle, analyte, redo_reason, what)
     derived: dict[str, Any] = {}
@@ -612,8 +780,12 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
             raise LabInputError("seed_controls", f"seed_controls: {str(exc).splitlines()[0]}") from None
         derived["seed_uptake_mg_l_per_ml"] = s
         if isinstance(dil, list):
-            dil = [dict(d, seed_uptake_mg_l_per_ml=d.get("seed_uptake_mg_l_per_ml", s))
-                   if isinstance(d, dict) and d.get("seed_ml") else d for d in dil]
+            dil = [
+                dict(d, seed_uptake_mg_l_per_ml=d.get("seed_uptake_mg_l_per_ml", s))
+                if isinstance(d, dict) and d.get("seed_ml")
+                else d
+                for d in dil
+            ]
     try:
         r = bod_from_dilutions(dil, nitrification_inhibitor=bool(nitrification_inhibitor))
     except ValueError as exc:
@@ -625,12 +797,23 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
     derived["report"] = r.report.to_dict() if r.report is not None else None
 
     for value, name, check, code, missing, action in (
-            (blank_depletion_mg_l, "blank_depletion_mg_l", blank_check, "lab.bod_blank_missing",
-             "No dilution-water blank is recorded for this BOD result.",
-             "Record the batch's blank depletion (≤ 0.20 mg/L accepted)."),
-            (gga_bod_mg_l, "gga_bod_mg_l", gga_check, "lab.bod_gga_missing",
-             "No glucose–glutamic acid check is recorded for this BOD result.",
-             "Record the batch's GGA check (198 ± 30.5 mg/L accepted).")):
+        (
+            blank_depletion_mg_l,
+            "blank_depletion_mg_l",
+            blank_check,
+            "lab.bod_blank_missing",
+            "No dilution-water blank is recorded for this BOD result.",
+            "Record the batch's blank depletion (≤ 0.20 mg/L accepted).",
+        ),
+        (
+            gga_bod_mg_l,
+            "gga_bod_mg_l",
+            gga_check,
+            "lab.bod_gga_missing",
+            "No glucose–glutamic acid check is recorded for this BOD result.",
+            "Record the batch's GGA check (198 ± 30.5 mg/L accepted).",
+        ),
+    ):
         if value is None:
             flags.append(_flag(code, Severity.NOTE, missing, action, name))
             continue
@@ -645,30 +828,47 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
         t = _num(incubator_temp_c, "incubator_temp_c", -10.0, 60.0, "°C")
         derived["incubator_temp_c"] = t
         if not (_INCUBATOR_C[0] <= t <= _INCUBATOR_C[1]):
-            flags.append(_flag("lab.bod_incubator_temp", Severity.WARNING,
-                               f"The incubator was at {t:g} °C; BOD5 is incubated at 20 ± 1 °C.",
-                               "Qualify the batch as the program's SOP says and check the incubator.",
-                               "incubator_temp_c"))
+            flags.append(
+                _flag(
+                    "lab.bod_incubator_temp",
+                    Severity.WARNING,
+                    f"The incubator was at {t:g} °C; BOD5 is incubated at 20 ± 1 °C.",
+                    "Qualify the batch as the program's SOP says and check the incubator.",
+                    "incubator_temp_c",
+                )
+            )
 
     if (incubation_start is None) != (incubation_end is None):
-        raise LabInputError("incubation_start" if incubation_start is None else "incubation_end",
-                            "incubation start and end go together; accepted: both times (set-up and read-out) or"
-                            " neither")
+        raise LabInputError(
+            "incubation_start" if incubation_start is None else "incubation_end",
+            "incubation start and end go together; accepted: both times (set-up and read-out) or neither",
+        )
     if incubation_start is None:
-        flags.append(_flag("lab.bod_times_missing", Severity.NOTE,
-                           "No incubation times are recorded, so the 48 h holding time and the 5 d ± 6 h"
-                           " incubation were not checked.",
-                           "Record the set-up and read-out times from the bench sheet.", "incubation_start"))
+        flags.append(
+            _flag(
+                "lab.bod_times_missing",
+                Severity.NOTE,
+                "No incubation times are recorded, so the 48 h holding time and the 5 d ± 6 h"
+                " incubation were not checked.",
+                "Record the set-up and read-out times from the bench sheet.",
+                "incubation_start",
+            )
+        )
     else:
         start = _aware(incubation_start, "incubation_start")
         end = _aware(incubation_end, "incubation_end")
         if start < bottle.collected_at:
-            raise LabInputError("incubation_start", f"incubation_start = {start.isoformat()} is before bottle"
-                                f" {bottle.label} was collected ({bottle.collected_at.isoformat()}); accepted: a"
-                                " set-up after collection")
+            raise LabInputError(
+                "incubation_start",
+                f"incubation_start = {start.isoformat()} is before bottle"
+                f" {bottle.label} was collected ({bottle.collected_at.isoformat()}); accepted: a"
+                " set-up after collection",
+            )
         if end > now + timedelta(seconds=settings.future_slack_s):
-            raise LabInputError("incubation_end", f"incubation_end = {end.isoformat()} is in the future; accepted:"
-                                                  " a read-out time up to now")
+            raise LabInputError(
+                "incubation_end",
+                f"incubation_end = {end.isoformat()} is in the future; accepted: a read-out time up to now",
+            )
         try:
             f = incubation_check(start, end)
         except ValueError as exc:
@@ -678,21 +878,36 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
         clock = holding_clock("bod", bottle.collected_at, start, overrides=settings.holding_overrides_h or None)
         held_h = (start - bottle.collected_at).total_seconds() / 3600.0
         derived["incubation_h"] = (end - start).total_seconds() / 3600.0
-        derived["holding"] = {"kind": "bod", "from": "collection", "held_h": held_h, "limit_h": clock.rule.hours,
-                              "deadline": clock.deadline.isoformat(), "citation": clock.rule.citation}
+        derived["holding"] = {
+            "kind": "bod",
+            "from": "collection",
+            "held_h": held_h,
+            "limit_h": clock.rule.hours,
+            "deadline": clock.deadline.isoformat(),
+            "citation": clock.rule.citation,
+        }
         if clock.expired:
-            flags.append(_flag("lab.bod_holding_exceeded", Severity.STOP,
-                               f"The BOD bottles were set up {_fmt_h(held_h)} after collection, past the"
-                               f" {clock.rule.hours:g} h holding time (deadline"
-                               f" {clock.deadline.isoformat(timespec='minutes')}).",
-                               "Report the result only as the program's SOP allows, qualified as past its holding"
-                               " time.", "incubation_start"))
+            flags.append(
+                _flag(
+                    "lab.bod_holding_exceeded",
+                    Severity.STOP,
+                    f"The BOD bottles were set up {_fmt_h(held_h)} after collection, past the"
+                    f" {clock.rule.hours:g} h holding time (deadline"
+                    f" {clock.deadline.isoformat(timespec='minutes')}).",
+                    "Report the result only as the program's SOP allows, qualified as past its holding time.",
+                    "incubation_start",
+                )
+            )
 
     flags.sort(key=_sev_rank, reverse=True)
     if entered is None:
         entered = {"dilutions": dilutions}
-        for k, v in (("seed_controls", seed_controls), ("blank_depletion_mg_l", blank_depletion_mg_l),
-                     ("gga_bod_mg_l", gga_bod_mg_l), ("incubator_temp_c", incubator_temp_c)):
+        for k, v in (
+            ("seed_controls", seed_controls),
+            ("blank_depletion_mg_l", blank_depletion_mg_l),
+            ("gga_bod_mg_l", gga_bod_mg_l),
+            ("incubator_temp_c", incubator_temp_c),
+        ):
             if v is not None:
                 entered[k] = v
         if incubation_start is not None and incubation_end is not None:
@@ -703,15 +918,19 @@ def record_bod(trip: Trip, bottle_ref: str, *, dilutions: list[dict], seed_contr
     extra = [f"Repeat analysis: {(redo_reason or '').strip()}."] if prev is not None else []
     result = LabResult(
         # the value the 5210 B rules support: None for a bound (see the report) or dilutions not averaged
-        id=new_id(), analyte=analyte, value=(r.report.value if r.report is not None and r.report.qualifier is None
-                                             else None), unit="mg/L", analysed_at=analysed_at,
-        analyst=(analyst or "").strip()[:40], method=CBOD_METHOD if nitrification_inhibitor else BOD_METHOD,
+        id=new_id(),
+        analyte=analyte,
+        value=(r.report.value if r.report is not None and r.report.qualifier is None else None),
+        unit="mg/L",
+        analysed_at=analysed_at,
+        analyst=(analyst or "").strip()[:40],
+        method=CBOD_METHOD if nitrification_inhibitor else BOD_METHOD,
         inputs={"entered": _jsonable(entered), "used": {"dilutions": _jsonable(dil)}, "derived": derived},
         flags=[FlagRecord.from_flag(f) for f in flags],
         valid=bool(r.valid) and not any(f.severity == Severity.STOP for f in flags),
-        notes=_notes(notes, flags, extra))
-    new_trip, new_stop, new_bottle, superseded = _append(trip, stop, bottle, result, analyte,
-                                                         redo_reason, analysed_at)
+        notes=_notes(notes, flags, extra),
+    )
+    new_trip, new_stop, new_bottle, superseded = _append(trip, stop, bottle, result, analyte, redo_reason, analysed_at)
     return LabOutcome(new_trip, new_bottle.lab_results[-1], new_stop, new_bottle, superseded, flags)
 
 
@@ -732,22 +951,40 @@ def reported_bod(result: LabResult):
     analyte = "CBOD5" if key == analyte_key(CBOD_ANALYTE) else "BOD5"
     stored = derived.get("report")
     if isinstance(stored, dict) and "text" in stored:
-        return BodReport(stored.get("value"), stored.get("qualifier"), stored["text"], stored.get("basis", ""),
-                         stored.get("analyte", analyte))
+        return BodReport(
+            stored.get("value"),
+            stored.get("qualifier"),
+            stored["text"],
+            stored.get("basis", ""),
+            stored.get("analyte", analyte),
+        )
     dils = []
     for d in derived.get("dilutions") or []:
         try:
-            dils.append(BodDilution(bod_mg_l=float(d["bod_mg_l"]), depletion_mg_l=float(d["depletion_mg_l"]),
-                                    valid=bool(d["valid"]),
-                                    flags=[_Flag(f["code"], Severity(f["severity"]), f.get("message", ""),
-                                                 f.get("action", ""), f.get("field"))
-                                           for f in d.get("flags") or []],
-                                    sample_ml=float(d["sample_ml"]), bottle_ml=float(d.get("bottle_ml", 300.0)),
-                                    seed_correction_mg_l=float(d.get("seed_correction_mg_l", 0.0))))
+            dils.append(
+                BodDilution(
+                    bod_mg_l=float(d["bod_mg_l"]),
+                    depletion_mg_l=float(d["depletion_mg_l"]),
+                    valid=bool(d["valid"]),
+                    flags=[
+                        _Flag(
+                            f["code"],
+                            Severity(f["severity"]),
+                            f.get("message", ""),
+                            f.get("action", ""),
+                            f.get("field"),
+                        )
+                        for f in d.get("flags") or []
+                    ],
+                    sample_ml=float(d["sample_ml"]),
+                    bottle_ml=float(d.get("bottle_ml", 300.0)),
+                    seed_correction_mg_l=float(d.get("seed_correction_mg_l", 0.0)),
+                )
+            )
         except (KeyError, TypeError, ValueError):
             return None
     if not dils:
-        return None   # nothing to apply the rules to (e.g. a result typed in from elsewhere)
+        return None  # nothing to apply the rules to (e.g. a result typed in from elsewhere)
     return bod_report(dils, analyte)[0]
 
 
@@ -794,18 +1031,29 @@ class DuplicateCheck:
     flags: list[Flag] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
-        return {"stop_id": self.stop_id, "site_id": self.site_id, "analyte": self.analyte,
-                "primary_label": self.primary_label, "duplicate_label": self.duplicate_label,
-                "primary_value": self.primary_value, "duplicate_value": self.duplicate_value,
-                "rpd_percent": self.rpd_percent, "limit_percent": self.limit_percent, "status": self.status,
-                "flags": [f.to_dict() for f in self.flags]}
+        return {
+            "stop_id": self.stop_id,
+            "site_id": self.site_id,
+            "analyte": self.analyte,
+            "primary_label": self.primary_label,
+            "duplicate_label": self.duplicate_label,
+            "primary_value": self.primary_value,
+            "duplicate_value": self.duplicate_value,
+            "rpd_percent": self.rpd_percent,
+            "limit_percent": self.limit_percent,
+            "status": self.status,
+            "flags": [f.to_dict() for f in self.flags],
+        }
 
 
 def _dup_analyte(b: Bottle) -> str:
     """Which analysis a duplicate bottle belongs to: its results' analyte, else by fixing."""
     for r in reversed(b.lab_results):
-        if analyte_key(r.analyte) in (analyte_key(WINKLER_ANALYTE), analyte_key(BOD_ANALYTE),
-                                      analyte_key(CBOD_ANALYTE)):
+        if analyte_key(r.analyte) in (
+            analyte_key(WINKLER_ANALYTE),
+            analyte_key(BOD_ANALYTE),
+            analyte_key(CBOD_ANALYTE),
+        ):
             return analyte_key(r.analyte)
     return analyte_key(WINKLER_ANALYTE) if b.fixed_at is not None else analyte_key(BOD_ANALYTE)
 
@@ -843,8 +1091,9 @@ def bottle_analysis(b: Bottle, stop_bottles: Iterable[Bottle] = ()) -> tuple[str
     return None if kind is None else (_ANALYTE_OF_HOLDING[kind], kind)
 
 
-def bottle_clock(b: Bottle, now: datetime, *, stop_bottles: Iterable[Bottle] = (),
-                 overrides: dict[str, float] | None = None) -> HoldingClock | None:
+def bottle_clock(
+    b: Bottle, now: datetime, *, stop_bottles: Iterable[Bottle] = (), overrides: dict[str, float] | None = None
+) -> HoldingClock | None:
     """A bottle's holding clock while it waits for the bench, or None when no clock runs.
 
     The one rule the app (Bottles and End screens), ``streamtab lab pending`` and QC share. No
@@ -865,14 +1114,15 @@ def bottle_clock(b: Bottle, now: datetime, *, stop_bottles: Iterable[Bottle] = (
     analyte, kind = pair
     result = current_result(b, analyte)
     if analyte == BOD_ANALYTE and result is None:
-        result = current_result(b, CBOD_ANALYTE)     # the bottle went to CBOD5 instead: analysed
+        result = current_result(b, CBOD_ANALYTE)  # the bottle went to CBOD5 instead: analysed
     if result is not None and result.valid is not False:
         return None
     return _clock_of(b, kind, now, overrides)
 
 
-def bottle_holding_clock(b: Bottle, at: datetime, *, stop_bottles: Iterable[Bottle] = (),
-                         overrides: dict[str, float] | None = None) -> HoldingClock | None:
+def bottle_holding_clock(
+    b: Bottle, at: datetime, *, stop_bottles: Iterable[Bottle] = (), overrides: dict[str, float] | None = None
+) -> HoldingClock | None:
     """A bottle's holding clock read at `at` whatever its results (None for a blank): the deadline
     for a report or custody page, or whether a result analysed at `at` was in time.
 
@@ -891,16 +1141,16 @@ def bottle_holding_clock(b: Bottle, at: datetime, *, stop_bottles: Iterable[Bott
 def _clock_of(b: Bottle, kind: str, at: datetime, overrides: dict[str, float] | None) -> HoldingClock:
     """The one place that says which times a bottle's clock is given: a fixing time only for a
     Winkler bottle and only when it is at or after collection."""
-    fixed = b.fixed_at if (kind == "do_winkler" and b.fixed_at is not None
-                           and b.fixed_at >= b.collected_at) else None
+    fixed = b.fixed_at if (kind == "do_winkler" and b.fixed_at is not None and b.fixed_at >= b.collected_at) else None
     return holding_clock(kind, b.collected_at, at, fixed_at=fixed, overrides=overrides or None)
 
 
 def duplicate_checks(trip: Trip, settings: LabSettings | None = None) -> list[DuplicateCheck]:
     """Each field duplicate of `trip` against its primary bottle at the same stop.
 
-    The primary is the bottle named by the duplicate's ``duplicate_of`` field (a label) when present, else the one bottle of the matching kind (do-fixed for
-    Winkler, bod for BOD5) at the same stop. The live results (not superseded) are compared by
+    The primary is the bottle named by the duplicate's ``duplicate_of`` field (a label) when
+    present, else the one bottle of the matching kind (do-fixed for Winkler, bod for BOD5) at the
+    same stop. The live results (not superseded) are compared by
     relative percent difference against ``settings.duplicate_rpd_percent`` [common practice].
     """
     settings = settings or LabSettings()
@@ -918,43 +1168,81 @@ def duplicate_checks(trip: Trip, settings: LabSettings | None = None) -> list[Du
             dres = current_result(dup, analyte)
             dval = dres.value if dres is not None else None
             if len(cands) != 1:
-                why = (f"names {named}, which is not at this stop" if named else
-                       f"has {len(cands)} {primary_kind} bottles at this stop" if cands else
-                       f"has no {primary_kind} bottle at this stop")
-                out.append(DuplicateCheck(stop.id, stop.site_id, analyte, None, dup.label, None, dval, None,
-                                          limit, "unpaired", [_flag(
-                                              "lab.duplicate_unpaired", Severity.WARNING,
-                                              f"Duplicate bottle {dup.label} cannot be paired: the stop {why}.",
-                                              "Record which bottle it duplicates (duplicate_of) or check the"
-                                              " bottle kinds.", "kind")]))
+                why = (
+                    f"names {named}, which is not at this stop"
+                    if named
+                    else f"has {len(cands)} {primary_kind} bottles at this stop"
+                    if cands
+                    else f"has no {primary_kind} bottle at this stop"
+                )
+                out.append(
+                    DuplicateCheck(
+                        stop.id,
+                        stop.site_id,
+                        analyte,
+                        None,
+                        dup.label,
+                        None,
+                        dval,
+                        None,
+                        limit,
+                        "unpaired",
+                        [
+                            _flag(
+                                "lab.duplicate_unpaired",
+                                Severity.WARNING,
+                                f"Duplicate bottle {dup.label} cannot be paired: the stop {why}.",
+                                "Record which bottle it duplicates (duplicate_of) or check the bottle kinds.",
+                                "kind",
+                            )
+                        ],
+                    )
+                )
                 continue
             prim = cands[0]
             pres = current_result(prim, analyte)
             pval = pres.value if pres is not None else None
             if pval is None or dval is None:
-                out.append(DuplicateCheck(stop.id, stop.site_id, analyte, prim.label, dup.label, pval, dval, None,
-                                          limit, "waiting"))
+                out.append(
+                    DuplicateCheck(
+                        stop.id, stop.site_id, analyte, prim.label, dup.label, pval, dval, None, limit, "waiting"
+                    )
+                )
                 continue
             rpd = relative_percent_difference(pval, dval)
             flags: list[Flag] = []
             status = "agrees"
             if rpd is not None and rpd > limit + 1e-9:
                 status = "disagrees"
-                flags.append(_flag("lab.duplicate_rpd", Severity.WARNING,
-                                   f"Bottle {prim.label} ({pval:.2f}) and its duplicate {dup.label} ({dval:.2f})"
-                                   f" differ by {rpd:.1f} %, more than the {limit:g} % limit.",
-                                   "Qualify both results as the program's QA plan says and review the sampling"
-                                   " and bench records.", "value"))
+                flags.append(
+                    _flag(
+                        "lab.duplicate_rpd",
+                        Severity.WARNING,
+                        f"Bottle {prim.label} ({pval:.2f}) and its duplicate {dup.label} ({dval:.2f})"
+                        f" differ by {rpd:.1f} %, more than the {limit:g} % limit.",
+                        "Qualify both results as the program's QA plan says and review the sampling and bench records.",
+                        "value",
+                    )
+                )
             if analyte == analyte_key(WINKLER_ANALYTE) and abs(pval - dval) > settings.duplicate_abs_mg_l + 1e-9:
                 status = "disagrees"
-                flags.append(_flag("lab.duplicate_difference", Severity.WARNING,
-                                   f"Bottle {prim.label} ({pval:.2f} mg/L) and its duplicate {dup.label}"
-                                   f" ({dval:.2f} mg/L) differ by {abs(pval - dval):.2f} mg/L, more than the"
-                                   f" {settings.duplicate_abs_mg_l:g} mg/L a field duplicate DO should agree within.",
-                                   "Qualify both results as the program's QA plan says; check the fixing (air"
-                                   " bubbles) and the titrations.", "value"))
-            out.append(DuplicateCheck(stop.id, stop.site_id, analyte, prim.label, dup.label, pval, dval, rpd,
-                                      limit, status, flags))
+                flags.append(
+                    _flag(
+                        "lab.duplicate_difference",
+                        Severity.WARNING,
+                        f"Bottle {prim.label} ({pval:.2f} mg/L) and its duplicate {dup.label}"
+                        f" ({dval:.2f} mg/L) differ by {abs(pval - dval):.2f} mg/L, more than the"
+                        f" {settings.duplicate_abs_mg_l:g} mg/L a field duplicate DO should agree within.",
+                        "Qualify both results as the program's QA plan says; check the fixing (air"
+                        " bubbles) and the titrations.",
+                        "value",
+                    )
+                )
+            out.append(
+                DuplicateCheck(
+                    stop.id, stop.site_id, analyte, prim.label, dup.label, pval, dval, rpd, limit, status, flags
+                )
+            )
     return out
 
 
@@ -985,13 +1273,26 @@ class PendingBottle:
     flag: Flag | None
 
     def to_dict(self) -> dict[str, Any]:
-        return {"trip_id": self.trip_id, "program": self.program, "stop_id": self.stop_id, "site_id": self.site_id,
-                "bottle_id": self.bottle_id, "label": self.label, "kind": self.kind, "analyte": self.analyte,
-                "collected_at": self.collected_at.isoformat(),
-                "fixed_at": self.fixed_at.isoformat() if self.fixed_at else None, "clock_from": self.clock_from,
-                "deadline": self.deadline.isoformat(), "remaining_s": self.remaining_s, "expired": self.expired,
-                "status": self.status, "holding_hours": self.hours, "citation": self.citation,
-                "flag": None if self.flag is None else self.flag.to_dict()}
+        return {
+            "trip_id": self.trip_id,
+            "program": self.program,
+            "stop_id": self.stop_id,
+            "site_id": self.site_id,
+            "bottle_id": self.bottle_id,
+            "label": self.label,
+            "kind": self.kind,
+            "analyte": self.analyte,
+            "collected_at": self.collected_at.isoformat(),
+            "fixed_at": self.fixed_at.isoformat() if self.fixed_at else None,
+            "clock_from": self.clock_from,
+            "deadline": self.deadline.isoformat(),
+            "remaining_s": self.remaining_s,
+            "expired": self.expired,
+            "status": self.status,
+            "holding_hours": self.hours,
+            "citation": self.citation,
+            "flag": None if self.flag is None else self.flag.to_dict(),
+        }
 
 
 def pending_bottles(trips: Iterable[Trip], now: datetime, settings: LabSettings | None = None) -> list[PendingBottle]:
@@ -1016,10 +1317,28 @@ def pending_bottles(trips: Iterable[Trip], now: datetime, settings: LabSettings 
                     continue
                 analyte = _ANALYTE_OF_HOLDING[clock.kind]
                 status = "expired" if clock.expired else ("soon" if clock.flag is not None else "in time")
-                out.append(PendingBottle(
-                    trip.id, trip.program, stop.id, stop.site_id, b.id, b.label, b.kind, analyte, b.collected_at,
-                    b.fixed_at, clock.clock_from, clock.deadline, clock.remaining_s,
-                    clock.expired, status, clock.rule.hours, clock.rule.citation, clock.flag))
+                out.append(
+                    PendingBottle(
+                        trip.id,
+                        trip.program,
+                        stop.id,
+                        stop.site_id,
+                        b.id,
+                        b.label,
+                        b.kind,
+                        analyte,
+                        b.collected_at,
+                        b.fixed_at,
+                        clock.clock_from,
+                        clock.deadline,
+                        clock.remaining_s,
+                        clock.expired,
+                        status,
+                        clock.rule.hours,
+                        clock.rule.citation,
+                        clock.flag,
+                    )
+                )
     out.sort(key=lambda p: (p.expired, p.remaining_s if not p.expired else -p.remaining_s, p.label))
     return out
 
@@ -1031,8 +1350,12 @@ def standardisation_of(batch: Any) -> Standardisation | None:
     """The batch's thiosulfate standardisation, or None when it has none."""
     if batch is None or batch.std_titrant_ml is None:
         return None
-    return Standardisation(titrant_ml=batch.std_titrant_ml, standard_ml=batch.std_ml,
-                           standard_normality=batch.std_normality, standardised_at=batch.standardised_at)
+    return Standardisation(
+        titrant_ml=batch.std_titrant_ml,
+        standard_ml=batch.std_ml,
+        standard_normality=batch.std_normality,
+        standardised_at=batch.standardised_at,
+    )
 
 
 def batch_for(trip: Trip, bottle: Bottle) -> Any:
@@ -1056,24 +1379,47 @@ def batch_qc(batch: Any, now: datetime, settings: LabSettings | None = None) -> 
     out: dict[str, Any] = {"id": batch.id, "name": batch.name, "bottles": len(batch.bottle_ids), "checks": []}
 
     def check(name: str, value: Any, flag: Flag | None, shown: str) -> None:
-        out["checks"].append({"check": name, "value": value, "shown": shown,
-                              "verdict": "missing" if value is None else ("passes" if flag is None else "fails"),
-                              "flag": None if flag is None else flag.to_dict()})
+        out["checks"].append(
+            {
+                "check": name,
+                "value": value,
+                "shown": shown,
+                "verdict": "missing" if value is None else ("passes" if flag is None else "fails"),
+                "flag": None if flag is None else flag.to_dict(),
+            }
+        )
 
     v = batch.blank_depletion_mg_l
-    check("dilution-water blank", v, None if v is None else blank_check(v),
-          "not recorded" if v is None else f"{v:.2f} mg/L depletion")
+    check(
+        "dilution-water blank",
+        v,
+        None if v is None else blank_check(v),
+        "not recorded" if v is None else f"{v:.2f} mg/L depletion",
+    )
     v = batch.gga_bod_mg_l
-    check("glucose–glutamic acid", v, None if v is None else gga_check(v),
-          "not recorded" if v is None else f"{v:.1f} mg/L")
+    check(
+        "glucose–glutamic acid",
+        v,
+        None if v is None else gga_check(v),
+        "not recorded" if v is None else f"{v:.1f} mg/L",
+    )
     if batch.seed_controls:
         try:
             s = float(seed_uptake_per_ml(batch.seed_controls))
             check("seed controls", s, None, f"{s:.3f} mg/L per mL of seed ({len(batch.seed_controls)} controls)")
         except ValueError as exc:
-            check("seed controls", None, _flag("lab.seed_controls", Severity.WARNING, str(exc).splitlines()[0],
-                                               "Check the seed control readings.", "seed_controls"),
-                  "no usable control")
+            check(
+                "seed controls",
+                None,
+                _flag(
+                    "lab.seed_controls",
+                    Severity.WARNING,
+                    str(exc).splitlines()[0],
+                    "Check the seed control readings.",
+                    "seed_controls",
+                ),
+                "no usable control",
+            )
     if batch.incubation_start is not None and batch.incubation_end is not None:
         h = (batch.incubation_end - batch.incubation_start).total_seconds() / 3600.0
         check("incubation", h, incubation_check(batch.incubation_start, batch.incubation_end), _fmt_h(h))
@@ -1086,10 +1432,14 @@ def batch_qc(batch: Any, now: datetime, settings: LabSettings | None = None) -> 
             age_h = (now - std.standardised_at).total_seconds() / 3600.0
             out["standardisation_age_days"] = age_h / 24.0
             if age_h > settings.standardisation_max_age_h:
-                age_flag = _flag("lab.standardisation_old", Severity.NOTE,
-                                 f"The thiosulfate was standardised {_fmt_h(age_h)} ago, more than the"
-                                 f" {settings.standardisation_max_age_h:g} h the lab's setting allows.",
-                                 "Standardise the titrant again and record the new normality.", "standardised_at")
+                age_flag = _flag(
+                    "lab.standardisation_old",
+                    Severity.NOTE,
+                    f"The thiosulfate was standardised {_fmt_h(age_h)} ago, more than the"
+                    f" {settings.standardisation_max_age_h:g} h the lab's setting allows.",
+                    "Standardise the titrant again and record the new normality.",
+                    "standardised_at",
+                )
             shown = f"{n:.4f} N, standardised {age_h / 24.0:.1f} days ago"
         else:
             shown = f"{n:.4f} N (no standardisation date)"
@@ -1097,11 +1447,23 @@ def batch_qc(batch: Any, now: datetime, settings: LabSettings | None = None) -> 
     return out
 
 
-def add_batch(trip: Trip, *, name: str, bottle_refs: Iterable[str], created_at: datetime, now: datetime,
-              analyst: str = "", blank_depletion_mg_l: float | None = None, gga_bod_mg_l: float | None = None,
-              seed_controls: list[dict] | None = None, incubation_start: datetime | None = None,
-              incubation_end: datetime | None = None, incubator_temp_c: float | None = None,
-              standardisation: Standardisation | None = None, notes: str = "") -> tuple[Trip, Any]:
+def add_batch(
+    trip: Trip,
+    *,
+    name: str,
+    bottle_refs: Iterable[str],
+    created_at: datetime,
+    now: datetime,
+    analyst: str = "",
+    blank_depletion_mg_l: float | None = None,
+    gga_bod_mg_l: float | None = None,
+    seed_controls: list[dict] | None = None,
+    incubation_start: datetime | None = None,
+    incubation_end: datetime | None = None,
+    incubator_temp_c: float | None = None,
+    standardisation: Standardisation | None = None,
+    notes: str = "",
+) -> tuple[Trip, Any]:
     """The trip with a bench batch added (or replaced, by name): QC entered once for all its bottles.
 
     Raises :class:`LabInputError` naming the input: an empty name, no or unknown bottles, a bad QC
@@ -1124,8 +1486,10 @@ def add_batch(trip: Trip, *, name: str, bottle_refs: Iterable[str], created_at: 
         _, b, _ = find_bottle(trip, ref)
         if b.id not in ids:
             ids.append(b.id)
-    for value, field_, fn in ((blank_depletion_mg_l, "blank_depletion_mg_l", blank_check),
-                              (gga_bod_mg_l, "gga_bod_mg_l", gga_check)):
+    for value, field_, fn in (
+        (blank_depletion_mg_l, "blank_depletion_mg_l", blank_check),
+        (gga_bod_mg_l, "gga_bod_mg_l", gga_check),
+    ):
         if value is not None:
             try:
                 fn(value)
@@ -1139,33 +1503,45 @@ def add_batch(trip: Trip, *, name: str, bottle_refs: Iterable[str], created_at: 
     if incubator_temp_c is not None:
         _num(incubator_temp_c, "incubator_temp_c", -10.0, 60.0, "°C")
     if (incubation_start is None) != (incubation_end is None):
-        raise LabInputError("incubation_start" if incubation_start is None else "incubation_end",
-                            "incubation start and end go together; accepted: both times or neither")
+        raise LabInputError(
+            "incubation_start" if incubation_start is None else "incubation_end",
+            "incubation start and end go together; accepted: both times or neither",
+        )
     if incubation_start is not None and incubation_end is not None and incubation_end <= incubation_start:
-        raise LabInputError("incubation_end", "the incubation ends before it starts; accepted: a read-out after"
-                                              " the set-up")
+        raise LabInputError(
+            "incubation_end", "the incubation ends before it starts; accepted: a read-out after the set-up"
+        )
     if standardisation is not None:
         try:
-            thiosulfate_normality(standardisation.titrant_ml, standardisation.standard_ml,
-                                  standardisation.standard_normality)
+            thiosulfate_normality(
+                standardisation.titrant_ml, standardisation.standard_ml, standardisation.standard_normality
+            )
         except ValueError as exc:
             msg = str(exc).splitlines()[0]
             raise LabInputError("standardisation." + msg.split(" ", 1)[0], "standardisation " + msg) from None
         if standardisation.standardised_at is not None:
             _aware(standardisation.standardised_at, "standardised_at")
             if standardisation.standardised_at > now + timedelta(minutes=5):
-                raise LabInputError("standardised_at", "the standardisation time is in the future; accepted: a time"
-                                                       " up to now")
-    batch = LabBatch(name=name, created_at=created_at, analyst=(analyst or "").strip()[:40], bottle_ids=ids,
-                     blank_depletion_mg_l=blank_depletion_mg_l, gga_bod_mg_l=gga_bod_mg_l,
-                     seed_controls=[{k: float(v) for k, v in c.items()} for c in (seed_controls or [])],
-                     incubation_start=incubation_start, incubation_end=incubation_end,
-                     incubator_temp_c=incubator_temp_c,
-                     std_titrant_ml=standardisation.titrant_ml if standardisation else None,
-                     std_ml=standardisation.standard_ml if standardisation else 20.0,
-                     std_normality=standardisation.standard_normality if standardisation else 0.025,
-                     standardised_at=standardisation.standardised_at if standardisation else None,
-                     notes=(notes or "").strip())
+                raise LabInputError(
+                    "standardised_at", "the standardisation time is in the future; accepted: a time up to now"
+                )
+    batch = LabBatch(
+        name=name,
+        created_at=created_at,
+        analyst=(analyst or "").strip()[:40],
+        bottle_ids=ids,
+        blank_depletion_mg_l=blank_depletion_mg_l,
+        gga_bod_mg_l=gga_bod_mg_l,
+        seed_controls=[{k: float(v) for k, v in c.items()} for c in (seed_controls or [])],
+        incubation_start=incubation_start,
+        incubation_end=incubation_end,
+        incubator_temp_c=incubator_temp_c,
+        std_titrant_ml=standardisation.titrant_ml if standardisation else None,
+        std_ml=standardisation.standard_ml if standardisation else 20.0,
+        std_normality=standardisation.standard_normality if standardisation else 0.025,
+        standardised_at=standardisation.standardised_at if standardisation else None,
+        notes=(notes or "").strip(),
+    )
     kept = [b for b in trip.lab_batches if b.name != name]
     same = [b for b in trip.lab_batches if b.name == name]
     if same:

@@ -40,31 +40,74 @@ Site facts (elevation, water class, criteria) come from the stop's ``site_snapsh
 kept afterwards: a later edit of the site list or of the program's criteria does not re-judge an
 old record. Only a stop without a snapshot is judged by today's site list.
 """
+
 from __future__ import annotations
 
 from collections import Counter
+from collections.abc import Iterable
 from datetime import datetime
 from typing import Any
-from collections.abc import Iterable
 
 from core.flags import Flag, Severity
-from core.records.models import (DERIVED, Calibration, Derived, FlagRecord, ProgramSettings, Site, SiteSnapshot,
-                                 Stop, Trip, keys_by_role)
+from core.records.models import (
+    DERIVED,
+    Calibration,
+    Derived,
+    FlagRecord,
+    ProgramSettings,
+    Site,
+    SiteSnapshot,
+    Stop,
+    Trip,
+    keys_by_role,
+)
 
-__all__ = ["TRIP_KEY", "RULE_CODES", "derive", "derive_trip", "derive_document", "derive_basis", "derive_stop", "derive_calibration",
-           "stop_flags", "trip_flags", "trip_level_flags", "core_version", "calibration_elevation_m",
-           "site_snapshot", "checked_site", "snapshot_differences"]
+__all__ = [
+    "TRIP_KEY",
+    "RULE_CODES",
+    "derive",
+    "derive_trip",
+    "derive_document",
+    "derive_basis",
+    "derive_stop",
+    "derive_calibration",
+    "stop_flags",
+    "trip_flags",
+    "trip_level_flags",
+    "core_version",
+    "calibration_elevation_m",
+    "site_snapshot",
+    "checked_site",
+    "snapshot_differences",
+]
 
 #: Key of trip-level findings (calibrations) in :func:`trip_flags`' result.
 TRIP_KEY = "trip"
 
 RULE_CODES = (
-    "pressure.sea_level_adjusted", "do.supersaturated", "do.below_criterion", "do.below_1day_minimum", "do.hypoxic",
-    "calibration.out_of_tolerance", "calibration.missing", "pressure.flat_across_elevations",
-    "instrument.zero_do", "instrument.barometer", "calibration.post_trip_drift",
-    "bottle.duplicate_label", "bottle.not_fixed", "holding.expired", "holding.soon",
-    "temp.out_of_range", "temp.looks_fahrenheit", "temp.maybe_fahrenheit", "temp.jump", "conductivity.out_of_range",
-    "conductivity.jump", "stop.missing_required", "stop.unknown_site",
+    "pressure.sea_level_adjusted",
+    "do.supersaturated",
+    "do.below_criterion",
+    "do.below_1day_minimum",
+    "do.hypoxic",
+    "calibration.out_of_tolerance",
+    "calibration.missing",
+    "pressure.flat_across_elevations",
+    "instrument.zero_do",
+    "instrument.barometer",
+    "calibration.post_trip_drift",
+    "bottle.duplicate_label",
+    "bottle.not_fixed",
+    "holding.expired",
+    "holding.soon",
+    "temp.out_of_range",
+    "temp.looks_fahrenheit",
+    "temp.maybe_fahrenheit",
+    "temp.jump",
+    "conductivity.out_of_range",
+    "conductivity.jump",
+    "stop.missing_required",
+    "stop.unknown_site",
 )
 
 
@@ -104,16 +147,26 @@ def site_snapshot(site: Site, settings: ProgramSettings) -> SiteSnapshot:
     minimum = None
     if water_class is not None:
         minimum = crit.warm_min_mg_l if water_class == "warm" else crit.cold_min_mg_l
-    return SiteSnapshot(site_id=site.id, name=site.name, elevation_m=site.elevation_m,
-                        water_class=water_class, min_do_mg_l=minimum,
-                        supersaturation_percent=crit.supersaturation_percent)
+    return SiteSnapshot(
+        site_id=site.id,
+        name=site.name,
+        elevation_m=site.elevation_m,
+        water_class=water_class,
+        min_do_mg_l=minimum,
+        supersaturation_percent=crit.supersaturation_percent,
+    )
 
 
 def _snapshot_site(snap: SiteSnapshot) -> Site:
     """The snapshot as a Site record (what the science and rules take)."""
-    return Site.model_construct(id=snap.site_id, name=snap.name or snap.site_id, elevation_m=snap.elevation_m,
-                                water_class=snap.water_class, min_do_mg_l=snap.min_do_mg_l,
-                                supersaturation_percent=snap.supersaturation_percent)
+    return Site.model_construct(
+        id=snap.site_id,
+        name=snap.name or snap.site_id,
+        elevation_m=snap.elevation_m,
+        water_class=snap.water_class,
+        min_do_mg_l=snap.min_do_mg_l,
+        supersaturation_percent=snap.supersaturation_percent,
+    )
 
 
 def checked_site(stop: Stop, sites: dict[str, Site] | None) -> Site | None:
@@ -137,17 +190,21 @@ def snapshot_differences(stop: Stop, site: Site | None, settings: ProgramSetting
         return "none" if v is None else f"{v:g} {unit}".strip() if isinstance(v, float) else str(v)
 
     out = []
-    for name, label, unit in (("elevation_m", "elevation", "m"), ("water_class", "water class", ""),
-                              ("min_do_mg_l", "DO criterion", "mg/L"),
-                              ("supersaturation_percent", "supersaturation threshold", "%")):
+    for name, label, unit in (
+        ("elevation_m", "elevation", "m"),
+        ("water_class", "water class", ""),
+        ("min_do_mg_l", "DO criterion", "mg/L"),
+        ("supersaturation_percent", "supersaturation threshold", "%"),
+    ):
         was, is_ = getattr(snap, name), getattr(now, name)
         if was != is_:
             out.append(f"{label} {show(was, unit)} when saved, {show(is_, unit)} in today's site list")
     return out
 
 
-def derive_stop(stop: Stop, site: Site | None, settings: ProgramSettings,
-                percent_basis: str | None = None) -> Derived | None:
+def derive_stop(
+    stop: Stop, site: Site | None, settings: ProgramSettings, percent_basis: str | None = None
+) -> Derived | None:
     """Saturation target, % saturation, salinity and science flags for one stop (None without T and P).
 
     `percent_basis` is the trip meter's % basis; None uses the program setting."""
@@ -155,10 +212,12 @@ def derive_stop(stop: Stop, site: Site | None, settings: ProgramSettings,
         return None
     from core.science.assess import assess_reading
 
-    kwargs: dict[str, Any] = {"method": settings.method,
-                              "percent_basis": percent_basis or settings.percent_basis,
-                              "compensation": settings.conductivity_compensation,
-                              "alpha": settings.conductivity_alpha_per_c}
+    kwargs: dict[str, Any] = {
+        "method": settings.method,
+        "percent_basis": percent_basis or settings.percent_basis,
+        "compensation": settings.conductivity_compensation,
+        "alpha": settings.conductivity_alpha_per_c,
+    }
     if stop.conductivity is not None:
         kwargs["conductivity_us_cm"] = stop.conductivity.value
         kwargs["conductivity_is_sc25"] = stop.conductivity_is_sc25
@@ -178,11 +237,17 @@ def derive_stop(stop: Stop, site: Site | None, settings: ProgramSettings,
         do_sat_mg_l=float(a.do_sat_mg_l),
         percent_saturation=None if a.percent_saturation is None else float(a.percent_saturation),
         do_mg_l=None if a.do_mg_l is None else float(a.do_mg_l),
-        salinity=float(a.salinity), salinity_source=str(a.salinity_source),
-        specific_conductance_us_cm=(None if a.specific_conductance_us_cm is None
-                                    else float(a.specific_conductance_us_cm)),
-        pressure_hpa=float(a.pressure_hpa), temp_c=float(a.temp_c), method=str(a.method),
-        core_version=str(a.core_version), flags=[FlagRecord.from_flag(f) for f in a.flags])
+        salinity=float(a.salinity),
+        salinity_source=str(a.salinity_source),
+        specific_conductance_us_cm=(
+            None if a.specific_conductance_us_cm is None else float(a.specific_conductance_us_cm)
+        ),
+        pressure_hpa=float(a.pressure_hpa),
+        temp_c=float(a.temp_c),
+        method=str(a.method),
+        core_version=str(a.core_version),
+        flags=[FlagRecord.from_flag(f) for f in a.flags],
+    )
 
 
 def calibration_elevation_m(trip: Trip, sites: dict[str, Site], settings: ProgramSettings) -> float | None:
@@ -196,8 +261,14 @@ def calibration_elevation_m(trip: Trip, sites: dict[str, Site], settings: Progra
     return None
 
 
-def derive_calibration(cal: Calibration | None, settings: ProgramSettings, *, post: bool,
-                       elevation_m: float | None = None, instrument: Any = None) -> Calibration | None:
+def derive_calibration(
+    cal: Calibration | None,
+    settings: ProgramSettings,
+    *,
+    post: bool,
+    elevation_m: float | None = None,
+    instrument: Any = None,
+) -> Calibration | None:
     """The calibration with its target, difference, verdict, method and core version filled in.
 
     With `elevation_m` (where the meter was calibrated), the calibration pressure gets the same checks
@@ -217,24 +288,35 @@ def derive_calibration(cal: Calibration | None, settings: ProgramSettings, *, po
 
             target = float(calibration_target_mg_l(cal.temp.value, cal.pressure.value, settings.method))
             tolerance = drift_tolerance_mg_l(instrument.drift_limit, instrument.drift_unit, target)
-        r = fn(cal.reading_mg_l, cal.temp.value, cal.pressure.value,
-               tolerance_mg_l=tolerance, method=settings.method)
+        r = fn(cal.reading_mg_l, cal.temp.value, cal.pressure.value, tolerance_mg_l=tolerance, method=settings.method)
     except ValueError:
-        return cal.model_copy(update={"target_mg_l": None, "difference_mg_l": None, "accepted": None,
-                                      "method": settings.method, "core_version": core_version(),
-                                      "flags": []})
+        return cal.model_copy(
+            update={
+                "target_mg_l": None,
+                "difference_mg_l": None,
+                "accepted": None,
+                "method": settings.method,
+                "core_version": core_version(),
+                "flags": [],
+            }
+        )
     flags = list(r.flags)
     if elevation_m is not None:
         try:
             for f in station_pressure_flags(cal.pressure.value, elevation_m):
-                flags.append(Flag(f.code, f.severity, f"Calibration pressure: {f.message}", f.action,
-                                  "pressure"))
+                flags.append(Flag(f.code, f.severity, f"Calibration pressure: {f.message}", f.action, "pressure"))
         except ValueError:
             pass
-    return cal.model_copy(update={
-        "target_mg_l": float(r.target_mg_l), "difference_mg_l": float(r.difference_mg_l),
-        "accepted": bool(r.passed), "method": settings.method, "core_version": core_version(),
-        "flags": [FlagRecord.from_flag(f) for f in flags]})
+    return cal.model_copy(
+        update={
+            "target_mg_l": float(r.target_mg_l),
+            "difference_mg_l": float(r.difference_mg_l),
+            "accepted": bool(r.passed),
+            "method": settings.method,
+            "core_version": core_version(),
+            "flags": [FlagRecord.from_flag(f) for f in flags],
+        }
+    )
 
 
 def derive_basis(site: Site | None, settings: ProgramSettings, percent_basis: str | None = None) -> str:
@@ -243,9 +325,12 @@ def derive_basis(site: Site | None, settings: ProgramSettings, percent_basis: st
 
     from core.store.atomic import canonical_json_bytes
 
-    basis = {"site": site.model_dump(mode="json") if site is not None else None,
-             "settings": settings.model_dump(mode="json"), "core": core_version()}
-    if percent_basis is not None:   # only when the trip's meter says; older fingerprints stay valid
+    basis = {
+        "site": site.model_dump(mode="json") if site is not None else None,
+        "settings": settings.model_dump(mode="json"),
+        "core": core_version(),
+    }
+    if percent_basis is not None:  # only when the trip's meter says; older fingerprints stay valid
         basis["meter_percent_basis"] = percent_basis
     return hashlib.sha256(canonical_json_bytes(basis)).hexdigest()[:16]
 
@@ -255,15 +340,20 @@ def derive_trip(trip: Trip, sites: dict[str, Site], settings: ProgramSettings) -
     return derive(trip, sites, settings)[1]
 
 
-def derive_document(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
-                    previous: dict[str, Any] | None = None) -> dict[str, Any]:
+def derive_document(
+    trip: Trip, sites: dict[str, Site], settings: ProgramSettings, previous: dict[str, Any] | None = None
+) -> dict[str, Any]:
     """The JSON document of `trip` with derived values filled in (what the store writes)."""
     return derive(trip, sites, settings, previous)[0]
 
 
-def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
-           previous: dict[str, Any] | None = None,
-           bases: dict[str, str] | None = None) -> tuple[dict[str, Any], Trip]:
+def derive(
+    trip: Trip,
+    sites: dict[str, Site],
+    settings: ProgramSettings,
+    previous: dict[str, Any] | None = None,
+    bases: dict[str, str] | None = None,
+) -> tuple[dict[str, Any], Trip]:
     """(the JSON document, the Trip) with derived values filled in — the store's derive step.
 
     `previous` (the stored document of the same trip) lets a stop whose inputs are unchanged keep
@@ -286,10 +376,10 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
             # a writer that does not know the field (an older form) keeps the stored snapshot
             snap = SiteSnapshot.model_validate_json(_json(old["site_snapshot"]))
         if snap is not None and snap.site_id != stop.site_id:
-            snap = None                                  # the stop now names another site
+            snap = None  # the stop now names another site
         live = sites.get(stop.site_id)
         if snap is None and live is not None and not _same_inputs(old, stop_doc):
-            snap = site_snapshot(live, settings)         # saved (or changed) with its site known
+            snap = site_snapshot(live, settings)  # saved (or changed) with its site known
         if snap is not stop.site_snapshot:
             stop = stop.model_copy(update={"site_snapshot": snap})
             stop_doc["site_snapshot"] = None if snap is None else snap.model_dump(mode="json")
@@ -300,14 +390,19 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
         if key not in bases:
             bases[key] = derive_basis(site, settings, meter_basis)
         basis = bases[key]
-        if (old is not None and isinstance(old.get("derived"), dict)
-                and old["derived"].get("basis") == basis
-                and len(old) == len(stop_doc)
-                and all(old.get(k) == v for k, v in stop_doc.items() if k not in derived_keys)):
+        if (
+            old is not None
+            and isinstance(old.get("derived"), dict)
+            and old["derived"].get("basis") == basis
+            and len(old) == len(stop_doc)
+            and all(old.get(k) == v for k, v in stop_doc.items() if k not in derived_keys)
+        ):
             if stop_doc.get("derived") == old["derived"]:
                 new_stops.append(stop)
             else:
-                new_stops.append(stop.model_copy(update={"derived": Derived.model_validate_json(_json(old["derived"]))}))
+                new_stops.append(
+                    stop.model_copy(update={"derived": Derived.model_validate_json(_json(old["derived"]))})
+                )
             stop_doc["derived"] = old["derived"]
             continue
         derived = derive_stop(stop, site, settings, meter_basis)
@@ -318,8 +413,13 @@ def derive(trip: Trip, sites: dict[str, Site], settings: ProgramSettings,
     cals: dict[str, Calibration | None] = {}
     cal_elevation = calibration_elevation_m(trip, sites, settings)
     for key, post in (("pre_calibration", False), ("post_check", True)):
-        cal = derive_calibration(getattr(trip, key), settings, post=post, elevation_m=cal_elevation,
-                                 instrument=settings.instrument(trip.meter_id))
+        cal = derive_calibration(
+            getattr(trip, key),
+            settings,
+            post=post,
+            elevation_m=cal_elevation,
+            instrument=settings.instrument(trip.meter_id),
+        )
         cals[key] = cal
         doc[key] = None if cal is None else cal.model_dump(mode="json")
     return doc, trip.model_copy(update={"stops": new_stops, **cals})
@@ -331,8 +431,9 @@ def _same_inputs(old: dict[str, Any] | None, stop_doc: dict[str, Any]) -> bool:
     if old is None:
         return False
     skip = ("derived", "site_snapshot")
-    return ({k for k in old if k not in skip} == {k for k in stop_doc if k not in skip}
-            and all(old.get(k) == v for k, v in stop_doc.items() if k not in skip))
+    return {k for k in old if k not in skip} == {k for k in stop_doc if k not in skip} and all(
+        old.get(k) == v for k, v in stop_doc.items() if k not in skip
+    )
 
 
 def _json(doc: Any) -> bytes:
@@ -348,20 +449,35 @@ def _flag(code: str, severity: Severity, message: str, action: str, field: str |
     return Flag(code=code, severity=severity, message=message, action=action, field=field)
 
 
-def _plausible(flags: list[Flag], field: str, what: str, value: float, bounds: tuple[float, float],
-               unit: str, action: str) -> None:
+def _plausible(
+    flags: list[Flag], field: str, what: str, value: float, bounds: tuple[float, float], unit: str, action: str
+) -> None:
     """Adds a ``<field>.out_of_range`` warning when ``value`` lies outside the plausible ``bounds``."""
     lo, hi = bounds
     if not (lo <= value <= hi):
-        flags.append(_flag(f"{field}.out_of_range", Severity.WARNING,
-                           f"{what} {value:g} {unit} is outside the plausible {lo:g}–{hi:g} {unit} for a stream.",
-                           action, field))
+        flags.append(
+            _flag(
+                f"{field}.out_of_range",
+                Severity.WARNING,
+                f"{what} {value:g} {unit} is outside the plausible {lo:g}–{hi:g} {unit} for a stream.",
+                action,
+                field,
+            )
+        )
 
 
-def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Site | None = None,
-               previous: Stop | None = None, labels_in_trip: Counter | None = None,
-               other_bottle_labels: dict[str, str] | None = None, trip_id: str | None = None,
-               sites_known: bool = False) -> list[Flag]:
+def stop_flags(
+    stop: Stop,
+    settings: ProgramSettings,
+    now: datetime,
+    *,
+    site: Site | None = None,
+    previous: Stop | None = None,
+    labels_in_trip: Counter | None = None,
+    other_bottle_labels: dict[str, str] | None = None,
+    trip_id: str | None = None,
+    sites_known: bool = False,
+) -> list[Flag]:
     """Every finding for one stop, worst first: stored science flags, then the QC rules.
 
     `previous` is the stop before it on the route (for jump checks); `labels_in_trip` counts
@@ -375,9 +491,15 @@ def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Si
 
     # Site and elevation
     if sites_known and site is None:
-        flags.append(_flag("stop.unknown_site", Severity.WARNING,
-                           f"Site {stop.site_id} is not in the site list, so its elevation and criteria are unknown.",
-                           "Import the site list or correct the site code.", "site_id"))
+        flags.append(
+            _flag(
+                "stop.unknown_site",
+                Severity.WARNING,
+                f"Site {stop.site_id} is not in the site list, so its elevation and criteria are unknown.",
+                "Import the site list or correct the site code.",
+                "site_id",
+            )
+        )
     if site is not None and stop.pressure is not None:
         from core.science.pressure import sea_level_adjusted_flag
 
@@ -401,8 +523,15 @@ def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Si
     # Plausible ranges and °F look
     if stop.temp is not None:
         t = stop.temp.value
-        _plausible(flags, "temp", "Water temperature", t, settings.temp_plausible_c, "°C",
-                   "Check the probe and the unit, and re-read if you can.")
+        _plausible(
+            flags,
+            "temp",
+            "Water temperature",
+            t,
+            settings.temp_plausible_c,
+            "°C",
+            "Check the probe and the unit, and re-read if you can.",
+        )
         from core.science.temperature import fahrenheit_hint
 
         try:
@@ -412,62 +541,104 @@ def stop_flags(stop: Stop, settings: ProgramSettings, now: datetime, *, site: Si
         if f is not None:
             flags.append(f)
     if stop.conductivity is not None:
-        _plausible(flags, "conductivity", "Conductivity", stop.conductivity.value,
-                   settings.conductivity_plausible_us_cm, "µS/cm",
-                   "Check the unit (µS/cm or mS/cm), rinse the cell and re-read.")
+        _plausible(
+            flags,
+            "conductivity",
+            "Conductivity",
+            stop.conductivity.value,
+            settings.conductivity_plausible_us_cm,
+            "µS/cm",
+            "Check the unit (µS/cm or mS/cm), rinse the cell and re-read.",
+        )
 
     # Jumps from the previous stop
     if previous is not None:
         if stop.temp is not None and previous.temp is not None:
             jump = abs(stop.temp.value - previous.temp.value)
             if jump > settings.temp_jump_c:
-                flags.append(_flag("temp.jump", Severity.WARNING,
-                                   f"Water temperature changed by {jump:.1f} °C since the previous stop "
-                                   f"({previous.site_id}), more than {settings.temp_jump_c:g} °C.",
-                                   "Confirm the reading and that the probe had settled.", "temp"))
+                flags.append(
+                    _flag(
+                        "temp.jump",
+                        Severity.WARNING,
+                        f"Water temperature changed by {jump:.1f} °C since the previous stop "
+                        f"({previous.site_id}), more than {settings.temp_jump_c:g} °C.",
+                        "Confirm the reading and that the probe had settled.",
+                        "temp",
+                    )
+                )
         if stop.conductivity is not None and previous.conductivity is not None:
             pair = (stop.conductivity.value, previous.conductivity.value)
             if min(pair) > 0:
                 ratio = max(pair) / min(pair)
                 if ratio > settings.conductivity_jump_ratio:
-                    flags.append(_flag("conductivity.jump", Severity.WARNING,
-                                       f"Conductivity changed by a factor of {ratio:.1f} since the previous stop "
-                                       f"({previous.site_id}), more than {settings.conductivity_jump_ratio:g}×.",
-                                       "Check for a tributary or discharge, or a unit mix-up, and re-read.",
-                                       "conductivity"))
+                    flags.append(
+                        _flag(
+                            "conductivity.jump",
+                            Severity.WARNING,
+                            f"Conductivity changed by a factor of {ratio:.1f} since the previous stop "
+                            f"({previous.site_id}), more than {settings.conductivity_jump_ratio:g}×.",
+                            "Check for a tributary or discharge, or a unit mix-up, and re-read.",
+                            "conductivity",
+                        )
+                    )
 
     # Required fields when the stop is closed
     if stop.closed_at is not None:
-        missing = [label for name, label in (("temp", "water temperature"), ("pressure", "station pressure"),
-                                             ("do", "meter DO")) if getattr(stop, name) is None]
+        missing = [
+            label
+            for name, label in (("temp", "water temperature"), ("pressure", "station pressure"), ("do", "meter DO"))
+            if getattr(stop, name) is None
+        ]
         if missing:
-            flags.append(_flag("stop.missing_required", Severity.STOP,
-                               f"The stop at {stop.site_id} was closed without {', '.join(missing)}.",
-                               "Reopen the stop and enter the missing readings, or note why they are missing.",
-                               missing[0].split()[-1] if len(missing) == 1 else None))
+            flags.append(
+                _flag(
+                    "stop.missing_required",
+                    Severity.STOP,
+                    f"The stop at {stop.site_id} was closed without {', '.join(missing)}.",
+                    "Reopen the stop and enter the missing readings, or note why they are missing.",
+                    missing[0].split()[-1] if len(missing) == 1 else None,
+                )
+            )
 
     # Bottles: labels and holding times
     others = other_bottle_labels or {}
     for b in stop.bottles:
         if labels_in_trip is not None and labels_in_trip.get(b.label, 0) > 1:
-            flags.append(_flag("bottle.duplicate_label", Severity.STOP,
-                               f"Bottle ID {b.label} is used more than once in this trip.",
-                               "Check the bottle labels and correct the ID typed or scanned.", "label"))
+            flags.append(
+                _flag(
+                    "bottle.duplicate_label",
+                    Severity.STOP,
+                    f"Bottle ID {b.label} is used more than once in this trip.",
+                    "Check the bottle labels and correct the ID typed or scanned.",
+                    "label",
+                )
+            )
         elif b.label in others and others[b.label] != trip_id:
-            flags.append(_flag("bottle.duplicate_label", Severity.STOP,
-                               f"Bottle ID {b.label} is already used on this device (trip {others[b.label][:8]}).",
-                               "Check the bottle label; relabel the bottle if it was reused.", "label"))
+            flags.append(
+                _flag(
+                    "bottle.duplicate_label",
+                    Severity.STOP,
+                    f"Bottle ID {b.label} is already used on this device (trip {others[b.label][:8]}).",
+                    "Check the bottle label; relabel the bottle if it was reused.",
+                    "label",
+                )
+            )
         if b.kind == "do-fixed" and b.fixed_at is None:
-            flags.append(_flag("bottle.not_fixed", Severity.WARNING,
-                               f"DO bottle {b.label} has no fixing time; Winkler samples are fixed on site.",
-                               "Fix the sample now (see the SOP for reagent handling) and record the time.",
-                               "fixed_at"))
-        from core.rules.lab import bottle_clock   # the one holding rule (app, lab commands, QC)
+            flags.append(
+                _flag(
+                    "bottle.not_fixed",
+                    Severity.WARNING,
+                    f"DO bottle {b.label} has no fixing time; Winkler samples are fixed on site.",
+                    "Fix the sample now (see the SOP for reagent handling) and record the time.",
+                    "fixed_at",
+                )
+            )
+        from core.rules.lab import bottle_clock  # the one holding rule (app, lab commands, QC)
 
         try:
             clock = bottle_clock(b, now, stop_bottles=stop.bottles, overrides=settings.holding_overrides_h)
         except ValueError:
-            clock = None        # a bad SOP override: the settings' own check reports it
+            clock = None  # a bad SOP override: the settings' own check reports it
         if clock is not None and clock.flag is not None:
             flags.append(clock.flag)
     return _dedupe(flags)
@@ -493,9 +664,11 @@ def trip_level_flags(trip: Trip, settings: ProgramSettings, sites: dict[str, Sit
     if sites:
         from core.science.pressure import flat_pressure_flag
 
-        readings = [(f"Stop {i} ({s.site_id})", sites[s.site_id].elevation_m, s.pressure.value)
-                    for i, s in enumerate(sorted(trip.stops, key=lambda s: s.arrived_at), 1)
-                    if s.pressure is not None and s.site_id in sites]
+        readings = [
+            (f"Stop {i} ({s.site_id})", sites[s.site_id].elevation_m, s.pressure.value)
+            for i, s in enumerate(sorted(trip.stops, key=lambda s: s.arrived_at), 1)
+            if s.pressure is not None and s.site_id in sites
+        ]
         try:
             flat = flat_pressure_flag(readings)
         except ValueError:
@@ -505,12 +678,17 @@ def trip_level_flags(trip: Trip, settings: ProgramSettings, sites: dict[str, Sit
     pre = trip.pre_calibration
     if pre is None:
         if trip.stops or trip.started_without_calibration:
-            flags.append(_flag("calibration.missing", Severity.WARNING,
-                               "The crew started this trip without a pre-trip calibration (recorded at the start)."
-                               if trip.started_without_calibration else
-                               "No pre-trip calibration is recorded for this trip.",
-                               "Record the air calibration (or note why none was done) before relying on the DO readings.",
-                               "pre_calibration"))
+            flags.append(
+                _flag(
+                    "calibration.missing",
+                    Severity.WARNING,
+                    "The crew started this trip without a pre-trip calibration (recorded at the start)."
+                    if trip.started_without_calibration
+                    else "No pre-trip calibration is recorded for this trip.",
+                    "Record the air calibration (or note why none was done) before relying on the DO readings.",
+                    "pre_calibration",
+                )
+            )
     else:
         flags.extend(f.to_flag() for f in pre.flags)
     if trip.post_check is not None:
@@ -524,8 +702,13 @@ def trip_level_flags(trip: Trip, settings: ProgramSettings, sites: dict[str, Sit
     return _dedupe(flags)
 
 
-def trip_flags(trip: Trip, settings: ProgramSettings, now: datetime, other_bottle_labels: dict[str, str] | None = None,
-               sites: dict[str, Site] | None = None) -> dict[str, list[Flag]]:
+def trip_flags(
+    trip: Trip,
+    settings: ProgramSettings,
+    now: datetime,
+    other_bottle_labels: dict[str, str] | None = None,
+    sites: dict[str, Site] | None = None,
+) -> dict[str, list[Flag]]:
     """Findings per stop id, in route order, plus trip-level ones under :data:`TRIP_KEY`.
 
     `other_bottle_labels` (label → trip id, e.g. DeviceStore.bottle_labels_in_use()) lets the
@@ -537,8 +720,16 @@ def trip_flags(trip: Trip, settings: ProgramSettings, now: datetime, other_bottl
     prev: Stop | None = None
     for stop in route:
         site = checked_site(stop, sites)
-        out[stop.id] = stop_flags(stop, settings, now, site=site, previous=prev, labels_in_trip=labels,
-                                  other_bottle_labels=other_bottle_labels, trip_id=trip.id,
-                                  sites_known=sites is not None)
+        out[stop.id] = stop_flags(
+            stop,
+            settings,
+            now,
+            site=site,
+            previous=prev,
+            labels_in_trip=labels,
+            other_bottle_labels=other_bottle_labels,
+            trip_id=trip.id,
+            sites_known=sites is not None,
+        )
         prev = stop
     return out

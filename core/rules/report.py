@@ -14,28 +14,49 @@ A result's ``status`` is one of:
 ``not checked``          entered without the bench rules (``valid`` is None)
 =======================  =============================================================
 """
+
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from datetime import datetime
-from collections.abc import Iterable
 from typing import Any
 
 from core.records.models import Bottle, LabResult, ProgramSettings, Site, Stop, Trip
 
 __all__ = [
-    "Rounding", "ResultRow", "StopRow", "BottleRow", "HandoffRow", "PlotPoint", "TripReport",
-    "WADING_CAUTION", "DECIDES", "rounding_for", "result_rows", "stop_rows", "bottle_rows",
-    "handoff_rows", "plot_points", "trip_report", "criterion_mg_l", "fmt_number", "typed",
+    "Rounding",
+    "ResultRow",
+    "StopRow",
+    "BottleRow",
+    "HandoffRow",
+    "PlotPoint",
+    "TripReport",
+    "WADING_CAUTION",
+    "DECIDES",
+    "rounding_for",
+    "result_rows",
+    "stop_rows",
+    "bottle_rows",
+    "handoff_rows",
+    "plot_points",
+    "trip_report",
+    "criterion_mg_l",
+    "fmt_number",
+    "typed",
 ]
 
 #: The one wading caution, shown by the app and printed in every report.
-WADING_CAUTION = ("Wading: enter the water only where your program's SOP allows — never alone, "
-                  "never in fast or rising water, wearing a PFD where required.")
+WADING_CAUTION = (
+    "Wading: enter the water only where your program's SOP allows — never alone, "
+    "never in fast or rising water, wearing a PFD where required."
+)
 #: The line every printed report carries.
-DECIDES = ("This report informs; it does not judge water safe or unsafe for aquatic life. The program's SOP,"
-           " its QA plan and local regulations decide how these values are used and reported.")
+DECIDES = (
+    "This report informs; it does not judge water safe or unsafe for aquatic life. The program's SOP,"
+    " its QA plan and local regulations decide how these values are used and reported."
+)
 
 
 @dataclass(frozen=True)
@@ -58,8 +79,11 @@ class Rounding:
 def rounding_for(settings: ProgramSettings | None) -> Rounding:
     """The program's reporting decimals (ProgramSettings.reporting_decimals), else the defaults."""
     given = dict(settings.reporting_decimals) if settings is not None else {}
-    known = {k: int(v) for k, v in given.items()
-             if k in Rounding.__dataclass_fields__ and isinstance(v, int) and not isinstance(v, bool) and 0 <= v <= 6}
+    known = {
+        k: int(v)
+        for k, v in given.items()
+        if k in Rounding.__dataclass_fields__ and isinstance(v, int) and not isinstance(v, bool) and 0 <= v <= 6
+    }
     return Rounding(**known)
 
 
@@ -107,11 +131,11 @@ class ResultRow:
     result_id: str
     analyte: str
     value: float | None
-    qualifier: str            # "<", ">" or ""
-    reported: str             # "< 2.0 mg/L", "9.4 mg/L", "no value"
+    qualifier: str  # "<", ">" or ""
+    reported: str  # "< 2.0 mg/L", "9.4 mg/L", "no value"
     unit: str
     status: str
-    holding: str              # "in time", "past holding time", "not known"
+    holding: str  # "in time", "past holding time", "not known"
     analyst: str
     analysed_at: datetime | None
     method: str
@@ -120,22 +144,41 @@ class ResultRow:
     notes: str = ""
 
     def to_dict(self) -> dict[str, Any]:
-        return {"stop_id": self.stop_id, "site_id": self.site_id, "bottle_id": self.bottle_id, "label": self.label,
-                "kind": self.kind, "result_id": self.result_id, "analyte": self.analyte, "value": self.value,
-                "qualifier": self.qualifier, "reported": self.reported, "unit": self.unit, "status": self.status,
-                "holding": self.holding, "analyst": self.analyst,
-                "analysed_at": self.analysed_at.isoformat() if self.analysed_at else None, "method": self.method,
-                "superseded_by": self.superseded_by, "flags": list(self.flag_codes), "notes": self.notes}
+        return {
+            "stop_id": self.stop_id,
+            "site_id": self.site_id,
+            "bottle_id": self.bottle_id,
+            "label": self.label,
+            "kind": self.kind,
+            "result_id": self.result_id,
+            "analyte": self.analyte,
+            "value": self.value,
+            "qualifier": self.qualifier,
+            "reported": self.reported,
+            "unit": self.unit,
+            "status": self.status,
+            "holding": self.holding,
+            "analyst": self.analyst,
+            "analysed_at": self.analysed_at.isoformat() if self.analysed_at else None,
+            "method": self.method,
+            "superseded_by": self.superseded_by,
+            "flags": list(self.flag_codes),
+            "notes": self.notes,
+        }
 
 
-def _holding(bottle: Bottle, result: LabResult, settings: ProgramSettings | None,
-             stop_bottles: Iterable[Bottle] = ()) -> str:
+def _holding(
+    bottle: Bottle, result: LabResult, settings: ProgramSettings | None, stop_bottles: Iterable[Bottle] = ()
+) -> str:
     from core.rules.lab import analyte_key, bottle_analysis, bottle_holding_clock
 
     derived = (result.inputs or {}).get("derived") or {}
     hold = derived.get("holding")
-    if isinstance(hold, dict) and isinstance(hold.get("held_h"), (int, float)) \
-            and isinstance(hold.get("limit_h"), (int, float)):
+    if (
+        isinstance(hold, dict)
+        and isinstance(hold.get("held_h"), (int, float))
+        and isinstance(hold.get("limit_h"), (int, float))
+    ):
         return "past holding time" if hold["held_h"] > hold["limit_h"] else "in time"
     pair = bottle_analysis(bottle, stop_bottles)
     if pair is None or result.analysed_at is None or analyte_key(result.analyte) != analyte_key(pair[0]):
@@ -143,8 +186,12 @@ def _holding(bottle: Bottle, result: LabResult, settings: ProgramSettings | None
     if pair[1] == "bod":
         return "not known"  # the set-up time decides, and it was not recorded with this result
     try:
-        clock = bottle_holding_clock(bottle, result.analysed_at, stop_bottles=stop_bottles,
-                                     overrides=settings.holding_overrides_h if settings else None)
+        clock = bottle_holding_clock(
+            bottle,
+            result.analysed_at,
+            stop_bottles=stop_bottles,
+            overrides=settings.holding_overrides_h if settings else None,
+        )
     except ValueError:
         return "not known"
     return "not known" if clock is None else ("past holding time" if clock.expired else "in time")
@@ -154,13 +201,16 @@ def _reported(result: LabResult, rounding: Rounding) -> tuple[float | None, str,
     """(value, qualifier, text) of a result: the bench's own report when it carries one."""
     from core.rules.lab import reported_bod
 
-    bod = reported_bod(result)   # BOD5/CBOD5 by the 5210 B reporting rules (inputs.derived.report)
+    bod = reported_bod(result)  # BOD5/CBOD5 by the 5210 B reporting rules (inputs.derived.report)
     rep = bod.to_dict() if bod is not None else (result.inputs or {}).get("report")
     if isinstance(rep, dict) and isinstance(rep.get("text"), str) and rep["text"]:
         q = rep.get("qualifier") or ""
         v = rep.get("value")
-        return (float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) else result.value,
-                q if q in ("<", ">") else "", rep["text"])
+        return (
+            float(v) if isinstance(v, (int, float)) and not isinstance(v, bool) else result.value,
+            q if q in ("<", ">") else "",
+            rep["text"],
+        )
     if result.value is None:
         return None, "", "no value"
     from core.rules.lab import BOD_ANALYTE, analyte_key
@@ -191,9 +241,29 @@ def result_rows(trip: Trip, settings: ProgramSettings | None = None) -> list[Res
                 holding = _holding(b, r, settings, stop.bottles)
                 value, qualifier, text = _reported(r, rounding)
                 flags = [f.code for f in r.flags]
-                rows.append(ResultRow(stop.id, stop.site_id, b.id, b.label, b.kind, r.id, r.analyte, value,
-                                      qualifier, text, r.unit, _status(r, holding), holding, r.analyst,
-                                      r.analysed_at, r.method, r.superseded_by, flags, r.notes))
+                rows.append(
+                    ResultRow(
+                        stop.id,
+                        stop.site_id,
+                        b.id,
+                        b.label,
+                        b.kind,
+                        r.id,
+                        r.analyte,
+                        value,
+                        qualifier,
+                        text,
+                        r.unit,
+                        _status(r, holding),
+                        holding,
+                        r.analyst,
+                        r.analysed_at,
+                        r.method,
+                        r.superseded_by,
+                        flags,
+                        r.notes,
+                    )
+                )
     return rows
 
 
@@ -225,6 +295,7 @@ def typed(q, decimals: int = 1) -> str:
         return "—"
     text = q.text.strip()
     entered = q.entered_unit.strip()
+
     def key(u: str) -> str:
         return u.replace("°", "").replace("µ", "u").lower()
 
@@ -245,8 +316,11 @@ def stop_rows(trip: Trip, sites: dict[str, Site], settings: ProgramSettings, now
     for s in sorted(trip.stops, key=lambda s: s.arrived_at):
         d = s.derived
         site = sites.get(s.site_id)
-        do_mg = d.do_mg_l if d is not None and d.do_mg_l is not None else (
-            s.do.value if s.do is not None and s.do.unit == "mg/L" else None)
+        do_mg = (
+            d.do_mg_l
+            if d is not None and d.do_mg_l is not None
+            else (s.do.value if s.do is not None and s.do.unit == "mg/L" else None)
+        )
         shown = {
             "temp": "—" if s.temp is None else f"{s.temp.value:.{rounding.temp_c}f} °C",
             "pressure": "—" if s.pressure is None else f"{s.pressure.value:.{rounding.pressure_hpa}f} hPa",
@@ -255,11 +329,23 @@ def stop_rows(trip: Trip, sites: dict[str, Site], settings: ProgramSettings, now
             "percent_saturation": fmt_number(d.percent_saturation if d else None, rounding.percent),
             "sc25": _sig(d.specific_conductance_us_cm if d else None, rounding.conductivity_sig),
         }
-        out.append(StopRow(s, site.name if site else "(site not in the site list)",
-                           typed(s.temp, rounding.temp_c), typed(s.pressure, rounding.pressure_hpa),
-                           typed(s.conductivity, 0), typed(s.do, rounding.do_mg_l), do_mg, d.do_sat_mg_l if d else None,
-                           d.percent_saturation if d else None, d.specific_conductance_us_cm if d else None,
-                           criterion_mg_l(site, settings), shown, flags.get(s.id, [])))
+        out.append(
+            StopRow(
+                s,
+                site.name if site else "(site not in the site list)",
+                typed(s.temp, rounding.temp_c),
+                typed(s.pressure, rounding.pressure_hpa),
+                typed(s.conductivity, 0),
+                typed(s.do, rounding.do_mg_l),
+                do_mg,
+                d.do_sat_mg_l if d else None,
+                d.percent_saturation if d else None,
+                d.specific_conductance_us_cm if d else None,
+                criterion_mg_l(site, settings),
+                shown,
+                flags.get(s.id, []),
+            )
+        )
     return out
 
 
@@ -287,8 +373,12 @@ def bottle_rows(trip: Trip, settings: ProgramSettings | None = None) -> list[Bot
         deadline, rule = None, "no holding time (blank)"
         if pair is not None:
             try:
-                clock = bottle_holding_clock(b, b.collected_at, stop_bottles=chain.stop.bottles,
-                                             overrides=settings.holding_overrides_h if settings else None)
+                clock = bottle_holding_clock(
+                    b,
+                    b.collected_at,
+                    stop_bottles=chain.stop.bottles,
+                    overrides=settings.holding_overrides_h if settings else None,
+                )
             except ValueError:
                 rule = f"{HOLDING_TIMES[pair[1]].hours:g} h"
             else:
@@ -310,9 +400,14 @@ class HandoffRow:
 
 def handoff_rows(trip: Trip) -> list[HandoffRow]:
     labels = {b.id: b.label for s in trip.stops for b in s.bottles}
-    return [HandoffRow(r, [labels.get(i, f"(unknown bottle {i[:8]})") for i in r.bottle_ids],
-                       "—" if r.temp is None else f"{r.temp.value:.1f} °C")
-            for r in sorted(trip.custody, key=lambda r: r.at)]
+    return [
+        HandoffRow(
+            r,
+            [labels.get(i, f"(unknown bottle {i[:8]})") for i in r.bottle_ids],
+            "—" if r.temp is None else f"{r.temp.value:.1f} °C",
+        )
+        for r in sorted(trip.custody, key=lambda r: r.at)
+    ]
 
 
 @dataclass(frozen=True)
@@ -333,12 +428,27 @@ def plot_points(trip: Trip, sites: dict[str, Site], settings: ProgramSettings) -
     out = []
     for s in sorted(trip.stops, key=lambda s: s.arrived_at):
         d = s.derived
-        do_mg = d.do_mg_l if d is not None and d.do_mg_l is not None else (
-            s.do.value if s.do is not None and s.do.unit == "mg/L" else None)
-        wink = [r.value for b in s.bottles for r in [current_result(b, WINKLER_ANALYTE)]
-                if r is not None and r.value is not None and r.valid is not False]
-        out.append(PlotPoint(s.site_id, s.arrived_at, do_mg, d.do_sat_mg_l if d else None,
-                             criterion_mg_l(sites.get(s.site_id), settings), wink))
+        do_mg = (
+            d.do_mg_l
+            if d is not None and d.do_mg_l is not None
+            else (s.do.value if s.do is not None and s.do.unit == "mg/L" else None)
+        )
+        wink = [
+            r.value
+            for b in s.bottles
+            for r in [current_result(b, WINKLER_ANALYTE)]
+            if r is not None and r.value is not None and r.valid is not False
+        ]
+        out.append(
+            PlotPoint(
+                s.site_id,
+                s.arrived_at,
+                do_mg,
+                d.do_sat_mg_l if d else None,
+                criterion_mg_l(sites.get(s.site_id), settings),
+                wink,
+            )
+        )
     return out
 
 
@@ -366,9 +476,17 @@ def trip_report(trip: Trip, sites: dict[str, Site], settings: ProgramSettings, n
     from core.science.winkler import SAFETY_NOTE
 
     cals = [("pre-trip calibration", trip.pre_calibration), ("post-trip check", trip.post_check)]
-    return TripReport(trip=trip, settings=settings, generated_at=now, rounding=rounding_for(settings),
-                      calibrations=cals, trip_flags=trip_flags(trip, settings, now, sites=sites)[TRIP_KEY],
-                      stops=stop_rows(trip, sites, settings, now), results=result_rows(trip, settings),
-                      bottles=bottle_rows(trip, settings), handoffs=handoff_rows(trip),
-                      plot=plot_points(trip, sites, settings),
-                      cautions=[WADING_CAUTION, SAFETY_NOTE, DECIDES])
+    return TripReport(
+        trip=trip,
+        settings=settings,
+        generated_at=now,
+        rounding=rounding_for(settings),
+        calibrations=cals,
+        trip_flags=trip_flags(trip, settings, now, sites=sites)[TRIP_KEY],
+        stops=stop_rows(trip, sites, settings, now),
+        results=result_rows(trip, settings),
+        bottles=bottle_rows(trip, settings),
+        handoffs=handoff_rows(trip),
+        plot=plot_points(trip, sites, settings),
+        cautions=[WADING_CAUTION, SAFETY_NOTE, DECIDES],
+    )

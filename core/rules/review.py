@@ -16,22 +16,40 @@ who, when, a comment and, for a return, the reasons). Events are appended with t
 two offices' steps merge like any other list element (``sync.merge``); the latest step by time
 (then id) decides the state.
 """
+
 from __future__ import annotations
 
+from collections.abc import Iterable
 from datetime import datetime, timezone
 from typing import Any
-from collections.abc import Iterable
 
 from core.records.models import BOOKKEEPING, LOG, keys_by_role
 
-__all__ = ["STATES", "ACTIONS", "review_state", "latest_event", "open_reasons", "ReviewRefused", "describe",
-           "new_event", "check_change", "approved_version", "REVIEW_KEY", "with_correction"]
+__all__ = [
+    "STATES",
+    "ACTIONS",
+    "review_state",
+    "latest_event",
+    "open_reasons",
+    "ReviewRefused",
+    "describe",
+    "new_event",
+    "check_change",
+    "approved_version",
+    "REVIEW_KEY",
+    "with_correction",
+]
 
 #: Every state a trip can be in, in workflow order.
 STATES = ("in progress", "ended", "reviewed", "approved", "returned")
 #: Steps a person takes, and the state each leads to.
-ACTIONS = {"reviewed": "reviewed", "approved": "approved", "returned": "returned",
-           "corrected": "reviewed", "resubmitted": "ended"}
+ACTIONS = {
+    "reviewed": "reviewed",
+    "approved": "approved",
+    "returned": "returned",
+    "corrected": "reviewed",
+    "resubmitted": "ended",
+}
 #: The trip field holding the events.
 REVIEW_KEY = "review_events"
 #: From which states each step may be taken.
@@ -115,8 +133,16 @@ def _content(doc: dict) -> dict:
     return {k: v for k, v in doc.items() if k not in _FREE_KEYS}
 
 
-def new_event(trip: Any, action: str, *, by: str, at: datetime, comment: str = "",
-              reasons: Iterable[str] = (), approved: dict | None = None) -> dict[str, Any]:
+def new_event(
+    trip: Any,
+    action: str,
+    *,
+    by: str,
+    at: datetime,
+    comment: str = "",
+    reasons: Iterable[str] = (),
+    approved: dict | None = None,
+) -> dict[str, Any]:
     """The event for `action` on `trip`, checked against its state; raises ReviewRefused."""
     if action not in ACTIONS:
         raise ReviewRefused(f"review step {action!r} is unknown; accepted: {', '.join(ACTIONS)}.")
@@ -134,17 +160,30 @@ def new_event(trip: Any, action: str, *, by: str, at: datetime, comment: str = "
         raise ReviewRefused("--reason is empty; a correction of an approved trip needs a reason.")
     state = review_state(trip)
     if state not in _ALLOWED_FROM[action]:
-        hint = {"in progress": "the crew has not ended it yet",
-                "approved": "an approved trip changes only through 'streamtab trip correct' with a reason",
-                "returned": "it is with the crew until they resubmit it"}.get(state, "")
-        verb = {"reviewed": "mark as reviewed", "approved": "approve", "returned": "return",
-                "resubmitted": "resubmit", "corrected": "correct"}[action]
+        hint = {
+            "in progress": "the crew has not ended it yet",
+            "approved": "an approved trip changes only through 'streamtab trip correct' with a reason",
+            "returned": "it is with the crew until they resubmit it",
+        }.get(state, "")
+        verb = {
+            "reviewed": "mark as reviewed",
+            "approved": "approve",
+            "returned": "return",
+            "resubmitted": "resubmit",
+            "corrected": "correct",
+        }[action]
         raise ReviewRefused(f"cannot {verb} a trip that is {state}" + (f" ({hint})." if hint else "."))
     import uuid
 
-    event: dict[str, Any] = {"id": str(uuid.uuid4()), "action": action, "at": at.isoformat(),
-                             "by": by, "comment": comment.strip()[:2000], "reasons": reasons,
-                             "revision": _get(trip, "revision")}
+    event: dict[str, Any] = {
+        "id": str(uuid.uuid4()),
+        "action": action,
+        "at": at.isoformat(),
+        "by": by,
+        "comment": comment.strip()[:2000],
+        "reasons": reasons,
+        "revision": _get(trip, "revision"),
+    }
     if approved is not None:
         event["approved"] = approved
     return event
@@ -182,5 +221,7 @@ def check_change(old: dict | None, new: dict) -> None:
     old_ids = {str(_get(e, "id")) for e in _events(old)}
     if any(_get(e, "action") == "corrected" and str(_get(e, "id")) not in old_ids for e in _events(new)):
         return
-    raise ReviewRefused(f"trip {old.get('id')} is approved; change it with 'streamtab trip correct' and a "
-                        "reason, which sends it back for review and keeps the approved version readable.")
+    raise ReviewRefused(
+        f"trip {old.get('id')} is approved; change it with 'streamtab trip correct' and a "
+        "reason, which sends it back for review and keeps the approved version readable."
+    )

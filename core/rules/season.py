@@ -6,12 +6,13 @@ times are ISO 8601 with their offset; a missing value is an empty cell. The writ
 (`mobile.paper.season`) pass every cell through the one CSV cell guard,
 :func:`core.records.exchange.spreadsheet_safe`.
 """
+
 from __future__ import annotations
 
+from collections.abc import Iterable
 from dataclasses import dataclass
 from datetime import date, datetime
 from typing import Any
-from collections.abc import Iterable
 
 from core.records.models import ProgramSettings, Site, Stop, Trip
 
@@ -20,26 +21,107 @@ __all__ = ["SeasonFilter", "TABLES", "season_tables", "site_series", "trip_in_se
 #: Table name → columns, in the order they are written.
 TABLES: dict[str, tuple[str, ...]] = {
     "stops": (
-        "trip_id", "program", "crew", "review_state", "stop_id", "site_id", "site_name", "arrived_at", "closed_at",
-        "water_temp_c", "water_temp_as_typed", "station_pressure_hpa", "station_pressure_as_typed",
-        "conductivity_us_cm", "conductivity_is_sc25", "conductivity_as_typed",
-        "meter_do_mg_l", "meter_do_percent", "meter_do_as_typed",
-        "do_sat_mg_l", "do_mg_l", "percent_saturation", "salinity_pss78", "salinity_source",
-        "specific_conductance_us_cm", "criterion_mg_l", "method", "core_version", "flag_codes",
-        "weather", "flow", "notes"),
+        "trip_id",
+        "program",
+        "crew",
+        "review_state",
+        "stop_id",
+        "site_id",
+        "site_name",
+        "arrived_at",
+        "closed_at",
+        "water_temp_c",
+        "water_temp_as_typed",
+        "station_pressure_hpa",
+        "station_pressure_as_typed",
+        "conductivity_us_cm",
+        "conductivity_is_sc25",
+        "conductivity_as_typed",
+        "meter_do_mg_l",
+        "meter_do_percent",
+        "meter_do_as_typed",
+        "do_sat_mg_l",
+        "do_mg_l",
+        "percent_saturation",
+        "salinity_pss78",
+        "salinity_source",
+        "specific_conductance_us_cm",
+        "criterion_mg_l",
+        "method",
+        "core_version",
+        "flag_codes",
+        "weather",
+        "flow",
+        "notes",
+    ),
     "bottles": (
-        "trip_id", "stop_id", "site_id", "bottle_id", "label", "kind", "collected_at", "fixed_at",
-        "preservation", "holding_hours", "holding_deadline", "custody_status", "custody_flag_codes", "notes"),
+        "trip_id",
+        "stop_id",
+        "site_id",
+        "bottle_id",
+        "label",
+        "kind",
+        "collected_at",
+        "fixed_at",
+        "preservation",
+        "holding_hours",
+        "holding_deadline",
+        "custody_status",
+        "custody_flag_codes",
+        "notes",
+    ),
     "results": (
-        "trip_id", "site_id", "stop_id", "bottle_id", "label", "result_id", "analyte", "value", "qualifier",
-        "unit", "reported", "status", "holding_status", "analyst", "analysed_at", "method", "superseded_by",
-        "flag_codes"),
+        "trip_id",
+        "site_id",
+        "stop_id",
+        "bottle_id",
+        "label",
+        "result_id",
+        "analyte",
+        "value",
+        "qualifier",
+        "unit",
+        "reported",
+        "status",
+        "holding_status",
+        "analyst",
+        "analysed_at",
+        "method",
+        "superseded_by",
+        "flag_codes",
+    ),
     "calibrations": (
-        "trip_id", "calibration_id", "kind", "at", "temp_c", "temp_as_typed", "pressure_hpa", "pressure_as_typed",
-        "reading_mg_l", "target_mg_l", "difference_mg_l", "tolerance_mg_l", "accepted", "method", "flag_codes"),
+        "trip_id",
+        "calibration_id",
+        "kind",
+        "at",
+        "temp_c",
+        "temp_as_typed",
+        "pressure_hpa",
+        "pressure_as_typed",
+        "reading_mg_l",
+        "target_mg_l",
+        "difference_mg_l",
+        "tolerance_mg_l",
+        "accepted",
+        "method",
+        "flag_codes",
+    ),
     "custody": (
-        "trip_id", "handoff_id", "at", "relinquished_by", "received_by", "at_lab", "bottle_labels",
-        "temp_on_receipt_c", "temp_as_typed", "condition", "relinquished_signed", "received_signed", "notes"),
+        "trip_id",
+        "handoff_id",
+        "at",
+        "relinquished_by",
+        "received_by",
+        "at_lab",
+        "bottle_labels",
+        "temp_on_receipt_c",
+        "temp_as_typed",
+        "condition",
+        "relinquished_signed",
+        "received_signed",
+        "notes",
+    ),
 }
 
 
@@ -81,8 +163,9 @@ def _stops(trip: Trip, flt: SeasonFilter) -> list[Stop]:
     return [s for s in sorted(trip.stops, key=lambda s: s.arrived_at) if not keep or s.site_id.upper() in keep]
 
 
-def season_tables(trips: Iterable[Trip], sites: dict[str, Site], settings: ProgramSettings,
-                  flt: SeasonFilter | None = None) -> dict[str, list[dict[str, Any]]]:
+def season_tables(
+    trips: Iterable[Trip], sites: dict[str, Site], settings: ProgramSettings, flt: SeasonFilter | None = None
+) -> dict[str, list[dict[str, Any]]]:
     """The five tables (:data:`TABLES`) over `trips`, filtered by `flt`, rows in trip then route order."""
     from core.rules.report import bottle_rows, criterion_mg_l, result_rows
     from core.rules.review import review_state
@@ -99,72 +182,135 @@ def season_tables(trips: Iterable[Trip], sites: dict[str, Site], settings: Progr
         for s in stops:
             d = s.derived
             site = sites.get(s.site_id)
-            out["stops"].append({
-                "trip_id": trip.id, "program": trip.program, "crew": ";".join(trip.crew),
-                "review_state": review_state(trip), "stop_id": s.id,
-                "site_id": s.site_id, "site_name": site.name if site else "", "arrived_at": _t(s.arrived_at),
-                "closed_at": _t(s.closed_at),
-                "water_temp_c": s.temp.value if s.temp else None, "water_temp_as_typed": s.temp.text if s.temp else "",
-                "station_pressure_hpa": s.pressure.value if s.pressure else None,
-                "station_pressure_as_typed": s.pressure.text if s.pressure else "",
-                "conductivity_us_cm": s.conductivity.value if s.conductivity else None,
-                "conductivity_is_sc25": _yes(s.conductivity_is_sc25) if s.conductivity else "",
-                "conductivity_as_typed": s.conductivity.text if s.conductivity else "",
-                "meter_do_mg_l": s.do.value if s.do and s.do.unit == "mg/L" else None,
-                "meter_do_percent": s.do.value if s.do and s.do.unit == "%" else None,
-                "meter_do_as_typed": s.do.text if s.do else "",
-                "do_sat_mg_l": d.do_sat_mg_l if d else None, "do_mg_l": d.do_mg_l if d else None,
-                "percent_saturation": d.percent_saturation if d else None,
-                "salinity_pss78": d.salinity if d else None, "salinity_source": d.salinity_source if d else "",
-                "specific_conductance_us_cm": d.specific_conductance_us_cm if d else None,
-                "criterion_mg_l": criterion_mg_l(site, settings), "method": d.method if d else "",
-                "core_version": d.core_version if d else "",
-                "flag_codes": ";".join(f.code for f in d.flags) if d else "",
-                "weather": s.weather, "flow": s.flow, "notes": s.notes})
+            out["stops"].append(
+                {
+                    "trip_id": trip.id,
+                    "program": trip.program,
+                    "crew": ";".join(trip.crew),
+                    "review_state": review_state(trip),
+                    "stop_id": s.id,
+                    "site_id": s.site_id,
+                    "site_name": site.name if site else "",
+                    "arrived_at": _t(s.arrived_at),
+                    "closed_at": _t(s.closed_at),
+                    "water_temp_c": s.temp.value if s.temp else None,
+                    "water_temp_as_typed": s.temp.text if s.temp else "",
+                    "station_pressure_hpa": s.pressure.value if s.pressure else None,
+                    "station_pressure_as_typed": s.pressure.text if s.pressure else "",
+                    "conductivity_us_cm": s.conductivity.value if s.conductivity else None,
+                    "conductivity_is_sc25": _yes(s.conductivity_is_sc25) if s.conductivity else "",
+                    "conductivity_as_typed": s.conductivity.text if s.conductivity else "",
+                    "meter_do_mg_l": s.do.value if s.do and s.do.unit == "mg/L" else None,
+                    "meter_do_percent": s.do.value if s.do and s.do.unit == "%" else None,
+                    "meter_do_as_typed": s.do.text if s.do else "",
+                    "do_sat_mg_l": d.do_sat_mg_l if d else None,
+                    "do_mg_l": d.do_mg_l if d else None,
+                    "percent_saturation": d.percent_saturation if d else None,
+                    "salinity_pss78": d.salinity if d else None,
+                    "salinity_source": d.salinity_source if d else "",
+                    "specific_conductance_us_cm": d.specific_conductance_us_cm if d else None,
+                    "criterion_mg_l": criterion_mg_l(site, settings),
+                    "method": d.method if d else "",
+                    "core_version": d.core_version if d else "",
+                    "flag_codes": ";".join(f.code for f in d.flags) if d else "",
+                    "weather": s.weather,
+                    "flow": s.flow,
+                    "notes": s.notes,
+                }
+            )
         for b in bottle_rows(trip, settings):
             if b.stop.id not in stop_ids:
                 continue
             hours = b.holding_rule.split(" ", 1)[0] if b.deadline else ""
-            out["bottles"].append({
-                "trip_id": trip.id, "stop_id": b.stop.id, "site_id": b.stop.site_id, "bottle_id": b.bottle.id,
-                "label": b.bottle.label, "kind": b.bottle.kind, "collected_at": _t(b.bottle.collected_at),
-                "fixed_at": _t(b.bottle.fixed_at), "preservation": b.bottle.preservation,
-                "holding_hours": float(hours) if hours else None, "holding_deadline": _t(b.deadline),
-                "custody_status": b.custody_status,
-                "custody_flag_codes": ";".join(dict.fromkeys(f.code for f in b.custody_flags)),
-                "notes": b.bottle.notes})
+            out["bottles"].append(
+                {
+                    "trip_id": trip.id,
+                    "stop_id": b.stop.id,
+                    "site_id": b.stop.site_id,
+                    "bottle_id": b.bottle.id,
+                    "label": b.bottle.label,
+                    "kind": b.bottle.kind,
+                    "collected_at": _t(b.bottle.collected_at),
+                    "fixed_at": _t(b.bottle.fixed_at),
+                    "preservation": b.bottle.preservation,
+                    "holding_hours": float(hours) if hours else None,
+                    "holding_deadline": _t(b.deadline),
+                    "custody_status": b.custody_status,
+                    "custody_flag_codes": ";".join(dict.fromkeys(f.code for f in b.custody_flags)),
+                    "notes": b.bottle.notes,
+                }
+            )
         for r in result_rows(trip, settings):
             if r.stop_id not in stop_ids:
                 continue
-            out["results"].append({
-                "trip_id": trip.id, "site_id": r.site_id, "stop_id": r.stop_id, "bottle_id": r.bottle_id,
-                "label": r.label, "result_id": r.result_id, "analyte": r.analyte, "value": r.value,
-                "qualifier": r.qualifier, "unit": r.unit, "reported": r.reported, "status": r.status,
-                "holding_status": r.holding, "analyst": r.analyst, "analysed_at": _t(r.analysed_at),
-                "method": r.method, "superseded_by": r.superseded_by or "", "flag_codes": ";".join(r.flag_codes)})
+            out["results"].append(
+                {
+                    "trip_id": trip.id,
+                    "site_id": r.site_id,
+                    "stop_id": r.stop_id,
+                    "bottle_id": r.bottle_id,
+                    "label": r.label,
+                    "result_id": r.result_id,
+                    "analyte": r.analyte,
+                    "value": r.value,
+                    "qualifier": r.qualifier,
+                    "unit": r.unit,
+                    "reported": r.reported,
+                    "status": r.status,
+                    "holding_status": r.holding,
+                    "analyst": r.analyst,
+                    "analysed_at": _t(r.analysed_at),
+                    "method": r.method,
+                    "superseded_by": r.superseded_by or "",
+                    "flag_codes": ";".join(r.flag_codes),
+                }
+            )
         for cal in (trip.pre_calibration, trip.post_check):
             if cal is None:
                 continue
-            out["calibrations"].append({
-                "trip_id": trip.id, "calibration_id": cal.id, "kind": cal.kind, "at": _t(cal.at),
-                "temp_c": cal.temp.value, "temp_as_typed": cal.temp.text, "pressure_hpa": cal.pressure.value,
-                "pressure_as_typed": cal.pressure.text, "reading_mg_l": cal.reading_mg_l,
-                "target_mg_l": cal.target_mg_l, "difference_mg_l": cal.difference_mg_l,
-                "tolerance_mg_l": cal.tolerance_mg_l if cal.tolerance_mg_l is not None
-                else settings.calibration_tolerance_mg_l,
-                "accepted": _yes(cal.accepted), "method": cal.method or "",
-                "flag_codes": ";".join(f.code for f in cal.flags)})
+            out["calibrations"].append(
+                {
+                    "trip_id": trip.id,
+                    "calibration_id": cal.id,
+                    "kind": cal.kind,
+                    "at": _t(cal.at),
+                    "temp_c": cal.temp.value,
+                    "temp_as_typed": cal.temp.text,
+                    "pressure_hpa": cal.pressure.value,
+                    "pressure_as_typed": cal.pressure.text,
+                    "reading_mg_l": cal.reading_mg_l,
+                    "target_mg_l": cal.target_mg_l,
+                    "difference_mg_l": cal.difference_mg_l,
+                    "tolerance_mg_l": cal.tolerance_mg_l
+                    if cal.tolerance_mg_l is not None
+                    else settings.calibration_tolerance_mg_l,
+                    "accepted": _yes(cal.accepted),
+                    "method": cal.method or "",
+                    "flag_codes": ";".join(f.code for f in cal.flags),
+                }
+            )
         labels = {b.id: b.label for s in stops for b in s.bottles}
         for h in sorted(trip.custody, key=lambda h: h.at):
             covered = [labels[i] for i in h.bottle_ids if i in labels]
             if not covered:
                 continue
-            out["custody"].append({
-                "trip_id": trip.id, "handoff_id": h.id, "at": _t(h.at), "relinquished_by": h.relinquished_by,
-                "received_by": h.received_by, "at_lab": _yes(h.at_lab), "bottle_labels": ";".join(covered),
-                "temp_on_receipt_c": h.temp.value if h.temp else None, "temp_as_typed": h.temp.text if h.temp else "",
-                "condition": h.condition, "relinquished_signed": _yes(h.relinquished_signature is not None),
-                "received_signed": _yes(h.received_signature is not None), "notes": h.notes})
+            out["custody"].append(
+                {
+                    "trip_id": trip.id,
+                    "handoff_id": h.id,
+                    "at": _t(h.at),
+                    "relinquished_by": h.relinquished_by,
+                    "received_by": h.received_by,
+                    "at_lab": _yes(h.at_lab),
+                    "bottle_labels": ";".join(covered),
+                    "temp_on_receipt_c": h.temp.value if h.temp else None,
+                    "temp_as_typed": h.temp.text if h.temp else "",
+                    "condition": h.condition,
+                    "relinquished_signed": _yes(h.relinquished_signature is not None),
+                    "received_signed": _yes(h.received_signature is not None),
+                    "notes": h.notes,
+                }
+            )
     return out
 
 
@@ -181,11 +327,25 @@ def site_series(trips: Iterable[Trip], site_id: str, flt: SeasonFilter | None = 
             if s.site_id.upper() != site_id.upper():
                 continue
             d = s.derived
-            do_mg = d.do_mg_l if d is not None and d.do_mg_l is not None else (
-                s.do.value if s.do is not None and s.do.unit == "mg/L" else None)
-            wink = [r.value for b in s.bottles for r in [current_result(b, WINKLER_ANALYTE)]
-                    if r is not None and r.value is not None and r.valid is not False]
-            rows.append({"at": s.arrived_at, "trip_id": trip.id, "do_mg_l": do_mg,
-                         "percent_saturation": d.percent_saturation if d else None, "winkler_mg_l": wink})
+            do_mg = (
+                d.do_mg_l
+                if d is not None and d.do_mg_l is not None
+                else (s.do.value if s.do is not None and s.do.unit == "mg/L" else None)
+            )
+            wink = [
+                r.value
+                for b in s.bottles
+                for r in [current_result(b, WINKLER_ANALYTE)]
+                if r is not None and r.value is not None and r.valid is not False
+            ]
+            rows.append(
+                {
+                    "at": s.arrived_at,
+                    "trip_id": trip.id,
+                    "do_mg_l": do_mg,
+                    "percent_saturation": d.percent_saturation if d else None,
+                    "winkler_mg_l": wink,
+                }
+            )
     rows.sort(key=lambda r: r["at"])
     return rows

@@ -1,1 +1,2 @@
-"""The science: DO saturation, salinity, pressure, temperature, calibration, Winkler, BOD5, holding times, criteria (pure)."""
+"""The science (pure): DO saturation, salinity, pressure, temperature, calibration, Winkler, BOD5,
+holding times and criteria."""

@@ -1,17 +1,16 @@
 """The one thin input-check layer of the science: finite numbers in their domain, or a ValueError naming the input."""
+
 from __future__ import annotations
 
-import re
-
 import math
+import re
 
 import numpy as np
 
 __all__ = ["real", "choice", "is_plain_scalar", "range_text", "ambiguous_comma", "decimal"]
 
 
-def range_text(lo: float | None, hi: float | None, unit: str, lo_open: bool = False,
-               hi_open: bool = False) -> str:
+def range_text(lo: float | None, hi: float | None, unit: str, lo_open: bool = False, hi_open: bool = False) -> str:
     """Human wording of an accepted range, e.g. ``"0 to 1500 hPa"`` or ``"above 0 hPa"``."""
     u = f" {unit}" if unit else ""
     if lo is not None and hi is not None:
@@ -45,8 +44,17 @@ def is_plain_scalar(x: object) -> bool:
     return t is float or t is int
 
 
-def real(x, name: str, *, lo: float | None = None, hi: float | None = None,
-         lo_open: bool = False, hi_open: bool = False, unit: str = "", note: str = ""):
+def real(
+    x,
+    name: str,
+    *,
+    lo: float | None = None,
+    hi: float | None = None,
+    lo_open: bool = False,
+    hi_open: bool = False,
+    unit: str = "",
+    note: str = "",
+):
     """Checks a float or array of floats and returns it as ``float`` or a float64 ``ndarray``.
 
     Parameters
@@ -83,8 +91,7 @@ def real(x, name: str, *, lo: float | None = None, hi: float | None = None,
     if isinstance(x, (bool, np.bool_)):
         raise _bad(name, repr(x), "is a true/false value, not a number", accepted)
     if isinstance(x, (str, bytes)):
-        raise _bad(name, repr(x), "is text, not a number",
-                   accepted)
+        raise _bad(name, repr(x), "is text, not a number", accepted)
     if x is None:
         raise _bad(name, "None", "is missing", accepted)
     if isinstance(x, (float, int, np.floating, np.integer)):
@@ -142,7 +149,9 @@ def decimal(number_text: str, what: str) -> float:
     """A number typed with a decimal point or a decimal comma; an ambiguous "1,234" is refused."""
     if ambiguous_comma(number_text):
         t = number_text.strip()
-        raise ValueError(f"{what} {t!r} is ambiguous: is it {t.replace(',', '.')} or {t.replace(',', '')}?"
-                         " accepted: a decimal point (or a comma followed by other than three digits),"
-                         " no thousands separators")
+        raise ValueError(
+            f"{what} {t!r} is ambiguous: is it {t.replace(',', '.')} or {t.replace(',', '')}?"
+            " accepted: a decimal point (or a comma followed by other than three digits),"
+            " no thousands separators"
+        )
     return float(number_text.strip().replace(",", "."))

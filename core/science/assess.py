@@ -1,14 +1,15 @@
 """One streamside reading assessed: saturation target, % saturation, salinity from conductivity, and all flags."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass, field
 
 import core
+from core.flags import Flag, Severity
 from core.science import conductivity as cond
 from core.science import oxygen
 from core.science._validate import choice, real
 from core.science.criteria import Criteria, do_criteria_flags
-from core.flags import Flag, Severity
 from core.science.pressure import station_pressure_flags
 from core.science.temperature import fahrenheit_hint
 
@@ -55,10 +56,23 @@ class Assessment:
         }
 
 
-def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=None, conductivity_is_sc25=False,
-                   do_mg_l=None, do_percent=None, method="benson-krause", elevation_m=None,
-                   water_class=None, criteria=None, percent_basis="local", compensation="linear",
-                   alpha=cond.KCL_ALPHA_PER_C) -> Assessment:
+def assess_reading(
+    temp_c,
+    pressure_hpa,
+    *,
+    salinity=None,
+    conductivity_us_cm=None,
+    conductivity_is_sc25=False,
+    do_mg_l=None,
+    do_percent=None,
+    method="benson-krause",
+    elevation_m=None,
+    water_class=None,
+    criteria=None,
+    percent_basis="local",
+    compensation="linear",
+    alpha=cond.KCL_ALPHA_PER_C,
+) -> Assessment:
     """Assesses one reading: the saturation target and everything a technician should look at.
 
     Parameters
@@ -114,8 +128,10 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
     if not isinstance(t, float) or not isinstance(p, float):
         raise ValueError("temp_c and pressure_hpa must be single numbers for assess_reading")
     if salinity is not None and conductivity_us_cm is not None:
-        raise ValueError("salinity and conductivity_us_cm were both given; accepted: one of them (salinity"
-                         " is derived from conductivity)")
+        raise ValueError(
+            "salinity and conductivity_us_cm were both given; accepted: one of them (salinity"
+            " is derived from conductivity)"
+        )
     if do_mg_l is not None and do_percent is not None:
         raise ValueError("do_mg_l and do_percent were both given; accepted: one DO reading, in mg/L or in %")
 
@@ -134,11 +150,13 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
             if method_sc == "iso7888" and not (0.0 <= t < 36.0):
                 method_sc = "linear"
                 comp_note = Flag(
-                    "conductivity.compensation_linear", Severity.NOTE,
+                    "conductivity.compensation_linear",
+                    Severity.NOTE,
                     f"The ISO 7888 table covers 0–35.9 °C; at {t:g} °C the specific conductance uses the linear"
                     f" law with α = {float(alpha):g} /°C instead.",
                     "Nothing to do; the program's compensation setting applies inside the table's range.",
-                    "conductivity")
+                    "conductivity",
+                )
             sc25 = cond.specific_conductance_us_cm(k, t, method_sc, alpha)
             s = cond.practical_salinity(k / 1000.0, t)
         source = "conductivity"
@@ -150,11 +168,16 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
     flags: list[Flag] = []
     if s < 0.0:
         # PSS-78 with Hill et al. dips just below zero for nearly pure water (< ~2–3 µS/cm); say so and use 0.
-        flags.append(Flag(
-            "salinity.below_formula_range", Severity.NOTE,
-            f"Conductivity {float(conductivity_us_cm):g} µS/cm is below what PSS-78 resolves (it gives"
-            f" {s:.5f}); salinity is taken as 0, which changes the saturation by less than 0.001 %.",
-            "Nothing to do unless the meter should read more: check the conductivity cell.", "salinity"))
+        flags.append(
+            Flag(
+                "salinity.below_formula_range",
+                Severity.NOTE,
+                f"Conductivity {float(conductivity_us_cm):g} µS/cm is below what PSS-78 resolves (it gives"
+                f" {s:.5f}); salinity is taken as 0, which changes the saturation by less than 0.001 %.",
+                "Nothing to do unless the meter should read more: check the conductivity cell.",
+                "salinity",
+            )
+        )
         s = 0.0
     if comp_note is not None:
         flags.append(comp_note)
@@ -176,19 +199,33 @@ def assess_reading(temp_c, pressure_hpa, *, salinity=None, conductivity_us_cm=No
         do = float(oxygen.meter_percent_to_mg_l(meter_pct, t, p, s, percent_basis, method))
         pct = float(oxygen.percent_saturation(do, sat)) if percent_basis != "local" else meter_pct
         if percent_basis != "local":
-            flags.append(Flag(
-                "do.percent_basis_sea_level", Severity.NOTE,
-                f"The meter's {meter_pct:g} % is against 760 mmHg: {do:.2f} mg/L, which is {pct:.1f} % of"
-                f" saturation at this stop's {p:.1f} hPa.",
-                "Nothing to do if the meter is set to a 760 mmHg basis; if it reports against local pressure,"
-                " change the meter's % basis in the trip or the program settings.", "do"))
+            flags.append(
+                Flag(
+                    "do.percent_basis_sea_level",
+                    Severity.NOTE,
+                    f"The meter's {meter_pct:g} % is against 760 mmHg: {do:.2f} mg/L, which is {pct:.1f} % of"
+                    f" saturation at this stop's {p:.1f} hPa.",
+                    "Nothing to do if the meter is set to a 760 mmHg basis; if it reports against local pressure,"
+                    " change the meter's % basis in the trip or the program settings.",
+                    "do",
+                )
+            )
     if do is not None:
         flags.extend(do_criteria_flags(do, pct, water_class, criteria if criteria is not None else Criteria()))
     elif water_class is not None or criteria is not None:
         do_criteria_flags(0.0, None, water_class, criteria)  # still validates the class and criteria
 
     return Assessment(
-        do_sat_mg_l=sat, percent_saturation=pct, do_mg_l=do, salinity=s, salinity_source=source,
-        specific_conductance_us_cm=None if sc25 is None else float(sc25), pressure_hpa=p, temp_c=t,
-        method=method, core_version=core.version(), flags=flags, percent_basis=percent_basis,
+        do_sat_mg_l=sat,
+        percent_saturation=pct,
+        do_mg_l=do,
+        salinity=s,
+        salinity_source=source,
+        specific_conductance_us_cm=None if sc25 is None else float(sc25),
+        pressure_hpa=p,
+        temp_c=t,
+        method=method,
+        core_version=core.version(),
+        flags=flags,
+        percent_basis=percent_basis,
     )

@@ -1,19 +1,36 @@
 """BOD5 by the dilution method (Standard Methods 5210 B): dilutions, seed correction and the quality checks."""
+
 from __future__ import annotations
 
 import itertools
 from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 
-from core.science._validate import real
 from core.flags import Flag, Severity
+from core.science._validate import real
 
 __all__ = [
-    "MIN_DEPLETION_MG_L", "MIN_RESIDUAL_MG_L", "SEED_UPTAKE_RANGE_MG_L", "BLANK_MAX_DEPLETION_MG_L",
-    "GGA_RANGE_MG_L", "INCUBATION_HOURS", "INCUBATION_TOLERANCE_HOURS",
-    "BodDilution", "BodResult", "BodReport", "bod_dilution", "bod_from_dilutions", "bod_report",
-    "seed_uptake_per_ml", "blank_check", "gga_check", "incubation_check", "DILUTION_KEYS",
-    "AGREEMENT_SPREAD", "SATURATION_20C_MG_L", "BOD_ANALYTES",
+    "MIN_DEPLETION_MG_L",
+    "MIN_RESIDUAL_MG_L",
+    "SEED_UPTAKE_RANGE_MG_L",
+    "BLANK_MAX_DEPLETION_MG_L",
+    "GGA_RANGE_MG_L",
+    "INCUBATION_HOURS",
+    "INCUBATION_TOLERANCE_HOURS",
+    "BodDilution",
+    "BodResult",
+    "BodReport",
+    "bod_dilution",
+    "bod_from_dilutions",
+    "bod_report",
+    "seed_uptake_per_ml",
+    "blank_check",
+    "gga_check",
+    "incubation_check",
+    "DILUTION_KEYS",
+    "AGREEMENT_SPREAD",
+    "SATURATION_20C_MG_L",
+    "BOD_ANALYTES",
 ]
 
 # Standard Methods 5210 B acceptance rules [from memory unless marked].
@@ -53,9 +70,15 @@ class BodDilution:
     seed_correction_mg_l: float = 0.0
 
     def to_dict(self) -> dict:
-        return {"bod_mg_l": self.bod_mg_l, "depletion_mg_l": self.depletion_mg_l, "valid": self.valid,
-                "flags": [f.to_dict() for f in self.flags], "sample_ml": self.sample_ml,
-                "bottle_ml": self.bottle_ml, "seed_correction_mg_l": self.seed_correction_mg_l}
+        return {
+            "bod_mg_l": self.bod_mg_l,
+            "depletion_mg_l": self.depletion_mg_l,
+            "valid": self.valid,
+            "flags": [f.to_dict() for f in self.flags],
+            "sample_ml": self.sample_ml,
+            "bottle_ml": self.bottle_ml,
+            "seed_correction_mg_l": self.seed_correction_mg_l,
+        }
 
 
 @dataclass(frozen=True)
@@ -75,8 +98,13 @@ class BodReport:
     analyte: str = "BOD5"
 
     def to_dict(self) -> dict:
-        return {"value": self.value, "qualifier": self.qualifier, "text": self.text, "basis": self.basis,
-                "analyte": self.analyte}
+        return {
+            "value": self.value,
+            "qualifier": self.qualifier,
+            "text": self.text,
+            "basis": self.basis,
+            "analyte": self.analyte,
+        }
 
 
 @dataclass(frozen=True)
@@ -92,17 +120,23 @@ class BodResult:
     analyte: str = "BOD5"
 
     def to_dict(self) -> dict:
-        return {"bod_mg_l": self.bod_mg_l, "valid": self.valid, "analyte": self.analyte,
-                "report": None if self.report is None else self.report.to_dict(),
-                "dilutions": [d.to_dict() for d in self.dilutions], "flags": [f.to_dict() for f in self.flags]}
+        return {
+            "bod_mg_l": self.bod_mg_l,
+            "valid": self.valid,
+            "analyte": self.analyte,
+            "report": None if self.report is None else self.report.to_dict(),
+            "dilutions": [d.to_dict() for d in self.dilutions],
+            "flags": [f.to_dict() for f in self.flags],
+        }
 
 
 def _do(x, name):
     return real(x, name, lo=0.0, hi=70.0, unit="mg/L")
 
 
-def bod_dilution(initial_do_mg_l, final_do_mg_l, sample_ml, bottle_ml=300.0, seed_ml=0.0,
-                 seed_uptake_mg_l_per_ml=0.0) -> BodDilution:
+def bod_dilution(
+    initial_do_mg_l, final_do_mg_l, sample_ml, bottle_ml=300.0, seed_ml=0.0, seed_uptake_mg_l_per_ml=0.0
+) -> BodDilution:
     """BOD5 of one dilution, unseeded or seeded.
 
     Unseeded: BOD5 = (D1 − D2) / P; seeded: BOD5 = [(D1 − D2) − S·Vs] / P, with P = sample volume /
@@ -143,53 +177,88 @@ def bod_dilution(initial_do_mg_l, final_do_mg_l, sample_ml, bottle_ml=300.0, see
     if not all(isinstance(x, float) for x in (d1, d2, b, v, vs, s)):
         raise ValueError("bod_dilution takes single numbers; pass several dilutions to bod_from_dilutions")
     if v + vs > b:
-        raise ValueError(f"sample_ml = {v:g} (plus seed_ml = {vs:g}) is more than bottle_ml = {b:g};"
-                         " accepted: sample and seed volumes that fit in the bottle")
+        raise ValueError(
+            f"sample_ml = {v:g} (plus seed_ml = {vs:g}) is more than bottle_ml = {b:g};"
+            " accepted: sample and seed volumes that fit in the bottle"
+        )
     if vs > 0.0 and s == 0.0:
-        raise ValueError("seed_uptake_mg_l_per_ml is 0 while seed_ml is above 0; accepted: the seed uptake"
-                         " from the seed controls (mg/L per mL of seed), or seed_ml = 0 for an unseeded sample")
+        raise ValueError(
+            "seed_uptake_mg_l_per_ml is 0 while seed_ml is above 0; accepted: the seed uptake"
+            " from the seed controls (mg/L per mL of seed), or seed_ml = 0 for an unseeded sample"
+        )
     depletion = d1 - d2
     seed_corr = s * vs
     p = v / b
     bod = (depletion - seed_corr) / p  # Standard Methods 5210 B: [(D1 − D2) − S·Vs] / P
     flags: list[Flag] = []
     if d1 > SATURATION_20C_MG_L + _EPS:
-        flags.append(Flag(
-            "bod.initial_supersaturated", Severity.WARNING,
-            f"The {v:g} mL dilution started at {d1:.2f} mg/L, above saturation at 20 °C ({SATURATION_20C_MG_L:g}"
-            " mg/L at sea level): the extra oxygen leaves the bottle during incubation and counts as demand.",
-            "Bring supersaturated samples to 20 °C and shake or aerate them before setting up (Standard"
-            " Methods 5210 B).", "initial_do_mg_l"))
+        flags.append(
+            Flag(
+                "bod.initial_supersaturated",
+                Severity.WARNING,
+                f"The {v:g} mL dilution started at {d1:.2f} mg/L, above saturation at 20 °C ({SATURATION_20C_MG_L:g}"
+                " mg/L at sea level): the extra oxygen leaves the bottle during incubation and counts as demand.",
+                "Bring supersaturated samples to 20 °C and shake or aerate them before setting up (Standard"
+                " Methods 5210 B).",
+                "initial_do_mg_l",
+            )
+        )
     if d2 > d1 + _EPS:
-        flags.append(Flag(
-            "bod.final_above_initial", Severity.WARNING,
-            f"The {v:g} mL dilution ended with more oxygen ({d2:.2f} mg/L) than it started with ({d1:.2f} mg/L):"
-            " a bottle or reading mix-up, an air bubble, or algae growing in light.",
-            "Check the bench sheet for swapped readings and that the bottles were incubated dark and sealed.",
-            "final_do_mg_l"))
+        flags.append(
+            Flag(
+                "bod.final_above_initial",
+                Severity.WARNING,
+                f"The {v:g} mL dilution ended with more oxygen ({d2:.2f} mg/L) than it started with ({d1:.2f} mg/L):"
+                " a bottle or reading mix-up, an air bubble, or algae growing in light.",
+                "Check the bench sheet for swapped readings and that the bottles were incubated dark and sealed.",
+                "final_do_mg_l",
+            )
+        )
     if depletion < MIN_DEPLETION_MG_L - _EPS:
-        flags.append(Flag(
-            "bod.depletion_too_small", Severity.WARNING,
-            f"The {v:g} mL dilution used {depletion:.2f} mg/L of oxygen, less than {MIN_DEPLETION_MG_L:g} mg/L;"
-            " too little depletion to measure the BOD reliably.",
-            "Leave this dilution out of the average; use a larger sample volume next time.", "final_do_mg_l"))
+        flags.append(
+            Flag(
+                "bod.depletion_too_small",
+                Severity.WARNING,
+                f"The {v:g} mL dilution used {depletion:.2f} mg/L of oxygen, less than {MIN_DEPLETION_MG_L:g} mg/L;"
+                " too little depletion to measure the BOD reliably.",
+                "Leave this dilution out of the average; use a larger sample volume next time.",
+                "final_do_mg_l",
+            )
+        )
     if d2 < MIN_RESIDUAL_MG_L - _EPS:
-        flags.append(Flag(
-            "bod.residual_too_low", Severity.WARNING,
-            f"The {v:g} mL dilution ended with {d2:.2f} mg/L of oxygen, below {MIN_RESIDUAL_MG_L:g} mg/L;"
-            " oxygen may have run out before day 5, so the BOD is understated.",
-            "Leave this dilution out of the average; use a smaller sample volume next time.", "final_do_mg_l"))
+        flags.append(
+            Flag(
+                "bod.residual_too_low",
+                Severity.WARNING,
+                f"The {v:g} mL dilution ended with {d2:.2f} mg/L of oxygen, below {MIN_RESIDUAL_MG_L:g} mg/L;"
+                " oxygen may have run out before day 5, so the BOD is understated.",
+                "Leave this dilution out of the average; use a smaller sample volume next time.",
+                "final_do_mg_l",
+            )
+        )
     if vs > 0.0:
         lo, hi = SEED_UPTAKE_RANGE_MG_L
         if not (lo - _EPS <= seed_corr <= hi + _EPS):
-            flags.append(Flag(
-                "bod.seed_correction_out_of_range", Severity.WARNING,
-                f"The seed in the {v:g} mL dilution accounts for {seed_corr:.2f} mg/L of depletion; Standard"
-                f" Methods 5210 B asks for {lo:g}–{hi:g} mg/L per bottle.",
-                "Adjust the seed volume so that the seed correction falls in range.", "seed_ml"))
+            flags.append(
+                Flag(
+                    "bod.seed_correction_out_of_range",
+                    Severity.WARNING,
+                    f"The seed in the {v:g} mL dilution accounts for {seed_corr:.2f} mg/L of depletion; Standard"
+                    f" Methods 5210 B asks for {lo:g}–{hi:g} mg/L per bottle.",
+                    "Adjust the seed volume so that the seed correction falls in range.",
+                    "seed_ml",
+                )
+            )
     valid = depletion >= MIN_DEPLETION_MG_L - _EPS and d2 >= MIN_RESIDUAL_MG_L - _EPS
-    return BodDilution(bod_mg_l=bod, depletion_mg_l=depletion, valid=valid, flags=flags, sample_ml=v,
-                       bottle_ml=b, seed_correction_mg_l=seed_corr)
+    return BodDilution(
+        bod_mg_l=bod,
+        depletion_mg_l=depletion,
+        valid=valid,
+        flags=flags,
+        sample_ml=v,
+        bottle_ml=b,
+        seed_correction_mg_l=seed_corr,
+    )
 
 
 def _args(d: object, i: int, what: str, keys: tuple[str, ...], required: tuple[str, ...]) -> dict:
@@ -224,8 +293,9 @@ def bod_from_dilutions(dilutions: list[dict], *, nitrification_inhibitor: bool =
         in ``flags``, followed by the report's flags.
     """
     if not isinstance(dilutions, (list, tuple)) or not dilutions:
-        raise ValueError("dilutions is empty or not a list; accepted: a list of dilutions, each with"
-                         f" {', '.join(_REQUIRED)}")
+        raise ValueError(
+            f"dilutions is empty or not a list; accepted: a list of dilutions, each with {', '.join(_REQUIRED)}"
+        )
     if not isinstance(nitrification_inhibitor, bool):
         raise ValueError("nitrification_inhibitor must be true or false")
     results = []
@@ -240,8 +310,7 @@ def bod_from_dilutions(dilutions: list[dict], *, nitrification_inhibitor: bool =
     flags = [f for r in results for f in r.flags] + report_flags
     good = [r.bod_mg_l for r in results if r.valid]
     mean = sum(good) / len(good) if good else None
-    return BodResult(bod_mg_l=mean, valid=bool(good), dilutions=results, flags=flags, report=report,
-                     analyte=analyte)
+    return BodResult(bod_mg_l=mean, valid=bool(good), dilutions=results, flags=flags, report=report, analyte=analyte)
 
 
 def _mg(x: float) -> str:
@@ -282,28 +351,35 @@ def bod_report(dilutions: list[BodDilution], analyte: str = "BOD5") -> tuple[Bod
         if spread <= AGREEMENT_SPREAD + 1e-12:
             return BodReport(mean, None, _mg(mean), "mean", a), []
         listed = ", ".join(f"{v:.1f}" for v in values)
-        steps = [b - c for b, c in itertools.pairwise(values)]   # from the most dilute to the least
+        steps = [b - c for b, c in itertools.pairwise(values)]  # from the most dilute to the least
         most_dilute = valid[0]
         if all(x > 0 for x in steps) or all(x < 0 for x in steps):
             way = "rises" if steps[0] > 0 else "falls"
-            text = (f"not averaged: {a} {way} with dilution ({listed} mg/L from the most to the least dilute);"
-                    f" the most dilute valid bottle ({most_dilute.sample_ml:g} mL, {_mg(most_dilute.bod_mg_l)})"
-                    " is the least affected")
+            text = (
+                f"not averaged: {a} {way} with dilution ({listed} mg/L from the most to the least dilute);"
+                f" the most dilute valid bottle ({most_dilute.sample_ml:g} mL, {_mg(most_dilute.bod_mg_l)})"
+                " is the least affected"
+            )
             flag = Flag(
-                "bod.dilution_trend", Severity.STOP,
+                "bod.dilution_trend",
+                Severity.STOP,
                 f"The valid dilutions give {listed} mg/L, {way} steadily with dilution: a sign of a toxic"
                 " sample (BOD rising as the sample is diluted) or of a seed or dilution-water problem, so"
                 " they are not averaged.",
                 "Report only as the program's SOP allows (e.g. the most dilute bottle, qualified); check the"
-                " sample for toxicity and the seed, and rerun with other dilutions.", "dilutions")
+                " sample for toxicity and the seed, and rerun with other dilutions.",
+                "dilutions",
+            )
             return BodReport(None, None, text, "trend", a), [flag]
         text = f"not averaged: the valid dilutions disagree ({listed} mg/L)"
         flag = Flag(
-            "bod.dilutions_disagree", Severity.STOP,
+            "bod.dilutions_disagree",
+            Severity.STOP,
             f"The valid dilutions give {listed} mg/L, more than {AGREEMENT_SPREAD:.0%} apart and with no steady"
             " trend: an obvious anomaly, so they are not averaged.",
             "Check the bench sheet for a mistake in one bottle; report only as the program's SOP allows.",
-            "dilutions")
+            "dilutions",
+        )
         return BodReport(None, None, text, "disagree", a), [flag]
 
     by_fraction = sorted(dilutions, key=lambda d: d.sample_ml / d.bottle_ml)
@@ -313,21 +389,27 @@ def bod_report(dilutions: list[BodDilution], analyte: str = "BOD5") -> tuple[Bod
         bound = MIN_DEPLETION_MG_L / p
         text = f"< {_mg(bound)}"
         flag = Flag(
-            "bod.reported_below_bound", Severity.NOTE,
+            "bod.reported_below_bound",
+            Severity.NOTE,
             f"No dilution used {MIN_DEPLETION_MG_L:g} mg/L of oxygen; the {a} is reported as {text}, the"
             f" {MIN_DEPLETION_MG_L:g} mg/L depletion divided by the largest sample fraction ({largest.sample_ml:g}"
             f" of {largest.bottle_ml:g} mL).",
-            "Nothing to do for a clean stream; use a larger sample volume if a lower bound is needed.", "dilutions")
+            "Nothing to do for a clean stream; use a larger sample volume if a lower bound is needed.",
+            "dilutions",
+        )
         return BodReport(bound, "<", text, "below-bound", a), [flag]
     if all(_residual_low(d) for d in dilutions):
         smallest = by_fraction[0]
         bound = smallest.bod_mg_l
         text = f"> {_mg(bound)}"
         flag = Flag(
-            "bod.reported_above_bound", Severity.WARNING,
+            "bod.reported_above_bound",
+            Severity.WARNING,
             f"Every dilution ended below {MIN_RESIDUAL_MG_L:g} mg/L of oxygen; the {a} is reported as {text}, from"
             f" the smallest sample volume ({smallest.sample_ml:g} mL).",
-            "Report as a lower bound; use smaller sample volumes next time.", "dilutions")
+            "Report as a lower bound; use smaller sample volumes next time.",
+            "dilutions",
+        )
         return BodReport(bound, ">", text, "above-bound", a), [flag]
     lows = [d for d in dilutions if _residual_low(d)]
     smalls = [d for d in dilutions if d.depletion_mg_l < MIN_DEPLETION_MG_L - _EPS and not _residual_low(d)]
@@ -340,12 +422,14 @@ def bod_report(dilutions: list[BodDilution], analyte: str = "BOD5") -> tuple[Bod
             text = f"no valid dilution: {a} between {lower:.1f} and {_mg(upper)}"
             basis = "between"
     flag = Flag(
-        "bod.no_valid_dilution", Severity.STOP,
+        "bod.no_valid_dilution",
+        Severity.STOP,
         f"None of the {len(dilutions)} dilutions met both rules (depletion ≥ {MIN_DEPLETION_MG_L:g} mg/L and"
         f" residual ≥ {MIN_RESIDUAL_MG_L:g} mg/L), and neither the < nor the > rule applies, so no {a} can be"
         " reported from them.",
         "Report the sample as the program's SOP says for an invalid BOD and choose other dilutions next time.",
-        "dilutions")
+        "dilutions",
+    )
     return BodReport(None, None, text, basis, a), [flag]
 
 
@@ -387,8 +471,10 @@ def seed_uptake_per_ml(controls: list[dict]) -> float:
         if d1 - d2 >= MIN_DEPLETION_MG_L - _EPS and d2 >= MIN_RESIDUAL_MG_L - _EPS:
             uptakes.append((d1 - d2) / vs)
     if not uptakes:
-        raise ValueError(f"no seed control met depletion ≥ {MIN_DEPLETION_MG_L:g} mg/L and residual ≥"
-                         f" {MIN_RESIDUAL_MG_L:g} mg/L; accepted: at least one such control")
+        raise ValueError(
+            f"no seed control met depletion ≥ {MIN_DEPLETION_MG_L:g} mg/L and residual ≥"
+            f" {MIN_RESIDUAL_MG_L:g} mg/L; accepted: at least one such control"
+        )
     return sum(uptakes) / len(uptakes)
 
 
@@ -401,19 +487,23 @@ def blank_check(depletion_mg_l) -> Flag | None:
     d = real(depletion_mg_l, "depletion_mg_l", lo=-70.0, hi=70.0, unit="mg/L")
     if d < -_EPS:
         return Flag(
-            "bod.blank_negative", Severity.WARNING,
+            "bod.blank_negative",
+            Severity.WARNING,
             f"The dilution-water blank gained oxygen ({d:.2f} mg/L depletion): blank water cannot make oxygen,"
             " so a reading is wrong, the bottles were swapped, or air got into the blank.",
             "Check the blank's readings and the meter; qualify this batch as the program's SOP says.",
-            "depletion_mg_l")
+            "depletion_mg_l",
+        )
     if d <= BLANK_MAX_DEPLETION_MG_L + 1e-12:
         return None
     return Flag(
-        "bod.blank_depletion", Severity.WARNING,
+        "bod.blank_depletion",
+        Severity.WARNING,
         f"The dilution-water blank used {d:.2f} mg/L of oxygen, more than {BLANK_MAX_DEPLETION_MG_L:.2f} mg/L:"
         " the dilution water or bottles carry oxygen demand.",
         "Qualify this batch's results as the program's SOP says and clean or replace the dilution water.",
-        "depletion_mg_l")
+        "depletion_mg_l",
+    )
 
 
 def gga_check(bod_mg_l) -> Flag | None:
@@ -426,10 +516,12 @@ def gga_check(bod_mg_l) -> Flag | None:
     if lo <= b <= hi:
         return None
     return Flag(
-        "bod.gga_out_of_range", Severity.WARNING,
+        "bod.gga_out_of_range",
+        Severity.WARNING,
         f"The glucose–glutamic acid check gave {b:.1f} mg/L, outside {lo:g}–{hi:g} mg/L (198 ± 30.5).",
         "Check the seed, the dilution water and the technique; qualify this batch as the program's SOP says.",
-        "bod_mg_l")
+        "bod_mg_l",
+    )
 
 
 def incubation_check(started_at: datetime, ended_at: datetime) -> Flag | None:
@@ -455,15 +547,21 @@ def incubation_check(started_at: datetime, ended_at: datetime) -> Flag | None:
     try:
         span = ended_at - started_at
     except TypeError:
-        raise ValueError("started_at and ended_at mix a time zone with none; accepted: both with a time"
-                         " zone or both without") from None
+        raise ValueError(
+            "started_at and ended_at mix a time zone with none; accepted: both with a time zone or both without"
+        ) from None
     if span < timedelta(0):
-        raise ValueError(f"ended_at ({ended_at.isoformat()}) is before started_at ({started_at.isoformat()});"
-                         " accepted: an end after the start")
+        raise ValueError(
+            f"ended_at ({ended_at.isoformat()}) is before started_at ({started_at.isoformat()});"
+            " accepted: an end after the start"
+        )
     hours = span.total_seconds() / 3600.0
     if abs(hours - INCUBATION_HOURS) <= INCUBATION_TOLERANCE_HOURS:
         return None
     return Flag(
-        "bod.incubation_time", Severity.WARNING,
+        "bod.incubation_time",
+        Severity.WARNING,
         f"The bottles were incubated {hours:.1f} h; BOD5 asks for 5 d ± 6 h (114–126 h).",
-        "Qualify the result as the program's SOP says.", "ended_at")
+        "Qualify the result as the program's SOP says.",
+        "ended_at",
+    )

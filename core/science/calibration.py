@@ -1,15 +1,25 @@
 """DO meter air calibration: the 100 % saturation target and the pre-trip and post-trip checks."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from core.science._validate import real
 from core.flags import Flag, Severity
+from core.science._validate import real
 from core.science.oxygen import do_saturation_mg_l, saturation_range_flags
 
-__all__ = ["DEFAULT_TOLERANCE_MG_L", "CalibrationResult", "calibration_target_mg_l", "check_calibration",
-           "post_trip_check", "ZERO_DO_LIMIT_MG_L", "BAROMETER_LIMIT_HPA", "DRIFT_UNITS", "drift_tolerance_mg_l",
-           "instrument_flags"]
+__all__ = [
+    "DEFAULT_TOLERANCE_MG_L",
+    "CalibrationResult",
+    "calibration_target_mg_l",
+    "check_calibration",
+    "post_trip_check",
+    "ZERO_DO_LIMIT_MG_L",
+    "BAROMETER_LIMIT_HPA",
+    "DRIFT_UNITS",
+    "drift_tolerance_mg_l",
+    "instrument_flags",
+]
 
 #: Acceptance of a calibration or post-trip check, ± mg/L. [common practice; a program setting]
 DEFAULT_TOLERANCE_MG_L = 0.2
@@ -27,9 +37,14 @@ class CalibrationResult:
     flags: list[Flag] = field(default_factory=list)
 
     def to_dict(self) -> dict:
-        return {"target_mg_l": self.target_mg_l, "reading_mg_l": self.reading_mg_l,
-                "difference_mg_l": self.difference_mg_l, "tolerance_mg_l": self.tolerance_mg_l,
-                "passed": self.passed, "flags": [f.to_dict() for f in self.flags]}
+        return {
+            "target_mg_l": self.target_mg_l,
+            "reading_mg_l": self.reading_mg_l,
+            "difference_mg_l": self.difference_mg_l,
+            "tolerance_mg_l": self.tolerance_mg_l,
+            "passed": self.passed,
+            "flags": [f.to_dict() for f in self.flags],
+        }
 
 
 def calibration_target_mg_l(temp_c, pressure_hpa, method="benson-krause"):
@@ -71,26 +86,38 @@ def _check(kind: str, reading_mg_l, temp_c, pressure_hpa, tolerance_mg_l, method
     flags = list(saturation_range_flags(t, p, 0.0))
     if not passed:
         if kind == "pre":
-            flags.append(Flag(
-                "calibration.out_of_tolerance", Severity.STOP,
-                f"The meter reads {reading:.2f} mg/L against a 100 % target of {target:.2f} mg/L"
-                f" ({diff:+.2f} mg/L, outside ±{tol:g} mg/L).",
-                "Check the membrane or sensor cap, the wet sponge and the temperature and pressure entered,"
-                " then calibrate again before measuring.", "reading_mg_l"))
+            flags.append(
+                Flag(
+                    "calibration.out_of_tolerance",
+                    Severity.STOP,
+                    f"The meter reads {reading:.2f} mg/L against a 100 % target of {target:.2f} mg/L"
+                    f" ({diff:+.2f} mg/L, outside ±{tol:g} mg/L).",
+                    "Check the membrane or sensor cap, the wet sponge and the temperature and pressure entered,"
+                    " then calibrate again before measuring.",
+                    "reading_mg_l",
+                )
+            )
         else:
-            flags.append(Flag(
-                "calibration.post_trip_drift", Severity.STOP,
-                f"After the trip the meter reads {reading:.2f} mg/L against a 100 % target of {target:.2f}"
-                f" mg/L ({diff:+.2f} mg/L, outside ±{tol:g} mg/L): readings since the last calibration"
-                " may be off by up to that much.",
-                "Record the drift with the trip; the program's SOP decides whether the readings are"
-                " qualified, corrected or rejected.", "reading_mg_l"))
-    return CalibrationResult(target_mg_l=target, reading_mg_l=reading, difference_mg_l=diff,
-                             tolerance_mg_l=tol, passed=passed, flags=flags)
+            flags.append(
+                Flag(
+                    "calibration.post_trip_drift",
+                    Severity.STOP,
+                    f"After the trip the meter reads {reading:.2f} mg/L against a 100 % target of {target:.2f}"
+                    f" mg/L ({diff:+.2f} mg/L, outside ±{tol:g} mg/L): readings since the last calibration"
+                    " may be off by up to that much.",
+                    "Record the drift with the trip; the program's SOP decides whether the readings are"
+                    " qualified, corrected or rejected.",
+                    "reading_mg_l",
+                )
+            )
+    return CalibrationResult(
+        target_mg_l=target, reading_mg_l=reading, difference_mg_l=diff, tolerance_mg_l=tol, passed=passed, flags=flags
+    )
 
 
-def check_calibration(reading_mg_l, temp_c, pressure_hpa, tolerance_mg_l=DEFAULT_TOLERANCE_MG_L,
-                      method="benson-krause") -> CalibrationResult:
+def check_calibration(
+    reading_mg_l, temp_c, pressure_hpa, tolerance_mg_l=DEFAULT_TOLERANCE_MG_L, method="benson-krause"
+) -> CalibrationResult:
     """Compares the meter's reading right after air calibration with the 100 % target.
 
     Parameters
@@ -114,8 +141,9 @@ def check_calibration(reading_mg_l, temp_c, pressure_hpa, tolerance_mg_l=DEFAULT
     return _check("pre", reading_mg_l, temp_c, pressure_hpa, tolerance_mg_l, method)
 
 
-def post_trip_check(reading_mg_l, temp_c, pressure_hpa, tolerance_mg_l=DEFAULT_TOLERANCE_MG_L,
-                    method="benson-krause") -> CalibrationResult:
+def post_trip_check(
+    reading_mg_l, temp_c, pressure_hpa, tolerance_mg_l=DEFAULT_TOLERANCE_MG_L, method="benson-krause"
+) -> CalibrationResult:
     """Checks the meter against the 100 % target at the end of a trip (drift check).
 
     Same arguments as :func:`check_calibration`; a failure gives ``calibration.post_trip_drift``
@@ -152,8 +180,14 @@ def drift_tolerance_mg_l(limit, unit: str, target_mg_l) -> float:
     return float(real(target_mg_l, "target_mg_l", lo=0.0, lo_open=True, unit="mg/L")) * float(lim) / 100.0
 
 
-def instrument_flags(serial: str, *, zero_do_mg_l=None, zero_do_limit_mg_l=ZERO_DO_LIMIT_MG_L,
-                     barometer_difference_hpa=None, barometer_limit_hpa=BAROMETER_LIMIT_HPA) -> list[Flag]:
+def instrument_flags(
+    serial: str,
+    *,
+    zero_do_mg_l=None,
+    zero_do_limit_mg_l=ZERO_DO_LIMIT_MG_L,
+    barometer_difference_hpa=None,
+    barometer_limit_hpa=BAROMETER_LIMIT_HPA,
+) -> list[Flag]:
     """Findings of an instrument's calibration log: the zero-DO check and the reference-barometer check.
 
     Parameters
@@ -185,20 +219,30 @@ def instrument_flags(serial: str, *, zero_do_mg_l=None, zero_do_limit_mg_l=ZERO_
         z = real(zero_do_mg_l, "zero_do_mg_l", lo=-5.0, hi=25.0, unit="mg/L")
         lim = real(zero_do_limit_mg_l, "zero_do_limit_mg_l", lo=0.0, hi=2.0, lo_open=True, unit="mg/L")
         if z > lim:
-            flags.append(Flag(
-                "instrument.zero_do", Severity.WARNING,
-                f"Meter {serial} read {z:.2f} mg/L in zero-DO solution, above the {lim:g} mg/L limit: the sensor"
-                " reads high at low oxygen.",
-                "Change the membrane or sensor cap (or service the meter) and repeat the zero check before"
-                " trusting low readings.", "zero_do_mg_l"))
+            flags.append(
+                Flag(
+                    "instrument.zero_do",
+                    Severity.WARNING,
+                    f"Meter {serial} read {z:.2f} mg/L in zero-DO solution, above the {lim:g} mg/L limit: the sensor"
+                    " reads high at low oxygen.",
+                    "Change the membrane or sensor cap (or service the meter) and repeat the zero check before"
+                    " trusting low readings.",
+                    "zero_do_mg_l",
+                )
+            )
     if barometer_difference_hpa is not None:
         d = real(barometer_difference_hpa, "barometer_difference_hpa", lo=-200.0, hi=200.0, unit="hPa")
         lim = real(barometer_limit_hpa, "barometer_limit_hpa", lo=0.0, hi=20.0, lo_open=True, unit="hPa")
         if abs(d) > lim:
-            flags.append(Flag(
-                "instrument.barometer", Severity.WARNING,
-                f"Meter {serial}'s barometer differs from the reference by {d:+.1f} hPa, more than ±{lim:g} hPa:"
-                f" its calibration targets are off by about {abs(d) / 10.13:.1f} %.",
-                "Have the meter's barometer recalibrated, or enter the reference barometer's reading at"
-                " calibration.", "barometer_difference_hpa"))
+            flags.append(
+                Flag(
+                    "instrument.barometer",
+                    Severity.WARNING,
+                    f"Meter {serial}'s barometer differs from the reference by {d:+.1f} hPa, more than ±{lim:g} hPa:"
+                    f" its calibration targets are off by about {abs(d) / 10.13:.1f} %.",
+                    "Have the meter's barometer recalibrated, or enter the reference barometer's reading at"
+                    " calibration.",
+                    "barometer_difference_hpa",
+                )
+            )
     return flags

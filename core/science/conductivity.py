@@ -1,21 +1,29 @@
 """Conductivity: units, specific conductance at 25 °C, and practical salinity (PSS-78 with Hill et al. 1986)."""
+
 from __future__ import annotations
 
 import csv
 import functools
 import io
-from typing import Any
 from importlib import resources
+from typing import Any
 
 import numpy as np
 
 from core.science._validate import choice, is_plain_scalar, real
 
 __all__ = [
-    "CONDUCTIVITY_UNITS", "US_CM_PER_UNIT", "COMPENSATION_METHODS", "KCL_ALPHA_PER_C", "C3515_MS_CM",
+    "CONDUCTIVITY_UNITS",
+    "US_CM_PER_UNIT",
+    "COMPENSATION_METHODS",
+    "KCL_ALPHA_PER_C",
+    "C3515_MS_CM",
     "ALPHA_RANGE_PER_C",
-    "specific_conductance_us_cm", "conductivity_at_temp_us_cm",
-    "practical_salinity", "salinity_from_specific_conductance", "iso7888_f25",
+    "specific_conductance_us_cm",
+    "conductivity_at_temp_us_cm",
+    "practical_salinity",
+    "salinity_from_specific_conductance",
+    "iso7888_f25",
 ]
 
 #: Units accepted in text (canonical spelling); "uS/cm" and "µS/cm" are the same unit.
@@ -74,8 +82,15 @@ def iso7888_f25(temp_c):
     ISO 7888:1985, Water quality — Determination of electrical conductivity, Table 1 (values above
     12 °C from memory).
     """
-    t = real(temp_c, "temp_c", lo=_ISO_RANGE_C[0], hi=_ISO_RANGE_C[1], hi_open=True, unit="°C",
-             note=" (the ISO 7888 table's range; use method='linear' outside it)")
+    t = real(
+        temp_c,
+        "temp_c",
+        lo=_ISO_RANGE_C[0],
+        hi=_ISO_RANGE_C[1],
+        hi_open=True,
+        unit="°C",
+        note=" (the ISO 7888 table's range; use method='linear' outside it)",
+    )
     nodes, f = _f25_table()
     y = np.log(f)
     h = np.diff(nodes)
@@ -135,7 +150,7 @@ def specific_conductance_us_cm(conductivity_us_cm, temp_c, method="linear", alph
         return k * iso7888_f25(temp_c)
     t = real(temp_c, "temp_c", **_TEMP_DOMAIN)
     a = _alpha(alpha)
-    denominator = 1.0 + a * (t - 25.0)   # ≥ 1 − 0.030 × 30 = 0.1 for the accepted α and t
+    denominator = 1.0 + a * (t - 25.0)  # ≥ 1 − 0.030 × 30 = 0.1 for the accepted α and t
     return k / denominator
 
 
@@ -228,8 +243,14 @@ def practical_salinity(conductivity_ms_cm, temp_c, pressure_dbar=0.0):
     Science 44; Lewis, E.L. and Perkin, R.G. (1981), Deep-Sea Research 28A:307–328; Hill, K.D.,
     Dauphinee, T.M. and Woods, D.J. (1986), IEEE J. Oceanic Eng. OE-11(1):109–112.
     """
-    c = real(conductivity_ms_cm, "conductivity_ms_cm", lo=0.0, hi=300.0, unit="mS/cm",
-             note=" (saturated brine is about 250 mS/cm)")
+    c = real(
+        conductivity_ms_cm,
+        "conductivity_ms_cm",
+        lo=0.0,
+        hi=300.0,
+        unit="mS/cm",
+        note=" (saturated brine is about 250 mS/cm)",
+    )
     t = real(temp_c, "temp_c", **_TEMP_DOMAIN)
     p = real(pressure_dbar, "pressure_dbar", lo=0.0, hi=11000.0, unit="dbar", note=" (sea pressure)")
     scalar = is_plain_scalar(c) and is_plain_scalar(t) and is_plain_scalar(p)
@@ -239,7 +260,8 @@ def practical_salinity(conductivity_ms_cm, temp_c, pressure_dbar=0.0):
     r = c / C3515_MS_CM
     rt_lc = _poly(_C, t68)  # Eq. (4)
     rp = 1.0 + p * (_E[0] + p * (_E[1] + p * _E[2])) / (
-        1.0 + _D[0] * t68 + _D[1] * t68 * t68 + (_D[2] + _D[3] * t68) * r)  # Eq. (3)
+        1.0 + _D[0] * t68 + _D[1] * t68 * t68 + (_D[2] + _D[3] * t68) * r
+    )  # Eq. (3)
     rt = r / (rp * rt_lc)
     rtx = np.sqrt(rt)
     sp = _sp_raw(rtx, ft68)

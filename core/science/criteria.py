@@ -1,10 +1,11 @@
 """Aquatic-life dissolved-oxygen criteria as program settings, and the flags a reading raises against them."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass
 
-from core.science._validate import real
 from core.flags import Flag, Severity
+from core.science._validate import real
 
 __all__ = ["Criteria", "WATER_CLASSES", "LIFE_STAGES", "EPA_1986_MG_L", "SPOT_PERIOD", "do_criteria_flags"]
 
@@ -101,38 +102,56 @@ def do_criteria_flags(do_mg_l, percent_sat, water_class: str | None, criteria: C
         wc = None
     flags: list[Flag] = []
     if do < crit.hypoxic_mg_l:
-        flags.append(Flag(
-            "do.hypoxic", Severity.STOP,
-            f"DO {do:.2f} mg/L is below {crit.hypoxic_mg_l:g} mg/L (hypoxic); most fish cannot live in"
-            f" this for long. {_DECIDES}",
-            "Re-check the reading (membrane, stirring, calibration), measure again nearby, and report it"
-            " as the program's SOP says.", "do_mg_l"))
+        flags.append(
+            Flag(
+                "do.hypoxic",
+                Severity.STOP,
+                f"DO {do:.2f} mg/L is below {crit.hypoxic_mg_l:g} mg/L (hypoxic); most fish cannot live in"
+                f" this for long. {_DECIDES}",
+                "Re-check the reading (membrane, stirring, calibration), measure again nearby, and report it"
+                " as the program's SOP says.",
+                "do_mg_l",
+            )
+        )
     if wc is not None:
         limit = crit.warm_min_mg_l if wc == "warm" else crit.cold_min_mg_l
         if do < limit:
-            flags.append(Flag(
-                "do.below_criterion", Severity.WARNING,
-                f"DO {do:.2f} mg/L is below the {wc}-water criterion of {limit:g} mg/L set for this"
-                f" program. {_DECIDES}",
-                "Note the time of day and flow (DO is lowest near dawn); re-measure if it looks wrong.",
-                "do_mg_l"))
+            flags.append(
+                Flag(
+                    "do.below_criterion",
+                    Severity.WARNING,
+                    f"DO {do:.2f} mg/L is below the {wc}-water criterion of {limit:g} mg/L set for this"
+                    f" program. {_DECIDES}",
+                    "Note the time of day and flow (DO is lowest near dawn); re-measure if it looks wrong.",
+                    "do_mg_l",
+                )
+            )
         epa = EPA_1986_MG_L[(wc, crit.life_stage)]
         one_day = epa[SPOT_PERIOD]
         if do < one_day:
             stage = "early life stages" if crit.life_stage == "early" else "other life stages"
-            flags.append(Flag(
-                "do.below_1day_minimum", Severity.WARNING,
-                f"DO {do:.2f} mg/L is below the EPA 1986 {SPOT_PERIOD} of {one_day:g} mg/L ({wc} water,"
-                f" {stage}); its 7- and 30-day means need continuous data. {_DECIDES}",
-                "Re-measure near dawn if you can; ask whether a logger belongs here.", "do_mg_l"))
+            flags.append(
+                Flag(
+                    "do.below_1day_minimum",
+                    Severity.WARNING,
+                    f"DO {do:.2f} mg/L is below the EPA 1986 {SPOT_PERIOD} of {one_day:g} mg/L ({wc} water,"
+                    f" {stage}); its 7- and 30-day means need continuous data. {_DECIDES}",
+                    "Re-measure near dawn if you can; ask whether a logger belongs here.",
+                    "do_mg_l",
+                )
+            )
     if percent_sat is not None:
         ps = real(percent_sat, "percent_sat", lo=0.0, hi=500.0, unit="%")
         if ps > crit.supersaturation_percent:
-            flags.append(Flag(
-                "do.supersaturated", Severity.WARNING,
-                f"DO is {ps:.0f} % of saturation, above {crit.supersaturation_percent:g} %: strong algal"
-                " photosynthesis, a plunge pool, or a reading error (air bubble on the sensor, stale"
-                f" calibration). {_DECIDES}",
-                "Check the sensor for bubbles and the calibration, note sun and plant growth, re-measure.",
-                "do_mg_l"))
+            flags.append(
+                Flag(
+                    "do.supersaturated",
+                    Severity.WARNING,
+                    f"DO is {ps:.0f} % of saturation, above {crit.supersaturation_percent:g} %: strong algal"
+                    " photosynthesis, a plunge pool, or a reading error (air bubble on the sensor, stale"
+                    f" calibration). {_DECIDES}",
+                    "Check the sensor for bubbles and the calibration, note sun and plant growth, re-measure.",
+                    "do_mg_l",
+                )
+            )
     return flags

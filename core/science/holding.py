@@ -1,16 +1,27 @@
 """Sample holding times (40 CFR 136.3 Table II, overridable by a program's SOP) and the clock for each sample."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
 from datetime import datetime, timedelta
 
-from core.science._validate import real
 from core.flags import Flag, Severity
+from core.science._validate import real
 
-__all__ = ["HoldingRule", "HoldingClock", "HOLDING_TIMES", "BOTTLE_HOLDING", "SOON_FRACTION", "bottle_holding_kind",
-           "holding_clock"]
+__all__ = [
+    "HoldingRule",
+    "HoldingClock",
+    "HOLDING_TIMES",
+    "BOTTLE_HOLDING",
+    "SOON_FRACTION",
+    "bottle_holding_kind",
+    "holding_clock",
+]
 
-_CFR = "US 40 CFR 136.3, Table II (required containers, preservation techniques and holding times) [from memory; confirm wording]"
+_CFR = (
+    "US 40 CFR 136.3, Table II (required containers, preservation techniques and holding times)"
+    " [from memory; confirm wording]"
+)
 
 
 @dataclass(frozen=True)
@@ -53,12 +64,15 @@ HOLDING_TIMES: dict[str, HoldingRule] = {
     "do_probe": HoldingRule("do_probe", "dissolved oxygen, probe", 0.25, "none; analyze on site", _CFR),
     # Fixing belongs on site at collection; the clock runs from collection (team science reference §10),
     # so a late fixing never buys time. core.science.winkler flags the collection-to-fixing delay.
-    "do_winkler": HoldingRule("do_winkler", "dissolved oxygen, Winkler", 8.0,
-                              "fix on site and store in the dark", _CFR),
-    "bod": HoldingRule("bod", "biochemical oxygen demand", 48.0, "cool to ≤ 6 °C, do not freeze", _CFR,
-                       cool_max_c=6.0, no_freeze=True),
-    "specific_conductance": HoldingRule("specific_conductance", "specific conductance", 28 * 24.0,
-                                        "cool to ≤ 6 °C", _CFR, cool_max_c=6.0),
+    "do_winkler": HoldingRule(
+        "do_winkler", "dissolved oxygen, Winkler", 8.0, "fix on site and store in the dark", _CFR
+    ),
+    "bod": HoldingRule(
+        "bod", "biochemical oxygen demand", 48.0, "cool to ≤ 6 °C, do not freeze", _CFR, cool_max_c=6.0, no_freeze=True
+    ),
+    "specific_conductance": HoldingRule(
+        "specific_conductance", "specific conductance", 28 * 24.0, "cool to ≤ 6 °C", _CFR, cool_max_c=6.0
+    ),
     "temperature": HoldingRule("temperature", "temperature", 0.25, "none; measure on site", _CFR),
 }
 
@@ -94,8 +108,9 @@ def bottle_holding_kind(bottle_kind: str, *, duplicates: str | None = None, fixe
             return bottle_holding_kind(duplicates, fixed=fixed)
         return BOTTLE_HOLDING["do-fixed"] if fixed else BOTTLE_HOLDING["bod"]
     if bottle_kind not in BOTTLE_HOLDING:
-        raise ValueError(f"bottle kind {bottle_kind!r} is not known; accepted: "
-                         + ", ".join([*BOTTLE_HOLDING, "duplicate"]))
+        raise ValueError(
+            f"bottle kind {bottle_kind!r} is not known; accepted: " + ", ".join([*BOTTLE_HOLDING, "duplicate"])
+        )
     return BOTTLE_HOLDING[bottle_kind]
 
 
@@ -118,15 +133,23 @@ class HoldingClock:
     clock_from: str = "collection"
 
     def to_dict(self) -> dict:
-        return {"kind": self.kind, "deadline": self.deadline.isoformat(), "remaining_s": self.remaining_s,
-                "expired": self.expired, "flag": None if self.flag is None else self.flag.to_dict(),
-                "hours": self.rule.hours, "citation": self.rule.citation, "clock_from": self.clock_from}
+        return {
+            "kind": self.kind,
+            "deadline": self.deadline.isoformat(),
+            "remaining_s": self.remaining_s,
+            "expired": self.expired,
+            "flag": None if self.flag is None else self.flag.to_dict(),
+            "hours": self.rule.hours,
+            "citation": self.rule.citation,
+            "clock_from": self.clock_from,
+        }
 
 
 def _rule(kind: str, overrides: dict[str, float] | None) -> HoldingRule:
     if kind not in HOLDING_TIMES:
-        raise ValueError(f"kind = {kind!r} is not a sample kind with a holding time; accepted: "
-                         + ", ".join(HOLDING_TIMES))
+        raise ValueError(
+            f"kind = {kind!r} is not a sample kind with a holding time; accepted: " + ", ".join(HOLDING_TIMES)
+        )
     rule = HOLDING_TIMES[kind]
     if overrides:
         if not isinstance(overrides, dict):
@@ -149,8 +172,13 @@ def _fmt(seconds: float) -> str:
     return f"{s / 86400:.1f} d"
 
 
-def holding_clock(kind: str, collected_at: datetime, now: datetime, fixed_at: datetime | None = None,
-                  overrides: dict[str, float] | None = None) -> HoldingClock:
+def holding_clock(
+    kind: str,
+    collected_at: datetime,
+    now: datetime,
+    fixed_at: datetime | None = None,
+    overrides: dict[str, float] | None = None,
+) -> HoldingClock:
     """The deadline and time left for analysing a sample.
 
     Parameters
@@ -193,14 +221,20 @@ def holding_clock(kind: str, collected_at: datetime, now: datetime, fixed_at: da
             raise ValueError(f"{name} = {value!r} is not a date-time; accepted: a datetime")
     aware = {name: v.tzinfo is not None and v.utcoffset() is not None for name, v in times.items()}
     if len(set(aware.values())) > 1:
-        raise ValueError("collected_at, now and fixed_at mix times with and without a time zone; accepted: all"
-                         " with a time zone (or all without)")
+        raise ValueError(
+            "collected_at, now and fixed_at mix times with and without a time zone; accepted: all"
+            " with a time zone (or all without)"
+        )
     if now < collected_at:
-        raise ValueError(f"now ({now.isoformat()}) is before collected_at ({collected_at.isoformat()}); accepted:"
-                         " a collection time in the past (check the device clock)")
+        raise ValueError(
+            f"now ({now.isoformat()}) is before collected_at ({collected_at.isoformat()}); accepted:"
+            " a collection time in the past (check the device clock)"
+        )
     if fixed_at is not None and fixed_at < collected_at:
-        raise ValueError(f"fixed_at ({fixed_at.isoformat()}) is before collected_at ({collected_at.isoformat()});"
-                         " accepted: fixing at or after collection")
+        raise ValueError(
+            f"fixed_at ({fixed_at.isoformat()}) is before collected_at ({collected_at.isoformat()});"
+            " accepted: fixing at or after collection"
+        )
     from_fixing = rule.clock_from == "fixing" and fixed_at is not None
     start = fixed_at if (from_fixing and fixed_at is not None) else collected_at
     limit = timedelta(hours=rule.hours)
@@ -210,16 +244,28 @@ def holding_clock(kind: str, collected_at: datetime, now: datetime, fixed_at: da
     flag = None
     if expired:
         flag = Flag(
-            "holding.expired", Severity.STOP,
+            "holding.expired",
+            Severity.STOP,
             f"The {rule.label} sample passed its {_fmt(rule.hours * 3600)} holding time {_fmt(remaining)} ago"
             f" (deadline {deadline.isoformat(timespec='minutes')}).",
             "Analyze it only if the program's SOP allows, and qualify the result as past its holding time.",
-            kind)
+            kind,
+        )
     elif remaining < SOON_FRACTION * limit.total_seconds():
         flag = Flag(
-            "holding.soon", Severity.WARNING,
+            "holding.soon",
+            Severity.WARNING,
             f"The {rule.label} sample has {_fmt(remaining)} left of its {_fmt(rule.hours * 3600)} holding time"
             f" (deadline {deadline.isoformat(timespec='minutes')}).",
-            f"Analyze it soon; keep it {rule.preservation}.", kind)
-    return HoldingClock(kind=kind, deadline=deadline, remaining_s=remaining, expired=expired, flag=flag, rule=rule,
-                        clock_from="fixing" if from_fixing else "collection")
+            f"Analyze it soon; keep it {rule.preservation}.",
+            kind,
+        )
+    return HoldingClock(
+        kind=kind,
+        deadline=deadline,
+        remaining_s=remaining,
+        expired=expired,
+        flag=flag,
+        rule=rule,
+        clock_from="fixing" if from_fixing else "collection",
+    )

@@ -1,4 +1,5 @@
 """Dissolved-oxygen saturation (Benson & Krause 1984; Garcia & Gordon 1992) and percent saturation."""
+
 from __future__ import annotations
 
 import math
@@ -6,14 +7,24 @@ from typing import Any
 
 import numpy as np
 
-from core.science._validate import choice, is_plain_scalar, real
 from core.flags import Flag, Severity
+from core.science._validate import choice, is_plain_scalar, real
 
 __all__ = [
-    "METHODS", "VALID_TEMP_C", "VALID_SALINITY", "VALID_PRESSURE_ATM",
-    "do_saturation_mg_l", "percent_saturation", "do_mg_l_from_percent", "PERCENT_BASES", "meter_percent_to_mg_l",
+    "METHODS",
+    "VALID_TEMP_C",
+    "VALID_SALINITY",
+    "VALID_PRESSURE_ATM",
+    "do_saturation_mg_l",
+    "percent_saturation",
+    "do_mg_l_from_percent",
+    "PERCENT_BASES",
+    "meter_percent_to_mg_l",
     "saturation_range_flags",
-    "o2_solubility_umol_kg", "seawater_density_kg_m3", "water_vapour_pressure_atm", "theta",
+    "o2_solubility_umol_kg",
+    "seawater_density_kg_m3",
+    "water_vapour_pressure_atm",
+    "theta",
     "pressure_factor",
 ]
 
@@ -30,10 +41,19 @@ _MG_PER_UMOL_O2 = 0.0319988  # molar mass of O2, 31.9988 g/mol
 _T68_PER_T90 = 1.00024  # IPTS-68 from ITS-90 near 0–40 °C (Saunders 1990)
 
 # Domain in which a value is possible at all (outside: ValueError). Liquid water under air.
-_TEMP_DOMAIN: dict[str, Any] = dict(lo=-5.0, hi=90.0, unit="°C", note=" (liquid water under air; the equations are fitted to 0–40 °C)")
-_SAL_DOMAIN: dict[str, Any] = dict(lo=0.0, hi=70.0, unit="", note=" (practical salinity; the equations are fitted to 0–40)")
-_P_DOMAIN: dict[str, Any] = dict(lo=0.0, hi=1500.0, lo_open=True, unit="hPa",
-                 note=" (station air pressure; the equations are fitted to 507–1115 hPa)")
+_TEMP_DOMAIN: dict[str, Any] = dict(
+    lo=-5.0, hi=90.0, unit="°C", note=" (liquid water under air; the equations are fitted to 0–40 °C)"
+)
+_SAL_DOMAIN: dict[str, Any] = dict(
+    lo=0.0, hi=70.0, unit="", note=" (practical salinity; the equations are fitted to 0–40)"
+)
+_P_DOMAIN: dict[str, Any] = dict(
+    lo=0.0,
+    hi=1500.0,
+    lo_open=True,
+    unit="hPa",
+    note=" (station air pressure; the equations are fitted to 507–1115 hPa)",
+)
 
 # Benson & Krause (1984) as in Standard Methods 4500-O Table 4500-O:I, mg/L, 1 atm.
 _BK0, _BK1, _BK2, _BK3, _BK4 = -139.34411, 1.575701e5, -6.642308e7, 1.243800e10, -8.621949e11
@@ -49,6 +69,7 @@ _GC0 = -2.75915e-7
 
 
 # --- pieces of the pressure correction ---------------------------------------------------------
+
 
 def _theta_scalar(t: float) -> float:
     # θ = 0.000975 − 1.426e-5 t + 6.436e-8 t², t in °C (NOT kelvin)  [4500-O:I]
@@ -170,10 +191,12 @@ def _no_air(p_hpa: float, t: float, pwv_atm: float, index: int | None = None) ->
     return ValueError(
         f"pressure_hpa{where} = {p_hpa:g} is not above the water-vapour pressure at {t:g} °C"
         f" ({pwv_atm * _ATM_HPA:.1f} hPa), so no air is left to dissolve; accepted: a station air"
-        " pressure above that, usually 500–1100 hPa")
+        " pressure above that, usually 500–1100 hPa"
+    )
 
 
 # --- density and the Garcia & Gordon µmol/kg form -----------------------------------------------
+
 
 def seawater_density_kg_m3(temp_c, salinity=0.0):
     """Density of seawater at one standard atmosphere (sea pressure 0), kg/m³, EOS-80.
@@ -207,8 +230,7 @@ def seawater_density_kg_m3(temp_c, salinity=0.0):
 
 
 def _rho_scalar(t: float, s: float) -> float:
-    rw = 999.842594 + t * (6.793952e-2 + t * (-9.095290e-3 + t * (1.001685e-4 + t * (-1.120083e-6
-                                                                                      + t * 6.536332e-9))))
+    rw = 999.842594 + t * (6.793952e-2 + t * (-9.095290e-3 + t * (1.001685e-4 + t * (-1.120083e-6 + t * 6.536332e-9))))
     if s == 0.0:
         return rw
     a = 0.824493 + t * (-4.0899e-3 + t * (7.6438e-5 + t * (-8.2467e-7 + t * 5.3875e-9)))
@@ -312,6 +334,7 @@ def _gg_ln_array(t68: np.ndarray, s) -> np.ndarray:
 
 # --- saturation ---------------------------------------------------------------------------------
 
+
 def _bk_scalar(t: float, s: float) -> float:
     x = 1.0 / (t + 273.15)
     ln_c = _BK0 + x * (_BK1 + x * (_BK2 + x * (_BK3 + x * _BK4)))  # Eq. for ln C0, 4500-O:I
@@ -387,8 +410,11 @@ def do_saturation_mg_l(temp_c, pressure_hpa=1013.25, salinity=0.0, method="benso
         if method == "benson-krause":
             c = _bk_scalar(t, s)
         else:
-            c = math.exp(_gg_ln_scalar(t * _T68_PER_T90, s)) * _rho_scalar(t * _T68_PER_T90, s) \
+            c = (
+                math.exp(_gg_ln_scalar(t * _T68_PER_T90, s))
+                * _rho_scalar(t * _T68_PER_T90, s)
                 * (_MG_PER_UMOL_O2 / 1000.0)
+            )
         if p == _ATM_HPA:
             return c
         return c * _factor_scalar(t, p / _ATM_HPA)
@@ -477,8 +503,7 @@ def do_mg_l_from_percent(percent, do_sat_mg_l):
 PERCENT_BASES = ("local", "sea-level")
 
 
-def meter_percent_to_mg_l(percent, temp_c, pressure_hpa, salinity=0.0, basis="local",
-                          method="benson-krause"):
+def meter_percent_to_mg_l(percent, temp_c, pressure_hpa, salinity=0.0, basis="local", method="benson-krause"):
     """DO in mg/L from a meter's % saturation reading, on the meter's own % basis.
 
     mg/L = % / 100 × Cp, with Cp the saturation at the water temperature and salinity and at the
@@ -538,24 +563,39 @@ def saturation_range_flags(temp_c, pressure_hpa, salinity) -> list[Flag]:
     flags: list[Flag] = []
     lo, hi = VALID_TEMP_C
     if np.any((np.asarray(t) < lo) | (np.asarray(t) > hi)):
-        flags.append(Flag(
-            "saturation.temp_out_of_range", Severity.WARNING,
-            f"Water temperature {_show(t)} °C is outside 0–40 °C, the range the saturation equation was"
-            " fitted to; the target is an extrapolation.",
-            "Check the temperature and its unit; report the saturation as estimated.", "temp_c"))
+        flags.append(
+            Flag(
+                "saturation.temp_out_of_range",
+                Severity.WARNING,
+                f"Water temperature {_show(t)} °C is outside 0–40 °C, the range the saturation equation was"
+                " fitted to; the target is an extrapolation.",
+                "Check the temperature and its unit; report the saturation as estimated.",
+                "temp_c",
+            )
+        )
     plo, phi = VALID_PRESSURE_ATM[0] * _ATM_HPA, VALID_PRESSURE_ATM[1] * _ATM_HPA
     if np.any((np.asarray(p) < plo) | (np.asarray(p) > phi)):
-        flags.append(Flag(
-            "saturation.pressure_out_of_range", Severity.WARNING,
-            f"Pressure {_show(p)} hPa is outside 0.5–1.1 atm ({plo:.0f}–{phi:.0f} hPa), the range the"
-            " pressure correction was fitted to.",
-            "Check the pressure's unit (hPa, mmHg, inHg) and that it is station pressure.", "pressure_hpa"))
+        flags.append(
+            Flag(
+                "saturation.pressure_out_of_range",
+                Severity.WARNING,
+                f"Pressure {_show(p)} hPa is outside 0.5–1.1 atm ({plo:.0f}–{phi:.0f} hPa), the range the"
+                " pressure correction was fitted to.",
+                "Check the pressure's unit (hPa, mmHg, inHg) and that it is station pressure.",
+                "pressure_hpa",
+            )
+        )
     slo, shi = VALID_SALINITY
     if np.any((np.asarray(s) < slo) | (np.asarray(s) > shi)):
-        flags.append(Flag(
-            "saturation.salinity_out_of_range", Severity.WARNING,
-            f"Salinity {_show(s)} is outside 0–40, the range the salinity term was fitted to.",
-            "Check the salinity or conductivity entered (and its unit).", "salinity"))
+        flags.append(
+            Flag(
+                "saturation.salinity_out_of_range",
+                Severity.WARNING,
+                f"Salinity {_show(s)} is outside 0–40, the range the salinity term was fitted to.",
+                "Check the salinity or conductivity entered (and its unit).",
+                "salinity",
+            )
+        )
     return flags
 
 

@@ -1,16 +1,29 @@
 """Air pressure: units, parsing, the standard atmosphere, and a check for sea-level-adjusted readings."""
+
 from __future__ import annotations
 
 import numpy as np
 
-from core.science._validate import is_plain_scalar, real
 from core.flags import Flag, Severity
+from core.science._validate import is_plain_scalar, real
 
 __all__ = [
-    "PRESSURE_UNITS", "HPA_PER_UNIT", "STANDARD_ATMOSPHERE_HPA", "SEA_LEVEL_ADJUSTED_THRESHOLD_HPA",
-    "to_hpa", "from_hpa", "standard_pressure_hpa", "sea_level_to_station_hpa",
-    "station_to_sea_level_hpa", "sea_level_adjusted_flag", "FAR_BELOW_THRESHOLD_HPA", "far_below_standard_flag",
-    "station_pressure_flags", "flat_pressure_flag", "FLAT_MIN_SPREAD_M", "FLAT_FRACTION",
+    "PRESSURE_UNITS",
+    "HPA_PER_UNIT",
+    "STANDARD_ATMOSPHERE_HPA",
+    "SEA_LEVEL_ADJUSTED_THRESHOLD_HPA",
+    "to_hpa",
+    "from_hpa",
+    "standard_pressure_hpa",
+    "sea_level_to_station_hpa",
+    "station_to_sea_level_hpa",
+    "sea_level_adjusted_flag",
+    "FAR_BELOW_THRESHOLD_HPA",
+    "far_below_standard_flag",
+    "station_pressure_flags",
+    "flat_pressure_flag",
+    "FLAT_MIN_SPREAD_M",
+    "FLAT_FRACTION",
 ]
 
 #: Units accepted in text and by :func:`to_hpa` / :func:`from_hpa` (canonical spelling).
@@ -89,8 +102,14 @@ def from_hpa(value_hpa, unit: str):
 
 
 def _elevation(elevation_m):
-    return real(elevation_m, "elevation_m", lo=ELEVATION_RANGE_M[0], hi=ELEVATION_RANGE_M[1], unit="m",
-                note=" (the troposphere of the US Standard Atmosphere 1976)")
+    return real(
+        elevation_m,
+        "elevation_m",
+        lo=ELEVATION_RANGE_M[0],
+        hi=ELEVATION_RANGE_M[1],
+        unit="m",
+        note=" (the troposphere of the US Standard Atmosphere 1976)",
+    )
 
 
 def standard_pressure_hpa(elevation_m):
@@ -154,8 +173,7 @@ def station_to_sea_level_hpa(p_station_hpa, elevation_m):
     return p / _ratio(_elevation(elevation_m))
 
 
-def _against_standard(pressure_hpa: float, elevation_m: float,
-                      threshold_hpa: float) -> tuple[float, float, float]:
+def _against_standard(pressure_hpa: float, elevation_m: float, threshold_hpa: float) -> tuple[float, float, float]:
     """Checked (pressure_hpa, threshold_hpa, standard atmosphere at elevation_m), all hPa, for the flag checks."""
     p = real(pressure_hpa, "pressure_hpa", lo=0.0, lo_open=True, unit="hPa")
     thr = real(threshold_hpa, "threshold_hpa", lo=0.0, unit="hPa")
@@ -165,8 +183,9 @@ def _against_standard(pressure_hpa: float, elevation_m: float,
     return p, thr, expected
 
 
-def sea_level_adjusted_flag(pressure_hpa: float, elevation_m: float,
-                            threshold_hpa: float = SEA_LEVEL_ADJUSTED_THRESHOLD_HPA) -> Flag | None:
+def sea_level_adjusted_flag(
+    pressure_hpa: float, elevation_m: float, threshold_hpa: float = SEA_LEVEL_ADJUSTED_THRESHOLD_HPA
+) -> Flag | None:
     """Flags a station-pressure reading that looks like a sea-level-adjusted (weather-report) value.
 
     Parameters
@@ -193,17 +212,22 @@ def sea_level_adjusted_flag(pressure_hpa: float, elevation_m: float,
     return Flag(
         code="pressure.sea_level_adjusted",
         severity=Severity.WARNING,
-        message=(f"Pressure {p:.1f} hPa is {excess:.0f} hPa above the standard atmosphere at"
-                 f" {float(elevation_m):.0f} m ({expected:.1f} hPa); it looks like a sea-level-adjusted"
-                 " weather-service value, which would overstate the saturation target."),
-        action=(f"Read the barometer at the site (station pressure); if this is a sea-level value,"
-                f" the station pressure is about {station:.1f} hPa."),
+        message=(
+            f"Pressure {p:.1f} hPa is {excess:.0f} hPa above the standard atmosphere at"
+            f" {float(elevation_m):.0f} m ({expected:.1f} hPa); it looks like a sea-level-adjusted"
+            " weather-service value, which would overstate the saturation target."
+        ),
+        action=(
+            f"Read the barometer at the site (station pressure); if this is a sea-level value,"
+            f" the station pressure is about {station:.1f} hPa."
+        ),
         field="pressure_hpa",
     )
 
 
-def far_below_standard_flag(pressure_hpa: float, elevation_m: float,
-                            threshold_hpa: float = FAR_BELOW_THRESHOLD_HPA) -> Flag | None:
+def far_below_standard_flag(
+    pressure_hpa: float, elevation_m: float, threshold_hpa: float = FAR_BELOW_THRESHOLD_HPA
+) -> Flag | None:
     """Flags a station reading far below the standard atmosphere at the site (a wrong unit or elevation).
 
     Parameters
@@ -229,10 +253,13 @@ def far_below_standard_flag(pressure_hpa: float, elevation_m: float,
     return Flag(
         code="pressure.far_below_standard",
         severity=Severity.WARNING,
-        message=(f"Pressure {p:.1f} hPa is {deficit:.0f} hPa below the standard atmosphere at"
-                 f" {float(elevation_m):.0f} m ({expected:.1f} hPa), lower than weather brings there."),
-        action=(f"Check the unit (if the barometer reads mmHg, {p:g} mmHg is {as_mmhg:.1f} hPa) and the"
-                " site's elevation."),
+        message=(
+            f"Pressure {p:.1f} hPa is {deficit:.0f} hPa below the standard atmosphere at"
+            f" {float(elevation_m):.0f} m ({expected:.1f} hPa), lower than weather brings there."
+        ),
+        action=(
+            f"Check the unit (if the barometer reads mmHg, {p:g} mmHg is {as_mmhg:.1f} hPa) and the site's elevation."
+        ),
         field="pressure_hpa",
     )
 
@@ -284,8 +311,9 @@ def flat_pressure_flag(readings) -> Flag | None:
     """
     rows = []
     for where, h, p in readings:
-        rows.append((str(where), float(_elevation(h)),
-                     float(real(p, "pressure_hpa", lo=0.0, lo_open=True, unit="hPa"))))
+        rows.append(
+            (str(where), float(_elevation(h)), float(real(p, "pressure_hpa", lo=0.0, lo_open=True, unit="hPa")))
+        )
     if len(rows) < 2:
         return None
     low = min(rows, key=lambda r: r[1])
@@ -300,11 +328,15 @@ def flat_pressure_flag(readings) -> Flag | None:
     return Flag(
         code="pressure.flat_across_elevations",
         severity=Severity.WARNING,
-        message=(f"{low[0]} at {low[1]:.0f} m read {low[2]:.1f} hPa and {high[0]} at {high[1]:.0f} m read"
-                 f" {high[2]:.1f} hPa: {observed:.1f} hPa apart, where the standard atmosphere falls about"
-                 f" {expected:.0f} hPa over those {spread:.0f} m (about 0.12 hPa per metre). Readings that stay"
-                 " flat across elevations look sea-level adjusted."),
-        action=("Check where the pressures came from: use the barometer's station (absolute) reading, not a"
-                " weather report or an altimeter-corrected value."),
+        message=(
+            f"{low[0]} at {low[1]:.0f} m read {low[2]:.1f} hPa and {high[0]} at {high[1]:.0f} m read"
+            f" {high[2]:.1f} hPa: {observed:.1f} hPa apart, where the standard atmosphere falls about"
+            f" {expected:.0f} hPa over those {spread:.0f} m (about 0.12 hPa per metre). Readings that stay"
+            " flat across elevations look sea-level adjusted."
+        ),
+        action=(
+            "Check where the pressures came from: use the barometer's station (absolute) reading, not a"
+            " weather report or an altimeter-corrected value."
+        ),
         field="pressure_hpa",
     )

@@ -16,37 +16,49 @@ equations: values between the two compute and carry a QC flag.
 Messages name the field or option as the person sees it (the ``label`` the caller gives, e.g.
 ``"--do"`` or ``"Water temperature"``), say what was wrong and what is accepted.
 """
+
 from __future__ import annotations
 
 import functools
 import math
 import re
-from dataclasses import dataclass
 from collections.abc import Callable
+from dataclasses import dataclass
 
 from core.science._validate import ambiguous_comma
 
 __all__ = [
-    "LIMITS", "KINDS", "UNITS_TEXT", "QuantityError", "canonical_unit", "kinds", "Reading", "read", "read_number", "check_limit",
-    "range_message", "range_text", "split",
+    "LIMITS",
+    "KINDS",
+    "UNITS_TEXT",
+    "QuantityError",
+    "canonical_unit",
+    "kinds",
+    "Reading",
+    "read",
+    "read_number",
+    "check_limit",
+    "range_message",
+    "range_text",
+    "split",
 ]
 
 #: Hard limits of a typed value, by limit key: (low, high, normalised unit). All common practice for
 #: stream work (no published source), chosen so that a real stream reading is never refused and a
 #: value in the wrong unit usually is.
 LIMITS: dict[str, tuple[float, float, str]] = {
-    "temp": (-2.0, 50.0, "°C"),                 # sea water freezes near -2 °C; hot springs aside
-    "pressure": (400.0, 1100.0, "hPa"),         # station pressure at 6000 m (≈ 472 hPa) to a record high
-    "conductivity": (0.0, 100000.0, "µS/cm"),   # beyond sea water (≈ 53 000 µS/cm at 25 °C)
-    "salinity": (0.0, 42.0, ""),                # PSS-78's upper limit (UNESCO 1981)
+    "temp": (-2.0, 50.0, "°C"),  # sea water freezes near -2 °C; hot springs aside
+    "pressure": (400.0, 1100.0, "hPa"),  # station pressure at 6000 m (≈ 472 hPa) to a record high
+    "conductivity": (0.0, 100000.0, "µS/cm"),  # beyond sea water (≈ 53 000 µS/cm at 25 °C)
+    "salinity": (0.0, 42.0, ""),  # PSS-78's upper limit (UNESCO 1981)
     "do_mg_l": (0.0, 25.0, "mg/L"),
     "do_percent": (0.0, 300.0, "%"),
-    "elevation": (-430.0, 6000.0, "m"),         # the Dead Sea shore to the highest sampled streams
+    "elevation": (-430.0, 6000.0, "m"),  # the Dead Sea shore to the highest sampled streams
     "latitude": (-90.0, 90.0, "°"),
     "longitude": (-180.0, 180.0, "°"),
     "calibration_reading": (0.0, 25.0, "mg/L"),
-    "criterion": (0.0, 20.0, "mg/L"),           # the range core.science.criteria accepts
-    "supersaturation": (100.0, 500.0, "%"),     # the range core.science.criteria accepts
+    "criterion": (0.0, 20.0, "mg/L"),  # the range core.science.criteria accepts
+    "supersaturation": (100.0, 500.0, "%"),  # the range core.science.criteria accepts
     "tolerance": (0.0, 5.0, "mg/L"),
 }
 
@@ -111,11 +123,11 @@ class Kind:
     """One kind of typed quantity: its units (spelling → canonical), how each converts, the limits."""
 
     name: str
-    unit: str                                   # normalised unit of `value`
-    aliases: dict[str, str]                     # lower-case spelling without spaces → canonical unit
+    unit: str  # normalised unit of `value`
+    aliases: dict[str, str]  # lower-case spelling without spaces → canonical unit
     to_normal: dict[str, Callable[[float], float]]
-    bare: str | None                            # unit of a bare number; None: a unit is required
-    units_text: str                             # accepted units, in words
+    bare: str | None  # unit of a bare number; None: a unit is required
+    units_text: str  # accepted units, in words
     example: str
 
 
@@ -127,34 +139,117 @@ def _kinds() -> dict[str, Kind]:
     from core.science.conductivity import US_CM_PER_UNIT
     from core.science.pressure import HPA_PER_UNIT, PRESSURE_UNITS
 
-    p_alias = {"hpa": "hPa", "mbar": "mbar", "mb": "mbar", "millibar": "mbar", "millibars": "mbar",
-               "kpa": "kPa", "pa": "Pa", "mmhg": "mmHg", "torr": "torr", "inhg": "inHg", "in.hg": "inHg",
-               '"hg': "inHg", "atm": "atm", "psi": "psi", "psia": "psi"}
-    c_alias = {"us/cm": "uS/cm", "µs/cm": "uS/cm", "μs/cm": "uS/cm", "umho/cm": "uS/cm", "µmho/cm": "uS/cm",
-               "μmho/cm": "uS/cm", "ms/cm": "mS/cm", "mmho/cm": "mS/cm", "ms/m": "mS/m", "s/m": "S/m"}
-    t_alias = {"c": "C", "°c": "C", "degc": "C", "celsius": "C", "ºc": "C",
-               "f": "F", "°f": "F", "degf": "F", "fahrenheit": "F", "ºf": "F",
-               "k": "K", "kelvin": "K"}
-    do_alias = {"mg/l": "mg/L", "mgl": "mg/L", "mg/litre": "mg/L", "mg/liter": "mg/L",
-                "%": "%", "%sat": "%", "%saturation": "%", "percent": "%"}
+    p_alias = {
+        "hpa": "hPa",
+        "mbar": "mbar",
+        "mb": "mbar",
+        "millibar": "mbar",
+        "millibars": "mbar",
+        "kpa": "kPa",
+        "pa": "Pa",
+        "mmhg": "mmHg",
+        "torr": "torr",
+        "inhg": "inHg",
+        "in.hg": "inHg",
+        '"hg': "inHg",
+        "atm": "atm",
+        "psi": "psi",
+        "psia": "psi",
+    }
+    c_alias = {
+        "us/cm": "uS/cm",
+        "µs/cm": "uS/cm",
+        "μs/cm": "uS/cm",
+        "umho/cm": "uS/cm",
+        "µmho/cm": "uS/cm",
+        "μmho/cm": "uS/cm",
+        "ms/cm": "mS/cm",
+        "mmho/cm": "mS/cm",
+        "ms/m": "mS/m",
+        "s/m": "S/m",
+    }
+    t_alias = {
+        "c": "C",
+        "°c": "C",
+        "degc": "C",
+        "celsius": "C",
+        "ºc": "C",
+        "f": "F",
+        "°f": "F",
+        "degf": "F",
+        "fahrenheit": "F",
+        "ºf": "F",
+        "k": "K",
+        "kelvin": "K",
+    }
+    do_alias = {
+        "mg/l": "mg/L",
+        "mgl": "mg/L",
+        "mg/litre": "mg/L",
+        "mg/liter": "mg/L",
+        "%": "%",
+        "%sat": "%",
+        "%saturation": "%",
+        "percent": "%",
+    }
     return {
-        "temp": Kind("temp", "°C", t_alias,
-                     {"C": lambda v: v, "F": lambda v: (v - 32.0) * 5.0 / 9.0, "K": lambda v: v - 273.15},
-                     "C", "°C, °F or K (a bare number is °C)", "18.5"),
-        "pressure": Kind("pressure", "hPa", p_alias, {u: _scale(HPA_PER_UNIT[u]) for u in PRESSURE_UNITS},
-                         None, ", ".join(PRESSURE_UNITS), "752 mmHg"),
-        "conductivity": Kind("conductivity", "µS/cm", c_alias,
-                             {u: _scale(US_CM_PER_UNIT[u]) for u in ("uS/cm", "mS/cm", "mS/m", "S/m")},
-                             None, "uS/cm (µS/cm), mS/cm, mS/m, S/m", "410 uS/cm"),
-        "salinity": Kind("salinity", "", {"psu": "psu", "pss": "psu", "pss-78": "psu"}, {"psu": lambda v: v},
-                         "psu", "a practical salinity, bare or with psu", "0.2"),
-        "elevation": Kind("elevation", "m",
-                          {"m": "m", "metre": "m", "metres": "m", "meter": "m", "meters": "m",
-                           "ft": "ft", "feet": "ft", "foot": "ft"},
-                          {"m": lambda v: v, "ft": lambda v: v * 0.3048},   # international foot, exact
-                          "m", "m or ft (a bare number is metres)", "1200 m"),
-        "do": Kind("do", "mg/L", do_alias, {"mg/L": lambda v: v, "%": lambda v: v},
-                   None, "mg/L or % saturation", "8.4 mg/L"),
+        "temp": Kind(
+            "temp",
+            "°C",
+            t_alias,
+            {"C": lambda v: v, "F": lambda v: (v - 32.0) * 5.0 / 9.0, "K": lambda v: v - 273.15},
+            "C",
+            "°C, °F or K (a bare number is °C)",
+            "18.5",
+        ),
+        "pressure": Kind(
+            "pressure",
+            "hPa",
+            p_alias,
+            {u: _scale(HPA_PER_UNIT[u]) for u in PRESSURE_UNITS},
+            None,
+            ", ".join(PRESSURE_UNITS),
+            "752 mmHg",
+        ),
+        "conductivity": Kind(
+            "conductivity",
+            "µS/cm",
+            c_alias,
+            {u: _scale(US_CM_PER_UNIT[u]) for u in ("uS/cm", "mS/cm", "mS/m", "S/m")},
+            None,
+            "uS/cm (µS/cm), mS/cm, mS/m, S/m",
+            "410 uS/cm",
+        ),
+        "salinity": Kind(
+            "salinity",
+            "",
+            {"psu": "psu", "pss": "psu", "pss-78": "psu"},
+            {"psu": lambda v: v},
+            "psu",
+            "a practical salinity, bare or with psu",
+            "0.2",
+        ),
+        "elevation": Kind(
+            "elevation",
+            "m",
+            {
+                "m": "m",
+                "metre": "m",
+                "metres": "m",
+                "meter": "m",
+                "meters": "m",
+                "ft": "ft",
+                "feet": "ft",
+                "foot": "ft",
+            },
+            {"m": lambda v: v, "ft": lambda v: v * 0.3048},  # international foot, exact
+            "m",
+            "m or ft (a bare number is metres)",
+            "1200 m",
+        ),
+        "do": Kind(
+            "do", "mg/L", do_alias, {"mg/L": lambda v: v, "%": lambda v: v}, None, "mg/L or % saturation", "8.4 mg/L"
+        ),
     }
 
 
@@ -167,9 +262,12 @@ def kinds() -> dict[str, Kind]:
 KINDS = ("temp", "pressure", "conductivity", "salinity", "elevation", "do")
 #: Accepted units of each kind, in words (for help texts and messages).
 UNITS_TEXT = {
-    "temp": "°C, °F or K", "pressure": "hPa, mbar, kPa, Pa, mmHg, torr, inHg, atm, psi",
-    "conductivity": "uS/cm (µS/cm), mS/cm, mS/m, S/m", "salinity": "psu or none",
-    "elevation": "m or ft", "do": "mg/L or %",
+    "temp": "°C, °F or K",
+    "pressure": "hPa, mbar, kPa, Pa, mmHg, torr, inHg, atm, psi",
+    "conductivity": "uS/cm (µS/cm), mS/cm, mS/m, S/m",
+    "salinity": "psu or none",
+    "elevation": "m or ft",
+    "do": "mg/L or %",
 }
 
 
@@ -198,10 +296,10 @@ class Reading:
     kind: str
     text: str
     number: float
-    entered_unit: str        # the unit as typed (or the bare number's unit), stripped
+    entered_unit: str  # the unit as typed (or the bare number's unit), stripped
     value: float
-    unit: str                # normalised unit: °C, hPa, µS/cm, "", m, mg/L or %
-    limit: str               # the key of LIMITS the value was checked against
+    unit: str  # normalised unit: °C, hPa, µS/cm, "", m, mg/L or %
+    limit: str  # the key of LIMITS the value was checked against
 
 
 _NUMBER = r"[+-]?(?:\d+(?:[.,]\d*)?|[.,]\d+)(?:[eE][+-]?\d+)?"
@@ -215,7 +313,7 @@ def split(text: str) -> tuple[str, str] | None:
     if m is None:
         return None
     unit = m.group(2)
-    if unit and unit[0] in "0123456789.,+-":   # "1 000 hPa", "1,2,3": not one number
+    if unit and unit[0] in "0123456789.,+-":  # "1 000 hPa", "1,2,3": not one number
         return None
     return m.group(1), unit
 
@@ -229,25 +327,35 @@ def _not_a_number(raw: str, label: str, how: str) -> QuantityError:
 
 
 def _mixed_marks(raw: str, label: str) -> QuantityError:
-    return QuantityError("number.invalid", label,
-                         f"{label}: {_q(raw)} has both a decimal comma and a decimal point; type one decimal"
-                         " mark and no thousands separators, e.g. 1002.3")
+    return QuantityError(
+        "number.invalid",
+        label,
+        f"{label}: {_q(raw)} has both a decimal comma and a decimal point; type one decimal"
+        " mark and no thousands separators, e.g. 1002.3",
+    )
 
 
 def _number_value(num: str, label: str, raw: str) -> float:
     if "," in num and "." in num:
-        raise QuantityError("number.invalid", label,
-                            f"{label}: {_q(raw)} has both a decimal comma and a decimal point; type one decimal"
-                            " mark and no thousands separators, e.g. 1002.3")
+        raise QuantityError(
+            "number.invalid",
+            label,
+            f"{label}: {_q(raw)} has both a decimal comma and a decimal point; type one decimal"
+            " mark and no thousands separators, e.g. 1002.3",
+        )
     if ambiguous_comma(num.split("e")[0].split("E")[0]):
         a, b = num.replace(",", "."), num.replace(",", "")
-        raise QuantityError("number.ambiguous_comma", label,
-                            f"{label}: {_q(raw)} is ambiguous (decimal comma or thousands separator?); type {a}"
-                            f" or {b} with a decimal point and no thousands separators")
+        raise QuantityError(
+            "number.ambiguous_comma",
+            label,
+            f"{label}: {_q(raw)} is ambiguous (decimal comma or thousands separator?); type {a}"
+            f" or {b} with a decimal point and no thousands separators",
+        )
     value = float(num.replace(",", "."))
     if not math.isfinite(value):
-        raise QuantityError("number.not_finite", label,
-                            f"{label}: {_q(raw)} is not a usable number; type an ordinary number")
+        raise QuantityError(
+            "number.not_finite", label, f"{label}: {_q(raw)} is not a usable number; type an ordinary number"
+        )
     return value
 
 
@@ -256,8 +364,11 @@ def _text(text: object, label: str, how: str) -> str:
         raise QuantityError("number.bool", label, f"{label}: a yes/no value is not a number; type {how}")
     if isinstance(text, (int, float)):
         if not math.isfinite(float(text)):
-            raise QuantityError("number.not_finite", label,
-                                f"{label}: {_q(str(text))} is not a usable number; NaN and infinity are refused")
+            raise QuantityError(
+                "number.not_finite",
+                label,
+                f"{label}: {_q(str(text))} is not a usable number; NaN and infinity are refused",
+            )
         return repr(float(text)) if isinstance(text, float) else str(text)
     if not isinstance(text, str):
         raise QuantityError("number.invalid", label, f"{label} is not text or a number; type {how}")
@@ -265,8 +376,9 @@ def _text(text: object, label: str, how: str) -> str:
     if not raw:
         raise QuantityError("missing", label, f"{label} is empty; type {how}")
     if raw.lower().lstrip("+-") in _NOT_FINITE:
-        raise QuantityError("number.not_finite", label,
-                            f"{label}: {_q(raw)} is not a usable number; NaN and infinity are refused")
+        raise QuantityError(
+            "number.not_finite", label, f"{label}: {_q(raw)} is not a usable number; NaN and infinity are refused"
+        )
     return raw
 
 
@@ -296,8 +408,9 @@ def read_number(text: object, label: str, *, units: tuple[str, ...] = (), accept
         raise _not_a_number(raw, label, f"accepted: {how}")
     num, unit = parts
     if unit and unit.lower().replace(" ", "") not in {u.lower().replace(" ", "") for u in units}:
-        raise QuantityError("unit.invalid", label,
-                            f"{label}: {_q(raw)} has an unexpected unit {_q(unit)}; accepted: {how}")
+        raise QuantityError(
+            "unit.invalid", label, f"{label}: {_q(raw)} has an unexpected unit {_q(unit)}; accepted: {how}"
+        )
     return _number_value(num, label, raw)
 
 
@@ -305,8 +418,7 @@ def check_limit(key: str, value: float, label: str, unit: str | None = None, typ
     """``value`` when inside ``LIMITS[key]``, else a :class:`QuantityError` (code ``<key>.out_of_range``)."""
     lo, hi, _ = LIMITS[key]
     if not (lo <= value <= hi):
-        raise QuantityError(f"{key}.out_of_range", label, range_message(key, label, value, unit, typed),
-                            limit=key)
+        raise QuantityError(f"{key}.out_of_range", label, range_message(key, label, value, unit, typed), limit=key)
     return value
 
 
@@ -349,17 +461,21 @@ def read(kind: str, text: object, label: str, *, default_unit: str | None = None
     if unit_typed:
         unit = k.aliases.get(unit_typed.lower().replace(" ", ""))
         if unit is None:
-            raise QuantityError("unit.invalid", label,
-                                f"{label}: {_q(raw)} has an unknown unit {_q(unit_typed)}; accepted units:"
-                                f" {k.units_text}")
+            raise QuantityError(
+                "unit.invalid",
+                label,
+                f"{label}: {_q(raw)} has an unknown unit {_q(unit_typed)}; accepted units: {k.units_text}",
+            )
     else:
         bare = default_unit if default_unit is not None else k.bare
         unit = k.aliases.get(bare.lower().replace(" ", "")) if bare else None
         entered = default_unit or ""
         if unit is None:
-            raise QuantityError("unit.invalid", label,
-                                f"{label}: {_q(raw)} has no unit; type it with one of {k.units_text}"
-                                f" (e.g. '{k.example}')")
+            raise QuantityError(
+                "unit.invalid",
+                label,
+                f"{label}: {_q(raw)} has no unit; type it with one of {k.units_text} (e.g. '{k.example}')",
+            )
     normal = float(k.to_normal[unit](value))
     if kind == "do":
         key, out_unit = ("do_percent", "%") if unit == "%" else ("do_mg_l", "mg/L")
@@ -367,5 +483,6 @@ def read(kind: str, text: object, label: str, *, default_unit: str | None = None
         key, out_unit = kind, k.unit
     converted = unit not in ("C", "hPa", "uS/cm", "psu", "m", "mg/L", "%")
     check_limit(key, normal, label, out_unit, raw if converted else "")
-    return Reading(kind=kind, text=raw, number=value, entered_unit=entered.strip(),
-                   value=normal, unit=out_unit, limit=key)
+    return Reading(
+        kind=kind, text=raw, number=value, entered_unit=entered.strip(), value=normal, unit=out_unit, limit=key
+    )

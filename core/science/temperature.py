@@ -1,11 +1,18 @@
 """Water temperature: °C and °F, parsing with units, and a hint when a °C value looks like °F."""
+
 from __future__ import annotations
 
-from core.science._validate import real
 from core.flags import Flag, Severity
+from core.science._validate import real
 
-__all__ = ["TEMPERATURE_UNITS", "f_to_c", "c_to_f", "fahrenheit_hint",
-           "FAHRENHEIT_HINT_RANGE_C", "FAHRENHEIT_NOTE_RANGE_C"]
+__all__ = [
+    "TEMPERATURE_UNITS",
+    "f_to_c",
+    "c_to_f",
+    "fahrenheit_hint",
+    "FAHRENHEIT_HINT_RANGE_C",
+    "FAHRENHEIT_NOTE_RANGE_C",
+]
 
 TEMPERATURE_UNITS: tuple[str, ...] = ("C", "F", "K")
 
@@ -53,8 +60,10 @@ def fahrenheit_hint(temp_c: float) -> Flag | None:
         return Flag(
             code="temp.maybe_fahrenheit",
             severity=Severity.NOTE,
-            message=(f"Water temperature {t:g} °C is warm for a stream; if this was °F it is {as_c:.1f} °C"
-                     " (0–4 °C water), which changes the saturation by about half."),
+            message=(
+                f"Water temperature {t:g} °C is warm for a stream; if this was °F it is {as_c:.1f} °C"
+                " (0–4 °C water), which changes the saturation by about half."
+            ),
             action="Nothing to do if the water is this warm; if the meter shows °F, enter the unit as °F.",
             field="temp_c",
         )
@@ -64,8 +73,7 @@ def fahrenheit_hint(temp_c: float) -> Flag | None:
     return Flag(
         code="temp.looks_fahrenheit",
         severity=Severity.WARNING,
-        message=(f"Water temperature {t:g} °C is hotter than streams run; read as °F it would be"
-                 f" {as_c:.1f} °C."),
+        message=(f"Water temperature {t:g} °C is hotter than streams run; read as °F it would be {as_c:.1f} °C."),
         action="Check the meter's unit; if the reading was °F, enter it as °F or convert it to °C.",
         field="temp_c",
     )

@@ -5,6 +5,7 @@ reagent are corrosive and toxic (sodium azide); concentrated sulfuric acid burns
 and gloves, work as the program's SOP and the reagents' safety data sheets say, and dispose of waste
 as local regulations require.
 """
+
 from __future__ import annotations
 
 from datetime import datetime
@@ -14,31 +15,54 @@ import numpy as np
 from core.flags import Flag, Severity
 from core.science._validate import real
 
-__all__ = ["MG_O_PER_MEQ", "original_sample_ml", "winkler_do_mg_l", "expected_titrant_ml", "thiosulfate_normality",
-           "SAFETY_NOTE", "USUAL_NORMALITY", "NORMALITY_RANGE", "DO_IMPLAUSIBLE_MG_L", "FIXING_DELAY_MAX_MIN",
-           "winkler_plausibility_flags"]
+__all__ = [
+    "MG_O_PER_MEQ",
+    "original_sample_ml",
+    "winkler_do_mg_l",
+    "expected_titrant_ml",
+    "thiosulfate_normality",
+    "SAFETY_NOTE",
+    "USUAL_NORMALITY",
+    "NORMALITY_RANGE",
+    "DO_IMPLAUSIBLE_MG_L",
+    "FIXING_DELAY_MAX_MIN",
+    "winkler_plausibility_flags",
+]
 
 #: One equivalent of oxygen is 8 g (1 O2 → 4 S2O3²⁻), i.e. 8000 mg per equivalent, 8 mg per meq.
 MG_O_PER_MEQ = 8.0
 
 #: The one reagent caution shown wherever Winkler bottles are fixed or titrated (field and lab).
-SAFETY_NOTE = ("Caution, Winkler reagents: manganous sulfate is harmful, alkali-iodide-azide is caustic and toxic"
-               " (sodium azide), and concentrated sulfuric acid burns. Wear gloves and eye protection;"
-               " follow your program's SOP and the reagents' safety data sheets.")
+SAFETY_NOTE = (
+    "Caution, Winkler reagents: manganous sulfate is harmful, alkali-iodide-azide is caustic and toxic"
+    " (sodium azide), and concentrated sulfuric acid burns. Wear gloves and eye protection;"
+    " follow your program's SOP and the reagents' safety data sheets."
+)
 
 
 def _volumes(titrated_ml, bottle_ml, reagents_ml):
     b = real(bottle_ml, "bottle_ml", lo=0.0, hi=2000.0, lo_open=True, unit="mL", note=" (BOD bottles are 300 mL)")
-    r = real(reagents_ml, "reagents_ml", lo=0.0, hi=2000.0, unit="mL",
-             note=" (total fixing reagents added to the bottle, usually 2 mL: 1 + 1)")
-    v = real(titrated_ml, "titrated_ml", lo=0.0, hi=2000.0, lo_open=True, unit="mL",
-             note=" (at most the bottle's volume)")
+    r = real(
+        reagents_ml,
+        "reagents_ml",
+        lo=0.0,
+        hi=2000.0,
+        unit="mL",
+        note=" (total fixing reagents added to the bottle, usually 2 mL: 1 + 1)",
+    )
+    v = real(
+        titrated_ml, "titrated_ml", lo=0.0, hi=2000.0, lo_open=True, unit="mL", note=" (at most the bottle's volume)"
+    )
     if np.any(np.asarray(r) >= b):
-        raise ValueError(f"reagents_ml = {_show(r)} is not less than bottle_ml = {_show(b)}; accepted: a few mL"
-                         " of fixing reagents (usually 2) in a larger bottle (usually 300 mL)")
+        raise ValueError(
+            f"reagents_ml = {_show(r)} is not less than bottle_ml = {_show(b)}; accepted: a few mL"
+            " of fixing reagents (usually 2) in a larger bottle (usually 300 mL)"
+        )
     if np.any(np.asarray(v) > b):
-        raise ValueError(f"titrated_ml = {_show(v)} is more than the bottle holds (bottle_ml = {_show(b)});"
-                         " accepted: above 0 and at most bottle_ml")
+        raise ValueError(
+            f"titrated_ml = {_show(v)} is more than the bottle holds (bottle_ml = {_show(b)});"
+            " accepted: above 0 and at most bottle_ml"
+        )
     return v, b, r
 
 
@@ -169,8 +193,9 @@ DO_IMPLAUSIBLE_MG_L = 20.0
 FIXING_DELAY_MAX_MIN = 30.0
 
 
-def winkler_plausibility_flags(do_mg_l=None, normality=None, collected_at: datetime | None = None,
-                               fixed_at: datetime | None = None) -> list[Flag]:
+def winkler_plausibility_flags(
+    do_mg_l=None, normality=None, collected_at: datetime | None = None, fixed_at: datetime | None = None
+) -> list[Flag]:
     """Plausibility checks of a Winkler titration: the titrant's normality, the DO it gives, the fixing delay.
 
     Parameters
@@ -200,30 +225,45 @@ def winkler_plausibility_flags(do_mg_l=None, normality=None, collected_at: datet
         n = real(normality, "normality", lo=0.0, hi=1.0, lo_open=True, unit="N")
         lo, hi = NORMALITY_RANGE
         if not (lo <= n <= hi):
-            flags.append(Flag(
-                "winkler.normality_unusual", Severity.WARNING,
-                f"The titrant normality {n:g} N is far from the usual {USUAL_NORMALITY:g} N: a typing mistake"
-                " (0.25 or 0.0025 for 0.025?) or a titrant that needs standardising.",
-                "Check the bottle label and the last bi-iodate standardisation; correct the normality.",
-                "normality"))
+            flags.append(
+                Flag(
+                    "winkler.normality_unusual",
+                    Severity.WARNING,
+                    f"The titrant normality {n:g} N is far from the usual {USUAL_NORMALITY:g} N: a typing mistake"
+                    " (0.25 or 0.0025 for 0.025?) or a titrant that needs standardising.",
+                    "Check the bottle label and the last bi-iodate standardisation; correct the normality.",
+                    "normality",
+                )
+            )
     if do_mg_l is not None:
         do = real(do_mg_l, "do_mg_l", lo=0.0, unit="mg/L")
         if do > DO_IMPLAUSIBLE_MG_L:
-            flags.append(Flag(
-                "winkler.do_implausible", Severity.STOP,
-                f"Winkler DO {do:.2f} mg/L is above {DO_IMPLAUSIBLE_MG_L:g} mg/L, which a stream rarely reaches:"
-                " a typing mistake in the titrant volume or normality?",
-                "Check the bench sheet and the normality; re-titrate if the bottle allows.", "titrant_ml"))
+            flags.append(
+                Flag(
+                    "winkler.do_implausible",
+                    Severity.STOP,
+                    f"Winkler DO {do:.2f} mg/L is above {DO_IMPLAUSIBLE_MG_L:g} mg/L, which a stream rarely reaches:"
+                    " a typing mistake in the titrant volume or normality?",
+                    "Check the bench sheet and the normality; re-titrate if the bottle allows.",
+                    "titrant_ml",
+                )
+            )
     if collected_at is not None and fixed_at is not None:
         try:
             delay_min = (fixed_at - collected_at).total_seconds() / 60.0
         except TypeError:
-            raise ValueError("collected_at and fixed_at mix a time zone with none; accepted: both with a time"
-                             " zone") from None
+            raise ValueError(
+                "collected_at and fixed_at mix a time zone with none; accepted: both with a time zone"
+            ) from None
         if delay_min > FIXING_DELAY_MAX_MIN:
-            flags.append(Flag(
-                "winkler.late_fixing", Severity.WARNING,
-                f"The bottle was fixed {delay_min:.0f} min after collection; fixing belongs on site at collection"
-                f" (within {FIXING_DELAY_MAX_MIN:g} min here), and the holding clock ran from collection anyway.",
-                "Qualify the result as the program's SOP says; fix bottles at the stream next time.", "fixed_at"))
+            flags.append(
+                Flag(
+                    "winkler.late_fixing",
+                    Severity.WARNING,
+                    f"The bottle was fixed {delay_min:.0f} min after collection; fixing belongs on site at collection"
+                    f" (within {FIXING_DELAY_MAX_MIN:g} min here), and the holding clock ran from collection anyway.",
+                    "Qualify the result as the program's SOP says; fix bottles at the stream next time.",
+                    "fixed_at",
+                )
+            )
     return flags

@@ -6,22 +6,49 @@ The package's parts: ``errors`` (the StoreError tree, importable without the sto
 :class:`DeviceStore` with its one save path). Names are loaded on first use, so importing
 ``core.store.errors`` does not import the store.
 """
+
 from __future__ import annotations
 
 import importlib
 from typing import TYPE_CHECKING, Any
 
 __all__ = [
-    "ApprovedTrip", "AtomicJSONStorage", "CorruptFile", "DeviceStore", "InvalidRecord", "MergeOutcome",
-    "NewerSchemaError", "StaleTrip",
-    "StoreError", "StoreLocked", "StoreWriteError", "TripNotFound", "TripSummary", "diff_paths",
+    "ApprovedTrip",
+    "AtomicJSONStorage",
+    "CorruptFile",
+    "DeviceStore",
+    "InvalidRecord",
+    "MergeOutcome",
+    "NewerSchemaError",
+    "StaleTrip",
+    "StoreError",
+    "StoreLocked",
+    "StoreWriteError",
+    "TripNotFound",
+    "TripSummary",
+    "diff_paths",
 ]
 
 _WHERE = {
-    "AtomicJSONStorage": "core.store.storage", "DeviceStore": "core.store.device",
+    "AtomicJSONStorage": "core.store.storage",
+    "DeviceStore": "core.store.device",
     "MergeOutcome": "core.store.device",
-    "TripSummary": "core.store.index", "diff_paths": "core.store.audit",
-    **dict.fromkeys(("ApprovedTrip", "CorruptFile", "InvalidRecord", "NewerSchemaError", "StaleTrip", "StoreError", "StoreLocked", "StoreWriteError", "TripNotFound"), "core.store.errors"),
+    "TripSummary": "core.store.index",
+    "diff_paths": "core.store.audit",
+    **dict.fromkeys(
+        (
+            "ApprovedTrip",
+            "CorruptFile",
+            "InvalidRecord",
+            "NewerSchemaError",
+            "StaleTrip",
+            "StoreError",
+            "StoreLocked",
+            "StoreWriteError",
+            "TripNotFound",
+        ),
+        "core.store.errors",
+    ),
 }
 
 if TYPE_CHECKING:  # pragma: no cover

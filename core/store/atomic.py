@@ -1,4 +1,5 @@
 """Crash-safe file writes and the canonical bytes of a JSON document (shared by the store and sync)."""
+
 from __future__ import annotations
 
 import hashlib
@@ -34,8 +35,7 @@ def _create_temp(folder: Path, name: str, mode: int) -> tuple[int, str]:
     raise FileExistsError(f"no free temporary name in {folder}")
 
 
-def atomic_write_bytes(path: Path | str, data: bytes, *, durable: bool = True,
-                       mode: int = 0o600) -> None:
+def atomic_write_bytes(path: Path | str, data: bytes, *, durable: bool = True, mode: int = 0o600) -> None:
     """Writes `data` to `path` so that a reader sees the old file or the new one, never a part.
 
     Temporary file in the same folder → write → fsync → os.replace → fsync the folder. When this
@@ -67,8 +67,9 @@ def atomic_write_bytes(path: Path | str, data: bytes, *, durable: bool = True,
 
 def canonical_json_bytes(doc: Any) -> bytes:
     """The one byte form of a JSON document: sorted keys, UTF-8, no NaN/Infinity, trailing newline."""
-    return (json.dumps(doc, sort_keys=True, ensure_ascii=False, allow_nan=False,
-                       separators=(",", ":")) + "\n").encode("utf-8")
+    return (json.dumps(doc, sort_keys=True, ensure_ascii=False, allow_nan=False, separators=(",", ":")) + "\n").encode(
+        "utf-8"
+    )
 
 
 def content_hash(doc: Any) -> str:

@@ -1,4 +1,5 @@
 """The audit trail of a trip: what a save changed (path, old and new value), and the append-only merge of entries."""
+
 from __future__ import annotations
 
 import json
@@ -49,8 +50,7 @@ def diff_changes(old: Any, new: Any, prefix: str = "", limit: int = 25) -> list[
                     continue
                 walk(a.get(key), b.get(key), f"{path}.{key}" if path else key, node.child(key))
             return
-        if (isinstance(a, list) and isinstance(b, list)
-                and all(isinstance(x, dict) and "id" in x for x in a + b)):
+        if isinstance(a, list) and isinstance(b, list) and all(isinstance(x, dict) and "id" in x for x in a + b):
             old_by = {x["id"]: x for x in a}
             new_by = {x["id"]: x for x in b}
             for key in list(old_by) + [k for k in new_by if k not in old_by]:

@@ -16,6 +16,7 @@ never a part. A save costs the same whatever the number of trips: it rewrites on
 and one summary. Every trip change goes through one funnel (:meth:`DeviceStore._commit`):
 validate → derive → compare → audit → write.
 """
+
 from __future__ import annotations
 
 import hashlib
@@ -33,6 +34,7 @@ from typing import Any
 from filelock import FileLock, Timeout
 from pydantic import ValidationError
 
+from core.records.merge import common_ancestor, history, merge_trips, retain
 from core.records.messages import Problem, one_line, problems_from_validation
 from core.records.migrations import migrate
 from core.records.models import (
@@ -49,7 +51,6 @@ from core.records.models import (
     new_id,
 )
 from core.store.atomic import atomic_write_bytes, canonical_json_bytes
-from core.records.merge import common_ancestor, history, merge_trips, retain
 from core.store.audit import diff_changes, merge_audit
 from core.store.drafts import Drafts, split_drafts, with_drafts
 from core.store.errors import (
@@ -87,8 +88,14 @@ def _non_finite_problems(doc: Any) -> list[Problem]:
     def walk(value: Any, loc: tuple) -> None:
         if isinstance(value, float) and not math.isfinite(value):
             label = path_label(loc)
-            out.append(Problem("number.not_finite", ".".join(map(str, loc)), label,
-                               render("number.not_finite", label=label, input=value)))
+            out.append(
+                Problem(
+                    "number.not_finite",
+                    ".".join(map(str, loc)),
+                    label,
+                    render("number.not_finite", label=label, input=value),
+                )
+            )
         elif isinstance(value, dict):
             for k, v in value.items():
                 walk(v, loc + (k,))
@@ -128,6 +135,7 @@ def _utcnow() -> datetime:
 CHANGES_FILE = "changes.log"
 CHANGES_ROTATE_BYTES = 4 * 1024 * 1024
 
+
 class DeviceStore:
     """The trips, sites and settings on one device. Open with :meth:`DeviceStore.open`.
 
@@ -137,8 +145,14 @@ class DeviceStore:
     (two fsyncs per save): call it off the UI thread.
     """
 
-    def __init__(self, data_dir: Path, device_id: str, *, clock: Callable[[], datetime] | None = None,
-                 lock_timeout_s: float = 5.0):
+    def __init__(
+        self,
+        data_dir: Path,
+        device_id: str,
+        *,
+        clock: Callable[[], datetime] | None = None,
+        lock_timeout_s: float = 5.0,
+    ):
         self.data_dir = Path(data_dir)
         self.device_id = device_id
         #: This device's name as a person set it (None until set; see :meth:`set_device_name`).
@@ -154,13 +168,19 @@ class DeviceStore:
         self._drafts = Drafts(self.data_dir / "drafts")
         self._index = SummaryIndex(self._index_dir)
         self._tables = Tables(self.data_dir, self._quarantine)
-        self._finalizer: Any = None     # in_memory(): removes the temporary folder with the store
+        self._finalizer: Any = None  # in_memory(): removes the temporary folder with the store
         self._bases: tuple[Any, dict[str, str]] = (None, {})
 
     # -- opening ---------------------------------------------------------------------------
     @classmethod
-    def open(cls, data_dir: Path | str | None = None, device_id: str | None = None, *,
-             clock: Callable[[], datetime] | None = None, lock_timeout_s: float = 5.0) -> DeviceStore:
+    def open(
+        cls,
+        data_dir: Path | str | None = None,
+        device_id: str | None = None,
+        *,
+        clock: Callable[[], datetime] | None = None,
+        lock_timeout_s: float = 5.0,
+    ) -> DeviceStore:
         """Opens (creating if needed) the store at `data_dir` (else $STREAMTAB_DATA, else the user folder).
 
         Leftover temporary files from an interrupted write are removed and the index is brought
@@ -175,8 +195,7 @@ class DeviceStore:
             remembered = store._read_device_id()
             if not remembered:
                 remembered = device_id or f"dev-{new_id()[:13].replace('-', '')}"
-                atomic_write_bytes(root / "device.json",
-                                   canonical_json_bytes({"device_id": remembered}))
+                atomic_write_bytes(root / "device.json", canonical_json_bytes({"device_id": remembered}))
             store.device_id = device_id or remembered
             store.device_name = store._read_device_file().get("name") or None
             store._clean_temp_files()
@@ -225,8 +244,9 @@ class DeviceStore:
             try:
                 atomic_write_bytes(self.data_dir / "device.json", canonical_json_bytes(data))
             except OSError as exc:
-                raise StoreWriteError(f"Could not write device.json ({exc.strerror or exc}); the device name"
-                                      " is unchanged.") from None
+                raise StoreWriteError(
+                    f"Could not write device.json ({exc.strerror or exc}); the device name is unchanged."
+                ) from None
             self.device_name = text
         return text
 
@@ -276,7 +296,8 @@ class DeviceStore:
                 raise StoreLocked(
                     f"The device store at {self.data_dir} is busy in another program (the app or a"
                     f" sync) and did not come free within {self.lock_timeout_s:g} s; let it finish"
-                    f" and try again.") from None
+                    f" and try again."
+                ) from None
             try:
                 yield
             finally:
@@ -288,8 +309,10 @@ class DeviceStore:
 
     def quarantined(self) -> list[Path]:
         """Files moved aside because they could not be read (oldest first), by name."""
-        return sorted((p for p in self._quarantine_dir.glob("*") if not p.name.endswith(".reason.txt")),
-                      key=lambda p: (p.stat().st_mtime_ns, p.name))
+        return sorted(
+            (p for p in self._quarantine_dir.glob("*") if not p.name.endswith(".reason.txt")),
+            key=lambda p: (p.stat().st_mtime_ns, p.name),
+        )
 
     # -- reading trips ---------------------------------------------------------------------
     def _trip_path(self, trip_id: str) -> Path:
@@ -309,8 +332,11 @@ class DeviceStore:
             target = self._quarantine(path, reason)
             self._index.drop(path.stem)
             self._files.forget(path.stem)
-        return CorruptFile(f"The trip file {path.name} could not be read ({reason}); it was moved to"
-                           f" {target} and the rest of the store keeps working.", target)
+        return CorruptFile(
+            f"The trip file {path.name} could not be read ({reason}); it was moved to"
+            f" {target} and the rest of the store keeps working.",
+            target,
+        )
 
     def _read_trip_file(self, trip_id: str) -> tuple[bytes, dict[str, Any]] | None:
         """(the trip document's canonical bytes, the document) as stored; None when absent.
@@ -444,12 +470,16 @@ class DeviceStore:
         if found == expected:
             return
         if expected is None:
-            raise StaleTrip(f"Trip {trip_id} is already on this device (revision {found}); load it and"
-                            " make the change again, or import the file to merge it.")
+            raise StaleTrip(
+                f"Trip {trip_id} is already on this device (revision {found}); load it and"
+                " make the change again, or import the file to merge it."
+            )
         if found is None:
             raise StaleTrip(f"Trip {trip_id} is no longer on this device; nothing was saved.")
-        raise StaleTrip(f"Trip {trip_id} was changed elsewhere (stored revision {found}, this copy"
-                        f" {expected}); reload it and make the change again.")
+        raise StaleTrip(
+            f"Trip {trip_id} was changed elsewhere (stored revision {found}, this copy"
+            f" {expected}); reload it and make the change again."
+        )
 
     def save_trip(self, trip: Trip, change: str, *, by: str | None = None, reason: str | None = None) -> Trip:
         """Saves a trip loaded from this store (or a new one): validate → derive → write, with an
@@ -518,7 +548,8 @@ class DeviceStore:
             if found != expected_revision:
                 raise StaleTrip(
                     f"Trip {checked.id} was changed elsewhere (stored revision {found},"
-                    f" expected {expected_revision}); read it again and merge.")
+                    f" expected {expected_revision}); read it again and merge."
+                )
             if stored is not None:
                 ids = {e.get("id") for e in doc.get("audit") or [] if isinstance(e, dict)}
                 if not all(isinstance(e, dict) and e.get("id") in ids for e in stored.get("audit") or []):
@@ -535,10 +566,11 @@ class DeviceStore:
             self._files.write(new_doc, doc_bytes, exists=exists)
         except OSError as exc:
             self._files.forget(new_doc["id"])
-            raise StoreWriteError(f"Could not write {path.name} ({exc.strerror or exc}); the stored trip"
-                                  " is unchanged — free space or check the storage, then save again.") from None
-        self._index.write(new_doc, "sha256:" + hashlib.sha256(doc_bytes).hexdigest(),
-                          self._file_key(new_doc["id"]))
+            raise StoreWriteError(
+                f"Could not write {path.name} ({exc.strerror or exc}); the stored trip"
+                " is unchanged — free space or check the storage, then save again."
+            ) from None
+        self._index.write(new_doc, "sha256:" + hashlib.sha256(doc_bytes).hexdigest(), self._file_key(new_doc["id"]))
         self._note_change(new_doc["id"])
 
     # -- the change feed -------------------------------------------------------------------
@@ -572,7 +604,7 @@ class DeviceStore:
                 data = fh.read(st.st_size - mark[1])
         except FileNotFoundError:
             return None, (0, 0)
-        end = data.rfind(b"\n") + 1               # complete lines only
+        end = data.rfind(b"\n") + 1  # complete lines only
         ids = sorted({line.decode("utf-8", "replace") for line in data[:end].splitlines() if line})
         return ids, (st.st_ino, mark[1] + end)
 
@@ -595,7 +627,9 @@ class DeviceStore:
         with self._locked():
             stored = self._stored_or_none(checked.id)
             if stored is None:
-                return MergeOutcome(self._commit(checked, None, change, checked.revision, foreign=True, review_guard=False), "new")
+                return MergeOutcome(
+                    self._commit(checked, None, change, checked.revision, foreign=True, review_guard=False), "new"
+                )
             ours, theirs = history(stored), history(incoming)
             if theirs and theirs <= ours:
                 return MergeOutcome(Trip.from_document(stored), "unchanged")
@@ -615,8 +649,15 @@ class DeviceStore:
                 kind = "unchanged"
             return MergeOutcome(saved, kind, conflicts)
 
-    def update_trip(self, trip_id: str, change: str | Callable[[], str], fn: Callable[[Trip], Trip | None], *,
-                    by: str | None = None, reason: str | None = None) -> Trip:
+    def update_trip(
+        self,
+        trip_id: str,
+        change: str | Callable[[], str],
+        fn: Callable[[Trip], Trip | None],
+        *,
+        by: str | None = None,
+        reason: str | None = None,
+    ) -> Trip:
         """Read–modify–write of one trip under the store's lock (lab results, corrections,
         settlements): `fn` gets the stored trip and returns the changed one (None: no change).
         `change` may be a callable, asked after `fn` (a sentence that names what `fn` computed).
@@ -635,8 +676,7 @@ class DeviceStore:
             if checked.id != trip.id:
                 raise InvalidRecord("A trip update cannot change the trip's id.")
             text = change() if callable(change) else change
-            return self._commit(checked, _migrated(stored), text, int(stored.get("revision", 0)),
-                                by=by, reason=reason)
+            return self._commit(checked, _migrated(stored), text, int(stored.get("revision", 0)), by=by, reason=reason)
 
     def save_stop(self, trip_id: str, stop: Stop, change: str | None = None) -> Trip:
         """Adds or replaces (by id) one stop of a stored trip, through the same save path.
@@ -658,8 +698,9 @@ class DeviceStore:
             raise InvalidRecord(one_line(probs), probs) from None
         except (ValueError, TypeError):
             probs = _non_finite_problems(stop_doc)
-            raise InvalidRecord(one_line(probs) if probs else "The stop holds a value JSON cannot carry.",
-                                probs) from None
+            raise InvalidRecord(
+                one_line(probs) if probs else "The stop holds a value JSON cannot carry.", probs
+            ) from None
 
         def put_stop(trip: Trip) -> Trip:
             stops = list(trip.stops)
@@ -667,8 +708,11 @@ class DeviceStore:
                 if s.id == new_stop.id:
                     # Fields a newer build stored on this stop survive a form that never knew them.
                     # (Not a draft: the form says whether it still has one.)
-                    kept = {k: v for k, v in (s.model_extra or {}).items()
-                            if k not in (new_stop.model_extra or {}) and k not in LOCAL_STOP_KEYS}
+                    kept = {
+                        k: v
+                        for k, v in (s.model_extra or {}).items()
+                        if k not in (new_stop.model_extra or {}) and k not in LOCAL_STOP_KEYS
+                    }
                     stops[i] = new_stop.model_copy(update=kept) if kept else new_stop
                     break
             else:
@@ -711,9 +755,18 @@ class DeviceStore:
             probs = problems_from_validation(exc)
             raise InvalidRecord(one_line(probs), probs) from None
 
-    def _commit(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int, *,
-                by: str | None = None, reason: str | None = None, foreign: bool = False,
-                review_guard: bool = True) -> Trip:
+    def _commit(
+        self,
+        trip: Trip,
+        stored: dict[str, Any] | None,
+        change: str,
+        base_revision: int,
+        *,
+        by: str | None = None,
+        reason: str | None = None,
+        foreign: bool = False,
+        review_guard: bool = True,
+    ) -> Trip:
         """The funnel: derive, compare, audit, write the trip file, then its summary. Lock held.
 
         A stop's local keys (drafts) are kept in this device's drafts, never in the trip file.
@@ -721,19 +774,29 @@ class DeviceStore:
         (core.rules.review); documents from elsewhere carry the office's own steps and are
         merged, not refused."""
         trip, drafts = split_drafts(trip)
-        if foreign:   # a version from elsewhere knows nothing of this device's drafts: keep them
+        if foreign:  # a version from elsewhere knows nothing of this device's drafts: keep them
             drafts = {**self._drafts.read(trip.id), **drafts}
-        saved = self._commit_clean(trip, stored, change, base_revision, by=by, reason=reason,
-                                   review_guard=review_guard)
+        saved = self._commit_clean(trip, stored, change, base_revision, by=by, reason=reason, review_guard=review_guard)
         try:
             self._drafts.write(trip.id, drafts)
         except OSError as exc:
-            raise StoreWriteError(f"The trip was saved, but its unfinished entries could not be kept"
-                                  f" ({exc.strerror or exc}); free space and type them again.") from None
+            raise StoreWriteError(
+                f"The trip was saved, but its unfinished entries could not be kept"
+                f" ({exc.strerror or exc}); free space and type them again."
+            ) from None
         return with_drafts(saved, drafts)
 
-    def _commit_clean(self, trip: Trip, stored: dict[str, Any] | None, change: str, base_revision: int, *,
-                      by: str | None = None, reason: str | None = None, review_guard: bool = True) -> Trip:
+    def _commit_clean(
+        self,
+        trip: Trip,
+        stored: dict[str, Any] | None,
+        change: str,
+        base_revision: int,
+        *,
+        by: str | None = None,
+        reason: str | None = None,
+        review_guard: bool = True,
+    ) -> Trip:
         from core.rules.qc import derive
         from core.rules.review import ReviewRefused, check_change
 
@@ -762,13 +825,17 @@ class DeviceStore:
         now = self._clock().astimezone(UTC)
         revision = base_revision + 1
         changes = diff_changes(stored, new_doc) if stored is not None else []
-        entry = AuditEntry(at=now, device_id=self.device_id, device_name=self.device_name,
-                           change=str(change)[:400] or "saved",
-                           revision=revision,
-                           fields=[c["path"] for c in changes] if stored is not None else ["(new trip)"],
-                           changes=[AuditChange.model_validate(c) for c in changes],
-                           by=(by or None) and str(by)[:80],
-                           reason=(reason or None) and str(reason)[:400])
+        entry = AuditEntry(
+            at=now,
+            device_id=self.device_id,
+            device_name=self.device_name,
+            change=str(change)[:400] or "saved",
+            revision=revision,
+            fields=[c["path"] for c in changes] if stored is not None else ["(new trip)"],
+            changes=[AuditChange.model_validate(c) for c in changes],
+            by=(by or None) and str(by)[:80],
+            reason=(reason or None) and str(reason)[:400],
+        )
         entry_doc = entry.model_dump(mode="json")
         same_audit = new_doc.get("audit") == incoming_audit
         new_doc["audit"] = list(new_doc.get("audit") or []) + [entry_doc]
@@ -779,9 +846,15 @@ class DeviceStore:
         if not same_audit:
             return Trip.model_validate_json(doc_bytes)
         # `derived` was validated from JSON in this call and shares nothing with the caller.
-        return derived.model_copy(update={
-            "device_id": device_id, "schema_version": SCHEMA_VERSION, "revision": revision,
-            "updated_at": entry.at, "audit": list(derived.audit) + [entry]})
+        return derived.model_copy(
+            update={
+                "device_id": device_id,
+                "schema_version": SCHEMA_VERSION,
+                "revision": revision,
+                "updated_at": entry.at,
+                "audit": list(derived.audit) + [entry],
+            }
+        )
 
     # -- sites and settings ----------------------------------------------------------------
     def sites_by_id(self) -> dict[str, Site]:
@@ -818,11 +891,16 @@ class DeviceStore:
         given = record.model_dump(mode="json")
         if given.get("updated_at") not in (None, stored_at):
             return record
-        same = stored is not None and ({k: v for k, v in given.items() if k != "updated_at"}
-                                       == {k: v for k, v in stored.items() if k != "updated_at"})
+        same = stored is not None and (
+            {k: v for k, v in given.items() if k != "updated_at"}
+            == {k: v for k, v in stored.items() if k != "updated_at"}
+        )
         if same:
-            return record if given.get("updated_at") == stored_at else type(record).model_validate_json(
-                canonical_json_bytes({**given, "updated_at": stored_at}))
+            return (
+                record
+                if given.get("updated_at") == stored_at
+                else type(record).model_validate_json(canonical_json_bytes({**given, "updated_at": stored_at}))
+            )
         return record.model_copy(update={"updated_at": self._clock().astimezone(UTC)})
 
     def settings(self) -> ProgramSettings:

@@ -5,6 +5,7 @@ the stop's local keys, :data:`core.records.models.LOCAL_STOP_KEYS`). The store m
 out of every trip it saves and puts them back on the trips it loads, so a draft survives a save
 and a restart but is never written into the trip file, and so never reaches a hub or a merge.
 """
+
 from __future__ import annotations
 
 from collections.abc import MutableMapping
@@ -66,7 +67,7 @@ class Drafts:
         try:
             doc = TinyDB(path, storage=AtomicJSONStorage).table(_TABLE).get(doc_id=1)
         except (OSError, ValueError):
-            return {}                  # a draft is a convenience: an unreadable one is dropped
+            return {}  # a draft is a convenience: an unreadable one is dropped
         return {k: dict(v) for k, v in dict(doc or {}).items() if isinstance(v, dict)}
 
     def write(self, trip_id: str, drafts: dict[str, dict[str, Any]]) -> None:

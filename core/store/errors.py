@@ -3,6 +3,7 @@
 This module imports nothing of the store, so the records' migrations can raise these errors
 without importing the store (the store imports the migrations).
 """
+
 from __future__ import annotations
 
 from pathlib import Path

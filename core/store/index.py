@@ -4,6 +4,7 @@ Each entry names the (inode, mtime, size) of the trip file it was made from; a l
 that with one ``stat`` per trip and rebuilds an entry that is missing, unreadable or outdated.
 Entries are replaced atomically but not fsynced: a summary lost or torn by a power cut is rebuilt.
 """
+
 from __future__ import annotations
 
 import json
@@ -56,12 +57,21 @@ def summary_of(doc: dict[str, Any], digest: str | None = None) -> TripSummary:
         status = "in progress" if not doc.get("ended_at") else "ended"
     labels = [b.get("label", "") for s in stops for b in (s.get("bottles") or [])]
     return TripSummary(
-        id=doc["id"], program=doc.get("program", ""), crew=list(doc.get("crew") or []),
-        started_at=doc.get("started_at", ""), ended_at=doc.get("ended_at"),
-        revision=int(doc.get("revision", 0)), status=status, stop_count=len(stops),
-        updated_at=doc.get("updated_at"), content_hash=digest or content_hash(doc),
-        schema_version=int(doc.get("schema_version", 0)), open_conflicts=len(conflicts),
-        bottle_labels=labels, review_state=review_state(doc))
+        id=doc["id"],
+        program=doc.get("program", ""),
+        crew=list(doc.get("crew") or []),
+        started_at=doc.get("started_at", ""),
+        ended_at=doc.get("ended_at"),
+        revision=int(doc.get("revision", 0)),
+        status=status,
+        stop_count=len(stops),
+        updated_at=doc.get("updated_at"),
+        content_hash=digest or content_hash(doc),
+        schema_version=int(doc.get("schema_version", 0)),
+        open_conflicts=len(conflicts),
+        bottle_labels=labels,
+        review_state=review_state(doc),
+    )
 
 
 class SummaryIndex:

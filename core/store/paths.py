@@ -1,4 +1,5 @@
 """Where the device store lives: --data-dir, else $STREAMTAB_DATA, else the user data folder."""
+
 from __future__ import annotations
 
 import os

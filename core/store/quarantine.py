@@ -4,6 +4,7 @@ Shared by the device store (unreadable trip, site and settings files) and sync (
 that fail their checks), so both keep the same promise: nothing found bad is deleted, and a
 person can read why it was set aside in the note file beside it.
 """
+
 from __future__ import annotations
 
 import os
@@ -29,8 +30,16 @@ def _free(folder: Path, name: str) -> Path:
     return target
 
 
-def quarantine(folder: Path | str, name: str, reason: str, *, source: Path | None = None,
-               data: bytes | None = None, note_suffix: str = ".reason.txt", refresh: bool = False) -> Path:
+def quarantine(
+    folder: Path | str,
+    name: str,
+    reason: str,
+    *,
+    source: Path | None = None,
+    data: bytes | None = None,
+    note_suffix: str = ".reason.txt",
+    refresh: bool = False,
+) -> Path:
     """Sets a bad file aside in `folder` under `name` (``name.2``, ``name.3``… when taken).
 
     With `refresh`, `name` is used even when taken: the copy and its note are replaced (for a

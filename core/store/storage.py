@@ -1,4 +1,5 @@
 """TinyDB storage that never leaves a half-written file, and the reading of a store file's JSON."""
+
 from __future__ import annotations
 
 import json

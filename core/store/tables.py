@@ -5,6 +5,7 @@
 writes go through TinyDB's own API on :class:`core.store.storage.AtomicJSONStorage`. The
 caller (the device store) holds its lock around writes and validates the records first.
 """
+
 from __future__ import annotations
 
 from collections.abc import Callable, MutableMapping
@@ -36,9 +37,11 @@ def _stamp(path: Path) -> Stamp:
 
 def _replace_with(new: dict[str, Any]) -> Callable[[MutableMapping[Any, Any]], None]:
     """A TinyDB update that replaces a document's fields (keys it no longer has are dropped)."""
+
     def replace(doc: MutableMapping[Any, Any]) -> None:
         doc.clear()
         doc.update(new)
+
     return replace
 
 
@@ -54,16 +57,19 @@ class Tables:
 
     def basis_key(self) -> tuple[Stamp | None, Stamp | None]:
         """The versions of the two files last read (what derived values were computed with)."""
-        return (self._sites_cache[0] if self._sites_cache else None,
-                self._settings_cache[0] if self._settings_cache else None)
+        return (
+            self._sites_cache[0] if self._sites_cache else None,
+            self._settings_cache[0] if self._settings_cache else None,
+        )
 
     def _read_table(self, name: str, path: Path) -> dict[str, Any]:
         try:
             data = AtomicJSONStorage(path).read()
         except ValueError as exc:
             target = self._quarantine(path, str(exc))
-            raise CorruptFile(f"The file {path.name} could not be read ({exc}); it was moved to {target}.",
-                              target) from None
+            raise CorruptFile(
+                f"The file {path.name} could not be read ({exc}); it was moved to {target}.", target
+            ) from None
         return (data or {}).get(name, {}) or {}
 
     # -- sites -------------------------------------------------------------------------------
@@ -104,8 +110,9 @@ class Tables:
                     table.update(_replace_with(doc), doc_ids=[key])
             cached.flush()
         except OSError as exc:
-            raise StoreWriteError(f"Could not write sites.json ({exc.strerror or exc}); the site list"
-                                  " is unchanged.") from None
+            raise StoreWriteError(
+                f"Could not write sites.json ({exc.strerror or exc}); the site list is unchanged."
+            ) from None
         finally:
             self._sites_cache = None
 
@@ -122,8 +129,9 @@ class Tables:
         settings = ProgramSettings()
         if doc is not None:
             if int(doc.get("schema_version", 0)) > SCHEMA_VERSION:
-                raise NewerSchemaError("The settings were saved by a newer streamtab; update this one.",
-                                       doc.get("schema_version"))
+                raise NewerSchemaError(
+                    "The settings were saved by a newer streamtab; update this one.", doc.get("schema_version")
+                )
             try:
                 settings = ProgramSettings.model_validate_json(canonical_json_bytes(doc))
             except (ValidationError, ValueError):
@@ -135,9 +143,11 @@ class Tables:
         """Replaces the program settings (lock held by the caller)."""
         try:
             open_tinydb(self.settings_path).table("settings").upsert(
-                Document(checked.model_dump(mode="json"), doc_id=1))
+                Document(checked.model_dump(mode="json"), doc_id=1)
+            )
         except OSError as exc:
-            raise StoreWriteError(f"Could not write settings.json ({exc.strerror or exc}); the settings"
-                                  " are unchanged.") from None
+            raise StoreWriteError(
+                f"Could not write settings.json ({exc.strerror or exc}); the settings are unchanged."
+            ) from None
         finally:
             self._settings_cache = None

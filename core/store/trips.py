@@ -5,6 +5,7 @@ a changed file; writes go through TinyDB's own API on
 :class:`core.store.storage.AtomicJSONStorage` (temporary file, fsync, ``os.replace``, fsync of
 the folder), so a reader or a crash sees the old file or the new one, never a part.
 """
+
 from __future__ import annotations
 
 import re
@@ -34,6 +35,7 @@ def _replace_with(new: dict[str, Any]) -> Callable[[MutableMapping[Any, Any]], N
     def replace(doc: MutableMapping[Any, Any]) -> None:
         doc.clear()
         doc.update(new)
+
     return replace
 
 

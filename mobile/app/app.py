@@ -1,12 +1,13 @@
 """The composition root of the touch app: opens the store, builds the controller, loads the screens."""
+
 from __future__ import annotations
 
 import os
 import sys
 import time
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any, ClassVar
-from collections.abc import Callable
 
 HERE = Path(__file__).resolve().parent
 FONT_NAME = "StreamSans"
@@ -19,7 +20,7 @@ def configure_kivy(size: tuple[int, int] | None = None) -> None:
     os.environ.setdefault("KIVY_NO_CONSOLELOG", "1")
     os.environ.setdefault("KIVY_NO_FILELOG", "1")
     if sys.platform.startswith("linux"):
-        os.environ.setdefault("KIVY_CLIPBOARD", "sdl2")   # no probing for xclip/xsel
+        os.environ.setdefault("KIVY_CLIPBOARD", "sdl2")  # no probing for xclip/xsel
     from kivy.config import Config
 
     Config.set("kivy", "exit_on_escape", "0")
@@ -36,12 +37,16 @@ def _register_fonts() -> None:
 
     regular = Path(kivy.__file__).parent / "data" / "fonts" / "DejaVuSans.ttf"
     bold = Path("/usr/share/fonts/truetype/dejavu/DejaVuSans-Bold.ttf")
-    LabelBase.register(FONT_NAME, fn_regular=str(regular),
-                       fn_bold=str(bold if bold.exists() else regular))
+    LabelBase.register(FONT_NAME, fn_regular=str(regular), fn_bold=str(bold if bold.exists() else regular))
 
 
-def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path | None = None,
-              hook: Callable[[Any], None] | None = None):
+def build_app(
+    data_dir: Path,
+    *,
+    start_screen: str | None = None,
+    snapshot: Path | None = None,
+    hook: Callable[[Any], None] | None = None,
+):
     """Returns the App instance (not yet running). `hook(app)` runs once the first screen is drawn."""
     from kivy.app import App
     from kivy.clock import Clock
@@ -70,7 +75,7 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
             from core.science.conductivity import CONDUCTIVITY_UNITS
             from core.science.pressure import PRESSURE_UNITS
 
-            self.pressure_units = list(PRESSURE_UNITS)   # the unit pickers of every screen
+            self.pressure_units = list(PRESSURE_UNITS)  # the unit pickers of every screen
             self.cond_units = list(CONDUCTIVITY_UNITS)
             self.first_drawn_s: float | None = None
             self.first_drawn_epoch: float | None = None
@@ -78,8 +83,7 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
             from mobile.app.lab_bench import LabBench
 
             # lab mode: bench writes wait for the field form's queued saves and reload an open trip
-            self.bench = LabBench(self.store, before_write=self.ctl.worker.flush,
-                                  after_write=self._reload_if_open)
+            self.bench = LabBench(self.store, before_write=self.ctl.worker.flush, after_write=self._reload_if_open)
 
         def _reload_if_open(self, trip_id: str) -> None:
             if self.ctl.trip is not None and self.ctl.trip.id == trip_id:
@@ -91,15 +95,23 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
             Builder.load_file(str(HERE / "theme.kv"))
             for name in screens.KV_MODULES:
                 Builder.load_file(str(HERE / "screens" / f"{name}.kv"))
-            return super().load_kv(filename)   # the root: streamtab.kv beside this file
+            return super().load_kv(filename)  # the root: streamtab.kv beside this file
 
         def build(self):
             Window.clearcolor = self.palette["paper"]
             Window.bind(on_keyboard=self._back_key)
             return self.root
 
-        BACK: ClassVar[dict[str, str]] = {"stop": "trips", "bottles": "stop", "end": "stop", "start": "trips",
-                "sync": "trips", "settings": "trips", "bench": "trips", "sign": "bench"}
+        BACK: ClassVar[dict[str, str]] = {
+            "stop": "trips",
+            "bottles": "stop",
+            "end": "stop",
+            "start": "trips",
+            "sync": "trips",
+            "settings": "trips",
+            "bench": "trips",
+            "sign": "bench",
+        }
 
         def _back_key(self, _window, key, *_args):
             """Android's back button (Escape on a desktop) goes one screen back, never out of the app."""
@@ -169,6 +181,7 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
                     Clock.schedule_once(lambda _d: self.save_snapshot(snapshot, stop=True), 0.3)
                 if hook is not None:
                     hook(self)
+
             Clock.schedule_once(mark, 0)
 
         def save_snapshot(self, path: Path, stop: bool = False) -> Path:
@@ -197,8 +210,14 @@ def build_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path
     return StreamtabApp()
 
 
-def run_app(data_dir: Path, *, start_screen: str | None = None, snapshot: Path | None = None,
-            size: tuple[int, int] | None = None, hook: Callable[[Any], None] | None = None) -> int:
+def run_app(
+    data_dir: Path,
+    *,
+    start_screen: str | None = None,
+    snapshot: Path | None = None,
+    size: tuple[int, int] | None = None,
+    hook: Callable[[Any], None] | None = None,
+) -> int:
     configure_kivy(size)
     app = build_app(Path(data_dir), start_screen=start_screen, snapshot=snapshot, hook=hook)
     app.run()

@@ -5,33 +5,48 @@ friends), records and their QC from core.store / core.rules.qc, bottle clocks fr
 writes go through a single background worker (mobile.app.save_worker) so a slow flash card never
 freezes a field; sync runs in the background through `send`.
 """
+
 from __future__ import annotations
 
 import copy
 import threading
+from collections.abc import Callable
 from datetime import datetime
 from typing import Any
-from collections.abc import Callable
 
 from core.records.messages import when_text
 from mobile.app import device_files, records_bridge
 from mobile.app.device_files import AppPrefs
-from mobile.app.forms import (BOTTLE_KINDS, FIELD_LABELS, REQUIRED_STOP_FIELDS, BottleForm, CalForm,
-                              StopForm, TripForm)
+from mobile.app.forms import BOTTLE_KINDS, FIELD_LABELS, REQUIRED_STOP_FIELDS, BottleForm, CalForm, StopForm, TripForm
 from mobile.app.numeric import parse_decimal
 from mobile.app.save_worker import SaveWorker
 from mobile.app.theme import severity_mark
-from mobile.app.views import (CalView, ClockLine, FlagLine, Refusal, StopView, TripLine, error_line, flag_line,
-                              fmt_duration, fmt_value, fmt_when, local_now, parse_when)
+from mobile.app.views import (
+    CalView,
+    ClockLine,
+    FlagLine,
+    Refusal,
+    StopView,
+    TripLine,
+    error_line,
+    flag_line,
+    fmt_duration,
+    fmt_value,
+    fmt_when,
+    local_now,
+    parse_when,
+)
 
 __all__ = ["AppController"]
 
 # The program limits the settings screen edits: the ProgramSettings field, its words and unit on screen.
 # Their accepted ranges are the record's own (core.records.models.ProgramSettings), read by setting_range.
-SETTING_FIELDS = {"calibration_tolerance_mg_l": ("Calibration tolerance", "mg/L"),
-                  "warm_min_mg_l": ("Warm-water minimum", "mg/L"),
-                  "cold_min_mg_l": ("Cold-water minimum", "mg/L"),
-                  "supersaturation_percent": ("Supersaturation limit", "%")}
+SETTING_FIELDS = {
+    "calibration_tolerance_mg_l": ("Calibration tolerance", "mg/L"),
+    "warm_min_mg_l": ("Warm-water minimum", "mg/L"),
+    "cold_min_mg_l": ("Cold-water minimum", "mg/L"),
+    "supersaturation_percent": ("Supersaturation limit", "%"),
+}
 
 
 def setting_range(name: str) -> tuple[float | None, bool, float | None, bool]:
@@ -58,16 +73,20 @@ def setting_problem(name: str, text: str) -> tuple[float | None, str | None]:
 
     label, unit = SETTING_FIELDS[name]
     lo, lo_in, hi, hi_in = setting_range(name)
-    span = (f"from {lo:g} to {hi:g} {unit}" if lo_in and hi_in else
-            f"{'from' if lo_in else 'more than'} {lo:g} and {'up to' if hi_in else 'below'} {hi:g} {unit}")
+    span = (
+        f"from {lo:g} to {hi:g} {unit}"
+        if lo_in and hi_in
+        else f"{'from' if lo_in else 'more than'} {lo:g} and {'up to' if hi_in else 'below'} {hi:g} {unit}"
+    )
     try:
         value = parse_decimal(text, label=label)
     except DecimalError as exc:
         return None, str(exc)
     if value is None:
         return None, f"{label} is empty; type a value {span}."
-    ok = ((lo is None or (value >= lo if lo_in else value > lo))
-          and (hi is None or (value <= hi if hi_in else value < hi)))
+    ok = (lo is None or (value >= lo if lo_in else value > lo)) and (
+        hi is None or (value <= hi if hi_in else value < hi)
+    )
     if not ok:
         return None, f"{label} {value:g} {unit} is outside the accepted range; type a value {span}."
     return value, None
@@ -76,8 +95,9 @@ def setting_problem(name: str, text: str) -> tuple[float | None, str | None]:
 class AppController:
     """The app's state and logic. `store` is a core.store.DeviceStore (or anything with its methods)."""
 
-    def __init__(self, store: Any, *, now: Callable[[], datetime] = local_now,
-                 worker: SaveWorker | None = None) -> None:
+    def __init__(
+        self, store: Any, *, now: Callable[[], datetime] = local_now, worker: SaveWorker | None = None
+    ) -> None:
         self.store = store
         self.bridge = records_bridge
         self.now = now
@@ -86,10 +106,10 @@ class AppController:
         self.prefs = AppPrefs()
         self.trip: TripForm | None = None
         self.stop_id: str | None = None
-        self._saved: dict[str, Any] = {}      # trip id -> last Trip record the store returned
+        self._saved: dict[str, Any] = {}  # trip id -> last Trip record the store returned
         # trip id -> the form as it was when last in step with the store (what edits are told from)
         self._base_form: dict[str, TripForm] = {}
-        self._rebased: dict[str, tuple[TripForm, TripForm]] = {}   # save worker -> UI thread
+        self._rebased: dict[str, tuple[TripForm, TripForm]] = {}  # save worker -> UI thread
         self._rebase_lock = threading.Lock()
         self._sites: list[Any] | None = None
         self._other_labels: dict[str, str] | None = None
@@ -165,10 +185,15 @@ class AppController:
         self.prefs = prefs
 
     def save_prefs(self, prefs: AppPrefs) -> None:
-        st = self.store.settings().model_copy(update={
-            "warm_min_mg_l": prefs.warm_min_mg_l, "cold_min_mg_l": prefs.cold_min_mg_l,
-            "supersaturation_percent": prefs.supersaturation_percent,
-            "calibration_tolerance_mg_l": prefs.tolerance_mg_l, "method": prefs.method})
+        st = self.store.settings().model_copy(
+            update={
+                "warm_min_mg_l": prefs.warm_min_mg_l,
+                "cold_min_mg_l": prefs.cold_min_mg_l,
+                "supersaturation_percent": prefs.supersaturation_percent,
+                "calibration_tolerance_mg_l": prefs.tolerance_mg_l,
+                "method": prefs.method,
+            }
+        )
         self.store.save_settings(st)
         device_files.write_local_prefs(self.store.data_dir, prefs)
         self.prefs = prefs
@@ -208,12 +233,18 @@ class AppController:
             if problem:
                 return problem
             values[name] = value
-        prefs = AppPrefs(temp_unit=units["temp_unit"], pressure_unit=units["pressure_unit"],
-                         cond_unit=units["cond_unit"], do_unit=units["do_unit"],
-                         tolerance_mg_l=values["calibration_tolerance_mg_l"],
-                         warm_min_mg_l=values["warm_min_mg_l"], cold_min_mg_l=values["cold_min_mg_l"],
-                         supersaturation_percent=values["supersaturation_percent"],
-                         sync_target=sync_target.strip(), method=self.prefs.method)
+        prefs = AppPrefs(
+            temp_unit=units["temp_unit"],
+            pressure_unit=units["pressure_unit"],
+            cond_unit=units["cond_unit"],
+            do_unit=units["do_unit"],
+            tolerance_mg_l=values["calibration_tolerance_mg_l"],
+            warm_min_mg_l=values["warm_min_mg_l"],
+            cold_min_mg_l=values["cold_min_mg_l"],
+            supersaturation_percent=values["supersaturation_percent"],
+            sync_target=sync_target.strip(),
+            method=self.prefs.method,
+        )
         try:
             self.save_prefs(prefs)
         except Exception as exc:  # noqa: BLE001 - store refusals are one sentence
@@ -229,8 +260,9 @@ class AppController:
         except Exception:  # noqa: BLE001 - the list still shows without sync state
             return {}
 
-    def send(self, target: str, *, progress: Callable[..., None],
-             on_done: Callable[[Any, BaseException | None], None]) -> str | None:
+    def send(
+        self, target: str, *, progress: Callable[..., None], on_done: Callable[[Any, BaseException | None], None]
+    ) -> str | None:
         """Sends every trip to the hub `target` in the background; returns a refusal, or None once started.
 
         The hub becomes this tablet's default. What was typed is saved first: the push waits for
@@ -253,7 +285,7 @@ class AppController:
         self.save_now()
 
         def push_after_saves(store: Any, address: str, **kwargs: Any) -> Any:
-            self.worker.flush(10)   # what was typed goes out too
+            self.worker.flush(10)  # what was typed goes out too
             return sync.push(store, address, **kwargs)
 
         sync.run_in_background(push_after_saves, self.store, target, progress=progress, on_done=on_done)
@@ -276,13 +308,14 @@ class AppController:
                 status = "ended, not sent"
             detail = f"{started} · {t.stop_count} stop{'s' if t.stop_count != 1 else ''}"
             state = t.review_state
-            if state is None or state == "returned":     # None: a summary from an older build
+            if state is None or state == "returned":  # None: a summary from an older build
                 doc = self.store.trip_document(t.id)
                 state = review_state(doc)
                 if state == "returned":
                     why = describe(doc)
-                    returned.append(TripLine(t.id, title, "returned by the office",
-                                             f"{detail}\n{why[:1].upper()}{why[1:]}"))
+                    returned.append(
+                        TripLine(t.id, title, "returned by the office", f"{detail}\n{why[:1].upper()}{why[1:]}")
+                    )
                     continue
             if state in ("reviewed", "approved"):
                 status = state
@@ -358,21 +391,27 @@ class AppController:
         problem = self.cal_problem(form.pre_cal)
         if problem:
             return Refusal(f"Pre-trip calibration: {problem}", "calibration")
-        empty = not any((form.pre_cal.temp_text.strip(), form.pre_cal.pressure_text.strip(),
-                         form.pre_cal.reading_text.strip()))
+        empty = not any(
+            (form.pre_cal.temp_text.strip(), form.pre_cal.pressure_text.strip(), form.pre_cal.reading_text.strip())
+        )
         if empty and not without_calibration:
-            return Refusal("No pre-trip calibration is entered. Type it in the calibration panel, or tap "
-                           "“Start without calibration” to record that this trip has none.", "no calibration")
+            return Refusal(
+                "No pre-trip calibration is entered. Type it in the calibration panel, or tap "
+                "“Start without calibration” to record that this trip has none.",
+                "no calibration",
+            )
         form.started_without_calibration = empty
         form.started_at = form.started_at or self.now()
         self.trip = form
         self.stop_id = None
         self._other_labels = None
-        self.save_now(wait=True, change="trip started" + (" without calibration" if form.started_without_calibration else ""))
+        self.save_now(
+            wait=True, change="trip started" + (" without calibration" if form.started_without_calibration else "")
+        )
         return None
 
     def open_trip(self, trip_id: str) -> TripForm:
-        self.worker.flush()   # a save still on its way would make the loaded copy stale
+        self.worker.flush()  # a save still on its way would make the loaded copy stale
         model = self.store.load_trip(trip_id)
         self._saved[trip_id] = model
         self._other_labels = None
@@ -409,9 +448,13 @@ class AppController:
         return self.trip.stops.index(stop) + 1 if self.trip else 0
 
     def new_stop(self) -> StopForm:
-        stop = StopForm(arrived_at=self.now(), temp_unit=self.prefs.temp_unit,
-                        pressure_unit=self.prefs.pressure_unit, cond_unit=self.prefs.cond_unit,
-                        do_unit=self.prefs.do_unit)
+        stop = StopForm(
+            arrived_at=self.now(),
+            temp_unit=self.prefs.temp_unit,
+            pressure_unit=self.prefs.pressure_unit,
+            cond_unit=self.prefs.cond_unit,
+            do_unit=self.prefs.do_unit,
+        )
         self.trip.stops.append(stop)
         self.stop_id = stop.id
         self.save_later()
@@ -424,7 +467,7 @@ class AppController:
             stop.arrived_at = self.now()
         elif name == "arrived":
             if stop.arrived_at is not None and (value or "").strip() == fmt_when(stop.arrived_at):
-                return self.stop_view()      # shown as it is stored: nothing changed (seconds kept)
+                return self.stop_view()  # shown as it is stored: nothing changed (seconds kept)
             try:
                 stop.arrived_at = parse_when(value, stop.arrived_at)
             except ValueError:
@@ -436,10 +479,18 @@ class AppController:
         elif name == "site":
             stop.site_id = value
         else:
-            attr = {"temp": "temp_text", "temp_unit": "temp_unit", "pressure": "pressure_text",
-                    "pressure_unit": "pressure_unit", "conductivity": "cond_text",
-                    "cond_unit": "cond_unit", "cond_is_sc25": "cond_is_sc25", "do": "do_text",
-                    "do_unit": "do_unit", "notes": "notes"}[name]
+            attr = {
+                "temp": "temp_text",
+                "temp_unit": "temp_unit",
+                "pressure": "pressure_text",
+                "pressure_unit": "pressure_unit",
+                "conductivity": "cond_text",
+                "cond_unit": "cond_unit",
+                "cond_is_sc25": "cond_is_sc25",
+                "do": "do_text",
+                "do_unit": "do_unit",
+                "notes": "notes",
+            }[name]
             setattr(stop, attr, value)
         self.save_later()
         return self.stop_view()
@@ -482,9 +533,17 @@ class AppController:
         if record is None:
             if not stop.site_id:
                 sym, _word = severity_mark("note")
-                lines.insert(0, FlagLine("input.site", "note", sym, "PICK SITE",
-                                         "Pick the site first: its elevation checks the pressure, "
-                                         "its water class the criteria.", ""))
+                lines.insert(
+                    0,
+                    FlagLine(
+                        "input.site",
+                        "note",
+                        sym,
+                        "PICK SITE",
+                        "Pick the site first: its elevation checks the pressure, its water class the criteria.",
+                        "",
+                    ),
+                )
             view.flags = lines
             return view
         live = self.site(stop.site_id)
@@ -495,15 +554,23 @@ class AppController:
             view.sat_text = fmt_value(d.do_sat_mg_l, 2, "mg/L")
             view.percent_text = fmt_value(d.percent_saturation, 1, "%")
             view.do_text = fmt_value(d.do_mg_l, 2, "mg/L")
-            source = {"given": "as given", "conductivity": "from conductivity",
-                      "default": "fresh water"}.get(d.salinity_source, d.salinity_source)
+            source = {"given": "as given", "conductivity": "from conductivity", "default": "fresh water"}.get(
+                d.salinity_source, d.salinity_source
+            )
             view.salinity_text = f"{d.salinity:.2f} ({source})"
         labels = Counter(b.label for s in self.trip.stops for b in s.bottles)
         prev = self._previous_record(stop)
-        flags = stop_flags(record, self.settings(), self.now(), site=site,
-                           previous=prev, labels_in_trip=labels,
-                           other_bottle_labels=self.labels_elsewhere(), trip_id=self.trip.id,
-                           sites_known=True)
+        flags = stop_flags(
+            record,
+            self.settings(),
+            self.now(),
+            site=site,
+            previous=prev,
+            labels_in_trip=labels,
+            other_bottle_labels=self.labels_elsewhere(),
+            trip_id=self.trip.id,
+            sites_known=True,
+        )
         flags = sorted(flags, key=lambda f: -f.severity.rank)
         lines.extend(flag_line(f) for f in flags)
         view.flags = lines
@@ -523,13 +590,19 @@ class AppController:
 
     # ------------------------------------------------------------------ closing a stop
     def close_problem(self, stop: StopForm) -> str | None:
-        filled = {"site": bool(stop.site_id), "arrived": stop.arrived_at is not None,
-                  "temp": bool(stop.temp_text.strip()), "pressure": bool(stop.pressure_text.strip()),
-                  "do": bool(stop.do_text.strip())}
+        filled = {
+            "site": bool(stop.site_id),
+            "arrived": stop.arrived_at is not None,
+            "temp": bool(stop.temp_text.strip()),
+            "pressure": bool(stop.pressure_text.strip()),
+            "do": bool(stop.do_text.strip()),
+        }
         missing = [FIELD_LABELS[name] for name in REQUIRED_STOP_FIELDS if not filled[name]]
         if missing:
-            return (f"{', '.join(missing)} {'is' if len(missing) == 1 else 'are'} empty; "
-                    "fill in every required field before closing the stop.")
+            return (
+                f"{', '.join(missing)} {'is' if len(missing) == 1 else 'are'} empty; "
+                "fill in every required field before closing the stop."
+            )
         errors = self.bridge.stop_problems(stop)
         if errors:
             return next(iter(errors.values()))
@@ -579,15 +652,20 @@ class AppController:
             for b in s.bottles:
                 if b.label.casefold() == key:
                     where = "this stop" if s is stop else f"stop {self.stop_number(s)}"
-                    return (f"Bottle ID {label} is already used at {where} of this trip; "
-                            "each bottle needs its own ID — check the label or scan again.")
+                    return (
+                        f"Bottle ID {label} is already used at {where} of this trip; "
+                        "each bottle needs its own ID — check the label or scan again."
+                    )
         other = {k.casefold(): v for k, v in self.labels_elsewhere().items()}
         if key in other:
-            return (f"Bottle ID {label} is already used in another trip on this tablet "
-                    f"(trip {other[key][:8]}); each bottle needs its own ID — check the label.")
+            return (
+                f"Bottle ID {label} is already used in another trip on this tablet "
+                f"(trip {other[key][:8]}); each bottle needs its own ID — check the label."
+            )
         now = self.now()
-        stop.bottles.append(BottleForm(label=label, kind=kind, collected_at=now,
-                                       fixed_at=now if (fixed and kind != "bod") else None))
+        stop.bottles.append(
+            BottleForm(label=label, kind=kind, collected_at=now, fixed_at=now if (fixed and kind != "bod") else None)
+        )
         self.save_later()
         return None
 
@@ -624,9 +702,12 @@ class AppController:
                 kind_word = dict(BOTTLE_KINDS)[self.bridge.RECORD_TO_KIND[b.kind]]
                 clock = bottle_clock(b, now, stop_bottles=bottles, overrides=overrides)
                 if clock is None:
-                    if b.kind != "blank" and b.collected_at <= now:   # a valid result: no clock runs
-                        out.append(ClockLine(s.id, b.label, kind_word, where, float("inf"), False,
-                                             "result recorded", "○", "ANALYSED"))
+                    if b.kind != "blank" and b.collected_at <= now:  # a valid result: no clock runs
+                        out.append(
+                            ClockLine(
+                                s.id, b.label, kind_word, where, float("inf"), False, "result recorded", "○", "ANALYSED"
+                            )
+                        )
                     continue
                 dl = clock.deadline.astimezone()
                 deadline = dl.strftime("%H:%M") if dl.date() == now.astimezone().date() else dl.strftime("%a %H:%M")
@@ -643,8 +724,9 @@ class AppController:
                     text = f"{fmt_duration(clock.remaining_s)} left · deadline {deadline}"
                 if clock.kind == "do_winkler" and b.fixed_at is None:
                     text += " · NOT FIXED YET"
-                out.append(ClockLine(s.id, b.label, kind_word, where, clock.remaining_s, clock.expired,
-                                     text, symbol, word))
+                out.append(
+                    ClockLine(s.id, b.label, kind_word, where, clock.remaining_s, clock.expired, text, symbol, word)
+                )
         out.sort(key=lambda c: c.remaining_s)
         return out
 
@@ -676,11 +758,16 @@ class AppController:
             return view
         view.result = res
         view.verdict = "PASS" if res.passed else "FAIL"
-        view.detail = (f"Reading {res.reading_mg_l:.2f} mg/L is {res.difference_mg_l:+.2f} mg/L from the target "
-                       f"(tolerance ±{res.tolerance_mg_l:.2f} mg/L).")
+        view.detail = (
+            f"Reading {res.reading_mg_l:.2f} mg/L is {res.difference_mg_l:+.2f} mg/L from the target "
+            f"(tolerance ±{res.tolerance_mg_l:.2f} mg/L)."
+        )
         if not res.passed:
-            view.detail += (" Readings of this trip may have drifted: note it and tell your QA lead."
-                            if post else " Recalibrate the meter per your SOP, then check again.")
+            view.detail += (
+                " Readings of this trip may have drifted: note it and tell your QA lead."
+                if post
+                else " Recalibrate the meter per your SOP, then check again."
+            )
         if cal.at is None:
             cal.at = self.now()
         return view
@@ -701,8 +788,7 @@ class AppController:
                     out.append(f"{sym} {word}: {where}: {msg}")
             for f in self.stop_view(s).flags:
                 if f.severity != "note":
-                    out.append(f"{f.symbol} {f.word}: {where}: {f.message}"
-                               + (f" — {f.action}" if f.action else ""))
+                    out.append(f"{f.symbol} {f.word}: {where}: {f.message}" + (f" — {f.action}" if f.action else ""))
         for c in self.clock_lines():
             if c.word in ("EXPIRED", "SOON"):
                 out.append(f"{c.symbol} {c.word}: bottle {c.label} ({c.where}): {c.text}")
@@ -713,8 +799,9 @@ class AppController:
             out.append(f"{sym} {word}: pre-trip calibration failed: {pre.detail}")
         elif self.trip.started_without_calibration:
             sym, word = severity_mark("warning")
-            out.append(f"{sym} {word}: this trip was started without a pre-trip calibration "
-                       "(recorded when it started).")
+            out.append(
+                f"{sym} {word}: this trip was started without a pre-trip calibration (recorded when it started)."
+            )
         elif not pre.verdict and self.trip.stops:
             sym, word = severity_mark("warning")
             out.append(f"{sym} {word}: no pre-trip calibration recorded for this trip.")
@@ -765,7 +852,7 @@ class AppController:
 
         if self.trip is None:
             return "No trip is open."
-        self.flush()                       # what was typed is in the store before it is read back
+        self.flush()  # what was typed is in the store before it is read back
         by = self.settler()
         at = self.now().astimezone(timezone.utc)
         said: dict[str, Any] = {}
@@ -874,8 +961,11 @@ class AppController:
                 # edited here since the form was last in step with the store goes on the stored trip
                 stored = self.store.load_trip(snapshot.id)
                 base = self._base_form.get(snapshot.id)
-                merged = (self.bridge.rebase_form(snapshot, base, self.bridge.form_from_trip(stored))
-                          if base is not None else snapshot)
+                merged = (
+                    self.bridge.rebase_form(snapshot, base, self.bridge.form_from_trip(stored))
+                    if base is not None
+                    else snapshot
+                )
                 saved = self.store.save_trip(self.bridge.trip_from_form(merged, stored, self), change)
                 self._base_form[snapshot.id] = merged
                 with self._rebase_lock:

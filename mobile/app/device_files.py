@@ -3,6 +3,7 @@
 Neither is trip data: `app-prefs.json` holds this tablet's default units and hub address,
 `app-state.json` the trip, stop and screen the app was on (a cursor to resume at).
 """
+
 from __future__ import annotations
 
 import json
@@ -12,11 +13,18 @@ from typing import Any
 
 from core.store.atomic import atomic_write_bytes
 
-__all__ = ["AppPrefs", "APP_STATE_FILE", "APP_PREFS_FILE", "read_local_prefs", "write_local_prefs",
-           "read_state", "write_state"]
+__all__ = [
+    "AppPrefs",
+    "APP_STATE_FILE",
+    "APP_PREFS_FILE",
+    "read_local_prefs",
+    "write_local_prefs",
+    "read_state",
+    "write_state",
+]
 
-APP_STATE_FILE = "app-state.json"   # where the app was (trip, stop, screen) — UI cursor, not data
-APP_PREFS_FILE = "app-prefs.json"   # this device's default units and hub address
+APP_STATE_FILE = "app-state.json"  # where the app was (trip, stop, screen) — UI cursor, not data
+APP_PREFS_FILE = "app-prefs.json"  # this device's default units and hub address
 LOCAL_PREFS = ("temp_unit", "pressure_unit", "cond_unit", "do_unit", "sync_target")
 
 

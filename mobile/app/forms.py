@@ -3,14 +3,23 @@
 The controller turns these into store records (mobile.app.records_bridge) and into derived values
 through core; the screens only show them. Text is kept exactly as typed so nothing is re-rounded.
 """
+
 from __future__ import annotations
 
 import uuid
 from dataclasses import dataclass, field
 from datetime import datetime
 
-__all__ = ["BottleForm", "StopForm", "CalForm", "TripForm", "BOTTLE_KINDS", "new_id",
-           "REQUIRED_STOP_FIELDS", "FIELD_LABELS"]
+__all__ = [
+    "BottleForm",
+    "StopForm",
+    "CalForm",
+    "TripForm",
+    "BOTTLE_KINDS",
+    "new_id",
+    "REQUIRED_STOP_FIELDS",
+    "FIELD_LABELS",
+]
 
 
 def new_id() -> str:
@@ -60,14 +69,14 @@ class StopForm:
     site_id: str = ""
     arrived_at: datetime | None = None
     temp_text: str = ""
-    temp_unit: str = "C"               # "C" | "F"
+    temp_unit: str = "C"  # "C" | "F"
     pressure_text: str = ""
     pressure_unit: str = "hPa"
     cond_text: str = ""
     cond_unit: str = "uS/cm"
-    cond_is_sc25: bool = False         # False: measured at water temperature
+    cond_is_sc25: bool = False  # False: measured at water temperature
     do_text: str = ""
-    do_unit: str = "mg/L"              # "mg/L" | "%"
+    do_unit: str = "mg/L"  # "mg/L" | "%"
     notes: str = ""
     closed: bool = False
     closed_at: datetime | None = None
@@ -91,7 +100,7 @@ class TripForm:
     program: str = ""
     crew: str = ""
     meter_id: str = ""
-    meter_percent_basis: str | None = None   # "local" | "sea-level" | None (the program setting)
+    meter_percent_basis: str | None = None  # "local" | "sea-level" | None (the program setting)
     started_at: datetime | None = None
     ended_at: datetime | None = None
     started_without_calibration: bool = False

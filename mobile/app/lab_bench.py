@@ -1,11 +1,12 @@
 """The lab mode's logic (no kivy): bottles waiting, Winkler with the day's standardisation, a BOD series as
 typed, and signing hand-offs. The bench and signature screens forward to it; it calls core and the store."""
+
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from typing import Any
-from collections.abc import Callable
 
 __all__ = ["LabBench", "WaitingRow", "DilutionLine", "utc_now"]
 
@@ -53,9 +54,14 @@ class LabBench:
     STD_ML = 20.0
     STD_N = 0.025
 
-    def __init__(self, store: Any, *, now: Callable[[], datetime] = utc_now,
-                 before_write: Callable[[], None] | None = None,
-                 after_write: Callable[[str], None] | None = None) -> None:
+    def __init__(
+        self,
+        store: Any,
+        *,
+        now: Callable[[], datetime] = utc_now,
+        before_write: Callable[[], None] | None = None,
+        after_write: Callable[[str], None] | None = None,
+    ) -> None:
         self.store = store
         self.now = now
         self.before_write = before_write or (lambda: None)
@@ -70,8 +76,9 @@ class LabBench:
         try:
             v = parse_number((text or "").strip(), label)
         except InputError:
-            raise ValueError(f"{label}: “{text}” is not a number; type digits such as 8.75 (a decimal comma is"
-                             " fine).") from None
+            raise ValueError(
+                f"{label}: “{text}” is not a number; type digits such as 8.75 (a decimal comma is fine)."
+            ) from None
         if not lo <= v <= hi:
             raise ValueError(f"{label}: {v:g} {unit} is outside {lo:g}–{hi:g} {unit}.")
         return v
@@ -91,8 +98,17 @@ class LabBench:
         out = []
         for p in pending_bottles(trips, self.now()):
             what = "Winkler DO" if p.analyte == WINKLER_ANALYTE else "BOD5"
-            out.append(WaitingRow(p.trip_id, p.bottle_id, p.label, what, p.site_id,
-                                  f"{p.label} · {what} · {p.site_id} · {_left(p.remaining_s)}", p.expired))
+            out.append(
+                WaitingRow(
+                    p.trip_id,
+                    p.bottle_id,
+                    p.label,
+                    what,
+                    p.site_id,
+                    f"{p.label} · {what} · {p.site_id} · {_left(p.remaining_s)}",
+                    p.expired,
+                )
+            )
         return out
 
     # ---------------------------------------------------------------- the day's standardisation
@@ -101,8 +117,9 @@ class LabBench:
         from core.rules.lab import Standardisation
 
         ml = self._number(titrant_text, "Thiosulfate on the standard", 0.1, 100.0, "mL")
-        self.standardisation = Standardisation(titrant_ml=ml, standard_ml=self.STD_ML,
-                                               standard_normality=self.STD_N, standardised_at=self.now())
+        self.standardisation = Standardisation(
+            titrant_ml=ml, standard_ml=self.STD_ML, standard_normality=self.STD_N, standardised_at=self.now()
+        )
         return self.standardisation_text()
 
     def standardisation_text(self) -> str:
@@ -141,8 +158,7 @@ class LabBench:
         self.after_write(saved.id)
         return said["out"]
 
-    def winkler(self, trip_id: str, bottle_id: str, titrant_text: str, titrated_text: str,
-                analyst: str = "") -> str:
+    def winkler(self, trip_id: str, bottle_id: str, titrant_text: str, titrated_text: str, analyst: str = "") -> str:
         """Records a titration with today's standardisation; returns the sentence the screen shows."""
         from core.rules.lab import record_winkler
 
@@ -153,12 +169,22 @@ class LabBench:
         std, at = self.standardisation, self.now()
         out = self._write(
             trip_id,
-            lambda trip: record_winkler(trip, bottle_id, titrant_ml=titrant, titrated_ml=titrated,
-                                        standardisation=std, analysed_at=at, now=at, analyst=analyst),
-            lambda o: f"lab: Winkler DO {o.result.value:.2f} mg/L on bottle {o.bottle.label} (bench)")
+            lambda trip: record_winkler(
+                trip,
+                bottle_id,
+                titrant_ml=titrant,
+                titrated_ml=titrated,
+                standardisation=std,
+                analysed_at=at,
+                now=at,
+                analyst=analyst,
+            ),
+            lambda o: f"lab: Winkler DO {o.result.value:.2f} mg/L on bottle {o.bottle.label} (bench)",
+        )
         worst = [f for f in out.flags if f.severity.value != "note"]
-        return (f"{out.bottle.label}: Winkler DO {out.result.value:.2f} mg/L saved."
-                + (f" {worst[0].message}" if worst else ""))
+        return f"{out.bottle.label}: Winkler DO {out.result.value:.2f} mg/L saved." + (
+            f" {worst[0].message}" if worst else ""
+        )
 
     # ---------------------------------------------------------------- a BOD series as typed
     def bod_lines(self, rows: list[tuple[str, str, str, str]]) -> tuple[list[DilutionLine], str, list[dict]]:
@@ -173,24 +199,34 @@ class LabBench:
                 lines.append(DilutionLine("", None))
                 continue
             try:
-                d = {"sample_ml": self._number(sample, "Sample", 0.1, 300.0, "mL"),
-                     "bottle_ml": self._number(bottle or "300", "Bottle", 1.0, 2000.0, "mL"),
-                     "initial_do_mg_l": self._number(d1, "Initial DO", 0.0, 20.0, "mg/L"),
-                     "final_do_mg_l": self._number(d2, "Day-5 DO", 0.0, 20.0, "mg/L")}
+                d = {
+                    "sample_ml": self._number(sample, "Sample", 0.1, 300.0, "mL"),
+                    "bottle_ml": self._number(bottle or "300", "Bottle", 1.0, 2000.0, "mL"),
+                    "initial_do_mg_l": self._number(d1, "Initial DO", 0.0, 20.0, "mg/L"),
+                    "final_do_mg_l": self._number(d2, "Day-5 DO", 0.0, 20.0, "mg/L"),
+                }
                 r = bod_dilution(**d)
             except ValueError as exc:
                 lines.append(DilutionLine(str(exc).splitlines()[0], None))
                 continue
             why = "" if r.valid else " — " + (r.flags[0].message if r.flags else "does not count")
-            lines.append(DilutionLine(f"{r.bod_mg_l:.1f} mg/L, depletion {r.depletion_mg_l:.2f} mg/L,"
-                                      f" {'counts' if r.valid else 'does not count'}{why}", r.valid))
+            lines.append(
+                DilutionLine(
+                    f"{r.bod_mg_l:.1f} mg/L, depletion {r.depletion_mg_l:.2f} mg/L,"
+                    f" {'counts' if r.valid else 'does not count'}{why}",
+                    r.valid,
+                )
+            )
             good.append(d)
         if not good:
             return lines, "Reportable BOD5: type a dilution.", good
         res = bod_from_dilutions(good)
         # The reportable result by the Standard Methods 5210 B rules, bounds included ("< 2.0 mg/L").
-        shown = res.report.text if res.report is not None else (
-            "no valid dilution" if res.bod_mg_l is None else f"{res.bod_mg_l:.1f} mg/L")
+        shown = (
+            res.report.text
+            if res.report is not None
+            else ("no valid dilution" if res.bod_mg_l is None else f"{res.bod_mg_l:.1f} mg/L")
+        )
         return lines, f"Reportable BOD5: {shown}", good
 
     def bod(self, trip_id: str, bottle_id: str, rows: list[tuple[str, str, str, str]], analyst: str = "") -> str:
@@ -203,13 +239,17 @@ class LabBench:
 
         def record(trip: Any) -> Any:
             _, bottle, _ = find_bottle(trip, bottle_id)
-            return record_bod(trip, bottle_id, dilutions=good, analysed_at=at, now=at,
-                              analyst=analyst, batch=batch_for(trip, bottle))
+            return record_bod(
+                trip, bottle_id, dilutions=good, analysed_at=at, now=at, analyst=analyst, batch=batch_for(trip, bottle)
+            )
 
         out = self._write(trip_id, record, lambda o: f"lab: BOD5 on bottle {o.bottle.label} (bench)")
         rep = reported_bod(out.result)
-        shown = rep.text if rep is not None else (
-            "no valid dilution" if out.result.value is None else f"{out.result.value:.1f} mg/L")
+        shown = (
+            rep.text
+            if rep is not None
+            else ("no valid dilution" if out.result.value is None else f"{out.result.value:.1f} mg/L")
+        )
         return f"{out.bottle.label}: BOD5 {shown} saved."
 
     # ---------------------------------------------------------------- signing hand-offs
@@ -218,15 +258,21 @@ class LabBench:
         trip = self.store.load_trip(trip_id)
         out = []
         for r in sorted(trip.custody, key=lambda r: r.at):
-            for role, name, sig in (("relinquished", r.relinquished_by, r.relinquished_signature),
-                                    ("received", r.received_by, r.received_signature)):
+            for role, name, sig in (
+                ("relinquished", r.relinquished_by, r.relinquished_signature),
+                ("received", r.received_by, r.received_signature),
+            ):
                 if sig is None:
-                    out.append((r.id, role, f"{name} ({role} by) — {r.relinquished_by} → {r.received_by},"
-                                            f" {r.at:%Y-%m-%d %H:%M}"))
+                    out.append(
+                        (
+                            r.id,
+                            role,
+                            f"{name} ({role} by) — {r.relinquished_by} → {r.received_by}, {r.at:%Y-%m-%d %H:%M}",
+                        )
+                    )
         return out
 
-    def sign(self, trip_id: str, record_id: str, role: str, strokes: list[list[list[float]]],
-             aspect: float) -> str:
+    def sign(self, trip_id: str, record_id: str, role: str, strokes: list[list[list[float]]], aspect: float) -> str:
         from core.records.models import Signature
         from core.rules.custody import CustodyInputError, sign_handoff
 

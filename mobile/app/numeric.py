@@ -4,10 +4,10 @@ Kivy's stock ``input_filter='float'`` drops characters it does not like, so "3,5
 "1e-3" becomes 13 without a word. Here an insertion is either taken whole or refused whole, and a
 refusal comes back as one sentence the screen shows next to the field. Pure Python: no kivy.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
-
 
 __all__ = ["InsertCheck", "check_insert", "parse_decimal", "DecimalError"]
 
@@ -39,8 +39,9 @@ def _describe(ch: str) -> str:
     return f"“{ch}”"
 
 
-def check_insert(current: str, cursor: int, substring: str, *, allow_negative: bool = False,
-                 label: str = "This field") -> InsertCheck:
+def check_insert(
+    current: str, cursor: int, substring: str, *, allow_negative: bool = False, label: str = "This field"
+) -> InsertCheck:
     """Decides whether `substring` may be inserted into `current` at `cursor`.
 
     Accepts digits, one decimal separator (point or comma) and, when `allow_negative`, a leading

@@ -5,6 +5,7 @@ value as read, normalised value). A value the records refuse (e.g. "68" in °C) 
 number; its text is kept in the stop's ``draft_text`` (an extra field the store keeps) so that a
 restart shows what was typed.
 """
+
 from __future__ import annotations
 
 import copy
@@ -15,9 +16,24 @@ from typing import Any
 
 from mobile.app.forms import BottleForm, CalForm, StopForm, TripForm
 
-__all__ = ["site_title", "make_site", "quantity", "stop_document", "stop_record", "stop_problems", "bottle_records",
-           "cal_conditions", "cal_reading", "cal_document", "trip_from_form", "form_from_trip", "rebase_form",
-           "KIND_TO_RECORD", "RECORD_TO_KIND", "TEMP_UNIT_TEXT"]
+__all__ = [
+    "site_title",
+    "make_site",
+    "quantity",
+    "stop_document",
+    "stop_record",
+    "stop_problems",
+    "bottle_records",
+    "cal_conditions",
+    "cal_reading",
+    "cal_document",
+    "trip_from_form",
+    "form_from_trip",
+    "rebase_form",
+    "KIND_TO_RECORD",
+    "RECORD_TO_KIND",
+    "TEMP_UNIT_TEXT",
+]
 
 TEMP_UNIT_TEXT = {"C": "°C", "F": "°F"}
 KIND_TO_RECORD = {"do_fixed": "do-fixed", "bod": "bod", "duplicate": "duplicate", "blank": "blank"}
@@ -86,15 +102,20 @@ def quantity(kind: str, field: str, text: str, unit: str, previous: dict[str, An
     q = measure(kind, f"{text} {unit}", field=field)
     if previous:
         old = Quantity.model_validate(previous)
-        if (_number_text(previous)[0] == text and _unit_key(old.entered_unit) == _unit_key(q.entered_unit)
-                and math.isclose(old.value, q.value, rel_tol=1e-12, abs_tol=1e-12)
-                and math.isclose(old.entered_value, q.entered_value, rel_tol=1e-12, abs_tol=1e-12)):
+        if (
+            _number_text(previous)[0] == text
+            and _unit_key(old.entered_unit) == _unit_key(q.entered_unit)
+            and math.isclose(old.value, q.value, rel_tol=1e-12, abs_tol=1e-12)
+            and math.isclose(old.entered_value, q.entered_value, rel_tol=1e-12, abs_tol=1e-12)
+        ):
             return old
     return q
 
 
-def _quantities(form: StopForm, previous: dict[str, Any] | None = None,
-                ) -> tuple[dict[str, Any], dict[str, str], dict[str, str]]:
+def _quantities(
+    form: StopForm,
+    previous: dict[str, Any] | None = None,
+) -> tuple[dict[str, Any], dict[str, str], dict[str, str]]:
     """The stop's typed values as Quantity documents; refusals by field; drafts (text of refusals)."""
     from core.records.models import InputError
 
@@ -127,7 +148,9 @@ def stop_problems(form: StopForm) -> dict[str, str]:
     return _quantities(form)[1]
 
 
-def stop_document(form: StopForm, previous: dict[str, Any] | None = None) -> tuple[dict[str, Any] | None, dict[str, str]]:
+def stop_document(
+    form: StopForm, previous: dict[str, Any] | None = None
+) -> tuple[dict[str, Any] | None, dict[str, str]]:
     """The stop as a JSON document (None until a site is picked) and the refusals by field."""
     values, errors, drafts = _quantities(form, previous)
     if not form.site_id or form.arrived_at is None:
@@ -137,15 +160,26 @@ def stop_document(form: StopForm, previous: dict[str, Any] | None = None) -> tup
     bottles = []
     for b in form.bottles:
         bd = dict(old_bottles.get(b.id) or {})
-        bd.update(id=b.id, label=b.label, kind=KIND_TO_RECORD[b.kind],
-                  collected_at=_kept_time(b.collected_at, bd.get("collected_at")),
-                  fixed_at=_kept_time(b.fixed_at, bd.get("fixed_at")),
-                  preservation=bd.get("preservation") or PRESERVATION[b.kind])
+        bd.update(
+            id=b.id,
+            label=b.label,
+            kind=KIND_TO_RECORD[b.kind],
+            collected_at=_kept_time(b.collected_at, bd.get("collected_at")),
+            fixed_at=_kept_time(b.fixed_at, bd.get("fixed_at")),
+            preservation=bd.get("preservation") or PRESERVATION[b.kind],
+        )
         bottles.append(bd)
     closed_at = _kept_time(form.closed_at or datetime.now().astimezone(), doc.get("closed_at")) if form.closed else None
-    doc.update(id=form.id, site_id=form.site_id, arrived_at=_kept_time(form.arrived_at, doc.get("arrived_at")),
-               conductivity_is_sc25=bool(form.cond_is_sc25), notes=form.notes, bottles=bottles,
-               closed_at=closed_at, **values)
+    doc.update(
+        id=form.id,
+        site_id=form.site_id,
+        arrived_at=_kept_time(form.arrived_at, doc.get("arrived_at")),
+        conductivity_is_sc25=bool(form.cond_is_sc25),
+        notes=form.notes,
+        bottles=bottles,
+        closed_at=closed_at,
+        **values,
+    )
     doc.pop("derived", None)
     if drafts:
         doc[DRAFT_KEY] = drafts
@@ -166,8 +200,14 @@ def bottle_records(form: StopForm, previous: dict[str, Any] | None = None) -> li
     out = []
     for b in form.bottles:
         doc = dict(saved.get(b.id) or {})
-        doc.update(id=b.id, label=b.label, kind=KIND_TO_RECORD[b.kind], collected_at=_iso(b.collected_at),
-                   fixed_at=_iso(b.fixed_at), preservation=doc.get("preservation") or PRESERVATION[b.kind])
+        doc.update(
+            id=b.id,
+            label=b.label,
+            kind=KIND_TO_RECORD[b.kind],
+            collected_at=_iso(b.collected_at),
+            fixed_at=_iso(b.fixed_at),
+            preservation=doc.get("preservation") or PRESERVATION[b.kind],
+        )
         try:
             out.append(Bottle.model_validate_json(canonical_json_bytes(doc)))
         except ValidationError:
@@ -187,8 +227,11 @@ def stop_record(form: StopForm, previous: dict[str, Any] | None = None):
     return Stop.model_validate_json(canonical_json_bytes(doc)), errors
 
 
-CAL_FIELDS = (("temp_text", "Calibration temperature"), ("pressure_text", "Calibration pressure"),
-              ("reading_text", "Meter reading"))
+CAL_FIELDS = (
+    ("temp_text", "Calibration temperature"),
+    ("pressure_text", "Calibration pressure"),
+    ("reading_text", "Meter reading"),
+)
 
 
 def cal_conditions(cal: CalForm, previous: dict[str, Any] | None = None):
@@ -206,8 +249,9 @@ def cal_reading(cal: CalForm) -> float:
     return float(parse_number(cal.reading_text, "reading_mg_l", limit="calibration_reading"))
 
 
-def cal_document(cal: CalForm, kind: str, tolerance_mg_l: float,
-                 previous: dict[str, Any] | None = None) -> tuple[dict[str, Any] | None, str | None]:
+def cal_document(
+    cal: CalForm, kind: str, tolerance_mg_l: float, previous: dict[str, Any] | None = None
+) -> tuple[dict[str, Any] | None, str | None]:
     """A calibration form as a Calibration document: (document, None); (None, None) when the form
     is empty; (None, one sentence) when a field is empty or refused, so nothing is dropped silently.
 
@@ -226,8 +270,10 @@ def cal_document(cal: CalForm, kind: str, tolerance_mg_l: float,
         return None, None
     if not all(filled):
         empty = [label for (attr, label), ok in zip(CAL_FIELDS, filled, strict=True) if not ok]
-        return None, (f"{' and '.join(empty)} {'is' if len(empty) == 1 else 'are'} empty; fill in all three "
-                      "calibration fields, or clear them all.")
+        return None, (
+            f"{' and '.join(empty)} {'is' if len(empty) == 1 else 'are'} empty; fill in all three "
+            "calibration fields, or clear them all."
+        )
     try:
         t, p = cal_conditions(cal, previous)
         reading = cal_reading(cal)
@@ -236,9 +282,13 @@ def cal_document(cal: CalForm, kind: str, tolerance_mg_l: float,
     doc = dict(previous or {})
     if doc.get("reading_mg_l") is None or not math.isclose(float(doc["reading_mg_l"]), reading, abs_tol=1e-12):
         doc["reading_mg_l"] = reading
-    doc.update(id=doc.get("id") or cal.id, kind=kind, temp=t.model_dump(mode="json"),
-               pressure=p.model_dump(mode="json"),
-               at=_kept_time(cal.at or datetime.now().astimezone(), doc.get("at")))
+    doc.update(
+        id=doc.get("id") or cal.id,
+        kind=kind,
+        temp=t.model_dump(mode="json"),
+        pressure=p.model_dump(mode="json"),
+        at=_kept_time(cal.at or datetime.now().astimezone(), doc.get("at")),
+    )
     doc.setdefault("tolerance_mg_l", float(tolerance_mg_l))
     try:
         Calibration.model_validate_json(canonical_json_bytes(doc))
@@ -262,8 +312,15 @@ def trip_from_form(form: TripForm, previous: Any, ctl: Any):
     # stops the stored trip has and this form never had (merged in by sync) are kept as they are
     stops.extend(d for sid, d in old_stops.items() if sid not in ours)
     crew = [c.strip() for c in form.crew.replace(";", ",").split(",") if c.strip()]
-    doc.update(id=form.id, program=form.program.strip(), crew=crew, meter_id=form.meter_id.strip(),
-               started_at=_iso(form.started_at), ended_at=_iso(form.ended_at), stops=stops)
+    doc.update(
+        id=form.id,
+        program=form.program.strip(),
+        crew=crew,
+        meter_id=form.meter_id.strip(),
+        started_at=_iso(form.started_at),
+        ended_at=_iso(form.ended_at),
+        stops=stops,
+    )
     if form.meter_percent_basis is not None or doc.get("meter_percent_basis") is not None:
         doc["meter_percent_basis"] = form.meter_percent_basis
     doc.setdefault("revision", 0)
@@ -303,13 +360,21 @@ def form_from_trip(trip: Any) -> TripForm:
     stops = []
     for s in trip.stops:
         drafts = (s.model_extra or {}).get(DRAFT_KEY) or {}
-        f = StopForm(id=s.id, site_id=s.site_id, arrived_at=s.arrived_at,
-                     cond_is_sc25=s.conductivity_is_sc25, notes=s.notes, closed=s.closed_at is not None,
-                     closed_at=s.closed_at)
-        for name, attr_text, _attr_unit in (("temp", "temp_text", "temp_unit"),
-                                           ("pressure", "pressure_text", "pressure_unit"),
-                                           ("conductivity", "cond_text", "cond_unit"),
-                                           ("do", "do_text", "do_unit")):
+        f = StopForm(
+            id=s.id,
+            site_id=s.site_id,
+            arrived_at=s.arrived_at,
+            cond_is_sc25=s.conductivity_is_sc25,
+            notes=s.notes,
+            closed=s.closed_at is not None,
+            closed_at=s.closed_at,
+        )
+        for name, attr_text, _attr_unit in (
+            ("temp", "temp_text", "temp_unit"),
+            ("pressure", "pressure_text", "pressure_unit"),
+            ("conductivity", "cond_text", "cond_unit"),
+            ("do", "do_text", "do_unit"),
+        ):
             text, unit = _split_draft(drafts[name]) if name in drafts else _text_of(getattr(s, name))
             setattr(f, attr_text, text)
             if name == "temp" and unit:
@@ -320,10 +385,16 @@ def form_from_trip(trip: Any) -> TripForm:
                 f.cond_unit = unit
             elif name == "do" and unit:
                 f.do_unit = "%" if "%" in unit else "mg/L"
-        f.bottles = [BottleForm(id=b.id, label=b.label, kind=RECORD_TO_KIND.get(b.kind, "do_fixed"),
-                                collected_at=b.collected_at,
-                                fixed_at=b.fixed_at)
-                     for b in s.bottles]
+        f.bottles = [
+            BottleForm(
+                id=b.id,
+                label=b.label,
+                kind=RECORD_TO_KIND.get(b.kind, "do_fixed"),
+                collected_at=b.collected_at,
+                fixed_at=b.fixed_at,
+            )
+            for b in s.bottles
+        ]
         stops.append(f)
 
     def cal(c: Any) -> CalForm:
@@ -331,19 +402,41 @@ def form_from_trip(trip: Any) -> TripForm:
             return CalForm()
         t, tu = _text_of(c.temp)
         p, pu = _text_of(c.pressure)
-        return CalForm(id=c.id, temp_text=t, temp_unit="F" if "F" in tu.upper() else "C",
-                       pressure_text=p, pressure_unit=pu if pu in PRESSURE_UNITS else "hPa",
-                       reading_text=f"{c.reading_mg_l:g}", at=c.at)
+        return CalForm(
+            id=c.id,
+            temp_text=t,
+            temp_unit="F" if "F" in tu.upper() else "C",
+            pressure_text=p,
+            pressure_unit=pu if pu in PRESSURE_UNITS else "hPa",
+            reading_text=f"{c.reading_mg_l:g}",
+            at=c.at,
+        )
 
-    return TripForm(id=trip.id, program=trip.program, crew=", ".join(trip.crew), meter_id=trip.meter_id,
-                    meter_percent_basis=trip.meter_percent_basis,
-                    started_at=trip.started_at, ended_at=trip.ended_at,
-                    started_without_calibration=trip.started_without_calibration,
-                    pre_cal=cal(trip.pre_calibration), post_check=cal(trip.post_check), stops=stops)
+    return TripForm(
+        id=trip.id,
+        program=trip.program,
+        crew=", ".join(trip.crew),
+        meter_id=trip.meter_id,
+        meter_percent_basis=trip.meter_percent_basis,
+        started_at=trip.started_at,
+        ended_at=trip.ended_at,
+        started_without_calibration=trip.started_without_calibration,
+        pre_cal=cal(trip.pre_calibration),
+        post_check=cal(trip.post_check),
+        stops=stops,
+    )
 
 
-TRIP_FORM_FIELDS = ("program", "crew", "meter_id", "started_at", "ended_at", "started_without_calibration",
-                    "pre_cal", "post_check")
+TRIP_FORM_FIELDS = (
+    "program",
+    "crew",
+    "meter_id",
+    "started_at",
+    "ended_at",
+    "started_without_calibration",
+    "pre_cal",
+    "post_check",
+)
 
 
 def rebase_form(form: TripForm, base: TripForm, theirs: TripForm) -> TripForm:

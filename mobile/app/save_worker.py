@@ -1,10 +1,11 @@
 """The app's one save thread: store writes run in order, off the UI thread (no kivy)."""
+
 from __future__ import annotations
 
 import queue
 import threading
-from typing import Any
 from collections.abc import Callable
+from typing import Any
 
 __all__ = ["SaveWorker"]
 
@@ -13,7 +14,7 @@ class SaveWorker:
     """One background thread that runs store writes in order; a newer job for a trip replaces a waiting one."""
 
     def __init__(self, on_error: Callable[[BaseException], None] | None = None) -> None:
-        self._q: queue.Queue[str] = queue.Queue()   # trip ids with a job waiting
+        self._q: queue.Queue[str] = queue.Queue()  # trip ids with a job waiting
         self._pending: dict[str, Callable[[], Any]] = {}
         self._lock = threading.Lock()
         self._idle = threading.Event()

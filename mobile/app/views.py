@@ -1,4 +1,5 @@
 """What the app's screens show, already as text: view models and the formatting of times and values (no kivy)."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass, field
@@ -9,9 +10,23 @@ from core.rules.report import WADING_CAUTION
 from core.science.winkler import SAFETY_NOTE
 from mobile.app.theme import severity_mark
 
-__all__ = ["StopView", "FlagLine", "CalView", "Refusal", "ClockLine", "TripLine", "flag_line", "error_line",
-           "fmt_value", "fmt_when", "parse_when", "fmt_duration", "local_now",
-           "WADING_CAUTION", "REAGENT_CAUTION"]
+__all__ = [
+    "StopView",
+    "FlagLine",
+    "CalView",
+    "Refusal",
+    "ClockLine",
+    "TripLine",
+    "flag_line",
+    "error_line",
+    "fmt_value",
+    "fmt_when",
+    "parse_when",
+    "fmt_duration",
+    "local_now",
+    "WADING_CAUTION",
+    "REAGENT_CAUTION",
+]
 
 REAGENT_CAUTION = SAFETY_NOTE  # the one reagent caution (core.science.winkler)
 # WADING_CAUTION: the one wading caution (core.rules.report), shown on screen and printed in reports
@@ -46,8 +61,7 @@ def flag_line(flag: Any) -> FlagLine:
 
 def error_line(message: str, field_name: str = "") -> FlagLine:
     symbol, _word = severity_mark("stop-and-check")
-    return FlagLine(f"input.{field_name or 'value'}", "stop-and-check", symbol, "CHECK ENTRY",
-                    message, "")
+    return FlagLine(f"input.{field_name or 'value'}", "stop-and-check", symbol, "CHECK ENTRY", message, "")
 
 
 @dataclass
@@ -75,7 +89,7 @@ class Refusal:
 @dataclass
 class CalView:
     target_text: str = "—"
-    verdict: str = ""          # "PASS" | "FAIL" | ""
+    verdict: str = ""  # "PASS" | "FAIL" | ""
     detail: str = ""
     result: Any = None
 
@@ -97,9 +111,8 @@ class ClockLine:
 class TripLine:
     id: str
     title: str
-    status: str        # words: "open", "ended", "synced", "needs attention"
+    status: str  # words: "open", "ended", "synced", "needs attention"
     detail: str
-
 
 
 def fmt_value(value: float | None, digits: int, unit: str = "") -> str:

@@ -1,4 +1,6 @@
-"""Kivy widgets of our own: numeric entry that explains refusals, a form scroller that keeps the focused field in view."""
+"""Kivy widgets of our own: numeric entry that explains refusals, a form scroller that keeps the
+focused field in view."""
+
 from __future__ import annotations
 
 from kivy.clock import Clock
@@ -58,8 +60,7 @@ class NumericEntry(TextEntry):
             a, b = sorted((self.selection_from, self.selection_to))
             text = text[:a] + text[b:]
             cursor = a
-        check = check_insert(text, cursor, substring, allow_negative=self.allow_negative,
-                             label=self.label)
+        check = check_insert(text, cursor, substring, allow_negative=self.allow_negative, label=self.label)
         if check.refused:
             self.refusal = check.message
             return None

@@ -1,4 +1,5 @@
 """The `streamtab` command line: science at the desk, trips in the store, sync, and the touch app."""
+
 from __future__ import annotations
 
 import os
@@ -10,8 +11,18 @@ __all__ = ["main"]
 
 
 def build_parser() -> OneLineParser:
-    from mobile.cli import (app_cmd, archive_cmds, conflict_cmds, custody_cmds, lab_cmds, paper_cmds, review_cmds,
-                            science_cmds, sync_cmds, trip_cmds)
+    from mobile.cli import (
+        app_cmd,
+        archive_cmds,
+        conflict_cmds,
+        custody_cmds,
+        lab_cmds,
+        paper_cmds,
+        review_cmds,
+        science_cmds,
+        sync_cmds,
+        trip_cmds,
+    )
 
     parser = OneLineParser(
         prog="streamtab",

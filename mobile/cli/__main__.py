@@ -1,4 +1,5 @@
 """Allows `python -m mobile.cli`."""
+
 import sys
 
 from mobile.cli import main

@@ -1,4 +1,5 @@
 """Shared pieces of the command line: one-line errors with exit status 2, JSON or table output."""
+
 from __future__ import annotations
 
 import argparse
@@ -75,8 +76,10 @@ def open_store(data_dir: str | None, *, create: bool = False):
     root = resolve_data_dir(data_dir)
     new = not is_store(root)
     if new and not create:
-        fail(f"{store_location(data_dir)}: no device store there; accepted: the folder of an existing store"
-             f" ({CREATING_COMMANDS} create one).")
+        fail(
+            f"{store_location(data_dir)}: no device store there; accepted: the folder of an existing store"
+            f" ({CREATING_COMMANDS} create one)."
+        )
     try:
         store = DeviceStore.open(data_dir)
         if new:
@@ -85,8 +88,10 @@ def open_store(data_dir: str | None, *, create: bool = False):
     except StoreError as exc:
         fail(str(exc))
     except OSError as exc:
-        fail(f"{store_location(data_dir)}: cannot open the device store there ({exc.strerror});"
-             " accepted: a writable folder.")
+        fail(
+            f"{store_location(data_dir)}: cannot open the device store there ({exc.strerror});"
+            " accepted: a writable folder."
+        )
 
 
 def resolve_trip_id(store, ident: str, label: str = "trip") -> str:  # noqa: ANN001
@@ -105,10 +110,14 @@ def resolve_trip_id(store, ident: str, label: str = "trip") -> str:  # noqa: ANN
     if len(matches) == 1:
         return matches[0]
     if not matches:
-        fail(f"{label} {ident!r}: no such trip on this device; accepted: a trip id or its first 8"
-             " characters (see 'streamtab trip list').")
-    fail(f"{label} {ident!r} matches {len(matches)} trips ({', '.join(m[:12] for m in matches)});"
-         " accepted: more characters of the id.")
+        fail(
+            f"{label} {ident!r}: no such trip on this device; accepted: a trip id or its first 8"
+            " characters (see 'streamtab trip list')."
+        )
+    fail(
+        f"{label} {ident!r} matches {len(matches)} trips ({', '.join(m[:12] for m in matches)});"
+        " accepted: more characters of the id."
+    )
 
 
 def parse_time(text: str | None, option: str) -> datetime | None:
@@ -118,11 +127,14 @@ def parse_time(text: str | None, option: str) -> datetime | None:
     try:
         t = datetime.fromisoformat(text.strip())
     except ValueError:
-        raise CliError(f"{option} {text!r} is not a date-time; accepted: ISO 8601 with a time zone, e.g."
-                       " 2026-06-09T11:20-07:00") from None
+        raise CliError(
+            f"{option} {text!r} is not a date-time; accepted: ISO 8601 with a time zone, e.g. 2026-06-09T11:20-07:00"
+        ) from None
     if t.tzinfo is None or t.utcoffset() is None:
-        raise CliError(f"{option} {text!r} has no time zone; accepted: ISO 8601 with a time zone, e.g."
-                       " 2026-06-09T11:20-07:00 or 2026-06-09T18:20Z")
+        raise CliError(
+            f"{option} {text!r} has no time zone; accepted: ISO 8601 with a time zone, e.g."
+            " 2026-06-09T11:20-07:00 or 2026-06-09T18:20Z"
+        )
     return t
 
 
@@ -139,22 +151,30 @@ def read_dilutions_file(path_text: str) -> tuple[list[Any], Any, bool]:
     try:
         doc = json.loads(raw)
     except json.JSONDecodeError as exc:
-        fail(f"--dilutions {path_text!r} is not valid JSON (line {exc.lineno}, column {exc.colno}); accepted: a"
-             " list of dilutions or an object with \"dilutions\" (and \"seed_controls\")")
+        fail(
+            f"--dilutions {path_text!r} is not valid JSON (line {exc.lineno}, column {exc.colno}); accepted: a"
+            ' list of dilutions or an object with "dilutions" (and "seed_controls")'
+        )
     controls = None
     inhibitor = False
     if isinstance(doc, dict):
         unknown = sorted(set(doc) - {"dilutions", "seed_controls", "nitrification_inhibitor"})
         if unknown:
-            fail(f"--dilutions {path_text!r} has an unknown key {unknown[0]!r}; accepted keys: dilutions,"
-                 " seed_controls, nitrification_inhibitor")
+            fail(
+                f"--dilutions {path_text!r} has an unknown key {unknown[0]!r}; accepted keys: dilutions,"
+                " seed_controls, nitrification_inhibitor"
+            )
         inhibitor = doc.get("nitrification_inhibitor", False)
         if not isinstance(inhibitor, bool):
-            fail(f"--dilutions {path_text!r}: nitrification_inhibitor is not true or false; accepted: true"
-                 " (CBOD5) or false (BOD5)")
+            fail(
+                f"--dilutions {path_text!r}: nitrification_inhibitor is not true or false; accepted: true"
+                " (CBOD5) or false (BOD5)"
+            )
         controls = doc.get("seed_controls")
         doc = doc.get("dilutions")
     if not isinstance(doc, list):
-        fail(f"--dilutions {path_text!r} holds no list of dilutions; accepted: a JSON list of objects with"
-             " initial_do_mg_l, final_do_mg_l, sample_ml (or an object with \"dilutions\")")
+        fail(
+            f"--dilutions {path_text!r} holds no list of dilutions; accepted: a JSON list of objects with"
+            ' initial_do_mg_l, final_do_mg_l, sample_ml (or an object with "dilutions")'
+        )
     return doc, controls, inhibitor

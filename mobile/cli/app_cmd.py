@@ -1,17 +1,18 @@
 """`streamtab app`: opens the touch app, or draws one screen to a PNG (--snapshot) and exits."""
+
 from __future__ import annotations
 
 import os
-from datetime import datetime, timedelta, timezone
 import shutil
 import subprocess
 import sys
+from datetime import datetime, timedelta, timezone
 from pathlib import Path
 
 from mobile.app.screens import SCREENS as _SCREEN_CLASSES
 from mobile.cli._common import fail
 
-SCREENS = tuple(_SCREEN_CLASSES)   # the app's one list of screens (its package imports no kivy)
+SCREENS = tuple(_SCREEN_CLASSES)  # the app's one list of screens (its package imports no kivy)
 SNAPSHOT_HINT = "streamtab app --snapshot screen.png [--screen stop]"
 
 
@@ -21,10 +22,15 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     p.add_argument("--data-dir", help="device store folder (default: $STREAMTAB_DATA or the user data folder)")
     p.add_argument("--snapshot", metavar="FILE.png", help="draw the screen, save it as a PNG and exit")
     p.add_argument("--screen", choices=SCREENS, help="open on this screen instead of where the app was")
-    p.add_argument("--seed-demo", metavar="DIR",
-                   help="on first start (empty data folder) import the sites and trips in DIR")
-    p.add_argument("--size", default=None, metavar="WxH",
-                   help="window size in pixels, e.g. 800x1200 for portrait (default 1200x780)")
+    p.add_argument(
+        "--seed-demo", metavar="DIR", help="on first start (empty data folder) import the sites and trips in DIR"
+    )
+    p.add_argument(
+        "--size",
+        default=None,
+        metavar="WxH",
+        help="window size in pixels, e.g. 800x1200 for portrait (default 1200x780)",
+    )
     p.set_defaults(handler=run)
 
 
@@ -110,8 +116,10 @@ def _check_snapshot(name: str) -> None:
     """--snapshot names a PNG file in an existing folder, or a one-line error before anything opens."""
     path = Path(name)
     if path.suffix.lower() != ".png":
-        fail(f"--snapshot {name}: the screen is drawn as a PNG image; accepted: a file name ending in .png"
-             " (e.g. stop.png)")
+        fail(
+            f"--snapshot {name}: the screen is drawn as a PNG image; accepted: a file name ending in .png"
+            " (e.g. stop.png)"
+        )
     if not path.parent.is_dir():
         fail(f"--snapshot {name}: the folder {path.parent} does not exist; accepted: a file in an existing folder")
 
@@ -127,19 +135,36 @@ def run(args) -> int:  # noqa: ANN001 - argparse namespace
         if args.snapshot and xvfb and not os.environ.get("STREAMTAB_UNDER_XVFB"):
             # draw off-screen on a virtual display, then exit (never hangs: bounded by timeout)
             env = dict(os.environ, STREAMTAB_UNDER_XVFB="1")
-            argv = [xvfb, "-a", "-s", "-screen 0 1280x1280x24", sys.executable, "-m", "mobile.cli",
-                    "app", "--snapshot", args.snapshot]
-            for flag, value in (("--data-dir", args.data_dir), ("--screen", args.screen),
-                                ("--seed-demo", args.seed_demo), ("--size", args.size)):
+            argv = [
+                xvfb,
+                "-a",
+                "-s",
+                "-screen 0 1280x1280x24",
+                sys.executable,
+                "-m",
+                "mobile.cli",
+                "app",
+                "--snapshot",
+                args.snapshot,
+            ]
+            for flag, value in (
+                ("--data-dir", args.data_dir),
+                ("--screen", args.screen),
+                ("--seed-demo", args.seed_demo),
+                ("--size", args.size),
+            ):
                 if value:
                     argv += [flag, value]
             try:
                 return subprocess.run(argv, env=env, timeout=120, check=False).returncode
             except subprocess.TimeoutExpired:
                 fail("drawing the snapshot took over 120 s on the virtual display; nothing was written")
-        sys.stderr.write("streamtab: no display here (DISPLAY is not set), so the app cannot open a window; "
-                         f"to draw a screen to a file run: {SNAPSHOT_HINT}"
-                         + ("" if xvfb else " (needs xvfb-run: apt-get install xvfb)") + "\n")
+        sys.stderr.write(
+            "streamtab: no display here (DISPLAY is not set), so the app cannot open a window; "
+            f"to draw a screen to a file run: {SNAPSHOT_HINT}"
+            + ("" if xvfb else " (needs xvfb-run: apt-get install xvfb)")
+            + "\n"
+        )
         return 3
     data_dir = resolve_data_dir(args.data_dir)
     if not is_store(data_dir):
@@ -151,5 +176,9 @@ def run(args) -> int:  # noqa: ANN001 - argparse namespace
         seed_demo(data_dir, demo)
     from mobile.app.app import run_app
 
-    return run_app(data_dir, start_screen=args.screen, size=size or (1200, 780),
-                   snapshot=Path(args.snapshot) if args.snapshot else None)
+    return run_app(
+        data_dir,
+        start_screen=args.screen,
+        size=size or (1200, 780),
+        snapshot=Path(args.snapshot) if args.snapshot else None,
+    )

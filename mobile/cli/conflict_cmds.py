@@ -3,6 +3,7 @@
 The rules are core.rules.conflicts; every change goes through the store's read–modify–write
 (`DeviceStore.update_trip`) with the person's name (and reason) in the audit entry.
 """
+
 from __future__ import annotations
 
 import sys
@@ -16,21 +17,43 @@ __all__ = ["add_trip_commands", "register"]
 
 def add_trip_commands(trip_sub: Any, command: Any) -> None:  # noqa: ANN401 - argparse's private types
     """Adds `correct`, `conflicts` and `settle` to `streamtab trip` (command: trip_cmds._command)."""
-    p = command(trip_sub, "correct", "correct one field of a stop (the office's correction, audited with the"
-                " reason)", _correct, json=True, trip_id=True)
-    p.add_argument("--stop", required=True, metavar="N", help="the stop's number on the route (as 'trip show'"
-                   " lists them, 1 = first)")
-    p.add_argument("--field", required=True, metavar="NAME",
-                   help="a column of the trip CSV export, e.g. water_temp_c, station_pressure_hpa, meter_do_value,"
-                        " notes")
-    p.add_argument("--value", required=True, metavar="TEXT", help="the right value, typed as on the tablet"
-                   " (a bare number is read in the column's unit)")
+    p = command(
+        trip_sub,
+        "correct",
+        "correct one field of a stop (the office's correction, audited with the reason)",
+        _correct,
+        json=True,
+        trip_id=True,
+    )
+    p.add_argument(
+        "--stop",
+        required=True,
+        metavar="N",
+        help="the stop's number on the route (as 'trip show' lists them, 1 = first)",
+    )
+    p.add_argument(
+        "--field",
+        required=True,
+        metavar="NAME",
+        help="a column of the trip CSV export, e.g. water_temp_c, station_pressure_hpa, meter_do_value, notes",
+    )
+    p.add_argument(
+        "--value",
+        required=True,
+        metavar="TEXT",
+        help="the right value, typed as on the tablet (a bare number is read in the column's unit)",
+    )
     p.add_argument("--reason", required=True, metavar="TEXT", help="why (kept in the audit)")
     p.add_argument("--by", metavar="NAME", default=None, help="who corrects it (default: this device's name)")
-    command(trip_sub, "conflicts", "list a trip's open conflicts, in words", _conflicts, json=True,
-            trip_id=True)
-    p = command(trip_sub, "settle", "settle one conflict: keep one of its values or type the right one",
-                _settle, json=True, trip_id=True)
+    command(trip_sub, "conflicts", "list a trip's open conflicts, in words", _conflicts, json=True, trip_id=True)
+    p = command(
+        trip_sub,
+        "settle",
+        "settle one conflict: keep one of its values or type the right one",
+        _settle,
+        json=True,
+        trip_id=True,
+    )
     p.add_argument("conflict", metavar="CONFLICT", help="its number in 'trip conflicts' (or the start of its id)")
     p.add_argument("--keep", metavar="N", default=None, help="keep value N as 'trip conflicts' lists them")
     p.add_argument("--value", metavar="TEXT", default=None, help="the right value, typed as on the tablet")
@@ -45,8 +68,12 @@ def register(sub: Any) -> None:  # noqa: ANN401
     device_sub = device.add_subparsers(dest="device_command", required=True, parser_class=OneLineParser)
     p = device_sub.add_parser("name", help="show this device's name, or set it")
     p.add_argument("name", nargs="?", metavar="NAME", help="1 to 40 characters, e.g. 'Tablet 2' or 'Lab desk'")
-    p.add_argument("--data-dir", metavar="DIR", default=None,
-                   help="device store folder (else $STREAMTAB_DATA, else the user data folder)")
+    p.add_argument(
+        "--data-dir",
+        metavar="DIR",
+        default=None,
+        help="device store folder (else $STREAMTAB_DATA, else the user data folder)",
+    )
     p.set_defaults(handler=_device_name)
 
 
@@ -62,8 +89,9 @@ def _whole(text: str | None, option: str) -> int | None:
 def _who(args: Any, store: Any) -> str:  # noqa: ANN401
     by = (args.by or store.device_name or "").strip()
     if not by:
-        fail("--by is needed (or name this device once with 'streamtab device name NAME'); accepted: a name"
-             " or initials")
+        fail(
+            "--by is needed (or name this device once with 'streamtab device name NAME'); accepted: a name or initials"
+        )
     return by[:80]
 
 
@@ -85,15 +113,17 @@ def _correct(args: Any) -> int:  # noqa: ANN401
         return new
 
     try:
-        saved = store.update_trip(trip_id, lambda: f"correction: {said['what']} ({reason})", apply,
-                                  by=by, reason=reason)
+        saved = store.update_trip(
+            trip_id, lambda: f"correction: {said['what']} ({reason})", apply, by=by, reason=reason
+        )
     except ConflictError as exc:
         fail(str(exc))
     except StoreError as exc:
         fail(f"nothing was saved: {exc}")
     if args.json:
-        emit_json({"trip_id": saved.id, "revision": saved.revision, "changed": said.get("what"), "by": by,
-                   "reason": reason})
+        emit_json(
+            {"trip_id": saved.id, "revision": saved.revision, "changed": said.get("what"), "by": by, "reason": reason}
+        )
         return 0
     sys.stdout.write(f"corrected {said.get('what')} — by {by}: {reason} (revision {saved.revision})\n")
     return 0
@@ -156,11 +186,18 @@ def _settle(args: Any) -> int:  # noqa: ANN401
     left = len(saved.open_conflicts)
     if args.json:
         v = said.get("view")
-        emit_json({"trip_id": saved.id, "revision": saved.revision, "settled": v.to_dict() if v else None,
-                   "by": by, "open_conflicts": left, "needs_attention": left > 0})
+        emit_json(
+            {
+                "trip_id": saved.id,
+                "revision": saved.revision,
+                "settled": v.to_dict() if v else None,
+                "by": by,
+                "open_conflicts": left,
+                "needs_attention": left > 0,
+            }
+        )
         return 0
-    rows = [("trip", f"{saved.id[:8]} (revision {saved.revision})"), ("settled by", by),
-            ("open conflicts", str(left))]
+    rows = [("trip", f"{saved.id[:8]} (revision {saved.revision})"), ("settled by", by), ("open conflicts", str(left))]
     emit_table(rows)
     return 0
 

@@ -1,4 +1,5 @@
 """`streamtab custody add|list`: the chain of custody of a trip's bottles, typed at a desk (unsigned)."""
+
 from __future__ import annotations
 
 import sys
@@ -9,8 +10,14 @@ from mobile.cli._common import CliError, emit_json, fail, open_store, parse_time
 __all__ = ["register"]
 
 #: Core input names → the option a person typed.
-_OPTIONS = {"relinquished_by": "--from", "received_by": "--to", "at": "--at", "bottles": "--bottles",
-            "temp": "--temp", "now": "--at"}
+_OPTIONS = {
+    "relinquished_by": "--from",
+    "received_by": "--to",
+    "at": "--at",
+    "bottles": "--bottles",
+    "temp": "--temp",
+    "now": "--at",
+}
 
 
 def _store_and_trip(args):  # noqa: ANN001
@@ -32,7 +39,7 @@ def _temp(text: str | None):
     try:
         return measure("temp", text, default_unit="C", field="receipt_temp")
     except InputError as exc:
-        raise CliError(f"--temp {text!r}: {exc.message} Accepted: a temperature such as \"4.2 C\".") from None
+        raise CliError(f'--temp {text!r}: {exc.message} Accepted: a temperature such as "4.2 C".') from None
 
 
 def _add(args) -> int:  # noqa: ANN001
@@ -47,28 +54,48 @@ def _add(args) -> int:  # noqa: ANN001
         fail("--bottles is empty; accepted: bottle labels separated by commas, e.g. TV-0611,TV-0612")
     store, trip = _store_and_trip(args)
     try:
-        out = add_handoff(trip, relinquished_by=args.from_name, received_by=args.to_name, at=at, now=now,
-                          bottle_refs=refs, at_lab=args.lab, temp=temp, condition=args.condition or "",
-                          notes=args.notes or "")
+        out = add_handoff(
+            trip,
+            relinquished_by=args.from_name,
+            received_by=args.to_name,
+            at=at,
+            now=now,
+            bottle_refs=refs,
+            at_lab=args.lab,
+            temp=temp,
+            condition=args.condition or "",
+            notes=args.notes or "",
+        )
     except CustodyInputError as exc:
         option = _OPTIONS.get(exc.field, "")
         raise CliError(f"{option}: {exc.message}" if option else exc.message) from None
     labels = [b.label for s in out.trip.stops for b in s.bottles if b.id in set(out.record.bottle_ids)]
-    change = (f"custody: {len(labels)} bottle(s) from {out.record.relinquished_by} to {out.record.received_by}"
-              + (" (lab receipt)" if out.record.at_lab else "") + ", typed, unsigned")
+    change = (
+        f"custody: {len(labels)} bottle(s) from {out.record.relinquished_by} to {out.record.received_by}"
+        + (" (lab receipt)" if out.record.at_lab else "")
+        + ", typed, unsigned"
+    )
     try:
         saved = store.save_trip(out.trip, change)
     except StoreError as exc:
         fail(f"nothing was saved: {exc}")
-    data = {"trip_id": saved.id, "revision": saved.revision, "record": out.record.model_dump(mode="json"),
-            "bottles": labels, "signed": out.record.signed, "flags": [f.to_dict() for f in out.flags]}
+    data = {
+        "trip_id": saved.id,
+        "revision": saved.revision,
+        "record": out.record.model_dump(mode="json"),
+        "bottles": labels,
+        "signed": out.record.signed,
+        "flags": [f.to_dict() for f in out.flags],
+    }
     if args.json:
         emit_json(data)
         return 0
-    sys.stdout.write(f"trip {saved.id[:8]} (revision {saved.revision}): {', '.join(labels)}\n"
-                     f"  {out.record.relinquished_by} → {out.record.received_by}"
-                     f"{' (lab receipt)' if out.record.at_lab else ''} at {out.record.at.isoformat(timespec='minutes')}"
-                     " — typed names, unsigned\n")
+    sys.stdout.write(
+        f"trip {saved.id[:8]} (revision {saved.revision}): {', '.join(labels)}\n"
+        f"  {out.record.relinquished_by} → {out.record.received_by}"
+        f"{' (lab receipt)' if out.record.at_lab else ''} at {out.record.at.isoformat(timespec='minutes')}"
+        " — typed names, unsigned\n"
+    )
     for f in out.flags:
         sys.stdout.write(f"  [{f.severity.value}] {f.code}: {f.message}\n")
     return 0
@@ -95,9 +122,11 @@ def _list(args) -> int:  # noqa: ANN001
         temp = f", {r.temp.value:g} °C on receipt" if r.temp else ""
         cond = f", {r.condition}" if r.condition else ""
         signed = "signed" if r.signed else "unsigned"
-        sys.stdout.write(f"{r.at.isoformat(timespec='minutes')}  {r.relinquished_by} → {r.received_by}"
-                         f"{' (lab)' if r.at_lab else ''}  {', '.join(d['bottle_labels'])}{temp}{cond}"
-                         f"  [{signed}] {r.id[:8]}\n")
+        sys.stdout.write(
+            f"{r.at.isoformat(timespec='minutes')}  {r.relinquished_by} → {r.received_by}"
+            f"{' (lab)' if r.at_lab else ''}  {', '.join(d['bottle_labels'])}{temp}{cond}"
+            f"  [{signed}] {r.id[:8]}\n"
+        )
     for c in chains:
         for f in c.flags:
             if f.code != "custody.unsigned":
@@ -109,10 +138,13 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     """Adds the `custody` command group to the top-level parser."""
     from mobile.cli._common import OneLineParser
 
-    grp = sub.add_parser("custody", help="chain of custody of a trip's bottles: hand-offs and the lab's receipt",
-                         description="Who held each bottle, from the field crew to the lab. Typed here, a"
-                                     " hand-off is marked unsigned; the tablet records signatures. The program's"
-                                     " SOP and local regulations decide what a gap means.")
+    grp = sub.add_parser(
+        "custody",
+        help="chain of custody of a trip's bottles: hand-offs and the lab's receipt",
+        description="Who held each bottle, from the field crew to the lab. Typed here, a"
+        " hand-off is marked unsigned; the tablet records signatures. The program's"
+        " SOP and local regulations decide what a gap means.",
+    )
     gsub = grp.add_subparsers(dest="custody_command", required=True, parser_class=OneLineParser)
 
     p = gsub.add_parser("add", help="record a hand-off (typed names, unsigned)")
@@ -122,17 +154,25 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     p.add_argument("--at", metavar="ISO-TIME", help="when the bottles changed hands, with time zone (default: now)")
     p.add_argument("--bottles", metavar="LABEL,...", help="bottle labels handed over (default: every bottle)")
     p.add_argument("--lab", action="store_true", help="the receiver is the lab: this is the sample receipt")
-    p.add_argument("--temp", metavar="TEMP", help="temperature on receipt, e.g. \"4.2 C\"")
-    p.add_argument("--condition", metavar="TEXT", help="condition on receipt, e.g. \"intact, on ice\"")
+    p.add_argument("--temp", metavar="TEMP", help='temperature on receipt, e.g. "4.2 C"')
+    p.add_argument("--condition", metavar="TEXT", help='condition on receipt, e.g. "intact, on ice"')
     p.add_argument("--notes", metavar="TEXT", help="notes kept with the hand-off")
-    p.add_argument("--data-dir", metavar="DIR", default=None,
-                   help="device store folder (else $STREAMTAB_DATA, else the user data folder)")
+    p.add_argument(
+        "--data-dir",
+        metavar="DIR",
+        default=None,
+        help="device store folder (else $STREAMTAB_DATA, else the user data folder)",
+    )
     p.add_argument("--json", action="store_true", help="print JSON")
     p.set_defaults(handler=_add)
 
     p = gsub.add_parser("list", help="the trip's hand-offs and each bottle's findings")
     p.add_argument("trip", metavar="TRIP_ID", help="trip id, or its first 8 characters")
-    p.add_argument("--data-dir", metavar="DIR", default=None,
-                   help="device store folder (else $STREAMTAB_DATA, else the user data folder)")
+    p.add_argument(
+        "--data-dir",
+        metavar="DIR",
+        default=None,
+        help="device store folder (else $STREAMTAB_DATA, else the user data folder)",
+    )
     p.add_argument("--json", action="store_true", help="print JSON")
     p.set_defaults(handler=_list)

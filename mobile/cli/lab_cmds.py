@@ -1,4 +1,5 @@
 """`streamtab lab pending|winkler|bod|duplicates|results`: the analyst's bench results on synced trips."""
+
 from __future__ import annotations
 
 import sys
@@ -13,15 +14,28 @@ __all__ = ["register"]
 
 #: Core input names → the option a person typed.
 _OPTIONS = {
-    "titrant_ml": "--titrant-ml", "titrated_ml": "--titrated-ml", "bottle_ml": "--bottle-ml",
-    "reagents_ml": "--reagents-ml", "normality": "--normality",
-    "standardisation.titrant_ml": "--std-titrant-ml", "standardisation.standard_ml": "--std-ml",
-    "standardisation.standard_normality": "--std-normality", "standardised_at": "--standardised-at",
-    "analysed_at": "--at", "bottle": "BOTTLE", "redo": "--redo", "dilutions": "--dilutions",
-    "seed_controls": "--dilutions", "blank_depletion_mg_l": "--blank-depletion", "gga_bod_mg_l": "--gga",
-    "incubation_start": "--incubation-start", "incubation_end": "--incubation-end",
-    "incubator_temp_c": "--incubator-temp", "meter_tolerance_mg_l": "--meter-tolerance",
-    "duplicate_rpd_percent": "--rpd-limit", "now": "--now",
+    "titrant_ml": "--titrant-ml",
+    "titrated_ml": "--titrated-ml",
+    "bottle_ml": "--bottle-ml",
+    "reagents_ml": "--reagents-ml",
+    "normality": "--normality",
+    "standardisation.titrant_ml": "--std-titrant-ml",
+    "standardisation.standard_ml": "--std-ml",
+    "standardisation.standard_normality": "--std-normality",
+    "standardised_at": "--standardised-at",
+    "analysed_at": "--at",
+    "bottle": "BOTTLE",
+    "redo": "--redo",
+    "dilutions": "--dilutions",
+    "seed_controls": "--dilutions",
+    "blank_depletion_mg_l": "--blank-depletion",
+    "gga_bod_mg_l": "--gga",
+    "incubation_start": "--incubation-start",
+    "incubation_end": "--incubation-end",
+    "incubator_temp_c": "--incubator-temp",
+    "meter_tolerance_mg_l": "--meter-tolerance",
+    "duplicate_rpd_percent": "--rpd-limit",
+    "now": "--now",
 }
 
 
@@ -77,8 +91,9 @@ def _settings(args, store):  # noqa: ANN001
     except LabInputError as exc:
         fail(f"program settings lab_{exc.field}: {exc.message}; change it in the program's settings")
     opts: dict[str, Any] = {}
-    tol = _number(getattr(args, "meter_tolerance", None), "--meter-tolerance", "mg/L, above 0 to 5 (default 0.5)",
-                  ("mg/L",))
+    tol = _number(
+        getattr(args, "meter_tolerance", None), "--meter-tolerance", "mg/L, above 0 to 5 (default 0.5)", ("mg/L",)
+    )
     if tol is not None:
         opts["meter_tolerance_mg_l"] = tol
     rpd = _number(getattr(args, "rpd_limit", None), "--rpd-limit", "%, above 0 to 200 (default 20)", ("%",))
@@ -146,12 +161,15 @@ def _standardisation(args):  # noqa: ANN001, ANN202
         return None
     ml = ("mL", "ml")
     return Standardisation(
-        titrant_ml=_number(args.std_titrant_ml, "--std-titrant-ml", "thiosulfate used on the standard in mL,"
-                                                                    " above 0 to 100", ml),
+        titrant_ml=_number(
+            args.std_titrant_ml, "--std-titrant-ml", "thiosulfate used on the standard in mL, above 0 to 100", ml
+        ),
         standard_ml=_number(args.std_ml, "--std-ml", "bi-iodate standard taken in mL, above 0 (usually 20)", ml),
-        standard_normality=_number(args.std_normality, "--std-normality", "standard normality in eq/L, above 0"
-                                                                          " to 1 (usually 0.025)", ("N",)),
-        standardised_at=_time(args.standardised_at, "--standardised-at"))
+        standard_normality=_number(
+            args.std_normality, "--std-normality", "standard normality in eq/L, above 0 to 1 (usually 0.025)", ("N",)
+        ),
+        standardised_at=_time(args.standardised_at, "--standardised-at"),
+    )
 
 
 def _winkler(args) -> int:  # noqa: ANN001
@@ -159,15 +177,19 @@ def _winkler(args) -> int:  # noqa: ANN001
 
     ml = ("mL", "ml")
     titrant = _number(args.titrant_ml, "--titrant-ml", "thiosulfate used in mL, 0 to 100", ml)
-    titrated = _number(args.titrated_ml, "--titrated-ml", "volume titrated in mL, above 0 and at most the bottle"
-                                                           " (usually 201)", ml)
+    titrated = _number(
+        args.titrated_ml, "--titrated-ml", "volume titrated in mL, above 0 and at most the bottle (usually 201)", ml
+    )
     bottle_ml = _number(args.bottle_ml, "--bottle-ml", "bottle volume in mL, above 0 (usually 300)", ml)
     reagents = _number(args.reagents_ml, "--reagents-ml", "total fixing reagents in mL, 0 or more (usually 2)", ml)
     if args.normality is not None and args.std_titrant_ml is not None:
-        fail("--normality and --std-titrant-ml: give one, not both; accepted: --normality in eq/L (usually 0.025)"
-             " or --std-titrant-ml (thiosulfate used on the bi-iodate standard, mL)")
-    normality = _number(args.normality, "--normality", "titrant normality in eq/L, above 0 to 1 (usually 0.025)",
-                        ("N",))
+        fail(
+            "--normality and --std-titrant-ml: give one, not both; accepted: --normality in eq/L (usually 0.025)"
+            " or --std-titrant-ml (thiosulfate used on the bi-iodate standard, mL)"
+        )
+    normality = _number(
+        args.normality, "--normality", "titrant normality in eq/L, above 0 to 1 (usually 0.025)", ("N",)
+    )
     std = _standardisation(args)
     if std is None and args.standardised_at is not None:
         fail("--standardised-at goes with --std-titrant-ml; accepted: both, or --normality alone")
@@ -178,47 +200,87 @@ def _winkler(args) -> int:  # noqa: ANN001
     trip = _trip(store, args.trip)
     batch = _batch(trip, args.bottle, WINKLER_KINDS)
     if args.normality is None and args.std_titrant_ml is None and (batch is None or batch.std_titrant_ml is None):
-        fail("--normality or --std-titrant-ml is needed (the bottle's bench batch has no standardisation);"
-             " accepted: --normality in eq/L (usually 0.025) or --std-titrant-ml, or record the batch's"
-             " standardisation with 'streamtab lab batch'")
-    entered = {"titrant_ml": args.titrant_ml, "titrated_ml": args.titrated_ml, "bottle_ml": args.bottle_ml,
-               "reagents_ml": args.reagents_ml}
+        fail(
+            "--normality or --std-titrant-ml is needed (the bottle's bench batch has no standardisation);"
+            " accepted: --normality in eq/L (usually 0.025) or --std-titrant-ml, or record the batch's"
+            " standardisation with 'streamtab lab batch'"
+        )
+    entered = {
+        "titrant_ml": args.titrant_ml,
+        "titrated_ml": args.titrated_ml,
+        "bottle_ml": args.bottle_ml,
+        "reagents_ml": args.reagents_ml,
+    }
     if args.normality is not None:
         entered["normality"] = args.normality
     elif args.std_titrant_ml is None:
         entered["batch"] = batch.name
     else:
-        entered.update(std_titrant_ml=args.std_titrant_ml, std_ml=args.std_ml, std_normality=args.std_normality,
-                       standardised_at=args.standardised_at)
+        entered.update(
+            std_titrant_ml=args.std_titrant_ml,
+            std_ml=args.std_ml,
+            std_normality=args.std_normality,
+            standardised_at=args.standardised_at,
+        )
+
     def compute(t):  # noqa: ANN001, ANN202
-        return record_winkler(t, args.bottle, titrant_ml=titrant, titrated_ml=titrated, normality=normality,
-                              standardisation=std, bottle_ml=bottle_ml, reagents_ml=reagents, analysed_at=at,
-                              now=now, analyst=args.analyst or "", notes=args.notes or "", redo_reason=args.redo,
-                              settings=settings, entered=entered, batch=batch)
+        return record_winkler(
+            t,
+            args.bottle,
+            titrant_ml=titrant,
+            titrated_ml=titrated,
+            normality=normality,
+            standardisation=std,
+            bottle_ml=bottle_ml,
+            reagents_ml=reagents,
+            analysed_at=at,
+            now=now,
+            analyst=args.analyst or "",
+            notes=args.notes or "",
+            redo_reason=args.redo,
+            settings=settings,
+            entered=entered,
+            batch=batch,
+        )
 
     def describe(o):  # noqa: ANN001, ANN202
         who = f" ({o.result.analyst})" if o.result.analyst else ""
-        return (f"lab: Winkler DO {o.result.value:.2f} mg/L on bottle {o.bottle.label}{who}"
-                + (" (re-titration)" if o.superseded else ""))
+        return f"lab: Winkler DO {o.result.value:.2f} mg/L on bottle {o.bottle.label}{who}" + (
+            " (re-titration)" if o.superseded else ""
+        )
 
     out, saved = _record(store, trip.id, compute, describe)
     d = out.result.inputs["derived"]
-    data = {**out.to_dict(), "do_mg_l": out.result.value, "original_sample_ml": d["original_sample_ml"],
-            "normality": d["normality"], "valid": out.result.valid, "revision": saved.revision, "caution": CAUTION}
+    data = {
+        **out.to_dict(),
+        "do_mg_l": out.result.value,
+        "original_sample_ml": d["original_sample_ml"],
+        "normality": d["normality"],
+        "valid": out.result.valid,
+        "revision": saved.revision,
+        "caution": CAUTION,
+    }
     if args.json:
         emit_json(data)
         return 0
     hold = d["holding"]
-    rows = [("trip", f"{saved.id[:8]} (revision {saved.revision})"),
-            ("bottle", f"{out.bottle.label} ({out.bottle.kind}) at {out.stop.site_id}"),
-            ("Winkler DO", f"{out.result.value:.2f} mg/L" + ("" if out.result.valid else " (NOT valid)")),
-            ("original sample", f"{d['original_sample_ml']:.2f} mL"),
-            ("normality", f"{d['normality']:.5f} N ({d['normality_source']['kind']})"),
-            ("held", f"{hold['held_h']:.1f} h from {hold['from']} (limit {hold['limit_h']:g} h)")]
+    rows = [
+        ("trip", f"{saved.id[:8]} (revision {saved.revision})"),
+        ("bottle", f"{out.bottle.label} ({out.bottle.kind}) at {out.stop.site_id}"),
+        ("Winkler DO", f"{out.result.value:.2f} mg/L" + ("" if out.result.valid else " (NOT valid)")),
+        ("original sample", f"{d['original_sample_ml']:.2f} mL"),
+        ("normality", f"{d['normality']:.5f} N ({d['normality_source']['kind']})"),
+        ("held", f"{hold['held_h']:.1f} h from {hold['from']} (limit {hold['limit_h']:g} h)"),
+    ]
     if d.get("meter_do_mg_l") is not None:
-        rows.append(("field meter", f"{d['meter_do_mg_l']:.2f} mg/L, difference {d['meter_difference_mg_l']:+.2f}"
-                                    f" mg/L (tolerance ±{d['meter_tolerance_mg_l']:g}; it implies"
-                                    f" {d['titrant_ml_expected_from_meter'] or 0:.2f} mL of titrant)"))
+        rows.append(
+            (
+                "field meter",
+                f"{d['meter_do_mg_l']:.2f} mg/L, difference {d['meter_difference_mg_l']:+.2f}"
+                f" mg/L (tolerance ±{d['meter_tolerance_mg_l']:g}; it implies"
+                f" {d['titrant_ml_expected_from_meter'] or 0:.2f} mL of titrant)",
+            )
+        )
     else:
         rows.append(("field meter", d["meter_do_source"]))
     if out.superseded:
@@ -247,8 +309,9 @@ def _batch_cmd(args) -> int:  # noqa: ANN001
     from core.rules.lab import LabInputError, add_batch, batch_qc
 
     mg = ("mg/L", "mg/l")
-    blank = _number(args.blank_depletion, "--blank-depletion", "dilution-water blank depletion in mg/L"
-                                                               " (≤ 0.20 passes)", mg)
+    blank = _number(
+        args.blank_depletion, "--blank-depletion", "dilution-water blank depletion in mg/L (≤ 0.20 passes)", mg
+    )
     gga = _number(args.gga, "--gga", "glucose–glutamic acid check BOD5 in mg/L (198 ± 30.5 passes)", mg)
     temp = _number(args.incubator_temp, "--incubator-temp", "incubator temperature in °C (20 ± 1)", ("°C", "C"))
     start = _time(args.incubation_start, "--incubation-start")
@@ -260,11 +323,14 @@ def _batch_cmd(args) -> int:  # noqa: ANN001
         try:
             raw = Path(args.seed_sheet).read_text(encoding="utf-8")
         except (OSError, UnicodeDecodeError) as exc:
-            fail(f"--seed-sheet {args.seed_sheet!r} cannot be read ({type(exc).__name__}); accepted: a bench sheet"
-                 " CSV with seed control rows")
+            fail(
+                f"--seed-sheet {args.seed_sheet!r} cannot be read ({type(exc).__name__}); accepted: a bench sheet"
+                " CSV with seed control rows"
+            )
         try:
-            controls = read_bench_sheet(raw, name=f"--seed-sheet {Path(args.seed_sheet).name}",
-                                        need_dilutions=False).seed_controls
+            controls = read_bench_sheet(
+                raw, name=f"--seed-sheet {Path(args.seed_sheet).name}", need_dilutions=False
+            ).seed_controls
         except SheetError as exc:
             fail(str(exc))
         if not controls:
@@ -280,15 +346,28 @@ def _batch_cmd(args) -> int:  # noqa: ANN001
     box: dict[str, Any] = {}
 
     def apply(t):  # noqa: ANN001, ANN202 - runs under the store's lock on the stored trip
-        new_trip, box["batch"] = add_batch(t, name=args.name, bottle_refs=refs, created_at=now, now=now,
-                                           analyst=args.analyst or "", blank_depletion_mg_l=blank, gga_bod_mg_l=gga,
-                                           seed_controls=controls, incubation_start=start, incubation_end=end,
-                                           incubator_temp_c=temp, standardisation=std, notes=args.notes or "")
+        new_trip, box["batch"] = add_batch(
+            t,
+            name=args.name,
+            bottle_refs=refs,
+            created_at=now,
+            now=now,
+            analyst=args.analyst or "",
+            blank_depletion_mg_l=blank,
+            gga_bod_mg_l=gga,
+            seed_controls=controls,
+            incubation_start=start,
+            incubation_end=end,
+            incubator_temp_c=temp,
+            standardisation=std,
+            notes=args.notes or "",
+        )
         return new_trip
 
     try:
         saved = store.update_trip(
-            trip.id, lambda: f"lab: batch {box['batch'].name} ({len(box['batch'].bottle_ids)} bottles)", apply)
+            trip.id, lambda: f"lab: batch {box['batch'].name} ({len(box['batch'].bottle_ids)} bottles)", apply
+        )
     except LabInputError as exc:
         field = {"name": "--name", "bottle": "--bottles", "seed_controls": "--seed-sheet"}.get(exc.field)
         raise (CliError(f"{field}: {exc.message}") if field else _lab_error(exc)) from None
@@ -298,11 +377,21 @@ def _batch_cmd(args) -> int:  # noqa: ANN001
     qc = batch_qc(batch, now, settings)
     labels = [b.label for s in saved.stops for b in s.bottles if b.id in set(batch.bottle_ids)]
     if args.json:
-        emit_json({"trip_id": saved.id, "revision": saved.revision, "batch": batch.model_dump(mode="json"),
-                   "bottles": labels, "qc": qc})
+        emit_json(
+            {
+                "trip_id": saved.id,
+                "revision": saved.revision,
+                "batch": batch.model_dump(mode="json"),
+                "bottles": labels,
+                "qc": qc,
+            }
+        )
         return 0
-    rows = [("trip", f"{saved.id[:8]} (revision {saved.revision})"), ("batch", batch.name),
-            ("bottles", ", ".join(labels))]
+    rows = [
+        ("trip", f"{saved.id[:8]} (revision {saved.revision})"),
+        ("batch", batch.name),
+        ("bottles", ", ".join(labels)),
+    ]
     for c in qc["checks"]:
         rows.append((c["check"], f"{c['shown']} — {c['verdict']}"))
         if c["flag"]:
@@ -340,8 +429,9 @@ def _bod(args) -> int:  # noqa: ANN001
         dilutions, controls, inhibitor = read_dilutions_file(args.dilutions)
     inhibitor = inhibitor or bool(args.nitrification_inhibitor)
     mg = ("mg/L", "mg/l")
-    blank = _number(args.blank_depletion, "--blank-depletion", "dilution-water blank depletion in mg/L"
-                                                               " (≤ 0.20 passes)", mg)
+    blank = _number(
+        args.blank_depletion, "--blank-depletion", "dilution-water blank depletion in mg/L (≤ 0.20 passes)", mg
+    )
     gga = _number(args.gga, "--gga", "glucose–glutamic acid check BOD5 in mg/L (198 ± 30.5 passes)", mg)
     temp = _number(args.incubator_temp, "--incubator-temp", "incubator temperature in °C (20 ± 1)", ("°C", "C"))
     start = _time(args.incubation_start, "--incubation-start")
@@ -351,22 +441,45 @@ def _bod(args) -> int:  # noqa: ANN001
     store = _store(args)
     settings = _settings(args, store)
     trip = _trip(store, args.trip)
-    source = ({"sheet_file": Path(args.sheet).name} if args.sheet is not None
-              else {"dilutions_file": Path(args.dilutions).name})
+    source = (
+        {"sheet_file": Path(args.sheet).name}
+        if args.sheet is not None
+        else {"dilutions_file": Path(args.dilutions).name}
+    )
     entered: dict[str, Any] = {**source, "dilutions": dilutions}
-    for key, value in (("seed_controls", controls), ("blank_depletion", args.blank_depletion), ("gga", args.gga),
-                       ("incubator_temp", args.incubator_temp), ("incubation_start", args.incubation_start),
-                       ("incubation_end", args.incubation_end)):
+    for key, value in (
+        ("seed_controls", controls),
+        ("blank_depletion", args.blank_depletion),
+        ("gga", args.gga),
+        ("incubator_temp", args.incubator_temp),
+        ("incubation_start", args.incubation_start),
+        ("incubation_end", args.incubation_end),
+    ):
         if value is not None:
             entered[key] = value
     batch = _batch(trip, args.bottle, BOD_KINDS)
 
     def compute(t):  # noqa: ANN001, ANN202
-        return record_bod(t, args.bottle, dilutions=dilutions, seed_controls=controls, blank_depletion_mg_l=blank,
-                          gga_bod_mg_l=gga, incubation_start=start, incubation_end=end, incubator_temp_c=temp,
-                          analysed_at=at, now=now, analyst=args.analyst or "", notes=args.notes or "",
-                          redo_reason=args.redo, settings=settings, entered=entered,
-                          batch=batch, nitrification_inhibitor=inhibitor)
+        return record_bod(
+            t,
+            args.bottle,
+            dilutions=dilutions,
+            seed_controls=controls,
+            blank_depletion_mg_l=blank,
+            gga_bod_mg_l=gga,
+            incubation_start=start,
+            incubation_end=end,
+            incubator_temp_c=temp,
+            analysed_at=at,
+            now=now,
+            analyst=args.analyst or "",
+            notes=args.notes or "",
+            redo_reason=args.redo,
+            settings=settings,
+            entered=entered,
+            batch=batch,
+            nitrification_inhibitor=inhibitor,
+        )
 
     def report_of(o):  # noqa: ANN001, ANN202
         return o.result.inputs["derived"].get("report") or {}
@@ -378,29 +491,46 @@ def _bod(args) -> int:  # noqa: ANN001
         return "no valid dilution" if o.result.value is None else f"{o.result.value:.1f} mg/L"
 
     def describe(o):  # noqa: ANN001, ANN202
-        return (f"lab: {report_of(o).get('analyte', 'BOD5')} {shown_of(o)} on bottle {o.bottle.label}"
-                + (f" ({o.result.analyst})" if o.result.analyst else "")
-                + (" (repeat)" if o.superseded else ""))
+        return (
+            f"lab: {report_of(o).get('analyte', 'BOD5')} {shown_of(o)} on bottle {o.bottle.label}"
+            + (f" ({o.result.analyst})" if o.result.analyst else "")
+            + (" (repeat)" if o.superseded else "")
+        )
 
     out, saved = _record(store, trip.id, compute, describe)
     shown = shown_of(out)
     report = report_of(out)
     what = report.get("analyte", "BOD5")
     d = out.result.inputs["derived"]
-    data = {**out.to_dict(), "bod_mg_l": out.result.value, "valid": out.result.valid, "analyte": what,
-            "report": report, "dilutions": d["dilutions"], "revision": saved.revision}
+    data = {
+        **out.to_dict(),
+        "bod_mg_l": out.result.value,
+        "valid": out.result.valid,
+        "analyte": what,
+        "report": report,
+        "dilutions": d["dilutions"],
+        "revision": saved.revision,
+    }
     if args.json:
         emit_json(data)
         return 0
-    rows = [("trip", f"{saved.id[:8]} (revision {saved.revision})"),
-            ("bottle", f"{out.bottle.label} ({out.bottle.kind}) at {out.stop.site_id}"),
-            (what, shown + ("" if out.result.valid or report.get("qualifier") else " (NOT valid)"))]
+    rows = [
+        ("trip", f"{saved.id[:8]} (revision {saved.revision})"),
+        ("bottle", f"{out.bottle.label} ({out.bottle.kind}) at {out.stop.site_id}"),
+        (what, shown + ("" if out.result.valid or report.get("qualifier") else " (NOT valid)")),
+    ]
     for i, dil in enumerate(d["dilutions"], 1):
-        rows.append((f"dilution {i}", f"{dil['sample_ml']:g} mL: {dil['bod_mg_l']:.1f} mg/L, depletion"
-                                      f" {dil['depletion_mg_l']:.2f} mg/L, {'valid' if dil['valid'] else 'not valid'}"))
+        rows.append(
+            (
+                f"dilution {i}",
+                f"{dil['sample_ml']:g} mL: {dil['bod_mg_l']:.1f} mg/L, depletion"
+                f" {dil['depletion_mg_l']:.2f} mg/L, {'valid' if dil['valid'] else 'not valid'}",
+            )
+        )
     if "holding" in d:
-        rows.append(("held", f"{d['holding']['held_h']:.1f} h from collection to set-up"
-                             f" (limit {d['holding']['limit_h']:g} h)"))
+        rows.append(
+            ("held", f"{d['holding']['held_h']:.1f} h from collection to set-up (limit {d['holding']['limit_h']:g} h)")
+        )
     if out.superseded:
         rows.append(("supersedes", ", ".join(s[:8] for s in out.superseded) + " (kept, marked superseded)"))
     rows += _flag_rows(data["flags"])
@@ -419,8 +549,9 @@ def _sheet(args) -> int:  # noqa: ANN001
     if suffix not in (".pdf", ".csv"):
         fail(f"--out {args.out!r} must end in .pdf or .csv; accepted: e.g. bench-sheet.pdf")
     if not out.parent.exists():
-        fail(f"--out {args.out!r}: the folder {str(out.parent)!r} does not exist; accepted: a file in an existing"
-             " folder")
+        fail(
+            f"--out {args.out!r}: the folder {str(out.parent)!r} does not exist; accepted: a file in an existing folder"
+        )
     rows = int(_number(args.rows, "--rows", "a whole number of rows, 1 to 200") or 0) if args.rows else 18
     if not 1 <= rows <= 200:
         fail(f"--rows {args.rows!r} is out of range; accepted: 1 to 200")
@@ -474,9 +605,11 @@ def _duplicates(args) -> int:  # noqa: ANN001
         rpd = "—" if c["rpd_percent"] is None else f"{c['rpd_percent']:.1f} %"
         pv = "—" if c["primary_value"] is None else f"{c['primary_value']:.2f}"
         dv = "—" if c["duplicate_value"] is None else f"{c['duplicate_value']:.2f}"
-        sys.stdout.write(f"{c['site_id']:<8} {c['analyte']:<11} {c['primary_label'] or '?':<10} {pv:>7}  "
-                         f"{c['duplicate_label']:<10} {dv:>7}  RPD {rpd:>8} (limit {c['limit_percent']:g} %)"
-                         f"  {c['status']}\n")
+        sys.stdout.write(
+            f"{c['site_id']:<8} {c['analyte']:<11} {c['primary_label'] or '?':<10} {pv:>7}  "
+            f"{c['duplicate_label']:<10} {dv:>7}  RPD {rpd:>8} (limit {c['limit_percent']:g} %)"
+            f"  {c['status']}\n"
+        )
         for f in c["flags"]:
             sys.stdout.write(f"  [{f['severity']}] {f['code']}: {f['message']}\n")
     return 0
@@ -517,9 +650,11 @@ def _pending(args) -> int:  # noqa: ANN001
         sys.stdout.write("no bottles waiting for a lab result\n")
         return 0
     for p in items:
-        sys.stdout.write(f"{p['label']:<10} {p['kind']:<9} {p['analyte']:<10} {p['site_id']:<7} trip {p['trip_id'][:8]}"
-                         f"  deadline {p['deadline'][:16]}  {_left(p['remaining_s'])}"
-                         f"  (limit {p['holding_hours']:g} h from {p['clock_from']})\n")
+        sys.stdout.write(
+            f"{p['label']:<10} {p['kind']:<9} {p['analyte']:<10} {p['site_id']:<7} trip {p['trip_id'][:8]}"
+            f"  deadline {p['deadline'][:16]}  {_left(p['remaining_s'])}"
+            f"  (limit {p['holding_hours']:g} h from {p['clock_from']})\n"
+        )
     return 0
 
 
@@ -533,13 +668,26 @@ def _results(args) -> int:  # noqa: ANN001
         for b in stop.bottles:
             for r in b.lab_results:
                 rep = reported_bod(r)
-                rows.append({"site_id": stop.site_id, "bottle_id": b.id, "label": b.label, "kind": b.kind,
-                             "result_id": r.id, "analyte": r.analyte, "value": r.value, "unit": r.unit,
-                             "report": None if rep is None else rep.to_dict(),
-                             "analysed_at": r.analysed_at.isoformat() if r.analysed_at else None,
-                             "analyst": r.analyst, "method": r.method, "valid": r.valid, "status": r.status,
-                             "superseded_by": r.superseded_by,
-                             "flags": [f.model_dump(mode="json") for f in r.flags]})
+                rows.append(
+                    {
+                        "site_id": stop.site_id,
+                        "bottle_id": b.id,
+                        "label": b.label,
+                        "kind": b.kind,
+                        "result_id": r.id,
+                        "analyte": r.analyte,
+                        "value": r.value,
+                        "unit": r.unit,
+                        "report": None if rep is None else rep.to_dict(),
+                        "analysed_at": r.analysed_at.isoformat() if r.analysed_at else None,
+                        "analyst": r.analyst,
+                        "method": r.method,
+                        "valid": r.valid,
+                        "status": r.status,
+                        "superseded_by": r.superseded_by,
+                        "flags": [f.model_dump(mode="json") for f in r.flags],
+                    }
+                )
     if args.json:
         emit_json({"trip_id": trip.id, "results": rows})
         return 0
@@ -550,10 +698,15 @@ def _results(args) -> int:  # noqa: ANN001
         value = "—" if r["value"] is None else f"{r['value']:.2f} {r['unit']}"
         if r["report"] is not None:
             value = r["report"]["text"] if r["report"]["value"] is not None else "—"
-        state = f"superseded by {r['superseded_by'][:8]}" if r["superseded_by"] else (
-            "valid" if r["valid"] else ("NOT valid" if r["valid"] is False else "not checked"))
-        sys.stdout.write(f"{r['site_id']:<7} {r['label']:<10} {r['analyte']:<11} {value:>11}  "
-                         f"{(r['analysed_at'] or '')[:16]:<16}  {r['analyst'] or '—':<6} {r['result_id'][:8]}  {state}\n")
+        state = (
+            f"superseded by {r['superseded_by'][:8]}"
+            if r["superseded_by"]
+            else ("valid" if r["valid"] else ("NOT valid" if r["valid"] is False else "not checked"))
+        )
+        sys.stdout.write(
+            f"{r['site_id']:<7} {r['label']:<10} {r['analyte']:<11} {value:>11}  "
+            f"{(r['analysed_at'] or '')[:16]:<16}  {r['analyst'] or '—':<6} {r['result_id'][:8]}  {state}\n"
+        )
     return 0
 
 
@@ -561,8 +714,12 @@ def _results(args) -> int:  # noqa: ANN001
 # Registration
 # --------------------------------------------------------------------------------------------
 def _common(p) -> None:  # noqa: ANN001
-    p.add_argument("--data-dir", metavar="DIR", default=None,
-                   help="device store folder (else $STREAMTAB_DATA, else the user data folder)")
+    p.add_argument(
+        "--data-dir",
+        metavar="DIR",
+        default=None,
+        help="device store folder (else $STREAMTAB_DATA, else the user data folder)",
+    )
     p.add_argument("--json", action="store_true", help="print JSON")
 
 
@@ -572,18 +729,24 @@ def _bench(p) -> None:  # noqa: ANN001
     p.add_argument("--analyst", help="analyst's initials, e.g. R.O.")
     p.add_argument("--at", metavar="ISO-TIME", help="when the analysis was done, with time zone (default: now)")
     p.add_argument("--notes", help="bench notes kept with the result")
-    p.add_argument("--redo", metavar="REASON",
-                   help="record a repeat analysis of a bottle that already has a result; the earlier result is"
-                        " kept and marked superseded")
+    p.add_argument(
+        "--redo",
+        metavar="REASON",
+        help="record a repeat analysis of a bottle that already has a result; the earlier result is"
+        " kept and marked superseded",
+    )
 
 
 def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     """Adds the `lab` command group to the top-level parser."""
     from mobile.cli._common import OneLineParser
 
-    lab = sub.add_parser("lab", help="lab results on synced trips: what is waiting, Winkler, BOD5, duplicates",
-                         description="The analyst's side: bench results recorded on the trip's bottles through the"
-                                     " device store. Informs only; the lab's SOP and QA plan decide.")
+    lab = sub.add_parser(
+        "lab",
+        help="lab results on synced trips: what is waiting, Winkler, BOD5, duplicates",
+        description="The analyst's side: bench results recorded on the trip's bottles through the"
+        " device store. Informs only; the lab's SOP and QA plan decide.",
+    )
     lab_sub = lab.add_subparsers(dest="lab_command", required=True, parser_class=OneLineParser)
 
     p = lab_sub.add_parser("pending", help="bottles still waiting for a result, most urgent first")
@@ -592,10 +755,13 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     _common(p)
     p.set_defaults(handler=_pending)
 
-    p = lab_sub.add_parser("winkler", help="record a Winkler (azide) DO titration on a bottle",
-                           description="Winkler DO, Standard Methods 4500-O C (azide modification), recorded on a"
-                                       " do-fixed or duplicate bottle. Caution: sulfuric acid and the alkali-iodide-"
-                                       "azide reagent hurt people; follow the lab's SOP and the safety data sheets.")
+    p = lab_sub.add_parser(
+        "winkler",
+        help="record a Winkler (azide) DO titration on a bottle",
+        description="Winkler DO, Standard Methods 4500-O C (azide modification), recorded on a"
+        " do-fixed or duplicate bottle. Caution: sulfuric acid and the alkali-iodide-"
+        "azide reagent hurt people; follow the lab's SOP and the safety data sheets.",
+    )
     _bench(p)
     p.add_argument("--titrant-ml", required=True, help="thiosulfate used to the end point, mL")
     p.add_argument("--titrated-ml", required=True, help="volume titrated, mL (e.g. 201)")
@@ -606,37 +772,55 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     p.add_argument("--standardised-at", metavar="ISO-TIME", help="when the thiosulfate was standardised")
     p.add_argument("--bottle-ml", default="300", help="bottle volume, mL (default 300)")
     p.add_argument("--reagents-ml", default="2", help="total fixing reagents added, mL (default 2: 1 + 1)")
-    p.add_argument("--meter-tolerance", metavar="MG_L",
-                   help="accepted difference from the field meter's DO, mg/L (default 0.5, common practice)")
+    p.add_argument(
+        "--meter-tolerance",
+        metavar="MG_L",
+        help="accepted difference from the field meter's DO, mg/L (default 0.5, common practice)",
+    )
     _common(p)
     p.set_defaults(handler=_winkler)
 
-    p = lab_sub.add_parser("bod", help="record a BOD5 result from a dilution series on a bottle",
-                           description="BOD5, Standard Methods 5210 B, from a bench sheet CSV (--sheet; a blank one"
-                                       " from 'streamtab lab sheet') or a JSON file of dilutions (--dilutions, the"
-                                       " layout of 'streamtab bod --dilutions').")
+    p = lab_sub.add_parser(
+        "bod",
+        help="record a BOD5 result from a dilution series on a bottle",
+        description="BOD5, Standard Methods 5210 B, from a bench sheet CSV (--sheet; a blank one"
+        " from 'streamtab lab sheet') or a JSON file of dilutions (--dilutions, the"
+        " layout of 'streamtab bod --dilutions').",
+    )
     _bench(p)
-    p.add_argument("--sheet", metavar="FILE.csv",
-                   help="the bench sheet: one row per dilution (bottle, kind, sample_ml, bottle_ml, seed_ml,"
-                        " initial_do_mg_l, final_do_mg_l); the bottle's rows and every seed control are taken")
-    p.add_argument("--dilutions", metavar="FILE",
-                   help="JSON: a list of {initial_do_mg_l, final_do_mg_l, sample_ml[, bottle_ml, seed_ml,"
-                        " seed_uptake_mg_l_per_ml]} or an object with dilutions and seed_controls")
+    p.add_argument(
+        "--sheet",
+        metavar="FILE.csv",
+        help="the bench sheet: one row per dilution (bottle, kind, sample_ml, bottle_ml, seed_ml,"
+        " initial_do_mg_l, final_do_mg_l); the bottle's rows and every seed control are taken",
+    )
+    p.add_argument(
+        "--dilutions",
+        metavar="FILE",
+        help="JSON: a list of {initial_do_mg_l, final_do_mg_l, sample_ml[, bottle_ml, seed_ml,"
+        " seed_uptake_mg_l_per_ml]} or an object with dilutions and seed_controls",
+    )
     p.add_argument("--blank-depletion", metavar="MG_L", help="dilution-water blank depletion, mg/L")
     p.add_argument("--gga", metavar="MG_L", help="glucose–glutamic acid check result, mg/L")
     p.add_argument("--incubation-start", metavar="ISO-TIME", help="when the bottles were set up")
     p.add_argument("--incubation-end", metavar="ISO-TIME", help="when they were read after 5 days")
     p.add_argument("--incubator-temp", metavar="C", help="incubator temperature, °C")
-    p.add_argument("--nitrification-inhibitor", action="store_true",
-                   help="a nitrification inhibitor was added: records CBOD5, its own analyte")
+    p.add_argument(
+        "--nitrification-inhibitor",
+        action="store_true",
+        help="a nitrification inhibitor was added: records CBOD5, its own analyte",
+    )
     _common(p)
     p.set_defaults(handler=_bod)
 
-    p = lab_sub.add_parser("batch", help="record a bench batch's QC once; it applies to every bottle in the batch",
-                           description="Batch QC (Standard Methods 5210 B and 4500-O C): dilution-water blank, GGA"
-                                       " check, seed controls, incubation, thiosulfate standardisation. 'lab bod' and"
-                                       " 'lab winkler' then use it for the batch's bottles. Recording a batch under"
-                                       " the same name again replaces it.")
+    p = lab_sub.add_parser(
+        "batch",
+        help="record a bench batch's QC once; it applies to every bottle in the batch",
+        description="Batch QC (Standard Methods 5210 B and 4500-O C): dilution-water blank, GGA"
+        " check, seed controls, incubation, thiosulfate standardisation. 'lab bod' and"
+        " 'lab winkler' then use it for the batch's bottles. Recording a batch under"
+        " the same name again replaces it.",
+    )
     p.add_argument("trip", metavar="TRIP_ID", help="trip id, or its first 8 characters")
     p.add_argument("--name", required=True, help="batch name, e.g. B-0623")
     p.add_argument("--bottles", metavar="LABEL,...", required=True, help="bottle labels set up in the batch")
@@ -655,10 +839,13 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     _common(p)
     p.set_defaults(handler=_batch_cmd)
 
-    p = lab_sub.add_parser("sheet", help="a blank BOD bench sheet to print (.pdf) or fill in (.csv)",
-                           description="A bench sheet with the batch QC boxes and one row per dilution. With"
-                                       " --trip, the trip's BOD bottles still waiting are printed in it. The CSV"
-                                       " has the columns 'streamtab lab bod --sheet' reads.")
+    p = lab_sub.add_parser(
+        "sheet",
+        help="a blank BOD bench sheet to print (.pdf) or fill in (.csv)",
+        description="A bench sheet with the batch QC boxes and one row per dilution. With"
+        " --trip, the trip's BOD bottles still waiting are printed in it. The CSV"
+        " has the columns 'streamtab lab bod --sheet' reads.",
+    )
     p.add_argument("--out", metavar="FILE", required=True, help="FILE.pdf (to print) or FILE.csv (to fill in)")
     p.add_argument("--trip", metavar="TRIP_ID", help="pre-fill the BOD bottles of this trip still waiting")
     p.add_argument("--rows", metavar="N", help="dilution rows on the printed sheet (default 18)")
@@ -667,8 +854,11 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
 
     p = lab_sub.add_parser("duplicates", help="field duplicates against their bottles (relative percent difference)")
     p.add_argument("trip", metavar="TRIP_ID", help="trip id, or its first 8 characters")
-    p.add_argument("--rpd-limit", metavar="PERCENT",
-                   help="largest accepted relative percent difference, %% (default 20, common practice)")
+    p.add_argument(
+        "--rpd-limit",
+        metavar="PERCENT",
+        help="largest accepted relative percent difference, %% (default 20, common practice)",
+    )
     _common(p)
     p.set_defaults(handler=_duplicates)
 

@@ -1,4 +1,5 @@
 """`streamtab report`, `streamtab export season`, `streamtab plot site`: what the office files and reads."""
+
 from __future__ import annotations
 
 import sys
@@ -13,11 +14,13 @@ __all__ = ["register"]
 def _out_path(text: str, option: str, suffixes: tuple[str, ...]) -> Path:
     path = Path(text)
     if path.suffix.lower() not in suffixes:
-        fail(f"{option} {text!r} must end in {' or '.join(suffixes)}; accepted: a file name such as"
-             f" report{suffixes[0]}")
+        fail(
+            f"{option} {text!r} must end in {' or '.join(suffixes)}; accepted: a file name such as report{suffixes[0]}"
+        )
     if not path.parent.exists():
-        fail(f"{option} {text!r}: the folder {str(path.parent)!r} does not exist; accepted: a file in an existing"
-             " folder")
+        fail(
+            f"{option} {text!r}: the folder {str(path.parent)!r} does not exist; accepted: a file in an existing folder"
+        )
     return path
 
 
@@ -43,14 +46,23 @@ def _report(args) -> int:  # noqa: ANN001
         data = render_trip_report(rep, out)
     except OSError as exc:
         fail(f"--out {args.out!r} could not be written ({exc.strerror or exc}); accepted: a writable file")
-    summary = {"trip_id": trip.id, "revision": trip.revision, "out": str(out), "bytes": len(data),
-               "stops": len(rep.stops), "bottles": len(rep.bottles), "results": len(rep.results),
-               "handoffs": len(rep.handoffs)}
+    summary = {
+        "trip_id": trip.id,
+        "revision": trip.revision,
+        "out": str(out),
+        "bytes": len(data),
+        "stops": len(rep.stops),
+        "bottles": len(rep.bottles),
+        "results": len(rep.results),
+        "handoffs": len(rep.handoffs),
+    }
     if args.json:
         emit_json(summary)
     else:
-        sys.stdout.write(f"wrote {out} ({len(data) // 1024} KiB): trip {trip.id[:8]}, {len(rep.stops)} stops,"
-                         f" {len(rep.results)} lab results, {len(rep.handoffs)} hand-offs\n")
+        sys.stdout.write(
+            f"wrote {out} ({len(data) // 1024} KiB): trip {trip.id[:8]}, {len(rep.stops)} stops,"
+            f" {len(rep.results)} lab results, {len(rep.handoffs)} hand-offs\n"
+        )
     return 0
 
 
@@ -102,8 +114,10 @@ def _export_season(args) -> int:  # noqa: ANN001
     if out.exists() and not out.is_dir():
         fail(f"--out {args.out!r} is a file; accepted: a folder (created when missing)")
     if not out.parent.exists():
-        fail(f"--out {args.out!r}: the folder {str(out.parent)!r} does not exist; accepted: a folder in an existing"
-             " folder")
+        fail(
+            f"--out {args.out!r}: the folder {str(out.parent)!r} does not exist; accepted: a folder in an existing"
+            " folder"
+        )
     flt = _season_filter(args, args.site or ())
     store = open_store(args.data_dir)
     try:
@@ -125,11 +139,15 @@ def _export_season(args) -> int:  # noqa: ANN001
         fail(f"--out {args.out!r} could not be written ({exc.strerror or exc}); accepted: a writable folder")
     counts = {name: len(rows) for name, rows in tables.items()}
     if args.json:
-        emit_json({"out": str(out), "files": [str(f) for f in files], "trips": len(trips), "rows": counts,
-                   "skipped": skipped})
+        emit_json(
+            {"out": str(out), "files": [str(f) for f in files], "trips": len(trips), "rows": counts, "skipped": skipped}
+        )
     else:
-        sys.stdout.write(f"wrote {len(files)} files to {out}: " + ", ".join(f"{n} {k}" for k, n in counts.items())
-                         + f" from {len(trips)} trips\n")
+        sys.stdout.write(
+            f"wrote {len(files)} files to {out}: "
+            + ", ".join(f"{n} {k}" for k, n in counts.items())
+            + f" from {len(trips)} trips\n"
+        )
     return 0
 
 
@@ -154,11 +172,20 @@ def _plot_site(args) -> int:  # noqa: ANN001
     trips, _ = _walk_trips(store, flt, "reading trips")
     rows = site_series(trips, site_id, flt)
     if not rows:
-        fail(f"SITE {site_id}: no visits in the store for these dates; accepted: a site with visits (see"
-             " 'streamtab trip list')")
-    supersat = site.supersaturation_percent if site and site.supersaturation_percent else settings.supersaturation_percent
-    fig = site_season_figure(rows, site_id=site_id, site_name=site.name if site else "",
-                             criterion_mg_l=criterion_mg_l(site, settings), supersat_percent=supersat)
+        fail(
+            f"SITE {site_id}: no visits in the store for these dates; accepted: a site with visits (see"
+            " 'streamtab trip list')"
+        )
+    supersat = (
+        site.supersaturation_percent if site and site.supersaturation_percent else settings.supersaturation_percent
+    )
+    fig = site_season_figure(
+        rows,
+        site_id=site_id,
+        site_name=site.name if site else "",
+        criterion_mg_l=criterion_mg_l(site, settings),
+        supersat_percent=supersat,
+    )
     from core.store.atomic import atomic_write_bytes
 
     try:
@@ -166,16 +193,26 @@ def _plot_site(args) -> int:  # noqa: ANN001
     except OSError as exc:
         fail(f"--out {args.out!r} could not be written ({exc.strerror or exc}); accepted: a writable file")
     if args.json:
-        emit_json({"out": str(out), "site_id": site_id, "visits": len(rows),
-                   "winkler_points": sum(len(r["winkler_mg_l"]) for r in rows)})
+        emit_json(
+            {
+                "out": str(out),
+                "site_id": site_id,
+                "visits": len(rows),
+                "winkler_points": sum(len(r["winkler_mg_l"]) for r in rows),
+            }
+        )
     else:
         sys.stdout.write(f"wrote {out}: {site_id}, {len(rows)} visits\n")
     return 0
 
 
 def _common(p) -> None:  # noqa: ANN001
-    p.add_argument("--data-dir", metavar="DIR", default=None,
-                   help="device store folder (else $STREAMTAB_DATA, else the user data folder)")
+    p.add_argument(
+        "--data-dir",
+        metavar="DIR",
+        default=None,
+        help="device store folder (else $STREAMTAB_DATA, else the user data folder)",
+    )
     p.add_argument("--json", action="store_true", help="print a JSON summary")
 
 
@@ -183,9 +220,12 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     """Adds `report`, `export` and `plot` to the top-level parser."""
     from core.rules.review import STATES as REVIEW_STATES
 
-    p = sub.add_parser("report", help="the trip report as a PDF: field sheet, lab results, chain of custody, a plot",
-                       description="Prints a trip's report to a PDF for filing. Informs only: the program's SOP"
-                                   " and local regulations decide.")
+    p = sub.add_parser(
+        "report",
+        help="the trip report as a PDF: field sheet, lab results, chain of custody, a plot",
+        description="Prints a trip's report to a PDF for filing. Informs only: the program's SOP"
+        " and local regulations decide.",
+    )
     p.add_argument("trip", metavar="TRIP_ID", help="trip id, or its first 8 characters")
     p.add_argument("--out", metavar="FILE.pdf", required=True, help="where to write the PDF")
     _common(p)
@@ -195,16 +235,23 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
 
     ex = sub.add_parser("export", help="office tables across many trips (CSV, or an .xlsx workbook)")
     ex_sub = ex.add_subparsers(dest="export_command", required=True, parser_class=OneLineParser)
-    p = ex_sub.add_parser("season", help="tidy tables over a season: stops, bottles, results, calibrations, custody",
-                          description="Writes stops.csv, bottles.csv, results.csv, calibrations.csv and custody.csv"
-                                      " (one row per observation, units in the column names) into a folder. Cells a"
-                                      " spreadsheet would run as a formula are neutralised.")
+    p = ex_sub.add_parser(
+        "season",
+        help="tidy tables over a season: stops, bottles, results, calibrations, custody",
+        description="Writes stops.csv, bottles.csv, results.csv, calibrations.csv and custody.csv"
+        " (one row per observation, units in the column names) into a folder. Cells a"
+        " spreadsheet would run as a formula are neutralised.",
+    )
     p.add_argument("--from", dest="date_from", metavar="DATE", help="first trip date, YYYY-MM-DD")
     p.add_argument("--to", dest="date_to", metavar="DATE", help="last trip date, YYYY-MM-DD")
     p.add_argument("--site", metavar="ID", action="append", help="only stops at this site (repeat for more)")
-    p.add_argument("--state", action="append", choices=REVIEW_STATES, metavar="STATE",
-                   help="only trips in this review state, e.g. approved (repeat for more; "
-                        f"one of: {', '.join(REVIEW_STATES)})")
+    p.add_argument(
+        "--state",
+        action="append",
+        choices=REVIEW_STATES,
+        metavar="STATE",
+        help=f"only trips in this review state, e.g. approved (repeat for more; one of: {', '.join(REVIEW_STATES)})",
+    )
     p.add_argument("--out", metavar="DIR", required=True, help="folder for the tables (created when missing)")
     p.add_argument("--xlsx", action="store_true", help="also write the tables as one workbook, season.xlsx")
     _common(p)
@@ -212,10 +259,13 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
 
     pl = sub.add_parser("plot", help="plots for the office")
     pl_sub = pl.add_subparsers(dest="plot_command", required=True, parser_class=OneLineParser)
-    p = pl_sub.add_parser("site", help="DO and %% saturation over a season at one site, with criterion lines",
-                          description="Meter DO and %% saturation at one site over the season, the site's DO"
-                                      " criterion and supersaturation threshold, and the lab's Winkler DO beside"
-                                      " the meter readings. Readable in grey scale.")
+    p = pl_sub.add_parser(
+        "site",
+        help="DO and %% saturation over a season at one site, with criterion lines",
+        description="Meter DO and %% saturation at one site over the season, the site's DO"
+        " criterion and supersaturation threshold, and the lab's Winkler DO beside"
+        " the meter readings. Readable in grey scale.",
+    )
     p.add_argument("site", metavar="SITE", help="site id, e.g. LK-01")
     p.add_argument("--from", dest="date_from", metavar="DATE", help="first trip date, YYYY-MM-DD")
     p.add_argument("--to", dest="date_to", metavar="DATE", help="last trip date, YYYY-MM-DD")

@@ -3,6 +3,7 @@
 Each step is an event appended to the trip (who, when, comment, reasons) through the store's one
 save path, so it syncs and merges like any other change (core.rules.review holds the states).
 """
+
 from __future__ import annotations
 
 import sys
@@ -23,24 +24,35 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     def common(p, json: bool = True) -> None:  # noqa: ANN001
         if json:
             p.add_argument("--json", action="store_true", help="print the result as JSON")
-        p.add_argument("--data-dir", metavar="DIR", default=None,
-                       help="store folder (else $STREAMTAB_DATA, else the user data folder)")
+        p.add_argument(
+            "--data-dir",
+            metavar="DIR",
+            default=None,
+            help="store folder (else $STREAMTAB_DATA, else the user data folder)",
+        )
 
     p = verbs.add_parser("list", help="trips with their review state")
     p.add_argument("--state", choices=STATES, default=None, help="only trips in this state")
     common(p)
     p.set_defaults(handler=_list)
 
-    for name, action, help_text in (("check", "reviewed", "mark an ended trip as reviewed"),
-                                    ("approve", "approved", "approve an ended or reviewed trip"),
-                                    ("return", "returned", "send a trip back to its crew with reasons"),
-                                    ("resubmit", "resubmitted", "hand a returned trip back to the office")):
+    for name, action, help_text in (
+        ("check", "reviewed", "mark an ended trip as reviewed"),
+        ("approve", "approved", "approve an ended or reviewed trip"),
+        ("return", "returned", "send a trip back to its crew with reasons"),
+        ("resubmit", "resubmitted", "hand a returned trip back to the office"),
+    ):
         p = verbs.add_parser(name, help=help_text)
         p.add_argument("id", metavar="TRIP", help="trip id, or a unique start of it")
         p.add_argument("--by", required=True, metavar="NAME", help="who takes this step")
         if action == "returned":
-            p.add_argument("--reason", required=True, action="append", metavar="TEXT",
-                           help="what the crew should fix (repeat for several)")
+            p.add_argument(
+                "--reason",
+                required=True,
+                action="append",
+                metavar="TEXT",
+                help="what the crew should fix (repeat for several)",
+            )
         p.add_argument("--comment", default="", metavar="TEXT", help="a note kept with the step")
         common(p)
         p.set_defaults(handler=_step, action=action)
@@ -67,16 +79,27 @@ def _list(args) -> int:  # noqa: ANN001
         state = _state_of(store, s)
         if args.state and state != args.state:
             continue
-        rows.append({"id": s.id, "started_at": s.started_at, "program": s.program, "crew": s.crew,
-                     "stops": s.stop_count, "revision": s.revision, "state": state})
+        rows.append(
+            {
+                "id": s.id,
+                "started_at": s.started_at,
+                "program": s.program,
+                "crew": s.crew,
+                "stops": s.stop_count,
+                "revision": s.revision,
+                "state": state,
+            }
+        )
     if args.json:
         emit_json(rows)
         return 0
     if not rows:
         sys.stdout.write("no trips" + (f" {args.state}" if args.state else "") + "\n")
     for r in rows:
-        sys.stdout.write(f"{r['id'][:8]}  {r['started_at'][:16]:<16}  {r['program'][:28]:<28}  "
-                         f"{','.join(r['crew'])[:14]:<14}  {r['state']}\n")
+        sys.stdout.write(
+            f"{r['id'][:8]}  {r['started_at'][:16]:<16}  {r['program'][:28]:<28}  "
+            f"{','.join(r['crew'])[:14]:<14}  {r['state']}\n"
+        )
     return 0
 
 
@@ -89,12 +112,23 @@ def _step(args) -> int:  # noqa: ANN001
     tid = resolve_trip_id(store, args.id, "TRIP")
     try:
         trip = store.load_trip(tid)
-        event = new_event(trip, args.action, by=args.by, at=datetime.now(timezone.utc),
-                          comment=args.comment, reasons=getattr(args, "reason", None) or ())
-        updated = trip.model_copy(update={"review_events": [*trip.review_events,
-                                                            ReviewEvent.model_validate(event, strict=False)]})
-        what = {"reviewed": "reviewed", "approved": "approved", "returned": "returned to the crew",
-                "resubmitted": "resubmitted"}[args.action]
+        event = new_event(
+            trip,
+            args.action,
+            by=args.by,
+            at=datetime.now(timezone.utc),
+            comment=args.comment,
+            reasons=getattr(args, "reason", None) or (),
+        )
+        updated = trip.model_copy(
+            update={"review_events": [*trip.review_events, ReviewEvent.model_validate(event, strict=False)]}
+        )
+        what = {
+            "reviewed": "reviewed",
+            "approved": "approved",
+            "returned": "returned to the crew",
+            "resubmitted": "resubmitted",
+        }[args.action]
         saved = store.save_trip(updated, f"review: {what} by {event['by']}")
     except ReviewRefused as exc:
         fail(f"trip {tid[:8]}: {exc}")
@@ -119,14 +153,22 @@ def _show(args) -> int:  # noqa: ANN001
     if args.approved:
         version = approved_version(doc)
         if version is None:
-            fail(f"trip {tid[:8]} has no correction after an approval; accepted: a corrected trip"
-                 " (its current version is the approved one when it is approved).")
+            fail(
+                f"trip {tid[:8]} has no correction after an approval; accepted: a corrected trip"
+                " (its current version is the approved one when it is approved)."
+            )
         emit_json(version)
         return 0
     events = sorted(doc.get("review_events") or [], key=lambda e: (e.get("at", ""), e.get("id", "")))
     if args.json:
-        emit_json({"id": tid, "state": review_state(doc), "reasons": open_reasons(doc),
-                   "events": [{k: v for k, v in e.items() if k != "approved"} for e in events]})
+        emit_json(
+            {
+                "id": tid,
+                "state": review_state(doc),
+                "reasons": open_reasons(doc),
+                "events": [{k: v for k, v in e.items() if k != "approved"} for e in events],
+            }
+        )
         return 0
     sys.stdout.write(f"{tid}  {review_state(doc)}\n")
     for e in events:

@@ -4,6 +4,7 @@ Exit status: 0 when everything went, 1 when something is left for the next sync 
 unreachable, timed out or answered 5xx; an endpoint reported a conflict), 2 for bad input (a
 wrong address, options, credentials, TLS or a redirect).
 """
+
 from __future__ import annotations
 
 import sys
@@ -16,8 +17,11 @@ __all__ = ["register"]
 
 def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     """Adds `sync push`, `sync pull` and `sync status` to the top-level parser."""
-    p = sub.add_parser("sync", help="send trips to a hub (folder, WebDAV, HTTP endpoint) and back",
-                       description="Send trips to a hub and bring them back.")
+    p = sub.add_parser(
+        "sync",
+        help="send trips to a hub (folder, WebDAV, HTTP endpoint) and back",
+        description="Send trips to a hub and bring them back.",
+    )
     verbs = p.add_subparsers(dest="sync_command", required=True, parser_class=type(p))
 
     def common(q, with_hub: bool = True) -> None:  # noqa: ANN001
@@ -25,22 +29,38 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
         q.add_argument("--json", action="store_true", help="print the result as JSON")
         if with_hub:
             q.add_argument("--ca-file", help="PEM file of the program's own certificate authority")
-            q.add_argument("--credentials", help="owner-only INI file with the hub's user and password "
-                                                  "or token (else environment, else <data dir>/sync/credentials.ini)")
-            q.add_argument("--timeout", type=float, default=30.0,
-                           help="seconds to wait for each answer from the hub (default 30)")
+            q.add_argument(
+                "--credentials",
+                help="owner-only INI file with the hub's user and password "
+                "or token (else environment, else <data dir>/sync/credentials.ini)",
+            )
+            q.add_argument(
+                "--timeout", type=float, default=30.0, help="seconds to wait for each answer from the hub (default 30)"
+            )
 
     push = verbs.add_parser("push", help="send every trip changed since its last push")
-    push.add_argument("--to", required=True, metavar="TARGET",
-                      help="folder or file:// URL, https:// WebDAV collection, or post+https:// endpoint")
+    push.add_argument(
+        "--to",
+        required=True,
+        metavar="TARGET",
+        help="folder or file:// URL, https:// WebDAV collection, or post+https:// endpoint",
+    )
     common(push)
     push.set_defaults(handler=_push)
 
     pull = verbs.add_parser("pull", help="bring every trip from a hub into this store, merging")
-    pull.add_argument("--from", dest="source", required=True, metavar="TARGET",
-                      help="folder or file:// URL, or https:// WebDAV collection")
-    pull.add_argument("--full", action="store_true",
-                      help="list the whole hub instead of reading its change log (a repair; slow on big hubs)")
+    pull.add_argument(
+        "--from",
+        dest="source",
+        required=True,
+        metavar="TARGET",
+        help="folder or file:// URL, or https:// WebDAV collection",
+    )
+    pull.add_argument(
+        "--full",
+        action="store_true",
+        help="list the whole hub instead of reading its change log (a repair; slow on big hubs)",
+    )
     common(pull)
     pull.set_defaults(handler=_pull)
 
@@ -87,9 +107,13 @@ def _session(args: Any, store: Any, address: str):  # noqa: ANN202
         fail(f"--timeout {args.timeout:g} must be between 0 and 600 seconds")
     try:
         creds = load_credentials(address, config_file=args.credentials, data_dir=store.data_dir)
-        return Session(store.device_id, credentials=creds, read_timeout_s=args.timeout,
-                       connect_timeout_s=min(10.0, args.timeout),
-                       ca_file=args.ca_file or ca_file_from_environment())
+        return Session(
+            store.device_id,
+            credentials=creds,
+            read_timeout_s=args.timeout,
+            connect_timeout_s=min(10.0, args.timeout),
+            ca_file=args.ca_file or ca_file_from_environment(),
+        )
     except SyncError as exc:
         fail(str(exc))
 
@@ -112,15 +136,14 @@ def _run(args: Any, verb: str, address: str):  # noqa: ANN202
     from core.store import StoreLocked
     from sync.errors import FinalError, RetryableError
 
-    store = _open_store(args, create=verb == "pull")   # a pull may fill an empty office store
+    store = _open_store(args, create=verb == "pull")  # a pull may fill an empty office store
     session = _session(args, store, address)
     _check_address(session, address, "--to" if verb == "push" else "--from")
     bar = _Bar(verb)
     try:
         if verb == "push":
             return sync.push(store, address, progress=bar, session=session), None
-        return sync.pull(store, address, progress=bar, session=session,
-                         full=bool(getattr(args, "full", False))), None
+        return sync.pull(store, address, progress=bar, session=session, full=bool(getattr(args, "full", False))), None
     except FinalError as exc:
         bar.finish()
         fail(str(exc))
@@ -133,8 +156,10 @@ def _run(args: Any, verb: str, address: str):  # noqa: ANN202
         bar.finish()
         logging.getLogger("streamtab.sync").debug("sync stopped", exc_info=True)
         first = (str(exc).splitlines() or [""])[0][:160]
-        fail(f"sync {verb} stopped on an unexpected problem ({type(exc).__name__}: {first}); nothing "
-             f"stored was changed by it — run it again, and report it if it repeats")
+        fail(
+            f"sync {verb} stopped on an unexpected problem ({type(exc).__name__}: {first}); nothing "
+            f"stored was changed by it — run it again, and report it if it repeats"
+        )
     finally:
         bar.finish()
         session.close()
@@ -147,9 +172,15 @@ def _push(args: Any) -> int:
     if args.json:
         emit_json(report.to_dict())
     else:
-        emit_table([("hub", report.target), ("pushed", str(report.pushed)),
-                    ("unchanged", str(report.unchanged)), ("conflicts", str(report.conflicts)),
-                    ("failed", str(report.failed))])
+        emit_table(
+            [
+                ("hub", report.target),
+                ("pushed", str(report.pushed)),
+                ("unchanged", str(report.unchanged)),
+                ("conflicts", str(report.conflicts)),
+                ("failed", str(report.failed)),
+            ]
+        )
         _details(report.per_trip)
     return EXIT_OK if report.complete else EXIT_RETRY
 
@@ -161,10 +192,17 @@ def _pull(args: Any) -> int:
     if args.json:
         emit_json(report.to_dict())
     else:
-        emit_table([("hub", report.source), ("pulled", str(report.pulled)),
-                    ("merged", str(report.merged)), ("quarantined", str(report.quarantined)),
-                    ("unchanged", str(report.unchanged)), ("failed", str(report.failed))]
-                   + ([("skipped at the hub", str(len(report.skipped)))] if report.skipped else []))
+        emit_table(
+            [
+                ("hub", report.source),
+                ("pulled", str(report.pulled)),
+                ("merged", str(report.merged)),
+                ("quarantined", str(report.quarantined)),
+                ("unchanged", str(report.unchanged)),
+                ("failed", str(report.failed)),
+            ]
+            + ([("skipped at the hub", str(len(report.skipped)))] if report.skipped else [])
+        )
         _details(report.per_trip)
         for line in report.skipped:
             sys.stdout.write(f"hub entry {line}\n")

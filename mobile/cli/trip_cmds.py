@@ -1,4 +1,5 @@
 """`streamtab sites import` and `streamtab trip import|list|show|export`: trips in the device store."""
+
 from __future__ import annotations
 
 import sys
@@ -10,16 +11,27 @@ from mobile.cli._common import emit_json, fail, open_store, resolve_trip_id
 __all__ = ["register"]
 
 
-def _command(group, name: str, help_text: str, handler, *, json: bool = False,  # noqa: ANN001
-             trip_id: bool = False):
+def _command(
+    group,
+    name: str,
+    help_text: str,
+    handler,
+    *,
+    json: bool = False,  # noqa: ANN001
+    trip_id: bool = False,
+):
     """One sub-command with the options every command here shares (ID, --json, --data-dir)."""
     p = group.add_parser(name, help=help_text)
     if trip_id:
         p.add_argument("id", metavar="ID", help="trip id, or a unique start of it")
     if json:
         p.add_argument("--json", action="store_true")
-    p.add_argument("--data-dir", metavar="DIR", default=None,
-                   help="device store folder (else $STREAMTAB_DATA, else the user data folder)")
+    p.add_argument(
+        "--data-dir",
+        metavar="DIR",
+        default=None,
+        help="device store folder (else $STREAMTAB_DATA, else the user data folder)",
+    )
     p.set_defaults(handler=handler)
     return p
 
@@ -36,16 +48,20 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
 
     trip = sub.add_parser("trip", help="trips in the device store")
     trip_sub = trip.add_subparsers(dest="trip_command", required=True, parser_class=OneLineParser)
-    p = _command(trip_sub, "import", "import a trip JSON file (validated; nothing half-imported)",
-                 _trip_import, json=True)
+    p = _command(
+        trip_sub, "import", "import a trip JSON file (validated; nothing half-imported)", _trip_import, json=True
+    )
     p.add_argument("file", metavar="FILE")
     _command(trip_sub, "list", "list the trips on this device", _trip_list, json=True)
-    _command(trip_sub, "show", "a trip's stops with derived values and flags", _trip_show,
-             json=True, trip_id=True)
+    _command(trip_sub, "show", "a trip's stops with derived values and flags", _trip_show, json=True, trip_id=True)
     p = _command(trip_sub, "export", "write a trip as JSON or CSV", _trip_export, trip_id=True)
     p.add_argument("--format", choices=("json", "csv"), required=True)
-    p.add_argument("--out", metavar="PATH", default=None,
-                   help="file for json; folder for csv (stops.csv, bottles.csv); default: standard output")
+    p.add_argument(
+        "--out",
+        metavar="PATH",
+        default=None,
+        help="file for json; folder for csv (stops.csv, bottles.csv); default: standard output",
+    )
     from mobile.cli.conflict_cmds import add_trip_commands
 
     add_trip_commands(trip_sub, _command)
@@ -98,9 +114,16 @@ def _trip_import(args) -> int:  # noqa: ANN001
         fail(str(exc))
     trip = outcome.trip
     if args.json:
-        emit_json({"id": trip.id, "revision": trip.revision, "stop_count": len(trip.stops),
-                   "status": trip.status, "result": outcome.result,
-                   "new_conflicts": len(outcome.conflicts)})
+        emit_json(
+            {
+                "id": trip.id,
+                "revision": trip.revision,
+                "stop_count": len(trip.stops),
+                "status": trip.status,
+                "result": outcome.result,
+                "new_conflicts": len(outcome.conflicts),
+            }
+        )
         return 0
     n = len(trip.stops)
     name = Path(args.file).name
@@ -113,8 +136,10 @@ def _trip_import(args) -> int:  # noqa: ANN001
         sys.stdout.write(f"merged {name} into trip {trip.id} {what}; nothing stored was removed\n")
     if outcome.conflicts:
         k = len(outcome.conflicts)
-        sys.stdout.write(f"{k} field{'' if k == 1 else 's'} differ between this device and the file;"
-                         f" see 'streamtab trip conflicts {trip.id[:8]}'\n")
+        sys.stdout.write(
+            f"{k} field{'' if k == 1 else 's'} differ between this device and the file;"
+            f" see 'streamtab trip conflicts {trip.id[:8]}'\n"
+        )
     return 0
 
 
@@ -122,8 +147,10 @@ def _note_quarantine(store) -> None:  # noqa: ANN001
     moved = store.quarantined()
     if moved:
         names = ", ".join(p.name for p in moved[:5]) + (" ..." if len(moved) > 5 else "")
-        sys.stderr.write(f"streamtab: note: {len(moved)} unreadable file{'s' if len(moved) != 1 else ''} kept in"
-                         f" {moved[0].parent}: {names}\n")
+        sys.stderr.write(
+            f"streamtab: note: {len(moved)} unreadable file{'s' if len(moved) != 1 else ''} kept in"
+            f" {moved[0].parent}: {names}\n"
+        )
 
 
 def _trip_list(args) -> int:  # noqa: ANN001
@@ -139,8 +166,11 @@ def _trip_list(args) -> int:  # noqa: ANN001
         sys.stdout.write("no trips on this device\n")
         return 0
     for s in summaries:
-        sys.stdout.write(f"{s.id[:8]}  {when_text(s.started_at):<26}  {s.program[:28]:<28}  "
-                         f"{','.join(s.crew)[:14]:<14}  {s.stop_count:>3} stop{' ' if s.stop_count == 1 else 's'}  rev {s.revision:<3} {s.status}\n")
+        sys.stdout.write(
+            f"{s.id[:8]}  {when_text(s.started_at):<26}  {s.program[:28]:<28}  "
+            f"{','.join(s.crew)[:14]:<14}  {s.stop_count:>3} stop{' ' if s.stop_count == 1 else 's'}  "
+            f"rev {s.revision:<3} {s.status}\n"
+        )
     return 0
 
 
@@ -155,34 +185,50 @@ def _show_data(store, trip_id: str) -> dict:  # noqa: ANN001
     stops = []
     for number, stop in enumerate(sorted(trip.stops, key=lambda s: s.arrived_at), 1):
         site = checked_site(stop, sites)
-        stops.append({
-            "number": number,
-            "id": stop.id, "site_id": stop.site_id, "site_name": site.name if site else None,
-            # the site facts the checks used (kept when the stop was saved) and what changed since
-            "site_snapshot": stop.site_snapshot.model_dump(mode="json") if stop.site_snapshot else None,
-            "site_changed_since": snapshot_differences(stop, sites.get(stop.site_id), settings),
-            "arrived_at": stop.arrived_at.isoformat(),
-            "closed_at": stop.closed_at.isoformat() if stop.closed_at else None,
-            "inputs": {name: (getattr(stop, name).model_dump(mode="json") if getattr(stop, name) else None)
-                       for name in ("temp", "pressure", "conductivity", "do")},
-            "conductivity_is_sc25": stop.conductivity_is_sc25,
-            "derived": stop.derived.model_dump(mode="json", exclude={"flags"}) if stop.derived else None,
-            "bottles": [{"id": b.id, "label": b.label, "kind": b.kind,
-                         "collected_at": b.collected_at.isoformat()} for b in stop.bottles],
-            "flags": [f.to_dict() for f in flags.get(stop.id, [])],
-        })
+        stops.append(
+            {
+                "number": number,
+                "id": stop.id,
+                "site_id": stop.site_id,
+                "site_name": site.name if site else None,
+                # the site facts the checks used (kept when the stop was saved) and what changed since
+                "site_snapshot": stop.site_snapshot.model_dump(mode="json") if stop.site_snapshot else None,
+                "site_changed_since": snapshot_differences(stop, sites.get(stop.site_id), settings),
+                "arrived_at": stop.arrived_at.isoformat(),
+                "closed_at": stop.closed_at.isoformat() if stop.closed_at else None,
+                "inputs": {
+                    name: (getattr(stop, name).model_dump(mode="json") if getattr(stop, name) else None)
+                    for name in ("temp", "pressure", "conductivity", "do")
+                },
+                "conductivity_is_sc25": stop.conductivity_is_sc25,
+                "derived": stop.derived.model_dump(mode="json", exclude={"flags"}) if stop.derived else None,
+                "bottles": [
+                    {"id": b.id, "label": b.label, "kind": b.kind, "collected_at": b.collected_at.isoformat()}
+                    for b in stop.bottles
+                ],
+                "flags": [f.to_dict() for f in flags.get(stop.id, [])],
+            }
+        )
     cal = {}
     for key in ("pre_calibration", "post_check"):
         c = getattr(trip, key)
         cal[key] = None if c is None else c.model_dump(mode="json")
-    return {"id": trip.id, "program": trip.program, "crew": trip.crew, "device_id": trip.device_id,
-            "meter_id": trip.meter_id, "started_at": trip.started_at.isoformat(),
-            "ended_at": trip.ended_at.isoformat() if trip.ended_at else None, "revision": trip.revision,
-            "status": trip.status, "calibrations": cal,
-            "started_without_calibration": trip.started_without_calibration,
-            "trip_flags": [f.to_dict() for f in flags.get(TRIP_KEY, [])],
-            "open_conflicts": [c.model_dump(mode="json") for c in trip.open_conflicts],
-            "stops": stops}
+    return {
+        "id": trip.id,
+        "program": trip.program,
+        "crew": trip.crew,
+        "device_id": trip.device_id,
+        "meter_id": trip.meter_id,
+        "started_at": trip.started_at.isoformat(),
+        "ended_at": trip.ended_at.isoformat() if trip.ended_at else None,
+        "revision": trip.revision,
+        "status": trip.status,
+        "calibrations": cal,
+        "started_without_calibration": trip.started_without_calibration,
+        "trip_flags": [f.to_dict() for f in flags.get(TRIP_KEY, [])],
+        "open_conflicts": [c.model_dump(mode="json") for c in trip.open_conflicts],
+        "stops": stops,
+    }
 
 
 def _fmt(value, spec: str, unit: str) -> str:  # noqa: ANN001
@@ -205,16 +251,21 @@ def _trip_show(args) -> int:  # noqa: ANN001
 
     w = sys.stdout.write
     w(f"trip {data['id']}  {data['program']}  crew {', '.join(data['crew']) or '—'}  status {data['status']}\n")
-    w(f"  started {when_text(data['started_at'])}  ended {when_text(data['ended_at'])}  meter {data['meter_id'] or '—'}"
-      f"  revision {data['revision']}\n")
+    w(
+        f"  started {when_text(data['started_at'])}  ended {when_text(data['ended_at'])}"
+        f"  meter {data['meter_id'] or '—'}"
+        f"  revision {data['revision']}\n"
+    )
     if data["started_without_calibration"] and not data["calibrations"]["pre_calibration"]:
         w("  pre-trip calibration: none — the trip was started without calibration\n")
     for key, label in (("pre_calibration", "pre-trip calibration"), ("post_check", "post-trip check")):
         c = data["calibrations"][key]
         if c:
             verdict = {True: "accepted", False: "NOT accepted", None: "not checked"}[c.get("accepted")]
-            w(f"  {label}: read {c['reading_mg_l']:g} mg/L, target "
-              f"{_fmt(c.get('target_mg_l'), '.2f', 'mg/L')}, {verdict}\n")
+            w(
+                f"  {label}: read {c['reading_mg_l']:g} mg/L, target "
+                f"{_fmt(c.get('target_mg_l'), '.2f', 'mg/L')}, {verdict}\n"
+            )
     for f in data["trip_flags"]:
         w(f"  [{f['severity']}] {f['code']}: {f['message']}\n")
     if data["open_conflicts"]:
@@ -229,16 +280,22 @@ def _trip_show(args) -> int:  # noqa: ANN001
         do = inp["do"]
         w(f"\nstop {s['number']}: {s['site_id']} {s['site_name'] or ''}  {s['arrived_at']}\n")
         if s["site_changed_since"]:
-            w(f"  site list changed since this stop was saved; it is judged as saved: "
-              f"{'; '.join(s['site_changed_since'])}\n")
-        w(f"  water {_fmt(inp['temp'] and inp['temp']['value'], '.1f', '°C')}"
-          f"  pressure {_fmt(inp['pressure'] and inp['pressure']['value'], '.1f', 'hPa')}"
-          f"  conductivity {_fmt(inp['conductivity'] and inp['conductivity']['value'], '.0f', 'µS/cm')}"
-          f"  meter DO {_fmt(do and do['value'], 'g', do['unit'] if do else '')}\n")
+            w(
+                f"  site list changed since this stop was saved; it is judged as saved: "
+                f"{'; '.join(s['site_changed_since'])}\n"
+            )
+        w(
+            f"  water {_fmt(inp['temp'] and inp['temp']['value'], '.1f', '°C')}"
+            f"  pressure {_fmt(inp['pressure'] and inp['pressure']['value'], '.1f', 'hPa')}"
+            f"  conductivity {_fmt(inp['conductivity'] and inp['conductivity']['value'], '.0f', 'µS/cm')}"
+            f"  meter DO {_fmt(do and do['value'], 'g', do['unit'] if do else '')}\n"
+        )
         if d:
-            w(f"  saturation {d['do_sat_mg_l']:.2f} mg/L ({d['method']})"
-              f"  DO {_fmt(d.get('do_mg_l'), '.2f', 'mg/L')}  {_fmt(d.get('percent_saturation'), '.0f', '%')}"
-              f"  salinity {d['salinity']:.2f} ({d['salinity_source']})\n")
+            w(
+                f"  saturation {d['do_sat_mg_l']:.2f} mg/L ({d['method']})"
+                f"  DO {_fmt(d.get('do_mg_l'), '.2f', 'mg/L')}  {_fmt(d.get('percent_saturation'), '.0f', '%')}"
+                f"  salinity {d['salinity']:.2f} ({d['salinity_source']})\n"
+            )
         else:
             w("  saturation —  (needs water temperature and station pressure)\n")
         for b in s["bottles"]:

@@ -1,4 +1,5 @@
 """DO plots that read in grey scale: series told apart by line style and marker shape, not colour."""
+
 from __future__ import annotations
 
 import io
@@ -9,17 +10,38 @@ __all__ = ["STYLES", "trip_do_figure", "site_season_figure", "figure_bytes"]
 
 #: One style per series, distinct in line style AND marker so a black-and-white copy still reads.
 STYLES: dict[str, dict[str, Any]] = {
-    "meter": dict(color="black", linestyle="-", marker="o", markersize=6, linewidth=1.6,
-                  label="meter DO (mg/L)"),
-    "target": dict(color="0.45", linestyle="--", marker="s", markersize=5, markerfacecolor="white",
-                   linewidth=1.4, label="saturation target (mg/L)"),
+    "meter": dict(color="black", linestyle="-", marker="o", markersize=6, linewidth=1.6, label="meter DO (mg/L)"),
+    "target": dict(
+        color="0.45",
+        linestyle="--",
+        marker="s",
+        markersize=5,
+        markerfacecolor="white",
+        linewidth=1.4,
+        label="saturation target (mg/L)",
+    ),
     "criterion": dict(color="black", linestyle=":", marker="", linewidth=1.8, label="DO criterion (mg/L)"),
-    "winkler": dict(color="black", linestyle="none", marker="^", markersize=8, markerfacecolor="white",
-                    markeredgewidth=1.4, label="Winkler DO, lab (mg/L)"),
-    "percent": dict(color="0.3", linestyle="-.", marker="D", markersize=4, markerfacecolor="white",
-                    linewidth=1.2, label="% saturation"),
-    "supersat": dict(color="0.3", linestyle=(0, (1, 3)), marker="", linewidth=1.2,
-                     label="supersaturation threshold (%)"),
+    "winkler": dict(
+        color="black",
+        linestyle="none",
+        marker="^",
+        markersize=8,
+        markerfacecolor="white",
+        markeredgewidth=1.4,
+        label="Winkler DO, lab (mg/L)",
+    ),
+    "percent": dict(
+        color="0.3",
+        linestyle="-.",
+        marker="D",
+        markersize=4,
+        markerfacecolor="white",
+        linewidth=1.2,
+        label="% saturation",
+    ),
+    "supersat": dict(
+        color="0.3", linestyle=(0, (1, 3)), marker="", linewidth=1.2, label="supersaturation threshold (%)"
+    ),
 }
 
 
@@ -59,8 +81,14 @@ def trip_do_figure(points: list[Any], *, title: str = ""):
     return fig
 
 
-def site_season_figure(rows: list[dict[str, Any]], *, site_id: str, site_name: str = "",
-                       criterion_mg_l: float | None = None, supersat_percent: float | None = None):
+def site_season_figure(
+    rows: list[dict[str, Any]],
+    *,
+    site_id: str,
+    site_name: str = "",
+    criterion_mg_l: float | None = None,
+    supersat_percent: float | None = None,
+):
     """DO (mg/L) and % saturation over a season at one site, criterion lines, Winkler points.
 
     `rows` are dicts with ``at`` (datetime), ``do_mg_l``, ``percent_saturation``, ``winkler_mg_l``
@@ -82,8 +110,11 @@ def site_season_figure(rows: list[dict[str, Any]], *, site_id: str, site_name: s
     ax.grid(True, color="0.85", linewidth=0.6)
     ax.legend(loc="lower left", fontsize=8)
     ax.set_title(f"{site_id} {site_name}".strip() + " — dissolved oxygen over the season", fontsize=10)
-    ax2.plot(ts, [r["percent_saturation"] if r["percent_saturation"] is not None else float("nan") for r in rows],
-             **STYLES["percent"])
+    ax2.plot(
+        ts,
+        [r["percent_saturation"] if r["percent_saturation"] is not None else float("nan") for r in rows],
+        **STYLES["percent"],
+    )
     if supersat_percent is not None:
         ax2.axhline(supersat_percent, **STYLES["supersat"])
     ax2.set_ylabel("% saturation")

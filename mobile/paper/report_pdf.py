@@ -3,6 +3,7 @@
 The content comes from :func:`core.rules.report.trip_report`; this module only lays it out. Text is
 set in DejaVu Sans (shipped with matplotlib), so °, µ, ≤ and → print as they are.
 """
+
 from __future__ import annotations
 
 import io
@@ -112,9 +113,17 @@ class Sheet:
             pdf.set_font("Sans", "", 8.5)
             pdf.multi_cell(0, 4.8, value, new_x="LMARGIN", new_y="NEXT")
 
-    def table(self, headings: list[str], rows: list[list[str]], widths: list[float], *,
-              size: float = 7.5, muted: set[int] | None = None, align: list[str] | None = None,
-              row_h: float | None = None) -> None:
+    def table(
+        self,
+        headings: list[str],
+        rows: list[list[str]],
+        widths: list[float],
+        *,
+        size: float = 7.5,
+        muted: set[int] | None = None,
+        align: list[str] | None = None,
+        row_h: float | None = None,
+    ) -> None:
         """A ruled table; rows whose index is in `muted` print in grey italics (superseded results)."""
         from fpdf.fonts import FontFace
 
@@ -126,9 +135,16 @@ class Sheet:
         total = sum(widths)
         cols = tuple(w * self.width / total for w in widths)
         head = FontFace(emphasis="BOLD", fill_color=HEAD_FILL)
-        with pdf.table(col_widths=cols, width=self.width, line_height=row_h or size * 0.5, headings_style=head,
-                       text_align=tuple(align) if align else "LEFT", borders_layout="HORIZONTAL_LINES",
-                       padding=(0.8, 1.0), repeat_headings=1) as t:
+        with pdf.table(
+            col_widths=cols,
+            width=self.width,
+            line_height=row_h or size * 0.5,
+            headings_style=head,
+            text_align=tuple(align) if align else "LEFT",
+            borders_layout="HORIZONTAL_LINES",
+            padding=(0.8, 1.0),
+            repeat_headings=1,
+        ) as t:
             r = t.row()
             for h in headings:
                 r.cell(h)
@@ -179,8 +195,10 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
     trip = rep.trip
     rnd = rep.rounding
     title = f"Trip report — {trip.program or 'monitoring program'}"
-    subtitle = (f"trip {trip.id} · revision {trip.revision} · started {when(trip.started_at)}"
-                f" · printed {when(rep.generated_at)}")
+    subtitle = (
+        f"trip {trip.id} · revision {trip.revision} · started {when(trip.started_at)}"
+        f" · printed {when(rep.generated_at)}"
+    )
     sheet = Sheet(title, subtitle)
     sheet.footer_text = f"streamtab trip report · trip {trip.id[:8]} r{trip.revision}"
     pdf = sheet.pdf
@@ -188,27 +206,48 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
     # -- page 1: the trip and its meter --------------------------------------------------------
     sheet.page()
     sheet.heading("Field sheet", 13)
-    sheet.pairs([
-        ("Program", trip.program or "—"),
-        ("Crew", ", ".join(trip.crew) or "—"),
-        ("Trip", f"{when(trip.started_at)} to {when(trip.ended_at) if trip.ended_at else '(in progress)'}"),
-        ("Meter", trip.meter_id or "—"),
-        ("Device", trip.device_id or "—"),
-        ("Status", trip.status),
-        ("Review", review_describe(trip)),
-    ])
+    sheet.pairs(
+        [
+            ("Program", trip.program or "—"),
+            ("Crew", ", ".join(trip.crew) or "—"),
+            ("Trip", f"{when(trip.started_at)} to {when(trip.ended_at) if trip.ended_at else '(in progress)'}"),
+            ("Meter", trip.meter_id or "—"),
+            ("Device", trip.device_id or "—"),
+            ("Status", trip.status),
+            ("Review", review_describe(trip)),
+        ]
+    )
     cal_rows = []
     for name, cal in rep.calibrations:
         if cal is None:
             cal_rows.append([name, "—", "not recorded", "", "", "", ""])
             continue
         verdict = {True: "accepted", False: "NOT accepted", None: "not assessed"}[cal.accepted]
-        cal_rows.append([name, when(cal.at), f"{typed(cal.temp)} / {typed(cal.pressure)}",
-                         f"{cal.reading_mg_l:.2f} mg/L", fmt(cal.target_mg_l, 2, "mg/L"),
-                         fmt(cal.difference_mg_l, 2, "mg/L", signed=True), verdict])
+        cal_rows.append(
+            [
+                name,
+                when(cal.at),
+                f"{typed(cal.temp)} / {typed(cal.pressure)}",
+                f"{cal.reading_mg_l:.2f} mg/L",
+                fmt(cal.target_mg_l, 2, "mg/L"),
+                fmt(cal.difference_mg_l, 2, "mg/L", signed=True),
+                verdict,
+            ]
+        )
     sheet.heading("Meter calibration", 10)
-    sheet.table(["check", "time", "temperature / pressure as entered", "meter reading", "target (air-saturated)",
-                 "difference", "verdict"], cal_rows, [22, 28, 40, 20, 24, 18, 18])
+    sheet.table(
+        [
+            "check",
+            "time",
+            "temperature / pressure as entered",
+            "meter reading",
+            "target (air-saturated)",
+            "difference",
+            "verdict",
+        ],
+        cal_rows,
+        [22, 28, 40, 20, 24, 18, 18],
+    )
     if rep.trip_flags:
         for f in rep.trip_flags:
             sheet.para(_flag_line(f), size=8)
@@ -220,23 +259,51 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
     if pdf.get_y() + img_w * 3.6 / 9.5 + 10 > pdf.h - 14:
         pdf.add_page()
     pdf.image(io.BytesIO(png), x=pdf.l_margin, w=img_w)
-    sheet.para("Solid line, filled circles: meter DO. Dashed line, open squares: the saturation target at each"
-               " stop's temperature and pressure. Dotted line: the program's DO criterion for the site's water"
-               " class. Open triangles: Winkler DO from the lab.", size=7, grey=True)
+    sheet.para(
+        "Solid line, filled circles: meter DO. Dashed line, open squares: the saturation target at each"
+        " stop's temperature and pressure. Dotted line: the program's DO criterion for the site's water"
+        " class. Open triangles: Winkler DO from the lab.",
+        size=7,
+        grey=True,
+    )
 
     # -- the stops --------------------------------------------------------------------------
     sheet.page()
     sheet.heading("Stops: readings as entered and what was derived", 11)
     rows = []
     for s in rep.stops:
-        rows.append([f"{s.stop.site_id}\n{s.site_name}", when(s.stop.arrived_at), s.temp_text, s.pressure_text,
-                     s.conductivity_text, s.do_text, s.shown["do_mg_l"], s.shown["do_sat_mg_l"],
-                     s.shown["percent_saturation"],
-                     "—" if s.criterion_mg_l is None else f"{s.criterion_mg_l:.{rnd.do_mg_l}f}",
-                     str(len(s.flags))])
-    sheet.table(["site", "arrived", "water temp.", "station pressure", "conductivity", "meter DO",
-                 "DO, mg/L", "sat. target, mg/L", "% sat.", "criterion, mg/L", "flags"], rows,
-                [30, 30, 22, 30, 22, 18, 14, 16, 11, 15, 9])
+        rows.append(
+            [
+                f"{s.stop.site_id}\n{s.site_name}",
+                when(s.stop.arrived_at),
+                s.temp_text,
+                s.pressure_text,
+                s.conductivity_text,
+                s.do_text,
+                s.shown["do_mg_l"],
+                s.shown["do_sat_mg_l"],
+                s.shown["percent_saturation"],
+                "—" if s.criterion_mg_l is None else f"{s.criterion_mg_l:.{rnd.do_mg_l}f}",
+                str(len(s.flags)),
+            ]
+        )
+    sheet.table(
+        [
+            "site",
+            "arrived",
+            "water temp.",
+            "station pressure",
+            "conductivity",
+            "meter DO",
+            "DO, mg/L",
+            "sat. target, mg/L",
+            "% sat.",
+            "criterion, mg/L",
+            "flags",
+        ],
+        rows,
+        [30, 30, 22, 30, 22, 18, 14, 16, 11, 15, 9],
+    )
     sheet.heading("Findings at each stop", 10)
     any_flag = False
     for s in rep.stops:
@@ -265,30 +332,73 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
         reported = r.reported if r.status != "superseded" else f"({r.reported})"
         if r.status == "superseded":
             muted.add(i)
-        rows.append([r.label, r.site_id, r.analyte, reported, status, r.holding, r.analyst or "—",
-                     when(r.analysed_at), r.method or "—", r.result_id[:8]])
+        rows.append(
+            [
+                r.label,
+                r.site_id,
+                r.analyte,
+                reported,
+                status,
+                r.holding,
+                r.analyst or "—",
+                when(r.analysed_at),
+                r.method or "—",
+                r.result_id[:8],
+            ]
+        )
     if rows:
-        sheet.table(["bottle", "site", "analyte", "reported", "status", "holding time", "analyst",
-                     "analysed", "method", "result"], rows, [16, 11, 16, 18, 24, 18, 22, 27, 45, 12], muted=muted)
-        sheet.para("Superseded results are kept for the record, in grey and in brackets; they are not live values."
-                   " A value with < or > is a bound reported as the method directs.", size=7, grey=True)
+        sheet.table(
+            [
+                "bottle",
+                "site",
+                "analyte",
+                "reported",
+                "status",
+                "holding time",
+                "analyst",
+                "analysed",
+                "method",
+                "result",
+            ],
+            rows,
+            [16, 11, 16, 18, 24, 18, 22, 27, 45, 12],
+            muted=muted,
+        )
+        sheet.para(
+            "Superseded results are kept for the record, in grey and in brackets; they are not live values."
+            " A value with < or > is a bound reported as the method directs.",
+            size=7,
+            grey=True,
+        )
     else:
         sheet.para("No lab results are recorded for this trip yet.")
     flagged = [(r, rf) for r in rep.results for rf in r.flag_codes if r.status != "superseded"]
     if flagged:
-        sheet.para("Bench findings on live results: " + "; ".join(f"{r.label} {code}" for r, code in flagged),
-                   size=7.5)
+        sheet.para("Bench findings on live results: " + "; ".join(f"{r.label} {code}" for r, code in flagged), size=7.5)
 
     # -- chain of custody -----------------------------------------------------------------------
     sheet.page()
     sheet.heading("Chain of custody", 11)
     rows = []
     for b in rep.bottles:
-        rows.append([b.bottle.label, b.bottle.kind, b.stop.site_id, when(b.bottle.collected_at),
-                     when(b.bottle.fixed_at) if b.bottle.fixed_at else "—", b.bottle.preservation or "—",
-                     when(b.deadline) if b.deadline else "—", b.holding_rule, b.custody_status])
-    sheet.table(["bottle", "kind", "site", "collected", "fixed", "preservation", "holding deadline", "holding time",
-                 "custody"], rows, [16, 13, 11, 27, 27, 40, 27, 24, 16])
+        rows.append(
+            [
+                b.bottle.label,
+                b.bottle.kind,
+                b.stop.site_id,
+                when(b.bottle.collected_at),
+                when(b.bottle.fixed_at) if b.bottle.fixed_at else "—",
+                b.bottle.preservation or "—",
+                when(b.deadline) if b.deadline else "—",
+                b.holding_rule,
+                b.custody_status,
+            ]
+        )
+    sheet.table(
+        ["bottle", "kind", "site", "collected", "fixed", "preservation", "holding deadline", "holding time", "custody"],
+        rows,
+        [16, 13, 11, 27, 27, 40, 27, 24, 16],
+    )
     sheet.heading("Hand-offs", 10)
     if not rep.handoffs:
         sheet.para("No hand-offs are recorded: the custody of these bottles is not documented in this record.")
@@ -308,13 +418,23 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
         sheet.para(c, size=8)
 
     def step(d: int, unit: str) -> str:
-        return f"{10 ** -d:.{d}f} {unit}" if d > 0 else f"1 {unit}"
+        return f"{10**-d:.{d}f} {unit}" if d > 0 else f"1 {unit}"
 
-    sheet.para("Values are shown rounded as the program's settings say — DO " + step(rnd.do_mg_l, "mg/L")
-               + ", % saturation " + step(rnd.percent, "%") + ", temperature " + step(rnd.temp_c, "°C")
-               + ", pressure " + step(rnd.pressure_hpa, "hPa") + f", specific conductance {rnd.conductivity_sig}"
-               " significant figures, BOD5 " + step(rnd.bod_mg_l, "mg/L") + ". Stored values keep their full"
-               " precision; readings are printed as they were typed.", size=7.5, grey=True)
+    sheet.para(
+        "Values are shown rounded as the program's settings say — DO "
+        + step(rnd.do_mg_l, "mg/L")
+        + ", % saturation "
+        + step(rnd.percent, "%")
+        + ", temperature "
+        + step(rnd.temp_c, "°C")
+        + ", pressure "
+        + step(rnd.pressure_hpa, "hPa")
+        + f", specific conductance {rnd.conductivity_sig}"
+        " significant figures, BOD5 " + step(rnd.bod_mg_l, "mg/L") + ". Stored values keep their full"
+        " precision; readings are printed as they were typed.",
+        size=7.5,
+        grey=True,
+    )
     return sheet.output(path)
 
 
@@ -337,8 +457,7 @@ def _handoff_block(sheet: Sheet, h: Any) -> None:
     pdf.set_xy(x0 + 2, y0 + 1.5)
     pdf.set_font("Sans", "B", 9)
     where = " — received at the lab" if rec.at_lab else ""
-    pdf.cell(0, 5, f"{when(rec.at)}   {rec.relinquished_by} → {rec.received_by}{where}",
-             new_x="LMARGIN", new_y="NEXT")
+    pdf.cell(0, 5, f"{when(rec.at)}   {rec.relinquished_by} → {rec.received_by}{where}", new_x="LMARGIN", new_y="NEXT")
     pdf.set_x(x0 + 2)
     pdf.set_font("Sans", "", 8)
     details = [f"bottles: {', '.join(h.labels)}"]
@@ -346,11 +465,20 @@ def _handoff_block(sheet: Sheet, h: Any) -> None:
         details.append(f"temperature on receipt: {h.temp_text}")
     if rec.condition:
         details.append(f"condition: {rec.condition}")
-    pdf.multi_cell(sheet.width * 0.5, 4, " · ".join(details) + (f"\nnotes: {rec.notes}" if rec.notes else ""),
-                   new_x="LMARGIN", new_y="NEXT")
+    pdf.multi_cell(
+        sheet.width * 0.5,
+        4,
+        " · ".join(details) + (f"\nnotes: {rec.notes}" if rec.notes else ""),
+        new_x="LMARGIN",
+        new_y="NEXT",
+    )
     box_w, box_h = 62, 15
-    for i, (role, name, sig) in enumerate((("relinquished by", rec.relinquished_by, rec.relinquished_signature),
-                                           ("received by", rec.received_by, rec.received_signature))):
+    for i, (role, name, sig) in enumerate(
+        (
+            ("relinquished by", rec.relinquished_by, rec.relinquished_signature),
+            ("received by", rec.received_by, rec.received_signature),
+        )
+    ):
         bx = x0 + sheet.width * 0.52 + i * (box_w + 6)
         by = y0 + 6.5
         pdf.set_draw_color(*RULE_GREY)

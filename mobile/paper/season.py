@@ -1,4 +1,5 @@
 """Writes the season tables (`core.rules.season`) as CSV files in a folder, or as one .xlsx workbook."""
+
 from __future__ import annotations
 
 from pathlib import Path

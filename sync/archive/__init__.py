@@ -14,21 +14,31 @@ environment, a service file (``PGSERVICEFILE``, ``~/.pg_service.conf``) or the p
 history and process lists), and so is a password or service file that others may read. Messages
 name the database by host and name only, never its password.
 """
+
 from __future__ import annotations
 
 import os
 import stat
+from collections.abc import Callable, Iterable
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
-from collections.abc import Callable, Iterable
 
 from core.store.atomic import content_hash
 from sync.archive.rows import COLUMNS, TRIP_TABLES, settings_row, site_row, trip_rows
 from sync.archive.schema import LATEST, MIGRATIONS, STATS_SELECT
 
-__all__ = ["ArchiveError", "LoadReport", "connect", "describe", "migrate", "schema_version", "load",
-           "season_summary", "ENV_DB"]
+__all__ = [
+    "ArchiveError",
+    "LoadReport",
+    "connect",
+    "describe",
+    "migrate",
+    "schema_version",
+    "load",
+    "season_summary",
+    "ENV_DB",
+]
 
 #: Environment variable naming the archive when --db is not given.
 ENV_DB = "STREAMTAB_ARCHIVE_DB"
@@ -37,7 +47,7 @@ ENV_DB = "STREAMTAB_ARCHIVE_DB"
 FULL_CHECK_AFTER_S = 24 * 3600
 #: Trips written per transaction on a bulk load.
 BATCH = 500
-_LOCK_KEY = 0x5354_4152   # advisory lock: one load at a time per database
+_LOCK_KEY = 0x5354_4152  # advisory lock: one load at a time per database
 
 Progress = Callable[[int, int, str, str], None]
 
@@ -55,7 +65,7 @@ class LoadReport:
     schema_from: int = 0
     schema_to: int = LATEST
     database: str = ""
-    checked: str = "all"   # "all": every trip against the archive; "feed": the store's saves since the last load
+    checked: str = "all"  # "all": every trip against the archive; "feed": the store's saves since the last load
     loaded_ids: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
@@ -70,8 +80,10 @@ def _conninfo_dict(db: str) -> dict[str, str]:
     try:
         return {k: str(v) for k, v in conninfo_to_dict(db).items()}
     except (ValueError, TypeError, psycopg.Error):  # its text may quote the string: not shown
-        raise ArchiveError("--db is not a PostgreSQL connection URL or key=value string; accepted: "
-                           "postgresql://USER@HOST/DBNAME or 'host=... dbname=...'") from None
+        raise ArchiveError(
+            "--db is not a PostgreSQL connection URL or key=value string; accepted: "
+            "postgresql://USER@HOST/DBNAME or 'host=... dbname=...'"
+        ) from None
 
 
 def describe(db: str) -> str:
@@ -92,19 +104,23 @@ def _private(path: Path, what: str, env: str) -> None:
     except OSError:
         return
     if stat.S_IMODE(st.st_mode) & 0o077:
-        raise ArchiveError(f"{what} {path} may be read by others (mode {stat.S_IMODE(st.st_mode):o}); "
-                           f"run 'chmod 600 {path}' ({env} names another file).")
+        raise ArchiveError(
+            f"{what} {path} may be read by others (mode {stat.S_IMODE(st.st_mode):o}); "
+            f"run 'chmod 600 {path}' ({env} names another file)."
+        )
 
 
 def _check_secrets(d: dict[str, str]) -> None:
     if "password" in d:
-        raise ArchiveError("--db carries a password; remove it and put the password in the password file "
-                           "(~/.pgpass or $PGPASSFILE, mode 600) or a service file instead.")
+        raise ArchiveError(
+            "--db carries a password; remove it and put the password in the password file "
+            "(~/.pgpass or $PGPASSFILE, mode 600) or a service file instead."
+        )
     home = Path(os.path.expanduser("~"))
-    _private(Path(d.get("passfile") or os.environ.get("PGPASSFILE") or home / ".pgpass"),
-             "the password file", "PGPASSFILE")
-    _private(Path(os.environ.get("PGSERVICEFILE") or home / ".pg_service.conf"), "the service file",
-             "PGSERVICEFILE")
+    _private(
+        Path(d.get("passfile") or os.environ.get("PGPASSFILE") or home / ".pgpass"), "the password file", "PGPASSFILE"
+    )
+    _private(Path(os.environ.get("PGSERVICEFILE") or home / ".pg_service.conf"), "the service file", "PGSERVICEFILE")
 
 
 def connect(db: str | None):
@@ -116,12 +132,14 @@ def connect(db: str | None):
     d = _conninfo_dict(db)
     _check_secrets(d)
     try:
-        return psycopg.connect(db, connect_timeout=int(d.get("connect_timeout") or 10),
-                               application_name="streamtab-archive")
+        return psycopg.connect(
+            db, connect_timeout=int(d.get("connect_timeout") or 10), application_name="streamtab-archive"
+        )
     except psycopg.OperationalError as exc:
         first = str(exc).strip().splitlines()[-1] if str(exc).strip() else "no answer"
-        raise ArchiveError(f"cannot connect to the archive {describe(db)} ({first}); check --db, "
-                           "the server and the password file.") from None
+        raise ArchiveError(
+            f"cannot connect to the archive {describe(db)} ({first}); check --db, the server and the password file."
+        ) from None
 
 
 # --- schema ----------------------------------------------------------------------------------------
@@ -140,15 +158,17 @@ def migrate(conn, *, upto: int = LATEST) -> tuple[int, int]:  # noqa: ANN001
         conn.execute("SELECT pg_advisory_xact_lock(%s)", (_LOCK_KEY,))
         start = schema_version(conn)
     if start > LATEST:
-        raise ArchiveError(f"the archive's schema is version {start}, newer than this build's {LATEST}; "
-                           "update streamtab before loading into it.")
+        raise ArchiveError(
+            f"the archive's schema is version {start}, newer than this build's {LATEST}; "
+            "update streamtab before loading into it."
+        )
     version = start
     for v, description, sql in MIGRATIONS:
         if v <= version or v > upto:
             continue
         with conn.transaction():
             conn.execute("SELECT pg_advisory_xact_lock(%s)", (_LOCK_KEY,))
-            if schema_version(conn) >= v:     # another load applied it meanwhile
+            if schema_version(conn) >= v:  # another load applied it meanwhile
                 continue
             conn.execute(sql)
             conn.execute("INSERT INTO archive_schema (version, description) VALUES (%s, %s)", (v, description))
@@ -167,17 +187,38 @@ def _copy(cur, table: str, rows: Iterable[tuple]) -> None:  # noqa: ANN001
 def _upsert(conn, table: str, key: str, rows: list[tuple]) -> None:  # noqa: ANN001
     cols = list(_SIMPLE_COLUMNS[table])
     sets = ", ".join(f"{c} = EXCLUDED.{c}" for c in cols if c != key)
-    sql = (f"INSERT INTO {table} ({', '.join(cols)}) VALUES ({', '.join(['%s'] * len(cols))}) "
-           f"ON CONFLICT ({key}) DO UPDATE SET {sets}")
+    sql = (
+        f"INSERT INTO {table} ({', '.join(cols)}) VALUES ({', '.join(['%s'] * len(cols))}) "
+        f"ON CONFLICT ({key}) DO UPDATE SET {sets}"
+    )
     with conn.cursor() as cur:
         cur.executemany(sql, rows)
 
 
 _SIMPLE_COLUMNS = {
-    "sites": ("site_id", "name", "elevation_m", "latitude", "longitude", "water_class", "min_do_mg_l",
-              "supersaturation_percent", "notes", "content_hash"),
-    "settings": ("program", "method", "warm_min_mg_l", "cold_min_mg_l", "supersaturation_percent",
-                 "hypoxic_mg_l", "calibration_tolerance_mg_l", "document", "content_hash"),
+    "sites": (
+        "site_id",
+        "name",
+        "elevation_m",
+        "latitude",
+        "longitude",
+        "water_class",
+        "min_do_mg_l",
+        "supersaturation_percent",
+        "notes",
+        "content_hash",
+    ),
+    "settings": (
+        "program",
+        "method",
+        "warm_min_mg_l",
+        "cold_min_mg_l",
+        "supersaturation_percent",
+        "hypoxic_mg_l",
+        "calibration_tolerance_mg_l",
+        "document",
+        "content_hash",
+    ),
 }
 
 
@@ -194,7 +235,7 @@ def _load_reference(conn, store: Any, report: LoadReport) -> None:  # noqa: ANN0
         if have_settings.get(settings.get("program") or "") != h:
             _upsert(conn, "settings", "program", [settings_row(settings, h)])
             report.settings_written = 1
-        if changed or report.settings_written:      # criteria may have moved: every visit again
+        if changed or report.settings_written:  # criteria may have moved: every visit again
             with conn.cursor() as cur:
                 _recompute_stats(cur, None)
     report.sites_written = len(changed)
@@ -217,9 +258,10 @@ def _recompute_stats(cur, pairs: list[tuple[str, int]] | None) -> None:  # noqa:
         return
     for site, season in pairs:
         cur.execute("DELETE FROM site_season_stats WHERE site_id = %s AND season = %s", (site, season))
-        cur.execute("INSERT INTO site_season_stats "
-                    + STATS_SELECT.format(where="site_id = %(site)s AND season = %(season)s"),
-                    {"site": site, "season": season})
+        cur.execute(
+            "INSERT INTO site_season_stats " + STATS_SELECT.format(where="site_id = %(site)s AND season = %(season)s"),
+            {"site": site, "season": season},
+        )
 
 
 def _apply_stats(cur, old: dict, new: dict) -> None:  # noqa: ANN001
@@ -227,16 +269,18 @@ def _apply_stats(cur, old: dict, new: dict) -> None:  # noqa: ANN001
     pairs = sorted(set(old) | set(new))
     if not pairs:
         return
-    cur.execute("SELECT site_id, season, visits, visits_with_do, min_do_mg_l, visits_below_criterion, "
-                "criterion_mg_l FROM site_season_stats WHERE (site_id, season) IN "
-                "(SELECT * FROM unnest(%s::text[], %s::int[]))",
-                ([p[0] for p in pairs], [p[1] for p in pairs]))
+    cur.execute(
+        "SELECT site_id, season, visits, visits_with_do, min_do_mg_l, visits_below_criterion, "
+        "criterion_mg_l FROM site_season_stats WHERE (site_id, season) IN "
+        "(SELECT * FROM unnest(%s::text[], %s::int[]))",
+        ([p[0] for p in pairs], [p[1] for p in pairs]),
+    )
     current = {(r[0], r[1]): tuple(r[2:]) for r in cur.fetchall()}
     redo, rows, gone = [], [], []
     for pair in pairs:
         c, o, n = current.get(pair, _NONE), old.get(pair, _NONE), new.get(pair, _NONE)
         if o[2] is not None and (c[2] is None or o[2] <= c[2]) and (n[2] is None or n[2] > o[2]):
-            redo.append(pair)            # a rewritten trip held the minimum and gave it up: count again
+            redo.append(pair)  # a rewritten trip held the minimum and gave it up: count again
             continue
         visits = c[0] - o[0] + n[0]
         if visits <= 0:
@@ -248,11 +292,14 @@ def _apply_stats(cur, old: dict, new: dict) -> None:  # noqa: ANN001
     for site, season in gone:
         cur.execute("DELETE FROM site_season_stats WHERE site_id = %s AND season = %s", (site, season))
     if rows:
-        cur.executemany("INSERT INTO site_season_stats VALUES (%s, %s, %s, %s, %s, %s, %s) "
-                        "ON CONFLICT (site_id, season) DO UPDATE SET visits = EXCLUDED.visits, "
-                        "visits_with_do = EXCLUDED.visits_with_do, min_do_mg_l = EXCLUDED.min_do_mg_l, "
-                        "visits_below_criterion = EXCLUDED.visits_below_criterion, "
-                        "criterion_mg_l = EXCLUDED.criterion_mg_l", rows)
+        cur.executemany(
+            "INSERT INTO site_season_stats VALUES (%s, %s, %s, %s, %s, %s, %s) "
+            "ON CONFLICT (site_id, season) DO UPDATE SET visits = EXCLUDED.visits, "
+            "visits_with_do = EXCLUDED.visits_with_do, min_do_mg_l = EXCLUDED.min_do_mg_l, "
+            "visits_below_criterion = EXCLUDED.visits_below_criterion, "
+            "criterion_mg_l = EXCLUDED.criterion_mg_l",
+            rows,
+        )
     _recompute_stats(cur, redo)
 
 
@@ -268,33 +315,37 @@ def load(store: Any, db: str | None, *, progress: Progress | None = None, batch:
             conn.commit()
             _load_reference(conn, store, report)
             source = str(Path(store.data_dir).resolve())
-            row = conn.execute("SELECT log_inode, log_offset, full_at > now() - make_interval(secs => %s) "
-                               "FROM load_sources WHERE source = %s", (FULL_CHECK_AFTER_S, source)).fetchone()
+            row = conn.execute(
+                "SELECT log_inode, log_offset, full_at > now() - make_interval(secs => %s) "
+                "FROM load_sources WHERE source = %s",
+                (FULL_CHECK_AFTER_S, source),
+            ).fetchone()
             feed = getattr(store, "changes_since", None)
-            changed, mark = (feed((row[0], row[1]) if row and row[2] else None) if feed is not None
-                             else (None, None))
-            if changed is None:        # every trip against the archive (first load, or a day since)
+            changed, mark = feed((row[0], row[1]) if row and row[2] else None) if feed is not None else (None, None)
+            if changed is None:  # every trip against the archive (first load, or a day since)
                 report.checked = "all"
                 archived = dict(conn.execute("SELECT trip_id, content_hash FROM trips").fetchall())
                 summaries = store.list_trips()
-                todo = [s.id for s in sorted(summaries, key=lambda s: s.id)
-                        if archived.get(s.id) != s.content_hash]
+                todo = [s.id for s in sorted(summaries, key=lambda s: s.id) if archived.get(s.id) != s.content_hash]
                 report.unchanged = len(summaries) - len(todo)
-            else:                      # only the trips the store saved since the last load
+            else:  # only the trips the store saved since the last load
                 report.checked = "feed"
-                archived = dict(conn.execute("SELECT trip_id, content_hash FROM trips WHERE trip_id = ANY(%s)",
-                                             (changed,)).fetchall())
+                archived = dict(
+                    conn.execute(
+                        "SELECT trip_id, content_hash FROM trips WHERE trip_id = ANY(%s)", (changed,)
+                    ).fetchall()
+                )
                 todo = [t for t in changed if store.has_trip(t)]
             conn.commit()
             total = len(todo)
             for start in range(0, total, max(1, batch)):
-                ids = todo[start:start + batch]
+                ids = todo[start : start + batch]
                 tables: dict[str, list[tuple]] = {t: [] for t in TRIP_TABLES}
                 written = []
                 for tid in ids:
                     doc = store.trip_document(tid)
                     h = content_hash(doc)
-                    if archived.get(tid) == h:      # changed back meanwhile
+                    if archived.get(tid) == h:  # changed back meanwhile
                         report.unchanged += 1
                         continue
                     for table, rows in trip_rows(doc, h).items():
@@ -315,15 +366,19 @@ def load(store: Any, db: str | None, *, progress: Progress | None = None, batch:
                     progress(min(start + len(ids), total), total, written[-1], "loaded")
             if mark is not None:
                 with conn.transaction():
-                    conn.execute("INSERT INTO load_sources (source, log_inode, log_offset, full_at) "
-                                 "VALUES (%s, %s, %s, now()) ON CONFLICT (source) DO UPDATE SET "
-                                 "log_inode = EXCLUDED.log_inode, log_offset = EXCLUDED.log_offset"
-                                 + (", full_at = now()" if report.checked == "all" else ""),
-                                 (source, mark[0], mark[1]))
+                    conn.execute(
+                        "INSERT INTO load_sources (source, log_inode, log_offset, full_at) "
+                        "VALUES (%s, %s, %s, now()) ON CONFLICT (source) DO UPDATE SET "
+                        "log_inode = EXCLUDED.log_inode, log_offset = EXCLUDED.log_offset"
+                        + (", full_at = now()" if report.checked == "all" else ""),
+                        (source, mark[0], mark[1]),
+                    )
         except psycopg.Error as exc:
             first = (str(exc).strip().splitlines() or ["database error"])[0]
-            raise ArchiveError(f"the archive {report.database} refused the load ({first}); nothing of the "
-                               "trip batch in progress was written.") from None
+            raise ArchiveError(
+                f"the archive {report.database} refused the load ({first}); nothing of the "
+                "trip batch in progress was written."
+            ) from None
         finally:
             try:
                 conn.rollback()
@@ -335,24 +390,37 @@ def load(store: Any, db: str | None, *, progress: Progress | None = None, batch:
 
 
 # --- questions ---------------------------------------------------------------------------------------
-SUMMARY_COLUMNS = ("site_id", "site_name", "season", "visits", "visits_with_do", "min_do_mg_l",
-                   "visits_below_criterion", "criterion_mg_l")
+SUMMARY_COLUMNS = (
+    "site_id",
+    "site_name",
+    "season",
+    "visits",
+    "visits_with_do",
+    "min_do_mg_l",
+    "visits_below_criterion",
+    "criterion_mg_l",
+)
 
 
-def season_summary(db: str | None, *, season: int | None = None, site: str | None = None,
-                   conn=None) -> list[dict[str, Any]]:  # noqa: ANN001
+def season_summary(
+    db: str | None, *, season: int | None = None, site: str | None = None, conn=None
+) -> list[dict[str, Any]]:  # noqa: ANN001
     """Rows of ``site_season_summary`` (per site and season), optionally for one season and site."""
     import psycopg
 
     where = [c for c, v in (("season = %(season)s", season), ("site_id = %(site)s", site)) if v is not None]
-    sql = (f"SELECT {', '.join(SUMMARY_COLUMNS)} FROM site_season_summary "
-           + (f"WHERE {' AND '.join(where)} " if where else "") + "ORDER BY season, site_id")
+    sql = (
+        f"SELECT {', '.join(SUMMARY_COLUMNS)} FROM site_season_summary "
+        + (f"WHERE {' AND '.join(where)} " if where else "")
+        + "ORDER BY season, site_id"
+    )
     own = conn is None
     conn = conn or connect(db)
     try:
         if schema_version(conn) < LATEST:
-            raise ArchiveError("the archive has not been loaded with this build yet; run "
-                               "'streamtab archive load' first.")
+            raise ArchiveError(
+                "the archive has not been loaded with this build yet; run 'streamtab archive load' first."
+            )
         rows = conn.execute(sql, {"season": season, "site": site}).fetchall()
     except psycopg.Error as exc:
         raise ArchiveError(f"the archive refused the summary query ({str(exc).strip().splitlines()[0]})") from None

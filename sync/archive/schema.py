@@ -32,6 +32,7 @@ the criterion; read from ``site_season_stats``).
 A migration that adds rows derived from the documents clears ``trips.content_hash``, so the next
 ``archive load`` rewrites every trip's rows under the new schema.
 """
+
 from __future__ import annotations
 
 __all__ = ["MIGRATIONS", "LATEST", "STATS_SELECT"]
@@ -266,7 +267,8 @@ SELECT site_id, season, count(*) AS visits, count(do_mg_l) AS visits_with_do, mi
 FROM stop_criterion WHERE {where} GROUP BY site_id, season
 """
 
-_V4 = """
+_V4 = (
+    """
 CREATE VIEW stop_criterion AS
 WITH program AS (
     SELECT warm_min_mg_l, cold_min_mg_l FROM settings ORDER BY program LIMIT 1
@@ -289,7 +291,9 @@ CREATE TABLE site_season_stats (
     criterion_mg_l          double precision,
     PRIMARY KEY (site_id, season)
 );
-INSERT INTO site_season_stats """ + STATS_SELECT.format(where="true") + """;
+INSERT INTO site_season_stats """
+    + STATS_SELECT.format(where="true")
+    + """;
 
 DROP VIEW site_season_summary;
 CREATE VIEW site_season_summary AS
@@ -298,6 +302,7 @@ SELECT st.site_id, si.name AS site_name, st.season, st.visits, st.visits_with_do
 FROM site_season_stats st
 LEFT JOIN sites si ON si.site_id = st.site_id;
 """
+)
 
 # Per store loaded from: the mark in its change feed (DeviceStore.changes_since) the last load read
 # up to, and when a load last compared every trip.

@@ -1,4 +1,5 @@
 """Helpers for the touch-app tests: a seeded store and a scenario run in a fresh interpreter."""
+
 from __future__ import annotations
 
 import json
@@ -14,8 +15,11 @@ ROOT = Path(__file__).resolve().parents[2]
 ARTIFACTS = ROOT / "test-artifacts"
 
 # Invented sites of the demo scenario (Larkspur Creek watershed); elevations are made up.
-SITES = (("LK-01", "Mill Ford", 420.0, "cold"), ("LK-02", "Heron Riffle", 455.0, "cold"),
-         ("LK-03", "Aspen Bend", 610.0, "warm"))
+SITES = (
+    ("LK-01", "Mill Ford", 420.0, "cold"),
+    ("LK-02", "Heron Riffle", 455.0, "cold"),
+    ("LK-03", "Aspen Bend", 610.0, "warm"),
+)
 
 
 def seed_sites(data_dir: Path) -> None:
@@ -36,8 +40,15 @@ def child_env(kivy_home: Path) -> dict[str, str]:
     return env
 
 
-def scenario_argv(scenario: str, data_dir: Path, result: Path, *, size: str = "1200x780",
-                  artifacts: Path | None = None, params: dict[str, str] | None = None) -> list[str]:
+def scenario_argv(
+    scenario: str,
+    data_dir: Path,
+    result: Path,
+    *,
+    size: str = "1200x780",
+    artifacts: Path | None = None,
+    params: dict[str, str] | None = None,
+) -> list[str]:
     argv = [sys.executable, "-m", "tests.app.driver", scenario, str(data_dir), str(result), "--size", size]
     if artifacts is not None:
         argv += ["--artifacts", str(artifacts)]
@@ -54,8 +65,15 @@ def scenario_argv(scenario: str, data_dir: Path, result: Path, *, size: str = "1
 def run_scenario(scenario: str, data_dir: Path, tmp: Path, *, timeout: float = 120, **kw) -> dict:
     """Runs the app on `data_dir` in a child interpreter through `scenario`; returns its notes."""
     result = tmp / f"{scenario}-result.json"
-    out = subprocess.run(scenario_argv(scenario, data_dir, result, **kw), env=child_env(tmp / "kivy-home"),
-                         cwd=ROOT, capture_output=True, text=True, timeout=timeout, check=False)
+    out = subprocess.run(
+        scenario_argv(scenario, data_dir, result, **kw),
+        env=child_env(tmp / "kivy-home"),
+        cwd=ROOT,
+        capture_output=True,
+        text=True,
+        timeout=timeout,
+        check=False,
+    )
     assert result.exists(), f"no results (exit {out.returncode}): {out.stderr[-3000:]}"
     notes = json.loads(result.read_text())
     assert notes.get("ok"), notes.get("error") or out.stderr[-3000:]

@@ -5,6 +5,7 @@
 One app per interpreter (Kivy keeps one window per process), so each test starts this in a child.
 Scenarios live in tests/app/scenarios.py; each is a generator that yields seconds to wait.
 """
+
 from __future__ import annotations
 
 import argparse

@@ -4,6 +4,7 @@ Each scenario is a generator taking a Person (tap, type, enter, pick, shot, note
 seconds to wait between steps. What the screen showed is noted into the JSON results; the
 parent test compares it with core's values and with what the store holds.
 """
+
 from __future__ import annotations
 
 import time
@@ -12,16 +13,18 @@ import time
 def _screen_texts(p, name="stop"):
     s = p.screen(name)
     return {
-        "sat_text": s.sat_text, "percent_text": s.percent_text, "do_text": s.do_text,
-        "salinity_text": s.salinity_text, "salinity_source": s.salinity_source,
+        "sat_text": s.sat_text,
+        "percent_text": s.percent_text,
+        "do_text": s.do_text,
+        "salinity_text": s.salinity_text,
+        "salinity_source": s.salinity_source,
         "flags": [f"{w.word}|{w.message}|{w.action}" for w in reversed(s.flag_box.children)],
         "message": s.message,
         "bottle_message": s.bottle_message,
     }
 
 
-def _start_trip(p, program="Tamsin Valley Stream Watch", crew="R.O., J.V.", meter="DO-7",
-                cal=("20,5", "962", "8,6")):
+def _start_trip(p, program="Tamsin Valley Stream Watch", crew="R.O., J.V.", meter="DO-7", cal=("20,5", "962", "8,6")):
     trips = p.screen("trips")
     yield from p.tap(trips.ids.start_btn)
     yield 0.1
@@ -117,7 +120,7 @@ def log_stop(p):
     yield from p.shot("stop-fahrenheit-hint")
     yield from p.tap(s.ids.temp_f)
     p.note("after_switch_f", _screen_texts(p))
-    yield 0.6   # past the save debounce
+    yield 0.6  # past the save debounce
     p.app.ctl.flush(10)
     yield from p.tap(s.ids.close_btn)
     p.note("close_ok", s.message)
@@ -131,9 +134,11 @@ def three_stops(p):
     """A whole trip: three stops with bottles, every screen shot, end of trip with the post check."""
     yield 0.1
     yield from _start_trip(p)
-    stops = [("LK-01 Mill Ford", "12,4", "968", "410", "9,8", "A"),
-             ("LK-02 Heron Riffle", "13,1", "962", "385", "10,9", "B"),
-             ("LK-03 Aspen Bend", "14,0", "955", "402", "12,9", "C")]
+    stops = [
+        ("LK-01 Mill Ford", "12,4", "968", "410", "9,8", "A"),
+        ("LK-02 Heron Riffle", "13,1", "962", "385", "10,9", "B"),
+        ("LK-03 Aspen Bend", "14,0", "955", "402", "12,9", "C"),
+    ]
     s = p.screen("stop")
     for i, (site, t, pr, c, do, tag) in enumerate(stops):
         yield from _fill_stop(p, site, t, pr, c, do)
@@ -154,7 +159,7 @@ def three_stops(p):
     p.note("clock_rows", [f"{r.word}|{r.title}" for r in reversed(b.rows_box.children)])
     yield from p.shot("bottles")
     rows = list(reversed(b.rows_box.children))
-    yield from p.tap(rows[3])           # TV-A2, the BOD bottle of stop 1
+    yield from p.tap(rows[3])  # TV-A2, the BOD bottle of stop 1
     yield 0.2
     p.note("after_clock_tap", [p.app.root.current, p.screen("stop").title])
     p.app.go("bottles")
@@ -191,7 +196,7 @@ def type_and_hang(p):
     yield from _start_trip(p)
     yield from _fill_stop(p, "LK-01 Mill Ford", "11,7", "29,02", "", "10,2", pressure_unit="inHg")
     yield from _add_bottle(p, "KILL-1", "do_fixed")
-    yield 1.0   # the save debounce (0.4 s) fires; the worker writes
+    yield 1.0  # the save debounce (0.4 s) fires; the worker writes
     p.app.ctl.flush(10)
     p.note("trip_id", p.app.ctl.trip.id)
     p.note("stop_id", p.app.ctl.stop_id)
@@ -206,10 +211,17 @@ def observe(p):
     p.note("screen", p.app.root.current)
     if p.app.root.current == "stop":
         s = p.screen("stop")
-        p.note("fields", {"temp": s.ids.temp.text, "pressure": s.ids.pressure.text,
-                          "pressure_unit": s.pressure_unit, "do": s.ids.do_value.text,
-                          "site": s.site_text,
-                          "bottles": [c.title for c in reversed(s.bottle_box.children)]})
+        p.note(
+            "fields",
+            {
+                "temp": s.ids.temp.text,
+                "pressure": s.ids.pressure.text,
+                "pressure_unit": s.pressure_unit,
+                "do": s.ids.do_value.text,
+                "site": s.site_text,
+                "bottles": [c.title for c in reversed(s.bottle_box.children)],
+            },
+        )
         p.note("view", _screen_texts(p))
         yield from p.shot("stop-after-restart")
     p.note("stop_id", p.app.ctl.stop_id)
@@ -276,8 +288,10 @@ def sync_folder(p, hub=""):
     p.note("trip_id", p.app.ctl.trip.id)
     p.app.go("trips")
     yield 0.2
-    p.note("trip_rows", [f"{r.status}|{r.title}" for r in reversed(p.screen("trips").rows_box.children)
-                         if hasattr(r, "status")])
+    p.note(
+        "trip_rows",
+        [f"{r.status}|{r.title}" for r in reversed(p.screen("trips").rows_box.children) if hasattr(r, "status")],
+    )
 
 
 def first_screen(p):
@@ -310,7 +324,7 @@ def sizes(p):
     small_targets, small_text, checked = [], [], 0
     for name in ("trips", "start", "stop", "bottles", "end", "sync", "settings"):
         if name == "start":
-            continue   # the start screen resets its form on entry; it was used above
+            continue  # the start screen resets its form on entry; it was used above
         p.app.go(name)
         yield 0.25
         for w in p.screen(name).walk(restrict=True):
@@ -353,7 +367,7 @@ def pause_and_hang(p):
     yield from p.type(s.ids.temp, "15,5")
     yield from p.type(s.ids.pressure, "941")
     yield from p.type(s.ids.do_value, "8,4")
-    p.app.on_pause()   # what Android calls when the app goes to the background
+    p.app.on_pause()  # what Android calls when the app goes to the background
     p.note("trip_id", p.app.ctl.trip.id)
     p.note("stop_id", p.app.ctl.stop_id)
     p.note("ready", True)
@@ -394,7 +408,7 @@ def settings_change(p):
     p.note("stop_temp_unit", p.screen("stop").temp_unit)
     from kivy.core.window import Window
 
-    Window.dispatch("on_keyboard", 27, 9, None, [])   # the back button
+    Window.dispatch("on_keyboard", 27, 9, None, [])  # the back button
     yield 0.2
     p.note("after_back", p.app.root.current)
 
@@ -412,7 +426,7 @@ def revisit_stop(p):
     yield from p.pick(s.ids.stop_picker, s.stop_titles[0])
     p.note("first_do", s.ids.do_value.text)
     p.note("first_closed", s.closed)
-    yield from p.tap(s.ids.close_btn)   # it is closed: the button reopens it
+    yield from p.tap(s.ids.close_btn)  # it is closed: the button reopens it
     yield from p.type(s.ids.do_value, "9,6")
     yield from p.tap(s.ids.close_btn)
     p.note("reclose", s.message)
@@ -483,8 +497,10 @@ def bench_and_sign(p):
     x0, y0 = pad.to_window(pad.x, pad.y)
     w, h = pad.width, pad.height
     for stroke in range(2):
-        pts = [(x0 + w * (0.1 + 0.35 * k / 30 + 0.4 * stroke), y0 + h * (0.5 + 0.25 * ((k % 10) / 10 - 0.5)))
-               for k in range(31)]
+        pts = [
+            (x0 + w * (0.1 + 0.35 * k / 30 + 0.4 * stroke), y0 + h * (0.5 + 0.25 * ((k % 10) / 10 - 0.5)))
+            for k in range(31)
+        ]
         touch = UnitTestTouch(*pts[0])
         touch.touch_down()
         yield 0.01
@@ -540,7 +556,7 @@ def calibration_refusals(p):
     yield from p.type(s.ids.program, "Tamsin Valley Stream Watch")
     yield from p.type(s.ids.crew, "R.O.")
     yield from p.type(s.ids.meter, "DO-7")
-    yield from p.type(cp.ids.cal_temp, "68")          # typed in °F with °C chosen
+    yield from p.type(cp.ids.cal_temp, "68")  # typed in °F with °C chosen
     yield from p.type(cp.ids.cal_pressure, "962")
     yield from p.type(cp.ids.cal_reading, "8,6")
     yield from p.tap(s.ids.start_btn)
@@ -580,8 +596,10 @@ def reopen_ended(p, trip_id=""):
     e = p.screen("end")
     cp = e.cal_panel
     p.note("screen", p.app.root.current)
-    p.note("post", [cp.temp_entry.text, cp.temp_unit, cp.pressure_entry.text, cp.pressure_unit,
-                    cp.reading_entry.text, cp.verdict])
+    p.note(
+        "post",
+        [cp.temp_entry.text, cp.temp_unit, cp.pressure_entry.text, cp.pressure_unit, cp.reading_entry.text, cp.verdict],
+    )
     yield from p.shot("end-reopened")
     p.app.go("trips")
     yield 0.2

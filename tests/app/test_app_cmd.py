@@ -1,14 +1,15 @@
 """`streamtab app` as a person runs it: no display → one line naming the snapshot command; --snapshot
 draws a screen to a PNG (under xvfb-run when there is no display) and exits; --seed-demo fills an
 empty data folder once. Checks are common practice for command-line tools."""
+
 from __future__ import annotations
 
 import shutil
 
 import pytest
 
-from tests.conftest import cli_env, run_cli
 from tests.app.conftest import ARTIFACTS, ROOT
+from tests.conftest import cli_env, run_cli
 
 pytestmark = pytest.mark.app
 
@@ -37,10 +38,22 @@ def test_snapshot_of_demo_screens(tmp_path, screen):
     from core.store import DeviceStore
 
     png = ARTIFACTS / "cli-demo" / f"{screen}.png"
-    png.parent.mkdir(parents=True, exist_ok=True)     # --snapshot writes only into an existing folder
-    out = run_cli("app", "--data-dir", str(tmp_path / "d"), "--seed-demo", str(ROOT / "sample_trips"),
-                  "--snapshot", str(png), "--screen", screen, "--size", "1000x700",
-                  env=_no_display_env(tmp_path), timeout=120)
+    png.parent.mkdir(parents=True, exist_ok=True)  # --snapshot writes only into an existing folder
+    out = run_cli(
+        "app",
+        "--data-dir",
+        str(tmp_path / "d"),
+        "--seed-demo",
+        str(ROOT / "sample_trips"),
+        "--snapshot",
+        str(png),
+        "--screen",
+        screen,
+        "--size",
+        "1000x700",
+        env=_no_display_env(tmp_path),
+        timeout=120,
+    )
     assert out.returncode == 0, out.stderr[-2000:]
     with Image.open(png) as im:
         assert im.size == (1000, 700)
@@ -60,7 +73,6 @@ def test_seed_demo_only_into_an_empty_folder(tmp_path):
     assert len(DeviceStore.open(tmp_path / "d").list_trips()) == n
 
 
-
 def test_seed_demo_moves_only_the_open_trip_to_today(tmp_path):
     """The demo's open trip runs on today's clock (its last stop 40 min ago); ended trips keep
     their dates and every stored value but the times is as in sample_trips/ (demo behaviour)."""
@@ -73,8 +85,9 @@ def test_seed_demo_moves_only_the_open_trip_to_today(tmp_path):
     before = datetime.now(timezone.utc)
     seed_demo(tmp_path / "d", ROOT / "sample_trips")
     store = DeviceStore.open(tmp_path / "d")
-    files = {json.loads(f.read_text())["id"]: json.loads(f.read_text())
-             for f in (ROOT / "sample_trips").glob("trip-*.json")}
+    files = {
+        json.loads(f.read_text())["id"]: json.loads(f.read_text()) for f in (ROOT / "sample_trips").glob("trip-*.json")
+    }
     open_trips = [s for s in store.list_trips() if files[s.id].get("ended_at") is None]
     assert open_trips, "the demo needs an open trip"
     for summary in store.list_trips():

@@ -3,6 +3,7 @@
 Expected values come from core (core.science.assess, core.records.models.measure), never from the app's own
 earlier output; saturation checks against Benson & Krause (1984) live in tests/science.
 """
+
 from __future__ import annotations
 
 from datetime import datetime, timedelta, timezone
@@ -31,8 +32,7 @@ def ctl(tmp_path):
 def test_view_matches_core_assess(ctl):
     for k, v in (("temp", "12,4"), ("pressure", "968"), ("conductivity", "410"), ("do", "9,8")):
         view = ctl.set_stop_field(k, v)
-    a = assess_reading(12.4, 968.0, conductivity_us_cm=410.0, do_mg_l=9.8, elevation_m=420.0,
-                       water_class="cold")
+    a = assess_reading(12.4, 968.0, conductivity_us_cm=410.0, do_mg_l=9.8, elevation_m=420.0, water_class="cold")
     assert view.sat_text == f"{a.do_sat_mg_l:.2f} mg/L"
     assert view.percent_text == f"{a.percent_saturation:.1f} %"
     assert view.salinity_text.startswith(f"{a.salinity:.2f}")
@@ -42,19 +42,19 @@ def test_fahrenheit_unit_converts_before_core(ctl):
     ctl.set_stop_field("temp_unit", "F")
     ctl.set_stop_field("temp", "68")
     view = ctl.set_stop_field("pressure", "1000")
-    a = assess_reading(20.0, 1000.0, elevation_m=420.0, water_class="cold")   # 68 °F = 20 °C (definition)
+    a = assess_reading(20.0, 1000.0, elevation_m=420.0, water_class="cold")  # 68 °F = 20 °C (definition)
     assert view.sat_text == f"{a.do_sat_mg_l:.2f} mg/L"
 
 
 def test_fahrenheit_value_typed_as_celsius_gets_the_hint(ctl):
     view = ctl.set_stop_field("temp", "68")
     assert any("°F" in f.message for f in view.flags)
-    assert view.sat_text == "—"   # nothing computed from a refused value
+    assert view.sat_text == "—"  # nothing computed from a refused value
 
 
 def test_sea_level_pressure_is_flagged_at_elevation(ctl):
     ctl.set_stop_field("temp", "12")
-    view = ctl.set_stop_field("pressure", "1013")   # a weather-service value at a 420 m site
+    view = ctl.set_stop_field("pressure", "1013")  # a weather-service value at a 420 m site
     assert any(f.code == "pressure.sea_level_adjusted" for f in view.flags)
 
 
@@ -83,19 +83,18 @@ def test_close_blocked_until_required_fields(ctl):
 
 
 def test_saved_through_the_store_as_typed(ctl):
-    for k, v in (("pressure_unit", "mmHg"), ("temp", "12,4"), ("pressure", "726,1"), ("do", "95"),
-                 ("do_unit", "%")):
+    for k, v in (("pressure_unit", "mmHg"), ("temp", "12,4"), ("pressure", "726,1"), ("do", "95"), ("do_unit", "%")):
         ctl.set_stop_field(k, v)
     ctl.save_now(wait=True)
     assert ctl.save_errors == []
     trip = ctl.store.load_trip(ctl.trip.id)
     stop = trip.stops[0]
     assert stop.pressure.text == "726,1 mmHg"
-    assert stop.pressure.value == pytest.approx(726.1 * 1.33322387415)   # conventional mmHg (NIST SP 811)
+    assert stop.pressure.value == pytest.approx(726.1 * 1.33322387415)  # conventional mmHg (NIST SP 811)
     assert stop.do.unit == "%" and stop.do.value == 95.0
     assert stop.derived.do_sat_mg_l == pytest.approx(
-        assess_reading(12.4, 726.1 * 1.33322387415, elevation_m=420.0, water_class="cold",
-                       do_percent=95.0).do_sat_mg_l)
+        assess_reading(12.4, 726.1 * 1.33322387415, elevation_m=420.0, water_class="cold", do_percent=95.0).do_sat_mg_l
+    )
 
 
 def test_refused_text_survives_a_restart(ctl):
@@ -126,9 +125,13 @@ def test_add_site_with_elevation_and_refusals(ctl):
     site_id = ctl.add_site("LK-09", "Willow Steps", "1250,5")
     assert site_id == "LK-09"
     assert ctl.site("LK-09").elevation_m == pytest.approx(1250.5)
-    for code, name, elev, word in (("", "X", "10", "code"), ("LK-10", "", "10", "name"),
-                                   ("LK-10", "X", "", "Elevation"), ("LK-10", "X", "9000", "outside"),
-                                   ("LK-09", "Again", "10", "already")):
+    for code, name, elev, word in (
+        ("", "X", "10", "code"),
+        ("LK-10", "", "10", "name"),
+        ("LK-10", "X", "", "Elevation"),
+        ("LK-10", "X", "9000", "outside"),
+        ("LK-09", "Again", "10", "already"),
+    ):
         with pytest.raises(ValueError) as err:
             ctl.add_site(code, name, elev)
         assert word in str(err.value)
@@ -158,8 +161,14 @@ def test_open_conflicts_reach_the_attention_list(ctl):
         ctl.set_stop_field(k, v)
     ctl.save_now(wait=True)
     doc = ctl.store.trip_document(ctl.trip.id)
-    doc["conflicts"] = [{"id": "c1", "path": f"stops[{doc['stops'][0]['id']}].notes", "detected_at": datetime.now(timezone.utc).isoformat(),
-                         "sides": [{"device_id": "dev-a", "value": "riffle"}, {"device_id": "dev-b", "value": "pool"}]}]
+    doc["conflicts"] = [
+        {
+            "id": "c1",
+            "path": f"stops[{doc['stops'][0]['id']}].notes",
+            "detected_at": datetime.now(timezone.utc).isoformat(),
+            "sides": [{"device_id": "dev-a", "value": "riffle"}, {"device_id": "dev-b", "value": "pool"}],
+        }
+    ]
     ctl.store.put_document(doc, "merged by sync", expected_revision=doc["revision"])
     ctl.open_trip(ctl.trip.id)
     lines = [line for line in ctl.attention_lines() if "CONFLICT" in line]
@@ -185,11 +194,11 @@ def test_a_warm_celsius_value_that_may_be_fahrenheit_is_computed_and_flagged(ctl
 
     ctl.set_stop_field("pressure", "968")
     view = ctl.set_stop_field("temp", "45")
-    expected = fahrenheit_hint(45.0)          # core decides whether 45 "°C" looks like °F
+    expected = fahrenheit_hint(45.0)  # core decides whether 45 "°C" looks like °F
     codes = [f.code for f in view.flags]
     assert view.sat_text != "—"
     assert (expected is not None) == ("temp.looks_fahrenheit" in codes)
-    assert expected is not None              # 45 °C water is implausible for a stream (common practice)
+    assert expected is not None  # 45 °C water is implausible for a stream (common practice)
 
 
 class _StoreThatFailsOnce:
@@ -220,7 +229,7 @@ def test_a_failed_save_is_reported_and_written_next_time(ctl):
     errors = ctl.take_save_errors()
     assert errors and "busy" in errors[0]
     assert ctl.dirty is True
-    assert ctl.flush(10)                    # what on_pause or the next trigger does
+    assert ctl.flush(10)  # what on_pause or the next trigger does
     assert ctl.save_errors == []
     assert flaky.load_trip(ctl.trip.id).stops[0].temp.text == "12,4 °C"
 
@@ -230,19 +239,25 @@ def test_settings_limits_are_the_records_own(ctl):
     from core.records.models import ProgramSettings
 
     units = {"temp_unit": "C", "pressure_unit": "hPa", "cond_unit": "uS/cm", "do_unit": "mg/L"}
-    ok = {"calibration_tolerance_mg_l": "0,5", "warm_min_mg_l": "5", "cold_min_mg_l": "6.5",
-          "supersaturation_percent": "130"}
+    ok = {
+        "calibration_tolerance_mg_l": "0,5",
+        "warm_min_mg_l": "5",
+        "cold_min_mg_l": "6.5",
+        "supersaturation_percent": "130",
+    }
     hi = ProgramSettings.model_fields["calibration_tolerance_mg_l"].metadata[-1].le
     assert ctl.save_settings_form(units, {**ok, "calibration_tolerance_mg_l": f"{hi:g}"}, "") is None
     assert ctl.store.settings().calibration_tolerance_mg_l == hi
     assert ctl.save_settings_form(units, ok, "") is None
     assert ctl.store.settings().calibration_tolerance_mg_l == 0.5
-    for name, text, words in (("calibration_tolerance_mg_l", "0", "Calibration tolerance"),
-                              ("supersaturation_percent", "99", "Supersaturation limit"),
-                              ("warm_min_mg_l", "", "Warm-water minimum")):
+    for name, text, words in (
+        ("calibration_tolerance_mg_l", "0", "Calibration tolerance"),
+        ("supersaturation_percent", "99", "Supersaturation limit"),
+        ("warm_min_mg_l", "", "Warm-water minimum"),
+    ):
         msg = ctl.save_settings_form(units, {**ok, name: text}, "")
         assert msg and msg.startswith(words), msg
-    assert ctl.store.settings().supersaturation_percent == 130   # a refusal saved nothing
+    assert ctl.store.settings().supersaturation_percent == 130  # a refusal saved nothing
 
 
 def test_trip_start_reads_the_same_in_the_app_and_the_command_line(tmp_path, capsys, monkeypatch):
@@ -254,7 +269,7 @@ def test_trip_start_reads_the_same_in_the_app_and_the_command_line(tmp_path, cap
     from mobile.cli import main
     from mobile.cli.app_cmd import seed_demo
 
-    monkeypatch.setenv("TZ", "Asia/Tokyo")      # a tablet far from where the trips were recorded
+    monkeypatch.setenv("TZ", "Asia/Tokyo")  # a tablet far from where the trips were recorded
     time.tzset()
     try:
         seed_demo(tmp_path / "d", Path(__file__).resolve().parents[2] / "sample_trips")
@@ -265,7 +280,7 @@ def test_trip_start_reads_the_same_in_the_app_and_the_command_line(tmp_path, cap
         out = capsys.readouterr().out
         for t in store.list_trips():
             shown = when_text(t.started_at)
-            assert "UTC" in shown and t.started_at[11:16] in shown    # the recorded clock, not Tokyo's
+            assert "UTC" in shown and t.started_at[11:16] in shown  # the recorded clock, not Tokyo's
             assert lines[t.id].startswith(shown)
             assert f"{t.id[:8]}  {shown}" in out
         c.worker.flush()
@@ -310,7 +325,7 @@ def test_opening_and_saving_a_trip_changes_nothing(tmp_path, monkeypatch, restor
         c.save_now(wait=True)
         assert c.take_save_errors() == []
         after = store.load_trip(t.id)
-        assert after.revision == before.revision, after.audit[-1].fields    # nothing written
+        assert after.revision == before.revision, after.audit[-1].fields  # nothing written
     c.worker.flush()
 
 
@@ -328,6 +343,7 @@ def test_a_one_field_edit_changes_one_path(tmp_path, monkeypatch, restore_tz):
         def run():
             c.stop_id = stop.id
             c.set_stop_field(name, value)
+
         return run
 
     def set_attr(obj, attr, value):
@@ -338,14 +354,19 @@ def test_a_one_field_edit_changes_one_path(tmp_path, monkeypatch, restore_tz):
         ("pressure unit", edit_stop("pressure_unit", "mbar"), f"stops[{stop.id}].pressure"),
         ("conductivity", edit_stop("conductivity", "1,71"), f"stops[{stop.id}].conductivity"),
         ("meter DO", edit_stop("do", "7,77"), f"stops[{stop.id}].do"),
-        ("conductivity basis", edit_stop("cond_is_sc25", not stop.cond_is_sc25),
-         f"stops[{stop.id}].conductivity_is_sc25"),
+        (
+            "conductivity basis",
+            edit_stop("cond_is_sc25", not stop.cond_is_sc25),
+            f"stops[{stop.id}].conductivity_is_sc25",
+        ),
         ("notes", edit_stop("notes", "gauge plate bent"), f"stops[{stop.id}].notes"),
         ("site", edit_stop("site", "LK-05"), f"stops[{stop.id}].site_id"),
         ("arrival time", edit_stop("arrived", "06:05"), f"stops[{stop.id}].arrived_at"),
-        ("bottle fixed time", set_attr(bottle, "fixed_at", (bottle.fixed_at or bottle.collected_at)
-                                       + timedelta(minutes=3)),
-         f"stops[{next(s.id for s in c.trip.stops if bottle in s.bottles)}].bottles[{bottle.id}].fixed_at"),
+        (
+            "bottle fixed time",
+            set_attr(bottle, "fixed_at", (bottle.fixed_at or bottle.collected_at) + timedelta(minutes=3)),
+            f"stops[{next(s.id for s in c.trip.stops if bottle in s.bottles)}].bottles[{bottle.id}].fixed_at",
+        ),
         ("program", set_attr(c.trip, "program", "Tamsin Valley Stream Watch B"), "program"),
         ("meter", set_attr(c.trip, "meter_id", "DO-METER-10"), "meter_id"),
         ("crew", set_attr(c.trip, "crew", c.trip.crew + ", A.B."), "crew"),
@@ -366,7 +387,7 @@ def test_a_one_field_edit_changes_one_path(tmp_path, monkeypatch, restore_tz):
     for old, new in zip(original["stops"], saved["stops"], strict=True):
         if old["id"] == stop.id:
             assert new["pressure"]["text"] == f"{pressure_before} mbar"
-            assert new["arrived_at"].endswith(old["arrived_at"][-6:])     # its own offset
+            assert new["arrived_at"].endswith(old["arrived_at"][-6:])  # its own offset
             continue
         assert {k: new[k] for k in ("temp", "do", "arrived_at")} == {k: old[k] for k in ("temp", "do", "arrived_at")}
     assert saved["started_at"] == original["started_at"] and saved["ended_at"] == original["ended_at"]
@@ -383,9 +404,9 @@ def test_a_save_after_another_writer_keeps_both_changes(tmp_path, monkeypatch, r
     trip_id = next(t.id for t in store.list_trips() if t.status == "ended")
     c.open_trip(trip_id)
     c.stop_id = c.trip.stops[0].id
-    c.set_stop_field("temp", "15,5")                       # typed here, not saved yet
+    c.set_stop_field("temp", "15,5")  # typed here, not saved yet
 
-    other = store.load_trip(trip_id)                       # the other writer
+    other = store.load_trip(trip_id)  # the other writer
     first = other.stops[0]
     changed = first.model_copy(update={"do": measure("do", "6.66 mg/L"), "notes": "office note"})
     store.save_trip(other.model_copy(update={"stops": [changed, *other.stops[1:]]}), "office correction")
@@ -394,12 +415,12 @@ def test_a_save_after_another_writer_keeps_both_changes(tmp_path, monkeypatch, r
     assert c.take_save_errors() == []
     saved = store.load_trip(trip_id)
     stop = next(s for s in saved.stops if s.id == first.id)
-    assert stop.temp.text == "15,5 °C"                                   # ours
-    assert (stop.do.text, stop.notes) == ("6.66 mg/L", "office note")    # theirs, kept
+    assert stop.temp.text == "15,5 °C"  # ours
+    assert (stop.do.text, stop.notes) == ("6.66 mg/L", "office note")  # theirs, kept
     assert saved.audit[-1].fields == [f"stops[{first.id}].temp"]
     assert c.adopt_rebased() is True
     assert (c.stop.do_text, c.stop.notes, c.stop.temp_text) == ("6.66", "office note", "15,5")
-    c.save_now(wait=True)                                  # and the next save changes nothing
+    c.save_now(wait=True)  # and the next save changes nothing
     assert store.load_trip(trip_id).revision == saved.revision
     c.worker.flush()
 
@@ -413,11 +434,12 @@ def test_a_returned_trip_is_handed_back_from_the_tablet(tmp_path):
     seed_sites(tmp_path / "data")
     store = DeviceStore.open(tmp_path / "data")
     import_trip_file(store, ROOT / "sample_trips" / "trip-2026-06-23-hot-afternoon.json")
-    trip = store.load_trip("a41f6e2d-8c3b-4d7a-b5e9-0c6d2f8e1a34")      # sample trip of 2026-06-23 (invented)
+    trip = store.load_trip("a41f6e2d-8c3b-4d7a-b5e9-0c6d2f8e1a34")  # sample trip of 2026-06-23 (invented)
     ev = new_event(trip, "returned", by="D.M.", at=datetime.now(timezone.utc), reasons=["LK-03 temperature missing"])
-    store.save_trip(trip.model_copy(update={"review_events": [*trip.review_events,
-                                                               ReviewEvent.model_validate(ev, strict=False)]}),
-                    "office returned it")
+    store.save_trip(
+        trip.model_copy(update={"review_events": [*trip.review_events, ReviewEvent.model_validate(ev, strict=False)]}),
+        "office returned it",
+    )
     c = AppController(store)
     c.open_trip(trip.id)
     assert "LK-03 temperature missing" in c.returned_reasons()
@@ -425,5 +447,5 @@ def test_a_returned_trip_is_handed_back_from_the_tablet(tmp_path):
     stored = store.load_trip(trip.id)
     assert review_state(stored) == "ended" and stored.review_events[-1].action == "resubmitted"
     assert c.returned_reasons() is None
-    assert "cannot resubmit" in c.resubmit()          # only a returned trip can be handed back
+    assert "cannot resubmit" in c.resubmit()  # only a returned trip can be handed back
     c.worker.flush()

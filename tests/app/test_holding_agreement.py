@@ -5,6 +5,7 @@ They must agree bottle by bottle, and a bottle with a valid result is never expi
 Holding times: Winkler DO 8 h and BOD 48 h, both from collection (US 40 CFR 136.3 Table II, from
 memory; the Winkler sample is fixed on site); "soon" is less than 25 % left (common practice).
 """
+
 from __future__ import annotations
 
 from datetime import timedelta
@@ -22,8 +23,13 @@ NOW = T0 + timedelta(hours=10)
 
 
 def _result(analyte: str, valid: bool | None = True) -> LabResult:
-    return LabResult(analyte=analyte, value=8.1 if analyte == "do_winkler" else 3.2, unit="mg/L",
-                     analysed_at=T0 + timedelta(hours=2), valid=valid)
+    return LabResult(
+        analyte=analyte,
+        value=8.1 if analyte == "do_winkler" else 3.2,
+        unit="mg/L",
+        analysed_at=T0 + timedelta(hours=2),
+        valid=valid,
+    )
 
 
 def _fixed(hours: float):
@@ -57,7 +63,7 @@ CASES = [
     # a blank has no holding time here (the program's SOP keeps it)
     ("K-blank", "blank", None, [], None, None),
 ]
-COLLECTED_H = {"W-late": 3.0}   # hours after T0; every other bottle is collected at T0
+COLLECTED_H = {"W-late": 3.0}  # hours after T0; every other bottle is collected at T0
 PRIMARIES = {"P-W": ("do-fixed", _fixed(0.2), "do_winkler"), "P-B": ("bod", None, "bod5")}
 
 
@@ -69,12 +75,18 @@ def trip_store(tmp_path):
     for i, (label, kind, fixed, results, dup_of, _) in enumerate(CASES):
         extra = {"duplicate_of": f"{dup_of}-{label}"} if dup_of else {}
         collected = T0 + timedelta(hours=COLLECTED_H.get(label, 0.0))
-        bottles = [Bottle(label=label, kind=kind, collected_at=collected, fixed_at=fixed, lab_results=results,
-                          **extra)]
+        bottles = [Bottle(label=label, kind=kind, collected_at=collected, fixed_at=fixed, lab_results=results, **extra)]
         if dup_of:
             p_kind, p_fixed, p_analyte = PRIMARIES[dup_of]
-            bottles.append(Bottle(label=f"{dup_of}-{label}", kind=p_kind, collected_at=T0, fixed_at=p_fixed,
-                                  lab_results=[_result(p_analyte)]))
+            bottles.append(
+                Bottle(
+                    label=f"{dup_of}-{label}",
+                    kind=p_kind,
+                    collected_at=T0,
+                    fixed_at=p_fixed,
+                    lab_results=[_result(p_analyte)],
+                )
+            )
         stops.append(Stop(site_id="LK-01", arrived_at=T0 + timedelta(minutes=i), bottles=bottles))
     trip = store.save_trip(make_trip(stops), "holding cases")
     return store, trip
@@ -97,7 +109,7 @@ def test_qc_follows_the_table(trip_store):
     for stop in trip.stops:
         codes = {f.code for f in stop_flags(stop, settings, NOW)}
         label = stop.bottles[0].label
-        got[label] = ("expired" if "holding.expired" in codes else "soon" if "holding.soon" in codes else "in time")
+        got[label] = "expired" if "holding.expired" in codes else "soon" if "holding.soon" in codes else "in time"
     # QC has no "no clock" state: a bottle whose clock does not run raises no holding flag
     assert got == {label: state or "in time" for label, state in _expected().items()}
 
@@ -123,8 +135,9 @@ def test_the_three_agree_bottle_by_bottle(trip_store):
     store, trip = trip_store
     ctl = AppController(store)
     ctl.open_trip(trip.id)
-    app = {c.label: {"EXPIRED": "expired", "SOON": "soon", "OK": "in time"}.get(c.word)
-           for c in ctl.clock_lines(now=NOW)}
+    app = {
+        c.label: {"EXPIRED": "expired", "SOON": "soon", "OK": "in time"}.get(c.word) for c in ctl.clock_lines(now=NOW)
+    }
     lab = {p.label: p.status for p in pending_bottles([trip], NOW)}
     settings = store.settings()
     for stop in trip.stops:

@@ -1,4 +1,5 @@
 """The lab mode's controller (no kivy): waiting list, standardisation, Winkler and BOD as typed, signing."""
+
 from __future__ import annotations
 
 from datetime import datetime, timedelta, timezone
@@ -11,7 +12,7 @@ from core.store import DeviceStore
 from mobile.app.lab_bench import LabBench
 from tests.app.conftest import ROOT, seed_sites
 
-HOT = "a41f6e2d-8c3b-4d7a-b5e9-0c6d2f8e1a34"      # sample trip of 2026-06-23 (invented)
+HOT = "a41f6e2d-8c3b-4d7a-b5e9-0c6d2f8e1a34"  # sample trip of 2026-06-23 (invented)
 PDT = timezone(timedelta(hours=-7))
 NOW = datetime(2026, 6, 23, 14, 0, tzinfo=PDT)
 
@@ -38,7 +39,7 @@ def test_winkler_needs_the_days_standardisation_and_uses_it(bench):
         bench.winkler(w.trip_id, w.bottle_id, "9.0", "201")
     with pytest.raises(ValueError, match="Thiosulfate on the standard"):
         bench.set_standardisation("lots")
-    assert "0.0250 N" in bench.set_standardisation("20,0")   # N = 0.025 · 20 / 20 (Standard Methods 4500-O C)
+    assert "0.0250 N" in bench.set_standardisation("20,0")  # N = 0.025 · 20 / 20 (Standard Methods 4500-O C)
     with pytest.raises(ValueError, match="Titrant used"):
         bench.winkler(w.trip_id, w.bottle_id, "9..0", "201")
     # 200 mL original sample (201 mL titrated of 300 with 2 mL of reagents ≈ 199.66 mL): DO = V·N·8000/V_orig.
@@ -48,10 +49,11 @@ def test_winkler_needs_the_days_standardisation_and_uses_it(bench):
 
 
 def test_bod_lines_show_validity_as_typed(bench):
-    lines, reportable, good = bench.bod_lines([("150", "300", "8.8", "4.3"), ("", "300", "", ""),
-                                               ("50", "300", "8.75", "abc")])
+    lines, reportable, good = bench.bod_lines(
+        [("150", "300", "8.8", "4.3"), ("", "300", "", ""), ("50", "300", "8.75", "abc")]
+    )
     assert lines[0].valid is True and lines[1].text == "" and lines[2].valid is None and "Day-5 DO" in lines[2].text
-    assert reportable == "Reportable BOD5: 9.0 mg/L" and len(good) == 1   # (8.8 − 4.3)/0.5, Standard Methods 5210 B
+    assert reportable == "Reportable BOD5: 9.0 mg/L" and len(good) == 1  # (8.8 − 4.3)/0.5, Standard Methods 5210 B
     # A clean stream: undiluted, 0.7 mg/L depletion < 2.0 — reported as a bound, "< 2.0 mg/L" (5210 B).
     _, reportable, _ = bench.bod_lines([("300", "300", "8.8", "8.1")])
     assert reportable == "Reportable BOD5: < 2.0 mg/L"

@@ -1,6 +1,7 @@
 """Touch targets and text sizes on every screen (>= 48 dp targets, >= 18 sp text: issue 4's rule,
 common practice for gloved touch), the soft keyboard never covering the focused field, and on_pause
 saving before the debounce has fired."""
+
 from __future__ import annotations
 
 import pytest
@@ -19,7 +20,7 @@ def test_targets_text_and_keyboard(tmp_path, size, folder):
     assert notes["checked"] > 40
     assert notes["small_targets"] == []
     assert notes["small_text"] == []
-    assert notes["field_bottom_y"] >= 320 - 1          # above the 320 px keyboard
+    assert notes["field_bottom_y"] >= 320 - 1  # above the 320 px keyboard
     assert notes["field_top_y"] <= notes["scroll_top_y"] + 1
 
 
@@ -37,13 +38,13 @@ def test_settings_reach_the_store_and_new_stops(tmp_path):
     seed_sites(tmp_path / "data")
     notes = run_scenario("settings_change", tmp_path / "data", tmp_path)
     assert notes["message"].startswith("✓")
-    assert "Calibration tolerance" in notes["refused"] and "up to 5 mg/L" in notes["refused"]   # ProgramSettings bound
+    assert "Calibration tolerance" in notes["refused"] and "up to 5 mg/L" in notes["refused"]  # ProgramSettings bound
     st = DeviceStore.open(tmp_path / "data").settings()
     assert st.calibration_tolerance_mg_l == pytest.approx(0.3)
     prefs = json.loads((tmp_path / "data" / "app-prefs.json").read_text())
     assert prefs["temp_unit"] == "F" and prefs["sync_target"] == "/mnt/hub"
     assert notes["stop_temp_unit"] == "F"
-    assert notes["after_back"] == "trips"      # back from a stop: the trips list, app still open
+    assert notes["after_back"] == "trips"  # back from a stop: the trips list, app still open
 
 
 @pytest.mark.parametrize("size,folder", [("1200x780", "landscape"), ("600x780", "portrait")])
@@ -57,6 +58,6 @@ def test_flags_panel_scrolls_to_every_flag(tmp_path, size, folder):
     height, content, kind = notes["panel"]
     assert kind == "ScrollView"
     assert notes["each_flag_fits_when_scrolled"] == [True] * len(notes["flag_words"])
-    assert notes["bar_width"] >= dp(10) - 0.5          # a bar a gloved finger can see and drag
+    assert notes["bar_width"] >= dp(10) - 0.5  # a bar a gloved finger can see and drag
     if content > height + 1:
         assert f"· {len(notes['flag_words'])} — scroll to see all" in notes["title"]

@@ -1,5 +1,6 @@
 """The trip meter's % basis chosen on the start screen (a real window under Xvfb) turns a DO in % into mg/L
 against 760 mmHg (team science reference §10; Benson & Krause 1984 for the saturation)."""
+
 from __future__ import annotations
 
 from core.science.oxygen import do_saturation_mg_l

@@ -3,13 +3,16 @@
 Kivy's stock float filter turns "3,5" into 35 and "1e-3" into 13 (checked by hand against
 kivy 2.3 TextInput, from memory); these are the cases our filter must get right (common practice).
 """
+
 import pytest
 
 from mobile.app.numeric import DecimalError, check_insert, parse_decimal
 
 
-@pytest.mark.parametrize("text,expected", [("3,5", 3.5), ("3.5", 3.5), ("12,40", 12.4), ("0", 0.0),
-                                           ("-0,5", -0.5), (" 7 ", 7.0), (",5", 0.5)])
+@pytest.mark.parametrize(
+    "text,expected",
+    [("3,5", 3.5), ("3.5", 3.5), ("12,40", 12.4), ("0", 0.0), ("-0,5", -0.5), (" 7 ", 7.0), (",5", 0.5)],
+)
 def test_parse_decimal_reads_comma_and_point(text, expected):
     assert parse_decimal(text) == pytest.approx(expected)
 
@@ -31,8 +34,7 @@ def test_comma_is_accepted_while_typing():
     assert not check_insert("3", 1, ",").refused
 
 
-@pytest.mark.parametrize("current,insert", [("1", "e"), ("3,5", ","), ("3.5", ","), ("", "x"),
-                                            ("12", " "), ("5", "-")])
+@pytest.mark.parametrize("current,insert", [("1", "e"), ("3,5", ","), ("3.5", ","), ("", "x"), ("12", " "), ("5", "-")])
 def test_refused_insertions_say_why_and_insert_nothing(current, insert):
     check = check_insert(current, len(current), insert, label="Meter DO")
     assert check.refused
@@ -42,7 +44,7 @@ def test_refused_insertions_say_why_and_insert_nothing(current, insert):
 
 def test_a_pasted_exponent_is_refused_whole_not_filtered_to_digits():
     check = check_insert("", 0, "1e-3")
-    assert check.refused and check.accepted == ""   # the stock filter would leave "13"
+    assert check.refused and check.accepted == ""  # the stock filter would leave "13"
 
 
 def test_minus_only_first_and_only_where_allowed():

@@ -3,18 +3,19 @@
 What the screen showed and what the store holds are compared with core's own values
 (core.science.assess, core.science.temperature.f_to_c); unit definitions cite NIST SP 811 (mmHg) or are exact.
 """
+
 from __future__ import annotations
 
 import pytest
 
 from core.science.assess import assess_reading
-from core.store import DeviceStore
 from core.science.temperature import f_to_c
+from core.store import DeviceStore
 from tests.app.conftest import ARTIFACTS, run_scenario
 
 pytestmark = pytest.mark.app
 
-MMHG_HPA = 1.33322387415   # conventional millimetre of mercury (NIST SP 811)
+MMHG_HPA = 1.33322387415  # conventional millimetre of mercury (NIST SP 811)
 
 
 @pytest.fixture(scope="module")
@@ -37,8 +38,7 @@ def test_empty_required_field_blocks_closing(logged):
 
 def test_screen_shows_core_values_as_typed(logged):
     notes, _ = logged
-    a = assess_reading(12.4, 968.0, conductivity_us_cm=410.0, do_mg_l=9.8, elevation_m=420.0,
-                       water_class="cold")
+    a = assess_reading(12.4, 968.0, conductivity_us_cm=410.0, do_mg_l=9.8, elevation_m=420.0, water_class="cold")
     shown = notes["after_first"]
     assert shown["sat_text"] == f"{a.do_sat_mg_l:.2f} mg/L"
     assert shown["percent_text"] == f"{a.percent_saturation:.1f} %"
@@ -54,8 +54,9 @@ def test_refused_character_is_explained_not_dropped(logged):
 
 def test_unit_switches_reach_core(logged):
     notes, _ = logged
-    a = assess_reading(12.4, 726.1 * MMHG_HPA, conductivity_us_cm=410.0, do_percent=95.0,
-                       elevation_m=420.0, water_class="cold")
+    a = assess_reading(
+        12.4, 726.1 * MMHG_HPA, conductivity_us_cm=410.0, do_percent=95.0, elevation_m=420.0, water_class="cold"
+    )
     shown = notes["after_units"]
     assert shown["sat_text"] == f"{a.do_sat_mg_l:.2f} mg/L"
     assert shown["percent_text"] == "95.0 %"
@@ -66,7 +67,7 @@ def test_duplicate_bottle_id_refused_with_reason(logged):
     notes, _ = logged
     assert notes["duplicate_message"].startswith("■ Refused")
     assert "already used" in notes["duplicate_message"]
-    assert notes["bottle_rows"] == ["LK01-A", "LK01-B"]   # typed, then scanned (ID + Enter)
+    assert notes["bottle_rows"] == ["LK01-A", "LK01-B"]  # typed, then scanned (ID + Enter)
 
 
 def test_fahrenheit_typed_as_celsius_gets_its_hint(logged):
@@ -75,8 +76,14 @@ def test_fahrenheit_typed_as_celsius_gets_its_hint(logged):
         flags = " ".join(notes[key]["flags"])
         assert "°F" in flags, flags
         assert notes[key]["sat_text"] == "—"
-    a = assess_reading(float(f_to_c(68.0)), 726.1 * MMHG_HPA, conductivity_us_cm=410.0,
-                       do_percent=95.0, elevation_m=420.0, water_class="cold")
+    a = assess_reading(
+        float(f_to_c(68.0)),
+        726.1 * MMHG_HPA,
+        conductivity_us_cm=410.0,
+        do_percent=95.0,
+        elevation_m=420.0,
+        water_class="cold",
+    )
     assert notes["after_switch_f"]["sat_text"] == f"{a.do_sat_mg_l:.2f} mg/L"
 
 
@@ -95,6 +102,7 @@ def test_store_holds_what_was_typed(logged):
     assert stop.do.text == "95 %"
     assert [(b.label, b.kind) for b in stop.bottles] == [("LK01-A", "do-fixed"), ("LK01-B", "bod")]
     assert stop.bottles[0].fixed_at is not None and stop.bottles[1].fixed_at is None
-    a = assess_reading(20.0, 726.1 * MMHG_HPA, conductivity_us_cm=410.0, do_percent=95.0,
-                       elevation_m=420.0, water_class="cold")
+    a = assess_reading(
+        20.0, 726.1 * MMHG_HPA, conductivity_us_cm=410.0, do_percent=95.0, elevation_m=420.0, water_class="cold"
+    )
     assert stop.derived.do_sat_mg_l == pytest.approx(a.do_sat_mg_l)

@@ -1,5 +1,6 @@
 """The sync view in the real window: a trip sent to a hub folder in the background, with progress
 and a per-trip result, while the stop screen keeps taking keystrokes."""
+
 from __future__ import annotations
 
 import pytest
@@ -14,8 +15,9 @@ def test_send_to_folder_hub(tmp_path):
     seed_sites(tmp_path / "data")
     hub = tmp_path / "hub"
     hub.mkdir()
-    notes = run_scenario("sync_folder", tmp_path / "data", tmp_path, artifacts=ARTIFACTS / "sync",
-                         params={"hub": str(hub)})
+    notes = run_scenario(
+        "sync_folder", tmp_path / "data", tmp_path, artifacts=ARTIFACTS / "sync", params={"hub": str(hub)}
+    )
     assert notes["typed_during_sync"] == "11,0"
     assert notes["status"].startswith("✓ Sent 1"), notes["status"]
     assert any(r.startswith("✓ PUSHED") for r in notes["rows"]), notes["rows"]
@@ -26,7 +28,7 @@ def test_send_to_folder_hub(tmp_path):
     names = [p.name for p in hub.rglob("*")] + [str(p) for p in hub.rglob("*")]
     assert any(notes["trip_id"] in n for n in names)
     trip = DeviceStore.open(tmp_path / "data").load_trip(notes["trip_id"])
-    assert trip.stops[0].do.text == "11,0 mg/L"   # typed while sending, saved afterwards
+    assert trip.stops[0].do.text == "11,0 mg/L"  # typed while sending, saved afterwards
 
 
 def test_an_address_with_a_password_is_refused_before_it_is_stored(tmp_path):

@@ -1,5 +1,6 @@
 """A whole trip in the real window: three stops with bottles, every screen, end of trip; and a
 kill-and-restart that must come back to the stop with its data. Screenshots go to test-artifacts/."""
+
 from __future__ import annotations
 
 import json
@@ -13,7 +14,7 @@ from datetime import datetime
 import pytest
 
 from core.store import DeviceStore
-from tests.app.conftest import ARTIFACTS, child_env, run_scenario, scenario_argv, seed_sites, ROOT
+from tests.app.conftest import ARTIFACTS, ROOT, child_env, run_scenario, scenario_argv, seed_sites
 
 pytestmark = pytest.mark.app
 
@@ -24,16 +25,21 @@ SCREENS = ("trips", "start", "stop", "bottles", "end", "sync", "settings")
 def test_three_stops_end_and_every_screen(tmp_path, size, folder):
     seed_sites(tmp_path / "data")
     art = ARTIFACTS / folder
-    notes = run_scenario("three_stops", tmp_path / "data", tmp_path, artifacts=art, size=size,
-                         timeout=180)
+    notes = run_scenario("three_stops", tmp_path / "data", tmp_path, artifacts=art, size=size, timeout=180)
     assert notes["save_errors"] == []
     trip = DeviceStore.open(tmp_path / "data").load_trip(notes["trip_id"])
     assert [s.site_id for s in trip.stops] == ["LK-01", "LK-02", "LK-03"]
     assert all(s.closed_at is not None for s in trip.stops)
-    assert sorted(b.label for s in trip.stops for b in s.bottles) == \
-        ["TV-A1", "TV-A2", "TV-B1", "TV-B2", "TV-C1", "TV-C2"]
+    assert sorted(b.label for s in trip.stops for b in s.bottles) == [
+        "TV-A1",
+        "TV-A2",
+        "TV-B1",
+        "TV-B2",
+        "TV-C1",
+        "TV-C2",
+    ]
     assert trip.ended_at is not None
-    assert trip.post_check is not None and trip.post_check.accepted is False   # 8,9 vs target: drift
+    assert trip.post_check is not None and trip.post_check.accepted is False  # 8,9 vs target: drift
     assert notes["post_verdict"] == "FAIL"
     # most urgent first: Winkler DO (8 h) before BOD (48 h) — 40 CFR 136.3 Table II, from memory
     kinds = [r.split("|")[1].split(" · ")[1] for r in notes["clock_rows"]]
@@ -48,9 +54,14 @@ def test_three_stops_end_and_every_screen(tmp_path, size, folder):
 def run_until_ready_then_kill(scenario: str, tmp_path) -> dict:
     """Starts the app through `scenario`, waits (bounded) for its "ready" note, then SIGKILLs it."""
     result = tmp_path / f"{scenario}.json"
-    proc = subprocess.Popen(scenario_argv(scenario, tmp_path / "data", result),
-                            env=child_env(tmp_path / "kivy-home"), cwd=ROOT,
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, start_new_session=True)
+    proc = subprocess.Popen(
+        scenario_argv(scenario, tmp_path / "data", result),
+        env=child_env(tmp_path / "kivy-home"),
+        cwd=ROOT,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+        start_new_session=True,
+    )
     try:
         deadline = time.monotonic() + 120
         notes = {}
@@ -65,7 +76,7 @@ def run_until_ready_then_kill(scenario: str, tmp_path) -> dict:
             time.sleep(0.2)
         assert notes.get("ready"), notes.get("error", "the app did not get ready in 120 s")
     finally:
-        os.killpg(proc.pid, signal.SIGKILL)   # no on_stop, no flush: as a swiped-away app
+        os.killpg(proc.pid, signal.SIGKILL)  # no on_stop, no flush: as a swiped-away app
         proc.wait(30)
     return notes
 
@@ -115,7 +126,7 @@ def test_start_refuses_a_bad_or_partial_calibration_and_records_none(tmp_path):
     screen, message, problem, offer = notes["bad"]
     assert screen == "start" and not offer
     assert "Calibration temperature" in problem and "68" in problem and "pre-trip calibration" in message
-    assert notes["problem_after_edit"] == ""          # editing the panel clears the refusal
+    assert notes["problem_after_edit"] == ""  # editing the panel clears the refusal
     screen, message, problem, offer = notes["partial"]
     assert screen == "start" and "Calibration temperature and Meter reading are empty" in problem
     screen, message, offer = notes["empty"]
@@ -125,12 +136,18 @@ def test_start_refuses_a_bad_or_partial_calibration_and_records_none(tmp_path):
     assert trip.started_without_calibration is True and trip.pre_calibration is None
     assert trip.audit[0].change == "trip started without calibration"
     assert any("started without a pre-trip calibration" in line for line in notes["end_lines"])
-    out = subprocess.run([sys.executable, "-m", "mobile.cli", "trip", "show", notes["trip_id"], "--data-dir",
-                          str(tmp_path / "data")], capture_output=True, text=True, cwd=ROOT, timeout=60, check=False,
-                         env=child_env(tmp_path / "kivy-home"))
+    out = subprocess.run(
+        [sys.executable, "-m", "mobile.cli", "trip", "show", notes["trip_id"], "--data-dir", str(tmp_path / "data")],
+        capture_output=True,
+        text=True,
+        cwd=ROOT,
+        timeout=60,
+        check=False,
+        env=child_env(tmp_path / "kivy-home"),
+    )
     assert out.returncode == 0, out.stderr
     assert "pre-trip calibration: none — the trip was started without calibration" in out.stdout
-    assert "started this trip without a pre-trip calibration" in out.stdout       # the QC flag says it too
+    assert "started this trip without a pre-trip calibration" in out.stdout  # the QC flag says it too
 
 
 def test_a_reopened_ended_trip_shows_its_post_trip_check(tmp_path):
@@ -140,8 +157,9 @@ def test_a_reopened_ended_trip_shows_its_post_trip_check(tmp_path):
     store = DeviceStore.open(tmp_path / "data")
     trip = next(store.load_trip(t.id) for t in store.list_trips() if t.status == "ended")
     assert trip.post_check is not None
-    notes = run_scenario("reopen_ended", tmp_path / "data", tmp_path, artifacts=ARTIFACTS / "calibration",
-                         params={"trip_id": trip.id})
+    notes = run_scenario(
+        "reopen_ended", tmp_path / "data", tmp_path, artifacts=ARTIFACTS / "calibration", params={"trip_id": trip.id}
+    )
     assert notes["screen"] == "end"
     temp, _temp_unit, pressure, pressure_unit, reading, verdict = notes["post"]
     pc = trip.post_check
@@ -150,7 +168,7 @@ def test_a_reopened_ended_trip_shows_its_post_trip_check(tmp_path):
     assert float(reading.replace(",", ".")) == pc.reading_mg_l
     assert verdict in ("PASS", "FAIL")
     after = DeviceStore.open(tmp_path / "data").load_trip(trip.id)
-    assert after.revision == trip.revision            # looking at it changed nothing
+    assert after.revision == trip.revision  # looking at it changed nothing
 
 
 def test_a_conflict_is_settled_by_tapping_the_value_to_keep(tmp_path):
@@ -158,8 +176,9 @@ def test_a_conflict_is_settled_by_tapping_the_value_to_keep(tmp_path):
     large buttons on the stop and end screens, and a tap keeps one, recorded with who and when."""
     from datetime import timedelta
 
-    from core.records.models import Trip, measure
     from kivy.metrics import dp
+
+    from core.records.models import Trip, measure
 
     seed_sites(tmp_path / "data")
     seed_sites(tmp_path / "other")
@@ -168,13 +187,28 @@ def test_a_conflict_is_settled_by_tapping_the_value_to_keep(tmp_path):
     a.set_device_name("Tablet A")
     b.set_device_name("Tablet B")
     now = datetime.now().astimezone()
-    trip = a.save_trip(Trip.from_document({
-        "id": "t-conflict-1", "program": "Tamsin Valley Stream Watch", "crew": ["R.O."], "meter_id": "DO-7",
-        "started_at": (now - timedelta(hours=2)).isoformat(),
-        "stops": [{"id": "s-1", "site_id": "LK-01", "arrived_at": (now - timedelta(hours=1)).isoformat(),
-                   "temp": measure("temp", "12.0 °C").model_dump(mode="json"),
-                   "pressure": measure("pressure", "968 hPa").model_dump(mode="json"),
-                   "do": measure("do", "9.8 mg/L").model_dump(mode="json")}]}), "new")
+    trip = a.save_trip(
+        Trip.from_document(
+            {
+                "id": "t-conflict-1",
+                "program": "Tamsin Valley Stream Watch",
+                "crew": ["R.O."],
+                "meter_id": "DO-7",
+                "started_at": (now - timedelta(hours=2)).isoformat(),
+                "stops": [
+                    {
+                        "id": "s-1",
+                        "site_id": "LK-01",
+                        "arrived_at": (now - timedelta(hours=1)).isoformat(),
+                        "temp": measure("temp", "12.0 °C").model_dump(mode="json"),
+                        "pressure": measure("pressure", "968 hPa").model_dump(mode="json"),
+                        "do": measure("do", "9.8 mg/L").model_dump(mode="json"),
+                    }
+                ],
+            }
+        ),
+        "new",
+    )
     b.merge_document(a.trip_document(trip.id), "pulled")
     base = a.trip_document(trip.id)
 
@@ -182,6 +216,7 @@ def test_a_conflict_is_settled_by_tapping_the_value_to_keep(tmp_path):
         def fn(t):
             stop = t.stops[0].model_copy(update={"temp": measure("temp", text)})
             return t.model_copy(update={"stops": [stop]})
+
         store.update_trip(trip.id, f"temp {text}", fn)
 
     set_temp(a, "12.8 °C")
@@ -191,8 +226,10 @@ def test_a_conflict_is_settled_by_tapping_the_value_to_keep(tmp_path):
     notes = run_scenario("settle_conflict", tmp_path / "data", tmp_path, artifacts=ARTIFACTS / "conflicts")
     count, texts, heights = notes["stop_panel"]
     assert count == 1 and len(texts) == 2 and notes["end_count"] == 1
-    assert any("12.8 °C" in t and "Tablet A" in t for t in texts) and any("13.4 °C" in t and "Tablet B" in t for t in texts)
-    assert min(heights) >= dp(48)                       # large enough for a gloved finger
+    assert any("12.8 °C" in t and "Tablet A" in t for t in texts) and any(
+        "13.4 °C" in t and "Tablet B" in t for t in texts
+    )
+    assert min(heights) >= dp(48)  # large enough for a gloved finger
     kept = "13.4" if "13.4" in texts[1] else "12.8"
     count, message, temp_text = notes["after"]
     assert count == 0 and message.startswith("✓") and temp_text == kept, notes["after"]

@@ -1,4 +1,5 @@
 """Runs every tests/bench/bench_*.py module's `main()` in turn (or those named on the command line)."""
+
 from __future__ import annotations
 
 import importlib

@@ -3,6 +3,7 @@
 Targets (issue 4): cold start median of 5 <= 2.0 s under Xvfb; keystroke in a value field to the
 updated saturation on screen <= 50 ms (median). Each run is a fresh interpreter, as on a tablet.
 """
+
 from __future__ import annotations
 
 import json
@@ -29,8 +30,12 @@ def _start_xvfb() -> subprocess.Popen | None:
     if xvfb is None:
         raise SystemExit("bench_app: no DISPLAY and no Xvfb; install xvfb or run under xvfb-run")
     r, w = os.pipe()
-    proc = subprocess.Popen([xvfb, "-displayfd", str(w), "-screen", "0", "1280x1280x24", "-nolisten", "tcp"],
-                            pass_fds=(w,), stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    proc = subprocess.Popen(
+        [xvfb, "-displayfd", str(w), "-screen", "0", "1280x1280x24", "-nolisten", "tcp"],
+        pass_fds=(w,),
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+    )
     os.close(w)
     with os.fdopen(r) as fh:
         display = fh.readline().strip()
@@ -44,8 +49,7 @@ def _run(scenario: str, data: Path, tmp: Path, params: dict[str, str] | None = N
     for k, v in (params or {}).items():
         argv += ["--param", f"{k}={v}"]
     t0 = time.time()
-    subprocess.run(argv, env=child_env(tmp / "kivy-home"), cwd=ROOT, capture_output=True, timeout=180,
-                   check=True)
+    subprocess.run(argv, env=child_env(tmp / "kivy-home"), cwd=ROOT, capture_output=True, timeout=180, check=True)
     notes = json.loads(result.read_text())
     if not notes.get("ok"):
         raise SystemExit(f"bench_app: scenario {scenario} failed: {notes.get('error')}")
@@ -59,7 +63,7 @@ def main() -> int:
             tmp = Path(d)
             data = tmp / "data"
             seed_sites(data)
-            _run("first_screen", data, tmp)   # warm the OS file cache once (not counted)
+            _run("first_screen", data, tmp)  # warm the OS file cache once (not counted)
             cold = []
             for _ in range(COLD_RUNS):
                 notes, t0 = _run("first_screen", data, tmp)
@@ -85,15 +89,21 @@ def main() -> int:
     cold_med = statistics.median(cold)
     resume_med = statistics.median(resume)
     key_med = statistics.median(keys)
-    print(f"cold start to first drawn screen: median {cold_med:.2f} s of {COLD_RUNS} "
-          f"(min {min(cold):.2f}, max {max(cold):.2f}); target <= 2.0 s; ratio to target {cold_med / 2.0:.2f}")
-    print(f"cold start reopening a stop (demo trips): median {resume_med:.2f} s of {COLD_RUNS} "
-          f"(min {min(resume):.2f}, max {max(resume):.2f}); ratio to the empty-store start "
-          f"{resume_med / cold_med:.2f}")
+    print(
+        f"cold start to first drawn screen: median {cold_med:.2f} s of {COLD_RUNS} "
+        f"(min {min(cold):.2f}, max {max(cold):.2f}); target <= 2.0 s; ratio to target {cold_med / 2.0:.2f}"
+    )
+    print(
+        f"cold start reopening a stop (demo trips): median {resume_med:.2f} s of {COLD_RUNS} "
+        f"(min {min(resume):.2f}, max {max(resume):.2f}); ratio to the empty-store start "
+        f"{resume_med / cold_med:.2f}"
+    )
     print(f"load average during the run: {os.getloadavg()[0]:.1f} on {os.cpu_count()} CPUs")
-    print(f"keystroke to updated saturation: median {key_med:.1f} ms of {len(keys)} "
-          f"(max {max(keys):.1f}); target <= 50 ms; ratio to target {key_med / 50:.2f}; "
-          f"saturation changed on {changed} of {len(keys)} keystrokes")
+    print(
+        f"keystroke to updated saturation: median {key_med:.1f} ms of {len(keys)} "
+        f"(max {max(keys):.1f}); target <= 50 ms; ratio to target {key_med / 50:.2f}; "
+        f"saturation changed on {changed} of {len(keys)} keystrokes"
+    )
     return 0 if max(cold_med, resume_med) <= 2.0 and key_med <= 50 else 1
 
 

@@ -11,6 +11,7 @@ Every ratio is measured in one run, the two sides interleaved. Stores and the hu
 /dev/shm when it is there (the setup saves 10,000 trips; on a disk that alone takes many minutes).
 ``STREAMTAB_BENCH_HUB_TRIPS`` changes the number of trips (default 10,000).
 """
+
 from __future__ import annotations
 
 import gc
@@ -25,28 +26,44 @@ from pathlib import Path
 N_TRIPS = int(os.environ.get("STREAMTAB_BENCH_HUB_TRIPS", "10000"))
 STOPS = 10
 REPEATS = 7
-SITES = [("LK-01", "Mill Ford", 212.0, "warm"), ("LK-02", "Heron Bend", 248.0, "warm"),
-         ("LK-03", "Alder Gauge", 395.0, "cold"), ("LK-04", "Culvert Lane", 186.0, "warm"),
-         ("LK-05", "Tamsin Falls Pool", 520.0, "cold")]
+SITES = [
+    ("LK-01", "Mill Ford", 212.0, "warm"),
+    ("LK-02", "Heron Bend", 248.0, "warm"),
+    ("LK-03", "Alder Gauge", 395.0, "cold"),
+    ("LK-04", "Culvert Lane", 186.0, "warm"),
+    ("LK-05", "Tamsin Falls Pool", 520.0, "cold"),
+]
 
 
 def _scratch() -> str:
     shm = Path("/dev/shm")
-    return tempfile.mkdtemp(prefix="streamtab-bench-office-",
-                            dir=str(shm) if shm.is_dir() and os.access(shm, os.W_OK) else None)
+    return tempfile.mkdtemp(
+        prefix="streamtab-bench-office-", dir=str(shm) if shm.is_dir() and os.access(shm, os.W_OK) else None
+    )
 
 
 def _trip(n: int):
     from core.records.models import Stop, Trip, measure
 
     start = datetime(2024 + n % 3, 5 + n % 5, 1 + n % 28, 8, 0, tzinfo=timezone.utc)
-    stops = [Stop(site_id=SITES[k % len(SITES)][0], arrived_at=start + timedelta(minutes=30 * (k + 1)),
-                  temp=measure("temp", f"{10 + (n + k) % 12}.5 C"), pressure=measure("pressure", "990 hPa"),
-                  conductivity=measure("conductivity", f"{200 + (n + k) % 90} uS/cm"),
-                  do=measure("do", f"{4 + (n * 7 + k) % 60 / 10:.1f} mg/L"))
-             for k in range(STOPS)]
-    return Trip(program="Tamsin Valley Stream Watch (bench)", crew=["R.O.", "J.V."], started_at=start,
-                ended_at=start + timedelta(hours=7), stops=stops)
+    stops = [
+        Stop(
+            site_id=SITES[k % len(SITES)][0],
+            arrived_at=start + timedelta(minutes=30 * (k + 1)),
+            temp=measure("temp", f"{10 + (n + k) % 12}.5 C"),
+            pressure=measure("pressure", "990 hPa"),
+            conductivity=measure("conductivity", f"{200 + (n + k) % 90} uS/cm"),
+            do=measure("do", f"{4 + (n * 7 + k) % 60 / 10:.1f} mg/L"),
+        )
+        for k in range(STOPS)
+    ]
+    return Trip(
+        program="Tamsin Valley Stream Watch (bench)",
+        crew=["R.O.", "J.V."],
+        started_at=start,
+        ended_at=start + timedelta(hours=7),
+        stops=stops,
+    )
 
 
 def _store(path: Path, device: str, n: int):
@@ -91,15 +108,14 @@ def bench_pull(tmp: Path, crew, ids: list[str]) -> None:
     try:
         hub = server.root / "hub"
         t0 = time.perf_counter()
-        assert sync.push(crew, str(hub)).pushed == len(ids)    # through the folder wsgidav serves
+        assert sync.push(crew, str(hub)).pushed == len(ids)  # through the folder wsgidav serves
         print(f"setup: {len(ids)} trips put on the hub (folder push) in {time.perf_counter() - t0:.1f} s")
         office_dir = tmp / "office"
         shutil.copytree(crew.data_dir, office_dir, ignore=shutil.ignore_patterns("sync"))
         office = DeviceStore.open(office_dir, "office-desk")
         report, n_req, elapsed = _pull(office, server.url)
         assert report.failed == 0 and report.listed == "walk", report.to_dict()
-        print(f"first pull of {len(ids)} trips (walk, Depth: infinity refused): {n_req} requests, "
-              f"{elapsed:.1f} s")
+        print(f"first pull of {len(ids)} trips (walk, Depth: infinity refused): {n_req} requests, {elapsed:.1f} s")
 
         big_t, big_n, one_t, one_n = [], [], [], []
         for i in range(REPEATS):
@@ -128,10 +144,13 @@ def bench_pull(tmp: Path, crew, ids: list[str]) -> None:
             one_n.append(n_req)
     finally:
         server.stop()
-    print(f"pull, {len(ids)} trips on the hub, 1 changed: median {_ms(big_t):.1f} ms, requests "
-          f"{statistics.median(big_n):g} (max {max(big_n)}; target ≤ 5)")
-    print(f"pull, hub holding that 1 trip, 1 changed:   median {_ms(one_t):.1f} ms, requests "
-          f"{statistics.median(one_n):g}")
+    print(
+        f"pull, {len(ids)} trips on the hub, 1 changed: median {_ms(big_t):.1f} ms, requests "
+        f"{statistics.median(big_n):g} (max {max(big_n)}; target ≤ 5)"
+    )
+    print(
+        f"pull, hub holding that 1 trip, 1 changed:   median {_ms(one_t):.1f} ms, requests {statistics.median(one_n):g}"
+    )
     print(f"ratio: {statistics.median(big_t) / statistics.median(one_t):.2f} (target ≤ 1.5)")
 
 
@@ -149,14 +168,13 @@ def bench_archive(tmp: Path, crew, ids: list[str]) -> None:
         report = archive.load(crew, db)
         first = time.perf_counter() - t0
         assert report.loaded == len(ids), report.to_dict()
-        print(f"archive first load: {len(ids)} trips of {STOPS} stops in {first:.1f} s, "
-              f"{len(ids) / first:.0f} trips/s")
+        print(f"archive first load: {len(ids)} trips of {STOPS} stops in {first:.1f} s, {len(ids) / first:.0f} trips/s")
 
         inc_t, one_t = [], []
         for i in range(REPEATS):
             tid = ids[(i * 104729) % len(ids)]
             _edit(crew, tid, f"archive edit {i}")
-            fresh = DeviceStore.open(crew.data_dir, crew.device_id)     # as the command line opens it
+            fresh = DeviceStore.open(crew.data_dir, crew.device_id)  # as the command line opens it
             t0 = time.perf_counter()
             report = archive.load(fresh, db)
             inc_t.append(time.perf_counter() - t0)
@@ -164,7 +182,7 @@ def bench_archive(tmp: Path, crew, ids: list[str]) -> None:
 
             empty = pg.create_database(f"one_{i}")
             with psycopg.connect(empty) as conn:
-                archive.migrate(conn)                    # an empty archive: its schema, no trips
+                archive.migrate(conn)  # an empty archive: its schema, no trips
             solo = DeviceStore.open(tmp / f"archive-solo-{i}", f"bench-archive-solo-{i}")
             solo.put_document(crew.trip_document(tid), "bench copy")
             solo = DeviceStore.open(solo.data_dir, solo.device_id)
@@ -186,8 +204,10 @@ def bench_archive(tmp: Path, crew, ids: list[str]) -> None:
                 archive.season_summary(None, season=2025, conn=conn)
                 q_season.append(time.perf_counter() - t0)
         assert sum(r["visits"] for r in rows) == len(ids) * STOPS
-        print(f"season summary, every season and site ({len(ids) * STOPS} visits): median {_ms(q_all):.1f} ms; "
-              f"one season: median {_ms(q_season):.1f} ms (target ≤ 100 ms)")
+        print(
+            f"season summary, every season and site ({len(ids) * STOPS} visits): median {_ms(q_all):.1f} ms; "
+            f"one season: median {_ms(q_season):.1f} ms (target ≤ 100 ms)"
+        )
 
 
 def main() -> int:

@@ -1,4 +1,5 @@
 """Benchmark of DO saturation: scalar µs/call, and 1,000,000 points against gsw.O2sol_SP_pt on the same arrays."""
+
 from __future__ import annotations
 
 import statistics
@@ -72,8 +73,10 @@ def main() -> int:
     print(f"  {'gsw.O2sol_SP_pt(S, t) [µmol/kg, 1 atm]':40s} {statistics.median(ref_times) * 1e3:8.2f} ms  (reference)")
     for label, _ in cases:
         ratio = statistics.median(ratios[label])
-        print(f"  {label:40s} {statistics.median(ours[label]) * 1e3:8.2f} ms  ratio {ratio:5.2f} x gsw"
-              f"  (target <= 1.5: {'ok' if ratio <= 1.5 else 'MISSED'})")
+        print(
+            f"  {label:40s} {statistics.median(ours[label]) * 1e3:8.2f} ms  ratio {ratio:5.2f} x gsw"
+            f"  (target <= 1.5: {'ok' if ratio <= 1.5 else 'MISSED'})"
+        )
     return 0
 
 

@@ -1,4 +1,5 @@
 """Device-store benchmark: time to save one stop with 1 trip on the device vs 500 trips × 25 stops."""
+
 from __future__ import annotations
 
 import random
@@ -25,18 +26,28 @@ def _q(value: float, unit: str) -> Quantity:
 
 
 def _trip(rnd: random.Random) -> Trip:
-    stops = [Stop(site_id=f"LK-0{1 + i % 5}", arrived_at=T0 + timedelta(minutes=20 * i),
-                  temp=_q(round(rnd.uniform(8, 22), 1), "°C"), pressure=_q(round(rnd.uniform(960, 1000), 1), "hPa"),
-                  conductivity=_q(round(rnd.uniform(150, 450)), "µS/cm"), do=_q(round(rnd.uniform(7, 11), 2), "mg/L"),
-                  notes="riffle, clear water", weather="clear", flow="normal")
-             for i in range(STOPS_PER_TRIP)]
+    stops = [
+        Stop(
+            site_id=f"LK-0{1 + i % 5}",
+            arrived_at=T0 + timedelta(minutes=20 * i),
+            temp=_q(round(rnd.uniform(8, 22), 1), "°C"),
+            pressure=_q(round(rnd.uniform(960, 1000), 1), "hPa"),
+            conductivity=_q(round(rnd.uniform(150, 450)), "µS/cm"),
+            do=_q(round(rnd.uniform(7, 11), 2), "mg/L"),
+            notes="riffle, clear water",
+            weather="clear",
+            flow="normal",
+        )
+        for i in range(STOPS_PER_TRIP)
+    ]
     return Trip(started_at=T0, program="Tamsin Valley Stream Watch", crew=["R.O.", "J.V."], stops=stops)
 
 
 def _device(root: Path, trips: int, rnd: random.Random) -> tuple[DeviceStore, str]:
     store = DeviceStore.open(root, device_id=f"bench-{trips}")
-    store.save_sites([Site(id=f"LK-0{k}", name=f"Site {k}", elevation_m=200.0 + 50 * k, water_class="warm")
-                      for k in range(1, 6)])
+    store.save_sites(
+        [Site(id=f"LK-0{k}", name=f"Site {k}", elevation_m=200.0 + 50 * k, water_class="warm") for k in range(1, 6)]
+    )
     last = ""
     for _ in range(trips):
         last = store.save_trip(_trip(rnd), "bench trip").id
@@ -98,10 +109,15 @@ def main() -> int:
     print(f"store: save one stop ({STOPS_PER_TRIP} stops per trip), {SAVES} saves each, setup {setup_s:.1f} s")
     for name, (med, p95) in rows.items():
         print(f"  {name:>10}: median {med:6.2f} ms   p95 {p95:6.2f} ms")
-    print(f"  disk alone: one atomic write of the {len(blob) // 1024} KiB trip file: median "
-          f"{statistics.median(disk):.2f} ms   p95 {_percentile(disk, 0.95):.2f} ms (a save makes one, plus an unsynced index entry)")
-    print(f"  RAM-backed folder (store work without disk latency), 1 trip: median "
-          f"{statistics.median(ram_times):.2f} ms   p95 {_percentile(ram_times, 0.95):.2f} ms")
+    print(
+        f"  disk alone: one atomic write of the {len(blob) // 1024} KiB trip file: median "
+        f"{statistics.median(disk):.2f} ms   p95 {_percentile(disk, 0.95):.2f} ms"
+        " (a save makes one, plus an unsynced index entry)"
+    )
+    print(
+        f"  RAM-backed folder (store work without disk latency), 1 trip: median "
+        f"{statistics.median(ram_times):.2f} ms   p95 {_percentile(ram_times, 0.95):.2f} ms"
+    )
     ratio_med, ratio_p95 = mn / m1, pn / p1
     print(f"  ratio {MANY_TRIPS} trips / 1 trip: median {ratio_med:.2f}   p95 {ratio_p95:.2f}")
     ok = max(p1, pn) <= TARGET_P95_MS and ratio_med <= TARGET_RATIO

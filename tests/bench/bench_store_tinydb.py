@@ -5,6 +5,7 @@ TinyDB the table it has just read under the lock). The reference, measured in th
 same save with the layout ``{"trip": {"1": doc}}`` written by hand. Both interleaved, on disk and in
 a RAM-backed folder (the store's own work without disk latency); medians and ratios.
 """
+
 from __future__ import annotations
 
 import random

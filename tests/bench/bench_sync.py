@@ -1,6 +1,7 @@
 """Sync benchmark: a push with 500 trips on the hub and one changed (HTTP requests and wall time,
 as a ratio to pushing one trip to an empty hub, measured in the same run), and the throughput
 of a first push of 500 trips. WebDAV is a real wsgidav server on 127.0.0.1."""
+
 from __future__ import annotations
 
 import os
@@ -46,9 +47,11 @@ def main() -> int:
             # throughput of a first push of N trips
             report, requests_first, elapsed_first = _push(big, server.url)
             assert report.pushed == N_TRIPS, report.to_dict()
-            print(f"first push of {N_TRIPS} trips: {elapsed_first:.2f} s, "
-                  f"{N_TRIPS / elapsed_first:.1f} trips/s, {requests_first} requests "
-                  f"({requests_first / N_TRIPS:.2f} per trip)")
+            print(
+                f"first push of {N_TRIPS} trips: {elapsed_first:.2f} s, "
+                f"{N_TRIPS / elapsed_first:.1f} trips/s, {requests_first} requests "
+                f"({requests_first / N_TRIPS:.2f} per trip)"
+            )
 
             # one trip changed with N on the hub, and one trip to an empty hub (a fresh hub
             # collection and device each time), interleaved so that load on the machine falls on both
@@ -74,10 +77,15 @@ def main() -> int:
 
     med_changed = statistics.median(changed_times)
     med_single = statistics.median(single_times)
-    print(f"push, {N_TRIPS} on the hub, 1 changed: median {med_changed * 1000:.1f} ms, "
-          f"requests {statistics.median(changed_requests):g} (max {max(changed_requests)}; target ≤ 3, + 1 for the change log entry)")
-    print(f"push, 1 trip to an empty hub:        median {med_single * 1000:.1f} ms, "
-          f"requests {statistics.median(single_requests):g}")
+    print(
+        f"push, {N_TRIPS} on the hub, 1 changed: median {med_changed * 1000:.1f} ms, "
+        f"requests {statistics.median(changed_requests):g} (max {max(changed_requests)};"
+        " target ≤ 3, + 1 for the change log entry)"
+    )
+    print(
+        f"push, 1 trip to an empty hub:        median {med_single * 1000:.1f} ms, "
+        f"requests {statistics.median(single_requests):g}"
+    )
     print(f"ratio (changed-of-{N_TRIPS} / one-to-empty): {med_changed / med_single:.2f} (target ≤ 1.5)")
     return 0
 

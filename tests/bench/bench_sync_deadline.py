@@ -1,6 +1,7 @@
 """Cost of the per-request deadline (sync.session): a GET to a real wsgidav server on 127.0.0.1 with
 the deadline watch, against the same GET with the watch replaced by a no-op, in the same run
 (medians of alternating rounds; target: ratio ≤ 1.1)."""
+
 from __future__ import annotations
 
 import statistics
@@ -35,7 +36,7 @@ def _per_request_ms(url: str) -> float:
     from tests.sync.conftest import dav_session
 
     session = dav_session("bench")
-    session.request("GET", url).close()                # connection made outside the timing
+    session.request("GET", url).close()  # connection made outside the timing
     t0 = time.perf_counter()
     for _ in range(REQUESTS):
         session.request("GET", url).close()
@@ -62,6 +63,8 @@ def main() -> int:
         session_module._Watch = real
         server.stop()
     with_watch, without = statistics.median(timed["deadline"]), statistics.median(timed["none"])
-    print(f"GET with the request deadline: median {with_watch:.3f} ms; without: {without:.3f} ms; "
-          f"ratio {with_watch / without:.2f} (target ≤ 1.1)")
+    print(
+        f"GET with the request deadline: median {with_watch:.3f} ms; without: {without:.3f} ms; "
+        f"ratio {with_watch / without:.2f} (target ≤ 1.1)"
+    )
     return 0

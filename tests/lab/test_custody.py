@@ -1,4 +1,5 @@
 """Chain of custody: hand-offs on trip records, gaps, the lab's receipt, signatures through sync and the CLI."""
+
 from __future__ import annotations
 
 import json
@@ -10,7 +11,7 @@ import sync
 from core.records.models import Bottle, CustodyRecord, Signature, Stop, Trip, measure
 from core.rules.custody import CustodyInputError, add_handoff, custody_chains, same_person, sign_handoff
 from tests.conftest import ROOT
-from tests.lab.test_lab_cli import LOWER, data, lab, one_line_error, ok_json, run_cli, seeded  # noqa: F401
+from tests.lab.test_lab_cli import LOWER, data, lab, ok_json, one_line_error, run_cli, seeded  # noqa: F401
 from tests.sync.conftest import dav, dav_session, open_store  # noqa: F401
 
 T0 = datetime(2026, 7, 7, 8, 0, tzinfo=timezone(timedelta(hours=-7)))
@@ -19,10 +20,16 @@ NOW = T0 + timedelta(days=1)
 
 def _trip() -> Trip:
     """An invented trip: one stop with a do-fixed, a bod and a blank bottle."""
-    bottles = [Bottle(label="TV-0901", kind="do-fixed", collected_at=T0 + timedelta(minutes=20),
-                      fixed_at=T0 + timedelta(minutes=22)),
-               Bottle(label="TV-0902", kind="bod", collected_at=T0 + timedelta(minutes=20)),
-               Bottle(label="TV-0903", kind="blank", collected_at=T0 + timedelta(minutes=25))]
+    bottles = [
+        Bottle(
+            label="TV-0901",
+            kind="do-fixed",
+            collected_at=T0 + timedelta(minutes=20),
+            fixed_at=T0 + timedelta(minutes=22),
+        ),
+        Bottle(label="TV-0902", kind="bod", collected_at=T0 + timedelta(minutes=20)),
+        Bottle(label="TV-0903", kind="blank", collected_at=T0 + timedelta(minutes=25)),
+    ]
     stop = Stop(site_id="LK-01", arrived_at=T0 + timedelta(minutes=10), bottles=bottles)
     return Trip(program="Tamsin Valley Stream Watch", crew=["R.O."], started_at=T0, stops=[stop])
 
@@ -33,14 +40,16 @@ def _codes(trip: Trip, label: str) -> set[str]:
 
 
 def _hand(trip, giver, taker, minutes, **kw):
-    return add_handoff(trip, relinquished_by=giver, received_by=taker, at=T0 + timedelta(minutes=minutes),
-                       now=NOW, **kw).trip
+    return add_handoff(
+        trip, relinquished_by=giver, received_by=taker, at=T0 + timedelta(minutes=minutes), now=NOW, **kw
+    ).trip
 
 
 def test_a_complete_chain_received_cold_has_no_warning():
     t = _hand(_trip(), "R.O.", "Courier K", 120)
-    t = _hand(t, "Courier K", "Lab desk M.T.", 200, at_lab=True, temp=measure("temp", "4.2 C"),
-              condition="intact, on ice")
+    t = _hand(
+        t, "Courier K", "Lab desk M.T.", 200, at_lab=True, temp=measure("temp", "4.2 C"), condition="intact, on ice"
+    )
     for label in ("TV-0901", "TV-0902", "TV-0903"):
         assert _codes(t, label) == {"custody.unsigned"}, label
     chain = next(c for c in custody_chains(t) if c.bottle.label == "TV-0902")
@@ -67,13 +76,20 @@ def test_no_receipt_at_the_lab_is_flagged_and_no_record_at_all_too():
     assert {"custody.none", "custody.no_lab_receipt"} <= _codes(t, "TV-0902")
 
 
-@pytest.mark.parametrize("text, code", [
-    # BOD: cool to ≤ 6 °C, do not freeze — US 40 CFR 136.3 Table II (from memory); common practice.
-    ("6.0 C", None), ("4.2 C", None), ("0.5 C", None),
-    ("6.3 C", "custody.receipt_warm"), ("11 C", "custody.receipt_warm"),
-    ("0 C", "custody.receipt_frozen"), ("-1.5 C", "custody.receipt_frozen"),
-    ("45 F", "custody.receipt_warm"),   # 7.2 °C
-])
+@pytest.mark.parametrize(
+    "text, code",
+    [
+        # BOD: cool to ≤ 6 °C, do not freeze — US 40 CFR 136.3 Table II (from memory); common practice.
+        ("6.0 C", None),
+        ("4.2 C", None),
+        ("0.5 C", None),
+        ("6.3 C", "custody.receipt_warm"),
+        ("11 C", "custody.receipt_warm"),
+        ("0 C", "custody.receipt_frozen"),
+        ("-1.5 C", "custody.receipt_frozen"),
+        ("45 F", "custody.receipt_warm"),  # 7.2 °C
+    ],
+)
 def test_bod_temperature_on_receipt(text, code):
     t = _hand(_trip(), "R.O.", "Lab desk", 90, at_lab=True, temp=measure("temp", text))
     found = _codes(t, "TV-0902") & {"custody.receipt_warm", "custody.receipt_frozen"}
@@ -88,15 +104,18 @@ def test_bod_received_without_a_temperature_gets_a_note():
     assert "custody.receipt_temp_missing" not in _codes(t, "TV-0901")
 
 
-@pytest.mark.parametrize("kw, field", [
-    (dict(relinquished_by=" ", received_by="B"), "relinquished_by"),
-    (dict(relinquished_by="A", received_by=""), "received_by"),
-    (dict(relinquished_by="R. O.", received_by="r.o."), "received_by"),
-    (dict(at=NOW + timedelta(hours=1)), "at"),
-    (dict(at=T0), "at"),                              # before the bottles were collected
-    (dict(bottle_refs=["TV-9999"]), "bottles"),
-    (dict(at=datetime(2026, 7, 7, 12, 0)), "at"),     # no time zone
-])
+@pytest.mark.parametrize(
+    "kw, field",
+    [
+        (dict(relinquished_by=" ", received_by="B"), "relinquished_by"),
+        (dict(relinquished_by="A", received_by=""), "received_by"),
+        (dict(relinquished_by="R. O.", received_by="r.o."), "received_by"),
+        (dict(at=NOW + timedelta(hours=1)), "at"),
+        (dict(at=T0), "at"),  # before the bottles were collected
+        (dict(bottle_refs=["TV-9999"]), "bottles"),
+        (dict(at=datetime(2026, 7, 7, 12, 0)), "at"),  # no time zone
+    ],
+)
 def test_a_bad_hand_off_is_refused_and_names_the_input(kw, field):
     args = dict(relinquished_by="A", received_by="B", at=T0 + timedelta(hours=2), now=NOW) | kw
     trip = _trip()
@@ -140,9 +159,18 @@ def test_a_signature_round_trips_through_sync(tmp_path, dav):  # noqa: F811 - fi
     tablet = open_store(tmp_path / "tablet", "tablet-A")
     office = open_store(tmp_path / "office", "office-desk")
     trip = tablet.save_trip(_trip(), "trip with bottles")
-    out = add_handoff(trip, relinquished_by="R.O.", received_by="Lab desk", at=T0 + timedelta(hours=3), now=NOW,
-                      at_lab=True, temp=measure("temp", "3.9 C"), condition="intact",
-                      relinquished_signature=_sig("R.O."), received_signature=_sig("Lab desk", 300))
+    out = add_handoff(
+        trip,
+        relinquished_by="R.O.",
+        received_by="Lab desk",
+        at=T0 + timedelta(hours=3),
+        now=NOW,
+        at_lab=True,
+        temp=measure("temp", "3.9 C"),
+        condition="intact",
+        relinquished_signature=_sig("R.O."),
+        received_signature=_sig("Lab desk", 300),
+    )
     tablet.save_trip(out.trip, "custody signed on the tablet")
     assert sync.push(tablet, dav.url, session=dav_session("tablet-A")).pushed == 1
     assert sync.pull(office, dav.url, session=dav_session("office-desk")).pulled == 1
@@ -159,30 +187,63 @@ def custody(*args, data_dir):
 
 
 def test_cli_add_and_list_a_chain_with_a_gap(data):  # noqa: F811 - fixture
-    r = ok_json(custody("add", LOWER[:8], "--from", "R.O.", "--to", "Courier K", "--at", "2026-06-09T12:00-07:00",
-                        "--json", data_dir=data))
+    r = ok_json(
+        custody(
+            "add",
+            LOWER[:8],
+            "--from",
+            "R.O.",
+            "--to",
+            "Courier K",
+            "--at",
+            "2026-06-09T12:00-07:00",
+            "--json",
+            data_dir=data,
+        )
+    )
     assert r["signed"] is False and set(r["bottles"]) == {"TV-0611", "TV-0612", "TV-0613", "TV-0614"}
-    ok_json(custody("add", LOWER[:8], "--from", "Courier Z", "--to", "Lab desk", "--lab", "--temp", "7.5 C",
-                    "--condition", "intact", "--bottles", "TV-0611,TV-0612", "--at", "2026-06-09T13:00-07:00",
-                    "--json", data_dir=data))
+    ok_json(
+        custody(
+            "add",
+            LOWER[:8],
+            "--from",
+            "Courier Z",
+            "--to",
+            "Lab desk",
+            "--lab",
+            "--temp",
+            "7.5 C",
+            "--condition",
+            "intact",
+            "--bottles",
+            "TV-0611,TV-0612",
+            "--at",
+            "2026-06-09T13:00-07:00",
+            "--json",
+            data_dir=data,
+        )
+    )
     listed = ok_json(custody("list", LOWER[:8], "--json", data_dir=data))
     assert [h["received_by"] for h in listed["handoffs"]] == ["Courier K", "Lab desk"]
     assert listed["handoffs"][1]["bottle_labels"] == ["TV-0611", "TV-0612"]
     codes = {b["label"]: {f["code"] for f in b["flags"]} for b in listed["bottles"]}
     assert "custody.gap" in codes["TV-0611"]
-    assert "custody.receipt_warm" in codes["TV-0612"]           # BOD at 7.5 °C > 6 °C (40 CFR 136.3, from memory)
+    assert "custody.receipt_warm" in codes["TV-0612"]  # BOD at 7.5 °C > 6 °C (40 CFR 136.3, from memory)
     assert "custody.no_lab_receipt" in codes["TV-0613"]
     text = custody("list", LOWER[:8], data_dir=data).stdout
     assert "R.O. → Courier K" in text and "7.5 °C on receipt" in text and "unsigned" in text
 
 
-@pytest.mark.parametrize("args, words", [
-    (("--from", "A", "--to", "a"), ("--to", "another person")),
-    (("--from", "A", "--to", "B", "--temp", "warm"), ("--temp", "4.2 C")),
-    (("--from", "A", "--to", "B", "--at", "2026-06-09 12:00"), ("--at", "time zone")),
-    (("--from", "A", "--to", "B", "--bottles", "NOPE-1"), ("--bottles", "TV-0611")),
-    (("--from", "A", "--to", "B", "--at", "2026-06-01T12:00Z"), ("--at", "before bottle")),
-])
+@pytest.mark.parametrize(
+    "args, words",
+    [
+        (("--from", "A", "--to", "a"), ("--to", "another person")),
+        (("--from", "A", "--to", "B", "--temp", "warm"), ("--temp", "4.2 C")),
+        (("--from", "A", "--to", "B", "--at", "2026-06-09 12:00"), ("--at", "time zone")),
+        (("--from", "A", "--to", "B", "--bottles", "NOPE-1"), ("--bottles", "TV-0611")),
+        (("--from", "A", "--to", "B", "--at", "2026-06-01T12:00Z"), ("--at", "before bottle")),
+    ],
+)
 def test_cli_refuses_a_bad_hand_off_in_one_line_and_saves_nothing(data, args, words):  # noqa: F811
     before = ok_json(custody("list", LOWER[:8], "--json", data_dir=data))
     one_line_error(custody("add", LOWER[:8], *args, data_dir=data), *words)
@@ -206,6 +267,6 @@ def test_a_duplicate_follows_the_bottle_it_names_on_the_custody_page():
     # 40 CFR 136.3 Table II (from memory): Winkler DO 8 h, BOD 48 h, both counted from collection.
     assert rows["TV-0904"].deadline == dup.collected_at + timedelta(hours=8)
     assert rows["TV-0904"].holding_rule == "8 h from collection"
-    assert rows["TV-0901"].holding_rule == "8 h from collection"   # fixed on site; the clock runs from collection
+    assert rows["TV-0901"].holding_rule == "8 h from collection"  # fixed on site; the clock runs from collection
     assert rows["TV-0902"].holding_rule == "48 h from collection"
     assert rows["TV-0903"].deadline is None

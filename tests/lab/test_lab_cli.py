@@ -1,4 +1,5 @@
 """`streamtab lab ...` through the real CLI on a real device store seeded from sample_trips/."""
+
 from __future__ import annotations
 
 import json
@@ -12,10 +13,10 @@ from core.store import DeviceStore
 from tests.conftest import ROOT, run_cli
 
 SAMPLES = ROOT / "sample_trips"
-HOT = "a41f6e2d-8c3b-4d7a-b5e9-0c6d2f8e1a34"      # sample trip of 2026-06-23 (invented)
-UPPER = "c9e2d4b7-6a1f-4e3c-8d2b-5f7a9c1e0d68"    # sample trip of 2026-06-30, in progress (invented)
-LOWER = "5d7c2b0e-1f4a-4c8e-9b6d-3a2e1f0c9b71"    # sample trip of 2026-06-09, results already in
-AT = "2026-06-23T14:00-07:00"                     # 6.5 h after TV-0701 was fixed at LK-04
+HOT = "a41f6e2d-8c3b-4d7a-b5e9-0c6d2f8e1a34"  # sample trip of 2026-06-23 (invented)
+UPPER = "c9e2d4b7-6a1f-4e3c-8d2b-5f7a9c1e0d68"  # sample trip of 2026-06-30, in progress (invented)
+LOWER = "5d7c2b0e-1f4a-4c8e-9b6d-3a2e1f0c9b71"  # sample trip of 2026-06-09, results already in
+AT = "2026-06-23T14:00-07:00"  # 6.5 h after TV-0701 was fixed at LK-04
 CAUTION_WORDS = ("sulfuric acid", "alkali-iodide-azide", "SOP", "safety data sheets")
 
 # 200 mL original: titrate 200 × 300/298 mL (Standard Methods 4500-O C, from memory).
@@ -24,21 +25,42 @@ TITRATED_200 = f"{200 * 300 / 298:.6f}"
 
 def _dup_trip() -> dict:
     """A small invented trip with a do-fixed bottle and its field duplicate at LK-01."""
+
     def bottle(label, kind):
-        return {"id": str(uuid.uuid4()), "label": label, "kind": kind, "collected_at": "2026-07-07T08:20:00-07:00",
-                "fixed_at": "2026-07-07T08:22:00-07:00", "preservation": "fixed on site", "notes": "",
-                "lab_results": []}
+        return {
+            "id": str(uuid.uuid4()),
+            "label": label,
+            "kind": kind,
+            "collected_at": "2026-07-07T08:20:00-07:00",
+            "fixed_at": "2026-07-07T08:22:00-07:00",
+            "preservation": "fixed on site",
+            "notes": "",
+            "lab_results": [],
+        }
 
     def q(text, value, unit, entered_unit):
         return {"text": text, "entered_value": value, "entered_unit": entered_unit, "value": value, "unit": unit}
 
-    return {"id": "7f3e9a12-0b4c-4d5e-8f6a-1b2c3d4e5f60", "schema_version": 2, "revision": 0,
-            "program": "Tamsin Valley Stream Watch", "crew": ["R.O."], "started_at": "2026-07-07T07:50:00-07:00",
-            "ended_at": "2026-07-07T10:00:00-07:00",
-            "stops": [{"id": str(uuid.uuid4()), "site_id": "LK-01", "arrived_at": "2026-07-07T08:10:00-07:00",
-                       "temp": q("16.0", 16.0, "°C", "C"), "pressure": q("990 hPa", 990.0, "hPa", "hPa"),
-                       "do": q("8.9", 8.9, "mg/L", "mg/L"),
-                       "bottles": [bottle("TV-0901", "do-fixed"), bottle("TV-0901D", "duplicate")]}]}
+    return {
+        "id": "7f3e9a12-0b4c-4d5e-8f6a-1b2c3d4e5f60",
+        "schema_version": 2,
+        "revision": 0,
+        "program": "Tamsin Valley Stream Watch",
+        "crew": ["R.O."],
+        "started_at": "2026-07-07T07:50:00-07:00",
+        "ended_at": "2026-07-07T10:00:00-07:00",
+        "stops": [
+            {
+                "id": str(uuid.uuid4()),
+                "site_id": "LK-01",
+                "arrived_at": "2026-07-07T08:10:00-07:00",
+                "temp": q("16.0", 16.0, "°C", "C"),
+                "pressure": q("990 hPa", 990.0, "hPa", "hPa"),
+                "do": q("8.9", 8.9, "mg/L", "mg/L"),
+                "bottles": [bottle("TV-0901", "do-fixed"), bottle("TV-0901D", "duplicate")],
+            }
+        ],
+    }
 
 
 @pytest.fixture(scope="module")
@@ -82,8 +104,22 @@ def one_line_error(r, *words):
 
 
 def winkler_args(*extra, trip=HOT[:8], label="TV-0701", titrant="12,1"):
-    return ("winkler", trip, label, "--titrant-ml", titrant, "--normality", "0.025", "--titrated-ml", "201",
-            "--at", AT, "--analyst", "J.V.", *extra)
+    return (
+        "winkler",
+        trip,
+        label,
+        "--titrant-ml",
+        titrant,
+        "--normality",
+        "0.025",
+        "--titrated-ml",
+        "201",
+        "--at",
+        AT,
+        "--analyst",
+        "J.V.",
+        *extra,
+    )
 
 
 def test_winkler_saved_on_the_trip(data):
@@ -98,11 +134,11 @@ def test_winkler_saved_on_the_trip(data):
     codes = [f["code"] for f in out["flags"]]
     # LK-04 meter read 12.9 mg/L (sample trip): beyond 0.5 mg/L (common practice) of the titration.
     assert "lab.meter_disagrees" in codes and "lab.duplicate_label" in codes
-    trip = DeviceStore.open(data).load_trip(HOT)                # what the real store holds
+    trip = DeviceStore.open(data).load_trip(HOT)  # what the real store holds
     b = next(b for s in trip.stops for b in s.bottles if b.label == "TV-0701" and b.kind == "do-fixed")
     [r] = b.lab_results
     assert r.id == out["result"]["id"] and r.value == pytest.approx(expected)
-    assert r.inputs["entered"]["titrant_ml"] == "12,1"        # kept as typed
+    assert r.inputs["entered"]["titrant_ml"] == "12,1"  # kept as typed
     assert r.analyst == "J.V." and "4500-O C" in r.method
     assert "Winkler" in trip.audit[-1].change and trip.revision == 2
 
@@ -130,9 +166,25 @@ def test_retitration_keeps_both_results(data):
 
 def test_standardisation_as_normality_source(data):
     # Standard Methods 4500-O C [from memory]: N = 0.025 × 20.00 / V_titrant.
-    out = ok_json(lab("winkler", UPPER[:8], "TV-0721", "--titrant-ml", "8.0", "--std-titrant-ml", "19.8",
-                      "--standardised-at", "2026-06-30T08:00-07:00", "--titrated-ml", TITRATED_200,
-                      "--at", "2026-06-30T12:00-07:00", "--json", data_dir=data))
+    out = ok_json(
+        lab(
+            "winkler",
+            UPPER[:8],
+            "TV-0721",
+            "--titrant-ml",
+            "8.0",
+            "--std-titrant-ml",
+            "19.8",
+            "--standardised-at",
+            "2026-06-30T08:00-07:00",
+            "--titrated-ml",
+            TITRATED_200,
+            "--at",
+            "2026-06-30T12:00-07:00",
+            "--json",
+            data_dir=data,
+        )
+    )
     n = 0.025 * 20.0 / 19.8
     assert out["normality"] == pytest.approx(n)
     assert out["do_mg_l"] == pytest.approx(8.0 * n * 8000 / 200.0)
@@ -140,8 +192,23 @@ def test_standardisation_as_normality_source(data):
 
 
 def test_holding_exceeded_marks_invalid(data):
-    out = ok_json(lab("winkler", HOT[:8], "TV-0701", "--titrant-ml", "12.9", "--normality", "0.025",
-                      "--titrated-ml", TITRATED_200, "--at", "2026-06-23T16:00-07:00", "--json", data_dir=data))
+    out = ok_json(
+        lab(
+            "winkler",
+            HOT[:8],
+            "TV-0701",
+            "--titrant-ml",
+            "12.9",
+            "--normality",
+            "0.025",
+            "--titrated-ml",
+            TITRATED_200,
+            "--at",
+            "2026-06-23T16:00-07:00",
+            "--json",
+            data_dir=data,
+        )
+    )
     # US 40 CFR 136.3 Table II [from memory]: 8 h from collection (07:25) → 15:25.
     assert "lab.holding_exceeded" in [f["code"] for f in out["flags"]] and out["valid"] is False
 
@@ -165,17 +232,43 @@ def test_pending_lists_and_then_drops_a_bottle(data):
 def test_pending_today_everything_expired(data):
     out = ok_json(lab("pending", "--json", data_dir=data))
     assert out["count"] == len(out["bottles"]) >= 4
-    assert all(b["expired"] for b in out["bottles"])          # the sample trips are from June 2026
+    assert all(b["expired"] for b in out["bottles"])  # the sample trips are from June 2026
     assert all(b["label"] not in ("TV-0611", "TV-0612", "TV-0613", "TV-0614") for b in out["bottles"])
 
 
 def test_bod_from_a_dilution_file(data, tmp_path):
     f = tmp_path / "dil.json"
-    f.write_text(json.dumps({"dilutions": [{"initial_do_mg_l": 8.6, "final_do_mg_l": 4.1, "sample_ml": 30},
-                                           {"initial_do_mg_l": 8.7, "final_do_mg_l": 6.5, "sample_ml": 15}]}))
-    out = ok_json(lab("bod", HOT[:8], "TV-0703", "--dilutions", str(f), "--blank-depletion", "0.12",
-                      "--gga", "201", "--incubation-start", "2026-06-23T16:00-07:00",
-                      "--incubation-end", "2026-06-28T16:30-07:00", "--analyst", "R.O.", "--json", data_dir=data))
+    f.write_text(
+        json.dumps(
+            {
+                "dilutions": [
+                    {"initial_do_mg_l": 8.6, "final_do_mg_l": 4.1, "sample_ml": 30},
+                    {"initial_do_mg_l": 8.7, "final_do_mg_l": 6.5, "sample_ml": 15},
+                ]
+            }
+        )
+    )
+    out = ok_json(
+        lab(
+            "bod",
+            HOT[:8],
+            "TV-0703",
+            "--dilutions",
+            str(f),
+            "--blank-depletion",
+            "0.12",
+            "--gga",
+            "201",
+            "--incubation-start",
+            "2026-06-23T16:00-07:00",
+            "--incubation-end",
+            "2026-06-28T16:30-07:00",
+            "--analyst",
+            "R.O.",
+            "--json",
+            data_dir=data,
+        )
+    )
     # Standard Methods 5210 B [from memory]: (8.6 − 4.1)/(30/300) = 45, (8.7 − 6.5)/(15/300) = 44.
     assert out["bod_mg_l"] == pytest.approx(44.5) and out["valid"] is True
     assert out["result"]["analyte"] == "bod5" and "5210 B" in out["result"]["method"]
@@ -185,12 +278,42 @@ def test_bod_from_a_dilution_file(data, tmp_path):
 
 def test_duplicates_rpd(data):
     dup = "7f3e9a12"
-    ok_json(lab("winkler", dup, "TV-0901", "--titrant-ml", "8.8", "--normality", "0.025",
-                "--titrated-ml", TITRATED_200, "--at", "2026-07-07T11:00-07:00", "--json", data_dir=data))
+    ok_json(
+        lab(
+            "winkler",
+            dup,
+            "TV-0901",
+            "--titrant-ml",
+            "8.8",
+            "--normality",
+            "0.025",
+            "--titrated-ml",
+            TITRATED_200,
+            "--at",
+            "2026-07-07T11:00-07:00",
+            "--json",
+            data_dir=data,
+        )
+    )
     waiting = ok_json(lab("duplicates", dup, "--json", data_dir=data))
     assert [d["status"] for d in waiting["duplicates"]] == ["waiting"]
-    ok_json(lab("winkler", dup, "TV-0901D", "--titrant-ml", "9.4", "--normality", "0.025",
-                "--titrated-ml", TITRATED_200, "--at", "2026-07-07T11:10-07:00", "--json", data_dir=data))
+    ok_json(
+        lab(
+            "winkler",
+            dup,
+            "TV-0901D",
+            "--titrant-ml",
+            "9.4",
+            "--normality",
+            "0.025",
+            "--titrated-ml",
+            TITRATED_200,
+            "--at",
+            "2026-07-07T11:10-07:00",
+            "--json",
+            data_dir=data,
+        )
+    )
     out = ok_json(lab("duplicates", dup, "--json", data_dir=data))
     [d] = out["duplicates"]
     # RPD = |a − b| / mean × 100 (common practice): 0.6 / 9.1 × 100 = 6.6 %, inside 20 %; but 0.6 mg/L is
@@ -205,43 +328,130 @@ def test_duplicates_rpd(data):
 
 
 ERRORS = [
-    (("winkler", "00000000", "TV-0701", "--titrant-ml", "7", "--normality", "0.025", "--titrated-ml", "201"),
-     ("TRIP_ID", "no such trip")),
-    (("winkler", HOT[:8], "TV-9999", "--titrant-ml", "7", "--normality", "0.025", "--titrated-ml", "201"),
-     ("TV-9999", "TV-0701", "TV-0703")),
-    (("winkler", HOT[:8], "TV-0703", "--titrant-ml", "7", "--normality", "0.025", "--titrated-ml", "201"),
-     ("TV-0703", "bod", "do-fixed or duplicate")),
+    (
+        ("winkler", "00000000", "TV-0701", "--titrant-ml", "7", "--normality", "0.025", "--titrated-ml", "201"),
+        ("TRIP_ID", "no such trip"),
+    ),
+    (
+        ("winkler", HOT[:8], "TV-9999", "--titrant-ml", "7", "--normality", "0.025", "--titrated-ml", "201"),
+        ("TV-9999", "TV-0701", "TV-0703"),
+    ),
+    (
+        ("winkler", HOT[:8], "TV-0703", "--titrant-ml", "7", "--normality", "0.025", "--titrated-ml", "201"),
+        ("TV-0703", "bod", "do-fixed or duplicate"),
+    ),
     (winkler_args(titrant="abc"), ("--titrant-ml", "not a number", "0 to 100")),
     (winkler_args(titrant="7.3 L"), ("--titrant-ml", "unit", "mL")),
     (winkler_args(titrant="1,234"), ("--titrant-ml", "ambiguous")),
     (winkler_args(titrant="150"), ("--titrant-ml", "out of range", "0 to 100")),
-    (("winkler", HOT[:8], "TV-0701", "--titrant-ml", "7", "--normality", "2", "--titrated-ml", "201", "--at", AT),
-     ("--normality", "usually 0.025")),
+    (
+        ("winkler", HOT[:8], "TV-0701", "--titrant-ml", "7", "--normality", "2", "--titrated-ml", "201", "--at", AT),
+        ("--normality", "usually 0.025"),
+    ),
     (("winkler", HOT[:8], "TV-0701", "--titrant-ml", "7", "--titrated-ml", "201"), ("--normality", "is needed")),
-    (("winkler", HOT[:8], "TV-0701", "--titrant-ml", "7", "--normality", "0.025", "--std-titrant-ml", "20",
-      "--titrated-ml", "201"), ("--normality", "not both")),
-    (("winkler", HOT[:8], "TV-0701", "--titrant-ml", "7", "--normality", "0.025", "--titrated-ml", "400",
-      "--at", AT), ("--titrated-ml", "bottle")),
-    (("winkler", HOT[:8], "TV-0701", "--titrant-ml", "7", "--normality", "0.025", "--titrated-ml", "201",
-      "--at", "2026-06-23T14:00"), ("--at", "time zone")),
-    (("winkler", HOT[:8], "TV-0701", "--titrant-ml", "7", "--normality", "0.025", "--titrated-ml", "201",
-      "--at", "2099-01-01T00:00Z"), ("--at", "future")),
-    (("winkler", HOT[:8], "TV-0701", "--titrant-ml", "7", "--normality", "0.025", "--titrated-ml", "201",
-      "--at", "2026-06-23T06:00-07:00"), ("--at", "before bottle TV-0701 was collected")),
+    (
+        (
+            "winkler",
+            HOT[:8],
+            "TV-0701",
+            "--titrant-ml",
+            "7",
+            "--normality",
+            "0.025",
+            "--std-titrant-ml",
+            "20",
+            "--titrated-ml",
+            "201",
+        ),
+        ("--normality", "not both"),
+    ),
+    (
+        (
+            "winkler",
+            HOT[:8],
+            "TV-0701",
+            "--titrant-ml",
+            "7",
+            "--normality",
+            "0.025",
+            "--titrated-ml",
+            "400",
+            "--at",
+            AT,
+        ),
+        ("--titrated-ml", "bottle"),
+    ),
+    (
+        (
+            "winkler",
+            HOT[:8],
+            "TV-0701",
+            "--titrant-ml",
+            "7",
+            "--normality",
+            "0.025",
+            "--titrated-ml",
+            "201",
+            "--at",
+            "2026-06-23T14:00",
+        ),
+        ("--at", "time zone"),
+    ),
+    (
+        (
+            "winkler",
+            HOT[:8],
+            "TV-0701",
+            "--titrant-ml",
+            "7",
+            "--normality",
+            "0.025",
+            "--titrated-ml",
+            "201",
+            "--at",
+            "2099-01-01T00:00Z",
+        ),
+        ("--at", "future"),
+    ),
+    (
+        (
+            "winkler",
+            HOT[:8],
+            "TV-0701",
+            "--titrant-ml",
+            "7",
+            "--normality",
+            "0.025",
+            "--titrated-ml",
+            "201",
+            "--at",
+            "2026-06-23T06:00-07:00",
+        ),
+        ("--at", "before bottle TV-0701 was collected"),
+    ),
     (winkler_args("--meter-tolerance", "9"), ("--meter-tolerance", "0 to 5")),
     (("bod", HOT[:8], "TV-0703", "--dilutions", "/nonexistent/dil.json"), ("--dilutions", "does not exist")),
     (("bod", UPPER[:8], "TV-0721", "--dilutions", "{DIL}"), ("TV-0721", "do-fixed", "bod or duplicate")),
-    (("bod", HOT[:8], "TV-0703", "--dilutions", "{DIL}", "--incubation-start", "2026-06-23T16:00-07:00"),
-     ("--incubation-end", "go together")),
+    (
+        ("bod", HOT[:8], "TV-0703", "--dilutions", "{DIL}", "--incubation-start", "2026-06-23T16:00-07:00"),
+        ("--incubation-end", "go together"),
+    ),
     (("bod", HOT[:8], "TV-0703", "--dilutions", "{BAD}"), ("--dilutions", "not valid JSON")),
     (("bod", HOT[:8], "TV-0703", "--dilutions", "{DIL}", "--gga", "lots"), ("--gga", "not a number")),
-    (("duplicates", "", ), ("TRIP_ID", "empty")),
+    (
+        (
+            "duplicates",
+            "",
+        ),
+        ("TRIP_ID", "empty"),
+    ),
     (("pending", "--now", "yesterday"), ("--now", "ISO 8601")),
 ]
 
 
-@pytest.mark.parametrize("args, words", ERRORS, ids=[" ".join(a[:1] + a[2:4]) + f"-{i}" for i, (a, _) in
-                                                      enumerate(ERRORS)])
+@pytest.mark.parametrize(
+    "args, words", ERRORS, ids=[" ".join(a[:1] + a[2:4]) + f"-{i}" for i, (a, _) in enumerate(ERRORS)]
+)
 def test_every_error_is_one_line_exit_2_and_nothing_is_saved(data, tmp_path, args, words):
     dil = tmp_path / "dil.json"
     dil.write_text(json.dumps([{"initial_do_mg_l": 8.6, "final_do_mg_l": 4.1, "sample_ml": 30}]))
@@ -271,8 +481,20 @@ def test_results_of_a_trip_with_earlier_results(data):
     out = ok_json(lab("results", LOWER[:8], "--json", data_dir=data))
     assert {r["label"] for r in out["results"]} == {"TV-0611", "TV-0612", "TV-0613", "TV-0614"}
     # Earlier results (recorded before this command existed) block a silent second titration.
-    r = lab("winkler", LOWER[:8], "TV-0611", "--titrant-ml", "9.4", "--normality", "0.025", "--titrated-ml",
-            "201", "--at", "2026-06-09T12:00-07:00", data_dir=data)
+    r = lab(
+        "winkler",
+        LOWER[:8],
+        "TV-0611",
+        "--titrant-ml",
+        "9.4",
+        "--normality",
+        "0.025",
+        "--titrated-ml",
+        "201",
+        "--at",
+        "2026-06-09T12:00-07:00",
+        data_dir=data,
+    )
     one_line_error(r, "--redo", "already has")
 
 
@@ -281,15 +503,18 @@ def test_program_settings_feed_the_checks(data):
 
     store = DeviceStore.open(data)
     # A stricter SOP holding time (4 h) and the lab's meter tolerance kept in the program's settings.
-    store.save_settings(ProgramSettings(program="Tamsin Valley Stream Watch", holding_overrides_h={"do_winkler": 4.0},
-                                        lab_meter_tolerance_mg_l=1.0))
+    store.save_settings(
+        ProgramSettings(
+            program="Tamsin Valley Stream Watch", holding_overrides_h={"do_winkler": 4.0}, lab_meter_tolerance_mg_l=1.0
+        )
+    )
     out = ok_json(lab(*winkler_args("--json"), data_dir=data))
     codes = [f["code"] for f in out["flags"]]
-    assert "lab.holding_exceeded" in codes                   # 6.5 h after collection > 4 h
-    assert "lab.meter_disagrees" not in codes                # 0.78 mg/L within the program's 1.0
+    assert "lab.holding_exceeded" in codes  # 6.5 h after collection > 4 h
+    assert "lab.meter_disagrees" not in codes  # 0.78 mg/L within the program's 1.0
     assert out["result"]["inputs"]["derived"]["holding"]["limit_h"] == 4.0
     r = lab(*winkler_args("--meter-tolerance", "0.5", "--redo", "check"), data_dir=data)
-    assert r.returncode == 0 and "lab.meter_disagrees" in r.stdout   # the option overrides the program
+    assert r.returncode == 0 and "lab.meter_disagrees" in r.stdout  # the option overrides the program
 
 
 def test_bad_program_setting_is_one_line(data):
@@ -314,7 +539,7 @@ def test_expected_titrant_from_the_meter(data):
 
 def test_ambiguous_trip_prefix(data, tmp_path):
     doc = _dup_trip()
-    doc["id"] = "7f3e9a12-ffff-4d5e-8f6a-1b2c3d4e5f61"          # same first 8 characters as the duplicate trip
+    doc["id"] = "7f3e9a12-ffff-4d5e-8f6a-1b2c3d4e5f61"  # same first 8 characters as the duplicate trip
     for s in doc["stops"]:
         for b in s["bottles"]:
             b["label"] += "X"

@@ -1,4 +1,5 @@
 """core.rules.lab on plain records: Winkler and BOD5 results on bottles, re-analysis, duplicates, pending (pure)."""
+
 from __future__ import annotations
 
 from datetime import datetime, timedelta, timezone
@@ -6,12 +7,25 @@ from datetime import datetime, timedelta, timezone
 import pytest
 
 from core.flags import Severity
-from core.rules.lab import (BOD_ANALYTE, CAUTION, CBOD_ANALYTE, reported_bod, WINKLER_ANALYTE, LabInputError, LabSettings, Standardisation,
-                      current_result, duplicate_checks, find_bottle, pending_bottles, record_bod, record_winkler,
-                      relative_percent_difference)
-from core.records.models import Bottle, LabResult, Site, Stop, Trip, measure
+from core.records.models import Bottle, LabResult, ProgramSettings, Site, Stop, Trip, measure
+from core.rules.lab import (
+    BOD_ANALYTE,
+    CAUTION,
+    CBOD_ANALYTE,
+    WINKLER_ANALYTE,
+    LabInputError,
+    LabSettings,
+    Standardisation,
+    current_result,
+    duplicate_checks,
+    find_bottle,
+    pending_bottles,
+    record_bod,
+    record_winkler,
+    relative_percent_difference,
+    reported_bod,
+)
 from core.rules.qc import derive_trip
-from core.records.models import ProgramSettings
 
 TZ = timezone(timedelta(hours=-7))
 T0 = datetime(2026, 6, 23, 8, 0, tzinfo=TZ)  # invented scenario day (Larkspur Creek demo)
@@ -23,20 +37,34 @@ TITRATED_200 = 200.0 * 300.0 / 298.0
 
 
 def bottle(label, kind="do-fixed", at=T0, fixed=timedelta(minutes=2), results=(), **kw):
-    return Bottle(label=label, kind=kind, collected_at=at,
-                  fixed_at=(at + fixed) if (fixed is not None and kind != "bod") else None,
-                  lab_results=list(results), **kw)
+    return Bottle(
+        label=label,
+        kind=kind,
+        collected_at=at,
+        fixed_at=(at + fixed) if (fixed is not None and kind != "bod") else None,
+        lab_results=list(results),
+        **kw,
+    )
 
 
 def stop(site="LK-04", bottles=(), do="9.0", at=T0):
-    return Stop(site_id=site, arrived_at=at - timedelta(minutes=5), bottles=list(bottles),
-                temp=measure("temp", "18.0"), pressure=measure("pressure", "1000 hPa"),
-                do=measure("do", do, default_unit="mg/L") if do else None)
+    return Stop(
+        site_id=site,
+        arrived_at=at - timedelta(minutes=5),
+        bottles=list(bottles),
+        temp=measure("temp", "18.0"),
+        pressure=measure("pressure", "1000 hPa"),
+        do=measure("do", do, default_unit="mg/L") if do else None,
+    )
 
 
 def trip(*stops):
-    return Trip(started_at=T0 - timedelta(hours=1), program="Tamsin Valley Stream Watch", crew=["R.O.", "J.V."],
-                stops=list(stops))
+    return Trip(
+        started_at=T0 - timedelta(hours=1),
+        program="Tamsin Valley Stream Watch",
+        crew=["R.O.", "J.V."],
+        stops=list(stops),
+    )
 
 
 def wink(t, label="TV-0801", titrant=7.3, titrated=TITRATED_200, at=T0 + timedelta(hours=3), **kw):
@@ -59,7 +87,7 @@ def test_one_ml_of_0025_n_is_one_mg_per_l_for_200_ml_original():
     assert out.result.value == pytest.approx(7.3, abs=1e-9)
     assert out.result.unit == "mg/L"
     assert out.result.analyte == WINKLER_ANALYTE
-    assert "4500-O C" in out.result.method                      # Standard Methods 4500-O C named
+    assert "4500-O C" in out.result.method  # Standard Methods 4500-O C named
     assert out.result.inputs["derived"]["original_sample_ml"] == pytest.approx(200.0)
     assert out.result.valid is True
 
@@ -81,10 +109,10 @@ def test_dose_formula_older_practice_4_ml_reagents():
 def test_inputs_kept_and_trip_not_changed():
     t = trip(stop(bottles=[bottle("TV-0801")]))
     out = wink(t, analyst="J.V.", notes="blue end point, clean", entered={"titrant_ml": "7,3"})
-    assert t.stops[0].bottles[0].lab_results == []            # pure: the input trip is untouched
+    assert t.stops[0].bottles[0].lab_results == []  # pure: the input trip is untouched
     r = out.trip.stops[0].bottles[0].lab_results[0]
-    assert r.id == out.result.id and len(r.id) == 36            # UUID
-    assert r.inputs["entered"] == {"titrant_ml": "7,3"}          # as typed
+    assert r.id == out.result.id and len(r.id) == 36  # UUID
+    assert r.inputs["entered"] == {"titrant_ml": "7,3"}  # as typed
     assert r.inputs["used"]["titrant_ml"] == 7.3
     assert r.analyst == "J.V." and "blue end point" in r.notes
     assert r.analysed_at == T0 + timedelta(hours=3)
@@ -93,9 +121,15 @@ def test_inputs_kept_and_trip_not_changed():
 def test_standardisation_is_the_normality_source():
     # Standard Methods 4500-O C [from memory]: N = 0.025 × V_std / V_titrant with 20.00 mL 0.02500 N bi-iodate.
     t = trip(stop(bottles=[bottle("TV-0801")]))
-    out = record_winkler(t, "TV-0801", titrant_ml=7.3, titrated_ml=TITRATED_200,
-                         standardisation=Standardisation(titrant_ml=20.5, standardised_at=T0),
-                         analysed_at=T0 + timedelta(hours=3), now=NOW)
+    out = record_winkler(
+        t,
+        "TV-0801",
+        titrant_ml=7.3,
+        titrated_ml=TITRATED_200,
+        standardisation=Standardisation(titrant_ml=20.5, standardised_at=T0),
+        analysed_at=T0 + timedelta(hours=3),
+        now=NOW,
+    )
     src = out.result.inputs["derived"]["normality_source"]
     assert src["kind"] == "standardisation" and src["titrant_ml"] == 20.5 and src["standard_ml"] == 20.0
     n = 0.025 * 20.0 / 20.5
@@ -107,9 +141,15 @@ def test_standardisation_is_the_normality_source():
 def test_old_standardisation_noted():
     # 24 h between standardisations: common practice (a lab setting).
     t = trip(stop(bottles=[bottle("TV-0801")]))
-    out = record_winkler(t, "TV-0801", titrant_ml=7.3, titrated_ml=TITRATED_200,
-                         standardisation=Standardisation(titrant_ml=20.0, standardised_at=T0 - timedelta(days=3)),
-                         analysed_at=T0 + timedelta(hours=3), now=NOW)
+    out = record_winkler(
+        t,
+        "TV-0801",
+        titrant_ml=7.3,
+        titrated_ml=TITRATED_200,
+        standardisation=Standardisation(titrant_ml=20.0, standardised_at=T0 - timedelta(days=3)),
+        analysed_at=T0 + timedelta(hours=3),
+        now=NOW,
+    )
     assert "lab.standardisation_old" in codes(out)
 
 
@@ -139,14 +179,14 @@ def test_holding_8_h_from_collection():
     # US 40 CFR 136.3 Table II [from memory]: DO by Winkler, fixed on site, 8 h; the clock runs from
     # collection (team science reference §10)
     t = trip(stop(bottles=[bottle("TV-0801", at=T0, fixed=timedelta(minutes=10))]))
-    inside = wink(t, at=T0 + timedelta(hours=7, minutes=59))    # 7 h 59 min after collection
+    inside = wink(t, at=T0 + timedelta(hours=7, minutes=59))  # 7 h 59 min after collection
     assert "lab.holding_exceeded" not in codes(inside) and inside.result.valid
     assert inside.result.inputs["derived"]["holding"]["from"] == "collection"
-    late = wink(t, at=T0 + timedelta(hours=8, minutes=1))      # 8 h 01 min after collection
+    late = wink(t, at=T0 + timedelta(hours=8, minutes=1))  # 8 h 01 min after collection
     f = [x for x in late.flags if x.code == "lab.holding_exceeded"]
     assert f and f[0].severity == Severity.STOP and "8 h" in f[0].message
     assert late.result.valid is False
-    assert "holding time" in late.result.notes                 # reasons in plain words
+    assert "holding time" in late.result.notes  # reasons in plain words
 
 
 def test_holding_from_collection_without_fixing_time():
@@ -164,10 +204,10 @@ def test_holding_override_from_sop():
 def test_meter_comparison_tolerance():
     # Tolerance 0.5 mg/L: common practice (a setting).
     t = trip(stop(bottles=[bottle("TV-0801")], do="7.0"))
-    near = wink(t, titrant=7.4)                                  # 7.4 vs 7.0: 0.4 mg/L
+    near = wink(t, titrant=7.4)  # 7.4 vs 7.0: 0.4 mg/L
     assert "lab.meter_disagrees" not in codes(near)
     assert near.result.inputs["derived"]["meter_difference_mg_l"] == pytest.approx(0.4)
-    far = wink(t, titrant=7.6)                                   # 0.6 mg/L
+    far = wink(t, titrant=7.6)  # 0.6 mg/L
     f = [x for x in far.flags if x.code == "lab.meter_disagrees"]
     assert f and "meter" in f[0].message and "fixing" in f[0].message
     strict = wink(t, titrant=7.4, settings=LabSettings(meter_tolerance_mg_l=0.2))
@@ -198,13 +238,16 @@ def test_implausible_do_stops():
     assert "winkler.do_implausible" in codes(out) and out.result.valid is False
 
 
-@pytest.mark.parametrize("kw, field", [
-    ({"titrant": -1.0}, "titrant_ml"),
-    ({"titrant": float("nan")}, "titrant_ml"),
-    ({"titrated": 400.0}, "titrated_ml"),
-    ({"normality": 2.0}, "normality"),
-    ({"reagents_ml": 300.0}, "reagents_ml"),
-])
+@pytest.mark.parametrize(
+    "kw, field",
+    [
+        ({"titrant": -1.0}, "titrant_ml"),
+        ({"titrant": float("nan")}, "titrant_ml"),
+        ({"titrated": 400.0}, "titrated_ml"),
+        ({"normality": 2.0}, "normality"),
+        ({"reagents_ml": 300.0}, "reagents_ml"),
+    ],
+)
 def test_bad_volumes_name_the_input(kw, field):
     t = trip(stop(bottles=[bottle("TV-0801")]))
     with pytest.raises(LabInputError) as e:
@@ -272,15 +315,15 @@ def test_label_twice_settled_by_kind_or_refused():
     with pytest.raises(LabInputError) as e:
         wink(t2)
     assert a.id[:8] in str(e.value) and c.id[:8] in str(e.value)
-    assert wink(t2, label=c.id[:8]).bottle.id == c.id          # the id's first 8 characters pick one
+    assert wink(t2, label=c.id[:8]).bottle.id == c.id  # the id's first 8 characters pick one
 
 
 # ---------------------------------------------------------------------------------------------
 # BOD5
 # ---------------------------------------------------------------------------------------------
-D30 = {"initial_do_mg_l": 8.6, "final_do_mg_l": 4.1, "sample_ml": 30.0}   # (8.6 − 4.1)/0.1 = 45
-D15 = {"initial_do_mg_l": 8.7, "final_do_mg_l": 6.5, "sample_ml": 15.0}   # (8.7 − 6.5)/0.05 = 44
-D60 = {"initial_do_mg_l": 8.5, "final_do_mg_l": 0.5, "sample_ml": 60.0}   # residual 0.5 < 1.0: not valid
+D30 = {"initial_do_mg_l": 8.6, "final_do_mg_l": 4.1, "sample_ml": 30.0}  # (8.6 − 4.1)/0.1 = 45
+D15 = {"initial_do_mg_l": 8.7, "final_do_mg_l": 6.5, "sample_ml": 15.0}  # (8.7 − 6.5)/0.05 = 44
+D60 = {"initial_do_mg_l": 8.5, "final_do_mg_l": 0.5, "sample_ml": 60.0}  # residual 0.5 < 1.0: not valid
 
 
 def bod_trip(**kw):
@@ -316,17 +359,21 @@ def test_bod_no_valid_dilution():
     assert report["qualifier"] == "<" and report["value"] == pytest.approx(20.0) and report["text"] == "< 20.0 mg/L"
     assert reported_bod(out.result).text == "< 20.0 mg/L"
     # neither rule applies (one bottle ran out of oxygen, the other used too little): no value
-    mixed = [{"initial_do_mg_l": 8.6, "final_do_mg_l": 0.4, "sample_ml": 150.0},
-             {"initial_do_mg_l": 8.6, "final_do_mg_l": 8.1, "sample_ml": 3.0}]
+    mixed = [
+        {"initial_do_mg_l": 8.6, "final_do_mg_l": 0.4, "sample_ml": 150.0},
+        {"initial_do_mg_l": 8.6, "final_do_mg_l": 8.1, "sample_ml": 3.0},
+    ]
     out = bod(bod_trip(), dilutions=mixed)
     assert "bod.no_valid_dilution" in codes(out) and out.result.inputs["derived"]["report"]["value"] is None
 
 
 def test_bod_dilution_trend_is_not_stored_as_a_value():
     # Standard Methods 5210 B [from memory]: no averaging with evidence of toxicity (11, 35, 114 mg/L)
-    trend = [{"initial_do_mg_l": 8.6, "final_do_mg_l": 8.6 - 3.3, "sample_ml": 90.0},
-             {"initial_do_mg_l": 8.6, "final_do_mg_l": 8.6 - 3.5, "sample_ml": 30.0},
-             {"initial_do_mg_l": 8.6, "final_do_mg_l": 8.6 - 3.8, "sample_ml": 10.0}]
+    trend = [
+        {"initial_do_mg_l": 8.6, "final_do_mg_l": 8.6 - 3.3, "sample_ml": 90.0},
+        {"initial_do_mg_l": 8.6, "final_do_mg_l": 8.6 - 3.5, "sample_ml": 30.0},
+        {"initial_do_mg_l": 8.6, "final_do_mg_l": 8.6 - 3.8, "sample_ml": 10.0},
+    ]
     out = bod(bod_trip(), dilutions=trend)
     assert "bod.dilution_trend" in codes(out) and out.result.value is None and out.result.valid is False
     assert out.result.inputs["derived"]["report"]["basis"] == "trend"
@@ -349,15 +396,20 @@ def test_cbod5_is_its_own_analyte():
 
 def test_reported_bod_rebuilds_the_report_of_an_older_result():
     out = bod(bod_trip(), dilutions=[D30])
-    old = out.result.model_copy(update={"inputs": {**out.result.inputs,
-                                                   "derived": {k: v for k, v in out.result.inputs["derived"].items()
-                                                               if k != "report"}}})
+    old = out.result.model_copy(
+        update={
+            "inputs": {
+                **out.result.inputs,
+                "derived": {k: v for k, v in out.result.inputs["derived"].items() if k != "report"},
+            }
+        }
+    )
     assert reported_bod(old).to_dict() == out.result.inputs["derived"]["report"]
 
 
 def test_bod_seeded_from_controls():
     # Standard Methods 5210 B [from memory]: BOD5 = [(D1 − D2) − S·Vs]/P, S from seed controls.
-    controls = [{"initial_do_mg_l": 8.8, "final_do_mg_l": 4.8, "seed_ml": 10.0}]      # S = 0.4 per mL
+    controls = [{"initial_do_mg_l": 8.8, "final_do_mg_l": 4.8, "seed_ml": 10.0}]  # S = 0.4 per mL
     d = {"initial_do_mg_l": 8.7, "final_do_mg_l": 4.0, "sample_ml": 30.0, "seed_ml": 2.0}
     out = bod(bod_trip(), dilutions=[d], seed_controls=controls)
     assert out.result.value == pytest.approx(((8.7 - 4.0) - 0.4 * 2.0) / 0.1)
@@ -407,8 +459,7 @@ def test_bod_input_errors():
         bod(t, label="TV-0811")
     assert e.value.field == "bottle" and "bod or duplicate" in str(e.value)
     with pytest.raises(LabInputError) as e:
-        record_bod(t, "TV-0810", dilutions=[D30], incubation_start=T0 + timedelta(hours=2),
-                   analysed_at=NOW, now=NOW)
+        record_bod(t, "TV-0810", dilutions=[D30], incubation_start=T0 + timedelta(hours=2), analysed_at=NOW, now=NOW)
     assert e.value.field == "incubation_end"
     with pytest.raises(LabInputError) as e:
         bod(t, dilutions=[{"initial_do_mg_l": 8.6, "sample_ml": 30.0}])
@@ -441,11 +492,11 @@ def test_duplicate_pairs_and_threshold():
     waiting = duplicate_checks(t)
     assert [c.status for c in waiting] == ["waiting"]
     t = wink(t, titrant=8.0).trip
-    t = wink(t, label="TV-0801D", titrant=8.15).trip                 # RPD 1.9 %, 0.15 mg/L apart
+    t = wink(t, label="TV-0801D", titrant=8.15).trip  # RPD 1.9 %, 0.15 mg/L apart
     [c] = duplicate_checks(t)
     assert c.status == "agrees" and c.rpd_percent == pytest.approx(0.15 / 8.075 * 100, rel=1e-6)
     assert c.primary_label == "TV-0801" and c.analyte == "do_winkler" and c.flags == []
-    [c] = duplicate_checks(t, LabSettings(duplicate_rpd_percent=1.0))   # threshold is a setting
+    [c] = duplicate_checks(t, LabSettings(duplicate_rpd_percent=1.0))  # threshold is a setting
     assert c.status == "disagrees" and c.flags[0].code == "lab.duplicate_rpd"
 
 
@@ -453,11 +504,11 @@ def test_duplicate_absolute_limit_beside_the_rpd():
     # field duplicate DO: about ±0.2 mg/L absolute agreement [common practice], beside the 20 % RPD
     t = trip(stop(bottles=[bottle("TV-0801"), bottle("TV-0801D", kind="duplicate")]))
     t = wink(t, titrant=8.0).trip
-    t = wink(t, label="TV-0801D", titrant=8.4).trip                  # RPD 4.9 % passes, 0.4 mg/L does not
+    t = wink(t, label="TV-0801D", titrant=8.4).trip  # RPD 4.9 % passes, 0.4 mg/L does not
     [c] = duplicate_checks(t)
     assert c.status == "disagrees" and [f.code for f in c.flags] == ["lab.duplicate_difference"]
     assert "0.40 mg/L" in c.flags[0].message
-    [c] = duplicate_checks(t, LabSettings(duplicate_abs_mg_l=0.5))     # the limit is a setting
+    [c] = duplicate_checks(t, LabSettings(duplicate_abs_mg_l=0.5))  # the limit is a setting
     assert c.status == "agrees"
 
 
@@ -474,8 +525,11 @@ def test_duplicate_unpaired():
     t = trip(stop(bottles=[bottle("TV-0801"), bottle("TV-0802"), bottle("TV-0801D", kind="duplicate")]))
     [c] = duplicate_checks(t)
     assert c.status == "unpaired" and c.flags[0].code == "lab.duplicate_unpaired"
-    named = trip(stop(bottles=[bottle("TV-0801"), bottle("TV-0802"),
-                               bottle("TV-0801D", kind="duplicate", duplicate_of="TV-0802")]))
+    named = trip(
+        stop(
+            bottles=[bottle("TV-0801"), bottle("TV-0802"), bottle("TV-0801D", kind="duplicate", duplicate_of="TV-0802")]
+        )
+    )
     [c] = duplicate_checks(named)
     assert c.primary_label == "TV-0802"
 
@@ -484,20 +538,33 @@ def test_duplicate_unpaired():
 # Pending
 # ---------------------------------------------------------------------------------------------
 def test_pending_most_urgent_first():
-    t1 = trip(stop(bottles=[bottle("TV-0820", kind="bod", at=T0),                       # 48 h from T0
-                            bottle("TV-0821", at=T0 + timedelta(hours=1)),               # 8 h from collection
-                            bottle("TV-0822", kind="blank", at=T0)]))
-    t2 = trip(stop(site="LK-02", bottles=[bottle("TV-0823", at=T0 - timedelta(hours=10)),  # expired
-                                          bottle("TV-0824", kind="bod", at=T0 - timedelta(hours=60))]))  # expired
+    t1 = trip(
+        stop(
+            bottles=[
+                bottle("TV-0820", kind="bod", at=T0),  # 48 h from T0
+                bottle("TV-0821", at=T0 + timedelta(hours=1)),  # 8 h from collection
+                bottle("TV-0822", kind="blank", at=T0),
+            ]
+        )
+    )
+    t2 = trip(
+        stop(
+            site="LK-02",
+            bottles=[
+                bottle("TV-0823", at=T0 - timedelta(hours=10)),  # expired
+                bottle("TV-0824", kind="bod", at=T0 - timedelta(hours=60)),
+            ],
+        )
+    )  # expired
     now = T0 + timedelta(hours=2)
     items = pending_bottles([t1, t2], now)
     assert [p.label for p in items] == ["TV-0821", "TV-0820", "TV-0823", "TV-0824"]
     first = items[0]
-    assert first.clock_from == "collection" and first.hours == 8.0      # 40 CFR 136.3 Table II [from memory]
+    assert first.clock_from == "collection" and first.hours == 8.0  # 40 CFR 136.3 Table II [from memory]
     assert first.deadline == T0 + timedelta(hours=1) + timedelta(hours=8)
     assert first.remaining_s == pytest.approx((first.deadline - now).total_seconds())
     assert items[2].expired and items[2].status == "expired"
-    assert "TV-0822" not in [p.label for p in items]                   # blanks have no analysis here
+    assert "TV-0822" not in [p.label for p in items]  # blanks have no analysis here
 
 
 def test_pending_leaves_out_bottles_with_results():
@@ -534,8 +601,14 @@ def test_fixing_before_collection_counts_from_collection():
 def test_meter_disagreement_mentions_a_failed_calibration():
     from core.records.models import Calibration
 
-    cal = Calibration(kind="post-trip", at=T0 + timedelta(hours=5), temp=measure("temp", "20"),
-                      pressure=measure("pressure", "1013.25 hPa"), reading_mg_l=8.5, accepted=False)
+    cal = Calibration(
+        kind="post-trip",
+        at=T0 + timedelta(hours=5),
+        temp=measure("temp", "20"),
+        pressure=measure("pressure", "1013.25 hPa"),
+        reading_mg_l=8.5,
+        accepted=False,
+    )
     t = trip(stop(bottles=[bottle("TV-0801")], do="7.0")).model_copy(update={"post_check": cal})
     f = [x for x in wink(t, titrant=8.0).flags if x.code == "lab.meter_disagrees"]
     assert f and "post-trip check" in f[0].message
@@ -550,8 +623,11 @@ def test_lab_core_is_pure():
     import core.rules.lab
 
     tree = ast.parse(Path(core.rules.lab.__file__).read_text(encoding="utf-8"))
-    calls = {n.func.attr if isinstance(n.func, ast.Attribute) else getattr(n.func, "id", "")
-             for n in ast.walk(tree) if isinstance(n, ast.Call)}
+    calls = {
+        n.func.attr if isinstance(n.func, ast.Attribute) else getattr(n.func, "id", "")
+        for n in ast.walk(tree)
+        if isinstance(n, ast.Call)
+    }
     assert not calls & {"now", "utcnow", "today", "open", "write_text", "write_bytes"}
 
 

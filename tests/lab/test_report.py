@@ -1,4 +1,5 @@
 """`streamtab report`: the trip report PDF read back (pypdf) and rendered (pdftoppm) as a reader sees it."""
+
 from __future__ import annotations
 
 import re
@@ -19,20 +20,24 @@ from core.store import DeviceStore
 from tests.conftest import ROOT, run_cli
 
 SAMPLES = ROOT / "sample_trips"
-LOWER = "5d7c2b0e-1f4a-4c8e-9b6d-3a2e1f0c9b71"      # sample trip of 2026-06-09 (invented)
+LOWER = "5d7c2b0e-1f4a-4c8e-9b6d-3a2e1f0c9b71"  # sample trip of 2026-06-09 (invented)
 PDT = timezone(timedelta(hours=-7))
 NOW = datetime(2026, 6, 20, 12, 0, tzinfo=PDT)
 
-needs_pdftoppm = pytest.mark.skipif(shutil.which("pdftoppm") is None and not __import__("os").environ.get("CI"),
-                                    reason="pdftoppm (poppler-utils) is installed by .ci/sysdeps.sh")
+needs_pdftoppm = pytest.mark.skipif(
+    shutil.which("pdftoppm") is None and not __import__("os").environ.get("CI"),
+    reason="pdftoppm (poppler-utils) is installed by .ci/sysdeps.sh",
+)
 
 
 def _sig(name: str, seed: int) -> Signature:
     """A made-up scribble: a loop and an underline, in pad fractions."""
     import math
 
-    loop = [[round(0.1 + 0.35 * i / 60 + 0.05 * math.sin(i / 4 + seed), 4),
-             round(0.5 - 0.3 * math.sin(i / 6 + seed), 4)] for i in range(60)]
+    loop = [
+        [round(0.1 + 0.35 * i / 60 + 0.05 * math.sin(i / 4 + seed), 4), round(0.5 - 0.3 * math.sin(i / 6 + seed), 4)]
+        for i in range(60)
+    ]
     line = [[round(0.1 + 0.8 * i / 20, 4), 0.85] for i in range(21)]
     return Signature(name=name, signed_at=datetime(2026, 6, 9, 12, 0, tzinfo=PDT), aspect=3.5, strokes=[loop, line])
 
@@ -44,30 +49,65 @@ def _build(root: Path, *, signed: bool) -> DeviceStore:
     trip = store.load_trip(LOWER)
     # A re-titration of TV-0613: the demo result stays, marked superseded (Standard Methods 4500-O C,
     # 200 mL original sample with 0.025 N titrant: 1 mL = 1 mg/L, from memory).
-    out = record_winkler(trip, "TV-0613", titrant_ml=9.05, titrated_ml=200 * 300 / 298, normality=0.025,
-                         analysed_at=datetime(2026, 6, 9, 13, 0, tzinfo=PDT), now=NOW, analyst="M.T.",
-                         redo_reason="end point overshot on the first titration")
+    out = record_winkler(
+        trip,
+        "TV-0613",
+        titrant_ml=9.05,
+        titrated_ml=200 * 300 / 298,
+        normality=0.025,
+        analysed_at=datetime(2026, 6, 9, 13, 0, tzinfo=PDT),
+        now=NOW,
+        analyst="M.T.",
+        redo_reason="end point overshot on the first titration",
+    )
     trip = out.trip
     # A BOD5 bottle whose result is a bound ("< 2.0 mg/L", Standard Methods 5210 B: no dilution
     # depleted 2.0 mg/L), in the layout of the bench's report.
     stops = list(trip.stops)
     last = stops[-1]
-    bound = LabResult(analyte="bod5", value=2.0, unit="mg/L", analysed_at=datetime(2026, 6, 14, 11, 0, tzinfo=PDT),
-                      analyst="M.T.", method="Standard Methods 5210 B", valid=True,
-                      inputs={"report": {"value": 2.0, "qualifier": "<", "text": "< 2.0 mg/L"}})
-    extra = Bottle(label="TV-0615", kind="bod", collected_at=last.arrived_at + timedelta(minutes=6),
-                   preservation="on ice, ≤ 6 °C", lab_results=[bound])
+    bound = LabResult(
+        analyte="bod5",
+        value=2.0,
+        unit="mg/L",
+        analysed_at=datetime(2026, 6, 14, 11, 0, tzinfo=PDT),
+        analyst="M.T.",
+        method="Standard Methods 5210 B",
+        valid=True,
+        inputs={"report": {"value": 2.0, "qualifier": "<", "text": "< 2.0 mg/L"}},
+    )
+    extra = Bottle(
+        label="TV-0615",
+        kind="bod",
+        collected_at=last.arrived_at + timedelta(minutes=6),
+        preservation="on ice, ≤ 6 °C",
+        lab_results=[bound],
+    )
     stops[-1] = last.model_copy(update={"bottles": list(last.bottles) + [extra]})
     trip = trip.model_copy(update={"stops": stops})
     sig = dict(relinquished_signature=_sig("J.V.", 1), received_signature=_sig("Courier K", 2)) if signed else {}
-    trip = add_handoff(trip, relinquished_by="J.V.", received_by="Courier K",
-                       at=datetime(2026, 6, 9, 12, 30, tzinfo=PDT), now=NOW, **sig).trip
-    sig = dict(relinquished_signature=_sig("Courier K", 3), received_signature=_sig("Lab desk M.T.", 4)) \
-        if signed else {}
-    trip = add_handoff(trip, relinquished_by="Courier K", received_by="Lab desk M.T.",
-                       at=datetime(2026, 6, 9, 12, 55, tzinfo=PDT), now=NOW, at_lab=True,
-                       temp=measure("temp", "4.2 C"), condition="intact, on ice",
-                       bottle_refs=["TV-0611", "TV-0612", "TV-0613", "TV-0615"], **sig).trip
+    trip = add_handoff(
+        trip,
+        relinquished_by="J.V.",
+        received_by="Courier K",
+        at=datetime(2026, 6, 9, 12, 30, tzinfo=PDT),
+        now=NOW,
+        **sig,
+    ).trip
+    sig = (
+        dict(relinquished_signature=_sig("Courier K", 3), received_signature=_sig("Lab desk M.T.", 4)) if signed else {}
+    )
+    trip = add_handoff(
+        trip,
+        relinquished_by="Courier K",
+        received_by="Lab desk M.T.",
+        at=datetime(2026, 6, 9, 12, 55, tzinfo=PDT),
+        now=NOW,
+        at_lab=True,
+        temp=measure("temp", "4.2 C"),
+        condition="intact, on ice",
+        bottle_refs=["TV-0611", "TV-0612", "TV-0613", "TV-0615"],
+        **sig,
+    ).trip
     store.save_trip(trip, "lab and custody for the report test")
     return store
 
@@ -97,14 +137,14 @@ def test_the_report_names_every_stop_bottle_result_and_hand_off(reports):
         assert site in text, site
     for label in ("TV-0611", "TV-0612", "TV-0613", "TV-0614", "TV-0615"):
         assert label in text, label
-    assert "< 2.0 mg/L" in flat                       # the bound, with its qualifier (Standard Methods 5210 B)
+    assert "< 2.0 mg/L" in flat  # the bound, with its qualifier (Standard Methods 5210 B)
     assert "9.1 mg/L" in flat and "(9.1 mg/L)" in flat  # the re-titration live, the demo result in brackets
     assert "superseded by" in flat
     assert "9.4 mg/L" in flat and "0.8 mg/L" in flat and "0.6 mg/L" in flat
     assert "J.V. → Courier K" in flat and "Courier K → Lab desk M.T. — received at the lab" in flat
     assert "temperature on receipt: 4.2 °C" in flat and "intact, on ice" in flat
     assert "TV-0614 has no receipt at the lab" in flat  # it never reached the lab desk
-    assert "742.1 mmHg" in flat                       # readings as typed
+    assert "742.1 mmHg" in flat  # readings as typed
     assert "SOP" in flat and "local regulations" in flat and "sulfuric acid" in flat and "Wading" in flat
     assert "unsigned" not in flat
 
@@ -132,8 +172,9 @@ def test_every_page_renders_with_ink_and_signatures_are_drawn(reports, tmp_path)
     for i, page in enumerate(signed):
         assert _ink(page) > 0.003, f"page {i + 1} looks blank"
     # The custody page: the drawn strokes add ink where the unsigned copy has only a grey note.
-    custody = next(i for i, p in enumerate(PdfReader(str(reports[True])).pages)
-                   if "Hand-offs" in (p.extract_text() or ""))
+    custody = next(
+        i for i, p in enumerate(PdfReader(str(reports[True])).pages) if "Hand-offs" in (p.extract_text() or "")
+    )
     assert _ink(signed[custody]) > _ink(unsigned[custody]) + 0.001
 
 
@@ -143,10 +184,10 @@ def test_plot_series_read_in_grey_scale():
     from mobile.paper.plots import STYLES
 
     looks = {(str(s.get("linestyle")), s.get("marker")) for s in STYLES.values()}
-    assert len(looks) == len(STYLES)                  # told apart by line and marker, not colour
+    assert len(looks) == len(STYLES)  # told apart by line and marker, not colour
     for name, s in STYLES.items():
         r, g, b = to_rgb(s["color"])
-        assert r == g == b, name                      # no hue carries meaning
+        assert r == g == b, name  # no hue carries meaning
 
 
 def test_report_refuses_a_bad_out_in_one_line(tmp_path):

@@ -1,5 +1,6 @@
 """A real PostgreSQL for the archive tests: one throw-away server per test session (initdb +
 pg_ctl as an unprivileged user, Unix socket only), a fresh database per test."""
+
 from __future__ import annotations
 
 import itertools

@@ -1,4 +1,5 @@
 """Review and approval: states from events, the CLI, the approved-trip guard, and merge-safety."""
+
 from __future__ import annotations
 
 import json
@@ -8,8 +9,7 @@ import pytest
 
 import sync
 from core.records.models import ReviewEvent
-from core.rules.review import (ReviewRefused, approved_version, check_change, new_event, open_reasons,
-                               review_state)
+from core.rules.review import ReviewRefused, approved_version, check_change, new_event, open_reasons, review_state
 from core.store import ApprovedTrip
 from tests.sync.conftest import edit_stop_notes, new_trip, open_store
 
@@ -17,15 +17,16 @@ T0 = datetime(2026, 7, 1, 9, 0, tzinfo=timezone.utc)
 
 
 def _end(store, trip):  # noqa: ANN001
-    return store.save_trip(trip.model_copy(update={"ended_at": trip.started_at + timedelta(hours=6)}),
-                           "trip ended")
+    return store.save_trip(trip.model_copy(update={"ended_at": trip.started_at + timedelta(hours=6)}), "trip ended")
 
 
 def _step(store, tid, action, at, by="D.M.", **kw):  # noqa: ANN001
     trip = store.load_trip(tid)
     ev = new_event(trip, action, by=by, at=at, **kw)
-    return store.save_trip(trip.model_copy(update={
-        "review_events": [*trip.review_events, ReviewEvent.model_validate(ev, strict=False)]}), action)
+    return store.save_trip(
+        trip.model_copy(update={"review_events": [*trip.review_events, ReviewEvent.model_validate(ev, strict=False)]}),
+        action,
+    )
 
 
 def test_states_follow_the_workflow(tmp_path):
@@ -67,25 +68,41 @@ def test_an_approved_trip_changes_only_through_a_correction(tmp_path):
     before = store.trip_document(trip.id)
     with pytest.raises(ApprovedTrip, match="trip correct"):
         edit_stop_notes(store, trip.id, 0, "changed after approval")
-    assert store.trip_document(trip.id) == before            # nothing half-written
+    assert store.trip_document(trip.id) == before  # nothing half-written
     # a correction: the edit together with a 'corrected' event that keeps the approved version
     trip = store.load_trip(trip.id)
     stops = list(trip.stops)
     stops[0] = stops[0].model_copy(update={"notes": "gauge height was 0.42 m, not 0.24"})
-    ev = new_event(trip, "corrected", by="D.M.", at=T0 + timedelta(hours=1),
-                   reasons=["meter reading entered at the wrong stop"], approved=before)
-    fixed = store.save_trip(trip.model_copy(update={
-        "stops": stops, "review_events": [*trip.review_events, ReviewEvent.model_validate(ev, strict=False)]}),
-        "corrected")
+    ev = new_event(
+        trip,
+        "corrected",
+        by="D.M.",
+        at=T0 + timedelta(hours=1),
+        reasons=["meter reading entered at the wrong stop"],
+        approved=before,
+    )
+    fixed = store.save_trip(
+        trip.model_copy(
+            update={
+                "stops": stops,
+                "review_events": [*trip.review_events, ReviewEvent.model_validate(ev, strict=False)],
+            }
+        ),
+        "corrected",
+    )
     assert review_state(fixed) == "reviewed"
     kept = approved_version(fixed.to_document())
     assert kept["stops"][0]["notes"] == before["stops"][0]["notes"] != fixed.stops[0].notes
 
 
 def test_check_change_lets_review_steps_through():
-    old = {"id": "t", "ended_at": "2026-07-01T15:00:00+00:00", "notes": "",
-           "review_events": [{"id": "a", "action": "approved", "at": "2026-07-01T16:00:00+00:00", "by": "D.M."}]}
-    check_change(old, {**old, "revision": 9, "audit": [{"id": "x"}]})     # bookkeeping only
+    old = {
+        "id": "t",
+        "ended_at": "2026-07-01T15:00:00+00:00",
+        "notes": "",
+        "review_events": [{"id": "a", "action": "approved", "at": "2026-07-01T16:00:00+00:00", "by": "D.M."}],
+    }
+    check_change(old, {**old, "revision": 9, "audit": [{"id": "x"}]})  # bookkeeping only
     with pytest.raises(ReviewRefused):
         check_change(old, {**old, "notes": "edited"})
 
@@ -118,8 +135,18 @@ def test_review_cli(tmp_path, cli):
     trip = _end(store, new_trip(store, stops=1))
     open_trip = new_trip(store, day=5, stops=1)
     d = tmp_path / "office"
-    r = cli("review", "return", trip.id[:8], "--by", "D.M.", "--reason", "stop 1: no DO bottle label",
-            "--reason", "pre-trip calibration missing", data_dir=d)
+    r = cli(
+        "review",
+        "return",
+        trip.id[:8],
+        "--by",
+        "D.M.",
+        "--reason",
+        "stop 1: no DO bottle label",
+        "--reason",
+        "pre-trip calibration missing",
+        data_dir=d,
+    )
     assert r.returncode == 0, r.stderr
     assert "returned" in r.stdout and "no DO bottle label" in r.stdout
     r = cli("review", "list", "--state", "returned", "--json", data_dir=d)
@@ -175,7 +202,7 @@ def test_the_app_lists_a_returned_trip_first_with_the_reasons(tmp_path):
     _step(store, first.id, "returned", T0, reasons=["stop 1: DO reading has no unit", "post-trip check missing"])
     _step(store, later.id, "approved", T0)
     lines = AppController(store).trip_lines()
-    assert [ln.id for ln in lines] == [first.id, later.id]      # returned first, though older
+    assert [ln.id for ln in lines] == [first.id, later.id]  # returned first, though older
     assert lines[0].status == "returned by the office"
     assert "stop 1: DO reading has no unit; post-trip check missing" in lines[0].detail
     assert lines[1].status == "approved"
@@ -190,7 +217,8 @@ def test_with_correction_is_the_hook_for_a_correction_command(tmp_path):
     _step(store, trip.id, "approved", T0)
     stored = store.trip_document(trip.id)
     edited = store.load_trip(trip.id).model_copy(update={"notes": "meter serial corrected"})
-    fixed = store.save_trip(with_correction(edited, stored, reason="serial typed wrong", by="D.M.",
-                                            at=T0 + timedelta(hours=1)), "corrected")
+    fixed = store.save_trip(
+        with_correction(edited, stored, reason="serial typed wrong", by="D.M.", at=T0 + timedelta(hours=1)), "corrected"
+    )
     assert review_state(fixed) == "reviewed" and fixed.notes == "meter serial corrected"
     assert approved_version(fixed.to_document())["notes"] == stored["notes"]

@@ -1,4 +1,5 @@
 """Fixtures for the records tests: a real device store in a temporary folder, and record builders."""
+
 from __future__ import annotations
 
 from datetime import datetime, timedelta, timezone
@@ -25,22 +26,30 @@ class FakeClock:
 @pytest.fixture
 def store(tmp_path):
     s = DeviceStore.open(tmp_path / "data", device_id="dev-test-a", clock=FakeClock())
-    s.save_sites([
-        Site(id="LK-01", name="Mill Ford", elevation_m=212.0, water_class="warm"),
-        Site(id="LK-03", name="Alder Gauge", elevation_m=395.0, water_class="cold"),
-        Site(id="LK-05", name="Tamsin Falls Pool", elevation_m=1500.0, water_class="cold"),
-    ])
+    s.save_sites(
+        [
+            Site(id="LK-01", name="Mill Ford", elevation_m=212.0, water_class="warm"),
+            Site(id="LK-03", name="Alder Gauge", elevation_m=395.0, water_class="cold"),
+            Site(id="LK-05", name="Tamsin Falls Pool", elevation_m=1500.0, water_class="cold"),
+        ]
+    )
     return s
 
 
-def make_stop(site="LK-01", at=T0, temp="18.5", pressure="1013.25 hPa", cond="300 uS/cm", do="8.4",
-              bottles=(), closed=False, **kw) -> Stop:
-    return Stop(site_id=site, arrived_at=at,
-                temp=measure("temp", temp) if temp else None,
-                pressure=measure("pressure", pressure) if pressure else None,
-                conductivity=measure("conductivity", cond) if cond else None,
-                do=measure("do", do, default_unit="mg/L") if do else None,
-                bottles=list(bottles), closed_at=(at + timedelta(minutes=20)) if closed else None, **kw)
+def make_stop(
+    site="LK-01", at=T0, temp="18.5", pressure="1013.25 hPa", cond="300 uS/cm", do="8.4", bottles=(), closed=False, **kw
+) -> Stop:
+    return Stop(
+        site_id=site,
+        arrived_at=at,
+        temp=measure("temp", temp) if temp else None,
+        pressure=measure("pressure", pressure) if pressure else None,
+        conductivity=measure("conductivity", cond) if cond else None,
+        do=measure("do", do, default_unit="mg/L") if do else None,
+        bottles=list(bottles),
+        closed_at=(at + timedelta(minutes=20)) if closed else None,
+        **kw,
+    )
 
 
 def make_bottle(label="TV-0001", kind="bod", at=T0, fixed=None, **kw) -> Bottle:
@@ -48,8 +57,9 @@ def make_bottle(label="TV-0001", kind="bod", at=T0, fixed=None, **kw) -> Bottle:
 
 
 def make_cal(reading=9.09, temp="20.0", pressure="1013.25 hPa", kind="pre-trip", at=T0) -> Calibration:
-    return Calibration(kind=kind, at=at, temp=measure("temp", temp), pressure=measure("pressure", pressure),
-                       reading_mg_l=reading)
+    return Calibration(
+        kind=kind, at=at, temp=measure("temp", temp), pressure=measure("pressure", pressure), reading_mg_l=reading
+    )
 
 
 def make_trip(stops=(), **kw) -> Trip:

@@ -3,6 +3,7 @@ number, field label, each value with its unit, the device's name and when; settl
 value or type one) is recorded in the trip and survives merging in either order; two live results
 of one analysis on one bottle are a conflict settled the same way; a correction is audited with
 its reason (common practice: keep every version, let a person choose, record who and why)."""
+
 from __future__ import annotations
 
 import copy
@@ -32,8 +33,9 @@ def two_devices(tmp_path, store):
     other.set_device_name("Tablet B")
     stop = make_stop(site="LK-03", bottles=[make_bottle("TV-0001", kind="do-fixed", fixed=None)])
     first = make_stop(site="LK-01")
-    trip = store.save_trip(make_trip([first, stop.model_copy(update={"arrived_at": first.arrived_at
-                                                                      + timedelta(hours=1)})]), "new")
+    trip = store.save_trip(
+        make_trip([first, stop.model_copy(update={"arrived_at": first.arrived_at + timedelta(hours=1)})]), "new"
+    )
     other.merge_document(store.trip_document(trip.id), "pulled")
     return store, other, trip.id
 
@@ -45,6 +47,7 @@ def set_temp(store, trip_id, index, text):
         stops = sorted(t.stops, key=lambda s: s.arrived_at)
         target = stops[index].model_copy(update={"temp": measure("temp", text)})
         return t.model_copy(update={"stops": [target if s.id == target.id else s for s in t.stops]})
+
     return store.update_trip(trip_id, f"temp {text}", fn)
 
 
@@ -61,8 +64,10 @@ def test_a_conflict_reads_in_words(tmp_path, store):
     assert out.result == "merged" and len(out.conflicts) == 1
     (view,) = list_conflicts(out.trip, this_device=a.device_id)
     assert (view.number, view.stop, view.site_id, view.label) == (1, 2, "LK-03", "Water temperature")
-    assert [v["text"] for v in view.values] == ["12,8 °C", "13.4 °C"] or \
-        [v["text"] for v in view.values] == ["13.4 °C", "12,8 °C"]
+    assert [v["text"] for v in view.values] == ["12,8 °C", "13.4 °C"] or [v["text"] for v in view.values] == [
+        "13.4 °C",
+        "12,8 °C",
+    ]
     assert {v["device"] for v in view.values} == {"Tablet A", "Tablet B"}
     assert all(v["at"] for v in view.values)
     for text in (view.message, json.dumps(view.to_dict()["message"])):
@@ -100,9 +105,9 @@ def test_settle_with_a_typed_value_uses_the_apps_rules(tmp_path, store):
     set_temp(b, tid, 1, "13.4")
     trip = pull(a, b, tid, base).trip
     with pytest.raises(ConflictError) as info:
-        settle(trip, "1", value="68 °C", by="M.K.", at=AT)            # out of the accepted range
+        settle(trip, "1", value="68 °C", by="M.K.", at=AT)  # out of the accepted range
     assert "Water temperature" in str(info.value)
-    settled = settle(trip, "1", value="13,1", by="M.K.", at=AT)       # decimal comma, °C by default
+    settled = settle(trip, "1", value="13,1", by="M.K.", at=AT)  # decimal comma, °C by default
     stop = sorted(settled.stops, key=lambda s: s.arrived_at)[1]
     assert stop.temp.text == "13,1 °C" and stop.temp.value == pytest.approx(13.1)
     with pytest.raises(ConflictError):
@@ -113,14 +118,22 @@ def test_settle_with_a_typed_value_uses_the_apps_rules(tmp_path, store):
 
 def winkler(trip, titrant_ml):
     at = trip.stops[0].arrived_at + timedelta(hours=2)
-    return record_winkler(trip, "TV-0001", titrant_ml=titrant_ml, titrated_ml=201.0, normality=0.025,
-                          analysed_at=at, now=at, analyst="J.M.").trip
+    return record_winkler(
+        trip,
+        "TV-0001",
+        titrant_ml=titrant_ml,
+        titrated_ml=201.0,
+        normality=0.025,
+        analysed_at=at,
+        now=at,
+        analyst="J.M.",
+    ).trip
 
 
 def test_two_live_results_from_two_machines_are_a_conflict_settled_the_same_way(tmp_path, store):
     a, b, tid = two_devices(tmp_path, store)
     base = a.trip_document(tid)
-    a.update_trip(tid, "lab", lambda t: winkler(t, 8.2))    # Standard Methods 4500-O C
+    a.update_trip(tid, "lab", lambda t: winkler(t, 8.2))  # Standard Methods 4500-O C
     b.update_trip(tid, "lab", lambda t: winkler(t, 8.4))
     out = pull(a, b, tid, base)
     (view,) = list_conflicts(out.trip)
@@ -146,8 +159,13 @@ def test_correction_is_audited_with_reason_and_old_value(store):
     assert "computed" in str(info.value)
     with pytest.raises(ConflictError):
         correct(trip, 2, "water_temp_c", "12")
-    saved = store.update_trip(trip.id, "correction", lambda t: correct(t, 1, "water_temp_c", "17,5")[0],
-                              by="Office (M.K.)", reason="meter read in °F, converted")
+    saved = store.update_trip(
+        trip.id,
+        "correction",
+        lambda t: correct(t, 1, "water_temp_c", "17,5")[0],
+        by="Office (M.K.)",
+        reason="meter read in °F, converted",
+    )
     assert saved.stops[0].temp.text == "17,5 °C"
     entry = saved.audit[-1]
     assert entry.reason == "meter read in °F, converted" and entry.by == "Office (M.K.)"
@@ -161,23 +179,40 @@ EDITABLE = ("notes", "weather", "flow")
 
 def _doc(notes_a, notes_b, other_edits):
     """A merged trip with one open conflict on stop 1's notes, and another device's later edits."""
-    base = make_trip([make_stop(id="00000000-0000-4000-8000-000000000001")],
-                     id="5f0901de-c1b3-4a79-aaa5-95b642d7d1c1").to_document()
-    base["audit"] = [{"id": "a0", "at": "2026-06-14T09:00:00Z", "device_id": "dev-A", "change": "new",
-                      "revision": 1}]
+    base = make_trip(
+        [make_stop(id="00000000-0000-4000-8000-000000000001")], id="5f0901de-c1b3-4a79-aaa5-95b642d7d1c1"
+    ).to_document()
+    base["audit"] = [{"id": "a0", "at": "2026-06-14T09:00:00Z", "device_id": "dev-A", "change": "new", "revision": 1}]
     a, b = copy.deepcopy(base), copy.deepcopy(base)
     a["stops"][0]["notes"], b["stops"][0]["notes"] = notes_a, notes_b
-    a["audit"] = a["audit"] + [{"id": "a1", "at": "2026-06-14T10:00:00Z", "device_id": "dev-A", "change": "x",
-                                "device_name": "Tablet A", "revision": 2}]
-    b["audit"] = b["audit"] + [{"id": "b1", "at": "2026-06-14T10:05:00Z", "device_id": "dev-B", "change": "y",
-                                "device_name": "Tablet B", "revision": 2}]
+    a["audit"] = a["audit"] + [
+        {
+            "id": "a1",
+            "at": "2026-06-14T10:00:00Z",
+            "device_id": "dev-A",
+            "change": "x",
+            "device_name": "Tablet A",
+            "revision": 2,
+        }
+    ]
+    b["audit"] = b["audit"] + [
+        {
+            "id": "b1",
+            "at": "2026-06-14T10:05:00Z",
+            "device_id": "dev-B",
+            "change": "y",
+            "device_name": "Tablet B",
+            "revision": 2,
+        }
+    ]
     a["updated_at"], b["updated_at"] = "2026-06-14T10:00:00Z", "2026-06-14T10:05:00Z"
     merged = merge_trips(base, a, b).doc
-    later = copy.deepcopy(merged)             # another device's edits made after the merge
+    later = copy.deepcopy(merged)  # another device's edits made after the merge
     for key, value in other_edits.items():
         later["stops"][0][key] = value
-    later["audit"] = later["audit"] + [{"id": "c1", "at": "2026-06-14T11:00:00Z", "device_id": "dev-C",
-                                        "change": "z", "revision": 3}]
+    later["audit"] = later["audit"] + [
+        {"id": "c1", "at": "2026-06-14T11:00:00Z", "device_id": "dev-C", "change": "z", "revision": 3}
+    ]
     later["updated_at"] = "2026-06-14T11:00:00Z"
     return merged, later
 
@@ -187,9 +222,13 @@ def _content(doc):
 
 
 @settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
-@given(notes_a=st.text(min_size=1, max_size=12), notes_b=st.text(min_size=1, max_size=12),
-       other=st.dictionaries(st.sampled_from(("weather", "flow")), st.text(max_size=10), max_size=2),
-       keep=st.sampled_from((1, 2)), settle_first=st.booleans())
+@given(
+    notes_a=st.text(min_size=1, max_size=12),
+    notes_b=st.text(min_size=1, max_size=12),
+    other=st.dictionaries(st.sampled_from(("weather", "flow")), st.text(max_size=10), max_size=2),
+    keep=st.sampled_from((1, 2)),
+    settle_first=st.booleans(),
+)
 def test_settling_and_merging_commute(notes_a, notes_b, other, keep, settle_first):
     if notes_a == notes_b:
         return
@@ -230,15 +269,41 @@ def test_cli_conflicts_settle_and_correct(tmp_path, store):
     assert shown["status"] != "needs attention"
     assert [(x["number"], x["site_id"]) for x in shown["stops"]] == [(1, "LK-01"), (2, "LK-03")]
     r = run_cli("trip", "show", tid[:8], data_dir=data)
-    assert "stop 2: LK-03" in r.stdout                  # the numbers --stop and the conflicts use
-    r = run_cli("trip", "correct", tid[:8], "--stop", "1", "--field", "meter_do_value", "--value", "8,9",
-                "--reason", "reading entered at the wrong stop", "--by", "M.K.", data_dir=data)
+    assert "stop 2: LK-03" in r.stdout  # the numbers --stop and the conflicts use
+    r = run_cli(
+        "trip",
+        "correct",
+        tid[:8],
+        "--stop",
+        "1",
+        "--field",
+        "meter_do_value",
+        "--value",
+        "8,9",
+        "--reason",
+        "reading entered at the wrong stop",
+        "--by",
+        "M.K.",
+        data_dir=data,
+    )
     assert r.returncode == 0, r.stderr
     trip = DeviceStore.open(data).load_trip(tid)
     assert sorted(trip.stops, key=lambda s: s.arrived_at)[0].do.text == "8,9 mg/L"
     assert trip.audit[-1].reason == "reading entered at the wrong stop" and trip.audit[-1].by == "M.K."
-    r = run_cli("trip", "correct", tid[:8], "--stop", "1", "--field", "do_sat_mg_l", "--value", "9",
-                "--reason", "x", data_dir=data)
+    r = run_cli(
+        "trip",
+        "correct",
+        tid[:8],
+        "--stop",
+        "1",
+        "--field",
+        "do_sat_mg_l",
+        "--value",
+        "9",
+        "--reason",
+        "x",
+        data_dir=data,
+    )
     assert r.returncode == 2 and "computed" in r.stderr and len(r.stderr.strip().splitlines()) == 1
 
 
@@ -250,11 +315,24 @@ def test_cli_correct_on_an_approved_trip_adds_the_review_correction(tmp_path):
     trip = new_trip(store, stops=1)
     trip = store.save_trip(trip.model_copy(update={"ended_at": trip.started_at + timedelta(hours=6)}), "ended")
     ev = new_event(trip, "approved", by="D.M.", at=AT)
-    store.update_trip(trip.id, "approved", lambda t: Trip.from_document(
-        {**t.to_document(), "review_events": [ev]}))
+    store.update_trip(trip.id, "approved", lambda t: Trip.from_document({**t.to_document(), "review_events": [ev]}))
     before = store.trip_document(trip.id)
-    r = run_cli("trip", "correct", trip.id[:8], "--stop", "1", "--field", "notes", "--value", "gauge 0.42 m",
-                "--reason", "reading entered at the wrong stop", "--by", "D.M.", data_dir=tmp_path / "office")
+    r = run_cli(
+        "trip",
+        "correct",
+        trip.id[:8],
+        "--stop",
+        "1",
+        "--field",
+        "notes",
+        "--value",
+        "gauge 0.42 m",
+        "--reason",
+        "reading entered at the wrong stop",
+        "--by",
+        "D.M.",
+        data_dir=tmp_path / "office",
+    )
     assert r.returncode == 0, r.stderr
     doc = DeviceStore.open(tmp_path / "office").trip_document(trip.id)
     assert review_state(doc) == "reviewed" and doc["stops"][0]["notes"] == "gauge 0.42 m"

@@ -1,4 +1,5 @@
 """Crash safety (SIGKILL at random moments while saving stops) and the inter-process lock."""
+
 from __future__ import annotations
 
 import json
@@ -33,9 +34,14 @@ def _child(data_dir, report_path, trip_ids, seed) -> None:
     n = 0
     while True:
         trip_id = rnd.choice(trip_ids)
-        stop = Stop(site_id="LK-01", arrived_at=T0 + timedelta(minutes=n),
-                    temp=_quantity(round(rnd.uniform(5, 25), 2), "°C"), pressure=_quantity(1000.0, "hPa"),
-                    do=_quantity(round(rnd.uniform(6, 11), 2), "mg/L"), notes="x" * rnd.randint(0, 2000))
+        stop = Stop(
+            site_id="LK-01",
+            arrived_at=T0 + timedelta(minutes=n),
+            temp=_quantity(round(rnd.uniform(5, 25), 2), "°C"),
+            pressure=_quantity(1000.0, "hPa"),
+            do=_quantity(round(rnd.uniform(6, 11), 2), "mg/L"),
+            notes="x" * rnd.randint(0, 2000),
+        )
         store.save_stop(trip_id, stop, "crash-test stop")
         # Only after save_stop returned: record it durably, then go on.
         os.write(fd, f"{trip_id} {stop.id}\n".encode())
@@ -62,8 +68,17 @@ def test_sigkill_while_saving_never_loses_a_returned_save(tmp_path):
     warm = store.save_trip(make_trip(), "warm-up")
     t0 = time.monotonic()
     for k in range(3):
-        store.save_stop(warm.id, Stop(site_id="LK-01", arrived_at=T0, temp=_quantity(10.0 + k, "°C"),
-                                      pressure=_quantity(1000.0, "hPa"), do=_quantity(9.0, "mg/L")), "warm-up")
+        store.save_stop(
+            warm.id,
+            Stop(
+                site_id="LK-01",
+                arrived_at=T0,
+                temp=_quantity(10.0 + k, "°C"),
+                pressure=_quantity(1000.0, "hPa"),
+                do=_quantity(9.0, "mg/L"),
+            ),
+            "warm-up",
+        )
     # Kill within a window of a few saves, whatever this disk's fsync costs today.
     window_s = min(0.15, max(0.03, 6 * (time.monotonic() - t0) / 3))
     trips: list[str] = []
@@ -84,8 +99,9 @@ def test_sigkill_while_saving_never_loses_a_returned_save(tmp_path):
         time.sleep(rnd.uniform(0.0, window_s))
         os.kill(pid, signal.SIGKILL)
         _, status = os.waitpid(pid, 0)
-        assert os.WIFSIGNALED(status) and os.WTERMSIG(status) == signal.SIGKILL, \
+        assert os.WIFSIGNALED(status) and os.WTERMSIG(status) == signal.SIGKILL, (
             f"child ended before the kill (status {status}); see its error"
+        )
 
         leftovers = [p for sub in ("trips", "index") for p in (data_dir / sub).glob(".*.tmp")]
         killed_mid_write += bool(leftovers)
@@ -129,8 +145,9 @@ HOLDER = textwrap.dedent("""
 def test_second_process_waits_then_gets_a_clear_message(tmp_path):
     data_dir = tmp_path / "store"
     DeviceStore.open(data_dir)
-    holder = subprocess.Popen([sys.executable, "-c", HOLDER, str(data_dir), "6"], stdout=subprocess.PIPE,
-                              text=True, env=cli_env(), cwd=ROOT)
+    holder = subprocess.Popen(
+        [sys.executable, "-c", HOLDER, str(data_dir), "6"], stdout=subprocess.PIPE, text=True, env=cli_env(), cwd=ROOT
+    )
     try:
         assert holder.stdout.readline().strip() == "held"
         impatient = DeviceStore.open.__func__  # noqa: F841 - documents that open itself also locks
@@ -157,8 +174,9 @@ def test_cli_reports_busy_store(tmp_path):
 
     data_dir = tmp_path / "store"
     DeviceStore.open(data_dir)
-    holder = subprocess.Popen([sys.executable, "-c", HOLDER, str(data_dir), "30"], stdout=subprocess.PIPE,
-                              text=True, env=cli_env(), cwd=ROOT)
+    holder = subprocess.Popen(
+        [sys.executable, "-c", HOLDER, str(data_dir), "30"], stdout=subprocess.PIPE, text=True, env=cli_env(), cwd=ROOT
+    )
     try:
         assert holder.stdout.readline().strip() == "held"
         r = run_cli("trip", "list", data_dir=data_dir, timeout=60)

@@ -1,5 +1,6 @@
 """Exchange and command line: JSON and CSV round trips, site lists with line-numbered errors,
 `streamtab sites import` and `trip import|list|show|export` on the sample scenario."""
+
 from __future__ import annotations
 
 import csv
@@ -9,8 +10,15 @@ from pathlib import Path
 
 import pytest
 
-from core.records.exchange import (BOTTLE_COLUMNS, STOP_COLUMNS, ExchangeError, export_trip_csv, export_trip_json,
-                           import_sites_csv, import_trip_file)
+from core.records.exchange import (
+    BOTTLE_COLUMNS,
+    STOP_COLUMNS,
+    ExchangeError,
+    export_trip_csv,
+    export_trip_json,
+    import_sites_csv,
+    import_trip_file,
+)
 from core.store import DeviceStore
 from tests.conftest import ROOT, run_cli
 from tests.records.conftest import make_bottle, make_cal, make_stop, make_trip
@@ -70,16 +78,25 @@ def test_json_import_bad_field_names_file_and_field(store, tmp_path):
 
 # ---- CSV exports --------------------------------------------------------------------------
 def test_csv_round_trip_values_and_units_in_headers(store):
-    s1 = make_stop(temp="18,5", pressure="752 mmHg", cond="0.41 mS/cm", do="8.4",
-                   bottles=[make_bottle("TV-1"), make_bottle("TV-2", kind="blank")], notes='pool, "deep"')
+    s1 = make_stop(
+        temp="18,5",
+        pressure="752 mmHg",
+        cond="0.41 mS/cm",
+        do="8.4",
+        bottles=[make_bottle("TV-1"), make_bottle("TV-2", kind="blank")],
+        notes='pool, "deep"',
+    )
     trip = store.save_trip(make_trip([s1]), "x")
     files = export_trip_csv(store, trip.id)
     assert set(files) == {"stops.csv", "bottles.csv"}
     stops = list(csv.DictReader(io.StringIO(files["stops.csv"])))
     bottles = list(csv.DictReader(io.StringIO(files["bottles.csv"])))
     assert tuple(stops[0]) == STOP_COLUMNS and tuple(bottles[0]) == BOTTLE_COLUMNS
-    assert all(h.endswith(("_c", "_hpa", "_us_cm", "_mg_l", "_saturation", "_pss78")) or not h.startswith(
-        ("water_temp_c", "station_pressure_hpa")) for h in STOP_COLUMNS)
+    assert all(
+        h.endswith(("_c", "_hpa", "_us_cm", "_mg_l", "_saturation", "_pss78"))
+        or not h.startswith(("water_temp_c", "station_pressure_hpa"))
+        for h in STOP_COLUMNS
+    )
     row = stops[0]
     stored = store.load_trip(trip.id).stops[0]
     assert float(row["water_temp_c"]) == stored.temp.value and row["water_temp_as_typed"] == "18,5"
@@ -93,26 +110,38 @@ def test_csv_round_trip_values_and_units_in_headers(store):
 
 # ---- site lists ---------------------------------------------------------------------------
 def test_sites_csv_import(store, tmp_path):
-    p = write(tmp_path, "s.csv", "site_id,name,elevation_m,water_class\nLK-07,Fern Steps,\"301,5\",cold\n")
+    p = write(tmp_path, "s.csv", 'site_id,name,elevation_m,water_class\nLK-07,Fern Steps,"301,5",cold\n')
     sites = import_sites_csv(store, p)
     assert sites[0].elevation_m == 301.5 and store.sites_by_id()["LK-07"].water_class == "cold"
 
 
-@pytest.mark.parametrize("text,expected", [
-    ("site_id,name\nLK-1,A\n", "s.csv, line 1: missing column elevation_m"),
-    ("site_id,name,elevation_m,elev\nLK-1,A,3,4\n", "s.csv, line 1: unknown column elev"),
-    ("site_id,name,elevation_m\nLK-1,A,10\nLK-2,B,abc\n", "s.csv, line 3, column elevation_m: Elevation: “abc” is not a number"),
-    ("site_id,name,elevation_m\nLK-1,A,10\nLK-1,B,20\n", "s.csv, line 3: site LK-1 is listed twice (first on line 2)"),
-    ("site_id,name,elevation_m\nLK-1,A,\n", "s.csv, line 2, column elevation_m: Elevation is required"),
-    ("site_id,name,elevation_m,water_class\nLK-1,A,10,tepid\n", "s.csv, line 2, column water_class: Water class: “tepid” is not one of"),
-    ("site_id,name,elevation_m\nLK-1,A,9000\n", "s.csv, line 2, column elevation_m: Elevation 9000 m is outside"),
-    ("site_id,name,elevation_m\nLK-1,A,1,234\n", "s.csv, line 2: more values than columns"),
-    ("site_id,name,elevation_m,min_do_mg_l\nLK-1,A,10,-3\n", "s.csv, line 2, column min_do_mg_l: "),
-    ("site_id,name,elevation_m,latitude\nLK-1,A,10,95\n", "s.csv, line 2, column latitude: "),
-    ("site_id,name,elevation_m\n,A,10\n", "s.csv, line 2, column site_id: "),
-    ("site_id,name,elevation_m\nLK-1,,10\n", "s.csv, line 2, column name: "),
-    ("site_id,name,elevation_m\n", "s.csv: no sites found"),
-])
+@pytest.mark.parametrize(
+    "text,expected",
+    [
+        ("site_id,name\nLK-1,A\n", "s.csv, line 1: missing column elevation_m"),
+        ("site_id,name,elevation_m,elev\nLK-1,A,3,4\n", "s.csv, line 1: unknown column elev"),
+        (
+            "site_id,name,elevation_m\nLK-1,A,10\nLK-2,B,abc\n",
+            "s.csv, line 3, column elevation_m: Elevation: “abc” is not a number",
+        ),
+        (
+            "site_id,name,elevation_m\nLK-1,A,10\nLK-1,B,20\n",
+            "s.csv, line 3: site LK-1 is listed twice (first on line 2)",
+        ),
+        ("site_id,name,elevation_m\nLK-1,A,\n", "s.csv, line 2, column elevation_m: Elevation is required"),
+        (
+            "site_id,name,elevation_m,water_class\nLK-1,A,10,tepid\n",
+            "s.csv, line 2, column water_class: Water class: “tepid” is not one of",
+        ),
+        ("site_id,name,elevation_m\nLK-1,A,9000\n", "s.csv, line 2, column elevation_m: Elevation 9000 m is outside"),
+        ("site_id,name,elevation_m\nLK-1,A,1,234\n", "s.csv, line 2: more values than columns"),
+        ("site_id,name,elevation_m,min_do_mg_l\nLK-1,A,10,-3\n", "s.csv, line 2, column min_do_mg_l: "),
+        ("site_id,name,elevation_m,latitude\nLK-1,A,10,95\n", "s.csv, line 2, column latitude: "),
+        ("site_id,name,elevation_m\n,A,10\n", "s.csv, line 2, column site_id: "),
+        ("site_id,name,elevation_m\nLK-1,,10\n", "s.csv, line 2, column name: "),
+        ("site_id,name,elevation_m\n", "s.csv: no sites found"),
+    ],
+)
 def test_sites_csv_errors_name_line_and_field(store, tmp_path, text, expected):
     before = store.sites()
     with pytest.raises(ExchangeError) as info:
@@ -213,8 +242,13 @@ def test_cli_show_lists_open_conflicts(tmp_path):
     d = tmp_path / "store"
     store = DeviceStore.open(d)
     doc = make_trip([make_stop()]).to_document()
-    doc["conflicts"] = [{"path": "notes", "detected_at": "2026-06-14T18:00:00Z",
-                         "sides": [{"device_id": "tablet-a", "value": "riffle"}, {"device_id": "tablet-b", "value": "pool"}]}]
+    doc["conflicts"] = [
+        {
+            "path": "notes",
+            "detected_at": "2026-06-14T18:00:00Z",
+            "sides": [{"device_id": "tablet-a", "value": "riffle"}, {"device_id": "tablet-b", "value": "pool"}],
+        }
+    ]
     trip = store.put_document(doc, "merged", expected_revision=None)
     r = run_cli("trip", "show", trip.id, data_dir=d)
     assert r.returncode == 0 and "needs attention" in r.stdout

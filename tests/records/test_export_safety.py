@@ -1,5 +1,6 @@
 """Exported tables are safe to open in a spreadsheet (formula-leading cells neutralised, NUL
 refused) and exported files get the permissions the person's umask gives any new file (issue 9)."""
+
 from __future__ import annotations
 
 import csv
@@ -10,30 +11,41 @@ import stat
 
 import pytest
 
-from core.records.exchange import (FORMULA_LEADS, ExchangeError, csv_table, export_trip_csv,
-                                   spreadsheet_safe)
+from core.records.exchange import FORMULA_LEADS, ExchangeError, csv_table, export_trip_csv, spreadsheet_safe
 from tests.conftest import run_cli
 from tests.records.conftest import make_stop, make_trip
 
 
 # The lead characters and the apostrophe prefix are the usual "CSV injection" neutralisation
 # (common practice, OWASP's CSV injection page).
-@pytest.mark.parametrize("cell", ["=HYPERLINK(\"http://x.test\",\"open\")", "+1+2", "-2+3*cmd|' /C calc'!A0",
-                                  "@SUM(A1:A2)", "\tleading tab", "\rleading return"])
+@pytest.mark.parametrize(
+    "cell",
+    [
+        '=HYPERLINK("http://x.test","open")',
+        "+1+2",
+        "-2+3*cmd|' /C calc'!A0",
+        "@SUM(A1:A2)",
+        "\tleading tab",
+        "\rleading return",
+    ],
+)
 def test_formula_leading_cells_are_written_as_text(cell):
     assert cell.startswith(FORMULA_LEADS)
     assert spreadsheet_safe(cell) == "'" + cell
 
 
-@pytest.mark.parametrize("cell", ["-0.35", "+12.5", "-1e-3", "8.4", "", "pool, \"deep\"", "a=b", "5 - 3"])
+@pytest.mark.parametrize("cell", ["-0.35", "+12.5", "-1e-3", "8.4", "", 'pool, "deep"', "a=b", "5 - 3"])
 def test_numbers_and_ordinary_text_pass_unchanged(cell):
     assert spreadsheet_safe(cell) == cell
 
 
 def test_nul_is_refused_in_one_line_naming_the_file_line_and_column():
     with pytest.raises(ExchangeError) as info:
-        csv_table(("site_id", "notes"), [{"site_id": "LK-01", "notes": "ok"},
-                                          {"site_id": "LK-02", "notes": "cut\x00here"}], name="stops.csv")
+        csv_table(
+            ("site_id", "notes"),
+            [{"site_id": "LK-01", "notes": "ok"}, {"site_id": "LK-02", "notes": "cut\x00here"}],
+            name="stops.csv",
+        )
     msg = str(info.value)
     assert msg.startswith("stops.csv, line 3, column notes:") and "NUL" in msg and "\n" not in msg
 
@@ -54,10 +66,10 @@ def test_exported_files_get_the_umask_permissions(store, tmp_path, umask, expect
     out.mkdir()
     old = os.umask(umask)
     try:
-        r_json = run_cli("trip", "export", trip.id, "--format", "json", "--out", str(out / "t.json"),
-                         data_dir=store.data_dir)
-        r_csv = run_cli("trip", "export", trip.id, "--format", "csv", "--out", str(out),
-                        data_dir=store.data_dir)
+        r_json = run_cli(
+            "trip", "export", trip.id, "--format", "json", "--out", str(out / "t.json"), data_dir=store.data_dir
+        )
+        r_csv = run_cli("trip", "export", trip.id, "--format", "csv", "--out", str(out), data_dir=store.data_dir)
     finally:
         os.umask(old)
     assert r_json.returncode == 0 and r_csv.returncode == 0, r_json.stderr + r_csv.stderr

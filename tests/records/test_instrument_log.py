@@ -1,5 +1,6 @@
 """A calibration log per instrument in the program settings: zero-DO check, reference barometer, drift limit in
 mg/L or % (USGS National Field Manual A6.2 for the checks [memory for the limits: common practice])."""
+
 from __future__ import annotations
 
 from datetime import datetime, timedelta, timezone
@@ -19,7 +20,7 @@ def codes(flags):
 
 
 def test_zero_and_barometer_checks_fire_and_not():
-    assert codes(instrument_flags("DO-7", zero_do_mg_l=0.35)) == ["instrument.zero_do"]      # > 0.2 mg/L
+    assert codes(instrument_flags("DO-7", zero_do_mg_l=0.35)) == ["instrument.zero_do"]  # > 0.2 mg/L
     assert instrument_flags("DO-7", zero_do_mg_l=0.15) == []
     assert codes(instrument_flags("DO-7", barometer_difference_hpa=-3.1)) == ["instrument.barometer"]
     assert instrument_flags("DO-7", barometer_difference_hpa=1.4) == []
@@ -37,16 +38,21 @@ def test_drift_limit_in_percent_of_the_target():
 
 def _trip(post_reading):
     stop = Stop(site_id="LO", arrived_at=T0, temp=measure("temp", "12 °C"), pressure=measure("pressure", "1010 hPa"))
-    post = Calibration(kind="post-trip", at=T0 + timedelta(hours=6), temp=measure("temp", "20 °C"),
-                       pressure=measure("pressure", "1013.25 hPa"), reading_mg_l=post_reading)
+    post = Calibration(
+        kind="post-trip",
+        at=T0 + timedelta(hours=6),
+        temp=measure("temp", "20 °C"),
+        pressure=measure("pressure", "1013.25 hPa"),
+        reading_mg_l=post_reading,
+    )
     return Trip(started_at=T0, meter_id="DO-7", stops=[stop], post_check=post)
 
 
 def test_the_meters_drift_limit_decides_the_post_trip_check():
     target = float(calibration_target_mg_l(20.0, 1013.25))
-    log = InstrumentLog(serial="do-7", drift_limit=5.0, drift_unit="%")        # ±0.45 mg/L for this meter
+    log = InstrumentLog(serial="do-7", drift_limit=5.0, drift_unit="%")  # ±0.45 mg/L for this meter
     loose = ProgramSettings(instruments=[log])
-    reading = target + 0.3                                                     # outside the program's 0.2
+    reading = target + 0.3  # outside the program's 0.2
     assert derive_trip(_trip(reading), SITES, ProgramSettings()).post_check.accepted is False
     assert derive_trip(_trip(reading), SITES, loose).post_check.accepted is True
     assert loose.instrument(" DO-7 ") is log and loose.instrument("DO-8") is None
@@ -75,4 +81,5 @@ def test_reporting_decimals_are_a_program_setting_and_never_touch_stored_values(
     assert rounding_for(old).percent == 1
     trip = derive_trip(_trip(9.0), SITES, ProgramSettings(reporting_decimals={"do_mg_l": 0}))
     assert trip.post_check.reading_mg_l == 9.0 and trip.stops[0].derived.do_sat_mg_l != round(
-        trip.stops[0].derived.do_sat_mg_l)
+        trip.stops[0].derived.do_sat_mg_l
+    )

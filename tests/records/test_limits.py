@@ -1,5 +1,6 @@
 """Limits per field and per list on documents from outside the device: an import breaking one is
 refused in one line naming the field, nothing stored, never a RecursionError (issue 9)."""
+
 from __future__ import annotations
 
 import json
@@ -7,8 +8,7 @@ import json
 import pytest
 
 from core.records.exchange import ExchangeError, import_trip_file
-from core.records.limits import (LIST_LIMITS, MAX_DEPTH, MAX_TEXT_CHARS, LimitError,
-                                 check_document_limits, loads_limited)
+from core.records.limits import LIST_LIMITS, MAX_DEPTH, MAX_TEXT_CHARS, LimitError, check_document_limits, loads_limited
 from tests.conftest import run_cli
 from tests.records.conftest import make_stop, make_trip
 

@@ -1,6 +1,7 @@
 """Merging trip documents by element id: one-sided changes win, two-sided clashes are kept as
 conflicts, and the result does not depend on the order of the sides (rules: core/records/merge.py;
 three-way merge by element identity is common practice in file synchronisers)."""
+
 import copy
 
 from hypothesis import given, settings
@@ -13,28 +14,49 @@ STOP_IDS = [f"00000000-0000-4000-8000-00000000000{i}" for i in range(5)]
 
 
 def audit(*ids):
-    return [{"id": i, "at": f"2026-06-03T0{n}:00:00Z", "device_id": "dev-A", "change": "x",
-             "revision": n + 1} for n, i in enumerate(ids)]
+    return [
+        {"id": i, "at": f"2026-06-03T0{n}:00:00Z", "device_id": "dev-A", "change": "x", "revision": n + 1}
+        for n, i in enumerate(ids)
+    ]
 
 
 def base_doc():
     return {
-        "id": TRIP, "revision": 2, "updated_at": "2026-06-03T09:00:00Z", "device_id": "dev-A",
-        "program": "Tamsin Valley Stream Watch", "crew": ["R.O."], "notes": "",
+        "id": TRIP,
+        "revision": 2,
+        "updated_at": "2026-06-03T09:00:00Z",
+        "device_id": "dev-A",
+        "program": "Tamsin Valley Stream Watch",
+        "crew": ["R.O."],
+        "notes": "",
         "stops": [
-            {"id": STOP_IDS[0], "site_id": "LK-01", "notes": "", "temp": {"value": 12.5},
-             "bottles": [{"id": "b0", "label": "TV-0001", "notes": ""}]},
+            {
+                "id": STOP_IDS[0],
+                "site_id": "LK-01",
+                "notes": "",
+                "temp": {"value": 12.5},
+                "bottles": [{"id": "b0", "label": "TV-0001", "notes": ""}],
+            },
             {"id": STOP_IDS[1], "site_id": "LK-02", "notes": "", "temp": {"value": 13.0}, "bottles": []},
         ],
-        "audit": audit("a1", "a2"), "conflicts": [],
+        "audit": audit("a1", "a2"),
+        "conflicts": [],
     }
 
 
 def edited(doc, device, stamp, audit_id):
     d = copy.deepcopy(doc)
     d["device_id"], d["updated_at"], d["revision"] = device, stamp, doc["revision"] + 1
-    d["audit"] = d["audit"] + [{"id": audit_id, "at": stamp, "device_id": device, "change": "edit",
-                                "device_name": device.replace("dev-", "Tablet "), "revision": d["revision"]}]
+    d["audit"] = d["audit"] + [
+        {
+            "id": audit_id,
+            "at": stamp,
+            "device_id": device,
+            "change": "edit",
+            "device_name": device.replace("dev-", "Tablet "),
+            "revision": d["revision"],
+        }
+    ]
     return d
 
 
@@ -127,9 +149,15 @@ def side(draw, base, device, stamp, audit_id):
         if op == "add":
             sid = draw(st.sampled_from(STOP_IDS))
             if all(s["id"] != sid for s in stops):
-                stops.insert(draw(st.integers(0, len(stops))),
-                             {"id": sid, "site_id": draw(st.sampled_from(["LK-03", "LK-04"])),
-                              "notes": draw(st.text(max_size=3)), "bottles": []})
+                stops.insert(
+                    draw(st.integers(0, len(stops))),
+                    {
+                        "id": sid,
+                        "site_id": draw(st.sampled_from(["LK-03", "LK-04"])),
+                        "notes": draw(st.text(max_size=3)),
+                        "bottles": [],
+                    },
+                )
         elif op == "top":
             d[draw(st.sampled_from(["notes", "program", "meter_id"]))] = draw(_values)
         elif stops:
@@ -141,8 +169,13 @@ def side(draw, base, device, stamp, audit_id):
             elif op == "remove":
                 stops.remove(s)
             elif op == "bottle":
-                s["bottles"].append({"id": draw(st.sampled_from(["b1", "b2", "b3"])),
-                                     "label": draw(st.text(min_size=1, max_size=3)), "notes": ""})
+                s["bottles"].append(
+                    {
+                        "id": draw(st.sampled_from(["b1", "b2", "b3"])),
+                        "label": draw(st.text(min_size=1, max_size=3)),
+                        "notes": "",
+                    }
+                )
     return d
 
 
@@ -169,6 +202,8 @@ def test_merge_gives_the_same_result_in_either_order(t, two_way):
             assert s["id"] in {x["id"] for x in ab.doc["stops"]}
     # merging the result again with an input it contains adds nothing new (bookkeeping aside)
     again = merge_trips(a, ab.doc, a).doc
+
     def strip(d):
         return {k: v for k, v in d.items() if k not in ("device_id", "revision", "updated_at")}
+
     assert strip(again) == strip(ab.doc)

@@ -1,15 +1,28 @@
 """Records: strict validation traps, typed values kept beside normalised ones, readable messages, schema file."""
+
 from __future__ import annotations
 
 import json
 from datetime import datetime
 
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 from pydantic import ValidationError
 
 from core.records.messages import TEMPLATES, problems_from_validation, render
-from core.records.models import (SCHEMA_PATH, Bottle, InputError, Quantity, Site, Stop, Trip, measure,
-                         parse_number, schema_text)
+from core.records.models import (
+    SCHEMA_PATH,
+    Bottle,
+    InputError,
+    Quantity,
+    Site,
+    Stop,
+    Trip,
+    measure,
+    parse_number,
+    schema_text,
+)
 from tests.records.conftest import T0, make_stop, make_trip
 
 
@@ -75,8 +88,9 @@ def test_int_timestamp_not_taken_as_time():
 
 
 # ---- decimal comma ----------------------------------------------------------------------------
-@pytest.mark.parametrize("text,expected", [("3,5", 3.5), ("3.5", 3.5), ("0,125", 0.125), ("-0,5", -0.5),
-                                           ("12", 12.0), ("1002,3", 1002.3)])
+@pytest.mark.parametrize(
+    "text,expected", [("3,5", 3.5), ("3.5", 3.5), ("0,125", 0.125), ("-0,5", -0.5), ("12", 12.0), ("1002,3", 1002.3)]
+)
 def test_decimal_comma_read_as_decimal(text, expected):
     assert parse_number(text, "do") == expected
 
@@ -93,9 +107,16 @@ def test_ambiguous_comma_refused_with_both_readings(text):
     assert text.replace(",", ".") in str(info.value) and text.replace(",", "") in str(info.value)
 
 
-@pytest.mark.parametrize("text,code", [("1.234,5", "number.invalid"), ("abc", "number.invalid"),
-                                       ("", "missing"), ("nan", "number.not_finite"),
-                                       ("inf", "number.not_finite")])
+@pytest.mark.parametrize(
+    "text,code",
+    [
+        ("1.234,5", "number.invalid"),
+        ("abc", "number.invalid"),
+        ("", "missing"),
+        ("nan", "number.not_finite"),
+        ("inf", "number.not_finite"),
+    ],
+)
 def test_bad_numbers_refused(text, code):
     with pytest.raises(InputError) as info:
         parse_number(text, "temp")
@@ -169,8 +190,21 @@ def test_do_unit_unknown():
 # ---- messages: every template renders our own text, never pydantic's ------------------------
 @pytest.mark.parametrize("code", sorted(TEMPLATES))
 def test_every_template_renders_without_placeholders(code):
-    text = render(code, label="Water temperature", input="x", value=1.0, low=0.0, high=2.0, unit="°C",
-                  choices="a, b", max=10, a="1.2", b="12", detail="d", expected="hPa")
+    text = render(
+        code,
+        label="Water temperature",
+        input="x",
+        value=1.0,
+        low=0.0,
+        high=2.0,
+        unit="°C",
+        choices="a, b",
+        max=10,
+        a="1.2",
+        b="12",
+        detail="d",
+        expected="hPa",
+    )
     assert "{" not in text and "}" not in text and text[0].isupper()
 
 
@@ -253,8 +287,13 @@ def test_every_list_element_has_an_id():
 
 def test_status_needs_attention_with_open_conflict():
     doc = make_trip().to_document()
-    doc["conflicts"] = [{"path": "stops[x].notes", "detected_at": "2026-06-14T10:00:00Z",
-                         "sides": [{"device_id": "a", "value": "p"}, {"device_id": "b", "value": "q"}]}]
+    doc["conflicts"] = [
+        {
+            "path": "stops[x].notes",
+            "detected_at": "2026-06-14T10:00:00Z",
+            "sides": [{"device_id": "a", "value": "p"}, {"device_id": "b", "value": "q"}],
+        }
+    ]
     assert Trip.from_document(doc).status == "needs attention"
     doc["conflicts"][0]["resolved_at"] = "2026-06-14T11:00:00Z"
     assert Trip.from_document(doc).status == "in progress"
@@ -264,8 +303,9 @@ def test_status_needs_attention_with_open_conflict():
 
 # ---- JSON Schema published in the repository --------------------------------------------------
 def test_committed_schema_equals_generated():
-    assert SCHEMA_PATH.read_text(encoding="utf-8") == schema_text(), \
+    assert SCHEMA_PATH.read_text(encoding="utf-8") == schema_text(), (
         "core/records/schema/trip.schema.json is stale: run `python -m core.records.models`"
+    )
 
 
 def test_schema_describes_trip_fields():
@@ -276,7 +316,6 @@ def test_schema_describes_trip_fields():
 
 
 # ---- property: a decimal comma is a decimal point, never a thousands separator ------------------
-from hypothesis import given, strategies as st  # noqa: E402
 
 
 @given(st.integers(min_value=0, max_value=99999), st.integers(min_value=0, max_value=99))

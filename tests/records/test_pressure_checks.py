@@ -1,6 +1,7 @@
 """Pressure checks beyond one reading: the calibration pressure against where the meter was calibrated, and a
 trip's pressures that stay flat across elevations (US Standard Atmosphere 1976: about 0.12 hPa per metre
 near sea level, team science reference §10; thresholds common practice)."""
+
 from __future__ import annotations
 
 from datetime import datetime, timedelta, timezone
@@ -12,14 +13,21 @@ from core.rules.qc import TRIP_KEY, derive_trip, trip_flags
 from core.science.pressure import flat_pressure_flag, standard_pressure_hpa
 
 T0 = datetime(2026, 6, 14, 9, 0, tzinfo=timezone.utc)
-SITES = {"LO": Site(id="LO", name="Low ford", elevation_m=40.0),
-         "MID": Site(id="MID", name="Mill", elevation_m=260.0),
-         "HI": Site(id="HI", name="Upper falls", elevation_m=640.0)}
+SITES = {
+    "LO": Site(id="LO", name="Low ford", elevation_m=40.0),
+    "MID": Site(id="MID", name="Mill", elevation_m=260.0),
+    "HI": Site(id="HI", name="Upper falls", elevation_m=640.0),
+}
 
 
 def stop(site, p, i):
-    return Stop(site_id=site, arrived_at=T0 + timedelta(hours=i), temp=measure("temp", "12 °C"),
-                pressure=measure("pressure", f"{p} hPa"), do=measure("do", "9.5 mg/L"))
+    return Stop(
+        site_id=site,
+        arrived_at=T0 + timedelta(hours=i),
+        temp=measure("temp", "12 °C"),
+        pressure=measure("pressure", f"{p} hPa"),
+        do=measure("do", "9.5 mg/L"),
+    )
 
 
 def codes(flags):
@@ -38,8 +46,10 @@ def test_flat_series_across_elevations_fires():
 
 def test_station_pressures_do_not_fire():
     # station pressures following the standard atmosphere (plus a 6 hPa high): no flag
-    series = [stop(s, round(standard_pressure_hpa(SITES[s].elevation_m) + 6.0, 1), i)
-              for i, s in enumerate(("LO", "MID", "HI"))]
+    series = [
+        stop(s, round(standard_pressure_hpa(SITES[s].elevation_m) + 6.0, 1), i)
+        for i, s in enumerate(("LO", "MID", "HI"))
+    ]
     flags = trip_flags(Trip(started_at=T0, stops=series), ProgramSettings(), T0 + timedelta(hours=3), sites=SITES)
     assert "pressure.flat_across_elevations" not in codes(flags[TRIP_KEY])
 
@@ -52,8 +62,12 @@ def test_small_spread_is_not_judged():
 
 
 def _cal(p):
-    return Calibration(at=T0 - timedelta(hours=1), temp=measure("temp", "15 °C"),
-                       pressure=measure("pressure", f"{p} hPa"), reading_mg_l=9.0)
+    return Calibration(
+        at=T0 - timedelta(hours=1),
+        temp=measure("temp", "15 °C"),
+        pressure=measure("pressure", f"{p} hPa"),
+        reading_mg_l=9.0,
+    )
 
 
 def test_calibration_pressure_checked_against_the_calibration_elevation():
@@ -68,6 +82,8 @@ def test_calibration_pressure_checked_against_the_calibration_elevation():
     assert "pressure.sea_level_adjusted" not in [f.code for f in cal.flags]
     # far below standard at the first site (mmHg typed as hPa): flagged too
     low = Trip(started_at=T0, stops=[stop("LO", 1010.0, 0)], pre_calibration=_cal(760.0))
-    assert "pressure.far_below_standard" in [f.code for f in derive_trip(low, SITES, ProgramSettings()).pre_calibration.flags]
+    assert "pressure.far_below_standard" in [
+        f.code for f in derive_trip(low, SITES, ProgramSettings()).pre_calibration.flags
+    ]
     with pytest.raises(ValueError):
         ProgramSettings(calibration_elevation_m=9000.0)

@@ -1,4 +1,5 @@
 """QC rules: each one made to fire and made not to (pure functions: records and `now` in, flags out)."""
+
 from __future__ import annotations
 
 from datetime import timedelta
@@ -70,8 +71,9 @@ def test_below_cold_criterion_fires():
 
 
 def test_site_criterion_overrides_program():
-    sites = dict(SITES, **{"LK-01": Site(id="LK-01", name="Mill Ford", elevation_m=212.0, water_class="warm",
-                                         min_do_mg_l=7.0)})
+    sites = dict(
+        SITES, **{"LK-01": Site(id="LK-01", name="Mill Ford", elevation_m=212.0, water_class="warm", min_do_mg_l=7.0)}
+    )
     assert "do.below_criterion" in stop_codes(make_stop("LK-01", temp="20", pressure=ATM, do="6.0"), sites=sites)
 
 

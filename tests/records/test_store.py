@@ -1,5 +1,6 @@
 """Device store: the one save path, audit, revisions, put_document, unknown fields, schema versions,
 migration, quarantine, index repair, TinyDB layout, sites and settings."""
+
 from __future__ import annotations
 
 import json
@@ -8,11 +9,18 @@ import os
 import pytest
 from tinydb import TinyDB
 
-from core.store.atomic import content_hash
 from core.records.migrations import migrate
 from core.records.models import SCHEMA_VERSION, ProgramSettings, Site, Trip, measure
-from core.store import (AtomicJSONStorage, CorruptFile, DeviceStore, InvalidRecord, NewerSchemaError, StaleTrip,
-                        TripNotFound)
+from core.store import (
+    AtomicJSONStorage,
+    CorruptFile,
+    DeviceStore,
+    InvalidRecord,
+    NewerSchemaError,
+    StaleTrip,
+    TripNotFound,
+)
+from core.store.atomic import content_hash
 from tests.records.conftest import FakeClock, make_bottle, make_stop, make_trip
 
 
@@ -148,11 +156,22 @@ def test_newer_schema_refused_and_left_untouched(store):
 
 
 V1_DOC = {
-    "schema_version": 1, "id": "0c0ffee0-0000-4000-8000-000000000001",
-    "program": "Tamsin Valley Stream Watch", "crew": "R.O., J.V.", "started_at": "2026-05-02T08:00:00-07:00",
-    "stops": [{"id": "0c0ffee0-0000-4000-8000-0000000000a1", "site": "LK-01", "time": "2026-05-02T08:30:00-07:00",
-               "temp_c": 20.0, "pressure_hpa": 1013.25, "do_mg_l": 8.5,
-               "bottles": [{"bottle_id": "TV-0100", "kind": "bod", "collected_at": "2026-05-02T08:35:00-07:00"}]}],
+    "schema_version": 1,
+    "id": "0c0ffee0-0000-4000-8000-000000000001",
+    "program": "Tamsin Valley Stream Watch",
+    "crew": "R.O., J.V.",
+    "started_at": "2026-05-02T08:00:00-07:00",
+    "stops": [
+        {
+            "id": "0c0ffee0-0000-4000-8000-0000000000a1",
+            "site": "LK-01",
+            "time": "2026-05-02T08:30:00-07:00",
+            "temp_c": 20.0,
+            "pressure_hpa": 1013.25,
+            "do_mg_l": 8.5,
+            "bottles": [{"bottle_id": "TV-0100", "kind": "bod", "collected_at": "2026-05-02T08:35:00-07:00"}],
+        }
+    ],
     "audit": [{"at": "2026-05-02T08:31:00-07:00", "device": "tablet-old", "what": "stop saved"}],
 }
 
@@ -339,10 +358,14 @@ def test_index_entry_checked_against_trip_file(store):
 def test_conflicts_make_the_trip_need_attention(store):
     trip = store.save_trip(make_trip([make_stop()]), "x")
     doc = store.trip_document(trip.id)
-    doc["conflicts"] = [{"id": "c0ffee00-0000-4000-8000-000000000001", "path": f"stops[{trip.stops[0].id}].notes",
-                         "detected_at": "2026-06-14T18:00:00Z",
-                         "sides": [{"device_id": "dev-test-a", "value": "riffle"},
-                                   {"device_id": "dev-b", "value": "pool"}]}]
+    doc["conflicts"] = [
+        {
+            "id": "c0ffee00-0000-4000-8000-000000000001",
+            "path": f"stops[{trip.stops[0].id}].notes",
+            "detected_at": "2026-06-14T18:00:00Z",
+            "sides": [{"device_id": "dev-test-a", "value": "riffle"}, {"device_id": "dev-b", "value": "pool"}],
+        }
+    ]
     merged = store.put_document(doc, "merged with the hub", expected_revision=doc["revision"])
     assert merged.status == "needs attention"
     s = store.list_trips()[0]

@@ -1,13 +1,15 @@
 """Property test of the save path: any sequence of edits keeps the store's invariants."""
+
 from __future__ import annotations
 
 from datetime import timedelta
 
-from hypothesis import HealthCheck, given, settings, strategies as st
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
-from core.store.atomic import content_hash
 from core.records.models import measure
 from core.store import DeviceStore
+from core.store.atomic import content_hash
 from tests.records.conftest import T0, FakeClock, make_stop, make_trip
 
 edit = st.one_of(

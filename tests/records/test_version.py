@@ -1,4 +1,5 @@
 """The version lives in one place, pyproject.toml, and every reader gets it from there (common practice)."""
+
 from __future__ import annotations
 
 import re
@@ -33,6 +34,10 @@ def test_derived_records_carry_it(store):
 
 def test_no_source_file_writes_the_version_itself():
     literal = re.compile(r"""["']""" + re.escape(PYPROJECT_VERSION) + r"""["']|streamtab-sync/\d""")
-    found = [str(p.relative_to(ROOT)) for folder in ("core", "sync", "mobile")
-             for p in (ROOT / folder).rglob("*.py") if literal.search(p.read_text(encoding="utf-8"))]
+    found = [
+        str(p.relative_to(ROOT))
+        for folder in ("core", "sync", "mobile")
+        for p in (ROOT / folder).rglob("*.py")
+        if literal.search(p.read_text(encoding="utf-8"))
+    ]
     assert found == []

@@ -2,6 +2,7 @@
 refused, a foreign version is merged under the store's lock (never replacing what is stored), an
 import keeps lab results, and the audit keeps the value each change replaced. Real store on disk,
 real CLI in a fresh interpreter (common practice: optimistic concurrency, as HTTP If-Match)."""
+
 from __future__ import annotations
 
 import copy
@@ -18,14 +19,15 @@ from tests.conftest import ROOT, run_cli
 from tests.records.conftest import FakeClock, make_bottle, make_cal, make_stop, make_trip
 
 SAMPLES = ROOT / "sample_trips"
-HOT = "a41f6e2d-8c3b-4d7a-b5e9-0c6d2f8e1a34"      # sample trip of 2026-06-23 (invented)
+HOT = "a41f6e2d-8c3b-4d7a-b5e9-0c6d2f8e1a34"  # sample trip of 2026-06-23 (invented)
 
 
 def winkler(trip, label="TV-0001", titrant_ml=8.2):
     """A Winkler result as `streamtab lab winkler` records it (Standard Methods 4500-O C)."""
     at = trip.stops[0].arrived_at + timedelta(hours=2)
-    return record_winkler(trip, label, titrant_ml=titrant_ml, titrated_ml=201.0, normality=0.025,
-                          analysed_at=at, now=at, analyst="J.M.").trip
+    return record_winkler(
+        trip, label, titrant_ml=titrant_ml, titrated_ml=201.0, normality=0.025, analysed_at=at, now=at, analyst="J.M."
+    ).trip
 
 
 def results(trip):
@@ -34,8 +36,9 @@ def results(trip):
 
 def fixed_bottle(label="TV-0001"):
     stop = make_stop()
-    return make_stop(bottles=[make_bottle(label, kind="do-fixed", at=stop.arrived_at,
-                                          fixed=stop.arrived_at + timedelta(minutes=2))])
+    return make_stop(
+        bottles=[make_bottle(label, kind="do-fixed", at=stop.arrived_at, fixed=stop.arrived_at + timedelta(minutes=2))]
+    )
 
 
 # ---- stale writes ------------------------------------------------------------------------------
@@ -49,9 +52,9 @@ def test_a_write_based_on_an_old_revision_is_refused_and_nothing_changes(store):
         store.put_document(stale, "sync", expected_revision=1)
     assert "changed elsewhere" in str(info.value) and "\n" not in str(info.value)
     assert store.trip_document(trip.id) == before
-    with pytest.raises(StaleTrip):            # the same rule for a Trip loaded before the app's save
+    with pytest.raises(StaleTrip):  # the same rule for a Trip loaded before the app's save
         store.save_trip(trip.model_copy(update={"meter_id": "DO-METER-07"}), "late form")
-    with pytest.raises(StaleTrip):            # a new trip that is already on the device
+    with pytest.raises(StaleTrip):  # a new trip that is already on the device
         store.put_document(doc, "import", expected_revision=None)
     assert store.trip_document(trip.id) == before
 
@@ -60,18 +63,19 @@ def test_a_sync_that_read_before_a_lab_save_merges_and_loses_nothing(store):
     """The case of issue 8: sync reads, a lab result is saved, sync writes its merge."""
     trip = store.save_trip(make_trip([fixed_bottle()]), "new")
     read_by_sync = store.trip_document(trip.id)
-    hub = copy.deepcopy(read_by_sync)                     # another device's later version
+    hub = copy.deepcopy(read_by_sync)  # another device's later version
     hub["notes"] = "flow gauge read 0.42 m"
-    hub["audit"] = hub["audit"] + [{"id": "hub-save-1", "at": "2026-06-14T12:00:00Z", "device_id": "dev-b",
-                                    "change": "notes", "revision": 2}]
+    hub["audit"] = hub["audit"] + [
+        {"id": "hub-save-1", "at": "2026-06-14T12:00:00Z", "device_id": "dev-b", "change": "notes", "revision": 2}
+    ]
     hub["revision"] = 2
-    lab = store.update_trip(trip.id, "lab: Winkler", winkler)    # saved while sync is in flight
+    lab = store.update_trip(trip.id, "lab: Winkler", winkler)  # saved while sync is in flight
     assert results(lab)
     out = store.merge_document(hub, "merged with the hub's version", base=read_by_sync)
     assert out.result == "merged" and out.conflicts == []
     stored = store.load_trip(trip.id)
     assert stored.notes == "flow gauge read 0.42 m"
-    assert results(stored) == results(lab)                # the lab result is still there
+    assert results(stored) == results(lab)  # the lab result is still there
     assert {"hub-save-1"} <= {a.id for a in stored.audit}
 
 
@@ -81,7 +85,8 @@ def test_update_trip_is_atomic_between_threads(store):
     def add_note(n):
         def fn(t):
             return t.model_copy(update={"notes": (t.notes + f" {n}").strip()})
-        for _ in range(5):                                # bounded
+
+        for _ in range(5):  # bounded
             store.update_trip(trip.id, f"note {n}", fn)
 
     threads = [threading.Thread(target=add_note, args=(n,)) for n in range(4)]
@@ -90,7 +95,7 @@ def test_update_trip_is_atomic_between_threads(store):
     for t in threads:
         t.join(timeout=120)
     notes = store.load_trip(trip.id).notes.split()
-    assert sorted(notes) == sorted(str(n) for n in range(4) for _ in range(5))   # 20 writes, 0 lost
+    assert sorted(notes) == sorted(str(n) for n in range(4) for _ in range(5))  # 20 writes, 0 lost
     assert store.load_trip(trip.id).revision == 21
 
 
@@ -130,11 +135,12 @@ def test_a_merge_never_removes_lab_results_calibrations_or_custody(store):
     trip = store.save_trip(make_trip([fixed_bottle()], pre_calibration=make_cal()), "new")
     doc = store.trip_document(trip.id)
     stored = store.update_trip(trip.id, "lab", winkler)
-    foreign = copy.deepcopy(doc)            # a diverged copy that lost the calibration
+    foreign = copy.deepcopy(doc)  # a diverged copy that lost the calibration
     foreign["pre_calibration"] = None
     foreign["notes"] = "edited elsewhere"
-    foreign["audit"] = foreign["audit"] + [{"id": "x-1", "at": "2026-06-14T12:00:00Z", "device_id": "dev-x",
-                                            "change": "edit", "revision": 2}]
+    foreign["audit"] = foreign["audit"] + [
+        {"id": "x-1", "at": "2026-06-14T12:00:00Z", "device_id": "dev-x", "change": "edit", "revision": 2}
+    ]
     out = store.merge_document(foreign, "import", base=doc)
     assert out.trip.pre_calibration is not None and out.trip.pre_calibration.id == trip.pre_calibration.id
     assert results(out.trip) == results(stored)
@@ -169,11 +175,25 @@ def test_cli_reimport_keeps_the_lab_result(tmp_path):
     exported = tmp_path / "before-lab.json"
     r = run_cli("trip", "export", HOT[:8], "--format", "json", "--out", str(exported), data_dir=data)
     assert r.returncode == 0, r.stderr
-    r = run_cli("lab", "winkler", HOT[:8], "TV-0701", "--titrant-ml", "12.1", "--normality", "0.025",
-                "--titrated-ml", "201", "--at", "2026-06-23T14:00-07:00", "--json", data_dir=data)
+    r = run_cli(
+        "lab",
+        "winkler",
+        HOT[:8],
+        "TV-0701",
+        "--titrant-ml",
+        "12.1",
+        "--normality",
+        "0.025",
+        "--titrated-ml",
+        "201",
+        "--at",
+        "2026-06-23T14:00-07:00",
+        "--json",
+        data_dir=data,
+    )
     assert r.returncode == 0, r.stderr
     result_id = json.loads(r.stdout)["result"]["id"]
-    for f in (exported, sample):                        # an older export and the original file
+    for f in (exported, sample):  # an older export and the original file
         r = run_cli("trip", "import", str(f), "--json", data_dir=data)
         assert r.returncode == 0, r.stderr
         assert json.loads(r.stdout)["result"] == "unchanged"
@@ -187,20 +207,21 @@ def test_cli_reimport_keeps_the_lab_result(tmp_path):
 # ---- drafts stay on the device ------------------------------------------------------------------
 def test_drafts_stay_out_of_the_trip_file_and_survive_saves_and_merges(store):
     trip = store.save_trip(make_trip([make_stop()]), "new")
-    stop = trip.stops[0].model_copy(update={"draft_text": {"temp": "68 °C"}})   # a refused entry, kept
+    stop = trip.stops[0].model_copy(update={"draft_text": {"temp": "68 °C"}})  # a refused entry, kept
     saved = store.save_stop(trip.id, stop)
     assert saved.stops[0].model_extra["draft_text"] == {"temp": "68 °C"}
-    doc = store.trip_document(trip.id)                  # what sync and exports read
+    doc = store.trip_document(trip.id)  # what sync and exports read
     assert "draft_text" not in json.dumps(doc)
     assert store.load_trip(trip.id).stops[0].model_extra["draft_text"] == {"temp": "68 °C"}
-    foreign = copy.deepcopy(doc)                        # another device's later version
+    foreign = copy.deepcopy(doc)  # another device's later version
     foreign["notes"] = "from the office"
-    foreign["audit"] = foreign["audit"] + [{"id": "o-1", "at": "2026-06-14T12:00:00Z", "device_id": "dev-o",
-                                            "change": "notes", "revision": 3}]
+    foreign["audit"] = foreign["audit"] + [
+        {"id": "o-1", "at": "2026-06-14T12:00:00Z", "device_id": "dev-o", "change": "notes", "revision": 3}
+    ]
     store.merge_document(foreign, "pulled")
     again = store.load_trip(trip.id)
     assert again.notes == "from the office" and again.stops[0].model_extra["draft_text"] == {"temp": "68 °C"}
     cleared = again.stops[0].model_copy()
-    cleared.__pydantic_extra__.pop("draft_text")        # the form now accepted the value
+    cleared.__pydantic_extra__.pop("draft_text")  # the form now accepted the value
     store.save_stop(trip.id, cleared)
     assert "draft_text" not in (store.load_trip(trip.id).stops[0].model_extra or {})

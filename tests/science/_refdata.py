@@ -1,4 +1,5 @@
 """Loads the small reference-data CSV files beside the science tests (each row has a source and a tolerance)."""
+
 from __future__ import annotations
 
 import csv

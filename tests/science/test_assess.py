@@ -1,4 +1,5 @@
 """assess_reading: one reading in, saturation, % saturation and flags out."""
+
 from __future__ import annotations
 
 import gsw
@@ -44,21 +45,29 @@ def test_flags_collected():
     # common practice: 68 "°C" looks like °F; a sea-level pressure at 1200 m; hypoxic DO; warm criterion
     a = assess_reading(68.0, 1016.0, do_mg_l=1.2, elevation_m=1200.0, water_class="warm")
     codes = [f.code for f in a.flags]
-    for c in ("temp.looks_fahrenheit", "saturation.temp_out_of_range", "pressure.sea_level_adjusted",
-              "do.hypoxic", "do.below_criterion"):
+    for c in (
+        "temp.looks_fahrenheit",
+        "saturation.temp_out_of_range",
+        "pressure.sea_level_adjusted",
+        "do.hypoxic",
+        "do.below_criterion",
+    ):
         assert c in codes
     b = assess_reading(20.0, 1013.25, do_mg_l=11.5, criteria=Criteria(supersaturation_percent=110.0))
     assert [f.code for f in b.flags] == ["do.supersaturated"]
 
 
-@pytest.mark.parametrize("kw, word", [
-    (dict(salinity=0.2, conductivity_us_cm=410.0), "both"),
-    (dict(do_mg_l=8.0, do_percent=90.0), "both"),
-    (dict(method="chlorinity"), "method"),
-    (dict(do_mg_l=-1.0), "do_mg_l"),
-    (dict(water_class="tepid", do_mg_l=8.0), "water_class"),
-    (dict(water_class="tepid"), "water_class"),
-])
+@pytest.mark.parametrize(
+    "kw, word",
+    [
+        (dict(salinity=0.2, conductivity_us_cm=410.0), "both"),
+        (dict(do_mg_l=8.0, do_percent=90.0), "both"),
+        (dict(method="chlorinity"), "method"),
+        (dict(do_mg_l=-1.0), "do_mg_l"),
+        (dict(water_class="tepid", do_mg_l=8.0), "water_class"),
+        (dict(water_class="tepid"), "water_class"),
+    ],
+)
 def test_refusals(kw, word):
     with pytest.raises(ValueError, match=word):
         assess_reading(20.0, 1000.0, **kw)

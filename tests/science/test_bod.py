@@ -1,12 +1,21 @@
 """BOD5 by dilution (Standard Methods 5210 B [from memory except where marked])."""
+
 from __future__ import annotations
 
 from datetime import datetime, timedelta, timezone
 
 import pytest
 
-from core.science.bod import (AGREEMENT_SPREAD, bod_dilution, bod_from_dilutions, bod_report, blank_check,
-                              gga_check, incubation_check, seed_uptake_per_ml)
+from core.science.bod import (
+    AGREEMENT_SPREAD,
+    blank_check,
+    bod_dilution,
+    bod_from_dilutions,
+    bod_report,
+    gga_check,
+    incubation_check,
+    seed_uptake_per_ml,
+)
 
 
 def test_unseeded():
@@ -39,12 +48,14 @@ def test_validity_rules():
 
 def test_average_of_valid_dilutions():
     # 5210 B: average the valid dilutions
-    r = bod_from_dilutions([
-        dict(initial_do_mg_l=8.6, final_do_mg_l=7.9, sample_ml=10.0),   # depletion 0.7: invalid
-        dict(initial_do_mg_l=8.6, final_do_mg_l=6.1, sample_ml=30.0),   # 25 mg/L
-        dict(initial_do_mg_l=8.5, final_do_mg_l=3.3, sample_ml=60.0),   # 26 mg/L
-        dict(initial_do_mg_l=8.5, final_do_mg_l=0.4, sample_ml=120.0),  # residual too low: invalid
-    ])
+    r = bod_from_dilutions(
+        [
+            dict(initial_do_mg_l=8.6, final_do_mg_l=7.9, sample_ml=10.0),  # depletion 0.7: invalid
+            dict(initial_do_mg_l=8.6, final_do_mg_l=6.1, sample_ml=30.0),  # 25 mg/L
+            dict(initial_do_mg_l=8.5, final_do_mg_l=3.3, sample_ml=60.0),  # 26 mg/L
+            dict(initial_do_mg_l=8.5, final_do_mg_l=0.4, sample_ml=120.0),  # residual too low: invalid
+        ]
+    )
     assert r.valid and r.bod_mg_l == pytest.approx((25.0 + 26.0) / 2)
     assert [d.valid for d in r.dilutions] == [False, True, True, False]
     assert {f.code for f in r.flags} == {"bod.depletion_too_small", "bod.residual_too_low"}
@@ -59,14 +70,18 @@ def test_no_valid_dilution():
     assert r.dilutions[0].bod_mg_l == pytest.approx(0.6)
 
 
-@pytest.mark.parametrize("dils, word", [
-    ([], "empty"), ([dict(initial_do_mg_l=8.0, sample_ml=30.0)], "final_do_mg_l"),
-    ([dict(initial_do_mg_l=8.0, final_do_mg_l=4.0, sample_ml=30.0, colour="blue")], "unknown key"),
-    ([dict(initial_do_mg_l=8.0, final_do_mg_l=4.0, sample_ml=400.0)], "bottle_ml"),
-    ([dict(initial_do_mg_l=-8.0, final_do_mg_l=4.0, sample_ml=30.0)], "initial_do_mg_l"),
-    ([dict(initial_do_mg_l=8.0, final_do_mg_l=4.0, sample_ml=30.0, seed_ml=2.0)], "seed_uptake"),
-    (["8.0"], "not an object"),
-])
+@pytest.mark.parametrize(
+    "dils, word",
+    [
+        ([], "empty"),
+        ([dict(initial_do_mg_l=8.0, sample_ml=30.0)], "final_do_mg_l"),
+        ([dict(initial_do_mg_l=8.0, final_do_mg_l=4.0, sample_ml=30.0, colour="blue")], "unknown key"),
+        ([dict(initial_do_mg_l=8.0, final_do_mg_l=4.0, sample_ml=400.0)], "bottle_ml"),
+        ([dict(initial_do_mg_l=-8.0, final_do_mg_l=4.0, sample_ml=30.0)], "initial_do_mg_l"),
+        ([dict(initial_do_mg_l=8.0, final_do_mg_l=4.0, sample_ml=30.0, seed_ml=2.0)], "seed_uptake"),
+        (["8.0"], "not an object"),
+    ],
+)
 def test_dilution_refusals(dils, word):
     with pytest.raises(ValueError, match=word):
         bod_from_dilutions(dils)
@@ -74,9 +89,13 @@ def test_dilution_refusals(dils, word):
 
 def test_seed_uptake_per_ml():
     # 5210 B: S = (D1 − D2)/Vs over valid seed controls, averaged
-    s = seed_uptake_per_ml([dict(initial_do_mg_l=8.7, final_do_mg_l=4.7, seed_ml=10.0),
-                            dict(initial_do_mg_l=8.7, final_do_mg_l=2.7, seed_ml=15.0),
-                            dict(initial_do_mg_l=8.7, final_do_mg_l=8.0, seed_ml=3.0)])  # too little: ignored
+    s = seed_uptake_per_ml(
+        [
+            dict(initial_do_mg_l=8.7, final_do_mg_l=4.7, seed_ml=10.0),
+            dict(initial_do_mg_l=8.7, final_do_mg_l=2.7, seed_ml=15.0),
+            dict(initial_do_mg_l=8.7, final_do_mg_l=8.0, seed_ml=3.0),
+        ]
+    )  # too little: ignored
     assert s == pytest.approx((0.4 + 0.4) / 2)
     with pytest.raises(ValueError, match="no seed control"):
         seed_uptake_per_ml([dict(initial_do_mg_l=8.7, final_do_mg_l=8.0, seed_ml=3.0)])
@@ -107,6 +126,7 @@ def test_incubation_window():
 
 
 # --- reporting (Standard Methods 5210 B [from memory]; SCIENCE.md §10) -----------------------------------
+
 
 def D(d1, d2, ml, bottle=300.0):
     return dict(initial_do_mg_l=d1, final_do_mg_l=d2, sample_ml=ml, bottle_ml=bottle)

@@ -1,4 +1,5 @@
 """Meter air calibration: the 100 % target and the checks (USGS NFM A6.2; tolerance ±0.2 mg/L common practice)."""
+
 from __future__ import annotations
 
 import pytest

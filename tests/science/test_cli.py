@@ -1,4 +1,5 @@
 """The science sub-commands: JSON fields (a contract), readable tables, and one-line exit-2 errors."""
+
 from __future__ import annotations
 
 import contextlib
@@ -79,8 +80,17 @@ def test_salinity_contract():
 
 def test_winkler_contract():
     # Standard Methods 4500-O C: 1 mL of 0.025 N per 1 mg/L with 200 mL original sample
-    d = run_json("winkler", "--titrant-ml", "7.3", "--normality", "0.025", "--titrated-ml", str(200 * 300 / 298),
-                 "--reagents-ml", "2")
+    d = run_json(
+        "winkler",
+        "--titrant-ml",
+        "7.3",
+        "--normality",
+        "0.025",
+        "--titrated-ml",
+        str(200 * 300 / 298),
+        "--reagents-ml",
+        "2",
+    )
     assert set(d) == {"do_mg_l", "original_sample_ml", "flags"} and d["flags"] == []
     assert d["do_mg_l"] == pytest.approx(7.3) and d["original_sample_ml"] == pytest.approx(200.0)
     code, out, _ = run("winkler", "--titrant-ml", "7.3", "--normality", "0.025", "--titrated-ml", "201")
@@ -89,8 +99,9 @@ def test_winkler_contract():
 
 def test_bod_contract():
     # Standard Methods 5210 B: [(D1 − D2) − S·Vs]/P = (4.5 − 0.7)/0.1 = 38 mg/L
-    d = run_json("bod", "--initial", "8.6", "--final", "4.1", "--sample-ml", "30", "--seed-ml", "2",
-                 "--seed-uptake", "0.35")
+    d = run_json(
+        "bod", "--initial", "8.6", "--final", "4.1", "--sample-ml", "30", "--seed-ml", "2", "--seed-uptake", "0.35"
+    )
     assert {"bod_mg_l", "valid", "flags"} <= set(d)
     assert d["bod_mg_l"] == pytest.approx(38.0) and d["valid"] is True and d["flags"] == []
     bad = run_json("bod", "--initial", "8.6", "--final", "7.9", "--sample-ml", "30")
@@ -100,12 +111,17 @@ def test_bod_contract():
 def test_bod_dilutions_file(tmp_path):
     # Standard Methods 5210 B: mean of the valid dilutions; S from seed controls (4.0 mg/L / 10 mL = 0.4)
     f = tmp_path / "d.json"
-    f.write_text(json.dumps({
-        "seed_controls": [{"initial_do_mg_l": 8.7, "final_do_mg_l": 4.7, "seed_ml": 10.0}],
-        "dilutions": [
-            {"initial_do_mg_l": 8.6, "final_do_mg_l": 7.9, "sample_ml": 10.0},
-            {"initial_do_mg_l": 8.6, "final_do_mg_l": 5.3, "sample_ml": 30.0, "seed_ml": 2.0},
-        ]}))
+    f.write_text(
+        json.dumps(
+            {
+                "seed_controls": [{"initial_do_mg_l": 8.7, "final_do_mg_l": 4.7, "seed_ml": 10.0}],
+                "dilutions": [
+                    {"initial_do_mg_l": 8.6, "final_do_mg_l": 7.9, "sample_ml": 10.0},
+                    {"initial_do_mg_l": 8.6, "final_do_mg_l": 5.3, "sample_ml": 30.0, "seed_ml": 2.0},
+                ],
+            }
+        )
+    )
     d = run_json("bod", "--dilutions", str(f))
     assert d["valid"] is True and d["bod_mg_l"] == pytest.approx((3.3 - 0.8) / 0.1)
     assert [x["valid"] for x in d["dilutions"]] == [False, True]
@@ -114,8 +130,13 @@ def test_bod_dilutions_file(tmp_path):
     d = run_json("bod", "--dilutions", str(g))
     assert d["bod_mg_l"] is None and d["valid"] is False
     # 5210 B [from memory]: undiluted and under 2.0 mg/L depletion -> "< 2.0 mg/L"
-    assert d["report"] == {"value": 2.0, "qualifier": "<", "text": "< 2.0 mg/L", "basis": "below-bound",
-                           "analyte": "BOD5"}
+    assert d["report"] == {
+        "value": 2.0,
+        "qualifier": "<",
+        "text": "< 2.0 mg/L",
+        "basis": "below-bound",
+        "analyte": "BOD5",
+    }
     code, out, _ = run("bod", "--dilutions", str(g))
     assert code == 0 and "< 2.0 mg/L" in out
 
@@ -126,8 +147,13 @@ def test_bod_json_report_single_dilution():
     assert d["report"]["qualifier"] == ">" and d["report"]["text"] == "> 84.0 mg/L"
     assert "bod.reported_above_bound" in [f["code"] for f in d["flags"]]
     ok = run_json("bod", "--initial", "8.6", "--final", "4.1", "--sample-ml", "30", "--nitrification-inhibitor")
-    assert ok["report"] == {"value": pytest.approx(45.0), "qualifier": None, "text": "45.0 mg/L",
-                            "basis": "single", "analyte": "CBOD5"}
+    assert ok["report"] == {
+        "value": pytest.approx(45.0),
+        "qualifier": None,
+        "text": "45.0 mg/L",
+        "basis": "single",
+        "analyte": "CBOD5",
+    }
 
 
 SAT = ("sat", "--temp", "18.5", "--pressure", "752 mmHg")
@@ -170,12 +196,19 @@ ERROR_CASES = [
     (("salinity", "--conductivity", "42.914", "--temp", "15"), ["--conductivity", "no unit"]),
     (("salinity", "--conductivity", "42.914 mS/cm", "--temp", "99"), ["--temp", "−2–50 °C"]),
     (("salinity", "--conductivity", "42.914 mS/cm", "--temp", "x"), ["--temp", "not a number"]),
-    (("salinity", "--conductivity", "42.914 mS/cm", "--temp", "15", "--pressure-dbar", "-5"),
-     ["--pressure-dbar", "accepted"]),
-    (("salinity", "--conductivity", "42.914 mS/cm", "--temp", "15", "--pressure-dbar", "deep"),
-     ["--pressure-dbar", "not a number"]),
+    (
+        ("salinity", "--conductivity", "42.914 mS/cm", "--temp", "15", "--pressure-dbar", "-5"),
+        ["--pressure-dbar", "accepted"],
+    ),
+    (
+        ("salinity", "--conductivity", "42.914 mS/cm", "--temp", "15", "--pressure-dbar", "deep"),
+        ["--pressure-dbar", "not a number"],
+    ),
     (("salinity", "--temp", "15"), ["--conductivity", "required"]),
-    (("winkler", "--titrant-ml", "x", "--normality", "0.025", "--titrated-ml", "201"), ["--titrant-ml", "not a number"]),
+    (
+        ("winkler", "--titrant-ml", "x", "--normality", "0.025", "--titrated-ml", "201"),
+        ["--titrant-ml", "not a number"],
+    ),
     (("winkler", "--titrant-ml", "-1", "--normality", "0.025", "--titrated-ml", "201"), ["--titrant-ml", "accepted"]),
     (("winkler", "--titrant-ml", "7.3", "--normality", "0", "--titrated-ml", "201"), ["--normality", "accepted"]),
     (("winkler", "--titrant-ml", "7.3", "--normality", "0.025", "--titrated-ml", "400"), ["--titrated-ml", "bottle"]),
@@ -206,23 +239,45 @@ def test_every_error_is_one_line_exit_2(argv, words):
     for w in words:
         assert w in lines[0], lines[0]
     # the option as the person typed it, never core's variable names (issue 11)
-    for name in ("temp_c", "pressure_hpa", "percent_sat", "do_mg_l", "do_percent", "elevation_m", "parse_",
-                 "conductivity_us_cm", "titrant_ml", "titrated_ml", "bottle_ml", "reagents_ml", "sample_ml",
-                 "seed_ml", "seed_uptake", "initial_do", "final_do", "pressure_dbar"):
+    for name in (
+        "temp_c",
+        "pressure_hpa",
+        "percent_sat",
+        "do_mg_l",
+        "do_percent",
+        "elevation_m",
+        "parse_",
+        "conductivity_us_cm",
+        "titrant_ml",
+        "titrated_ml",
+        "bottle_ml",
+        "reagents_ml",
+        "sample_ml",
+        "seed_ml",
+        "seed_uptake",
+        "initial_do",
+        "final_do",
+        "pressure_dbar",
+    ):
         assert name not in lines[0], lines[0]
 
 
-@pytest.mark.parametrize("content, words", [
-    ("{not json", ["not valid JSON", "line 1"]),
-    ("42", ["no list of dilutions"]),
-    ('{"dilution": []}', ["unknown key", "dilution"]),
-    ("[]", ["empty"]),
-    ('[{"initial_do_mg_l": 8.6, "sample_ml": 30}]', ["dilutions[0]", "final_do_mg_l"]),
-    ('[{"initial_do_mg_l": 8.6, "final_do_mg_l": 4.1, "sample_ml": 30, "temp": 20}]', ["unknown key", "temp"]),
-    ('[{"initial_do_mg_l": "high", "final_do_mg_l": 4.1, "sample_ml": 30}]', ["initial_do_mg_l", "text"]),
-    ('{"seed_controls": [{"initial_do_mg_l": 8.6, "final_do_mg_l": 8.4, "seed_ml": 3}], "dilutions": []}',
-     ["seed_controls", "no seed control"]),
-])
+@pytest.mark.parametrize(
+    "content, words",
+    [
+        ("{not json", ["not valid JSON", "line 1"]),
+        ("42", ["no list of dilutions"]),
+        ('{"dilution": []}', ["unknown key", "dilution"]),
+        ("[]", ["empty"]),
+        ('[{"initial_do_mg_l": 8.6, "sample_ml": 30}]', ["dilutions[0]", "final_do_mg_l"]),
+        ('[{"initial_do_mg_l": 8.6, "final_do_mg_l": 4.1, "sample_ml": 30, "temp": 20}]', ["unknown key", "temp"]),
+        ('[{"initial_do_mg_l": "high", "final_do_mg_l": 4.1, "sample_ml": 30}]', ["initial_do_mg_l", "text"]),
+        (
+            '{"seed_controls": [{"initial_do_mg_l": 8.6, "final_do_mg_l": 8.4, "seed_ml": 3}], "dilutions": []}',
+            ["seed_controls", "no seed control"],
+        ),
+    ],
+)
 def test_bad_dilutions_files(tmp_path, content, words):
     f = tmp_path / "d.json"
     f.write_text(content)
@@ -257,7 +312,9 @@ def test_top_level_help_prints_the_sat_line():
 
 def test_elevation_in_feet_and_salinity_in_psu():
     # 1 ft = 0.3048 m (NIST SP 811): 3937 ft is 1200 m, where a 29.92 inHg reading is sea-level adjusted
-    feet = run_json("sat", "--temp", "20", "--pressure", "29.92 inHg", "--elevation", "3937 ft", "--salinity", "0.2 psu")
+    feet = run_json(
+        "sat", "--temp", "20", "--pressure", "29.92 inHg", "--elevation", "3937 ft", "--salinity", "0.2 psu"
+    )
     metres = run_json("sat", "--temp", "20", "--pressure", "29.92 inHg", "--elevation", "1200", "--salinity", "0.2")
     assert "pressure.sea_level_adjusted" in [f["code"] for f in feet["flags"]]
     assert feet["do_sat_mg_l"] == metres["do_sat_mg_l"] and feet["salinity"] == 0.2

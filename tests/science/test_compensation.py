@@ -1,5 +1,6 @@
 """Conductivity compensation as a program setting: linear α limited to 0.015–0.030 /°C, or the ISO 7888
 table (Standard Methods 2510 B [from memory]; Hayashi 2004 for natural waters; ISO 7888:1985)."""
+
 from __future__ import annotations
 
 from datetime import datetime, timezone
@@ -31,15 +32,21 @@ def test_no_accepted_alpha_makes_the_denominator_zero_or_negative():
 
 def test_program_setting_chooses_the_compensation():
     def sc(settings):
-        stop = Stop(site_id="LK-1", arrived_at=T0, temp=measure("temp", "10 °C"),
-                    pressure=measure("pressure", "1000 hPa"), conductivity=measure("conductivity", "300 uS/cm"))
+        stop = Stop(
+            site_id="LK-1",
+            arrived_at=T0,
+            temp=measure("temp", "10 °C"),
+            pressure=measure("pressure", "1000 hPa"),
+            conductivity=measure("conductivity", "300 uS/cm"),
+        )
         trip = Trip(started_at=T0, stops=[stop])
         return derive_trip(trip, {"LK-1": Site(id="LK-1", name="x", elevation_m=100.0)}, settings).stops[0].derived
 
     # linear: κ25 = κt / [1 + α(t − 25)]
     assert sc(ProgramSettings()).specific_conductance_us_cm == pytest.approx(300 / (1 - 0.0191 * 15))
     assert sc(ProgramSettings(conductivity_alpha_per_c=0.0187)).specific_conductance_us_cm == pytest.approx(
-        300 / (1 - 0.0187 * 15))                                                  # Hayashi 2004 mean
+        300 / (1 - 0.0187 * 15)
+    )  # Hayashi 2004 mean
     # ISO 7888: f25(10 °C) = 1.428 [memory for the table value]
     iso = sc(ProgramSettings(conductivity_compensation="iso7888"))
     assert iso.specific_conductance_us_cm == pytest.approx(300 * float(iso7888_f25(10.0)))

@@ -1,13 +1,19 @@
 """Conductivity units, specific conductance, and PSS-78 salinity against UNESCO check values and gsw."""
+
 from __future__ import annotations
 
 import gsw
 import numpy as np
 import pytest
 
-from core.science.conductivity import (C3515_MS_CM, conductivity_at_temp_us_cm, iso7888_f25,
-                               practical_salinity, salinity_from_specific_conductance,
-                               specific_conductance_us_cm)
+from core.science.conductivity import (
+    C3515_MS_CM,
+    conductivity_at_temp_us_cm,
+    iso7888_f25,
+    practical_salinity,
+    salinity_from_specific_conductance,
+    specific_conductance_us_cm,
+)
 from tests.science._refdata import ids, rows
 
 
@@ -20,8 +26,9 @@ def test_pss78_unesco_check_values(row):
 
 
 # Conductivities from fresh streams (0.05–2 mS/cm = 50–2000 µS/cm) up to seawater, in mS/cm
-GRID_C = np.concatenate([np.array([0.01, 0.05, 0.1, 0.2, 0.41, 0.5, 1.0, 1.5, 2.0]),
-                         np.array([3.0, 5.0, 10.0, 20.0, 30.0, 42.914, 55.0])])
+GRID_C = np.concatenate(
+    [np.array([0.01, 0.05, 0.1, 0.2, 0.41, 0.5, 1.0, 1.5, 2.0]), np.array([3.0, 5.0, 10.0, 20.0, 30.0, 42.914, 55.0])]
+)
 GRID_T = np.array([0.0, 2.0, 5.0, 10.0, 15.0, 18.5, 20.0, 25.0, 30.0, 35.0])
 GRID_P = np.array([0.0, 10.0, 1000.0])
 
@@ -57,7 +64,8 @@ def test_salinity_from_specific_conductance():
     # source: gsw.SP_from_C at 25 °C (TEOS-10)
     for sc in (50.0, 410.0, 2000.0, 53000.0):
         assert salinity_from_specific_conductance(sc) == pytest.approx(
-            float(gsw.SP_from_C(sc / 1000.0, 25.0, 0.0)), abs=1e-10)
+            float(gsw.SP_from_C(sc / 1000.0, 25.0, 0.0)), abs=1e-10
+        )
     a = salinity_from_specific_conductance(np.array([100.0, 1000.0]))
     assert a.shape == (2,)
 
@@ -66,12 +74,15 @@ def test_linear_compensation():
     # Standard Methods 2510 B: κ25 = κt / [1 + α(t − 25)], α = 0.0191 /°C (KCl) [from memory]
     assert specific_conductance_us_cm(410.0, 25.0) == pytest.approx(410.0)
     assert specific_conductance_us_cm(410.0, 15.0) == pytest.approx(410.0 / (1 - 0.191))
-    assert specific_conductance_us_cm(410.0, 15.0, alpha=0.0187) == pytest.approx(410.0 / (1 - 0.187))  # Hayashi 2004 mean
+    assert specific_conductance_us_cm(410.0, 15.0, alpha=0.0187) == pytest.approx(
+        410.0 / (1 - 0.187)
+    )  # Hayashi 2004 mean
     assert conductivity_at_temp_us_cm(specific_conductance_us_cm(333.0, 7.0), 7.0) == pytest.approx(333.0)
 
 
-@pytest.mark.parametrize("t, f", [(0, 1.918), (5, 1.643), (10, 1.428), (15, 1.256), (20, 1.116), (25, 1.000),
-                                  (30, 0.903), (35, 0.822)])
+@pytest.mark.parametrize(
+    "t, f", [(0, 1.918), (5, 1.643), (10, 1.428), (15, 1.256), (20, 1.116), (25, 1.000), (30, 0.903), (35, 0.822)]
+)
 def test_iso7888_nodes(t, f):
     # source: ISO 7888 / EN 27888 Table 1 (values above 12 °C from memory), core/science/data/iso7888_f25.csv
     assert iso7888_f25(float(t)) == pytest.approx(f, abs=1e-12)
@@ -84,8 +95,9 @@ def test_iso7888_between_nodes_is_smooth_and_monotone():
     f = iso7888_f25(t)
     assert np.all(np.diff(f) < 0)
     assert iso7888_f25(12.5) < 1.428 and iso7888_f25(12.5) > 1.256
-    assert conductivity_at_temp_us_cm(specific_conductance_us_cm(250.0, 7.3, "iso7888"), 7.3, "iso7888") == \
-        pytest.approx(250.0)
+    assert conductivity_at_temp_us_cm(
+        specific_conductance_us_cm(250.0, 7.3, "iso7888"), 7.3, "iso7888"
+    ) == pytest.approx(250.0)
     with pytest.raises(ValueError, match="^temp_c.*linear"):
         iso7888_f25(36.5)
 

@@ -1,10 +1,11 @@
 """Aquatic-life DO criteria flags (defaults: EPA 1986 [from memory] / common practice)."""
+
 from __future__ import annotations
 
 import pytest
 
-from core.science.criteria import Criteria, do_criteria_flags
 from core.flags import Severity
+from core.science.criteria import Criteria, do_criteria_flags
 
 
 def test_defaults_are_the_documented_values():
@@ -14,12 +15,18 @@ def test_defaults_are_the_documented_values():
     assert (c.warm_min_mg_l, c.cold_min_mg_l, c.supersaturation_percent, c.hypoxic_mg_l) == (5.0, 6.5, 120.0, 2.0)
 
 
-@pytest.mark.parametrize("do, cls, want", [
-    (4.9, "warm", ["do.below_criterion"]), (5.0, "warm", []), (6.0, "cold", ["do.below_criterion"]),
-    (6.0, "warm", []), (1.5, "cold", ["do.hypoxic", "do.below_criterion", "do.below_1day_minimum"]),
-    (1.5, None, ["do.hypoxic"]),
-    (6.4, None, []),
-])
+@pytest.mark.parametrize(
+    "do, cls, want",
+    [
+        (4.9, "warm", ["do.below_criterion"]),
+        (5.0, "warm", []),
+        (6.0, "cold", ["do.below_criterion"]),
+        (6.0, "warm", []),
+        (1.5, "cold", ["do.hypoxic", "do.below_criterion", "do.below_1day_minimum"]),
+        (1.5, None, ["do.hypoxic"]),
+        (6.4, None, []),
+    ],
+)
 def test_below_criterion_and_hypoxic(do, cls, want):
     flags = do_criteria_flags(do, 80.0, cls, Criteria())
     assert [f.code for f in flags] == want
@@ -31,8 +38,9 @@ def test_supersaturation_and_program_settings():
     # common practice: above 120 % saturation is flagged; a program may choose its own threshold
     assert [f.code for f in do_criteria_flags(11.0, 121.0, "warm", Criteria())] == ["do.supersaturated"]
     assert do_criteria_flags(11.0, 120.0, "warm", Criteria()) == []
-    assert do_criteria_flags(11.0, 115.0, "warm", Criteria(supersaturation_percent=110.0))[0].code == \
-        "do.supersaturated"
+    assert (
+        do_criteria_flags(11.0, 115.0, "warm", Criteria(supersaturation_percent=110.0))[0].code == "do.supersaturated"
+    )
     assert do_criteria_flags(5.5, None, "warm", Criteria(warm_min_mg_l=6.0))[0].code == "do.below_criterion"
     assert do_criteria_flags(1.0, None, None, Criteria())[0].severity is Severity.STOP
 
@@ -47,6 +55,7 @@ def test_refusals():
 
 
 # --- life stage and averaging period: US EPA 440/5-86-003 (1986) [from memory] -------------------------------
+
 
 def _codes(flags):
     return [f.code for f in flags]

@@ -1,5 +1,6 @@
 """A decimal comma is read as a decimal point, and "1,234" (decimal or thousands?) is refused,
 in every parser and on the command line alike (common practice: never guess a separator)."""
+
 import json
 import subprocess
 import sys
@@ -11,8 +12,9 @@ from core.science.quantities import read
 from tests.conftest import ROOT, cli_env, run_cli
 
 
-@pytest.mark.parametrize("text, expected", [("3,5", 3.5), ("0,125", 0.125), ("1013,25", 1013.25),
-                                            ("-2,5", -2.5), ("7.3", 7.3)])
+@pytest.mark.parametrize(
+    "text, expected", [("3,5", 3.5), ("0,125", 0.125), ("1013,25", 1013.25), ("-2,5", -2.5), ("7.3", 7.3)]
+)
 def test_decimal_comma_reads_as_a_point(text, expected):
     assert not ambiguous_comma(text)
     assert decimal(text, "value") == pytest.approx(expected, abs=0)
@@ -57,8 +59,13 @@ def test_cli_takes_a_decimal_comma():
 
 def test_closed_output_pipe_gives_no_traceback():
     """`streamtab ... | head` (the reader gone before the output) ends quietly (common practice)."""
-    proc = subprocess.Popen([sys.executable, "-m", "mobile.cli", "sat", "--temp", "20", "--pressure", "1 atm"],
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=cli_env(), cwd=ROOT)
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "mobile.cli", "sat", "--temp", "20", "--pressure", "1 atm"],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        env=cli_env(),
+        cwd=ROOT,
+    )
     proc.stdout.close()  # the reader goes away before the child writes
     _, err = proc.communicate(timeout=60)
     assert proc.returncode == 0

@@ -1,4 +1,5 @@
 """Holding times (40 CFR 136.3 Table II [from memory]) and program SOP overrides."""
+
 from __future__ import annotations
 
 from datetime import datetime, timedelta, timezone
@@ -46,12 +47,18 @@ def test_sop_override():
     assert holding_clock("do_probe", T0, T0 + timedelta(minutes=20), overrides={"bod": 24}).expired
 
 
-@pytest.mark.parametrize("kw, word", [
-    (dict(kind="ph"), "kind"), (dict(now=T0 - timedelta(minutes=1)), "before collected_at"),
-    (dict(now=datetime(2026, 6, 1, 9, 0)), "time zone"), (dict(overrides={"bod": -1}), "overrides"),
-    (dict(overrides={"nitrate": 48}), "unknown kind"), (dict(fixed_at=T0 - timedelta(minutes=1)), "fixed_at"),
-    (dict(collected_at="2026-06-01"), "collected_at"),
-])
+@pytest.mark.parametrize(
+    "kw, word",
+    [
+        (dict(kind="ph"), "kind"),
+        (dict(now=T0 - timedelta(minutes=1)), "before collected_at"),
+        (dict(now=datetime(2026, 6, 1, 9, 0)), "time zone"),
+        (dict(overrides={"bod": -1}), "overrides"),
+        (dict(overrides={"nitrate": 48}), "unknown kind"),
+        (dict(fixed_at=T0 - timedelta(minutes=1)), "fixed_at"),
+        (dict(collected_at="2026-06-01"), "collected_at"),
+    ],
+)
 def test_refusals(kw, word):
     args = dict(kind="bod", collected_at=T0, now=T0 + timedelta(hours=1))
     args.update(kw)
@@ -59,19 +66,22 @@ def test_refusals(kw, word):
         holding_clock(**args)
 
 
-@pytest.mark.parametrize("kind,kw,expected", [
-    # 40 CFR 136.3 Table II (from memory): a Winkler DO bottle keeps 8 h from fixing, a BOD bottle 48 h
-    ("do-fixed", {}, "do_winkler"),
-    ("bod", {}, "bod"),
-    ("blank", {}, None),                                          # no holding time here: the SOP's
-    # a duplicate follows the bottle it duplicates (common practice) ...
-    ("duplicate", {"duplicates": "do-fixed"}, "do_winkler"),
-    ("duplicate", {"duplicates": "bod", "fixed": True}, "bod"),
-    # ... and, when that is not known, its fixing: Winkler samples are fixed on site, BOD samples never
-    ("duplicate", {"fixed": True}, "do_winkler"),
-    ("duplicate", {}, "bod"),
-    ("duplicate", {"duplicates": "duplicate"}, "bod"),
-])
+@pytest.mark.parametrize(
+    "kind,kw,expected",
+    [
+        # 40 CFR 136.3 Table II (from memory): a Winkler DO bottle keeps 8 h from fixing, a BOD bottle 48 h
+        ("do-fixed", {}, "do_winkler"),
+        ("bod", {}, "bod"),
+        ("blank", {}, None),  # no holding time here: the SOP's
+        # a duplicate follows the bottle it duplicates (common practice) ...
+        ("duplicate", {"duplicates": "do-fixed"}, "do_winkler"),
+        ("duplicate", {"duplicates": "bod", "fixed": True}, "bod"),
+        # ... and, when that is not known, its fixing: Winkler samples are fixed on site, BOD samples never
+        ("duplicate", {"fixed": True}, "do_winkler"),
+        ("duplicate", {}, "bod"),
+        ("duplicate", {"duplicates": "duplicate"}, "bod"),
+    ],
+)
 def test_bottle_kinds_map_to_one_holding_time(kind, kw, expected):
     assert bottle_holding_kind(kind, **kw) == expected
     assert expected is None or expected in HOLDING_TIMES

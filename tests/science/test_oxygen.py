@@ -1,4 +1,5 @@
 """DO saturation against published check values and the TEOS-10 reference library (gsw)."""
+
 from __future__ import annotations
 
 import math
@@ -8,9 +9,17 @@ import numpy as np
 import pytest
 
 from core.science import oxygen
-from core.science.oxygen import (do_mg_l_from_percent, do_saturation_mg_l, o2_solubility_umol_kg, percent_saturation,
-                         pressure_factor, saturation_range_flags, seawater_density_kg_m3, theta,
-                         water_vapour_pressure_atm)
+from core.science.oxygen import (
+    do_mg_l_from_percent,
+    do_saturation_mg_l,
+    o2_solubility_umol_kg,
+    percent_saturation,
+    pressure_factor,
+    saturation_range_flags,
+    seawater_density_kg_m3,
+    theta,
+    water_vapour_pressure_atm,
+)
 from tests.science._refdata import ids, rows
 
 ATM = 1013.25
@@ -133,18 +142,21 @@ def test_scalar_in_scalar_out_and_array_broadcast():
             assert g[i, j] == pytest.approx(do_saturation_mg_l(t, p, 5.0), rel=1e-13)
 
 
-@pytest.mark.parametrize("kw, name", [
-    (dict(temp_c=float("nan")), "temp_c"),
-    (dict(temp_c=math.inf), "temp_c"),
-    (dict(temp_c=20.0, pressure_hpa=-5.0), "pressure_hpa"),
-    (dict(temp_c=20.0, pressure_hpa=0.0), "pressure_hpa"),
-    (dict(temp_c=20.0, salinity=-0.1), "salinity"),
-    (dict(temp_c=-40.0), "temp_c"),
-    (dict(temp_c=20.0, method="winkler"), "method"),
-    (dict(temp_c="20"), "temp_c"),
-    (dict(temp_c=np.array([10.0, np.nan])), "temp_c[1]"),
-    (dict(temp_c=80.0, pressure_hpa=400.0), "pressure_hpa"),  # below water-vapour pressure at 80 °C
-])
+@pytest.mark.parametrize(
+    "kw, name",
+    [
+        (dict(temp_c=float("nan")), "temp_c"),
+        (dict(temp_c=math.inf), "temp_c"),
+        (dict(temp_c=20.0, pressure_hpa=-5.0), "pressure_hpa"),
+        (dict(temp_c=20.0, pressure_hpa=0.0), "pressure_hpa"),
+        (dict(temp_c=20.0, salinity=-0.1), "salinity"),
+        (dict(temp_c=-40.0), "temp_c"),
+        (dict(temp_c=20.0, method="winkler"), "method"),
+        (dict(temp_c="20"), "temp_c"),
+        (dict(temp_c=np.array([10.0, np.nan])), "temp_c[1]"),
+        (dict(temp_c=80.0, pressure_hpa=400.0), "pressure_hpa"),  # below water-vapour pressure at 80 °C
+    ],
+)
 def test_bad_inputs_raise_naming_the_input(kw, name):
     # common practice: impossible inputs are refused with the input's name; nothing is clamped
     with pytest.raises(ValueError) as e:
@@ -157,12 +169,16 @@ def test_out_of_range_computes_and_flags():
     c45 = do_saturation_mg_l(45.0)
     assert c45 < do_saturation_mg_l(40.0)  # computed, not clamped at 40 °C
     codes = {f.code for f in saturation_range_flags(45.0, 450.0, 41.0)}
-    assert codes == {"saturation.temp_out_of_range", "saturation.pressure_out_of_range",
-                     "saturation.salinity_out_of_range"}
+    assert codes == {
+        "saturation.temp_out_of_range",
+        "saturation.pressure_out_of_range",
+        "saturation.salinity_out_of_range",
+    }
     assert saturation_range_flags(20.0, 1000.0, 0.2) == []
     assert saturation_range_flags(0.0, 0.5 * ATM, 40.0) == []  # the limits themselves are inside
-    assert [f.code for f in saturation_range_flags(np.array([5.0, -1.0]), 1000.0, 0.0)] == \
-        ["saturation.temp_out_of_range"]
+    assert [f.code for f in saturation_range_flags(np.array([5.0, -1.0]), 1000.0, 0.0)] == [
+        "saturation.temp_out_of_range"
+    ]
 
 
 def test_percent_saturation_and_back():
@@ -193,8 +209,7 @@ def test_large_arrays_take_the_blocked_path_and_agree():
         big = do_saturation_mg_l(t, p, s, method)
         assert big.shape == (n,)
         for i in (0, oxygen._CHUNK - 1, oxygen._CHUNK, 2 * oxygen._CHUNK + 5, n - 1):
-            assert big[i] == pytest.approx(do_saturation_mg_l(float(t[i]), float(p[i]), float(s[i]), method),
-                                           rel=1e-13)
+            assert big[i] == pytest.approx(do_saturation_mg_l(float(t[i]), float(p[i]), float(s[i]), method), rel=1e-13)
         assert abs(big[n - 1] - 9.092) <= 0.002
     two_d = do_saturation_mg_l(t[: 2 * 40000].reshape(2, 40000), 1000.0, 0.0)
     assert two_d.shape == (2, 40000) and two_d[1, 5] == pytest.approx(do_saturation_mg_l(float(t[40005]), 1000.0))

@@ -1,5 +1,6 @@
 """The meter's % basis: saturation at the local pressure, or at 760 mmHg (team science reference §10 [memory];
 the conversion mg/L = % × saturation at the basis pressure, Benson & Krause 1984 for the saturation)."""
+
 from __future__ import annotations
 
 import json
@@ -14,7 +15,7 @@ from core.science.oxygen import do_saturation_mg_l, meter_percent_to_mg_l
 from tests.science.test_cli import run, run_json
 
 T0 = datetime(2026, 6, 14, 9, 0, tzinfo=timezone.utc)
-P_2000M = 795.0   # about the standard atmosphere at 2000 m (US Standard Atmosphere 1976: 794.95 hPa)
+P_2000M = 795.0  # about the standard atmosphere at 2000 m (US Standard Atmosphere 1976: 794.95 hPa)
 
 
 def test_sea_level_basis_at_altitude_gives_the_right_mg_l():
@@ -27,7 +28,8 @@ def test_sea_level_basis_at_altitude_gives_the_right_mg_l():
     assert 1 - local / sea == pytest.approx(0.22, abs=0.01)
     # at sea level the basis does not matter (the rule not firing)
     assert meter_percent_to_mg_l(92.0, 15.0, 1013.25, basis="sea-level") == pytest.approx(
-        meter_percent_to_mg_l(92.0, 15.0, 1013.25, basis="local"), rel=1e-12)
+        meter_percent_to_mg_l(92.0, 15.0, 1013.25, basis="local"), rel=1e-12
+    )
 
 
 def test_assess_reports_percent_against_local_and_says_so():
@@ -55,8 +57,13 @@ def test_cli_percent_basis_and_both_do_fields():
 
 
 def _trip(basis=None):
-    stop = Stop(site_id="HI-1", arrived_at=T0, temp=measure("temp", "15 °C"), pressure=measure("pressure", "795 hPa"),
-                do=measure("do", "92 %"))
+    stop = Stop(
+        site_id="HI-1",
+        arrived_at=T0,
+        temp=measure("temp", "15 °C"),
+        pressure=measure("pressure", "795 hPa"),
+        do=measure("do", "92 %"),
+    )
     return Trip(started_at=T0, stops=[stop], meter_percent_basis=basis)
 
 

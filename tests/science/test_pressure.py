@@ -1,13 +1,21 @@
 """Pressure units, the standard atmosphere and the sea-level-adjusted check."""
+
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from core.science.pressure import (PRESSURE_UNITS, SEA_LEVEL_ADJUSTED_THRESHOLD_HPA, from_hpa,
-                           sea_level_adjusted_flag, sea_level_to_station_hpa, standard_pressure_hpa,
-                           station_to_sea_level_hpa, to_hpa)
 from core.flags import Severity
+from core.science.pressure import (
+    PRESSURE_UNITS,
+    SEA_LEVEL_ADJUSTED_THRESHOLD_HPA,
+    from_hpa,
+    sea_level_adjusted_flag,
+    sea_level_to_station_hpa,
+    standard_pressure_hpa,
+    station_to_sea_level_hpa,
+    to_hpa,
+)
 from tests.science._refdata import ids, rows
 
 
@@ -16,8 +24,9 @@ def test_unit_conversions(row):
     # source: the row's `source` column (NIST SP 811 / definitions)
     got = to_hpa(float(row["value"]), row["unit"])
     assert abs(got - float(row["hpa"])) <= float(row["tolerance_hpa"])
-    assert from_hpa(float(row["hpa"]), row["unit"]) == pytest.approx(float(row["value"]),
-                                                                     rel=float(row["tolerance_hpa"]) / 1013.25 + 1e-12)
+    assert from_hpa(float(row["hpa"]), row["unit"]) == pytest.approx(
+        float(row["value"]), rel=float(row["tolerance_hpa"]) / 1013.25 + 1e-12
+    )
 
 
 def test_units_tuple_is_the_contract():
@@ -89,6 +98,7 @@ def test_conversion_refuses_negative_and_unknown_units():
 def test_far_below_standard_catches_mmhg_typed_as_hpa():
     # common practice: 752 (a mmHg reading) entered as hPa at a 100 m site is 249 hPa too low
     from core.science.pressure import far_below_standard_flag, station_pressure_flags
+
     f = far_below_standard_flag(752.0, 100.0)
     assert f is not None and f.code == "pressure.far_below_standard" and "mmHg" in f.action
     # the deepest ordinary lows at sea level (about 950 hPa) and a true reading at 2500 m are not flagged

@@ -1,4 +1,5 @@
 """Property tests (hypothesis): physical monotonicity, round trips, inverses, continuity."""
+
 from __future__ import annotations
 
 import math
@@ -8,10 +9,9 @@ import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from core.science.conductivity import (conductivity_at_temp_us_cm, practical_salinity, specific_conductance_us_cm)
+from core.science.conductivity import conductivity_at_temp_us_cm, practical_salinity, specific_conductance_us_cm
 from core.science.oxygen import METHODS, do_saturation_mg_l
-from core.science.pressure import (PRESSURE_UNITS, from_hpa, sea_level_to_station_hpa,
-                           station_to_sea_level_hpa, to_hpa)
+from core.science.pressure import PRESSURE_UNITS, from_hpa, sea_level_to_station_hpa, station_to_sea_level_hpa, to_hpa
 from core.science.temperature import c_to_f, f_to_c
 from core.science.winkler import expected_titrant_ml, winkler_do_mg_l
 
@@ -98,8 +98,7 @@ def test_winkler_and_inverse_agree(titrant, n, titrated, reagents):
     do = winkler_do_mg_l(titrant, n, titrated, 300.0, reagents)
     if do > 70.0:
         return
-    assert math.isclose(expected_titrant_ml(do, n, titrated, 300.0, reagents), titrant, rel_tol=1e-12,
-                        abs_tol=1e-12)
+    assert math.isclose(expected_titrant_ml(do, n, titrated, 300.0, reagents), titrant, rel_tol=1e-12, abs_tol=1e-12)
 
 
 @SETTINGS

@@ -2,6 +2,7 @@
 
 What they may import is checked by the import-linter contracts in pyproject.toml (`make check`);
 this test checks what import-linter cannot: the calls a module makes."""
+
 from __future__ import annotations
 
 import ast
@@ -10,8 +11,19 @@ from pathlib import Path
 import pytest
 
 ROOT = Path(__file__).resolve().parents[2]
-SCIENCE = ["_validate", "pressure", "temperature", "conductivity", "oxygen", "criteria", "calibration", "winkler",
-           "bod", "holding", "assess"]
+SCIENCE = [
+    "_validate",
+    "pressure",
+    "temperature",
+    "conductivity",
+    "oxygen",
+    "criteria",
+    "calibration",
+    "winkler",
+    "bod",
+    "holding",
+    "assess",
+]
 FORBIDDEN_CALLS = {"now", "utcnow", "today", "open", "write_text", "write_bytes"}
 
 

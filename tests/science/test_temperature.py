@@ -1,4 +1,5 @@
 """°C and °F, temperature text, and the hint that a °C value looks like °F."""
+
 from __future__ import annotations
 
 import numpy as np

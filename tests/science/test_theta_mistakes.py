@@ -1,4 +1,5 @@
 """The two θ mistakes in circulation (θ from kelvin; θ constants shifted tenfold) must fail our checks."""
+
 from __future__ import annotations
 
 import numpy as np
@@ -23,8 +24,10 @@ def _theta_kelvin_array(t):
 
 
 def _times(k):
-    return (lambda t: k * (0.000975 - 1.426e-5 * t + 6.436e-8 * t * t),
-            lambda t: k * (0.000975 - 1.426e-5 * t + 6.436e-8 * t * t))
+    return (
+        lambda t: k * (0.000975 - 1.426e-5 * t + 6.436e-8 * t * t),
+        lambda t: k * (0.000975 - 1.426e-5 * t + 6.436e-8 * t * t),
+    )
 
 
 def _passes_pressure_checks(theta_value: bool = True) -> bool:
@@ -75,8 +78,11 @@ def _theta_with(c0, c1, c2):
     return (lambda t: c0 + c1 * t + c2 * t * t), (lambda t: c0 + c1 * t + c2 * t * t)
 
 
-SHIFTS = [(0.000975 * k if i == 0 else 0.000975, -1.426e-5 * k if i == 1 else -1.426e-5,
-           6.436e-8 * k if i == 2 else 6.436e-8) for i in range(3) for k in (10.0, 0.1)]
+SHIFTS = [
+    (0.000975 * k if i == 0 else 0.000975, -1.426e-5 * k if i == 1 else -1.426e-5, 6.436e-8 * k if i == 2 else 6.436e-8)
+    for i in range(3)
+    for k in (10.0, 0.1)
+]
 
 
 @pytest.mark.parametrize("consts", SHIFTS, ids=[f"c{i}x{k:g}" for i in range(3) for k in (10.0, 0.1)])

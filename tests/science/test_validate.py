@@ -1,4 +1,5 @@
 """The thin input-check layer every science function goes through (others import it too)."""
+
 from __future__ import annotations
 
 import numpy as np
@@ -23,11 +24,19 @@ def test_arrays_come_back_as_float64_without_copy():
     assert real(np.array([]), "x").size == 0
 
 
-@pytest.mark.parametrize("bad, words", [
-    (float("nan"), ["x = nan", "not a finite number"]), (float("inf"), ["not a finite number"]),
-    (True, ["true/false"]), ("3", ["text"]), (None, ["missing"]), ([1.0, "a"], ["not a number"]),
-    (np.array([1.0, np.inf, 2.0]), ["x[1]", "not a finite number"]), ({"a": 1}, ["not a number"]),
-])
+@pytest.mark.parametrize(
+    "bad, words",
+    [
+        (float("nan"), ["x = nan", "not a finite number"]),
+        (float("inf"), ["not a finite number"]),
+        (True, ["true/false"]),
+        ("3", ["text"]),
+        (None, ["missing"]),
+        ([1.0, "a"], ["not a number"]),
+        (np.array([1.0, np.inf, 2.0]), ["x[1]", "not a finite number"]),
+        ({"a": 1}, ["not a number"]),
+    ],
+)
 def test_refusals_name_the_input(bad, words):
     with pytest.raises(ValueError) as e:
         real(bad, "x", lo=0.0, hi=10.0, unit="mg/L")

@@ -1,4 +1,5 @@
 """Winkler titration, azide modification (Standard Methods 4500-O C [from memory])."""
+
 from __future__ import annotations
 
 import numpy as np
@@ -36,11 +37,17 @@ def test_inverse_agrees():
     assert np.allclose(expected_titrant_ml(do, 0.0245, 203.0, 300.0, 4.0), v)
 
 
-@pytest.mark.parametrize("kw, name", [
-    (dict(titrant_ml=-0.1), "titrant_ml"), (dict(normality=0.0), "normality"), (dict(titrated_ml=0.0), "titrated_ml"),
-    (dict(titrated_ml=350.0), "titrated_ml"), (dict(reagents_ml=300.0), "reagents_ml"),
-    (dict(bottle_ml=float("nan")), "bottle_ml"),
-])
+@pytest.mark.parametrize(
+    "kw, name",
+    [
+        (dict(titrant_ml=-0.1), "titrant_ml"),
+        (dict(normality=0.0), "normality"),
+        (dict(titrated_ml=0.0), "titrated_ml"),
+        (dict(titrated_ml=350.0), "titrated_ml"),
+        (dict(reagents_ml=300.0), "reagents_ml"),
+        (dict(bottle_ml=float("nan")), "bottle_ml"),
+    ],
+)
 def test_refusals(kw, name):
     args = dict(titrant_ml=7.3, normality=0.025, titrated_ml=201.0, bottle_ml=300.0, reagents_ml=2.0)
     args.update(kw)
@@ -50,6 +57,7 @@ def test_refusals(kw, name):
 
 # --- plausibility (Standard Methods 4500-O C [from memory]; limits common practice) -------------------------
 
+
 def test_winkler_plausibility_fires_and_not():
     from datetime import datetime, timedelta, timezone
 
@@ -57,10 +65,10 @@ def test_winkler_plausibility_fires_and_not():
 
     t0 = datetime(2026, 6, 14, 9, 0, tzinfo=timezone.utc)
     assert wp(do_mg_l=8.4, normality=0.025, collected_at=t0, fixed_at=t0 + timedelta(minutes=5)) == []
-    assert [f.code for f in wp(normality=0.25)] == ["winkler.normality_unusual"]        # 0.25 typed for 0.025
+    assert [f.code for f in wp(normality=0.25)] == ["winkler.normality_unusual"]  # 0.25 typed for 0.025
     assert [f.code for f in wp(normality=0.0025)] == ["winkler.normality_unusual"]
-    assert wp(normality=0.0245) == []                                                   # a standardised 0.0245 N
-    big = wp(do_mg_l=73.0)                                                              # 7.3 mL at 0.25 N
+    assert wp(normality=0.0245) == []  # a standardised 0.0245 N
+    big = wp(do_mg_l=73.0)  # 7.3 mL at 0.25 N
     assert [f.code for f in big] == ["winkler.do_implausible"] and big[0].severity.value == "stop-and-check"
     late = wp(collected_at=t0, fixed_at=t0 + timedelta(hours=2))
     assert [f.code for f in late] == ["winkler.late_fixing"] and "120 min" in late[0].message

@@ -1,5 +1,6 @@
 """Real servers on 127.0.0.1 for the sync tests: wsgidav (WebDAV, optionally TLS), an HTTP intake
 endpoint, a fault-injecting TCP proxy; and device stores holding invented trips."""
+
 from __future__ import annotations
 
 import hashlib
@@ -54,7 +55,7 @@ def finite_depth_only(app, seen: list | None = None):  # noqa: ANN001, ANN201
     RFC 4918 §9.1 says means infinity) is refused with 403 and the RFC's ``propfind-finite-depth``
     precondition, serialised by wsgidav's own error class, as stock servers ship by default.
     `seen` collects the (method, Depth) of every request."""
-    from wsgidav.dav_error import PRECONDITION_CODE_PropfindFiniteDepth, DAVErrorCondition
+    from wsgidav.dav_error import DAVErrorCondition, PRECONDITION_CODE_PropfindFiniteDepth
 
     body = DAVErrorCondition(PRECONDITION_CODE_PropfindFiniteDepth).as_string().encode("utf-8")
 
@@ -63,10 +64,13 @@ def finite_depth_only(app, seen: list | None = None):  # noqa: ANN001, ANN201
         if seen is not None:
             seen.append((environ["REQUEST_METHOD"], depth))
         if environ["REQUEST_METHOD"] == "PROPFIND" and depth == "infinity":
-            start_response("403 Forbidden", [("Content-Type", "application/xml; charset=utf-8"),
-                                              ("Content-Length", str(len(body)))])
+            start_response(
+                "403 Forbidden",
+                [("Content-Type", "application/xml; charset=utf-8"), ("Content-Length", str(len(body)))],
+            )
             return [body]
         return app(environ, start_response)
+
     return middleware
 
 
@@ -77,17 +81,19 @@ def forbid_everything(app):  # noqa: ANN001, ANN201
     def middleware(environ, start_response):  # noqa: ANN001, ANN202
         start_response("403 Forbidden", [("Content-Type", "text/html"), ("Content-Length", str(len(page)))])
         return [page]
+
     return middleware
 
 
-def start_dav(root: Path, *, certfile: Path | None = None, keyfile: Path | None = None,
-              auth: bool = True, wrap=None) -> DavServer:  # noqa: ANN001
+def start_dav(
+    root: Path, *, certfile: Path | None = None, keyfile: Path | None = None, auth: bool = True, wrap=None
+) -> DavServer:  # noqa: ANN001
+    import logging
+
     from cheroot import wsgi
     from wsgidav.wsgidav_app import WsgiDAVApp
 
-    import logging
-
-    logging.getLogger("wsgidav").setLevel(logging.ERROR)   # its start-up notes are not findings
+    logging.getLogger("wsgidav").setLevel(logging.ERROR)  # its start-up notes are not findings
     (root / "hub").mkdir(parents=True, exist_ok=True)
     port = free_port()
     config = {
@@ -95,8 +101,12 @@ def start_dav(root: Path, *, certfile: Path | None = None, keyfile: Path | None 
         "port": port,
         "provider_mapping": {"/": str(root)},
         "simple_dc": {"user_mapping": {"*": ({DAV_USER: {"password": DAV_PASSWORD}} if auth else True)}},
-        "http_authenticator": {"domain_controller": None, "accept_basic": True,
-                               "accept_digest": False, "default_to_digest": False},
+        "http_authenticator": {
+            "domain_controller": None,
+            "accept_basic": True,
+            "accept_digest": False,
+            "default_to_digest": False,
+        },
         "verbose": 0,
         "logging": {"enable": False, "enable_loggers": []},
         "property_manager": True,
@@ -127,8 +137,12 @@ def dav(tmp_path):
 
 
 def dav_session(device_id: str | None = None, **kw) -> Session:
-    opts = dict(credentials=Credentials(DAV_USER, DAV_PASSWORD), connect_timeout_s=2.0,
-                read_timeout_s=5.0, retry=RetryPolicy(attempts=3, backoff_s=0.01, max_backoff_s=0.05))
+    opts = dict(
+        credentials=Credentials(DAV_USER, DAV_PASSWORD),
+        connect_timeout_s=2.0,
+        read_timeout_s=5.0,
+        retry=RetryPolicy(attempts=3, backoff_s=0.01, max_backoff_s=0.05),
+    )
     opts.update(kw)
     return Session(device_id, **opts)
 
@@ -144,11 +158,11 @@ class Intake:
     port: int
     server: ThreadingHTTPServer
     thread: threading.Thread
-    received: dict = field(default_factory=dict)        # Idempotency-Key -> body bytes
-    by_trip: dict = field(default_factory=dict)         # trip id -> list of (revision, body)
-    requests: list = field(default_factory=list)        # (key, status)
+    received: dict = field(default_factory=dict)  # Idempotency-Key -> body bytes
+    by_trip: dict = field(default_factory=dict)  # trip id -> list of (revision, body)
+    requests: list = field(default_factory=list)  # (key, status)
     conflict_trips: set = field(default_factory=set)
-    answer: str = "ack"     # "ack" (the JSON acknowledgement), "html" (a login page), "empty", "wrong-hash"
+    answer: str = "ack"  # "ack" (the JSON acknowledgement), "html" (a login page), "empty", "wrong-hash"
 
     @property
     def url(self) -> str:
@@ -188,16 +202,25 @@ def intake():
             out, ctype = b"", "text/plain"
             if status in (200, 201):
                 if it.answer == "html":
-                    out, ctype = (b"<!DOCTYPE html><html><head><title>Sign in</title></head><body>"
-                                  b"<form>user <input name=u></form></body></html>"), "text/html"
-                    it.received.pop(key, None)          # a login page takes nothing in
+                    out, ctype = (
+                        (
+                            b"<!DOCTYPE html><html><head><title>Sign in</title></head><body>"
+                            b"<form>user <input name=u></form></body></html>"
+                        ),
+                        "text/html",
+                    )
+                    it.received.pop(key, None)  # a login page takes nothing in
                     it.by_trip.clear()
                 elif it.answer in ("ack", "wrong-hash"):
                     digest = "sha256:" + hashlib.sha256(body).hexdigest()
                     if it.answer == "wrong-hash":
                         digest = "sha256:" + "0" * 64
-                    out, ctype = json.dumps({"trip_id": json.loads(body)["id"], "content_hash": digest,
-                                             "received": True}).encode(), "application/json"
+                    out, ctype = (
+                        json.dumps(
+                            {"trip_id": json.loads(body)["id"], "content_hash": digest, "received": True}
+                        ).encode(),
+                        "application/json",
+                    )
             self.send_response(status)
             self.send_header("Content-Type", ctype)
             self.send_header("Content-Length", str(len(out)))
@@ -340,7 +363,7 @@ class FaultProxy:
                 else:
                     if fault == "cut_headers":
                         head = data.find(b"\r\n")
-                        if sent_down == 0 and head >= 0:     # the status line only, then close
+                        if sent_down == 0 and head >= 0:  # the status line only, then close
                             dst.sendall(data[: head + 2])
                             return
                     if fault == "cut_response" and sent_down + len(data) > cut // 8:
@@ -377,13 +400,16 @@ def open_store(path: Path, device_id: str) -> DeviceStore:
 
 def new_trip(store: DeviceStore, *, day: int = 3, stops: int = 1, crew: str = "R.O.") -> Trip:
     start = datetime(2026, 6, day, 8, 0, tzinfo=timezone.utc)
-    trip = store.save_trip(Trip(program="Tamsin Valley Stream Watch", crew=[crew], started_at=start),
-                           "trip started")
+    trip = store.save_trip(Trip(program="Tamsin Valley Stream Watch", crew=[crew], started_at=start), "trip started")
     for i in range(stops):
         site = SITES[i % len(SITES)][0]
-        stop = Stop(site_id=site, arrived_at=start + timedelta(hours=1 + i),
-                    temp=measure("temp", f"{11.5 + i} C"), pressure=measure("pressure", "990 hPa"),
-                    do=measure("do", "9.1 mg/L"))
+        stop = Stop(
+            site_id=site,
+            arrived_at=start + timedelta(hours=1 + i),
+            temp=measure("temp", f"{11.5 + i} C"),
+            pressure=measure("pressure", "990 hPa"),
+            do=measure("do", "9.1 mg/L"),
+        )
         trip = store.save_stop(trip.id, stop)
     return trip
 
@@ -443,22 +469,46 @@ def make_self_signed(folder: Path) -> tuple[Path, Path]:
                 pytest.fail(f"{why}: CI must test TLS (install openssl, see .ci/sysdeps.sh)")
             pytest.skip(why)
         subprocess.run(
-            ["openssl", "req", "-x509", "-newkey", "rsa:2048", "-nodes", "-keyout", str(key),
-             "-out", str(cert), "-days", "2", "-subj", "/CN=127.0.0.1",
-             "-addext", "subjectAltName=IP:127.0.0.1"],
-            check=True, capture_output=True, timeout=60)
+            [
+                "openssl",
+                "req",
+                "-x509",
+                "-newkey",
+                "rsa:2048",
+                "-nodes",
+                "-keyout",
+                str(key),
+                "-out",
+                str(cert),
+                "-days",
+                "2",
+                "-subj",
+                "/CN=127.0.0.1",
+                "-addext",
+                "subjectAltName=IP:127.0.0.1",
+            ],
+            check=True,
+            capture_output=True,
+            timeout=60,
+        )
         return cert, key
     pkey = rsa.generate_private_key(public_exponent=65537, key_size=2048)
     name = x509.Name([x509.NameAttribute(NameOID.COMMON_NAME, "127.0.0.1")])
     now = datetime.now(timezone.utc)
-    certificate = (x509.CertificateBuilder().subject_name(name).issuer_name(name)
-                   .public_key(pkey.public_key()).serial_number(x509.random_serial_number())
-                   .not_valid_before(now - timedelta(minutes=5)).not_valid_after(now + timedelta(days=2))
-                   .add_extension(x509.SubjectAlternativeName([x509.IPAddress(ipaddress.ip_address("127.0.0.1"))]),
-                                  critical=False)
-                   .add_extension(x509.BasicConstraints(ca=True, path_length=None), critical=True)
-                   .sign(pkey, hashes.SHA256()))
+    certificate = (
+        x509.CertificateBuilder()
+        .subject_name(name)
+        .issuer_name(name)
+        .public_key(pkey.public_key())
+        .serial_number(x509.random_serial_number())
+        .not_valid_before(now - timedelta(minutes=5))
+        .not_valid_after(now + timedelta(days=2))
+        .add_extension(x509.SubjectAlternativeName([x509.IPAddress(ipaddress.ip_address("127.0.0.1"))]), critical=False)
+        .add_extension(x509.BasicConstraints(ca=True, path_length=None), critical=True)
+        .sign(pkey, hashes.SHA256())
+    )
     cert.write_bytes(certificate.public_bytes(serialization.Encoding.PEM))
-    key.write_bytes(pkey.private_bytes(serialization.Encoding.PEM, serialization.PrivateFormat.PKCS8,
-                                       serialization.NoEncryption()))
+    key.write_bytes(
+        pkey.private_bytes(serialization.Encoding.PEM, serialization.PrivateFormat.PKCS8, serialization.NoEncryption())
+    )
     return cert, key

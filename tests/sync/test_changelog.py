@@ -1,5 +1,6 @@
 """The hub's change log (sync.changelog) on a real wsgidav server and on a folder: a pull reads only
 new entries; a lost, damaged or missing entry costs a walk, never a trip."""
+
 from __future__ import annotations
 
 import json
@@ -30,13 +31,13 @@ def test_each_push_logs_the_files_it_added(dav, device_a):
     doc = json.loads(entries[0].read_bytes())
     assert doc["seq"] == 1 and len(doc["files"]) == 2
     for f in doc["files"]:
-        assert (hub / "trips" / f).is_file()           # only names files that exist
+        assert (hub / "trips" / f).is_file()  # only names files that exist
     assert {f.split("/")[1] for f in doc["files"]} == {t.id for t in trips}
     # the name is content-addressed: entry_name(seq, bytes) gives it back
     assert changelog.entry_name(1, entries[0].read_bytes()) == entries[0].name
     s = dav_session()
     assert sync.push(device_a, dav.url, session=s).pushed == 0
-    assert s.request_count == 0 and len(_log_files(hub)) == 1     # nothing pushed, nothing logged
+    assert s.request_count == 0 and len(_log_files(hub)) == 1  # nothing pushed, nothing logged
 
 
 def test_a_pull_reads_only_new_entries_even_within_one_second(dav, device_a, tmp_path):
@@ -82,7 +83,7 @@ def test_a_damaged_or_lost_entry_costs_a_walk_not_a_trip(dav, device_a, tmp_path
     if damage == "truncated":
         hit.write_bytes(hit.read_bytes()[:20])
     elif damage == "deleted":
-        hit.unlink()                                  # a hole in the device's numbers
+        hit.unlink()  # a hole in the device's numbers
     else:
         doc = json.loads(hit.read_bytes())
         doc["files"] = []
@@ -109,12 +110,12 @@ def test_an_entry_that_could_not_be_written_is_written_by_the_next_push(tmp_path
     for p in own.iterdir():
         p.unlink()
     own.rmdir()
-    own.write_bytes(b"")                              # a file where the folder should be: writes fail
+    own.write_bytes(b"")  # a file where the folder should be: writes fail
     assert sync.push(device_a, str(hub)).pushed == 1  # the trip still goes
     state = changelog.LogState.load(next((tmp_path / "device-a" / "sync").iterdir()))
     assert len(state.pending) == 1
     own.unlink()
-    sync.push(device_a, str(hub))                     # nothing new to push; the pending entry goes
+    sync.push(device_a, str(hub))  # nothing new to push; the pending entry goes
     assert changelog.LogState.load(state.path.parent).pending == []
     report = sync.pull(office, str(hub))
     assert report.listed == "log" and report.failed == 0
@@ -140,7 +141,7 @@ def test_a_day_without_a_walk_walks_and_a_hub_without_a_log_still_pulls(tmp_path
     shutil.rmtree(hub / "log")
     edit_stop_notes(device_a, t.id, 0, "pushed by an older build")
     sync.push(device_a, str(hub))
-    shutil.rmtree(hub / "log")                        # as if pushed by a build without the log
+    shutil.rmtree(hub / "log")  # as if pushed by a build without the log
     report = sync.pull(office, str(hub))
     assert report.listed == "walk" and office.load_trip(t.id).stops[0].notes == "pushed by an older build"
 
@@ -162,7 +163,9 @@ def test_a_server_refusing_infinite_depth_is_walked(tmp_path, device_a):
         with pytest.raises(Unauthorized):
             from sync.session import Credentials
 
-            sync.pull(_office(tmp_path / "x"), server.url, session=dav_session(credentials=Credentials("ro-tablet", "wrong")))
+            sync.pull(
+                _office(tmp_path / "x"), server.url, session=dav_session(credentials=Credentials("ro-tablet", "wrong"))
+            )
     finally:
         server.stop()
 

@@ -1,5 +1,6 @@
 """`streamtab sync push|pull|status` run as a person would (JSON keys and exit status from issue 5:
 0 all went, 1 something left to retry, 2 bad input)."""
+
 import json
 import os
 
@@ -16,8 +17,12 @@ def test_push_to_a_folder_prints_the_counts_and_a_progress_bar(tmp_path):
     out = run_cli("sync", "push", "--to", str(hub), "--json", data_dir=store.data_dir)
     assert out.returncode == 0, out.stderr
     result = json.loads(out.stdout)
-    assert {k: result[k] for k in ("pushed", "unchanged", "conflicts", "failed")} == \
-        {"pushed": 2, "unchanged": 0, "conflicts": 0, "failed": 0}
+    assert {k: result[k] for k in ("pushed", "unchanged", "conflicts", "failed")} == {
+        "pushed": 2,
+        "unchanged": 0,
+        "conflicts": 0,
+        "failed": 0,
+    }
     assert "push [" in out.stderr and "2/2" in out.stderr
     again = run_cli("sync", "push", "--to", str(hub), "--json", data_dir=store.data_dir)
     assert json.loads(again.stdout)["unchanged"] == 2 and again.returncode == 0
@@ -34,9 +39,10 @@ def test_push_to_a_folder_prints_the_counts_and_a_progress_bar(tmp_path):
 def test_unreachable_hub_exits_1_and_keeps_everything_for_the_next_sync(tmp_path):
     store = open_store(tmp_path / "dev", "tablet-A")
     new_trip(store)
-    port = free_port()          # nothing listens there
-    out = run_cli("sync", "push", "--to", f"http://127.0.0.1:{port}/hub/", "--json", "--timeout", "1",
-                  data_dir=store.data_dir)
+    port = free_port()  # nothing listens there
+    out = run_cli(
+        "sync", "push", "--to", f"http://127.0.0.1:{port}/hub/", "--json", "--timeout", "1", data_dir=store.data_dir
+    )
     assert out.returncode == 1, out.stderr
     result = json.loads(out.stdout)
     assert result["failed"] == 1 and result["pushed"] == 0
@@ -47,11 +53,13 @@ def test_unreachable_hub_exits_1_and_keeps_everything_for_the_next_sync(tmp_path
 
 def test_bad_input_is_one_line_with_exit_2(tmp_path):
     store = open_store(tmp_path / "dev", "tablet-A")
-    for args in (["sync", "push", "--to", "gopher://hub"],
-                 ["sync", "push", "--to", str(tmp_path / "missing-folder")],
-                 ["sync", "push", "--to", "http://dav.example.org/hub/"],
-                 ["sync", "pull", "--from", "post+http://127.0.0.1:9/x"],
-                 ["sync", "push"]):
+    for args in (
+        ["sync", "push", "--to", "gopher://hub"],
+        ["sync", "push", "--to", str(tmp_path / "missing-folder")],
+        ["sync", "push", "--to", "http://dav.example.org/hub/"],
+        ["sync", "pull", "--from", "post+http://127.0.0.1:9/x"],
+        ["sync", "push"],
+    ):
         out = run_cli(*args, data_dir=store.data_dir)
         assert out.returncode == 2, (args, out.stderr)
         assert len(out.stderr.strip().splitlines()) == 1 and "Traceback" not in out.stderr

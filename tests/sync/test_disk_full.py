@@ -2,6 +2,7 @@
 saving trips end in one line and exit 1, never a traceback; nothing is lost, and once space is
 free the next sync completes. The device's data folder sits on a small tmpfs mounted by the test
 (root only); where it cannot be mounted the test is skipped with the reason, except under CI."""
+
 from __future__ import annotations
 
 import errno
@@ -28,8 +29,13 @@ def small_fs():
     elif shutil.which("mount") is None:
         why = "no mount command"
     else:
-        r = subprocess.run(["mount", "-t", "tmpfs", "-o", "size=4m,mode=0755", "tmpfs", str(where)],
-                           capture_output=True, text=True, timeout=30, check=False)
+        r = subprocess.run(
+            ["mount", "-t", "tmpfs", "-o", "size=4m,mode=0755", "tmpfs", str(where)],
+            capture_output=True,
+            text=True,
+            timeout=30,
+            check=False,
+        )
         if r.returncode != 0:
             why = f"mount -t tmpfs failed: {r.stderr.strip() or r.returncode}"
     if why:
@@ -49,7 +55,7 @@ def fill(folder: Path) -> Path:
     filler = folder / "filler.bin"
     with open(filler, "wb", buffering=0) as fh:
         for size in (256 * 1024, 4096, 1):
-            for _ in range(100_000):                       # bounded: 4 MiB / 1 byte at worst
+            for _ in range(100_000):  # bounded: 4 MiB / 1 byte at worst
                 try:
                     fh.write(b"\0" * size)
                 except OSError as exc:

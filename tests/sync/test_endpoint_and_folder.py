@@ -1,5 +1,6 @@
 """The HTTP POST endpoint target (Idempotency-Key from trip UUID and revision; 2xx accepted, 409
 conflict) and the folder target (atomic writes, names from UUIDs only, nothing overwritten)."""
+
 import os
 import shutil
 import stat
@@ -19,7 +20,7 @@ def test_endpoint_receives_each_revision_once_with_an_idempotency_key(intake, de
     r = sync.push(device_a, intake.url, session=s)
     assert r.pushed == 1
     doc = device_a.trip_document(t.id)
-    (key, status), = intake.requests
+    ((key, status),) = intake.requests
     assert status == 201 and key.startswith(f"{t.id}-r{doc['revision']}-")
     assert intake.received[key] == canonical_json_bytes(doc)
     # pushing again sends nothing; a lost outbox re-sends with the same key and the service
@@ -79,8 +80,8 @@ def test_folder_never_overwrites_and_repairs_only_a_damaged_copy(tmp_path, devic
     sync.push(device_a, str(hub), session=dav_session())
     (f,) = hub_files(hub)[t.id]
     good = f.read_bytes()
-    f.write_bytes(good[: len(good) // 2])         # damaged (half a file)
-    shutil.rmtree(device_a.data_dir / "sync")     # forget what was pushed
+    f.write_bytes(good[: len(good) // 2])  # damaged (half a file)
+    shutil.rmtree(device_a.data_dir / "sync")  # forget what was pushed
     r = sync.push(device_a, str(hub), session=dav_session())
     assert r.failed == 0 and f.read_bytes() == good
 
@@ -119,6 +120,7 @@ def test_status_reports_per_hub_state(tmp_path, device_a, intake):
 
 def test_background_push_reports_progress_and_the_result_from_its_thread(tmp_path, device_a):
     import threading
+
     hub = tmp_path / "hub"
     hub.mkdir()
     for d in (3, 4, 5):
@@ -129,9 +131,15 @@ def test_background_push_reports_progress_and_the_result_from_its_thread(tmp_pat
     def on_done(report, error):
         result["report"], result["error"] = report, error
         done.set()
-    thread = sync.run_in_background(sync.push, device_a, str(hub), session=dav_session(),
-                                    progress=lambda *a: seen.append((threading.current_thread().name, a)),
-                                    on_done=on_done)
+
+    thread = sync.run_in_background(
+        sync.push,
+        device_a,
+        str(hub),
+        session=dav_session(),
+        progress=lambda *a: seen.append((threading.current_thread().name, a)),
+        on_done=on_done,
+    )
     assert done.wait(30)
     thread.join(5)
     assert result["error"] is None and result["report"].pushed == 3

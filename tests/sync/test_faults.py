@@ -2,6 +2,7 @@
 answers cut after the server acted), ≥ 100 randomised push rounds, then one clean push: the hub
 holds every trip exactly once per revision, byte-for-byte what the device holds (the
 guarantee of issue 5; the fault kinds are common practice for testing network code)."""
+
 import json
 import os
 import random
@@ -13,25 +14,28 @@ import sync
 from core.store.atomic import canonical_json_bytes
 from sync.layout import name_matches
 from sync.session import Credentials, RetryPolicy, Session
-from tests.sync.conftest import (DAV_PASSWORD, DAV_USER, dav_session, edit_stop_notes, hub_files,
-                                 new_trip, open_store)
+from tests.sync.conftest import DAV_PASSWORD, DAV_USER, dav_session, edit_stop_notes, hub_files, new_trip, open_store
 
 ROUNDS = 110
 TRIPS = 6
 
 
 def faulty_session(device_id):
-    s = Session(device_id, credentials=Credentials(DAV_USER, DAV_PASSWORD),
-                connect_timeout_s=0.5, read_timeout_s=0.4,
-                retry=RetryPolicy(attempts=2, backoff_s=0.005, max_backoff_s=0.01))
-    s.http.headers["Connection"] = "close"    # one request per connection: a fault draw for each
+    s = Session(
+        device_id,
+        credentials=Credentials(DAV_USER, DAV_PASSWORD),
+        connect_timeout_s=0.5,
+        read_timeout_s=0.4,
+        retry=RetryPolicy(attempts=2, backoff_s=0.005, max_backoff_s=0.01),
+    )
+    s.http.headers["Connection"] = "close"  # one request per connection: a fault draw for each
     return s
 
 
 @pytest.mark.slow
 @pytest.mark.timeout(240)
 def test_randomised_faults_then_clean_sync_leave_each_trip_exactly_once(dav, fault_proxy, device_a, tmp_path):
-    seed = int(os.environ.get("STREAMTAB_FAULT_SEED", "20260603"))   # fixed, so a failure repeats
+    seed = int(os.environ.get("STREAMTAB_FAULT_SEED", "20260603"))  # fixed, so a failure repeats
     rng = random.Random(seed)
     fault_proxy.rng.seed(seed)
     trips = [new_trip(device_a, day=1 + i, stops=2) for i in range(TRIPS)]
@@ -63,7 +67,7 @@ def test_randomised_faults_then_clean_sync_leave_each_trip_exactly_once(dav, fau
         assert all(name_matches(f.name, b) for f, b in zip(files, contents, strict=True))
         assert len(set(contents)) == len(contents)
         revisions = [json.loads(b)["revision"] for b in contents]
-        assert len(set(revisions)) == len(revisions)          # one file per revision
+        assert len(set(revisions)) == len(revisions)  # one file per revision
         device_bytes = canonical_json_bytes(device_a.trip_document(t.id))
         assert contents[revisions.index(max(revisions))] == device_bytes
         assert contents.count(device_bytes) == 1

@@ -1,6 +1,7 @@
 """Credentials sections matched by scheme, host, port and path segments; the usual CA-bundle
 variables honoured; a TLS failure says which check failed; a pushing device removes its own stale
 uploads under incoming/ and nothing else (issue 9). Real wsgidav (also over TLS) on 127.0.0.1."""
+
 from __future__ import annotations
 
 import os
@@ -13,8 +14,7 @@ from sync import errors
 from sync.layout import device_key
 from sync.session import ca_file_from_environment, load_credentials
 from tests.conftest import run_cli
-from tests.sync.conftest import (DAV_PASSWORD, DAV_USER, dav_session, make_self_signed, new_trip,
-                                 start_dav)
+from tests.sync.conftest import DAV_PASSWORD, DAV_USER, dav_session, make_self_signed, new_trip, start_dav
 
 
 def config(tmp_path, text: str):
@@ -24,15 +24,18 @@ def config(tmp_path, text: str):
     return path
 
 
-@pytest.mark.parametrize("hub,matches", [
-    ("https://dav.example.org/", True),
-    ("https://DAV.example.org:443/streamwatch/", True),
-    ("https://dav.example.org.attacker.test/", False),      # a longer host name
-    ("https://dav.example.org:8443/", False),                # another port
-    ("http://dav.example.org/", False),                      # another scheme
-    ("https://evil.test/?https://dav.example.org", False),
-    ("post+https://dav.example.org/intake/", True),          # an endpoint on the same server
-])
+@pytest.mark.parametrize(
+    "hub,matches",
+    [
+        ("https://dav.example.org/", True),
+        ("https://DAV.example.org:443/streamwatch/", True),
+        ("https://dav.example.org.attacker.test/", False),  # a longer host name
+        ("https://dav.example.org:8443/", False),  # another port
+        ("http://dav.example.org/", False),  # another scheme
+        ("https://evil.test/?https://dav.example.org", False),
+        ("post+https://dav.example.org/intake/", True),  # an endpoint on the same server
+    ],
+)
 def test_sections_match_by_scheme_host_and_port(tmp_path, hub, matches):
     cfg = config(tmp_path, "[hub https://dav.example.org]\ntoken = t-1\n")
     got = load_credentials(hub, config_file=cfg, env={})
@@ -40,9 +43,12 @@ def test_sections_match_by_scheme_host_and_port(tmp_path, hub, matches):
 
 
 def test_sections_match_whole_path_segments_and_the_most_specific_wins(tmp_path):
-    cfg = config(tmp_path, "[hub https://dav.example.org/stream]\ntoken = A\n"
-                           "[hub https://dav.example.org/stream/upper/]\ntoken = B\n"
-                           "[default]\ntoken = D\n")
+    cfg = config(
+        tmp_path,
+        "[hub https://dav.example.org/stream]\ntoken = A\n"
+        "[hub https://dav.example.org/stream/upper/]\ntoken = B\n"
+        "[default]\ntoken = D\n",
+    )
 
     def token(url: str) -> str:
         creds = load_credentials(url, config_file=cfg, env={})
@@ -50,7 +56,7 @@ def test_sections_match_whole_path_segments_and_the_most_specific_wins(tmp_path)
 
     assert token("https://dav.example.org/stream/") == "A"
     assert token("https://dav.example.org/stream/upper/hub/") == "B"
-    assert token("https://dav.example.org/streamwatch/") == "D"       # not a segment of /stream
+    assert token("https://dav.example.org/streamwatch/") == "D"  # not a segment of /stream
     assert token("https://dav.example.org.attacker.test/stream/") == "D"
 
 
@@ -95,14 +101,17 @@ def test_cli_honours_the_usual_ca_bundle_variables(tls_dav, device_a, tmp_path, 
     server, cert = tls_dav
     new_trip(device_a)
     cfg = config(tmp_path, f"[hub {server.url}]\nuser = {DAV_USER}\npassword = {DAV_PASSWORD}\n")
-    env = {k: v for k, v in os.environ.items() if k not in ("REQUESTS_CA_BUNDLE", "SSL_CERT_FILE",
-                                                            "STREAMTAB_SYNC_CA_FILE")}
-    refused = run_cli("sync", "push", "--to", server.url, "--credentials", str(cfg),
-                      data_dir=device_a.data_dir, env=env)
+    env = {
+        k: v
+        for k, v in os.environ.items()
+        if k not in ("REQUESTS_CA_BUNDLE", "SSL_CERT_FILE", "STREAMTAB_SYNC_CA_FILE")
+    }
+    refused = run_cli(
+        "sync", "push", "--to", server.url, "--credentials", str(cfg), data_dir=device_a.data_dir, env=env
+    )
     assert refused.returncode == 2 and "Traceback" not in refused.stderr
     env[variable] = str(cert)
-    ok = run_cli("sync", "push", "--to", server.url, "--credentials", str(cfg),
-                 data_dir=device_a.data_dir, env=env)
+    ok = run_cli("sync", "push", "--to", server.url, "--credentials", str(cfg), data_dir=device_a.data_dir, env=env)
     assert ok.returncode == 0, ok.stderr
 
 

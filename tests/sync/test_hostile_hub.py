@@ -3,6 +3,7 @@ junk names, a year folder that is not four digits, an upper-case trip folder, a 
 before its GET, a document nested a thousand levels deep and a file it drips a byte at a time;
 the same odd items in a folder hub. Each is skipped or quarantined with a report; the good trip
 arrives; nothing ends in a traceback."""
+
 from __future__ import annotations
 
 import hashlib
@@ -44,7 +45,7 @@ class HostileHub:
 
     def __init__(self) -> None:
         self.files: dict[str, bytes] = {}
-        self.extra: list[tuple[str, bool]] = []        # raw hrefs (already quoted) and is-folder
+        self.extra: list[tuple[str, bool]] = []  # raw hrefs (already quoted) and is-folder
         self.ghosts: set[str] = set()
         self.drips: set[str] = set()
         self.gets: list[str] = []
@@ -68,7 +69,7 @@ class HostileHub:
                 self._send(207, hub.listing())
 
             def do_GET(self):  # noqa: N802
-                rel = unquote(urlsplit(self.path).path)[len("/hub/"):]
+                rel = unquote(urlsplit(self.path).path)[len("/hub/") :]
                 hub.gets.append(rel)
                 if rel in hub.ghosts or rel not in hub.files:
                     return self._send(404, b"", "text/plain")
@@ -77,9 +78,9 @@ class HostileHub:
                     self.send_response(200)
                     self.send_header("Content-Length", str(len(data)))
                     self.end_headers()
-                    for i in range(min(len(data), 200)):     # bounded: 40 s at most
+                    for i in range(min(len(data), 200)):  # bounded: 40 s at most
                         try:
-                            self.wfile.write(data[i:i + 1])
+                            self.wfile.write(data[i : i + 1])
                             self.wfile.flush()
                         except OSError:
                             return
@@ -102,9 +103,12 @@ class HostileHub:
         def row(href: str, folder: bool, size: int | None) -> None:
             rtype = "<D:collection/>" if folder else ""
             length = f"<D:getcontentlength>{size}</D:getcontentlength>" if size is not None else ""
-            rows.append(f"<D:response><D:href>{href}</D:href><D:propstat><D:prop><D:resourcetype>{rtype}"
-                        f"</D:resourcetype>{length}</D:prop><D:status>HTTP/1.1 200 OK</D:status>"
-                        f"</D:propstat></D:response>")
+            rows.append(
+                f"<D:response><D:href>{href}</D:href><D:propstat><D:prop><D:resourcetype>{rtype}"
+                f"</D:resourcetype>{length}</D:prop><D:status>HTTP/1.1 200 OK</D:status>"
+                f"</D:propstat></D:response>"
+            )
+
         folders = set()
         for rel in self.files:
             parts = rel.split("/")
@@ -116,8 +120,9 @@ class HostileHub:
             row("/hub/" + quote(rel), False, len(data))
         for href, folder in self.extra:
             row(href, folder, 10)
-        return ('<?xml version="1.0" encoding="utf-8"?><D:multistatus xmlns:D="DAV:">'
-                + "".join(rows) + "</D:multistatus>").encode()
+        return (
+            '<?xml version="1.0" encoding="utf-8"?><D:multistatus xmlns:D="DAV:">' + "".join(rows) + "</D:multistatus>"
+        ).encode()
 
     def close(self) -> None:
         self.server.shutdown()
@@ -132,8 +137,12 @@ def hostile():
 
 
 def quick_session(device_id: str) -> Session:
-    return Session(device_id, connect_timeout_s=1.0, read_timeout_s=1.0,
-                   retry=RetryPolicy(attempts=2, backoff_s=0.01, max_backoff_s=0.02))
+    return Session(
+        device_id,
+        connect_timeout_s=1.0,
+        read_timeout_s=1.0,
+        retry=RetryPolicy(attempts=2, backoff_s=0.01, max_backoff_s=0.02),
+    )
 
 
 def plant_everything(put, device_a):  # noqa: ANN001 - put(relpath, bytes)
@@ -162,11 +171,13 @@ def test_hostile_webdav_hub_odd_items_are_reported_and_the_good_trip_arrives(hos
     drip_rel = f"trips/2026/{DRIP_ID}/{name_for(1, drip)}"
     hostile.files[drip_rel] = drip
     hostile.drips.add(drip_rel)
-    hostile.extra += [("/hub/trips/2026/%0A%1Bjunk%2Fname/", True),           # control characters, a slash
-                      ("/hub/trips/../../etc/passwd", False),                # climbing out
-                      ("/elsewhere/trips/2026/x.json", False),               # outside the hub
-                      ("/hub/trips/2026/" + "n" * 300, True),                # a very long name
-                      ("/hub/trips/%FF%FE/", True)]                          # not UTF-8
+    hostile.extra += [
+        ("/hub/trips/2026/%0A%1Bjunk%2Fname/", True),  # control characters, a slash
+        ("/hub/trips/../../etc/passwd", False),  # climbing out
+        ("/elsewhere/trips/2026/x.json", False),  # outside the hub
+        ("/hub/trips/2026/" + "n" * 300, True),  # a very long name
+        ("/hub/trips/%FF%FE/", True),
+    ]  # not UTF-8
     office = open_store(tmp_path / "office", "office-desk")
     started = time.monotonic()
     report = sync.pull(office, hostile.url, session=quick_session("office-desk"))
@@ -181,14 +192,14 @@ def test_hostile_webdav_hub_odd_items_are_reported_and_the_good_trip_arrives(hos
     assert f"{UPPER_ID}/ skipped: a trip folder whose name is not in sync's lower-case form" in skipped
     assert "notes.txt skipped: not a revision file" in skipped
     assert "r000001-zz.json skipped" in skipped
-    assert "?" in skipped and "…" in skipped                                  # shown safely, shortened
+    assert "?" in skipped and "…" in skipped  # shown safely, shortened
     assert ODD_YEAR_ID not in by_trip and UPPER_ID.lower() not in by_trip
     assert not any(g.startswith("trips/20x6") or UPPER_ID in g for g in hostile.gets)
     # the deep document is quarantined (no RecursionError), the ghost skipped, the drip cut off
     assert by_trip[DEEP_ID].result == "quarantined" and "nested more than 64" in by_trip[DEEP_ID].message
     assert "gone" in by_trip[GHOST_ID].message and not by_trip[GHOST_ID].retry
     assert by_trip[DRIP_ID].result == "failed" and by_trip[DRIP_ID].retry
-    assert took < 20, took                     # the drip alone would take 40 s per try
+    assert took < 20, took  # the drip alone would take 40 s per try
     assert not report.complete
 
 
@@ -196,7 +207,7 @@ def test_hostile_hub_through_the_cli_reports_and_never_a_traceback(hostile, devi
     good = plant_everything(hostile.files.__setitem__, device_a)
     out = run_cli("sync", "pull", "--from", hostile.url, "--timeout", "2", data_dir=tmp_path / "office")
     assert "Traceback" not in out.stderr + out.stdout
-    assert out.returncode == 1                             # the deep file is re-checked next time
+    assert out.returncode == 1  # the deep file is re-checked next time
     assert "hub entry trips/20x6/ skipped" in out.stdout and DEEP_ID in out.stdout
     listed = run_cli("trip", "list", "--json", data_dir=tmp_path / "office")
     assert [t["id"] for t in json.loads(listed.stdout)] == [good.id]
@@ -209,11 +220,12 @@ def test_folder_hub_odd_items_are_reported_and_the_good_trip_arrives(device_a, t
         path = hub / rel
         path.parent.mkdir(parents=True, exist_ok=True)
         path.write_bytes(data)
+
     good = plant_everything(put, device_a)
     (hub / "trips" / "README.txt").write_text("office notes")
     ghost_dir = hub / "trips" / "2026" / GHOST_ID
     ghost_dir.mkdir(parents=True)
-    os.symlink(tmp_path / "nowhere.json", ghost_dir / name_for(1, b"{}"))     # listed, gone on reading
+    os.symlink(tmp_path / "nowhere.json", ghost_dir / name_for(1, b"{}"))  # listed, gone on reading
     office = open_store(tmp_path / "office", "office-desk")
     report = sync.pull(office, str(hub))
     by_trip = {t.trip_id: t for t in report.per_trip}
@@ -232,11 +244,15 @@ def test_hidden_files_a_file_manager_leaves_in_a_folder_hub_are_passed_over_quie
     good = new_trip(device_a)
     assert sync.push(device_a, str(hub)).pushed == 1
     trip_dir = next((hub / "trips").glob("*/*"))
-    for hidden in (hub / "trips" / ".DS_Store", trip_dir.parent / ".DS_Store", trip_dir / ".DS_Store",
-                   trip_dir / ("._" + next(trip_dir.iterdir()).name)):
+    for hidden in (
+        hub / "trips" / ".DS_Store",
+        trip_dir.parent / ".DS_Store",
+        trip_dir / ".DS_Store",
+        trip_dir / ("._" + next(trip_dir.iterdir()).name),
+    ):
         hidden.write_bytes(b"\x00\x05\x16\x07 file manager notes")
     (hub / "trips" / ".Trash" / "2026").mkdir(parents=True)
-    (hub / "trips" / "README.txt").write_text("office notes")        # not hidden: still reported
+    (hub / "trips" / "README.txt").write_text("office notes")  # not hidden: still reported
     office = open_store(tmp_path / "office", "office-desk")
     report = sync.pull(office, str(hub))
     assert {t.trip_id: t.result for t in report.per_trip} == {good.id: "pulled"}

@@ -1,6 +1,7 @@
 """Sync under hostile transport (issue 9): answers cut inside their headers, a stock server that
 refuses PROPFIND Depth: infinity, a real 403, a server that drips its answer, an intake endpoint
 that answers 200 with a login page. Real wsgidav and real HTTP servers on 127.0.0.1."""
+
 from __future__ import annotations
 
 import json
@@ -17,16 +18,30 @@ from sync.outbox import Outbox
 from sync.session import Credentials, RetryPolicy, Session
 from sync.targets import WebDavTarget
 from tests.conftest import run_cli
-from tests.sync.conftest import (DAV_PASSWORD, DAV_USER, FaultProxy, dav_session, edit_stop_notes,
-                                 finite_depth_only, forbid_everything, free_port, new_trip,
-                                 open_store, start_dav)
+from tests.sync.conftest import (
+    DAV_PASSWORD,
+    DAV_USER,
+    FaultProxy,
+    dav_session,
+    edit_stop_notes,
+    finite_depth_only,
+    forbid_everything,
+    free_port,
+    new_trip,
+    open_store,
+    start_dav,
+)
 
 
 def one_per_connection(device_id: str, **kw) -> Session:
     """A session whose every request opens its own connection, so the proxy's script applies
     per request."""
-    opts = dict(credentials=Credentials(DAV_USER, DAV_PASSWORD), connect_timeout_s=2.0,
-                read_timeout_s=3.0, retry=RetryPolicy(attempts=3, backoff_s=0.01, max_backoff_s=0.02))
+    opts = dict(
+        credentials=Credentials(DAV_USER, DAV_PASSWORD),
+        connect_timeout_s=2.0,
+        read_timeout_s=3.0,
+        retry=RetryPolicy(attempts=3, backoff_s=0.01, max_backoff_s=0.02),
+    )
     opts.update(kw)
     s = Session(device_id, **opts)
     s.http.headers["Connection"] = "close"
@@ -64,13 +79,13 @@ def test_reads_cut_every_time_leave_the_trip_for_the_next_sync_which_gets_it(dav
     t = new_trip(device_a)
     sync.push(device_a, dav.url, session=dav_session("tablet-A"))
     office = open_store(tmp_path / "office", "office-desk")
-    proxy.script = {"GET": ["cut_headers"] * 3}            # as many as the session's tries
+    proxy.script = {"GET": ["cut_headers"] * 3}  # as many as the session's tries
     url = proxy.url_for("/hub/")
     first = sync.pull(office, url, session=one_per_connection("office-desk"))
     assert first.failed == 1 and first.quarantined == 0 and not first.complete
     assert "will retry" in first.per_trip[0].message
     entry = Outbox(office.data_dir, WebDavTarget(url, dav_session()).key, url).get(t.id)
-    assert entry is None or not entry.bad                  # nothing recorded as bad
+    assert entry is None or not entry.bad  # nothing recorded as bad
     second = sync.pull(office, url, session=one_per_connection("office-desk"))
     assert second.pulled == 1 and second.complete
     assert office.trip_document(t.id)["stops"] == device_a.trip_document(t.id)["stops"]
@@ -81,13 +96,13 @@ def test_a_damaged_hub_copy_is_reported_at_every_pull_and_picked_up_once_repaire
     sync.push(device_a, dav.url, session=dav_session("tablet-A"))
     f = next((dav.root / "hub" / "trips").glob(f"*/{t.id}/*.json"))
     good = f.read_bytes()
-    f.write_bytes(good[: len(good) // 2])                   # truncated at the hub itself
+    f.write_bytes(good[: len(good) // 2])  # truncated at the hub itself
     office = open_store(tmp_path / "office", "office-desk")
-    for _ in range(2):                                      # re-checked, reported each time
+    for _ in range(2):  # re-checked, reported each time
         r = sync.pull(office, dav.url, session=dav_session("office-desk"))
         assert r.quarantined == 1 and not r.complete
         assert "two fresh reads" in r.per_trip[0].message and "re-checked" in r.per_trip[0].message
-    f.write_bytes(good)                                     # the office restores it
+    f.write_bytes(good)  # the office restores it
     r = sync.pull(office, dav.url, session=dav_session("office-desk"))
     assert r.pulled == 1 and r.complete
 
@@ -120,9 +135,10 @@ def test_listing_cut_mid_answer_is_retried_and_a_lasting_cut_is_exit_1_not_2(dav
     cfg.write_text(f"[hub http://127.0.0.1:{proxy.port}/hub/]\nuser = {DAV_USER}\npassword = {DAV_PASSWORD}\n")
     cfg.chmod(0o600)
     other = tmp_path / "office2"
-    open_store(other, "office-2")   # an existing store: the pull's only line is its problem
-    out = run_cli("sync", "pull", "--from", proxy.url_for("/hub/"), "--credentials", str(cfg),
-                  "--timeout", "3", data_dir=other)
+    open_store(other, "office-2")  # an existing store: the pull's only line is its problem
+    out = run_cli(
+        "sync", "pull", "--from", proxy.url_for("/hub/"), "--credentials", str(cfg), "--timeout", "3", data_dir=other
+    )
     assert out.returncode == 1, (out.stderr, proxy.counts, proxy.script)
     assert "Traceback" not in out.stderr and "will retry" in out.stderr
     assert len(problem_lines(out.stderr)) == 1
@@ -140,7 +156,7 @@ def test_stock_server_refusing_infinite_depth_costs_a_walk_not_the_pull(tmp_path
         r = sync.pull(office, server.url, session=dav_session("office-desk"))
         assert r.pulled == 2 and r.complete
         assert {t.id for t in trips} == {s.id for s in office.list_trips()}
-        assert ("PROPFIND", "infinity") in seen and ("PROPFIND", "1") in seen   # refused, then walked
+        assert ("PROPFIND", "infinity") in seen and ("PROPFIND", "1") in seen  # refused, then walked
     finally:
         server.stop()
 
@@ -182,16 +198,21 @@ class Drip:
 
     def _serve(self, c: socket.socket) -> None:
         body = b"x" * 200
-        head = (b"HTTP/1.1 200 OK\r\nX-Padding: " + b"p" * 200 + b"\r\nContent-Length: "
-                + str(len(body)).encode() + b"\r\n\r\n")
+        head = (
+            b"HTTP/1.1 200 OK\r\nX-Padding: "
+            + b"p" * 200
+            + b"\r\nContent-Length: "
+            + str(len(body)).encode()
+            + b"\r\n\r\n"
+        )
         try:
             c.recv(65536)
             slow, fast = (head, b"") if self.where == "headers" else (body, head)
             c.sendall(fast)
-            for i in range(len(slow)):              # bounded: at most ~400 bytes
+            for i in range(len(slow)):  # bounded: at most ~400 bytes
                 if self.stop.is_set():
                     return
-                c.sendall(slow[i:i + 1])
+                c.sendall(slow[i : i + 1])
                 time.sleep(self.every_s)
             if self.where == "headers":
                 c.sendall(body)
@@ -228,8 +249,7 @@ def test_a_dripping_server_cannot_hold_a_request_past_the_timeout(where):
 
 
 # --- 4. an intake endpoint must acknowledge ---------------------------------------------------------------
-@pytest.mark.parametrize("answer,said", [("html", "text/html"), ("empty", "0 bytes"),
-                                         ("wrong-hash", "content hash")])
+@pytest.mark.parametrize("answer,said", [("html", "text/html"), ("empty", "0 bytes"), ("wrong-hash", "content hash")])
 def test_endpoint_answering_200_without_the_acknowledgement_is_not_delivered(intake, device_a, answer, said):
     t = new_trip(device_a)
     intake.answer = answer
@@ -239,7 +259,7 @@ def test_endpoint_answering_200_without_the_acknowledgement_is_not_delivered(int
     assert said in msg and "not counted as delivered" in msg and "\n" not in msg
     if answer == "html":
         assert "Sign in" in msg
-    intake.answer = "ack"                                    # fixed: the next push delivers it
+    intake.answer = "ack"  # fixed: the next push delivers it
     again = sync.push(device_a, intake.url, session=dav_session("tablet-A"))
     assert again.pushed == 1 and again.complete
     assert intake.by_trip[t.id][-1][1] == canonical_json_bytes(device_a.trip_document(t.id))
@@ -263,8 +283,15 @@ def test_cli_timeout_bounds_a_dripping_hub(tmp_path):
     drip = Drip("headers", every_s=0.5)
     try:
         started = time.monotonic()
-        out = run_cli("sync", "pull", "--from", f"http://127.0.0.1:{drip.port}/hub/", "--timeout", "1",
-                      data_dir=tmp_path / "office")
+        out = run_cli(
+            "sync",
+            "pull",
+            "--from",
+            f"http://127.0.0.1:{drip.port}/hub/",
+            "--timeout",
+            "1",
+            data_dir=tmp_path / "office",
+        )
         took = time.monotonic() - started
     finally:
         drip.close()

@@ -1,11 +1,11 @@
 """No revision ping-pong: a pull stores the hub's bytes as they are, so a push after it has nothing
 to send, and devices that only sync leave the hub's revision count alone (real wsgidav on
 127.0.0.1; content-addressed immutable revisions, sync/DESIGN.md; common practice)."""
+
 import sync
 from core.store import DeviceStore
 from core.store.atomic import canonical_json_bytes
-from tests.sync.conftest import (dav_session, edit_stop_notes, edit_stop_temp, hub_files, new_trip,
-                                 open_store)
+from tests.sync.conftest import dav_session, edit_stop_notes, edit_stop_temp, hub_files, new_trip, open_store
 
 
 def hub_count(dav) -> int:
@@ -22,7 +22,7 @@ def sync_round(devices, url):
 
 
 def test_pull_then_push_sends_nothing_and_holds_the_hub_bytes(dav, device_a, tmp_path):
-    device_b = DeviceStore.open(tmp_path / "device-b", "tablet-B")     # a fresh tablet
+    device_b = DeviceStore.open(tmp_path / "device-b", "tablet-B")  # a fresh tablet
     t = new_trip(device_a, stops=2)
     assert sync.push(device_a, dav.url, session=dav_session("tablet-A")).pushed == 1
     pulled = sync.pull(device_b, dav.url, session=dav_session("tablet-B"))
@@ -33,7 +33,7 @@ def test_pull_then_push_sends_nothing_and_holds_the_hub_bytes(dav, device_a, tmp
     s = dav_session("tablet-B")
     report = sync.push(device_b, dav.url, session=s)
     assert report.pushed == 0 and report.unchanged == 1
-    assert s.request_count == 0                     # nothing sent, nothing even asked
+    assert s.request_count == 0  # nothing sent, nothing even asked
     # an office store without the site list pulls the same bytes too (no re-derive, no new revision)
     office = DeviceStore.open(tmp_path / "office", "office-desk")
     sync.pull(office, dav.url, session=dav_session("office-desk"))
@@ -44,7 +44,7 @@ def test_pull_then_push_sends_nothing_and_holds_the_hub_bytes(dav, device_a, tmp
 
 def test_ten_rounds_without_edits_leave_the_hub_revision_count_unchanged(dav, device_a, device_b, tmp_path):
     office = open_store(tmp_path / "office", "office-desk")
-    laptop = DeviceStore.open(tmp_path / "laptop", "office-laptop")    # no site list of its own
+    laptop = DeviceStore.open(tmp_path / "laptop", "office-laptop")  # no site list of its own
     t = new_trip(device_a, stops=3)
     u = new_trip(device_b, day=4, stops=2)
     everyone = [device_a, device_b, office, laptop]
@@ -55,7 +55,7 @@ def test_ten_rounds_without_edits_leave_the_hub_revision_count_unchanged(dav, de
     edit_stop_temp(device_a, t.id, 1, "12.8 C")
     edit_stop_temp(device_b, t.id, 1, "13.4 C")
     edit_stop_notes(office, u.id, 0, "checked at the office")
-    for _ in range(4):                               # bounded: let the edits settle
+    for _ in range(4):  # bounded: let the edits settle
         if not sync_round(everyone, dav.url):
             break
     before = hub_count(dav)
@@ -69,4 +69,4 @@ def test_ten_rounds_without_edits_leave_the_hub_revision_count_unchanged(dav, de
     for tid in (t.id, u.id):
         docs = {canonical_json_bytes(d.trip_document(tid)) for d in everyone}
         assert len(docs) == 1
-    assert device_a.trip_document(t.id)["conflicts"]            # the clash is kept for a person
+    assert device_a.trip_document(t.id)["conflicts"]  # the clash is kept for a person

@@ -1,4 +1,5 @@
 """The pure push/pull plan, on plain dicts (the rules are ours: sync/plan.py; common practice)."""
+
 from sync.layout import parse_revision_name, revision_name
 from sync.plan import Action, LocalEntry, RemoteEntry, plan, plan_pull
 
@@ -28,8 +29,10 @@ def test_changed_trip_whose_hub_copies_were_all_seen_is_an_update():
 def test_unseen_hub_revision_asks_for_a_merge_oldest_first():
     mine = revision_name(3, H1)
     theirs = [revision_name(5, H3), revision_name(4, H2)]
-    acts = plan({"t1": LocalEntry("t1", 4, H2.replace("2", "4"), frozenset({mine}))},
-                {"t1": RemoteEntry("t1", frozenset({mine, *theirs}))})
+    acts = plan(
+        {"t1": LocalEntry("t1", 4, H2.replace("2", "4"), frozenset({mine}))},
+        {"t1": RemoteEntry("t1", frozenset({mine, *theirs}))},
+    )
     assert acts[0].action is Action.MERGE
     assert acts[0].unseen == tuple(sorted(theirs))
     assert [parse_revision_name(n)[0] for n in acts[0].unseen] == [4, 5]
@@ -46,8 +49,8 @@ def test_pull_fetches_unseen_and_skips_known():
     local = {"t1": LocalEntry("t1", 1, H1, frozenset({n1}))}
     acts = {a.trip_id: a for a in plan_pull(local, remote)}
     assert acts["t1"].action is Action.FETCH and acts["t1"].unseen == (n2,)
-    assert acts["t2"].action is Action.FETCH and acts["t2"].unseen == (n1,)   # not on the device
-    local["t1"] = LocalEntry("t1", 2, H2, frozenset({n1}))                    # device holds rev 2
+    assert acts["t2"].action is Action.FETCH and acts["t2"].unseen == (n1,)  # not on the device
+    local["t1"] = LocalEntry("t1", 2, H2, frozenset({n1}))  # device holds rev 2
     assert {a.trip_id: a.action for a in plan_pull(local, remote)}["t1"] is Action.SKIP
 
 

@@ -1,6 +1,7 @@
 """The site list and the program settings travel with the trips, and each stop is judged by the site
 facts it was saved with (real store, real wsgidav on 127.0.0.1 and a folder hub; newest entry per
 site id wins, sync/program.py; checks: core/rules/qc.py)."""
+
 import os
 import stat
 from datetime import datetime, timedelta, timezone
@@ -31,12 +32,15 @@ def flagged_trip(store):
     and 6.0 mg/L is below the cold-water criterion of 6.5 mg/L (US EPA 1986, from memory)
     but not below the warm-water one of 5.0 mg/L."""
     start = datetime(2026, 6, 9, 7, 30, tzinfo=timezone.utc)
-    trip = store.save_trip(Trip(program="Tamsin Valley Stream Watch", crew=["K.T."], started_at=start),
-                           "trip started")
+    trip = store.save_trip(Trip(program="Tamsin Valley Stream Watch", crew=["K.T."], started_at=start), "trip started")
     for i, site in enumerate((HIGH, LOW)):
-        stop = Stop(site_id=site.id, arrived_at=start + timedelta(hours=i + 1),
-                    temp=measure("temp", "9.5 C"), pressure=measure("pressure", "1013 hPa"),
-                    do=measure("do", "6.0 mg/L"))
+        stop = Stop(
+            site_id=site.id,
+            arrived_at=start + timedelta(hours=i + 1),
+            temp=measure("temp", "9.5 C"),
+            pressure=measure("pressure", "1013 hPa"),
+            do=measure("do", "6.0 mg/L"),
+        )
         trip = store.save_stop(trip.id, stop)
     return trip
 
@@ -45,8 +49,7 @@ def codes(store, trip_id, sites=None):
     trip = store.load_trip(trip_id)
     now = datetime(2026, 6, 9, 12, 0, tzinfo=timezone.utc)
     flags = trip_flags(trip, store.settings(), now, sites=store.sites_by_id() if sites is None else sites)
-    return {s.site_id: sorted(f.code for f in flags[s.id] if not f.code.startswith("holding."))
-            for s in trip.stops}
+    return {s.site_id: sorted(f.code for f in flags[s.id] if not f.code.startswith("holding.")) for s in trip.stops}
 
 
 def test_pull_into_an_empty_office_store_keeps_sites_and_flags(dav, tmp_path):
@@ -92,9 +95,13 @@ def test_an_office_edit_of_a_site_reaches_the_tablets_but_does_not_rejudge_old_s
     assert "elevation 820 m when saved, 790 m in today's site list" in shown.stdout
     assert "DO criterion 6.5 mg/L when saved, 5.5 mg/L" in shown.stdout
     # a stop saved now uses today's facts: 6.0 mg/L is no longer below the criterion
-    stop = Stop(site_id="TV-H1", arrived_at=datetime(2026, 12, 2, 9, 0, tzinfo=timezone.utc),
-                temp=measure("temp", "4.0 C"), pressure=measure("pressure", "925 hPa"),
-                do=measure("do", "6.0 mg/L"))
+    stop = Stop(
+        site_id="TV-H1",
+        arrived_at=datetime(2026, 12, 2, 9, 0, tzinfo=timezone.utc),
+        temp=measure("temp", "4.0 C"),
+        pressure=measure("pressure", "925 hPa"),
+        do=measure("do", "6.0 mg/L"),
+    )
     new = a.save_stop(t.id, stop)
     snap = next(s for s in new.stops if s.id == stop.id).site_snapshot
     assert snap.min_do_mg_l == 5.5 and snap.elevation_m == 790.0
@@ -119,8 +126,9 @@ def test_settings_travel_and_the_newest_wins(tmp_path):
     hub.mkdir()
     a = tablet(tmp_path / "a")
     office = DeviceStore.open(tmp_path / "office", "office-desk")
-    office.save_settings(office.settings().model_copy(update={"program": "Tamsin Valley Stream Watch",
-                                                               "cold_min_mg_l": 7.0}))
+    office.save_settings(
+        office.settings().model_copy(update={"program": "Tamsin Valley Stream Watch", "cold_min_mg_l": 7.0})
+    )
     sync.push(office, str(hub))
     r = sync.pull(a, str(hub))
     assert r.program == ["program settings updated from the hub"]
@@ -130,8 +138,9 @@ def test_settings_travel_and_the_newest_wins(tmp_path):
     sync.push(a, str(hub))
     sync.pull(office, str(hub))
     assert office.settings().cold_min_mg_l == 6.0
-    assert canonical_json_bytes(office.settings().model_dump(mode="json")) == \
-        canonical_json_bytes(a.settings().model_dump(mode="json"))
+    assert canonical_json_bytes(office.settings().model_dump(mode="json")) == canonical_json_bytes(
+        a.settings().model_dump(mode="json")
+    )
 
 
 def test_folder_hub_table_files_get_the_umask_permissions(tmp_path):

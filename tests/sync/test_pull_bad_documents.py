@@ -1,5 +1,6 @@
 """Every document read from a hub is checked before it touches the store; a bad one is
 quarantined with a report and the rest of the pull goes on (issue 5, section 2)."""
+
 import hashlib
 
 import sync
@@ -28,13 +29,20 @@ def test_malformed_oversized_and_invalid_documents_are_quarantined_and_the_pull_
     sync.push(device_a, dav.url, session=dav_session())
     hub = dav.root / "hub"
     plant(hub, BAD_ID, 1, b'{"id": "7d3c9a52-1b0e-4f43-8a11-2f6b0c5e9d10", "revision": 1, "stops": [')
-    big = dict(device_a.trip_document(good[0].id), id=BIG_ID, revision=1,
-               notes="x" * 3000, audit=[], extra_padding="y" * 200_000)
+    big = dict(
+        device_a.trip_document(good[0].id),
+        id=BIG_ID,
+        revision=1,
+        notes="x" * 3000,
+        audit=[],
+        extra_padding="y" * 200_000,
+    )
     plant(hub, BIG_ID, 1, canonical_json_bytes(big))
-    wrong = dict(device_a.trip_document(good[0].id), revision=1)      # another trip's id inside
+    wrong = dict(device_a.trip_document(good[0].id), revision=1)  # another trip's id inside
     plant(hub, WRONG_ID, 1, canonical_json_bytes(wrong))
-    invalid = dict(device_a.trip_document(good[0].id), id=INVALID_ID, revision=1, audit=[],
-                   started_at="yesterday")                             # fails the store's validation
+    invalid = dict(
+        device_a.trip_document(good[0].id), id=INVALID_ID, revision=1, audit=[], started_at="yesterday"
+    )  # fails the store's validation
     plant(hub, INVALID_ID, 1, canonical_json_bytes(invalid))
 
     office = open_store(tmp_path / "office", "office-desk")
@@ -51,7 +59,7 @@ def test_malformed_oversized_and_invalid_documents_are_quarantined_and_the_pull_
     qdir = office.data_dir / "sync" / "quarantine"
     reports = sorted(qdir.glob("*.report.txt"))
     assert len(reports) == 4 and all("reason:" in p.read_text() for p in reports)
-    assert not report.complete          # the hub holds trips the office did not get: not exit 0
+    assert not report.complete  # the hub holds trips the office did not get: not exit 0
     # a second pull checks the same files again (never blacklisted) and reports them again,
     # without piling up copies; the hub was not touched
     again = sync.pull(office, dav.url, session=session)

@@ -1,17 +1,24 @@
 """Reconciling one trip's versions on plain dicts: heads, folding, ancestors (sync/reconcile.py;
 ancestry by audit-id containment and three-way merging are common practice in synchronisers)."""
+
 import copy
 
-from sync.reconcile import (contained_names, fold, lacks_ancestor, newest_contained, next_head,
-                            same_content)
+from sync.reconcile import contained_names, fold, lacks_ancestor, newest_contained, next_head, same_content
 
 TRIP = "5f0901de-c1b3-4a79-aaa5-95b642d7d1c1"
 
 
 def root():
-    return {"id": TRIP, "revision": 1, "updated_at": "2026-06-03T08:00:00Z", "device_id": "dev-A",
-            "notes": "", "crew": ["R.O."], "conflicts": [],
-            "audit": [{"id": "a1", "at": "2026-06-03T08:00:00Z", "device_id": "dev-A", "revision": 1}]}
+    return {
+        "id": TRIP,
+        "revision": 1,
+        "updated_at": "2026-06-03T08:00:00Z",
+        "device_id": "dev-A",
+        "notes": "",
+        "crew": ["R.O."],
+        "conflicts": [],
+        "audit": [{"id": "a1", "at": "2026-06-03T08:00:00Z", "device_id": "dev-A", "revision": 1}],
+    }
 
 
 def edit(doc, audit_id, stamp, **changes):
@@ -64,7 +71,7 @@ def test_lacks_ancestor_only_for_diverged_documents_without_a_common_one():
     b = edit(r, "b2", "2026-06-03T09:05:00Z", notes="pool")
     assert lacks_ancestor(a, [b], [])
     assert not lacks_ancestor(a, [b], [r])
-    assert not lacks_ancestor(r, [a], [])          # a fast-forward needs no ancestor
+    assert not lacks_ancestor(r, [a], [])  # a fast-forward needs no ancestor
 
 
 def test_heads_and_contained_names():

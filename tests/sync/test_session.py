@@ -2,6 +2,7 @@
 TLS verified by default (a self-signed hub fails unless its CA file is given); no redirects and
 no automatic re-sends inside urllib3 (RFC 9110 §9.2.2: PUT is idempotent in meaning, but a
 re-sent PUT of ours could land after a newer one; the traps are measured in issue 5)."""
+
 import logging
 import os
 import threading
@@ -16,8 +17,7 @@ from urllib3.util.retry import Retry
 import sync
 from sync import errors
 from sync.session import Credentials, RetryPolicy, Session, load_credentials, redact_url
-from tests.sync.conftest import (DAV_PASSWORD, DAV_USER, dav_session, free_port, make_self_signed,
-                                 new_trip, start_dav)
+from tests.sync.conftest import DAV_PASSWORD, DAV_USER, dav_session, free_port, make_self_signed, new_trip, start_dav
 
 
 def write_config(path, mode, password=DAV_PASSWORD, hub="http://127.0.0.1"):
@@ -98,6 +98,7 @@ def test_retries_are_bounded_and_counted():
     def step():
         calls.append(1)
         raise errors.ServerError("503", 503)
+
     with pytest.raises(errors.ServerError):
         s.retrying(step)
     assert len(calls) == 3 and sleeps == [0.5, 1.0]
@@ -106,6 +107,7 @@ def test_retries_are_bounded_and_counted():
     def final():
         calls.append(1)
         raise errors.Unauthorized("no")
+
     with pytest.raises(errors.Unauthorized):
         s.retrying(final)
     assert len(calls) == 1

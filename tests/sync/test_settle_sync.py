@@ -1,6 +1,7 @@
 """A conflict settled on one device stays settled on every device, whichever order the devices
 sync in: real stores and a real WebDAV server (wsgidav) on 127.0.0.1 (common practice: a
 settlement is a change like any other and travels with the trip)."""
+
 from datetime import UTC, datetime
 
 import pytest
@@ -11,7 +12,7 @@ from tests.sync.conftest import dav_session, edit_stop_notes, edit_stop_temp, ne
 
 
 def converge(devices, url):
-    for _ in range(4):                       # bounded
+    for _ in range(4):  # bounded
         moved = 0
         for d in devices:
             moved += sync.push(d, url, session=dav_session(d.device_id)).pushed
@@ -38,17 +39,18 @@ def test_a_settled_conflict_is_settled_on_every_device(dav, device_a, device_b, 
     at = datetime(2026, 6, 3, 18, 0, tzinfo=UTC)
 
     def settle_on_a():
-        device_a.update_trip(t.id, "conflict settled", lambda tr: settle(tr, "1", keep=keep, by="M.K.", at=at),
-                             by="M.K.")
+        device_a.update_trip(
+            t.id, "conflict settled", lambda tr: settle(tr, "1", keep=keep, by="M.K.", at=at), by="M.K."
+        )
 
     if order == "settle-then-edit":
         settle_on_a()
         sync.push(device_a, dav.url, session=dav_session("tablet-A"))
-        edit_stop_notes(device_b, t.id, 0, "cattle upstream")          # B has not pulled the settlement
+        edit_stop_notes(device_b, t.id, 0, "cattle upstream")  # B has not pulled the settlement
     else:
         edit_stop_notes(device_b, t.id, 0, "cattle upstream")
         sync.push(device_b, dav.url, session=dav_session("tablet-B"))
-        settle_on_a()                                                    # A has not pulled B's edit
+        settle_on_a()  # A has not pulled B's edit
     converge([device_a, device_b], dav.url)
     office = open_store(tmp_path / "office", "office-desk")
     sync.pull(office, dav.url, session=dav_session("office-desk"))

@@ -1,10 +1,11 @@
 """Two tablets editing the same trip, pushing in both orders: every change reaches the hub, a
 field changed on both sides comes back as a readable conflict, and the final documents agree
 whichever device pushed first (three-way merge by element id; core/records/merge.py)."""
+
 import pytest
 
 import sync
-from tests.sync.conftest import (dav_session, edit_stop_notes, edit_stop_temp, new_trip, open_store)
+from tests.sync.conftest import dav_session, edit_stop_notes, edit_stop_temp, new_trip, open_store
 
 
 def converge(devices, url):
@@ -34,7 +35,7 @@ def test_changes_on_different_stops_both_arrive(dav, device_a, device_b, tmp_pat
     order = [device_a, device_b] if first == "A" else [device_b, device_a]
     reports = [sync.push(d, dav.url, session=dav_session(d.device_id)) for d in order]
     assert all(r.failed == 0 for r in reports)
-    assert reports[1].conflicts == 0          # different fields: merged without conflict
+    assert reports[1].conflicts == 0  # different fields: merged without conflict
     converge([device_a, device_b], dav.url)
     a, b = device_a.trip_document(t.id), device_b.trip_document(t.id)
     assert [s["notes"] for s in a["stops"]] == ["cattle upstream", "", "log jam below the weir"]

@@ -2,6 +2,7 @@
 loop pulls and pushes the same trip (merging another tablet's edits) against a real wsgidav on
 127.0.0.1, for a bounded number of rounds. Every acknowledged result ends in the store and at the
 hub: none lost (one write contract under the store's lock; common practice)."""
+
 import json
 import subprocess
 import sys
@@ -30,22 +31,37 @@ def test_lab_results_recorded_during_sync_loops_are_never_lost(dav, tmp_path):
     trip = b.load_trip(t.id)
     stops = []
     for n, stop in enumerate(trip.stops):
-        bottle = Bottle(label=f"TV-02{n:02d}", kind="do-fixed", collected_at=stop.arrived_at,
-                        fixed_at=stop.arrived_at + timedelta(minutes=3))
+        bottle = Bottle(
+            label=f"TV-02{n:02d}",
+            kind="do-fixed",
+            collected_at=stop.arrived_at,
+            fixed_at=stop.arrived_at + timedelta(minutes=3),
+        )
         stops.append(stop.model_copy(update={"bottles": [bottle]}))
     b.save_trip(trip.model_copy(update={"stops": stops}), "bottles")
     sync.push(b, dav.url, session=dav_session("tablet-B"))
     sync.pull(a, dav.url, session=dav_session("tablet-A"))
-    del a, b                                   # the children own the stores now
+    del a, b  # the children own the stores now
 
     ack = tmp_path / "acknowledged.jsonl"
     env = cli_env()
     py = [sys.executable, "-m", "tests.sync.workers"]
-    lab = subprocess.Popen(py + ["lab", str(tmp_path / "tablet-b"), t.id, str(ack), str(LAB_ROUNDS)],
-                           cwd=ROOT, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    syncer = subprocess.Popen(py + ["sync", str(tmp_path / "tablet-b"), str(tmp_path / "tablet-a"), dav.url,
-                                    t.id, str(SYNC_ROUNDS)],
-                              cwd=ROOT, env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    lab = subprocess.Popen(
+        py + ["lab", str(tmp_path / "tablet-b"), t.id, str(ack), str(LAB_ROUNDS)],
+        cwd=ROOT,
+        env=env,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
+    syncer = subprocess.Popen(
+        py + ["sync", str(tmp_path / "tablet-b"), str(tmp_path / "tablet-a"), dav.url, t.id, str(SYNC_ROUNDS)],
+        cwd=ROOT,
+        env=env,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
     try:
         _, lab_err = lab.communicate(timeout=240)
         sync_out, sync_err = syncer.communicate(timeout=240)
@@ -57,7 +73,7 @@ def test_lab_results_recorded_during_sync_loops_are_never_lost(dav, tmp_path):
     assert syncer.returncode == 0, sync_err
     rounds = [json.loads(line) for line in sync_out.splitlines()]
     assert len(rounds) == SYNC_ROUNDS and all(r["failed"] == 0 for r in rounds)
-    assert sum(r["pulled"] + r["merged"] for r in rounds) >= 1      # the loops really met
+    assert sum(r["pulled"] + r["merged"] for r in rounds) >= 1  # the loops really met
 
     acknowledged = {json.loads(line)["result"] for line in ack.read_text().splitlines()}
     assert len(acknowledged) == LAB_ROUNDS

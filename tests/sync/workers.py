@@ -1,6 +1,7 @@
 """Child processes for the two-process sync test: a lab bench recording Winkler results in a loop,
 and a sync loop pulling and pushing the same trip. Run as
 ``python -m tests.sync.workers lab|sync ...``; every loop is bounded."""
+
 from __future__ import annotations
 
 import json
@@ -19,15 +20,23 @@ def lab(data_dir: str, trip_id: str, ack_file: str, rounds: int) -> int:
     store = DeviceStore.open(data_dir, "tablet-B", lock_timeout_s=30.0)
     with open(ack_file, "a", encoding="utf-8") as ack:
         for i in range(rounds):
-            for attempt in range(200):                      # bounded: a sync may write in between
+            for attempt in range(200):  # bounded: a sync may write in between
                 trip = store.load_trip(trip_id)
                 bottles = [b for s in trip.stops for b in s.bottles if b.kind == "do-fixed"]
                 bottle = bottles[i % len(bottles)]
                 at = trip.stops[0].arrived_at + timedelta(hours=2, minutes=i)
                 redo = None if not bottle.lab_results else f"re-titration {i}"
-                out = record_winkler(trip, bottle.label, titrant_ml=6.0 + i / 10, titrated_ml=201.0,
-                                     normality=0.025, analysed_at=at, now=at, analyst="J.M.",
-                                     redo_reason=redo)
+                out = record_winkler(
+                    trip,
+                    bottle.label,
+                    titrant_ml=6.0 + i / 10,
+                    titrated_ml=201.0,
+                    normality=0.025,
+                    analysed_at=at,
+                    now=at,
+                    analyst="J.M.",
+                    redo_reason=redo,
+                )
                 try:
                     saved = store.save_trip(out.trip, f"lab: Winkler {i} on bottle {bottle.label}")
                 except (StaleTrip, StoreLocked):
@@ -60,8 +69,18 @@ def sync_loop(data_dir: str, other_dir: str, url: str, trip_id: str, rounds: int
         sync.pull(other, url, session=dav_session("tablet-A"))
         pulled = sync.pull(store, url, session=dav_session("tablet-B"))
         pushed = sync.push(store, url, session=dav_session("tablet-B"))
-        sys.stdout.write(json.dumps({"round": i, "pulled": pulled.pulled, "merged": pulled.merged,
-                                     "pushed": pushed.pushed, "failed": pulled.failed + pushed.failed}) + "\n")
+        sys.stdout.write(
+            json.dumps(
+                {
+                    "round": i,
+                    "pulled": pulled.pulled,
+                    "merged": pulled.merged,
+                    "pushed": pushed.pushed,
+                    "failed": pulled.failed + pushed.failed,
+                }
+            )
+            + "\n"
+        )
         sys.stdout.flush()
     return 0
 

@@ -1,4 +1,5 @@
 """What every screen shares: the running app's controller, moving between screens, the debounced save."""
+
 from __future__ import annotations
 
 from kivy.app import App

@@ -1,5 +1,6 @@
 """The bench screen (lab mode): bottles waiting, most urgent first; Winkler with the day's
 standardisation; a BOD series table that shows each dilution's validity and the reportable result."""
+
 from __future__ import annotations
 
 from kivy.app import App
@@ -27,7 +28,7 @@ def bench():
 
 class BenchScreen(BaseScreen):
     rows_box = ObjectProperty(None)
-    chosen = StringProperty("")          # "trip_id|bottle_id"
+    chosen = StringProperty("")  # "trip_id|bottle_id"
     chosen_text = StringProperty("Tap a bottle on the left.")
     standardisation = StringProperty("")
     reportable = StringProperty("Reportable BOD5: type a dilution.")
@@ -50,8 +51,9 @@ class BenchScreen(BaseScreen):
         self.rows_box.clear_widgets()
         rows = bench().waiting()
         for w in rows:
-            btn = WaitRow(text=w.text, expired=w.expired, key=f"{w.trip_id}|{w.bottle_id}",
-                                  analysis=w.analysis, label=w.label)
+            btn = WaitRow(
+                text=w.text, expired=w.expired, key=f"{w.trip_id}|{w.bottle_id}", analysis=w.analysis, label=w.label
+            )
             btn.bind(on_release=self.choose)
             self.rows_box.add_widget(btn)
         if not rows:

@@ -1,4 +1,5 @@
 """The bottles screen: every bottle's holding-time clock in the open trip, most urgent first."""
+
 from __future__ import annotations
 
 from kivy.clock import Clock
@@ -31,8 +32,15 @@ class BottlesScreen(BaseScreen):
         lines = ctl().clock_lines()
         self.rows_box.clear_widgets()
         for c in lines:
-            row = Factory.ClockRow(symbol=c.symbol, word=c.word, title=f"{c.label} · {c.kind}",
-                                   where=c.where, detail=c.text, expired=c.expired, stop_id=c.stop_id)
+            row = Factory.ClockRow(
+                symbol=c.symbol,
+                word=c.word,
+                title=f"{c.label} · {c.kind}",
+                where=c.where,
+                detail=c.text,
+                expired=c.expired,
+                stop_id=c.stop_id,
+            )
             row.bind(on_release=self.open_stop)
             self.rows_box.add_widget(row)
         if not lines:

@@ -1,4 +1,5 @@
 """The calibration panel of the start and end screens: temperature, pressure, target, reading, verdict."""
+
 from __future__ import annotations
 
 from kivy.properties import BooleanProperty, ObjectProperty, StringProperty
@@ -17,7 +18,7 @@ class CalPanel(BoxLayout):
     target_text = StringProperty("—")
     verdict = StringProperty("")
     detail = StringProperty("")
-    problem = StringProperty("")    # why this calibration cannot be stored as typed (set by the screen)
+    problem = StringProperty("")  # why this calibration cannot be stored as typed (set by the screen)
     temp_unit = StringProperty("C")
     pressure_unit = StringProperty("hPa")
     temp_entry = ObjectProperty(None)

@@ -1,4 +1,5 @@
 """The conflicts panel of the stop and end screens: each open conflict in words, its values as large buttons."""
+
 from __future__ import annotations
 
 from kivy.factory import Factory

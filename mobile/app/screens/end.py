@@ -1,11 +1,14 @@
 """The end screen: what needs attention, the post-trip check, ending the trip."""
+
 from __future__ import annotations
 
 from kivy.factory import Factory
 from kivy.properties import BooleanProperty, ObjectProperty, StringProperty
 
-from mobile.app.screens import calibration  # noqa: F401 - the CalPanel its kv rule uses
-from mobile.app.screens import conflicts  # noqa: F401 - the ConflictPanel its kv rule uses
+from mobile.app.screens import (
+    calibration,  # noqa: F401 - the CalPanel its kv rule uses
+    conflicts,  # noqa: F401 - the ConflictPanel its kv rule uses
+)
 from mobile.app.screens.base import BaseScreen, ctl
 
 __all__ = ["EndScreen"]
@@ -16,7 +19,7 @@ class EndScreen(BaseScreen):
     conflict_panel = ObjectProperty(None)
     rows_box = ObjectProperty(None)
     ended = BooleanProperty(False)
-    returned_text = StringProperty("")     # why the office returned the trip; empty when it has not
+    returned_text = StringProperty("")  # why the office returned the trip; empty when it has not
 
     def on_pre_enter(self, *_):
         c = ctl()

@@ -1,4 +1,5 @@
 """The settings screen: this tablet's default units, the program's limits, the hub address."""
+
 from __future__ import annotations
 
 from kivy.properties import ObjectProperty, StringProperty
@@ -35,9 +36,17 @@ class SettingsScreen(BaseScreen):
         self.message = ""
 
     def save(self):
-        units = {"temp_unit": self.temp_unit, "pressure_unit": self.pressure_unit,
-                 "cond_unit": self.cond_unit, "do_unit": self.do_unit}
-        limits = {"calibration_tolerance_mg_l": self.tolerance_entry.text, "warm_min_mg_l": self.warm_entry.text,
-                  "cold_min_mg_l": self.cold_entry.text, "supersaturation_percent": self.super_entry.text}
+        units = {
+            "temp_unit": self.temp_unit,
+            "pressure_unit": self.pressure_unit,
+            "cond_unit": self.cond_unit,
+            "do_unit": self.do_unit,
+        }
+        limits = {
+            "calibration_tolerance_mg_l": self.tolerance_entry.text,
+            "warm_min_mg_l": self.warm_entry.text,
+            "cold_min_mg_l": self.cold_entry.text,
+            "supersaturation_percent": self.super_entry.text,
+        }
         refusal = ctl().save_settings_form(units, limits, self.target_entry.text)
         self.message = refusal or "✓ Settings saved."

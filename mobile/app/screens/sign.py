@@ -3,6 +3,7 @@
 The pad keeps each stroke as points in fractions of its own size (0 to 1, y downwards), the form a
 :class:`core.records.models.Signature` stores, so a signature syncs and prints sharply at any size.
 """
+
 from __future__ import annotations
 
 from kivy.app import App
@@ -91,8 +92,9 @@ class SignScreen(BaseScreen):
             return
         pad = self.ids.pad
         try:
-            self.message = App.get_running_app().bench.sign(self.trip_id, self.record_id, self.role,
-                                                            [list(s) for s in pad.strokes], pad.aspect)
+            self.message = App.get_running_app().bench.sign(
+                self.trip_id, self.record_id, self.role, [list(s) for s in pad.strokes], pad.aspect
+            )
         except ValueError as exc:
             self.message = f"■ {exc}"
             return

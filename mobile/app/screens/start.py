@@ -1,4 +1,5 @@
 """The start screen: program, crew, meter and the pre-trip calibration."""
+
 from __future__ import annotations
 
 from kivy.properties import BooleanProperty, ObjectProperty, StringProperty
@@ -17,7 +18,7 @@ class StartScreen(BaseScreen):
     form = ObjectProperty(None, allownone=True)
     #: What this trip's meter means by 100 % ("local" or "sea-level"); starts at the program's setting.
     percent_basis = StringProperty("local")
-    offer_skip = BooleanProperty(False)     # no calibration typed: the crew may say so and go
+    offer_skip = BooleanProperty(False)  # no calibration typed: the crew may say so and go
 
     def on_pre_enter(self, *_):
         c = ctl()

@@ -1,4 +1,5 @@
 """The stop screen: one visit's readings, the values computed from them, its flags and bottles."""
+
 from __future__ import annotations
 
 from kivy.app import App
@@ -34,7 +35,7 @@ class StopScreen(BaseScreen):
     closed = BooleanProperty(False)
     adding_site = BooleanProperty(False)
     site_chosen = BooleanProperty(False)
-    compact = BooleanProperty(False)       # portrait with the soft keyboard up: one-line results
+    compact = BooleanProperty(False)  # portrait with the soft keyboard up: one-line results
     stop_titles = ListProperty([])
     stop_pick_text = StringProperty("")
     flag_count_text = StringProperty("")
@@ -183,13 +184,17 @@ class StopScreen(BaseScreen):
         self.flag_total = len(view.flags)
         box = self.flag_box
         box.clear_widgets()
-        self.flag_view.scroll_y = 1     # the most serious flag first
+        self.flag_view.scroll_y = 1  # the most serious flag first
         if not view.flags:
-            box.add_widget(Factory.FlagRow(symbol="○", word="NO FLAGS", severity="none",
-                                           message="nothing to check on these values", action=""))
+            box.add_widget(
+                Factory.FlagRow(
+                    symbol="○", word="NO FLAGS", severity="none", message="nothing to check on these values", action=""
+                )
+            )
         for f in view.flags:
-            box.add_widget(Factory.FlagRow(symbol=f.symbol, word=f.word, message=f.message,
-                                           action=f.action, severity=f.severity))
+            box.add_widget(
+                Factory.FlagRow(symbol=f.symbol, word=f.word, message=f.message, action=f.action, severity=f.severity)
+            )
 
     def show_bottles(self):
         c = ctl()
@@ -198,10 +203,17 @@ class StopScreen(BaseScreen):
         box.clear_widgets()
         kinds = dict(BOTTLE_KINDS)
         for b in stop.bottles if stop else []:
-            fixed = f"fixed {fmt_when(b.fixed_at)[-5:]}" if b.fixed_at else (
-                "not fixed" if b.kind != "bod" else "chill ≤ 6 °C")
-            row = Factory.BottleRow(title=b.label, detail=f"{kinds.get(b.kind, b.kind)} · {fixed}",
-                                    key=b.id, can_fix=(b.fixed_at is None and b.kind != "bod"))
+            fixed = (
+                f"fixed {fmt_when(b.fixed_at)[-5:]}"
+                if b.fixed_at
+                else ("not fixed" if b.kind != "bod" else "chill ≤ 6 °C")
+            )
+            row = Factory.BottleRow(
+                title=b.label,
+                detail=f"{kinds.get(b.kind, b.kind)} · {fixed}",
+                key=b.id,
+                can_fix=(b.fixed_at is None and b.kind != "bod"),
+            )
             row.bind(on_fix=self.fix_bottle, on_remove=self.remove_bottle)
             box.add_widget(row)
 

@@ -1,4 +1,5 @@
 """The sync screen: the hub address, sending the trips, and what came of each."""
+
 from __future__ import annotations
 
 from kivy.clock import mainthread
@@ -47,7 +48,7 @@ class SyncScreen(BaseScreen):
     @mainthread
     def _done(self, report, error):
         self.running = False
-        ctl().refresh_from_store()   # a merge during the send changed the open trip: show it
+        ctl().refresh_from_store()  # a merge during the send changed the open trip: show it
         if error is not None:
             self.status = f"■ Not sent — will retry: {error}"
             return
@@ -62,8 +63,10 @@ class SyncScreen(BaseScreen):
                 line += f"\n    ▲ {c}"
             self.rows_box.add_widget(Factory.WrapLabel(text=line))
         left = "" if report.failed == 0 else " — the failed ones stay on this tablet and go next time"
-        self.status = (f"{'✓' if report.failed == 0 else '▲'} Sent {report.pushed} · unchanged {report.unchanged} · "
-                       f"conflicts {report.conflicts} · failed {report.failed}{left}")
+        self.status = (
+            f"{'✓' if report.failed == 0 else '▲'} Sent {report.pushed} · unchanged {report.unchanged} · "
+            f"conflicts {report.conflicts} · failed {report.failed}{left}"
+        )
 
 
 RESULT_MARK = {"pushed": "✓", "unchanged": "○", "conflict": "▲", "failed": "■"}

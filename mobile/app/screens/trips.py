@@ -1,4 +1,5 @@
 """The trips screen: every trip on this tablet, resume the open one or start another."""
+
 from __future__ import annotations
 
 from kivy.factory import Factory
@@ -26,8 +27,9 @@ class TripsScreen(BaseScreen):
             row.bind(on_release=self.open_row)
             self.rows_box.add_widget(row)
         if not lines:
-            self.rows_box.add_widget(Factory.WrapLabel(
-                text="No trips on this tablet yet. Tap “Start a trip” to begin."))
+            self.rows_box.add_widget(
+                Factory.WrapLabel(text="No trips on this tablet yet. Tap “Start a trip” to begin.")
+            )
         open_id = c.open_trip_id()
         self.has_open = bool(open_id)
         self.open_title = next((line.title for line in lines if line.id == open_id), "")
