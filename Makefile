@@ -1,4 +1,4 @@
-# streamtab: the two set-up commands are `make run` and `make test`; `make check` lints and type-checks;
+# streamtab: the two set-up commands are `make run` and `make test`; `make check` lints, format-checks and type-checks;
 # `make bench` measures.
 PY      ?= python3
 VENV    := .venv
