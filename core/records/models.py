@@ -987,10 +987,10 @@ def schema_text() -> str:
 
 def write_trip_schema(path: Path | None = None) -> Path:
     """Regenerates core/records/schema/trip.schema.json (run ``python -m core.records.models``)."""
-    from core.store.atomic import atomic_write_bytes
+    from core.store.atomic import write_export
 
     path = path or SCHEMA_PATH
-    atomic_write_bytes(path, schema_text().encode("utf-8"))
+    write_export(path, schema_text().encode("utf-8"))
     return path
 
 
