@@ -30,6 +30,7 @@ __all__ = [
     "ExchangeError",
     "SITE_COLUMNS",
     "STOP_COLUMNS",
+    "COMPUTED_STOP_COLUMNS",
     "BOTTLE_COLUMNS",
     "import_sites_csv",
     "read_sites_csv",
@@ -214,6 +215,19 @@ def export_trip_json(store: Any, trip_id: str) -> bytes:
     return (json.dumps(doc, indent=2, sort_keys=True, ensure_ascii=False, allow_nan=False) + "\n").encode("utf-8")
 
 
+#: The stop columns the store computes (never typed; a conflict over one is settled by the inputs).
+COMPUTED_STOP_COLUMNS = (
+    "do_sat_mg_l",
+    "do_mg_l",
+    "do_percent_saturation",
+    "salinity_pss78",
+    "salinity_source",
+    "specific_conductance_us_cm",
+    "method",
+    "core_version",
+    "flags",
+)
+
 STOP_COLUMNS = (
     "trip_id",
     "stop_id",
@@ -230,15 +244,7 @@ STOP_COLUMNS = (
     "meter_do_value",
     "meter_do_unit",
     "meter_do_as_typed",
-    "do_sat_mg_l",
-    "do_mg_l",
-    "do_percent_saturation",
-    "salinity_pss78",
-    "salinity_source",
-    "specific_conductance_us_cm",
-    "method",
-    "core_version",
-    "flags",
+    *COMPUTED_STOP_COLUMNS,
     "weather",
     "flow",
     "notes",

@@ -11,7 +11,16 @@ from functools import cache
 from pathlib import Path
 from typing import Any, Literal
 
-from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, field_validator, model_serializer, model_validator
+from pydantic import (
+    AwareDatetime,
+    BaseModel,
+    ConfigDict,
+    Field,
+    ValidationInfo,
+    field_validator,
+    model_serializer,
+    model_validator,
+)
 from pydantic_core import PydanticCustomError
 
 from core.science import quantities as _quantities
@@ -255,6 +264,45 @@ def _check_range(value: float | None, kind: str) -> float | None:
     return value
 
 
+#: The units a stored Quantity of each kind may carry (the normalised units).
+_QUANTITY_UNITS: dict[str, tuple[str, ...]] = {
+    "temp": ("°C",),
+    "pressure": ("hPa",),
+    "conductivity": ("µS/cm",),
+    "do": ("mg/L", "%"),
+}
+
+
+def _ranged(**fields: str) -> Any:
+    """One validator for a model's plain numbers: field name → its kind in the table of limits."""
+
+    def check(cls: type, v: float | None, info: ValidationInfo) -> float | None:
+        return _check_range(v, fields[str(info.field_name)])
+
+    return field_validator(*fields)(classmethod(check))
+
+
+def _measured(*names: str) -> Any:
+    """One validator for a model's quantities; each field is named after its kind (temp, pressure, ...)."""
+
+    def check(cls: type, v: Quantity | None, info: ValidationInfo) -> Quantity | None:
+        kind = str(info.field_name)
+        return _check_quantity(v, kind, _QUANTITY_UNITS[kind])
+
+    return field_validator(*names)(classmethod(check))
+
+
+def _not_blank(*names: str) -> Any:
+    """One validator for text fields that must say something (kept stripped)."""
+
+    def check(cls: type, v: str) -> str:
+        if not v.strip():
+            raise PydanticCustomError("text.blank", "blank")
+        return v.strip()
+
+    return field_validator(*names)(classmethod(check))
+
+
 class Site(_Record):
     """A sampling site: code, name, elevation (m), optional coordinates, water class and criteria."""
 
@@ -273,30 +321,13 @@ class Site(_Record):
     #: When the site's entry last changed (set by the store); sync keeps the newest entry per id.
     updated_at: AwareDatetime | None = None
 
-    @field_validator("elevation_m")
-    @classmethod
-    def _elev(cls, v: float | None) -> float | None:
-        return _check_range(v, "elevation")
-
-    @field_validator("latitude")
-    @classmethod
-    def _lat(cls, v: float | None) -> float | None:
-        return _check_range(v, "latitude")
-
-    @field_validator("longitude")
-    @classmethod
-    def _lon(cls, v: float | None) -> float | None:
-        return _check_range(v, "longitude")
-
-    @field_validator("min_do_mg_l")
-    @classmethod
-    def _crit(cls, v: float | None) -> float | None:
-        return _check_range(v, "criterion")
-
-    @field_validator("supersaturation_percent")
-    @classmethod
-    def _ss(cls, v: float | None) -> float | None:
-        return _check_range(v, "supersaturation")
+    _ranges = _ranged(
+        elevation_m="elevation",
+        latitude="latitude",
+        longitude="longitude",
+        min_do_mg_l="criterion",
+        supersaturation_percent="supersaturation",
+    )
 
 
 class Calibration(_Record):
@@ -319,25 +350,8 @@ class Calibration(_Record):
     core_version: str | None = Field(None, json_schema_extra=_role(DERIVED))
     flags: list[FlagRecord] = Field(default_factory=list, json_schema_extra=_role(DERIVED))
 
-    @field_validator("temp")
-    @classmethod
-    def _t(cls, v: Quantity | None) -> Quantity | None:
-        return _check_quantity(v, "temp", ("°C",))
-
-    @field_validator("pressure")
-    @classmethod
-    def _p(cls, v: Quantity | None) -> Quantity | None:
-        return _check_quantity(v, "pressure", ("hPa",))
-
-    @field_validator("reading_mg_l")
-    @classmethod
-    def _r(cls, v: float | None) -> float | None:
-        return _check_range(v, "calibration_reading")
-
-    @field_validator("tolerance_mg_l")
-    @classmethod
-    def _tol(cls, v: float | None) -> float | None:
-        return _check_range(v, "tolerance")
+    _quantities = _measured("temp", "pressure")
+    _ranges = _ranged(reading_mg_l="calibration_reading", tolerance_mg_l="tolerance")
 
 
 def analyte_key(analyte: str) -> str:
@@ -415,12 +429,7 @@ class Bottle(_Record):
     #: For a field duplicate: the label of the bottle it duplicates (same analysis, same stop).
     duplicate_of: str | None = Field(default=None, max_length=40)
 
-    @field_validator("label")
-    @classmethod
-    def _label(cls, v: str) -> str:
-        if not v.strip():
-            raise PydanticCustomError("text.blank", "blank")
-        return v.strip()
+    _texts = _not_blank("label")
 
 
 class SiteSnapshot(_Record):
@@ -438,10 +447,7 @@ class SiteSnapshot(_Record):
     #: The supersaturation threshold that applied (%).
     supersaturation_percent: float | None = None
 
-    @field_validator("elevation_m")
-    @classmethod
-    def _elev(cls, v: float | None) -> float | None:
-        return _check_range(v, "elevation")
+    _ranges = _ranged(elevation_m="elevation")
 
 
 class Stop(_Record):
@@ -466,25 +472,7 @@ class Stop(_Record):
     #: which keeps the stored one when a writer leaves it out (so it merges like derived values).
     site_snapshot: SiteSnapshot | None = Field(None, json_schema_extra=_role(DERIVED))
 
-    @field_validator("temp")
-    @classmethod
-    def _t(cls, v: Quantity | None) -> Quantity | None:
-        return _check_quantity(v, "temp", ("°C",))
-
-    @field_validator("pressure")
-    @classmethod
-    def _p(cls, v: Quantity | None) -> Quantity | None:
-        return _check_quantity(v, "pressure", ("hPa",))
-
-    @field_validator("conductivity")
-    @classmethod
-    def _c(cls, v: Quantity | None) -> Quantity | None:
-        return _check_quantity(v, "conductivity", ("µS/cm",))
-
-    @field_validator("do")
-    @classmethod
-    def _do(cls, v: Quantity | None) -> Quantity | None:
-        return _check_quantity(v, "do", ("mg/L", "%"))
+    _quantities = _measured("temp", "pressure", "conductivity", "do")
 
 
 class AuditChange(_Record):
@@ -732,17 +720,8 @@ class CustodyRecord(_Record):
     relinquished_signature: Signature | None = None
     received_signature: Signature | None = None
 
-    @field_validator("relinquished_by", "received_by")
-    @classmethod
-    def _name(cls, v: str) -> str:
-        if not v.strip():
-            raise PydanticCustomError("text.blank", "blank")
-        return v.strip()
-
-    @field_validator("temp")
-    @classmethod
-    def _t(cls, v: Quantity | None) -> Quantity | None:
-        return _check_quantity(v, "temp", ("°C",))
+    _texts = _not_blank("relinquished_by", "received_by")
+    _quantities = _measured("temp")
 
     @property
     def signed(self) -> bool:
@@ -1008,10 +987,10 @@ def schema_text() -> str:
 
 def write_trip_schema(path: Path | None = None) -> Path:
     """Regenerates core/records/schema/trip.schema.json (run ``python -m core.records.models``)."""
-    from core.store.atomic import atomic_write_bytes
+    from core.store.atomic import write_export
 
     path = path or SCHEMA_PATH
-    atomic_write_bytes(path, schema_text().encode("utf-8"))
+    write_export(path, schema_text().encode("utf-8"))
     return path
 
 

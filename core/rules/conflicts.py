@@ -19,6 +19,7 @@ from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from typing import Any
 
+from core.records.exchange import COMPUTED_STOP_COLUMNS
 from core.records.messages import label_for
 from core.records.models import InputError, Trip, measure, parse_number
 
@@ -59,17 +60,7 @@ CORRECTABLE: dict[str, tuple[str, str, str]] = {
     "flow": ("flow", "text", ""),
     "notes": ("notes", "text", ""),
 }
-_COMPUTED = (
-    "do_sat_mg_l",
-    "do_mg_l",
-    "do_percent_saturation",
-    "salinity_pss78",
-    "salinity_source",
-    "specific_conductance_us_cm",
-    "method",
-    "core_version",
-    "flags",
-)
+_COMPUTED = frozenset(COMPUTED_STOP_COLUMNS)
 #: Units of plain-number fields, by the end of their name.
 _UNIT_SUFFIX = (
     ("_mg_l", "mg/L"),

@@ -402,6 +402,7 @@ def typed(q, decimals: int = 1) -> str:
 
 def stop_rows(trip: Trip, sites: dict[str, Site], settings: ProgramSettings, now: datetime) -> list[StopRow]:
     """The trip's stops in route order, as the field sheet prints them."""
+    from core.rules.lab import stop_do_mg_l
     from core.rules.qc import trip_flags
 
     rounding = rounding_for(settings)
@@ -410,11 +411,7 @@ def stop_rows(trip: Trip, sites: dict[str, Site], settings: ProgramSettings, now
     for s in sorted(trip.stops, key=lambda s: s.arrived_at):
         d = s.derived
         site = sites.get(s.site_id)
-        do_mg = (
-            d.do_mg_l
-            if d is not None and d.do_mg_l is not None
-            else (s.do.value if s.do is not None and s.do.unit == "mg/L" else None)
-        )
+        do_mg = stop_do_mg_l(s)
         shown = {
             "temp": "—" if s.temp is None else f"{s.temp.value:.{rounding.temp_c}f} °C",
             "pressure": "—" if s.pressure is None else f"{s.pressure.value:.{rounding.pressure_hpa}f} hPa",
@@ -517,22 +514,13 @@ class PlotPoint:
 
 
 def plot_points(trip: Trip, sites: dict[str, Site], settings: ProgramSettings) -> list[PlotPoint]:
-    from core.rules.lab import WINKLER_ANALYTE, current_result
+    from core.rules.lab import live_winkler_values, stop_do_mg_l
 
     out = []
     for s in sorted(trip.stops, key=lambda s: s.arrived_at):
         d = s.derived
-        do_mg = (
-            d.do_mg_l
-            if d is not None and d.do_mg_l is not None
-            else (s.do.value if s.do is not None and s.do.unit == "mg/L" else None)
-        )
-        wink = [
-            r.value
-            for b in s.bottles
-            for r in [current_result(b, WINKLER_ANALYTE)]
-            if r is not None and r.value is not None and r.valid is not False
-        ]
+        do_mg = stop_do_mg_l(s)
+        wink = live_winkler_values(s)
         out.append(
             PlotPoint(
                 s.site_id,

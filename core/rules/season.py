@@ -350,7 +350,7 @@ def season_tables(
 
 def site_series(trips: Iterable[Trip], site_id: str, flt: SeasonFilter | None = None) -> list[dict[str, Any]]:
     """Every visit to one site over the season: time, DO (mg/L), % saturation, live Winkler values."""
-    from core.rules.lab import WINKLER_ANALYTE, current_result
+    from core.rules.lab import live_winkler_values, stop_do_mg_l
 
     flt = flt or SeasonFilter()
     rows: list[dict[str, Any]] = []
@@ -361,17 +361,8 @@ def site_series(trips: Iterable[Trip], site_id: str, flt: SeasonFilter | None = 
             if s.site_id.upper() != site_id.upper():
                 continue
             d = s.derived
-            do_mg = (
-                d.do_mg_l
-                if d is not None and d.do_mg_l is not None
-                else (s.do.value if s.do is not None and s.do.unit == "mg/L" else None)
-            )
-            wink = [
-                r.value
-                for b in s.bottles
-                for r in [current_result(b, WINKLER_ANALYTE)]
-                if r is not None and r.value is not None and r.valid is not False
-            ]
+            do_mg = stop_do_mg_l(s)
+            wink = live_winkler_values(s)
             rows.append(
                 {
                     "at": s.arrived_at,

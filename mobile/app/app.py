@@ -185,10 +185,15 @@ def build_app(
             Clock.schedule_once(mark, 0)
 
         def save_snapshot(self, path: Path, stop: bool = False) -> Path:
+            from core.store.atomic import write_export
+
             path = Path(path).resolve()
             path.parent.mkdir(parents=True, exist_ok=True)
-            tmp = Window.screenshot(name=str(path.with_name(path.stem + "-tmp.png")))
-            os.replace(tmp, path)
+            tmp = Path(Window.screenshot(name=str(path.with_name(path.stem + "-tmp.png"))))
+            try:  # written for people like every export: atomic, with the umask's permissions
+                write_export(path, tmp.read_bytes())
+            finally:
+                tmp.unlink(missing_ok=True)
             if stop:
                 self.stop()
             return path

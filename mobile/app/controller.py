@@ -958,15 +958,17 @@ class AppController:
                 self._base_form[snapshot.id] = snapshot
             except StaleTrip:
                 # changed by another writer (a sync merge, the office's settlement): only what was
-                # edited here since the form was last in step with the store goes on the stored trip
-                stored = self.store.load_trip(snapshot.id)
-                base = self._base_form.get(snapshot.id)
-                merged = (
-                    self.bridge.rebase_form(snapshot, base, self.bridge.form_from_trip(stored))
-                    if base is not None
-                    else snapshot
-                )
-                saved = self.store.save_trip(self.bridge.trip_from_form(merged, stored, self), change)
+                # edited here since the form was last in step with the store goes on the stored trip,
+                # read and written under the store's lock so no third writer can come between
+                with self.store.locked():
+                    stored = self.store.load_trip(snapshot.id)
+                    base = self._base_form.get(snapshot.id)
+                    merged = (
+                        self.bridge.rebase_form(snapshot, base, self.bridge.form_from_trip(stored))
+                        if base is not None
+                        else snapshot
+                    )
+                    saved = self.store.save_trip(self.bridge.trip_from_form(merged, stored, self), change)
                 self._base_form[snapshot.id] = merged
                 with self._rebase_lock:
                     self._rebased[snapshot.id] = (snapshot, merged)

@@ -542,7 +542,7 @@ def _bod(args) -> int:  # noqa: ANN001
 def _sheet(args) -> int:  # noqa: ANN001
     """A blank bench sheet: PDF to print, or CSV to fill in and read back with 'lab bod --sheet'."""
     from core.rules.lab import BOD_ANALYTE, LabInputError, pending_bottles
-    from core.store.atomic import atomic_write_bytes
+    from core.store.atomic import write_export
 
     out = Path(args.out)
     suffix = out.suffix.lower()
@@ -578,7 +578,7 @@ def _sheet(args) -> int:  # noqa: ANN001
         body += [{"kind": SEED_CONTROL, "bottle_ml": 300} for _ in range(3)]
         data = write_bench_sheet(body, name=out.name).encode("utf-8")
     try:
-        atomic_write_bytes(out, data)
+        write_export(out, data)
     except OSError as exc:
         fail(f"--out {args.out!r} could not be written ({exc.strerror or exc}); accepted: a writable file")
     if args.json:

@@ -186,10 +186,10 @@ def _plot_site(args) -> int:  # noqa: ANN001
         criterion_mg_l=criterion_mg_l(site, settings),
         supersat_percent=supersat,
     )
-    from core.store.atomic import atomic_write_bytes
+    from core.store.atomic import write_export
 
     try:
-        atomic_write_bytes(out, figure_bytes(fig, out.suffix.lower().lstrip(".")))
+        write_export(out, figure_bytes(fig, out.suffix.lower().lstrip(".")))
     except OSError as exc:
         fail(f"--out {args.out!r} could not be written ({exc.strerror or exc}); accepted: a writable file")
     if args.json:

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import sys
 from datetime import datetime, timezone
+from typing import Any
 
 from mobile.cli._common import emit_json, fail, open_store, resolve_trip_id
 
@@ -110,9 +111,16 @@ def _step(args) -> int:  # noqa: ANN001
 
     store = open_store(args.data_dir)
     tid = resolve_trip_id(store, args.id, "TRIP")
-    try:
-        trip = store.load_trip(tid)
-        event = new_event(
+    what = {
+        "reviewed": "reviewed",
+        "approved": "approved",
+        "returned": "returned to the crew",
+        "resubmitted": "resubmitted",
+    }[args.action]
+    said: dict[str, Any] = {}
+
+    def apply(trip):  # noqa: ANN001, ANN202 - runs under the store's lock, on the trip as stored now
+        said["event"] = new_event(
             trip,
             args.action,
             by=args.by,
@@ -120,20 +128,17 @@ def _step(args) -> int:  # noqa: ANN001
             comment=args.comment,
             reasons=getattr(args, "reason", None) or (),
         )
-        updated = trip.model_copy(
-            update={"review_events": [*trip.review_events, ReviewEvent.model_validate(event, strict=False)]}
+        return trip.model_copy(
+            update={"review_events": [*trip.review_events, ReviewEvent.model_validate(said["event"], strict=False)]}
         )
-        what = {
-            "reviewed": "reviewed",
-            "approved": "approved",
-            "returned": "returned to the crew",
-            "resubmitted": "resubmitted",
-        }[args.action]
-        saved = store.save_trip(updated, f"review: {what} by {event['by']}")
+
+    try:
+        saved = store.update_trip(tid, lambda: f"review: {what} by {said['event']['by']}", apply)
     except ReviewRefused as exc:
         fail(f"trip {tid[:8]}: {exc}")
     except StoreError as exc:
         fail(str(exc))
+    event = said["event"]
     state = review_state(saved)
     if args.json:
         emit_json({"id": tid, "state": state, "revision": saved.revision, "event": event})

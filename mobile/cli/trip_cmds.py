@@ -314,7 +314,7 @@ def _trip_show(args) -> int:  # noqa: ANN001
 def _trip_export(args) -> int:  # noqa: ANN001
     from core.records.exchange import ExchangeError, export_trip_csv, export_trip_json
     from core.store import StoreError
-    from core.store.atomic import EXPORT_MODE, atomic_write_bytes
+    from core.store.atomic import write_export
 
     store = _store(args)
     trip_id = resolve_trip_id(store, args.id)
@@ -322,7 +322,7 @@ def _trip_export(args) -> int:  # noqa: ANN001
         if args.format == "json":
             data = export_trip_json(store, trip_id)
             if args.out:
-                atomic_write_bytes(Path(args.out), data, mode=EXPORT_MODE)
+                write_export(Path(args.out), data)
             else:
                 sys.stdout.write(data.decode("utf-8"))
         else:
@@ -332,7 +332,7 @@ def _trip_export(args) -> int:  # noqa: ANN001
                 if out.exists() and not out.is_dir():
                     fail(f"--out {out}: for csv give a folder (stops.csv and bottles.csv are written there).")
                 for name, text in files.items():
-                    atomic_write_bytes(out / name, text.encode("utf-8"), mode=EXPORT_MODE)
+                    write_export(out / name, text.encode("utf-8"))
             else:
                 for name, text in files.items():
                     sys.stdout.write(f"# {name}\n{text}")

@@ -158,9 +158,9 @@ class Sheet:
     def output(self, path: Path | None = None) -> bytes:
         data = bytes(self.pdf.output())
         if path is not None:
-            from core.store.atomic import atomic_write_bytes
+            from core.store.atomic import write_export
 
-            atomic_write_bytes(Path(path), data)
+            write_export(Path(path), data)
         return data
 
 

@@ -15,14 +15,14 @@ def write_csv_tables(tables: dict[str, list[dict[str, Any]]], folder: Path) -> l
     """One ``<table>.csv`` per table (UTF-8, header row), each written atomically; every cell guarded."""
     from core.records.exchange import csv_table
     from core.rules.season import TABLES
-    from core.store.atomic import atomic_write_bytes
+    from core.store.atomic import write_export
 
     folder.mkdir(parents=True, exist_ok=True)
     written = []
     for name, columns in TABLES.items():
         path = folder / f"{name}.csv"
         text = csv_table(columns, tables.get(name, []), name=path.name)
-        atomic_write_bytes(path, text.encode("utf-8"))
+        write_export(path, text.encode("utf-8"))
         written.append(path)
     return written
 
@@ -36,7 +36,7 @@ def write_workbook(tables: dict[str, list[dict[str, Any]]], path: Path) -> Path:
     from core.records.exchange import spreadsheet_safe
     from core.rules.report import Reported
     from core.rules.season import TABLES
-    from core.store.atomic import atomic_write_bytes
+    from core.store.atomic import write_export
 
     wb = Workbook()
     wb.remove(wb.active)
@@ -60,5 +60,5 @@ def write_workbook(tables: dict[str, list[dict[str, Any]]], path: Path) -> Path:
         ws.freeze_panes = "A2"
     buf = io.BytesIO()
     wb.save(buf)
-    atomic_write_bytes(path, buf.getvalue())
+    write_export(path, buf.getvalue())
     return path
