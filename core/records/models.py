@@ -600,10 +600,10 @@ class ProgramSettings(_Record):
     #: (Standard Methods 2510 B; natural waters 0.0175–0.0198, Hayashi 2004), or the ISO 7888 table.
     conductivity_compensation: Literal["linear", "iso7888"] = "linear"
     conductivity_alpha_per_c: float = Field(0.0191, ge=ALPHA_RANGE_PER_C[0], le=ALPHA_RANGE_PER_C[1])
-    #: How many decimals reports show, by quantity (core.rules.report.Rounding: do_mg_l, percent, temp_c,
-    #: pressure_hpa, conductivity_sig, bod_mg_l); missing keys keep the defaults (DO 0.1 mg/L, % whole,
-    #: 0.1 °C, 0.1 hPa, specific conductance 3 significant figures; common practice). Reports only:
-    #: stored values are never rounded.
+    #: How many decimals reports and exports show, by quantity (core.rules.report.Rounding: do_mg_l, percent,
+    #: temp_c, pressure_hpa, conductivity_sig, salinity, bod_mg_l, calibration_mg_l); missing keys keep the
+    #: defaults (DO 0.1 mg/L, % whole, 0.1 °C, 0.1 hPa, specific conductance 3 significant figures; common
+    #: practice). Stored values are never rounded; exports can be asked for full precision.
     reporting_decimals: dict[str, int] = Field(default_factory=dict)
     #: Calibration logs of the program's DO meters, matched to a trip by its meter ID (the serial).
     instruments: list[InstrumentLog] = Field(default_factory=list)
