@@ -12,7 +12,7 @@ __all__ = ["SettingsScreen"]
 class SettingsScreen(BaseScreen):
     temp_unit = StringProperty("C")
     pressure_unit = StringProperty("hPa")
-    cond_unit = StringProperty("uS/cm")
+    cond_unit = StringProperty("µS/cm")
     do_unit = StringProperty("mg/L")
     tolerance_entry = ObjectProperty(None)
     warm_entry = ObjectProperty(None)
