@@ -30,6 +30,7 @@ from mobile.app.views import (
     TripLine,
     error_line,
     flag_line,
+    fmt_deadline,
     fmt_duration,
     fmt_value,
     fmt_when,
@@ -721,8 +722,7 @@ class AppController:
                             )
                         )
                     continue
-                dl = clock.deadline.astimezone()
-                deadline = dl.strftime("%H:%M") if dl.date() == now.astimezone().date() else dl.strftime("%a %H:%M")
+                deadline = fmt_deadline(clock.deadline, b.collected_at, now)
                 if clock.expired:
                     symbol, word = severity_mark("stop-and-check")
                     word = "EXPIRED"
