@@ -12,7 +12,7 @@ __all__ = ["SettingsScreen"]
 class SettingsScreen(BaseScreen):
     temp_unit = StringProperty("C")
     pressure_unit = StringProperty("hPa")
-    cond_unit = StringProperty("uS/cm")
+    cond_unit = StringProperty("µS/cm")
     do_unit = StringProperty("mg/L")
     #: What the program's meters mean by 100 % ("local" or "sea-level"); a new trip's start screen begins there.
     percent_basis = StringProperty("local")
