@@ -63,7 +63,15 @@ SITE_COLUMNS = (
     "notes",
 )
 _SITE_REQUIRED = ("site_id", "name", "elevation_m")
-_SITE_NUMBERS = ("elevation_m", "latitude", "longitude", "min_do_mg_l", "supersaturation_percent")
+#: Number columns: column → (its limit in the one table of limits, core.records.models.LIMITS, which the
+#: Site record and the app read too; the units that may follow a number in that column).
+_SITE_NUMBERS: dict[str, tuple[str, tuple[str, ...]]] = {
+    "elevation_m": ("elevation", ("m",)),
+    "latitude": ("latitude", ("°",)),
+    "longitude": ("longitude", ("°",)),
+    "min_do_mg_l": ("criterion", ("mg/L",)),
+    "supersaturation_percent": ("supersaturation", ("%",)),
+}
 _SITE_LABELS = {"site_id": "Site code"}
 
 
@@ -114,8 +122,9 @@ def read_sites_csv(path: Path | str) -> list[Site]:
                             f"{name}, line {line}, column {col}: {label_for(col)} is required (metres above sea level)."
                         )
                     continue
+                limit, units = _SITE_NUMBERS[col]
                 try:
-                    doc[col] = parse_number(raw, col)
+                    doc[col] = parse_number(raw, col, limit=limit, units=units)
                 except InputError as exc:
                     raise ExchangeError(f"{name}, line {line}, column {col}: {exc.message}") from None
             elif col == "site_id":

@@ -106,19 +106,22 @@ def _input_error(exc: _quantities.QuantityError, field: str) -> InputError:
     return InputError(exc.code, field, exc.message)
 
 
-def parse_number(text: str, field: str = "value", *, limit: str | None = None) -> float:
+def parse_number(text: str, field: str = "value", *, limit: str | None = None, units: tuple[str, ...] = ()) -> float:
     """Reads a number a person typed: "3.5" and "3,5" give 3.5; never reads "3,5" as 35.
 
     Refuses NaN, infinity, yes/no values, thousands separators and an ambiguous "1,234"
     (a decimal comma or a thousands comma?) with an :class:`InputError` naming the field; with
-    `limit` (a key of :data:`LIMITS`), also a value outside that limit.
+    `limit` (a key of :data:`LIMITS`), also a value outside that limit. `units` may follow the
+    number ("120 %" in a column of percentages); any other unit is refused.
     """
     from core.records.messages import label_for
 
+    label = label_for(field)
+    how = f"a number within {_quantities.range_text(limit)}" if limit is not None else ""
     try:
-        value = _quantities.read_number(text, label_for(field))
+        value = _quantities.read_number(text, label, units=units, accepted=how)
         if limit is not None:
-            _quantities.check_limit(limit, value, label_for(field))
+            _quantities.check_limit(limit, value, label)
         return value
     except _quantities.QuantityError as exc:
         raise _input_error(exc, field) from None

@@ -42,6 +42,8 @@ class AppPrefs:
     supersaturation_percent: float = 120.0
     sync_target: str = ""
     method: str = "benson-krause"
+    #: What the program's meters mean by 100 %: "local" pressure or "sea-level" (760 mmHg); a program setting.
+    percent_basis: str = "local"
 
 
 def _read_json(path: Path) -> dict[str, Any]:
