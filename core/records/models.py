@@ -106,19 +106,22 @@ def _input_error(exc: _quantities.QuantityError, field: str) -> InputError:
     return InputError(exc.code, field, exc.message)
 
 
-def parse_number(text: str, field: str = "value", *, limit: str | None = None) -> float:
+def parse_number(text: str, field: str = "value", *, limit: str | None = None, units: tuple[str, ...] = ()) -> float:
     """Reads a number a person typed: "3.5" and "3,5" give 3.5; never reads "3,5" as 35.
 
     Refuses NaN, infinity, yes/no values, thousands separators and an ambiguous "1,234"
     (a decimal comma or a thousands comma?) with an :class:`InputError` naming the field; with
-    `limit` (a key of :data:`LIMITS`), also a value outside that limit.
+    `limit` (a key of :data:`LIMITS`), also a value outside that limit. `units` may follow the
+    number ("120 %" in a column of percentages); any other unit is refused.
     """
     from core.records.messages import label_for
 
+    label = label_for(field)
+    how = f"a number within {_quantities.range_text(limit)}" if limit is not None else ""
     try:
-        value = _quantities.read_number(text, label_for(field))
+        value = _quantities.read_number(text, label, units=units, accepted=how)
         if limit is not None:
-            _quantities.check_limit(limit, value, label_for(field))
+            _quantities.check_limit(limit, value, label)
         return value
     except _quantities.QuantityError as exc:
         raise _input_error(exc, field) from None
@@ -600,10 +603,10 @@ class ProgramSettings(_Record):
     #: (Standard Methods 2510 B; natural waters 0.0175–0.0198, Hayashi 2004), or the ISO 7888 table.
     conductivity_compensation: Literal["linear", "iso7888"] = "linear"
     conductivity_alpha_per_c: float = Field(0.0191, ge=ALPHA_RANGE_PER_C[0], le=ALPHA_RANGE_PER_C[1])
-    #: How many decimals reports show, by quantity (core.rules.report.Rounding: do_mg_l, percent, temp_c,
-    #: pressure_hpa, conductivity_sig, bod_mg_l); missing keys keep the defaults (DO 0.1 mg/L, % whole,
-    #: 0.1 °C, 0.1 hPa, specific conductance 3 significant figures; common practice). Reports only:
-    #: stored values are never rounded.
+    #: How many decimals reports and exports show, by quantity (core.rules.report.Rounding: do_mg_l, percent,
+    #: temp_c, pressure_hpa, conductivity_sig, salinity, bod_mg_l, calibration_mg_l); missing keys keep the
+    #: defaults (DO 0.1 mg/L, % whole, 0.1 °C, 0.1 hPa, specific conductance 3 significant figures; common
+    #: practice). Stored values are never rounded; exports can be asked for full precision.
     reporting_decimals: dict[str, int] = Field(default_factory=dict)
     #: Calibration logs of the program's DO meters, matched to a trip by its meter ID (the serial).
     instruments: list[InstrumentLog] = Field(default_factory=list)

@@ -58,7 +58,8 @@ LIMITS: dict[str, tuple[float, float, str]] = {
     "longitude": (-180.0, 180.0, "°"),
     "calibration_reading": (0.0, 25.0, "mg/L"),
     "criterion": (0.0, 20.0, "mg/L"),  # the range core.science.criteria accepts
-    "supersaturation": (100.0, 500.0, "%"),  # the range core.science.criteria accepts
+    # a threshold above the highest % saturation a meter reading may carry ("do_percent") could never fire
+    "supersaturation": (100.0, 300.0, "%"),
     "tolerance": (0.0, 5.0, "mg/L"),
 }
 
@@ -406,7 +407,7 @@ def read_number(text: object, label: str, *, units: tuple[str, ...] = (), accept
     raw = _text(text, label, how)
     parts = split(raw)
     if parts is None:
-        raise _not_a_number(raw, label, f"accepted: {how}")
+        raise _not_a_number(raw, label, how)
     num, unit = parts
     if unit and unit.lower().replace(" ", "") not in {u.lower().replace(" ", "") for u in units}:
         raise QuantityError(

@@ -76,7 +76,8 @@ def build_app(
             from core.science.pressure import PRESSURE_UNITS
 
             self.pressure_units = list(PRESSURE_UNITS)  # the unit pickers of every screen
-            self.cond_units = list(CONDUCTIVITY_UNITS)
+            # "uS/cm" is only the typed spelling of µS/cm: the pickers offer µS/cm once
+            self.cond_units = [u for u in CONDUCTIVITY_UNITS if u != "uS/cm"]
             self.first_drawn_s: float | None = None
             self.first_drawn_epoch: float | None = None
             self.save_trigger = Clock.create_trigger(self._save, 0.4)

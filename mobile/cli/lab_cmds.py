@@ -630,6 +630,7 @@ def _left(seconds: float) -> str:
 
 
 def _pending(args) -> int:  # noqa: ANN001
+    from core.records.messages import when_text
     from core.rules.lab import LabInputError, pending_bottles
     from core.store import StoreError
 
@@ -660,7 +661,7 @@ def _pending(args) -> int:  # noqa: ANN001
     for p in items:
         sys.stdout.write(
             f"{p['label']:<10} {p['kind']:<9} {p['analyte']:<10} {p['site_id']:<7} trip {p['trip_id'][:8]}"
-            f"  deadline {p['deadline'][:16]}  {_left(p['remaining_s'])}"
+            f"  deadline {when_text(p['deadline'])}  {_left(p['remaining_s'])}"
             f"  (limit {p['holding_hours']:g} h from {p['clock_from']})\n"
         )
     return 0

@@ -126,7 +126,7 @@ def _export_season(args) -> int:  # noqa: ANN001
     if unknown and sites:
         fail(f"--site {unknown[0]!r} is not in the site list; accepted: one of {', '.join(sorted(sites))}")
     trips, skipped = _walk_trips(store, flt, "reading trips")
-    tables = season_tables(trips, sites, settings, flt)
+    tables = season_tables(trips, sites, settings, flt, full_precision=args.full_precision)
     try:
         files = write_csv_tables(tables, out)
         if args.xlsx:
@@ -237,8 +237,10 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
         "season",
         help="tidy tables over a season: stops, bottles, results, calibrations, custody",
         description="Writes stops.csv, bottles.csv, results.csv, calibrations.csv and custody.csv"
-        " (one row per observation, units in the column names) into a folder. Cells a"
-        " spreadsheet would run as a formula are neutralised.",
+        " (one row per observation, units in the column names) into a folder. Values are rounded as the"
+        " program's settings say (DO 0.1 mg/L, saturation 1 %%, temperature 0.1 °C, conductivity 3"
+        " significant figures unless the program sets otherwise); --full-precision writes them as stored."
+        " A rounding column names the convention. Cells a spreadsheet would run as a formula are neutralised.",
     )
     p.add_argument("--from", dest="date_from", metavar="DATE", help="first trip date, YYYY-MM-DD")
     p.add_argument("--to", dest="date_to", metavar="DATE", help="last trip date, YYYY-MM-DD")
@@ -252,6 +254,11 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     )
     p.add_argument("--out", metavar="DIR", required=True, help="folder for the tables (created when missing)")
     p.add_argument("--xlsx", action="store_true", help="also write the tables as one workbook, season.xlsx")
+    p.add_argument(
+        "--full-precision",
+        action="store_true",
+        help="write values as stored instead of rounded by the program's reporting rule (for analysts)",
+    )
     _common(p)
     p.set_defaults(handler=_export_season)
 

@@ -62,6 +62,12 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
         default=None,
         help="file for json; folder for csv (stops.csv, bottles.csv); default: standard output",
     )
+    p.add_argument(
+        "--full-precision",
+        action="store_true",
+        help="csv: write values as stored instead of rounded by the program's reporting rule (for analysts);"
+        " json is always as stored",
+    )
     from mobile.cli.conflict_cmds import add_trip_commands
 
     add_trip_commands(trip_sub, _command)
@@ -328,7 +334,7 @@ def _trip_export(args) -> int:  # noqa: ANN001
             else:
                 sys.stdout.write(data.decode("utf-8"))
         else:
-            files = export_trip_csv(store, trip_id)
+            files = export_trip_csv(store, trip_id, full_precision=args.full_precision)
             if args.out:
                 out = Path(args.out)
                 if out.exists() and not out.is_dir():

@@ -222,6 +222,10 @@ def test_pending_lists_and_then_drops_a_bottle(data):
     first = before["bottles"][0]
     assert first["deadline"].startswith("2026-06-23T15:25") and first["clock_from"] == "collection"
     assert first["remaining_s"] == pytest.approx(3 * 3600 + 25 * 60)
+    # printed on the collection's clock, saying which (common practice: a time without its zone is
+    # ambiguous once a record travels)
+    text = lab("pending", "--now", "2026-06-23T12:00-07:00", data_dir=data).stdout
+    assert "deadline 2026-06-23 15:25 UTC−07:00" in text
     ok_json(lab(*winkler_args("--json"), data_dir=data))
     after = ok_json(lab("pending", "--json", "--now", "2026-06-23T14:30-07:00", data_dir=data))
     assert ("TV-0701", "do-fixed") not in [(b["label"], b["kind"]) for b in after["bottles"]]
