@@ -407,7 +407,7 @@ def read_number(text: object, label: str, *, units: tuple[str, ...] = (), accept
     raw = _text(text, label, how)
     parts = split(raw)
     if parts is None:
-        raise _not_a_number(raw, label, how)
+        raise _not_a_number(raw, label, f"accepted: {how}")
     num, unit = parts
     if unit and unit.lower().replace(" ", "") not in {u.lower().replace(" ", "") for u in units}:
         raise QuantityError(
