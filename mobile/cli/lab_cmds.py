@@ -7,6 +7,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
+from core.records.messages import when_text
 from mobile.cli._common import (
     CliError,
     emit_json,
@@ -630,7 +631,6 @@ def _left(seconds: float) -> str:
 
 
 def _pending(args) -> int:  # noqa: ANN001
-    from core.records.messages import when_text
     from core.rules.lab import LabInputError, pending_bottles
     from core.store import StoreError
 
@@ -714,7 +714,7 @@ def _results(args) -> int:  # noqa: ANN001
         )
         sys.stdout.write(
             f"{r['site_id']:<7} {r['label']:<10} {r['analyte']:<11} {value:>11}  "
-            f"{(r['analysed_at'] or '')[:16]:<16}  {r['analyst'] or '—':<6} {r['result_id'][:8]}  {state}\n"
+            f"{when_text(r['analysed_at']):<26}  {r['analyst'] or '—':<6} {r['result_id'][:8]}  {state}\n"
         )
     return 0
 
