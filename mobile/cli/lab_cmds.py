@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 import sys
 from datetime import datetime, timezone
 from pathlib import Path
@@ -54,11 +55,26 @@ def _number(text: str | None, option: str, accepted: str, units: tuple[str, ...]
         raise CliError(exc.message) from None
 
 
-def _lab_error(exc: Exception) -> CliError:
+def _lab_error(exc: Exception, options: dict[str, str] | None = None) -> CliError:
+    """The core's refusal as one line naming the option as typed: its "name = value ..." opening and any
+    other input named inside it ("(bottle_ml = 300)") become the options ("--at 2026-...", "--bottle-ml 300").
+    `options` names an input that came from another option this time (the analysis time from --incubation-end)."""
+    names = {**_OPTIONS, **(options or {})}
     field = getattr(exc, "field", "")
-    option = _OPTIONS.get(field, "")
+    option = names.get(field, "")
     msg = str(exc).splitlines()[0] if str(exc) else "invalid value"
-    return CliError(f"{option}: {msg}" if option else msg)
+    if field.startswith("standardisation."):
+        msg = msg.removeprefix("standardisation ")
+    own = field.rsplit(".", 1)[-1]
+    named = bool(option) and msg.startswith(f"{own} = ")
+    if named:
+        msg = f"{option} {msg[len(own) + 3 :]}"
+    for name, opt in sorted(names.items(), key=lambda kv: -len(kv[0])):
+        short = name.rsplit(".", 1)[-1]
+        if "_" in short:  # an internal name; plain words such as "bottle" stay words
+            msg = re.sub(rf"(?<![\w-]){re.escape(short)}(?: = |(?!\w))", (option if short == own else opt) + " ", msg)
+    msg = msg.replace("  ", " ").replace(" ;", ";").replace(" )", ")").rstrip()
+    return CliError(msg if named or not option else f"{option}: {msg}")
 
 
 #: LabSettings fields a program may set in its settings as ``lab_<name>``; options override them.
@@ -123,10 +139,10 @@ def _trip(store, ident: str):  # noqa: ANN001
         fail(str(exc))
 
 
-def _record(store, trip_id: str, compute, describe):  # noqa: ANN001, ANN202
+def _record(store, trip_id: str, compute, describe, options=None):  # noqa: ANN001, ANN202
     """Computes a lab outcome on the stored trip and saves it in one read–modify–write under the
     store's lock (no other writer, e.g. a sync, can come between); returns (outcome, saved trip).
-    `compute(trip)` gives the outcome, `describe(outcome)` the audit sentence."""
+    `compute(trip)` gives the outcome, `describe(outcome)` the audit sentence; `options` as for `_lab_error`."""
     from core.rules.lab import LabInputError
     from core.store import StoreError
 
@@ -139,7 +155,7 @@ def _record(store, trip_id: str, compute, describe):  # noqa: ANN001, ANN202
     try:
         saved = store.update_trip(trip_id, lambda: describe(box["out"]), apply)
     except LabInputError as exc:
-        raise _lab_error(exc) from None
+        raise _lab_error(exc, options) from None
     except StoreError as exc:
         fail(f"nothing was saved: {exc}")
     return box["out"], saved
@@ -497,7 +513,8 @@ def _bod(args) -> int:  # noqa: ANN001
             + (" (repeat)" if o.superseded else "")
         )
 
-    out, saved = _record(store, trip.id, compute, describe)
+    at_from = {"analysed_at": "--incubation-end"} if args.at is None and end is not None else None
+    out, saved = _record(store, trip.id, compute, describe, at_from)
     shown = shown_of(out)
     report = report_of(out)
     what = report.get("analyte", "BOD5")
