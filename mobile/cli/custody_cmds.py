@@ -6,6 +6,7 @@ import sys
 from datetime import datetime, timezone
 from typing import Any
 
+from core.records.messages import when_text
 from mobile.cli._common import CliError, emit_json, fail, open_store, parse_time, resolve_trip_id
 
 __all__ = ["register"]
@@ -33,14 +34,17 @@ def _store_and_trip(args):  # noqa: ANN001
 
 
 def _temp(text: str | None):
-    from core.records.models import InputError, measure
+    """--temp as typed, read by core's one grammar (a bare number is °C), or one line naming --temp."""
+    from core.records.models import Quantity
+    from core.science.quantities import QuantityError, read
 
     if text is None:
         return None
     try:
-        return measure("temp", text, default_unit="C", field="receipt_temp")
-    except InputError as exc:
-        raise CliError(f'--temp {text!r}: {exc.message} Accepted: a temperature such as "4.2 C".') from None
+        r = read("temp", text, "--temp", default_unit="C")
+    except QuantityError as exc:
+        raise CliError(exc.message) from None
+    return Quantity(text=r.text, entered_value=r.number, entered_unit=r.entered_unit, value=r.value, unit=r.unit)
 
 
 def _labels(out) -> list[str]:  # noqa: ANN001
@@ -109,7 +113,7 @@ def _add(args) -> int:  # noqa: ANN001
     sys.stdout.write(
         f"trip {saved.id[:8]} (revision {saved.revision}): {', '.join(labels)}\n"
         f"  {out.record.relinquished_by} → {out.record.received_by}"
-        f"{' (lab receipt)' if out.record.at_lab else ''} at {out.record.at.isoformat(timespec='minutes')}"
+        f"{' (lab receipt)' if out.record.at_lab else ''} at {when_text(out.record.at)}"
         " — typed names, unsigned\n"
     )
     for f in out.flags:
@@ -139,7 +143,7 @@ def _list(args) -> int:  # noqa: ANN001
         cond = f", {r.condition}" if r.condition else ""
         signed = "signed" if r.signed else "unsigned"
         sys.stdout.write(
-            f"{r.at.isoformat(timespec='minutes')}  {r.relinquished_by} → {r.received_by}"
+            f"{when_text(r.at)}  {r.relinquished_by} → {r.received_by}"
             f"{' (lab)' if r.at_lab else ''}  {', '.join(d['bottle_labels'])}{temp}{cond}"
             f"  [{signed}] {r.id[:8]}\n"
         )

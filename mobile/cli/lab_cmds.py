@@ -8,7 +8,17 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from mobile.cli._common import CliError, emit_json, emit_table, fail, open_store, read_dilutions_file, resolve_trip_id
+from core.records.messages import when_text
+from mobile.cli._common import (
+    CliError,
+    emit_json,
+    emit_table,
+    fail,
+    open_store,
+    read_dilutions_file,
+    read_text_file,
+    resolve_trip_id,
+)
 from mobile.cli._common import parse_time as _time
 
 __all__ = ["register"]
@@ -66,6 +76,8 @@ def _lab_error(exc: Exception, options: dict[str, str] | None = None) -> CliErro
     if field.startswith("standardisation."):
         msg = msg.removeprefix("standardisation ")
     own = field.rsplit(".", 1)[-1]
+    if option and msg.startswith(f"{own}: "):  # "seed_controls: ..." under the option's own name
+        msg = msg[len(own) + 2 :]
     named = bool(option) and msg.startswith(f"{own} = ")
     if named:
         msg = f"{option} {msg[len(own) + 3 :]}"
@@ -139,10 +151,11 @@ def _trip(store, ident: str):  # noqa: ANN001
         fail(str(exc))
 
 
-def _record(store, trip_id: str, compute, describe, options=None):  # noqa: ANN001, ANN202
+def _record(store, trip_id: str, compute, describe, options: dict[str, str] | None = None):  # noqa: ANN001, ANN202
     """Computes a lab outcome on the stored trip and saves it in one read–modify–write under the
     store's lock (no other writer, e.g. a sync, can come between); returns (outcome, saved trip).
-    `compute(trip)` gives the outcome, `describe(outcome)` the audit sentence; `options` as for `_lab_error`."""
+    `compute(trip)` gives the outcome, `describe(outcome)` the audit sentence; `options` as for
+    :func:`_lab_error`."""
     from core.rules.lab import LabInputError
     from core.store import StoreError
 
@@ -336,13 +349,7 @@ def _batch_cmd(args) -> int:  # noqa: ANN001
     if args.seed_sheet is not None:
         from core.rules.bench import SheetError, read_bench_sheet
 
-        try:
-            raw = Path(args.seed_sheet).read_text(encoding="utf-8")
-        except (OSError, UnicodeDecodeError) as exc:
-            fail(
-                f"--seed-sheet {args.seed_sheet!r} cannot be read ({type(exc).__name__}); accepted: a bench sheet"
-                " CSV with seed control rows"
-            )
+        raw = read_text_file(args.seed_sheet, "--seed-sheet", "a bench sheet CSV with seed control rows")
         try:
             controls = read_bench_sheet(
                 raw, name=f"--seed-sheet {Path(args.seed_sheet).name}", need_dilutions=False
@@ -420,12 +427,7 @@ def _read_sheet(path_text: str, bottle: str) -> tuple[Any, Any]:
     from core.rules.bench import SheetError, read_bench_sheet
 
     path = Path(path_text)
-    try:
-        raw = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        fail(f"--sheet {path_text!r} does not exist; accepted: a bench sheet CSV (see 'streamtab lab sheet')")
-    except (OSError, UnicodeDecodeError) as exc:
-        fail(f"--sheet {path_text!r} cannot be read ({type(exc).__name__}); accepted: a readable UTF-8 CSV file")
+    raw = read_text_file(path_text, "--sheet", "a bench sheet CSV (see 'streamtab lab sheet')")
     try:
         sheet = read_bench_sheet(raw, bottle=bottle, name=f"--sheet {path.name}")
     except SheetError as exc:
@@ -513,8 +515,12 @@ def _bod(args) -> int:  # noqa: ANN001
             + (" (repeat)" if o.superseded else "")
         )
 
-    at_from = {"analysed_at": "--incubation-end"} if args.at is None and end is not None else None
-    out, saved = _record(store, trip.id, compute, describe, at_from)
+    typed_as: dict[str, str] = {}  # the option a value came from when it was not typed as itself
+    if args.sheet is not None:
+        typed_as.update(dilutions=f"--sheet {Path(args.sheet).name}", seed_controls=f"--sheet {Path(args.sheet).name}")
+    if args.at is None and end is not None:
+        typed_as["analysed_at"] = "--incubation-end"
+    out, saved = _record(store, trip.id, compute, describe, typed_as)
     shown = shown_of(out)
     report = report_of(out)
     what = report.get("analyte", "BOD5")
@@ -639,7 +645,6 @@ def _left(seconds: float) -> str:
 
 
 def _pending(args) -> int:  # noqa: ANN001
-    from core.records.messages import when_text
     from core.rules.lab import LabInputError, pending_bottles
     from core.store import StoreError
 
@@ -723,7 +728,7 @@ def _results(args) -> int:  # noqa: ANN001
         )
         sys.stdout.write(
             f"{r['site_id']:<7} {r['label']:<10} {r['analyte']:<11} {value:>11}  "
-            f"{(r['analysed_at'] or '')[:16]:<16}  {r['analyst'] or '—':<6} {r['result_id'][:8]}  {state}\n"
+            f"{when_text(r['analysed_at']):<26}  {r['analyst'] or '—':<6} {r['result_id'][:8]}  {state}\n"
         )
     return 0
 

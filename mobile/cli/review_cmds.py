@@ -10,6 +10,7 @@ import sys
 from datetime import datetime, timezone
 from typing import Any
 
+from core.records.messages import when_text
 from mobile.cli._common import emit_json, fail, open_store, resolve_trip_id
 
 __all__ = ["register"]
@@ -98,7 +99,7 @@ def _list(args) -> int:  # noqa: ANN001
         sys.stdout.write("no trips" + (f" {args.state}" if args.state else "") + "\n")
     for r in rows:
         sys.stdout.write(
-            f"{r['id'][:8]}  {r['started_at'][:16]:<16}  {r['program'][:28]:<28}  "
+            f"{r['id'][:8]}  {when_text(r['started_at']):<26}  {r['program'][:28]:<28}  "
             f"{','.join(r['crew'])[:14]:<14}  {r['state']}\n"
         )
     return 0
@@ -177,7 +178,7 @@ def _show(args) -> int:  # noqa: ANN001
         return 0
     sys.stdout.write(f"{tid}  {review_state(doc)}\n")
     for e in events:
-        line = f"  {e.get('at', '')[:16]}  {e.get('action'):<11} by {e.get('by')}"
+        line = f"  {when_text(e.get('at'))}  {e.get('action'):<11} by {e.get('by')}"
         if e.get("comment"):
             line += f": {e['comment']}"
         sys.stdout.write(line + "\n")

@@ -164,6 +164,12 @@ def test_review_cli(tmp_path, cli):
     assert [e["action"] for e in shown["events"]] == ["returned", "resubmitted", "approved"]
     r = cli("review", "list", "--json", data_dir=d)
     assert {x["id"]: x["state"] for x in json.loads(r.stdout)} == {trip.id: "approved", open_trip.id: "in progress"}
+    # the text lists show times as `trip list` does, in the record's own offset and saying which
+    # (common practice: a time without its zone is ambiguous once records travel)
+    from core.records.messages import when_text
+
+    assert when_text(trip.started_at) in cli("review", "list", data_dir=d).stdout
+    assert " UTC" in cli("review", "show", trip.id, data_dir=d).stdout
 
 
 def test_exports_and_reports_say_the_review_state(tmp_path, cli):
