@@ -440,7 +440,10 @@ def settle_document(
             side = sides[keep - 1]
             chosen = None if side.get("removed") else side.get("value")
         else:
-            chosen = _parse(key, str(value), holder.get(key))
+            try:
+                chosen = _parse(key, str(value), holder.get(key))
+            except ConflictError as exc:
+                raise ConflictError(f"--value: {exc}") from None
         holder[key] = chosen
     conflict["resolved_at"] = at.isoformat()
     conflict["resolved_by"] = str(by).strip()[:80]
@@ -487,18 +490,21 @@ def correct(
         )
     target = stops[stop - 1]
     old = target.get(key)
-    if kind in ("temp", "pressure", "conductivity", "do"):
-        default = "%" if kind == "do" and isinstance(old, dict) and old.get("unit") == "%" else unit
-        try:
-            new: Any = _measure(kind, value, default, key)
-        except InputError as exc:
-            raise ConflictError(exc.message) from None
-    elif kind == "yes/no":
-        new = _parse("conductivity_is_sc25", value, bool(old))
-    elif kind == "time":
-        new = _parse_time(value, label_for(key))
-    else:
-        new = str(value)
+    try:  # a refused value names the option and the column the person typed
+        if kind in ("temp", "pressure", "conductivity", "do"):
+            default = "%" if kind == "do" and isinstance(old, dict) and old.get("unit") == "%" else unit
+            try:
+                new: Any = _measure(kind, value, default, key)
+            except InputError as exc:
+                raise ConflictError(exc.message) from None
+        elif kind == "yes/no":
+            new = _parse("conductivity_is_sc25", value, bool(old))
+        elif kind == "time":
+            new = _parse_time(value, label_for(key))
+        else:
+            new = str(value)
+    except ConflictError as exc:
+        raise ConflictError(f"--value for --field {col}: {exc}") from None
     target[key] = new
     if at is not None and by and reason:
         _on_approved(before, doc, by=by, at=at, reason=reason)

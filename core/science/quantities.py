@@ -320,11 +320,12 @@ def split(text: str) -> tuple[str, str] | None:
 
 
 def _not_a_number(raw: str, label: str, how: str) -> QuantityError:
+    """`how` completes "…is not a number; " (e.g. "type a number with a unit, …" or "accepted: …")."""
     m = re.match(r"^[+-]?[\d.,]*", raw)
     head = m.group(0) if m else ""
     if "," in head and "." in head:
         return _mixed_marks(raw, label)
-    return QuantityError("number.invalid", label, f"{label}: {_q(raw)} is not a number; type {how}")
+    return QuantityError("number.invalid", label, f"{label}: {_q(raw)} is not a number; {how}")
 
 
 def _mixed_marks(raw: str, label: str) -> QuantityError:
@@ -406,7 +407,7 @@ def read_number(text: object, label: str, *, units: tuple[str, ...] = (), accept
     raw = _text(text, label, how)
     parts = split(raw)
     if parts is None:
-        raise _not_a_number(raw, label, how)
+        raise _not_a_number(raw, label, f"accepted: {how}")
     num, unit = parts
     if unit and unit.lower().replace(" ", "") not in {u.lower().replace(" ", "") for u in units}:
         raise QuantityError(
@@ -455,7 +456,7 @@ def read(kind: str, text: object, label: str, *, default_unit: str | None = None
     raw = _text(text, label, how)
     parts = split(raw)
     if parts is None:
-        raise _not_a_number(raw, label, how)
+        raise _not_a_number(raw, label, f"type {how}")
     num, unit_typed = parts
     value = _number_value(num, label, raw)
     entered = unit_typed

@@ -34,14 +34,17 @@ def _store_and_trip(args):  # noqa: ANN001
 
 
 def _temp(text: str | None):
-    from core.records.models import InputError, measure
+    """--temp as typed, read by core's one grammar (a bare number is °C), or one line naming --temp."""
+    from core.records.models import Quantity
+    from core.science.quantities import QuantityError, read
 
     if text is None:
         return None
     try:
-        return measure("temp", text, default_unit="C", field="receipt_temp")
-    except InputError as exc:
-        raise CliError(f'--temp {text!r}: {exc.message} Accepted: a temperature such as "4.2 C".') from None
+        r = read("temp", text, "--temp", default_unit="C")
+    except QuantityError as exc:
+        raise CliError(exc.message) from None
+    return Quantity(text=r.text, entered_value=r.number, entered_unit=r.entered_unit, value=r.value, unit=r.unit)
 
 
 def _labels(out) -> list[str]:  # noqa: ANN001

@@ -8,7 +8,16 @@ from pathlib import Path
 from typing import Any
 
 from core.records.messages import when_text
-from mobile.cli._common import CliError, emit_json, emit_table, fail, open_store, read_dilutions_file, resolve_trip_id
+from mobile.cli._common import (
+    CliError,
+    emit_json,
+    emit_table,
+    fail,
+    open_store,
+    read_dilutions_file,
+    read_text_file,
+    resolve_trip_id,
+)
 from mobile.cli._common import parse_time as _time
 
 __all__ = ["register"]
@@ -55,10 +64,14 @@ def _number(text: str | None, option: str, accepted: str, units: tuple[str, ...]
         raise CliError(exc.message) from None
 
 
-def _lab_error(exc: Exception) -> CliError:
+def _lab_error(exc: Exception, options: dict[str, str] | None = None) -> CliError:
+    """One line naming the option the person typed (`options` overrides :data:`_OPTIONS` where a
+    command fills a value from another option); core's own name for the input never shows."""
     field = getattr(exc, "field", "")
-    option = _OPTIONS.get(field, "")
+    option = {**_OPTIONS, **(options or {})}.get(field, "")
     msg = str(exc).splitlines()[0] if str(exc) else "invalid value"
+    if option and msg.startswith(f"{field} = "):  # "titrant_ml = 700 is out of range" → "--titrant-ml 700 is …"
+        return CliError(f"{option} {msg[len(field) + 3 :]}")
     return CliError(f"{option}: {msg}" if option else msg)
 
 
@@ -124,10 +137,11 @@ def _trip(store, ident: str):  # noqa: ANN001
         fail(str(exc))
 
 
-def _record(store, trip_id: str, compute, describe):  # noqa: ANN001, ANN202
+def _record(store, trip_id: str, compute, describe, options: dict[str, str] | None = None):  # noqa: ANN001, ANN202
     """Computes a lab outcome on the stored trip and saves it in one read–modify–write under the
     store's lock (no other writer, e.g. a sync, can come between); returns (outcome, saved trip).
-    `compute(trip)` gives the outcome, `describe(outcome)` the audit sentence."""
+    `compute(trip)` gives the outcome, `describe(outcome)` the audit sentence; `options` as for
+    :func:`_lab_error`."""
     from core.rules.lab import LabInputError
     from core.store import StoreError
 
@@ -140,7 +154,7 @@ def _record(store, trip_id: str, compute, describe):  # noqa: ANN001, ANN202
     try:
         saved = store.update_trip(trip_id, lambda: describe(box["out"]), apply)
     except LabInputError as exc:
-        raise _lab_error(exc) from None
+        raise _lab_error(exc, options) from None
     except StoreError as exc:
         fail(f"nothing was saved: {exc}")
     return box["out"], saved
@@ -321,13 +335,7 @@ def _batch_cmd(args) -> int:  # noqa: ANN001
     if args.seed_sheet is not None:
         from core.rules.bench import SheetError, read_bench_sheet
 
-        try:
-            raw = Path(args.seed_sheet).read_text(encoding="utf-8")
-        except (OSError, UnicodeDecodeError) as exc:
-            fail(
-                f"--seed-sheet {args.seed_sheet!r} cannot be read ({type(exc).__name__}); accepted: a bench sheet"
-                " CSV with seed control rows"
-            )
+        raw = read_text_file(args.seed_sheet, "--seed-sheet", "a bench sheet CSV with seed control rows")
         try:
             controls = read_bench_sheet(
                 raw, name=f"--seed-sheet {Path(args.seed_sheet).name}", need_dilutions=False
@@ -405,12 +413,7 @@ def _read_sheet(path_text: str, bottle: str) -> tuple[Any, Any]:
     from core.rules.bench import SheetError, read_bench_sheet
 
     path = Path(path_text)
-    try:
-        raw = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        fail(f"--sheet {path_text!r} does not exist; accepted: a bench sheet CSV (see 'streamtab lab sheet')")
-    except (OSError, UnicodeDecodeError) as exc:
-        fail(f"--sheet {path_text!r} cannot be read ({type(exc).__name__}); accepted: a readable UTF-8 CSV file")
+    raw = read_text_file(path_text, "--sheet", "a bench sheet CSV (see 'streamtab lab sheet')")
     try:
         sheet = read_bench_sheet(raw, bottle=bottle, name=f"--sheet {path.name}")
     except SheetError as exc:
@@ -498,7 +501,12 @@ def _bod(args) -> int:  # noqa: ANN001
             + (" (repeat)" if o.superseded else "")
         )
 
-    out, saved = _record(store, trip.id, compute, describe)
+    typed_as: dict[str, str] = {}  # the option a value came from when it was not typed as itself
+    if args.sheet is not None:
+        typed_as.update(dilutions=f"--sheet {Path(args.sheet).name}", seed_controls=f"--sheet {Path(args.sheet).name}")
+    if args.at is None and end is not None:
+        typed_as["analysed_at"] = "--incubation-end"
+    out, saved = _record(store, trip.id, compute, describe, typed_as)
     shown = shown_of(out)
     report = report_of(out)
     what = report.get("analyte", "BOD5")

@@ -11,12 +11,10 @@ from mobile.cli._common import CliError, emit_json, fail, open_store, resolve_tr
 __all__ = ["register"]
 
 
-def _out_path(text: str, option: str, suffixes: tuple[str, ...]) -> Path:
+def _out_path(text: str, option: str, suffixes: tuple[str, ...], example: str) -> Path:
     path = Path(text)
     if path.suffix.lower() not in suffixes:
-        fail(
-            f"{option} {text!r} must end in {' or '.join(suffixes)}; accepted: a file name such as report{suffixes[0]}"
-        )
+        fail(f"{option} {text!r} must end in {' or '.join(suffixes)}; accepted: a file name such as {example}")
     if not path.parent.exists():
         fail(
             f"{option} {text!r}: the folder {str(path.parent)!r} does not exist; accepted: a file in an existing folder"
@@ -38,7 +36,7 @@ def _report(args) -> int:  # noqa: ANN001
     from core.rules.report import trip_report
     from mobile.paper.report_pdf import render_trip_report
 
-    out = _out_path(args.out, "--out", (".pdf",))
+    out = _out_path(args.out, "--out", (".pdf",), "report.pdf")
     store = open_store(args.data_dir)
     trip, sites, settings = _load(store, args.trip)
     rep = trip_report(trip, sites, settings, datetime.now(timezone.utc))
@@ -158,7 +156,7 @@ def _plot_site(args) -> int:  # noqa: ANN001
     from core.store import StoreError
     from mobile.paper.plots import figure_bytes, site_season_figure
 
-    out = _out_path(args.out, "--out", (".png", ".pdf"))
+    out = _out_path(args.out, "--out", (".png", ".pdf"), "site-season.png")
     flt = _season_filter(args)
     store = open_store(args.data_dir)
     try:

@@ -316,6 +316,14 @@ def _trip_export(args) -> int:  # noqa: ANN001
     from core.store import StoreError
     from core.store.atomic import write_export
 
+    if args.out:
+        out = Path(args.out)
+        folder = out.parent
+        if not folder.exists():  # a csv folder is created when missing, but never a chain of them
+            fail(
+                f"--out {args.out!r}: the folder {str(folder)!r} does not exist; accepted: a"
+                + (" file in an existing folder" if args.format == "json" else " folder in an existing folder")
+            )
     store = _store(args)
     trip_id = resolve_trip_id(store, args.id)
     try:
