@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 import sys
 from datetime import datetime, timezone
 from pathlib import Path
@@ -65,14 +66,27 @@ def _number(text: str | None, option: str, accepted: str, units: tuple[str, ...]
 
 
 def _lab_error(exc: Exception, options: dict[str, str] | None = None) -> CliError:
-    """One line naming the option the person typed (`options` overrides :data:`_OPTIONS` where a
-    command fills a value from another option); core's own name for the input never shows."""
+    """The core's refusal as one line naming the option as typed: its "name = value ..." opening and any
+    other input named inside it ("(bottle_ml = 300)") become the options ("--at 2026-...", "--bottle-ml 300").
+    `options` names an input that came from another option this time (the analysis time from --incubation-end)."""
+    names = {**_OPTIONS, **(options or {})}
     field = getattr(exc, "field", "")
-    option = {**_OPTIONS, **(options or {})}.get(field, "")
+    option = names.get(field, "")
     msg = str(exc).splitlines()[0] if str(exc) else "invalid value"
-    if option and msg.startswith(f"{field} = "):  # "titrant_ml = 700 is out of range" → "--titrant-ml 700 is …"
-        return CliError(f"{option} {msg[len(field) + 3 :]}")
-    return CliError(f"{option}: {msg}" if option else msg)
+    if field.startswith("standardisation."):
+        msg = msg.removeprefix("standardisation ")
+    own = field.rsplit(".", 1)[-1]
+    if option and msg.startswith(f"{own}: "):  # "seed_controls: ..." under the option's own name
+        msg = msg[len(own) + 2 :]
+    named = bool(option) and msg.startswith(f"{own} = ")
+    if named:
+        msg = f"{option} {msg[len(own) + 3 :]}"
+    for name, opt in sorted(names.items(), key=lambda kv: -len(kv[0])):
+        short = name.rsplit(".", 1)[-1]
+        if "_" in short:  # an internal name; plain words such as "bottle" stay words
+            msg = re.sub(rf"(?<![\w-]){re.escape(short)}(?: = |(?!\w))", (option if short == own else opt) + " ", msg)
+    msg = msg.replace("  ", " ").replace(" ;", ";").replace(" )", ")").rstrip()
+    return CliError(msg if named or not option else f"{option}: {msg}")
 
 
 #: LabSettings fields a program may set in its settings as ``lab_<name>``; options override them.

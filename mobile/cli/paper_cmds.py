@@ -104,7 +104,7 @@ def _walk_trips(store, flt, what: str):  # noqa: ANN001
 
 def _export_season(args) -> int:  # noqa: ANN001
     from core.records.exchange import ExchangeError
-    from core.rules.season import season_tables
+    from core.rules.season import season_tables, trip_in_season
     from core.store import StoreError
     from mobile.paper.season import write_csv_tables, write_workbook
 
@@ -126,6 +126,7 @@ def _export_season(args) -> int:  # noqa: ANN001
     if unknown and sites:
         fail(f"--site {unknown[0]!r} is not in the site list; accepted: one of {', '.join(sorted(sites))}")
     trips, skipped = _walk_trips(store, flt, "reading trips")
+    trips = [t for t in trips if trip_in_season(t, flt)]  # the dates, and the review states asked for
     tables = season_tables(trips, sites, settings, flt, full_precision=args.full_precision)
     try:
         files = write_csv_tables(tables, out)
@@ -144,7 +145,7 @@ def _export_season(args) -> int:  # noqa: ANN001
         sys.stdout.write(
             f"wrote {len(files)} files to {out}: "
             + ", ".join(f"{n} {k}" for k, n in counts.items())
-            + f" from {len(trips)} trips\n"
+            + f" from {len(trips)} trip{'' if len(trips) == 1 else 's'}\n"
         )
     return 0
 

@@ -191,6 +191,7 @@ def test_exports_and_reports_say_the_review_state(tmp_path, cli):
     rows = list(csv.DictReader((out / "stops.csv").open(encoding="utf-8")))
     assert {row["trip_id"] for row in rows} == {done.id}
     assert {row["review_state"] for row in rows} == {"approved"}
+    assert r.stdout.rstrip().endswith("from 1 trip")  # the trips the filter kept, not the trips read
     r = cli("export", "season", "--out", str(tmp_path / "all"), data_dir=tmp_path / "office")
     rows = list(csv.DictReader((tmp_path / "all" / "stops.csv").open(encoding="utf-8")))
     assert {row["trip_id"]: row["review_state"] for row in rows} == {done.id: "approved", other.id: "ended"}
