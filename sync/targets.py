@@ -744,20 +744,15 @@ class WebDavTarget:
         """Removes this device's own uploads under ``incoming/<device key>/`` whose last change is
         older than `STALE_UPLOAD_S` (cut uploads): one PROPFIND, one DELETE each. The only
         deletion sync does."""
-        from email.utils import parsedate_to_datetime
-
         rel = f"{INCOMING}/{device_key(device_id)}/"
         entries = self._propfind(rel, "1", body=_PROPFIND_TIMES_BODY, with_times=True) or []
         removed = 0
         for relpath, is_col, _size, modified in entries:
             name = relpath.rstrip("/").rsplit("/", 1)[-1]
-            if is_col or not relpath.startswith(rel) or not is_incoming_name(name) or not modified:
+            if is_col or not relpath.startswith(rel) or not is_incoming_name(name):
                 continue
-            try:
-                when = parsedate_to_datetime(modified).timestamp()
-            except (TypeError, ValueError, IndexError, OverflowError):
-                continue
-            if when >= now - STALE_UPLOAD_S:
+            when = _http_time(modified)
+            if when is None or when >= now - STALE_UPLOAD_S:
                 continue
             resp = self.session.retrying(functools.partial(self.session.request, "DELETE", self._u(rel + name)))
             resp.close()

@@ -123,3 +123,65 @@ def test_elevation_limits_are_one(ctl, text, accepted):
     except Exception:  # noqa: BLE001 - pydantic's ValidationError
         model_ok = False
     assert model_ok is accepted
+
+
+@pytest.mark.parametrize(
+    "text, accepted",
+    [("100", True), ("300", True), ("300.5", False), ("500", False), ("99", False), ("1e9", False)],
+)
+def test_supersaturation_limits_are_one(tmp_path, text, accepted):
+    """The site list CSV, the Site and ProgramSettings records, the science's Criteria and the app's settings
+    screen take the same supersaturation thresholds (LIMITS["supersaturation"]; common practice: a threshold
+    above the highest % saturation a reading may carry, LIMITS["do_percent"], could never fire)."""
+    from core.records.exchange import ExchangeError, read_sites_csv
+    from core.records.models import ProgramSettings
+    from core.science.criteria import Criteria
+    from mobile.app.controller import setting_problem
+
+    assert LIMITS["supersaturation"][1] == LIMITS["do_percent"][1]
+    path = tmp_path / "sites.csv"
+    path.write_text(f"site_id,name,elevation_m,supersaturation_percent\nLK-09,Test,120,{text}\n", encoding="utf-8")
+    try:
+        read_sites_csv(path)
+        csv_ok, csv_msg = True, ""
+    except ExchangeError as exc:
+        csv_ok, csv_msg = False, str(exc)
+    value = float(text)
+    outcomes = {"csv": csv_ok}
+    for name, build in (
+        ("site", lambda: Site(id="LK-09", name="x", elevation_m=120.0, supersaturation_percent=value)),
+        ("settings", lambda: ProgramSettings(supersaturation_percent=value)),
+        ("criteria", lambda: Criteria(supersaturation_percent=value)),
+    ):
+        try:
+            build()
+            outcomes[name] = True
+        except Exception:  # noqa: BLE001 - pydantic's ValidationError, the science's ValueError
+            outcomes[name] = False
+    _value, app_msg = setting_problem("supersaturation_percent", text)
+    outcomes["app"] = app_msg is None
+    assert outcomes == dict.fromkeys(outcomes, accepted), (outcomes, csv_msg, app_msg)
+    if not accepted:
+        # one line naming the column as the file spells it and the accepted range, no internal name beyond it
+        assert csv_msg.startswith("sites.csv, line 2, column supersaturation_percent: Supersaturation threshold")
+        assert "100–300 %" in csv_msg and "\n" not in csv_msg
+        assert "supersaturation_percent" not in app_msg
+        if "e" not in text:  # the app's number entry refuses a power of ten before any range
+            assert "from 100 to 300 %" in app_msg
+
+
+def test_site_csv_takes_the_unit_its_column_names(tmp_path):
+    from core.records.exchange import ExchangeError, read_sites_csv
+
+    path = tmp_path / "sites.csv"
+    path.write_text(
+        'site_id,name,elevation_m,min_do_mg_l,supersaturation_percent\nLK-09,Test,120 m,"5,5 mg/L",130 %\n',
+        encoding="utf-8",
+    )
+    site = read_sites_csv(path)[0]
+    assert (site.elevation_m, site.min_do_mg_l, site.supersaturation_percent) == (120.0, 5.5, 130.0)
+    path.write_text("site_id,name,elevation_m\nLK-09,Test,1200 ft\n", encoding="utf-8")
+    with pytest.raises(ExchangeError) as info:
+        read_sites_csv(path)
+    msg = str(info.value)
+    assert msg.startswith("sites.csv, line 2, column elevation_m: Elevation") and "within −430–6000 m" in msg, msg

@@ -1,7 +1,8 @@
 """Exchange: trip JSON in streamtab's documented layout, CSV exports, and site lists from CSV.
 
 The trip JSON layout is the JSON Schema in core/records/schema/trip.schema.json. CSV exports carry the
-unit in every numeric column's header (``water_temp_c``, ``station_pressure_hpa``...); every
+unit in every numeric column's header (``water_temp_c``, ``station_pressure_hpa``...), round numbers by
+the program's reporting rule unless asked for full precision (the ``rounding`` column says which); every
 exported table goes through `csv_table` (cells a spreadsheet would run as a formula neutralised,
 NUL refused).
 Imports are all or nothing: a bad row or field stops the import before anything is stored.
@@ -14,7 +15,7 @@ import io
 import json
 import re
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from pydantic import ValidationError
 
@@ -22,10 +23,14 @@ from core.records.limits import MAX_DOCUMENT_BYTES, LimitError, loads_limited
 from core.records.messages import label_for, problems_from_validation
 from core.records.models import InputError, Site, Trip, parse_number
 
+if TYPE_CHECKING:
+    from core.rules.report import Rounding
+
 __all__ = [
     "ExchangeError",
     "SITE_COLUMNS",
     "STOP_COLUMNS",
+    "COMPUTED_STOP_COLUMNS",
     "BOTTLE_COLUMNS",
     "import_sites_csv",
     "read_sites_csv",
@@ -58,7 +63,15 @@ SITE_COLUMNS = (
     "notes",
 )
 _SITE_REQUIRED = ("site_id", "name", "elevation_m")
-_SITE_NUMBERS = ("elevation_m", "latitude", "longitude", "min_do_mg_l", "supersaturation_percent")
+#: Number columns: column → (its limit in the one table of limits, core.records.models.LIMITS, which the
+#: Site record and the app read too; the units that may follow a number in that column).
+_SITE_NUMBERS: dict[str, tuple[str, tuple[str, ...]]] = {
+    "elevation_m": ("elevation", ("m",)),
+    "latitude": ("latitude", ("°",)),
+    "longitude": ("longitude", ("°",)),
+    "min_do_mg_l": ("criterion", ("mg/L",)),
+    "supersaturation_percent": ("supersaturation", ("%",)),
+}
 _SITE_LABELS = {"site_id": "Site code"}
 
 
@@ -109,8 +122,9 @@ def read_sites_csv(path: Path | str) -> list[Site]:
                             f"{name}, line {line}, column {col}: {label_for(col)} is required (metres above sea level)."
                         )
                     continue
+                limit, units = _SITE_NUMBERS[col]
                 try:
-                    doc[col] = parse_number(raw, col)
+                    doc[col] = parse_number(raw, col, limit=limit, units=units)
                 except InputError as exc:
                     raise ExchangeError(f"{name}, line {line}, column {col}: {exc.message}") from None
             elif col == "site_id":
@@ -210,6 +224,19 @@ def export_trip_json(store: Any, trip_id: str) -> bytes:
     return (json.dumps(doc, indent=2, sort_keys=True, ensure_ascii=False, allow_nan=False) + "\n").encode("utf-8")
 
 
+#: The stop columns the store computes (never typed; a conflict over one is settled by the inputs).
+COMPUTED_STOP_COLUMNS = (
+    "do_sat_mg_l",
+    "do_mg_l",
+    "do_percent_saturation",
+    "salinity_pss78",
+    "salinity_source",
+    "specific_conductance_us_cm",
+    "method",
+    "core_version",
+    "flags",
+)
+
 STOP_COLUMNS = (
     "trip_id",
     "stop_id",
@@ -226,18 +253,11 @@ STOP_COLUMNS = (
     "meter_do_value",
     "meter_do_unit",
     "meter_do_as_typed",
-    "do_sat_mg_l",
-    "do_mg_l",
-    "do_percent_saturation",
-    "salinity_pss78",
-    "salinity_source",
-    "specific_conductance_us_cm",
-    "method",
-    "core_version",
-    "flags",
+    *COMPUTED_STOP_COLUMNS,
     "weather",
     "flow",
     "notes",
+    "rounding",
 )
 BOTTLE_COLUMNS = (
     "trip_id",
@@ -262,11 +282,25 @@ def _time(value: Any) -> str:
     return "" if value is None else value.isoformat()
 
 
-def stop_rows(trip: Trip) -> list[dict[str, str]]:
-    """One row per stop (columns :data:`STOP_COLUMNS`), in route order."""
+def stop_rows(trip: Trip, rounding: Rounding | None = None) -> list[dict[str, str]]:
+    """One row per stop (columns :data:`STOP_COLUMNS`), in route order.
+
+    Numbers are rounded by the reporting rule (`core.rules.report.reported`) with `rounding` (a
+    `core.rules.report.Rounding`), or written at full precision as stored when it is None; the
+    ``rounding`` column says which. Columns ending in ``_as_typed`` keep what was typed."""
+    from core.rules.report import reported, rounding_note
+
+    def num(value: float | None, quantity: str) -> str:
+        if rounding is None or value is None:
+            return _num(value)
+        shown = reported(value, quantity, rounding)
+        return "" if shown is None else shown.text
+
+    note = rounding_note(rounding)
     rows = []
     for s in sorted(trip.stops, key=lambda s: s.arrived_at):
         d = s.derived
+        meter_quantity = "percent" if s.do is not None and s.do.unit == "%" else "do_mg_l"
         rows.append(
             {
                 "trip_id": trip.id,
@@ -274,48 +308,56 @@ def stop_rows(trip: Trip) -> list[dict[str, str]]:
                 "site_id": s.site_id,
                 "arrived_at": _time(s.arrived_at),
                 "closed_at": _time(s.closed_at),
-                "water_temp_c": _num(s.temp.value if s.temp else None),
+                "water_temp_c": num(s.temp.value if s.temp else None, "temp_c"),
                 "water_temp_as_typed": s.temp.text if s.temp else "",
-                "station_pressure_hpa": _num(s.pressure.value if s.pressure else None),
+                "station_pressure_hpa": num(s.pressure.value if s.pressure else None, "pressure_hpa"),
                 "station_pressure_as_typed": s.pressure.text if s.pressure else "",
-                "conductivity_us_cm": _num(s.conductivity.value if s.conductivity else None),
+                "conductivity_us_cm": num(s.conductivity.value if s.conductivity else None, "conductivity"),
                 "conductivity_is_sc25": "yes" if s.conductivity_is_sc25 else "no",
                 "conductivity_as_typed": s.conductivity.text if s.conductivity else "",
-                "meter_do_value": _num(s.do.value if s.do else None),
+                "meter_do_value": num(s.do.value if s.do else None, meter_quantity),
                 "meter_do_unit": s.do.unit if s.do else "",
                 "meter_do_as_typed": s.do.text if s.do else "",
-                "do_sat_mg_l": _num(d.do_sat_mg_l if d else None),
-                "do_mg_l": _num(d.do_mg_l if d else None),
-                "do_percent_saturation": _num(d.percent_saturation if d else None),
-                "salinity_pss78": _num(d.salinity if d else None),
+                "do_sat_mg_l": num(d.do_sat_mg_l if d else None, "do_mg_l"),
+                "do_mg_l": num(d.do_mg_l if d else None, "do_mg_l"),
+                "do_percent_saturation": num(d.percent_saturation if d else None, "percent"),
+                "salinity_pss78": num(d.salinity if d else None, "salinity"),
                 "salinity_source": d.salinity_source if d else "",
-                "specific_conductance_us_cm": _num(d.specific_conductance_us_cm if d else None),
+                "specific_conductance_us_cm": num(d.specific_conductance_us_cm if d else None, "conductivity"),
                 "method": d.method if d else "",
                 "core_version": d.core_version if d else "",
                 "flags": ";".join(f.code for f in d.flags) if d else "",
                 "weather": s.weather,
                 "flow": s.flow,
                 "notes": s.notes,
+                "rounding": note,
             }
         )
     return rows
 
 
-def _lab_cell(r: Any) -> str:
+def _lab_cell(r: Any, rounding: Rounding | None) -> str:
     """ "analyte=value unit"; a BOD5/CBOD5 result as its 5210 B report ("bod5=< 2.0 mg/L") when it has one."""
+    from core.rules.report import for_export, result_quantity
+
     derived = (r.inputs or {}).get("derived") if isinstance(r.inputs, dict) else None
     report = derived.get("report") if isinstance(derived, dict) else None
     if isinstance(report, dict) and isinstance(report.get("text"), str) and report["text"]:
         return f"{r.analyte}={report['text']}"
-    return f"{r.analyte}={'' if r.value is None else repr(r.value)} {r.unit}".strip()
+    quantity = result_quantity(r.analyte, r.unit)
+    value = r.value if quantity is None or r.value is None else for_export(r.value, quantity, rounding)
+    return (
+        f"{r.analyte}={'' if value is None else (repr(value) if isinstance(value, float) else value)} {r.unit}".strip()
+    )
 
 
-def bottle_rows(trip: Trip) -> list[dict[str, str]]:
-    """One row per bottle (columns :data:`BOTTLE_COLUMNS`); lab results as "analyte=value unit; ..."."""
+def bottle_rows(trip: Trip, rounding: Rounding | None = None) -> list[dict[str, str]]:
+    """One row per bottle (columns :data:`BOTTLE_COLUMNS`); lab results as "analyte=value unit; ...",
+    values rounded as in :func:`stop_rows`."""
     rows = []
     for s in sorted(trip.stops, key=lambda s: s.arrived_at):
         for b in s.bottles:
-            labs = "; ".join(_lab_cell(r) for r in b.lab_results)
+            labs = "; ".join(_lab_cell(r, rounding) for r in b.lab_results)
             rows.append(
                 {
                     "trip_id": trip.id,
@@ -369,10 +411,16 @@ def csv_table(columns: tuple[str, ...] | list[str], rows: list[dict[str, Any]], 
     return buf.getvalue()
 
 
-def export_trip_csv(store: Any, trip_id: str) -> dict[str, str]:
-    """CSV texts keyed by file name: ``stops.csv`` (one row per stop), ``bottles.csv`` (one per bottle)."""
+def export_trip_csv(store: Any, trip_id: str, *, full_precision: bool = False) -> dict[str, str]:
+    """CSV texts keyed by file name: ``stops.csv`` (one row per stop), ``bottles.csv`` (one per bottle).
+
+    Numbers are rounded as the program's settings say (`core.rules.report.rounding_for`); with
+    `full_precision` they are written as stored. Nothing stored is changed either way."""
+    from core.rules.report import rounding_for
+
     trip = store.load_trip(trip_id)
+    rounding = None if full_precision else rounding_for(store.settings())
     return {
-        "stops.csv": csv_table(STOP_COLUMNS, stop_rows(trip), name="stops.csv"),
-        "bottles.csv": csv_table(BOTTLE_COLUMNS, bottle_rows(trip), name="bottles.csv"),
+        "stops.csv": csv_table(STOP_COLUMNS, stop_rows(trip, rounding), name="stops.csv"),
+        "bottles.csv": csv_table(BOTTLE_COLUMNS, bottle_rows(trip, rounding), name="bottles.csv"),
     }

@@ -17,6 +17,7 @@ __all__ = [
     "problems_from_validation",
     "one_line",
     "when_text",
+    "offset_text",
 ]
 
 #: Field name → label a technician reads. Keys are the last element of a field path.
@@ -327,12 +328,19 @@ def when_text(when: datetime | str | None) -> str:
         except ValueError:
             return str(when)
     text = when.strftime("%Y-%m-%d %H:%M")
+    if when.utcoffset() is None:
+        return f"{text} (offset unknown)"
+    return f"{text} {offset_text(when)}"
+
+
+def offset_text(when: datetime) -> str:
+    """The UTC offset of an aware time as people write it: ``UTC``, ``UTC−07:00``, ``UTC+05:30``."""
     offset = when.utcoffset()
     if offset is None:
-        return f"{text} (offset unknown)"
+        return "offset unknown"
     minutes = int(offset.total_seconds() // 60)
     if minutes == 0:
-        return f"{text} UTC"
+        return "UTC"
     sign = "+" if minutes > 0 else "−"
     h, m = divmod(abs(minutes), 60)
-    return f"{text} UTC{sign}{h:02d}:{m:02d}"
+    return f"UTC{sign}{h:02d}:{m:02d}"

@@ -11,7 +11,16 @@ from functools import cache
 from pathlib import Path
 from typing import Any, Literal
 
-from pydantic import AwareDatetime, BaseModel, ConfigDict, Field, field_validator, model_serializer, model_validator
+from pydantic import (
+    AwareDatetime,
+    BaseModel,
+    ConfigDict,
+    Field,
+    ValidationInfo,
+    field_validator,
+    model_serializer,
+    model_validator,
+)
 from pydantic_core import PydanticCustomError
 
 from core.science import quantities as _quantities
@@ -97,19 +106,22 @@ def _input_error(exc: _quantities.QuantityError, field: str) -> InputError:
     return InputError(exc.code, field, exc.message)
 
 
-def parse_number(text: str, field: str = "value", *, limit: str | None = None) -> float:
+def parse_number(text: str, field: str = "value", *, limit: str | None = None, units: tuple[str, ...] = ()) -> float:
     """Reads a number a person typed: "3.5" and "3,5" give 3.5; never reads "3,5" as 35.
 
     Refuses NaN, infinity, yes/no values, thousands separators and an ambiguous "1,234"
     (a decimal comma or a thousands comma?) with an :class:`InputError` naming the field; with
-    `limit` (a key of :data:`LIMITS`), also a value outside that limit.
+    `limit` (a key of :data:`LIMITS`), also a value outside that limit. `units` may follow the
+    number ("120 %" in a column of percentages); any other unit is refused.
     """
     from core.records.messages import label_for
 
+    label = label_for(field)
+    how = f"a number within {_quantities.range_text(limit)}" if limit is not None else ""
     try:
-        value = _quantities.read_number(text, label_for(field))
+        value = _quantities.read_number(text, label, units=units, accepted=how)
         if limit is not None:
-            _quantities.check_limit(limit, value, label_for(field))
+            _quantities.check_limit(limit, value, label)
         return value
     except _quantities.QuantityError as exc:
         raise _input_error(exc, field) from None
@@ -255,6 +267,45 @@ def _check_range(value: float | None, kind: str) -> float | None:
     return value
 
 
+#: The units a stored Quantity of each kind may carry (the normalised units).
+_QUANTITY_UNITS: dict[str, tuple[str, ...]] = {
+    "temp": ("°C",),
+    "pressure": ("hPa",),
+    "conductivity": ("µS/cm",),
+    "do": ("mg/L", "%"),
+}
+
+
+def _ranged(**fields: str) -> Any:
+    """One validator for a model's plain numbers: field name → its kind in the table of limits."""
+
+    def check(cls: type, v: float | None, info: ValidationInfo) -> float | None:
+        return _check_range(v, fields[str(info.field_name)])
+
+    return field_validator(*fields)(classmethod(check))
+
+
+def _measured(*names: str) -> Any:
+    """One validator for a model's quantities; each field is named after its kind (temp, pressure, ...)."""
+
+    def check(cls: type, v: Quantity | None, info: ValidationInfo) -> Quantity | None:
+        kind = str(info.field_name)
+        return _check_quantity(v, kind, _QUANTITY_UNITS[kind])
+
+    return field_validator(*names)(classmethod(check))
+
+
+def _not_blank(*names: str) -> Any:
+    """One validator for text fields that must say something (kept stripped)."""
+
+    def check(cls: type, v: str) -> str:
+        if not v.strip():
+            raise PydanticCustomError("text.blank", "blank")
+        return v.strip()
+
+    return field_validator(*names)(classmethod(check))
+
+
 class Site(_Record):
     """A sampling site: code, name, elevation (m), optional coordinates, water class and criteria."""
 
@@ -273,30 +324,13 @@ class Site(_Record):
     #: When the site's entry last changed (set by the store); sync keeps the newest entry per id.
     updated_at: AwareDatetime | None = None
 
-    @field_validator("elevation_m")
-    @classmethod
-    def _elev(cls, v: float | None) -> float | None:
-        return _check_range(v, "elevation")
-
-    @field_validator("latitude")
-    @classmethod
-    def _lat(cls, v: float | None) -> float | None:
-        return _check_range(v, "latitude")
-
-    @field_validator("longitude")
-    @classmethod
-    def _lon(cls, v: float | None) -> float | None:
-        return _check_range(v, "longitude")
-
-    @field_validator("min_do_mg_l")
-    @classmethod
-    def _crit(cls, v: float | None) -> float | None:
-        return _check_range(v, "criterion")
-
-    @field_validator("supersaturation_percent")
-    @classmethod
-    def _ss(cls, v: float | None) -> float | None:
-        return _check_range(v, "supersaturation")
+    _ranges = _ranged(
+        elevation_m="elevation",
+        latitude="latitude",
+        longitude="longitude",
+        min_do_mg_l="criterion",
+        supersaturation_percent="supersaturation",
+    )
 
 
 class Calibration(_Record):
@@ -319,25 +353,8 @@ class Calibration(_Record):
     core_version: str | None = Field(None, json_schema_extra=_role(DERIVED))
     flags: list[FlagRecord] = Field(default_factory=list, json_schema_extra=_role(DERIVED))
 
-    @field_validator("temp")
-    @classmethod
-    def _t(cls, v: Quantity | None) -> Quantity | None:
-        return _check_quantity(v, "temp", ("°C",))
-
-    @field_validator("pressure")
-    @classmethod
-    def _p(cls, v: Quantity | None) -> Quantity | None:
-        return _check_quantity(v, "pressure", ("hPa",))
-
-    @field_validator("reading_mg_l")
-    @classmethod
-    def _r(cls, v: float | None) -> float | None:
-        return _check_range(v, "calibration_reading")
-
-    @field_validator("tolerance_mg_l")
-    @classmethod
-    def _tol(cls, v: float | None) -> float | None:
-        return _check_range(v, "tolerance")
+    _quantities = _measured("temp", "pressure")
+    _ranges = _ranged(reading_mg_l="calibration_reading", tolerance_mg_l="tolerance")
 
 
 def analyte_key(analyte: str) -> str:
@@ -415,12 +432,7 @@ class Bottle(_Record):
     #: For a field duplicate: the label of the bottle it duplicates (same analysis, same stop).
     duplicate_of: str | None = Field(default=None, max_length=40)
 
-    @field_validator("label")
-    @classmethod
-    def _label(cls, v: str) -> str:
-        if not v.strip():
-            raise PydanticCustomError("text.blank", "blank")
-        return v.strip()
+    _texts = _not_blank("label")
 
 
 class SiteSnapshot(_Record):
@@ -438,10 +450,7 @@ class SiteSnapshot(_Record):
     #: The supersaturation threshold that applied (%).
     supersaturation_percent: float | None = None
 
-    @field_validator("elevation_m")
-    @classmethod
-    def _elev(cls, v: float | None) -> float | None:
-        return _check_range(v, "elevation")
+    _ranges = _ranged(elevation_m="elevation")
 
 
 class Stop(_Record):
@@ -466,25 +475,7 @@ class Stop(_Record):
     #: which keeps the stored one when a writer leaves it out (so it merges like derived values).
     site_snapshot: SiteSnapshot | None = Field(None, json_schema_extra=_role(DERIVED))
 
-    @field_validator("temp")
-    @classmethod
-    def _t(cls, v: Quantity | None) -> Quantity | None:
-        return _check_quantity(v, "temp", ("°C",))
-
-    @field_validator("pressure")
-    @classmethod
-    def _p(cls, v: Quantity | None) -> Quantity | None:
-        return _check_quantity(v, "pressure", ("hPa",))
-
-    @field_validator("conductivity")
-    @classmethod
-    def _c(cls, v: Quantity | None) -> Quantity | None:
-        return _check_quantity(v, "conductivity", ("µS/cm",))
-
-    @field_validator("do")
-    @classmethod
-    def _do(cls, v: Quantity | None) -> Quantity | None:
-        return _check_quantity(v, "do", ("mg/L", "%"))
+    _quantities = _measured("temp", "pressure", "conductivity", "do")
 
 
 class AuditChange(_Record):
@@ -612,10 +603,10 @@ class ProgramSettings(_Record):
     #: (Standard Methods 2510 B; natural waters 0.0175–0.0198, Hayashi 2004), or the ISO 7888 table.
     conductivity_compensation: Literal["linear", "iso7888"] = "linear"
     conductivity_alpha_per_c: float = Field(0.0191, ge=ALPHA_RANGE_PER_C[0], le=ALPHA_RANGE_PER_C[1])
-    #: How many decimals reports show, by quantity (core.rules.report.Rounding: do_mg_l, percent, temp_c,
-    #: pressure_hpa, conductivity_sig, bod_mg_l); missing keys keep the defaults (DO 0.1 mg/L, % whole,
-    #: 0.1 °C, 0.1 hPa, specific conductance 3 significant figures; common practice). Reports only:
-    #: stored values are never rounded.
+    #: How many decimals reports and exports show, by quantity (core.rules.report.Rounding: do_mg_l, percent,
+    #: temp_c, pressure_hpa, conductivity_sig, salinity, bod_mg_l, calibration_mg_l); missing keys keep the
+    #: defaults (DO 0.1 mg/L, % whole, 0.1 °C, 0.1 hPa, specific conductance 3 significant figures; common
+    #: practice). Stored values are never rounded; exports can be asked for full precision.
     reporting_decimals: dict[str, int] = Field(default_factory=dict)
     #: Calibration logs of the program's DO meters, matched to a trip by its meter ID (the serial).
     instruments: list[InstrumentLog] = Field(default_factory=list)
@@ -732,17 +723,8 @@ class CustodyRecord(_Record):
     relinquished_signature: Signature | None = None
     received_signature: Signature | None = None
 
-    @field_validator("relinquished_by", "received_by")
-    @classmethod
-    def _name(cls, v: str) -> str:
-        if not v.strip():
-            raise PydanticCustomError("text.blank", "blank")
-        return v.strip()
-
-    @field_validator("temp")
-    @classmethod
-    def _t(cls, v: Quantity | None) -> Quantity | None:
-        return _check_quantity(v, "temp", ("°C",))
+    _texts = _not_blank("relinquished_by", "received_by")
+    _quantities = _measured("temp")
 
     @property
     def signed(self) -> bool:
@@ -1008,10 +990,10 @@ def schema_text() -> str:
 
 def write_trip_schema(path: Path | None = None) -> Path:
     """Regenerates core/records/schema/trip.schema.json (run ``python -m core.records.models``)."""
-    from core.store.atomic import atomic_write_bytes
+    from core.store.atomic import write_export
 
     path = path or SCHEMA_PATH
-    atomic_write_bytes(path, schema_text().encode("utf-8"))
+    write_export(path, schema_text().encode("utf-8"))
     return path
 
 

@@ -51,6 +51,28 @@ def _cell(text: str) -> str:
     return text[1:] if text.startswith("'") and text[1:2] in ("=", "+", "-", "@") else text
 
 
+def _check_row(row: dict[str, float], name: str, line: int, *, control: bool = False) -> None:
+    """A row's values inside the science's ranges (core.science.bod) and its volumes fitting the
+    bottle, or a SheetError naming the line (and the column); whether the row counts (depletion,
+    residual) is the bench's finding, judged later."""
+    from core.science._validate import InputValueError
+    from core.science.bod import bod_dilution, seed_uptake_per_ml
+
+    try:
+        if control:
+            seed_uptake_per_ml([row])
+        else:
+            # the seed's uptake comes from the sheet's seed controls later; any value checks the row
+            bod_dilution(**row, seed_uptake_mg_l_per_ml=1.0 if row.get("seed_ml") else 0.0)
+    except InputValueError as exc:
+        raise SheetError(
+            f"{name}, line {line}, column {exc.field}: {exc.shown} {exc.why}; accepted: {exc.accepted}"
+        ) from None
+    except ValueError as exc:
+        if not control:  # the volumes do not fit the bottle
+            raise SheetError(f"{name}, line {line}: {exc}") from None
+
+
 def read_bench_sheet(
     text: str, *, bottle: str | None = None, name: str = "the sheet", need_dilutions: bool = True
 ) -> BenchSheet:
@@ -112,9 +134,13 @@ def read_bench_sheet(
             seed = nums.get("seed_ml", nums.get("sample_ml"))
             if seed is None:
                 raise SheetError(f"{name}, line {line}, column seed_ml is empty; accepted: the seed volume in mL")
-            controls.append(
-                {"initial_do_mg_l": nums["initial_do_mg_l"], "final_do_mg_l": nums["final_do_mg_l"], "seed_ml": seed}
-            )
+            control = {
+                "initial_do_mg_l": nums["initial_do_mg_l"],
+                "final_do_mg_l": nums["final_do_mg_l"],
+                "seed_ml": seed,
+            }
+            _check_row(control, name, line, control=True)
+            controls.append(control)
             continue
         if label and label not in labels:
             labels.append(label)
@@ -128,6 +154,7 @@ def read_bench_sheet(
         }
         if nums.get("seed_ml"):
             d["seed_ml"] = nums["seed_ml"]
+        _check_row(d, name, line)
         dilutions.append(d)
     if not dilutions and need_dilutions:
         which = f" for bottle {bottle}" if bottle else ""

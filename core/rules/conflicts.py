@@ -19,6 +19,7 @@ from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from typing import Any
 
+from core.records.exchange import COMPUTED_STOP_COLUMNS
 from core.records.messages import label_for
 from core.records.models import InputError, Trip, measure, parse_number
 
@@ -59,17 +60,7 @@ CORRECTABLE: dict[str, tuple[str, str, str]] = {
     "flow": ("flow", "text", ""),
     "notes": ("notes", "text", ""),
 }
-_COMPUTED = (
-    "do_sat_mg_l",
-    "do_mg_l",
-    "do_percent_saturation",
-    "salinity_pss78",
-    "salinity_source",
-    "specific_conductance_us_cm",
-    "method",
-    "core_version",
-    "flags",
-)
+_COMPUTED = frozenset(COMPUTED_STOP_COLUMNS)
 #: Units of plain-number fields, by the end of their name.
 _UNIT_SUFFIX = (
     ("_mg_l", "mg/L"),
@@ -449,7 +440,10 @@ def settle_document(
             side = sides[keep - 1]
             chosen = None if side.get("removed") else side.get("value")
         else:
-            chosen = _parse(key, str(value), holder.get(key))
+            try:
+                chosen = _parse(key, str(value), holder.get(key))
+            except ConflictError as exc:
+                raise ConflictError(f"--value: {exc}") from None
         holder[key] = chosen
     conflict["resolved_at"] = at.isoformat()
     conflict["resolved_by"] = str(by).strip()[:80]
@@ -496,18 +490,21 @@ def correct(
         )
     target = stops[stop - 1]
     old = target.get(key)
-    if kind in ("temp", "pressure", "conductivity", "do"):
-        default = "%" if kind == "do" and isinstance(old, dict) and old.get("unit") == "%" else unit
-        try:
-            new: Any = _measure(kind, value, default, key)
-        except InputError as exc:
-            raise ConflictError(exc.message) from None
-    elif kind == "yes/no":
-        new = _parse("conductivity_is_sc25", value, bool(old))
-    elif kind == "time":
-        new = _parse_time(value, label_for(key))
-    else:
-        new = str(value)
+    try:  # a refused value names the option and the column the person typed
+        if kind in ("temp", "pressure", "conductivity", "do"):
+            default = "%" if kind == "do" and isinstance(old, dict) and old.get("unit") == "%" else unit
+            try:
+                new: Any = _measure(kind, value, default, key)
+            except InputError as exc:
+                raise ConflictError(exc.message) from None
+        elif kind == "yes/no":
+            new = _parse("conductivity_is_sc25", value, bool(old))
+        elif kind == "time":
+            new = _parse_time(value, label_for(key))
+        else:
+            new = str(value)
+    except ConflictError as exc:
+        raise ConflictError(f"--value for --field {col}: {exc}") from None
     target[key] = new
     if at is not None and by and reason:
         _on_approved(before, doc, by=by, at=at, reason=reason)

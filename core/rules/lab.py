@@ -402,6 +402,24 @@ def _meter_do(stop: Stop) -> tuple[float | None, str]:
     return None, f"meter reading {stop.do.value:g} % could not be converted (no saturation at this stop)"
 
 
+def stop_do_mg_l(stop: Stop) -> float | None:
+    """The stop's DO in mg/L for tables and plots: the derived value, else a meter reading typed in mg/L."""
+    d = stop.derived
+    if d is not None and d.do_mg_l is not None:
+        return d.do_mg_l
+    return stop.do.value if stop.do is not None and stop.do.unit == "mg/L" else None
+
+
+def live_winkler_values(stop: Stop) -> list[float]:
+    """The stop's Winkler DO values (mg/L) that stand: each bottle's current result, not marked invalid."""
+    return [
+        r.value
+        for b in stop.bottles
+        for r in [current_result(b, WINKLER_ANALYTE)]
+        if r is not None and r.value is not None and r.valid is not False
+    ]
+
+
 # --------------------------------------------------------------------------------------------
 # Winkler
 # --------------------------------------------------------------------------------------------

@@ -27,6 +27,8 @@ from core.records.models import Bottle, LabResult, ProgramSettings, Site, Stop, 
 
 __all__ = [
     "Rounding",
+    "Reported",
+    "ROUNDED_QUANTITIES",
     "ResultRow",
     "StopRow",
     "BottleRow",
@@ -36,6 +38,10 @@ __all__ = [
     "WADING_CAUTION",
     "DECIDES",
     "rounding_for",
+    "for_export",
+    "reported",
+    "rounding_note",
+    "result_quantity",
     "result_rows",
     "stop_rows",
     "bottle_rows",
@@ -64,8 +70,12 @@ class Rounding:
     """How many decimals values are shown with (never applied to stored values).
 
     Defaults: DO 0.1 mg/L shown (0.01 stored), % saturation whole, temperature 0.1 °C, pressure
-    0.1 hPa, specific conductance 3 significant figures [common practice]. A program sets its own
-    in its settings as ``reporting_decimals`` ({"do_mg_l": 2, ...}).
+    0.1 hPa, specific conductance 3 significant figures, practical salinity 0.01, BOD5 0.1 mg/L,
+    calibration readings, targets and differences 0.01 mg/L (they are judged against a 0.2 mg/L
+    tolerance, so 0.1 would hide the verdict) [common practice]. A program sets its own in its
+    settings as ``reporting_decimals`` ({"do_mg_l": 2, ...}). The printed report and the exports
+    people read (trip CSV, season tables) all round through :func:`reported`; an export asked for
+    full precision writes stored values.
     """
 
     do_mg_l: int = 1
@@ -73,7 +83,23 @@ class Rounding:
     temp_c: int = 1
     pressure_hpa: int = 1
     conductivity_sig: int = 3
+    salinity: int = 2
     bod_mg_l: int = 1
+    calibration_mg_l: int = 2
+
+
+#: What :func:`reported` rounds: each name is a quantity; "conductivity" goes by significant figures
+#: (conductivity and specific conductance alike), the rest by decimals (the `Rounding` field of that name).
+ROUNDED_QUANTITIES = (
+    "do_mg_l",
+    "percent",
+    "temp_c",
+    "pressure_hpa",
+    "conductivity",
+    "salinity",
+    "bod_mg_l",
+    "calibration_mg_l",
+)
 
 
 def rounding_for(settings: ProgramSettings | None) -> Rounding:
@@ -87,6 +113,80 @@ def rounding_for(settings: ProgramSettings | None) -> Rounding:
     return Rounding(**known)
 
 
+@dataclass(frozen=True)
+class Reported:
+    """A stored value rounded for a reader: the rounded number (an int when no decimal is shown), its text
+    with the zeros the convention keeps ("9.40" at two decimals) and the decimals shown (negative: tens,
+    hundreds). A CSV writes the text; a workbook writes the number with that many decimals on show."""
+
+    number: float | int
+    text: str
+    decimals: int
+
+    def __str__(self) -> str:
+        return self.text
+
+
+def _places(value: float, quantity: str, rounding: Rounding) -> int:
+    if quantity == "conductivity":
+        if value == 0:
+            return 0
+        return rounding.conductivity_sig - 1 - math.floor(math.log10(abs(value)))
+    if quantity not in ROUNDED_QUANTITIES:
+        raise ValueError(f"no reporting rule for {quantity!r}; one of {', '.join(ROUNDED_QUANTITIES)}")
+    return int(getattr(rounding, quantity))
+
+
+def reported(value: float | None, quantity: str, rounding: Rounding) -> Reported | None:
+    """`value` rounded by the reporting rule for `quantity` (one of :data:`ROUNDED_QUANTITIES`); None stays None.
+
+    The one rounding rule of the printed report and the exports; stored values are never changed.
+    """
+    if value is None or not math.isfinite(value):
+        return None
+    places = _places(value, quantity, rounding)
+    number: float | int = round(value, places)
+    if places <= 0:
+        number = int(number)
+    elif number == 0:
+        number = 0.0  # never "-0.0"
+    return Reported(number, f"{number:.{max(0, places)}f}", places)
+
+
+def for_export(value: float | None, quantity: str, rounding: Rounding | None) -> Reported | float | None:
+    """An exported cell: `value` rounded by :func:`reported`, or as stored when `rounding` is None
+    (an export asked for full precision)."""
+    if rounding is None or value is None:
+        return value
+    return reported(value, quantity, rounding)
+
+
+def rounding_note(rounding: Rounding | None) -> str:
+    """The convention an export used, in words, for its ``rounding`` column."""
+    if rounding is None:
+        return "full precision as stored"
+
+    def step(d: int, unit: str) -> str:
+        return (f"{10**-d:.{d}f}" if d > 0 else "1") + (f" {unit}" if unit else "")
+
+    return (
+        f"reported: DO {step(rounding.do_mg_l, 'mg/L')}; saturation {step(rounding.percent, '%')};"
+        f" temperature {step(rounding.temp_c, '°C')}; pressure {step(rounding.pressure_hpa, 'hPa')};"
+        f" conductivity {rounding.conductivity_sig} significant figures; salinity {step(rounding.salinity, '')};"
+        f" BOD5 {step(rounding.bod_mg_l, 'mg/L')}; calibration {step(rounding.calibration_mg_l, 'mg/L')}"
+    )
+
+
+def result_quantity(analyte: str, unit: str) -> str | None:
+    """The reporting rule of a lab result: "bod_mg_l" for BOD5/CBOD5, "do_mg_l" for other mg/L results;
+    None (no rounding rule) for a result in another unit."""
+    from core.rules.lab import BOD_ANALYTE, CBOD_ANALYTE, analyte_key
+
+    if unit not in ("mg/L", "mg/l"):
+        return None
+    return "bod_mg_l" if analyte_key(analyte) in (BOD_ANALYTE, CBOD_ANALYTE) else "do_mg_l"
+
+
 def fmt_number(value: float | None, decimals: int) -> str:
     """A value rounded for a reader ("—" when missing)."""
     if value is None or not math.isfinite(value):
@@ -95,12 +195,8 @@ def fmt_number(value: float | None, decimals: int) -> str:
 
 
 def _sig(value: float | None, digits: int) -> str:
-    if value is None:
-        return "—"
-    if value == 0:
-        return "0"
-    places = digits - 1 - math.floor(math.log10(abs(value)))
-    return f"{round(value, places):.{max(0, places)}f}"
+    r = reported(value, "conductivity", Rounding(conductivity_sig=digits))
+    return "—" if r is None else r.text
 
 
 def criterion_mg_l(site: Site | None, settings: ProgramSettings) -> float | None:
@@ -213,12 +309,10 @@ def _reported(result: LabResult, rounding: Rounding) -> tuple[float | None, str,
         )
     if result.value is None:
         return None, "", "no value"
-    from core.rules.lab import BOD_ANALYTE, analyte_key
-
-    decimals = rounding.bod_mg_l if analyte_key(result.analyte) == BOD_ANALYTE else rounding.do_mg_l
-    if result.unit not in ("mg/L", "mg/l"):
-        decimals = 2
-    return result.value, "", f"{result.value:.{decimals}f} {result.unit}".strip()
+    quantity = result_quantity(result.analyte, result.unit)
+    shown = reported(result.value, quantity, rounding) if quantity else None
+    text = shown.text if shown is not None else f"{result.value:.2f}"
+    return result.value, "", f"{text} {result.unit}".strip()
 
 
 def _status(result: LabResult, holding: str) -> str:
@@ -308,6 +402,7 @@ def typed(q, decimals: int = 1) -> str:
 
 def stop_rows(trip: Trip, sites: dict[str, Site], settings: ProgramSettings, now: datetime) -> list[StopRow]:
     """The trip's stops in route order, as the field sheet prints them."""
+    from core.rules.lab import stop_do_mg_l
     from core.rules.qc import trip_flags
 
     rounding = rounding_for(settings)
@@ -316,11 +411,7 @@ def stop_rows(trip: Trip, sites: dict[str, Site], settings: ProgramSettings, now
     for s in sorted(trip.stops, key=lambda s: s.arrived_at):
         d = s.derived
         site = sites.get(s.site_id)
-        do_mg = (
-            d.do_mg_l
-            if d is not None and d.do_mg_l is not None
-            else (s.do.value if s.do is not None and s.do.unit == "mg/L" else None)
-        )
+        do_mg = stop_do_mg_l(s)
         shown = {
             "temp": "—" if s.temp is None else f"{s.temp.value:.{rounding.temp_c}f} °C",
             "pressure": "—" if s.pressure is None else f"{s.pressure.value:.{rounding.pressure_hpa}f} hPa",
@@ -423,22 +514,13 @@ class PlotPoint:
 
 
 def plot_points(trip: Trip, sites: dict[str, Site], settings: ProgramSettings) -> list[PlotPoint]:
-    from core.rules.lab import WINKLER_ANALYTE, current_result
+    from core.rules.lab import live_winkler_values, stop_do_mg_l
 
     out = []
     for s in sorted(trip.stops, key=lambda s: s.arrived_at):
         d = s.derived
-        do_mg = (
-            d.do_mg_l
-            if d is not None and d.do_mg_l is not None
-            else (s.do.value if s.do is not None and s.do.unit == "mg/L" else None)
-        )
-        wink = [
-            r.value
-            for b in s.bottles
-            for r in [current_result(b, WINKLER_ANALYTE)]
-            if r is not None and r.value is not None and r.valid is not False
-        ]
+        do_mg = stop_do_mg_l(s)
+        wink = live_winkler_values(s)
         out.append(
             PlotPoint(
                 s.site_id,

@@ -1,8 +1,12 @@
 """Season tables for the office: tidy rows (one observation per row, one variable per column) over many trips.
 
 Pure: trips, sites and settings in, tables out. Column names carry their unit (``water_temp_c``,
-``station_pressure_hpa``); values keep full precision (rounding is for printed reports only);
-times are ISO 8601 with their offset; a missing value is an empty cell. The writers
+``station_pressure_hpa``). Measured and derived values are rounded by the program's reporting rule
+(`core.rules.report.reported`: a `Reported` cell, written as its text in CSV and as a number in the
+workbook), or kept at full precision as stored when the export asks for it; each table with rounded
+values says which in its ``rounding`` column. Values typed (``*_as_typed``) and program settings
+(``criterion_mg_l``, ``tolerance_mg_l``) are never rounded; stored trips are never changed.
+Times are ISO 8601 with their offset; a missing value is an empty cell. The writers
 (`mobile.paper.season`) pass every cell through the one CSV cell guard,
 :func:`core.records.exchange.spreadsheet_safe`.
 """
@@ -53,6 +57,7 @@ TABLES: dict[str, tuple[str, ...]] = {
         "weather",
         "flow",
         "notes",
+        "rounding",
     ),
     "bottles": (
         "trip_id",
@@ -89,6 +94,7 @@ TABLES: dict[str, tuple[str, ...]] = {
         "method",
         "superseded_by",
         "flag_codes",
+        "rounding",
     ),
     "calibrations": (
         "trip_id",
@@ -106,6 +112,7 @@ TABLES: dict[str, tuple[str, ...]] = {
         "accepted",
         "method",
         "flag_codes",
+        "rounding",
     ),
     "custody": (
         "trip_id",
@@ -121,6 +128,7 @@ TABLES: dict[str, tuple[str, ...]] = {
         "relinquished_signed",
         "received_signed",
         "notes",
+        "rounding",
     ),
 }
 
@@ -164,11 +172,33 @@ def _stops(trip: Trip, flt: SeasonFilter) -> list[Stop]:
 
 
 def season_tables(
-    trips: Iterable[Trip], sites: dict[str, Site], settings: ProgramSettings, flt: SeasonFilter | None = None
+    trips: Iterable[Trip],
+    sites: dict[str, Site],
+    settings: ProgramSettings,
+    flt: SeasonFilter | None = None,
+    *,
+    full_precision: bool = False,
 ) -> dict[str, list[dict[str, Any]]]:
-    """The five tables (:data:`TABLES`) over `trips`, filtered by `flt`, rows in trip then route order."""
-    from core.rules.report import bottle_rows, criterion_mg_l, result_rows
+    """The five tables (:data:`TABLES`) over `trips`, filtered by `flt`, rows in trip then route order.
+
+    Values rounded as the program's settings say (`core.rules.report.rounding_for`), or as stored
+    with `full_precision`."""
+    from core.rules.report import (
+        bottle_rows,
+        criterion_mg_l,
+        for_export,
+        result_quantity,
+        result_rows,
+        rounding_for,
+        rounding_note,
+    )
     from core.rules.review import review_state
+
+    rounding = None if full_precision else rounding_for(settings)
+    note = rounding_note(rounding)
+
+    def num(value: float | None, quantity: str | None) -> Any:
+        return value if quantity is None else for_export(value, quantity, rounding)
 
     flt = flt or SeasonFilter()
     out: dict[str, list[dict[str, Any]]] = {name: [] for name in TABLES}
@@ -193,22 +223,22 @@ def season_tables(
                     "site_name": site.name if site else "",
                     "arrived_at": _t(s.arrived_at),
                     "closed_at": _t(s.closed_at),
-                    "water_temp_c": s.temp.value if s.temp else None,
+                    "water_temp_c": num(s.temp.value if s.temp else None, "temp_c"),
                     "water_temp_as_typed": s.temp.text if s.temp else "",
-                    "station_pressure_hpa": s.pressure.value if s.pressure else None,
+                    "station_pressure_hpa": num(s.pressure.value if s.pressure else None, "pressure_hpa"),
                     "station_pressure_as_typed": s.pressure.text if s.pressure else "",
-                    "conductivity_us_cm": s.conductivity.value if s.conductivity else None,
+                    "conductivity_us_cm": num(s.conductivity.value if s.conductivity else None, "conductivity"),
                     "conductivity_is_sc25": _yes(s.conductivity_is_sc25) if s.conductivity else "",
                     "conductivity_as_typed": s.conductivity.text if s.conductivity else "",
-                    "meter_do_mg_l": s.do.value if s.do and s.do.unit == "mg/L" else None,
-                    "meter_do_percent": s.do.value if s.do and s.do.unit == "%" else None,
+                    "meter_do_mg_l": num(s.do.value if s.do and s.do.unit == "mg/L" else None, "do_mg_l"),
+                    "meter_do_percent": num(s.do.value if s.do and s.do.unit == "%" else None, "percent"),
                     "meter_do_as_typed": s.do.text if s.do else "",
-                    "do_sat_mg_l": d.do_sat_mg_l if d else None,
-                    "do_mg_l": d.do_mg_l if d else None,
-                    "percent_saturation": d.percent_saturation if d else None,
-                    "salinity_pss78": d.salinity if d else None,
+                    "do_sat_mg_l": num(d.do_sat_mg_l if d else None, "do_mg_l"),
+                    "do_mg_l": num(d.do_mg_l if d else None, "do_mg_l"),
+                    "percent_saturation": num(d.percent_saturation if d else None, "percent"),
+                    "salinity_pss78": num(d.salinity if d else None, "salinity"),
                     "salinity_source": d.salinity_source if d else "",
-                    "specific_conductance_us_cm": d.specific_conductance_us_cm if d else None,
+                    "specific_conductance_us_cm": num(d.specific_conductance_us_cm if d else None, "conductivity"),
                     "criterion_mg_l": criterion_mg_l(site, settings),
                     "method": d.method if d else "",
                     "core_version": d.core_version if d else "",
@@ -216,6 +246,7 @@ def season_tables(
                     "weather": s.weather,
                     "flow": s.flow,
                     "notes": s.notes,
+                    "rounding": note,
                 }
             )
         for b in bottle_rows(trip, settings):
@@ -252,7 +283,7 @@ def season_tables(
                     "label": r.label,
                     "result_id": r.result_id,
                     "analyte": r.analyte,
-                    "value": r.value,
+                    "value": num(r.value, result_quantity(r.analyte, r.unit)),
                     "qualifier": r.qualifier,
                     "unit": r.unit,
                     "reported": r.reported,
@@ -263,6 +294,7 @@ def season_tables(
                     "method": r.method,
                     "superseded_by": r.superseded_by or "",
                     "flag_codes": ";".join(r.flag_codes),
+                    "rounding": note,
                 }
             )
         for cal in (trip.pre_calibration, trip.post_check):
@@ -274,19 +306,20 @@ def season_tables(
                     "calibration_id": cal.id,
                     "kind": cal.kind,
                     "at": _t(cal.at),
-                    "temp_c": cal.temp.value,
+                    "temp_c": num(cal.temp.value, "temp_c"),
                     "temp_as_typed": cal.temp.text,
-                    "pressure_hpa": cal.pressure.value,
+                    "pressure_hpa": num(cal.pressure.value, "pressure_hpa"),
                     "pressure_as_typed": cal.pressure.text,
-                    "reading_mg_l": cal.reading_mg_l,
-                    "target_mg_l": cal.target_mg_l,
-                    "difference_mg_l": cal.difference_mg_l,
+                    "reading_mg_l": num(cal.reading_mg_l, "calibration_mg_l"),
+                    "target_mg_l": num(cal.target_mg_l, "calibration_mg_l"),
+                    "difference_mg_l": num(cal.difference_mg_l, "calibration_mg_l"),
                     "tolerance_mg_l": cal.tolerance_mg_l
                     if cal.tolerance_mg_l is not None
                     else settings.calibration_tolerance_mg_l,
                     "accepted": _yes(cal.accepted),
                     "method": cal.method or "",
                     "flag_codes": ";".join(f.code for f in cal.flags),
+                    "rounding": note,
                 }
             )
         labels = {b.id: b.label for s in stops for b in s.bottles}
@@ -303,12 +336,13 @@ def season_tables(
                     "received_by": h.received_by,
                     "at_lab": _yes(h.at_lab),
                     "bottle_labels": ";".join(covered),
-                    "temp_on_receipt_c": h.temp.value if h.temp else None,
+                    "temp_on_receipt_c": num(h.temp.value if h.temp else None, "temp_c"),
                     "temp_as_typed": h.temp.text if h.temp else "",
                     "condition": h.condition,
                     "relinquished_signed": _yes(h.relinquished_signature is not None),
                     "received_signed": _yes(h.received_signature is not None),
                     "notes": h.notes,
+                    "rounding": note,
                 }
             )
     return out
@@ -316,7 +350,7 @@ def season_tables(
 
 def site_series(trips: Iterable[Trip], site_id: str, flt: SeasonFilter | None = None) -> list[dict[str, Any]]:
     """Every visit to one site over the season: time, DO (mg/L), % saturation, live Winkler values."""
-    from core.rules.lab import WINKLER_ANALYTE, current_result
+    from core.rules.lab import live_winkler_values, stop_do_mg_l
 
     flt = flt or SeasonFilter()
     rows: list[dict[str, Any]] = []
@@ -327,17 +361,8 @@ def site_series(trips: Iterable[Trip], site_id: str, flt: SeasonFilter | None = 
             if s.site_id.upper() != site_id.upper():
                 continue
             d = s.derived
-            do_mg = (
-                d.do_mg_l
-                if d is not None and d.do_mg_l is not None
-                else (s.do.value if s.do is not None and s.do.unit == "mg/L" else None)
-            )
-            wink = [
-                r.value
-                for b in s.bottles
-                for r in [current_result(b, WINKLER_ANALYTE)]
-                if r is not None and r.value is not None and r.valid is not False
-            ]
+            do_mg = stop_do_mg_l(s)
+            wink = live_winkler_values(s)
             rows.append(
                 {
                     "at": s.arrived_at,

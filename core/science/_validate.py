@@ -7,7 +7,7 @@ import re
 
 import numpy as np
 
-__all__ = ["real", "choice", "is_plain_scalar", "range_text", "ambiguous_comma", "decimal"]
+__all__ = ["InputValueError", "real", "choice", "is_plain_scalar", "range_text", "ambiguous_comma", "decimal"]
 
 
 def range_text(lo: float | None, hi: float | None, unit: str, lo_open: bool = False, hi_open: bool = False) -> str:
@@ -24,8 +24,25 @@ def range_text(lo: float | None, hi: float | None, unit: str, lo_open: bool = Fa
     return f"any finite number{u}"
 
 
-def _bad(name: str, shown: object, why: str, accepted: str) -> ValueError:
-    return ValueError(f"{name} = {shown} {why}; accepted: {accepted}")
+class InputValueError(ValueError):
+    """A science input outside its domain. The message reads ``"<name> = <shown> <why>; accepted:
+    <accepted>"``; the parts are kept so a shell can name the input as the person typed it."""
+
+    def __init__(self, name: str, shown: object, why: str, accepted: str):
+        super().__init__(f"{name} = {shown} {why}; accepted: {accepted}")
+        self.name = name
+        self.shown = str(shown)
+        self.why = why
+        self.accepted = accepted
+
+    @property
+    def field(self) -> str:
+        """The input's own name without its place in a list (``controls[0].seed_ml`` → ``seed_ml``)."""
+        return self.name.rsplit(".", 1)[-1].split("]")[-1]
+
+
+def _bad(name: str, shown: object, why: str, accepted: str) -> InputValueError:
+    return InputValueError(name, shown, why, accepted)
 
 
 def _check_scalar(v: float, name: str, lo, hi, lo_open, hi_open, unit, note) -> float:

@@ -6,6 +6,7 @@ from dataclasses import dataclass
 
 from core.flags import Flag, Severity
 from core.science._validate import real
+from core.science.quantities import LIMITS
 
 __all__ = ["Criteria", "WATER_CLASSES", "LIFE_STAGES", "EPA_1986_MG_L", "SPOT_PERIOD", "do_criteria_flags"]
 
@@ -61,10 +62,12 @@ class Criteria:
     def __post_init__(self) -> None:
         if self.life_stage not in LIFE_STAGES:
             raise ValueError(f"life_stage = {self.life_stage!r} is not known; accepted: {', '.join(LIFE_STAGES)}")
-        real(self.warm_min_mg_l, "warm_min_mg_l", lo=0.0, hi=20.0, unit="mg/L")
-        real(self.cold_min_mg_l, "cold_min_mg_l", lo=0.0, hi=20.0, unit="mg/L")
-        real(self.supersaturation_percent, "supersaturation_percent", lo=100.0, hi=500.0, unit="%")
-        real(self.hypoxic_mg_l, "hypoxic_mg_l", lo=0.0, hi=20.0, unit="mg/L")
+        lo, hi, _ = LIMITS["criterion"]  # the one table of limits, shared with the records and the app
+        real(self.warm_min_mg_l, "warm_min_mg_l", lo=lo, hi=hi, unit="mg/L")
+        real(self.cold_min_mg_l, "cold_min_mg_l", lo=lo, hi=hi, unit="mg/L")
+        real(self.hypoxic_mg_l, "hypoxic_mg_l", lo=lo, hi=hi, unit="mg/L")
+        lo, hi, _ = LIMITS["supersaturation"]
+        real(self.supersaturation_percent, "supersaturation_percent", lo=lo, hi=hi, unit="%")
 
 
 def do_criteria_flags(do_mg_l, percent_sat, water_class: str | None, criteria: Criteria | None = None) -> list[Flag]:

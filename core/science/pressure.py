@@ -325,14 +325,21 @@ def flat_pressure_flag(readings) -> Flag | None:
     observed = low[2] - high[2]
     if observed >= FLAT_FRACTION * expected:
         return None
+    gap = (
+        f"the higher stop read {-observed:.1f} hPa more"
+        if observed < 0
+        else f"only {observed:.1f} hPa apart"
+        if observed > 0
+        else "the same pressure"
+    )
     return Flag(
         code="pressure.flat_across_elevations",
         severity=Severity.WARNING,
         message=(
             f"{low[0]} at {low[1]:.0f} m read {low[2]:.1f} hPa and {high[0]} at {high[1]:.0f} m read"
-            f" {high[2]:.1f} hPa: {observed:.1f} hPa apart, where the standard atmosphere falls about"
-            f" {expected:.0f} hPa over those {spread:.0f} m (about 0.12 hPa per metre). Readings that stay"
-            " flat across elevations look sea-level adjusted."
+            f" {high[2]:.1f} hPa: {gap}, where the standard atmosphere falls about {expected:.0f} hPa over"
+            f" those {spread:.0f} m (about 0.12 hPa per metre). Readings that stay flat, or rise, as the"
+            " route climbs look sea-level adjusted."
         ),
         action=(
             "Check where the pressures came from: use the barometer's station (absolute) reading, not a"

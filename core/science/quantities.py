@@ -58,7 +58,8 @@ LIMITS: dict[str, tuple[float, float, str]] = {
     "longitude": (-180.0, 180.0, "°"),
     "calibration_reading": (0.0, 25.0, "mg/L"),
     "criterion": (0.0, 20.0, "mg/L"),  # the range core.science.criteria accepts
-    "supersaturation": (100.0, 500.0, "%"),  # the range core.science.criteria accepts
+    # a threshold above the highest % saturation a meter reading may carry ("do_percent") could never fire
+    "supersaturation": (100.0, 300.0, "%"),
     "tolerance": (0.0, 5.0, "mg/L"),
 }
 
@@ -319,11 +320,12 @@ def split(text: str) -> tuple[str, str] | None:
 
 
 def _not_a_number(raw: str, label: str, how: str) -> QuantityError:
+    """`how` completes "…is not a number; " (e.g. "type a number with a unit, …" or "accepted: …")."""
     m = re.match(r"^[+-]?[\d.,]*", raw)
     head = m.group(0) if m else ""
     if "," in head and "." in head:
         return _mixed_marks(raw, label)
-    return QuantityError("number.invalid", label, f"{label}: {_q(raw)} is not a number; type {how}")
+    return QuantityError("number.invalid", label, f"{label}: {_q(raw)} is not a number; {how}")
 
 
 def _mixed_marks(raw: str, label: str) -> QuantityError:
@@ -454,7 +456,7 @@ def read(kind: str, text: object, label: str, *, default_unit: str | None = None
     raw = _text(text, label, how)
     parts = split(raw)
     if parts is None:
-        raise _not_a_number(raw, label, how)
+        raise _not_a_number(raw, label, f"type {how}")
     num, unit_typed = parts
     value = _number_value(num, label, raw)
     entered = unit_typed

@@ -8,7 +8,7 @@ import os
 from pathlib import Path
 from typing import Any
 
-__all__ = ["atomic_write_bytes", "canonical_json_bytes", "content_hash", "fsync_dir", "EXPORT_MODE"]
+__all__ = ["atomic_write_bytes", "canonical_json_bytes", "content_hash", "fsync_dir", "write_export", "EXPORT_MODE"]
 
 #: Permission bits (before the umask) of files written for people: exports, like any new file.
 EXPORT_MODE = 0o666
@@ -63,6 +63,13 @@ def atomic_write_bytes(path: Path | str, data: bytes, *, durable: bool = True, m
         raise
     if durable:
         fsync_dir(path.parent)
+
+
+def write_export(path: Path | str, data: bytes) -> None:
+    """Writes a file for people (an export, a report or bench sheet PDF, a plot, the season tables):
+    atomically like every store file, with ``EXPORT_MODE`` so it gets the permissions the person's
+    umask gives any new file. The one way the shells write such a file."""
+    atomic_write_bytes(path, data, mode=EXPORT_MODE)
 
 
 def canonical_json_bytes(doc: Any) -> bytes:

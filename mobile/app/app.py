@@ -76,7 +76,8 @@ def build_app(
             from core.science.pressure import PRESSURE_UNITS
 
             self.pressure_units = list(PRESSURE_UNITS)  # the unit pickers of every screen
-            self.cond_units = list(CONDUCTIVITY_UNITS)
+            # "uS/cm" is only the typed spelling of µS/cm: the pickers offer µS/cm once
+            self.cond_units = [u for u in CONDUCTIVITY_UNITS if u != "uS/cm"]
             self.first_drawn_s: float | None = None
             self.first_drawn_epoch: float | None = None
             self.save_trigger = Clock.create_trigger(self._save, 0.4)
@@ -185,10 +186,15 @@ def build_app(
             Clock.schedule_once(mark, 0)
 
         def save_snapshot(self, path: Path, stop: bool = False) -> Path:
+            from core.store.atomic import write_export
+
             path = Path(path).resolve()
             path.parent.mkdir(parents=True, exist_ok=True)
-            tmp = Window.screenshot(name=str(path.with_name(path.stem + "-tmp.png")))
-            os.replace(tmp, path)
+            tmp = Path(Window.screenshot(name=str(path.with_name(path.stem + "-tmp.png"))))
+            try:  # written for people like every export: atomic, with the umask's permissions
+                write_export(path, tmp.read_bytes())
+            finally:
+                tmp.unlink(missing_ok=True)
             if stop:
                 self.stop()
             return path

@@ -30,6 +30,7 @@ from mobile.app.views import (
     TripLine,
     error_line,
     flag_line,
+    fmt_deadline,
     fmt_duration,
     fmt_value,
     fmt_when,
@@ -180,6 +181,7 @@ class AppController:
             prefs.cold_min_mg_l = st.cold_min_mg_l
             prefs.supersaturation_percent = st.supersaturation_percent
             prefs.tolerance_mg_l = st.calibration_tolerance_mg_l
+            prefs.percent_basis = str(st.percent_basis)
         except Exception:  # noqa: BLE001 - unreadable settings: keep the defaults, the store reports it
             pass
         self.prefs = prefs
@@ -192,6 +194,7 @@ class AppController:
                 "supersaturation_percent": prefs.supersaturation_percent,
                 "calibration_tolerance_mg_l": prefs.tolerance_mg_l,
                 "method": prefs.method,
+                "percent_basis": prefs.percent_basis,
             }
         )
         self.store.save_settings(st)
@@ -219,14 +222,23 @@ class AppController:
 
         return redact_url(target)
 
-    def save_settings_form(self, units: dict[str, str], limits: dict[str, str], sync_target: str) -> str | None:
-        """Saves the settings screen (units, the program limits as typed, the hub); returns a refusal or None.
+    def save_settings_form(
+        self, units: dict[str, str], limits: dict[str, str], sync_target: str, percent_basis: str | None = None
+    ) -> str | None:
+        """Saves the settings screen (units, the program limits as typed, the meters' % basis, the hub);
+        returns a refusal or None.
 
-        `limits` maps each SETTING_FIELDS name to its text. Nothing is saved when one limit is refused.
+        `limits` maps each SETTING_FIELDS name to its text; `percent_basis` is "local" or "sea-level"
+        (None keeps the program's). Nothing is saved when one entry is refused.
         """
+        from core.science.oxygen import PERCENT_BASES
+
         problem = self.hub_problem(sync_target) if sync_target.strip() else None
         if problem:
             return problem
+        basis = self.prefs.percent_basis if percent_basis is None else percent_basis
+        if basis not in PERCENT_BASES:
+            return "Meter 100 % basis: choose local pressure or 760 mmHg."
         values: dict[str, float] = {}
         for name in SETTING_FIELDS:
             value, problem = setting_problem(name, limits.get(name, ""))
@@ -244,6 +256,7 @@ class AppController:
             supersaturation_percent=values["supersaturation_percent"],
             sync_target=sync_target.strip(),
             method=self.prefs.method,
+            percent_basis=basis,
         )
         try:
             self.save_prefs(prefs)
@@ -709,8 +722,7 @@ class AppController:
                             )
                         )
                     continue
-                dl = clock.deadline.astimezone()
-                deadline = dl.strftime("%H:%M") if dl.date() == now.astimezone().date() else dl.strftime("%a %H:%M")
+                deadline = fmt_deadline(clock.deadline, b.collected_at, now)
                 if clock.expired:
                     symbol, word = severity_mark("stop-and-check")
                     word = "EXPIRED"
@@ -958,15 +970,17 @@ class AppController:
                 self._base_form[snapshot.id] = snapshot
             except StaleTrip:
                 # changed by another writer (a sync merge, the office's settlement): only what was
-                # edited here since the form was last in step with the store goes on the stored trip
-                stored = self.store.load_trip(snapshot.id)
-                base = self._base_form.get(snapshot.id)
-                merged = (
-                    self.bridge.rebase_form(snapshot, base, self.bridge.form_from_trip(stored))
-                    if base is not None
-                    else snapshot
-                )
-                saved = self.store.save_trip(self.bridge.trip_from_form(merged, stored, self), change)
+                # edited here since the form was last in step with the store goes on the stored trip,
+                # read and written under the store's lock so no third writer can come between
+                with self.store.locked():
+                    stored = self.store.load_trip(snapshot.id)
+                    base = self._base_form.get(snapshot.id)
+                    merged = (
+                        self.bridge.rebase_form(snapshot, base, self.bridge.form_from_trip(stored))
+                        if base is not None
+                        else snapshot
+                    )
+                    saved = self.store.save_trip(self.bridge.trip_from_form(merged, stored, self), change)
                 self._base_form[snapshot.id] = merged
                 with self._rebase_lock:
                     self._rebased[snapshot.id] = (snapshot, merged)

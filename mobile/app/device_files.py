@@ -34,7 +34,7 @@ class AppPrefs:
 
     temp_unit: str = "C"
     pressure_unit: str = "hPa"
-    cond_unit: str = "uS/cm"
+    cond_unit: str = "µS/cm"
     do_unit: str = "mg/L"
     tolerance_mg_l: float = 0.2
     warm_min_mg_l: float = 5.0
@@ -42,6 +42,8 @@ class AppPrefs:
     supersaturation_percent: float = 120.0
     sync_target: str = ""
     method: str = "benson-krause"
+    #: What the program's meters mean by 100 %: "local" pressure or "sea-level" (760 mmHg); a program setting.
+    percent_basis: str = "local"
 
 
 def _read_json(path: Path) -> dict[str, Any]:
@@ -55,6 +57,8 @@ def _read_json(path: Path) -> dict[str, Any]:
 def read_local_prefs(data_dir: Path | str) -> AppPrefs:
     """The prefs this device keeps in its own file (defaults for anything missing or unreadable)."""
     d = _read_json(Path(data_dir) / APP_PREFS_FILE)
+    if d.get("cond_unit") == "uS/cm":  # the typed spelling of µS/cm, kept by earlier versions
+        d["cond_unit"] = "µS/cm"
     return AppPrefs(**{k: v for k, v in d.items() if k in AppPrefs.__dataclass_fields__})
 
 

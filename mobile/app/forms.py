@@ -73,7 +73,7 @@ class StopForm:
     pressure_text: str = ""
     pressure_unit: str = "hPa"
     cond_text: str = ""
-    cond_unit: str = "uS/cm"
+    cond_unit: str = "µS/cm"
     cond_is_sc25: bool = False  # False: measured at water temperature
     do_text: str = ""
     do_unit: str = "mg/L"  # "mg/L" | "%"

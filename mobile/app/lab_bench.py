@@ -3,6 +3,7 @@ typed, and signing hand-offs. The bench and signature screens forward to it; it 
 
 from __future__ import annotations
 
+import re
 from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import datetime, timezone
@@ -13,6 +14,29 @@ __all__ = ["LabBench", "WaitingRow", "DilutionLine", "utc_now"]
 
 def utc_now() -> datetime:
     return datetime.now(timezone.utc)
+
+
+#: The bench's inputs in the screen's words; a refusal from the lab rules ("analysed_at = ...") is shown with them.
+BENCH_WORDS = {
+    "analysed_at": "the time of analysis (this tablet's clock)",
+    "standardised_at": "the standardisation time",
+    "titrant_ml": "titrant used",
+    "titrated_ml": "volume titrated",
+    "bottle_ml": "bottle volume",
+    "reagents_ml": "fixing reagents",
+    "sample_ml": "sample volume",
+    "seed_ml": "seed volume",
+    "initial_do_mg_l": "initial DO",
+    "final_do_mg_l": "day-5 DO",
+}
+
+
+def in_words(message: str) -> str:
+    """A lab-rule refusal with every input named as the bench screen names it."""
+    for name, words in BENCH_WORDS.items():
+        message = re.sub(rf"(?<![\w-]){re.escape(name)}(?: = |(?!\w))", words + " ", message)
+    message = message.replace("  ", " ").replace(" ;", ";").replace(" )", ")").rstrip()
+    return message[:1].upper() + message[1:]
 
 
 @dataclass(frozen=True)
@@ -152,7 +176,7 @@ class LabBench:
         try:
             saved = self.store.update_trip(trip_id, lambda: change(said["out"]), apply)
         except LabInputError as exc:
-            raise ValueError(exc.message) from None
+            raise ValueError(in_words(exc.message)) from None
         except StoreError as exc:
             raise ValueError(f"Not saved: {exc}") from None
         self.after_write(saved.id)

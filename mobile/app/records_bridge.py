@@ -382,7 +382,7 @@ def form_from_trip(trip: Any) -> TripForm:
             elif name == "pressure" and unit in PRESSURE_UNITS:
                 f.pressure_unit = unit
             elif name == "conductivity" and unit in CONDUCTIVITY_UNITS:
-                f.cond_unit = unit
+                f.cond_unit = unit  # as typed: re-opening a trip never rewrites it
             elif name == "do" and unit:
                 f.do_unit = "%" if "%" in unit else "mg/L"
         f.bottles = [

@@ -6,6 +6,7 @@ from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from typing import Any
 
+from core.records.messages import offset_text
 from core.rules.report import WADING_CAUTION
 from core.science.winkler import SAFETY_NOTE
 from mobile.app.theme import severity_mark
@@ -23,6 +24,7 @@ __all__ = [
     "fmt_when",
     "parse_when",
     "fmt_duration",
+    "fmt_deadline",
     "local_now",
     "WADING_CAUTION",
     "REAGENT_CAUTION",
@@ -34,6 +36,17 @@ REAGENT_CAUTION = SAFETY_NOTE  # the one reagent caution (core.science.winkler)
 
 def local_now() -> datetime:
     return datetime.now(timezone.utc).astimezone()
+
+
+def fmt_deadline(deadline: datetime, clock_of: datetime, now: datetime) -> str:
+    """A holding deadline on the clock the bottle was collected by (`clock_of`'s UTC offset): "08:00"
+    on the same day as `now` there, "Thu 08:00" on another, with that clock's offset added when the
+    tablet's own differs (a tablet set to another zone must not move the deadline)."""
+    dl = deadline.astimezone(clock_of.tzinfo) if clock_of.tzinfo is not None else deadline.astimezone()
+    text = dl.strftime("%H:%M") if dl.date() == now.astimezone(dl.tzinfo).date() else dl.strftime("%a %H:%M")
+    if dl.utcoffset() != now.astimezone().utcoffset():
+        text += f" {offset_text(dl)}"
+    return text
 
 
 @dataclass

@@ -47,7 +47,9 @@ def fail(message: str) -> NoReturn:
 
 
 #: The commands that may create a device store where there is none (they say so when they do).
-CREATING_COMMANDS = "'streamtab sites import', 'trip import', 'sync pull' and 'app'"
+CREATING_COMMANDS = (
+    "'streamtab sites import', 'trip import', 'sync pull', 'archive load --from', 'device name' and 'app'"
+)
 
 
 def store_location(data_dir: str | None) -> str:
@@ -138,16 +140,27 @@ def parse_time(text: str | None, option: str) -> datetime | None:
     return t
 
 
+def read_text_file(path_text: str, option: str, accepted: str) -> str:
+    """The UTF-8 text of a file named by `option`, or a one-line error naming the option, what was
+    wrong (missing, a folder, not UTF-8, unreadable) and what is `accepted`."""
+    path = Path(path_text)
+    try:
+        return path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        fail(f"{option} {path_text!r} does not exist; accepted: {accepted}")
+    except IsADirectoryError:
+        fail(f"{option} {path_text!r} is a folder; accepted: {accepted}")
+    except UnicodeDecodeError as exc:
+        fail(f"{option} {path_text!r} is not UTF-8 text (byte {exc.start + 1}); accepted: {accepted}, saved as UTF-8")
+    except OSError as exc:
+        fail(f"{option} {path_text!r} cannot be read ({exc.strerror or exc}); accepted: {accepted}")
+
+
 def read_dilutions_file(path_text: str) -> tuple[list[Any], Any, bool]:
     """A --dilutions JSON file as (dilutions, seed_controls or None, nitrification_inhibitor), or a
     one-line error: a list of dilutions, or an object with "dilutions" (and "seed_controls",
     "nitrification_inhibitor"). An empty list and the entries themselves are checked by core."""
-    try:
-        raw = Path(path_text).read_text(encoding="utf-8")
-    except FileNotFoundError:
-        fail(f"--dilutions {path_text!r} does not exist; accepted: a JSON file of dilutions")
-    except (OSError, UnicodeDecodeError) as exc:
-        fail(f"--dilutions {path_text!r} cannot be read ({type(exc).__name__}); accepted: a readable UTF-8 JSON file")
+    raw = read_text_file(path_text, "--dilutions", "a JSON file of dilutions")
     try:
         doc = json.loads(raw)
     except json.JSONDecodeError as exc:

@@ -65,7 +65,7 @@ def _load(args: Any) -> int:
     import sync.archive as archive
     from mobile.cli.sync_cmds import _Bar
 
-    store = open_store(args.data_dir)
+    store = open_store(args.data_dir, create=bool(args.source))  # --from pulls: it may start the office store
     pulled = None
     if args.source:
         from sync.errors import FinalError, RetryableError
@@ -106,8 +106,13 @@ def _load(args: Any) -> int:
         if report.schema_from != report.schema_to
         else f"schema {report.schema_to}"
     )
+    checked = (
+        f"{report.unchanged} unchanged"
+        if report.checked == "all"
+        else "only trips saved since the last load were checked"
+    )
     sys.stdout.write(
-        f"archive {report.database}: {report.loaded} trip(s) loaded, {report.unchanged} unchanged, "
+        f"archive {report.database}: {report.loaded} trip(s) loaded ({checked}); "
         f"{report.sites_written} site(s) and {report.settings_written} setting(s) written; {schema}\n"
     )
     return EXIT_OK

@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import sys
 from datetime import datetime, timezone
+from typing import Any
 
+from core.records.messages import when_text
 from mobile.cli._common import CliError, emit_json, fail, open_store, parse_time, resolve_trip_id
 
 __all__ = ["register"]
@@ -32,14 +34,23 @@ def _store_and_trip(args):  # noqa: ANN001
 
 
 def _temp(text: str | None):
-    from core.records.models import InputError, measure
+    """--temp as typed, read by core's one grammar (a bare number is °C), or one line naming --temp."""
+    from core.records.models import Quantity
+    from core.science.quantities import QuantityError, read
 
     if text is None:
         return None
     try:
-        return measure("temp", text, default_unit="C", field="receipt_temp")
-    except InputError as exc:
-        raise CliError(f'--temp {text!r}: {exc.message} Accepted: a temperature such as "4.2 C".') from None
+        r = read("temp", text, "--temp", default_unit="C")
+    except QuantityError as exc:
+        raise CliError(exc.message) from None
+    return Quantity(text=r.text, entered_value=r.number, entered_unit=r.entered_unit, value=r.value, unit=r.unit)
+
+
+def _labels(out) -> list[str]:  # noqa: ANN001
+    """The labels of the bottles a hand-off covers, in trip order."""
+    covered = set(out.record.bottle_ids)
+    return [b.label for s in out.trip.stops for b in s.bottles if b.id in covered]
 
 
 def _add(args) -> int:  # noqa: ANN001
@@ -52,9 +63,12 @@ def _add(args) -> int:  # noqa: ANN001
     refs = [r for r in (args.bottles or "").split(",") if r.strip()] if args.bottles is not None else None
     if args.bottles is not None and not refs:
         fail("--bottles is empty; accepted: bottle labels separated by commas, e.g. TV-0611,TV-0612")
-    store, trip = _store_and_trip(args)
-    try:
-        out = add_handoff(
+    store = open_store(args.data_dir)
+    trip_id = resolve_trip_id(store, args.trip, "TRIP_ID")
+    box: dict[str, Any] = {}
+
+    def apply(trip):  # noqa: ANN001, ANN202 - runs under the store's lock, on the trip as stored now
+        box["out"] = add_handoff(
             trip,
             relinquished_by=args.from_name,
             received_by=args.to_name,
@@ -66,19 +80,25 @@ def _add(args) -> int:  # noqa: ANN001
             condition=args.condition or "",
             notes=args.notes or "",
         )
+        return box["out"].trip
+
+    def change() -> str:
+        out = box["out"]
+        return (
+            f"custody: {len(_labels(out))} bottle(s) from {out.record.relinquished_by} to {out.record.received_by}"
+            + (" (lab receipt)" if out.record.at_lab else "")
+            + ", typed, unsigned"
+        )
+
+    try:
+        saved = store.update_trip(trip_id, change, apply)
     except CustodyInputError as exc:
         option = _OPTIONS.get(exc.field, "")
         raise CliError(f"{option}: {exc.message}" if option else exc.message) from None
-    labels = [b.label for s in out.trip.stops for b in s.bottles if b.id in set(out.record.bottle_ids)]
-    change = (
-        f"custody: {len(labels)} bottle(s) from {out.record.relinquished_by} to {out.record.received_by}"
-        + (" (lab receipt)" if out.record.at_lab else "")
-        + ", typed, unsigned"
-    )
-    try:
-        saved = store.save_trip(out.trip, change)
     except StoreError as exc:
         fail(f"nothing was saved: {exc}")
+    out = box["out"]
+    labels = _labels(out)
     data = {
         "trip_id": saved.id,
         "revision": saved.revision,
@@ -93,7 +113,7 @@ def _add(args) -> int:  # noqa: ANN001
     sys.stdout.write(
         f"trip {saved.id[:8]} (revision {saved.revision}): {', '.join(labels)}\n"
         f"  {out.record.relinquished_by} → {out.record.received_by}"
-        f"{' (lab receipt)' if out.record.at_lab else ''} at {out.record.at.isoformat(timespec='minutes')}"
+        f"{' (lab receipt)' if out.record.at_lab else ''} at {when_text(out.record.at)}"
         " — typed names, unsigned\n"
     )
     for f in out.flags:
@@ -123,7 +143,7 @@ def _list(args) -> int:  # noqa: ANN001
         cond = f", {r.condition}" if r.condition else ""
         signed = "signed" if r.signed else "unsigned"
         sys.stdout.write(
-            f"{r.at.isoformat(timespec='minutes')}  {r.relinquished_by} → {r.received_by}"
+            f"{when_text(r.at)}  {r.relinquished_by} → {r.received_by}"
             f"{' (lab)' if r.at_lab else ''}  {', '.join(d['bottle_labels'])}{temp}{cond}"
             f"  [{signed}] {r.id[:8]}\n"
         )

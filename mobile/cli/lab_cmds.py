@@ -2,12 +2,23 @@
 
 from __future__ import annotations
 
+import re
 import sys
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from mobile.cli._common import CliError, emit_json, emit_table, fail, open_store, read_dilutions_file, resolve_trip_id
+from core.records.messages import when_text
+from mobile.cli._common import (
+    CliError,
+    emit_json,
+    emit_table,
+    fail,
+    open_store,
+    read_dilutions_file,
+    read_text_file,
+    resolve_trip_id,
+)
 from mobile.cli._common import parse_time as _time
 
 __all__ = ["register"]
@@ -54,11 +65,28 @@ def _number(text: str | None, option: str, accepted: str, units: tuple[str, ...]
         raise CliError(exc.message) from None
 
 
-def _lab_error(exc: Exception) -> CliError:
+def _lab_error(exc: Exception, options: dict[str, str] | None = None) -> CliError:
+    """The core's refusal as one line naming the option as typed: its "name = value ..." opening and any
+    other input named inside it ("(bottle_ml = 300)") become the options ("--at 2026-...", "--bottle-ml 300").
+    `options` names an input that came from another option this time (the analysis time from --incubation-end)."""
+    names = {**_OPTIONS, **(options or {})}
     field = getattr(exc, "field", "")
-    option = _OPTIONS.get(field, "")
+    option = names.get(field, "")
     msg = str(exc).splitlines()[0] if str(exc) else "invalid value"
-    return CliError(f"{option}: {msg}" if option else msg)
+    if field.startswith("standardisation."):
+        msg = msg.removeprefix("standardisation ")
+    own = field.rsplit(".", 1)[-1]
+    if option and msg.startswith(f"{own}: "):  # "seed_controls: ..." under the option's own name
+        msg = msg[len(own) + 2 :]
+    named = bool(option) and msg.startswith(f"{own} = ")
+    if named:
+        msg = f"{option} {msg[len(own) + 3 :]}"
+    for name, opt in sorted(names.items(), key=lambda kv: -len(kv[0])):
+        short = name.rsplit(".", 1)[-1]
+        if "_" in short:  # an internal name; plain words such as "bottle" stay words
+            msg = re.sub(rf"(?<![\w-]){re.escape(short)}(?: = |(?!\w))", (option if short == own else opt) + " ", msg)
+    msg = msg.replace("  ", " ").replace(" ;", ";").replace(" )", ")").rstrip()
+    return CliError(msg if named or not option else f"{option}: {msg}")
 
 
 #: LabSettings fields a program may set in its settings as ``lab_<name>``; options override them.
@@ -123,10 +151,11 @@ def _trip(store, ident: str):  # noqa: ANN001
         fail(str(exc))
 
 
-def _record(store, trip_id: str, compute, describe):  # noqa: ANN001, ANN202
+def _record(store, trip_id: str, compute, describe, options: dict[str, str] | None = None):  # noqa: ANN001, ANN202
     """Computes a lab outcome on the stored trip and saves it in one read–modify–write under the
     store's lock (no other writer, e.g. a sync, can come between); returns (outcome, saved trip).
-    `compute(trip)` gives the outcome, `describe(outcome)` the audit sentence."""
+    `compute(trip)` gives the outcome, `describe(outcome)` the audit sentence; `options` as for
+    :func:`_lab_error`."""
     from core.rules.lab import LabInputError
     from core.store import StoreError
 
@@ -139,7 +168,7 @@ def _record(store, trip_id: str, compute, describe):  # noqa: ANN001, ANN202
     try:
         saved = store.update_trip(trip_id, lambda: describe(box["out"]), apply)
     except LabInputError as exc:
-        raise _lab_error(exc) from None
+        raise _lab_error(exc, options) from None
     except StoreError as exc:
         fail(f"nothing was saved: {exc}")
     return box["out"], saved
@@ -320,13 +349,7 @@ def _batch_cmd(args) -> int:  # noqa: ANN001
     if args.seed_sheet is not None:
         from core.rules.bench import SheetError, read_bench_sheet
 
-        try:
-            raw = Path(args.seed_sheet).read_text(encoding="utf-8")
-        except (OSError, UnicodeDecodeError) as exc:
-            fail(
-                f"--seed-sheet {args.seed_sheet!r} cannot be read ({type(exc).__name__}); accepted: a bench sheet"
-                " CSV with seed control rows"
-            )
+        raw = read_text_file(args.seed_sheet, "--seed-sheet", "a bench sheet CSV with seed control rows")
         try:
             controls = read_bench_sheet(
                 raw, name=f"--seed-sheet {Path(args.seed_sheet).name}", need_dilutions=False
@@ -404,12 +427,7 @@ def _read_sheet(path_text: str, bottle: str) -> tuple[Any, Any]:
     from core.rules.bench import SheetError, read_bench_sheet
 
     path = Path(path_text)
-    try:
-        raw = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        fail(f"--sheet {path_text!r} does not exist; accepted: a bench sheet CSV (see 'streamtab lab sheet')")
-    except (OSError, UnicodeDecodeError) as exc:
-        fail(f"--sheet {path_text!r} cannot be read ({type(exc).__name__}); accepted: a readable UTF-8 CSV file")
+    raw = read_text_file(path_text, "--sheet", "a bench sheet CSV (see 'streamtab lab sheet')")
     try:
         sheet = read_bench_sheet(raw, bottle=bottle, name=f"--sheet {path.name}")
     except SheetError as exc:
@@ -497,7 +515,12 @@ def _bod(args) -> int:  # noqa: ANN001
             + (" (repeat)" if o.superseded else "")
         )
 
-    out, saved = _record(store, trip.id, compute, describe)
+    typed_as: dict[str, str] = {}  # the option a value came from when it was not typed as itself
+    if args.sheet is not None:
+        typed_as.update(dilutions=f"--sheet {Path(args.sheet).name}", seed_controls=f"--sheet {Path(args.sheet).name}")
+    if args.at is None and end is not None:
+        typed_as["analysed_at"] = "--incubation-end"
+    out, saved = _record(store, trip.id, compute, describe, typed_as)
     shown = shown_of(out)
     report = report_of(out)
     what = report.get("analyte", "BOD5")
@@ -542,7 +565,7 @@ def _bod(args) -> int:  # noqa: ANN001
 def _sheet(args) -> int:  # noqa: ANN001
     """A blank bench sheet: PDF to print, or CSV to fill in and read back with 'lab bod --sheet'."""
     from core.rules.lab import BOD_ANALYTE, LabInputError, pending_bottles
-    from core.store.atomic import atomic_write_bytes
+    from core.store.atomic import write_export
 
     out = Path(args.out)
     suffix = out.suffix.lower()
@@ -578,7 +601,7 @@ def _sheet(args) -> int:  # noqa: ANN001
         body += [{"kind": SEED_CONTROL, "bottle_ml": 300} for _ in range(3)]
         data = write_bench_sheet(body, name=out.name).encode("utf-8")
     try:
-        atomic_write_bytes(out, data)
+        write_export(out, data)
     except OSError as exc:
         fail(f"--out {args.out!r} could not be written ({exc.strerror or exc}); accepted: a writable file")
     if args.json:
@@ -652,7 +675,7 @@ def _pending(args) -> int:  # noqa: ANN001
     for p in items:
         sys.stdout.write(
             f"{p['label']:<10} {p['kind']:<9} {p['analyte']:<10} {p['site_id']:<7} trip {p['trip_id'][:8]}"
-            f"  deadline {p['deadline'][:16]}  {_left(p['remaining_s'])}"
+            f"  deadline {when_text(p['deadline'])}  {_left(p['remaining_s'])}"
             f"  (limit {p['holding_hours']:g} h from {p['clock_from']})\n"
         )
     return 0
@@ -705,7 +728,7 @@ def _results(args) -> int:  # noqa: ANN001
         )
         sys.stdout.write(
             f"{r['site_id']:<7} {r['label']:<10} {r['analyte']:<11} {value:>11}  "
-            f"{(r['analysed_at'] or '')[:16]:<16}  {r['analyst'] or '—':<6} {r['result_id'][:8]}  {state}\n"
+            f"{when_text(r['analysed_at']):<26}  {r['analyst'] or '—':<6} {r['result_id'][:8]}  {state}\n"
         )
     return 0
 

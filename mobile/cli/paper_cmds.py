@@ -11,12 +11,10 @@ from mobile.cli._common import CliError, emit_json, fail, open_store, resolve_tr
 __all__ = ["register"]
 
 
-def _out_path(text: str, option: str, suffixes: tuple[str, ...]) -> Path:
+def _out_path(text: str, option: str, suffixes: tuple[str, ...], example: str) -> Path:
     path = Path(text)
     if path.suffix.lower() not in suffixes:
-        fail(
-            f"{option} {text!r} must end in {' or '.join(suffixes)}; accepted: a file name such as report{suffixes[0]}"
-        )
+        fail(f"{option} {text!r} must end in {' or '.join(suffixes)}; accepted: a file name such as {example}")
     if not path.parent.exists():
         fail(
             f"{option} {text!r}: the folder {str(path.parent)!r} does not exist; accepted: a file in an existing folder"
@@ -38,7 +36,7 @@ def _report(args) -> int:  # noqa: ANN001
     from core.rules.report import trip_report
     from mobile.paper.report_pdf import render_trip_report
 
-    out = _out_path(args.out, "--out", (".pdf",))
+    out = _out_path(args.out, "--out", (".pdf",), "report.pdf")
     store = open_store(args.data_dir)
     trip, sites, settings = _load(store, args.trip)
     rep = trip_report(trip, sites, settings, datetime.now(timezone.utc))
@@ -106,7 +104,7 @@ def _walk_trips(store, flt, what: str):  # noqa: ANN001
 
 def _export_season(args) -> int:  # noqa: ANN001
     from core.records.exchange import ExchangeError
-    from core.rules.season import season_tables
+    from core.rules.season import season_tables, trip_in_season
     from core.store import StoreError
     from mobile.paper.season import write_csv_tables, write_workbook
 
@@ -128,7 +126,8 @@ def _export_season(args) -> int:  # noqa: ANN001
     if unknown and sites:
         fail(f"--site {unknown[0]!r} is not in the site list; accepted: one of {', '.join(sorted(sites))}")
     trips, skipped = _walk_trips(store, flt, "reading trips")
-    tables = season_tables(trips, sites, settings, flt)
+    trips = [t for t in trips if trip_in_season(t, flt)]  # the dates, and the review states asked for
+    tables = season_tables(trips, sites, settings, flt, full_precision=args.full_precision)
     try:
         files = write_csv_tables(tables, out)
         if args.xlsx:
@@ -146,7 +145,7 @@ def _export_season(args) -> int:  # noqa: ANN001
         sys.stdout.write(
             f"wrote {len(files)} files to {out}: "
             + ", ".join(f"{n} {k}" for k, n in counts.items())
-            + f" from {len(trips)} trips\n"
+            + f" from {len(trips)} trip{'' if len(trips) == 1 else 's'}\n"
         )
     return 0
 
@@ -157,7 +156,7 @@ def _plot_site(args) -> int:  # noqa: ANN001
     from core.store import StoreError
     from mobile.paper.plots import figure_bytes, site_season_figure
 
-    out = _out_path(args.out, "--out", (".png", ".pdf"))
+    out = _out_path(args.out, "--out", (".png", ".pdf"), "site-season.png")
     flt = _season_filter(args)
     store = open_store(args.data_dir)
     try:
@@ -186,10 +185,10 @@ def _plot_site(args) -> int:  # noqa: ANN001
         criterion_mg_l=criterion_mg_l(site, settings),
         supersat_percent=supersat,
     )
-    from core.store.atomic import atomic_write_bytes
+    from core.store.atomic import write_export
 
     try:
-        atomic_write_bytes(out, figure_bytes(fig, out.suffix.lower().lstrip(".")))
+        write_export(out, figure_bytes(fig, out.suffix.lower().lstrip(".")))
     except OSError as exc:
         fail(f"--out {args.out!r} could not be written ({exc.strerror or exc}); accepted: a writable file")
     if args.json:
@@ -239,8 +238,10 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
         "season",
         help="tidy tables over a season: stops, bottles, results, calibrations, custody",
         description="Writes stops.csv, bottles.csv, results.csv, calibrations.csv and custody.csv"
-        " (one row per observation, units in the column names) into a folder. Cells a"
-        " spreadsheet would run as a formula are neutralised.",
+        " (one row per observation, units in the column names) into a folder. Values are rounded as the"
+        " program's settings say (DO 0.1 mg/L, saturation 1 %%, temperature 0.1 °C, conductivity 3"
+        " significant figures unless the program sets otherwise); --full-precision writes them as stored."
+        " A rounding column names the convention. Cells a spreadsheet would run as a formula are neutralised.",
     )
     p.add_argument("--from", dest="date_from", metavar="DATE", help="first trip date, YYYY-MM-DD")
     p.add_argument("--to", dest="date_to", metavar="DATE", help="last trip date, YYYY-MM-DD")
@@ -254,6 +255,11 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
     )
     p.add_argument("--out", metavar="DIR", required=True, help="folder for the tables (created when missing)")
     p.add_argument("--xlsx", action="store_true", help="also write the tables as one workbook, season.xlsx")
+    p.add_argument(
+        "--full-precision",
+        action="store_true",
+        help="write values as stored instead of rounded by the program's reporting rule (for analysts)",
+    )
     _common(p)
     p.set_defaults(handler=_export_season)
 

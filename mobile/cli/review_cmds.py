@@ -8,7 +8,9 @@ from __future__ import annotations
 
 import sys
 from datetime import datetime, timezone
+from typing import Any
 
+from core.records.messages import when_text
 from mobile.cli._common import emit_json, fail, open_store, resolve_trip_id
 
 __all__ = ["register"]
@@ -97,7 +99,7 @@ def _list(args) -> int:  # noqa: ANN001
         sys.stdout.write("no trips" + (f" {args.state}" if args.state else "") + "\n")
     for r in rows:
         sys.stdout.write(
-            f"{r['id'][:8]}  {r['started_at'][:16]:<16}  {r['program'][:28]:<28}  "
+            f"{r['id'][:8]}  {when_text(r['started_at']):<26}  {r['program'][:28]:<28}  "
             f"{','.join(r['crew'])[:14]:<14}  {r['state']}\n"
         )
     return 0
@@ -110,9 +112,16 @@ def _step(args) -> int:  # noqa: ANN001
 
     store = open_store(args.data_dir)
     tid = resolve_trip_id(store, args.id, "TRIP")
-    try:
-        trip = store.load_trip(tid)
-        event = new_event(
+    what = {
+        "reviewed": "reviewed",
+        "approved": "approved",
+        "returned": "returned to the crew",
+        "resubmitted": "resubmitted",
+    }[args.action]
+    said: dict[str, Any] = {}
+
+    def apply(trip):  # noqa: ANN001, ANN202 - runs under the store's lock, on the trip as stored now
+        said["event"] = new_event(
             trip,
             args.action,
             by=args.by,
@@ -120,20 +129,17 @@ def _step(args) -> int:  # noqa: ANN001
             comment=args.comment,
             reasons=getattr(args, "reason", None) or (),
         )
-        updated = trip.model_copy(
-            update={"review_events": [*trip.review_events, ReviewEvent.model_validate(event, strict=False)]}
+        return trip.model_copy(
+            update={"review_events": [*trip.review_events, ReviewEvent.model_validate(said["event"], strict=False)]}
         )
-        what = {
-            "reviewed": "reviewed",
-            "approved": "approved",
-            "returned": "returned to the crew",
-            "resubmitted": "resubmitted",
-        }[args.action]
-        saved = store.save_trip(updated, f"review: {what} by {event['by']}")
+
+    try:
+        saved = store.update_trip(tid, lambda: f"review: {what} by {said['event']['by']}", apply)
     except ReviewRefused as exc:
         fail(f"trip {tid[:8]}: {exc}")
     except StoreError as exc:
         fail(str(exc))
+    event = said["event"]
     state = review_state(saved)
     if args.json:
         emit_json({"id": tid, "state": state, "revision": saved.revision, "event": event})
@@ -172,7 +178,7 @@ def _show(args) -> int:  # noqa: ANN001
         return 0
     sys.stdout.write(f"{tid}  {review_state(doc)}\n")
     for e in events:
-        line = f"  {e.get('at', '')[:16]}  {e.get('action'):<11} by {e.get('by')}"
+        line = f"  {when_text(e.get('at'))}  {e.get('action'):<11} by {e.get('by')}"
         if e.get("comment"):
             line += f": {e['comment']}"
         sys.stdout.write(line + "\n")

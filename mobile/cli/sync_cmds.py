@@ -35,7 +35,9 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
                 "or token (else environment, else <data dir>/sync/credentials.ini)",
             )
             q.add_argument(
-                "--timeout", type=float, default=30.0, help="seconds to wait for each answer from the hub (default 30)"
+                "--timeout",
+                default="30",
+                help="seconds to wait for each answer from the hub, above 0 to 600 (default 30)",
             )
 
     push = verbs.add_parser("push", help="send every trip changed since its last push")
@@ -99,19 +101,32 @@ def _open_store(args: Any, *, create: bool = False):  # noqa: ANN202
     return open_store(args.data_dir, create=create)
 
 
+def _timeout(args: Any) -> float:
+    """--timeout as typed ("30", "30 s"), above 0 to 600 seconds, or one line naming it."""
+    from core.science.quantities import QuantityError, read_number
+
+    accepted = "seconds, above 0 to 600 (e.g. 30)"
+    try:
+        seconds = read_number(args.timeout, "--timeout", units=("s",), accepted=accepted)
+    except QuantityError as exc:
+        fail(exc.message)
+    if not 0 < seconds <= 600:
+        fail(f"--timeout {args.timeout} is out of range; accepted: {accepted}")
+    return seconds
+
+
 def _session(args: Any, store: Any, address: str):  # noqa: ANN202
     from sync.errors import SyncError
     from sync.session import Session, ca_file_from_environment, load_credentials
 
-    if not (0 < args.timeout <= 600):
-        fail(f"--timeout {args.timeout:g} must be between 0 and 600 seconds")
+    timeout = _timeout(args)
     try:
         creds = load_credentials(address, config_file=args.credentials, data_dir=store.data_dir)
         return Session(
             store.device_id,
             credentials=creds,
-            read_timeout_s=args.timeout,
-            connect_timeout_s=min(10.0, args.timeout),
+            read_timeout_s=timeout,
+            connect_timeout_s=min(10.0, timeout),
             ca_file=args.ca_file or ca_file_from_environment(),
         )
     except SyncError as exc:
@@ -136,7 +151,15 @@ def _run(args: Any, verb: str, address: str):  # noqa: ANN202
     from core.store import StoreLocked
     from sync.errors import FinalError, RetryableError
 
-    store = _open_store(args, create=verb == "pull")  # a pull may fill an empty office store
+    if verb == "pull":  # a pull may fill an empty office store, but only from a hub that is there
+        from core.store.paths import is_store, resolve_data_dir
+        from sync.session import Session
+
+        if not is_store(resolve_data_dir(args.data_dir)):
+            probe = Session(connect_timeout_s=min(10.0, _timeout(args)))
+            _check_address(probe, address, "--from")
+            probe.close()
+    store = _open_store(args, create=verb == "pull")
     session = _session(args, store, address)
     _check_address(session, address, "--to" if verb == "push" else "--from")
     bar = _Bar(verb)

@@ -62,6 +62,12 @@ def register(sub) -> None:  # noqa: ANN001 - argparse's private subparsers type
         default=None,
         help="file for json; folder for csv (stops.csv, bottles.csv); default: standard output",
     )
+    p.add_argument(
+        "--full-precision",
+        action="store_true",
+        help="csv: write values as stored instead of rounded by the program's reporting rule (for analysts);"
+        " json is always as stored",
+    )
     from mobile.cli.conflict_cmds import add_trip_commands
 
     add_trip_commands(trip_sub, _command)
@@ -308,25 +314,33 @@ def _trip_show(args) -> int:  # noqa: ANN001
 def _trip_export(args) -> int:  # noqa: ANN001
     from core.records.exchange import ExchangeError, export_trip_csv, export_trip_json
     from core.store import StoreError
-    from core.store.atomic import EXPORT_MODE, atomic_write_bytes
+    from core.store.atomic import write_export
 
+    if args.out:
+        out = Path(args.out)
+        folder = out.parent
+        if not folder.exists():  # a csv folder is created when missing, but never a chain of them
+            fail(
+                f"--out {args.out!r}: the folder {str(folder)!r} does not exist; accepted: a"
+                + (" file in an existing folder" if args.format == "json" else " folder in an existing folder")
+            )
     store = _store(args)
     trip_id = resolve_trip_id(store, args.id)
     try:
         if args.format == "json":
             data = export_trip_json(store, trip_id)
             if args.out:
-                atomic_write_bytes(Path(args.out), data, mode=EXPORT_MODE)
+                write_export(Path(args.out), data)
             else:
                 sys.stdout.write(data.decode("utf-8"))
         else:
-            files = export_trip_csv(store, trip_id)
+            files = export_trip_csv(store, trip_id, full_precision=args.full_precision)
             if args.out:
                 out = Path(args.out)
                 if out.exists() and not out.is_dir():
                     fail(f"--out {out}: for csv give a folder (stops.csv and bottles.csv are written there).")
                 for name, text in files.items():
-                    atomic_write_bytes(out / name, text.encode("utf-8"), mode=EXPORT_MODE)
+                    write_export(out / name, text.encode("utf-8"))
             else:
                 for name, text in files.items():
                     sys.stdout.write(f"# {name}\n{text}")

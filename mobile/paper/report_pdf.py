@@ -76,6 +76,7 @@ class Sheet:
         self.pdf.add_font("Sans", "I", str(fonts / "DejaVuSans-Oblique.ttf"))
         self.pdf.set_margins(12, 10, 12)
         self.pdf.set_auto_page_break(True, margin=14)
+        self._body_top = 0.0
         self.pdf.set_title(title)
         self.pdf.set_creator("streamtab")
 
@@ -86,11 +87,24 @@ class Sheet:
 
     def page(self) -> None:
         self.pdf.add_page()
+        self._body_top = self.pdf.get_y()
 
-    def heading(self, text: str, size: float = 12) -> None:
+    def keep_room(self, height: float) -> None:
+        """Breaks the page when `height` mm do not fit above the bottom margin, unless the page
+        is still empty (a block taller than a page starts where it is)."""
         pdf = self.pdf
-        if pdf.get_y() > pdf.h - 40:
+        if pdf.get_y() + height > pdf.page_break_trigger and pdf.get_y() > self._body_top + 0.5:
             pdf.add_page()
+
+    #: What a heading keeps on its page by default: a table's heading row and first rows, or the
+    #: first lines of a paragraph (mm).
+    KEEP_MM = 16.0
+
+    def heading(self, text: str, size: float = 12, keep: float = KEEP_MM) -> None:
+        """A heading that stays with what follows it: when the heading and the first `keep` mm of
+        the block after it do not fit on this page, the page breaks before the heading."""
+        pdf = self.pdf
+        self.keep_room(1.5 + 7 + keep)
         pdf.ln(1.5)
         pdf.set_font("Sans", "B", size)
         pdf.cell(0, 7, text, new_x="LMARGIN", new_y="NEXT")
@@ -158,9 +172,9 @@ class Sheet:
     def output(self, path: Path | None = None) -> bytes:
         data = bytes(self.pdf.output())
         if path is not None:
-            from core.store.atomic import atomic_write_bytes
+            from core.store.atomic import write_export
 
-            atomic_write_bytes(Path(path), data)
+            write_export(Path(path), data)
         return data
 
 
@@ -252,12 +266,12 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
         for f in rep.trip_flags:
             sheet.para(_flag_line(f), size=8)
 
-    sheet.heading("Dissolved oxygen by stop", 10)
     fig = trip_do_figure(rep.plot)
     png = figure_bytes(fig, "png", dpi=200)
     img_w = sheet.width * 0.8
-    if pdf.get_y() + img_w * 3.6 / 9.5 + 10 > pdf.h - 14:
-        pdf.add_page()
+    fig_w_in, fig_h_in = fig.get_size_inches()
+    # the heading, the plot and its two-line caption stay together
+    sheet.heading("Dissolved oxygen by stop", 10, keep=img_w * fig_h_in / fig_w_in + 10)
     pdf.image(io.BytesIO(png), x=pdf.l_margin, w=img_w)
     sheet.para(
         "Solid line, filled circles: meter DO. Dashed line, open squares: the saturation target at each"
@@ -411,9 +425,7 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
             sheet.para("• " + _flag_line(f), size=8)
 
     # -- cautions and conventions ------------------------------------------------------------------
-    if pdf.get_y() > pdf.h - 60:
-        pdf.add_page()
-    sheet.heading("Cautions and reporting conventions", 10)
+    sheet.heading("Cautions and reporting conventions", 10, keep=36)
     for c in rep.cautions:
         sheet.para(c, size=8)
 
@@ -449,8 +461,7 @@ def _handoff_block(sheet: Sheet, h: Any) -> None:
     pdf = sheet.pdf
     rec = h.record
     block_h = 33
-    if pdf.get_y() + block_h > pdf.h - 16:
-        pdf.add_page()
+    sheet.keep_room(block_h + 2)
     x0, y0 = pdf.l_margin, pdf.get_y()
     pdf.set_draw_color(*RULE_GREY)
     pdf.rect(x0, y0, sheet.width, block_h - 2)

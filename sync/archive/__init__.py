@@ -136,7 +136,7 @@ def connect(db: str | None):
             db, connect_timeout=int(d.get("connect_timeout") or 10), application_name="streamtab-archive"
         )
     except psycopg.OperationalError as exc:
-        first = str(exc).strip().splitlines()[-1] if str(exc).strip() else "no answer"
+        first = " ".join(str(exc).split()) or "no answer"  # libpq's lines and tabs as one line
         raise ArchiveError(
             f"cannot connect to the archive {describe(db)} ({first}); check --db, the server and the password file."
         ) from None

@@ -413,6 +413,34 @@ def settings_change(p):
     p.note("after_back", p.app.root.current)
 
 
+def settings_percent_basis(p):
+    """Settings: the program's meters read % against 760 mmHg; saved; a new trip's start screen begins there."""
+    yield 0.1
+    p.app.go("settings")
+    yield 0.2
+    s = p.screen("settings")
+    p.note("basis_before", s.percent_basis)
+    yield from p.tap(s.ids.basis_sea_level)
+    p.note("basis_chosen", s.percent_basis)
+    yield from p.tap(s.ids.save_btn)
+    p.note("message", s.message)
+    s.ids.scroller.scroll_y = 1
+    yield 0.2
+    yield from p.shot("settings-basis")
+    s.ids.scroller.scroll_y = 0
+    yield 0.2
+    yield from p.shot("settings-basis-end")
+    p.app.go("trips")
+    yield 0.2
+    yield from p.tap(p.screen("trips").ids.start_btn)
+    yield 0.2
+    p.note("start_basis", p.screen("start").percent_basis)
+    p.note("start_toggle", p.screen("start").ids.basis_sea_level.state)
+    p.app.go("settings")
+    yield 0.2
+    p.note("basis_shown_again", p.screen("settings").percent_basis)
+
+
 def revisit_stop(p):
     """Two stops; go back to the first from the stop list, change its DO, come back to the second."""
     yield 0.1

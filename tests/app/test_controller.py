@@ -260,6 +260,28 @@ def test_settings_limits_are_the_records_own(ctl):
     assert ctl.store.settings().supersaturation_percent == 130  # a refusal saved nothing
 
 
+def test_meter_percent_basis_is_saved_with_the_program_settings(ctl):
+    """The settings screen's % basis goes to ProgramSettings.percent_basis (team science reference §10),
+    a limit refused saves no basis either, and a new trip starts from the stored value."""
+    units = {"temp_unit": "C", "pressure_unit": "hPa", "cond_unit": "uS/cm", "do_unit": "mg/L"}
+    ok = {
+        "calibration_tolerance_mg_l": "0.2",
+        "warm_min_mg_l": "5",
+        "cold_min_mg_l": "6.5",
+        "supersaturation_percent": "120",
+    }
+    assert ctl.program_percent_basis() == "local"  # the default
+    assert ctl.save_settings_form(units, {**ok, "warm_min_mg_l": ""}, "", "sea-level")
+    assert ctl.store.settings().percent_basis == "local"  # nothing saved with a refusal
+    msg = ctl.save_settings_form(units, ok, "", "760")
+    assert msg and "basis" in msg and "percent_basis" not in msg
+    assert ctl.save_settings_form(units, ok, "", "sea-level") is None
+    assert ctl.store.settings().percent_basis == "sea-level" and ctl.prefs.percent_basis == "sea-level"
+    assert ctl.program_percent_basis() == "sea-level"
+    assert ctl.save_settings_form(units, ok, "") is None  # a caller that does not send it keeps it
+    assert ctl.store.settings().percent_basis == "sea-level"
+
+
 def test_trip_start_reads_the_same_in_the_app_and_the_command_line(tmp_path, capsys, monkeypatch):
     """Both show a trip's start in its own UTC offset and say which, whatever this machine's zone."""
     import time

@@ -85,3 +85,22 @@ def test_a_queued_field_save_before_the_bench_write_does_not_refuse_the_result(b
     stored = store.load_trip(HOT)
     assert "Z.Q." in stored.crew
     assert not [r for r in bench.waiting() if r.bottle_id == w.bottle_id]
+
+
+def test_a_tablet_clock_before_collection_is_refused_in_words(tmp_path):
+    """The lab rules refuse an analysis before collection (common practice); the bench says so in its words."""
+    seed_sites(tmp_path / "data")
+    store = DeviceStore.open(tmp_path / "data")
+    import_trip_file(store, ROOT / "sample_trips" / "trip-2026-06-23-hot-afternoon.json")
+    trip = store.load_trip(HOT)
+    store.save_trip(add_handoff(trip, relinquished_by="R.O.", received_by="Lab desk", at=NOW, now=NOW).trip, "typed")
+    bench = LabBench(store, now=lambda: NOW)
+    w = next(r for r in bench.waiting() if r.analysis == "Winkler DO")
+    early = datetime(2026, 6, 1, 9, 0, tzinfo=PDT)  # then the tablet's clock is set weeks back
+    bench.now = lambda: early
+    bench.set_standardisation("20,0")
+    with pytest.raises(ValueError) as info:
+        bench.winkler(w.trip_id, w.bottle_id, "9.0", "201")
+    msg = str(info.value)
+    assert msg.startswith("The time of analysis (this tablet's clock) 2026-06-01") and "before bottle" in msg, msg
+    assert "analysed_at" not in msg and "_at =" not in msg

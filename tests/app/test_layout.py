@@ -47,6 +47,20 @@ def test_settings_reach_the_store_and_new_stops(tmp_path):
     assert notes["after_back"] == "trips"  # back from a stop: the trips list, app still open
 
 
+def test_meter_percent_basis_is_a_program_setting_on_the_settings_screen(tmp_path):
+    """The basis chosen on the settings screen is stored in the program settings (which sync carries as
+    program/settings) and is where a new trip's start screen begins (team science reference §10)."""
+    seed_sites(tmp_path / "data")
+    notes = run_scenario(
+        "settings_percent_basis", tmp_path / "data", tmp_path, size="1280x800", artifacts=ARTIFACTS / "settings"
+    )
+    assert (notes["basis_before"], notes["basis_chosen"]) == ("local", "sea-level")
+    assert notes["message"].startswith("✓"), notes["message"]
+    assert DeviceStore.open(tmp_path / "data").settings().percent_basis == "sea-level"
+    assert notes["start_basis"] == "sea-level" and notes["start_toggle"] == "down"
+    assert notes["basis_shown_again"] == "sea-level"
+
+
 @pytest.mark.parametrize("size,folder", [("1200x780", "landscape"), ("600x780", "portrait")])
 def test_flags_panel_scrolls_to_every_flag(tmp_path, size, folder):
     """Three flags (sea-level pressure, below the warm-water criterion, conductivity): none is cut off."""

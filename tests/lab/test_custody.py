@@ -238,7 +238,7 @@ def test_cli_add_and_list_a_chain_with_a_gap(data):  # noqa: F811 - fixture
     "args, words",
     [
         (("--from", "A", "--to", "a"), ("--to", "another person")),
-        (("--from", "A", "--to", "B", "--temp", "warm"), ("--temp", "4.2 C")),
+        (("--from", "A", "--to", "B", "--temp", "warm"), ("--temp", "°C, °F or K")),
         (("--from", "A", "--to", "B", "--at", "2026-06-09 12:00"), ("--at", "time zone")),
         (("--from", "A", "--to", "B", "--bottles", "NOPE-1"), ("--bottles", "TV-0611")),
         (("--from", "A", "--to", "B", "--at", "2026-06-01T12:00Z"), ("--at", "before bottle")),

@@ -222,6 +222,10 @@ def test_pending_lists_and_then_drops_a_bottle(data):
     first = before["bottles"][0]
     assert first["deadline"].startswith("2026-06-23T15:25") and first["clock_from"] == "collection"
     assert first["remaining_s"] == pytest.approx(3 * 3600 + 25 * 60)
+    # printed on the collection's clock, saying which (common practice: a time without its zone is
+    # ambiguous once a record travels)
+    text = lab("pending", "--now", "2026-06-23T12:00-07:00", data_dir=data).stdout
+    assert "deadline 2026-06-23 15:25 UTC−07:00" in text
     ok_json(lab(*winkler_args("--json"), data_dir=data))
     after = ok_json(lab("pending", "--json", "--now", "2026-06-23T14:30-07:00", data_dir=data))
     assert ("TV-0701", "do-fixed") not in [(b["label"], b["kind"]) for b in after["bottles"]]
@@ -548,3 +552,99 @@ def test_ambiguous_trip_prefix(data, tmp_path):
     assert run_cli("trip", "import", str(f), data_dir=data).returncode == 0
     one_line_error(lab("duplicates", "7f3e9a12", data_dir=data), "TRIP_ID", "matches 2 trips", "more characters")
     assert ok_json(lab("duplicates", "7f3e9a12-f", "--json", data_dir=data))["trip_id"] == doc["id"]
+
+
+INTERNAL_NAMES = (
+    "analysed_at",
+    "standardised_at",
+    "incubation_end",
+    "titrated_ml",
+    "bottle_ml",
+    "reagents_ml",
+    "_ml =",
+)
+
+
+@pytest.mark.parametrize(
+    "args, option, words",
+    [
+        (
+            (
+                "winkler",
+                HOT,
+                "TV-0701",
+                "--titrant-ml",
+                "7.3",
+                "--normality",
+                "0.025",
+                "--titrated-ml",
+                "201",
+                "--at",
+                "2026-06-01T08:00-07:00",
+            ),
+            "--at 2026-06-01T08:00:00-07:00",
+            "before bottle TV-0701 was collected",
+        ),
+        (
+            (
+                "winkler",
+                HOT,
+                "TV-0701",
+                "--titrant-ml",
+                "7.3",
+                "--normality",
+                "0.025",
+                "--titrated-ml",
+                "400",
+                "--at",
+                AT,
+            ),
+            "--titrated-ml 400",
+            "(--bottle-ml 300)",
+        ),
+        (
+            (
+                "winkler",
+                HOT,
+                "TV-0701",
+                "--titrant-ml",
+                "7.3",
+                "--std-titrant-ml",
+                "20.1",
+                "--standardised-at",
+                "2026-06-24T08:00-07:00",
+                "--titrated-ml",
+                "201",
+                "--at",
+                AT,
+            ),
+            "--standardised-at 2026-06-24",
+            "after the",
+        ),
+        (
+            (
+                "bod",
+                HOT,
+                "TV-0703",
+                "--dilutions",
+                "DIL",
+                "--incubation-start",
+                "2026-06-24T08:00-07:00",
+                "--incubation-end",
+                "2099-06-29T08:00-07:00",
+            ),
+            "--incubation-end 2099-06-29",
+            "in the future",
+        ),
+    ],
+)
+def test_lab_refusals_name_the_option_never_an_internal_name(data, tmp_path, args, option, words):
+    """A lab refusal names the option as typed (common practice for a command line), once, in one line."""
+    dil = tmp_path / "dil.json"
+    dil.write_text(json.dumps([{"initial_do_mg_l": 8.7, "final_do_mg_l": 4.1, "sample_ml": 60}]), encoding="utf-8")
+    r = lab(*[str(dil) if a == "DIL" else a for a in args], data_dir=data)
+    one_line_error(r)
+    err = r.stderr.strip()
+    assert err.startswith(f"streamtab: {option}") and words in err, err
+    for name in INTERNAL_NAMES:
+        assert name not in err, err

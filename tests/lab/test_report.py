@@ -178,6 +178,56 @@ def test_every_page_renders_with_ink_and_signatures_are_drawn(reports, tmp_path)
     assert _ink(signed[custody]) > _ink(unsigned[custody]) + 0.001
 
 
+HEADINGS = {
+    "Field sheet",
+    "Meter calibration",
+    "Dissolved oxygen by stop",
+    "Stops: readings as entered and what was derived",
+    "Findings at each stop",
+    "Notes",
+    "Lab results",
+    "Chain of custody",
+    "Hand-offs",
+    "Custody findings",
+    "Cautions and reporting conventions",
+}
+
+
+def _page_texts(pdf: Path) -> list[str]:
+    """Each page's text as pdftotext (poppler) reads it, one string per page."""
+    count = len(PdfReader(str(pdf)).pages)
+    return [
+        subprocess.run(
+            ["pdftotext", "-f", str(n), "-l", str(n), str(pdf), "-"], check=True, capture_output=True, text=True
+        ).stdout
+        for n in range(1, count + 1)
+    ]
+
+
+@needs_pdftoppm
+@pytest.mark.parametrize("signed", [True, False])
+def test_a_heading_never_ends_a_page_and_the_do_plot_follows_its_heading(reports, tmp_path, signed):
+    """A heading stays on the page of the block it introduces (common practice in typesetting:
+    no widowed headings). Read back per page with pdftotext and rendered with pdftoppm."""
+    pdf = reports[signed]
+    texts = _page_texts(pdf)
+    for n, text in enumerate(texts, start=1):
+        lines = [
+            line.strip()
+            for line in text.splitlines()
+            if line.strip() and not line.strip().startswith(("streamtab trip report", "page "))
+        ]
+        assert lines, f"page {n} is empty"
+        assert lines[-1] not in HEADINGS, f"page {n} ends with the heading {lines[-1]!r}"
+    do_page = next(i for i, t in enumerate(texts) if "Dissolved oxygen by stop" in t)
+    assert "Solid line, filled circles: meter DO" in texts[do_page]  # the caption under the plot
+    assert len(PdfReader(str(pdf)).pages[do_page].images) == 1  # the plot itself, on the same page
+    page = _pages(pdf, tmp_path / "page")[do_page]
+    # the plot's lines and axes put ink in the upper half of that page, below the heading
+    top = page.crop((0, page.height // 8, page.width, page.height // 2))
+    assert _ink(top) > 0.01
+
+
 def test_plot_series_read_in_grey_scale():
     from matplotlib.colors import to_rgb
 

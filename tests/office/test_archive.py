@@ -278,6 +278,7 @@ def test_credentials_follow_libpq_and_are_never_echoed(tmp_path, pg, db, cli):
     passfile.write_text(f"*:*:*:{PASSWORD_ROLE}:not-{OFFICE_PASSWORD}\n")
     r = cli("archive", "summary", "--db", url, env=env)
     assert r.returncode == 2 and "cannot connect" in r.stderr and "Traceback" not in r.stderr
+    assert len(r.stderr.strip().splitlines()) == 1 and "\t" not in r.stderr
     assert OFFICE_PASSWORD not in r.stderr
 
 
@@ -288,15 +289,19 @@ def test_cli_load_from_a_hub_and_summary(tmp_path, db, cli):
     hub = tmp_path / "hub"
     hub.mkdir()
     assert sync.push(crew, str(hub)).pushed == 2
-    office = tmp_path / "office"
-    open_store(office, "office-1")
+    office = tmp_path / "office"  # no store yet: loading --from a hub starts one, and says so
     r = cli("archive", "load", "--from", str(hub), "--db", db, "--json", data_dir=office)
     assert r.returncode == 0, r.stderr
+    assert "created a new device store" in r.stderr
     out = json.loads(r.stdout)
     assert (out["loaded"], out["pull"]["pulled"]) == (2, 2)
     assert "load [" in r.stderr  # the progress bar
     r = cli("archive", "load", "--from", str(hub), "--db", db, "--json", data_dir=office)
     assert json.loads(r.stdout)["loaded"] == 0
+    r = cli("archive", "load", "--db", db, data_dir=office)  # the text says what was checked
+    assert r.returncode == 0 and "0 trip(s) loaded (only trips saved since the last load were checked)" in r.stdout
+    r = cli("archive", "load", "--db", db, data_dir=tmp_path / "no-store")  # without --from: nothing created
+    assert r.returncode == 2 and "no device store there" in r.stderr and not (tmp_path / "no-store").exists()
     r = cli("archive", "summary", "--db", db, "--season", "2026")
     assert r.returncode == 0 and "LK-01" in r.stdout and "Mill Ford" in r.stdout
     r = cli("archive", "summary", "--db", db, "--season", "twenty")

@@ -164,6 +164,12 @@ def test_review_cli(tmp_path, cli):
     assert [e["action"] for e in shown["events"]] == ["returned", "resubmitted", "approved"]
     r = cli("review", "list", "--json", data_dir=d)
     assert {x["id"]: x["state"] for x in json.loads(r.stdout)} == {trip.id: "approved", open_trip.id: "in progress"}
+    # the text lists show times as `trip list` does, in the record's own offset and saying which
+    # (common practice: a time without its zone is ambiguous once records travel)
+    from core.records.messages import when_text
+
+    assert when_text(trip.started_at) in cli("review", "list", data_dir=d).stdout
+    assert " UTC" in cli("review", "show", trip.id, data_dir=d).stdout
 
 
 def test_exports_and_reports_say_the_review_state(tmp_path, cli):
@@ -185,6 +191,7 @@ def test_exports_and_reports_say_the_review_state(tmp_path, cli):
     rows = list(csv.DictReader((out / "stops.csv").open(encoding="utf-8")))
     assert {row["trip_id"] for row in rows} == {done.id}
     assert {row["review_state"] for row in rows} == {"approved"}
+    assert r.stdout.rstrip().endswith("from 1 trip")  # the trips the filter kept, not the trips read
     r = cli("export", "season", "--out", str(tmp_path / "all"), data_dir=tmp_path / "office")
     rows = list(csv.DictReader((tmp_path / "all" / "stops.csv").open(encoding="utf-8")))
     assert {row["trip_id"]: row["review_state"] for row in rows} == {done.id: "approved", other.id: "ended"}

@@ -79,3 +79,38 @@ def test_exported_files_get_the_umask_permissions(store, tmp_path, umask, expect
     # the device's own files stay owner-only whatever the umask
     trip_file = next((store.data_dir / "trips").glob("*.json"))
     assert stat.S_IMODE(trip_file.stat().st_mode) & 0o077 == 0
+
+
+def test_every_file_written_for_people_gets_the_umask_permissions(tmp_path):
+    """Report and bench sheet PDFs, the bench sheet CSV, a plot and the season tables (CSV and
+    .xlsx) all go through the one export writer: with umask 027 each is 0640, not the device's
+    owner-only 0600 (common practice: a new file takes 0666 less the umask, as open(2) does)."""
+    from tests.conftest import ROOT
+
+    samples = ROOT / "sample_trips"
+    data = tmp_path / "data"
+    assert run_cli("sites", "import", str(samples / "sites.csv"), data_dir=data).returncode == 0
+    r = run_cli("trip", "import", str(samples / "trip-2026-06-09-lower-watershed.json"), data_dir=data)
+    assert r.returncode == 0, r.stderr
+    out = tmp_path / "out"
+    out.mkdir()
+    commands = [
+        ("report", "5d7c2b0e", "--out", str(out / "report.pdf")),
+        ("lab", "sheet", "--out", str(out / "sheet.pdf")),
+        ("lab", "sheet", "--out", str(out / "sheet.csv")),
+        ("plot", "site", "LK-01", "--out", str(out / "lk01.png")),
+        ("export", "season", "--out", str(out / "season"), "--xlsx"),
+    ]
+    old = os.umask(0o027)
+    try:
+        results = [run_cli(*argv, data_dir=data) for argv in commands]
+    finally:
+        os.umask(old)
+    for argv, r in zip(commands, results, strict=True):
+        assert r.returncode == 0, (argv, r.stderr)
+    written = [p for p in out.rglob("*") if p.is_file()]
+    names = {p.name for p in written}
+    assert {"report.pdf", "sheet.pdf", "sheet.csv", "lk01.png", "season.xlsx", "stops.csv"} <= names, names
+    for p in written:
+        assert stat.S_IMODE(p.stat().st_mode) == 0o640, p.name
+    assert not list(out.rglob("*.tmp"))  # nothing half-written left behind

@@ -54,6 +54,16 @@ def test_station_pressures_do_not_fire():
     assert "pressure.flat_across_elevations" not in codes(flags[TRIP_KEY])
 
 
+def test_a_higher_stop_reading_more_pressure_is_said_in_words():
+    # 186 m at 990.2 hPa (a station reading) and 520 m at 1013.4 hPa (a sea-level value): pressure should
+    # fall about 39 hPa over 334 m (US Standard Atmosphere 1976), not rise 23 hPa
+    f = flat_pressure_flag([("Stop 1", 186.0, 990.2), ("Stop 3", 520.0, 1013.4)])
+    assert f is not None and "the higher stop read 23.2 hPa more" in f.message and "-23" not in f.message
+    assert "about 39 hPa" in f.message
+    same = flat_pressure_flag([("a", 40.0, 1013.0), ("b", 200.0, 1013.0)])
+    assert same is not None and "the same pressure" in same.message
+
+
 def test_small_spread_is_not_judged():
     # 40 m and 150 m: 110 m apart, under the 150 m spread the check needs
     assert flat_pressure_flag([("a", 40.0, 1013.0), ("b", 150.0, 1013.0)]) is None

@@ -7,16 +7,20 @@ from __future__ import annotations
 
 import copy
 import json
+import subprocess
+import sys
 import threading
+import time
 from datetime import timedelta
+from pathlib import Path
 
 import pytest
 
 from core.records.models import AUDIT_VALUE_BYTES
 from core.rules.lab import record_winkler
 from core.store import DeviceStore, InvalidRecord, StaleTrip
-from tests.conftest import ROOT, run_cli
-from tests.records.conftest import FakeClock, make_bottle, make_cal, make_stop, make_trip
+from tests.conftest import ROOT, cli_env, run_cli
+from tests.records.conftest import T0, FakeClock, make_bottle, make_cal, make_stop, make_trip
 
 SAMPLES = ROOT / "sample_trips"
 HOT = "a41f6e2d-8c3b-4d7a-b5e9-0c6d2f8e1a34"  # sample trip of 2026-06-23 (invented)
@@ -97,6 +101,69 @@ def test_update_trip_is_atomic_between_threads(store):
     notes = store.load_trip(trip.id).notes.split()
     assert sorted(notes) == sorted(str(n) for n in range(4) for _ in range(5))  # 20 writes, 0 lost
     assert store.load_trip(trip.id).revision == 21
+
+
+def _waiting_for_the_lock(child: subprocess.Popen, deadline_s: float = 60.0) -> None:
+    """Returns once the child process sleeps between tries of the store's lock (filelock polls
+    with time.sleep; Linux shows it as a nanosleep in /proc/PID/wchan). Bounded."""
+    wchan = Path(f"/proc/{child.pid}/wchan")
+    end = time.monotonic() + deadline_s
+    while time.monotonic() < end:
+        assert child.poll() is None, child.communicate()[1]
+        if "nanosleep" in wchan.read_text():
+            return
+        time.sleep(0.01)
+    raise AssertionError("the command never waited for the store's lock")
+
+
+def _custody_added(trip):
+    return [(c.relinquished_by, c.received_by) for c in trip.custody] == [("R.O.", "Lab intake")]
+
+
+def _approved(trip):
+    return [e.action for e in trip.review_events] == ["approved"]
+
+
+@pytest.mark.skipif(not Path("/proc/self/wchan").exists(), reason="needs Linux /proc to see the wait")
+@pytest.mark.parametrize(
+    ("argv", "landed"),
+    [
+        (["custody", "add", "{trip}", "--from", "R.O.", "--to", "Lab intake"], _custody_added),
+        (["review", "approve", "{trip}", "--by", "D.M."], _approved),
+    ],
+    ids=["custody add", "review approve"],
+)
+def test_two_writers_a_cli_command_waiting_on_the_lock_keeps_the_other_change(store, argv, landed):
+    """Two real writers on one store folder: this process saves a note while `streamtab ARGS`, in
+    its own interpreter, waits for the store's lock. The command's change is applied to the trip as
+    stored after the note, so neither change is lost (common practice: read–modify–write under
+    one lock; a write based on an older read would be refused as stale, not applied)."""
+    stop = make_stop(bottles=[make_bottle("TV-0001")])
+    trip = store.save_trip(make_trip([stop], ended_at=T0 + timedelta(hours=5)), "new")
+    args = [a.replace("{trip}", trip.id) for a in argv]
+    with store.locked():
+        child = subprocess.Popen(
+            [sys.executable, "-m", "mobile.cli", *args, "--data-dir", str(store.data_dir)],
+            cwd=ROOT,
+            env=cli_env(),
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
+        try:
+            _waiting_for_the_lock(child)
+            noted = store.update_trip(
+                trip.id, "notes", lambda t: t.model_copy(update={"notes": "flow gauge read 0.42 m"})
+            )
+        except BaseException:
+            child.kill()
+            raise
+    _, err = child.communicate(timeout=120)
+    assert child.returncode == 0, err
+    stored = store.load_trip(trip.id)
+    assert stored.notes == "flow gauge read 0.42 m"  # the first writer's change is still there
+    assert landed(stored)  # and the command's change landed on top of it
+    assert stored.revision == noted.revision + 1
 
 
 def test_update_trip_that_fails_writes_nothing(store):

@@ -18,6 +18,7 @@ from pathlib import Path
 
 import pytest
 
+import sync
 from core.records.models import Site, Stop, Trip, measure
 from core.store import DeviceStore
 from sync.session import Credentials, RetryPolicy, Session
@@ -145,6 +146,19 @@ def dav_session(device_id: str | None = None, **kw) -> Session:
     )
     opts.update(kw)
     return Session(device_id, **opts)
+
+
+def converge(devices, url):
+    """Push and pull every device until nothing changes (bounded: 4 rounds)."""
+    for _ in range(4):
+        moved = 0
+        for d in devices:
+            moved += sync.push(d, url, session=dav_session(d.device_id)).pushed
+            r = sync.pull(d, url, session=dav_session(d.device_id))
+            moved += r.pulled + r.merged
+        if not moved:
+            return
+    raise AssertionError("devices did not settle in 4 rounds")
 
 
 @pytest.fixture

@@ -8,19 +8,7 @@ import pytest
 
 import sync
 from core.rules.conflicts import list_conflicts, settle
-from tests.sync.conftest import dav_session, edit_stop_notes, edit_stop_temp, new_trip, open_store
-
-
-def converge(devices, url):
-    for _ in range(4):  # bounded
-        moved = 0
-        for d in devices:
-            moved += sync.push(d, url, session=dav_session(d.device_id)).pushed
-            r = sync.pull(d, url, session=dav_session(d.device_id))
-            moved += r.pulled + r.merged
-        if not moved:
-            return
-    raise AssertionError("devices did not settle in 4 rounds")
+from tests.sync.conftest import converge, dav_session, edit_stop_notes, edit_stop_temp, new_trip, open_store
 
 
 @pytest.mark.parametrize("order", ["settle-then-edit", "edit-then-settle"])

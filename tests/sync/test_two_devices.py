@@ -5,20 +5,7 @@ whichever device pushed first (three-way merge by element id; core/records/merge
 import pytest
 
 import sync
-from tests.sync.conftest import dav_session, edit_stop_notes, edit_stop_temp, new_trip, open_store
-
-
-def converge(devices, url):
-    """Push and pull every device until nothing changes (bounded)."""
-    for _ in range(4):
-        moved = 0
-        for d in devices:
-            moved += sync.push(d, url, session=dav_session(d.device_id)).pushed
-            r = sync.pull(d, url, session=dav_session(d.device_id))
-            moved += r.pulled + r.merged
-        if not moved:
-            return
-    raise AssertionError("devices did not settle in 4 rounds")
+from tests.sync.conftest import converge, dav_session, edit_stop_notes, edit_stop_temp, new_trip, open_store
 
 
 def semantic(doc):

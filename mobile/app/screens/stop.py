@@ -26,7 +26,7 @@ class StopScreen(BaseScreen):
     site_values = ListProperty([])
     temp_unit = StringProperty("C")
     pressure_unit = StringProperty("hPa")
-    cond_unit = StringProperty("uS/cm")
+    cond_unit = StringProperty("µS/cm")
     cond_basis = StringProperty("at water temp")
     do_unit = StringProperty("mg/L")
     bottle_kind = StringProperty("do_fixed")
