@@ -47,7 +47,9 @@ def fail(message: str) -> NoReturn:
 
 
 #: The commands that may create a device store where there is none (they say so when they do).
-CREATING_COMMANDS = "'streamtab sites import', 'trip import', 'sync pull', 'archive load --from' and 'app'"
+CREATING_COMMANDS = (
+    "'streamtab sites import', 'trip import', 'sync pull', 'archive load --from', 'device name' and 'app'"
+)
 
 
 def store_location(data_dir: str | None) -> str:
