@@ -48,6 +48,7 @@ __all__ = [
     "append",
     "REWALK_AFTER_S",
     "FOLDER_SETTLE_S",
+    "needs_listing",
 ]
 
 log = logging.getLogger("streamtab.sync")
@@ -162,10 +163,19 @@ class Changes:
             state.devices[dev] = DeviceSeen(seen, None if left else listing.stamp, None if left else listing.listed_at)
 
 
-def _needs_listing(known: DeviceSeen | None, stamp: float | None) -> bool:
-    if known is None or stamp is None or known.stamp is None or known.listed_at is None:
+def needs_listing(known_stamp: float | None, known_listed_at: float | None, stamp: float | None) -> bool:
+    """Whether a hub folder must be listed again: its date (`stamp`, server clock) moved since it
+    was last listed whole, or that listing came less than `FOLDER_SETTLE_S` after its last change
+    (HTTP dates have one-second steps), or either is unknown."""
+    if stamp is None or known_stamp is None or known_listed_at is None:
         return True
-    return known.stamp != stamp or known.listed_at - stamp < FOLDER_SETTLE_S
+    return known_stamp != stamp or known_listed_at - stamp < FOLDER_SETTLE_S
+
+
+def _needs_listing(known: DeviceSeen | None, stamp: float | None) -> bool:
+    if known is None:
+        return True
+    return needs_listing(known.stamp, known.listed_at, stamp)
 
 
 def read_changes(tgt: Any, state: LogState, own: str, max_bytes: int, *, now: float | None = None) -> Changes | None:

@@ -674,7 +674,7 @@ def pull(
             state.save()
         except OSError:  # only costs a walk next time
             log.warning("pull: could not record the change log state", exc_info=True)
-        report.program = _pull_program(store, tgt, session, outbox)
+        report.program = _pull_program(store, tgt, session, outbox, relist=changes is None)
     except Exception as exc:
         if _local_write_errors(exc):
             raise _local_failure(exc, store.data_dir) from None
@@ -815,9 +815,11 @@ _TABLE_WORDS = {"sites": "site list", "settings": "program settings"}
 _TABLE_ERRORS = (errors.RetryableError, errors.Rejected, errors.IntegrityError, errors.BadHubDocument)
 
 
-def _program_state(outbox: Outbox) -> dict[str, dict[str, list[str]]]:
-    """Per table, the hub files this device has published or merged (`seen`)."""
-    state: dict[str, dict[str, list[str]]] = {k: {"seen": []} for k in program.KINDS}
+def _program_state(outbox: Outbox) -> dict[str, Any]:
+    """Per table, the hub files this device has published or merged (`seen`), and, on WebDAV,
+    the table folder's date when a pull last listed it all in (`stamp`, `listed_at`: server clock);
+    `finite_depth` when the hub refused ``PROPFIND Depth: infinity`` of ``program/``."""
+    state: dict[str, Any] = {k: {"seen": []} for k in program.KINDS}
     try:
         raw = json.loads((outbox.folder / "program.json").read_bytes())
     except (OSError, ValueError):
@@ -828,6 +830,11 @@ def _program_state(outbox: Outbox) -> dict[str, dict[str, list[str]]]:
             names = entry.get("seen")
             if isinstance(names, list):
                 state[kind]["seen"] = [n for n in names if isinstance(n, str)]
+            for key in ("stamp", "listed_at"):
+                if isinstance(entry.get(key), (int, float)) and not isinstance(entry.get(key), bool):
+                    state[kind][key] = float(entry[key])
+    if isinstance(raw, dict) and raw.get("finite_depth") is True:
+        state["finite_depth"] = True
     return state
 
 
@@ -875,22 +882,56 @@ def _push_program(store: Any, tgt: Target, session: Session, outbox: Outbox) -> 
     return lines
 
 
-def _pull_program(store: Any, tgt: Target, session: Session, outbox: Outbox) -> list[str]:
+def _pull_program(store: Any, tgt: Target, session: Session, outbox: Outbox, *, relist: bool = False) -> list[str]:
     """Merges every site list and settings file at the hub this device has not seen into the
-    store: per site id (and for the settings) the newest entry wins (sync/program.py)."""
+    store: per site id (and for the settings) the newest entry wins (sync/program.py).
+
+    On WebDAV one ``PROPFIND Depth: infinity`` of ``program/`` lists both tables. Where the server
+    refuses that (RFC 4918 §9.1; remembered per hub), one Depth-1 PROPFIND of ``program/`` dates
+    the two table folders, and a folder is listed only when its date moved since a pull last read
+    everything in it (the change log's rule, `sync.changelog.needs_listing`), or with `relist` (a
+    pull that walked the hub, at least daily). Either way a quiet pull costs one request."""
     if not tgt.can_list:
         return []
     from core.records.models import ProgramSettings, Site
 
     state = _program_state(outbox)
     lines: list[str] = []
+    folders: dict[str, float | None] | None = None
+    tree: dict[str, frozenset[str]] | None = None
+    if isinstance(tgt, WebDavTarget):
+        try:
+            if not state.get("finite_depth"):
+                try:
+                    tree = tgt.list_program_tree()
+                except errors.DepthRefused:
+                    state["finite_depth"] = True  # remembered: not asked again at this hub
+            if tree is None:
+                folders = tgt.program_folders() or {}
+        except _TABLE_ERRORS as exc:
+            return [f"site list and settings not brought — will retry: {exc}"]
     for kind in program.KINDS:
         known = set(state[kind]["seen"])
+        listed_at: float | None = None
         try:
-            names = sorted(tgt.list_program(kind) - known)
+            if tree is not None:
+                names = sorted(tree[kind] - known)
+            elif folders is None:
+                names = sorted(tgt.list_program(kind) - known)
+            elif kind not in folders:
+                names = []  # no such folder at the hub: nothing published yet
+            elif not relist and not changelog.needs_listing(
+                state[kind].get("stamp"), state[kind].get("listed_at"), folders[kind]
+            ):
+                names = []  # the folder has not changed since every file in it was read
+            else:
+                assert isinstance(tgt, WebDavTarget), "dated table folders come from WebDAV only"
+                found, listed_at = tgt.list_program_folder(kind)
+                names = sorted(found - known)
         except _TABLE_ERRORS as exc:
             lines.append(f"{_TABLE_WORDS[kind]} not brought — will retry: {exc}")
             continue
+        complete = True
         incoming: list[dict] = []
         read: list[str] = []
         for name in names:
@@ -898,10 +939,12 @@ def _pull_program(store: Any, tgt: Target, session: Session, outbox: Outbox) -> 
                 parsed = program.parse_program_file(kind, tgt.read_program(kind, name, session.max_document_bytes))
             except errors.RetryableError as exc:
                 lines.append(f"{_TABLE_WORDS[kind]} file {name} not read — will retry: {exc}")
+                complete = False
                 continue
             except (errors.IntegrityError, errors.BadHubDocument, errors.Rejected, ValueError) as exc:
                 # left unseen: checked again at the next sync, never blacklisted
                 lines.append(f"{_TABLE_WORDS[kind]} file {name} left aside: {exc}")
+                complete = False
                 continue
             read.append(name)
             for entry in parsed if isinstance(parsed, list) else [parsed]:
@@ -918,6 +961,10 @@ def _pull_program(store: Any, tgt: Target, session: Session, outbox: Outbox) -> 
             with store.locked():
                 lines.extend(_merge_sites(store, incoming) if kind == "sites" else _merge_settings(store, incoming))
         state[kind]["seen"].extend(read)
+        if folders is not None and kind in folders and listed_at is not None:
+            # a file left aside keeps the folder listed at every pull until it reads well
+            state[kind]["stamp"] = folders[kind] if complete else None
+            state[kind]["listed_at"] = listed_at if complete else None
     _save_program_state(outbox, state)
     return lines
 

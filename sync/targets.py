@@ -836,23 +836,53 @@ class WebDavTarget:
         """The table files of one kind; both kinds come from one PROPFIND of ``program/``
         (Depth: infinity; per kind at Depth 1 where the server refuses that)."""
         if self._program is None:
-            found: dict[str, set[str]] = {k: set() for k in PROGRAM_KINDS}
             try:
-                entries = self._propfind(PROGRAM + "/", "infinity") or []
+                self._program = self.list_program_tree()
             except errors.DepthRefused:
-                entries = [e for k in PROGRAM_KINDS for e in self._propfind(program_dir(k), "1") or []]
-            for relpath, is_col, *_ in entries:
-                parts = relpath.strip("/").split("/")
-                if (
-                    not is_col
-                    and len(parts) == 3
-                    and parts[0] == PROGRAM
-                    and parts[1] in found
-                    and is_program_name(parts[2])
-                ):
-                    found[parts[1]].add(parts[2])
-            self._program = {k: frozenset(v) for k, v in found.items()}
+                self._program = {k: self.list_program_folder(k)[0] for k in PROGRAM_KINDS}
         return self._program[kind]
+
+    def list_program_tree(self) -> dict[str, frozenset[str]]:
+        """Both tables' files from one ``PROPFIND Depth: infinity`` of ``program/``; raises
+        `errors.DepthRefused` where the server refuses that (RFC 4918 §9.1)."""
+        found: dict[str, set[str]] = {k: set() for k in PROGRAM_KINDS}
+        for relpath, is_col, *_ in self._propfind(PROGRAM + "/", "infinity") or []:
+            parts = relpath.strip("/").split("/")
+            if (
+                not is_col
+                and len(parts) == 3
+                and parts[0] == PROGRAM
+                and parts[1] in found
+                and is_program_name(parts[2])
+            ):
+                found[parts[1]].add(parts[2])
+        return {k: frozenset(v) for k, v in found.items()}
+
+    def program_folders(self) -> dict[str, float | None] | None:
+        """The table folders under ``program/`` with their last change (server clock), from one
+        Depth-1 PROPFIND; None when the hub has no ``program/``. A pull lists a table's folder
+        only when its date moved (see `sync.engine._pull_program`)."""
+        entries = self._propfind(PROGRAM + "/", "1", body=_PROPFIND_TIMES_BODY, with_times=True)
+        if entries is None:
+            return None
+        out: dict[str, float | None] = {}
+        for relpath, is_col, _size, modified in entries:
+            parts = relpath.strip("/").split("/")
+            if is_col and len(parts) == 2 and parts[0] == PROGRAM and parts[1] in PROGRAM_KINDS:
+                out[parts[1]] = _http_time(modified)
+        return out
+
+    def list_program_folder(self, kind: str) -> tuple[frozenset[str], float | None]:
+        """The table files of one kind from one Depth-1 PROPFIND of its folder, and the ``Date``
+        of that answer (server clock)."""
+        self.listed_at = None
+        entries = self._propfind(program_dir(kind), "1") or []
+        names = frozenset(
+            name
+            for relpath, is_col, *_ in entries
+            if not is_col and is_program_name(name := relpath.rstrip("/").rsplit("/", 1)[-1])
+        )
+        return names, self.listed_at
 
     def read_program(self, kind: str, name: str, max_bytes: int) -> bytes:
         rel = program_dir(kind) + name

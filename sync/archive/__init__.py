@@ -153,7 +153,12 @@ def schema_version(conn) -> int:  # noqa: ANN001
 
 def migrate(conn, *, upto: int = LATEST) -> tuple[int, int]:  # noqa: ANN001
     """Applies the migrations the database lacks, each in its own transaction; returns (from, to).
-    A database newer than this build is refused."""
+    A database newer than this build is refused. An archive already at `upto` costs one read
+    (a version is committed together with its migration, so it needs no lock to be read)."""
+    with conn.transaction():
+        start = schema_version(conn)
+    if start == upto:
+        return start, start
     with conn.transaction():
         conn.execute("SELECT pg_advisory_xact_lock(%s)", (_LOCK_KEY,))
         start = schema_version(conn)
@@ -337,6 +342,16 @@ def load(store: Any, db: str | None, *, progress: Progress | None = None, batch:
                 )
                 todo = [t for t in changed if store.has_trip(t)]
             conn.commit()
+            # where the store's change feed was read up to: written in the transaction of the last
+            # batch that writes trips (one commit, and the mark never runs ahead of the rows), on
+            # its own when no trip was written, and not at all when nothing moved
+            mark_sql = (
+                "INSERT INTO load_sources (source, log_inode, log_offset, full_at) "
+                "VALUES (%s, %s, %s, now()) ON CONFLICT (source) DO UPDATE SET "
+                "log_inode = EXCLUDED.log_inode, log_offset = EXCLUDED.log_offset"
+                + (", full_at = now()" if report.checked == "all" else "")
+            )
+            mark_due = mark is not None and (report.checked == "all" or row is None or tuple(row[:2]) != tuple(mark))
             total = len(todo)
             for start in range(0, total, max(1, batch)):
                 ids = todo[start : start + batch]
@@ -353,6 +368,7 @@ def load(store: Any, db: str | None, *, progress: Progress | None = None, batch:
                     written.append(tid)
                 if not written:
                     continue
+                last = start + batch >= total
                 with conn.transaction(), conn.cursor() as cur:
                     old = _contributions(cur, written)
                     cur.execute("DELETE FROM trips WHERE trip_id = ANY(%s)", (written,))
@@ -360,19 +376,18 @@ def load(store: Any, db: str | None, *, progress: Progress | None = None, batch:
                         if tables[table]:
                             _copy(cur, table, tables[table])
                     _apply_stats(cur, old, _contributions(cur, written))
+                    if last and mark_due:
+                        assert mark is not None, "a mark is due only when the feed gave one"
+                        cur.execute(mark_sql, (source, mark[0], mark[1]))
+                        mark_due = False
                 report.loaded += len(written)
                 report.loaded_ids.extend(written)
                 if progress is not None:
                     progress(min(start + len(ids), total), total, written[-1], "loaded")
-            if mark is not None:
+            if mark_due:
+                assert mark is not None, "a mark is due only when the feed gave one"
                 with conn.transaction():
-                    conn.execute(
-                        "INSERT INTO load_sources (source, log_inode, log_offset, full_at) "
-                        "VALUES (%s, %s, %s, now()) ON CONFLICT (source) DO UPDATE SET "
-                        "log_inode = EXCLUDED.log_inode, log_offset = EXCLUDED.log_offset"
-                        + (", full_at = now()" if report.checked == "all" else ""),
-                        (source, mark[0], mark[1]),
-                    )
+                    conn.execute(mark_sql, (source, mark[0], mark[1]))
         except psycopg.Error as exc:
             first = (str(exc).strip().splitlines() or ["database error"])[0]
             raise ArchiveError(

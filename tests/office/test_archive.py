@@ -149,10 +149,13 @@ def test_second_load_writes_nothing_and_one_change_rewrites_one_trip(tmp_path, d
     extra = new_trip(store, stops=3)
     archive.load(store, db)
     before = _xmins(db)
+    mark = "SELECT xmin::text, log_offset FROM load_sources"
+    feed_mark = _rows(db, mark)
     again = archive.load(store, db)
     # read from the store's change feed: nothing saved since, so no trip is even compared
     assert (again.loaded, again.sites_written, again.settings_written, again.checked) == (0, 0, 0, "feed")
     assert _xmins(db) == before  # not one row rewritten
+    assert _rows(db, mark) == feed_mark  # not even the feed's mark
     edit_stop_notes(store, extra.id, 1, "beaver dam upstream since last visit")
     third = archive.load(store, db)
     assert (third.loaded, third.loaded_ids) == (1, [extra.id])
@@ -161,6 +164,9 @@ def test_second_load_writes_nothing_and_one_change_rewrites_one_trip(tmp_path, d
     trip_stops = {("stops", s.id) for s in extra.stops}
     assert changed == {("trips", extra.id)} | trip_stops
     assert len({after[k] for k in changed}) == 1  # one transaction wrote them all
+    # ... and the feed's new mark with them: a load cut before that commit re-reads the same saves
+    [(mark_xmin, offset)] = _rows(db, mark)
+    assert mark_xmin == after[("trips", extra.id)] and offset > feed_mark[0][1]
     assert _rows(db, "SELECT notes FROM stops WHERE stop_id = %s", extra.stops[1].id) == [
         ("beaver dam upstream since last visit",)
     ]

@@ -170,6 +170,48 @@ def test_a_server_refusing_infinite_depth_is_walked(tmp_path, device_a):
         server.stop()
 
 
+def test_on_a_server_refusing_infinite_depth_a_pull_stays_within_five_requests(tmp_path, device_a):
+    """Issue target (common practice for this project): a pull with one trip changed costs ≤ 5
+    requests even where PROPFIND Depth: infinity is refused (RFC 4918 §9.1): the log's 4, plus one
+    Depth-1 PROPFIND of program/ whose folder dates say the site list and settings did not move.
+    A site list published later still arrives (its folder's date moved)."""
+    import time
+
+    from core.records.models import Site
+    from tests.sync.conftest import finite_depth_only, start_dav
+
+    seen: list = []
+    server = start_dav(tmp_path / "dav", wrap=lambda app: finite_depth_only(app, seen))
+    try:
+        device_a.save_sites([Site(id="TV-01", name="Scree Pool", elevation_m=820.0, water_class="cold")])
+        t = new_trip(device_a, stops=2)
+        sync.push(device_a, server.url, session=dav_session())
+        office = _office(tmp_path)
+        assert sync.pull(office, server.url, session=dav_session()).listed == "walk"
+        assert "TV-01" in office.sites_by_id()
+        time.sleep(changelog.FOLDER_SETTLE_S + 0.1)  # past the one-second steps of folder dates
+        sync.pull(office, server.url, session=dav_session())  # lists what settled only now
+        edit_stop_notes(device_a, t.id, 0, "beaver dam above the riffle")
+        sync.push(device_a, server.url, session=dav_session())
+        s = dav_session()
+        del seen[:]
+        report = sync.pull(office, server.url, session=s)
+        assert report.listed == "log" and [r.result for r in report.per_trip] == ["pulled"]
+        assert s.request_count <= 5, seen
+        assert ("PROPFIND", "infinity") not in seen  # nothing asked that the server refuses
+        quiet = dav_session()
+        assert sync.pull(office, server.url, session=quiet).per_trip == []
+        assert quiet.request_count <= 3
+        # a site list published later is still brought in
+        device_a.save_sites([Site(id="TV-02", name="Reed Flats", elevation_m=45.0, water_class="warm")])
+        assert sync.push(device_a, server.url, session=dav_session()).program == ["site list published"]
+        later = sync.pull(office, server.url, session=dav_session())
+        assert later.program and "TV-02" in later.program[0]
+        assert {"TV-01", "TV-02"} <= set(office.sites_by_id())
+    finally:
+        server.stop()
+
+
 def test_cli_pull_reads_the_log_and_full_walks(tmp_path, device_a, cli):
     hub = tmp_path / "hub"
     hub.mkdir()
