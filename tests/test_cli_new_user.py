@@ -151,3 +151,11 @@ def test_a_correction_to_a_sea_level_pressure_is_saved_and_warned_about(data):
     assert out.returncode == 0, out.stderr
     assert "LK-05" in out.stdout and "→ 1013.2 hPa" in out.stdout
     assert "pressure.sea_level_adjusted" in out.stdout and "520 m" in out.stdout
+
+
+def test_a_correction_to_a_site_not_on_the_list_is_refused(data):
+    # common practice: a stop belongs to a site of the program's list (the site's elevation and
+    # criteria judge it); a mistyped code must not create a stop nobody can place
+    argv = ("trip", "correct", LOWER, "--stop", "1", "--field", "site_id", "--value", "ZZ-9", "--reason", "moved")
+    line = _refused(run_cli(*argv, "--by", "D.M.", data_dir=data))
+    assert "--value for --field site_id" in line and "'ZZ-9' is not in the site list" in line and "LK-01" in line

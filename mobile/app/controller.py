@@ -46,7 +46,7 @@ SETTING_FIELDS = {
     "calibration_tolerance_mg_l": ("Calibration tolerance", "mg/L"),
     "warm_min_mg_l": ("Warm-water minimum", "mg/L"),
     "cold_min_mg_l": ("Cold-water minimum", "mg/L"),
-    "supersaturation_percent": ("Supersaturation limit", "%"),
+    "supersaturation_percent": ("Supersaturation threshold", "%"),
 }
 
 

@@ -107,9 +107,15 @@ def _correct(args: Any) -> int:  # noqa: ANN401
         fail("--reason is empty; say why the value is corrected (it is kept in the audit)")
     by = _who(args, store)
     said: dict[str, str] = {}
+    try:
+        site_ids = list(store.sites_by_id())
+    except StoreError as exc:
+        fail(str(exc))
 
     def apply(trip):  # noqa: ANN001, ANN202 - runs under the store's lock
-        new, said["what"] = correct(trip, stop, args.field, args.value, by=by, at=datetime.now(UTC), reason=reason)
+        new, said["what"] = correct(
+            trip, stop, args.field, args.value, by=by, at=datetime.now(UTC), reason=reason, site_ids=site_ids
+        )
         return new
 
     try:
