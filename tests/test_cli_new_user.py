@@ -141,3 +141,21 @@ def test_a_site_cell_that_is_not_a_number_reads_as_one_sentence(tmp_path):
     csv_file.write_text("site_id,name,elevation_m\nLK-01,Mill Ford,abc\n", encoding="utf-8")
     line = _refused(run_cli("sites", "import", str(csv_file), data_dir=tmp_path / "data"))
     assert "line 2, column elevation_m" in line and "is not a number; accepted:" in line
+
+
+def test_a_correction_to_a_sea_level_pressure_is_saved_and_warned_about(data):
+    # US Standard Atmosphere 1976: about 952 hPa at 520 m (LK-05 of the demo), so 1013.2 hPa there
+    # is a sea-level-adjusted value; the correction is the office's call, the check says so at once.
+    argv = ("trip", "correct", HOT, "--stop", "3", "--field", "station_pressure_hpa", "--value", "1013.2 hPa")
+    out = run_cli(*argv, "--reason", "barometer re-read", "--by", "D.M.", data_dir=data)
+    assert out.returncode == 0, out.stderr
+    assert "LK-05" in out.stdout and "→ 1013.2 hPa" in out.stdout
+    assert "pressure.sea_level_adjusted" in out.stdout and "520 m" in out.stdout
+
+
+def test_a_correction_to_a_site_not_on_the_list_is_refused(data):
+    # common practice: a stop belongs to a site of the program's list (the site's elevation and
+    # criteria judge it); a mistyped code must not create a stop nobody can place
+    argv = ("trip", "correct", LOWER, "--stop", "1", "--field", "site_id", "--value", "ZZ-9", "--reason", "moved")
+    line = _refused(run_cli(*argv, "--by", "D.M.", data_dir=data))
+    assert "--value for --field site_id" in line and "'ZZ-9' is not in the site list" in line and "LK-01" in line

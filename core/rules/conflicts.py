@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import copy
 import re
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from typing import Any
@@ -461,14 +462,23 @@ def settle(trip: Trip, ref: str, *, keep: int | None = None, value: str | None =
 
 
 def correct(
-    trip: Trip, stop: int, column: str, value: str, *, by: str = "", at: datetime | None = None, reason: str = ""
+    trip: Trip,
+    stop: int,
+    column: str,
+    value: str,
+    *,
+    by: str = "",
+    at: datetime | None = None,
+    reason: str = "",
+    site_ids: Iterable[str] = (),
 ) -> tuple[Trip, str]:
     """(the trip with one field of stop number `stop` corrected, a sentence saying what changed).
 
     `column` is a trip CSV export column (:data:`CORRECTABLE`); `value` is read as the app reads
     that field (a bare number in the column's unit). Computed columns are refused: correct the
     reading they come from. An approved trip gets the office's correction step (who, when, why;
-    core.rules.review), which needs `by`, `at` and `reason`.
+    core.rules.review), which needs `by`, `at` and `reason`. With `site_ids` (the site list), a stop
+    moves only to a site on that list.
     """
     col = str(column).strip()
     if col in _COMPUTED:
@@ -501,6 +511,14 @@ def correct(
             new = _parse("conductivity_is_sc25", value, bool(old))
         elif kind == "time":
             new = _parse_time(value, label_for(key))
+        elif key == "site_id":
+            new = str(value).strip()
+            known = {s.upper(): s for s in site_ids}
+            if known and new.upper() not in known:
+                raise ConflictError(
+                    f"{new!r} is not in the site list; accepted: one of {', '.join(sorted(known.values()))}"
+                )
+            new = known.get(new.upper(), new)
         else:
             new = str(value)
     except ConflictError as exc:

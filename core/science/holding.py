@@ -62,7 +62,7 @@ class HoldingRule:
 #: ``overrides`` argument of :func:`holding_clock`.
 HOLDING_TIMES: dict[str, HoldingRule] = {
     "do_probe": HoldingRule("do_probe", "dissolved oxygen, probe", 0.25, "none; analyze on site", _CFR),
-    # Fixing belongs on site at collection; the clock runs from collection (team science reference §10),
+    # Fixing belongs on site at collection; the clock runs from collection [common practice],
     # so a late fixing never buys time. core.science.winkler flags the collection-to-fixing delay.
     "do_winkler": HoldingRule(
         "do_winkler", "dissolved oxygen, Winkler", 8.0, "fix on site and store in the dark", _CFR

@@ -499,7 +499,7 @@ def do_mg_l_from_percent(percent, do_sat_mg_l):
 
 #: What a meter's % saturation is a percentage of: saturation at the local (station) pressure, or at
 #: 760 mmHg whatever the pressure. Meters differ; at 2000 m (about 795 hPa) the two differ by about 22 %
-#: (team science reference §10 [memory]). "local" is the default.
+#: (US Standard Atmosphere 1976 for the pressure; the meter conventions [common practice]). "local" is the default.
 PERCENT_BASES = ("local", "sea-level")
 
 

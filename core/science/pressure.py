@@ -307,7 +307,7 @@ def flat_pressure_flag(readings) -> Flag | None:
     References
     ----------
     US Standard Atmosphere 1976 (troposphere); the 0.12 hPa per metre rule of thumb follows from it
-    (team science reference §10).
+    (the barometric formula's slope near sea level).
     """
     rows = []
     for where, h, p in readings:

@@ -62,7 +62,7 @@ def fahrenheit_hint(temp_c: float) -> Flag | None:
             severity=Severity.NOTE,
             message=(
                 f"Water temperature {t:g} °C is warm for a stream; if this was °F it is {as_c:.1f} °C"
-                " (0–4 °C water), which changes the saturation by about half."
+                " (near-freezing winter water), which changes the saturation by about half."
             ),
             action="Nothing to do if the water is this warm; if the meter shows °F, enter the unit as °F.",
             field="temp_c",

@@ -217,8 +217,8 @@ def winkler_plausibility_flags(
 
     References
     ----------
-    Standard Methods 4500-O C (azide modification) [from memory]; team science reference §10 (fix at
-    collection; the clock runs from collection). Limits are common practice.
+    Standard Methods 4500-O C (azide modification) [from memory]: fix at collection; the holding
+    clock runs from collection [common practice]. Limits are common practice.
     """
     flags: list[Flag] = []
     if normality is not None:

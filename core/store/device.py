@@ -167,7 +167,7 @@ class DeviceStore:
         self._files = TripFiles(self._trips_dir)
         self._drafts = Drafts(self.data_dir / "drafts")
         self._index = SummaryIndex(self._index_dir)
-        self._tables = Tables(self.data_dir, self._quarantine)
+        self._tables = Tables(self.data_dir, self._quarantine, self._keep_copy)
         self._finalizer: Any = None  # in_memory(): removes the temporary folder with the store
         self._bases: tuple[Any, dict[str, str]] = (None, {})
 
@@ -306,6 +306,9 @@ class DeviceStore:
     # -- quarantine ------------------------------------------------------------------------
     def _quarantine(self, path: Path, reason: str) -> Path:
         return quarantine(self._quarantine_dir, f"{path.name}.{utc_stamp()}", reason, source=path)
+
+    def _keep_copy(self, name: str, data: bytes, reason: str) -> Path:
+        return quarantine(self._quarantine_dir, name, reason, data=data, refresh=True)
 
     def quarantined(self) -> list[Path]:
         """Files moved aside because they could not be read (oldest first), by name."""
@@ -906,6 +909,11 @@ class DeviceStore:
     def settings(self) -> ProgramSettings:
         """The program settings (defaults until saved)."""
         return self._tables.settings()
+
+    def left_out(self) -> dict[str, list[str]]:
+        """Parts of the stored settings and sites that the last read left out as not valid (by
+        record: "settings", "site LK-03"), each record kept whole in ``quarantine/``."""
+        return {k: list(v) for k, v in self._tables.left_out.items()}
 
     def save_settings(self, s: ProgramSettings) -> ProgramSettings:
         """Replaces the program settings."""

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from collections.abc import Callable, MutableMapping
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
 from pydantic import ValidationError
 from tinydb import TinyDB
@@ -18,7 +18,7 @@ from tinydb.middlewares import CachingMiddleware
 from tinydb.table import Document
 
 from core.records.models import SCHEMA_VERSION, ProgramSettings, Site
-from core.store.atomic import canonical_json_bytes
+from core.store.atomic import canonical_json_bytes, content_hash
 from core.store.errors import CorruptFile, NewerSchemaError, StoreWriteError
 from core.store.storage import AtomicJSONStorage, open_tinydb
 
@@ -35,6 +35,40 @@ def _stamp(path: Path) -> Stamp:
         return (0, 0)
 
 
+M = TypeVar("M", ProgramSettings, Site)
+
+
+def salvage(model: type[M], doc: dict[str, Any], *, rounds: int = 50) -> tuple[M | None, list[str]]:
+    """The record `doc` holds, keeping every valid part: each field (or list element, e.g. one
+    instrument log) that fails validation is left out, so one bad value never costs the rest.
+
+    Returns the record (None when even the remainder is not one, e.g. a site without its id) and
+    the parts left out, as dotted paths ("supersaturation_percent", "instruments.2"). Bounded:
+    at most `rounds` passes."""
+    work: dict[str, Any] = dict(doc)
+    dropped: list[str] = []
+    for _ in range(rounds):
+        try:
+            return model.model_validate_json(canonical_json_bytes(work)), dropped
+        except (ValidationError, ValueError) as exc:
+            errors = exc.errors() if isinstance(exc, ValidationError) else []
+            locs = [tuple(e.get("loc") or ()) for e in errors]
+            locs = [loc for loc in locs if loc and isinstance(loc[0], str) and loc[0] in work]
+            if not locs:
+                return None, [*dropped, "(the whole record)"]
+            # list elements first, from the highest index, so earlier indexes stay right
+            for loc in sorted(set(locs), key=lambda loc: -(loc[1] if len(loc) > 1 and isinstance(loc[1], int) else -1)):
+                key = str(loc[0])
+                value = work.get(key)
+                if len(loc) > 1 and isinstance(loc[1], int) and isinstance(value, list) and loc[1] < len(value):
+                    work[key] = value[: loc[1]] + value[loc[1] + 1 :]
+                    dropped.append(f"{key}.{loc[1]}")
+                elif key in work:
+                    del work[key]
+                    dropped.append(key)
+    return None, [*dropped, "(the whole record)"]
+
+
 def _replace_with(new: dict[str, Any]) -> Callable[[MutableMapping[Any, Any]], None]:
     """A TinyDB update that replaces a document's fields (keys it no longer has are dropped)."""
 
@@ -48,10 +82,20 @@ def _replace_with(new: dict[str, Any]) -> Callable[[MutableMapping[Any, Any]], N
 class Tables:
     """The site list and the program settings of one data folder."""
 
-    def __init__(self, data_dir: Path, quarantine: Callable[[Path, str], Path]):
+    def __init__(
+        self,
+        data_dir: Path,
+        quarantine: Callable[[Path, str], Path],
+        keep_copy: Callable[[str, bytes, str], Path] | None = None,
+    ):
         self.sites_path = Path(data_dir) / "sites.json"
         self.settings_path = Path(data_dir) / "settings.json"
         self._quarantine = quarantine
+        # keep_copy(name, data, reason): a copy of a stored record that could be read only in part
+        # is set aside before anything could overwrite it (the store passes its quarantine folder)
+        self._keep_copy = keep_copy
+        #: Parts of the stored settings and sites left out as invalid on the last read, by record.
+        self.left_out: dict[str, list[str]] = {}
         self._sites_cache: tuple[Stamp, dict[str, Site]] | None = None
         self._settings_cache: tuple[Stamp, ProgramSettings] | None = None
 
@@ -83,13 +127,30 @@ class Tables:
             table = {}
         sites: dict[str, Site] = {}
         for doc in table.values():
-            try:
-                site = Site.model_validate_json(canonical_json_bytes(doc))
-            except (ValidationError, ValueError):
-                continue
-            sites[site.id] = site
+            site, dropped = salvage(Site, doc)
+            if dropped:
+                self._set_aside(f"site {doc.get('id', '?')}", "sites.json", doc, dropped)
+            if site is not None:
+                sites[site.id] = site
         self._sites_cache = (stamp, sites)
         return dict(sites)
+
+    def _set_aside(self, what: str, file: str, doc: dict[str, Any], dropped: list[str]) -> None:
+        """Notes the parts left out of a stored record and keeps a copy of the whole record (once per
+        content: the copy's name carries its hash), so a later save cannot lose what was there."""
+        self.left_out[what] = dropped
+        if self._keep_copy is None:
+            return
+        data = canonical_json_bytes(doc)
+        digest = content_hash(doc).split(":", 1)[-1][:12]
+        reason = (
+            f"{what} in {file}: left out as not valid on reading: {', '.join(dropped)}; this is the whole"
+            " record as it was stored."
+        )
+        try:
+            self._keep_copy(f"{file}.{digest}.partly-read", data, reason)
+        except OSError:
+            pass  # the record is still in its file; a later read tries again
 
     def write_sites(self, checked: list[Site]) -> None:
         """Adds or replaces sites by id in one atomic write (lock held by the caller)."""
@@ -132,10 +193,10 @@ class Tables:
                 raise NewerSchemaError(
                     "The settings were saved by a newer streamtab; update this one.", doc.get("schema_version")
                 )
-            try:
-                settings = ProgramSettings.model_validate_json(canonical_json_bytes(doc))
-            except (ValidationError, ValueError):
-                settings = ProgramSettings()
+            salvaged, dropped = salvage(ProgramSettings, doc)
+            if dropped:
+                self._set_aside("settings", "settings.json", doc, dropped)
+            settings = salvaged if salvaged is not None else ProgramSettings()
         self._settings_cache = (stamp, settings)
         return settings
 

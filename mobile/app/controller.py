@@ -46,7 +46,7 @@ SETTING_FIELDS = {
     "calibration_tolerance_mg_l": ("Calibration tolerance", "mg/L"),
     "warm_min_mg_l": ("Warm-water minimum", "mg/L"),
     "cold_min_mg_l": ("Cold-water minimum", "mg/L"),
-    "supersaturation_percent": ("Supersaturation limit", "%"),
+    "supersaturation_percent": ("Supersaturation threshold", "%"),
 }
 
 
@@ -170,6 +170,26 @@ class AppController:
     def settings(self) -> Any:
         """The program settings (core.records.models.ProgramSettings) from the store."""
         return self.store.settings()
+
+    def settings_notice(self) -> str:
+        """What the settings screen says when stored settings held values the limits now refuse."""
+        try:
+            self.store.settings()
+        except Exception:  # noqa: BLE001 - unreadable settings are reported where they are read
+            return ""
+        from core.records.messages import label_for
+
+        dropped = self.store.left_out().get("settings")
+        if not dropped:
+            return ""
+        named = []
+        for path in dropped:
+            field, _, index = path.partition(".")
+            named.append(f"{label_for(field)} no. {int(index) + 1}" if index.isdigit() else label_for(field))
+        return (
+            f"▲ Stored settings held values outside today's limits ({', '.join(named)}): defaults are"
+            " shown for them. The stored record is kept whole in the quarantine folder; Save to keep these."
+        )
 
     def load_prefs(self) -> None:
         """Units and hub from this device's app-prefs.json; method, criteria, tolerance from the program settings."""

@@ -62,7 +62,12 @@ class DilutionLine:
 
 def _left(seconds: float) -> str:
     s = abs(seconds)
-    txt = f"{s / 60:.0f} min" if s < 3600 else (f"{s / 3600:.1f} h" if s < 48 * 3600 else f"{s / 86400:.1f} days")
+    # a no-break space keeps a number with its unit when the list's line wraps
+    txt = (
+        f"{s / 60:.0f}\u00a0min"
+        if s < 3600
+        else (f"{s / 3600:.1f}\u00a0h" if s < 48 * 3600 else f"{s / 86400:.1f}\u00a0days")
+    )
     return f"{txt} left" if seconds >= 0 else f"expired {txt} ago"
 
 

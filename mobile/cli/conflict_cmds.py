@@ -107,9 +107,15 @@ def _correct(args: Any) -> int:  # noqa: ANN401
         fail("--reason is empty; say why the value is corrected (it is kept in the audit)")
     by = _who(args, store)
     said: dict[str, str] = {}
+    try:
+        site_ids = list(store.sites_by_id())
+    except StoreError as exc:
+        fail(str(exc))
 
     def apply(trip):  # noqa: ANN001, ANN202 - runs under the store's lock
-        new, said["what"] = correct(trip, stop, args.field, args.value, by=by, at=datetime.now(UTC), reason=reason)
+        new, said["what"] = correct(
+            trip, stop, args.field, args.value, by=by, at=datetime.now(UTC), reason=reason, site_ids=site_ids
+        )
         return new
 
     try:
@@ -120,13 +126,40 @@ def _correct(args: Any) -> int:  # noqa: ANN401
         fail(str(exc))
     except StoreError as exc:
         fail(f"nothing was saved: {exc}")
+    findings = _stop_findings(store, saved, stop)
     if args.json:
         emit_json(
-            {"trip_id": saved.id, "revision": saved.revision, "changed": said.get("what"), "by": by, "reason": reason}
+            {
+                "trip_id": saved.id,
+                "revision": saved.revision,
+                "changed": said.get("what"),
+                "by": by,
+                "reason": reason,
+                "flags": [f.to_dict() for f in findings],
+            }
         )
         return 0
     sys.stdout.write(f"corrected {said.get('what')} — by {by}: {reason} (revision {saved.revision})\n")
+    for f in findings:  # what the checks say about the stop now, as 'trip show' prints it
+        sys.stdout.write(f"  [{f.severity.value}] {f.code}: {f.message}\n")
     return 0
+
+
+def _stop_findings(store: Any, trip: Any, number: int) -> list:  # noqa: ANN401
+    """The checks' findings on stop `number` (route order, as 'trip show' numbers them) of a saved trip."""
+    from core.rules.qc import trip_flags
+
+    route = sorted(trip.stops, key=lambda s: s.arrived_at)
+    if not 1 <= number <= len(route):
+        return []
+    flags = trip_flags(
+        trip,
+        store.settings(),
+        datetime.now(UTC),
+        other_bottle_labels=store.bottle_labels_in_use(),
+        sites=store.sites_by_id(),
+    )
+    return list(flags.get(route[number - 1].id, []))
 
 
 def _conflicts(args: Any) -> int:  # noqa: ANN401

@@ -346,6 +346,8 @@ def _trip_export(args) -> int:  # noqa: ANN001
                     sys.stdout.write(f"# {name}\n{text}")
     except (StoreError, ExchangeError) as exc:
         fail(str(exc))
+    except BrokenPipeError:
+        raise  # the reader of standard output stopped (`| head`): main() ends quietly
     except OSError as exc:
         fail(f"--out {args.out}: cannot write ({exc.strerror}).")
     return 0

@@ -429,21 +429,12 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
     for c in rep.cautions:
         sheet.para(c, size=8)
 
-    def step(d: int, unit: str) -> str:
-        return f"{10**-d:.{d}f} {unit}" if d > 0 else f"1 {unit}"
+    from core.rules.report import rounding_note
 
     sheet.para(
-        "Values are shown rounded as the program's settings say — DO "
-        + step(rnd.do_mg_l, "mg/L")
-        + ", % saturation "
-        + step(rnd.percent, "%")
-        + ", temperature "
-        + step(rnd.temp_c, "°C")
-        + ", pressure "
-        + step(rnd.pressure_hpa, "hPa")
-        + f", specific conductance {rnd.conductivity_sig}"
-        " significant figures, BOD5 " + step(rnd.bod_mg_l, "mg/L") + ". Stored values keep their full"
-        " precision; readings are printed as they were typed.",
+        "Values are shown rounded as the program's settings say ("
+        + rounding_note(rnd).removeprefix("reported: ")
+        + "). Stored values keep their full precision; readings are printed as they were typed.",
         size=7.5,
         grey=True,
     )

@@ -252,7 +252,7 @@ def test_settings_limits_are_the_records_own(ctl):
     assert ctl.store.settings().calibration_tolerance_mg_l == 0.5
     for name, text, words in (
         ("calibration_tolerance_mg_l", "0", "Calibration tolerance"),
-        ("supersaturation_percent", "99", "Supersaturation limit"),
+        ("supersaturation_percent", "99", "Supersaturation threshold"),
         ("warm_min_mg_l", "", "Warm-water minimum"),
     ):
         msg = ctl.save_settings_form(units, {**ok, name: text}, "")

@@ -256,3 +256,32 @@ def test_cli_show_lists_open_conflicts(tmp_path):
     line = next(x for x in r.stdout.splitlines() if "[needs attention]" in x)
     assert "“riffle”" in line and "“pool”" in line and "Notes" in line
     assert "tablet-b" not in r.stdout and "'path'" not in r.stdout
+
+
+def test_csv_to_a_closed_pipe_ends_quietly(store):
+    """`trip export --format csv | head` whose reader has gone: exit 0, no message about --out (common practice)."""
+    import os
+    import subprocess
+    import sys
+
+    from tests.conftest import cli_env
+
+    trip = store.save_trip(make_trip([make_stop()]), "x")
+    read_end, write_end = os.pipe()
+    os.close(read_end)  # the reader stopped before anything was written
+    try:
+        r = subprocess.run(
+            [sys.executable, "-m", "mobile.cli", "trip", "export", trip.id, "--format", "csv"]
+            + ["--data-dir", str(store.data_dir)],
+            stdout=write_end,
+            stderr=subprocess.PIPE,
+            text=True,
+            env=cli_env(),
+            cwd=ROOT,
+            timeout=120,
+            check=False,
+        )
+    finally:
+        os.close(write_end)
+    assert r.returncode == 0, r.stderr
+    assert "--out" not in r.stderr and "None" not in r.stderr and "Traceback" not in r.stderr, r.stderr

@@ -135,7 +135,7 @@ def test_measure_keeps_text_value_and_unit():
     q = measure("pressure", "752 mmHg")
     assert q.text == "752 mmHg" and q.entered_value == 752.0 and q.entered_unit == "mmHg"
     assert q.unit == "hPa"
-    # 760 mmHg ≈ 1013.25 hPa (SCIENCE.md §4; the conventional mmHg differs from the torr by 1.4e-7)
+    # 760 mmHg ≈ 1013.25 hPa (US Standard Atmosphere 1976 units; the conventional mmHg differs from the torr by 1.4e-7)
     assert q.value == pytest.approx(752 * 1013.25 / 760, rel=1e-6)
 
 

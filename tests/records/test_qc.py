@@ -31,7 +31,7 @@ def stop_codes(*stops, **kw):
     return [found[s.id] for s in trip.stops] if len(stops) > 1 else found[trip.stops[0].id]
 
 
-# 1 atm = 1013.25 hPa; at 20 °C, S = 0 the saturation is 9.092 mg/L (Benson & Krause 1984, SCIENCE.md §1).
+# 1 atm = 1013.25 hPa; at 20 °C, S = 0 the saturation is 9.092 mg/L (Benson & Krause 1984).
 ATM = "1013.25 hPa"
 
 
@@ -85,7 +85,8 @@ def test_hypoxic_fires_and_passes():
 
 # -- calibration ----------------------------------------------------------------------------
 def test_pre_calibration_far_from_target_fires():
-    # target 9.092 mg/L at 20 °C, 1 atm (SCIENCE.md §5 and §1); 9.50 is 0.41 off, tolerance ±0.2 (common practice)
+    # target 9.092 mg/L at 20 °C, 1 atm (Benson & Krause 1984; air calibration per USGS NFM A6.2);
+    # 9.50 is 0.41 off, tolerance ±0.2 (common practice)
     found, _ = codes([make_stop()], pre_calibration=make_cal(9.50))
     assert "calibration.out_of_tolerance" in found[TRIP_KEY]
 
@@ -94,7 +95,7 @@ def test_pre_calibration_within_tolerance_passes():
     found, trip = codes([make_stop()], pre_calibration=make_cal(9.10))
     assert "calibration.out_of_tolerance" not in found[TRIP_KEY]
     assert trip.pre_calibration.accepted is True
-    assert trip.pre_calibration.target_mg_l == pytest.approx(9.092, abs=0.002)  # SCIENCE.md §1
+    assert trip.pre_calibration.target_mg_l == pytest.approx(9.092, abs=0.002)  # Benson & Krause (1984)
 
 
 def test_calibration_missing_fires_and_passes():

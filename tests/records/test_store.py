@@ -35,7 +35,7 @@ def test_save_and_load_round_trip(store):
 def test_save_derives_with_method_and_core_version(store):
     trip = store.save_trip(make_trip([make_stop(temp="20", pressure="1013.25 hPa", cond=None, do="9.092")]), "x")
     d = trip.stops[0].derived
-    # Benson & Krause (1984) / SCIENCE.md §1 check value: 20 °C, S = 0, 1 atm → 9.092 mg/L
+    # Benson & Krause (1984) check value: 20 °C, S = 0, 1 atm → 9.092 mg/L
     assert d.do_sat_mg_l == pytest.approx(9.092, abs=0.002)
     assert d.percent_saturation == pytest.approx(100.0, abs=0.05)
     assert d.method == "benson-krause" and d.core_version and d.salinity_source == "default"
@@ -45,7 +45,7 @@ def test_derive_recomputed_when_inputs_change(store):
     trip = store.save_trip(make_trip([make_stop(temp="20", pressure="1013.25 hPa", cond=None)]), "x")
     stop = trip.stops[0].model_copy(update={"temp": measure("temp", "10")})
     trip = store.save_stop(trip.id, stop)
-    # SCIENCE.md §1: 10 °C, S = 0, 1 atm → 11.288 mg/L (Benson & Krause 1984)
+    # Benson & Krause (1984): 10 °C, S = 0, 1 atm → 11.288 mg/L
     assert trip.stops[0].derived.do_sat_mg_l == pytest.approx(11.288, abs=0.002)
 
 
@@ -113,7 +113,7 @@ def test_put_document_rederives_foreign_values(store):
     doc["stops"][0]["derived"]["basis"] = "forged"
     doc["notes"] = "x"
     got = store.put_document(doc, "import", expected_revision=1)
-    assert got.stops[0].derived.do_sat_mg_l == pytest.approx(9.092, abs=0.002)  # SCIENCE.md §1
+    assert got.stops[0].derived.do_sat_mg_l == pytest.approx(9.092, abs=0.002)  # Benson & Krause (1984)
 
 
 def test_put_document_invalid_writes_nothing(store):
@@ -405,7 +405,9 @@ def test_in_memory_store_same_save_path_and_removed_on_close():
     s = DeviceStore.in_memory()
     root = s.data_dir
     trip = s.save_trip(make_trip([make_stop(temp="20", pressure="1013.25 hPa", cond=None)]), "x")
-    assert s.load_trip(trip.id).stops[0].derived.do_sat_mg_l == pytest.approx(9.092, abs=0.002)  # SCIENCE.md §1
+    assert s.load_trip(trip.id).stops[0].derived.do_sat_mg_l == pytest.approx(
+        9.092, abs=0.002
+    )  # Benson & Krause (1984)
     assert (root / "trips" / f"{trip.id}.json").exists()
     s.close()
     assert not root.exists()

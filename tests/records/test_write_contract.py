@@ -166,6 +166,42 @@ def test_two_writers_a_cli_command_waiting_on_the_lock_keeps_the_other_change(st
     assert stored.revision == noted.revision + 1
 
 
+def test_six_commands_started_together_all_land(store):
+    """Six real `streamtab custody add` processes on one trip at once: each reads and writes under
+    the store's lock, so all six hand-offs are stored and none is refused as stale (common
+    practice: read–modify–write under one lock). A command that read outside the lock would meet
+    the others' saves and be refused."""
+    trip = store.save_trip(make_trip([make_stop(bottles=[make_bottle("TV-0001")])]), "new")
+    children = [
+        subprocess.Popen(
+            [
+                sys.executable,
+                "-m",
+                "mobile.cli",
+                "custody",
+                "add",
+                trip.id,
+                "--from",
+                f"Courier {n}",
+                "--to",
+                f"Desk {n}",
+            ]
+            + ["--data-dir", str(store.data_dir)],
+            cwd=ROOT,
+            env=cli_env(),
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
+        for n in range(6)
+    ]
+    errors = [c.communicate(timeout=120)[1] for c in children]
+    assert [c.returncode for c in children] == [0] * 6, errors
+    stored = store.load_trip(trip.id)
+    assert sorted(c.relinquished_by for c in stored.custody) == [f"Courier {n}" for n in range(6)]
+    assert stored.revision == trip.revision + 6
+
+
 def test_update_trip_that_fails_writes_nothing(store):
     trip = store.save_trip(make_trip([make_stop()]), "new")
     before = store.trip_document(trip.id)

@@ -125,7 +125,7 @@ def test_incubation_window():
         incubation_check(t0, datetime(2026, 6, 6, 9, 0))
 
 
-# --- reporting (Standard Methods 5210 B [from memory]; SCIENCE.md §10) -----------------------------------
+# --- reporting (Standard Methods 5210 B [from memory]) -----------------------------------
 
 
 def D(d1, d2, ml, bottle=300.0):

@@ -28,7 +28,7 @@ def test_three_digits_after_a_comma_are_refused(text):
 
 
 def test_parsers_refuse_the_ambiguous_comma_and_take_the_plain_one():
-    # 1 atm = 1013.25 hPa (SCIENCE.md §4, US Standard Atmosphere 1976)
+    # 1 atm = 1013.25 hPa (US Standard Atmosphere 1976)
     assert read("pressure", "1013,25 hPa", "p").value == pytest.approx(1013.25, abs=1e-9)
     with pytest.raises(ValueError, match="ambiguous"):
         read("pressure", "1,013 atm", "p")
@@ -52,7 +52,7 @@ def test_cli_takes_a_decimal_comma():
     # from memory): 7.3 mL titrant, 201 mL titrated of a 300 mL bottle with 2 mL of reagents
     out = run_cli("winkler", "--titrant-ml", "7,3", "--normality", "0,025", "--titrated-ml", "201", "--json")
     assert out.returncode == 0, out.stderr
-    # DO = V·N·8000 / V_original, V_original = 201 × (300 − 2)/300 (SCIENCE.md §6)
+    # DO = V·N·8000 / V_original, V_original = 201 × (300 − 2)/300 (Standard Methods 4500-O C, from memory)
     expected = 7.3 * 0.025 * 8000 / (201 * (300 - 2) / 300)
     assert json.loads(out.stdout)["do_mg_l"] == pytest.approx(expected, rel=1e-9)
 

@@ -24,7 +24,7 @@ def test_sea_level_basis_at_altitude_gives_the_right_mg_l():
     local = meter_percent_to_mg_l(92.0, 15.0, P_2000M, basis="local")
     assert sea == pytest.approx(0.92 * do_saturation_mg_l(15.0, 1013.25, 0.0), rel=1e-12)
     assert local == pytest.approx(0.92 * do_saturation_mg_l(15.0, P_2000M, 0.0), rel=1e-12)
-    # SCIENCE.md §10: at 2000 m the two bases differ by about 22 % (795/1013 = 0.785)
+    # US Standard Atmosphere 1976: about 795 hPa at 2000 m, so the two bases differ by about 22 % (795/1013 = 0.785)
     assert 1 - local / sea == pytest.approx(0.22, abs=0.01)
     # at sea level the basis does not matter (the rule not firing)
     assert meter_percent_to_mg_l(92.0, 15.0, 1013.25, basis="sea-level") == pytest.approx(

@@ -26,5 +26,8 @@ def test_fahrenheit_hint():
     n = fahrenheit_hint(35.0)
     assert n is not None and n.code == "temp.maybe_fahrenheit" and n.severity.value == "note"
     assert "1.7 °C" in n.message and fahrenheit_hint(40.0).code == "temp.maybe_fahrenheit"
+    # 40 °F is 4.4 °C: the note gives that value and no range it would contradict ("0–4 °C")
+    top = fahrenheit_hint(40.0).message
+    assert "4.4 °C" in top and "0–4 °C" not in top
     with pytest.raises(ValueError, match="^temp_c"):
         fahrenheit_hint(float("nan"))

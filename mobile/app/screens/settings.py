@@ -36,7 +36,7 @@ class SettingsScreen(BaseScreen):
         self.cold_entry.text = f"{p.cold_min_mg_l:g}"
         self.super_entry.text = f"{p.supersaturation_percent:g}"
         self.target_entry.text = p.sync_target
-        self.message = ""
+        self.message = ctl().settings_notice()
 
     def save(self):
         units = {
