@@ -66,13 +66,14 @@ def store_location(data_dir: str | None) -> str:
     return f"the user data folder ({root})"
 
 
-def open_store(data_dir: str | None, *, create: bool = False):
+def open_store(data_dir: str | None, *, create: bool = False, locked_raises: bool = False):
     """The device store at --data-dir (else $STREAMTAB_DATA, else the user folder), or a one-line error.
 
     Only a command that saves something a person gave it may create a store (`create`), and it
     says so on stderr; every other command refuses a folder that holds no store, so a mistyped
-    --data-dir never leaves an empty store behind."""
-    from core.store import DeviceStore, StoreError
+    --data-dir never leaves an empty store behind. With `locked_raises`, a store busy past the lock
+    timeout raises core.store.StoreLocked (sync reports it as "will retry", exit 1)."""
+    from core.store import DeviceStore, StoreError, StoreLocked
     from core.store.paths import is_store, resolve_data_dir
 
     root = resolve_data_dir(data_dir)
@@ -88,6 +89,8 @@ def open_store(data_dir: str | None, *, create: bool = False):
             sys.stderr.write(f"streamtab: note: created a new device store at {root}\n")
         return store
     except StoreError as exc:
+        if locked_raises and isinstance(exc, StoreLocked):
+            raise
         fail(str(exc))
     except OSError as exc:
         fail(

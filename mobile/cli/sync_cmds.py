@@ -98,7 +98,7 @@ class _Bar:
 
 
 def _open_store(args: Any, *, create: bool = False):  # noqa: ANN202
-    return open_store(args.data_dir, create=create)
+    return open_store(args.data_dir, create=create, locked_raises=True)
 
 
 def _timeout(args: Any) -> float:
@@ -159,7 +159,10 @@ def _run(args: Any, verb: str, address: str):  # noqa: ANN202
             probe = Session(connect_timeout_s=min(10.0, _timeout(args)))
             _check_address(probe, address, "--from")
             probe.close()
-    store = _open_store(args, create=verb == "pull")
+    try:
+        store = _open_store(args, create=verb == "pull")
+    except StoreLocked as exc:  # another writer holds the store: a sync tries again later
+        return None, str(exc)
     session = _session(args, store, address)
     _check_address(session, address, "--to" if verb == "push" else "--from")
     bar = _Bar(verb)
@@ -250,7 +253,7 @@ def _details(per_trip: list) -> None:
 def _status(args: Any) -> int:
     import sync
 
-    store = _open_store(args)
+    store = open_store(args.data_dir)
     states = sync.status(store)
     if args.json:
         emit_json({"trips": [s.to_dict() for s in states]})

@@ -91,3 +91,19 @@ def test_credentials_from_environment_in_the_cli(tmp_path, dav):
     wrong = cli_env(STREAMTAB_SYNC_USER=DAV_USER, STREAMTAB_SYNC_PASSWORD="nope-nope")
     out = run_cli("sync", "pull", "--from", dav.url, data_dir=tmp_path / "office", env=wrong)
     assert out.returncode == 2 and "401" in out.stderr and "nope-nope" not in out.stderr
+
+
+def test_a_store_busy_past_the_lock_timeout_is_a_retry_not_bad_input(tmp_path):
+    """Exit 1 "will retry" (issue 5's exit codes) when another writer holds the store, whether the
+    lock is met opening the store or during the push; status says so in one line."""
+    store = open_store(tmp_path / "dev", "tablet-A")
+    new_trip(store)
+    hub = tmp_path / "hub"
+    hub.mkdir()
+    with store.locked():  # another writer, for longer than the 5 s lock timeout
+        out = run_cli("sync", "push", "--to", str(hub), data_dir=store.data_dir)
+        status = run_cli("sync", "status", data_dir=store.data_dir)
+    assert out.returncode == 1, out.stderr
+    assert "will retry" in out.stderr and "Traceback" not in out.stderr
+    assert "is busy" in status.stderr and "Traceback" not in status.stderr
+    assert run_cli("sync", "push", "--to", str(hub), data_dir=store.data_dir).returncode == 0
