@@ -1,0 +1,240 @@
+"""The trip report read the way a program's lab analyst and QA officer read it: every page's text
+read back with pdftotext (poppler) and pypdf, from a store filled through the command line."""
+
+from __future__ import annotations
+
+import re
+import subprocess
+from datetime import datetime, timedelta, timezone
+from pathlib import Path
+
+import pytest
+from pypdf import PdfReader
+
+from tests.conftest import ROOT, run_cli
+
+SAMPLES = ROOT / "sample_trips"
+HOT = "a41f6e2d"  # sample trip of 2026-06-23 (invented); two of its bottles share the label TV-0701
+UPPER = "c9e2d4b7"  # sample trip of 2026-06-30 (invented), one Winkler bottle
+PDT = timezone(timedelta(hours=-7))
+
+
+def _ok(*args: str, data: Path) -> None:
+    r = run_cli(*args, data_dir=data)
+    assert r.returncode == 0, r.stderr
+
+
+@pytest.fixture(scope="module")
+def store(tmp_path_factory) -> Path:
+    base = tmp_path_factory.mktemp("reading")
+    data = base / "d"
+    _ok("sites", "import", str(SAMPLES / "sites.csv"), data=data)
+    for f in sorted(SAMPLES.glob("trip-*.json")):
+        _ok("trip", "import", str(f), data=data)
+    # Winkler (Standard Methods 4500-O C): 0.025 N titrant on about 200 mL original sample, so
+    # 1 mL of titrant is about 1 mg/L (from memory); a re-titration supersedes the first result.
+    winkler = ("--titrated-ml", "201", "--normality", "0.025", "--analyst", "A.B.")
+    _ok("lab", "winkler", HOT, "TV-0701", "--at", "2026-06-23T11:00-07:00", "--titrant-ml", "7.9", *winkler, data=data)
+    _ok(
+        "lab",
+        "winkler",
+        HOT,
+        "TV-0701",
+        "--at",
+        "2026-06-23T11:30-07:00",
+        "--titrant-ml",
+        "8.1",
+        "--redo",
+        "end point overshot",
+        *winkler,
+        data=data,
+    )
+    # Titrated a day after collection: past the 8 h Winkler holding time (Standard Methods 4500-O).
+    _ok(
+        "lab", "winkler", UPPER, "TV-0721", "--at", "2026-07-01T09:00-07:00", "--titrant-ml", "8.5", *winkler, data=data
+    )
+    # BOD5 (Standard Methods 5210 B): no dilution depleted 2 mg/L, so the result is a bound "< 2.0 mg/L".
+    low = base / "low.json"
+    low.write_text(
+        '[{"initial_do_mg_l": 8.8, "final_do_mg_l": 8.5, "sample_ml": 300},'
+        ' {"initial_do_mg_l": 8.8, "final_do_mg_l": 8.7, "sample_ml": 150}]'
+    )
+    bod = (
+        "--blank-depletion",
+        "0.1",
+        "--gga",
+        "198",
+        "--incubation-start",
+        "2026-06-24T09:00-07:00",
+        "--incubation-end",
+        "2026-06-29T09:00-07:00",
+        "--incubator-temp",
+        "20.1",
+        "--at",
+        "2026-06-29T09:00-07:00",
+        "--analyst",
+        "C.D.",
+    )
+    _ok("lab", "bod", HOT, "TV-0703", "--dilutions", str(low), *bod, data=data)
+    _ok("custody", "add", HOT, "--from", "J.V.", "--to", "M.K.", "--at", "2026-06-23T12:00-07:00", data=data)
+    _ok(
+        "custody",
+        "add",
+        HOT,
+        "--from",
+        "M.K.",
+        "--to",
+        "Lab intake",
+        "--lab",
+        "--at",
+        "2026-06-23T16:30-07:00",
+        "--temp",
+        "9.5 C",
+        "--condition",
+        "intact, ice melted",
+        data=data,
+    )
+    return data
+
+
+@pytest.fixture(scope="module")
+def reports(store, tmp_path_factory) -> dict[str, Path]:
+    out = {}
+    base = tmp_path_factory.mktemp("pdf")
+    for trip in (HOT, UPPER):
+        pdf = base / f"{trip}.pdf"
+        _ok("report", trip, "--out", str(pdf), data=store)
+        out[trip] = pdf
+    return out
+
+
+def _pages(pdf: Path) -> list[str]:
+    count = len(PdfReader(str(pdf)).pages)
+    return [
+        subprocess.run(
+            ["pdftotext", "-layout", "-f", str(n), "-l", str(n), str(pdf), "-"],
+            check=True,
+            capture_output=True,
+            text=True,
+        ).stdout
+        for n in range(1, count + 1)
+    ]
+
+
+def _flat(pdf: Path) -> str:
+    return re.sub(r"\s+", " ", " ".join(_pages(pdf)))
+
+
+def test_no_machine_name_reaches_the_reader(reports):
+    """Analytes, bottle kinds, finding codes and severities print in words (common practice: a
+    filed report is read by people, not parsers)."""
+    for pdf in reports.values():
+        flat = _flat(pdf)
+        for name in ("do_winkler", "bod5", "[warning]", "[note]", "[stop-and-check]"):
+            assert name not in flat, (pdf.name, name)
+        assert not re.search(r"\b(lab|bod|holding|custody|do|bottle|stop)\.[a-z_]+\b", flat), pdf.name
+    hot = _flat(reports[HOT])
+    assert "DO (Winkler)" in hot and "BOD5" in hot
+    assert "DO, fixed on site" in hot and "BOD, chilled" in hot
+
+
+def test_bounds_superseded_and_invalid_results_are_marked(reports):
+    """A bound prints with its qualifier (Standard Methods 5210 B); a superseded result stays, marked;
+    a result the bench rules refused says why (common practice)."""
+    hot = _flat(reports[HOT])
+    assert "< 2.0 mg/L" in hot
+    assert "(7.9 mg/L)" in hot and "superseded by" in hot and "8.1 mg/L" in hot
+    assert "not valid" in hot and "No dilution used 2 mg/L of oxygen" in hot
+    assert "Bench findings on results in use" in hot
+    upper = _flat(reports[UPPER])
+    assert "past holding" in upper and "past the 8 h Winkler holding time" in upper
+
+
+def test_holding_findings_name_the_bottle_and_its_deadline_with_its_zone(reports):
+    """A filed report says when a holding time ended, in the zone of the record; never "N d ago",
+    which changes with the day it is printed (common practice)."""
+    hot = _flat(reports[HOT])
+    assert "Bottle TV-0703 (biochemical oxygen demand) has no valid result on record" in hot
+    assert "ended 2026-06-25 10:10 UTC−07:00" in hot
+    for pdf in reports.values():
+        flat = _flat(pdf)
+        assert not re.search(r"\d d ago", flat), pdf.name
+        assert not re.search(r"\d{4}-\d\d-\d\dT\d\d:\d\d", flat), pdf.name  # no ISO "T" times for people
+
+
+def test_every_page_says_the_review_state_and_the_cautions_print_once(reports):
+    """The review state on every page, so a page read alone is never taken for a reviewed one; the
+    cautions once per report (common practice)."""
+    for pdf in reports.values():
+        pages = _pages(pdf)
+        for n, text in enumerate(pages, start=1):
+            assert "review: " in text, (pdf.name, n)
+        flat = _flat(pdf)
+        assert flat.count("Wading: enter the water") == 1
+        assert flat.count("concentrated sulfuric acid burns") == 1
+        assert flat.count("This report informs") == 1
+    assert "review: ended, not reviewed yet" in _pages(reports[HOT])[0]
+    assert "review: in progress" in _pages(reports[UPPER])[-1]
+
+
+def test_table_headings_print_whole_and_the_stops_table_gives_specific_conductance(reports):
+    """No heading word cut across lines (common practice); specific conductance at 25 °C printed
+    with its unit."""
+    words = set()
+    for page in PdfReader(str(reports[HOT])).pages:
+        words |= set((page.extract_text() or "").split())
+    for heading in ("saturation, %", "sp. cond. at 25 °C, µS/cm", "criterion, mg/L", "sat. target, mg/L"):
+        for w in heading.split():
+            assert w in words, (heading, w)
+    assert "2100" in _flat(reports[HOT])  # LK-03: 1.62 mS/cm at 13.1 °C is about 2100 µS/cm at 25 °C
+
+
+def test_no_page_is_left_with_a_stray_line_and_the_plot_shares_the_first_page(reports):
+    """Sections follow one another; no page but the last carries fewer than four lines of body
+    (common practice in typesetting: no widows)."""
+    for pdf in reports.values():
+        pages = _pages(pdf)
+        assert "Dissolved oxygen by stop" in pages[0], pdf.name
+        assert len(PdfReader(str(pdf)).pages[0].images) == 1
+        for n, text in enumerate(pages[:-1], start=1):
+            body = [
+                line
+                for line in text.splitlines()[2:]
+                if line.strip() and not line.strip().startswith("streamtab trip report")
+            ]
+            assert len(body) >= 4, (pdf.name, n, body)
+
+
+def test_hand_offs_tell_bottles_with_the_same_label_apart(reports):
+    """Two bottles labelled TV-0701: a hand-off names each with its site (common practice)."""
+    hot = _flat(reports[HOT])
+    assert "TV-0701 at LK-04, TV-0701 at LK-03, TV-0703" in hot
+
+
+def _overlaps(a, b) -> bool:
+    return a.x0 < b.x1 and b.x0 < a.x1 and a.y0 < b.y1 and b.y0 < a.y1
+
+
+def test_plot_legends_sit_beside_the_data_and_the_date_axis_names_its_zone():
+    """A legend never covers a point (common practice); dates say their zone."""
+    from core.rules.report import PlotPoint
+    from mobile.paper.plots import site_season_figure, trip_do_figure
+
+    t0 = datetime(2026, 6, 9, 8, 0, tzinfo=PDT)
+    points = [PlotPoint(f"LK-0{i}", t0 + timedelta(hours=i), 0.5 + i, 9.0, 5.0, [0.6 + i]) for i in range(4)]
+    rows = [
+        {"at": t0 + timedelta(days=7 * i), "do_mg_l": 0.4 + i, "percent_saturation": 5.0 + i, "winkler_mg_l": []}
+        for i in range(4)
+    ]
+    site = site_season_figure(rows, site_id="LK-03", criterion_mg_l=6.5, supersat_percent=120)
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    for fig in (trip_do_figure(points), site):
+        FigureCanvasAgg(fig)
+        fig.canvas.draw()
+        renderer = fig.canvas.get_renderer()
+        for ax in fig.axes:
+            legend = ax.get_legend()
+            assert legend is not None
+            assert not _overlaps(legend.get_window_extent(renderer), ax.get_window_extent(renderer))
+    assert site.axes[1].get_xlabel() == "date (UTC−07:00)"
