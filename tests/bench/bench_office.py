@@ -144,15 +144,16 @@ def bench_pull(tmp: Path, crew, ids: list[str]) -> None:
         assert report.failed == 0 and report.listed == "walk", report.to_dict()
         print(f"first pull of {len(ids)} trips (walk, Depth: infinity refused): {n_req} requests, {elapsed:.1f} s")
 
-        def big_round(i: int, tid: str):  # noqa: ANN202
+        def big_ready(i: int, tid: str):  # noqa: ANN202
             _edit(crew, tid, f"bench edit {i}")
             assert sync.push(crew, str(hub)).pushed == 1
-            gc.collect()  # outside the timing (see _timed)
-            report, n_req, elapsed = _pull(office, server.url)
-            assert report.listed == "log" and [t.trip_id for t in report.per_trip] == [tid], str(report.to_dict())[:300]
-            return elapsed, n_req
 
-        def one_round(i: int, tid: str):  # noqa: ANN202
+            def check(report) -> None:  # noqa: ANN001
+                assert report.listed == "log" and [t.trip_id for t in report.per_trip] == [tid], str(report)[:300]
+
+            return office, server.url, check
+
+        def one_ready(i: int, tid: str):  # noqa: ANN202
             # the reference: a hub holding only that trip, one change, pulled the same way
             small_hub = server.root / f"one-{i}"
             small_hub.mkdir()
@@ -164,17 +165,30 @@ def bench_pull(tmp: Path, crew, ids: list[str]) -> None:
             _pull(desk, url)
             _edit(solo, tid, f"bench edit {i} (solo)")
             sync.push(solo, str(small_hub))
-            gc.collect()
-            report, n_req, elapsed = _pull(desk, url)
-            assert report.listed == "log" and len(report.per_trip) == 1, str(report.to_dict())[:300]
+
+            def check(report) -> None:  # noqa: ANN001
+                assert report.listed == "log" and len(report.per_trip) == 1, str(report)[:300]
+
+            return desk, url, check
+
+        def timed_pull(ready) -> tuple[float, int]:  # noqa: ANN001
+            store, url, check = ready
+            gc.collect()  # outside the timing (see _timed)
+            report, n_req, elapsed = _pull(store, url)
+            check(report)
             return elapsed, n_req
 
         big_t, big_n, one_t, one_n = [], [], [], []
         for i in range(-1, PULL_REPEATS):  # round -1 warms both paths up and is not counted
             tid = ids[(i * 7919) % len(ids)]
-            first, second = (big_round, one_round) if i % 2 == 0 else (one_round, big_round)
-            a, b = first(i, tid), second(i, tid)
-            (big, one) = (a, b) if first is big_round else (b, a)
+            # both sides made ready first (the 10,000-trip side's push walks its store), then
+            # both pulls timed back to back, in alternating order
+            big_side, one_side = big_ready(i, tid), one_ready(i, tid)
+            if i % 2 == 0:
+                big, one = timed_pull(big_side), timed_pull(one_side)
+            else:
+                one = timed_pull(one_side)
+                big = timed_pull(big_side)
             if i >= 0:
                 big_t.append(big[0])
                 big_n.append(big[1])

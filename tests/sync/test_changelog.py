@@ -212,6 +212,31 @@ def test_on_a_server_refusing_infinite_depth_a_pull_stays_within_five_requests(t
         server.stop()
 
 
+def test_a_damaged_table_file_is_reported_at_every_pull_where_depth_is_finite(tmp_path, device_a):
+    """A site list file whose bytes do not match the hash in its name is left aside and read again
+    at the next pull (never blacklisted, sync/DESIGN.md), although its folder's date did not move
+    (common practice for this project)."""
+    import time
+
+    from tests.sync.conftest import finite_depth_only, start_dav
+
+    server = start_dav(tmp_path / "dav", wrap=finite_depth_only)
+    try:
+        new_trip(device_a)
+        sync.push(device_a, server.url, session=dav_session())
+        sites = server.root / "hub" / "program" / "sites"
+        good = next(sites.iterdir())
+        bad = sites / ("0" * 24 + ".json")
+        bad.write_bytes(good.read_bytes())  # valid JSON under a name that is not its hash
+        office = _office(tmp_path)
+        time.sleep(changelog.FOLDER_SETTLE_S + 0.1)  # the folder's date settles before the first pull
+        for _ in range(2):
+            report = sync.pull(office, server.url, session=dav_session())
+            assert any(bad.name in line and "left aside" in line for line in report.program), report.program
+    finally:
+        server.stop()
+
+
 def test_cli_pull_reads_the_log_and_full_walks(tmp_path, device_a, cli):
     hub = tmp_path / "hub"
     hub.mkdir()
