@@ -1,9 +1,11 @@
 """The touch app's controller: forms in, core's values and the store out (no kivy; unit-tests without a window).
 
 Screens call these methods and show what comes back. Science comes from core (core.science.assess and
-friends), records and their QC from core.store / core.rules.qc, bottle clocks from core.science.holding. Store
-writes go through a single background worker (mobile.app.save_worker) so a slow flash card never
-freezes a field; sync runs in the background through `send`.
+friends), records and their QC from core.store / core.rules.qc. Store writes go through a single background
+worker (mobile.app.save_worker) so a slow flash card never freezes a field; sync runs in the background
+through `send`. Some concerns live in their own modules and the methods here forward to them: the settings
+screen and this device's prefs (mobile.app.program_prefs), the holding clocks and attention lines
+(mobile.app.attention), conflicts and the office's review (mobile.app.review_steps).
 """
 
 from __future__ import annotations
@@ -15,10 +17,12 @@ from datetime import datetime
 from typing import Any
 
 from core.records.messages import when_text
-from mobile.app import device_files, records_bridge
+from mobile.app import attention, device_files, program_prefs, records_bridge, review_steps
 from mobile.app.device_files import AppPrefs
 from mobile.app.forms import BOTTLE_KINDS, FIELD_LABELS, REQUIRED_STOP_FIELDS, BottleForm, CalForm, StopForm, TripForm
-from mobile.app.numeric import parse_decimal
+
+# the settings screen's helpers, importable from here as before the split
+from mobile.app.program_prefs import SETTING_FIELDS, setting_problem, setting_range  # noqa: F401
 from mobile.app.save_worker import SaveWorker
 from mobile.app.theme import severity_mark
 from mobile.app.views import (
@@ -30,8 +34,6 @@ from mobile.app.views import (
     TripLine,
     error_line,
     flag_line,
-    fmt_deadline,
-    fmt_duration,
     fmt_value,
     fmt_when,
     local_now,
@@ -39,58 +41,6 @@ from mobile.app.views import (
 )
 
 __all__ = ["AppController"]
-
-# The program limits the settings screen edits: the ProgramSettings field, its words and unit on screen.
-# Their accepted ranges are the record's own (core.records.models.ProgramSettings), read by setting_range.
-SETTING_FIELDS = {
-    "calibration_tolerance_mg_l": ("Calibration tolerance", "mg/L"),
-    "warm_min_mg_l": ("Warm-water minimum", "mg/L"),
-    "cold_min_mg_l": ("Cold-water minimum", "mg/L"),
-    "supersaturation_percent": ("Supersaturation threshold", "%"),
-}
-
-
-def setting_range(name: str) -> tuple[float | None, bool, float | None, bool]:
-    """(low, low included, high, high included) of a ProgramSettings field, from the record's own bounds."""
-    from core.records.models import ProgramSettings
-
-    lo = hi = None
-    lo_in = hi_in = True
-    for m in ProgramSettings.model_fields[name].metadata:
-        if getattr(m, "ge", None) is not None:
-            lo, lo_in = float(m.ge), True
-        if getattr(m, "gt", None) is not None:
-            lo, lo_in = float(m.gt), False
-        if getattr(m, "le", None) is not None:
-            hi, hi_in = float(m.le), True
-        if getattr(m, "lt", None) is not None:
-            hi, hi_in = float(m.lt), False
-    return lo, lo_in, hi, hi_in
-
-
-def setting_problem(name: str, text: str) -> tuple[float | None, str | None]:
-    """(value, None) for a program limit typed on the settings screen, or (None, one sentence why not)."""
-    from mobile.app.numeric import DecimalError
-
-    label, unit = SETTING_FIELDS[name]
-    lo, lo_in, hi, hi_in = setting_range(name)
-    span = (
-        f"from {lo:g} to {hi:g} {unit}"
-        if lo_in and hi_in
-        else f"{'from' if lo_in else 'more than'} {lo:g} and {'up to' if hi_in else 'below'} {hi:g} {unit}"
-    )
-    try:
-        value = parse_decimal(text, label=label)
-    except DecimalError as exc:
-        return None, str(exc)
-    if value is None:
-        return None, f"{label} is empty; type a value {span}."
-    ok = (lo is None or (value >= lo if lo_in else value > lo)) and (
-        hi is None or (value <= hi if hi_in else value < hi)
-    )
-    if not ok:
-        return None, f"{label} {value:g} {unit} is outside the accepted range; type a value {span}."
-    return value, None
 
 
 class AppController:
@@ -173,74 +123,25 @@ class AppController:
 
     def settings_notice(self) -> str:
         """What the settings screen says when stored settings held values the limits now refuse."""
-        try:
-            self.store.settings()
-        except Exception:  # noqa: BLE001 - unreadable settings are reported where they are read
-            return ""
-        from core.records.messages import label_for
-
-        dropped = self.store.left_out().get("settings")
-        if not dropped:
-            return ""
-        named = []
-        for path in dropped:
-            field, _, index = path.partition(".")
-            named.append(f"{label_for(field)} no. {int(index) + 1}" if index.isdigit() else label_for(field))
-        return (
-            f"▲ Stored settings held values outside today's limits ({', '.join(named)}): defaults are"
-            " shown for them. The stored record is kept whole in the quarantine folder; Save to keep these."
-        )
+        return program_prefs.settings_notice(self.store)
 
     def load_prefs(self) -> None:
         """Units and hub from this device's app-prefs.json; method, criteria, tolerance from the program settings."""
-        prefs = device_files.read_local_prefs(self.store.data_dir)
-        try:
-            st = self.store.settings()
-            prefs.method = st.method
-            prefs.warm_min_mg_l = st.warm_min_mg_l
-            prefs.cold_min_mg_l = st.cold_min_mg_l
-            prefs.supersaturation_percent = st.supersaturation_percent
-            prefs.tolerance_mg_l = st.calibration_tolerance_mg_l
-            prefs.percent_basis = str(st.percent_basis)
-        except Exception:  # noqa: BLE001 - unreadable settings: keep the defaults, the store reports it
-            pass
-        self.prefs = prefs
+        self.prefs = program_prefs.load_prefs(self.store)
 
     def save_prefs(self, prefs: AppPrefs) -> None:
-        st = self.store.settings().model_copy(
-            update={
-                "warm_min_mg_l": prefs.warm_min_mg_l,
-                "cold_min_mg_l": prefs.cold_min_mg_l,
-                "supersaturation_percent": prefs.supersaturation_percent,
-                "calibration_tolerance_mg_l": prefs.tolerance_mg_l,
-                "method": prefs.method,
-                "percent_basis": prefs.percent_basis,
-            }
-        )
-        self.store.save_settings(st)
-        device_files.write_local_prefs(self.store.data_dir, prefs)
+        program_prefs.save_prefs(self.store, prefs)
         self.prefs = prefs
 
     @staticmethod
     def hub_problem(target: str) -> str | None:
-        """Why a typed hub address cannot be stored or used (a user name or password in it, plain
-        http:// to another machine), as one sentence that never repeats a password; or None."""
-        from sync.errors import ConfigError
-        from sync.targets import check_address
-
-        try:
-            check_address(target)
-        except ConfigError as exc:
-            text = str(exc)
-            return f"■ Hub not saved: {text[:1].upper()}{text[1:]}."
-        return None
+        """Why a typed hub address cannot be stored or used, as one sentence; or None."""
+        return program_prefs.hub_problem(target)
 
     @staticmethod
     def shown_address(target: str) -> str:
         """A hub address as a status line may show it (any user-info part removed)."""
-        from sync.session import redact_url
-
-        return redact_url(target)
+        return program_prefs.shown_address(target)
 
     def save_settings_form(
         self, units: dict[str, str], limits: dict[str, str], sync_target: str, percent_basis: str | None = None
@@ -251,33 +152,9 @@ class AppController:
         `limits` maps each SETTING_FIELDS name to its text; `percent_basis` is "local" or "sea-level"
         (None keeps the program's). Nothing is saved when one entry is refused.
         """
-        from core.science.oxygen import PERCENT_BASES
-
-        problem = self.hub_problem(sync_target) if sync_target.strip() else None
-        if problem:
+        prefs, problem = program_prefs.prefs_from_form(self.prefs, units, limits, sync_target, percent_basis)
+        if prefs is None:
             return problem
-        basis = self.prefs.percent_basis if percent_basis is None else percent_basis
-        if basis not in PERCENT_BASES:
-            return "Meter 100 % basis: choose local pressure or 760 mmHg."
-        values: dict[str, float] = {}
-        for name in SETTING_FIELDS:
-            value, problem = setting_problem(name, limits.get(name, ""))
-            if problem:
-                return problem
-            values[name] = value
-        prefs = AppPrefs(
-            temp_unit=units["temp_unit"],
-            pressure_unit=units["pressure_unit"],
-            cond_unit=units["cond_unit"],
-            do_unit=units["do_unit"],
-            tolerance_mg_l=values["calibration_tolerance_mg_l"],
-            warm_min_mg_l=values["warm_min_mg_l"],
-            cold_min_mg_l=values["cold_min_mg_l"],
-            supersaturation_percent=values["supersaturation_percent"],
-            sync_target=sync_target.strip(),
-            method=self.prefs.method,
-            percent_basis=basis,
-        )
         try:
             self.save_prefs(prefs)
         except Exception as exc:  # noqa: BLE001 - store refusals are one sentence
@@ -715,52 +592,8 @@ class AppController:
         self.save_later()
 
     def clock_lines(self, now: datetime | None = None) -> list[ClockLine]:
-        """Every bottle's holding-time clock in the open trip, most urgent first.
-
-        The clocks are core's one holding rule (core.rules.lab.bottle_clock, read by `lab pending`
-        and QC too): a blank runs none and is left out; a bottle with a valid result is listed as
-        ANALYSED, never as expired."""
-        from core.rules.lab import bottle_clock
-
-        now = now or self.now()
-        out: list[ClockLine] = []
-        if self.trip is None:
-            return out
-        overrides = dict(self.settings().holding_overrides_h or {}) or None
-        for s in self.trip.stops:
-            site = self.site(s.site_id) if s.site_id else None
-            where = f"stop {self.stop_number(s)}" + (f" · {self.bridge.site_title(site)}" if site else "")
-            bottles = self.bridge.bottle_records(s, self._saved_stop_doc(s.id))
-            for b in bottles:
-                kind_word = dict(BOTTLE_KINDS)[self.bridge.RECORD_TO_KIND[b.kind]]
-                clock = bottle_clock(b, now, stop_bottles=bottles, overrides=overrides)
-                if clock is None:
-                    if b.kind != "blank" and b.collected_at <= now:  # a valid result: no clock runs
-                        out.append(
-                            ClockLine(
-                                s.id, b.label, kind_word, where, float("inf"), False, "result recorded", "○", "ANALYSED"
-                            )
-                        )
-                    continue
-                deadline = fmt_deadline(clock.deadline, b.collected_at, now)
-                if clock.expired:
-                    symbol, word = severity_mark("stop-and-check")
-                    word = "EXPIRED"
-                    text = f"deadline {deadline} passed {fmt_duration(clock.remaining_s)} ago"
-                elif clock.flag is not None:
-                    symbol, word = severity_mark("warning")
-                    word = "SOON"
-                    text = f"{fmt_duration(clock.remaining_s)} left · deadline {deadline}"
-                else:
-                    symbol, word = "○", "OK"
-                    text = f"{fmt_duration(clock.remaining_s)} left · deadline {deadline}"
-                if clock.kind == "do_winkler" and b.fixed_at is None:
-                    text += " · NOT FIXED YET"
-                out.append(
-                    ClockLine(s.id, b.label, kind_word, where, clock.remaining_s, clock.expired, text, symbol, word)
-                )
-        out.sort(key=lambda c: c.remaining_s)
-        return out
+        """Every bottle's holding-time clock in the open trip, most urgent first (mobile.app.attention)."""
+        return attention.clock_lines(self, now)
 
     # ------------------------------------------------------------------ calibration helper
     def cal_view(self, cal: CalForm, post: bool = False) -> CalView:
@@ -806,106 +639,35 @@ class AppController:
 
     def attention_lines(self) -> list[str]:
         """What needs attention before or after ending the trip, as lines with symbol and word."""
-        out: list[str] = []
-        if self.trip is None:
-            return out
-        for s in self.trip.stops:
-            n = self.stop_number(s)
-            site = self.site(s.site_id) if s.site_id else None
-            where = f"Stop {n}" + (f" ({self.bridge.site_title(site)})" if site else "")
-            if not s.closed:
-                msg = self.close_problem(s)
-                if msg:
-                    sym, word = severity_mark("stop-and-check")
-                    out.append(f"{sym} {word}: {where}: {msg}")
-            for f in self.stop_view(s).flags:
-                if f.severity != "note":
-                    out.append(f"{f.symbol} {f.word}: {where}: {f.message}" + (f" — {f.action}" if f.action else ""))
-        for c in self.clock_lines():
-            if c.word in ("EXPIRED", "SOON"):
-                out.append(f"{c.symbol} {c.word}: bottle {c.label} ({c.where}): {c.text}")
-        out.extend(self.conflict_lines())
-        pre = self.cal_view(self.trip.pre_cal)
-        if pre.verdict == "FAIL":
-            sym, word = severity_mark("stop-and-check")
-            out.append(f"{sym} {word}: pre-trip calibration failed: {pre.detail}")
-        elif self.trip.started_without_calibration:
-            sym, word = severity_mark("warning")
-            out.append(
-                f"{sym} {word}: this trip was started without a pre-trip calibration (recorded when it started)."
-            )
-        elif not pre.verdict and self.trip.stops:
-            sym, word = severity_mark("warning")
-            out.append(f"{sym} {word}: no pre-trip calibration recorded for this trip.")
-        post = self.cal_view(self.trip.post_check, post=True)
-        if post.verdict == "FAIL":
-            sym, word = severity_mark("stop-and-check")
-            out.append(f"{sym} {word}: post-trip check failed: {post.detail}")
-        elif self.cal_problem(self.trip.post_check, "post-trip"):
-            sym, word = severity_mark("stop-and-check")
-            out.append(f"{sym} {word}: post-trip check: {self.cal_problem(self.trip.post_check, 'post-trip')}")
-        elif not post.verdict:
-            sym, word = severity_mark("note")
-            out.append(f"{sym} {word}: post-trip calibration check not entered yet.")
-        return out
+        return attention.attention_lines(self)
 
+    # ------------------------------------------------------------------ conflicts and the office's review
     def conflicts(self) -> list[Any]:
-        """The open trip's open conflicts as people read them (core.rules.conflicts.ConflictView):
-        site and stop, the field's label, each value with its unit, the device's name and when."""
-        from core.rules.conflicts import list_conflicts
-
-        if self.trip is None:
-            return []
-        saved = self._saved.get(self.trip.id)
-        if saved is None:
-            return []
-        return list_conflicts(saved, this_device=self.store.device_id)
+        """The open trip's open conflicts as people read them (mobile.app.review_steps)."""
+        return review_steps.conflicts(self)
 
     def conflict_lines(self) -> list[str]:
         """The open conflicts, one line each (the End screen's list of what needs attention)."""
-        sym, _ = severity_mark("warning")
-        return [f"{sym} CONFLICT: {v.message} Tap the value to keep above." for v in self.conflicts()]
+        return review_steps.conflict_lines(self)
 
     def settler(self) -> str:
         """Who settles a conflict on this tablet: the device's name, else the trip's crew."""
-        name = (getattr(self.store, "device_name", None) or "").strip()
-        if not name and self.trip is not None and self.trip.crew.strip():
-            name = f"crew {self.trip.crew.strip()}"
-        return (name or "this tablet")[:80]
+        return review_steps.settler(self)
 
     def settle_conflict(self, conflict_id: str, keep: int) -> str | None:
-        """Settles one open conflict of the open trip by keeping its `keep`-th value (1, 2, …),
-        recorded with who and when; returns why not in one sentence, or None. The form is then
-        reloaded from the store, so the next save carries the kept value."""
-        from datetime import timezone
+        """Settles one open conflict by keeping its `keep`-th value; returns why not, or None."""
+        return review_steps.settle_conflict(self, conflict_id, keep)
 
-        from core.rules.conflicts import ConflictError, settle
-        from core.store import StoreError
+    def returned_reasons(self) -> str | None:
+        """Why the office returned the open trip (a sentence), or None when it is not returned."""
+        return review_steps.returned_reasons(self)
 
-        if self.trip is None:
-            return "No trip is open."
-        self.flush()  # what was typed is in the store before it is read back
-        by = self.settler()
-        at = self.now().astimezone(timezone.utc)
-        said: dict[str, Any] = {}
+    def resubmit(self) -> str | None:
+        """Hands a trip the office returned back to it; returns why not in one sentence, or None."""
+        return review_steps.resubmit(self)
 
-        def apply(trip: Any) -> Any:
-            views = {v.id: v for v in self.conflicts_of(trip)}
-            said["view"] = views.get(conflict_id)
-            return settle(trip, conflict_id, keep=keep, by=by, at=at)
-
-        def change() -> str:
-            view = said.get("view")
-            return f"conflict settled (kept value {keep}): " + (view.message if view else "a conflict")
-
-        try:
-            saved = self.store.update_trip(self.trip.id, change, apply, by=by)
-        except ConflictError as exc:
-            return f"Not settled: {exc}."
-        except StoreError as exc:
-            return f"Not settled, nothing was saved: {exc}"
-        self._adopt_stored(saved)
-        return None
+    def conflicts_of(self, trip: Any) -> list[Any]:
+        return review_steps.conflicts_of(self, trip)
 
     def _adopt_stored(self, stored: Any) -> None:
         """UI thread: the form shows `stored` (the trip as just read or written), on the same stop."""
@@ -914,48 +676,6 @@ class AppController:
         self.trip = self.bridge.form_from_trip(stored)
         self._base_form[stored.id] = copy.deepcopy(self.trip)
         self.stop_id = stop_id if stop_id and self.trip.stop(stop_id) else None
-
-    def returned_reasons(self) -> str | None:
-        """Why the office returned the open trip (a sentence), or None when it is not returned."""
-        from core.rules.review import describe, review_state
-
-        saved = self._saved.get(self.trip.id) if self.trip is not None else None
-        if saved is None or review_state(saved) != "returned":
-            return None
-        return describe(saved)
-
-    def resubmit(self) -> str | None:
-        """Hands a trip the office returned back to it (a 'resubmitted' review step, after what was
-        typed is saved); returns why not in one sentence, or None when it is saved."""
-        from datetime import timezone
-
-        from core.records.models import ReviewEvent
-        from core.rules.review import ReviewRefused, new_event
-        from core.store import StoreError
-
-        if self.trip is None:
-            return "No trip is open."
-        self.flush()
-        by = self.settler()
-        at = self.now().astimezone(timezone.utc)
-
-        def apply(trip: Any) -> Any:
-            event = ReviewEvent.model_validate(new_event(trip, "resubmitted", by=by, at=at), strict=False)
-            return trip.model_copy(update={"review_events": [*trip.review_events, event]})
-
-        try:
-            saved = self.store.update_trip(self.trip.id, f"review: resubmitted by {by}", apply, by=by)
-        except ReviewRefused as exc:
-            return f"Not handed back: {exc}"
-        except StoreError as exc:
-            return f"Not handed back, nothing was saved: {exc}"
-        self._adopt_stored(saved)
-        return None
-
-    def conflicts_of(self, trip: Any) -> list[Any]:
-        from core.rules.conflicts import list_conflicts
-
-        return list_conflicts(trip, this_device=self.store.device_id)
 
     # ------------------------------------------------------------------ saving
     def _save_failed(self, exc: BaseException) -> None:
