@@ -6,7 +6,8 @@ Pure: trips, sites and settings in, tables out. Column names carry their unit (`
 workbook), or kept at full precision as stored when the export asks for it; each table with rounded
 values says which in its ``rounding`` column. Values typed (``*_as_typed``) and program settings
 (``criterion_mg_l``, ``tolerance_mg_l``) are never rounded; stored trips are never changed.
-Times are ISO 8601 with their offset; a missing value is an empty cell. The writers
+Times are ISO 8601 with their offset; a missing value is an empty cell. The custody table has one
+row per bottle per hand-off (``bottle_id`` joins the bottles table). The writers
 (`mobile.paper.season`) pass every cell through the one CSV cell guard,
 :func:`core.records.exchange.spreadsheet_safe`.
 """
@@ -121,7 +122,9 @@ TABLES: dict[str, tuple[str, ...]] = {
         "relinquished_by",
         "received_by",
         "at_lab",
-        "bottle_labels",
+        "bottle_id",
+        "label",
+        "site_id",
         "temp_on_receipt_c",
         "temp_as_typed",
         "condition",
@@ -322,29 +325,34 @@ def season_tables(
                     "rounding": note,
                 }
             )
-        labels = {b.id: b.label for s in stops for b in s.bottles}
+        # one row per bottle per hand-off: a bottle's chain joins the bottles table on bottle_id, and two
+        # bottles with the same label stay apart
+        held = {b.id: (b, s) for s in stops for b in s.bottles}
         for h in sorted(trip.custody, key=lambda h: h.at):
-            covered = [labels[i] for i in h.bottle_ids if i in labels]
-            if not covered:
-                continue
-            out["custody"].append(
-                {
-                    "trip_id": trip.id,
-                    "handoff_id": h.id,
-                    "at": _t(h.at),
-                    "relinquished_by": h.relinquished_by,
-                    "received_by": h.received_by,
-                    "at_lab": _yes(h.at_lab),
-                    "bottle_labels": ";".join(covered),
-                    "temp_on_receipt_c": num(h.temp.value if h.temp else None, "temp_c"),
-                    "temp_as_typed": h.temp.text if h.temp else "",
-                    "condition": h.condition,
-                    "relinquished_signed": _yes(h.relinquished_signature is not None),
-                    "received_signed": _yes(h.received_signature is not None),
-                    "notes": h.notes,
-                    "rounding": note,
-                }
-            )
+            for bottle_id in dict.fromkeys(h.bottle_ids):
+                if bottle_id not in held:
+                    continue
+                bottle, stop = held[bottle_id]
+                out["custody"].append(
+                    {
+                        "trip_id": trip.id,
+                        "handoff_id": h.id,
+                        "at": _t(h.at),
+                        "relinquished_by": h.relinquished_by,
+                        "received_by": h.received_by,
+                        "at_lab": _yes(h.at_lab),
+                        "bottle_id": bottle.id,
+                        "label": bottle.label,
+                        "site_id": stop.site_id,
+                        "temp_on_receipt_c": num(h.temp.value if h.temp else None, "temp_c"),
+                        "temp_as_typed": h.temp.text if h.temp else "",
+                        "condition": h.condition,
+                        "relinquished_signed": _yes(h.relinquished_signature is not None),
+                        "received_signed": _yes(h.received_signature is not None),
+                        "notes": h.notes,
+                        "rounding": note,
+                    }
+                )
     return out
 
 

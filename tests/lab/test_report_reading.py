@@ -238,3 +238,52 @@ def test_plot_legends_sit_beside_the_data_and_the_date_axis_names_its_zone():
             assert legend is not None
             assert not _overlaps(legend.get_window_extent(renderer), ax.get_window_extent(renderer))
     assert site.axes[1].get_xlabel() == "date (UTC−07:00)"
+
+
+def test_the_bench_sheet_headings_give_units_beside_the_csv_names(store, tmp_path):
+    """Each column of the printed bench sheet says what it holds and its unit, and the CSV column it is
+    typed into (common practice: units on every number a person writes down)."""
+    pdf = tmp_path / "bench.pdf"
+    _ok("lab", "sheet", "--out", str(pdf), "--trip", HOT, data=store)
+    flat = _flat(pdf)
+    for label in ("sample, mL", "bottle, mL", "seed, mL", "initial DO, mg/L", "final DO, mg/L", "depletion, mg/L"):
+        assert label in flat, label
+    for column in ("sample_ml", "initial_do_mg_l", "final_do_mg_l"):
+        assert column in flat, column
+    assert flat.count("concentrated sulfuric acid burns") == 1
+
+
+def test_season_tables_have_one_row_per_observation_and_no_row_twice(store, tmp_path):
+    """Tidy tables (Wickham 2014, "Tidy Data"): one row per observation, units in the column names,
+    ISO 8601 times with their offset, no row repeated; read back with the csv module and openpyxl."""
+    import csv
+
+    from openpyxl import load_workbook
+
+    out = tmp_path / "season"
+    _ok("export", "season", "--out", str(out), "--xlsx", data=store)
+    tables = {}
+    for name in ("stops", "bottles", "results", "calibrations", "custody"):
+        with open(out / f"{name}.csv", newline="", encoding="utf-8") as fh:
+            tables[name] = list(csv.DictReader(fh))
+    custody = tables["custody"]
+    # two hand-offs of three bottles, two of them labelled TV-0701: six rows, each naming one bottle
+    assert len(custody) == 6
+    assert sorted((c["label"], c["site_id"]) for c in custody if c["at_lab"] == "yes") == [
+        ("TV-0701", "LK-03"),
+        ("TV-0701", "LK-04"),
+        ("TV-0703", "LK-05"),
+    ]
+    bottle_ids = {b["bottle_id"] for b in tables["bottles"]}
+    assert {c["bottle_id"] for c in custody} <= bottle_ids
+    for name, rows in tables.items():
+        keys = [tuple(r.values()) for r in rows]
+        assert len(keys) == len(set(keys)), name
+        for r in rows:
+            for col, v in r.items():
+                if col in ("at", "arrived_at", "closed_at", "collected_at", "fixed_at", "analysed_at") and v:
+                    assert re.fullmatch(r"\d{4}-\d\d-\d\dT\d\d:\d\d:\d\d[+-]\d\d:\d\d", v), (name, col, v)
+    wb = load_workbook(out / "season.xlsx")
+    assert wb["custody"].max_row == 1 + 6
+    head = [c.value for c in wb["custody"][1]]
+    assert "bottle_labels" not in head and {"bottle_id", "label", "site_id", "temp_on_receipt_c"} <= set(head)
