@@ -69,7 +69,9 @@ def trip_do_figure(points: list[Any], *, title: str = ""):
     ax.plot(xs, [p.do_sat_mg_l if p.do_sat_mg_l is not None else float("nan") for p in points], **STYLES["target"])
     crit = [p.criterion_mg_l if p.criterion_mg_l is not None else float("nan") for p in points]
     if any(c == c for c in crit):
-        ax.step(xs, crit, where="mid", **STYLES["criterion"])
+        # one level per stop, across the stop's width, so a single stop still shows its criterion
+        style = {k: v for k, v in STYLES["criterion"].items() if not k.startswith("marker")}
+        ax.stairs(crit, [x - 0.5 for x in xs] + [len(xs) - 0.5], baseline=None, **style)
     wx = [x for x, p in zip(xs, points, strict=True) for _ in p.winkler_mg_l]
     wy = [v for p in points for v in p.winkler_mg_l]
     if wy:
@@ -78,7 +80,8 @@ def trip_do_figure(points: list[Any], *, title: str = ""):
     ax.set_xlabel("stop (route order)")
     ax.set_ylabel("dissolved oxygen, mg/L")
     ax.set_xlim(-0.5, max(len(xs) - 0.5, 0.5))
-    ax.set_ylim(bottom=0)
+    shown = [v for p in points for v in (p.do_mg_l, p.do_sat_mg_l, p.criterion_mg_l, *p.winkler_mg_l) if v is not None]
+    ax.set_ylim(0, max(shown, default=10.0) * 1.08)  # room above the highest point, never clipped
     ax.grid(True, color="0.85", linewidth=0.6)
     _legend(ax)
     if title:

@@ -201,7 +201,7 @@ def _flag_line(f: Any) -> str:
 
 def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
     """Lays out a :class:`core.rules.report.TripReport` as PDF bytes (and writes `path` atomically)."""
-    from core.rules.report import analyte_text, kind_text, reported, typed
+    from core.rules.report import analyte_text, bottle_names, kind_text, reported, typed
     from core.rules.review import describe as review_describe
     from mobile.paper.plots import figure_bytes, trip_do_figure
 
@@ -436,11 +436,19 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
         sheet.para("No hand-offs are recorded: the custody of these bottles is not documented in this record.")
     for h in rep.handoffs:
         _handoff_block(sheet, h)
-    custody_flags = [f for b in rep.bottles for f in b.custody_flags if f.code != "custody.unsigned"]
+    custody_flags = [
+        (b, [f for f in b.custody_flags if f.code != "custody.unsigned"]) for b in rep.bottles if b.custody_flags
+    ]
+    custody_flags = [(b, fs) for b, fs in custody_flags if fs]
     if custody_flags:
         sheet.heading("Custody findings", 10)
-        for f in custody_flags:
-            sheet.para("• " + _flag_line(f), size=8)
+        names = bottle_names(trip)
+        for b, fs in custody_flags:
+            # under each bottle by its name (with its site when a label repeats), so the findings of two
+            # bottles that share a label stay apart
+            sheet.para(f"{names.get(b.bottle.id, b.bottle.label)} ({kind_text(b.bottle.kind)}):", size=8, style="B")
+            for f in fs:
+                sheet.para("• " + _flag_line(f), size=8)
 
     # -- cautions and conventions ------------------------------------------------------------------
     sheet.heading("Cautions and reporting conventions", 10, keep=36)

@@ -287,3 +287,36 @@ def test_season_tables_have_one_row_per_observation_and_no_row_twice(store, tmp_
     assert wb["custody"].max_row == 1 + 6
     head = [c.value for c in wb["custody"][1]]
     assert "bottle_labels" not in head and {"bottle_id", "label", "site_id", "temp_on_receipt_c"} <= set(head)
+
+
+def test_custody_findings_are_grouped_under_each_bottle_by_its_site(reports):
+    """Two bottles labelled TV-0701 were received warm; each finding sits under its own bottle
+    (common practice)."""
+    hot = _flat(reports[HOT])
+    assert "TV-0701 at LK-03 (BOD, chilled):" in hot
+    assert "TV-0703 (BOD, chilled):" in hot
+
+
+def test_a_single_stop_plot_still_draws_its_criterion_and_no_point_is_clipped():
+    """The criterion is a level across each stop, visible with one stop; the y axis leaves room
+    above the highest value (common practice)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    from core.rules.report import PlotPoint
+    from mobile.paper.plots import trip_do_figure
+
+    one = [PlotPoint("LK-05", datetime(2026, 6, 30, 8, 50, tzinfo=PDT), 9.07, 9.48, 7.0, [])]
+    fig = trip_do_figure(one)
+    FigureCanvasAgg(fig)
+    fig.canvas.draw()
+    ax = fig.axes[0]
+    crit = [a for a in ax.get_children() if getattr(a, "get_label", lambda: "")() == "DO criterion (mg/L)"]
+    assert crit, "no criterion drawn"
+    box = crit[0].get_window_extent(fig.canvas.get_renderer())
+    assert box.width > 10 and ax.get_ylim()[1] > 9.48
+
+
+def test_the_report_command_counts_in_words(store, tmp_path):
+    r = run_cli("report", UPPER, "--out", str(tmp_path / "u.pdf"), data_dir=store)
+    assert r.returncode == 0, r.stderr
+    assert "1 stop," in r.stdout and "1 lab result," in r.stdout and "0 hand-offs" in r.stdout
