@@ -320,3 +320,24 @@ def test_the_report_command_counts_in_words(store, tmp_path):
     r = run_cli("report", UPPER, "--out", str(tmp_path / "u.pdf"), data_dir=store)
     assert r.returncode == 0, r.stderr
     assert "1 stop," in r.stdout and "1 lab result," in r.stdout and "0 hand-offs" in r.stdout
+
+
+def test_season_findings_read_in_words_and_codes_appear_once(store, tmp_path):
+    """A person reading results.csv finds the bench's findings in words beside the codes; a code is
+    listed once per result (common practice)."""
+    import csv
+
+    out = tmp_path / "season"
+    _ok("export", "season", "--out", str(out), data=store)
+    with open(out / "results.csv", newline="", encoding="utf-8") as fh:
+        results = list(csv.DictReader(fh))
+    bound = next(r for r in results if r["label"] == "TV-0703")
+    codes = bound["flag_codes"].split(";")
+    assert len(codes) == len(set(codes)) and "bod.depletion_too_small" in codes
+    assert "Note: No dilution used 2 mg/L of oxygen" in bound["findings"]
+    assert "Warning: The 300 mL dilution used 0.30 mg/L" in bound["findings"]
+    late = next(r for r in results if r["label"] == "TV-0721")
+    assert "deadline 2026-06-30 16:55 UTC−07:00" in late["findings"]  # times with their zone, for people
+    with open(out / "stops.csv", newline="", encoding="utf-8") as fh:
+        stops = list(csv.DictReader(fh))
+    assert any(s["findings"].startswith("Warning: DO is 158 % of saturation") for s in stops)
