@@ -18,6 +18,7 @@ A result's ``status`` is one of:
 from __future__ import annotations
 
 import math
+import re
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 from datetime import datetime
@@ -51,6 +52,11 @@ __all__ = [
     "criterion_mg_l",
     "fmt_number",
     "typed",
+    "analyte_text",
+    "kind_text",
+    "severity_text",
+    "finding_text",
+    "bottle_names",
 ]
 
 #: The one wading caution, shown by the app and printed in every report.
@@ -187,6 +193,71 @@ def result_quantity(analyte: str, unit: str) -> str | None:
     return "bod_mg_l" if analyte_key(analyte) in (BOD_ANALYTE, CBOD_ANALYTE) else "do_mg_l"
 
 
+#: Analytes as a reader names them (the stored names are machine names; see core.rules.lab).
+_ANALYTE_WORDS = {"do_winkler": "DO (Winkler)", "bod5": "BOD5", "cbod5": "CBOD5"}
+#: Bottle kinds as a reader names them.
+_KIND_WORDS = {
+    "do-fixed": "DO, fixed on site",
+    "bod": "BOD, chilled",
+    "duplicate": "field duplicate",
+    "blank": "blank",
+}
+_SEVERITY_WORDS = {"note": "Note", "warning": "Warning", "stop-and-check": "Stop and check"}
+
+
+def analyte_text(analyte: str) -> str:
+    """A lab result's analyte in words ("DO (Winkler)", "BOD5"); an analyte we do not know, as stored."""
+    from core.rules.lab import analyte_key
+
+    return _ANALYTE_WORDS.get(analyte_key(analyte), analyte)
+
+
+def kind_text(kind: str) -> str:
+    """A bottle's kind in words ("DO, fixed on site", "BOD, chilled")."""
+    return _KIND_WORDS.get(kind, kind)
+
+
+def severity_text(severity: Any) -> str:
+    """A finding's severity in words: "Note", "Warning", "Stop and check"."""
+    value = getattr(severity, "value", severity)
+    return _SEVERITY_WORDS.get(str(value), str(value))
+
+
+_ISO_TIME = re.compile(r"\b\d{4}-\d\d-\d\dT\d\d:\d\d(?::\d\d(?:\.\d+)?)?(?:Z|[+-]\d\d:\d\d)")
+
+
+def _readable_times(text: str) -> str:
+    """ISO 8601 times inside a stored message ("2026-06-30T16:55-07:00") as people read them
+    ("2026-06-30 16:55 UTC−07:00"); a time that does not parse stays as it is."""
+    from core.records.messages import when_text
+
+    def one(m: re.Match[str]) -> str:
+        try:
+            return when_text(datetime.fromisoformat(m.group(0).replace("Z", "+00:00")))
+        except ValueError:
+            return m.group(0)
+
+    return _ISO_TIME.sub(one, text)
+
+
+def finding_text(flag: Any) -> str:
+    """A finding as a reader sees it: severity, what was found and what to do, in words (never its code),
+    its times with their zone as people write them."""
+    action = f" {flag.action}" if getattr(flag, "action", "") else ""
+    return _readable_times(f"{severity_text(flag.severity)}: {flag.message}{action}")
+
+
+def bottle_names(trip: Trip) -> dict[str, str]:
+    """Bottle id → the name a reader finds it by: its label, with its site when two bottles of the
+    trip carry the same label ("TV-0701 at LK-04")."""
+    from collections import Counter
+
+    counts = Counter(b.label for s in trip.stops for b in s.bottles)
+    return {
+        b.id: (f"{b.label} at {s.site_id}" if counts[b.label] > 1 else b.label) for s in trip.stops for b in s.bottles
+    }
+
+
 def fmt_number(value: float | None, decimals: int) -> str:
     """A value rounded for a reader ("—" when missing)."""
     if value is None or not math.isfinite(value):
@@ -238,6 +309,7 @@ class ResultRow:
     superseded_by: str | None
     flag_codes: list[str] = field(default_factory=list)
     notes: str = ""
+    findings: list[str] = field(default_factory=list)  # the bench's findings in words (finding_text)
 
     def to_dict(self) -> dict[str, Any]:
         return {
@@ -335,6 +407,7 @@ def result_rows(trip: Trip, settings: ProgramSettings | None = None) -> list[Res
                 holding = _holding(b, r, settings, stop.bottles)
                 value, qualifier, text = _reported(r, rounding)
                 flags = [f.code for f in r.flags]
+                findings = list(dict.fromkeys(finding_text(f) for f in r.flags))
                 rows.append(
                     ResultRow(
                         stop.id,
@@ -356,6 +429,7 @@ def result_rows(trip: Trip, settings: ProgramSettings | None = None) -> list[Res
                         r.superseded_by,
                         flags,
                         r.notes,
+                        findings,
                     )
                 )
     return rows
@@ -400,13 +474,47 @@ def typed(q, decimals: int = 1) -> str:
     return text
 
 
+def _holding_findings(stop: Stop, settings: ProgramSettings, now: datetime, names: dict[str, str]) -> list[Any]:
+    """The holding-time findings of a stop's bottles as a filed report words them: which bottle, its rule
+    and its deadline with the deadline's zone; never "N days ago", which would change with the printing."""
+    from core.flags import Flag
+    from core.records.messages import when_text
+    from core.rules.lab import bottle_clock
+
+    out = []
+    for b in stop.bottles:
+        try:
+            clock = bottle_clock(b, now, stop_bottles=stop.bottles, overrides=settings.holding_overrides_h)
+        except ValueError:
+            continue  # a bad holding-time override: the settings' own check reports it
+        if clock is None or clock.flag is None:
+            continue
+        name = names.get(b.id, b.label)
+        rule = f"{clock.rule.hours:g} h from {clock.clock_from}"
+        if clock.expired:
+            message = (
+                f"Bottle {name} ({clock.rule.label}) has no valid result on record, and its holding time"
+                f" ({rule}) ended {when_text(clock.deadline)}, before this report was printed."
+            )
+        else:
+            message = (
+                f"Bottle {name} ({clock.rule.label}) has no valid result on record yet; its holding time"
+                f" ({rule}) ends {when_text(clock.deadline)}."
+            )
+        out.append(Flag(clock.flag.code, clock.flag.severity, message, clock.flag.action, clock.flag.field))
+    return out
+
+
 def stop_rows(trip: Trip, sites: dict[str, Site], settings: ProgramSettings, now: datetime) -> list[StopRow]:
-    """The trip's stops in route order, as the field sheet prints them."""
+    """The trip's stops in route order, as the field sheet prints them. Holding-time findings name the
+    bottle and its deadline (:func:`_holding_findings`) instead of the QC's time since the deadline."""
+    from core.flags import Severity
     from core.rules.lab import stop_do_mg_l
     from core.rules.qc import trip_flags
 
     rounding = rounding_for(settings)
     flags = trip_flags(trip, settings, now, sites=sites)
+    names = bottle_names(trip)
     out: list[StopRow] = []
     for s in sorted(trip.stops, key=lambda s: s.arrived_at):
         d = s.derived
@@ -434,7 +542,11 @@ def stop_rows(trip: Trip, sites: dict[str, Site], settings: ProgramSettings, now
                 d.specific_conductance_us_cm if d else None,
                 criterion_mg_l(site, settings),
                 shown,
-                flags.get(s.id, []),
+                sorted(
+                    [f for f in flags.get(s.id, []) if not f.code.startswith("holding.")]
+                    + _holding_findings(s, settings, now, names),
+                    key=lambda f: -Severity(f.severity).rank,
+                ),
             )
         )
     return out
@@ -490,7 +602,7 @@ class HandoffRow:
 
 
 def handoff_rows(trip: Trip) -> list[HandoffRow]:
-    labels = {b.id: b.label for s in trip.stops for b in s.bottles}
+    labels = bottle_names(trip)
     return [
         HandoffRow(
             r,

@@ -4,9 +4,12 @@ Pure: trips, sites and settings in, tables out. Column names carry their unit (`
 ``station_pressure_hpa``). Measured and derived values are rounded by the program's reporting rule
 (`core.rules.report.reported`: a `Reported` cell, written as its text in CSV and as a number in the
 workbook), or kept at full precision as stored when the export asks for it; each table with rounded
-values says which in its ``rounding`` column. Values typed (``*_as_typed``) and program settings
-(``criterion_mg_l``, ``tolerance_mg_l``) are never rounded; stored trips are never changed.
-Times are ISO 8601 with their offset; a missing value is an empty cell. The writers
+values says which in its ``rounding`` column. ``flag_codes`` are the findings' stable codes for
+programs, each once; ``findings`` the same findings in words for people ("Warning: ..."), separated
+by " | ". Values typed (``*_as_typed``) and program settings (``criterion_mg_l``, ``tolerance_mg_l``)
+are never rounded; stored trips are never changed.
+Times are ISO 8601 with their offset; a missing value is an empty cell. The custody table has one
+row per bottle per hand-off (``bottle_id`` joins the bottles table). The writers
 (`mobile.paper.season`) pass every cell through the one CSV cell guard,
 :func:`core.records.exchange.spreadsheet_safe`.
 """
@@ -54,6 +57,7 @@ TABLES: dict[str, tuple[str, ...]] = {
         "method",
         "core_version",
         "flag_codes",
+        "findings",
         "weather",
         "flow",
         "notes",
@@ -94,6 +98,7 @@ TABLES: dict[str, tuple[str, ...]] = {
         "method",
         "superseded_by",
         "flag_codes",
+        "findings",
         "rounding",
     ),
     "calibrations": (
@@ -121,7 +126,9 @@ TABLES: dict[str, tuple[str, ...]] = {
         "relinquished_by",
         "received_by",
         "at_lab",
-        "bottle_labels",
+        "bottle_id",
+        "label",
+        "site_id",
         "temp_on_receipt_c",
         "temp_as_typed",
         "condition",
@@ -186,6 +193,7 @@ def season_tables(
     from core.rules.report import (
         bottle_rows,
         criterion_mg_l,
+        finding_text,
         for_export,
         result_quantity,
         result_rows,
@@ -242,7 +250,8 @@ def season_tables(
                     "criterion_mg_l": criterion_mg_l(site, settings),
                     "method": d.method if d else "",
                     "core_version": d.core_version if d else "",
-                    "flag_codes": ";".join(f.code for f in d.flags) if d else "",
+                    "flag_codes": ";".join(dict.fromkeys(f.code for f in d.flags)) if d else "",
+                    "findings": " | ".join(dict.fromkeys(finding_text(f) for f in d.flags)) if d else "",
                     "weather": s.weather,
                     "flow": s.flow,
                     "notes": s.notes,
@@ -293,7 +302,8 @@ def season_tables(
                     "analysed_at": _t(r.analysed_at),
                     "method": r.method,
                     "superseded_by": r.superseded_by or "",
-                    "flag_codes": ";".join(r.flag_codes),
+                    "flag_codes": ";".join(dict.fromkeys(r.flag_codes)),
+                    "findings": " | ".join(r.findings),
                     "rounding": note,
                 }
             )
@@ -322,29 +332,34 @@ def season_tables(
                     "rounding": note,
                 }
             )
-        labels = {b.id: b.label for s in stops for b in s.bottles}
+        # one row per bottle per hand-off: a bottle's chain joins the bottles table on bottle_id, and two
+        # bottles with the same label stay apart
+        held = {b.id: (b, s) for s in stops for b in s.bottles}
         for h in sorted(trip.custody, key=lambda h: h.at):
-            covered = [labels[i] for i in h.bottle_ids if i in labels]
-            if not covered:
-                continue
-            out["custody"].append(
-                {
-                    "trip_id": trip.id,
-                    "handoff_id": h.id,
-                    "at": _t(h.at),
-                    "relinquished_by": h.relinquished_by,
-                    "received_by": h.received_by,
-                    "at_lab": _yes(h.at_lab),
-                    "bottle_labels": ";".join(covered),
-                    "temp_on_receipt_c": num(h.temp.value if h.temp else None, "temp_c"),
-                    "temp_as_typed": h.temp.text if h.temp else "",
-                    "condition": h.condition,
-                    "relinquished_signed": _yes(h.relinquished_signature is not None),
-                    "received_signed": _yes(h.received_signature is not None),
-                    "notes": h.notes,
-                    "rounding": note,
-                }
-            )
+            for bottle_id in dict.fromkeys(h.bottle_ids):
+                if bottle_id not in held:
+                    continue
+                bottle, stop = held[bottle_id]
+                out["custody"].append(
+                    {
+                        "trip_id": trip.id,
+                        "handoff_id": h.id,
+                        "at": _t(h.at),
+                        "relinquished_by": h.relinquished_by,
+                        "received_by": h.received_by,
+                        "at_lab": _yes(h.at_lab),
+                        "bottle_id": bottle.id,
+                        "label": bottle.label,
+                        "site_id": stop.site_id,
+                        "temp_on_receipt_c": num(h.temp.value if h.temp else None, "temp_c"),
+                        "temp_as_typed": h.temp.text if h.temp else "",
+                        "condition": h.condition,
+                        "relinquished_signed": _yes(h.relinquished_signature is not None),
+                        "received_signed": _yes(h.received_signature is not None),
+                        "notes": h.notes,
+                        "rounding": note,
+                    }
+                )
     return out
 
 

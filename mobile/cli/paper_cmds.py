@@ -22,6 +22,10 @@ def _out_path(text: str, option: str, suffixes: tuple[str, ...], example: str) -
     return path
 
 
+def _count(n: int, noun: str) -> str:
+    return f"{n} {noun}{'' if n == 1 else 's'}"
+
+
 def _load(store, ident: str):  # noqa: ANN001
     from core.store import StoreError
 
@@ -58,8 +62,8 @@ def _report(args) -> int:  # noqa: ANN001
         emit_json(summary)
     else:
         sys.stdout.write(
-            f"wrote {out} ({len(data) // 1024} KiB): trip {trip.id[:8]}, {len(rep.stops)} stops,"
-            f" {len(rep.results)} lab results, {len(rep.handoffs)} hand-offs\n"
+            f"wrote {out} ({len(data) // 1024} KiB): trip {trip.id[:8]}, {_count(len(rep.stops), 'stop')},"
+            f" {_count(len(rep.results), 'lab result')}, {_count(len(rep.handoffs), 'hand-off')}\n"
         )
     return 0
 
@@ -144,7 +148,7 @@ def _export_season(args) -> int:  # noqa: ANN001
     else:
         sys.stdout.write(
             f"wrote {len(files)} files to {out}: "
-            + ", ".join(f"{n} {k}" for k, n in counts.items())
+            + ", ".join(f"{k}.csv {_count(n, 'row')}" for k, n in counts.items())
             + f" from {len(trips)} trip{'' if len(trips) == 1 else 's'}\n"
         )
     return 0
@@ -201,7 +205,7 @@ def _plot_site(args) -> int:  # noqa: ANN001
             }
         )
     else:
-        sys.stdout.write(f"wrote {out}: {site_id}, {len(rows)} visits\n")
+        sys.stdout.write(f"wrote {out}: {site_id}, {_count(len(rows), 'visit')}\n")
     return 0
 
 

@@ -58,25 +58,28 @@ def render_bench_sheet(
     body += [["", "", "", "300", "", "", "", "", ""] for _ in range(max(0, rows - len(body)))]
     sheet.heading("Dilutions (one row per bottle)", 10)
     sheet.table(
+        # what each column holds, with its unit; under it the CSV column name it is typed back into
         [
             "bottle",
             "kind",
-            "sample_ml",
-            "bottle_ml",
-            "seed_ml",
-            "initial_do_mg_l",
-            "final_do_mg_l",
-            "depletion (≥ 2.0, residual ≥ 1.0)",
+            "sample, mL\nsample_ml",
+            "bottle, mL\nbottle_ml",
+            "seed, mL\nseed_ml",
+            "initial DO, mg/L\ninitial_do_mg_l",
+            "final DO, mg/L\nfinal_do_mg_l",
+            "depletion, mg/L\n≥ 2.0, left ≥ 1.0",
             "notes",
         ],
         body,
-        [14, 11, 9, 9, 8, 12, 12, 16, 20],
+        [13, 11, 10, 10, 9, 13, 13, 16, 17],
         size=8.5,
         row_h=6.5,
     )
     sheet.para(
         "A dilution counts when it depletes at least 2.0 mg/L and leaves at least 1.0 mg/L"
-        " (Standard Methods 5210 B). " + SAFETY_NOTE + " The lab's SOP decides.",
+        " (Standard Methods 5210 B). Volumes in mL and DO in mg/L as typed, to 0.01 mg/L; results are"
+        " rounded only when reported (BOD5 to 0.1 mg/L unless the program says otherwise). The second"
+        " line of a column heading is the CSV column it is typed into. " + SAFETY_NOTE + " The lab's SOP decides.",
         size=7.5,
         grey=True,
     )

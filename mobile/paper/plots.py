@@ -51,6 +51,11 @@ def _figure(width_in: float, height_in: float):
     return Figure(figsize=(width_in, height_in), dpi=100, layout="constrained")
 
 
+def _legend(ax) -> None:  # noqa: ANN001
+    """The legend beside the axes, on the right, where it can never cover a point or a line."""
+    ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), borderaxespad=0.0, fontsize=8, frameon=True)
+
+
 def trip_do_figure(points: list[Any], *, title: str = ""):
     """Measured DO, the saturation target and the criterion by stop (route order), Winkler beside them.
 
@@ -64,7 +69,9 @@ def trip_do_figure(points: list[Any], *, title: str = ""):
     ax.plot(xs, [p.do_sat_mg_l if p.do_sat_mg_l is not None else float("nan") for p in points], **STYLES["target"])
     crit = [p.criterion_mg_l if p.criterion_mg_l is not None else float("nan") for p in points]
     if any(c == c for c in crit):
-        ax.step(xs, crit, where="mid", **STYLES["criterion"])
+        # one level per stop, across the stop's width, so a single stop still shows its criterion
+        style = {k: v for k, v in STYLES["criterion"].items() if not k.startswith("marker")}
+        ax.stairs(crit, [x - 0.5 for x in xs] + [len(xs) - 0.5], baseline=None, **style)
     wx = [x for x, p in zip(xs, points, strict=True) for _ in p.winkler_mg_l]
     wy = [v for p in points for v in p.winkler_mg_l]
     if wy:
@@ -73,9 +80,10 @@ def trip_do_figure(points: list[Any], *, title: str = ""):
     ax.set_xlabel("stop (route order)")
     ax.set_ylabel("dissolved oxygen, mg/L")
     ax.set_xlim(-0.5, max(len(xs) - 0.5, 0.5))
-    ax.set_ylim(bottom=0)
+    shown = [v for p in points for v in (p.do_mg_l, p.do_sat_mg_l, p.criterion_mg_l, *p.winkler_mg_l) if v is not None]
+    ax.set_ylim(0, max(shown, default=10.0) * 1.08)  # room above the highest point, never clipped
     ax.grid(True, color="0.85", linewidth=0.6)
-    ax.legend(loc="lower left", fontsize=8, frameon=True)
+    _legend(ax)
     if title:
         ax.set_title(title, fontsize=10)
     return fig
@@ -108,7 +116,7 @@ def site_season_figure(
     ax.set_ylabel("DO, mg/L")
     ax.set_ylim(bottom=0)
     ax.grid(True, color="0.85", linewidth=0.6)
-    ax.legend(loc="lower left", fontsize=8)
+    _legend(ax)
     ax.set_title(f"{site_id} {site_name}".strip() + " — dissolved oxygen over the season", fontsize=10)
     ax2.plot(
         ts,
@@ -119,8 +127,16 @@ def site_season_figure(
         ax2.axhline(supersat_percent, **STYLES["supersat"])
     ax2.set_ylabel("% saturation")
     ax2.grid(True, color="0.85", linewidth=0.6)
-    ax2.legend(loc="lower left", fontsize=8)
-    ax2.set_xlabel("date")
+    _legend(ax2)
+    # dates in the zone of the visits (the first one's offset), and the axis says which zone
+    from matplotlib.dates import AutoDateLocator, DateFormatter
+
+    from core.records.messages import offset_text
+
+    zone = ts[0].tzinfo if ts and ts[0].utcoffset() is not None else None
+    ax2.xaxis.set_major_locator(AutoDateLocator(tz=zone))
+    ax2.xaxis.set_major_formatter(DateFormatter("%Y-%m-%d", tz=zone))
+    ax2.set_xlabel(f"date ({offset_text(ts[0])})" if zone is not None else "date")
     fig.autofmt_xdate()
     return fig
 

@@ -25,12 +25,11 @@ def _font_dir() -> Path:
 
 
 def when(t: datetime | None) -> str:
-    """A time as printed: date, hour and minute in the zone it was recorded in, with that zone."""
-    if t is None:
-        return "—"
-    off = t.strftime("%z")
-    zone = "UTC" if off in ("+0000", "") else f"UTC{off[:3]}:{off[3:]}"
-    return f"{t:%Y-%m-%d %H:%M} {zone}"
+    """A time as printed: date, hour and minute in the zone it was recorded in, with that zone
+    (``2026-06-09 07:40 UTC−07:00``, as the app and the command line show it)."""
+    from core.records.messages import when_text
+
+    return when_text(t)
 
 
 def _hm(t: datetime | None) -> str:
@@ -195,14 +194,14 @@ def draw_signature(pdf: Any, signature: Any, x: float, y: float, w: float, h: fl
 
 
 def _flag_line(f: Any) -> str:
-    sev = getattr(f.severity, "value", f.severity)
-    action = f" — {f.action}" if getattr(f, "action", "") else ""
-    return f"[{sev}] {f.message}{action}"
+    from core.rules.report import finding_text
+
+    return finding_text(f)
 
 
 def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
     """Lays out a :class:`core.rules.report.TripReport` as PDF bytes (and writes `path` atomically)."""
-    from core.rules.report import typed
+    from core.rules.report import analyte_text, bottle_names, kind_text, reported, typed
     from core.rules.review import describe as review_describe
     from mobile.paper.plots import figure_bytes, trip_do_figure
 
@@ -214,7 +213,9 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
         f" · printed {when(rep.generated_at)}"
     )
     sheet = Sheet(title, subtitle)
-    sheet.footer_text = f"streamtab trip report · trip {trip.id[:8]} r{trip.revision}"
+    review = review_describe(trip)
+    # every page says the review state, so a page read on its own is never taken for a reviewed one
+    sheet.footer_text = f"streamtab trip report · trip {trip.id[:8]} r{trip.revision} · review: {review}"
     pdf = sheet.pdf
 
     # -- page 1: the trip and its meter --------------------------------------------------------
@@ -228,7 +229,7 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
             ("Meter", trip.meter_id or "—"),
             ("Device", trip.device_id or "—"),
             ("Status", trip.status),
-            ("Review", review_describe(trip)),
+            ("Review", review),
         ]
     )
     cal_rows = []
@@ -237,14 +238,21 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
             cal_rows.append([name, "—", "not recorded", "", "", "", ""])
             continue
         verdict = {True: "accepted", False: "NOT accepted", None: "not assessed"}[cal.accepted]
+
+        def mg(value: float | None, signed: bool = False) -> str:
+            r = reported(value, "calibration_mg_l", rnd)
+            if r is None:
+                return "—"
+            return f"{'+' if signed and r.number > 0 else ''}{r.text} mg/L"
+
         cal_rows.append(
             [
                 name,
                 when(cal.at),
                 f"{typed(cal.temp)} / {typed(cal.pressure)}",
-                f"{cal.reading_mg_l:.2f} mg/L",
-                fmt(cal.target_mg_l, 2, "mg/L"),
-                fmt(cal.difference_mg_l, 2, "mg/L", signed=True),
+                mg(cal.reading_mg_l),
+                mg(cal.target_mg_l),
+                mg(cal.difference_mg_l, signed=True),
                 verdict,
             ]
         )
@@ -268,10 +276,15 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
 
     fig = trip_do_figure(rep.plot)
     png = figure_bytes(fig, "png", dpi=200)
-    img_w = sheet.width * 0.8
     fig_w_in, fig_h_in = fig.get_size_inches()
-    # the heading, the plot and its two-line caption stay together
-    sheet.heading("Dissolved oxygen by stop", 10, keep=img_w * fig_h_in / fig_w_in + 10)
+    # The plot takes the room left on this page when that keeps it readable (at least 60 % of full
+    # width), else a page of its own; the heading, the plot and its caption stay together.
+    caption_h, head_h = 10.0, 1.5 + 7
+    room = pdf.page_break_trigger - pdf.get_y() - head_h - caption_h
+    img_w = min(sheet.width * 0.8, room * fig_w_in / fig_h_in)
+    if img_w < sheet.width * 0.6:
+        img_w = sheet.width * 0.8
+    sheet.heading("Dissolved oxygen by stop", 10, keep=img_w * fig_h_in / fig_w_in + caption_h)
     pdf.image(io.BytesIO(png), x=pdf.l_margin, w=img_w)
     sheet.para(
         "Solid line, filled circles: meter DO. Dashed line, open squares: the saturation target at each"
@@ -282,7 +295,6 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
     )
 
     # -- the stops --------------------------------------------------------------------------
-    sheet.page()
     sheet.heading("Stops: readings as entered and what was derived", 11)
     rows = []
     for s in rep.stops:
@@ -297,6 +309,7 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
                 s.shown["do_mg_l"],
                 s.shown["do_sat_mg_l"],
                 s.shown["percent_saturation"],
+                s.shown["sc25"],
                 "—" if s.criterion_mg_l is None else f"{s.criterion_mg_l:.{rnd.do_mg_l}f}",
                 str(len(s.flags)),
             ]
@@ -311,12 +324,13 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
             "meter DO",
             "DO, mg/L",
             "sat. target, mg/L",
-            "% sat.",
+            "saturation, %",
+            "sp. cond. at 25 °C, µS/cm",
             "criterion, mg/L",
-            "flags",
+            "findings",
         ],
         rows,
-        [30, 30, 22, 30, 22, 18, 14, 16, 11, 15, 9],
+        [26, 25, 19, 25, 22, 16, 12, 14, 19, 19, 15, 14],
     )
     sheet.heading("Findings at each stop", 10)
     any_flag = False
@@ -338,20 +352,19 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
             sheet.para(f"{site}: {text.strip()}", size=8)
 
     # -- lab results --------------------------------------------------------------------------
-    sheet.page()
     sheet.heading("Lab results", 11)
     rows, muted = [], set()
     for i, r in enumerate(rep.results):
         status = r.status if r.status != "superseded" else f"superseded by {(r.superseded_by or '')[:8]}"
-        reported = r.reported if r.status != "superseded" else f"({r.reported})"
+        shown = r.reported if r.status != "superseded" else f"({r.reported})"
         if r.status == "superseded":
             muted.add(i)
         rows.append(
             [
                 r.label,
                 r.site_id,
-                r.analyte,
-                reported,
+                analyte_text(r.analyte),
+                shown,
                 status,
                 r.holding,
                 r.analyst or "—",
@@ -386,19 +399,24 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
         )
     else:
         sheet.para("No lab results are recorded for this trip yet.")
-    flagged = [(r, rf) for r in rep.results for rf in r.flag_codes if r.status != "superseded"]
+    flagged = [r for r in rep.results if r.findings and r.status != "superseded"]
     if flagged:
-        sheet.para("Bench findings on live results: " + "; ".join(f"{r.label} {code}" for r, code in flagged), size=7.5)
+        sheet.heading("Bench findings on results in use", 10)
+        for r in flagged:
+            sheet.para(
+                f"{r.label} at {r.site_id}, {analyte_text(r.analyte)} {r.reported} ({r.status}):", size=8, style="B"
+            )
+            for line in r.findings:
+                sheet.para("• " + line, size=8)
 
     # -- chain of custody -----------------------------------------------------------------------
-    sheet.page()
     sheet.heading("Chain of custody", 11)
     rows = []
     for b in rep.bottles:
         rows.append(
             [
                 b.bottle.label,
-                b.bottle.kind,
+                kind_text(b.bottle.kind),
                 b.stop.site_id,
                 when(b.bottle.collected_at),
                 when(b.bottle.fixed_at) if b.bottle.fixed_at else "—",
@@ -411,18 +429,26 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
     sheet.table(
         ["bottle", "kind", "site", "collected", "fixed", "preservation", "holding deadline", "holding time", "custody"],
         rows,
-        [16, 13, 11, 27, 27, 40, 27, 24, 16],
+        [15, 22, 11, 26, 26, 36, 26, 24, 16],
     )
     sheet.heading("Hand-offs", 10)
     if not rep.handoffs:
         sheet.para("No hand-offs are recorded: the custody of these bottles is not documented in this record.")
     for h in rep.handoffs:
         _handoff_block(sheet, h)
-    custody_flags = [f for b in rep.bottles for f in b.custody_flags if f.code != "custody.unsigned"]
+    custody_flags = [
+        (b, [f for f in b.custody_flags if f.code != "custody.unsigned"]) for b in rep.bottles if b.custody_flags
+    ]
+    custody_flags = [(b, fs) for b, fs in custody_flags if fs]
     if custody_flags:
         sheet.heading("Custody findings", 10)
-        for f in custody_flags:
-            sheet.para("• " + _flag_line(f), size=8)
+        names = bottle_names(trip)
+        for b, fs in custody_flags:
+            # under each bottle by its name (with its site when a label repeats), so the findings of two
+            # bottles that share a label stay apart
+            sheet.para(f"{names.get(b.bottle.id, b.bottle.label)} ({kind_text(b.bottle.kind)}):", size=8, style="B")
+            for f in fs:
+                sheet.para("• " + _flag_line(f), size=8)
 
     # -- cautions and conventions ------------------------------------------------------------------
     sheet.heading("Cautions and reporting conventions", 10, keep=36)

@@ -100,8 +100,13 @@ def test_season_tables_are_tidy_and_complete(season, tmp_path):
     superseded = [r for r in results if r["status"] == "superseded"]
     assert len(superseded) == 1 and superseded[0]["superseded_by"]
     custody = _read(out, "custody")
-    assert [c["received_by"] for c in custody] == ["Courier K", "Lab desk M.T."]
-    assert custody[1]["temp_on_receipt_c"] == "4.2" and custody[1]["at_lab"] == "yes"
+    # one row per bottle per hand-off (tidy data, Wickham 2014): J.V. handed over every bottle,
+    # the lab desk received four of them
+    assert list(dict.fromkeys(c["received_by"] for c in custody)) == ["Courier K", "Lab desk M.T."]
+    lab = [c for c in custody if c["at_lab"] == "yes"]
+    assert sorted(c["label"] for c in lab) == ["TV-0611", "TV-0612", "TV-0613", "TV-0615"]
+    assert {c["temp_on_receipt_c"] for c in lab} == {"4.2"}
+    assert {c["bottle_id"] for c in custody} <= {b["bottle_id"] for b in _read(out, "bottles")}
     bottles = _read(out, "bottles")
     assert {b["custody_status"] for b in bottles if b["trip_id"] == LOWER} == {"at the lab", "in transit"}
     cals = _read(out, "calibrations")
