@@ -17,7 +17,7 @@ from datetime import datetime
 from typing import Any
 
 from core.records.messages import when_text
-from mobile.app import attention, device_files, program_prefs, records_bridge, review_steps
+from mobile.app import attention, device_files, hub_status, program_prefs, records_bridge, review_steps
 from mobile.app.device_files import AppPrefs
 from mobile.app.forms import BOTTLE_KINDS, FIELD_LABELS, REQUIRED_STOP_FIELDS, BottleForm, CalForm, StopForm, TripForm
 
@@ -32,12 +32,16 @@ from mobile.app.views import (
     Refusal,
     StopView,
     TripLine,
+    entry_action,
     error_line,
     flag_line,
+    fmt_clock,
     fmt_value,
     fmt_when,
     local_now,
     parse_when,
+    target_doubt,
+    zone_label,
 )
 
 __all__ = ["AppController"]
@@ -169,6 +173,10 @@ class AppController:
             return {s.trip_id: s.state for s in sync.status(self.store)}
         except Exception:  # noqa: BLE001 - the list still shows without sync state
             return {}
+
+    def sync_overview(self) -> Any:
+        """Where each trip on this tablet stands with the hub (mobile.app.hub_status.HubOverview)."""
+        return hub_status.overview(self)
 
     def send(
         self, target: str, *, progress: Callable[..., None], on_done: Callable[[Any, BaseException | None], None]
@@ -405,6 +413,18 @@ class AppController:
         self.save_later()
         return self.stop_view()
 
+    def arrival_zone(self) -> str:
+        """Which clock the open stop's arrival time is in (its UTC offset), for the field's label."""
+        stop = self.stop
+        return zone_label(stop.arrived_at if stop is not None else None, self.now())
+
+    def bottle_detail(self, bottle: BottleForm) -> str:
+        """A bottle row's second part: its kind and when it was fixed (with the offset when the tablet's differs)."""
+        kind = dict(BOTTLE_KINDS).get(bottle.kind, bottle.kind)
+        if bottle.fixed_at is not None:
+            return f"{kind} · fixed {fmt_clock(bottle.fixed_at, self.now())}"
+        return f"{kind} · " + ("not fixed" if bottle.kind != "bod" else "chill ≤ 6 °C")
+
     # ------------------------------------------------------------------ derived values
     def _saved_stop_doc(self, stop_id: str) -> dict[str, Any] | None:
         saved = self._saved.get(self.trip.id) if self.trip else None
@@ -439,7 +459,9 @@ class AppController:
             return view
         record, errors = self.stop_record(stop)
         view.errors = errors
-        lines: list[FlagLine] = [error_line(m, k) for k, m in errors.items()]
+        units = {"temp": stop.temp_unit, "pressure": stop.pressure_unit, "conductivity": stop.cond_unit}
+        units["do"] = stop.do_unit
+        lines: list[FlagLine] = [error_line(m, k, entry_action(k, units.get(k, ""))) for k, m in errors.items()]
         if record is None:
             if not stop.site_id:
                 sym, _word = severity_mark("note")
@@ -482,6 +504,7 @@ class AppController:
             sites_known=True,
         )
         flags = sorted(flags, key=lambda f: -f.severity.rank)
+        view.target_doubt = target_doubt(flags)
         lines.extend(flag_line(f) for f in flags)
         view.flags = lines
         return view

@@ -20,11 +20,15 @@ __all__ = [
     "TripLine",
     "flag_line",
     "error_line",
+    "entry_action",
     "fmt_value",
+    "target_doubt",
     "fmt_when",
     "parse_when",
     "fmt_duration",
     "fmt_deadline",
+    "fmt_clock",
+    "zone_label",
     "local_now",
     "WADING_CAUTION",
     "REAGENT_CAUTION",
@@ -46,6 +50,26 @@ def fmt_deadline(deadline: datetime, clock_of: datetime, now: datetime) -> str:
     text = dl.strftime("%H:%M") if dl.date() == now.astimezone(dl.tzinfo).date() else dl.strftime("%a %H:%M")
     if dl.utcoffset() != now.astimezone().utcoffset():
         text += f" {offset_text(dl)}"
+    return text
+
+
+def fmt_clock(when: datetime, now: datetime) -> str:
+    """A time of day on a row ("08:23"), with its UTC offset added when this tablet's clock is set to
+    another offset (a fixing time read as the tablet's own hour would be off by the difference)."""
+    text = when.strftime("%H:%M")
+    if when.utcoffset() != now.astimezone().utcoffset():
+        text += f" {offset_text(when)}"
+    return text
+
+
+def zone_label(when: datetime | None, now: datetime) -> str:
+    """Which clock a form's time field is in: "UTC−07:00", and "(this tablet: UTC)" after it when the
+    tablet's own offset differs; the tablet's offset when no time is there yet."""
+    if when is None or when.utcoffset() is None:
+        return offset_text(now.astimezone())
+    text = offset_text(when)
+    if when.utcoffset() != now.astimezone().utcoffset():
+        text += f"; this tablet is on {offset_text(now.astimezone())}"
     return text
 
 
@@ -72,9 +96,30 @@ def flag_line(flag: Any) -> FlagLine:
     return FlagLine(flag.code, str(sev), symbol, word, flag.message, flag.action or "")
 
 
-def error_line(message: str, field_name: str = "") -> FlagLine:
+def error_line(message: str, field_name: str = "", action: str = "") -> FlagLine:
     symbol, _word = severity_mark("stop-and-check")
-    return FlagLine(f"input.{field_name or 'value'}", "stop-and-check", symbol, "CHECK ENTRY", message, "")
+    return FlagLine(f"input.{field_name or 'value'}", "stop-and-check", symbol, "CHECK ENTRY", message, action)
+
+
+def entry_action(field_name: str, unit: str) -> str:
+    """What to type (or tap) after a stop entry was refused, with the unit the form has chosen for it."""
+    if field_name == "temp":
+        return (
+            "type it in °C, or tap °F if the thermometer shows °F"
+            if unit != "F"
+            else "type it in °F, or tap °C if the thermometer shows °C"
+        )
+    if field_name == "pressure":
+        return f"type the barometer's station reading in {unit}, or pick the unit it shows from the list beside it"
+    if field_name == "conductivity":
+        return f"type it in {unit}, or pick the unit the meter shows from the list beside it"
+    if field_name == "do":
+        return (
+            "type the meter's mg/L, or tap % sat if the meter shows % saturation"
+            if unit != "%"
+            else "type the meter's % saturation, or tap mg/L if the meter shows mg/L"
+        )
+    return ""
 
 
 @dataclass
@@ -88,6 +133,26 @@ class StopView:
     flags: list[FlagLine] = field(default_factory=list)
     errors: dict[str, str] = field(default_factory=dict)
     assessment: Any = None
+    #: Which typed value the saturation target rests on is in doubt (a warning or worse on it), in
+    #: words for the target tile ("pressure"); "" when none is.
+    target_doubt: str = ""
+
+
+#: What the saturation target is computed from, by the first part of a flag's code or field, in words.
+TARGET_INPUTS = {"pressure": "pressure", "temp": "temperature", "conductivity": "conductivity", "salinity": "salinity"}
+
+
+def target_doubt(flags: list[Any]) -> str:
+    """The inputs of the saturation target that a warning or worse is about, in words ("pressure")."""
+    words: list[str] = []
+    for f in flags:
+        if str(getattr(f.severity, "value", f.severity)) == "note":
+            continue
+        head = (getattr(f, "field", None) or f.code).split(".")[0].split("_")[0]
+        word = TARGET_INPUTS.get(head)
+        if word and word not in words:
+            words.append(word)
+    return " and ".join(words)
 
 
 @dataclass

@@ -21,6 +21,7 @@ def _screen_texts(p, name="stop"):
         "flags": [f"{w.word}|{w.message}|{w.action}" for w in reversed(s.flag_box.children)],
         "message": s.message,
         "bottle_message": s.bottle_message,
+        "target_tiles": [s.ids.sat_tile.caption, s.ids.sat_tile.warn, s.ids.percent_tile.warn],
     }
 
 
@@ -264,6 +265,8 @@ def sync_folder(p, hub=""):
     yield 0.2
     s = p.screen("sync")
     p.note("idle_bar", [s.ids.bar.opacity, s.ids.bar.height, _visible(s.ids.bar)])
+    p.note("idle_status", s.status)
+    p.note("idle_rows", [w.text for w in reversed(s.rows_box.children)])
     yield from p.shot("sync-idle")
     yield from p.type(s.ids.target, hub)
     yield from p.tap(s.ids.send_btn)
@@ -703,3 +706,46 @@ def meter_basis(p):
     p.note("view_percent_text", view.percent_text)
     p.app.ctl.flush(10)
     p.note("trip_id", p.app.ctl.trip.id)
+
+
+def field_slips(p):
+    """The usual slips at the water's edge: a weather-service pressure at a site 610 m up, °F typed with
+    °C chosen, closing with the meter DO still empty; the arrival time's clock and a fixed bottle's time."""
+    yield 0.1
+    yield from _start_trip(p)
+    s = p.screen("stop")
+    p.note("arrived_label", s.ids.arrived_label.text)
+    yield from _fill_stop(p, "LK-03 Aspen Bend", "12", "1013", None, "9,1")
+    yield 0.2
+    p.note("sea_level", _screen_texts(p))
+    yield from p.shot("stop-sea-level-pressure")
+    yield from p.type(s.ids.pressure, "942")
+    yield from p.tap(s.ids.temp_c)
+    yield from p.type(s.ids.temp, "59")
+    yield 0.1
+    p.note("f_as_c", _screen_texts(p))
+    yield from p.shot("stop-fahrenheit-as-celsius")
+    yield from p.type(s.ids.temp, "15")
+    yield from p.type(s.ids.do_value, "")
+    yield from p.tap(s.ids.close_btn)
+    yield 0.1
+    p.note("close_empty_do", [s.message, s.closed])
+    yield from p.shot("stop-close-refused")
+    yield from _add_bottle(p, "AB-1", "do_fixed")
+    p.note("bottle_details", [r.detail for r in reversed(s.bottle_box.children)])
+    p.app.ctl.flush(10)
+
+
+def bench_narrow(p):
+    """The bench screen on a narrow (portrait) window: the waiting rows hold their wrapped text and the
+    forms keep the width their buttons need."""
+    p.app.go("bench")
+    yield 0.5
+    s = p.screen("bench")
+    rows = [w for w in reversed(s.rows_box.children) if getattr(w, "key", "")]
+    p.note("rows_fit", [w.texture_size[1] <= w.height + 0.5 for w in rows])
+    p.note("row_count", len(rows))
+    btn = s.ids.winkler_btn
+    p.note("save_button", [btn.texture_size[1], btn.font_size])
+    p.note("queue_width", [s.ids.queue_column.width, s.width])
+    yield from p.shot("bench-portrait")

@@ -64,3 +64,16 @@ def test_bench_screen_and_signature_pad(tmp_path):
         img = Image.open(art / f"{name}.png").convert("L")
         dark = sum(img.histogram()[:100]) / (img.width * img.height)
         assert dark > 0.01, f"{name} looks blank"
+
+
+def test_bench_screen_on_a_portrait_tablet(tmp_path):
+    """Portrait: the waiting list sits above the forms at full width, each waiting row is as tall as its
+    wrapped text (no row drawn over the next) and the Save button's word stays on one line (common practice)."""
+    data = tmp_path / "data"
+    _seed(data)
+    notes = run_scenario("bench_narrow", data, tmp_path, artifacts=ARTIFACTS / "lab", size="600x1000")
+    assert notes["row_count"] >= 1 and all(notes["rows_fit"]), notes["rows_fit"]
+    text_h, font = notes["save_button"]
+    assert text_h < 2 * font, notes["save_button"]  # one line of text
+    width, screen = notes["queue_width"]
+    assert width >= 0.9 * screen

@@ -75,6 +75,7 @@ def test_fahrenheit_typed_as_celsius_gets_its_hint(logged):
     for key in ("f_as_c_54", "f_as_c_68"):
         flags = " ".join(notes[key]["flags"])
         assert "°F" in flags, flags
+        assert "tap °F" in flags, flags  # what to do, not only what is wrong (common practice)
         assert notes[key]["sat_text"] == "—"
     a = assess_reading(
         float(f_to_c(68.0)),
@@ -106,3 +107,38 @@ def test_store_holds_what_was_typed(logged):
         20.0, 726.1 * MMHG_HPA, conductivity_us_cm=410.0, do_percent=95.0, elevation_m=420.0, water_class="cold"
     )
     assert stop.derived.do_sat_mg_l == pytest.approx(a.do_sat_mg_l)
+
+
+def test_field_slips_say_what_to_type(tmp_path):
+    """A sea-level (weather-service) pressure at a 610 m site, °F typed with °C chosen and an empty
+    meter DO when closing: each says what is wrong and what to type; the arrival time says its clock."""
+    from datetime import datetime
+
+    from core.records.messages import offset_text
+    from tests.app.conftest import seed_sites
+
+    seed_sites(tmp_path / "data")
+    notes = run_scenario("field_slips", tmp_path / "data", tmp_path, artifacts=ARTIFACTS / "slips")
+    # the arrival field names the clock its time is in (this tablet's offset for a new stop)
+    assert notes["arrived_label"].endswith("clock " + offset_text(datetime.now().astimezone()))
+    # 1013 hPa at 610 m is far above the standard atmosphere there (US Standard Atmosphere 1976:
+    # about 942 hPa); the flag says so and gives the station pressure to type instead
+    flags = notes["sea_level"]["flags"]
+    hit = [f for f in flags if "sea-level" in f]
+    assert hit, flags
+    # US Standard Atmosphere 1976 barometric formula (troposphere): p = p0 (1 − 2.25577e-5 h)^5.25588
+    station = 1013.0 * (1 - 2.25577e-5 * 610.0) ** 5.25588
+    said = float(hit[0].split("about ")[1].split(" hPa")[0])
+    assert said == pytest.approx(station, abs=0.3)
+    # the target and % tiles rest on that pressure: they say so at a glance (common practice)
+    assert notes["sea_level"]["target_tiles"] == ["▲ Check the pressure first", True, True]
+    assert notes["f_as_c"]["target_tiles"][1:] == [False, False]  # no target computed, nothing to doubt
+    # °F typed with °C chosen: the line names the unit mix-up and says what to tap or type
+    (line,) = [f for f in notes["f_as_c"]["flags"] if f.startswith("CHECK ENTRY")]
+    _word, message, action = line.split("|")
+    assert "°F" in message and "tap °F" in action and "in °C" in action, line
+    # closing with the meter DO empty is refused and names the field
+    message, closed = notes["close_empty_do"]
+    assert message.startswith("■") and "Meter DO" in message and closed is False
+    # a bottle fixed now shows its time on the tablet's own clock (no offset needed)
+    assert notes["bottle_details"][0].startswith("DO fixed · fixed ") and "UTC" not in notes["bottle_details"][0]

@@ -19,7 +19,13 @@ def test_send_to_folder_hub(tmp_path):
         "sync_folder", tmp_path / "data", tmp_path, artifacts=ARTIFACTS / "sync", params={"hub": str(hub)}
     )
     assert notes["typed_during_sync"] == "11,0"
+    # before sending, the screen says what is waiting (common practice: say the state, not only a button)
+    assert "1 trip · 0 at the hub · 1 waiting to send" in notes["idle_status"], notes["idle_status"]
+    assert len(notes["idle_rows"]) == 1 and notes["idle_rows"][0].startswith("● WAITING:"), notes["idle_rows"]
     assert notes["status"].startswith("✓ Sent 1"), notes["status"]
+    # after, what the tablet holds now: the trip at the hub, nothing waiting, and when it got there
+    assert "1 trip · 1 at the hub · 0 waiting to send · 0 with conflicts" in notes["status"], notes["status"]
+    assert "last reached the hub" in notes["status"]
     assert any(r.startswith("✓ PUSHED") for r in notes["rows"]), notes["rows"]
     assert notes["progress"][0] == notes["progress"][1]
     # idle, the progress strip takes no room (its empty frame looked like a text field); after, it shows

@@ -7,7 +7,6 @@ from kivy.clock import Clock
 from kivy.factory import Factory
 from kivy.properties import BooleanProperty, ListProperty, NumericProperty, ObjectProperty, StringProperty
 
-from mobile.app.forms import BOTTLE_KINDS
 from mobile.app.screens import conflicts  # noqa: F401 - the ConflictPanel its kv rule uses
 from mobile.app.screens.base import BaseScreen, ctl
 from mobile.app.views import REAGENT_CAUTION, WADING_CAUTION, fmt_when
@@ -22,6 +21,7 @@ class StopScreen(BaseScreen):
     do_text = StringProperty("—")
     salinity_text = StringProperty("—")
     salinity_source = StringProperty("")
+    target_doubt = StringProperty("")  # the target's input a warning is about ("pressure"), else ""
     site_text = StringProperty("Pick a site")
     site_values = ListProperty([])
     temp_unit = StringProperty("C")
@@ -38,6 +38,7 @@ class StopScreen(BaseScreen):
     compact = BooleanProperty(False)  # portrait with the soft keyboard up: one-line results
     stop_titles = ListProperty([])
     stop_pick_text = StringProperty("")
+    arrived_zone = StringProperty("")  # which clock the arrival time is in (its UTC offset)
     flag_count_text = StringProperty("")
     flag_total = NumericProperty(0)
     wading_caution = StringProperty(WADING_CAUTION)
@@ -77,6 +78,7 @@ class StopScreen(BaseScreen):
             self.stop_titles = [self._stop_title(s) for s in c.trip.stops]
             self.stop_pick_text = self._stop_title(stop)
             self.arrived_entry.text = fmt_when(stop.arrived_at)
+            self.arrived_zone = c.arrival_zone()
             self.temp_entry.text = stop.temp_text
             self.pressure_entry.text = stop.pressure_text
             self.cond_entry.text = stop.cond_text
@@ -104,6 +106,8 @@ class StopScreen(BaseScreen):
             self.site_chosen = bool(value)
         self.message = ""
         self.show(ctl().set_stop_field(name, value))
+        if name in ("arrived", "arrived_now"):
+            self.arrived_zone = ctl().arrival_zone()
         self.commit()
 
     @staticmethod
@@ -179,6 +183,7 @@ class StopScreen(BaseScreen):
         value, _, source = view.salinity_text.partition(" (")
         self.salinity_text = value
         self.salinity_source = source.rstrip(")")
+        self.target_doubt = view.target_doubt
         serious = [f for f in view.flags if f.severity in ("warning", "stop-and-check")]
         self.flag_count_text = f"▲ {len(serious)} to check" if serious else ""
         self.flag_total = len(view.flags)
@@ -201,16 +206,10 @@ class StopScreen(BaseScreen):
         stop = c.stop
         box = self.bottle_box
         box.clear_widgets()
-        kinds = dict(BOTTLE_KINDS)
         for b in stop.bottles if stop else []:
-            fixed = (
-                f"fixed {fmt_when(b.fixed_at)[-5:]}"
-                if b.fixed_at
-                else ("not fixed" if b.kind != "bod" else "chill ≤ 6 °C")
-            )
             row = Factory.BottleRow(
                 title=b.label,
-                detail=f"{kinds.get(b.kind, b.kind)} · {fixed}",
+                detail=c.bottle_detail(b),
                 key=b.id,
                 can_fix=(b.fixed_at is None and b.kind != "bod"),
             )

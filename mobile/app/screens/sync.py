@@ -10,6 +10,8 @@ from mobile.app.screens.base import BaseScreen, ctl
 
 __all__ = ["SyncScreen"]
 
+IDLE_LINE = "Trips stay on this tablet until they reach the hub; logging goes on while it sends."
+
 
 class SyncScreen(BaseScreen):
     target_entry = ObjectProperty(None)
@@ -18,12 +20,25 @@ class SyncScreen(BaseScreen):
     progress_max = NumericProperty(1)
     running = BooleanProperty(False)
     status = StringProperty("")
+    _result_line = ""  # what the last send did, kept with its rows until the next one
 
     def on_pre_enter(self, *_):
         if not self.target_entry.text:
             self.target_entry.text = ctl().prefs.sync_target
-        if not self.status:
-            self.status = "Trips stay on this tablet until they reach the hub. Logging goes on during sending."
+        if self.running:
+            return
+        if self._result_line:  # the last send's rows stay; the summary says where things stand now
+            self.status = f"{self._result_line}\n{ctl().sync_overview().summary}"
+        else:
+            self.show_overview()
+
+    def show_overview(self, first_line=IDLE_LINE):
+        """Where each trip on this tablet stands with the hub: the summary under the button, a row per trip."""
+        ov = ctl().sync_overview()
+        self.status = f"{first_line}\n{ov.summary}" if first_line else ov.summary
+        self.rows_box.clear_widgets()
+        for line in ov.lines:
+            self.rows_box.add_widget(Factory.WrapLabel(text=line))
 
     def send(self):
         if self.running:
@@ -50,7 +65,8 @@ class SyncScreen(BaseScreen):
         self.running = False
         ctl().refresh_from_store()  # a merge during the send changed the open trip: show it
         if error is not None:
-            self.status = f"■ Not sent — will retry: {error}"
+            self._result_line = f"■ Not sent — will retry: {error}"
+            self.show_overview(self._result_line)
             return
         self.progress = self.progress_max
         self.rows_box.clear_widgets()
@@ -63,10 +79,11 @@ class SyncScreen(BaseScreen):
                 line += f"\n    ▲ {c}"
             self.rows_box.add_widget(Factory.WrapLabel(text=line))
         left = "" if report.failed == 0 else " — the failed ones stay on this tablet and go next time"
-        self.status = (
+        self._result_line = (
             f"{'✓' if report.failed == 0 else '▲'} Sent {report.pushed} · unchanged {report.unchanged} · "
             f"conflicts {report.conflicts} · failed {report.failed}{left}"
         )
+        self.status = f"{self._result_line}\n{ctl().sync_overview().summary}"
 
 
 RESULT_MARK = {"pushed": "✓", "unchanged": "○", "conflict": "▲", "failed": "■"}

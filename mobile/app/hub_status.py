@@ -1,0 +1,68 @@
+"""What the sync screen says about the trips here: which reached the hub, which wait, which hold conflicts (no kivy).
+
+Read from the sync outbox (`sync.status`) and the store's trip list; the controller forwards to `overview`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from datetime import datetime
+from typing import Any
+
+from core.records.messages import when_text
+
+__all__ = ["HubOverview", "overview"]
+
+
+@dataclass
+class HubOverview:
+    """One summary sentence and one line per trip, already as text."""
+
+    summary: str
+    lines: list[str] = field(default_factory=list)
+
+
+def _latest(times: list[str | None]) -> datetime | None:
+    out = None
+    for t in times:
+        try:
+            when = datetime.fromisoformat(t) if t else None
+        except ValueError:
+            when = None
+        if when is not None and when.utcoffset() is not None and (out is None or when > out):
+            out = when
+    return out
+
+
+def overview(ctl: Any) -> HubOverview:
+    """Every trip on this tablet and where it stands with the hub, waiting ones first."""
+    try:
+        import sync
+
+        states = {s.trip_id: s for s in sync.status(ctl.store)}
+    except Exception:  # noqa: BLE001 - without the outbox the trips still show, as waiting
+        states = {}
+    trips = list(ctl.store.list_trips())
+    if not trips:
+        return HubOverview("No trips on this tablet yet.")
+    waiting, sent, conflicts = [], [], []
+    last = _latest([h.pushed_at for s in states.values() for h in s.hubs])
+    for t in trips:
+        crew = ", ".join(t.crew) if isinstance(t.crew, list) else str(t.crew or "")
+        title = f"{t.program or 'Trip'} · {crew or '—'} · {when_text(t.started_at)}"
+        st = states.get(t.id)
+        open_ = "" if t.ended_at else " (trip still open)"
+        if st is not None and st.conflicts:
+            conflicts.append(f"▲ CONFLICT: {title} — settle it on the stop or end screen: {st.conflicts[0]}")
+        if st is None or st.state == "never pushed":
+            waiting.append(f"● WAITING: {title} — not sent yet{open_}")
+        elif st.state == "changed":
+            waiting.append(f"● WAITING: {title} — changed since it was last sent{open_}")
+        else:
+            sent.append(f"✓ AT THE HUB: {title}")
+    summary = (
+        f"On this tablet: {len(trips)} trip{'s' if len(trips) != 1 else ''} · {len(sent)} at the hub · "
+        f"{len(waiting)} waiting to send · {len(conflicts)} with conflicts"
+    )
+    summary += f" · last reached the hub {when_text(last)}." if last else " · none sent from here yet."
+    return HubOverview(summary, conflicts + waiting + sent)
