@@ -289,7 +289,8 @@ def render_trip_report(rep: Any, path: Path | None = None) -> bytes:
     sheet.para(
         "Solid line, filled circles: meter DO. Dashed line, open squares: the saturation target at each"
         " stop's temperature and pressure. Dotted line: the program's DO criterion for the site's water"
-        " class. Open triangles: Winkler DO from the lab.",
+        " class. Open triangles: Winkler DO from the lab, results in use only (superseded and not valid"
+        " results are left off the plot; the lab results table lists them).",
         size=7,
         grey=True,
     )

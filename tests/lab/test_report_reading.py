@@ -146,6 +146,7 @@ def test_bounds_superseded_and_invalid_results_are_marked(reports):
     assert "(7.9 mg/L)" in hot and "superseded by" in hot and "8.1 mg/L" in hot
     assert "not valid" in hot and "No dilution used 2 mg/L of oxygen" in hot
     assert "Bench findings on results in use" in hot
+    assert "superseded and not valid results are left off the plot" in hot  # the plot says what it omits
     upper = _flat(reports[UPPER])
     assert "past holding" in upper and "past the 8 h Winkler holding time" in upper
 
