@@ -40,6 +40,7 @@ from mobile.app.views import (
     fmt_when,
     local_now,
     parse_when,
+    reading_flagged,
     target_doubt,
     zone_label,
 )
@@ -505,6 +506,7 @@ class AppController:
         )
         flags = sorted(flags, key=lambda f: -f.severity.rank)
         view.target_doubt = target_doubt(flags)
+        view.reading_flagged = reading_flagged(flags)
         lines.extend(flag_line(f) for f in flags)
         view.flags = lines
         return view

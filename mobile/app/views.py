@@ -23,6 +23,8 @@ __all__ = [
     "entry_action",
     "fmt_value",
     "target_doubt",
+    "target_caption",
+    "reading_flagged",
     "fmt_when",
     "parse_when",
     "fmt_duration",
@@ -136,10 +138,17 @@ class StopView:
     #: Which typed value the saturation target rests on is in doubt (a warning or worse on it), in
     #: words for the target tile ("pressure"); "" when none is.
     target_doubt: str = ""
+    #: A warning or worse is about the DO reading itself (low, hypoxic, supersaturated).
+    reading_flagged: bool = False
 
 
 #: What the saturation target is computed from, by the first part of a flag's code or field, in words.
 TARGET_INPUTS = {"pressure": "pressure", "temp": "temperature", "conductivity": "conductivity", "salinity": "salinity"}
+
+
+def reading_flagged(flags: list[Any]) -> bool:
+    """True when a warning or worse is about the DO reading itself (a `do.` code)."""
+    return any(str(getattr(f.severity, "value", f.severity)) != "note" and f.code.startswith("do.") for f in flags)
 
 
 def target_doubt(flags: list[Any]) -> str:
@@ -153,6 +162,15 @@ def target_doubt(flags: list[Any]) -> str:
         if word and word not in words:
             words.append(word)
     return " and ".join(words)
+
+
+def target_caption(doubt: str) -> str:
+    """The target tile's caption: what it is, or which of its inputs to check first (short enough for
+    the tile's one line)."""
+    if not doubt:
+        return "Saturation target (100 %)"
+    n = doubt.count(" and ") + 1
+    return f"▲ Check the {doubt} first" if n == 1 else f"▲ Check {n} of its inputs first"
 
 
 @dataclass

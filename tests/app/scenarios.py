@@ -559,6 +559,8 @@ def flags_panel(p):
     view = s.flag_view
     rows = list(reversed(s.flag_box.children))
     p.note("flag_words", [r.word for r in rows])
+    tiles = (s.ids.sat_tile, s.ids.percent_tile, s.ids.mg_tile)
+    p.note("tiles", [[t.caption, t.warn] for t in tiles])
     p.note("panel", [view.height, s.flag_box.height, type(view.__self__).__name__])
     yield from p.shot("stop-flags")
     seen = []
@@ -733,6 +735,11 @@ def field_slips(p):
     yield from p.shot("stop-close-refused")
     yield from _add_bottle(p, "AB-1", "do_fixed")
     p.note("bottle_details", [r.detail for r in reversed(s.bottle_box.children)])
+    yield from _add_bottle(p, "ab-1", "do_fixed")
+    p.note("duplicate", s.bottle_message)
+    yield from p.shot("stop-duplicate-bottle")
+    yield from p.type(s.ids.bottle_label, "AB-2")
+    p.note("after_retyping", s.bottle_message)
     p.app.ctl.flush(10)
 
 

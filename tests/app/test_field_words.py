@@ -6,7 +6,7 @@ from __future__ import annotations
 from datetime import datetime, timedelta, timezone
 
 from core.flags import Flag, Severity
-from mobile.app.views import entry_action, fmt_clock, target_doubt, zone_label
+from mobile.app.views import entry_action, fmt_clock, reading_flagged, target_caption, target_doubt, zone_label
 
 MINUS7 = timezone(timedelta(hours=-7))
 
@@ -44,3 +44,12 @@ def test_only_warnings_on_the_targets_inputs_mark_the_target():
     assert target_doubt([flag("temp_c.out_of_range", Severity.STOP, "temp_c")]) == "temperature"
     assert target_doubt([flag("pressure.flat", Severity.NOTE)]) == ""  # a note does not doubt the value
     assert target_doubt([flag("do.supersaturated", Severity.WARNING)]) == ""  # about the reading, not the target
+
+
+def test_the_target_caption_fits_one_line_and_the_reading_flag_is_about_do():
+    assert target_caption("") == "Saturation target (100 %)"
+    assert target_caption("pressure") == "▲ Check the pressure first"
+    assert target_caption("pressure and conductivity") == "▲ Check 2 of its inputs first"
+    low = Flag(code="do.below_criterion", severity=Severity.WARNING, message="m")
+    basis = Flag(code="do.percent_basis_sea_level", severity=Severity.NOTE, message="m")
+    assert reading_flagged([low]) and not reading_flagged([basis])

@@ -69,6 +69,11 @@ def test_flags_panel_scrolls_to_every_flag(tmp_path, size, folder):
     seed_sites(tmp_path / "data")
     notes = run_scenario("flags_panel", tmp_path / "data", tmp_path, size=size, artifacts=ARTIFACTS / folder)
     assert len(notes["flag_words"]) >= 2
+    # 2.1 mg/L is hypoxic (below 2 mg/L is the usual line, common practice; 2.1 sits at it) and 1040 hPa at
+    # 610 m looks sea-level adjusted: the tiles carry the warning colour without reading the panel
+    (sat_caption, sat_warn), (pct_caption, pct_warn), (mg_caption, mg_warn) = notes["tiles"]
+    assert sat_warn and sat_caption == "▲ Check 2 of its inputs first", notes["tiles"]  # pressure, conductivity
+    assert pct_warn and mg_warn and pct_caption.startswith("▲") and mg_caption.startswith("▲"), notes["tiles"]
     height, content, kind = notes["panel"]
     assert kind == "ScrollView"
     assert notes["each_flag_fits_when_scrolled"] == [True] * len(notes["flag_words"])

@@ -142,3 +142,6 @@ def test_field_slips_say_what_to_type(tmp_path):
     assert message.startswith("■") and "Meter DO" in message and closed is False
     # a bottle fixed now shows its time on the tablet's own clock (no offset needed)
     assert notes["bottle_details"][0].startswith("DO fixed · fixed ") and "UTC" not in notes["bottle_details"][0]
+    # a duplicate ID (any case) is refused with what to do; typing the next ID clears that refusal
+    assert notes["duplicate"].startswith("■ Refused") and "check the label or scan again" in notes["duplicate"]
+    assert notes["after_retyping"] == ""

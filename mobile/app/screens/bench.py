@@ -29,7 +29,7 @@ def bench():
 class BenchScreen(BaseScreen):
     rows_box = ObjectProperty(None)
     chosen = StringProperty("")  # "trip_id|bottle_id"
-    chosen_text = StringProperty("Tap a bottle on the left.")
+    chosen_text = StringProperty("Tap a waiting bottle to enter its result.")
     standardisation = StringProperty("")
     reportable = StringProperty("Reportable BOD5: type a dilution.")
     row_status = ListProperty(["", "", ""])
@@ -73,7 +73,7 @@ class BenchScreen(BaseScreen):
 
     def _pair(self):
         if not self.chosen:
-            raise ValueError("Tap a bottle on the left first.")
+            raise ValueError("Tap a waiting bottle first, then type its result.")
         return self.chosen.split("|", 1)
 
     def save_winkler(self, titrant, titrated, analyst):

@@ -9,7 +9,7 @@ from kivy.properties import BooleanProperty, ListProperty, NumericProperty, Obje
 
 from mobile.app.screens import conflicts  # noqa: F401 - the ConflictPanel its kv rule uses
 from mobile.app.screens.base import BaseScreen, ctl
-from mobile.app.views import REAGENT_CAUTION, WADING_CAUTION, fmt_when
+from mobile.app.views import REAGENT_CAUTION, WADING_CAUTION, fmt_when, target_caption
 
 __all__ = ["StopScreen"]
 
@@ -21,7 +21,9 @@ class StopScreen(BaseScreen):
     do_text = StringProperty("—")
     salinity_text = StringProperty("—")
     salinity_source = StringProperty("")
-    target_doubt = StringProperty("")  # the target's input a warning is about ("pressure"), else ""
+    target_doubt = StringProperty("")  # the target's inputs a warning is about ("pressure"), else ""
+    target_caption = StringProperty(target_caption(""))
+    reading_flagged = BooleanProperty(False)  # a warning or worse is about the DO reading itself
     site_text = StringProperty("Pick a site")
     site_values = ListProperty([])
     temp_unit = StringProperty("C")
@@ -184,6 +186,8 @@ class StopScreen(BaseScreen):
         self.salinity_text = value
         self.salinity_source = source.rstrip(")")
         self.target_doubt = view.target_doubt
+        self.target_caption = target_caption(view.target_doubt)
+        self.reading_flagged = view.reading_flagged
         serious = [f for f in view.flags if f.severity in ("warning", "stop-and-check")]
         self.flag_count_text = f"▲ {len(serious)} to check" if serious else ""
         self.flag_total = len(view.flags)
@@ -226,6 +230,11 @@ class StopScreen(BaseScreen):
         self.show(ctl().stop_view())
         # keep the field focused so a barcode scanner (types the ID, then Enter) can go on
         Clock.schedule_once(lambda _dt: setattr(self.label_entry, "focus", True), 0)
+
+    def label_typed(self):
+        """A new bottle ID is being typed: a refusal about the last one no longer applies."""
+        if self.bottle_message.startswith("■"):
+            self.bottle_message = ""
 
     def fix_bottle(self, row):
         ctl().fix_bottle(row.key)
