@@ -4,8 +4,9 @@ from __future__ import annotations
 
 from collections.abc import Iterable
 from dataclasses import dataclass
-from datetime import datetime
 from typing import Any
+
+from core.timefmt import offset_text, when_text
 
 __all__ = [
     "FIELD_LABELS",
@@ -311,36 +312,3 @@ def one_line(problems: list[Problem], where: str = "") -> str:
     head = problems[0].message
     more = f" (and {len(problems) - 1} more problem{'s' if len(problems) > 2 else ''})" if len(problems) > 1 else ""
     return f"{where}: {head}{more}" if where else head + more
-
-
-def when_text(when: datetime | str | None) -> str:
-    """A record's time as a person reads it: in the time's own UTC offset, saying which, e.g.
-    ``2026-06-09 07:40 UTC−07:00`` (the clock the crew saw where it was recorded, on any machine).
-
-    The app and the command line both show times this way. A time without an offset (not written
-    by streamtab) is shown as it is, marked "offset unknown".
-    """
-    if when is None or when == "":
-        return "—"
-    if isinstance(when, str):
-        try:
-            when = datetime.fromisoformat(when)
-        except ValueError:
-            return str(when)
-    text = when.strftime("%Y-%m-%d %H:%M")
-    if when.utcoffset() is None:
-        return f"{text} (offset unknown)"
-    return f"{text} {offset_text(when)}"
-
-
-def offset_text(when: datetime) -> str:
-    """The UTC offset of an aware time as people write it: ``UTC``, ``UTC−07:00``, ``UTC+05:30``."""
-    offset = when.utcoffset()
-    if offset is None:
-        return "offset unknown"
-    minutes = int(offset.total_seconds() // 60)
-    if minutes == 0:
-        return "UTC"
-    sign = "+" if minutes > 0 else "−"
-    h, m = divmod(abs(minutes), 60)
-    return f"UTC{sign}{h:02d}:{m:02d}"

@@ -7,6 +7,7 @@ from datetime import datetime, timedelta
 
 from core.flags import Flag, Severity
 from core.science._validate import real
+from core.timefmt import when_text
 
 __all__ = [
     "HoldingRule",
@@ -246,8 +247,8 @@ def holding_clock(
         flag = Flag(
             "holding.expired",
             Severity.STOP,
-            f"The {rule.label} sample passed its {_fmt(rule.hours * 3600)} holding time {_fmt(remaining)} ago"
-            f" (deadline {deadline.isoformat(timespec='minutes')}).",
+            f"The holding time for {rule.label} ({_fmt(rule.hours * 3600)}) ended {_fmt(remaining)} ago"
+            f" (deadline {when_text(deadline)}).",
             "Analyze it only if the program's SOP allows, and qualify the result as past its holding time.",
             kind,
         )
@@ -255,8 +256,8 @@ def holding_clock(
         flag = Flag(
             "holding.soon",
             Severity.WARNING,
-            f"The {rule.label} sample has {_fmt(remaining)} left of its {_fmt(rule.hours * 3600)} holding time"
-            f" (deadline {deadline.isoformat(timespec='minutes')}).",
+            f"The holding time for {rule.label} ({_fmt(rule.hours * 3600)}) has {_fmt(remaining)} left"
+            f" (deadline {when_text(deadline)}).",
             f"Analyze it soon; keep it {rule.preservation}.",
             kind,
         )
