@@ -336,8 +336,21 @@ def stop_rows(trip: Trip, rounding: Rounding | None = None) -> list[dict[str, st
     return rows
 
 
+def _standing(r: Any) -> str:
+    """How a result stands, for a reader of the cell (core.rules.report.result_status): "" when valid."""
+    from core.rules.report import result_status
+
+    status = result_status(r)
+    return "" if status == "valid" else f" ({status})"
+
+
 def _lab_cell(r: Any, rounding: Rounding | None) -> str:
-    """ "analyte=value unit"; a BOD5/CBOD5 result as its 5210 B report ("bod5=< 2.0 mg/L") when it has one."""
+    """ "analyte=value unit"; a BOD5/CBOD5 result as its 5210 B report ("bod5=< 2.0 mg/L") when it has one;
+    a result that is not the valid one in use says so: "(superseded)", "(not valid)", "(not checked)"."""
+    return _lab_value(r, rounding) + _standing(r)
+
+
+def _lab_value(r: Any, rounding: Rounding | None) -> str:
     from core.rules.report import for_export, result_quantity
 
     derived = (r.inputs or {}).get("derived") if isinstance(r.inputs, dict) else None
@@ -352,12 +365,15 @@ def _lab_cell(r: Any, rounding: Rounding | None) -> str:
 
 
 def bottle_rows(trip: Trip, rounding: Rounding | None = None) -> list[dict[str, str]]:
-    """One row per bottle (columns :data:`BOTTLE_COLUMNS`); lab results as "analyte=value unit; ...",
+    """One row per bottle (columns :data:`BOTTLE_COLUMNS`); lab results as "analyte=value unit; ..." (in use
+    first, each not in use marked),
     values rounded as in :func:`stop_rows`."""
     rows = []
     for s in sorted(trip.stops, key=lambda s: s.arrived_at):
         for b in s.bottles:
-            labs = "; ".join(_lab_cell(r, rounding) for r in b.lab_results)
+            # the results in use first, then what they replaced, each saying how it stands
+            ordered = sorted(b.lab_results, key=lambda r: r.status == "superseded")
+            labs = "; ".join(_lab_cell(r, rounding) for r in ordered)
             rows.append(
                 {
                     "trip_id": trip.id,

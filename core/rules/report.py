@@ -39,6 +39,7 @@ __all__ = [
     "WADING_CAUTION",
     "DECIDES",
     "rounding_for",
+    "result_status",
     "for_export",
     "reported",
     "rounding_note",
@@ -387,7 +388,8 @@ def _reported(result: LabResult, rounding: Rounding) -> tuple[float | None, str,
     return result.value, "", f"{text} {result.unit}".strip()
 
 
-def _status(result: LabResult, holding: str) -> str:
+def result_status(result: LabResult, holding: str = "") -> str:
+    """How a result stands (the table in the module docstring); `holding` is its holding verdict."""
     if result.status == "superseded":
         return "superseded"
     if result.valid is False:
@@ -421,7 +423,7 @@ def result_rows(trip: Trip, settings: ProgramSettings | None = None) -> list[Res
                         qualifier,
                         text,
                         r.unit,
-                        _status(r, holding),
+                        result_status(r, holding),
                         holding,
                         r.analyst,
                         r.analysed_at,

@@ -285,6 +285,14 @@ def test_retitration_keeps_both_and_marks_the_earlier_superseded():
     assert current_result(second.bottle, WINKLER_ANALYTE).id == results[1].id
     third = wink(second.trip, titrant=7.4, at=T0 + timedelta(hours=5), redo_reason="check")
     assert len(third.bottle.lab_results) == 3 and third.superseded == [results[1].id]
+    # the trip CSV lists the result in use first and marks the ones it replaced (common practice:
+    # a superseded value beside the current one, unmarked, reads as a second result)
+    from core.records.exchange import bottle_rows
+
+    cell = {r["bottle_id"]: r["lab_results"] for r in bottle_rows(third.trip)}["TV-0801"]
+    parts = cell.split("; ")
+    assert len(parts) == 3 and not parts[0].endswith(")")
+    assert all(p.endswith("(superseded)") for p in parts[1:])
 
 
 def test_earlier_result_in_other_spelling_counts():
@@ -638,6 +646,7 @@ def test_csv_export_carries_the_bod_report():
     small = {"initial_do_mg_l": 8.6, "final_do_mg_l": 7.9, "sample_ml": 30.0}
     out = bod(bod_trip(), dilutions=[small])
     cells = {r["bottle_id"]: r["lab_results"] for r in bottle_rows(out.trip)}
-    assert cells["TV-0810"] == "bod5=< 20.0 mg/L"
+    # exported as reported, and marked as the report marks it (no dilution depleted 2.0 mg/L)
+    assert cells["TV-0810"] == "bod5=< 20.0 mg/L (not valid)"
     ok = bod(bod_trip(), dilutions=[D30, D15])
     assert {r["bottle_id"]: r["lab_results"] for r in bottle_rows(ok.trip)}["TV-0810"] == "bod5=44.5 mg/L"
