@@ -325,7 +325,7 @@ def sizes(p):
     yield from _fill_stop(p, "LK-01 Mill Ford", "12,4", "968", "410", "9,8")
     yield from _add_bottle(p, "SZ-1", "do_fixed")
     small_targets, small_text, checked = [], [], 0
-    for name in ("trips", "start", "stop", "bottles", "end", "sync", "settings"):
+    for name in ("trips", "start", "stop", "bottles", "end", "sync", "settings", "bench", "sign"):
         if name == "start":
             continue  # the start screen resets its form on entry; it was used above
         p.app.go(name)
