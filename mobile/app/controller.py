@@ -179,6 +179,14 @@ class AppController:
         """Where each trip on this tablet stands with the hub (mobile.app.hub_status.HubOverview)."""
         return hub_status.overview(self)
 
+    def send_result(self, report: Any) -> Any:
+        """What a finished send did, as text (mobile.app.hub_status.send_result)."""
+        return hub_status.send_result(report, {t.id: t.title for t in self.trip_lines()})
+
+    @staticmethod
+    def send_progress_line(trip_id: str, result: str) -> str:
+        return hub_status.progress_line(trip_id, result)
+
     def send(
         self, target: str, *, progress: Callable[..., None], on_done: Callable[[Any, BaseException | None], None]
     ) -> str | None:

@@ -11,7 +11,10 @@ from typing import Any
 
 from core.records.messages import when_text
 
-__all__ = ["HubOverview", "overview"]
+__all__ = ["HubOverview", "overview", "send_result", "progress_line", "RESULT_MARK"]
+
+#: The mark before a trip's line after a send, by its result.
+RESULT_MARK = {"pushed": "✓", "unchanged": "○", "conflict": "▲", "failed": "■"}
 
 
 @dataclass
@@ -66,3 +69,26 @@ def overview(ctl: Any) -> HubOverview:
     )
     summary += f" · last reached the hub {when_text(last)}." if last else " · none sent from here yet."
     return HubOverview(summary, conflicts + waiting + sent)
+
+
+def progress_line(trip_id: str, result: str) -> str:
+    """One trip's line while a send runs."""
+    return f"{RESULT_MARK.get(result, '●')} trip {trip_id[:8]}: {result}"
+
+
+def send_result(report: Any, titles: dict[str, str]) -> HubOverview:
+    """What a finished send did: one sentence of counts and a line per trip (`titles`: trip id → title)."""
+    lines = []
+    for r in report.per_trip:
+        line = f"{RESULT_MARK.get(r.result, '●')} {r.result.upper()}: {titles.get(r.trip_id, r.trip_id[:8])}"
+        if r.message:
+            line += f" — {r.message}"
+        for c in r.conflicts:
+            line += f"\n    ▲ {c}"
+        lines.append(line)
+    left = "" if report.failed == 0 else " — the failed ones stay on this tablet and go next time"
+    summary = (
+        f"{'✓' if report.failed == 0 else '▲'} Sent {report.pushed} · unchanged {report.unchanged} · "
+        f"conflicts {report.conflicts} · failed {report.failed}{left}"
+    )
+    return HubOverview(summary, lines)

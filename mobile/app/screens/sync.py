@@ -58,7 +58,7 @@ class SyncScreen(BaseScreen):
         self.progress_max = max(total, 1)
         self.progress = done
         self.status = f"Sending… {done} of {total} trips"
-        self.rows_box.add_widget(Factory.WrapLabel(text=f"{RESULT_MARK.get(result, '●')} trip {trip_id[:8]}: {result}"))
+        self.rows_box.add_widget(Factory.WrapLabel(text=ctl().send_progress_line(trip_id, result)))
 
     @mainthread
     def _done(self, report, error):
@@ -70,20 +70,8 @@ class SyncScreen(BaseScreen):
             return
         self.progress = self.progress_max
         self.rows_box.clear_widgets()
-        titles = {t.id: t.title for t in ctl().trip_lines()}
-        for r in report.per_trip:
-            line = f"{RESULT_MARK.get(r.result, '●')} {r.result.upper()}: {titles.get(r.trip_id, r.trip_id[:8])}"
-            if r.message:
-                line += f" — {r.message}"
-            for c in r.conflicts:
-                line += f"\n    ▲ {c}"
+        done = ctl().send_result(report)
+        for line in done.lines:
             self.rows_box.add_widget(Factory.WrapLabel(text=line))
-        left = "" if report.failed == 0 else " — the failed ones stay on this tablet and go next time"
-        self._result_line = (
-            f"{'✓' if report.failed == 0 else '▲'} Sent {report.pushed} · unchanged {report.unchanged} · "
-            f"conflicts {report.conflicts} · failed {report.failed}{left}"
-        )
+        self._result_line = done.summary
         self.status = f"{self._result_line}\n{ctl().sync_overview().summary}"
-
-
-RESULT_MARK = {"pushed": "✓", "unchanged": "○", "conflict": "▲", "failed": "■"}
