@@ -15,6 +15,7 @@ A bottle's chain is its hand-offs in time order. Findings (computed, never store
 ``custody.receipt_warm``        warning   received warmer than the sample's cooling limit
 ``custody.receipt_frozen``      warning   received at 0 °C or below where freezing is not allowed
 ``custody.receipt_temp_missing`` note     received at the lab without a temperature, cooling asked
+``custody.analysed_before_receipt`` warning  a result in use analysed before the lab's receipt
 ==============================  ========  ===================================================
 
 The cooling limits come from the holding-time table (:data:`core.science.holding.HOLDING_TIMES`:
@@ -32,6 +33,7 @@ from typing import Any
 
 from core.flags import Flag, Severity
 from core.records.models import Bottle, CustodyRecord, Quantity, Signature, Stop, Trip, new_id
+from core.timefmt import when_text
 
 __all__ = [
     "CustodyInputError",
@@ -269,7 +271,7 @@ def _cooling(bottle: Bottle, stop_bottles: Iterable[Bottle]):
 
 
 def _when(t: datetime) -> str:
-    return t.isoformat(timespec="minutes")
+    return when_text(t)
 
 
 def custody_chains(trip: Trip) -> list[BottleCustody]:
@@ -348,6 +350,22 @@ def custody_chains(trip: Trip) -> list[BottleCustody]:
                     "custody",
                 )
             )
+        if receipt is not None:
+            early = [r for r in b.lab_results if r.live and r.analysed_at is not None and r.analysed_at < receipt.at]
+            if early:
+                first = min(early, key=lambda r: r.analysed_at or receipt.at)
+                flags.append(
+                    Flag(
+                        "custody.analysed_before_receipt",
+                        Severity.WARNING,
+                        f"Bottle {b.label} has a result analysed at {_when(first.analysed_at or receipt.at)},"
+                        f" before the lab's receipt at {_when(receipt.at)}: the record does not show who"
+                        " held it when it was analysed.",
+                        "Correct the receipt or analysis time, or record the hand-off that came before"
+                        " the analysis; qualify the result as the program's SOP says.",
+                        "at",
+                    )
+                )
         rule = _cooling(b, stop.bottles)
         if receipt is not None and rule is not None and rule.cool_max_c is not None:
             if receipt.temp is None:

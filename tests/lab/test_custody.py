@@ -270,3 +270,26 @@ def test_a_duplicate_follows_the_bottle_it_names_on_the_custody_page():
     assert rows["TV-0901"].holding_rule == "8 h from collection"  # fixed on site; the clock runs from collection
     assert rows["TV-0902"].holding_rule == "48 h from collection"
     assert rows["TV-0903"].deadline is None
+
+
+def test_a_result_analysed_before_the_lab_received_the_bottle_is_flagged():
+    # common practice (chain of custody): the lab analyses a bottle it holds; a result timed before the
+    # lab's receipt means a time is wrong or a hand-off is missing from the record
+    from core.records.models import LabResult
+
+    t = _hand(_trip(), "R.O.", "Lab desk", 300, at_lab=True, temp=measure("temp", "3 C"))
+    early = LabResult(analyte="do_winkler", value=8.1, unit="mg/L", analysed_at=T0 + timedelta(minutes=200))
+    t.stops[0].bottles[0].lab_results.append(early)
+    assert "custody.analysed_before_receipt" in _codes(t, "TV-0901")
+    (flag,) = [
+        f
+        for c in custody_chains(t)
+        if c.bottle.label == "TV-0901"
+        for f in c.flags
+        if f.code.endswith("before_receipt")
+    ]
+    assert "UTC−07:00" in flag.message  # times say their zone
+    later = t.model_copy(deep=True)
+    later.stops[0].bottles[0].lab_results[0].analysed_at = T0 + timedelta(minutes=320)
+    assert "custody.analysed_before_receipt" not in _codes(later, "TV-0901")
+    assert "custody.analysed_before_receipt" not in _codes(t, "TV-0902")  # no result on that bottle
