@@ -159,3 +159,12 @@ def test_a_correction_to_a_site_not_on_the_list_is_refused(data):
     argv = ("trip", "correct", LOWER, "--stop", "1", "--field", "site_id", "--value", "ZZ-9", "--reason", "moved")
     line = _refused(run_cli(*argv, "--by", "D.M.", data_dir=data))
     assert "--value for --field site_id" in line and "'ZZ-9' is not in the site list" in line and "LK-01" in line
+
+
+def test_an_incubator_temperature_typed_in_fahrenheit_gets_the_hint(data, tmp_path):
+    # Standard Methods 5210 B: incubate at 20 ± 1 °C [from memory]; 68 °F is that 20 °C (68 − 32) / 1.8
+    dil = tmp_path / "dil.json"
+    dil.write_text('[{"sample_ml": 30, "initial_do_mg_l": 8.6, "final_do_mg_l": 4.1}]', encoding="utf-8")
+    argv = ("lab", "bod", HOT, "TV-0703", "--dilutions", str(dil), "--incubator-temp", "68")
+    line = _refused(run_cli(*argv, data_dir=data))
+    assert "--incubator-temp 68" in line and "°F" in line and "20.0 °C" in line

@@ -34,6 +34,7 @@ from core.flags import Flag, Severity
 from core.records.models import Bottle, FlagRecord, LabResult, Stop, Trip, analyte_key, new_id
 from core.science.holding import HoldingClock, bottle_holding_kind, holding_clock
 from core.science.winkler import SAFETY_NOTE
+from core.timefmt import when_text
 
 __all__ = [
     "WINKLER_ANALYTE",
@@ -186,7 +187,15 @@ def _num(x: Any, name: str, lo: float | None, hi: float | None, unit: str, *, lo
         raise LabInputError(name, f"{name} = {x!r} is not a number; accepted: {_range(lo, hi, unit, lo_open)}")
     v = float(x)
     if not math.isfinite(v) or (lo is not None and (v < lo or (lo_open and v == lo))) or (hi is not None and v > hi):
-        raise LabInputError(name, f"{name} = {v:g} is out of range; accepted: {_range(lo, hi, unit, lo_open)}")
+        hint = ""
+        if (
+            unit == "°C"
+            and math.isfinite(v)
+            and (lo is None or lo <= (v - 32) / 1.8)
+            and (hi is None or (v - 32) / 1.8 <= hi)
+        ):
+            hint = f" — was it entered in °F? ({v:g} °F is {(v - 32) / 1.8:.1f} °C)"
+        raise LabInputError(name, f"{name} = {v:g} is out of range; accepted: {_range(lo, hi, unit, lo_open)}{hint}")
     return v
 
 
@@ -264,6 +273,8 @@ def find_bottle(trip: Trip, ref: str, kinds: tuple[str, ...] | None = None) -> t
     accepted kind (a ``lab.duplicate_label`` warning says so); otherwise :class:`LabInputError`
     lists the choices. An unknown label lists the trip's labels.
     """
+    from core.rules.report import kind_text
+
     ref = (ref or "").strip()
     if not ref:
         raise LabInputError(
@@ -295,8 +306,8 @@ def find_bottle(trip: Trip, ref: str, kinds: tuple[str, ...] | None = None) -> t
             _flag(
                 "lab.duplicate_label",
                 Severity.WARNING,
-                f"Bottle label {ref} is used on {len(hits)} bottles of this trip; the {b.kind} bottle"
-                f" from {s.site_id} was taken because it is the only one of a kind this analysis accepts.",
+                f"Bottle label {ref} is used on {len(hits)} bottles of this trip; the one at {s.site_id}"
+                f" ({kind_text(b.kind)}) was taken because it is the only one of a kind this analysis accepts.",
                 "Check the bottle against the field sheet and relabel one of them.",
                 "label",
             )
@@ -349,10 +360,7 @@ def _append(
     results: list[LabResult] = []
     for r in bottle.lab_results:
         if r.id in live_ids:
-            note = (
-                f"Superseded by result {result.id[:8]} on {at.isoformat(timespec='minutes')}"
-                f" ({redo_reason}); kept for the record."
-            )
+            note = f"Superseded by result {result.id[:8]} on {when_text(at)} ({redo_reason}); kept for the record."
             notes = (r.notes + " " + note).strip() if r.notes else note
             results.append(
                 r.model_copy(
@@ -381,7 +389,7 @@ def _redo_check(bottle: Bottle, analyte: str, redo_reason: str | None, what: str
     prev = current_result(bottle, analyte)
     if prev is not None and not (redo_reason and redo_reason.strip()):
         shown = "no value" if prev.value is None else f"{prev.value:.2f} {prev.unit}".strip()
-        when = prev.analysed_at.isoformat(timespec="minutes") if prev.analysed_at else "an unrecorded time"
+        when = when_text(prev.analysed_at) if prev.analysed_at else "an unrecorded time"
         raise LabInputError(
             "redo",
             f"bottle {bottle.label} already has a {what} result ({shown}, {prev.id[:8]},"
@@ -596,8 +604,8 @@ def record_winkler(
             _flag(
                 "lab.fixing_time_doubtful",
                 Severity.WARNING,
-                f"Bottle {bottle.label}'s fixing time ({bottle.fixed_at.isoformat(timespec='minutes')}) is"
-                f" before its collection ({bottle.collected_at.isoformat(timespec='minutes')}); the"
+                f"Bottle {bottle.label}'s fixing time ({when_text(bottle.fixed_at)}) is"
+                f" before its collection ({when_text(bottle.collected_at)}); the"
                 " holding time was counted from collection.",
                 "Correct the field record's times.",
                 "fixed_at",
@@ -622,7 +630,7 @@ def record_winkler(
                 Severity.STOP,
                 f"Titrated {_fmt_h(held_h)} after {'fixing' if from_fixing else 'collection'}, past the"
                 f" {clock.rule.hours:g} h Winkler holding time (deadline"
-                f" {clock.deadline.isoformat(timespec='minutes')}).",
+                f" {when_text(clock.deadline)}).",
                 "Report the result only as the program's SOP allows, qualified as past its holding time.",
                 "analysed_at",
             )
@@ -911,7 +919,7 @@ def record_bod(
                     Severity.STOP,
                     f"The BOD bottles were set up {_fmt_h(held_h)} after collection, past the"
                     f" {clock.rule.hours:g} h holding time (deadline"
-                    f" {clock.deadline.isoformat(timespec='minutes')}).",
+                    f" {when_text(clock.deadline)}).",
                     "Report the result only as the program's SOP allows, qualified as past its holding time.",
                     "incubation_start",
                 )
