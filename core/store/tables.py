@@ -8,6 +8,7 @@ caller (the device store) holds its lock around writes and validates the records
 
 from __future__ import annotations
 
+import hashlib
 from collections.abc import Callable, MutableMapping
 from pathlib import Path
 from typing import Any, TypeVar
@@ -18,7 +19,7 @@ from tinydb.middlewares import CachingMiddleware
 from tinydb.table import Document
 
 from core.records.models import SCHEMA_VERSION, ProgramSettings, Site
-from core.store.atomic import canonical_json_bytes, content_hash
+from core.store.atomic import canonical_json_bytes
 from core.store.errors import CorruptFile, NewerSchemaError, StoreWriteError
 from core.store.storage import AtomicJSONStorage, open_tinydb
 
@@ -45,6 +46,8 @@ def salvage(model: type[M], doc: dict[str, Any], *, rounds: int = 50) -> tuple[M
     Returns the record (None when even the remainder is not one, e.g. a site without its id) and
     the parts left out, as dotted paths ("supersaturation_percent", "instruments.2"). Bounded:
     at most `rounds` passes."""
+    if not isinstance(doc, dict):
+        return None, ["(the whole record)"]
     work: dict[str, Any] = dict(doc)
     dropped: list[str] = []
     for _ in range(rounds):
@@ -129,20 +132,24 @@ class Tables:
         for doc in table.values():
             site, dropped = salvage(Site, doc)
             if dropped:
-                self._set_aside(f"site {doc.get('id', '?')}", "sites.json", doc, dropped)
+                name = doc.get("id", "?") if isinstance(doc, dict) else "?"
+                self._set_aside(f"site {name}", "sites.json", doc, dropped)
             if site is not None:
                 sites[site.id] = site
         self._sites_cache = (stamp, sites)
         return dict(sites)
 
-    def _set_aside(self, what: str, file: str, doc: dict[str, Any], dropped: list[str]) -> None:
+    def _set_aside(self, what: str, file: str, doc: Any, dropped: list[str]) -> None:
         """Notes the parts left out of a stored record and keeps a copy of the whole record (once per
         content: the copy's name carries its hash), so a later save cannot lose what was there."""
         self.left_out[what] = dropped
         if self._keep_copy is None:
             return
-        data = canonical_json_bytes(doc)
-        digest = content_hash(doc).split(":", 1)[-1][:12]
+        try:
+            data = canonical_json_bytes(doc)
+        except ValueError:  # not JSON we can write back (e.g. NaN): keep its text as it reads
+            data = repr(doc).encode("utf-8")
+        digest = hashlib.sha256(data).hexdigest()[:12]
         reason = (
             f"{what} in {file}: left out as not valid on reading: {', '.join(dropped)}; this is the whole"
             " record as it was stored."
@@ -189,7 +196,8 @@ class Tables:
         doc = table.get("1")
         settings = ProgramSettings()
         if doc is not None:
-            if int(doc.get("schema_version", 0)) > SCHEMA_VERSION:
+            version = doc.get("schema_version", 0) if isinstance(doc, dict) else 0
+            if isinstance(version, int) and not isinstance(version, bool) and version > SCHEMA_VERSION:
                 raise NewerSchemaError(
                     "The settings were saved by a newer streamtab; update this one.", doc.get("schema_version")
                 )

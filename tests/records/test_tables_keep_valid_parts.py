@@ -74,3 +74,18 @@ def test_the_settings_screen_says_what_was_left_out_in_words(tmp_path):
     notice = AppController(store).settings_notice()
     assert "Supersaturation threshold" in notice and "Instruments no. 2" in notice
     assert "supersaturation_percent" not in notice and "quarantine" in notice
+
+
+def test_junk_in_the_tables_reads_as_defaults_and_is_kept(tmp_path):
+    # common practice: a hand-edited or damaged file never stops the app; what was there is kept aside
+    store = DeviceStore.open(tmp_path / "d")
+    (store.data_dir / "settings.json").write_text(json.dumps({"settings": {"1": "not a record"}}), encoding="utf-8")
+    (store.data_dir / "sites.json").write_text(
+        json.dumps({"sites": {"1": ["x"], "2": {"id": "S-9", "name": "Ok", "elevation_m": "high"}}}), encoding="utf-8"
+    )
+    assert store.settings() == ProgramSettings()
+    assert store.sites_by_id() == {}
+    assert {"settings", "site ?", "site S-9"} <= set(store.left_out())
+    names = [p.name for p in store.quarantined()]
+    assert sum(n.startswith("settings.json.") for n in names) == 1
+    assert sum(n.startswith("sites.json.") for n in names) == 2
