@@ -553,9 +553,15 @@ def flags_panel(p):
     """A stop with several flags: every flag can be brought into the panel's view by scrolling it."""
     yield 0.1
     yield from _start_trip(p, cal=None)
+    yield 0.3
+    s = p.screen("stop")  # before anything is typed: the panel is only as tall as what it shows
+    ids = s.ids
+    p.note(
+        "quiet_panel",
+        [ids.results.height, ids.tiles.height, ids.flags_title.height, s.flag_box.height, s.flag_view.height],
+    )
     yield from _fill_stop(p, "LK-03 Aspen Bend", "31", "1040", "60000", "2,1")
     yield 0.3
-    s = p.screen("stop")
     view = s.flag_view
     rows = list(reversed(s.flag_box.children))
     p.note("flag_words", [r.word for r in rows])

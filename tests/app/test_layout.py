@@ -69,6 +69,10 @@ def test_flags_panel_scrolls_to_every_flag(tmp_path, size, folder):
     seed_sites(tmp_path / "data")
     notes = run_scenario("flags_panel", tmp_path / "data", tmp_path, size=size, artifacts=ARTIFACTS / folder)
     assert len(notes["flag_words"]) >= 2
+    results_h, tiles_h, title_h, rows_h, view_h = notes["quiet_panel"]
+    assert view_h >= rows_h - 1  # the one quiet row shows whole, no scrolling needed
+    if folder == "portrait":  # common practice (small screens): no empty band between checks and form
+        assert results_h <= tiles_h + title_h + rows_h + dp(34) + 1
     # 2.1 mg/L is hypoxic (below 2 mg/L is the usual line, common practice; 2.1 sits at it) and 1040 hPa at
     # 610 m looks sea-level adjusted: the tiles carry the warning colour without reading the panel
     (sat_caption, sat_warn), (pct_caption, pct_warn), (mg_caption, mg_warn) = notes["tiles"]
