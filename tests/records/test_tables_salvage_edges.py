@@ -3,6 +3,8 @@
 
 from __future__ import annotations
 
+import json
+
 from core.records.models import InstrumentLog, ProgramSettings
 from core.store import DeviceStore
 from core.store.tables import salvage
@@ -61,3 +63,19 @@ def test_a_file_nested_too_deep_to_read_reads_as_defaults_and_is_kept(tmp_path):
     assert any(n.startswith("settings.json.") for n in names) and any(n.startswith("sites.json.") for n in names)
     store.save_settings(ProgramSettings(program="Again"))
     assert DeviceStore.open(store.data_dir).settings().program == "Again"
+
+
+def test_a_record_already_kept_aside_is_not_written_again_by_the_next_reader(tmp_path):
+    # common practice: the copy's name carries its content's hash, so one copy per content is enough;
+    # rewriting (and syncing to disk) every copy at every start made a long site list slow to open
+    store = DeviceStore.open(tmp_path / "d")
+    sites = {str(i): {"id": f"S-{i}", "name": "Ford", "elevation_m": 10.0, "latitude": 500.0} for i in range(3)}
+    (store.data_dir / "sites.json").write_text(json.dumps({"sites": sites}), encoding="utf-8")
+    assert len(store.sites_by_id()) == 3
+    copies = store.quarantined()
+    kept = [*copies, *(p.with_name(p.name + ".reason.txt") for p in copies)]
+    before = {p.name: p.stat().st_ino for p in kept}
+    assert len(copies) == 3
+    assert len(DeviceStore.open(store.data_dir).sites_by_id()) == 3
+    after = {p.name: p.stat().st_ino for p in kept}
+    assert after == before
