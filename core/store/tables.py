@@ -153,6 +153,8 @@ class Tables:
         except CorruptFile:
             table = {}
         sites: dict[str, Site] = {}
+        for what in [w for w in self.left_out if w.startswith("site ")]:  # as this read finds them
+            del self.left_out[what]
         for doc in table.values():
             site, dropped = salvage(Site, doc)
             if dropped:
@@ -219,6 +221,7 @@ class Tables:
             table = {}
         doc = table.get("1")
         settings = ProgramSettings()
+        self.left_out.pop("settings", None)  # as this read finds it
         if doc is not None:
             version = doc.get("schema_version", 0) if isinstance(doc, dict) else 0
             if isinstance(version, int) and not isinstance(version, bool) and version > SCHEMA_VERSION:
