@@ -168,3 +168,15 @@ def test_an_incubator_temperature_typed_in_fahrenheit_gets_the_hint(data, tmp_pa
     argv = ("lab", "bod", HOT, "TV-0703", "--dilutions", str(dil), "--incubator-temp", "68")
     line = _refused(run_cli(*argv, data_dir=data))
     assert "--incubator-temp 68" in line and "°F" in line and "20.0 °C" in line
+
+
+def test_an_archive_load_from_a_missing_hub_leaves_no_new_store(tmp_path):
+    # common practice: as 'sync pull' does, a mistyped --from leaves nothing behind
+    store = tmp_path / "office"
+    line = _refused(
+        run_cli(
+            "archive", "load", "--from", str(tmp_path / "no-hub"), "--db", "postgresql://127.0.0.1:1/x", data_dir=store
+        )
+    )
+    assert "--from" in line and "does not exist" in line
+    assert not store.exists()

@@ -308,6 +308,9 @@ class DeviceStore:
         return quarantine(self._quarantine_dir, f"{path.name}.{utc_stamp()}", reason, source=path)
 
     def _keep_copy(self, name: str, data: bytes, reason: str) -> Path:
+        target = self._quarantine_dir / name
+        if target.is_file() and target.with_name(target.name + ".reason.txt").is_file():
+            return target  # the name carries the content's hash: this content is kept already
         return quarantine(self._quarantine_dir, name, reason, data=data, refresh=True)
 
     def quarantined(self) -> list[Path]:

@@ -22,6 +22,8 @@ def json_file(raw: bytes, error: type[Exception]) -> Any:
         return json.loads(raw)
     except (json.JSONDecodeError, UnicodeDecodeError) as exc:
         raise error(f"the file is not valid JSON ({exc})") from None
+    except RecursionError:
+        raise error("the file is nested too deeply to read") from None
 
 
 def _table_map(data: Any) -> dict[str, Any]:

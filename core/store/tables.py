@@ -14,6 +14,7 @@ from pathlib import Path
 from typing import Any, TypeVar
 
 from pydantic import ValidationError
+from pydantic_core import from_json
 from tinydb import TinyDB
 from tinydb.middlewares import CachingMiddleware
 from tinydb.table import Document
@@ -48,8 +49,17 @@ def salvage(model: type[M], doc: dict[str, Any], *, rounds: int = 50) -> tuple[M
     at most `rounds` passes."""
     if not isinstance(doc, dict):
         return None, ["(the whole record)"]
-    work: dict[str, Any] = dict(doc)
+    # a value JSON cannot carry (NaN) or the validator cannot parse (nested too deep) is left out first
+    work: dict[str, Any] = {}
     dropped: list[str] = []
+    for key, value in doc.items():
+        if _readable(value):
+            work[key] = value
+        elif isinstance(value, list):
+            work[key] = [v for v in value if _readable(v)]
+            dropped += [f"{key}.{i}" for i, v in enumerate(value) if not _readable(v)]
+        else:
+            dropped.append(str(key))
     for _ in range(rounds):
         try:
             return model.model_validate_json(canonical_json_bytes(work)), dropped
@@ -59,17 +69,31 @@ def salvage(model: type[M], doc: dict[str, Any], *, rounds: int = 50) -> tuple[M
             locs = [loc for loc in locs if loc and isinstance(loc[0], str) and loc[0] in work]
             if not locs:
                 return None, [*dropped, "(the whole record)"]
+            # one part per field, list element or mapping entry (a log with three bad values is one part);
             # list elements first, from the highest index, so earlier indexes stay right
-            for loc in sorted(set(locs), key=lambda loc: -(loc[1] if len(loc) > 1 and isinstance(loc[1], int) else -1)):
+            parts = {loc[:2] if len(loc) > 1 and isinstance(loc[1], (int, str)) else loc[:1] for loc in locs}
+            for loc in sorted(parts, key=lambda loc: -(loc[1] if len(loc) > 1 and isinstance(loc[1], int) else -1)):
                 key = str(loc[0])
                 value = work.get(key)
                 if len(loc) > 1 and isinstance(loc[1], int) and isinstance(value, list) and loc[1] < len(value):
                     work[key] = value[: loc[1]] + value[loc[1] + 1 :]
                     dropped.append(f"{key}.{loc[1]}")
+                elif len(loc) > 1 and isinstance(loc[1], str) and isinstance(value, dict) and loc[1] in value:
+                    work[key] = {k: v for k, v in value.items() if k != loc[1]}
+                    dropped.append(f"{key}.{loc[1]}")
                 elif key in work:
                     del work[key]
                     dropped.append(key)
     return None, [*dropped, "(the whole record)"]
+
+
+def _readable(value: Any) -> bool:
+    """Whether `value` can be written as JSON and parsed back by the validator (no NaN, not nested too deep)."""
+    try:
+        from_json(canonical_json_bytes(value))
+    except (ValueError, RecursionError):
+        return False
+    return True
 
 
 def _replace_with(new: dict[str, Any]) -> Callable[[MutableMapping[Any, Any]], None]:
@@ -129,6 +153,8 @@ class Tables:
         except CorruptFile:
             table = {}
         sites: dict[str, Site] = {}
+        for what in [w for w in self.left_out if w.startswith("site ")]:  # as this read finds them
+            del self.left_out[what]
         for doc in table.values():
             site, dropped = salvage(Site, doc)
             if dropped:
@@ -195,6 +221,7 @@ class Tables:
             table = {}
         doc = table.get("1")
         settings = ProgramSettings()
+        self.left_out.pop("settings", None)  # as this read finds it
         if doc is not None:
             version = doc.get("schema_version", 0) if isinstance(doc, dict) else 0
             if isinstance(version, int) and not isinstance(version, bool) and version > SCHEMA_VERSION:

@@ -63,8 +63,10 @@ def _season(text: str) -> int:
 def _load(args: Any) -> int:
     import sync
     import sync.archive as archive
-    from mobile.cli.sync_cmds import _Bar
+    from mobile.cli.sync_cmds import _Bar, hub_before_creating
 
+    if args.source:
+        hub_before_creating(args.data_dir, args.source, 30.0)
     store = open_store(args.data_dir, create=bool(args.source))  # --from pulls: it may start the office store
     pulled = None
     if args.source:

@@ -146,19 +146,25 @@ def _check_address(session: Any, address: str, option: str) -> None:
     target.close()
 
 
+def hub_before_creating(data_dir: str | None, address: str, timeout: float) -> None:
+    """Where --data-dir holds no store yet, the --from hub is checked first (one line and no new store
+    when it names no usable hub): a pull may start a store, but never an empty one by mistake."""
+    from core.store.paths import is_store, resolve_data_dir
+    from sync.session import Session
+
+    if not is_store(resolve_data_dir(data_dir)):
+        probe = Session(connect_timeout_s=min(10.0, timeout))
+        _check_address(probe, address, "--from")
+        probe.close()
+
+
 def _run(args: Any, verb: str, address: str):  # noqa: ANN202
     import sync
     from core.store import StoreLocked
     from sync.errors import FinalError, RetryableError
 
     if verb == "pull":  # a pull may fill an empty office store, but only from a hub that is there
-        from core.store.paths import is_store, resolve_data_dir
-        from sync.session import Session
-
-        if not is_store(resolve_data_dir(args.data_dir)):
-            probe = Session(connect_timeout_s=min(10.0, _timeout(args)))
-            _check_address(probe, address, "--from")
-            probe.close()
+        hub_before_creating(args.data_dir, address, _timeout(args))
     try:
         store = _open_store(args, create=verb == "pull")
     except StoreLocked as exc:  # another writer holds the store: a sync tries again later
