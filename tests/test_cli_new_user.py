@@ -180,3 +180,10 @@ def test_an_archive_load_from_a_missing_hub_leaves_no_new_store(tmp_path):
     )
     assert "--from" in line and "does not exist" in line
     assert not store.exists()
+
+
+def test_salinity_of_nearly_pure_water_says_to_take_it_as_zero():
+    # PSS-78 with the Hill et al. (1986) extension dips just below 0 under ~2–3 µS/cm (common practice: report 0)
+    out = run_cli("salinity", "--conductivity", "1 uS/cm", "--temp", "15")
+    assert out.returncode == 0 and "take it as 0" in out.stdout
+    assert "take it as 0" not in run_cli("salinity", "--conductivity", "200 uS/cm", "--temp", "15").stdout

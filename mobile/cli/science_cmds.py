@@ -169,12 +169,16 @@ def _salinity(args) -> int:
         "temp_c": temp_c,
         "pressure_dbar": p,
     }
+    # PSS-78 with Hill et al. (1986) dips just below zero for nearly pure water: say so, as `sat` does
+    below = s < 0.0
+    if below:
+        out["note"] = "below what PSS-78 resolves; take the salinity as 0"
     if args.json:
         emit_json(out)
         return 0
     emit_table(
         [
-            ("salinity", f"{s:.4f} (PSS-78)"),
+            ("salinity", f"{s:.4f} (PSS-78" + ("; below what it resolves — take it as 0)" if below else ")")),
             ("specific conductance", _fmt(sc, 1, "µS/cm at 25 °C (linear, 0.0191 /°C)")),
             ("conductivity", _fmt(us_cm, 1, f"µS/cm at {temp_c:g} °C")),
         ]
