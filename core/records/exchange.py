@@ -336,18 +336,21 @@ def stop_rows(trip: Trip, rounding: Rounding | None = None) -> list[dict[str, st
     return rows
 
 
-def _standing(r: Any) -> str:
-    """How a result stands, for a reader of the cell (core.rules.report.result_status): "" when valid."""
+def _standing(r: Any, in_use: bool) -> str:
+    """How a result stands, for a reader of the cell (core.rules.report.result_status): "" when it is
+    the valid result its analysis uses."""
     from core.rules.report import result_status
 
     status = result_status(r)
+    if status == "valid" and not in_use:
+        return " (not in use: a later result of the same analysis is)"
     return "" if status == "valid" else f" ({status})"
 
 
-def _lab_cell(r: Any, rounding: Rounding | None) -> str:
+def _lab_cell(r: Any, rounding: Rounding | None, in_use: bool = True) -> str:
     """ "analyte=value unit"; a BOD5/CBOD5 result as its 5210 B report ("bod5=< 2.0 mg/L") when it has one;
     a result that is not the valid one in use says so: "(superseded)", "(not valid)", "(not checked)"."""
-    return _lab_value(r, rounding) + _standing(r)
+    return _lab_value(r, rounding) + _standing(r, in_use)
 
 
 def _lab_value(r: Any, rounding: Rounding | None) -> str:
@@ -358,7 +361,9 @@ def _lab_value(r: Any, rounding: Rounding | None) -> str:
     if isinstance(report, dict) and isinstance(report.get("text"), str) and report["text"]:
         return f"{r.analyte}={report['text']}"
     quantity = result_quantity(r.analyte, r.unit)
-    value = r.value if quantity is None or r.value is None else for_export(r.value, quantity, rounding)
+    if r.value is None:
+        return f"{r.analyte}=no value"
+    value = r.value if quantity is None else for_export(r.value, quantity, rounding)
     return (
         f"{r.analyte}={'' if value is None else (repr(value) if isinstance(value, float) else value)} {r.unit}".strip()
     )
@@ -371,9 +376,13 @@ def bottle_rows(trip: Trip, rounding: Rounding | None = None) -> list[dict[str, 
     rows = []
     for s in sorted(trip.stops, key=lambda s: s.arrived_at):
         for b in s.bottles:
-            # the results in use first, then what they replaced, each saying how it stands
-            ordered = sorted(b.lab_results, key=lambda r: r.status == "superseded")
-            labs = "; ".join(_lab_cell(r, rounding) for r in ordered)
+            # the result each analysis uses first (core.rules.lab.current_result), then the others,
+            # each saying how it stands
+            from core.rules.lab import current_result
+
+            used = {id(current_result(b, r.analyte)) for r in b.lab_results}
+            ordered = sorted(b.lab_results, key=lambda r: (id(r) not in used, r.status == "superseded"))
+            labs = "; ".join(_lab_cell(r, rounding, id(r) in used) for r in ordered)
             rows.append(
                 {
                     "trip_id": trip.id,

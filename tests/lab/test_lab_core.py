@@ -650,3 +650,20 @@ def test_csv_export_carries_the_bod_report():
     assert cells["TV-0810"] == "bod5=< 20.0 mg/L (not valid)"
     ok = bod(bod_trip(), dilutions=[D30, D15])
     assert {r["bottle_id"]: r["lab_results"] for r in bottle_rows(ok.trip)}["TV-0810"] == "bod5=44.5 mg/L"
+
+
+def test_csv_lab_cell_with_two_live_results_puts_the_one_in_use_first():
+    # after a merge two live Winkler results can stand on one bottle; the analysis uses the later one
+    # (core.rules.lab.current_result) — common practice: a cell never shows an unmarked second value
+    from core.records.exchange import bottle_rows
+
+    t = trip(stop(bottles=[bottle("TV-0801")]))
+    at = T0 + timedelta(hours=3)
+    b = t.stops[0].bottles[0]
+    b.lab_results.append(LabResult(analyte="do_winkler", value=7.9, unit="mg/L", analysed_at=at, valid=True))
+    b.lab_results.append(LabResult(analyte="do_winkler", value=8.1, unit="mg/L", analysed_at=at, valid=True))
+    b.lab_results.append(LabResult(analyte="bod5", value=None, unit="mg/L", analysed_at=at))
+    cell = bottle_rows(t)[0]["lab_results"]
+    first = cell.split("; ")[0]
+    assert first == "do_winkler=8.1 mg/L"
+    assert "do_winkler=7.9 mg/L (not in use" in cell and "bod5=no value (not checked)" in cell
