@@ -187,3 +187,9 @@ def test_salinity_of_nearly_pure_water_says_to_take_it_as_zero():
     out = run_cli("salinity", "--conductivity", "1 uS/cm", "--temp", "15")
     assert out.returncode == 0 and "take it as 0" in out.stdout
     assert "take it as 0" not in run_cli("salinity", "--conductivity", "200 uS/cm", "--temp", "15").stdout
+
+
+def test_a_correction_to_an_empty_site_names_the_option(data):
+    argv = ("trip", "correct", LOWER, "--stop", "1", "--field", "site_id", "--value", "  ", "--reason", "moved")
+    line = _refused(run_cli(*argv, "--by", "D.M.", data_dir=data))
+    assert "--value for --field site_id" in line and "empty" in line

@@ -512,12 +512,14 @@ def correct(
         elif kind == "time":
             new = _parse_time(value, label_for(key))
         elif key == "site_id":
-            new = str(value).strip()
+            new = " ".join(str(value).split())
             known = {s.upper(): s for s in site_ids}
+            if not new:
+                raise ConflictError("the site code is empty; accepted: a site code from the site list")
             if known and new.upper() not in known:
-                raise ConflictError(
-                    f"{new!r} is not in the site list; accepted: one of {', '.join(sorted(known.values()))}"
-                )
+                names = sorted(known.values())
+                more = f", … ({len(names)} in all; see 'streamtab sites list')" if len(names) > 20 else ""
+                raise ConflictError(f"{new!r} is not in the site list; accepted: one of {', '.join(names[:20])}{more}")
             new = known.get(new.upper(), new)
         else:
             new = str(value)
