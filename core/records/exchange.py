@@ -288,13 +288,11 @@ def stop_rows(trip: Trip, rounding: Rounding | None = None) -> list[dict[str, st
     Numbers are rounded by the reporting rule (`core.rules.report.reported`) with `rounding` (a
     `core.rules.report.Rounding`), or written at full precision as stored when it is None; the
     ``rounding`` column says which. Columns ending in ``_as_typed`` keep what was typed."""
-    from core.rules.report import reported, rounding_note
+    from core.rules.report import Reported, for_export, rounding_note
 
     def num(value: float | None, quantity: str) -> str:
-        if rounding is None or value is None:
-            return _num(value)
-        shown = reported(value, quantity, rounding)
-        return "" if shown is None else shown.text
+        shown = for_export(value, quantity, rounding)
+        return shown.text if isinstance(shown, Reported) else _num(shown)
 
     note = rounding_note(rounding)
     rows = []
