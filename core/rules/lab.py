@@ -33,6 +33,7 @@ from typing import Any
 from core.flags import Flag, Severity
 from core.records.models import Bottle, FlagRecord, LabResult, Stop, Trip, analyte_key, new_id
 from core.science.holding import HoldingClock, bottle_holding_kind, holding_clock
+from core.science.temperature import f_to_c
 from core.science.winkler import SAFETY_NOTE
 from core.timefmt import when_text
 
@@ -188,13 +189,13 @@ def _num(x: Any, name: str, lo: float | None, hi: float | None, unit: str, *, lo
     v = float(x)
     if not math.isfinite(v) or (lo is not None and (v < lo or (lo_open and v == lo))) or (hi is not None and v > hi):
         hint = ""
-        if (
-            unit == "°C"
-            and math.isfinite(v)
-            and (lo is None or lo <= (v - 32) / 1.8)
-            and (hi is None or (v - 32) / 1.8 <= hi)
-        ):
-            hint = f" — was it entered in °F? ({v:g} °F is {(v - 32) / 1.8:.1f} °C)"
+        if unit == "°C":
+            try:
+                as_c = f_to_c(v)  # the value read as °F; refused below absolute zero or not finite
+            except ValueError:
+                as_c = None
+            if as_c is not None and (lo is None or lo <= as_c) and (hi is None or as_c <= hi):
+                hint = f" — was it entered in °F? ({v:g} °F is {as_c:.1f} °C)"
         raise LabInputError(name, f"{name} = {v:g} is out of range; accepted: {_range(lo, hi, unit, lo_open)}{hint}")
     return v
 

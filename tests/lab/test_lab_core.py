@@ -461,6 +461,17 @@ def test_bod_incubator_temperature():
     assert "lab.bod_incubator_temp" in codes(bod(bod_trip(), incubator_temp_c=22.0))
 
 
+def test_an_incubator_temperature_out_of_range_that_fits_as_fahrenheit_says_so():
+    # °C = (°F − 32) × 5/9, the definition of the Fahrenheit scale (NIST SP 811, appendix B, from memory): 68 °F is 20 °C.
+    with pytest.raises(LabInputError) as e:
+        bod(bod_trip(), incubator_temp_c=68.0)
+    assert "was it entered in °F? (68 °F is 20.0 °C)" in str(e.value)
+    # 200 °F is 93.3 °C, outside the accepted -10 to 60 °C either way (the range in core.rules.lab): no hint
+    with pytest.raises(LabInputError) as e:
+        bod(bod_trip(), incubator_temp_c=200.0)
+    assert "°F" not in str(e.value)
+
+
 def test_bod_input_errors():
     t = bod_trip()
     with pytest.raises(LabInputError) as e:
