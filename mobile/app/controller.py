@@ -20,9 +20,6 @@ from core.records.messages import when_text
 from mobile.app import attention, device_files, hub_status, program_prefs, records_bridge, review_steps
 from mobile.app.device_files import AppPrefs
 from mobile.app.forms import BOTTLE_KINDS, FIELD_LABELS, REQUIRED_STOP_FIELDS, BottleForm, CalForm, StopForm, TripForm
-
-# the settings screen's helpers, importable from here as before the split
-from mobile.app.program_prefs import SETTING_FIELDS, setting_problem, setting_range  # noqa: F401
 from mobile.app.save_worker import SaveWorker
 from mobile.app.theme import severity_mark
 from mobile.app.views import (
@@ -139,11 +136,6 @@ class AppController:
         self.prefs = prefs
 
     @staticmethod
-    def hub_problem(target: str) -> str | None:
-        """Why a typed hub address cannot be stored or used, as one sentence; or None."""
-        return program_prefs.hub_problem(target)
-
-    @staticmethod
     def shown_address(target: str) -> str:
         """A hub address as a status line may show it (any user-info part removed)."""
         return program_prefs.shown_address(target)
@@ -199,7 +191,7 @@ class AppController:
 
         if not target:
             return "Hub is empty; type a folder path or an https:// WebDAV address."
-        problem = self.hub_problem(target)
+        problem = program_prefs.hub_problem(target)
         if problem:
             return problem
         if target != self.prefs.sync_target:
@@ -679,14 +671,6 @@ class AppController:
         """The open trip's open conflicts as people read them (mobile.app.review_steps)."""
         return review_steps.conflicts(self)
 
-    def conflict_lines(self) -> list[str]:
-        """The open conflicts, one line each (the End screen's list of what needs attention)."""
-        return review_steps.conflict_lines(self)
-
-    def settler(self) -> str:
-        """Who settles a conflict on this tablet: the device's name, else the trip's crew."""
-        return review_steps.settler(self)
-
     def settle_conflict(self, conflict_id: str, keep: int) -> str | None:
         """Settles one open conflict by keeping its `keep`-th value; returns why not, or None."""
         return review_steps.settle_conflict(self, conflict_id, keep)
@@ -698,9 +682,6 @@ class AppController:
     def resubmit(self) -> str | None:
         """Hands a trip the office returned back to it; returns why not in one sentence, or None."""
         return review_steps.resubmit(self)
-
-    def conflicts_of(self, trip: Any) -> list[Any]:
-        return review_steps.conflicts_of(self, trip)
 
     def _adopt_stored(self, stored: Any) -> None:
         """UI thread: the form shows `stored` (the trip as just read or written), on the same stop."""
