@@ -171,9 +171,9 @@ class AppController:
         """Where each trip on this tablet stands with the hub (mobile.app.hub_status.HubOverview)."""
         return hub_status.overview(self)
 
-    def send_result(self, report: Any) -> Any:
-        """What a finished send did, as text (mobile.app.hub_status.send_result)."""
-        return hub_status.send_result(report, {t.id: t.title for t in self.trip_lines()})
+    def send_result(self, report: Any, titles: dict[str, str]) -> Any:
+        """What a finished send did, as text (mobile.app.hub_status.send_result); `titles` from sync_overview."""
+        return hub_status.send_result(report, titles)
 
     @staticmethod
     def send_progress_line(trip_id: str, result: str) -> str:
