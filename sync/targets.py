@@ -682,13 +682,18 @@ class WebDavTarget:
 
     # change log (sync.changelog)
     def log_folders(self) -> dict[str, float | None] | None:
-        entries = self._propfind(LOG + "/", "1", body=_PROPFIND_TIMES_BODY, with_times=True)
+        return self._dated_folders(LOG)
+
+    def _dated_folders(self, top: str) -> dict[str, float | None] | None:
+        """The folders directly under `top` with their last change (server clock), from one Depth-1
+        PROPFIND; None when the hub has no `top`."""
+        entries = self._propfind(top + "/", "1", body=_PROPFIND_TIMES_BODY, with_times=True)
         if entries is None:
             return None
-        out = {}
+        out: dict[str, float | None] = {}
         for relpath, is_col, _size, modified in entries:
             parts = relpath.strip("/").split("/")
-            if is_col and len(parts) == 2 and parts[0] == LOG:
+            if is_col and len(parts) == 2 and parts[0] == top:
                 out[parts[1]] = _http_time(modified)
         return out
 
@@ -862,15 +867,8 @@ class WebDavTarget:
         """The table folders under ``program/`` with their last change (server clock), from one
         Depth-1 PROPFIND; None when the hub has no ``program/``. A pull lists a table's folder
         only when its date moved (see `sync.engine._pull_program`)."""
-        entries = self._propfind(PROGRAM + "/", "1", body=_PROPFIND_TIMES_BODY, with_times=True)
-        if entries is None:
-            return None
-        out: dict[str, float | None] = {}
-        for relpath, is_col, _size, modified in entries:
-            parts = relpath.strip("/").split("/")
-            if is_col and len(parts) == 2 and parts[0] == PROGRAM and parts[1] in PROGRAM_KINDS:
-                out[parts[1]] = _http_time(modified)
-        return out
+        folders = self._dated_folders(PROGRAM)
+        return None if folders is None else {k: v for k, v in folders.items() if k in PROGRAM_KINDS}
 
     def list_program_folder(self, kind: str) -> tuple[frozenset[str], float | None]:
         """The table files of one kind from one Depth-1 PROPFIND of its folder, and the ``Date``

@@ -288,13 +288,11 @@ def stop_rows(trip: Trip, rounding: Rounding | None = None) -> list[dict[str, st
     Numbers are rounded by the reporting rule (`core.rules.report.reported`) with `rounding` (a
     `core.rules.report.Rounding`), or written at full precision as stored when it is None; the
     ``rounding`` column says which. Columns ending in ``_as_typed`` keep what was typed."""
-    from core.rules.report import reported, rounding_note
+    from core.rules.report import Reported, for_export, rounding_note
 
     def num(value: float | None, quantity: str) -> str:
-        if rounding is None or value is None:
-            return _num(value)
-        shown = reported(value, quantity, rounding)
-        return "" if shown is None else shown.text
+        shown = for_export(value, quantity, rounding)
+        return shown.text if isinstance(shown, Reported) else _num(shown)
 
     note = rounding_note(rounding)
     rows = []
@@ -373,14 +371,14 @@ def bottle_rows(trip: Trip, rounding: Rounding | None = None) -> list[dict[str, 
     """One row per bottle (columns :data:`BOTTLE_COLUMNS`); lab results as "analyte=value unit; ..." (in use
     first, each not in use marked),
     values rounded as in :func:`stop_rows`."""
+    from core.rules.lab import current_result
+
     rows = []
     for s in sorted(trip.stops, key=lambda s: s.arrived_at):
         for b in s.bottles:
             # the result each analysis uses first (core.rules.lab.current_result), then the others,
             # each saying how it stands
-            from core.rules.lab import current_result
-
-            used = {id(current_result(b, r.analyte)) for r in b.lab_results}
+            used = {id(current_result(b, analyte)) for analyte in {r.analyte for r in b.lab_results}}
             ordered = sorted(b.lab_results, key=lambda r: (id(r) not in used, r.status == "superseded"))
             labs = "; ".join(_lab_cell(r, rounding, id(r) in used) for r in ordered)
             rows.append(

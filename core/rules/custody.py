@@ -270,10 +270,6 @@ def _cooling(bottle: Bottle, stop_bottles: Iterable[Bottle]):
     return None if pair is None else HOLDING_TIMES.get(pair[1])
 
 
-def _when(t: datetime) -> str:
-    return when_text(t)
-
-
 def custody_chains(trip: Trip) -> list[BottleCustody]:
     """Every bottle of the trip with its hand-offs in time order and the findings on its chain."""
     out: list[BottleCustody] = []
@@ -296,9 +292,9 @@ def custody_chains(trip: Trip) -> list[BottleCustody]:
                     Flag(
                         "custody.gap",
                         Severity.WARNING,
-                        f"Bottle {b.label} was handed over by {hop.relinquished_by} at {_when(hop.at)},"
+                        f"Bottle {b.label} was handed over by {hop.relinquished_by} at {when_text(hop.at)},"
                         f" but the record before it shows it went to {prev.received_by}"
-                        f" at {_when(prev.at)}.",
+                        f" at {when_text(prev.at)}.",
                         "Find out who held the bottle in between and record that hand-off, or"
                         " qualify the results as the program's SOP says.",
                         "relinquished_by",
@@ -310,8 +306,8 @@ def custody_chains(trip: Trip) -> list[BottleCustody]:
                     Flag(
                         "custody.before_collection",
                         Severity.WARNING,
-                        f"The hand-off of bottle {b.label} at {_when(hop.at)} is timed before its"
-                        f" collection ({_when(b.collected_at)}).",
+                        f"The hand-off of bottle {b.label} at {when_text(hop.at)} is timed before its"
+                        f" collection ({when_text(b.collected_at)}).",
                         "Correct the hand-off time or the collection time.",
                         "at",
                     )
@@ -335,7 +331,7 @@ def custody_chains(trip: Trip) -> list[BottleCustody]:
                     "custody.no_lab_receipt",
                     Severity.WARNING,
                     f"Bottle {b.label} has no receipt at the lab: its last hand-off went to"
-                    f" {hops[-1].received_by} at {_when(hops[-1].at)}.",
+                    f" {hops[-1].received_by} at {when_text(hops[-1].at)}.",
                     "Record the lab's receipt with the temperature and condition on arrival.",
                     "custody",
                 )
@@ -351,15 +347,15 @@ def custody_chains(trip: Trip) -> list[BottleCustody]:
                 )
             )
         if receipt is not None:
-            early = [r for r in b.lab_results if r.live and r.analysed_at is not None and r.analysed_at < receipt.at]
-            if early:
-                first = min(early, key=lambda r: r.analysed_at or receipt.at)
+            analysed = (r.analysed_at for r in b.lab_results if r.live and r.analysed_at is not None)
+            first = min((at for at in analysed if at < receipt.at), default=None)
+            if first is not None:
                 flags.append(
                     Flag(
                         "custody.analysed_before_receipt",
                         Severity.WARNING,
-                        f"Bottle {b.label} has a result analysed at {_when(first.analysed_at or receipt.at)},"
-                        f" before the lab's receipt at {_when(receipt.at)}: the record does not show who"
+                        f"Bottle {b.label} has a result analysed at {when_text(first)},"
+                        f" before the lab's receipt at {when_text(receipt.at)}: the record does not show who"
                         " held it when it was analysed.",
                         "Correct the receipt or analysis time, or record the hand-off that came before"
                         " the analysis; qualify the result as the program's SOP says.",

@@ -25,6 +25,7 @@ from datetime import datetime
 from typing import Any
 
 from core.records.models import Bottle, LabResult, ProgramSettings, Site, Stop, Trip
+from core.timefmt import when_text
 
 __all__ = [
     "Rounding",
@@ -230,7 +231,6 @@ _ISO_TIME = re.compile(r"\b\d{4}-\d\d-\d\dT\d\d:\d\d(?::\d\d(?:\.\d+)?)?(?:Z|[+-
 def _readable_times(text: str) -> str:
     """ISO 8601 times inside a stored message ("2026-06-30T16:55-07:00") as people read them
     ("2026-06-30 16:55 UTC−07:00"); a time that does not parse stays as it is."""
-    from core.records.messages import when_text
 
     def one(m: re.Match[str]) -> str:
         try:
@@ -480,7 +480,6 @@ def _holding_findings(stop: Stop, settings: ProgramSettings, now: datetime, name
     """The holding-time findings of a stop's bottles as a filed report words them: which bottle, its rule
     and its deadline with the deadline's zone; never "N days ago", which would change with the printing."""
     from core.flags import Flag
-    from core.records.messages import when_text
     from core.rules.lab import bottle_clock
 
     out = []
