@@ -136,7 +136,7 @@ def test_supersaturation_limits_are_one(tmp_path, text, accepted):
     from core.records.exchange import ExchangeError, read_sites_csv
     from core.records.models import ProgramSettings
     from core.science.criteria import Criteria
-    from mobile.app.controller import setting_problem
+    from mobile.app.program_prefs import setting_problem
 
     assert LIMITS["supersaturation"][1] == LIMITS["do_percent"][1]
     path = tmp_path / "sites.csv"

@@ -9,6 +9,7 @@ from __future__ import annotations
 from datetime import datetime
 from typing import Any
 
+from mobile.app import review_steps
 from mobile.app.forms import BOTTLE_KINDS
 from mobile.app.theme import severity_mark
 from mobile.app.views import ClockLine, fmt_deadline, fmt_duration
@@ -82,7 +83,7 @@ def attention_lines(ctl: Any) -> list[str]:
     for c in ctl.clock_lines():
         if c.word in ("EXPIRED", "SOON"):
             out.append(f"{c.symbol} {c.word}: bottle {c.label} ({c.where}): {c.text}")
-    out.extend(ctl.conflict_lines())
+    out.extend(review_steps.conflict_lines(ctl))
     pre = ctl.cal_view(ctl.trip.pre_cal)
     if pre.verdict == "FAIL":
         sym, word = severity_mark("stop-and-check")

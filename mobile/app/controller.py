@@ -20,9 +20,6 @@ from core.records.messages import when_text
 from mobile.app import attention, device_files, hub_status, program_prefs, records_bridge, review_steps
 from mobile.app.device_files import AppPrefs
 from mobile.app.forms import BOTTLE_KINDS, FIELD_LABELS, REQUIRED_STOP_FIELDS, BottleForm, CalForm, StopForm, TripForm
-
-# the settings screen's helpers, importable from here as before the split
-from mobile.app.program_prefs import SETTING_FIELDS, setting_problem, setting_range  # noqa: F401
 from mobile.app.save_worker import SaveWorker
 from mobile.app.theme import severity_mark
 from mobile.app.views import (
@@ -139,11 +136,6 @@ class AppController:
         self.prefs = prefs
 
     @staticmethod
-    def hub_problem(target: str) -> str | None:
-        """Why a typed hub address cannot be stored or used, as one sentence; or None."""
-        return program_prefs.hub_problem(target)
-
-    @staticmethod
     def shown_address(target: str) -> str:
         """A hub address as a status line may show it (any user-info part removed)."""
         return program_prefs.shown_address(target)
@@ -179,9 +171,9 @@ class AppController:
         """Where each trip on this tablet stands with the hub (mobile.app.hub_status.HubOverview)."""
         return hub_status.overview(self)
 
-    def send_result(self, report: Any) -> Any:
-        """What a finished send did, as text (mobile.app.hub_status.send_result)."""
-        return hub_status.send_result(report, {t.id: t.title for t in self.trip_lines()})
+    def send_result(self, report: Any, titles: dict[str, str]) -> Any:
+        """What a finished send did, as text (mobile.app.hub_status.send_result); `titles` from sync_overview."""
+        return hub_status.send_result(report, titles)
 
     @staticmethod
     def send_progress_line(trip_id: str, result: str) -> str:
@@ -199,7 +191,7 @@ class AppController:
 
         if not target:
             return "Hub is empty; type a folder path or an https:// WebDAV address."
-        problem = self.hub_problem(target)
+        problem = program_prefs.hub_problem(target)
         if problem:
             return problem
         if target != self.prefs.sync_target:
@@ -679,14 +671,6 @@ class AppController:
         """The open trip's open conflicts as people read them (mobile.app.review_steps)."""
         return review_steps.conflicts(self)
 
-    def conflict_lines(self) -> list[str]:
-        """The open conflicts, one line each (the End screen's list of what needs attention)."""
-        return review_steps.conflict_lines(self)
-
-    def settler(self) -> str:
-        """Who settles a conflict on this tablet: the device's name, else the trip's crew."""
-        return review_steps.settler(self)
-
     def settle_conflict(self, conflict_id: str, keep: int) -> str | None:
         """Settles one open conflict by keeping its `keep`-th value; returns why not, or None."""
         return review_steps.settle_conflict(self, conflict_id, keep)
@@ -698,9 +682,6 @@ class AppController:
     def resubmit(self) -> str | None:
         """Hands a trip the office returned back to it; returns why not in one sentence, or None."""
         return review_steps.resubmit(self)
-
-    def conflicts_of(self, trip: Any) -> list[Any]:
-        return review_steps.conflicts_of(self, trip)
 
     def _adopt_stored(self, stored: Any) -> None:
         """UI thread: the form shows `stored` (the trip as just read or written), on the same stop."""

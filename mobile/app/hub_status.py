@@ -23,6 +23,7 @@ class HubOverview:
 
     summary: str
     lines: list[str] = field(default_factory=list)
+    titles: dict[str, str] = field(default_factory=dict)  # trip id -> "program · crew", for a send's result
 
 
 def _latest(times: list[str | None]) -> datetime | None:
@@ -49,10 +50,12 @@ def overview(ctl: Any) -> HubOverview:
     if not trips:
         return HubOverview("No trips on this tablet yet.")
     waiting, sent, conflicts = [], [], []
+    titles: dict[str, str] = {}
     last = _latest([h.pushed_at for s in states.values() for h in s.hubs])
     for t in trips:
         crew = ", ".join(t.crew) if isinstance(t.crew, list) else str(t.crew or "")
-        title = f"{t.program or 'Trip'} · {crew or '—'} · {when_text(t.started_at)}"
+        titles[t.id] = f"{t.program or 'Trip'} · {crew or '—'}"
+        title = f"{titles[t.id]} · {when_text(t.started_at)}"
         st = states.get(t.id)
         open_ = "" if t.ended_at else " (trip still open)"
         if st is not None and st.conflicts:
@@ -68,7 +71,7 @@ def overview(ctl: Any) -> HubOverview:
         f"{len(waiting)} waiting to send · {len(conflicts)} with conflicts"
     )
     summary += f" · last reached the hub {when_text(last)}." if last else " · none sent from here yet."
-    return HubOverview(summary, conflicts + waiting + sent)
+    return HubOverview(summary, conflicts + waiting + sent, titles)
 
 
 def progress_line(trip_id: str, result: str) -> str:

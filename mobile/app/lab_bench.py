@@ -9,6 +9,8 @@ from dataclasses import dataclass
 from datetime import datetime, timezone
 from typing import Any
 
+from mobile.app.views import fmt_duration
+
 __all__ = ["LabBench", "WaitingRow", "DilutionLine", "utc_now"]
 
 
@@ -61,13 +63,8 @@ class DilutionLine:
 
 
 def _left(seconds: float) -> str:
-    s = abs(seconds)
-    # a no-break space keeps a number with its unit when the list's line wraps
-    txt = (
-        f"{s / 60:.0f}\u00a0min"
-        if s < 3600
-        else (f"{s / 3600:.1f}\u00a0h" if s < 48 * 3600 else f"{s / 86400:.1f}\u00a0days")
-    )
+    # the app's one way to say a duration; no-break spaces keep a number with its unit when the line wraps
+    txt = fmt_duration(seconds).replace(" ", "\u00a0")
     return f"{txt} left" if seconds >= 0 else f"expired {txt} ago"
 
 

@@ -59,12 +59,12 @@ def settle_conflict(ctl: Any, conflict_id: str, keep: int) -> str | None:
     if ctl.trip is None:
         return "No trip is open."
     ctl.flush()  # what was typed is in the store before it is read back
-    by = ctl.settler()
+    by = settler(ctl)
     at = ctl.now().astimezone(timezone.utc)
     said: dict[str, Any] = {}
 
     def apply(trip: Any) -> Any:
-        views = {v.id: v for v in ctl.conflicts_of(trip)}
+        views = {v.id: v for v in conflicts_of(ctl, trip)}
         said["view"] = views.get(conflict_id)
         return settle(trip, conflict_id, keep=keep, by=by, at=at)
 
@@ -102,7 +102,7 @@ def resubmit(ctl: Any) -> str | None:
     if ctl.trip is None:
         return "No trip is open."
     ctl.flush()
-    by = ctl.settler()
+    by = settler(ctl)
     at = ctl.now().astimezone(timezone.utc)
 
     def apply(trip: Any) -> Any:

@@ -639,8 +639,9 @@ def _duplicates(args) -> int:  # noqa: ANN001
 
 
 def _left(seconds: float) -> str:
-    s = abs(seconds)
-    text = f"{s / 60:.0f} min" if s < 3600 else (f"{s / 3600:.1f} h" if s < 72 * 3600 else f"{s / 86400:.1f} d")
+    from mobile.app.views import fmt_duration
+
+    text = fmt_duration(seconds)
     return f"{text} left" if seconds >= 0 else f"expired {text} ago"
 
 

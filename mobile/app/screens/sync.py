@@ -70,8 +70,9 @@ class SyncScreen(BaseScreen):
             return
         self.progress = self.progress_max
         self.rows_box.clear_widgets()
-        done = ctl().send_result(report)
+        now = ctl().sync_overview()  # one read of the outbox and the trip list serves both the rows and the summary
+        done = ctl().send_result(report, now.titles)
         for line in done.lines:
             self.rows_box.add_widget(Factory.WrapLabel(text=line))
         self._result_line = done.summary
-        self.status = f"{self._result_line}\n{ctl().sync_overview().summary}"
+        self.status = f"{self._result_line}\n{now.summary}"
