@@ -462,7 +462,8 @@ def test_bod_incubator_temperature():
 
 
 def test_an_incubator_temperature_out_of_range_that_fits_as_fahrenheit_says_so():
-    # °C = (°F − 32) × 5/9, the definition of the Fahrenheit scale (NIST SP 811, appendix B, from memory): 68 °F is 20 °C.
+    # °C = (°F − 32) × 5/9, the Fahrenheit scale's definition (NIST SP 811, appendix B, from memory):
+    # 68 °F is 20 °C.
     with pytest.raises(LabInputError) as e:
         bod(bod_trip(), incubator_temp_c=68.0)
     assert "was it entered in °F? (68 °F is 20.0 °C)" in str(e.value)
