@@ -41,17 +41,13 @@ class InputValueError(ValueError):
         return self.name.rsplit(".", 1)[-1].split("]")[-1]
 
 
-def _bad(name: str, shown: object, why: str, accepted: str) -> InputValueError:
-    return InputValueError(name, shown, why, accepted)
-
-
 def _check_scalar(v: float, name: str, lo, hi, lo_open, hi_open, unit, note) -> float:
     if not math.isfinite(v):
-        raise _bad(name, v, "is not a finite number", range_text(lo, hi, unit, lo_open, hi_open) + note)
+        raise InputValueError(name, v, "is not a finite number", range_text(lo, hi, unit, lo_open, hi_open) + note)
     if lo is not None and (v < lo or (lo_open and v == lo)):
-        raise _bad(name, f"{v:g}", "is out of range", range_text(lo, hi, unit, lo_open, hi_open) + note)
+        raise InputValueError(name, f"{v:g}", "is out of range", range_text(lo, hi, unit, lo_open, hi_open) + note)
     if hi is not None and (v > hi or (hi_open and v == hi)):
-        raise _bad(name, f"{v:g}", "is out of range", range_text(lo, hi, unit, lo_open, hi_open) + note)
+        raise InputValueError(name, f"{v:g}", "is out of range", range_text(lo, hi, unit, lo_open, hi_open) + note)
     return v
 
 
@@ -106,17 +102,17 @@ def real(
         return _check_scalar(float(x), name, lo, hi, lo_open, hi_open, unit, note)
     accepted = range_text(lo, hi, unit, lo_open, hi_open) + note
     if isinstance(x, (bool, np.bool_)):
-        raise _bad(name, repr(x), "is a true/false value, not a number", accepted)
+        raise InputValueError(name, repr(x), "is a true/false value, not a number", accepted)
     if isinstance(x, (str, bytes)):
-        raise _bad(name, repr(x), "is text, not a number", accepted)
+        raise InputValueError(name, repr(x), "is text, not a number", accepted)
     if x is None:
-        raise _bad(name, "None", "is missing", accepted)
+        raise InputValueError(name, "None", "is missing", accepted)
     if isinstance(x, (float, int, np.floating, np.integer)):
         return _check_scalar(float(x), name, lo, hi, lo_open, hi_open, unit, note)
     try:
         a = np.asarray(x, dtype=np.float64)
     except (TypeError, ValueError):
-        raise _bad(name, repr(x)[:40], "is not a number or an array of numbers", accepted) from None
+        raise InputValueError(name, repr(x)[:40], "is not a number or an array of numbers", accepted) from None
     if a.ndim == 0:
         return _check_scalar(float(a), name, lo, hi, lo_open, hi_open, unit, note)
     if a.size == 0:
@@ -124,17 +120,17 @@ def real(
     finite = np.isfinite(a)
     if not finite.all():
         i = int(np.flatnonzero(~finite.ravel())[0])
-        raise _bad(f"{name}[{i}]", a.ravel()[i], "is not a finite number", accepted)
+        raise InputValueError(f"{name}[{i}]", a.ravel()[i], "is not a finite number", accepted)
     if lo is not None:
         m = a.min()
         if m < lo or (lo_open and m == lo):
             i = int(np.argmin(a.ravel()))
-            raise _bad(f"{name}[{i}]", f"{m:g}", "is out of range", accepted)
+            raise InputValueError(f"{name}[{i}]", f"{m:g}", "is out of range", accepted)
     if hi is not None:
         m = a.max()
         if m > hi or (hi_open and m == hi):
             i = int(np.argmax(a.ravel()))
-            raise _bad(f"{name}[{i}]", f"{m:g}", "is out of range", accepted)
+            raise InputValueError(f"{name}[{i}]", f"{m:g}", "is out of range", accepted)
     return a
 
 
