@@ -920,13 +920,22 @@ class DeviceStore:
 
     def save_settings(self, s: ProgramSettings) -> ProgramSettings:
         """Replaces the program settings."""
-        try:
-            checked = ProgramSettings.model_validate_json(canonical_json_bytes(s.model_dump(mode="json")))
-        except ValidationError as exc:
-            probs = problems_from_validation(exc)
-            raise InvalidRecord(one_line(probs), probs) from None
+        return self.update_settings(lambda _current: s)
+
+    def update_settings(self, apply: Callable[[ProgramSettings], ProgramSettings]) -> ProgramSettings:
+        """The read–modify–write of the program settings under the store's lock: `apply` gets the
+        settings as stored now and returns the new ones (so a change made meanwhile by a pull or
+        another command is not overwritten with an older copy)."""
         with self._locked():
-            checked = self._stamped(checked, self._tables.settings().model_dump(mode="json"))
+            current = self._tables.settings()
+            try:
+                checked = ProgramSettings.model_validate_json(
+                    canonical_json_bytes(apply(current).model_dump(mode="json"))
+                )
+            except ValidationError as exc:
+                probs = problems_from_validation(exc)
+                raise InvalidRecord(one_line(probs), probs) from None
+            checked = self._stamped(checked, current.model_dump(mode="json"))
             self._tables.write_settings(checked)
         return checked
 

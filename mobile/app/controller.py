@@ -132,7 +132,7 @@ class AppController:
         self.prefs = program_prefs.load_prefs(self.store)
 
     def save_prefs(self, prefs: AppPrefs) -> None:
-        program_prefs.save_prefs(self.store, prefs)
+        program_prefs.save_prefs(self.store, prefs, before=self.prefs)
         self.prefs = prefs
 
     @staticmethod

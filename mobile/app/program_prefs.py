@@ -94,19 +94,28 @@ def load_prefs(store: Any) -> AppPrefs:
     return prefs
 
 
-def save_prefs(store: Any, prefs: AppPrefs) -> None:
-    """The program limits into the store's program settings, units and hub into this device's file."""
-    st = store.settings().model_copy(
-        update={
-            "warm_min_mg_l": prefs.warm_min_mg_l,
-            "cold_min_mg_l": prefs.cold_min_mg_l,
-            "supersaturation_percent": prefs.supersaturation_percent,
-            "calibration_tolerance_mg_l": prefs.tolerance_mg_l,
-            "method": prefs.method,
-            "percent_basis": prefs.percent_basis,
-        }
-    )
-    store.save_settings(st)
+#: The program settings the settings screen edits: settings field → AppPrefs field.
+_PROGRAM_FIELDS = {
+    "warm_min_mg_l": "warm_min_mg_l",
+    "cold_min_mg_l": "cold_min_mg_l",
+    "supersaturation_percent": "supersaturation_percent",
+    "calibration_tolerance_mg_l": "tolerance_mg_l",
+    "method": "method",
+    "percent_basis": "percent_basis",
+}
+
+
+def save_prefs(store: Any, prefs: AppPrefs, before: AppPrefs | None = None) -> None:
+    """The program limits the person changed (against `before`, what the screen was loaded with;
+    None: all of them) into the store's program settings, read and written under the store's lock,
+    so a value a pull brought meanwhile is not put back; units and hub into this device's file."""
+    changed = {
+        key: getattr(prefs, attr)
+        for key, attr in _PROGRAM_FIELDS.items()
+        if before is None or getattr(prefs, attr) != getattr(before, attr)
+    }
+    if changed:
+        store.update_settings(lambda current: current.model_copy(update=changed))
     device_files.write_local_prefs(store.data_dir, prefs)
 
 

@@ -471,3 +471,25 @@ def test_a_returned_trip_is_handed_back_from_the_tablet(tmp_path):
     assert c.returned_reasons() is None
     assert "cannot resubmit" in c.resubmit()  # only a returned trip can be handed back
     c.worker.flush()
+
+
+def test_saving_the_screen_never_puts_back_a_setting_changed_meanwhile(ctl):
+    """The settings screen writes only what the person changed, under the store's lock (common practice
+    for shared settings: a stale copy must not overwrite a newer one that a pull or the office brought)."""
+    ctl.load_prefs()
+    other = DeviceStore.open(ctl.store.data_dir)  # a pull or a command in another process, meanwhile
+    other.save_settings(other.settings().model_copy(update={"warm_min_mg_l": 5.5, "program": "From the office"}))
+    # the sync screen keeps a new hub address: no program setting changed on this tablet
+    ctl.send("/nonexistent-hub-for-this-test", progress=lambda *a: None, on_done=lambda *a: None)
+    assert ctl.store.settings().warm_min_mg_l == 5.5
+    # the settings screen changes one limit: that one is written, the office's value stays
+    units = {"temp_unit": "C", "pressure_unit": "hPa", "cond_unit": "µS/cm", "do_unit": "mg/L"}
+    limits = {
+        "calibration_tolerance_mg_l": f"{ctl.prefs.tolerance_mg_l:g}",
+        "warm_min_mg_l": f"{ctl.prefs.warm_min_mg_l:g}",  # shown before the office's change, untouched
+        "cold_min_mg_l": "7",
+        "supersaturation_percent": f"{ctl.prefs.supersaturation_percent:g}",
+    }
+    assert ctl.save_settings_form(units, limits, "") is None
+    st = ctl.store.settings()
+    assert (st.cold_min_mg_l, st.warm_min_mg_l, st.program) == (7.0, 5.5, "From the office")
