@@ -698,12 +698,17 @@ class WebDavTarget:
         return out
 
     def log_list(self, device: str) -> tuple[list[str], float | None]:
+        names, listed_at = self._file_names(f"{LOG}/{device}/")
+        return sorted(names), listed_at
+
+    def _file_names(self, rel: str) -> tuple[list[str], float | None]:
+        """The names of the files directly in folder `rel` from one Depth-1 PROPFIND, and the ``Date``
+        of that answer (server clock); ([], None) when the folder does not exist."""
         self.listed_at = None
-        entries = self._propfind(f"{LOG}/{device}/", "1")
+        entries = self._propfind(rel, "1")
         if entries is None:
             return [], None
-        names = [p.rstrip("/").rsplit("/", 1)[-1] for p, col, _ in entries if not col]
-        return sorted(names), self.listed_at
+        return [p.rstrip("/").rsplit("/", 1)[-1] for p, col, *_ in entries if not col], self.listed_at
 
     def log_read(self, device: str, name: str, max_bytes: int) -> bytes:
         data = self._get_bytes(f"{LOG}/{device}/{name}", max_bytes)
@@ -873,14 +878,8 @@ class WebDavTarget:
     def list_program_folder(self, kind: str) -> tuple[frozenset[str], float | None]:
         """The table files of one kind from one Depth-1 PROPFIND of its folder, and the ``Date``
         of that answer (server clock)."""
-        self.listed_at = None
-        entries = self._propfind(program_dir(kind), "1") or []
-        names = frozenset(
-            name
-            for relpath, is_col, *_ in entries
-            if not is_col and is_program_name(name := relpath.rstrip("/").rsplit("/", 1)[-1])
-        )
-        return names, self.listed_at
+        names, listed_at = self._file_names(program_dir(kind))
+        return frozenset(n for n in names if is_program_name(n)), listed_at
 
     def read_program(self, kind: str, name: str, max_bytes: int) -> bytes:
         rel = program_dir(kind) + name

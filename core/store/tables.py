@@ -49,6 +49,10 @@ def salvage(model: type[M], doc: dict[str, Any], *, rounds: int = 50) -> tuple[M
     at most `rounds` passes."""
     if not isinstance(doc, dict):
         return None, ["(the whole record)"]
+    try:  # a whole valid record (the usual case) costs one validation
+        return model.model_validate_json(canonical_json_bytes(doc)), []
+    except (ValidationError, ValueError, RecursionError):
+        pass
     # a value JSON cannot carry (NaN) or the validator cannot parse (nested too deep) is left out first
     work: dict[str, Any] = {}
     dropped: list[str] = []
